@@ -1,0 +1,64 @@
+"""The ``linkage`` command group.
+
+Subcommands are loaded lazily (only the one that runs is imported), so that a
+what-if does not pay for the report's imports.
+"""
+
+from __future__ import annotations
+
+import importlib
+import sys
+
+import click
+
+from linkage import __version__
+
+#: command name -> "module:function". Each module lives in linkage/cli/.
+COMMANDS: dict[str, str] = {
+    "demo": "linkage.cli.demo:demo",
+    "ingest": "linkage.cli.store_cmds:ingest",
+    "lots": "linkage.cli.store_cmds:lots",
+    "history": "linkage.cli.store_cmds:history",
+    "assemble": "linkage.cli.store_cmds:assemble",
+    "train": "linkage.cli.model_cmds:train",
+    "models": "linkage.cli.model_cmds:models",
+    "window": "linkage.cli.decide_cmds:window",
+    "predict": "linkage.cli.decide_cmds:predict",
+    "report": "linkage.cli.report_cmds:report",
+}
+
+
+class LazyGroup(click.Group):
+    def list_commands(self, ctx):
+        return sorted(name for name in COMMANDS if self._available(name))
+
+    @staticmethod
+    def _available(name: str) -> bool:
+        module = COMMANDS[name].split(":")[0]
+        return importlib.util.find_spec(module) is not None
+
+    def get_command(self, ctx, name):
+        if name not in COMMANDS or not self._available(name):
+            return None
+        module, attr = COMMANDS[name].split(":")
+        return getattr(importlib.import_module(module), attr)
+
+
+@click.group(cls=LazyGroup, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="linkage")
+def cli():
+    """Roller compaction, lot by lot: ingest lab exports, train linked stage
+    models (settings -> ribbon -> granules -> tablets), find the ribbon porosity
+    window and predict what a batch will do.
+
+    Decision support only, not release testing.
+
+    \b
+    Example:
+      linkage demo
+      linkage ingest data_demo/lots && linkage train && linkage window --spec data_demo/lots/spec.toml
+    """
+
+
+def main() -> None:  # pragma: no cover - entry point
+    sys.exit(cli())

@@ -1,0 +1,1 @@
+"""Decisions built on a trained chain: porosity window, what-if, retraining."""

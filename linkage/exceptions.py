@@ -1,0 +1,99 @@
+"""Exceptions of linkage, one place for all of them.
+
+They subclass built-ins (as scikit-learn's do), so a caller's ordinary
+``except ValueError`` still catches bad input. The CLI turns every
+:class:`LinkageError` into a message and an exit code; nothing else does.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+class LinkageError(Exception):
+    """Base class of every error linkage raises on purpose."""
+
+    exit_code = 1
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One broken rule in one cell of one input file.
+
+    ``row`` is the spreadsheet row as a person sees it: the header is row 1,
+    the first data row is row 2. ``None`` where the problem is not a cell's
+    (a missing column, a file-level rule).
+    """
+
+    file: str
+    rule: str
+    row: int | None = None
+    column: str | None = None
+    value: object = None
+
+    def __str__(self) -> str:
+        where = self.file
+        if self.row is not None:
+            where += f", row {self.row}"
+        if self.column is not None:
+            where += f", column '{self.column}'"
+        shown = "" if self.value is None else f", value {self.value!r}"
+        return f"{where}{shown}: {self.rule}"
+
+
+class InputError(LinkageError, ValueError):
+    """Bad input: every problem of a file (or of a run) at once. Exit code 2."""
+
+    exit_code = 2
+
+    def __init__(self, problems: list[Problem] | Problem | str):
+        if isinstance(problems, str):
+            problems = [Problem(file="input", rule=problems)]
+        elif isinstance(problems, Problem):
+            problems = [problems]
+        self.problems = list(problems)
+        super().__init__(self._text())
+
+    def _text(self) -> str:
+        n = len(self.problems)
+        head = f"{n} problem{'s' if n != 1 else ''} found; nothing was written."
+        return "\n".join([head, *(f"  - {p}" for p in self.problems)])
+
+
+class SpecError(InputError):
+    """A specification file breaks a rule (unknown attribute, min above max...)."""
+
+
+class UsageError(LinkageError, ValueError):
+    """A command was called with names or values it cannot use. Exit code 2."""
+
+    exit_code = 2
+
+
+class StoreBusyError(LinkageError, RuntimeError):
+    """Another process holds the lot store's write lock for too long."""
+
+    exit_code = 3
+
+
+class StoreError(LinkageError, RuntimeError):
+    """The lot store cannot be opened or is not a linkage store."""
+
+
+class ModelIntegrityError(LinkageError, RuntimeError):
+    """A model artifact does not match the hash the registry recorded for it,
+    or lies outside the registry. It is never loaded (joblib runs code)."""
+
+    exit_code = 4
+
+
+class ModelNotFoundError(LinkageError, LookupError):
+    """No model with that id in the registry."""
+
+    exit_code = 2
+
+
+class InsufficientDataError(LinkageError, ValueError):
+    """Too few lots (or too little variation) to do what was asked."""
+
+    exit_code = 2

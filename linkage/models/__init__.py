@@ -1,0 +1,1 @@
+"""Stage models: candidates, grouped cross-validation, intervals, domain, registry."""

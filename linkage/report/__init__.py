@@ -1,0 +1,1 @@
+"""Figures and the self-contained HTML report."""
