@@ -1,0 +1,261 @@
+"""One row per lot: the raw tables joined by lot, with derived quantities.
+
+The input is the dict of validated tables that :func:`linkage.read.read_folder`
+or :meth:`linkage.store.LotStore.current_tables` returns; the output is the
+assembled table whose columns :data:`linkage.schema.ASSEMBLED` lists. Every
+derived number comes from a function of :mod:`linkage.physics`; this module
+only groups rows by lot and calls them.
+
+Methods (stated here because they change numbers):
+
+- ``ribbon_porosity`` is the mean over replicates of 1 − envelope/skeletal
+  density, each replicate with its own skeletal density; ``ribbon_porosity_sd``
+  is their sample SD (n − 1), NaN for a single replicate;
+  ``ribbon_solid_fraction`` = 1 − ``ribbon_porosity``.
+- Granule d-values are interpolated on the cumulative undersize curve,
+  linearly in ln(size) between the bracketing apertures
+  (:func:`linkage.physics.psd.percentile_size_um`, ``method="log"``). A d-value
+  that falls below the finest aperture or above the coarsest is NaN, and the
+  reason is written to the table's notes. Laser-diffraction d-values are used
+  only for lots without a sieve analysis (``granule_size_source`` says which).
+- ``fines_pct`` is the mass percent passing ``fines_cutoff_um`` (125 µm by
+  default) on the same curve.
+- Tensile strength follows Fell & Newton (1970) for flat-faced tablets and
+  Pitt, Newton & Stanley (1988) when a cup depth is given.
+- ``weight_rsd_pct`` comes from individual tablet weights when the lot has
+  them (sample SD over mean), otherwise from the tablets table; the value the
+  lab reported stays in ``weight_rsd_reported_pct``. The acceptance value of
+  weight variation (USP <905>) assumes an assay of 100 % of label claim and is
+  given only for 10 or 30 units, the sample sizes the chapter defines.
+- ``dissolution_pct`` comes from vessel data when the lot has them: each
+  vessel's profile is interpolated linearly in time at the spec time point (no
+  extrapolation), then averaged over vessels. The S1 verdict (USP <711>) needs
+  Q, the spec's dissolution minimum, and is given where Q is known.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from linkage.exceptions import InputError, Problem
+from linkage.physics import pharmacopeia, psd, tablet
+from linkage.physics.porosity import porosity as _porosity
+from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN, DEFAULT_FINES_CUTOFF_UM
+
+#: order of the leading columns; every other process column follows them
+_LEADING = [
+    "lot", "product", "compactor", "manufactured_at",
+    "roll_force_kn_per_cm", "roll_gap_mm", "roll_speed_rpm", "screw_speed_rpm", "mill_screen_mm",
+    "compression_force_kn",
+]
+
+
+def assemble(
+    tables: dict[str, pd.DataFrame],
+    *,
+    fines_cutoff_um: float = DEFAULT_FINES_CUTOFF_UM,
+    dissolution_time_min: float = DEFAULT_DISSOLUTION_TIME_MIN,
+    dissolution_q_pct: float | None = None,
+) -> pd.DataFrame:
+    """Join the raw tables into one row per lot with the derived quantities.
+
+    Parameters
+    ----------
+    tables : dict of DataFrames keyed by table name (``process`` required).
+    fines_cutoff_um : size below which granules count as fines [µm].
+    dissolution_time_min : time point of ``dissolution_pct`` [min].
+    dissolution_q_pct : Q of the dissolution specification [% label claim],
+        for the S1 verdict; ``None`` leaves the verdict empty.
+
+    Returns
+    -------
+    DataFrame, one row per lot, in time order (``manufactured_at``) when it is
+    known, else by lot. ``table.attrs["notes"]`` lists every value that could
+    not be derived, with the lot and the reason.
+    """
+    if "process" not in tables or tables["process"].empty:
+        raise InputError([Problem(file="process", rule="the process table is required and has no rows")])
+    process = tables["process"].copy()
+    process["lot"] = process["lot"].astype(str)
+    _refuse_orphans(tables, set(process["lot"]))
+    notes: list[str] = []
+
+    out = process.set_index("lot", drop=False)
+    parts = [
+        _ribbon(tables.get("ribbon")),
+        _granules(tables.get("granules"), tables.get("granules_laser"), fines_cutoff_um, notes),
+        _tablets(tables.get("tablets"), tables.get("tablet_weights"), notes),
+        _dissolution(tables.get("dissolution"), dissolution_time_min, dissolution_q_pct, notes),
+    ]
+    for part in parts:
+        if part is not None and not part.empty:
+            out = out.join(part, how="left", rsuffix="_dup")
+    # vessel results replace the reported lot mean where both exist
+    if "dissolution_from_vessels_pct" in out:
+        reported = out["dissolution_pct"] if "dissolution_pct" in out else pd.Series(np.nan, index=out.index)
+        out["dissolution_reported_pct"] = reported
+        out["dissolution_pct"] = out["dissolution_from_vessels_pct"].where(
+            out["dissolution_from_vessels_pct"].notna(), reported
+        )
+        out = out.drop(columns="dissolution_from_vessels_pct")
+
+    leading = [c for c in _LEADING if c in out.columns]
+    out = out[leading + [c for c in out.columns if c not in leading]].reset_index(drop=True)
+    if "manufactured_at" in out and out["manufactured_at"].notna().any():
+        out = out.sort_values(["manufactured_at", "lot"], kind="stable", na_position="last")
+    else:
+        out = out.sort_values("lot", kind="stable")
+    out = out.reset_index(drop=True)
+    out.attrs["notes"] = notes
+    out.attrs["fines_cutoff_um"] = float(fines_cutoff_um)
+    out.attrs["dissolution_time_min"] = float(dissolution_time_min)
+    return out
+
+
+def _refuse_orphans(tables: dict[str, pd.DataFrame], known: set[str]) -> None:
+    problems = []
+    for name, df in tables.items():
+        if name == "process" or df is None or df.empty or "lot" not in df:
+            continue
+        for lot in sorted(set(df["lot"].astype(str)) - known):
+            problems.append(Problem(file=name, column="lot", value=lot,
+                                    rule="results for a lot with no process record"))
+    if problems:
+        raise InputError(problems)
+
+
+def _ribbon(ribbon: pd.DataFrame | None) -> pd.DataFrame | None:
+    if ribbon is None or ribbon.empty:
+        return None
+    df = ribbon.copy()
+    df["lot"] = df["lot"].astype(str)
+    df["_porosity"] = _porosity(df["envelope_density_g_cm3"].to_numpy(float),
+                                df["skeletal_density_g_cm3"].to_numpy(float))
+    g = df.groupby("lot", sort=False)["_porosity"]
+    out = pd.DataFrame({
+        "ribbon_porosity": g.mean(),
+        "ribbon_porosity_sd": g.std(ddof=1),
+        "ribbon_samples": g.count().astype(float),
+    })
+    out["ribbon_solid_fraction"] = 1.0 - out["ribbon_porosity"]
+    bend = ["ribbon_break_force_n", "ribbon_span_mm", "ribbon_width_mm", "ribbon_thickness_mm"]
+    if all(c in df for c in bend):
+        df["_ribbon_ts"] = tablet.ribbon_tensile_strength_mpa(*(df[c].to_numpy(float) for c in bend))
+        out["ribbon_tensile_strength_mpa"] = df.groupby("lot", sort=False)["_ribbon_ts"].mean()
+    return out
+
+
+def _granules(sieve: pd.DataFrame | None, laser: pd.DataFrame | None, cutoff_um: float,
+              notes: list[str]) -> pd.DataFrame | None:
+    rows = {}
+    if sieve is not None and not sieve.empty:
+        for lot, g in sieve.groupby(sieve["lot"].astype(str), sort=False):
+            sizes = g["sieve_um"].to_numpy(float)
+            masses = g["retained_g"].to_numpy(float)
+            if np.isnan(masses).any():
+                notes.append(f"lot {lot}: a sieve fraction has no mass; granule sizes not derived")
+                continue
+            aperture, undersize = psd.cumulative_undersize_pct(sizes, masses)
+            d = {}
+            for q in (10, 50, 90):
+                d[q] = float(psd.percentile_size_um(aperture, undersize, q, method="log"))
+                if np.isnan(d[q]):
+                    notes.append(f"lot {lot}: d{q} lies outside the sieve stack "
+                                 f"(undersize {undersize[0]:.1f}% at {aperture[0]:g} um, "
+                                 f"{undersize[-1]:.1f}% at {aperture[-1]:g} um)")
+            row = {
+                "granule_d10_um": d[10], "granule_d50_um": d[50], "granule_d90_um": d[90],
+                "granule_span": float(psd.span(d[10], d[50], d[90])),
+                "granule_size_source": "sieve",
+                "fines_pct": float(psd.fines_pct(sizes, masses, cutoff_um=cutoff_um)),
+            }
+            inside = (undersize > 0) & (undersize < 100)
+            if inside.sum() >= 3:
+                fit = psd.fit_rrsb(aperture, undersize)
+                row["rrsb_x_prime_um"], row["rrsb_n"] = fit["x_prime_um"], fit["n"]
+            else:
+                notes.append(f"lot {lot}: fewer than 3 points inside (0, 100)% undersize; no RRSB fit")
+            rows[lot] = row
+    if laser is not None and not laser.empty:
+        for rec in laser.itertuples(index=False):
+            lot = str(rec.lot)
+            if lot in rows:
+                rows[lot].update(laser_d10_um=rec.d10_um, laser_d50_um=rec.d50_um, laser_d90_um=rec.d90_um)
+                continue
+            rows[lot] = {
+                "granule_d10_um": rec.d10_um, "granule_d50_um": rec.d50_um, "granule_d90_um": rec.d90_um,
+                "granule_span": float(psd.span(rec.d10_um, rec.d50_um, rec.d90_um)),
+                "granule_size_source": "laser",
+                "laser_d10_um": rec.d10_um, "laser_d50_um": rec.d50_um, "laser_d90_um": rec.d90_um,
+            }
+    if not rows:
+        return None
+    return pd.DataFrame.from_dict(rows, orient="index")
+
+
+def _tablets(tablets: pd.DataFrame | None, weights: pd.DataFrame | None,
+             notes: list[str]) -> pd.DataFrame | None:
+    out = None
+    if tablets is not None and not tablets.empty:
+        df = tablets.copy()
+        df["lot"] = df["lot"].astype(str)
+        out = df.set_index("lot")
+        if {"breaking_force_n", "diameter_mm", "thickness_mm"} <= set(out.columns):
+            cup = out["cup_depth_mm"].to_numpy(float) if "cup_depth_mm" in out else np.zeros(len(out))
+            out["tensile_strength_mpa"] = tablet.tensile_strength_mpa(
+                out["breaking_force_n"].to_numpy(float), out["diameter_mm"].to_numpy(float),
+                out["thickness_mm"].to_numpy(float), cup)
+            out["tensile_strength_method"] = tablet.tensile_strength_method(cup)
+        if "weight_rsd_pct" in out:
+            out["weight_rsd_reported_pct"] = out["weight_rsd_pct"]
+    if weights is not None and not weights.empty:
+        rows = {}
+        for lot, g in weights.groupby(weights["lot"].astype(str), sort=False):
+            w = g["weight_mg"].to_numpy(float)
+            row = {"weight_units": float(len(w)), "weight_rsd_from_units_pct": float(pharmacopeia.relative_sd_pct(w))}
+            if len(w) in (10, 30):
+                contents = pharmacopeia.weight_variation_contents_pct(w, assay_pct=100.0)
+                row["weight_acceptance_value"] = float(pharmacopeia.acceptance_value(contents)["av"])
+            else:
+                notes.append(f"lot {lot}: {len(w)} tablet weights; the acceptance value is defined "
+                             "for 10 or 30 units, so none was computed")
+            rows[lot] = row
+        units = pd.DataFrame.from_dict(rows, orient="index")
+        out = units if out is None else out.join(units, how="outer")
+        reported = out["weight_rsd_pct"] if "weight_rsd_pct" in out else pd.Series(np.nan, index=out.index)
+        out["weight_rsd_pct"] = out["weight_rsd_from_units_pct"].where(
+            out["weight_rsd_from_units_pct"].notna(), reported)
+        out = out.drop(columns="weight_rsd_from_units_pct")
+    return out
+
+
+def _dissolution(vessels: pd.DataFrame | None, time_min: float, q_pct: float | None,
+                 notes: list[str]) -> pd.DataFrame | None:
+    if vessels is None or vessels.empty:
+        return None
+    rows = {}
+    for lot, g in vessels.groupby(vessels["lot"].astype(str), sort=False):
+        released = []
+        for vessel, v in g.groupby(g["vessel"].astype(str), sort=False):
+            v = v.dropna(subset=["released_pct"]).sort_values("time_min")
+            t = v["time_min"].to_numpy(float)
+            r = v["released_pct"].to_numpy(float)
+            if len(t) == 0 or time_min < t[0] or time_min > t[-1]:
+                notes.append(f"lot {lot}, vessel {vessel}: no result at or around {time_min:g} min")
+                continue
+            released.append(float(np.interp(time_min, t, r)))
+        if not released:
+            continue
+        released = np.asarray(released)
+        row = {
+            "dissolution_from_vessels_pct": float(released.mean()),
+            "dissolution_sd_pct": float(released.std(ddof=1)) if len(released) > 1 else np.nan,
+            "dissolution_vessels": float(len(released)),
+        }
+        if q_pct is not None and len(released) in (6, 12, 24):
+            row["dissolution_s1_pass"] = bool(pharmacopeia.dissolution_s1_pass(released[:6], q_pct))
+            verdict = pharmacopeia.dissolution_stage(released, q_pct)
+            row["dissolution_stage_verdict"] = f"{verdict['stage']} {'pass' if verdict['passed'] else 'fail'}"
+        rows[lot] = row
+    return pd.DataFrame.from_dict(rows, orient="index") if rows else None
