@@ -1,0 +1,140 @@
+"""Monte Carlo through the chain: settings → ribbon → granules → tablets.
+
+A draw of a lot is built stage by stage. A stage's targets are its selected
+model's prediction at the draw's inputs plus a residual vector taken from one
+training lot's out-of-fold residuals (lots are the exchangeable unit, and
+taking a whole lot's residual vector keeps the correlation between a stage's
+targets, say tensile strength and friability). Out-of-fold residuals are
+errors on lots the model did not see, so they carry both measurement noise
+and model error. A value the user measured replaces the stage's draw and
+carries no model error.
+
+Draws use common random numbers: the same residual lots for every row of
+the inputs, so that a curve over porosity is smooth and two rows differ only
+by their inputs.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from linkage.exceptions import UsageError
+
+
+@dataclass
+class Draws:
+    """Simulated lots: ``values[name]`` is an array of shape (rows, draws)."""
+
+    values: dict[str, np.ndarray]
+    means: dict[str, np.ndarray]  # deterministic chain of mean predictions, shape (rows,)
+    fixed: set[str]  # names given by the user (measured or set), not predicted
+
+    @property
+    def n_draws(self) -> int:
+        return next(iter(self.values.values())).shape[1]
+
+
+def simulate(chain, inputs: pd.DataFrame, *, n_draws: int = 2000, seed: int = 0) -> Draws:
+    """Draw ``n_draws`` lots for each row of ``inputs`` through the chain.
+
+    ``inputs`` holds one column per given name: root settings (all required;
+    the caller fills unset ones) and, optionally, measured stage targets such
+    as ``ribbon_porosity``, which replace the prediction for that target.
+    """
+    rows = len(inputs)
+    rng = np.random.default_rng(seed)
+    values: dict[str, np.ndarray] = {}
+    means: dict[str, np.ndarray] = {}
+    fixed = set(inputs.columns)
+    for name in inputs.columns:
+        col = inputs[name].to_numpy(float)
+        values[name] = np.repeat(col[:, None], n_draws, axis=1)
+        means[name] = col
+    for stage in chain.stages:
+        todo = [t for t in stage.targets if t not in fixed]
+        if not todo:
+            continue
+        missing = [c for c in stage.inputs if c not in values]
+        if missing:
+            raise UsageError(f"stage '{stage.name}' needs {', '.join(missing)}, which were neither given "
+                             "nor predicted by an earlier stage")
+        residuals = stage.residual_table()
+        pick = rng.integers(0, len(residuals), size=n_draws)
+        # one wide frame: rows × draws, in row-major order
+        x = pd.DataFrame({c: values[c].reshape(-1) for c in stage.inputs})
+        x_mean = pd.DataFrame({c: means[c] for c in stage.inputs})
+        for name in todo:
+            target = stage.targets[name]
+            r = _residual_column(residuals, name, pick, rng)
+            pred = np.asarray(target.predict(x[target.inputs]), float).reshape(rows, n_draws)
+            values[name] = pred + r[None, :]
+            means[name] = np.asarray(target.predict(x_mean[target.inputs]), float)
+    return Draws(values=values, means=means, fixed=fixed)
+
+
+def _residual_column(residuals: pd.DataFrame, name: str, pick: np.ndarray, rng) -> np.ndarray:
+    """The picked lots' residuals of one target; a lot without that target is
+    replaced by a random lot that has it (still one whole lot per draw for the
+    targets it measured)."""
+    col = residuals[name].to_numpy(float)
+    have = np.flatnonzero(~np.isnan(col))
+    if len(have) == 0:
+        raise UsageError(f"no out-of-fold residuals for {name}; the model cannot give it an uncertainty")
+    r = col[pick]
+    gaps = np.isnan(r)
+    if gaps.any():
+        r[gaps] = col[rng.choice(have, size=int(gaps.sum()))]
+    return r
+
+
+def within(values: np.ndarray, limit) -> np.ndarray:
+    """Boolean array: values inside a spec limit (min and max inclusive)."""
+    ok = np.ones(np.shape(values), dtype=bool)
+    if limit.min is not None:
+        ok &= values >= limit.min
+    if limit.max is not None:
+        ok &= values <= limit.max
+    return ok
+
+
+def pass_matrix(draws: Draws, spec, attributes: list[str]) -> dict[str, np.ndarray]:
+    """Per attribute, a boolean array (rows, draws): does the draw meet its limits."""
+    return {name: within(draws.values[name], spec.limits[name]) for name in attributes}
+
+
+def mean_passes(draws: Draws, spec, attributes: list[str]) -> dict[str, np.ndarray]:
+    """Per attribute, does the chain of mean predictions meet its limits (rows,)."""
+    return {name: within(draws.means[name], spec.limits[name]) for name in attributes}
+
+
+def needed_settings(chain, given: set[str]) -> list[str]:
+    """Root inputs the chain needs when the names in ``given`` are known: a
+    stage whose targets are all given is skipped, and so are its inputs."""
+    produced = set(given)
+    needed: list[str] = []
+    for stage in chain.stages:
+        if all(t in given for t in stage.targets):
+            continue
+        for name in stage.inputs:
+            if name not in produced and name not in needed:
+                needed.append(name)
+        produced.update(stage.targets)
+    return needed
+
+
+def fill_settings(chain, given: dict[str, float]) -> tuple[dict[str, float], dict[str, str]]:
+    """The given values plus every other needed setting at its training
+    median. Returns the values and, per name, where it came from."""
+    values = dict(given)
+    source = {name: "given" for name in given}
+    medians = chain.training["medians"]
+    for name in needed_settings(chain, set(given)):
+        if name not in medians or medians[name] is None or not np.isfinite(medians[name]):
+            raise UsageError(f"{name} was not given and the training lots have no median for it; "
+                             f"give it with --set {name}=VALUE")
+        values[name] = float(medians[name])
+        source[name] = "training median"
+    return values, source

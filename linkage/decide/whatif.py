@@ -1,0 +1,218 @@
+"""What-if: predict every downstream attribute of a planned or running batch.
+
+Given settings and/or measured values (a measured ``ribbon_porosity`` from the
+at-line test, say), every attribute the chain predicts downstream is given
+with an interval at the stated level, the probability of meeting its
+specification, the applicability-domain verdict and the three largest
+contributions.
+
+Intervals: where every input of an attribute's stage is known (given or
+held), the interval is the stage model's CV+ conformal interval with lots as
+the exchangeable unit. Where an input is itself predicted (tablet attributes
+from settings alone), the interval is the central quantile range of the
+Monte Carlo draws through the chain, which carries the upstream uncertainty
+too; ``interval_method`` says which was used. Probabilities of passing always
+come from the draws.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+
+import numpy as np
+import pandas as pd
+
+from linkage import CAUTION
+from linkage.decide.propagate import fill_settings, simulate, within
+from linkage.exceptions import UsageError
+from linkage.schema import TABLES
+
+#: fractions that must lie strictly between 0 and 1
+_FRACTIONS = {"ribbon_porosity", "ribbon_solid_fraction"}
+
+
+def valid_names(chain) -> list[str]:
+    """Names a what-if accepts: the chain's settings and its stage targets."""
+    roots = list(chain.chain.root_inputs())
+    return roots + [t for t in chain.chain.targets() if t not in roots]
+
+
+def parse_assignments(pairs: list[str]) -> dict[str, float]:
+    """``["roll_gap_mm=2.5", ...]`` → dict, with a clear error for each bad pair."""
+    out: dict[str, float] = {}
+    problems = []
+    for pair in pairs:
+        name, sep, text = pair.partition("=")
+        name = name.strip()
+        if not sep or not name:
+            problems.append(f"'{pair}' is not NAME=VALUE")
+            continue
+        try:
+            value = float(text.strip())
+        except ValueError:
+            problems.append(f"{name}: '{text.strip()}' is not a number")
+            continue
+        if name in out:
+            problems.append(f"{name} is set twice")
+        out[name] = value
+    if problems:
+        raise UsageError("; ".join(problems))
+    return out
+
+
+def check_values(chain, values: dict[str, float], *, row: int | None = None) -> None:
+    """Refuse unknown names, non-finite values and physically impossible ones."""
+    names = valid_names(chain)
+    where = "" if row is None else f"row {row}: "
+    unknown = [n for n in values if n not in names]
+    problems = [f"{where}unknown name '{n}'" for n in unknown]
+    if unknown:
+        problems.append(f"valid names are: {', '.join(names)}")
+    for name, value in values.items():
+        if name in unknown:
+            continue
+        if not math.isfinite(value):
+            problems.append(f"{where}{name} = {value} is not a finite number")
+        elif name in _FRACTIONS and not 0 < value < 1:
+            problems.append(f"{where}{name} = {value} must lie between 0 and 1 (a fraction, not a percent)")
+        else:
+            column = _schema_column(name)
+            if column is not None:
+                low_ok = column.low is None or (value >= column.low if column.low_inclusive else value > column.low)
+                high_ok = column.high is None or (value <= column.high if column.high_inclusive else value < column.high)
+                if not (low_ok and high_ok):
+                    problems.append(f"{where}{name} = {value} is outside the possible range "
+                                    f"{column.bound_text()} [{column.unit}]")
+    if problems:
+        raise UsageError("; ".join(problems))
+
+
+def _schema_column(name):
+    for table in TABLES.values():
+        if name in table.names:
+            return table.column(name)
+    return None
+
+
+@dataclass
+class WhatIf:
+    model_id: str
+    made_at: str
+    level: float
+    inputs: dict[str, dict]
+    predictions: dict[str, dict]
+    p_pass_all: float | None
+    in_domain: bool
+    domain_reasons: list[str]
+    domain: dict[str, dict] = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        return {
+            "model_id": self.model_id,
+            "made_at": self.made_at,
+            "interval_level": self.level,
+            "inputs": self.inputs,
+            "predictions": self.predictions,
+            "p_pass_all": self.p_pass_all,
+            "in_domain": self.in_domain,
+            "domain_reasons": self.domain_reasons,
+            "domain": self.domain,
+            "caution": CAUTION,
+        }
+
+
+def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float | None = None,
+                   n_draws: int = 4000, seed: int = 0, contributions: bool = True) -> WhatIf:
+    """Predict every downstream attribute for one set of values."""
+    check_values(chain, values)
+    level = float(level if level is not None else chain.nominal_coverage)
+    if not 0 < level < 1:
+        raise UsageError(f"interval level must lie between 0 and 1; got {level}")
+    filled, source = fill_settings(chain, values)
+    frame = pd.DataFrame({k: [v] for k, v in filled.items()})
+    draws = simulate(chain, frame, n_draws=n_draws, seed=seed)
+    q = (1 - level) / 2
+
+    predictions: dict[str, dict] = {}
+    reasons: list[str] = []
+    domain: dict[str, dict] = {}
+    spec_limits = spec.limits if spec is not None else {}
+    pass_all = np.ones(draws.n_draws, dtype=bool)
+    any_spec = False
+    for stage in chain.stages:
+        todo = [t for t in stage.targets if t not in draws.fixed]
+        if not todo:
+            continue
+        x = pd.DataFrame({c: draws.means[c] for c in stage.inputs})
+        verdict = stage.domain.check(x)[0]
+        domain[stage.name] = {
+            "in_domain": bool(verdict.in_domain), "t2": _num(verdict.t2), "t2_limit": _num(verdict.t2_limit),
+            "q": _num(verdict.q), "q_limit": _num(verdict.q_limit), "reasons": list(verdict.reasons),
+        }
+        reasons += [f"{stage.name} stage: {r}" for r in verdict.reasons]
+        inputs_known = all(c in draws.fixed for c in stage.inputs)
+        for name in todo:
+            target = stage.targets[name]
+            v = draws.values[name][0]
+            if inputs_known:
+                lo, hi = target.interval(x[target.inputs], level)
+                low, high, method = float(lo[0]), float(hi[0]), "cv+ conformal"
+            else:
+                low, high = (float(a) for a in np.quantile(v, [q, 1 - q]))
+                method = "monte carlo through the chain"
+            entry = {
+                "value": float(draws.means[name][0]), "low": low, "high": high,
+                "interval_method": method, "selected_model": target.selected,
+            }
+            if name in spec_limits:
+                ok = within(v, spec_limits[name])
+                entry["p_pass"] = float(ok.mean())
+                entry["limits"] = {"min": spec_limits[name].min, "max": spec_limits[name].max}
+                pass_all &= ok
+                any_spec = True
+            if contributions:
+                entry["contributions"] = _top_contributions(target, x[target.inputs])
+            predictions[name] = entry
+
+    inputs = {k: {"value": float(filled[k]), "source": source[k]} for k in filled}
+    return WhatIf(
+        model_id=getattr(chain, "model_id", None) or "unsaved",
+        made_at=datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        level=level, inputs=inputs, predictions=predictions,
+        p_pass_all=float(pass_all.mean()) if any_spec else None,
+        in_domain=not reasons, domain_reasons=reasons, domain=domain,
+    )
+
+
+def predict_many(chain, rows: pd.DataFrame, **kwargs) -> list[WhatIf]:
+    """One what-if per row of ``rows`` (columns are names; empty cells are unset)."""
+    problems = []
+    records = []
+    for i, rec in enumerate(rows.to_dict(orient="records"), start=2):
+        values = {}
+        for k, v in rec.items():
+            if v is None or (isinstance(v, float) and math.isnan(v)):
+                continue
+            try:
+                values[str(k).strip()] = float(v)
+            except (TypeError, ValueError):
+                problems.append(f"row {i}, column '{k}': '{v}' is not a number")
+        records.append(values)
+    if problems:
+        raise UsageError("; ".join(problems))
+    for i, values in enumerate(records, start=2):
+        check_values(chain, values, row=i)
+    return [predict_whatif(chain, values, **kwargs) for values in records]
+
+
+def _top_contributions(target, x: pd.DataFrame, n: int = 3) -> list[dict]:
+    c = target.contributions(x)
+    row = c.iloc[0]
+    order = row.abs().sort_values(ascending=False).index[:n]
+    return [{"input": str(k), "value": float(row[k])} for k in order]
+
+
+def _num(v):
+    return None if v is None or not np.isfinite(v) else float(v)

@@ -1,0 +1,270 @@
+"""The ribbon porosity window: where every tablet specification passes
+together with a stated probability, and the roll force that lands there.
+
+Method
+------
+``ribbon_porosity`` is scanned over the range the training lots cover, never
+beyond it. At each porosity the chain is simulated downstream
+(:func:`linkage.decide.propagate.simulate`): granule attributes from the
+granule stage, then every tablet attribute, each with residuals of unseen
+lots. The probability that a lot at that porosity meets all specifications
+at once is the share of draws that pass every limit. The window is the
+porosity range where that probability is at least the confidence; its edges
+are interpolated linearly between grid points.
+
+Beside it, the mean-response window: where the chain of mean predictions
+passes every limit. It is always at least as wide, and overstates what can
+be promised (Peterson 2008, J. Biopharm. Stat. 18:959–975); the decision is
+taken on probability.
+
+The roll force range comes from the ribbon stage at the stated gap, roll
+speed and screw speed: the forces whose predicted lot-mean porosity lands in
+the window with at least the confidence (ribbon residuals of unseen lots),
+and, beside it, the forces whose mean prediction lands in it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from linkage import CAUTION
+from linkage.decide.propagate import fill_settings, mean_passes, pass_matrix, simulate, within
+from linkage.exceptions import UsageError
+
+POROSITY = "ribbon_porosity"
+FORCE = "roll_force_kn_per_cm"
+
+
+@dataclass
+class Edge:
+    value: float | None
+    limited_by: str | None  # an attribute, or "data range"
+
+
+@dataclass
+class WindowResult:
+    model_id: str
+    confidence: float
+    data_range: tuple[float, float]
+    low: Edge
+    high: Edge
+    mean_low: float | None
+    mean_high: float | None
+    segments: list[tuple[float, float]]
+    settings: dict[str, dict]
+    attributes: list[str]
+    not_modelled: list[str]
+    roll_force: dict
+    grid: np.ndarray = field(repr=False)
+    p_all: np.ndarray = field(repr=False)
+    p_each: dict[str, np.ndarray] = field(repr=False)
+    bands: dict[str, dict[str, np.ndarray]] = field(repr=False)
+    mean_ok: np.ndarray = field(repr=False)
+    n_draws: int = 0
+    seed: int = 0
+
+    @property
+    def found(self) -> bool:
+        return self.low.value is not None
+
+    def to_dict(self, curve: bool = True) -> dict:
+        out = {
+            "model_id": self.model_id,
+            "confidence": self.confidence,
+            "found": self.found,
+            "ribbon_porosity": {
+                "low": self.low.value, "high": self.high.value,
+                "low_limited_by": self.low.limited_by, "high_limited_by": self.high.limited_by,
+                "data_range": list(self.data_range),
+                "segments": [list(s) for s in self.segments],
+            },
+            "mean_response_window": {"low": self.mean_low, "high": self.mean_high},
+            "limiting_attribute": {"low": self.low.limited_by, "high": self.high.limited_by},
+            "settings": self.settings,
+            "attributes": self.attributes,
+            "not_modelled": self.not_modelled,
+            "roll_force_kn_per_cm": self.roll_force,
+            "n_draws": self.n_draws,
+            "seed": self.seed,
+            "caution": CAUTION,
+        }
+        if curve:
+            out["curve"] = {
+                "ribbon_porosity": _floats(self.grid),
+                "p_all": _floats(self.p_all),
+                "p_each": {k: _floats(v) for k, v in self.p_each.items()},
+                "mean_pass": [bool(b) for b in self.mean_ok],
+            }
+        return out
+
+
+def _floats(a) -> list[float]:
+    return [round(float(x), 6) for x in np.asarray(a)]
+
+
+def find_window(chain, spec, *, settings: dict[str, float] | None = None, confidence: float = 0.9,
+                n_grid: int = 121, n_draws: int = 2000, seed: int = 0) -> WindowResult:
+    """Scan ribbon porosity over the training range and find the window.
+
+    Parameters
+    ----------
+    chain : a fitted chain (:class:`linkage.models.train.FittedChain`).
+    spec : a :class:`linkage.spec.Spec`.
+    settings : values of settings to hold (``--set``); the rest are held at
+        the training median, and the result says which is which.
+    confidence : the probability of passing every specification together
+        that the window must reach, in (0, 1).
+    """
+    if not 0 < confidence < 1:
+        raise UsageError(f"confidence must lie between 0 and 1; got {confidence}")
+    settings = dict(settings or {})
+    if POROSITY in settings:
+        raise UsageError("ribbon_porosity is what the window scans; do not set it (use 'linkage predict' "
+                         "for one porosity)")
+    produced = set(chain.targets)
+    downstream = _downstream_targets(chain)
+    attributes = [a for a in spec.limits if a in downstream]
+    not_modelled = [a for a in spec.limits if a not in downstream and a != POROSITY]
+    if not attributes:
+        raise UsageError("none of the spec's attributes is predicted downstream of ribbon_porosity "
+                         f"(spec names {', '.join(spec.limits)}; the chain predicts {', '.join(sorted(produced))})")
+    lo, hi = (float(v) for v in chain.training["ranges"][POROSITY])
+    grid = np.linspace(lo, hi, n_grid)
+
+    roots = {k: v for k, v in settings.items() if k not in produced}
+    given = {**roots, POROSITY: 0.0}
+    values, source = fill_settings(chain, given)
+    values.pop(POROSITY)
+    source.pop(POROSITY)
+    frame = pd.DataFrame({**{k: np.full(n_grid, v) for k, v in values.items()}, POROSITY: grid})
+    for k, v in settings.items():  # measured downstream values (e.g. fines_pct) are held too
+        if k in produced:
+            frame[k] = v
+            source[k] = "given"
+    draws = simulate(chain, frame, n_draws=n_draws, seed=seed)
+
+    passes = pass_matrix(draws, spec, attributes)
+    all_pass = np.logical_and.reduce(list(passes.values()))
+    if POROSITY in spec.limits:  # a porosity limit of its own cuts the grid directly
+        all_pass &= within(grid, spec.limits[POROSITY])[:, None]
+    p_all = all_pass.mean(axis=1)
+    p_each = {a: passes[a].mean(axis=1) for a in attributes}
+    mean_ok = np.logical_and.reduce(list(mean_passes(draws, spec, attributes).values()))
+    if POROSITY in spec.limits:
+        mean_ok &= within(grid, spec.limits[POROSITY])
+
+    segments = _segments(grid, p_all, confidence)
+    if segments:
+        best = max(segments, key=lambda s: s[1][1] - s[1][0])  # the widest run
+        (i0, i1), (low, high) = best
+        low_edge = Edge(low, "data range" if i0 == 0 else _limiting(p_each, i0 - 1, i0))
+        high_edge = Edge(high, "data range" if i1 == n_grid - 1 else _limiting(p_each, i1 + 1, i1))
+    else:
+        low_edge = high_edge = Edge(None, None)
+    mean_idx = np.flatnonzero(mean_ok)
+    mean_low = float(grid[mean_idx[0]]) if len(mean_idx) else None
+    mean_high = float(grid[mean_idx[-1]]) if len(mean_idx) else None
+
+    bands = {}
+    q = (1 - confidence) / 2
+    for a in attributes:
+        v = draws.values[a]
+        bands[a] = {"mean": draws.means[a], "low": np.quantile(v, q, axis=1), "high": np.quantile(v, 1 - q, axis=1)}
+
+    force = roll_force_range(chain, low_edge.value, high_edge.value, settings=roots,
+                             confidence=confidence, seed=seed)
+    used = {k: {"value": float(v), "source": source[k]} for k, v in sorted(values.items())}
+    used.update({k: {"value": float(settings[k]), "source": "given"} for k in settings if k in produced})
+    return WindowResult(
+        model_id=getattr(chain, "model_id", None) or "unsaved",
+        confidence=confidence, data_range=(lo, hi), low=low_edge, high=high_edge,
+        mean_low=mean_low, mean_high=mean_high,
+        segments=[s[1] for s in segments], settings=used, attributes=attributes,
+        not_modelled=not_modelled, roll_force=force, grid=grid, p_all=p_all, p_each=p_each,
+        bands=bands, mean_ok=mean_ok, n_draws=n_draws, seed=seed,
+    )
+
+
+def _downstream_targets(chain) -> set[str]:
+    """Targets of stages that (directly or through earlier stages) take ribbon porosity."""
+    reach = {POROSITY}
+    for stage in chain.stages:
+        if reach & set(stage.inputs):
+            reach.update(stage.targets)
+    return reach - {POROSITY}
+
+
+def _segments(grid, p, confidence):
+    """Contiguous runs of grid points with p >= confidence, as
+    ((first index, last index), (low, high)); inner edges interpolated."""
+    ok = p >= confidence
+    runs = []
+    i = 0
+    n = len(grid)
+    while i < n:
+        if not ok[i]:
+            i += 1
+            continue
+        j = i
+        while j + 1 < n and ok[j + 1]:
+            j += 1
+        low = grid[i] if i == 0 else _cross(grid[i - 1], grid[i], p[i - 1], p[i], confidence)
+        high = grid[j] if j == n - 1 else _cross(grid[j], grid[j + 1], p[j], p[j + 1], confidence)
+        runs.append(((i, j), (float(low), float(high))))
+        i = j + 1
+    return runs
+
+
+def _cross(x0, x1, p0, p1, level):
+    if p1 == p0:
+        return x1
+    return x0 + (level - p0) * (x1 - x0) / (p1 - p0)
+
+
+def _limiting(p_each, outside: int, inside: int) -> str:
+    """The attribute whose pass probability falls most across the edge."""
+    return min(p_each, key=lambda a: (p_each[a][outside], -p_each[a][inside]))
+
+
+def roll_force_range(chain, low: float | None, high: float | None, *, settings: dict[str, float],
+                     confidence: float, n_grid: int = 161, seed: int = 0) -> dict:
+    """Roll forces whose ribbons land in [low, high] of porosity.
+
+    Returns the range where the probability that a lot's mean porosity lies
+    in the window is at least ``confidence`` (``low``/``high``), the range where
+    the mean prediction does (``mean_low``/``mean_high``), and the settings held.
+    """
+    stage = next((s for s in chain.stages if POROSITY in s.targets), None)
+    if stage is None or FORCE not in stage.inputs:
+        return {"low": None, "high": None, "reason": "the chain has no ribbon stage driven by roll force"}
+    if low is None:
+        return {"low": None, "high": None, "reason": "no porosity window to translate"}
+    target = stage.targets[POROSITY]
+    f_lo, f_hi = (float(v) for v in chain.training["ranges"][FORCE])
+    forces = np.linspace(f_lo, f_hi, n_grid)
+    held, source = fill_settings(chain, {k: v for k, v in settings.items() if k in stage.inputs and k != FORCE}
+                                 | {FORCE: 0.0})
+    held.pop(FORCE)
+    source.pop(FORCE)
+    held = {k: v for k, v in held.items() if k in target.inputs}
+    x = pd.DataFrame({**{k: np.full(n_grid, v) for k, v in held.items()}, FORCE: forces})[target.inputs]
+    mean = np.asarray(target.predict(x), float)
+    r = stage.residual_table()[POROSITY].dropna().to_numpy(float)
+    draws = mean[:, None] + r[None, :]
+    p_in = ((draws >= low) & (draws <= high)).mean(axis=1)
+    ok = np.flatnonzero(p_in >= confidence)
+    in_mean = np.flatnonzero((mean >= low) & (mean <= high))
+    return {
+        "low": float(forces[ok[0]]) if len(ok) else None,
+        "high": float(forces[ok[-1]]) if len(ok) else None,
+        "mean_low": float(forces[in_mean[0]]) if len(in_mean) else None,
+        "mean_high": float(forces[in_mean[-1]]) if len(in_mean) else None,
+        "confidence": confidence,
+        "data_range": [f_lo, f_hi],
+        "held": {k: {"value": float(v), "source": source[k]} for k, v in sorted(held.items())},
+        "curve": {"roll_force_kn_per_cm": _floats(forces), "porosity_mean": _floats(mean), "p_in_window": _floats(p_in)},
+        "reason": None if len(ok) else "no roll force in the training range lands in the window with that confidence",
+    }

@@ -1,0 +1,120 @@
+"""The what-if sheet: one self-contained HTML page to send a colleague.
+
+No scripts, no external resources, no matplotlib (it must be fast): each
+attribute's interval is drawn against its limits as inline SVG. Every piece
+of user-supplied text goes through :func:`html.escape`.
+"""
+
+from __future__ import annotations
+
+from html import escape
+
+from linkage import CAUTION, __version__
+from linkage.schema import ASSEMBLED
+
+# colour-blind-safe (Okabe & Ito 2008): blue, vermillion, bluish green, grey
+BLUE, VERMILLION, GREEN, GREY = "#0072B2", "#D55E00", "#009E73", "#6b6b6b"
+
+STYLE = """
+body{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;max-width:56rem;margin:1.5rem auto;
+padding:0 1rem;color:#1b1b1b;line-height:1.4}
+h1{font-size:1.35rem;margin:0 0 .2rem} h2{font-size:1.05rem;margin:1.3rem 0 .4rem;border-bottom:1px solid #ccc}
+table{border-collapse:collapse;width:100%;font-size:.9rem} td,th{padding:.25rem .5rem;text-align:left;
+border-bottom:1px solid #e3e3e3;vertical-align:middle} th{background:#f3f3f3}
+.num{text-align:right;font-variant-numeric:tabular-nums} .meta{color:#555;font-size:.85rem}
+.caution{border-left:4px solid #E69F00;background:#fff7e6;padding:.6rem .8rem;margin:1rem 0;font-size:.9rem}
+.out{border-left:4px solid #D55E00;background:#fdeee6;padding:.6rem .8rem;margin:1rem 0}
+.in{border-left:4px solid #009E73;background:#e8f6f1;padding:.6rem .8rem;margin:1rem 0}
+@media print{body{margin:0}}
+"""
+
+
+def _fmt(v, digits: int = 4) -> str:
+    if v is None:
+        return "–"
+    return f"{v:.{digits}g}"
+
+
+def _unit(name: str) -> str:
+    u = ASSEMBLED.get(name, "")
+    return "" if u in ("-", "") else f" [{escape(u)}]"
+
+
+def interval_svg(value: float, low: float, high: float, lo_limit: float | None, hi_limit: float | None,
+                 width: int = 260, height: int = 28) -> str:
+    """A small inline SVG: the interval as a bar, the value as a dot, limits as lines."""
+    finite = [v for v in (value, low, high, lo_limit, hi_limit) if v is not None and abs(v) != float("inf")]
+    a, b = min(finite), max(finite)
+    pad = (b - a) * 0.12 or abs(a) * 0.1 or 1.0
+    a, b = a - pad, b + pad
+
+    def x(v):
+        v = min(max(v, a), b)
+        return 6 + (width - 12) * (v - a) / (b - a)
+
+    parts = [f'<svg xmlns="http://www.w3.org/2000/svg" width="{width}" height="{height}" role="img" '
+             f'aria-label="interval {low:.4g} to {high:.4g}">',
+             f'<line x1="6" y1="{height/2}" x2="{width-6}" y2="{height/2}" stroke="#ddd"/>']
+    for lim in (lo_limit, hi_limit):
+        if lim is not None:
+            parts.append(f'<line x1="{x(lim):.1f}" y1="2" x2="{x(lim):.1f}" y2="{height-2}" '
+                         f'stroke="{VERMILLION}" stroke-width="2" stroke-dasharray="4 2"/>')
+    parts.append(f'<rect x="{x(low):.1f}" y="{height/2-5}" width="{max(x(high)-x(low), 1):.1f}" height="10" '
+                 f'fill="{BLUE}" fill-opacity="0.35" stroke="{BLUE}"/>')
+    parts.append(f'<circle cx="{x(value):.1f}" cy="{height/2}" r="4" fill="{BLUE}"/>')
+    parts.append("</svg>")
+    return "".join(parts)
+
+
+def whatif_html(result) -> str:
+    """Render a :class:`linkage.decide.whatif.WhatIf` as one HTML page."""
+    d = result.to_dict()
+    level = round(100 * d["interval_level"])
+    rows = []
+    for name, p in d["predictions"].items():
+        lim = p.get("limits") or {}
+        limits = " – ".join(
+            s for s in (
+                f"min {_fmt(lim.get('min'))}" if lim.get("min") is not None else "",
+                f"max {_fmt(lim.get('max'))}" if lim.get("max") is not None else "",
+            ) if s
+        ) or "no limit given"
+        p_pass = "–" if "p_pass" not in p else f"{100 * p['p_pass']:.0f}%"
+        contrib = ", ".join(f"{escape(c['input'])} {c['value']:+.3g}" for c in p.get("contributions", []))
+        rows.append(
+            f"<tr><td>{escape(name)}{_unit(name)}</td><td class=num>{_fmt(p['value'])}</td>"
+            f"<td class=num>{_fmt(p['low'])} – {_fmt(p['high'])}</td>"
+            f"<td>{interval_svg(p['value'], p['low'], p['high'], lim.get('min'), lim.get('max'))}</td>"
+            f"<td>{escape(limits)}</td><td class=num>{p_pass}</td>"
+            f"<td class=meta>{escape(p['interval_method'])}; {escape(p['selected_model'])}"
+            f"{'; ' + contrib if contrib else ''}</td></tr>"
+        )
+    inputs = "".join(
+        f"<tr><td>{escape(k)}{_unit(k)}</td><td class=num>{_fmt(v['value'])}</td><td>{escape(v['source'])}</td></tr>"
+        for k, v in d["inputs"].items()
+    )
+    if d["in_domain"]:
+        verdict = '<div class="in"><b>Inside the applicability domain</b> of every stage used.</div>'
+    else:
+        items = "".join(f"<li>{escape(r)}</li>" for r in d["domain_reasons"])
+        verdict = ('<div class="out"><b>OUT OF THE APPLICABILITY DOMAIN.</b> The predictions below are '
+                   f"extrapolations; do not rely on them.<ul>{items}</ul></div>")
+    p_all = "" if d["p_pass_all"] is None else (
+        f"<p>Probability that a lot made this way meets every specification at once: "
+        f"<b>{100 * d['p_pass_all']:.0f}%</b>.</p>")
+    return f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8"><title>What-if sheet – {escape(d['model_id'])}</title>
+<style>{STYLE}</style></head><body>
+<h1>What-if sheet</h1>
+<p class=meta>Model {escape(d['model_id'])} · made {escape(d['made_at'])} · linkage {escape(__version__)}</p>
+<div class="caution"><b>Caution.</b> {escape(CAUTION)}</div>
+{verdict}
+<h2>Inputs</h2>
+<table><tr><th>name</th><th class=num>value</th><th>source</th></tr>{inputs}</table>
+<h2>Predictions ({level}% intervals)</h2>
+{p_all}
+<table><tr><th>attribute</th><th class=num>predicted</th><th class=num>{level}% interval</th>
+<th>interval (bar) against limits (dashed)</th><th>specification</th><th class=num>P(pass)</th>
+<th>method; model; largest contributions</th></tr>{''.join(rows)}</table>
+</body></html>
+"""
