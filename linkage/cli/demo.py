@@ -1,0 +1,51 @@
+"""``linkage demo``: the whole job on the demo scenario."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from linkage import CAUTION
+from linkage.cli.common import handle_errors
+
+
+@click.command()
+@click.option("--out", "out", type=click.Path(file_okay=False, path_type=Path), default=Path("reports/demo"),
+              show_default=True, help="Folder for the demo's store, models and outputs.")
+@handle_errors
+def demo(out):
+    """Run the full job on the demo scenario: ingest, assemble, train,
+    porosity window, a what-if sheet and the report. The demo keeps its own
+    lot store and model registry inside OUT.
+
+    \b
+    Example:
+      linkage demo
+      linkage demo --out /tmp/linkage-demo
+    """
+    from linkage.demo import run_demo
+
+    bar = {}
+
+    def progress(label: str, done: int, total: int) -> None:
+        if label not in bar:
+            bar[label] = click.progressbar(length=total, label=f"  {label}", file=click.get_text_stream("stderr"))
+            bar[label].__enter__()
+        b = bar[label]
+        b.update(done - b.pos)
+        if done >= total:
+            b.__exit__(None, None, None)
+
+    result = run_demo(out, step=lambda m: click.echo(f"- {m}", err=True), progress=progress)
+    click.echo("")
+    click.echo(f"lot store       {result.store}")
+    click.echo(f"assembled table {result.assembled}")
+    click.echo(f"model           {result.model_id} in {result.models_dir}")
+    click.echo(f"window          {result.window_json}")
+    click.echo(f"what-if sheet   {result.whatif_html}")
+    click.echo(f"report          {result.report}")
+    total = sum(result.seconds.values())
+    click.echo("seconds         " + ", ".join(f"{k} {v:.1f}" for k, v in result.seconds.items())
+               + f"; total {total:.1f}")
+    click.echo(CAUTION)

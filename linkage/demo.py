@@ -1,0 +1,114 @@
+"""The whole job on the demo scenario, callable from Python and from
+``linkage demo``: ingest, assemble, train, window, a what-if sheet, the report.
+
+The demo works in a folder of its own (``reports/demo`` by default): its own
+lot store and model registry, never the user's.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+#: the demo scenario shipped with the repository (see data_demo/README.md)
+DEMO_DATA = Path(__file__).resolve().parents[1] / "data_demo"
+
+
+@dataclass
+class DemoOutputs:
+    folder: Path
+    store: Path
+    models_dir: Path
+    model_id: str
+    assembled: Path
+    window_json: Path
+    whatif_html: Path
+    report: Path
+    seconds: dict[str, float] = field(default_factory=dict)
+
+
+def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
+             step: Callable[[str], None] | None = None,
+             progress: Callable[[str, int, int], None] | None = None) -> DemoOutputs:
+    """Run every step on the demo data and return where each output went."""
+    from linkage.assemble import assemble
+    from linkage.decide.whatif import predict_whatif
+    from linkage.decide.window import find_window
+    from linkage.exceptions import UsageError
+    from linkage.models.registry import save
+    from linkage.models.train import train_chain
+    from linkage.read import read_folder
+    from linkage.report.html import build_report
+    from linkage.report.sheet import whatif_html
+    from linkage.store import LotStore
+
+    lots_dir = Path(data) / "lots"
+    if not lots_dir.is_dir():
+        raise UsageError(f"demo data not found at {lots_dir}; run from a checkout of linkage "
+                         "(or regenerate it with 'python data_demo/generate.py')")
+    say = step or (lambda message: None)
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    store_path = out / "demo-lots.db"
+    for suffix in ("", "-wal", "-shm"):  # the demo's own store, made anew each run
+        Path(f"{store_path}{suffix}").unlink(missing_ok=True)
+    models_dir = out / "models"
+    seconds: dict[str, float] = {}
+    clock = time.perf_counter()
+
+    def lap(name: str) -> None:
+        nonlocal clock
+        now = time.perf_counter()
+        seconds[name] = round(now - clock, 2)
+        clock = now
+
+    say(f"ingesting {lots_dir}")
+    first = read_folder(lots_dir)
+    with LotStore(store_path) as store:
+        store.ingest(first)
+        remeasured = Path(data) / "remeasured"
+        if remeasured.is_dir():
+            say(f"ingesting the re-measured lot from {remeasured}")
+            store.ingest(read_folder(remeasured))
+        tables = store.current_tables()
+    spec = first.spec
+    lap("ingest")
+
+    say("assembling one row per lot")
+    q = spec.limits["dissolution_pct"].min if spec and "dissolution_pct" in spec.limits else None
+    table = assemble(tables, dissolution_time_min=spec.dissolution_time_min if spec else 30.0,
+                     dissolution_q_pct=q)
+    assembled = out / "assembled.csv"
+    table.to_csv(assembled, index=False)
+    lap("assemble")
+
+    say("training the chain (grouped cross-validation by lot)")
+    chain = train_chain(table, seed=0, progress=progress)
+    model_id = save(chain, models_dir)
+    lap("train")
+
+    say("finding the porosity window")
+    window = find_window(chain, spec, confidence=0.9)
+    window_json = out / "window.json"
+    window_json.write_text(json.dumps(window.to_dict(), indent=2), encoding="utf-8")
+    lap("window")
+
+    say("writing a what-if sheet")
+    middle = (window.low.value + window.high.value) / 2 if window.found else float(
+        chain.training["medians"]["ribbon_porosity"])
+    whatif = predict_whatif(chain, {"ribbon_porosity": round(middle, 3)}, spec=spec)
+    sheet = out / "whatif.html"
+    sheet.write_text(whatif_html(whatif), encoding="utf-8")
+    lap("what-if")
+
+    say("writing the report")
+    with LotStore(store_path) as store:
+        lots = store.lots()
+    report = build_report(chain, table, spec=spec, window=window, lots=lots, out_path=out / "report.html")
+    lap("report")
+    return DemoOutputs(folder=out, store=store_path, models_dir=models_dir, model_id=model_id,
+                       assembled=assembled, window_json=window_json, whatif_html=sheet,
+                       report=Path(report), seconds=seconds)
