@@ -90,7 +90,7 @@ def assemble(
     ]
     for part in parts:
         if part is not None and not part.empty:
-            out = out.join(part, how="left", rsuffix="_dup")
+            out = out.join(part, how="left")
     # vessel results replace the reported lot mean where both exist
     if "dissolution_from_vessels_pct" in out:
         reported = out["dissolution_pct"] if "dissolution_pct" in out else pd.Series(np.nan, index=out.index)
