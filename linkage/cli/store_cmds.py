@@ -1,0 +1,221 @@
+"""``linkage ingest``, ``lots``, ``history`` and ``assemble``: the lot store commands."""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import click
+
+from linkage.cli.common import handle_errors, json_option, store_option
+from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
+
+
+@click.command()
+@click.argument("folder", type=click.Path(exists=True, file_okay=False, path_type=Path))
+@store_option
+@json_option
+@handle_errors
+def ingest(folder, store, as_json):
+    """Check every file in FOLDER and add its lots to the store.
+
+    FOLDER holds one file a table (process.csv, ribbon.csv, granules.csv,
+    granules_laser.csv, tablets.csv, tablet_weights.csv, dissolution.csv, or
+    .xlsx), and optionally spec.toml and columns.toml (the lab's own headers
+    and units). A lot whose values changed gets a new revision; the old one
+    is kept. Sending the same files again changes nothing.
+
+    On any problem every problem is listed (file, row, column, value, rule),
+    nothing is written and the exit code is 2.
+
+    \b
+    Example:
+      linkage ingest lab_exports/2024-05
+      linkage ingest lab_exports/2024-05 --store site.db --json
+    """
+    from linkage.read import read_folder
+    from linkage.store import LotStore
+
+    known: list[str] = []
+    if store.exists():
+        with LotStore(store, create=False) as existing:
+            known = existing.lot_ids()
+    checked = read_folder(folder, known_lots=known)  # the store is created only for valid input
+    with LotStore(store) as lot_store:
+        result = lot_store.ingest(checked)
+    if as_json:
+        click.echo(json.dumps({**result.to_dict(), "store": str(store), "sources": checked.sources}, indent=2))
+        return
+    click.echo(f"Ingest {result.ingest_id} into {store} from {folder}:")
+    for src in checked.sources.values():
+        click.echo(f"  {src['file']:<28} {_rows(src['rows'])}")
+    for label, lots in (("New", result.lots_new), ("Revised", result.lots_revised),
+                        ("Unchanged", result.lots_unchanged)):
+        click.echo(f"{label} lots ({len(lots)}): {', '.join(lots) if lots else '-'}")
+    if not result.changed:
+        click.echo("Nothing changed: every lot is as stored.")
+    if result.warnings:
+        click.echo("Warnings:")
+        for w in result.warnings:
+            click.echo(f"  - {w}")
+
+
+@click.command()
+@store_option
+@click.option("--product", default=None, help="Only the lots of this product.")
+@json_option
+@handle_errors
+def lots(store, product, as_json):
+    """List the lots in the store: product, revision, and for each table the
+    number of rows and the share of its template cells that are filled.
+
+    \b
+    Example:
+      linkage lots
+      linkage lots --product ABC-10mg --json
+    """
+    from linkage.store import LotStore
+
+    with LotStore(store, create=False) as lot_store:
+        df = lot_store.lots(product=product)
+    if as_json:
+        click.echo(json.dumps([{k: _plain(v) for k, v in rec.items()} for rec in df.to_dict("records")], indent=2))
+        return
+    if df.empty:
+        click.echo("The store holds no lots" + (f" of product {product}." if product else " yet."))
+        return
+    used = [t for t in TABLES if df[f"{t}_rows"].sum() > 0]
+    header = ["lot", "product", "rev", *used]
+    body = [[rec["lot"], _text(rec["product"]), str(rec["revision"]),
+             *(_cell(rec[f"{t}_rows"], rec[f"{t}_filled_pct"]) for t in used)] for rec in df.to_dict("records")]
+    widths = [max(len(r[i]) for r in [header, *body]) for i in range(len(header))]
+    for r in [header, *body]:
+        click.echo("  ".join(v.ljust(w) for v, w in zip(r, widths)).rstrip())
+    click.echo(f"{len(df)} lots; per table: rows (percent of template cells filled).")
+
+
+@click.command()
+@click.argument("lot")
+@store_option
+@json_option
+@handle_errors
+def history(lot, store, as_json):
+    """Show every revision of LOT: when, by whom, from which files (with
+    SHA-256), and which values changed.
+
+    \b
+    Example:
+      linkage history EX-001
+      linkage history EX-001 --store site.db --json
+    """
+    from linkage.store import LotStore
+
+    with LotStore(store, create=False) as lot_store:
+        revisions = lot_store.history(lot)
+    if as_json:
+        click.echo(json.dumps(revisions, indent=2, ensure_ascii=False))
+        return
+    click.echo(f"Lot {lot}: {len(revisions)} revision{'s' if len(revisions) != 1 else ''}")
+    for rev in revisions:
+        click.echo(f"Revision {rev['revision']}: ingest {rev['ingest_id']}, {rev['at']}, by {rev['user']}"
+                   + (f", product {rev['product']}" if rev["product"] else ""))
+        for tbl, info in rev["tables"].items():
+            mark = "" if info["changed"] else f"  (unchanged, from ingest {info['ingest_id']})"
+            click.echo(f"  {tbl:<15} {info['file']} sha256 {info['sha256'][:12]}  {_rows(info['rows'])}{mark}")
+        for ch in rev["changes"]:
+            click.echo("    " + _change_text(ch))
+
+
+@click.command()
+@store_option
+@click.option("--out", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="Write the assembled table (one row per lot) to this CSV file.")
+@click.option("--product", default=None, help="Only the lots of this product.")
+@click.option("--fines-cutoff-um", default=DEFAULT_FINES_CUTOFF_UM, show_default=True,
+              type=click.FloatRange(0, min_open=True), help="Size below which granules count as fines [um].")
+@click.option("--spec", "spec_path", type=click.Path(exists=True, dir_okay=False, path_type=Path), default=None,
+              help="spec.toml: its dissolution time point is used, and each lot is compared with its limits.")
+@handle_errors
+def assemble(store, out, product, fines_cutoff_um, spec_path):
+    """Join the latest revision of every lot into one row per lot, with
+    ribbon porosity, granule size, tensile strength and the other derived
+    values. Without --out, print a summary.
+
+    \b
+    Example:
+      linkage assemble --out lots.csv
+      linkage assemble --spec spec.toml --product ABC-10mg --fines-cutoff-um 90
+    """
+    from linkage.assemble import assemble as assemble_table
+    from linkage.exceptions import InsufficientDataError
+    from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN
+    from linkage.spec import read_spec
+    from linkage.store import LotStore
+
+    spec = read_spec(spec_path) if spec_path is not None else None
+    with LotStore(store, create=False) as lot_store:
+        tables = lot_store.current_tables(product=product)
+    if not tables:
+        raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
+                                                                          else "") + "; nothing to assemble")
+    q = spec.limits["dissolution_pct"].min if spec and "dissolution_pct" in spec.limits else None
+    table = assemble_table(tables, fines_cutoff_um=fines_cutoff_um,
+                           dissolution_time_min=spec.dissolution_time_min if spec else DEFAULT_DISSOLUTION_TIME_MIN,
+                           dissolution_q_pct=q)
+    time_min = table.attrs.get("dissolution_time_min", DEFAULT_DISSOLUTION_TIME_MIN)
+    click.echo(f"Assembled {len(table)} lots x {table.shape[1]} columns from {store} "
+               f"(fines below {fines_cutoff_um:g} um, dissolution at {time_min:g} min).")
+    if out is not None:
+        table.to_csv(out, index=False)
+        click.echo(f"Wrote {out}.")
+    else:
+        click.echo("Values per column (filled/lots):")
+        width = max(len(c) for c in table.columns)
+        for col in table.columns:
+            click.echo(f"  {col:<{width}}  {int(table[col].notna().sum())}/{len(table)}")
+    if spec is not None:
+        click.echo(f"Measured values against {spec_path.name} (lots passing / lots with a value):")
+        for attr, limit in spec.limits.items():
+            if attr not in table:
+                click.echo(f"  {attr} {limit.text()}: not in the table")
+                continue
+            values = table[attr].dropna()
+            passing = sum(spec.passes(attr, v) for v in values)
+            click.echo(f"  {attr} {limit.text()}: {passing}/{len(values)}")
+    for note in table.attrs.get("notes", []):
+        click.echo(f"Note: {note}")
+
+
+def _rows(n) -> str:
+    return "" if n is None else f"{n} row{'s' if n != 1 else ''}"
+
+
+def _plain(value):
+    if isinstance(value, float) and math.isnan(value):
+        return None
+    return value.item() if hasattr(value, "item") else value
+
+
+def _text(value) -> str:
+    return "-" if value is None or (isinstance(value, float) and math.isnan(value)) else str(value)
+
+
+def _cell(rows: int, filled_pct: float) -> str:
+    return "-" if rows == 0 else f"{rows} ({filled_pct:.0f}%)"
+
+
+def _change_text(ch: dict) -> str:
+    key = ", ".join(f"{k}={v}" for k, v in (ch["key"] or {}).items())
+    where = f"{ch['table']}" + (f" [{key}]" if key else "")
+    if ch["change"] == "value changed":
+        return f"{where}: {ch['column']} {_value(ch['old'])} -> {_value(ch['new'])}"
+    if ch["change"] == "table added":
+        return f"{where}: table added ({ch['new']})"
+    row = ch["new"] if ch["change"] == "row added" else ch["old"]
+    return f"{where}: {ch['change']} " + ", ".join(f"{k}={_value(v)}" for k, v in row.items() if k != "lot")
+
+
+def _value(v) -> str:
+    return "(missing)" if v is None else repr(v) if isinstance(v, str) else f"{v:g}" if isinstance(v, float) \
+        else str(v)

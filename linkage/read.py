@@ -1,0 +1,1073 @@
+"""Read and check the lab's input files: one table a file, CSV or XLSX.
+
+The column names, kinds, units, bounds, keys and required flags come from
+:mod:`linkage.schema` (``TABLES``); this module only applies them. Every
+problem of a file is collected and raised at once as an
+:class:`~linkage.exceptions.InputError`, each naming the file, the
+spreadsheet row (the header is row 1), the column as written in the file, the
+value and the rule.
+
+Files
+-----
+A folder holds one file a table, named after the table: ``process``,
+``ribbon``, ``granules``, ``granules_laser``, ``tablets``, ``tablet_weights``,
+``dissolution`` with the suffix ``.csv``, ``.tsv``, ``.xlsx`` or ``.xlsm``
+(case and stray spaces in the name are ignored). A workbook named after a
+table holds it on the sheet of that name or on its only sheet; a workbook with
+any other name is read sheet by sheet, and each sheet named after a table is
+that table (its other sheets are listed in the warnings). Beside them the
+folder may hold ``spec.toml`` (see :mod:`linkage.spec`) and ``columns.toml``
+(below). README files are skipped. Any other file is listed in
+``Ingest.warnings``, except a data file (``.csv``, ``.xlsx`` ...) whose name
+is not a table, or an ``.xls``/``.ods`` file: those are refused, since their
+rows would otherwise be lost without a word.
+
+Text and cells
+--------------
+- CSV files are UTF-8, with or without a byte-order mark; CRLF, LF and CR
+  line ends are all read. Another encoding is refused with the byte's place.
+- Headers are trimmed, runs of spaces become one, and a header that matches a
+  template name in another case (``Lot``) is that column. Columns not in the
+  template are kept as extra columns: numeric where every value is a number,
+  text otherwise.
+- A cell that is empty or one of ``schema.MISSING_TOKENS`` (``NA``, ``n/a``,
+  ``-`` ..., any case) is missing.
+- Dates are ISO 8601 (``2024-03-05`` or ``2024-03-05 14:30``), or date cells
+  of a workbook. ``05.03.2024`` or ``3/5/2024`` are refused, never guessed.
+  Time-zone offsets are refused: give local time.
+- Text cells are trimmed and runs of spaces become one (``" EX-001 "`` is
+  ``EX-001``).
+- Blank rows are skipped; row numbers still count them, as a spreadsheet does.
+
+Separator and decimal mark (the rule that keeps numbers from being misread)
+--------------------------------------------------------------------------
+1. The separator is read from the header line (row 1): the one of ``,``,
+   ``;`` and tab that occurs there outside double quotes. If none occurs the
+   file has one column. If more than one occurs, the one that splits every row
+   into as many fields as the header is taken; if that is not exactly one of
+   them, the file is refused.
+2. A row with more non-empty fields than the header, or fewer fields, is
+   refused (this is what an unquoted decimal comma in a ``,`` file causes).
+3. In a ``,``- or tab-separated file, and in a text cell of a workbook, the
+   decimal mark is ``.``; a number written with a ``,`` (``"1,234"`` in
+   quotes) is refused as ambiguous: thousands separator or decimal comma.
+4. In a ``;``-separated file the decimal mark is decided for the whole file
+   from its number cells: if any is written with a ``,`` (``1,5``), ``,`` is
+   the decimal mark and any number with a ``.`` is refused (a thousands
+   separator, or a mix of both marks). Otherwise ``.`` is the decimal mark
+   when some number shows it unambiguously (``0.5``, ``1.0617``); if the only
+   numbers with a ``.`` look like thousands groups (``1.234``, ``12.500``),
+   they are refused as ambiguous.
+5. Numbers may carry an exponent (``1.5e-3``); spaces, ``%`` signs and units
+   inside a cell are refused. Infinite values are refused.
+
+Mapping file ``columns.toml``
+-----------------------------
+Lets a lab keep its own headers and some common other units. One TOML table
+per input table, ``[<table>.columns]``, maps a header as written in the file
+(matched trimmed and case-insensitively) to a template column::
+
+    [process.columns]
+    "Batch" = "lot"                                        # rename only
+    "Gap (mm)" = "roll_gap_mm"
+    "Roll force (kN)" = { column = "roll_force_kn_per_cm", unit = "kN", roll_width_mm = 40 }
+    "Roll width (cm)" = { column = "roll_width_mm", unit = "cm" }
+    "Blend moisture (%)" = { column = "blend_moisture_pct", extra = true }
+
+    [ribbon.columns]
+    "Envelope density (kg/m3)" = { column = "envelope_density_g_cm3", unit = "kg/m3" }
+
+- A string value renames; an inline table takes ``column`` (the template
+  column; defaults to the key), ``unit`` (the unit the file uses, converted
+  on read to the template unit, see ``UNITS``), ``roll_width_mm`` or
+  ``roll_width_cm`` (only for a total roll force) and ``extra = true`` (the
+  target is a new extra column, not a template one; no unit then).
+- Total roll force: ``roll_force_kn_per_cm`` with ``unit = "kN"`` or ``"N"``
+  is divided by the roll width in cm, taken from the mapping's
+  ``roll_width_mm``/``roll_width_cm`` or else from each row's
+  ``roll_width_mm``. A row with neither is refused, and so is a row whose
+  ``roll_width_mm`` disagrees with the mapping's.
+- An unknown table, target column, key or unit, or two headers mapped to one
+  column, is an error naming ``columns.toml``.
+- Bounds are checked after conversion, in the template unit.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as dt
+import difflib
+import hashlib
+import io
+import math
+import re
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Iterable
+
+import pandas as pd
+
+from linkage.exceptions import InputError, Problem
+from linkage.schema import DATETIME, MISSING_TOKENS, NUMBER, TABLES, TEXT, Column, Table
+from linkage.spec import Spec, read_spec
+
+MAPPING_FILE = "columns.toml"
+SPEC_FILE = "spec.toml"
+DATA_SUFFIXES = (".csv", ".tsv", ".xlsx", ".xlsm")
+WORKBOOK_SUFFIXES = (".xlsx", ".xlsm")
+UNSUPPORTED_SUFFIXES = (".xls", ".ods", ".numbers", ".xlsb")
+
+#: template unit -> {unit a file may use: factor to the template unit}.
+#: SI prefixes and derived units (BIPM, The International System of Units,
+#: 9th ed. 2019); 1 kgf = 1 kp = 9.80665 N (standard acceleration of gravity,
+#: 3rd CGPM 1901); 1 in = 25.4 mm (international inch, 1959).
+UNITS: dict[str, dict[str, float]] = {
+    "g/cm3": {"g/cm3": 1.0, "g/ml": 1.0, "g/mL": 1.0, "kg/L": 1.0, "kg/l": 1.0, "kg/m3": 1e-3},
+    "g": {"g": 1.0, "mg": 1e-3, "kg": 1e3},
+    "mg": {"mg": 1.0, "g": 1e3},
+    "mm": {"mm": 1.0, "cm": 10.0, "m": 1e3, "um": 1e-3, "in": 25.4},
+    "um": {"um": 1.0, "mm": 1e3},
+    "N": {"N": 1.0, "kN": 1e3, "kp": 9.80665, "kgf": 9.80665},
+    "kN": {"kN": 1.0, "N": 1e-3},
+    "kN/cm": {"kN/cm": 1.0, "kN/mm": 10.0, "N/mm": 1e-2},
+    "%": {"%": 1.0, "fraction": 100.0},
+    "min": {"min": 1.0, "s": 1.0 / 60.0, "h": 60.0},
+    "rpm": {"rpm": 1.0, "1/min": 1.0, "min-1": 1.0},
+}
+#: A total roll force in these units becomes kN/cm by dividing by the roll width.
+TOTAL_FORCE_UNITS: dict[str, float] = {"kN": 1.0, "N": 1e-3}
+TOTAL_FORCE_COLUMN = "roll_force_kn_per_cm"
+ROLL_WIDTH_COLUMN = "roll_width_mm"
+
+_NUMBER = re.compile(r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?")
+_COMMA_NUMBER = re.compile(r"[+-]?(?:\d+,\d*|,\d+)(?:[eE][+-]?\d+)?")
+_THOUSANDS_DOT = re.compile(r"[+-]?[1-9]\d{0,2}(?:\.\d{3})+")
+
+
+# --------------------------------------------------------------------------- results
+
+
+@dataclass
+class Ingest:
+    """What :func:`read_folder` found: checked tables and where they came from.
+
+    ``sources[table]`` is ``{"file", "sha256", "rows"}``; ``other_sources``
+    holds the same for ``spec.toml`` and ``columns.toml`` when present.
+    Each table keeps ``attrs["file"]`` and ``attrs["source_rows"]``
+    (spreadsheet row of each data row).
+    """
+
+    tables: dict[str, pd.DataFrame]
+    sources: dict[str, dict]
+    spec: Spec | None = None
+    warnings: list[str] = field(default_factory=list)
+    folder: Path | None = None
+    other_sources: dict[str, dict] = field(default_factory=dict)
+
+    def lots(self) -> list[str]:
+        """Every lot named in any table, process lots first, in file order."""
+        seen: dict[str, None] = {}
+        for name in TABLES:
+            if name in self.tables:
+                seen.update(dict.fromkeys(self.tables[name]["lot"].tolist()))
+        return list(seen)
+
+
+# --------------------------------------------------------------------------- mapping
+
+
+@dataclass(frozen=True)
+class ColumnMap:
+    """One header of the lab's files and what it becomes."""
+
+    source: str
+    target: str
+    unit: str | None = None
+    factor: float = 1.0
+    total_force: bool = False
+    roll_width_mm: float | None = None
+    extra: bool = False
+
+
+@dataclass(frozen=True)
+class Mapping:
+    """The lab's headers and units (``columns.toml``), see the module notes."""
+
+    tables: dict[str, dict[str, ColumnMap]] = field(default_factory=dict)
+    file: str = MAPPING_FILE
+    sha256: str | None = None
+
+    def for_table(self, table: str) -> dict[str, ColumnMap]:
+        """Header key (trimmed, lower case) -> ColumnMap for one table."""
+        return self.tables.get(table, {})
+
+    @classmethod
+    def from_dict(cls, data: dict, file: str = MAPPING_FILE, sha256: str | None = None) -> Mapping:
+        problems: list[Problem] = []
+        tables: dict[str, dict[str, ColumnMap]] = {}
+        for tname, section in data.items():
+            if tname not in TABLES:
+                problems.append(Problem(file, f"unknown table [{tname}]{_suggest(tname, TABLES)}; "
+                                              f"tables: {', '.join(TABLES)}"))
+                continue
+            if not isinstance(section, dict) or set(section) - {"columns"}:
+                found = (", ".join(map(repr, sorted(set(section) - {"columns"}))) if isinstance(section, dict)
+                         else f"{tname} = {section!r}")
+                problems.append(Problem(file, f"[{tname}] may only hold a [{tname}.columns] table; found {found}"))
+                continue
+            columns = section.get("columns", {})
+            if not isinstance(columns, dict):
+                problems.append(Problem(file, f"[{tname}.columns] must be a table of header = column"))
+                continue
+            tables[tname] = _mapping_columns(TABLES[tname], columns, file, problems)
+        if problems:
+            raise InputError(problems)
+        return cls(tables, file, sha256)
+
+
+def _mapping_columns(tdef: Table, columns: dict, file: str, problems: list[Problem]) -> dict[str, ColumnMap]:
+    out: dict[str, ColumnMap] = {}
+    targets: dict[str, str] = {}
+    for source, value in columns.items():
+        where = f"[{tdef.name}.columns] \"{source}\""
+        key = _norm_header(source).lower()
+        if isinstance(value, str):
+            value = {"column": value}
+        if not isinstance(value, dict):
+            problems.append(Problem(file, f"{where}: must be a column name or an inline table "
+                                          "{ column = ..., unit = ... }", column=source, value=value))
+            continue
+        unknown = sorted(set(value) - {"column", "unit", "roll_width_mm", "roll_width_cm", "extra"})
+        if unknown:
+            problems.append(Problem(file, f"{where}: unknown key(s) {', '.join(unknown)}; allowed: column, unit, "
+                                          "roll_width_mm, roll_width_cm, extra", column=source))
+            continue
+        target = value.get("column", _norm_header(source))
+        extra = value.get("extra", False)
+        if not isinstance(target, str) or not target.strip() or not isinstance(extra, bool):
+            problems.append(Problem(file, f"{where}: column must be a name and extra true or false",
+                                    column=source, value=target))
+            continue
+        target = _norm_header(target)
+        if extra:
+            if target.lower() in tdef.names or set(value) - {"column", "extra"}:
+                problems.append(Problem(file, f"{where}: an extra column takes only a new name, not a template "
+                                              "name or a unit", column=source, value=target))
+                continue
+            cmap = ColumnMap(source, target, extra=True)
+        else:
+            if target not in tdef.names:
+                problems.append(Problem(file, f"{where}: unknown target column '{target}' in table {tdef.name}"
+                                              f"{_suggest(target, tdef.names)}; columns: {', '.join(tdef.names)} "
+                                              "(or add extra = true for a new column)", column=source, value=target))
+                continue
+            cmap = _unit_map(tdef.column(target), source, value, where, file, problems)
+            if cmap is None:
+                continue
+        if target.lower() in targets:
+            problems.append(Problem(file, f"{where}: column '{target}' is already the target of "
+                                          f"\"{targets[target.lower()]}\"", column=source, value=target))
+            continue
+        targets[target.lower()] = source
+        out[key] = cmap
+    return out
+
+
+def _unit_map(col: Column, source: str, value: dict, where: str, file: str,
+              problems: list[Problem]) -> ColumnMap | None:
+    width_keys = [k for k in ("roll_width_mm", "roll_width_cm") if k in value]
+    unit = value.get("unit")
+    if unit is None:
+        if width_keys:
+            problems.append(Problem(file, f"{where}: {width_keys[0]} only goes with a total roll force unit",
+                                    column=source))
+            return None
+        return ColumnMap(source, col.name)
+    if not isinstance(unit, str):
+        problems.append(Problem(file, f"{where}: unit must be text", column=source, value=unit))
+        return None
+    norm = _norm_unit(unit)
+    accepted = dict(UNITS.get(col.unit, {})) if col.kind == NUMBER else {}
+    total = col.name == TOTAL_FORCE_COLUMN and norm in TOTAL_FORCE_UNITS
+    if not total and norm not in accepted:
+        names = sorted(accepted) + (sorted(f"{u} (total force)" for u in TOTAL_FORCE_UNITS)
+                                    if col.name == TOTAL_FORCE_COLUMN else [])
+        choice = f"accepted: {', '.join(names)}" if names else "this column takes no unit conversion"
+        problems.append(Problem(file, f"{where}: unknown unit '{unit}' for {col.name} [{col.unit}]; {choice}",
+                                column=source, value=unit))
+        return None
+    if width_keys and not total:
+        problems.append(Problem(file, f"{where}: {width_keys[0]} only goes with a total roll force unit "
+                                      f"({', '.join(TOTAL_FORCE_UNITS)})", column=source))
+        return None
+    width = None
+    if width_keys:
+        if len(width_keys) > 1:
+            problems.append(Problem(file, f"{where}: give roll_width_mm or roll_width_cm, not both", column=source))
+            return None
+        raw = value[width_keys[0]]
+        if isinstance(raw, bool) or not isinstance(raw, (int, float)) or not raw > 0 or not math.isfinite(raw):
+            problems.append(Problem(file, f"{where}: {width_keys[0]} must be a number > 0", column=source,
+                                    value=raw))
+            return None
+        width = float(raw) * (10.0 if width_keys[0] == "roll_width_cm" else 1.0)
+    if total:
+        return ColumnMap(source, col.name, norm, TOTAL_FORCE_UNITS[norm], total_force=True, roll_width_mm=width)
+    return ColumnMap(source, col.name, norm, accepted[norm])
+
+
+def read_mapping(path: Path) -> Mapping:
+    """Read and check a ``columns.toml`` mapping file."""
+    path = Path(path)
+    data = path.read_bytes()
+    try:
+        parsed = tomllib.loads(data.decode("utf-8-sig"))
+    except (UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
+        raise InputError(Problem(path.name, f"not valid TOML: {exc}", row=_toml_line(exc))) from None
+    return Mapping.from_dict(parsed, path.name, hashlib.sha256(data).hexdigest())
+
+
+def _toml_line(exc: Exception) -> int | None:
+    m = re.search(r"line (\d+)", str(exc))
+    return int(m.group(1)) if m else None
+
+
+# --------------------------------------------------------------------------- raw reading
+
+
+@dataclass
+class _Raw:
+    """A sheet as read, before any template rule: header and rows of cells."""
+
+    label: str
+    header: list[str]
+    rows: list[tuple[int, list]]
+    separator: str | None  # None for a workbook
+    problems: list[Problem] = field(default_factory=list)
+    formulas: set[tuple[int, int]] = field(default_factory=set)
+
+
+def _norm_header(text: object) -> str:
+    s = "" if text is None else str(text)
+    return " ".join(s.replace("\ufeff", "").replace("\xa0", " ").split())
+
+
+def _norm_unit(text: str) -> str:
+    s = text.replace("³", "3").replace("^3", "3").replace("µ", "u").replace("μ", "u")
+    return "".join(s.split())
+
+
+def _is_missing(cell: object) -> bool:
+    if cell is None:
+        return True
+    if isinstance(cell, float) and math.isnan(cell):
+        return True
+    return isinstance(cell, str) and cell.strip().lower() in MISSING_TOKENS
+
+
+def _read_csv(data: bytes, label: str) -> _Raw:
+    if data.startswith(b"PK\x03\x04"):
+        raise InputError(Problem(label, "this is a zipped workbook (.xlsx), not a CSV text file; "
+                                        "give it the .xlsx suffix"))
+    if data.startswith((b"\xff\xfe", b"\xfe\xff")):
+        raise InputError(Problem(label, "UTF-16 text; save the file as 'CSV UTF-8'"))
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = data[: exc.start].count(b"\n") + 1
+        raise InputError(Problem(label, f"not UTF-8 text (byte 0x{data[exc.start]:02x} at offset {exc.start}); "
+                                        "save the file as 'CSV UTF-8'", row=line)) from None
+    if "\x00" in text:
+        raise InputError(Problem(label, "contains NUL bytes: not a text CSV file"))
+    found = _header_separators(text)
+    if len(found) <= 1:
+        sep = found[0] if found else ","
+    else:
+        fits = [s for s in found if _fits(_records(text, s))]
+        if len(fits) != 1:
+            shown = " and ".join("tab" if s == "\t" else repr(s) for s in found)
+            raise InputError(Problem(label, f"cannot tell the separator: the header holds {shown} outside quotes "
+                                            "and the rows do not settle it; quote header names that hold a "
+                                            "separator", row=1))
+        sep = fits[0]
+    records = _records(text, sep)
+    if not records or not any(c.strip() for c in records[0]):
+        raise InputError(Problem(label, "the header must be on row 1 (row 1 is empty)", row=1))
+    header = list(records[0])
+    raw = _Raw(label, header, [], sep)
+    n = len(header)
+    for i, rec in enumerate(records[1:], start=2):
+        if not any(c.strip() for c in rec):
+            continue
+        if len(rec) > n and not any(c.strip() for c in rec[n:]):
+            rec = rec[:n]
+        if len(rec) != n:
+            shown = ("tab" if sep == "\t" else sep).join(rec)
+            hint = (" (an unquoted decimal comma or a stray separator?)" if len(rec) > n
+                    else " (a missing separator?)")
+            raw.problems.append(Problem(label, f"row has {len(rec)} fields but the header has {n}{hint}",
+                                        row=i, value=shown[:120]))
+            continue
+        raw.rows.append((i, rec))
+    return raw
+
+
+def _header_separators(text: str) -> list[str]:
+    counts = dict.fromkeys([",", ";", "\t"], 0)
+    quoted = False
+    for ch in text:
+        if ch == '"':
+            quoted = not quoted
+        elif not quoted:
+            if ch in "\r\n":
+                break
+            if ch in counts:
+                counts[ch] += 1
+    return [s for s, k in counts.items() if k]
+
+
+def _records(text: str, sep: str) -> list[list[str]]:
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=sep, quotechar='"', skipinitialspace=True)
+    return list(reader)
+
+
+def _fits(records: list[list[str]]) -> bool:
+    if not records or len(records[0]) < 2:
+        return False
+    n = len(records[0])
+    return all(len(r) == n or (len(r) > n and not any(c.strip() for c in r[n:])) or not any(c.strip() for c in r)
+               for r in records[1:])
+
+
+def _open_workbook(path: Path, label: str):
+    import openpyxl  # only workbooks need it
+
+    try:
+        values = openpyxl.load_workbook(path, read_only=True, data_only=True)
+        formulas = openpyxl.load_workbook(path, read_only=True, data_only=False)
+    except Exception as exc:  # openpyxl raises many kinds for a broken file
+        raise InputError(Problem(label, f"cannot open as a workbook: {exc}")) from None
+    return values, formulas
+
+
+def _read_sheet(values_wb, formulas_wb, sheet: str, label: str) -> _Raw:
+    rows_v = list(values_wb[sheet].iter_rows(min_row=1, values_only=True))
+    rows_f = list(formulas_wb[sheet].iter_rows(min_row=1, values_only=True))
+    if not rows_v or not any(not _is_missing(c) for c in rows_v[0]):
+        raise InputError(Problem(label, "the header must be on row 1 (row 1 is empty)", row=1))
+    header = [_norm_header(c) for c in rows_v[0]]
+    raw = _Raw(label, header, [], None)
+    n = len(header)
+    for i, rec in enumerate(rows_v[1:], start=2):
+        rec = list(rec) + [None] * (n - len(rec))
+        if all(_is_missing(c) for c in rec):
+            continue
+        frec = rows_f[i - 1] if i - 1 < len(rows_f) else ()
+        for j, (v, f) in enumerate(zip(rec, frec)):
+            if v is None and isinstance(f, str) and f.startswith("="):
+                raw.formulas.add((i, j))
+        raw.rows.append((i, rec))
+    return raw
+
+
+# --------------------------------------------------------------------------- cells
+
+
+def _parse_number(cell: object, decimal: str, separator: str | None) -> float | str:
+    """A float, or the rule the cell breaks (a str)."""
+    if isinstance(cell, bool):
+        return "TRUE/FALSE is not a number"
+    if isinstance(cell, (int, float)):
+        v = float(cell)
+        return v if math.isfinite(v) else "not a finite number"
+    if isinstance(cell, (dt.datetime, dt.date, dt.time)):
+        return "a date is not a number"
+    s = str(cell).strip()
+    if decimal == ",":
+        if "." in s and (_NUMBER.fullmatch(s) or _COMMA_NUMBER.fullmatch(s.replace(".", ""))):
+            return ("'.' in a number of a file whose decimal mark is ',' (thousands separator or mixed decimal "
+                    "marks); write numbers like 1234,5")
+        if not (_COMMA_NUMBER.fullmatch(s) or _NUMBER.fullmatch(s)):
+            return "not a number"
+        s = s.replace(",", ".")
+    else:
+        if "," in s:
+            if _COMMA_NUMBER.fullmatch(s) or _NUMBER.fullmatch(s.replace(",", "")):
+                where = "in a ','-separated file" if separator == "," else (
+                    "in a tab-separated file" if separator == "\t" else "in a workbook text cell")
+                return (f"a ',' inside a number {where} is ambiguous (decimal comma or thousands separator); "
+                        "write the number with '.' as the decimal mark and no thousands separator")
+            return "not a number"
+        if not _NUMBER.fullmatch(s):
+            return "not a number"
+        if separator == ";" and decimal == "?" and _THOUSANDS_DOT.fullmatch(s):
+            return ("ambiguous in a ';'-separated file: '.' may be a decimal mark or a thousands separator "
+                    "(1.234 or 1234); write decimals with ',' (1,234) or drop the thousands separator")
+    v = float(s)
+    return v if math.isfinite(v) else "not a finite number"
+
+
+def _decimal_mark(cells: Iterable[object], separator: str | None) -> str:
+    """'.' or ',' for the file, or '?' where only thousands-like '.' numbers show (see module notes)."""
+    if separator != ";":
+        return "."
+    dot_shown = thousands_like = False
+    for c in cells:
+        if not isinstance(c, str):
+            continue
+        s = c.strip()
+        if _COMMA_NUMBER.fullmatch(s):
+            return ","
+        if "." in s and _NUMBER.fullmatch(s):
+            if _THOUSANDS_DOT.fullmatch(s):
+                thousands_like = True
+            else:
+                dot_shown = True
+    return "?" if thousands_like and not dot_shown else "."
+
+
+def _parse_datetime(cell: object) -> dt.datetime | str:
+    if isinstance(cell, dt.datetime):
+        value = cell
+    elif isinstance(cell, dt.date):
+        value = dt.datetime(cell.year, cell.month, cell.day)
+    elif isinstance(cell, (int, float)) and not isinstance(cell, bool):
+        return "a number, not a date; format the cell as a date or write ISO 8601 (2024-03-05 14:30)"
+    else:
+        s = str(cell).strip()
+        if not re.fullmatch(r"\d{4}-\d{2}-\d{2}([T ]\d{2}:\d{2}(:\d{2}(\.\d{1,6})?)?)?([+-]\d{2}:?\d{2}|Z)?", s):
+            return "not an ISO 8601 date (write 2024-03-05 or 2024-03-05 14:30)"
+        try:
+            value = dt.datetime.fromisoformat(s)
+        except ValueError:
+            return "not a valid date (write 2024-03-05 or 2024-03-05 14:30)"
+    if value.tzinfo is not None:
+        return "time-zone offsets are not accepted; give local time without an offset"
+    return value
+
+
+def _text(cell: object) -> str:
+    if isinstance(cell, bool):
+        return "TRUE" if cell else "FALSE"
+    if isinstance(cell, float) and cell.is_integer():
+        return str(int(cell))
+    if isinstance(cell, float):
+        return repr(cell)
+    if isinstance(cell, dt.datetime):
+        return cell.isoformat(sep=" ")
+    return " ".join(str(cell).split()) if isinstance(cell, str) else str(cell)
+
+
+def _shown(cell: object) -> object:
+    return cell.strip() if isinstance(cell, str) else cell
+
+
+# --------------------------------------------------------------------------- frames
+
+
+def frame_from_columns(table: str, columns: dict[str, list], extra: dict[str, list] | None = None,
+                       n_rows: int | None = None) -> pd.DataFrame:
+    """A DataFrame of a table with the template's dtypes.
+
+    ``columns`` holds template columns (missing ones are filled with missing
+    values), ``extra`` the extra columns in order; values are Python values
+    with ``None`` for missing. TEXT -> ``str``, NUMBER -> ``float64``,
+    DATETIME -> ``datetime64[us]``; an extra column is ``float64`` when every
+    value is a number, else ``str``.
+    """
+    tdef = TABLES[table]
+    if n_rows is None:
+        lengths = [len(v) for v in (*columns.values(), *(extra or {}).values())]
+        n_rows = lengths[0] if lengths else 0
+    data: dict[str, pd.Series] = {}
+    for col in tdef.columns:
+        values = columns.get(col.name, [None] * n_rows)
+        data[col.name] = _series(col.kind, values)
+    for name, values in (extra or {}).items():
+        numeric = all(v is None or (isinstance(v, float) and not isinstance(v, bool)) for v in values)
+        data[name] = _series(NUMBER, values) if numeric else _series(
+            TEXT, [None if v is None else (repr(v) if isinstance(v, float) else str(v)) for v in values])
+    return pd.DataFrame(data, index=pd.RangeIndex(n_rows))
+
+
+def _series(kind: str, values: list) -> pd.Series:
+    if kind == NUMBER:
+        return pd.Series([math.nan if v is None else float(v) for v in values], dtype="float64")
+    if kind == DATETIME:
+        return pd.Series([None if v is None else pd.Timestamp(v) for v in values], dtype="datetime64[us]")
+    return pd.Series([None if v is None else str(v) for v in values], dtype="str")
+
+
+def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
+    """Apply the template to a raw sheet; raise InputError with every problem."""
+    label = raw.label
+    problems = list(raw.problems)
+    # ---- header: rename, match the template, keep extras
+    targets: list[tuple[int, str, str, ColumnMap | None]] = []  # (index, target, header, map)
+    seen: dict[str, str] = {}
+    names_lower = {n.lower(): n for n in tdef.names}
+    for j, head in enumerate(raw.header):
+        shown = _norm_header(head)
+        if not shown:
+            if any(not _is_missing(cells[j]) for _, cells in raw.rows):
+                problems.append(Problem(label, f"column {_letters(j)} has values but no header", row=1,
+                                        column=_letters(j)))
+            continue
+        cmap = cmaps.get(shown.lower())
+        target = cmap.target if cmap else names_lower.get(shown.lower(), shown)
+        if target.lower() in seen:
+            problems.append(Problem(label, f"two columns become '{target}': '{seen[target.lower()]}' and '{shown}'",
+                                    row=1, column=shown))
+            continue
+        seen[target.lower()] = shown
+        targets.append((j, target, shown, cmap))
+    present = {t for _, t, _, _ in targets}
+    for col in tdef.columns:
+        if col.required and col.name not in present:
+            near = difflib.get_close_matches(col.name, [h for _, _, h, _ in targets], n=1, cutoff=0.6)
+            hint = f"; found '{near[0]}': rename it or map it in {MAPPING_FILE}" if near else ""
+            problems.append(Problem(label, f"required column '{col.name}' is missing{hint}", row=1, column=col.name))
+    # ---- decimal mark from the number cells of the file (module notes, rule 4)
+    number_idx = [j for j, t, _, _ in targets if t not in tdef.names or tdef.column(t).kind == NUMBER]
+    decimal = _decimal_mark((cells[j] for _, cells in raw.rows for j in number_idx), raw.separator)
+    # ---- cells
+    n = len(raw.rows)
+    sheet_rows = [r for r, _ in raw.rows]
+    values: dict[str, list] = {}
+    extra: dict[str, list] = {}
+    headers: dict[str, str] = {}
+    bad: set[tuple[int, str]] = set()  # (row index, target) of cells already refused
+    for j, target, shown, cmap in targets:
+        headers[target] = shown
+        cells = [cells[j] for _, cells in raw.rows]
+        for k, (r, _) in enumerate(raw.rows):
+            if (r, j) in raw.formulas:
+                problems.append(Problem(label, "formula without a stored result; open and save the file in a "
+                                               "spreadsheet program, or paste values", row=r, column=shown))
+                bad.add((k, target))
+        if target not in tdef.names:
+            extra[target] = _extra_values(cells, decimal, raw.separator)
+            continue
+        col = tdef.column(target)
+        out: list = []
+        for k, cell in enumerate(cells):
+            if (k, target) in bad or _is_missing(cell):
+                out.append(None)
+                continue
+            if col.kind == TEXT:
+                out.append(_text(cell))
+                continue
+            parsed = _parse_number(cell, decimal, raw.separator) if col.kind == NUMBER else _parse_datetime(cell)
+            if isinstance(parsed, str):
+                problems.append(Problem(label, parsed, row=sheet_rows[k], column=shown, value=_shown(cell)))
+                bad.add((k, target))
+                out.append(None)
+            else:
+                out.append(parsed * cmap.factor if cmap and col.kind == NUMBER else parsed)
+        values[target] = out
+    # ---- total roll force -> per cm of roll width
+    force_map = next((m for _, t, _, m in targets if m is not None and m.total_force), None)
+    if force_map is not None:
+        widths = values.get(ROLL_WIDTH_COLUMN, [None] * n)
+        forces = values[TOTAL_FORCE_COLUMN]
+        for k in range(n):
+            if forces[k] is None:
+                continue
+            width, row_width = force_map.roll_width_mm, widths[k]
+            if width is not None and row_width is not None and not math.isclose(width, row_width, rel_tol=1e-9):
+                problems.append(Problem(label, f"roll width {row_width:g} mm in this row differs from "
+                                               f"{width:g} mm in {MAPPING_FILE}", row=sheet_rows[k],
+                                        column=headers.get(ROLL_WIDTH_COLUMN, ROLL_WIDTH_COLUMN), value=row_width))
+                bad.add((k, TOTAL_FORCE_COLUMN))
+                forces[k] = None
+                continue
+            width = width if width is not None else row_width
+            if width is None or not width > 0:
+                problems.append(Problem(label, f"a total roll force needs the roll width: give {ROLL_WIDTH_COLUMN} "
+                                               f"in the row or roll_width_mm in {MAPPING_FILE}", row=sheet_rows[k],
+                                        column=headers[TOTAL_FORCE_COLUMN], value=_shown(_cell(raw, k, targets,
+                                                                                           TOTAL_FORCE_COLUMN))))
+                bad.add((k, TOTAL_FORCE_COLUMN))
+                forces[k] = None
+                continue
+            forces[k] = forces[k] / (width / 10.0)
+    # ---- bounds and non-empty cells
+    for col in tdef.columns:
+        if col.name not in values:
+            continue
+        shown = headers[col.name]
+        cmap = next((m for _, t, _, m in targets if t == col.name), None)
+        for k, v in enumerate(values[col.name]):
+            if (k, col.name) in bad:
+                continue
+            if v is None:
+                if col.nonempty or col.name in tdef.key:
+                    problems.append(Problem(label, f"'{col.name}' must have a value in every row", row=sheet_rows[k],
+                                            column=shown, value=_shown(_cell(raw, k, targets, col.name))))
+                    bad.add((k, col.name))
+                continue
+            if col.kind == NUMBER and not _in_bounds(col, v):
+                note = ""
+                if cmap is not None and cmap.unit is not None:
+                    note = f" (read as {cmap.unit}, converted to {v:g} {col.unit})"
+                problems.append(Problem(label, f"outside the range {col.bound_text()}{note}", row=sheet_rows[k],
+                                        column=shown, value=_shown(_cell(raw, k, targets, col.name))))
+                bad.add((k, col.name))
+    df = frame_from_columns(tdef.name, values, extra, n_rows=n)
+    problems += _key_problems(df, tdef, label, sheet_rows, headers, bad)
+    problems += _rule_problems(df, tdef, label, sheet_rows, headers, bad)
+    if problems:
+        raise InputError(_sorted(problems))
+    df.attrs["table"] = tdef.name
+    df.attrs["file"] = label
+    df.attrs["source_rows"] = sheet_rows
+    return df
+
+
+def _cell(raw: _Raw, k: int, targets, target: str) -> object:
+    for j, t, _, _ in targets:
+        if t == target:
+            return raw.rows[k][1][j]
+    return None
+
+
+def _letters(j: int) -> str:
+    s = ""
+    j += 1
+    while j:
+        j, rem = divmod(j - 1, 26)
+        s = chr(65 + rem) + s
+    return s
+
+
+def _in_bounds(col: Column, v: float) -> bool:
+    if col.low is not None and (v < col.low or (v == col.low and not col.low_inclusive)):
+        return False
+    if col.high is not None and (v > col.high or (v == col.high and not col.high_inclusive)):
+        return False
+    return True
+
+
+def _extra_values(cells: list, decimal: str, separator: str | None) -> list:
+    present = [c for c in cells if not _is_missing(c)]
+    parsed = [_parse_number(c, decimal, separator) for c in present]
+    if all(isinstance(p, float) for p in parsed):
+        it = iter(parsed)
+        return [None if _is_missing(c) else next(it) for c in cells]
+    return [None if _is_missing(c) else _text(c) for c in cells]
+
+
+def _key_problems(df, tdef: Table, label, sheet_rows, headers, bad) -> list[Problem]:
+    problems = []
+    first: dict[tuple, int] = {}
+    for k, key in enumerate(zip(*(df[c].tolist() for c in tdef.key))):
+        if any((k, c) in bad for c in tdef.key) or any(_nan(v) for v in key):
+            continue
+        if key in first:
+            names = ", ".join(tdef.key)
+            shown = ", ".join(_fmt(v) for v in key)
+            what = "lot row" if tdef.key == ("lot",) else "row for this key"
+            problems.append(Problem(label, f"duplicate {what}: ({names}) = ({shown}) is already on row "
+                                           f"{sheet_rows[first[key]]}; one row is expected",
+                                    row=sheet_rows[k], column=headers.get(tdef.key[-1], tdef.key[-1]),
+                                    value=key[-1] if len(key) > 1 else key[0]))
+        else:
+            first[key] = k
+    return problems
+
+
+def _nan(v) -> bool:
+    return v is None or (isinstance(v, float) and math.isnan(v))
+
+
+def _fmt(v) -> str:
+    return f"{v:g}" if isinstance(v, float) else str(v)
+
+
+def _rule_problems(df, tdef: Table, label, sheet_rows, headers, bad) -> list[Problem]:
+    problems = []
+    for rule in tdef.rules:
+        check = ROW_RULES[rule]
+        for k, col, value, text in check(df, bad):
+            row = sheet_rows[k] if k is not None else None
+            value = value.item() if hasattr(value, "item") else value
+            problems.append(Problem(label, f"{text} (rule: {rule})", row=row, column=headers.get(col, col),
+                                    value=value))
+    return problems
+
+
+def _ok(df, bad, k, *cols) -> bool:
+    return all((k, c) not in bad and not _nan(df[c].iloc[k]) for c in cols)
+
+
+def _rule_density(df, bad):
+    env, ske = "envelope_density_g_cm3", "skeletal_density_g_cm3"
+    for k in range(len(df)):
+        if _ok(df, bad, k, env, ske) and df[env].iloc[k] > df[ske].iloc[k]:
+            e, s = df[env].iloc[k], df[ske].iloc[k]
+            yield k, env, e, f"envelope density {e:g} g/cm3 is above the skeletal density {s:g} g/cm3"
+
+
+def _rule_sieve_sum(df, bad):
+    totals: dict[str, float] = {}
+    first: dict[str, int] = {}
+    for k, lot in enumerate(df["lot"].tolist()):
+        if _nan(lot):
+            continue
+        first.setdefault(lot, k)
+        if _ok(df, bad, k, "retained_g"):
+            totals[lot] = totals.get(lot, 0.0) + df["retained_g"].iloc[k]
+        elif (k, "retained_g") in bad:
+            totals[lot] = math.nan
+    for lot, total in totals.items():
+        if total == 0:
+            yield first[lot], "retained_g", 0.0, f"lot {lot!r}: the retained masses sum to 0 g"
+
+
+def _rule_d_order(df, bad):
+    cols = ("d10_um", "d50_um", "d90_um")
+    for k in range(len(df)):
+        if _ok(df, bad, k, *cols):
+            d10, d50, d90 = (df[c].iloc[k] for c in cols)
+            if not d10 <= d50 <= d90:
+                col = "d10_um" if d10 > d50 else "d90_um"
+                yield k, col, df[col].iloc[k], f"d10 {d10:g}, d50 {d50:g}, d90 {d90:g} um are not in order"
+
+
+def _rule_cup_depth(df, bad):
+    for k in range(len(df)):
+        if _ok(df, bad, k, "cup_depth_mm", "thickness_mm"):
+            c, t = df["cup_depth_mm"].iloc[k], df["thickness_mm"].iloc[k]
+            if not 2 * c < t:
+                yield k, "cup_depth_mm", c, f"two cups of {c:g} mm do not fit in a tablet {t:g} mm thick"
+
+
+#: schema rule text -> checker yielding (row index, column, value, message).
+#: Every rule named in ``schema.TABLES`` has one (a test checks this).
+ROW_RULES = {
+    "envelope_density_g_cm3 <= skeletal_density_g_cm3": _rule_density,
+    "each lot's retained masses sum to more than 0 g": _rule_sieve_sum,
+    "d10_um <= d50_um <= d90_um": _rule_d_order,
+    "2 * cup_depth_mm < thickness_mm": _rule_cup_depth,
+}
+
+
+def _sorted(problems: list[Problem]) -> list[Problem]:
+    return sorted(problems, key=lambda p: (p.file, p.row if p.row is not None else 0))
+
+
+def _suggest(name: str, choices: Iterable[str]) -> str:
+    near = difflib.get_close_matches(str(name), list(choices), n=1, cutoff=0.6)
+    return f" (did you mean '{near[0]}'?)" if near else ""
+
+
+# --------------------------------------------------------------------------- public readers
+
+
+def read_table(path: Path, table: str | None = None, mapping: Mapping | None = None) -> pd.DataFrame:
+    """Read one CSV or XLSX file as a checked table of the template.
+
+    ``table`` defaults to the file's stem. Returns typed columns (see
+    :func:`frame_from_columns`): every template column of the table in template
+    order, then the extra columns in file order. ``attrs["source_rows"]`` gives
+    each row's spreadsheet row. Raises :class:`InputError` with every problem
+    of the file.
+    """
+    path = Path(path)
+    name = table if table is not None else _norm_header(path.stem).lower()
+    if name not in TABLES:
+        raise InputError(Problem(path.name, f"unknown table '{name}'{_suggest(name, TABLES)}; "
+                                            f"tables: {', '.join(TABLES)}"))
+    if not path.is_file():
+        raise InputError(Problem(str(path), "no such file"))
+    cmaps = (mapping or Mapping()).for_table(name)
+    if path.suffix.lower() in WORKBOOK_SUFFIXES:
+        values, formulas = _open_workbook(path, path.name)
+        try:
+            sheets = values.sheetnames
+            by_name = {_norm_header(s).lower(): s for s in sheets}
+            if name in by_name:
+                sheet = by_name[name]
+            elif len(sheets) == 1:
+                sheet = sheets[0]
+            else:
+                raise InputError(Problem(path.name, f"no sheet named '{name}' and more than one sheet "
+                                                    f"({', '.join(sheets)})"))
+            label = path.name if len(sheets) == 1 else f"{path.name} (sheet {sheet})"
+            raw = _read_sheet(values, formulas, sheet, label)
+        finally:
+            values.close()
+            formulas.close()
+    elif path.suffix.lower() in UNSUPPORTED_SUFFIXES:
+        raise InputError(Problem(path.name, "this spreadsheet format is not read; save as .xlsx or CSV UTF-8"))
+    else:
+        raw = _read_csv(path.read_bytes(), path.name)
+    return _build(raw, TABLES[name], cmaps)
+
+
+def read_folder(folder: Path, mapping: Mapping | None = None, *,
+                known_lots: Iterable[str] | None = None) -> Ingest:
+    """Read every recognised file of an ingest folder (see the module notes).
+
+    ``known_lots`` are the lots already in the store. When given, the folder
+    is also checked against them (:func:`cross_check`): results for a lot with
+    no process record here or there, and, for an empty store, the tables a
+    first ingest needs. The store repeats that check inside its transaction.
+    Raises one :class:`InputError` with the problems of every file.
+    """
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise InputError(Problem(str(folder), "not a folder"))
+    workbooks: dict[Path, tuple] = {}  # open workbooks, read once for their sheet names and their cells
+    try:
+        return _read_folder(folder, mapping, known_lots, workbooks)
+    finally:
+        for values, formulas in workbooks.values():
+            values.close()
+            formulas.close()
+
+
+def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: dict) -> Ingest:
+    problems: list[Problem] = []
+    warnings: list[str] = []
+    sources: dict[str, dict] = {}
+    other: dict[str, dict] = {}
+    plan: dict[str, tuple[Path, str | None, str]] = {}  # table -> (file, sheet or None, label)
+    spec_path = mapping_path = None
+    for entry in sorted(folder.iterdir(), key=lambda p: p.name.lower()):
+        name, suffix = entry.name, entry.suffix.lower()
+        stem = _norm_header(entry.stem).lower()
+        if entry.is_dir():
+            warnings.append(f"subfolder {name}/ ignored (only files directly in {folder.name}/ are read)")
+        elif name.startswith((".", "~$")):
+            warnings.append(f"{name} ignored (hidden or temporary file)")
+        elif name.lower() == SPEC_FILE:
+            spec_path = entry
+        elif name.lower() == MAPPING_FILE:
+            mapping_path = entry
+        elif stem.startswith("readme"):
+            continue
+        elif suffix in UNSUPPORTED_SUFFIXES:
+            problems.append(Problem(name, "this spreadsheet format is not read; save as .xlsx or CSV UTF-8"))
+        elif suffix in DATA_SUFFIXES and stem in TABLES:
+            _plan(plan, stem, (entry, None, name), problems)
+        elif suffix in WORKBOOK_SUFFIXES:
+            _plan_workbook(entry, plan, problems, warnings, workbooks)
+        elif suffix in DATA_SUFFIXES or stem in TABLES:
+            problems.append(Problem(name, f"not a recognised table file{_suggest(stem, TABLES)}; recognised: "
+                                          f"{', '.join(f'{t}.csv' for t in TABLES)} (or .xlsx), "
+                                          f"{SPEC_FILE}, {MAPPING_FILE}"))
+        else:
+            warnings.append(f"{name} ignored (not a table file; recognised: {', '.join(TABLES)} as .csv or "
+                            f".xlsx, {SPEC_FILE}, {MAPPING_FILE})")
+    if mapping is None and mapping_path is not None:
+        try:
+            mapping = read_mapping(mapping_path)
+        except InputError as exc:
+            raise InputError(exc.problems) from None  # a broken mapping would garble every file's errors
+        other[MAPPING_FILE] = {"file": mapping_path.name, "sha256": mapping.sha256, "rows": None}
+    elif mapping_path is not None:
+        warnings.append(f"{mapping_path.name} in the folder ignored: a mapping was given")
+    if not plan and not problems:
+        problems.append(Problem(folder.name or str(folder), "no table files found; expected "
+                                f"{', '.join(f'{t}.csv' for t in TABLES)} (or .xlsx)"))
+    tables: dict[str, pd.DataFrame] = {}
+    failed: set[str] = set()
+    for tname in (t for t in TABLES if t in plan):
+        path, sheet, label = plan[tname]
+        try:
+            if sheet is None:
+                df = read_table(path, tname, mapping)
+            else:
+                df = _build(_read_sheet(*workbooks[path], sheet, label), TABLES[tname],
+                            (mapping or Mapping()).for_table(tname))
+        except InputError as exc:
+            problems += exc.problems
+            failed.add(tname)
+            continue
+        tables[tname] = df
+        sources[tname] = {"file": label, "sha256": _sha256(path), "rows": len(df)}
+        if len(df) == 0:
+            warnings.append(f"{label} has a header but no data rows")
+    spec = None
+    if spec_path is not None:
+        try:
+            spec = read_spec(spec_path)
+            other[SPEC_FILE] = {"file": spec_path.name, "sha256": _sha256(spec_path), "rows": None}
+        except InputError as exc:
+            problems += exc.problems
+    ingest = Ingest(tables, sources, spec, warnings, folder, other)
+    if "process" not in failed:
+        problems += cross_check(ingest, known_lots, unread=failed)
+    if problems:
+        raise InputError(problems)
+    return ingest
+
+
+def _plan(plan: dict, table: str, item: tuple, problems: list[Problem]) -> None:
+    if table in plan:
+        problems.append(Problem(item[2], f"table '{table}' is given twice: also in {plan[table][2]}"))
+    else:
+        plan[table] = item
+
+
+def _plan_workbook(path: Path, plan: dict, problems: list[Problem], warnings: list[str], workbooks: dict) -> None:
+    try:
+        workbooks[path] = _open_workbook(path, path.name)
+    except InputError as exc:
+        problems += exc.problems
+        return
+    sheets = workbooks[path][0].sheetnames
+    found = [s for s in sheets if _norm_header(s).lower() in TABLES]
+    if not found:
+        problems.append(Problem(path.name, f"not a recognised table file: neither the file nor any of its sheets "
+                                           f"({', '.join(sheets)}) is named after a table; tables: "
+                                           f"{', '.join(TABLES)}"))
+        return
+    for s in sheets:
+        if s in found:
+            _plan(plan, _norm_header(s).lower(), (path, s, f"{path.name} (sheet {s})"), problems)
+        else:
+            warnings.append(f"{path.name}: sheet '{s}' ignored (not a table name)")
+
+
+def _sha256(path: Path) -> str:
+    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+
+
+def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterable[str] = ()) -> list[Problem]:
+    """Rules across tables, given the lots already in the store.
+
+    ``known_lots=None`` means the store is not known yet and nothing is
+    checked. Otherwise: every lot of a result table needs a process record in
+    this ingest or in the store; and an empty store needs every required table
+    (``unread`` names tables that are there but failed to read).
+    """
+    if known_lots is None:
+        return []
+    known = set(known_lots)
+    problems: list[Problem] = []
+    if not known:
+        missing = [t.name for t in TABLES.values()
+                   if t.required and t.name not in ingest.tables and t.name not in set(unread)]
+        if missing:
+            needed = ", ".join(t.name for t in TABLES.values() if t.required)
+            where = ingest.folder.name if ingest.folder is not None else "input"
+            problems += [Problem(where, f"required table '{m}' is missing: the first ingest into an empty store "
+                                        f"needs {needed}") for m in missing]
+    with_process = known | set(ingest.tables["process"]["lot"]) if "process" in ingest.tables else known
+    for tname, df in ingest.tables.items():
+        if tname == "process":
+            continue
+        rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
+        label = ingest.sources.get(tname, {}).get("file", tname)
+        orphans: dict[str, list[int]] = {}
+        for k, lot in enumerate(df["lot"].tolist()):
+            if lot not in with_process:
+                orphans.setdefault(lot, []).append(rows[k])
+        for lot, rs in orphans.items():
+            span = f"row {rs[0]}" if len(rs) == 1 else f"rows {rs[0]}-{rs[-1]}, {len(rs)} rows"
+            problems.append(Problem(label, f"lot {lot!r} has no process record in this folder or in the store "
+                                           f"({span}); add it to process", row=rs[0], column="lot", value=lot))
+    return problems

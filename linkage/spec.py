@@ -1,0 +1,218 @@
+"""Acceptance limits: ``spec.toml``.
+
+One TOML table per quality attribute, named as the column of the assembled
+table (``schema.QUALITY_ATTRIBUTES``), with ``min`` and/or ``max`` in that
+column's unit (``schema.ASSEMBLED``). The ``dissolution_pct`` table may carry
+``time_min``, the time point the limit applies to (default 30 min)::
+
+    [dissolution_pct]
+    min = 80
+    time_min = 30
+
+    [tensile_strength_mpa]
+    min = 1.7
+
+    [weight_rsd_pct]
+    max = 2.0
+
+Limits are inclusive: a value passes when ``min <= value <= max`` (a spec of
+"not less than 80 %" passes 80.0). Values are compared as given, without
+rounding to the limit's digits.
+
+Refused, with the file, line and attribute named: invalid TOML; an unknown
+attribute (the valid ones are listed); a key other than ``min``/``max``
+(and ``time_min`` in ``dissolution_pct``); a limit that is not a number; a
+table with neither ``min`` nor ``max``; ``min`` above ``max``; and a limit
+outside the attribute's plausible range, which usually means the wrong unit
+(a porosity of 20 meant as percent, a dissolution maximum of 500).
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from linkage.exceptions import Problem, SpecError, UsageError
+from linkage.schema import (ASSEMBLED, DEFAULT_DISSOLUTION_TIME_MIN, QUALITY_ATTRIBUTES, TABLES)
+
+DISSOLUTION = "dissolution_pct"
+
+#: Plausible ranges of the quality attributes that are not input columns of
+#: the template (those take their bounds from ``schema.TABLES``).
+#: Porosity and solid fraction are fractions by definition (porosity =
+#: 1 - envelope/skeletal density); fines are a mass percentage. The upper ends
+#: of strength, span and acceptance value are generous guards against a unit
+#: slip (kPa for MPa), common practice, no source.
+DERIVED_RANGES: dict[str, tuple[float, float]] = {
+    "ribbon_porosity": (0.0, 1.0),
+    "ribbon_solid_fraction": (0.0, 1.0),
+    "fines_pct": (0.0, 100.0),
+    "granule_span": (0.0, 100.0),
+    "tensile_strength_mpa": (0.0, 100.0),
+    "ribbon_tensile_strength_mpa": (0.0, 100.0),
+    "weight_acceptance_value": (0.0, 100.0),
+}
+
+
+def plausible_range(attribute: str) -> tuple[float, float]:
+    """(low, high) a limit on ``attribute`` must lie in, in its assembled unit."""
+    if attribute in DERIVED_RANGES:
+        return DERIVED_RANGES[attribute]
+    source = attribute.removeprefix("granule_")  # granule_d50_um <- granules_laser.d50_um
+    for table in TABLES.values():
+        if source in table.names:
+            col = table.column(source)
+            return (-math.inf if col.low is None else col.low, math.inf if col.high is None else col.high)
+    raise KeyError(attribute)
+
+
+def _time_range() -> tuple[float, float]:
+    col = TABLES["dissolution"].column("time_min")
+    return col.low, col.high
+
+
+@dataclass(frozen=True)
+class Limit:
+    """An inclusive acceptance interval; ``None`` is an open side."""
+
+    min: float | None = None
+    max: float | None = None
+
+    def text(self) -> str:
+        if self.min is not None and self.max is not None:
+            return f"{self.min:g} to {self.max:g}"
+        return f">= {self.min:g}" if self.min is not None else f"<= {self.max:g}"
+
+
+@dataclass(frozen=True)
+class Spec:
+    """Acceptance limits by quality attribute, and the dissolution time point."""
+
+    limits: dict[str, Limit] = field(default_factory=dict)
+    dissolution_time_min: float = DEFAULT_DISSOLUTION_TIME_MIN
+
+    def passes(self, attribute: str, value: float) -> bool:
+        """True when ``value`` meets the limits of ``attribute`` (inclusive).
+
+        An attribute without limits passes; a missing value (NaN, None) does
+        not. An attribute that is not a quality attribute is a UsageError.
+        """
+        if attribute not in QUALITY_ATTRIBUTES:
+            raise UsageError(f"'{attribute}' is not a quality attribute{_suggest(attribute)}; "
+                             f"valid: {', '.join(QUALITY_ATTRIBUTES)}")
+        limit = self.limits.get(attribute)
+        if limit is None:
+            return True
+        if value is None or math.isnan(float(value)):
+            return False
+        v = float(value)
+        return (limit.min is None or v >= limit.min) and (limit.max is None or v <= limit.max)
+
+    def to_dict(self) -> dict:
+        return {
+            "limits": {a: {k: v for k, v in (("min", lim.min), ("max", lim.max)) if v is not None}
+                       for a, lim in self.limits.items()},
+            "dissolution_time_min": self.dissolution_time_min,
+        }
+
+    @classmethod
+    def from_dict(cls, data: dict, file: str = "spec") -> Spec:
+        """Inverse of :meth:`to_dict`, with the checks of :func:`read_spec`."""
+        tables = {a: dict(v) for a, v in data.get("limits", {}).items()}
+        time = data.get("dissolution_time_min", DEFAULT_DISSOLUTION_TIME_MIN)
+        if time != DEFAULT_DISSOLUTION_TIME_MIN or DISSOLUTION in tables:
+            tables.setdefault(DISSOLUTION, {})["time_min"] = time
+        return _parse(tables, file, "")
+
+
+def read_spec(path: Path) -> Spec:
+    """Read and check a ``spec.toml`` file; raises :class:`SpecError` with every problem."""
+    path = Path(path)
+    if not path.is_file():
+        raise SpecError(Problem(str(path), "no such spec file"))
+    try:
+        text = path.read_bytes().decode("utf-8-sig")
+        data = tomllib.loads(text)
+    except UnicodeDecodeError:
+        raise SpecError(Problem(path.name, "not UTF-8 text")) from None
+    except tomllib.TOMLDecodeError as exc:
+        m = re.search(r"line (\d+)", str(exc))
+        raise SpecError(Problem(path.name, f"not valid TOML: {exc}", row=int(m.group(1)) if m else None)) from None
+    return _parse(data, path.name, text)
+
+
+def _parse(data: dict, file: str, text: str) -> Spec:
+    problems: list[Problem] = []
+    limits: dict[str, Limit] = {}
+    time_min = DEFAULT_DISSOLUTION_TIME_MIN
+
+    def bad(attr: str, rule: str, value=None) -> None:
+        problems.append(Problem(file, rule, row=_line_of(text, attr), column=attr, value=value))
+
+    if not data:
+        problems.append(Problem(file, "no limits: give one table per quality attribute, e.g. "
+                                      "[dissolution_pct] min = 80"))
+    for attr, table in data.items():
+        if attr not in QUALITY_ATTRIBUTES:
+            bad(attr, f"unknown quality attribute [{attr}]{_suggest(attr)}; valid: {', '.join(QUALITY_ATTRIBUTES)}")
+            continue
+        if not isinstance(table, dict):
+            bad(attr, f"'{attr}' must be a table: [{attr}] with min and/or max", table)
+            continue
+        allowed = {"min", "max", "time_min"} if attr == DISSOLUTION else {"min", "max"}
+        unknown = sorted(set(table) - allowed)
+        for key in unknown:
+            where = " (time_min belongs in [dissolution_pct] only)" if key == "time_min" else ""
+            bad(attr, f"[{attr}]: unknown key '{key}'; allowed: {', '.join(sorted(allowed))}{where}", table[key])
+        values: dict[str, float] = {}
+        for key in ("min", "max", "time_min"):
+            if key not in table or key not in allowed:
+                continue
+            v = table[key]
+            if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+                bad(attr, f"[{attr}] {key} must be a number", v)
+                continue
+            values[key] = float(v)
+        if "min" not in table and "max" not in table:
+            if not unknown:  # an unknown key already says which keys are allowed
+                bad(attr, f"[{attr}] has neither min nor max")
+            continue
+        lo, hi = plausible_range(attr)
+        unit = ASSEMBLED.get(attr, "")
+        ok = True
+        for key in ("min", "max"):
+            if key in values and not lo <= values[key] <= hi:
+                hint = " (a fraction: write 0.20 for 20 %)" if (lo, hi) == (0.0, 1.0) else ""
+                bad(attr, f"[{attr}] {key} = {values[key]:g} is outside the plausible range {lo:g} to {hi:g} "
+                          f"{unit} of {attr}: limit in the wrong unit range?{hint}", table[key])
+                ok = False
+        if "min" in values and "max" in values and values["min"] > values["max"]:
+            bad(attr, f"[{attr}] min {values['min']:g} is above max {values['max']:g}", table["min"])
+            ok = False
+        if "time_min" in values:
+            t_lo, t_hi = _time_range()
+            if not t_lo < values["time_min"] <= t_hi:
+                bad(attr, f"[{attr}] time_min must be in {t_lo:g} < time_min <= {t_hi:g} min", table["time_min"])
+                ok = False
+            else:
+                time_min = values["time_min"]
+        if ok and ("min" in values or "max" in values) and set(values) >= set(table) & {"min", "max"}:
+            limits[attr] = Limit(values.get("min"), values.get("max"))
+    if problems:
+        raise SpecError(problems)
+    return Spec(limits, time_min)
+
+
+def _line_of(text: str, attr: str) -> int | None:
+    m = re.search(rf"^[ \t]*\[[ \t]*\"?{re.escape(attr)}\"?[ \t]*\]", text, flags=re.MULTILINE)
+    return text.count("\n", 0, m.start()) + 1 if m else None
+
+
+def _suggest(name: str) -> str:
+    import difflib
+
+    near = difflib.get_close_matches(str(name), QUALITY_ATTRIBUTES, n=1, cutoff=0.6)
+    return f" (did you mean '{near[0]}'?)" if near else ""

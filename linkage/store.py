@@ -1,0 +1,727 @@
+"""The lot store: one SQLite file that keeps every measurement, revision and record.
+
+Default ``linkage.db`` in the working folder; the CLI's ``--store`` and the
+``LINKAGE_STORE`` variable choose another.
+
+What it keeps
+-------------
+- Raw rows, not lot means: every ribbon replicate, every sieve row, every
+  tablet and vessel, with its extra columns, as JSON per row (floats are
+  written with Python's shortest round-trip ``repr``, so they read back
+  exactly). Missing cells are left out of a row's JSON.
+- A lot's *revision* covers all its rows in all tables. An ingest that
+  changes any of a lot's rows makes a new revision of that lot only; the
+  tables the ingest does not carry over unchanged from the previous revision
+  (a folder with just ``tablets.csv`` is a partial update). A table's rows of
+  a lot are compared by content (key order, row order and all-missing
+  columns do not count), so sending the same data again is a no-op: no new
+  revision, and the lot is reported unchanged. The ingest itself is still
+  logged (who, when, which files).
+- Each ingest is one transaction (``BEGIN IMMEDIATE``): it records the
+  source files with their SHA-256 and row counts, the time and the user, and
+  either all of it lands or none (a killed process leaves the store as it
+  was: SQLite's write-ahead log).
+- Records are append-only: triggers refuse UPDATE and DELETE on every table
+  that holds data (ingests, lots, revisions, rows, the audit log, recorded
+  predictions).
+
+Concurrency
+-----------
+WAL mode lets readers run while one process writes; a writer waits up to
+``busy_timeout_s`` (10 s) for another and then raises
+:class:`~linkage.exceptions.StoreBusyError` ("store busy ...").
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import getpass
+import hashlib
+import json
+import math
+import os
+import sqlite3
+from contextlib import contextmanager
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Iterator
+
+import pandas as pd
+
+from linkage.exceptions import InputError, StoreBusyError, StoreError, UsageError
+from linkage.read import Ingest, cross_check, frame_from_columns
+from linkage.schema import DATETIME, NUMBER, TABLES, TEXT
+
+SCHEMA_VERSION = 1
+#: PRAGMA application_id of a linkage store ("LNKG").
+APPLICATION_ID = 0x4C4E4B47
+BUSY_TIMEOUT_S = 10.0
+
+#: Tables whose rows are never updated or deleted.
+APPEND_ONLY = ("schema_version", "ingests", "ingest_files", "lots", "lot_tables", "raw_rows", "revisions",
+               "revision_tables", "audit", "predictions")
+
+_DDL = """
+CREATE TABLE schema_version (version INTEGER NOT NULL, applied_at TEXT NOT NULL);
+CREATE TABLE ingests (
+    id INTEGER PRIMARY KEY,
+    at TEXT NOT NULL,
+    user TEXT NOT NULL,
+    folder TEXT,
+    lots_new INTEGER NOT NULL,
+    lots_revised INTEGER NOT NULL,
+    lots_unchanged INTEGER NOT NULL,
+    warnings_json TEXT NOT NULL
+);
+CREATE TABLE ingest_files (
+    ingest_id INTEGER NOT NULL REFERENCES ingests(id),
+    tbl TEXT,
+    file TEXT NOT NULL,
+    sha256 TEXT NOT NULL,
+    rows INTEGER
+);
+CREATE TABLE lots (
+    lot TEXT PRIMARY KEY,
+    first_ingest_id INTEGER NOT NULL REFERENCES ingests(id)
+);
+-- one table's rows of one lot, as one ingest sent them
+CREATE TABLE lot_tables (
+    id INTEGER PRIMARY KEY,
+    lot TEXT NOT NULL REFERENCES lots(lot),
+    tbl TEXT NOT NULL,
+    ingest_id INTEGER NOT NULL REFERENCES ingests(id),
+    file TEXT NOT NULL,
+    file_sha256 TEXT NOT NULL,
+    content_sha256 TEXT NOT NULL,
+    columns_json TEXT NOT NULL,
+    n_rows INTEGER NOT NULL,
+    n_filled INTEGER NOT NULL
+);
+CREATE TABLE raw_rows (
+    lot_table_id INTEGER NOT NULL REFERENCES lot_tables(id),
+    seq INTEGER NOT NULL,
+    source_row INTEGER,
+    data_json TEXT NOT NULL,
+    PRIMARY KEY (lot_table_id, seq)
+);
+CREATE TABLE revisions (
+    id INTEGER PRIMARY KEY,
+    lot TEXT NOT NULL REFERENCES lots(lot),
+    revision INTEGER NOT NULL,
+    ingest_id INTEGER NOT NULL REFERENCES ingests(id),
+    product TEXT,
+    UNIQUE (lot, revision)
+);
+CREATE TABLE revision_tables (
+    revision_id INTEGER NOT NULL REFERENCES revisions(id),
+    tbl TEXT NOT NULL,
+    lot_table_id INTEGER NOT NULL REFERENCES lot_tables(id),
+    PRIMARY KEY (revision_id, tbl)
+);
+CREATE TABLE audit (
+    id INTEGER PRIMARY KEY,
+    at TEXT NOT NULL,
+    user TEXT NOT NULL,
+    action TEXT NOT NULL,
+    lot TEXT,
+    model_id TEXT,
+    inputs_json TEXT,
+    outputs_json TEXT
+);
+CREATE TABLE predictions (
+    id INTEGER PRIMARY KEY,
+    at TEXT NOT NULL,
+    user TEXT NOT NULL,
+    model_id TEXT NOT NULL,
+    lot TEXT,
+    inputs_json TEXT NOT NULL,
+    outputs_json TEXT NOT NULL
+);
+CREATE INDEX lot_tables_lot ON lot_tables(lot);
+CREATE INDEX revisions_lot ON revisions(lot);
+CREATE INDEX audit_lot ON audit(lot);
+CREATE INDEX predictions_lot ON predictions(lot);
+CREATE VIEW current_revisions AS
+    SELECT r.* FROM revisions r
+    WHERE r.revision = (SELECT MAX(revision) FROM revisions WHERE lot = r.lot);
+"""
+
+
+def _statements() -> list[str]:
+    """The DDL of a new store, one statement each, append-only triggers last."""
+    out = [s.strip() for s in _DDL.split(";") if s.strip()]
+    for table in APPEND_ONLY:
+        for op in ("UPDATE", "DELETE"):
+            out.append(f"CREATE TRIGGER {table}_no_{op.lower()} BEFORE {op} ON {table} BEGIN "
+                       f"SELECT RAISE(ABORT, 'linkage store: {table} is append-only ({op} refused)'); END")
+    return out
+
+
+def current_user() -> str:
+    """The OS user name, or 'unknown' where the system cannot tell."""
+    try:
+        return getpass.getuser()
+    except Exception:  # getpass raises OSError, KeyError or ImportError depending on the platform
+        return os.environ.get("USERNAME") or os.environ.get("USER") or "unknown"
+
+
+def _now() -> str:
+    return dt.datetime.now(dt.timezone.utc).isoformat(timespec="milliseconds")
+
+
+def _json(value) -> str:
+    return json.dumps(_plain(value), ensure_ascii=False, allow_nan=False)
+
+
+def _plain(value):
+    """JSON-ready: numpy scalars and arrays, Timestamps, Paths; NaN -> None."""
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple, set)):
+        return [_plain(v) for v in value]
+    if hasattr(value, "tolist") and not isinstance(value, (str, bytes)):
+        return _plain(value.tolist())
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, (dt.datetime, dt.date, pd.Timestamp)):
+        return value.isoformat()
+    if isinstance(value, Path):
+        return str(value)
+    if isinstance(value, (int, str, bool)) or value is None:
+        return value
+    if hasattr(value, "item"):
+        return _plain(value.item())
+    return str(value)
+
+
+@dataclass
+class IngestResult:
+    """What one ingest did: lots new, revised and unchanged, and its id."""
+
+    lots_new: list[str]
+    lots_revised: list[str]
+    lots_unchanged: list[str]
+    ingest_id: int
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def changed(self) -> bool:
+        return bool(self.lots_new or self.lots_revised)
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+# --------------------------------------------------------------------------- row encoding
+
+
+def _cell_out(kind: str, value):
+    """A DataFrame cell as a JSON value, or None when missing."""
+    if value is None or (isinstance(value, float) and math.isnan(value)) or value is pd.NaT:
+        return None
+    if kind == DATETIME:
+        return pd.Timestamp(value).isoformat()
+    if kind == NUMBER:
+        return float(value)
+    if kind == TEXT:
+        return str(value)
+    return float(value) if isinstance(value, float) else str(value)
+
+
+def _cell_in(kind: str | None, value):
+    if value is None:
+        return None
+    if kind == DATETIME:
+        return dt.datetime.fromisoformat(value)
+    return value
+
+
+def _canon_row(table: str, row: dict) -> dict:
+    """A row as compared between revisions: -0.0 is 0.0, and in extra columns
+    a number written as text is the number (an extra column turns text when
+    one lot has a word in it)."""
+    names = TABLES[table].names
+    return {c: v + 0.0 if isinstance(v, float) else v if c in names else _canon(v) for c, v in row.items()}
+
+
+def _canon(value):
+    if isinstance(value, str):
+        try:
+            f = float(value)
+        except ValueError:
+            return value
+        if math.isfinite(f) and value.strip() == value and not any(c in value for c in "_ ,"):
+            return f + 0.0
+    return value
+
+
+@dataclass
+class _LotTable:
+    rows: list[dict]
+    source_rows: list[int]
+    columns: list[str]
+    sha256: str
+    n_filled: int
+
+
+def _prepare(ingest: Ingest) -> dict[str, dict[str, _LotTable]]:
+    """lot -> table -> its rows as JSON-ready dicts, with a content hash."""
+    out: dict[str, dict[str, _LotTable]] = {}
+    for tname, df in ingest.tables.items():
+        tdef = TABLES[tname]
+        kinds = {c.name: c.kind for c in tdef.columns}
+        columns = list(df.columns)
+        source_rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
+        per_lot: dict[str, list[int]] = {}
+        for k, lot in enumerate(df["lot"].tolist()):
+            per_lot.setdefault(lot, []).append(k)
+        records = df.to_dict("records")
+        for lot, idx in per_lot.items():
+            rows = []
+            for k in idx:
+                row = {c: _cell_out(kinds.get(c, "extra"), records[k][c]) for c in columns}
+                rows.append({c: v for c, v in row.items() if v is not None})
+            filled = sum(1 for r in rows for c in r if c in kinds and c != "lot")
+            out.setdefault(lot, {})[tname] = _LotTable(rows, [int(source_rows[k]) for k in idx], columns,
+                                                       _content_hash(tname, rows), filled)
+    return out
+
+
+def _memory_source(table: str, df: pd.DataFrame) -> dict:
+    """Where a table built in memory (not read from a file) is said to come from."""
+    digest = hashlib.sha256(df.to_csv(index=False).encode("utf-8")).hexdigest()
+    return {"file": f"({table}, not from a file)", "sha256": digest, "rows": len(df)}
+
+
+def _content_hash(table: str, rows: list[dict]) -> str:
+    """SHA-256 of a lot's rows of one table, independent of row order."""
+    key = TABLES[table].key
+    canon = sorted((_canon_row(table, r) for r in rows), key=lambda r: tuple(str(r.get(c)) for c in key))
+    return hashlib.sha256(json.dumps(canon, sort_keys=True, ensure_ascii=False).encode()).hexdigest()
+
+
+# --------------------------------------------------------------------------- the store
+
+
+class LotStore:
+    """The SQLite lot store. Use as a context manager, or call :meth:`close`.
+
+    ``create=False`` refuses a path where no store exists yet (for commands
+    that only read).
+    """
+
+    def __init__(self, path: Path | str = "linkage.db", *, create: bool = True,
+                 busy_timeout_s: float = BUSY_TIMEOUT_S):
+        self.path = Path(path)
+        self.busy_timeout_s = busy_timeout_s
+        if self.path.is_dir():
+            raise StoreError(f"{self.path} is a folder, not a lot store file")
+        exists = self.path.exists() and self.path.stat().st_size > 0
+        if not exists and not create:
+            raise StoreError(f"no lot store at {self.path}; run `linkage ingest FOLDER` first, or point --store "
+                             "(or LINKAGE_STORE) at the store")
+        if not exists and not self.path.parent.is_dir():
+            raise StoreError(f"cannot create the lot store {self.path}: folder {self.path.parent} does not exist")
+        if exists:
+            with open(self.path, "rb") as fh:
+                if fh.read(16) != b"SQLite format 3\x00":
+                    raise StoreError(f"{self.path} is not a SQLite file, so not a lot store")
+        try:
+            self._conn = sqlite3.connect(self.path, timeout=busy_timeout_s, isolation_level=None)
+        except sqlite3.Error as exc:
+            raise StoreError(f"cannot open the lot store {self.path}: {exc}") from None
+        try:
+            self._setup()
+        except BaseException:
+            self._conn.close()
+            raise
+
+    # ---- opening
+
+    def _setup(self) -> None:
+        c = self._conn
+        try:
+            c.execute(f"PRAGMA busy_timeout = {int(self.busy_timeout_s * 1000)}")
+            c.execute("PRAGMA foreign_keys = ON")
+            app_id = c.execute("PRAGMA application_id").fetchone()[0]
+            names = [r[0] for r in c.execute("SELECT name FROM sqlite_master WHERE type = 'table'")]
+        except sqlite3.DatabaseError as exc:
+            raise self._error(exc) from None
+        if app_id == APPLICATION_ID:
+            try:
+                version = c.execute("SELECT MAX(version) FROM schema_version").fetchone()[0]
+            except sqlite3.DatabaseError as exc:
+                raise self._error(exc) from None
+            if version is None or version > SCHEMA_VERSION:
+                raise StoreError(f"{self.path} was written by a newer linkage (store schema {version}; "
+                                 f"this version reads {SCHEMA_VERSION})")
+        elif app_id == 0 and not names:
+            self._create()
+        else:
+            shown = ", ".join(names[:6]) or "none"
+            raise StoreError(f"{self.path} is an SQLite file but not a linkage lot store (tables: {shown})")
+        c.execute("PRAGMA journal_mode = WAL")
+        c.execute("PRAGMA synchronous = FULL")
+
+    def _create(self) -> None:
+        with self._write() as c:
+            names = [r[0] for r in c.execute("SELECT name FROM sqlite_master WHERE type = 'table'")]
+            if names:  # another process created it while we waited
+                return
+            for stmt in _statements():
+                c.execute(stmt)
+            c.execute(f"PRAGMA application_id = {APPLICATION_ID}")
+            c.execute("INSERT INTO schema_version VALUES (?, ?)", (SCHEMA_VERSION, _now()))
+
+    def _error(self, exc: sqlite3.Error) -> Exception:
+        text = str(exc).lower()
+        if "locked" in text or "busy" in text:
+            return StoreBusyError(f"store busy: another process has held the lot store {self.path} for more "
+                                  f"than {self.busy_timeout_s:g} s; try again when it has finished")
+        return StoreError(f"lot store {self.path}: {exc}")
+
+    @contextmanager
+    def _write(self) -> Iterator[sqlite3.Connection]:
+        """One write transaction: all of it or nothing."""
+        c = self._conn
+        try:
+            c.execute("BEGIN IMMEDIATE")
+        except sqlite3.OperationalError as exc:
+            raise self._error(exc) from None
+        try:
+            yield c
+            c.execute("COMMIT")
+        except BaseException as exc:
+            if c.in_transaction:
+                c.execute("ROLLBACK")
+            if isinstance(exc, sqlite3.OperationalError):
+                raise self._error(exc) from None
+            raise
+
+    def _read(self, sql: str, params: tuple = ()) -> list[tuple]:
+        try:
+            return self._conn.execute(sql, params).fetchall()
+        except sqlite3.OperationalError as exc:
+            raise self._error(exc) from None
+
+    @property
+    def connection(self) -> sqlite3.Connection:
+        """The open connection, for read queries; the triggers refuse changes to records."""
+        return self._conn
+
+    def close(self) -> None:
+        self._conn.close()
+
+    def __enter__(self) -> LotStore:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    # ---- ingest
+
+    def lot_ids(self) -> list[str]:
+        """Every lot in the store, in the order they first came."""
+        return [r[0] for r in self._read("SELECT lot FROM lots ORDER BY rowid")]
+
+    def ingest(self, ingest: Ingest, user: str | None = None) -> IngestResult:
+        """Store a checked folder as one transaction; see the module notes.
+
+        Raises InputError (nothing written) when results name a lot with no
+        process record in the folder or the store, or when an empty store
+        gets a folder without every required table.
+        """
+        user = user or current_user()
+        prepared = _prepare(ingest)
+        sources = {t: ingest.sources.get(t) or _memory_source(t, df) for t, df in ingest.tables.items()}
+        order = ingest.lots()
+        process = ingest.tables.get("process")
+        products = {}
+        if process is not None:
+            for lot, product in zip(process["lot"].tolist(), process["product"].tolist()):
+                products[lot] = None if isinstance(product, float) else product
+        with self._write() as c:
+            known = [r[0] for r in c.execute("SELECT lot FROM lots")]
+            problems = cross_check(ingest, known)
+            if problems:
+                raise InputError(problems)
+            current = self._current_links(c)
+            new, revised, unchanged = [], [], []
+            changes: dict[str, list[str]] = {}
+            for lot in order:
+                if lot not in current:
+                    new.append(lot)
+                    changes[lot] = list(prepared[lot])
+                    continue
+                links = current[lot]["tables"]
+                changed = [t for t, lt in prepared[lot].items() if t not in links or links[t][1] != lt.sha256]
+                if changed:
+                    revised.append(lot)
+                    changes[lot] = changed
+                else:
+                    unchanged.append(lot)
+            warnings = list(ingest.warnings)
+            for lot in revised:
+                old = current[lot]["product"]
+                if lot in products and products[lot] != old:
+                    warnings.append(f"lot {lot}: product changes from {old or '(none)'} to "
+                                    f"{products[lot] or '(none)'}")
+            cur = c.execute("INSERT INTO ingests (at, user, folder, lots_new, lots_revised, lots_unchanged, "
+                            "warnings_json) VALUES (?, ?, ?, ?, ?, ?, ?)",
+                            (_now(), user, None if ingest.folder is None else str(ingest.folder), len(new),
+                             len(revised), len(unchanged), _json(warnings)))
+            ingest_id = cur.lastrowid
+            for tname, src in sources.items():
+                c.execute("INSERT INTO ingest_files VALUES (?, ?, ?, ?, ?)",
+                          (ingest_id, tname, src["file"], src["sha256"], src["rows"]))
+            for src in ingest.other_sources.values():
+                c.execute("INSERT INTO ingest_files VALUES (?, NULL, ?, ?, NULL)",
+                          (ingest_id, src["file"], src["sha256"]))
+            for lot in new:
+                c.execute("INSERT INTO lots VALUES (?, ?)", (lot, ingest_id))
+            for lot in new + revised:
+                links = {t: v[0] for t, v in current.get(lot, {"tables": {}})["tables"].items()}
+                for tname in changes[lot]:
+                    links[tname] = self._insert_lot_table(c, lot, tname, ingest_id, prepared[lot][tname],
+                                                          sources[tname])
+                number = current[lot]["revision"] + 1 if lot in current else 1
+                product = products[lot] if lot in products else current[lot]["product"]
+                rid = c.execute("INSERT INTO revisions (lot, revision, ingest_id, product) VALUES (?, ?, ?, ?)",
+                                (lot, number, ingest_id, product)).lastrowid
+                c.executemany("INSERT INTO revision_tables VALUES (?, ?, ?)",
+                              [(rid, t, links[t]) for t in TABLES if t in links])
+            result = IngestResult(new, revised, unchanged, ingest_id, warnings)
+            self._log(c, "ingest", user, None, None,
+                      {"folder": None if ingest.folder is None else str(ingest.folder),
+                       "files": {t: s["file"] for t, s in sources.items()}},
+                      {"ingest_id": ingest_id, "new": new, "revised": revised, "unchanged": len(unchanged)})
+        return result
+
+    @staticmethod
+    def _insert_lot_table(c, lot: str, tname: str, ingest_id: int, lt: _LotTable, src: dict) -> int:
+        tid = c.execute("INSERT INTO lot_tables (lot, tbl, ingest_id, file, file_sha256, content_sha256, "
+                        "columns_json, n_rows, n_filled) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                        (lot, tname, ingest_id, src["file"], src["sha256"], lt.sha256, _json(lt.columns),
+                         len(lt.rows), lt.n_filled)).lastrowid
+        c.executemany("INSERT INTO raw_rows VALUES (?, ?, ?, ?)",
+                      [(tid, i, r, json.dumps(row, ensure_ascii=False, allow_nan=False))
+                       for i, (row, r) in enumerate(zip(lt.rows, lt.source_rows))])
+        return tid
+
+    @staticmethod
+    def _current_links(c) -> dict[str, dict]:
+        out: dict[str, dict] = {}
+        for lot, revision, product in c.execute("SELECT lot, revision, product FROM current_revisions"):
+            out[lot] = {"revision": revision, "product": product, "tables": {}}
+        for lot, tbl, tid, sha in c.execute(
+                "SELECT cr.lot, rt.tbl, lt.id, lt.content_sha256 FROM current_revisions cr "
+                "JOIN revision_tables rt ON rt.revision_id = cr.id JOIN lot_tables lt ON lt.id = rt.lot_table_id"):
+            out[lot]["tables"][tbl] = (tid, sha)
+        return out
+
+    # ---- reading
+
+    def current_tables(self, product: str | None = None) -> dict[str, pd.DataFrame]:
+        """The latest revision of every lot, one DataFrame a table.
+
+        Same columns and dtypes as :func:`linkage.read.read_table` (extra
+        columns of any lot included). Tables without rows are left out, as in
+        a folder that lacks them. ``product`` keeps the lots of one product.
+        """
+        sql = ("SELECT rt.tbl, lt.id, lt.columns_json, rr.data_json FROM current_revisions cr "
+               "JOIN lots l ON l.lot = cr.lot "
+               "JOIN revision_tables rt ON rt.revision_id = cr.id "
+               "JOIN lot_tables lt ON lt.id = rt.lot_table_id "
+               "JOIN raw_rows rr ON rr.lot_table_id = lt.id ")
+        params: tuple = ()
+        if product is not None:
+            sql += "WHERE cr.product = ? "
+            params = (product,)
+        sql += "ORDER BY l.rowid, rr.seq"
+        rows: dict[str, list[dict]] = {}
+        columns: dict[str, dict[str, None]] = {}
+        seen_tables: set[int] = set()
+        for tbl, tid, columns_json, data_json in self._read(sql, params):
+            if tid not in seen_tables:
+                seen_tables.add(tid)
+                columns.setdefault(tbl, {}).update(dict.fromkeys(json.loads(columns_json)))
+            rows.setdefault(tbl, []).append(json.loads(data_json))
+        return {t: _frame(t, rows[t], list(columns[t])) for t in TABLES if t in rows}
+
+    def lots(self, product: str | None = None) -> pd.DataFrame:
+        """One row per lot: product, revision, last change, and per table the
+        number of rows (``<table>_rows``) and the share of filled template
+        cells (``<table>_filled_pct``, the lot column not counted)."""
+        sql = ("SELECT cr.lot, cr.product, cr.revision, cr.ingest_id, i.at, rt.tbl, lt.n_rows, lt.n_filled "
+               "FROM current_revisions cr JOIN lots l ON l.lot = cr.lot JOIN ingests i ON i.id = cr.ingest_id "
+               "LEFT JOIN revision_tables rt ON rt.revision_id = cr.id "
+               "LEFT JOIN lot_tables lt ON lt.id = rt.lot_table_id ")
+        params: tuple = ()
+        if product is not None:
+            sql += "WHERE cr.product = ? "
+            params = (product,)
+        sql += "ORDER BY l.rowid"
+        records: dict[str, dict] = {}
+        for lot, prod, rev, ingest_id, at, tbl, n_rows, n_filled in self._read(sql, params):
+            rec = records.setdefault(lot, {"lot": lot, "product": prod, "revision": rev, "ingest_id": ingest_id,
+                                           "updated_at": at,
+                                           **{f"{t}_rows": 0 for t in TABLES},
+                                           **{f"{t}_filled_pct": math.nan for t in TABLES}})
+            if tbl is not None:
+                cells = n_rows * (len(TABLES[tbl].columns) - 1)
+                rec[f"{tbl}_rows"] = n_rows
+                rec[f"{tbl}_filled_pct"] = 100.0 * n_filled / cells if cells else math.nan
+        columns = ["lot", "product", "revision", "ingest_id", "updated_at",
+                   *(f"{t}_{what}" for t in TABLES for what in ("rows", "filled_pct"))]
+        df = pd.DataFrame(list(records.values()), columns=columns)
+        df["lot"] = df["lot"].astype("str")
+        df["product"] = df["product"].astype("str")
+        for t in TABLES:
+            df[f"{t}_rows"] = df[f"{t}_rows"].astype("int64")
+            df[f"{t}_filled_pct"] = df[f"{t}_filled_pct"].astype("float64")
+        df["revision"] = df["revision"].astype("int64")
+        return df
+
+    def history(self, lot: str) -> list[dict]:
+        """Every revision of ``lot``, oldest first, with what changed.
+
+        Each item: ``revision``, ``ingest_id``, ``at``, ``user``, ``product``,
+        ``tables`` ({table: file, sha256, rows, ingest_id, changed}) and
+        ``changes``: cell-level differences to the previous revision, each
+        ``{table, change, key, column, old, new}`` with ``change`` one of
+        "table added", "row added", "row removed", "value changed".
+        """
+        revs = self._read("SELECT r.id, r.revision, r.ingest_id, i.at, i.user, r.product FROM revisions r "
+                          "JOIN ingests i ON i.id = r.ingest_id WHERE r.lot = ? ORDER BY r.revision", (lot,))
+        if not revs:
+            import difflib
+
+            lots = self.lot_ids()
+            near = difflib.get_close_matches(lot, lots, n=3, cutoff=0.6)
+            hint = f"; did you mean {', '.join(near)}?" if near else (f"; it holds {len(lots)} lots" if lots
+                                                                      else "; the store is empty")
+            raise UsageError(f"lot '{lot}' is not in the store {self.path}{hint}")
+        out = []
+        previous: dict[str, tuple[int, list[dict]]] = {}
+        for rid, number, ingest_id, at, user, product in revs:
+            links = self._read("SELECT rt.tbl, lt.id, lt.file, lt.file_sha256, lt.n_rows, lt.ingest_id "
+                               "FROM revision_tables rt JOIN lot_tables lt ON lt.id = rt.lot_table_id "
+                               "WHERE rt.revision_id = ?", (rid,))
+            tables, changes, now = {}, [], {}
+            for tbl, tid, file, sha, n_rows, t_ingest in sorted(links, key=lambda r: list(TABLES).index(r[0])):
+                changed = tbl not in previous or previous[tbl][0] != tid
+                tables[tbl] = {"file": file, "sha256": sha, "rows": n_rows, "ingest_id": t_ingest,
+                               "changed": changed}
+                rows = self._rows(tid) if changed else previous[tbl][1]
+                now[tbl] = (tid, rows)
+                if changed and previous:
+                    changes += _diff(tbl, previous.get(tbl, (None, None))[1], rows)
+                elif changed:
+                    changes.append({"table": tbl, "change": "table added", "key": None, "column": None,
+                                    "old": None, "new": _n_rows(n_rows)})
+            out.append({"lot": lot, "revision": number, "ingest_id": ingest_id, "at": at, "user": user,
+                        "product": product, "tables": tables, "changes": changes})
+            previous = now
+        return out
+
+    def _rows(self, lot_table_id: int) -> list[dict]:
+        return [json.loads(r[0]) for r in self._read(
+            "SELECT data_json FROM raw_rows WHERE lot_table_id = ? ORDER BY seq", (lot_table_id,))]
+
+    def ingests(self) -> list[dict]:
+        """Every ingest, oldest first, with its files."""
+        files: dict[int, list[dict]] = {}
+        for ingest_id, tbl, file, sha, rows in self._read(
+                "SELECT ingest_id, tbl, file, sha256, rows FROM ingest_files ORDER BY rowid"):
+            files.setdefault(ingest_id, []).append({"table": tbl, "file": file, "sha256": sha, "rows": rows})
+        return [{"id": i, "at": at, "user": user, "folder": folder, "lots_new": n, "lots_revised": r,
+                 "lots_unchanged": u, "warnings": json.loads(w), "files": files.get(i, [])}
+                for i, at, user, folder, n, r, u, w in self._read(
+                    "SELECT id, at, user, folder, lots_new, lots_revised, lots_unchanged, warnings_json "
+                    "FROM ingests ORDER BY id")]
+
+    # ---- audit log and predictions
+
+    def log(self, action: str, *, user: str | None = None, lot: str | None = None, model_id: str | None = None,
+            inputs=None, outputs=None) -> int:
+        """Append one entry to the audit log; returns its id."""
+        with self._write() as c:
+            return self._log(c, action, user or current_user(), lot, model_id, inputs, outputs)
+
+    @staticmethod
+    def _log(c, action, user, lot, model_id, inputs, outputs) -> int:
+        return c.execute("INSERT INTO audit (at, user, action, lot, model_id, inputs_json, outputs_json) "
+                         "VALUES (?, ?, ?, ?, ?, ?, ?)",
+                         (_now(), user, action, lot, model_id, None if inputs is None else _json(inputs),
+                          None if outputs is None else _json(outputs))).lastrowid
+
+    def audit(self, lot: str | None = None) -> list[dict]:
+        """Audit entries, oldest first; only those about ``lot`` when given."""
+        sql = "SELECT id, at, user, action, lot, model_id, inputs_json, outputs_json FROM audit"
+        rows = self._read(sql + (" WHERE lot = ? ORDER BY id" if lot is not None else " ORDER BY id"),
+                          (lot,) if lot is not None else ())
+        return [{"id": i, "at": at, "user": u, "action": a, "lot": lt, "model_id": m,
+                 "inputs": None if ij is None else json.loads(ij), "outputs": None if oj is None else json.loads(oj)}
+                for i, at, u, a, lt, m, ij, oj in rows]
+
+    def record_prediction(self, model_id: str, inputs, outputs, *, lot: str | None = None,
+                          user: str | None = None) -> int:
+        """Keep one prediction (inputs and outputs as JSON); returns its id."""
+        with self._write() as c:
+            return c.execute("INSERT INTO predictions (at, user, model_id, lot, inputs_json, outputs_json) "
+                             "VALUES (?, ?, ?, ?, ?, ?)",
+                             (_now(), user or current_user(), model_id, lot, _json(inputs),
+                              _json(outputs))).lastrowid
+
+    def predictions(self, lot: str | None = None) -> list[dict]:
+        """Recorded predictions, oldest first; only those for ``lot`` when given."""
+        sql = "SELECT id, at, user, model_id, lot, inputs_json, outputs_json FROM predictions"
+        rows = self._read(sql + (" WHERE lot = ? ORDER BY id" if lot is not None else " ORDER BY id"),
+                          (lot,) if lot is not None else ())
+        return [{"id": i, "at": at, "user": u, "model_id": m, "lot": lt, "inputs": json.loads(ij),
+                 "outputs": json.loads(oj)} for i, at, u, m, lt, ij, oj in rows]
+
+
+def _frame(table: str, rows: list[dict], columns: list[str]) -> pd.DataFrame:
+    tdef = TABLES[table]
+    kinds = {c.name: c.kind for c in tdef.columns}
+    extra_names = [c for c in columns if c not in kinds]
+    for r in rows:
+        extra_names += [c for c in r if c not in kinds and c not in extra_names]
+    template = {name: [_cell_in(kind, r.get(name)) for r in rows] for name, kind in kinds.items()}
+    extra = {name: [r.get(name) for r in rows] for name in extra_names}
+    return frame_from_columns(table, template, extra, n_rows=len(rows))
+
+
+def _n_rows(n: int) -> str:
+    return f"{n} row{'s' if n != 1 else ''}"
+
+
+def _diff(table: str, old: list[dict] | None, new: list[dict]) -> list[dict]:
+    """Cell-level differences between two versions of a lot's rows of one table."""
+    if old is None:
+        return [{"table": table, "change": "table added", "key": None, "column": None, "old": None,
+                 "new": _n_rows(len(new))}]
+    key_cols = [c for c in TABLES[table].key if c != "lot"]
+
+    def keyed(rows):
+        return {tuple(r.get(c) for c in key_cols): _canon_row(table, r) for r in rows}
+
+    before, after = keyed(old), keyed(new)
+    out = []
+    for key, row in after.items():
+        shown = dict(zip(key_cols, (row.get(c) for c in key_cols)))
+        if key not in before:
+            out.append({"table": table, "change": "row added", "key": shown, "column": None, "old": None,
+                        "new": row})
+            continue
+        prev = before[key]
+        for col in list(dict.fromkeys([*prev, *row])):
+            if prev.get(col) != row.get(col):
+                out.append({"table": table, "change": "value changed", "key": shown, "column": col,
+                            "old": prev.get(col), "new": row.get(col)})
+    for key, row in before.items():
+        if key not in after:
+            out.append({"table": table, "change": "row removed", "key": dict(zip(key_cols, key)), "column": None,
+                        "old": row, "new": None})
+    return out

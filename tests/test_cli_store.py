@@ -1,0 +1,157 @@
+"""The store commands through the command line: exit codes, messages, output.
+
+Exit codes are the project's contract (linkage/exceptions.py): 0 success,
+1 store error, 2 bad input, 3 store busy.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import shutil
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from linkage.cli.main import cli
+
+TEMPLATE = Path(__file__).resolve().parents[2] / "shared" / "template-example"
+
+
+@pytest.fixture
+def lab(tmp_path):
+    if not TEMPLATE.is_dir():
+        pytest.skip(f"template example not found at {TEMPLATE}")
+    folder = tmp_path / "lab"
+    shutil.copytree(TEMPLATE, folder)
+    return folder
+
+
+def run(*args, env=None):
+    result = CliRunner().invoke(cli, [str(a) for a in args], env=env)
+    if result.exception is not None and not isinstance(result.exception, SystemExit):
+        raise result.exception
+    return result
+
+
+@pytest.mark.parametrize("command", ["ingest", "lots", "history", "assemble"])
+def test_help_has_an_example(command):
+    result = run(command, "--help")
+    assert result.exit_code == 0
+    assert "Example:" in result.output and f"linkage {command}" in result.output
+    assert "--store" in result.output
+
+
+def test_ingest_then_again(lab, tmp_path):
+    db = tmp_path / "s.db"
+    first = run("ingest", lab, "--store", db)
+    assert first.exit_code == 0, first.output
+    assert "New lots (4): EX-001, EX-002, EX-003, EX-004" in first.output
+    assert "ribbon.csv" in first.output and "16 rows" in first.output  # ribbon.csv has 16 data lines
+    second = run("ingest", lab, "--store", db, "--json")
+    assert second.exit_code == 0
+    data = json.loads(second.stdout)
+    assert data["lots_new"] == [] and data["lots_unchanged"] == ["EX-001", "EX-002", "EX-003", "EX-004"]
+    assert data["ingest_id"] == 2
+
+
+def test_bad_input_exit_2_and_nothing_written(lab, tmp_path):
+    db = tmp_path / "s.db"
+    text = (lab / "ribbon.csv").read_text().replace("EX-002,2,1.0819,1.4687", "EX-002,2,1.5819,1.4687")
+    (lab / "ribbon.csv").write_text(text)
+    (lab / "tablets.csv").write_text((lab / "tablets.csv").read_text().replace("75.7", "abc"))
+    result = run("ingest", lab, "--store", db)
+    assert result.exit_code == 2
+    err = result.stderr
+    assert "2 problems found; nothing was written." in err
+    assert "ribbon.csv, row 7, column 'envelope_density_g_cm3', value 1.5819" in err
+    assert "tablets.csv, row 3, column 'dissolution_pct', value 'abc': not a number" in err
+    assert not db.exists()  # a failed first ingest creates no store
+
+
+def test_failed_ingest_leaves_an_existing_store_unchanged(lab, tmp_path):
+    db = tmp_path / "s.db"
+    assert run("ingest", lab, "--store", db).exit_code == 0
+    before = db.read_bytes()
+    extra = tmp_path / "more"
+    extra.mkdir()
+    (extra / "tablets.csv").write_text("lot,compression_force_kn\nEX-009,12\n")
+    result = run("ingest", extra, "--store", db)
+    assert result.exit_code == 2
+    assert "tablets.csv, row 2, column 'lot', value 'EX-009': lot 'EX-009' has no process record" in result.stderr
+    assert db.read_bytes() == before
+
+
+def test_store_from_environment(lab, tmp_path):
+    db = tmp_path / "env.db"
+    assert run("ingest", lab, env={"LINKAGE_STORE": str(db)}).exit_code == 0
+    assert db.exists()
+    result = run("lots", "--json", env={"LINKAGE_STORE": str(db)})
+    assert [r["lot"] for r in json.loads(result.stdout)] == ["EX-001", "EX-002", "EX-003", "EX-004"]
+
+
+def test_lots_text_and_json(lab, tmp_path):
+    db = tmp_path / "s.db"
+    run("ingest", lab, "--store", db)
+    text = run("lots", "--store", db)
+    assert text.exit_code == 0
+    lines = text.output.splitlines()
+    assert lines[0].split() == ["lot", "product", "rev", "process", "ribbon", "granules", "tablets"]
+    # EX-002: 5 ribbon replicates and 11 sieve rows in the template files
+    assert lines[2].split()[:2] == ["EX-002", "-"] and "5 (" in lines[2] and "11 (100%)" in lines[2]
+    rows = json.loads(run("lots", "--store", db, "--json").stdout)
+    assert rows[0]["ribbon_rows"] == 4 and rows[0]["product"] is None
+    assert "no lots of product X" in run("lots", "--store", db, "--product", "X").output
+
+
+def test_history(lab, tmp_path):
+    db = tmp_path / "s.db"
+    run("ingest", lab, "--store", db)
+    (lab / "tablets.csv").write_text((lab / "tablets.csv").read_text().replace("81.0", "79.5"))
+    assert "Revised lots (1): EX-001" in run("ingest", lab, "--store", db).output
+    result = run("history", "EX-001", "--store", db)
+    assert result.exit_code == 0
+    assert "Lot EX-001: 2 revisions" in result.output
+    assert "tablets: dissolution_pct 81 -> 79.5" in result.output
+    assert "(unchanged, from ingest 1)" in result.output
+    revs = json.loads(run("history", "EX-001", "--store", db, "--json").stdout)
+    assert revs[1]["changes"][0]["old"] == 81.0 and revs[1]["changes"][0]["new"] == 79.5
+    missing = run("history", "EX-01", "--store", db)
+    assert missing.exit_code == 2 and "lot 'EX-01' is not in the store" in missing.stderr
+
+
+def test_commands_on_a_missing_or_foreign_store(tmp_path):
+    result = run("lots", "--store", tmp_path / "none.db")
+    assert result.exit_code == 1 and "no lot store at" in result.stderr
+    assert not (tmp_path / "none.db").exists()
+    foreign = tmp_path / "foreign.db"
+    foreign.write_text("not a database")
+    result = run("history", "A", "--store", foreign)
+    assert result.exit_code == 1 and "not a SQLite file" in result.stderr
+
+
+def test_assemble(lab, tmp_path):
+    pytest.importorskip("linkage.assemble")
+    db = tmp_path / "s.db"
+    run("ingest", lab, "--store", db)
+    out = tmp_path / "table.csv"
+    result = run("assemble", "--store", db, "--out", out, "--spec", lab / "spec.toml")
+    assert result.exit_code == 0, result.output
+    with open(out, newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert [r["lot"] for r in rows] == ["EX-001", "EX-002", "EX-003", "EX-004"]
+    assert "dissolution at 30 min" in result.output
+    # dissolution_pct in tablets.csv: 81.0, 75.7, 74.0, 77.1 -> one lot meets min = 80
+    assert "dissolution_pct >= 80: 1/4" in result.output
+    summary = run("assemble", "--store", db)
+    assert summary.exit_code == 0 and "ribbon_porosity" in summary.output and "4/4" in summary.output
+
+
+def test_assemble_empty_store(tmp_path):
+    pytest.importorskip("linkage.assemble")
+    from linkage.store import LotStore
+
+    LotStore(tmp_path / "e.db").close()
+    result = run("assemble", "--store", tmp_path / "e.db")
+    assert result.exit_code == 2 and "holds no lots" in result.stderr

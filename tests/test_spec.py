@@ -1,0 +1,112 @@
+"""spec.toml: acceptance limits (linkage.spec).
+
+Limit values used here are those the issue and references.md name:
+dissolution Q = 80 % at 30 min (common practice, references.md sec. 10),
+friability <= 1.0 % (USP <1216>, VERIFIED in references.md sec. 10), tablet
+tensile strength >= 1.7 MPa (from memory, references.md sec. 10), weight RSD
+<= 2.0 % (the issue's example). "Not less than" limits are inclusive
+(USP General Notices: "not less than" includes the limit; from memory).
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import pytest
+
+from linkage.exceptions import SpecError, UsageError
+from linkage.schema import QUALITY_ATTRIBUTES
+from linkage.spec import DERIVED_RANGES, Limit, Spec, plausible_range, read_spec
+
+TEMPLATE = Path(__file__).resolve().parents[2] / "shared" / "template-example"
+
+
+def spec_file(tmp_path: Path, text: str) -> Path:
+    path = tmp_path / "spec.toml"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def test_issue_example(tmp_path):
+    spec = read_spec(spec_file(tmp_path, "[dissolution_pct]\nmin = 80\n[weight_rsd_pct]\nmax = 2.0\n"
+                                         "[tensile_strength_mpa]\nmin = 1.7\n[friability_pct]\nmax = 1.0\n"))
+    assert spec.limits == {"dissolution_pct": Limit(80.0, None), "weight_rsd_pct": Limit(None, 2.0),
+                           "tensile_strength_mpa": Limit(1.7, None), "friability_pct": Limit(None, 1.0)}
+    assert spec.dissolution_time_min == 30.0  # the issue's default
+    assert spec.passes("dissolution_pct", 80.0) and not spec.passes("dissolution_pct", 79.99)
+    assert spec.passes("friability_pct", 1.0) and not spec.passes("friability_pct", 1.01)
+    assert not spec.passes("tensile_strength_mpa", math.nan)  # a missing value does not pass
+    assert spec.passes("fines_pct", 99.0)  # no limit on it
+    with pytest.raises(UsageError, match="not a quality attribute"):
+        spec.passes("porosity", 0.2)
+
+
+def test_template_example_spec():
+    if not TEMPLATE.is_dir():
+        pytest.skip(f"template example not found at {TEMPLATE}")
+    spec = read_spec(TEMPLATE / "spec.toml")
+    assert spec.dissolution_time_min == 30.0 and set(spec.limits) == {
+        "dissolution_pct", "tensile_strength_mpa", "weight_rsd_pct", "friability_pct"}
+
+
+def test_time_point_and_round_trip(tmp_path):
+    spec = read_spec(spec_file(tmp_path, "[dissolution_pct]\nmin = 75\ntime_min = 45\n"
+                                         "[ribbon_porosity]\nmin = 0.2\nmax = 0.35\n"))
+    assert spec.dissolution_time_min == 45.0
+    assert Spec.from_dict(spec.to_dict()) == spec
+    assert spec.to_dict() == {"limits": {"dissolution_pct": {"min": 75.0},
+                                         "ribbon_porosity": {"min": 0.2, "max": 0.35}},
+                              "dissolution_time_min": 45.0}
+
+
+@pytest.mark.parametrize("text, line, column, expected", [
+    ("[porosity]\nmax = 0.3\n", 1, "porosity",
+     "unknown quality attribute [porosity] (did you mean 'ribbon_porosity'?)"),
+    ("[dissolution_pct]\nmin = 90\nmax = 80\n", 1, "dissolution_pct", "min 90 is above max 80"),
+    ("[friability_pct]\n", 1, "friability_pct", "has neither min nor max"),
+    ("[friability_pct]\nmax = \"1%\"\n", 1, "friability_pct", "max must be a number"),
+    ("[friability_pct]\nmax = true\n", 1, "friability_pct", "max must be a number"),
+    ("[friability_pct]\nmaximum = 1\n", 1, "friability_pct", "unknown key 'maximum'"),
+    ("\n[weight_rsd_pct]\nmax = 2\ntime_min = 30\n", 2, "weight_rsd_pct", "time_min belongs in [dissolution_pct] only"),
+    ("[dissolution_pct]\nmax = 500\n", 1, "dissolution_pct", "limit in the wrong unit range?"),
+    ("[ribbon_porosity]\nmin = 20\n", 1, "ribbon_porosity", "a fraction: write 0.20 for 20 %"),
+    ("[tensile_strength_mpa]\nmin = 1700\n", 1, "tensile_strength_mpa", "limit in the wrong unit range?"),
+    ("[dissolution_pct]\nmin = 80\ntime_min = 0\n", 1, "dissolution_pct", "time_min must be in 0 < time_min"),
+    ("dissolution_pct = 80\n", None, "dissolution_pct", "must be a table"),
+])
+def test_bad_spec_is_a_clear_error(tmp_path, text, line, column, expected):
+    with pytest.raises(SpecError) as exc:
+        read_spec(spec_file(tmp_path, text))
+    (p,) = exc.value.problems
+    assert (p.file, p.row, p.column) == ("spec.toml", line, column)
+    assert expected in p.rule
+    assert exc.value.exit_code == 2
+
+
+def test_all_problems_of_a_spec_at_once(tmp_path):
+    with pytest.raises(SpecError) as exc:
+        read_spec(spec_file(tmp_path, "[porosity]\nmax = 1\n[fines_pct]\nmin = 5\nmax = 2\n"))
+    assert [p.column for p in exc.value.problems] == ["porosity", "fines_pct"]
+    assert "valid: " + ", ".join(QUALITY_ATTRIBUTES) in exc.value.problems[0].rule
+
+
+def test_invalid_toml_and_missing_file(tmp_path):
+    with pytest.raises(SpecError) as exc:
+        read_spec(spec_file(tmp_path, "[dissolution_pct]\nmin = = 80\n"))
+    assert exc.value.problems[0].row == 2 and "not valid TOML" in exc.value.problems[0].rule
+    with pytest.raises(SpecError, match="no such spec file"):
+        read_spec(tmp_path / "nope.toml")
+    with pytest.raises(SpecError, match="no limits"):
+        read_spec(spec_file(tmp_path, "# nothing\n"))
+
+
+def test_every_quality_attribute_has_a_plausible_range():
+    for attr in QUALITY_ATTRIBUTES:
+        lo, hi = plausible_range(attr)
+        assert lo < hi
+    # porosity and solid fraction are fractions by definition: porosity = 1 - envelope/skeletal density
+    # (references.md sec. 1)
+    assert DERIVED_RANGES["ribbon_porosity"] == (0.0, 1.0) == DERIVED_RANGES["ribbon_solid_fraction"]
+    assert plausible_range("dissolution_pct") == (0, 150)  # the schema's bound of tablets.dissolution_pct
+    assert plausible_range("granule_d50_um") == (0, 100_000)  # from granules_laser.d50_um
