@@ -86,7 +86,7 @@ class WindowResult:
             "settings": self.settings,
             "attributes": self.attributes,
             "not_modelled": self.not_modelled,
-            "roll_force_kn_per_cm": self.roll_force,
+            "roll_force_kn_per_cm": {k: v for k, v in self.roll_force.items() if curve or k != "curve"},
             "n_draws": self.n_draws,
             "seed": self.seed,
             "caution": CAUTION,
