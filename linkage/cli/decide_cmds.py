@@ -159,6 +159,8 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, seed, 
 
 
 def format_whatif(result) -> str:
+    from linkage.report.sheet import probability_text
+
     d = result.to_dict()
     lvl = f"{d['interval_level']:.0%}"
     lines = [f"Model {d['model_id']}, {lvl} intervals."]
@@ -171,9 +173,9 @@ def format_whatif(result) -> str:
     for name, p in d["predictions"].items():
         line = f"  {name:<24} {p['value']:>9.4g}   [{p['low']:.4g}, {p['high']:.4g}]"
         if "p_pass" in p:
-            line += f"   P(pass) {p['p_pass']:.0%}"
+            line += f"   P(pass) {probability_text(p['p_pass'])}"
         lines.append(line)
     if d["p_pass_all"] is not None:
-        lines.append(f"P(every specification passes) = {d['p_pass_all']:.0%}")
+        lines.append(f"P(every specification passes together): {probability_text(d['p_pass_all'])}")
     lines.append(CAUTION)
     return "\n".join(lines)

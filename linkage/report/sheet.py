@@ -16,12 +16,13 @@ from linkage.schema import ASSEMBLED
 BLUE, VERMILLION, GREEN, GREY = "#0072B2", "#D55E00", "#009E73", "#6b6b6b"
 
 STYLE = """
-body{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;max-width:56rem;margin:1.5rem auto;
+body{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;max-width:64rem;margin:1.5rem auto;
 padding:0 1rem;color:#1b1b1b;line-height:1.4}
 h1{font-size:1.35rem;margin:0 0 .2rem} h2{font-size:1.05rem;margin:1.3rem 0 .4rem;border-bottom:1px solid #ccc}
 table{border-collapse:collapse;width:100%;font-size:.9rem} td,th{padding:.25rem .5rem;text-align:left;
 border-bottom:1px solid #e3e3e3;vertical-align:middle} th{background:#f3f3f3}
-.num{text-align:right;font-variant-numeric:tabular-nums} .meta{color:#555;font-size:.85rem}
+.num{text-align:right;font-variant-numeric:tabular-nums;white-space:nowrap} .meta{color:#555;font-size:.8rem}
+tr.detail td{border-bottom:1px solid #ccc;padding-top:0} tr.main td{border-bottom:none}
 .caution{border-left:4px solid #E69F00;background:#fff7e6;padding:.6rem .8rem;margin:1rem 0;font-size:.9rem}
 .out{border-left:4px solid #D55E00;background:#fdeee6;padding:.6rem .8rem;margin:1rem 0}
 .in{border-left:4px solid #009E73;background:#e8f6f1;padding:.6rem .8rem;margin:1rem 0}
@@ -33,6 +34,15 @@ def _fmt(v, digits: int = 4) -> str:
     if v is None:
         return "–"
     return f"{v:.{digits}g}"
+
+
+def probability_text(p: float) -> str:
+    """A probability as a percent that never rounds to a certainty it does not have."""
+    if p > 0.999:
+        return "> 99.9%"
+    if p < 0.001:
+        return "< 0.1%"
+    return f"{100 * p:.1f}%"
 
 
 def _unit(name: str) -> str:
@@ -79,15 +89,16 @@ def whatif_html(result) -> str:
                 f"max {_fmt(lim.get('max'))}" if lim.get("max") is not None else "",
             ) if s
         ) or "no limit given"
-        p_pass = "–" if "p_pass" not in p else f"{100 * p['p_pass']:.0f}%"
+        p_pass = "–" if "p_pass" not in p else escape(probability_text(p["p_pass"]))
         contrib = ", ".join(f"{escape(c['input'])} {c['value']:+.3g}" for c in p.get("contributions", []))
         rows.append(
-            f"<tr><td>{escape(name)}{_unit(name)}</td><td class=num>{_fmt(p['value'])}</td>"
+            f"<tr class=main><td>{escape(name)}{_unit(name)}</td><td class=num>{_fmt(p['value'])}</td>"
             f"<td class=num>{_fmt(p['low'])} – {_fmt(p['high'])}</td>"
             f"<td>{interval_svg(p['value'], p['low'], p['high'], lim.get('min'), lim.get('max'))}</td>"
-            f"<td>{escape(limits)}</td><td class=num>{p_pass}</td>"
-            f"<td class=meta>{escape(p['interval_method'])}; {escape(p['selected_model'])}"
-            f"{'; ' + contrib if contrib else ''}</td></tr>"
+            f"<td>{escape(limits)}</td><td class=num>{p_pass}</td></tr>"
+            f"<tr class=detail><td colspan=6 class=meta>interval: {escape(p['interval_method'])}; "
+            f"model: {escape(p['selected_model'])}"
+            f"{'; largest contributions: ' + contrib if contrib else ''}</td></tr>"
         )
     inputs = "".join(
         f"<tr><td>{escape(k)}{_unit(k)}</td><td class=num>{_fmt(v['value'])}</td><td>{escape(v['source'])}</td></tr>"
@@ -101,7 +112,7 @@ def whatif_html(result) -> str:
                    f"extrapolations; do not rely on them.<ul>{items}</ul></div>")
     p_all = "" if d["p_pass_all"] is None else (
         f"<p>Probability that a lot made this way meets every specification at once: "
-        f"<b>{100 * d['p_pass_all']:.0f}%</b>.</p>")
+        f"<b>{escape(probability_text(d['p_pass_all']))}</b>.</p>")
     return f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8"><title>What-if sheet – {escape(d['model_id'])}</title>
 <style>{STYLE}</style></head><body>
@@ -113,8 +124,9 @@ def whatif_html(result) -> str:
 <table><tr><th>name</th><th class=num>value</th><th>source</th></tr>{inputs}</table>
 <h2>Predictions ({level}% intervals)</h2>
 {p_all}
+<p class=meta>Each bar is drawn on its own scale: the shaded bar is the interval, the dot the prediction, the
+dashed lines the specification limits.</p>
 <table><tr><th>attribute</th><th class=num>predicted</th><th class=num>{level}% interval</th>
-<th>interval (bar) against limits (dashed)</th><th>specification</th><th class=num>P(pass)</th>
-<th>method; model; largest contributions</th></tr>{''.join(rows)}</table>
+<th>interval (bar) against limits (dashed)</th><th>specification</th><th class=num>P(pass)</th></tr>{''.join(rows)}</table>
 </body></html>
 """

@@ -13,25 +13,13 @@ import json
 import numpy as np
 import pytest
 
-from linkage.assemble import assemble
 from linkage.decide.whatif import parse_assignments, predict_many, predict_whatif
 from linkage.decide.window import find_window
 from linkage.exceptions import UsageError
-from linkage.models.train import train_chain
 from linkage.spec import Limit, Spec
-from linkage.synthetic import WINDOW_SETTINGS, WINDOW_SPEC, Truth, make_lots
+from linkage.synthetic import WINDOW_SETTINGS, WINDOW_SPEC
 
 CONFIDENCE = 0.9
-
-
-@pytest.fixture(scope="module")
-def scenario():
-    truth = Truth.window_scenario()
-    lots = make_lots(160, seed=11, truth=truth)
-    table = assemble(lots.tables)
-    chain = train_chain(table, seed=0)
-    spec = Spec(limits={k: Limit(*v) for k, v in WINDOW_SPEC.items()})
-    return truth, chain, spec, table
 
 
 @pytest.fixture(scope="module")

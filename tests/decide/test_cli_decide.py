@@ -1,0 +1,103 @@
+"""`linkage window` and `linkage predict` from the command line."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+from click.testing import CliRunner
+
+from linkage.cli.main import cli
+
+
+@pytest.fixture
+def run(saved_model):
+    models_dir, model_id, spec_path = saved_model
+    runner = CliRunner()
+
+    def _run(*args):
+        result = runner.invoke(cli, [*args, "--models-dir", str(models_dir)], catch_exceptions=False)
+        return result
+
+    return _run
+
+
+def test_window_json_has_the_contract_keys(run, saved_model):
+    _, model_id, spec_path = saved_model
+    r = run("window", "--spec", str(spec_path), "--set", "mill_screen_mm=1.0", "--set",
+            "compression_force_kn=14", "--json", "--draws", "1000")
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert d["model_id"] == model_id
+    assert d["confidence"] == 0.9
+    assert d["ribbon_porosity"]["low"] < d["ribbon_porosity"]["high"]
+    assert d["limiting_attribute"]["low"] == "dissolution_pct"
+    assert d["settings"]["compression_force_kn"] == {"value": 14.0, "source": "given"}
+    assert {"low", "high"} <= set(d["roll_force_kn_per_cm"])
+
+
+def test_window_text_names_edges_settings_and_caution(run, saved_model):
+    _, _, spec_path = saved_model
+    r = run("window", "--spec", str(spec_path), "--draws", "500")
+    assert r.exit_code == 0, r.output
+    assert "Porosity window:" in r.stdout
+    assert "low edge: limited by dissolution_pct" in r.stdout
+    assert "(training median)" in r.stdout
+    assert "not release testing" in r.stdout
+
+
+def test_predict_json_contract(run, saved_model):
+    _, model_id, spec_path = saved_model
+    r = run("predict", "--set", "roll_force_kn_per_cm=9", "--spec", str(spec_path), "--json")
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert d["model_id"] == model_id
+    assert isinstance(d["in_domain"], bool) and isinstance(d["domain_reasons"], list)
+    p = d["predictions"]["dissolution_pct"]
+    assert {"value", "low", "high", "p_pass"} <= set(p)
+
+
+def test_predict_far_outside_is_flagged_loudly(run):
+    r = run("predict", "--set", "ribbon_porosity=0.05")
+    assert r.exit_code == 0, r.output
+    assert "OUT OF THE APPLICABILITY DOMAIN" in r.stdout
+
+
+def test_predict_html_sheet_is_self_contained_and_escaped(run, saved_model, tmp_path):
+    _, model_id, spec_path = saved_model
+    out = tmp_path / "sheet" / "whatif.html"
+    r = run("predict", "--set", "ribbon_porosity=0.3", "--spec", str(spec_path), "--html", str(out))
+    assert r.exit_code == 0, r.output
+    html = out.read_text(encoding="utf-8")
+    assert model_id in html and "not release testing" in html
+    assert "<script" not in html and "http://" not in html.replace('xmlns="http://www.w3.org/2000/svg"', "")
+    assert html.count("<svg") == 6  # one interval bar per predicted attribute
+
+
+def test_predict_from_csv(run, tmp_path):
+    planned = tmp_path / "planned.csv"
+    planned.write_text("ribbon_porosity,compression_force_kn\n0.28,12\n0.33,\n", encoding="utf-8")
+    r = run("predict", "--from-csv", str(planned), "--json")
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert len(d) == 2
+    assert d[1]["inputs"]["compression_force_kn"]["source"] == "training median"
+
+
+@pytest.mark.parametrize("args, code, message", [
+    (("predict", "--set", "roll_forse=9"), 2, "unknown name 'roll_forse'"),
+    (("predict", "--set", "ribbon_porosity=31"), 2, "between 0 and 1"),
+    (("predict", "--set", "roll_gap_mm=abc"), 2, "'abc' is not a number"),
+    (("predict",), 2, "nothing to predict from"),
+    (("predict", "--set", "ribbon_porosity=0.3", "--model", "m-20990101T000000Z-00000000"), 2, "available:"),
+    # a path instead of an id is a refusal of the integrity rules (exit 4), not a typo
+    (("predict", "--set", "ribbon_porosity=0.3", "--model", "../elsewhere"), 4, "is a path, not a model id"),
+    (("window", "--spec", "SPEC", "--confidence", "1.5"), 2, "between 0 and 1"),
+])
+def test_errors_exit_with_a_message(run, saved_model, args, code, message):
+    _, _, spec_path = saved_model
+    args = [str(spec_path) if a == "SPEC" else a for a in args]
+    r = run(*args)
+    assert r.exit_code == code, r.output
+    assert message in r.stderr
+    assert "Traceback" not in r.output
