@@ -1,0 +1,276 @@
+"""Drift watch: is the process moving away from the model?
+
+Three looks, each in time order:
+
+1. **Residual charts per attribute.** A lot's residual is measured − predicted
+   from its measured stage inputs. For the model's training lots it is the
+   out-of-fold residual (the lot was unseen when it was predicted); for lots
+   that arrived after training it is the prospective residual of the full
+   model. Limits come from the training lots' residuals: an individuals
+   (Shewhart) chart with the run rules, an EWMA chart (λ = 0.2, L = 3) and a
+   tabular CUSUM (k = σ/2, h = 5σ); see :mod:`linkage.charts`.
+2. **Ribbon porosity within a lot** (samples in ``sampled_at`` order) against
+   the porosity window and against ±3σ of the pooled within-lot SD of the
+   training lots around the lot's running mean, so that an at-line sample that
+   leaves the window is flagged while the run can still be corrected; and
+   **between lots**, lot-mean porosity on its own individuals and EWMA charts.
+3. **Applicability domain** of every new lot's stage inputs (Hotelling T²,
+   Q residual, training ranges), naming the inputs that drive it.
+
+The charts answer "has something changed", not "is this lot good": release
+stays with the pharmacopeial tests.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from linkage import CAUTION
+from linkage.charts import Reference, cusum, ewma, run_rules, shewhart_limits
+
+EWMA_LAMBDA = 0.2
+EWMA_L = 3.0
+CUSUM_K = 0.5
+CUSUM_H = 5.0
+
+
+@dataclass
+class AttributeChart:
+    attribute: str
+    lots: list[str]
+    phase: list[str]  # "training" or "new"
+    residual: np.ndarray
+    reference: Reference
+    limits: tuple[float, float]
+    ewma: np.ndarray
+    ewma_low: np.ndarray
+    ewma_high: np.ndarray
+    cusum_plus: np.ndarray
+    cusum_minus: np.ndarray
+    cusum_h: float
+    flags: dict[str, list[str]]  # lot -> reasons
+
+    def to_dict(self) -> dict:
+        return {
+            "attribute": self.attribute,
+            "centre": self.reference.mu0, "sigma": self.reference.sigma, "n_reference": self.reference.n,
+            "limits": list(self.limits),
+            "points": [
+                {"lot": lot, "phase": ph, "residual": _f(r), "ewma": _f(e), "cusum_plus": _f(cp),
+                 "cusum_minus": _f(cm), "flags": self.flags.get(lot, [])}
+                for lot, ph, r, e, cp, cm in zip(self.lots, self.phase, self.residual, self.ewma,
+                                                 self.cusum_plus, self.cusum_minus)
+            ],
+            "cusum_h": self.cusum_h,
+            "flagged_lots": [lot for lot in self.lots if self.flags.get(lot)],
+        }
+
+
+@dataclass
+class WatchResult:
+    model_id: str
+    new_lots: list[str]
+    charts: dict[str, AttributeChart]
+    porosity_between: dict
+    porosity_within: list[dict]
+    domain: list[dict]
+    predictions: list[dict] = field(default_factory=list)
+
+    @property
+    def alarms(self) -> list[str]:
+        out = []
+        for name, c in self.charts.items():
+            for lot in c.lots:
+                if lot in self.new_lots and c.flags.get(lot):
+                    out.append(f"{name}, lot {lot}: {'; '.join(c.flags[lot])}")
+        for lot, reasons in self.porosity_between.get("flags", {}).items():
+            if lot in self.new_lots:
+                out.append(f"lot-mean ribbon_porosity, lot {lot}: {'; '.join(reasons)}")
+        for s in self.porosity_within:
+            if s["flags"] and s["lot"] in self.new_lots:
+                out.append(f"ribbon sample {s['sample']} of lot {s['lot']}: {'; '.join(s['flags'])}")
+        for d in self.domain:
+            if not d["in_domain"]:
+                out.append(f"lot {d['lot']} out of the {d['stage']} stage's domain: {'; '.join(d['reasons'])}")
+        return out
+
+    def to_dict(self) -> dict:
+        return {
+            "model_id": self.model_id,
+            "new_lots": self.new_lots,
+            "alarms": self.alarms,
+            "attributes": {k: v.to_dict() for k, v in self.charts.items()},
+            "porosity_between_lots": self.porosity_between,
+            "porosity_within_lots": self.porosity_within,
+            "domain": self.domain,
+            "predictions_vs_measured": self.predictions,
+            "caution": CAUTION,
+        }
+
+
+def _f(v) -> float | None:
+    return None if v is None or not np.isfinite(v) else float(v)
+
+
+def residual_series(chain, table: pd.DataFrame, attribute: str) -> pd.DataFrame:
+    """Lots in table (time) order with an observed value and every stage
+    input: the residual, and whether the lot was one the model trained on."""
+    target = chain.targets[attribute]
+    trained = set(chain.training["lots"])
+    rows = table.dropna(subset=[attribute, *target.inputs])
+    if rows.empty:
+        return pd.DataFrame(columns=["lot", "phase", "residual"])
+    predicted = np.asarray(target.predict(rows[target.inputs]), float)
+    residual = rows[attribute].to_numpy(float) - predicted
+    lots = rows["lot"].astype(str).to_numpy()
+    oof = target.residuals
+    phase = []
+    for i, lot in enumerate(lots):
+        if lot in trained and lot in oof.index and np.isfinite(oof[lot]):
+            residual[i] = float(oof[lot])  # the honest residual of a training lot
+            phase.append("training")
+        else:
+            phase.append("new")
+    return pd.DataFrame({"lot": lots, "phase": phase, "residual": residual})
+
+
+def attribute_chart(chain, table: pd.DataFrame, attribute: str) -> AttributeChart | None:
+    s = residual_series(chain, table, attribute)
+    ref_values = chain.targets[attribute].residuals.dropna().to_numpy(float)
+    if len(s) == 0 or len(ref_values) < 3 or not np.std(ref_values) > 0:
+        return None
+    ref = Reference.from_values(ref_values)
+    x = s["residual"].to_numpy(float)
+    z, zl, zh = ewma(x, ref, lam=EWMA_LAMBDA, L=EWMA_L)
+    cp, cm, h = cusum(x, ref, k=CUSUM_K, h=CUSUM_H)
+    rules = run_rules(x, ref)
+    flags: dict[str, list[str]] = {}
+    for i, lot in enumerate(s["lot"]):
+        reasons = list(rules[i])
+        if z[i] < zl[i] or z[i] > zh[i]:
+            reasons.append("EWMA outside its limits")
+        if cp[i] > h:
+            reasons.append("CUSUM signals an upward shift")
+        if cm[i] > h:
+            reasons.append("CUSUM signals a downward shift")
+        if reasons:
+            flags[lot] = reasons
+    return AttributeChart(attribute, list(s["lot"]), list(s["phase"]), x, ref, shewhart_limits(ref),
+                          z, zl, zh, cp, cm, h, flags)
+
+
+def porosity_between(chain, table: pd.DataFrame) -> dict:
+    """Lot-mean porosity on an individuals chart with run rules and EWMA,
+    limits from the training lots."""
+    rows = table.dropna(subset=["ribbon_porosity"])
+    trained = set(chain.training["lots"])
+    ref_rows = rows[rows["lot"].astype(str).isin(trained)]
+    if len(ref_rows) < 3 or not ref_rows["ribbon_porosity"].std() > 0:
+        return {"reason": "fewer than 3 training lots with a porosity", "flags": {}}
+    ref = Reference.from_values(ref_rows["ribbon_porosity"])
+    x = rows["ribbon_porosity"].to_numpy(float)
+    z, zl, zh = ewma(x, ref, lam=EWMA_LAMBDA, L=EWMA_L)
+    rules = run_rules(x, ref)
+    flags = {}
+    for i, lot in enumerate(rows["lot"].astype(str)):
+        reasons = list(rules[i]) + (["EWMA outside its limits"] if not zl[i] <= z[i] <= zh[i] else [])
+        if reasons:
+            flags[lot] = reasons
+    return {
+        "centre": ref.mu0, "sigma": ref.sigma, "limits": list(shewhart_limits(ref)),
+        "lots": list(rows["lot"].astype(str)), "values": [float(v) for v in x],
+        "ewma": [float(v) for v in z], "flags": flags,
+    }
+
+
+def porosity_within(ribbon: pd.DataFrame | None, trained_lots: set[str], window: tuple[float, float] | None,
+                    lots: list[str] | None = None) -> list[dict]:
+    """Each ribbon sample in time order within its lot, against the window
+    and ±3σ (pooled within-lot SD of the training lots) around the lot's
+    running mean of the samples before it."""
+    if ribbon is None or ribbon.empty:
+        return []
+    df = ribbon.copy()
+    df["lot"] = df["lot"].astype(str)
+    df["porosity"] = 1 - df["envelope_density_g_cm3"] / df["skeletal_density_g_cm3"]
+    ref = df[df["lot"].isin(trained_lots)]
+    pooled = ref.groupby("lot")["porosity"].var(ddof=1).dropna()
+    counts = ref.groupby("lot")["porosity"].count().reindex(pooled.index)
+    sigma = float(np.sqrt(((counts - 1) * pooled).sum() / (counts - 1).sum())) if len(pooled) else float("nan")
+    if lots is not None:
+        df = df[df["lot"].isin(lots)]
+    order = ["lot", "sampled_at"] if "sampled_at" in df and df["sampled_at"].notna().any() else ["lot"]
+    out = []
+    for lot, g in df.sort_values(order, kind="stable").groupby("lot", sort=False):
+        seen: list[float] = []
+        for rec in g.itertuples(index=False):
+            eps = float(rec.porosity)
+            flags = []
+            if window is not None and window[0] is not None and not window[0] <= eps <= window[1]:
+                flags.append(f"porosity {eps:.3f} outside the window {window[0]:.3f}–{window[1]:.3f}")
+            if len(seen) >= 2 and np.isfinite(sigma) and abs(eps - np.mean(seen)) > 3 * sigma:
+                flags.append(f"porosity {eps:.3f} more than 3 within-lot SD ({sigma:.4f}) from the "
+                             f"lot's earlier samples (mean {np.mean(seen):.3f})")
+            seen.append(eps)
+            sampled = getattr(rec, "sampled_at", None)
+            out.append({"lot": lot, "sample": str(rec.sample),
+                        "sampled_at": None if sampled is None or pd.isna(sampled) else str(sampled),
+                        "porosity": eps, "flags": flags})
+    return out
+
+
+def domain_of_new_lots(chain, table: pd.DataFrame, new_lots: list[str]) -> list[dict]:
+    out = []
+    rows = table[table["lot"].astype(str).isin(new_lots)]
+    for stage in chain.stages:
+        x = rows.dropna(subset=stage.inputs)
+        if x.empty:
+            continue
+        for lot, verdict in zip(x["lot"].astype(str), stage.domain.check(x[stage.inputs])):
+            out.append({"lot": lot, "stage": stage.name, "in_domain": bool(verdict.in_domain),
+                        "reasons": list(verdict.reasons)})
+    return out
+
+
+def predictions_vs_measured(recorded: list[dict], table: pd.DataFrame) -> list[dict]:
+    """Each recorded what-if with a lot, against what the lot measured."""
+    measured = table.set_index(table["lot"].astype(str))
+    out = []
+    for rec in recorded:
+        lot = rec.get("lot")
+        if not lot or lot not in measured.index:
+            continue
+        preds = (rec.get("outputs") or {}).get("predictions", {})
+        for name, p in preds.items():
+            if name not in measured.columns or pd.isna(measured.at[lot, name]):
+                continue
+            value = float(measured.at[lot, name])
+            out.append({"lot": lot, "attribute": name, "model_id": rec.get("model_id"),
+                        "predicted": p.get("value"), "low": p.get("low"), "high": p.get("high"),
+                        "measured": value,
+                        "inside_interval": bool(p.get("low") is not None and p["low"] <= value <= p["high"])})
+    return out
+
+
+def watch(chain, table: pd.DataFrame, *, ribbon: pd.DataFrame | None = None,
+          window: tuple[float, float] | None = None, recorded: list[dict] | None = None) -> WatchResult:
+    """Every drift look for the lots of ``table`` (assembled, time order)."""
+    trained = set(chain.training["lots"])
+    new_lots = [lot for lot in table["lot"].astype(str) if lot not in trained]
+    charts = {}
+    for name in chain.targets:
+        chart = attribute_chart(chain, table, name)
+        if chart is not None:
+            charts[name] = chart
+    return WatchResult(
+        model_id=getattr(chain, "model_id", None) or "unsaved",
+        new_lots=new_lots,
+        charts=charts,
+        porosity_between=porosity_between(chain, table),
+        porosity_within=porosity_within(ribbon, trained, window),
+        domain=domain_of_new_lots(chain, table, new_lots),
+        predictions=predictions_vs_measured(recorded or [], table),
+    )

@@ -1,0 +1,103 @@
+"""Drift watch on a synthetic raw-material change (issue 6 acceptance: the
+watch flags a dissolution shift within a few lots)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from linkage.assemble import assemble
+from linkage.charts import Reference
+from linkage.decide.watch import porosity_within, predictions_vs_measured, watch
+from linkage.models.train import train_chain
+from linkage.synthetic import make_lots
+
+CHANGE_AT = 40  # lots from index 40 on (the 41st lot) carry the raw-material change
+
+
+@pytest.fixture(scope="module")
+def drift():
+    lots = make_lots(56, seed=3, raw_material_change_at=CHANGE_AT, raw_material_delta=-6.0)
+    table = assemble(lots.tables)
+    order = list(lots.tables["process"]["lot"])
+    before = table[table["lot"].isin(order[:CHANGE_AT])]
+    chain = train_chain(before, seed=0)
+    return lots, table, chain, order
+
+
+def test_dissolution_shift_is_flagged_within_a_few_lots(drift):
+    lots, table, chain, order = drift
+    result = watch(chain, table, ribbon=lots.tables["ribbon"])
+    chart = result.charts["dissolution_pct"]
+    flagged_new = [lot for lot in chart.lots if lot in result.new_lots and chart.flags.get(lot)]
+    assert flagged_new, "the shift was not flagged"
+    first = order.index(flagged_new[0])
+    assert CHANGE_AT <= first <= CHANGE_AT + 4, (flagged_new[0], first)
+    # the flag is a downward one, as the change lowered dissolution
+    assert any("downward" in r or "beyond" in r for r in chart.flags[flagged_new[0]])
+    assert any(a.startswith("dissolution_pct, lot") for a in result.alarms)
+
+
+def test_no_alarm_on_attributes_the_change_did_not_touch(drift):
+    lots, table, chain, order = drift
+    result = watch(chain, table)
+    # tensile strength is untouched: at most an occasional false alarm (3 sigma: ~0.3% a point)
+    chart = result.charts["tensile_strength_mpa"]
+    new_flags = [lot for lot in result.new_lots if "beyond 3 sigma" in chart.flags.get(lot, [])]
+    assert len(new_flags) <= 1
+
+
+def test_training_lots_use_out_of_fold_residuals(drift):
+    _, table, chain, _ = drift
+    result = watch(chain, table)
+    chart = result.charts["dissolution_pct"]
+    oof = chain.targets["dissolution_pct"].residuals
+    for lot, phase, r in zip(chart.lots, chart.phase, chart.residual):
+        if phase == "training":
+            assert r == pytest.approx(oof[lot])
+    # limits are the training residuals' mean ± 3 SD
+    ref = Reference.from_values(oof.dropna())
+    assert chart.limits == pytest.approx((ref.mu0 - 3 * ref.sigma, ref.mu0 + 3 * ref.sigma))
+
+
+def test_within_lot_sample_leaving_the_window_is_flagged():
+    ribbon = pd.DataFrame({
+        "lot": ["A"] * 4 + ["B"] * 4,
+        "sample": ["1", "2", "3", "4"] * 2,
+        "sampled_at": pd.to_datetime(["2026-01-01 08:00", "2026-01-01 09:00", "2026-01-01 10:00",
+                                      "2026-01-01 11:00"] * 2),
+        "envelope_density_g_cm3": [1.05, 1.05, 1.06, 1.05, 1.05, 1.05, 1.05, 0.90],
+        "skeletal_density_g_cm3": [1.50] * 8,
+    })
+    rows = porosity_within(ribbon, trained_lots={"A"}, window=(0.25, 0.36), lots=["B"])
+    assert [r["sample"] for r in rows] == ["1", "2", "3", "4"]
+    # porosity 1 − 0.90/1.50 = 0.40: outside the window, and far from the lot's earlier samples
+    last = rows[-1]["flags"]
+    assert any("outside the window" in f for f in last)
+    assert any("within-lot SD" in f for f in last)
+    assert rows[0]["flags"] == []
+
+
+def test_recorded_prediction_is_compared_with_the_measurement():
+    table = pd.DataFrame({"lot": ["L1", "L2"], "dissolution_pct": [84.0, np.nan]})
+    recorded = [
+        {"lot": "L1", "model_id": "m", "outputs": {"predictions": {"dissolution_pct": {"value": 86, "low": 82,
+                                                                                         "high": 90}}}},
+        {"lot": "L2", "model_id": "m", "outputs": {"predictions": {"dissolution_pct": {"value": 86, "low": 82,
+                                                                                         "high": 90}}}},
+    ]
+    out = predictions_vs_measured(recorded, table)
+    assert out == [{"lot": "L1", "attribute": "dissolution_pct", "model_id": "m", "predicted": 86, "low": 82,
+                    "high": 90, "measured": 84.0, "inside_interval": True}]
+
+
+def test_new_lots_out_of_domain_are_named(drift):
+    lots, table, chain, _ = drift
+    odd = table.iloc[[-1]].copy()
+    odd["lot"] = "ODD-1"
+    odd["roll_force_kn_per_cm"] = 40.0
+    result = watch(chain, pd.concat([table, odd], ignore_index=True))
+    verdicts = [d for d in result.domain if d["lot"] == "ODD-1" and d["stage"] == "ribbon"]
+    assert verdicts and not verdicts[0]["in_domain"]
+    assert any("roll_force_kn_per_cm" in r for r in verdicts[0]["reasons"])
