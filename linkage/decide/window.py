@@ -125,7 +125,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         raise UsageError("ribbon_porosity is what the window scans; do not set it (use 'linkage predict' "
                          "for one porosity)")
     produced = set(chain.targets)
-    downstream = _downstream_targets(chain)
+    downstream = downstream_targets(chain)
     attributes = [a for a in spec.limits if a in downstream]
     not_modelled = [a for a in spec.limits if a not in downstream and a != POROSITY]
     if not attributes:
@@ -188,7 +188,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     )
 
 
-def _downstream_targets(chain) -> set[str]:
+def downstream_targets(chain) -> set[str]:
     """Targets of stages that (directly or through earlier stages) take ribbon porosity."""
     reach = {POROSITY}
     for stage in chain.stages:

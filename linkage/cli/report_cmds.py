@@ -1,0 +1,69 @@
+"""``linkage report``: one self-contained HTML report of a model and its lots."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from linkage.cli.common import handle_errors, models_dir_option, store_option
+
+
+@click.command()
+@click.option("--model", "model_id", default="latest", show_default=True,
+              help="Model id from 'linkage models', or 'latest'.")
+@click.option("--spec", "spec_path", type=click.Path(exists=True, dir_okay=False, path_type=Path),
+              help="Specification file (spec.toml): draws the limits and adds the porosity window.")
+@click.option("--out", "out_path", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="Where to write the report.  [default: reports/report-<model id>.html]")
+@click.option("--confidence", default=0.9, show_default=True, type=float,
+              help="Probability of meeting every specification together that the window must reach.")
+@click.option("--seed", default=0, show_default=True, type=int, help="Seed of the Monte Carlo draws.")
+@store_option
+@models_dir_option
+@handle_errors
+def report(model_id, spec_path, out_path, confidence, seed, store, models_dir):
+    """Write one self-contained HTML report: the lots, the ribbon stage, the
+    Ryshkewitch-Duckworth baseline, every attribute's cross-validated
+    performance, explanations, the porosity window (with --spec), the
+    applicability domain and a model card. Figures are embedded; the file
+    opens offline in any browser. Prints the path written.
+
+    The lots come from the store (the model's product when it was trained
+    on one); the model from the registry.
+
+    \b
+    Example:
+      linkage report --spec spec.toml
+      linkage report --model latest --spec spec.toml --out reports/may.html
+    """
+    from linkage.assemble import assemble
+    from linkage.exceptions import InsufficientDataError, UsageError
+    from linkage.models.registry import load
+    from linkage.report.html import build_report
+    from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN
+    from linkage.store import LotStore
+
+    if not 0 < confidence < 1:
+        raise UsageError(f"--confidence must lie between 0 and 1; got {confidence}")
+    spec = None
+    if spec_path is not None:
+        from linkage.spec import read_spec
+
+        spec = read_spec(spec_path)
+    chain = load(models_dir, model_id)
+    products = chain.training.get("products") or []
+    product = products[0] if len(products) == 1 else None
+    with LotStore(store, create=False) as lot_store:
+        tables = lot_store.current_tables(product=product)
+        lots = lot_store.lots(product=product)
+    if not tables:
+        raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
+                                                                          else "") + "; nothing to report on")
+    q = spec.limits["dissolution_pct"].min if spec and "dissolution_pct" in spec.limits else None
+    table = assemble(tables, dissolution_time_min=spec.dissolution_time_min if spec else DEFAULT_DISSOLUTION_TIME_MIN,
+                     dissolution_q_pct=q)
+    out = out_path if out_path is not None else Path("reports") / f"report-{chain.model_id}.html"
+    path = build_report(chain, table, spec=spec, lots=lots, out_path=out, confidence=confidence,
+                        seed=seed)
+    click.echo(str(path))

@@ -1,0 +1,937 @@
+"""The report: one self-contained HTML file.
+
+Figures are PNG images embedded as ``data:`` URIs; there is no script, no
+style sheet or font from elsewhere and no link out of the file, so it opens
+offline in any browser and can be mailed or archived as it is. Every lot
+name, product, compactor, note and other piece of text that came from a
+user's files goes through :func:`html.escape`. Where a section cannot be
+drawn, the report says why in its place.
+
+Sections:
+
+1. At a glance: the window, the roll force, the models chosen.
+2. The lots: how many, which tables each has, the ranges, which lots a
+   model left out and why, and the notes of the assembly.
+3. Ribbon stage: porosity against roll force by roll gap, with the fit.
+4. Strength-porosity baseline: the Ryshkewitch-Duckworth fits with their
+   standard errors.
+5. Attribute by attribute: cross-validated predicted against observed,
+   residuals in time order, the candidates against the baseline, the mean
+   and the noise floor.
+6. Why the models predict what they do: contributions (SHAP for boosting,
+   exact terms for linear models), VIP, each attribute through the chain
+   against ribbon porosity, and the most recent lot's contributions.
+7. Porosity window: probability of meeting every specification, each
+   attribute's band against its limits, the roll force that gives it.
+8. Applicability domain of the training lots (T² against Q).
+9. Model card.
+10. Cautions.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from html import escape
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from linkage import CAUTION, __version__
+from linkage.report.sheet import STYLE as SHEET_STYLE
+
+POROSITY = "ribbon_porosity"
+FORCE = "roll_force_kn_per_cm"
+GAP = "roll_gap_mm"
+
+#: what the candidates are, in the report's words
+CANDIDATE_ROLE = {
+    "mean": "floor: the mean of the training lots",
+    "rd_baseline": "physical baseline (Ryshkewitch–Duckworth)",
+    "pls": "partial least squares",
+    "quadratic_ridge": "ridge with squares and products",
+    "boosting": "gradient boosting",
+}
+
+EXTRA_STYLE = """
+body{max-width:64rem}
+h3{font-size:.98rem;margin:1.1rem 0 .3rem}
+figure{margin:.6rem 0 1rem} figure img{max-width:100%;height:auto;border:1px solid #eee}
+figcaption{font-size:.82rem;color:#444;margin-top:.2rem}
+.note{border-left:4px solid #6b6b6b;background:#f4f4f4;padding:.45rem .7rem;margin:.6rem 0;font-size:.88rem}
+.sel{font-weight:600;background:#e8f1f8}
+nav ol{columns:2;font-size:.9rem}
+.lots{font-size:.8rem;color:#333} td.num{white-space:nowrap}
+.small{font-size:.82rem}
+details{margin:.4rem 0} summary{cursor:pointer}
+"""
+
+
+@dataclass
+class Report:
+    """A rendered report: the HTML text, the figures it embeds (one caption
+    each, in order) and the notes where something could not be drawn."""
+
+    html: str
+    figures: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def n_figures(self) -> int:
+        return len(self.figures)
+
+
+# ----------------------------------------------------------------- text helpers
+
+def _e(value) -> str:
+    return escape(str(value), quote=True)
+
+
+def _f(value, digits: int = 4) -> str:
+    """A number for a table cell; "n/a" for a missing one (never a bare NaN)."""
+    if value is None:
+        return "n/a"
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return _e(value)
+    if not math.isfinite(v):
+        return "n/a" if math.isnan(v) else ("∞" if v > 0 else "−∞")
+    return f"{v:.{digits}g}"
+
+
+def _pm(value, se, digits: int = 4) -> str:
+    return _f(value, digits) if se is None else f"{_f(value, digits)} ± {_f(se, 2)}"
+
+
+def _tiny_to_zero(value, scale):
+    """0 for a value that is rounding noise next to ``scale`` (a bias of
+    1e-17 beside an RMSE of 0.05 is zero)."""
+    if value is None or scale is None or not math.isfinite(float(value)):
+        return value
+    return 0.0 if abs(float(value)) <= 1e-9 * abs(float(scale)) else value
+
+
+def _lots_text(lots, limit: int = 12) -> str:
+    lots = [str(v) for v in lots]
+    shown = ", ".join(_e(v) for v in lots[:limit])
+    more = len(lots) - limit
+    return shown + (f" and {more} more" if more > 0 else "")
+
+
+def _limit_text(limit) -> str:
+    if limit is None:
+        return "no limit"
+    lo, hi = getattr(limit, "min", None), getattr(limit, "max", None)
+    if lo is not None and hi is not None:
+        return f"{lo:g} to {hi:g}"
+    return f"≥ {lo:g}" if lo is not None else f"≤ {hi:g}"
+
+
+def _table(header: list[str] | None, rows: list[list[str]], *, num_cols: set[int] | None = None,
+           row_class: list[str] | None = None) -> str:
+    """An HTML table from already-escaped cells."""
+    num_cols = num_cols or set()
+    head = "" if header is None else "<tr>" + "".join(
+        f"<th{' class=num' if i in num_cols else ''}>{h}</th>" for i, h in enumerate(header)) + "</tr>"
+    body = []
+    for r, row in enumerate(rows):
+        cls = f" class={row_class[r]}" if row_class and row_class[r] else ""
+        cells = "".join(f"<td{' class=num' if i in num_cols else ''}>{c}</td>" for i, c in enumerate(row))
+        body.append(f"<tr{cls}>{cells}</tr>")
+    return f"<table>{head}{''.join(body)}</table>"
+
+
+# ----------------------------------------------------------------- the builder
+
+class _Builder:
+    def __init__(self):
+        self.parts: list[str] = []
+        self.figures: list[str] = []
+        self.notes: list[str] = []
+        self.toc: list[tuple[str, str]] = []
+
+    def section(self, anchor: str, title: str) -> None:
+        self.toc.append((anchor, title))
+        self.parts.append(f'<h2 id="{anchor}">{_e(title)}</h2>')
+
+    def add(self, html_text: str) -> None:
+        self.parts.append(html_text)
+
+    def note(self, text: str) -> None:
+        """A visible note in place of something that could not be drawn."""
+        self.notes.append(text)
+        self.parts.append(f'<p class="note">{_e(text)}</p>')
+
+    def figure(self, fig_or_ax, caption: str, alt: str | None = None) -> None:
+        from linkage.report.figures import png_data_uri
+
+        uri = png_data_uri(fig_or_ax)
+        self.figures.append(caption)
+        n = len(self.figures)
+        self.parts.append(
+            f'<figure id="figure-{n}"><img src="{uri}" alt="{_e(alt or caption)}">'
+            f"<figcaption>Figure {n}. {_e(caption)}</figcaption></figure>"
+        )
+
+
+# ----------------------------------------------------------------- entry points
+
+def build_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd.DataFrame | None = None,
+                 out_path, confidence: float = 0.9, seed: int = 0) -> Path:
+    """Render the report and write it to ``out_path`` (folders made as
+    needed; the file is written whole or not at all). Returns the path."""
+    report = render_report(chain, table, spec=spec, window=window, lots=lots, confidence=confidence, seed=seed)
+    out = Path(out_path)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    tmp = out.with_name(f".{out.name}.{os.getpid()}.tmp")
+    try:
+        tmp.write_text(report.html, encoding="utf-8")
+        os.replace(tmp, out)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
+    return out
+
+
+def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd.DataFrame | None = None,
+                  confidence: float = 0.9, seed: int = 0, curve_draws: int = 400) -> Report:
+    """Build the report of a fitted chain.
+
+    Parameters
+    ----------
+    chain : a fitted chain (:class:`linkage.models.train.FittedChain`).
+    table : the assembled table (one row per lot, time order), as
+        :func:`linkage.assemble.assemble` returns it.
+    spec : a :class:`linkage.spec.Spec`, or None (no limits drawn, no window).
+    window : a :class:`linkage.decide.window.WindowResult`; computed here at
+        ``confidence`` when a spec is given without it.
+    lots : the lot store's :meth:`linkage.store.LotStore.lots` (completeness
+        per table); derived from the assembled table when None.
+    seed, curve_draws : seed and Monte Carlo draws per grid point of the
+        curves through the chain.
+    """
+    b = _Builder()
+    table = table.copy()
+    table["lot"] = table["lot"].astype(str)
+    limits = dict(spec.limits) if spec is not None else {}
+    window_failure = None
+    if spec is not None and window is None:
+        window, window_failure = _window_or_reason(chain, spec, confidence, seed)
+
+    _glance(b, chain, table, spec, window)
+    _data_section(b, chain, table, lots)
+    _ribbon_section(b, chain, table, limits)
+    _baseline_section(b, chain, table, limits)
+    _attribute_section(b, chain, table, limits)
+    _explain_section(b, chain, table, limits, window, curve_draws, seed)
+    _window_section(b, chain, table, spec, window, window_failure)
+    _domain_section(b, chain, table)
+    _model_card(b, chain, spec, window)
+    _cautions(b, chain)
+    return Report(html=_page(b, chain), figures=list(b.figures), notes=list(b.notes))
+
+
+def _window_or_reason(chain, spec, confidence, seed):
+    """(window, None), or (None, why it could not be computed)."""
+    from linkage.decide.window import find_window
+    from linkage.exceptions import LinkageError
+
+    try:
+        return find_window(chain, spec, confidence=confidence, seed=seed), None
+    except LinkageError as exc:
+        return None, str(exc)
+
+
+def _page(b: _Builder, chain) -> str:
+    made = datetime.now(timezone.utc).isoformat(timespec="seconds")
+    toc = "".join(f'<li><a href="#{a}">{_e(t)}</a></li>' for a, t in b.toc)
+    return f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8">
+<meta name="viewport" content="width=device-width, initial-scale=1">
+<meta name="figures" content="{len(b.figures)}">
+<title>Lot linkage report – model {_e(chain.model_id or "unsaved")}</title>
+<style>{SHEET_STYLE}{EXTRA_STYLE}</style></head><body>
+<h1>Lot linkage report</h1>
+<p class=meta>Model {_e(chain.model_id or "unsaved")} · trained {_e(chain.created_at)} · report made {_e(made)} ·
+linkage {_e(__version__)}</p>
+<div class="caution"><b>Caution.</b> {_e(CAUTION)}</div>
+<nav><ol>{toc}</ol></nav>
+{''.join(b.parts)}
+</body></html>
+"""
+
+
+# ----------------------------------------------------------------- small accessors
+
+def _by_lot(table: pd.DataFrame) -> pd.DataFrame:
+    return table.drop_duplicates("lot", keep="last").set_index("lot", drop=False)
+
+
+def _inputs_of(target, table: pd.DataFrame, lots=None) -> pd.DataFrame:
+    """The target's inputs for ``lots`` (default: its training lots) that are
+    in the table, complete rows only, in time order."""
+    t = _by_lot(table)
+    want = [str(v) for v in (target.lots if lots is None else lots)]
+    have = [lot for lot in t.index if lot in set(want)]
+    missing = [c for c in target.inputs if c not in t.columns]
+    if missing:
+        return pd.DataFrame(columns=target.inputs)
+    return t.loc[have, target.inputs].astype(float).dropna()
+
+
+def _group_column(table: pd.DataFrame, lots) -> tuple[str | None, list | None]:
+    """The column that groups lots in the figures: the compactor, else the
+    product, when it has at least two values among ``lots``."""
+    t = _by_lot(table)
+    for col in ("compactor", "product"):
+        if col in t.columns:
+            values = t.loc[[v for v in lots if v in t.index], col]
+            if values.dropna().astype(str).nunique() >= 2:
+                return col, [("(none)" if pd.isna(v) else str(v)) for v in t.reindex(lots)[col]]
+    return None, None
+
+
+def _stage_of(chain, name: str):
+    return next((s for s in chain.stages if name in s.targets), None)
+
+
+# ----------------------------------------------------------------- 1. at a glance
+
+def _glance(b, chain, table, spec, window):
+    b.section("glance", "At a glance")
+    n_train = int(chain.training.get("n_lots", len(chain.training.get("lots", []))))
+    items = [f"{len(table)} lots in the assembled table; the model was trained on {n_train}."]
+    chosen = ", ".join(f"{_e(name)}: {_e(t.selected)}" for name, t in chain.targets.items())
+    items.append(f"Models chosen by cross-validation: {chosen}.")
+    if spec is None:
+        items.append("No specification was given, so no porosity window is shown (give <code>--spec</code>).")
+    elif window is None:
+        items.append("A specification was given but the porosity window could not be computed (see the window "
+                     "section).")
+    elif window.found:
+        items.append(
+            f"<b>Ribbon porosity window: {window.low.value:.3f} – {window.high.value:.3f}</b> "
+            f"(probability {window.confidence:.0%} that a lot meets every specification together); "
+            f"low edge {_edge_text(window.low.limited_by)}, high edge {_edge_text(window.high.limited_by)}.")
+        rf = window.roll_force or {}
+        if rf.get("low") is not None:
+            items.append(f"Roll force for the window: <b>{rf['low']:.2f} – {rf['high']:.2f} kN/cm</b> with the "
+                         "other settings as listed in the window section.")
+        elif rf.get("reason"):
+            items.append(f"Roll force: {_e(rf['reason'])}.")
+    else:
+        items.append(f"<b>No porosity window</b>: at no porosity in the training range does the probability of "
+                     f"meeting every specification together reach {window.confidence:.0%}.")
+    b.add("<ul>" + "".join(f"<li>{i}</li>" for i in items) + "</ul>")
+
+
+def _edge_text(limited_by) -> str:
+    if limited_by is None:
+        return "not found"
+    if limited_by == "data range":
+        return "cut by the range of the training data, not by a specification"
+    return f"limited by <b>{_e(limited_by)}</b>"
+
+
+# ----------------------------------------------------------------- 2. data
+
+#: a lot has a table when this assembled column has a value (used when the
+#: store's completeness is not given)
+_PRESENCE = {
+    "process": "roll_force_kn_per_cm",
+    "ribbon": "ribbon_porosity",
+    "granules": "granule_d50_um",
+    "tablets": "compression_force_kn",
+    "tablet_weights": "weight_units",
+    "dissolution": "dissolution_vessels",
+}
+
+
+def _presence(table: pd.DataFrame, lots: pd.DataFrame | None) -> tuple[pd.DataFrame, str]:
+    """Lots (time order) × tables, True where the lot has rows of the table."""
+    from linkage.schema import TABLES
+
+    order = list(dict.fromkeys(table["lot"]))
+    if lots is not None and not lots.empty and "lot" in lots:
+        lt = lots.copy()
+        lt["lot"] = lt["lot"].astype(str)
+        lt = lt.drop_duplicates("lot", keep="last").set_index("lot")
+        order += [v for v in lt.index if v not in set(order)]
+        cols = [t for t in TABLES if f"{t}_rows" in lt.columns]
+        present = pd.DataFrame({t: lt.reindex(order)[f"{t}_rows"].fillna(0).astype(float) > 0 for t in cols},
+                               index=order)
+        return present, "the lot store"
+    t = _by_lot(table)
+    cols = {name: col for name, col in _PRESENCE.items() if col in t.columns}
+    if "granule_size_source" in t.columns:
+        src = t.reindex(order)["granule_size_source"].astype(str)
+        present = pd.DataFrame({name: t.reindex(order)[col].notna() for name, col in cols.items()}, index=order)
+        present["granules"] = (src == "sieve").to_numpy()
+        present["granules_laser"] = (src == "laser").to_numpy() | (
+            t.reindex(order)["laser_d50_um"].notna().to_numpy() if "laser_d50_um" in t.columns else False)
+        return present[[c for c in TABLES if c in present.columns]], "the assembled table"
+    return pd.DataFrame({name: t.reindex(order)[col].notna() for name, col in cols.items()}, index=order), \
+        "the assembled table"
+
+
+def _data_section(b, chain, table, lots):
+    from linkage.report import figures as F
+
+    b.section("lots", "The lots")
+    n = len(table)
+    parts = [f"{n} lots in the assembled table"]
+    if "manufactured_at" in table.columns and table["manufactured_at"].notna().any():
+        when = pd.to_datetime(table["manufactured_at"], errors="coerce", utc=True).dropna()
+        if len(when):
+            parts.append(f"made {when.min():%Y-%m-%d} to {when.max():%Y-%m-%d}")
+    for col, word in (("product", "products"), ("compactor", "compactors")):
+        if col in table.columns and table[col].notna().any():
+            counts = table[col].dropna().astype(str).value_counts()
+            parts.append(f"{word}: " + ", ".join(f"{_e(k)} ({v})" for k, v in counts.items()))
+    b.add("<p>" + "; ".join(parts) + ". Lots are shown in time order throughout.</p>")
+
+    present, source = _presence(table, lots)
+    b.add("<h3>Which tables each lot has</h3>")
+    if present.empty or present.shape[1] == 0:
+        b.note("No completeness information: the table has no lots.")
+    else:
+        rows = []
+        for t in present.columns:
+            k = int(present[t].sum())
+            filled = ""
+            if lots is not None and f"{t}_filled_pct" in lots.columns:
+                v = lots[f"{t}_filled_pct"].dropna()
+                filled = _f(v.mean(), 3) if len(v) else "n/a (no rows)"
+            rows.append([_e(t), str(k), f"{100 * k / len(present):.0f}%"] + ([filled] if lots is not None else []))
+        header = ["table", "lots with rows", "share of lots"] + (
+            ["mean filled cells of those lots [%]"] if lots is not None else [])
+        b.add(_table(header, rows, num_cols={1, 2, 3}))
+        b.add(f"<p class=small>From {_e(source)}.</p>")
+        b.figure(F.plot_completeness(present), "Tables present per lot (blue) and missing (grey), lots in time order.")
+
+    b.add("<h3>Ranges</h3>")
+    numeric = [c for c in table.columns if c != "lot" and pd.api.types.is_numeric_dtype(table[c])
+               and not pd.api.types.is_bool_dtype(table[c])]
+    rows = []
+    for c in numeric:
+        v = table[c].astype(float)
+        v = v[np.isfinite(v)]
+        unit = F.shown_unit(c)
+        rows.append([_e(c), _e(unit), str(len(v)), _f(v.min() if len(v) else None),
+                     _f(v.median() if len(v) else None), _f(v.max() if len(v) else None)])
+    b.add(_table(["column", "unit", "lots with a value", "min", "median", "max"], rows, num_cols={2, 3, 4, 5}))
+
+    b.add("<h3>Lots a model left out, and why</h3>")
+    b.add(_exclusions(chain, table))
+
+    notes = list(table.attrs.get("notes", []) or [])
+    b.add("<h3>Notes from assembling the table</h3>")
+    if notes:
+        items = "".join(f"<li>{_e(n_)}</li>" for n_ in notes)
+        b.add(f"<details><summary>{len(notes)} value(s) could not be derived (open for the list)</summary>"
+              f"<ul class=small>{items}</ul></details>")
+    else:
+        b.add("<p>Every derived value could be computed; the assembly left no notes.</p>")
+
+
+def _exclusions(chain, table) -> str:
+    t = _by_lot(table)
+    trained = set(str(v) for v in chain.training.get("lots", []))
+    rows = []
+    for name, target in chain.targets.items():
+        used = set(str(v) for v in target.lots)
+        reasons: dict[str, list[str]] = {}
+        for lot in t.index:
+            if lot in used:
+                continue
+            if lot not in trained:
+                why = "not in the data the model was trained on (added or changed later)"
+            else:
+                need = [name] + [c for c in target.inputs]
+                gone = [c for c in need if c not in t.columns or pd.isna(t.at[lot, c])]
+                why = ("no value of " + ", ".join(gone)) if gone else "left out by the training step"
+            reasons.setdefault(why, []).append(lot)
+        if not reasons:
+            continue
+        for why, lots_ in reasons.items():
+            rows.append([_e(name), _e(why), str(len(lots_)), f"<span class=lots>{_lots_text(lots_)}</span>"])
+    if not rows:
+        return "<p>Every lot of the table was used for every attribute.</p>"
+    return _table(["attribute", "why", "lots", "which"], rows, num_cols={2})
+
+
+# ----------------------------------------------------------------- 3. ribbon
+
+def _ribbon_section(b, chain, table, limits):
+    from linkage.report import figures as F
+
+    b.section("ribbon", "Ribbon stage: porosity against roll force")
+    stage = _stage_of(chain, POROSITY)
+    if stage is None:
+        b.note("The chain has no stage that predicts ribbon_porosity, so the ribbon stage cannot be drawn.")
+        return
+    target = stage.targets[POROSITY]
+    t = _by_lot(table)
+    need = [c for c in (FORCE, GAP, POROSITY) if c not in t.columns]
+    if need:
+        b.note(f"The table has no {', '.join(need)}, so porosity against roll force cannot be drawn.")
+        return
+    force = t[FORCE].to_numpy(float)
+    gap = t[GAP].to_numpy(float)
+    levels = _gap_levels(gap[np.isfinite(gap)])
+    shown_gap = np.array([levels[np.argmin(np.abs(levels - g))] if np.isfinite(g) else np.nan for g in gap])
+    curves = {}
+    held = {}
+    if FORCE in target.inputs:
+        lo, hi = (float(v) for v in chain.training["ranges"][FORCE])
+        grid = np.linspace(lo, hi, 60)
+        medians = chain.training["medians"]
+        held = {c: float(medians[c]) for c in target.inputs if c not in (FORCE, GAP)}
+        for g in levels:
+            x = pd.DataFrame({**{c: np.full(len(grid), v) for c, v in held.items()}, FORCE: grid,
+                              **({GAP: np.full(len(grid), g)} if GAP in target.inputs else {})})[target.inputs]
+            curves[g] = (grid, np.asarray(target.predict(x), float))
+    ax = F.plot_ribbon_fit(force, t[POROSITY].to_numpy(float), shown_gap, curves, limit=limits.get(POROSITY))
+    held_text = ", ".join(f"{c} = {v:.4g}" for c, v in held.items())
+    binned = "" if len(levels) == len(np.unique(gap[np.isfinite(gap)])) else \
+        " Gaps are binned to the nearest of the levels shown."
+    b.figure(ax, f"Ribbon porosity of each lot against specific roll force, by roll gap; lines: the selected "
+                 f"{target.selected} model of the ribbon stage at each gap"
+                 + (f", other settings at their training medians ({held_text})" if held_text else "")
+                 + "." + binned)
+    b.add(f"<p>Selected model: <b>{_e(target.selected)}</b>; cross-validated RMSE "
+          f"{_f(target.candidates[target.selected]['rmse'])} (porosity, a fraction), on {target.n_lots} lots.</p>")
+
+
+def _gap_levels(gap: np.ndarray, most: int = 6) -> np.ndarray:
+    """The distinct gaps, or (when there are more than ``most``) five
+    quantiles of them, rounded to 0.01 mm."""
+    if gap.size == 0:
+        return np.array([])
+    unique = np.unique(np.round(gap, 3))
+    if len(unique) <= most:
+        return unique
+    return np.unique(np.round(np.quantile(gap, [0.1, 0.3, 0.5, 0.7, 0.9]), 2))
+
+
+# ----------------------------------------------------------------- 4. baseline
+
+def _baseline_section(b, chain, table, limits):
+    from linkage.report import figures as F
+
+    b.section("baseline", "Strength–porosity baseline (Ryshkewitch–Duckworth)")
+    b.add("<p>Each attribute predicted from ribbon porosity is also fitted as y = y<sub>0</sub>·exp(−k·ε) of "
+          "ribbon porosity ε alone (Ryshkewitch 1953; Duckworth 1953), by non-linear least squares; standard errors "
+          "from the "
+          "covariance of the fit. For tensile strength this is the physical law; for the other attributes it is "
+          "a physically shaped reference every learned model must beat.</p>")
+    fitted = [(name, t) for name, t in chain.targets.items() if getattr(t, "rd_params", None)]
+    if not fitted:
+        b.note("No attribute has a Ryshkewitch–Duckworth fit: none is predicted from ribbon_porosity with at "
+               "least 3 distinct porosities.")
+        return
+    rows = []
+    for name, t in fitted:
+        p = t.rd_params
+        rd = t.candidates.get("rd_baseline", {})
+        sel = t.candidates.get(t.selected, {})
+        rows.append([_e(name), _e(F.shown_unit(name)), _pm(p.get("s0"), p.get("s0_se")),
+                     _pm(p.get("k"), p.get("k_se")), _f(rd.get("rmse")), _e(t.selected), _f(sel.get("rmse"))])
+    b.add(_table(["attribute", "unit", "y₀ ± SE", "k ± SE [-]", "baseline CV RMSE", "selected model",
+                  "selected CV RMSE"], rows, num_cols={2, 3, 4, 6}))
+    fig, axes = F.grid_axes(len(fitted), ncols=min(3, len(fitted)), panel=(2.5, 2.0))
+    t_lot = _by_lot(table)
+    for ax, (name, t) in zip(axes, fitted):
+        lots = [v for v in t.lots if v in t_lot.index]
+        sub = t_lot.loc[lots]
+        F.plot_rd_fit(sub[POROSITY].to_numpy(float), sub[name].to_numpy(float), t.rd_params.get("s0"),
+                      t.rd_params.get("k"), name=name, limit=limits.get(name), ax=ax)
+    b.figure(fig, "Each attribute against ribbon porosity (training lots) with its Ryshkewitch–Duckworth fit; "
+                  "dashed: specification limits.")
+
+
+# ----------------------------------------------------------------- 5. attributes
+
+def _attribute_section(b, chain, table, limits):
+    from linkage.report import figures as F
+
+    b.section("attributes", "Attribute by attribute: cross-validated performance")
+    b.add("<p>Every candidate model was scored on lots it had not seen (cross-validation grouped by lot). "
+          "RMSE/noise compares the error with the measurement noise floor: near 1, the model is as good as the "
+          "measurement allows. Q² is the cross-validated share of variance explained. Bias is the mean of "
+          "predicted − observed. The selected row is shaded.</p>")
+    for name, why in (getattr(chain, "skipped", None) or {}).items():
+        b.note(f"{name} was not modelled: {why}")
+    for name, target in chain.targets.items():
+        unit = F.shown_unit(name)
+        b.add(f"<h3>{_e(name)} [{_e(unit)}]</h3>")
+        cv = target.cv or {}
+        cov = target.coverage
+        folds = f" ({cv['n_splits']} folds)" if cv.get("n_splits") else ""
+        coverage = "not measured" if cov is None else f"{100 * cov:.3g}%"
+        b.add(
+            f"<p class=small>Stage {_e(target.stage)}; inputs {_e(', '.join(target.inputs))}; {target.n_lots} "
+            f"lots; {_e(cv.get('scheme', 'cross-validation'))}{_e(folds)}; selected <b>{_e(target.selected)}</b>. "
+            f"Interval coverage on unseen lots: {coverage} for a nominal {100 * target.nominal_coverage:.0f}%.</p>")
+        b.add(_candidate_table(target, unit))
+        for note in getattr(target, "notes", None) or []:
+            b.add(f"<p class=small>Note: {_e(note)}</p>")
+        oof = target.oof
+        lots = [str(v) for v in oof.index]
+        known = set(table["lot"])
+        order = [lot for lot in table["lot"] if lot in set(lots)] + [lot for lot in lots if lot not in known]
+        oof = oof.reindex(order)
+        if target.selected not in oof.columns or oof["observed"].notna().sum() == 0:
+            b.note(f"{name}: no out-of-fold predictions of the selected model are stored, so the predicted "
+                   "against observed figure cannot be drawn.")
+            continue
+        group_col, groups = _group_column(table, order)
+        fig, (a1, a2) = F.grid_axes(2, ncols=2, panel=(3.3, 2.9), bottom=1.0, wspace=1.0)
+        F.plot_predicted_observed(oof["observed"], oof[target.selected], name=name, groups=groups,
+                                  group_title=group_col, limit=limits.get(name), ax=a1)
+        resid = oof["observed"] - oof[target.selected]
+        F.plot_residuals_in_time(order, resid, name=name, groups=groups, noise_floor=target.noise_floor, ax=a2)
+        by = f", coloured by {group_col}" if group_col else ""
+        floor = " with the noise floor shaded" if target.noise_floor else " (no noise floor estimated)"
+        b.figure(fig, f"{name}: out-of-fold prediction of the selected model ({target.selected}) against "
+                      f"observation{by} (left; dashed: specification limits), and its residuals lot by lot in "
+                      f"time order{floor} (right).")
+
+
+def _candidate_table(target, unit: str) -> str:
+    rows, classes = [], []
+    from linkage.models.cv import SIMPLICITY_ORDER as order
+
+    names = sorted(target.candidates, key=lambda n: (order.index(n) if n in order else len(order), n))
+    for n in names:
+        c = target.candidates[n]
+        mark = " ✓ selected" if n == target.selected else ""
+        rows.append([_e(n) + mark, _e(CANDIDATE_ROLE.get(n, "")), _pm(c.get("rmse"), c.get("rmse_se")),
+                     _f(c.get("mae")), _f(c.get("q2"), 3), _f(_tiny_to_zero(c.get("bias"), c.get("rmse"))),
+                     _f(c.get("rmse_over_noise"), 3)])
+        classes.append("sel" if n == target.selected else "")
+    for n, why in (getattr(target, "unavailable", None) or {}).items():
+        role = _e(CANDIDATE_ROLE.get(n, ""))
+        rows.append([_e(n), f"{role}; <i>not used: {_e(why)}</i>", "–", "–", "–", "–", "–"])
+        classes.append("")
+    method = getattr(target, "noise_floor_method", None) or "not estimated"
+    # the noise floor's own row: its RMSE/noise is 1 by definition
+    rows.append(["noise floor", "repeatability of the lot mean", _f(target.noise_floor), "–", "–", "–",
+                 "1" if target.noise_floor else "n/a"])
+    classes.append("")
+    table = _table(["model", "what it is", f"CV RMSE ± SE [{_e(unit)}]", "MAE", "Q²", "bias", "RMSE/noise"],
+                   rows, num_cols={2, 3, 4, 5, 6}, row_class=classes)
+    return table + (f"<p class=small>Noise floor: {_e(method)}. n/a: not available (no noise estimate for this "
+                    "attribute, or no variance to compute Q² from).</p>")
+
+
+# ----------------------------------------------------------------- 6. explanations
+
+def _explain_section(b, chain, table, limits, window, curve_draws, seed):
+    from linkage import explain
+    from linkage.report import figures as F
+
+    b.section("explanations", "Why the models predict what they do")
+    b.add("<p>Contributions split each lot's prediction into one term per input on top of a base value: SHAP "
+          "values (TreeExplainer; Lundberg &amp; Lee 2017) for boosting, exact linear terms (coefficient × centred "
+          "input) for PLS, exact interventional Shapley terms for the ridge model. They add up to the prediction "
+          "minus the base value. VIP (variable importance in projection; Wold, Johansson &amp; Cocchi 1993) comes "
+          "from the PLS candidate; above 1 is usually read as important (rule of thumb).</p>")
+    importance = {}
+    for name, target in chain.targets.items():
+        X = _inputs_of(target, table)
+        b.add(f"<h3>{_e(name)}</h3>")
+        if X.empty:
+            b.note(f"{name}: none of its training lots has every input in this table, so no contributions.")
+            continue
+        contrib = explain.contributions(target, X)
+        importance[name] = explain.global_importance(target, X, contributions=contrib)
+        vip = explain.vip(target)
+        all_zero = not np.any(np.abs(contrib.to_numpy(float)) > 0)
+        panels = (0 if all_zero else 1) + (1 if vip is not None else 0)
+        if panels == 0:
+            b.note(f"{name}: the selected model ({target.selected}) ignores every input, and there is no PLS "
+                   "candidate for VIP.")
+            continue
+        margin = F.label_margin(target.inputs) + 0.35
+        fig, axes = F.grid_axes(panels, ncols=panels, panel=(3.3, 0.4 * len(target.inputs) + 0.4), left=margin,
+                                wspace=margin + (1.1 if panels == 2 and not all_zero else 0.0))
+        i = 0
+        if not all_zero:
+            F.plot_contribution_summary(contrib, X, name=name, ax=axes[i])
+            i += 1
+        if vip is not None:
+            F.plot_vip(vip.to_dict(), name=name, ax=axes[i])
+        what = [] if all_zero else [f"contributions of each input to the {target.selected} prediction, one dot "
+                                    f"per training lot, coloured by the input's value ({contrib.attrs['method']})"]
+        if vip is not None:
+            what.append("VIP of the PLS candidate" + (" (the selected model)" if target.selected == "pls" else ""))
+        b.figure(fig, f"{name}: " + "; ".join(what) + ".")
+        if all_zero:
+            b.add(f"<p class=small>The selected model ({_e(target.selected)}) predicts the training mean; no "
+                  "input contributes.</p>")
+    if importance:
+        b.add("<h3>Global importance</h3><p>Mean absolute contribution of each input over the training lots, as "
+              "a share of the total for that attribute.</p>")
+        inputs = list(dict.fromkeys(i for s in importance.values() for i in s.index))
+        rows = []
+        for inp in inputs:
+            row = [_e(inp)]
+            for name, s in importance.items():
+                total = float(s.sum())
+                row.append(f"{100 * s[inp] / total:.0f}%" if inp in s.index and total > 0 else "–")
+            rows.append(row)
+        b.add(_table(["input"] + [_e(n).replace("_", "_<wbr>") for n in importance], rows,
+                     num_cols=set(range(1, len(importance) + 1))))
+        b.add("<p class=small>–: not an input of that attribute's stage, or the model ignores every input.</p>")
+
+    _curves(b, chain, table, limits, window, curve_draws, seed)
+    _latest_lot(b, chain, table)
+
+
+def _curves(b, chain, table, limits, window, curve_draws, seed):
+    from linkage import explain
+    from linkage.exceptions import LinkageError
+    from linkage.report import figures as F
+
+    b.add("<h3>Each attribute against ribbon porosity, through the chain</h3>")
+    try:
+        curves = explain.porosity_curves(chain, n_grid=41, n_draws=curve_draws, level=chain.nominal_coverage,
+                                         seed=seed)
+    except LinkageError as exc:
+        b.note(f"The curves through the chain cannot be drawn: {exc}")
+        return
+    if not curves.curves:
+        b.note("No attribute is predicted downstream of ribbon_porosity, so there is nothing to draw against it.")
+        return
+    names = list(curves.curves)
+    fig, axes = F.grid_axes(len(names), ncols=3, panel=(2.4, 1.8), left=0.85, wspace=0.85)
+    t = _by_lot(table)
+    win = (window.low.value, window.high.value) if window is not None and window.found else None
+    for ax, name in zip(axes, names):
+        c = curves.curves[name]
+        obs = (t[POROSITY], t[name]) if name in t.columns and POROSITY in t.columns else None
+        F.plot_porosity_curve(curves.grid, c["mean"], c["low"], c["high"], name=name, level=curves.level,
+                              limit=limits.get(name), observed=obs, window=win, ax=ax)
+    held = ", ".join(f"{k} = {v['value']:.4g}" for k, v in curves.settings.items())
+    b.figure(fig, f"Each attribute against ribbon porosity through the chain (partial-dependence style): line, "
+                  f"the chain of mean predictions; band, the central {curves.level:.0%} of simulated lots "
+                  f"({curves.n_draws} draws per point, out-of-fold residuals of every stage); dots, training lots; "
+                  f"dashed, specification limits. Held at their training medians: {held or 'nothing'}.")
+
+
+def _latest_lot(b, chain, table):
+    from linkage import explain
+
+    b.add("<h3>The most recent lot, input by input</h3>")
+    rows = []
+    for name, target in chain.targets.items():
+        X = _inputs_of(target, table, lots=list(table["lot"]))
+        if X.empty:
+            continue
+        lot = X.index[-1]
+        one = explain.lot_contributions(target, table, lots=[lot]).iloc[0]
+        parts = one[target.inputs]
+        top = parts.abs().sort_values(ascending=False).index[:3]
+        text = ", ".join(f"{_e(k)} {parts[k]:+.3g}" for k in top if parts[k] != 0) or \
+            "none (the model predicts the mean)"
+        rows.append([_e(name), _e(lot), _f(one["base_value"]), _f(one["prediction"]), text])
+    if not rows:
+        b.note("No lot of the table has every input of any attribute, so no lot can be explained.")
+        return
+    b.add(_table(["attribute", "lot", "base value", "prediction", "largest contributions"], rows, num_cols={2, 3}))
+    b.add("<p class=small>Each attribute's most recent lot that has all of that stage's measured inputs. "
+          "Prediction = base value + the sum of all contributions.</p>")
+
+
+# ----------------------------------------------------------------- 7. window
+
+def _window_section(b, chain, table, spec, window, failure: str | None = None):
+    from linkage.report import figures as F
+
+    b.section("window", "Porosity window")
+    if spec is None:
+        b.note("No specification was given (--spec spec.toml), so there are no limits and no window to show.")
+        return
+    if window is None:
+        b.note(f"The window could not be computed: {failure or 'no window was given'}.")
+        return
+    w = window
+    b.add(f"<p>Ribbon porosity is scanned over the training range {w.data_range[0]:.3f} – {w.data_range[1]:.3f}. "
+          f"At each porosity, {w.n_draws} lots are simulated through the chain; the probability of meeting every "
+          f"specification together must reach {w.confidence:.0%}.</p>")
+    if w.found:
+        b.add(f"<p><b>Window: {w.low.value:.3f} – {w.high.value:.3f}</b>. Low edge {_edge_text(w.low.limited_by)}; "
+              f"high edge {_edge_text(w.high.limited_by)}.</p>")
+        if len(w.segments) > 1:
+            b.add("<p>Other passing ranges: " + ", ".join(f"{a:.3f} – {c:.3f}" for a, c in w.segments) + ".</p>")
+    else:
+        b.add(f"<p><b>No window</b>: the probability of meeting every specification together stays below "
+              f"{w.confidence:.0%} across the training range.</p>")
+    if w.mean_low is not None:
+        b.add(f"<p>Mean-response window (where the chain of mean predictions passes; it overstates what can be "
+              f"promised, Peterson 2008): {w.mean_low:.3f} – {w.mean_high:.3f}.</p>")
+    rows = [[_e(a), _e(F.shown_unit(a)), _e(_limit_text(spec.limits.get(a)))] for a in w.attributes]
+    rows += [[_e(a), _e(F.shown_unit(a)), _e(_limit_text(spec.limits.get(a))) + " (not predicted from porosity: "
+              "not part of the window)"] for a in w.not_modelled]
+    b.add(_table(["attribute", "unit", "specification"], rows))
+    held = ", ".join(f"{_e(k)} = {v['value']:.4g} ({_e(v['source'])})" for k, v in w.settings.items())
+    b.add(f"<p class=small>Settings used: {held or 'none'}.</p>")
+
+    b.figure(F.plot_window_probability(w.grid, w.p_all, w.p_each, confidence=w.confidence, low=w.low.value,
+                                       high=w.high.value, mean_low=w.mean_low, mean_high=w.mean_high),
+             f"Probability that a lot meets every specification together (thick) and each one (thin) against "
+             f"ribbon porosity; dashed: the {w.confidence:.0%} confidence line; shaded: the window; dotted: the "
+             f"mean-response window.")
+
+    names = list(w.bands)
+    if names:
+        fig, axes = F.grid_axes(len(names), ncols=3, panel=(2.4, 1.8), left=0.85, wspace=0.85)
+        win = (w.low.value, w.high.value) if w.found else None
+        for ax, name in zip(axes, names):
+            band = w.bands[name]
+            F.plot_porosity_curve(w.grid, band["mean"], band["low"], band["high"], name=name, level=w.confidence,
+                                  limit=spec.limits.get(name), window=win, ax=ax)
+        b.figure(fig, f"Each specified attribute against ribbon porosity: mean prediction through the chain and "
+                      f"the central {w.confidence:.0%} of simulated lots, against its limits (dashed); the window "
+                      f"shaded.")
+
+    rf = w.roll_force or {}
+    b.add("<h3>Roll force for the window</h3>")
+    curve = rf.get("curve")
+    if rf.get("mean_low") is not None:
+        mean_text = f"the mean prediction is inside the window for {rf['mean_low']:.2f} – {rf['mean_high']:.2f} kN/cm"
+    else:
+        mean_text = "the mean prediction is inside the window at no roll force of the training range"
+    if rf.get("low") is not None:
+        b.add(f"<p>Roll force <b>{rf['low']:.2f} – {rf['high']:.2f} kN/cm</b> gives a lot-mean porosity inside the "
+              f"window with probability at least {w.confidence:.0%}; {mean_text}.</p>")
+    elif rf.get("reason"):
+        b.note(f"Roll force range: {rf['reason']}.")
+        if "curve" in rf:
+            b.add(f"<p>For comparison, {mean_text}.</p>")
+    if rf.get("held"):
+        held = ", ".join(f"{_e(k)} = {v['value']:.4g} ({_e(v['source'])})" for k, v in rf["held"].items())
+        b.add(f"<p class=small>Held for the roll force range: {held}.</p>")
+    if curve:
+        t = _by_lot(table)
+        obs = (t[FORCE], t[POROSITY]) if FORCE in t.columns and POROSITY in t.columns else None
+        b.figure(F.plot_roll_force(curve["roll_force_kn_per_cm"], curve["porosity_mean"], curve["p_in_window"],
+                                   low=w.low.value, high=w.high.value, force_low=rf.get("low"),
+                                   force_high=rf.get("high"), confidence=w.confidence, observed=obs),
+                 "Predicted lot-mean ribbon porosity against roll force (other settings held as stated), the "
+                 "porosity window (green band), the roll force range that lands in it (orange band) and the "
+                 "probability that a lot's mean porosity lies in the window (dash-dot, right axis).")
+
+
+# ----------------------------------------------------------------- 8. domain
+
+def _domain_section(b, chain, table):
+    from linkage.report import figures as F
+
+    b.section("domain", "Applicability domain of the training lots")
+    b.add("<p>Each stage describes its inputs with a latent-variable model. Hotelling's T² measures how far a lot "
+          "lies from the centre within that model, the Q residual how much of it the model does not describe. A "
+          "new lot beyond either limit (or outside an input's training range) is outside the domain and its "
+          "predictions are extrapolations. Shown here: the training lots against the limits that new lots are "
+          "held to; a few training lots beyond them is expected at a 95% limit.</p>")
+    panels = []
+    rows = []
+    t = _by_lot(table)
+    trained = [v for v in (str(x) for x in chain.training.get("lots", [])) if v in t.index]
+    for stage in chain.stages:
+        if stage.domain is None:
+            b.note(f"{stage.name} stage: no attribute of it could be trained, so it has no domain model.")
+            continue
+        missing = [c for c in stage.inputs if c not in t.columns]
+        if missing:
+            b.note(f"{stage.name} stage: the table lacks {', '.join(missing)}, so the domain cannot be drawn.")
+            continue
+        X = t.loc[trained, list(stage.inputs)].astype(float).dropna()
+        if X.empty:
+            b.note(f"{stage.name} stage: no training lot in this table has every input, so the domain cannot "
+                   "be drawn.")
+            continue
+        verdicts = stage.domain.check(X)
+        t2 = np.array([v.t2 for v in verdicts], float)
+        q = np.array([v.q for v in verdicts], float)
+        t2_lim, q_lim = verdicts[0].t2_limit, verdicts[0].q_limit
+        out = [lot for lot, v in zip(X.index, verdicts) if not v.in_domain]
+        panels.append((stage.name, t2, q, t2_lim, q_lim, list(X.index)))
+        rows.append([_e(stage.name), str(len(X)), _f(t2_lim), _f(q_lim), str(len(out)),
+                     f"<span class=lots>{_lots_text(out)}</span>" if out else "none"])
+    if not panels:
+        return
+    b.add(_table(["stage", "training lots", "T² limit", "Q limit", "outside", "which"], rows, num_cols={1, 2, 3, 4}))
+    b.add("<p class=small>n/a: the limit does not apply (a model with no component has no T²; one with as many "
+          "components as inputs leaves no residual for Q).</p>")
+    fig, axes = F.grid_axes(len(panels), ncols=min(3, len(panels)), panel=(2.4, 2.0), left=0.85, wspace=0.85)
+    for ax, (name, t2, q, t2_lim, q_lim, lots) in zip(axes, panels):
+        F.plot_domain(t2, q, t2_limit=t2_lim, q_limit=q_lim, lots=lots, stage=name, ax=ax)
+    b.figure(fig, "Hotelling's T² against the Q residual of each training lot, one panel per stage, with the "
+                  "95% limits (dashed: T²; dash-dot: Q); lots beyond a limit are marked and named.")
+
+
+# ----------------------------------------------------------------- 9. model card
+
+def _model_card(b, chain, spec, window):
+    from linkage.models.cv import SELECTION_RULE, SIMPLICITY_ORDER
+
+    b.section("card", "Model card")
+    tr = chain.training
+    lots = [str(v) for v in tr.get("lots", [])]
+    versions = ", ".join(f"{_e(k)} {_e(v)}" for k, v in sorted((chain.library_versions or {}).items()))
+    stages = "<br>".join(f"{_e(s.name)}: {_e(', '.join(s.inputs))} → {_e(', '.join(s.targets))}"
+                         for s in chain.stages)
+    rows = [
+        ["model id", _e(chain.model_id or "unsaved")],
+        ["trained", _e(chain.created_at)],
+        ["chain", stages],
+        ["training lots", f"{len(lots)}: <span class=lots>{_lots_text(lots, limit=200)}</span>"],
+        ["data hash (SHA-256 of the training table)", f"<code>{_e(tr.get('table_sha256', 'n/a'))}</code>"],
+        ["library versions", versions or "n/a"],
+        ["seed", _e(chain.seed)],
+        ["nominal interval coverage", f"{100 * chain.nominal_coverage:.0f}%"],
+    ]
+    if spec is not None:
+        rows.append(["specification", _e("; ".join(f"{a}: {_limit_text(lim)}" for a, lim in spec.limits.items()))])
+    if window is not None:
+        rows.append(["window confidence and draws", f"{window.confidence:.0%}, {window.n_draws} draws, seed "
+                                                    f"{window.seed}"])
+    b.add(_table(None, rows))
+    b.add("<h3>Selection and intervals, per attribute</h3>")
+    trows = []
+    for name, t in chain.targets.items():
+        cov = t.coverage
+        trows.append([_e(name), _e(t.selected), str(t.n_lots), _e((t.cv or {}).get("scheme", "n/a")),
+                      f"{100 * t.nominal_coverage:.0f}%", "n/a" if cov is None else f"{100 * cov:.0f}%"])
+    b.add(_table(["attribute", "selected", "lots", "cross-validation", "nominal coverage",
+                  "coverage on unseen lots"], trows))
+    b.add(f"<p class=small>Selection rule: {_e(SELECTION_RULE.format(order=' < '.join(SIMPLICITY_ORDER)))} "
+          "A candidate that does not apply to an attribute (see its table) is left out of the order.</p>")
+    b.add(f"<p class=small>{_e(CAUTION)}</p>")
+
+
+# ----------------------------------------------------------------- 10. cautions
+
+def _cautions(b, chain):
+    b.section("cautions", "Cautions")
+    n = int(chain.training.get("n_lots", 0))
+    items = [
+        CAUTION,
+        "The models learn from historical lots: they describe association, not cause. A setting that never varied "
+        "in the training lots has no estimated effect.",
+        "Predictions hold inside the applicability domain of the training lots only. Outside it (see the domain "
+        "section and the what-if verdict) they are extrapolations.",
+        f"Intervals and probabilities come from out-of-fold errors of {n} lots; with few lots they are themselves "
+        "uncertain, and coverage is promised for lots like the training lots, not for a changed raw material, "
+        "site or scale.",
+        "The porosity window holds the other settings where the window section says (given or training median); "
+        "a different setting can move it. The mean-response window overstates what can be promised.",
+        "Retrain when new lots arrive or a residual chart drifts; a model is only as current as its data hash.",
+    ]
+    b.add("<ul>" + "".join(f"<li>{_e(i)}</li>" for i in items) + "</ul>")
