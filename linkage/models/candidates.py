@@ -1,0 +1,510 @@
+"""Candidate models for one target, under one tuning and selection rule.
+
+Five candidates, from the simplest (see :data:`linkage.models.cv.SIMPLICITY_ORDER`):
+
+``mean``
+    The mean of the training lots: the floor every model must beat.
+``rd_baseline``
+    Ryshkewitch–Duckworth form y = y0·exp(−k·ribbon_porosity), fitted by
+    non-linear least squares (:func:`linkage.physics.strength.fit_ryshkewitch_duckworth`,
+    ``method="nls"``) with parameter standard errors. Only where
+    ``ribbon_porosity`` is a stage input. For ribbon tensile strength it is the
+    law itself; for tablet attributes it is the physical reference.
+``pls``
+    Partial least squares on standardised inputs; the number of components
+    is chosen by inner grouped CV; VIP scores are kept.
+``quadratic_ridge``
+    Ridge regression on the standardised inputs, their squares and pairwise
+    products (for curved responses); the penalty is chosen by inner grouped CV.
+``boosting``
+    scikit-learn ``HistGradientBoostingRegressor`` with small-data settings
+    (depth-2 trees, learning rate 0.2, at least a few lots per leaf, no early
+    stopping) and optional monotonic constraints; the number of trees
+    (5, 10 or 20) is chosen by inner grouped CV from staged predictions, so
+    the grid costs one fit per inner fold.
+
+Every estimator follows the scikit-learn contract (``fit`` returns self,
+learned state ends in ``_``) and adds ``contributions(X) -> (matrix,
+base_value)`` whose rows add up to ``prediction − base_value``.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+from sklearn.base import BaseEstimator, RegressorMixin
+
+from linkage.models.cv import inner_splits
+
+__all__ = [
+    "CandidateError",
+    "MeanRegressor",
+    "RDRegressor",
+    "PLSRegressor",
+    "QuadraticRidge",
+    "BoostingRegressor",
+    "CandidateSpec",
+    "CANDIDATES",
+    "vip_from_weights",
+    "pls_vip",
+    "tune",
+    "TuneResult",
+]
+
+POROSITY = "ribbon_porosity"
+
+
+class CandidateError(ValueError):
+    """A candidate cannot be fitted on these data (the message says why)."""
+
+
+def _varying(X: np.ndarray) -> np.ndarray:
+    X = np.asarray(X, dtype=float)
+    if X.shape[0] < 2:
+        return np.zeros(X.shape[1], dtype=bool)
+    span = np.ptp(X, axis=0)
+    return span > 1e-12 * np.maximum(1.0, np.max(np.abs(X), axis=0))
+
+
+# ---------------------------------------------------------------------------
+# estimators
+# ---------------------------------------------------------------------------
+class MeanRegressor(RegressorMixin, BaseEstimator):
+    """Predicts the mean of the training lots."""
+
+    def fit(self, X, y):
+        y = np.asarray(y, dtype=float)
+        self.mean_ = float(np.mean(y))
+        self.n_features_in_ = np.asarray(X).shape[1]
+        return self
+
+    def predict(self, X):
+        return np.full(np.asarray(X).shape[0], self.mean_)
+
+    def contributions(self, X):
+        return np.zeros(np.asarray(X, dtype=float).shape), self.mean_
+
+
+class RDRegressor(RegressorMixin, BaseEstimator):
+    """y = s0·exp(−k·ε) on the porosity column ``porosity_index`` of X."""
+
+    def __init__(self, porosity_index: int = 0):
+        self.porosity_index = porosity_index
+
+    def fit(self, X, y):
+        from linkage.physics.strength import fit_ryshkewitch_duckworth
+
+        X = np.asarray(X, dtype=float)
+        eps = X[:, self.porosity_index]
+        y = np.asarray(y, dtype=float)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # OptimizeWarning on the covariance of tiny fits
+            try:
+                fit = fit_ryshkewitch_duckworth(eps, y, method="nls")
+            except (ValueError, RuntimeError) as exc:
+                raise CandidateError(f"Ryshkewitch–Duckworth fit failed: {exc}") from None
+        if not (np.isfinite(fit["s0"]) and np.isfinite(fit["k"])):
+            raise CandidateError("Ryshkewitch–Duckworth fit did not converge to finite parameters")
+        self.s0_, self.k_ = float(fit["s0"]), float(fit["k"])
+        self.s0_se_ = float(fit["s0_se"]) if np.isfinite(fit["s0_se"]) else None
+        self.k_se_ = float(fit["k_se"]) if np.isfinite(fit["k_se"]) else None
+        self.n_features_in_ = X.shape[1]
+        self.base_ = float(np.mean(self._curve(eps)))
+        return self
+
+    def _curve(self, eps):
+        return self.s0_ * np.exp(-self.k_ * np.asarray(eps, dtype=float))  # y = y0 exp(-k eps)
+
+    def predict(self, X):
+        return self._curve(np.asarray(X, dtype=float)[:, self.porosity_index])
+
+    def contributions(self, X):
+        X = np.asarray(X, dtype=float)
+        c = np.zeros(X.shape)
+        c[:, self.porosity_index] = self.predict(X) - self.base_
+        return c, self.base_
+
+    @property
+    def params_(self) -> dict:
+        return {"s0": self.s0_, "k": self.k_, "s0_se": self.s0_se_, "k_se": self.k_se_}
+
+
+def vip_from_weights(weights, ss) -> np.ndarray:
+    """Cumulative VIP (Wold, Johansson & Cocchi 1993; Chong & Jun 2005):
+    VIPⱼ = √(p · Σₐ SSₐ (wⱼₐ/‖wₐ‖)² / Σₐ SSₐ), with SSₐ the y-variance
+    explained by component a. Σⱼ VIPⱼ² = p."""
+    W = np.asarray(weights, dtype=float)
+    ss = np.asarray(ss, dtype=float)
+    if W.ndim != 2 or W.shape[1] != ss.size:
+        raise ValueError("weights must be (p, A) and ss (A,)")
+    norms = np.linalg.norm(W, axis=0)
+    norms[norms == 0] = 1.0
+    Wn = W / norms
+    p = W.shape[0]
+    total = ss.sum()
+    if not total > 0:
+        return np.zeros(p)
+    return np.sqrt(p * (Wn**2 @ ss) / total)
+
+
+def pls_vip(pls) -> np.ndarray:
+    """VIP of a fitted scikit-learn ``PLSRegression`` with one target:
+    SSₐ = qₐ²·tₐᵀtₐ from its y-loadings and x-scores."""
+    T = pls.x_scores_
+    q = np.asarray(pls.y_loadings_, dtype=float)[0]
+    ss = q**2 * np.sum(T**2, axis=0)
+    return vip_from_weights(pls.x_weights_, ss)
+
+
+class PLSRegressor(RegressorMixin, BaseEstimator):
+    """PLS1 on standardised inputs (scikit-learn ``PLSRegression``, scale=True).
+
+    Inputs without variation over the training lots are left out of the fit
+    (coefficient 0, VIP 0); with none left it predicts the training mean
+    (documented fallback). ``n_components`` is capped at the number of
+    varying inputs and n − 1.
+    """
+
+    def __init__(self, n_components: int = 1):
+        self.n_components = n_components
+
+    def fit(self, X, y):
+        from sklearn.cross_decomposition import PLSRegression
+
+        X = np.asarray(X, dtype=float)
+        y = np.asarray(y, dtype=float)
+        n, p = X.shape
+        self.n_features_in_ = p
+        self.x_mean_ = X.mean(axis=0)
+        self.intercept_ = float(y.mean())
+        self.coef_ = np.zeros(p)
+        self.vip_ = np.zeros(p)
+        keep = _varying(X)
+        self.used_ = keep
+        a = int(min(self.n_components, keep.sum(), n - 1))
+        self.n_components_ = max(a, 0)
+        if a < 1 or not np.ptp(y) > 0:
+            return self
+        pls = PLSRegression(n_components=a, scale=True).fit(X[:, keep], y)
+        # the scaling PLSRegression(scale=True) applies: SD with ddof = 1
+        self.x_sd_ = X[:, keep].std(axis=0, ddof=1)
+        self.y_sd_ = float(y.std(ddof=1))
+        self.coef_[keep] = np.asarray(pls.coef_, dtype=float).reshape(-1)
+        self.intercept_ = float(np.asarray(pls.intercept_).reshape(-1)[0])
+        self.vip_ = np.zeros(p)
+        v = pls_vip(pls)
+        # with constant inputs left out, Σ VIP² over the used inputs is their count;
+        # rescale to the formula with all p inputs (zero weight on the unused ones)
+        self.vip_[keep] = v * math.sqrt(p / keep.sum())
+        self.pls_ = pls
+        return self
+
+    def predict(self, X):
+        X = np.asarray(X, dtype=float)
+        return (X - self.x_mean_) @ self.coef_ + self.intercept_
+
+    def predict_components(self, X, n_components: int) -> np.ndarray:
+        """Prediction with the first ``n_components`` components only.
+
+        NIPALS components are sequential (the scores of the first a do not
+        depend on later ones, and PᵀW is upper triangular), so the
+        a-component model is T[:, :a]·q[:a] = Z·R[:, :a]·q[:a] with R the
+        x-rotations of the larger fit; equal to refitting with a components.
+        """
+        X = np.asarray(X, dtype=float)
+        a = min(int(n_components), self.n_components_)
+        if a >= self.n_components_ or not hasattr(self, "pls_"):
+            return self.predict(X)
+        pls, keep = self.pls_, self.used_
+        Xk = X[:, keep]
+        x_sd = self.x_sd_
+        z = (Xk - self.x_mean_[keep]) / x_sd
+        beta = pls.x_rotations_[:, :a] @ pls.y_loadings_[0, :a]
+        return z @ beta * self.y_sd_ + self.intercept_
+
+    def contributions(self, X):
+        X = np.asarray(X, dtype=float)
+        return (X - self.x_mean_) * self.coef_, self.intercept_
+
+
+def _quad_features(Z: np.ndarray) -> np.ndarray:
+    n, p = Z.shape
+    cols = [Z, Z**2]
+    pairs = [Z[:, i] * Z[:, j] for i in range(p) for j in range(i + 1, p)]
+    if pairs:
+        cols.append(np.column_stack(pairs))
+    return np.hstack(cols)
+
+
+class QuadraticRidge(RegressorMixin, BaseEstimator):
+    """Ridge regression on standardised inputs zᵢ, their squares zᵢ² and
+    pairwise products zᵢzⱼ (intercept not penalised).
+
+    ``contributions`` are exact interventional Shapley values with the inputs
+    drawn independently from their training distributions: for
+    f = b + Σβᵢzᵢ + Σβᵢᵢzᵢ² + Σβᵢⱼzᵢzⱼ, input i gets βᵢ(zᵢ − mᵢ) +
+    βᵢᵢ(zᵢ² − sᵢ) + Σⱼ βᵢⱼ·½(zᵢ − mᵢ)(zⱼ + mⱼ), with mᵢ, sᵢ the training
+    means of zᵢ and zᵢ². The base value is the model's expectation under that
+    background, so the contributions add up to prediction − base exactly.
+    """
+
+    def __init__(self, alpha: float = 1.0):
+        self.alpha = alpha
+
+    def fit(self, X, y):
+        X = np.asarray(X, dtype=float)
+        y = np.asarray(y, dtype=float)
+        n, p = X.shape
+        self.n_features_in_ = p
+        self.x_mean_ = X.mean(axis=0)
+        sd = X.std(axis=0)
+        self.x_scale_ = np.where(_varying(X), sd, 1.0)
+        Z = (X - self.x_mean_) / self.x_scale_
+        F = _quad_features(Z)
+        self.f_mean_ = F.mean(axis=0)
+        Fc = F - self.f_mean_
+        yc = y - y.mean()
+        A = Fc.T @ Fc + float(self.alpha) * np.eye(F.shape[1])
+        self.beta_ = np.linalg.solve(A, Fc.T @ yc)
+        self.intercept_ = float(y.mean() - self.f_mean_ @ self.beta_)
+        self.z_m1_ = Z.mean(axis=0)
+        self.z_m2_ = (Z**2).mean(axis=0)
+        return self
+
+    def _z(self, X):
+        return (np.asarray(X, dtype=float) - self.x_mean_) / self.x_scale_
+
+    def predict(self, X):
+        return _quad_features(self._z(X)) @ self.beta_ + self.intercept_
+
+    def contributions(self, X):
+        Z = self._z(X)
+        n, p = Z.shape
+        b = self.beta_
+        lin, sq = b[:p], b[p:2 * p]
+        m1, m2 = self.z_m1_, self.z_m2_
+        phi = lin * (Z - m1) + sq * (Z**2 - m2)
+        base = self.intercept_ + lin @ m1 + sq @ m2
+        k = 2 * p
+        for i in range(p):
+            for j in range(i + 1, p):
+                bij = b[k]
+                k += 1
+                phi[:, i] += 0.5 * bij * (Z[:, i] - m1[i]) * (Z[:, j] + m1[j])
+                phi[:, j] += 0.5 * bij * (Z[:, j] - m1[j]) * (Z[:, i] + m1[i])
+                base += bij * m1[i] * m1[j]
+        return phi, float(base)
+
+
+class BoostingRegressor(RegressorMixin, BaseEstimator):
+    """scikit-learn ``HistGradientBoostingRegressor`` with small-data
+    settings; ``contributions`` are SHAP TreeExplainer values (Lundberg et
+    al. 2020, Nat. Mach. Intell. 2:56-67), which add up to prediction −
+    expected value."""
+
+    def __init__(self, max_iter: int = 20, learning_rate: float = 0.2, max_depth: int = 2,
+                 min_samples_leaf: int = 3, monotonic_cst=None, random_state: int = 0):
+        self.max_iter = max_iter
+        self.learning_rate = learning_rate
+        self.max_depth = max_depth
+        self.min_samples_leaf = min_samples_leaf
+        self.monotonic_cst = monotonic_cst
+        self.random_state = random_state
+
+    def _model(self):
+        from sklearn.ensemble import HistGradientBoostingRegressor
+
+        return HistGradientBoostingRegressor(
+            learning_rate=self.learning_rate, max_iter=self.max_iter, max_depth=self.max_depth,
+            max_leaf_nodes=2 ** self.max_depth, min_samples_leaf=self.min_samples_leaf,
+            l2_regularization=0.0, early_stopping=False,
+            monotonic_cst=None if self.monotonic_cst is None else list(self.monotonic_cst),
+            random_state=self.random_state,
+        )
+
+    def fit(self, X, y):
+        X = np.asarray(X, dtype=float)
+        self.n_features_in_ = X.shape[1]
+        self.model_ = self._model().fit(X, np.asarray(y, dtype=float))
+        return self
+
+    def predict(self, X):
+        return self.model_.predict(np.asarray(X, dtype=float))
+
+    def staged_predict(self, X):
+        return self.model_.staged_predict(np.asarray(X, dtype=float))
+
+    def contributions(self, X):
+        with warnings.catch_warnings():  # shap's own import-time deprecation notices
+            warnings.simplefilter("ignore", PendingDeprecationWarning)
+            warnings.simplefilter("ignore", DeprecationWarning)
+            import shap  # heavy: only when explanations are asked for
+
+        X = np.asarray(X, dtype=float)
+        explainer = shap.TreeExplainer(self.model_)
+        values = np.asarray(explainer.shap_values(X), dtype=float).reshape(X.shape)
+        base = float(np.asarray(explainer.expected_value, dtype=float).reshape(-1)[0])
+        return values, base
+
+
+# ---------------------------------------------------------------------------
+# candidate specifications: applicability, grid, construction
+# ---------------------------------------------------------------------------
+BOOSTING_STAGES = (5, 10, 20)
+RIDGE_ALPHAS = (0.1, 1.0, 10.0, 100.0, 1000.0)
+PLS_MAX_COMPONENTS = 4
+
+
+def min_samples_leaf_for(n: int) -> int:
+    """Lots per boosting leaf: n/8 between 2 and 10 (common practice, no source)."""
+    return int(max(2, min(10, n // 8)))
+
+
+@dataclass(frozen=True)
+class CandidateSpec:
+    """How to check, tune and build one candidate."""
+
+    name: str
+    description: str
+
+    # -- applicability -----------------------------------------------------
+    def not_applicable(self, inputs: list[str], X: np.ndarray, y: np.ndarray) -> str | None:
+        """Reason the candidate cannot be used on these data, or None."""
+        if self.name == "mean":
+            return None
+        if self.name == "rd_baseline":
+            if POROSITY not in inputs:
+                return "ribbon_porosity is not an input of this stage"
+            eps = X[:, inputs.index(POROSITY)]
+            if len(np.unique(eps)) < 3:
+                return "the training lots have fewer than 3 distinct ribbon porosities; k cannot be estimated"
+            if np.any((eps < 0) | (eps > 1)):
+                return "ribbon_porosity lies outside 0–1"
+            if np.any(y < 0):
+                return "the target has negative values; y0·exp(−k·ε) cannot fit them"
+            return None
+        if not _varying(X).any():
+            return "no input varies over the training lots"
+        return None
+
+    # -- grid ------------------------------------------------------------
+    def grid(self, n: int, p: int) -> list[dict]:
+        """Hyperparameter grid, simplest first, for a tuning set of n lots."""
+        if self.name == "pls":
+            n_train = n - math.ceil(n / 5)
+            top = max(1, min(p, PLS_MAX_COMPONENTS, n_train - 1))
+            return [{"n_components": a} for a in range(1, top + 1)]
+        if self.name == "quadratic_ridge":
+            return [{"alpha": a} for a in reversed(RIDGE_ALPHAS)]  # most penalised (simplest) first
+        if self.name == "boosting":
+            return [{"max_iter": m} for m in BOOSTING_STAGES]
+        return [{}]
+
+    def build(self, params: dict, inputs: list[str], *, n: int, monotone: dict[str, int] | None = None,
+              seed: int = 0):
+        if self.name == "mean":
+            return MeanRegressor()
+        if self.name == "rd_baseline":
+            return RDRegressor(porosity_index=inputs.index(POROSITY))
+        if self.name == "pls":
+            return PLSRegressor(**params)
+        if self.name == "quadratic_ridge":
+            return QuadraticRidge(**params)
+        if self.name == "boosting":
+            cst = [int((monotone or {}).get(c, 0)) for c in inputs]
+            return BoostingRegressor(min_samples_leaf=min_samples_leaf_for(n),
+                                     monotonic_cst=cst if any(cst) else None, random_state=seed, **params)
+        raise KeyError(self.name)
+
+    def fit_predict_grid(self, grid, Xtr, ytr, evals, *, inputs, monotone, seed):
+        """Fit every grid point on (Xtr, ytr); predictions on each array of
+        ``evals``: a list of arrays of shape (G, m_e)."""
+        if self.name == "boosting":
+            top = max(g["max_iter"] for g in grid)
+            est = self.build({"max_iter": top}, inputs, n=len(ytr), monotone=monotone, seed=seed).fit(Xtr, ytr)
+            want = [g["max_iter"] for g in grid]
+            out = []
+            for Xe in evals:
+                if len(Xe) == 0:
+                    out.append(np.empty((len(grid), 0)))
+                    continue
+                staged = [p for i, p in enumerate(est.staged_predict(Xe), start=1) if i in want]
+                out.append(np.vstack(staged))
+            return out
+        out = [np.empty((len(grid), len(Xe))) for Xe in evals]
+        if self.name == "pls":
+            top = max(g["n_components"] for g in grid)
+            est = self.build({"n_components": top}, inputs, n=len(ytr)).fit(Xtr, ytr)
+            for g, params in enumerate(grid):
+                for e, Xe in enumerate(evals):
+                    if len(Xe):
+                        out[e][g] = est.predict_components(Xe, params["n_components"])
+            return out
+        for g, params in enumerate(grid):
+            est = self.build(params, inputs, n=len(ytr), monotone=monotone, seed=seed).fit(Xtr, ytr)
+            for e, Xe in enumerate(evals):
+                if len(Xe):
+                    out[e][g] = est.predict(Xe)
+        return out
+
+
+CANDIDATES: dict[str, CandidateSpec] = {
+    "mean": CandidateSpec("mean", "mean of the training lots (the floor)"),
+    "rd_baseline": CandidateSpec(
+        "rd_baseline", "Ryshkewitch–Duckworth y0·exp(−k·ribbon_porosity), non-linear least squares"),
+    "pls": CandidateSpec("pls", "PLS on standardised inputs, components by inner grouped CV"),
+    "quadratic_ridge": CandidateSpec(
+        "quadratic_ridge", "ridge on standardised inputs, squares and pairwise products, penalty by inner grouped CV"),
+    "boosting": CandidateSpec(
+        "boosting", "histogram gradient boosting, depth 2, learning rate 0.2, trees by inner grouped CV"),
+}
+
+
+@dataclass
+class TuneResult:
+    """Inner grouped CV of one candidate on one tuning set.
+
+    ``params`` the chosen grid point; ``grid_rmse`` the inner RMSE of every
+    grid point; ``inner_pred`` (n,) out-of-fold predictions of the tuning lots
+    at the chosen point; ``inner_fold`` (n,) their inner fold; ``extra_pred``
+    (F, m) the prediction of each inner-fold model at extra points (for
+    nested CV+).
+    """
+
+    params: dict
+    grid_rmse: list[float]
+    inner_pred: np.ndarray
+    inner_fold: np.ndarray
+    extra_pred: np.ndarray
+
+
+def tune(spec: CandidateSpec, X: np.ndarray, y: np.ndarray, groups, X_extra: np.ndarray | None = None, *,
+         inputs: list[str], monotone: dict[str, int] | None = None, seed: int = 0,
+         splits: list | None = None) -> TuneResult:
+    """Choose the candidate's hyperparameters by inner grouped CV (lowest
+    inner RMSE; ties go to the simpler grid point, listed first). ``splits``
+    may pass the inner splits of ``groups`` already made."""
+    if splits is None:
+        splits = inner_splits(groups)
+    grid = spec.grid(len(y), X.shape[1])
+    G = len(grid)
+    if X_extra is None:
+        X_extra = np.empty((0, X.shape[1]))
+    pred = np.empty((G, len(y)))
+    fold = np.empty(len(y), dtype=int)
+    extra = np.empty((G, len(splits), len(X_extra)))
+    for f, (tr, te) in enumerate(splits):
+        p_te, p_ex = spec.fit_predict_grid(grid, X[tr], y[tr], [X[te], X_extra],
+                                           inputs=inputs, monotone=monotone, seed=seed)
+        pred[:, te] = p_te
+        extra[:, f, :] = p_ex
+        fold[te] = f
+    if not np.all(np.isfinite(pred)):
+        raise CandidateError("inner cross-validation gave non-finite predictions")
+    rmse = np.sqrt(np.mean((pred - y[None, :]) ** 2, axis=1))
+    best = int(np.argmin(rmse))
+    return TuneResult(params=dict(grid[best]), grid_rmse=[float(v) for v in rmse],
+                      inner_pred=pred[best].copy(), inner_fold=fold, extra_pred=extra[best].copy())

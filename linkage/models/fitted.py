@@ -1,0 +1,257 @@
+"""Fitted chain objects: one :class:`FittedTarget` per attribute, grouped in
+:class:`FittedStage` objects, held by a :class:`FittedChain`.
+
+These are what the registry stores (joblib) and what ``decide`` and
+``report`` use. Predictions are decision support, not release testing.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from linkage import CAUTION
+from linkage.exceptions import InputError, Problem
+from linkage.models.chain import ChainSpec
+from linkage.models.conformal import cv_plus_interval
+
+__all__ = ["FittedTarget", "FittedStage", "FittedChain", "jsonable", "INTERVAL_METHOD", "COVERAGE_METHOD"]
+
+INTERVAL_METHOD = (
+    "CV+ (Barber, Candès, Ramdas & Tibshirani 2021, Ann. Statist. 49:486-507) with lots as the "
+    "exchangeable unit: the fold models of the lot-grouped outer cross-validation and their "
+    "out-of-fold residuals; lower end the ⌊α(n+1)⌋-th smallest of μ̂₋ₖ₍ᵢ₎(x) − Rᵢ, upper end the "
+    "⌈(1−α)(n+1)⌉-th smallest of μ̂₋ₖ₍ᵢ₎(x) + Rᵢ; an end is ±inf where its rank falls outside 1..n "
+    "(too few lots for the level)"
+)
+
+COVERAGE_METHOD = (
+    "nested CV+: for each outer fold, a CV+ interval at the nominal level is built from the outer "
+    "training lots alone (their inner grouped-CV models and residuals at the hyperparameters tuned "
+    "there), and each held-out lot is checked against it; nothing of a held-out lot enters its own "
+    "interval. The choice among candidates used every lot (a small optimism)."
+)
+
+
+def jsonable(obj):
+    """Plain JSON types; NaN and ±inf become None (never a silent NaN in JSON)."""
+    if isinstance(obj, dict):
+        return {str(k): jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [jsonable(v) for v in obj]
+    if isinstance(obj, (np.bool_, bool)):
+        return bool(obj)
+    if isinstance(obj, (np.integer,)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        v = float(obj)
+        return v if math.isfinite(v) else None
+    if isinstance(obj, np.ndarray):
+        return jsonable(obj.tolist())
+    return obj
+
+
+def _as_matrix(X, inputs: list[str], what: str) -> np.ndarray:
+    """The inputs of X as a float matrix; every missing column or value is
+    refused at once with its row and column."""
+    if not isinstance(X, pd.DataFrame):
+        raise TypeError(f"{what} takes a pandas DataFrame with one column per input: {', '.join(inputs)}")
+    problems = [Problem(file=what, column=c, rule="column missing; the model needs every input")
+                for c in inputs if c not in X.columns]
+    if problems:
+        raise InputError(problems)
+    sub = X[inputs]
+    bad = [c for c in inputs if not (pd.api.types.is_numeric_dtype(sub[c]) and not pd.api.types.is_bool_dtype(sub[c]))]
+    if bad:
+        raise InputError([Problem(file=what, column=c, rule="values must be numbers") for c in bad])
+    values = sub.to_numpy(dtype=float, na_value=np.nan)
+    bad = ~np.isfinite(values)
+    if bad.any():
+        rows, cols = np.nonzero(bad)
+        problems = [Problem(file=what, column=inputs[j], value=None if np.isnan(values[i, j]) else values[i, j],
+                            rule=f"row {X.index[i]!r}: no finite value; a prediction needs every input")
+                    for i, j in list(zip(rows, cols))[:50]]
+        raise InputError(problems)
+    return values
+
+
+@dataclass
+class FittedTarget:
+    """One attribute's candidates, the selected model and its intervals.
+
+    ``coverage`` is the empirical coverage of CV+ intervals at
+    ``nominal_coverage`` over the lots, computed by *nested* CV+ (see
+    :data:`COVERAGE_METHOD`): for each outer fold the interval is built from
+    the outer training lots only, so a lot never helps build the interval it
+    is checked against. ``interval`` serves the deployed CV+ interval (all
+    lots); ``candidates`` holds per candidate ``rmse, mae, q2, bias,
+    rmse_se, rmse_over_noise, coverage``.
+    """
+
+    target: str
+    stage: str
+    inputs: list[str]
+    selected: str
+    selection_rule: str
+    selection: dict
+    candidates: dict[str, dict]
+    unavailable: dict[str, str]
+    noise_floor: float | None
+    noise_floor_method: str
+    n_lots: int
+    lots: list[str]
+    cv: dict
+    oof: pd.DataFrame
+    residuals: pd.Series
+    nominal_coverage: float
+    coverage: float
+    coverage_method: str
+    infinite_intervals: int
+    vip: dict[str, float] | None
+    rd_params: dict | None
+    hyperparameters: dict[str, dict]
+    notes: list[str]
+    model_: object = field(repr=False)
+    fold_models_: list = field(repr=False)
+    fold_of_: np.ndarray = field(repr=False)
+    full_models_: dict = field(repr=False, default_factory=dict)
+
+    # -- predictions -------------------------------------------------------
+    def predict(self, X: pd.DataFrame) -> np.ndarray:
+        """Prediction of the selected candidate fitted on every training lot."""
+        return np.asarray(self.model_.predict(_as_matrix(X, self.inputs, f"{self.target} prediction")), float)
+
+    def predict_candidate(self, X: pd.DataFrame, name: str) -> np.ndarray:
+        """Prediction of another candidate's full-data fit (e.g. ``rd_baseline``)."""
+        if name not in self.full_models_:
+            raise KeyError(f"{name} was not fitted for {self.target}; fitted: {', '.join(self.full_models_)}")
+        return np.asarray(self.full_models_[name].predict(_as_matrix(X, self.inputs, f"{self.target} prediction")))
+
+    def interval(self, X: pd.DataFrame, level: float | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """CV+ prediction interval (see :data:`INTERVAL_METHOD`) at ``level``
+        (default: the nominal coverage). An end is ``-inf``/``inf`` when the
+        rank rule needs more lots than were trained on, e.g. a 90 % interval
+        from fewer than 9 lots: no finite interval carries the guarantee."""
+        level = self.nominal_coverage if level is None else float(level)
+        if not 0 < level < 1:
+            raise ValueError(f"level must lie strictly between 0 and 1; got {level}")
+        Xa = _as_matrix(X, self.inputs, f"{self.target} interval")
+        preds = np.vstack([np.asarray(m.predict(Xa), float) for m in self.fold_models_])
+        return cv_plus_interval(preds, self.fold_of_, self.residuals.to_numpy(float), 1 - level)
+
+    def contributions(self, X: pd.DataFrame) -> pd.DataFrame:
+        """Per-input contributions to each prediction of the selected model.
+
+        Rows add up to ``prediction − base_value`` (``base_value`` is in
+        ``.attrs`` and as an attribute): exact coefficient × (x − training
+        mean) for PLS, exact interventional Shapley values for the quadratic
+        ridge, SHAP TreeExplainer values for boosting, the whole of
+        (prediction − mean training prediction) on ribbon_porosity for the
+        Ryshkewitch–Duckworth baseline, zeros for the mean.
+        """
+        Xa = _as_matrix(X, self.inputs, f"{self.target} contributions")
+        values, base = self.model_.contributions(Xa)
+        out = pd.DataFrame(values, index=X.index, columns=list(self.inputs))
+        out.attrs["base_value"] = float(base)
+        out.attrs["model"] = self.selected
+        object.__setattr__(out, "base_value", float(base))
+        return out
+
+    # -- reporting ----------------------------------------------------------
+    def summary(self) -> dict:
+        """JSON-safe summary (what ``train --json`` prints per attribute)."""
+        return jsonable({
+            "target": self.target,
+            "stage": self.stage,
+            "inputs": list(self.inputs),
+            "n_lots": self.n_lots,
+            "cv": self.cv,
+            "candidates": self.candidates,
+            "unavailable": self.unavailable,
+            "noise_floor": self.noise_floor,
+            "noise_floor_method": self.noise_floor_method,
+            "selected": self.selected,
+            "selection_rule": self.selection_rule,
+            "selection": self.selection,
+            "hyperparameters": self.hyperparameters,
+            "nominal_coverage": self.nominal_coverage,
+            "coverage": self.coverage,
+            "coverage_method": self.coverage_method,
+            "infinite_intervals": self.infinite_intervals,
+            "interval_method": INTERVAL_METHOD,
+            "vip": self.vip,
+            "rd_params": self.rd_params,
+            "notes": self.notes,
+        })
+
+
+@dataclass
+class FittedStage:
+    """The fitted targets of one stage and its applicability domain."""
+
+    name: str
+    inputs: list[str]
+    targets: dict[str, FittedTarget]
+    domain: object  # DomainModel, or None when no target of the stage could be fitted
+    skipped: dict[str, str] = field(default_factory=dict)
+
+    def residual_table(self) -> pd.DataFrame:
+        """Lots × targets of out-of-fold residuals (observed − prediction of
+        the selected candidate); NaN where a lot lacks that target. Rows are
+        whole lots, so draws by row keep the residuals of one lot together."""
+        cols = {name: t.residuals for name, t in self.targets.items()}
+        if not cols:
+            return pd.DataFrame(index=pd.Index([], name="lot"))
+        table = pd.DataFrame(cols)
+        table.index.name = "lot"
+        return table.sort_index()
+
+
+@dataclass
+class FittedChain:
+    """A trained chain: stages in order, every fitted target, the training
+    record. ``model_id`` is set by the registry on save."""
+
+    chain: ChainSpec
+    stages: list[FittedStage]
+    targets: dict[str, FittedTarget]
+    skipped: dict[str, str]
+    training: dict
+    library_versions: dict[str, str]
+    seed: int
+    nominal_coverage: float
+    created_at: str
+    model_id: str | None = None
+    interval_method: str = INTERVAL_METHOD
+
+    def stage(self, name: str) -> FittedStage:
+        for st in self.stages:
+            if st.name == name:
+                return st
+        raise KeyError(name)
+
+    def metadata(self) -> dict:
+        """JSON-safe record of the model: everything ``train --json`` prints
+        and more (chain, training record, library versions, domain limits)."""
+        return jsonable({
+            "model_id": self.model_id,
+            "created_at": self.created_at,
+            "caution": CAUTION,
+            "seed": self.seed,
+            "nominal_coverage": self.nominal_coverage,
+            "interval_method": self.interval_method,
+            "coverage_method": COVERAGE_METHOD,
+            "chain": {"source": self.chain.source, "toml": self.chain.to_toml(), **self.chain.to_dict()},
+            "training": self.training,
+            "library_versions": self.library_versions,
+            "targets": {name: t.summary() for name, t in self.targets.items()},
+            "skipped": self.skipped,
+            "stages": [
+                {"name": st.name, "inputs": st.inputs, "targets": list(st.targets), "skipped": st.skipped,
+                 "domain": st.domain.to_dict() if st.domain is not None else None}
+                for st in self.stages
+            ],
+        })

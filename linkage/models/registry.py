@@ -1,0 +1,443 @@
+"""The model registry: one folder per model, an index, hashes checked before
+any load.
+
+Layout::
+
+    models/
+      registry.json               index: model id -> artifact and metadata SHA-256, source
+      m-20260301T101500Z-1a2b3c4d/
+        chain.joblib              the fitted chain
+        chain.joblib.sha256       its SHA-256 (sha256sum format)
+        metadata.json             id, time, training lots, table hash, versions, chain, CV results...
+
+Rules:
+
+* A save writes into a temporary folder inside the registry (``.tmp-*``),
+  fsyncs every file, writes ``metadata.json`` last, renames the folder to
+  its id, then records it in ``registry.json`` (written to a temporary file
+  and renamed over the old one). A save killed at any point leaves either a
+  ``.tmp-*`` folder or a folder missing from the index: neither is ever
+  loaded or resolved as ``latest``.
+* Before a load, the metadata's SHA-256 and the artifact's SHA-256 are
+  checked against the index (and the metadata); a changed or foreign file is
+  refused with :class:`ModelIntegrityError` and never passed to joblib,
+  because unpickling runs code.
+* A model id is a plain name (``m-YYYYMMDDTHHMMSSZ-<8 hex>``); an id that is a
+  path, climbs out (``..``), or a folder that is a symbolic link, is refused.
+* A model folder copied in from elsewhere is "foreign" until
+  :func:`import_model` records where it came from.
+* ``latest`` is the newest model (by creation time) that is in the index and
+  passes every check.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import io
+import json
+import os
+import re
+import shutil
+import warnings
+from datetime import datetime, timezone
+from pathlib import Path
+
+from linkage.exceptions import ModelIntegrityError, ModelNotFoundError, UsageError
+
+__all__ = ["save", "load", "resolve", "list_models", "import_model", "verify", "INDEX", "ARTIFACT", "METADATA"]
+
+INDEX = "registry.json"
+ARTIFACT = "chain.joblib"
+HASHFILE = "chain.joblib.sha256"
+METADATA = "metadata.json"
+LOCKFILE = ".registry.lock"
+TMP_PREFIX = ".tmp-"
+FORMAT = 1
+ID_RE = re.compile(r"^m-\d{8}T\d{6}Z-[0-9a-f]{8}$")
+
+
+# ---------------------------------------------------------------------------
+# small helpers
+# ---------------------------------------------------------------------------
+def _sha256(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def _now() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="microseconds")
+
+
+def _fsync_dir(path: Path) -> None:
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def _write_file(path: Path, data: bytes) -> None:
+    with open(path, "xb") as fh:
+        fh.write(data)
+        fh.flush()
+        os.fsync(fh.fileno())
+
+
+@contextlib.contextmanager
+def _locked(models_dir: Path):
+    """Exclusive lock of the registry for writers (advisory, fcntl)."""
+    import fcntl
+
+    fd = os.open(models_dir / LOCKFILE, os.O_RDWR | os.O_CREAT, 0o644)
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX)
+        yield
+    finally:
+        fcntl.flock(fd, fcntl.LOCK_UN)
+        os.close(fd)
+
+
+def _read_index(models_dir: Path) -> dict:
+    path = models_dir / INDEX
+    if path.is_symlink():
+        raise ModelIntegrityError(f"{path} is a symbolic link; the registry index must be a plain file")
+    if not path.exists():
+        return {"format": FORMAT, "models": {}}
+    try:
+        index = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise ModelIntegrityError(f"the registry index {path} cannot be read ({exc}); no model is loaded") from None
+    if not isinstance(index, dict) or not isinstance(index.get("models"), dict):
+        raise ModelIntegrityError(f"the registry index {path} is not a linkage registry index")
+    return index
+
+
+def _write_index(models_dir: Path, index: dict) -> None:
+    tmp = models_dir / f"{INDEX}.tmp-{os.getpid()}"
+    tmp.unlink(missing_ok=True)
+    _write_file(tmp, json.dumps(index, indent=2, sort_keys=True).encode("utf-8"))
+    os.replace(tmp, models_dir / INDEX)
+    _fsync_dir(models_dir)
+
+
+def _read_plain(path: Path, what: str) -> bytes:
+    if path.is_symlink():
+        raise ModelIntegrityError(f"{what} {path} is a symbolic link; refused")
+    try:
+        return path.read_bytes()
+    except FileNotFoundError:
+        raise ModelIntegrityError(f"{what} {path} is missing; the model is incomplete") from None
+
+
+def _registry_dir(models_dir) -> Path:
+    """The registry folder, created if needed; a file in its place is refused."""
+    models_dir = Path(models_dir)
+    if models_dir.exists() and not models_dir.is_dir():
+        raise UsageError(f"{models_dir} is a file, not a model registry folder")
+    try:
+        models_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise UsageError(f"cannot create the model registry folder {models_dir}: {exc}") from None
+    return models_dir
+
+
+def _available(models_dir: Path) -> list[str]:
+    try:
+        return sorted(_read_index(models_dir)["models"])
+    except ModelIntegrityError:
+        return []
+
+
+# ---------------------------------------------------------------------------
+# resolving and verifying
+# ---------------------------------------------------------------------------
+def _check_id(model_id: str, models_dir: Path) -> str:
+    s = str(model_id)
+    if (os.path.isabs(s) or "/" in s or "\\" in s or s in (".", "..") or ".." in s or "\x00" in s
+            or s.startswith(".")):
+        raise ModelIntegrityError(
+            f"model id {s!r} is a path, not a model id; only models inside the registry {models_dir} are loaded "
+            "(give an id such as m-20260301T101500Z-1a2b3c4d, or 'latest')")
+    if not ID_RE.match(s):
+        avail = _available(models_dir)
+        raise ModelNotFoundError(
+            f"no model {s!r} in {models_dir}; available: {', '.join(avail) if avail else 'none'}")
+    return s
+
+
+def _model_dir(models_dir: Path, model_id: str) -> Path:
+    path = models_dir / model_id
+    if path.is_symlink():
+        raise ModelIntegrityError(f"model folder {path} is a symbolic link; refused (it may point out of the registry)")
+    root = models_dir.resolve()
+    if path.resolve().parent != root:
+        raise ModelIntegrityError(f"model folder {path} lies outside the registry {root}; refused")
+    return path
+
+
+def verify(models_dir, model_id: str, index: dict | None = None) -> tuple[dict, bytes]:
+    """Check one model against the index: its folder, the SHA-256 of its
+    metadata and of its artifact. Returns (metadata, artifact bytes);
+    nothing is unpickled.
+
+    Raises
+    ------
+    ModelIntegrityError
+        Foreign (not in the index), changed, incomplete, or outside the registry.
+    ModelNotFoundError
+        No such model.
+    """
+    models_dir = Path(models_dir)
+    model_id = _check_id(model_id, models_dir)
+    path = _model_dir(models_dir, model_id)
+    index = _read_index(models_dir) if index is None else index
+    entry = index["models"].get(model_id)
+    if entry is None:
+        if path.is_dir():
+            raise ModelIntegrityError(
+                f"model {model_id} is not in the registry index {models_dir / INDEX}: it was copied in from "
+                "elsewhere or its save was interrupted. Refused; if you trust it, import it with "
+                f"'linkage models --import {path} --note \"where it came from\"'")
+        avail = _available(models_dir)
+        raise ModelNotFoundError(
+            f"no model {model_id!r} in {models_dir}; available: {', '.join(avail) if avail else 'none'}")
+    if not path.is_dir():
+        raise ModelIntegrityError(f"model {model_id} is in the index but its folder {path} is missing")
+    meta_bytes = _read_plain(path / METADATA, "metadata file")
+    if _sha256(meta_bytes) != entry.get("metadata_sha256"):
+        raise ModelIntegrityError(
+            f"{path / METADATA} does not match the SHA-256 the registry recorded for it; it was changed after "
+            "the model was saved. Refused.")
+    try:
+        meta = json.loads(meta_bytes)
+    except json.JSONDecodeError as exc:  # pragma: no cover - hash matched a bad file: only if saved bad
+        raise ModelIntegrityError(f"{path / METADATA} is not JSON ({exc})") from None
+    if meta.get("model_id") != model_id or meta.get("artifact_sha256") != entry.get("artifact_sha256"):
+        raise ModelIntegrityError(f"the metadata of {model_id} does not agree with the registry index; refused")
+    data = _read_plain(path / ARTIFACT, "model artifact")
+    found = _sha256(data)
+    if found != entry["artifact_sha256"]:
+        raise ModelIntegrityError(
+            f"the artifact {path / ARTIFACT} does not match its recorded SHA-256 (recorded "
+            f"{entry['artifact_sha256'][:16]}…, found {found[:16]}…): it was changed or replaced. It is not "
+            "loaded, because loading a joblib file runs code.")
+    return meta, data
+
+
+def _ordered_ids(index: dict) -> list[str]:
+    """Index ids, newest first (creation time, then time of saving, then id)."""
+    models = index["models"]
+    return sorted(models, key=lambda i: (str(models[i].get("created_at", "")), str(models[i].get("saved_at", "")),
+                                         i), reverse=True)
+
+
+def resolve(models_dir, model_id: str | None = "latest") -> Path:
+    """Folder of a model, after the escape checks; ``latest`` (or None) is
+    the newest complete model whose hashes verify."""
+    models_dir = Path(models_dir)
+    if not models_dir.is_dir():
+        raise ModelNotFoundError(f"no model registry at {models_dir}; train a model first ('linkage train')")
+    if model_id in (None, "latest"):
+        index = _read_index(models_dir)
+        skipped = []
+        for mid in _ordered_ids(index):
+            try:
+                verify(models_dir, mid, index)
+            except (ModelIntegrityError, ModelNotFoundError) as exc:
+                skipped.append(f"{mid}: {exc}")
+                continue
+            if skipped:
+                warnings.warn("latest skipped newer models that fail their checks: " + "; ".join(skipped),
+                              stacklevel=2)
+            return models_dir / mid
+        detail = ("; models that fail their checks: " + "; ".join(skipped)) if skipped else ""
+        raise ModelNotFoundError(f"no complete, verified model in {models_dir}{detail}")
+    model_id = _check_id(model_id, models_dir)
+    path = _model_dir(models_dir, model_id)
+    if not path.is_dir():
+        avail = _available(models_dir)
+        raise ModelNotFoundError(
+            f"no model {model_id!r} in {models_dir}; available: {', '.join(avail) if avail else 'none'}")
+    return path
+
+
+# ---------------------------------------------------------------------------
+# save, load, list, import
+# ---------------------------------------------------------------------------
+def _new_id(chain, index: dict, models_dir: Path) -> str:
+    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    basis = json.dumps({"created_at": chain.created_at, "table": chain.training.get("table_sha256"),
+                        "chain": chain.chain.to_toml(), "seed": chain.seed, "pid": os.getpid(),
+                        "saved_at": _now()}, sort_keys=True)
+    digest = _sha256(basis.encode("utf-8"))
+    for attempt in range(10_000):
+        mid = f"m-{stamp}-{digest[:8]}"
+        if mid not in index["models"] and not os.path.lexists(models_dir / mid):
+            return mid
+        digest = _sha256(f"{digest}:{attempt}".encode())
+    raise RuntimeError("could not find a free model id")  # pragma: no cover
+
+
+def _install(models_dir: Path, model_id: str, artifact: bytes, metadata: bytes) -> None:
+    """Write a model folder atomically: temp folder, fsync, metadata last, rename."""
+    tmp = models_dir / f"{TMP_PREFIX}{model_id}-{os.getpid()}"
+    if os.path.lexists(tmp):
+        shutil.rmtree(tmp)
+    tmp.mkdir()
+    try:
+        sha = _sha256(artifact)
+        _write_file(tmp / ARTIFACT, artifact)
+        _write_file(tmp / HASHFILE, f"{sha}  {ARTIFACT}\n".encode())
+        _write_file(tmp / METADATA, metadata)  # last: a folder with metadata has everything else
+        _fsync_dir(tmp)
+        os.rename(tmp, models_dir / model_id)
+        _fsync_dir(models_dir)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+
+
+def save(chain, models_dir) -> str:
+    """Save a fitted chain; returns its new model id (``m-<UTC time>-<8 hex>``,
+    unique even within one second)."""
+    import joblib
+
+    from linkage.models.fitted import FittedChain
+
+    if not isinstance(chain, FittedChain):
+        raise TypeError("save takes a FittedChain")
+    models_dir = _registry_dir(models_dir)
+    with _locked(models_dir):
+        index = _read_index(models_dir)
+        model_id = _new_id(chain, index, models_dir)
+        previous = chain.model_id
+        chain.model_id = model_id
+        try:
+            buf = io.BytesIO()
+            joblib.dump(chain, buf)
+            artifact = buf.getvalue()
+            meta = chain.metadata()
+            meta.update(artifact=ARTIFACT, artifact_sha256=_sha256(artifact), registry_format=FORMAT)
+            meta_bytes = json.dumps(meta, indent=2, allow_nan=False, ensure_ascii=False).encode("utf-8")
+            _install(models_dir, model_id, artifact, meta_bytes)
+        except BaseException:
+            chain.model_id = previous
+            raise
+        index["models"][model_id] = {
+            "artifact_sha256": meta["artifact_sha256"],
+            "metadata_sha256": _sha256(meta_bytes),
+            "created_at": chain.created_at,
+            "saved_at": _now(),
+            "source": {"kind": "trained"},
+        }
+        index["format"] = FORMAT
+        _write_index(models_dir, index)
+    return model_id
+
+
+def load(models_dir, model_id: str | None = "latest"):
+    """Load a model after verifying it (see :func:`verify`)."""
+    import joblib
+
+    from linkage.models.fitted import FittedChain
+
+    models_dir = Path(models_dir)
+    path = resolve(models_dir, model_id)
+    _, data = verify(models_dir, path.name)
+    chain = joblib.load(io.BytesIO(data))  # the bytes whose hash was just checked
+    if not isinstance(chain, FittedChain) or chain.model_id != path.name:
+        raise ModelIntegrityError(f"{path / ARTIFACT} does not hold the fitted chain {path.name}")
+    return chain
+
+
+def list_models(models_dir) -> list[dict]:
+    """Every model folder and index entry with its status, newest first.
+
+    status: ``ok``; ``changed`` (a hash does not match), ``missing`` (in the
+    index, no folder), ``foreign`` (a folder not in the index), ``incomplete``
+    (an interrupted save). ``latest`` marks the one ``latest`` resolves to.
+    """
+    models_dir = Path(models_dir)
+    if not models_dir.is_dir():
+        return []
+    index = _read_index(models_dir)
+    rows: dict[str, dict] = {}
+    for mid, entry in index["models"].items():
+        row = {"model_id": mid, "created_at": entry.get("created_at"), "saved_at": entry.get("saved_at"),
+               "source": entry.get("source"), "status": "ok", "detail": None, "latest": False}
+        try:
+            meta, _ = verify(models_dir, mid, index)
+            row.update(n_lots=meta.get("training", {}).get("n_lots"),
+                       targets={t: v.get("selected") for t, v in meta.get("targets", {}).items()},
+                       coverage={t: v.get("coverage") for t, v in meta.get("targets", {}).items()},
+                       nominal_coverage=meta.get("nominal_coverage"))
+        except (ModelIntegrityError, ModelNotFoundError) as exc:
+            row["status"] = "missing" if not (models_dir / mid).is_dir() else "changed"
+            row["detail"] = str(exc)
+        rows[mid] = row
+    for p in sorted(models_dir.iterdir()):
+        name = p.name
+        if name in rows or name in (INDEX, LOCKFILE) or name.startswith(f"{INDEX}.tmp"):
+            continue
+        if name.startswith(TMP_PREFIX):
+            rows[name] = {"model_id": name, "created_at": None, "saved_at": None, "source": None,
+                          "status": "incomplete",
+                          "detail": "an interrupted save; never loaded (safe to delete)", "latest": False}
+        elif ID_RE.match(name) or (p.is_dir() and (p / METADATA).exists()):
+            rows[name] = {"model_id": name, "created_at": None, "saved_at": None, "source": None,
+                          "status": "foreign",
+                          "detail": "not in the registry index; import it to use it", "latest": False}
+    for mid in _ordered_ids(index):
+        if rows[mid]["status"] == "ok":
+            rows[mid]["latest"] = True
+            break
+    return sorted(rows.values(), key=lambda r: (str(r["created_at"] or ""), str(r.get("saved_at") or ""),
+                                                r["model_id"]), reverse=True)
+
+
+def import_model(src_dir, models_dir, source_note: str) -> str:
+    """Bring a model folder from elsewhere into the registry, recording where
+    it came from. The artifact must match the SHA-256 in its own metadata;
+    nothing is unpickled. A foreign folder already inside the registry is
+    registered in place. Returns the model id."""
+    if not isinstance(source_note, str) or not source_note.strip():
+        raise UsageError("say where the model comes from (a non-empty source note) to import it")
+    src = Path(src_dir)
+    models_dir = Path(models_dir)
+    if not src.is_dir():
+        raise ModelNotFoundError(f"no model folder at {src}")
+    meta_bytes = _read_plain(src / METADATA, "metadata file")
+    try:
+        meta = json.loads(meta_bytes)
+    except json.JSONDecodeError as exc:
+        raise ModelIntegrityError(f"{src / METADATA} is not JSON ({exc}); not imported") from None
+    model_id = meta.get("model_id") if isinstance(meta, dict) else None
+    if not isinstance(model_id, str) or not ID_RE.match(model_id):
+        raise ModelIntegrityError(f"{src / METADATA} names no valid model id ({model_id!r}); not imported")
+    artifact = _read_plain(src / ARTIFACT, "model artifact")
+    if _sha256(artifact) != meta.get("artifact_sha256"):
+        raise ModelIntegrityError(
+            f"{src / ARTIFACT} does not match the SHA-256 in its own metadata; it was changed. Not imported.")
+    models_dir = _registry_dir(models_dir)
+    with _locked(models_dir):
+        index = _read_index(models_dir)
+        if model_id in index["models"]:
+            raise UsageError(f"model {model_id} is already in the registry {models_dir}")
+        dest = models_dir / model_id
+        in_place = os.path.lexists(dest)
+        if in_place:
+            if src.resolve() != _model_dir(models_dir, model_id).resolve():
+                raise UsageError(f"{dest} already exists and is not {src}; not imported")
+        else:
+            _install(models_dir, model_id, artifact, meta_bytes)
+        index["models"][model_id] = {
+            "artifact_sha256": meta["artifact_sha256"],
+            "metadata_sha256": _sha256(meta_bytes),
+            "created_at": meta.get("created_at"),
+            "saved_at": _now(),
+            "source": {"kind": "imported", "from": str(src.resolve()), "note": source_note.strip(),
+                       "in_place": in_place},
+        }
+        index["format"] = FORMAT
+        _write_index(models_dir, index)
+    return model_id

@@ -1,0 +1,475 @@
+"""Train the chain: every target of every stage, every candidate, nested
+grouped cross-validation by lot, the one-SE selection, CV+ intervals and the
+applicability domain.
+
+A stage trains on every lot that has its inputs and the target; a lot missing
+one target still counts for the others. Stage inputs that an earlier stage
+predicts are taken as *measured* for training.
+
+Fallbacks (documented, never silent):
+
+* a target with fewer than :data:`MIN_LOTS` usable lots, or whose column (or
+  an input column) is absent or entirely missing, is skipped with its reason
+  in ``FittedChain.skipped``; a later stage that needs it then has no lots and
+  is skipped too. If no target can be trained, :class:`InsufficientDataError`
+  lists every reason.
+* a constant target (every lot the same value) gets the ``mean`` candidate
+  only; its Q² is undefined and reported as null with a note.
+* a candidate that does not apply (no ribbon_porosity input, fewer than three
+  distinct porosities, no varying input) or fails in any fold is left out for
+  that target with its reason in ``unavailable``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import platform
+from dataclasses import dataclass
+from datetime import datetime, timezone
+from importlib import metadata as importlib_metadata
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from linkage.exceptions import InputError, InsufficientDataError, Problem, UsageError
+from linkage.models.candidates import CANDIDATES, CandidateError, tune
+from linkage.models.chain import ChainSpec
+from linkage.models.conformal import cv_plus_interval
+from linkage.models.cv import SIMPLICITY_ORDER, inner_splits, metrics, outer_splits, select_candidate
+from linkage.models.domain import DomainModel
+from linkage.models.fitted import COVERAGE_METHOD, FittedChain, FittedStage, FittedTarget
+from linkage.schema import NOISE_COLUMNS
+
+# re-exported: others import the fitted classes from here
+__all__ = ["train_chain", "MIN_LOTS", "FittedChain", "FittedStage", "FittedTarget", "table_sha256",
+           "noise_floor"]
+
+#: fewest lots with every input and the target for a target to be trained
+#: (outer leave-one-lot-out leaves 4 for the inner CV; common practice, no source)
+MIN_LOTS = 5
+
+#: significance level of the applicability-domain limits (95 % limits)
+DOMAIN_ALPHA = 0.05
+
+
+# ---------------------------------------------------------------------------
+# the table
+# ---------------------------------------------------------------------------
+def table_sha256(table: pd.DataFrame) -> str:
+    """SHA-256 of the assembled table in a canonical form: rows sorted by
+    lot, columns as given, written as CSV (floats at full repr precision,
+    ``\\n`` line ends, UTF-8)."""
+    t = table
+    if "lot" in table.columns:
+        order = np.argsort(table["lot"].astype(str).to_numpy(), kind="stable")
+        t = table.iloc[order].reset_index(drop=True)
+    text = t.to_csv(index=False, lineterminator="\n")
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def _prepare(table, chain: ChainSpec) -> tuple[pd.DataFrame, list[str]]:
+    """Validated numeric copy, one row per lot, sorted by lot; notes."""
+    if not isinstance(table, pd.DataFrame):
+        raise TypeError("train_chain takes the assembled table as a pandas DataFrame")
+    src = "assembled table"
+    if "lot" not in table.columns:
+        raise InputError(Problem(file=src, column="lot", rule="column missing; every row needs its lot"))
+    if table.empty:
+        raise InsufficientDataError("the assembled table has no lots")
+    problems: list[Problem] = []
+    lots = table["lot"]
+    empty = lots.isna() | (lots.astype(str).str.strip() == "")
+    for i in np.flatnonzero(empty.to_numpy()):
+        problems.append(Problem(file=src, row=int(i) + 2, column="lot", rule="empty lot identifier"))
+    lot_str = lots.astype(str).str.strip()
+    dup = lot_str[lot_str.duplicated(keep=False) & ~empty]
+    for lot in sorted(set(dup)):
+        rows = [int(i) + 2 for i in np.flatnonzero((lot_str == lot).to_numpy())]
+        problems.append(Problem(file=src, column="lot", value=lot,
+                                rule=f"lot appears on rows {rows}; the assembled table has one row per lot"))
+    needed = list(dict.fromkeys(chain.root_inputs() + chain.targets()))
+    noise = [c for t in chain.targets() if t in NOISE_COLUMNS for c in NOISE_COLUMNS[t]]
+    notes = []
+    out = pd.DataFrame({"lot": lot_str})
+    for c in needed + [c for c in noise if c not in needed]:
+        if c not in table.columns:
+            if c in needed:
+                notes.append(f"column {c} is absent from the assembled table")
+            out[c] = np.nan
+            continue
+        col = table[c]
+        if pd.api.types.is_bool_dtype(col) or not pd.api.types.is_numeric_dtype(col):
+            num = pd.to_numeric(col, errors="coerce")
+            bad = num.isna() & col.notna()
+            for i in np.flatnonzero(bad.to_numpy())[:20]:
+                problems.append(Problem(file=src, row=int(i) + 2, column=c, value=col.iloc[i],
+                                        rule="not a number"))
+            col = num
+        values = pd.to_numeric(col, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+        for i in np.flatnonzero(np.isinf(values))[:20]:
+            problems.append(Problem(file=src, row=int(i) + 2, column=c, value=float(values[i]),
+                                    rule="infinite value"))
+        out[c] = values
+    if problems:
+        raise InputError(problems)
+    out = out.sort_values("lot", kind="mergesort").reset_index(drop=True)
+    if len(out) < MIN_LOTS:
+        raise InsufficientDataError(
+            f"training needs at least {MIN_LOTS} lots with every input and a target; the table has {len(out)} "
+            f"lot{'s' if len(out) != 1 else ''}"
+        )
+    return out, notes
+
+
+def noise_floor(table: pd.DataFrame, target: str) -> tuple[float | None, str]:
+    """Measurement noise floor of a lot-mean target, from its replicates.
+
+    σ_w² = Σ(mᵢ − 1)sᵢ² / Σ(mᵢ − 1) pooled over the lots with m ≥ 2
+    replicates (sᵢ the within-lot SD, mᵢ the count); the floor is the
+    repeatability of the lot mean, σ_w·√(mean of 1/mᵢ). ``None`` (with the
+    reason) where no replicate SD exists.
+    """
+    cols = NOISE_COLUMNS.get(target)
+    if cols is None:
+        return None, "none estimated: the assembled table keeps no replicate measurements of this attribute"
+    sd_col, n_col = cols
+    if sd_col not in table.columns or n_col not in table.columns:
+        return None, f"none estimated: {sd_col} or {n_col} is absent from the assembled table"
+    s = table[sd_col].to_numpy(float)
+    m = table[n_col].to_numpy(float)
+    ok = np.isfinite(s) & np.isfinite(m) & (m >= 2) & (s >= 0)
+    if not ok.any():
+        return None, f"none estimated: no lot has {sd_col} from at least 2 replicates"
+    s, m = s[ok], m[ok]
+    dof = float(np.sum(m - 1))
+    sw = float(np.sqrt(np.sum((m - 1) * s**2) / dof))
+    floor = sw * float(np.sqrt(np.mean(1.0 / m)))
+    return floor, (f"pooled within-lot SD of the replicates ({sd_col}) over {int(ok.sum())} lots "
+                   f"({dof:g} degrees of freedom), σ_w = {sw:.4g}, times √(mean 1/m) with m = {n_col}: "
+                   "the repeatability of the lot mean")
+
+
+# ---------------------------------------------------------------------------
+# jobs
+# ---------------------------------------------------------------------------
+@dataclass
+class _Plan:
+    stage: str
+    target: str
+    inputs: list[str]
+    monotone: dict[str, int]
+    lots: np.ndarray
+    X: np.ndarray
+    y: np.ndarray
+    splits: list
+    scheme: str
+    candidates: list[str]
+    unavailable: dict[str, str]
+    notes: list[str]
+
+
+@dataclass
+class _Job:
+    plan: int
+    fold: int | None  # None: the full-data fit
+    X_train: np.ndarray
+    y_train: np.ndarray
+    lots_train: np.ndarray
+    X_test: np.ndarray | None
+    candidates: list[str]
+    inputs: list[str]
+    monotone: dict[str, int]
+    seed: int
+    alpha: float
+
+
+def _run_job(job: _Job) -> dict:
+    """Tune, fit and (for an outer fold) predict every candidate; nested CV+
+    bounds for the held-out lots. Returns name -> result or error text."""
+    from threadpoolctl import threadpool_limits
+
+    out: dict[str, dict] = {}
+    splits = inner_splits(job.lots_train)
+    with threadpool_limits(limits=1):
+        for name in job.candidates:
+            spec = CANDIDATES[name]
+            try:
+                tr = tune(spec, job.X_train, job.y_train, job.lots_train, job.X_test,
+                          inputs=job.inputs, monotone=job.monotone, seed=job.seed, splits=splits)
+                est = spec.build(tr.params, job.inputs, n=len(job.y_train), monotone=job.monotone,
+                                 seed=job.seed).fit(job.X_train, job.y_train)
+                res = {"params": tr.params, "model": est}
+                if job.X_test is not None:
+                    pred = np.asarray(est.predict(job.X_test), float)
+                    if not np.all(np.isfinite(pred)):
+                        raise CandidateError("non-finite out-of-fold prediction")
+                    lo, hi = cv_plus_interval(tr.extra_pred, tr.inner_fold, job.y_train - tr.inner_pred,
+                                              job.alpha)
+                    res.update(pred=pred, low=lo, high=hi)
+                out[name] = res
+            except (CandidateError, InsufficientDataError, np.linalg.LinAlgError) as exc:
+                where = "the full-data fit" if job.fold is None else f"outer fold {job.fold + 1}"
+                out[name] = {"error": f"{exc} (in {where})"}
+    return out
+
+
+def _library_versions() -> dict[str, str]:
+    out = {"python": platform.python_version()}
+    for dist in ("linkage", "numpy", "pandas", "scipy", "scikit-learn", "joblib", "shap"):
+        try:
+            out[dist] = importlib_metadata.version(dist)
+        except importlib_metadata.PackageNotFoundError:
+            out[dist] = "not installed"
+    return out
+
+
+def _candidate_names(candidates) -> list[str]:
+    if candidates is None:
+        return list(SIMPLICITY_ORDER)
+    unknown = [c for c in candidates if c not in CANDIDATES]
+    if unknown:
+        raise UsageError(f"unknown candidate(s) {', '.join(map(str, unknown))}; "
+                         f"known: {', '.join(SIMPLICITY_ORDER)}")
+    chosen = set(candidates) | {"mean"}  # the floor is always there
+    return [c for c in SIMPLICITY_ORDER if c in chosen]
+
+
+def _plan_target(table: pd.DataFrame, stage, target: str, names: list[str], seed: int):
+    """A _Plan, or the reason the target is skipped."""
+    cols = list(stage.inputs) + [target]
+    values = table[cols].to_numpy(float)
+    have = np.all(np.isfinite(values), axis=1)
+    n = int(have.sum())
+    if n < MIN_LOTS:
+        gaps = [f"{c} missing on {int(np.sum(~np.isfinite(values[:, j])))} of {len(table)} lots"
+                for j, c in enumerate(cols) if np.any(~np.isfinite(values[:, j]))]
+        detail = f" ({'; '.join(gaps)})" if gaps else ""
+        return (f"needs at least {MIN_LOTS} lots with every input ({', '.join(stage.inputs)}) and {target}; "
+                f"{n} have them{detail}")
+    X, y = values[have, :-1], values[have, -1]
+    lots = table["lot"].to_numpy(dtype=object)[have]
+    splits, scheme = outer_splits(lots, seed)
+    notes: list[str] = []
+    unavailable: dict[str, str] = {}
+    cands = []
+    if not np.ptp(y) > 1e-12 * max(1.0, float(np.max(np.abs(y)))):
+        notes.append(f"constant target: every training lot has {target} = {y[0]:.6g}; only the mean is fitted "
+                     "and Q² is undefined")
+        unavailable = {c: "constant target" for c in names if c != "mean"}
+        cands = ["mean"]
+    else:
+        for c in names:
+            why = CANDIDATES[c].not_applicable(list(stage.inputs), X, y)
+            if why is None:
+                cands.append(c)
+            else:
+                unavailable[c] = why
+    return _Plan(stage=stage.name, target=target, inputs=list(stage.inputs),
+                 monotone=dict(stage.monotone.get(target, {})), lots=lots, X=X, y=y, splits=splits,
+                 scheme=scheme, candidates=cands, unavailable=unavailable, notes=notes)
+
+
+def _jobs(plans: list[_Plan], seed: int, alpha: float) -> list[_Job]:
+    jobs = []
+    for i, p in enumerate(plans):
+        for f, (tr, te) in enumerate(p.splits):
+            jobs.append(_Job(i, f, p.X[tr], p.y[tr], p.lots[tr], p.X[te], p.candidates, p.inputs, p.monotone,
+                             seed, alpha))
+        jobs.append(_Job(i, None, p.X, p.y, p.lots, None, p.candidates, p.inputs, p.monotone, seed, alpha))
+    return jobs
+
+
+def _run_all(jobs: list[_Job], n_jobs: int, progress) -> list[dict]:
+    total = len(jobs)
+    if progress is not None:
+        progress("cross-validating", 0, total)
+    results = []
+    if n_jobs == 1:
+        stream = map(_run_job, jobs)
+    else:
+        from joblib import Parallel, delayed
+
+        stream = Parallel(n_jobs=n_jobs, return_as="generator")(delayed(_run_job)(j) for j in jobs)
+    for done, res in enumerate(stream, start=1):
+        results.append(res)
+        if progress is not None:
+            progress("cross-validating", done, total)
+    return results
+
+
+def _finish_target(plan: _Plan, fold_results: list[dict], full: dict, table: pd.DataFrame, seed: int,
+                   nominal: float) -> FittedTarget:
+    y, lots = plan.y, [str(v) for v in plan.lots]
+    n = len(y)
+    unavailable = dict(plan.unavailable)
+    usable = []
+    for name in plan.candidates:
+        errors = [r[name]["error"] for r in fold_results + [full] if "error" in r[name]]
+        if errors:
+            unavailable[name] = errors[0]
+        else:
+            usable.append(name)
+    fold_of = np.empty(n, dtype=int)
+    for f, (_, te) in enumerate(plan.splits):
+        fold_of[te] = f
+    floor, floor_method = noise_floor(table[table["lot"].isin(lots)], plan.target)
+
+    oof = pd.DataFrame({"observed": y}, index=pd.Index(lots, name="lot"))
+    results: dict[str, dict] = {}
+    coverage: dict[str, float] = {}
+    infinite: dict[str, int] = {}
+    for name in usable:
+        pred, low, high = np.empty(n), np.empty(n), np.empty(n)
+        for f, (_, te) in enumerate(plan.splits):
+            r = fold_results[f][name]
+            pred[te], low[te], high[te] = r["pred"], r["low"], r["high"]
+        oof[name] = pred
+        m = metrics(y, pred)
+        m["rmse_over_noise"] = (m["rmse"] / floor) if floor else None
+        covered = (low <= y) & (y <= high)
+        coverage[name] = float(np.mean(covered))
+        infinite[name] = int(np.sum(~np.isfinite(low) | ~np.isfinite(high)))
+        m["coverage"] = coverage[name]
+        results[name] = m
+    notes = list(plan.notes)
+    selected, details = select_candidate(results)
+    if results[selected]["q2"] is None and not any("Q²" in s for s in notes):
+        notes.append("Q² is undefined: the observed values have no variance")
+    if infinite[selected]:
+        notes.append(f"{infinite[selected]} of {n} nested CV+ intervals were unbounded (too few lots for the "
+                     f"{nominal:.0%} level); they count as covering")
+    residuals = pd.Series(y - oof[selected].to_numpy(), index=oof.index, name=plan.target)
+    vip = None
+    if "pls" in usable:
+        vip = {c: float(v) for c, v in zip(plan.inputs, full["pls"]["model"].vip_)}
+    rd = full["rd_baseline"]["model"].params_ if "rd_baseline" in usable else None
+    folds = {lot: int(f) for lot, f in zip(lots, fold_of)}
+    return FittedTarget(
+        target=plan.target, stage=plan.stage, inputs=list(plan.inputs), selected=selected,
+        selection_rule=details["rule"], selection={k: v for k, v in details.items() if k != "rule"},
+        candidates=results, unavailable=unavailable, noise_floor=floor, noise_floor_method=floor_method,
+        n_lots=n, lots=lots,
+        cv={"scheme": plan.scheme, "n_splits": len(plan.splits), "seed": seed, "folds": folds,
+            "inner": "grouped 5-fold (scikit-learn GroupKFold, fewer folds when fewer lots)"},
+        oof=oof, residuals=residuals, nominal_coverage=nominal, coverage=coverage[selected],
+        coverage_method=COVERAGE_METHOD, infinite_intervals=infinite[selected], vip=vip, rd_params=rd,
+        hyperparameters={
+            "full_data": {name: full[name]["params"] for name in usable},
+            "selected_by_fold": [fold_results[f][selected]["params"] for f in range(len(plan.splits))],
+        },
+        notes=notes,
+        model_=full[selected]["model"],
+        fold_models_=[fold_results[f][selected]["model"] for f in range(len(plan.splits))],
+        fold_of_=fold_of,
+        full_models_={name: full[name]["model"] for name in usable},
+    )
+
+
+def _training_record(table: pd.DataFrame, chain: ChainSpec, raw: pd.DataFrame, notes: list[str]) -> dict:
+    cols = list(dict.fromkeys(chain.root_inputs() + chain.targets()))
+    medians, ranges = {}, {}
+    for c in cols:
+        v = table[c].to_numpy(float)
+        v = v[np.isfinite(v)]
+        medians[c] = float(np.median(v)) if v.size else None
+        ranges[c] = (float(v.min()), float(v.max())) if v.size else None
+    rec = {
+        "lots": [str(v) for v in table["lot"]],
+        "n_lots": int(len(table)),
+        "table_sha256": table_sha256(raw),
+        "medians": medians,
+        "ranges": ranges,
+        "notes": notes,
+    }
+    if "product" in raw.columns:
+        rec["products"] = sorted({str(v) for v in raw["product"].dropna()})
+    if "manufactured_at" in raw.columns:
+        t = pd.to_datetime(raw["manufactured_at"], errors="coerce", utc=True).dropna()
+        if len(t):
+            rec["manufactured"] = [t.min().isoformat(), t.max().isoformat()]
+    return rec
+
+
+def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: int = 0,
+                nominal_coverage: float = 0.9, progress: Callable[[str, int, int], None] | None = None,
+                n_jobs: int = 1, candidates: list[str] | None = None) -> FittedChain:
+    """Train every target of the chain on the assembled table.
+
+    Parameters
+    ----------
+    table : the assembled table, one row per lot (column ``lot`` plus the
+        numeric columns the chain names; NaN = missing).
+    chain : the stages (default :meth:`ChainSpec.default`).
+    seed : seed of the outer fold permutation (and of the boosting
+        estimator); the same table, chain and seed give byte-identical
+        CV results and predictions.
+    nominal_coverage : level of the CV+ intervals whose empirical coverage
+        is reported.
+    progress : called as ``progress(label, done, total)`` after each fold
+        job (and once with ``done = 0`` before the first).
+    n_jobs : parallel jobs (joblib); 1 runs in this process.
+    candidates : candidate names to try (default all); ``mean`` is always
+        included as the floor.
+
+    Raises
+    ------
+    InputError
+        The table breaks a rule (duplicate or empty lot, a value that is not a
+        number); every problem at once.
+    InsufficientDataError
+        No target has enough lots (every reason listed).
+    """
+    chain = chain if chain is not None else ChainSpec.default()
+    if not isinstance(chain, ChainSpec):
+        raise TypeError("chain must be a ChainSpec")
+    nominal = float(nominal_coverage)
+    if not 0 < nominal < 1:
+        raise UsageError(f"nominal coverage must lie strictly between 0 and 1; got {nominal_coverage}")
+    if not isinstance(n_jobs, int) or n_jobs == 0:
+        raise UsageError(f"n_jobs must be a non-zero integer; got {n_jobs}")
+    names = _candidate_names(candidates)
+    created_at = datetime.now(timezone.utc).isoformat(timespec="microseconds")
+    data, notes = _prepare(table, chain)
+
+    plans: list[_Plan] = []
+    skipped: dict[str, str] = {}
+    for st in chain.stages:
+        for target in st.targets:
+            p = _plan_target(data, st, target, names, seed)
+            if isinstance(p, str):
+                skipped[target] = p
+            else:
+                plans.append(p)
+    if not plans:
+        raise InsufficientDataError(
+            "no attribute can be trained:\n" + "\n".join(f"  - {t}: {why}" for t, why in skipped.items()))
+
+    alpha = 1 - nominal
+    jobs = _jobs(plans, seed, alpha)
+    results = _run_all(jobs, n_jobs, progress)
+    folds: dict[int, list] = {i: [] for i in range(len(plans))}
+    full: dict[int, dict] = {}
+    for job, res in zip(jobs, results):
+        if job.fold is None:
+            full[job.plan] = res
+        else:
+            folds[job.plan].append(res)
+    fitted = {p.target: _finish_target(p, folds[i], full[i], data, seed, nominal) for i, p in enumerate(plans)}
+
+    stages = []
+    for st in chain.stages:
+        targets = {t: fitted[t] for t in st.targets if t in fitted}
+        domain = None
+        if targets:
+            X = data[list(st.inputs)]
+            have = np.all(np.isfinite(X.to_numpy(float)), axis=1)
+            Y = data.loc[have, list(targets)].to_numpy(float)
+            domain = DomainModel.fit(X[have].reset_index(drop=True), y=Y, alpha=DOMAIN_ALPHA)
+        stages.append(FittedStage(name=st.name, inputs=list(st.inputs), targets=targets, domain=domain,
+                                  skipped={t: skipped[t] for t in st.targets if t in skipped}))
+    return FittedChain(
+        chain=chain, stages=stages, targets=fitted, skipped=skipped,
+        training=_training_record(data, chain, table, notes), library_versions=_library_versions(),
+        seed=int(seed), nominal_coverage=nominal, created_at=created_at,
+    )

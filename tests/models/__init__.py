@@ -1,0 +1,1 @@
+"""Tests of linkage.models and the train/models commands."""

@@ -1,0 +1,147 @@
+"""``linkage train`` and ``linkage models`` through the command line."""
+
+from __future__ import annotations
+
+import json
+import shutil
+
+import pytest
+from click.testing import CliRunner
+
+from linkage import CAUTION
+from linkage.cli.main import cli
+
+from .conftest import assembled_table
+
+
+def run(*args, env=None):
+    result = CliRunner().invoke(cli, [str(a) for a in args], env=env)
+    if result.exception is not None and not isinstance(result.exception, SystemExit):
+        raise result.exception
+    return result
+
+
+@pytest.mark.parametrize("command", ["train", "models"])
+def test_help_has_an_example(command):
+    result = run(command, "--help")
+    assert result.exit_code == 0
+    assert "Example:" in result.output and f"linkage {command}" in result.output
+
+
+@pytest.fixture
+def fake_store(monkeypatch):
+    """train reads the store through linkage.store and linkage.assemble; here
+    both hand back a table of our own so the command alone is tested."""
+    import linkage.assemble
+    import linkage.store
+
+    table = assembled_table(12, seed=6)
+    seen = {}
+
+    class FakeStore:
+        def __init__(self, path, create=True):
+            seen["store"], seen["create"] = path, create
+
+        def __enter__(self):
+            return self
+
+        def __exit__(self, *exc):
+            return None
+
+        def current_tables(self, product=None):
+            seen["product"] = product
+            return {"process": table}
+
+    def fake_assemble(tables, dissolution_time_min=30.0, **kwargs):
+        seen["time"] = dissolution_time_min
+        return table
+
+    monkeypatch.setattr(linkage.store, "LotStore", FakeStore)
+    monkeypatch.setattr(linkage.assemble, "assemble", fake_assemble)
+    return seen
+
+
+def test_train_json_and_text(fake_store, tmp_path):
+    chain = tmp_path / "chain.toml"
+    chain.write_text('[[stage]]\nname = "tablets"\ninputs = ["ribbon_porosity", "compression_force_kn"]\n'
+                     'targets = ["dissolution_pct", "friability_pct"]\n')
+    models = tmp_path / "models"
+    res = run("train", "--store", tmp_path / "s.db", "--models-dir", models, "--chain", chain, "--product", "P1",
+              "--seed", 3, "--coverage", 0.8, "--dissolution-time", 45, "--json")
+    assert res.exit_code == 0, res.output
+    assert fake_store == {"store": tmp_path / "s.db", "create": False, "product": "P1", "time": 45.0}
+    data = json.loads(res.stdout)
+    assert (models / data["model_id"] / "chain.joblib").exists()
+    t = data["targets"]["dissolution_pct"]
+    for key in ("n_lots", "cv", "candidates", "noise_floor", "selected", "nominal_coverage", "coverage"):
+        assert key in t
+    assert t["n_lots"] == 12 and t["cv"]["scheme"] == "leave-one-lot-out" and t["cv"]["seed"] == 3
+    assert set(t["cv"]["folds"]) == {f"L{i:03d}" for i in range(12)}
+    assert t["nominal_coverage"] == 0.8
+    assert set(t["candidates"]["pls"]) >= {"rmse", "mae", "q2", "bias"}
+    assert data["targets"]["friability_pct"]["noise_floor"] is None
+    assert data["caution"] == CAUTION
+
+    chain.write_text('[[stage]]\nname = "tablets"\ninputs = ["ribbon_porosity", "compression_force_kn"]\n'
+                     'targets = ["dissolution_pct"]\n')
+    text = run("train", "--store", tmp_path / "s.db", "--models-dir", models, "--chain", chain)
+    assert text.exit_code == 0, text.output
+    out = text.stdout
+    assert "dissolution_pct  [tablets stage; 12 lots; leave-one-lot-out" in out
+    assert "rd_baseline" in out and "noise floor:" in out and "selected:" in out
+    assert "empirical coverage" in out and CAUTION in out
+
+
+def test_models_lists_and_imports(fake_store, tmp_path):
+    models = tmp_path / "models"
+    empty = run("models", "--models-dir", models)
+    assert empty.exit_code == 0 and "No models yet" in empty.output
+    chain = tmp_path / "chain.toml"
+    chain.write_text('[[stage]]\nname = "tablets"\ninputs = ["ribbon_porosity"]\ntargets = ["dissolution_pct"]\n')
+    assert run("train", "--store", tmp_path / "s.db", "--models-dir", models, "--chain", chain).exit_code == 0
+    listing = json.loads(run("models", "--models-dir", models, "--json").stdout)
+    (row,) = listing["models"]
+    assert row["status"] == "ok" and row["latest"] and row["n_lots"] == 12
+    assert row["targets"]["dissolution_pct"] in {"mean", "rd_baseline", "pls", "quadratic_ridge", "boosting"}
+
+    other = tmp_path / "other"
+    other.mkdir()
+    shutil.copytree(models / row["model_id"], other / row["model_id"])
+    text = run("models", "--models-dir", other)
+    assert "foreign" in text.output
+    no_note = run("models", "--models-dir", other, "--import", other / row["model_id"])
+    assert no_note.exit_code == 2 and "--note" in no_note.output
+    imp = run("models", "--models-dir", other, "--import", other / row["model_id"], "--note", "from models/")
+    assert imp.exit_code == 0 and row["model_id"] in imp.output
+    assert "imported from" in run("models", "--models-dir", other).output
+
+
+def test_train_errors_become_messages(tmp_path):
+    res = run("train", "--store", tmp_path / "none.db", "--models-dir", tmp_path / "m")
+    assert res.exit_code != 0 and "Error:" in res.output and "no lot store" in res.output
+    bad = tmp_path / "chain.toml"
+    bad.write_text("[[stage]]\nname = 'x'\n")
+    res = run("train", "--store", tmp_path / "none.db", "--models-dir", tmp_path / "m", "--chain", bad)
+    assert res.exit_code == 2 and "'inputs' must be a non-empty list" in res.output
+
+
+def test_ingest_then_train_on_synthetic_lots(tmp_path):
+    """End to end through the real store and assembler (written by other
+    modules): synthetic lots -> ingest -> train --json (two stages, to stay fast)."""
+    synthetic = pytest.importorskip("linkage.synthetic")
+    lots = synthetic.make_lots(12, seed=2, with_vessels=True)
+    folder = tmp_path / "lab"
+    lots.write_csv(folder)
+    db = tmp_path / "s.db"
+    assert run("ingest", folder, "--store", db).exit_code == 0
+    chain = tmp_path / "chain.toml"
+    chain.write_text('[[stage]]\nname = "ribbon"\ninputs = ["roll_force_kn_per_cm", "roll_gap_mm"]\n'
+                     'targets = ["ribbon_porosity"]\n\n[[stage]]\nname = "tablets"\n'
+                     'inputs = ["ribbon_porosity", "compression_force_kn"]\ntargets = ["dissolution_pct"]\n')
+    res = run("train", "--store", db, "--models-dir", tmp_path / "models", "--chain", chain, "--json")
+    assert res.exit_code == 0, res.output
+    data = json.loads(res.stdout)
+    assert set(data["targets"]) == {"ribbon_porosity", "dissolution_pct"}
+    assert data["targets"]["dissolution_pct"]["noise_floor"] is not None  # from the vessels
+    assert data["targets"]["ribbon_porosity"]["noise_floor"] is not None  # from the ribbon replicates
+    assert data["n_lots"] == 12
