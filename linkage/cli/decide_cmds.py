@@ -8,7 +8,7 @@ from pathlib import Path
 import click
 
 from linkage import CAUTION
-from linkage.cli.common import handle_errors, json_option, models_dir_option
+from linkage.cli.common import handle_errors, json_option, models_dir_option, store_option
 
 _model_option = click.option("--model", "model_id", default="latest", show_default=True,
                              help="Model id from 'linkage models', or 'latest'.")
@@ -27,9 +27,10 @@ _set_option = click.option("--set", "assignments", multiple=True, metavar="NAME=
               help="Monte Carlo draws per porosity.")
 @click.option("--seed", default=0, show_default=True, type=int)
 @models_dir_option
+@store_option
 @json_option
 @handle_errors
-def window(spec_path, model_id, assignments, confidence, n_draws, seed, models_dir, as_json):
+def window(spec_path, model_id, assignments, confidence, n_draws, seed, models_dir, store, as_json):
     """Find the ribbon porosity window where every specification passes
     with the stated confidence, and the roll force that lands in it.
 
@@ -50,6 +51,9 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, models_d
     settings = parse_assignments(list(assignments))
     chain = load(models_dir, model_id)
     result = find_window(chain, spec, settings=settings, confidence=confidence, n_draws=n_draws, seed=seed)
+    record(store, "window", model_id=result.model_id,
+           inputs={"spec": spec.to_dict(), "settings": settings, "confidence": confidence, "seed": seed},
+           outputs=result.to_dict(curve=False))
     if as_json:
         click.echo(json.dumps(result.to_dict(), indent=2))
         return
@@ -105,11 +109,14 @@ def format_window(result) -> str:
               help="Predict every row of a CSV whose columns are names.")
 @click.option("--html", "html_path", type=click.Path(dir_okay=False, path_type=Path),
               help="Write a one-page what-if sheet (one row only).")
+@click.option("--lot", default=None, help="The lot this what-if is for; its results, when they arrive, are "
+              "compared with the prediction ('linkage watch').")
 @click.option("--seed", default=0, show_default=True, type=int)
 @models_dir_option
+@store_option
 @json_option
 @handle_errors
-def predict(model_id, assignments, spec_path, level, from_csv, html_path, seed, models_dir, as_json):
+def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, seed, models_dir, store, as_json):
     """What-if: predict every downstream attribute from settings and/or
     measured values, with intervals, the chance of passing each specification
     and the applicability-domain verdict.
@@ -119,7 +126,13 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, seed, 
       linkage predict --set roll_force_kn_per_cm=9 --set roll_gap_mm=2.5 --spec spec.toml
       linkage predict --set ribbon_porosity=0.31 --spec spec.toml --html whatif.html
       linkage predict --from-csv planned.csv --json
+      linkage predict --set ribbon_porosity=0.29 --lot Q26-049 --spec spec.toml
+
+    Every what-if is recorded in the lot store (when it exists) with the
+    model id, the inputs and the outputs.
     """
+    import pandas as pd
+
     from linkage.decide.whatif import parse_assignments, predict_many, predict_whatif
     from linkage.exceptions import UsageError
     from linkage.models.registry import load
@@ -136,13 +149,23 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, seed, 
             raise UsageError("give either --set or --from-csv, not both")
         if html_path is not None:
             raise UsageError("--html writes one sheet for one what-if; use it without --from-csv")
-        import pandas as pd
-
-        results = predict_many(chain, pd.read_csv(from_csv), spec=spec, level=level, seed=seed)
+        try:
+            rows = pd.read_csv(from_csv, dtype={"lot": str})
+        except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError, ValueError) as exc:
+            raise UsageError(f"{from_csv} cannot be read as a CSV of names and values ({exc})") from None
+        # a 'lot' column names the lot each row is for; it is not a model input
+        row_lots = list(rows["lot"].astype(str)) if "lot" in rows and lot is None else [lot] * len(rows)
+        results = predict_many(chain, rows.drop(columns=["lot"], errors="ignore"), spec=spec, level=level,
+                               seed=seed)
     else:
         if not values:
             raise UsageError("nothing to predict from: give --set NAME=VALUE (or --from-csv)")
         results = [predict_whatif(chain, values, spec=spec, level=level, seed=seed)]
+        row_lots = [lot]
+    for r, row_lot in zip(results, row_lots):
+        d = r.to_dict()
+        record(store, "predict", model_id=d["model_id"], lot=row_lot, inputs=d["inputs"], outputs=d,
+               prediction=True)
     if html_path is not None:
         from linkage.report.sheet import whatif_html
 
@@ -179,3 +202,18 @@ def format_whatif(result) -> str:
         lines.append(f"P(every specification passes together): {probability_text(d['p_pass_all'])}")
     lines.append(CAUTION)
     return "\n".join(lines)
+
+
+def record(store, action: str, *, model_id: str, inputs, outputs, lot: str | None = None,
+           prediction: bool = False) -> None:
+    """Write to the store's audit trail (and its predictions table for a
+    what-if) when the store exists; say so on stderr when it does not."""
+    from linkage.store import LotStore
+
+    if not store.exists():
+        click.echo(f"Note: no lot store at {store}; this {action} was not recorded in an audit trail.", err=True)
+        return
+    with LotStore(store, create=False) as s:
+        if prediction:
+            s.record_prediction(model_id, inputs, outputs, lot=lot)
+        s.log(action, lot=lot, model_id=model_id, inputs=inputs, outputs=outputs)

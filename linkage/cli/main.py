@@ -25,6 +25,9 @@ COMMANDS: dict[str, str] = {
     "window": "linkage.cli.decide_cmds:window",
     "predict": "linkage.cli.decide_cmds:predict",
     "report": "linkage.cli.report_cmds:report",
+    "retrain": "linkage.cli.lifecycle_cmds:retrain",
+    "watch": "linkage.cli.lifecycle_cmds:watch",
+    "audit": "linkage.cli.lifecycle_cmds:audit",
 }
 
 

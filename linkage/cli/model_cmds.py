@@ -141,7 +141,15 @@ def train(store, models_dir, chain_path, product, seed, coverage, dissolution_ti
     finally:
         if bar is not None:
             bar.__exit__(None, None, None)
-    save(fitted, models_dir)
+    model_id = save(fitted, models_dir)
+    with LotStore(store, create=False) as lot_store:
+        lot_store.log("train", model_id=model_id,
+                      inputs={"models_dir": str(models_dir), "product": product, "seed": seed,
+                              "coverage": coverage, "chain": fitted.chain.to_toml(),
+                              "lots": list(fitted.training["lots"]),
+                              "table_sha256": fitted.training["table_sha256"]},
+                      outputs={t: {"selected": v.selected, "coverage": v.coverage}
+                               for t, v in fitted.targets.items()})
     if as_json:
         click.echo(json.dumps(train_json(fitted), indent=2, allow_nan=False, ensure_ascii=False))
     else:
@@ -156,7 +164,7 @@ def format_models(rows: list[dict]) -> str:
         created = (r.get("created_at") or "")[:19].replace("T", " ")
         lots = r.get("n_lots")
         sel = ", ".join(f"{t}: {m}" for t, m in (r.get("targets") or {}).items())
-        mark = "*" if r.get("latest") else " "
+        mark = "*" if r.get("latest") else ("-" if not r.get("in_service", True) else " ")
         lines.append(f"{mark} {r['model_id']:<30}{created:<21}{'' if lots is None else lots:>5}  "
                      f"{r['status']:<11}{sel}")
         if r.get("detail") and r["status"] != "ok":
@@ -164,7 +172,7 @@ def format_models(rows: list[dict]) -> str:
         src = r.get("source") or {}
         if src.get("kind") == "imported":
             lines.append(f"    imported from {src.get('from')}: {src.get('note')}")
-    lines.append("* = latest")
+    lines.append("* = latest; - = kept but not in service (a challenger that was not promoted)")
     return "\n".join(lines)
 
 

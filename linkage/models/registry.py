@@ -26,8 +26,11 @@ Rules:
   path, climbs out (``..``), or a folder that is a symbolic link, is refused.
 * A model folder copied in from elsewhere is "foreign" until
   :func:`import_model` records where it came from.
-* ``latest`` is the newest model (by creation time) that is in the index and
-  passes every check.
+* ``latest`` is the newest model (by creation time) that is in the index, is
+  in service and passes every check. ``linkage train`` puts its model in
+  service; a challenger from ``linkage retrain`` enters service only when it
+  is promoted, and stays in the registry (by id) when it is not. Every
+  retraining decision is appended to the index's ``decisions`` list.
 """
 
 from __future__ import annotations
@@ -45,7 +48,8 @@ from pathlib import Path
 
 from linkage.exceptions import ModelIntegrityError, ModelNotFoundError, UsageError
 
-__all__ = ["save", "load", "resolve", "list_models", "import_model", "verify", "INDEX", "ARTIFACT", "METADATA"]
+__all__ = ["save", "load", "resolve", "list_models", "import_model", "verify", "record_decision", "decisions",
+           "INDEX", "ARTIFACT", "METADATA"]
 
 INDEX = "registry.json"
 ARTIFACT = "chain.joblib"
@@ -225,8 +229,9 @@ def verify(models_dir, model_id: str, index: dict | None = None) -> tuple[dict, 
 
 
 def _ordered_ids(index: dict) -> list[str]:
-    """Index ids, newest first (creation time, then time of saving, then id)."""
-    models = index["models"]
+    """Ids of models in service, newest first (creation time, then time of
+    saving, then id). An entry without the flag predates it and is in service."""
+    models = {i: m for i, m in index["models"].items() if m.get("in_service", True)}
     return sorted(models, key=lambda i: (str(models[i].get("created_at", "")), str(models[i].get("saved_at", "")),
                                          i), reverse=True)
 
@@ -297,9 +302,11 @@ def _install(models_dir: Path, model_id: str, artifact: bytes, metadata: bytes) 
         raise
 
 
-def save(chain, models_dir) -> str:
+def save(chain, models_dir, *, in_service: bool = True) -> str:
     """Save a fitted chain; returns its new model id (``m-<UTC time>-<8 hex>``,
-    unique even within one second)."""
+    unique even within one second). ``in_service=False`` keeps it in the
+    registry without letting ``latest`` resolve to it (a challenger that was
+    not promoted)."""
     import joblib
 
     from linkage.models.fitted import FittedChain
@@ -329,6 +336,7 @@ def save(chain, models_dir) -> str:
             "created_at": chain.created_at,
             "saved_at": _now(),
             "source": {"kind": "trained"},
+            "in_service": bool(in_service),
         }
         index["format"] = FORMAT
         _write_index(models_dir, index)
@@ -364,7 +372,8 @@ def list_models(models_dir) -> list[dict]:
     rows: dict[str, dict] = {}
     for mid, entry in index["models"].items():
         row = {"model_id": mid, "created_at": entry.get("created_at"), "saved_at": entry.get("saved_at"),
-               "source": entry.get("source"), "status": "ok", "detail": None, "latest": False}
+               "source": entry.get("source"), "status": "ok", "detail": None, "latest": False,
+               "in_service": bool(entry.get("in_service", True))}
         try:
             meta, _ = verify(models_dir, mid, index)
             row.update(n_lots=meta.get("training", {}).get("n_lots"),
@@ -441,3 +450,22 @@ def import_model(src_dir, models_dir, source_note: str) -> str:
         index["format"] = FORMAT
         _write_index(models_dir, index)
     return model_id
+
+
+def record_decision(models_dir, decision: dict) -> None:
+    """Append a retraining decision (JSON-safe dict) to the index, with the
+    time it was recorded. Decisions are never rewritten."""
+    models_dir = Path(models_dir)
+    with _locked(models_dir):
+        index = _read_index(models_dir)
+        entry = {"recorded_at": _now(), **decision}
+        index.setdefault("decisions", []).append(json.loads(json.dumps(entry, allow_nan=False)))
+        _write_index(models_dir, index)
+
+
+def decisions(models_dir) -> list[dict]:
+    """Every retraining decision recorded in the registry, oldest first."""
+    models_dir = Path(models_dir)
+    if not models_dir.is_dir():
+        return []
+    return list(_read_index(models_dir).get("decisions", []))

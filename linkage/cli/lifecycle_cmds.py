@@ -1,0 +1,176 @@
+"""``linkage retrain``, ``linkage watch`` and ``linkage audit``."""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import click
+
+from linkage import CAUTION
+from linkage.cli.common import handle_errors, json_option, models_dir_option, store_option
+
+_spec_option = click.option("--spec", "spec_path", type=click.Path(exists=True, dir_okay=False, path_type=Path),
+                            help="Specification file; adds the porosity window to the comparison.")
+
+
+@click.command()
+@store_option
+@models_dir_option
+@_spec_option
+@click.option("--product", default=None, help="Product to retrain when the store holds several.")
+@click.option("--tolerance", default=0.10, show_default=True, type=float,
+              help="How much worse (fraction) any attribute's CV RMSE may be before promotion is refused.")
+@click.option("--force", is_flag=True, help="Promote the challenger whatever the rule says (needs --reason).")
+@click.option("--reason", default=None, help="Why the promotion is forced; recorded in the audit trail.")
+@json_option
+@handle_errors
+def retrain(store, models_dir, spec_path, product, tolerance, force, reason, as_json):
+    """Fit a challenger on every lot in the store, compare it with the
+    champion (the model in service) on the same grouped folds and on the lots
+    the champion never saw, and promote it only by the documented rule (or
+    with --force and a reason). Both models are kept; the decision and its
+    reasons go to the registry and the audit trail.
+
+    \b
+    Example:
+      linkage ingest lab_exports/june && linkage retrain --spec spec.toml
+      linkage retrain --force --reason "new API supplier qualified, see CC-118"
+    """
+    from linkage.decide.retrain import retrain as run_retrain
+
+    spec = None
+    if spec_path is not None:
+        from linkage.spec import read_spec
+
+        spec = read_spec(spec_path)
+    bar = None
+
+    def progress(label: str, done: int, total: int) -> None:
+        nonlocal bar
+        if bar is None:
+            bar = click.progressbar(length=total, label="Cross-validating the challenger", file=sys.stderr)
+            bar.__enter__()
+        bar.update(done - bar.pos)
+
+    try:
+        decision = run_retrain(store, models_dir, product=product, spec=spec, force=force, reason=reason,
+                               tolerance=tolerance, progress=progress)
+    finally:
+        if bar is not None:
+            bar.__exit__(None, None, None)
+    if as_json:
+        click.echo(json.dumps(decision.to_dict(), indent=2, allow_nan=False))
+        return
+    d = decision.to_dict()
+    verdict = "PROMOTED" if d["promoted"] else "NOT PROMOTED"
+    click.echo(f"Challenger {d['challenger_id']} {verdict}; champion was {d['champion_id']}.")
+    click.echo(f"New lots since the champion: {len(d['new_lots'])}")
+    for line in d["reasons"]:
+        click.echo(f"  - {line}")
+    if d["window_moved"]:
+        w = d["window_moved"]
+        for side in ("low", "high"):
+            a, b = w["champion"][side]["value"], w["challenger"][side]["value"]
+            if a is None or b is None:
+                click.echo(f"  window {side} edge: champion {a}, challenger {b}")
+            else:
+                click.echo(f"  window {side} edge: {a:.3f} -> {b:.3f} ({b - a:+.3f})")
+    for note in d["notes"]:
+        click.echo(f"Note: {note}")
+    click.echo(f"Rule: {d['rule']}")
+    click.echo(CAUTION)
+
+
+@click.command()
+@store_option
+@models_dir_option
+@click.option("--model", "model_id", default="latest", show_default=True)
+@_spec_option
+@click.option("--product", default=None)
+@json_option
+@handle_errors
+def watch(store, models_dir, model_id, spec_path, product, as_json):
+    """Drift watch: prediction residuals of every lot in time order on
+    Shewhart, EWMA and CUSUM charts with limits from the training lots;
+    ribbon porosity samples within each lot against the porosity window;
+    lot-mean porosity between lots; new lots outside the applicability
+    domain; recorded what-ifs against what the lots measured.
+
+    \b
+    Example:
+      linkage watch --spec spec.toml
+      linkage watch --json > drift.json
+    """
+    from linkage.assemble import assemble
+    from linkage.decide.watch import watch as run_watch
+    from linkage.models.registry import load
+    from linkage.store import LotStore
+
+    chain = load(models_dir, model_id)
+    spec = None
+    window = None
+    if spec_path is not None:
+        from linkage.decide.window import find_window
+        from linkage.spec import read_spec
+
+        spec = read_spec(spec_path)
+        w = find_window(chain, spec)
+        window = (w.low.value, w.high.value) if w.found else None
+    with LotStore(store, create=False) as s:
+        tables = s.current_tables(product)
+        recorded = s.predictions()
+    table = assemble(tables, dissolution_time_min=spec.dissolution_time_min if spec else 30.0)
+    result = run_watch(chain, table, ribbon=tables.get("ribbon"), window=window, recorded=recorded)
+    with LotStore(store, create=False) as s:
+        s.log("watch", model_id=chain.model_id, inputs={"window": window, "product": product},
+              outputs={"alarms": result.alarms, "new_lots": result.new_lots})
+    if as_json:
+        click.echo(json.dumps(result.to_dict(), indent=2, allow_nan=False))
+        return
+    click.echo(f"Model {result.model_id}; {len(table)} lots, {len(result.new_lots)} since training.")
+    if window:
+        click.echo(f"Porosity window used for ribbon samples: {window[0]:.3f}–{window[1]:.3f}")
+    alarms = result.alarms
+    if not alarms:
+        click.echo("No alarm on the lots since training.")
+    else:
+        click.echo(f"{len(alarms)} alarm(s) on lots since training:")
+        for a in alarms:
+            click.echo(f"  ! {a}")
+    for p in result.predictions:
+        mark = "inside" if p["inside_interval"] else "OUTSIDE"
+        click.echo(f"  what-if for {p['lot']}: {p['attribute']} predicted {p['predicted']:.4g} "
+                   f"[{p['low']:.4g}, {p['high']:.4g}], measured {p['measured']:.4g} ({mark} the interval)")
+    click.echo(CAUTION)
+
+
+@click.command()
+@store_option
+@click.option("--lot", default=None, help="Only entries about this lot.")
+@json_option
+@handle_errors
+def audit(store, lot, as_json):
+    """The audit trail: every ingest, training, promotion, window and
+    prediction, with who, when, inputs, model id and outputs. Entries are
+    append-only.
+
+    \b
+    Example:
+      linkage audit
+      linkage audit --lot Q26-017 --json
+    """
+    from linkage.store import LotStore
+
+    with LotStore(store, create=False) as s:
+        rows = s.audit(lot)
+    if as_json:
+        click.echo(json.dumps(rows, indent=2, default=str))
+        return
+    if not rows:
+        click.echo("No audit entries" + (f" for lot {lot}." if lot else "."))
+        return
+    for r in rows:
+        click.echo(f"{r['id']:>5}  {r['at']}  {r['user']:<12} {r['action']:<9} "
+                   f"{r['lot'] or '':<12} {r['model_id'] or ''}")

@@ -1,0 +1,230 @@
+"""Retraining with a champion and a challenger.
+
+When new lots have arrived, a challenger is fitted on every lot with the
+champion's chain file and seed. The two are compared two ways:
+
+- **On the same grouped folds.** The challenger's outer CV covers every lot;
+  the champion's *choice* of model for each attribute (its selected
+  candidate) was cross-validated on those same folds as one of the
+  challenger's candidates. Comparing the challenger's selection with that
+  number compares like with like: same lots, same folds. (The champion's
+  fitted models cannot be scored on those folds: they saw most of the lots.)
+- **Prospectively.** The champion's predictions for the lots it never saw,
+  from their measured stage inputs, against what those lots measured.
+
+Promotion rule (:data:`RULE`), per attribute with ``r_new`` the challenger's
+CV RMSE, ``r_old`` the CV RMSE of the champion's choice on the same folds,
+``se`` the standard error of ``r_new`` across folds and ``tol`` the
+tolerance (10 % by default):
+
+1. not worse beyond noise: ``r_new <= r_old + se`` for every attribute, and
+2. no attribute worse beyond the tolerance: ``r_new <= (1 + tol) * r_old``.
+
+The challenger is promoted only when both hold, or when ``force`` is given
+with a reason. Both models stay in the registry, and the decision with its
+reasons is written to the registry and to the store's audit trail.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from linkage import CAUTION
+from linkage.exceptions import InsufficientDataError, UsageError
+
+RULE = ("promote when, for every attribute, the challenger's grouped-CV RMSE is no worse than the CV RMSE "
+        "of the champion's model choice on the same folds plus one standard error, and no worse than "
+        "(1 + tolerance) times it; or when forced with a reason")
+DEFAULT_TOLERANCE = 0.10
+
+
+@dataclass
+class Comparison:
+    attribute: str
+    challenger_selected: str
+    champion_selected: str
+    challenger_rmse: float
+    champion_choice_rmse: float | None
+    challenger_rmse_se: float | None
+    champion_cv_rmse: float | None
+    prospective_rmse: float | None
+    prospective_bias: float | None
+    n_new: int
+    within_noise: bool
+    within_tolerance: bool
+
+    def to_dict(self) -> dict:
+        return {k: (None if isinstance(v, float) and not np.isfinite(v) else v) for k, v in self.__dict__.items()}
+
+
+@dataclass
+class RetrainDecision:
+    champion_id: str
+    challenger_id: str | None
+    promoted: bool
+    forced: bool
+    reason: str
+    reasons: list[str]
+    rule: str
+    tolerance: float
+    new_lots: list[str]
+    comparisons: list[Comparison]
+    window_moved: dict | None = None
+    notes: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        return {
+            "champion_id": self.champion_id,
+            "challenger_id": self.challenger_id,
+            "promoted": self.promoted,
+            "forced": self.forced,
+            "reason": self.reason,
+            "reasons": self.reasons,
+            "rule": self.rule,
+            "tolerance": self.tolerance,
+            "new_lots": self.new_lots,
+            "targets": {c.attribute: c.to_dict() for c in self.comparisons},
+            "window_moved": self.window_moved,
+            "notes": self.notes,
+            "caution": CAUTION,
+        }
+
+
+def prospective_errors(champion, table: pd.DataFrame, attribute: str) -> tuple[float | None, float | None, int]:
+    """RMSE and bias of the champion on lots it never saw (measured inputs)."""
+    target = champion.targets[attribute]
+    seen = set(champion.training["lots"])
+    rows = table[~table["lot"].astype(str).isin(seen)].dropna(subset=[attribute, *target.inputs])
+    if rows.empty:
+        return None, None, 0
+    err = rows[attribute].to_numpy(float) - np.asarray(target.predict(rows[target.inputs]), float)
+    return float(np.sqrt(np.mean(err ** 2))), float(np.mean(err)), len(rows)
+
+
+def compare(champion, challenger, table: pd.DataFrame, *, tolerance: float = DEFAULT_TOLERANCE) -> list[Comparison]:
+    out = []
+    for name, new in challenger.targets.items():
+        old = champion.targets.get(name)
+        r_new = float(new.candidates[new.selected]["rmse"])
+        se = new.candidates[new.selected].get("rmse_se")
+        se = float(se) if se is not None and np.isfinite(se) else 0.0
+        if old is None:
+            out.append(Comparison(name, new.selected, "-", r_new, None, se, None, None, None, 0, True, True))
+            continue
+        choice = new.candidates.get(old.selected)
+        r_old = float(choice["rmse"]) if choice is not None else None
+        p_rmse, p_bias, n_new = prospective_errors(champion, table, name)
+        old_cv = old.candidates[old.selected]["rmse"]
+        if r_old is None:
+            within_noise = within_tol = True  # the champion's choice is not among the candidates now
+        else:
+            within_noise = r_new <= r_old + se + 1e-12
+            within_tol = r_new <= (1 + tolerance) * r_old + 1e-12
+        out.append(Comparison(name, new.selected, old.selected, r_new, r_old, se, float(old_cv), p_rmse, p_bias,
+                              n_new, within_noise, within_tol))
+    return out
+
+
+def decide(comparisons: list[Comparison], *, force: bool = False, reason: str | None = None,
+           tolerance: float = DEFAULT_TOLERANCE) -> tuple[bool, list[str]]:
+    """Apply :data:`RULE`; returns (promote, reasons)."""
+    reasons = []
+    ok = True
+    for c in comparisons:
+        if c.champion_choice_rmse is None:
+            reasons.append(f"{c.attribute}: new attribute or model choice; nothing to compare with")
+            continue
+        line = (f"{c.attribute}: challenger {c.challenger_selected} CV RMSE {c.challenger_rmse:.4g} "
+                f"(SE {c.challenger_rmse_se:.2g}) vs champion's choice {c.champion_selected} "
+                f"{c.champion_choice_rmse:.4g} on the same folds")
+        if not c.within_noise:
+            line += "; WORSE beyond one standard error"
+            ok = False
+        if not c.within_tolerance:
+            line += f"; WORSE by more than {tolerance:.0%}"
+            ok = False
+        if c.prospective_rmse is not None:
+            line += (f"; champion on {c.n_new} unseen lots: RMSE {c.prospective_rmse:.4g}, bias "
+                     f"{c.prospective_bias:+.3g} (its CV RMSE {c.champion_cv_rmse:.4g})")
+        reasons.append(line)
+    if force:
+        if not reason or not reason.strip():
+            raise UsageError("--force needs a reason (--reason TEXT); it is recorded in the audit trail")
+        reasons.insert(0, f"promotion forced: {reason.strip()}")
+        return True, reasons
+    reasons.insert(0, "the challenger meets the promotion rule" if ok else
+                   "the challenger does not meet the promotion rule; the champion stays")
+    return ok, reasons
+
+
+def window_moved(champion, challenger, spec, *, settings=None, confidence: float = 0.9) -> dict:
+    """Both windows at the same settings, and how far each edge moved."""
+    from linkage.decide.window import find_window
+
+    a = find_window(champion, spec, settings=settings, confidence=confidence)
+    b = find_window(challenger, spec, settings=settings, confidence=confidence)
+
+    def edge(w, side):
+        e = getattr(w, side)
+        return {"value": e.value, "limited_by": e.limited_by}
+
+    moved = {}
+    for side in ("low", "high"):
+        x, y = getattr(a, side).value, getattr(b, side).value
+        moved[side] = None if x is None or y is None else y - x
+    return {"confidence": confidence, "champion": {"low": edge(a, "low"), "high": edge(a, "high")},
+            "challenger": {"low": edge(b, "low"), "high": edge(b, "high")}, "moved": moved}
+
+
+def retrain(store_path, models_dir, *, product: str | None = None, spec=None, force: bool = False,
+            reason: str | None = None, tolerance: float = DEFAULT_TOLERANCE, seed: int | None = None,
+            user: str | None = None, progress=None) -> RetrainDecision:
+    """Fit a challenger on every lot, compare, promote by the rule, record."""
+    from linkage.assemble import assemble
+    from linkage.models import registry
+    from linkage.models.train import train_chain
+    from linkage.store import LotStore
+
+    if not 0 <= tolerance < 1:
+        raise UsageError(f"tolerance must lie in [0, 1); got {tolerance}")
+    if force and (not reason or not reason.strip()):
+        raise UsageError("--force needs a reason (--reason TEXT); it is recorded in the audit trail")
+    champion = registry.load(models_dir, "latest")
+    with LotStore(store_path, create=False) as store:
+        tables = store.current_tables(product)
+    q = spec.limits["dissolution_pct"].min if spec is not None and "dissolution_pct" in spec.limits else None
+    table = assemble(tables, dissolution_time_min=spec.dissolution_time_min if spec is not None else 30.0,
+                     dissolution_q_pct=q)
+    seen = set(champion.training["lots"])
+    new_lots = [lot for lot in table["lot"].astype(str) if lot not in seen]
+    notes = []
+    if not new_lots:
+        notes.append("no lots beyond the champion's training lots; the challenger sees the same data")
+    if len(table) < 3:
+        raise InsufficientDataError(f"{len(table)} lots in the store; retraining needs at least 3")
+    challenger = train_chain(table, champion.chain, seed=champion.seed if seed is None else seed,
+                             nominal_coverage=champion.nominal_coverage, progress=progress)
+    comparisons = compare(champion, challenger, table, tolerance=tolerance)
+    promote, reasons = decide(comparisons, force=force, reason=reason, tolerance=tolerance)
+    moved = None
+    if spec is not None:
+        try:
+            moved = window_moved(champion, challenger, spec)
+        except UsageError as exc:
+            notes.append(f"window not compared: {exc}")
+    challenger_id = registry.save(challenger, models_dir, in_service=promote)
+    decision = RetrainDecision(
+        champion_id=champion.model_id, challenger_id=challenger_id, promoted=promote, forced=force,
+        reason=(reason or "").strip(), reasons=reasons, rule=RULE, tolerance=tolerance, new_lots=new_lots,
+        comparisons=comparisons, window_moved=moved, notes=notes,
+    )
+    registry.record_decision(models_dir, decision.to_dict())
+    with LotStore(store_path, create=False) as store:
+        store.log("promote" if promote else "retrain", user=user, model_id=challenger_id,
+                  inputs={"champion": champion.model_id, "force": force, "reason": decision.reason,
+                          "tolerance": tolerance, "new_lots": new_lots},
+                  outputs={"promoted": promote, "reasons": reasons, "window_moved": moved})
+    return decision

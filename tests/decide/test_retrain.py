@@ -1,0 +1,142 @@
+"""Champion and challenger (issue 6): the promotion rule, the recorded
+decision, and the window moving the right way after a raw-material change."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+from click.testing import CliRunner
+
+from linkage.cli.main import cli
+from linkage.decide.retrain import Comparison, decide
+from linkage.exceptions import UsageError
+from linkage.models import registry
+from linkage.read import read_folder
+from linkage.spec import Limit, Spec
+from linkage.store import LotStore
+from linkage.synthetic import WINDOW_SPEC, Truth, make_lots, spec_toml
+
+CHANGE_AT = 60
+
+
+def _comparison(r_new, r_old, se, name="dissolution_pct"):
+    return Comparison(name, "pls", "pls", r_new, r_old, se, r_old, None, None, 0,
+                      r_new <= r_old + se, r_new <= 1.1 * r_old)
+
+
+def test_rule_promotes_when_not_worse_beyond_noise_and_tolerance():
+    ok, reasons = decide([_comparison(2.05, 2.0, 0.1), _comparison(0.30, 0.31, 0.02, "weight_rsd_pct")])
+    assert ok and reasons[0] == "the challenger meets the promotion rule"
+
+
+def test_rule_refuses_an_attribute_worse_beyond_one_se():
+    ok, reasons = decide([_comparison(2.5, 2.0, 0.1)])
+    assert not ok
+    assert "WORSE beyond one standard error" in reasons[1]
+    assert "WORSE by more than 10%" in reasons[1]
+
+
+def test_rule_refuses_worse_beyond_tolerance_even_within_noise():
+    # within a large SE (0.5) but 20 % worse: the tolerance still refuses
+    c = _comparison(2.4, 2.0, 0.5)
+    ok, reasons = decide([c])
+    assert c.within_noise and not c.within_tolerance and not ok
+
+
+def test_force_needs_a_reason():
+    with pytest.raises(UsageError, match="needs a reason"):
+        decide([_comparison(3.0, 2.0, 0.1)], force=True, reason=" ")
+    ok, reasons = decide([_comparison(3.0, 2.0, 0.1)], force=True, reason="supplier change approved")
+    assert ok and reasons[0] == "promotion forced: supplier change approved"
+
+
+def _write(tables, lots, folder, spec=None):
+    folder.mkdir(parents=True, exist_ok=True)
+    for name, df in tables.items():
+        df[df["lot"].isin(lots)].to_csv(folder / f"{name}.csv", index=False)
+    if spec is not None:
+        (folder / "spec.toml").write_text(spec_toml(spec), encoding="utf-8")
+
+
+@pytest.fixture(scope="module")
+def campaign(tmp_path_factory):
+    """Lots before a raw-material change ingested and trained on; then the
+    lots after it ingested. Dissolution drops by 8 points from the change on."""
+    root = tmp_path_factory.mktemp("drift")
+    lots = make_lots(84, seed=5, truth=Truth.window_scenario(), raw_material_change_at=CHANGE_AT,
+                     raw_material_delta=-8.0)
+    order = list(lots.tables["process"]["lot"])
+    _write(lots.tables, order[:CHANGE_AT], root / "before", WINDOW_SPEC)
+    _write(lots.tables, order[CHANGE_AT:], root / "after")
+    store, models = root / "lots.db", root / "models"
+    runner = CliRunner()
+    for folder in ("before",):
+        assert runner.invoke(cli, ["ingest", str(root / folder), "--store", str(store)]).exit_code == 0
+    r = runner.invoke(cli, ["train", "--store", str(store), "--models-dir", str(models)])
+    assert r.exit_code == 0, r.output
+    champion = registry.load(models, "latest").model_id
+    assert runner.invoke(cli, ["ingest", str(root / "after"), "--store", str(store)]).exit_code == 0
+    return root, store, models, champion, order
+
+
+def test_watch_flags_the_change_within_a_few_lots(campaign):
+    root, store, models, champion, order = campaign
+    r = CliRunner().invoke(cli, ["watch", "--store", str(store), "--models-dir", str(models), "--json"])
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    chart = d["attributes"]["dissolution_pct"]
+    flagged = [p["lot"] for p in chart["points"] if p["phase"] == "new" and p["flags"]]
+    assert flagged and order.index(flagged[0]) <= CHANGE_AT + 4
+
+
+def test_retrain_records_a_decision_and_the_window_moves_right(campaign):
+    root, store, models, champion, order = campaign
+    spec_path = root / "before" / "spec.toml"
+    r = CliRunner().invoke(cli, ["retrain", "--store", str(store), "--models-dir", str(models),
+                                 "--spec", str(spec_path), "--json"])
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert d["champion_id"] == champion and d["challenger_id"] != champion
+    assert d["reasons"] and d["rule"]
+    assert len(d["new_lots"]) == len(order) - CHANGE_AT
+    diss = d["targets"]["dissolution_pct"]
+    # the champion never saw the new lots: its prospective bias is the shift, downwards
+    assert diss["n_new"] == len(order) - CHANGE_AT and diss["prospective_bias"] < -3
+    # lower dissolution makes the dense side fail sooner: the low edge moves up
+    moved = d["window_moved"]["moved"]
+    assert moved["low"] is not None and moved["low"] > 0
+    # the decision is in the registry, both models are kept
+    recorded = registry.decisions(models)
+    assert recorded[-1]["challenger_id"] == d["challenger_id"]
+    ids = {m["model_id"] for m in registry.list_models(models)}
+    assert {champion, d["challenger_id"]} <= ids
+    latest = registry.load(models, "latest").model_id
+    assert latest == (d["challenger_id"] if d["promoted"] else champion)
+    # and in the audit trail
+    with LotStore(store, create=False) as s:
+        actions = [e["action"] for e in s.audit()]
+    assert actions.count("ingest") >= 2 and "train" in actions
+    assert actions[-1] in ("promote", "retrain")
+
+
+def test_a_challenger_that_is_not_promoted_is_kept_but_not_latest(campaign, monkeypatch):
+    root, store, models, champion, _ = campaign
+    from linkage.decide import retrain as rt
+
+    original = rt.compare
+
+    def every_attribute_worse(champ, chal, table, *, tolerance):
+        out = original(champ, chal, table, tolerance=tolerance)
+        for c in out:
+            c.within_noise = False  # as if each were worse beyond one SE: the rule must refuse
+        return out
+
+    monkeypatch.setattr(rt, "compare", every_attribute_worse)
+    before = registry.load(models, "latest").model_id
+    decision = rt.retrain(store, models)
+    assert not decision.promoted
+    assert decision.reasons[0].startswith("the challenger does not meet the promotion rule")
+    assert registry.load(models, "latest").model_id == before
+    row = next(m for m in registry.list_models(models) if m["model_id"] == decision.challenger_id)
+    assert row["in_service"] is False and row["status"] == "ok"
