@@ -538,3 +538,41 @@ def plot_domain(t2, q, *, t2_limit: float | None, q_limit: float | None, lots: S
     ax.legend(fontsize=6, loc="best", framealpha=0.8)
     ax.grid(alpha=0.3)
     return ax
+
+
+# ---------------------------------------------------------------- drift watch
+
+def plot_control_chart(lots: Sequence, values, *, centre: float, limits: tuple[float, float], name: str,
+                       ewma=None, ewma_low=None, ewma_high=None, new=None, flagged=None, ylabel: str | None = None,
+                       ax=None):
+    """An individuals chart in time order: centre line, ±3σ limits (dashed),
+    the EWMA and its limits (thin), lots since training filled, flagged lots
+    ringed in vermilion."""
+    ax = new_axes(ax, panel=(4.6, 2.8), bottom=1.0)
+    v = np.asarray(values, float)
+    x = np.arange(len(v))
+    new = np.zeros(len(v), bool) if new is None else np.asarray(new, bool)
+    flagged = np.zeros(len(v), bool) if flagged is None else np.asarray(flagged, bool)
+    ax.axhline(centre, color=GREY, linewidth=1)
+    for lim in limits:
+        ax.axhline(lim, color=VERMILION, linestyle="--", linewidth=1.2)
+    ax.plot(x, v, color="#b0b0b0", linewidth=0.8, zorder=1)
+    ax.scatter(x[~new], v[~new], s=16, facecolor="white", edgecolor=BLUE, label="training lots", zorder=2)
+    if new.any():
+        ax.scatter(x[new], v[new], s=18, color=BLUE, marker="s", label="since training", zorder=2)
+    if flagged.any():
+        ax.scatter(x[flagged], v[flagged], s=70, facecolor="none", edgecolor=VERMILION, linewidth=1.5,
+                   label="flagged", zorder=3)
+    if ewma is not None:
+        ax.plot(x, ewma, color=ORANGE, linewidth=1.2, label="EWMA (λ 0.2)")
+        ax.plot(x, ewma_low, color=ORANGE, linewidth=0.7, linestyle=":")
+        ax.plot(x, ewma_high, color=ORANGE, linewidth=0.7, linestyle=":")
+    step = max(1, int(np.ceil(len(v) / 20)))
+    ticks = list(range(0, len(v), step))
+    ax.set_xticks(ticks, [plain(lots[i], LOT_CHARS) for i in ticks], rotation=90, fontsize=6)
+    ax.set_xlabel("lot, in time order [-]")
+    ax.set_ylabel(ylabel or axis_label(name))
+    ax.set_title(plain(name), fontsize=8)
+    ax.legend(fontsize=6, loc="best", framealpha=0.8)
+    ax.grid(alpha=0.3, axis="y")
+    return ax

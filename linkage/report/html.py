@@ -229,6 +229,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     _attribute_section(b, chain, table, limits)
     _explain_section(b, chain, table, limits, window, curve_draws, seed)
     _window_section(b, chain, table, spec, window, window_failure)
+    _watch_section(b, chain, table, window)
     _domain_section(b, chain, table)
     _model_card(b, chain, spec, window)
     _cautions(b, chain)
@@ -829,6 +830,57 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
 
 
 # ----------------------------------------------------------------- 8. domain
+
+def _watch_section(b, chain, table, window):
+    """Drift watch: residual charts per attribute, lot-mean porosity."""
+    from linkage.decide.watch import watch
+    from linkage.report import figures as F
+
+    b.section("drift", "Drift watch")
+    result = watch(chain, table)
+    b.add("<p>Each lot's residual (measured − predicted from its measured inputs) in time order: out-of-fold for "
+          "the training lots, prospective for lots that arrived after training. Limits are the training "
+          "residuals' mean ± 3 SD (dashed); the EWMA (λ = 0.2) with its limits (dotted) shows slow shifts. "
+          "A lot is flagged by the run rules, the EWMA or a tabular CUSUM (k = σ/2, h = 5σ).</p>")
+    charts = list(result.charts.values())
+    if not charts:
+        b.note("No attribute has enough training residuals (at least 3, not all equal) for control limits.")
+    else:
+        fig, axes = F.grid_axes(len(charts), ncols=2, panel=(4.2, 2.4), bottom=1.0, hspace=1.3, wspace=1.0)
+        for ax, c in zip(axes, charts):
+            new = [p == "new" for p in c.phase]
+            F.plot_control_chart(c.lots, c.residual, centre=c.reference.mu0, limits=c.limits, name=c.attribute,
+                                 ewma=c.ewma, ewma_low=c.ewma_low, ewma_high=c.ewma_high, new=new,
+                                 flagged=[bool(c.flags.get(lot)) for lot in c.lots],
+                                 ylabel="residual [" + F.axis_label(c.attribute).rsplit("[", 1)[-1], ax=ax)
+        b.figure(fig, "Residual control charts, one panel per attribute, lots in time order; open circles: "
+                      "training lots, filled squares: lots since training, rings: flagged lots.")
+    pb = result.porosity_between
+    if "values" in pb:
+        flagged = [lot in pb["flags"] for lot in pb["lots"]]
+        new = [lot in set(result.new_lots) for lot in pb["lots"]]
+        ax = F.plot_control_chart(pb["lots"], pb["values"], centre=pb["centre"], limits=tuple(pb["limits"]),
+                                  name="ribbon_porosity", ewma=pb["ewma"], new=new, flagged=flagged,
+                                  ewma_low=np.full(len(pb["values"]), np.nan),
+                                  ewma_high=np.full(len(pb["values"]), np.nan))
+        if window is not None and window.found:
+            ax.axhspan(window.low.value, window.high.value, color=F.GREEN, alpha=0.12, linewidth=0,
+                       label="porosity window")
+            ax.legend(fontsize=6, loc="best", framealpha=0.8)
+        b.figure(ax, "Lot-mean ribbon porosity in time order against the training lots' mean ± 3 SD, with the "
+                     "porosity window shaded where one was found.")
+    else:
+        b.note(f"Lot-mean porosity chart not drawn: {pb.get('reason', 'no porosity values')}.")
+    alarms = result.alarms
+    if alarms:
+        items = "".join(f"<li>{_e(a)}</li>" for a in alarms[:40])
+        more = f"<p class=small>… and {len(alarms) - 40} more.</p>" if len(alarms) > 40 else ""
+        b.add(f"<p><b>Alarms on lots since training ({len(alarms)}):</b></p><ul>{items}</ul>{more}")
+    elif result.new_lots:
+        b.add(f"<p>No alarm on the {len(result.new_lots)} lot(s) since training.</p>")
+    else:
+        b.add("<p>Every lot in the table was a training lot; the charts show the reference phase only.</p>")
+
 
 def _domain_section(b, chain, table):
     from linkage.report import figures as F

@@ -183,3 +183,25 @@ def test_build_report_writes_the_whole_file_into_new_folders(report, monkeypatch
     assert out.read_text(encoding="utf-8") == report.html
     assert [p.name for p in out.parent.iterdir()] == ["r.html"]  # no temporary file left behind
     assert out.stat().st_mode & 0o044  # readable by others, as an ordinary file
+
+
+def test_drift_watch_section_has_its_charts():
+    """Issue 6: the report gains a section with the drift charts."""
+    import re
+
+    from linkage.assemble import assemble
+    from linkage.models.train import train_chain
+    from linkage.report.html import render_report
+    from linkage.synthetic import make_lots
+
+    lots = make_lots(40, seed=21, raw_material_change_at=32, raw_material_delta=-8.0)
+    table = assemble(lots.tables)
+    first = table[table["lot"].isin(list(lots.tables["process"]["lot"])[:32])]
+    chain = train_chain(first, seed=0, candidates=["mean", "pls"])
+    report = render_report(chain, table)
+    html = report.html
+    assert 'id="drift"' in html
+    section = html[html.index('id="drift"'):html.index('id="domain"')]
+    assert section.count("<img") == 2  # residual charts, lot-mean porosity
+    assert "Alarms on lots since training" in section
+    assert re.search(r"dissolution_pct, lot LOT-0(3[3-9]|40)", section)
