@@ -52,6 +52,9 @@ def fake_store(monkeypatch):
             seen["product"] = product
             return {"process": table}
 
+        def log(self, action, **fields):
+            seen.setdefault("audit", []).append((action, fields["model_id"]))
+
     def fake_assemble(tables, dissolution_time_min=30.0, **kwargs):
         seen["time"] = dissolution_time_min
         return table
@@ -69,8 +72,10 @@ def test_train_json_and_text(fake_store, tmp_path):
     res = run("train", "--store", tmp_path / "s.db", "--models-dir", models, "--chain", chain, "--product", "P1",
               "--seed", 3, "--coverage", 0.8, "--dissolution-time", 45, "--json")
     assert res.exit_code == 0, res.output
-    assert fake_store == {"store": tmp_path / "s.db", "create": False, "product": "P1", "time": 45.0}
     data = json.loads(res.stdout)
+    # the training is logged in the store's audit trail under the new id
+    assert fake_store.pop("audit") == [("train", data["model_id"])]
+    assert fake_store == {"store": tmp_path / "s.db", "create": False, "product": "P1", "time": 45.0}
     assert (models / data["model_id"] / "chain.joblib").exists()
     t = data["targets"]["dissolution_pct"]
     for key in ("n_lots", "cv", "candidates", "noise_floor", "selected", "nominal_coverage", "coverage"):
