@@ -141,6 +141,8 @@ def read_spec(path: Path) -> Spec:
     except tomllib.TOMLDecodeError as exc:
         m = re.search(r"line (\d+)", str(exc))
         raise SpecError(Problem(path.name, f"not valid TOML: {exc}", row=int(m.group(1)) if m else None)) from None
+    except RecursionError:
+        raise SpecError(Problem(path.name, "not valid TOML: nested too deeply")) from None
     return _parse(data, path.name, text)
 
 
@@ -172,10 +174,15 @@ def _parse(data: dict, file: str, text: str) -> Spec:
             if key not in table or key not in allowed:
                 continue
             v = table[key]
-            if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-                bad(attr, f"[{attr}] {key} must be a number", v)
+            try:  # a TOML integer may be too large for a float
+                f = float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else math.nan
+            except OverflowError:
+                f = math.nan
+            if not math.isfinite(f):
+                huge = isinstance(v, int) and not isinstance(v, bool)  # only an overflowing integer gets here
+                bad(attr, f"[{attr}] {key} must be a number", "an integer beyond float range" if huge else v)
                 continue
-            values[key] = float(v)
+            values[key] = f
         if "min" not in table and "max" not in table:
             if not unknown:  # an unknown key already says which keys are allowed
                 bad(attr, f"[{attr}] has neither min nor max")

@@ -51,3 +51,22 @@ def handle_errors(f):
             raise SystemExit(exc.exit_code) from None
 
     return wrapper
+
+
+class FiniteFloat(click.FloatRange):
+    """A float option that must be finite (NaN and inf pass click's own
+    FloatRange, since every comparison with NaN is false)."""
+
+    name = "finite float"
+
+    def convert(self, value, param, ctx):
+        import math
+
+        number = click.FLOAT.convert(value, param, ctx)
+        if not math.isfinite(number):
+            self.fail(f"{value!r} is not a finite number.", param, ctx)
+        return super().convert(number, param, ctx)
+
+
+#: a probability or coverage strictly between 0 and 1
+PROBABILITY = FiniteFloat(0, 1, min_open=True, max_open=True)

@@ -8,7 +8,8 @@ from pathlib import Path
 import click
 
 from linkage import CAUTION
-from linkage.cli.common import handle_errors, json_option, models_dir_option, store_option
+from linkage.cli.common import PROBABILITY, handle_errors, json_option, models_dir_option, store_option
+from linkage.models.fitted import jsonable
 
 _model_option = click.option("--model", "model_id", default="latest", show_default=True,
                              help="Model id from 'linkage models', or 'latest'.")
@@ -21,7 +22,7 @@ _set_option = click.option("--set", "assignments", multiple=True, metavar="NAME=
               help="Specification file (spec.toml).")
 @_model_option
 @_set_option
-@click.option("--confidence", default=0.9, show_default=True, type=float,
+@click.option("--confidence", default=0.9, show_default=True, type=PROBABILITY,
               help="Probability of meeting every specification together that the window must reach.")
 @click.option("--draws", "n_draws", default=2000, show_default=True, type=click.IntRange(200, 200_000),
               help="Monte Carlo draws per porosity.")
@@ -55,7 +56,7 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, models_d
            inputs={"spec": spec.to_dict(), "settings": settings, "confidence": confidence, "seed": seed},
            outputs=result.to_dict(curve=False))
     if as_json:
-        click.echo(json.dumps(result.to_dict(), indent=2))
+        click.echo(json.dumps(jsonable(result.to_dict()), indent=2, allow_nan=False))
         return
     click.echo(format_window(result))
 
@@ -104,7 +105,8 @@ def format_window(result) -> str:
 @_set_option
 @click.option("--spec", "spec_path", type=click.Path(exists=True, dir_okay=False, path_type=Path),
               help="Specification file; adds the probability of passing each limit.")
-@click.option("--level", type=float, default=None, help="Interval level (default: the model's nominal coverage).")
+@click.option("--level", type=PROBABILITY, default=None,
+              help="Interval level (default: the model's nominal coverage).")
 @click.option("--from-csv", "from_csv", type=click.Path(exists=True, dir_okay=False, path_type=Path),
               help="Predict every row of a CSV whose columns are names.")
 @click.option("--html", "html_path", type=click.Path(dir_okay=False, path_type=Path),
@@ -173,7 +175,8 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, s
         html_path.write_text(whatif_html(results[0]), encoding="utf-8")
     if as_json:
         payload = results[0].to_dict() if from_csv is None else [r.to_dict() for r in results]
-        click.echo(json.dumps(payload, indent=2))
+        # strict JSON: an unbounded interval end (too few lots) is null; the model's notes say why
+        click.echo(json.dumps(jsonable(payload), indent=2, allow_nan=False))
     else:
         for r in results:
             click.echo(format_whatif(r))

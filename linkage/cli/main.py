@@ -65,3 +65,7 @@ def cli():
 
 def main() -> None:  # pragma: no cover - entry point
     sys.exit(cli())
+
+
+if __name__ == "__main__":  # python -m linkage.cli.main
+    main()

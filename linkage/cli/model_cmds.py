@@ -8,7 +8,8 @@ from pathlib import Path
 import click
 
 from linkage import CAUTION
-from linkage.cli.common import handle_errors, json_option, models_dir_option, store_option
+from linkage.cli.common import (PROBABILITY, FiniteFloat, handle_errors, json_option, models_dir_option,
+                                store_option)
 from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN
 
 #: keys of one attribute in ``train --json`` (the issue's list, plus the
@@ -88,10 +89,11 @@ def format_train(fitted) -> str:
               help="Chain file (TOML) naming the stages; default: settings -> ribbon -> granules -> tablets.")
 @click.option("--product", default=None, help="Train on the lots of this product only.")
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the cross-validation folds.")
-@click.option("--coverage", default=0.9, show_default=True, type=float,
+@click.option("--coverage", default=0.9, show_default=True, type=PROBABILITY,
               help="Nominal coverage of the prediction intervals (0-1).")
 @click.option("--dissolution-time", "dissolution_time_min", default=DEFAULT_DISSOLUTION_TIME_MIN,
-              show_default=True, type=float, help="Dissolution time point modelled [min].")
+              show_default=True, type=FiniteFloat(0, 10_000, min_open=True),
+              help="Dissolution time point modelled [min].")
 @click.option("--jobs", "n_jobs", default=1, show_default=True, type=int,
               help="Worker processes for the folds (starting workers costs seconds; pays off above ~100 lots).")
 @json_option

@@ -8,7 +8,7 @@ from pathlib import Path
 
 import click
 
-from linkage.cli.common import handle_errors, json_option, store_option
+from linkage.cli.common import FiniteFloat, handle_errors, json_option, store_option
 from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
 
 
@@ -38,7 +38,7 @@ def ingest(folder, store, as_json):
     from linkage.store import LotStore
 
     known: list[str] = []
-    if store.exists():
+    if store.exists() and store.stat().st_size > 0:  # an empty file is what a killed first ingest leaves
         with LotStore(store, create=False) as existing:
             known = existing.lot_ids()
     checked = read_folder(folder, known_lots=known)  # the store is created only for valid input
@@ -133,7 +133,7 @@ def history(lot, store, as_json):
               help="Write the assembled table (one row per lot) to this CSV file.")
 @click.option("--product", default=None, help="Only the lots of this product.")
 @click.option("--fines-cutoff-um", default=DEFAULT_FINES_CUTOFF_UM, show_default=True,
-              type=click.FloatRange(0, min_open=True), help="Size below which granules count as fines [um].")
+              type=FiniteFloat(0, 100_000, min_open=True), help="Size below which granules count as fines [um].")
 @click.option("--spec", "spec_path", type=click.Path(exists=True, dir_okay=False, path_type=Path), default=None,
               help="spec.toml: its dissolution time point is used, and each lot is compared with its limits.")
 @handle_errors

@@ -90,7 +90,8 @@ def _stage_problems(source: str, index: int, stage: StageSpec) -> list[Problem]:
                 bad(f"'{v}' is listed twice in '{key}'", column=key, value=v)
             seen.add(v)
     if isinstance(stage.inputs, list) and isinstance(stage.targets, list):
-        for v in set(stage.inputs) & set(stage.targets):
+        names = {v for v in stage.inputs if isinstance(v, str)} & {v for v in stage.targets if isinstance(v, str)}
+        for v in sorted(names):  # non-text entries were reported just above
             bad(f"'{v}' is both an input and a target of the same stage (a cycle)", column="inputs", value=v)
     if not isinstance(stage.monotone, dict):
         bad("'monotone' must be a table of target -> {input: +1 or -1}", column="monotone")
@@ -198,6 +199,8 @@ class ChainSpec:
             data = tomllib.loads(text)
         except tomllib.TOMLDecodeError as exc:
             raise SpecError(Problem(file=source, rule=f"not valid TOML: {exc}")) from None
+        except RecursionError:
+            raise SpecError(Problem(file=source, rule="not valid TOML: nested too deeply")) from None
         problems: list[Problem] = []
         for key in sorted(set(data) - _TOP_KEYS):
             problems.append(Problem(file=source, column=key,

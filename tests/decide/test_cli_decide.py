@@ -92,7 +92,8 @@ def test_predict_from_csv(run, tmp_path):
     (("predict", "--set", "ribbon_porosity=0.3", "--model", "m-20990101T000000Z-00000000"), 2, "available:"),
     # a path instead of an id is a refusal of the integrity rules (exit 4), not a typo
     (("predict", "--set", "ribbon_porosity=0.3", "--model", "../elsewhere"), 4, "is a path, not a model id"),
-    (("window", "--spec", "SPEC", "--confidence", "1.5"), 2, "between 0 and 1"),
+    (("window", "--spec", "SPEC", "--confidence", "1.5"), 2, "is not in the range 0<x<1"),
+    (("window", "--spec", "SPEC", "--confidence", "nan"), 2, "is not a finite number"),
 ])
 def test_errors_exit_with_a_message(run, saved_model, args, code, message):
     _, _, spec_path = saved_model
