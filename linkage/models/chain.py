@@ -84,7 +84,8 @@ def _stage_problems(source: str, index: int, stage: StageSpec) -> list[Problem]:
         for v in names:
             if not isinstance(v, str) or not _NAME.match(v):
                 bad(f"'{key}' entries must be column names (letters, digits, underscores)", column=key, value=v)
-            elif v in _NOT_NUMERIC:
+                continue
+            if v in _NOT_NUMERIC:
                 bad(f"'{v}' is not a numeric column and cannot be a model {key[:-1]}", column=key, value=v)
             elif v in seen:
                 bad(f"'{v}' is listed twice in '{key}'", column=key, value=v)
