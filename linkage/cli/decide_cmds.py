@@ -133,9 +133,7 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, s
     Every what-if is recorded in the lot store (when it exists) with the
     model id, the inputs and the outputs.
     """
-    import pandas as pd
-
-    from linkage.decide.whatif import parse_assignments, predict_many, predict_whatif
+    from linkage.decide.whatif import parse_assignments, predict_many, predict_whatif, read_rows
     from linkage.exceptions import UsageError
     from linkage.models.registry import load
 
@@ -151,14 +149,9 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, s
             raise UsageError("give either --set or --from-csv, not both")
         if html_path is not None:
             raise UsageError("--html writes one sheet for one what-if; use it without --from-csv")
-        try:
-            rows = pd.read_csv(from_csv, dtype={"lot": str})
-        except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError, ValueError) as exc:
-            raise UsageError(f"{from_csv} cannot be read as a CSV of names and values ({exc})") from None
-        # a 'lot' column names the lot each row is for; it is not a model input
-        row_lots = list(rows["lot"].astype(str)) if "lot" in rows and lot is None else [lot] * len(rows)
-        results = predict_many(chain, rows.drop(columns=["lot"], errors="ignore"), spec=spec, level=level,
-                               seed=seed)
+        rows, csv_lots = read_rows(from_csv)
+        row_lots = csv_lots if lot is None else [lot] * len(rows)
+        results = predict_many(chain, rows, spec=spec, level=level, seed=seed)
     else:
         if not values:
             raise UsageError("nothing to predict from: give --set NAME=VALUE (or --from-csv)")
