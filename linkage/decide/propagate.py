@@ -63,16 +63,28 @@ def simulate(chain, inputs: pd.DataFrame, *, n_draws: int = 2000, seed: int = 0)
                              "nor predicted by an earlier stage")
         residuals = stage.residual_table()
         pick = rng.integers(0, len(residuals), size=n_draws)
-        # one wide frame: rows × draws, in row-major order
-        x = pd.DataFrame({c: values[c].reshape(-1) for c in stage.inputs})
-        x_mean = pd.DataFrame({c: means[c] for c in stage.inputs})
+        # one wide matrix: rows × draws, in row-major order
+        x = {c: values[c].reshape(-1) for c in stage.inputs}
+        x_mean = {c: means[c] for c in stage.inputs}
         for name in todo:
             target = stage.targets[name]
             r = _residual_column(residuals, name, pick, rng)
-            pred = np.asarray(target.predict(x[target.inputs]), float).reshape(rows, n_draws)
+            pred = _predict(target, x).reshape(rows, n_draws)
             values[name] = pred + r[None, :]
-            means[name] = np.asarray(target.predict(x_mean[target.inputs]), float)
+            means[name] = _predict(target, x_mean)
     return Draws(values=values, means=means, fixed=fixed)
+
+
+def _predict(target, columns: dict[str, np.ndarray]) -> np.ndarray:
+    """``target.predict`` on the named columns. The selected model is called
+    on the float matrix directly (a DataFrame of thousands of draws per call
+    costs more than the model); a non-finite input goes through
+    ``target.predict`` so that it is refused with the same error."""
+    # column-major, as DataFrame.to_numpy gives it, so the model sees the same array
+    X = np.vstack([np.asarray(columns[c], float) for c in target.inputs]).T
+    if not np.all(np.isfinite(X)):
+        return np.asarray(target.predict(pd.DataFrame({c: columns[c] for c in target.inputs})), float)
+    return np.asarray(target.model_.predict(X), float)
 
 
 def _residual_column(residuals: pd.DataFrame, name: str, pick: np.ndarray, rng) -> np.ndarray:

@@ -17,9 +17,12 @@ come from the draws.
 
 from __future__ import annotations
 
+import io
 import math
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -27,7 +30,7 @@ import pandas as pd
 from linkage import CAUTION
 from linkage.decide.propagate import fill_settings, simulate, within
 from linkage.exceptions import UsageError
-from linkage.schema import TABLES
+from linkage.schema import MISSING_TOKENS, TABLES
 
 #: fractions that must lie strictly between 0 and 1
 _FRACTIONS = {"ribbon_porosity", "ribbon_solid_fraction"}
@@ -125,7 +128,32 @@ class WhatIf:
 
 def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float | None = None,
                    n_draws: int = 4000, seed: int = 0, contributions: bool = True) -> WhatIf:
-    """Predict every downstream attribute for one set of values."""
+    """Predict every downstream attribute for one set of values.
+
+    Runs with one OpenMP thread: the models see a few thousand rows at most,
+    and on a small machine the thread start-up of the tree models' parallel
+    predictions costs more than it saves. The results do not depend on it.
+    """
+    with _one_openmp_thread():
+        return _predict_whatif(chain, values, spec=spec, level=level, n_draws=n_draws, seed=seed,
+                               contributions=contributions)
+
+
+_THREADS = None
+
+
+@contextmanager
+def _one_openmp_thread():
+    global _THREADS
+    from threadpoolctl import ThreadpoolController
+
+    if _THREADS is None or not _THREADS.select(user_api="openmp").lib_controllers:
+        _THREADS = ThreadpoolController()  # a few ms; kept, since limiting with it is then ~0.05 ms
+    with _THREADS.limit(limits=1, user_api="openmp"):
+        yield
+
+
+def _predict_whatif(chain, values: dict[str, float], *, spec, level, n_draws, seed, contributions) -> WhatIf:
     check_values(chain, values)
     level = float(level if level is not None else chain.nominal_coverage)
     if not 0 < level < 1:
@@ -193,11 +221,12 @@ def predict_many(chain, rows: pd.DataFrame, **kwargs) -> list[WhatIf]:
     for i, rec in enumerate(rows.to_dict(orient="records"), start=2):
         values = {}
         for k, v in rec.items():
-            if v is None or (isinstance(v, float) and math.isnan(v)):
+            if v is None or (isinstance(v, float) and math.isnan(v)) or (
+                    isinstance(v, str) and v.strip().lower() in MISSING_TOKENS):
                 continue
             try:
                 values[str(k).strip()] = float(v)
-            except (TypeError, ValueError):
+            except (TypeError, ValueError, OverflowError):
                 problems.append(f"row {i}, column '{k}': '{v}' is not a number")
         records.append(values)
     if problems:
@@ -216,3 +245,34 @@ def _top_contributions(target, x: pd.DataFrame, n: int = 3) -> list[dict]:
 
 def _num(v):
     return None if v is None or not np.isfinite(v) else float(v)
+
+
+def read_rows(path) -> tuple[pd.DataFrame, list[str | None]]:
+    """Read a ``--from-csv`` file: a header of names, one what-if per row.
+
+    Every cell is kept as text (parsed and checked by :func:`predict_many`).
+    A row with more or fewer fields than the header is refused with its row
+    number, never shifted into other columns. An optional ``lot`` column names
+    the lot each row is for; it is not a model input.
+    """
+    import csv
+
+    try:
+        text = Path(path).read_bytes().decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise UsageError(f"{path}: not UTF-8 text ({exc})") from None
+    try:
+        rows = list(csv.reader(io.StringIO(text, newline=""), strict=True))
+    except csv.Error as exc:
+        raise UsageError(f"{path}: cannot be read as CSV ({exc})") from None
+    rows = [r for r in rows if any(cell.strip() for cell in r)]
+    if not rows:
+        raise UsageError(f"{path} is empty: it needs a header of names and one row per what-if")
+    header = [h.strip() for h in rows[0]]
+    problems = [f"row {i}: {len(r)} fields under a header of {len(header)}"
+                for i, r in enumerate(rows[1:], start=2) if len(r) != len(header)]
+    if problems:
+        raise UsageError(f"{path}: " + "; ".join(problems))
+    frame = pd.DataFrame(rows[1:], columns=header, dtype=object)
+    lots = [str(v).strip() or None for v in frame["lot"]] if "lot" in frame else [None] * len(frame)
+    return frame.drop(columns=["lot"], errors="ignore"), lots
