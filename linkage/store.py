@@ -46,10 +46,11 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Iterator
 
+import numpy as np
 import pandas as pd
 
 from linkage.exceptions import InputError, StoreBusyError, StoreError, UsageError
-from linkage.read import Ingest, cross_check, frame_from_columns
+from linkage.read import Ingest, bulk, cross_check, frame_from_columns
 from linkage.schema import DATETIME, NUMBER, TABLES, TEXT
 
 SCHEMA_VERSION = 1
@@ -257,34 +258,165 @@ def _canon(value):
 
 @dataclass
 class _LotTable:
-    rows: list[dict]
+    rows: list[str]  # each row as the JSON text stored in raw_rows.data_json
     source_rows: list[int]
     columns: list[str]
     sha256: str
     n_filled: int
+    columns_json: str = ""  # _json(columns), written once per table
 
 
 def _prepare(ingest: Ingest) -> dict[str, dict[str, _LotTable]]:
-    """lot -> table -> its rows as JSON-ready dicts, with a content hash."""
+    """lot -> table -> its rows as JSON text, with a content hash."""
     out: dict[str, dict[str, _LotTable]] = {}
     for tname, df in ingest.tables.items():
-        tdef = TABLES[tname]
-        kinds = {c.name: c.kind for c in tdef.columns}
-        columns = list(df.columns)
-        source_rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
-        per_lot: dict[str, list[int]] = {}
-        for k, lot in enumerate(df["lot"].tolist()):
-            per_lot.setdefault(lot, []).append(k)
-        records = df.to_dict("records")
-        for lot, idx in per_lot.items():
-            rows = []
-            for k in idx:
-                row = {c: _cell_out(kinds.get(c, "extra"), records[k][c]) for c in columns}
-                rows.append({c: v for c, v in row.items() if v is not None})
-            filled = sum(1 for r in rows for c in r if c in kinds and c != "lot")
-            out.setdefault(lot, {})[tname] = _LotTable(rows, [int(source_rows[k]) for k in idx], columns,
-                                                       _content_hash(tname, rows), filled)
+        per_lot = _prepare_columns(tname, df)
+        if per_lot is None:
+            per_lot = _prepare_rows(tname, df)
+        columns_json = _json(list(df.columns))
+        for lot, lt in per_lot.items():
+            lt.columns_json = columns_json
+            out.setdefault(lot, {})[tname] = lt
     return out
+
+
+def _prepare_rows(tname: str, df: pd.DataFrame) -> dict[str, _LotTable]:
+    """One table, cell by cell (any table)."""
+    tdef = TABLES[tname]
+    kinds = {c.name: c.kind for c in tdef.columns}
+    columns = list(df.columns)
+    source_rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
+    per_lot: dict[str, list[int]] = {}
+    for k, lot in enumerate(df["lot"].tolist()):
+        per_lot.setdefault(lot, []).append(k)
+    records = df.to_dict("records")
+    out = {}
+    for lot, idx in per_lot.items():
+        rows = []
+        for k in idx:
+            row = {c: _cell_out(kinds.get(c, "extra"), records[k][c]) for c in columns}
+            rows.append({c: v for c, v in row.items() if v is not None})
+        filled = sum(1 for r in rows for c in r if c in kinds and c != "lot")
+        out[lot] = _LotTable([json.dumps(r, ensure_ascii=False, allow_nan=False) for r in rows],
+                             [int(source_rows[k]) for k in idx], columns, _content_hash(tname, rows), filled)
+    return out
+
+
+def _prepare_columns(tname: str, df: pd.DataFrame) -> dict[str, _LotTable] | None:
+    """The same as :func:`_prepare_rows`, column by column, for the common
+    case: float64 numbers, text in template columns, dates to the second,
+    numeric extra columns, every lot named. The JSON text of each row and of
+    each lot's hash is put together from per-column pieces written by the
+    same encoders ``json.dumps`` uses (``float.__repr__``, the JSON string
+    encoder), in the same order, so the stored rows and hashes are the same
+    byte for byte. None for any other table, which goes cell by cell."""
+    tdef = TABLES[tname]
+    kinds = {c.name: c.kind for c in tdef.columns}
+    columns = list(df.columns)
+    n = len(df)
+    if n == 0 or "lot" not in columns or df["lot"].isna().any():
+        return None
+    encode = json.encoder.encode_basestring
+    data: dict[str, list] = {}  # column -> '"name": value' per row, None where missing
+    canon: dict[str, list] = {}  # the same for the hash (numbers + 0.0: -0.0 is 0.0)
+    keyed: dict[str, list] = {}  # column -> str of the canonical value (sort key of the hash)
+    filled = np.zeros(n, dtype=np.int64)
+    for c in columns:
+        kind = kinds.get(c, "extra")
+        col = df[c]
+        name = encode(str(c)) + ": "
+        if kind == NUMBER or (kind == "extra" and col.dtype == np.float64):
+            if col.dtype != np.float64:
+                return None
+            v = col.to_numpy()
+            missing = np.isnan(v)
+            if np.isinf(v).any():
+                return None  # json refuses it: the cell-by-cell path raises as it always did
+            reprs = list(map(repr, v.tolist()))  # float.__repr__, as json writes floats
+            data[c] = _pieces(name, reprs, missing)
+            if np.any((v == 0) & np.signbit(v)):
+                reprs = list(map(repr, (v + 0.0).tolist()))
+                canon[c] = _pieces(name, reprs, missing)
+            else:
+                canon[c] = data[c]
+            keyed[c] = _missing_as_none(reprs, missing)
+        elif kind == TEXT:
+            values = col.tolist()
+            missing = col.isna().to_numpy()
+            kept = [x for x, m in zip(values, missing.tolist()) if not m] if missing.any() else values
+            if set(map(type, kept)) - {str}:
+                return None
+            data[c] = canon[c] = _pieces(name, list(map(encode, [x if type(x) is str else "" for x in values])),
+                                          missing)
+            keyed[c] = _missing_as_none(values, missing)
+        elif kind == DATETIME:
+            if not (pd.api.types.is_datetime64_dtype(col) and getattr(col.dtype, "tz", None) is None):
+                return None
+            ticks = col.to_numpy()
+            missing = np.isnat(ticks)
+            whole = ticks[~missing]
+            seconds = whole.astype("datetime64[s]")
+            years = seconds.astype("datetime64[Y]").astype(np.int64) + 1970
+            if np.any(seconds.astype(whole.dtype) != whole) or np.any((years < 1000) | (years > 9999)):
+                return None  # Timestamp.isoformat writes fractions of a second: cell by cell
+            iso = np.full(n, "", dtype=object)
+            iso[~missing] = np.datetime_as_string(seconds, unit="s").astype(object)
+            iso = iso.tolist()
+            data[c] = canon[c] = _pieces(name, list(map(encode, iso)), missing)
+            keyed[c] = _missing_as_none(iso, missing)
+        else:
+            return None
+        if kind != "extra" and c != "lot":
+            filled += ~missing
+    key_cols = [c for c in tdef.key]
+    if any(c not in keyed for c in key_cols):
+        return None
+    complete = all(None not in data[c] for c in columns)
+    row_json = _join_rows([data[c] for c in columns], complete)
+    hash_json = _join_rows([canon[c] for c in sorted(columns)], complete)
+    del data, canon
+    sort_key = list(zip(*(keyed[c] for c in key_cols)))
+    source_rows = df.attrs.get("source_rows", list(range(2, n + 2)))
+    codes, lots = pd.factorize(df["lot"])  # lots in order of first appearance, as the rows name them
+    order = np.argsort(codes, kind="stable")
+    bounds = np.concatenate([[0], np.cumsum(np.bincount(codes, minlength=len(lots)))]).tolist()
+    per_lot_filled = np.bincount(codes, weights=filled, minlength=len(lots)).astype(np.int64).tolist()
+    order = order.tolist()
+    rows = [int(r) for r in source_rows]
+    out = {}
+    for j, lot in enumerate(lots.tolist()):
+        idx = order[bounds[j]:bounds[j + 1]]
+        ordered = sorted(idx, key=sort_key.__getitem__) if len(idx) > 1 else idx  # stable, as sorted() of rows
+        digest = hashlib.sha256(("[" + ", ".join([hash_json[k] for k in ordered]) + "]").encode()).hexdigest()
+        out[lot] = _LotTable([row_json[k] for k in idx], [rows[k] for k in idx], columns, digest,
+                             per_lot_filled[j])
+    return out
+
+
+def _pieces(name: str, texts: list[str], missing: np.ndarray) -> list:
+    """'"name": text' per row, None where the cell is missing."""
+    out = list(map(name.__add__, texts))
+    if missing.any():
+        for k in np.flatnonzero(missing).tolist():
+            out[k] = None
+    return out
+
+
+def _missing_as_none(texts: list, missing: np.ndarray) -> list:
+    """The sort key of the hash: str(value), 'None' for a missing cell."""
+    if not missing.any():
+        return texts
+    out = list(texts)
+    for k in np.flatnonzero(missing).tolist():
+        out[k] = "None"
+    return out
+
+
+def _join_rows(pieces: list[list], complete: bool) -> list[str]:
+    """'{piece, piece, ...}' per row, leaving out missing (None) pieces."""
+    if complete:
+        return ["{" + ", ".join(t) + "}" for t in zip(*pieces)]
+    return ["{" + ", ".join([p for p in t if p is not None]) + "}" for t in zip(*pieces)]
 
 
 def _memory_source(table: str, df: pd.DataFrame) -> dict:
@@ -431,6 +563,10 @@ class LotStore:
         process record in the folder or the store, or when an empty store
         gets a folder without every required table.
         """
+        with bulk():
+            return self._ingest(ingest, user)
+
+    def _ingest(self, ingest: Ingest, user: str | None) -> IngestResult:
         user = user or current_user()
         prepared = _prepare(ingest)
         sources = {t: ingest.sources.get(t) or _memory_source(t, df) for t, df in ingest.tables.items()}
@@ -477,8 +613,11 @@ class LotStore:
             for src in ingest.other_sources.values():
                 c.execute("INSERT INTO ingest_files VALUES (?, NULL, ?, ?, NULL)",
                           (ingest_id, src["file"], src["sha256"]))
-            for lot in new:
-                c.execute("INSERT INTO lots VALUES (?, ?)", (lot, ingest_id))
+            c.executemany("INSERT INTO lots VALUES (?, ?)", [(lot, ingest_id) for lot in new])
+            # revisions get their ids here, as SQLite would give them (largest id + 1; the write
+            # transaction holds the store), so that they are written with one statement each
+            next_rid = c.execute("SELECT COALESCE(MAX(id), 0) + 1 FROM revisions").fetchone()[0]
+            revisions, revision_tables = [], []
             for lot in new + revised:
                 links = {t: v[0] for t, v in current.get(lot, {"tables": {}})["tables"].items()}
                 for tname in changes[lot]:
@@ -486,10 +625,12 @@ class LotStore:
                                                           sources[tname])
                 number = current[lot]["revision"] + 1 if lot in current else 1
                 product = products[lot] if lot in products else current[lot]["product"]
-                rid = c.execute("INSERT INTO revisions (lot, revision, ingest_id, product) VALUES (?, ?, ?, ?)",
-                                (lot, number, ingest_id, product)).lastrowid
-                c.executemany("INSERT INTO revision_tables VALUES (?, ?, ?)",
-                              [(rid, t, links[t]) for t in TABLES if t in links])
+                revisions.append((next_rid, lot, number, ingest_id, product))
+                revision_tables += [(next_rid, t, links[t]) for t in TABLES if t in links]
+                next_rid += 1
+            c.executemany("INSERT INTO revisions (id, lot, revision, ingest_id, product) VALUES (?, ?, ?, ?, ?)",
+                          revisions)
+            c.executemany("INSERT INTO revision_tables VALUES (?, ?, ?)", revision_tables)
             result = IngestResult(new, revised, unchanged, ingest_id, warnings)
             self._log(c, "ingest", user, None, None,
                       {"folder": None if ingest.folder is None else str(ingest.folder),
@@ -497,15 +638,15 @@ class LotStore:
                       {"ingest_id": ingest_id, "new": new, "revised": revised, "unchanged": len(unchanged)})
         return result
 
+
     @staticmethod
     def _insert_lot_table(c, lot: str, tname: str, ingest_id: int, lt: _LotTable, src: dict) -> int:
         tid = c.execute("INSERT INTO lot_tables (lot, tbl, ingest_id, file, file_sha256, content_sha256, "
                         "columns_json, n_rows, n_filled) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                        (lot, tname, ingest_id, src["file"], src["sha256"], lt.sha256, _json(lt.columns),
+                        (lot, tname, ingest_id, src["file"], src["sha256"], lt.sha256, lt.columns_json,
                          len(lt.rows), lt.n_filled)).lastrowid
         c.executemany("INSERT INTO raw_rows VALUES (?, ?, ?, ?)",
-                      [(tid, i, r, json.dumps(row, ensure_ascii=False, allow_nan=False))
-                       for i, (row, r) in enumerate(zip(lt.rows, lt.source_rows))])
+                      [(tid, i, r, text) for i, (text, r) in enumerate(zip(lt.rows, lt.source_rows))])
         return tid
 
     @staticmethod
@@ -538,14 +679,24 @@ class LotStore:
             sql += "WHERE cr.product = ? "
             params = (product,)
         sql += "ORDER BY l.rowid, rr.seq"
+        with bulk():
+            return self._current_tables(sql, params)
+
+    def _current_tables(self, sql: str, params: tuple) -> dict[str, pd.DataFrame]:
         rows: dict[str, list[dict]] = {}
         columns: dict[str, dict[str, None]] = {}
         seen_tables: set[int] = set()
+        texts: dict[str, list[str]] = {}
+        seen_columns: set[tuple[str, str]] = set()
         for tbl, tid, columns_json, data_json in self._read(sql, params):
             if tid not in seen_tables:
                 seen_tables.add(tid)
-                columns.setdefault(tbl, {}).update(dict.fromkeys(json.loads(columns_json)))
-            rows.setdefault(tbl, []).append(json.loads(data_json))
+                if (tbl, columns_json) not in seen_columns:  # most lots of a table share their columns
+                    seen_columns.add((tbl, columns_json))
+                    columns.setdefault(tbl, {}).update(dict.fromkeys(json.loads(columns_json)))
+            texts.setdefault(tbl, []).append(data_json)
+        for tbl in list(texts):  # one parse per table: the same values as row by row, without the per-call cost
+            rows[tbl] = json.loads("[" + ",".join(texts.pop(tbl)) + "]")
         return {t: _frame(t, rows[t], list(columns[t])) for t in TABLES if t in rows}
 
     def lots(self, product: str | None = None) -> pd.DataFrame:
@@ -688,7 +839,15 @@ def _frame(table: str, rows: list[dict], columns: list[str]) -> pd.DataFrame:
     extra_names = [c for c in columns if c not in kinds]
     for r in rows:
         extra_names += [c for c in r if c not in kinds and c not in extra_names]
-    template = {name: [_cell_in(kind, r.get(name)) for r in rows] for name, kind in kinds.items()}
+    template = {}
+    for name, kind in kinds.items():
+        values = [r.get(name) for r in rows]
+        if kind == NUMBER and set(map(type, values)) <= {float, type(None)}:
+            template[name] = np.array(values, dtype=float)  # None -> NaN, as _series makes it
+        elif kind == DATETIME:
+            template[name] = [None if v is None else dt.datetime.fromisoformat(v) for v in values]
+        else:
+            template[name] = values  # _cell_in gives text and numbers back as they are
     extra = {name: [r.get(name) for r in rows] for name in extra_names}
     return frame_from_columns(table, template, extra, n_rows=len(rows))
 

@@ -94,11 +94,19 @@ def format_train(fitted) -> str:
 @click.option("--dissolution-time", "dissolution_time_min", default=DEFAULT_DISSOLUTION_TIME_MIN,
               show_default=True, type=FiniteFloat(0, 10_000, min_open=True),
               help="Dissolution time point modelled [min].")
-@click.option("--jobs", "n_jobs", default=1, show_default=True, type=int,
-              help="Worker processes for the folds (starting workers costs seconds; pays off above ~100 lots).")
+@click.option("--jobs", "n_jobs", default=None, type=int,
+              help="Parallel fold jobs (starting workers costs seconds; pays off above ~100 lots). "
+                   "[default: 1, or every worker of the cluster with --backend dask]")
+@click.option("--backend", type=click.Choice(["loky", "threading", "dask"]), default=None,
+              help="Where the fold jobs run (through joblib): worker processes (loky, the default with --jobs), "
+                   "threads, or a Dask cluster (install the 'distributed' extra). The chain is the same.")
+@click.option("--scheduler", default=None, metavar="ADDRESS",
+              help="Dask scheduler address (tcp://host:8786) for --backend dask.  [default: the Dask "
+                   "configuration's scheduler-address ($DASK_SCHEDULER_ADDRESS), else a local cluster]")
 @json_option
 @handle_errors
-def train(store, models_dir, chain_path, product, seed, coverage, dissolution_time_min, n_jobs, as_json):
+def train(store, models_dir, chain_path, product, seed, coverage, dissolution_time_min, n_jobs, backend, scheduler,
+          as_json):
     """Train the chain of stage models on the lots in the store, with
     grouped cross-validation by lot, and save it in the model registry.
 
@@ -111,11 +119,13 @@ def train(store, models_dir, chain_path, product, seed, coverage, dissolution_ti
     Example:
       linkage train
       linkage train --chain chain.toml --product ABC-10mg --seed 1 --json
+      linkage train --backend dask --scheduler tcp://10.0.0.5:8786
     """
+    import contextlib
     import sys
 
     from linkage.assemble import assemble
-    from linkage.exceptions import InsufficientDataError
+    from linkage.exceptions import InsufficientDataError, UsageError
     from linkage.models.chain import ChainSpec
     from linkage.models.registry import save
     from linkage.models.train import train_chain
@@ -138,8 +148,26 @@ def train(store, models_dir, chain_path, product, seed, coverage, dissolution_ti
             bar.__enter__()
         bar.update(done - bar.pos)
 
+    if scheduler is not None and backend != "dask":
+        raise UsageError("--scheduler goes with --backend dask")
+    cluster = contextlib.nullcontext()
+    if backend == "dask":
+        try:
+            from dask.distributed import Client
+        except ImportError:
+            raise UsageError("--backend dask needs Dask's distributed scheduler: install the 'distributed' extra "
+                             "(pip install 'linkage[distributed]')") from None
+        try:
+            cluster = Client(scheduler)
+        except (OSError, TimeoutError, ValueError) as exc:
+            raise UsageError(f"cannot reach the Dask scheduler {scheduler or '(from the Dask configuration)'}: "
+                             f"{exc}") from None
+    if n_jobs is None:
+        n_jobs = -1 if backend == "dask" else 1
     try:
-        fitted = train_chain(table, chain, seed=seed, nominal_coverage=coverage, progress=progress, n_jobs=n_jobs)
+        with cluster:
+            fitted = train_chain(table, chain, seed=seed, nominal_coverage=coverage, progress=progress,
+                                 n_jobs=n_jobs, backend=backend)
     finally:
         if bar is not None:
             bar.__exit__(None, None, None)

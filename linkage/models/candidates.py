@@ -32,6 +32,7 @@ from __future__ import annotations
 
 import math
 import warnings
+import weakref
 from dataclasses import dataclass
 
 import numpy as np
@@ -50,6 +51,8 @@ __all__ = [
     "CANDIDATES",
     "vip_from_weights",
     "pls_vip",
+    "tree_predict",
+    "tree_shap_values",
     "tune",
     "TuneResult",
 ]
@@ -301,9 +304,10 @@ class QuadraticRidge(RegressorMixin, BaseEstimator):
 
 class BoostingRegressor(RegressorMixin, BaseEstimator):
     """scikit-learn ``HistGradientBoostingRegressor`` with small-data
-    settings; ``contributions`` are SHAP TreeExplainer values (Lundberg et
-    al. 2020, Nat. Mach. Intell. 2:56-67), which add up to prediction −
-    expected value."""
+    settings; ``contributions`` are path-dependent TreeSHAP values (Lundberg
+    et al. 2020, Nat. Mach. Intell. 2:56-67), which add up to prediction −
+    expected value: the values ``shap.TreeExplainer`` gives, computed here
+    without importing shap (see :func:`tree_shap_values`)."""
 
     def __init__(self, max_iter: int = 20, learning_rate: float = 0.2, max_depth: int = 2,
                  min_samples_leaf: int = 3, monotonic_cst=None, random_state: int = 0):
@@ -332,22 +336,215 @@ class BoostingRegressor(RegressorMixin, BaseEstimator):
         return self
 
     def predict(self, X):
-        return self.model_.predict(np.asarray(X, dtype=float))
+        X = np.asarray(X, dtype=float)
+        fast = tree_predict(self.model_, X) if X.shape[0] <= TREE_PREDICT_ROWS else None
+        return fast if fast is not None else self.model_.predict(X)
 
     def staged_predict(self, X):
         return self.model_.staged_predict(np.asarray(X, dtype=float))
 
     def contributions(self, X):
+        X = np.asarray(X, dtype=float)
+        fast = tree_shap_values(self.model_, X)
+        if fast is not None:
+            return fast
         with warnings.catch_warnings():  # shap's own import-time deprecation notices
             warnings.simplefilter("ignore", PendingDeprecationWarning)
             warnings.simplefilter("ignore", DeprecationWarning)
-            import shap  # heavy: only when explanations are asked for
+            import shap  # heavy: only for inputs the direct computation does not cover
 
-        X = np.asarray(X, dtype=float)
         explainer = shap.TreeExplainer(self.model_)
         values = np.asarray(explainer.shap_values(X), dtype=float).reshape(X.shape)
         base = float(np.asarray(explainer.expected_value, dtype=float).reshape(-1)[0])
         return values, base
+
+
+#: fitted model -> its trees as arrays (see _trees); weak, so a model that is
+#: dropped takes its entry with it
+_TREES: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
+
+
+@dataclass(frozen=True)
+class _Trees:
+    """The trees of a fitted ``HistGradientBoostingRegressor`` as padded arrays
+    (trees × nodes), and every leaf's path (leaves × depth)."""
+
+    baseline: float
+    feature: np.ndarray
+    threshold: np.ndarray
+    left: np.ndarray
+    right: np.ndarray
+    value: np.ndarray
+    leaf: np.ndarray
+    depth: int
+    leaf_value: np.ndarray  # (L,) value of each leaf, trees in order
+    path_feature: np.ndarray  # (L, D) input split on at each step of the leaf's path; -1 pads
+    path_threshold: np.ndarray  # (L, D)
+    path_left: np.ndarray  # (L, D) bool: the path goes left there
+    path_fraction: np.ndarray  # (L, D) count(child) / count(both children); 1 pads
+
+
+def _trees(model) -> _Trees | None:
+    """The arrays of :class:`_Trees` for ``model`` (cached), or None where a
+    tree has categorical splits or an iteration holds more than one tree."""
+    try:
+        key, trees = _TREES[model]
+        if key is model._predictors:  # a refit makes a new list of trees
+            return trees
+    except KeyError:
+        pass
+    except TypeError:
+        return None
+    per_tree = []
+    for predictors in model._predictors:
+        if len(predictors) != 1:
+            return None
+        nodes = predictors[0].nodes
+        names = nodes.dtype.names
+        leaf = nodes["is_leaf"].astype(bool)
+        if "is_categorical" in names and np.any(nodes["is_categorical"][~leaf]):
+            return None
+        threshold = nodes["num_threshold"] if "num_threshold" in names else nodes["threshold"]
+        per_tree.append((nodes["feature_idx"].astype(np.intp), threshold.astype(float),
+                         nodes["left"].astype(np.intp), nodes["right"].astype(np.intp),
+                         nodes["value"].astype(float), leaf, nodes["count"].astype(float)))
+    if not per_tree:
+        return None
+    size = max(len(t[0]) for t in per_tree)
+
+    def pad(k, fill, dtype):
+        out = np.full((len(per_tree), size), fill, dtype=dtype)
+        for i, t in enumerate(per_tree):
+            out[i, :len(t[k])] = t[k]
+        return out
+
+    leaf_value, paths = [], []
+    for feature, threshold, left, right, value, leaf, count in per_tree:
+        stack = [(0, ())]
+        while stack:
+            i, path = stack.pop()
+            if leaf[i]:
+                leaf_value.append(float(value[i]))
+                paths.append(path)
+                continue
+            both = count[left[i]] + count[right[i]]
+            stack.append((int(right[i]), path + ((int(feature[i]), float(threshold[i]), False,
+                                                   count[right[i]] / both),)))
+            stack.append((int(left[i]), path + ((int(feature[i]), float(threshold[i]), True,
+                                                  count[left[i]] / both),)))
+    depth = max(len(p) for p in paths)
+    shape = (len(paths), depth)
+    path_feature, path_threshold = np.full(shape, -1, dtype=np.intp), np.zeros(shape)
+    path_left, path_fraction = np.ones(shape, dtype=bool), np.ones(shape)
+    for k, path in enumerate(paths):
+        for j, (f, t, go_left, q) in enumerate(path):
+            path_feature[k, j], path_threshold[k, j], path_left[k, j], path_fraction[k, j] = f, t, go_left, q
+    trees = _Trees(
+        baseline=float(np.asarray(model._baseline_prediction, dtype=float).reshape(-1)[0]),
+        feature=pad(0, 0, np.intp), threshold=pad(1, 0.0, float), left=pad(2, 0, np.intp), right=pad(3, 0, np.intp),
+        value=pad(4, 0.0, float), leaf=pad(5, True, bool), depth=depth, leaf_value=np.asarray(leaf_value),
+        path_feature=path_feature, path_threshold=path_threshold, path_left=path_left, path_fraction=path_fraction)
+    _TREES[model] = (model._predictors, trees)
+    return trees
+
+
+def _applies(model, X: np.ndarray) -> bool:
+    return (X.ndim == 2 and X.shape[1] == getattr(model, "n_features_in_", -1) and bool(np.all(np.isfinite(X)))
+            and type(model).__name__ == "HistGradientBoostingRegressor"
+            and getattr(model, "loss", None) == "squared_error")
+
+
+#: up to this many rows BoostingRegressor.predict walks the trees itself
+#: (tree_predict); above it scikit-learn's compiled predictor is faster
+TREE_PREDICT_ROWS = 512
+
+
+def tree_predict(model, X: np.ndarray):
+    """The prediction of a fitted scikit-learn ``HistGradientBoostingRegressor``
+    (squared error) at finite inputs, by walking its trees here with numpy;
+    None where this does not apply (missing values, categorical splits,
+    another loss), so that the caller uses ``model.predict``.
+
+    The same arithmetic as scikit-learn's: the baseline plus each tree's
+    leaf value, added tree by tree in order (so the same floats to the last
+    bit), a row going left where ``x <= threshold``. A what-if predicts one
+    row through a dozen such models, where scikit-learn's per-call set-up
+    (input checks, a parallel region per tree) costs far more than the trees.
+    """
+    X = np.asarray(X, dtype=float)
+    trees = _trees(model) if _applies(model, X) else None
+    if trees is None:
+        return None
+    n, n_trees = X.shape[0], trees.feature.shape[0]
+    node = np.zeros((n, n_trees), dtype=np.intp)
+    t = np.arange(n_trees)[None, :]
+    rows = np.arange(n)[:, None]
+    for _ in range(trees.depth):  # every leaf is at most `depth` splits down
+        go_left = X[rows, trees.feature[t, node]] <= trees.threshold[t, node]
+        step = np.where(go_left, trees.left[t, node], trees.right[t, node])
+        node = np.where(trees.leaf[t, node], node, step)
+    raw = np.zeros(n)
+    raw += trees.baseline
+    for k in range(n_trees):  # tree by tree, as scikit-learn adds them
+        raw += trees.value[k, node[:, k]]
+    return raw
+
+
+#: largest 2^inputs × rows × leaves for which :func:`tree_shap_values` enumerates
+#: coalitions; above it the shap package's polynomial algorithm is used
+TREE_SHAP_BUDGET = 20_000_000
+
+
+def tree_shap_values(model, X: np.ndarray):
+    """Exact path-dependent TreeSHAP values of a fitted scikit-learn
+    ``HistGradientBoostingRegressor`` and its expected value, or ``None``
+    where this direct computation does not apply (missing or non-finite
+    inputs, categorical splits, too many inputs × rows), so that the caller
+    uses ``shap.TreeExplainer``.
+
+    Definition (Lundberg, Erion & Lee 2018, arXiv:1802.03888, Algorithm 1;
+    Lundberg et al. 2020, Nat. Mach. Intell. 2:56-67): the value of a
+    coalition S of inputs is v(S) = E[f(x) | x_S], taken down each tree by
+    following x at a split on an input in S and otherwise averaging the two
+    children weighted by their training counts; so a leaf's weight is the
+    product, along its path, of 1{x goes this way} (input in S) or
+    count(child)/count(both children) (input not in S), and v(S) sums leaf
+    value × weight over all leaves of all trees. An input's value is its
+    Shapley value, φᵢ = Σ_{S ∌ i} |S|!(p−|S|−1)!/p! · (v(S ∪ {i}) − v(S)),
+    here by enumerating all 2^p coalitions (p inputs; a stage has a handful).
+    The expected value is v(∅) plus the baseline prediction. These are the
+    numbers shap's TreeExplainer computes with its polynomial-time algorithm
+    (a test compares them); doing it here keeps the several-second shap
+    import off a what-if.
+    """
+    X = np.asarray(X, dtype=float)
+    trees = _trees(model) if _applies(model, X) else None
+    if trees is None:
+        return None
+    n, p = X.shape
+    n_leaves = trees.leaf_value.size
+    if (2 ** p) * n * n_leaves > TREE_SHAP_BUDGET:
+        return None
+    feat = trees.path_feature
+    used = feat >= 0
+    # does row r follow leaf k's path at step j: (n, leaves, depth); padding steps count as followed
+    x_at = X[:, np.maximum(feat, 0)]
+    follow = np.where(trees.path_left[None], x_at <= trees.path_threshold[None], ~(x_at <= trees.path_threshold[None]))
+    follow = (follow | ~used[None]).astype(float)
+    masks = np.arange(2 ** p)
+    v = np.empty((2 ** p, n))
+    bits = used[None] & ((masks[:, None, None] >> np.maximum(feat, 0)[None]) & 1).astype(bool)
+    for m in masks:
+        w = np.where(bits[m][None], follow, trees.path_fraction[None]).prod(axis=2)  # (n, leaves)
+        v[m] = w @ trees.leaf_value
+    size = np.array([bin(m).count("1") for m in masks])
+    weight = np.array([math.factorial(s) * math.factorial(p - s - 1) / math.factorial(p) if s < p else 0.0
+                       for s in size])
+    phi = np.zeros((n, p))
+    for i in range(p):
+        without = masks[(masks >> i & 1) == 0]
+        phi[:, i] = weight[without] @ (v[without | (1 << i)] - v[without])
+    return phi, trees.baseline + float(v[0, 0])
 
 
 # ---------------------------------------------------------------------------

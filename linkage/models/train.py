@@ -22,6 +22,7 @@ Fallbacks (documented, never silent):
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import platform
 from dataclasses import dataclass
@@ -206,7 +207,9 @@ def _run_job(job: _Job) -> dict:
                         raise CandidateError("non-finite out-of-fold prediction")
                     lo, hi = cv_plus_interval(tr.extra_pred, tr.inner_fold, job.y_train - tr.inner_pred,
                                               job.alpha)
-                    res.update(pred=pred, low=lo, high=hi)
+                    # copies: the bounds are rows of an (n_train × n_test) work array, which a view
+                    # would keep alive until training ends (tens of GB at 10,000 lots)
+                    res.update(pred=pred, low=np.array(lo), high=np.array(hi))
                 out[name] = res
             except (CandidateError, InsufficientDataError, np.linalg.LinAlgError) as exc:
                 where = "the full-data fit" if job.fold is None else f"outer fold {job.fold + 1}"
@@ -280,22 +283,49 @@ def _jobs(plans: list[_Plan], seed: int, alpha: float) -> list[_Job]:
     return jobs
 
 
-def _run_all(jobs: list[_Job], n_jobs: int, progress) -> list[dict]:
+def _run_all(jobs: list[_Job], n_jobs: int, progress, backend: str | None = None) -> list[dict]:
     total = len(jobs)
     if progress is not None:
         progress("cross-validating", 0, total)
     results = []
-    if n_jobs == 1:
-        stream = map(_run_job, jobs)
-    else:
-        from joblib import Parallel, delayed
+    if n_jobs == 1 and backend is None:
+        for done, res in enumerate(map(_run_job, jobs), start=1):
+            results.append(res)
+            if progress is not None:
+                progress("cross-validating", done, total)
+        return results
+    from joblib import Parallel, delayed, parallel_config
 
+    with parallel_config(backend=backend) if backend is not None else contextlib.nullcontext():
         stream = Parallel(n_jobs=n_jobs, return_as="generator")(delayed(_run_job)(j) for j in jobs)
-    for done, res in enumerate(stream, start=1):
-        results.append(res)
-        if progress is not None:
-            progress("cross-validating", done, total)
+        for done, res in enumerate(stream, start=1):  # in job order, whatever the order they finish in
+            results.append(res)
+            if progress is not None:
+                progress("cross-validating", done, total)
     return results
+
+
+def _check_backend(backend: str | None) -> None:
+    """Refuse a joblib backend name that is not registered (the Dask one is
+    registered by joblib itself and needs dask.distributed and a client)."""
+    if backend is None:
+        return
+    from joblib.parallel import BACKENDS, EXTERNAL_BACKENDS
+
+    known = sorted(set(BACKENDS) | set(EXTERNAL_BACKENDS))
+    if not isinstance(backend, str) or backend not in known:
+        raise UsageError(f"unknown parallel backend {backend!r}; joblib knows: {', '.join(known)}")
+    if backend == "dask":
+        try:
+            from distributed import get_client
+        except ImportError:
+            raise UsageError("the dask backend needs Dask's distributed scheduler: install the 'distributed' "
+                             "extra (pip install 'linkage[distributed]')") from None
+        try:
+            get_client()
+        except ValueError:
+            raise UsageError("the dask backend needs a running Dask client: create one with "
+                             "dask.distributed.Client(<scheduler address>) before training") from None
 
 
 def _finish_target(plan: _Plan, fold_results: list[dict], full: dict, table: pd.DataFrame, seed: int,
@@ -393,7 +423,7 @@ def _training_record(table: pd.DataFrame, chain: ChainSpec, raw: pd.DataFrame, n
 
 def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: int = 0,
                 nominal_coverage: float = 0.9, progress: Callable[[str, int, int], None] | None = None,
-                n_jobs: int = 1, candidates: list[str] | None = None) -> FittedChain:
+                n_jobs: int = 1, candidates: list[str] | None = None, backend: str | None = None) -> FittedChain:
     """Train every target of the chain on the assembled table.
 
     Parameters
@@ -408,9 +438,17 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
         is reported.
     progress : called as ``progress(label, done, total)`` after each fold
         job (and once with ``done = 0`` before the first).
-    n_jobs : parallel jobs (joblib); 1 runs in this process.
+    n_jobs : parallel jobs (joblib); 1 runs in this process (unless a
+        ``backend`` is named); -1 uses every worker of the backend.
     candidates : candidate names to try (default all); ``mean`` is always
         included as the floor.
+    backend : joblib backend for the fold jobs (one job per outer fold and
+        target, with its inner grid fits): ``None`` for joblib's default
+        (worker processes), ``"threading"``, or ``"dask"`` to hand them to a
+        Dask cluster through the client already created in this process
+        (install the ``distributed`` extra). The jobs are seeded and
+        independent and come back in order, so every backend gives the same
+        chain.
 
     Raises
     ------
@@ -428,6 +466,7 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
         raise UsageError(f"nominal coverage must lie strictly between 0 and 1; got {nominal_coverage}")
     if not isinstance(n_jobs, int) or n_jobs == 0:
         raise UsageError(f"n_jobs must be a non-zero integer; got {n_jobs}")
+    _check_backend(backend)
     names = _candidate_names(candidates)
     created_at = datetime.now(timezone.utc).isoformat(timespec="microseconds")
     data, notes = _prepare(table, chain)
@@ -447,7 +486,7 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
 
     alpha = 1 - nominal
     jobs = _jobs(plans, seed, alpha)
-    results = _run_all(jobs, n_jobs, progress)
+    results = _run_all(jobs, n_jobs, progress, backend)
     folds: dict[int, list] = {i: [] for i in range(len(plans))}
     full: dict[int, dict] = {}
     for job, res in zip(jobs, results):
