@@ -33,7 +33,7 @@ from pathlib import Path
 
 from linkage.exceptions import LinkageError
 
-#: findings still open (numbers of /work/helper-notes/reliability-findings.md). Where a test has to step
+#: findings still open (numbers of tests/reliability/FINDINGS.md). Where a test has to step
 #: around one to check everything else, it does so only while the number is here; each is pinned by a
 #: test marked xfail(strict=True). When a finding is fixed, remove its number and flip that mark.
 OPEN_FINDINGS = {1, 16}

@@ -228,7 +228,7 @@ def test_a_busy_store_is_refused_clearly(tmp_path, counts, monkeypatch, no_env):
     counts["store busy refusals"] += 1
 
 
-@pytest.mark.xfail(strict=True, reason="see reliability-findings.md #16")
+@pytest.mark.xfail(strict=True, reason="see tests/reliability/FINDINGS.md #16")
 def test_a_store_created_between_the_two_reads_of_open(tmp_path, monkeypatch, counts):
     """The interleaving behind finding #16, made deterministic: another
     process creates the store (and commits) just after this one has read the
