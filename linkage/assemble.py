@@ -25,9 +25,8 @@ Methods (stated here because they change numbers):
   default) on the same curve.
 - ``rrsb_x_prime_um`` and ``rrsb_n`` are the least-squares RRSB fit of
   ln(−ln(1 − Q3)) on ln x over the apertures with 0 < Q3 < 100 %
-  (:func:`linkage.physics.psd.fit_rrsb`; for lots that share a sieve stack
-  solved in closed form, equal to it to rounding), given with at least 3
-  such apertures.
+  (:func:`linkage.physics.psd.fit_rrsb`), given with at least 3 such
+  apertures.
 - Tensile strength follows Fell & Newton (1970) for flat-faced tablets and
   Pitt, Newton & Stanley (1988) when a cup depth is given.
 - ``weight_rsd_pct`` comes from individual tablet weights when the lot has
@@ -233,14 +232,11 @@ def _sieve_stacks(names, sizes_all, masses_all, bounds, cutoff_um) -> dict[str, 
     The equations of the per-lot path through :mod:`linkage.physics.psd`
     (cumulative undersize, log-interpolated d-values, span, fines) on the
     whole lots × apertures matrix, each operation in the same floating-point
-    order, so that both paths give the same numbers to the last bit. The
-    exception is the RRSB fit: the same least squares of ln(−ln(1 − Q3)) on
-    ln x as :func:`~linkage.physics.psd.fit_rrsb`, solved here in closed form
-    (centred sums) rather than by LAPACK's SVD solver; the two agree to
-    rounding (relative differences of the order of 1e-15). Lots outside the
-    common case (a missing or negative mass, a zero total, repeated
-    apertures, a stack no other lot has) are left to the per-lot path, which
-    reports or refuses them as it always did.
+    order, so that both paths give the same numbers to the last bit (the RRSB
+    fits by the same LAPACK solver, many at once: see ``_rrsb_rows``). Lots
+    outside the common case (a missing or negative mass, a zero total,
+    repeated apertures, a stack no other lot has) are left to the per-lot
+    path, which reports or refuses them as it always did.
     """
     out: dict[str, tuple] = {}
     if not np.all(np.asarray(cutoff_um, dtype=float) > 0):
@@ -328,20 +324,41 @@ def _undersize_at_rows(x, t, U, size: float) -> np.ndarray:
 
 
 def _rrsb_rows(x, U, inside, fit):
-    """RRSB x' and n of every row with ``fit``: least squares of
-    v = ln(−ln(1 − Q3)) on u = ln x over the points inside (0, 100) %
-    (psd.fit_rrsb), in centred closed form."""
-    u = np.log(x)[None, :]
-    w = (inside & fit[:, None]).astype(float)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        v = np.where(w > 0, np.log(-np.log1p(-np.where(w > 0, U, 0.0) / 100.0)), 0.0)
-        cnt = w.sum(axis=1)
-        u_mean = (w * u).sum(axis=1) / cnt
-        v_mean = (w * v).sum(axis=1) / cnt
-        du = (u - u_mean[:, None]) * w
-        slope = (du * (v - v_mean[:, None])).sum(axis=1) / (du * du).sum(axis=1)
-        intercept = v_mean - slope * u_mean
-        x_prime = np.exp(-intercept / slope)  # ln x' = -b / n
+    """RRSB x' and n of every row with ``fit``, as psd.fit_rrsb(x, U[r])
+    computes them: least squares of v = ln(−ln(1 − Q3)) on u = ln x over the
+    points inside (0, 100) %, by LAPACK's SVD solver. The rows that use the
+    same points are solved in one call of numpy's least-squares kernel, which
+    solves each stacked problem exactly as ``np.linalg.lstsq`` solves one;
+    without that kernel, row by row through psd.fit_rrsb."""
+    n = U.shape[0]
+    x_prime, slope = np.full(n, np.nan), np.full(n, np.nan)
+    rows = np.flatnonzero(fit)
+    if rows.size == 0:
+        return x_prime, slope
+    try:
+        from numpy.linalg import _umath_linalg
+        kernel = _umath_linalg.lstsq
+    except (ImportError, AttributeError):
+        kernel = None
+    patterns, which = np.unique(inside[rows], axis=0, return_inverse=True)
+    for k, use in enumerate(patterns):
+        members = rows[which.reshape(-1) == k]
+        if kernel is None:
+            for r in members:
+                res = psd.fit_rrsb(x, U[r])
+                x_prime[r], slope[r] = res["x_prime_um"], res["n"]
+            continue
+        u = np.log(x[use])
+        q = U[np.ix_(members, np.flatnonzero(use))] / 100.0
+        v = np.log(-np.log1p(-q))  # ln(-ln(1 - Q3)), as psd.fit_rrsb
+        design = np.column_stack([u, np.ones_like(u)])
+        m = design.shape[0]
+        rcond = np.finfo(float).eps * max(2, m)  # np.linalg.lstsq's rcond=None
+        with np.errstate(over="ignore", divide="ignore", under="ignore", invalid="ignore"):
+            coef = kernel(np.broadcast_to(design, (len(members), m, 2)), v[:, :, None], rcond,
+                          signature="ddd->ddid")[0][:, :, 0]
+            slope[members] = coef[:, 0]
+            x_prime[members] = np.exp(-coef[:, 1] / coef[:, 0])  # ln x' = -b / n
     return x_prime, slope
 
 

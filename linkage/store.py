@@ -321,6 +321,8 @@ def _prepare_columns(tname: str, df: pd.DataFrame) -> dict[str, _LotTable] | Non
     canon: dict[str, list] = {}  # the same for the hash (numbers + 0.0: -0.0 is 0.0)
     keyed: dict[str, list] = {}  # column -> str of the canonical value (sort key of the hash)
     filled = np.zeros(n, dtype=np.int64)
+    empty: set[str] = set()  # columns missing in every row
+    partial: list[bool] = []  # per other column: missing in some row
     for c in columns:
         kind = kinds.get(c, "extra")
         col = df[c]
@@ -332,6 +334,10 @@ def _prepare_columns(tname: str, df: pd.DataFrame) -> dict[str, _LotTable] | Non
             missing = np.isnan(v)
             if np.isinf(v).any():
                 return None  # json refuses it: the cell-by-cell path raises as it always did
+            if missing.all():
+                empty.add(c)
+                keyed[c] = ["None"] * n
+                continue
             reprs = list(map(repr, v.tolist()))  # float.__repr__, as json writes floats
             data[c] = _pieces(name, reprs, missing)
             if np.any((v == 0) & np.signbit(v)):
@@ -341,8 +347,12 @@ def _prepare_columns(tname: str, df: pd.DataFrame) -> dict[str, _LotTable] | Non
                 canon[c] = data[c]
             keyed[c] = _missing_as_none(reprs, missing)
         elif kind == TEXT:
-            values = col.tolist()
             missing = col.isna().to_numpy()
+            if missing.all():
+                empty.add(c)
+                keyed[c] = ["None"] * n
+                continue
+            values = col.tolist()
             kept = [x for x, m in zip(values, missing.tolist()) if not m] if missing.any() else values
             if set(map(type, kept)) - {str}:
                 return None
@@ -354,6 +364,10 @@ def _prepare_columns(tname: str, df: pd.DataFrame) -> dict[str, _LotTable] | Non
                 return None
             ticks = col.to_numpy()
             missing = np.isnat(ticks)
+            if missing.all():
+                empty.add(c)
+                keyed[c] = ["None"] * n
+                continue
             whole = ticks[~missing]
             seconds = whole.astype("datetime64[s]")
             years = seconds.astype("datetime64[Y]").astype(np.int64) + 1970
@@ -368,12 +382,14 @@ def _prepare_columns(tname: str, df: pd.DataFrame) -> dict[str, _LotTable] | Non
             return None
         if kind != "extra" and c != "lot":
             filled += ~missing
+        partial.append(bool(missing.any()))
     key_cols = [c for c in tdef.key]
     if any(c not in keyed for c in key_cols):
         return None
-    complete = all(None not in data[c] for c in columns)
-    row_json = _join_rows([data[c] for c in columns], complete)
-    hash_json = _join_rows([canon[c] for c in sorted(columns)], complete)
+    kept = [c for c in columns if c not in empty]  # a column missing in every row adds nothing to a row
+    complete = not any(partial)
+    row_json = _join_rows([data[c] for c in kept], complete)
+    hash_json = _join_rows([canon[c] for c in sorted(kept)], complete)
     del data, canon
     sort_key = list(zip(*(keyed[c] for c in key_cols)))
     source_rows = df.attrs.get("source_rows", list(range(2, n + 2)))
@@ -381,15 +397,21 @@ def _prepare_columns(tname: str, df: pd.DataFrame) -> dict[str, _LotTable] | Non
     order = np.argsort(codes, kind="stable")
     bounds = np.concatenate([[0], np.cumsum(np.bincount(codes, minlength=len(lots)))]).tolist()
     per_lot_filled = np.bincount(codes, weights=filled, minlength=len(lots)).astype(np.int64).tolist()
-    order = order.tolist()
     rows = [int(r) for r in source_rows]
+    if not np.array_equal(order, np.arange(n)):  # lots not in blocks: put each lot's rows together
+        order = order.tolist()
+        row_json, hash_json = [row_json[k] for k in order], [hash_json[k] for k in order]
+        rows, sort_key = [rows[k] for k in order], [sort_key[k] for k in order]
     out = {}
+    sha256 = hashlib.sha256
     for j, lot in enumerate(lots.tolist()):
-        idx = order[bounds[j]:bounds[j + 1]]
-        ordered = sorted(idx, key=sort_key.__getitem__) if len(idx) > 1 else idx  # stable, as sorted() of rows
-        digest = hashlib.sha256(("[" + ", ".join([hash_json[k] for k in ordered]) + "]").encode()).hexdigest()
-        out[lot] = _LotTable([row_json[k] for k in idx], [rows[k] for k in idx], columns, digest,
-                             per_lot_filled[j])
+        a, b = bounds[j], bounds[j + 1]
+        if b - a > 1:
+            ordered = [hash_json[k] for k in sorted(range(a, b), key=sort_key.__getitem__)]  # stable, as sorted()
+        else:
+            ordered = hash_json[a:b]
+        digest = sha256(("[" + ", ".join(ordered) + "]").encode()).hexdigest()
+        out[lot] = _LotTable(row_json[a:b], rows[a:b], columns, digest, per_lot_filled[j])
     return out
 
 
