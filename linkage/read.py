@@ -90,6 +90,25 @@ per input table, ``[<table>.columns]``, maps a header as written in the file
 - An unknown table, target column, key or unit, or two headers mapped to one
   column, is an error naming ``columns.toml``.
 - Bounds are checked after conversion, in the template unit.
+
+Limits
+------
+A file larger than any real export is refused at once, before any cell is
+checked (a guard against a wrong or damaged file, and against a read that
+would take minutes); the rows of a CSV file are counted before it is even
+decoded, and those of a workbook sheet from the size it records:
+
+- at most ``MAX_ROWS`` (500,000) rows below the header per file or sheet.
+  Blank rows between data rows count, as they do in the row numbers; line
+  ends at the end of a CSV file do not. In a CSV file the rows are counted
+  as lines, so a line break inside a quoted cell counts as a row; in a
+  workbook they are the rows the sheet records (its used range). Split a
+  larger export into several ingests.
+- at most ``MAX_COLUMNS`` (16,384, the most a workbook sheet can hold)
+  columns in the header.
+- a CSV cell of at most ``csv.field_size_limit()`` characters (131,072 by
+  default); a longer one is a damaged or binary file.
+- ``columns.toml`` of at most ``MAX_MAPPING_BYTES`` (1,000,000 bytes).
 """
 
 from __future__ import annotations
@@ -100,6 +119,7 @@ import difflib
 import gc
 import hashlib
 import io
+import itertools
 import math
 import re
 import tomllib
@@ -120,6 +140,18 @@ SPEC_FILE = "spec.toml"
 DATA_SUFFIXES = (".csv", ".tsv", ".xlsx", ".xlsm")
 WORKBOOK_SUFFIXES = (".xlsx", ".xlsm")
 UNSUPPORTED_SUFFIXES = (".xls", ".ods", ".numbers", ".xlsb")
+
+#: most rows below the header in one file or sheet (see the module notes,
+#: Limits). A real export is far smaller: 1000 lots x 30 tablets is 30,000
+#: rows (common practice, no source); a million-row file took about 19 s and
+#: 720 MB to read (tests/reliability/FINDINGS.md #7).
+MAX_ROWS = 500_000
+#: most columns in a header: the most columns a spreadsheet program's .xlsx
+#: sheet holds (A to XFD, 16,384; from memory). A wider CSV is no export of a
+#: sheet; 100,000 columns took about a minute to read and ingest (FINDINGS.md #8).
+MAX_COLUMNS = 16_384
+#: largest columns.toml read; a real one is a few kB (common practice, no source)
+MAX_MAPPING_BYTES = 1_000_000
 
 #: template unit -> {unit a file may use: factor to the template unit}.
 #: SI prefixes and derived units (BIPM, The International System of Units,
@@ -310,24 +342,43 @@ def _unit_map(col: Column, source: str, value: dict, where: str, file: str,
             problems.append(Problem(file, f"{where}: give roll_width_mm or roll_width_cm, not both", column=source))
             return None
         raw = value[width_keys[0]]
-        if isinstance(raw, bool) or not isinstance(raw, (int, float)) or not raw > 0 or not math.isfinite(raw):
+        number = _finite_float(raw)
+        if number is None or not number > 0:
             problems.append(Problem(file, f"{where}: {width_keys[0]} must be a number > 0", column=source,
                                     value=raw))
             return None
-        width = float(raw) * (10.0 if width_keys[0] == "roll_width_cm" else 1.0)
+        width = number * (10.0 if width_keys[0] == "roll_width_cm" else 1.0)
     if total:
         return ColumnMap(source, col.name, norm, TOTAL_FORCE_UNITS[norm], total_force=True, roll_width_mm=width)
     return ColumnMap(source, col.name, norm, accepted[norm])
 
 
+def _finite_float(value: object) -> float | None:
+    """A TOML number as a finite float, or None (not a number, NaN, infinite,
+    or an integer beyond float range, where float() raises OverflowError)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return None
+    try:
+        number = float(value)
+    except OverflowError:
+        return None
+    return number if math.isfinite(number) else None
+
+
 def read_mapping(path: Path) -> Mapping:
     """Read and check a ``columns.toml`` mapping file."""
     path = Path(path)
+    size = path.stat().st_size
+    if size > MAX_MAPPING_BYTES:
+        raise InputError(Problem(path.name, f"{size:,} bytes; a mapping file may hold at most "
+                                            f"{MAX_MAPPING_BYTES:,} bytes (a real one is a few kB)"))
     data = path.read_bytes()
     try:
         parsed = tomllib.loads(data.decode("utf-8-sig"))
     except (UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
         raise InputError(Problem(path.name, f"not valid TOML: {exc}", row=_toml_line(exc))) from None
+    except RecursionError:  # tomllib is recursive: arrays or tables nested thousands deep
+        raise InputError(Problem(path.name, "not valid TOML: nested too deeply")) from None
     return Mapping.from_dict(parsed, path.name, hashlib.sha256(data).hexdigest())
 
 
@@ -375,6 +426,9 @@ def _read_csv(data: bytes, label: str) -> _Raw:
                                         "give it the .xlsx suffix"))
     if data.startswith((b"\xff\xfe", b"\xfe\xff")):
         raise InputError(Problem(label, "UTF-16 text; save the file as 'CSV UTF-8'"))
+    n_rows = _line_count(data) - 1
+    if n_rows > MAX_ROWS:
+        raise InputError(_too_many_rows(label, n_rows))
     try:
         text = data.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
@@ -387,16 +441,18 @@ def _read_csv(data: bytes, label: str) -> _Raw:
     if len(found) <= 1:
         sep = found[0] if found else ","
     else:
-        fits = [s for s in found if _fits(_records(text, s))]
+        fits = [s for s in found if _fits(_records(text, s, label))]
         if len(fits) != 1:
             shown = " and ".join("tab" if s == "\t" else repr(s) for s in found)
             raise InputError(Problem(label, f"cannot tell the separator: the header holds {shown} outside quotes "
                                             "and the rows do not settle it; quote header names that hold a "
                                             "separator", row=1))
         sep = fits[0]
-    records = _records(text, sep)
+    records = _records(text, sep, label)
     if not records or not any(c.strip() for c in records[0]):
         raise InputError(Problem(label, "the header must be on row 1 (row 1 is empty)", row=1))
+    if len(records[0]) > MAX_COLUMNS:
+        raise InputError(_too_many_columns(label, len(records[0])))
     header = list(records[0])
     raw = _Raw(label, header, [], sep)
     n = len(header)
@@ -435,9 +491,37 @@ def _header_separators(text: str) -> list[str]:
     return [s for s, k in counts.items() if k]
 
 
-def _records(text: str, sep: str) -> list[list[str]]:
+def _records(text: str, sep: str, label: str) -> list[list[str]]:
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=sep, quotechar='"', skipinitialspace=True)
-    return list(reader)
+    records: list[list[str]] = []
+    try:
+        records.extend(reader)  # the records before a failing one stay in the list
+    except csv.Error as exc:  # a cell longer than csv.field_size_limit(); NUL bytes are refused before
+        limit = csv.field_size_limit()
+        rule = (f"a cell is longer than {limit:,} characters (a damaged or binary file?)"
+                if "field limit" in str(exc) else f"cannot be read as CSV: {exc}")
+        raise InputError(Problem(label, rule, row=len(records) + 1)) from None
+    return records
+
+
+def _line_count(data: bytes) -> int:
+    """Lines of a text file from its bytes, without decoding: CRLF, LF and CR
+    each end a line; line ends at the very end of the file are not counted."""
+    body = data.rstrip(b"\r\n")
+    if not body:
+        return 0
+    return body.count(b"\n") + body.count(b"\r") - body.count(b"\r\n") + 1
+
+
+def _too_many_rows(label: str, n_rows: int | None) -> Problem:
+    shown = f"{n_rows:,} rows" if n_rows is not None else f"more than {MAX_ROWS:,} rows"
+    return Problem(label, f"{shown} below the header; at most {MAX_ROWS:,} data rows per file: split the export "
+                          "into several ingests")
+
+
+def _too_many_columns(label: str, n_columns: int) -> Problem:
+    return Problem(label, f"{n_columns:,} columns; at most {MAX_COLUMNS:,} columns per file (the most a workbook "
+                          "sheet holds): leave out the columns that are not needed", row=1)
 
 
 def _fits(records: list[list[str]]) -> bool:
@@ -460,10 +544,21 @@ def _open_workbook(path: Path, label: str):
 
 
 def _read_sheet(values_wb, formulas_wb, sheet: str, label: str) -> _Raw:
-    rows_v = list(values_wb[sheet].iter_rows(min_row=1, values_only=True))
-    rows_f = list(formulas_wb[sheet].iter_rows(min_row=1, values_only=True))
+    ws = values_wb[sheet]
+    # the size the sheet records for itself (None when it records none): refuse a huge one before reading
+    size: list[Problem] = []
+    if isinstance(ws.max_row, int) and ws.max_row - 1 > MAX_ROWS:
+        size.append(_too_many_rows(label, ws.max_row - 1))
+    if isinstance(ws.max_column, int) and ws.max_column > MAX_COLUMNS:
+        size.append(_too_many_columns(label, ws.max_column))
+    if size:
+        raise InputError(size)
+    rows_v = _sheet_rows(ws, sheet, label)
+    rows_f = _sheet_rows(formulas_wb[sheet], sheet, label)
     if not rows_v or not any(not _is_missing(c) for c in rows_v[0]):
         raise InputError(Problem(label, "the header must be on row 1 (row 1 is empty)", row=1))
+    if len(rows_v[0]) > MAX_COLUMNS:
+        raise InputError(_too_many_columns(label, len(rows_v[0])))
     header = [_norm_header(c) for c in rows_v[0]]
     raw = _Raw(label, header, [], None)
     n = len(header)
@@ -479,6 +574,24 @@ def _read_sheet(values_wb, formulas_wb, sheet: str, label: str) -> _Raw:
     return raw
 
 
+def _sheet_rows(ws, sheet: str, label: str) -> list[tuple]:
+    """The rows of a sheet as values, header first; at most MAX_ROWS below the
+    header (the sheet's recorded size may be missing or wrong, so the rows
+    are counted too). openpyxl parses cells lazily while the rows are
+    iterated, so a damaged cell (``<v>NaN</v>`` in a number cell) raises
+    here, not when the workbook is opened."""
+    rows: list[tuple] = []
+    try:
+        rows.extend(itertools.islice(ws.iter_rows(min_row=1, values_only=True), MAX_ROWS + 2))
+    except Exception as exc:  # openpyxl raises many kinds for a damaged sheet, as in _open_workbook
+        after = f" after row {len(rows)}" if rows else ""
+        raise InputError(Problem(label, f"cannot read sheet '{sheet}': a cell{after} is damaged ({exc}); "
+                                        "open and save the file in a spreadsheet program")) from None
+    if len(rows) - 1 > MAX_ROWS:
+        raise InputError(_too_many_rows(label, None))
+    return rows
+
+
 # --------------------------------------------------------------------------- cells
 
 
@@ -487,7 +600,10 @@ def _parse_number(cell: object, decimal: str, separator: str | None) -> float | 
     if isinstance(cell, bool):
         return "TRUE/FALSE is not a number"
     if isinstance(cell, (int, float)):
-        v = float(cell)
+        try:
+            v = float(cell)
+        except OverflowError:  # an integer of a workbook beyond float range (only a broken writer makes one)
+            return "not a finite number"
         return v if math.isfinite(v) else "not a finite number"
     if isinstance(cell, (dt.datetime, dt.date, dt.time)):
         return "a date is not a number"

@@ -46,7 +46,7 @@ from linkage.read import read_folder, read_mapping, read_table
 from linkage.schema import DATETIME, MISSING_TOKENS, NUMBER, QUALITY_ATTRIBUTES, TABLES
 from linkage.spec import plausible_range, read_spec
 
-from .helpers import OPEN_FINDINGS, Hang, clear_or_ok, run_cli, time_limit
+from .helpers import OPEN_FINDINGS, clear_or_ok, run_cli, time_limit
 
 pytestmark = pytest.mark.reliability
 
@@ -543,7 +543,6 @@ def test_spec_with_an_integer_beyond_float_range(tmp_path, counts):
     counts["files refused"] += 1
 
 
-@pytest.mark.xfail(strict=True, raises=OverflowError, reason="see tests/reliability/FINDINGS.md #1")
 def test_mapping_with_a_roll_width_beyond_float_range(tmp_path, counts):
     counts["fuzz cases tried"] += 1
     path = tmp_path / "columns.toml"
@@ -561,8 +560,7 @@ def test_chain_with_a_list_inside_inputs(tmp_path, counts):
     counts["files refused"] += 1
 
 
-@pytest.mark.parametrize("which", ["spec.toml", pytest.param("columns.toml", marks=pytest.mark.xfail(
-    strict=True, raises=RecursionError, reason="see tests/reliability/FINDINGS.md #3")), "chain.toml"])
+@pytest.mark.parametrize("which", ["spec.toml", "columns.toml", "chain.toml"])
 def test_deeply_nested_toml(tmp_path, which, counts):
     counts["fuzz cases tried"] += 1
     path = tmp_path / which
@@ -572,7 +570,6 @@ def test_deeply_nested_toml(tmp_path, which, counts):
     counts["files refused"] += 1
 
 
-@pytest.mark.xfail(strict=True, raises=csv.Error, reason="see tests/reliability/FINDINGS.md #4")
 @pytest.mark.parametrize("where", ["cell", "header"])
 def test_a_field_longer_than_128_kib(tmp_path, where, counts):
     """A 5 MB line: one cell (or header) of 5 million characters."""
@@ -615,14 +612,12 @@ def _patched_workbook(tmp_path: Path, literal: str) -> Path:
     return path
 
 
-@pytest.mark.xfail(strict=True, raises=OverflowError, reason="see tests/reliability/FINDINGS.md #5")
 def test_workbook_number_beyond_float_range(tmp_path, counts):
     counts["fuzz cases tried"] += 1
     _refused_clearly(read_table, _patched_workbook(tmp_path, "9" * 400))
     counts["files refused"] += 1
 
 
-@pytest.mark.xfail(strict=True, raises=ValueError, reason="see tests/reliability/FINDINGS.md #6")
 def test_workbook_number_cell_that_is_not_a_number(tmp_path, counts):
     counts["fuzz cases tried"] += 1
     result = _refused_clearly(read_table, _patched_workbook(tmp_path, "NaN"))
@@ -642,7 +637,6 @@ def test_workbook_infinite_number_refused(tmp_path, counts):
 WIDE_BOUND_S = 5.0
 
 
-@pytest.mark.xfail(strict=True, raises=Hang, reason="see tests/reliability/FINDINGS.md #8")
 def test_a_hundred_thousand_columns_is_read_or_refused_within_the_bound(tmp_path, counts, no_env):
     """process.csv with 100 000 extra columns (Excel's limit is 16 384): read
     and ingested, or refused, within WIDE_BOUND_S."""
@@ -681,7 +675,6 @@ cli.main(["ingest", folder, "--store", sys.argv[2]], prog_name="linkage")
 MILLION_BOUND_S = 5.0
 
 
-@pytest.mark.xfail(strict=True, reason="see tests/reliability/FINDINGS.md #7")
 def test_a_million_rows_is_read_or_refused_within_the_bound(tmp_path, counts):
     """`linkage ingest` of a folder whose tablet_weights.csv has a million
     rows (1000 lots x 1000 tablets) must finish, or refuse the file clearly,
