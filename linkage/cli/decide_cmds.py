@@ -9,7 +9,7 @@ import click
 
 from linkage import CAUTION
 from linkage.cli.common import PROBABILITY, handle_errors, json_option, models_dir_option, store_option
-from linkage.models.fitted import jsonable
+from linkage.jsonable import jsonable
 
 _model_option = click.option("--model", "model_id", default="latest", show_default=True,
                              help="Model id from 'linkage models', or 'latest'.")
@@ -135,7 +135,7 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, s
     """
     from linkage.decide.whatif import parse_assignments, predict_many, predict_whatif, read_rows
     from linkage.exceptions import UsageError
-    from linkage.models.registry import load
+    from linkage.models.registry import load_whatif
 
     spec = None
     if spec_path is not None:
@@ -143,7 +143,7 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, s
 
         spec = read_spec(spec_path)
     values = parse_assignments(list(assignments))
-    chain = load(models_dir, model_id)
+    chain = load_whatif(models_dir, model_id)  # numbers only: no scikit-learn or pandas to import
     if from_csv is not None:
         if values:
             raise UsageError("give either --set or --from-csv, not both")
@@ -204,11 +204,11 @@ def record(store, action: str, *, model_id: str, inputs, outputs, lot: str | Non
            prediction: bool = False) -> None:
     """Write to the store's audit trail (and its predictions table for a
     what-if) when the store exists; say so on stderr when it does not."""
-    from linkage.store import LotStore
-
     if not store.exists():
         click.echo(f"Note: no lot store at {store}; this {action} was not recorded in an audit trail.", err=True)
         return
+    from linkage.store import LotStore
+
     with LotStore(store, create=False) as s:
         if prediction:
             s.record_prediction(model_id, inputs, outputs, lot=lot)

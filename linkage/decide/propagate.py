@@ -19,7 +19,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import pandas as pd
 
 from linkage.exceptions import UsageError
 
@@ -37,20 +36,26 @@ class Draws:
         return next(iter(self.values.values())).shape[1]
 
 
-def simulate(chain, inputs: pd.DataFrame, *, n_draws: int = 2000, seed: int = 0) -> Draws:
+def simulate(chain, inputs, *, n_draws: int = 2000, seed: int = 0) -> Draws:
     """Draw ``n_draws`` lots for each row of ``inputs`` through the chain.
 
-    ``inputs`` holds one column per given name: root settings (all required;
-    the caller fills unset ones) and, optionally, measured stage targets such
-    as ``ribbon_porosity``, which replace the prediction for that target.
+    ``chain`` is a fitted chain or its lean form (:mod:`linkage.models.lean`;
+    the draws are computed on the lean form either way). ``inputs`` maps each
+    given name to its values, one per row (a DataFrame or a dict of arrays):
+    root settings (all required; the caller fills unset ones) and,
+    optionally, measured stage targets such as ``ribbon_porosity``, which
+    replace the prediction for that target.
     """
-    rows = len(inputs)
+    from linkage.models.lean import as_lean
+
+    chain = as_lean(chain)
+    columns = {str(name): np.asarray(inputs[name], dtype=float).reshape(-1) for name in inputs}
+    rows = len(next(iter(columns.values()))) if columns else 0
     rng = np.random.default_rng(seed)
     values: dict[str, np.ndarray] = {}
     means: dict[str, np.ndarray] = {}
-    fixed = set(inputs.columns)
-    for name in inputs.columns:
-        col = inputs[name].to_numpy(float)
+    fixed = set(columns)
+    for name, col in columns.items():
         values[name] = np.repeat(col[:, None], n_draws, axis=1)
         means[name] = col
     for stage in chain.stages:
@@ -61,37 +66,23 @@ def simulate(chain, inputs: pd.DataFrame, *, n_draws: int = 2000, seed: int = 0)
         if missing:
             raise UsageError(f"stage '{stage.name}' needs {', '.join(missing)}, which were neither given "
                              "nor predicted by an earlier stage")
-        residuals = stage.residual_table()
-        pick = rng.integers(0, len(residuals), size=n_draws)
+        pick = rng.integers(0, len(stage.residual_lots), size=n_draws)
         # one wide matrix: rows × draws, in row-major order
         x = {c: values[c].reshape(-1) for c in stage.inputs}
         x_mean = {c: means[c] for c in stage.inputs}
         for name in todo:
             target = stage.targets[name]
-            r = _residual_column(residuals, name, pick, rng)
-            pred = _predict(target, x).reshape(rows, n_draws)
+            r = _residual_column(stage.residual_column(name), name, pick, rng)
+            pred = target.predict(x).reshape(rows, n_draws)
             values[name] = pred + r[None, :]
-            means[name] = _predict(target, x_mean)
+            means[name] = target.predict(x_mean)
     return Draws(values=values, means=means, fixed=fixed)
 
 
-def _predict(target, columns: dict[str, np.ndarray]) -> np.ndarray:
-    """``target.predict`` on the named columns. The selected model is called
-    on the float matrix directly (a DataFrame of thousands of draws per call
-    costs more than the model); a non-finite input goes through
-    ``target.predict`` so that it is refused with the same error."""
-    # column-major, as DataFrame.to_numpy gives it, so the model sees the same array
-    X = np.vstack([np.asarray(columns[c], float) for c in target.inputs]).T
-    if not np.all(np.isfinite(X)):
-        return np.asarray(target.predict(pd.DataFrame({c: columns[c] for c in target.inputs})), float)
-    return np.asarray(target.model_.predict(X), float)
-
-
-def _residual_column(residuals: pd.DataFrame, name: str, pick: np.ndarray, rng) -> np.ndarray:
+def _residual_column(col: np.ndarray, name: str, pick: np.ndarray, rng) -> np.ndarray:
     """The picked lots' residuals of one target; a lot without that target is
     replaced by a random lot that has it (still one whole lot per draw for the
     targets it measured)."""
-    col = residuals[name].to_numpy(float)
     have = np.flatnonzero(~np.isnan(col))
     if len(have) == 0:
         raise UsageError(f"no out-of-fold residuals for {name}; the model cannot give it an uncertainty")
@@ -142,7 +133,7 @@ def fill_settings(chain, given: dict[str, float]) -> tuple[dict[str, float], dic
     median. Returns the values and, per name, where it came from."""
     values = dict(given)
     source = {name: "given" for name in given}
-    medians = chain.training["medians"]
+    medians = chain.medians if hasattr(chain, "medians") else chain.training["medians"]
     for name in needed_settings(chain, set(given)):
         if name not in medians or medians[name] is None or not np.isfinite(medians[name]):
             raise UsageError(f"{name} was not given and the training lots have no median for it; "

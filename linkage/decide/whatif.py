@@ -19,13 +19,11 @@ from __future__ import annotations
 
 import io
 import math
-from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 
 from linkage import CAUTION
 from linkage.decide.propagate import fill_settings, simulate, within
@@ -38,8 +36,11 @@ _FRACTIONS = {"ribbon_porosity", "ribbon_solid_fraction"}
 
 def valid_names(chain) -> list[str]:
     """Names a what-if accepts: the chain's settings and its stage targets."""
-    roots = list(chain.chain.root_inputs())
-    return roots + [t for t in chain.chain.targets() if t not in roots]
+    from linkage.models.lean import as_lean
+
+    lean = as_lean(chain)
+    roots = lean.root_inputs()
+    return roots + [t for t in lean.all_targets() if t not in roots]
 
 
 def parse_assignments(pairs: list[str]) -> dict[str, float]:
@@ -130,37 +131,19 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
                    n_draws: int = 4000, seed: int = 0, contributions: bool = True) -> WhatIf:
     """Predict every downstream attribute for one set of values.
 
-    Runs with one OpenMP thread: the models see a few thousand rows at most,
-    and on a small machine the thread start-up of the tree models' parallel
-    predictions costs more than it saves. The results do not depend on it.
+    ``chain`` is a fitted chain or its lean form (what ``linkage predict``
+    loads, :mod:`linkage.models.lean`); the arithmetic runs on the lean form
+    either way, so both give the same numbers.
     """
-    with _one_openmp_thread():
-        return _predict_whatif(chain, values, spec=spec, level=level, n_draws=n_draws, seed=seed,
-                               contributions=contributions)
+    from linkage.models.lean import as_lean
 
-
-_THREADS = None
-
-
-@contextmanager
-def _one_openmp_thread():
-    global _THREADS
-    from threadpoolctl import ThreadpoolController
-
-    if _THREADS is None or not _THREADS.select(user_api="openmp").lib_controllers:
-        _THREADS = ThreadpoolController()  # a few ms; kept, since limiting with it is then ~0.05 ms
-    with _THREADS.limit(limits=1, user_api="openmp"):
-        yield
-
-
-def _predict_whatif(chain, values: dict[str, float], *, spec, level, n_draws, seed, contributions) -> WhatIf:
+    chain = as_lean(chain)
     check_values(chain, values)
     level = float(level if level is not None else chain.nominal_coverage)
     if not 0 < level < 1:
         raise UsageError(f"interval level must lie between 0 and 1; got {level}")
     filled, source = fill_settings(chain, values)
-    frame = pd.DataFrame({k: [v] for k, v in filled.items()})
-    draws = simulate(chain, frame, n_draws=n_draws, seed=seed)
+    draws = simulate(chain, {k: [v] for k, v in filled.items()}, n_draws=n_draws, seed=seed)
     q = (1 - level) / 2
 
     predictions: dict[str, dict] = {}
@@ -173,19 +156,20 @@ def _predict_whatif(chain, values: dict[str, float], *, spec, level, n_draws, se
         todo = [t for t in stage.targets if t not in draws.fixed]
         if not todo:
             continue
-        x = pd.DataFrame({c: draws.means[c] for c in stage.inputs})
+        x = {c: draws.means[c] for c in stage.inputs}
         verdict = stage.domain.check(x)[0]
         domain[stage.name] = {
-            "in_domain": bool(verdict.in_domain), "t2": _num(verdict.t2), "t2_limit": _num(verdict.t2_limit),
-            "q": _num(verdict.q), "q_limit": _num(verdict.q_limit), "reasons": list(verdict.reasons),
+            "in_domain": bool(verdict["in_domain"]), "t2": _num(verdict["t2"]),
+            "t2_limit": _num(verdict["t2_limit"]), "q": _num(verdict["q"]), "q_limit": _num(verdict["q_limit"]),
+            "reasons": list(verdict["reasons"]),
         }
-        reasons += [f"{stage.name} stage: {r}" for r in verdict.reasons]
+        reasons += [f"{stage.name} stage: {r}" for r in verdict["reasons"]]
         inputs_known = all(c in draws.fixed for c in stage.inputs)
         for name in todo:
             target = stage.targets[name]
             v = draws.values[name][0]
             if inputs_known:
-                lo, hi = target.interval(x[target.inputs], level)
+                lo, hi = target.interval(x, level)
                 low, high, method = float(lo[0]), float(hi[0]), "cv+ conformal"
             else:
                 low, high = (float(a) for a in np.quantile(v, [q, 1 - q]))
@@ -201,12 +185,12 @@ def _predict_whatif(chain, values: dict[str, float], *, spec, level, n_draws, se
                 pass_all &= ok
                 any_spec = True
             if contributions:
-                entry["contributions"] = _top_contributions(target, x[target.inputs])
+                entry["contributions"] = _top_contributions(target, x)
             predictions[name] = entry
 
     inputs = {k: {"value": float(filled[k]), "source": source[k]} for k in filled}
     return WhatIf(
-        model_id=getattr(chain, "model_id", None) or "unsaved",
+        model_id=chain.model_id or "unsaved",
         made_at=datetime.now(timezone.utc).isoformat(timespec="seconds"),
         level=level, inputs=inputs, predictions=predictions,
         p_pass_all=float(pass_all.mean()) if any_spec else None,
@@ -214,11 +198,16 @@ def _predict_whatif(chain, values: dict[str, float], *, spec, level, n_draws, se
     )
 
 
-def predict_many(chain, rows: pd.DataFrame, **kwargs) -> list[WhatIf]:
-    """One what-if per row of ``rows`` (columns are names; empty cells are unset)."""
+def predict_many(chain, rows, **kwargs) -> list[WhatIf]:
+    """One what-if per row of ``rows``: a list of {name: value} dicts (or a
+    DataFrame, whose columns are names); empty cells are unset."""
+    from linkage.models.lean import as_lean
+
+    chain = as_lean(chain)
+    records_in = rows.to_dict(orient="records") if hasattr(rows, "to_dict") else list(rows)
     problems = []
     records = []
-    for i, rec in enumerate(rows.to_dict(orient="records"), start=2):
+    for i, rec in enumerate(records_in, start=2):
         values = {}
         for k, v in rec.items():
             if v is None or (isinstance(v, float) and math.isnan(v)) or (
@@ -236,18 +225,19 @@ def predict_many(chain, rows: pd.DataFrame, **kwargs) -> list[WhatIf]:
     return [predict_whatif(chain, values, **kwargs) for values in records]
 
 
-def _top_contributions(target, x: pd.DataFrame, n: int = 3) -> list[dict]:
-    c = target.contributions(x)
-    row = c.iloc[0]
-    order = row.abs().sort_values(ascending=False).index[:n]
-    return [{"input": str(k), "value": float(row[k])} for k in order]
+def _top_contributions(target, x: dict, n: int = 3) -> list[dict]:
+    values, _ = target.contributions(x)
+    row = values[0]
+    # largest absolute first; ties keep the order of the inputs (a stable sort)
+    order = sorted(range(len(row)), key=lambda j: -abs(row[j]))[:n]
+    return [{"input": str(target.inputs[j]), "value": float(row[j])} for j in order]
 
 
 def _num(v):
     return None if v is None or not np.isfinite(v) else float(v)
 
 
-def read_rows(path) -> tuple[pd.DataFrame, list[str | None]]:
+def read_rows(path) -> tuple[list[dict[str, str]], list[str | None]]:
     """Read a ``--from-csv`` file: a header of names, one what-if per row.
 
     Every cell is kept as text (parsed and checked by :func:`predict_many`).
@@ -269,10 +259,15 @@ def read_rows(path) -> tuple[pd.DataFrame, list[str | None]]:
     if not rows:
         raise UsageError(f"{path} is empty: it needs a header of names and one row per what-if")
     header = [h.strip() for h in rows[0]]
+    twice = sorted({h for h in header if header.count(h) > 1})
+    if twice:
+        raise UsageError(f"{path}: column {', '.join(repr(h) for h in twice)} appears more than once in the header")
     problems = [f"row {i}: {len(r)} fields under a header of {len(header)}"
                 for i, r in enumerate(rows[1:], start=2) if len(r) != len(header)]
     if problems:
         raise UsageError(f"{path}: " + "; ".join(problems))
-    frame = pd.DataFrame(rows[1:], columns=header, dtype=object)
-    lots = [str(v).strip() or None for v in frame["lot"]] if "lot" in frame else [None] * len(frame)
-    return frame.drop(columns=["lot"], errors="ignore"), lots
+    records = [dict(zip(header, r)) for r in rows[1:]]
+    lots = [str(r.get("lot", "")).strip() or None for r in records]
+    for r in records:
+        r.pop("lot", None)
+    return records, lots

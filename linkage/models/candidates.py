@@ -39,6 +39,8 @@ import numpy as np
 from sklearn.base import BaseEstimator, RegressorMixin
 
 from linkage.models.cv import inner_splits
+from linkage.models.lean import (quad_features, quadratic_contributions, quadratic_predict, tree_shap,
+                                 walk_trees)
 
 __all__ = [
     "CandidateError",
@@ -233,15 +235,6 @@ class PLSRegressor(RegressorMixin, BaseEstimator):
         return (X - self.x_mean_) * self.coef_, self.intercept_
 
 
-def _quad_features(Z: np.ndarray) -> np.ndarray:
-    n, p = Z.shape
-    cols = [Z, Z**2]
-    pairs = [Z[:, i] * Z[:, j] for i in range(p) for j in range(i + 1, p)]
-    if pairs:
-        cols.append(np.column_stack(pairs))
-    return np.hstack(cols)
-
-
 class QuadraticRidge(RegressorMixin, BaseEstimator):
     """Ridge regression on standardised inputs zᵢ, their squares zᵢ² and
     pairwise products zᵢzⱼ (intercept not penalised).
@@ -266,7 +259,7 @@ class QuadraticRidge(RegressorMixin, BaseEstimator):
         sd = X.std(axis=0)
         self.x_scale_ = np.where(_varying(X), sd, 1.0)
         Z = (X - self.x_mean_) / self.x_scale_
-        F = _quad_features(Z)
+        F = quad_features(Z)
         self.f_mean_ = F.mean(axis=0)
         Fc = F - self.f_mean_
         yc = y - y.mean()
@@ -277,29 +270,12 @@ class QuadraticRidge(RegressorMixin, BaseEstimator):
         self.z_m2_ = (Z**2).mean(axis=0)
         return self
 
-    def _z(self, X):
-        return (np.asarray(X, dtype=float) - self.x_mean_) / self.x_scale_
-
     def predict(self, X):
-        return _quad_features(self._z(X)) @ self.beta_ + self.intercept_
+        return quadratic_predict(X, self.x_mean_, self.x_scale_, self.beta_, self.intercept_)
 
     def contributions(self, X):
-        Z = self._z(X)
-        n, p = Z.shape
-        b = self.beta_
-        lin, sq = b[:p], b[p:2 * p]
-        m1, m2 = self.z_m1_, self.z_m2_
-        phi = lin * (Z - m1) + sq * (Z**2 - m2)
-        base = self.intercept_ + lin @ m1 + sq @ m2
-        k = 2 * p
-        for i in range(p):
-            for j in range(i + 1, p):
-                bij = b[k]
-                k += 1
-                phi[:, i] += 0.5 * bij * (Z[:, i] - m1[i]) * (Z[:, j] + m1[j])
-                phi[:, j] += 0.5 * bij * (Z[:, j] - m1[j]) * (Z[:, i] + m1[i])
-                base += bij * m1[i] * m1[j]
-        return phi, float(base)
+        return quadratic_contributions(X, self.x_mean_, self.x_scale_, self.beta_, self.intercept_, self.z_m1_,
+                                       self.z_m2_)
 
 
 class BoostingRegressor(RegressorMixin, BaseEstimator):
@@ -475,19 +451,7 @@ def tree_predict(model, X: np.ndarray):
     trees = _trees(model) if _applies(model, X) else None
     if trees is None:
         return None
-    n, n_trees = X.shape[0], trees.feature.shape[0]
-    node = np.zeros((n, n_trees), dtype=np.intp)
-    t = np.arange(n_trees)[None, :]
-    rows = np.arange(n)[:, None]
-    for _ in range(trees.depth):  # every leaf is at most `depth` splits down
-        go_left = X[rows, trees.feature[t, node]] <= trees.threshold[t, node]
-        step = np.where(go_left, trees.left[t, node], trees.right[t, node])
-        node = np.where(trees.leaf[t, node], node, step)
-    raw = np.zeros(n)
-    raw += trees.baseline
-    for k in range(n_trees):  # tree by tree, as scikit-learn adds them
-        raw += trees.value[k, node[:, k]]
-    return raw
+    return walk_trees(trees, X)
 
 
 #: largest 2^inputs × rows × leaves for which :func:`tree_shap_values` enumerates
@@ -525,26 +489,7 @@ def tree_shap_values(model, X: np.ndarray):
     n_leaves = trees.leaf_value.size
     if (2 ** p) * n * n_leaves > TREE_SHAP_BUDGET:
         return None
-    feat = trees.path_feature
-    used = feat >= 0
-    # does row r follow leaf k's path at step j: (n, leaves, depth); padding steps count as followed
-    x_at = X[:, np.maximum(feat, 0)]
-    follow = np.where(trees.path_left[None], x_at <= trees.path_threshold[None], ~(x_at <= trees.path_threshold[None]))
-    follow = (follow | ~used[None]).astype(float)
-    masks = np.arange(2 ** p)
-    v = np.empty((2 ** p, n))
-    bits = used[None] & ((masks[:, None, None] >> np.maximum(feat, 0)[None]) & 1).astype(bool)
-    for m in masks:
-        w = np.where(bits[m][None], follow, trees.path_fraction[None]).prod(axis=2)  # (n, leaves)
-        v[m] = w @ trees.leaf_value
-    size = np.array([bin(m).count("1") for m in masks])
-    weight = np.array([math.factorial(s) * math.factorial(p - s - 1) / math.factorial(p) if s < p else 0.0
-                       for s in size])
-    phi = np.zeros((n, p))
-    for i in range(p):
-        without = masks[(masks >> i & 1) == 0]
-        phi[:, i] = weight[without] @ (v[without | (1 << i)] - v[without])
-    return phi, trees.baseline + float(v[0, 0])
+    return tree_shap(trees, X)
 
 
 # ---------------------------------------------------------------------------

@@ -24,12 +24,13 @@ Limits
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from types import SimpleNamespace
 
 import numpy as np
 import pandas as pd
 
 from linkage.exceptions import InputError, InsufficientDataError, Problem
-from linkage.schema import ASSEMBLED
+from linkage.models.lean import domain_verdicts
 
 __all__ = [
     "t2_limit_phase1",
@@ -43,8 +44,6 @@ __all__ = [
 #: share of the standardised input variance the latent model must describe
 #: when the number of components is not given (common practice, no source)
 EXPLAINED_VARIANCE = 0.90
-
-_NOT_UNITS = {"-", "ISO 8601", "sieve | laser", "bool", "count"}
 
 
 def t2_limit_phase2(n: int, n_components: int, alpha: float = 0.05) -> float:
@@ -109,15 +108,6 @@ def q_limit_box(eigenvalues, alpha: float = 0.05) -> float:
     t1, t2, _ = _thetas(eigenvalues)
     g, h = t2 / t1, t1**2 / t2
     return float(g * stats.chi2.ppf(1 - alpha, h))
-
-
-def _fmt(v: float) -> str:
-    return f"{v:.4g}"
-
-
-def _with_unit(name: str, value: float) -> str:
-    unit = ASSEMBLED.get(name, "-")
-    return _fmt(value) if unit in _NOT_UNITS else f"{_fmt(value)} {unit}"
 
 
 @dataclass
@@ -304,54 +294,14 @@ class DomainModel:
                                       rule="column missing; the applicability domain needs every stage input")
                               for c in missing])
         values = X[self.inputs_].to_numpy(dtype=float)
-        level = f"{100 * (1 - self.alpha_):g}%"
-        out = []
-        for row in values:
-            reasons = []
-            for j, c in enumerate(self.inputs_):
-                v = row[j]
-                if not np.isfinite(v):
-                    reasons.append(f"{c} is missing")
-                    continue
-                lo, hi = self.ranges_.get(c, (np.nan, np.nan))
-                tol = 1e-9 * max(1.0, abs(hi - lo), abs(hi), abs(lo))
-                if v < lo - tol:
-                    reasons.append(f"{c} = {_with_unit(c, v)} is below the training range {_fmt(lo)}–{_fmt(hi)}")
-                elif v > hi + tol:
-                    reasons.append(f"{c} = {_with_unit(c, v)} is above the training range {_fmt(lo)}–{_fmt(hi)}")
-            if not np.all(np.isfinite(row)):
-                out.append(DomainVerdict(False, float("nan"), self.t2_limit_, float("nan"), self.q_limit_, reasons))
-                continue
-            z = (row - self.mean_) / self.scale_
-            A = self.n_components_
-            t = z @ self.rotations_
-            if A:
-                t2c = z * (self.rotations_ @ (t / self.score_var_))  # Σ_j z_j Σ_a r_ja t_a / s_a² = T²
-            else:
-                t2c = np.zeros_like(z)
-            e = z - self.loadings_ @ t
-            qc = e**2
-            t2, q = float(t2c.sum()), float(qc.sum())
-            share = np.zeros_like(z)
-            if self.t2_limit_:
-                share = share + t2c / self.t2_limit_
-            if self.q_limit_:
-                share = share + qc / self.q_limit_
-            names = self.inputs_
-            if self.t2_limit_ is not None and t2 > self.t2_limit_:
-                reasons.append(f"Hotelling T² {_fmt(t2)} above its {level} limit {_fmt(self.t2_limit_)} "
-                               f"(driven by {names[int(np.argmax(t2c))]})")
-            if self.q_limit_ is not None and q > self.q_limit_:
-                reasons.append(f"Q residual (squared prediction error) {_fmt(q)} above its {level} limit "
-                               f"{_fmt(self.q_limit_)} (driven by {names[int(np.argmax(qc))]})")
-            out.append(DomainVerdict(
-                in_domain=not reasons, t2=t2, t2_limit=self.t2_limit_, q=q, q_limit=self.q_limit_,
-                reasons=reasons,
-                contributions={c: float(v) for c, v in zip(names, share)},
-                t2_contributions={c: float(v) for c, v in zip(names, t2c)},
-                q_contributions={c: float(v) for c, v in zip(names, qc)},
-            ))
-        return out
+        return [DomainVerdict(**v) for v in domain_verdicts(self.lean(), values)]
+
+    def lean(self) -> SimpleNamespace:
+        """The fitted numbers :func:`linkage.models.lean.domain_verdicts` reads."""
+        return SimpleNamespace(
+            inputs=self.inputs_, ranges=self.ranges_, mean=self.mean_, scale=self.scale_,
+            rotations=self.rotations_, loadings=self.loadings_, score_var=self.score_var_,
+            n_components=self.n_components_, t2_limit=self.t2_limit_, q_limit=self.q_limit_, alpha=self.alpha_)
 
     def to_dict(self) -> dict:
         """JSON-safe summary for the model metadata."""

@@ -7,7 +7,6 @@ These are what the registry stores (joblib) and what ``decide`` and
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -17,6 +16,7 @@ from linkage import CAUTION
 from linkage.exceptions import InputError, Problem
 from linkage.models.chain import ChainSpec
 from linkage.models.conformal import cv_plus_interval
+from linkage.jsonable import jsonable
 
 __all__ = ["FittedTarget", "FittedStage", "FittedChain", "jsonable", "INTERVAL_METHOD", "COVERAGE_METHOD"]
 
@@ -34,24 +34,6 @@ COVERAGE_METHOD = (
     "there), and each held-out lot is checked against it; nothing of a held-out lot enters its own "
     "interval. The choice among candidates used every lot (a small optimism)."
 )
-
-
-def jsonable(obj):
-    """Plain JSON types; NaN and ±inf become None (never a silent NaN in JSON)."""
-    if isinstance(obj, dict):
-        return {str(k): jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [jsonable(v) for v in obj]
-    if isinstance(obj, (np.bool_, bool)):
-        return bool(obj)
-    if isinstance(obj, (np.integer,)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        v = float(obj)
-        return v if math.isfinite(v) else None
-    if isinstance(obj, np.ndarray):
-        return jsonable(obj.tolist())
-    return obj
 
 
 def _as_matrix(X, inputs: list[str], what: str) -> np.ndarray:

@@ -8,6 +8,7 @@ Layout::
       m-20260301T101500Z-1a2b3c4d/
         chain.joblib              the fitted chain
         chain.joblib.sha256       its SHA-256 (sha256sum format)
+        whatif.npz                the same model as numbers for the what-if (no pickle; linkage.models.lean)
         metadata.json             id, time, training lots, table hash, versions, chain, CV results...
 
 Rules:
@@ -21,7 +22,11 @@ Rules:
 * Before a load, the metadata's SHA-256 and the artifact's SHA-256 are
   checked against the index (and the metadata); a changed or foreign file is
   refused with :class:`ModelIntegrityError` and never passed to joblib,
-  because unpickling runs code.
+  because unpickling runs code. ``whatif.npz`` is checked against the
+  SHA-256 the (verified) metadata records for it before it is read.
+* :func:`load_whatif` gives the lean form (numpy only, fast to load) for a
+  what-if; a model saved before ``whatif.npz`` existed is loaded whole and
+  converted.
 * A model id is a plain name (``m-YYYYMMDDTHHMMSSZ-<8 hex>``); an id that is a
   path, climbs out (``..``), or a folder that is a symbolic link, is refused.
 * A model folder copied in from elsewhere is "foreign" until
@@ -48,13 +53,14 @@ from pathlib import Path
 
 from linkage.exceptions import ModelIntegrityError, ModelNotFoundError, UsageError
 
-__all__ = ["save", "load", "resolve", "list_models", "import_model", "verify", "record_decision", "decisions",
-           "INDEX", "ARTIFACT", "METADATA"]
+__all__ = ["save", "load", "load_whatif", "resolve", "list_models", "import_model", "verify", "record_decision",
+           "decisions", "INDEX", "ARTIFACT", "METADATA", "WHATIF"]
 
 INDEX = "registry.json"
 ARTIFACT = "chain.joblib"
 HASHFILE = "chain.joblib.sha256"
 METADATA = "metadata.json"
+WHATIF = "whatif.npz"
 LOCKFILE = ".registry.lock"
 TMP_PREFIX = ".tmp-"
 FORMAT = 1
@@ -283,7 +289,7 @@ def _new_id(chain, index: dict, models_dir: Path) -> str:
     raise RuntimeError("could not find a free model id")  # pragma: no cover
 
 
-def _install(models_dir: Path, model_id: str, artifact: bytes, metadata: bytes) -> None:
+def _install(models_dir: Path, model_id: str, artifact: bytes, metadata: bytes, whatif: bytes | None = None) -> None:
     """Write a model folder atomically: temp folder, fsync, metadata last, rename."""
     tmp = models_dir / f"{TMP_PREFIX}{model_id}-{os.getpid()}"
     if os.path.lexists(tmp):
@@ -293,6 +299,8 @@ def _install(models_dir: Path, model_id: str, artifact: bytes, metadata: bytes) 
         sha = _sha256(artifact)
         _write_file(tmp / ARTIFACT, artifact)
         _write_file(tmp / HASHFILE, f"{sha}  {ARTIFACT}\n".encode())
+        if whatif is not None:
+            _write_file(tmp / WHATIF, whatif)
         _write_file(tmp / METADATA, metadata)  # last: a folder with metadata has everything else
         _fsync_dir(tmp)
         os.rename(tmp, models_dir / model_id)
@@ -309,6 +317,7 @@ def save(chain, models_dir, *, in_service: bool = True) -> str:
     not promoted)."""
     import joblib
 
+    from linkage.models import lean
     from linkage.models.fitted import FittedChain
 
     if not isinstance(chain, FittedChain):
@@ -323,10 +332,13 @@ def save(chain, models_dir, *, in_service: bool = True) -> str:
             buf = io.BytesIO()
             joblib.dump(chain, buf)
             artifact = buf.getvalue()
+            whatif = lean.to_npz_bytes(lean.export(chain))
             meta = chain.metadata()
-            meta.update(artifact=ARTIFACT, artifact_sha256=_sha256(artifact), registry_format=FORMAT)
+            meta.update(artifact=ARTIFACT, artifact_sha256=_sha256(artifact), registry_format=FORMAT,
+                        whatif_artifact=WHATIF, whatif_artifact_sha256=_sha256(whatif),
+                        whatif_format=lean.FORMAT)
             meta_bytes = json.dumps(meta, indent=2, allow_nan=False, ensure_ascii=False).encode("utf-8")
-            _install(models_dir, model_id, artifact, meta_bytes)
+            _install(models_dir, model_id, artifact, meta_bytes, whatif)
         except BaseException:
             chain.model_id = previous
             raise
@@ -355,6 +367,30 @@ def load(models_dir, model_id: str | None = "latest"):
     chain = joblib.load(io.BytesIO(data))  # the bytes whose hash was just checked
     if not isinstance(chain, FittedChain) or chain.model_id != path.name:
         raise ModelIntegrityError(f"{path / ARTIFACT} does not hold the fitted chain {path.name}")
+    return chain
+
+
+def load_whatif(models_dir, model_id: str | None = "latest"):
+    """The lean form of a model (:class:`linkage.models.lean.LeanChain`) for a
+    what-if, after the same checks as :func:`load` and a check of
+    ``whatif.npz`` against the SHA-256 its metadata records. Neither
+    scikit-learn nor pandas is imported, and nothing is unpickled. A model
+    saved before ``whatif.npz`` existed is loaded whole and converted."""
+    from linkage.models import lean
+
+    models_dir = Path(models_dir)
+    path = resolve(models_dir, model_id)
+    meta, _ = verify(models_dir, path.name)
+    recorded = meta.get("whatif_artifact_sha256")
+    if recorded is None:
+        return lean.from_fitted(load(models_dir, path.name))
+    data = _read_plain(path / WHATIF, "what-if file")
+    if _sha256(data) != recorded:
+        raise ModelIntegrityError(f"{path / WHATIF} does not match the SHA-256 its metadata records; it was "
+                                  "changed after the model was saved. Refused.")
+    chain = lean.from_npz_bytes(data)
+    if chain.model_id != path.name:
+        raise ModelIntegrityError(f"{path / WHATIF} does not hold the model {path.name}")
     return chain
 
 
@@ -427,6 +463,12 @@ def import_model(src_dir, models_dir, source_note: str) -> str:
     if _sha256(artifact) != meta.get("artifact_sha256"):
         raise ModelIntegrityError(
             f"{src / ARTIFACT} does not match the SHA-256 in its own metadata; it was changed. Not imported.")
+    whatif = None
+    if meta.get("whatif_artifact_sha256") is not None:
+        whatif = _read_plain(src / WHATIF, "what-if file")
+        if _sha256(whatif) != meta["whatif_artifact_sha256"]:
+            raise ModelIntegrityError(
+                f"{src / WHATIF} does not match the SHA-256 in its own metadata; it was changed. Not imported.")
     models_dir = _registry_dir(models_dir)
     with _locked(models_dir):
         index = _read_index(models_dir)
@@ -438,7 +480,7 @@ def import_model(src_dir, models_dir, source_note: str) -> str:
             if src.resolve() != _model_dir(models_dir, model_id).resolve():
                 raise UsageError(f"{dest} already exists and is not {src}; not imported")
         else:
-            _install(models_dir, model_id, artifact, meta_bytes)
+            _install(models_dir, model_id, artifact, meta_bytes, whatif)
         index["models"][model_id] = {
             "artifact_sha256": meta["artifact_sha256"],
             "metadata_sha256": _sha256(meta_bytes),

@@ -61,6 +61,8 @@ TARGET_TRAIN_RATIO = 1.3
 TARGET_TRAIN_1000_S = 60.0
 TARGET_INGEST_S = 30.0
 TARGET_INGEST_MB = 2048.0
+#: most lots per ingest folder (11 sieve rows a lot stay under linkage.read.MAX_ROWS)
+CHUNK_LOTS = 25_000
 
 
 def _peak_mb() -> float:
@@ -75,11 +77,32 @@ def _emit(payload: dict) -> None:
 # steps, each run as `bench.py _<step> ...` in its own process
 # ---------------------------------------------------------------------------
 def step_generate(n: int, folder: str) -> None:
+    """The lots as CSV in ``folder``; above :data:`CHUNK_LOTS` lots, in
+    ``folder/part-1``, ``part-2``, ... of at most that many lots each (one file
+    holds at most 500,000 data rows, ``linkage.read.MAX_ROWS``: a site's
+    history goes in as several ingests, as it would from exports by period)."""
+    import dataclasses
+
     from linkage.synthetic import WINDOW_SPEC, Truth, make_lots
 
     lots = make_lots(n, seed=SEED, truth=Truth.window_scenario())
-    lots.write_csv(folder, spec=WINDOW_SPEC)
-    _emit({"rows": {k: len(v) for k, v in lots.tables.items()}})
+    ids = list(lots.tables["process"]["lot"])
+    chunks = [ids[i:i + CHUNK_LOTS] for i in range(0, len(ids), CHUNK_LOTS)]
+    if len(chunks) == 1:
+        lots.write_csv(folder, spec=WINDOW_SPEC)
+    else:
+        for k, chunk in enumerate(chunks, start=1):
+            keep = set(chunk)
+            part = dataclasses.replace(lots, tables={name: t[t["lot"].isin(keep)] for name, t in lots.tables.items()})
+            part.write_csv(Path(folder) / f"part-{k}", spec=WINDOW_SPEC)
+        Path(folder, "spec.toml").write_text(Path(folder, "part-1", "spec.toml").read_text())
+    _emit({"rows": {k: len(v) for k, v in lots.tables.items()}, "parts": len(chunks)})
+
+
+def ingest_folders(folder) -> list[Path]:
+    """The folders ``linkage ingest`` is run on, in order."""
+    parts = sorted(Path(folder).glob("part-*"), key=lambda p: int(p.name.split("-")[1]))
+    return parts or [Path(folder)]
 
 
 def step_ingest(folder: str, store: str) -> None:
@@ -87,7 +110,11 @@ def step_ingest(folder: str, store: str) -> None:
     from linkage.store import LotStore
 
     t0 = time.perf_counter()
-    checked = read_folder(Path(folder), known_lots=[])  # as `linkage ingest` into a new store
+    known = []
+    if Path(store).exists():
+        with LotStore(Path(store), create=False) as s:
+            known = s.lots()
+    checked = read_folder(Path(folder), known_lots=known)  # as `linkage ingest`
     t1 = time.perf_counter()
     with LotStore(Path(store)) as s:
         s.ingest(checked)
@@ -303,13 +330,16 @@ def step_decide(models_dir: str, store: str, spec_path: str, runs: int) -> None:
     _emit({"window_s": window_s, "report_s": report_s, "window_found": found, "peak_mb": _peak_mb()})
 
 
-def step_whatif(models_dir: str, spec_path: str, runs: int) -> None:
+def step_whatif(models_dir: str, spec_path: str, runs: int, form: str = "lean") -> None:
+    """One what-if, in process: on the registry's lean form
+    (``registry.load_whatif``, what ``linkage predict`` uses), or on the
+    fitted chain as trained (``registry.load``; converted on each call)."""
     t0 = time.perf_counter()
     from linkage.decide.whatif import predict_whatif
-    from linkage.models.registry import load
+    from linkage.models.registry import load, load_whatif
     from linkage.spec import read_spec
 
-    chain = load(Path(models_dir), "latest")
+    chain = (load_whatif if form == "lean" else load)(Path(models_dir), "latest")
     spec = read_spec(Path(spec_path))
     load_s = time.perf_counter() - t0
     t0 = time.perf_counter()
@@ -320,8 +350,9 @@ def step_whatif(models_dir: str, spec_path: str, runs: int) -> None:
         t0 = time.perf_counter()
         predict_whatif(chain, dict(WHATIF), spec=spec)
         times.append(time.perf_counter() - t0)
-    _emit({"import_and_load_s": load_s, "first_s": first_s, "times_s": times,
-           "shap_imported": "shap" in sys.modules, "peak_mb": _peak_mb()})
+    heavy = sorted(m for m in ("sklearn", "pandas", "scipy", "shap") if m in sys.modules)
+    _emit({"import_and_load_s": load_s, "first_s": first_s, "times_s": times, "form": form,
+           "heavy_imported": heavy, "shap_imported": "shap" in sys.modules, "peak_mb": _peak_mb()})
 
 
 STEPS = {"_generate": step_generate, "_ingest": step_ingest, "_assemble": step_assemble, "_train": step_train,
@@ -466,7 +497,9 @@ def main(argv=None) -> int:
                 store = work / f"store-{n}.db"
                 for suffix in ("", "-wal", "-shm"):
                     Path(f"{store}{suffix}").unlink(missing_ok=True)
-                a = run_step("_ingest", folder, store)
+                parts = [run_step("_ingest", part, store) for part in ingest_folders(folder)]
+                a = {"read_s": sum(x["read_s"] for x in parts), "store_s": sum(x["store_s"] for x in parts),
+                     "peak_mb": max(x["peak_mb"] for x in parts), "ingests": len(parts)}
                 b = run_step("_assemble", store, folder / "spec.toml")
                 runs.append({**a, **b})
                 log(f"ingest+assemble {n} lots, run {r + 1}: "
@@ -474,6 +507,7 @@ def main(argv=None) -> int:
             keys = ("read_s", "store_s", "current_s", "assemble_s")
             totals = [sum(x[k] for k in keys) for x in runs]
             res["ingest"][n] = {"raw_rows": sum(gen["rows"].values()), "rows": gen["rows"], "runs": len(runs),
+                                "ingests": runs[0]["ingests"],
                                 **{k: med([x[k] for x in runs]) for k in keys},
                                 "total_s": med(totals), "totals": totals,
                                 "peak_mb": max(max(x["peak_mb"] for x in runs), 0.0)}
@@ -502,6 +536,7 @@ def main(argv=None) -> int:
         log(f"window {res['decide']['window_s']}, report {res['decide']['report_s']}")
         # ---- what-if, in process
         res["whatif"]["default"] = run_step("_whatif", work / "models-1000", spec, args.whatif_runs)
+        res["whatif"]["fitted"] = run_step("_whatif", work / "models-1000", spec, args.whatif_runs, "fitted")
         models_sets = {"default": work / "models-1000"}
         if not args.no_boosting_whatif:
             models_sets["boosting"] = work / "models-1000-boosting"
@@ -601,6 +636,9 @@ def report(res, info, started, finished, args, sizes, train_sizes) -> str:
           f"1,000 lots and up, {fmt(all_exp)} over every size (the smallest sizes are mostly fixed costs).",
           "'read + check' is `read_folder` (parse and check every cell); 'store' is `LotStore.ingest` (one "
           "transaction: every raw row as JSON, content hashes, revisions); the two are `linkage ingest`. "
+          f"Above {CHUNK_LOTS:,} lots the lots go in as several ingests of at most {CHUNK_LOTS:,} lots each "
+          "into one store (a file holds at most 500,000 data rows), each in its own process; their times are "
+          "added up. "
           "'current tables' and 'assemble' are `linkage assemble`. Peak memory is the larger of the two "
           "processes.", ""]
     # ---- train
@@ -640,8 +678,11 @@ def report(res, info, started, finished, args, sizes, train_sizes) -> str:
           f"One what-if: `ribbon_porosity = {WHATIF['ribbon_porosity']}` measured, the other settings at their "
           "training medians, with the spec (probabilities of passing), the 1,000-lot model.", "",
           "| what | median | first call | runs |", "|---|---:|---:|---:|"]
-    for key, label in (("default", "in process, `predict_whatif` (selected models as trained)"),
-                       ("boosting", "in process, every attribute on boosting (`candidates=['boosting']`)")):
+    for key, label in (("default", "in process, `predict_whatif` on `registry.load_whatif` (the lean form)"),
+                       ("fitted", "in process, `predict_whatif` on `registry.load` (the fitted chain, converted "
+                                  "on each call)"),
+                       ("boosting", "in process, every attribute on boosting (`candidates=['boosting']`), "
+                                    "lean form")):
         w = res["whatif"].get(key)
         if w:
             L.append(f"| {label} | {fmt(1000 * med(w['times_s']), 1)} ms | {fmt(1000 * w['first_s'], 1)} ms | "
@@ -657,11 +698,15 @@ def report(res, info, started, finished, args, sizes, train_sizes) -> str:
         L += ["", f"Start-up ratio (what-if CLI / bare import): {fmt(ratio_cli)}×"
               + (f"; with every attribute on boosting {fmt(cli['boosting']['median_s'] / bare_s)}×" if "boosting"
                  in cli else "") + ". The CLI and the bare import ran interleaved in the same run. The CLI run "
-              "includes loading the model from the registry (checksum, unpickling), the what-if, printing and "
-              "recording it in the store's audit trail."]
+              "includes loading the model from the registry (checksums of every file of the model, reading "
+              "`whatif.npz`), the what-if, printing and recording it in the store's audit trail."]
     if wi:
-        L += ["", f"In process: importing linkage and loading the model took {fmt(wi['import_and_load_s'])} s "
-              f"before the first call; shap imported: {wi['shap_imported']}."]
+        L += ["", f"In process: importing linkage and loading the lean form took {fmt(wi['import_and_load_s'])} s "
+              f"before the first call; heavy libraries imported: {', '.join(wi['heavy_imported']) or 'none'}."]
+    fw = res["whatif"].get("fitted")
+    if fw:
+        L += [f"With the fitted chain: importing and loading took {fmt(fw['import_and_load_s'])} s; heavy "
+              f"libraries imported: {', '.join(fw['heavy_imported']) or 'none'}."]
     return "\n".join(L) + "\n"
 
 
@@ -669,7 +714,7 @@ if __name__ == "__main__":
     if len(sys.argv) > 1 and sys.argv[1] in STEPS:
         step, rest = STEPS[sys.argv[1]], sys.argv[2:]
         conv = {"_generate": (int, str), "_ingest": (str, str), "_assemble": (str, str),
-                "_train": (str, str, str, str), "_decide": (str, str, str, int), "_whatif": (str, str, int)}
+                "_train": (str, str, str, str), "_decide": (str, str, str, int), "_whatif": (str, str, int, str)}
         step(*(f(a) for f, a in zip(conv[sys.argv[1]], rest)))
         sys.exit(0)
     sys.exit(main())

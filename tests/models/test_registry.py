@@ -35,7 +35,7 @@ def test_save_and_load_round_trip(fit, tmp_path):
     mid = save(fit, tmp_path)
     assert registry.ID_RE.match(mid)
     folder = tmp_path / mid
-    assert sorted(p.name for p in folder.iterdir()) == ["chain.joblib", "chain.joblib.sha256", "metadata.json"]
+    assert sorted(p.name for p in folder.iterdir()) == ["chain.joblib", "chain.joblib.sha256", "metadata.json", "whatif.npz"]
     meta = json.loads((folder / "metadata.json").read_text())
     assert meta["model_id"] == mid and meta["training"]["n_lots"] == 8
     assert (folder / "chain.joblib.sha256").read_text().split()[0] == meta["artifact_sha256"]

@@ -1,0 +1,488 @@
+"""A fitted chain as plain numbers: what a what-if needs, evaluated with
+numpy alone.
+
+A what-if is asked while the operator waits at the press. Loading the fitted
+chain as trained (a joblib pickle of scikit-learn and pandas objects) costs
+the import of both libraries, seconds on a small machine, for arithmetic
+that is a few matrix products. So the registry also saves each model in this
+form (``whatif.npz``: arrays, and a JSON header, read with
+``allow_pickle=False``, so loading it runs no code), and the what-if, the
+window and the curves run on it in process too: one implementation of the
+prediction arithmetic, used by the estimators themselves
+(:mod:`linkage.models.candidates` calls the functions below).
+
+What is kept, per attribute: the selected model and its cross-validation
+fold models (for the CV+ interval), the out-of-fold residuals by lot (for
+the Monte Carlo through the chain), the fold of each lot; per stage: the
+applicability-domain model. Model kinds:
+
+``mean``       the training mean
+``rd``         Ryshkewitch–Duckworth y0·exp(−k·ε) on the porosity column
+``linear``     PLS as coefficients on the centred inputs
+``quadratic``  ridge on standardised inputs, squares and pairwise products
+``trees``      gradient-boosted trees as node arrays and leaf paths
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import math
+from types import SimpleNamespace
+
+import numpy as np
+
+from linkage.exceptions import InputError, Problem, UsageError
+
+__all__ = ["LeanChain", "from_fitted", "as_lean", "to_npz_bytes", "from_npz_bytes", "FORMAT",
+           "quad_features", "quadratic_predict", "quadratic_contributions", "walk_trees", "tree_shap",
+           "domain_verdicts"]
+
+FORMAT = 1
+
+
+# ---------------------------------------------------------------------------
+# the arithmetic (the estimators in candidates.py call these too)
+# ---------------------------------------------------------------------------
+def quad_features(Z: np.ndarray) -> np.ndarray:
+    """[z, z², zᵢzⱼ (i < j)] for each row of the standardised inputs Z."""
+    n, p = Z.shape
+    cols = [Z, Z**2]
+    pairs = [Z[:, i] * Z[:, j] for i in range(p) for j in range(i + 1, p)]
+    if pairs:
+        cols.append(np.column_stack(pairs))
+    return np.hstack(cols)
+
+
+def quadratic_predict(X, x_mean, x_scale, beta, intercept) -> np.ndarray:
+    Z = (np.asarray(X, dtype=float) - x_mean) / x_scale
+    return quad_features(Z) @ beta + intercept
+
+
+def quadratic_contributions(X, x_mean, x_scale, beta, intercept, z_m1, z_m2):
+    """Exact interventional Shapley values of the quadratic ridge (see
+    :class:`linkage.models.candidates.QuadraticRidge`) and the base value."""
+    Z = (np.asarray(X, dtype=float) - x_mean) / x_scale
+    n, p = Z.shape
+    b = beta
+    lin, sq = b[:p], b[p:2 * p]
+    m1, m2 = z_m1, z_m2
+    phi = lin * (Z - m1) + sq * (Z**2 - m2)
+    base = intercept + lin @ m1 + sq @ m2
+    k = 2 * p
+    for i in range(p):
+        for j in range(i + 1, p):
+            bij = b[k]
+            k += 1
+            phi[:, i] += 0.5 * bij * (Z[:, i] - m1[i]) * (Z[:, j] + m1[j])
+            phi[:, j] += 0.5 * bij * (Z[:, j] - m1[j]) * (Z[:, i] + m1[i])
+            base += bij * m1[i] * m1[j]
+    return phi, float(base)
+
+
+def walk_trees(trees, X: np.ndarray) -> np.ndarray:
+    """Prediction of boosted trees held as padded node arrays (trees × nodes:
+    ``feature``, ``threshold``, ``left``, ``right``, ``value``, ``leaf``,
+    ``depth``, ``baseline``) at finite inputs: the baseline plus each tree's
+    leaf value, added tree by tree in order, a row going left where
+    ``x <= threshold``; the arithmetic of scikit-learn's
+    ``HistGradientBoostingRegressor.predict`` (a test compares them bit for bit)."""
+    X = np.asarray(X, dtype=float)
+    n, n_trees = X.shape[0], trees.feature.shape[0]
+    node = np.zeros((n, n_trees), dtype=np.intp)
+    t = np.arange(n_trees)[None, :]
+    rows = np.arange(n)[:, None]
+    for _ in range(int(trees.depth)):  # every leaf is at most `depth` splits down
+        go_left = X[rows, trees.feature[t, node]] <= trees.threshold[t, node]
+        step = np.where(go_left, trees.left[t, node], trees.right[t, node])
+        node = np.where(trees.leaf[t, node], node, step)
+    raw = np.zeros(n)
+    raw += float(trees.baseline)
+    for k in range(n_trees):  # tree by tree, as scikit-learn adds them
+        raw += trees.value[k, node[:, k]]
+    return raw
+
+
+def tree_shap(trees, X: np.ndarray):
+    """Exact path-dependent TreeSHAP values and the expected value, from the
+    leaf paths of the trees (``leaf_value``, ``path_feature``,
+    ``path_threshold``, ``path_left``, ``path_fraction``); see
+    :func:`linkage.models.candidates.tree_shap_values` for the definition
+    (Lundberg, Erion & Lee 2018, arXiv:1802.03888, Algorithm 1), enumerating
+    the 2^p coalitions of the p inputs."""
+    X = np.asarray(X, dtype=float)
+    n, p = X.shape
+    feat = trees.path_feature
+    used = feat >= 0
+    # does row r follow leaf k's path at step j: (n, leaves, depth); padding steps count as followed
+    x_at = X[:, np.maximum(feat, 0)]
+    follow = np.where(trees.path_left[None], x_at <= trees.path_threshold[None], ~(x_at <= trees.path_threshold[None]))
+    follow = (follow | ~used[None]).astype(float)
+    masks = np.arange(2 ** p)
+    v = np.empty((2 ** p, n))
+    bits = used[None] & ((masks[:, None, None] >> np.maximum(feat, 0)[None]) & 1).astype(bool)
+    for m in masks:
+        w = np.where(bits[m][None], follow, trees.path_fraction[None]).prod(axis=2)  # (n, leaves)
+        v[m] = w @ trees.leaf_value
+    size = np.array([bin(m).count("1") for m in masks])
+    weight = np.array([math.factorial(s) * math.factorial(p - s - 1) / math.factorial(p) if s < p else 0.0
+                       for s in size])
+    phi = np.zeros((n, p))
+    for i in range(p):
+        without = masks[(masks >> i & 1) == 0]
+        phi[:, i] = weight[without] @ (v[without | (1 << i)] - v[without])
+    return phi, float(trees.baseline) + float(v[0, 0])
+
+
+# ---------------------------------------------------------------------------
+# applicability domain (DomainModel.check calls this too)
+# ---------------------------------------------------------------------------
+_NOT_UNITS = {"-", "ISO 8601", "sieve | laser", "bool", "count"}
+
+
+def _fmt(v: float) -> str:
+    return f"{v:.4g}"
+
+
+def _with_unit(name: str, value: float) -> str:
+    from linkage.schema import ASSEMBLED
+
+    unit = ASSEMBLED.get(name, "-")
+    return _fmt(value) if unit in _NOT_UNITS else f"{_fmt(value)} {unit}"
+
+
+def domain_verdicts(d, values: np.ndarray) -> list[dict]:
+    """Applicability-domain verdict of each row of ``values`` (columns in the
+    order of ``d.inputs``), as dicts with the fields of
+    :class:`linkage.models.domain.DomainVerdict`. ``d`` holds the fitted
+    domain model: ``inputs``, ``ranges`` {input: (low, high)}, ``mean``,
+    ``scale``, ``rotations``, ``loadings``, ``score_var``, ``n_components``,
+    ``t2_limit`` and ``q_limit`` (None where not applicable), ``alpha``."""
+    level = f"{100 * (1 - d.alpha):g}%"
+    names = list(d.inputs)
+    out = []
+    for row in np.asarray(values, dtype=float):
+        reasons = []
+        for j, c in enumerate(names):
+            v = row[j]
+            if not np.isfinite(v):
+                reasons.append(f"{c} is missing")
+                continue
+            lo, hi = d.ranges.get(c, (np.nan, np.nan))
+            tol = 1e-9 * max(1.0, abs(hi - lo), abs(hi), abs(lo))
+            if v < lo - tol:
+                reasons.append(f"{c} = {_with_unit(c, v)} is below the training range {_fmt(lo)}–{_fmt(hi)}")
+            elif v > hi + tol:
+                reasons.append(f"{c} = {_with_unit(c, v)} is above the training range {_fmt(lo)}–{_fmt(hi)}")
+        if not np.all(np.isfinite(row)):
+            out.append({"in_domain": False, "t2": float("nan"), "t2_limit": d.t2_limit, "q": float("nan"),
+                        "q_limit": d.q_limit, "reasons": reasons, "contributions": {}, "t2_contributions": {},
+                        "q_contributions": {}})
+            continue
+        z = (row - d.mean) / d.scale
+        t = z @ d.rotations
+        if d.n_components:
+            t2c = z * (d.rotations @ (t / d.score_var))  # Σ_j z_j Σ_a r_ja t_a / s_a² = T²
+        else:
+            t2c = np.zeros_like(z)
+        e = z - d.loadings @ t
+        qc = e**2
+        t2, q = float(t2c.sum()), float(qc.sum())
+        share = np.zeros_like(z)
+        if d.t2_limit:
+            share = share + t2c / d.t2_limit
+        if d.q_limit:
+            share = share + qc / d.q_limit
+        if d.t2_limit is not None and t2 > d.t2_limit:
+            reasons.append(f"Hotelling T² {_fmt(t2)} above its {level} limit {_fmt(d.t2_limit)} "
+                           f"(driven by {names[int(np.argmax(t2c))]})")
+        if d.q_limit is not None and q > d.q_limit:
+            reasons.append(f"Q residual (squared prediction error) {_fmt(q)} above its {level} limit "
+                           f"{_fmt(d.q_limit)} (driven by {names[int(np.argmax(qc))]})")
+        out.append({"in_domain": not reasons, "t2": t2, "t2_limit": d.t2_limit, "q": q, "q_limit": d.q_limit,
+                    "reasons": reasons,
+                    "contributions": {c: float(v) for c, v in zip(names, share)},
+                    "t2_contributions": {c: float(v) for c, v in zip(names, t2c)},
+                    "q_contributions": {c: float(v) for c, v in zip(names, qc)}})
+    return out
+
+
+# ---------------------------------------------------------------------------
+# the lean objects
+# ---------------------------------------------------------------------------
+class Model:
+    """One fitted estimator as numbers: ``predict(X)`` and
+    ``contributions(X) -> (matrix, base)`` on a float matrix."""
+
+    def __init__(self, spec: dict):
+        self.kind = spec["kind"]
+        self.p = SimpleNamespace(**{k: v for k, v in spec.items() if k != "kind"})
+
+    def predict(self, X: np.ndarray) -> np.ndarray:
+        p, X = self.p, np.asarray(X, dtype=float)
+        if self.kind == "mean":
+            return np.full(X.shape[0], p.mean)
+        if self.kind == "rd":
+            return p.s0 * np.exp(-p.k * X[:, p.porosity_index])  # y = y0 exp(-k eps)
+        if self.kind == "linear":
+            return (X - p.x_mean) @ p.coef + p.intercept
+        if self.kind == "quadratic":
+            return quadratic_predict(X, p.x_mean, p.x_scale, p.beta, p.intercept)
+        if self.kind == "trees":
+            return walk_trees(p, X)
+        raise ValueError(f"unknown model kind {self.kind!r}")
+
+    def contributions(self, X: np.ndarray):
+        p, X = self.p, np.asarray(X, dtype=float)
+        if self.kind == "mean":
+            return np.zeros(X.shape), p.mean
+        if self.kind == "rd":
+            c = np.zeros(X.shape)
+            c[:, p.porosity_index] = self.predict(X) - p.base
+            return c, p.base
+        if self.kind == "linear":
+            return (X - p.x_mean) * p.coef, p.intercept
+        if self.kind == "quadratic":
+            return quadratic_contributions(X, p.x_mean, p.x_scale, p.beta, p.intercept, p.z_m1, p.z_m2)
+        if self.kind == "trees":
+            return tree_shap(p, X)
+        raise ValueError(f"unknown model kind {self.kind!r}")
+
+
+class Target:
+    """One attribute: the selected model, its CV fold models and residuals."""
+
+    def __init__(self, spec: dict):
+        self.target = spec["target"]
+        self.inputs = list(spec["inputs"])
+        self.selected = spec["selected"]
+        self.nominal_coverage = float(spec["nominal_coverage"])
+        self.model_ = Model(spec["model"])
+        self.fold_models_ = [Model(m) for m in spec["fold_models"]]
+        self.fold_of_ = np.asarray(spec["fold_of"], dtype=int)
+        self.residuals_ = np.asarray(spec["residuals"], dtype=float)
+
+    def matrix(self, columns, what: str = "prediction") -> np.ndarray:
+        """The inputs as a float matrix (one column per input, in order); a
+        missing or non-finite input is refused with its column."""
+        missing = [c for c in self.inputs if c not in columns]
+        if missing:
+            raise InputError([Problem(file=f"{self.target} {what}", column=c,
+                                      rule="column missing; the model needs every input") for c in missing])
+        # column-major, as DataFrame.to_numpy gives it to the fitted chain's own predict: the same floats
+        X = np.vstack([np.asarray(columns[c], dtype=float).reshape(-1) for c in self.inputs]).T
+        bad = ~np.isfinite(X)
+        if bad.any():
+            rows, cols = np.nonzero(bad)
+            raise InputError([Problem(file=f"{self.target} {what}", column=self.inputs[j],
+                                      value=None if np.isnan(X[i, j]) else float(X[i, j]),
+                                      rule=f"row {i}: no finite value; a prediction needs every input")
+                              for i, j in list(zip(rows, cols))[:50]])
+        return X
+
+    def predict(self, columns) -> np.ndarray:
+        return np.asarray(self.model_.predict(self.matrix(columns)), float)
+
+    def interval(self, columns, level: float | None = None):
+        """CV+ interval (see :data:`linkage.models.fitted.INTERVAL_METHOD`)."""
+        from linkage.models.conformal import cv_plus_interval
+
+        level = self.nominal_coverage if level is None else float(level)
+        if not 0 < level < 1:
+            raise ValueError(f"level must lie strictly between 0 and 1; got {level}")
+        X = self.matrix(columns, "interval")
+        preds = np.vstack([np.asarray(m.predict(X), float) for m in self.fold_models_])
+        return cv_plus_interval(preds, self.fold_of_, self.residuals_, 1 - level)
+
+    def contributions(self, columns):
+        """(matrix rows × inputs, base value): rows add up to prediction − base."""
+        return self.model_.contributions(self.matrix(columns, "contributions"))
+
+
+class Domain(SimpleNamespace):
+    def check(self, columns) -> list[dict]:
+        missing = [c for c in self.inputs if c not in columns]
+        if missing:
+            raise InputError([Problem(file="domain check", column=c,
+                                      rule="column missing; the applicability domain needs every stage input")
+                              for c in missing])
+        X = np.column_stack([np.asarray(columns[c], dtype=float).reshape(-1) for c in self.inputs])
+        return domain_verdicts(self, X)
+
+
+class Stage:
+    def __init__(self, spec: dict):
+        self.name = spec["name"]
+        self.inputs = list(spec["inputs"])
+        self.targets = {t["target"]: Target(t) for t in spec["targets"]}
+        d = spec["domain"]
+        self.domain = None if d is None else Domain(**{**d, "ranges": {k: tuple(v) for k, v in d["ranges"].items()}})
+        self.residual_lots = list(spec["residual_lots"])
+        #: lots × targets (in the order of ``targets``) of out-of-fold residuals; NaN where a lot lacks one
+        self.residual_matrix = np.asarray(spec["residual_matrix"], dtype=float).reshape(
+            len(self.residual_lots), len(self.targets))
+
+    def residual_column(self, name: str) -> np.ndarray:
+        return self.residual_matrix[:, list(self.targets).index(name)]
+
+
+class LeanChain:
+    """A fitted chain as numbers (see the module notes). ``stages`` in order,
+    ``targets`` by name, ``medians`` of the training settings."""
+
+    def __init__(self, spec: dict):
+        if spec.get("format") != FORMAT:
+            raise ValueError(f"lean chain format {spec.get('format')!r}; this version reads {FORMAT}")
+        self.spec = spec
+        self.model_id = spec["model_id"]
+        self.created_at = spec["created_at"]
+        self.nominal_coverage = float(spec["nominal_coverage"])
+        self.medians = dict(spec["medians"])
+        self.chain_targets = list(spec["chain_targets"])
+        self.chain_root_inputs = list(spec["chain_root_inputs"])
+        self.stages = [Stage(s) for s in spec["stages"]]
+        self.targets = {name: t for st in self.stages for name, t in st.targets.items()}
+
+    def root_inputs(self) -> list[str]:
+        return list(self.chain_root_inputs)
+
+    def all_targets(self) -> list[str]:
+        return list(self.chain_targets)
+
+
+# ---------------------------------------------------------------------------
+# from a fitted chain
+# ---------------------------------------------------------------------------
+def _model_spec(est) -> dict:
+    kind = type(est).__name__
+    if kind == "MeanRegressor":
+        return {"kind": "mean", "mean": float(est.mean_)}
+    if kind == "RDRegressor":
+        return {"kind": "rd", "porosity_index": int(est.porosity_index), "s0": float(est.s0_), "k": float(est.k_),
+                "base": float(est.base_)}
+    if kind == "PLSRegressor":
+        return {"kind": "linear", "x_mean": np.asarray(est.x_mean_, float), "coef": np.asarray(est.coef_, float),
+                "intercept": float(est.intercept_)}
+    if kind == "QuadraticRidge":
+        return {"kind": "quadratic", "x_mean": np.asarray(est.x_mean_, float),
+                "x_scale": np.asarray(est.x_scale_, float), "beta": np.asarray(est.beta_, float),
+                "intercept": float(est.intercept_), "z_m1": np.asarray(est.z_m1_, float),
+                "z_m2": np.asarray(est.z_m2_, float)}
+    if kind == "BoostingRegressor":
+        from linkage.models.candidates import _trees
+
+        trees = _trees(est.model_)
+        if trees is None:
+            raise TypeError("these boosted trees (categorical splits or another loss) have no lean form")
+        out = {"kind": "trees", "baseline": float(trees.baseline), "depth": int(trees.depth)}
+        for name in ("feature", "threshold", "left", "right", "value", "leaf", "leaf_value", "path_feature",
+                     "path_threshold", "path_left", "path_fraction"):
+            a = np.asarray(getattr(trees, name))
+            out[name] = a.astype(np.int64) if a.dtype.kind in "iu" else a
+        return out
+    raise TypeError(f"no lean form for a {kind}")
+
+
+def _num(v):
+    return None if v is None else float(v)
+
+
+def _domain_spec(dm) -> dict | None:
+    if dm is None:
+        return None
+    return {"inputs": list(dm.inputs_), "ranges": {c: [float(lo), float(hi)] for c, (lo, hi) in dm.ranges_.items()},
+            "mean": np.asarray(dm.mean_, float), "scale": np.asarray(dm.scale_, float),
+            "rotations": np.asarray(dm.rotations_, float), "loadings": np.asarray(dm.loadings_, float),
+            "score_var": np.asarray(dm.score_var_, float), "n_components": int(dm.n_components_),
+            "t2_limit": _num(dm.t2_limit_), "q_limit": _num(dm.q_limit_), "alpha": float(dm.alpha_)}
+
+
+def from_fitted(chain) -> LeanChain:
+    """The lean form of a :class:`linkage.models.fitted.FittedChain`."""
+    return LeanChain(export(chain))
+
+
+def export(chain) -> dict:
+    """The nested dict of numbers and arrays that :class:`LeanChain` is built from."""
+    stages = []
+    for st in chain.stages:
+        table = st.residual_table()
+        stages.append({
+            "name": st.name, "inputs": list(st.inputs),
+            "targets": [{
+                "target": t.target, "inputs": list(t.inputs), "selected": t.selected,
+                "nominal_coverage": float(t.nominal_coverage),
+                "model": _model_spec(t.model_), "fold_models": [_model_spec(m) for m in t.fold_models_],
+                "fold_of": np.asarray(t.fold_of_, dtype=np.int64),
+                "residuals": t.residuals.to_numpy(float),
+            } for t in st.targets.values()],
+            "domain": _domain_spec(st.domain),
+            "residual_lots": [str(v) for v in table.index],
+            "residual_matrix": table.to_numpy(float).reshape(len(table.index), len(st.targets)),
+        })
+    medians = chain.training.get("medians", {})
+    return {
+        "format": FORMAT, "model_id": chain.model_id, "created_at": chain.created_at,
+        "nominal_coverage": float(chain.nominal_coverage),
+        "medians": {k: _num(v) for k, v in medians.items()},
+        "chain_targets": list(chain.chain.targets()), "chain_root_inputs": list(chain.chain.root_inputs()),
+        "stages": stages,
+    }
+
+
+def as_lean(chain) -> LeanChain:
+    """``chain`` itself when lean, else its lean form."""
+    return chain if isinstance(chain, LeanChain) else from_fitted(chain)
+
+
+# ---------------------------------------------------------------------------
+# the file: arrays in an .npz, the rest as JSON inside it; no pickles
+# ---------------------------------------------------------------------------
+_HEADER = "__lean__"
+
+
+def to_npz_bytes(spec: dict) -> bytes:
+    """``spec`` (from :func:`export`) as the bytes of an ``.npz`` file."""
+    arrays: dict[str, np.ndarray] = {}
+
+    def strip(obj):
+        if isinstance(obj, np.ndarray):
+            key = f"a{len(arrays)}"
+            arrays[key] = obj
+            return {"__array__": key}
+        if isinstance(obj, dict):
+            return {str(k): strip(v) for k, v in obj.items()}
+        if isinstance(obj, (list, tuple)):
+            return [strip(v) for v in obj]
+        if isinstance(obj, float) and not math.isfinite(obj):
+            return {"__float__": repr(obj)}
+        return obj
+
+    header = json.dumps(strip(spec), allow_nan=False, sort_keys=True)
+    buf = io.BytesIO()
+    np.savez(buf, **{_HEADER: np.array(header)}, **arrays)
+    return buf.getvalue()
+
+
+def from_npz_bytes(data: bytes) -> LeanChain:
+    """The :class:`LeanChain` in ``.npz`` bytes written by :func:`to_npz_bytes`."""
+    try:
+        with np.load(io.BytesIO(data), allow_pickle=False) as npz:
+            arrays = {k: npz[k] for k in npz.files}
+    except (ValueError, OSError, EOFError) as exc:
+        raise UsageError(f"the what-if file is not a lean chain ({exc})") from None
+    if _HEADER not in arrays:
+        raise UsageError("the what-if file is not a lean chain (no header)")
+
+    def restore(obj):
+        if isinstance(obj, dict):
+            if set(obj) == {"__array__"}:
+                return arrays[obj["__array__"]]
+            if set(obj) == {"__float__"}:
+                return float(obj["__float__"])
+            return {k: restore(v) for k, v in obj.items()}
+        if isinstance(obj, list):
+            return [restore(v) for v in obj]
+        return obj
+
+    return LeanChain(restore(json.loads(str(arrays[_HEADER]))))
