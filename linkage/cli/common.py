@@ -3,8 +3,10 @@ errors become messages and exit codes."""
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import os
+import sys
 from pathlib import Path
 
 import click
@@ -33,6 +35,39 @@ def models_dir_option(f):
         show_default="models/, or $LINKAGE_MODELS_DIR",
         help="Model registry folder.",
     )(f)
+
+
+@contextlib.contextmanager
+def progress_bars(title: str | None = None):
+    """A ``progress(label, done, total)`` callback for the library's long
+    steps, drawing bars on stderr: one bar titled ``title`` for every call,
+    or, without a title, one bar per label. A bar closes when it is full, and
+    every bar when the block ends (an error included)."""
+    bars: dict[str, object] = {}
+    open_: set[str] = set()
+
+    def close(key: str) -> None:
+        if key in open_:
+            open_.discard(key)
+            bars[key].__exit__(None, None, None)
+
+    def progress(label: str, done: int, total: int) -> None:
+        key = title or label
+        if key not in bars:
+            bars[key] = click.progressbar(length=total, label=title or f"  {label}", file=sys.stderr)
+            bars[key].__enter__()
+            open_.add(key)
+        if key in open_:
+            bar = bars[key]
+            bar.update(done - bar.pos)
+            if done >= total:
+                close(key)
+
+    try:
+        yield progress
+    finally:
+        for key in list(open_):
+            close(key)
 
 
 def json_option(f):

@@ -7,7 +7,7 @@ from pathlib import Path
 import click
 
 from linkage import CAUTION
-from linkage.cli.common import handle_errors
+from linkage.cli.common import handle_errors, progress_bars
 
 
 @click.command()
@@ -26,18 +26,8 @@ def demo(out):
     """
     from linkage.demo import run_demo
 
-    bar = {}
-
-    def progress(label: str, done: int, total: int) -> None:
-        if label not in bar:
-            bar[label] = click.progressbar(length=total, label=f"  {label}", file=click.get_text_stream("stderr"))
-            bar[label].__enter__()
-        b = bar[label]
-        b.update(done - b.pos)
-        if done >= total:
-            b.__exit__(None, None, None)
-
-    result = run_demo(out, step=lambda m: click.echo(f"- {m}", err=True), progress=progress)
+    with progress_bars() as progress:
+        result = run_demo(out, step=lambda m: click.echo(f"- {m}", err=True), progress=progress)
     click.echo("")
     click.echo(f"lot store       {result.store}")
     click.echo(f"assembled table {result.assembled}")

@@ -3,13 +3,12 @@
 from __future__ import annotations
 
 import json
-import sys
 from pathlib import Path
 
 import click
 
 from linkage import CAUTION
-from linkage.cli.common import handle_errors, json_option, models_dir_option, store_option
+from linkage.cli.common import handle_errors, json_option, models_dir_option, progress_bars, store_option
 
 _spec_option = click.option("--spec", "spec_path", type=click.Path(exists=True, dir_okay=False, path_type=Path),
                             help="Specification file; adds the porosity window to the comparison.")
@@ -45,21 +44,9 @@ def retrain(store, models_dir, spec_path, product, tolerance, force, reason, as_
         from linkage.spec import read_spec
 
         spec = read_spec(spec_path)
-    bar = None
-
-    def progress(label: str, done: int, total: int) -> None:
-        nonlocal bar
-        if bar is None:
-            bar = click.progressbar(length=total, label="Cross-validating the challenger", file=sys.stderr)
-            bar.__enter__()
-        bar.update(done - bar.pos)
-
-    try:
+    with progress_bars("Cross-validating the challenger") as progress:
         decision = run_retrain(store, models_dir, product=product, spec=spec, force=force, reason=reason,
                                tolerance=tolerance, progress=progress)
-    finally:
-        if bar is not None:
-            bar.__exit__(None, None, None)
     if as_json:
         click.echo(json.dumps(decision.to_dict(), indent=2, allow_nan=False))
         return

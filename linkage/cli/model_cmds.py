@@ -9,7 +9,7 @@ import click
 
 from linkage import CAUTION
 from linkage.cli.common import (PROBABILITY, FiniteFloat, handle_errors, json_option, models_dir_option,
-                                store_option)
+                                progress_bars, store_option)
 from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN
 
 #: keys of one attribute in ``train --json`` (the issue's list, plus the
@@ -122,7 +122,6 @@ def train(store, models_dir, chain_path, product, seed, coverage, dissolution_ti
       linkage train --backend dask --scheduler tcp://10.0.0.5:8786
     """
     import contextlib
-    import sys
 
     from linkage.assemble import assemble
     from linkage.exceptions import InsufficientDataError, UsageError
@@ -138,15 +137,6 @@ def train(store, models_dir, chain_path, product, seed, coverage, dissolution_ti
         which = f" of product {product!r}" if product else ""
         raise InsufficientDataError(f"the store {store} holds no lots{which} to train on")
     table = assemble(tables, dissolution_time_min=dissolution_time_min)
-
-    bar = None
-
-    def progress(label: str, done: int, total: int) -> None:
-        nonlocal bar
-        if bar is None:
-            bar = click.progressbar(length=total, label="Cross-validating", file=sys.stderr)
-            bar.__enter__()
-        bar.update(done - bar.pos)
 
     if scheduler is not None and backend != "dask":
         raise UsageError("--scheduler goes with --backend dask")
@@ -164,13 +154,9 @@ def train(store, models_dir, chain_path, product, seed, coverage, dissolution_ti
                              f"{exc}") from None
     if n_jobs is None:
         n_jobs = -1 if backend == "dask" else 1
-    try:
-        with cluster:
-            fitted = train_chain(table, chain, seed=seed, nominal_coverage=coverage, progress=progress,
-                                 n_jobs=n_jobs, backend=backend)
-    finally:
-        if bar is not None:
-            bar.__exit__(None, None, None)
+    with cluster, progress_bars("Cross-validating") as progress:
+        fitted = train_chain(table, chain, seed=seed, nominal_coverage=coverage, progress=progress,
+                             n_jobs=n_jobs, backend=backend)
     model_id = save(fitted, models_dir)
     with LotStore(store, create=False) as lot_store:
         lot_store.log("train", model_id=model_id,
