@@ -171,7 +171,9 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, s
         # strict JSON: an unbounded interval end (too few lots) is null; the model's notes say why
         click.echo(json.dumps(jsonable(payload), indent=2, allow_nan=False))
     else:
-        for r in results:
+        for r, row_lot in zip(results, row_lots):
+            if row_lot is not None:
+                click.echo(f"For lot {row_lot}:")
             click.echo(format_whatif(r))
     if html_path is not None:
         click.echo(f"What-if sheet written to {html_path}", err=True)

@@ -84,6 +84,18 @@ def test_predict_from_csv(run, tmp_path):
     assert d[1]["inputs"]["compression_force_kn"]["source"] == "training median"
 
 
+def test_predict_from_csv_text_names_each_rows_lot(run, tmp_path):
+    planned = tmp_path / "planned.csv"
+    planned.write_text("lot,ribbon_porosity
+Q26-101,0.28
+Q26-102,0.33
+", encoding="utf-8")
+    r = run("predict", "--from-csv", str(planned))
+    assert r.exit_code == 0, r.output
+    assert r.stdout.index("For lot Q26-101:") < r.stdout.index("For lot Q26-102:")
+    assert r.stdout.count("Decision support only") == 2
+
+
 @pytest.mark.parametrize("args, code, message", [
     (("predict", "--set", "roll_forse=9"), 2, "unknown name 'roll_forse'"),
     (("predict", "--set", "ribbon_porosity=31"), 2, "between 0 and 1"),
