@@ -86,10 +86,7 @@ def test_predict_from_csv(run, tmp_path):
 
 def test_predict_from_csv_text_names_each_rows_lot(run, tmp_path):
     planned = tmp_path / "planned.csv"
-    planned.write_text("lot,ribbon_porosity
-Q26-101,0.28
-Q26-102,0.33
-", encoding="utf-8")
+    planned.write_text("lot,ribbon_porosity\nQ26-101,0.28\nQ26-102,0.33\n", encoding="utf-8")
     r = run("predict", "--from-csv", str(planned))
     assert r.exit_code == 0, r.output
     assert r.stdout.index("For lot Q26-101:") < r.stdout.index("For lot Q26-102:")
