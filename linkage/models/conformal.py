@@ -109,14 +109,245 @@ def cv_plus_interval(fold_predictions, fold_of, residuals, alpha: float):
     Returns
     -------
     (low, high) arrays of shape (m,); ±inf where the rank rule runs out.
+
+    Notes
+    -----
+    The ends are the order statistics of Barber et al. (2021), §3 (CV+):
+    the ⌊α(n + 1)⌋-th smallest of μ̂₋ₖ₍ᵢ₎(x) − Rᵢ and the ⌈(1 − α)(n + 1)⌉-th
+    smallest of μ̂₋ₖ₍ᵢ₎(x) + Rᵢ. With many lots and points they are found by
+    :func:`_grouped_plus_bounds`, which uses that μ̂₋ₖ₍ᵢ₎(x) takes only K
+    values per point; the selected element is the same float as the direct
+    (n × m) selection gives.
     """
     preds = np.atleast_2d(np.asarray(fold_predictions, dtype=float))
     fold_of = np.asarray(fold_of, dtype=int)
     r = np.asarray(residuals, dtype=float).ravel()
     if fold_of.size != r.size:
         raise ValueError("fold_of and residuals must have the same length")
+    alpha = _check_alpha(alpha)
+    m = preds.shape[-1]
+    if fold_of.ndim == 1 and preds.ndim == 2 and m >= _GROUPED_MIN_POINTS and r.size * m >= _GROUPED_MIN_CELLS:
+        folds, index = np.unique(fold_of, return_inverse=True)
+        if folds.size <= _GROUPED_MAX_FOLDS:
+            rows = preds[folds]  # (K, m); an index out of range raises as preds[fold_of] would
+            return _grouped_plus_bounds(rows, index.ravel(), r, alpha)
     centres = preds[fold_of]  # (n, m): μ̂ without lot i's fold, at each new point
-    return _plus_bounds(centres, r, _check_alpha(alpha))
+    return _plus_bounds(centres, r, alpha)
+
+
+# ---------------------------------------------------------------------------
+# CV+ without the (n × m) matrix
+# ---------------------------------------------------------------------------
+#: n·m and m from which cv_plus_interval selects fold by fold (below them the
+#: direct selection is as fast; both give the same floats)
+_GROUPED_MIN_CELLS = 50_000
+_GROUPED_MIN_POINTS = 32
+#: most folds for the fold-by-fold selection (leave-one-out goes direct)
+_GROUPED_MAX_FOLDS = 64
+#: ranks either side of k in the first window; narrowing steps at most; the
+#: distinct residuals (all folds) a window is narrowed to, and the most it may
+#: hold when the element is taken from it (a point beyond is selected directly)
+_FIRST_RANKS = 8
+_NARROW_STEPS = 60
+_WINDOW_GOAL = 24
+_WINDOW_MAX = 96
+
+
+def _grouped_plus_bounds(rows: np.ndarray, index: np.ndarray, residuals: np.ndarray, alpha: float):
+    """The CV+ ends of :func:`_plus_bounds` for ``centres = rows[index]``.
+
+    rows : (K, m) predictions of the K fold models at the m new points;
+    index : (n,) fold (row of ``rows``) of each calibration lot, 0..K-1;
+    residuals : (n,) out-of-fold residuals.
+
+    At a new point x the n values μ̂₋ₖ₍ᵢ₎(x) + Rᵢ fall into K groups, each
+    one fold model's prediction shifted by that fold's residuals, and a
+    group sorted by |R| is sorted by value, since rounded floating-point
+    addition is monotone. The k-th smallest of the union of K sorted groups
+    is found for every point at once with ``np.searchsorted`` counts per
+    fold (a first guess from the pooled residuals, then interpolation and
+    bisection on the value), O(K log n) per point and step instead of O(n); equal
+    residuals within a fold count as one value with its multiplicity. The
+    lower end is the same search on −μ̂: the ⌊α(n + 1)⌋-th smallest of
+    μ̂ − R is minus the (n + 1 − ⌊α(n + 1)⌋)-th smallest of −μ̂ + R (rounding
+    to nearest is symmetric), with an exact zero given the sign μ̂ − R has.
+
+    Exactness: the search only proposes, per point and fold, a window of
+    residuals. The element is taken from the windows only after a check on
+    the actual floats that every element left of the windows is ≤ every
+    element right of their left edges, every element up to their right
+    edges ≤ every element right of them, and that rank k falls inside
+    them. Then the k-th smallest of all n is the matching element of the
+    windows: the same float the direct selection returns (a zero may differ
+    in sign only if a fold prediction is exactly −0.0, where the direct
+    selection's own choice among tied zeros decides). A point whose check
+    fails, or whose window stays wide, is selected directly as in
+    :func:`_plus_bounds`.
+    """
+    n = residuals.size
+    m = rows.shape[1]
+    lo_k, hi_k = lower_rank(n, alpha), upper_rank(n, alpha)
+    low = np.full(m, -np.inf)
+    high = np.full(m, np.inf)
+    if n == 0 or m == 0 or (lo_k < 1 and hi_k > n):
+        return low, high
+    r = np.abs(residuals)
+    if not (np.all(np.isfinite(r)) and np.all(np.isfinite(rows))):
+        return _plus_bounds(rows[index], residuals, alpha)
+    parts, ks = [], []
+    if lo_k >= 1:
+        parts.append(-rows)
+        ks.append(np.full(m, n + 1 - lo_k))
+    if hi_k <= n:
+        parts.append(rows)
+        ks.append(np.full(m, hi_k))
+    found = _Groups(index, r, rows.shape[0]).kth(np.hstack(parts), np.concatenate(ks))
+    if lo_k >= 1:
+        low = -found[:m]
+        low[low == 0] = 0.0  # μ̂ − R = 0 exactly is +0 (μ̂ = −0 aside)
+    if hi_k <= n:
+        high = found[-m:]
+    bad = np.flatnonzero(np.isnan(low) | np.isnan(high))  # points the windows did not settle
+    if bad.size:
+        low[bad], high[bad] = _plus_bounds(rows[:, bad][index], residuals, alpha)
+    return low, high
+
+
+class _Groups:
+    """The calibration lots' |R| fold by fold: each fold's distinct values in
+    ascending order with their multiplicities, and all n pooled."""
+
+    def __init__(self, index: np.ndarray, r: np.ndarray, n_folds: int):
+        by_value = np.argsort(r)
+        small = index.astype(np.int16)  # n_folds ≤ _GROUPED_MAX_FOLDS: a radix sort
+        order = by_value[np.argsort(small[by_value], kind="stable")]  # by fold, then by value
+        g, v = index[order], r[order]
+        first = np.ones(v.size, dtype=bool)
+        first[1:] = (g[1:] != g[:-1]) | (v[1:] != v[:-1])
+        starts = np.flatnonzero(first)
+        ug, uv = g[starts], v[starts]
+        counts = np.diff(np.append(starts, v.size))
+        self.size = np.bincount(ug, minlength=n_folds)  # distinct values per fold
+        self.weight = np.bincount(index, minlength=n_folds) / r.size  # share of the lots per fold
+        width = int(self.size.max())
+        t = np.arange(ug.size) - (np.cumsum(self.size) - self.size)[ug]
+        self.value = np.zeros((n_folds, width + 2))  # column t + 1 holds value t; the ends are padding
+        self.value[ug, t + 1] = uv
+        self.count = np.zeros((n_folds, width), dtype=np.int64)
+        self.count[ug, t] = counts
+        self.cum = np.zeros((n_folds, width + 1), dtype=np.int64)  # lots before position t
+        np.cumsum(self.count, axis=1, out=self.cum[:, 1:])
+        self.ties = bool(counts.max() > 1)
+        self.key = [self.value[f, 1:self.size[f] + 1] for f in range(n_folds)]
+        self.pooled = r[by_value]
+
+    def kth(self, rows: np.ndarray, k: np.ndarray) -> np.ndarray:
+        """k[j]-th smallest (1-based, 1 ≤ k ≤ n) over the lots i of
+        rows[fold(i), j] + |Rᵢ|, for each column j of rows; NaN for a column
+        not settled here."""
+        K, m = rows.shape
+        size, value, count, cum, key, pooled = self.size, self.value, self.count, self.cum, self.key, self.pooled
+        n = pooled.size
+        folds = np.arange(K)[:, None]
+
+        def edges(v, side, cols=slice(None)):  # (K, len(v)) positions in each fold's distinct values
+            return np.stack([np.searchsorted(key[g], v - rows[g, cols], side) for g in range(K)])
+
+        def lots_before(pos):  # lots left of the positions, summed over the folds
+            return cum[folds, pos].sum(axis=0)
+
+        # Element i lies within min_g..max_g of rows plus its own |Rᵢ|, so the k-th smallest lies within
+        # the same shifts of the k-th smallest |R| (the safe ends, widened for round-off). First guess:
+        # the fold models' mean weighted by their lots, shifted by the pooled |R| a few ranks either
+        # side of k (right to first order in the spread of the fold models).
+        tol = 8 * np.finfo(float).eps * (np.abs(rows).max(axis=0) + pooled[-1])
+        safe_lo = rows.min(axis=0) + pooled[k - 1] - tol
+        safe_hi = rows.max(axis=0) + pooled[k - 1] + tol
+        centre = self.weight @ rows
+        vl = np.clip(centre + pooled[np.maximum(k - 1 - _FIRST_RANKS, 0)] - tol, safe_lo, safe_hi)
+        vh = np.clip(centre + pooled[np.minimum(k - 1 + _FIRST_RANKS, n - 1)] + tol, safe_lo, safe_hi)
+        a, b = edges(vl, "left"), edges(vh, "right")
+        # where the guess missed rank k, one of its ends still bounds the k-th smallest
+        over = np.flatnonzero(lots_before(a) >= k)  # about k elements below vl already
+        if over.size:
+            vh[over], b[:, over] = vl[over], a[:, over]
+            vl[over], a[:, over] = safe_lo[over], edges(safe_lo[over], "left", over)
+        under = np.flatnonzero(lots_before(b) < k)  # fewer than k elements up to vh
+        if under.size:
+            vl[under], a[:, under] = vh[under], b[:, under]
+            vh[under], b[:, under] = safe_hi[under], edges(safe_hi[under], "right", under)
+
+        # narrow the windows still holding many distinct values: probes placed by linear interpolation
+        # of the count between the ends, and every third step the midpoint (bisection, so that every
+        # window shrinks whatever the data)
+        for step in range(_NARROW_STEPS):
+            wide = np.flatnonzero((b - a).sum(axis=0) > _WINDOW_GOAL)
+            if wide.size == 0:
+                break
+            lo, hi, kw = vl[wide], vh[wide], k[wide]
+            if step % 3 == 2:
+                probes = [lo + 0.5 * (hi - lo)]
+            else:
+                n_lo, n_hi = lots_before(a[:, wide]), lots_before(b[:, wide])
+                spread = np.maximum(n_hi - n_lo, 1)
+                d = np.maximum(0.25 * _WINDOW_GOAL, spread / 8)
+                probes = [lo + np.clip((kw - n_lo + s) / spread, 0.0, 1.0) * (hi - lo) for s in (-d, d)]
+            moved = False
+            for vm in probes:
+                inside = (vm > vl[wide]) & (vm < vh[wide])  # strictly between the current ends
+                pts, vm = wide[inside], vm[inside]
+                if pts.size == 0:
+                    continue
+                moved = True
+                at = edges(vm, "right", pts)  # about the elements ≤ vm
+                upper = lots_before(at) >= k[pts]  # then the k-th smallest is ≤ vm
+                vh[pts[upper]], b[:, pts[upper]] = vm[upper], at[:, upper]
+                vl[pts[~upper]], a[:, pts[~upper]] = vm[~upper], at[:, ~upper]
+            if not moved and step % 3 == 2:  # not even the midpoint lies strictly between the ends
+                break
+        b = np.maximum(a, b)
+
+        out = np.full(m, np.nan)
+        per_point = (b - a).sum(axis=0)
+        cols = np.flatnonzero(per_point <= _WINDOW_MAX)
+        if cols.size == 0:
+            return out
+        a, b, c, k, per_point = a[:, cols], b[:, cols], rows[:, cols], k[cols], per_point[cols]
+
+        def element(t):  # the float of element t (−1 ≤ t ≤ size) of each fold, as the direct selection has it
+            return c + value[folds, t + 1]
+
+        # the check (see the docstring of _grouped_plus_bounds)
+        below_max = np.where(a > 0, element(a - 1), -np.inf).max(axis=0)
+        rest_min = np.where(a < size[:, None], element(a), np.inf).min(axis=0)
+        upto_max = np.where(b > 0, element(b - 1), -np.inf).max(axis=0)
+        above_min = np.where(b < size[:, None], element(b), np.inf).min(axis=0)
+        n_below = lots_before(a)
+        ok = (below_max <= rest_min) & (upto_max <= above_min) & (n_below < k) & (k <= lots_before(b))
+
+        # the windows' elements, one row per point, sorted; the first whose running count of lots
+        # reaches k − (lots below the windows) is the k-th smallest
+        p = cols.size
+        span = (b - a).T.ravel()  # point-major, then fold
+        seg = np.repeat(np.arange(p * K), span)
+        j, g = np.divmod(seg, K)
+        t = a[g, j] + (np.arange(seg.size) - np.repeat(np.cumsum(span) - span, span))
+        column = np.arange(seg.size) - np.repeat(np.cumsum(per_point) - per_point, per_point)
+        vals = np.full((p, max(int(per_point.max()), 1)), np.inf)
+        vals[j, column] = c[g, j] + value[g, t + 1]
+        need = k - n_below
+        if self.ties:
+            lots = np.zeros(vals.shape, dtype=np.int64)
+            lots[j, column] = count[g, t]
+            order = np.argsort(vals, axis=1)
+            vals = np.take_along_axis(vals, order, axis=1)
+            reach = np.cumsum(np.take_along_axis(lots, order, axis=1), axis=1)
+            at = np.argmax(reach >= need[:, None], axis=1)
+        else:  # one lot per value: the need-th of the sorted window
+            vals.sort(axis=1)
+            at = np.clip(need - 1, 0, vals.shape[1] - 1)
+        out[cols[ok]] = vals[ok, at[ok]]
+        return out
 
 
 def cv_plus_slack(n: int, n_folds: int) -> float:
