@@ -85,7 +85,7 @@ def assemble(
         raise InputError([Problem(file="process", rule="the process table is required and has no rows")])
     process = tables["process"].copy()
     process["lot"] = process["lot"].astype(str)
-    _refuse_orphans(tables, set(process["lot"]))
+    _refuse_orphans(tables, set(process["lot"].tolist()))
     notes: list[str] = []
 
     out = process.set_index("lot", drop=False)
@@ -125,7 +125,7 @@ def _refuse_orphans(tables: dict[str, pd.DataFrame], known: set[str]) -> None:
     for name, df in tables.items():
         if name == "process" or df is None or df.empty or "lot" not in df:
             continue
-        for lot in sorted(set(df["lot"].astype(str)) - known):
+        for lot in sorted(set(df["lot"].astype(str).unique().tolist()) - known):
             problems.append(Problem(file=name, column="lot", value=lot,
                                     rule="results for a lot with no process record"))
     if problems:
@@ -248,9 +248,7 @@ def _sieve_stacks(names, sizes_all, masses_all, bounds, cutoff_um) -> dict[str, 
             continue
         idx = bounds[lots][:, None] + np.arange(k_rows)[None, :]
         S, M = sizes_all[idx], masses_all[idx]
-        stacks, which = np.unique(S, axis=0, return_inverse=True)
-        for s, x in enumerate(stacks):
-            members = np.flatnonzero(which.reshape(-1) == s)
+        for x, members in _same_rows(S):
             if np.isnan(x).any() or np.any(x < 0) or len(np.unique(x)) != len(x) or not np.any(x > 0):
                 continue
             m = M[members]
@@ -274,22 +272,44 @@ def _sieve_stacks(names, sizes_all, masses_all, bounds, cutoff_um) -> dict[str, 
             inside = (U > 0) & (U < 100)
             fit = inside.sum(axis=1) >= 3
             x_prime, n_rrsb = _rrsb_rows(aperture, U, inside, fit)
-            for r, member in enumerate(members):
-                if not valid[r]:
+            # as Python floats and bools once, not element by element
+            d10, d50, d90 = d[10].tolist(), d[50].tolist(), d[90].tolist()
+            outside = {q: np.isnan(d[q]).tolist() for q in (10, 50, 90)}
+            span, fines, x_prime, n_rrsb = span.tolist(), fines.tolist(), x_prime.tolist(), n_rrsb.tolist()
+            for r, (member, is_valid, has_fit) in enumerate(zip(members.tolist(), valid.tolist(), fit.tolist())):
+                if not is_valid:
                     continue  # psd.span refuses it: the per-lot path raises the same error
                 lot = names[lots[member]]
-                lot_notes = [_outside_note(lot, q, aperture, U[r]) for q in (10, 50, 90) if np.isnan(d[q][r])]
+                lot_notes = [_outside_note(lot, q, aperture, U[r]) for q in (10, 50, 90) if outside[q][r]]
                 row = {
-                    "granule_d10_um": float(d[10][r]), "granule_d50_um": float(d[50][r]),
-                    "granule_d90_um": float(d[90][r]), "granule_span": float(span[r]),
-                    "granule_size_source": "sieve", "fines_pct": float(fines[r]),
+                    "granule_d10_um": d10[r], "granule_d50_um": d50[r], "granule_d90_um": d90[r],
+                    "granule_span": span[r], "granule_size_source": "sieve", "fines_pct": fines[r],
                 }
-                if fit[r]:
-                    row["rrsb_x_prime_um"], row["rrsb_n"] = float(x_prime[r]), float(n_rrsb[r])
+                if has_fit:
+                    row["rrsb_x_prime_um"], row["rrsb_n"] = x_prime[r], n_rrsb[r]
                 else:
                     lot_notes.append(f"lot {lot}: fewer than 3 points inside (0, 100)% undersize; no RRSB fit")
                 out[lot] = (row, lot_notes)
     return out
+
+
+def _same_rows(S: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Groups of equal rows of ``S`` (as ``np.unique(S, axis=0)`` groups
+    them; rows with a NaN left out): (row, positions of its rows, ascending).
+    A comparison with each distinct row while there are few (most lots share
+    one sieve stack), a sort when there are many."""
+    rest = np.flatnonzero(~np.isnan(S).any(axis=1)) if S.dtype.kind == "f" else np.arange(len(S))
+    groups = []
+    while rest.size:
+        if len(groups) == 16:
+            stacks, which = np.unique(S[rest], axis=0, return_inverse=True)
+            which = which.reshape(-1)
+            return groups + [(x, rest[which == s]) for s, x in enumerate(stacks)]
+        x = S[rest[0]].copy()
+        same = (S[rest] == x).all(axis=1)
+        groups.append((x, rest[same]))
+        rest = rest[~same]
+    return groups
 
 
 def _percentile_rows(x, t, U, q: float) -> np.ndarray:
@@ -340,9 +360,8 @@ def _rrsb_rows(x, U, inside, fit):
         kernel = _umath_linalg.lstsq
     except (ImportError, AttributeError):
         kernel = None
-    patterns, which = np.unique(inside[rows], axis=0, return_inverse=True)
-    for k, use in enumerate(patterns):
-        members = rows[which.reshape(-1) == k]
+    for use, at in _same_rows(inside[rows]):
+        members = rows[at]
         if kernel is None:
             for r in members:
                 res = psd.fit_rrsb(x, U[r])

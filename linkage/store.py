@@ -37,26 +37,52 @@ from __future__ import annotations
 import datetime as dt
 import getpass
 import hashlib
+import importlib
 import json
 import math
 import os
 import sqlite3
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
+from itertools import chain
 from pathlib import Path
-from typing import Iterator
-
-import numpy as np
-import pandas as pd
+from typing import TYPE_CHECKING, Iterator
 
 from linkage.exceptions import InputError, StoreBusyError, StoreError, UsageError
-from linkage.read import Ingest, bulk, cross_check, frame_from_columns
 from linkage.schema import DATETIME, NUMBER, TABLES, TEXT
+
+if TYPE_CHECKING:
+    from linkage.read import Ingest
+
+
+class _OnFirstUse:
+    """A module imported when one of its names is first used. Opening a store
+    and appending to its audit trail (what ``linkage predict`` does) needs
+    neither numpy nor pandas; ingesting and reading tables do."""
+
+    def __init__(self, name: str):
+        self._name = name
+        self._module = None
+
+    def __getattr__(self, attr: str):  # called only for names not set in __init__
+        if self._module is None:
+            self._module = importlib.import_module(self._name)
+        return getattr(self._module, attr)
+
+
+np = _OnFirstUse("numpy")
+pd = _OnFirstUse("pandas")
+_read = _OnFirstUse("linkage.read")
 
 SCHEMA_VERSION = 1
 #: PRAGMA application_id of a linkage store ("LNKG").
 APPLICATION_ID = 0x4C4E4B47
 BUSY_TIMEOUT_S = 10.0
+#: lot tables written per pair of statements during an ingest
+_BATCH = 5000
+#: values per "IN (...)" list (SQLite before 3.32 allows 999 parameters a statement)
+_IN_CHUNK = 500
+_TABLE_NUMBER = {name: k for k, name in enumerate(TABLES)}
 
 #: Tables whose rows are never updated or deleted.
 APPEND_ONLY = ("schema_version", "ingests", "ingest_files", "lots", "lot_tables", "raw_rows", "revisions",
@@ -184,7 +210,7 @@ def _plain(value):
         return _plain(value.tolist())
     if isinstance(value, float):
         return value if math.isfinite(value) else None
-    if isinstance(value, (dt.datetime, dt.date, pd.Timestamp)):
+    if isinstance(value, (dt.datetime, dt.date)):  # a pandas Timestamp is a datetime
         return value.isoformat()
     if isinstance(value, Path):
         return str(value)
@@ -323,6 +349,7 @@ def _prepare_columns(tname: str, df: pd.DataFrame) -> dict[str, _LotTable] | Non
     filled = np.zeros(n, dtype=np.int64)
     empty: set[str] = set()  # columns missing in every row
     partial: list[bool] = []  # per other column: missing in some row
+    key_set = set(tdef.key)
     for c in columns:
         kind = kinds.get(c, "extra")
         col = df[c]
@@ -338,27 +365,33 @@ def _prepare_columns(tname: str, df: pd.DataFrame) -> dict[str, _LotTable] | Non
                 empty.add(c)
                 keyed[c] = ["None"] * n
                 continue
-            reprs = list(map(repr, v.tolist()))  # float.__repr__, as json writes floats
-            data[c] = _pieces(name, reprs, missing)
-            if np.any((v == 0) & np.signbit(v)):
+            if np.any((v == 0) & np.signbit(v)):  # -0.0: written as it is, hashed as 0.0
+                reprs = list(map(repr, v.tolist()))  # float.__repr__, as json writes floats
+                data[c] = _pieces(name, reprs, missing)
                 reprs = list(map(repr, (v + 0.0).tolist()))
                 canon[c] = _pieces(name, reprs, missing)
+                keyed[c] = _missing_as_none(reprs, missing)
             else:
-                canon[c] = data[c]
-            keyed[c] = _missing_as_none(reprs, missing)
+                # each distinct value written once (lab values repeat: sieve sizes, settings, rounding);
+                # factorize tells -0.0 from nothing else, and there is none here
+                codes, uniques = pd.factorize(v)  # missing (NaN) -> -1
+                reprs = list(map(repr, uniques.tolist()))
+                data[c] = canon[c] = np.array([name + r for r in reprs] + [None], dtype=object)[codes].tolist()
+                if c in key_set:
+                    keyed[c] = np.array(reprs + ["None"], dtype=object)[codes].tolist()
         elif kind == TEXT:
             missing = col.isna().to_numpy()
             if missing.all():
                 empty.add(c)
                 keyed[c] = ["None"] * n
                 continue
-            values = col.tolist()
-            kept = [x for x, m in zip(values, missing.tolist()) if not m] if missing.any() else values
-            if set(map(type, kept)) - {str}:
+            codes, uniques = pd.factorize(col)  # each distinct text encoded once; missing -> -1
+            uniques = list(uniques)
+            if set(map(type, uniques)) - {str} or not np.array_equal(codes < 0, missing):
                 return None
-            data[c] = canon[c] = _pieces(name, list(map(encode, [x if type(x) is str else "" for x in values])),
-                                          missing)
-            keyed[c] = _missing_as_none(values, missing)
+            data[c] = canon[c] = np.array([name + encode(u) for u in uniques] + [None], dtype=object)[codes].tolist()
+            if c in key_set:
+                keyed[c] = np.array(uniques + ["None"], dtype=object)[codes].tolist()
         elif kind == DATETIME:
             if not (pd.api.types.is_datetime64_dtype(col) and getattr(col.dtype, "tz", None) is None):
                 return None
@@ -384,35 +417,36 @@ def _prepare_columns(tname: str, df: pd.DataFrame) -> dict[str, _LotTable] | Non
             filled += ~missing
         partial.append(bool(missing.any()))
     key_cols = [c for c in tdef.key]
-    if any(c not in keyed for c in key_cols):
+    if any(c not in columns for c in key_cols):
         return None
     kept = [c for c in columns if c not in empty]  # a column missing in every row adds nothing to a row
     complete = not any(partial)
     row_json = _join_rows([data[c] for c in kept], complete)
     hash_json = _join_rows([canon[c] for c in sorted(kept)], complete)
     del data, canon
-    sort_key = list(zip(*(keyed[c] for c in key_cols)))
     source_rows = df.attrs.get("source_rows", list(range(2, n + 2)))
     codes, lots = pd.factorize(df["lot"])  # lots in order of first appearance, as the rows name them
     order = np.argsort(codes, kind="stable")
     bounds = np.concatenate([[0], np.cumsum(np.bincount(codes, minlength=len(lots)))]).tolist()
     per_lot_filled = np.bincount(codes, weights=filled, minlength=len(lots)).astype(np.int64).tolist()
-    rows = [int(r) for r in source_rows]
+    rows = list(map(int, source_rows))
+    # the hash takes each lot's rows sorted by str() of their key values (stably, as sorted() does): the
+    # rank of each key string among all of them, then one stable sort by lot and those ranks
+    ranks = [pd.factorize(np.array(keyed[c], dtype=object), sort=True)[0] for c in key_cols if c != "lot"]
+    by_key = np.lexsort([*ranks[::-1], codes]) if ranks else order
+    hash_json = np.array(hash_json, dtype=object)[by_key].tolist()
     if not np.array_equal(order, np.arange(n)):  # lots not in blocks: put each lot's rows together
         order = order.tolist()
-        row_json, hash_json = [row_json[k] for k in order], [hash_json[k] for k in order]
-        rows, sort_key = [rows[k] for k in order], [sort_key[k] for k in order]
-    out = {}
+        row_json, rows = [row_json[k] for k in order], [rows[k] for k in order]
     sha256 = hashlib.sha256
-    for j, lot in enumerate(lots.tolist()):
-        a, b = bounds[j], bounds[j + 1]
-        if b - a > 1:
-            ordered = [hash_json[k] for k in sorted(range(a, b), key=sort_key.__getitem__)]  # stable, as sorted()
-        else:
-            ordered = hash_json[a:b]
-        digest = sha256(("[" + ", ".join(ordered) + "]").encode()).hexdigest()
-        out[lot] = _LotTable(row_json[a:b], rows[a:b], columns, digest, per_lot_filled[j])
-    return out
+    if len(lots) == n:  # one row a lot
+        digests = [sha256(("[" + h + "]").encode()).hexdigest() for h in hash_json]
+        return {lot: _LotTable([row_json[j]], [rows[j]], columns, digests[j], per_lot_filled[j])
+                for j, lot in enumerate(lots.tolist())}
+    spans = list(zip(bounds, bounds[1:]))
+    digests = [sha256(("[" + ", ".join(hash_json[a:b]) + "]").encode()).hexdigest() for a, b in spans]
+    return {lot: _LotTable(row_json[a:b], rows[a:b], columns, digest, filled_j)
+            for lot, (a, b), digest, filled_j in zip(lots.tolist(), spans, digests, per_lot_filled)}
 
 
 def _pieces(name: str, texts: list[str], missing: np.ndarray) -> list:
@@ -497,8 +531,11 @@ class LotStore:
         try:
             c.execute(f"PRAGMA busy_timeout = {int(self.busy_timeout_s * 1000)}")
             c.execute("PRAGMA foreign_keys = ON")
-            app_id = c.execute("PRAGMA application_id").fetchone()[0]
+            # the tables first, then the id: _create commits both in one transaction, so a schema seen
+            # here always comes with its id, and a store another process creates between the two reads
+            # shows as (LNKG, no tables) or (0, no tables), which _create re-checks under the write lock
             names = [r[0] for r in c.execute("SELECT name FROM sqlite_master WHERE type = 'table'")]
+            app_id = c.execute("PRAGMA application_id").fetchone()[0]
         except sqlite3.DatabaseError as exc:
             raise self._error(exc) from None
         if app_id == APPLICATION_ID:
@@ -585,7 +622,7 @@ class LotStore:
         process record in the folder or the store, or when an empty store
         gets a folder without every required table.
         """
-        with bulk():
+        with _read.bulk():
             return self._ingest(ingest, user)
 
     def _ingest(self, ingest: Ingest, user: str | None) -> IngestResult:
@@ -599,11 +636,11 @@ class LotStore:
             for lot, product in zip(process["lot"].tolist(), process["product"].tolist()):
                 products[lot] = None if isinstance(product, float) else product
         with self._write() as c:
-            known = [r[0] for r in c.execute("SELECT lot FROM lots")]
-            problems = cross_check(ingest, known)
+            known = {r[0] for r in c.execute("SELECT lot FROM lots")}
+            problems = _read.cross_check(ingest, known)
             if problems:
                 raise InputError(problems)
-            current = self._current_links(c)
+            current = self._current_links(c, [lot for lot in order if lot in known])
             new, revised, unchanged = [], [], []
             changes: dict[str, list[str]] = {}
             for lot in order:
@@ -636,20 +673,24 @@ class LotStore:
                 c.execute("INSERT INTO ingest_files VALUES (?, NULL, ?, ?, NULL)",
                           (ingest_id, src["file"], src["sha256"]))
             c.executemany("INSERT INTO lots VALUES (?, ?)", [(lot, ingest_id) for lot in new])
-            # revisions get their ids here, as SQLite would give them (largest id + 1; the write
-            # transaction holds the store), so that they are written with one statement each
+            # lot tables and revisions get their ids here, as SQLite would give them (largest id + 1;
+            # the write transaction holds the store), so that they are written in a few statements
+            next_tid = c.execute("SELECT COALESCE(MAX(id), 0) + 1 FROM lot_tables").fetchone()[0]
             next_rid = c.execute("SELECT COALESCE(MAX(id), 0) + 1 FROM revisions").fetchone()[0]
-            revisions, revision_tables = [], []
+            revisions, revision_tables, written = [], [], []
             for lot in new + revised:
                 links = {t: v[0] for t, v in current.get(lot, {"tables": {}})["tables"].items()}
                 for tname in changes[lot]:
-                    links[tname] = self._insert_lot_table(c, lot, tname, ingest_id, prepared[lot][tname],
-                                                          sources[tname])
+                    written.append((next_tid, lot, tname, prepared[lot][tname], sources[tname]))
+                    links[tname] = next_tid
+                    next_tid += 1
                 number = current[lot]["revision"] + 1 if lot in current else 1
                 product = products[lot] if lot in products else current[lot]["product"]
                 revisions.append((next_rid, lot, number, ingest_id, product))
                 revision_tables += [(next_rid, t, links[t]) for t in TABLES if t in links]
                 next_rid += 1
+            for start in range(0, len(written), _BATCH):  # in id order: the rows as one by one would write them
+                self._insert_lot_tables(c, ingest_id, written[start:start + _BATCH])
             c.executemany("INSERT INTO revisions (id, lot, revision, ingest_id, product) VALUES (?, ?, ?, ?, ?)",
                           revisions)
             c.executemany("INSERT INTO revision_tables VALUES (?, ?, ?)", revision_tables)
@@ -662,24 +703,37 @@ class LotStore:
 
 
     @staticmethod
-    def _insert_lot_table(c, lot: str, tname: str, ingest_id: int, lt: _LotTable, src: dict) -> int:
-        tid = c.execute("INSERT INTO lot_tables (lot, tbl, ingest_id, file, file_sha256, content_sha256, "
-                        "columns_json, n_rows, n_filled) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                        (lot, tname, ingest_id, src["file"], src["sha256"], lt.sha256, lt.columns_json,
-                         len(lt.rows), lt.n_filled)).lastrowid
+    def _insert_lot_tables(c, ingest_id: int, batch: list[tuple]) -> None:
+        """Write lot tables (id, lot, table, _LotTable, source) and their raw rows."""
+        c.executemany("INSERT INTO lot_tables (id, lot, tbl, ingest_id, file, file_sha256, content_sha256, "
+                      "columns_json, n_rows, n_filled) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                      [(tid, lot, tname, ingest_id, src["file"], src["sha256"], lt.sha256, lt.columns_json,
+                        len(lt.rows), lt.n_filled) for tid, lot, tname, lt, src in batch])
         c.executemany("INSERT INTO raw_rows VALUES (?, ?, ?, ?)",
-                      [(tid, i, r, text) for i, (text, r) in enumerate(zip(lt.rows, lt.source_rows))])
-        return tid
+                      [(tid, i, r, text) for tid, _, _, lt, _ in batch
+                       for i, (text, r) in enumerate(zip(lt.rows, lt.source_rows))])
 
     @staticmethod
-    def _current_links(c) -> dict[str, dict]:
+    def _current_links(c, lots: list[str]) -> dict[str, dict]:
+        """The latest revision of each of ``lots`` that the store holds, with
+        its tables (id and content hash); only those lots are read, so an
+        ingest costs the same however many other lots the store holds."""
         out: dict[str, dict] = {}
-        for lot, revision, product in c.execute("SELECT lot, revision, product FROM current_revisions"):
-            out[lot] = {"revision": revision, "product": product, "tables": {}}
-        for lot, tbl, tid, sha in c.execute(
-                "SELECT cr.lot, rt.tbl, lt.id, lt.content_sha256 FROM current_revisions cr "
-                "JOIN revision_tables rt ON rt.revision_id = cr.id JOIN lot_tables lt ON lt.id = rt.lot_table_id"):
-            out[lot]["tables"][tbl] = (tid, sha)
+        by_revision: dict[int, dict] = {}
+        for start in range(0, len(lots), _IN_CHUNK):
+            chunk = lots[start:start + _IN_CHUNK]
+            marks = ", ".join("?" * len(chunk))
+            for rid, lot, revision, product in c.execute(
+                    f"SELECT id, lot, revision, product FROM current_revisions WHERE lot IN ({marks})", chunk):
+                out[lot] = by_revision[rid] = {"revision": revision, "product": product, "tables": {}}
+        rids = list(by_revision)
+        for start in range(0, len(rids), _IN_CHUNK):
+            chunk = rids[start:start + _IN_CHUNK]
+            marks = ", ".join("?" * len(chunk))
+            for rid, tbl, tid, sha in c.execute(
+                    "SELECT rt.revision_id, rt.tbl, lt.id, lt.content_sha256 FROM revision_tables rt "
+                    f"JOIN lot_tables lt ON lt.id = rt.lot_table_id WHERE rt.revision_id IN ({marks})", chunk):
+                by_revision[rid]["tables"][tbl] = (tid, sha)
         return out
 
     # ---- reading
@@ -691,35 +745,96 @@ class LotStore:
         columns of any lot included). Tables without rows are left out, as in
         a folder that lacks them. ``product`` keeps the lots of one product.
         """
-        sql = ("SELECT rt.tbl, lt.id, lt.columns_json, rr.data_json FROM current_revisions cr "
-               "JOIN lots l ON l.lot = cr.lot "
-               "JOIN revision_tables rt ON rt.revision_id = cr.id "
-               "JOIN lot_tables lt ON lt.id = rt.lot_table_id "
-               "JOIN raw_rows rr ON rr.lot_table_id = lt.id ")
-        params: tuple = ()
-        if product is not None:
-            sql += "WHERE cr.product = ? "
-            params = (product,)
-        sql += "ORDER BY l.rowid, rr.seq"
-        with bulk():
-            return self._current_tables(sql, params)
+        where, params = ("WHERE cr.product = ? ", (product,)) if product is not None else ("", ())
+        # the lots in the order they came (CROSS JOIN keeps lots the outer loop: no sort), each with its
+        # latest revision, as the current_revisions view picks it, and that revision's lot tables
+        links_sql = ("SELECT rt.tbl, rt.lot_table_id, lt.n_rows, lt.columns_json FROM lots l "
+                     "CROSS JOIN revisions cr CROSS JOIN revision_tables rt CROSS JOIN lot_tables lt "
+                     "WHERE cr.lot = l.lot AND cr.revision = (SELECT MAX(revision) FROM revisions WHERE lot = l.lot) "
+                     "AND rt.revision_id = cr.id AND lt.id = rt.lot_table_id "
+                     + ("AND cr.product = ? " if product is not None else "") + "ORDER BY l.rowid")
+        with _read.bulk(), self._snapshot():
+            links = self._read(links_sql, params)
+            if not links:
+                return {}
+            needed = sum(link[2] for link in links)
+            stored = self._read("SELECT MAX(rowid) FROM raw_rows")[0][0] or 0  # append-only: the row count
+            if 2 * needed >= stored:  # mostly current rows: one pass over the table
+                tids, texts = self._raw_rows("SELECT lot_table_id, data_json FROM raw_rows "
+                                             "ORDER BY lot_table_id, seq", ())
+            else:  # much history: only the current lot tables' rows
+                tids, texts = self._raw_rows(
+                    "SELECT rr.lot_table_id, rr.data_json FROM raw_rows rr WHERE rr.lot_table_id IN "
+                    "(SELECT rt.lot_table_id FROM current_revisions cr JOIN revision_tables rt "
+                    "ON rt.revision_id = cr.id " + where + ") ORDER BY rr.lot_table_id, rr.seq", params)
+            return self._current_tables(links, tids, texts)
 
-    def _current_tables(self, sql: str, params: tuple) -> dict[str, pd.DataFrame]:
-        rows: dict[str, list[dict]] = {}
+    def _raw_rows(self, sql: str, params: tuple) -> tuple[np.ndarray, np.ndarray]:
+        """(lot table id, JSON text) rows of a query as two arrays, fetched
+        in chunks (a list of a million tuples costs more memory than both)."""
+        tids: list[np.ndarray] = []
+        texts: list[str] = []
+        try:
+            cursor = self._conn.execute(sql, params)
+            while chunk := cursor.fetchmany(65536):
+                ids, text = zip(*chunk)
+                tids.append(np.array(ids, dtype=np.int64))
+                texts.extend(text)
+        except sqlite3.OperationalError as exc:
+            raise self._error(exc) from None
+        return (np.concatenate(tids) if tids else np.zeros(0, dtype=np.int64)), np.array(texts, dtype=object)
+
+    def _current_tables(self, links: list[tuple], tids: np.ndarray, texts: np.ndarray) -> dict[str, pd.DataFrame]:
+        """The frames from the current lot tables (table, id, rows, columns) in
+        lot order and the raw rows (lot table id and JSON text of each) sorted
+        by id and seq, which may hold other lot tables' rows too."""
         columns: dict[str, dict[str, None]] = {}
-        seen_tables: set[int] = set()
-        texts: dict[str, list[str]] = {}
         seen_columns: set[tuple[str, str]] = set()
-        for tbl, tid, columns_json, data_json in self._read(sql, params):
-            if tid not in seen_tables:
-                seen_tables.add(tid)
-                if (tbl, columns_json) not in seen_columns:  # most lots of a table share their columns
-                    seen_columns.add((tbl, columns_json))
-                    columns.setdefault(tbl, {}).update(dict.fromkeys(json.loads(columns_json)))
-            texts.setdefault(tbl, []).append(data_json)
-        for tbl in list(texts):  # one parse per table: the same values as row by row, without the per-call cost
-            rows[tbl] = json.loads("[" + ",".join(texts.pop(tbl)) + "]")
-        return {t: _frame(t, rows[t], list(columns[t])) for t in TABLES if t in rows}
+        for tbl, _, _, columns_json in links:
+            if (tbl, columns_json) not in seen_columns:  # most lots of a table share their columns
+                seen_columns.add((tbl, columns_json))
+                columns.setdefault(tbl, {}).update(dict.fromkeys(json.loads(columns_json)))
+        link_tbl = np.array([_TABLE_NUMBER[link[0]] for link in links], dtype=np.int64)
+        link_tid = np.array([link[1] for link in links], dtype=np.int64)
+        n_rows = np.array([link[2] for link in links], dtype=np.int64)
+        starts = np.searchsorted(tids, link_tid, side="left")
+        counts = np.searchsorted(tids, link_tid, side="right") - starts
+        if not np.array_equal(counts, n_rows):
+            k = int(np.flatnonzero(counts != n_rows)[0])
+            raise StoreError(f"lot store {self.path} is damaged: lot table {int(link_tid[k])} should have "
+                             f"{int(n_rows[k])} raw rows and has {int(counts[k])}")
+        out = {}
+        for tbl in TABLES:
+            mine = np.flatnonzero(link_tbl == _TABLE_NUMBER[tbl])
+            first, size = starts[mine], counts[mine]
+            if size.sum() == 0:
+                continue
+            ends = np.cumsum(size)
+            at = np.repeat(first - (ends - size), size) + np.arange(ends[-1])  # each lot's rows, lots in order
+            # one parse per table: the same values as row by row, without the per-call cost
+            text = "[" + ",".join(texts[at].tolist()) + "]"
+            texts[at] = None  # each row's text is in ``text`` now
+            rows = json.loads(text)
+            del text
+            out[tbl] = _frame(tbl, rows, list(columns[tbl]))
+        return out
+
+    @contextmanager
+    def _snapshot(self) -> Iterator[None]:
+        """Reads that see one state of the store (one read transaction)."""
+        c = self._conn
+        if c.in_transaction:
+            yield
+            return
+        try:
+            c.execute("BEGIN")
+        except sqlite3.OperationalError as exc:
+            raise self._error(exc) from None
+        try:
+            yield
+        finally:
+            if c.in_transaction:
+                c.execute("COMMIT")
 
     def lots(self, product: str | None = None) -> pd.DataFrame:
         """One row per lot: product, revision, last change, and per table the
@@ -858,11 +973,16 @@ class LotStore:
 def _frame(table: str, rows: list[dict], columns: list[str]) -> pd.DataFrame:
     tdef = TABLES[table]
     kinds = {c.name: c.kind for c in tdef.columns}
+    present = set().union(*rows)  # every key of any row
     extra_names = [c for c in columns if c not in kinds]
-    for r in rows:
-        extra_names += [c for c in r if c not in kinds and c not in extra_names]
+    if not present <= kinds.keys() | set(extra_names):  # a key outside the lots' column lists: in order of
+        ordered = dict.fromkeys(chain.from_iterable(rows))  # first appearance, after those of the lists
+        extra_names += [c for c in ordered if c not in kinds and c not in extra_names]
     template = {}
     for name, kind in kinds.items():
+        if name not in present:  # in no row: what the lines below make of a column of None, directly
+            template[name] = np.full(len(rows), np.nan) if kind == NUMBER else [None] * len(rows)
+            continue
         values = [r.get(name) for r in rows]
         if kind == NUMBER and set(map(type, values)) <= {float, type(None)}:
             template[name] = np.array(values, dtype=float)  # None -> NaN, as _series makes it
@@ -870,8 +990,8 @@ def _frame(table: str, rows: list[dict], columns: list[str]) -> pd.DataFrame:
             template[name] = [None if v is None else dt.datetime.fromisoformat(v) for v in values]
         else:
             template[name] = values  # _cell_in gives text and numbers back as they are
-    extra = {name: [r.get(name) for r in rows] for name in extra_names}
-    return frame_from_columns(table, template, extra, n_rows=len(rows))
+    extra = {name: [r.get(name) for r in rows] if name in present else [None] * len(rows) for name in extra_names}
+    return _read.frame_from_columns(table, template, extra, n_rows=len(rows))
 
 
 def _n_rows(n: int) -> str:

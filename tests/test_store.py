@@ -229,20 +229,19 @@ def test_failure_inside_the_transaction_leaves_nothing(tmp_path, base, monkeypat
         s.ingest(read_folder(base))
     before = dump(path)
     calls = []
-    original = LotStore._insert_lot_table
+    original = LotStore._insert_lot_tables
 
-    def fail_on_second(*args):
-        calls.append(1)
-        if len(calls) == 2:
-            raise RuntimeError("disk gone")
-        return original(*args)
+    def fail_after_writing(c, ingest_id, batch):
+        original(c, ingest_id, batch)  # the lot tables and raw rows are in, the transaction still open
+        calls.append(len(batch))
+        raise RuntimeError("disk gone")
 
-    monkeypatch.setattr(LotStore, "_insert_lot_table", staticmethod(fail_on_second))
+    monkeypatch.setattr(LotStore, "_insert_lot_tables", staticmethod(fail_after_writing))
     changed = folder(tmp_path, "c", tablets=TABLETS.replace("81.0", "70.0").replace("84.5", "70.5"))
     with LotStore(path) as s:
         with pytest.raises(RuntimeError, match="disk gone"):
             s.ingest(read_folder(changed))
-        assert len(calls) == 2
+        assert calls == [2]  # the new tablets rows of lots A and B
     assert dump(path) == before
 
 
@@ -349,17 +348,16 @@ from linkage.read import read_folder
 from linkage.store import LotStore
 
 store_path, folder, flag = sys.argv[1:]
-original = LotStore._insert_lot_table
+original = LotStore._insert_lot_tables
 
 
 def stall(*args):
-    tid = original(*args)
+    original(*args)
     Path(flag).write_text("rows written, transaction open")
     time.sleep(120)
-    return tid
 
 
-LotStore._insert_lot_table = staticmethod(stall)
+LotStore._insert_lot_tables = staticmethod(stall)
 with LotStore(store_path) as s:
     s.ingest(read_folder(folder))
 """

@@ -36,7 +36,7 @@ from linkage.exceptions import LinkageError
 #: findings still open (numbers of tests/reliability/FINDINGS.md). Where a test has to step
 #: around one to check everything else, it does so only while the number is here; each is pinned by a
 #: test marked xfail(strict=True). When a finding is fixed, remove its number and flip that mark.
-OPEN_FINDINGS = {1, 16}
+OPEN_FINDINGS: set[int] = set()
 
 #: byte of the -shm file that SQLite's unix VFS locks for the WAL write lock
 WAL_WRITE_LOCK_BYTE = 120
