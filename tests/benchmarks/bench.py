@@ -484,6 +484,7 @@ def main(argv=None) -> int:
     work.mkdir(parents=True, exist_ok=True)
     started = dt.datetime.now(dt.timezone.utc)
     info = machine()
+    info["load_start"] = os.getloadavg()
     log = lambda *a: print(*a, file=sys.stderr, flush=True)  # noqa: E731
     log(f"linkage benchmark in {work}; {info['cpus']} CPUs, {info['cpu']}")
     res: dict = {"ingest": {}, "train": {}, "decide": None, "whatif": {}, "cli": None}
@@ -499,7 +500,8 @@ def main(argv=None) -> int:
                     Path(f"{store}{suffix}").unlink(missing_ok=True)
                 parts = [run_step("_ingest", part, store) for part in ingest_folders(folder)]
                 a = {"read_s": sum(x["read_s"] for x in parts), "store_s": sum(x["store_s"] for x in parts),
-                     "peak_mb": max(x["peak_mb"] for x in parts), "ingests": len(parts)}
+                     "peak_mb": max(x["peak_mb"] for x in parts), "ingests": len(parts),
+                     "per_ingest_s": [x["read_s"] + x["store_s"] for x in parts]}
                 b = run_step("_assemble", store, folder / "spec.toml")
                 runs.append({**a, **b})
                 log(f"ingest+assemble {n} lots, run {r + 1}: "
@@ -507,7 +509,7 @@ def main(argv=None) -> int:
             keys = ("read_s", "store_s", "current_s", "assemble_s")
             totals = [sum(x[k] for k in keys) for x in runs]
             res["ingest"][n] = {"raw_rows": sum(gen["rows"].values()), "rows": gen["rows"], "runs": len(runs),
-                                "ingests": runs[0]["ingests"],
+                                "ingests": runs[0]["ingests"], "per_ingest_s": runs[0]["per_ingest_s"],
                                 **{k: med([x[k] for x in runs]) for k in keys},
                                 "total_s": med(totals), "totals": totals,
                                 "peak_mb": max(max(x["peak_mb"] for x in runs), 0.0)}
@@ -559,6 +561,7 @@ def main(argv=None) -> int:
         if not args.work:
             shutil.rmtree(work, ignore_errors=True)
     finished = dt.datetime.now(dt.timezone.utc)
+    info["load_end"] = os.getloadavg()
     text = report(res, info, started, finished, args, sizes, train_sizes)
     print(text)
     out = Path(args.out)
@@ -582,6 +585,9 @@ def report(res, info, started, finished, args, sizes, train_sizes) -> str:
           f"Machine: {info['system']}, {info['cpus']} CPUs ({info['cpu']}), "
           + (f"{info['mem_gb']:.1f} GiB RAM" if info["mem_gb"] else "memory unknown") + f"; Python {info['python']}; "
           + ", ".join(f"{k} {v}" for k, v in info["versions"].items()) + ".",
+          "",
+          "Load average (1, 5, 15 min) at the start: " + ", ".join(f"{v:.2f}" for v in info["load_start"])
+          + "; at the end: " + ", ".join(f"{v:.2f}" for v in info["load_end"]) + ".",
           "",
           "Synthetic lots from `make_lots(n, seed=1, truth=Truth.window_scenario())`: every lot has its process "
           "record, 3-5 ribbon replicates, an 11-row sieve analysis and its tablet results, written as CSV. "
@@ -631,6 +637,11 @@ def report(res, info, started, finished, args, sizes, train_sizes) -> str:
         L.append(f"| {n:,} | {x['raw_rows']:,} | {fmt(x['read_s'])} | {fmt(x['store_s'])} | {fmt(x['current_s'])} | "
                  f"{fmt(x['assemble_s'])} | **{fmt(x['total_s'])}** | {fmt(1000 * x['total_s'] / n)} | "
                  f"{fmt(x['peak_mb'])} | {x['runs']} |")
+    for n in sorted(ing):
+        if ing[n]["ingests"] > 1:
+            L += ["", f"{n:,} lots went in as {ing[n]['ingests']} ingests; read + store of each (first run): "
+                  + ", ".join(f"{v:.1f} s" for v in ing[n]["per_ingest_s"]) + ", in order, each into the store "
+                  "the ones before it filled."]
     all_exp = fit_exponent(sorted(ing), [ing[n]["total_s"] for n in sorted(ing)])
     L += ["", f"Growth exponent of the total time (slope of log time on log lots): {fmt(exps)} over "
           f"1,000 lots and up, {fmt(all_exp)} over every size (the smallest sizes are mostly fixed costs).",
