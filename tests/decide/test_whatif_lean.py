@@ -90,7 +90,7 @@ sys.exit(code)
 """
 
 
-@pytest.mark.parametrize("with_store", [False])
+@pytest.mark.parametrize("with_store", [False, True])
 def test_predict_imports_neither_scikit_learn_nor_pandas(saved_model, tmp_path, with_store):
     """What keeps `linkage predict` fast: only numpy of the heavy libraries
     (the recorded what-if in the store included)."""
