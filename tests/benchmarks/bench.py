@@ -111,10 +111,10 @@ def step_ingest(folder: str, store: str) -> None:
 
     t0 = time.perf_counter()
     known = []
-    if Path(store).exists():
+    if Path(store).exists():  # as `linkage ingest`: the lots already stored, for the cross-check
         with LotStore(Path(store), create=False) as s:
-            known = s.lots()
-    checked = read_folder(Path(folder), known_lots=known)  # as `linkage ingest`
+            known = s.lot_ids()
+    checked = read_folder(Path(folder), known_lots=known)
     t1 = time.perf_counter()
     with LotStore(Path(store)) as s:
         s.ingest(checked)
