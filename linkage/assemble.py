@@ -89,15 +89,26 @@ def assemble(
     notes: list[str] = []
 
     out = process.set_index("lot", drop=False)
-    parts = [
-        _ribbon(tables.get("ribbon")),
-        _granules(tables.get("granules"), tables.get("granules_laser"), fines_cutoff_um, notes),
-        _tablets(tables.get("tablets"), tables.get("tablet_weights"), notes),
-        _dissolution(tables.get("dissolution"), dissolution_time_min, dissolution_q_pct, notes),
-    ]
-    for part in parts:
-        if part is not None and not part.empty:
+    parts = {
+        "ribbon": _ribbon(tables.get("ribbon")),
+        "granules": _granules(tables.get("granules"), tables.get("granules_laser"), fines_cutoff_um, notes),
+        "tablets": _tablets(tables.get("tablets"), tables.get("tablet_weights"), notes),
+        "dissolution": _dissolution(tables.get("dissolution"), dissolution_time_min, dissolution_q_pct, notes),
+    }
+    source = {c: "process" for c in out.columns}
+    clashes = []
+    for name, part in parts.items():
+        if part is None or part.empty:
+            continue
+        clashes += [Problem(file=name, column=c, rule=f"the column '{c}' comes from both {source[c]} and {name} "
+                                                      "(an extra column of the same name, or a quantity linkage "
+                                                      "derives); rename one of them")
+                    for c in part.columns if c in source]
+        source.update({c: name for c in part.columns})
+        if not clashes:
             out = out.join(part, how="left")
+    if clashes:
+        raise InputError(clashes)
     # vessel results replace the reported lot mean where both exist
     if "dissolution_from_vessels_pct" in out:
         reported = out["dissolution_pct"] if "dissolution_pct" in out else pd.Series(np.nan, index=out.index)

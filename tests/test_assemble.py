@@ -16,6 +16,7 @@ import pytest
 
 from linkage.assemble import assemble
 from linkage.exceptions import InputError
+from linkage.synthetic import make_lots
 
 APERTURES = np.array([1400, 1000, 710, 500, 355, 250, 180, 125, 90, 63, 0], float)
 
@@ -184,3 +185,18 @@ def test_a_d_value_off_the_stack_is_nan_with_a_note():
     out = assemble(tables)
     assert math.isnan(out.loc[0, "granule_d10_um"])
     assert any("d10" in note and "outside the sieve stack" in note for note in out.attrs["notes"])
+
+
+def test_a_column_from_two_tables_is_a_clear_error_not_a_pandas_one():
+    """An extra process column named like a quantity another table gives
+    (here fines_pct, derived from the sieve) cannot be joined silently; every
+    clash is named. (Found by the store helper: pandas raised 'columns overlap'.)"""
+    lots = make_lots(8, seed=3)
+    tables = {k: v.copy() for k, v in lots.tables.items()}
+    tables["process"]["fines_pct"] = 1.0
+    tables["process"]["compression_force_kn"] = 2.0
+    with pytest.raises(InputError) as err:
+        assemble(tables)
+    text = str(err.value)
+    assert "'fines_pct' comes from both process and granules" in text
+    assert "'compression_force_kn' comes from both process and tablets" in text
