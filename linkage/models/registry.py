@@ -231,7 +231,22 @@ def verify(models_dir, model_id: str, index: dict | None = None) -> tuple[dict, 
             f"the artifact {path / ARTIFACT} does not match its recorded SHA-256 (recorded "
             f"{entry['artifact_sha256'][:16]}…, found {found[:16]}…): it was changed or replaced. It is not "
             "loaded, because loading a joblib file runs code.")
+    _whatif_bytes(path, meta)  # a model whose what-if file was changed is not a complete model either
     return meta, data
+
+
+def _whatif_bytes(path: Path, meta: dict) -> bytes | None:
+    """The bytes of ``whatif.npz`` after checking them against the SHA-256
+    the (verified) metadata records; None for a model saved before the file
+    existed."""
+    recorded = meta.get("whatif_artifact_sha256")
+    if recorded is None:
+        return None
+    data = _read_plain(path / WHATIF, "what-if file")
+    if _sha256(data) != recorded:
+        raise ModelIntegrityError(f"{path / WHATIF} does not match the SHA-256 its metadata records; it was "
+                                  "changed after the model was saved. Refused.")
+    return data
 
 
 def _ordered_ids(index: dict) -> list[str]:
@@ -381,13 +396,9 @@ def load_whatif(models_dir, model_id: str | None = "latest"):
     models_dir = Path(models_dir)
     path = resolve(models_dir, model_id)
     meta, _ = verify(models_dir, path.name)
-    recorded = meta.get("whatif_artifact_sha256")
-    if recorded is None:
+    data = _whatif_bytes(path, meta)  # checked again: these are the bytes that are read
+    if data is None:
         return lean.from_fitted(load(models_dir, path.name))
-    data = _read_plain(path / WHATIF, "what-if file")
-    if _sha256(data) != recorded:
-        raise ModelIntegrityError(f"{path / WHATIF} does not match the SHA-256 its metadata records; it was "
-                                  "changed after the model was saved. Refused.")
     chain = lean.from_npz_bytes(data)
     if chain.model_id != path.name:
         raise ModelIntegrityError(f"{path / WHATIF} does not hold the model {path.name}")

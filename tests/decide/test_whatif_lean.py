@@ -17,7 +17,7 @@ import sys
 import pytest
 
 from linkage.decide.whatif import predict_whatif
-from linkage.exceptions import ModelIntegrityError
+from linkage.exceptions import ModelIntegrityError, ModelNotFoundError
 from linkage.models import registry
 from linkage.models.lean import LeanChain
 
@@ -114,3 +114,14 @@ def test_predict_imports_neither_scikit_learn_nor_pandas(saved_model, tmp_path, 
 
         with LotStore(store, create=False) as s:
             assert [p["model_id"] for p in s.predictions()] == [model_id]
+
+
+def test_a_changed_lean_file_marks_the_model_changed_and_latest_skips_it(saved_model, tmp_path):
+    models_dir, model_id, _ = saved_model
+    copy = tmp_path / "models"
+    shutil.copytree(models_dir, copy)
+    (copy / model_id / registry.WHATIF).write_bytes(b"replaced")
+    [row] = [r for r in registry.list_models(copy) if r["model_id"] == model_id]
+    assert row["status"] == "changed" and "whatif.npz" in row["detail"]
+    with pytest.raises(ModelNotFoundError, match="no complete, verified model.*whatif.npz"):
+        registry.load_whatif(copy, "latest")  # the only model fails its checks: nothing is resolved
