@@ -197,6 +197,13 @@ def verify(models_dir, model_id: str, index: dict | None = None) -> tuple[dict, 
     ModelNotFoundError
         No such model.
     """
+    meta, data, _ = _verify(models_dir, model_id, index)
+    return meta, data
+
+
+def _verify(models_dir, model_id: str, index: dict | None = None) -> tuple[dict, bytes, bytes | None]:
+    """:func:`verify`, also returning the checked bytes of ``whatif.npz``
+    (None for a model saved before it existed)."""
     models_dir = Path(models_dir)
     model_id = _check_id(model_id, models_dir)
     path = _model_dir(models_dir, model_id)
@@ -231,8 +238,8 @@ def verify(models_dir, model_id: str, index: dict | None = None) -> tuple[dict, 
             f"the artifact {path / ARTIFACT} does not match its recorded SHA-256 (recorded "
             f"{entry['artifact_sha256'][:16]}…, found {found[:16]}…): it was changed or replaced. It is not "
             "loaded, because loading a joblib file runs code.")
-    _whatif_bytes(path, meta)  # a model whose what-if file was changed is not a complete model either
-    return meta, data
+    whatif = _whatif_bytes(path, meta)  # a model whose what-if file was changed is not a complete model either
+    return meta, data, whatif
 
 
 def _whatif_bytes(path: Path, meta: dict) -> bytes | None:
@@ -260,6 +267,12 @@ def _ordered_ids(index: dict) -> list[str]:
 def resolve(models_dir, model_id: str | None = "latest") -> Path:
     """Folder of a model, after the escape checks; ``latest`` (or None) is
     the newest complete model whose hashes verify."""
+    return _resolve(models_dir, model_id)[0]
+
+
+def _resolve(models_dir, model_id: str | None) -> tuple[Path, tuple | None]:
+    """:func:`resolve`, also returning what :func:`_verify` gave for the model
+    when resolving ``latest`` verified it (None for an id: not verified yet)."""
     models_dir = Path(models_dir)
     if not models_dir.is_dir():
         raise ModelNotFoundError(f"no model registry at {models_dir}; train a model first ('linkage train')")
@@ -268,14 +281,14 @@ def resolve(models_dir, model_id: str | None = "latest") -> Path:
         skipped = []
         for mid in _ordered_ids(index):
             try:
-                verify(models_dir, mid, index)
+                checked = _verify(models_dir, mid, index)
             except (ModelIntegrityError, ModelNotFoundError) as exc:
                 skipped.append(f"{mid}: {exc}")
                 continue
             if skipped:
                 warnings.warn("latest skipped newer models that fail their checks: " + "; ".join(skipped),
-                              stacklevel=2)
-            return models_dir / mid
+                              stacklevel=3)
+            return models_dir / mid, checked
         detail = ("; models that fail their checks: " + "; ".join(skipped)) if skipped else ""
         raise ModelNotFoundError(f"no complete, verified model in {models_dir}{detail}")
     model_id = _check_id(model_id, models_dir)
@@ -284,7 +297,15 @@ def resolve(models_dir, model_id: str | None = "latest") -> Path:
         avail = _available(models_dir)
         raise ModelNotFoundError(
             f"no model {model_id!r} in {models_dir}; available: {', '.join(avail) if avail else 'none'}")
-    return path
+    return path, None
+
+
+def _checked(models_dir: Path, model_id: str | None) -> tuple[Path, dict, bytes, bytes | None]:
+    """Folder, metadata, artifact bytes and what-if bytes of a model, each
+    file read and hashed once."""
+    path, checked = _resolve(models_dir, model_id)
+    meta, data, whatif = checked or _verify(models_dir, path.name)
+    return path, meta, data, whatif
 
 
 # ---------------------------------------------------------------------------
@@ -376,9 +397,7 @@ def load(models_dir, model_id: str | None = "latest"):
 
     from linkage.models.fitted import FittedChain
 
-    models_dir = Path(models_dir)
-    path = resolve(models_dir, model_id)
-    _, data = verify(models_dir, path.name)
+    path, _, data, _ = _checked(Path(models_dir), model_id)
     chain = joblib.load(io.BytesIO(data))  # the bytes whose hash was just checked
     if not isinstance(chain, FittedChain) or chain.model_id != path.name:
         raise ModelIntegrityError(f"{path / ARTIFACT} does not hold the fitted chain {path.name}")
@@ -393,10 +412,7 @@ def load_whatif(models_dir, model_id: str | None = "latest"):
     saved before ``whatif.npz`` existed is loaded whole and converted."""
     from linkage.models import lean
 
-    models_dir = Path(models_dir)
-    path = resolve(models_dir, model_id)
-    meta, _ = verify(models_dir, path.name)
-    data = _whatif_bytes(path, meta)  # checked again: these are the bytes that are read
+    path, _, _, data = _checked(Path(models_dir), model_id)  # the bytes whose hash was just checked
     if data is None:
         return lean.from_fitted(load(models_dir, path.name))
     chain = lean.from_npz_bytes(data)
