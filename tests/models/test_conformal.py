@@ -102,21 +102,16 @@ def test_cv_plus_coverage_with_a_refitted_model():
 # return the very float the direct selection returns
 # ---------------------------------------------------------------------------
 def _direct_plus_bounds(centres, residuals, alpha):
-    """The CV+ / jackknife+ ends as linkage computed them before issue 8 (kept
-    verbatim as the reference): the ⌊α(n + 1)⌋-th smallest of centres − |R|
-    and the ⌈(1 − α)(n + 1)⌉-th smallest of centres + |R| over the n rows of
-    the (n, m) matrix, by np.partition (Barber et al. 2021 rank rule)."""
+    """The CV+ / jackknife+ ends by their definition (Barber et al. 2021, rank
+    rule): the ⌊α(n + 1)⌋-th smallest of centres − |R| and the
+    ⌈(1 − α)(n + 1)⌉-th smallest of centres + |R| over the n rows of the
+    (n, m) matrix, read off a full sort (±inf where a rank falls outside 1..n).
+    Independent of conformal.py's selection by np.partition."""
     n = residuals.size
-    lo_k, hi_k = lower_rank(n, alpha), upper_rank(n, alpha)
     r = np.abs(residuals)[:, None]
-    if lo_k < 1:
-        low = np.full(centres.shape[1], -np.inf)
-    else:
-        low = np.partition(centres - r, lo_k - 1, axis=0)[lo_k - 1]
-    if hi_k > n:
-        high = np.full(centres.shape[1], np.inf)
-    else:
-        high = np.partition(centres + r, hi_k - 1, axis=0)[hi_k - 1]
+    lo_k, hi_k = lower_rank(n, alpha), upper_rank(n, alpha)
+    low = np.sort(centres - r, axis=0)[lo_k - 1] if lo_k >= 1 else np.full(centres.shape[1], -np.inf)
+    high = np.sort(centres + r, axis=0)[hi_k - 1] if hi_k <= n else np.full(centres.shape[1], np.inf)
     return low, high
 
 
