@@ -73,6 +73,17 @@ def _count(counts, outcome):
         counts["files refused"] += 1
 
 
+def read_written(name: str, data: bytes, reader, *args):
+    """Write ``data`` as the file ``name`` in a fresh folder and read it with
+    ``reader(path, *args)`` within the time bound: (outcome, result) of
+    :func:`clear_or_ok`."""
+    with tempfile.TemporaryDirectory() as d:
+        path = Path(d) / name
+        path.write_bytes(data)
+        with time_limit(BOUND_S, f"reading {name}"):
+            return clear_or_ok(reader, path, *args)
+
+
 def check_table(table: str, df) -> None:
     """What a successful read promises (linkage.schema): template columns
     present, numbers finite and within bounds, keys filled and unique."""
@@ -204,15 +215,12 @@ def csv_files(draw):
 @given(case=csv_files())
 def test_fuzzed_csv_files(case, counts):
     table, suffix, data = case
-    with tempfile.TemporaryDirectory() as d:
-        path = Path(d) / f"{table}{suffix}"
-        path.write_bytes(data)
-        with time_limit(BOUND_S, f"reading {path.name}"):
-            outcome, result = clear_or_ok(read_table, path, table)
+    name = f"{table}{suffix}"
+    outcome, result = read_written(name, data, read_table, table)
     if outcome == "ok":
         check_table(table, result)
     else:
-        assert result.problems and all(p.file == path.name for p in result.problems)
+        assert result.problems and all(p.file == name for p in result.problems)
     _count(counts, outcome)
 
 
@@ -221,11 +229,7 @@ def test_fuzzed_csv_files(case, counts):
        suffix=st.sampled_from([".csv", ".tsv", ".xlsx", ".xlsm"]),
        prefix=st.sampled_from([b"", b"PK\x03\x04", b"\xef\xbb\xbf", b"\xff\xfe", b"lot,", b"<html>"]))
 def test_random_bytes_as_any_table(data, table, suffix, prefix, counts):
-    with tempfile.TemporaryDirectory() as d:
-        path = Path(d) / f"{table}{suffix}"
-        path.write_bytes(prefix + data)
-        with time_limit(BOUND_S, f"reading {path.name}"):
-            outcome, result = clear_or_ok(read_table, path)
+    outcome, result = read_written(f"{table}{suffix}", prefix + data, read_table)
     if outcome == "ok":
         check_table(table, result)
     _count(counts, outcome)
@@ -343,11 +347,7 @@ def plausible_specs(draw):
 @given(tables=plausible_specs() | spec_tables, raw=st.none() | st.text(max_size=200))
 def test_fuzzed_spec_files(tables, raw, counts):
     text = toml_document(tables) if raw is None else raw
-    with tempfile.TemporaryDirectory() as d:
-        path = Path(d) / "spec.toml"
-        path.write_text(text, encoding="utf-8")
-        with time_limit(BOUND_S, "reading spec.toml"):
-            outcome, spec = clear_or_ok(read_spec, path)
+    outcome, spec = read_written("spec.toml", text.encode("utf-8"), read_spec)
     if outcome == "ok":  # what a spec promises: known attributes, finite plausible limits, min <= max
         assert spec.limits and set(spec.limits) <= set(QUALITY_ATTRIBUTES)
         for attr, limit in spec.limits.items():
@@ -377,11 +377,7 @@ mapping_docs = st.dictionaries(
 @given(doc=mapping_docs, raw=st.none() | st.text(max_size=200))
 def test_fuzzed_mapping_files(doc, raw, counts):
     text = toml_document(doc) if raw is None else raw
-    with tempfile.TemporaryDirectory() as d:
-        path = Path(d) / "columns.toml"
-        path.write_text(text, encoding="utf-8")
-        with time_limit(BOUND_S, "reading columns.toml"):
-            outcome, _ = clear_or_ok(read_mapping, path)
+    outcome, _ = read_written("columns.toml", text.encode("utf-8"), read_mapping)
     _count(counts, outcome)
 
 
@@ -435,11 +431,7 @@ def plausible_chains(draw):
 @given(doc=plausible_chains() | chain_docs, raw=st.none() | st.text(max_size=200))
 def test_fuzzed_chain_files(doc, raw, counts):
     text = toml_document(doc) if raw is None else raw
-    with tempfile.TemporaryDirectory() as d:
-        path = Path(d) / "chain.toml"
-        path.write_text(text, encoding="utf-8")
-        with time_limit(BOUND_S, "reading chain.toml"):
-            outcome, chain = clear_or_ok(ChainSpec.from_toml, path)
+    outcome, chain = read_written("chain.toml", text.encode("utf-8"), ChainSpec.from_toml)
     if outcome == "ok":  # a chain that reads is a valid chain: it writes back to an equal one
         assert ChainSpec.from_toml_text(chain.to_toml()) == chain
     _count(counts, outcome)
