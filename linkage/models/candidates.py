@@ -26,6 +26,35 @@ Five candidates, from the simplest (see :data:`linkage.models.cv.SIMPLICITY_ORDE
 Every estimator follows the scikit-learn contract (``fit`` returns self,
 learned state ends in ``_``) and adds ``contributions(X) -> (matrix,
 base_value)`` whose rows add up to ``prediction − base_value``.
+
+Adding a candidate
+------------------
+A candidate is one class: a subclass of :class:`Candidate` (itself a
+scikit-learn regressor) that is at once the estimator and the rules for
+tuning it.
+
+1. Set the class attributes ``name`` (the key in :data:`CANDIDATES`, in the
+   training report and on the command line) and ``description`` (one line).
+2. Give the estimator ``__init__`` (hyperparameters only, stored as given),
+   ``_fit(X, y)`` (returns self; learned state ends in ``_``), ``_predict(X)``
+   and ``_contributions(X) -> (matrix, base)``. The base class's ``fit``,
+   ``predict`` and ``contributions`` check the input first and call these
+   with a float array.
+3. Override the class methods where the defaults do not fit:
+   ``not_applicable(inputs, X, y)`` (default: refused when no input varies),
+   ``grid(n, p)`` (default: one point, ``[{}]``; list the simplest first),
+   ``build(params, inputs, *, n, monotone, seed)`` (default:
+   ``cls(**params)``) and ``fit_predict_grid(...)`` (default: one fit per grid
+   point; override when one fit gives every grid point, as the staged
+   boosting predictions do).
+4. ``lean_spec()``: the fitted model as plain numbers for
+   :mod:`linkage.models.lean` (``{"kind": ..., ...}``, one of the kinds that
+   module evaluates; a new kind needs its numpy arithmetic there, called by
+   the estimator's ``_predict`` too, so the two cannot drift apart).
+5. Decorate the class with :func:`register` and put its ``name`` at its place
+   in :data:`linkage.models.cv.SIMPLICITY_ORDER` (simplest first; the
+   one-standard-error rule prefers the earlier one). A test checks that the
+   two agree.
 """
 
 from __future__ import annotations
@@ -34,6 +63,7 @@ import math
 import warnings
 import weakref
 from dataclasses import dataclass
+from typing import ClassVar
 
 import numpy as np
 from sklearn.base import BaseEstimator, RegressorMixin
@@ -44,6 +74,8 @@ from linkage.models.lean import (quad_features, quadratic_contributions, quadrat
 
 __all__ = [
     "CandidateError",
+    "Candidate",
+    "register",
     "MeanRegressor",
     "RDRegressor",
     "PLSRegressor",
@@ -75,36 +107,179 @@ def _varying(X: np.ndarray) -> np.ndarray:
 
 
 # ---------------------------------------------------------------------------
-# estimators
+# the candidate base class and the registry
 # ---------------------------------------------------------------------------
-class MeanRegressor(RegressorMixin, BaseEstimator):
-    """Predicts the mean of the training lots."""
+BOOSTING_STAGES = (5, 10, 20)
+RIDGE_ALPHAS = (0.1, 1.0, 10.0, 100.0, 1000.0)
+PLS_MAX_COMPONENTS = 4
 
+
+def min_samples_leaf_for(n: int) -> int:
+    """Lots per boosting leaf: n/8 between 2 and 10 (common practice, no source)."""
+    return int(max(2, min(10, n // 8)))
+
+
+#: name -> candidate class, in the order they are registered (see :func:`register`)
+CANDIDATES: dict[str, type[Candidate]] = {}
+
+
+def register(cls: type[Candidate]) -> type[Candidate]:
+    """Class decorator: enter the candidate ``cls`` in :data:`CANDIDATES` under ``cls.name``."""
+    if not cls.name:
+        raise TypeError(f"{cls.__name__} sets no candidate name")
+    if CANDIDATES.get(cls.name, cls) is not cls:
+        raise TypeError(f"candidate name {cls.name!r} is taken by {CANDIDATES[cls.name].__name__}")
+    CANDIDATES[cls.name] = cls
+    return cls
+
+
+class Candidate(RegressorMixin, BaseEstimator):
+    """One candidate: a scikit-learn regressor that also says when it applies,
+    what grid it is tuned over, how it is built and how its grid is fitted
+    (class methods, so the class itself is the candidate's specification;
+    see "Adding a candidate" in the module notes).
+
+    ``fit``, ``predict`` and ``contributions`` check their input and call
+    the subclass's ``_fit``, ``_predict`` and ``_contributions``.
+    """
+
+    #: key in :data:`CANDIDATES` and :data:`linkage.models.cv.SIMPLICITY_ORDER`
+    name: ClassVar[str] = ""
+    #: one line for the training report
+    description: ClassVar[str] = ""
+
+    # -- the estimator -----------------------------------------------------
     def fit(self, X, y):
-        y = np.asarray(y, dtype=float)
-        self.mean_ = float(np.mean(y))
-        self.n_features_in_ = np.asarray(X).shape[1]
-        return self
+        X, y = self._fit_input(X, y)
+        return self._fit(X, y)
 
     def predict(self, X):
-        return np.full(np.asarray(X).shape[0], self.mean_)
+        return self._predict(self._input(X))
 
     def contributions(self, X):
-        return np.zeros(np.asarray(X, dtype=float).shape), self.mean_
+        """(matrix rows × inputs, base value): rows add up to prediction − base."""
+        return self._contributions(self._input(X))
+
+    def _fit_input(self, X, y):
+        X = np.asarray(X, dtype=float)
+        y = np.asarray(y, dtype=float)
+        self.n_features_in_ = X.shape[1]
+        return X, y
+
+    def _input(self, X):
+        return np.asarray(X, dtype=float)
+
+    def _fit(self, X: np.ndarray, y: np.ndarray):
+        raise NotImplementedError
+
+    def _predict(self, X: np.ndarray) -> np.ndarray:
+        raise NotImplementedError
+
+    def _contributions(self, X: np.ndarray):
+        raise NotImplementedError
+
+    def lean_spec(self) -> dict:
+        """The fitted model as plain numbers, ``{"kind": ..., ...}``, for
+        :mod:`linkage.models.lean`."""
+        raise TypeError(f"no lean form for a {type(self).__name__}")
+
+    # -- the candidate -----------------------------------------------------
+    @classmethod
+    def not_applicable(cls, inputs: list[str], X: np.ndarray, y: np.ndarray) -> str | None:
+        """Reason the candidate cannot be used on these data, or None."""
+        if not _varying(X).any():
+            return "no input varies over the training lots"
+        return None
+
+    @classmethod
+    def grid(cls, n: int, p: int) -> list[dict]:
+        """Hyperparameter grid, simplest first, for a tuning set of n lots and p inputs."""
+        return [{}]
+
+    @classmethod
+    def build(cls, params: dict, inputs: list[str], *, n: int, monotone: dict[str, int] | None = None,
+              seed: int = 0) -> Candidate:
+        """An unfitted estimator at the grid point ``params`` for the stage
+        ``inputs``, a training set of ``n`` lots, the stage's monotone
+        constraints {input: ±1} and ``seed``."""
+        return cls(**params)
+
+    @classmethod
+    def fit_predict_grid(cls, grid, Xtr, ytr, evals, *, inputs, monotone, seed):
+        """Fit every grid point on (Xtr, ytr); predictions on each array of
+        ``evals``: a list of arrays of shape (G, m_e)."""
+        out = [np.empty((len(grid), len(Xe))) for Xe in evals]
+        for g, params in enumerate(grid):
+            est = cls.build(params, inputs, n=len(ytr), monotone=monotone, seed=seed).fit(Xtr, ytr)
+            for e, Xe in enumerate(evals):
+                if len(Xe):
+                    out[e][g] = est.predict(Xe)
+        return out
 
 
-class RDRegressor(RegressorMixin, BaseEstimator):
+#: the former name of the candidate specification (now the class itself)
+CandidateSpec = Candidate
+
+
+# ---------------------------------------------------------------------------
+# the candidates
+# ---------------------------------------------------------------------------
+@register
+class MeanRegressor(Candidate):
+    """Predicts the mean of the training lots."""
+
+    name = "mean"
+    description = "mean of the training lots (the floor)"
+
+    @classmethod
+    def not_applicable(cls, inputs, X, y):
+        return None
+
+    def _fit(self, X, y):
+        self.mean_ = float(np.mean(y))
+        return self
+
+    def _predict(self, X):
+        return np.full(X.shape[0], self.mean_)
+
+    def _contributions(self, X):
+        return np.zeros(X.shape), self.mean_
+
+    def lean_spec(self):
+        return {"kind": "mean", "mean": float(self.mean_)}
+
+
+@register
+class RDRegressor(Candidate):
     """y = s0·exp(−k·ε) on the porosity column ``porosity_index`` of X."""
+
+    name = "rd_baseline"
+    description = "Ryshkewitch–Duckworth y0·exp(−k·ribbon_porosity), non-linear least squares"
 
     def __init__(self, porosity_index: int = 0):
         self.porosity_index = porosity_index
 
-    def fit(self, X, y):
+    @classmethod
+    def not_applicable(cls, inputs, X, y):
+        if POROSITY not in inputs:
+            return "ribbon_porosity is not an input of this stage"
+        eps = X[:, inputs.index(POROSITY)]
+        if len(np.unique(eps)) < 3:
+            return "the training lots have fewer than 3 distinct ribbon porosities; k cannot be estimated"
+        if np.any((eps < 0) | (eps > 1)):
+            return "ribbon_porosity lies outside 0–1"
+        if np.any(y < 0):
+            return "the target has negative values; y0·exp(−k·ε) cannot fit them"
+        return None
+
+    @classmethod
+    def build(cls, params, inputs, *, n, monotone=None, seed=0):
+        return cls(porosity_index=inputs.index(POROSITY))
+
+    def _fit(self, X, y):
         from linkage.physics.strength import fit_ryshkewitch_duckworth
 
-        X = np.asarray(X, dtype=float)
         eps = X[:, self.porosity_index]
-        y = np.asarray(y, dtype=float)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # OptimizeWarning on the covariance of tiny fits
             try:
@@ -116,21 +291,23 @@ class RDRegressor(RegressorMixin, BaseEstimator):
         self.s0_, self.k_ = float(fit["s0"]), float(fit["k"])
         self.s0_se_ = float(fit["s0_se"]) if np.isfinite(fit["s0_se"]) else None
         self.k_se_ = float(fit["k_se"]) if np.isfinite(fit["k_se"]) else None
-        self.n_features_in_ = X.shape[1]
         self.base_ = float(np.mean(self._curve(eps)))
         return self
 
     def _curve(self, eps):
         return self.s0_ * np.exp(-self.k_ * np.asarray(eps, dtype=float))  # y = y0 exp(-k eps)
 
-    def predict(self, X):
-        return self._curve(np.asarray(X, dtype=float)[:, self.porosity_index])
+    def _predict(self, X):
+        return self._curve(X[:, self.porosity_index])
 
-    def contributions(self, X):
-        X = np.asarray(X, dtype=float)
+    def _contributions(self, X):
         c = np.zeros(X.shape)
-        c[:, self.porosity_index] = self.predict(X) - self.base_
+        c[:, self.porosity_index] = self._predict(X) - self.base_
         return c, self.base_
+
+    def lean_spec(self):
+        return {"kind": "rd", "porosity_index": int(self.porosity_index), "s0": float(self.s0_),
+                "k": float(self.k_), "base": float(self.base_)}
 
     @property
     def params_(self) -> dict:
@@ -164,7 +341,8 @@ def pls_vip(pls) -> np.ndarray:
     return vip_from_weights(pls.x_weights_, ss)
 
 
-class PLSRegressor(RegressorMixin, BaseEstimator):
+@register
+class PLSRegressor(Candidate):
     """PLS1 on standardised inputs (scikit-learn ``PLSRegression``, scale=True).
 
     Inputs without variation over the training lots are left out of the fit
@@ -173,16 +351,35 @@ class PLSRegressor(RegressorMixin, BaseEstimator):
     varying inputs and n − 1.
     """
 
+    name = "pls"
+    description = "PLS on standardised inputs, components by inner grouped CV"
+
     def __init__(self, n_components: int = 1):
         self.n_components = n_components
 
-    def fit(self, X, y):
+    @classmethod
+    def grid(cls, n, p):
+        n_train = n - math.ceil(n / 5)
+        top = max(1, min(p, PLS_MAX_COMPONENTS, n_train - 1))
+        return [{"n_components": a} for a in range(1, top + 1)]
+
+    @classmethod
+    def fit_predict_grid(cls, grid, Xtr, ytr, evals, *, inputs, monotone, seed):
+        """One fit with the most components; the smaller grid points from its
+        first components (:meth:`predict_components`)."""
+        out = [np.empty((len(grid), len(Xe))) for Xe in evals]
+        top = max(g["n_components"] for g in grid)
+        est = cls.build({"n_components": top}, inputs, n=len(ytr)).fit(Xtr, ytr)
+        for g, params in enumerate(grid):
+            for e, Xe in enumerate(evals):
+                if len(Xe):
+                    out[e][g] = est.predict_components(Xe, params["n_components"])
+        return out
+
+    def _fit(self, X, y):
         from sklearn.cross_decomposition import PLSRegression
 
-        X = np.asarray(X, dtype=float)
-        y = np.asarray(y, dtype=float)
         n, p = X.shape
-        self.n_features_in_ = p
         self.x_mean_ = X.mean(axis=0)
         self.intercept_ = float(y.mean())
         self.coef_ = np.zeros(p)
@@ -207,8 +404,7 @@ class PLSRegressor(RegressorMixin, BaseEstimator):
         self.pls_ = pls
         return self
 
-    def predict(self, X):
-        X = np.asarray(X, dtype=float)
+    def _predict(self, X):
         return (X - self.x_mean_) @ self.coef_ + self.intercept_
 
     def predict_components(self, X, n_components: int) -> np.ndarray:
@@ -219,10 +415,10 @@ class PLSRegressor(RegressorMixin, BaseEstimator):
         a-component model is T[:, :a]·q[:a] = Z·R[:, :a]·q[:a] with R the
         x-rotations of the larger fit; equal to refitting with a components.
         """
-        X = np.asarray(X, dtype=float)
+        X = self._input(X)
         a = min(int(n_components), self.n_components_)
         if a >= self.n_components_ or not hasattr(self, "pls_"):
-            return self.predict(X)
+            return self._predict(X)
         pls, keep = self.pls_, self.used_
         Xk = X[:, keep]
         x_sd = self.x_sd_
@@ -230,12 +426,16 @@ class PLSRegressor(RegressorMixin, BaseEstimator):
         beta = pls.x_rotations_[:, :a] @ pls.y_loadings_[0, :a]
         return z @ beta * self.y_sd_ + self.intercept_
 
-    def contributions(self, X):
-        X = np.asarray(X, dtype=float)
+    def _contributions(self, X):
         return (X - self.x_mean_) * self.coef_, self.intercept_
 
+    def lean_spec(self):
+        return {"kind": "linear", "x_mean": np.asarray(self.x_mean_, float), "coef": np.asarray(self.coef_, float),
+                "intercept": float(self.intercept_)}
 
-class QuadraticRidge(RegressorMixin, BaseEstimator):
+
+@register
+class QuadraticRidge(Candidate):
     """Ridge regression on standardised inputs zᵢ, their squares zᵢ² and
     pairwise products zᵢzⱼ (intercept not penalised).
 
@@ -247,14 +447,17 @@ class QuadraticRidge(RegressorMixin, BaseEstimator):
     background, so the contributions add up to prediction − base exactly.
     """
 
+    name = "quadratic_ridge"
+    description = "ridge on standardised inputs, squares and pairwise products, penalty by inner grouped CV"
+
     def __init__(self, alpha: float = 1.0):
         self.alpha = alpha
 
-    def fit(self, X, y):
-        X = np.asarray(X, dtype=float)
-        y = np.asarray(y, dtype=float)
-        n, p = X.shape
-        self.n_features_in_ = p
+    @classmethod
+    def grid(cls, n, p):
+        return [{"alpha": a} for a in reversed(RIDGE_ALPHAS)]  # most penalised (simplest) first
+
+    def _fit(self, X, y):
         self.x_mean_ = X.mean(axis=0)
         sd = X.std(axis=0)
         self.x_scale_ = np.where(_varying(X), sd, 1.0)
@@ -270,20 +473,30 @@ class QuadraticRidge(RegressorMixin, BaseEstimator):
         self.z_m2_ = (Z**2).mean(axis=0)
         return self
 
-    def predict(self, X):
+    def _predict(self, X):
         return quadratic_predict(X, self.x_mean_, self.x_scale_, self.beta_, self.intercept_)
 
-    def contributions(self, X):
+    def _contributions(self, X):
         return quadratic_contributions(X, self.x_mean_, self.x_scale_, self.beta_, self.intercept_, self.z_m1_,
                                        self.z_m2_)
 
+    def lean_spec(self):
+        return {"kind": "quadratic", "x_mean": np.asarray(self.x_mean_, float),
+                "x_scale": np.asarray(self.x_scale_, float), "beta": np.asarray(self.beta_, float),
+                "intercept": float(self.intercept_), "z_m1": np.asarray(self.z_m1_, float),
+                "z_m2": np.asarray(self.z_m2_, float)}
 
-class BoostingRegressor(RegressorMixin, BaseEstimator):
+
+@register
+class BoostingRegressor(Candidate):
     """scikit-learn ``HistGradientBoostingRegressor`` with small-data
     settings; ``contributions`` are path-dependent TreeSHAP values (Lundberg
     et al. 2020, Nat. Mach. Intell. 2:56-67), which add up to prediction −
     expected value: the values ``shap.TreeExplainer`` gives, computed here
     without importing shap (see :func:`tree_shap_values`)."""
+
+    name = "boosting"
+    description = "histogram gradient boosting, depth 2, learning rate 0.2, trees by inner grouped CV"
 
     def __init__(self, max_iter: int = 20, learning_rate: float = 0.2, max_depth: int = 2,
                  min_samples_leaf: int = 3, monotonic_cst=None, random_state: int = 0):
@@ -293,6 +506,31 @@ class BoostingRegressor(RegressorMixin, BaseEstimator):
         self.min_samples_leaf = min_samples_leaf
         self.monotonic_cst = monotonic_cst
         self.random_state = random_state
+
+    @classmethod
+    def grid(cls, n, p):
+        return [{"max_iter": m} for m in BOOSTING_STAGES]
+
+    @classmethod
+    def build(cls, params, inputs, *, n, monotone=None, seed=0):
+        cst = [int((monotone or {}).get(c, 0)) for c in inputs]
+        return cls(min_samples_leaf=min_samples_leaf_for(n), monotonic_cst=cst if any(cst) else None,
+                   random_state=seed, **params)
+
+    @classmethod
+    def fit_predict_grid(cls, grid, Xtr, ytr, evals, *, inputs, monotone, seed):
+        """One fit with the most trees; the smaller grid points from its staged predictions."""
+        top = max(g["max_iter"] for g in grid)
+        est = cls.build({"max_iter": top}, inputs, n=len(ytr), monotone=monotone, seed=seed).fit(Xtr, ytr)
+        want = [g["max_iter"] for g in grid]
+        out = []
+        for Xe in evals:
+            if len(Xe) == 0:
+                out.append(np.empty((len(grid), 0)))
+                continue
+            staged = [p for i, p in enumerate(est.staged_predict(Xe), start=1) if i in want]
+            out.append(np.vstack(staged))
+        return out
 
     def _model(self):
         from sklearn.ensemble import HistGradientBoostingRegressor
@@ -305,22 +543,18 @@ class BoostingRegressor(RegressorMixin, BaseEstimator):
             random_state=self.random_state,
         )
 
-    def fit(self, X, y):
-        X = np.asarray(X, dtype=float)
-        self.n_features_in_ = X.shape[1]
-        self.model_ = self._model().fit(X, np.asarray(y, dtype=float))
+    def _fit(self, X, y):
+        self.model_ = self._model().fit(X, y)
         return self
 
-    def predict(self, X):
-        X = np.asarray(X, dtype=float)
+    def _predict(self, X):
         fast = tree_predict(self.model_, X) if X.shape[0] <= TREE_PREDICT_ROWS else None
         return fast if fast is not None else self.model_.predict(X)
 
     def staged_predict(self, X):
-        return self.model_.staged_predict(np.asarray(X, dtype=float))
+        return self.model_.staged_predict(self._input(X))
 
-    def contributions(self, X):
-        X = np.asarray(X, dtype=float)
+    def _contributions(self, X):
         fast = tree_shap_values(self.model_, X)
         if fast is not None:
             return fast
@@ -333,6 +567,17 @@ class BoostingRegressor(RegressorMixin, BaseEstimator):
         values = np.asarray(explainer.shap_values(X), dtype=float).reshape(X.shape)
         base = float(np.asarray(explainer.expected_value, dtype=float).reshape(-1)[0])
         return values, base
+
+    def lean_spec(self):
+        trees = _trees(self.model_)
+        if trees is None:
+            raise TypeError("these boosted trees (categorical splits or another loss) have no lean form")
+        out = {"kind": "trees", "baseline": float(trees.baseline), "depth": int(trees.depth)}
+        for name in ("feature", "threshold", "left", "right", "value", "leaf", "leaf_value", "path_feature",
+                     "path_threshold", "path_left", "path_fraction"):
+            a = np.asarray(getattr(trees, name))
+            out[name] = a.astype(np.int64) if a.dtype.kind in "iu" else a
+        return out
 
 
 #: fitted model -> its trees as arrays (see _trees); weak, so a model that is
@@ -492,119 +737,6 @@ def tree_shap_values(model, X: np.ndarray):
     return tree_shap(trees, X)
 
 
-# ---------------------------------------------------------------------------
-# candidate specifications: applicability, grid, construction
-# ---------------------------------------------------------------------------
-BOOSTING_STAGES = (5, 10, 20)
-RIDGE_ALPHAS = (0.1, 1.0, 10.0, 100.0, 1000.0)
-PLS_MAX_COMPONENTS = 4
-
-
-def min_samples_leaf_for(n: int) -> int:
-    """Lots per boosting leaf: n/8 between 2 and 10 (common practice, no source)."""
-    return int(max(2, min(10, n // 8)))
-
-
-@dataclass(frozen=True)
-class CandidateSpec:
-    """How to check, tune and build one candidate."""
-
-    name: str
-    description: str
-
-    # -- applicability -----------------------------------------------------
-    def not_applicable(self, inputs: list[str], X: np.ndarray, y: np.ndarray) -> str | None:
-        """Reason the candidate cannot be used on these data, or None."""
-        if self.name == "mean":
-            return None
-        if self.name == "rd_baseline":
-            if POROSITY not in inputs:
-                return "ribbon_porosity is not an input of this stage"
-            eps = X[:, inputs.index(POROSITY)]
-            if len(np.unique(eps)) < 3:
-                return "the training lots have fewer than 3 distinct ribbon porosities; k cannot be estimated"
-            if np.any((eps < 0) | (eps > 1)):
-                return "ribbon_porosity lies outside 0–1"
-            if np.any(y < 0):
-                return "the target has negative values; y0·exp(−k·ε) cannot fit them"
-            return None
-        if not _varying(X).any():
-            return "no input varies over the training lots"
-        return None
-
-    # -- grid ------------------------------------------------------------
-    def grid(self, n: int, p: int) -> list[dict]:
-        """Hyperparameter grid, simplest first, for a tuning set of n lots."""
-        if self.name == "pls":
-            n_train = n - math.ceil(n / 5)
-            top = max(1, min(p, PLS_MAX_COMPONENTS, n_train - 1))
-            return [{"n_components": a} for a in range(1, top + 1)]
-        if self.name == "quadratic_ridge":
-            return [{"alpha": a} for a in reversed(RIDGE_ALPHAS)]  # most penalised (simplest) first
-        if self.name == "boosting":
-            return [{"max_iter": m} for m in BOOSTING_STAGES]
-        return [{}]
-
-    def build(self, params: dict, inputs: list[str], *, n: int, monotone: dict[str, int] | None = None,
-              seed: int = 0):
-        if self.name == "mean":
-            return MeanRegressor()
-        if self.name == "rd_baseline":
-            return RDRegressor(porosity_index=inputs.index(POROSITY))
-        if self.name == "pls":
-            return PLSRegressor(**params)
-        if self.name == "quadratic_ridge":
-            return QuadraticRidge(**params)
-        if self.name == "boosting":
-            cst = [int((monotone or {}).get(c, 0)) for c in inputs]
-            return BoostingRegressor(min_samples_leaf=min_samples_leaf_for(n),
-                                     monotonic_cst=cst if any(cst) else None, random_state=seed, **params)
-        raise KeyError(self.name)
-
-    def fit_predict_grid(self, grid, Xtr, ytr, evals, *, inputs, monotone, seed):
-        """Fit every grid point on (Xtr, ytr); predictions on each array of
-        ``evals``: a list of arrays of shape (G, m_e)."""
-        if self.name == "boosting":
-            top = max(g["max_iter"] for g in grid)
-            est = self.build({"max_iter": top}, inputs, n=len(ytr), monotone=monotone, seed=seed).fit(Xtr, ytr)
-            want = [g["max_iter"] for g in grid]
-            out = []
-            for Xe in evals:
-                if len(Xe) == 0:
-                    out.append(np.empty((len(grid), 0)))
-                    continue
-                staged = [p for i, p in enumerate(est.staged_predict(Xe), start=1) if i in want]
-                out.append(np.vstack(staged))
-            return out
-        out = [np.empty((len(grid), len(Xe))) for Xe in evals]
-        if self.name == "pls":
-            top = max(g["n_components"] for g in grid)
-            est = self.build({"n_components": top}, inputs, n=len(ytr)).fit(Xtr, ytr)
-            for g, params in enumerate(grid):
-                for e, Xe in enumerate(evals):
-                    if len(Xe):
-                        out[e][g] = est.predict_components(Xe, params["n_components"])
-            return out
-        for g, params in enumerate(grid):
-            est = self.build(params, inputs, n=len(ytr), monotone=monotone, seed=seed).fit(Xtr, ytr)
-            for e, Xe in enumerate(evals):
-                if len(Xe):
-                    out[e][g] = est.predict(Xe)
-        return out
-
-
-CANDIDATES: dict[str, CandidateSpec] = {
-    "mean": CandidateSpec("mean", "mean of the training lots (the floor)"),
-    "rd_baseline": CandidateSpec(
-        "rd_baseline", "Ryshkewitch–Duckworth y0·exp(−k·ribbon_porosity), non-linear least squares"),
-    "pls": CandidateSpec("pls", "PLS on standardised inputs, components by inner grouped CV"),
-    "quadratic_ridge": CandidateSpec(
-        "quadratic_ridge", "ridge on standardised inputs, squares and pairwise products, penalty by inner grouped CV"),
-    "boosting": CandidateSpec(
-        "boosting", "histogram gradient boosting, depth 2, learning rate 0.2, trees by inner grouped CV"),
-}
-
-
 @dataclass
 class TuneResult:
     """Inner grouped CV of one candidate on one tuning set.
@@ -623,7 +755,7 @@ class TuneResult:
     extra_pred: np.ndarray
 
 
-def tune(spec: CandidateSpec, X: np.ndarray, y: np.ndarray, groups, X_extra: np.ndarray | None = None, *,
+def tune(spec: type[Candidate], X: np.ndarray, y: np.ndarray, groups, X_extra: np.ndarray | None = None, *,
          inputs: list[str], monotone: dict[str, int] | None = None, seed: int = 0,
          splits: list | None = None) -> TuneResult:
     """Choose the candidate's hyperparameters by inner grouped CV (lowest

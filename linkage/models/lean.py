@@ -354,33 +354,12 @@ class LeanChain:
 # from a fitted chain
 # ---------------------------------------------------------------------------
 def _model_spec(est) -> dict:
-    kind = type(est).__name__
-    if kind == "MeanRegressor":
-        return {"kind": "mean", "mean": float(est.mean_)}
-    if kind == "RDRegressor":
-        return {"kind": "rd", "porosity_index": int(est.porosity_index), "s0": float(est.s0_), "k": float(est.k_),
-                "base": float(est.base_)}
-    if kind == "PLSRegressor":
-        return {"kind": "linear", "x_mean": np.asarray(est.x_mean_, float), "coef": np.asarray(est.coef_, float),
-                "intercept": float(est.intercept_)}
-    if kind == "QuadraticRidge":
-        return {"kind": "quadratic", "x_mean": np.asarray(est.x_mean_, float),
-                "x_scale": np.asarray(est.x_scale_, float), "beta": np.asarray(est.beta_, float),
-                "intercept": float(est.intercept_), "z_m1": np.asarray(est.z_m1_, float),
-                "z_m2": np.asarray(est.z_m2_, float)}
-    if kind == "BoostingRegressor":
-        from linkage.models.candidates import _trees
-
-        trees = _trees(est.model_)
-        if trees is None:
-            raise TypeError("these boosted trees (categorical splits or another loss) have no lean form")
-        out = {"kind": "trees", "baseline": float(trees.baseline), "depth": int(trees.depth)}
-        for name in ("feature", "threshold", "left", "right", "value", "leaf", "leaf_value", "path_feature",
-                     "path_threshold", "path_left", "path_fraction"):
-            a = np.asarray(getattr(trees, name))
-            out[name] = a.astype(np.int64) if a.dtype.kind in "iu" else a
-        return out
-    raise TypeError(f"no lean form for a {kind}")
+    """The lean form of one fitted estimator: each candidate gives its own
+    (``lean_spec``, see :class:`linkage.models.candidates.Candidate`)."""
+    spec = getattr(est, "lean_spec", None)
+    if spec is None:
+        raise TypeError(f"no lean form for a {type(est).__name__}")
+    return spec()
 
 
 def _num(v):

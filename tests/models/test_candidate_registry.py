@@ -1,0 +1,57 @@
+"""The candidate registry: every candidate is one class, registered once and
+placed in the simplicity order, and owns its rules."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from linkage.models.candidates import CANDIDATES, Candidate, CandidateSpec, register
+from linkage.models.cv import SIMPLICITY_ORDER
+
+
+def test_the_registry_and_the_simplicity_order_name_the_same_candidates():
+    assert list(CANDIDATES) == list(SIMPLICITY_ORDER)
+    for name, cls in CANDIDATES.items():
+        assert issubclass(cls, Candidate) and cls.name == name and cls.description
+
+
+def test_candidate_spec_is_the_base_class_under_its_former_name():
+    assert CandidateSpec is Candidate
+
+
+def test_a_name_cannot_be_registered_twice():
+    class Other(Candidate):
+        name = "pls"
+
+    with pytest.raises(TypeError, match="taken by PLSRegressor"):
+        register(Other)
+    assert CANDIDATES["pls"].__name__ == "PLSRegressor"
+
+
+def test_a_new_candidate_is_one_class():
+    """A candidate defined as one subclass, with only the methods it needs,
+    is tuned by the same grid loop as the built-in ones; here least squares
+    on one input, checked against numpy's polyfit."""
+
+    class FirstInputLine(Candidate):
+        name = "first_input_line"
+        description = "least squares on the first input (a test's candidate)"
+
+        def _fit(self, X, y):
+            self.slope_, self.intercept_ = np.polyfit(X[:, 0], y, 1)
+            return self
+
+        def _predict(self, X):
+            return self.slope_ * X[:, 0] + self.intercept_
+
+    rng = np.random.default_rng(0)
+    X = rng.normal(size=(20, 2))
+    y = 3 * X[:, 0] + 1 + rng.normal(0, 0.1, 20)
+    assert FirstInputLine.not_applicable(["a", "b"], X, y) is None
+    assert FirstInputLine.not_applicable(["a", "b"], np.ones((20, 2)), y) == "no input varies over the training lots"
+    (pred,) = FirstInputLine.fit_predict_grid(FirstInputLine.grid(20, 2), X, y, [X[:3]], inputs=["a", "b"],
+                                              monotone=None, seed=0)
+    slope, icpt = np.polyfit(X[:, 0], y, 1)
+    assert pred[0] == pytest.approx(slope * X[:3, 0] + icpt, rel=1e-12)
+    assert "first_input_line" not in CANDIDATES  # registering is a deliberate step
