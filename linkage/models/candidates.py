@@ -571,7 +571,12 @@ class BoostingRegressor(Candidate):
     def lean_spec(self):
         trees = _trees(self.model_)
         if trees is None:
-            raise TypeError("these boosted trees (categorical splits or another loss) have no lean form")
+            import sklearn
+
+            raise TypeError(f"the boosted trees of this model cannot be read into the lean form with scikit-learn "
+                            f"{sklearn.__version__} (categorical splits, another loss, or a private tree layout "
+                            "this version of linkage does not know); train without boosting "
+                            "(--candidates) or with the scikit-learn version pyproject.toml names")
         out = {"kind": "trees", "baseline": float(trees.baseline), "depth": int(trees.depth)}
         for name in ("feature", "threshold", "left", "right", "value", "leaf", "leaf_value", "path_feature",
                      "path_threshold", "path_left", "path_fraction"):
@@ -607,15 +612,24 @@ class _Trees:
 
 def _trees(model) -> _Trees | None:
     """The arrays of :class:`_Trees` for ``model`` (cached), or None where a
-    tree has categorical splits or an iteration holds more than one tree."""
+    tree has categorical splits, an iteration holds more than one tree, or
+    scikit-learn's private layout (``_predictors``, ``_baseline_prediction``,
+    the node record fields) is not the one read here: then the callers use
+    scikit-learn's own ``predict`` and shap's ``TreeExplainer``, and the lean
+    export refuses with a clear message (:meth:`BoostingRegressor.lean_spec`)."""
+    try:
+        return _read_trees(model)
+    except (AttributeError, KeyError, IndexError, ValueError, TypeError):
+        return None  # a renamed or changed private attribute
+
+
+def _read_trees(model) -> _Trees | None:
     try:
         key, trees = _TREES[model]
         if key is model._predictors:  # a refit makes a new list of trees
             return trees
     except KeyError:
         pass
-    except TypeError:
-        return None
     per_tree = []
     for predictors in model._predictors:
         if len(predictors) != 1:
