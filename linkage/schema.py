@@ -11,6 +11,7 @@ or plausible range; a value outside them is refused with the rule named.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 # kinds of a column's values
@@ -231,6 +232,49 @@ ASSEMBLED: dict[str, str] = {
     "dissolution_vessels": "count",
     "dissolution_s1_pass": "bool",
 }
+
+#: Physical bounds of each predicted quantity (assembled unit): a prediction,
+#: an interval end and a Monte Carlo draw of that quantity is projected onto
+#: them before it is shown or judged (:func:`linkage.models.lean.project`).
+#: (low, high, low_open, high_open); an open end means the bound itself is
+#: impossible, and a value is held a hair inside it (``OPEN_MARGIN`` of the
+#: range). Where the template states a bound for a measurement of the same
+#: quantity (``TABLES``), that bound is used, so that no prediction is a value
+#: the tool would refuse as a measurement. By definition: porosity = 1 −
+#: envelope/skeletal density and solid fraction = 1 − porosity lie strictly
+#: between 0 and 1 for a ribbon that holds together and has pores; fines and
+#: friability are shares of a mass (0–100 %); an RSD, a size, a span, a
+#: strength, a force and an acceptance value are not negative. Dissolution is
+#: 0 to 150 % of label claim, the template's bound of ``tablets.dissolution_pct``
+#: and ``dissolution.released_pct`` (release above 100 % happens when content
+#: exceeds the label claim). Strengths and sizes have no upper bound here: the
+#: template's upper ends for them (``spec.DERIVED_RANGES``, the laser table)
+#: guard against a unit slip, they are not physics.
+PHYSICAL_BOUNDS: dict[str, tuple[float, float, bool, bool]] = {
+    "ribbon_porosity": (0.0, 1.0, True, True),
+    "ribbon_solid_fraction": (0.0, 1.0, True, True),
+    "ribbon_porosity_sd": (0.0, math.inf, False, False),
+    "ribbon_tensile_strength_mpa": (0.0, math.inf, False, False),
+    "granule_d10_um": (0.0, math.inf, False, False),
+    "granule_d50_um": (0.0, math.inf, False, False),
+    "granule_d90_um": (0.0, math.inf, False, False),
+    "granule_span": (0.0, math.inf, False, False),
+    "fines_pct": (0.0, 100.0, False, False),
+    "rrsb_x_prime_um": (0.0, math.inf, False, False),
+    "rrsb_n": (0.0, math.inf, False, False),
+    "tensile_strength_mpa": (0.0, math.inf, False, False),
+    "breaking_force_n": (0.0, math.inf, False, False),
+    "weight_rsd_pct": (TABLETS.column("weight_rsd_pct").low, TABLETS.column("weight_rsd_pct").high, False, False),
+    "weight_acceptance_value": (0.0, math.inf, False, False),
+    "friability_pct": (TABLETS.column("friability_pct").low, TABLETS.column("friability_pct").high, False, False),
+    "dissolution_pct": (TABLETS.column("dissolution_pct").low, TABLETS.column("dissolution_pct").high, False, False),
+    "dissolution_sd_pct": (0.0, math.inf, False, False),
+}
+
+#: how far inside an open physical bound a projected value is held, as a share of the range (common practice, no
+#: source: small against any measured porosity, large enough that ln or logit of it stays finite)
+OPEN_MARGIN = 1e-6
+
 
 #: Quality attributes a spec file may name (the assembled columns that are
 #: measured results).

@@ -66,11 +66,17 @@ def format_window(result) -> str:
     por = d["ribbon_porosity"]
     lines = [f"Model {d['model_id']}; confidence {d['confidence']:.0%} that every specification passes together.",
              f"Training lots cover ribbon porosity {por['data_range'][0]:.3f}–{por['data_range'][1]:.3f}."]
+    if not d.get("promise", True):
+        from linkage.report.sheet import WINDOW_NO_PROMISE
+
+        lines.append(f"!! {WINDOW_NO_PROMISE}")
+        lines += [f"   - {r}" for r in d["promise_reasons"]]
     if not d["found"]:
         lines.append("NO WINDOW: at no porosity in the training range does the chance of meeting every "
                      f"specification reach {d['confidence']:.0%}.")
     else:
-        lines.append(f"Porosity window: {por['low']:.3f} – {por['high']:.3f}")
+        lines.append(f"Porosity window: {por['low']:.3f} – {por['high']:.3f}"
+                     + ("" if d.get("promise", True) else " (extrapolation, not promised)"))
         for side in ("low", "high"):
             by = por[f"{side}_limited_by"]
             why = "cut by the range of the training data, not by a specification" if by == "data range" \
@@ -180,26 +186,43 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, s
 
 
 def format_whatif(result) -> str:
-    from linkage.report.sheet import probability_text
+    from linkage.report.sheet import NO_PROMISE, PROJECTED_NOTE, probability_text, projected_text
 
     d = result.to_dict()
     lvl = f"{d['interval_level']:.0%}"
     lines = [f"Model {d['model_id']}, {lvl} intervals."]
-    if not d["in_domain"]:
-        lines.append("!! OUT OF THE APPLICABILITY DOMAIN: these predictions are extrapolations.")
+    if not d["promise"]:
+        lines.append(f"!! {NO_PROMISE}")
         lines += [f"   - {r}" for r in d["domain_reasons"]]
     lines.append("Inputs: " + ", ".join(f"{k}={v['value']:.4g}"
                                         + (" (median)" if v["source"] != "given" else "")
                                         for k, v in d["inputs"].items()))
+    projected = []
     for name, p in d["predictions"].items():
-        line = f"  {name:<24} {p['value']:>9.4g}   [{p['low']:.4g}, {p['high']:.4g}]"
+        line = f"  {name:<24} {p['value']:>9.4g}   [{_end(p['low'])}, {_end(p['high'])}]"
+        if p.get("projected"):
+            line += " *"
+            projected.append(f"   * {name}: {projected_text(p)}")
         if "p_pass" in p:
             line += f"   P(pass) {probability_text(p['p_pass'])}"
+            if not d["promise"]:
+                line += " (extrapolation, not promised)"
         lines.append(line)
+    if projected:
+        lines.append(f"   * {PROJECTED_NOTE}")
+        lines += projected
     if d["p_pass_all"] is not None:
-        lines.append(f"P(every specification passes together): {probability_text(d['p_pass_all'])}")
+        if d["promise"]:
+            lines.append(f"P(every specification passes together): {probability_text(d['p_pass_all'])}")
+        else:
+            lines.append("No probability of meeting every specification is promised here; the share of simulated "
+                         f"lots that pass every limit, {probability_text(d['p_pass_all'])}, is an extrapolation.")
     lines.append(CAUTION)
     return "\n".join(lines)
+
+
+def _end(v) -> str:
+    return "unbounded" if v is None or abs(v) == float("inf") else f"{v:.4g}"
 
 
 def record(store, action: str, *, model_id: str, inputs, outputs, lot: str | None = None,

@@ -9,6 +9,12 @@ errors on lots the model did not see, so they carry both measurement noise
 and model error. A value the user measured replaces the stage's draw and
 carries no model error.
 
+Every draw is projected onto its attribute's physical range
+(:func:`linkage.models.lean.project`: a weight RSD below 0 is 0, a porosity
+stays inside (0, 1)) before it is judged or passed to the next stage, and so
+is every mean prediction; ``Draws.raw`` keeps the draws as the models gave
+them, to say where a value was projected.
+
 Draws use common random numbers: the same residual lots for every row of
 the inputs, so that a curve over porosity is smooth and two rows differ only
 by their inputs.
@@ -16,7 +22,7 @@ by their inputs.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -30,6 +36,9 @@ class Draws:
     values: dict[str, np.ndarray]
     means: dict[str, np.ndarray]  # deterministic chain of mean predictions, shape (rows,)
     fixed: set[str]  # names given by the user (measured or set), not predicted
+    #: the predicted draws and means before the physical projection (same shapes); given names are absent
+    raw: dict[str, np.ndarray] = field(default_factory=dict)
+    raw_means: dict[str, np.ndarray] = field(default_factory=dict)
 
     @property
     def n_draws(self) -> int:
@@ -46,7 +55,7 @@ def simulate(chain, inputs, *, n_draws: int = 2000, seed: int = 0) -> Draws:
     optionally, measured stage targets such as ``ribbon_porosity``, which
     replace the prediction for that target.
     """
-    from linkage.models.lean import as_lean
+    from linkage.models.lean import as_lean, project
 
     chain = as_lean(chain)
     columns = {str(name): np.asarray(inputs[name], dtype=float).reshape(-1) for name in inputs}
@@ -54,6 +63,8 @@ def simulate(chain, inputs, *, n_draws: int = 2000, seed: int = 0) -> Draws:
     rng = np.random.default_rng(seed)
     values: dict[str, np.ndarray] = {}
     means: dict[str, np.ndarray] = {}
+    raw: dict[str, np.ndarray] = {}
+    raw_means: dict[str, np.ndarray] = {}
     fixed = set(columns)
     for name, col in columns.items():
         values[name] = np.repeat(col[:, None], n_draws, axis=1)
@@ -73,10 +84,12 @@ def simulate(chain, inputs, *, n_draws: int = 2000, seed: int = 0) -> Draws:
         for name in todo:
             target = stage.targets[name]
             r = _residual_column(stage.residual_column(name), name, pick, rng)
-            pred = target.predict(x).reshape(rows, n_draws)
-            values[name] = pred + r[None, :]
-            means[name] = target.predict(x_mean)
-    return Draws(values=values, means=means, fixed=fixed)
+            pred = target.predict(x, raw=True).reshape(rows, n_draws)
+            raw[name] = pred + r[None, :]  # the model's draw; projected once, as a whole
+            values[name] = project(name, raw[name])[0]
+            raw_means[name] = target.predict(x_mean, raw=True)
+            means[name] = project(name, raw_means[name])[0]
+    return Draws(values=values, means=means, fixed=fixed, raw=raw, raw_means=raw_means)
 
 
 def _residual_column(col: np.ndarray, name: str, pick: np.ndarray, rng) -> np.ndarray:

@@ -112,6 +112,17 @@ class WhatIf:
     domain_reasons: list[str]
     domain: dict[str, dict] = field(default_factory=dict)
 
+    @property
+    def promise(self) -> bool:
+        """Whether the what-if promises its probabilities and intervals: only
+        inside the applicability domain of every stage it used. Outside it the
+        numbers are extrapolations of the models, shown but not promised."""
+        return bool(self.in_domain)
+
+    @property
+    def promise_reasons(self) -> list[str]:
+        return [] if self.promise else [f"outside the applicability domain: {r}" for r in self.domain_reasons]
+
     def to_dict(self) -> dict:
         return {
             "model_id": self.model_id,
@@ -123,6 +134,8 @@ class WhatIf:
             "in_domain": self.in_domain,
             "domain_reasons": self.domain_reasons,
             "domain": self.domain,
+            "promise": self.promise,
+            "promise_reasons": self.promise_reasons,
             "caution": CAUTION,
         }
 
@@ -135,7 +148,7 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
     loads, :mod:`linkage.models.lean`); the arithmetic runs on the lean form
     either way, so both give the same numbers.
     """
-    from linkage.models.lean import as_lean
+    from linkage.models.lean import as_lean, physical_range, project
 
     chain = as_lean(chain)
     check_values(chain, values)
@@ -169,14 +182,21 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
             target = stage.targets[name]
             v = draws.values[name][0]
             if inputs_known:
-                lo, hi = target.interval(x, level)
-                low, high, method = float(lo[0]), float(hi[0]), "cv+ conformal"
+                lo, hi = target.interval(x, level, raw=True)
+                raw_low, raw_high, method = float(lo[0]), float(hi[0]), "cv+ conformal"
+                low, high = (float(project(name, e)[0]) for e in (raw_low, raw_high))
             else:
                 low, high = (float(a) for a in np.quantile(v, [q, 1 - q]))
+                raw_low, raw_high = (float(a) for a in np.quantile(draws.raw[name][0], [q, 1 - q]))
                 method = "monte carlo through the chain"
+            value, raw_value = float(draws.means[name][0]), float(draws.raw_means[name][0])
+            bounds = physical_range(name)
             entry = {
-                "value": float(draws.means[name][0]), "low": low, "high": high,
+                "value": value, "low": low, "high": high,
                 "interval_method": method, "selected_model": target.selected,
+                "projected": bool(value != raw_value or low != raw_low or high != raw_high),
+                "unprojected": {"value": raw_value, "low": raw_low, "high": raw_high},
+                "physical_range": [_num(b) for b in bounds],
             }
             if name in spec_limits:
                 ok = within(v, spec_limits[name])

@@ -17,6 +17,14 @@ passes every limit. It is always at least as wide, and overstates what can
 be promised (Peterson 2008, J. Biopharm. Stat. 18:959–975); the decision is
 taken on probability.
 
+The window is a promise only where the chain is on known ground: the
+held settings, the scanned porosity and the mean predictions of the earlier
+stages are checked against each stage's applicability domain at every grid
+point inside the window (the whole scan when there is none), and the ribbon
+stage at every roll force of its range (:func:`window_domain`). Where any is
+outside, ``promise`` is false with the reasons: the numbers are shown, as
+extrapolations.
+
 The roll force range comes from the ribbon stage at the stated gap, roll
 speed and screw speed: the forces whose predicted lot-mean porosity lands in
 the window with at least the confidence (ribbon residuals of unseen lots),
@@ -33,6 +41,7 @@ import pandas as pd
 from linkage import CAUTION
 from linkage.decide.propagate import fill_settings, mean_passes, pass_matrix, simulate, within
 from linkage.exceptions import UsageError
+from linkage.models.lean import project
 
 POROSITY = "ribbon_porosity"
 FORCE = "roll_force_kn_per_cm"
@@ -65,6 +74,11 @@ class WindowResult:
     mean_ok: np.ndarray = field(repr=False)
     n_draws: int = 0
     seed: int = 0
+    #: does the window promise its probability: every point it rests on inside every stage's domain (see
+    #: :func:`window_domain`); the reasons where not, and per grid point whether every stage is in its domain
+    promise: bool = True
+    promise_reasons: list[str] = field(default_factory=list)
+    in_domain: np.ndarray | None = field(repr=False, default=None)
 
     @property
     def found(self) -> bool:
@@ -89,6 +103,8 @@ class WindowResult:
             "roll_force_kn_per_cm": {k: v for k, v in self.roll_force.items() if curve or k != "curve"},
             "n_draws": self.n_draws,
             "seed": self.seed,
+            "promise": self.promise,
+            "promise_reasons": list(self.promise_reasons),
             "caution": CAUTION,
         }
         if curve:
@@ -98,6 +114,8 @@ class WindowResult:
                 "p_each": {k: _floats(v) for k, v in self.p_each.items()},
                 "mean_pass": [bool(b) for b in self.mean_ok],
             }
+            if self.in_domain is not None:
+                out["curve"]["in_domain"] = [bool(b) for b in self.in_domain]
         return out
 
 
@@ -176,6 +194,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
 
     force = roll_force_range(chain, low_edge.value, high_edge.value, settings=roots,
                              confidence=confidence, seed=seed)
+    domain = window_domain(chain, draws, grid, low_edge.value, high_edge.value, force)
     used = {k: {"value": float(v), "source": source[k]} for k, v in sorted(values.items())}
     used.update({k: {"value": float(settings[k]), "source": "given"} for k in settings if k in produced})
     return WindowResult(
@@ -185,7 +204,57 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         segments=[s[1] for s in segments], settings=used, attributes=attributes,
         not_modelled=not_modelled, roll_force=force, grid=grid, p_all=p_all, p_each=p_each,
         bands=bands, mean_ok=mean_ok, n_draws=n_draws, seed=seed,
+        promise=domain["promise"], promise_reasons=domain["reasons"], in_domain=domain["in_domain"],
     )
+
+
+def window_domain(chain, draws, grid, low: float | None, high: float | None, roll_force: dict) -> dict:
+    """Applicability-domain verdicts of the points a window rests on.
+
+    At each porosity of ``grid``, each simulated stage is checked at its
+    inputs on the chain of mean predictions (held settings, the porosity,
+    earlier stages' means) with its domain model (training ranges, Hotelling
+    T² and Q residual; :func:`linkage.models.lean.domain_verdicts`); and the
+    ribbon stage at the forces of the roll force range with the settings held
+    for it. The window promises its probability only when every grid point
+    from ``low`` to ``high`` (the whole grid when there is no window) and
+    every force of the range is inside every domain. Returns ``promise``,
+    ``reasons`` (per stage, the porosities or forces outside and the
+    verdict's reasons at the first of them) and ``in_domain`` per grid point.
+    """
+    from linkage.models.lean import as_lean
+
+    lean = as_lean(chain)
+    grid = np.asarray(grid, float)
+    inside = np.ones(len(grid), dtype=bool) if low is None else (grid >= low - 1e-12) & (grid <= high + 1e-12)
+    ok_all = np.ones(len(grid), dtype=bool)
+    reasons: list[str] = []
+    for stage in lean.stages:
+        if stage.domain is None or all(t in draws.fixed for t in stage.targets) or POROSITY in stage.targets:
+            continue
+        verdicts = stage.domain.check({c: draws.means[c] for c in stage.inputs})
+        ok = np.array([v["in_domain"] for v in verdicts], dtype=bool)
+        ok_all &= ok
+        bad = np.flatnonzero(inside & ~ok)
+        if len(bad):
+            where = (f"ribbon porosity {grid[bad[0]]:.3f}" if len(bad) == 1
+                     else f"ribbon porosity {grid[bad[0]]:.3f}–{grid[bad[-1]]:.3f}")
+            reasons += [f"{stage.name} stage at {where} ({len(bad)} of {int(inside.sum())} points"
+                        f"{' in the window' if low is not None else ' scanned'}): {r}"
+                        for r in verdicts[bad[0]]["reasons"]]
+    ribbon = next((s for s in lean.stages if POROSITY in s.targets), None)
+    if ribbon is not None and ribbon.domain is not None and roll_force.get("low") is not None:
+        forces = np.asarray(roll_force["curve"]["roll_force_kn_per_cm"], float)
+        forces = forces[(forces >= roll_force["low"]) & (forces <= roll_force["high"])]
+        held = {k: v["value"] for k, v in roll_force.get("held", {}).items()}
+        x = {c: (forces if c == FORCE else np.full(len(forces), held.get(c, lean.medians.get(c, np.nan))))
+             for c in ribbon.domain.inputs}
+        verdicts = ribbon.domain.check(x)
+        bad = [i for i, v in enumerate(verdicts) if not v["in_domain"]]
+        if bad:
+            reasons += [f"{ribbon.name} stage at roll force {forces[bad[0]]:.2f}–{forces[bad[-1]]:.2f} kN/cm "
+                        f"({len(bad)} of {len(forces)} forces of the range): {r}" for r in verdicts[bad[0]]["reasons"]]
+    return {"promise": not reasons, "reasons": reasons, "in_domain": ok_all}
 
 
 def downstream_targets(chain) -> set[str]:
@@ -253,7 +322,7 @@ def roll_force_range(chain, low: float | None, high: float | None, *, settings: 
     x = pd.DataFrame({**{k: np.full(n_grid, v) for k, v in held.items()}, FORCE: forces})[target.inputs]
     mean = np.asarray(target.predict(x), float)
     r = stage.residual_table()[POROSITY].dropna().to_numpy(float)
-    draws = mean[:, None] + r[None, :]
+    draws = project(POROSITY, np.asarray(target.predict(x, raw=True), float)[:, None] + r[None, :])[0]
     p_in = ((draws >= low) & (draws <= high)).mean(axis=1)
     ok = np.flatnonzero(p_in >= confidence)
     in_mean = np.flatnonzero((mean >= low) & (mean <= high))

@@ -16,6 +16,7 @@ from linkage import CAUTION
 from linkage.exceptions import InputError, Problem
 from linkage.models.chain import ChainSpec
 from linkage.models.conformal import cv_plus_interval
+from linkage.models.lean import project
 from linkage.jsonable import jsonable
 
 __all__ = ["FittedTarget", "FittedStage", "FittedChain", "jsonable", "INTERVAL_METHOD", "COVERAGE_METHOD"]
@@ -102,9 +103,12 @@ class FittedTarget:
     full_models_: dict = field(repr=False, default_factory=dict)
 
     # -- predictions -------------------------------------------------------
-    def predict(self, X: pd.DataFrame) -> np.ndarray:
-        """Prediction of the selected candidate fitted on every training lot."""
-        return np.asarray(self.model_.predict(_as_matrix(X, self.inputs, f"{self.target} prediction")), float)
+    def predict(self, X: pd.DataFrame, *, raw: bool = False) -> np.ndarray:
+        """Prediction of the selected candidate fitted on every training lot,
+        projected onto the attribute's physical range
+        (:func:`linkage.models.lean.project`) unless ``raw``."""
+        out = np.asarray(self.model_.predict(_as_matrix(X, self.inputs, f"{self.target} prediction")), float)
+        return out if raw else project(self.target, out)[0]
 
     def predict_candidate(self, X: pd.DataFrame, name: str) -> np.ndarray:
         """Prediction of another candidate's full-data fit (e.g. ``rd_baseline``)."""
@@ -112,17 +116,22 @@ class FittedTarget:
             raise KeyError(f"{name} was not fitted for {self.target}; fitted: {', '.join(self.full_models_)}")
         return np.asarray(self.full_models_[name].predict(_as_matrix(X, self.inputs, f"{self.target} prediction")))
 
-    def interval(self, X: pd.DataFrame, level: float | None = None) -> tuple[np.ndarray, np.ndarray]:
+    def interval(self, X: pd.DataFrame, level: float | None = None, *,
+                 raw: bool = False) -> tuple[np.ndarray, np.ndarray]:
         """CV+ prediction interval (see :data:`INTERVAL_METHOD`) at ``level``
-        (default: the nominal coverage). An end is ``-inf``/``inf`` when the
-        rank rule needs more lots than were trained on, e.g. a 90 % interval
-        from fewer than 9 lots: no finite interval carries the guarantee."""
+        (default: the nominal coverage), each end projected onto the
+        attribute's physical range (:func:`linkage.models.lean.project`)
+        unless ``raw``. A raw end is ``-inf``/``inf`` when the rank rule needs
+        more lots than were trained on, e.g. a 90 % interval from fewer than 9
+        lots: no finite interval carries the guarantee, and the projected end
+        is then the physical bound (``±inf`` where the quantity has none)."""
         level = self.nominal_coverage if level is None else float(level)
         if not 0 < level < 1:
             raise ValueError(f"level must lie strictly between 0 and 1; got {level}")
         Xa = _as_matrix(X, self.inputs, f"{self.target} interval")
         preds = np.vstack([np.asarray(m.predict(Xa), float) for m in self.fold_models_])
-        return cv_plus_interval(preds, self.fold_of_, self.residuals.to_numpy(float), 1 - level)
+        low, high = cv_plus_interval(preds, self.fold_of_, self.residuals.to_numpy(float), 1 - level)
+        return (low, high) if raw else (project(self.target, low)[0], project(self.target, high)[0])
 
     def contributions(self, X: pd.DataFrame) -> pd.DataFrame:
         """Per-input contributions to each prediction of the selected model.

@@ -36,7 +36,7 @@ from linkage.exceptions import InputError, Problem, UsageError
 
 __all__ = ["LeanChain", "from_fitted", "as_lean", "to_npz_bytes", "from_npz_bytes", "FORMAT",
            "quad_features", "quadratic_predict", "quadratic_contributions", "walk_trees", "tree_shap",
-           "domain_verdicts"]
+           "domain_verdicts", "physical_range", "project"]
 
 FORMAT = 1
 
@@ -132,6 +132,35 @@ def tree_shap(trees, X: np.ndarray):
         without = masks[(masks >> i & 1) == 0]
         phi[:, i] = weight[without] @ (v[without | (1 << i)] - v[without])
     return phi, float(trees.baseline) + float(v[0, 0])
+
+
+# ---------------------------------------------------------------------------
+# physical bounds (FittedTarget, Target and the Monte Carlo call this)
+# ---------------------------------------------------------------------------
+def physical_range(name: str) -> tuple[float, float]:
+    """The closed interval a value of ``name`` is projected onto: its
+    physical bounds (:data:`linkage.schema.PHYSICAL_BOUNDS`), an open end
+    moved inside by ``OPEN_MARGIN`` of the range; (−inf, inf) for a quantity
+    without bounds."""
+    from linkage.schema import OPEN_MARGIN, PHYSICAL_BOUNDS
+
+    if name not in PHYSICAL_BOUNDS:
+        return (-math.inf, math.inf)
+    low, high, low_open, high_open = PHYSICAL_BOUNDS[name]
+    step = OPEN_MARGIN * (high - low) if math.isfinite(high - low) else 0.0
+    return (low + step if low_open else low, high - step if high_open else high)
+
+
+def project(name: str, values) -> tuple[np.ndarray, np.ndarray]:
+    """``values`` of ``name`` projected onto :func:`physical_range` (the
+    nearest physically possible value: a clip, ±inf included), and a boolean
+    array saying which were moved. The projection is monotone, so an interval
+    projected end by end still holds every value it held that is physically
+    possible: its coverage of real lots is unchanged."""
+    v = np.asarray(values, dtype=float)
+    low, high = physical_range(name)
+    out = np.clip(v, low, high)
+    return out, (out != v) & ~np.isnan(v)
 
 
 # ---------------------------------------------------------------------------
@@ -280,11 +309,15 @@ class Target:
                               for i, j in list(zip(rows, cols))[:50]])
         return X
 
-    def predict(self, columns) -> np.ndarray:
-        return np.asarray(self.model_.predict(self.matrix(columns)), float)
+    def predict(self, columns, *, raw: bool = False) -> np.ndarray:
+        """The selected model's prediction, projected onto the attribute's
+        physical range (:func:`project`) unless ``raw``."""
+        out = np.asarray(self.model_.predict(self.matrix(columns)), float)
+        return out if raw else project(self.target, out)[0]
 
-    def interval(self, columns, level: float | None = None):
-        """CV+ interval (see :data:`linkage.models.fitted.INTERVAL_METHOD`)."""
+    def interval(self, columns, level: float | None = None, *, raw: bool = False):
+        """CV+ interval (see :data:`linkage.models.fitted.INTERVAL_METHOD`),
+        each end projected onto the physical range (:func:`project`) unless ``raw``."""
         from linkage.models.conformal import cv_plus_interval
 
         level = self.nominal_coverage if level is None else float(level)
@@ -292,7 +325,8 @@ class Target:
             raise ValueError(f"level must lie strictly between 0 and 1; got {level}")
         X = self.matrix(columns, "interval")
         preds = np.vstack([np.asarray(m.predict(X), float) for m in self.fold_models_])
-        return cv_plus_interval(preds, self.fold_of_, self.residuals_, 1 - level)
+        low, high = cv_plus_interval(preds, self.fold_of_, self.residuals_, 1 - level)
+        return (low, high) if raw else (project(self.target, low)[0], project(self.target, high)[0])
 
     def contributions(self, columns):
         """(matrix rows × inputs, base value): rows add up to prediction − base."""

@@ -313,6 +313,11 @@ def _glance(b, chain, table, spec, window):
     elif window is None:
         items.append("A specification was given but the porosity window could not be computed (see the window "
                      "section).")
+    elif window.found and not window.promise:
+        items.append(
+            f"Ribbon porosity window {window.low.value:.3f} – {window.high.value:.3f}: <b>no probability is "
+            f"promised</b>, the held settings are outside the applicability domain (an extrapolation; see the "
+            f"window section).")
     elif window.found:
         items.append(
             f"<b>Ribbon porosity window: {window.low.value:.3f} – {window.high.value:.3f}</b> "
@@ -765,6 +770,11 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
     b.add(f"<p>Ribbon porosity is scanned over the training range {w.data_range[0]:.3f} – {w.data_range[1]:.3f}. "
           f"At each porosity, {w.n_draws} lots are simulated through the chain; the probability of meeting every "
           f"specification together must reach {w.confidence:.0%}.</p>")
+    if not w.promise:
+        from linkage.report.sheet import WINDOW_NO_PROMISE
+
+        items = "".join(f"<li>{_e(r)}</li>" for r in w.promise_reasons)
+        b.add(f'<div class="out"><b>{_e(WINDOW_NO_PROMISE)}</b><ul>{items}</ul></div>')
     if w.found:
         b.add(f"<p><b>Window: {w.low.value:.3f} – {w.high.value:.3f}</b>. Low edge {_edge_text(w.low.limited_by)}; "
               f"high edge {_edge_text(w.high.limited_by)}.</p>")

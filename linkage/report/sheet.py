@@ -45,6 +45,28 @@ def probability_text(p: float) -> str:
     return f"{100 * p:.1f}%"
 
 
+#: the headline of a what-if or window outside the applicability domain (text, HTML sheet, report)
+NO_PROMISE = ("OUT OF THE APPLICABILITY DOMAIN: no probability is promised here. The numbers below are "
+              "extrapolations of the models, shown for orientation only; the reasons:")
+
+#: the headline of a window whose held settings leave a stage's applicability domain (text and report)
+WINDOW_NO_PROMISE = ("OUT OF THE APPLICABILITY DOMAIN at the held settings: no probability is promised for this "
+                     "window. It is an extrapolation of the models, shown for orientation only; the reasons:")
+
+#: what a projected value means (text and HTML sheet)
+PROJECTED_NOTE = ("projected: the model gave a physically impossible value or interval end, moved onto the "
+                  "quantity's physical range (README, 'How the numbers are made')")
+
+
+def projected_text(p: dict) -> str:
+    """What the model gave before the projection of one prediction entry, and the range it was projected onto."""
+    u, (lo, hi) = p["unprojected"], p["physical_range"]
+    rng = f"{_fmt(lo, 6) if lo is not None else 'unbounded'} to {_fmt(hi, 6) if hi is not None else 'unbounded'}"
+    ends = ", ".join(_fmt(u[k]) if u[k] is not None and abs(u[k]) != float("inf") else "unbounded"
+                     for k in ("low", "high"))
+    return f"the model gave {_fmt(u['value'])} [{ends}]; physical range {rng}"
+
+
 def _unit(name: str) -> str:
     u = ASSEMBLED.get(name, "")
     return "" if u in ("-", "") else f" [{escape(u)}]"
@@ -90,9 +112,14 @@ def whatif_html(result) -> str:
             ) if s
         ) or "no limit given"
         p_pass = "–" if "p_pass" not in p else escape(probability_text(p["p_pass"]))
+        if "p_pass" in p and not d["promise"]:
+            p_pass += "<br><span class=meta>extrapolation, not promised</span>"
+        mark = ""
+        if p.get("projected"):
+            mark = (f"<br><span class=meta>projected: {escape(projected_text(p))}</span>")
         contrib = ", ".join(f"{escape(c['input'])} {c['value']:+.3g}" for c in p.get("contributions", []))
         rows.append(
-            f"<tr class=main><td>{escape(name)}{_unit(name)}</td><td class=num>{_fmt(p['value'])}</td>"
+            f"<tr class=main><td>{escape(name)}{_unit(name)}</td><td class=num>{_fmt(p['value'])}{mark}</td>"
             f"<td class=num>{_fmt(p['low'])} – {_fmt(p['high'])}</td>"
             f"<td>{interval_svg(p['value'], p['low'], p['high'], lim.get('min'), lim.get('max'))}</td>"
             f"<td>{escape(limits)}</td><td class=num>{p_pass}</td></tr>"
@@ -104,15 +131,22 @@ def whatif_html(result) -> str:
         f"<tr><td>{escape(k)}{_unit(k)}</td><td class=num>{_fmt(v['value'])}</td><td>{escape(v['source'])}</td></tr>"
         for k, v in d["inputs"].items()
     )
-    if d["in_domain"]:
+    if d["promise"]:
         verdict = '<div class="in"><b>Inside the applicability domain</b> of every stage used.</div>'
     else:
         items = "".join(f"<li>{escape(r)}</li>" for r in d["domain_reasons"])
-        verdict = ('<div class="out"><b>OUT OF THE APPLICABILITY DOMAIN.</b> The predictions below are '
-                   f"extrapolations; do not rely on them.<ul>{items}</ul></div>")
-    p_all = "" if d["p_pass_all"] is None else (
-        f"<p>Probability that a lot made this way meets every specification at once: "
-        f"<b>{escape(probability_text(d['p_pass_all']))}</b>.</p>")
+        verdict = f'<div class="out"><b>{escape(NO_PROMISE)}</b><ul>{items}</ul></div>'
+    if d["p_pass_all"] is None:
+        p_all = ""
+    elif d["promise"]:
+        p_all = (f"<p>Probability that a lot made this way meets every specification at once: "
+                 f"<b>{escape(probability_text(d['p_pass_all']))}</b>.</p>")
+    else:
+        p_all = ("<p>No probability of meeting every specification is promised here (outside the applicability "
+                 "domain, see above). The share of simulated lots that pass every limit, "
+                 f"{escape(probability_text(d['p_pass_all']))}, is an extrapolation.</p>")
+    if any(p.get("projected") for p in d["predictions"].values()):
+        p_all += f"<p class=meta>{escape(PROJECTED_NOTE[0].upper() + PROJECTED_NOTE[1:])}.</p>"
     return f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8"><title>What-if sheet – {escape(d['model_id'])}</title>
 <style>{STYLE}</style></head><body>

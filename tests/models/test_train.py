@@ -11,6 +11,7 @@ import pytest
 from linkage.exceptions import InputError, InsufficientDataError, UsageError
 from linkage.models.chain import ChainSpec, StageSpec
 from linkage.models.train import train_chain
+from linkage.schema import TABLES
 
 from .conftest import DISSOLUTION_SD, assembled_table, one_stage
 
@@ -209,8 +210,12 @@ def test_column_entirely_missing():
 def test_few_lots_give_unbounded_intervals_not_nan():
     fit = train_chain(assembled_table(6, seed=2), one_stage(), candidates=["mean", "pls"])
     t = fit.targets["dissolution_pct"]
-    low, high = t.interval(assembled_table(3, seed=9)[t.inputs])
+    X = assembled_table(3, seed=9)[t.inputs]
+    low, high = t.interval(X, raw=True)
     assert np.all(low == -np.inf) and np.all(high == np.inf)  # ⌈0.9·7⌉ = 7 > 6 lots
+    # projected onto the physical range, the unbounded ends are dissolution's bounds: 0 and the template's 150 %
+    low, high = t.interval(X)
+    assert np.all(low == 0.0) and np.all(high == TABLES["tablets"].column("dissolution_pct").high)
     assert t.infinite_intervals == 6 and t.coverage == 1.0
     assert any("unbounded" in n for n in t.notes)
 
