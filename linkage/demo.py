@@ -13,8 +13,21 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
 
-#: the demo scenario shipped with the repository (see data_demo/README.md)
-DEMO_DATA = Path(__file__).resolve().parents[1] / "data_demo"
+
+def _demo_data() -> Path:
+    """The demo scenario's folder. It is data_demo/ at the top of the repository, shipped
+    inside the installed package as ``linkage.data_demo`` (pyproject.toml maps the one to the
+    other); a source tree put on the path by hand has only the top-level folder."""
+    import importlib.util
+
+    spec = importlib.util.find_spec("linkage.data_demo")
+    if spec is not None and spec.submodule_search_locations:
+        return Path(next(iter(spec.submodule_search_locations)))
+    return Path(__file__).resolve().parents[1] / "data_demo"
+
+
+#: the demo scenario (see data_demo/README.md)
+DEMO_DATA = _demo_data()
 
 
 @dataclass
@@ -47,8 +60,9 @@ def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
 
     lots_dir = Path(data) / "lots"
     if not lots_dir.is_dir():
-        raise UsageError(f"demo data not found at {lots_dir}; run from a checkout of linkage "
-                         "(or regenerate it with 'python data_demo/generate.py')")
+        raise UsageError(f"demo data not found at {lots_dir}; the installation of linkage is "
+                         "incomplete (reinstall it), or regenerate the data with "
+                         "'python data_demo/generate.py' in a checkout")
     say = step or (lambda message: None)
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)

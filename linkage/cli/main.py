@@ -7,6 +7,7 @@ what-if does not pay for the report's imports.
 from __future__ import annotations
 
 import importlib
+import importlib.util  # explicitly: "import importlib" alone does not bind importlib.util
 import sys
 
 import click
