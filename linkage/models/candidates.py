@@ -163,11 +163,28 @@ class Candidate(RegressorMixin, BaseEstimator):
     def _fit_input(self, X, y):
         X = np.asarray(X, dtype=float)
         y = np.asarray(y, dtype=float)
+        who = type(self).__name__
+        if X.ndim != 2:
+            raise ValueError(f"{who}.fit takes a 2-D array of inputs (lots × inputs); got shape {X.shape}")
+        bad_x, bad_y = ~np.isfinite(X), ~np.isfinite(y)
+        if bad_x.any() or bad_y.any():
+            where = [f"X row {i}, column {j}" for i, j in zip(*np.nonzero(bad_x))][:5]
+            where += [f"y row {i}" for i in np.flatnonzero(bad_y)][:5]
+            raise ValueError(f"{who}.fit: the data contain NaN or infinite values ({'; '.join(where)}); the "
+                             "candidates do not impute: leave out the lots missing a value, or fill them, "
+                             "before fitting")
         self.n_features_in_ = X.shape[1]
         return X, y
 
     def _input(self, X):
-        return np.asarray(X, dtype=float)
+        from sklearn.utils.validation import check_is_fitted
+
+        check_is_fitted(self)
+        X = np.asarray(X, dtype=float)
+        if X.ndim != 2 or X.shape[1] != self.n_features_in_:
+            raise ValueError(f"{type(self).__name__} was fitted on {self.n_features_in_} inputs; "
+                             f"got an array of shape {X.shape}")
+        return X
 
     def _fit(self, X: np.ndarray, y: np.ndarray):
         raise NotImplementedError

@@ -55,3 +55,25 @@ def test_a_new_candidate_is_one_class():
     slope, icpt = np.polyfit(X[:, 0], y, 1)
     assert pred[0] == pytest.approx(slope * X[:3, 0] + icpt, rel=1e-12)
     assert "first_input_line" not in CANDIDATES  # registering is a deliberate step
+
+
+@pytest.mark.parametrize("name", list(SIMPLICITY_ORDER))
+def test_every_candidate_refuses_nan_at_fit_and_use_before_fit(name):
+    """scikit-learn's contract (check_is_fitted raises NotFittedError before
+    fit; NaN refused where the estimator does not handle missing values)."""
+    from sklearn.exceptions import NotFittedError
+
+    cls = CANDIDATES[name]
+    rng = np.random.default_rng(1)
+    X = np.column_stack([rng.uniform(0.1, 0.4, 12), rng.normal(size=12)])
+    y = 5 * np.exp(-4 * X[:, 0])
+    est = cls.build(cls.grid(12, 2)[0], ["ribbon_porosity", "b"], n=12)
+    with pytest.raises(NotFittedError):
+        est.predict(X)
+    X_nan = X.copy()
+    X_nan[3, 1] = np.nan
+    with pytest.raises(ValueError, match=rf"{cls.__name__}\.fit: .*NaN.*X row 3, column 1.*do not impute"):
+        est.fit(X_nan, y)
+    est.fit(X, y)
+    with pytest.raises(ValueError, match="fitted on 2 inputs"):
+        est.predict(X[:, :1])
