@@ -62,11 +62,13 @@ from __future__ import annotations
 import math
 import warnings
 import weakref
+from abc import ABCMeta, abstractmethod
 from dataclasses import dataclass
 from typing import ClassVar
 
 import numpy as np
 from sklearn.base import BaseEstimator, RegressorMixin
+from sklearn.utils.validation import check_is_fitted
 
 from linkage.models.cv import inner_splits
 from linkage.models.lean import (quad_features, quadratic_contributions, quadratic_predict, tree_shap,
@@ -133,7 +135,7 @@ def register(cls: type[Candidate]) -> type[Candidate]:
     return cls
 
 
-class Candidate(RegressorMixin, BaseEstimator):
+class Candidate(RegressorMixin, BaseEstimator, metaclass=ABCMeta):
     """One candidate: a scikit-learn regressor that also says when it applies,
     what grid it is tuned over, how it is built and how its grid is fitted
     (class methods, so the class itself is the candidate's specification;
@@ -177,8 +179,6 @@ class Candidate(RegressorMixin, BaseEstimator):
         return X, y
 
     def _input(self, X):
-        from sklearn.utils.validation import check_is_fitted
-
         check_is_fitted(self)
         X = np.asarray(X, dtype=float)
         if X.ndim != 2 or X.shape[1] != self.n_features_in_:
@@ -186,14 +186,18 @@ class Candidate(RegressorMixin, BaseEstimator):
                              f"got an array of shape {X.shape}")
         return X
 
+    @abstractmethod
     def _fit(self, X: np.ndarray, y: np.ndarray):
-        raise NotImplementedError
+        """Learn from checked inputs; return self."""
 
+    @abstractmethod
     def _predict(self, X: np.ndarray) -> np.ndarray:
-        raise NotImplementedError
+        """Predictions (rows,) for checked inputs."""
 
     def _contributions(self, X: np.ndarray):
-        raise NotImplementedError
+        """(matrix rows × inputs, base value) for checked inputs; optional, like
+        :meth:`lean_spec`, so a candidate without them says so."""
+        raise TypeError(f"a {type(self).__name__} gives no per-input contributions")
 
     def lean_spec(self) -> dict:
         """The fitted model as plain numbers, ``{"kind": ..., ...}``, for
