@@ -123,6 +123,7 @@ import itertools
 import math
 import re
 import tomllib
+import unicodedata
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -858,6 +859,8 @@ def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
                 problems.append(Problem(label, f"outside the range {col.bound_text()}{note}", row=sheet_rows[k],
                                         column=shown, value=_shown(_cell(raw, k, targets, col.name))))
                 bad.add((k, col.name))
+    if isinstance(values.get("lot"), list):
+        problems += _lot_id_problems(values["lot"], label, sheet_rows, headers.get("lot", "lot"), bad)
     df = frame_from_columns(tdef.name, values, extra, n_rows=n)
     problems += _key_problems(df, tdef, label, sheet_rows, headers, bad)
     problems += _rule_problems(df, tdef, label, sheet_rows, headers, bad)
@@ -1038,6 +1041,73 @@ def _key_problems(df, tdef: Table, label, sheet_rows, headers, bad) -> list[Prob
                                     value=key[-1] if len(key) > 1 else key[0]))
         else:
             first[key] = k
+    return problems
+
+
+# --------------------------------------------------------------------------- lot identity
+
+
+#: dash-like characters folded to '-' in a lot key: Unicode's dash punctuation (category Pd: hyphen,
+#: non-breaking hyphen, figure dash, en and em dash ...) and the minus sign U+2212 (category Sm)
+_DASHES = re.compile(r"[\u2010-\u2015\u2212\u2e3a\u2e3b\ufe58\ufe63\uff0d\u058a\u05be\u1400\u1806\u2e17\u2e1a"
+                     r"\u2e40\u301c\u3030\u30a0\ufe31\ufe32]")
+
+
+def lot_key(lot: str) -> str:
+    """The identity of a lot id: two ids with the same key are one lot.
+
+    Unicode NFKC normalisation (compatibility forms: full-width letters,
+    ligatures; Unicode Standard Annex #15), every dash-like character as
+    ``-``, then case folding (``str.casefold``, Unicode's full case folding).
+    ``Q-100`` and ``Q‑100`` (U+2011), ``VX25-001`` and ``vx25-001``, ``Ａ1``
+    and ``A1`` have one key. Control and format characters are refused before
+    (:func:`lot_id_rule`), so they never reach a key.
+    """
+    return _DASHES.sub("-", unicodedata.normalize("NFKC", lot)).casefold()
+
+
+def lot_id_rule(lot: str) -> str | None:
+    """The rule a lot id breaks, or None. Refused: control characters
+    (Unicode category Cc) and format characters (Cf: a byte-order mark
+    U+FEFF, zero-width spaces and joiners, direction marks), which print as
+    nothing and would make a second lot that looks like the first."""
+    found = [ch for ch in lot if unicodedata.category(ch) in ("Cc", "Cf")]
+    if not found:
+        return None
+    names = ", ".join(sorted({f"U+{ord(ch):04X} {unicodedata.name(ch, 'control character')}" for ch in found}))
+    return (f"lot id holds an invisible character ({names}), which would make a second lot that prints like "
+            "the first (two exports pasted together?); remove it")
+
+
+def _visible(lot: str) -> str:
+    """A lot id with its invisible and non-ASCII characters written as escapes, for a message."""
+    return lot.encode("ascii", "backslashreplace").decode("ascii")
+
+
+def _lot_id_problems(lots: list, label: str, sheet_rows: list[int], header: str, bad: set) -> list[Problem]:
+    """Invisible characters in a lot id, and two spellings of one lot in a file (same :func:`lot_key`)."""
+    distinct = set(lots) - {None}
+    joined = "".join(distinct)
+    if joined.isascii() and joined.isprintable() and len({lot.lower() for lot in distinct}) == len(distinct):
+        return []  # the common case, decided on the distinct ids: for printable ASCII the key is lower()
+    problems: list[Problem] = []
+    spelled: dict[str, tuple[str, int]] = {}  # key -> (first spelling, its sheet row)
+    for k, lot in enumerate(lots):
+        if lot is None or (k, "lot") in bad:
+            continue
+        rule = lot_id_rule(lot)
+        if rule is not None:
+            problems.append(Problem(label, rule, row=sheet_rows[k], column=header, value=_visible(lot)))
+            bad.add((k, "lot"))
+            continue
+        key = lot_key(lot)
+        first = spelled.setdefault(key, (lot, sheet_rows[k]))
+        if first[0] != lot:
+            problems.append(Problem(label, f"lot {_visible(lot)!r} is lot {_visible(first[0])!r} of row {first[1]} "
+                                           "written another way (case, dash or compatibility form); one lot has "
+                                           "one spelling: correct one of them", row=sheet_rows[k], column=header,
+                                    value=_visible(lot)))
+            bad.add((k, "lot"))
     return problems
 
 
@@ -1369,17 +1439,42 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
             problems += [Problem(where, f"required table '{m}' is missing: the first ingest into an empty store "
                                         f"needs {needed}") for m in missing]
     with_process = known | set(ingest.tables["process"]["lot"]) if "process" in ingest.tables else known
+    # one spelling per lot (lot_key): against the store first, then against this folder's process table
+    key = {lot: lot_key(lot) for lot in known}  # computed once per distinct id
+    for df in ingest.tables.values():
+        key.update((lot, lot_key(lot)) for lot in set(df["lot"].tolist()) - key.keys())
+    spelling: dict[str, tuple[str, str]] = {}
+    for lot in sorted(known):
+        spelling.setdefault(key[lot], (lot, "in the store"))
+    if "process" in ingest.tables:
+        process_label = ingest.sources.get("process", {}).get("file", "process")
+        for lot in ingest.tables["process"]["lot"].tolist():
+            spelling.setdefault(key[lot], (lot, f"in {process_label}"))
+    # a stored id is never refused: a store written before this rule may hold two spellings of one lot
+    respelled_ids = {lot for lot, k in key.items() if lot not in known and spelling.get(k, (lot,))[0] != lot}
     for tname, df in ingest.tables.items():
-        if tname == "process":
-            continue
         rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
         label = ingest.sources.get(tname, {}).get("file", tname)
         orphans: dict[str, list[int]] = {}
+        respelled: dict[str, list[int]] = {}
         for k, lot in enumerate(df["lot"].tolist()):
-            if lot not in with_process:
+            if lot in respelled_ids:
+                respelled.setdefault(lot, []).append(rows[k])
+            elif lot not in with_process:
                 orphans.setdefault(lot, []).append(rows[k])
+        for lot, rs in respelled.items():
+            other, where = spelling[key[lot]]
+            problems.append(Problem(label, f"lot {_visible(lot)!r} is lot {_visible(other)!r} {where}, written "
+                                           f"another way (case, dash or compatibility form; {_span(rs)}); one lot "
+                                           f"has one spelling: write it {_visible(other)!r}",
+                                    row=rs[0], column="lot", value=_visible(lot)))
+        if tname == "process":
+            continue
         for lot, rs in orphans.items():
-            span = f"row {rs[0]}" if len(rs) == 1 else f"rows {rs[0]}-{rs[-1]}, {len(rs)} rows"
             problems.append(Problem(label, f"lot {lot!r} has no process record in this folder or in the store "
-                                           f"({span}); add it to process", row=rs[0], column="lot", value=lot))
+                                           f"({_span(rs)}); add it to process", row=rs[0], column="lot", value=lot))
     return problems
+
+
+def _span(rows: list[int]) -> str:
+    return f"row {rows[0]}" if len(rows) == 1 else f"rows {rows[0]}-{rows[-1]}, {len(rows)} rows"
