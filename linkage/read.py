@@ -115,6 +115,7 @@ from __future__ import annotations
 
 import csv
 import datetime as dt
+import decimal
 import difflib
 import gc
 import hashlib
@@ -401,11 +402,23 @@ class _Raw:
     separator: str | None  # None for a workbook
     problems: list[Problem] = field(default_factory=list)
     formulas: set[tuple[int, int]] = field(default_factory=set)
+    #: (sheet row, column index) of workbook number cells formatted as a percentage: stored 0.0176, shown 1.76 %
+    percent: set[tuple[int, int]] = field(default_factory=set)
 
 
 def _norm_header(text: object) -> str:
     s = "" if text is None else str(text)
     return " ".join(s.replace("\ufeff", "").replace("\xa0", " ").split())
+
+
+#: a unit written after a column name: "name [%]", "name (%)", "name {mm}", "name, %", "name / mm", "name in mm"
+_UNIT_SUFFIX = re.compile(r"^(.*?)\s*(?:[\[({][^\])}]*[\])}]|(?:,|/|\s+in\s+)\s*\S+|\s+%)\s*$", re.IGNORECASE)
+
+
+def _without_unit(header: str) -> str:
+    """A header with a trailing unit taken off (``dissolution_pct [%]`` -> ``dissolution_pct``); else as it is."""
+    m = _UNIT_SUFFIX.match(header)
+    return m.group(1) if m else header
 
 
 def _norm_unit(text: str) -> str:
@@ -554,14 +567,15 @@ def _read_sheet(values_wb, formulas_wb, sheet: str, label: str) -> _Raw:
         size.append(_too_many_columns(label, ws.max_column))
     if size:
         raise InputError(size)
-    rows_v = _sheet_rows(ws, sheet, label)
+    percent: set[tuple[int, int]] = set()
+    rows_v = _sheet_rows(ws, sheet, label, percent)
     rows_f = _sheet_rows(formulas_wb[sheet], sheet, label)
     if not rows_v or not any(not _is_missing(c) for c in rows_v[0]):
         raise InputError(Problem(label, "the header must be on row 1 (row 1 is empty)", row=1))
     if len(rows_v[0]) > MAX_COLUMNS:
         raise InputError(_too_many_columns(label, len(rows_v[0])))
     header = [_norm_header(c) for c in rows_v[0]]
-    raw = _Raw(label, header, [], None)
+    raw = _Raw(label, header, [], None, percent=percent)
     n = len(header)
     for i, rec in enumerate(rows_v[1:], start=2):
         rec = list(rec) + [None] * (n - len(rec))
@@ -575,15 +589,29 @@ def _read_sheet(values_wb, formulas_wb, sheet: str, label: str) -> _Raw:
     return raw
 
 
-def _sheet_rows(ws, sheet: str, label: str) -> list[tuple]:
+def _sheet_rows(ws, sheet: str, label: str, percent: set | None = None) -> list[tuple]:
     """The rows of a sheet as values, header first; at most MAX_ROWS below the
     header (the sheet's recorded size may be missing or wrong, so the rows
     are counted too). openpyxl parses cells lazily while the rows are
     iterated, so a damaged cell (``<v>NaN</v>`` in a number cell) raises
-    here, not when the workbook is opened."""
+    here, not when the workbook is opened.
+
+    With ``percent`` given, the (sheet row, column index) of every number
+    cell whose number format shows it as a percentage (a ``%`` outside quotes
+    in the format code, ECMA-376 Part 1 §18.8.31) is added to it: such a cell
+    stores 0.0176 and shows 1.76 %."""
     rows: list[tuple] = []
     try:
-        rows.extend(itertools.islice(ws.iter_rows(min_row=1, values_only=True), MAX_ROWS + 2))
+        if percent is None:
+            rows.extend(itertools.islice(ws.iter_rows(min_row=1, values_only=True), MAX_ROWS + 2))
+        else:
+            for i, cells in enumerate(itertools.islice(ws.iter_rows(min_row=1), MAX_ROWS + 2), start=1):
+                rows.append(tuple(getattr(c, "value", None) for c in cells))
+                for j, c in enumerate(cells):
+                    fmt = getattr(c, "number_format", None)
+                    if (fmt and "%" in fmt and isinstance(c.value, (int, float)) and not isinstance(c.value, bool)
+                            and _shows_percent(fmt)):
+                        percent.add((i, j))
     except Exception as exc:  # openpyxl raises many kinds for a damaged sheet, as in _open_workbook
         after = f" after row {len(rows)}" if rows else ""
         raise InputError(Problem(label, f"cannot read sheet '{sheet}': a cell{after} is damaged ({exc}); "
@@ -591,6 +619,51 @@ def _sheet_rows(ws, sheet: str, label: str) -> list[tuple]:
     if len(rows) - 1 > MAX_ROWS:
         raise InputError(_too_many_rows(label, None))
     return rows
+
+
+def _percent_cells(raw: _Raw, j: int, target: str, shown: str, tdef: Table, cmap, cells: list,
+                   problems: list[Problem], bad: set) -> None:
+    """Read the percentage-formatted cells of column ``j`` as a person sees them.
+
+    A workbook cell formatted as a percentage stores 0.0176 and shows 1.76 %.
+    In a column whose unit is % (a template column in %, or an extra column
+    whose name ends in ``_pct`` or whose header holds ``%``) the cell is read
+    as shown, 1.76, the decimal point moved exactly (no binary rounding). In
+    any other column the cell is refused with the value stored and shown.
+    """
+    col = tdef.column(target) if target in tdef.names else None
+    in_percent = (col.unit == "%" and (cmap is None or cmap.unit is None)) if col is not None else (
+        target.lower().endswith("_pct") or "%" in shown)
+    for k, (r, _) in enumerate(raw.rows):
+        if (r, j) not in raw.percent:
+            continue
+        stored = cells[k]
+        as_shown = float(decimal.Decimal(repr(float(stored))).scaleb(2))
+        if in_percent:
+            cells[k] = as_shown
+            continue
+        unit = f"in {col.unit}" if col is not None else "not a percentage column"
+        problems.append(Problem(raw.label, f"cell formatted as a percentage: it stores {float(stored)!r} and shows "
+                                           f"{as_shown!r} %, but the column is {unit}; format the cell as a number "
+                                           "showing the value meant", row=r, column=shown, value=stored))
+        bad.add((k, target))
+
+
+def _shows_percent(number_format: str) -> bool:
+    """Does a number format code multiply by 100 and show '%': a '%' outside
+    double quotes and not escaped with a backslash (ECMA-376 Part 1, §18.8.31
+    numFmts: a literal is quoted or escaped; a bare '%' scales by 100)."""
+    quoted = escaped = False
+    for ch in number_format:
+        if escaped:
+            escaped = False
+        elif ch == "\\":
+            escaped = True
+        elif ch == '"':
+            quoted = not quoted
+        elif ch == "%" and not quoted:
+            return True
+    return False
 
 
 # --------------------------------------------------------------------------- cells
@@ -736,6 +809,7 @@ def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
     targets: list[tuple[int, str, str, ColumnMap | None]] = []  # (index, target, header, map)
     seen: dict[str, str] = {}
     names_lower = {n.lower(): n for n in tdef.names}
+    unit_headers: set[str] = set()  # template columns written with a unit in the header (reported once)
     for j, head in enumerate(raw.header):
         shown = _norm_header(head)
         if not shown:
@@ -745,6 +819,15 @@ def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
             continue
         cmap = cmaps.get(shown.lower())
         target = cmap.target if cmap else names_lower.get(shown.lower(), shown)
+        decorated = None if cmap or target in tdef.names else names_lower.get(_without_unit(shown).lower())
+        if decorated is not None:
+            unit = tdef.column(decorated).unit
+            problems.append(Problem(label, f"header '{shown}' is the template column '{decorated}' with a unit "
+                                           f"added; the template name carries its unit ({unit}): name the column "
+                                           f"'{decorated}', or map the header in {MAPPING_FILE} (with unit = ... "
+                                           "where the file uses another unit)", row=1, column=shown))
+            unit_headers.add(decorated)
+            continue
         if target.lower() in seen:
             problems.append(Problem(label, f"two columns become '{target}': '{seen[target.lower()]}' and '{shown}'",
                                     row=1, column=shown))
@@ -753,7 +836,7 @@ def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
         targets.append((j, target, shown, cmap))
     present = {t for _, t, _, _ in targets}
     for col in tdef.columns:
-        if col.required and col.name not in present:
+        if col.required and col.name not in present and col.name not in unit_headers:
             near = difflib.get_close_matches(col.name, [h for _, _, h, _ in targets], n=1, cutoff=0.6)
             hint = f"; found '{near[0]}': rename it or map it in {MAPPING_FILE}" if near else ""
             problems.append(Problem(label, f"required column '{col.name}' is missing{hint}", row=1, column=col.name))
@@ -777,6 +860,8 @@ def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
                     problems.append(Problem(label, "formula without a stored result; open and save the file in a "
                                                    "spreadsheet program, or paste values", row=r, column=shown))
                     bad.add((k, target))
+        if raw.percent:
+            _percent_cells(raw, j, target, shown, tdef, cmap, cells, problems, bad)
         if target not in tdef.names:
             extra[target] = _extra_values(cells, decimal, raw.separator)
             continue
@@ -1268,6 +1353,8 @@ def read_table(path: Path, table: str | None = None, mapping: Mapping | None = N
         try:
             sheets = values.sheetnames
             by_name = {_norm_header(s).lower(): s for s in sheets}
+            if name in by_name and _hidden(values, by_name[name]):
+                raise InputError(_hidden_sheet(path.name, by_name[name]))
             if name in by_name:
                 sheet = by_name[name]
             elif len(sheets) == 1:
@@ -1408,10 +1495,22 @@ def _plan_workbook(path: Path, plan: dict, problems: list[Problem], warnings: li
                                            f"{', '.join(TABLES)}"))
         return
     for s in sheets:
-        if s in found:
+        if s in found and _hidden(workbooks[path][0], s):
+            problems.append(_hidden_sheet(path.name, s))
+        elif s in found:
             _plan(plan, _norm_header(s).lower(), (path, s, f"{path.name} (sheet {s})"), problems)
         else:
             warnings.append(f"{path.name}: sheet '{s}' ignored (not a table name)")
+
+
+def _hidden(workbook, sheet: str) -> bool:
+    """A sheet a person does not see: state 'hidden' or 'veryHidden' (ECMA-376 Part 1, §18.18.68)."""
+    return getattr(workbook[sheet], "sheet_state", "visible") != "visible"
+
+
+def _hidden_sheet(file: str, sheet: str) -> Problem:
+    return Problem(file, f"sheet '{sheet}' is named after a table but hidden: what a person sees and what would be "
+                         "read differ; unhide it if it holds the data, or delete or rename it")
 
 
 def _sha256(path: Path) -> str:
