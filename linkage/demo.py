@@ -51,6 +51,7 @@ def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
     from linkage.decide.whatif import predict_whatif
     from linkage.decide.window import find_window
     from linkage.exceptions import UsageError
+    from linkage.export import write_table_csv
     from linkage.models.registry import save
     from linkage.models.train import train_chain
     from linkage.read import read_folder
@@ -96,7 +97,7 @@ def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
     table = assemble(tables, dissolution_time_min=spec.dissolution_time_min if spec else 30.0,
                      dissolution_q_pct=q)
     assembled = out / "assembled.csv"
-    table.to_csv(assembled, index=False)
+    write_table_csv(table, assembled)
     lap("assemble")
 
     say("training the chain (grouped cross-validation by lot)")

@@ -134,6 +134,7 @@ import numpy as np
 import pandas as pd
 
 from linkage.exceptions import InputError, Problem
+from linkage.numbers import COMMA_NUMBER, PLAIN_NUMBER
 from linkage.schema import DATETIME, MISSING_TOKENS, NUMBER, TABLES, TEXT, Column, Table
 from linkage.spec import Spec, read_spec
 
@@ -177,9 +178,9 @@ TOTAL_FORCE_UNITS: dict[str, float] = {"kN": 1.0, "N": 1e-3}
 TOTAL_FORCE_COLUMN = "roll_force_kn_per_cm"
 ROLL_WIDTH_COLUMN = "roll_width_mm"
 
-_NUMBER = re.compile(r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?")
-_COMMA_NUMBER = re.compile(r"[+-]?(?:\d+,\d*|,\d+)(?:[eE][+-]?\d+)?")
-_THOUSANDS_DOT = re.compile(r"[+-]?[1-9]\d{0,2}(?:\.\d{3})+")
+_NUMBER = PLAIN_NUMBER  # one rule for the ingest and the what-if (linkage.numbers)
+_COMMA_NUMBER = COMMA_NUMBER
+_THOUSANDS_DOT = re.compile(r"[+-]?[1-9]\d{0,2}(?:\.\d{3})+", re.ASCII)
 
 
 # --------------------------------------------------------------------------- results
@@ -698,7 +699,8 @@ def _parse_number(cell: object, decimal: str, separator: str | None) -> float | 
                         "write the number with '.' as the decimal mark and no thousands separator")
             return "not a number"
         if not _NUMBER.fullmatch(s):
-            return "not a number"
+            return "not a number" + (": digits other than 0-9 (another script's digits)"
+                                     if any(ch.isdigit() and not ch.isascii() for ch in s) else "")
         if separator == ";" and decimal == "?" and _THOUSANDS_DOT.fullmatch(s):
             return ("ambiguous in a ';'-separated file: '.' may be a decimal mark or a thousands separator "
                     "(1.234 or 1234); write decimals with ',' (1,234) or drop the thousands separator")
@@ -864,6 +866,7 @@ def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
             _percent_cells(raw, j, target, shown, tdef, cmap, cells, problems, bad)
         if target not in tdef.names:
             extra[target] = _extra_values(cells, decimal, raw.separator)
+            problems += _extra_non_finite(cells, extra[target], decimal, raw.separator, label, sheet_rows, shown)
             continue
         col = tdef.column(target)
         fast = _fast_cells(col, cells, decimal, raw.separator, bad, target)
@@ -1104,6 +1107,29 @@ def _extra_values(cells: list, decimal: str, separator: str | None) -> list:
         it = iter(parsed)
         return [None if _is_missing(c) else next(it) for c in cells]
     return [None if _is_missing(c) else _text(c) for c in cells]
+
+
+_INFINITE_WORDS = frozenset({"inf", "+inf", "-inf", "infinity", "+infinity", "-infinity"})
+
+
+def _extra_non_finite(cells: list, values: list, decimal: str, separator: str | None, label: str,
+                      sheet_rows: list[int], header: str) -> list[Problem]:
+    """An extra column of numbers in which some cells are infinite (``inf``,
+    ``1e999``): those cells are refused, as in a template column, rather than
+    turning the whole column into text (a missing value is empty or ``NA``)."""
+    if not any(isinstance(v, str) for v in values):
+        return []  # every present cell a finite number (or the column empty)
+    odd: list[int] = []
+    for k, c in enumerate(cells):
+        if _is_missing(c):
+            continue
+        parsed = _parse_number(c, decimal, separator)
+        if parsed == "not a finite number" or (isinstance(c, str) and c.strip().lower() in _INFINITE_WORDS):
+            odd.append(k)
+        elif isinstance(parsed, str):
+            return []  # a text column: kept as text
+    return [Problem(label, "not a finite number; leave the cell empty or write NA for a missing value",
+                    row=sheet_rows[k], column=header, value=_shown(cells[k])) for k in odd]
 
 
 def _key_problems(df, tdef: Table, label, sheet_rows, headers, bad) -> list[Problem]:

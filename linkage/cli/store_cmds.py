@@ -149,6 +149,7 @@ def assemble(store, out, product, fines_cutoff_um, spec_path):
     """
     from linkage.assemble import assemble as assemble_table
     from linkage.exceptions import InsufficientDataError
+    from linkage.export import write_table_csv
     from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN
     from linkage.spec import read_spec
     from linkage.store import LotStore
@@ -167,7 +168,7 @@ def assemble(store, out, product, fines_cutoff_um, spec_path):
     click.echo(f"Assembled {len(table)} lots x {table.shape[1]} columns from {store} "
                f"(fines below {fines_cutoff_um:g} um, dissolution at {time_min:g} min).")
     if out is not None:
-        table.to_csv(out, index=False)
+        write_table_csv(table, out)
         click.echo(f"Wrote {out}.")
     else:
         click.echo("Values per column (filled/lots):")

@@ -28,6 +28,7 @@ import numpy as np
 from linkage import CAUTION
 from linkage.decide.propagate import fill_settings, simulate, within
 from linkage.exceptions import UsageError
+from linkage.numbers import parse_plain_number
 from linkage.schema import MISSING_TOKENS, TABLES
 
 #: fractions that must lie strictly between 0 and 1
@@ -53,10 +54,9 @@ def parse_assignments(pairs: list[str]) -> dict[str, float]:
         if not sep or not name:
             problems.append(f"'{pair}' is not NAME=VALUE")
             continue
-        try:
-            value = float(text.strip())
-        except ValueError:
-            problems.append(f"{name}: '{text.strip()}' is not a number")
+        value = parse_plain_number(text)
+        if isinstance(value, str):
+            problems.append(f"{name}: '{text.strip()}' is {value}")
             continue
         if name in out:
             problems.append(f"{name} is set twice")
@@ -233,16 +233,26 @@ def predict_many(chain, rows, **kwargs) -> list[WhatIf]:
             if v is None or (isinstance(v, float) and math.isnan(v)) or (
                     isinstance(v, str) and v.strip().lower() in MISSING_TOKENS):
                 continue
-            try:
-                values[str(k).strip()] = float(v)
-            except (TypeError, ValueError, OverflowError):
-                problems.append(f"row {i}, column '{k}': '{v}' is not a number")
+            value = parse_plain_number(v) if isinstance(v, str) else _given_number(v)
+            if isinstance(value, str):
+                problems.append(f"row {i}, column '{k}': '{v}' is {value}")
+            else:
+                values[str(k).strip()] = value
         records.append(values)
     if problems:
         raise UsageError("; ".join(problems))
     for i, values in enumerate(records, start=2):
         check_values(chain, values, row=i)
     return [predict_whatif(chain, values, **kwargs) for values in records]
+
+
+def _given_number(v) -> float | str:
+    """A number given from Python (int, float, numpy scalar) as a float, or the rule it breaks."""
+    try:
+        f = float(v)
+    except (TypeError, ValueError, OverflowError):
+        return "not a number"
+    return f if math.isfinite(f) else "not a finite number"
 
 
 def _top_contributions(target, x: dict, n: int = 3) -> list[dict]:

@@ -1,0 +1,85 @@
+"""CSV exports that a spreadsheet opens safely, written whole; non-finite numbers refused at ingest
+(issue 15 items 6 and 7).
+
+Formula injection: OWASP, "CSV Injection" (cells beginning with = + - @ tab or carriage return are
+prefixed with a single quote). Read back with Python's csv module, the reference CSV reader.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import os
+import shutil
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from linkage.exceptions import InputError
+from linkage.export import FORMULA_LEADS, neutralise_cell, write_atomic, write_table_csv
+from linkage.read import read_folder
+
+EXAMPLE = Path(__file__).resolve().parents[1] / "data" / "template-example"
+
+
+def test_the_formula_leads_are_owasps_list():
+    assert set(FORMULA_LEADS) == {"=", "+", "-", "@", "\t", "\r"}
+
+
+@pytest.mark.parametrize("cell", ["=1+1", "+SUM(A1)", "-2+3", "@cmd", "\t=x", "\r=x"])
+def test_text_that_would_start_a_formula_is_quoted(cell):
+    assert neutralise_cell(cell) == "'" + cell
+
+
+def test_an_assembled_export_quotes_text_and_leaves_numbers(tmp_path, counts):
+    table = pd.DataFrame({"lot": ["=HYPERLINK(\"x\")", "A-1", "@SUM(1)"], "product": ["-P", "P", None],
+                          "ribbon_porosity": [-0.5, 0.3, 0.31]})
+    out = write_table_csv(table, tmp_path / "t.csv")
+    rows = list(csv.reader(io.StringIO(out.read_text(encoding="utf-8"))))
+    assert rows[1][:2] == ["'=HYPERLINK(\"x\")", "'-P"]
+    assert rows[2][:2] == ["A-1", "P"]
+    assert rows[3][0] == "'@SUM(1)"
+    assert [r[2] for r in rows[1:]] == ["-0.5", "0.3", "0.31"]  # a negative number is a value, written as one
+    assert table["lot"].iloc[0] == "=HYPERLINK(\"x\")"  # the caller's table is not changed
+    counts["fuzz cases tried"] += 1
+
+
+def test_a_failed_write_leaves_the_old_file_and_no_temporary_file(tmp_path, monkeypatch):
+    target = tmp_path / "report.csv"
+    target.write_text("old")
+
+    def full_disk(fd):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(os, "fsync", full_disk)
+    with pytest.raises(OSError):
+        write_atomic(target, b"new contents")
+    assert target.read_text() == "old"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["report.csv"]
+
+
+@pytest.mark.parametrize("bad", ["inf", "-Infinity", "1e999"])
+def test_an_infinite_value_in_an_extra_number_column_is_refused_with_its_row(tmp_path, bad, counts):
+    d = tmp_path / "in"
+    shutil.copytree(EXAMPLE, d)
+    lines = (d / "process.csv").read_text().splitlines()
+    lines[0] += ",blend_moisture_pct"
+    lines[1:] = [line + (f",{bad}" if i == 2 else ",2.1") for i, line in enumerate(lines[1:], start=1)]
+    (d / "process.csv").write_text("\n".join(lines) + "\n")
+    with pytest.raises(InputError) as info:
+        read_folder(d)
+    hit = next(p for p in info.value.problems if "not a finite number" in p.rule)
+    assert (hit.file, hit.row, hit.column, hit.value) == ("process.csv", 3, "blend_moisture_pct", bad)
+    counts["fuzz cases tried"] += 1
+    counts["files refused"] += 1
+
+
+def test_an_extra_text_column_may_hold_the_word_inf(tmp_path):
+    d = tmp_path / "in"
+    shutil.copytree(EXAMPLE, d)
+    lines = (d / "process.csv").read_text().splitlines()
+    lines[0] += ",operator_note"
+    lines[1:] = [line + (",inf" if i == 1 else ",checked by QA") for i, line in enumerate(lines[1:], start=1)]
+    (d / "process.csv").write_text("\n".join(lines) + "\n")
+    assert read_folder(d).tables["process"]["operator_note"].iloc[0] == "inf"
