@@ -87,7 +87,7 @@ def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
         remeasured = Path(data) / "remeasured"
         if remeasured.is_dir():
             say(f"ingesting the re-measured lot from {remeasured}")
-            store.ingest(read_folder(remeasured))
+            store.ingest(read_folder(remeasured), reason="demo: ribbon densities of one lot re-measured")
         tables = store.current_tables()
     spec = first.spec
     lap("ingest")

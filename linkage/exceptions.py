@@ -80,6 +80,15 @@ class StoreError(LinkageError, RuntimeError):
     """The lot store cannot be opened or is not a linkage store."""
 
 
+class StoreIntegrityError(StoreError):
+    """The lot store's records do not match their seals: a stored row, an
+    audit entry or a recorded prediction was changed, removed or added
+    outside linkage, or the seal chain was cut. Nothing is read or written
+    past the check."""
+
+    exit_code = 5
+
+
 class ModelIntegrityError(LinkageError, RuntimeError):
     """A model artifact does not match the hash the registry recorded for it,
     or lies outside the registry. It is never loaded (joblib runs code)."""

@@ -35,7 +35,6 @@ WAL mode lets readers run while one process writes; a writer waits up to
 from __future__ import annotations
 
 import datetime as dt
-import getpass
 import hashlib
 import importlib
 import json
@@ -48,7 +47,8 @@ from itertools import chain
 from pathlib import Path
 from typing import TYPE_CHECKING, Iterator
 
-from linkage.exceptions import InputError, StoreBusyError, StoreError, UsageError
+from linkage import seal as _seal
+from linkage.exceptions import InputError, StoreBusyError, StoreError, StoreIntegrityError, UsageError
 from linkage.schema import DATETIME, NUMBER, TABLES, TEXT
 
 if TYPE_CHECKING:
@@ -74,7 +74,9 @@ np = _OnFirstUse("numpy")
 pd = _OnFirstUse("pandas")
 _read = _OnFirstUse("linkage.read")
 
-SCHEMA_VERSION = 1
+#: 2: seals (tamper evidence, linkage/seal.py), lot_table_hashes and ingests.reason; a schema 1 store is upgraded
+#: when it is first opened with write access
+SCHEMA_VERSION = 2
 #: PRAGMA application_id of a linkage store ("LNKG").
 APPLICATION_ID = 0x4C4E4B47
 BUSY_TIMEOUT_S = 10.0
@@ -86,7 +88,7 @@ _TABLE_NUMBER = {name: k for k, name in enumerate(TABLES)}
 
 #: Tables whose rows are never updated or deleted.
 APPEND_ONLY = ("schema_version", "ingests", "ingest_files", "lots", "lot_tables", "raw_rows", "revisions",
-               "revision_tables", "audit", "predictions")
+               "revision_tables", "audit", "predictions", *_seal.APPEND_ONLY)
 
 _DDL = """
 CREATE TABLE schema_version (version INTEGER NOT NULL, applied_at TEXT NOT NULL);
@@ -98,7 +100,8 @@ CREATE TABLE ingests (
     lots_new INTEGER NOT NULL,
     lots_revised INTEGER NOT NULL,
     lots_unchanged INTEGER NOT NULL,
-    warnings_json TEXT NOT NULL
+    warnings_json TEXT NOT NULL,
+    reason TEXT
 );
 CREATE TABLE ingest_files (
     ingest_id INTEGER NOT NULL REFERENCES ingests(id),
@@ -176,20 +179,31 @@ CREATE VIEW current_revisions AS
 
 def _statements() -> list[str]:
     """The DDL of a new store, one statement each, append-only triggers last."""
-    out = [s.strip() for s in _DDL.split(";") if s.strip()]
-    for table in APPEND_ONLY:
-        for op in ("UPDATE", "DELETE"):
-            out.append(f"CREATE TRIGGER {table}_no_{op.lower()} BEFORE {op} ON {table} BEGIN "
-                       f"SELECT RAISE(ABORT, 'linkage store: {table} is append-only ({op} refused)'); END")
-    return out
+    out = [s.strip() for s in _DDL.split(";") if s.strip()] + list(_seal.DDL)
+    return out + _triggers(APPEND_ONLY)
+
+
+def _triggers(tables) -> list[str]:
+    return [f"CREATE TRIGGER {table}_no_{op.lower()} BEFORE {op} ON {table} BEGIN "
+            f"SELECT RAISE(ABORT, 'linkage store: {table} is append-only ({op} refused)'); END"
+            for table in tables for op in ("UPDATE", "DELETE")]
 
 
 def current_user() -> str:
-    """The OS user name, or 'unknown' where the system cannot tell."""
+    """The operating-system account running linkage, by its user id (POSIX:
+    the password database, ``pwd.getpwuid(os.getuid())``), never the
+    ``LOGNAME``/``USER`` variables that anyone can set. Where the platform
+    has no user ids (Windows), the login name the system reports."""
     try:
-        return getpass.getuser()
-    except Exception:  # getpass raises OSError, KeyError or ImportError depending on the platform
-        return os.environ.get("USERNAME") or os.environ.get("USER") or "unknown"
+        import pwd
+
+        return pwd.getpwuid(os.getuid()).pw_name
+    except (ImportError, KeyError, OSError):
+        pass
+    try:
+        return os.getlogin()
+    except OSError:
+        return f"uid {os.getuid()}" if hasattr(os, "getuid") else "unknown"
 
 
 def _now() -> str:
@@ -548,11 +562,59 @@ class LotStore:
                                  f"this version reads {SCHEMA_VERSION})")
         elif app_id == 0 and not names:
             self._create()
+            version = SCHEMA_VERSION
         else:
             shown = ", ".join(names[:6]) or "none"
             raise StoreError(f"{self.path} is an SQLite file but not a linkage lot store (tables: {shown})")
         c.execute("PRAGMA journal_mode = WAL")
         c.execute("PRAGMA synchronous = FULL")
+        if version < 2:
+            self._upgrade()
+        self.check_seals()
+
+    def check_seals(self, *, full: bool = False) -> dict:
+        """Check the records against their seals (:mod:`linkage.seal`); raises
+        :class:`StoreIntegrityError` listing every mismatch. ``full`` adds
+        every ingest's content and every lot table's raw rows. Returns what
+        was checked, with the newest seal."""
+        try:
+            with self._snapshot():
+                problems, counts = _seal.check(self._conn, self.path, full=full)
+                counts["newest seal"] = dict(zip(("id", "sha256"), _seal.head(self._conn)))
+        except sqlite3.DatabaseError as exc:
+            raise StoreIntegrityError(f"lot store {self.path} is damaged: {exc}") from None
+        if problems:
+            raise StoreIntegrityError(f"lot store {self.path} failed its integrity check; nothing was read or "
+                                      "written. Restore the store from a backup, and find out who changed it:\n"
+                                      + "\n".join(f"  - {p}" for p in problems))
+        return counts
+
+    def _upgrade(self) -> None:
+        """Schema 1 -> 2: add the seal tables and seal every record as it stands (see linkage.seal)."""
+        with self._write() as c:
+            if c.execute("SELECT MAX(version) FROM schema_version").fetchone()[0] >= 2:
+                return  # another process upgraded it while we waited
+            c.execute("ALTER TABLE ingests ADD COLUMN reason TEXT")
+            for stmt in [*_seal.DDL, *_triggers(_seal.APPEND_ONLY)]:
+                c.execute(stmt)
+            hashes, texts, sources, current = [], [], [], None
+            for tid, source_row, text in c.execute("SELECT lot_table_id, source_row, data_json FROM raw_rows "
+                                                   "ORDER BY lot_table_id, seq").fetchall() + [(None, None, None)]:
+                if tid != current and current is not None:
+                    hashes.append((current, _seal.rows_sha256(texts), _seal.source_rows_sha256(sources)))
+                    texts, sources = [], []
+                current = tid
+                texts.append(text)
+                sources.append(source_row)
+            c.executemany("INSERT INTO lot_table_hashes VALUES (?, ?, ?)", hashes)
+            c.executemany("INSERT INTO lot_table_hashes SELECT id, ?, ? FROM lot_tables WHERE id NOT IN "
+                          "(SELECT lot_table_id FROM lot_table_hashes)",
+                          [(_seal.rows_sha256([]), _seal.source_rows_sha256([]))])
+            for kind, table in ((_seal.INGEST, "ingests"), (_seal.AUDIT, "audit"), (_seal.PREDICTION, "predictions")):
+                for (ref,) in c.execute(f"SELECT id FROM {table} ORDER BY id").fetchall():
+                    _seal.seal(c, kind, ref)
+            c.execute("INSERT INTO schema_version VALUES (?, ?)", (SCHEMA_VERSION, _now()))
+            _seal.seal(c, _seal.UPGRADE, SCHEMA_VERSION)
 
     def _create(self) -> None:
         with self._write() as c:
@@ -588,6 +650,8 @@ class LotStore:
             if isinstance(exc, sqlite3.OperationalError):
                 raise self._error(exc) from None
             raise
+        if c.execute("SELECT 1 FROM sqlite_master WHERE name = 'seals'").fetchone():
+            _seal.write_anchor(self.path, *_seal.head(c))
 
     def _read(self, sql: str, params: tuple = ()) -> list[tuple]:
         try:
@@ -615,7 +679,7 @@ class LotStore:
         """Every lot in the store, in the order they first came."""
         return [r[0] for r in self._read("SELECT lot FROM lots ORDER BY rowid")]
 
-    def ingest(self, ingest: Ingest, user: str | None = None) -> IngestResult:
+    def ingest(self, ingest: Ingest, user: str | None = None, reason: str | None = None) -> IngestResult:
         """Store a checked folder as one transaction; see the module notes.
 
         Raises InputError (nothing written) when results name a lot with no
@@ -623,9 +687,9 @@ class LotStore:
         gets a folder without every required table.
         """
         with _read.bulk():
-            return self._ingest(ingest, user)
+            return self._ingest(ingest, user, reason)
 
-    def _ingest(self, ingest: Ingest, user: str | None) -> IngestResult:
+    def _ingest(self, ingest: Ingest, user: str | None, reason: str | None) -> IngestResult:
         user = user or current_user()
         prepared = _prepare(ingest)
         sources = {t: ingest.sources.get(t) or _memory_source(t, df) for t, df in ingest.tables.items()}
@@ -655,6 +719,12 @@ class LotStore:
                     changes[lot] = changed
                 else:
                     unchanged.append(lot)
+            reason = reason.strip() if isinstance(reason, str) and reason.strip() else None
+            if revised and reason is None:
+                shown = ", ".join(revised[:10]) + (f" and {len(revised) - 10} more" if len(revised) > 10 else "")
+                raise UsageError(f"this ingest revises {len(revised)} stored lot(s) ({shown}); every revision "
+                                 "carries its reason: give --reason TEXT (for example the deviation or "
+                                 "correction number). Nothing was written.")
             warnings = list(ingest.warnings)
             for lot in revised:
                 old = current[lot]["product"]
@@ -662,9 +732,9 @@ class LotStore:
                     warnings.append(f"lot {lot}: product changes from {old or '(none)'} to "
                                     f"{products[lot] or '(none)'}")
             cur = c.execute("INSERT INTO ingests (at, user, folder, lots_new, lots_revised, lots_unchanged, "
-                            "warnings_json) VALUES (?, ?, ?, ?, ?, ?, ?)",
+                            "warnings_json, reason) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
                             (_now(), user, None if ingest.folder is None else str(ingest.folder), len(new),
-                             len(revised), len(unchanged), _json(warnings)))
+                             len(revised), len(unchanged), _json(warnings), reason))
             ingest_id = cur.lastrowid
             for tname, src in sources.items():
                 c.execute("INSERT INTO ingest_files VALUES (?, ?, ?, ?, ?)",
@@ -695,9 +765,10 @@ class LotStore:
                           revisions)
             c.executemany("INSERT INTO revision_tables VALUES (?, ?, ?)", revision_tables)
             result = IngestResult(new, revised, unchanged, ingest_id, warnings)
+            _seal.seal(c, _seal.INGEST, ingest_id)
             self._log(c, "ingest", user, None, None,
                       {"folder": None if ingest.folder is None else str(ingest.folder),
-                       "files": {t: s["file"] for t, s in sources.items()}},
+                       "files": {t: s["file"] for t, s in sources.items()}, "reason": reason},
                       {"ingest_id": ingest_id, "new": new, "revised": revised, "unchanged": len(unchanged)})
         return result
 
@@ -712,6 +783,9 @@ class LotStore:
         c.executemany("INSERT INTO raw_rows VALUES (?, ?, ?, ?)",
                       [(tid, i, r, text) for tid, _, _, lt, _ in batch
                        for i, (text, r) in enumerate(zip(lt.rows, lt.source_rows))])
+        c.executemany("INSERT INTO lot_table_hashes VALUES (?, ?, ?)",
+                      [(tid, _seal.rows_sha256(lt.rows), _seal.source_rows_sha256(lt.source_rows))
+                       for tid, _, _, lt, _ in batch])
 
     @staticmethod
     def _current_links(c, lots: list[str]) -> dict[str, dict]:
@@ -748,8 +822,9 @@ class LotStore:
         where, params = ("WHERE cr.product = ? ", (product,)) if product is not None else ("", ())
         # the lots in the order they came (CROSS JOIN keeps lots the outer loop: no sort), each with its
         # latest revision, as the current_revisions view picks it, and that revision's lot tables
-        links_sql = ("SELECT rt.tbl, rt.lot_table_id, lt.n_rows, lt.columns_json FROM lots l "
+        links_sql = ("SELECT rt.tbl, rt.lot_table_id, lt.n_rows, lt.columns_json, h.rows_sha256, l.lot FROM lots l "
                      "CROSS JOIN revisions cr CROSS JOIN revision_tables rt CROSS JOIN lot_tables lt "
+                     "LEFT JOIN lot_table_hashes h ON h.lot_table_id = lt.id "
                      "WHERE cr.lot = l.lot AND cr.revision = (SELECT MAX(revision) FROM revisions WHERE lot = l.lot) "
                      "AND rt.revision_id = cr.id AND lt.id = rt.lot_table_id "
                      + ("AND cr.product = ? " if product is not None else "") + "ORDER BY l.rowid")
@@ -790,7 +865,7 @@ class LotStore:
         by id and seq, which may hold other lot tables' rows too."""
         columns: dict[str, dict[str, None]] = {}
         seen_columns: set[tuple[str, str]] = set()
-        for tbl, _, _, columns_json in links:
+        for tbl, _, _, columns_json, _, _ in links:
             if (tbl, columns_json) not in seen_columns:  # most lots of a table share their columns
                 seen_columns.add((tbl, columns_json))
                 columns.setdefault(tbl, {}).update(dict.fromkeys(json.loads(columns_json)))
@@ -801,8 +876,15 @@ class LotStore:
         counts = np.searchsorted(tids, link_tid, side="right") - starts
         if not np.array_equal(counts, n_rows):
             k = int(np.flatnonzero(counts != n_rows)[0])
-            raise StoreError(f"lot store {self.path} is damaged: lot table {int(link_tid[k])} should have "
-                             f"{int(n_rows[k])} raw rows and has {int(counts[k])}")
+            raise StoreIntegrityError(f"lot store {self.path} is damaged: lot table {int(link_tid[k])} should have "
+                                      f"{int(n_rows[k])} raw rows and has {int(counts[k])}")
+        changed = [(link[5], link[0], link[1]) for link, start, size in zip(links, starts.tolist(), counts.tolist())
+                   if _seal.rows_sha256(texts[start:start + size].tolist()) != link[4]]
+        if changed:
+            shown = "; ".join(f"lot {lot}, table {tbl} (lot table {tid})" for lot, tbl, tid in changed[:10])
+            raise StoreIntegrityError(f"lot store {self.path} failed its integrity check: raw rows changed after "
+                                      f"they were stored ({len(changed)} lot table(s): {shown}); nothing was read. "
+                                      "Restore the store from a backup and run `linkage verify`.")
         out = {}
         for tbl in TABLES:
             mine = np.flatnonzero(link_tbl == _TABLE_NUMBER[tbl])
@@ -873,13 +955,13 @@ class LotStore:
     def history(self, lot: str) -> list[dict]:
         """Every revision of ``lot``, oldest first, with what changed.
 
-        Each item: ``revision``, ``ingest_id``, ``at``, ``user``, ``product``,
+        Each item: ``revision``, ``ingest_id``, ``at``, ``user``, ``product``, ``reason`` (of the ingest),
         ``tables`` ({table: file, sha256, rows, ingest_id, changed}) and
         ``changes``: cell-level differences to the previous revision, each
         ``{table, change, key, column, old, new}`` with ``change`` one of
         "table added", "row added", "row removed", "value changed".
         """
-        revs = self._read("SELECT r.id, r.revision, r.ingest_id, i.at, i.user, r.product FROM revisions r "
+        revs = self._read("SELECT r.id, r.revision, r.ingest_id, i.at, i.user, r.product, i.reason FROM revisions r "
                           "JOIN ingests i ON i.id = r.ingest_id WHERE r.lot = ? ORDER BY r.revision", (lot,))
         if not revs:
             import difflib
@@ -891,7 +973,7 @@ class LotStore:
             raise UsageError(f"lot '{lot}' is not in the store {self.path}{hint}")
         out = []
         previous: dict[str, tuple[int, list[dict]]] = {}
-        for rid, number, ingest_id, at, user, product in revs:
+        for rid, number, ingest_id, at, user, product, reason in revs:
             links = self._read("SELECT rt.tbl, lt.id, lt.file, lt.file_sha256, lt.n_rows, lt.ingest_id "
                                "FROM revision_tables rt JOIN lot_tables lt ON lt.id = rt.lot_table_id "
                                "WHERE rt.revision_id = ?", (rid,))
@@ -908,13 +990,18 @@ class LotStore:
                     changes.append({"table": tbl, "change": "table added", "key": None, "column": None,
                                     "old": None, "new": _n_rows(n_rows)})
             out.append({"lot": lot, "revision": number, "ingest_id": ingest_id, "at": at, "user": user,
-                        "product": product, "tables": tables, "changes": changes})
+                        "product": product, "reason": reason, "tables": tables, "changes": changes})
             previous = now
         return out
 
     def _rows(self, lot_table_id: int) -> list[dict]:
-        return [json.loads(r[0]) for r in self._read(
-            "SELECT data_json FROM raw_rows WHERE lot_table_id = ? ORDER BY seq", (lot_table_id,))]
+        texts = [r[0] for r in self._read("SELECT data_json FROM raw_rows WHERE lot_table_id = ? ORDER BY seq",
+                                          (lot_table_id,))]
+        stored = self._read("SELECT rows_sha256 FROM lot_table_hashes WHERE lot_table_id = ?", (lot_table_id,))
+        if not stored or _seal.rows_sha256(texts) != stored[0][0]:
+            raise StoreIntegrityError(f"lot store {self.path} failed its integrity check: the raw rows of lot table "
+                                      f"{lot_table_id} were changed after they were stored; run `linkage verify`")
+        return [json.loads(t) for t in texts]
 
     def ingests(self) -> list[dict]:
         """Every ingest, oldest first, with its files."""
@@ -938,10 +1025,12 @@ class LotStore:
 
     @staticmethod
     def _log(c, action, user, lot, model_id, inputs, outputs) -> int:
-        return c.execute("INSERT INTO audit (at, user, action, lot, model_id, inputs_json, outputs_json) "
-                         "VALUES (?, ?, ?, ?, ?, ?, ?)",
-                         (_now(), user, action, lot, model_id, None if inputs is None else _json(inputs),
-                          None if outputs is None else _json(outputs))).lastrowid
+        audit_id = c.execute("INSERT INTO audit (at, user, action, lot, model_id, inputs_json, outputs_json) "
+                             "VALUES (?, ?, ?, ?, ?, ?, ?)",
+                             (_now(), user, action, lot, model_id, None if inputs is None else _json(inputs),
+                              None if outputs is None else _json(outputs))).lastrowid
+        _seal.seal(c, _seal.AUDIT, audit_id)
+        return audit_id
 
     def audit(self, lot: str | None = None) -> list[dict]:
         """Audit entries, oldest first; only those about ``lot`` when given."""
@@ -956,10 +1045,12 @@ class LotStore:
                           user: str | None = None) -> int:
         """Keep one prediction (inputs and outputs as JSON); returns its id."""
         with self._write() as c:
-            return c.execute("INSERT INTO predictions (at, user, model_id, lot, inputs_json, outputs_json) "
-                             "VALUES (?, ?, ?, ?, ?, ?)",
-                             (_now(), user or current_user(), model_id, lot, _json(inputs),
-                              _json(outputs))).lastrowid
+            prediction_id = c.execute("INSERT INTO predictions (at, user, model_id, lot, inputs_json, outputs_json) "
+                                      "VALUES (?, ?, ?, ?, ?, ?)",
+                                      (_now(), user or current_user(), model_id, lot, _json(inputs),
+                                       _json(outputs))).lastrowid
+            _seal.seal(c, _seal.PREDICTION, prediction_id)
+            return prediction_id
 
     def predictions(self, lot: str | None = None) -> list[dict]:
         """Recorded predictions, oldest first; only those for ``lot`` when given."""

@@ -110,12 +110,15 @@ def test_history(lab, tmp_path):
     db = tmp_path / "s.db"
     run("ingest", lab, "--store", db)
     (lab / "tablets.csv").write_text((lab / "tablets.csv").read_text().replace("81.0", "79.5"))
-    assert "Revised lots (1): EX-001" in run("ingest", lab, "--store", db).output
+    refused = run("ingest", lab, "--store", db)  # a revision without its reason (issue 15 item 5)
+    assert refused.exit_code == 2 and "--reason" in refused.stderr and "EX-001" in refused.stderr
+    assert "Revised lots (1): EX-001" in run("ingest", lab, "--store", db, "--reason", "DEV-7: re-tested").output
     result = run("history", "EX-001", "--store", db)
     assert result.exit_code == 0
     assert "Lot EX-001: 2 revisions" in result.output
     assert "tablets: dissolution_pct 81 -> 79.5" in result.output
     assert "(unchanged, from ingest 1)" in result.output
+    assert "reason: DEV-7: re-tested" in result.output
     revs = json.loads(run("history", "EX-001", "--store", db, "--json").stdout)
     assert revs[1]["changes"][0]["old"] == 81.0 and revs[1]["changes"][0]["new"] == 79.5
     missing = run("history", "EX-01", "--store", db)

@@ -56,7 +56,7 @@ def base(tmp_path):
 @pytest.fixture
 def store(tmp_path, base):
     with LotStore(tmp_path / "lots.db") as s:
-        s.ingest(read_folder(base))
+        s.ingest(read_folder(base), reason="a test revision")
         yield s
 
 
@@ -141,7 +141,7 @@ def test_ingest_records_files_with_sha256(store, base):
 
 def test_identical_reingest_is_a_noop(store, base):
     before = store.connection.execute("SELECT COUNT(*) FROM revisions").fetchone()[0]
-    result = store.ingest(read_folder(base))
+    result = store.ingest(read_folder(base), reason="a test revision")
     assert (result.lots_new, result.lots_revised, result.lots_unchanged) == ([], [], ["A", "B", "C"])
     assert not result.changed
     assert store.connection.execute("SELECT COUNT(*) FROM revisions").fetchone()[0] == before
@@ -151,13 +151,13 @@ def test_identical_reingest_is_a_noop(store, base):
 def test_reordered_rows_and_respelled_numbers_are_unchanged(store, tmp_path):
     lines = RIBBON.splitlines()
     shuffled = "\n".join([lines[0], *reversed(lines[1:])]).replace("1.50", "1.5") + "\n"
-    result = store.ingest(read_folder(folder(tmp_path, "again", ribbon=shuffled)))
+    result = store.ingest(read_folder(folder(tmp_path, "again", ribbon=shuffled)), reason="a test revision")
     assert result.lots_unchanged == ["C", "B", "A"] and not result.changed
 
 
 def test_changed_value_makes_a_new_revision_of_that_lot_only(store, tmp_path):
     changed = TABLETS.replace("A,10,80,4.2,10,81.0", "A,10,80,4.2,10,79.5")
-    result = store.ingest(read_folder(folder(tmp_path, "fix", tablets=changed)))
+    result = store.ingest(read_folder(folder(tmp_path, "fix", tablets=changed)), reason="a test revision")
     assert result.lots_revised == ["A"] and result.lots_unchanged == ["B", "C"] and result.lots_new == []
     history = store.history("A")
     assert [h["revision"] for h in history] == [1, 2]
@@ -177,7 +177,7 @@ def test_changed_value_makes_a_new_revision_of_that_lot_only(store, tmp_path):
 
 def test_partial_update_carries_other_tables(store, tmp_path):
     laser = "lot,d10_um,d50_um,d90_um\nB,60,210,480\n"
-    result = store.ingest(read_folder(folder(tmp_path, "laser", granules_laser=laser)))
+    result = store.ingest(read_folder(folder(tmp_path, "laser", granules_laser=laser)), reason="a test revision")
     assert result.lots_revised == ["B"]
     tables = store.current_tables()
     assert set(tables) == {"process", "ribbon", "granules_laser", "tablets"}
@@ -189,7 +189,7 @@ def test_partial_update_carries_other_tables(store, tmp_path):
 
 def test_row_level_diff(store, tmp_path):
     ribbon = RIBBON.replace("A,2,1.07,1.50\n", "A,3,1.06,1.50\n").replace("A,1,1.05", "A,1,1.04")
-    store.ingest(read_folder(folder(tmp_path, "rows", ribbon=ribbon)))
+    store.ingest(read_folder(folder(tmp_path, "rows", ribbon=ribbon)), reason="a test revision")
     changes = store.history("A")[1]["changes"]
     assert {(c["change"], c["column"], str(c["key"])) for c in changes} == {
         ("value changed", "envelope_density_g_cm3", "{'sample': '1'}"),
@@ -203,13 +203,13 @@ def test_row_level_diff(store, tmp_path):
 def test_results_for_an_unknown_lot_refused_and_nothing_written(tmp_path, base):
     path = tmp_path / "lots.db"
     with LotStore(path) as s:
-        s.ingest(read_folder(base))
+        s.ingest(read_folder(base), reason="a test revision")
     before_bytes, before_dump = path.read_bytes(), dump(path)
     bad = folder(tmp_path, "bad", tablets=TABLETS + "Z,10,80,4.2,10,81.0\n")
     ingest = read_folder(bad)  # without the store's lots this folder reads fine
     with LotStore(path) as s:
         with pytest.raises(InputError) as exc:
-            s.ingest(ingest)
+            s.ingest(ingest, reason="a test revision")
     (p,) = exc.value.problems
     assert (p.file, p.row, p.column, p.value) == ("tablets.csv", 5, "lot", "Z")
     assert "no process record in this folder or in the store" in p.rule
@@ -220,14 +220,14 @@ def test_first_ingest_needs_the_required_tables(tmp_path):
     only_tablets = folder(tmp_path, "t", process=PROCESS, tablets=TABLETS)
     with LotStore(tmp_path / "s.db") as s:
         with pytest.raises(InputError, match="required table 'ribbon' is missing"):
-            s.ingest(read_folder(only_tablets))
+            s.ingest(read_folder(only_tablets), reason="a test revision")
         assert s.lot_ids() == [] and s.ingests() == []
 
 
 def test_failure_inside_the_transaction_leaves_nothing(tmp_path, base, monkeypatch):
     path = tmp_path / "lots.db"
     with LotStore(path) as s:
-        s.ingest(read_folder(base))
+        s.ingest(read_folder(base), reason="a test revision")
     before = dump(path)
     calls = []
     original = LotStore._insert_lot_tables
@@ -241,7 +241,7 @@ def test_failure_inside_the_transaction_leaves_nothing(tmp_path, base, monkeypat
     changed = folder(tmp_path, "c", tablets=TABLETS.replace("81.0", "70.0").replace("84.5", "70.5"))
     with LotStore(path) as s:
         with pytest.raises(RuntimeError, match="disk gone"):
-            s.ingest(read_folder(changed))
+            s.ingest(read_folder(changed), reason="a test revision")
         assert calls == [2]  # the new tablets rows of lots A and B
     assert dump(path) == before
 
@@ -250,7 +250,7 @@ def test_products(store, tmp_path):
     assert store.lots(product="P2")["lot"].tolist() == ["C"]
     assert store.current_tables(product="P1")["ribbon"]["lot"].tolist() == ["A", "A", "B"]
     moved = PROCESS.replace("C,P2", "C,P1")
-    result = store.ingest(read_folder(folder(tmp_path, "moved", process=moved)))
+    result = store.ingest(read_folder(folder(tmp_path, "moved", process=moved)), reason="a test revision")
     assert result.warnings == ["lot C: product changes from P2 to P1"]
     assert store.lots(product="P2").empty
 
@@ -266,7 +266,7 @@ def test_lots_completeness(store):
 
 def test_extra_column_turning_text_is_no_change(store, tmp_path):
     text_col = PROCESS.replace("C,P2,11.0,3.0,5,20,1.0,\n", "C,P2,11.0,3.0,5,20,1.0,dry\n")
-    result = store.ingest(read_folder(folder(tmp_path, "text", process=text_col)))
+    result = store.ingest(read_folder(folder(tmp_path, "text", process=text_col)), reason="a test revision")
     assert result.lots_revised == ["C"] and result.lots_unchanged == ["A", "B"]
     process = store.current_tables()["process"]
     assert process["blend_moisture_pct"].tolist() == ["2.1", "2.4", "dry"]
@@ -283,7 +283,7 @@ def test_template_example_through_the_store(tmp_path):
     copy = tmp_path / "template"
     shutil.copytree(TEMPLATE, copy)
     with LotStore(tmp_path / "t.db") as s:
-        result = s.ingest(read_folder(copy, known_lots=s.lot_ids()))
+        result = s.ingest(read_folder(copy, known_lots=s.lot_ids()), reason="a test revision")
         assert result.lots_new == ["EX-001", "EX-002", "EX-003", "EX-004"]
         assert len(s.current_tables()["granules"]) == 44  # 11 sieve rows x 4 lots in granules.csv
 
@@ -333,13 +333,13 @@ def test_store_busy(tmp_path, base):
         with LotStore(path, busy_timeout_s=0.2) as s:
             assert s.lot_ids() == []  # readers are not blocked in WAL mode
             with pytest.raises(StoreBusyError, match="store busy") as exc:
-                s.ingest(read_folder(base))
+                s.ingest(read_folder(base), reason="a test revision")
             assert exc.value.exit_code == 3
     finally:
         holder.execute("ROLLBACK")
         holder.close()
     with LotStore(path) as s:
-        assert s.ingest(read_folder(base)).lots_new == ["A", "B", "C"]
+        assert s.ingest(read_folder(base), reason="a test revision").lots_new == ["A", "B", "C"]
 
 
 _KILLED_INGEST = """
@@ -360,7 +360,7 @@ def stall(*args):
 
 LotStore._insert_lot_tables = staticmethod(stall)
 with LotStore(store_path) as s:
-    s.ingest(read_folder(folder))
+    s.ingest(read_folder(folder), reason="a test revision")
 """
 
 
@@ -373,7 +373,7 @@ def test_sigkill_during_ingest_leaves_all_or_nothing(tmp_path, base):
 
     path = tmp_path / "lots.db"
     with LotStore(path) as s:
-        s.ingest(read_folder(base))
+        s.ingest(read_folder(base), reason="a test revision")
     before = dump(path)
     changed = folder(tmp_path, "c", tablets=TABLETS.replace("81.0", "70.0"))
     flag = tmp_path / "flag"
@@ -398,7 +398,7 @@ def test_tables_built_in_memory(tmp_path, base):
     read = read_folder(base)
     ingest = Ingest(tables=read.tables, sources={}, spec=None)
     with LotStore(tmp_path / "m.db") as s:
-        assert s.ingest(ingest).lots_new == ["A", "B", "C"]
+        assert s.ingest(ingest, reason="a test revision").lots_new == ["A", "B", "C"]
         files = {f["table"]: f["file"] for f in s.ingests()[0]["files"]}
         assert files["ribbon"] == "(ribbon, not from a file)"
         pd.testing.assert_frame_equal(s.current_tables()["ribbon"], read.tables["ribbon"])

@@ -145,7 +145,7 @@ def _equal_tables(got: dict[str, pd.DataFrame], expected: dict[str, pd.DataFrame
 def filled(folders, tmp_path_factory):
     path = tmp_path_factory.mktemp("store") / "lots.db"
     with LotStore(path) as s:
-        results = [s.ingest(read_folder(f)) for f in folders]
+        results = [s.ingest(read_folder(f), reason="a test revision") for f in folders]
     return path, results
 
 
@@ -179,7 +179,7 @@ def test_reingesting_the_final_state_changes_nothing(filled, folders, tmp_path):
     with closing(sqlite3.connect(path)) as src, closing(sqlite3.connect(copy)) as dst:
         src.backup(dst)
     with LotStore(copy) as s:
-        result = s.ingest(read_folder(_final_state(folders, tmp_path / "final")))
+        result = s.ingest(read_folder(_final_state(folders, tmp_path / "final")), reason="a test revision")
     assert result.lots_new == [] and result.lots_revised == [] and len(result.lots_unchanged) == 62
 
 
@@ -222,7 +222,7 @@ def test_a_store_mostly_history_reads_only_the_current_rows(folders, tmp_path):
         steps.append(step)
     with LotStore(path) as s:
         for step in steps:
-            s.ingest(read_folder(step))
+            s.ingest(read_folder(step), reason="a test revision")
         stored = s.connection.execute("SELECT COUNT(*) FROM raw_rows").fetchone()[0]
         current = sum(len(df) for df in s.current_tables().values())
         assert stored > 2 * current  # the case this test is about
@@ -298,7 +298,7 @@ def _vm_steps(store: Path, folder: Path) -> int:
 
     with LotStore(store) as s:
         s.connection.set_progress_handler(tick, 100)
-        s.ingest(read_folder(folder))
+        s.ingest(read_folder(folder), reason="a test revision")
         s.connection.set_progress_handler(None, 0)
     return steps[0]
 
@@ -322,7 +322,7 @@ def test_an_ingest_does_not_read_the_lots_it_does_not_touch(tmp_path):
         make_lots(others, seed=3, lot_prefix="OTHER").write_csv(tmp_path / f"others{others}")
         store = tmp_path / f"s{others}.db"
         with LotStore(store) as s:
-            s.ingest(read_folder(tmp_path / f"others{others}"))
-            s.ingest(read_folder(tmp_path / "mine"))
+            s.ingest(read_folder(tmp_path / f"others{others}"), reason="a test revision")
+            s.ingest(read_folder(tmp_path / "mine"), reason="a test revision")
         steps[others] = _vm_steps(store, mixed)
     assert steps[600] < 1.3 * steps[60], steps

@@ -63,12 +63,12 @@ def test_random_tables_round_trip_through_the_store(tables):
         write(src, tables)
         ingest = read_folder(src)
         with LotStore(Path(d) / "s.db") as store:
-            result = store.ingest(ingest)
+            result = store.ingest(ingest, reason="a test revision")
             assert len(result.lots_new) == len(tables["process"]) - 1
             stored = store.current_tables()
             for name, df in ingest.tables.items():
                 pd.testing.assert_frame_equal(stored[name], df, check_exact=True)
-            again = store.ingest(read_folder(src))
+            again = store.ingest(read_folder(src), reason="a test revision")
             assert not again.changed and len(again.lots_unchanged) == len(result.lots_new)
 
 
@@ -79,7 +79,7 @@ def test_one_changed_cell_revises_exactly_its_lot(tables, pick, value):
         src = Path(d) / "in"
         write(src, tables)
         with LotStore(Path(d) / "s.db") as store:
-            store.ingest(read_folder(src))
+            store.ingest(read_folder(src), reason="a test revision")
             k = 1 + pick % (len(tables["ribbon"]) - 1)
             row = tables["ribbon"][k]
             old = row[3]
@@ -91,7 +91,7 @@ def test_one_changed_cell_revises_exactly_its_lot(tables, pick, value):
             row[3] = new
             write(src, {"ribbon": tables["ribbon"]})
             lot = read_folder(src).tables["ribbon"]["lot"].iloc[k - 1]
-            result = store.ingest(read_folder(src))
+            result = store.ingest(read_folder(src), reason="a test revision")
             assert result.lots_revised == [lot]
             (change,) = store.history(lot)[-1]["changes"]
             assert (change["column"], change["old"], change["new"]) == ("skeletal_density_g_cm3", old, new)

@@ -8,23 +8,27 @@ from pathlib import Path
 
 import click
 
-from linkage.cli.common import FiniteFloat, handle_errors, json_option, store_option
+from linkage.cli.common import FiniteFloat, handle_errors, json_option, models_dir_option, store_option
 from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
 
 
 @click.command()
 @click.argument("folder", type=click.Path(exists=True, file_okay=False, path_type=Path))
 @store_option
+@click.option("--reason", default=None, metavar="TEXT",
+              help="Why stored lots are revised (a deviation or correction number); required when any lot's "
+                   "values change, recorded with the revision and in the audit trail.")
 @json_option
 @handle_errors
-def ingest(folder, store, as_json):
+def ingest(folder, store, reason, as_json):
     """Check every file in FOLDER and add its lots to the store.
 
     FOLDER holds one file a table (process.csv, ribbon.csv, granules.csv,
     granules_laser.csv, tablets.csv, tablet_weights.csv, dissolution.csv, or
     .xlsx), and optionally spec.toml and columns.toml (the lab's own headers
     and units). A lot whose values changed gets a new revision; the old one
-    is kept. Sending the same files again changes nothing.
+    is kept, and the revision carries --reason (refused without one).
+    Sending the same files again changes nothing.
 
     On any problem every problem is listed (file, row, column, value, rule),
     nothing is written and the exit code is 2.
@@ -33,6 +37,7 @@ def ingest(folder, store, as_json):
     Example:
       linkage ingest lab_exports/2024-05
       linkage ingest lab_exports/2024-05 --store site.db --json
+      linkage ingest corrections/ --reason "DEV-2024-031: envelope density re-measured"
     """
     from linkage.read import read_folder
     from linkage.store import LotStore
@@ -43,7 +48,7 @@ def ingest(folder, store, as_json):
             known = existing.lot_ids()
     checked = read_folder(folder, known_lots=known)  # the store is created only for valid input
     with LotStore(store) as lot_store:
-        result = lot_store.ingest(checked)
+        result = lot_store.ingest(checked, reason=reason)
     if as_json:
         click.echo(json.dumps({**result.to_dict(), "store": str(store), "sources": checked.sources}, indent=2))
         return
@@ -120,6 +125,8 @@ def history(lot, store, as_json):
     for rev in revisions:
         click.echo(f"Revision {rev['revision']}: ingest {rev['ingest_id']}, {rev['at']}, by {rev['user']}"
                    + (f", product {rev['product']}" if rev["product"] else ""))
+        if rev.get("reason"):
+            click.echo(f"  reason: {rev['reason']}")
         for tbl, info in rev["tables"].items():
             mark = "" if info["changed"] else f"  (unchanged, from ingest {info['ingest_id']})"
             click.echo(f"  {tbl:<15} {info['file']} sha256 {info['sha256'][:12]}  {_rows(info['rows'])}{mark}")
@@ -220,3 +227,46 @@ def _change_text(ch: dict) -> str:
 def _value(v) -> str:
     return "(missing)" if v is None else repr(v) if isinstance(v, str) else f"{v:g}" if isinstance(v, float) \
         else str(v)
+
+
+@click.command()
+@store_option
+@models_dir_option
+@json_option
+@handle_errors
+def verify(store, models_dir, as_json):
+    """Check the whole record: every seal, audit entry, recorded prediction,
+    ingest and raw row of the lot store, and every model of the registry
+    against its recorded hashes.
+
+    Prints what was checked and the newest seal's hash: record that hash
+    outside the store (the batch record) to make any later rewrite of the
+    store evident. Exit code 0 when everything matches, 5 when the store
+    does not, 4 when a model does not.
+
+    \b
+    Example:
+      linkage verify
+      linkage verify --store site.db --models-dir /srv/linkage/models --json
+    """
+    from linkage.integrity import verify_record
+
+    result = verify_record(store, models_dir)
+    if as_json:
+        click.echo(json.dumps(result.to_dict(), indent=2))
+    else:
+        counts = result.store_counts
+        if counts:
+            newest = counts.get("newest seal", {})
+            checked = ", ".join(f"{v} {k}" for k, v in counts.items() if k != "newest seal")
+            click.echo(f"Lot store {store}: {checked}; newest seal {newest.get('id')} sha256 {newest.get('sha256')}")
+        click.echo(f"Model registry {models_dir}: {result.models_checked} model(s) checked")
+        for p in result.store_problems:
+            click.echo(f"  store: {p}", err=True)
+        for p in result.model_problems:
+            click.echo(f"  model: {p}", err=True)
+        click.echo("Everything matches its seals and hashes." if result.ok else "The record is NOT whole.")
+    if result.store_problems:
+        raise SystemExit(5)
+    if result.model_problems:
+        raise SystemExit(4)

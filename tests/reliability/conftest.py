@@ -33,6 +33,8 @@ COUNTS = {
     "degenerate data sets handled": "single lot, too few lots, constant target, one porosity, missing column",
     "reproducibility runs compared": "training runs whose CV results and predictions were compared byte for byte",
     "settings errors caught before work": "bad spec or settings refused before the store or a model was touched",
+    "tamper cases detected": "edits made behind linkage's back (SQL with triggers dropped, bytes of the file) "
+                             "that stopped the next command with exit code 5 and that `linkage verify` named",
 }
 
 _counter: Counter = Counter()

@@ -108,7 +108,7 @@ def test_sigkill_ingest_50_times(tmp_path, counts):
         stores = [tmp_path / f"lane{i}" / "lots.db" for i in range(LANES)]
         for f, store in zip(forkers, stores):
             for folder in (base_dir, revised):
-                res = f.run(["ingest", folder, "--store", store])
+                res = f.run(["ingest", folder, "--store", store, "--reason", "a test revision"])
                 assert res["code"] == 0, (f.workdir / "child.log").read_text()
 
         # calibrate: uninterrupted ingests, both lanes at once (as the kills will run), watching when the
@@ -151,7 +151,8 @@ def test_sigkill_ingest_50_times(tmp_path, counts):
                     batch = (folder, *write_batch(folder, BATCH_LOTS, seed=1000 * i + k, prefix=f"L{i}B{k:02d}"))
                     k += 1
                 folder, batch_lots, batch_rows = batch
-                res = f.run(["ingest", folder, "--store", store], kill_after=delay if after == "start" else None,
+                res = f.run(["ingest", folder, "--store", store, "--reason", "a test revision"],
+                            kill_after=delay if after == "start" else None,
                             kill_after_lock=delay if after == "lock" else None, watch=True)
                 locked = held_wal_write_lock(res, store) if res["killed"] else None
                 if not res["killed"]:  # it finished first: it must have succeeded; learn its timing
@@ -204,7 +205,7 @@ def test_sigkill_first_ingest_into_a_new_store(tmp_path, counts):
             if survived == N_FIRST_INGEST_KILLS:
                 break
             store = tmp_path / f"new{i}.db"
-            res = f.run(["ingest", folder, "--store", store], kill_after=frac * duration)
+            res = f.run(["ingest", folder, "--store", store, "--reason", "a test revision"], kill_after=frac * duration)
             listing = run_cli(["lots", "--json", "--store", store])
             if listing.exit_code == 0:
                 assert {r["lot"] for r in json.loads(listing.stdout)} in (set(), lots)

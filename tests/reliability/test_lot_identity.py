@@ -113,13 +113,13 @@ def test_a_result_table_spelling_a_process_lot_another_way_is_refused(tmp_path, 
 def test_a_lot_resent_in_another_case_is_refused_and_the_store_is_unchanged(tmp_path, counts):
     store_path = tmp_path / "s.db"
     store = LotStore(store_path)
-    store.ingest(read_folder(_folder(tmp_path, "first"), known_lots=store.lot_ids()))
+    store.ingest(read_folder(_folder(tmp_path, "first"), known_lots=store.lot_ids()), reason="a test revision")
     before = store_path.read_bytes()
     d = _folder(tmp_path, "again")
     for f in d.glob("*.csv"):
         f.write_text(f.read_text().replace("EX-001", "ex-001"))
     with pytest.raises(InputError) as info:
-        store.ingest(read_folder(d))  # no known lots at read time: the store's own check refuses it
+        store.ingest(read_folder(d), reason="a test revision")  # no known lots at read time: the store's own check refuses it
     hits = [p for p in info.value.problems if "written another way" in p.rule]
     assert hits and all("'EX-001' in the store" in p.rule for p in hits)
     assert {p.file for p in hits} >= {"process.csv", "ribbon.csv"}
@@ -131,8 +131,8 @@ def test_a_lot_resent_in_another_case_is_refused_and_the_store_is_unchanged(tmp_
 
 def test_the_same_spelling_again_is_a_revision_not_a_refusal(tmp_path):
     store = LotStore(tmp_path / "s.db")
-    store.ingest(read_folder(_folder(tmp_path, "first"), known_lots=store.lot_ids()))
+    store.ingest(read_folder(_folder(tmp_path, "first"), known_lots=store.lot_ids()), reason="a test revision")
     d = _folder(tmp_path, "again")
     _replace(d / "tablets.csv", "EX-001,10.44,80.0", "EX-001,10.44,81.0")
-    result = store.ingest(read_folder(d, known_lots=store.lot_ids()))
+    result = store.ingest(read_folder(d, known_lots=store.lot_ids()), reason="a test revision")
     assert result.lots_revised == ["EX-001"]

@@ -1,0 +1,291 @@
+"""Tamper evidence for the lot store: a hash chain over its records.
+
+Every record the store keeps is sealed in the same transaction that writes
+it, by one row of the append-only ``seals`` table:
+
+- an **ingest**: the ingest row (with its reason), its files, the lots it
+  created, its lot tables (each with the SHA-256 of its raw rows as stored,
+  ``rows_sha256``, and of their spreadsheet row numbers) and the revisions it
+  made;
+- an **audit** entry and a recorded **prediction**: the whole row.
+
+A seal holds the SHA-256 of its record's content and a link hash,
+``sha256 = SHA-256(prev_sha256 | kind | ref_id | content_sha256)``, where
+``prev_sha256`` is the link hash of the seal before it (64 zeros for the
+first). This is the hash chain of Haber & Stornetta (1991, "How to
+time-stamp a digital document", J. Cryptology 3:99–111): changing, removing
+or inserting any sealed record breaks either its content hash or every link
+after it.
+
+What it detects, and what it cannot
+-----------------------------------
+- An edit of a raw row, an audit entry (its user or time) or a recorded
+  prediction, made with any SQLite tool behind linkage's back (dropping the
+  append-only triggers and recreating them), or bytes changed in the file:
+  the content no longer matches its seal.
+- Removing the newest records: the **anchor**, a small file beside the store
+  (``<store>.seal``, JSON: the newest seal's id and hash, written after each
+  commit), names a seal that is gone or differs.
+- Without a secret key, someone who rewrites every seal after an edit *and*
+  the anchor file is not detected by the store alone. ``linkage verify``
+  prints the newest seal's hash: recorded outside the store (in the batch
+  record, a signed document), it makes even that rewrite evident. This is
+  the limit of any keyless hash chain, stated rather than hidden.
+
+When the checks run
+-------------------
+- Every command that opens the store checks the chain's links, the anchor,
+  and the content of every audit entry and recorded prediction (small rows),
+  and every command that reads lot tables checks their raw rows against
+  ``rows_sha256`` as it reads them.
+- ``linkage verify`` checks everything: additionally each ingest's sealed
+  content (its lot tables, revisions, files) and every lot table's raw rows,
+  row numbers and content hash (``content_sha256``), stored or not current.
+
+A store written by an earlier version (schema 1) is sealed as it stands when
+it is first opened for writing by this one (an ``upgrade`` seal records
+that); changes made before that cannot be detected.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from pathlib import Path
+
+GENESIS = "0" * 64
+#: seal kinds
+INGEST, AUDIT, PREDICTION, UPGRADE = "ingest", "audit", "prediction", "upgrade"
+
+DDL = [
+    """CREATE TABLE seals (
+        id INTEGER PRIMARY KEY,
+        kind TEXT NOT NULL,
+        ref_id INTEGER NOT NULL,
+        content_sha256 TEXT NOT NULL,
+        prev_sha256 TEXT NOT NULL,
+        sha256 TEXT NOT NULL
+    )""",
+    """CREATE TABLE lot_table_hashes (
+        lot_table_id INTEGER PRIMARY KEY REFERENCES lot_tables(id),
+        rows_sha256 TEXT NOT NULL,
+        source_rows_sha256 TEXT NOT NULL
+    )""",
+    "CREATE INDEX seals_ref ON seals(kind, ref_id)",
+    # an ingest's content is read back to seal it: by ingest, not by a scan of every lot
+    "CREATE INDEX lots_first_ingest ON lots(first_ingest_id)",
+    "CREATE INDEX lot_tables_ingest ON lot_tables(ingest_id)",
+    "CREATE INDEX revisions_ingest ON revisions(ingest_id)",
+]
+#: tables of the seal that are append-only like the records
+APPEND_ONLY = ("seals", "lot_table_hashes")
+
+
+# --------------------------------------------------------------------------- pure hashing
+
+
+def sha256_text(text: str) -> str:
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def canonical(value) -> str:
+    """The one JSON text of a record that its hash covers (keys sorted, no spaces, NaN refused)."""
+    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+
+
+def link(prev_sha256: str, kind: str, ref_id: int, content_sha256: str) -> str:
+    """A seal's link hash: SHA-256 of the previous link, the record's kind, id and content hash."""
+    return sha256_text(f"{prev_sha256}|{kind}|{int(ref_id)}|{content_sha256}")
+
+
+def rows_sha256(texts) -> str:
+    """SHA-256 of a lot table's raw rows as stored (their JSON texts, in order, separated by U+001E)."""
+    return sha256_text("\x1e".join(texts))
+
+
+def source_rows_sha256(source_rows) -> str:
+    """SHA-256 of a lot table's spreadsheet row numbers, in order."""
+    return sha256_text(canonical([None if r is None else int(r) for r in source_rows]))
+
+
+# --------------------------------------------------------------------------- record contents (read from the store)
+
+
+def audit_content(c, audit_id: int) -> str | None:
+    row = c.execute("SELECT id, at, user, action, lot, model_id, inputs_json, outputs_json FROM audit WHERE id = ?",
+                    (audit_id,)).fetchone()
+    return None if row is None else sha256_text(canonical(list(row)))
+
+
+def prediction_content(c, prediction_id: int) -> str | None:
+    row = c.execute("SELECT id, at, user, model_id, lot, inputs_json, outputs_json FROM predictions WHERE id = ?",
+                    (prediction_id,)).fetchone()
+    return None if row is None else sha256_text(canonical(list(row)))
+
+
+def ingest_content(c, ingest_id: int) -> str | None:
+    """The content hash of one ingest, from what the store holds for it."""
+    head = c.execute("SELECT id, at, user, folder, lots_new, lots_revised, lots_unchanged, warnings_json, reason "
+                     "FROM ingests WHERE id = ?", (ingest_id,)).fetchone()
+    if head is None:
+        return None
+    record = {
+        "ingest": list(head),
+        "files": [list(r) for r in c.execute("SELECT tbl, file, sha256, rows FROM ingest_files WHERE ingest_id = ? "
+                                             "ORDER BY rowid", (ingest_id,))],
+        "lots": [r[0] for r in c.execute("SELECT lot FROM lots WHERE first_ingest_id = ? ORDER BY rowid",
+                                         (ingest_id,))],
+        "lot_tables": [list(r) for r in c.execute(
+            "SELECT lt.id, lt.lot, lt.tbl, lt.file, lt.file_sha256, lt.content_sha256, lt.columns_json, lt.n_rows, "
+            "lt.n_filled, h.rows_sha256, h.source_rows_sha256 FROM lot_tables lt "
+            "LEFT JOIN lot_table_hashes h ON h.lot_table_id = lt.id WHERE lt.ingest_id = ? ORDER BY lt.id",
+            (ingest_id,))],
+        "revisions": [list(r) for r in c.execute(
+            "SELECT id, lot, revision, product FROM revisions WHERE ingest_id = ? ORDER BY id", (ingest_id,))],
+        "revision_tables": [list(r) for r in c.execute(
+            "SELECT rt.revision_id, rt.tbl, rt.lot_table_id FROM revision_tables rt JOIN revisions r "
+            "ON r.id = rt.revision_id WHERE r.ingest_id = ? ORDER BY rt.revision_id, rt.tbl", (ingest_id,))],
+    }
+    return sha256_text(canonical(record))
+
+
+def upgrade_content(c) -> str:
+    """What an upgrade seal covers: the store's schema versions at the upgrade."""
+    return sha256_text(canonical([list(r) for r in c.execute("SELECT version, applied_at FROM schema_version "
+                                                             "ORDER BY rowid")]))
+
+
+CONTENT = {INGEST: ingest_content, AUDIT: audit_content, PREDICTION: prediction_content}
+
+
+# --------------------------------------------------------------------------- writing
+
+
+def head(c) -> tuple[int, str]:
+    row = c.execute("SELECT id, sha256 FROM seals ORDER BY id DESC LIMIT 1").fetchone()
+    return (0, GENESIS) if row is None else (int(row[0]), str(row[1]))
+
+
+def seal(c, kind: str, ref_id: int, content_sha256: str | None = None) -> tuple[int, str]:
+    """Append one seal (inside the caller's write transaction); returns its id and link hash."""
+    if content_sha256 is None:
+        content_sha256 = upgrade_content(c) if kind == UPGRADE else CONTENT[kind](c, ref_id)
+    _, prev = head(c)
+    digest = link(prev, kind, ref_id, content_sha256)
+    cur = c.execute("INSERT INTO seals (kind, ref_id, content_sha256, prev_sha256, sha256) VALUES (?, ?, ?, ?, ?)",
+                    (kind, int(ref_id), content_sha256, prev, digest))
+    return int(cur.lastrowid), digest
+
+
+# --------------------------------------------------------------------------- the anchor file
+
+
+def anchor_path(store_path: Path) -> Path:
+    return Path(f"{store_path}.seal")
+
+
+def write_anchor(store_path: Path, seal_id: int, digest: str) -> bool:
+    """Record the newest seal beside the store (atomic); False where the folder is not writable."""
+    from linkage.export import write_atomic
+
+    try:
+        write_atomic(anchor_path(store_path), (canonical({"seal_id": seal_id, "sha256": digest}) + "\n").encode())
+    except OSError:
+        return False
+    return True
+
+
+def read_anchor(store_path: Path) -> dict | None:
+    path = anchor_path(store_path)
+    if not path.exists():
+        return None
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+        return {"seal_id": int(data["seal_id"]), "sha256": str(data["sha256"])}
+    except (OSError, ValueError, KeyError, TypeError):
+        return {"seal_id": -1, "sha256": "unreadable"}
+
+
+# --------------------------------------------------------------------------- checking
+
+
+def check(c, store_path: Path, *, full: bool = False) -> tuple[list[str], dict]:
+    """Every mismatch found, and counts of what was checked.
+
+    Always: each seal's link, every audit entry and prediction against its
+    seal (and none without one), the anchor. With ``full``: also each
+    ingest's content, and every lot table's raw rows, row numbers and content
+    hash (see the module notes).
+    """
+    problems: list[str] = []
+    counts = {"seals": 0, "audit entries": 0, "predictions": 0, "ingests": 0, "lot tables": 0, "raw rows": 0}
+    prev = GENESIS
+    sealed: dict[str, set[int]] = {INGEST: set(), AUDIT: set(), PREDICTION: set()}
+    last_id = 0
+    for seal_id, kind, ref_id, content, prev_sha, digest in c.execute(
+            "SELECT id, kind, ref_id, content_sha256, prev_sha256, sha256 FROM seals ORDER BY id"):
+        counts["seals"] += 1
+        last_id = seal_id
+        if prev_sha != prev or link(prev_sha, kind, ref_id, content) != digest:
+            problems.append(f"seal {seal_id} ({kind} {ref_id}) does not follow from the seal before it: the seal "
+                            "chain was cut or rewritten")
+        prev = digest
+        if kind in sealed:
+            sealed[kind].add(int(ref_id))
+        if kind == AUDIT or kind == PREDICTION or (full and kind == INGEST):
+            now = CONTENT[kind](c, ref_id)
+            counts[{AUDIT: "audit entries", PREDICTION: "predictions", INGEST: "ingests"}[kind]] += 1
+            if now is None:
+                problems.append(f"{kind} record {ref_id} was removed (its seal {seal_id} remains)")
+            elif now != content:
+                problems.append(f"{kind} record {ref_id} was changed after it was sealed (seal {seal_id})")
+    for kind, table in ((AUDIT, "audit"), (PREDICTION, "predictions"), (INGEST, "ingests")):
+        unsealed = [r[0] for r in c.execute(f"SELECT id FROM {table} ORDER BY id") if r[0] not in sealed[kind]]
+        if unsealed:
+            shown = ", ".join(map(str, unsealed[:5])) + (" ..." if len(unsealed) > 5 else "")
+            problems.append(f"{len(unsealed)} {table} record(s) without a seal (id {shown}): added outside linkage")
+    anchor = read_anchor(store_path)
+    if anchor is not None and (anchor["seal_id"], anchor["sha256"]) != (0, GENESIS):  # 0: written when empty
+        row = c.execute("SELECT sha256 FROM seals WHERE id = ?", (anchor["seal_id"],)).fetchone()
+        if row is None or row[0] != anchor["sha256"]:
+            problems.append(f"the newest records were removed or the seals rewritten: the anchor "
+                            f"{anchor_path(store_path).name} names seal {anchor['seal_id']}, which the store "
+                            + ("does not hold" if row is None else "holds with another hash")
+                            + f" (newest seal: {last_id})")
+    if full:
+        problems += _check_lot_tables(c, counts)
+    return problems, counts
+
+
+def _check_lot_tables(c, counts: dict) -> list[str]:
+    from linkage.store import _content_hash  # the store's own content hash, one definition
+
+    problems: list[str] = []
+    meta = {tid: (lot, tbl, content, rows_h, src_h) for tid, lot, tbl, content, rows_h, src_h in c.execute(
+        "SELECT lt.id, lt.lot, lt.tbl, lt.content_sha256, h.rows_sha256, h.source_rows_sha256 FROM lot_tables lt "
+        "LEFT JOIN lot_table_hashes h ON h.lot_table_id = lt.id")}
+    texts: dict[int, list[str]] = {}
+    sources: dict[int, list] = {}
+    for tid, source_row, text in c.execute("SELECT lot_table_id, source_row, data_json FROM raw_rows "
+                                           "ORDER BY lot_table_id, seq"):
+        texts.setdefault(tid, []).append(text)
+        sources.setdefault(tid, []).append(source_row)
+        counts["raw rows"] += 1
+    for tid, (lot, tbl, content, rows_h, src_h) in meta.items():
+        counts["lot tables"] += 1
+        mine = texts.get(tid, [])
+        what = f"lot {lot}, table {tbl} (lot table {tid})"
+        if rows_h is None:
+            problems.append(f"{what}: no row hash (sealed content removed)")
+            continue
+        if rows_sha256(mine) != rows_h or source_rows_sha256(sources.get(tid, [])) != src_h:
+            problems.append(f"{what}: its raw rows were changed after they were stored")
+            continue
+        try:
+            parsed = [json.loads(t) for t in mine]
+        except ValueError:
+            problems.append(f"{what}: a raw row is not valid JSON")
+            continue
+        if _content_hash(tbl, parsed) != content:
+            problems.append(f"{what}: its content hash does not match its rows")
+    return problems
