@@ -86,7 +86,7 @@ class StoreIntegrityError(StoreError):
     outside linkage, or the seal chain was cut. Nothing is read or written
     past the check."""
 
-    exit_code = 5
+    exit_code = 6
 
 
 class ModelIntegrityError(LinkageError, RuntimeError):

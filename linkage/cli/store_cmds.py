@@ -241,7 +241,7 @@ def verify(store, models_dir, as_json):
 
     Prints what was checked and the newest seal's hash: record that hash
     outside the store (the batch record) to make any later rewrite of the
-    store evident. Exit code 0 when everything matches, 5 when the store
+    store evident. Exit code 0 when everything matches, 6 when the store
     does not, 4 when a model does not.
 
     \b
@@ -267,6 +267,6 @@ def verify(store, models_dir, as_json):
             click.echo(f"  model: {p}", err=True)
         click.echo("Everything matches its seals and hashes." if result.ok else "The record is NOT whole.")
     if result.store_problems:
-        raise SystemExit(5)
+        raise SystemExit(6)
     if result.model_problems:
         raise SystemExit(4)

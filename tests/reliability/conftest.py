@@ -34,7 +34,7 @@ COUNTS = {
     "reproducibility runs compared": "training runs whose CV results and predictions were compared byte for byte",
     "settings errors caught before work": "bad spec or settings refused before the store or a model was touched",
     "tamper cases detected": "edits made behind linkage's back (SQL with triggers dropped, bytes of the file) "
-                             "that stopped the next command with exit code 5 and that `linkage verify` named",
+                             "that stopped the next command with exit code 6 and that `linkage verify` named",
 }
 
 _counter: Counter = Counter()

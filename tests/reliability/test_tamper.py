@@ -1,7 +1,7 @@
 """Tamper evidence (issue 15 item 5): each edit below is made the way the
 tester made it, with Python's sqlite3 module behind linkage's back (dropping
 the append-only triggers, editing, recreating them) or by changing bytes of
-the file; each must stop the next command with exit code 5 and a clear
+the file; each must stop the next command with exit code 6 and a clear
 message, and ``linkage verify`` must name it.
 
 The chain is a hash chain in the sense of Haber & Stornetta (1991,
@@ -61,12 +61,12 @@ def _behind_the_back(path: Path, *statements: str, params=()) -> None:
 
 def _detected(path: Path, counts, *words: str, command=("lots",)) -> None:
     result = run_cli([*command, "--store", path])
-    assert result.exit_code == 5, result.output
+    assert result.exit_code == 6, result.output
     assert "integrity check" in result.stderr and "Traceback" not in result.output
     for w in words:
         assert w in result.stderr, result.stderr
     verify = run_cli(["verify", "--store", path, "--models-dir", path.parent / "none"])
-    assert verify.exit_code == 5 and "NOT whole" in verify.output
+    assert verify.exit_code == 6 and "NOT whole" in verify.output
     counts["tamper cases detected"] += 1
 
 
@@ -153,7 +153,7 @@ def test_rows_and_their_row_hash_rewritten_together_are_found_by_verify(store, c
                      f"UPDATE lot_table_hashes SET rows_sha256 = '{seal.rows_sha256(texts)}' "
                      f"WHERE lot_table_id = {tid}")
     result = run_cli(["verify", "--store", store, "--models-dir", store.parent / "none"])
-    assert result.exit_code == 5 and "ingest record 1 was changed" in result.stderr
+    assert result.exit_code == 6 and "ingest record 1 was changed" in result.stderr
     assert "content hash does not match" in result.stderr
     counts["tamper cases detected"] += 1
 
@@ -214,4 +214,4 @@ def test_the_library_raises_the_documented_error(store):
     _behind_the_back(store, "UPDATE predictions SET user = 'x' WHERE id = 1")
     with pytest.raises(StoreIntegrityError, match="prediction record 1 was changed") as info:
         LotStore(store)
-    assert info.value.exit_code == 5
+    assert info.value.exit_code == 6
