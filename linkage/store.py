@@ -47,6 +47,7 @@ from itertools import chain
 from pathlib import Path
 from typing import TYPE_CHECKING, Iterator
 
+from linkage import plausible as _plausible
 from linkage import seal as _seal
 from linkage.exceptions import InputError, StoreBusyError, StoreError, StoreIntegrityError, UsageError
 from linkage.schema import DATETIME, NUMBER, TABLES, TEXT
@@ -679,7 +680,8 @@ class LotStore:
         """Every lot in the store, in the order they first came."""
         return [r[0] for r in self._read("SELECT lot FROM lots ORDER BY rowid")]
 
-    def ingest(self, ingest: Ingest, user: str | None = None, reason: str | None = None) -> IngestResult:
+    def ingest(self, ingest: Ingest, user: str | None = None, reason: str | None = None, *,
+               accept_unusual: bool = False) -> IngestResult:
         """Store a checked folder as one transaction; see the module notes.
 
         Raises InputError (nothing written) when results name a lot with no
@@ -687,9 +689,9 @@ class LotStore:
         gets a folder without every required table.
         """
         with _read.bulk():
-            return self._ingest(ingest, user, reason)
+            return self._ingest(ingest, user, reason, accept_unusual)
 
-    def _ingest(self, ingest: Ingest, user: str | None, reason: str | None) -> IngestResult:
+    def _ingest(self, ingest: Ingest, user: str | None, reason: str | None, accept_unusual: bool) -> IngestResult:
         user = user or current_user()
         prepared = _prepare(ingest)
         sources = {t: ingest.sources.get(t) or _memory_source(t, df) for t, df in ingest.tables.items()}
@@ -720,6 +722,15 @@ class LotStore:
                 else:
                     unchanged.append(lot)
             reason = reason.strip() if isinstance(reason, str) and reason.strip() else None
+            product_of = {lot: products[lot] if lot in products else current.get(lot, {}).get("product")
+                          for lot in order}
+            unusual, unusual_records = _plausible.unusual_values(
+                ingest, self._history(c, set(product_of.values()), set(order)), product_of)
+            if accept_unusual and reason is None:
+                raise UsageError("--accept-unusual takes unusual values deliberately: give --reason TEXT to say why. "
+                                 "Nothing was written.")
+            if unusual and not accept_unusual:
+                raise InputError(unusual)
             if revised and reason is None:
                 shown = ", ".join(revised[:10]) + (f" and {len(revised) - 10} more" if len(revised) > 10 else "")
                 raise UsageError(f"this ingest revises {len(revised)} stored lot(s) ({shown}); every revision "
@@ -768,10 +779,47 @@ class LotStore:
             _seal.seal(c, _seal.INGEST, ingest_id)
             self._log(c, "ingest", user, None, None,
                       {"folder": None if ingest.folder is None else str(ingest.folder),
-                       "files": {t: s["file"] for t, s in sources.items()}, "reason": reason},
+                       "files": {t: s["file"] for t, s in sources.items()}, "reason": reason,
+                       "accepted_unusual": unusual_records},
                       {"ingest_id": ingest_id, "new": new, "revised": revised, "unchanged": len(unchanged)})
         return result
 
+
+    def _history(self, c, products: set, exclude: set) -> dict[str, dict]:
+        """The stored rows of each product's recent lots (at most ``plausible.HISTORY_LOTS`` a product, newest
+        first, none of ``exclude``), by table, product and lot: what an ingest's values are compared with
+        (linkage/plausible.py). The newest lots are read in batches until every product has its share or
+        ``8 x HISTORY_LOTS`` lots were looked at, so an ingest reads a bounded number of lots whatever the
+        store's size (one batch in a store of one product)."""
+        n = _plausible.HISTORY_LOTS
+        taken: dict = dict.fromkeys(products, 0)
+        wanted: dict[int, tuple[str, str, object]] = {}
+        offset = 0
+        while offset < 8 * n and any(k < n for k in taken.values()):
+            batch = [r[0] for r in c.execute("SELECT lot FROM lots ORDER BY rowid DESC LIMIT ? OFFSET ?",
+                                             (n + len(exclude), offset))]
+            offset += len(batch)
+            recent = [lot for lot in batch if lot not in exclude]
+            links = self._current_links(c, recent)
+            for lot in recent:
+                product = links[lot]["product"] if lot in links else None
+                if lot not in links or product not in taken or taken[product] >= n:
+                    continue
+                taken[product] += 1
+                for tbl, (tid, _) in links[lot]["tables"].items():
+                    if tbl in _plausible.JUDGED:
+                        wanted[tid] = (tbl, lot, product)
+            if len(batch) < n + len(exclude):
+                break  # the oldest lot was reached
+        history: dict[str, dict] = {}
+        ids = list(wanted)
+        for start in range(0, len(ids), _IN_CHUNK):
+            chunk = ids[start:start + _IN_CHUNK]
+            for tid, text in c.execute(f"SELECT lot_table_id, data_json FROM raw_rows WHERE lot_table_id IN "
+                                       f"({', '.join('?' * len(chunk))}) ORDER BY lot_table_id, seq", chunk):
+                tbl, lot, product = wanted[tid]
+                history.setdefault(tbl, {}).setdefault(product, {}).setdefault(lot, []).append(json.loads(text))
+        return history
 
     @staticmethod
     def _insert_lot_tables(c, ingest_id: int, batch: list[tuple]) -> None:

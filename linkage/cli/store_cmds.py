@@ -18,16 +18,21 @@ from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
 @click.option("--reason", default=None, metavar="TEXT",
               help="Why stored lots are revised (a deviation or correction number); required when any lot's "
                    "values change, recorded with the revision and in the audit trail.")
+@click.option("--accept-unusual", is_flag=True,
+              help="Take values far from the product's recent lots deliberately (refused otherwise as a likely unit "
+                   "mistake); needs --reason; each value is recorded in the audit trail.")
 @json_option
 @handle_errors
-def ingest(folder, store, reason, as_json):
+def ingest(folder, store, reason, accept_unusual, as_json):
     """Check every file in FOLDER and add its lots to the store.
 
     FOLDER holds one file a table (process.csv, ribbon.csv, granules.csv,
     granules_laser.csv, tablets.csv, tablet_weights.csv, dissolution.csv, or
     .xlsx), and optionally spec.toml and columns.toml (the lab's own headers
     and units). A lot whose values changed gets a new revision; the old one
-    is kept, and the revision carries --reason (refused without one).
+    is kept, and the revision carries --reason (refused without one). A
+    value far from the product's recent lots (a likely unit mistake) is
+    refused, with the mistake it looks like; --accept-unusual takes it.
     Sending the same files again changes nothing.
 
     On any problem every problem is listed (file, row, column, value, rule),
@@ -48,7 +53,7 @@ def ingest(folder, store, reason, as_json):
             known = existing.lot_ids()
     checked = read_folder(folder, known_lots=known)  # the store is created only for valid input
     with LotStore(store) as lot_store:
-        result = lot_store.ingest(checked, reason=reason)
+        result = lot_store.ingest(checked, reason=reason, accept_unusual=accept_unusual)
     if as_json:
         click.echo(json.dumps({**result.to_dict(), "store": str(store), "sources": checked.sources}, indent=2))
         return

@@ -1,0 +1,171 @@
+"""Plausibility against history: a value far from what the store holds is refused, with the likely unit mistake.
+
+The template's bounds are physical (a roll force of 0–100 kN/cm), so a
+site's unit slips pass them: a total roll force in kN in the kN/cm column, a
+dissolution result written as a fraction (0.963), a tablet weight in g. Each
+is far from the lots the store already holds for the same product. This
+module compares every judged column of an ingest with a sample of the
+product's recent lots (:data:`HISTORY_LOTS` at most, so an ingest costs the
+same however large the store is).
+
+The rule, per column, on a log scale (unit slips are factors): each
+history lot contributes the median of its rows (one value per lot, so a lot
+with 30 unit weights counts once); the median ``m`` of their base-10
+logarithms and the median absolute deviation give the robust scale
+``s = 1.4826 · MAD`` (the consistency constant of the MAD for a normal
+distribution: Rousseeuw & Croux 1993, J. Am. Stat. Assoc. 88:1273–1283,
+eq. 1), floored at 0.02 decades (about 5 %) so that a setting every lot
+shared (one mill screen) does not make every new value extreme. A positive
+value ``x`` with ``d = |log10 x − m|`` is *unusual* when ``d`` exceeds a
+factor of 3 (:data:`RATIO_LIMIT`) and either
+
+- a unit slip explains it: ``x`` divided or multiplied by 10, 100 or 1000
+  (or a roll force divided by the roll width in cm) lands within
+  ``max(3 s, log10 1.5)`` of ``m``, and ``d > 4 s``; or
+- ``d > 10 s``, explained or not.
+
+So a new design point at a quarter of the usual roll force passes, a
+dissolution written as a fraction or a breaking force in kN does not. The
+limits are common practice, no source; they are set for unit mistakes, not
+for drift (``linkage watch`` is for that). Zero and negative values are not
+judged on a log scale.
+
+History needs at least :data:`MIN_HISTORY_LOTS` lots of the product with a
+value; a column with fewer is not judged (said in no message: there is
+nothing to compare with). ``linkage ingest --accept-unusual --reason TEXT``
+takes unusual values deliberately; the audit trail records them.
+"""
+
+from __future__ import annotations
+
+import math
+from statistics import median
+
+from linkage.exceptions import Problem
+
+#: columns judged: lot-level quantities, one value or a few replicates per lot
+JUDGED: dict[str, tuple[str, ...]] = {
+    "process": ("roll_force_kn_per_cm", "roll_gap_mm", "roll_speed_rpm", "screw_speed_rpm", "mill_screen_mm",
+                "roll_width_mm", "roll_diameter_mm"),
+    "ribbon": ("envelope_density_g_cm3", "skeletal_density_g_cm3"),
+    "granules_laser": ("d10_um", "d50_um", "d90_um"),
+    "tablets": ("compression_force_kn", "breaking_force_n", "thickness_mm", "diameter_mm", "weight_rsd_pct",
+                "friability_pct", "dissolution_pct"),
+    "tablet_weights": ("weight_mg",),
+}
+HISTORY_LOTS = 50
+MIN_HISTORY_LOTS = 10
+#: robust SDs (log scale) beyond which an explained value is refused, and an unexplained one
+Z_EXPLAINED, Z_ANY = 4.0, 10.0
+#: a value within this factor of the usual one is never refused
+RATIO_LIMIT = 3.0
+#: scale of the MAD for a normal distribution, 1 / Phi^-1(3/4) (Rousseeuw & Croux 1993)
+MAD_SCALE = 1.4826
+#: floor of the robust scale, decades (about 5 %; common practice, no source)
+FLOOR_DECADES = 0.02
+#: a slip "explains" a value that it brings within this many decades (or 3 robust SDs, the larger)
+EXPLAINED_DECADES = math.log10(1.5)
+
+_FACTORS = ((10.0, "ten times too large"), (100.0, "a hundred times too large (% for a fraction?)"),
+            (1000.0, "a thousand times too large (mg for g, or N for kN?)"),
+            (0.1, "ten times too small"), (0.01, "a hundred times too small (a fraction for %?)"),
+            (0.001, "a thousand times too small (g for mg, or kN for N?)"))
+
+
+def robust_reference(lot_values: list[float]) -> tuple[float, float] | None:
+    """(median, robust scale) of the base-10 logarithms of positive per-lot values, or None with too few lots."""
+    logs = [math.log10(v) for v in lot_values if v is not None and math.isfinite(v) and v > 0]
+    if len(logs) < MIN_HISTORY_LOTS:
+        return None
+    m = median(logs)
+    mad = median(abs(v - m) for v in logs)
+    return m, max(MAD_SCALE * mad, FLOOR_DECADES)
+
+
+def likely_mistake(x: float, m: float, s: float, column: str, roll_width_mm: float | None = None) -> str | None:
+    """The unit slip that brings ``x`` near the usual value (``m``, ``s`` on the log10 scale), in words, or None."""
+    if x <= 0:
+        return None
+    near = max(3 * s, EXPLAINED_DECADES)
+    if column == "roll_force_kn_per_cm" and roll_width_mm and roll_width_mm > 0:
+        per_cm = x / (roll_width_mm / 10.0)
+        if abs(math.log10(per_cm) - m) <= near:
+            return (f"a total roll force in kN: divided by the roll width ({roll_width_mm:g} mm) it is "
+                    f"{per_cm:.3g} kN/cm, as usual; map it in columns.toml with unit = \"kN\"")
+    for factor, words in _FACTORS:
+        if abs(math.log10(x / factor) - m) <= near:
+            return f"{words}: {x:g} / {factor:g} = {x / factor:.4g} would be usual"
+    return None
+
+
+def is_unusual(x: float, m: float, s: float, explained: bool) -> bool:
+    """The rule of the module notes, for a value ``x`` against (``m``, ``s``) on the log10 scale."""
+    if not math.isfinite(x) or x <= 0:
+        return False
+    d = abs(math.log10(x) - m)
+    if d <= math.log10(RATIO_LIMIT):
+        return False
+    return d > Z_ANY * s or (explained and d > Z_EXPLAINED * s)
+
+
+def per_lot_medians(rows_by_lot: dict[str, list[dict]], column: str) -> list[float]:
+    """One value per lot: the median of the lot's rows that have the column."""
+    out = []
+    for rows in rows_by_lot.values():
+        values = [r[column] for r in rows if isinstance(r.get(column), (int, float)) and not isinstance(
+            r.get(column), bool)]
+        if values:
+            out.append(float(median(values)))
+    return out
+
+
+def unusual_values(ingest, history: dict[str, dict[str | None, dict[str, list[dict]]]],
+                   product_of: dict[str, str | None]) -> tuple[list[Problem], list[dict]]:
+    """Problems for every unusual value of the ingest, and the same as records (for the audit trail).
+
+    ``history[table][product][lot]`` holds the stored rows of the product's
+    recent lots; ``product_of`` maps each lot of the ingest to its product.
+    """
+    problems: list[Problem] = []
+    records: list[dict] = []
+    references: dict[tuple[str, str, str | None], tuple[float, float] | None] = {}
+    process = ingest.tables.get("process")
+    widths = {}
+    if process is not None and "roll_width_mm" in process:
+        widths = {lot: w for lot, w in zip(process["lot"].tolist(), process["roll_width_mm"].tolist())
+                  if isinstance(w, float) and math.isfinite(w)}
+    for table, columns in JUDGED.items():
+        df = ingest.tables.get(table)
+        if df is None or len(df) == 0:
+            continue
+        label = ingest.sources.get(table, {}).get("file", table)
+        rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
+        lots = df["lot"].tolist()
+        for column in columns:
+            if column not in df:
+                continue
+            for k, (lot, x) in enumerate(zip(lots, df[column].tolist())):
+                if not isinstance(x, float) or not math.isfinite(x):
+                    continue
+                product = product_of.get(lot)
+                key = (table, column, product)
+                if key not in references:
+                    references[key] = robust_reference(per_lot_medians(history.get(table, {}).get(product, {}),
+                                                                       column))
+                ref = references[key]
+                if ref is None:
+                    continue
+                m, s = ref
+                hint = likely_mistake(x, m, s, column, widths.get(lot))
+                if not is_unusual(x, m, s, explained=hint is not None):
+                    continue
+                typical = 10.0 ** m
+                rule = (f"unusual for {'product ' + product if product else 'this store'}: the recent lots have "
+                        f"{column} around {typical:.4g}, this value is {max(x / typical, typical / x):.3g} times "
+                        f"{'that' if x > typical else 'smaller'}" + (f"; it looks like {hint}" if hint else
+                                                                    "; a unit mistake?")
+                        + ". If it is right, ingest with --accept-unusual --reason TEXT")
+                problems.append(Problem(label, rule, row=rows[k], column=column, value=x))
+                records.append({"file": label, "row": rows[k], "lot": lot, "column": column, "value": x,
+                                "typical": typical, "robust_sd_log10": s})
+    return problems, records

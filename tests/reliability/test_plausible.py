@@ -1,0 +1,114 @@
+"""Plausibility against history (issue 15 item 3): the unit mistakes a site makes, each inside the template's
+broad physical bounds, refused with the likely mistake named; a deliberate unusual value taken with
+--accept-unusual --reason and recorded.
+
+The robust reference is the median and 1.4826 x MAD of the base-10 logarithms (Rousseeuw & Croux 1993,
+J. Am. Stat. Assoc. 88:1273, eq. 1), checked here against scipy.stats.median_abs_deviation(scale="normal"),
+the reference implementation. The limits (a factor of 3, 4 robust SDs explained, 10 unexplained) are common practice, no source.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from linkage.plausible import FLOOR_DECADES, RATIO_LIMIT, Z_ANY, is_unusual, likely_mistake, robust_reference
+from linkage.synthetic import make_lots
+
+from .helpers import run_cli
+
+
+def test_the_robust_reference_is_scipys_normal_scaled_mad_of_the_logs():
+    rng = np.random.default_rng(4)
+    values = list(rng.lognormal(np.log(85.0), 0.2, size=40))
+    m, s = robust_reference(values)
+    logs = np.log10(values)
+    assert m == pytest.approx(np.median(logs))
+    assert s == pytest.approx(stats.median_abs_deviation(logs, scale="normal"), rel=1e-4)  # 1.4826 = 1/Phi^-1(.75)
+    assert robust_reference(values[:9]) is None  # too few lots to judge
+    assert robust_reference([1.0] * 20) == (0.0, FLOOR_DECADES)  # one shared setting: the floor
+
+
+def test_the_rule_needs_a_factor_and_either_an_explanation_or_a_large_distance():
+    m, s = np.log10(8.0), 0.15  # roll forces of a design spanning about 4 to 14 kN/cm
+    assert not is_unusual(2.0, m, s, explained=False)         # a quarter of the usual force: a design point
+    assert not is_unusual(20.0, m, s, explained=True)         # explained but within a factor of 3
+    assert is_unusual(32.0, m, s, explained=True)             # a factor of 4 and 4 SDs, explained: a slip
+    assert not is_unusual(32.0, m, s, explained=False)        # the same distance unexplained: not refused
+    assert is_unusual(8.0 * 10 ** (Z_ANY * s + 0.01), m, s, explained=False)
+    assert RATIO_LIMIT == 3.0
+
+
+@pytest.mark.parametrize("x, words", [(0.856, "hundred times too small"), (8.5e3, "hundred times too large"),
+                                      (0.0856, "thousand times too small")])
+def test_the_likely_mistake_is_named(x, words):
+    assert words in likely_mistake(x, np.log10(85.6), 0.02, "dissolution_pct")
+
+
+def test_a_total_roll_force_is_named_as_such():
+    assert "total roll force" in likely_mistake(32.0, np.log10(8.0), 0.1, "roll_force_kn_per_cm", roll_width_mm=40.0)
+
+
+def _history_and_new_lot(tmp_path: Path, edit) -> tuple[Path, Path, Path]:
+    history, new = tmp_path / "history", tmp_path / "new"
+    lots = make_lots(31, seed=1, lot_prefix="H")
+    lots.write_csv(history)
+    new.mkdir()
+    for f in history.iterdir():  # the last lot goes in a folder of its own, edited
+        header, *rows = f.read_text().splitlines()
+        (history / f.name).write_text("\n".join([header, *[r for r in rows if not r.startswith("H-031,")]]) + "\n")
+        (new / f.name).write_text("\n".join([header, *[edit(f.stem, header, r) for r in rows
+                                                         if r.startswith("H-031,")]]) + "\n")
+    store = tmp_path / "s.db"
+    assert run_cli(["ingest", history, "--store", store]).exit_code == 0
+    return history, new, store
+
+
+def _set(table: str, column: str, fn):
+    def edit(stem, header, row):
+        if stem != table:
+            return row
+        cells = row.split(",")
+        k = header.split(",").index(column)
+        cells[k] = fn(float(cells[k]))
+        return ",".join(cells)
+    return edit
+
+
+@pytest.mark.parametrize("table, column, fn, words", [
+    ("tablets", "dissolution_pct", lambda v: f"{v / 100:.4f}", "hundred times too small"),
+    ("process", "roll_force_kn_per_cm", lambda v: f"{v * 4:.2f}", "total roll force"),
+    ("tablets", "breaking_force_n", lambda v: f"{v / 1000:.4f}", "thousand times too small"),  # kN for N
+])
+def test_a_unit_mistake_is_refused_with_file_row_and_the_mistake(tmp_path, table, column, fn, words, counts):
+    _, new, store = _history_and_new_lot(tmp_path, _set(table, column, fn))
+    before = store.read_bytes()
+    result = run_cli(["ingest", new, "--store", store])
+    assert result.exit_code == 2, result.output
+    assert f"{table}.csv" in result.stderr and f"column '{column}'" in result.stderr and "row 2" in result.stderr
+    assert words in result.stderr and "--accept-unusual" in result.stderr
+    assert store.read_bytes() == before
+    counts["fuzz cases tried"] += 1
+    counts["files refused"] += 1
+
+
+def test_a_usual_new_lot_is_taken(tmp_path):
+    _, new, store = _history_and_new_lot(tmp_path, lambda stem, header, row: row)
+    assert run_cli(["ingest", new, "--store", store]).exit_code == 0
+
+
+def test_an_unusual_value_taken_deliberately_is_recorded(tmp_path):
+    _, new, store = _history_and_new_lot(tmp_path, _set("tablets", "dissolution_pct", lambda v: f"{v / 100:.4f}"))
+    no_reason = run_cli(["ingest", new, "--store", store, "--accept-unusual"])
+    assert no_reason.exit_code == 2 and "--reason" in no_reason.stderr
+    taken = run_cli(["ingest", new, "--store", store, "--accept-unusual", "--reason", "DEV-9: fraction is right"])
+    assert taken.exit_code == 0, taken.output
+    audit = json.loads(run_cli(["audit", "--store", store, "--json"]).stdout)
+    entry = [a for a in audit if a["action"] == "ingest"][-1]
+    assert entry["inputs"]["reason"] == "DEV-9: fraction is right"
+    [record] = entry["inputs"]["accepted_unusual"]
+    assert record["lot"] == "H-031" and record["column"] == "dissolution_pct" and record["value"] < 1.0
