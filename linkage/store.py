@@ -529,8 +529,16 @@ class LotStore:
             with open(self.path, "rb") as fh:
                 if fh.read(16) != b"SQLite format 3\x00":
                     raise StoreError(f"{self.path} is not a SQLite file, so not a lot store")
+        #: a store on a read-only file system (or a file this account cannot write) is opened for reading only:
+        #: immutable, so SQLite neither writes its -shm file nor expects another writer (sqlite.org, "URI
+        #: filenames": immutable=1); every command that only reads works, and a write is refused clearly
+        self.read_only = exists and not (os.access(self.path, os.W_OK) and os.access(self.path.parent, os.W_OK))
         try:
-            self._conn = sqlite3.connect(self.path, timeout=busy_timeout_s, isolation_level=None)
+            if self.read_only:
+                uri = f"{self.path.resolve().as_uri()}?mode=ro&immutable=1"
+                self._conn = sqlite3.connect(uri, uri=True, timeout=busy_timeout_s, isolation_level=None)
+            else:
+                self._conn = sqlite3.connect(self.path, timeout=busy_timeout_s, isolation_level=None)
         except sqlite3.Error as exc:
             raise StoreError(f"cannot open the lot store {self.path}: {exc}") from None
         try:
@@ -567,6 +575,12 @@ class LotStore:
         else:
             shown = ", ".join(names[:6]) or "none"
             raise StoreError(f"{self.path} is an SQLite file but not a linkage lot store (tables: {shown})")
+        if self.read_only:
+            if version < 2:
+                raise StoreError(f"{self.path} was written by an earlier linkage (store schema {version}) and is "
+                                 "read-only here: open it once with write access to upgrade and seal it")
+            self.check_seals()
+            return
         c.execute("PRAGMA journal_mode = WAL")
         c.execute("PRAGMA synchronous = FULL")
         if version < 2:
@@ -637,6 +651,9 @@ class LotStore:
     @contextmanager
     def _write(self) -> Iterator[sqlite3.Connection]:
         """One write transaction: all of it or nothing."""
+        if self.read_only:
+            raise StoreError(f"the lot store {self.path} is read-only here (a read-only file system, or a file this "
+                             "account cannot write): it can be read, not changed; nothing was written")
         c = self._conn
         try:
             c.execute("BEGIN IMMEDIATE")

@@ -215,3 +215,25 @@ def test_the_library_raises_the_documented_error(store):
     with pytest.raises(StoreIntegrityError, match="prediction record 1 was changed") as info:
         LotStore(store)
     assert info.value.exit_code == 6
+
+
+def test_a_read_only_store_is_read_and_refuses_writes_clearly(store, monkeypatch):
+    """A store this account cannot write (a read-only file system): opened immutable and read-only (SQLite URI
+    parameters mode=ro and immutable=1, sqlite.org "URI filenames"); reading commands work, a write says why."""
+    real_access = os.access
+
+    def no_write(path, mode, *args, **kwargs):
+        if mode & os.W_OK and Path(path).resolve() in (store.resolve(), store.parent.resolve()):
+            return False
+        return real_access(path, mode, *args, **kwargs)
+
+    before = store.read_bytes()
+    monkeypatch.setattr(os, "access", no_write)
+    lots = run_cli(["lots", "--store", store, "--json"])
+    assert lots.exit_code == 0 and len(json.loads(lots.stdout)) == 4
+    assert run_cli(["assemble", "--store", store]).exit_code == 0
+    with LotStore(store) as s:
+        assert s.read_only
+        with pytest.raises(Exception, match="read-only here"):
+            s.log("window")
+    assert store.read_bytes() == before
