@@ -594,7 +594,12 @@ class LotStore:
         was checked, with the newest seal."""
         try:
             with self._snapshot():
-                problems, counts = _seal.check(self._conn, self.path, full=full)
+                problems = []
+                if full:  # SQLite's own check of every page and index (linear in the store's size)
+                    damage = [r[0] for r in self._conn.execute("PRAGMA integrity_check(20)")]
+                    problems += [] if damage == ["ok"] else [f"SQLite integrity_check: {d}" for d in damage]
+                found, counts = _seal.check(self._conn, self.path, full=full)
+                problems += found
                 counts["newest seal"] = dict(zip(("id", "sha256"), _seal.head(self._conn)))
         except sqlite3.DatabaseError as exc:
             raise StoreIntegrityError(f"lot store {self.path} is damaged: {exc}") from None
@@ -657,7 +662,7 @@ class LotStore:
         c = self._conn
         try:
             c.execute("BEGIN IMMEDIATE")
-        except sqlite3.OperationalError as exc:
+        except sqlite3.DatabaseError as exc:
             raise self._error(exc) from None
         try:
             yield c
@@ -665,7 +670,7 @@ class LotStore:
         except BaseException as exc:
             if c.in_transaction:
                 c.execute("ROLLBACK")
-            if isinstance(exc, sqlite3.OperationalError):
+            if isinstance(exc, sqlite3.DatabaseError):
                 raise self._error(exc) from None
             raise
         if c.execute("SELECT 1 FROM sqlite_master WHERE name = 'seals'").fetchone():
@@ -674,7 +679,7 @@ class LotStore:
     def _read(self, sql: str, params: tuple = ()) -> list[tuple]:
         try:
             return self._conn.execute(sql, params).fetchall()
-        except sqlite3.OperationalError as exc:
+        except sqlite3.DatabaseError as exc:
             raise self._error(exc) from None
 
     @property
@@ -920,7 +925,7 @@ class LotStore:
                 ids, text = zip(*chunk)
                 tids.append(np.array(ids, dtype=np.int64))
                 texts.extend(text)
-        except sqlite3.OperationalError as exc:
+        except sqlite3.DatabaseError as exc:
             raise self._error(exc) from None
         return (np.concatenate(tids) if tids else np.zeros(0, dtype=np.int64)), np.array(texts, dtype=object)
 
@@ -975,7 +980,7 @@ class LotStore:
             return
         try:
             c.execute("BEGIN")
-        except sqlite3.OperationalError as exc:
+        except sqlite3.DatabaseError as exc:
             raise self._error(exc) from None
         try:
             yield

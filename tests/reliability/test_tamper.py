@@ -19,6 +19,7 @@ import shutil
 import sqlite3
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from linkage import seal
@@ -237,3 +238,31 @@ def test_a_read_only_store_is_read_and_refuses_writes_clearly(store, monkeypatch
         with pytest.raises(Exception, match="read-only here"):
             s.log("window")
     assert store.read_bytes() == before
+
+
+def test_random_bytes_in_the_middle_of_the_store_stop_every_command_without_a_traceback(store, tmp_path, counts):
+    """8 KiB of random bytes written over the middle of the file (the tester's case): no traceback, no ingest
+    into it, the file unchanged by the attempts. SQLite's own checks (quick_check, "database disk image is
+    malformed") or the seals find it; which one depends on the pages hit."""
+    con = sqlite3.connect(store)
+    con.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+    con.close()
+    whole = run_cli(["assemble", "--store", store]).output
+    data = bytearray(store.read_bytes())
+    mid = len(data) // 2
+    data[mid:mid + 8192] = np.random.default_rng(7).integers(0, 256, 8192, dtype=np.uint8).tobytes()
+    store.write_bytes(bytes(data))
+    damaged = store.read_bytes()
+    folder = tmp_path / "more"
+    shutil.copytree(EXAMPLE, folder)
+    for name in folder.glob("*.csv"):
+        name.write_text(name.read_text().replace("EX-0", "NEW-0"))
+    for args in (["lots"], ["ingest", folder], ["verify"]):
+        result = run_cli([*args, "--store", store])
+        assert result.exit_code != 0 and "Traceback" not in result.output, (args, result.output)
+        assert str(store) in result.output, (args, result.output)
+    assemble = run_cli(["assemble", "--store", store])  # the pages it reads may be whole: then it reads right
+    assert "Traceback" not in assemble.output
+    assert (assemble.exit_code != 0 and "Error:" in assemble.stderr) or assemble.output == whole
+    assert store.read_bytes() == damaged
+    counts["tamper cases detected"] += 1
