@@ -47,13 +47,12 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Callable, Iterable, Mapping
 
-from linkage.results import Ingested, Trained, Watched, WhatIfResult, Window
+from linkage.results import Ingested, Retrained, Trained, Watched, WhatIfResult, Window
 from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN, DEFAULT_FINES_CUTOFF_UM
 
 if TYPE_CHECKING:
     import pandas as pd
 
-    from linkage.decide.retrain import RetrainDecision
     from linkage.models.chain import ChainSpec
     from linkage.models.fitted import FittedChain
     from linkage.spec import Spec
@@ -245,14 +244,14 @@ def models(models_dir=DEFAULT_MODELS_DIR) -> pd.DataFrame:
 
 def retrain(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, spec=None, product: str | None = None,
             tolerance: float = 0.10, force: bool = False, reason: str | None = None,
-            progress: Progress | None = None) -> RetrainDecision:
+            progress: Progress | None = None) -> Retrained:
     """Fit a challenger on every lot and promote it over the champion only by
     the documented rule (``linkage retrain``); see
     :func:`linkage.decide.retrain.retrain`. Logs ``retrain`` or ``promote``."""
     from linkage.decide.retrain import retrain as run_retrain
 
-    return run_retrain(store, models_dir, product=product, spec=_spec(spec), force=force, reason=reason,
-                       tolerance=tolerance, progress=progress)
+    return Retrained(run_retrain(store, models_dir, product=product, spec=_spec(spec), force=force, reason=reason,
+                                 tolerance=tolerance, progress=progress))
 
 
 # --------------------------------------------------------------------------- decisions
@@ -460,7 +459,7 @@ class Workspace:
         """See :func:`models`."""
         return models(self.models_dir)
 
-    def retrain(self, **kwargs) -> RetrainDecision:
+    def retrain(self, **kwargs) -> Retrained:
         """See :func:`retrain`."""
         return retrain(self.store, self.models_dir, **kwargs)
 

@@ -20,6 +20,7 @@ from linkage import CAUTION
 if TYPE_CHECKING:
     import pandas as pd
 
+    from linkage.decide.retrain import RetrainDecision
     from linkage.decide.watch import WatchResult
     from linkage.decide.whatif import WhatIf
     from linkage.decide.window import WindowResult
@@ -406,14 +407,14 @@ class WhatIfResult(_Result):
         and the interval ``low``–``high`` (after the physical projection),
         ``p_pass`` where a spec was given, and ``projected`` (the model's
         number was moved into the physical range)."""
-        rows = []
-        for name, p in self.result.predictions.items():
-            row = {"attribute": name, "value": p["value"], "low": p["low"], "high": p["high"]}
-            if "p_pass" in p:
-                row["p_pass"] = p["p_pass"]
-            row["projected"] = bool(p.get("projected"))
-            rows.append(row)
-        return _frame(rows, "attribute")
+        import pandas as pd
+
+        preds = self.result.predictions
+        columns = ["attribute", "value", "low", "high"]
+        columns += ["p_pass"] * any("p_pass" in p for p in preds.values()) + ["projected"]
+        rows = [{"attribute": name, "value": p["value"], "low": p["low"], "high": p["high"],
+                 "p_pass": p.get("p_pass"), "projected": bool(p.get("projected"))} for name, p in preds.items()]
+        return pd.DataFrame(rows, columns=columns).set_index("attribute")
 
     def __repr__(self) -> str:
         r = self.result
@@ -470,3 +471,50 @@ class Watched(_Result):
         r = self.result
         return (f"<Watched model {r.model_id}: {self.n_lots} lots, {len(r.new_lots)} since training, "
                 f"{len(r.alarms)} alarm(s)>")
+
+
+# --------------------------------------------------------------------------- retrain
+
+
+@dataclass(repr=False)
+class Retrained(_Result):
+    """A challenger fitted on every lot and the promotion decision
+    (``linkage retrain``): ``result`` is the library's
+    :class:`~linkage.decide.retrain.RetrainDecision`."""
+
+    result: RetrainDecision
+
+    def to_dict(self) -> dict:
+        """What ``linkage retrain --json`` prints."""
+        return self.result.to_dict()
+
+    def text(self) -> str:
+        d = self.result.to_dict()
+        verdict = "PROMOTED" if d["promoted"] else "NOT PROMOTED"
+        lines = [f"Challenger {d['challenger_id']} {verdict}; champion was {d['champion_id']}.",
+                 f"New lots since the champion: {len(d['new_lots'])}"]
+        lines += [f"  - {line}" for line in d["reasons"]]
+        if d["window_moved"]:
+            w = d["window_moved"]
+            for side in ("low", "high"):
+                a, b = w["champion"][side]["value"], w["challenger"][side]["value"]
+                if a is None or b is None:
+                    lines.append(f"  window {side} edge: champion {a}, challenger {b}")
+                else:
+                    lines.append(f"  window {side} edge: {a:.3f} -> {b:.3f} ({b - a:+.3f})")
+        lines += [f"Note: {note}" for note in d["notes"]]
+        lines += [f"Rule: {d['rule']}", CAUTION]
+        return "\n".join(lines)
+
+    def summary(self) -> pd.DataFrame:
+        """One row per attribute (index ``attribute``): the challenger's and
+        the champion's selected models and CV RMSE on the same folds, the
+        champion's error on the lots it never saw, and whether the attribute
+        passes the rule (``within_noise``, ``within_tolerance``)."""
+        return _frame([c.to_dict() for c in self.result.comparisons], "attribute")
+
+    def __repr__(self) -> str:
+        r = self.result
+        verdict = "promoted" + (" (forced)" if r.forced else "") if r.promoted else "not promoted"
+        return (f"<Retrained challenger {r.challenger_id} {verdict} over {r.champion_id}; "
+                f"{len(r.new_lots)} new lot(s)>")

@@ -7,7 +7,6 @@ from pathlib import Path
 
 import click
 
-from linkage import CAUTION
 from linkage.cli.common import handle_errors, json_option, models_dir_option, progress_bars, store_option
 
 _spec_option = click.option("--spec", "spec_path", type=click.Path(exists=True, dir_okay=False, path_type=Path),
@@ -37,7 +36,7 @@ def retrain(store, models_dir, spec_path, product, tolerance, force, reason, as_
       linkage ingest lab_exports/june && linkage retrain --spec spec.toml
       linkage retrain --force --reason "new API supplier qualified, see CC-118"
     """
-    from linkage.decide.retrain import retrain as run_retrain
+    from linkage.api import retrain as run_retrain
 
     spec = None
     if spec_path is not None:
@@ -50,24 +49,7 @@ def retrain(store, models_dir, spec_path, product, tolerance, force, reason, as_
     if as_json:
         click.echo(json.dumps(decision.to_dict(), indent=2, allow_nan=False))
         return
-    d = decision.to_dict()
-    verdict = "PROMOTED" if d["promoted"] else "NOT PROMOTED"
-    click.echo(f"Challenger {d['challenger_id']} {verdict}; champion was {d['champion_id']}.")
-    click.echo(f"New lots since the champion: {len(d['new_lots'])}")
-    for line in d["reasons"]:
-        click.echo(f"  - {line}")
-    if d["window_moved"]:
-        w = d["window_moved"]
-        for side in ("low", "high"):
-            a, b = w["champion"][side]["value"], w["challenger"][side]["value"]
-            if a is None or b is None:
-                click.echo(f"  window {side} edge: champion {a}, challenger {b}")
-            else:
-                click.echo(f"  window {side} edge: {a:.3f} -> {b:.3f} ({b - a:+.3f})")
-    for note in d["notes"]:
-        click.echo(f"Note: {note}")
-    click.echo(f"Rule: {d['rule']}")
-    click.echo(CAUTION)
+    click.echo(decision.text())
 
 
 @click.command()
