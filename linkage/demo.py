@@ -46,18 +46,14 @@ class DemoOutputs:
 def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
              step: Callable[[str], None] | None = None,
              progress: Callable[[str, int, int], None] | None = None) -> DemoOutputs:
-    """Run every step on the demo data and return where each output went."""
-    from linkage.assemble import assemble
-    from linkage.decide.whatif import predict_whatif
-    from linkage.decide.window import find_window
+    """Run every step on the demo data and return where each output went.
+
+    Every step goes through the Python API (:mod:`linkage.api`), so the
+    demo's store keeps the audit trail the commands would leave."""
+    from linkage.api import Workspace
     from linkage.exceptions import UsageError
     from linkage.export import write_table_csv
-    from linkage.models.registry import save
-    from linkage.models.train import train_chain
-    from linkage.read import read_folder
-    from linkage.report.html import build_report
     from linkage.report.sheet import whatif_html
-    from linkage.store import LotStore
 
     lots_dir = Path(data) / "lots"
     if not lots_dir.is_dir():
@@ -80,49 +76,42 @@ def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
         seconds[name] = round(now - clock, 2)
         clock = now
 
+    lab = Workspace(store_path, models_dir=models_dir)
     say(f"ingesting {lots_dir}")
-    first = read_folder(lots_dir)
-    with LotStore(store_path) as store:
-        store.ingest(first)
-        remeasured = Path(data) / "remeasured"
-        if remeasured.is_dir():
-            say(f"ingesting the re-measured lot from {remeasured}")
-            store.ingest(read_folder(remeasured), reason="demo: ribbon densities of one lot re-measured")
-        tables = store.current_tables()
-    spec = first.spec
+    spec = lab.ingest(lots_dir).spec
+    remeasured = Path(data) / "remeasured"
+    if remeasured.is_dir():
+        say(f"ingesting the re-measured lot from {remeasured}")
+        lab.ingest(remeasured, reason="demo: ribbon densities of one lot re-measured")
     lap("ingest")
 
     say("assembling one row per lot")
-    q = spec.limits["dissolution_pct"].min if spec and "dissolution_pct" in spec.limits else None
-    table = assemble(tables, dissolution_time_min=spec.dissolution_time_min if spec else 30.0,
-                     dissolution_q_pct=q)
+    table = lab.assemble(spec=spec)
     assembled = out / "assembled.csv"
     write_table_csv(table, assembled)
     lap("assemble")
 
     say("training the chain (grouped cross-validation by lot)")
-    chain = train_chain(table, seed=0, progress=progress)
-    model_id = save(chain, models_dir)
+    trained = lab.train(spec=spec, seed=0, progress=progress)
+    model_id = trained.model_id
     lap("train")
 
     say("finding the porosity window")
-    window = find_window(chain, spec, confidence=0.9)
+    window = lab.window(spec, model=trained, confidence=0.9)
     window_json = out / "window.json"
     window_json.write_text(json.dumps(window.to_dict(), indent=2), encoding="utf-8")
     lap("window")
 
     say("writing a what-if sheet")
     middle = (window.low.value + window.high.value) / 2 if window.found else float(
-        chain.training["medians"]["ribbon_porosity"])
-    whatif = predict_whatif(chain, {"ribbon_porosity": round(middle, 3)}, spec=spec)
+        trained.chain.training["medians"]["ribbon_porosity"])
+    whatif = lab.whatif({"ribbon_porosity": round(middle, 3)}, spec=spec, model=trained)
     sheet = out / "whatif.html"
-    sheet.write_text(whatif_html(whatif), encoding="utf-8")
+    sheet.write_text(whatif_html(whatif.result), encoding="utf-8")
     lap("what-if")
 
     say("writing the report")
-    with LotStore(store_path) as store:
-        lots = store.lots()
-    report = build_report(chain, table, spec=spec, window=window, lots=lots, out_path=out / "report.html")
+    report = lab.report(out / "report.html", spec=spec, model=trained, window=window)
     lap("report")
     return DemoOutputs(folder=out, store=store_path, models_dir=models_dir, model_id=model_id,
                        assembled=assembled, window_json=window_json, whatif_html=sheet,

@@ -7,7 +7,6 @@ from pathlib import Path
 
 import click
 
-from linkage import CAUTION
 from linkage.cli.common import handle_errors, json_option, models_dir_option, progress_bars, store_option
 
 _spec_option = click.option("--spec", "spec_path", type=click.Path(exists=True, dir_okay=False, path_type=Path),
@@ -37,7 +36,7 @@ def retrain(store, models_dir, spec_path, product, tolerance, force, reason, as_
       linkage ingest lab_exports/june && linkage retrain --spec spec.toml
       linkage retrain --force --reason "new API supplier qualified, see CC-118"
     """
-    from linkage.decide.retrain import retrain as run_retrain
+    from linkage.api import retrain as run_retrain
 
     spec = None
     if spec_path is not None:
@@ -50,24 +49,7 @@ def retrain(store, models_dir, spec_path, product, tolerance, force, reason, as_
     if as_json:
         click.echo(json.dumps(decision.to_dict(), indent=2, allow_nan=False))
         return
-    d = decision.to_dict()
-    verdict = "PROMOTED" if d["promoted"] else "NOT PROMOTED"
-    click.echo(f"Challenger {d['challenger_id']} {verdict}; champion was {d['champion_id']}.")
-    click.echo(f"New lots since the champion: {len(d['new_lots'])}")
-    for line in d["reasons"]:
-        click.echo(f"  - {line}")
-    if d["window_moved"]:
-        w = d["window_moved"]
-        for side in ("low", "high"):
-            a, b = w["champion"][side]["value"], w["challenger"][side]["value"]
-            if a is None or b is None:
-                click.echo(f"  window {side} edge: champion {a}, challenger {b}")
-            else:
-                click.echo(f"  window {side} edge: {a:.3f} -> {b:.3f} ({b - a:+.3f})")
-    for note in d["notes"]:
-        click.echo(f"Note: {note}")
-    click.echo(f"Rule: {d['rule']}")
-    click.echo(CAUTION)
+    click.echo(decision.text())
 
 
 @click.command()
@@ -90,47 +72,18 @@ def watch(store, models_dir, model_id, spec_path, product, as_json):
       linkage watch --spec spec.toml
       linkage watch --json > drift.json
     """
-    from linkage.assemble import assemble
-    from linkage.decide.watch import watch as run_watch
-    from linkage.models.registry import load
-    from linkage.store import LotStore
+    from linkage.api import watch as run_watch
 
-    chain = load(models_dir, model_id)
     spec = None
-    window = None
     if spec_path is not None:
-        from linkage.decide.window import find_window
         from linkage.spec import read_spec
 
         spec = read_spec(spec_path)
-        w = find_window(chain, spec)
-        window = (w.low.value, w.high.value) if w.found else None
-    with LotStore(store, create=False) as s:
-        tables = s.current_tables(product)
-        recorded = s.predictions()
-    table = assemble(tables, dissolution_time_min=spec.dissolution_time_min if spec else 30.0)
-    result = run_watch(chain, table, ribbon=tables.get("ribbon"), window=window, recorded=recorded)
-    with LotStore(store, create=False) as s:
-        s.log("watch", model_id=chain.model_id, inputs={"window": window, "product": product},
-              outputs={"alarms": result.alarms, "new_lots": result.new_lots})
+    result = run_watch(store=store, models_dir=models_dir, model=model_id, spec=spec, product=product)
     if as_json:
         click.echo(json.dumps(result.to_dict(), indent=2, allow_nan=False))
         return
-    click.echo(f"Model {result.model_id}; {len(table)} lots, {len(result.new_lots)} since training.")
-    if window:
-        click.echo(f"Porosity window used for ribbon samples: {window[0]:.3f}–{window[1]:.3f}")
-    alarms = result.alarms
-    if not alarms:
-        click.echo("No alarm on the lots since training.")
-    else:
-        click.echo(f"{len(alarms)} alarm(s) on lots since training:")
-        for a in alarms:
-            click.echo(f"  ! {a}")
-    for p in result.predictions:
-        mark = "inside" if p["inside_interval"] else "OUTSIDE"
-        click.echo(f"  what-if for {p['lot']}: {p['attribute']} predicted {p['predicted']:.4g} "
-                   f"[{p['low']:.4g}, {p['high']:.4g}], measured {p['measured']:.4g} ({mark} the interval)")
-    click.echo(CAUTION)
+    click.echo(result.text())
 
 
 @click.command()

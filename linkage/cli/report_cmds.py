@@ -37,33 +37,13 @@ def report(model_id, spec_path, out_path, confidence, seed, store, models_dir):
       linkage report --spec spec.toml
       linkage report --model latest --spec spec.toml --out reports/may.html
     """
-    from linkage.assemble import assemble
-    from linkage.exceptions import InsufficientDataError, UsageError
-    from linkage.models.registry import load
-    from linkage.report.html import build_report
-    from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN
-    from linkage.store import LotStore
+    from linkage.api import report as write_report
 
-    if not 0 < confidence < 1:
-        raise UsageError(f"--confidence must lie between 0 and 1; got {confidence}")
     spec = None
     if spec_path is not None:
         from linkage.spec import read_spec
 
         spec = read_spec(spec_path)
-    chain = load(models_dir, model_id)
-    products = chain.training.get("products") or []
-    product = products[0] if len(products) == 1 else None
-    with LotStore(store, create=False) as lot_store:
-        tables = lot_store.current_tables(product=product)
-        lots = lot_store.lots(product=product)
-    if not tables:
-        raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
-                                                                          else "") + "; nothing to report on")
-    q = spec.limits["dissolution_pct"].min if spec and "dissolution_pct" in spec.limits else None
-    table = assemble(tables, dissolution_time_min=spec.dissolution_time_min if spec else DEFAULT_DISSOLUTION_TIME_MIN,
-                     dissolution_q_pct=q)
-    out = out_path if out_path is not None else Path("reports") / f"report-{chain.model_id}.html"
-    path = build_report(chain, table, spec=spec, lots=lots, out_path=out, confidence=confidence,
-                        seed=seed)
+    path = write_report(out_path, store=store, models_dir=models_dir, model=model_id, spec=spec,
+                        confidence=confidence, seed=seed)
     click.echo(str(path))

@@ -9,6 +9,7 @@ from pathlib import Path
 import click
 
 from linkage.cli.common import FiniteFloat, handle_errors, json_option, models_dir_option, store_option
+from linkage.results import _rows
 from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
 
 
@@ -44,31 +45,13 @@ def ingest(folder, store, reason, accept_unusual, as_json):
       linkage ingest lab_exports/2024-05 --store site.db --json
       linkage ingest corrections/ --reason "DEV-2024-031: envelope density re-measured"
     """
-    from linkage.read import read_folder
-    from linkage.store import LotStore
+    from linkage.api import ingest as run_ingest
 
-    known: list[str] = []
-    if store.exists() and store.stat().st_size > 0:  # an empty file is what a killed first ingest leaves
-        with LotStore(store, create=False) as existing:
-            known = existing.lot_ids()
-    checked = read_folder(folder, known_lots=known)  # the store is created only for valid input
-    with LotStore(store) as lot_store:
-        result = lot_store.ingest(checked, reason=reason, accept_unusual=accept_unusual)
+    result = run_ingest(folder, store, reason=reason, accept_unusual=accept_unusual)
     if as_json:
-        click.echo(json.dumps({**result.to_dict(), "store": str(store), "sources": checked.sources}, indent=2))
+        click.echo(json.dumps(result.to_dict(), indent=2))
         return
-    click.echo(f"Ingest {result.ingest_id} into {store} from {folder}:")
-    for src in checked.sources.values():
-        click.echo(f"  {src['file']:<28} {_rows(src['rows'])}")
-    for label, lots in (("New", result.lots_new), ("Revised", result.lots_revised),
-                        ("Unchanged", result.lots_unchanged)):
-        click.echo(f"{label} lots ({len(lots)}): {', '.join(lots) if lots else '-'}")
-    if not result.changed:
-        click.echo("Nothing changed: every lot is as stored.")
-    if result.warnings:
-        click.echo("Warnings:")
-        for w in result.warnings:
-            click.echo(f"  - {w}")
+    click.echo(result.text())
 
 
 @click.command()
@@ -159,23 +142,13 @@ def assemble(store, out, product, fines_cutoff_um, spec_path):
       linkage assemble --out lots.csv
       linkage assemble --spec spec.toml --product ABC-10mg --fines-cutoff-um 90
     """
-    from linkage.assemble import assemble as assemble_table
-    from linkage.exceptions import InsufficientDataError
+    from linkage.api import assemble as assemble_lots
     from linkage.export import write_table_csv
     from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN
     from linkage.spec import read_spec
-    from linkage.store import LotStore
 
     spec = read_spec(spec_path) if spec_path is not None else None
-    with LotStore(store, create=False) as lot_store:
-        tables = lot_store.current_tables(product=product)
-    if not tables:
-        raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
-                                                                          else "") + "; nothing to assemble")
-    q = spec.limits["dissolution_pct"].min if spec and "dissolution_pct" in spec.limits else None
-    table = assemble_table(tables, fines_cutoff_um=fines_cutoff_um,
-                           dissolution_time_min=spec.dissolution_time_min if spec else DEFAULT_DISSOLUTION_TIME_MIN,
-                           dissolution_q_pct=q)
+    table = assemble_lots(store, product=product, spec=spec, fines_cutoff_um=fines_cutoff_um)
     time_min = table.attrs.get("dissolution_time_min", DEFAULT_DISSOLUTION_TIME_MIN)
     click.echo(f"Assembled {len(table)} lots x {table.shape[1]} columns from {store} "
                f"(fines below {fines_cutoff_um:g} um, dissolution at {time_min:g} min).")
@@ -200,8 +173,6 @@ def assemble(store, out, product, fines_cutoff_um, spec_path):
         click.echo(f"Note: {note}")
 
 
-def _rows(n) -> str:
-    return "" if n is None else f"{n} row{'s' if n != 1 else ''}"
 
 
 def _plain(value):

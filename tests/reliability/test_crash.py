@@ -52,7 +52,7 @@ BATCH_LOTS = 150
 N_FIRST_INGEST_KILLS = 6
 N_TRAIN_KILLS = 12
 N_SAVE_KILLS = 25
-STORE_MODULES = ["pandas", "linkage.read", "linkage.store", "linkage.assemble", "linkage.cli.store_cmds"]
+STORE_MODULES = ["pandas", "linkage.read", "linkage.store", "linkage.assemble", "linkage.api", "linkage.cli.store_cmds"]
 MODEL_MODULES = STORE_MODULES + ["sklearn.cross_decomposition", "sklearn.linear_model", "sklearn.ensemble",
                                  "sklearn.model_selection", "linkage.models.train", "linkage.models.registry",
                                  "linkage.cli.model_cmds", "threadpoolctl", "joblib"]

@@ -1,0 +1,491 @@
+"""The Python API: the whole job in a few calls, each writing the same records
+as the command of the same name.
+
+>>> import linkage
+>>> lab = linkage.Workspace("site.db", models_dir="models")      # doctest: +SKIP
+>>> lab.ingest("lab_exports/june")                                # doctest: +SKIP
+>>> trained = lab.train()                                         # doctest: +SKIP
+>>> window = lab.window("spec.toml", settings={"roll_gap_mm": 2.5})  # doctest: +SKIP
+
+The functions here take the lot store (``store``) and the model registry
+(``models_dir``) as arguments; :class:`Workspace` holds both and passes them
+on. The commands (``linkage ingest``, ``train``, ...) call these functions
+and print what they return, so a Python caller and a command leave the same
+entries in the store's audit trail:
+
+=================  ===================================================  ==============================
+call               what it does                                         recorded in the store
+=================  ===================================================  ==============================
+:func:`ingest`     check a folder of lab exports, add it in one          ``ingest`` (by the store)
+                   transaction
+:func:`assemble`   one row per lot with the derived quantities           —
+:func:`train`      fit the chain under grouped CV, register the model    ``train``
+:func:`window`     the ribbon porosity window under a spec               ``window`` (when the store
+                                                                         exists)
+:func:`whatif`     one what-if through the chain (:func:`whatif_rows`:   ``predict`` and the prediction
+                   one per row)                                          (when the store exists)
+:func:`report`     the self-contained HTML report                        —
+:func:`watch`      the drift watch                                       ``watch``
+:func:`retrain`    a challenger, promoted only by the rule               ``retrain`` or ``promote``
+:func:`audit`      the audit trail, as a DataFrame                       —
+=================  ===================================================  ==============================
+
+A spec is a :class:`~linkage.spec.Spec` or the path of a ``spec.toml``; a
+model is a model id, ``"latest"`` (the newest model in service), or the
+:class:`~linkage.results.Trained` that :func:`train` returned. Errors are the
+library's (:mod:`linkage.exceptions`): bad input raises ``InputError``,
+``SpecError`` or ``UsageError`` naming every problem, and nothing is written.
+
+This module imports neither pandas nor scikit-learn until a call needs them:
+a what-if (``linkage predict``) runs on numpy alone.
+"""
+
+from __future__ import annotations
+
+import contextlib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import TYPE_CHECKING, Callable, Iterable, Mapping
+
+from linkage.results import Ingested, Retrained, Trained, Watched, WhatIfResult, Window
+from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN, DEFAULT_FINES_CUTOFF_UM
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from linkage.models.chain import ChainSpec
+    from linkage.models.fitted import FittedChain
+    from linkage.spec import Spec
+
+__all__ = ["Workspace", "ingest", "assemble", "train", "window", "whatif", "whatif_rows", "report", "watch",
+           "retrain", "audit", "models", "record"]
+
+#: a progress callback: ``progress(label, done, total)``
+Progress = Callable[[str, int, int], None]
+DEFAULT_STORE = "linkage.db"
+DEFAULT_MODELS_DIR = "models"
+
+
+def _spec(spec) -> Spec | None:
+    """A Spec as given, or read from a path."""
+    if spec is None:
+        return None
+    from linkage.spec import Spec, read_spec
+
+    return spec if isinstance(spec, Spec) else read_spec(Path(spec))
+
+
+def _fitted(models_dir, model) -> FittedChain:
+    """The fitted chain of ``model``: an id or "latest" (loaded from the
+    registry, its hashes checked), a :class:`Trained`, or a fitted chain."""
+    if model is None or isinstance(model, str):
+        from linkage.models.registry import load
+
+        return load(models_dir, model)
+    return model.chain if isinstance(model, Trained) else model
+
+
+def _time_and_q(spec: Spec | None, dissolution_time_min: float | None) -> dict:
+    """The dissolution time point and Q to assemble with: the spec's, unless
+    a time point is given."""
+    if dissolution_time_min is None:
+        dissolution_time_min = spec.dissolution_time_min if spec is not None else DEFAULT_DISSOLUTION_TIME_MIN
+    q = spec.limits["dissolution_pct"].min if spec is not None and "dissolution_pct" in spec.limits else None
+    return {"dissolution_time_min": dissolution_time_min, "dissolution_q_pct": q}
+
+
+def record(store, action: str, *, model_id: str | None, inputs, outputs, lot: str | None = None,
+           prediction: bool = False) -> bool:
+    """Append an entry to the store's audit trail (and, for a what-if, keep
+    the prediction) when the store exists. Returns whether it was recorded:
+    no store, no record (a what-if may be asked with no store at all)."""
+    if store is None or not Path(store).exists():
+        return False
+    from linkage.store import LotStore
+
+    with LotStore(store, create=False) as s:
+        if prediction:
+            s.record_prediction(model_id, inputs, outputs, lot=lot)
+        s.log(action, lot=lot, model_id=model_id, inputs=inputs, outputs=outputs)
+    return True
+
+
+# --------------------------------------------------------------------------- the store
+
+
+def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unusual: bool = False) -> Ingested:
+    """Check every file in ``folder`` and add its lots to the lot store at
+    ``store`` (created on the first valid ingest) in one transaction. Every
+    problem of the folder is raised at once (``InputError``), and then
+    nothing is written. A lot whose values change gets a new revision, which
+    needs a ``reason`` (a deviation or correction number); it is recorded
+    with the revision. A value far from the product's recent lots (a likely
+    unit mistake, see :mod:`linkage.plausible`) is refused unless
+    ``accept_unusual`` (with a ``reason``). The store logs the ingest in its
+    audit trail."""
+    from linkage.read import read_folder
+    from linkage.store import LotStore
+
+    folder, store = Path(folder), Path(store)
+    known: list[str] = []
+    if store.exists() and store.stat().st_size > 0:  # an empty file is what a killed first ingest leaves
+        with LotStore(store, create=False) as existing:
+            known = existing.lot_ids()
+    checked = read_folder(folder, known_lots=known)  # the store is created only for valid input
+    with LotStore(store) as lot_store:
+        result = lot_store.ingest(checked, reason=reason, accept_unusual=accept_unusual)
+    return Ingested(store=store, folder=folder, result=result, sources=checked.sources, spec=checked.spec)
+
+
+def assemble(store=DEFAULT_STORE, *, product: str | None = None, spec=None,
+             fines_cutoff_um: float = DEFAULT_FINES_CUTOFF_UM,
+             dissolution_time_min: float | None = None) -> pd.DataFrame:
+    """One row per lot (the latest revision of each) with the derived
+    quantities; see :func:`linkage.assemble.assemble`. With a ``spec``, its
+    dissolution time point (unless ``dissolution_time_min`` is given) and its
+    Q for the USP <711> verdict are used."""
+    from linkage.assemble import assemble as assemble_table
+    from linkage.exceptions import InsufficientDataError
+    from linkage.store import LotStore
+
+    spec = _spec(spec)
+    with LotStore(store, create=False) as lot_store:
+        tables = lot_store.current_tables(product=product)
+    if not tables:
+        raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
+                                                                          else "") + "; nothing to assemble")
+    return assemble_table(tables, fines_cutoff_um=fines_cutoff_um, **_time_and_q(spec, dissolution_time_min))
+
+
+# --------------------------------------------------------------------------- models
+
+
+@contextlib.contextmanager
+def _cluster(backend: str | None, scheduler: str | None):
+    """A Dask client for ``backend="dask"`` (at ``scheduler``, else Dask's
+    configured address, else a local cluster); nothing otherwise."""
+    from linkage.exceptions import UsageError
+
+    if scheduler is not None and backend != "dask":
+        raise UsageError("--scheduler goes with --backend dask")
+    if backend != "dask":
+        yield
+        return
+    try:
+        from dask.distributed import Client
+    except ImportError:
+        raise UsageError("--backend dask needs Dask's distributed scheduler: install the 'distributed' extra "
+                         "(pip install 'linkage[distributed]')") from None
+    try:
+        client = Client(scheduler)
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise UsageError(f"cannot reach the Dask scheduler {scheduler or '(from the Dask configuration)'}: "
+                         f"{exc}") from None
+    with client:
+        yield
+
+
+def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpec | str | Path | None = None,
+          product: str | None = None, seed: int = 0, coverage: float = 0.9, spec=None,
+          dissolution_time_min: float | None = None, n_jobs: int | None = None, backend: str | None = None,
+          scheduler: str | None = None, progress: Progress | None = None) -> Trained:
+    """Train the chain on the lots in the store under cross-validation
+    grouped by lot, register it in ``models_dir`` (in service: it becomes
+    ``latest``) and log ``train`` in the store's audit trail.
+
+    ``chain`` is a :class:`~linkage.models.chain.ChainSpec` or the path of a
+    chain file (default: settings -> ribbon -> granules -> tablets);
+    ``coverage`` the nominal coverage of the CV+ intervals; the lots are
+    assembled at ``dissolution_time_min`` (default: the ``spec``'s time
+    point, else 30 min). ``n_jobs``, ``backend`` ("loky", "threading",
+    "dask") and ``scheduler`` say where the fold fits run; the model is the
+    same.
+    """
+    from linkage.assemble import assemble as assemble_table
+    from linkage.exceptions import InsufficientDataError
+    from linkage.models.chain import ChainSpec
+    from linkage.models.registry import save
+    from linkage.models.train import train_chain
+    from linkage.store import LotStore
+
+    if chain is not None and not isinstance(chain, ChainSpec):
+        chain = ChainSpec.from_toml(chain)
+    spec = _spec(spec)
+    with LotStore(store, create=False) as lot_store:
+        tables = lot_store.current_tables(product)
+    if not tables or "process" not in tables or tables["process"].empty:
+        which = f" of product {product!r}" if product else ""
+        raise InsufficientDataError(f"the store {store} holds no lots{which} to train on")
+    table = assemble_table(tables, **_time_and_q(spec, dissolution_time_min))
+    if n_jobs is None:
+        n_jobs = -1 if backend == "dask" else 1
+    with _cluster(backend, scheduler):
+        fitted = train_chain(table, chain, seed=seed, nominal_coverage=coverage, progress=progress,
+                             n_jobs=n_jobs, backend=backend)
+    model_id = save(fitted, models_dir)
+    with LotStore(store, create=False) as lot_store:
+        lot_store.log("train", model_id=model_id,
+                      inputs={"models_dir": str(models_dir), "product": product, "seed": seed,
+                              "coverage": coverage, "chain": fitted.chain.to_toml(),
+                              "lots": list(fitted.training["lots"]),
+                              "table_sha256": fitted.training["table_sha256"]},
+                      outputs={t: {"selected": v.selected, "coverage": v.coverage}
+                               for t, v in fitted.targets.items()})
+    return Trained(model_id=model_id, models_dir=Path(models_dir), chain=fitted, store=Path(store))
+
+
+def models(models_dir=DEFAULT_MODELS_DIR) -> pd.DataFrame:
+    """The model registry, newest first (``linkage models``): one row per
+    model with its status, lots, selected models and whether it is
+    ``latest``."""
+    import pandas as pd
+
+    from linkage.models.registry import list_models
+
+    return pd.DataFrame(list_models(models_dir))
+
+
+def retrain(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, spec=None, product: str | None = None,
+            tolerance: float = 0.10, force: bool = False, reason: str | None = None,
+            progress: Progress | None = None) -> Retrained:
+    """Fit a challenger on every lot and promote it over the champion only by
+    the documented rule (``linkage retrain``); see
+    :func:`linkage.decide.retrain.retrain`. Logs ``retrain`` or ``promote``."""
+    from linkage.decide.retrain import retrain as run_retrain
+
+    return Retrained(run_retrain(store, models_dir, product=product, spec=_spec(spec), force=force, reason=reason,
+                                 tolerance=tolerance, progress=progress))
+
+
+# --------------------------------------------------------------------------- decisions
+
+
+def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
+           settings: Mapping[str, float] | None = None, confidence: float = 0.9, n_draws: int = 2000,
+           seed: int = 0) -> Window:
+    """The ribbon porosity window where every limit of ``spec`` passes
+    together with probability ``confidence``, and the roll force that lands
+    in it (``linkage window``); settings not in ``settings`` are held at the
+    training median. Logged as ``window`` when the store exists."""
+    from linkage.decide.window import find_window
+
+    spec = _spec(spec)
+    settings = {k: float(v) for k, v in (settings or {}).items()}
+    chain = _fitted(models_dir, model)
+    result = find_window(chain, spec, settings=settings, confidence=confidence, n_draws=n_draws, seed=seed)
+    recorded = record(store, "window", model_id=result.model_id,
+                      inputs={"spec": spec.to_dict(), "settings": settings, "confidence": confidence, "seed": seed},
+                      outputs=result.to_dict(curve=False))
+    return Window(result=result, recorded=recorded, store=None if store is None else Path(store))
+
+
+def _lean(models_dir, model):
+    """What a what-if runs on: the model's numbers (``whatif.npz``, no
+    scikit-learn) for an id, else the given chain."""
+    if model is None or isinstance(model, str):
+        from linkage.models.registry import load_whatif
+
+        return load_whatif(models_dir, model)  # numbers only: no scikit-learn or pandas to import
+    return model.chain if isinstance(model, Trained) else model
+
+
+def _recorded_whatifs(results, lots, store) -> list[WhatIfResult]:
+    out = []
+    for r, lot in zip(results, lots):
+        d = r.to_dict()
+        recorded = record(store, "predict", model_id=d["model_id"], lot=lot, inputs=d["inputs"], outputs=d,
+                          prediction=True)
+        out.append(WhatIfResult(result=r, lot=lot, recorded=recorded, store=None if store is None else Path(store)))
+    return out
+
+
+def whatif(values: Mapping[str, float], *, spec=None, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR,
+           model="latest", level: float | None = None, seed: int = 0, lot: str | None = None) -> WhatIfResult:
+    """Predict every downstream attribute from ``values`` (settings and/or
+    measured values by name), with intervals at ``level`` (default: the
+    model's nominal coverage), the chance of passing each limit of ``spec``
+    and the applicability-domain verdict (``linkage predict``). Recorded in
+    the store's predictions and audit trail (``predict``, for ``lot`` when
+    given) when the store exists."""
+    from linkage.decide.whatif import predict_whatif
+    from linkage.exceptions import UsageError
+
+    if not values:
+        raise UsageError("nothing to predict from: give --set NAME=VALUE (or --from-csv)")
+    bad = [f"{k}: {v!r} is not a number" for k, v in values.items()
+           if isinstance(v, (str, bytes)) or not hasattr(v, "__float__")]
+    if bad:
+        raise UsageError("; ".join(bad))
+    values = {str(k): float(v) for k, v in values.items()}
+    spec = _spec(spec)
+    chain = _lean(models_dir, model)  # names and values are checked by predict_whatif
+    result = predict_whatif(chain, values, spec=spec, level=level, seed=seed)
+    return _recorded_whatifs([result], [lot], store)[0]
+
+
+def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, store=DEFAULT_STORE,
+                models_dir=DEFAULT_MODELS_DIR, model="latest", level: float | None = None,
+                seed: int = 0) -> list[WhatIfResult]:
+    """One what-if per row (``linkage predict --from-csv``): ``rows`` is a
+    list of {name: value} dicts, a DataFrame whose columns are names, or the
+    path of such a CSV (whose optional ``lot`` column names each row's lot).
+    Every row is checked before any is predicted. ``lots`` gives each row's
+    lot (one lot for all when a single string)."""
+    from linkage.decide.whatif import predict_many, read_rows
+
+    csv_lots: list[str | None] | None = None
+    if isinstance(rows, (str, Path)):
+        rows, csv_lots = read_rows(rows)
+    else:
+        rows = rows if hasattr(rows, "to_dict") else list(rows)
+    n = len(rows)
+    if isinstance(lots, str):
+        row_lots = [lots] * n
+    elif lots is not None:
+        row_lots = list(lots)
+    else:
+        row_lots = csv_lots if csv_lots is not None else [None] * n
+    chain = _lean(models_dir, model)
+    results = predict_many(chain, rows, spec=_spec(spec), level=level, seed=seed)
+    return _recorded_whatifs(results, row_lots, store)
+
+
+def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", spec=None,
+           confidence: float = 0.9, seed: int = 0, window: Window | None = None) -> Path:
+    """Write the self-contained HTML report of ``model`` and its lots to
+    ``out`` (default ``reports/report-<model id>.html``) and return the path
+    (``linkage report``). The lots are the model's product's when it was
+    trained on one. A ``window`` already found is drawn as is; else, with a
+    ``spec``, the window is found at ``confidence``."""
+    from linkage.assemble import assemble as assemble_table
+    from linkage.exceptions import InsufficientDataError, UsageError
+    from linkage.report.html import build_report
+    from linkage.store import LotStore
+
+    if not 0 < confidence < 1:
+        raise UsageError(f"--confidence must lie between 0 and 1; got {confidence}")
+    spec = _spec(spec)
+    chain = _fitted(models_dir, model)
+    products = chain.training.get("products") or []
+    product = products[0] if len(products) == 1 else None
+    with LotStore(store, create=False) as lot_store:
+        tables = lot_store.current_tables(product=product)
+        lots = lot_store.lots(product=product)
+    if not tables:
+        raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
+                                                                          else "") + "; nothing to report on")
+    table = assemble_table(tables, **_time_and_q(spec, None))
+    out = Path(out) if out is not None else Path("reports") / f"report-{chain.model_id}.html"
+    found = window.result if isinstance(window, Window) else window
+    return Path(build_report(chain, table, spec=spec, window=found, lots=lots, out_path=out,
+                             confidence=confidence, seed=seed))
+
+
+def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", spec=None,
+          product: str | None = None) -> Watched:
+    """The drift watch (``linkage watch``): residual control charts of every
+    lot in time order, ribbon porosity within and between lots (against the
+    ``spec``'s window when given), new lots outside the domain, recorded
+    what-ifs against what the lots measured. Logs ``watch``."""
+    from linkage.assemble import assemble as assemble_table
+    from linkage.decide.watch import watch as run_watch
+    from linkage.store import LotStore
+
+    chain = _fitted(models_dir, model)
+    spec = _spec(spec)
+    found = None
+    if spec is not None:
+        from linkage.decide.window import find_window
+
+        w = find_window(chain, spec)
+        found = (w.low.value, w.high.value) if w.found else None
+    with LotStore(store, create=False) as s:
+        tables = s.current_tables(product)
+        recorded = s.predictions()
+    table = assemble_table(tables, dissolution_time_min=spec.dissolution_time_min if spec else 30.0)
+    result = run_watch(chain, table, ribbon=tables.get("ribbon"), window=found, recorded=recorded)
+    with LotStore(store, create=False) as s:
+        s.log("watch", model_id=chain.model_id, inputs={"window": found, "product": product},
+              outputs={"alarms": result.alarms, "new_lots": result.new_lots})
+    return Watched(result=result, n_lots=len(table), window=found, store=Path(store))
+
+
+def audit(store=DEFAULT_STORE, *, lot: str | None = None) -> pd.DataFrame:
+    """The store's audit trail, oldest first (``linkage audit``): one row
+    per entry with ``id``, ``at``, ``user``, ``action``, ``lot``,
+    ``model_id``, ``inputs`` and ``outputs``; only entries about ``lot`` when
+    given."""
+    import pandas as pd
+
+    from linkage.store import LotStore
+
+    with LotStore(store, create=False) as s:
+        rows = s.audit(lot)
+    return pd.DataFrame(rows, columns=["id", "at", "user", "action", "lot", "model_id", "inputs", "outputs"])
+
+
+# --------------------------------------------------------------------------- a workspace
+
+
+@dataclass
+class Workspace:
+    """A lot store and a model registry, and the job's calls on them.
+
+    >>> lab = Workspace("site.db", models_dir="models")   # doctest: +SKIP
+    >>> lab.ingest("lab_exports/june"); trained = lab.train()  # doctest: +SKIP
+
+    Each method is the function of the same name in :mod:`linkage.api` with
+    ``store`` and ``models_dir`` filled in; the store file is created by the
+    first ingest.
+    """
+
+    store: Path = Path(DEFAULT_STORE)
+    models_dir: Path = Path(DEFAULT_MODELS_DIR)
+
+    def __post_init__(self):
+        self.store = Path(self.store)
+        self.models_dir = Path(self.models_dir)
+
+    def ingest(self, folder, *, reason: str | None = None, accept_unusual: bool = False) -> Ingested:
+        """See :func:`ingest`."""
+        return ingest(folder, self.store, reason=reason, accept_unusual=accept_unusual)
+
+    def assemble(self, **kwargs) -> pd.DataFrame:
+        """See :func:`assemble`."""
+        return assemble(self.store, **kwargs)
+
+    def train(self, **kwargs) -> Trained:
+        """See :func:`train`."""
+        return train(self.store, self.models_dir, **kwargs)
+
+    def models(self) -> pd.DataFrame:
+        """See :func:`models`."""
+        return models(self.models_dir)
+
+    def retrain(self, **kwargs) -> Retrained:
+        """See :func:`retrain`."""
+        return retrain(self.store, self.models_dir, **kwargs)
+
+    def window(self, spec, **kwargs) -> Window:
+        """See :func:`window`."""
+        return window(spec, store=self.store, models_dir=self.models_dir, **kwargs)
+
+    def whatif(self, values: Mapping[str, float], **kwargs) -> WhatIfResult:
+        """See :func:`whatif`."""
+        return whatif(values, store=self.store, models_dir=self.models_dir, **kwargs)
+
+    def whatif_rows(self, rows, **kwargs) -> list[WhatIfResult]:
+        """See :func:`whatif_rows`."""
+        return whatif_rows(rows, store=self.store, models_dir=self.models_dir, **kwargs)
+
+    def report(self, out=None, **kwargs) -> Path:
+        """See :func:`report`."""
+        return report(out, store=self.store, models_dir=self.models_dir, **kwargs)
+
+    def watch(self, **kwargs) -> Watched:
+        """See :func:`watch`."""
+        return watch(store=self.store, models_dir=self.models_dir, **kwargs)
+
+    def audit(self, **kwargs) -> pd.DataFrame:
+        """See :func:`audit`."""
+        return audit(self.store, **kwargs)

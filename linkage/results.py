@@ -1,0 +1,520 @@
+"""What the Python API (:mod:`linkage.api`) hands back: each result keeps the
+library's own object, says what it holds in its ``repr``, gives a table with
+``summary()`` (a pandas DataFrame) and the text the command line prints with
+``text()`` (also ``str(result)``). The commands print these texts, so the
+command line and Python say the same thing.
+
+Importing this module imports neither pandas nor scikit-learn (``summary()``
+imports pandas when it is called): ``linkage predict`` renders its text from
+here and must stay light (``tests/decide/test_whatif_lean.py``).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+from linkage import CAUTION
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from linkage.decide.retrain import RetrainDecision
+    from linkage.decide.watch import WatchResult
+    from linkage.decide.whatif import WhatIf
+    from linkage.decide.window import WindowResult
+    from linkage.models.fitted import FittedChain
+    from linkage.spec import Spec
+    from linkage.store import IngestResult
+
+
+class _Result:
+    """``summary()``, ``text()`` and ``str()`` for every result; attributes
+    not found on the result are looked up on the library object it keeps
+    (``result``), so ``window.low`` or ``whatif.predictions`` work as on the
+    library's own objects."""
+
+    def summary(self) -> pd.DataFrame:  # pragma: no cover - every result defines it
+        raise NotImplementedError
+
+    def text(self) -> str:  # pragma: no cover - every result defines it
+        raise NotImplementedError
+
+    def __str__(self) -> str:
+        return self.text()
+
+    def __getattr__(self, name: str):  # called only for names the result itself lacks
+        if name.startswith("__") or name == "result":
+            raise AttributeError(name)
+        return getattr(self.result, name)
+
+
+def _frame(rows: list[dict], index: str | list[str] | None = None) -> pd.DataFrame:
+    import pandas as pd
+
+    df = pd.DataFrame(rows)
+    return df.set_index(index) if index is not None and not df.empty else df
+
+
+def _rows(n) -> str:
+    return "" if n is None else f"{n} row{'s' if n != 1 else ''}"
+
+
+def _fmt(v, spec: str = ".4g") -> str:
+    return "—" if v is None else format(v, spec)
+
+
+# --------------------------------------------------------------------------- ingest
+
+
+@dataclass(repr=False)
+class Ingested(_Result):
+    """One ingest of a folder into a lot store (``linkage ingest``)."""
+
+    store: Path
+    folder: Path
+    result: IngestResult
+    #: table -> {"file", "sha256", "rows"} of every file read
+    sources: dict[str, dict]
+    #: the folder's spec.toml, when it has one
+    spec: Spec | None = None
+
+    def to_dict(self) -> dict:
+        """What ``linkage ingest --json`` prints."""
+        return {**self.result.to_dict(), "store": str(self.store), "sources": self.sources}
+
+    def summary(self) -> pd.DataFrame:
+        """One row per lot of the folder: ``status`` new, revised or unchanged."""
+        r = self.result
+        rows = [{"lot": lot, "status": status}
+                for status, lots in (("new", r.lots_new), ("revised", r.lots_revised),
+                                     ("unchanged", r.lots_unchanged)) for lot in lots]
+        import pandas as pd
+
+        return pd.DataFrame(rows, columns=["lot", "status"]).set_index("lot")
+
+    def text(self) -> str:
+        r = self.result
+        lines = [f"Ingest {r.ingest_id} into {self.store} from {self.folder}:"]
+        lines += [f"  {src['file']:<28} {_rows(src['rows'])}" for src in self.sources.values()]
+        for label, lots in (("New", r.lots_new), ("Revised", r.lots_revised), ("Unchanged", r.lots_unchanged)):
+            lines.append(f"{label} lots ({len(lots)}): {', '.join(lots) if lots else '-'}")
+        if not r.changed:
+            lines.append("Nothing changed: every lot is as stored.")
+        if r.warnings:
+            lines.append("Warnings:")
+            lines += [f"  - {w}" for w in r.warnings]
+        return "\n".join(lines)
+
+    def __repr__(self) -> str:
+        r = self.result
+        return (f"<Ingested {self.folder} into {self.store} (ingest {r.ingest_id}): {len(r.lots_new)} new, "
+                f"{len(r.lots_revised)} revised, {len(r.lots_unchanged)} unchanged lots"
+                + (f"; {len(r.warnings)} warning(s)" if r.warnings else "") + ">")
+
+
+# --------------------------------------------------------------------------- train
+
+#: keys of one attribute in ``train --json`` (the issue's list, plus the
+#: reasons and methods a reader needs to judge them)
+TARGET_KEYS = ("stage", "inputs", "n_lots", "cv", "candidates", "unavailable", "noise_floor", "noise_floor_method",
+               "selected", "selection_rule", "selection", "nominal_coverage", "coverage", "coverage_method",
+               "infinite_intervals", "interval_method", "vip", "rd_params", "notes")
+
+
+def train_json(fitted: FittedChain) -> dict:
+    """What ``train --json`` prints: the model id and one object per attribute."""
+    meta = fitted.metadata()
+    return {
+        "model_id": fitted.model_id,
+        "created_at": meta["created_at"],
+        "n_lots": meta["training"]["n_lots"],
+        "table_sha256": meta["training"]["table_sha256"],
+        "seed": meta["seed"],
+        "targets": {name: {k: t[k] for k in TARGET_KEYS} for name, t in meta["targets"].items()},
+        "skipped": meta["skipped"],
+        "caution": CAUTION,
+    }
+
+
+def _num(v, width=9, fmt=".4g", sign="") -> str:
+    return f"{'—':>{width}}" if v is None else f"{v:>{sign}{width}{fmt}}"
+
+
+def train_text(fitted: FittedChain) -> str:
+    """Compact text: per attribute, each candidate against the mean, the
+    Ryshkewitch–Duckworth baseline and the noise floor."""
+    meta = fitted.metadata()
+    tr = meta["training"]
+    lines = [f"Model {fitted.model_id}: {tr['n_lots']} lots, seed {meta['seed']}, "
+             f"table SHA-256 {tr['table_sha256'][:12]}…"]
+    for name, t in meta["targets"].items():
+        cv = t["cv"]
+        lines += ["", f"{name}  [{t['stage']} stage; {t['n_lots']} lots; {cv['scheme']}, seed {cv['seed']}]",
+                  f"    {'candidate':<16}{'RMSE':>9}{'MAE':>9}{'Q²':>7}{'bias':>10}{'/mean':>7}{'/RD':>7}"
+                  f"{'/noise':>8}"]
+        cands = t["candidates"]
+        mean_rmse = cands["mean"]["rmse"] if "mean" in cands else None
+        rd_rmse = cands["rd_baseline"]["rmse"] if "rd_baseline" in cands else None
+        for cname, m in cands.items():
+            mark = "*" if cname == t["selected"] else " "
+            bias = 0.0 if abs(m["bias"]) <= 1e-12 * max(1.0, m["rmse"]) else m["bias"]  # round-off shown as 0
+            rel_mean = m["rmse"] / mean_rmse if mean_rmse else None
+            rel_rd = m["rmse"] / rd_rmse if rd_rmse else None
+            lines.append(
+                f"  {mark} {cname:<16}{_num(m['rmse'])}{_num(m['mae'])}{_num(m['q2'], 7, '.3f')}"
+                f"{_num(bias, 10, '.3g', '+')}{_num(rel_mean, 7, '.2f')}{_num(rel_rd, 7, '.2f')}"
+                f"{_num(m['rmse_over_noise'], 8, '.2f')}")
+        for cname, why in t["unavailable"].items():
+            lines.append(f"    {cname:<16}not used: {why}")
+        floor = t["noise_floor"]
+        lines.append("    noise floor: " + (f"{floor:.4g} ({t['noise_floor_method']})" if floor is not None
+                                            else t["noise_floor_method"]))
+        sel = t["selection"]
+        why = "lowest CV RMSE" if sel["best"] == t["selected"] else (
+            f"simplest within one SE of the lowest ({sel['best']}, RMSE {sel['best_rmse']:.4g})")
+        lines.append(f"    selected: {t['selected']} ({why})")
+        lines.append(f"    {t['nominal_coverage']:.0%} CV+ intervals: empirical coverage {t['coverage']:.1%} "
+                     "(nested outer CV, lots held out)")
+        for note in t["notes"]:
+            lines.append(f"    note: {note}")
+    if meta["skipped"]:
+        lines += ["", "Not trained:"]
+        lines += [f"  {name}: {why}" for name, why in meta["skipped"].items()]
+    lines += ["", CAUTION]
+    return "\n".join(lines)
+
+
+@dataclass(repr=False)
+class Trained(_Result):
+    """A chain trained under grouped CV and registered (``linkage train``).
+    ``chain`` is the fitted chain; the model is in ``models_dir`` under
+    ``model_id``."""
+
+    model_id: str
+    models_dir: Path
+    chain: FittedChain
+    store: Path | None = None
+
+    @property
+    def result(self) -> FittedChain:
+        return self.chain
+
+    def to_dict(self) -> dict:
+        """What ``linkage train --json`` prints."""
+        return train_json(self.chain)
+
+    def text(self) -> str:
+        return train_text(self.chain)
+
+    def summary(self) -> pd.DataFrame:
+        """One row per attribute and candidate (index ``attribute``,
+        ``candidate``): grouped-CV ``rmse``, ``mae``, ``q2``, ``bias``,
+        ``rmse_over_noise``, whether it was ``selected``, and the attribute's
+        ``stage``, ``n_lots``, ``noise_floor``, ``nominal_coverage`` and
+        empirical ``coverage``."""
+        meta = self.chain.metadata()
+        rows = []
+        for name, t in meta["targets"].items():
+            for cname, m in t["candidates"].items():
+                rows.append({"attribute": name, "candidate": cname, "stage": t["stage"], "n_lots": t["n_lots"],
+                             "rmse": m["rmse"], "mae": m["mae"], "q2": m["q2"], "bias": m["bias"],
+                             "rmse_over_noise": m["rmse_over_noise"], "selected": cname == t["selected"],
+                             "noise_floor": t["noise_floor"], "nominal_coverage": t["nominal_coverage"],
+                             "coverage": t["coverage"]})
+        return _frame(rows, ["attribute", "candidate"])
+
+    def __repr__(self) -> str:
+        sel = ", ".join(f"{name}: {t.selected}" for name, t in self.chain.targets.items())
+        return (f"<Trained model {self.model_id} on {self.chain.training['n_lots']} lots, seed {self.chain.seed}, "
+                f"in {self.models_dir}; selected {sel}>")
+
+
+# --------------------------------------------------------------------------- window
+
+
+def window_text(result: WindowResult) -> str:
+    """What ``linkage window`` prints."""
+    d = result.to_dict(curve=False)
+    por = d["ribbon_porosity"]
+    lines = [f"Model {d['model_id']}; confidence {d['confidence']:.0%} that every specification passes together.",
+             f"Training lots cover ribbon porosity {por['data_range'][0]:.3f}–{por['data_range'][1]:.3f}."]
+    if not d.get("promise", True):
+        from linkage.report.sheet import WINDOW_NO_PROMISE
+
+        lines.append(f"!! {WINDOW_NO_PROMISE}")
+        lines += [f"   - {r}" for r in d["promise_reasons"]]
+    if not d["found"]:
+        lines.append("NO WINDOW: at no porosity in the training range does the chance of meeting every "
+                     f"specification reach {d['confidence']:.0%}.")
+    else:
+        lines.append(f"Porosity window: {por['low']:.3f} – {por['high']:.3f}"
+                     + ("" if d.get("promise", True) else " (extrapolation, not promised)"))
+        for side in ("low", "high"):
+            by = por[f"{side}_limited_by"]
+            why = "cut by the range of the training data, not by a specification" if by == "data range" \
+                else f"limited by {by}"
+            lines.append(f"  {side} edge: {why}")
+        if len(por["segments"]) > 1:
+            lines.append("  other passing ranges: " + ", ".join(f"{a:.3f}–{b:.3f}" for a, b in por["segments"]))
+    mw = d["mean_response_window"]
+    if mw["low"] is not None:
+        lines.append(f"Mean-response window (overstates what can be promised): {mw['low']:.3f} – {mw['high']:.3f}")
+    rf = d["roll_force_kn_per_cm"]
+    if rf.get("low") is not None:
+        lines.append(f"Roll force for the window: {rf['low']:.2f} – {rf['high']:.2f} kN/cm "
+                     f"({d['confidence']:.0%} of lots inside); mean prediction inside: "
+                     f"{rf['mean_low']:.2f} – {rf['mean_high']:.2f} kN/cm")
+    elif rf.get("reason"):
+        lines.append(f"Roll force: {rf['reason']}")
+    lines.append("Settings used:")
+    for k, v in d["settings"].items():
+        lines.append(f"  {k} = {v['value']:.4g} ({v['source']})")
+    if rf.get("held"):
+        lines.append("Held for the roll force range: " +
+                     ", ".join(f"{k} = {v['value']:.4g} ({v['source']})" for k, v in rf["held"].items()))
+    if d["not_modelled"]:
+        lines.append("Not part of the window (not predicted from porosity): " + ", ".join(d["not_modelled"]))
+    lines.append(CAUTION)
+    return "\n".join(lines)
+
+
+@dataclass(repr=False)
+class Window(_Result):
+    """The ribbon porosity window of a model under a spec (``linkage
+    window``). ``result`` is the library's :class:`~linkage.decide.window.WindowResult`;
+    ``recorded`` says whether the window went into the store's audit trail."""
+
+    result: WindowResult
+    recorded: bool = False
+    store: Path | None = None
+
+    def to_dict(self, curve: bool = True) -> dict:
+        """What ``linkage window --json`` prints."""
+        return self.result.to_dict(curve=curve)
+
+    def text(self) -> str:
+        return window_text(self.result)
+
+    def summary(self) -> pd.DataFrame:
+        """Two rows, ``low`` and ``high`` (index ``edge``): the window's
+        ``ribbon_porosity`` edge and what ``limited_by`` it, the
+        ``mean_response`` window's edge (which overstates what can be
+        promised), and the roll force range that lands in the window
+        (``roll_force_kn_per_cm``: the stated share of lots inside;
+        ``roll_force_mean_kn_per_cm``: the mean prediction inside). Empty
+        edges (no window) are missing values."""
+        r = self.result
+        rf = r.roll_force or {}
+        mean = {"low": r.mean_low, "high": r.mean_high}
+        rows = [{"edge": side, "ribbon_porosity": getattr(r, side).value, "limited_by": getattr(r, side).limited_by,
+                 "mean_response": mean[side], "roll_force_kn_per_cm": rf.get(side),
+                 "roll_force_mean_kn_per_cm": rf.get(f"mean_{side}"), "confidence": r.confidence,
+                 "promise": r.promise} for side in ("low", "high")]
+        return _frame(rows, "edge").astype({"ribbon_porosity": float, "mean_response": float,
+                                            "roll_force_kn_per_cm": float, "roll_force_mean_kn_per_cm": float})
+
+    def curve(self) -> pd.DataFrame:
+        """The scan behind the window, one row per ribbon porosity of the
+        grid: ``p_all`` (every specification together), ``p_<attribute>``,
+        ``mean_pass`` and, where checked, ``in_domain``."""
+        c = self.result.to_dict(curve=True)["curve"]
+        columns = {"ribbon_porosity": c["ribbon_porosity"], "p_all": c["p_all"],
+                   **{f"p_{k}": v for k, v in c["p_each"].items()}, "mean_pass": c["mean_pass"]}
+        if "in_domain" in c:
+            columns["in_domain"] = c["in_domain"]
+        import pandas as pd
+
+        return pd.DataFrame(columns)
+
+    def __repr__(self) -> str:
+        r = self.result
+        if not r.found:
+            what = f"no window at {r.confidence:.0%} confidence"
+        else:
+            what = (f"ribbon porosity {r.low.value:.3f}–{r.high.value:.3f} at {r.confidence:.0%} confidence "
+                    f"(low edge: {r.low.limited_by}, high edge: {r.high.limited_by})")
+        return (f"<Window {what}; model {r.model_id}" + ("" if r.promise else "; not promised (outside the domain)")
+                + ">")
+
+
+# --------------------------------------------------------------------------- what-if
+
+
+def _end(v) -> str:
+    return "unbounded" if v is None or abs(v) == float("inf") else f"{v:.4g}"
+
+
+def whatif_text(result: WhatIf) -> str:
+    """What ``linkage predict`` prints for one what-if."""
+    from linkage.report.sheet import NO_PROMISE, PROJECTED_NOTE, probability_text, projected_text
+
+    d = result.to_dict()
+    lvl = f"{d['interval_level']:.0%}"
+    lines = [f"Model {d['model_id']}, {lvl} intervals."]
+    if not d["promise"]:
+        lines.append(f"!! {NO_PROMISE}")
+        lines += [f"   - {r}" for r in d["domain_reasons"]]
+    lines.append("Inputs: " + ", ".join(f"{k}={v['value']:.4g}"
+                                        + (" (median)" if v["source"] != "given" else "")
+                                        for k, v in d["inputs"].items()))
+    projected = []
+    for name, p in d["predictions"].items():
+        line = f"  {name:<24} {p['value']:>9.4g}   [{_end(p['low'])}, {_end(p['high'])}]"
+        if p.get("projected"):
+            line += " *"
+            projected.append(f"   * {name}: {projected_text(p)}")
+        if "p_pass" in p:
+            line += f"   P(pass) {probability_text(p['p_pass'])}"
+            if not d["promise"]:
+                line += " (extrapolation, not promised)"
+        lines.append(line)
+    if projected:
+        lines.append(f"   * {PROJECTED_NOTE}")
+        lines += projected
+    if d["p_pass_all"] is not None:
+        if d["promise"]:
+            lines.append(f"P(every specification passes together): {probability_text(d['p_pass_all'])}")
+        else:
+            lines.append("No probability of meeting every specification is promised here; the share of simulated "
+                         f"lots that pass every limit, {probability_text(d['p_pass_all'])}, is an extrapolation.")
+    lines.append(CAUTION)
+    return "\n".join(lines)
+
+
+@dataclass(repr=False)
+class WhatIfResult(_Result):
+    """One what-if through the chain (``linkage predict``). ``result`` is the
+    library's :class:`~linkage.decide.whatif.WhatIf`; ``lot`` the lot it was
+    made for, if any; ``recorded`` whether it went into the store's
+    predictions and audit trail."""
+
+    result: WhatIf
+    lot: str | None = None
+    recorded: bool = False
+    store: Path | None = None
+
+    def to_dict(self) -> dict:
+        """What ``linkage predict --json`` prints."""
+        return self.result.to_dict()
+
+    def text(self) -> str:
+        return whatif_text(self.result)
+
+    def summary(self) -> pd.DataFrame:
+        """One row per predicted attribute (index ``attribute``): ``value``
+        and the interval ``low``–``high`` (after the physical projection),
+        ``p_pass`` where a spec was given, and ``projected`` (the model's
+        number was moved into the physical range)."""
+        import pandas as pd
+
+        preds = self.result.predictions
+        columns = ["attribute", "value", "low", "high"]
+        columns += ["p_pass"] * any("p_pass" in p for p in preds.values()) + ["projected"]
+        rows = [{"attribute": name, "value": p["value"], "low": p["low"], "high": p["high"],
+                 "p_pass": p.get("p_pass"), "projected": bool(p.get("projected"))} for name, p in preds.items()]
+        return pd.DataFrame(rows, columns=columns).set_index("attribute")
+
+    def __repr__(self) -> str:
+        r = self.result
+        given = ", ".join(f"{k}={v['value']:.4g}" for k, v in r.inputs.items() if v["source"] == "given")
+        p = "" if r.p_pass_all is None else f"; P(every specification passes) {r.p_pass_all:.3f}"
+        where = "in the domain" if r.promise else "outside the domain, not promised"
+        return (f"<WhatIf {given or '(medians)'} -> {len(r.predictions)} attributes at {r.level:.0%}{p}; {where}; "
+                f"model {r.model_id}" + (f"; lot {self.lot}" if self.lot else "") + ">")
+
+
+# --------------------------------------------------------------------------- watch
+
+
+@dataclass(repr=False)
+class Watched(_Result):
+    """The drift watch (``linkage watch``): ``result`` is the library's
+    :class:`~linkage.decide.watch.WatchResult`."""
+
+    result: WatchResult
+    n_lots: int
+    window: tuple[float, float] | None = None
+    store: Path | None = None
+    notes: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        """What ``linkage watch --json`` prints."""
+        return self.result.to_dict()
+
+    def text(self) -> str:
+        r = self.result
+        lines = [f"Model {r.model_id}; {self.n_lots} lots, {len(r.new_lots)} since training."]
+        if self.window:
+            lines.append(f"Porosity window used for ribbon samples: {self.window[0]:.3f}–{self.window[1]:.3f}")
+        alarms = r.alarms
+        if not alarms:
+            lines.append("No alarm on the lots since training.")
+        else:
+            lines.append(f"{len(alarms)} alarm(s) on lots since training:")
+            lines += [f"  ! {a}" for a in alarms]
+        for p in r.predictions:
+            mark = "inside" if p["inside_interval"] else "OUTSIDE"
+            lines.append(f"  what-if for {p['lot']}: {p['attribute']} predicted {p['predicted']:.4g} "
+                         f"[{p['low']:.4g}, {p['high']:.4g}], measured {p['measured']:.4g} ({mark} the interval)")
+        lines.append(CAUTION)
+        return "\n".join(lines)
+
+    def summary(self) -> pd.DataFrame:
+        """One row per alarm on the lots since training (column ``alarm``)."""
+        import pandas as pd
+
+        return pd.DataFrame({"alarm": self.result.alarms}, dtype=object)
+
+    def __repr__(self) -> str:
+        r = self.result
+        return (f"<Watched model {r.model_id}: {self.n_lots} lots, {len(r.new_lots)} since training, "
+                f"{len(r.alarms)} alarm(s)>")
+
+
+# --------------------------------------------------------------------------- retrain
+
+
+@dataclass(repr=False)
+class Retrained(_Result):
+    """A challenger fitted on every lot and the promotion decision
+    (``linkage retrain``): ``result`` is the library's
+    :class:`~linkage.decide.retrain.RetrainDecision`."""
+
+    result: RetrainDecision
+
+    def to_dict(self) -> dict:
+        """What ``linkage retrain --json`` prints."""
+        return self.result.to_dict()
+
+    def text(self) -> str:
+        d = self.result.to_dict()
+        verdict = "PROMOTED" if d["promoted"] else "NOT PROMOTED"
+        lines = [f"Challenger {d['challenger_id']} {verdict}; champion was {d['champion_id']}.",
+                 f"New lots since the champion: {len(d['new_lots'])}"]
+        lines += [f"  - {line}" for line in d["reasons"]]
+        if d["window_moved"]:
+            w = d["window_moved"]
+            for side in ("low", "high"):
+                a, b = w["champion"][side]["value"], w["challenger"][side]["value"]
+                if a is None or b is None:
+                    lines.append(f"  window {side} edge: champion {a}, challenger {b}")
+                else:
+                    lines.append(f"  window {side} edge: {a:.3f} -> {b:.3f} ({b - a:+.3f})")
+        lines += [f"Note: {note}" for note in d["notes"]]
+        lines += [f"Rule: {d['rule']}", CAUTION]
+        return "\n".join(lines)
+
+    def summary(self) -> pd.DataFrame:
+        """One row per attribute (index ``attribute``): the challenger's and
+        the champion's selected models and CV RMSE on the same folds, the
+        champion's error on the lots it never saw, and whether the attribute
+        passes the rule (``within_noise``, ``within_tolerance``)."""
+        return _frame([c.to_dict() for c in self.result.comparisons], "attribute")
+
+    def __repr__(self) -> str:
+        r = self.result
+        verdict = "promoted" + (" (forced)" if r.forced else "") if r.promoted else "not promoted"
+        return (f"<Retrained challenger {r.challenger_id} {verdict} over {r.champion_id}; "
+                f"{len(r.new_lots)} new lot(s)>")
