@@ -33,7 +33,7 @@ import numpy as np
 import pandas as pd
 
 from linkage import CAUTION
-from linkage.exceptions import InsufficientDataError, UsageError
+from linkage.exceptions import InsufficientDataError, LinkageError, UsageError
 
 RULE = ("promote when, for every attribute, the challenger's grouped-CV RMSE is no worse than the CV RMSE "
         "of the champion's model choice on the same folds plus one standard error, and no worse than "
@@ -192,6 +192,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
         raise UsageError(f"tolerance must lie in [0, 1); got {tolerance}")
     if force and (not reason or not reason.strip()):
         raise UsageError("--force needs a reason (--reason TEXT); it is recorded in the audit trail")
+    settle_pending(store_path, models_dir)  # a decision a killed retrain left half-made, before anything else
     champion = registry.load(models_dir, "latest")
     with LotStore(store_path, create=False) as store:
         tables = store.current_tables(product)
@@ -215,16 +216,39 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
             moved = window_moved(champion, challenger, spec)
         except UsageError as exc:
             notes.append(f"window not compared: {exc}")
-    challenger_id = registry.save(challenger, models_dir, in_service=promote)
+    challenger_id = registry.save(challenger, models_dir, in_service=False)  # enters service only in phase 3
     decision = RetrainDecision(
         champion_id=champion.model_id, challenger_id=challenger_id, promoted=promote, forced=force,
         reason=(reason or "").strip(), reasons=reasons, rule=RULE, tolerance=tolerance, new_lots=new_lots,
         comparisons=comparisons, window_moved=moved, notes=notes,
     )
-    registry.record_decision(models_dir, decision.to_dict())
-    with LotStore(store_path, create=False) as store:
-        store.log("promote" if promote else "retrain", user=user, model_id=challenger_id,
-                  inputs={"champion": champion.model_id, "force": force, "reason": decision.reason,
-                          "tolerance": tolerance, "new_lots": new_lots},
-                  outputs={"promoted": promote, "reasons": reasons, "window_moved": moved})
+    # two phases (registry.begin_decision): the audit row's commit is the decision
+    decision_id = registry.begin_decision(models_dir, decision.to_dict())
+    try:
+        with LotStore(store_path, create=False) as store:
+            store.log("promote" if promote else "retrain", user=user, model_id=challenger_id,
+                      inputs={"champion": champion.model_id, "force": force, "reason": decision.reason,
+                              "tolerance": tolerance, "new_lots": new_lots, "decision_id": decision_id},
+                      outputs={"promoted": promote, "reasons": reasons, "window_moved": moved})
+    except LinkageError:
+        registry.settle_decision(models_dir, decision_id, recorded=False)
+        raise
+    registry.settle_decision(models_dir, decision_id, recorded=True)
     return decision
+
+
+def settle_pending(store_path, models_dir) -> list[tuple[str, str]]:
+    """Settle the decisions a killed retrain left pending, by the lot store: in effect where the audit trail
+    holds the decision's row, abandoned where not (see :func:`linkage.models.registry.begin_decision`).
+    Returns (decision id, new state) for each."""
+    from linkage.models import registry
+    from linkage.store import LotStore
+
+    pending = registry.pending_decisions(models_dir)
+    if not pending:
+        return []
+    with LotStore(store_path, create=False) as store:
+        logged = {(a.get("inputs") or {}).get("decision_id") for a in store.audit()
+                  if a["action"] in ("promote", "retrain")}
+    return [(d["decision_id"], registry.settle_decision(models_dir, d["decision_id"],
+                                                        recorded=d["decision_id"] in logged)) for d in pending]

@@ -523,13 +523,66 @@ def import_model(src_dir, models_dir, source_note: str) -> str:
 
 def record_decision(models_dir, decision: dict) -> None:
     """Append a retraining decision (JSON-safe dict) to the index, with the
-    time it was recorded. Decisions are never rewritten."""
+    time it was recorded, in effect at once. Decisions are never rewritten."""
     models_dir = Path(models_dir)
     with _locked(models_dir):
         index = _read_index(models_dir)
         entry = {"recorded_at": _now(), **decision}
         index.setdefault("decisions", []).append(json.loads(json.dumps(entry, allow_nan=False)))
         _write_index(models_dir, index)
+
+
+# A lifecycle decision (retrain, promote) touches two records, the registry and the lot store's audit trail,
+# which no single transaction spans. It is made in two phases, the lot store's commit being the decision:
+#   1. begin_decision: the decision enters the index as "pending"; nothing enters service;
+#   2. the caller writes the audit row, carrying the decision's id, in one store transaction;
+#   3. settle_decision: in one index write (one atomic rename) the decision becomes "in effect" and a promoted
+#      challenger enters service; or "abandoned" when step 2 failed (store busy), and nothing enters service.
+# A process killed between the steps leaves a pending decision and the previous champion in service;
+# settle_pending (run by retrain and verify) settles it by the store: in effect if its audit row exists,
+# abandoned if not. This is the presumed-abort rule of two-phase commit (Gray & Reuter 1993, "Transaction
+# Processing: Concepts and Techniques", ch. 10), with the lot store as the coordinator's log.
+
+PENDING, IN_EFFECT, ABANDONED = "pending", "in effect", "abandoned"
+
+
+def begin_decision(models_dir, decision: dict) -> str:
+    """Phase 1: record ``decision`` as pending; returns its id (a random hex string)."""
+    import uuid
+
+    models_dir = Path(models_dir)
+    decision_id = uuid.uuid4().hex
+    with _locked(models_dir):
+        index = _read_index(models_dir)
+        entry = {"decision_id": decision_id, "state": PENDING, "recorded_at": _now(), **decision}
+        index.setdefault("decisions", []).append(json.loads(json.dumps(entry, allow_nan=False)))
+        _write_index(models_dir, index)
+    return decision_id
+
+
+def settle_decision(models_dir, decision_id: str, *, recorded: bool) -> str:
+    """Phase 3: put a pending decision in effect (``recorded``: its audit row was committed), promoting its
+    challenger if the decision promoted it, or abandon it. One index write. Returns the new state."""
+    models_dir = Path(models_dir)
+    with _locked(models_dir):
+        index = _read_index(models_dir)
+        entry = next((d for d in index.get("decisions", []) if d.get("decision_id") == decision_id), None)
+        if entry is None:
+            raise ModelNotFoundError(f"no decision {decision_id} in the registry {models_dir}")
+        if entry.get("state") != PENDING:
+            return entry["state"]
+        entry["state"] = IN_EFFECT if recorded else ABANDONED
+        entry["settled_at"] = _now()
+        challenger = index["models"].get(entry.get("challenger_id"))
+        if recorded and entry.get("promoted") and challenger is not None:
+            challenger["in_service"] = True
+        _write_index(models_dir, index)
+        return entry["state"]
+
+
+def pending_decisions(models_dir) -> list[dict]:
+    """Decisions begun and not settled (a process killed between the phases)."""
+    return [d for d in decisions(models_dir) if d.get("state") == PENDING]
 
 
 def decisions(models_dir) -> list[dict]:

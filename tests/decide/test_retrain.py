@@ -140,3 +140,78 @@ def test_a_challenger_that_is_not_promoted_is_kept_but_not_latest(campaign, monk
     assert registry.load(models, "latest").model_id == before
     row = next(m for m in registry.list_models(models) if m["model_id"] == decision.challenger_id)
     assert row["in_service"] is False and row["status"] == "ok"
+
+
+# ---- atomic lifecycle decisions (issue 15 item 4): two phases, the store's audit row being the decision
+# (presumed abort, Gray & Reuter 1993, "Transaction Processing", ch. 10)
+
+
+def _promote_everything(monkeypatch):
+    from linkage.decide import retrain as rt
+
+    monkeypatch.setattr(rt, "decide", lambda comparisons, **kw: (True, ["promoted for the test"]))
+    return rt
+
+
+def test_a_busy_store_leaves_the_champion_in_service_and_no_record(campaign, monkeypatch):
+    root, store, models, champion, _ = campaign
+    rt = _promote_everything(monkeypatch)
+    from linkage.exceptions import StoreBusyError
+
+    before = registry.load(models, "latest").model_id
+    with LotStore(store, create=False) as s:
+        audit_before = len(s.audit())
+
+    def busy(self, *a, **kw):
+        raise StoreBusyError("store busy: test")
+
+    monkeypatch.setattr(LotStore, "log", busy)
+    result = CliRunner().invoke(cli, ["retrain", "--store", str(store), "--models-dir", str(models)])
+    assert result.exit_code == 3 and "store busy" in result.stderr
+    monkeypatch.undo()
+    assert registry.load(models, "latest").model_id == before  # nothing entered service
+    last = registry.decisions(models)[-1]
+    assert last["state"] == registry.ABANDONED and last["promoted"] is True
+    assert next(m for m in registry.list_models(models) if m["model_id"] == last["challenger_id"])["in_service"] is False
+    with LotStore(store, create=False) as s:
+        assert len(s.audit()) == audit_before
+    # a retry makes one decision, not two promotions
+    rt2 = _promote_everything(monkeypatch)
+    decision = rt2.retrain(store, models)
+    assert registry.load(models, "latest").model_id == decision.challenger_id
+    assert [d["state"] for d in registry.decisions(models)[-2:]] == [registry.ABANDONED, registry.IN_EFFECT]
+
+
+@pytest.mark.parametrize("killed_after_audit", [False, True])
+def test_a_kill_between_the_phases_is_settled_by_the_store(campaign, monkeypatch, killed_after_audit):
+    """A kill is simulated by an exception no handler catches (BaseException), after the audit row committed or
+    before; the registry is left with a pending decision, the champion in service. The next retrain settles it by
+    the audit trail before it does anything else."""
+    root, store, models, champion, _ = campaign
+    rt = _promote_everything(monkeypatch)
+    before = registry.load(models, "latest").model_id
+
+    class Killed(BaseException):
+        pass
+
+    if killed_after_audit:
+        def kill(*a, **kw):
+            raise Killed()
+        monkeypatch.setattr(registry, "settle_decision", kill)
+    else:
+        def kill(self, *a, **kw):
+            raise Killed()
+        monkeypatch.setattr(LotStore, "log", kill)
+    with pytest.raises(Killed):
+        rt.retrain(store, models)
+    monkeypatch.undo()
+    [pending] = registry.pending_decisions(models)
+    assert registry.load(models, "latest").model_id == before  # still the champion while pending
+    settled = rt.settle_pending(store, models)
+    expected = registry.IN_EFFECT if killed_after_audit else registry.ABANDONED
+    assert settled == [(pending["decision_id"], expected)]
+    latest = registry.load(models, "latest").model_id
+    assert latest == (pending["challenger_id"] if killed_after_audit else before)
+    with LotStore(store, create=False) as s:
+        logged = [a for a in s.audit() if (a.get("inputs") or {}).get("decision_id") == pending["decision_id"]]
+    assert len(logged) == (1 if killed_after_audit else 0)
