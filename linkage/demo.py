@@ -52,7 +52,7 @@ def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
     demo's store keeps the audit trail the commands would leave."""
     from linkage.api import Workspace
     from linkage.exceptions import UsageError
-    from linkage.export import write_table_csv
+    from linkage.export import write_atomic, write_table_csv
     from linkage.report.sheet import whatif_html
 
     lots_dir = Path(data) / "lots"
@@ -99,7 +99,7 @@ def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
     say("finding the porosity window")
     window = lab.window(spec, model=trained, confidence=0.9)
     window_json = out / "window.json"
-    window_json.write_text(json.dumps(window.to_dict(), indent=2), encoding="utf-8")
+    write_atomic(window_json, json.dumps(window.to_dict(), indent=2).encode("utf-8"))
     lap("window")
 
     say("writing a what-if sheet")
@@ -107,7 +107,7 @@ def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
         trained.chain.training["medians"]["ribbon_porosity"])
     whatif = lab.whatif({"ribbon_porosity": round(middle, 3)}, spec=spec, model=trained)
     sheet = out / "whatif.html"
-    sheet.write_text(whatif_html(whatif.result), encoding="utf-8")
+    write_atomic(sheet, whatif_html(whatif.result).encode("utf-8"))
     lap("what-if")
 
     say("writing the report")

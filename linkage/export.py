@@ -47,6 +47,7 @@ def write_atomic(path, data: bytes) -> Path:
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent or Path("."))
     try:
+        os.fchmod(fd, _new_file_mode())  # mkstemp makes 0600; a written file gets the mode open() would give it
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()
@@ -57,6 +58,13 @@ def write_atomic(path, data: bytes) -> Path:
             os.unlink(tmp)
         raise
     return path
+
+
+def _new_file_mode() -> int:
+    """0666 less the process's umask: the mode ``open(path, "w")`` gives a new file."""
+    mask = os.umask(0)
+    os.umask(mask)
+    return 0o666 & ~mask
 
 
 def write_table_csv(table, path) -> Path:

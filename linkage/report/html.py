@@ -31,7 +31,6 @@ Sections:
 from __future__ import annotations
 
 import math
-import os
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from html import escape
@@ -185,16 +184,11 @@ def build_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd
     """Render the report and write it to ``out_path`` (folders made as
     needed; the file is written whole or not at all). Returns the path."""
     report = render_report(chain, table, spec=spec, window=window, lots=lots, confidence=confidence, seed=seed)
+    from linkage.export import write_atomic
+
     out = Path(out_path)
     out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = out.with_name(f".{out.name}.{os.getpid()}.tmp")
-    try:
-        tmp.write_text(report.html, encoding="utf-8")
-        os.replace(tmp, out)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
-    return out
+    return write_atomic(out, report.html.encode("utf-8"))
 
 
 def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd.DataFrame | None = None,

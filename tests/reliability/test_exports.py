@@ -83,3 +83,10 @@ def test_an_extra_text_column_may_hold_the_word_inf(tmp_path):
     lines[1:] = [line + (",inf" if i == 1 else ",checked by QA") for i, line in enumerate(lines[1:], start=1)]
     (d / "process.csv").write_text("\n".join(lines) + "\n")
     assert read_folder(d).tables["process"]["operator_note"].iloc[0] == "inf"
+
+
+def test_an_atomic_write_gives_the_mode_a_plain_write_gives(tmp_path):
+    plain = tmp_path / "plain.txt"
+    plain.write_text("x")
+    atomic = write_atomic(tmp_path / "atomic.txt", b"x")
+    assert atomic.stat().st_mode == plain.stat().st_mode
