@@ -106,3 +106,15 @@ class InsufficientDataError(LinkageError, ValueError):
     """Too few lots (or too little variation) to do what was asked."""
 
     exit_code = 2
+
+
+class NoVerifiedModelError(ModelIntegrityError, ModelNotFoundError):
+    """``latest`` found models in service, and every one failed its integrity
+    check: an integrity failure (exit code 4), not a missing model."""
+
+    exit_code = 4
+
+
+class LinkageWarning(UserWarning):
+    """Something the user should know that does not stop the command (the
+    command line prints it as ``Warning: ...``, without Python's file and line)."""

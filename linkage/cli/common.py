@@ -7,11 +7,12 @@ import contextlib
 import functools
 import os
 import sys
+import warnings
 from pathlib import Path
 
 import click
 
-from linkage.exceptions import LinkageError
+from linkage.exceptions import LinkageError, LinkageWarning
 
 STORE_ENV = "LINKAGE_STORE"
 MODELS_ENV = "LINKAGE_MODELS_DIR"
@@ -79,11 +80,20 @@ def handle_errors(f):
 
     @functools.wraps(f)
     def wrapper(*args, **kwargs):
+        caught: list = []
         try:
-            return f(*args, **kwargs)
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always", LinkageWarning)
+                return f(*args, **kwargs)
         except LinkageError as exc:
             click.echo(f"Error: {exc}", err=True)
             raise SystemExit(exc.exit_code) from None
+        finally:  # a linkage warning is one plain line on stderr; any other is shown as Python shows it
+            for w in caught:
+                if issubclass(w.category, LinkageWarning):
+                    click.echo(f"Warning: {w.message}", err=True)
+                else:
+                    warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
 
     return wrapper
 

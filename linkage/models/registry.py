@@ -51,7 +51,8 @@ import warnings
 from datetime import datetime, timezone
 from pathlib import Path
 
-from linkage.exceptions import ModelIntegrityError, ModelNotFoundError, UsageError
+from linkage.exceptions import (LinkageWarning, ModelIntegrityError, ModelNotFoundError, NoVerifiedModelError,
+                                UsageError)
 
 __all__ = ["save", "load", "load_whatif", "resolve", "list_models", "import_model", "verify", "record_decision",
            "decisions", "INDEX", "ARTIFACT", "METADATA", "WHATIF"]
@@ -286,11 +287,14 @@ def _resolve(models_dir, model_id: str | None) -> tuple[Path, tuple | None]:
                 skipped.append(f"{mid}: {exc}")
                 continue
             if skipped:
-                warnings.warn("latest skipped newer models that fail their checks: " + "; ".join(skipped),
-                              stacklevel=3)
+                warnings.warn(f"latest skipped newer models that fail their checks and resolved to {mid}, an older "
+                              "model in service: " + "; ".join(skipped) + ". Run `linkage verify`; give --model "
+                              "ID to choose a model explicitly.", LinkageWarning, stacklevel=3)
             return models_dir / mid, checked
-        detail = ("; models that fail their checks: " + "; ".join(skipped)) if skipped else ""
-        raise ModelNotFoundError(f"no complete, verified model in {models_dir}{detail}")
+        if skipped:  # models are in service and none verifies: an integrity failure (exit code 4)
+            raise NoVerifiedModelError(f"no complete, verified model in {models_dir}; every model in service fails "
+                                       "its checks: " + "; ".join(skipped))
+        raise ModelNotFoundError(f"no complete, verified model in {models_dir}")
     model_id = _check_id(model_id, models_dir)
     path = _model_dir(models_dir, model_id)
     if not path.is_dir():

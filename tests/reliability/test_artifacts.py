@@ -157,7 +157,8 @@ def test_the_command_line_refuses_escapes_and_changed_files(tmp_path, reg, count
     result = run_cli(["predict", *settings, "--model", mid])
     assert result.exit_code == 4 and "SHA-256" in result.stderr, result.output
     result = run_cli(["predict", *settings])  # latest: nothing verified is left
-    assert result.exit_code == 2 and "no complete, verified model" in result.stderr, result.output
+    # the only model in service fails its checks: an integrity failure, exit code 4 (issue 15 item 6; it was 2)
+    assert result.exit_code == 4 and "no complete, verified model" in result.stderr, result.output
     counts["artifacts refused"] += 2
     assert not marker.exists()
 
@@ -206,3 +207,27 @@ def test_a_copied_in_model_is_refused_until_imported_with_a_note(tmp_path, train
     assert imported == mid and registry.load(other, mid).model_id == mid
     source = json.loads((other / registry.INDEX).read_text())["models"][mid]["source"]
     assert source["from"] == str((elsewhere / mid).resolve()) and source["note"] == "from the shared drive"
+
+
+def test_the_command_line_says_plainly_when_latest_skips_and_exits_4_when_nothing_verifies(tmp_path, reg,
+                                                                                           trained_small, counts):
+    """Issue 15 item 6: a fallback is a plain 'Warning:' line, not a raw Python warning; when every model in
+    service fails its checks the exit code is 4 (an integrity failure), not 2 (no model)."""
+    from datetime import datetime, timezone
+
+    models, old = reg
+    trained_small.created_at = datetime.now(timezone.utc).isoformat(timespec="microseconds")
+    new = registry.save(trained_small, models)
+    (models / new / registry.WHATIF).write_bytes(b"changed")
+    result = run_cli(["models", "--models-dir", models, "--json"])
+    assert result.exit_code == 0
+    fallback = run_cli(["predict", "--set", "roll_force_kn_per_cm=8", "--models-dir", models,
+                        "--store", tmp_path / "none.db", "--json"])
+    assert fallback.exit_code == 0, fallback.output
+    assert "Warning: latest skipped newer models" in fallback.stderr and "UserWarning" not in fallback.stderr
+    assert json.loads(fallback.stdout)["model_id"] == old
+    (models / old / registry.WHATIF).write_bytes(b"changed too")
+    none_left = run_cli(["predict", "--set", "roll_force_kn_per_cm=8", "--models-dir", models,
+                         "--store", tmp_path / "none.db"])
+    assert none_left.exit_code == 4 and "every model in service fails its checks" in none_left.stderr
+    counts["artifacts refused"] += 2
