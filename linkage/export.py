@@ -19,6 +19,7 @@ from __future__ import annotations
 import contextlib
 import os
 import tempfile
+from glob import escape as glob_escape
 from pathlib import Path
 
 #: first characters that make a spreadsheet read a cell as a formula (OWASP, CSV Injection)
@@ -45,7 +46,8 @@ def safe_for_spreadsheet(table):
 def write_atomic(path, data: bytes) -> Path:
     """Write ``data`` to ``path`` whole or not at all (temporary file in the same folder, then rename)."""
     path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent or Path("."))
+    _remove_orphans(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.{os.getpid()}.", suffix=".part", dir=path.parent or Path("."))
     try:
         os.fchmod(fd, _new_file_mode())  # mkstemp makes 0600; a written file gets the mode open() would give it
         with os.fdopen(fd, "wb") as fh:
@@ -58,6 +60,26 @@ def write_atomic(path, data: bytes) -> Path:
             os.unlink(tmp)
         raise
     return path
+
+
+def _remove_orphans(path: Path) -> None:
+    """Remove temporary files of earlier writes of ``path`` whose process is gone (killed before its rename;
+    the temporary file's name carries the writer's process id). A live writer's file is left alone."""
+    for tmp in path.parent.glob(f".{glob_escape(path.name)}.*.part"):
+        pid = tmp.name[len(path.name) + 2:].split(".", 1)[0]
+        if pid.isdigit() and not _alive(int(pid)):
+            with contextlib.suppress(OSError):
+                tmp.unlink()
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)  # signal 0: only asks whether the process exists
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True  # it exists, under another account
+    return True
 
 
 def _new_file_mode() -> int:

@@ -90,3 +90,20 @@ def test_an_atomic_write_gives_the_mode_a_plain_write_gives(tmp_path):
     plain.write_text("x")
     atomic = write_atomic(tmp_path / "atomic.txt", b"x")
     assert atomic.stat().st_mode == plain.stat().st_mode
+
+
+def test_a_killed_writers_temporary_file_is_removed_by_the_next_write(tmp_path):
+    """A SIGKILL leaves the temporary file (no handler runs); the next write of the same file removes it when
+    its writer's process is gone, and leaves a live writer's alone."""
+    import subprocess
+    import sys
+
+    gone = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True, text=True)
+    dead_pid = int(gone.stdout)
+    orphan = tmp_path / f".report.html.{dead_pid}.abc123.part"
+    orphan.write_text("half a report")
+    live = tmp_path / f".report.html.{os.getpid()}.zzz999.part"
+    live.write_text("being written")
+    write_atomic(tmp_path / "report.html", b"<html></html>")
+    assert not orphan.exists() and live.exists()
+    assert (tmp_path / "report.html").read_bytes() == b"<html></html>"
