@@ -21,7 +21,8 @@ factor of 3 (:data:`RATIO_LIMIT`) and either
 
 - a unit slip explains it: ``x`` divided or multiplied by 10, 100 or 1000
   (or a roll force divided by the roll width in cm) lands within
-  ``max(3 s, log10 1.5)`` of ``m``, and ``d > 4 s``; or
+  ``max(3 s, log10 1.5)`` of ``m`` and within ``d / 3`` (the slip accounts
+  for most of the distance), and ``d > 4 s``; or
 - ``d > 10 s``, explained or not.
 
 So a new design point at a quarter of the usual roll force passes, a
@@ -86,7 +87,8 @@ def likely_mistake(x: float, m: float, s: float, column: str, roll_width_mm: flo
     """The unit slip that brings ``x`` near the usual value (``m``, ``s`` on the log10 scale), in words, or None."""
     if x <= 0:
         return None
-    near = max(3 * s, EXPLAINED_DECADES)
+    # near the usual value, and at most a third as far from it as x itself: a slip explains most of the distance
+    near = min(max(3 * s, EXPLAINED_DECADES), abs(math.log10(x) - m) / 3)
     if column == "roll_force_kn_per_cm" and roll_width_mm and roll_width_mm > 0:
         per_cm = x / (roll_width_mm / 10.0)
         if abs(math.log10(per_cm) - m) <= near:

@@ -112,3 +112,12 @@ def test_an_unusual_value_taken_deliberately_is_recorded(tmp_path):
     assert entry["inputs"]["reason"] == "DEV-9: fraction is right"
     [record] = entry["inputs"]["accepted_unusual"]
     assert record["lot"] == "H-031" and record["column"] == "dissolution_pct" and record["value"] < 1.0
+
+
+def test_a_small_value_of_a_widely_spread_attribute_is_not_explained_by_a_slip():
+    """Found by the crash test's synthetic lots: friability 0.07 % against a usual 0.285 % (a factor of 4, and
+    0.7 after x10 is no nearer in proportion); a slip must account for most of the distance."""
+    m, s = np.log10(0.285), 0.15
+    assert likely_mistake(0.07, m, s, "friability_pct") is None
+    assert not is_unusual(0.07, m, s, explained=False)
+    assert likely_mistake(0.0285, m, s, "friability_pct") is not None  # a true factor of ten still is
