@@ -276,6 +276,7 @@ def window_text(result: WindowResult) -> str:
                      ", ".join(f"{k} = {v['value']:.4g} ({v['source']})" for k, v in rf["held"].items()))
     if d["not_modelled"]:
         lines.append("Not part of the window (not predicted from porosity): " + ", ".join(d["not_modelled"]))
+    lines += judges_lines(d.get("judges") or {})
     lines.append(CAUTION)
     return "\n".join(lines)
 
@@ -342,6 +343,19 @@ class Window(_Result):
 # --------------------------------------------------------------------------- what-if
 
 
+def stage_text(p_stage: dict) -> str:
+    """``at S1 40.0%, by S2 90.0%, by S3 99.0%`` (cumulative stage probabilities of a compendial judgement)."""
+    from linkage.report.sheet import probability_text
+
+    return ", ".join(f"{'at' if i == 0 else 'by'} {k if k.startswith('S') else 'stage ' + k} "
+                     f"{probability_text(v)}" for i, (k, v) in enumerate(p_stage.items()))
+
+
+def judges_lines(judges: dict) -> list[str]:
+    """How each attribute was judged (linkage.decide.compendial.judge_text), one line each."""
+    return (["Judged:"] + [f"  {a}: {how}" for a, how in judges.items()]) if judges else []
+
+
 def _end(v) -> str:
     return "unbounded" if v is None or abs(v) == float("inf") else f"{v:.4g}"
 
@@ -367,12 +381,15 @@ def whatif_text(result: WhatIf) -> str:
             projected.append(f"   * {name}: {projected_text(p)}")
         if "p_pass" in p:
             line += f"   P(pass) {probability_text(p['p_pass'])}"
+            if "p_stage" in p:
+                line += f" ({stage_text(p['p_stage'])})"
             if not d["promise"]:
                 line += " (extrapolation, not promised)"
         lines.append(line)
     if projected:
         lines.append(f"   * {PROJECTED_NOTE}")
         lines += projected
+    lines += judges_lines(d.get("judges") or {})
     if d["p_pass_all"] is not None:
         if d["promise"]:
             lines.append(f"P(every specification passes together): {probability_text(d['p_pass_all'])}")

@@ -25,6 +25,20 @@ attribute (the valid ones are listed); a key other than ``min``/``max``
 table with neither ``min`` nor ``max``; ``min`` above ``max``; and a limit
 outside the attribute's plausible range, which usually means the wrong unit
 (a porosity of 20 meant as percent, a dissolution maximum of 500).
+
+Compendial judgement (:mod:`linkage.decide.compendial`)::
+
+    [dissolution_pct]
+    min = 80            # Q
+    judge = "stages"    # USP <711> immediate-release table; default "mean"
+    pass_by = "S3"      # the stage a lot must pass by for P(all); default S3
+
+    [acceptance_value]
+    max = 15            # L1 of USP <905>, judged on simulated unit weights
+
+``judge = "stages"`` needs ``min`` (Q, at most 100 %) and no ``max``;
+``pass_by`` needs ``judge = "stages"``; ``[acceptance_value]`` takes only
+``max``, in 0 < max <= 100.
 """
 
 from __future__ import annotations
@@ -39,6 +53,10 @@ from linkage.exceptions import Problem, SpecError, UsageError
 from linkage.schema import (ASSEMBLED, DEFAULT_DISSOLUTION_TIME_MIN, QUALITY_ATTRIBUTES, TABLES)
 
 DISSOLUTION = "dissolution_pct"
+#: the spec table of the USP <905> acceptance value (not a column: judged on simulated units)
+ACCEPTANCE_VALUE = "acceptance_value"
+JUDGES = ("mean", "stages")
+STAGES = ("S1", "S2", "S3")
 
 #: Plausible ranges of the quality attributes that are not input columns of
 #: the template (those take their bounds from ``schema.TABLES``).
@@ -93,6 +111,12 @@ class Spec:
 
     limits: dict[str, Limit] = field(default_factory=dict)
     dissolution_time_min: float = DEFAULT_DISSOLUTION_TIME_MIN
+    #: how dissolution is judged: "mean" (the lot mean against its limits) or "stages" (USP <711> Table 1 on
+    #: simulated units, Q = min), and the stage a lot must pass by ("S1", "S2" or "S3")
+    dissolution_judge: str = "mean"
+    dissolution_pass_by: str = "S3"
+    #: L1 of the USP <905> acceptance value ([acceptance_value] max); None when the spec has no such table
+    acceptance_value_max: float | None = None
 
     def passes(self, attribute: str, value: float) -> bool:
         """True when ``value`` meets the limits of ``attribute`` (inclusive).
@@ -112,11 +136,23 @@ class Spec:
         return (limit.min is None or v >= limit.min) and (limit.max is None or v <= limit.max)
 
     def to_dict(self) -> dict:
-        return {
+        out = {
             "limits": {a: {k: v for k, v in (("min", lim.min), ("max", lim.max)) if v is not None}
                        for a, lim in self.limits.items()},
             "dissolution_time_min": self.dissolution_time_min,
         }
+        if self.dissolution_judge != "mean":  # keys only when used, so a plain spec's record is unchanged
+            out["dissolution_judge"] = self.dissolution_judge
+            out["dissolution_pass_by"] = self.dissolution_pass_by
+        if self.acceptance_value_max is not None:
+            out["acceptance_value_max"] = self.acceptance_value_max
+        return out
+
+    def judges(self) -> dict[str, str]:
+        """Attribute -> how it is judged, in words (every output says it)."""
+        from linkage.decide.compendial import judge_text
+
+        return judge_text(self)
 
     @classmethod
     def from_dict(cls, data: dict, file: str = "spec") -> Spec:
@@ -125,6 +161,11 @@ class Spec:
         time = data.get("dissolution_time_min", DEFAULT_DISSOLUTION_TIME_MIN)
         if time != DEFAULT_DISSOLUTION_TIME_MIN or DISSOLUTION in tables:
             tables.setdefault(DISSOLUTION, {})["time_min"] = time
+        if data.get("dissolution_judge", "mean") != "mean":
+            tables.setdefault(DISSOLUTION, {})["judge"] = data["dissolution_judge"]
+            tables[DISSOLUTION]["pass_by"] = data.get("dissolution_pass_by", "S3")
+        if data.get("acceptance_value_max") is not None:
+            tables[ACCEPTANCE_VALUE] = {"max": data["acceptance_value_max"]}
         return _parse(tables, file, "")
 
 
@@ -157,14 +198,18 @@ def _parse(data: dict, file: str, text: str) -> Spec:
     if not data:
         problems.append(Problem(file, "no limits: give one table per quality attribute, e.g. "
                                       "[dissolution_pct] min = 80"))
+    judge, pass_by, av_max = "mean", "S3", None
     for attr, table in data.items():
+        if attr == ACCEPTANCE_VALUE:
+            av_max = _parse_acceptance_value(table, bad)
+            continue
         if attr not in QUALITY_ATTRIBUTES:
             bad(attr, f"unknown quality attribute [{attr}]{_suggest(attr)}; valid: {', '.join(QUALITY_ATTRIBUTES)}")
             continue
         if not isinstance(table, dict):
             bad(attr, f"'{attr}' must be a table: [{attr}] with min and/or max", table)
             continue
-        allowed = {"min", "max", "time_min"} if attr == DISSOLUTION else {"min", "max"}
+        allowed = {"min", "max", "time_min", "judge", "pass_by"} if attr == DISSOLUTION else {"min", "max"}
         unknown = sorted(set(table) - allowed)
         for key in unknown:
             where = " (time_min belongs in [dissolution_pct] only)" if key == "time_min" else ""
@@ -206,11 +251,72 @@ def _parse(data: dict, file: str, text: str) -> Spec:
                 ok = False
             else:
                 time_min = values["time_min"]
+        if attr == DISSOLUTION and ("judge" in table or "pass_by" in table):
+            judged = _parse_judge(table, values, bad)
+            if judged is None:
+                ok = False
+            else:
+                judge, pass_by = judged
         if ok and ("min" in values or "max" in values) and set(values) >= set(table) & {"min", "max"}:
             limits[attr] = Limit(values.get("min"), values.get("max"))
     if problems:
         raise SpecError(problems)
-    return Spec(limits, time_min)
+    return Spec(limits, time_min, judge, pass_by, av_max)
+
+
+def _parse_judge(table: dict, values: dict, bad) -> tuple[str, str] | None:
+    """``judge`` and ``pass_by`` of [dissolution_pct]; None (with the problems told to ``bad``) when wrong."""
+    judge, pass_by = table.get("judge", "mean"), table.get("pass_by", "S3")
+    ok = True
+    if judge not in JUDGES:
+        bad(DISSOLUTION, f"[{DISSOLUTION}] judge must be \"mean\" (the lot mean against the limits) or "
+                         f"\"stages\" (USP <711> acceptance table)", judge)
+        return None
+    if "pass_by" in table and judge != "stages":
+        bad(DISSOLUTION, f"[{DISSOLUTION}] pass_by applies to judge = \"stages\" only", pass_by)
+        ok = False
+    elif pass_by not in STAGES:
+        bad(DISSOLUTION, f"[{DISSOLUTION}] pass_by must be \"S1\", \"S2\" or \"S3\" (USP <711> stages)", pass_by)
+        ok = False
+    if judge == "stages":
+        if "max" in table:
+            bad(DISSOLUTION, f"[{DISSOLUTION}] judge = \"stages\" judges a minimum Q (USP <711> Table 1); "
+                             "remove max", table["max"])
+            ok = False
+        if "min" not in table:
+            bad(DISSOLUTION, f"[{DISSOLUTION}] judge = \"stages\" needs min (Q, % of label claim)")
+            ok = False
+        elif "min" in values and not 0 <= values["min"] <= 100:
+            bad(DISSOLUTION, f"[{DISSOLUTION}] judge = \"stages\": Q = min must lie in 0 to 100 % of label claim "
+                             "(USP <711>)", table["min"])
+            ok = False
+    return (judge, pass_by) if ok else None
+
+
+def _parse_acceptance_value(table, bad) -> float | None:
+    """``max`` of [acceptance_value] (L1 of USP <905>); None (with the problems told to ``bad``) when wrong."""
+    attr = ACCEPTANCE_VALUE
+    if not isinstance(table, dict):
+        bad(attr, f"'{attr}' must be a table: [{attr}] with max (L1 of USP <905>, usually 15)", table)
+        return None
+    for key in sorted(set(table) - {"max"}):
+        bad(attr, f"[{attr}]: unknown key '{key}'; allowed: max (L1 of USP <905>; the acceptance value has no "
+                  "minimum)", table[key])
+    if "max" not in table:
+        if set(table) <= {"max"}:
+            bad(attr, f"[{attr}] needs max (L1 of USP <905>, usually 15)")
+        return None
+    v = table["max"]
+    f = float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) and abs(v) < 1e300 else math.nan
+    if not math.isfinite(f):
+        bad(attr, f"[{attr}] max must be a number", v)
+        return None
+    lo, hi = DERIVED_RANGES["weight_acceptance_value"]
+    if not lo < f <= hi:
+        bad(attr, f"[{attr}] max = {f:g} is outside {lo:g} < max <= {hi:g} (L1 of USP <905> is 15.0 unless the "
+                  "monograph says otherwise)", v)
+        return None
+    return None if set(table) - {"max"} else f
 
 
 def _line_of(text: str, attr: str) -> int | None:

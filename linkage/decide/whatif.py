@@ -26,6 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from linkage import CAUTION
+from linkage.decide import compendial
 from linkage.decide.propagate import fill_settings, simulate, within
 from linkage.exceptions import UsageError
 from linkage.numbers import parse_plain_number
@@ -111,6 +112,8 @@ class WhatIf:
     in_domain: bool
     domain_reasons: list[str]
     domain: dict[str, dict] = field(default_factory=dict)
+    #: attribute -> how the spec judges it, in words (linkage.decide.compendial.judge_text)
+    judges: dict[str, str] = field(default_factory=dict)
 
     @property
     def promise(self) -> bool:
@@ -136,6 +139,7 @@ class WhatIf:
             "domain": self.domain,
             "promise": self.promise,
             "promise_reasons": self.promise_reasons,
+            "judges": self.judges,
             "caution": CAUTION,
         }
 
@@ -165,6 +169,7 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
     spec_limits = spec.limits if spec is not None else {}
     pass_all = np.ones(draws.n_draws, dtype=bool)
     any_spec = False
+    judged = compendial.judge_draws(chain, draws, spec, seed=seed) if compendial.needs_units(spec) else None
     for stage in chain.stages:
         todo = [t for t in stage.targets if t not in draws.fixed]
         if not todo:
@@ -200,13 +205,23 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
             }
             if name in spec_limits:
                 ok = within(v, spec_limits[name])
+                if judged is not None and name in judged.passes:  # judged on simulated units
+                    ok = judged.passes[name][0]
+                    entry.update(compendial.stage_entry(spec, judged))
                 entry["p_pass"] = float(ok.mean())
                 entry["limits"] = {"min": spec_limits[name].min, "max": spec_limits[name].max}
+                entry.setdefault("judge", "mean")
                 pass_all &= ok
                 any_spec = True
             if contributions:
                 entry["contributions"] = _top_contributions(target, x)
             predictions[name] = entry
+
+    if judged is not None and compendial.ACCEPTANCE_VALUE in judged.passes:
+        ok = judged.passes[compendial.ACCEPTANCE_VALUE][0]
+        predictions[compendial.ACCEPTANCE_VALUE] = compendial.av_entry(spec, judged, level)
+        pass_all &= ok
+        any_spec = True
 
     inputs = {k: {"value": float(filled[k]), "source": source[k]} for k in filled}
     return WhatIf(
@@ -215,6 +230,7 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         level=level, inputs=inputs, predictions=predictions,
         p_pass_all=float(pass_all.mean()) if any_spec else None,
         in_domain=not reasons, domain_reasons=reasons, domain=domain,
+        judges=compendial.judge_text(spec) if spec is not None else {},
     )
 
 

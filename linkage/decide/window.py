@@ -39,6 +39,7 @@ import numpy as np
 import pandas as pd
 
 from linkage import CAUTION
+from linkage.decide import compendial
 from linkage.decide.propagate import fill_settings, mean_passes, pass_matrix, simulate, within
 from linkage.exceptions import UsageError
 from linkage.models.lean import project
@@ -79,6 +80,8 @@ class WindowResult:
     promise: bool = True
     promise_reasons: list[str] = field(default_factory=list)
     in_domain: np.ndarray | None = field(repr=False, default=None)
+    #: attribute -> how the spec judges it, in words (linkage.decide.compendial.judge_text)
+    judges: dict[str, str] = field(default_factory=dict)
 
     @property
     def found(self) -> bool:
@@ -105,6 +108,7 @@ class WindowResult:
             "seed": self.seed,
             "promise": self.promise,
             "promise_reasons": list(self.promise_reasons),
+            "judges": dict(self.judges),
             "caution": CAUTION,
         }
         if curve:
@@ -145,6 +149,8 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     produced = set(chain.targets)
     downstream = downstream_targets(chain)
     attributes = [a for a in spec.limits if a in downstream]
+    if spec.acceptance_value_max is not None:  # judged on simulated unit weights (linkage.decide.compendial)
+        attributes.append(compendial.ACCEPTANCE_VALUE)
     not_modelled = [a for a in spec.limits if a not in downstream and a != POROSITY]
     if not attributes:
         raise UsageError("none of the spec's attributes is predicted downstream of ribbon_porosity "
@@ -164,13 +170,20 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
             source[k] = "given"
     draws = simulate(chain, frame, n_draws=n_draws, seed=seed)
 
-    passes = pass_matrix(draws, spec, attributes)
+    limited = [a for a in attributes if a in spec.limits]
+    passes = pass_matrix(draws, spec, limited)
+    if compendial.needs_units(spec):  # units simulated around each lot: USP <711> stages, USP <905>
+        passes.update(compendial.judge_draws(chain, draws, spec, seed=seed).passes)
     all_pass = np.logical_and.reduce(list(passes.values()))
     if POROSITY in spec.limits:  # a porosity limit of its own cuts the grid directly
         all_pass &= within(grid, spec.limits[POROSITY])[:, None]
     p_all = all_pass.mean(axis=1)
     p_each = {a: passes[a].mean(axis=1) for a in attributes}
-    mean_ok = np.logical_and.reduce(list(mean_passes(draws, spec, attributes).values()))
+    mean_ok = np.logical_and.reduce(list(mean_passes(draws, spec, limited).values())
+                                    or [np.ones(n_grid, dtype=bool)])
+    av_mean = compendial.mean_av_pass(draws, spec, chain)
+    if av_mean is not None:
+        mean_ok &= av_mean
     if POROSITY in spec.limits:
         mean_ok &= within(grid, spec.limits[POROSITY])
 
@@ -188,7 +201,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
 
     bands = {}
     q = (1 - confidence) / 2
-    for a in attributes:
+    for a in limited:
         v = draws.values[a]
         bands[a] = {"mean": draws.means[a], "low": np.quantile(v, q, axis=1), "high": np.quantile(v, 1 - q, axis=1)}
 
@@ -205,6 +218,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         not_modelled=not_modelled, roll_force=force, grid=grid, p_all=p_all, p_each=p_each,
         bands=bands, mean_ok=mean_ok, n_draws=n_draws, seed=seed,
         promise=domain["promise"], promise_reasons=domain["reasons"], in_domain=domain["in_domain"],
+        judges={a: t for a, t in compendial.judge_text(spec).items() if a in attributes},
     )
 
 

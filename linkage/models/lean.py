@@ -375,6 +375,7 @@ class LeanChain:
         self.chain_targets = list(spec["chain_targets"])
         self.chain_root_inputs = list(spec["chain_root_inputs"])
         self.stages = [Stage(s) for s in spec["stages"]]
+        self.within_lot = dict(spec.get("within_lot") or {})  # absent in models saved before it was kept
         self.targets = {name: t for st in self.stages for name, t in st.targets.items()}
 
     def root_inputs(self) -> list[str]:
@@ -440,6 +441,8 @@ def export(chain) -> dict:
         "medians": {k: _num(v) for k, v in medians.items()},
         "chain_targets": list(chain.chain.targets()), "chain_root_inputs": list(chain.chain.root_inputs()),
         "stages": stages,
+        # within-lot spread for unit-level compendial judgement (linkage.decide.compendial)
+        "within_lot": chain.training.get("within_lot") or {},
     }
 
 

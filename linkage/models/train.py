@@ -412,6 +412,7 @@ def _training_record(table: pd.DataFrame, chain: ChainSpec, raw: pd.DataFrame, n
         "ranges": ranges,
         "notes": notes,
     }
+    rec["within_lot"] = _within_lot(raw)
     if "product" in raw.columns:
         rec["products"] = sorted({str(v) for v in raw["product"].dropna()})
     if "manufactured_at" in raw.columns:
@@ -419,6 +420,16 @@ def _training_record(table: pd.DataFrame, chain: ChainSpec, raw: pd.DataFrame, n
         if len(t):
             rec["manufactured"] = [t.min().isoformat(), t.max().isoformat()]
     return rec
+
+
+def _within_lot(raw: pd.DataFrame) -> dict:
+    """Within-lot spread of the training lots (vessel SD, unit weight RSD) for
+    unit-level compendial judgement (:func:`linkage.decide.compendial.fit_within_lot`)."""
+    from linkage.decide.compendial import fit_within_lot
+
+    cols = ("dissolution_pct", "dissolution_sd_pct", "dissolution_vessels", "weight_rsd_pct", "weight_units")
+    return fit_within_lot(**{c: pd.to_numeric(raw[c], errors="coerce").to_numpy(float) if c in raw.columns else None
+                             for c in cols}, time_min=raw.attrs.get("dissolution_time_min"))
 
 
 def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: int = 0,

@@ -780,7 +780,9 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
     if w.mean_low is not None:
         b.add(f"<p>Mean-response window (where the chain of mean predictions passes; it overstates what can be "
               f"promised, Peterson 2008): {w.mean_low:.3f} – {w.mean_high:.3f}.</p>")
-    rows = [[_e(a), _e(F.shown_unit(a)), _e(_limit_text(spec.limits.get(a)))] for a in w.attributes]
+    judges = getattr(w, "judges", {}) or {}
+    rows = [[_e(a), _e(F.shown_unit(a)), _e(_limit_text(spec.limits.get(a)) if a in spec.limits else "")
+             + (f" ({_e(judges[a])})" if a in judges else "")] for a in w.attributes]
     rows += [[_e(a), _e(F.shown_unit(a)), _e(_limit_text(spec.limits.get(a))) + " (not predicted from porosity: "
               "not part of the window)"] for a in w.not_modelled]
     b.add(_table(["attribute", "unit", "specification"], rows))

@@ -112,6 +112,10 @@ def whatif_html(result) -> str:
             ) if s
         ) or "no limit given"
         p_pass = "–" if "p_pass" not in p else escape(probability_text(p["p_pass"]))
+        if "p_stage" in p:
+            p_pass += "<br><span class=meta>" + ", ".join(
+                f"{escape(k if k.startswith('S') else 'stage ' + k)} {escape(probability_text(v))}"
+                for k, v in p["p_stage"].items()) + " (passing by)</span>"
         if "p_pass" in p and not d["promise"]:
             p_pass += "<br><span class=meta>extrapolation, not promised</span>"
         mark = ""
@@ -145,6 +149,9 @@ def whatif_html(result) -> str:
         p_all = ("<p>No probability of meeting every specification is promised here (outside the applicability "
                  "domain, see above). The share of simulated lots that pass every limit, "
                  f"{escape(probability_text(d['p_pass_all']))}, is an extrapolation.</p>")
+    if d.get("judges"):
+        p_all += ("<p class=meta>Judged: " + "; ".join(f"{escape(a)}: {escape(how)}" for a, how in d["judges"].items())
+                  + ".</p>")
     if any(p.get("projected") for p in d["predictions"].values()):
         p_all += f"<p class=meta>{escape(PROJECTED_NOTE[0].upper() + PROJECTED_NOTE[1:])}.</p>"
     return f"""<!DOCTYPE html>
