@@ -80,6 +80,7 @@ __all__ = [
     "rrsb_from_d50_fines",
     "remeasure_ribbon",
     "spec_toml",
+    "UnitScenario",
 ]
 
 #: sieve stack of the granule analysis [um], coarsest first; 0 is the pan
@@ -1030,3 +1031,151 @@ def remeasure_ribbon(lots: SyntheticLots, lot: str, seed: int = 1, envelope_bias
     new["envelope_density_g_cm3"] = envelope
     new["skeletal_density_g_cm3"] = skeletal
     return new.reset_index(drop=True)
+
+
+# ---------------------------------------------------------------- unit-level (compendial) scenario
+@dataclass(frozen=True)
+class UnitScenario:
+    r"""Lots with unit-level data and a known truth for compendial judgement.
+
+    The upstream chain is :class:`Truth` (``truth``); on top of it every lot
+    has units:
+
+    - Dissolution: each vessel follows a Weibull profile (Langenbucher 1972,
+      from memory) :math:`R(t) = R_{max}(1 - e^{-(t/\tau)^\beta})` with its
+      own time scale, :math:`\ln\tau_{ij} = \ln\tau(\varepsilon, d_{50}, F)
+      + s_{lot} z_j + s_{vessel} z_{ij}`, where :math:`\tau(\cdot)` is the
+      time scale of :meth:`Truth.tablets_mean`. The vessel SD of release then
+      changes with the lot mean (largest on the steep part of the profile),
+      and units are skewed near the plateau: not the normal units
+      :mod:`linkage.decide.compendial` assumes. ``n_vessels`` vessels are
+      measured at each of ``times_min``.
+    - Unit weight: each lot has its own RSD, :math:`s_{lot} =` the truth's
+      weight RSD mean (exponential in fines) plus Gaussian lot scatter
+      (``truth.weight_rsd_sd_pct``), floored at ``truth.min_weight_rsd_pct``;
+      units are normal around the lot's mean weight with that RSD,
+      independent, weighed to 0.1 mg; ``n_units`` per lot.
+
+    :meth:`true_probabilities` simulates many lots at a ribbon porosity from
+    this process and judges them with the pure functions of
+    :mod:`linkage.physics.pharmacopeia` (brute force). All coefficients are
+    invented; the default weight RSD is three times that of
+    :meth:`Truth.window_scenario`, so that the acceptance value of USP <905>
+    binds inside the porosity range.
+    """
+
+    truth: Truth = field(default_factory=lambda: Truth(weight_rsd_ref_pct=6.0, weight_rsd_per_fines_pct=0.03,
+                                                       weight_rsd_sd_pct=0.8))
+    times_min: tuple[float, ...] = (15.0, 30.0, 45.0)
+    n_vessels: int = 6
+    n_units: int = 10
+    tau_lot_sd_ln: float = 0.06
+    tau_vessel_sd_ln: float = 0.12
+
+    def tau_min(self, ribbon_porosity, granule_d50_um, compression_force_kn):
+        """Median Weibull time scale of a lot [min], as in :meth:`Truth.tablets_mean`."""
+        t = self.truth
+        eps, d50, force = _arr(ribbon_porosity), _arr(granule_d50_um), _arr(compression_force_kn)
+        return (t.tau_ref_min * np.exp(-t.tau_per_porosity * (eps - t.porosity_ref))
+                * (force / t.force_ref_kn) ** t.tau_force_exponent
+                * (d50 / t.d50_ref_um) ** t.tau_d50_exponent)
+
+    def released_pct(self, tau_min, time_min):
+        """Weibull release [% label claim] at ``time_min`` of units with time scale ``tau_min``."""
+        t = self.truth
+        return t.dissolution_max_pct * -np.expm1(-(float(time_min) / _arr(tau_min)) ** t.weibull_beta)
+
+    def _lot_rsd(self, weight_rsd_mean, z):
+        t = self.truth
+        return np.maximum(weight_rsd_mean + t.weight_rsd_sd_pct * z, t.min_weight_rsd_pct)
+
+    def make_lots(self, n_lots: int, seed: int = 0, **kwargs) -> SyntheticLots:
+        """Lots from :func:`make_lots` (``kwargs`` passed on) whose ``dissolution``
+        table holds ``n_vessels`` vessels at each of ``times_min`` and whose
+        ``tablet_weights`` table holds ``n_units`` units, drawn as the class
+        notes say; ``tablets.dissolution_pct`` is the vessel mean at
+        ``truth.dissolution_time_min`` and ``tablets.weight_rsd_pct`` the
+        sample RSD of the units. ``lot_truth`` gains ``tau_lot_min`` and
+        ``weight_rsd_lot_pct`` (the lot's true time scale and unit RSD)."""
+        lots = make_lots(n_lots, seed, self.truth, with_units=False, with_vessels=False, **kwargs)
+        lt = lots.lot_truth
+        n = len(lt)
+        rng = np.random.default_rng(np.random.SeedSequence([int(seed), 905711]))
+        tau = (self.tau_min(lt["ribbon_porosity_lot"], lt["granule_d50_um"], lt["compression_force_kn"])
+               * np.exp(self.tau_lot_sd_ln * rng.standard_normal(n)))
+        tau_v = tau[:, None] * np.exp(self.tau_vessel_sd_ln * rng.standard_normal((n, self.n_vessels)))
+        rsd = self._lot_rsd(lt["weight_rsd_pct_mean"].to_numpy(float), rng.standard_normal(n))
+        mean_weight = self.truth.tablet_weight_mg * (1.0 + self.truth.unit_weight_lot_sd_rel * rng.standard_normal(n))
+        weights = np.round(mean_weight[:, None] * (1.0 + rsd[:, None] / 100.0
+                                                   * rng.standard_normal((n, self.n_units))), 1)
+        lot_ids = lt["lot"].to_numpy(object)
+        k, times = self.n_vessels, np.asarray(self.times_min, float)
+        released = np.round(np.stack([self.released_pct(tau_v, t) for t in times], axis=2), 1)  # lot, vessel, time
+        tables = dict(lots.tables)
+        tables["dissolution"] = pd.DataFrame({
+            "lot": np.repeat(lot_ids, k * len(times)),
+            "vessel": np.tile(np.repeat(np.arange(1, k + 1).astype(str).astype(object), len(times)), n),
+            "time_min": np.tile(times, n * k),
+            "released_pct": released.ravel(),
+        })
+        tables["tablet_weights"] = pd.DataFrame({
+            "lot": np.repeat(lot_ids, self.n_units),
+            "unit": np.tile(np.arange(1, self.n_units + 1).astype(str).astype(object), n),
+            "weight_mg": weights.ravel(),
+        })
+        at = self.truth.dissolution_time_min
+        at_spec = np.array([np.interp(at, times, released[i, j]) for i in range(n) for j in range(k)]).reshape(n, k)
+        tablets = tables["tablets"].copy()
+        tablets["dissolution_pct"] = np.round(at_spec.mean(axis=1), 2)
+        tablets["weight_rsd_pct"] = np.round(100.0 * weights.std(axis=1, ddof=1) / weights.mean(axis=1), 2)
+        tables["tablets"] = tablets
+        lt = lt.assign(tau_lot_min=tau, weight_rsd_lot_pct=rsd, dissolution_pct=tablets["dissolution_pct"].to_numpy(),
+                       weight_rsd_pct=tablets["weight_rsd_pct"].to_numpy())
+        return SyntheticLots(tables=tables, truth=self.truth, lot_truth=lt)
+
+    def true_probabilities(self, ribbon_porosity: float, *, q_pct: float, time_min: float, mill_screen_mm: float,
+                           compression_force_kn: float, l1_pct: float = 15.0, n_lots: int = 4000,
+                           seed: int = 0) -> dict[str, float]:
+        """True probabilities that a new lot of this (true) ribbon porosity
+        passes the compendial tests, by brute force: ``n_lots`` lots drawn
+        from the generating process (granule and tablet lot scatter, then
+        units), each judged with :func:`linkage.physics.pharmacopeia.dissolution_stage`
+        on 24 vessels and with the two-stage weight-variation acceptance value
+        of USP <905> on 30 units (stage 1: the first 10).
+
+        Returns ``S1`` (passes at S1), ``S2``, ``S3`` (passes by that stage),
+        ``av_stage1`` (AV of 10 units <= L1) and ``av`` (passes USP <905>).
+        """
+        from linkage.physics import pharmacopeia as ph
+
+        t = self.truth
+        rng = np.random.default_rng(np.random.SeedSequence([int(seed), 711905]))
+        eps = np.full(n_lots, float(ribbon_porosity))
+        g = t.granules_mean(eps, float(mill_screen_mm))
+        z = rng.standard_normal((2, n_lots))
+        d50, fines = t._realise_granules(g["granule_d50_um"], g["fines_pct"], z[0], z[1])
+        means = t.tablets_mean(eps, d50, fines, float(compression_force_kn))
+        tau = self.tau_min(eps, d50, float(compression_force_kn)) * np.exp(self.tau_lot_sd_ln
+                                                                          * rng.standard_normal(n_lots))
+        units = self.released_pct(tau[:, None] * np.exp(self.tau_vessel_sd_ln * rng.standard_normal((n_lots, 24))),
+                                  time_min)
+        rsd = self._lot_rsd(means["weight_rsd_pct"], rng.standard_normal(n_lots))
+        weights = t.tablet_weight_mg * (1.0 + rsd[:, None] / 100.0 * rng.standard_normal((n_lots, 30)))
+        s1 = s2 = s3 = av1 = av = 0
+        for i in range(n_lots):
+            v = ph.dissolution_stage(units[i], q_pct)  # USP <711> Table 1
+            s1 += v["passed"] and v["stage"] == "S1"
+            s2 += v["passed"] and v["stage"] in ("S1", "S2")
+            s3 += v["passed"]
+            w = np.maximum(weights[i], 1e-6)
+            first = ph.acceptance_value(ph.weight_variation_contents_pct(w[:10]))["av"] <= l1_pct  # USP <905> stage 1
+            av1 += first
+            if first:
+                av += 1
+                continue
+            c = ph.weight_variation_contents_pct(w)
+            stage2 = ph.acceptance_value(c)
+            low, high = ph.stage2_unit_range_pct(stage2["m"])
+            av += stage2["av"] <= l1_pct and bool(np.all((c >= low) & (c <= high)))  # USP <905> stage 2
+        return {"S1": s1 / n_lots, "S2": s2 / n_lots, "S3": s3 / n_lots, "av_stage1": av1 / n_lots,
+                "av": av / n_lots}
