@@ -111,3 +111,54 @@ def test_every_quality_attribute_has_a_plausible_range():
     assert DERIVED_RANGES["ribbon_porosity"] == (0.0, 1.0) == DERIVED_RANGES["ribbon_solid_fraction"]
     assert plausible_range("dissolution_pct") == (0, 150)  # the schema's bound of tablets.dissolution_pct
     assert plausible_range("granule_d50_um") == (0, 100_000)  # from granules_laser.d50_um
+
+
+# ---- compendial judgement (issue 13 item 2) ------------------------------------------------------------------
+def test_stages_judge_and_acceptance_value(tmp_path):
+    # USP <711> Acceptance Table 1 judges a minimum Q (references.md §7b); USP <905>: L1 = 15.0 (§7a)
+    spec = read_spec(spec_file(tmp_path, '[dissolution_pct]\nmin = 80\njudge = "stages"\npass_by = "S2"\n'
+                                         "[acceptance_value]\nmax = 15\n"))
+    assert (spec.dissolution_judge, spec.dissolution_pass_by, spec.acceptance_value_max) == ("stages", "S2", 15.0)
+    assert spec.limits == {"dissolution_pct": Limit(80.0, None)}  # the acceptance value is not a column limit
+    assert Spec.from_dict(spec.to_dict()) == spec
+    assert spec.to_dict()["dissolution_judge"] == "stages" and spec.to_dict()["acceptance_value_max"] == 15.0
+    assert "USP <711>" in spec.judges()["dissolution_pct"] and "USP <905>" in spec.judges()["acceptance_value"]
+    # defaults: judged on the mean, pass by S3; a plain spec's record is unchanged
+    plain = read_spec(spec_file(tmp_path, "[dissolution_pct]\nmin = 80\n"))
+    assert (plain.dissolution_judge, plain.dissolution_pass_by, plain.acceptance_value_max) == ("mean", "S3", None)
+    assert set(plain.to_dict()) == {"limits", "dissolution_time_min"}
+    staged = read_spec(spec_file(tmp_path, '[dissolution_pct]\nmin = 75\njudge = "stages"\n'))
+    assert staged.dissolution_pass_by == "S3"
+
+
+@pytest.mark.parametrize("text, line, column, expected", [
+    ('[dissolution_pct]\nmin = 80\njudge = "median"\n', 1, "dissolution_pct", 'judge must be "mean"'),
+    ('[dissolution_pct]\nmin = 80\njudge = "stages"\npass_by = "S4"\n', 1, "dissolution_pct",
+     'pass_by must be "S1", "S2" or "S3"'),
+    ('[dissolution_pct]\nmin = 80\npass_by = "S1"\n', 1, "dissolution_pct", 'pass_by applies to judge = "stages"'),
+    ('[dissolution_pct]\nmin = 80\nmax = 110\njudge = "stages"\n', 1, "dissolution_pct",
+     "judges a minimum Q (USP <711> Table 1); remove max"),
+    ('[dissolution_pct]\nmin = 120\njudge = "stages"\n', 1, "dissolution_pct", "Q = min must lie in 0 to 100"),
+    ("\n[acceptance_value]\nmax = 0\n", 2, "acceptance_value", "outside 0 < max <= 100"),
+    ("[acceptance_value]\nmax = 150\n", 1, "acceptance_value", "L1 of USP <905> is 15.0"),
+    ("[acceptance_value]\nmin = 5\nmax = 15\n", 1, "acceptance_value", "unknown key 'min'"),
+    ("[acceptance_value]\n", 1, "acceptance_value", "needs max"),
+    ('[acceptance_value]\nmax = "15"\n', 1, "acceptance_value", "max must be a number"),
+    ("acceptance_value = 15\n", None, "acceptance_value", "must be a table"),
+])
+def test_bad_judgement_is_a_clear_error(tmp_path, text, line, column, expected):
+    with pytest.raises(SpecError) as exc:
+        read_spec(spec_file(tmp_path, text))
+    (p,) = exc.value.problems
+    assert (p.file, p.row, p.column) == ("spec.toml", line, column)
+    assert expected in p.rule
+    assert exc.value.exit_code == 2
+
+
+def test_judgement_problems_come_all_at_once(tmp_path):
+    with pytest.raises(SpecError) as exc:
+        read_spec(spec_file(tmp_path, '[dissolution_pct]\nmin = 80\njudge = "stage"\n[acceptance_value]\nmax = -1\n'))
+    assert [p.column for p in exc.value.problems] == ["dissolution_pct", "acceptance_value"]
+    with pytest.raises(SpecError) as exc:
+        read_spec(spec_file(tmp_path, '[dissolution_pct]\nmax = 110\njudge = "stages"\n'))
+    assert ["remove max" in p.rule or "needs min" in p.rule for p in exc.value.problems] == [True, True]
