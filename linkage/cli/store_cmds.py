@@ -169,10 +169,24 @@ def assemble(store, out, product, fines_cutoff_um, spec_path):
             values = table[attr].dropna()
             passing = sum(spec.passes(attr, v) for v in values)
             click.echo(f"  {attr} {limit.text()}: {passing}/{len(values)}")
+        _compendial_counts(table, spec)
     for note in table.attrs.get("notes", []):
         click.echo(f"Note: {note}")
 
 
+def _compendial_counts(table, spec) -> None:
+    """Measured lots judged as the spec's compendial judges say, on their own units."""
+    if spec.dissolution_judge == "stages" and "dissolution_s1_pass" in table:
+        s1 = table["dissolution_s1_pass"].dropna().astype(bool)
+        click.echo(f"  dissolution_pct by USP <711> stages (Q = {spec.limits['dissolution_pct'].min:g}): "
+                   f"{int(s1.sum())}/{len(s1)} lots with vessel data pass at S1 on their own vessels")
+    if spec.acceptance_value_max is not None:
+        if "weight_acceptance_value" not in table:
+            click.echo("  acceptance_value: no lot has 10 or 30 unit weights")
+        else:
+            av = table["weight_acceptance_value"].dropna()
+            click.echo(f"  acceptance_value <= {spec.acceptance_value_max:g} (USP <905> stage 1, weight variation): "
+                       f"{int((av <= spec.acceptance_value_max).sum())}/{len(av)}")
 
 
 def _plain(value):

@@ -142,3 +142,26 @@ def test_cli_says_which_judge_and_gives_the_stage_keys(unit_scenario):
     r = runner.invoke(cli, ["window", "--spec", str(folder / "spec.toml"), "--draws", "500", *args])
     assert r.exit_code == 0, r.output
     assert "Judged:" in r.stdout and "USP <711> stages" in r.stdout
+
+
+def test_assemble_counts_measured_lots_by_their_own_units(tmp_path):
+    # each lot's 6 vessels at 30 min judged at S1 of USP <711> Table 1, and its 10 unit weights by the stage-1
+    # acceptance value of USP <905>, with the pure functions of linkage.physics.pharmacopeia
+    from linkage.physics import pharmacopeia as ph
+
+    lots = UnitScenario().make_lots(20, seed=3)
+    lots.write_csv(tmp_path / "lab")
+    (tmp_path / "lab" / "spec.toml").write_text(SPEC_TOML, encoding="utf-8")
+    runner = CliRunner()
+    db = str(tmp_path / "s.db")
+    assert runner.invoke(cli, ["ingest", str(tmp_path / "lab"), "--store", db]).exit_code == 0
+    r = runner.invoke(cli, ["assemble", "--store", db, "--spec", str(tmp_path / "lab" / "spec.toml")])
+    assert r.exit_code == 0, r.output
+    d = lots.tables["dissolution"]
+    at = d[d["time_min"] == TIME]
+    s1 = sum(ph.dissolution_s1_pass(g["released_pct"].to_numpy(), Q) for _, g in at.groupby("lot"))
+    w = lots.tables["tablet_weights"]
+    av = sum(ph.acceptance_value(ph.weight_variation_contents_pct(g["weight_mg"].to_numpy()))["av"] <= 15
+             for _, g in w.groupby("lot"))
+    assert f"USP <711> stages (Q = 80): {s1}/20 lots" in r.output
+    assert f"acceptance_value <= 15 (USP <905> stage 1, weight variation): {av}/20" in r.output
