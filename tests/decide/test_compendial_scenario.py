@@ -165,3 +165,18 @@ def test_assemble_counts_measured_lots_by_their_own_units(tmp_path):
              for _, g in w.groupby("lot"))
     assert f"USP <711> stages (Q = 80): {s1}/20 lots" in r.output
     assert f"acceptance_value <= 15 (USP <905> stage 1, weight variation): {av}/20" in r.output
+
+
+@pytest.mark.slow
+def test_fitted_and_lean_forms_judge_alike(unit_scenario):
+    # the within-lot spread travels in whatif.npz: the what-if of `linkage predict` (lean form, numpy only)
+    # gives the same unit-level probabilities as the fitted chain, for the same seed
+    _, _, chain, folder, model_id = unit_scenario
+    lean = load_whatif(folder / "models", model_id)
+    assert lean.within_lot == chain.training["within_lot"]
+    values = {"ribbon_porosity": 0.29, **HELD}
+    a = predict_whatif(chain, values, spec=SPEC, seed=3).to_dict()
+    b = predict_whatif(lean, values, spec=SPEC, seed=3).to_dict()
+    assert a["predictions"]["dissolution_pct"]["p_stage"] == b["predictions"]["dissolution_pct"]["p_stage"]
+    assert a["predictions"]["acceptance_value"] == b["predictions"]["acceptance_value"]
+    assert a["p_pass_all"] == b["p_pass_all"]
