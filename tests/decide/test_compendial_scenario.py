@@ -9,10 +9,12 @@ process, found by brute force with the pure functions of
 linkage.physics.pharmacopeia (references.md §7a, §7b).
 
 The tested porosities lie where each probability moves (S1 from about 0.2
-to 0.96, AV from 0.93 to 0.76); near the upper end of the range (0.37–0.40)
-the error of P(AV <= 15) reached 0.12–0.14 on two of three other seeds of
-the scenario, from the error of the trained weight-RSD model there, and is
-not tested.
+to 0.96, AV from 0.93 to 0.76). Tried on scenario seeds 5 (used here), 6
+and 7 with 120 lots: S1 and S3 within 0.075 at these porosities, AV within
+0.05; near the upper end of the porosity range (0.37–0.40) the error of
+P(AV <= 15) reached 0.12 (seed 5, 0.40) and 0.12–0.14 (seed 6), from the
+error of the trained weight-RSD model there (its mean RSD off by about
+0.3–0.5 %), and is not tested.
 """
 
 from __future__ import annotations
