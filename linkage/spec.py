@@ -93,6 +93,30 @@ class Spec:
 
     limits: dict[str, Limit] = field(default_factory=dict)
     dissolution_time_min: float = DEFAULT_DISSOLUTION_TIME_MIN
+    #: the file it was read from (its name) and the SHA-256 of its bytes; None when not read from a file
+    file: str | None = field(default=None, compare=False)
+    sha256: str | None = field(default=None, compare=False)
+
+    def judge_of(self, attribute: str) -> str:
+        """How ``attribute`` is judged: ``"mean"``, the lot value (a lot mean)
+        against the limits, unless the spec names another judge for it (a
+        ``dissolution_judge`` field, where the spec has one)."""
+        if attribute == DISSOLUTION:
+            return str(getattr(self, "dissolution_judge", "mean"))
+        return "mean"
+
+    def time_point_of(self, attribute: str) -> float | None:
+        """The time point [min] of ``attribute``'s limit (dissolution only)."""
+        return self.dissolution_time_min if attribute == DISSOLUTION else None
+
+    def describe(self) -> dict:
+        """Where the spec came from and how each attribute is judged (for the
+        report and the what-if sheet)."""
+        return {
+            "file": self.file, "sha256": self.sha256,
+            "attributes": {a: {"limits": lim.text(), "judge": self.judge_of(a),
+                               "time_min": self.time_point_of(a)} for a, lim in self.limits.items()},
+        }
 
     def passes(self, attribute: str, value: float) -> bool:
         """True when ``value`` meets the limits of ``attribute`` (inclusive).
@@ -134,7 +158,8 @@ def read_spec(path: Path) -> Spec:
     if not path.is_file():
         raise SpecError(Problem(str(path), "no such spec file"))
     try:
-        text = path.read_bytes().decode("utf-8-sig")
+        raw = path.read_bytes()
+        text = raw.decode("utf-8-sig")
         data = tomllib.loads(text)
     except UnicodeDecodeError:
         raise SpecError(Problem(path.name, "not UTF-8 text")) from None
@@ -143,7 +168,11 @@ def read_spec(path: Path) -> Spec:
         raise SpecError(Problem(path.name, f"not valid TOML: {exc}", row=int(m.group(1)) if m else None)) from None
     except RecursionError:
         raise SpecError(Problem(path.name, "not valid TOML: nested too deeply")) from None
-    return _parse(data, path.name, text)
+    import dataclasses
+    import hashlib
+
+    return dataclasses.replace(_parse(data, path.name, text), file=path.name,
+                               sha256=hashlib.sha256(raw).hexdigest())
 
 
 def _parse(data: dict, file: str, text: str) -> Spec:
