@@ -94,6 +94,22 @@ def _time_and_q(spec: Spec | None, dissolution_time_min: float | None) -> dict:
     return {"dissolution_time_min": dissolution_time_min, "dissolution_q_pct": q}
 
 
+def _train_time_and_q(spec: Spec | None, given: float | None) -> dict:
+    """The dissolution time point a model is trained at, and Q: the spec's
+    time point when it sets a dissolution limit, else ``given``, else 30 min.
+    A given time point that contradicts the spec's is refused."""
+    from linkage.exceptions import UsageError
+    from linkage.timepoint import spec_time_point
+
+    from_spec = spec_time_point(spec)
+    if from_spec is not None and given is not None and abs(from_spec - float(given)) > 1e-9:
+        raise UsageError(f"--dissolution-time {float(given):g} contradicts the spec's [dissolution_pct] time_min = "
+                         f"{from_spec:g}; give one of them")
+    time_min = from_spec if from_spec is not None else given if given is not None else DEFAULT_DISSOLUTION_TIME_MIN
+    q = spec.limits["dissolution_pct"].min if spec is not None and "dissolution_pct" in spec.limits else None
+    return {"dissolution_time_min": float(time_min), "dissolution_q_pct": q}
+
+
 def record(store, action: str, *, model_id: str | None, inputs, outputs, lot: str | None = None,
            prediction: bool = False) -> bool:
     """Append an entry to the store's audit trail (and, for a what-if, keep
@@ -196,12 +212,16 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
     ``chain`` is a :class:`~linkage.models.chain.ChainSpec` or the path of a
     chain file (default: settings -> ribbon -> granules -> tablets);
     ``coverage`` the nominal coverage of the CV+ intervals; the lots are
-    assembled at ``dissolution_time_min`` (default: the ``spec``'s time
-    point, else 30 min). ``n_jobs``, ``backend`` ("loky", "threading",
+    assembled at the ``spec``'s dissolution time point (else at
+    ``dissolution_time_min``, default 30 min; the two must agree when both
+    are given), which the model records: a spec at another time point is
+    refused by every later call. A time point no vessel profile reaches is
+    refused (no extrapolation). ``n_jobs``, ``backend`` ("loky", "threading",
     "dask") and ``scheduler`` say where the fold fits run; the model is the
     same.
     """
     from linkage.assemble import assemble as assemble_table
+    from linkage.assemble import check_dissolution_time
     from linkage.exceptions import InsufficientDataError
     from linkage.models.chain import ChainSpec
     from linkage.models.registry import save
@@ -211,22 +231,28 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
     if chain is not None and not isinstance(chain, ChainSpec):
         chain = ChainSpec.from_toml(chain)
     spec = _spec(spec)
+    at = _train_time_and_q(spec, dissolution_time_min)
     with LotStore(store, create=False) as lot_store:
         tables = lot_store.current_tables(product)
     if not tables or "process" not in tables or tables["process"].empty:
         which = f" of product {product!r}" if product else ""
         raise InsufficientDataError(f"the store {store} holds no lots{which} to train on")
-    table = assemble_table(tables, **_time_and_q(spec, dissolution_time_min))
+    check_dissolution_time(tables, at["dissolution_time_min"])
+    table = assemble_table(tables, **at)
     if n_jobs is None:
         n_jobs = -1 if backend == "dask" else 1
     with _cluster(backend, scheduler):
         fitted = train_chain(table, chain, seed=seed, nominal_coverage=coverage, progress=progress,
-                             n_jobs=n_jobs, backend=backend)
+                             n_jobs=n_jobs, backend=backend, dissolution_time_min=at["dissolution_time_min"])
     model_id = save(fitted, models_dir)
     with LotStore(store, create=False) as lot_store:
         lot_store.log("train", model_id=model_id,
                       inputs={"models_dir": str(models_dir), "product": product, "seed": seed,
                               "coverage": coverage, "chain": fitted.chain.to_toml(),
+                              "dissolution_time_min": at["dissolution_time_min"],
+                              "spec": spec.to_dict() if spec is not None else None,
+                              "spec_file": spec.file if spec is not None else None,
+                              "spec_sha256": spec.sha256 if spec is not None else None,
                               "lots": list(fitted.training["lots"]),
                               "table_sha256": fitted.training["table_sha256"]},
                       outputs={t: {"selected": v.selected, "coverage": v.coverage}
@@ -274,7 +300,8 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
     chain = _fitted(models_dir, model)
     result = find_window(chain, spec, settings=settings, confidence=confidence, n_draws=n_draws, seed=seed)
     recorded = record(store, "window", model_id=result.model_id,
-                      inputs={"spec": spec.to_dict(), "settings": settings, "confidence": confidence, "seed": seed},
+                      inputs={"spec": spec.to_dict(), "spec_file": spec.file, "spec_sha256": spec.sha256,
+                              "settings": settings, "confidence": confidence, "seed": seed},
                       outputs=result.to_dict(curve=False))
     return Window(result=result, recorded=recorded, store=None if store is None else Path(store))
 
@@ -300,13 +327,16 @@ def _recorded_whatifs(results, lots, store) -> list[WhatIfResult]:
 
 
 def whatif(values: Mapping[str, float], *, spec=None, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR,
-           model="latest", level: float | None = None, seed: int = 0, lot: str | None = None) -> WhatIfResult:
+           model="latest", level: float | None = None, seed: int = 0, lot: str | None = None,
+           product: str | None = None) -> WhatIfResult:
     """Predict every downstream attribute from ``values`` (settings and/or
     measured values by name), with intervals at ``level`` (default: the
     model's nominal coverage), the chance of passing each limit of ``spec``
     and the applicability-domain verdict (``linkage predict``). Recorded in
     the store's predictions and audit trail (``predict``, for ``lot`` when
-    given) when the store exists."""
+    given) when the store exists. ``lot`` and ``product`` are stated on
+    the result and its sheet (product default: the model's, when it was
+    trained on one; another product than the model's is refused)."""
     from linkage.decide.whatif import predict_whatif
     from linkage.exceptions import UsageError
 
@@ -319,13 +349,13 @@ def whatif(values: Mapping[str, float], *, spec=None, store=DEFAULT_STORE, model
     values = {str(k): float(v) for k, v in values.items()}
     spec = _spec(spec)
     chain = _lean(models_dir, model)  # names and values are checked by predict_whatif
-    result = predict_whatif(chain, values, spec=spec, level=level, seed=seed)
+    result = predict_whatif(chain, values, spec=spec, level=level, seed=seed, lot=lot, product=product)
     return _recorded_whatifs([result], [lot], store)[0]
 
 
 def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, store=DEFAULT_STORE,
                 models_dir=DEFAULT_MODELS_DIR, model="latest", level: float | None = None,
-                seed: int = 0) -> list[WhatIfResult]:
+                seed: int = 0, product: str | None = None) -> list[WhatIfResult]:
     """One what-if per row (``linkage predict --from-csv``): ``rows`` is a
     list of {name: value} dicts, a DataFrame whose columns are names, or the
     path of such a CSV (whose optional ``lot`` column names each row's lot).
@@ -346,7 +376,9 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
     else:
         row_lots = csv_lots if csv_lots is not None else [None] * n
     chain = _lean(models_dir, model)
-    results = predict_many(chain, rows, spec=_spec(spec), level=level, seed=seed)
+    results = predict_many(chain, rows, spec=_spec(spec), level=level, seed=seed, product=product)
+    for r, row_lot in zip(results, row_lots):
+        r.lot = row_lot  # stated on the result and its sheet
     return _recorded_whatifs(results, row_lots, store)
 
 
@@ -364,8 +396,11 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
 
     if not 0 < confidence < 1:
         raise UsageError(f"--confidence must lie between 0 and 1; got {confidence}")
+    from linkage.timepoint import check_time_point, model_time_point
+
     spec = _spec(spec)
     chain = _fitted(models_dir, model)
+    check_time_point(chain, spec, "report")
     products = chain.training.get("products") or []
     product = products[0] if len(products) == 1 else None
     with LotStore(store, create=False) as lot_store:
@@ -374,7 +409,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     if not tables:
         raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
                                                                           else "") + "; nothing to report on")
-    table = assemble_table(tables, **_time_and_q(spec, None))
+    table = assemble_table(tables, **_time_and_q(spec, model_time_point(chain)[0]))  # the model's time point
     out = Path(out) if out is not None else Path("reports") / f"report-{chain.model_id}.html"
     found = window.result if isinstance(window, Window) else window
     return Path(build_report(chain, table, spec=spec, window=found, lots=lots, out_path=out,
@@ -390,6 +425,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     from linkage.assemble import assemble as assemble_table
     from linkage.decide.watch import watch as run_watch
     from linkage.store import LotStore
+    from linkage.timepoint import check_time_point, model_time_point, time_point_text
 
     chain = _fitted(models_dir, model)
     spec = _spec(spec)
@@ -397,17 +433,19 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     if spec is not None:
         from linkage.decide.window import find_window
 
+        check_time_point(chain, spec, "watch")
         w = find_window(chain, spec)
         found = (w.low.value, w.high.value) if w.found else None
     with LotStore(store, create=False) as s:
         tables = s.current_tables(product)
         recorded = s.predictions()
-    table = assemble_table(tables, dissolution_time_min=spec.dissolution_time_min if spec else 30.0)
+    table = assemble_table(tables, dissolution_time_min=model_time_point(chain)[0])  # the model's time point
     result = run_watch(chain, table, ribbon=tables.get("ribbon"), window=found, recorded=recorded)
     with LotStore(store, create=False) as s:
         s.log("watch", model_id=chain.model_id, inputs={"window": found, "product": product},
               outputs={"alarms": result.alarms, "new_lots": result.new_lots})
-    return Watched(result=result, n_lots=len(table), window=found, store=Path(store))
+    return Watched(result=result, n_lots=len(table), window=found, store=Path(store),
+                   time_point=time_point_text(chain) if "dissolution_pct" in chain.targets else None)
 
 
 def audit(store=DEFAULT_STORE, *, lot: str | None = None) -> pd.DataFrame:

@@ -38,6 +38,19 @@ Methods (stated here because they change numbers):
   vessel's profile is interpolated linearly in time at the spec time point (no
   extrapolation), then averaged over vessels. The S1 verdict (USP <711>) needs
   Q, the spec's dissolution minimum, and is given where Q is known.
+  Between two measured points the release is read off the straight line
+  between them, vessel by vessel. Basis: the interpolation error theorem for a
+  twice-differentiable profile F(t), |F(t) − line(t)| ≤ h²/8 · max|F''| over a
+  gap of h minutes (any numerical-analysis text, e.g. Burden & Faires,
+  *Numerical Analysis*, Thm 3.3; from memory). A cumulative release profile
+  is monotone, so the value always lies between the two measured ones; on a
+  concave stretch (first-order-like, Weibull β ≤ 1, Langenbucher 1972) the
+  line reads low, on the convex onset of a sigmoid profile high. Measure the
+  time point itself when it decides a release. A lot whose vessels do not
+  reach the time point has no ``dissolution_pct`` (the reported lot value
+  belongs to another time point), and the notes say so;
+  :func:`check_dissolution_time` refuses a time point no vessel profile
+  reaches.
 """
 
 from __future__ import annotations
@@ -116,6 +129,8 @@ def assemble(
         out["dissolution_pct"] = out["dissolution_from_vessels_pct"].where(
             out["dissolution_from_vessels_pct"].notna(), reported
         )
+        # vessel data that do not reach the time point: no value rather than one of another time point
+        out.loc[out["dissolution_vessels"] == 0, "dissolution_pct"] = np.nan
         out = out.drop(columns="dissolution_from_vessels_pct")
 
     leading = [c for c in _LEADING if c in out.columns]
@@ -129,6 +144,37 @@ def assemble(
     out.attrs["fines_cutoff_um"] = float(fines_cutoff_um)
     out.attrs["dissolution_time_min"] = float(dissolution_time_min)
     return out
+
+
+def check_dissolution_time(tables: dict[str, pd.DataFrame], time_min: float) -> None:
+    """Refuse a dissolution time point that no vessel profile reaches.
+
+    With vessel data (the ``dissolution`` table), a time point is modelled
+    when at least one vessel has results at or on both sides of it (then
+    :func:`assemble` interpolates linearly); one before the first or after
+    the last measured point of every vessel would need extrapolation, which
+    linkage does not do. Without vessel data there is nothing to check: the
+    tablets table's ``dissolution_pct`` is taken as measured at the spec's
+    time point (the template's rule). Raises :class:`InputError` (exit 2)
+    naming the measured time points.
+    """
+    vessels = tables.get("dissolution")
+    if vessels is None or vessels.empty:
+        return
+    have = vessels[vessels["released_pct"].notna()]
+    if have.empty:
+        return
+    span = have.groupby([have["lot"].astype(str), have["vessel"].astype(str)])["time_min"].agg(["min", "max"])
+    t = float(time_min)
+    if ((span["min"] <= t) & (span["max"] >= t)).any():
+        return
+    measured = sorted({float(v) for v in have["time_min"]})
+    shown = ", ".join(f"{v:g}" for v in measured[:12]) + (" ..." if len(measured) > 12 else "")
+    raise InputError([Problem(
+        file="dissolution", column="time_min", value=t,
+        rule=f"no vessel profile reaches {t:g} min (measured time points: {shown} min); linkage interpolates "
+             "between measured points and does not extrapolate beyond them: choose a time point inside the "
+             "measured range")])
 
 
 def _refuse_orphans(tables: dict[str, pd.DataFrame], known: set[str]) -> None:
@@ -462,8 +508,14 @@ def _dissolution(vessels: pd.DataFrame | None, time_min: float, q_pct: float | N
             if len(t) == 0 or time_min < t[0] or time_min > t[-1]:
                 notes.append(f"lot {lot}, vessel {vessel}: no result at or around {time_min:g} min")
                 continue
-            released.append(float(np.interp(time_min, t, r)))
+            released.append(float(np.interp(time_min, t, r)))  # linear between the measured points around it
         if not released:
+            # the lot has vessel data, but none at this time point: its reported lot value (another time
+            # point) must not stand in for it
+            notes.append(f"lot {lot}: no vessel reaches {time_min:g} min; dissolution_pct left empty, not "
+                         "extrapolated")
+            rows[lot] = {"dissolution_from_vessels_pct": np.nan, "dissolution_sd_pct": np.nan,
+                         "dissolution_vessels": 0.0}
             continue
         released = np.asarray(released)
         row = {

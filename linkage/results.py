@@ -132,6 +132,7 @@ def train_json(fitted: FittedChain) -> dict:
         "n_lots": meta["training"]["n_lots"],
         "table_sha256": meta["training"]["table_sha256"],
         "seed": meta["seed"],
+        "dissolution_time_min": meta["training"].get("dissolution_time_min"),
         "targets": {name: {k: t[k] for k in TARGET_KEYS} for name, t in meta["targets"].items()},
         "skipped": meta["skipped"],
         "caution": CAUTION,
@@ -145,10 +146,12 @@ def _num(v, width=9, fmt=".4g", sign="") -> str:
 def train_text(fitted: FittedChain) -> str:
     """Compact text: per attribute, each candidate against the mean, the
     Ryshkewitch–Duckworth baseline and the noise floor."""
+    from linkage.timepoint import time_point_text
+
     meta = fitted.metadata()
     tr = meta["training"]
     lines = [f"Model {fitted.model_id}: {tr['n_lots']} lots, seed {meta['seed']}, "
-             f"table SHA-256 {tr['table_sha256'][:12]}…"]
+             f"table SHA-256 {tr['table_sha256'][:12]}…; {time_point_text(fitted)}"]
     for name, t in meta["targets"].items():
         cv = t["cv"]
         lines += ["", f"{name}  [{t['stage']} stage; {t['n_lots']} lots; {cv['scheme']}, seed {cv['seed']}]",
@@ -236,9 +239,18 @@ class Trained(_Result):
 
 def window_text(result: WindowResult) -> str:
     """What ``linkage window`` prints."""
+    from linkage.report.sheet import every_spec_text
+
     d = result.to_dict(curve=False)
     por = d["ribbon_porosity"]
-    lines = [f"Model {d['model_id']}; confidence {d['confidence']:.0%} that every specification passes together.",
+    every = every_spec_text(d["not_modelled"])
+    lines = [f"Model {d['model_id']}; confidence {d['confidence']:.0%} that {every} passes together"
+             + (f" ({', '.join(d['not_modelled'])}: not predicted from porosity by this model, not judged)"
+                if d["not_modelled"] else "") + ".",
+             f"Judged: {', '.join(d['attributes'])}"
+             + (f"; dissolution at {d['dissolution_time_min']:g} min"
+                if d.get("dissolution_time_min") and "dissolution_pct" in d["attributes"] else "")
+             + (f" ({d['time_point_note']})" if d.get("time_point_note") else "") + ".",
              f"Training lots cover ribbon porosity {por['data_range'][0]:.3f}–{por['data_range'][1]:.3f}."]
     if not d.get("promise", True):
         from linkage.report.sheet import WINDOW_NO_PROMISE
@@ -277,6 +289,8 @@ def window_text(result: WindowResult) -> str:
     if d["not_modelled"]:
         lines.append("Not part of the window (not predicted from porosity): " + ", ".join(d["not_modelled"]))
     lines += judges_lines(d.get("judges") or {})
+    if d.get("spec") and d["spec"].get("file"):
+        lines.append(f"Spec {d['spec']['file']}, SHA-256 {d['spec']['sha256']}")
     lines.append(CAUTION)
     return "\n".join(lines)
 
@@ -362,11 +376,30 @@ def _end(v) -> str:
 
 def whatif_text(result: WhatIf) -> str:
     """What ``linkage predict`` prints for one what-if."""
-    from linkage.report.sheet import NO_PROMISE, PROJECTED_NOTE, probability_text, projected_text
+    from linkage.report.sheet import (NO_PROMISE, PROJECTED_NOTE, every_spec_text, not_judged_text,
+                                      probability_text, projected_text)
 
     d = result.to_dict()
     lvl = f"{d['interval_level']:.0%}"
-    lines = [f"Model {d['model_id']}, {lvl} intervals."]
+    lines = []
+    if d.get("lot") is not None or d.get("product") is not None:
+        lines.append("For " + ", ".join(s for s in (f"lot {d['lot']}" if d.get("lot") else "",
+                                                    f"product {d['product']}" if d.get("product") else "") if s)
+                     + ":")
+    head = f"Model {d['model_id']}, {lvl} intervals"
+    if d.get("dissolution_time_min") is not None:
+        head += f"; dissolution modelled at {d['dissolution_time_min']:g} min"
+        if not d.get("time_point_recorded", True):
+            from linkage.timepoint import UNRECORDED_NOTE
+
+            head += f" ({UNRECORDED_NOTE})"
+    lines.append(head + ".")
+    if d.get("spec"):
+        lines.append(f"Spec {d['spec'].get('file') or '(not from a file)'}"
+                     + (f", SHA-256 {d['spec']['sha256'][:12]}…" if d['spec'].get('sha256') else "")
+                     + f"; judged against {every_spec_text(d['not_modelled_reasons'])}.")
+        if d["not_modelled_reasons"]:
+            lines.append(f"!! {not_judged_text(d['not_modelled_reasons'])}")
     if not d["promise"]:
         lines.append(f"!! {NO_PROMISE}")
         lines += [f"   - {r}" for r in d["domain_reasons"]]
@@ -391,10 +424,11 @@ def whatif_text(result: WhatIf) -> str:
         lines += projected
     lines += judges_lines(d.get("judges") or {})
     if d["p_pass_all"] is not None:
+        every = every_spec_text(d["not_modelled_reasons"])
         if d["promise"]:
-            lines.append(f"P(every specification passes together): {probability_text(d['p_pass_all'])}")
+            lines.append(f"P({every} passes together): {probability_text(d['p_pass_all'])}")
         else:
-            lines.append("No probability of meeting every specification is promised here; the share of simulated "
+            lines.append(f"No probability of meeting {every} is promised here; the share of simulated "
                          f"lots that pass every limit, {probability_text(d['p_pass_all'])}, is an extrapolation.")
     lines.append(CAUTION)
     return "\n".join(lines)
@@ -455,6 +489,8 @@ class Watched(_Result):
     window: tuple[float, float] | None = None
     store: Path | None = None
     notes: list[str] = field(default_factory=list)
+    #: the model's dissolution time point, in words (the lots were assembled at it)
+    time_point: str | None = None
 
     def to_dict(self) -> dict:
         """What ``linkage watch --json`` prints."""
@@ -462,7 +498,8 @@ class Watched(_Result):
 
     def text(self) -> str:
         r = self.result
-        lines = [f"Model {r.model_id}; {self.n_lots} lots, {len(r.new_lots)} since training."]
+        lines = [f"Model {r.model_id}; {self.n_lots} lots, {len(r.new_lots)} since training"
+                 + (f"; {self.time_point}" if self.time_point else "") + "."]
         if self.window:
             lines.append(f"Porosity window used for ribbon samples: {self.window[0]:.3f}–{self.window[1]:.3f}")
         alarms = r.alarms

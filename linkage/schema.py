@@ -223,6 +223,7 @@ ASSEMBLED: dict[str, str] = {
     "rrsb_n": "-",
     "tensile_strength_mpa": "MPa",
     "tensile_strength_method": "-",
+    "breaking_force_n": "N",  # carried through from the tablets table, a target of the default chain
     "weight_rsd_pct": "%",
     "weight_units": "count",
     "weight_acceptance_value": "-",

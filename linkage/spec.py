@@ -117,6 +117,31 @@ class Spec:
     dissolution_pass_by: str = "S3"
     #: L1 of the USP <905> acceptance value ([acceptance_value] max); None when the spec has no such table
     acceptance_value_max: float | None = None
+    #: the file it was read from (its name) and the SHA-256 of its bytes; None when not read from a file
+    file: str | None = field(default=None, compare=False)
+    sha256: str | None = field(default=None, compare=False)
+
+    def judge_of(self, attribute: str) -> str:
+        """How ``attribute`` is judged: ``"mean"``, the lot value (a lot mean)
+        against the limits, unless the spec names another judge for it (a
+        ``dissolution_judge`` field, where the spec has one)."""
+        if attribute == DISSOLUTION:
+            return str(getattr(self, "dissolution_judge", "mean"))
+        return "mean"
+
+    def time_point_of(self, attribute: str) -> float | None:
+        """The time point [min] of ``attribute``'s limit (dissolution only)."""
+        return self.dissolution_time_min if attribute == DISSOLUTION else None
+
+    def describe(self) -> dict:
+        """Where the spec came from and how each attribute is judged (for the
+        report and the what-if sheet)."""
+        attributes = {a: {"limits": lim.text(), "judge": self.judge_of(a), "time_min": self.time_point_of(a)}
+                      for a, lim in self.limits.items()}
+        if self.acceptance_value_max is not None:
+            attributes["acceptance_value"] = {"limits": f"<= {self.acceptance_value_max:g}",
+                                              "judge": "stages (USP <905>)", "time_min": None}
+        return {"file": self.file, "sha256": self.sha256, "attributes": attributes}
 
     def passes(self, attribute: str, value: float) -> bool:
         """True when ``value`` meets the limits of ``attribute`` (inclusive).
@@ -175,7 +200,8 @@ def read_spec(path: Path) -> Spec:
     if not path.is_file():
         raise SpecError(Problem(str(path), "no such spec file"))
     try:
-        text = path.read_bytes().decode("utf-8-sig")
+        raw = path.read_bytes()
+        text = raw.decode("utf-8-sig")
         data = tomllib.loads(text)
     except UnicodeDecodeError:
         raise SpecError(Problem(path.name, "not UTF-8 text")) from None
@@ -184,7 +210,11 @@ def read_spec(path: Path) -> Spec:
         raise SpecError(Problem(path.name, f"not valid TOML: {exc}", row=int(m.group(1)) if m else None)) from None
     except RecursionError:
         raise SpecError(Problem(path.name, "not valid TOML: nested too deeply")) from None
-    return _parse(data, path.name, text)
+    import dataclasses
+    import hashlib
+
+    return dataclasses.replace(_parse(data, path.name, text), file=path.name,
+                               sha256=hashlib.sha256(raw).hexdigest())
 
 
 def _parse(data: dict, file: str, text: str) -> Spec:

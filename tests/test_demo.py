@@ -22,6 +22,12 @@ def test_demo_writes_every_output(tmp_path):
     # the demo's truth has a two-sided window: dissolution on the dense side, weight RSD on the porous side
     assert window["found"] is True
     assert window["limiting_attribute"] == {"low": "dissolution_pct", "high": "weight_rsd_pct"}
+    # every attribute of the demo spec is judged, breaking force among them (issue 13)
+    assert set(window["attributes"]) == {"dissolution_pct", "tensile_strength_mpa", "weight_rsd_pct",
+                                         "friability_pct", "breaking_force_n"}
+    assert window["not_modelled"] == []
+    assert window["spec"]["file"] == "spec.toml" and len(window["spec"]["sha256"]) == 64
+    assert window["dissolution_time_min"] == 30.0
     report = (out / "report.html").read_text(encoding="utf-8")
     assert "<script" not in report and report.count("<img") >= 10
     # the re-measured lot was ingested as a second revision

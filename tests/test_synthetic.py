@@ -555,10 +555,27 @@ def test_demo_data_are_valid_and_consistent():
     np.testing.assert_allclose(tab.loc[rsd.index, "weight_rsd_pct"], rsd, atol=0.005 + 1e-9)
     with open(lots / "spec.toml", "rb") as fh:
         spec = tomllib.load(fh)
-    assert {k: (v.get("min"), v.get("max")) for k, v in spec.items()} == WINDOW_SPEC
+    # the window scenario's limits plus the demo's breaking-force minimum (data_demo/generate.py, DEMO_SPEC)
+    assert {k: (v.get("min"), v.get("max")) for k, v in spec.items()} == {**WINDOW_SPEC,
+                                                                          "breaking_force_n": (100.0, None)}
     assert spec["dissolution_pct"]["time_min"] == 30
     again = pd.read_csv(DEMO / "remeasured" / "ribbon.csv", dtype={"lot": str, "sample": str})
     assert again["lot"].nunique() == 1 and set(again.columns) == set(tables["ribbon"].columns)
     first = tables["ribbon"][tables["ribbon"]["lot"] == again["lot"].iloc[0]]
     assert list(first["sample"]) == list(again["sample"])
     assert not np.array_equal(first["envelope_density_g_cm3"], again["envelope_density_g_cm3"])
+
+
+def test_the_truth_judges_breaking_force_through_fell_and_newton():
+    """A breaking-force minimum L is, tablet by tablet, the tensile-strength minimum 2L/(πDt) of Fell & Newton
+    (1970) at the tablet's thickness (references.md §3; linkage.physics.tablet is checked against its worked
+    example), so with the same draws the truth gives the same probability for both."""
+    from linkage.physics.tablet import tensile_strength_flat_mpa
+
+    t = Truth.window_scenario()
+    for eps in (0.25, 0.30, 0.35):
+        sigma = float(tensile_strength_flat_mpa(200.0, t.tablet_diameter_mm, t.thickness_mm(eps, FORCE)))
+        by_force = t.p_pass_all(eps, {"breaking_force_n": (200.0, None)}, SCREEN, FORCE, n_draws=4000)
+        by_strength = t.p_pass_all(eps, {"tensile_strength_mpa": (sigma, None)}, SCREEN, FORCE, n_draws=4000)
+        assert by_force == pytest.approx(by_strength, abs=1 / 4000)
+    assert 0.05 < t.p_pass_all(0.32, {"breaking_force_n": (200.0, None)}, SCREEN, FORCE) < 0.95  # it binds there

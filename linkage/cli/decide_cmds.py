@@ -75,12 +75,16 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, models_d
               help="Write a one-page what-if sheet (one row only).")
 @click.option("--lot", default=None, help="The lot this what-if is for; its results, when they arrive, are "
               "compared with the prediction ('linkage watch').")
+@click.option("--product", default=None, help="The product this what-if is for (stated on the sheet and in the "
+              "JSON); refused when the model was not trained on it.  [default: the model's product when it was "
+              "trained on one]")
 @click.option("--seed", default=0, show_default=True, type=int)
 @models_dir_option
 @store_option
 @json_option
 @handle_errors
-def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, seed, models_dir, store, as_json):
+def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, product, seed, models_dir, store,
+            as_json):
     """What-if: predict every downstream attribute from settings and/or
     measured values, with intervals, the chance of passing each specification
     and the applicability-domain verdict.
@@ -90,7 +94,7 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, s
       linkage predict --set roll_force_kn_per_cm=9 --set roll_gap_mm=2.5 --spec spec.toml
       linkage predict --set ribbon_porosity=0.31 --spec spec.toml --html whatif.html
       linkage predict --from-csv planned.csv --json
-      linkage predict --set ribbon_porosity=0.29 --lot Q26-049 --spec spec.toml
+      linkage predict --set ribbon_porosity=0.29 --lot Q26-049 --product "QZ-417 200 mg" --spec spec.toml
 
     Every what-if is recorded in the lot store (when it exists) with the
     model id, the inputs and the outputs.
@@ -111,12 +115,12 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, s
         if html_path is not None:
             raise UsageError("--html writes one sheet for one what-if; use it without --from-csv")
         results = whatif_rows(from_csv, lots=lot, spec=spec, store=store, models_dir=models_dir, model=model_id,
-                              level=level, seed=seed)
+                              level=level, seed=seed, product=product)
     else:
         if not values:
             raise UsageError("nothing to predict from: give --set NAME=VALUE (or --from-csv)")
         results = [whatif(values, spec=spec, store=store, models_dir=models_dir, model=model_id, level=level,
-                          seed=seed, lot=lot)]
+                          seed=seed, lot=lot, product=product)]
     for r in results:
         _note_unrecorded(r, "predict")
     if html_path is not None:
@@ -131,9 +135,7 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, s
         click.echo(json.dumps(jsonable(payload), indent=2, allow_nan=False))
     else:
         for r in results:
-            if r.lot is not None:
-                click.echo(f"For lot {r.lot}:")
-            click.echo(r.text())
+            click.echo(r.text())  # begins "For lot ..., product ...:" when they are known
     if html_path is not None:
         click.echo(f"What-if sheet written to {html_path}", err=True)
 

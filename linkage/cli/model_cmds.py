@@ -25,8 +25,12 @@ format_train = train_text
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the cross-validation folds.")
 @click.option("--coverage", default=0.9, show_default=True, type=PROBABILITY,
               help="Nominal coverage of the prediction intervals (0-1).")
-@click.option("--dissolution-time", "dissolution_time_min", default=DEFAULT_DISSOLUTION_TIME_MIN,
-              show_default=True, type=FiniteFloat(0, 10_000, min_open=True),
+@click.option("--spec", "spec_path", type=click.Path(exists=True, dir_okay=False, path_type=Path), default=None,
+              help="Specification file (spec.toml): the dissolution time point modelled is its "
+                   "[dissolution_pct] time_min, and Q its min.")
+@click.option("--dissolution-time", "dissolution_time_min", default=None,
+              show_default=f"{DEFAULT_DISSOLUTION_TIME_MIN:g}, or the spec's time_min",
+              type=FiniteFloat(0, 10_000, min_open=True),
               help="Dissolution time point modelled [min].")
 @click.option("--jobs", "n_jobs", default=None, type=int,
               help="Parallel fold jobs (starting workers costs seconds; pays off above ~100 lots). "
@@ -39,8 +43,8 @@ format_train = train_text
                    "configuration's scheduler-address ($DASK_SCHEDULER_ADDRESS), else a local cluster]")
 @json_option
 @handle_errors
-def train(store, models_dir, chain_path, product, seed, coverage, dissolution_time_min, n_jobs, backend, scheduler,
-          as_json):
+def train(store, models_dir, chain_path, product, seed, coverage, spec_path, dissolution_time_min, n_jobs, backend,
+          scheduler, as_json):
     """Train the chain of stage models on the lots in the store, with
     grouped cross-validation by lot, and save it in the model registry.
 
@@ -50,8 +54,16 @@ def train(store, models_dir, chain_path, product, seed, coverage, dissolution_ti
     selected. Intervals are CV+ conformal with lots as the unit.
 
     \b
+    The model records the dissolution time point it was trained at (the
+    spec's time_min with --spec); window, predict, report, watch and retrain
+    refuse a spec at another time point. With vessel data, each vessel's
+    profile is interpolated linearly between measured time points; a time
+    point outside the measured range is refused.
+
+    \b
     Example:
       linkage train
+      linkage train --spec spec.toml
       linkage train --chain chain.toml --product ABC-10mg --seed 1 --json
       linkage train --backend dask --scheduler tcp://10.0.0.5:8786
     """
@@ -59,7 +71,7 @@ def train(store, models_dir, chain_path, product, seed, coverage, dissolution_ti
 
     with progress_bars("Cross-validating") as progress:
         trained = run_train(store, models_dir, chain=chain_path, product=product, seed=seed, coverage=coverage,
-                            dissolution_time_min=dissolution_time_min, n_jobs=n_jobs, backend=backend,
+                            spec=spec_path, dissolution_time_min=dissolution_time_min, n_jobs=n_jobs, backend=backend,
                             scheduler=scheduler, progress=progress)
     if as_json:
         click.echo(json.dumps(trained.to_dict(), indent=2, allow_nan=False, ensure_ascii=False))

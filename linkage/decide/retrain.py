@@ -179,11 +179,30 @@ def window_moved(champion, challenger, spec, *, settings=None, confidence: float
             "challenger": {"low": edge(b, "low"), "high": edge(b, "high")}, "moved": moved}
 
 
+def _challenger_time_point(champion, spec) -> float:
+    """The dissolution time point the challenger is trained at: the spec's
+    when it sets a dissolution limit, else the champion's. A challenger is
+    compared only with a champion of the same time point (RMSEs at 15 and at
+    45 min are not comparable), so a spec at another time point is refused."""
+    from linkage.timepoint import model_time_point, models_dissolution, spec_time_point, time_point_error
+
+    have, recorded = model_time_point(champion)
+    wanted = spec_time_point(spec)
+    if wanted is None or not models_dissolution(champion) or abs(wanted - have) <= 1e-9:
+        return have if wanted is None else wanted
+    how = "" if recorded else " (not recorded in the model, taken as the default)"
+    raise time_point_error(spec,
+        f"retrain: the spec judges dissolution_pct at {wanted:g} min, but the champion {champion.model_id} was "
+        f"trained on dissolution at {have:g} min{how}; a challenger at {wanted:g} min cannot be compared with it "
+        f"(nothing was trained). Train a model at {wanted:g} min with 'linkage train --spec SPEC' (it enters "
+        f"service as a new champion), or retrain with a spec at {have:g} min.")
+
+
 def retrain(store_path, models_dir, *, product: str | None = None, spec=None, force: bool = False,
             reason: str | None = None, tolerance: float = DEFAULT_TOLERANCE, seed: int | None = None,
             user: str | None = None, progress=None) -> RetrainDecision:
     """Fit a challenger on every lot, compare, promote by the rule, record."""
-    from linkage.assemble import assemble
+    from linkage.assemble import assemble, check_dissolution_time
     from linkage.models import registry
     from linkage.models.train import train_chain
     from linkage.store import LotStore
@@ -194,11 +213,12 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
         raise UsageError("--force needs a reason (--reason TEXT); it is recorded in the audit trail")
     settle_pending(store_path, models_dir)  # a decision a killed retrain left half-made, before anything else
     champion = registry.load(models_dir, "latest")
+    time_min = _challenger_time_point(champion, spec)
     with LotStore(store_path, create=False) as store:
         tables = store.current_tables(product)
     q = spec.limits["dissolution_pct"].min if spec is not None and "dissolution_pct" in spec.limits else None
-    table = assemble(tables, dissolution_time_min=spec.dissolution_time_min if spec is not None else 30.0,
-                     dissolution_q_pct=q)
+    check_dissolution_time(tables, time_min)
+    table = assemble(tables, dissolution_time_min=time_min, dissolution_q_pct=q)
     seen = set(champion.training["lots"])
     new_lots = [lot for lot in table["lot"].astype(str) if lot not in seen]
     notes = []
@@ -207,7 +227,8 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     if len(table) < 3:
         raise InsufficientDataError(f"{len(table)} lots in the store; retraining needs at least 3")
     challenger = train_chain(table, champion.chain, seed=champion.seed if seed is None else seed,
-                             nominal_coverage=champion.nominal_coverage, progress=progress)
+                             nominal_coverage=champion.nominal_coverage, progress=progress,
+                             dissolution_time_min=time_min)
     comparisons = compare(champion, challenger, table, tolerance=tolerance)
     promote, reasons = decide(comparisons, force=force, reason=reason, tolerance=tolerance)
     moved = None

@@ -114,6 +114,18 @@ class WhatIf:
     domain: dict[str, dict] = field(default_factory=dict)
     #: attribute -> how the spec judges it, in words (linkage.decide.compendial.judge_text)
     judges: dict[str, str] = field(default_factory=dict)
+    #: spec attributes judged (their P(pass) enters p_pass_all), and those not, with the reason
+    attributes: list[str] = field(default_factory=list)
+    not_modelled: dict[str, str] = field(default_factory=dict)
+    #: the spec's file, SHA-256, and each attribute's judge and time point (:meth:`linkage.spec.Spec.describe`)
+    spec: dict | None = None
+    #: time point [min] of the model's dissolution_pct, and whether the model records it
+    dissolution_time_min: float | None = None
+    time_point_recorded: bool = True
+    #: the lot and product the what-if was made for (None: not stated), and where the product came from
+    lot: str | None = None
+    product: str | None = None
+    product_source: str | None = None
 
     @property
     def promise(self) -> bool:
@@ -140,22 +152,39 @@ class WhatIf:
             "promise": self.promise,
             "promise_reasons": self.promise_reasons,
             "judges": self.judges,
+            "attributes": list(self.attributes),
+            "not_modelled": list(self.not_modelled),
+            "not_modelled_reasons": dict(self.not_modelled),
+            "spec": self.spec,
+            "dissolution_time_min": self.dissolution_time_min,
+            "time_point_recorded": self.time_point_recorded,
+            "lot": self.lot,
+            "product": self.product,
+            "product_source": self.product_source,
             "caution": CAUTION,
         }
 
 
 def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float | None = None,
-                   n_draws: int = 4000, seed: int = 0, contributions: bool = True) -> WhatIf:
+                   n_draws: int = 4000, seed: int = 0, contributions: bool = True,
+                   lot: str | None = None, product: str | None = None) -> WhatIf:
     """Predict every downstream attribute for one set of values.
 
     ``chain`` is a fitted chain or its lean form (what ``linkage predict``
     loads, :mod:`linkage.models.lean`); the arithmetic runs on the lean form
-    either way, so both give the same numbers.
+    either way, so both give the same numbers. ``lot`` and ``product`` say
+    what the what-if was made for (shown on the sheet); a product the model
+    was not trained on is refused. A spec attribute the what-if does not
+    predict is listed in ``not_modelled`` with the reason, and left out of
+    ``p_pass_all``.
     """
     from linkage.models.lean import as_lean, physical_range, project
+    from linkage.timepoint import check_time_point, model_time_point
 
     chain = as_lean(chain)
     check_values(chain, values)
+    check_time_point(chain, spec, "predict")
+    product, product_source = _product_for(chain, product)
     level = float(level if level is not None else chain.nominal_coverage)
     if not 0 < level < 1:
         raise UsageError(f"interval level must lie between 0 and 1; got {level}")
@@ -224,6 +253,13 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         any_spec = True
 
     inputs = {k: {"value": float(filled[k]), "source": source[k]} for k in filled}
+    judged_attributes = [a for a in spec_limits if a in predictions]
+    if compendial.ACCEPTANCE_VALUE in predictions:
+        judged_attributes.append(compendial.ACCEPTANCE_VALUE)
+    not_modelled = {a: ("given with --set, not predicted: not judged" if a in draws.fixed
+                        else "not predicted by this model's chain")
+                    for a in spec_limits if a not in predictions}
+    time_min, recorded = model_time_point(chain)
     return WhatIf(
         model_id=chain.model_id or "unsaved",
         made_at=datetime.now(timezone.utc).isoformat(timespec="seconds"),
@@ -231,7 +267,27 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         p_pass_all=float(pass_all.mean()) if any_spec else None,
         in_domain=not reasons, domain_reasons=reasons, domain=domain,
         judges=compendial.judge_text(spec) if spec is not None else {},
+        attributes=judged_attributes, not_modelled=not_modelled,
+        spec=spec.describe() if spec is not None else None,
+        dissolution_time_min=time_min if "dissolution_pct" in chain.targets else None,
+        time_point_recorded=recorded,
+        lot=lot, product=product, product_source=product_source,
     )
+
+
+def _product_for(chain, product: str | None) -> tuple[str | None, str | None]:
+    """(product, where it came from): the given one, checked against the
+    products the model was trained on; else the model's only product."""
+    products = list(getattr(chain, "products", None) or [])
+    if product is not None:
+        product = str(product).strip()
+        if products and product not in products:
+            raise UsageError(f"the what-if is for product {product!r}, but model {chain.model_id} was trained on "
+                             f"lots of {', '.join(repr(p) for p in products)} only")
+        return product, "given"
+    if len(products) == 1:
+        return products[0], "the model's only training product"
+    return None, None
 
 
 def predict_many(chain, rows, **kwargs) -> list[WhatIf]:

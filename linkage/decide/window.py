@@ -82,6 +82,11 @@ class WindowResult:
     in_domain: np.ndarray | None = field(repr=False, default=None)
     #: attribute -> how the spec judges it, in words (linkage.decide.compendial.judge_text)
     judges: dict[str, str] = field(default_factory=dict)
+    #: the spec judged against (:meth:`linkage.spec.Spec.describe`: file, SHA-256, judge and time point per
+    #: attribute); the model's dissolution time point, and a note when the model does not record it
+    spec: dict | None = None
+    dissolution_time_min: float | None = None
+    time_point_note: str | None = None
 
     @property
     def found(self) -> bool:
@@ -101,7 +106,9 @@ class WindowResult:
             "mean_response_window": {"low": self.mean_low, "high": self.mean_high},
             "limiting_attribute": {"low": self.low.limited_by, "high": self.high.limited_by},
             "settings": self.settings,
-            "attributes": self.attributes,
+            # every attribute judged: those simulated, and a porosity limit, which cuts the scan directly
+            "attributes": self.attributes + ([POROSITY] if POROSITY in (self.spec or {}).get("attributes", {})
+                                             else []),
             "not_modelled": self.not_modelled,
             "roll_force_kn_per_cm": {k: v for k, v in self.roll_force.items() if curve or k != "curve"},
             "n_draws": self.n_draws,
@@ -109,6 +116,9 @@ class WindowResult:
             "promise": self.promise,
             "promise_reasons": list(self.promise_reasons),
             "judges": dict(self.judges),
+            "spec": self.spec,
+            "dissolution_time_min": self.dissolution_time_min,
+            "time_point_note": self.time_point_note,
             "caution": CAUTION,
         }
         if curve:
@@ -142,6 +152,10 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     """
     if not 0 < confidence < 1:
         raise UsageError(f"confidence must lie between 0 and 1; got {confidence}")
+    from linkage.timepoint import UNRECORDED_NOTE, check_time_point, model_time_point
+
+    check_time_point(chain, spec, "window")
+    time_min, recorded = model_time_point(chain)
     settings = dict(settings or {})
     if POROSITY in settings:
         raise UsageError("ribbon_porosity is what the window scans; do not set it (use 'linkage predict' "
@@ -219,6 +233,9 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         bands=bands, mean_ok=mean_ok, n_draws=n_draws, seed=seed,
         promise=domain["promise"], promise_reasons=domain["reasons"], in_domain=domain["in_domain"],
         judges={a: t for a, t in compendial.judge_text(spec).items() if a in attributes},
+        spec=spec.describe() if hasattr(spec, "describe") else None,
+        dissolution_time_min=time_min if "dissolution_pct" in chain.targets else None,
+        time_point_note=None if recorded or "dissolution_pct" not in chain.targets else UNRECORDED_NOTE,
     )
 
 

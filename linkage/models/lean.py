@@ -372,6 +372,12 @@ class LeanChain:
         self.created_at = spec["created_at"]
         self.nominal_coverage = float(spec["nominal_coverage"])
         self.medians = dict(spec["medians"])
+        #: time point [min] of the model's dissolution_pct; None in a file written before it was recorded
+        #: (read as the default, see :mod:`linkage.timepoint`)
+        t = spec.get("dissolution_time_min")
+        self.dissolution_time_min = None if t is None else float(t)
+        #: products of the training lots (empty when unknown or in a file written before they were kept)
+        self.products = list(spec.get("products") or [])
         self.chain_targets = list(spec["chain_targets"])
         self.chain_root_inputs = list(spec["chain_root_inputs"])
         self.stages = [Stage(s) for s in spec["stages"]]
@@ -439,6 +445,8 @@ def export(chain) -> dict:
         "format": FORMAT, "model_id": chain.model_id, "created_at": chain.created_at,
         "nominal_coverage": float(chain.nominal_coverage),
         "medians": {k: _num(v) for k, v in medians.items()},
+        "dissolution_time_min": _num(chain.training.get("dissolution_time_min")),
+        "products": [str(p) for p in chain.training.get("products", [])],
         "chain_targets": list(chain.chain.targets()), "chain_root_inputs": list(chain.chain.root_inputs()),
         "stages": stages,
         # within-lot spread for unit-level compendial judgement (linkage.decide.compendial)

@@ -446,7 +446,9 @@ def list_models(models_dir) -> list[dict]:
             row.update(n_lots=meta.get("training", {}).get("n_lots"),
                        targets={t: v.get("selected") for t, v in meta.get("targets", {}).items()},
                        coverage={t: v.get("coverage") for t, v in meta.get("targets", {}).items()},
-                       nominal_coverage=meta.get("nominal_coverage"))
+                       nominal_coverage=meta.get("nominal_coverage"),
+                       # None: a model saved before models recorded it (read as the default 30 min)
+                       dissolution_time_min=meta.get("training", {}).get("dissolution_time_min"))
         except (ModelIntegrityError, ModelNotFoundError) as exc:
             row["status"] = "missing" if not (models_dir / mid).is_dir() else "changed"
             row["detail"] = str(exc)

@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import contextlib
 import hashlib
+import math
 import platform
 from dataclasses import dataclass
 from datetime import datetime, timezone
@@ -40,7 +41,7 @@ from linkage.models.conformal import cv_plus_interval
 from linkage.models.cv import SIMPLICITY_ORDER, inner_splits, metrics, outer_splits, select_candidate
 from linkage.models.domain import DomainModel
 from linkage.models.fitted import COVERAGE_METHOD, FittedChain, FittedStage, FittedTarget
-from linkage.schema import NOISE_COLUMNS
+from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN, NOISE_COLUMNS
 
 # re-exported: others import the fitted classes from here
 __all__ = ["train_chain", "MIN_LOTS", "FittedChain", "FittedStage", "FittedTarget", "table_sha256",
@@ -432,9 +433,25 @@ def _within_lot(raw: pd.DataFrame) -> dict:
                              for c in cols}, time_min=raw.attrs.get("dissolution_time_min"))
 
 
+def _time_point(table: pd.DataFrame, given: float | None) -> float:
+    """The dissolution time point of an assembled table: ``given``, else what
+    :func:`linkage.assemble.assemble` recorded, else the default; a given one
+    that contradicts the recorded one is refused."""
+    recorded = table.attrs.get("dissolution_time_min") if hasattr(table, "attrs") else None
+    if given is not None and recorded is not None and abs(float(given) - float(recorded)) > 1e-9:
+        raise UsageError(f"the table was assembled with dissolution at {float(recorded):g} min; it cannot be "
+                         f"trained as dissolution at {float(given):g} min")
+    value = given if given is not None else recorded if recorded is not None else DEFAULT_DISSOLUTION_TIME_MIN
+    value = float(value)
+    if not (math.isfinite(value) and value > 0):
+        raise UsageError(f"dissolution time point must be a positive number of minutes; got {value}")
+    return value
+
+
 def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: int = 0,
                 nominal_coverage: float = 0.9, progress: Callable[[str, int, int], None] | None = None,
-                n_jobs: int = 1, candidates: list[str] | None = None, backend: str | None = None) -> FittedChain:
+                n_jobs: int = 1, candidates: list[str] | None = None, backend: str | None = None,
+                dissolution_time_min: float | None = None) -> FittedChain:
     """Train every target of the chain on the assembled table.
 
     Parameters
@@ -460,6 +477,11 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
         (install the ``distributed`` extra). The jobs are seeded and
         independent and come back in order, so every backend gives the same
         chain.
+    dissolution_time_min : the time point [min] of the table's
+        ``dissolution_pct``, recorded in the model (``training``) so that a
+        spec at another time point is refused later
+        (:mod:`linkage.timepoint`); default: the one :func:`linkage.assemble.assemble`
+        wrote in ``table.attrs``, else 30 min.
 
     Raises
     ------
@@ -480,6 +502,7 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
     _check_backend(backend)
     names = _candidate_names(candidates)
     created_at = datetime.now(timezone.utc).isoformat(timespec="microseconds")
+    time_min = _time_point(table, dissolution_time_min)
     data, notes = _prepare(table, chain)
 
     plans: list[_Plan] = []
@@ -520,6 +543,7 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
                                   skipped={t: skipped[t] for t in st.targets if t in skipped}))
     return FittedChain(
         chain=chain, stages=stages, targets=fitted, skipped=skipped,
-        training=_training_record(data, chain, table, notes), library_versions=_library_versions(),
+        training={**_training_record(data, chain, table, notes), "dissolution_time_min": time_min},
+        library_versions=_library_versions(),
         seed=int(seed), nominal_coverage=nominal, created_at=created_at,
     )

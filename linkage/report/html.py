@@ -40,7 +40,7 @@ import numpy as np
 import pandas as pd
 
 from linkage import CAUTION, __version__
-from linkage.report.sheet import STYLE as SHEET_STYLE
+from linkage.report.sheet import JUDGE_TEXT, STYLE as SHEET_STYLE
 
 POROSITY = "ribbon_porosity"
 FORCE = "roll_force_kn_per_cm"
@@ -208,6 +208,9 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     seed, curve_draws : seed and Monte Carlo draws per grid point of the
         curves through the chain.
     """
+    from linkage.timepoint import check_time_point
+
+    check_time_point(chain, spec, "report")  # a spec at another time point is refused, not reported around
     b = _Builder()
     table = table.copy()
     table["lot"] = table["lot"].astype(str)
@@ -302,6 +305,19 @@ def _glance(b, chain, table, spec, window):
     items = [f"{len(table)} lots in the assembled table; the model was trained on {n_train}."]
     chosen = ", ".join(f"{_e(name)}: {_e(t.selected)}" for name, t in chain.targets.items())
     items.append(f"Models chosen by cross-validation: {chosen}.")
+    if "dissolution_pct" in chain.targets:
+        from linkage.timepoint import time_point_text
+
+        text = time_point_text(chain)
+        items.append(_e(text[0].upper() + text[1:]) + ".")
+    if spec is not None:
+        items.append(f"Specification <b>{_e(spec.file or '(not read from a file)')}</b>, SHA-256 "
+                     f"<code>{_e(spec.sha256 or '(none)')}</code>; each attribute's judge and time point are in the "
+                     "window section.")
+    every = _every(window)
+    if window is not None and window.not_modelled:
+        items.append(f"<b>Not judged</b> (not predicted from porosity by this model): "
+                     f"{_e(', '.join(window.not_modelled))}. The window and its probabilities cover {_e(every)}.")
     if spec is None:
         items.append("No specification was given, so no porosity window is shown (give <code>--spec</code>).")
     elif window is None:
@@ -315,7 +331,7 @@ def _glance(b, chain, table, spec, window):
     elif window.found:
         items.append(
             f"<b>Ribbon porosity window: {window.low.value:.3f} – {window.high.value:.3f}</b> "
-            f"(probability {window.confidence:.0%} that a lot meets every specification together); "
+            f"(probability {window.confidence:.0%} that a lot meets {_e(every)} together); "
             f"low edge {_edge_text(window.low.limited_by)}, high edge {_edge_text(window.high.limited_by)}.")
         rf = window.roll_force or {}
         if rf.get("low") is not None:
@@ -325,8 +341,15 @@ def _glance(b, chain, table, spec, window):
             items.append(f"Roll force: {_e(rf['reason'])}.")
     else:
         items.append(f"<b>No porosity window</b>: at no porosity in the training range does the probability of "
-                     f"meeting every specification together reach {window.confidence:.0%}.")
+                     f"meeting {_e(every)} together reach {window.confidence:.0%}.")
     b.add("<ul>" + "".join(f"<li>{i}</li>" for i in items) + "</ul>")
+
+
+def _every(window) -> str:
+    """"every specification", or "every specification except …" naming what the window does not judge."""
+    from linkage.report.sheet import every_spec_text
+
+    return every_spec_text(window.not_modelled if window is not None else [])
 
 
 def _edge_text(limited_by) -> str:
@@ -761,9 +784,13 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
         b.note(f"The window could not be computed: {failure or 'no window was given'}.")
         return
     w = window
+    every = _every(w)
     b.add(f"<p>Ribbon porosity is scanned over the training range {w.data_range[0]:.3f} – {w.data_range[1]:.3f}. "
-          f"At each porosity, {w.n_draws} lots are simulated through the chain; the probability of meeting every "
-          f"specification together must reach {w.confidence:.0%}.</p>")
+          f"At each porosity, {w.n_draws} lots are simulated through the chain; the probability of meeting "
+          f"{_e(every)} together must reach {w.confidence:.0%}.</p>")
+    if w.not_modelled:
+        b.add(f'<div class="out"><b>Not judged</b>: {_e(", ".join(w.not_modelled))} (the model does not '
+              "predict it from ribbon porosity); the window says nothing about it.</div>")
     if not w.promise:
         from linkage.report.sheet import WINDOW_NO_PROMISE
 
@@ -775,23 +802,39 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
         if len(w.segments) > 1:
             b.add("<p>Other passing ranges: " + ", ".join(f"{a:.3f} – {c:.3f}" for a, c in w.segments) + ".</p>")
     else:
-        b.add(f"<p><b>No window</b>: the probability of meeting every specification together stays below "
+        b.add(f"<p><b>No window</b>: the probability of meeting {_e(every)} together stays below "
               f"{w.confidence:.0%} across the training range.</p>")
     if w.mean_low is not None:
         b.add(f"<p>Mean-response window (where the chain of mean predictions passes; it overstates what can be "
               f"promised, Peterson 2008): {w.mean_low:.3f} – {w.mean_high:.3f}.</p>")
-    judges = getattr(w, "judges", {}) or {}
-    rows = [[_e(a), _e(F.shown_unit(a)), _e(_limit_text(spec.limits.get(a)) if a in spec.limits else "")
-             + (f" ({_e(judges[a])})" if a in judges else "")] for a in w.attributes]
-    rows += [[_e(a), _e(F.shown_unit(a)), _e(_limit_text(spec.limits.get(a))) + " (not predicted from porosity: "
-              "not part of the window)"] for a in w.not_modelled]
-    b.add(_table(["attribute", "unit", "specification"], rows))
+    judges = getattr(w, "judges", {}) or {}  # in words, where the spec names a judge (linkage.decide.compendial)
+
+    def judge(a):
+        t = spec.time_point_of(a)
+        return [_e(judges.get(a, spec.judge_of(a))), "–" if t is None else f"{t:g} min"]
+
+    def limit(a):
+        if a == "acceptance_value" and spec.acceptance_value_max is not None:
+            return _e(f"<= {spec.acceptance_value_max:g}")
+        return _e(_limit_text(spec.limits.get(a))) if a in spec.limits else ""
+
+    rows = [[_e(a), _e(F.shown_unit(a)), limit(a), *judge(a), "judged"] for a in w.attributes]
+    rows += [[_e(a), _e(F.shown_unit(a)), limit(a), *judge(a),
+              "<b>not judged</b>: not predicted from porosity, not part of the window"] for a in w.not_modelled]
+    if POROSITY in spec.limits:
+        rows.append([_e(POROSITY), _e(F.shown_unit(POROSITY)), _e(_limit_text(spec.limits[POROSITY])),
+                     *judge(POROSITY), "judged: cuts the scanned porosities directly"])
+    b.add(f"<p class=small>Specification file <b>{_e(spec.file or '(not read from a file)')}</b>, SHA-256 "
+          f"<code>{_e(spec.sha256 or '(none)')}</code>. " + _e("; ".join(
+              f"Judge \"{j}\": {JUDGE_TEXT.get(j, j)}" for j in sorted({spec.judge_of(a) for a in spec.limits})))
+          + ".</p>")
+    b.add(_table(["attribute", "unit", "specification", "judge", "time point", "in the window"], rows))
     held = ", ".join(f"{_e(k)} = {v['value']:.4g} ({_e(v['source'])})" for k, v in w.settings.items())
     b.add(f"<p class=small>Settings used: {held or 'none'}.</p>")
 
     b.figure(F.plot_window_probability(w.grid, w.p_all, w.p_each, confidence=w.confidence, low=w.low.value,
                                        high=w.high.value, mean_low=w.mean_low, mean_high=w.mean_high),
-             f"Probability that a lot meets every specification together (thick) and each one (thin) against "
+             f"Probability that a lot meets {every} together (thick) and each one (thin) against "
              f"ribbon porosity; dashed: the {w.confidence:.0%} confidence line; shaded: the window; dotted: the "
              f"mean-response window.")
 
@@ -955,8 +998,19 @@ def _model_card(b, chain, spec, window):
         ["seed", _e(chain.seed)],
         ["nominal interval coverage", f"{100 * chain.nominal_coverage:.0f}%"],
     ]
+    if "dissolution_pct" in chain.targets:
+        from linkage.timepoint import model_time_point
+
+        t, recorded = model_time_point(chain)
+        rows.append(["dissolution time point modelled", f"{t:g} min" + ("" if recorded else
+                                                                     " (not recorded in the model: the default)")])
     if spec is not None:
         rows.append(["specification", _e("; ".join(f"{a}: {_limit_text(lim)}" for a, lim in spec.limits.items()))])
+        rows.append(["specification file and SHA-256", f"{_e(spec.file or '(not read from a file)')}, "
+                                                       f"<code>{_e(spec.sha256 or '(none)')}</code>"])
+        rows.append(["judge and time point per attribute", _e("; ".join(
+            f"{a}: {spec.judge_of(a)}" + ("" if spec.time_point_of(a) is None else f" at {spec.time_point_of(a):g} min")
+            for a in spec.limits))])
     if window is not None:
         rows.append(["window confidence and draws", f"{window.confidence:.0%}, {window.n_draws} draws, seed "
                                                     f"{window.seed}"])

@@ -45,6 +45,60 @@ def probability_text(p: float) -> str:
     return f"{100 * p:.1f}%"
 
 
+def every_spec_text(not_modelled) -> str:
+    """"every specification", or "every specification except a, b" when some
+    attributes of the spec are not judged (the headline names them, never
+    only a footnote)."""
+    names = list(not_modelled)
+    return "every specification" if not names else "every specification except " + ", ".join(names)
+
+
+def not_judged_text(not_modelled: dict[str, str]) -> str:
+    """One sentence naming the spec attributes that are not judged and why ('' when none)."""
+    if not not_modelled:
+        return ""
+    return "Not judged: " + "; ".join(f"{a} ({why})" for a, why in not_modelled.items()) + "."
+
+
+def spec_lines(spec: dict | None) -> list[str]:
+    """Plain-text lines on the spec a result was judged against: its file and
+    SHA-256, and per attribute its limits, judge and time point."""
+    if not spec:
+        return ["No specification given: nothing judged."]
+    lines = [f"Specification {spec.get('file') or '(not read from a file)'}, "
+             f"SHA-256 {spec.get('sha256') or '(none)'}"]
+    for a, v in spec["attributes"].items():
+        at = "" if v.get("time_min") is None else f" at {v['time_min']:g} min"
+        lines.append(f"  {a}: {v['limits']}{at}; judge: {v['judge']}")
+    return lines
+
+
+JUDGE_TEXT = {"mean": "the lot value (a lot mean) against the limits",
+              "stages": "the compendial stages, simulated unit by unit (USP <711> Table 1 for dissolution, with "
+                        "Q = the minimum)"}
+
+
+def spec_table_html(spec: dict | None, judged: list[str] | None = None,
+                    not_modelled: dict[str, str] | None = None) -> str:
+    """The spec a result was judged against, as HTML: file, SHA-256, and per
+    attribute its limits, judge, time point and whether it was judged."""
+    if not spec:
+        return "<p>No specification given: nothing judged.</p>"
+    not_modelled = not_modelled or {}
+    rows = []
+    for a, v in spec["attributes"].items():
+        at = "–" if v.get("time_min") is None else f"{v['time_min']:g} min"
+        judge = v["judge"] + (f" ({JUDGE_TEXT[v['judge']]})" if v["judge"] in JUDGE_TEXT else "")
+        status = (f"not judged: {not_modelled[a]}" if a in not_modelled
+                  else "judged" if judged is None or a in judged else "–")
+        rows.append(f"<tr><td>{escape(a)}{_unit(a)}</td><td>{escape(v['limits'])}</td><td>{escape(judge)}</td>"
+                    f"<td class=num>{escape(at)}</td><td>{escape(status)}</td></tr>")
+    return (f"<p class=meta>File <b>{escape(str(spec.get('file') or '(not read from a file)'))}</b>, "
+            f"SHA-256 <code>{escape(str(spec.get('sha256') or '(none)'))}</code></p>"
+            "<table><tr><th>attribute</th><th>limits</th><th>judge</th><th class=num>time point</th>"
+            f"<th>in this result</th></tr>{''.join(rows)}</table>")
+
+
 #: the headline of a what-if or window outside the applicability domain (text, HTML sheet, report)
 NO_PROMISE = ("OUT OF THE APPLICABILITY DOMAIN: no probability is promised here. The numbers below are "
               "extrapolations of the models, shown for orientation only; the reasons:")
@@ -140,18 +194,30 @@ def whatif_html(result) -> str:
     else:
         items = "".join(f"<li>{escape(r)}</li>" for r in d["domain_reasons"])
         verdict = f'<div class="out"><b>{escape(NO_PROMISE)}</b><ul>{items}</ul></div>'
+    every = escape(every_spec_text(d.get("not_modelled_reasons", {})))
     if d["p_pass_all"] is None:
         p_all = ""
     elif d["promise"]:
-        p_all = (f"<p>Probability that a lot made this way meets every specification at once: "
+        p_all = (f"<p>Probability that a lot made this way meets {every} at once: "
                  f"<b>{escape(probability_text(d['p_pass_all']))}</b>.</p>")
     else:
-        p_all = ("<p>No probability of meeting every specification is promised here (outside the applicability "
+        p_all = (f"<p>No probability of meeting {every} is promised here (outside the applicability "
                  "domain, see above). The share of simulated lots that pass every limit, "
                  f"{escape(probability_text(d['p_pass_all']))}, is an extrapolation.</p>")
     if d.get("judges"):
         p_all += ("<p class=meta>Judged: " + "; ".join(f"{escape(a)}: {escape(how)}" for a, how in d["judges"].items())
                   + ".</p>")
+    if d.get("not_modelled_reasons"):
+        p_all += f"<p><b>{escape(not_judged_text(d['not_modelled_reasons']))}</b></p>"
+    made_for = (f"Lot <b>{escape(d['lot'])}</b>" if d.get("lot") else "Lot: not stated")
+    made_for += " · " + (f"product <b>{escape(d['product'])}</b>"
+                         + (f" ({escape(d['product_source'])})" if d.get("product_source") not in (None, "given")
+                            else "") if d.get("product") else "product: not stated")
+    if d.get("dissolution_time_min") is not None:
+        made_for += f" · dissolution modelled at {d['dissolution_time_min']:g} min"
+        if not d.get("time_point_recorded", True):
+            made_for += " (not recorded in the model: the default)"
+    spec_html = spec_table_html(d.get("spec"), d.get("attributes"), d.get("not_modelled_reasons"))
     if any(p.get("projected") for p in d["predictions"].values()):
         p_all += f"<p class=meta>{escape(PROJECTED_NOTE[0].upper() + PROJECTED_NOTE[1:])}.</p>"
     return f"""<!DOCTYPE html>
@@ -159,8 +225,11 @@ def whatif_html(result) -> str:
 <style>{STYLE}</style></head><body>
 <h1>What-if sheet</h1>
 <p class=meta>Model {escape(d['model_id'])} · made {escape(d['made_at'])} · linkage {escape(__version__)}</p>
+<p>What-if made for: {made_for}</p>
 <div class="caution"><b>Caution.</b> {escape(CAUTION)}</div>
 {verdict}
+<h2>Specification</h2>
+{spec_html}
 <h2>Inputs</h2>
 <table><tr><th>name</th><th class=num>value</th><th>source</th></tr>{inputs}</table>
 <h2>Predictions ({level}% intervals)</h2>

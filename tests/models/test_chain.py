@@ -14,8 +14,9 @@ def test_default_chain_is_the_issue_chain():
     assert c.root_inputs() == ["roll_force_kn_per_cm", "roll_gap_mm", "roll_speed_rpm", "screw_speed_rpm",
                                "mill_screen_mm", "compression_force_kn"]
     assert c.targets() == ["ribbon_porosity", "granule_d50_um", "fines_pct", "tensile_strength_mpa",
-                           "weight_rsd_pct", "friability_pct", "dissolution_pct"]
+                           "weight_rsd_pct", "friability_pct", "dissolution_pct", "breaking_force_n"]
     assert c.stage_of("fines_pct").name == "granules"
+    assert c.stage_of("breaking_force_n").name == "tablets"  # issue 13: modelled directly
 
 
 def test_toml_round_trip(tmp_path):

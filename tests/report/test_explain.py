@@ -155,7 +155,7 @@ def test_porosity_curves_follow_the_chain_of_mean_predictions(chain):
     for name in ("granule_d50_um", "fines_pct"):
         x[name] = chain.targets[name].predict(x)
     assert set(curves.curves) == {"granule_d50_um", "fines_pct", "tensile_strength_mpa", "weight_rsd_pct",
-                                  "friability_pct", "dissolution_pct"}
+                                  "friability_pct", "dissolution_pct", "breaking_force_n"}
     for name, c in curves.curves.items():
         np.testing.assert_allclose(c["mean"], chain.targets[name].predict(x), rtol=1e-10, err_msg=name)
         assert np.all(c["low"] < c["high"]), name
