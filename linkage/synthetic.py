@@ -701,8 +701,10 @@ class SyntheticLots:
         return written
 
 
-def spec_toml(spec: Mapping, dissolution_time_min: float = 30.0) -> str:
-    """A spec file in the template's TOML form from attribute -> (min, max)."""
+def spec_toml(spec: Mapping, dissolution_time_min: float = 30.0, *, dissolution_judge: str | None = None,
+              acceptance_value_max: float | None = None) -> str:
+    """A spec file in the template's TOML form from attribute -> (min, max); optionally dissolution judged by
+    the compendial stages (``dissolution_judge="stages"``) and an ``[acceptance_value]`` limit."""
     lines = ["# acceptance limits, one table per quality attribute of the assembled table"]
     for name, (low, high) in _spec_items(spec):
         lines.append("")
@@ -713,6 +715,10 @@ def spec_toml(spec: Mapping, dissolution_time_min: float = 30.0) -> str:
             lines.append(f"max = {_num(high)}")
         if name == "dissolution_pct":
             lines.append(f"time_min = {_num(dissolution_time_min)}")
+            if dissolution_judge is not None:
+                lines.append(f'judge = "{dissolution_judge}"')
+    if acceptance_value_max is not None:
+        lines += ["", "[acceptance_value]", f"max = {_num(acceptance_value_max)}"]
     return "\n".join(lines) + "\n"
 
 

@@ -28,6 +28,9 @@ def test_demo_writes_every_output(tmp_path):
     assert window["not_modelled"] == []
     assert window["spec"]["file"] == "spec.toml" and len(window["spec"]["sha256"]) == 64
     assert window["dissolution_time_min"] == 30.0
+    # dissolution judged as labs judge it: the compendial stages on simulated units (issue 13 item 2)
+    assert window["spec"]["attributes"]["dissolution_pct"]["judge"] == "stages"
+    assert "USP <711>" in window["judges"]["dissolution_pct"]
     report = (out / "report.html").read_text(encoding="utf-8")
     assert "<script" not in report and report.count("<img") >= 10
     # the re-measured lot was ingested as a second revision
