@@ -807,11 +807,9 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
     if w.mean_low is not None:
         b.add(f"<p>Mean-response window (where the chain of mean predictions passes; it overstates what can be "
               f"promised, Peterson 2008): {w.mean_low:.3f} – {w.mean_high:.3f}.</p>")
-    judges = getattr(w, "judges", {}) or {}  # in words, where the spec names a judge (linkage.decide.compendial)
-
-    def judge(a):
+    def judge(a):  # "mean" or "stages" (the acceptance value is always judged on its compendial stages)
         t = spec.time_point_of(a)
-        return [_e(judges.get(a, spec.judge_of(a))), "–" if t is None else f"{t:g} min"]
+        return [_e("stages" if a == "acceptance_value" else spec.judge_of(a)), "–" if t is None else f"{t:g} min"]
 
     def limit(a):
         if a == "acceptance_value" and spec.acceptance_value_max is not None:
@@ -826,7 +824,9 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
                      *judge(POROSITY), "judged: cuts the scanned porosities directly"])
     b.add(f"<p class=small>Specification file <b>{_e(spec.file or '(not read from a file)')}</b>, SHA-256 "
           f"<code>{_e(spec.sha256 or '(none)')}</code>. " + _e("; ".join(
-              f"Judge \"{j}\": {JUDGE_TEXT.get(j, j)}" for j in sorted({spec.judge_of(a) for a in spec.limits})))
+              f"Judge \"{j}\": {JUDGE_TEXT.get(j, j)}" for j in sorted({spec.judge_of(a) for a in spec.limits}
+                                                                     | ({"stages"} if spec.acceptance_value_max
+                                                                        is not None else set()))))
           + ".</p>")
     b.add(_table(["attribute", "unit", "specification", "judge", "time point", "in the window"], rows))
     held = ", ".join(f"{_e(k)} = {v['value']:.4g} ({_e(v['source'])})" for k, v in w.settings.items())
