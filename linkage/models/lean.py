@@ -21,6 +21,14 @@ applicability-domain model. Model kinds:
 ``linear``     PLS as coefficients on the centred inputs
 ``quadratic``  ridge on standardised inputs, squares and pairwise products
 ``trees``      gradient-boosted trees as node arrays and leaf paths
+``link``       a generalised linear form g(y) = a + Σ bⱼ·hⱼ(xⱼ) (identity, log
+               or complementary log-log g; hⱼ the identity or ln), see
+               :func:`link_predict`
+
+A target may also carry a ``spread`` model (:func:`spread_scale`): then its
+intervals are locally weighted CV+ and the Monte Carlo rescales each lot's
+residual to the level of the draw. Files written before these existed load
+unchanged (no spread: pooled residuals, plain CV+).
 """
 
 from __future__ import annotations
@@ -36,7 +44,8 @@ from linkage.exceptions import InputError, Problem, UsageError
 
 __all__ = ["LeanChain", "from_fitted", "as_lean", "to_npz_bytes", "from_npz_bytes", "FORMAT",
            "quad_features", "quadratic_predict", "quadratic_contributions", "walk_trees", "tree_shap",
-           "domain_verdicts", "physical_range", "project"]
+           "domain_verdicts", "physical_range", "project", "link_transform", "link_inverse", "link_predict",
+           "link_contributions", "spread_scale", "LINKS"]
 
 FORMAT = 1
 
@@ -132,6 +141,81 @@ def tree_shap(trees, X: np.ndarray):
         without = masks[(masks >> i & 1) == 0]
         phi[:, i] = weight[without] @ (v[without | (1 << i)] - v[without])
     return phi, float(trees.baseline) + float(v[0, 0])
+
+
+#: link functions of the ``link`` kind: g(y) and its inverse
+LINKS = ("identity", "log", "cloglog")
+
+
+def link_transform(link: str, y, y_max: float = 1.0) -> np.ndarray:
+    """g(y): ``identity`` y; ``log`` ln y (y > 0); ``cloglog``
+    ln(−ln(1 − y/y_max)) for 0 < y < y_max (the first-order / Weibull
+    release and RRSB undersize forms, 1 − exp(−e^η), linear in η)."""
+    y = np.asarray(y, dtype=float)
+    if link == "identity":
+        return y
+    if link == "log":
+        return np.log(y)
+    if link == "cloglog":
+        return np.log(-np.log1p(-y / y_max))
+    raise ValueError(f"unknown link {link!r}; known: {', '.join(LINKS)}")
+
+
+def link_inverse(link: str, eta, y_max: float = 1.0) -> np.ndarray:
+    """g⁻¹(η), the inverse of :func:`link_transform`."""
+    eta = np.asarray(eta, dtype=float)
+    if link == "identity":
+        return eta
+    if link == "log":
+        return np.exp(eta)
+    if link == "cloglog":
+        return -y_max * np.expm1(-np.exp(eta))  # y_max (1 − exp(−e^η))
+    raise ValueError(f"unknown link {link!r}; known: {', '.join(LINKS)}")
+
+
+def _link_inputs(X, log_mask) -> np.ndarray:
+    X = np.asarray(X, dtype=float)
+    mask = np.asarray(log_mask, dtype=bool)
+    if not mask.any():
+        return X
+    with np.errstate(divide="ignore", invalid="ignore"):
+        logs = np.log(np.maximum(X, np.finfo(float).tiny))  # a size or force at or below 0 is outside any law
+    return np.where(mask[None, :], logs, X)
+
+
+def link_predict(X, link, log_mask, x_mean, coef, intercept, y_max=1.0) -> np.ndarray:
+    """y = g⁻¹(intercept + Σⱼ coefⱼ·(hⱼ(xⱼ) − x_meanⱼ)), hⱼ = ln where
+    ``log_mask``, else the identity."""
+    Z = _link_inputs(X, log_mask)
+    return link_inverse(link, (Z - x_mean) @ coef + intercept, y_max)
+
+
+def link_contributions(X, link, log_mask, x_mean, coef, intercept, y_max=1.0):
+    """Per-input contributions of :func:`link_predict` and the base value
+    g⁻¹(intercept) (the prediction at the mean transformed inputs). With the
+    identity link they are exact, coefⱼ·(hⱼ(xⱼ) − x_meanⱼ); otherwise the
+    difference prediction − base is split in proportion to those link-scale
+    terms (it is a monotone function of their sum), so rows add up to
+    prediction − base and each input keeps the sign of its effect."""
+    Z = _link_inputs(X, log_mask)
+    terms = (Z - x_mean) * coef
+    base = float(link_inverse(link, np.asarray(intercept, float), y_max))
+    if link == "identity":
+        return terms, base
+    total = terms.sum(axis=1)
+    pred = link_inverse(link, total + intercept, y_max)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        share = np.where(np.abs(total)[:, None] > 0, terms / total[:, None], 0.0)
+    return share * (pred - base)[:, None], base
+
+
+def spread_scale(spread, level) -> np.ndarray:
+    """ρ̂(z) = exp(a + b·(clip(z) − z_mean)/z_scale): the residual spread at
+    the level z (see :func:`linkage.models.conformal.fit_spread`); z is
+    clipped to the levels it was fitted on."""
+    p = spread if isinstance(spread, dict) else vars(spread)
+    z = np.clip(np.asarray(level, dtype=float), p["z_low"], p["z_high"])
+    return np.exp(p["a"] + p["b"] * (z - p["z_mean"]) / p["z_scale"])
 
 
 # ---------------------------------------------------------------------------
@@ -259,6 +343,8 @@ class Model:
             return quadratic_predict(X, p.x_mean, p.x_scale, p.beta, p.intercept)
         if self.kind == "trees":
             return walk_trees(p, X)
+        if self.kind == "link":
+            return link_predict(X, p.link, p.log_mask, p.x_mean, p.coef, p.intercept, p.y_max)
         raise ValueError(f"unknown model kind {self.kind!r}")
 
     def contributions(self, X: np.ndarray):
@@ -275,6 +361,8 @@ class Model:
             return quadratic_contributions(X, p.x_mean, p.x_scale, p.beta, p.intercept, p.z_m1, p.z_m2)
         if self.kind == "trees":
             return tree_shap(p, X)
+        if self.kind == "link":
+            return link_contributions(X, p.link, p.log_mask, p.x_mean, p.coef, p.intercept, p.y_max)
         raise ValueError(f"unknown model kind {self.kind!r}")
 
 
