@@ -439,15 +439,15 @@ def fit_spread(level, abs_residuals) -> dict:
 
     ρ̂(z) = exp(a + b·(z − z̄)/s_z) of the level z (the model's prediction),
     fitted to the out-of-fold absolute residuals by a gamma GLM with log link
-    (maximum likelihood, scikit-learn ``GammaRegressor`` without penalty; its
-    score equation Σ (|r| − ρ̂)/ρ̂ · x = 0 is that of the quasi-likelihood of
-    McCullagh & Nelder 1989, §8, for a standard deviation proportional to the
-    mean), so ρ̂ > 0 everywhere. z is clipped to the range it was fitted on,
-    so the spread stays bounded outside it. Returns the numbers
-    :func:`linkage.models.lean.spread_scale` evaluates.
+    (maximum likelihood by iteratively reweighted least squares, McCullagh &
+    Nelder 1989, §2.5 and §8: with log link and variance ∝ μ² the working
+    weights are 1 and the working response η + (|r| − μ)/μ; a test compares
+    it with scikit-learn's ``GammaRegressor``). Its score equation
+    Σ (|r| − ρ̂)/ρ̂ · x = 0 holds for any spread proportional to the mean
+    absolute residual, and ρ̂ > 0 everywhere. z is clipped to the range it
+    was fitted on, so the spread stays bounded outside it. Returns the
+    numbers :func:`linkage.models.lean.spread_scale` evaluates.
     """
-    from sklearn.linear_model import GammaRegressor
-
     z = np.asarray(level, dtype=float).ravel()
     r = np.abs(np.asarray(abs_residuals, dtype=float).ravel())
     if z.size != r.size or z.size < 3:
@@ -456,13 +456,22 @@ def fit_spread(level, abs_residuals) -> dict:
     if not mean_r > 0:
         raise ValueError("every residual is zero: there is no spread to model")
     z_mean, z_scale = float(np.mean(z)), float(np.std(z))
-    if not z_scale > 0:
+    if not z_scale > 1e-12 * max(1.0, abs(z_mean)):
         return {"kind": "loglinear", "a": math.log(mean_r), "b": 0.0, "z_mean": z_mean, "z_scale": 1.0,
                 "z_low": z_mean, "z_high": z_mean}
-    u = ((z - z_mean) / z_scale)[:, None]
-    y = np.maximum(r, 1e-6 * mean_r)  # a gamma response must be positive; an exact zero residual is rare
-    glm = GammaRegressor(alpha=0.0, max_iter=1000, tol=1e-10).fit(u, y)
-    return {"kind": "loglinear", "a": float(glm.intercept_), "b": float(glm.coef_[0]), "z_mean": z_mean,
+    u = (z - z_mean) / z_scale
+    D = np.column_stack([np.ones_like(u), u])
+    beta = np.array([math.log(mean_r), 0.0])
+    for _ in range(100):
+        eta = np.clip(D @ beta, -700.0, 700.0)
+        mu = np.exp(eta)
+        work = eta + (r - mu) / mu  # working response; working weights are 1 for gamma with log link
+        new, *_ = np.linalg.lstsq(D, work, rcond=None)
+        done = np.max(np.abs(new - beta)) < 1e-12 * max(1.0, float(np.max(np.abs(new))))
+        beta = new
+        if done:
+            break
+    return {"kind": "loglinear", "a": float(beta[0]), "b": float(beta[1]), "z_mean": z_mean,
             "z_scale": z_scale, "z_low": float(z.min()), "z_high": float(z.max())}
 
 

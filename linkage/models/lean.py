@@ -378,6 +378,10 @@ class Target:
         self.fold_models_ = [Model(m) for m in spec["fold_models"]]
         self.fold_of_ = np.asarray(spec["fold_of"], dtype=int)
         self.residuals_ = np.asarray(spec["residuals"], dtype=float)
+        #: spread model of locally weighted CV+ and ρ̂ at each lot's out-of-fold level (absent in older files)
+        self.spread = spec.get("spread")
+        self.lot_scale_ = (np.asarray(spec["lot_scale"], dtype=float) if spec.get("lot_scale") is not None
+                           else np.ones(self.residuals_.size))
 
     def matrix(self, columns, what: str = "prediction") -> np.ndarray:
         """The inputs as a float matrix (one column per input, in order); a
@@ -403,17 +407,28 @@ class Target:
         out = np.asarray(self.model_.predict(self.matrix(columns)), float)
         return out if raw else project(self.target, out)[0]
 
+    def scale(self, level) -> np.ndarray:
+        """ρ̂ at the given levels (ones without a spread model)."""
+        level = np.asarray(level, dtype=float)
+        return np.ones(level.shape) if self.spread is None else spread_scale(self.spread, level)
+
     def interval(self, columns, level: float | None = None, *, raw: bool = False):
-        """CV+ interval (see :data:`linkage.models.fitted.INTERVAL_METHOD`),
-        each end projected onto the physical range (:func:`project`) unless ``raw``."""
-        from linkage.models.conformal import cv_plus_interval
+        """CV+ interval (see :data:`linkage.models.fitted.INTERVAL_METHOD`), or
+        locally weighted CV+ where the target has a spread model, each end
+        projected onto the physical range (:func:`project`) unless ``raw``."""
+        from linkage.models.conformal import cv_plus_interval, lw_cv_plus_interval
 
         level = self.nominal_coverage if level is None else float(level)
         if not 0 < level < 1:
             raise ValueError(f"level must lie strictly between 0 and 1; got {level}")
         X = self.matrix(columns, "interval")
         preds = np.vstack([np.asarray(m.predict(X), float) for m in self.fold_models_])
-        low, high = cv_plus_interval(preds, self.fold_of_, self.residuals_, 1 - level)
+        if self.spread is not None:
+            x_scale = self.scale(self.model_.predict(X))
+            low, high = lw_cv_plus_interval(preds, self.fold_of_, self.residuals_, self.lot_scale_, x_scale,
+                                            1 - level)
+        else:
+            low, high = cv_plus_interval(preds, self.fold_of_, self.residuals_, 1 - level)
         return (low, high) if raw else (project(self.target, low)[0], project(self.target, high)[0])
 
     def contributions(self, columns):
@@ -443,9 +458,20 @@ class Stage:
         #: lots × targets (in the order of ``targets``) of out-of-fold residuals; NaN where a lot lacks one
         self.residual_matrix = np.asarray(spec["residual_matrix"], dtype=float).reshape(
             len(self.residual_lots), len(self.targets))
+        #: the same lots × targets of ρ̂ at each lot's out-of-fold level (ones where a target has no spread
+        #: model, and in files written before it existed)
+        scale = spec.get("residual_scale")
+        self.residual_scale = (np.ones(self.residual_matrix.shape) if scale is None
+                               else np.asarray(scale, dtype=float).reshape(self.residual_matrix.shape))
 
     def residual_column(self, name: str) -> np.ndarray:
         return self.residual_matrix[:, list(self.targets).index(name)]
+
+    def scaled_residual_column(self, name: str) -> np.ndarray:
+        """The lots' residuals divided by ρ̂ at their out-of-fold level (the
+        residuals themselves where the target has no spread model)."""
+        j = list(self.targets).index(name)
+        return self.residual_matrix[:, j] / self.residual_scale[:, j]
 
 
 class LeanChain:
@@ -498,6 +524,22 @@ def _domain_spec(dm) -> dict | None:
             "t2_limit": _num(dm.t2_limit_), "q_limit": _num(dm.q_limit_), "alpha": float(dm.alpha_)}
 
 
+def _residual_scale(stage, table) -> dict:
+    """{"residual_scale": lots × targets of ρ̂ at each lot's out-of-fold level}
+    where a target of the stage has a spread model; {} otherwise (the file
+    then reads as before)."""
+    targets = list(stage.targets.values())
+    if not any(getattr(t, "spread", None) is not None for t in targets):
+        return {}
+    out = np.ones((len(table.index), len(targets)))
+    for j, t in enumerate(targets):
+        if getattr(t, "spread", None) is None:
+            continue
+        by_lot = dict(zip(t.residuals.index.astype(str), t.lot_scale()))
+        out[:, j] = [by_lot.get(str(lot), 1.0) for lot in table.index]
+    return {"residual_scale": out}
+
+
 def from_fitted(chain) -> LeanChain:
     """The lean form of a :class:`linkage.models.fitted.FittedChain`."""
     return LeanChain(export(chain))
@@ -516,10 +558,13 @@ def export(chain) -> dict:
                 "model": _model_spec(t.model_), "fold_models": [_model_spec(m) for m in t.fold_models_],
                 "fold_of": np.asarray(t.fold_of_, dtype=np.int64),
                 "residuals": t.residuals.to_numpy(float),
+                **({} if getattr(t, "spread", None) is None else
+                   {"spread": dict(t.spread), "lot_scale": np.asarray(t.lot_scale(), float)}),
             } for t in st.targets.values()],
             "domain": _domain_spec(st.domain),
             "residual_lots": [str(v) for v in table.index],
             "residual_matrix": table.to_numpy(float).reshape(len(table.index), len(st.targets)),
+            **_residual_scale(st, table),
         })
     medians = chain.training.get("medians", {})
     return {
