@@ -432,6 +432,10 @@ def cv_plus_guarantee(n: int, n_folds: int, nominal: float) -> dict:
                      "practice")}
 
 
+#: largest ratio of the highest to the lowest fitted spread over the levels it was fitted on
+SPREAD_MAX_RATIO = 10.0
+
+
 def fit_spread(level, abs_residuals) -> dict:
     """The spread model of locally weighted conformal intervals (Lei, G'Sell,
     Rinaldo, Tibshirani & Wasserman 2018, JASA 113:1094-1111, §5.2: scores
@@ -444,7 +448,9 @@ def fit_spread(level, abs_residuals) -> dict:
     weights are 1 and the working response η + (|r| − μ)/μ; a test compares
     it with scikit-learn's ``GammaRegressor``). Its score equation
     Σ (|r| − ρ̂)/ρ̂ · x = 0 holds for any spread proportional to the mean
-    absolute residual, and ρ̂ > 0 everywhere. z is clipped to the range it
+    absolute residual, and ρ̂ > 0 everywhere. The slope is capped so that
+    ρ̂ changes at most :data:`SPREAD_MAX_RATIO`-fold over the fitted levels
+    (a guard against a few near-zero residuals). z is clipped to the range it
     was fitted on, so the spread stays bounded outside it. Returns the
     numbers :func:`linkage.models.lean.spread_scale` evaluates.
     """
@@ -461,16 +467,35 @@ def fit_spread(level, abs_residuals) -> dict:
                 "z_low": z_mean, "z_high": z_mean}
     u = (z - z_mean) / z_scale
     D = np.column_stack([np.ones_like(u), u])
+    y = np.maximum(r, 1e-6 * mean_r)  # a gamma response must be positive; an exact zero residual is rare
+
+    def deviance(b):  # gamma deviance / 2 (McCullagh & Nelder 1989, §8.3)
+        eta = D @ b
+        return float(np.sum(y * np.exp(-eta) + eta))
+
     beta = np.array([math.log(mean_r), 0.0])
+    dev = deviance(beta)
     for _ in range(100):
-        eta = np.clip(D @ beta, -700.0, 700.0)
-        mu = np.exp(eta)
-        work = eta + (r - mu) / mu  # working response; working weights are 1 for gamma with log link
+        eta = D @ beta
+        work = eta + (y - np.exp(eta)) / np.exp(eta)  # working response; working weights are 1
         new, *_ = np.linalg.lstsq(D, work, rcond=None)
-        done = np.max(np.abs(new - beta)) < 1e-12 * max(1.0, float(np.max(np.abs(new))))
-        beta = new
+        for _ in range(30):  # step halving keeps every step downhill
+            new_dev = deviance(new)
+            if np.isfinite(new_dev) and new_dev <= dev + 1e-12 * abs(dev):
+                break
+            new = (new + beta) / 2
+        else:
+            break
+        done = np.max(np.abs(new - beta)) < 1e-10 * max(1.0, float(np.max(np.abs(new))))
+        beta, dev = new, new_dev
         if done:
             break
+    # the spread may change at most SPREAD_MAX_RATIO-fold over the fitted range (common practice, no source)
+    u_span = float(u.max() - u.min())
+    b_max = math.log(SPREAD_MAX_RATIO) / u_span
+    if abs(beta[1]) > b_max:
+        b = math.copysign(b_max, beta[1])
+        beta = np.array([math.log(float(np.mean(y * np.exp(-b * u)))), b])  # the MLE of a at that b
     return {"kind": "loglinear", "a": float(beta[0]), "b": float(beta[1]), "z_mean": z_mean,
             "z_scale": z_scale, "z_low": float(z.min()), "z_high": float(z.max())}
 

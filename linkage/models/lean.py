@@ -145,6 +145,8 @@ def tree_shap(trees, X: np.ndarray):
 
 #: link functions of the ``link`` kind: g(y) and its inverse
 LINKS = ("identity", "log", "cloglog")
+#: |η| beyond which the inverse link is taken at the bound (exp(700) is finite in float64)
+_ETA_MAX = 700.0
 
 
 def link_transform(link: str, y, y_max: float = 1.0) -> np.ndarray:
@@ -166,6 +168,7 @@ def link_inverse(link: str, eta, y_max: float = 1.0) -> np.ndarray:
     eta = np.asarray(eta, dtype=float)
     if link == "identity":
         return eta
+    eta = np.clip(eta, -_ETA_MAX, _ETA_MAX)  # far outside the data: large but finite, never inf
     if link == "log":
         return np.exp(eta)
     if link == "cloglog":
