@@ -362,7 +362,7 @@ LOG_INPUT_SUFFIXES = ("_mm", "_um", "_kn", "_kn_per_cm", "_rpm", "_mpa", "_n")
 #: two inputs and all of them (common practice, no source)
 SUBSET_ALL_UP_TO = 5
 #: ridge added to the standardised normal equations (numerical guard only)
-_LINK_RIDGE = 1e-8
+_LINK_RIDGE = 1e-10
 
 
 def log_eligible(inputs: list[str]) -> np.ndarray:
@@ -586,7 +586,8 @@ class WeibullReleaseRegressor(_LinkLinear):
 
     @classmethod
     def y_max_for(cls, y) -> float:
-        return float(max(100.0, 1.02 * float(np.max(y))))
+        top = float(np.max(y))
+        return 100.0 if top < 100.0 else 1.02 * top
 
     @classmethod
     def not_applicable(cls, inputs, X, y):
