@@ -463,6 +463,11 @@ class _LinkLinear(Candidate):
         return 1.0
 
     @classmethod
+    def response(cls, y, y_max):
+        """The training values as the link sees them (unchanged by default)."""
+        return y
+
+    @classmethod
     def _masks(cls, grid, p):
         masks = np.zeros((len(grid), p), dtype=bool)
         for g, params in enumerate(grid):
@@ -485,7 +490,7 @@ class _LinkLinear(Candidate):
                 continue
             log_mask = cls._usable_logs(log_eligible(inputs) & use_log, Xtr)
             Z = cls._z(Xtr, log_mask)
-            z_mean, coef, icpt = fit_link_batch(Z, ytr, masks[rows], cls.link, y_max)
+            z_mean, coef, icpt = fit_link_batch(Z, cls.response(ytr, y_max), masks[rows], cls.link, y_max)
             for e, Xe in enumerate(evals):
                 if len(Xe):
                     for k, g in enumerate(np.flatnonzero(rows)):
@@ -516,7 +521,7 @@ class _LinkLinear(Candidate):
         sel = np.zeros((1, p), dtype=bool)
         sel[0, features] = True
         Z = self._z(X, self.log_mask_)
-        self.z_mean_, coef, icpt = fit_link_batch(Z, y, sel, self.link, self.y_max_)
+        self.z_mean_, coef, icpt = fit_link_batch(Z, self.response(y, self.y_max_), sel, self.link, self.y_max_)
         self.coef_, self.intercept_ = coef[0], float(icpt[0])
         self.used_ = sel[0]
         if not (np.all(np.isfinite(self.coef_)) and np.isfinite(self.intercept_)):
@@ -566,6 +571,10 @@ class LogLinearRegressor(_LinkLinear):
 #: highest value of a percentage target the release form accepts (dissolution
 #: is bounded at 150 % of label claim by the template)
 RELEASE_MAX_PCT = 150.0
+#: the plateau F∞ of the release form: the whole label claim [%]
+RELEASE_PLATEAU_PCT = 100.0
+#: share of the plateau at which a lot at or above it enters the fit
+RELEASE_TOP = 0.999
 
 
 @register
@@ -576,9 +585,11 @@ class WeibullReleaseRegressor(_LinkLinear):
     (first-order release is β = 1), since then
     ln(−ln(1 − F/F∞)) = β ln t − β ln τ. The same form is the RRSB undersize
     (Rosin & Rammler 1933): fines = 100(1 − exp(−(x_c/x′)^n)). For
-    percentages; F∞ = 100 %, or just above the highest training lot
-    (1.02 × its value) where a lot exceeds 100 % (measured release scatters
-    past the label claim). Predictions lie in (0, F∞) by construction."""
+    percentages, with F∞ = 100 % (the label claim; a lot measured at or
+    above it enters the fit at 99.9 %, see :meth:`response`). Predictions
+    lie in (0, 100) by construction; a product whose release levels off
+    elsewhere fits worse, and the one-SE selection then prefers another
+    candidate."""
 
     name = "weibull_release"
     description = "Weibull / first-order release and RRSB undersize form, inputs selected per attribute"
@@ -586,8 +597,14 @@ class WeibullReleaseRegressor(_LinkLinear):
 
     @classmethod
     def y_max_for(cls, y) -> float:
-        top = float(np.max(y))
-        return 100.0 if top < 100.0 else 1.02 * top
+        return RELEASE_PLATEAU_PCT
+
+    @classmethod
+    def response(cls, y, y_max):
+        """Lots measured at or above the plateau (release scatters past the
+        label claim) enter the fit at :data:`RELEASE_TOP` of it, where the
+        delta-method weights give them almost no say."""
+        return np.minimum(y, RELEASE_TOP * y_max)
 
     @classmethod
     def not_applicable(cls, inputs, X, y):
