@@ -50,6 +50,9 @@ GAP = "roll_gap_mm"
 CANDIDATE_ROLE = {
     "mean": "floor: the mean of the training lots",
     "rd_baseline": "physical baseline (Ryshkewitch–Duckworth)",
+    "log_linear": "ln y on inputs selected per attribute (Ryshkewitch–Duckworth, power laws)",
+    "weibull_release": "Weibull / first-order release and RRSB undersize form, inputs selected",
+    "linear_select": "least squares on inputs selected per attribute",
     "pls": "partial least squares",
     "quadratic_ridge": "ridge with squares and products",
     "boosting": "gradient boosting",
