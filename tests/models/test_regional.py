@@ -190,3 +190,20 @@ def test_monte_carlo_rescales_residuals_to_the_spread_at_the_draws_level(trained
     ratio = np.std(d.raw["tensile_strength_mpa"][0]) / np.std(d.raw["tensile_strength_mpa"][1])
     assert ratio == pytest.approx(lean.spread_scale(t.spread, mean[0]) / lean.spread_scale(t.spread, mean[1]),
                                   rel=1e-9)
+
+
+def test_a_fitted_target_pickled_before_these_fields_still_predicts(trained):
+    """A chain.joblib from an older version has no coverage_by_region, spread,
+    ...: the class defaults stand in, and the interval is plain CV+."""
+    import copy
+
+    table, fit = trained
+    old = copy.copy(fit.targets["tensile_strength_mpa"])
+    for name in ("coverage_by_region", "coverage_region_variable", "coverage_guarantee", "interval_choice", "spread"):
+        old.__dict__.pop(name, None)
+    X = table[old.inputs].head(3)
+    preds = np.vstack([m.predict(X.to_numpy(float)) for m in old.fold_models_])
+    np.testing.assert_allclose(old.interval(X, raw=True),
+                               cv_plus_interval(preds, old.fold_of_, old.residuals.to_numpy(), 0.1))
+    s = old.summary()
+    assert s["coverage_by_region"] is None and s["spread"] is None
