@@ -40,8 +40,8 @@ from linkage.models.conformal import (coverage_by_region, cv_plus_guarantee, cv_
                                       lw_cv_plus_interval, region_edges, worst_region_gap)
 from linkage.models.cv import SIMPLICITY_ORDER, inner_splits, metrics, outer_splits, select_candidate
 from linkage.models.domain import DomainModel
-from linkage.models.fitted import (COVERAGE_METHOD, INTERVAL_CHOICE_RULE, LW_INTERVAL_METHOD, FittedChain,
-                                   FittedStage, FittedTarget)
+from linkage.models.fitted import (COVERAGE_METHOD, INTERVAL_CHOICE_RULE, FittedChain, FittedStage,
+                                   FittedTarget)
 from linkage.models.lean import spread_scale
 from linkage.schema import NOISE_COLUMNS
 

@@ -137,7 +137,14 @@ def test_train_reports_coverage_by_porosity_third(trained):
     n, k = t.n_lots, t.cv["n_splits"]  # 36 lots: grouped 10-fold; Barber et al. (2021) Theorem 4 slack
     slack = min(2 * (1 - 1 / k) / (n / k + 1), (1 - k / n) / (k + 1))
     assert s["coverage_guarantee"]["guaranteed"] == pytest.approx(0.8 - slack)
-    assert s["interval_choice"]["method"] in {"CV+", "locally weighted CV+"}
+    choice = s["interval_choice"]
+    by = choice["by_method"]
+    lw_better = by["locally weighted CV+"]["worst_region_gap"] < by["CV+"]["worst_region_gap"]
+    assert choice["method"] == ("locally weighted CV+" if lw_better else "CV+")
+    assert (s["spread"] is not None) == lw_better
+    assert regions == by[choice["method"]]["regions"] and s["coverage"] == by[choice["method"]]["coverage"]
+    for m in by.values():
+        assert m["worst_region_gap"] == pytest.approx(max(abs(r["coverage"] - 0.9) for r in m["regions"] if r["n"]))
 
 
 def test_lean_form_and_fitted_chain_give_the_same_locally_weighted_interval(trained):
