@@ -150,7 +150,8 @@ def _coverage_regions(target) -> str:
     guarantee = getattr(target, "coverage_guarantee", None) or {}
     text = (f"<p class=small>Coverage of the {100 * target.nominal_coverage:.0f}% "
             f"{_e(choice.get('method', 'CV+'))} intervals on unseen lots (nested CV) by third of the training range "
-            f"of {_e(variable)}, with a 95% Clopper–Pearson interval (Clopper &amp; Pearson 1934) beside each figure. "
+            f"of {_e(variable)}, with a 95% Clopper–Pearson interval (Clopper &amp; Pearson 1934) beside each "
+            "figure. "
             f"{_e(guarantee.get('text', ''))}. {_e(choice.get('reason', ''))}.</p>")
     return text + _table([f"{variable}", "lots", "coverage", "95% interval"], rows)
 

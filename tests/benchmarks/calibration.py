@@ -172,8 +172,9 @@ def report(results: list[dict], n_lots: int, n_fresh: int, elapsed: float) -> st
             if a in r["now"]["coverage"]:
                 inside += r["now"]["coverage"][a]["thirds"]
     inside = np.array(inside)
-    lines += ["", f"Thirds (attribute × campaign) inside 0.85–0.95 now: {int(np.sum((inside >= 0.85) & (inside <= 0.95)))}"
-              f" of {int(np.sum(np.isfinite(inside)))}.", "",
+    held = int(np.sum((inside >= 0.85) & (inside <= 0.95)))
+    lines += ["", f"Thirds (attribute × campaign) inside 0.85–0.95 now: {held} of {int(np.sum(np.isfinite(inside)))}.",
+              "",
               "## Selected models (now)", "", "| seed | " + " | ".join(ATTRS) + " |",
               "|---|" + "---|" * len(ATTRS)]
     for r in results:
