@@ -53,7 +53,9 @@ tuning it.
    ``build(params, inputs, *, n, monotone, seed)`` (default:
    ``cls(**params)``) and ``fit_predict_grid(...)`` (default: one fit per grid
    point; override when one fit gives every grid point, as the staged
-   boosting predictions do).
+   boosting predictions do). Set ``grid_rule = "one_se"`` to have :func:`tune`
+   take the simplest grid point within one standard error of the lowest
+   inner RMSE instead of the lowest (the input-selecting forms do).
 4. ``lean_spec()``: the fitted model as plain numbers for
    :mod:`linkage.models.lean` (``{"kind": ..., ...}``, one of the kinds that
    module evaluates; a new kind needs its numpy arithmetic there, called by
