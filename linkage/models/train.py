@@ -243,12 +243,14 @@ REGION_VARIABLE = "ribbon_porosity"
 
 def _region_values(plan: _Plan, oof_selected: np.ndarray) -> tuple[np.ndarray, str]:
     """Per lot, the value that places it in a coverage region, and its name:
-    the lot's measured ribbon porosity where it is a stage input or the
-    target, else the attribute's out-of-fold prediction (its level)."""
+    the lot's measured ribbon porosity where it is a stage input, else the
+    attribute's out-of-fold prediction (its level; for the ribbon stage the
+    predicted porosity). Never the observed target itself: regions by the
+    observed value would sort lots by their own errors (a lot lands in the
+    top third partly because its error is positive), and the edge regions
+    would under-cover by construction."""
     if REGION_VARIABLE in plan.inputs:
         return plan.X[:, plan.inputs.index(REGION_VARIABLE)], REGION_VARIABLE
-    if plan.target == REGION_VARIABLE:
-        return plan.y, REGION_VARIABLE
     return oof_selected, f"predicted {plan.target}"
 
 
