@@ -214,3 +214,17 @@ def test_a_fitted_target_pickled_before_these_fields_still_predicts(trained):
                                cv_plus_interval(preds, old.fold_of_, old.residuals.to_numpy(), 0.1))
     s = old.summary()
     assert s["coverage_by_region"] is None and s["spread"] is None
+
+
+def test_ribbon_stage_regions_are_by_predicted_porosity():
+    """The target itself never places a lot in a region (that would sort lots
+    by their own errors); the ribbon stage uses its out-of-fold prediction."""
+    from linkage.models.train import train_chain
+
+    table = assembled_table(20, seed=2)
+    chain = one_stage("ribbon_porosity", ("roll_force_kn_per_cm", "roll_gap_mm", "roll_speed_rpm", "screw_speed_rpm"))
+    t = train_chain(table, chain, seed=0, candidates=["mean", "linear_select"]).targets["ribbon_porosity"]
+    assert t.coverage_region_variable == "predicted ribbon_porosity"
+    oof = t.oof[t.selected].to_numpy()
+    assert t.coverage_by_region[0]["range"][0] == pytest.approx(oof.min())
+    assert t.coverage_by_region[-1]["range"][1] == pytest.approx(oof.max())
