@@ -3,8 +3,8 @@
 pytest does not collect it (no ``test_`` name) and it is outside the default
 run.
 
-    python tests/benchmarks/calibration.py                       # 8 campaigns of 60 lots
-    python tests/benchmarks/calibration.py --seeds 0-3 --lots 30 --out /tmp/c.md
+    python tests/benchmarks/calibration.py                       # 8 campaigns of 60 lots, 4 of 30 and of 120
+    python tests/benchmarks/calibration.py --runs 30:0-3 --out /tmp/c.md
 
 For each seeded campaign drawn by :func:`linkage.synthetic.make_lots` from
 the window scenario (:class:`linkage.synthetic.Truth`, the default), the
@@ -118,7 +118,7 @@ def _fmt_window(wdw) -> str:
     return "none" if lo is None else f"{lo:.3f}–{hi:.3f}"
 
 
-def report(results: list[dict], n_lots: int, n_fresh: int, elapsed: float) -> str:
+def report(runs: list[tuple[int, list[dict]]], n_fresh: int, elapsed: float) -> str:
     import numpy as np
     import scipy
     import sklearn
@@ -127,20 +127,31 @@ def report(results: list[dict], n_lots: int, n_fresh: int, elapsed: float) -> st
 
     truth_window = Truth().probability_window(_spec_tuples(), WINDOW_SETTINGS["mill_screen_mm"],
                                               WINDOW_SETTINGS["compression_force_kn"], confidence=0.9)
+    sizes = "; ".join(f"{len(res)} campaigns of {n} lots (seeds {', '.join(str(r['seed']) for r in res)})"
+                      for n, res in runs)
     lines = [
         "# Calibration against a known truth (issue 12)",
         "",
         f"Written by `tests/benchmarks/calibration.py` on {dt.datetime.now(dt.timezone.utc):%Y-%m-%d %H:%M} UTC "
         f"({platform.machine()}, Python {platform.python_version()}, numpy {np.__version__}, scipy "
-        f"{scipy.__version__}, scikit-learn {sklearn.__version__}); {len(results)} campaigns of {n_lots} lots "
-        f"(seeds {', '.join(str(r['seed']) for r in results)}), {elapsed / 60:.1f} min.",
+        f"{scipy.__version__}, scikit-learn {sklearn.__version__}); {sizes}; {elapsed / 60:.1f} min on a shared "
+        "machine.",
         "",
         "Truth: `linkage.synthetic.Truth()` (the window scenario), spec `WINDOW_SPEC`, held settings "
         f"`WINDOW_SETTINGS` {dict(WINDOW_SETTINGS)}; true 90 % probability window "
         f"{truth_window[0]:.3f}–{truth_window[1]:.3f}. \"now\": every candidate of this version; \"before\": "
         f"{', '.join(BEFORE)} only, on the same lots and folds.",
         "",
-        "## P(all pass): point estimate against the truth",
+    ]
+    for n_lots, results in runs:
+        lines += _section(n_lots, results, n_fresh)
+    return "\n".join(lines) + "\n"
+
+
+def _section(n_lots: int, results: list[dict], n_fresh: int) -> list[str]:
+    lines = [
+        f"## {n_lots} lots per campaign", "",
+        "### P(all pass): point estimate against the truth",
         "",
         "Mean absolute error of `find_window`'s P(all pass) over 61 porosities across the training range "
         "(acceptance: at most 0.03 on average at 60 lots).",
@@ -157,7 +168,7 @@ def report(results: list[dict], n_lots: int, n_fresh: int, elapsed: float) -> st
     lines += [f"| **mean** | **{now.mean():.3f}** | **{before.mean():.3f}** | | | | |", "",
               f"Campaigns with MAE ≤ 0.03: now {int(np.sum(now <= 0.03))} of {len(now)}, before "
               f"{int(np.sum(before <= 0.03))} of {len(before)}.", "",
-              "## Coverage of 90 % intervals on fresh lots, by third of the training porosity range", "",
+              "### Coverage of 90 % intervals on fresh lots, by third of the training porosity range", "",
               f"{n_fresh} fresh lots per campaign (same truth, another seed), each attribute's stage interval at the "
               "lot's measured inputs; mean over campaigns, with the lowest campaign in brackets "
               "(acceptance: 0.85–0.95 in each third).", "",
@@ -180,12 +191,12 @@ def report(results: list[dict], n_lots: int, n_fresh: int, elapsed: float) -> st
     held = int(np.sum((inside >= 0.85) & (inside <= 0.95)))
     lines += ["", f"Thirds (attribute × campaign) inside 0.85–0.95 now: {held} of {int(np.sum(np.isfinite(inside)))}.",
               "",
-              "## Selected models (now)", "", "| seed | " + " | ".join(ATTRS) + " |",
+              "### Selected models (now)", "", "| seed | " + " | ".join(ATTRS) + " |",
               "|---|" + "---|" * len(ATTRS)]
     for r in results:
         lines.append(f"| {r['seed']} | " + " | ".join(r["now"]["coverage"][a]["selected"] if a in r["now"]["coverage"]
                                                       else "-" for a in ATTRS) + " |")
-    return "\n".join(lines) + "\n"
+    return lines + [""]
 
 
 def _spec_tuples():
@@ -196,18 +207,23 @@ def _spec_tuples():
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    ap.add_argument("--seeds", default="0-7", help="campaign seeds, e.g. 0-7 or 1,3,5")
-    ap.add_argument("--lots", type=int, default=60, help="lots per campaign")
+    ap.add_argument("--runs", default="60:0-7,30:0-3,120:0-3",
+                    help="lots per campaign and their seeds, e.g. 60:0-7,30:0-3 (one section each)")
     ap.add_argument("--fresh", type=int, default=600, help="fresh lots per campaign for the coverage")
     ap.add_argument("--out", type=Path, default=ROOT / "reports" / "calibration.md")
     args = ap.parse_args(argv)
     t0 = time.perf_counter()
-    results = []
-    for seed in _seeds(args.seeds):
-        r = campaign(seed, args.lots, args.fresh)
-        print(f"seed {seed}: MAE now {r['now']['mae']:.3f}, before {r['before']['mae']:.3f}", flush=True)
-        results.append(r)
-    text = report(results, args.lots, args.fresh, time.perf_counter() - t0)
+    runs = []
+    for item in args.runs.split(","):
+        lots, _, seeds = item.partition(":")
+        results = []
+        for seed in _seeds(seeds or "0-3"):
+            r = campaign(seed, int(lots), args.fresh)
+            print(f"{lots} lots, seed {seed}: MAE now {r['now']['mae']:.3f}, before {r['before']['mae']:.3f}",
+                  flush=True)
+            results.append(r)
+        runs.append((int(lots), results))
+    text = report(runs, args.fresh, time.perf_counter() - t0)
     args.out.parent.mkdir(parents=True, exist_ok=True)
     args.out.write_text(text, encoding="utf-8")
     print(text)
