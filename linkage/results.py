@@ -120,7 +120,8 @@ class Ingested(_Result):
 #: reasons and methods a reader needs to judge them)
 TARGET_KEYS = ("stage", "inputs", "n_lots", "cv", "candidates", "unavailable", "noise_floor", "noise_floor_method",
                "selected", "selection_rule", "selection", "nominal_coverage", "coverage", "coverage_method",
-               "infinite_intervals", "interval_method", "vip", "rd_params", "notes")
+               "infinite_intervals", "interval_method", "coverage_by_region", "coverage_region_variable",
+               "coverage_guarantee", "interval_choice", "vip", "rd_params", "notes")
 
 
 def train_json(fitted: FittedChain) -> dict:
@@ -178,8 +179,16 @@ def train_text(fitted: FittedChain) -> str:
         why = "lowest CV RMSE" if sel["best"] == t["selected"] else (
             f"simplest within one SE of the lowest ({sel['best']}, RMSE {sel['best_rmse']:.4g})")
         lines.append(f"    selected: {t['selected']} ({why})")
-        lines.append(f"    {t['nominal_coverage']:.0%} CV+ intervals: empirical coverage {t['coverage']:.1%} "
-                     "(nested outer CV, lots held out)")
+        choice = t.get("interval_choice") or {"method": "CV+"}
+        lines.append(f"    {t['nominal_coverage']:.0%} {choice['method']} intervals: empirical coverage "
+                     f"{t['coverage']:.1%} (nested outer CV, lots held out)")
+        if t.get("coverage_guarantee"):
+            lines.append(f"    guarantee: {t['coverage_guarantee']['text']}")
+        for r in t.get("coverage_by_region") or []:
+            lo, hi = r["range"]
+            cov = "no lots" if r["coverage"] is None else (
+                f"{r['coverage']:.1%} of {r['n']} lots (95% Clopper–Pearson {r['ci_low']:.1%}–{r['ci_high']:.1%})")
+            lines.append(f"      {t.get('coverage_region_variable') or 'region'} {lo:.4g}–{hi:.4g}: {cov}")
         for note in t["notes"]:
             lines.append(f"    note: {note}")
     if meta["skipped"]:

@@ -15,6 +15,12 @@ stays inside (0, 1)) before it is judged or passed to the next stage, and so
 is every mean prediction; ``Draws.raw`` keeps the draws as the models gave
 them, to say where a value was projected.
 
+Where an attribute has a spread model (its intervals are locally weighted
+CV+, :data:`linkage.models.fitted.LW_INTERVAL_METHOD`), a lot's residual is
+first divided by the spread ρ̂ at its own out-of-fold level and then
+multiplied by ρ̂ at the draw's predicted level, so a noise that grows with the
+level is drawn larger where the level is higher instead of pooled.
+
 Draws use common random numbers: the same residual lots for every row of
 the inputs, so that a curve over porosity is smooth and two rows differ only
 by their inputs.
@@ -83,9 +89,13 @@ def simulate(chain, inputs, *, n_draws: int = 2000, seed: int = 0) -> Draws:
         x_mean = {c: means[c] for c in stage.inputs}
         for name in todo:
             target = stage.targets[name]
-            r = _residual_column(stage.residual_column(name), name, pick, rng)
             pred = target.predict(x, raw=True).reshape(rows, n_draws)
-            raw[name] = pred + r[None, :]  # the model's draw; projected once, as a whole
+            if getattr(target, "spread", None) is None:
+                r = _residual_column(stage.residual_column(name), name, pick, rng)
+                raw[name] = pred + r[None, :]  # the model's draw; projected once, as a whole
+            else:  # the lot's standardised residual, rescaled to the spread at this draw's level
+                r = _residual_column(stage.scaled_residual_column(name), name, pick, rng)
+                raw[name] = pred + r[None, :] * target.scale(pred)
             values[name] = project(name, raw[name])[0]
             raw_means[name] = target.predict(x_mean, raw=True)
             means[name] = project(name, raw_means[name])[0]

@@ -217,7 +217,8 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
             v = draws.values[name][0]
             if inputs_known:
                 lo, hi = target.interval(x, level, raw=True)
-                raw_low, raw_high, method = float(lo[0]), float(hi[0]), "cv+ conformal"
+                raw_low, raw_high = float(lo[0]), float(hi[0])
+                method = "cv+ conformal" if getattr(target, "spread", None) is None else "locally weighted cv+ conformal"
                 low, high = (float(project(name, e)[0]) for e in (raw_low, raw_high))
             else:
                 low, high = (float(a) for a in np.quantile(v, [q, 1 - q]))

@@ -1,6 +1,6 @@
 """Candidate models for one target, under one tuning and selection rule.
 
-Five candidates, from the simplest (see :data:`linkage.models.cv.SIMPLICITY_ORDER`):
+Eight candidates, from the simplest (see :data:`linkage.models.cv.SIMPLICITY_ORDER`):
 
 ``mean``
     The mean of the training lots: the floor every model must beat.
@@ -10,6 +10,13 @@ Five candidates, from the simplest (see :data:`linkage.models.cv.SIMPLICITY_ORDE
     ``method="nls"``) with parameter standard errors. Only where
     ``ribbon_porosity`` is a stage input. For ribbon tensile strength it is the
     law itself; for tablet attributes it is the physical reference.
+``log_linear``, ``weibull_release``, ``linear_select``
+    Forms shaped by the physics, each attribute with its own inputs: g(y)
+    linear in a subset of the stage inputs (dimensional ones optionally as
+    ln x), the subset chosen by inner grouped CV. g = ln for
+    Ryshkewitch–Duckworth strength and power laws, the complementary log-log
+    of y/F∞ for Weibull / first-order release and the RRSB undersize (fines),
+    the identity for least squares with input selection. See the classes.
 ``pls``
     Partial least squares on standardised inputs; the number of components
     is chosen by inner grouped CV; VIP scores are kept.
@@ -46,7 +53,9 @@ tuning it.
    ``build(params, inputs, *, n, monotone, seed)`` (default:
    ``cls(**params)``) and ``fit_predict_grid(...)`` (default: one fit per grid
    point; override when one fit gives every grid point, as the staged
-   boosting predictions do).
+   boosting predictions do). Set ``grid_rule = "one_se"`` to have :func:`tune`
+   take the simplest grid point within one standard error of the lowest
+   inner RMSE instead of the lowest (the input-selecting forms do).
 4. ``lean_spec()``: the fitted model as plain numbers for
    :mod:`linkage.models.lean` (``{"kind": ..., ...}``, one of the kinds that
    module evaluates; a new kind needs its numpy arithmetic there, called by
@@ -83,6 +92,12 @@ __all__ = [
     "PLSRegressor",
     "QuadraticRidge",
     "BoostingRegressor",
+    "LogLinearRegressor",
+    "WeibullReleaseRegressor",
+    "LinearSelectRegressor",
+    "fit_link_batch",
+    "input_subsets",
+    "log_eligible",
     "CandidateSpec",
     "CANDIDATES",
     "vip_from_weights",
@@ -149,6 +164,9 @@ class Candidate(RegressorMixin, BaseEstimator, metaclass=ABCMeta):
     name: ClassVar[str] = ""
     #: one line for the training report
     description: ClassVar[str] = ""
+    #: how :func:`tune` picks the grid point: "min" (lowest inner RMSE) or
+    #: "one_se" (the simplest within one standard error of it)
+    grid_rule: ClassVar[str] = "min"
 
     # -- the estimator -----------------------------------------------------
     def fit(self, X, y):
@@ -333,6 +351,282 @@ class RDRegressor(Candidate):
     @property
     def params_(self) -> dict:
         return {"s0": self.s0_, "k": self.k_, "s0_se": self.s0_se_, "k_se": self.k_se_}
+
+
+# ---------------------------------------------------------------------------
+# physics-shaped linear forms with inputs selected per attribute
+# ---------------------------------------------------------------------------
+#: name endings of dimensional inputs (sizes, forces, speeds, stresses) that the
+#: link candidates may enter as logarithms (power laws); fractions and
+#: percentages (porosity, fines) always enter linearly (exponential laws)
+LOG_INPUT_SUFFIXES = ("_mm", "_um", "_kn", "_kn_per_cm", "_rpm", "_mpa", "_n")
+#: most inputs for which every subset is tried; above it, subsets of at most
+#: two inputs and all of them (common practice, no source)
+SUBSET_ALL_UP_TO = 5
+#: ridge added to the standardised normal equations (numerical guard only)
+_LINK_RIDGE = 1e-10
+
+
+def log_eligible(inputs: list[str]) -> np.ndarray:
+    """Which inputs may enter as ln(x): dimensional quantities by name (:data:`LOG_INPUT_SUFFIXES`)."""
+    return np.array([str(c).endswith(LOG_INPUT_SUFFIXES) for c in inputs], dtype=bool)
+
+
+def input_subsets(p: int) -> list[tuple[int, ...]]:
+    """Non-empty subsets of p inputs, smallest first (all of them up to
+    :data:`SUBSET_ALL_UP_TO` inputs)."""
+    from itertools import combinations
+
+    sizes = range(1, p + 1) if p <= SUBSET_ALL_UP_TO else [1, 2, p]
+    return [s for k in sizes for s in combinations(range(p), k)]
+
+
+def _link_weights(link: str, y_fit: np.ndarray, y_max: float) -> np.ndarray:
+    """Delta-method weights 1/g'(ŷ)² so that least squares on g(y) weighs
+    each lot as least squares on y would (Carroll & Ruppert 1988,
+    Transformation and Weighting in Regression, ch. 2; from memory)."""
+    if link == "identity":
+        return np.ones_like(y_fit)
+    if link == "log":
+        return y_fit**2  # g'(y) = 1/y
+    q = np.clip(y_fit / y_max, 1e-9, 1 - 1e-9)
+    return (y_max * (1 - q) * -np.log1p(-q)) ** 2  # g'(y) = 1/((y_max − y)·(−ln(1 − y/y_max)))
+
+
+def fit_link_batch(Z: np.ndarray, y: np.ndarray, masks: np.ndarray, link: str, y_max: float):
+    """Weighted least squares of g(y) on the columns of Z that each row of
+    ``masks`` (G, p) selects, for all G subsets at once.
+
+    Two steps: ordinary least squares on g(y), then again with the weights
+    1/g'(ŷ)² at its fitted values (:func:`_link_weights`). Returns
+    (z_mean (p,), coef (G, p), intercept (G,)) for
+    g(ŷ) = intercept + (z − z_mean)·coef; columns outside a subset get 0.
+    """
+    from linkage.models.lean import link_inverse, link_transform
+
+    n, p = Z.shape
+    G = masks.shape[0]
+    z_mean = Z.mean(axis=0)
+    sd = Z.std(axis=0)
+    sd[~(sd > 1e-12 * np.maximum(1.0, np.abs(z_mean)))] = 1.0
+    Zs = (Z - z_mean) / sd
+    D = np.hstack([np.ones((n, 1)), Zs])  # (n, p + 1)
+    keep = np.hstack([np.ones((G, 1), dtype=bool), masks])  # (G, p + 1)
+    t = link_transform(link, y, y_max)
+    eye = np.eye(p + 1)
+
+    def solve(w):  # w (G, n)
+        A = np.einsum("gn,ni,nj->gij", w, D, D)
+        b = np.einsum("gn,ni,n->gi", w, D, t)
+        off = ~keep
+        A = np.where(keep[:, :, None] & keep[:, None, :], A, 0.0) + eye[None] * off[:, :, None]
+        A = A + _LINK_RIDGE * eye[None] * np.maximum(np.einsum("gii->g", A), 1.0)[:, None, None]
+        b = np.where(keep, b, 0.0)
+        return np.linalg.solve(A, b[:, :, None])[:, :, 0]  # (G, p + 1)
+
+    beta = solve(np.ones((G, n)))
+    if link != "identity":
+        y_fit = link_inverse(link, beta @ D.T, y_max)
+        w = _link_weights(link, y_fit, y_max)
+        w = w / np.maximum(w.mean(axis=1, keepdims=True), np.finfo(float).tiny)
+        if np.all(np.isfinite(w)):
+            beta = solve(w)
+    coef = beta[:, 1:] / sd
+    return z_mean, coef, beta[:, 0]
+
+
+class _LinkLinear(Candidate):
+    """g(y) linear in a subset of the stage inputs, each entering as x or
+    ln x; the subset and the choice of logarithms are tuned by inner grouped
+    CV (the simplest grid point within one standard error of the lowest
+    inner RMSE: fewest inputs, then linear before logarithmic). So each
+    attribute of a stage uses the inputs that act on it. Subclasses fix the
+    link g (see :mod:`linkage.models.lean`, ``link`` kind)."""
+
+    link: ClassVar[str] = "identity"
+    grid_rule: ClassVar[str] = "one_se"
+
+    def __init__(self, features=None, log_mask=None):
+        self.features = features
+        self.log_mask = log_mask
+
+    @classmethod
+    def grid(cls, n, p):
+        return [{"features": list(s), "log_inputs": b} for s in input_subsets(p) for b in (False, True)]
+
+    @classmethod
+    def build(cls, params, inputs, *, n, monotone=None, seed=0):
+        elig = log_eligible(inputs)
+        mask = elig if params.get("log_inputs") else np.zeros(len(inputs), dtype=bool)
+        return cls(features=list(params.get("features", range(len(inputs)))), log_mask=[bool(v) for v in mask])
+
+    @classmethod
+    def y_max_for(cls, y) -> float:
+        return 1.0
+
+    @classmethod
+    def response(cls, y, y_max):
+        """The training values as the link sees them (unchanged by default)."""
+        return y
+
+    @classmethod
+    def _masks(cls, grid, p):
+        masks = np.zeros((len(grid), p), dtype=bool)
+        for g, params in enumerate(grid):
+            masks[g, list(params["features"])] = True
+        return masks
+
+    @classmethod
+    def fit_predict_grid(cls, grid, Xtr, ytr, evals, *, inputs, monotone, seed):
+        """Every subset fitted at once (:func:`fit_link_batch`), for the
+        linear and the logarithmic inputs."""
+        from linkage.models.lean import link_predict
+
+        p = Xtr.shape[1]
+        out = [np.empty((len(grid), len(Xe))) for Xe in evals]
+        y_max = cls.y_max_for(ytr)
+        masks = cls._masks(grid, p)
+        for use_log in (False, True):
+            rows = np.array([bool(g.get("log_inputs")) == use_log for g in grid])
+            if not rows.any():
+                continue
+            log_mask = cls._usable_logs(log_eligible(inputs) & use_log, Xtr)
+            Z = cls._z(Xtr, log_mask)
+            z_mean, coef, icpt = fit_link_batch(Z, cls.response(ytr, y_max), masks[rows], cls.link, y_max)
+            for e, Xe in enumerate(evals):
+                if len(Xe):
+                    for k, g in enumerate(np.flatnonzero(rows)):
+                        out[e][g] = link_predict(Xe, cls.link, log_mask, z_mean, coef[k], icpt[k], y_max)
+        return out
+
+    @staticmethod
+    def _usable_logs(mask, X) -> np.ndarray:
+        """The log mask without inputs that are not positive on every training lot."""
+        return np.asarray(mask, dtype=bool) & np.all(X > 0, axis=0)
+
+    @staticmethod
+    def _z(X, log_mask):
+        from linkage.models.lean import _link_inputs
+
+        return _link_inputs(X, log_mask)
+
+    def _fit(self, X, y):
+        p = X.shape[1]
+        features = list(range(p)) if self.features is None else [int(j) for j in self.features]
+        if not features or min(features) < 0 or max(features) >= p:
+            raise CandidateError(f"{type(self).__name__}: features {features} do not fit {p} inputs")
+        mask = np.zeros(p, dtype=bool) if self.log_mask is None else np.asarray(self.log_mask, dtype=bool)
+        if mask.size != p:
+            raise CandidateError(f"{type(self).__name__}: log_mask has {mask.size} entries for {p} inputs")
+        self.log_mask_ = self._usable_logs(mask, X)
+        self.y_max_ = float(self.y_max_for(y))
+        sel = np.zeros((1, p), dtype=bool)
+        sel[0, features] = True
+        Z = self._z(X, self.log_mask_)
+        self.z_mean_, coef, icpt = fit_link_batch(Z, self.response(y, self.y_max_), sel, self.link, self.y_max_)
+        self.coef_, self.intercept_ = coef[0], float(icpt[0])
+        self.used_ = sel[0]
+        if not (np.all(np.isfinite(self.coef_)) and np.isfinite(self.intercept_)):
+            raise CandidateError(f"{type(self).__name__}: the fit gave non-finite coefficients")
+        return self
+
+    def _predict(self, X):
+        from linkage.models.lean import link_predict
+
+        return link_predict(X, self.link, self.log_mask_, self.z_mean_, self.coef_, self.intercept_, self.y_max_)
+
+    def _contributions(self, X):
+        from linkage.models.lean import link_contributions
+
+        return link_contributions(X, self.link, self.log_mask_, self.z_mean_, self.coef_, self.intercept_,
+                                  self.y_max_)
+
+    def lean_spec(self):
+        return {"kind": "link", "link": self.link, "log_mask": np.asarray(self.log_mask_, dtype=bool),
+                "x_mean": np.asarray(self.z_mean_, float), "coef": np.asarray(self.coef_, float),
+                "intercept": float(self.intercept_), "y_max": float(self.y_max_)}
+
+
+@register
+class LogLinearRegressor(_LinkLinear):
+    """ln y = a + Σ bⱼ·hⱼ(xⱼ) on the inputs selected for the attribute.
+
+    The generalised Ryshkewitch–Duckworth form (Ryshkewitch 1953; Duckworth
+    1953): ln σ = ln σ₀ − k·ε, here with further terms (compression force,
+    granule size) where they act; with sizes in logarithms it is also the
+    power law of the RRSB characteristic size in the mill screen (Rosin &
+    Rammler 1933: ln d50 linear in ln x′) and of friability in strength.
+    Predictions are positive by construction. Only for positive targets."""
+
+    name = "log_linear"
+    description = "ln y linear in inputs selected per attribute (Ryshkewitch–Duckworth, power laws)"
+    link = "log"
+
+    @classmethod
+    def not_applicable(cls, inputs, X, y):
+        why = super().not_applicable(inputs, X, y)
+        if why is None and np.any(y <= 0):
+            return "the target has values at or below 0; ln y is undefined"
+        return why
+
+
+#: highest value of a percentage target the release form accepts (dissolution
+#: is bounded at 150 % of label claim by the template)
+RELEASE_MAX_PCT = 150.0
+#: the plateau F∞ of the release form: the whole label claim [%]
+RELEASE_PLATEAU_PCT = 100.0
+#: share of the plateau at which a lot at or above it enters the fit
+RELEASE_TOP = 0.999
+
+
+@register
+class WeibullReleaseRegressor(_LinkLinear):
+    """y = y_max·(1 − exp(−e^η)), η = a + Σ bⱼ·hⱼ(xⱼ): the Weibull release
+    profile (Langenbucher 1972, J. Pharm. Pharmacol. 24:979) at the spec's
+    time point, F = F∞(1 − exp(−(t/τ)^β)), with ln τ linear in the inputs
+    (first-order release is β = 1), since then
+    ln(−ln(1 − F/F∞)) = β ln t − β ln τ. The same form is the RRSB undersize
+    (Rosin & Rammler 1933): fines = 100(1 − exp(−(x_c/x′)^n)). For
+    percentages, with F∞ = 100 % (the label claim; a lot measured at or
+    above it enters the fit at 99.9 %, see :meth:`response`). Predictions
+    lie in (0, 100) by construction; a product whose release levels off
+    elsewhere fits worse, and the one-SE selection then prefers another
+    candidate."""
+
+    name = "weibull_release"
+    description = "Weibull / first-order release and RRSB undersize form, inputs selected per attribute"
+    link = "cloglog"
+
+    @classmethod
+    def y_max_for(cls, y) -> float:
+        return RELEASE_PLATEAU_PCT
+
+    @classmethod
+    def response(cls, y, y_max):
+        """Lots measured at or above the plateau (release scatters past the
+        label claim) enter the fit at :data:`RELEASE_TOP` of it, where the
+        delta-method weights give them almost no say."""
+        return np.minimum(y, RELEASE_TOP * y_max)
+
+    @classmethod
+    def not_applicable(cls, inputs, X, y):
+        why = super().not_applicable(inputs, X, y)
+        if why is None and (np.any(y <= 0) or np.any(y > RELEASE_MAX_PCT)):
+            return f"the target is not a percentage between 0 (excluded) and {RELEASE_MAX_PCT:g}"
+        return why
+
+
+@register
+class LinearSelectRegressor(_LinkLinear):
+    """y = a + Σ bⱼ·hⱼ(xⱼ), ordinary least squares on the inputs selected
+    for the attribute by inner grouped CV (best-subset selection, Hastie,
+    Tibshirani & Friedman 2009, §3.3.1, with the one-standard-error rule of
+    §7.10). Dimensional inputs may enter as logarithms (the solid fraction
+    of a ribbon is linear in ln roll force, a logarithmic compressibility law)."""
+
+    name = "linear_select"
+    description = "least squares on inputs selected per attribute (x or ln x)"
+    link = "identity"
 
 
 def vip_from_weights(weights, ss) -> np.ndarray:
@@ -794,7 +1088,9 @@ def tune(spec: type[Candidate], X: np.ndarray, y: np.ndarray, groups, X_extra: n
          inputs: list[str], monotone: dict[str, int] | None = None, seed: int = 0,
          splits: list | None = None) -> TuneResult:
     """Choose the candidate's hyperparameters by inner grouped CV (lowest
-    inner RMSE; ties go to the simpler grid point, listed first). ``splits``
+    inner RMSE; ties go to the simpler grid point, listed first; a candidate
+    whose ``grid_rule`` is ``"one_se"`` takes the simplest grid point within
+    one standard error of the lowest, as the outer selection does). ``splits``
     may pass the inner splits of ``groups`` already made."""
     if splits is None:
         splits = inner_splits(groups)
@@ -813,7 +1109,13 @@ def tune(spec: type[Candidate], X: np.ndarray, y: np.ndarray, groups, X_extra: n
         fold[te] = f
     if not np.all(np.isfinite(pred)):
         raise CandidateError("inner cross-validation gave non-finite predictions")
-    rmse = np.sqrt(np.mean((pred - y[None, :]) ** 2, axis=1))
+    sq = (pred - y[None, :]) ** 2
+    rmse = np.sqrt(np.mean(sq, axis=1))
     best = int(np.argmin(rmse))
+    if getattr(spec, "grid_rule", "min") == "one_se" and len(y) > 1 and rmse[best] > 0:
+        # the first (simplest) grid point within one standard error of the lowest inner RMSE
+        # (delta-method SE as in linkage.models.cv.metrics)
+        se = float(np.std(sq[best], ddof=1)) / math.sqrt(len(y)) / (2.0 * rmse[best])
+        best = int(np.flatnonzero(rmse <= rmse[best] + se + 1e-12 * rmse[best])[0])
     return TuneResult(params=dict(grid[best]), grid_rmse=[float(v) for v in rmse],
                       inner_pred=pred[best].copy(), inner_fold=fold, extra_pred=extra[best].copy())

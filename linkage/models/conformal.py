@@ -357,3 +357,161 @@ def cv_plus_slack(n: int, n_folds: int) -> float:
     coverage ≥ 1 − 2α − slack; leave-one-out (K = n) has slack 0."""
     k = float(n_folds)
     return float(min(2 * (1 - 1 / k) / (n / k + 1), (1 - k / n) / (k + 1)))
+
+
+# ---------------------------------------------------------------------------
+# coverage by region, and intervals that adapt to the level
+# ---------------------------------------------------------------------------
+#: confidence level of the binomial interval shown beside an empirical coverage
+COVERAGE_CI_LEVEL = 0.95
+
+
+def clopper_pearson(k: int, n: int, level: float = COVERAGE_CI_LEVEL) -> tuple[float, float]:
+    """Exact (Clopper & Pearson 1934, Biometrika 26:404-413) two-sided
+    binomial interval for k successes in n trials: the α/2 quantile of
+    Beta(k, n − k + 1) and the 1 − α/2 quantile of Beta(k + 1, n − k), with
+    0 and 1 at k = 0 and k = n; computed by ``scipy.stats.binomtest(k,
+    n).proportion_ci(method="exact")``. (0, 1) when n = 0."""
+    from scipy.stats import binomtest
+
+    k, n = int(k), int(n)
+    if n < 0 or not 0 <= k <= max(n, 0):
+        raise ValueError(f"need 0 <= k <= n; got k={k}, n={n}")
+    if n == 0:
+        return 0.0, 1.0
+    ci = binomtest(k, n).proportion_ci(confidence_level=float(level), method="exact")
+    return float(ci.low), float(ci.high)
+
+
+def region_edges(values, n_regions: int = 3) -> np.ndarray:
+    """Edges of ``n_regions`` equal parts of the range of ``values``
+    (thirds by default): min, ..., max."""
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    if v.size == 0:
+        raise ValueError("no finite value to make regions of")
+    return np.linspace(float(v.min()), float(v.max()), int(n_regions) + 1)
+
+
+def coverage_by_region(covered, values, edges, level: float = COVERAGE_CI_LEVEL) -> list[dict]:
+    """Empirical coverage in each region [edgesⱼ, edgesⱼ₊₁) of ``values``
+    (the last region closed), with its Clopper–Pearson interval
+    (:func:`clopper_pearson`). Each region is a dict ``range`` [low, high],
+    ``n`` lots, ``coverage`` (None where n = 0), ``ci_low``, ``ci_high``."""
+    covered = np.asarray(covered, dtype=bool)
+    v = np.asarray(values, dtype=float)
+    edges = np.asarray(edges, dtype=float)
+    out = []
+    for j in range(edges.size - 1):
+        last = j == edges.size - 2
+        inside = (v >= edges[j]) & ((v <= edges[j + 1]) if last else (v < edges[j + 1]))
+        n, k = int(inside.sum()), int(covered[inside].sum())
+        lo, hi = clopper_pearson(k, n, level)
+        out.append({"range": [float(edges[j]), float(edges[j + 1])], "n": n,
+                    "coverage": (k / n) if n else None, "ci_low": lo, "ci_high": hi})
+    return out
+
+
+def worst_region_gap(regions: list[dict], nominal: float) -> float:
+    """Largest |coverage − nominal| over the regions that hold lots."""
+    gaps = [abs(r["coverage"] - nominal) for r in regions if r["n"]]
+    return max(gaps) if gaps else 0.0
+
+
+def cv_plus_guarantee(n: int, n_folds: int, nominal: float) -> dict:
+    """What CV+ promises at ``nominal`` coverage with n lots in K folds:
+    at least 1 − 2α − slack (Barber, Candès, Ramdas & Tibshirani 2021,
+    Ann. Statist. 49:486-507, Theorems 1 and 4; slack 0 for leave-one-out),
+    about 1 − α in practice."""
+    alpha = 1.0 - float(nominal)
+    slack = 0.0 if n_folds >= n else cv_plus_slack(n, n_folds)
+    floor = max(0.0, 1.0 - 2.0 * alpha - slack)
+    return {"nominal": float(nominal), "guaranteed": floor, "slack": slack,
+            "text": (f"CV+ guarantees at least 1 − 2α{' − slack' if slack else ''} = {floor:.1%} coverage at "
+                     f"a nominal {nominal:.0%} (Barber et al. 2021, Ann. Statist. 49:486), about {nominal:.0%} in "
+                     "practice")}
+
+
+#: largest ratio of the highest to the lowest fitted spread over the levels it was fitted on
+SPREAD_MAX_RATIO = 10.0
+
+
+def fit_spread(level, abs_residuals) -> dict:
+    """The spread model of locally weighted conformal intervals (Lei, G'Sell,
+    Rinaldo, Tibshirani & Wasserman 2018, JASA 113:1094-1111, §5.2: scores
+    |y − μ̂(x)| / ρ̂(x) with ρ̂ a fitted model of the mean absolute residual).
+
+    ρ̂(z) = exp(a + b·(z − z̄)/s_z) of the level z (the model's prediction),
+    fitted to the out-of-fold absolute residuals by a gamma GLM with log link
+    (maximum likelihood by iteratively reweighted least squares, McCullagh &
+    Nelder 1989, §2.5 and §8: with log link and variance ∝ μ² the working
+    weights are 1 and the working response η + (|r| − μ)/μ; a test compares
+    it with scikit-learn's ``GammaRegressor``). Its score equation
+    Σ (|r| − ρ̂)/ρ̂ · x = 0 holds for any spread proportional to the mean
+    absolute residual, and ρ̂ > 0 everywhere. The slope is capped so that
+    ρ̂ changes at most :data:`SPREAD_MAX_RATIO`-fold over the fitted levels
+    (a guard against a few near-zero residuals). z is clipped to the range it
+    was fitted on, so the spread stays bounded outside it. Returns the
+    numbers :func:`linkage.models.lean.spread_scale` evaluates.
+    """
+    z = np.asarray(level, dtype=float).ravel()
+    r = np.abs(np.asarray(abs_residuals, dtype=float).ravel())
+    if z.size != r.size or z.size < 3:
+        raise ValueError("fit_spread needs at least 3 levels and as many residuals")
+    mean_r = float(np.mean(r))
+    if not mean_r > 0:
+        raise ValueError("every residual is zero: there is no spread to model")
+    z_mean, z_scale = float(np.mean(z)), float(np.std(z))
+    if not z_scale > 1e-12 * max(1.0, abs(z_mean)):
+        return {"kind": "loglinear", "a": math.log(mean_r), "b": 0.0, "z_mean": z_mean, "z_scale": 1.0,
+                "z_low": z_mean, "z_high": z_mean}
+    u = (z - z_mean) / z_scale
+    D = np.column_stack([np.ones_like(u), u])
+    y = np.maximum(r, 1e-6 * mean_r)  # a gamma response must be positive; an exact zero residual is rare
+
+    def deviance(b):  # gamma deviance / 2 (McCullagh & Nelder 1989, §8.3)
+        eta = D @ b
+        return float(np.sum(y * np.exp(-eta) + eta))
+
+    beta = np.array([math.log(mean_r), 0.0])
+    dev = deviance(beta)
+    for _ in range(100):
+        eta = D @ beta
+        work = eta + (y - np.exp(eta)) / np.exp(eta)  # working response; working weights are 1
+        new, *_ = np.linalg.lstsq(D, work, rcond=None)
+        for _ in range(30):  # step halving keeps every step downhill
+            new_dev = deviance(new)
+            if np.isfinite(new_dev) and new_dev <= dev + 1e-12 * abs(dev):
+                break
+            new = (new + beta) / 2
+        else:
+            break
+        done = np.max(np.abs(new - beta)) < 1e-10 * max(1.0, float(np.max(np.abs(new))))
+        beta, dev = new, new_dev
+        if done:
+            break
+    # the spread may change at most SPREAD_MAX_RATIO-fold over the fitted range (common practice, no source)
+    u_span = float(u.max() - u.min())
+    b_max = math.log(SPREAD_MAX_RATIO) / u_span
+    if abs(beta[1]) > b_max:
+        b = math.copysign(b_max, beta[1])
+        beta = np.array([math.log(float(np.mean(y * np.exp(-b * u)))), b])  # the MLE of a at that b
+    return {"kind": "loglinear", "a": float(beta[0]), "b": float(beta[1]), "z_mean": z_mean,
+            "z_scale": z_scale, "z_low": float(z.min()), "z_high": float(z.max())}
+
+
+def lw_cv_plus_interval(fold_predictions, fold_of, residuals, lot_scale, x_scale, alpha: float):
+    """Locally weighted CV+ for m new points: CV+ (:func:`cv_plus_interval`)
+    on normalised scores Rᵢ/ρ̂ᵢ, with ρ̂ᵢ the spread at lot i's out-of-fold
+    level (``lot_scale``) and ρ̂(x) the spread at each new point
+    (``x_scale``, (m,)): the ends are ρ̂(x) times the CV+ ends of μ̂₋ₖ₍ᵢ₎(x)/ρ̂(x)
+    and Rᵢ/ρ̂ᵢ (a positive factor keeps the order statistics in place).
+    Lei et al. (2018) §5.2 for split conformal; here with the CV+ ranks of
+    Barber et al. (2021)."""
+    preds = np.atleast_2d(np.asarray(fold_predictions, dtype=float))
+    s = np.asarray(x_scale, dtype=float).ravel()
+    lot_scale = np.asarray(lot_scale, dtype=float).ravel()
+    if np.any(~(s > 0)) or np.any(~(lot_scale > 0)):
+        raise ValueError("spreads must be positive")
+    low, high = cv_plus_interval(preds / s[None, :], fold_of, np.asarray(residuals, float) / lot_scale, alpha)
+    return low * s, high * s

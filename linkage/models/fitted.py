@@ -15,11 +15,12 @@ import pandas as pd
 from linkage import CAUTION
 from linkage.exceptions import InputError, Problem
 from linkage.models.chain import ChainSpec
-from linkage.models.conformal import cv_plus_interval
-from linkage.models.lean import project
+from linkage.models.conformal import cv_plus_interval, lw_cv_plus_interval
+from linkage.models.lean import project, spread_scale
 from linkage.jsonable import jsonable
 
-__all__ = ["FittedTarget", "FittedStage", "FittedChain", "jsonable", "INTERVAL_METHOD", "COVERAGE_METHOD"]
+__all__ = ["FittedTarget", "FittedStage", "FittedChain", "jsonable", "INTERVAL_METHOD", "LW_INTERVAL_METHOD",
+           "INTERVAL_CHOICE_RULE", "COVERAGE_METHOD"]
 
 INTERVAL_METHOD = (
     "CV+ (Barber, Candès, Ramdas & Tibshirani 2021, Ann. Statist. 49:486-507) with lots as the "
@@ -27,6 +28,20 @@ INTERVAL_METHOD = (
     "out-of-fold residuals; lower end the ⌊α(n+1)⌋-th smallest of μ̂₋ₖ₍ᵢ₎(x) − Rᵢ, upper end the "
     "⌈(1−α)(n+1)⌉-th smallest of μ̂₋ₖ₍ᵢ₎(x) + Rᵢ; an end is ±inf where its rank falls outside 1..n "
     "(too few lots for the level)"
+)
+
+LW_INTERVAL_METHOD = (
+    "locally weighted CV+ (Lei, G'Sell, Rinaldo, Tibshirani & Wasserman 2018, JASA 113:1094-1111, §5.2, "
+    "with the CV+ ranks of Barber et al. 2021): the out-of-fold residuals are divided by a spread model "
+    "ρ̂(level) = exp(a + b·level) fitted to their absolute values (gamma GLM, log link), the CV+ order "
+    "statistics are taken on those scores and the fold models' predictions divided by ρ̂(x), and the ends "
+    "are multiplied back by ρ̂(x); so the interval widens where the model's errors are larger"
+)
+
+INTERVAL_CHOICE_RULE = (
+    "CV+ unless locally weighted CV+ brings the worst porosity region closer to the nominal coverage under "
+    "the nested CV (the largest |coverage − nominal| over the thirds of the training range, strictly smaller); "
+    "the same spread model then scales the residuals in the Monte Carlo through the chain"
 )
 
 COVERAGE_METHOD = (
@@ -101,6 +116,17 @@ class FittedTarget:
     fold_models_: list = field(repr=False)
     fold_of_: np.ndarray = field(repr=False)
     full_models_: dict = field(repr=False, default_factory=dict)
+    #: nested-CV coverage of the deployed interval method by region (thirds of
+    #: the training range of ``coverage_region_variable``), each with its
+    #: Clopper–Pearson interval; None on models trained before it existed
+    coverage_by_region: list | None = None
+    coverage_region_variable: str | None = None
+    #: what CV+ promises (:func:`linkage.models.conformal.cv_plus_guarantee`)
+    coverage_guarantee: dict | None = None
+    #: the choice between CV+ and locally weighted CV+ (method, rule, reason, by_method)
+    interval_choice: dict | None = None
+    #: the spread model of locally weighted CV+ (None: plain CV+ and pooled residuals)
+    spread: dict | None = None
 
     # -- predictions -------------------------------------------------------
     def predict(self, X: pd.DataFrame, *, raw: bool = False) -> np.ndarray:
@@ -130,8 +156,27 @@ class FittedTarget:
             raise ValueError(f"level must lie strictly between 0 and 1; got {level}")
         Xa = _as_matrix(X, self.inputs, f"{self.target} interval")
         preds = np.vstack([np.asarray(m.predict(Xa), float) for m in self.fold_models_])
-        low, high = cv_plus_interval(preds, self.fold_of_, self.residuals.to_numpy(float), 1 - level)
+        spread = getattr(self, "spread", None)
+        if spread is not None:
+            x_scale = spread_scale(spread, np.asarray(self.model_.predict(Xa), float))
+            low, high = lw_cv_plus_interval(preds, self.fold_of_, self.residuals.to_numpy(float),
+                                            self.lot_scale(), x_scale, 1 - level)
+        else:
+            low, high = cv_plus_interval(preds, self.fold_of_, self.residuals.to_numpy(float), 1 - level)
         return (low, high) if raw else (project(self.target, low)[0], project(self.target, high)[0])
+
+    @property
+    def interval_method(self) -> str:
+        """The deployed interval method, in words."""
+        return LW_INTERVAL_METHOD if getattr(self, "spread", None) is not None else INTERVAL_METHOD
+
+    def lot_scale(self) -> np.ndarray:
+        """ρ̂ at each training lot's out-of-fold level (order of ``residuals``);
+        ones without a spread model."""
+        spread = getattr(self, "spread", None)
+        if spread is None:
+            return np.ones(len(self.residuals))
+        return spread_scale(spread, self.oof[self.selected].to_numpy(float))
 
     def contributions(self, X: pd.DataFrame) -> pd.DataFrame:
         """Per-input contributions to each prediction of the selected model.
@@ -172,7 +217,12 @@ class FittedTarget:
             "coverage": self.coverage,
             "coverage_method": self.coverage_method,
             "infinite_intervals": self.infinite_intervals,
-            "interval_method": INTERVAL_METHOD,
+            "interval_method": self.interval_method,
+            "coverage_by_region": getattr(self, "coverage_by_region", None),
+            "coverage_region_variable": getattr(self, "coverage_region_variable", None),
+            "coverage_guarantee": getattr(self, "coverage_guarantee", None),
+            "interval_choice": getattr(self, "interval_choice", None),
+            "spread": getattr(self, "spread", None),
             "vip": self.vip,
             "rd_params": self.rd_params,
             "notes": self.notes,

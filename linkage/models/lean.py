@@ -21,6 +21,14 @@ applicability-domain model. Model kinds:
 ``linear``     PLS as coefficients on the centred inputs
 ``quadratic``  ridge on standardised inputs, squares and pairwise products
 ``trees``      gradient-boosted trees as node arrays and leaf paths
+``link``       a generalised linear form g(y) = a + Σ bⱼ·hⱼ(xⱼ) (identity, log
+               or complementary log-log g; hⱼ the identity or ln), see
+               :func:`link_predict`
+
+A target may also carry a ``spread`` model (:func:`spread_scale`): then its
+intervals are locally weighted CV+ and the Monte Carlo rescales each lot's
+residual to the level of the draw. Files written before these existed load
+unchanged (no spread: pooled residuals, plain CV+).
 """
 
 from __future__ import annotations
@@ -36,7 +44,8 @@ from linkage.exceptions import InputError, Problem, UsageError
 
 __all__ = ["LeanChain", "from_fitted", "as_lean", "to_npz_bytes", "from_npz_bytes", "FORMAT",
            "quad_features", "quadratic_predict", "quadratic_contributions", "walk_trees", "tree_shap",
-           "domain_verdicts", "physical_range", "project"]
+           "domain_verdicts", "physical_range", "project", "link_transform", "link_inverse", "link_predict",
+           "link_contributions", "spread_scale", "LINKS"]
 
 FORMAT = 1
 
@@ -132,6 +141,84 @@ def tree_shap(trees, X: np.ndarray):
         without = masks[(masks >> i & 1) == 0]
         phi[:, i] = weight[without] @ (v[without | (1 << i)] - v[without])
     return phi, float(trees.baseline) + float(v[0, 0])
+
+
+#: link functions of the ``link`` kind: g(y) and its inverse
+LINKS = ("identity", "log", "cloglog")
+#: |η| beyond which the inverse link is taken at the bound (exp(700) is finite in float64)
+_ETA_MAX = 700.0
+
+
+def link_transform(link: str, y, y_max: float = 1.0) -> np.ndarray:
+    """g(y): ``identity`` y; ``log`` ln y (y > 0); ``cloglog``
+    ln(−ln(1 − y/y_max)) for 0 < y < y_max (the first-order / Weibull
+    release and RRSB undersize forms, 1 − exp(−e^η), linear in η)."""
+    y = np.asarray(y, dtype=float)
+    if link == "identity":
+        return y
+    if link == "log":
+        return np.log(y)
+    if link == "cloglog":
+        return np.log(-np.log1p(-y / y_max))
+    raise ValueError(f"unknown link {link!r}; known: {', '.join(LINKS)}")
+
+
+def link_inverse(link: str, eta, y_max: float = 1.0) -> np.ndarray:
+    """g⁻¹(η), the inverse of :func:`link_transform`."""
+    eta = np.asarray(eta, dtype=float)
+    if link == "identity":
+        return eta
+    eta = np.clip(eta, -_ETA_MAX, _ETA_MAX)  # far outside the data: large but finite, never inf
+    if link == "log":
+        return np.exp(eta)
+    if link == "cloglog":
+        return -y_max * np.expm1(-np.exp(eta))  # y_max (1 − exp(−e^η))
+    raise ValueError(f"unknown link {link!r}; known: {', '.join(LINKS)}")
+
+
+def _link_inputs(X, log_mask) -> np.ndarray:
+    X = np.asarray(X, dtype=float)
+    mask = np.asarray(log_mask, dtype=bool)
+    if not mask.any():
+        return X
+    with np.errstate(divide="ignore", invalid="ignore"):
+        logs = np.log(np.maximum(X, np.finfo(float).tiny))  # a size or force at or below 0 is outside any law
+    return np.where(mask[None, :], logs, X)
+
+
+def link_predict(X, link, log_mask, x_mean, coef, intercept, y_max=1.0) -> np.ndarray:
+    """y = g⁻¹(intercept + Σⱼ coefⱼ·(hⱼ(xⱼ) − x_meanⱼ)), hⱼ = ln where
+    ``log_mask``, else the identity."""
+    Z = _link_inputs(X, log_mask)
+    return link_inverse(link, (Z - x_mean) @ coef + intercept, y_max)
+
+
+def link_contributions(X, link, log_mask, x_mean, coef, intercept, y_max=1.0):
+    """Per-input contributions of :func:`link_predict` and the base value
+    g⁻¹(intercept) (the prediction at the mean transformed inputs). With the
+    identity link they are exact, coefⱼ·(hⱼ(xⱼ) − x_meanⱼ); otherwise the
+    difference prediction − base is split in proportion to those link-scale
+    terms (it is a monotone function of their sum), so rows add up to
+    prediction − base and each input keeps the sign of its effect."""
+    Z = _link_inputs(X, log_mask)
+    terms = (Z - x_mean) * coef
+    base = float(link_inverse(link, np.asarray(intercept, float), y_max))
+    if link == "identity":
+        return terms, base
+    total = terms.sum(axis=1)
+    pred = link_inverse(link, total + intercept, y_max)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        share = np.where(np.abs(total)[:, None] > 0, terms / total[:, None], 0.0)
+    return share * (pred - base)[:, None], base
+
+
+def spread_scale(spread, level) -> np.ndarray:
+    """ρ̂(z) = exp(a + b·(clip(z) − z_mean)/z_scale): the residual spread at
+    the level z (see :func:`linkage.models.conformal.fit_spread`); z is
+    clipped to the levels it was fitted on."""
+    p = spread if isinstance(spread, dict) else vars(spread)
+    z = np.clip(np.asarray(level, dtype=float), p["z_low"], p["z_high"])
+    return np.exp(p["a"] + p["b"] * (z - p["z_mean"]) / p["z_scale"])
 
 
 # ---------------------------------------------------------------------------
@@ -259,6 +346,8 @@ class Model:
             return quadratic_predict(X, p.x_mean, p.x_scale, p.beta, p.intercept)
         if self.kind == "trees":
             return walk_trees(p, X)
+        if self.kind == "link":
+            return link_predict(X, p.link, p.log_mask, p.x_mean, p.coef, p.intercept, p.y_max)
         raise ValueError(f"unknown model kind {self.kind!r}")
 
     def contributions(self, X: np.ndarray):
@@ -275,6 +364,8 @@ class Model:
             return quadratic_contributions(X, p.x_mean, p.x_scale, p.beta, p.intercept, p.z_m1, p.z_m2)
         if self.kind == "trees":
             return tree_shap(p, X)
+        if self.kind == "link":
+            return link_contributions(X, p.link, p.log_mask, p.x_mean, p.coef, p.intercept, p.y_max)
         raise ValueError(f"unknown model kind {self.kind!r}")
 
 
@@ -290,6 +381,10 @@ class Target:
         self.fold_models_ = [Model(m) for m in spec["fold_models"]]
         self.fold_of_ = np.asarray(spec["fold_of"], dtype=int)
         self.residuals_ = np.asarray(spec["residuals"], dtype=float)
+        #: spread model of locally weighted CV+ and ρ̂ at each lot's out-of-fold level (absent in older files)
+        self.spread = spec.get("spread")
+        self.lot_scale_ = (np.asarray(spec["lot_scale"], dtype=float) if spec.get("lot_scale") is not None
+                           else np.ones(self.residuals_.size))
 
     def matrix(self, columns, what: str = "prediction") -> np.ndarray:
         """The inputs as a float matrix (one column per input, in order); a
@@ -315,17 +410,28 @@ class Target:
         out = np.asarray(self.model_.predict(self.matrix(columns)), float)
         return out if raw else project(self.target, out)[0]
 
+    def scale(self, level) -> np.ndarray:
+        """ρ̂ at the given levels (ones without a spread model)."""
+        level = np.asarray(level, dtype=float)
+        return np.ones(level.shape) if self.spread is None else spread_scale(self.spread, level)
+
     def interval(self, columns, level: float | None = None, *, raw: bool = False):
-        """CV+ interval (see :data:`linkage.models.fitted.INTERVAL_METHOD`),
-        each end projected onto the physical range (:func:`project`) unless ``raw``."""
-        from linkage.models.conformal import cv_plus_interval
+        """CV+ interval (see :data:`linkage.models.fitted.INTERVAL_METHOD`), or
+        locally weighted CV+ where the target has a spread model, each end
+        projected onto the physical range (:func:`project`) unless ``raw``."""
+        from linkage.models.conformal import cv_plus_interval, lw_cv_plus_interval
 
         level = self.nominal_coverage if level is None else float(level)
         if not 0 < level < 1:
             raise ValueError(f"level must lie strictly between 0 and 1; got {level}")
         X = self.matrix(columns, "interval")
         preds = np.vstack([np.asarray(m.predict(X), float) for m in self.fold_models_])
-        low, high = cv_plus_interval(preds, self.fold_of_, self.residuals_, 1 - level)
+        if self.spread is not None:
+            x_scale = self.scale(self.model_.predict(X))
+            low, high = lw_cv_plus_interval(preds, self.fold_of_, self.residuals_, self.lot_scale_, x_scale,
+                                            1 - level)
+        else:
+            low, high = cv_plus_interval(preds, self.fold_of_, self.residuals_, 1 - level)
         return (low, high) if raw else (project(self.target, low)[0], project(self.target, high)[0])
 
     def contributions(self, columns):
@@ -355,9 +461,20 @@ class Stage:
         #: lots × targets (in the order of ``targets``) of out-of-fold residuals; NaN where a lot lacks one
         self.residual_matrix = np.asarray(spec["residual_matrix"], dtype=float).reshape(
             len(self.residual_lots), len(self.targets))
+        #: the same lots × targets of ρ̂ at each lot's out-of-fold level (ones where a target has no spread
+        #: model, and in files written before it existed)
+        scale = spec.get("residual_scale")
+        self.residual_scale = (np.ones(self.residual_matrix.shape) if scale is None
+                               else np.asarray(scale, dtype=float).reshape(self.residual_matrix.shape))
 
     def residual_column(self, name: str) -> np.ndarray:
         return self.residual_matrix[:, list(self.targets).index(name)]
+
+    def scaled_residual_column(self, name: str) -> np.ndarray:
+        """The lots' residuals divided by ρ̂ at their out-of-fold level (the
+        residuals themselves where the target has no spread model)."""
+        j = list(self.targets).index(name)
+        return self.residual_matrix[:, j] / self.residual_scale[:, j]
 
 
 class LeanChain:
@@ -417,6 +534,22 @@ def _domain_spec(dm) -> dict | None:
             "t2_limit": _num(dm.t2_limit_), "q_limit": _num(dm.q_limit_), "alpha": float(dm.alpha_)}
 
 
+def _residual_scale(stage, table) -> dict:
+    """{"residual_scale": lots × targets of ρ̂ at each lot's out-of-fold level}
+    where a target of the stage has a spread model; {} otherwise (the file
+    then reads as before)."""
+    targets = list(stage.targets.values())
+    if not any(getattr(t, "spread", None) is not None for t in targets):
+        return {}
+    out = np.ones((len(table.index), len(targets)))
+    for j, t in enumerate(targets):
+        if getattr(t, "spread", None) is None:
+            continue
+        by_lot = dict(zip(t.residuals.index.astype(str), t.lot_scale()))
+        out[:, j] = [by_lot.get(str(lot), 1.0) for lot in table.index]
+    return {"residual_scale": out}
+
+
 def from_fitted(chain) -> LeanChain:
     """The lean form of a :class:`linkage.models.fitted.FittedChain`."""
     return LeanChain(export(chain))
@@ -435,10 +568,13 @@ def export(chain) -> dict:
                 "model": _model_spec(t.model_), "fold_models": [_model_spec(m) for m in t.fold_models_],
                 "fold_of": np.asarray(t.fold_of_, dtype=np.int64),
                 "residuals": t.residuals.to_numpy(float),
+                **({} if getattr(t, "spread", None) is None else
+                   {"spread": dict(t.spread), "lot_scale": np.asarray(t.lot_scale(), float)}),
             } for t in st.targets.values()],
             "domain": _domain_spec(st.domain),
             "residual_lots": [str(v) for v in table.index],
             "residual_matrix": table.to_numpy(float).reshape(len(table.index), len(st.targets)),
+            **_residual_scale(st, table),
         })
     medians = chain.training.get("medians", {})
     return {

@@ -37,10 +37,13 @@ import pandas as pd
 from linkage.exceptions import InputError, InsufficientDataError, Problem, UsageError
 from linkage.models.candidates import CANDIDATES, CandidateError, tune
 from linkage.models.chain import ChainSpec
-from linkage.models.conformal import cv_plus_interval
+from linkage.models.conformal import (coverage_by_region, cv_plus_guarantee, cv_plus_interval, fit_spread,
+                                      lw_cv_plus_interval, region_edges, worst_region_gap)
 from linkage.models.cv import SIMPLICITY_ORDER, inner_splits, metrics, outer_splits, select_candidate
 from linkage.models.domain import DomainModel
-from linkage.models.fitted import COVERAGE_METHOD, FittedChain, FittedStage, FittedTarget
+from linkage.models.fitted import (COVERAGE_METHOD, INTERVAL_CHOICE_RULE, FittedChain, FittedStage,
+                                   FittedTarget)
+from linkage.models.lean import spread_scale
 from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN, NOISE_COLUMNS
 
 # re-exported: others import the fitted classes from here
@@ -211,11 +214,45 @@ def _run_job(job: _Job) -> dict:
                     # copies: the bounds are rows of an (n_train × n_test) work array, which a view
                     # would keep alive until training ends (tens of GB at 10,000 lots)
                     res.update(pred=pred, low=np.array(lo), high=np.array(hi))
+                    res.update(zip(("lw_low", "lw_high"), _nested_lw(tr, job.y_train, pred, job.alpha, lo, hi)))
                 out[name] = res
             except (CandidateError, InsufficientDataError, np.linalg.LinAlgError) as exc:
                 where = "the full-data fit" if job.fold is None else f"outer fold {job.fold + 1}"
                 out[name] = {"error": f"{exc} (in {where})"}
     return out
+
+
+def _nested_lw(tr, y_train, pred, alpha, lo, hi):
+    """Nested locally weighted CV+ bounds for the held-out lots: the spread
+    model fitted on the outer training lots' inner out-of-fold residuals
+    against their inner out-of-fold level, the scores normalised by it
+    (:func:`linkage.models.conformal.lw_cv_plus_interval`). Where no spread
+    can be fitted (every residual zero), the plain CV+ bounds."""
+    res = y_train - tr.inner_pred
+    try:
+        spread = fit_spread(tr.inner_pred, res)
+    except ValueError:
+        return np.array(lo), np.array(hi)
+    lw_lo, lw_hi = lw_cv_plus_interval(tr.extra_pred, tr.inner_fold, res, spread_scale(spread, tr.inner_pred),
+                                       spread_scale(spread, pred), alpha)
+    return np.array(lw_lo), np.array(lw_hi)
+
+
+#: the attribute whose training range is cut into the regions of ``coverage_by_region``
+REGION_VARIABLE = "ribbon_porosity"
+
+
+def _region_values(plan: _Plan, oof_selected: np.ndarray) -> tuple[np.ndarray, str]:
+    """Per lot, the value that places it in a coverage region, and its name:
+    the lot's measured ribbon porosity where it is a stage input, else the
+    attribute's out-of-fold prediction (its level; for the ribbon stage the
+    predicted porosity). Never the observed target itself: regions by the
+    observed value would sort lots by their own errors (a lot lands in the
+    top third partly because its error is positive), and the edge regions
+    would under-cover by construction."""
+    if REGION_VARIABLE in plan.inputs:
+        return plan.X[:, plan.inputs.index(REGION_VARIABLE)], REGION_VARIABLE
+    return oof_selected, f"predicted {plan.target}"
 
 
 def _library_versions() -> dict[str, str]:
@@ -344,6 +381,7 @@ def _finish_target(plan: _Plan, fold_results: list[dict], full: dict, table: pd.
     fold_of = np.empty(n, dtype=int)
     for f, (_, te) in enumerate(plan.splits):
         fold_of[te] = f
+    nested: dict[str, dict[str, np.ndarray]] = {}
     floor, floor_method = noise_floor(table[table["lot"].isin(lots)], plan.target)
 
     oof = pd.DataFrame({"observed": y}, index=pd.Index(lots, name="lot"))
@@ -359,6 +397,10 @@ def _finish_target(plan: _Plan, fold_results: list[dict], full: dict, table: pd.
         m = metrics(y, pred)
         m["rmse_over_noise"] = (m["rmse"] / floor) if floor else None
         covered = (low <= y) & (y <= high)
+        lw_low, lw_high = np.empty(n), np.empty(n)
+        for f, (_, te) in enumerate(plan.splits):
+            lw_low[te], lw_high[te] = fold_results[f][name]["lw_low"], fold_results[f][name]["lw_high"]
+        nested[name] = {"cv+": covered, "lw": (lw_low <= y) & (y <= lw_high)}
         coverage[name] = float(np.mean(covered))
         infinite[name] = int(np.sum(~np.isfinite(low) | ~np.isfinite(high)))
         m["coverage"] = coverage[name]
@@ -371,6 +413,9 @@ def _finish_target(plan: _Plan, fold_results: list[dict], full: dict, table: pd.
         notes.append(f"{infinite[selected]} of {n} nested CV+ intervals were unbounded (too few lots for the "
                      f"{nominal:.0%} level); they count as covering")
     residuals = pd.Series(y - oof[selected].to_numpy(), index=oof.index, name=plan.target)
+    interval = _choose_interval(plan, oof[selected].to_numpy(), residuals.to_numpy(), nested[selected], nominal)
+    if interval["method"] == "locally weighted CV+":
+        notes.append("intervals are locally weighted CV+: " + interval["reason"])
     vip = None
     if "pls" in usable:
         vip = {c: float(v) for c, v in zip(plan.inputs, full["pls"]["model"].vip_)}
@@ -383,7 +428,7 @@ def _finish_target(plan: _Plan, fold_results: list[dict], full: dict, table: pd.
         n_lots=n, lots=lots,
         cv={"scheme": plan.scheme, "n_splits": len(plan.splits), "seed": seed, "folds": folds,
             "inner": "grouped 5-fold (scikit-learn GroupKFold, fewer folds when fewer lots)"},
-        oof=oof, residuals=residuals, nominal_coverage=nominal, coverage=coverage[selected],
+        oof=oof, residuals=residuals, nominal_coverage=nominal, coverage=interval["coverage"],
         coverage_method=COVERAGE_METHOD, infinite_intervals=infinite[selected], vip=vip, rd_params=rd,
         hyperparameters={
             "full_data": {name: full[name]["params"] for name in usable},
@@ -394,7 +439,42 @@ def _finish_target(plan: _Plan, fold_results: list[dict], full: dict, table: pd.
         fold_models_=[fold_results[f][selected]["model"] for f in range(len(plan.splits))],
         fold_of_=fold_of,
         full_models_={name: full[name]["model"] for name in usable},
+        coverage_by_region=interval["regions"], coverage_region_variable=interval["variable"],
+        coverage_guarantee=cv_plus_guarantee(n, len(plan.splits), nominal),
+        interval_choice={k: interval[k] for k in ("method", "rule", "reason", "by_method")},
+        spread=interval["spread"],
     )
+
+
+def _choose_interval(plan: _Plan, oof_sel: np.ndarray, residuals: np.ndarray, covered: dict, nominal: float) -> dict:
+    """CV+ or locally weighted CV+ for the selected model, by
+    :data:`linkage.models.fitted.INTERVAL_CHOICE_RULE`, with the nested-CV
+    coverage of each by region."""
+    values, variable = _region_values(plan, oof_sel)
+    edges = region_edges(values)
+    by = {}
+    for key, label in (("cv+", "CV+"), ("lw", "locally weighted CV+")):
+        regions = coverage_by_region(covered[key], values, edges)
+        by[label] = {"coverage": float(np.mean(covered[key])), "regions": regions,
+                     "worst_region_gap": worst_region_gap(regions, nominal)}
+    plain, lw = by["CV+"], by["locally weighted CV+"]
+    spread = None
+    use_lw = lw["worst_region_gap"] < plain["worst_region_gap"] - 1e-12
+    if use_lw:
+        try:
+            spread = fit_spread(oof_sel, residuals)
+        except ValueError:
+            use_lw = False
+    method = "locally weighted CV+" if use_lw else "CV+"
+    if use_lw:
+        reason = (f"under nested CV its worst region misses the nominal {nominal:.0%} by "
+                  f"{lw['worst_region_gap']:.1%} against {plain['worst_region_gap']:.1%} for CV+")
+    else:
+        reason = (f"CV+ kept: under nested CV the worst region misses the nominal {nominal:.0%} by "
+                  f"{plain['worst_region_gap']:.1%} (locally weighted: {lw['worst_region_gap']:.1%})")
+    return {"method": method, "rule": INTERVAL_CHOICE_RULE, "reason": reason, "by_method": by,
+            "regions": by[method]["regions"], "coverage": by[method]["coverage"], "variable": variable,
+            "spread": spread}
 
 
 def _training_record(table: pd.DataFrame, chain: ChainSpec, raw: pd.DataFrame, notes: list[str]) -> dict:

@@ -50,6 +50,9 @@ GAP = "roll_gap_mm"
 CANDIDATE_ROLE = {
     "mean": "floor: the mean of the training lots",
     "rd_baseline": "physical baseline (Ryshkewitch–Duckworth)",
+    "log_linear": "ln y on inputs selected per attribute (Ryshkewitch–Duckworth, power laws)",
+    "weibull_release": "Weibull / first-order release and RRSB undersize form, inputs selected",
+    "linear_select": "least squares on inputs selected per attribute",
     "pls": "partial least squares",
     "quadratic_ridge": "ridge with squares and products",
     "boosting": "gradient boosting",
@@ -128,6 +131,29 @@ def _limit_text(limit) -> str:
     if lo is not None and hi is not None:
         return f"{lo:g} to {hi:g}"
     return f"≥ {lo:g}" if lo is not None else f"≤ {hi:g}"
+
+
+def _coverage_regions(target) -> str:
+    """Coverage of the deployed intervals by region of the training range,
+    with the Clopper–Pearson interval of each figure and the CV+ guarantee
+    beside them; empty for a model trained before they were measured."""
+    regions = getattr(target, "coverage_by_region", None)
+    if not regions:
+        return ""
+    variable = getattr(target, "coverage_region_variable", None) or "region"
+    rows = []
+    for r in regions:
+        lo, hi = r["range"]
+        cov = "no lots" if r["coverage"] is None else f"{100 * r['coverage']:.0f}%"
+        rows.append([f"{lo:.4g}–{hi:.4g}", str(r["n"]), cov, f"{100 * r['ci_low']:.0f}–{100 * r['ci_high']:.0f}%"])
+    choice = getattr(target, "interval_choice", None) or {}
+    guarantee = getattr(target, "coverage_guarantee", None) or {}
+    text = (f"<p class=small>Coverage of the {100 * target.nominal_coverage:.0f}% "
+            f"{_e(choice.get('method', 'CV+'))} intervals on unseen lots (nested CV) by third of the training range "
+            f"of {_e(variable)}, with a 95% Clopper–Pearson interval (Clopper &amp; Pearson 1934) beside each "
+            "figure. "
+            f"{_e(guarantee.get('text', ''))}. {_e(choice.get('reason', ''))}.</p>")
+    return text + _table([f"{variable}", "lots", "coverage", "95% interval"], rows)
 
 
 def _table(header: list[str] | None, rows: list[list[str]], *, num_cols: set[int] | None = None,
@@ -601,6 +627,7 @@ def _attribute_section(b, chain, table, limits):
             f"lots; {_e(cv.get('scheme', 'cross-validation'))}{_e(folds)}; selected <b>{_e(target.selected)}</b>. "
             f"Interval coverage on unseen lots: {coverage} for a nominal {100 * target.nominal_coverage:.0f}%.</p>")
         b.add(_candidate_table(target, unit))
+        b.add(_coverage_regions(target))
         for note in getattr(target, "notes", None) or []:
             b.add(f"<p class=small>Note: {_e(note)}</p>")
         oof = target.oof

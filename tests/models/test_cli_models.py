@@ -6,6 +6,8 @@ import json
 import shutil
 
 import pytest
+
+from linkage.models.cv import SIMPLICITY_ORDER
 from click.testing import CliRunner
 
 from linkage import CAUTION
@@ -86,6 +88,10 @@ def test_train_json_and_text(fake_store, tmp_path):
     assert set(t["candidates"]["pls"]) >= {"rmse", "mae", "q2", "bias"}
     assert data["targets"]["friability_pct"]["noise_floor"] is None
     assert data["caution"] == CAUTION
+    regions = t["coverage_by_region"]  # issue 12: thirds of the porosity range, Clopper-Pearson beside each
+    assert len(regions) == 3 and sum(r["n"] for r in regions) == 12
+    assert all(set(r) == {"range", "n", "coverage", "ci_low", "ci_high"} for r in regions)
+    assert t["coverage_region_variable"] == "ribbon_porosity" and "1 − 2α" in t["coverage_guarantee"]["text"]
 
     chain.write_text('[[stage]]\nname = "tablets"\ninputs = ["ribbon_porosity", "compression_force_kn"]\n'
                      'targets = ["dissolution_pct"]\n')
@@ -95,6 +101,7 @@ def test_train_json_and_text(fake_store, tmp_path):
     assert "dissolution_pct  [tablets stage; 12 lots; leave-one-lot-out" in out
     assert "rd_baseline" in out and "noise floor:" in out and "selected:" in out
     assert "empirical coverage" in out and CAUTION in out
+    assert "guarantee: CV+ guarantees at least 1 − 2α" in out and out.count("Clopper–Pearson") == 3
 
 
 def test_models_lists_and_imports(fake_store, tmp_path):
@@ -107,7 +114,7 @@ def test_models_lists_and_imports(fake_store, tmp_path):
     listing = json.loads(run("models", "--models-dir", models, "--json").stdout)
     (row,) = listing["models"]
     assert row["status"] == "ok" and row["latest"] and row["n_lots"] == 12
-    assert row["targets"]["dissolution_pct"] in {"mean", "rd_baseline", "pls", "quadratic_ridge", "boosting"}
+    assert row["targets"]["dissolution_pct"] in set(SIMPLICITY_ORDER)
 
     other = tmp_path / "other"
     other.mkdir()

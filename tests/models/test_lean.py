@@ -19,7 +19,8 @@ from linkage.models.chain import ChainSpec, StageSpec
 from tests.models.conftest import assembled_table
 
 INPUTS = ["ribbon_porosity", "granule_d50_um", "fines_pct", "compression_force_kn"]
-KINDS = {"mean": "mean", "rd_baseline": "rd", "pls": "linear", "quadratic_ridge": "quadratic", "boosting": "trees"}
+KINDS = {"mean": "mean", "rd_baseline": "rd", "pls": "linear", "quadratic_ridge": "quadratic", "boosting": "trees",
+         "log_linear": "link", "weibull_release": "link", "linear_select": "link"}
 
 
 @pytest.fixture(scope="module")

@@ -96,6 +96,9 @@ def test_candidate_tables_show_baseline_floor_noise_and_selection(report, chain)
     for name, t in chain.targets.items():
         cell = f"{t.candidates[t.selected]['rmse']:.4g}"
         assert cell in body, name
+    # coverage by porosity third, with its Clopper-Pearson interval and the CV+ guarantee (issue 12)
+    assert body.count("Clopper–Pearson") == len(chain.targets)
+    assert body.count("CV+ guarantees at least 1 − 2α") == len(chain.targets)
 
 
 def test_baseline_parameters_with_standard_errors(report, chain):
