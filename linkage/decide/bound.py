@@ -69,9 +69,79 @@ def check_assurance(assurance) -> float:
     return a
 
 
+class _Loop:
+    """Models of several replicates evaluated one by one (any lean kind)."""
+
+    def __init__(self, models: list):
+        self.models = list(models)
+
+    def __len__(self):
+        return len(self.models)
+
+    def take(self, idx) -> "_Loop":
+        return _Loop([self.models[i] for i in idx])
+
+    def predict(self, X3: np.ndarray) -> np.ndarray:
+        return np.stack([np.asarray(m.predict(X), float) for m, X in zip(self.models, X3)])
+
+
+class _Stacked:
+    """Models of several replicates of one kind whose parameters are stacked
+    (B, ...): evaluated for every replicate at once, with the arithmetic of
+    :class:`linkage.models.lean.Model` (a test compares the two)."""
+
+    KINDS = {"mean": ("mean",), "rd": ("s0", "k"), "linear": ("x_mean", "coef", "intercept"),
+             "quadratic": ("x_mean", "x_scale", "beta", "intercept")}
+
+    def __init__(self, kind: str, params: dict, n: int):
+        self.kind, self.params, self.n = kind, params, n
+
+    @classmethod
+    def from_packed(cls, packed: dict):
+        kind = packed["same"].get("kind")
+        if kind not in cls.KINDS:
+            return None
+        n = int(packed["n"])
+        params = {}
+        for k in cls.KINDS[kind] + (("porosity_index",) if kind == "rd" else ()):
+            if k in packed["stacked"]:
+                params[k] = np.asarray(packed["stacked"][k], dtype=float if k != "porosity_index" else np.int64)
+            elif k in packed["same"]:
+                v = packed["same"][k]
+                params[k] = v if k == "porosity_index" else np.full(n, float(v)) if np.ndim(v) == 0 else v
+            else:
+                return None
+        if kind == "rd" and np.ndim(params["porosity_index"]) != 0:
+            return None
+        return cls(kind, params, n)
+
+    def __len__(self):
+        return self.n
+
+    def take(self, idx) -> "_Stacked":
+        return _Stacked(self.kind, {k: v if k == "porosity_index" else v[idx] for k, v in self.params.items()},
+                        len(idx))
+
+    def predict(self, X3: np.ndarray) -> np.ndarray:
+        p, X3 = self.params, np.asarray(X3, dtype=float)
+        if self.kind == "mean":
+            return np.broadcast_to(p["mean"][:, None], X3.shape[:2]).copy()
+        if self.kind == "rd":
+            return p["s0"][:, None] * np.exp(-p["k"][:, None] * X3[:, :, p["porosity_index"]])
+        if self.kind == "linear":
+            return np.einsum("bnp,bp->bn", X3 - p["x_mean"][:, None, :], p["coef"]) + p["intercept"][:, None]
+        from linkage.models.lean import quad_features
+
+        B, n, q = X3.shape
+        Z = (X3 - p["x_mean"][:, None, :]) / p["x_scale"][:, None, :]
+        F = quad_features(Z.reshape(B * n, q)).reshape(B, n, -1)
+        return np.einsum("bnf,bf->bn", F, p["beta"]) + p["intercept"][:, None]
+
+
 class Replicates:
     """The bootstrap replicates of a lean chain, ready to evaluate:
-    ``models[target][b]`` (lean models) and ``counts`` (B × training lots)."""
+    ``models[target]`` (all replicates of one target, evaluated together)
+    and ``counts`` (B × training lots)."""
 
     def __init__(self, lean):
         from linkage.models.bootstrap import unpack_specs
@@ -80,6 +150,7 @@ class Replicates:
         bs = getattr(lean, "bootstrap", None)
         self.reason = None
         self.n = 0
+        self.method = None
         if not bs:
             self.reason = NO_BOUND
             return
@@ -89,7 +160,10 @@ class Replicates:
             return
         self.counts = np.asarray(bs["counts"], dtype=np.int64)
         self.lot_index = {str(lot): i for i, lot in enumerate(bs["lots"])}
-        self.models = {name: [Model(s) for s in unpack_specs(p)] for name, p in bs["targets"].items()}
+        self.models = {}
+        for name, packed in bs["targets"].items():
+            stacked = _Stacked.from_packed(packed)
+            self.models[name] = stacked if stacked is not None else _Loop([Model(s) for s in unpack_specs(packed)])
         missing = [t for t in lean.targets if t not in self.models]
         if missing:
             self.reason = f"no lower bound: the bootstrap replicates lack {', '.join(missing)}"
@@ -143,36 +217,77 @@ def lower_bound(replicates, assurance: float, point=None) -> np.ndarray:
     return low if point is None else np.minimum(low, np.asarray(point, dtype=float))
 
 
-def _stage_lots(stage, todo: list[str], weights_by_lot: np.ndarray | None, lot_index: dict | None):
-    """Rows of the stage's residual matrix to use (lots with every target in
-    ``todo``) and their weights summing to 1; ``weights_by_lot`` are a
-    replicate's counts over the training lots (None: every lot once)."""
+def _stage_lots(stage, todo: list[str], counts: np.ndarray | None, lot_index: dict | None):
+    """The stage's residual rows with every target in ``todo`` (n_s × targets)
+    and the weights of each replicate on them (B × n_s, rows summing to 1,
+    NaN for a replicate that drew none of them); ``counts`` are the
+    replicates' draws over the training lots (None: every lot once)."""
     cols = [list(stage.targets).index(t) for t in todo]
     R = stage.residual_matrix[:, cols]
     rows = np.flatnonzero(np.all(np.isfinite(R), axis=1))
-    if weights_by_lot is None:
-        w = np.ones(rows.size)
+    if counts is None:
+        W = np.ones((1, rows.size))
     else:
-        w = np.array([weights_by_lot[lot_index[str(stage.residual_lots[i])]]
-                      if str(stage.residual_lots[i]) in lot_index else 0 for i in rows], dtype=float)
-        rows, w = rows[w > 0], w[w > 0]
-    if rows.size == 0:
-        return None, None, None
-    return R[rows], w / w.sum(), rows
+        at = np.array([lot_index.get(str(stage.residual_lots[i]), -1) for i in rows], dtype=np.int64)
+        W = np.where(at[None, :] >= 0, counts[:, np.maximum(at, 0)], 0).astype(float)
+    total = W.sum(axis=1, keepdims=True)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return R[rows], W / total
 
 
-def _one(lean, columns: dict, limits: dict, attributes: list[str], models: dict, weights_by_lot, lot_index,
-         rng, cells: int, final_max: int):
-    """P(all pass) (rows,) and P(pass) per attribute for one set of models and lot weights."""
+def _draw(W: np.ndarray, u: np.ndarray) -> np.ndarray:
+    """Per replicate (row of W), the lots that the uniforms ``u`` pick by
+    weight (inverse CDF: the same ``u`` for every replicate)."""
+    cdf = np.cumsum(np.nan_to_num(W), axis=1)
+    cdf[:, -1] = np.inf
+    return np.stack([np.searchsorted(c, u, side="right") for c in cdf])
+
+
+def _passes(name: str, pred: np.ndarray, r: np.ndarray, limit) -> np.ndarray:
+    """within(project(name, pred[..., None] + r[:, None, None, :]), limit)
+    (B × rows × draws × lots), without forming the sums: the projection is a
+    clip onto [pl, ph], so clip(x) ≥ lo holds always when lo ≤ pl, never
+    when lo > ph, and else exactly when x ≥ lo, that is r ≥ lo − pred
+    (likewise for the upper limit); a test compares the two."""
+    from linkage.models.lean import physical_range
+
+    pl, ph = physical_range(name)
+    shape = pred.shape + (r.shape[-1],)
+    ok = np.ones(shape, dtype=bool)
+    rr = r[:, None, None, :]
+    if limit.min is not None and limit.min > pl:
+        if limit.min > ph:
+            return np.zeros(shape, dtype=bool)
+        ok &= rr >= (limit.min - pred)[..., None]
+    if limit.max is not None and limit.max < ph:
+        if limit.max < pl:
+            return np.zeros(shape, dtype=bool)
+        ok &= rr <= (limit.max - pred)[..., None]
+    return ok
+
+
+def _wsum(a: np.ndarray, lw: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """Σ_d w[b, d] Σ_l lw[b, l] a[b, r, d, l] for a boolean a (B × rows × draws × lots)."""
+    B, r, d, L = a.shape
+    lw = np.broadcast_to(np.asarray(lw, dtype=float), (B, L))
+    per_draw = np.matmul(a.reshape(B, r * d, L).astype(np.float32), lw.astype(np.float32)[:, :, None])
+    return np.einsum("brd,bd->br", per_draw.reshape(B, r, d).astype(float), w)
+
+
+def _batch(lean, columns: dict, limits: dict, attributes: list[str], models: dict, counts, lot_index,
+           seed: int, cells: int, final_max: int):
+    """P(all pass) (B × rows) and P(pass) per attribute for a batch of
+    replicates (models of each target evaluated together)."""
     from linkage.decide.propagate import within
     from linkage.models.lean import project
 
+    B = len(next(iter(models.values())))
     nrows = len(next(iter(columns.values())))
     fixed = set(columns)
     sim = [st for st in lean.stages if any(t not in fixed for t in st.targets)]
-    values = {k: np.asarray(v, dtype=float).reshape(nrows, 1) for k, v in columns.items()}
-    w = np.ones(1)
-    ok = np.ones((nrows, 1), dtype=bool)
+    values = {k: np.asarray(v, dtype=float).reshape(1, nrows, 1) for k, v in columns.items()}
+    w = np.ones((B, 1))
+    ok = np.ones((B, nrows, 1), dtype=bool)
     each: dict[str, np.ndarray] = {}
     p_each: dict[str, np.ndarray] = {}
     p_all = None
@@ -182,84 +297,95 @@ def _one(lean, columns: dict, limits: dict, attributes: list[str], models: dict,
         if missing:
             raise UsageError(f"stage '{st.name}' needs {', '.join(missing)}, which were neither given nor "
                              "predicted by an earlier stage")
-        R, lw, _ = _stage_lots(st, todo, weights_by_lot, lot_index)
-        if R is None:
-            nan = np.full(nrows, np.nan)
-            return nan, {a: nan for a in attributes}
-        D = w.size
-        if si < len(sim) - 1:
-            if nrows * D * len(lw) <= cells:  # every lot, with its weight
-                parent = np.repeat(np.arange(D), len(lw))
-                pick = np.tile(np.arange(len(lw)), D)
-                w = w[parent] * lw[pick]
+        R, W = _stage_lots(st, todo, counts, lot_index)
+        if R.shape[0] == 0:
+            raise UsageError(f"stage '{st.name}' has no lot with out-of-fold residuals of every target; "
+                             "the model cannot give it an uncertainty")
+        rng = np.random.default_rng([seed, si])  # the same uniforms whatever the batch
+        D, n_s = w.shape[1], R.shape[0]
+        final = si == len(sim) - 1
+        if not final:
+            if nrows * D * n_s <= cells:  # every lot, with its weight
+                parent = np.repeat(np.arange(D), n_s)
+                pick = np.tile(np.arange(n_s), D)[None, :]
+                w = w[:, parent] * W[:, pick[0]]
             else:  # k lots per draw, drawn by weight
                 k = max(1, cells // (nrows * D))
                 parent = np.repeat(np.arange(D), k)
-                pick = rng.choice(len(lw), size=D * k, p=lw)
-                w = w[parent] / k
-            values = {c: v[:, parent] for c, v in values.items()}
-            ok = ok[:, parent]
-            each = {a: e[:, parent] for a, e in each.items()}
-            n_draws = w.size
-            for j, t in enumerate(todo):
-                target = lean.targets[t]
-                X = np.column_stack([values[c].reshape(-1) for c in target.inputs])
-                pred = np.asarray(models[t].predict(X), float).reshape(nrows, n_draws)
-                values[t] = project(t, pred + R[pick, j][None, :])[0]
+                pick = _draw(W, rng.random(D * k))
+                w = w[:, parent] / k
+            values = {c: v[:, :, parent] for c, v in values.items()}
+            ok = ok[:, :, parent]
+            each = {a: e[:, :, parent] for a, e in each.items()}
+        else:
+            if n_s > final_max:
+                pick = _draw(W, rng.random(final_max))
+                lw = np.full((B, final_max), 1.0 / final_max)
+            else:
+                pick = np.arange(n_s)[None, :]
+                lw = W
+        n_draws = w.shape[1]
+        joint = None
+        for j, t in enumerate(todo):
+            if final and t not in attributes:
+                continue
+            target = lean.targets[t]
+            X3 = np.stack([np.broadcast_to(values[c], (B, nrows, n_draws)).reshape(B, -1)
+                           for c in target.inputs], axis=-1)
+            pred = models[t].predict(X3).reshape(B, nrows, n_draws)
+            r = R[:, j][pick]  # (1 or B, draws or lots)
+            if not final:
+                values[t] = project(t, pred + r[:, None, :])[0]
                 if t in attributes:
                     each[t] = within(values[t], limits[t])
-                    ok &= each[t]
-        else:
-            if len(lw) > final_max:
-                pick = rng.choice(len(lw), size=final_max, p=lw)
-                lw = np.full(final_max, 1.0 / final_max)
+                    ok = ok & each[t]
             else:
-                pick = np.arange(len(lw))
-            joint = np.broadcast_to(ok[:, :, None], ok.shape + (pick.size,)).copy()
-            for j, t in enumerate(todo):
-                if t not in attributes:
-                    continue
-                target = lean.targets[t]
-                X = np.column_stack([values[c].reshape(-1) for c in target.inputs])
-                pred = np.asarray(models[t].predict(X), float).reshape(nrows, w.size)
-                v = project(t, pred[:, :, None] + R[pick, j][None, None, :])[0]
-                pa = within(v, limits[t])
-                joint &= pa
-                p_each[t] = (pa.reshape(-1, pick.size) @ lw).reshape(nrows, w.size) @ w
-            p_all = (joint.reshape(-1, pick.size) @ lw).reshape(nrows, w.size) @ w
+                pa = _passes(t, pred, r, limits[t])
+                joint = pa if joint is None else joint & pa
+                p_each[t] = _wsum(pa, lw, w)
+        if final:
+            joint = ok[..., None] if joint is None else joint & ok[..., None]
+            p_all = _wsum(joint, lw, w) if joint.shape[-1] == lw.shape[-1] else np.einsum("brdl,bd->br", joint, w)
     for a, e in each.items():
-        p_each[a] = e @ w
+        p_each[a] = np.einsum("brd,bd->br", e, w)
     if p_all is None:
-        p_all = ok @ w
+        p_all = np.einsum("brd,bd->br", ok, w)
     return p_all, p_each
 
 
 def chain_probabilities(lean, columns: dict, limits: dict, attributes: list[str], *, replicates: bool = True,
-                        seed: int = 0, cells: int = CELLS, final_max: int = FINAL_MAX) -> ChainProbabilities:
+                        seed: int = 0, cells: int = CELLS, final_max: int = FINAL_MAX,
+                        memory_cells: int = 4_000_000) -> ChainProbabilities:
     """P(all pass) and each P(pass) at each row of ``columns`` (every root
     setting, and any measured target, one value per row), for the point
     estimate and (when ``replicates`` and the model has them) every
     bootstrap replicate. ``limits`` maps each attribute to a spec limit
-    (``min``/``max``); ``attributes`` are the predicted ones to judge."""
+    (``min``/``max``); ``attributes`` are the predicted ones to judge.
+    Replicates are evaluated in batches of at most ``memory_cells`` cells of
+    the last stage's sums; the result does not depend on the batch size."""
     from linkage.models.lean import as_lean
 
     lean = as_lean(lean)
     columns = {str(k): np.asarray(v, dtype=float).reshape(-1) for k, v in columns.items()}
-    point_models = {t: tg.model_ for t, tg in lean.targets.items()}
-    p_all, p_each = _one(lean, columns, limits, attributes, point_models, None, None,
-                         np.random.default_rng([seed, 0]), cells, final_max)
+    point_models = {t: _Loop([tg.model_]) for t, tg in lean.targets.items()}
+    p_all, p_each = _batch(lean, columns, limits, attributes, point_models, None, None, seed, cells, final_max)
+    p_all, p_each = p_all[0], {a: v[0] for a, v in p_each.items()}
     if not replicates:
         return ChainProbabilities(p_all, p_each, None, None, None)
     reps = replicates_of(lean)
     if not reps.available:
         return ChainProbabilities(p_all, p_each, None, None, reps.reason)
-    all_b = np.empty((reps.n, p_all.size))
-    each_b = {a: np.empty((reps.n, p_all.size)) for a in p_each}
-    for b in range(reps.n):
-        models = {t: reps.models[t][b] for t in lean.targets}
-        pa, pe = _one(lean, columns, limits, attributes, models, reps.counts[b], reps.lot_index,
-                      np.random.default_rng([seed, b + 1]), cells, final_max)
-        all_b[b] = pa
+    nrows = p_all.size
+    per_rep = nrows * max(cells // max(nrows, 1), 1) * final_max
+    size = max(1, min(reps.n, memory_cells // max(per_rep, 1)))
+    all_b = np.empty((reps.n, nrows))
+    each_b = {a: np.empty((reps.n, nrows)) for a in p_each}
+    for start in range(0, reps.n, size):
+        idx = np.arange(start, min(start + size, reps.n))
+        models = {t: reps.models[t].take(idx) for t in lean.targets}
+        pa, pe = _batch(lean, columns, limits, attributes, models, reps.counts[idx], reps.lot_index, seed,
+                        cells, final_max)
+        all_b[idx] = pa
         for a in each_b:
-            each_b[a][b] = pe[a]
+            each_b[a][idx] = pe[a]
     return ChainProbabilities(p_all, p_each, all_b, each_b, None)

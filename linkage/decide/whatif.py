@@ -31,6 +31,9 @@ from linkage.exceptions import UsageError
 from linkage.numbers import parse_plain_number
 from linkage.schema import MISSING_TOKENS, TABLES
 
+#: cells of the bound's sums through the chain for one what-if (see linkage.decide.bound)
+WHATIF_CELLS = 200
+
 #: fractions that must lie strictly between 0 and 1
 _FRACTIONS = {"ribbon_porosity", "ribbon_solid_fraction"}
 
@@ -111,17 +114,25 @@ class WhatIf:
     in_domain: bool
     domain_reasons: list[str]
     domain: dict[str, dict] = field(default_factory=dict)
+    #: the lower bound at ``assurance`` of P(all pass) (None without bootstrap replicates or without a spec),
+    #: and why there is none
+    assurance: float = 0.9
+    p_pass_all_low: float | None = None
+    bound_reason: str | None = None
 
     @property
     def promise(self) -> bool:
         """Whether the what-if promises its probabilities and intervals: only
-        inside the applicability domain of every stage it used. Outside it the
-        numbers are extrapolations of the models, shown but not promised."""
-        return bool(self.in_domain)
+        inside the applicability domain of every stage it used, and (when a
+        spec is given) with a lower bound on the probability. Outside the
+        domain the numbers are extrapolations of the models, shown but not
+        promised."""
+        return bool(self.in_domain) and self.bound_reason is None
 
     @property
     def promise_reasons(self) -> list[str]:
-        return [] if self.promise else [f"outside the applicability domain: {r}" for r in self.domain_reasons]
+        out = [f"outside the applicability domain: {r}" for r in self.domain_reasons] if not self.in_domain else []
+        return out + ([self.bound_reason] if self.bound_reason is not None else [])
 
     def to_dict(self) -> dict:
         return {
@@ -134,6 +145,8 @@ class WhatIf:
             "in_domain": self.in_domain,
             "domain_reasons": self.domain_reasons,
             "domain": self.domain,
+            "p_pass_all_bound": {"assurance": self.assurance, "low": self.p_pass_all_low,
+                                 **({"reason": self.bound_reason} if self.bound_reason else {})},
             "promise": self.promise,
             "promise_reasons": self.promise_reasons,
             "caution": CAUTION,
@@ -141,16 +154,25 @@ class WhatIf:
 
 
 def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float | None = None,
-                   n_draws: int = 4000, seed: int = 0, contributions: bool = True) -> WhatIf:
+                   n_draws: int = 4000, seed: int = 0, contributions: bool = True,
+                   assurance: float = 0.9) -> WhatIf:
     """Predict every downstream attribute for one set of values.
 
     ``chain`` is a fitted chain or its lean form (what ``linkage predict``
     loads, :mod:`linkage.models.lean`); the arithmetic runs on the lean form
     either way, so both give the same numbers.
+
+    With a spec, each P(pass) and P(all pass) also gets its lower bound at
+    ``assurance`` (``p_pass_low``, ``p_pass_all_bound``) from the chain's
+    lot-level bootstrap replicates (:mod:`linkage.decide.bound`); a model
+    without replicates says so in ``p_pass_all_bound.reason`` and promises
+    nothing.
     """
+    from linkage.decide.bound import chain_probabilities, check_assurance
     from linkage.models.lean import as_lean, physical_range, project
 
     chain = as_lean(chain)
+    assurance = check_assurance(assurance)
     check_values(chain, values)
     level = float(level if level is not None else chain.nominal_coverage)
     if not 0 < level < 1:
@@ -208,6 +230,20 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
                 entry["contributions"] = _top_contributions(target, x)
             predictions[name] = entry
 
+    p_all_low, bound_reason = None, None
+    judged = [n for n in predictions if "p_pass" in predictions[n]]
+    if judged:
+        cp = chain_probabilities(chain, {k: [v] for k, v in filled.items()}, spec_limits, judged, seed=seed,
+                                 cells=WHATIF_CELLS)
+        low_each = cp.low_each(assurance)
+        if low_each is None:
+            bound_reason = cp.reason
+        else:
+            p_all_low = float(cp.low_all(assurance)[0])
+        for n in judged:
+            predictions[n]["p_pass_low"] = None if low_each is None else float(low_each[n][0])
+            predictions[n]["p_pass_point"] = float(cp.p_each[n][0])
+
     inputs = {k: {"value": float(filled[k]), "source": source[k]} for k in filled}
     return WhatIf(
         model_id=chain.model_id or "unsaved",
@@ -215,6 +251,7 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         level=level, inputs=inputs, predictions=predictions,
         p_pass_all=float(pass_all.mean()) if any_spec else None,
         in_domain=not reasons, domain_reasons=reasons, domain=domain,
+        assurance=assurance, p_pass_all_low=p_all_low, bound_reason=bound_reason,
     )
 
 
