@@ -237,6 +237,8 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     force = chain_force_range(lean, spec, settings=roots, confidence=confidence, assurance=assurance,
                               seed=seed, in_window=force, force_range=tuple(chain.training["ranges"][FORCE])
                               if FORCE in chain.training["ranges"] and chain.training["ranges"][FORCE] else None)
+    if low_edge.value is None and force.get("low") is None:
+        force["reason"] = "no porosity window to translate"
     domain = window_domain(chain, draws, grid, low_edge.value, high_edge.value, force)
     if not bound["available"]:
         domain["promise"] = False
