@@ -464,7 +464,8 @@ def plot_window_probability(grid, p_all, p_each: Mapping[str, Sequence[float]], 
         colour, marker = styles[name]
         ax.plot(grid, np.asarray(p, float), color=colour, linewidth=1.1, marker=marker,
                 markevery=max(1, len(grid) // 10), markersize=4, label=f"P(pass {name})")
-    ax.plot(grid, np.asarray(p_all, float), color=BLACK, linewidth=2.4, label="P(pass all), point estimate")
+    ax.plot(grid, np.asarray(p_all, float), color=BLACK, linewidth=2.4,
+            label="P(pass all)" if p_all_low is None else "P(pass all), point estimate")
     if p_all_low is not None:
         ax.plot(grid, np.asarray(p_all_low, float), color=BLACK, linewidth=2.4, linestyle=(0, (4, 2)),
                 label=f"P(pass all), lower bound ({assurance:.0%} assurance)" if assurance else
