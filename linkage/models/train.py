@@ -519,9 +519,5 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
         training=_training_record(data, chain, table, notes), library_versions=_library_versions(),
         seed=int(seed), nominal_coverage=nominal, created_at=created_at,
     )
-    if progress is not None:
-        progress("bootstrap replicates", 0, 1)
     out.bootstrap = bootstrap_chain(out, data, n_replicates=n_bootstrap, seed=seed)
-    if progress is not None:
-        progress("bootstrap replicates", 1, 1)
     return out

@@ -808,8 +808,14 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
         if len(w.segments) > 1:
             b.add("<p>Other passing ranges: " + ", ".join(f"{a:.3f} – {c:.3f}" for a, c in w.segments) + ".</p>")
     else:
-        b.add(f"<p><b>No window</b>: the probability of meeting every specification together stays below "
-              f"{w.confidence:.0%} across the training range.</p>")
+        b.add(f"<p><b>No window</b>: the "
+              + (f"lower bound ({w.assurance:.0%} assurance) of the " if bound.get("available") else "")
+              + f"probability of meeting every specification together stays below {w.confidence:.0%} across the "
+              "training range.</p>")
+        if bound.get("available") and w.point_low is not None:
+            b.add(f"<p>The point estimate reaches {w.confidence:.0%} over {_range(w.point_low, w.point_high, 3)}, "
+                  "but with the lots at hand that is not a promise: the bound, which carries the uncertainty of "
+                  "the estimate, does not reach it.</p>")
     if w.mean_low is not None:
         b.add(f"<p>Mean-response window (where the chain of mean predictions passes; it overstates what can be "
               f"promised, Peterson 2008): {w.mean_low:.3f} – {w.mean_high:.3f}.</p>")
