@@ -35,7 +35,7 @@ def demo_chain():
     first = read_folder(DEMO_DATA / "lots")
     with tempfile.TemporaryDirectory() as d, LotStore(Path(d) / "lots.db") as store:
         store.ingest(first)
-        store.ingest(read_folder(DEMO_DATA / "remeasured"))
+        store.ingest(read_folder(DEMO_DATA / "remeasured"), reason="benchmark: the demo lot re-measured")
         tables = store.current_tables()
     spec = first.spec
     table = assemble(tables, dissolution_time_min=spec.dissolution_time_min,
