@@ -808,7 +808,7 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
         if len(w.segments) > 1:
             b.add("<p>Other passing ranges: " + ", ".join(f"{a:.3f} – {c:.3f}" for a, c in w.segments) + ".</p>")
     else:
-        b.add(f"<p><b>No window</b>: the "
+        b.add("<p><b>No window</b>: the "
               + (f"lower bound ({w.assurance:.0%} assurance) of the " if bound.get("available") else "")
               + f"probability of meeting every specification together stays below {w.confidence:.0%} across the "
               "training range.</p>")
