@@ -215,3 +215,26 @@ def test_cli_json_carries_the_contract_keys(saved_model):
     r = runner.invoke(cli, ["predict", "--set", "roll_force_kn_per_cm=9", "--spec", str(spec_path),
                             "--models-dir", str(models_dir)], catch_exceptions=False)
     assert "with 90% assurance (point estimate" in r.stdout
+
+
+def test_old_model_in_the_registry_says_no_bound_on_the_command_line(old_chain, tmp_path):
+    """A model saved without replicates (as before they existed): `predict`
+    and `window` load it, compute, and say plainly that there is no bound."""
+    from linkage.models.registry import load_whatif, save
+    from linkage.synthetic import spec_toml
+
+    models_dir = tmp_path / "models"
+    save(old_chain, models_dir)
+    assert load_whatif(models_dir).bootstrap is None
+    spec_path = tmp_path / "spec.toml"
+    spec_path.write_text(spec_toml(WINDOW_SPEC), encoding="utf-8")
+    runner = CliRunner()
+    common = ["--spec", str(spec_path), "--models-dir", str(models_dir), "--store", str(tmp_path / "none.db")]
+    r = runner.invoke(cli, ["predict", "--set", "ribbon_porosity=0.3", *common, "--json"], catch_exceptions=False)
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert d["p_pass_all_bound"]["low"] is None and "no lower bound" in d["p_pass_all_bound"]["reason"]
+    r = runner.invoke(cli, ["window", *common, "--draws", "300"], catch_exceptions=False)
+    assert r.exit_code == 0, r.output
+    assert "!! no lower bound on the probability is available" in r.stdout
+    assert "(not promised)" in r.stdout
