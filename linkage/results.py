@@ -327,9 +327,12 @@ class Window(_Result):
         """Two rows, ``low`` and ``high`` (index ``edge``): the window's
         ``ribbon_porosity`` edge and what ``limited_by`` it, the
         ``mean_response`` window's edge (which overstates what can be
-        promised), and the roll force range that lands in the window
-        (``roll_force_kn_per_cm``: the stated share of lots inside;
-        ``roll_force_mean_kn_per_cm``: the mean prediction inside). Empty
+        promised), and the roll force range (``roll_force_kn_per_cm``: where
+        the lower bound of P(all pass), simulated through the whole chain,
+        reaches the confidence; ``roll_force_mean_kn_per_cm``: where the mean
+        porosity prediction lands in the window). The porosity edges are the
+        lower bound's (``ribbon_porosity``); the point estimate's are in
+        ``to_dict()['ribbon_porosity']['point_low'/'point_high']``. Empty
         edges (no window) are missing values."""
         r = self.result
         rf = r.roll_force or {}
