@@ -288,20 +288,25 @@ def retrain(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, spec=None, pr
 
 def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
            settings: Mapping[str, float] | None = None, confidence: float = 0.9, n_draws: int = 2000,
-           seed: int = 0) -> Window:
+           seed: int = 0, assurance: float = 0.9) -> Window:
     """The ribbon porosity window where every limit of ``spec`` passes
     together with probability ``confidence``, and the roll force that lands
     in it (``linkage window``); settings not in ``settings`` are held at the
-    training median. Logged as ``window`` when the store exists."""
+    training median. The window rests on the lower bound at ``assurance``
+    of that probability (issue 12; :mod:`linkage.decide.bound`). Logged as
+    ``window`` when the store exists."""
+    from linkage.decide.bound import check_assurance
     from linkage.decide.window import find_window
 
+    assurance = check_assurance(assurance)
     spec = _spec(spec)
     settings = {k: float(v) for k, v in (settings or {}).items()}
     chain = _fitted(models_dir, model)
-    result = find_window(chain, spec, settings=settings, confidence=confidence, n_draws=n_draws, seed=seed)
+    result = find_window(chain, spec, settings=settings, confidence=confidence, n_draws=n_draws, seed=seed,
+                         assurance=assurance)
     recorded = record(store, "window", model_id=result.model_id,
                       inputs={"spec": spec.to_dict(), "spec_file": spec.file, "spec_sha256": spec.sha256,
-                              "settings": settings, "confidence": confidence, "seed": seed},
+                              "settings": settings, "confidence": confidence, "seed": seed, "assurance": assurance},
                       outputs=result.to_dict(curve=False))
     return Window(result=result, recorded=recorded, store=None if store is None else Path(store))
 
@@ -328,18 +333,21 @@ def _recorded_whatifs(results, lots, store) -> list[WhatIfResult]:
 
 def whatif(values: Mapping[str, float], *, spec=None, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR,
            model="latest", level: float | None = None, seed: int = 0, lot: str | None = None,
-           product: str | None = None) -> WhatIfResult:
+           product: str | None = None, assurance: float = 0.9) -> WhatIfResult:
     """Predict every downstream attribute from ``values`` (settings and/or
     measured values by name), with intervals at ``level`` (default: the
     model's nominal coverage), the chance of passing each limit of ``spec``
-    and the applicability-domain verdict (``linkage predict``). Recorded in
+    with its lower bound at ``assurance``, and the applicability-domain
+    verdict (``linkage predict``). Recorded in
     the store's predictions and audit trail (``predict``, for ``lot`` when
     given) when the store exists. ``lot`` and ``product`` are stated on
     the result and its sheet (product default: the model's, when it was
     trained on one; another product than the model's is refused)."""
+    from linkage.decide.bound import check_assurance
     from linkage.decide.whatif import predict_whatif
     from linkage.exceptions import UsageError
 
+    assurance = check_assurance(assurance)
     if not values:
         raise UsageError("nothing to predict from: give --set NAME=VALUE (or --from-csv)")
     bad = [f"{k}: {v!r} is not a number" for k, v in values.items()
@@ -349,13 +357,14 @@ def whatif(values: Mapping[str, float], *, spec=None, store=DEFAULT_STORE, model
     values = {str(k): float(v) for k, v in values.items()}
     spec = _spec(spec)
     chain = _lean(models_dir, model)  # names and values are checked by predict_whatif
-    result = predict_whatif(chain, values, spec=spec, level=level, seed=seed, lot=lot, product=product)
+    result = predict_whatif(chain, values, spec=spec, level=level, seed=seed, lot=lot, product=product,
+                            assurance=assurance)
     return _recorded_whatifs([result], [lot], store)[0]
 
 
 def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, store=DEFAULT_STORE,
                 models_dir=DEFAULT_MODELS_DIR, model="latest", level: float | None = None,
-                seed: int = 0, product: str | None = None) -> list[WhatIfResult]:
+                seed: int = 0, product: str | None = None, assurance: float = 0.9) -> list[WhatIfResult]:
     """One what-if per row (``linkage predict --from-csv``): ``rows`` is a
     list of {name: value} dicts, a DataFrame whose columns are names, or the
     path of such a CSV (whose optional ``lot`` column names each row's lot).
@@ -376,14 +385,17 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
     else:
         row_lots = csv_lots if csv_lots is not None else [None] * n
     chain = _lean(models_dir, model)
-    results = predict_many(chain, rows, spec=_spec(spec), level=level, seed=seed, product=product)
+    from linkage.decide.bound import check_assurance
+
+    results = predict_many(chain, rows, spec=_spec(spec), level=level, seed=seed, product=product,
+                           assurance=check_assurance(assurance))
     for r, row_lot in zip(results, row_lots):
         r.lot = row_lot  # stated on the result and its sheet
     return _recorded_whatifs(results, row_lots, store)
 
 
 def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", spec=None,
-           confidence: float = 0.9, seed: int = 0, window: Window | None = None) -> Path:
+           confidence: float = 0.9, seed: int = 0, window: Window | None = None, assurance: float = 0.9) -> Path:
     """Write the self-contained HTML report of ``model`` and its lots to
     ``out`` (default ``reports/report-<model id>.html``) and return the path
     (``linkage report``). The lots are the model's product's when it was
@@ -394,10 +406,13 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     from linkage.report.html import build_report
     from linkage.store import LotStore
 
+    from linkage.decide.bound import check_assurance
+
     if not 0 < confidence < 1:
         raise UsageError(f"--confidence must lie between 0 and 1; got {confidence}")
     from linkage.timepoint import check_time_point, model_time_point
 
+    assurance = check_assurance(assurance)
     spec = _spec(spec)
     chain = _fitted(models_dir, model)
     check_time_point(chain, spec, "report")
@@ -413,7 +428,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     out = Path(out) if out is not None else Path("reports") / f"report-{chain.model_id}.html"
     found = window.result if isinstance(window, Window) else window
     return Path(build_report(chain, table, spec=spec, window=found, lots=lots, out_path=out,
-                             confidence=confidence, seed=seed))
+                             confidence=confidence, seed=seed, assurance=assurance))
 
 
 def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", spec=None,

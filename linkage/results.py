@@ -253,7 +253,13 @@ def window_text(result: WindowResult) -> str:
     d = result.to_dict(curve=False)
     por = d["ribbon_porosity"]
     every = every_spec_text(d["not_modelled"])
-    lines = [f"Model {d['model_id']}; confidence {d['confidence']:.0%} that {every} passes together"
+    bound = d.get("bound") or {}
+    has_bound = bool(bound.get("available"))
+    what = (f"the chance that a lot meets {every} together is at least {d['confidence']:.0%} with "
+            f"{d['assurance']:.0%} assurance (lower bound over {bound.get('n_replicates')} lot-level bootstrap "
+            "replicates of the chain)") if has_bound else \
+        f"the point estimate of the chance that a lot meets {every} together reaches {d['confidence']:.0%}"
+    lines = [f"Model {d['model_id']}; window where {what}"
              + (f" ({', '.join(d['not_modelled'])}: not predicted from porosity by this model, not judged)"
                 if d["not_modelled"] else "") + ".",
              f"Judged: {', '.join(d['attributes'])}"
@@ -264,14 +270,19 @@ def window_text(result: WindowResult) -> str:
     if not d.get("promise", True):
         from linkage.report.sheet import WINDOW_NO_PROMISE
 
-        lines.append(f"!! {WINDOW_NO_PROMISE}")
-        lines += [f"   - {r}" for r in d["promise_reasons"]]
+        in_domain_reasons = [r for r in d["promise_reasons"] if r != bound.get("reason")]
+        if in_domain_reasons:
+            lines.append(f"!! {WINDOW_NO_PROMISE}")
+            lines += [f"   - {r}" for r in in_domain_reasons]
+        if not has_bound:
+            lines.append(f"!! {bound.get('reason')}")
     if not d["found"]:
-        lines.append("NO WINDOW: at no porosity in the training range does the chance of meeting every "
-                     f"specification reach {d['confidence']:.0%}.")
+        lines.append("NO WINDOW: at no porosity in the training range does the "
+                     + (f"lower bound ({d['assurance']:.0%} assurance)" if has_bound else "point estimate")
+                     + f" of the chance of meeting every specification reach {d['confidence']:.0%}.")
     else:
         lines.append(f"Porosity window: {por['low']:.3f} – {por['high']:.3f}"
-                     + ("" if d.get("promise", True) else " (extrapolation, not promised)"))
+                     + ("" if d.get("promise", True) else " (not promised)"))
         for side in ("low", "high"):
             by = por[f"{side}_limited_by"]
             why = "cut by the range of the training data, not by a specification" if by == "data range" \
@@ -279,22 +290,37 @@ def window_text(result: WindowResult) -> str:
             lines.append(f"  {side} edge: {why}")
         if len(por["segments"]) > 1:
             lines.append("  other passing ranges: " + ", ".join(f"{a:.3f}–{b:.3f}" for a, b in por["segments"]))
+    if has_bound:
+        lines.append("Point-estimate window (the probability's point estimate reaches the confidence; beside the "
+                     "bound, not promised): " + (f"{por['point_low']:.3f} – {por['point_high']:.3f}"
+                                                 if por.get("point_low") is not None else "none"))
     mw = d["mean_response_window"]
     if mw["low"] is not None:
         lines.append(f"Mean-response window (overstates what can be promised): {mw['low']:.3f} – {mw['high']:.3f}")
     rf = d["roll_force_kn_per_cm"]
     if rf.get("low") is not None:
-        lines.append(f"Roll force for the window: {rf['low']:.2f} – {rf['high']:.2f} kN/cm "
-                     f"({d['confidence']:.0%} of lots inside); mean prediction inside: "
-                     f"{rf['mean_low']:.2f} – {rf['mean_high']:.2f} kN/cm")
+        lines.append(f"Roll force (through the whole chain, ribbon scatter included; every specification at least "
+                     f"{d['confidence']:.0%}" + (f" with {d['assurance']:.0%} assurance" if has_bound else
+                                                 " by the point estimate") +
+                     f"): {rf['low']:.2f} – {rf['high']:.2f} kN/cm")
     elif rf.get("reason"):
         lines.append(f"Roll force: {rf['reason']}")
+    beside = []
+    if has_bound and rf.get("point_low") is not None:
+        beside.append(f"point estimate {rf['point_low']:.2f} – {rf['point_high']:.2f}")
+    if rf.get("mean_response_low") is not None:
+        beside.append(f"chain of mean predictions passes {rf['mean_response_low']:.2f} – {rf['mean_response_high']:.2f}")
+    if rf.get("mean_low") is not None:
+        beside.append(f"mean porosity in the window {rf['mean_low']:.2f} – {rf['mean_high']:.2f}")
+    if beside:
+        lines.append("  beside it (kN/cm): " + "; ".join(beside))
     lines.append("Settings used:")
     for k, v in d["settings"].items():
         lines.append(f"  {k} = {v['value']:.4g} ({v['source']})")
-    if rf.get("held"):
+    held_rf = rf.get("held_chain") or rf.get("held")
+    if held_rf:
         lines.append("Held for the roll force range: " +
-                     ", ".join(f"{k} = {v['value']:.4g} ({v['source']})" for k, v in rf["held"].items()))
+                     ", ".join(f"{k} = {v['value']:.4g} ({v['source']})" for k, v in held_rf.items()))
     if d["not_modelled"]:
         lines.append("Not part of the window (not predicted from porosity): " + ", ".join(d["not_modelled"]))
     lines += judges_lines(d.get("judges") or {})
@@ -325,9 +351,12 @@ class Window(_Result):
         """Two rows, ``low`` and ``high`` (index ``edge``): the window's
         ``ribbon_porosity`` edge and what ``limited_by`` it, the
         ``mean_response`` window's edge (which overstates what can be
-        promised), and the roll force range that lands in the window
-        (``roll_force_kn_per_cm``: the stated share of lots inside;
-        ``roll_force_mean_kn_per_cm``: the mean prediction inside). Empty
+        promised), and the roll force range (``roll_force_kn_per_cm``: where
+        the lower bound of P(all pass), simulated through the whole chain,
+        reaches the confidence; ``roll_force_mean_kn_per_cm``: where the mean
+        porosity prediction lands in the window). The porosity edges are the
+        lower bound's (``ribbon_porosity``); the point estimate's are in
+        ``to_dict()['ribbon_porosity']['point_low'/'point_high']``. Empty
         edges (no window) are missing values."""
         r = self.result
         rf = r.roll_force or {}
@@ -346,6 +375,8 @@ class Window(_Result):
         c = self.result.to_dict(curve=True)["curve"]
         columns = {"ribbon_porosity": c["ribbon_porosity"], "p_all": c["p_all"],
                    **{f"p_{k}": v for k, v in c["p_each"].items()}, "mean_pass": c["mean_pass"]}
+        if c.get("p_all_low") is not None:  # the lower bound at the window's assurance (issue 12)
+            columns["p_all_low"] = c["p_all_low"]
         if "in_domain" in c:
             columns["in_domain"] = c["in_domain"]
         import pandas as pd
@@ -385,11 +416,12 @@ def _end(v) -> str:
 
 def whatif_text(result: WhatIf) -> str:
     """What ``linkage predict`` prints for one what-if."""
-    from linkage.report.sheet import (NO_PROMISE, PROJECTED_NOTE, every_spec_text, not_judged_text,
-                                      probability_text, projected_text)
+    from linkage.report.sheet import (NO_PROMISE, PROJECTED_NOTE, at_least, bound_text, every_spec_text,
+                                      not_judged_text, probability_text, projected_text)
 
     d = result.to_dict()
     lvl = f"{d['interval_level']:.0%}"
+    bound = d["p_pass_all_bound"]
     lines = []
     if d.get("lot") is not None or d.get("product") is not None:
         lines.append("For " + ", ".join(s for s in (f"lot {d['lot']}" if d.get("lot") else "",
@@ -409,9 +441,11 @@ def whatif_text(result: WhatIf) -> str:
                      + f"; judged against {every_spec_text(d['not_modelled_reasons'])}.")
         if d["not_modelled_reasons"]:
             lines.append(f"!! {not_judged_text(d['not_modelled_reasons'])}")
-    if not d["promise"]:
+    if not d["in_domain"]:
         lines.append(f"!! {NO_PROMISE}")
         lines += [f"   - {r}" for r in d["domain_reasons"]]
+    if bound.get("reason"):
+        lines.append(f"!! {bound['reason']}")
     lines.append("Inputs: " + ", ".join(f"{k}={v['value']:.4g}"
                                         + (" (median)" if v["source"] != "given" else "")
                                         for k, v in d["inputs"].items()))
@@ -422,11 +456,11 @@ def whatif_text(result: WhatIf) -> str:
             line += " *"
             projected.append(f"   * {name}: {projected_text(p)}")
         if "p_pass" in p:
-            line += f"   P(pass) {probability_text(p['p_pass'])}"
+            line += f"   P(pass) {bound_text(p.get('p_pass_low'), p['p_pass'], bound['assurance'])}"
             if "p_stage" in p:
-                line += f" ({stage_text(p['p_stage'])})"
+                line += f" ({stage_text(p['p_stage'])}, point estimates)"
             if not d["promise"]:
-                line += " (extrapolation, not promised)"
+                line += " (not promised)"
         lines.append(line)
     if projected:
         lines.append(f"   * {PROJECTED_NOTE}")
@@ -435,7 +469,11 @@ def whatif_text(result: WhatIf) -> str:
     if d["p_pass_all"] is not None:
         every = every_spec_text(d["not_modelled_reasons"])
         if d["promise"]:
-            lines.append(f"P({every} passes together): {probability_text(d['p_pass_all'])}")
+            lines.append(f"P({every} passes together): {at_least(bound['low'])} "
+                         f"with {bound['assurance']:.0%} assurance (point estimate {probability_text(d['p_pass_all'])})")
+        elif d["in_domain"]:
+            lines.append(f"No probability of meeting {every} is promised here (no lower bound); the "
+                         f"point estimate is {probability_text(d['p_pass_all'])}.")
         else:
             lines.append(f"No probability of meeting {every} is promised here; the share of simulated "
                          f"lots that pass every limit, {probability_text(d['p_pass_all'])}, is an extrapolation.")

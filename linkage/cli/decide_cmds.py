@@ -19,6 +19,10 @@ _model_option = click.option("--model", "model_id", default="latest", show_defau
                              help="Model id from 'linkage models', or 'latest'.")
 _set_option = click.option("--set", "assignments", multiple=True, metavar="NAME=VALUE",
                            help="Hold a setting (or a measured value) at VALUE. Repeatable.")
+_assurance_option = click.option(
+    "--assurance", default=0.9, show_default=True, type=PROBABILITY,
+    help="Assurance of the lower bound on each probability of passing (from the model's lot-level bootstrap "
+         "replicates): a probability is promised 'at least' its bound at this assurance.")
 
 
 @click.command()
@@ -31,11 +35,12 @@ _set_option = click.option("--set", "assignments", multiple=True, metavar="NAME=
 @click.option("--draws", "n_draws", default=2000, show_default=True, type=click.IntRange(200, 200_000),
               help="Monte Carlo draws per porosity.")
 @click.option("--seed", default=0, show_default=True, type=int)
+@_assurance_option
 @models_dir_option
 @store_option
 @json_option
 @handle_errors
-def window(spec_path, model_id, assignments, confidence, n_draws, seed, models_dir, store, as_json):
+def window(spec_path, model_id, assignments, confidence, n_draws, seed, assurance, models_dir, store, as_json):
     """Find the ribbon porosity window where every specification passes
     with the stated confidence, and the roll force that lands in it.
 
@@ -54,7 +59,7 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, models_d
     spec = read_spec(spec_path)
     settings = parse_assignments(list(assignments))
     result = find(spec, store=store, models_dir=models_dir, model=model_id, settings=settings,
-                  confidence=confidence, n_draws=n_draws, seed=seed)
+                  confidence=confidence, n_draws=n_draws, seed=seed, assurance=assurance)
     _note_unrecorded(result, "window")
     if as_json:
         click.echo(json.dumps(jsonable(result.to_dict()), indent=2, allow_nan=False))
@@ -79,12 +84,13 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, models_d
               "JSON); refused when the model was not trained on it.  [default: the model's product when it was "
               "trained on one]")
 @click.option("--seed", default=0, show_default=True, type=int)
+@_assurance_option
 @models_dir_option
 @store_option
 @json_option
 @handle_errors
-def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, product, seed, models_dir, store,
-            as_json):
+def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, product, seed, assurance, models_dir,
+            store, as_json):
     """What-if: predict every downstream attribute from settings and/or
     measured values, with intervals, the chance of passing each specification
     and the applicability-domain verdict.
@@ -115,12 +121,12 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, p
         if html_path is not None:
             raise UsageError("--html writes one sheet for one what-if; use it without --from-csv")
         results = whatif_rows(from_csv, lots=lot, spec=spec, store=store, models_dir=models_dir, model=model_id,
-                              level=level, seed=seed, product=product)
+                              level=level, seed=seed, product=product, assurance=assurance)
     else:
         if not values:
             raise UsageError("nothing to predict from: give --set NAME=VALUE (or --from-csv)")
         results = [whatif(values, spec=spec, store=store, models_dir=models_dir, model=model_id, level=level,
-                          seed=seed, lot=lot, product=product)]
+                          seed=seed, lot=lot, product=product, assurance=assurance)]
     for r in results:
         _note_unrecorded(r, "predict")
     if html_path is not None:

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from linkage.cli.common import handle_errors, models_dir_option, store_option
+from linkage.cli.common import PROBABILITY, handle_errors, models_dir_option, store_option
 
 
 @click.command()
@@ -19,10 +19,12 @@ from linkage.cli.common import handle_errors, models_dir_option, store_option
 @click.option("--confidence", default=0.9, show_default=True, type=float,
               help="Probability of meeting every specification together that the window must reach.")
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the Monte Carlo draws.")
+@click.option("--assurance", default=0.9, show_default=True, type=PROBABILITY,
+              help="Assurance of the lower bound on the probability of passing that the window rests on.")
 @store_option
 @models_dir_option
 @handle_errors
-def report(model_id, spec_path, out_path, confidence, seed, store, models_dir):
+def report(model_id, spec_path, out_path, confidence, seed, assurance, store, models_dir):
     """Write one self-contained HTML report: the lots, the ribbon stage, the
     Ryshkewitch-Duckworth baseline, every attribute's cross-validated
     performance, explanations, the porosity window (with --spec), the
@@ -45,5 +47,5 @@ def report(model_id, spec_path, out_path, confidence, seed, store, models_dir):
 
         spec = read_spec(spec_path)
     path = write_report(out_path, store=store, models_dir=models_dir, model=model_id, spec=spec,
-                        confidence=confidence, seed=seed)
+                        confidence=confidence, seed=seed, assurance=assurance)
     click.echo(str(path))

@@ -32,6 +32,9 @@ from linkage.exceptions import UsageError
 from linkage.numbers import parse_plain_number
 from linkage.schema import MISSING_TOKENS, TABLES
 
+#: cells of the bound's sums through the chain for one what-if (see linkage.decide.bound)
+WHATIF_CELLS = 200
+
 #: fractions that must lie strictly between 0 and 1
 _FRACTIONS = {"ribbon_porosity", "ribbon_solid_fraction"}
 
@@ -126,17 +129,25 @@ class WhatIf:
     lot: str | None = None
     product: str | None = None
     product_source: str | None = None
+    #: the lower bound at ``assurance`` of P(all pass) (None without bootstrap replicates or without a spec),
+    #: and why there is none
+    assurance: float = 0.9
+    p_pass_all_low: float | None = None
+    bound_reason: str | None = None
 
     @property
     def promise(self) -> bool:
         """Whether the what-if promises its probabilities and intervals: only
-        inside the applicability domain of every stage it used. Outside it the
-        numbers are extrapolations of the models, shown but not promised."""
-        return bool(self.in_domain)
+        inside the applicability domain of every stage it used, and (when a
+        spec is given) with a lower bound on the probability. Outside the
+        domain the numbers are extrapolations of the models, shown but not
+        promised."""
+        return bool(self.in_domain) and self.bound_reason is None
 
     @property
     def promise_reasons(self) -> list[str]:
-        return [] if self.promise else [f"outside the applicability domain: {r}" for r in self.domain_reasons]
+        out = [f"outside the applicability domain: {r}" for r in self.domain_reasons] if not self.in_domain else []
+        return out + ([self.bound_reason] if self.bound_reason is not None else [])
 
     def to_dict(self) -> dict:
         return {
@@ -149,6 +160,8 @@ class WhatIf:
             "in_domain": self.in_domain,
             "domain_reasons": self.domain_reasons,
             "domain": self.domain,
+            "p_pass_all_bound": {"assurance": self.assurance, "low": self.p_pass_all_low,
+                                 **({"reason": self.bound_reason} if self.bound_reason else {})},
             "promise": self.promise,
             "promise_reasons": self.promise_reasons,
             "judges": self.judges,
@@ -167,7 +180,7 @@ class WhatIf:
 
 def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float | None = None,
                    n_draws: int = 4000, seed: int = 0, contributions: bool = True,
-                   lot: str | None = None, product: str | None = None) -> WhatIf:
+                   lot: str | None = None, product: str | None = None, assurance: float = 0.9) -> WhatIf:
     """Predict every downstream attribute for one set of values.
 
     ``chain`` is a fitted chain or its lean form (what ``linkage predict``
@@ -177,11 +190,19 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
     was not trained on is refused. A spec attribute the what-if does not
     predict is listed in ``not_modelled`` with the reason, and left out of
     ``p_pass_all``.
+
+    With a spec, each P(pass) and P(all pass) also gets its lower bound at
+    ``assurance`` (``p_pass_low``, ``p_pass_all_bound``) from the chain's
+    lot-level bootstrap replicates (:mod:`linkage.decide.bound`); a model
+    without replicates says so in ``p_pass_all_bound.reason`` and promises
+    nothing.
     """
+    from linkage.decide.bound import chain_probabilities, check_assurance, with_unit_level
     from linkage.models.lean import as_lean, physical_range, project
     from linkage.timepoint import check_time_point, model_time_point
 
     chain = as_lean(chain)
+    assurance = check_assurance(assurance)
     check_values(chain, values)
     check_time_point(chain, spec, "predict")
     product, product_source = _product_for(chain, product)
@@ -252,6 +273,26 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         predictions[compendial.ACCEPTANCE_VALUE] = compendial.av_entry(spec, judged, level)
         pass_all &= ok
         any_spec = True
+    p_all_low, bound_reason = None, None
+    bounded = [n for n in predictions if "p_pass" in predictions[n] and n in spec_limits]
+    if bounded:
+        cp = chain_probabilities(chain, {k: [v] for k, v in filled.items()}, spec_limits, bounded, seed=seed,
+                                 cells=WHATIF_CELLS)
+        low_each = cp.low_each(assurance)
+        if low_each is None:
+            bound_reason = cp.reason
+        else:
+            p_all_low = float(cp.low_all(assurance)[0])
+            if compendial.needs_units(spec):  # units judged too: the unit-level factor at its point estimate
+                p_all_low = float(with_unit_level(p_all_low, cp.p_all[0], pass_all.mean()))
+                for n in bounded:
+                    if spec.judge_of(n) == "stages":
+                        low_each[n] = with_unit_level(low_each[n], cp.p_each[n], predictions[n]["p_pass"])
+        for n in bounded:
+            predictions[n]["p_pass_low"] = None if low_each is None else float(low_each[n][0])
+            predictions[n]["p_pass_point"] = float(cp.p_each[n][0])
+        if compendial.ACCEPTANCE_VALUE in predictions:  # P(AV) >= P(all): the bound of P(all) bounds it too
+            predictions[compendial.ACCEPTANCE_VALUE]["p_pass_low"] = p_all_low
 
     inputs = {k: {"value": float(filled[k]), "source": source[k]} for k in filled}
     judged_attributes = [a for a in spec_limits if a in predictions]
@@ -273,6 +314,7 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         dissolution_time_min=time_min if "dissolution_pct" in chain.targets else None,
         time_point_recorded=recorded,
         lot=lot, product=product, product_source=product_source,
+        assurance=assurance, p_pass_all_low=p_all_low, bound_reason=bound_reason,
     )
 
 

@@ -25,10 +25,24 @@ stage at every roll force of its range (:func:`window_domain`). Where any is
 outside, ``promise`` is false with the reasons: the numbers are shown, as
 extrapolations.
 
-The roll force range comes from the ribbon stage at the stated gap, roll
-speed and screw speed: the forces whose predicted lot-mean porosity lands in
-the window with at least the confidence (ribbon residuals of unseen lots),
-and, beside it, the forces whose mean prediction lands in it.
+The probability has its own uncertainty: it is estimated from a few dozen
+lots. The window's edges are where the *lower bound* at assurance a
+(``assurance``, default 0.9) of P(all pass) reaches the confidence: the
+(1 − a) quantile over the lot-level bootstrap replicates of the chain
+(:mod:`linkage.models.bootstrap`, :mod:`linkage.decide.bound`; Efron &
+Tibshirani 1993, §13.3). The window of the point estimate is given beside
+it (``point_low``/``point_high``). A model trained without replicates has no
+bound: the window is then the point estimate's, ``bound.available`` is
+false and nothing is promised.
+
+The roll force range runs through the whole chain: at the stated gap, roll
+speed, screw speed and held downstream settings, the forces where the lower
+bound of P(all pass) reaches the confidence, ribbon scatter, granule and
+tablet scatter included (``low``/``high``); beside it the point estimate's
+range, the forces where the chain of mean predictions passes every limit
+(``mean_response_low``/``high``), the forces whose lot-mean porosity lands
+in the window with the confidence (``in_window_low``/``high``) and those
+whose mean porosity does (``mean_low``/``mean_high``).
 """
 
 from __future__ import annotations
@@ -40,6 +54,7 @@ import pandas as pd
 
 from linkage import CAUTION
 from linkage.decide import compendial
+from linkage.decide.bound import NO_BOUND, chain_probabilities, check_assurance, with_unit_level
 from linkage.decide.propagate import fill_settings, mean_passes, pass_matrix, simulate, within
 from linkage.exceptions import UsageError
 from linkage.models.lean import project
@@ -87,6 +102,14 @@ class WindowResult:
     spec: dict | None = None
     dissolution_time_min: float | None = None
     time_point_note: str | None = None
+    #: the lower bound at ``assurance`` of P(all pass) and of each P(pass) on ``grid`` (None without replicates)
+    assurance: float = 0.9
+    p_all_low: np.ndarray | None = field(repr=False, default=None)
+    p_each_low: dict[str, np.ndarray] | None = field(repr=False, default=None)
+    bound: dict = field(default_factory=dict)
+    #: the window of the point estimate of P(all pass) (the edges above are the bound's)
+    point_low: float | None = None
+    point_high: float | None = None
 
     @property
     def found(self) -> bool:
@@ -102,7 +125,10 @@ class WindowResult:
                 "low_limited_by": self.low.limited_by, "high_limited_by": self.high.limited_by,
                 "data_range": list(self.data_range),
                 "segments": [list(s) for s in self.segments],
+                "point_low": self.point_low, "point_high": self.point_high,
             },
+            "assurance": self.assurance,
+            "bound": dict(self.bound),
             "mean_response_window": {"low": self.mean_low, "high": self.mean_high},
             "limiting_attribute": {"low": self.low.limited_by, "high": self.high.limited_by},
             "settings": self.settings,
@@ -125,7 +151,9 @@ class WindowResult:
             out["curve"] = {
                 "ribbon_porosity": _floats(self.grid),
                 "p_all": _floats(self.p_all),
+                "p_all_low": None if self.p_all_low is None else _floats(self.p_all_low),
                 "p_each": {k: _floats(v) for k, v in self.p_each.items()},
+                "p_each_low": None if self.p_each_low is None else {k: _floats(v) for k, v in self.p_each_low.items()},
                 "mean_pass": [bool(b) for b in self.mean_ok],
             }
             if self.in_domain is not None:
@@ -138,7 +166,7 @@ def _floats(a) -> list[float]:
 
 
 def find_window(chain, spec, *, settings: dict[str, float] | None = None, confidence: float = 0.9,
-                n_grid: int = 121, n_draws: int = 2000, seed: int = 0) -> WindowResult:
+                n_grid: int = 121, n_draws: int = 2000, seed: int = 0, assurance: float = 0.9) -> WindowResult:
     """Scan ribbon porosity over the training range and find the window.
 
     Parameters
@@ -149,9 +177,15 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         the training median, and the result says which is which.
     confidence : the probability of passing every specification together
         that the window must reach, in (0, 1).
+    assurance : the assurance of the lower bound on that probability, in
+        (0, 1): the window is where the bound reaches ``confidence``.
     """
     if not 0 < confidence < 1:
         raise UsageError(f"confidence must lie between 0 and 1; got {confidence}")
+    assurance = check_assurance(assurance)
+    from linkage.models.lean import as_lean
+
+    lean = as_lean(chain)
     from linkage.timepoint import UNRECORDED_NOTE, check_time_point, model_time_point
 
     check_time_point(chain, spec, "window")
@@ -201,14 +235,26 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     if POROSITY in spec.limits:
         mean_ok &= within(grid, spec.limits[POROSITY])
 
-    segments = _segments(grid, p_all, confidence)
-    if segments:
-        best = max(segments, key=lambda s: s[1][1] - s[1][0])  # the widest run
-        (i0, i1), (low, high) = best
-        low_edge = Edge(low, "data range" if i0 == 0 else _limiting(p_each, i0 - 1, i0))
-        high_edge = Edge(high, "data range" if i1 == n_grid - 1 else _limiting(p_each, i1 + 1, i1))
+    chain_p = chain_probabilities(lean, {**{k: np.full(n_grid, v) for k, v in values.items()}, POROSITY: grid,
+                                          **{k: np.full(n_grid, v) for k, v in settings.items() if k in produced}},
+                                  spec.limits, limited, seed=seed)
+    p_all_low, p_each_low = chain_p.low_all(assurance), chain_p.low_each(assurance)
+    if p_all_low is not None and compendial.needs_units(spec):  # units judged too (bound.with_unit_level)
+        p_all_low = with_unit_level(p_all_low, chain_p.p_all, p_all)
+        p_each_low = {a: with_unit_level(p_each_low[a], chain_p.p_each[a], p_each[a])
+                      if spec.judge_of(a) == "stages" else p_each_low[a] for a in limited}
+        if compendial.ACCEPTANCE_VALUE in p_each:  # P(AV) >= P(all): the bound of P(all) bounds it too
+            p_each_low[compendial.ACCEPTANCE_VALUE] = np.minimum(p_all_low, p_each[compendial.ACCEPTANCE_VALUE])
+    if p_all_low is not None and POROSITY in spec.limits:
+        p_all_low = p_all_low * within(grid, spec.limits[POROSITY])
+    point_low, point_high = _widest(grid, p_all, p_each, confidence)
+    if p_all_low is not None:
+        low_edge, high_edge = _widest(grid, p_all_low, p_each_low, confidence)
+        segments = _segments(grid, p_all_low, confidence)
     else:
-        low_edge = high_edge = Edge(None, None)
+        low_edge, high_edge = point_low, point_high
+        segments = _segments(grid, p_all, confidence)
+    bound = _bound_record(lean, chain_p, assurance)
     mean_idx = np.flatnonzero(mean_ok)
     mean_low = float(grid[mean_idx[0]]) if len(mean_idx) else None
     mean_high = float(grid[mean_idx[-1]]) if len(mean_idx) else None
@@ -221,7 +267,15 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
 
     force = roll_force_range(chain, low_edge.value, high_edge.value, settings=roots,
                              confidence=confidence, seed=seed)
+    force = chain_force_range(lean, spec, settings=roots, confidence=confidence, assurance=assurance,
+                              seed=seed, in_window=force, force_range=tuple(chain.training["ranges"][FORCE])
+                              if FORCE in chain.training["ranges"] and chain.training["ranges"][FORCE] else None)
+    if low_edge.value is None and force.get("low") is None:
+        force["reason"] = "no porosity window to translate"
     domain = window_domain(chain, draws, grid, low_edge.value, high_edge.value, force)
+    if not bound["available"]:
+        domain["promise"] = False
+        domain["reasons"] = [bound["reason"]] + domain["reasons"]
     used = {k: {"value": float(v), "source": source[k]} for k, v in sorted(values.items())}
     used.update({k: {"value": float(settings[k]), "source": "given"} for k in settings if k in produced})
     return WindowResult(
@@ -236,7 +290,33 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         spec=spec.describe() if hasattr(spec, "describe") else None,
         dissolution_time_min=time_min if "dissolution_pct" in chain.targets else None,
         time_point_note=None if recorded or "dissolution_pct" not in chain.targets else UNRECORDED_NOTE,
+        assurance=assurance, p_all_low=p_all_low, p_each_low=p_each_low, bound=bound,
+        point_low=point_low.value, point_high=point_high.value,
     )
+
+
+def _widest(grid, p, p_each, confidence) -> tuple[Edge, Edge]:
+    """The edges of the widest run of ``grid`` where ``p`` reaches the
+    confidence, each with what limits it."""
+    segments = _segments(grid, p, confidence)
+    if not segments:
+        return Edge(None, None), Edge(None, None)
+    (i0, i1), (low, high) = max(segments, key=lambda s: s[1][1] - s[1][0])
+    n = len(grid)
+    return (Edge(low, "data range" if i0 == 0 else _limiting(p_each, i0 - 1, i0)),
+            Edge(high, "data range" if i1 == n - 1 else _limiting(p_each, i1 + 1, i1)))
+
+
+def _bound_record(lean, chain_p, assurance: float) -> dict:
+    """What a result says of its bound: available, the method, B, or why not."""
+    from linkage.decide.bound import replicates_of
+
+    reps = replicates_of(lean)
+    if chain_p.reps_all is None:
+        return {"available": False, "assurance": assurance, "n_replicates": 0, "method": None,
+                "reason": chain_p.reason or NO_BOUND}
+    return {"available": True, "assurance": assurance, "n_replicates": reps.n, "method": reps.method,
+            "reason": None}
 
 
 def window_domain(chain, draws, grid, low: float | None, high: float | None, roll_force: dict) -> dict:
@@ -275,9 +355,11 @@ def window_domain(chain, draws, grid, low: float | None, high: float | None, rol
                         for r in verdicts[bad[0]]["reasons"]]
     ribbon = next((s for s in lean.stages if POROSITY in s.targets), None)
     if ribbon is not None and ribbon.domain is not None and roll_force.get("low") is not None:
-        forces = np.asarray(roll_force["curve"]["roll_force_kn_per_cm"], float)
-        forces = forces[(forces >= roll_force["low"]) & (forces <= roll_force["high"])]
-        held = {k: v["value"] for k, v in roll_force.get("held", {}).items()}
+        curve = roll_force.get("chain_curve") or roll_force["curve"]
+        forces = np.asarray(curve["roll_force_kn_per_cm"], float)
+        inside_range = (forces >= roll_force["low"] - 1e-9) & (forces <= roll_force["high"] + 1e-9)
+        forces = np.concatenate([[roll_force["low"]], forces[inside_range], [roll_force["high"]]])
+        held = {k: v["value"] for k, v in (roll_force.get("held_chain") or roll_force.get("held", {})).items()}
         x = {c: (forces if c == FORCE else np.full(len(forces), held.get(c, lean.medians.get(c, np.nan))))
              for c in ribbon.domain.inputs}
         verdicts = ribbon.domain.check(x)
@@ -368,3 +450,78 @@ def roll_force_range(chain, low: float | None, high: float | None, *, settings: 
         "curve": {"roll_force_kn_per_cm": _floats(forces), "porosity_mean": _floats(mean), "p_in_window": _floats(p_in)},
         "reason": None if len(ok) else "no roll force in the training range lands in the window with that confidence",
     }
+
+
+def chain_force_range(chain, spec, *, settings: dict[str, float], confidence: float, assurance: float,
+                      seed: int = 0, n_grid: int = 61, in_window: dict | None = None,
+                      force_range: tuple[float, float] | None = None) -> dict:
+    """Roll forces where a lot passes every specification, through the whole chain.
+
+    At the stated gap, roll and screw speed and the held downstream settings
+    (``settings``, the rest at the training median), each force of the
+    training range is simulated from the ribbon stage on (ribbon scatter,
+    granule and tablet scatter included; :func:`linkage.decide.bound.chain_probabilities`).
+    ``low``/``high``: the widest run of forces where the lower bound at
+    ``assurance`` of P(all pass) reaches ``confidence`` (the point
+    estimate's when the model has no bootstrap replicates);
+    ``point_low``/``point_high``: where the point estimate does;
+    ``mean_response_low``/``high``: where the chain of mean predictions
+    passes every limit. ``in_window`` (from :func:`roll_force_range`) is
+    kept: its ``low``/``high`` become ``in_window_low``/``in_window_high``
+    (forces whose lot-mean porosity lands in the window with the confidence),
+    its mean range and curve stay as they are.
+    """
+    from linkage.models.lean import as_lean
+
+    lean = as_lean(chain)
+    out = dict(in_window or {})
+    out["in_window_low"], out["in_window_high"] = out.pop("low", None), out.pop("high", None)
+    out["in_window_reason"] = out.pop("reason", None)
+    out.update(low=None, high=None, point_low=None, point_high=None, mean_response_low=None,
+               mean_response_high=None, confidence=confidence, assurance=assurance)
+    stage = next((s for s in lean.stages if POROSITY in s.targets), None)
+    if stage is None or FORCE not in stage.inputs:
+        out["reason"] = "the chain has no ribbon stage driven by roll force"
+        return out
+    attributes = [a for a in spec.limits if a in lean.targets]
+    if not attributes:
+        out["reason"] = "no specification limit is on an attribute the chain predicts"
+        return out
+    if force_range is None:  # the training range of roll force: the ribbon stage's domain holds it
+        force_range = chain.training["ranges"][FORCE] if hasattr(chain, "training") else stage.domain.ranges[FORCE]
+    f_lo, f_hi = (float(v) for v in force_range)
+    forces = np.linspace(f_lo, f_hi, n_grid)
+    given = {k: v for k, v in settings.items() if k != FORCE and k not in lean.targets}
+    held, source = fill_settings(lean, {**given, FORCE: 0.0})
+    held.pop(FORCE)
+    source.pop(FORCE)
+    columns = {**{k: np.full(n_grid, v) for k, v in held.items()}, FORCE: forces}
+    cp = chain_probabilities(lean, columns, spec.limits, attributes, seed=seed)
+    p_low = cp.low_all(assurance)
+    means = simulate(lean, columns, n_draws=1, seed=seed)
+    mean_ok = np.logical_and.reduce([within(means.means[a], spec.limits[a]) for a in attributes])
+    point = _segments(forces, cp.p_all, confidence)
+    if point:
+        out["point_low"], out["point_high"] = max((s[1] for s in point), key=lambda s: s[1] - s[0])
+    idx = np.flatnonzero(mean_ok)
+    if len(idx):
+        out["mean_response_low"], out["mean_response_high"] = float(forces[idx[0]]), float(forces[idx[-1]])
+    if p_low is not None:
+        runs = _segments(forces, p_low, confidence)
+        if runs:
+            out["low"], out["high"] = max((s[1] for s in runs), key=lambda s: s[1] - s[0])
+    else:
+        out["low"], out["high"] = out["point_low"], out["point_high"]
+    out["held_chain"] = {k: {"value": float(v), "source": source[k]} for k, v in sorted(held.items())}
+    out["chain_curve"] = {"roll_force_kn_per_cm": _floats(forces), "p_all": _floats(cp.p_all),
+                          "p_all_low": None if p_low is None else _floats(p_low),
+                          "mean_pass": [bool(b) for b in mean_ok]}
+    out["bound_available"] = p_low is not None
+    if out["low"] is not None:
+        out["reason"] = None
+    elif p_low is None and cp.reason:
+        out["reason"] = cp.reason
+    else:
+        out["reason"] = (f"at no roll force in the training range does the {'lower bound' if p_low is not None else 'point estimate'} "
+                         f"of the chance that a lot passes every specification reach {confidence:.0%}")
+    return out

@@ -251,6 +251,14 @@ class FittedStage:
         return table.sort_index()
 
 
+def bootstrap_summary(bs: dict | None) -> dict:
+    """What the model record says of its bootstrap replicates."""
+    if not bs:
+        return {"n_replicates": 0, "reason": "the model was trained before bootstrap replicates existed; "
+                                             "no probability has a lower bound (retrain to get one)"}
+    return {k: bs.get(k) for k in ("method", "n_replicates", "requested", "failed", "seed", "reason")}
+
+
 @dataclass
 class FittedChain:
     """A trained chain: stages in order, every fitted target, the training
@@ -267,6 +275,9 @@ class FittedChain:
     created_at: str
     model_id: str | None = None
     interval_method: str = INTERVAL_METHOD
+    #: lot-level bootstrap replicates of the selected models (linkage.models.bootstrap); None in a model
+    #: trained before they existed (then no probability has a lower bound; read it with getattr)
+    bootstrap: dict | None = None
 
     def stage(self, name: str) -> FittedStage:
         for st in self.stages:
@@ -290,6 +301,7 @@ class FittedChain:
             "library_versions": self.library_versions,
             "targets": {name: t.summary() for name, t in self.targets.items()},
             "skipped": self.skipped,
+            "bootstrap": bootstrap_summary(getattr(self, "bootstrap", None)),
             "stages": [
                 {"name": st.name, "inputs": st.inputs, "targets": list(st.targets), "skipped": st.skipped,
                  "domain": st.domain.to_dict() if st.domain is not None else None}

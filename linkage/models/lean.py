@@ -500,6 +500,9 @@ class LeanChain:
         self.stages = [Stage(s) for s in spec["stages"]]
         self.within_lot = dict(spec.get("within_lot") or {})  # absent in models saved before it was kept
         self.targets = {name: t for st in self.stages for name, t in st.targets.items()}
+        #: lot-level bootstrap replicates (:mod:`linkage.models.bootstrap`), or None for a model saved
+        #: before they existed; :mod:`linkage.decide.bound` evaluates them
+        self.bootstrap = spec.get("bootstrap")
 
     def root_inputs(self) -> list[str]:
         return list(self.chain_root_inputs)
@@ -587,7 +590,21 @@ def export(chain) -> dict:
         "stages": stages,
         # within-lot spread for unit-level compendial judgement (linkage.decide.compendial)
         "within_lot": chain.training.get("within_lot") or {},
+        # lot-level bootstrap replicates (linkage.models.bootstrap); absent in a model trained before them
+        **({"bootstrap": _bootstrap_spec(chain.bootstrap)} if getattr(chain, "bootstrap", None) else {}),
     }
+
+
+def _bootstrap_spec(bs: dict) -> dict:
+    """The bootstrap record with its arrays as numpy arrays (for the .npz)."""
+    out = {k: v for k, v in bs.items() if k not in ("counts", "targets")}
+    out["counts"] = np.asarray(bs["counts"], dtype=np.int64)
+    out["targets"] = {name: {"n": int(p["n"]), "same": dict(p["same"]),
+                             "stacked": {k: np.asarray(v) for k, v in p["stacked"].items()},
+                             "ragged": {k: {"flat": np.asarray(r["flat"]), "shapes": np.asarray(r["shapes"])}
+                                        for k, r in p["ragged"].items()}}
+                      for name, p in bs["targets"].items()}
+    return out
 
 
 def as_lean(chain) -> LeanChain:

@@ -36,6 +36,7 @@ import pandas as pd
 
 from linkage.exceptions import InputError, InsufficientDataError, Problem, UsageError
 from linkage.models.candidates import CANDIDATES, CandidateError, tune
+from linkage.models.bootstrap import DEFAULT_REPLICATES, bootstrap_chain
 from linkage.models.chain import ChainSpec
 from linkage.models.conformal import (coverage_by_region, cv_plus_guarantee, cv_plus_interval, fit_spread,
                                       lw_cv_plus_interval, region_edges, worst_region_gap)
@@ -531,7 +532,7 @@ def _time_point(table: pd.DataFrame, given: float | None) -> float:
 def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: int = 0,
                 nominal_coverage: float = 0.9, progress: Callable[[str, int, int], None] | None = None,
                 n_jobs: int = 1, candidates: list[str] | None = None, backend: str | None = None,
-                dissolution_time_min: float | None = None) -> FittedChain:
+                dissolution_time_min: float | None = None, n_bootstrap: int = DEFAULT_REPLICATES) -> FittedChain:
     """Train every target of the chain on the assembled table.
 
     Parameters
@@ -562,6 +563,9 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
         spec at another time point is refused later
         (:mod:`linkage.timepoint`); default: the one :func:`linkage.assemble.assemble`
         wrote in ``table.attrs``, else 30 min.
+    n_bootstrap : lot-level bootstrap replicates of the selected models
+        (:mod:`linkage.models.bootstrap`), from which every probability of
+        passing gets its lower bound; 0 stores none (no bound).
 
     Raises
     ------
@@ -577,6 +581,8 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
     nominal = float(nominal_coverage)
     if not 0 < nominal < 1:
         raise UsageError(f"nominal coverage must lie strictly between 0 and 1; got {nominal_coverage}")
+    if isinstance(n_bootstrap, bool) or not isinstance(n_bootstrap, (int, np.integer)) or n_bootstrap < 0:
+        raise UsageError(f"n_bootstrap must be a whole number of replicates, 0 or more; got {n_bootstrap!r}")
     if not isinstance(n_jobs, int) or n_jobs == 0:
         raise UsageError(f"n_jobs must be a non-zero integer; got {n_jobs}")
     _check_backend(backend)
@@ -621,9 +627,11 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
             domain = DomainModel.fit(X[have].reset_index(drop=True), y=Y, alpha=DOMAIN_ALPHA)
         stages.append(FittedStage(name=st.name, inputs=list(st.inputs), targets=targets, domain=domain,
                                   skipped={t: skipped[t] for t in st.targets if t in skipped}))
-    return FittedChain(
+    out = FittedChain(
         chain=chain, stages=stages, targets=fitted, skipped=skipped,
         training={**_training_record(data, chain, table, notes), "dissolution_time_min": time_min},
         library_versions=_library_versions(),
         seed=int(seed), nominal_coverage=nominal, created_at=created_at,
     )
+    out.bootstrap = bootstrap_chain(out, data, n_replicates=n_bootstrap, seed=seed)
+    return out

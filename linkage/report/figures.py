@@ -444,10 +444,12 @@ def plot_porosity_curve(grid, mean, low, high, *, name: str, level: float, limit
 
 def plot_window_probability(grid, p_all, p_each: Mapping[str, Sequence[float]], *, confidence: float,
                             low: float | None, high: float | None, mean_low: float | None = None,
-                            mean_high: float | None = None, ax=None):
+                            mean_high: float | None = None, ax=None, p_all_low=None,
+                            assurance: float | None = None):
     """Probability that a lot meets every specification (thick) and each one
     (thin) against ribbon porosity, the confidence line, the window shaded
-    and the mean-response window marked."""
+    and the mean-response window marked; ``p_all_low``, the lower bound at
+    ``assurance`` of the first, thick and dashed."""
     ax = new_axes(ax, panel=(5.6, 3.2), right=2.5)
     grid = np.asarray(grid, float)
     if low is not None and high is not None:
@@ -462,7 +464,12 @@ def plot_window_probability(grid, p_all, p_each: Mapping[str, Sequence[float]], 
         colour, marker = styles[name]
         ax.plot(grid, np.asarray(p, float), color=colour, linewidth=1.1, marker=marker,
                 markevery=max(1, len(grid) // 10), markersize=4, label=f"P(pass {name})")
-    ax.plot(grid, np.asarray(p_all, float), color=BLACK, linewidth=2.4, label="P(pass all)")
+    ax.plot(grid, np.asarray(p_all, float), color=BLACK, linewidth=2.4,
+            label="P(pass all)" if p_all_low is None else "P(pass all), point estimate")
+    if p_all_low is not None:
+        ax.plot(grid, np.asarray(p_all_low, float), color=BLACK, linewidth=2.4, linestyle=(0, (4, 2)),
+                label=f"P(pass all), lower bound ({assurance:.0%} assurance)" if assurance else
+                "P(pass all), lower bound")
     ax.axhline(confidence, color=VERMILION, linestyle="--", linewidth=1.4, label=f"confidence {confidence:.0%}")
     ax.set_ylim(-0.02, 1.02)
     ax.set_xlabel(axis_label("ribbon_porosity"))

@@ -206,10 +206,11 @@ class _Builder:
 # ----------------------------------------------------------------- entry points
 
 def build_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd.DataFrame | None = None,
-                 out_path, confidence: float = 0.9, seed: int = 0) -> Path:
+                 out_path, confidence: float = 0.9, seed: int = 0, assurance: float = 0.9) -> Path:
     """Render the report and write it to ``out_path`` (folders made as
     needed; the file is written whole or not at all). Returns the path."""
-    report = render_report(chain, table, spec=spec, window=window, lots=lots, confidence=confidence, seed=seed)
+    report = render_report(chain, table, spec=spec, window=window, lots=lots, confidence=confidence, seed=seed,
+                           assurance=assurance)
     from linkage.export import write_atomic
 
     out = Path(out_path)
@@ -218,7 +219,8 @@ def build_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd
 
 
 def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd.DataFrame | None = None,
-                  confidence: float = 0.9, seed: int = 0, curve_draws: int = 400) -> Report:
+                  confidence: float = 0.9, seed: int = 0, curve_draws: int = 400,
+                  assurance: float = 0.9) -> Report:
     """Build the report of a fitted chain.
 
     Parameters
@@ -233,6 +235,8 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         per table); derived from the assembled table when None.
     seed, curve_draws : seed and Monte Carlo draws per grid point of the
         curves through the chain.
+    assurance : assurance of the lower bound on the probability of passing
+        that the window computed here rests on.
     """
     from linkage.timepoint import check_time_point
 
@@ -243,7 +247,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     limits = dict(spec.limits) if spec is not None else {}
     window_failure = None
     if spec is not None and window is None:
-        window, window_failure = _window_or_reason(chain, spec, confidence, seed)
+        window, window_failure = _window_or_reason(chain, spec, confidence, seed, assurance)
 
     _glance(b, chain, table, spec, window)
     _data_section(b, chain, table, lots)
@@ -259,13 +263,13 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     return Report(html=_page(b, chain), figures=list(b.figures), notes=list(b.notes))
 
 
-def _window_or_reason(chain, spec, confidence, seed):
+def _window_or_reason(chain, spec, confidence, seed, assurance=0.9):
     """(window, None), or (None, why it could not be computed)."""
     from linkage.decide.window import find_window
     from linkage.exceptions import LinkageError
 
     try:
-        return find_window(chain, spec, confidence=confidence, seed=seed), None
+        return find_window(chain, spec, confidence=confidence, seed=seed, assurance=assurance), None
     except LinkageError as exc:
         return None, str(exc)
 
@@ -350,19 +354,24 @@ def _glance(b, chain, table, spec, window):
         items.append("A specification was given but the porosity window could not be computed (see the window "
                      "section).")
     elif window.found and not window.promise:
+        why = ("the model has no bootstrap replicates, so the probability has no lower bound"
+               if not (window.bound or {}).get("available", True) else
+               "the held settings are outside the applicability domain (an extrapolation)")
         items.append(
             f"Ribbon porosity window {window.low.value:.3f} – {window.high.value:.3f}: <b>no probability is "
-            f"promised</b>, the held settings are outside the applicability domain (an extrapolation; see the "
-            f"window section).")
+            f"promised</b>, {why}; see the window section.")
     elif window.found:
         items.append(
             f"<b>Ribbon porosity window: {window.low.value:.3f} – {window.high.value:.3f}</b> "
-            f"(probability {window.confidence:.0%} that a lot meets {_e(every)} together); "
+            f"(probability at least {window.confidence:.0%}, with {window.assurance:.0%} assurance, that a lot meets "
+            f"{_e(every)} together; the point estimate reaches it over {_range(window.point_low, window.point_high, 3)}); "
             f"low edge {_edge_text(window.low.limited_by)}, high edge {_edge_text(window.high.limited_by)}.")
         rf = window.roll_force or {}
         if rf.get("low") is not None:
-            items.append(f"Roll force for the window: <b>{rf['low']:.2f} – {rf['high']:.2f} kN/cm</b> with the "
-                         "other settings as listed in the window section.")
+            items.append(f"Roll force: <b>{rf['low']:.2f} – {rf['high']:.2f} kN/cm</b> (every specification at "
+                         f"least {window.confidence:.0%} with {window.assurance:.0%} assurance, through the whole "
+                         f"chain; point estimate {_range(rf.get('point_low'), rf.get('point_high'), 2)} kN/cm) with "
+                         "the other settings as listed in the window section.")
         elif rf.get("reason"):
             items.append(f"Roll force: {_e(rf['reason'])}.")
     else:
@@ -376,6 +385,10 @@ def _every(window) -> str:
     from linkage.report.sheet import every_spec_text
 
     return every_spec_text(window.not_modelled if window is not None else [])
+
+
+def _range(low, high, digits: int) -> str:
+    return "no range" if low is None or high is None else f"{low:.{digits}f} – {high:.{digits}f}"
 
 
 def _edge_text(limited_by) -> str:
@@ -812,25 +825,51 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
         return
     w = window
     every = _every(w)
+    bound = w.bound or {}
     b.add(f"<p>Ribbon porosity is scanned over the training range {w.data_range[0]:.3f} – {w.data_range[1]:.3f}. "
-          f"At each porosity, {w.n_draws} lots are simulated through the chain; the probability of meeting "
-          f"{_e(every)} together must reach {w.confidence:.0%}.</p>")
+          f"At each porosity, {w.n_draws} lots are simulated through the chain (the point estimate of the "
+          f"probability of meeting {_e(every)} together). The probability has its own uncertainty, since "
+          f"it is estimated from {chain.training.get('n_lots', '')} lots: the window is where its <b>lower bound "
+          f"at {w.assurance:.0%} assurance</b> reaches {w.confidence:.0%}.</p>")
     if w.not_modelled:
         b.add(f'<div class="out"><b>Not judged</b>: {_e(", ".join(w.not_modelled))} (the model does not '
               "predict it from ribbon porosity); the window says nothing about it.</div>")
+    if bound.get("available"):
+        b.add(f"<p class=small>Method of the bound: {_e(bound.get('method') or '')}; B = {bound.get('n_replicates')} "
+              f"replicates. Each replicate refits the selected model of every stage on lots drawn with replacement "
+              f"and simulates the chain with the drawn lots' out-of-fold residuals; the bound is the "
+              f"{100 * (1 - w.assurance):g}th percentile of the replicates' probabilities (Efron &amp; Tibshirani "
+              f"1993, §13.3), never above the point estimate. It does not carry the uncertainty of the choice of "
+              f"model or of its hyper-parameters, which are held at those selected on all lots.</p>")
     if not w.promise:
         from linkage.report.sheet import WINDOW_NO_PROMISE
 
-        items = "".join(f"<li>{_e(r)}</li>" for r in w.promise_reasons)
-        b.add(f'<div class="out"><b>{_e(WINDOW_NO_PROMISE)}</b><ul>{items}</ul></div>')
+        domain_reasons = [r for r in w.promise_reasons if r != bound.get("reason")]
+        if domain_reasons:
+            items = "".join(f"<li>{_e(r)}</li>" for r in domain_reasons)
+            b.add(f'<div class="out"><b>{_e(WINDOW_NO_PROMISE)}</b><ul>{items}</ul></div>')
+        if not bound.get("available", True):
+            b.add(f'<div class="out"><b>No lower bound.</b> {_e(bound.get("reason") or "")} The window below is '
+                  f'the point estimate\'s, and nothing is promised.</div>')
     if w.found:
-        b.add(f"<p><b>Window: {w.low.value:.3f} – {w.high.value:.3f}</b>. Low edge {_edge_text(w.low.limited_by)}; "
+        b.add(f"<p><b>Window: {w.low.value:.3f} – {w.high.value:.3f}</b> (probability at least {w.confidence:.0%} "
+              f"with {w.assurance:.0%} assurance). Low edge {_edge_text(w.low.limited_by)}; "
               f"high edge {_edge_text(w.high.limited_by)}.</p>")
+        if bound.get("available"):
+            b.add(f"<p>Beside it, where the point estimate reaches {w.confidence:.0%}: "
+                  f"{_range(w.point_low, w.point_high, 3)} (not promised: the point estimate is right only on "
+                  f"average).</p>")
         if len(w.segments) > 1:
             b.add("<p>Other passing ranges: " + ", ".join(f"{a:.3f} – {c:.3f}" for a, c in w.segments) + ".</p>")
     else:
-        b.add(f"<p><b>No window</b>: the probability of meeting {_e(every)} together stays below "
-              f"{w.confidence:.0%} across the training range.</p>")
+        b.add("<p><b>No window</b>: the "
+              + (f"lower bound ({w.assurance:.0%} assurance) of the " if bound.get("available") else "")
+              + f"probability of meeting {_e(every)} together stays below {w.confidence:.0%} across the "
+              "training range.</p>")
+        if bound.get("available") and w.point_low is not None:
+            b.add(f"<p>The point estimate reaches {w.confidence:.0%} over {_range(w.point_low, w.point_high, 3)}, "
+                  "but with the lots at hand that is not a promise: the bound, which carries the uncertainty of "
+                  "the estimate, does not reach it.</p>")
     if w.mean_low is not None:
         b.add(f"<p>Mean-response window (where the chain of mean predictions passes; it overstates what can be "
               f"promised, Peterson 2008): {w.mean_low:.3f} – {w.mean_high:.3f}.</p>")
@@ -860,9 +899,11 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
     b.add(f"<p class=small>Settings used: {held or 'none'}.</p>")
 
     b.figure(F.plot_window_probability(w.grid, w.p_all, w.p_each, confidence=w.confidence, low=w.low.value,
-                                       high=w.high.value, mean_low=w.mean_low, mean_high=w.mean_high),
-             f"Probability that a lot meets {every} together (thick) and each one (thin) against "
-             f"ribbon porosity; dashed: the {w.confidence:.0%} confidence line; shaded: the window; dotted: the "
+                                       high=w.high.value, mean_low=w.mean_low, mean_high=w.mean_high,
+                                       p_all_low=w.p_all_low, assurance=w.assurance),
+             f"Probability that a lot meets {every} together (thick: point estimate solid, lower bound "
+             f"at {w.assurance:.0%} assurance dashed) and each one (thin, point estimates) against "
+             f"ribbon porosity; dashed red: the {w.confidence:.0%} confidence line; shaded: the window; dotted: the "
              f"mean-response window.")
 
     names = list(w.bands)
@@ -885,14 +926,22 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
     else:
         mean_text = "the mean prediction is inside the window at no roll force of the training range"
     if rf.get("low") is not None:
-        b.add(f"<p>Roll force <b>{rf['low']:.2f} – {rf['high']:.2f} kN/cm</b> gives a lot-mean porosity inside the "
-              f"window with probability at least {w.confidence:.0%}; {mean_text}.</p>")
+        b.add(f"<p>Roll force <b>{rf['low']:.2f} – {rf['high']:.2f} kN/cm</b>: a lot made there meets every "
+              f"specification together with probability at least {w.confidence:.0%}"
+              + (f" ({w.assurance:.0%} assurance)" if bound.get("available") else " (point estimate)")
+              + ", simulated through the whole chain from the roll force on (ribbon, granule and tablet scatter "
+              f"included). Beside it: the point estimate reaches {w.confidence:.0%} over "
+              f"{_range(rf.get('point_low'), rf.get('point_high'), 2)} kN/cm; the chain of mean predictions passes "
+              f"every limit over {_range(rf.get('mean_response_low'), rf.get('mean_response_high'), 2)} kN/cm; "
+              f"the lot-mean porosity lands in the window with probability {w.confidence:.0%} over "
+              f"{_range(rf.get('in_window_low'), rf.get('in_window_high'), 2)} kN/cm; {mean_text}.</p>")
     elif rf.get("reason"):
         b.note(f"Roll force range: {rf['reason']}.")
         if "curve" in rf:
             b.add(f"<p>For comparison, {mean_text}.</p>")
-    if rf.get("held"):
-        held = ", ".join(f"{_e(k)} = {v['value']:.4g} ({_e(v['source'])})" for k, v in rf["held"].items())
+    held_rf = rf.get("held_chain") or rf.get("held")
+    if held_rf:
+        held = ", ".join(f"{_e(k)} = {v['value']:.4g} ({_e(v['source'])})" for k, v in held_rf.items())
         b.add(f"<p class=small>Held for the roll force range: {held}.</p>")
     if curve:
         t = _by_lot(table)
@@ -901,8 +950,9 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
                                    low=w.low.value, high=w.high.value, force_low=rf.get("low"),
                                    force_high=rf.get("high"), confidence=w.confidence, observed=obs),
                  "Predicted lot-mean ribbon porosity against roll force (other settings held as stated), the "
-                 "porosity window (green band), the roll force range that lands in it (orange band) and the "
-                 "probability that a lot's mean porosity lies in the window (dash-dot, right axis).")
+                 "porosity window (green band), the roll force range where a lot meets every specification with the "
+                 "stated probability through the whole chain (orange band; lower bound where the model has one) and "
+                 "the probability that a lot's mean porosity lies in the window (dash-dot, right axis).")
 
 
 # ----------------------------------------------------------------- 8. domain
@@ -1041,6 +1091,10 @@ def _model_card(b, chain, spec, window):
     if window is not None:
         rows.append(["window confidence and draws", f"{window.confidence:.0%}, {window.n_draws} draws, seed "
                                                     f"{window.seed}"])
+        bound = window.bound or {}
+        rows.append(["lower bound on the probability",
+                     f"{window.assurance:.0%} assurance, {bound.get('n_replicates')} lot-level bootstrap replicates"
+                     if bound.get("available") else _e(bound.get("reason") or "none")])
     b.add(_table(None, rows))
     b.add("<h3>Selection and intervals, per attribute</h3>")
     trows = []

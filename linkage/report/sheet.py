@@ -99,6 +99,21 @@ def spec_table_html(spec: dict | None, judged: list[str] | None = None,
             f"<th>in this result</th></tr>{''.join(rows)}</table>")
 
 
+def bound_text(low: float | None, point: float, assurance: float) -> str:
+    """A probability as its lower bound first, the point estimate beside it:
+    'at least 97.9% (assurance 90%; point estimate 99.4%)'; the point
+    estimate alone, said so, when there is no bound."""
+    if low is None:
+        return f"{probability_text(point)} (point estimate; no lower bound)"
+    return f"{at_least(low)} (assurance {100 * assurance:g}%; point estimate {probability_text(point)})"
+
+
+def at_least(p: float) -> str:
+    """'at least 97.9%', or '> 99.9%' where the percent would round to a certainty."""
+    t = probability_text(p)
+    return t if t.startswith(">") else f"at least {t}"
+
+
 #: the headline of a what-if or window outside the applicability domain (text, HTML sheet, report)
 NO_PROMISE = ("OUT OF THE APPLICABILITY DOMAIN: no probability is promised here. The numbers below are "
               "extrapolations of the models, shown for orientation only; the reasons:")
@@ -165,11 +180,12 @@ def whatif_html(result) -> str:
                 f"max {_fmt(lim.get('max'))}" if lim.get("max") is not None else "",
             ) if s
         ) or "no limit given"
-        p_pass = "–" if "p_pass" not in p else escape(probability_text(p["p_pass"]))
+        p_pass = "–" if "p_pass" not in p else escape(bound_text(p.get("p_pass_low"), p["p_pass"],
+                                                                   d["p_pass_all_bound"]["assurance"]))
         if "p_stage" in p:
             p_pass += "<br><span class=meta>" + ", ".join(
                 f"{escape(k if k.startswith('S') else 'stage ' + k)} {escape(probability_text(v))}"
-                for k, v in p["p_stage"].items()) + " (passing by)</span>"
+                for k, v in p["p_stage"].items()) + " (passing by, point estimates)</span>"
         if "p_pass" in p and not d["promise"]:
             p_pass += "<br><span class=meta>extrapolation, not promised</span>"
         mark = ""
@@ -189,17 +205,26 @@ def whatif_html(result) -> str:
         f"<tr><td>{escape(k)}{_unit(k)}</td><td class=num>{_fmt(v['value'])}</td><td>{escape(v['source'])}</td></tr>"
         for k, v in d["inputs"].items()
     )
-    if d["promise"]:
+    bound = d["p_pass_all_bound"]
+    if d["in_domain"]:
         verdict = '<div class="in"><b>Inside the applicability domain</b> of every stage used.</div>'
     else:
         items = "".join(f"<li>{escape(r)}</li>" for r in d["domain_reasons"])
         verdict = f'<div class="out"><b>{escape(NO_PROMISE)}</b><ul>{items}</ul></div>'
     every = escape(every_spec_text(d.get("not_modelled_reasons", {})))
+    if bound.get("reason"):
+        verdict += f'<div class="out"><b>No lower bound.</b> {escape(bound["reason"])}</div>'
     if d["p_pass_all"] is None:
         p_all = ""
     elif d["promise"]:
         p_all = (f"<p>Probability that a lot made this way meets {every} at once: "
-                 f"<b>{escape(probability_text(d['p_pass_all']))}</b>.</p>")
+                 f"<b>{escape(at_least(bound['low']))}</b> with {100 * bound['assurance']:g}% "
+                 f"assurance (point estimate {escape(probability_text(d['p_pass_all']))}; the bound is the "
+                 f"{100 * (1 - bound['assurance']):g}th percentile over lot-level bootstrap replicates of the "
+                 "chain).</p>")
+    elif d["in_domain"]:
+        p_all = (f"<p>No probability of meeting {every} is promised here (no lower bound, see above). "
+                 f"The point estimate is {escape(probability_text(d['p_pass_all']))}.</p>")
     else:
         p_all = (f"<p>No probability of meeting {every} is promised here (outside the applicability "
                  "domain, see above). The share of simulated lots that pass every limit, "

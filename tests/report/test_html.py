@@ -124,10 +124,14 @@ def test_window_section_names_the_window_the_limiting_attribute_and_the_force(re
 
     w = find_window(chain, spec, confidence=0.9, seed=0)  # the report computed the same at the same seed
     body = report.html[report.html.find('<h2 id="window">'):report.html.find('<h2 id="domain">')]
-    assert w.found
-    assert f"Window: {w.low.value:.3f} – {w.high.value:.3f}" in body
-    for edge in (w.low, w.high):
-        assert (f"limited by <b>{edge.limited_by}</b>" in body) or ("cut by the range of the training data" in body)
+    assert w.found or w.point_low is not None
+    if w.found:
+        assert f"Window: {w.low.value:.3f} – {w.high.value:.3f}" in body
+        for edge in (w.low, w.high):
+            assert (f"limited by <b>{edge.limited_by}</b>" in body) or ("cut by the range of the training data" in body)
+    else:  # 36 lots: the lower bound may not reach the confidence where the point estimate does; both are said
+        assert "<b>No window</b>: the lower bound (90% assurance)" in body
+        assert f"The point estimate reaches 90% over {w.point_low:.3f} – {w.point_high:.3f}" in body
     if w.roll_force.get("low") is not None:
         assert f"{w.roll_force['low']:.2f} – {w.roll_force['high']:.2f} kN/cm" in body
     for a in spec.limits:

@@ -1,0 +1,407 @@
+"""The lower confidence bound on a probability of passing, from the chain's
+lot-level bootstrap replicates (numpy only: the what-if runs on it).
+
+A replicate b of the chain (:mod:`linkage.models.bootstrap`: whole lots
+resampled with replacement, every stage's selected model refitted, the
+resampled lots' out-of-fold residuals as the scatter) gives its own
+probability P_b that a lot at the given settings meets every limit, and its
+own P_b(pass) per attribute. The lower bound at assurance a is the
+percentile bound of Efron & Tibshirani (1993, *An Introduction to the
+Bootstrap*, §13.3): the (1 − a) quantile of P_1 … P_B (numpy's linear
+interpolation, Hyndman & Fan 1996 type 7), never above the point estimate
+P_0 that the fitted models give by the same computation. "The probability is
+at least x with assurance a" reads: in a fraction a of campaigns like this
+one, a bound computed so lies below the true probability (Peterson 2008, J.
+Biopharm. Stat. 18:959–975, for the probability-based design space; the
+bootstrap stands in for his posterior).
+
+How one replicate's probability is computed
+-------------------------------------------
+Through the chain, stage by stage, with the replicate's models and its
+weights on the residual lots (how many times the replicate drew each lot):
+
+* every stage but the last simulated one spreads each draw over the
+  stage's residual lots. When rows × draws × lots stays within ``cells``,
+  every lot is taken with its weight (an exact sum); otherwise each draw is
+  paired with ``cells // (rows × draws)`` lots drawn by weight (Monte Carlo,
+  the same lots for every row: common random numbers, a smooth curve);
+* the last stage is summed exactly over its residual lots (at most
+  ``final_max``, else drawn by weight): for each draw, the weighted share of
+  the stage's lots whose residual vector, added to the draw's predictions,
+  meets every limit, together with the limits met upstream.
+
+Values are projected onto their physical ranges
+(:func:`linkage.models.lean.project`) before they are judged or passed on,
+as in :mod:`linkage.decide.propagate`. A stage's lots with a target missing
+are left out of that stage's residual set here (the Monte Carlo of the
+point estimate fills the gap with another lot instead).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from linkage.exceptions import UsageError
+
+__all__ = ["NO_BOUND", "check_assurance", "Replicates", "replicates_of", "chain_probabilities", "lower_bound",
+           "ChainProbabilities"]
+
+#: what every output says when the model has no bootstrap replicates
+NO_BOUND = ("no lower bound on the probability is available: the model was trained without bootstrap "
+            "replicates (trained before linkage stored them, or with n_bootstrap = 0); the probabilities shown "
+            "are point estimates only. Retrain ('linkage train') to get the bound.")
+
+#: cells (rows × draws) of the non-final stages, and lots of the last stage, summed at most
+CELLS = 8000
+FINAL_MAX = 256
+
+
+def check_assurance(assurance) -> float:
+    """``assurance`` as a float in (0, 1), or a UsageError naming the rule."""
+    try:
+        a = float(assurance)
+    except (TypeError, ValueError):
+        raise UsageError(f"assurance must be a number between 0 and 1; got {assurance!r}") from None
+    if not (0 < a < 1):  # NaN fails too
+        raise UsageError(f"assurance must lie strictly between 0 and 1; got {assurance!r}")
+    return a
+
+
+class _Loop:
+    """Models of several replicates evaluated one by one (any lean kind)."""
+
+    def __init__(self, models: list):
+        self.models = list(models)
+
+    def __len__(self):
+        return len(self.models)
+
+    def take(self, idx) -> "_Loop":
+        return _Loop([self.models[i] for i in idx])
+
+    def predict(self, X3: np.ndarray) -> np.ndarray:
+        return np.stack([np.asarray(m.predict(X), float) for m, X in zip(self.models, X3)])
+
+
+class _Stacked:
+    """Models of several replicates of one kind whose parameters are stacked
+    (B, ...): evaluated for every replicate at once, with the arithmetic of
+    :class:`linkage.models.lean.Model` (a test compares the two)."""
+
+    KINDS = {"mean": ("mean",), "rd": ("s0", "k"), "linear": ("x_mean", "coef", "intercept"),
+             "quadratic": ("x_mean", "x_scale", "beta", "intercept")}
+
+    def __init__(self, kind: str, params: dict, n: int):
+        self.kind, self.params, self.n = kind, params, n
+
+    @classmethod
+    def from_packed(cls, packed: dict):
+        kind = packed["same"].get("kind")
+        if kind not in cls.KINDS:
+            return None
+        n = int(packed["n"])
+        params = {}
+        for k in cls.KINDS[kind] + (("porosity_index",) if kind == "rd" else ()):
+            if k in packed["stacked"]:
+                params[k] = np.asarray(packed["stacked"][k], dtype=float if k != "porosity_index" else np.int64)
+            elif k in packed["same"]:
+                v = packed["same"][k]
+                params[k] = v if k == "porosity_index" else np.full(n, float(v)) if np.ndim(v) == 0 else v
+            else:
+                return None
+        if kind == "rd" and np.ndim(params["porosity_index"]) != 0:
+            return None
+        return cls(kind, params, n)
+
+    def __len__(self):
+        return self.n
+
+    def take(self, idx) -> "_Stacked":
+        return _Stacked(self.kind, {k: v if k == "porosity_index" else v[idx] for k, v in self.params.items()},
+                        len(idx))
+
+    def predict(self, X3: np.ndarray) -> np.ndarray:
+        p, X3 = self.params, np.asarray(X3, dtype=float)
+        if self.kind == "mean":
+            return np.broadcast_to(p["mean"][:, None], X3.shape[:2]).copy()
+        if self.kind == "rd":
+            return p["s0"][:, None] * np.exp(-p["k"][:, None] * X3[:, :, p["porosity_index"]])
+        if self.kind == "linear":
+            return np.einsum("bnp,bp->bn", X3 - p["x_mean"][:, None, :], p["coef"]) + p["intercept"][:, None]
+        from linkage.models.lean import quad_features
+
+        B, n, q = X3.shape
+        Z = (X3 - p["x_mean"][:, None, :]) / p["x_scale"][:, None, :]
+        F = quad_features(Z.reshape(B * n, q)).reshape(B, n, -1)
+        return np.einsum("bnf,bf->bn", F, p["beta"]) + p["intercept"][:, None]
+
+
+class Replicates:
+    """The bootstrap replicates of a lean chain, ready to evaluate:
+    ``models[target]`` (all replicates of one target, evaluated together)
+    and ``counts`` (B × training lots)."""
+
+    def __init__(self, lean):
+        from linkage.models.bootstrap import unpack_specs
+        from linkage.models.lean import Model
+
+        bs = getattr(lean, "bootstrap", None)
+        self.reason = None
+        self.n = 0
+        self.method = None
+        if not bs:
+            self.reason = NO_BOUND
+            return
+        if not bs.get("n_replicates"):
+            self.reason = ("no lower bound on the probability is available: "
+                           + (bs.get("reason") or "the model has no bootstrap replicates"))
+            return
+        self.counts = np.asarray(bs["counts"], dtype=np.int64)
+        self.lot_index = {str(lot): i for i, lot in enumerate(bs["lots"])}
+        self.models = {}
+        for name, packed in bs["targets"].items():
+            stacked = _Stacked.from_packed(packed)
+            self.models[name] = stacked if stacked is not None else _Loop([Model(s) for s in unpack_specs(packed)])
+        missing = [t for t in lean.targets if t not in self.models]
+        if missing:
+            self.reason = f"no lower bound: the bootstrap replicates lack {', '.join(missing)}"
+            return
+        self.n = int(self.counts.shape[0])
+        self.method = bs.get("method")
+
+    @property
+    def available(self) -> bool:
+        return self.n > 0
+
+
+def replicates_of(lean) -> Replicates:
+    """The :class:`Replicates` of a lean chain (made once, kept on it)."""
+    cached = getattr(lean, "_replicates", None)
+    if cached is None:
+        cached = Replicates(lean)
+        lean._replicates = cached
+    return cached
+
+
+@dataclass
+class ChainProbabilities:
+    """P(all pass) and P(pass) per attribute at each row: the point estimate
+    (fitted models, every lot once) and, when the model has them, each
+    bootstrap replicate's (B × rows; NaN for a replicate that drew none of a
+    stage's lots)."""
+
+    p_all: np.ndarray
+    p_each: dict[str, np.ndarray]
+    reps_all: np.ndarray | None
+    reps_each: dict[str, np.ndarray] | None
+    reason: str | None  # why there are no replicates
+
+    def low_all(self, assurance: float) -> np.ndarray | None:
+        return None if self.reps_all is None else lower_bound(self.reps_all, assurance, self.p_all)
+
+    def low_each(self, assurance: float) -> dict[str, np.ndarray] | None:
+        if self.reps_each is None:
+            return None
+        return {a: lower_bound(r, assurance, self.p_each[a]) for a, r in self.reps_each.items()}
+
+
+def lower_bound(replicates, assurance: float, point=None) -> np.ndarray:
+    """Percentile lower bound: the (1 − assurance) quantile over the
+    replicates (axis 0, NaN replicates left out; numpy's default linear
+    interpolation), capped at the point estimate when one is given."""
+    a = check_assurance(assurance)
+    reps = np.asarray(replicates, dtype=float)
+    low = np.nanquantile(reps, 1 - a, axis=0)
+    return low if point is None else np.minimum(low, np.asarray(point, dtype=float))
+
+
+def _stage_lots(stage, todo: list[str], counts: np.ndarray | None, lot_index: dict | None):
+    """The stage's residual rows with every target in ``todo`` (n_s × targets)
+    and the weights of each replicate on them (B × n_s, rows summing to 1,
+    NaN for a replicate that drew none of them); ``counts`` are the
+    replicates' draws over the training lots (None: every lot once)."""
+    cols = [list(stage.targets).index(t) for t in todo]
+    R = stage.residual_matrix[:, cols]
+    rows = np.flatnonzero(np.all(np.isfinite(R), axis=1))
+    if counts is None:
+        W = np.ones((1, rows.size))
+    else:
+        at = np.array([lot_index.get(str(stage.residual_lots[i]), -1) for i in rows], dtype=np.int64)
+        W = np.where(at[None, :] >= 0, counts[:, np.maximum(at, 0)], 0).astype(float)
+    total = W.sum(axis=1, keepdims=True)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return R[rows], W / total
+
+
+def _draw(W: np.ndarray, u: np.ndarray) -> np.ndarray:
+    """Per replicate (row of W), the lots that the uniforms ``u`` pick by
+    weight (inverse CDF: the same ``u`` for every replicate)."""
+    cdf = np.cumsum(np.nan_to_num(W), axis=1)
+    cdf[:, -1] = np.inf
+    return np.stack([np.searchsorted(c, u, side="right") for c in cdf])
+
+
+def _passes(name: str, pred: np.ndarray, r: np.ndarray, limit) -> np.ndarray:
+    """within(project(name, pred[..., None] + r[:, None, None, :]), limit)
+    (B × rows × draws × lots), without forming the sums: the projection is a
+    clip onto [pl, ph], so clip(x) ≥ lo holds always when lo ≤ pl, never
+    when lo > ph, and else exactly when x ≥ lo, that is r ≥ lo − pred
+    (likewise for the upper limit); a test compares the two."""
+    from linkage.models.lean import physical_range
+
+    pl, ph = physical_range(name)
+    shape = pred.shape + (r.shape[-1],)
+    ok = np.ones(shape, dtype=bool)
+    rr = r[:, None, None, :]
+    if limit.min is not None and limit.min > pl:
+        if limit.min > ph:
+            return np.zeros(shape, dtype=bool)
+        ok &= rr >= (limit.min - pred)[..., None]
+    if limit.max is not None and limit.max < ph:
+        if limit.max < pl:
+            return np.zeros(shape, dtype=bool)
+        ok &= rr <= (limit.max - pred)[..., None]
+    return ok
+
+
+def _wsum(a: np.ndarray, lw: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """Σ_d w[b, d] Σ_l lw[b, l] a[b, r, d, l] for a boolean a (B × rows × draws × lots)."""
+    B, r, d, L = a.shape
+    lw = np.broadcast_to(np.asarray(lw, dtype=float), (B, L))
+    per_draw = np.matmul(a.reshape(B, r * d, L).astype(np.float32), lw.astype(np.float32)[:, :, None])
+    return np.einsum("brd,bd->br", per_draw.reshape(B, r, d).astype(float), w)
+
+
+def _batch(lean, columns: dict, limits: dict, attributes: list[str], models: dict, counts, lot_index,
+           seed: int, cells: int, final_max: int):
+    """P(all pass) (B × rows) and P(pass) per attribute for a batch of
+    replicates (models of each target evaluated together)."""
+    from linkage.decide.propagate import within
+    from linkage.models.lean import project
+
+    B = len(next(iter(models.values())))
+    nrows = len(next(iter(columns.values())))
+    fixed = set(columns)
+    sim = [st for st in lean.stages if any(t not in fixed for t in st.targets)]
+    values = {k: np.asarray(v, dtype=float).reshape(1, nrows, 1) for k, v in columns.items()}
+    w = np.ones((B, 1))
+    ok = np.ones((B, nrows, 1), dtype=bool)
+    each: dict[str, np.ndarray] = {}
+    p_each: dict[str, np.ndarray] = {}
+    p_all = None
+    for si, st in enumerate(sim):
+        todo = [t for t in st.targets if t not in fixed]
+        missing = [c for c in st.inputs if c not in values]
+        if missing:
+            raise UsageError(f"stage '{st.name}' needs {', '.join(missing)}, which were neither given nor "
+                             "predicted by an earlier stage")
+        R, W = _stage_lots(st, todo, counts, lot_index)
+        if R.shape[0] == 0:
+            raise UsageError(f"stage '{st.name}' has no lot with out-of-fold residuals of every target; "
+                             "the model cannot give it an uncertainty")
+        rng = np.random.default_rng([seed, si])  # the same uniforms whatever the batch
+        D, n_s = w.shape[1], R.shape[0]
+        final = si == len(sim) - 1
+        if not final:
+            if nrows * D * n_s <= cells:  # every lot, with its weight
+                parent = np.repeat(np.arange(D), n_s)
+                pick = np.tile(np.arange(n_s), D)[None, :]
+                w = w[:, parent] * W[:, pick[0]]
+            else:  # k lots per draw, drawn by weight
+                k = max(1, cells // (nrows * D))
+                parent = np.repeat(np.arange(D), k)
+                pick = _draw(W, rng.random(D * k))
+                w = w[:, parent] / k
+            values = {c: v[:, :, parent] for c, v in values.items()}
+            ok = ok[:, :, parent]
+            each = {a: e[:, :, parent] for a, e in each.items()}
+        else:
+            if n_s > final_max:
+                pick = _draw(W, rng.random(final_max))
+                lw = np.full((B, final_max), 1.0 / final_max)
+            else:
+                pick = np.arange(n_s)[None, :]
+                lw = W
+        n_draws = w.shape[1]
+        joint = None
+        for j, t in enumerate(todo):
+            if final and t not in attributes:
+                continue
+            target = lean.targets[t]
+            X3 = np.stack([np.broadcast_to(values[c], (B, nrows, n_draws)).reshape(B, -1)
+                           for c in target.inputs], axis=-1)
+            pred = models[t].predict(X3).reshape(B, nrows, n_draws)
+            r = R[:, j][pick]  # (1 or B, draws or lots)
+            if not final:
+                values[t] = project(t, pred + r[:, None, :])[0]
+                if t in attributes:
+                    each[t] = within(values[t], limits[t])
+                    ok = ok & each[t]
+            else:
+                pa = _passes(t, pred, r, limits[t])
+                joint = pa if joint is None else joint & pa
+                p_each[t] = _wsum(pa, lw, w)
+        if final:
+            joint = ok[..., None] if joint is None else joint & ok[..., None]
+            p_all = _wsum(joint, lw, w) if joint.shape[-1] == lw.shape[-1] else np.einsum("brdl,bd->br", joint, w)
+    for a, e in each.items():
+        p_each[a] = np.einsum("brd,bd->br", e, w)
+    if p_all is None:
+        p_all = np.einsum("brd,bd->br", ok, w)
+    return p_all, p_each
+
+
+def chain_probabilities(lean, columns: dict, limits: dict, attributes: list[str], *, replicates: bool = True,
+                        seed: int = 0, cells: int = CELLS, final_max: int = FINAL_MAX,
+                        memory_cells: int = 4_000_000) -> ChainProbabilities:
+    """P(all pass) and each P(pass) at each row of ``columns`` (every root
+    setting, and any measured target, one value per row), for the point
+    estimate and (when ``replicates`` and the model has them) every
+    bootstrap replicate. ``limits`` maps each attribute to a spec limit
+    (``min``/``max``); ``attributes`` are the predicted ones to judge.
+    Replicates are evaluated in batches of at most ``memory_cells`` cells of
+    the last stage's sums; the result does not depend on the batch size."""
+    from linkage.models.lean import as_lean
+
+    lean = as_lean(lean)
+    columns = {str(k): np.asarray(v, dtype=float).reshape(-1) for k, v in columns.items()}
+    point_models = {t: _Loop([tg.model_]) for t, tg in lean.targets.items()}
+    p_all, p_each = _batch(lean, columns, limits, attributes, point_models, None, None, seed, cells, final_max)
+    p_all, p_each = p_all[0], {a: v[0] for a, v in p_each.items()}
+    if not replicates:
+        return ChainProbabilities(p_all, p_each, None, None, None)
+    reps = replicates_of(lean)
+    if not reps.available:
+        return ChainProbabilities(p_all, p_each, None, None, reps.reason)
+    nrows = p_all.size
+    per_rep = nrows * max(cells // max(nrows, 1), 1) * final_max
+    size = max(1, min(reps.n, memory_cells // max(per_rep, 1)))
+    all_b = np.empty((reps.n, nrows))
+    each_b = {a: np.empty((reps.n, nrows)) for a in p_each}
+    for start in range(0, reps.n, size):
+        idx = np.arange(start, min(start + size, reps.n))
+        models = {t: reps.models[t].take(idx) for t in lean.targets}
+        pa, pe = _batch(lean, columns, limits, attributes, models, reps.counts[idx], reps.lot_index, seed,
+                        cells, final_max)
+        all_b[idx] = pa
+        for a in each_b:
+            each_b[a][idx] = pe[a]
+    return ChainProbabilities(p_all, p_each, all_b, each_b, None)
+
+
+def with_unit_level(low: np.ndarray, lot_level_point: np.ndarray, unit_level_point: np.ndarray) -> np.ndarray:
+    """The lower bound of a probability that includes a unit-level (compendial) judgement.
+
+    P(pass, judged on units) = P(lot values pass) × P(units pass | lot values pass). The bootstrap
+    bound ``low`` covers the first factor (the lot values judged against the limits, as
+    :func:`chain_probabilities` judges them); the second factor is taken at its point estimate, the
+    ratio of the Monte Carlo probability with units (``unit_level_point``) to the lot-level one
+    (``lot_level_point``), capped at 1. The estimation uncertainty of the within-lot spread model
+    is not carried into the bound: a stated approximation, not a proof."""
+    low = np.asarray(low, dtype=float)
+    lot = np.asarray(lot_level_point, dtype=float)
+    units = np.asarray(unit_level_point, dtype=float)
+    ratio = np.divide(units, lot, out=np.zeros_like(units), where=lot > 0)
+    return np.minimum(low * np.clip(ratio, 0.0, 1.0), units)

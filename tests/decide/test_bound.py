@@ -1,0 +1,240 @@
+"""The lower bound on the probability of passing (issue 12, items 1 and 2):
+the window, the roll force range through the whole chain and the what-if.
+
+References: the truth of linkage.synthetic's window scenario (its true
+probability of passing, Monte Carlo over its own noise, which the fitted
+chain never sees); the percentile bound of Efron & Tibshirani (1993, §13.3),
+checked against scipy in tests/models/test_bootstrap.py; the Monte Carlo of
+linkage.decide.propagate for the point estimate.
+"""
+
+from __future__ import annotations
+
+import copy
+import json
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from linkage.cli.main import cli
+from linkage.decide.bound import NO_BOUND, _passes, chain_probabilities
+from linkage.decide.propagate import within
+from linkage.decide.whatif import predict_whatif
+from linkage.decide.window import find_window
+from linkage.exceptions import UsageError
+from linkage.models.lean import as_lean, export, from_npz_bytes, project, to_npz_bytes
+from linkage.spec import Limit
+from linkage.synthetic import WINDOW_SETTINGS, WINDOW_SPEC
+
+CONFIDENCE = 0.9
+
+
+@pytest.fixture(scope="module")
+def window(scenario):
+    _, chain, spec, _ = scenario
+    return find_window(chain, spec, settings=dict(WINDOW_SETTINGS), confidence=CONFIDENCE, n_draws=2000)
+
+
+@pytest.fixture(scope="module")
+def old_chain(scenario):
+    """The scenario's chain as a model saved before bootstrap replicates existed."""
+    _, chain, _, _ = scenario
+    old = copy.copy(chain)
+    old.__dict__.pop("bootstrap", None)  # an old pickle has no such attribute: the class default (None) shows
+    assert old.bootstrap is None
+    return old
+
+
+@pytest.mark.parametrize("name, limit", [("weight_rsd_pct", Limit(None, 2.0)), ("weight_rsd_pct", Limit(0.5, 2.0)),
+                                         ("dissolution_pct", Limit(80.0, None)), ("ribbon_porosity", Limit(0.2, 0.4)),
+                                         ("friability_pct", Limit(-1.0, 0.8)), ("weight_rsd_pct", Limit(-2.0, -1.0))])
+def test_limits_on_residuals_equal_projection_then_limits(name, limit):
+    """_passes judges pred + r on thresholds of the residual; it must equal
+    projecting the sum onto the physical range and then checking the limits
+    (linkage.models.lean.project, linkage.decide.propagate.within)."""
+    rng = np.random.default_rng(1)
+    scale = {"weight_rsd_pct": 2.0, "dissolution_pct": 20.0, "ribbon_porosity": 0.5, "friability_pct": 1.0}[name]
+    pred = rng.normal(0, scale, (3, 4, 5))
+    r = rng.normal(0, scale, (3, 7))
+    expected = within(project(name, pred[..., None] + r[:, None, None, :])[0], limit)
+    np.testing.assert_array_equal(_passes(name, pred, r, limit), expected)
+
+
+def test_engine_point_matches_monte_carlo_on_the_grid(scenario, window):
+    """The exact sums over residual lots (point estimate, fitted models) give
+    the Monte Carlo's P(all pass) within its sampling error: 4 binomial SDs
+    of 2000 draws, plus 0.01 for lots the sums leave out where a target is missing."""
+    _, chain, spec, _ = scenario
+    lean = as_lean(chain)
+    columns = {"ribbon_porosity": window.grid,
+               **{k: np.full(window.grid.size, v["value"]) for k, v in window.settings.items()}}
+    cp = chain_probabilities(lean, columns, spec.limits, window.attributes, replicates=False)
+    sd = np.sqrt(np.clip(window.p_all * (1 - window.p_all), 1e-4, None) / window.n_draws)
+    assert np.all(np.abs(cp.p_all - window.p_all) <= 4 * sd + 0.01), np.max(np.abs(cp.p_all - window.p_all))
+
+
+def test_bound_is_below_the_point_estimate_in_expectation(scenario, window):
+    """Before the cap at the point estimate, the replicates' (1 − a) quantile
+    lies below the point estimate on average over the grid, and the
+    replicates centre on the point estimate (median within 0.02 on average)."""
+    _, chain, spec, _ = scenario
+    columns = {"ribbon_porosity": window.grid,
+               **{k: np.full(window.grid.size, v["value"]) for k, v in window.settings.items()}}
+    cp = chain_probabilities(as_lean(chain), columns, spec.limits, window.attributes)
+    raw = np.quantile(cp.reps_all, 0.1, axis=0)
+    moving = (cp.p_all > 0.02) & (cp.p_all < 0.98)
+    assert moving.sum() > 10
+    assert np.mean(raw[moving] - cp.p_all[moving]) < -0.01
+    assert np.mean(np.abs(np.median(cp.reps_all, axis=0) - cp.p_all)) <= 0.02
+    assert (window.p_all_low <= cp.p_all + 1e-12).all()
+    # a higher assurance gives a lower bound, everywhere
+    assert (cp.low_all(0.95) <= cp.low_all(0.9) + 1e-12).all() and (cp.low_all(0.9) <= cp.low_all(0.5) + 1e-12).all()
+
+
+def test_bound_window_is_inside_the_point_window_and_true_probability_holds(scenario, window):
+    """With the true chain known: the bound's window lies inside the point
+    estimate's, and at every porosity of it the true probability of passing
+    every limit is at least the confidence less 0.02 (one 160-lot campaign;
+    the calibration over many campaigns is the benchmark's job)."""
+    truth, *_ = scenario
+    assert window.found and window.point_low is not None
+    assert window.point_low - 1e-9 <= window.low.value and window.high.value <= window.point_high + 1e-9
+    eps = np.linspace(window.low.value, window.high.value, 15)
+    s = WINDOW_SETTINGS
+    p_true = truth.p_pass_all(eps, WINDOW_SPEC, s["mill_screen_mm"], s["compression_force_kn"], n_draws=20000)
+    assert np.min(p_true) >= CONFIDENCE - 0.02, (eps, p_true)
+
+
+def test_window_edges_are_where_the_bound_crosses_the_confidence(window):
+    d = json.loads(json.dumps(window.to_dict()))
+    assert d["assurance"] == 0.9 and d["bound"]["available"] and d["bound"]["n_replicates"] == 200
+    grid, low = np.array(d["curve"]["ribbon_porosity"]), np.array(d["curve"]["p_all_low"])
+    assert len(low) == len(d["curve"]["p_all"]) == len(grid)
+    lo, hi = d["ribbon_porosity"]["low"], d["ribbon_porosity"]["high"]
+    inside = (grid >= lo) & (grid <= hi)
+    assert (low[inside] >= CONFIDENCE - 1e-6).all()
+    for edge in (lo, hi):  # the neighbours just outside a cut edge are below the confidence
+        if min(abs(edge - grid[0]), abs(edge - grid[-1])) > 1e-9:
+            outside = grid[np.argmin(np.where(inside, np.inf, np.abs(grid - edge)))]
+            assert low[np.flatnonzero(grid == outside)[0]] < CONFIDENCE
+    assert set(d["curve"]["p_each_low"]) == set(d["curve"]["p_each"])
+
+
+def test_roll_force_range_runs_through_the_whole_chain(scenario, window):
+    """low/high are where the bound of P(all pass), simulated from roll force
+    on, reaches the confidence; the point estimate's range contains it; with
+    the truth, a lot made at either edge force passes every limit with true
+    probability at least the confidence less 0.05 (ribbon scatter included)."""
+    truth, *_ = scenario
+    rf = window.roll_force
+    assert rf["low"] is not None and rf["bound_available"]
+    forces, low = np.array(rf["chain_curve"]["roll_force_kn_per_cm"]), np.array(rf["chain_curve"]["p_all_low"])
+    inside = (forces >= rf["low"] - 1e-9) & (forces <= rf["high"] + 1e-9)
+    assert (low[inside] >= CONFIDENCE - 1e-6).all()
+    assert rf["point_low"] <= rf["low"] + 1e-9 and rf["high"] <= rf["point_high"] + 1e-9
+    assert rf["mean_response_low"] is not None
+    held = {k: v["value"] for k, v in rf["held_chain"].items()}
+    rng = np.random.default_rng(0)
+    for force in (rf["low"], rf["high"]):
+        mean_eps = truth.porosity_mean(force, held["roll_gap_mm"], held["roll_speed_rpm"], held["screw_speed_rpm"])
+        eps = mean_eps + rng.normal(0, truth.porosity_process_sd, 2000)  # the lot's own porosity
+        p = truth.p_pass_all(eps, WINDOW_SPEC, held["mill_screen_mm"], held["compression_force_kn"], n_draws=1000)
+        assert float(np.mean(p)) >= CONFIDENCE - 0.05, (force, float(np.mean(p)))
+
+
+def test_whatif_gives_each_bound_and_the_lean_file_the_same(scenario):
+    _, chain, spec, _ = scenario
+    values = {"ribbon_porosity": 0.30, **WINDOW_SETTINGS}
+    a = predict_whatif(chain, values, spec=spec, assurance=0.9).to_dict()
+    lean = from_npz_bytes(to_npz_bytes(export(chain)))
+    b = predict_whatif(lean, values, spec=spec, assurance=0.9).to_dict()
+    assert a["p_pass_all_bound"] == b["p_pass_all_bound"]
+    bound = a["p_pass_all_bound"]
+    assert bound["assurance"] == 0.9 and 0 <= bound["low"] <= 1 and "reason" not in bound
+    for name, p in a["predictions"].items():
+        if "p_pass" in p:
+            assert p["p_pass_low"] <= p["p_pass_point"] + 1e-12
+            assert bound["low"] <= p["p_pass_low"] + 1e-12  # all at once is never likelier than one
+    c = predict_whatif(chain, values, spec=spec, assurance=0.99).to_dict()
+    assert c["p_pass_all_bound"]["low"] <= bound["low"] + 1e-12
+
+
+def test_old_model_without_replicates_says_no_bound(scenario, old_chain):
+    _, _, spec, _ = scenario
+    w = find_window(old_chain, spec, settings=dict(WINDOW_SETTINGS), n_draws=500)
+    d = w.to_dict()
+    assert d["bound"]["available"] is False and d["bound"]["reason"] == NO_BOUND
+    assert d["curve"]["p_all_low"] is None and d["promise"] is False and NO_BOUND in d["promise_reasons"]
+    # the window shown is the point estimate's, and said to be
+    assert d["ribbon_porosity"]["low"] == d["ribbon_porosity"]["point_low"]
+    from linkage.cli.decide_cmds import format_whatif, format_window
+
+    assert "no lower bound" in format_window(w)
+    lean = from_npz_bytes(to_npz_bytes(export(old_chain)))
+    assert lean.bootstrap is None
+    r = predict_whatif(lean, {"ribbon_porosity": 0.3}, spec=spec)
+    out = r.to_dict()
+    assert out["p_pass_all_bound"]["low"] is None and out["p_pass_all_bound"]["reason"] == NO_BOUND
+    assert out["promise"] is False and all(p.get("p_pass_low", None) is None for p in out["predictions"].values())
+    assert "no lower bound" in format_whatif(r)
+
+
+def test_assurance_is_validated_before_any_work(tmp_path):
+    runner = CliRunner()
+    missing = tmp_path / "no-models"
+    spec = tmp_path / "spec.toml"
+    spec.write_text("[limits]\n", encoding="utf-8")
+    for args in (["window", "--spec", str(spec)], ["predict", "--set", "ribbon_porosity=0.3"],
+                 ["report", "--spec", str(spec)]):
+        for bad in ("0", "1", "1.5", "nan", "x"):
+            r = runner.invoke(cli, [*args, "--assurance", bad, "--models-dir", str(missing)])
+            assert r.exit_code == 2, (args, bad, r.output)
+            assert "--assurance" in r.output
+    assert not missing.exists()
+    with pytest.raises(UsageError, match="assurance"):
+        find_window(None, None, assurance=1.0)
+
+
+def test_cli_json_carries_the_contract_keys(saved_model):
+    models_dir, _, spec_path = saved_model
+    runner = CliRunner()
+    r = runner.invoke(cli, ["window", "--spec", str(spec_path), "--json", "--draws", "500", "--assurance", "0.8",
+                            "--models-dir", str(models_dir)], catch_exceptions=False)
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert d["assurance"] == 0.8 and len(d["curve"]["p_all_low"]) == len(d["curve"]["p_all"])
+    assert {"low", "high", "point_low", "point_high", "mean_response_low", "mean_response_high",
+            "in_window_low", "in_window_high"} <= set(d["roll_force_kn_per_cm"])
+    r = runner.invoke(cli, ["predict", "--set", "roll_force_kn_per_cm=9", "--spec", str(spec_path), "--json",
+                            "--assurance", "0.8", "--models-dir", str(models_dir)], catch_exceptions=False)
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert set(d["p_pass_all_bound"]) == {"assurance", "low"} and d["p_pass_all_bound"]["assurance"] == 0.8
+    assert all("p_pass_low" in p for p in d["predictions"].values() if "p_pass" in p)
+    r = runner.invoke(cli, ["predict", "--set", "roll_force_kn_per_cm=9", "--spec", str(spec_path),
+                            "--models-dir", str(models_dir)], catch_exceptions=False)
+    assert "with 90% assurance (point estimate" in r.stdout
+
+
+def test_old_model_in_the_registry_says_no_bound_on_the_command_line(old_chain, tmp_path):
+    """A model saved without replicates (as before they existed): `predict`
+    and `window` load it, compute, and say plainly that there is no bound."""
+    from linkage.models.registry import load_whatif, save
+    from linkage.synthetic import spec_toml
+
+    models_dir = tmp_path / "models"
+    save(old_chain, models_dir)
+    assert load_whatif(models_dir).bootstrap is None
+    spec_path = tmp_path / "spec.toml"
+    spec_path.write_text(spec_toml(WINDOW_SPEC), encoding="utf-8")
+    runner = CliRunner()
+    common = ["--spec", str(spec_path), "--models-dir", str(models_dir), "--store", str(tmp_path / "none.db")]
+    r = runner.invoke(cli, ["predict", "--set", "ribbon_porosity=0.3", *common, "--json"], catch_exceptions=False)
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert d["p_pass_all_bound"]["low"] is None and "no lower bound" in d["p_pass_all_bound"]["reason"]
+    r = runner.invoke(cli, ["window", *common, "--draws", "300"], catch_exceptions=False)
+    assert r.exit_code == 0, r.output
+    assert "!! no lower bound on the probability is available" in r.stdout
+    assert "(not promised)" in r.stdout
