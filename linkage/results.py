@@ -255,10 +255,10 @@ def window_text(result: WindowResult) -> str:
     every = every_spec_text(d["not_modelled"])
     bound = d.get("bound") or {}
     has_bound = bool(bound.get("available"))
-    what = (f"the chance that a lot meets {every} together is at least {d['confidence']:.0%} with "
+    what = (f"the chance that {every} passes together for a lot is at least {d['confidence']:.0%} with "
             f"{d['assurance']:.0%} assurance (lower bound over {bound.get('n_replicates')} lot-level bootstrap "
             "replicates of the chain)") if has_bound else \
-        f"the point estimate of the chance that a lot meets {every} together reaches {d['confidence']:.0%}"
+        f"the point estimate of the chance that {every} passes together for a lot reaches {d['confidence']:.0%}"
     lines = [f"Model {d['model_id']}; window where {what}"
              + (f" ({', '.join(d['not_modelled'])}: not predicted from porosity by this model, not judged)"
                 if d["not_modelled"] else "") + ".",
