@@ -400,8 +400,6 @@ def with_unit_level(low: np.ndarray, lot_level_point: np.ndarray, unit_level_poi
     ratio of the Monte Carlo probability with units (``unit_level_point``) to the lot-level one
     (``lot_level_point``), capped at 1. The estimation uncertainty of the within-lot spread model
     is not carried into the bound: a stated approximation, not a proof."""
-    low = np.asarray(low, dtype=float)
-    lot = np.asarray(lot_level_point, dtype=float)
-    units = np.asarray(unit_level_point, dtype=float)
+    low, lot, units = (np.array(a, dtype=float) for a in np.broadcast_arrays(low, lot_level_point, unit_level_point))
     ratio = np.divide(units, lot, out=np.zeros_like(units), where=lot > 0)
     return np.minimum(low * np.clip(ratio, 0.0, 1.0), units)
