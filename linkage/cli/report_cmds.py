@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from linkage.cli.common import handle_errors, models_dir_option, store_option
+from linkage.cli.common import check_output, handle_errors, models_dir_option, store_option
 
 
 @click.command()
@@ -39,6 +39,8 @@ def report(model_id, spec_path, out_path, confidence, seed, store, models_dir):
     """
     from linkage.api import report as write_report
 
+    if out_path is not None:
+        check_output(out_path)
     spec = None
     if spec_path is not None:
         from linkage.spec import read_spec
