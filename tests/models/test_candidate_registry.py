@@ -75,5 +75,32 @@ def test_every_candidate_refuses_nan_at_fit_and_use_before_fit(name):
     with pytest.raises(ValueError, match=rf"{cls.__name__}\.fit: .*NaN.*X row 3, column 1.*do not impute"):
         est.fit(X_nan, y)
     est.fit(X, y)
-    with pytest.raises(ValueError, match="fitted on 2 inputs"):
+    with pytest.raises(ValueError, match=rf"X has 1 features, but {cls.__name__} is expecting 2 features"):
         est.predict(X[:, :1])
+    X_nan[3, 1] = np.inf
+    with pytest.raises(ValueError, match=rf"{cls.__name__}: the inputs contain NaN or infinite values \(X row 3, "
+                                         r"column 1\); a prediction needs every input"):
+        est.predict(X_nan)
+
+
+@pytest.mark.parametrize("name", list(SIMPLICITY_ORDER))
+def test_every_candidate_records_and_checks_feature_names(name):
+    """scikit-learn's contract for column names (validate_data): a DataFrame
+    at fit sets feature_names_in_; other names at predict are refused; an
+    array at fit sets none. The predictions are the same floats either way
+    (the array in the frame's own memory layout: PLS's floats depend on it
+    in the last bit, as they did before validate_data)."""
+    import pandas as pd
+
+    cls = CANDIDATES[name]
+    rng = np.random.default_rng(2)
+    X = np.column_stack([rng.uniform(0.1, 0.4, 16), rng.normal(size=16)])
+    y = 5 * np.exp(-4 * X[:, 0]) + rng.normal(0, 0.01, 16)
+    frame = pd.DataFrame(X, columns=["ribbon_porosity", "roll_gap_mm"])
+    build = lambda: cls.build(cls.grid(16, 2)[0], ["ribbon_porosity", "roll_gap_mm"], n=16)  # noqa: E731
+    by_name, by_array = build().fit(frame, y), build().fit(frame.to_numpy(), y)
+    assert list(by_name.feature_names_in_) == ["ribbon_porosity", "roll_gap_mm"] and by_name.n_features_in_ == 2
+    assert not hasattr(by_array, "feature_names_in_") and by_array.n_features_in_ == 2
+    assert np.array_equal(by_name.predict(frame), by_array.predict(frame.to_numpy()))
+    with pytest.raises(ValueError, match="feature names"):
+        by_name.predict(frame[["roll_gap_mm", "ribbon_porosity"]])
