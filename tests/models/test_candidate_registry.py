@@ -104,3 +104,27 @@ def test_every_candidate_records_and_checks_feature_names(name):
     assert np.array_equal(by_name.predict(frame), by_array.predict(frame.to_numpy()))
     with pytest.raises(ValueError, match="feature names"):
         by_name.predict(frame[["roll_gap_mm", "ribbon_porosity"]])
+
+
+@pytest.mark.parametrize("name", list(SIMPLICITY_ORDER))
+def test_the_short_path_for_float_arrays_does_what_validate_data_does(name):
+    """Reference: scikit-learn's own ``validate_data`` (the estimator's
+    ``_validate_data`` at scikit-learn 1.5). For the float64 arrays training
+    passes, the candidates' short path must give the same array, the same
+    ``n_features_in_`` and the same refusal of another input count."""
+    from linkage.models.candidates import _sklearn_validate_data, validate_inputs
+
+    cls = CANDIDATES[name]
+    X = np.random.default_rng(3).uniform(0.1, 0.4, (10, 3))
+    ours, theirs = cls(), cls()
+    out_ours = validate_inputs(ours, X, reset=True)
+    out_theirs = _sklearn_validate_data(theirs, X, reset=True, dtype=np.float64)
+    assert out_ours is X and np.shares_memory(out_theirs, X) and np.array_equal(out_ours, out_theirs)
+    assert ours.n_features_in_ == theirs.n_features_in_ == 3
+    assert not hasattr(ours, "feature_names_in_") and not hasattr(theirs, "feature_names_in_")
+    for bad in (X[:, :2], np.hstack([X, X])):
+        with pytest.raises(ValueError) as mine:
+            validate_inputs(ours, bad, reset=False)
+        with pytest.raises(ValueError) as reference:
+            _sklearn_validate_data(theirs, bad, reset=False, dtype=np.float64)
+        assert str(mine.value) == str(reference.value)
