@@ -48,7 +48,7 @@ def test_the_readme_and_developers_notes_state_every_code():
 
 # --- code 2: --store names no lot store --------------------------------------------------------------------------
 @pytest.mark.parametrize("command", [
-    ["lots"], ["history", "EX-001"], ["assemble"], ["audit"], ["train", "--models-dir", "MODELS"],
+    ["lots"], ["history", "EX-001"], ["assemble"], ["audit"], ["verify"], ["train", "--models-dir", "MODELS"],
 ])
 def test_a_missing_store_is_usage_exit_2(tmp_path, command):
     store = tmp_path / "none.db"
@@ -84,7 +84,7 @@ def test_ingest_into_a_folder_that_does_not_exist_is_usage_exit_2(tmp_path):
 
 
 # --- code 5: a damaged lot store --------------------------------------------------------------------------------
-@pytest.mark.parametrize("command", [["lots"], ["assemble"], ["train", "--models-dir", "MODELS"]])
+@pytest.mark.parametrize("command", [["lots"], ["assemble"], ["verify"], ["train", "--models-dir", "MODELS"]])
 def test_a_damaged_store_exits_5(tmp_path, command):
     # the 16-byte SQLite header (SQLite file format, section 1.3) followed by bytes that are no database page
     store = tmp_path / "damaged.db"
@@ -132,25 +132,26 @@ def test_demo_into_a_file_is_usage_exit_2(tmp_path):
 
 # --- code 5: the operating system refuses the write ------------------------------------------------------------------
 def test_a_disk_that_refuses_the_write_exits_5(tmp_path, monkeypatch):
-    """A full disk, simulated: the CSV writer raises the OSError the
-    operating system gives (errno 28, ENOSPC). The message names the file
-    and the reason; no traceback."""
+    """A full disk, simulated: flushing the written table to disk raises the
+    OSError the operating system gives (errno 28, ENOSPC; POSIX fsync(2)).
+    The message names the file and the reason; nothing is left behind; no
+    traceback."""
     if not TEMPLATE.is_dir():
         pytest.fail(f"the template example is missing from the repository: {TEMPLATE}")
     import errno
     import os
 
-    import pandas as pd
-
     store = tmp_path / "s.db"
     assert run("ingest", TEMPLATE, "--store", store).exit_code == 0
+    before = sorted(p.name for p in tmp_path.iterdir())
     out = tmp_path / "table.csv"
 
-    def full(self, path, *args, **kwargs):
-        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), str(path))
+    def full(fd):
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
 
-    monkeypatch.setattr(pd.DataFrame, "to_csv", full)
+    monkeypatch.setattr(os, "fsync", full)
     r = run("assemble", "--store", store, "--out", out)
     assert r.exit_code == 5, r.output
     assert f"Error: cannot read or write {out}: {os.strerror(errno.ENOSPC)}" in r.stderr
     assert "Traceback" not in r.output
+    assert sorted(p.name for p in tmp_path.iterdir()) == before  # no table, no temporary file
