@@ -67,14 +67,13 @@ tuning it.
 
 from __future__ import annotations
 
+import inspect
 import math
 import warnings
 import weakref
 from abc import ABCMeta, abstractmethod
 from dataclasses import dataclass
 from typing import ClassVar
-
-import inspect
 
 import numpy as np
 from sklearn.base import BaseEstimator, RegressorMixin
