@@ -1016,7 +1016,8 @@ class LotStore:
                    *(f"{t}_{what}" for t in TABLES for what in ("rows", "filled_pct"))]
         df = pd.DataFrame(list(records.values()), columns=columns)
         df["lot"] = df["lot"].astype("str")
-        df["product"] = df["product"].astype("str")
+        # a lot without a product stays missing: pandas before 3 turns None into the text "None" under astype(str)
+        df["product"] = df["product"].astype("str").where(df["product"].notna())
         for t in TABLES:
             df[f"{t}_rows"] = df[f"{t}_rows"].astype("int64")
             df[f"{t}_filled_pct"] = df[f"{t}_filled_pct"].astype("float64")
