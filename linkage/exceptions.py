@@ -10,6 +10,25 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 
+#: The exit codes of the ``linkage`` command, documented in README.md
+#: ("Exit codes") and DEVELOPERS.md; ``tests/test_cli_exit_codes.py`` checks
+#: each against a command that ends with it.
+EXIT_CODES: dict[int, str] = {
+    0: "success",
+    1: "an unexpected error: a bug in linkage (the traceback is printed; please report it)",
+    2: "bad input or usage: every problem listed, nothing written (this includes a --store that names no "
+       "lot store, no trained model, and an output path whose folder cannot be made)",
+    3: "store busy: another process held the lot store's write lock for more than 10 s",
+    4: "a model file failed its integrity check",
+    5: "a file could not be read or written: the lot store is damaged, or the operating system refused a "
+       "read or a write (disk full, permissions, a folder that cannot be created)",
+    6: "the lot store failed its integrity check: a record changed, removed or added behind linkage's back",
+}
+
+#: exit code when the operating system refuses a read or write (an ``OSError``)
+IO_EXIT_CODE = 5
+
+
 class LinkageError(Exception):
     """Base class of every error linkage raises on purpose."""
 
@@ -77,7 +96,18 @@ class StoreBusyError(LinkageError, RuntimeError):
 
 
 class StoreError(LinkageError, RuntimeError):
-    """The lot store cannot be opened or is not a linkage store."""
+    """The lot store cannot be read or written: SQLite reports it damaged,
+    or refuses to open it. Exit code 5."""
+
+    exit_code = IO_EXIT_CODE
+
+
+class StorePathError(StoreError):
+    """``--store`` names no lot store this linkage can use: no file there (a
+    command that only reads), a folder, another kind of file, a store written
+    by a newer linkage, or a folder that does not exist. Exit code 2."""
+
+    exit_code = 2
 
 
 class StoreIntegrityError(StoreError):

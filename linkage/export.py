@@ -55,9 +55,11 @@ def write_atomic(path, data: bytes) -> Path:
             fh.flush()
             os.fsync(fh.fileno())
         os.replace(tmp, path)
-    except BaseException:
+    except BaseException as exc:
         with contextlib.suppress(OSError):
             os.unlink(tmp)
+        if isinstance(exc, OSError) and exc.filename is None:  # a refused write or fsync: name the file
+            raise OSError(exc.errno, exc.strerror or str(exc), str(path)) from exc
         raise
     return path
 

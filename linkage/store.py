@@ -49,7 +49,8 @@ from typing import TYPE_CHECKING, Iterator
 
 from linkage import plausible as _plausible
 from linkage import seal as _seal
-from linkage.exceptions import InputError, StoreBusyError, StoreError, StoreIntegrityError, UsageError
+from linkage.exceptions import (InputError, StoreBusyError, StoreError, StoreIntegrityError, StorePathError,
+                                 UsageError)
 from linkage.schema import DATETIME, NUMBER, TABLES, TEXT
 
 if TYPE_CHECKING:
@@ -518,17 +519,17 @@ class LotStore:
         self.path = Path(path)
         self.busy_timeout_s = busy_timeout_s
         if self.path.is_dir():
-            raise StoreError(f"{self.path} is a folder, not a lot store file")
+            raise StorePathError(f"{self.path} is a folder, not a lot store file")
         exists = self.path.exists() and self.path.stat().st_size > 0
         if not exists and not create:
-            raise StoreError(f"no lot store at {self.path}; run `linkage ingest FOLDER` first, or point --store "
+            raise StorePathError(f"no lot store at {self.path}; run `linkage ingest FOLDER` first, or point --store "
                              "(or LINKAGE_STORE) at the store")
         if not exists and not self.path.parent.is_dir():
-            raise StoreError(f"cannot create the lot store {self.path}: folder {self.path.parent} does not exist")
+            raise StorePathError(f"cannot create the lot store {self.path}: folder {self.path.parent} does not exist")
         if exists:
             with open(self.path, "rb") as fh:
                 if fh.read(16) != b"SQLite format 3\x00":
-                    raise StoreError(f"{self.path} is not a SQLite file, so not a lot store")
+                    raise StorePathError(f"{self.path} is not a SQLite file, so not a lot store")
         #: a store on a read-only file system (or a file this account cannot write) is opened for reading only:
         #: immutable, so SQLite neither writes its -shm file nor expects another writer (sqlite.org, "URI
         #: filenames": immutable=1); every command that only reads works, and a write is refused clearly
@@ -567,14 +568,14 @@ class LotStore:
             except sqlite3.DatabaseError as exc:
                 raise self._error(exc) from None
             if version is None or version > SCHEMA_VERSION:
-                raise StoreError(f"{self.path} was written by a newer linkage (store schema {version}; "
+                raise StorePathError(f"{self.path} was written by a newer linkage (store schema {version}; "
                                  f"this version reads {SCHEMA_VERSION})")
         elif app_id == 0 and not names:
             self._create()
             version = SCHEMA_VERSION
         else:
             shown = ", ".join(names[:6]) or "none"
-            raise StoreError(f"{self.path} is an SQLite file but not a linkage lot store (tables: {shown})")
+            raise StorePathError(f"{self.path} is an SQLite file but not a linkage lot store (tables: {shown})")
         if self.read_only:
             if version < 2:
                 raise StoreError(f"{self.path} was written by an earlier linkage (store schema {version}) and is "
@@ -1015,7 +1016,8 @@ class LotStore:
                    *(f"{t}_{what}" for t in TABLES for what in ("rows", "filled_pct"))]
         df = pd.DataFrame(list(records.values()), columns=columns)
         df["lot"] = df["lot"].astype("str")
-        df["product"] = df["product"].astype("str")
+        # a lot without a product stays missing: pandas before 3 turns None into the text "None" under astype(str)
+        df["product"] = df["product"].astype("str").where(df["product"].notna())
         for t in TABLES:
             df[f"{t}_rows"] = df[f"{t}_rows"].astype("int64")
             df[f"{t}_filled_pct"] = df[f"{t}_filled_pct"].astype("float64")

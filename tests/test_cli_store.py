@@ -1,7 +1,8 @@
 """The store commands through the command line: exit codes, messages, output.
 
 Exit codes are the project's contract (linkage/exceptions.py): 0 success,
-1 store error, 2 bad input, 3 store busy.
+2 bad input or usage (a --store that names no lot store included), 3 store busy,
+5 a damaged lot store (tests/test_cli_exit_codes.py covers every code).
 """
 
 from __future__ import annotations
@@ -127,12 +128,12 @@ def test_history(lab, tmp_path):
 
 def test_commands_on_a_missing_or_foreign_store(tmp_path):
     result = run("lots", "--store", tmp_path / "none.db")
-    assert result.exit_code == 1 and "no lot store at" in result.stderr
+    assert result.exit_code == 2 and "no lot store at" in result.stderr
     assert not (tmp_path / "none.db").exists()
     foreign = tmp_path / "foreign.db"
     foreign.write_text("not a database")
     result = run("history", "A", "--store", foreign)
-    assert result.exit_code == 1 and "not a SQLite file" in result.stderr
+    assert result.exit_code == 2 and "not a SQLite file" in result.stderr
 
 
 def test_assemble(lab, tmp_path):

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import click
 
-from linkage.exceptions import LinkageError, LinkageWarning
+from linkage.exceptions import IO_EXIT_CODE, LinkageError, LinkageWarning, UsageError
 
 STORE_ENV = "LINKAGE_STORE"
 MODELS_ENV = "LINKAGE_MODELS_DIR"
@@ -76,7 +76,11 @@ def json_option(f):
 
 
 def handle_errors(f):
-    """Turn a LinkageError into its message on stderr and its exit code."""
+    """Turn a LinkageError into its message on stderr and its exit code, and
+    an OSError (the operating system refused a read or a write: disk full,
+    permissions, a folder that cannot be made) into its file, its reason and
+    exit code 5 (:data:`linkage.exceptions.EXIT_CODES`). Anything else is a
+    bug and keeps its traceback (exit code 1)."""
 
     @functools.wraps(f)
     def wrapper(*args, **kwargs):
@@ -88,6 +92,11 @@ def handle_errors(f):
         except LinkageError as exc:
             click.echo(f"Error: {exc}", err=True)
             raise SystemExit(exc.exit_code) from None
+        except OSError as exc:
+            what = f" {exc.filename}" if exc.filename is not None else ""
+            reason = exc.strerror or str(exc)
+            click.echo(f"Error: cannot read or write{what}: {reason}", err=True)
+            raise SystemExit(IO_EXIT_CODE) from None
         finally:  # a linkage warning is one plain line on stderr; any other is shown as Python shows it
             for w in caught:
                 if issubclass(w.category, LinkageWarning):
@@ -96,6 +105,27 @@ def handle_errors(f):
                     warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
 
     return wrapper
+
+
+def check_output(path: Path, *, folder: bool = False) -> None:
+    """Refuse, before any work, an output path that cannot be written: a
+    component of it that is a file, an existing folder where a file is
+    wanted (or the reverse), or a nearest existing folder that is not
+    writable. Raises :class:`~linkage.exceptions.UsageError` (exit code 2)."""
+    path = Path(path)
+    what = "output folder" if folder else "output file"
+    if path.exists():
+        if folder and not path.is_dir():
+            raise UsageError(f"{what} {path} is a file, not a folder; nothing was written")
+        if not folder and path.is_dir():
+            raise UsageError(f"{what} {path} is a folder; give a file name; nothing was written")
+    parent = path if folder else path.parent
+    while not parent.exists() and parent != parent.parent:
+        parent = parent.parent
+    if parent.exists() and not parent.is_dir():
+        raise UsageError(f"cannot write the {what} {path}: {parent} is a file, not a folder; nothing was written")
+    if not os.access(parent, os.W_OK | os.X_OK):
+        raise UsageError(f"cannot write the {what} {path}: folder {parent} is not writable; nothing was written")
 
 
 class FiniteFloat(click.FloatRange):

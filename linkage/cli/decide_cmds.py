@@ -7,7 +7,8 @@ from pathlib import Path
 
 import click
 
-from linkage.cli.common import PROBABILITY, handle_errors, json_option, models_dir_option, store_option
+from linkage.cli.common import (PROBABILITY, check_output, handle_errors, json_option, models_dir_option,
+                                store_option)
 from linkage.jsonable import jsonable
 from linkage.results import whatif_text, window_text
 
@@ -109,6 +110,8 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, p
     from linkage.decide.whatif import parse_assignments
     from linkage.exceptions import UsageError
 
+    if html_path is not None:
+        check_output(html_path)
     spec = None
     if spec_path is not None:
         from linkage.spec import read_spec

@@ -7,7 +7,7 @@ from pathlib import Path
 import click
 
 from linkage import CAUTION
-from linkage.cli.common import handle_errors, progress_bars
+from linkage.cli.common import check_output, handle_errors, progress_bars
 
 
 @click.command()
@@ -26,6 +26,7 @@ def demo(out):
     """
     from linkage.demo import run_demo
 
+    check_output(out, folder=True)
     with progress_bars() as progress:
         result = run_demo(out, step=lambda m: click.echo(f"- {m}", err=True), progress=progress)
     click.echo("")

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from linkage.cli.common import PROBABILITY, handle_errors, models_dir_option, store_option
+from linkage.cli.common import PROBABILITY, check_output, handle_errors, models_dir_option, store_option
 
 
 @click.command()
@@ -41,6 +41,8 @@ def report(model_id, spec_path, out_path, confidence, seed, assurance, store, mo
     """
     from linkage.api import report as write_report
 
+    if out_path is not None:
+        check_output(out_path)
     spec = None
     if spec_path is not None:
         from linkage.spec import read_spec

@@ -8,7 +8,8 @@ from pathlib import Path
 
 import click
 
-from linkage.cli.common import FiniteFloat, handle_errors, json_option, models_dir_option, store_option
+from linkage.cli.common import (FiniteFloat, check_output, handle_errors, json_option, models_dir_option,
+                                store_option)
 from linkage.results import _rows
 from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
 
@@ -147,6 +148,8 @@ def assemble(store, out, product, fines_cutoff_um, spec_path):
     from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN
     from linkage.spec import read_spec
 
+    if out is not None:
+        check_output(out)
     spec = read_spec(spec_path) if spec_path is not None else None
     table = assemble_lots(store, product=product, spec=spec, fines_cutoff_um=fines_cutoff_um)
     time_min = table.attrs.get("dissolution_time_min", DEFAULT_DISSOLUTION_TIME_MIN)

@@ -75,5 +75,56 @@ def test_every_candidate_refuses_nan_at_fit_and_use_before_fit(name):
     with pytest.raises(ValueError, match=rf"{cls.__name__}\.fit: .*NaN.*X row 3, column 1.*do not impute"):
         est.fit(X_nan, y)
     est.fit(X, y)
-    with pytest.raises(ValueError, match="fitted on 2 inputs"):
+    with pytest.raises(ValueError, match=rf"X has 1 features, but {cls.__name__} is expecting 2 features"):
         est.predict(X[:, :1])
+    X_nan[3, 1] = np.inf
+    with pytest.raises(ValueError, match=rf"{cls.__name__}: the inputs contain NaN or infinite values \(X row 3, "
+                                         r"column 1\); a prediction needs every input"):
+        est.predict(X_nan)
+
+
+@pytest.mark.parametrize("name", list(SIMPLICITY_ORDER))
+def test_every_candidate_records_and_checks_feature_names(name):
+    """scikit-learn's contract for column names (validate_data): a DataFrame
+    at fit sets feature_names_in_; other names at predict are refused; an
+    array at fit sets none. The predictions are the same floats either way
+    (the array in the frame's own memory layout: PLS's floats depend on it
+    in the last bit, as they did before validate_data)."""
+    import pandas as pd
+
+    cls = CANDIDATES[name]
+    rng = np.random.default_rng(2)
+    X = np.column_stack([rng.uniform(0.1, 0.4, 16), rng.normal(size=16)])
+    y = 5 * np.exp(-4 * X[:, 0]) + rng.normal(0, 0.01, 16)
+    frame = pd.DataFrame(X, columns=["ribbon_porosity", "roll_gap_mm"])
+    build = lambda: cls.build(cls.grid(16, 2)[0], ["ribbon_porosity", "roll_gap_mm"], n=16)  # noqa: E731
+    by_name, by_array = build().fit(frame, y), build().fit(frame.to_numpy(), y)
+    assert list(by_name.feature_names_in_) == ["ribbon_porosity", "roll_gap_mm"] and by_name.n_features_in_ == 2
+    assert not hasattr(by_array, "feature_names_in_") and by_array.n_features_in_ == 2
+    assert np.array_equal(by_name.predict(frame), by_array.predict(frame.to_numpy()))
+    with pytest.raises(ValueError, match="feature names"):
+        by_name.predict(frame[["roll_gap_mm", "ribbon_porosity"]])
+
+
+@pytest.mark.parametrize("name", list(SIMPLICITY_ORDER))
+def test_the_short_path_for_float_arrays_does_what_validate_data_does(name):
+    """Reference: scikit-learn's own ``validate_data`` (the estimator's
+    ``_validate_data`` at scikit-learn 1.5). For the float64 arrays training
+    passes, the candidates' short path must give the same array, the same
+    ``n_features_in_`` and the same refusal of another input count."""
+    from linkage.models.candidates import _sklearn_validate_data, validate_inputs
+
+    cls = CANDIDATES[name]
+    X = np.random.default_rng(3).uniform(0.1, 0.4, (10, 3))
+    ours, theirs = cls(), cls()
+    out_ours = validate_inputs(ours, X, reset=True)
+    out_theirs = _sklearn_validate_data(theirs, X, reset=True, dtype=np.float64)
+    assert out_ours is X and np.shares_memory(out_theirs, X) and np.array_equal(out_ours, out_theirs)
+    assert ours.n_features_in_ == theirs.n_features_in_ == 3
+    assert not hasattr(ours, "feature_names_in_") and not hasattr(theirs, "feature_names_in_")
+    for bad in (X[:, :2], np.hstack([X, X])):
+        with pytest.raises(ValueError) as mine:
+            validate_inputs(ours, bad, reset=False)
+        with pytest.raises(ValueError) as reference:
+            _sklearn_validate_data(theirs, bad, reset=False, dtype=np.float64)
+        assert str(mine.value) == str(reference.value)

@@ -212,7 +212,7 @@ def test_sigkill_first_ingest_into_a_new_store(tmp_path, counts):
                 ok, fk = integrity(store)
                 assert ok == "ok" and fk == []
             else:
-                assert listing.exit_code == 1 and "no lot store" in listing.stderr, listing.output
+                assert listing.exit_code == 2 and "no lot store" in listing.stderr, listing.output
                 if store.exists() and store.stat().st_size == 0:
                     counts["  of which left an empty store file (see #15)"] += 1
                     if 15 in OPEN_FINDINGS:

@@ -62,7 +62,7 @@ def test_report_without_a_store_says_where_it_looked(site, tmp_path):
     root, _ = site
     result = CliRunner().invoke(cli, ["report", "--store", str(tmp_path / "none.db"), "--models-dir",
                                       str(root / "models"), "--out", str(tmp_path / "r.html")])
-    assert result.exit_code == 1
+    assert result.exit_code == 2  # --store names no lot store: usage (linkage.exceptions.EXIT_CODES)
     assert f"no lot store at {tmp_path / 'none.db'}" in result.output
     assert not (tmp_path / "r.html").exists()
 

@@ -1,0 +1,157 @@
+"""Every error a user can cause ends with a documented exit code and a message.
+
+The codes are the project's contract: ``linkage.exceptions.EXIT_CODES``,
+stated in README.md ("Exit codes") and DEVELOPERS.md. Here each command is
+called the way a user gets it wrong (no lot store, a store that is a folder
+or another kind of file, a damaged store, no model, an output path that
+cannot be written, a disk that refuses the write) and the exit code, the
+message and "nothing written" are checked. Codes 3 (store busy) and 4 (model
+integrity) are checked where they are made: tests/reliability/
+test_concurrency.py and test_artifacts.py.
+"""
+
+from __future__ import annotations
+
+import re
+import sqlite3
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from linkage.cli.main import cli
+from linkage.exceptions import EXIT_CODES
+
+ROOT = Path(__file__).resolve().parents[1]
+SPEC = ROOT / "data_demo" / "lots" / "spec.toml"
+#: the template example (four invented lots), kept in the repository
+TEMPLATE = ROOT / "tests" / "data" / "template-example"
+
+
+def run(*args):
+    result = CliRunner().invoke(cli, [str(a) for a in args], env={"LINKAGE_STORE": None,
+                                                                  "LINKAGE_MODELS_DIR": None})
+    if result.exception is not None and not isinstance(result.exception, SystemExit):
+        raise result.exception  # a traceback is a bug (exit code 1), never a user's error
+    return result
+
+
+def test_the_readme_and_developers_notes_state_every_code():
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    line = next(x for x in readme.splitlines() if x.startswith("Exit codes:"))
+    stated = {int(c) for c in re.findall(r"(?:^|[;:] )(\d) ", line)}
+    assert stated == set(EXIT_CODES), line
+    developers = (ROOT / "DEVELOPERS.md").read_text(encoding="utf-8")
+    for code in EXIT_CODES:
+        assert f"`{code}`" in developers, f"exit code {code} is not in DEVELOPERS.md"
+
+
+# --- code 2: --store names no lot store --------------------------------------------------------------------------
+@pytest.mark.parametrize("command", [
+    ["lots"], ["history", "EX-001"], ["assemble"], ["audit"], ["verify"], ["train", "--models-dir", "MODELS"],
+])
+def test_a_missing_store_is_usage_exit_2(tmp_path, command):
+    store = tmp_path / "none.db"
+    args = [str(tmp_path / "m") if a == "MODELS" else a for a in command]
+    result = run(*args, "--store", store)
+    assert result.exit_code == 2, result.output
+    assert f"no lot store at {store}; run `linkage ingest FOLDER` first" in result.stderr
+    assert not store.exists() and not (tmp_path / "m").exists()  # nothing written
+
+
+def test_a_store_that_is_not_one_is_usage_exit_2(tmp_path):
+    text = tmp_path / "notes.db"
+    text.write_text("not a database")
+    other = tmp_path / "other.db"
+    with sqlite3.connect(other) as con:
+        con.execute("CREATE TABLE samples (x)")
+    r = run("lots", "--store", text)
+    assert r.exit_code == 2 and f"{text} is not a SQLite file, so not a lot store" in r.stderr
+    r = run("lots", "--store", other)
+    assert r.exit_code == 2 and "is an SQLite file but not a linkage lot store (tables: samples)" in r.stderr
+    r = run("lots", "--store", tmp_path)  # a folder: click's own check of the option, also code 2
+    assert r.exit_code == 2 and "is a directory" in r.stderr
+
+
+def test_ingest_into_a_folder_that_does_not_exist_is_usage_exit_2(tmp_path):
+    if not TEMPLATE.is_dir():
+        pytest.fail(f"the template example is missing from the repository: {TEMPLATE}")
+    store = tmp_path / "no" / "such" / "folder" / "s.db"
+    r = run("ingest", TEMPLATE, "--store", store)
+    assert r.exit_code == 2, r.output
+    assert f"cannot create the lot store {store}: folder {store.parent} does not exist" in r.stderr
+    assert not (tmp_path / "no").exists()
+
+
+# --- code 5: a damaged lot store --------------------------------------------------------------------------------
+@pytest.mark.parametrize("command", [["lots"], ["assemble"], ["verify"], ["train", "--models-dir", "MODELS"]])
+def test_a_damaged_store_exits_5(tmp_path, command):
+    # the 16-byte SQLite header (SQLite file format, section 1.3) followed by bytes that are no database page
+    store = tmp_path / "damaged.db"
+    store.write_bytes(b"SQLite format 3\x00" + b"\xff" * 4080)
+    args = [str(tmp_path / "m") if a == "MODELS" else a for a in command]
+    r = run(*args, "--store", store)
+    assert r.exit_code == 5, r.output
+    assert f"lot store {store}: file is not a database" in r.stderr
+    assert not (tmp_path / "m").exists()
+
+
+# --- code 2: no model -------------------------------------------------------------------------------------------
+@pytest.mark.parametrize("command", [
+    ["predict", "--set", "ribbon_porosity=0.3"], ["window", "--spec", SPEC], ["report"], ["watch"], ["retrain"],
+])
+def test_no_model_registry_is_usage_exit_2(tmp_path, command):
+    r = run(*command, "--models-dir", tmp_path / "models", "--store", tmp_path / "s.db")
+    assert r.exit_code == 2, r.output
+    assert f"no model registry at {tmp_path / 'models'}; train a model first ('linkage train')" in r.stderr
+    assert list(tmp_path.iterdir()) == []
+
+
+# --- code 2: an output that cannot be written, refused before any work ---------------------------------------------
+@pytest.mark.parametrize("command, option", [
+    (["report"], "--out"), (["assemble"], "--out"), (["predict", "--set", "ribbon_porosity=0.3"], "--html"),
+])
+def test_an_output_under_a_file_is_usage_exit_2(tmp_path, command, option):
+    blocker = tmp_path / "afile"
+    blocker.write_text("")
+    out = blocker / "out.html"
+    r = run(*command, option, out, "--store", tmp_path / "none.db", *(
+        ["--models-dir", tmp_path / "models"] if command[0] != "assemble" else []))
+    assert r.exit_code == 2, r.output
+    assert f"cannot write the output file {out}: {blocker} is a file, not a folder; nothing was written" in r.stderr
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["afile"]
+
+
+def test_demo_into_a_file_is_usage_exit_2(tmp_path):
+    blocker = tmp_path / "afile"
+    blocker.write_text("")
+    r = run("demo", "--out", blocker / "d")
+    assert r.exit_code == 2, r.output
+    assert f"cannot write the output folder {blocker / 'd'}: {blocker} is a file" in r.stderr
+
+
+# --- code 5: the operating system refuses the write ------------------------------------------------------------------
+def test_a_disk_that_refuses_the_write_exits_5(tmp_path, monkeypatch):
+    """A full disk, simulated: flushing the written table to disk raises the
+    OSError the operating system gives (errno 28, ENOSPC; POSIX fsync(2)).
+    The message names the file and the reason; nothing is left behind; no
+    traceback."""
+    if not TEMPLATE.is_dir():
+        pytest.fail(f"the template example is missing from the repository: {TEMPLATE}")
+    import errno
+    import os
+
+    store = tmp_path / "s.db"
+    assert run("ingest", TEMPLATE, "--store", store).exit_code == 0
+    before = sorted(p.name for p in tmp_path.iterdir())
+    out = tmp_path / "table.csv"
+
+    def full(fd):
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+
+    monkeypatch.setattr(os, "fsync", full)
+    r = run("assemble", "--store", store, "--out", out)
+    assert r.exit_code == 5, r.output
+    assert f"Error: cannot read or write {out}: {os.strerror(errno.ENOSPC)}" in r.stderr
+    assert "Traceback" not in r.output
+    assert sorted(p.name for p in tmp_path.iterdir()) == before  # no table, no temporary file
