@@ -586,7 +586,15 @@ class _LinkLinear(Candidate):
 
         return _link_inputs(X, log_mask)
 
+    @classmethod
+    def response_domain(cls, y) -> str | None:
+        """Why the link cannot take these targets (None when it can)."""
+        return None
+
     def _fit(self, X, y):
+        why = type(self).response_domain(y)
+        if why is not None:
+            raise CandidateError(f"{type(self).__name__}: {why}")
         p = X.shape[1]
         features = list(range(p)) if self.features is None else [int(j) for j in self.features]
         if not features or min(features) < 0 or max(features) >= p:
@@ -639,11 +647,13 @@ class LogLinearRegressor(_LinkLinear):
     link = "log"
 
     @classmethod
+    def response_domain(cls, y) -> str | None:
+        return "the target has values at or below 0; ln y is undefined" if np.any(np.asarray(y) <= 0) else None
+
+    @classmethod
     def not_applicable(cls, inputs, X, y):
         why = super().not_applicable(inputs, X, y)
-        if why is None and np.any(y <= 0):
-            return "the target has values at or below 0; ln y is undefined"
-        return why
+        return why if why is not None else cls.response_domain(y)
 
 
 #: highest value of a percentage target the release form accepts (dissolution
@@ -685,11 +695,16 @@ class WeibullReleaseRegressor(_LinkLinear):
         return np.minimum(y, RELEASE_TOP * y_max)
 
     @classmethod
+    def response_domain(cls, y) -> str | None:
+        y = np.asarray(y)
+        if np.any(y <= 0) or np.any(y > RELEASE_MAX_PCT):
+            return f"the target is not a percentage between 0 (excluded) and {RELEASE_MAX_PCT:g}"
+        return None
+
+    @classmethod
     def not_applicable(cls, inputs, X, y):
         why = super().not_applicable(inputs, X, y)
-        if why is None and (np.any(y <= 0) or np.any(y > RELEASE_MAX_PCT)):
-            return f"the target is not a percentage between 0 (excluded) and {RELEASE_MAX_PCT:g}"
-        return why
+        return why if why is not None else cls.response_domain(y)
 
 
 @register

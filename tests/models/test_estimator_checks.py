@@ -12,9 +12,10 @@ A check that cannot apply to a candidate is in :data:`SKIPS`, keyed by
 (candidate, check name), with the reason and the message the check fails
 with. The test still runs each skipped check and skips it only when it fails
 with that message, so a skip that is no longer needed, or a check that
-starts failing for another reason, fails here. The one reason today: the
+starts failing for another reason, fails here. The reasons today: the
 Ryshkewitch–Duckworth baseline is a physical law on porosity fractions, and
-the checks' generated data are not. Its contract on data inside its domain
+the checks' generated data are not; the log and Weibull link candidates take
+positive targets (percentages for the Weibull one), and the checks' are not. Its contract on data inside its domain
 is checked below (:func:`test_rd_baseline_keeps_the_contract_on_porosity_data`).
 (Ryshkewitch 1953 and Duckworth 1953: citation details from memory, see
 references.md §2.)
@@ -31,7 +32,7 @@ from sklearn.base import clone
 from sklearn.exceptions import NotFittedError
 from sklearn.utils.estimator_checks import parametrize_with_checks
 
-from linkage.models.candidates import CANDIDATES, RDRegressor
+from linkage.models.candidates import CANDIDATES, LogLinearRegressor, RDRegressor, WeibullReleaseRegressor
 
 #: why the Ryshkewitch–Duckworth candidate cannot take the checks' data, and the message that shows it
 RD_DOMAIN = (
@@ -45,6 +46,15 @@ RD_DOMAIN_TAG = (
     "the check passes negative inputs and expects an estimator that refuses them to be tagged positive-only; "
     "this one also refuses porosities above 1, which no scikit-learn tag states (see the reason above)",
     r"raised CandidateError unexpectedly",
+)
+
+#: why the physics-shaped link candidates cannot take the checks' targets, and the message that shows it
+LINK_DOMAIN = (
+    "the check's generated targets include values at or below 0 (and above 150): ln y (log_linear, the "
+    "Ryshkewitch-Duckworth and power-law form) and ln(-ln(1 - y/100)) (weibull_release, Langenbucher 1972) are "
+    "undefined there, and the fit refuses them, as training's applicability rule does before any fit; their "
+    "contract on targets inside the domain is checked below",
+    r"ln y is undefined|not a percentage between 0",
 )
 
 #: scikit-learn skips this check itself unless SCIPY_ARRAY_API=1 is set before scipy is imported (and an
@@ -82,6 +92,34 @@ SKIPS: dict[tuple[str, str], tuple[str, str]] = {
         "check_regressors_train",
     ]},
     ("rd_baseline", "check_positive_only_tag_during_fit"): RD_DOMAIN_TAG,
+    **{(name, check): LINK_DOMAIN for name in ("log_linear", "weibull_release") for check in [
+        "check_dict_unchanged",
+        "check_dont_overwrite_parameters",
+        "check_dtype_object",
+        "check_estimators_fit_returns_self",
+        "check_estimators_nan_inf",
+        "check_estimators_overwrite_params",
+        "check_estimators_pickle",
+        "check_f_contiguous_array_estimator",
+        "check_fit2d_predict1d",
+        "check_fit_check_is_fitted",
+        "check_fit_idempotent",
+        "check_fit_score_takes_y",
+        "check_methods_sample_order_invariance",
+        "check_methods_subset_invariance",
+        "check_n_features_in",
+        "check_n_features_in_after_fitting",
+        "check_pipeline_consistency",
+        "check_positive_only_tag_during_fit",
+        "check_readonly_memmap_input",
+        "check_regressor_data_not_an_array",
+        "check_regressors_int",
+        "check_regressors_no_decision_function",
+        "check_regressors_train",
+        "check_supervised_y_2d",
+    ]},
+    **{(name, "check_positive_only_tag_during_fit"): (LINK_DOMAIN[0], r"raised CandidateError unexpectedly")
+       for name in ("log_linear", "weibull_release")},
 }
 
 
@@ -146,3 +184,30 @@ def test_rd_baseline_keeps_the_contract_on_porosity_data():
     assert np.array_equal(named.predict(frame), pred)
     with pytest.raises(ValueError, match="feature names"):
         named.predict(frame.rename(columns={"roll_gap_mm": "gap"}))
+
+
+@pytest.mark.parametrize("cls, y_of", [
+    (LogLinearRegressor, lambda X, e: 8 * np.exp(-6 * X[:, 0] + 0.1 * X[:, 1]) * np.exp(e)),  # ln y linear
+    (WeibullReleaseRegressor, lambda X, e: 100 * (1 - np.exp(-np.exp(1.0 - 3 * X[:, 0] + e)))),  # cloglog
+])
+def test_link_candidates_keep_the_contract_inside_their_domain(cls, y_of):
+    """What the skipped checks ask, on targets inside the link's domain (positive; a percentage below 150):
+    fit returns self and leaves the parameters; n_features_in_; NotFittedError before fit; clone and pickle
+    give the same floats; row order and subsets do not change predictions; a refit is identical."""
+    rng = np.random.default_rng(5)
+    X = np.column_stack([rng.uniform(0.15, 0.45, 30), rng.normal(size=30)])
+    y = y_of(X, rng.normal(0, 0.02, 30))
+    est = cls()
+    with pytest.raises(NotFittedError):
+        est.predict(X)
+    params = est.get_params()
+    assert est.fit(X, y) is est and est.get_params() == params and est.n_features_in_ == 2
+    pred = est.predict(X)
+    assert np.array_equal(clone(est).fit(X, y).predict(X), pred)
+    assert np.array_equal(pickle.loads(pickle.dumps(est)).predict(X), pred)
+    order = rng.permutation(len(X))
+    assert np.array_equal(est.predict(X[order]), pred[order])
+    assert np.array_equal(np.concatenate([est.predict(X[:7]), est.predict(X[7:])]), pred)
+    assert np.array_equal(est.fit(X, y).predict(X), pred)
+    with pytest.raises(Exception, match="ln y is undefined|not a percentage"):
+        cls().fit(X, -y)
