@@ -54,6 +54,11 @@ JUDGED: dict[str, tuple[str, ...]] = {
                 "friability_pct", "dissolution_pct"),
     "tablet_weights": ("weight_mg",),
 }
+#: columns judged on the lot's median, not row by row: a sieve stack spans decades within one lot (pan to top
+#: sieve), so only the stack as a whole can look like a unit slip (apertures in mm for um)
+JUDGED_BY_LOT: dict[str, tuple[str, ...]] = {"granules": ("sieve_um",)}
+#: every table judged, either way (what the store reads back as history)
+TABLES_JUDGED = frozenset(JUDGED) | frozenset(JUDGED_BY_LOT)
 HISTORY_LOTS = 50
 MIN_HISTORY_LOTS = 10
 #: robust SDs (log scale) beyond which an explained value is refused, and an unexplained one
@@ -110,12 +115,22 @@ def is_unusual(x: float, m: float, s: float, explained: bool) -> bool:
     return d > Z_ANY * s or (explained and d > Z_EXPLAINED * s)
 
 
+def per_lot_rows(df, column: str) -> dict[str, list[dict]]:
+    """The positive values of ``column`` of a table, as rows by lot (what :func:`per_lot_medians` takes)."""
+    out: dict[str, list[dict]] = {}
+    for lot, v in zip(df["lot"].tolist(), df[column].tolist()):
+        if isinstance(v, float) and math.isfinite(v) and v > 0:
+            out.setdefault(lot, []).append({column: v})
+    return out
+
+
 def per_lot_medians(rows_by_lot: dict[str, list[dict]], column: str) -> list[float]:
-    """One value per lot: the median of the lot's rows that have the column."""
+    """One value per lot: the median of the lot's positive values of the column (a log scale has no place for
+    0: the pan of a sieve stack, a friability of 0 %)."""
     out = []
     for rows in rows_by_lot.values():
         values = [r[column] for r in rows if isinstance(r.get(column), (int, float)) and not isinstance(
-            r.get(column), bool)]
+            r.get(column), bool) and r[column] > 0]
         if values:
             out.append(float(median(values)))
     return out
@@ -136,7 +151,7 @@ def unusual_values(ingest, history: dict[str, dict[str | None, dict[str, list[di
     if process is not None and "roll_width_mm" in process:
         widths = {lot: w for lot, w in zip(process["lot"].tolist(), process["roll_width_mm"].tolist())
                   if isinstance(w, float) and math.isfinite(w)}
-    for table, columns in JUDGED.items():
+    for table, columns in [*JUDGED.items(), *JUDGED_BY_LOT.items()]:
         df = ingest.tables.get(table)
         if df is None or len(df) == 0:
             continue
@@ -146,7 +161,17 @@ def unusual_values(ingest, history: dict[str, dict[str | None, dict[str, list[di
         for column in columns:
             if column not in df:
                 continue
-            for k, (lot, x) in enumerate(zip(lots, df[column].tolist())):
+            values = df[column].tolist()
+            if table in JUDGED_BY_LOT:  # one value a lot, its median, shown at the lot's first row
+                by_lot = per_lot_rows(df, column)
+                firsts = {}
+                for k, lot in enumerate(lots):
+                    firsts.setdefault(lot, k)
+                medians = per_lot_medians(by_lot, column)
+                pairs = [(firsts[lot], lot, m) for lot, m in zip(by_lot, medians)]
+            else:
+                pairs = [(k, lot, x) for k, (lot, x) in enumerate(zip(lots, values))]
+            for k, lot, x in pairs:
                 if not isinstance(x, float) or not math.isfinite(x):
                     continue
                 product = product_of.get(lot)

@@ -830,7 +830,7 @@ class LotStore:
                     continue
                 taken[product] += 1
                 for tbl, (tid, _) in links[lot]["tables"].items():
-                    if tbl in _plausible.JUDGED:
+                    if tbl in _plausible.TABLES_JUDGED:
                         wanted[tid] = (tbl, lot, product)
             if len(batch) < n + len(exclude):
                 break  # the oldest lot was reached

@@ -121,3 +121,22 @@ def test_a_small_value_of_a_widely_spread_attribute_is_not_explained_by_a_slip()
     assert likely_mistake(0.07, m, s, "friability_pct") is None
     assert not is_unusual(0.07, m, s, explained=False)
     assert likely_mistake(0.0285, m, s, "friability_pct") is not None  # a true factor of ten still is
+
+
+def test_sieve_apertures_in_mm_are_refused_as_a_stack(tmp_path, counts):
+    """A sieve stack written in mm (1.4, 1.0, ..., 0 for the pan) for one lot: judged on the lot's median
+    aperture, a thousand times too small; a normal stack, spanning the pan to 1400 um, passes."""
+    def in_mm(stem, header, row):
+        if stem != "granules":
+            return row
+        cells = row.split(",")
+        k = header.split(",").index("sieve_um")
+        cells[k] = f"{float(cells[k]) / 1000:g}"
+        return ",".join(cells)
+
+    _, new, store = _history_and_new_lot(tmp_path, in_mm)
+    result = run_cli(["ingest", new, "--store", store])
+    assert result.exit_code == 2 and "granules.csv" in result.stderr and "sieve_um" in result.stderr
+    assert "thousand times too small" in result.stderr
+    counts["fuzz cases tried"] += 1
+    counts["files refused"] += 1
