@@ -291,8 +291,11 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         for n in bounded:
             predictions[n]["p_pass_low"] = None if low_each is None else float(low_each[n][0])
             predictions[n]["p_pass_point"] = float(cp.p_each[n][0])
-        if compendial.ACCEPTANCE_VALUE in predictions:  # P(AV) >= P(all): the bound of P(all) bounds it too
-            predictions[compendial.ACCEPTANCE_VALUE]["p_pass_low"] = p_all_low
+        if compendial.ACCEPTANCE_VALUE in predictions and p_all_low is not None:  # scaled as P(all)'s bound
+            point_all = float(pass_all.mean())
+            scale = min(1.0, p_all_low / point_all) if point_all > 0 else 0.0
+            predictions[compendial.ACCEPTANCE_VALUE]["p_pass_low"] = predictions[compendial.ACCEPTANCE_VALUE][
+                "p_pass"] * scale
 
     inputs = {k: {"value": float(filled[k]), "source": source[k]} for k in filled}
     judged_attributes = [a for a in spec_limits if a in predictions]

@@ -243,8 +243,9 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         p_all_low = with_unit_level(p_all_low, chain_p.p_all, p_all)
         p_each_low = {a: with_unit_level(p_each_low[a], chain_p.p_each[a], p_each[a])
                       if spec.judge_of(a) == "stages" else p_each_low[a] for a in limited}
-        if compendial.ACCEPTANCE_VALUE in p_each:  # P(AV) >= P(all): the bound of P(all) bounds it too
-            p_each_low[compendial.ACCEPTANCE_VALUE] = np.minimum(p_all_low, p_each[compendial.ACCEPTANCE_VALUE])
+        if compendial.ACCEPTANCE_VALUE in p_each:  # its point estimate scaled as the bound scales P(all)
+            scale = np.clip(np.divide(p_all_low, p_all, out=np.zeros_like(p_all_low), where=p_all > 0), 0.0, 1.0)
+            p_each_low[compendial.ACCEPTANCE_VALUE] = p_each[compendial.ACCEPTANCE_VALUE] * scale
     if p_all_low is not None and POROSITY in spec.limits:
         p_all_low = p_all_low * within(grid, spec.limits[POROSITY])
     point_low, point_high = _widest(grid, p_all, p_each, confidence)
