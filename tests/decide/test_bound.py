@@ -238,3 +238,20 @@ def test_old_model_in_the_registry_says_no_bound_on_the_command_line(old_chain, 
     assert r.exit_code == 0, r.output
     assert "!! no lower bound on the probability is available" in r.stdout
     assert "(not promised)" in r.stdout
+
+
+def test_the_unit_level_factor_is_carried_at_its_point_estimate():
+    """P(pass with units) = P(lot values pass) x P(units pass | lot values pass) (the product rule of
+    probability); with_unit_level scales the lot-level bound by the second factor's point estimate and never
+    exceeds the unit-level point estimate. Checked on a simulated example with numpy."""
+    from linkage.decide.bound import with_unit_level
+
+    rng = np.random.default_rng(3)
+    lot_ok = rng.random(200_000) < 0.95            # lot values pass
+    units_ok = lot_ok & (rng.random(200_000) < 0.9)  # units pass given lot values pass
+    lot_point, unit_point = lot_ok.mean(), units_ok.mean()
+    low = with_unit_level(np.array([0.92]), np.array([lot_point]), np.array([unit_point]))
+    assert low[0] == pytest.approx(0.92 * unit_point / lot_point)
+    assert low[0] == pytest.approx(0.92 * 0.9, abs=0.003)
+    assert with_unit_level(np.array([0.99]), np.array([0.5]), np.array([0.6]))[0] == 0.6  # capped
+    assert with_unit_level(np.array([0.9]), np.array([0.0]), np.array([0.0]))[0] == 0.0
