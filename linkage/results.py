@@ -470,7 +470,8 @@ def whatif_text(result: WhatIf) -> str:
         every = every_spec_text(d["not_modelled_reasons"])
         if d["promise"]:
             lines.append(f"P({every} passes together): {at_least(bound['low'])} "
-                         f"with {bound['assurance']:.0%} assurance (point estimate {probability_text(d['p_pass_all'])})")
+                         f"with {bound['assurance']:.0%} assurance "
+                         f"(point estimate {probability_text(d['p_pass_all'])})")
         elif d["in_domain"]:
             lines.append(f"No probability of meeting {every} is promised here (no lower bound); the "
                          f"point estimate is {probability_text(d['p_pass_all'])}.")

@@ -364,7 +364,8 @@ def _glance(b, chain, table, spec, window):
         items.append(
             f"<b>Ribbon porosity window: {window.low.value:.3f} – {window.high.value:.3f}</b> "
             f"(probability at least {window.confidence:.0%}, with {window.assurance:.0%} assurance, that a lot meets "
-            f"{_e(every)} together; the point estimate reaches it over {_range(window.point_low, window.point_high, 3)}); "
+            f"{_e(every)} together; the point estimate reaches it over "
+            f"{_range(window.point_low, window.point_high, 3)}); "
             f"low edge {_edge_text(window.low.limited_by)}, high edge {_edge_text(window.high.limited_by)}.")
         rf = window.roll_force or {}
         if rf.get("low") is not None:

@@ -12,8 +12,6 @@ from linkage.cli.main import cli
 from linkage.decide.retrain import Comparison, decide
 from linkage.exceptions import UsageError
 from linkage.models import registry
-from linkage.read import read_folder
-from linkage.spec import Limit, Spec
 from linkage.store import LotStore
 from linkage.synthetic import WINDOW_SPEC, Truth, make_lots, spec_toml
 

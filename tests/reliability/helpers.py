@@ -340,3 +340,25 @@ def finite_json(obj) -> bool:
     if isinstance(obj, float):
         return math.isfinite(obj)
     return True
+
+
+#: the input template on four invented lots (a copy of ../shared/template-example kept in the repository)
+TEMPLATE_EXAMPLE = Path(__file__).resolve().parents[1] / "data" / "template-example"
+
+
+def template_folder(tmp_path: Path, name: str = "in") -> Path:
+    """A fresh copy of the template example to edit."""
+    import shutil
+
+    folder = tmp_path / name
+    shutil.copytree(TEMPLATE_EXAMPLE, folder)
+    return folder
+
+
+def add_process_column(folder: Path, header: str, cell) -> None:
+    """Append a column to the folder's process.csv; ``cell(i)`` gives the cell of data row i (1 = first)."""
+    path = folder / "process.csv"
+    lines = path.read_text().splitlines()
+    lines[0] += f",{header}"
+    lines[1:] = [f"{line},{cell(i)}" for i, line in enumerate(lines[1:], start=1)]
+    path.write_text("\n".join(lines) + "\n")

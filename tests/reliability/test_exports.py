@@ -10,8 +10,6 @@ from __future__ import annotations
 import csv
 import io
 import os
-import shutil
-from pathlib import Path
 
 import pandas as pd
 import pytest
@@ -20,8 +18,7 @@ from linkage.exceptions import InputError
 from linkage.export import FORMULA_LEADS, neutralise_cell, write_atomic, write_table_csv
 from linkage.read import read_folder
 
-EXAMPLE = Path(__file__).resolve().parents[1] / "data" / "template-example"
-
+from .helpers import add_process_column, template_folder
 
 def test_the_formula_leads_are_owasps_list():
     assert set(FORMULA_LEADS) == {"=", "+", "-", "@", "\t", "\r"}
@@ -61,12 +58,8 @@ def test_a_failed_write_leaves_the_old_file_and_no_temporary_file(tmp_path, monk
 
 @pytest.mark.parametrize("bad", ["inf", "-Infinity", "1e999"])
 def test_an_infinite_value_in_an_extra_number_column_is_refused_with_its_row(tmp_path, bad, counts):
-    d = tmp_path / "in"
-    shutil.copytree(EXAMPLE, d)
-    lines = (d / "process.csv").read_text().splitlines()
-    lines[0] += ",blend_moisture_pct"
-    lines[1:] = [line + (f",{bad}" if i == 2 else ",2.1") for i, line in enumerate(lines[1:], start=1)]
-    (d / "process.csv").write_text("\n".join(lines) + "\n")
+    d = template_folder(tmp_path)
+    add_process_column(d, "blend_moisture_pct", lambda i: bad if i == 2 else "2.1")
     with pytest.raises(InputError) as info:
         read_folder(d)
     hit = next(p for p in info.value.problems if "not a finite number" in p.rule)
@@ -76,12 +69,8 @@ def test_an_infinite_value_in_an_extra_number_column_is_refused_with_its_row(tmp
 
 
 def test_an_extra_text_column_may_hold_the_word_inf(tmp_path):
-    d = tmp_path / "in"
-    shutil.copytree(EXAMPLE, d)
-    lines = (d / "process.csv").read_text().splitlines()
-    lines[0] += ",operator_note"
-    lines[1:] = [line + (",inf" if i == 1 else ",checked by QA") for i, line in enumerate(lines[1:], start=1)]
-    (d / "process.csv").write_text("\n".join(lines) + "\n")
+    d = template_folder(tmp_path)
+    add_process_column(d, "operator_note", lambda i: "inf" if i == 1 else "checked by QA")
     assert read_folder(d).tables["process"]["operator_note"].iloc[0] == "inf"
 
 

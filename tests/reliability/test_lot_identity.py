@@ -119,7 +119,8 @@ def test_a_lot_resent_in_another_case_is_refused_and_the_store_is_unchanged(tmp_
     for f in d.glob("*.csv"):
         f.write_text(f.read_text().replace("EX-001", "ex-001"))
     with pytest.raises(InputError) as info:
-        store.ingest(read_folder(d), reason="a test revision")  # no known lots at read time: the store's own check refuses it
+        # no known lots at read time: the store's own check refuses it
+        store.ingest(read_folder(d), reason="a test revision")
     hits = [p for p in info.value.problems if "written another way" in p.rule]
     assert hits and all("'EX-001' in the store" in p.rule for p in hits)
     assert {p.file for p in hits} >= {"process.csv", "ribbon.csv"}

@@ -4,7 +4,8 @@ broad physical bounds, refused with the likely mistake named; a deliberate unusu
 
 The robust reference is the median and 1.4826 x MAD of the base-10 logarithms (Rousseeuw & Croux 1993,
 J. Am. Stat. Assoc. 88:1273, eq. 1), checked here against scipy.stats.median_abs_deviation(scale="normal"),
-the reference implementation. The limits (a factor of 3, 4 robust SDs explained, 10 unexplained) are common practice, no source.
+the reference implementation. The limits (a factor of 3, 4 robust SDs explained, 10 unexplained) are common
+practice, no source.
 """
 
 from __future__ import annotations

@@ -16,7 +16,6 @@ the format in Python; the values it stores are read back with openpyxl too.
 
 from __future__ import annotations
 
-import shutil
 from pathlib import Path
 
 import openpyxl
@@ -25,8 +24,7 @@ import pytest
 from linkage.exceptions import InputError
 from linkage.read import _shows_percent, read_folder, read_table
 
-EXAMPLE = Path(__file__).resolve().parents[1] / "data" / "template-example"
-
+from .helpers import add_process_column, template_folder
 
 def _tablets_workbook(path: Path, fmt: str = "0.00%", column: str = "weight_rsd_pct", hidden_old: bool = False):
     wb = openpyxl.Workbook()
@@ -91,8 +89,7 @@ def test_a_hidden_sheet_named_after_the_table_is_refused(tmp_path, counts):
 
 
 def test_a_hidden_table_sheet_in_a_folder_workbook_is_refused(tmp_path, counts):
-    d = tmp_path / "in"
-    shutil.copytree(EXAMPLE, d)
+    d = template_folder(tmp_path)
     (d / "tablets.csv").unlink()
     wb = openpyxl.Workbook()
     wb.active.title = "notes"
@@ -113,8 +110,7 @@ def test_a_hidden_table_sheet_in_a_folder_workbook_is_refused(tmp_path, counts):
 @pytest.mark.parametrize("header", ["dissolution_pct [%]", "friability_pct (%)", "weight_rsd_pct, %",
                                     "dissolution_pct in %", "roll_gap_mm (mm)"])
 def test_a_template_column_with_a_unit_in_the_header_is_refused(tmp_path, header, counts):
-    d = tmp_path / "in"
-    shutil.copytree(EXAMPLE, d)
+    d = template_folder(tmp_path)
     table = "process.csv" if header.startswith("roll_gap") else "tablets.csv"
     name = header.split()[0].rstrip(",")
     text = (d / table).read_text()
@@ -131,11 +127,7 @@ def test_a_template_column_with_a_unit_in_the_header_is_refused(tmp_path, header
 
 
 def test_an_extra_column_with_a_unit_stays_an_extra_column(tmp_path):
-    d = tmp_path / "in"
-    shutil.copytree(EXAMPLE, d)
-    lines = (d / "process.csv").read_text().splitlines()
-    lines[0] += ",blend moisture (%)"
-    lines[1:] = [line + ",2.1" for line in lines[1:]]
-    (d / "process.csv").write_text("\n".join(lines) + "\n")
-    ingest = read_folder(d)
-    assert ingest.tables["process"]["blend moisture (%)"].tolist() == [2.1] * (len(lines) - 1)
+    d = template_folder(tmp_path)
+    add_process_column(d, "blend moisture (%)", lambda i: "2.1")
+    column = read_folder(d).tables["process"]["blend moisture (%)"].tolist()
+    assert column == [2.1] * len(column) and len(column) == 4

@@ -133,7 +133,7 @@ def test_removing_the_newest_audit_entry_and_its_seal_is_detected_by_the_anchor(
     con = sqlite3.connect(store)
     newest = con.execute("SELECT id FROM audit ORDER BY id DESC LIMIT 1").fetchone()[0]
     con.close()
-    _behind_the_back(store, f"DELETE FROM seals WHERE id = (SELECT MAX(id) FROM seals)",
+    _behind_the_back(store, "DELETE FROM seals WHERE id = (SELECT MAX(id) FROM seals)",
                      f"DELETE FROM audit WHERE id = {newest}")
     _detected(store, counts, "anchor")
 
