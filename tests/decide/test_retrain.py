@@ -153,7 +153,7 @@ def _promote_everything(monkeypatch):
 
 def test_a_busy_store_leaves_the_champion_in_service_and_no_record(campaign, monkeypatch):
     root, store, models, champion, _ = campaign
-    rt = _promote_everything(monkeypatch)
+    _promote_everything(monkeypatch)
     from linkage.exceptions import StoreBusyError
 
     before = registry.load(models, "latest").model_id
