@@ -21,7 +21,8 @@ padding:0 1rem;color:#1b1b1b;line-height:1.4}
 h1{font-size:1.35rem;margin:0 0 .2rem} h2{font-size:1.05rem;margin:1.3rem 0 .4rem;border-bottom:1px solid #ccc}
 table{border-collapse:collapse;width:100%;font-size:.9rem} td,th{padding:.25rem .5rem;text-align:left;
 border-bottom:1px solid #e3e3e3;vertical-align:middle} th{background:#f3f3f3}
-.num{text-align:right;font-variant-numeric:tabular-nums;white-space:nowrap} .meta{color:#555;font-size:.8rem}
+.num{text-align:right;font-variant-numeric:tabular-nums;white-space:nowrap}
+.prob{text-align:right;font-variant-numeric:tabular-nums;max-width:16rem} .meta{color:#555;font-size:.8rem}
 tr.detail td{border-bottom:1px solid #ccc;padding-top:0} tr.main td{border-bottom:none}
 .caution{border-left:4px solid #E69F00;background:#fff7e6;padding:.6rem .8rem;margin:1rem 0;font-size:.9rem}
 .out{border-left:4px solid #D55E00;background:#fdeee6;padding:.6rem .8rem;margin:1rem 0}
@@ -196,7 +197,7 @@ def whatif_html(result) -> str:
             f"<tr class=main><td>{escape(name)}{_unit(name)}</td><td class=num>{_fmt(p['value'])}{mark}</td>"
             f"<td class=num>{_fmt(p['low'])} – {_fmt(p['high'])}</td>"
             f"<td>{interval_svg(p['value'], p['low'], p['high'], lim.get('min'), lim.get('max'))}</td>"
-            f"<td>{escape(limits)}</td><td class=num>{p_pass}</td></tr>"
+            f"<td>{escape(limits)}</td><td class=prob>{p_pass}</td></tr>"
             f"<tr class=detail><td colspan=6 class=meta>interval: {escape(p['interval_method'])}; "
             f"model: {escape(p['selected_model'])}"
             f"{'; largest contributions: ' + contrib if contrib else ''}</td></tr>"
