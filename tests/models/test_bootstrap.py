@@ -11,6 +11,8 @@ evaluation of the replicates.
 
 from __future__ import annotations
 
+import inspect
+
 import numpy as np
 import pytest
 from scipy import stats
@@ -45,8 +47,10 @@ def test_resamples_and_percentile_bound_are_scipys(assurance):
     counts = resample_counts(x.size, B, seed)
     assert counts.shape == (B, x.size) and (counts.sum(axis=1) == x.size).all()
     replicates = counts @ x / x.size
+    # scipy 1.15 named the generator argument rng; before it was random_state (the floor, 1.11, has only that)
+    generator = ("rng" if "rng" in inspect.signature(stats.bootstrap).parameters else "random_state")
     ref = stats.bootstrap((x,), np.mean, n_resamples=B, method="percentile", alternative="greater",
-                          confidence_level=assurance, rng=np.random.default_rng(seed), vectorized=True)
+                          confidence_level=assurance, vectorized=True, **{generator: np.random.default_rng(seed)})
     np.testing.assert_allclose(np.sort(replicates), np.sort(ref.bootstrap_distribution), rtol=0, atol=1e-12)
     assert lower_bound(replicates, assurance) == pytest.approx(ref.confidence_interval.low, abs=1e-12)
     # capped at the point estimate
