@@ -24,6 +24,7 @@ references.md §2.)
 from __future__ import annotations
 
 import pickle
+import re
 
 import numpy as np
 import pandas as pd
@@ -127,9 +128,24 @@ def _check_name(check) -> str:
     return getattr(check, "func", check).__name__
 
 
+#: checks whose generated targets fall outside the link's domain at some scikit-learn versions only
+#: (check_estimators_dtypes draws its targets differently at 1.5, the floor, than at 1.9): skipped for the
+#: stated reason where they fail with it, run where they pass
+VERSION_DEPENDENT: dict[tuple[str, str], tuple[str, str]] = {
+    (name, "check_estimators_dtypes"): LINK_DOMAIN for name in ("log_linear", "weibull_release")}
+
+
 @parametrize_with_checks([cls() for cls in CANDIDATES.values()])
 def test_scikit_learn_estimator_checks(estimator, check):
     key = (estimator.name, _check_name(check))
+    if key in VERSION_DEPENDENT:
+        reason, failure = VERSION_DEPENDENT[key]
+        try:
+            check(estimator)
+        except Exception as exc:  # only for the stated reason
+            assert re.search(failure, str(exc)), exc
+            pytest.skip(f"{key[1]} on {key[0]}: {reason}")
+        return
     if key in SKIPS:
         reason, failure = SKIPS[key]
         # the skip holds only while the check fails, and for the stated reason
@@ -142,7 +158,7 @@ def test_scikit_learn_estimator_checks(estimator, check):
 def test_every_registered_candidate_is_checked():
     names = {est.name for est in (cls() for cls in CANDIDATES.values())}
     assert names == set(CANDIDATES)
-    assert {name for name, _ in SKIPS} <= set(CANDIDATES)
+    assert {name for name, _ in [*SKIPS, *VERSION_DEPENDENT]} <= set(CANDIDATES)
 
 
 def _porosity_data(n=24, seed=0):
