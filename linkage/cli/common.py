@@ -80,7 +80,8 @@ def handle_errors(f):
     an OSError (the operating system refused a read or a write: disk full,
     permissions, a folder that cannot be made) into its file, its reason and
     exit code 5 (:data:`linkage.exceptions.EXIT_CODES`). Anything else is a
-    bug and keeps its traceback (exit code 1)."""
+    bug and keeps its traceback (exit code 1). A :class:`LinkageWarning`
+    raised on the way is printed as one ``Warning:`` line."""
 
     @functools.wraps(f)
     def wrapper(*args, **kwargs):
