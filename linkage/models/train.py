@@ -334,8 +334,14 @@ def _run_all(jobs: list[_Job], n_jobs: int, progress, backend: str | None = None
                 progress("cross-validating", done, total)
         return results
     from joblib import Parallel, delayed, parallel_config
+    from threadpoolctl import threadpool_limits
 
-    with parallel_config(backend=backend) if backend is not None else contextlib.nullcontext():
+    # Each job limits BLAS to one thread (_run_job), but the limit is process-wide: with threads, one job leaving
+    # its limit would restore BLAS threads under another one still running, and the floats would depend on the
+    # timing. Held once around every threaded job, the inner limits nest and nothing is restored mid-run.
+    threads = backend == "threading"
+    with (parallel_config(backend=backend) if backend is not None else contextlib.nullcontext(),
+          threadpool_limits(limits=1) if threads else contextlib.nullcontext()):
         stream = Parallel(n_jobs=n_jobs, return_as="generator")(delayed(_run_job)(j) for j in jobs)
         for done, res in enumerate(stream, start=1):  # in job order, whatever the order they finish in
             results.append(res)
