@@ -11,6 +11,7 @@ here and must stay light (``tests/decide/test_whatif_lean.py``).
 
 from __future__ import annotations
 
+from abc import ABC, abstractmethod
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -29,17 +30,19 @@ if TYPE_CHECKING:
     from linkage.store import IngestResult
 
 
-class _Result:
+class _Result(ABC):
     """``summary()``, ``text()`` and ``str()`` for every result; attributes
     not found on the result are looked up on the library object it keeps
     (``result``), so ``window.low`` or ``whatif.predictions`` work as on the
     library's own objects."""
 
-    def summary(self) -> pd.DataFrame:  # pragma: no cover - every result defines it
-        raise NotImplementedError
+    @abstractmethod
+    def summary(self) -> pd.DataFrame:
+        """The result's numbers as a DataFrame."""
 
-    def text(self) -> str:  # pragma: no cover - every result defines it
-        raise NotImplementedError
+    @abstractmethod
+    def text(self) -> str:
+        """What the command prints."""
 
     def __str__(self) -> str:
         return self.text()
