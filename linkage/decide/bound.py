@@ -30,6 +30,12 @@ weights on the residual lots (how many times the replicate drew each lot):
   the stage's lots whose residual vector, added to the draw's predictions,
   meets every limit, together with the limits met upstream.
 
+Where a target has a spread model (locally weighted intervals), a lot's
+residual enters as it does in :mod:`linkage.decide.propagate`: divided by
+ρ̂ at the lot's own out-of-fold level and multiplied by ρ̂ at the draw's
+predicted level. Every replicate uses the spread model of the full fit (a
+stated approximation: the spread model is not refitted per replicate).
+
 Values are projected onto their physical ranges
 (:func:`linkage.models.lean.project`) before they are judged or passed on,
 as in :mod:`linkage.decide.propagate`. A stage's lots with a target missing
@@ -218,12 +224,14 @@ def lower_bound(replicates, assurance: float, point=None) -> np.ndarray:
 
 
 def _stage_lots(stage, todo: list[str], counts: np.ndarray | None, lot_index: dict | None):
-    """The stage's residual rows with every target in ``todo`` (n_s × targets)
-    and the weights of each replicate on them (B × n_s, rows summing to 1,
+    """The stage's residual rows with every target in ``todo`` (n_s × targets;
+    each divided by ρ̂ at the lot's own out-of-fold level where the target has
+    a spread model, as :meth:`linkage.models.lean.Stage.scaled_residual_column`
+    gives them) and the weights of each replicate on them (B × n_s, rows summing to 1,
     NaN for a replicate that drew none of them); ``counts`` are the
     replicates' draws over the training lots (None: every lot once)."""
     cols = [list(stage.targets).index(t) for t in todo]
-    R = stage.residual_matrix[:, cols]
+    R = stage.residual_matrix[:, cols] / stage.residual_scale[:, cols]
     rows = np.flatnonzero(np.all(np.isfinite(R), axis=1))
     if counts is None:
         W = np.ones((1, rows.size))
@@ -243,26 +251,28 @@ def _draw(W: np.ndarray, u: np.ndarray) -> np.ndarray:
     return np.stack([np.searchsorted(c, u, side="right") for c in cdf])
 
 
-def _passes(name: str, pred: np.ndarray, r: np.ndarray, limit) -> np.ndarray:
-    """within(project(name, pred[..., None] + r[:, None, None, :]), limit)
-    (B × rows × draws × lots), without forming the sums: the projection is a
-    clip onto [pl, ph], so clip(x) ≥ lo holds always when lo ≤ pl, never
-    when lo > ph, and else exactly when x ≥ lo, that is r ≥ lo − pred
-    (likewise for the upper limit); a test compares the two."""
+def _passes(name: str, pred: np.ndarray, r: np.ndarray, limit, scale: np.ndarray | None = None) -> np.ndarray:
+    """within(project(name, pred[..., None] + r[:, None, None, :] · s[..., None]), limit)
+    (B × rows × draws × lots, s = ``scale``, ones when None), without forming
+    the sums: the projection is a clip onto [pl, ph], so clip(x) ≥ lo holds
+    always when lo ≤ pl, never when lo > ph, and else exactly when x ≥ lo,
+    that is r ≥ (lo − pred)/s since s > 0 (likewise for the upper limit); a
+    test compares the two."""
     from linkage.models.lean import physical_range
 
     pl, ph = physical_range(name)
     shape = pred.shape + (r.shape[-1],)
     ok = np.ones(shape, dtype=bool)
     rr = r[:, None, None, :]
+    s = 1.0 if scale is None else scale
     if limit.min is not None and limit.min > pl:
         if limit.min > ph:
             return np.zeros(shape, dtype=bool)
-        ok &= rr >= (limit.min - pred)[..., None]
+        ok &= rr >= ((limit.min - pred) / s)[..., None]
     if limit.max is not None and limit.max < ph:
         if limit.max < pl:
             return np.zeros(shape, dtype=bool)
-        ok &= rr <= (limit.max - pred)[..., None]
+        ok &= rr <= ((limit.max - pred) / s)[..., None]
     return ok
 
 
@@ -334,13 +344,14 @@ def _batch(lean, columns: dict, limits: dict, attributes: list[str], models: dic
                            for c in target.inputs], axis=-1)
             pred = models[t].predict(X3).reshape(B, nrows, n_draws)
             r = R[:, j][pick]  # (1 or B, draws or lots)
+            scale = None if getattr(target, "spread", None) is None else target.scale(pred)
             if not final:
-                values[t] = project(t, pred + r[:, None, :])[0]
+                values[t] = project(t, pred + r[:, None, :] * (1.0 if scale is None else scale))[0]
                 if t in attributes:
                     each[t] = within(values[t], limits[t])
                     ok = ok & each[t]
             else:
-                pa = _passes(t, pred, r, limits[t])
+                pa = _passes(t, pred, r, limits[t], scale)
                 joint = pa if joint is None else joint & pa
                 p_each[t] = _wsum(pa, lw, w)
         if final:

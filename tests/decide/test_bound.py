@@ -59,6 +59,10 @@ def test_limits_on_residuals_equal_projection_then_limits(name, limit):
     r = rng.normal(0, scale, (3, 7))
     expected = within(project(name, pred[..., None] + r[:, None, None, :])[0], limit)
     np.testing.assert_array_equal(_passes(name, pred, r, limit), expected)
+    # with a spread model the lot's standardised residual is rescaled to the spread at the draw's level
+    s = rng.uniform(0.2, 3.0, pred.shape)
+    expected = within(project(name, pred[..., None] + r[:, None, None, :] * s[..., None])[0], limit)
+    np.testing.assert_array_equal(_passes(name, pred, r, limit, s), expected)
 
 
 def test_engine_point_matches_monte_carlo_on_the_grid(scenario, window):

@@ -228,3 +228,37 @@ def test_ribbon_stage_regions_are_by_predicted_porosity():
     oof = t.oof[t.selected].to_numpy()
     assert t.coverage_by_region[0]["range"][0] == pytest.approx(oof.min())
     assert t.coverage_by_region[-1]["range"][1] == pytest.approx(oof.max())
+
+
+def test_bound_engine_rescales_residuals_to_the_spread_at_the_level(trained):
+    """The exact sums of linkage.decide.bound use the lot's standardised
+    residual times ρ̂ at the row's level, as the Monte Carlo does (the test
+    above): P(pass) at a row is the share of lots with
+    project(μ̂ + rᵢ/ρ̂ᵢ·ρ̂(μ̂)) within the limit, computed here directly."""
+    from linkage.decide.bound import chain_probabilities
+    from linkage.decide.propagate import within
+    from linkage.spec import Limit
+
+    table, fit = trained
+    chain = lean.from_fitted(fit)
+    st = chain.stages[0]
+    t = st.targets["tensile_strength_mpa"]
+    t.spread = {"kind": "loglinear", "a": np.log(0.05), "b": 0.5, "z_mean": 1.0, "z_scale": 0.5, "z_low": 0.0,
+                "z_high": 5.0}
+    j = list(st.targets).index("tensile_strength_mpa")
+    st.residual_scale = np.ones(st.residual_matrix.shape)
+    st.residual_scale[:, j] = np.linspace(0.5, 2.0, st.residual_scale.shape[0])
+    rows = {"ribbon_porosity": [0.2995, 0.3, 0.3005], "granule_d50_um": [300.0] * 3, "fines_pct": [20.0] * 3,
+            "compression_force_kn": [12.0] * 3}
+    mean = t.predict(rows, raw=True)
+    limit = Limit(float(mean[1] - 0.005), None)
+    cp = chain_probabilities(chain, {k: np.asarray(v) for k, v in rows.items()},
+                             {"tensile_strength_mpa": limit}, ["tensile_strength_mpa"], replicates=False)
+    r = st.residual_matrix[:, j] / st.residual_scale[:, j]
+    r = r[np.isfinite(r)]
+    s = lean.spread_scale(t.spread, mean)
+    expected = within(lean.project("tensile_strength_mpa", mean[:, None] + r[None, :] * s[:, None])[0],
+                      limit).mean(axis=1)
+    unscaled = within(lean.project("tensile_strength_mpa", mean[:, None] + r[None, :])[0], limit).mean(axis=1)
+    assert np.any((expected > 0.05) & (expected < 0.95)) and np.max(np.abs(expected - unscaled)) > 0.05
+    np.testing.assert_allclose(cp.p_each["tensile_strength_mpa"], expected, atol=1e-6)
