@@ -97,7 +97,8 @@ class _Stacked:
     :class:`linkage.models.lean.Model` (a test compares the two)."""
 
     KINDS = {"mean": ("mean",), "rd": ("s0", "k"), "linear": ("x_mean", "coef", "intercept"),
-             "quadratic": ("x_mean", "x_scale", "beta", "intercept")}
+             "quadratic": ("x_mean", "x_scale", "beta", "intercept"),
+             "link": ("x_mean", "coef", "intercept", "y_max", "log_mask")}
 
     def __init__(self, kind: str, params: dict, n: int):
         self.kind, self.params, self.n = kind, params, n
@@ -109,8 +110,16 @@ class _Stacked:
             return None
         n = int(packed["n"])
         params = {}
+        if kind == "link":
+            if not isinstance(packed["same"].get("link"), str):
+                return None  # links differ between replicates (a candidate never does this): one by one
+            params["link"] = packed["same"]["link"]
         for k in cls.KINDS[kind] + (("porosity_index",) if kind == "rd" else ()):
-            if k in packed["stacked"]:
+            if k == "log_mask":
+                if k not in packed["stacked"]:
+                    return None
+                params[k] = np.asarray(packed["stacked"][k], dtype=bool)
+            elif k in packed["stacked"]:
                 params[k] = np.asarray(packed["stacked"][k], dtype=float if k != "porosity_index" else np.int64)
             elif k in packed["same"]:
                 v = packed["same"][k]
@@ -125,8 +134,8 @@ class _Stacked:
         return self.n
 
     def take(self, idx) -> "_Stacked":
-        return _Stacked(self.kind, {k: v if k == "porosity_index" else v[idx] for k, v in self.params.items()},
-                        len(idx))
+        return _Stacked(self.kind, {k: v if k in ("porosity_index", "link") else v[idx]
+                                    for k, v in self.params.items()}, len(idx))
 
     def predict(self, X3: np.ndarray) -> np.ndarray:
         p, X3 = self.params, np.asarray(X3, dtype=float)
@@ -136,6 +145,14 @@ class _Stacked:
             return p["s0"][:, None] * np.exp(-p["k"][:, None] * X3[:, :, p["porosity_index"]])
         if self.kind == "linear":
             return np.einsum("bnp,bp->bn", X3 - p["x_mean"][:, None, :], p["coef"]) + p["intercept"][:, None]
+        if self.kind == "link":  # linkage.models.lean.link_predict, every replicate at once
+            from linkage.models.lean import link_inverse
+
+            with np.errstate(divide="ignore", invalid="ignore"):
+                logs = np.log(np.maximum(X3, np.finfo(float).tiny))
+            Z = np.where(p["log_mask"][:, None, :], logs, X3)
+            eta = np.einsum("bnp,bp->bn", Z - p["x_mean"][:, None, :], p["coef"]) + p["intercept"][:, None]
+            return link_inverse(p["link"], eta, p["y_max"][:, None])
         from linkage.models.lean import quad_features
 
         B, n, q = X3.shape
