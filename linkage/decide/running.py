@@ -60,7 +60,7 @@ from linkage.decide.watch import EWMA_L, EWMA_LAMBDA
 
 __all__ = ["ADJUSTABLE", "STEP_SHARE", "sensitivity", "replicate_sensitivities", "replicate_secants",
            "solve_setting", "correction",
-           "samples_to_confirm", "shewhart_run_length", "level_now", "chart_signals", "advise", "RunningResult",
+           "sample_size", "samples_to_confirm", "shewhart_run_length", "level_now", "chart_signals", "advise", "RunningResult",
            "METHOD", "read_samples", "process_settings", "draw_chart"]
 
 POROSITY = "ribbon_porosity"
@@ -177,17 +177,21 @@ def correction(centre: float, level: float, level_se: float, slope: float,
     return float(dx), float(math.sqrt(var))
 
 
-def samples_to_confirm(shift_sd: float, alpha: float = 0.05, power: float = 0.9) -> int:
-    """Samples n whose mean detects an offset of ``shift_sd`` standard
-    deviations with a two-sided z-test at level ``alpha`` and ``power``:
-    n = ⌈((z_{1−α/2} + z_{power}) / shift_sd)²⌉ (Montgomery & Runger 2014,
-    eq. 9-22)."""
+def sample_size(shift_sd: float, alpha: float = 0.05, power: float = 0.9) -> float:
+    """n = ((z_{1−α/2} + z_{power}) / shift_sd)², before rounding up: the
+    samples whose mean detects an offset of ``shift_sd`` standard deviations
+    with a two-sided z-test at level ``alpha`` and ``power`` (Montgomery &
+    Runger 2014, eq. 9-22)."""
     from scipy.stats import norm
 
     if not shift_sd > 0 or not 0 < alpha < 1 or not 0 < power < 1:
         raise ValueError("shift_sd must be positive, alpha and power strictly between 0 and 1")
-    n = ((norm.ppf(1 - alpha / 2) + norm.ppf(power)) / shift_sd) ** 2
-    return max(1, math.ceil(n - 1e-9))
+    return float(((norm.ppf(1 - alpha / 2) + norm.ppf(power)) / shift_sd) ** 2)
+
+
+def samples_to_confirm(shift_sd: float, alpha: float = 0.05, power: float = 0.9) -> int:
+    """:func:`sample_size` rounded up (at least 1)."""
+    return max(1, math.ceil(sample_size(shift_sd, alpha, power) - 1e-9))
 
 
 def shewhart_run_length(shift_sd, L: float = 3.0) -> np.ndarray:
@@ -256,18 +260,23 @@ def read_samples(path) -> tuple[object, str | None, list]:
     and number rules (:func:`linkage.read.read_table`). Returns (samples, lot,
     problems): ``sampled_at`` is required in every row here, and the file
     holds one lot; each breach is a :class:`~linkage.exceptions.Problem` with
-    its row. A file the template refuses adds its problems."""
+    its row. The lot rule is checked once the template's rules hold."""
+    from dataclasses import replace
+
     from linkage.exceptions import InputError, Problem
     from linkage.read import lot_key, read_table
+    from linkage.schema import TABLES
 
+    ribbon = TABLES["ribbon"]
+    strict = replace(ribbon, columns=tuple(replace(c, required=True, nonempty=True) if c.name == "sampled_at" else c
+                                           for c in ribbon.columns))  # when each sample was taken is needed here
     path = Path(path)
     try:
-        df = read_table(path, "ribbon")
+        df = read_table(path, "ribbon", definition=strict)
     except InputError as exc:
         return None, None, list(exc.problems)
     rows = list(df.attrs.get("source_rows", range(2, len(df) + 2)))
-    problems = [Problem(path.name, "sampled_at is needed for every at-line sample (ISO 8601 date and time)",
-                        row=r, column="sampled_at") for r, t in zip(rows, df["sampled_at"]) if t is None or t != t]
+    problems = []
     if df.empty:
         problems.append(Problem(path.name, "no samples: the file holds a header and no rows"))
         return df, None, problems
