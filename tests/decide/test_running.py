@@ -210,7 +210,7 @@ def test_samples_of_two_lots_are_refused_row_by_row(tmp_path):
 
 
 def test_process_file_without_the_lot_is_refused_with_the_samples_problems(tmp_path):
-    f = _samples(tmp_path / "atline.csv", ["R-1,1,2026-03-02T08:00,1.05,1.53", "R-1,2,,1.06,1.53"])
+    f = _samples(tmp_path / "atline.csv", ["R-1,1,2026-03-02T08:00,1.05,1.53", "R-2,2,2026-03-02T08:25,1.06,1.53"])
     p = tmp_path / "process.csv"
     p.write_text("lot,roll_force_kn_per_cm,roll_gap_mm,roll_speed_rpm,screw_speed_rpm,mill_screen_mm\n"
                  "R-9,8,2.5,5,27,1.0\n", encoding="utf-8")
@@ -219,6 +219,7 @@ def test_process_file_without_the_lot_is_refused_with_the_samples_problems(tmp_p
     assert r.exit_code == 2
     assert "2 problems found" in r.output
     assert "process.csv, column 'lot': no row for lot 'R-1'" in r.output
+    assert "atline.csv, row 3, column 'lot', value 'R-2'" in r.output
 
 
 @pytest.mark.parametrize("args, message", [
