@@ -465,7 +465,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
 
 def running(samples, *, settings: Mapping[str, float] | None = None, process=None, spec=None,
             window: tuple[float, float] | None = None, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR,
-            model="latest", adjust: str = "roll_force_kn_per_cm", baseline: int = 3,
+            model="latest", adjust: str = "roll_force_kn_per_cm", baseline: int = 5,
             confirm_shift_sd: float = 1.0, alpha: float = 0.05, power: float = 0.9, seed: int = 0,
             assurance: float = 0.9):
     """Guidance for a lot in progress (``linkage running``): its at-line

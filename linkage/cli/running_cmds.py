@@ -37,7 +37,7 @@ def _window(ctx, param, value):
               help="The porosity window, given directly (instead of --spec).")
 @click.option("--adjust", type=click.Choice(["roll_force_kn_per_cm", "roll_gap_mm"]),
               default="roll_force_kn_per_cm", show_default=True, help="The setting whose correction is suggested.")
-@click.option("--baseline", default=3, show_default=True, type=click.IntRange(2, 50),
+@click.option("--baseline", default=5, show_default=True, type=click.IntRange(2, 50),
               help="The first samples whose mean is the centre of the within-lot limits.")
 @click.option("--confirm-shift", "confirm_shift_sd", default=1.0, show_default=True,
               type=FiniteFloat(0, 10, min_open=True),

@@ -432,7 +432,7 @@ def _hours(sampled_at) -> np.ndarray:
 
 def advise(lean, samples, settings: dict[str, float], window: tuple[float, float], training_ribbon,
            training_lots, *, lot: str, window_source: str = "given", adjust: str = "roll_force_kn_per_cm",
-           baseline: int = 3, confirm_shift_sd: float = 1.0, alpha: float = 0.05, power: float = 0.9,
+           baseline: int = 5, confirm_shift_sd: float = 1.0, alpha: float = 0.05, power: float = 0.9,
            held_at_median: list[str] | None = None) -> RunningResult:
     """The guidance for one running lot (see the module notes).
 
