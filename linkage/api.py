@@ -26,6 +26,8 @@ call               what it does                                         recorded
                    one per row)                                          (when the store exists)
 :func:`report`     the self-contained HTML report                        —
 :func:`watch`      the drift watch                                       ``watch``
+:func:`running`    guidance for a lot in progress from its at-line       ``running``
+                   samples
 :func:`retrain`    a challenger, promoted only by the rule               ``retrain`` or ``promote``
 :func:`audit`      the audit trail, as a DataFrame                       —
 =================  ===================================================  ==============================
@@ -501,6 +503,10 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
         problems += more
     if problems:
         raise InputError(problems)
+    fitted = None
+    if window is None:  # the window is found on the fitted chain (its training ranges), the rest on its numbers
+        fitted = _fitted(models_dir, model)
+        model = fitted.model_id if model is None or isinstance(model, str) else fitted
     lean = _lean(models_dir, model)
     given = {k: float(v) for k, v in (settings or {}).items()}
     check_values(lean, given)
@@ -514,7 +520,7 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
         from linkage.decide.window import find_window
 
         held_for_window = {k: v for k, v in values.items() if k != guide.POROSITY}
-        found = find_window(lean, spec, settings=held_for_window, seed=seed, assurance=assurance)
+        found = find_window(fitted, spec, settings=held_for_window, seed=seed, assurance=assurance)
         if not found.found:
             raise UsageError(f"the spec gives no porosity window at these settings (model {lean.model_id}); "
                              "give --window LOW:HIGH")

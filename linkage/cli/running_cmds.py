@@ -9,6 +9,7 @@ import click
 
 from linkage.cli.common import (PROBABILITY, FiniteFloat, check_output, handle_errors, json_option,
                                 models_dir_option, store_option)
+from linkage.cli.decide_cmds import _model_option
 from linkage.jsonable import jsonable
 
 
@@ -50,8 +51,7 @@ def _window(ctx, param, value):
               help="Write a small PNG chart of the samples.")
 @click.option("--out", "out_path", type=click.Path(dir_okay=False, path_type=Path),
               help="Write the JSON to this file.")
-@click.option("--model", "model_id", default="latest", show_default=True,
-              help="Model id from 'linkage models', or 'latest'.")
+@_model_option
 @click.option("--seed", default=0, show_default=True, type=int)
 @models_dir_option
 @store_option

@@ -179,3 +179,30 @@ def test_detection_and_correction_over_many_lots(lab):
     # 99 % χ² interval for an SD of 1 from 60 values
     lo, hi = np.sqrt(stats.chi2.ppf([0.005, 0.995], 59) / 59)
     assert lo <= np.std(z, ddof=1) <= hi, np.std(z, ddof=1)
+
+
+def test_window_from_the_spec_and_a_gap_correction(lab):
+    """--spec finds the window at the lot's settings (as `linkage window` does); --adjust roll_gap_mm corrects the
+    gap instead: porosity rises with the gap in the truth (Truth.porosity_per_mm_gap > 0), so a run drifting porous
+    is corrected by a smaller gap."""
+    folder, ws, truth = lab
+    from linkage.synthetic import WINDOW_SPEC, spec_toml
+
+    spec = folder / "spec.toml"
+    spec.write_text(spec_toml(WINDOW_SPEC), encoding="utf-8")
+    atline = folder / "atline_gap.csv"
+    drifting_samples(truth, 10, 0.5 * truth.porosity_replicate_sd, seed=3).to_csv(atline, index=False)
+    sets = [f"--set={k}={v}" for k, v in {**SETTINGS, "mill_screen_mm": 1.0, "compression_force_kn": 14}.items()]
+    r = CliRunner().invoke(cli, ["running", str(atline), *sets, "--spec", str(spec), "--adjust", "roll_gap_mm",
+                                 "--json", "--store", str(ws.store), "--models-dir", str(ws.models_dir)],
+                           catch_exceptions=False)
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert d["window"]["source"].startswith("window of")
+    assert 0 < d["window"]["low"] < d["window"]["high"] < 1
+    assert d["sensitivity"]["input"] == "roll_gap_mm" and d["sensitivity"]["value"] > 0
+    level = d["level"]["value"]
+    if level > d["window"]["centre"]:
+        assert d["correction"]["change"] < 0
+    else:
+        assert d["correction"]["change"] > 0
