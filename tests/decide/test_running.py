@@ -233,3 +233,25 @@ def test_window_usage_errors(tmp_path, args, message):
                                  "--models-dir", str(tmp_path / "models")])
     assert r.exit_code == 2
     assert message in r.output
+
+
+def test_samples_from_a_workbook_are_read_by_the_template(tmp_path):
+    from openpyxl import Workbook
+
+    from linkage.decide.running import read_samples
+
+    wb = Workbook()
+    ws = wb.active
+    ws.title = "ribbon"
+    ws.append(["lot", "sample", "sampled_at", "envelope_density_g_cm3", "skeletal_density_g_cm3"])
+    ws.append(["R-7", "1", "2026-03-02T08:00:00", 1.05, 1.53])
+    ws.append(["R-7", "2", "2026-03-02T08:25:00", 1.04, 1.53])
+    path = tmp_path / "atline.xlsx"
+    wb.save(path)
+    df, lot, problems = read_samples(path)
+    assert problems == [] and lot == "R-7"
+    assert list(df["envelope_density_g_cm3"]) == [1.05, 1.04]
+    ws.append(["R-7", "3", None, 1.04, 1.53])
+    wb.save(path)
+    _, _, problems = read_samples(path)
+    assert [(p.row, p.column) for p in problems] == [(4, "sampled_at")]

@@ -172,6 +172,8 @@ def test_detection_and_correction_over_many_lots(lab):
         c = res.correction
         offset = true_mean_after(truth, c["suggested"], rate, k) - res.window["centre"]
         z.append(offset / (c["se"] * abs(c["sensitivity_at_suggested"])))
+    text = res.text()
+    assert "Drifting upward" in text and linkage.CAUTION in text
     sigma = res.sigma["value"]
     i = np.arange(1, 500)
     arl = 1 + shewhart_run_length(rate / sigma * (i - 1) - rate / sigma * (BASELINE - 1) / 2).sum()
@@ -199,6 +201,10 @@ def test_window_from_the_spec_and_a_gap_correction(lab):
     assert r.exit_code == 0, r.output
     d = json.loads(r.stdout)
     assert d["window"]["source"].startswith("window of")
+    # the Python API gives the same advice, and records it too
+    same = ws.running(atline, settings={**SETTINGS, "mill_screen_mm": 1.0, "compression_force_kn": 14}, spec=spec,
+                      adjust="roll_gap_mm")
+    assert same.recorded and same.to_dict()["correction"] == d["correction"]
     assert 0 < d["window"]["low"] < d["window"]["high"] < 1
     assert d["sensitivity"]["input"] == "roll_gap_mm" and d["sensitivity"]["value"] > 0
     level = d["level"]["value"]
