@@ -26,6 +26,8 @@ call               what it does                                         recorded
                    one per row)                                          (when the store exists)
 :func:`report`     the self-contained HTML report                        —
 :func:`watch`      the drift watch                                       ``watch``
+:func:`running`    guidance for a lot in progress from its at-line       ``running``
+                   samples
 :func:`retrain`    a challenger, promoted only by the rule               ``retrain`` or ``promote``
 :func:`audit`      the audit trail, as a DataFrame                       —
 =================  ===================================================  ==============================
@@ -58,7 +60,7 @@ if TYPE_CHECKING:
     from linkage.spec import Spec
 
 __all__ = ["Workspace", "ingest", "assemble", "train", "window", "whatif", "whatif_rows", "report", "watch",
-           "retrain", "audit", "models", "record"]
+           "retrain", "audit", "models", "record", "running"]
 
 #: a progress callback: ``progress(label, done, total)``
 Progress = Callable[[str, int, int], None]
@@ -463,6 +465,92 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
                    time_point=time_point_text(chain) if "dissolution_pct" in chain.targets else None)
 
 
+def running(samples, *, settings: Mapping[str, float] | None = None, process=None, spec=None,
+            window: tuple[float, float] | None = None, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR,
+            model="latest", adjust: str = "roll_force_kn_per_cm", baseline: int = 5,
+            confirm_shift_sd: float = 1.0, alpha: float = 0.05, power: float = 0.9, seed: int = 0,
+            assurance: float = 0.9):
+    """Guidance for a lot in progress (``linkage running``): its at-line
+    samples (``samples``, a CSV or XLSX of the ribbon table) against the
+    porosity window (``window`` as (low, high), or found under ``spec``) and
+    the within-lot limits of the training lots in ``store``, whether the run
+    is drifting, and a correction of ``adjust`` with its uncertainty and the
+    samples to confirm it; see :mod:`linkage.decide.running`. The lot's
+    settings come from its row of ``process`` (a process table) and
+    ``settings`` (which win); the ribbon stage's other inputs are held at the
+    training median. Logged as ``running`` with the advice."""
+    from linkage.decide import running as guide
+    from linkage.decide.whatif import check_values
+    from linkage.exceptions import InputError, UsageError
+    from linkage.store import LotStore
+
+    if (spec is None) == (window is None):
+        raise UsageError("give the porosity window: --window LOW:HIGH or --spec spec.toml (one of them)")
+    if window is not None:
+        low, high = (float(v) for v in window)
+        if not 0 < low < high < 1:
+            raise UsageError(f"--window must be LOW:HIGH with 0 < LOW < HIGH < 1 (porosity fractions); got "
+                             f"{low:g}:{high:g}")
+    if adjust not in guide.ADJUSTABLE:
+        raise UsageError(f"--adjust must be one of {', '.join(guide.ADJUSTABLE)}; got {adjust!r}")
+    if baseline < 2:
+        raise UsageError(f"--baseline must be at least 2 samples; got {baseline}")
+    spec = _spec(spec)
+    df, lot, problems = guide.read_samples(samples)
+    from_process: dict[str, float] = {}
+    if process is not None:
+        from_process, more = guide.process_settings(process, lot)
+        problems += more
+    if problems:
+        raise InputError(problems)
+    fitted = None
+    if window is None:  # the window is found on the fitted chain (its training ranges), the rest on its numbers
+        fitted = _fitted(models_dir, model)
+        model = fitted.model_id if model is None or isinstance(model, str) else fitted
+    lean = _lean(models_dir, model)
+    given = {k: float(v) for k, v in (settings or {}).items()}
+    check_values(lean, given)
+    known = set(lean.root_inputs())
+    values = {k: v for k, v in from_process.items() if k in known}
+    values.update(given)
+    target = lean.targets[guide.POROSITY]
+    held = [k for k in target.inputs if k not in values]
+    values.update({k: float(lean.medians[k]) for k in held})
+    if window is None:
+        from linkage.decide.window import find_window
+
+        held_for_window = {k: v for k, v in values.items() if k != guide.POROSITY}
+        found = find_window(fitted, spec, settings=held_for_window, seed=seed, assurance=assurance)
+        if not found.found:
+            raise UsageError(f"the spec gives no porosity window at these settings (model {lean.model_id}); "
+                             "give --window LOW:HIGH")
+        window, source = (found.low.value, found.high.value), f"window of {spec.file or 'the spec'}"
+    else:
+        source = "given (--window)"
+    stage = next(st for st in lean.stages if guide.POROSITY in st.targets)
+    with LotStore(store, create=False) as s:
+        ribbon = s.current_tables().get("ribbon")
+    if ribbon is None:
+        import pandas as pd
+
+        ribbon = pd.DataFrame(columns=["lot", "sample", "envelope_density_g_cm3", "skeletal_density_g_cm3",
+                                       "sampled_at"])
+    result = guide.advise(lean, df, values, window, ribbon, stage.residual_lots, lot=lot, window_source=source,
+                          adjust=adjust, baseline=baseline, confirm_shift_sd=confirm_shift_sd, alpha=alpha,
+                          power=power, held_at_median=held)
+    import hashlib
+
+    digest = hashlib.sha256(Path(samples).read_bytes()).hexdigest()
+    result.recorded = record(store, "running", model_id=lean.model_id, lot=lot,
+                             inputs={"samples_file": Path(samples).name, "samples_sha256": digest,
+                                     "settings": values, "held_at_median": held, "window": list(window),
+                                     "window_source": source, "adjust": adjust, "baseline": baseline,
+                                     "confirm_shift_sd": confirm_shift_sd, "alpha": alpha, "power": power,
+                                     "spec_sha256": None if spec is None else spec.sha256},
+                             outputs=result.to_dict())
+    return result
+
+
 def audit(store=DEFAULT_STORE, *, lot: str | None = None) -> pd.DataFrame:
     """The store's audit trail, oldest first (``linkage audit``): one row
     per entry with ``id``, ``at``, ``user``, ``action``, ``lot``,
@@ -538,6 +626,10 @@ class Workspace:
     def watch(self, **kwargs) -> Watched:
         """See :func:`watch`."""
         return watch(store=self.store, models_dir=self.models_dir, **kwargs)
+
+    def running(self, samples, **kwargs):
+        """See :func:`running`."""
+        return running(samples, store=self.store, models_dir=self.models_dir, **kwargs)
 
     def audit(self, **kwargs) -> pd.DataFrame:
         """See :func:`audit`."""

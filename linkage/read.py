@@ -1357,14 +1357,17 @@ def _suggest(name: str, choices: Iterable[str]) -> str:
 # --------------------------------------------------------------------------- public readers
 
 
-def read_table(path: Path, table: str | None = None, mapping: Mapping | None = None) -> pd.DataFrame:
+def read_table(path: Path, table: str | None = None, mapping: Mapping | None = None, *,
+               definition: Table | None = None) -> pd.DataFrame:
     """Read one CSV or XLSX file as a checked table of the template.
 
     ``table`` defaults to the file's stem. Returns typed columns (see
     :func:`frame_from_columns`): every template column of the table in template
     order, then the extra columns in file order. ``attrs["source_rows"]`` gives
     each row's spreadsheet row. Raises :class:`InputError` with every problem
-    of the file.
+    of the file. ``definition`` checks the file against a stricter variant of
+    the table (the same columns, some of them required; default the
+    template's).
     """
     path = Path(path)
     name = table if table is not None else _norm_header(path.stem).lower()
@@ -1397,7 +1400,7 @@ def read_table(path: Path, table: str | None = None, mapping: Mapping | None = N
         raise InputError(Problem(path.name, "this spreadsheet format is not read; save as .xlsx or CSV UTF-8"))
     else:
         raw = _read_csv(path.read_bytes(), path.name)
-    return _build(raw, TABLES[name], cmaps)
+    return _build(raw, definition or TABLES[name], cmaps)
 
 
 def read_folder(folder: Path, mapping: Mapping | None = None, *,

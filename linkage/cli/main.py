@@ -29,6 +29,7 @@ COMMANDS: dict[str, str] = {
     "retrain": "linkage.cli.lifecycle_cmds:retrain",
     "watch": "linkage.cli.lifecycle_cmds:watch",
     "audit": "linkage.cli.lifecycle_cmds:audit",
+    "running": "linkage.cli.running_cmds:running",
     "verify": "linkage.cli.store_cmds:verify",
 }
 

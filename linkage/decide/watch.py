@@ -186,6 +186,26 @@ def porosity_between(chain, table: pd.DataFrame) -> dict:
     }
 
 
+def pooled_within_sd(ribbon: pd.DataFrame | None, lots) -> tuple[float, int, int]:
+    """Pooled within-lot SD of replicate ribbon porosity (1 − envelope/skeletal
+    density) over ``lots``: sqrt(Σ (n_i − 1)·s_i² / Σ (n_i − 1)), with the
+    number of lots that have two or more replicates and the degrees of
+    freedom Σ (n_i − 1) (the pooled variance of the lots; the estimate
+    :func:`porosity_within` has always used). NaN with 0 lots where none
+    has two replicates."""
+    if ribbon is None or ribbon.empty:
+        return float("nan"), 0, 0
+    df = ribbon[ribbon["lot"].astype(str).isin({str(lot) for lot in lots})]
+    porosity = 1 - df["envelope_density_g_cm3"] / df["skeletal_density_g_cm3"]
+    by_lot = porosity.groupby(df["lot"].astype(str))
+    pooled = by_lot.var(ddof=1).dropna()
+    counts = by_lot.count().reindex(pooled.index)
+    dof = int((counts - 1).sum())
+    if not len(pooled) or dof == 0:
+        return float("nan"), 0, 0
+    return float(np.sqrt(((counts - 1) * pooled).sum() / dof)), int(len(pooled)), dof
+
+
 def porosity_within(ribbon: pd.DataFrame | None, trained_lots: set[str], window: tuple[float, float] | None,
                     lots: list[str] | None = None) -> list[dict]:
     """Each ribbon sample in time order within its lot, against the window
@@ -196,10 +216,7 @@ def porosity_within(ribbon: pd.DataFrame | None, trained_lots: set[str], window:
     df = ribbon.copy()
     df["lot"] = df["lot"].astype(str)
     df["porosity"] = 1 - df["envelope_density_g_cm3"] / df["skeletal_density_g_cm3"]
-    ref = df[df["lot"].isin(trained_lots)]
-    pooled = ref.groupby("lot")["porosity"].var(ddof=1).dropna()
-    counts = ref.groupby("lot")["porosity"].count().reindex(pooled.index)
-    sigma = float(np.sqrt(((counts - 1) * pooled).sum() / (counts - 1).sum())) if len(pooled) else float("nan")
+    sigma = pooled_within_sd(ribbon, trained_lots)[0]
     if lots is not None:
         df = df[df["lot"].isin(lots)]
     order = ["lot", "sampled_at"] if "sampled_at" in df and df["sampled_at"].notna().any() else ["lot"]

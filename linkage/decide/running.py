@@ -1,0 +1,606 @@
+"""Guidance for a lot in progress: at-line ribbon samples against the window
+and the within-lot limits, drift, and a correction of roll force (or gap).
+
+What it answers, from the samples taken so far (``sampled_at`` order):
+
+1. **Each sample and the running mean** against the porosity window and the
+   within-lot limits. σ is the pooled within-lot SD of ribbon replicates of
+   the model's training lots (:func:`linkage.decide.watch.pooled_within_sd`);
+   the centre is the mean of the lot's first ``baseline`` samples (the
+   lot's own level when the run began: lots differ from one another by more
+   than their samples do, so a centre from other lots would flag every lot).
+   Each sample also carries the flags of
+   :func:`linkage.decide.watch.porosity_within` (outside the window; more
+   than 3σ from the mean of the samples before it).
+2. **Drift**: the individuals (Shewhart) chart with limits centre ± 3σ, the
+   Western Electric run rules and the EWMA chart (λ = 0.2, L = 3, as the
+   drift watch uses) of :mod:`linkage.charts`, applied to the samples in
+   order. The run is drifting from the first sample where any of them
+   signals; the output names each rule at each sample.
+3. **The level now**: when a drift is signalled, the least-squares line of
+   porosity on hours since the first sample, at the last sample; its
+   standard error with σ known is σ·sqrt(1/n + (t_n − t̄)²/S_tt) (the
+   variance of a fitted mean response, e.g. Montgomery, Peck & Vining 2012,
+   Introduction to Linear Regression Analysis, 5th ed., §2.4.2). Without a
+   drift, the running mean, with standard error σ/√n.
+4. **The correction**: the ribbon stage's local sensitivity s = ∂ε/∂x of the
+   setting x (roll force, or gap) at the lot's settings is the central
+   difference (f(x + h) − f(x − h)) / 2h of the stage's prediction, h = 5 %
+   of the training range of x (a secant wide enough for piecewise-constant
+   trees; exact for a stage linear or quadratic in x). Its uncertainty is
+   the SD of the same difference over the model's lot-level bootstrap
+   replicates (:mod:`linkage.models.bootstrap`; Efron & Tibshirani 1993, §6.2,
+   the bootstrap estimate of standard error). The change Δx = (c − L)/s
+   brings the level L to the window's centre c; its standard uncertainty by
+   the law of propagation of uncertainty (JCGM 100:2008, GUM, eq. (10),
+   first order, L and s independent):
+   u(Δx)² = (u(L)/s)² + (Δx·u(s)/s)².
+5. **Samples to confirm**: the number n of further samples whose mean tells
+   an offset of δ = ``confirm_shift_sd``·σ from the centre with a two-sided
+   z-test at level α and power 1 − β: n = ⌈((z_{1−α/2} + z_{1−β})·σ/δ)²⌉
+   (Montgomery & Runger 2014, Applied Statistics and Probability for
+   Engineers, 6th ed., §9.2.2, eq. 9-22; the term of the far tail is left out,
+   as there).
+
+The guidance answers "where is this run going and what would bring it back";
+it is decision support, not release testing.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from linkage import CAUTION
+from linkage.charts import Reference, ewma, run_rules, shewhart_limits
+from linkage.decide.watch import EWMA_L, EWMA_LAMBDA
+
+__all__ = ["ADJUSTABLE", "STEP_SHARE", "sensitivity", "replicate_sensitivities", "replicate_secants",
+           "solve_setting", "correction",
+           "sample_size", "samples_to_confirm", "shewhart_run_length", "level_now", "chart_signals", "advise", "RunningResult",
+           "METHOD", "read_samples", "process_settings", "draw_chart"]
+
+POROSITY = "ribbon_porosity"
+#: settings whose correction is suggested
+ADJUSTABLE = ("roll_force_kn_per_cm", "roll_gap_mm")
+#: finite-difference half step as a share of the setting's training range
+STEP_SHARE = 0.05
+
+METHOD = {
+    "limits": "centre = mean of the lot's first baseline samples; σ = pooled within-lot SD of the training lots' "
+              "ribbon replicates; individuals chart centre ± 3σ with the Western Electric run rules and EWMA "
+              "(λ = 0.2, L = 3), linkage.charts (NIST/SEMATECH e-Handbook §6.3.2; Montgomery 2009 §9.2)",
+    "level": "with a drift: least-squares line of porosity on hours at the last sample, SE σ·sqrt(1/n + "
+             "(t_n − t̄)²/S_tt) (Montgomery, Peck & Vining 2012 §2.4.2); without: the running mean, SE σ/√n",
+    "sensitivity": "central difference of the ribbon stage's prediction at the lot's settings, half step 5 % of the "
+                   "setting's training range; uncertainty = SD over the lot-level bootstrap replicates "
+                   "(Efron & Tibshirani 1993 §6.2)",
+    "correction": "Δx = (centre − level)/s; u(Δx)² = (u(level)/s)² + (Δx·u(s)/s)², first-order law of "
+                  "propagation of uncertainty (JCGM 100:2008 eq. 10); 95 % interval ± 1.96·u(Δx)",
+    "confirm": "n = ⌈((z_{1−α/2} + z_{1−β})·σ/δ)²⌉, two-sided z-test on the mean of the next n samples "
+               "(Montgomery & Runger 2014 §9.2.2, eq. 9-22)",
+}
+
+
+# --------------------------------------------------------------------------- pieces
+
+
+def sensitivity(predict, settings: dict[str, float], name: str, step: float) -> np.ndarray:
+    """Central difference (f(x + h) − f(x − h)) / 2h of ``predict`` in
+    ``name`` at ``settings``.
+
+    ``predict`` maps {input: array of 2 values} to an array of shape
+    (..., 2) (one model, or B bootstrap replicates stacked in front); the
+    result has the leading shape. Exact for f linear or quadratic in x; for a
+    smooth f the error is h²·f'''(ξ)/6 (the central-difference error term,
+    e.g. Burden & Faires 2011, Numerical Analysis, 9th ed., §4.1, eq. 4.5).
+    """
+    if not step > 0:
+        raise ValueError(f"step must be positive; got {step}")
+    x = float(settings[name])
+    columns = {k: np.full(2, float(v)) for k, v in settings.items()}
+    columns[name] = np.array([x + step, x - step])
+    y = np.asarray(predict(columns), float)
+    return (y[..., 0] - y[..., 1]) / (2 * step)
+
+
+def replicate_sensitivities(lean, settings: dict[str, float], name: str, step: float,
+                            target: str = POROSITY) -> np.ndarray | None:
+    """The sensitivity of every bootstrap replicate of ``target`` (None when
+    the model has no replicates)."""
+    from linkage.decide.bound import replicates_of
+
+    reps = replicates_of(lean)
+    if not reps.available or target not in reps.models:
+        return None
+    inputs = lean.targets[target].inputs
+    models = reps.models[target]
+
+    def predict(columns):
+        X = np.column_stack([columns[c] for c in inputs])
+        return models.predict(np.broadcast_to(X, (len(models), *X.shape)))
+
+    values = sensitivity(predict, {k: settings[k] for k in inputs}, name, step)
+    return values[np.isfinite(values)]
+
+
+def solve_setting(change_at, x0: float, target: float, slope_at, *, tol: float = 1e-7,
+                  max_iter: int = 30) -> tuple[float, bool]:
+    """The setting x with change_at(x) = target, by Newton steps from x0
+    with the local sensitivity ``slope_at(x)`` (Burden & Faires 2011, §2.3):
+    x ← x + (target − change_at(x)) / slope_at(x). Returns (x, converged);
+    a step that leaves x ≤ 0 is halved. Where the stage is linear in x the
+    first step is exact."""
+    x = float(x0)
+    for _ in range(max_iter):
+        miss = target - change_at(x)
+        if abs(miss) <= tol:
+            return x, True
+        slope = slope_at(x)
+        if not (math.isfinite(slope) and slope != 0):
+            return x, False
+        step = miss / slope
+        while x + step <= 0:
+            step /= 2
+        x += step
+    return x, abs(target - change_at(x)) <= tol
+
+
+def replicate_secants(lean, settings: dict[str, float], name: str, x0: float, x1: float,
+                      target: str = POROSITY) -> np.ndarray | None:
+    """(f_b(x1) − f_b(x0)) / (x1 − x0) for every bootstrap replicate b of
+    ``target`` (None without replicates): the central difference at the
+    midpoint with half the distance as its step."""
+    if x1 == x0:
+        raise ValueError("a secant needs two different settings")
+    return replicate_sensitivities(lean, dict(settings, **{name: (x0 + x1) / 2}), name, abs(x1 - x0) / 2, target)
+
+
+def correction(centre: float, level: float, level_se: float, slope: float,
+               slope_se: float | None, level_slope: float | None = None) -> tuple[float, float]:
+    """(Δx, u(Δx)): the change of the setting that moves ``level`` to
+    ``centre`` through a stage that changes by ``slope`` per unit of the
+    setting (Δx = (c − L)/s), and its standard uncertainty by the first-order
+    law of propagation of uncertainty (JCGM 100:2008, eq. (10)), level and
+    slope independent: u(Δx)² = (u(L)/s_L)² + (Δx·u(s)/s)², where s_L
+    (``level_slope``, default ``slope``) is the stage's local sensitivity at
+    the new setting, ∂Δx/∂L = −1/s_L when Δx solves f(x0 + Δx) − f(x0) = c − L.
+    ``slope_se`` None counts the level's uncertainty only."""
+    level_slope = slope if level_slope is None else level_slope
+    if not (slope != 0 and math.isfinite(slope) and level_slope != 0 and math.isfinite(level_slope)):
+        raise ValueError(f"a correction needs a non-zero finite sensitivity; got {slope}, {level_slope}")
+    dx = (centre - level) / slope
+    var = (level_se / level_slope) ** 2 + (0.0 if slope_se is None else (dx * slope_se / slope) ** 2)
+    return float(dx), float(math.sqrt(var))
+
+
+def sample_size(shift_sd: float, alpha: float = 0.05, power: float = 0.9) -> float:
+    """n = ((z_{1−α/2} + z_{power}) / shift_sd)², before rounding up: the
+    samples whose mean detects an offset of ``shift_sd`` standard deviations
+    with a two-sided z-test at level ``alpha`` and ``power`` (Montgomery &
+    Runger 2014, eq. 9-22)."""
+    from scipy.stats import norm
+
+    if not shift_sd > 0 or not 0 < alpha < 1 or not 0 < power < 1:
+        raise ValueError("shift_sd must be positive, alpha and power strictly between 0 and 1")
+    return float(((norm.ppf(1 - alpha / 2) + norm.ppf(power)) / shift_sd) ** 2)
+
+
+def samples_to_confirm(shift_sd: float, alpha: float = 0.05, power: float = 0.9) -> int:
+    """:func:`sample_size` rounded up (at least 1)."""
+    return max(1, math.ceil(sample_size(shift_sd, alpha, power) - 1e-9))
+
+
+def shewhart_run_length(shift_sd, L: float = 3.0) -> np.ndarray:
+    """P(RL > t), t = 1..len(shift_sd): the survival function of the run
+    length of an individuals chart with limits ± L·σ (rule 1 alone) when
+    sample t has mean ``shift_sd[t-1]``·σ away from the centre and the
+    samples are independent: P(RL > t) = Π_{i ≤ t} [Φ(L − μ_i) − Φ(−L − μ_i)].
+    For a constant shift this is geometric, with ARL = 1/p (Montgomery 2009,
+    §5.3.3 and §6.2; ARL₀ = 370 at L = 3). The other rules and the EWMA only
+    add signals, so the run length of the whole scheme is at most this one,
+    sample by sample."""
+    from scipy.stats import norm
+
+    mu = np.asarray(shift_sd, float)
+    stay = norm.cdf(L - mu) - norm.cdf(-L - mu)
+    return np.cumprod(stay)
+
+
+def level_now(porosity, hours, sigma: float, drifting: bool) -> dict:
+    """The lot's level at its last sample with its standard error (σ known):
+    the least-squares line at the last sample when ``drifting`` (and three
+    or more samples at two or more times), else the running mean."""
+    y = np.asarray(porosity, float)
+    t = np.asarray(hours, float)
+    n = len(y)
+    if drifting and n >= 3 and np.ptp(t) > 0:
+        tbar = t.mean()
+        stt = float(((t - tbar) ** 2).sum())
+        slope = float(((t - tbar) * (y - y.mean())).sum() / stt)
+        value = float(y.mean() + slope * (t[-1] - tbar))
+        se = sigma * math.sqrt(1 / n + (t[-1] - tbar) ** 2 / stt)
+        return {"value": value, "se": float(se), "basis": "trend at the last sample",
+                "rate_per_hour": slope, "rate_per_hour_se": float(sigma / math.sqrt(stt))}
+    return {"value": float(y.mean()), "se": float(sigma / math.sqrt(n)), "basis": "running mean",
+            "rate_per_hour": None, "rate_per_hour_se": None}
+
+
+def chart_signals(porosity, centre: float, sigma: float) -> tuple[list[list[str]], np.ndarray, np.ndarray,
+                                                                  np.ndarray]:
+    """Per sample, the signals of the individuals chart (± 3σ), the run rules
+    and the EWMA (:mod:`linkage.charts`), each with its side; and the EWMA
+    statistic with its limits."""
+    x = np.asarray(porosity, float)
+    ref = Reference(mu0=float(centre), sigma=float(sigma), n=len(x))
+    rules = run_rules(x, ref)
+    z, zl, zh = ewma(x, ref, lam=EWMA_LAMBDA, L=EWMA_L)
+    out = []
+    for i, fired in enumerate(rules):
+        side = "upward" if x[i] > centre else "downward"
+        reasons = [f"{r} ({side})" for r in fired]
+        if z[i] > zh[i]:
+            reasons.append("EWMA above its upper limit (upward)")
+        elif z[i] < zl[i]:
+            reasons.append("EWMA below its lower limit (downward)")
+        out.append(reasons)
+    return out, z, zl, zh
+
+
+# --------------------------------------------------------------------------- input
+
+
+def read_samples(path) -> tuple[object, str | None, list]:
+    """The at-line samples of one running lot: a CSV or XLSX with the ribbon
+    table's columns (``lot``, ``sample``, ``envelope_density_g_cm3``,
+    ``skeletal_density_g_cm3``, ``sampled_at``), read by the template's cell
+    and number rules (:func:`linkage.read.read_table`). Returns (samples, lot,
+    problems): ``sampled_at`` is required in every row here, and the file
+    holds one lot; each breach is a :class:`~linkage.exceptions.Problem` with
+    its row. The lot rule is checked once the template's rules hold."""
+    from dataclasses import replace
+
+    from linkage.exceptions import InputError, Problem
+    from linkage.read import lot_key, read_table
+    from linkage.schema import TABLES
+
+    ribbon = TABLES["ribbon"]
+    strict = replace(ribbon, columns=tuple(replace(c, required=True, nonempty=True) if c.name == "sampled_at" else c
+                                           for c in ribbon.columns))  # when each sample was taken is needed here
+    path = Path(path)
+    try:
+        df = read_table(path, "ribbon", definition=strict)
+    except InputError as exc:
+        return None, None, list(exc.problems)
+    rows = list(df.attrs.get("source_rows", range(2, len(df) + 2)))
+    problems = []
+    if df.empty:
+        problems.append(Problem(path.name, "no samples: the file holds a header and no rows"))
+        return df, None, problems
+    keys = [lot_key(str(v)) for v in df["lot"]]
+    first = keys[0]
+    problems += [Problem(path.name, f"one running lot per file: this row's lot is not {df['lot'].iloc[0]!r} "
+                         "(of the first row)", row=r, column="lot", value=str(v))
+                 for r, k, v in zip(rows, keys, df["lot"]) if k != first]
+    return df, str(df["lot"].iloc[0]), problems
+
+
+def process_settings(path, lot: str | None) -> tuple[dict[str, float], list]:
+    """The numeric settings of ``lot``'s row of a process table (CSV or
+    XLSX, the template's ``process`` columns; other lots' rows may be there),
+    and the problems found."""
+    from linkage.exceptions import InputError, Problem
+    from linkage.read import lot_key, read_table
+
+    path = Path(path)
+    try:
+        df = read_table(path, "process")
+    except InputError as exc:
+        return {}, list(exc.problems)
+    if lot is None:
+        return {}, []
+    match = df[[lot_key(str(v)) == lot_key(lot) for v in df["lot"]]]
+    if match.empty:
+        return {}, [Problem(path.name, f"no row for lot {lot!r}, the lot of the samples", column="lot")]
+    row = match.iloc[0]
+    out = {}
+    for name in df.columns:
+        value = row[name]
+        if name != "lot" and isinstance(value, (int, float, np.floating)) and np.isfinite(value):
+            out[name] = float(value)
+    return out, []
+
+
+# --------------------------------------------------------------------------- the answer
+
+
+@dataclass
+class RunningResult:
+    """Guidance for one running lot (see the module notes). ``to_dict()`` is
+    what ``linkage running --json`` prints; ``text()`` what it prints
+    otherwise."""
+
+    lot: str
+    model_id: str
+    adjust: str
+    settings: dict[str, float]
+    held_at_median: list[str]
+    window: dict
+    sigma: dict
+    centre: float
+    baseline: int
+    samples: list[dict]
+    drift: dict
+    level: dict
+    expected_porosity: float
+    sensitivity: dict
+    correction: dict | None
+    confirm: dict
+    notes: list[str] = field(default_factory=list)
+    recorded: bool = False
+
+    @property
+    def limits(self) -> tuple[float, float]:
+        return shewhart_limits(Reference(self.centre, self.sigma["value"], len(self.samples)))
+
+    def to_dict(self) -> dict:
+        last = self.samples[-1]
+        return {
+            "lot": self.lot, "model_id": self.model_id, "adjust": self.adjust,
+            "settings": self.settings, "held_at_median": self.held_at_median,
+            "window": self.window,
+            "within_lot_sd": self.sigma,
+            "centre": self.centre, "baseline_samples": self.baseline,
+            "limits": list(self.limits),
+            "samples": self.samples,
+            "running_mean": last["running_mean"], "running_mean_se": last["running_mean_se"],
+            "drift": self.drift,
+            "level": self.level,
+            "expected_porosity": self.expected_porosity,
+            "sensitivity": self.sensitivity,
+            "correction": self.correction,
+            "confirm": self.confirm,
+            "method": METHOD,
+            "notes": self.notes,
+            "recorded": self.recorded,
+            "caution": CAUTION,
+        }
+
+    def text(self) -> str:
+        w, s = self.window, self.sigma
+        lo, hi = self.limits
+        lines = [f"Running lot {self.lot} (model {self.model_id}), {len(self.samples)} samples",
+                 f"Window {w['low']:.3f}–{w['high']:.3f} (centre {w['centre']:.3f}; {w['source']}); within-lot SD "
+                 f"{s['value']:.4f} from {s['lots']} training lots; limits {lo:.3f}–{hi:.3f} around the first "
+                 f"{self.baseline} samples' mean {self.centre:.3f}", "",
+                 f"{'sample':<10} {'sampled_at':<20} {'porosity':>8} {'run.mean':>8}  signals"]
+        for r in self.samples:
+            marks = "; ".join(r["signals"] + r["flags"])
+            lines.append(f"{r['sample']:<10} {(r['sampled_at'] or '')[:19]:<20} {r['porosity']:>8.4f} "
+                         f"{r['running_mean']:>8.4f}  {marks}")
+        d = self.drift
+        lines.append("")
+        if d["drifting"]:
+            lines.append(f"Drifting {d['direction']}: first signal at sample {d['first_signal_sample']} "
+                         f"(#{d['first_signal_index'] + 1}): {'; '.join(d['rules'])}")
+        else:
+            lines.append("No drift signalled.")
+        lv = self.level
+        lines.append(f"Level now {lv['value']:.4f} ± {lv['se']:.4f} (SE; {lv['basis']}); the model expects "
+                     f"{self.expected_porosity:.4f} at these settings")
+        sn = self.sensitivity
+        unit = _unit(self.adjust)
+        se = f" ± {sn['se']:.4g}" if sn["se"] is not None else " (no bootstrap replicates: uncertainty unknown)"
+        lines.append(f"Sensitivity d porosity / d {self.adjust}: {sn['value']:.4g}{se} per {unit}")
+        c = self.correction
+        if c is None:
+            lines.append("No correction: " + "; ".join(self.notes))
+        else:
+            lines.append(f"Suggested {self.adjust}: {c['suggested']:.3g} {unit} (now {c['current']:.3g}; change "
+                         f"{c['change']:+.3g} ± {c['se']:.2g}, 95 % {c['interval_95'][0]:.3g} to "
+                         f"{c['interval_95'][1]:.3g}); the model then expects {c['expected_porosity']:.4f} "
+                         f"against the centre {w['centre']:.4f}")
+        cf = self.confirm
+        lines.append(f"Confirm with {cf['samples']} further samples (detects an offset of {cf['shift_sd']:g} within-lot "
+                     f"SD from the centre, two-sided α = {cf['alpha']:g}, power {cf['power']:g})")
+        for note in self.notes if c is not None else []:
+            lines.append(f"Note: {note}")
+        if self.held_at_median:
+            lines.append(f"Held at the training median: {', '.join(self.held_at_median)}")
+        lines.append("")
+        lines.append(CAUTION)
+        return "\n".join(lines)
+
+    def __str__(self) -> str:
+        return self.text()
+
+
+def _unit(name: str) -> str:
+    return {"roll_force_kn_per_cm": "kN/cm", "roll_gap_mm": "mm"}.get(name, "unit")
+
+
+def _hours(sampled_at) -> np.ndarray:
+    """Hours since the first sample."""
+    import pandas as pd
+
+    t = pd.to_datetime(pd.Series(list(sampled_at)), utc=True)
+    return ((t - t.iloc[0]).dt.total_seconds() / 3600.0).to_numpy(float)
+
+
+def advise(lean, samples, settings: dict[str, float], window: tuple[float, float], training_ribbon,
+           training_lots, *, lot: str, window_source: str = "given", adjust: str = "roll_force_kn_per_cm",
+           baseline: int = 5, confirm_shift_sd: float = 1.0, alpha: float = 0.05, power: float = 0.9,
+           held_at_median: list[str] | None = None) -> RunningResult:
+    """The guidance for one running lot (see the module notes).
+
+    ``samples``: a DataFrame with ``sample``, ``sampled_at`` and the two
+    densities (the ribbon table of the template), one lot; ``settings``: every
+    input of the ribbon stage; ``window``: (low, high) porosity;
+    ``training_ribbon``: the ribbon replicates of the store, of which those of
+    ``training_lots`` give the within-lot SD."""
+    import pandas as pd
+
+    from linkage.decide.watch import pooled_within_sd, porosity_within
+    from linkage.exceptions import InsufficientDataError, UsageError
+    from linkage.read import lot_key
+
+    if adjust not in ADJUSTABLE:
+        raise UsageError(f"--adjust must be one of {', '.join(ADJUSTABLE)}; got {adjust!r}")
+    key = lot_key(str(lot))
+    trained = {str(t) for t in training_lots if lot_key(str(t)) != key}  # the running lot is never its own reference
+    sigma, sigma_lots, sigma_dof = pooled_within_sd(training_ribbon, trained)
+    if not (math.isfinite(sigma) and sigma > 0):
+        raise InsufficientDataError("no within-lot SD: the store holds no training lot of model "
+                                    f"{lean.model_id} with two or more ribbon replicates")
+    stage = next(st for st in lean.stages if POROSITY in st.targets)
+    target = lean.targets[POROSITY]
+    if adjust not in target.inputs:
+        raise UsageError(f"the ribbon stage of model {lean.model_id} does not use {adjust}; no correction of it "
+                         f"can be computed (its inputs: {', '.join(target.inputs)})")
+    low, high = float(window[0]), float(window[1])
+    centre_w = (low + high) / 2
+
+    df = samples.copy()
+    df["lot"] = str(lot)
+    df = df.sort_values("sampled_at", kind="stable").reset_index(drop=True)
+    reference = training_ribbon[training_ribbon["lot"].astype(str).isin(trained)]
+    cols = ["lot", "sample", "envelope_density_g_cm3", "skeletal_density_g_cm3", "sampled_at"]
+    # each sample against the window and 3σ of the earlier samples' mean (the drift watch's flags)
+    per = porosity_within(pd.concat([reference[cols], df[cols]], ignore_index=True), trained, (low, high),
+                          lots=[str(lot)])
+    eps = (1 - df["envelope_density_g_cm3"] / df["skeletal_density_g_cm3"]).to_numpy(float)
+    hours = _hours(df["sampled_at"])
+    n = len(eps)
+    m = min(int(baseline), n)
+    centre = float(eps[:m].mean())
+    signals, z, zl, zh = chart_signals(eps, centre, sigma)
+    first = next((i for i, s in enumerate(signals) if s), None)
+    drifting = first is not None
+    direction = None
+    if drifting:
+        direction = "upward" if any("(upward)" in r for r in signals[first]) else "downward"
+
+    rows = []
+    for i in range(n):
+        flags = per[i]["flags"]
+        rows.append({"sample": str(df["sample"].iloc[i]), "sampled_at": per[i]["sampled_at"],
+                     "hours": float(hours[i]), "porosity": float(eps[i]),
+                     "running_mean": float(eps[:i + 1].mean()), "running_mean_se": float(sigma / math.sqrt(i + 1)),
+                     "running_mean_in_window": bool(low <= eps[:i + 1].mean() <= high),
+                     "in_window": bool(low <= eps[i] <= high),
+                     "ewma": float(z[i]), "ewma_low": float(zl[i]), "ewma_high": float(zh[i]),
+                     "signals": signals[i], "flags": flags})
+
+    level = level_now(eps, hours, sigma, drifting)
+    values = {k: float(settings[k]) for k in target.inputs}
+    expected = float(target.predict({k: np.array([v]) for k, v in values.items()})[0])
+    lo_x, hi_x = stage.domain.ranges[adjust] if stage.domain is not None else (values[adjust], values[adjust])
+    step = STEP_SHARE * (hi_x - lo_x) if hi_x > lo_x else STEP_SHARE * abs(values[adjust]) or 1e-3
+    slope = float(sensitivity(lambda c: target.predict(c, raw=True), values, adjust, step))
+    reps = replicate_sensitivities(lean, values, adjust, step)
+    slope_se = float(np.std(reps, ddof=1)) if reps is not None and reps.size >= 2 else None
+    sens = {"input": adjust, "value": slope, "se": slope_se, "half_step": float(step),
+            "replicates": 0 if reps is None else int(reps.size)}
+
+    notes: list[str] = []
+    corr = None
+
+    def at(x: float) -> dict:
+        return {k: np.array([v]) for k, v in dict(values, **{adjust: x}).items()}
+
+    def predict_at(x: float) -> float:
+        return float(target.predict(at(x), raw=True)[0])
+
+    def slope_at(x: float) -> float:
+        return float(sensitivity(lambda c: target.predict(c, raw=True), dict(values, **{adjust: x}), adjust, step))
+
+    if slope == 0:
+        notes.append(f"the ribbon stage's prediction does not change with {adjust} at these settings")
+    else:
+        x0 = values[adjust]
+        wanted = centre_w - level["value"]
+        base = predict_at(x0)
+        new, converged = solve_setting(lambda x: predict_at(x) - base, x0, wanted, slope_at)
+        if not converged:  # a flat or non-monotone stage: the first-order step from the local sensitivity
+            new = x0 + wanted / slope
+            notes.append(f"the ribbon stage's prediction does not reach the centre by changing {adjust} alone "
+                         "(Newton steps did not converge); the step from the local sensitivity is given")
+        dx = new - x0
+        # the secant of the stage over [x0, new] moves the level to the centre; its uncertainty over the replicates
+        secant = (predict_at(new) - base) / dx if dx != 0 else slope
+        reps_sec = replicate_secants(lean, values, adjust, x0, new) if dx != 0 else reps
+        secant_se = float(np.std(reps_sec, ddof=1)) if reps_sec is not None and reps_sec.size >= 2 else None
+        slope_new = slope_at(new)
+        _, u = correction(centre_w, level["value"], level["se"], secant, secant_se, level_slope=slope_new)
+        model_new = float(target.predict(at(new))[0])
+        corr = {"input": adjust, "current": x0, "suggested": float(new), "change": float(dx), "se": float(u),
+                "interval_95": [float(new - 1.959963984540054 * u), float(new + 1.959963984540054 * u)],
+                "expected_porosity": float(level["value"] + model_new - expected),
+                "secant": float(secant), "secant_se": secant_se, "sensitivity_at_suggested": slope_new,
+                "newton_converged": bool(converged),
+                "training_range": [float(lo_x), float(hi_x)],
+                "inside_training_range": bool(lo_x <= new <= hi_x)}
+        if not lo_x <= new <= hi_x:
+            notes.append(f"the suggested {adjust} {new:.3g} lies outside the training range {lo_x:.3g}–{hi_x:.3g}: "
+                         "an extrapolation")
+        if slope_se is not None and abs(slope) < 2 * slope_se:
+            notes.append("the sensitivity is less than twice its own uncertainty: the size of the correction is "
+                         "poorly known")
+    confirm = {"samples": samples_to_confirm(confirm_shift_sd, alpha, power), "shift_sd": float(confirm_shift_sd),
+               "shift": float(confirm_shift_sd * sigma), "alpha": float(alpha), "power": float(power)}
+    drift = {"drifting": drifting, "direction": direction,
+             "first_signal_sample": None if first is None else rows[first]["sample"],
+             "first_signal_index": first, "rules": [] if first is None else signals[first],
+             "signalled_samples": [r["sample"] for r in rows if r["signals"]]}
+    return RunningResult(
+        lot=str(lot), model_id=lean.model_id, adjust=adjust, settings=values,
+        held_at_median=list(held_at_median or []),
+        window={"low": low, "high": high, "centre": centre_w, "source": window_source},
+        sigma={"value": float(sigma), "lots": int(sigma_lots), "dof": int(sigma_dof)},
+        centre=centre, baseline=m, samples=rows, drift=drift, level=level, expected_porosity=expected,
+        sensitivity=sens, correction=corr, confirm=confirm, notes=notes)
+
+
+def draw_chart(result: RunningResult, path) -> None:
+    """A small PNG: the samples and running mean against the window, the
+    within-lot limits and the signals (matplotlib, imported here)."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    rows = result.samples
+    t = [r["hours"] for r in rows]
+    fig, ax = plt.subplots(figsize=(6.4, 3.6), dpi=100)
+    try:
+        w = result.window
+        ax.axhspan(w["low"], w["high"], color="#d8ecd8", label="window")
+        ax.axhline(w["centre"], color="#4a8a4a", lw=0.8, ls=":")
+        lo, hi = result.limits
+        for y in (lo, hi):
+            ax.axhline(y, color="#a04040", lw=0.8, ls="--")
+        ax.axhline(result.centre, color="#a04040", lw=0.6)
+        ax.plot(t, [r["porosity"] for r in rows], "o", color="#333333", ms=4, label="sample")
+        ax.plot(t, [r["running_mean"] for r in rows], "-", color="#2060a0", lw=1.2, label="running mean")
+        ax.plot(t, [r["ewma"] for r in rows], "-", color="#c08020", lw=0.8, label="EWMA")
+        hit = [(r["hours"], r["porosity"]) for r in rows if r["signals"]]
+        if hit:
+            ax.plot(*zip(*hit), "x", color="#c00000", ms=8, mew=2, label="signal")
+        ax.set_xlabel("hours since the first sample")
+        ax.set_ylabel("ribbon porosity [-]")
+        ax.set_title(f"lot {result.lot}: running guidance", fontsize=10)
+        ax.legend(fontsize=7, loc="best")
+        fig.text(0.01, 0.01, CAUTION[:110] + ("…" if len(CAUTION) > 110 else ""), fontsize=5.5, color="#555555")
+        fig.tight_layout(rect=(0, 0.04, 1, 1))
+        import io
+
+        buf = io.BytesIO()
+        fig.savefig(buf, format="png")
+    finally:
+        plt.close(fig)
+    from linkage.export import write_atomic
+
+    write_atomic(path, buf.getvalue())

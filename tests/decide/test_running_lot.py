@@ -1,0 +1,214 @@
+"""Issue 17 acceptance, item 1: a running lot whose porosity drifts upward at
+a known rate, on a model trained on synthetic lots from a known truth
+(:class:`linkage.synthetic.Truth`), so the true mean porosity at any roll
+force is known.
+
+- The drift is flagged within the run length the charts imply: the 95th
+  percentile of the run length of the individuals chart's 3σ rule alone
+  under the drift, P(RL > t) = Π_{i ≤ t} [Φ(3 − μ_i) − Φ(−3 − μ_i)] with μ_i
+  the drift at sample i in σ from the centre's expectation (independent
+  samples; a constant shift gives the geometric run length, ARL = 1/p,
+  Montgomery 2009, Introduction to Statistical Quality Control, 6th ed.,
+  §5.3.3 and §6.2). The run rules and the EWMA only add signals, so the whole
+  scheme signals no later than the 3σ rule alone on the same samples. What the
+  bound leaves out: the noise of the centre (the mean of the first samples).
+- The suggested roll force brings the true mean porosity (of the truth, at
+  the time of the last sample) to within one within-lot SD of the window's
+  centre.
+- The advice is in the store's audit trail, and the lot's samples land in the
+  store when the whole lot is ingested later, without a conflict.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+from scipy import stats
+
+import linkage
+from linkage.cli.main import cli
+from linkage.decide.running import advise, shewhart_run_length
+from linkage.synthetic import Truth, make_lots
+
+pytestmark = pytest.mark.slow
+
+LOT = "RUN-001"
+SETTINGS = {"roll_force_kn_per_cm": 8.0, "roll_gap_mm": 2.5, "roll_speed_rpm": 5.0, "screw_speed_rpm": 27.5}
+BASELINE = 5  # the command's default
+
+
+@pytest.fixture(scope="module")
+def lab(tmp_path_factory):
+    """A store of 40 synthetic lots and a model trained on them."""
+    folder = tmp_path_factory.mktemp("running")
+    truth = Truth()
+    make_lots(40, seed=5, truth=truth).write_csv(folder / "lots")
+    ws = linkage.Workspace(folder / "lots.db", models_dir=folder / "models")
+    ws.ingest(folder / "lots")
+    ws.train(seed=0)
+    return folder, ws, truth
+
+
+def drifting_samples(truth: Truth, n: int, rate: float, seed: int) -> pd.DataFrame:
+    """n at-line samples 25 min apart of a lot at SETTINGS whose true mean
+    porosity starts at the truth's mean and rises by ``rate`` per sample;
+    each sample has the truth's replicate error, and the densities are
+    written as the lab writes them (4 decimals)."""
+    rng = np.random.default_rng(seed)
+    mean = float(truth.porosity_mean(*SETTINGS.values())) + rate * np.arange(n)
+    eps = mean + truth.porosity_replicate_sd * rng.standard_normal(n)
+    skeletal = np.round(truth.skeletal_density_g_cm3 + truth.pycnometer_sd_g_cm3 * rng.standard_normal(n), 4)
+    times = pd.date_range("2026-03-02T08:00", periods=n, freq="25min")
+    return pd.DataFrame({"lot": LOT, "sample": [str(i + 1) for i in range(n)],
+                         "sampled_at": times.strftime("%Y-%m-%dT%H:%M:%S"),
+                         "envelope_density_g_cm3": np.round((1 - eps) * skeletal, 4),
+                         "skeletal_density_g_cm3": skeletal})
+
+
+def run_length_95(rate_sd: float, baseline: int) -> int:
+    """The 95th percentile of the 3σ rule's run length under a drift of
+    ``rate_sd`` σ per sample, from the centre's expectation (the mean drift of
+    the first ``baseline`` samples)."""
+    i = np.arange(1, 500)
+    surv = shewhart_run_length(rate_sd * (i - 1) - rate_sd * (baseline - 1) / 2)
+    return int(1 + np.argmax(surv <= 0.05))
+
+
+def true_mean_after(truth: Truth, force: float, rate: float, n: int) -> float:
+    """The truth's mean porosity at ``force`` (other settings as the lot's) at the time of sample n."""
+    others = dict(SETTINGS, roll_force_kn_per_cm=force)
+    return float(truth.porosity_mean(*others.values())) + rate * (n - 1)
+
+
+def test_running_lot_flags_the_drift_and_its_correction_lands_on_the_centre(lab):
+    folder, ws, truth = lab
+    rate = 0.5 * truth.porosity_replicate_sd  # half a within-lot SD per sample, upward
+    n = 12
+    samples = drifting_samples(truth, n, rate, seed=7)
+    atline = folder / "atline.csv"
+    samples.to_csv(atline, index=False)
+    process = folder / "process_run.csv"
+    pd.DataFrame([{"lot": LOT, **SETTINGS, "mill_screen_mm": 1.0}]).to_csv(process, index=False)
+    start = float(truth.porosity_mean(*SETTINGS.values()))
+    low, high = start - 0.04, start + 0.04
+    chart, out = folder / "run.png", folder / "run.json"
+    r = CliRunner().invoke(cli, ["running", str(atline), "--process", str(process), "--window", f"{low}:{high}",
+                                 "--json", "--chart", str(chart), "--out", str(out), "--store", str(ws.store),
+                                 "--models-dir", str(ws.models_dir)], catch_exceptions=False)
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert json.loads(out.read_text(encoding="utf-8")) == d
+    assert chart.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert d["caution"] == linkage.CAUTION
+    sigma = d["within_lot_sd"]["value"]
+
+    # flagged within the run length the charts imply
+    assert d["drift"]["drifting"] and d["drift"]["direction"] == "upward"
+    bound = run_length_95(rate / sigma, BASELINE)
+    assert d["drift"]["first_signal_index"] + 1 <= bound, (d["drift"], bound)
+
+    # the suggested roll force brings the true mean porosity to within one within-lot SD of the centre
+    c = d["correction"]
+    assert c["suggested"] > SETTINGS["roll_force_kn_per_cm"]  # more force, denser ribbon
+    centre = d["window"]["centre"]
+    assert abs(true_mean_after(truth, c["suggested"], rate, n) - centre) <= sigma
+    assert c["interval_95"][0] < c["suggested"] < c["interval_95"][1]
+    assert d["confirm"]["samples"] >= 1
+
+    # recorded in the audit trail, and the lot ingested later lands without a conflict
+    entries = ws.audit(lot=LOT)
+    assert list(entries["action"]) == ["running"]
+    assert entries["outputs"].iloc[0]["correction"]["suggested"] == pytest.approx(c["suggested"])
+    whole = make_lots(1, seed=99, truth=truth, lot_prefix="RUN").tables  # the rest of the lot's tables
+    whole["process"] = whole["process"].assign(**SETTINGS)
+    whole["ribbon"] = samples
+    lot_folder = folder / "run_lot"
+    lot_folder.mkdir()
+    for name, frame in whole.items():
+        frame.to_csv(lot_folder / f"{name}.csv", index=False)
+    ws.ingest(lot_folder)
+    stored = ws.assemble()
+    assert int(stored.loc[stored["lot"] == LOT, "ribbon_samples"].iloc[0]) == n
+    entries = ws.audit(lot=LOT)
+    assert "running" in list(entries["action"])
+    v = CliRunner().invoke(cli, ["verify", "--store", str(ws.store), "--models-dir", str(ws.models_dir)])
+    assert v.exit_code == 0, v.output
+
+
+def test_detection_and_correction_over_many_lots(lab):
+    """Over 60 seeded lots, each judged after every sample until the first
+    signal: the mean detection sample is at most the 3σ rule's ARL under the
+    drift, and the stated uncertainty of the correction is calibrated (the
+    true offsets from the centre, divided by their stated standard
+    uncertainty, have an SD near 1: a χ² interval, Montgomery & Runger 2014,
+    §8.3)."""
+    folder, ws, truth = lab
+    from linkage.models.registry import load_whatif
+
+    lean = load_whatif(ws.models_dir, "latest")
+    from linkage.store import LotStore
+
+    with LotStore(ws.store, create=False) as s:
+        ribbon = s.current_tables()["ribbon"]
+    stage = next(st for st in lean.stages if "ribbon_porosity" in st.targets)
+    training = [lot for lot in stage.residual_lots if lot != LOT]
+    rate = 0.5 * truth.porosity_replicate_sd
+    start = float(truth.porosity_mean(*SETTINGS.values()))
+    window = (start - 0.04, start + 0.04)
+    detected, z = [], []
+    for seed in range(60):
+        full = drifting_samples(truth, 20, rate, seed=1000 + seed)
+        full["sampled_at"] = pd.to_datetime(full["sampled_at"])
+        for k in range(BASELINE, 21):
+            res = advise(lean, full.iloc[:k], SETTINGS, window, ribbon, training, lot=LOT)
+            if res.drift["drifting"]:
+                break
+        assert res.drift["drifting"]
+        detected.append(res.drift["first_signal_index"] + 1)
+        c = res.correction
+        offset = true_mean_after(truth, c["suggested"], rate, k) - res.window["centre"]
+        z.append(offset / (c["se"] * abs(c["sensitivity_at_suggested"])))
+    text = res.text()
+    assert "Drifting upward" in text and linkage.CAUTION in text
+    sigma = res.sigma["value"]
+    i = np.arange(1, 500)
+    arl = 1 + shewhart_run_length(rate / sigma * (i - 1) - rate / sigma * (BASELINE - 1) / 2).sum()
+    assert np.mean(detected) <= arl
+    # 99 % χ² interval for an SD of 1 from 60 values
+    lo, hi = np.sqrt(stats.chi2.ppf([0.005, 0.995], 59) / 59)
+    assert lo <= np.std(z, ddof=1) <= hi, np.std(z, ddof=1)
+
+
+def test_window_from_the_spec_and_a_gap_correction(lab):
+    """--spec finds the window at the lot's settings (as `linkage window` does); --adjust roll_gap_mm corrects the
+    gap instead: porosity rises with the gap in the truth (Truth.porosity_per_mm_gap > 0), so a run drifting porous
+    is corrected by a smaller gap."""
+    folder, ws, truth = lab
+    from linkage.synthetic import WINDOW_SPEC, spec_toml
+
+    spec = folder / "spec.toml"
+    spec.write_text(spec_toml(WINDOW_SPEC), encoding="utf-8")
+    atline = folder / "atline_gap.csv"
+    drifting_samples(truth, 10, 0.5 * truth.porosity_replicate_sd, seed=3).to_csv(atline, index=False)
+    sets = [f"--set={k}={v}" for k, v in {**SETTINGS, "mill_screen_mm": 1.0, "compression_force_kn": 14}.items()]
+    r = CliRunner().invoke(cli, ["running", str(atline), *sets, "--spec", str(spec), "--adjust", "roll_gap_mm",
+                                 "--json", "--store", str(ws.store), "--models-dir", str(ws.models_dir)],
+                           catch_exceptions=False)
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert d["window"]["source"].startswith("window of")
+    # the Python API gives the same advice, and records it too
+    same = ws.running(atline, settings={**SETTINGS, "mill_screen_mm": 1.0, "compression_force_kn": 14}, spec=spec,
+                      adjust="roll_gap_mm")
+    assert same.recorded and same.to_dict()["correction"] == d["correction"]
+    assert 0 < d["window"]["low"] < d["window"]["high"] < 1
+    assert d["sensitivity"]["input"] == "roll_gap_mm" and d["sensitivity"]["value"] > 0
+    level = d["level"]["value"]
+    if level > d["window"]["centre"]:
+        assert d["correction"]["change"] < 0
+    else:
+        assert d["correction"]["change"] > 0
