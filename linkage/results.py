@@ -259,8 +259,8 @@ def window_text(result: WindowResult) -> str:
     bound = d.get("bound") or {}
     has_bound = bool(bound.get("available"))
     what = (f"the chance that {every} passes together for a lot is at least {d['confidence']:.0%} with "
-            f"{d['assurance']:.0%} assurance (lower bound over {bound.get('n_replicates')} lot-level bootstrap "
-            "replicates of the chain)") if has_bound else \
+            f"{d['assurance']:.0%} assurance over the whole window at once (lower bound over "
+            f"{bound.get('n_replicates')} lot-level bootstrap replicates of the chain)") if has_bound else \
         f"the point estimate of the chance that {every} passes together for a lot reaches {d['confidence']:.0%}"
     lines = [f"Model {d['model_id']}; window where {what}"
              + (f" ({', '.join(d['not_modelled'])}: not predicted from porosity by this model, not judged)"

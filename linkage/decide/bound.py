@@ -52,7 +52,7 @@ import numpy as np
 from linkage.exceptions import UsageError
 
 __all__ = ["NO_BOUND", "check_assurance", "Replicates", "replicates_of", "chain_probabilities", "lower_bound",
-           "ChainProbabilities"]
+           "simultaneous_lower_bound", "SIMULTANEOUS_METHOD", "ChainProbabilities"]
 
 #: what every output says when the model has no bootstrap replicates
 NO_BOUND = ("no lower bound on the probability is available: the model was trained without bootstrap "
@@ -224,6 +224,14 @@ class ChainProbabilities:
     def low_all(self, assurance: float) -> np.ndarray | None:
         return None if self.reps_all is None else lower_bound(self.reps_all, assurance, self.p_all)
 
+    def band_all(self, assurance: float, confidence: float) -> tuple[np.ndarray, float] | None:
+        """The simultaneous lower band of P(all pass) (:func:`simultaneous_lower_bound`) over the rows
+        where the point estimate reaches ``confidence`` (where a window or range can lie), and the
+        quantile level it takes; None without replicates."""
+        if self.reps_all is None:
+            return None
+        return simultaneous_lower_bound(self.reps_all, assurance, self.p_all, self.p_all >= confidence)
+
     def low_each(self, assurance: float) -> dict[str, np.ndarray] | None:
         if self.reps_each is None:
             return None
@@ -238,6 +246,49 @@ def lower_bound(replicates, assurance: float, point=None) -> np.ndarray:
     reps = np.asarray(replicates, dtype=float)
     low = np.nanquantile(reps, 1 - a, axis=0)
     return low if point is None else np.minimum(low, np.asarray(point, dtype=float))
+
+
+#: how a window's or a range's bound is made simultaneous, in words (window --json: bound.simultaneous)
+SIMULTANEOUS_METHOD = (
+    "simultaneous over the range: one quantile level q for every point, the largest at which a fraction "
+    "'assurance' of the bootstrap replicates lie at or above the band at every point where the point estimate "
+    "reaches the confidence (the quantile-calibrated sup-t construction of Montiel Olea & Plagborg-Møller 2019, "
+    "J. Appl. Econometrics 34:1-17, made one-sided); so 'at least the confidence everywhere in the window' "
+    "holds with the assurance for the window as a whole, not point by point")
+
+
+def simultaneous_lower_bound(replicates, assurance: float, point, region) -> tuple[np.ndarray, float]:
+    """A lower band that holds at every point of ``region`` at once.
+
+    The pointwise bound (:func:`lower_bound`) takes the (1 − a) quantile of
+    the replicates at each point, so each point alone is covered with
+    assurance a, but a window resting on many points (two edges at least) is
+    covered less often. Here one quantile level q ≤ 1 − a serves every
+    point: the largest q at which at least a fraction a of the replicates lie
+    at or above the band Q_q(x) at every x in ``region`` (a replicate's NaN
+    points do not count against it). This is the quantile-calibrated
+    construction of a simultaneous band from draws (Montiel Olea &
+    Plagborg-Møller 2019, J. Appl. Econometrics 34:1-17, §3, there two-sided;
+    from memory), one-sided. q = 0 (the lowest replicate everywhere) always
+    qualifies. Returns the band on every point (numpy's linear
+    interpolation, capped at ``point``) and q. With no point in ``region``
+    the pointwise bound is returned with q = 1 − a."""
+    a = check_assurance(assurance)
+    reps = np.asarray(replicates, dtype=float)
+    point = np.asarray(point, dtype=float)
+    region = np.asarray(region, dtype=bool)
+    if not region.any():
+        return lower_bound(reps, a, point), 1.0 - a
+    R = reps[:, region]
+    levels = np.linspace(0.0, 1.0 - a, 401)
+    with np.errstate(invalid="ignore"):
+        Q = np.nanquantile(R, levels, axis=0)  # (levels, points)
+        above = (R[:, None, :] >= Q[None, :, :] - 1e-12) | np.isnan(R[:, None, :])
+    joint = above.all(axis=2).mean(axis=0)  # per level: the share of replicates above everywhere
+    ok = np.flatnonzero(joint >= a - 1e-12)
+    q = float(levels[ok[-1]]) if ok.size else 0.0
+    band = np.nanquantile(reps, q, axis=0)
+    return np.minimum(band, point), q
 
 
 def _stage_lots(stage, todo: list[str], counts: np.ndarray | None, lot_index: dict | None):

@@ -110,6 +110,9 @@ class WindowResult:
     #: the window of the point estimate of P(all pass) (the edges above are the bound's)
     point_low: float | None = None
     point_high: float | None = None
+    #: the pointwise lower bound of P(all pass) on ``grid`` (each point alone at the assurance); ``p_all_low``
+    #: is the band that holds over the window at once (bound.simultaneous_lower_bound)
+    p_all_low_pointwise: np.ndarray | None = field(repr=False, default=None)
 
     @property
     def found(self) -> bool:
@@ -152,6 +155,8 @@ class WindowResult:
                 "ribbon_porosity": _floats(self.grid),
                 "p_all": _floats(self.p_all),
                 "p_all_low": None if self.p_all_low is None else _floats(self.p_all_low),
+                "p_all_low_pointwise": (None if self.p_all_low_pointwise is None
+                                        else _floats(self.p_all_low_pointwise)),
                 "p_each": {k: _floats(v) for k, v in self.p_each.items()},
                 "p_each_low": None if self.p_each_low is None else {k: _floats(v) for k, v in self.p_each_low.items()},
                 "mean_pass": [bool(b) for b in self.mean_ok],
@@ -238,9 +243,13 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     chain_p = chain_probabilities(lean, {**{k: np.full(n_grid, v) for k, v in values.items()}, POROSITY: grid,
                                           **{k: np.full(n_grid, v) for k, v in settings.items() if k in produced}},
                                   spec.limits, limited, seed=seed)
-    p_all_low, p_each_low = chain_p.low_all(assurance), chain_p.low_each(assurance)
+    p_each_low = chain_p.low_each(assurance)
+    p_all_pointwise = chain_p.low_all(assurance)
+    band = chain_p.band_all(assurance, confidence)  # the window is a statement over a range: simultaneous
+    p_all_low, band_level = (None, None) if band is None else band
     if p_all_low is not None and compendial.needs_units(spec):  # units judged too (bound.with_unit_level)
         p_all_low = with_unit_level(p_all_low, chain_p.p_all, p_all)
+        p_all_pointwise = with_unit_level(p_all_pointwise, chain_p.p_all, p_all)
         p_each_low = {a: with_unit_level(p_each_low[a], chain_p.p_each[a], p_each[a])
                       if spec.judge_of(a) == "stages" else p_each_low[a] for a in limited}
         if compendial.ACCEPTANCE_VALUE in p_each:  # its point estimate scaled as the bound scales P(all)
@@ -248,6 +257,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
             p_each_low[compendial.ACCEPTANCE_VALUE] = p_each[compendial.ACCEPTANCE_VALUE] * scale
     if p_all_low is not None and POROSITY in spec.limits:
         p_all_low = p_all_low * within(grid, spec.limits[POROSITY])
+        p_all_pointwise = p_all_pointwise * within(grid, spec.limits[POROSITY])
     point_low, point_high = _widest(grid, p_all, p_each, confidence)
     if p_all_low is not None:
         low_edge, high_edge = _widest(grid, p_all_low, p_each_low, confidence)
@@ -255,7 +265,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     else:
         low_edge, high_edge = point_low, point_high
         segments = _segments(grid, p_all, confidence)
-    bound = _bound_record(lean, chain_p, assurance)
+    bound = _bound_record(lean, chain_p, assurance, band_level)
     mean_idx = np.flatnonzero(mean_ok)
     mean_low = float(grid[mean_idx[0]]) if len(mean_idx) else None
     mean_high = float(grid[mean_idx[-1]]) if len(mean_idx) else None
@@ -292,7 +302,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         dissolution_time_min=time_min if "dissolution_pct" in chain.targets else None,
         time_point_note=None if recorded or "dissolution_pct" not in chain.targets else UNRECORDED_NOTE,
         assurance=assurance, p_all_low=p_all_low, p_each_low=p_each_low, bound=bound,
-        point_low=point_low.value, point_high=point_high.value,
+        point_low=point_low.value, point_high=point_high.value, p_all_low_pointwise=p_all_pointwise,
     )
 
 
@@ -308,16 +318,19 @@ def _widest(grid, p, p_each, confidence) -> tuple[Edge, Edge]:
             Edge(high, "data range" if i1 == n - 1 else _limiting(p_each, i1 + 1, i1)))
 
 
-def _bound_record(lean, chain_p, assurance: float) -> dict:
-    """What a result says of its bound: available, the method, B, or why not."""
-    from linkage.decide.bound import replicates_of
+def _bound_record(lean, chain_p, assurance: float, band_level: float | None = None) -> dict:
+    """What a result says of its bound: available, the method, B, or why not;
+    and how it is made simultaneous over the range (``band_level``: the
+    quantile level of :func:`linkage.decide.bound.simultaneous_lower_bound`)."""
+    from linkage.decide.bound import SIMULTANEOUS_METHOD, replicates_of
 
     reps = replicates_of(lean)
     if chain_p.reps_all is None:
         return {"available": False, "assurance": assurance, "n_replicates": 0, "method": None,
-                "reason": chain_p.reason or NO_BOUND}
+                "reason": chain_p.reason or NO_BOUND, "simultaneous": None}
     return {"available": True, "assurance": assurance, "n_replicates": reps.n, "method": reps.method,
-            "reason": None}
+            "reason": None,
+            "simultaneous": None if band_level is None else {"quantile": band_level, "method": SIMULTANEOUS_METHOD}}
 
 
 def window_domain(chain, draws, grid, low: float | None, high: float | None, roll_force: dict) -> dict:
@@ -498,7 +511,8 @@ def chain_force_range(chain, spec, *, settings: dict[str, float], confidence: fl
     source.pop(FORCE)
     columns = {**{k: np.full(n_grid, v) for k, v in held.items()}, FORCE: forces}
     cp = chain_probabilities(lean, columns, spec.limits, attributes, seed=seed)
-    p_low = cp.low_all(assurance)
+    band = cp.band_all(assurance, confidence)  # a range of forces: simultaneous, as the window's bound
+    p_low = None if band is None else band[0]
     means = simulate(lean, columns, n_draws=1, seed=seed)
     mean_ok = np.logical_and.reduce([within(means.means[a], spec.limits[a]) for a in attributes])
     point = _segments(forces, cp.p_all, confidence)
@@ -516,7 +530,9 @@ def chain_force_range(chain, spec, *, settings: dict[str, float], confidence: fl
     out["held_chain"] = {k: {"value": float(v), "source": source[k]} for k, v in sorted(held.items())}
     out["chain_curve"] = {"roll_force_kn_per_cm": _floats(forces), "p_all": _floats(cp.p_all),
                           "p_all_low": None if p_low is None else _floats(p_low),
+                          "p_all_low_pointwise": None if p_low is None else _floats(cp.low_all(assurance)),
                           "mean_pass": [bool(b) for b in mean_ok]}
+    out["bound_quantile"] = None if band is None else band[1]
     out["bound_available"] = p_low is not None
     if out["low"] is not None:
         out["reason"] = None

@@ -445,11 +445,12 @@ def plot_porosity_curve(grid, mean, low, high, *, name: str, level: float, limit
 def plot_window_probability(grid, p_all, p_each: Mapping[str, Sequence[float]], *, confidence: float,
                             low: float | None, high: float | None, mean_low: float | None = None,
                             mean_high: float | None = None, ax=None, p_all_low=None,
-                            assurance: float | None = None):
+                            assurance: float | None = None, p_all_low_pointwise=None):
     """Probability that a lot meets every specification (thick) and each one
     (thin) against ribbon porosity, the confidence line, the window shaded
     and the mean-response window marked; ``p_all_low``, the lower bound at
-    ``assurance`` of the first, thick and dashed."""
+    ``assurance`` of the first over the window at once, thick and dashed;
+    ``p_all_low_pointwise``, the bound for one porosity alone, thin dash-dot."""
     ax = new_axes(ax, panel=(5.6, 3.2), right=2.5)
     grid = np.asarray(grid, float)
     if low is not None and high is not None:
@@ -470,6 +471,9 @@ def plot_window_probability(grid, p_all, p_each: Mapping[str, Sequence[float]], 
         ax.plot(grid, np.asarray(p_all_low, float), color=BLACK, linewidth=2.4, linestyle=(0, (4, 2)),
                 label=f"P(pass all), lower bound ({assurance:.0%} assurance)" if assurance else
                 "P(pass all), lower bound")
+    if p_all_low_pointwise is not None:
+        ax.plot(grid, np.asarray(p_all_low_pointwise, float), color=BLACK, linewidth=0.9, linestyle="-.",
+                label="P(pass all), bound at one porosity alone")
     ax.axhline(confidence, color=VERMILION, linestyle="--", linewidth=1.4, label=f"confidence {confidence:.0%}")
     ax.set_ylim(-0.02, 1.02)
     ax.set_xlabel(axis_label("ribbon_porosity"))

@@ -9,7 +9,10 @@ At 25 porosities across each reported window (the bound's and the point
 estimate's) the true probability of passing every limit is computed from the
 generator's own model (``Truth.p_pass_all``, 20,000 draws). A window "holds"
 when the true probability is at least the confidence everywhere in it (less
-0.005 for the Monte Carlo of the truth). Also reported: how often a window
+0.005 for the Monte Carlo of the truth). Three windows per campaign: the one
+linkage reports (its bound simultaneous over the window), the one the
+pointwise bound would give (each porosity alone at the assurance), and the
+point estimate's. Also reported: how often a window
 is reported at all, and the mean absolute error of the point estimate of
 P(all pass) over the porosity grid.
 
@@ -29,7 +32,7 @@ import numpy as np
 
 def main(argv=None) -> int:
     from linkage.assemble import assemble
-    from linkage.decide.window import find_window
+    from linkage.decide.window import _segments, find_window
     from linkage.models.train import train_chain
     from linkage.spec import Limit, Spec
     from linkage.synthetic import WINDOW_SETTINGS, WINDOW_SPEC, Truth, make_lots
@@ -45,15 +48,16 @@ def main(argv=None) -> int:
     conf = 0.9
     true_low, true_high = truth.probability_window(WINDOW_SPEC, s["mill_screen_mm"], s["compression_force_kn"],
                                                    confidence=conf)
-    lines = ["# Calibration of the lower bound on a few synthetic campaigns", "",
+    lines = ["# Calibration of the lower bound on seeded synthetic campaigns", "",
              f"Window scenario of linkage.synthetic at {dict(s)}; confidence {conf}, assurance 0.9, B = 200. "
              f"True window {true_low:.3f} – {true_high:.3f}. Written by tests/benchmarks/bound_calibration.py.", "",
-             "| lots | campaign seed | bound window | min true P in it | point window | min true P in it "
+             "| lots | campaign seed | reported window (simultaneous bound) | min true P in it "
+             "| pointwise-bound window | min true P in it | point window | min true P in it "
              "| MAE of point P(all) | seconds |",
-             "|---|---|---|---|---|---|---|---|"]
+             "|---|---|---|---|---|---|---|---|---|---|"]
     summary = []
     for n in args.lots:
-        held = {"bound": [0, 0], "point": [0, 0]}
+        held = {"bound": [0, 0], "pointwise": [0, 0], "point": [0, 0]}
         maes = []
         for c in range(args.campaigns):
             t0 = time.perf_counter()
@@ -63,7 +67,10 @@ def main(argv=None) -> int:
             p_true_grid = truth.p_pass_all(w.grid, WINDOW_SPEC, s["mill_screen_mm"], s["compression_force_kn"])
             maes.append(float(np.mean(np.abs(w.p_all - p_true_grid))))
             cells = []
-            for kind, lo, hi in (("bound", w.low.value, w.high.value), ("point", w.point_low, w.point_high)):
+            runs = _segments(w.grid, w.p_all_low_pointwise, conf)
+            pw = max((r[1] for r in runs), key=lambda r: r[1] - r[0]) if runs else (None, None)
+            for kind, lo, hi in (("bound", w.low.value, w.high.value), ("pointwise", *pw),
+                                 ("point", w.point_low, w.point_high)):
                 if lo is None:
                     cells += ["none", "—"]
                     continue
@@ -75,8 +82,9 @@ def main(argv=None) -> int:
             lines.append(f"| {n} | {1000 + c} | " + " | ".join(cells) + f" | {maes[-1]:.3f} | "
                          f"{time.perf_counter() - t0:.0f} |")
             print(lines[-1], flush=True)
-        summary.append(f"- {n} lots, {args.campaigns} campaigns: the bound's window was reported in "
-                       f"{held['bound'][0]} and held in {held['bound'][1]} of them; the point estimate's window was "
+        summary.append(f"- {n} lots, {args.campaigns} campaigns: the reported window (simultaneous bound) was "
+                       f"reported in {held['bound'][0]} and held in {held['bound'][1]} of them; the pointwise bound's "
+                       f"in {held['pointwise'][0]} and held in {held['pointwise'][1]}; the point estimate's window was "
                        f"reported in {held['point'][0]} and held in {held['point'][1]}; mean absolute error of the "
                        f"point P(all pass) over the grid {np.mean(maes):.3f}.")
     lines += ["", *summary, ""]

@@ -259,3 +259,51 @@ def test_the_unit_level_factor_is_carried_at_its_point_estimate():
     assert low[0] == pytest.approx(0.92 * 0.9, abs=0.003)
     assert with_unit_level(np.array([0.99]), np.array([0.5]), np.array([0.6]))[0] == 0.6  # capped
     assert with_unit_level(np.array([0.9]), np.array([0.0]), np.array([0.0]))[0] == 0.0
+
+
+def test_simultaneous_band_on_independent_points_matches_sidak():
+    """K independent points: a band holding at all of them with assurance a
+    takes each at level 1 − a^(1/K) (Šidák 1967, JASA 62:626-633), so the
+    quantile level found is 1 − 0.9^(1/5) = 0.0209 within Monte Carlo error
+    of 20,000 replicates; the band lies at or below the pointwise bound and
+    a fraction ≥ a of the replicates lie above it everywhere."""
+    from linkage.decide.bound import lower_bound, simultaneous_lower_bound
+
+    rng = np.random.default_rng(5)
+    reps = rng.uniform(size=(20000, 5))
+    point = np.ones(5)
+    band, q = simultaneous_lower_bound(reps, 0.9, point, np.ones(5, dtype=bool))
+    assert q == pytest.approx(1 - 0.9 ** (1 / 5), abs=0.002)
+    assert np.all(band <= lower_bound(reps, 0.9, point) + 1e-12)
+    assert np.mean(np.all(reps >= band, axis=1)) >= 0.9
+
+
+def test_simultaneous_band_on_one_point_or_identical_points_is_the_pointwise_bound():
+    """One point (or points that move together) needs no adjustment: the
+    level is 1 − a, the band the pointwise percentile bound."""
+    from linkage.decide.bound import lower_bound, simultaneous_lower_bound
+
+    rng = np.random.default_rng(6)
+    col = rng.beta(8, 2, size=(200, 1))
+    for reps in (col, np.repeat(col, 7, axis=1)):
+        point = np.full(reps.shape[1], 0.99)
+        band, q = simultaneous_lower_bound(reps, 0.9, point, np.ones(reps.shape[1], dtype=bool))
+        assert q == pytest.approx(0.1, abs=1e-9)
+        np.testing.assert_allclose(band, lower_bound(reps, 0.9, point))
+    # the region decides which points count; outside it the band is the same quantile level
+    reps = rng.uniform(size=(400, 4))
+    band, q = simultaneous_lower_bound(reps, 0.9, np.ones(4), np.array([True, False, False, False]))
+    assert q == pytest.approx(0.1, abs=0.003)
+    np.testing.assert_allclose(band, np.quantile(reps, q, axis=0))
+
+
+def test_window_bound_is_simultaneous_and_below_the_pointwise_one(window):
+    d = window.to_dict()
+    sim = d["bound"]["simultaneous"]
+    assert sim is not None and 0 <= sim["quantile"] <= 0.1 + 1e-12 and "Montiel Olea" in sim["method"]
+    low, pointwise = np.array(d["curve"]["p_all_low"]), np.array(d["curve"]["p_all_low_pointwise"])
+    assert np.all(low <= pointwise + 1e-6)
+    force = d["roll_force_kn_per_cm"]
+    assert force["bound_quantile"] is not None and force["bound_quantile"] <= 0.1 + 1e-12
+    assert np.all(np.array(force["chain_curve"]["p_all_low"])
+                  <= np.array(force["chain_curve"]["p_all_low_pointwise"]) + 1e-6)
