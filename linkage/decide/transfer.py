@@ -64,6 +64,8 @@ class RibbonPhysics:
     compactors: dict = field(default_factory=dict)
     #: lots left out for a missing roll force, gap, diameter or porosity
     n_dropped: int = 0
+    #: (lowest, highest) peak pressure of the fitted lots under the fit [MPa]: the ribbons the lots have seen
+    peak_pressure_range_mpa: tuple = (float("nan"), float("nan"))
 
     def porosity(self, roll_force_kn_per_cm, roll_gap_mm, roll_diameter_mm):
         """Fitted ribbon porosity [-] (:func:`linkage.physics.rolling.johanson_ribbon_porosity`)."""
@@ -77,7 +79,7 @@ class RibbonPhysics:
                 "pressure_constant_mpa": self.pressure_constant_mpa, "pressure_constant_log_sd": float(sd_log[1]),
                 "residual_sd": self.residual_sd, "n_lots": self.n_lots, "n_dropped": self.n_dropped,
                 "internal_friction_deg": self.internal_friction_deg, "wall_friction_deg": self.wall_friction_deg,
-                "compactors": self.compactors}
+                "compactors": self.compactors, "peak_pressure_range_mpa": list(self.peak_pressure_range_mpa)}
 
 
 def fit_ribbon_physics(lots, *, internal_friction_deg=rolling.DEFAULT_INTERNAL_FRICTION_DEG,
@@ -128,6 +130,10 @@ def fit_ribbon_physics(lots, *, internal_friction_deg=rolling.DEFAULT_INTERNAL_F
                                     f"and ribbon porosity; {len(used)} have all four")
     fit = rolling.fit_johanson_ribbon(used["roll_force_kn_per_cm"], used["roll_gap_mm"], used["roll_diameter_mm"],
                                       used["ribbon_porosity"], internal_friction_deg, wall_friction_deg)
+    pressures = rolling.johanson_peak_pressure_mpa(used["roll_force_kn_per_cm"].to_numpy(float),
+                                                   used["roll_gap_mm"].to_numpy(float),
+                                                   used["roll_diameter_mm"].to_numpy(float), fit["compressibility"],
+                                                   internal_friction_deg, wall_friction_deg)
     compactors = {}
     if "compactor" in used.columns:
         for name, group in used.groupby(used["compactor"].fillna("(none)").astype(str), sort=True):
@@ -137,7 +143,8 @@ def fit_ribbon_physics(lots, *, internal_friction_deg=rolling.DEFAULT_INTERNAL_F
                                 "lots": int(len(group))}
     return RibbonPhysics(fit["compressibility"], fit["pressure_constant_mpa"], fit["log_params"],
                          fit["log_covariance"], fit["residual_sd"], fit["n_lots"], internal_friction_deg,
-                         wall_friction_deg, compactors, int((~complete).sum()))
+                         wall_friction_deg, compactors, int((~complete).sum()),
+                         (float(np.min(pressures)), float(np.max(pressures))))
 
 
 @dataclass(frozen=True)
@@ -185,7 +192,10 @@ class Transfer:
             lines.append(f"  porosity {t['ribbon_porosity']:.3f}: {t['roll_force_kn_per_cm']:.2f} kN/cm "
                          f"({t['roll_force_kn']:.1f} kN over the width), {pct} interval for one lot "
                          f"{lo:.2f}-{hi:.2f} kN/cm (parameters alone {clo:.2f}-{chi:.2f}); peak pressure "
-                         f"{t['peak_pressure_mpa']:.0f} MPa, nip angle {t['nip_angle_deg']:.1f} deg")
+                         f"{t['peak_pressure_mpa']:.0f} MPa, nip angle {t['nip_angle_deg']:.1f} deg"
+                         + ("" if t["inside_lots_pressure_range"] else
+                            f"; OUTSIDE the peak pressures the lots reached ({p.peak_pressure_range_mpa[0]:.0f}-"
+                            f"{p.peak_pressure_range_mpa[1]:.0f} MPa): extrapolated"))
         lines += ["", "Leaves out: " + LEAVES_OUT, CAUTION]
         return "\n".join(lines)
 
@@ -264,6 +274,10 @@ def transfer(physics: RibbonPhysics, *, roll_diameter_mm: float, roll_width_mm: 
             "force_confidence_kn_per_cm": [float(v) for v in np.nanpercentile(mean_curve, tails)],
             "peak_pressure_mpa": float(rolling.peak_pressure_for_solid_fraction_mpa(1 - eps, k, c)),
             "nip_angle_deg": float(rolling.johanson_nip_angles_deg(*geometry, k, *friction)),
+            # the lots have made ribbons at this peak pressure (interpolation in the material's law), or not
+            "inside_lots_pressure_range": bool(physics.peak_pressure_range_mpa[0]
+                                               <= rolling.peak_pressure_for_solid_fraction_mpa(1 - eps, k, c)
+                                               <= physics.peak_pressure_range_mpa[1]),
         })
     return Transfer(physics, float(roll_diameter_mm), float(roll_width_mm), float(roll_gap_mm), float(level), rows,
                     kind)
