@@ -58,6 +58,16 @@ LINK_DOMAIN = (
     r"ln y is undefined|not a percentage between 0",
 )
 
+#: why the Johanson rolling-theory baseline cannot take the checks' data, and the messages that show it
+JOHANSON_DOMAIN = (
+    "the check fits on generated data whose columns 0-2 (specific roll force, gap, roll diameter) include zero or "
+    "negative values, or whose target is not a porosity fraction, or with fewer than 3 columns: Johanson's rolling "
+    "theory (Johanson 1965) is defined for positive forces and lengths and porosities in (0, 1), and its fit "
+    "refuses the rest, as training's applicability rule (JohansonRibbonRegressor.not_applicable) does before any "
+    "fit; its contract on data inside the domain is checked in tests/models/test_physical.py",
+    r"Johanson fit refused the data|reads the columns|raised CandidateError unexpectedly",
+)
+
 #: scikit-learn skips this check itself unless SCIPY_ARRAY_API=1 is set before scipy is imported (and an
 #: array library is installed); the candidates compute with numpy only and claim no array API support
 ARRAY_API = (
@@ -121,6 +131,34 @@ SKIPS: dict[tuple[str, str], tuple[str, str]] = {
     ]},
     **{(name, "check_positive_only_tag_during_fit"): (LINK_DOMAIN[0], r"raised CandidateError unexpectedly")
        for name in ("log_linear", "weibull_release")},
+    **{("johanson_baseline", check): JOHANSON_DOMAIN for check in [
+        "check_dict_unchanged",
+        "check_dont_overwrite_parameters",
+        "check_dtype_object",
+        "check_estimators_dtypes",
+        "check_estimators_fit_returns_self",
+        "check_estimators_nan_inf",
+        "check_estimators_overwrite_params",
+        "check_estimators_pickle",
+        "check_f_contiguous_array_estimator",
+        "check_fit2d_1feature",
+        "check_fit2d_predict1d",
+        "check_fit_check_is_fitted",
+        "check_fit_idempotent",
+        "check_fit_score_takes_y",
+        "check_methods_sample_order_invariance",
+        "check_methods_subset_invariance",
+        "check_n_features_in",
+        "check_n_features_in_after_fitting",
+        "check_pipeline_consistency",
+        "check_positive_only_tag_during_fit",
+        "check_readonly_memmap_input",
+        "check_regressor_data_not_an_array",
+        "check_regressors_int",
+        "check_regressors_no_decision_function",
+        "check_regressors_train",
+        "check_supervised_y_2d",
+    ]},
 }
 
 
