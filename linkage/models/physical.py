@@ -35,7 +35,7 @@ PHYSICAL_INPUTS = ("roll_force_kn_per_cm", "roll_gap_mm", "roll_diameter_mm")
 
 @register
 class JohansonRibbonRegressor(Candidate):
-    """Ribbon porosity = 1 − (P_max / C)^(1/K), P_max from the specific roll force through Johanson's force integral."""
+    """Ribbon porosity = 1 − (P_max / C)^(1/K), P_max from the specific roll force by Johanson's force integral."""
 
     name = "johanson_baseline"
     description = ("Johanson rolling theory: porosity from specific roll force, gap and roll diameter "

@@ -106,9 +106,11 @@ def transfer_section(b, table, window=None, *, seed: int = 0) -> None:
                          f"{r['peak_pressure_mpa']:.0f}"])
     b.add(f"<p>Specific roll force that gives {which} on each compactor's rolls and on stated production rolls "
           f"({SCALE_UP_ROLLS[0]:g} mm diameter, {SCALE_UP_ROLLS[1]:g} mm wide; not among the lots), at the lots' "
-          f"median gap. Force is the specific roll force, total the force over the roll width; 95 % interval for one lot (fit uncertainty plus lot-to-lot scatter).</p>")
+          f"median gap. Force is the specific roll force, total the force over the roll width; 95 % interval for "
+          f"one lot (fit uncertainty plus lot-to-lot scatter).</p>")
     b.add(_table(["rolls", "diameter [mm]", "width [mm]", "gap [mm]", "porosity [-]", "force [kN/cm]",
-                  "95 % interval [kN/cm]", "total [kN]", "peak pressure [MPa]"], rows, num_cols={1, 2, 3, 4, 5, 6, 7, 8}))
+                  "95 % interval [kN/cm]", "total [kN]", "peak pressure [MPa]"], rows,
+                 num_cols={1, 2, 3, 4, 5, 6, 7, 8}))
     if extrapolated:
         b.add('<p class="note">* The peak pressure is outside the range the lots reached: the force is '
               "extrapolated along the material's compressibility law.</p>")
