@@ -59,8 +59,7 @@ def transfer(roll_diameter_mm, roll_width_mm, gap_mm, porosity, window_text, lev
       linkage transfer --roll-diameter-mm 400 --roll-width-mm 100 --gap-mm 2.5 --porosity 0.28
       linkage transfer --roll-diameter-mm 400 --roll-width-mm 100 --gap-mm 2.5 --window 0.22:0.30 --json
     """
-    from linkage.api import assemble
-    from linkage.decide.transfer import fit_ribbon_physics, transfer as find
+    from linkage.api import transfer as find
     from linkage.exceptions import UsageError
     from linkage.jsonable import jsonable
 
@@ -70,11 +69,10 @@ def transfer(roll_diameter_mm, roll_width_mm, gap_mm, porosity, window_text, lev
     window = _window(window_text)
     if (porosity is None) == (window is None):
         raise UsageError("give either --porosity or --window LOW:HIGH")
-    lots = assemble(store, product=product)
-    physics = fit_ribbon_physics(lots, internal_friction_deg=internal_friction_deg,
-                                 wall_friction_deg=wall_friction_deg, source=f"lots of {store}")
-    result = find(physics, roll_diameter_mm=roll_diameter_mm, roll_width_mm=roll_width_mm, roll_gap_mm=gap_mm,
-                  porosity=porosity, window=window, level=level, n_draws=n_draws, seed=seed)
+    result = find(store, roll_diameter_mm=roll_diameter_mm, roll_width_mm=roll_width_mm, roll_gap_mm=gap_mm,
+                  porosity=porosity, window=window, level=level, product=product,
+                  internal_friction_deg=internal_friction_deg, wall_friction_deg=wall_friction_deg,
+                  n_draws=n_draws, seed=seed)
     if as_json:
         click.echo(json.dumps(jsonable(result.to_dict()), indent=2, allow_nan=False))
         return

@@ -74,3 +74,11 @@ def test_refusals_exit_2_and_say_why(store, args, message):
     result = run("transfer", *ROLLS, *args, "--store", store)
     assert result.exit_code == 2
     assert message in result.output
+
+
+def test_the_command_leaves_an_audit_entry(store):
+    from linkage.api import audit
+
+    assert run("transfer", *ROLLS, "--porosity", "0.27", "--store", store).exit_code == 0
+    entries = audit(store)
+    assert "transfer" in set(entries["action"])
