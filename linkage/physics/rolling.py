@@ -441,14 +441,8 @@ def johanson_roll_force_for_porosity_kn_per_cm(ribbon_porosity, roll_gap_mm, rol
     ----------
     ribbon_porosity : float or array-like
         Target ribbon porosity [-], in [0, 1).
-    roll_gap_mm, roll_diameter_mm : float or array-like
-        Roll gap and diameter [mm] of the target compactor.
-    compressibility : float or array-like
-        Compressibility K [-].
-    pressure_constant_mpa : float or array-like
-        Pressure constant C [MPa].
-    internal_friction_deg, wall_friction_deg : float
-        Friction angles [deg].
+    roll_gap_mm, roll_diameter_mm, compressibility, pressure_constant_mpa, internal_friction_deg, wall_friction_deg
+        Of the target compactor and the material, as in :func:`johanson_ribbon_porosity`.
 
     Returns
     -------

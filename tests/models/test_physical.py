@@ -11,19 +11,17 @@ from __future__ import annotations
 
 import itertools
 import math
-import pickle
 
 import numpy as np
-import pandas as pd
 import pytest
-from sklearn.base import clone
-from sklearn.exceptions import NotFittedError
 
 from linkage.models.chain import ChainSpec, StageSpec
 from linkage.models.lean import Model
 from linkage.models.physical import PHYSICAL_INPUTS, JohansonRibbonRegressor
 from linkage.physics.rolling import johanson_ribbon_porosity
 from linkage.synthetic_rolling import TransferTruth, make_transfer_lots
+
+from .conftest import assert_estimator_contract
 
 COLUMNS = [*PHYSICAL_INPUTS, "roll_speed_rpm"]
 
@@ -46,22 +44,7 @@ def test_fit_recovers_the_truth_and_predicts_by_the_physics():
 def test_contract_on_data_inside_the_domain():
     # what the skipped scikit-learn checks ask (tests/models/test_estimator_checks.py), on valid data
     X, y, _ = _data(1)
-    est = JohansonRibbonRegressor()
-    with pytest.raises(NotFittedError):
-        est.predict(X)
-    params = est.get_params()
-    assert est.fit(X, y) is est and est.get_params() == params
-    assert est.n_features_in_ == 4
-    pred = est.predict(X)
-    assert np.array_equal(clone(est).fit(X, y).predict(X), pred)
-    assert np.array_equal(pickle.loads(pickle.dumps(est)).predict(X), pred)
-    order = np.random.default_rng(1).permutation(len(X))
-    assert np.array_equal(est.predict(X[order]), pred[order])
-    assert np.array_equal(np.concatenate([est.predict(X[:5]), est.predict(X[5:])]), pred)
-    with pytest.raises(ValueError, match="X has 3 features, but JohansonRibbonRegressor is expecting 4"):
-        est.predict(X[:, :3])
-    named = JohansonRibbonRegressor().fit(pd.DataFrame(X, columns=COLUMNS), y)
-    assert list(named.feature_names_in_) == COLUMNS
+    assert_estimator_contract(JohansonRibbonRegressor, X, y, COLUMNS)
 
 
 def test_lean_form_gives_the_same_floats():
