@@ -109,7 +109,7 @@ def transfer_section(b, table, window=None, *, seed: int = 0) -> None:
           f"median gap. Force is the specific roll force, total the force over the roll width; 95 % interval for "
           f"one lot (fit uncertainty plus lot-to-lot scatter).</p>")
     b.add(_table(["rolls", "diameter [mm]", "width [mm]", "gap [mm]", "porosity [-]", "force [kN/cm]",
-                  "95 % interval [kN/cm]", "total [kN]", "peak pressure [MPa]"], rows,
+                  "95 % interval [kN/cm]", "total [kN]", "P max [MPa]"], rows,
                  num_cols={1, 2, 3, 4, 5, 6, 7, 8}))
     if extrapolated:
         b.add('<p class="note">* The peak pressure is outside the range the lots reached: the force is '
