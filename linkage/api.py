@@ -60,7 +60,7 @@ if TYPE_CHECKING:
     from linkage.spec import Spec
 
 __all__ = ["Workspace", "ingest", "assemble", "train", "window", "whatif", "whatif_rows", "report", "watch",
-           "retrain", "audit", "models", "record", "running"]
+           "retrain", "audit", "models", "record", "running", "transfer"]
 
 #: a progress callback: ``progress(label, done, total)``
 Progress = Callable[[str, int, int], None]
@@ -311,6 +311,30 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
                               "settings": settings, "confidence": confidence, "seed": seed, "assurance": assurance},
                       outputs=result.to_dict(curve=False))
     return Window(result=result, recorded=recorded, store=None if store is None else Path(store))
+
+
+def transfer(store=DEFAULT_STORE, *, roll_diameter_mm: float, roll_width_mm: float, roll_gap_mm: float,
+             porosity: float | None = None, window: tuple[float, float] | None = None, level: float = 0.95,
+             product: str | None = None, internal_friction_deg: float = 40.0, wall_friction_deg: float = 25.0,
+             n_draws: int = 4000, seed: int = 0):
+    """The specific roll force that gives a ribbon porosity (or each edge of
+    a window) on rolls of another diameter and width (``linkage transfer``):
+    Johanson's rolling theory fitted to the store's lots of every compactor
+    (:mod:`linkage.decide.transfer`). Logged as ``transfer``."""
+    from linkage.decide.transfer import fit_ribbon_physics
+    from linkage.decide.transfer import transfer as find
+
+    lots = assemble(store, product=product)
+    physics = fit_ribbon_physics(lots, internal_friction_deg=internal_friction_deg,
+                                 wall_friction_deg=wall_friction_deg, source=f"lots of {store}")
+    result = find(physics, roll_diameter_mm=roll_diameter_mm, roll_width_mm=roll_width_mm, roll_gap_mm=roll_gap_mm,
+                  porosity=porosity, window=window, level=level, n_draws=n_draws, seed=seed)
+    record(store, "transfer", model_id=None,
+           inputs={"roll_diameter_mm": roll_diameter_mm, "roll_width_mm": roll_width_mm, "roll_gap_mm": roll_gap_mm,
+                   "porosity": porosity, "window": None if window is None else list(window), "level": level,
+                   "product": product, "seed": seed},
+           outputs={k: v for k, v in result.to_dict().items() if k in ("targets", "model")})
+    return result
 
 
 def _lean(models_dir, model):

@@ -31,6 +31,7 @@ COMMANDS: dict[str, str] = {
     "audit": "linkage.cli.lifecycle_cmds:audit",
     "running": "linkage.cli.running_cmds:running",
     "verify": "linkage.cli.store_cmds:verify",
+    "transfer": "linkage.cli.transfer_cmds:transfer",
 }
 
 

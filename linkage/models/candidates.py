@@ -98,6 +98,7 @@ __all__ = [
     "register",
     "MeanRegressor",
     "RDRegressor",
+    "JohansonRibbonRegressor",
     "PLSRegressor",
     "QuadraticRidge",
     "BoostingRegressor",
@@ -427,6 +428,11 @@ class RDRegressor(Candidate):
     @property
     def params_(self) -> dict:
         return {"s0": self.s0_, "k": self.k_, "s0_se": self.s0_se_, "k_se": self.k_se_}
+
+
+# the ribbon stage's physical baseline (Johanson's rolling theory) lives in its own module; imported here so that
+# it registers after rd_baseline, in its place in the simplicity order
+from linkage.models import physical as _physical  # noqa: E402,F401
 
 
 # ---------------------------------------------------------------------------

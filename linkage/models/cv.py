@@ -29,8 +29,8 @@ __all__ = [
 
 #: Candidates from the simplest to the most flexible; the one-SE rule prefers
 #: the earliest candidate within one standard error of the best.
-SIMPLICITY_ORDER: tuple[str, ...] = ("mean", "rd_baseline", "log_linear", "weibull_release", "linear_select", "pls",
-                                     "quadratic_ridge", "boosting")
+SIMPLICITY_ORDER: tuple[str, ...] = ("mean", "rd_baseline", "johanson_baseline", "log_linear", "weibull_release",
+                                     "linear_select", "pls", "quadratic_ridge", "boosting")
 
 #: Number of inner grouped folds (fewer when the training set has fewer lots).
 INNER_SPLITS = 5

@@ -21,6 +21,8 @@ applicability-domain model. Model kinds:
 ``linear``     PLS as coefficients on the centred inputs
 ``quadratic``  ridge on standardised inputs, squares and pairwise products
 ``trees``      gradient-boosted trees as node arrays and leaf paths
+``johanson``   Johanson's rolling theory on the roll force, gap and roll
+               diameter columns (:func:`johanson_predict`)
 ``link``       a generalised linear form g(y) = a + Σ bⱼ·hⱼ(xⱼ) (identity, log
                or complementary log-log g; hⱼ the identity or ln), see
                :func:`link_predict`
@@ -323,6 +325,53 @@ def domain_verdicts(d, values: np.ndarray) -> list[dict]:
     return out
 
 
+def johanson_predict(X, *, force_index, gap_index, diameter_index, compressibility, pressure_constant_mpa,
+                     internal_friction_deg, wall_friction_deg, reference=None):
+    """Ribbon porosity by Johanson's rolling theory on three columns of X
+    (:func:`linkage.physics.rolling.johanson_ribbon_porosity`; numpy only).
+    Zero or negative forces, gaps and diameters are taken as 1e-9 (a
+    Monte Carlo draw may reach them; the theory is not defined there)."""
+    from linkage.physics.rolling import johanson_ribbon_porosity
+
+    X = np.asarray(X, dtype=float)
+    cols = [np.maximum(X[:, int(i)], 1e-9) for i in (force_index, gap_index, diameter_index)]
+    return np.asarray(johanson_ribbon_porosity(*cols, compressibility, pressure_constant_mpa, internal_friction_deg,
+                                               wall_friction_deg), dtype=float).reshape(X.shape[0])
+
+
+def johanson_contributions(X, *, reference, **numbers):
+    """Exact Shapley values of the three physical inputs of :func:`johanson_predict`
+    against the reference point (training means): the average over the
+    orders of adding the inputs of each one's change of the prediction
+    (Shapley 1953, from memory); other inputs get 0. Rows add up to
+    prediction − f(reference)."""
+    from itertools import combinations
+
+    X = np.asarray(X, dtype=float)
+    idx = [int(numbers[k]) for k in ("force_index", "gap_index", "diameter_index")]
+    ref_row = np.zeros(X.shape[1])
+    ref_row[idx] = np.asarray(reference, dtype=float)
+    base = float(johanson_predict(ref_row[None, :], reference=reference, **numbers)[0])
+
+    def value(subset):  # f with the inputs in ``subset`` at the row's values, the others at the reference
+        Z = np.tile(ref_row, (X.shape[0], 1))
+        for j in subset:
+            Z[:, idx[j]] = X[:, idx[j]]
+        return johanson_predict(Z, reference=reference, **numbers)
+
+    n = len(idx)
+    values = {s: value(s) for r in range(n + 1) for s in combinations(range(n), r)}
+    out = np.zeros(X.shape)
+    for j in range(n):
+        for s, v in values.items():
+            if j in s:
+                continue
+            with_j = tuple(sorted((*s, j)))
+            weight = math.factorial(len(s)) * math.factorial(n - len(s) - 1) / math.factorial(n)
+            out[:, idx[j]] += weight * (values[with_j] - v)
+    return out, base
+
+
 # ---------------------------------------------------------------------------
 # the lean objects
 # ---------------------------------------------------------------------------
@@ -348,6 +397,8 @@ class Model:
             return walk_trees(p, X)
         if self.kind == "link":
             return link_predict(X, p.link, p.log_mask, p.x_mean, p.coef, p.intercept, p.y_max)
+        if self.kind == "johanson":
+            return johanson_predict(X, **vars(p))
         raise ValueError(f"unknown model kind {self.kind!r}")
 
     def contributions(self, X: np.ndarray):
@@ -366,6 +417,8 @@ class Model:
             return tree_shap(p, X)
         if self.kind == "link":
             return link_contributions(X, p.link, p.log_mask, p.x_mean, p.coef, p.intercept, p.y_max)
+        if self.kind == "johanson":
+            return johanson_contributions(X, **vars(p))
         raise ValueError(f"unknown model kind {self.kind!r}")
 
 

@@ -7,14 +7,16 @@ Topic modules: :mod:`~linkage.physics.porosity` (densities, solid fraction),
 :mod:`~linkage.physics.tablet` (tensile strength from breaking force),
 :mod:`~linkage.physics.strength` (Ryshkewitch-Duckworth),
 :mod:`~linkage.physics.pharmacopeia` (uniformity, dissolution, friability,
-flow, f2) and :mod:`~linkage.physics.compaction` (Johanson rolling theory).
+flow, f2), :mod:`~linkage.physics.compaction` (Johanson rolling theory: nip
+angle) and :mod:`~linkage.physics.rolling` (roll force, peak pressure, ribbon
+solid fraction, scale-up).
 
 Their functions are re-exported here, except the function
 ``porosity.porosity``: the name ``linkage.physics.porosity`` stays the
 module. Import it as ``from linkage.physics.porosity import porosity``.
 """
 
-from linkage.physics import compaction, pharmacopeia, porosity, psd, strength, tablet
+from linkage.physics import compaction, pharmacopeia, porosity, psd, rolling, strength, tablet
 from linkage.physics.compaction import (
     johanson_density_ratio,
     johanson_gradient_difference,
@@ -72,7 +74,7 @@ from linkage.physics.tablet import (
 
 __all__ = [
     # modules
-    "compaction", "pharmacopeia", "porosity", "psd", "strength", "tablet",
+    "compaction", "pharmacopeia", "porosity", "psd", "rolling", "strength", "tablet",
     # porosity
     "solid_fraction", "envelope_density_g_cm3", "true_density_of_mixture_g_cm3", "at_gap_density_kg_m3",
     # psd

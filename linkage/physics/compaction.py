@@ -124,19 +124,26 @@ def johanson_gradient_difference(theta_deg, roll_diameter_m, roll_gap_m, interna
     if not compressibility > 0:
         raise ValueError("compressibility must be positive")
     theta = np.radians(np.asarray(theta_deg, dtype=float))
-    d = np.radians(internal_friction_deg)
     nu = np.radians(johanson_nu_deg(internal_friction_deg, wall_friction_deg))
-    mu = np.pi / 4 - d / 2
-    a = (theta + nu + np.pi / 2) / 2
-    s_d = roll_gap_m / roll_diameter_m
-    half_d = roll_diameter_m / 2
-    opening = 1 + s_d - np.cos(theta)
-    slip = (4 * (np.pi / 2 - theta - nu) * np.tan(d)
-            / (half_d * opening * (1 / np.tan(a - mu) - 1 / np.tan(a + mu))))  # slip-region gradient
-    nip = (compressibility * (2 * np.cos(theta) - 1 - s_d) * np.tan(theta)
-           / (half_d * opening * np.cos(theta)))  # nip-region gradient
-    out = slip - nip
+    out = _gradient_difference_times_radius(theta, roll_gap_m / roll_diameter_m, np.radians(internal_friction_deg),
+                                            nu, compressibility) / (roll_diameter_m / 2)
     return float(out) if out.ndim == 0 else out
+
+
+def _gradient_difference_times_radius(theta_rad, gap_over_diameter, delta_rad, nu_rad, compressibility):
+    """Slip minus nip gradient per unit stress, times D/2 (arrays broadcast; no checks).
+
+    The roll radius divides both gradients, so the nip angle depends on S/D, the friction angles and K only.
+    """
+    s_d = gap_over_diameter
+    mu = np.pi / 4 - delta_rad / 2
+    a = (theta_rad + nu_rad + np.pi / 2) / 2
+    opening = 1 + s_d - np.cos(theta_rad)
+    slip = (4 * (np.pi / 2 - theta_rad - nu_rad) * np.tan(delta_rad)
+            / (opening * (1 / np.tan(a - mu) - 1 / np.tan(a + mu))))  # slip-region gradient
+    nip = (compressibility * (2 * np.cos(theta_rad) - 1 - s_d) * np.tan(theta_rad)
+           / (opening * np.cos(theta_rad)))  # nip-region gradient
+    return slip - nip
 
 
 def johanson_nip_angle_deg(roll_diameter_m, roll_gap_m, internal_friction_deg, wall_friction_deg,

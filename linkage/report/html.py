@@ -256,6 +256,9 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     _attribute_section(b, chain, table, limits)
     _explain_section(b, chain, table, limits, window, curve_draws, seed)
     _window_section(b, chain, table, spec, window, window_failure)
+    from linkage.report.transfer_section import transfer_section  # scale-up between compactors (issue 16)
+
+    transfer_section(b, table, window, seed=seed)
     _watch_section(b, chain, table, window)
     _domain_section(b, chain, table)
     _model_card(b, chain, spec, window)

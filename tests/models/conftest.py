@@ -64,3 +64,42 @@ def small_fit():
     chain = ChainSpec([StageSpec("tablets", ["ribbon_porosity", "granule_d50_um", "fines_pct",
                                              "compression_force_kn"], ["dissolution_pct", "tensile_strength_mpa"])])
     return table, train_chain(table, chain, seed=0, candidates=["mean", "rd_baseline", "pls", "quadratic_ridge"])
+
+
+def assert_estimator_contract(make, X, y, columns):
+    """What scikit-learn's estimator checks ask, on data inside an estimator's domain (for candidates whose
+    domain the checks' generated data miss): NotFittedError before fit; fit returns self and leaves the
+    parameters as given; n_features_in_ and no feature names from an array; a clone fits to the same floats;
+    pickling keeps the predictions bit for bit; predictions do not depend on the order or the subset of rows
+    predicted; a second fit gives the same model; another input count is refused with scikit-learn's message;
+    a DataFrame's column names are recorded and give the same floats, and other names are refused. Returns
+    the fitted estimator."""
+    import pickle
+
+    from sklearn.base import clone
+    from sklearn.exceptions import NotFittedError
+
+    est = make()
+    with pytest.raises(NotFittedError):
+        est.predict(X)
+    params = est.get_params()
+    assert est.fit(X, y) is est
+    assert est.get_params() == params
+    assert est.n_features_in_ == X.shape[1] and not hasattr(est, "feature_names_in_")
+    pred = est.predict(X)
+    assert np.array_equal(clone(est).fit(X, y).predict(X), pred)
+    assert np.array_equal(pickle.loads(pickle.dumps(est)).predict(X), pred)
+    order = np.random.default_rng(1).permutation(len(X))
+    assert np.array_equal(est.predict(X[order]), pred[order])
+    assert np.array_equal(np.concatenate([est.predict(X[:5]), est.predict(X[5:])]), pred)
+    assert np.array_equal(est.fit(X, y).predict(X), pred)
+    with pytest.raises(ValueError, match=f"X has 1 features, but {type(est).__name__} is expecting {X.shape[1]} "
+                                         "features"):
+        est.predict(X[:, :1])
+    frame = pd.DataFrame(X, columns=columns)
+    named = make().fit(frame, y)
+    assert list(named.feature_names_in_) == list(columns)
+    assert np.array_equal(named.predict(frame), pred)
+    with pytest.raises(ValueError, match="feature names"):
+        named.predict(frame.rename(columns={columns[-1]: "other"}))
+    return est

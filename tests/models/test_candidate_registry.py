@@ -8,6 +8,7 @@ import pytest
 
 from linkage.models.candidates import CANDIDATES, Candidate, CandidateSpec, register
 from linkage.models.cv import SIMPLICITY_ORDER
+from linkage.models.physical import PHYSICAL_INPUTS
 
 
 def test_the_registry_and_the_simplicity_order_name_the_same_candidates():
@@ -57,6 +58,22 @@ def test_a_new_candidate_is_one_class():
     assert "first_input_line" not in CANDIDATES  # registering is a deliberate step
 
 
+def _domain_data(name: str, n: int, seed: int, exact: bool = False):
+    """(X, y, inputs) inside the candidate's domain: a strength-like target on (ribbon_porosity, roll_gap_mm) for
+    every candidate but the Johanson baseline, which needs roll force, gap and roll diameter and a porosity target
+    (its own law, K = 5.5, C = 700 MPa: this test's stated truth)."""
+    rng = np.random.default_rng(seed)
+    if name == "johanson_baseline":
+        from linkage.physics.rolling import johanson_ribbon_porosity
+
+        X = np.column_stack([rng.uniform(4, 14, n), rng.uniform(1.5, 3.5, n), np.where(np.arange(n) % 2, 200., 400.)])
+        y = johanson_ribbon_porosity(X[:, 0], X[:, 1], X[:, 2], 5.5, 700.0)
+        return X, y + (0 if exact else rng.normal(0, 0.005, n)), list(PHYSICAL_INPUTS)
+    X = np.column_stack([rng.uniform(0.1, 0.4, n), rng.normal(size=n)])
+    y = 5 * np.exp(-4 * X[:, 0]) + (0 if exact else rng.normal(0, 0.01, n))
+    return X, y, ["ribbon_porosity", "b" if exact else "roll_gap_mm"]
+
+
 @pytest.mark.parametrize("name", list(SIMPLICITY_ORDER))
 def test_every_candidate_refuses_nan_at_fit_and_use_before_fit(name):
     """scikit-learn's contract (check_is_fitted raises NotFittedError before
@@ -64,10 +81,8 @@ def test_every_candidate_refuses_nan_at_fit_and_use_before_fit(name):
     from sklearn.exceptions import NotFittedError
 
     cls = CANDIDATES[name]
-    rng = np.random.default_rng(1)
-    X = np.column_stack([rng.uniform(0.1, 0.4, 12), rng.normal(size=12)])
-    y = 5 * np.exp(-4 * X[:, 0])
-    est = cls.build(cls.grid(12, 2)[0], ["ribbon_porosity", "b"], n=12)
+    X, y, inputs = _domain_data(name, 12, seed=1, exact=True)
+    est = cls.build(cls.grid(12, X.shape[1])[0], inputs, n=12)
     with pytest.raises(NotFittedError):
         est.predict(X)
     X_nan = X.copy()
@@ -75,7 +90,7 @@ def test_every_candidate_refuses_nan_at_fit_and_use_before_fit(name):
     with pytest.raises(ValueError, match=rf"{cls.__name__}\.fit: .*NaN.*X row 3, column 1.*do not impute"):
         est.fit(X_nan, y)
     est.fit(X, y)
-    with pytest.raises(ValueError, match=rf"X has 1 features, but {cls.__name__} is expecting 2 features"):
+    with pytest.raises(ValueError, match=rf"X has 1 features, but {cls.__name__} is expecting {X.shape[1]} features"):
         est.predict(X[:, :1])
     X_nan[3, 1] = np.inf
     with pytest.raises(ValueError, match=rf"{cls.__name__}: the inputs contain NaN or infinite values \(X row 3, "
@@ -93,17 +108,15 @@ def test_every_candidate_records_and_checks_feature_names(name):
     import pandas as pd
 
     cls = CANDIDATES[name]
-    rng = np.random.default_rng(2)
-    X = np.column_stack([rng.uniform(0.1, 0.4, 16), rng.normal(size=16)])
-    y = 5 * np.exp(-4 * X[:, 0]) + rng.normal(0, 0.01, 16)
-    frame = pd.DataFrame(X, columns=["ribbon_porosity", "roll_gap_mm"])
-    build = lambda: cls.build(cls.grid(16, 2)[0], ["ribbon_porosity", "roll_gap_mm"], n=16)  # noqa: E731
+    X, y, inputs = _domain_data(name, 16, seed=2)
+    frame = pd.DataFrame(X, columns=inputs)
+    build = lambda: cls.build(cls.grid(16, X.shape[1])[0], inputs, n=16)  # noqa: E731
     by_name, by_array = build().fit(frame, y), build().fit(frame.to_numpy(), y)
-    assert list(by_name.feature_names_in_) == ["ribbon_porosity", "roll_gap_mm"] and by_name.n_features_in_ == 2
-    assert not hasattr(by_array, "feature_names_in_") and by_array.n_features_in_ == 2
+    assert list(by_name.feature_names_in_) == inputs and by_name.n_features_in_ == len(inputs)
+    assert not hasattr(by_array, "feature_names_in_") and by_array.n_features_in_ == len(inputs)
     assert np.array_equal(by_name.predict(frame), by_array.predict(frame.to_numpy()))
     with pytest.raises(ValueError, match="feature names"):
-        by_name.predict(frame[["roll_gap_mm", "ribbon_porosity"]])
+        by_name.predict(frame[inputs[::-1]])
 
 
 @pytest.mark.parametrize("name", list(SIMPLICITY_ORDER))

@@ -35,6 +35,8 @@ from sklearn.utils.estimator_checks import parametrize_with_checks
 
 from linkage.models.candidates import CANDIDATES, LogLinearRegressor, RDRegressor, WeibullReleaseRegressor
 
+from .conftest import assert_estimator_contract
+
 #: why the Ryshkewitch–Duckworth candidate cannot take the checks' data, and the message that shows it
 RD_DOMAIN = (
     "the check fits on generated data whose first column (the porosity) lies outside 0-1: y0*exp(-k*porosity) "
@@ -58,6 +60,16 @@ LINK_DOMAIN = (
     r"ln y is undefined|not a percentage between 0",
 )
 
+#: why the Johanson rolling-theory baseline cannot take the checks' data, and the messages that show it
+JOHANSON_DOMAIN = (
+    "the check fits on generated data whose columns 0-2 (specific roll force, gap, roll diameter) include zero or "
+    "negative values, or whose target is not a porosity fraction, or with fewer than 3 columns: Johanson's rolling "
+    "theory (Johanson 1965) is defined for positive forces and lengths and porosities in (0, 1), and its fit "
+    "refuses the rest, as training's applicability rule (JohansonRibbonRegressor.not_applicable) does before any "
+    "fit; its contract on data inside the domain is checked in tests/models/test_physical.py",
+    r"Johanson fit refused the data|reads the columns|raised CandidateError unexpectedly",
+)
+
 #: scikit-learn skips this check itself unless SCIPY_ARRAY_API=1 is set before scipy is imported (and an
 #: array library is installed); the candidates compute with numpy only and claim no array API support
 ARRAY_API = (
@@ -65,6 +77,34 @@ ARRAY_API = (
     "compute with numpy only and do not claim array API support (scikit-learn's array_api_support tag is False)",
     r"SCIPY_ARRAY_API is not set",
 )
+
+#: the checks whose generated data lie outside the domain of the link candidates (and of the Johanson baseline)
+_LINK_CHECKS = [
+    "check_dict_unchanged",
+    "check_dont_overwrite_parameters",
+    "check_dtype_object",
+    "check_estimators_fit_returns_self",
+    "check_estimators_nan_inf",
+    "check_estimators_overwrite_params",
+    "check_estimators_pickle",
+    "check_f_contiguous_array_estimator",
+    "check_fit2d_predict1d",
+    "check_fit_check_is_fitted",
+    "check_fit_idempotent",
+    "check_fit_score_takes_y",
+    "check_methods_sample_order_invariance",
+    "check_methods_subset_invariance",
+    "check_n_features_in",
+    "check_n_features_in_after_fitting",
+    "check_pipeline_consistency",
+    "check_positive_only_tag_during_fit",
+    "check_readonly_memmap_input",
+    "check_regressor_data_not_an_array",
+    "check_regressors_int",
+    "check_regressors_no_decision_function",
+    "check_regressors_train",
+    "check_supervised_y_2d",
+]
 
 #: (candidate name, check name) -> (reason, regular expression the check's failure matches)
 SKIPS: dict[tuple[str, str], tuple[str, str]] = {
@@ -93,34 +133,11 @@ SKIPS: dict[tuple[str, str], tuple[str, str]] = {
         "check_regressors_train",
     ]},
     ("rd_baseline", "check_positive_only_tag_during_fit"): RD_DOMAIN_TAG,
-    **{(name, check): LINK_DOMAIN for name in ("log_linear", "weibull_release") for check in [
-        "check_dict_unchanged",
-        "check_dont_overwrite_parameters",
-        "check_dtype_object",
-        "check_estimators_fit_returns_self",
-        "check_estimators_nan_inf",
-        "check_estimators_overwrite_params",
-        "check_estimators_pickle",
-        "check_f_contiguous_array_estimator",
-        "check_fit2d_predict1d",
-        "check_fit_check_is_fitted",
-        "check_fit_idempotent",
-        "check_fit_score_takes_y",
-        "check_methods_sample_order_invariance",
-        "check_methods_subset_invariance",
-        "check_n_features_in",
-        "check_n_features_in_after_fitting",
-        "check_pipeline_consistency",
-        "check_positive_only_tag_during_fit",
-        "check_readonly_memmap_input",
-        "check_regressor_data_not_an_array",
-        "check_regressors_int",
-        "check_regressors_no_decision_function",
-        "check_regressors_train",
-        "check_supervised_y_2d",
-    ]},
+    **{(name, check): LINK_DOMAIN for name in ("log_linear", "weibull_release") for check in _LINK_CHECKS},
     **{(name, "check_positive_only_tag_during_fit"): (LINK_DOMAIN[0], r"raised CandidateError unexpectedly")
        for name in ("log_linear", "weibull_release")},
+    **{("johanson_baseline", check): JOHANSON_DOMAIN
+       for check in [*_LINK_CHECKS, "check_estimators_dtypes", "check_fit2d_1feature"]},
 }
 
 
@@ -178,28 +195,7 @@ def test_rd_baseline_keeps_the_contract_on_porosity_data():
     predictions bit for bit; predictions do not depend on the order or the
     subset of rows predicted; a second fit gives the same model."""
     X, y = _porosity_data()
-    est = RDRegressor(porosity_index=0)
-    with pytest.raises(NotFittedError):
-        est.predict(X)
-    params = est.get_params()
-    assert est.fit(X, y) is est
-    assert est.get_params() == params
-    assert est.n_features_in_ == 2 and not hasattr(est, "feature_names_in_")
-    pred = est.predict(X)
-    assert np.array_equal(clone(est).fit(X, y).predict(X), pred)
-    assert np.array_equal(pickle.loads(pickle.dumps(est)).predict(X), pred)
-    order = np.random.default_rng(1).permutation(len(X))
-    assert np.array_equal(est.predict(X[order]), pred[order])
-    assert np.array_equal(np.concatenate([est.predict(X[:5]), est.predict(X[5:])]), pred)
-    assert np.array_equal(est.fit(X, y).predict(X), pred)
-    with pytest.raises(ValueError, match="X has 1 features, but RDRegressor is expecting 2 features"):
-        est.predict(X[:, :1])
-    frame = pd.DataFrame(X, columns=["ribbon_porosity", "roll_gap_mm"])
-    named = RDRegressor().fit(frame, y)
-    assert list(named.feature_names_in_) == ["ribbon_porosity", "roll_gap_mm"]
-    assert np.array_equal(named.predict(frame), pred)
-    with pytest.raises(ValueError, match="feature names"):
-        named.predict(frame.rename(columns={"roll_gap_mm": "gap"}))
+    assert_estimator_contract(lambda: RDRegressor(porosity_index=0), X, y, ["ribbon_porosity", "roll_gap_mm"])
 
 
 @pytest.mark.parametrize("cls, y_of", [

@@ -1,0 +1,117 @@
+"""The report's section on transfer between compactors (Johanson rolling theory).
+
+Fits the ribbon physics (:func:`linkage.decide.transfer.fit_ribbon_physics`)
+to the assembled lots of every compactor, draws each lot's porosity against
+its specific roll force with the fitted curve of each compactor's rolls, and
+tabulates the specific roll force that gives the porosity window's edges
+(or the median porosity) on each compactor of the lots and on stated
+production rolls.
+"""
+
+from __future__ import annotations
+
+import html
+
+import numpy as np
+
+from linkage.decide.transfer import LEAVES_OUT
+
+__all__ = ["SCALE_UP_ROLLS", "transfer_section"]
+
+#: stated production rolls the report transfers to besides the lots' own compactors: (diameter, width) [mm]
+#: (a round example of a larger machine, no source)
+SCALE_UP_ROLLS = (400.0, 150.0)
+
+_FORCE, _GAP, _DIAMETER, _POROSITY = "roll_force_kn_per_cm", "roll_gap_mm", "roll_diameter_mm", "ribbon_porosity"
+
+
+def _targets(window, table) -> tuple[list[float], str]:
+    if window is not None and getattr(window, "found", False):
+        return [float(window.low.value), float(window.high.value)], "the edges of the porosity window"
+    return [float(np.nanmedian(table[_POROSITY]))], "the lots' median ribbon porosity"
+
+
+def _rolls(table, physics) -> list[tuple[str, float, float, float]]:
+    """(label, diameter, width, gap) for each compactor of the lots and the stated scale-up rolls."""
+    gap = float(np.nanmedian(table[_GAP]))
+    out = []
+    for name, c in physics.compactors.items():
+        width = c["roll_width_mm"] if c["roll_width_mm"] is not None else float("nan")
+        out.append((name, c["roll_diameter_mm"], width, gap))
+    if not out:
+        out.append(("lots", float(np.nanmedian(table[_DIAMETER])), float("nan"), gap))
+    out.append(("stated rolls", *SCALE_UP_ROLLS, gap))
+    return out
+
+
+def transfer_section(b, table, window=None, *, seed: int = 0) -> None:
+    """Add the section to the report builder ``b`` (``linkage.report.html._Builder``)."""
+    from linkage.decide.transfer import fit_ribbon_physics, transfer
+    from linkage.exceptions import LinkageError
+    from linkage.report import figures as F
+    from linkage.report.html import _table
+
+    b.section("transfer", "Transfer between compactors (Johanson rolling theory)")
+    missing = [c for c in (_FORCE, _GAP, _DIAMETER, _POROSITY) if c not in table.columns]
+    if missing:
+        b.note(f"The lots have no {', '.join(missing)}, so the ribbon physics cannot be fitted; record the roll "
+               "diameter of every lot to transfer between compactors.")
+        return
+    try:
+        physics = fit_ribbon_physics(table, source="assembled lots")
+    except LinkageError as exc:
+        b.note(f"The ribbon physics could not be fitted: {exc}")
+        return
+    d = physics.to_dict()
+    b.add(f"<p>Johanson's rolling theory (1965) fitted to {physics.n_lots} lots of every compactor at once: "
+          f"compressibility K = {physics.compressibility:.3g} (log SD {d['compressibility_log_sd']:.2g}), "
+          f"pressure constant {physics.pressure_constant_mpa:.4g} MPa (log SD {d['pressure_constant_log_sd']:.2g}), "
+          f"residual SD of porosity {physics.residual_sd:.4f}; friction angles held at "
+          f"{physics.internal_friction_deg:g}° (internal) and {physics.wall_friction_deg:g}° (wall). The same peak "
+          f"pressure gives the same ribbon on any rolls; the specific roll force that makes it grows with roll "
+          f"diameter and gap.</p>")
+
+    t = table.dropna(subset=[_FORCE, _GAP, _DIAMETER, _POROSITY])
+    ax = F.new_axes(panel=(5.0, 3.2))
+    groups = t["compactor"].astype(str).to_numpy() if "compactor" in t.columns else None
+    F._scatter_groups(ax, t[_FORCE], t[_POROSITY], groups, legend_title="compactor")
+    gap = float(np.nanmedian(t[_GAP]))
+    grid = np.linspace(float(t[_FORCE].min()) * 0.8, float(t[_FORCE].max()) * 1.2, 80)
+    styles = F.group_styles(sorted(set(groups))) if groups is not None else {}
+    for name, c in physics.compactors.items():
+        colour = styles.get(name, ("black", "o"))[0]
+        ax.plot(grid, physics.porosity(grid, gap, c["roll_diameter_mm"]), color=colour, lw=1.2)
+    ax.set_xlabel(F.axis_label(_FORCE))
+    ax.set_ylabel(F.axis_label(_POROSITY))
+    b.figure(ax, f"Ribbon porosity of each lot against specific roll force, by compactor; lines: the fitted "
+                 f"Johanson model on each compactor's rolls at the median gap {gap:.3g} mm (lots at other gaps "
+                 f"scatter about them).")
+
+    targets, which = _targets(window, t)
+    rows = []
+    extrapolated = False
+    for label, diameter, width, g in _rolls(t, physics):
+        w = width if np.isfinite(width) else 100.0
+        result = transfer(physics, roll_diameter_mm=diameter, roll_width_mm=w, roll_gap_mm=g,
+                          porosity=targets[0] if len(targets) == 1 else None,
+                          window=tuple(targets) if len(targets) == 2 else None, seed=seed)
+        for r in result.targets:
+            lo, hi = r["force_interval_kn_per_cm"]
+            extrapolated |= not r["inside_lots_pressure_range"]
+            rows.append([html.escape(label), f"{diameter:g}", f"{width:g}" if np.isfinite(width) else "—",
+                         f"{g:.3g}", f"{r['ribbon_porosity']:.3f}",
+                         f"{r['roll_force_kn_per_cm']:.2f}" + ("" if r["inside_lots_pressure_range"] else " *"),
+                         f"{lo:.2f}–{hi:.2f}",
+                         f"{r['roll_force_kn']:.0f}" if np.isfinite(width) else "—",
+                         f"{r['peak_pressure_mpa']:.0f}"])
+    b.add(f"<p>Specific roll force that gives {which} on each compactor's rolls and on stated production rolls "
+          f"({SCALE_UP_ROLLS[0]:g} mm diameter, {SCALE_UP_ROLLS[1]:g} mm wide; not among the lots), at the lots' "
+          f"median gap. Force is the specific roll force, total the force over the roll width; 95 % interval for "
+          f"one lot (fit uncertainty plus lot-to-lot scatter).</p>")
+    b.add(_table(["rolls", "diameter [mm]", "width [mm]", "gap [mm]", "porosity [-]", "force [kN/cm]",
+                  "95 % interval [kN/cm]", "total [kN]", "P max [MPa]"], rows,
+                 num_cols={1, 2, 3, 4, 5, 6, 7, 8}))
+    if extrapolated:
+        b.add('<p class="note">* The peak pressure is outside the range the lots reached: the force is '
+              "extrapolated along the material's compressibility law.</p>")
+    b.add(f"<p><b>What the model leaves out.</b> {html.escape(LEAVES_OUT)}</p>")
