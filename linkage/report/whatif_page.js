@@ -102,7 +102,11 @@
         if (!m.log_mask[j]) return c;
         if (typeof c === "number") return Math.log(Math.max(c, TINY));
         let l = logs && logs.get ? logs.get(c) : undefined;
-        if (!l) { l = Float64Array.from(c, (v) => Math.log(Math.max(v, TINY))); if (logs && logs.set) logs.set(c, l); }
+        if (!l) {
+          l = new Float64Array(c.length);
+          for (let i = 0; i < c.length; i++) l[i] = Math.log(Math.max(c[i], TINY));
+          if (logs && logs.set) logs.set(c, l);
+        }
         return l;
       });
       const xm = m.x_mean, cf = m.coef, b0 = m.intercept, link = m.link, yMax = m.y_max;
@@ -110,7 +114,14 @@
       for (let d = 0; d < D; d++) {
         let s = 0;
         for (let j = 0; j < p; j++) { const a = arr[j]; s += ((a !== null ? a[d] : val[j]) - xm[j]) * cf[j]; }
-        out[d] = linkInverse(link, s + b0, yMax);
+        out[d] = s + b0;
+      }
+      if (link === "identity") return out;
+      for (let d = 0; d < D; d++) { // linkInverse, its cases taken once per model
+        const eta = clip(out[d], -ETA_MAX, ETA_MAX);
+        if (link === "log") out[d] = Math.exp(eta);
+        else if (link === "cloglog") out[d] = -yMax * Math.expm1(-Math.exp(eta));
+        else throw new Error("unknown link " + link);
       }
       return out;
     }
@@ -141,6 +152,31 @@
     return lerp(s[i], s[i + 1], v - i);
   }
   function sorted(a) { return Float64Array.from(a).sort(); }
+  function select(a, k, lo, hi) { // a[k] as in sorted order, a rearranged around it (quickselect, in place)
+    while (hi > lo) {
+      const pivot = a[(lo + hi) >> 1];
+      let i = lo, j = hi;
+      while (i <= j) {
+        while (a[i] < pivot) i++;
+        while (a[j] > pivot) j--;
+        if (i <= j) { const t = a[i]; a[i] = a[j]; a[j] = t; i++; j--; }
+      }
+      if (k <= j) hi = j; else if (k >= i) lo = i; else break;
+    }
+    return a[k];
+  }
+  function quantiles(values, qs) { // np.quantile(values, qs), method "linear", values finite
+    const a = Float64Array.from(values), n = a.length;
+    return qs.map((q) => {
+      const v = (n - 1) * q;
+      if (v >= n - 1) return select(a, n - 1, 0, n - 1);
+      if (v < 0) return select(a, 0, 0, n - 1);
+      const i = Math.floor(v), x = select(a, i, 0, n - 1);
+      let y = a[i + 1]; // the smallest value right of i (all there are >= a[i] after the selection)
+      for (let k = i + 2; k < n; k++) if (a[k] < y) y = a[k];
+      return lerp(x, y, v - i);
+    });
+  }
   function nanquantile(a, q) {
     const s = sorted(Array.from(a).filter((v) => !Number.isNaN(v)));
     return quantileSorted(s, q);
@@ -300,17 +336,17 @@
     const values = {}, means = {}, raw = {}, rawMeans = {};
     for (const [k, v] of Object.entries(filled)) { values[k] = v; means[k] = v; } // a number: the same in every draw
     const fixed = new Set(Object.keys(filled));
+    const logs = new Map();
     for (const st of M.stages) {
       const todo = st.targets.filter((t) => !fixed.has(t.target));
       if (!todo.length) continue;
       for (const t of todo) {
         const j = st.targets.indexOf(t), p = t.inputs.length;
-        const x = new Float64Array(p), cols = t.inputs.map((c) => values[c]);
+        const preds = predictMany(t.model, t.inputs.map((c) => values[c]), N, logs);
         const r = new Float64Array(N), out = new Float64Array(N);
         const lots = t.mc_lots;
         for (let d = 0; d < N; d++) {
-          for (let i = 0; i < p; i++) x[i] = typeof cols[i] === "number" ? cols[i] : cols[i][d];
-          const pred = predictOne(t.model, x), lot = lots[d];
+          const pred = preds[d], lot = lots[d];
           if (!t.spread) r[d] = pred + at2(st.residual_matrix, lot, j);
           else r[d] = pred + (at2(st.residual_matrix, lot, j) / at2(st.residual_scale, lot, j)) * spreadScale(t.spread, pred);
           out[d] = clip(r[d], lowEnd(t.physical_range), highEnd(t.physical_range));
@@ -472,9 +508,10 @@
         // predictions at the parents' inputs are the predictions at the expanded inputs (the same numbers)
         const preds = st.targets.map((t) => predictAt(t, modelOf(t.target), D));
         const parent = step.parent, n = parent.length;
-        for (const c of Object.keys(vals)) if (typeof vals[c] !== "number") vals[c] = Float64Array.from(parent, (d) => vals[c][d]);
-        ok = Uint8Array.from(parent, (d) => ok[d]);
-        for (const a of Object.keys(each)) each[a] = Uint8Array.from(parent, (d) => each[a][d]);
+        const expand = (v, out) => { for (let i = 0; i < n; i++) out[i] = v[parent[i]]; return out; };
+        for (const c of Object.keys(vals)) if (typeof vals[c] !== "number") vals[c] = expand(vals[c], new Float64Array(n));
+        ok = expand(ok, new Uint8Array(n));
+        for (const a of Object.keys(each)) each[a] = expand(each[a], new Uint8Array(n));
         st.targets.forEach((t, j) => {
           const pl = lowEnd(t.physical_range), ph = highEnd(t.physical_range), pr = preds[j], r = R[j], v = new Float64Array(n);
           for (let i = 0; i < n; i++) v[i] = clip(pr[parent[i]] + r[step.pick[i]], pl, ph);
@@ -586,9 +623,8 @@
           method = t.spread ? "locally weighted cv+ conformal" : "cv+ conformal";
           low = clip(rawLow, pl, ph); high = clip(rawHigh, pl, ph);
         } else {
-          const s = sorted(vals), sr = sorted(draws.raw[name]);
-          low = quantileSorted(s, q); high = quantileSorted(s, 1 - q);
-          rawLow = quantileSorted(sr, q); rawHigh = quantileSorted(sr, 1 - q);
+          [low, high] = quantiles(vals, [q, 1 - q]);
+          [rawLow, rawHigh] = quantiles(draws.raw[name], [q, 1 - q]);
           method = "monte carlo through the chain";
         }
         const value = draws.means[name], rawValue = draws.rawMeans[name];
@@ -802,6 +838,7 @@
 
   window.linkageWhatIf = whatif; // for tests: the result at any given settings, in full precision
   window.linkageFillSettings = fillSettings;
+  window.linkageModel = M; // the embedded numbers, decoded
   build();
   update();
 })();
