@@ -158,9 +158,10 @@ class Browser:
     def open(self, url: str) -> None:
         """Navigate and wait for the load event."""
         self.call("Page.enable")
+        start = len(self.events)
         self.call("Page.navigate", url=url)
         end = time.monotonic() + self.timeout
-        while not any(m == "Page.loadEventFired" for m, _ in self.events):
+        while not any(m == "Page.loadEventFired" for m, _ in self.events[start:]):
             if time.monotonic() > end:
                 raise CDPError(f"{url} did not load")
             self.call("Runtime.evaluate", expression="1")  # collects the events that arrived

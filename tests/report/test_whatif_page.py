@@ -299,3 +299,66 @@ def test_the_page_renders_and_prints_on_one_page(opened, tmp_path):
 
     assert CAUTION in text and opened.evaluate("window.linkageModel.model_id") in text
     assert "spec.toml" in text
+
+
+# ---------------------------------------------------------------------------
+# every lean model kind: one chain per candidate (the demo selects link models only)
+# ---------------------------------------------------------------------------
+KIND_CANDIDATES = {"trees": "boosting", "linear": "pls", "quadratic": "quadratic_ridge", "rd": "rd_baseline"}
+
+
+@pytest.fixture(scope="module")
+def kind_models(tmp_path_factory):
+    """{candidate: (models_dir, spec_path, kinds)}: a chain trained with one
+    candidate (and the mean, always tried) on 30 synthetic lots with vessel
+    data, 10 bootstrap replicates, saved in a registry; the spec judges
+    dissolution by USP <711> stages."""
+    from linkage.assemble import assemble
+    from linkage.models.lean import from_fitted
+    from linkage.models.registry import save
+    from linkage.models.train import train_chain
+    from linkage.synthetic import WINDOW_SPEC, make_lots, spec_toml
+
+    table = assemble(make_lots(30, seed=1, with_vessels=True).tables)
+    folder = tmp_path_factory.mktemp("kinds")
+    spec_path = folder / "spec.toml"
+    spec_path.write_text(spec_toml(WINDOW_SPEC, dissolution_judge="stages"), encoding="utf-8")
+    out = {}
+    for candidate in KIND_CANDIDATES.values():
+        chain = train_chain(table, seed=0, candidates=[candidate], n_bootstrap=10)
+        models_dir = folder / candidate
+        save(chain, models_dir)
+        out[candidate] = (models_dir, spec_path, {t.model_.kind for t in from_fitted(chain).targets.values()})
+    return out
+
+
+@pytest.mark.slow
+@pytest.mark.browser
+def test_every_lean_model_kind_agrees_with_predict_json(kind_models, browser, tmp_path):
+    """Trees, PLS (linear), quadratic ridge, Ryshkewitch–Duckworth and the
+    mean, each with its fold models (CV+) and bootstrap replicates (the
+    bound), at 3 random settings each, to 1e-9."""
+    kinds_seen = set()
+    rng = np.random.default_rng(5)
+    for candidate, (models_dir, spec_path, kinds) in kind_models.items():
+        kinds_seen |= kinds
+        page = tmp_path / f"{candidate}.html"
+        r = _cli(["predict", "--spec", str(spec_path), "--models-dir", str(models_dir), "--page", str(page)])
+        assert r.exit_code == 0, r.output
+        browser.open(page.as_uri())
+        settings = browser.evaluate("window.linkageModel.settings")
+        for i in range(3):
+            chosen = [s for s in settings if rng.random() < 0.5] or settings[:1]
+            values = {s["name"]: float(rng.uniform(s["low"], s["high"])) for s in chosen}
+            shown = _set_controls(browser, values)["result"]
+            args = ["predict", "--spec", str(spec_path), "--models-dir", str(models_dir), "--json"]
+            for k, v in values.items():
+                args += ["--set", f"{k}={v!r}"]
+            r = _cli(args)
+            assert r.exit_code == 0, r.output
+            py = json.loads(r.stdout)
+            py_part = {k: py[k] for k in _COMPARED}
+            py_part["p_pass_all_bound"] = {"low": py["p_pass_all_bound"]["low"]}
+            problems = _compare(py_part, shown)
+            assert not problems, f"{candidate}, setting {i} {values}: " + "; ".join(problems[:10])
+    assert {"trees", "linear", "quadratic", "rd", "mean"} <= kinds_seen
