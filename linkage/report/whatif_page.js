@@ -693,7 +693,8 @@
     return e;
   };
   const num = (v, d = 4) => (v === null || v === undefined ? "–" : !Number.isFinite(v) ? (v > 0 ? "∞" : "−∞") : fmt(Number(v.toPrecision(d))));
-  const pct = (v) => (v === null || v === undefined || Number.isNaN(v) ? "–" : (100 * v).toFixed(1) + " %");
+  const pct = (v) => (v === null || v === undefined || Number.isNaN(v) ? "–"
+    : v > 0.999 && v < 1 ? "> 99.9 %" : v > 0 && v < 0.001 ? "< 0.1 %" : (100 * v).toFixed(1) + " %");
 
   function build() {
     app.textContent = "";
@@ -708,8 +709,8 @@
     app.append(el("p", { class: "caution", text: M.caution }));
     const controls = el("section", { id: "controls" }, el("h2", { text: "Settings" }));
     const table = el("table", { class: "settings" });
-    table.append(el("tr", {}, el("th", { text: "set" }), el("th", { text: "setting" }), el("th", { text: "training range" }),
-      el("th", { text: "value" }), el("th", { text: "" }), el("th", { text: "held at / source" })));
+    table.append(el("tr", {}, el("th", { class: "set", text: "set" }), el("th", { text: "setting" }), el("th", { text: "training range" }),
+      el("th", { text: "value" }), el("th", { class: "slider", text: "" }), el("th", { text: "held at / source" })));
     for (const s of M.settings) {
       const step = (s.high - s.low) / 1000;
       const start = s.name in M.initial ? M.initial[s.name] : s.median;
@@ -721,11 +722,11 @@
       check.addEventListener("change", update);
       slider.addEventListener("input", () => { box.value = slider.value; check.checked = true; update(); });
       box.addEventListener("input", () => { slider.value = box.value; check.checked = true; update(); });
-      table.append(el("tr", {}, el("td", {}, check), el("td", { text: s.name + (s.unit && !NOT_UNITS.has(s.unit) ? ` [${s.unit}]` : "") }),
+      table.append(el("tr", {}, el("td", { class: "set" }, check), el("td", { text: s.name + (s.unit && !NOT_UNITS.has(s.unit) ? ` [${s.unit}]` : "") }),
         el("td", { text: `${fmt(s.low)} – ${fmt(s.high)}` }), el("td", {}, box), el("td", { class: "slider" }, slider), srcCell));
     }
     controls.append(table);
-    controls.append(el("p", { class: "note", text: "A setting not ticked is held as the what-if holds it (" +
+    controls.append(el("p", { class: "note noprint", text: "A setting not ticked is held as the what-if holds it (" +
       (M.settings_mean ? "its conditional mean given the ticked ones, under the normal model of the training settings" : "its training median") + ")." }));
     app.append(controls);
     app.append(el("section", { id: "results" }));
@@ -754,12 +755,12 @@
     }
     const lo = Math.min(W.data_range ? W.data_range[0] : W.low, pred ? pred.low : W.low, W.low);
     const hi = Math.max(W.data_range ? W.data_range[1] : W.high, pred ? pred.high : W.high, W.high);
-    const X = (v) => 10 + 580 * (v - lo) / (hi - lo || 1);
+    const X = (v) => 30 + 540 * (v - lo) / (hi - lo || 1);
     const ns = "http://www.w3.org/2000/svg";
     const svg = document.createElementNS(ns, "svg");
     svg.setAttribute("viewBox", "0 0 600 70"); svg.setAttribute("class", "windowplot");
     const add = (tag, a) => { const e = document.createElementNS(ns, tag); for (const [k, v] of Object.entries(a)) e.setAttribute(k, v); svg.append(e); return e; };
-    add("line", { x1: 10, x2: 590, y1: 40, y2: 40, stroke: "#888" });
+    add("line", { x1: 30, x2: 570, y1: 40, y2: 40, stroke: "#888" });
     add("rect", { x: X(W.low), y: 25, width: Math.max(1, X(W.high) - X(W.low)), height: 30, fill: "#cde8cd", stroke: "#2a7a2a" });
     if (pred) {
       add("line", { x1: X(clip(pred.low, lo, hi)), x2: X(clip(pred.high, lo, hi)), y1: 40, y2: 40, stroke: "#1f4e9e", "stroke-width": 3 });
