@@ -148,13 +148,15 @@ def browser(tmp_path_factory):
     b.close()
 
 
-@pytest.fixture(scope="module")
+@pytest.fixture()
 def opened(browser, demo_page):
-    """The demo page, loaded with the Network domain recording every request."""
-    browser.call("Network.enable")
-    browser.call("Runtime.enable")
-    browser.events.clear()
-    browser.open(demo_page.as_uri())
+    """The demo page, loaded once with the Network domain recording every
+    request (loaded again if another test navigated away)."""
+    if browser.evaluate("location.href") != demo_page.as_uri():
+        browser.call("Network.enable")
+        browser.call("Runtime.enable")
+        browser.events.clear()
+        browser.open(demo_page.as_uri())
     return browser
 
 
@@ -259,14 +261,21 @@ def test_the_page_makes_no_network_request(opened, tmp_path):
 
 @pytest.mark.slow
 @pytest.mark.browser
-def test_the_network_check_sees_a_request(browser, tmp_path):
-    """Control for the test above, in its own page load."""
+def test_the_network_check_sees_a_request(tmp_path):
+    """Control for the test above, in a browser of its own."""
+    if CHROMIUM is None:
+        pytest.skip("Chromium is not installed (Debian package 'chromium'; .ci/run installs it)")
+    from .cdp import Browser
+
     control = tmp_path / "control.html"
     control.write_text('<!DOCTYPE html><html><body><img src="http://127.0.0.1:9/x.png"></body></html>')
-    browser.call("Network.enable")
-    browser.events.clear()
-    browser.open(control.as_uri())
-    urls = {p["request"]["url"] for m, p in browser.events if m == "Network.requestWillBeSent"}
+    b = Browser(CHROMIUM, tmp_path / "profile")
+    try:
+        b.call("Network.enable")
+        b.open(control.as_uri())
+        urls = {p["request"]["url"] for m, p in b.events if m == "Network.requestWillBeSent"}
+    finally:
+        b.close()
     assert "http://127.0.0.1:9/x.png" in urls
 
 
@@ -362,3 +371,42 @@ def test_every_lean_model_kind_agrees_with_predict_json(kind_models, browser, tm
             problems = _compare(py_part, shown)
             assert not problems, f"{candidate}, setting {i} {values}: " + "; ".join(problems[:10])
     assert {"trees", "linear", "quadratic", "rd", "mean"} <= kinds_seen
+
+
+@pytest.mark.slow
+@pytest.mark.browser
+def test_held_settings_follow_the_conditional_mean_when_the_model_carries_one(demo, browser, tmp_path):
+    """With the fields of a normal model of the training settings in the lean
+    model (``settings_names``, ``settings_mean``, ``settings_cov``,
+    ``settings_low``, ``settings_high``), an unticked setting is held at its
+    conditional mean given the ticked ones, μ_u + Σ_ug Σ_gg⁻¹ (x_g − μ_g)
+    (Anderson 2003, An Introduction to Multivariate Statistical Analysis,
+    Theorem 2.5.1; from memory), kept inside its low–high range; checked
+    against numpy's solve. Without the fields, the training median (the
+    20-setting test above)."""
+    from linkage.models.registry import load_whatif
+    from linkage.report.page import page_html
+
+    out, _ = demo
+    lean = load_whatif(out.models_dir, out.model_id)
+    names = lean.root_inputs()
+    rng = np.random.default_rng(2)
+    a = rng.normal(size=(len(names), len(names)))
+    cov = a @ a.T + np.eye(len(names))
+    mean = np.array([lean.medians[n] for n in names])
+    low, high = mean - 3.0, mean + 3.0
+    lean.spec.update(settings_names=names, settings_mean=mean, settings_cov=cov, settings_low=low,
+                     settings_high=high)
+    page = tmp_path / "conditional.html"
+    page.write_text(page_html(lean), encoding="utf-8")
+    browser.open(page.as_uri())
+    for given_names in (names[:1], names[1:3], names[::2]):
+        g = [names.index(n) for n in given_names]
+        x = mean[g] + rng.normal(size=len(g))
+        shown = browser.evaluate(f"window.linkageFillSettings({json.dumps(dict(zip(given_names, x.tolist())))})")
+        u = [i for i in range(len(names)) if i not in g]
+        want = mean[u] + cov[np.ix_(u, g)] @ np.linalg.solve(cov[np.ix_(g, g)], x - mean[g])
+        want = np.clip(want, low[u], high[u])
+        for i, w in zip(u, want):
+            assert shown["values"][names[i]] == pytest.approx(w, abs=TOL)
+            assert shown["source"][names[i]] == "conditional mean"
