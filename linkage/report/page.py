@@ -142,7 +142,7 @@ def _bound_uniforms(lean, given: set[str], limits_names: list[str], seed: int, c
     for si, st in enumerate(sim):
         todo = [t for t in st.targets if t not in given]
         cols = [list(st.targets).index(t) for t in todo]
-        n_s = int(np.all(np.isfinite(st.residual_matrix[:, cols]), axis=1).sum())
+        n_s = int(np.all(np.isfinite(st.residual_matrix[:, cols] / st.residual_scale[:, cols]), axis=1).sum())
         rng = np.random.default_rng([seed, si])
         if si < len(sim) - 1:
             if D * n_s <= cells:

@@ -425,10 +425,11 @@
     const T = st.targets.length, rows = [];
     for (let i = 0; i < st.residual_lots.length; i++) {
       let all = true;
-      for (let j = 0; j < T; j++) if (!Number.isFinite(at2(st.residual_matrix, i, j))) all = false;
+      for (let j = 0; j < T; j++) if (!Number.isFinite(at2(st.residual_matrix, i, j) / at2(st.residual_scale, i, j))) all = false;
       if (all) rows.push(i);
     }
-    const R = st.targets.map((t, j) => Float64Array.from(rows, (i) => at2(st.residual_matrix, i, j)));
+    // each residual divided by the spread at the lot's own level (ones without a spread model)
+    const R = st.targets.map((t, j) => Float64Array.from(rows, (i) => at2(st.residual_matrix, i, j) / at2(st.residual_scale, i, j)));
     return { rows, R };
   });
   function stageWeights(si, counts, b) { // W of bound._stage_lots for one replicate (counts null: the point)
@@ -514,7 +515,11 @@
         for (const a of Object.keys(each)) each[a] = expand(each[a], new Uint8Array(n));
         st.targets.forEach((t, j) => {
           const pl = lowEnd(t.physical_range), ph = highEnd(t.physical_range), pr = preds[j], r = R[j], v = new Float64Array(n);
-          for (let i = 0; i < n; i++) v[i] = clip(pr[parent[i]] + r[step.pick[i]], pl, ph);
+          const sp = t.spread; // the residual times the spread at the draw's level, as the Monte Carlo does
+          for (let i = 0; i < n; i++) {
+            const p0 = pr[parent[i]];
+            v[i] = clip(p0 + r[step.pick[i]] * (sp ? spreadScale(sp, p0) : 1.0), pl, ph);
+          }
           vals[t.target] = v;
           if (attributes.includes(t.target)) {
             const lim = limits[t.target];
@@ -531,7 +536,9 @@
           // bound._passes: the projection is a clip, so a limit inside the range compares the residual
           const useMin = lim.min !== null && lim.min > pl, useMax = lim.max !== null && lim.max < ph;
           const never = (useMin && lim.min > ph) || (useMax && lim.max < pl);
-          J.push({ name: t.target, j, pred: predictAt(t, modelOf(t.target), D), useMin, useMax, never, min: lim.min, max: lim.max });
+          const pred = predictAt(t, modelOf(t.target), D);
+          const scale = t.spread ? Float64Array.from(pred, (p0) => spreadScale(t.spread, p0)) : null;
+          J.push({ name: t.target, j, pred, scale, useMin, useMax, never, min: lim.min, max: lim.max });
         });
         // Σ_l lw[l]·pass(l) as Σ_l lw[l] less the lots that fail: with each target's residuals sorted
         // (made once per replicate), the lots failing a limit are found from the ends of the order,
@@ -545,8 +552,9 @@
           let failAll = 0;
           for (let k = 0; k < K; k++) {
             const Jk = J[k], sk = sorted[Jk.j];
-            const lo = Jk.never ? Infinity : Jk.useMin ? Jk.min - Jk.pred[d] : -Infinity;
-            const hi = Jk.useMax ? Jk.max - Jk.pred[d] : Infinity;
+            const sd = Jk.scale === null ? 1.0 : Jk.scale[d]; // pass: r >= (min - pred)/s, r <= (max - pred)/s
+            const lo = Jk.never ? Infinity : Jk.useMin ? (Jk.min - Jk.pred[d]) / sd : -Infinity;
+            const hi = Jk.useMax ? (Jk.max - Jk.pred[d]) / sd : Infinity;
             let fail = 0;
             if (Jk.never || Number.isNaN(lo) || Number.isNaN(hi)) { // no lot passes (a comparison with NaN fails)
               fail = plan.lwTotal;
