@@ -95,15 +95,16 @@
   }
   // the model at each of D draws of its inputs (cols: a number or an array of D per input);
   // logs: a cache of ln(max(x, tiny)) per column array, shared by the targets of a stage
-  function predictMany(m, cols, D, logs) {
-    const p = cols.length, out = new Float64Array(D);
+  function predictMany(m, cols, D, logs, out) {
+    const p = cols.length;
+    out = out || new Float64Array(D);
     if (m.kind === "link") {
       const h = cols.map((c, j) => {
         if (!m.log_mask[j]) return c;
         if (typeof c === "number") return Math.log(Math.max(c, TINY));
         let l = logs && logs.get ? logs.get(c) : undefined;
         if (!l) {
-          l = new Float64Array(c.length);
+          l = logs && logs.alloc ? logs.alloc(c.length) : new Float64Array(c.length);
           for (let i = 0; i < c.length; i++) l[i] = Math.log(Math.max(c[i], TINY));
           if (logs && logs.set) logs.set(c, l);
         }
@@ -500,8 +501,18 @@
     const S = M.stages.length, vals = Object.assign({}, filled);
     let ok = Uint8Array.of(1), each = {}, pAll = null;
     const pEach = {};
+    // buffers kept with the plan and reused at every update (the same shapes each time): no garbage
+    const pool = plan.pool || (plan.pool = { arrays: [], next: 0 });
+    pool.next = 0;
+    const alloc = (n, Type = Float64Array) => {
+      let a = pool.arrays[pool.next];
+      if (!a || a.length !== n || !(a instanceof Type)) { a = new Type(n); pool.arrays[pool.next] = a; }
+      pool.next++;
+      return a;
+    };
     const logs = new Map();
-    const predictAt = (t, m, D) => predictMany(m, t.inputs.map((c) => vals[c]), D, logs);
+    logs.alloc = alloc;
+    const predictAt = (t, m, D) => predictMany(m, t.inputs.map((c) => vals[c]), D, logs, alloc(D));
     let D = 1;
     for (let si = 0; si < S; si++) {
       const st = M.stages[si], step = plan.steps[si], R = STAGE_LOTS[si].R;
@@ -510,11 +521,11 @@
         const preds = st.targets.map((t) => predictAt(t, modelOf(t.target), D));
         const parent = step.parent, n = parent.length;
         const expand = (v, out) => { for (let i = 0; i < n; i++) out[i] = v[parent[i]]; return out; };
-        for (const c of Object.keys(vals)) if (typeof vals[c] !== "number") vals[c] = expand(vals[c], new Float64Array(n));
-        ok = expand(ok, new Uint8Array(n));
-        for (const a of Object.keys(each)) each[a] = expand(each[a], new Uint8Array(n));
+        for (const c of Object.keys(vals)) if (typeof vals[c] !== "number") vals[c] = expand(vals[c], alloc(n));
+        ok = expand(ok, alloc(n, Uint8Array));
+        for (const a of Object.keys(each)) each[a] = expand(each[a], alloc(n, Uint8Array));
         st.targets.forEach((t, j) => {
-          const pl = lowEnd(t.physical_range), ph = highEnd(t.physical_range), pr = preds[j], r = R[j], v = new Float64Array(n);
+          const pl = lowEnd(t.physical_range), ph = highEnd(t.physical_range), pr = preds[j], r = R[j], v = alloc(n);
           const sp = t.spread; // the residual times the spread at the draw's level, as the Monte Carlo does
           for (let i = 0; i < n; i++) {
             const p0 = pr[parent[i]];
@@ -537,7 +548,8 @@
           const useMin = lim.min !== null && lim.min > pl, useMax = lim.max !== null && lim.max < ph;
           const never = (useMin && lim.min > ph) || (useMax && lim.max < pl);
           const pred = predictAt(t, modelOf(t.target), D);
-          const scale = t.spread ? Float64Array.from(pred, (p0) => spreadScale(t.spread, p0)) : null;
+          let scale = null;
+          if (t.spread) { scale = alloc(D); for (let d = 0; d < D; d++) scale[d] = spreadScale(t.spread, pred[d]); }
           J.push({ name: t.target, j, pred, scale, useMin, useMax, never, min: lim.min, max: lim.max });
         });
         // Σ_l lw[l]·pass(l) as Σ_l lw[l] less the lots that fail: with each target's residuals sorted
