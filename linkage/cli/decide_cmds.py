@@ -107,6 +107,7 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
       linkage predict --set roll_force_kn_per_cm=9 --set roll_gap_mm=2.5 --spec spec.toml
       linkage predict --set ribbon_porosity=0.31 --spec spec.toml --html whatif.html
       linkage predict --from-csv planned.csv --json
+      linkage predict --spec spec.toml --page whatif-page.html --page-window window.json
       linkage predict --set ribbon_porosity=0.29 --lot Q26-049 --product "QZ-417 200 mg" --spec spec.toml
 
     Every what-if is recorded in the lot store (when it exists) with the
