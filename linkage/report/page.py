@@ -243,6 +243,14 @@ def page_payload(lean, spec=None, *, seed: int = 0, n_draws: int = 4000, level: 
         "products": list(lean.products),
         "units": {name: ASSEMBLED.get(name, "-") for name in list(lean.medians) + list(lean.targets)},
     }
+    try:  # the words fill_settings gives as the source of a held setting
+        from linkage.decide import held
+
+        payload["held_labels"] = {"coherent": held.COHERENT, "mean": held.MEAN, "median": held.MEDIAN}
+    except ImportError:  # a linkage before coherent held settings: every held setting at its median
+        payload["held_labels"] = {"coherent": "held coherently (conditional mean of training lots)",
+                                  "mean": "held at the training mean (no setting given to condition on)",
+                                  "median": "training median"}
     for key in ("settings_names", "settings_mean", "settings_cov", "settings_low", "settings_high"):
         if key in lean.spec:  # the conditional-mean rule of fill_settings, when the model carries it
             payload[key] = lean.spec[key]

@@ -204,53 +204,70 @@
     }
     return needed;
   }
-  function solve(A, b) { // Gaussian elimination with partial pivoting (A: array of rows)
-    const n = b.length, a = A.map((r, i) => r.concat([b[i]]));
-    for (let c = 0; c < n; c++) {
-      let p = c;
-      for (let r = c + 1; r < n; r++) if (Math.abs(a[r][c]) > Math.abs(a[p][c])) p = r;
-      [a[c], a[p]] = [a[p], a[c]];
-      for (let r = c + 1; r < n; r++) {
-        const f = a[r][c] / a[c][c];
-        for (let k = c; k <= n; k++) a[r][k] -= f * a[c][k];
+  function pinvSymmetric(A, rcond) { // np.linalg.pinv(A, rcond, hermitian=True): eigenvectors by cyclic Jacobi
+    const n = A.length, a = A.map((r) => r.slice()), V = A.map((r, i) => r.map((_, j) => (i === j ? 1 : 0)));
+    for (let sweep = 0; sweep < 100; sweep++) {
+      let off = 0;
+      for (let i = 0; i < n; i++) for (let j = i + 1; j < n; j++) off += a[i][j] * a[i][j];
+      if (off < 1e-300) break;
+      for (let p = 0; p < n; p++) for (let q = p + 1; q < n; q++) {
+        if (a[p][q] === 0) continue;
+        const theta = (a[q][q] - a[p][p]) / (2 * a[p][q]);
+        const t = Math.sign(theta || 1) / (Math.abs(theta) + Math.sqrt(theta * theta + 1));
+        const c = 1 / Math.sqrt(t * t + 1), sn = t * c;
+        for (let k = 0; k < n; k++) { // a <- J^T a J, V <- V J
+          const akp = a[k][p], akq = a[k][q];
+          a[k][p] = c * akp - sn * akq; a[k][q] = sn * akp + c * akq;
+        }
+        for (let k = 0; k < n; k++) {
+          const apk = a[p][k], aqk = a[q][k];
+          a[p][k] = c * apk - sn * aqk; a[q][k] = sn * apk + c * aqk;
+        }
+        for (let k = 0; k < n; k++) {
+          const vkp = V[k][p], vkq = V[k][q];
+          V[k][p] = c * vkp - sn * vkq; V[k][q] = sn * vkp + c * vkq;
+        }
       }
     }
-    const x = new Array(n).fill(0);
-    for (let r = n - 1; r >= 0; r--) {
-      let s = a[r][n];
-      for (let k = r + 1; k < n; k++) s -= a[r][k] * x[k];
-      x[r] = s / a[r][r];
-    }
-    return x;
+    const lam = a.map((r, i) => r[i]), cutoff = rcond * Math.max(...lam.map(Math.abs));
+    const inv = lam.map((l) => (Math.abs(l) > cutoff ? 1 / l : 0));
+    return A.map((_, i) => A.map((__, j) => { let s = 0; for (let k = 0; k < n; k++) s += V[i][k] * inv[k] * V[j][k]; return s; }));
   }
-  // The given values plus every other needed setting: the conditional mean under the normal
-  // model of the training settings when the model carries one (settings_*), else the median.
+  // The given values plus every other needed setting, as linkage.decide.propagate.fill_settings holds
+  // it: with the model's normal model of the training settings (settings_*), at the conditional mean
+  // given the given settings, μ_m + Σ_mg Σ_gg⁺ (x_g − μ_g), clipped to the training range (the mean
+  // when nothing is given); without it, or for a setting it does not know, at the training median.
   function fillSettings(given) {
     const values = Object.assign({}, given), source = {};
     for (const k of Object.keys(given)) source[k] = "given";
-    const needed = neededSettings(given);
+    let needed = neededSettings(given);
     const names = M.settings_names;
-    if (names && M.settings_mean && M.settings_cov) {
-      const mu = Array.from(M.settings_mean), p = names.length;
+    if (names && names.length && M.settings_mean && M.settings_cov) {
+      const p = names.length, mu = M.settings_mean, idx = {};
+      names.forEach((n, i) => { idx[n] = i; });
       const cov = (i, j) => (M.settings_cov.shape ? M.settings_cov[i * p + j] : M.settings_cov[i][j]);
-      const g = names.map((n, i) => i).filter((i) => names[i] in given);
-      const dev = solve(g.map((i) => g.map((j) => cov(i, j))), g.map((i) => given[names[i]] - mu[i]));
-      for (const name of needed) {
-        const u = names.indexOf(name);
-        if (u < 0) throw new Error(name + " is not among the model's settings");
-        let v = mu[u];
-        g.forEach((i, k) => { v += cov(u, i) * dev[k]; });
-        const lo = M.settings_low ? M.settings_low[u] : -Infinity, hi = M.settings_high ? M.settings_high[u] : Infinity;
-        values[name] = clip(v, lo === null ? -Infinity : lo, hi === null ? Infinity : hi);
-        source[name] = "conditional mean";
+      const cond = Object.keys(given).filter((n) => n in idx).map((n) => idx[n]);
+      const todo = needed.filter((n) => n in idx);
+      const P = cond.length ? pinvSymmetric(cond.map((i) => cond.map((j) => cov(i, j))), 1e-10) : null;
+      for (const name of todo) {
+        const m = idx[name];
+        let v = mu[m];
+        if (cond.length) {
+          const wts = cond.map((_, k) => { let s = 0; cond.forEach((g, l) => { s += cov(m, g) * P[l][k]; }); return s; });
+          let s = 0;
+          cond.forEach((g, k) => { s += (given[names[g]] - mu[g]) * wts[k]; });
+          v = mu[m] + s;
+        }
+        values[name] = clip(v, M.settings_low[m], M.settings_high[m]);
+        source[name] = cond.length ? M.held_labels.coherent : M.held_labels.mean;
       }
-    } else {
-      for (const name of needed) {
-        const m = M.medians[name];
-        if (m === null || m === undefined || !Number.isFinite(m)) throw new Error(name + " has no training median");
-        values[name] = m;
-        source[name] = "training median";
-      }
+      needed = needed.filter((n) => !(n in idx));
+    }
+    for (const name of needed) {
+      const m = M.medians[name];
+      if (m === null || m === undefined || !Number.isFinite(m)) throw new Error(name + " has no training median");
+      values[name] = m;
+      source[name] = M.held_labels.median;
     }
     return { values, source };
   }

@@ -379,11 +379,12 @@ def test_held_settings_follow_the_conditional_mean_when_the_model_carries_one(de
     """With the fields of a normal model of the training settings in the lean
     model (``settings_names``, ``settings_mean``, ``settings_cov``,
     ``settings_low``, ``settings_high``), an unticked setting is held at its
-    conditional mean given the ticked ones, μ_u + Σ_ug Σ_gg⁻¹ (x_g − μ_g)
+    conditional mean given the ticked ones, μ_m + Σ_mg Σ_gg⁺ (x_g − μ_g)
     (Anderson 2003, An Introduction to Multivariate Statistical Analysis,
-    Theorem 2.5.1; from memory), kept inside its low–high range; checked
-    against numpy's solve. Without the fields, the training median (the
-    20-setting test above)."""
+    Theorem 2.5.1), kept inside its low–high range, and at the mean when
+    nothing is ticked; checked against numpy's pinv (hermitian), a singular
+    Σ_gg included. Without the fields: the training median (the 20-setting
+    test above)."""
     from linkage.models.registry import load_whatif
     from linkage.report.page import page_html
 
@@ -392,7 +393,8 @@ def test_held_settings_follow_the_conditional_mean_when_the_model_carries_one(de
     names = lean.root_inputs()
     rng = np.random.default_rng(2)
     a = rng.normal(size=(len(names), len(names)))
-    cov = a @ a.T + np.eye(len(names))
+    a[1] = 2.0 * a[0]  # the second setting follows the first exactly: Σ_gg is singular when both are given
+    cov = a @ a.T
     mean = np.array([lean.medians[n] for n in names])
     low, high = mean - 3.0, mean + 3.0
     lean.spec.update(settings_names=names, settings_mean=mean, settings_cov=cov, settings_low=low,
@@ -400,13 +402,18 @@ def test_held_settings_follow_the_conditional_mean_when_the_model_carries_one(de
     page = tmp_path / "conditional.html"
     page.write_text(page_html(lean), encoding="utf-8")
     browser.open(page.as_uri())
-    for given_names in (names[:1], names[1:3], names[::2]):
+    labels = browser.evaluate("window.linkageModel.held_labels")
+    for given_names in ([], names[:1], names[1:3], names[::2], names[:-1]):
         g = [names.index(n) for n in given_names]
         x = mean[g] + rng.normal(size=len(g))
         shown = browser.evaluate(f"window.linkageFillSettings({json.dumps(dict(zip(given_names, x.tolist())))})")
         u = [i for i in range(len(names)) if i not in g]
-        want = mean[u] + cov[np.ix_(u, g)] @ np.linalg.solve(cov[np.ix_(g, g)], x - mean[g])
+        if g:
+            weights = cov[np.ix_(u, g)] @ np.linalg.pinv(cov[np.ix_(g, g)], rcond=1e-10, hermitian=True)
+            want = mean[u] + (x - mean[g]) @ weights.T
+        else:
+            want = mean[u]
         want = np.clip(want, low[u], high[u])
         for i, w in zip(u, want):
-            assert shown["values"][names[i]] == pytest.approx(w, abs=TOL)
-            assert shown["source"][names[i]] == "conditional mean"
+            assert shown["values"][names[i]] == pytest.approx(w, abs=TOL), (given_names, names[i])
+            assert shown["source"][names[i]] == (labels["coherent"] if g else labels["mean"])
