@@ -79,6 +79,12 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, assuranc
               help="Predict every row of a CSV whose columns are names.")
 @click.option("--html", "html_path", type=click.Path(dir_okay=False, path_type=Path),
               help="Write a one-page what-if sheet (one row only).")
+@click.option("--page", "page_path", type=click.Path(dir_okay=False, path_type=Path),
+              help="Write the what-if page: one self-contained HTML file with a control per setting that "
+                   "recomputes this what-if in the browser, offline (--set values are its start; without "
+                   "--set only the page is written).")
+@click.option("--page-window", "page_window", type=click.Path(exists=True, dir_okay=False, path_type=Path),
+              help="A porosity window ('linkage window --json' output) for the page to draw.")
 @click.option("--lot", default=None, help="The lot this what-if is for; its results, when they arrive, are "
               "compared with the prediction ('linkage watch').")
 @click.option("--product", default=None, help="The product this what-if is for (stated on the sheet and in the "
@@ -90,8 +96,8 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, assuranc
 @store_option
 @json_option
 @handle_errors
-def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, product, seed, assurance, models_dir,
-            store, as_json):
+def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_path, page_window, lot, product, seed,
+            assurance, models_dir, store, as_json):
     """What-if: predict every downstream attribute from settings and/or
     measured values, with intervals, the chance of passing each specification
     and the applicability-domain verdict.
@@ -101,6 +107,7 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, p
       linkage predict --set roll_force_kn_per_cm=9 --set roll_gap_mm=2.5 --spec spec.toml
       linkage predict --set ribbon_porosity=0.31 --spec spec.toml --html whatif.html
       linkage predict --from-csv planned.csv --json
+      linkage predict --spec spec.toml --page whatif-page.html --page-window window.json
       linkage predict --set ribbon_porosity=0.29 --lot Q26-049 --product "QZ-417 200 mg" --spec spec.toml
 
     Every what-if is recorded in the lot store (when it exists) with the
@@ -112,12 +119,22 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, p
 
     if html_path is not None:
         check_output(html_path)
+    if page_path is not None:
+        check_output(page_path)
     spec = None
     if spec_path is not None:
         from linkage.spec import read_spec
 
         spec = read_spec(spec_path)
     values = parse_assignments(list(assignments))
+    if page_path is not None:
+        from linkage.report.page import write_page
+
+        write_page(page_path, values, spec=spec, window_path=page_window, models_dir=models_dir, model=model_id,
+                   level=level, seed=seed, assurance=assurance)
+        if not values and from_csv is None:  # the page alone
+            click.echo(f"What-if page written to {page_path}", err=True)
+            return
     if from_csv is not None:
         if values:
             raise UsageError("give either --set or --from-csv, not both")
@@ -147,6 +164,8 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, lot, p
             click.echo(r.text())  # begins "For lot ..., product ...:" when they are known
     if html_path is not None:
         click.echo(f"What-if sheet written to {html_path}", err=True)
+    if page_path is not None:
+        click.echo(f"What-if page written to {page_path}", err=True)
 
 
 def _note_unrecorded(result, action: str) -> None:

@@ -345,11 +345,13 @@ def _passes(name: str, pred: np.ndarray, r: np.ndarray, limit, scale: np.ndarray
 
 
 def _wsum(a: np.ndarray, lw: np.ndarray, w: np.ndarray) -> np.ndarray:
-    """Σ_d w[b, d] Σ_l lw[b, l] a[b, r, d, l] for a boolean a (B × rows × draws × lots)."""
+    """Σ_d w[b, d] Σ_l lw[b, l] a[b, r, d, l] for a boolean a (B × rows × draws × lots),
+    in float64 throughout (a float32 sum differed by ~1e-7 with the BLAS's order of summation,
+    and the what-if page, :mod:`linkage.report.page`, repeats this sum to 1e-9)."""
     B, r, d, L = a.shape
     lw = np.broadcast_to(np.asarray(lw, dtype=float), (B, L))
-    per_draw = np.matmul(a.reshape(B, r * d, L).astype(np.float32), lw.astype(np.float32)[:, :, None])
-    return np.einsum("brd,bd->br", per_draw.reshape(B, r, d).astype(float), w)
+    per_draw = np.matmul(a.reshape(B, r * d, L).astype(float), lw[:, :, None])
+    return np.einsum("brd,bd->br", per_draw.reshape(B, r, d), w)
 
 
 def _batch(lean, columns: dict, limits: dict, attributes: list[str], models: dict, counts, lot_index,
