@@ -178,17 +178,23 @@ def test_a_lean_file_without_the_new_fields_loads_as_plain_cv_plus(trained):
     np.testing.assert_allclose(old.interval(cols, raw=True), cv_plus_interval(preds, old.fold_of_, old.residuals_, 0.1))
 
 
+def _with_forced_spread(fit):
+    """The lean chain of ``fit`` with a spread model forced onto tensile strength: (chain, its stage, the target)."""
+    chain = lean.from_fitted(fit)
+    st = chain.stages[0]
+    t = st.targets["tensile_strength_mpa"]
+    t.spread = {"kind": "loglinear", "a": np.log(0.05), "b": 0.5, "z_mean": 1.0, "z_scale": 0.5, "z_low": 0.0,
+                "z_high": 5.0}
+    return chain, st, t
+
+
 def test_monte_carlo_rescales_residuals_to_the_spread_at_the_draws_level(trained):
     """A lot's residual r/ρ̂(its level) · ρ̂(draw level): the spread of the
     draws at two inputs is in the ratio of ρ̂ at their predictions."""
     from linkage.decide.propagate import simulate
 
     table, fit = trained
-    chain = lean.from_fitted(fit)
-    st = chain.stages[0]
-    t = st.targets["tensile_strength_mpa"]
-    t.spread = {"kind": "loglinear", "a": np.log(0.05), "b": 0.5, "z_mean": 1.0, "z_scale": 0.5, "z_low": 0.0,
-                "z_high": 5.0}
+    chain, st, t = _with_forced_spread(fit)
     st.residual_scale = np.ones(st.residual_matrix.shape)
     rows = {"ribbon_porosity": [0.2, 0.45], "granule_d50_um": [300.0, 300.0], "fines_pct": [20.0, 20.0],
             "compression_force_kn": [18.0, 8.0]}
@@ -240,11 +246,7 @@ def test_bound_engine_rescales_residuals_to_the_spread_at_the_level(trained):
     from linkage.spec import Limit
 
     table, fit = trained
-    chain = lean.from_fitted(fit)
-    st = chain.stages[0]
-    t = st.targets["tensile_strength_mpa"]
-    t.spread = {"kind": "loglinear", "a": np.log(0.05), "b": 0.5, "z_mean": 1.0, "z_scale": 0.5, "z_low": 0.0,
-                "z_high": 5.0}
+    chain, st, t = _with_forced_spread(fit)
     j = list(st.targets).index("tensile_strength_mpa")
     st.residual_scale = np.ones(st.residual_matrix.shape)
     st.residual_scale[:, j] = np.linspace(0.5, 2.0, st.residual_scale.shape[0])
