@@ -579,7 +579,7 @@ def audit(store=DEFAULT_STORE, *, lot: str | None = None) -> pd.DataFrame:
     """The store's audit trail, oldest first (``linkage audit``): one row
     per entry with ``id``, ``at``, ``user``, ``action``, ``lot``,
     ``model_id``, ``inputs`` and ``outputs``; only entries about ``lot`` when
-    given."""
+    given, with the ingests that created or revised it."""
     import pandas as pd
 
     from linkage.store import LotStore

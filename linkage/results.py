@@ -548,6 +548,8 @@ class Watched(_Result):
         return self.result.to_dict()
 
     def text(self) -> str:
+        from linkage.decide.watch import whatif_settings_lines
+
         r = self.result
         lines = [f"Model {r.model_id}; {self.n_lots} lots, {len(r.new_lots)} since training"
                  + (f"; {self.time_point}" if self.time_point else "") + "."]
@@ -563,6 +565,7 @@ class Watched(_Result):
             mark = "inside" if p["inside_interval"] else "OUTSIDE"
             lines.append(f"  what-if for {p['lot']}: {p['attribute']} predicted {p['predicted']:.4g} "
                          f"[{p['low']:.4g}, {p['high']:.4g}], measured {p['measured']:.4g} ({mark} the interval)")
+            lines += whatif_settings_lines(p)
         lines.append(CAUTION)
         return "\n".join(lines)
 

@@ -252,24 +252,94 @@ def domain_of_new_lots(chain, table: pd.DataFrame, new_lots: list[str]) -> list[
     return out
 
 
-def predictions_vs_measured(recorded: list[dict], table: pd.DataFrame) -> list[dict]:
-    """Each recorded what-if with a lot, against what the lot measured."""
+def predictions_vs_measured(recorded: list[dict], table: pd.DataFrame, chain=None) -> list[dict]:
+    """Each recorded what-if with a lot, against what the lot measured.
+
+    A what-if is often made before the lot runs, at settings the lot then
+    did not run at. Each entry notes the inputs whose what-if value differs
+    from the lot's recorded value (``settings_differ``: input -> what-if
+    value, value the lot ran at, and whether the what-if value was given or
+    filled in), and where any differ and ``chain`` is given, the prediction
+    made again by that model at the lot's own settings
+    (``at_lot_settings``) against the same measured value."""
     measured = table.set_index(table["lot"].astype(str))
+    rerun: dict[str, dict | str] = {}
     out = []
     for rec in recorded:
         lot = rec.get("lot")
         if not lot or lot not in measured.index:
             continue
+        differ, ran = _settings_differ(rec.get("inputs") or {}, measured.loc[lot])
         preds = (rec.get("outputs") or {}).get("predictions", {})
         for name, p in preds.items():
             if name not in measured.columns or pd.isna(measured.at[lot, name]):
                 continue
             value = float(measured.at[lot, name])
-            out.append({"lot": lot, "attribute": name, "model_id": rec.get("model_id"),
-                        "predicted": p.get("value"), "low": p.get("low"), "high": p.get("high"),
-                        "measured": value,
-                        "inside_interval": bool(p.get("low") is not None and p["low"] <= value <= p["high"])})
+            entry = {"lot": lot, "attribute": name, "model_id": rec.get("model_id"),
+                     "predicted": p.get("value"), "low": p.get("low"), "high": p.get("high"),
+                     "measured": value,
+                     "inside_interval": bool(p.get("low") is not None and p["low"] <= value <= p["high"]),
+                     "settings_differ": differ, "at_lot_settings": None}
+            if differ and chain is not None:
+                if lot not in rerun:
+                    rerun[lot] = _predict_at(chain, ran)
+                again = rerun[lot]
+                if isinstance(again, str):
+                    entry["at_lot_settings"] = {"reason": again}
+                elif name in again:
+                    q = again[name]
+                    entry["at_lot_settings"] = {
+                        "model_id": getattr(chain, "model_id", None), "predicted": q["value"], "low": q["low"],
+                        "high": q["high"], "inside_interval": bool(q["low"] <= value <= q["high"])}
+            out.append(entry)
     return out
+
+
+def _settings_differ(inputs: dict, lot_row: pd.Series) -> tuple[dict, dict]:
+    """The what-if inputs whose value differs from the lot's (relative
+    difference above 1e-6), and every what-if input the lot has a value for."""
+    differ, ran = {}, {}
+    for col, v in inputs.items():
+        if not isinstance(v, dict) or col not in lot_row.index or pd.isna(lot_row[col]):
+            continue
+        try:
+            actual, asked = float(lot_row[col]), float(v.get("value"))
+        except (TypeError, ValueError):
+            continue
+        ran[col] = actual
+        if not np.isclose(asked, actual, rtol=1e-6, atol=1e-12):
+            differ[col] = {"what_if": asked, "ran_at": actual, "source": v.get("source")}
+    return differ, ran
+
+
+def whatif_settings_lines(entry: dict) -> list[str]:
+    """Text lines for a what-if made at settings the lot did not run at."""
+    differ = entry.get("settings_differ") or {}
+    if not differ:
+        return []
+    parts = ", ".join(f"{c} {d['what_if']:.4g} (lot ran at {d['ran_at']:.4g}"
+                      + (", filled in" if d.get("source") not in (None, "given") else "") + ")"
+                      for c, d in differ.items())
+    lines = [f"    note: this what-if was made at settings the lot did not run at: {parts}"]
+    again = entry.get("at_lot_settings")
+    if again and "reason" in again:
+        lines.append(f"    {again['reason']}")
+    elif again:
+        mark = "inside" if again["inside_interval"] else "OUTSIDE"
+        lines.append(f"    at the lot's own settings model {again['model_id']} predicts {again['predicted']:.4g} "
+                     f"[{again['low']:.4g}, {again['high']:.4g}]: measured {entry['measured']:.4g} is {mark}")
+    return lines
+
+
+def _predict_at(chain, values: dict) -> dict | str:
+    """Predictions of ``chain`` at ``values`` (seed 0), or why there are none."""
+    from linkage.decide.whatif import predict_whatif
+    from linkage.exceptions import LinkageError
+
+    try:
+        return predict_whatif(chain, values, contributions=False).predictions
+    except LinkageError as exc:
+        return f"not predicted again at the lot's settings: {exc}"
 
 
 def watch(chain, table: pd.DataFrame, *, ribbon: pd.DataFrame | None = None,
@@ -289,5 +359,5 @@ def watch(chain, table: pd.DataFrame, *, ribbon: pd.DataFrame | None = None,
         porosity_between=porosity_between(chain, table),
         porosity_within=porosity_within(ribbon, trained, window),
         domain=domain_of_new_lots(chain, table, new_lots),
-        predictions=predictions_vs_measured(recorded or [], table),
+        predictions=predictions_vs_measured(recorded or [], table, chain),
     )
