@@ -548,19 +548,25 @@ class Watched(_Result):
         return self.result.to_dict()
 
     def text(self) -> str:
-        from linkage.decide.watch import whatif_settings_lines
+        from linkage.decide.watch import design_lines, whatif_settings_lines
 
         r = self.result
         lines = [f"Model {r.model_id}; {self.n_lots} lots, {len(r.new_lots)} since training"
                  + (f"; {self.time_point}" if self.time_point else "") + "."]
         if self.window:
             lines.append(f"Porosity window used for ribbon samples: {self.window[0]:.3f}–{self.window[1]:.3f}")
+        lines += design_lines(r.mewma)
         alarms = r.alarms
         if not alarms:
             lines.append("No alarm on the lots since training.")
         else:
             lines.append(f"{len(alarms)} alarm(s) on lots since training:")
             lines += [f"  ! {a}" for a in alarms]
+        others = r.other_signals
+        if others:
+            lines.append(f"Other looks ({len(others)} signal(s); for diagnosis, not designed to a false-alarm rate):")
+            lines += [f"  - {a}" for a in others[:40]] + ([f"  ... and {len(others) - 40} more"] if len(others) > 40
+                                                          else [])
         for p in r.predictions:
             mark = "inside" if p["inside_interval"] else "OUTSIDE"
             lines.append(f"  what-if for {p['lot']}: {p['attribute']} predicted {p['predicted']:.4g} "

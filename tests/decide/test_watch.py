@@ -36,7 +36,30 @@ def test_dissolution_shift_is_flagged_within_a_few_lots(drift):
     assert CHANGE_AT <= first <= CHANGE_AT + 4, (flagged_new[0], first)
     # the flag is a downward one, as the change lowered dissolution
     assert any("downward" in r or "beyond" in r for r in chart.flags[flagged_new[0]])
-    assert any(a.startswith("dissolution_pct, lot") for a in result.alarms)
+    assert any(a.startswith("dissolution_pct, lot") for a in result.other_signals)
+    # issue 19: the designed scheme (MEWMA of the residual vector) alarms within a few lots of the change too,
+    # and names dissolution among the attributes furthest out; no alarm before the change
+    signalled = list(result.mewma["signals"])
+    assert signalled and CHANGE_AT <= order.index(signalled[0]) <= CHANGE_AT + 4, signalled[:3]
+    assert "dissolution_pct" in result.mewma["signals"][signalled[0]]
+    assert result.alarms[0].startswith(f"MEWMA of the {len(result.charts)} residuals, lot {signalled[0]}")
+    assert all(order.index(lot) >= CHANGE_AT for lot in signalled)
+
+
+def test_the_watch_states_its_design(drift):
+    """Issue 19: the output states the design (ARL0 for all attributes together, run lengths for 1 and 2 SD);
+    the design's p is the number of charted attributes and the residual correlation is a correlation matrix."""
+    from linkage.results import Watched
+
+    lots, table, chain, order = drift
+    result = watch(chain, table)
+    d = result.to_dict()
+    assert d["design"]["attributes"] == len(result.charts) and d["design"]["arl0_target"] == 200
+    corr = np.array(d["mewma"]["correlation"])
+    assert np.allclose(np.diag(corr), 1) and np.all(np.linalg.eigvalsh(corr) > 0)
+    text = Watched(result=result, n_lots=len(table)).text()
+    assert "in-control ARL 200 lots for all attributes together" in text and "a 2 SD shift in" in text
+    assert "Other looks" in text
 
 
 def test_no_alarm_on_attributes_the_change_did_not_touch(drift):
