@@ -137,7 +137,9 @@ def train_json(fitted: FittedChain) -> dict:
         "table_sha256": meta["training"]["table_sha256"],
         "seed": meta["seed"],
         "dissolution_time_min": meta["training"].get("dissolution_time_min"),
-        "targets": {name: {k: t[k] for k in TARGET_KEYS} for name, t in meta["targets"].items()},
+        "group_by": meta["training"].get("group_by", "lot"),
+        "targets": {name: {**{k: t[k] for k in TARGET_KEYS}, "forward": t.get("forward")}
+                    for name, t in meta["targets"].items()},
         "skipped": meta["skipped"],
         "caution": CAUTION,
     }
@@ -145,6 +147,19 @@ def train_json(fitted: FittedChain) -> dict:
 
 def _num(v, width=9, fmt=".4g", sign="") -> str:
     return f"{'—':>{width}}" if v is None else f"{v:>{sign}{width}{fmt}}"
+
+
+def forward_lines(t: dict) -> list[str]:
+    """The forward-in-time check of one attribute's summary, beside its CV (issue 19)."""
+    f = t.get("forward")
+    if not f:
+        return []
+    if "reason" in f:
+        return [f"    forward in time: not made ({f['reason']})"]
+    ratio = "" if f["rmse_over_cv"] is None else f", {f['rmse_over_cv']:.2f} × the CV RMSE"
+    return [f"    forward in time (fit on {f['n_train']} lots until {f['train_until'][:10]}, scored on the "
+            f"{f['n_test']} later): RMSE {f['rmse']:.4g}{ratio}, bias {f['bias']:+.3g}, "
+            f"{f['nominal_coverage']:.0%} interval coverage {f['coverage']:.1%}"]
 
 
 def train_text(fitted: FittedChain) -> str:
@@ -192,6 +207,7 @@ def train_text(fitted: FittedChain) -> str:
             cov = "no lots" if r["coverage"] is None else (
                 f"{r['coverage']:.1%} of {r['n']} lots (95% Clopper–Pearson {r['ci_low']:.1%}–{r['ci_high']:.1%})")
             lines.append(f"      {t.get('coverage_region_variable') or 'region'} {lo:.4g}–{hi:.4g}: {cov}")
+        lines += forward_lines(t)
         for note in t["notes"]:
             lines.append(f"    note: {note}")
     if meta["skipped"]:

@@ -1104,12 +1104,14 @@ class LotStore:
         _seal.seal(c, _seal.AUDIT, audit_id)
         return audit_id
 
-    def audit(self, lot: str | None = None) -> list[dict]:
-        """Audit entries, oldest first; only those about ``lot`` when given."""
+    def audit(self, lot: str | None = None, *, with_ingests: bool = False) -> list[dict]:
+        """Audit entries, oldest first; only those about ``lot`` when given,
+        and with ``with_ingests`` also the ingests that created or revised
+        it (their entry names no single lot; issue 19)."""
         sql = "SELECT id, at, user, action, lot, model_id, inputs_json, outputs_json FROM audit"
         rows = self._read(sql + (" WHERE lot = ? ORDER BY id" if lot is not None else " ORDER BY id"),
                           (lot,) if lot is not None else ())
-        if lot is not None:  # and the ingests that created or revised the lot (their row names no single lot)
+        if lot is not None and with_ingests:
             ingests = self._read(sql + " WHERE action = 'ingest' AND lot IS NULL ORDER BY id", ())
             rows = sorted(list(rows) + [r for r in ingests if _ingest_touches(r[7], lot)], key=lambda r: r[0])
         return [{"id": i, "at": at, "user": u, "action": a, "lot": lt, "model_id": m,

@@ -224,6 +224,12 @@ def _challenger_time_point(champion, spec) -> float:
         f"service as a new champion), or retrain with a spec at {have:g} min.")
 
 
+def _group_by(champion) -> str | None:
+    """The champion's grouping of lots in validation (issue 19): the challenger is validated the same way."""
+    g = (champion.training or {}).get("group_by")
+    return None if g in (None, "lot") else g
+
+
 def retrain(store_path, models_dir, *, product: str | None = None, spec=None, force: bool = False,
             reason: str | None = None, tolerance: float = DEFAULT_TOLERANCE, seed: int | None = None,
             user: str | None = None, progress=None) -> RetrainDecision:
@@ -254,7 +260,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
         raise InsufficientDataError(f"{len(table)} lots in the store; retraining needs at least 3")
     challenger = train_chain(table, champion.chain, seed=champion.seed if seed is None else seed,
                              nominal_coverage=champion.nominal_coverage, progress=progress,
-                             dissolution_time_min=time_min)
+                             dissolution_time_min=time_min, group_by=_group_by(champion))
     comparisons = compare(champion, challenger, table, tolerance=tolerance)
     promote, reasons = decide(comparisons, force=force, reason=reason, tolerance=tolerance)
     moved = None
