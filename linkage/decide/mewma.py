@@ -24,9 +24,12 @@ length to detect a 1 or 2 SD shift in any single attribute.
 
 One designed scheme replaces the union of per-attribute Shewhart, run-rule,
 EWMA and CUSUM charts, whose overall false-alarm rate grows with every chart
-and attribute added. The limits treat the training lots' mean, SD and
-correlation as known; with few training lots the real in-control ARL is
-shorter (the estimation effect).
+and attribute added. The training lots' mean, SD and correlation are estimates: with 48 training
+lots, limits designed as if they were known give an in-control ARL of about
+35 lots, not 200. So h is chosen for the number of training lots: each
+simulated run first estimates the mean and covariance from that many
+in-control lots (the unconditional ARL; the estimation effect on EWMA charts:
+Jones, Champ & Rigdon 2001, Technometrics 43:156–167, from memory).
 """
 
 from __future__ import annotations
@@ -42,8 +45,11 @@ __all__ = ["LAMBDA", "ARL0", "Design", "design", "control_limit", "run_lengths",
 LAMBDA = 0.1
 #: designed in-control average run length, in lots, for all attributes together
 ARL0 = 200.0
-#: runs simulated to choose h and to state the run lengths
+#: runs simulated to choose h and to state the run lengths (known parameters; estimated ones)
 RUNS = 4000
+RUNS_ESTIMATED = 2000
+#: above this many training lots, the estimation of the reference is ignored (the tabulated design)
+KNOWN_ABOVE = 5000
 SEED = 20260
 
 
@@ -66,56 +72,87 @@ def mewma_statistic(x, corr, lam: float = LAMBDA) -> tuple[np.ndarray, np.ndarra
     return t2, scaled
 
 
+def _reference_estimates(rng, p: int, runs: int, n_ref: int):
+    """Per run, the mean and the inverse covariance estimated from ``n_ref``
+    in-control standard normal vectors: mean ~ N(0, I/n), covariance ~
+    Wishart(n − 1, I)/(n − 1) by Bartlett's decomposition (Bartlett 1933, from memory)."""
+    mu = rng.standard_normal((runs, p)) / math.sqrt(n_ref)
+    low = np.tril(rng.standard_normal((runs, p, p)), -1)
+    diag = np.sqrt(rng.chisquare(n_ref - 1 - np.arange(p), size=(runs, p)))
+    low[:, np.arange(p), np.arange(p)] = diag
+    cov = low @ np.swapaxes(low, 1, 2) / (n_ref - 1)
+    return mu.astype(np.float32), np.linalg.inv(cov).astype(np.float32)
+
+
 def _paths(p: int, lam: float, steps: int, runs: int, seed: int, shift: float = 0.0,
-           exact: bool = True) -> np.ndarray:
+           exact: bool = True, n_ref: int | None = None) -> np.ndarray:
     """Running maximum of T²_t, runs × steps, for standard normal vectors with
     ``shift`` added to the first attribute from the first lot on (R = I: the
-    run length depends on R only through the shift's Mahalanobis size)."""
+    run length depends on R only through the shift's Mahalanobis size).
+    ``exact=False`` uses the asymptotic covariance λ/(2 − λ)·R throughout
+    (the form most published tables use). With ``n_ref``, each run's mean
+    and covariance are estimated from ``n_ref`` in-control vectors, as the
+    watch estimates them from the training lots (T² is affine invariant, so
+    R = I loses nothing); without, they are known."""
     rng = np.random.default_rng(seed)
-    z = np.zeros((p, runs), dtype=np.float32)
     out = np.empty((steps, runs), dtype=np.float32)
+    if n_ref:
+        mu, inv = _reference_estimates(rng, p, runs, n_ref)
+        z = np.zeros((runs, p), dtype=np.float32)
+    else:
+        z = np.zeros((p, runs), dtype=np.float32)
     for t in range(1, steps + 1):
-        x = rng.standard_normal((p, runs), dtype=np.float32)
-        x[0] += shift
-        z *= 1 - lam
-        z += lam * x
         c = lam / (2 - lam) * (1 - (1 - lam) ** (2 * t)) if exact else lam / (2 - lam)
-        out[t - 1] = np.einsum("ij,ij->j", z, z) / c
+        z *= 1 - lam
+        if n_ref:
+            x = rng.standard_normal((runs, p), dtype=np.float32) - mu
+            x[:, 0] += shift
+            z += lam * x
+            out[t - 1] = np.einsum("ri,rij,rj->r", z, inv, z) / c
+        else:
+            x = rng.standard_normal((p, runs), dtype=np.float32)
+            x[0] += shift
+            z += lam * x
+            out[t - 1] = np.einsum("ij,ij->j", z, z) / c
     return np.maximum.accumulate(out, axis=0).T
 
 
 def run_lengths(p: int, h: float, *, lam: float = LAMBDA, shift: float = 0.0, runs: int = RUNS,
-                seed: int = SEED, steps: int | None = None, exact: bool = True) -> np.ndarray:
+                seed: int = SEED, steps: int | None = None, exact: bool = True,
+                n_ref: int | None = None) -> np.ndarray:
     """Simulated zero-state run lengths (lots to the first T² > h) for a shift
     of Mahalanobis size ``shift`` from the first lot; a run that has not
-    signalled after ``steps`` lots counts as ``steps + 1``."""
+    signalled after ``steps`` lots counts as ``steps + 1``. ``n_ref``: the
+    in-control parameters estimated from that many lots (see :func:`_paths`)."""
     steps = steps or int(8 * ARL0)
-    m = _paths(p, lam, steps, runs, seed, shift, exact)
+    m = _paths(p, lam, steps, runs, seed, shift, exact, n_ref)
     return 1 + np.sum(m <= h, axis=1)
 
 
 @lru_cache(maxsize=64)
-def control_limit(p: int, lam: float = LAMBDA, arl0: float = ARL0, runs: int = RUNS, seed: int = SEED) -> float:
+def control_limit(p: int, lam: float = LAMBDA, arl0: float = ARL0, runs: int = RUNS, seed: int = SEED,
+                  n_ref: int | None = None) -> float:
     """h giving an in-control zero-state ARL of ``arl0`` lots for p attributes
     (simulated, seeded; cached). The ARL is 1 + (number of (run, lot) pairs
     whose running maximum of T² stays ≤ h) / runs, so h is that order
-    statistic of the simulated running maxima."""
+    statistic of the simulated running maxima. With ``n_ref`` the ARL is
+    averaged over the reference samples too (the unconditional ARL)."""
     if p < 1:
         raise ValueError("the MEWMA needs at least one attribute")
-    steps = int(8 * arl0)  # P(no signal in 8·ARL0 lots) ≈ e^-8: truncation shortens the ARL by < 0.1 lot
-    m = _paths(p, lam, steps, runs, seed).ravel()
+    steps = int(8 * arl0)  # P(no signal in 8·ARL0 lots) ≈ e^-8 with known parameters: truncation negligible
+    m = _paths(p, lam, steps, runs, seed, n_ref=n_ref).ravel()
     k = int(round((arl0 - 1) * runs))
     return float(np.partition(m, k)[k])
 
 
-def _simulate(p: int, lam: float, arl0: float) -> tuple[float, dict]:
+def _simulate(p: int, lam: float, arl0: float, n_ref: int | None = None, runs: int = RUNS) -> tuple[float, dict]:
     """h, and the run lengths re-simulated with other seeds."""
-    h = control_limit(p, lam, arl0)
+    h = control_limit(p, lam, arl0, runs=runs, n_ref=n_ref)
     arl = {}
     for name, shift, seed in (("in_control", 0.0, SEED + 1), ("shift_1sd", 1.0, SEED + 2),
                               ("shift_2sd", 2.0, SEED + 3)):
-        rl = run_lengths(p, h, lam=lam, shift=shift, seed=seed, runs=RUNS if shift else RUNS // 2,
-                         steps=int(8 * arl0) if shift == 0 else 400)
+        rl = run_lengths(p, h, lam=lam, shift=shift, seed=seed, runs=runs if shift else runs // 2,
+                         steps=int(8 * arl0) if shift == 0 else 400, n_ref=n_ref)
         arl[name] = {"arl": float(rl.mean()), "mc_se": float(rl.std(ddof=1) / math.sqrt(len(rl)))}
     return h, arl
 
@@ -124,11 +161,18 @@ class Design(dict):
     """The design as stated in the watch output (a plain dict)."""
 
 
-def design(p: int, lam: float = LAMBDA, arl0: float = ARL0) -> Design:
+def design(p: int, lam: float = LAMBDA, arl0: float = ARL0, n_ref: int | None = None) -> Design:
     """h for p attributes and the simulated run lengths: in control, and for
     shifts of Mahalanobis size 1 and 2 (zero-state), each with its Monte Carlo
-    standard error."""
-    return Design(_design(int(p), float(lam), float(arl0)))
+    standard error. ``n_ref``: the number of training lots the residuals'
+    mean, SD and correlation are estimated from; the design then holds the
+    in-control ARL averaged over such estimates (simulated each time, a few
+    seconds, cached). None (or more than :data:`KNOWN_ABOVE`): as if known
+    (the tabulated design)."""
+    if n_ref is not None:
+        n_ref = int(n_ref)
+        n_ref = None if n_ref > KNOWN_ABOVE else max(n_ref, int(p) + 3)
+    return Design(_design(int(p), float(lam), float(arl0), n_ref))
 
 
 #: the cache of :func:`_simulate` at λ = 0.1 and ARL0 = 200 for 1 to 12 attributes: h, then ARL and its Monte
@@ -150,8 +194,10 @@ TABLE = {
 
 
 @lru_cache(maxsize=64)
-def _design(p: int, lam: float, arl0: float) -> dict:
-    if lam == LAMBDA and arl0 == ARL0 and p in TABLE:
+def _design(p: int, lam: float, arl0: float, n_ref: int | None = None) -> dict:
+    if n_ref is not None:
+        h, arl = _simulate(p, lam, arl0, n_ref=n_ref, runs=RUNS_ESTIMATED)
+    elif lam == LAMBDA and arl0 == ARL0 and p in TABLE:
         row = TABLE[p]
         h, arl = row[0], {name: {"arl": row[1 + 2 * i], "mc_se": row[2 + 2 * i]}
                           for i, name in enumerate(("in_control", "shift_1sd", "shift_2sd"))}
@@ -161,13 +207,17 @@ def _design(p: int, lam: float, arl0: float) -> dict:
         "chart": "multivariate EWMA of the standardised residual vector (Lowry, Woodall, Champ & Rigdon 1992, "
                  "Technometrics 34:46-53), exact time-varying covariance, zero-state from the first lot since "
                  "training",
-        "attributes": p, "lambda": lam, "h": h, "arl0_target": arl0,
+        "attributes": p, "lambda": lam, "h": h, "arl0_target": arl0, "n_reference": n_ref,
+        "parameters": ("known" if n_ref is None else
+                       f"estimated from {n_ref} training lots (the ARL averages over such estimates)"),
         "false_alarm_rate_per_lot": 1.0 / arl0,
         "arl": arl,
         "method": (f"h chosen by simulation ({RUNS} seeded in-control runs of standard normal vectors, seed "
                    f"{SEED}) for an in-control ARL of {arl0:g} lots over all {p} attributes together; run lengths "
                    "re-simulated with other seeds; a shift of d SD in one attribute alone has Mahalanobis size "
                    "at least d, so the ARL at size 1 (2) bounds the run length for a 1 (2) SD shift in any one "
-                   "attribute. Mean, SD and correlation of the residuals are taken from the training lots as "
-                   "if known; with few training lots the in-control ARL is shorter"),
+                   "attribute. " + ("Mean, SD and correlation of the residuals taken as known" if n_ref is None
+                                    else f"Each simulated run estimates the residuals' mean and covariance from "
+                                         f"{n_ref} in-control lots, as the watch does from the training lots, "
+                                         f"so h is larger than with known parameters")),
     }

@@ -221,7 +221,7 @@ def mewma_look(chain, charts: dict[str, AttributeChart], new_lots: list[str]) ->
         return None
     names = list(charts)
     corr = residual_correlation(chain, names)
-    d = design(len(names))
+    d = design(len(names), n_ref=min(c.reference.n for c in charts.values()))
     order = [lot for lot in dict.fromkeys(lot for c in charts.values() for lot in c.lots) if lot in set(new_lots)]
     x = standardised_residuals(charts, order)
     have = x.notna().any(axis=1).to_numpy()
@@ -244,7 +244,8 @@ def design_lines(mewma: dict | None) -> list[str]:
     d = mewma["design"]
     a = d["arl"]
     return [f"Watch design: multivariate EWMA (λ = {d['lambda']:g}) of the {d['attributes']} attributes' "
-            f"standardised residuals, limit h = {d['h']:.2f}, in-control ARL {d['arl0_target']:g} lots for all "
+            f"standardised residuals (mean, SD and correlation {d['parameters']}), limit h = {d['h']:.2f}, "
+            f"in-control ARL {d['arl0_target']:g} lots for all "
             f"attributes together (simulated {a['in_control']['arl']:.0f} ± {a['in_control']['mc_se']:.0f}); "
             f"a 1 SD shift in any one attribute is detected in {a['shift_1sd']['arl']:.1f} lots on average at "
             f"most, a 2 SD shift in {a['shift_2sd']['arl']:.1f} (Lowry et al. 1992)."]

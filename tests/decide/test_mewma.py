@@ -107,3 +107,43 @@ def test_the_tabulated_design_is_what_the_seeded_simulation_gives():
     h, arl = _simulate(2, 0.1, 200.0)
     assert TABLE[2][0] == pytest.approx(h, rel=1e-6)
     assert TABLE[2][3] == pytest.approx(arl["shift_1sd"]["arl"], rel=1e-9)
+
+
+def _estimated_campaigns(n_ref, n_refs, per_ref, n_lots, h, seed, shift=None):
+    """Run lengths of campaigns watched as the watch does: each reference of n_ref in-control lots gives the
+    mean, SD and correlation (numpy), then ``per_ref`` campaigns are standardised with them."""
+    rng = np.random.default_rng(seed)
+    out = []
+    for _ in range(n_refs):
+        ref = rng.multivariate_normal(np.zeros(7), CORR7, size=n_ref)
+        mu, sd = ref.mean(axis=0), ref.std(axis=0, ddof=1)
+        corr = np.corrcoef(((ref - mu) / sd).T)
+        x = rng.multivariate_normal(np.zeros(7), CORR7, size=(per_ref, n_lots))
+        if shift is not None:
+            x = x + shift
+        t2, _ = mewma_statistic((x - mu) / sd, corr)
+        out.append(_first_signal(t2, h))
+    return np.concatenate(out)
+
+
+@pytest.mark.slow
+def test_with_48_training_lots_the_false_alarm_rate_is_the_designed_one():
+    """Issue 19 acceptance, as the watch runs: the residuals' mean, SD and correlation estimated from 48
+    training lots. The design for 48 lots holds the in-control ARL (averaged over references) at 200 within
+    Monte Carlo error (3 SE of the campaigns, the references' spread included, with the design's own), where
+    limits designed as if the parameters were known alarm several times as often."""
+    d = design(7, n_ref=48)
+    known = design(7)
+    assert d["h"] > known["h"] and d["n_reference"] == 48
+    rl = _estimated_campaigns(48, 300, 8, 1600, d["h"], seed=11)
+    per_ref = rl.reshape(300, 8).mean(axis=1)
+    se = per_ref.std(ddof=1) / np.sqrt(per_ref.size)  # references are the independent units
+    assert abs(rl.mean() - ARL0) < 3 * np.hypot(se, d["arl"]["in_control"]["mc_se"]), (rl.mean(), se)
+    naive = _estimated_campaigns(48, 100, 8, 400, known["h"], seed=12)
+    assert naive.mean() < ARL0 / 3
+    # a 1 SD shift in dissolution (first attribute) is detected within the stated run length
+    shift = np.zeros(7)
+    shift[0] = 1.0
+    rl1 = _estimated_campaigns(48, 300, 4, 150, d["h"], seed=13, shift=shift)
+    per = rl1.reshape(300, 4).mean(axis=1)
+    assert rl1.mean() <= d["arl"]["shift_1sd"]["arl"] + 3 * per.std(ddof=1) / np.sqrt(per.size)
