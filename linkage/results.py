@@ -638,9 +638,10 @@ class Retrained(_Result):
 
     def summary(self) -> pd.DataFrame:
         """One row per attribute (index ``attribute``): the challenger's and
-        the champion's selected models and CV RMSE on the same folds, the
-        champion's error on the lots it never saw, and whether the attribute
-        passes the rule (``within_noise``, ``within_tolerance``)."""
+        the champion's selected models and CV RMSE on the same folds
+        (``within_noise``, ``within_tolerance``: reported, no longer the
+        rule), the champion's error on the lots it never saw, and
+        ``prospective``: the paired test on those lots that decides (issue 19)."""
         return _frame([c.to_dict() for c in self.result.comparisons], "attribute")
 
     def __repr__(self) -> str:
