@@ -206,7 +206,8 @@ def _cluster(backend: str | None, scheduler: str | None):
 def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpec | str | Path | None = None,
           product: str | None = None, seed: int = 0, coverage: float = 0.9, spec=None,
           dissolution_time_min: float | None = None, n_jobs: int | None = None, backend: str | None = None,
-          scheduler: str | None = None, progress: Progress | None = None, group_by: str | None = None) -> Trained:
+          scheduler: str | None = None, progress: Progress | None = None, group_by: str | None = None,
+          materials: bool = False) -> Trained:
     """Train the chain on the lots in the store under cross-validation
     grouped by lot, register it in ``models_dir`` (in service: it becomes
     ``latest``) and log ``train`` in the store's audit trail.
@@ -223,7 +224,9 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
     same. ``group_by`` names a column (a raw-material batch, a campaign) or
     ``month``: lots sharing its value stay together in every fold and in the
     conformal intervals (recorded with the model; see
-    :mod:`linkage.models.grouping`).
+    :mod:`linkage.models.grouping`). ``materials``: fit the chain with and
+    without the table's extra numeric columns and keep them where grouped CV
+    says they help (:mod:`linkage.models.materials`; three fits).
     """
     from linkage.assemble import assemble as assemble_table
     from linkage.assemble import check_dissolution_time
@@ -247,9 +250,12 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
     if n_jobs is None:
         n_jobs = -1 if backend == "dask" else 1
     with _cluster(backend, scheduler):
-        fitted = train_chain(table, chain, seed=seed, nominal_coverage=coverage, progress=progress,
-                             n_jobs=n_jobs, backend=backend, dissolution_time_min=at["dissolution_time_min"],
-                             group_by=group_by)
+        fit = train_chain
+        if materials:
+            from linkage.models.materials import train_with_materials as fit
+        fitted = fit(table, chain, seed=seed, nominal_coverage=coverage, progress=progress,
+                     n_jobs=n_jobs, backend=backend, dissolution_time_min=at["dissolution_time_min"],
+                     group_by=group_by)
     model_id = save(fitted, models_dir)
     with LotStore(store, create=False) as lot_store:
         lot_store.log("train", model_id=model_id,

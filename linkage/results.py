@@ -138,6 +138,7 @@ def train_json(fitted: FittedChain) -> dict:
         "seed": meta["seed"],
         "dissolution_time_min": meta["training"].get("dissolution_time_min"),
         "group_by": meta["training"].get("group_by", "lot"),
+        "materials": meta["training"].get("materials"),
         "targets": {name: {**{k: t[k] for k in TARGET_KEYS}, "forward": t.get("forward")}
                     for name, t in meta["targets"].items()},
         "skipped": meta["skipped"],
@@ -147,6 +148,22 @@ def train_json(fitted: FittedChain) -> dict:
 
 def _num(v, width=9, fmt=".4g", sign="") -> str:
     return f"{'—':>{width}}" if v is None else f"{v:>{sign}{width}{fmt}}"
+
+
+def materials_lines(m: dict | None) -> list[str]:
+    """The comparison with and without the extra material columns (``train --materials``)."""
+    if not m:
+        return []
+    if not m.get("columns"):
+        return ["", f"Material columns: none used ({m.get('reason', 'none found')})."]
+    kept = m["kept_for"]
+    lines = ["", f"Material columns {', '.join(m['columns'])}: tried as inputs of every stage; kept for "
+                 + (", ".join(kept) if kept else "no attribute") + " (grouped CV RMSE better by more than one SE)."]
+    for t, r in m["targets"].items():
+        lines.append(f"  {t}: CV RMSE {r['without']['rmse']:.4g} (SE {r['without']['rmse_se']:.2g}, "
+                     f"{r['without']['selected']}) without, {r['with']['rmse']:.4g} ({r['with']['selected']}) with: "
+                     + ("kept" if r["kept"] else "not kept"))
+    return lines
 
 
 def forward_lines(t: dict) -> list[str]:
@@ -210,6 +227,7 @@ def train_text(fitted: FittedChain) -> str:
         lines += forward_lines(t)
         for note in t["notes"]:
             lines.append(f"    note: {note}")
+    lines += materials_lines(tr.get("materials"))
     if meta["skipped"]:
         lines += ["", "Not trained:"]
         lines += [f"  {name}: {why}" for name, why in meta["skipped"].items()]

@@ -1026,7 +1026,8 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
 
 
 def make_batch_lots(n_lots: int, seed: int = 0, *, lots_per_batch: int = 4, batch_sd_pct: float = 4.0,
-                    batch_prefix: str = "API", truth: Truth | None = None, **kwargs) -> SyntheticLots:
+                    batch_prefix: str = "API", truth: Truth | None = None, d50_effect_pct_per_um: float = 0.0,
+                    **kwargs) -> SyntheticLots:
     """Lots that share raw-material batches with a batch effect (issue 19).
 
     :func:`make_lots` with ``raw_materials=True`` (``kwargs`` passed on), then
@@ -1038,7 +1039,10 @@ def make_batch_lots(n_lots: int, seed: int = 0, *, lots_per_batch: int = 4, batc
     explains (``lot_truth``: ``api_batch``, ``batch_effect_pct``). The lots of
     one batch are therefore not independent: a model that can tell batches
     apart (by ``api_d50_um``) learns a seen batch's effect, which says nothing
-    about a new batch. Seeded: the same arguments give the same tables.
+    about a new batch. ``d50_effect_pct_per_um`` adds a real effect of the
+    batch's d50 on dissolution, slope × (d50 − 45 µm) (0: none); the other
+    raw-material columns have none. Seeded: the same arguments give the same
+    tables.
     """
     if int(lots_per_batch) < 1:
         raise UsageError(f"lots_per_batch must be at least 1; got {lots_per_batch}")
@@ -1058,6 +1062,7 @@ def make_batch_lots(n_lots: int, seed: int = 0, *, lots_per_batch: int = 4, batc
     process["api_batch"] = names[batch]
     tables["process"] = process
     tablets = tables["tablets"].copy()
+    effect = effect + float(d50_effect_pct_per_um) * (d50 - 45.0)
     tablets["dissolution_pct"] = np.round(tablets["dissolution_pct"].to_numpy(float) + effect[batch], 2)
     tables["tablets"] = tablets
     if "dissolution" in tables:  # the vessels move with their lot

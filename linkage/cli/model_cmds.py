@@ -45,10 +45,14 @@ format_train = train_text
               help="Keep the lots that share this column's value (a raw-material batch, a campaign; or 'month' of "
                    "manufactured_at) together in every cross-validation fold and in the conformal intervals; "
                    "recorded with the model.  [default: each lot on its own]")
+@click.option("--materials", is_flag=True,
+              help="Fit the chain with and without the process table's extra numeric columns (raw-material "
+                   "attributes) as stage inputs, and keep them in a stage only where grouped CV says they help "
+                   "(three fits; the comparison is printed and recorded).")
 @json_option
 @handle_errors
 def train(store, models_dir, chain_path, product, seed, coverage, spec_path, dissolution_time_min, n_jobs, backend,
-          scheduler, group_by, as_json):
+          scheduler, group_by, materials, as_json):
     """Train the chain of stage models on the lots in the store, with
     grouped cross-validation by lot, and save it in the model registry.
 
@@ -84,7 +88,7 @@ def train(store, models_dir, chain_path, product, seed, coverage, spec_path, dis
     with progress_bars("Cross-validating") as progress:
         trained = run_train(store, models_dir, chain=chain_path, product=product, seed=seed, coverage=coverage,
                             spec=spec_path, dissolution_time_min=dissolution_time_min, n_jobs=n_jobs, backend=backend,
-                            scheduler=scheduler, progress=progress, group_by=group_by)
+                            scheduler=scheduler, progress=progress, group_by=group_by, materials=materials)
     if as_json:
         click.echo(json.dumps(trained.to_dict(), indent=2, allow_nan=False, ensure_ascii=False))
     else:
