@@ -10,7 +10,6 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-from click.testing import CliRunner
 
 from linkage.assemble import assemble
 from linkage.exceptions import InputError, UsageError
@@ -90,19 +89,12 @@ def test_forward_check_fits_the_earlier_lots_and_scores_the_later(batch_table):
     assert f["rmse_over_cv"] == pytest.approx(f["rmse"] / fitted.targets["dissolution_pct"].candidates["mean"]["rmse"])
 
 
-def test_train_group_by_on_the_command_line(tmp_path, batch_table):
+def test_train_group_by_on_the_command_line(ingested):
     from linkage.cli.main import cli
     from linkage.models import registry
     from linkage.store import LotStore
 
-    lots = make_batch_lots(40, seed=6, lots_per_batch=5)
-    folder = tmp_path / "lab"
-    folder.mkdir()
-    for name, df in lots.tables.items():
-        df.to_csv(folder / f"{name}.csv", index=False)
-    store, models = tmp_path / "lots.db", tmp_path / "models"
-    runner = CliRunner()
-    assert runner.invoke(cli, ["ingest", str(folder), "--store", str(store)]).exit_code == 0
+    store, models, runner = ingested(make_batch_lots(40, seed=6, lots_per_batch=5))
     bad = runner.invoke(cli, ["train", "--store", str(store), "--models-dir", str(models), "--group-by", "nope"])
     assert bad.exit_code == 2 and "no column 'nope'" in bad.output
     assert not models.exists() or not registry.list_models(models)

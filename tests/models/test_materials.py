@@ -56,21 +56,13 @@ def test_without_extra_columns_the_chain_is_trained_once_and_says_so():
 
 
 @pytest.mark.slow
-def test_train_materials_on_the_command_line(tmp_path):
+def test_train_materials_on_the_command_line(ingested):
     import json
-
-    from click.testing import CliRunner
 
     from linkage.cli.main import cli
 
-    lots = make_batch_lots(16, seed=5, lots_per_batch=2, batch_sd_pct=0.0, d50_effect_pct_per_um=-0.6)
-    folder = tmp_path / "lab"
-    folder.mkdir()
-    for name, df in lots.tables.items():
-        df.to_csv(folder / f"{name}.csv", index=False)
-    store, models = tmp_path / "lots.db", tmp_path / "models"
-    runner = CliRunner()
-    assert runner.invoke(cli, ["ingest", str(folder), "--store", str(store)]).exit_code == 0
+    store, models, runner = ingested(make_batch_lots(16, seed=5, lots_per_batch=2, batch_sd_pct=0.0,
+                                                     d50_effect_pct_per_um=-0.6))
     r = runner.invoke(cli, ["train", "--store", str(store), "--models-dir", str(models), "--materials", "--json"])
     assert r.exit_code == 0, r.output
     m = json.loads(r.stdout)["materials"]
