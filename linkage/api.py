@@ -206,7 +206,8 @@ def _cluster(backend: str | None, scheduler: str | None):
 def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpec | str | Path | None = None,
           product: str | None = None, seed: int = 0, coverage: float = 0.9, spec=None,
           dissolution_time_min: float | None = None, n_jobs: int | None = None, backend: str | None = None,
-          scheduler: str | None = None, progress: Progress | None = None) -> Trained:
+          scheduler: str | None = None, progress: Progress | None = None, group_by: str | None = None,
+          materials: bool = False) -> Trained:
     """Train the chain on the lots in the store under cross-validation
     grouped by lot, register it in ``models_dir`` (in service: it becomes
     ``latest``) and log ``train`` in the store's audit trail.
@@ -220,7 +221,12 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
     refused by every later call. A time point no vessel profile reaches is
     refused (no extrapolation). ``n_jobs``, ``backend`` ("loky", "threading",
     "dask") and ``scheduler`` say where the fold fits run; the model is the
-    same.
+    same. ``group_by`` names a column (a raw-material batch, a campaign) or
+    ``month``: lots sharing its value stay together in every fold and in the
+    conformal intervals (recorded with the model; see
+    :mod:`linkage.models.grouping`). ``materials``: fit the chain with and
+    without the table's extra numeric columns and keep them where grouped CV
+    says they help (:mod:`linkage.models.materials`; three fits).
     """
     from linkage.assemble import assemble as assemble_table
     from linkage.assemble import check_dissolution_time
@@ -244,14 +250,19 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
     if n_jobs is None:
         n_jobs = -1 if backend == "dask" else 1
     with _cluster(backend, scheduler):
-        fitted = train_chain(table, chain, seed=seed, nominal_coverage=coverage, progress=progress,
-                             n_jobs=n_jobs, backend=backend, dissolution_time_min=at["dissolution_time_min"])
+        fit = train_chain
+        if materials:
+            from linkage.models.materials import train_with_materials as fit
+        fitted = fit(table, chain, seed=seed, nominal_coverage=coverage, progress=progress,
+                     n_jobs=n_jobs, backend=backend, dissolution_time_min=at["dissolution_time_min"],
+                     group_by=group_by)
     model_id = save(fitted, models_dir)
     with LotStore(store, create=False) as lot_store:
         lot_store.log("train", model_id=model_id,
                       inputs={"models_dir": str(models_dir), "product": product, "seed": seed,
                               "coverage": coverage, "chain": fitted.chain.to_toml(),
                               "dissolution_time_min": at["dissolution_time_min"],
+                              "group_by": fitted.training.get("group_by", "lot"),
                               "spec": spec.to_dict() if spec is not None else None,
                               "spec_file": spec.file if spec is not None else None,
                               "spec_sha256": spec.sha256 if spec is not None else None,
@@ -579,13 +590,13 @@ def audit(store=DEFAULT_STORE, *, lot: str | None = None) -> pd.DataFrame:
     """The store's audit trail, oldest first (``linkage audit``): one row
     per entry with ``id``, ``at``, ``user``, ``action``, ``lot``,
     ``model_id``, ``inputs`` and ``outputs``; only entries about ``lot`` when
-    given."""
+    given, with the ingests that created or revised it."""
     import pandas as pd
 
     from linkage.store import LotStore
 
     with LotStore(store, create=False) as s:
-        rows = s.audit(lot)
+        rows = s.audit(lot, with_ingests=True)
     return pd.DataFrame(rows, columns=["id", "at", "user", "action", "lot", "model_id", "inputs", "outputs"])
 
 

@@ -61,7 +61,7 @@ import pandas as pd
 from linkage.exceptions import InputError, Problem
 from linkage.physics import pharmacopeia, psd, tablet
 from linkage.physics.porosity import porosity as _porosity
-from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN, DEFAULT_FINES_CUTOFF_UM
+from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN, DEFAULT_FINES_CUTOFF_UM, TABLES
 
 #: order of the leading columns; every other process column follows them
 _LEADING = [
@@ -143,6 +143,8 @@ def assemble(
     out.attrs["notes"] = notes
     out.attrs["fines_cutoff_um"] = float(fines_cutoff_um)
     out.attrs["dissolution_time_min"] = float(dissolution_time_min)
+    # the process table's columns the template does not name (raw-material attributes; issue 19, train --materials)
+    out.attrs["process_extra_columns"] = [c for c in process.columns if c not in TABLES["process"].names]
     return out
 
 

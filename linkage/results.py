@@ -137,7 +137,10 @@ def train_json(fitted: FittedChain) -> dict:
         "table_sha256": meta["training"]["table_sha256"],
         "seed": meta["seed"],
         "dissolution_time_min": meta["training"].get("dissolution_time_min"),
-        "targets": {name: {k: t[k] for k in TARGET_KEYS} for name, t in meta["targets"].items()},
+        "group_by": meta["training"].get("group_by", "lot"),
+        "materials": meta["training"].get("materials"),
+        "targets": {name: {**{k: t[k] for k in TARGET_KEYS}, "forward": t.get("forward")}
+                    for name, t in meta["targets"].items()},
         "skipped": meta["skipped"],
         "caution": CAUTION,
     }
@@ -145,6 +148,35 @@ def train_json(fitted: FittedChain) -> dict:
 
 def _num(v, width=9, fmt=".4g", sign="") -> str:
     return f"{'—':>{width}}" if v is None else f"{v:>{sign}{width}{fmt}}"
+
+
+def materials_lines(m: dict | None) -> list[str]:
+    """The comparison with and without the extra material columns (``train --materials``)."""
+    if not m:
+        return []
+    if not m.get("columns"):
+        return ["", f"Material columns: none used ({m.get('reason', 'none found')})."]
+    kept = m["kept_for"]
+    lines = ["", f"Material columns {', '.join(m['columns'])}: tried as inputs of every stage; kept for "
+                 + (", ".join(kept) if kept else "no attribute") + " (grouped CV RMSE better by more than one SE)."]
+    for t, r in m["targets"].items():
+        lines.append(f"  {t}: CV RMSE {r['without']['rmse']:.4g} (SE {r['without']['rmse_se']:.2g}, "
+                     f"{r['without']['selected']}) without, {r['with']['rmse']:.4g} ({r['with']['selected']}) with: "
+                     + ("kept" if r["kept"] else "not kept"))
+    return lines
+
+
+def forward_lines(t: dict) -> list[str]:
+    """The forward-in-time check of one attribute's summary, beside its CV (issue 19)."""
+    f = t.get("forward")
+    if not f:
+        return []
+    if "reason" in f:
+        return [f"    forward in time: not made ({f['reason']})"]
+    ratio = "" if f["rmse_over_cv"] is None else f", {f['rmse_over_cv']:.2f} × the CV RMSE"
+    return [f"    forward in time (fit on {f['n_train']} lots until {f['train_until'][:10]}, scored on the "
+            f"{f['n_test']} later): RMSE {f['rmse']:.4g}{ratio}, bias {f['bias']:+.3g}, "
+            f"{f['nominal_coverage']:.0%} interval coverage {f['coverage']:.1%}"]
 
 
 def train_text(fitted: FittedChain) -> str:
@@ -192,8 +224,10 @@ def train_text(fitted: FittedChain) -> str:
             cov = "no lots" if r["coverage"] is None else (
                 f"{r['coverage']:.1%} of {r['n']} lots (95% Clopper–Pearson {r['ci_low']:.1%}–{r['ci_high']:.1%})")
             lines.append(f"      {t.get('coverage_region_variable') or 'region'} {lo:.4g}–{hi:.4g}: {cov}")
+        lines += forward_lines(t)
         for note in t["notes"]:
             lines.append(f"    note: {note}")
+    lines += materials_lines(tr.get("materials"))
     if meta["skipped"]:
         lines += ["", "Not trained:"]
         lines += [f"  {name}: {why}" for name, why in meta["skipped"].items()]
@@ -548,21 +582,30 @@ class Watched(_Result):
         return self.result.to_dict()
 
     def text(self) -> str:
+        from linkage.decide.watch import design_lines, whatif_settings_lines
+
         r = self.result
         lines = [f"Model {r.model_id}; {self.n_lots} lots, {len(r.new_lots)} since training"
                  + (f"; {self.time_point}" if self.time_point else "") + "."]
         if self.window:
             lines.append(f"Porosity window used for ribbon samples: {self.window[0]:.3f}–{self.window[1]:.3f}")
+        lines += design_lines(r.mewma)
         alarms = r.alarms
         if not alarms:
             lines.append("No alarm on the lots since training.")
         else:
             lines.append(f"{len(alarms)} alarm(s) on lots since training:")
             lines += [f"  ! {a}" for a in alarms]
+        others = r.other_signals
+        if others:
+            lines.append(f"Other looks ({len(others)} signal(s); for diagnosis, not designed to a false-alarm rate):")
+            lines += [f"  - {a}" for a in others[:40]] + ([f"  ... and {len(others) - 40} more"] if len(others) > 40
+                                                          else [])
         for p in r.predictions:
             mark = "inside" if p["inside_interval"] else "OUTSIDE"
             lines.append(f"  what-if for {p['lot']}: {p['attribute']} predicted {p['predicted']:.4g} "
                          f"[{p['low']:.4g}, {p['high']:.4g}], measured {p['measured']:.4g} ({mark} the interval)")
+            lines += whatif_settings_lines(p)
         lines.append(CAUTION)
         return "\n".join(lines)
 
@@ -613,9 +656,10 @@ class Retrained(_Result):
 
     def summary(self) -> pd.DataFrame:
         """One row per attribute (index ``attribute``): the challenger's and
-        the champion's selected models and CV RMSE on the same folds, the
-        champion's error on the lots it never saw, and whether the attribute
-        passes the rule (``within_noise``, ``within_tolerance``)."""
+        the champion's selected models and CV RMSE on the same folds
+        (``within_noise``, ``within_tolerance``: reported, no longer the
+        rule), the champion's error on the lots it never saw, and
+        ``prospective``: the paired test on those lots that decides (issue 19)."""
         return _frame([c.to_dict() for c in self.result.comparisons], "attribute")
 
     def __repr__(self) -> str:

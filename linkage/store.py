@@ -1104,11 +1104,16 @@ class LotStore:
         _seal.seal(c, _seal.AUDIT, audit_id)
         return audit_id
 
-    def audit(self, lot: str | None = None) -> list[dict]:
-        """Audit entries, oldest first; only those about ``lot`` when given."""
+    def audit(self, lot: str | None = None, *, with_ingests: bool = False) -> list[dict]:
+        """Audit entries, oldest first; only those about ``lot`` when given,
+        and with ``with_ingests`` also the ingests that created or revised
+        it (their entry names no single lot; issue 19)."""
         sql = "SELECT id, at, user, action, lot, model_id, inputs_json, outputs_json FROM audit"
         rows = self._read(sql + (" WHERE lot = ? ORDER BY id" if lot is not None else " ORDER BY id"),
                           (lot,) if lot is not None else ())
+        if lot is not None and with_ingests:
+            ingests = self._read(sql + " WHERE action = 'ingest' AND lot IS NULL ORDER BY id", ())
+            rows = sorted(list(rows) + [r for r in ingests if _ingest_touches(r[7], lot)], key=lambda r: r[0])
         return [{"id": i, "at": at, "user": u, "action": a, "lot": lt, "model_id": m,
                  "inputs": None if ij is None else json.loads(ij), "outputs": None if oj is None else json.loads(oj)}
                 for i, at, u, a, lt, m, ij, oj in rows]
@@ -1131,6 +1136,14 @@ class LotStore:
                           (lot,) if lot is not None else ())
         return [{"id": i, "at": at, "user": u, "model_id": m, "lot": lt, "inputs": json.loads(ij),
                  "outputs": json.loads(oj)} for i, at, u, m, lt, ij, oj in rows]
+
+
+def _ingest_touches(outputs_json: str | None, lot: str) -> bool:
+    """Whether an ingest's audit outputs list ``lot`` as new or revised."""
+    if not outputs_json:
+        return False
+    out = json.loads(outputs_json)
+    return lot in (out.get("new") or []) or lot in (out.get("revised") or [])
 
 
 def _frame(table: str, rows: list[dict], columns: list[str]) -> pd.DataFrame:

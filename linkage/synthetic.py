@@ -66,6 +66,7 @@ import pandas as pd
 from linkage.exceptions import UsageError
 
 __all__ = [
+    "make_batch_lots",
     "ATTRIBUTES",
     "GRANULE_ATTRIBUTES",
     "TABLET_ATTRIBUTES",
@@ -1022,6 +1023,56 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
         "breaking_force_n": breaking,
     })
     return SyntheticLots(tables=tables, truth=truth, lot_truth=pd.DataFrame(lot_truth))
+
+
+def make_batch_lots(n_lots: int, seed: int = 0, *, lots_per_batch: int = 4, batch_sd_pct: float = 4.0,
+                    batch_prefix: str = "API", truth: Truth | None = None, d50_effect_pct_per_um: float = 0.0,
+                    **kwargs) -> SyntheticLots:
+    """Lots that share raw-material batches with a batch effect (issue 19).
+
+    :func:`make_lots` with ``raw_materials=True`` (``kwargs`` passed on), then
+    consecutive runs of ``lots_per_batch`` lots share a drug-substance batch:
+    ``process.api_batch`` names it (``<batch_prefix>-001`` ...), every lot of a
+    batch carries the batch's certificate value of ``api_d50_um`` (drawn
+    N(45, 4²) µm per batch), and the batch shifts ``dissolution_pct`` by an
+    effect drawn N(0, ``batch_sd_pct``²) per batch that no measured column
+    explains (``lot_truth``: ``api_batch``, ``batch_effect_pct``). The lots of
+    one batch are therefore not independent: a model that can tell batches
+    apart (by ``api_d50_um``) learns a seen batch's effect, which says nothing
+    about a new batch. ``d50_effect_pct_per_um`` adds a real effect of the
+    batch's d50 on dissolution, slope × (d50 − 45 µm) (0: none); the other
+    raw-material columns have none. Seeded: the same arguments give the same
+    tables.
+    """
+    if int(lots_per_batch) < 1:
+        raise UsageError(f"lots_per_batch must be at least 1; got {lots_per_batch}")
+    if not batch_sd_pct >= 0:
+        raise UsageError(f"batch_sd_pct must be 0 or more; got {batch_sd_pct}")
+    lots = make_lots(n_lots, seed, truth, raw_materials=True, **kwargs)
+    n = len(lots.lot_truth)
+    batch = np.arange(n) // int(lots_per_batch)
+    n_batches = int(batch.max()) + 1
+    rng = np.random.default_rng(np.random.SeedSequence([int(seed), 190319]))
+    d50 = np.round(rng.uniform(30.0, 60.0, n_batches), 1)
+    effect = rng.normal(0.0, float(batch_sd_pct), n_batches)
+    names = np.array([f"{batch_prefix}-{i + 1:03d}" for i in range(n_batches)], dtype=object)
+    tables = dict(lots.tables)
+    process = tables["process"].copy()
+    process["api_d50_um"] = d50[batch]
+    process["api_batch"] = names[batch]
+    tables["process"] = process
+    tablets = tables["tablets"].copy()
+    effect = effect + float(d50_effect_pct_per_um) * (d50 - 45.0)
+    tablets["dissolution_pct"] = np.round(tablets["dissolution_pct"].to_numpy(float) + effect[batch], 2)
+    tables["tablets"] = tablets
+    if "dissolution" in tables:  # the vessels move with their lot
+        shift = dict(zip(process["lot"], effect[batch]))
+        diss = tables["dissolution"].copy()
+        diss["released_pct"] = np.round(diss["released_pct"] + diss["lot"].map(shift), 1)
+        tables["dissolution"] = diss
+    lt = lots.lot_truth.assign(api_batch=names[batch], batch_effect_pct=effect[batch],
+                               dissolution_pct=tablets["dissolution_pct"].to_numpy())
+    return SyntheticLots(tables=tables, truth=lots.truth, lot_truth=lt)
 
 
 def remeasure_ribbon(lots: SyntheticLots, lot: str, seed: int = 1, envelope_bias_g_cm3: float = 0.0) -> pd.DataFrame:

@@ -19,21 +19,30 @@ _spec_option = click.option("--spec", "spec_path", type=click.Path(exists=True, 
 @_spec_option
 @click.option("--product", default=None, help="Product to retrain when the store holds several.")
 @click.option("--tolerance", default=0.10, show_default=True, type=float,
-              help="How much worse (fraction) any attribute's CV RMSE may be before promotion is refused.")
+              help="Non-inferiority margin: how much worse (fraction) the challenger's RMSE on the lots the "
+                   "champion never saw may be, for each attribute, before promotion is refused.")
 @click.option("--force", is_flag=True, help="Promote the challenger whatever the rule says (needs --reason).")
 @click.option("--reason", default=None, help="Why the promotion is forced; recorded in the audit trail.")
 @json_option
 @handle_errors
 def retrain(store, models_dir, spec_path, product, tolerance, force, reason, as_json):
     """Fit a challenger on every lot in the store, compare it with the
-    champion (the model in service) on the same grouped folds and on the lots
-    the champion never saw, and promote it only by the documented rule (or
-    with --force and a reason). Both models are kept; the decision and its
-    reasons go to the registry and the audit trail.
+    champion (the model in service) on the lots the champion never saw,
+    paired lot by lot (the champion's predictions against the challenger's
+    out-of-fold predictions; a one-sided non-inferiority test with the
+    tolerance as margin), and promote it only when every attribute passes
+    (or with --force and a reason). Both models are kept; the decision and
+    its reasons go to the registry and the audit trail.
+
+    Order of use: ingest the new lots, run 'linkage watch' first (it says
+    whether the process has moved away from the champion), then 'linkage
+    retrain' once the watch alarms or at least 5 new lots per attribute have
+    arrived (fewer cannot pass the test).
 
     \b
     Example:
-      linkage ingest lab_exports/june && linkage retrain --spec spec.toml
+      linkage ingest lab_exports/june && linkage watch --spec spec.toml
+      linkage retrain --spec spec.toml
       linkage retrain --force --reason "new API supplier qualified, see CC-118"
     """
     from linkage.api import retrain as run_retrain
@@ -65,7 +74,12 @@ def watch(store, models_dir, model_id, spec_path, product, as_json):
     Shewhart, EWMA and CUSUM charts with limits from the training lots;
     ribbon porosity samples within each lot against the porosity window;
     lot-mean porosity between lots; new lots outside the applicability
-    domain; recorded what-ifs against what the lots measured.
+    domain; recorded what-ifs against what the lots measured (noting a
+    what-if made at settings the lot did not run at, and predicting again at
+    the settings it ran at).
+
+    Order of use: after each ingest of new lots, before 'linkage retrain'.
+    An alarm says the process moved away from the model; then retrain.
 
     \b
     Example:
@@ -88,7 +102,7 @@ def watch(store, models_dir, model_id, spec_path, product, as_json):
 
 @click.command()
 @store_option
-@click.option("--lot", default=None, help="Only entries about this lot.")
+@click.option("--lot", default=None, help="Only entries about this lot, with the ingests that created or revised it.")
 @json_option
 @handle_errors
 def audit(store, lot, as_json):
@@ -104,7 +118,7 @@ def audit(store, lot, as_json):
     from linkage.store import LotStore
 
     with LotStore(store, create=False) as s:
-        rows = s.audit(lot)
+        rows = s.audit(lot, with_ingests=True)
     if as_json:
         click.echo(json.dumps(rows, indent=2, default=str))
         return

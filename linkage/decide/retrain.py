@@ -12,17 +12,22 @@ champion's chain file and seed. The two are compared two ways:
 - **Prospectively.** The champion's predictions for the lots it never saw,
   from their measured stage inputs, against what those lots measured.
 
-Promotion rule (:data:`RULE`), per attribute with ``r_new`` the challenger's
-CV RMSE, ``r_old`` the CV RMSE of the champion's choice on the same folds,
-``se`` the standard error of ``r_new`` across folds and ``tol`` the
-tolerance (10 % by default):
+Promotion rule (:data:`RULE`, issue 19): **prospective**, per attribute, on
+the lots the champion never saw: the champion's errors from its fitted
+models against the challenger's out-of-fold errors on the same lots, paired,
+by the non-inferiority test of :mod:`linkage.decide.prospective` with the
+tolerance (10 % by default) as the margin on the RMSE. The challenger is
+promoted only when every attribute passes (an attribute with fewer than
+:data:`~linkage.decide.prospective.MIN_NEW_LOTS` new lots cannot pass: no
+evidence, the champion stays), or when ``force`` is given with a reason.
 
-1. not worse beyond noise: ``r_new <= r_old + se`` for every attribute, and
-2. no attribute worse beyond the tolerance: ``r_new <= (1 + tol) * r_old``.
-
-The challenger is promoted only when both hold, or when ``force`` is given
-with a reason. Both models stay in the registry, and the decision with its
-reasons is written to the registry and to the store's audit trail.
+The earlier same-folds comparison (``r_new`` the challenger's CV RMSE,
+``r_old`` the CV RMSE of the champion's choice on the same folds, ``se``)
+is still reported (``within_noise``: ``r_new <= r_old + se``;
+``within_tolerance``: ``r_new <= (1 + tol) * r_old``) but no longer decides:
+two selections from the same folds nearly always agree. Both models stay in
+the registry, and the decision with its reasons is written to the registry
+and to the store's audit trail.
 """
 
 from __future__ import annotations
@@ -33,11 +38,12 @@ import numpy as np
 import pandas as pd
 
 from linkage import CAUTION
+from linkage.decide.prospective import ALPHA, MIN_NEW_LOTS, TEST, paired_noninferiority, prospective_pairs
 from linkage.exceptions import InsufficientDataError, LinkageError, UsageError
 
-RULE = ("promote when, for every attribute, the challenger's grouped-CV RMSE is no worse than the CV RMSE "
-        "of the champion's model choice on the same folds plus one standard error, and no worse than "
-        "(1 + tolerance) times it; or when forced with a reason")
+RULE = ("promote when, for every attribute, the challenger is shown not worse than the champion beyond the "
+        "tolerance on the lots the champion never saw (at least {min_lots} of them): " + TEST.format(alpha=ALPHA)
+        + "; the margin is the tolerance on the RMSE; or when forced with a reason").format(min_lots=MIN_NEW_LOTS)
 DEFAULT_TOLERANCE = 0.10
 
 
@@ -55,9 +61,17 @@ class Comparison:
     n_new: int
     within_noise: bool
     within_tolerance: bool
+    #: the paired non-inferiority test on the new lots (:func:`linkage.decide.prospective.paired_noninferiority`);
+    #: None for an attribute the champion does not have
+    prospective: dict | None = None
 
     def to_dict(self) -> dict:
-        return {k: (None if isinstance(v, float) and not np.isfinite(v) else v) for k, v in self.__dict__.items()}
+        def clean(v):
+            if isinstance(v, dict):
+                return {k: clean(x) for k, x in v.items()}
+            return None if isinstance(v, float) and not np.isfinite(v) else v
+
+        return {k: clean(v) for k, v in self.__dict__.items()}
 
 
 @dataclass
@@ -89,6 +103,8 @@ class RetrainDecision:
             "targets": {c.attribute: c.to_dict() for c in self.comparisons},
             "window_moved": self.window_moved,
             "notes": self.notes,
+            "promotion_test": {"test": TEST.format(alpha=ALPHA), "alpha": ALPHA, "margin": self.tolerance,
+                               "min_new_lots": MIN_NEW_LOTS},
             "caution": CAUTION,
         }
 
@@ -123,8 +139,11 @@ def compare(champion, challenger, table: pd.DataFrame, *, tolerance: float = DEF
         else:
             within_noise = r_new <= r_old + se + 1e-12
             within_tol = r_new <= (1 + tolerance) * r_old + 1e-12
+        lots, a, b = prospective_pairs(champion, challenger, table, name)
+        test = paired_noninferiority(a, b, margin=tolerance)
+        test["lots"] = lots
         out.append(Comparison(name, new.selected, old.selected, r_new, r_old, se, float(old_cv), p_rmse, p_bias,
-                              n_new, within_noise, within_tol))
+                              n_new, within_noise, within_tol, test))
     return out
 
 
@@ -134,21 +153,28 @@ def decide(comparisons: list[Comparison], *, force: bool = False, reason: str | 
     reasons = []
     ok = True
     for c in comparisons:
-        if c.champion_choice_rmse is None:
-            reasons.append(f"{c.attribute}: new attribute or model choice; nothing to compare with")
+        if c.prospective is None:
+            reasons.append(f"{c.attribute}: new attribute; the champion has no model of it to compare with")
             continue
-        line = (f"{c.attribute}: challenger {c.challenger_selected} CV RMSE {c.challenger_rmse:.4g} "
-                f"(SE {c.challenger_rmse_se:.2g}) vs champion's choice {c.champion_selected} "
-                f"{c.champion_choice_rmse:.4g} on the same folds")
-        if not c.within_noise:
-            line += "; WORSE beyond one standard error"
+        t = c.prospective
+        if t["n"] < MIN_NEW_LOTS:
+            line = (f"{c.attribute}: {t['n']} lot(s) since the champion with a measured value; at least "
+                    f"{MIN_NEW_LOTS} are needed to judge the challenger on lots the champion never saw; NOT SHOWN")
             ok = False
-        if not c.within_tolerance:
-            line += f"; WORSE by more than {tolerance:.0%}"
-            ok = False
-        if c.prospective_rmse is not None:
-            line += (f"; champion on {c.n_new} unseen lots: RMSE {c.prospective_rmse:.4g}, bias "
-                     f"{c.prospective_bias:+.3g} (its CV RMSE {c.champion_cv_rmse:.4g})")
+        else:
+            ratio = "n/a" if t["rmse_ratio"] is None else f"{t['rmse_ratio']:.3g}"
+            line = (f"{c.attribute}: on {t['n']} new lots, challenger {c.challenger_selected} RMSE "
+                    f"{t['challenger_rmse']:.4g} (out of fold) vs champion {c.champion_selected} "
+                    f"{t['champion_rmse']:.4g} (ratio {ratio}); non-inferiority within {t['margin']:.0%}: "
+                    f"t = {t['statistic']:.3g}, df {t['df']}, one-sided p = {t['p_value']:.3g}")
+            if t["passed"]:
+                line += " - passes"
+            else:
+                line += f"; NOT SHOWN not worse beyond {t['margin']:.0%} (p >= {t['alpha']:g})"
+                ok = False
+        if c.champion_choice_rmse is not None:
+            line += (f" [same folds, not used: challenger CV RMSE {c.challenger_rmse:.4g} vs champion's choice "
+                     f"{c.champion_choice_rmse:.4g}]")
         reasons.append(line)
     if force:
         if not reason or not reason.strip():
@@ -198,6 +224,12 @@ def _challenger_time_point(champion, spec) -> float:
         f"service as a new champion), or retrain with a spec at {have:g} min.")
 
 
+def _group_by(champion) -> str | None:
+    """The champion's grouping of lots in validation (issue 19): the challenger is validated the same way."""
+    g = (champion.training or {}).get("group_by")
+    return None if g in (None, "lot") else g
+
+
 def retrain(store_path, models_dir, *, product: str | None = None, spec=None, force: bool = False,
             reason: str | None = None, tolerance: float = DEFAULT_TOLERANCE, seed: int | None = None,
             user: str | None = None, progress=None) -> RetrainDecision:
@@ -228,7 +260,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
         raise InsufficientDataError(f"{len(table)} lots in the store; retraining needs at least 3")
     challenger = train_chain(table, champion.chain, seed=champion.seed if seed is None else seed,
                              nominal_coverage=champion.nominal_coverage, progress=progress,
-                             dissolution_time_min=time_min)
+                             dissolution_time_min=time_min, group_by=_group_by(champion))
     comparisons = compare(champion, challenger, table, tolerance=tolerance)
     promote, reasons = decide(comparisons, force=force, reason=reason, tolerance=tolerance)
     moved = None

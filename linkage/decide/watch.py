@@ -17,6 +17,13 @@ Three looks, each in time order:
 3. **Applicability domain** of every new lot's stage inputs (Hotelling T²,
    Q residual, training ranges), naming the inputs that drive it.
 
+The **alarms** come from one scheme designed to an in-control average run
+length for all attributes together (issue 19): a multivariate EWMA of the
+lots' standardised residual vectors since training (:mod:`linkage.decide.mewma`).
+The per-attribute charts, the porosity looks and the domain stay as
+``other_signals``, for diagnosis: each adds false alarms, and together they
+are not designed to a rate.
+
 The charts answer "has something changed", not "is this lot good": release
 stays with the pharmacopeial tests.
 """
@@ -78,9 +85,22 @@ class WatchResult:
     porosity_within: list[dict]
     domain: list[dict]
     predictions: list[dict] = field(default_factory=list)
+    #: the designed scheme (:func:`mewma_look`); None when no attribute can be charted
+    mewma: dict | None = None
 
     @property
     def alarms(self) -> list[str]:
+        """Signals of the designed scheme on the lots since training."""
+        if self.mewma is None:
+            return []
+        return [f"MEWMA of the {self.mewma['design']['attributes']} residuals, lot {lot}: {text}"
+                for lot, text in self.mewma["signals"].items()]
+
+    @property
+    def other_signals(self) -> list[str]:
+        """Flags of the per-attribute charts, the porosity looks and the
+        domain on the lots since training: for diagnosis, not designed to a
+        false-alarm rate."""
         out = []
         for name, c in self.charts.items():
             for lot in c.lots:
@@ -102,6 +122,9 @@ class WatchResult:
             "model_id": self.model_id,
             "new_lots": self.new_lots,
             "alarms": self.alarms,
+            "design": None if self.mewma is None else self.mewma["design"],
+            "mewma": None if self.mewma is None else {k: v for k, v in self.mewma.items() if k != "design"},
+            "other_signals": self.other_signals,
             "attributes": {k: v.to_dict() for k, v in self.charts.items()},
             "porosity_between_lots": self.porosity_between,
             "porosity_within_lots": self.porosity_within,
@@ -160,6 +183,72 @@ def attribute_chart(chain, table: pd.DataFrame, attribute: str) -> AttributeChar
             flags[lot] = reasons
     return AttributeChart(attribute, list(s["lot"]), list(s["phase"]), x, ref, shewhart_limits(ref),
                           z, zl, zh, cp, cm, h, flags)
+
+
+def standardised_residuals(charts: dict[str, AttributeChart], lots: list[str]) -> pd.DataFrame:
+    """Residuals of ``lots`` (rows) for each charted attribute (columns),
+    centred on the training lots' mean residual and divided by their SD; NaN
+    where the lot lacks the attribute."""
+    out = pd.DataFrame(index=pd.Index(lots, name="lot"))
+    for name, c in charts.items():
+        z = pd.Series((np.asarray(c.residual, float) - c.reference.mu0) / c.reference.sigma, index=c.lots)
+        out[name] = z[~z.index.duplicated()].reindex(lots)
+    return out
+
+
+def residual_correlation(chain, attributes: list[str]) -> np.ndarray:
+    """Correlation of the training lots' out-of-fold residuals between
+    attributes (pairwise complete lots; 0 where fewer than 3 lots share two
+    attributes), moved to the nearest positive definite correlation by
+    clipping its eigenvalues at 1e-6."""
+    frame = pd.DataFrame({a: chain.targets[a].residuals for a in attributes})
+    r = frame.corr(min_periods=3).to_numpy(float)
+    r = np.where(np.isfinite(r), r, 0.0)
+    np.fill_diagonal(r, 1.0)
+    w, v = np.linalg.eigh((r + r.T) / 2)
+    r = (v * np.clip(w, 1e-6, None)) @ v.T
+    d = np.sqrt(np.diag(r))
+    return r / np.outer(d, d)
+
+
+def mewma_look(chain, charts: dict[str, AttributeChart], new_lots: list[str]) -> dict | None:
+    """The designed scheme on the lots since training, in time order: T²,
+    the limit h, the signals (lot -> text naming the attributes whose EWMA
+    lies furthest from 0, in SD), and the design (:func:`linkage.decide.mewma.design`)."""
+    from linkage.decide.mewma import design, mewma_statistic
+
+    if not charts:
+        return None
+    names = list(charts)
+    corr = residual_correlation(chain, names)
+    d = design(len(names), n_ref=min(c.reference.n for c in charts.values()))
+    order = [lot for lot in dict.fromkeys(lot for c in charts.values() for lot in c.lots) if lot in set(new_lots)]
+    x = standardised_residuals(charts, order)
+    have = x.notna().any(axis=1).to_numpy()
+    x = x[have]
+    t2, scaled = mewma_statistic(x.to_numpy(float), corr) if len(x) else (np.empty(0), np.empty((0, len(names))))
+    signals = {}
+    for lot, stat, row in zip(x.index, t2, scaled):
+        if stat > d["h"]:
+            top = np.argsort(-np.abs(row))[:2]
+            signals[lot] = (f"T² {stat:.1f} above h = {d['h']:.2f}; furthest: "
+                            + ", ".join(f"{names[j]} EWMA {row[j]:+.1f} SD" for j in top))
+    return {"design": dict(d), "attributes": names, "correlation": corr.tolist(), "lots": list(x.index),
+            "t2": [float(v) for v in t2], "h": d["h"], "signals": signals}
+
+
+def design_lines(mewma: dict | None) -> list[str]:
+    """The design of the watch, in words."""
+    if mewma is None:
+        return ["No attribute could be charted (fewer than 3 training residuals); no designed watch."]
+    d = mewma["design"]
+    a = d["arl"]
+    return [f"Watch design: multivariate EWMA (λ = {d['lambda']:g}) of the {d['attributes']} attributes' "
+            f"standardised residuals (mean, SD and correlation {d['parameters']}), limit h = {d['h']:.2f}, "
+            f"in-control ARL {d['arl0_target']:g} lots for all "
+            f"attributes together (simulated {a['in_control']['arl']:.0f} ± {a['in_control']['mc_se']:.0f}); "
+            f"a 1 SD shift in any one attribute is detected in {a['shift_1sd']['arl']:.1f} lots on average at "
+            f"most, a 2 SD shift in {a['shift_2sd']['arl']:.1f} (Lowry et al. 1992)."]
 
 
 def porosity_between(chain, table: pd.DataFrame) -> dict:
@@ -252,24 +341,94 @@ def domain_of_new_lots(chain, table: pd.DataFrame, new_lots: list[str]) -> list[
     return out
 
 
-def predictions_vs_measured(recorded: list[dict], table: pd.DataFrame) -> list[dict]:
-    """Each recorded what-if with a lot, against what the lot measured."""
+def predictions_vs_measured(recorded: list[dict], table: pd.DataFrame, chain=None) -> list[dict]:
+    """Each recorded what-if with a lot, against what the lot measured.
+
+    A what-if is often made before the lot runs, at settings the lot then
+    did not run at. Each entry notes the inputs whose what-if value differs
+    from the lot's recorded value (``settings_differ``: input -> what-if
+    value, value the lot ran at, and whether the what-if value was given or
+    filled in), and where any differ and ``chain`` is given, the prediction
+    made again by that model at the lot's own settings
+    (``at_lot_settings``) against the same measured value."""
     measured = table.set_index(table["lot"].astype(str))
+    rerun: dict[str, dict | str] = {}
     out = []
     for rec in recorded:
         lot = rec.get("lot")
         if not lot or lot not in measured.index:
             continue
+        differ, ran = _settings_differ(rec.get("inputs") or {}, measured.loc[lot])
         preds = (rec.get("outputs") or {}).get("predictions", {})
         for name, p in preds.items():
             if name not in measured.columns or pd.isna(measured.at[lot, name]):
                 continue
             value = float(measured.at[lot, name])
-            out.append({"lot": lot, "attribute": name, "model_id": rec.get("model_id"),
-                        "predicted": p.get("value"), "low": p.get("low"), "high": p.get("high"),
-                        "measured": value,
-                        "inside_interval": bool(p.get("low") is not None and p["low"] <= value <= p["high"])})
+            entry = {"lot": lot, "attribute": name, "model_id": rec.get("model_id"),
+                     "predicted": p.get("value"), "low": p.get("low"), "high": p.get("high"),
+                     "measured": value,
+                     "inside_interval": bool(p.get("low") is not None and p["low"] <= value <= p["high"]),
+                     "settings_differ": differ, "at_lot_settings": None}
+            if differ and chain is not None:
+                if lot not in rerun:
+                    rerun[lot] = _predict_at(chain, ran)
+                again = rerun[lot]
+                if isinstance(again, str):
+                    entry["at_lot_settings"] = {"reason": again}
+                elif name in again:
+                    q = again[name]
+                    entry["at_lot_settings"] = {
+                        "model_id": getattr(chain, "model_id", None), "predicted": q["value"], "low": q["low"],
+                        "high": q["high"], "inside_interval": bool(q["low"] <= value <= q["high"])}
+            out.append(entry)
     return out
+
+
+def _settings_differ(inputs: dict, lot_row: pd.Series) -> tuple[dict, dict]:
+    """The what-if inputs whose value differs from the lot's (relative
+    difference above 1e-6), and every what-if input the lot has a value for."""
+    differ, ran = {}, {}
+    for col, v in inputs.items():
+        if not isinstance(v, dict) or col not in lot_row.index or pd.isna(lot_row[col]):
+            continue
+        try:
+            actual, asked = float(lot_row[col]), float(v.get("value"))
+        except (TypeError, ValueError):
+            continue
+        ran[col] = actual
+        if not np.isclose(asked, actual, rtol=1e-6, atol=1e-12):
+            differ[col] = {"what_if": asked, "ran_at": actual, "source": v.get("source")}
+    return differ, ran
+
+
+def whatif_settings_lines(entry: dict) -> list[str]:
+    """Text lines for a what-if made at settings the lot did not run at."""
+    differ = entry.get("settings_differ") or {}
+    if not differ:
+        return []
+    parts = ", ".join(f"{c} {d['what_if']:.4g} (lot ran at {d['ran_at']:.4g}"
+                      + (", filled in" if d.get("source") not in (None, "given") else "") + ")"
+                      for c, d in differ.items())
+    lines = [f"    note: this what-if was made at settings the lot did not run at: {parts}"]
+    again = entry.get("at_lot_settings")
+    if again and "reason" in again:
+        lines.append(f"    {again['reason']}")
+    elif again:
+        mark = "inside" if again["inside_interval"] else "OUTSIDE"
+        lines.append(f"    at the lot's own settings model {again['model_id']} predicts {again['predicted']:.4g} "
+                     f"[{again['low']:.4g}, {again['high']:.4g}]: measured {entry['measured']:.4g} is {mark}")
+    return lines
+
+
+def _predict_at(chain, values: dict) -> dict | str:
+    """Predictions of ``chain`` at ``values`` (seed 0), or why there are none."""
+    from linkage.decide.whatif import predict_whatif
+    from linkage.exceptions import LinkageError
+
+    try:
+        return predict_whatif(chain, values, contributions=False).predictions
+    except LinkageError as exc:
+        return f"not predicted again at the lot's settings: {exc}"
 
 
 def watch(chain, table: pd.DataFrame, *, ribbon: pd.DataFrame | None = None,
@@ -283,11 +442,12 @@ def watch(chain, table: pd.DataFrame, *, ribbon: pd.DataFrame | None = None,
         if chart is not None:
             charts[name] = chart
     return WatchResult(
+        mewma=mewma_look(chain, charts, new_lots),
         model_id=getattr(chain, "model_id", None) or "unsaved",
         new_lots=new_lots,
         charts=charts,
         porosity_between=porosity_between(chain, table),
         porosity_within=porosity_within(ribbon, trained, window),
         domain=domain_of_new_lots(chain, table, new_lots),
-        predictions=predictions_vs_measured(recorded or [], table),
+        predictions=predictions_vs_measured(recorded or [], table, chain),
     )

@@ -127,6 +127,8 @@ class FittedTarget:
     interval_choice: dict | None = None
     #: the spread model of locally weighted CV+ (None: plain CV+ and pooled residuals)
     spread: dict | None = None
+    #: the forward-in-time check (:func:`linkage.models.forward.forward_check`); None without manufactured_at
+    forward: dict | None = None
 
     # -- predictions -------------------------------------------------------
     def predict(self, X: pd.DataFrame, *, raw: bool = False) -> np.ndarray:
@@ -223,6 +225,7 @@ class FittedTarget:
             "coverage_guarantee": getattr(self, "coverage_guarantee", None),
             "interval_choice": getattr(self, "interval_choice", None),
             "spread": getattr(self, "spread", None),
+            "forward": getattr(self, "forward", None),
             "vip": self.vip,
             "rd_params": self.rd_params,
             "notes": self.notes,

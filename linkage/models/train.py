@@ -42,6 +42,8 @@ from linkage.models.conformal import (coverage_by_region, cv_plus_guarantee, cv_
                                       lw_cv_plus_interval, region_edges, worst_region_gap)
 from linkage.models.cv import SIMPLICITY_ORDER, inner_splits, metrics, outer_splits, select_candidate
 from linkage.models.domain import DomainModel
+from linkage.models.forward import forward_check, lot_times
+from linkage.models.grouping import lot_groups
 from linkage.models.fitted import (COVERAGE_METHOD, INTERVAL_CHOICE_RULE, FittedChain, FittedStage,
                                    FittedTarget)
 from linkage.models.lean import spread_scale
@@ -173,6 +175,9 @@ class _Plan:
     candidates: list[str]
     unavailable: dict[str, str]
     notes: list[str]
+    #: the label each lot is grouped by in the outer and inner folds (the lot itself by default)
+    groups: np.ndarray | None = None
+    group_by: str = "lot"
 
 
 @dataclass
@@ -277,7 +282,8 @@ def _candidate_names(candidates) -> list[str]:
     return [c for c in SIMPLICITY_ORDER if c in chosen]
 
 
-def _plan_target(table: pd.DataFrame, stage, target: str, names: list[str], seed: int):
+def _plan_target(table: pd.DataFrame, stage, target: str, names: list[str], seed: int,
+                 groups: dict[str, str] | None = None, group_by: str = "lot"):
     """A _Plan, or the reason the target is skipped."""
     cols = list(stage.inputs) + [target]
     values = table[cols].to_numpy(float)
@@ -291,7 +297,10 @@ def _plan_target(table: pd.DataFrame, stage, target: str, names: list[str], seed
                 f"{n} have them{detail}")
     X, y = values[have, :-1], values[have, -1]
     lots = table["lot"].to_numpy(dtype=object)[have]
-    splits, scheme = outer_splits(lots, seed)
+    labels = lots if groups is None else np.array([groups[str(v)] for v in lots], dtype=object)
+    splits, scheme = outer_splits(labels, seed)
+    if groups is not None:
+        scheme = ("leave-one-group-out" if scheme == "leave-one-lot-out" else scheme) + f" by {group_by}"
     notes: list[str] = []
     unavailable: dict[str, str] = {}
     cands = []
@@ -309,16 +318,18 @@ def _plan_target(table: pd.DataFrame, stage, target: str, names: list[str], seed
                 unavailable[c] = why
     return _Plan(stage=stage.name, target=target, inputs=list(stage.inputs),
                  monotone=dict(stage.monotone.get(target, {})), lots=lots, X=X, y=y, splits=splits,
-                 scheme=scheme, candidates=cands, unavailable=unavailable, notes=notes)
+                 scheme=scheme, candidates=cands, unavailable=unavailable, notes=notes, groups=labels,
+                 group_by=group_by)
 
 
 def _jobs(plans: list[_Plan], seed: int, alpha: float) -> list[_Job]:
     jobs = []
     for i, p in enumerate(plans):
+        g = p.lots if p.groups is None else p.groups  # the inner folds group by the same labels
         for f, (tr, te) in enumerate(p.splits):
-            jobs.append(_Job(i, f, p.X[tr], p.y[tr], p.lots[tr], p.X[te], p.candidates, p.inputs, p.monotone,
+            jobs.append(_Job(i, f, p.X[tr], p.y[tr], g[tr], p.X[te], p.candidates, p.inputs, p.monotone,
                              seed, alpha))
-        jobs.append(_Job(i, None, p.X, p.y, p.lots, None, p.candidates, p.inputs, p.monotone, seed, alpha))
+        jobs.append(_Job(i, None, p.X, p.y, g, None, p.candidates, p.inputs, p.monotone, seed, alpha))
     return jobs
 
 
@@ -434,7 +445,9 @@ def _finish_target(plan: _Plan, fold_results: list[dict], full: dict, table: pd.
         candidates=results, unavailable=unavailable, noise_floor=floor, noise_floor_method=floor_method,
         n_lots=n, lots=lots,
         cv={"scheme": plan.scheme, "n_splits": len(plan.splits), "seed": seed, "folds": folds,
-            "inner": "grouped 5-fold (scikit-learn GroupKFold, fewer folds when fewer lots)"},
+            "inner": "grouped 5-fold (scikit-learn GroupKFold, fewer folds when fewer lots)",
+            "group_by": plan.group_by,
+            "n_groups": len(set(map(str, plan.lots if plan.groups is None else plan.groups)))},
         oof=oof, residuals=residuals, nominal_coverage=nominal, coverage=interval["coverage"],
         coverage_method=COVERAGE_METHOD, infinite_intervals=infinite[selected], vip=vip, rd_params=rd,
         hyperparameters={
@@ -538,7 +551,8 @@ def _time_point(table: pd.DataFrame, given: float | None) -> float:
 def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: int = 0,
                 nominal_coverage: float = 0.9, progress: Callable[[str, int, int], None] | None = None,
                 n_jobs: int = 1, candidates: list[str] | None = None, backend: str | None = None,
-                dissolution_time_min: float | None = None, n_bootstrap: int = DEFAULT_REPLICATES) -> FittedChain:
+                dissolution_time_min: float | None = None, n_bootstrap: int = DEFAULT_REPLICATES,
+                group_by: str | None = None) -> FittedChain:
     """Train every target of the chain on the assembled table.
 
     Parameters
@@ -572,6 +586,13 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
     n_bootstrap : lot-level bootstrap replicates of the selected models
         (:mod:`linkage.models.bootstrap`), from which every probability of
         passing gets its lower bound; 0 stores none (no bound).
+    group_by : a column of the table (a raw-material batch, a campaign) or
+        ``month`` (of ``manufactured_at``): lots sharing its value stay on
+        one side of every outer and inner fold, so the CV errors and the CV+
+        intervals are those of a new group (:mod:`linkage.models.grouping`);
+        default: each lot its own group. Recorded in ``training`` and each
+        target's ``cv``. Where the table has ``manufactured_at``, each target
+        also gets the forward-in-time check (:mod:`linkage.models.forward`).
 
     Raises
     ------
@@ -596,12 +617,14 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
     created_at = datetime.now(timezone.utc).isoformat(timespec="microseconds")
     time_min = _time_point(table, dissolution_time_min)
     data, notes = _prepare(table, chain)
+    groups = lot_groups(table, group_by)
+    group_by = "lot" if groups is None else group_by
 
     plans: list[_Plan] = []
     skipped: dict[str, str] = {}
     for st in chain.stages:
         for target in st.targets:
-            p = _plan_target(data, st, target, names, seed)
+            p = _plan_target(data, st, target, names, seed, groups, group_by)
             if isinstance(p, str):
                 skipped[target] = p
             else:
@@ -621,6 +644,11 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
         else:
             folds[job.plan].append(res)
     fitted = {p.target: _finish_target(p, folds[i], full[i], data, seed, nominal) for i, p in enumerate(plans)}
+    times = lot_times(table)
+    for p in plans:
+        t = fitted[p.target]
+        t.forward = forward_check(p, t.selected, t.candidates[t.selected]["rmse"], times, seed=seed, alpha=alpha,
+                                  min_train=MIN_LOTS)
 
     stages = []
     for st in chain.stages:
@@ -635,7 +663,8 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
                                   skipped={t: skipped[t] for t in st.targets if t in skipped}))
     out = FittedChain(
         chain=chain, stages=stages, targets=fitted, skipped=skipped,
-        training={**_training_record(data, chain, table, notes), "dissolution_time_min": time_min},
+        training={**_training_record(data, chain, table, notes), "dissolution_time_min": time_min,
+                  "group_by": group_by, **({"groups": groups} if groups is not None else {})},
         library_versions=_library_versions(),
         seed=int(seed), nominal_coverage=nominal, created_at=created_at,
     )

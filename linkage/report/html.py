@@ -1008,6 +1008,9 @@ def _watch_section(b, chain, table, window):
                      "porosity window shaded where one was found.")
     else:
         b.note(f"Lot-mean porosity chart not drawn: {pb.get('reason', 'no porosity values')}.")
+    from linkage.decide.watch import design_lines
+
+    b.add("".join(f"<p>{_e(line)}</p>" for line in design_lines(result.mewma)))
     alarms = result.alarms
     if alarms:
         items = "".join(f"<li>{_e(a)}</li>" for a in alarms[:40])

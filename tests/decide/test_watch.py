@@ -36,7 +36,30 @@ def test_dissolution_shift_is_flagged_within_a_few_lots(drift):
     assert CHANGE_AT <= first <= CHANGE_AT + 4, (flagged_new[0], first)
     # the flag is a downward one, as the change lowered dissolution
     assert any("downward" in r or "beyond" in r for r in chart.flags[flagged_new[0]])
-    assert any(a.startswith("dissolution_pct, lot") for a in result.alarms)
+    assert any(a.startswith("dissolution_pct, lot") for a in result.other_signals)
+    # issue 19: the designed scheme (MEWMA of the residual vector) alarms within a few lots of the change too,
+    # and names dissolution among the attributes furthest out; no alarm before the change
+    signalled = list(result.mewma["signals"])
+    assert signalled and CHANGE_AT <= order.index(signalled[0]) <= CHANGE_AT + 4, signalled[:3]
+    assert "dissolution_pct" in result.mewma["signals"][signalled[0]]
+    assert result.alarms[0].startswith(f"MEWMA of the {len(result.charts)} residuals, lot {signalled[0]}")
+    assert all(order.index(lot) >= CHANGE_AT for lot in signalled)
+
+
+def test_the_watch_states_its_design(drift):
+    """Issue 19: the output states the design (ARL0 for all attributes together, run lengths for 1 and 2 SD);
+    the design's p is the number of charted attributes and the residual correlation is a correlation matrix."""
+    from linkage.results import Watched
+
+    lots, table, chain, order = drift
+    result = watch(chain, table)
+    d = result.to_dict()
+    assert d["design"]["attributes"] == len(result.charts) and d["design"]["arl0_target"] == 200
+    corr = np.array(d["mewma"]["correlation"])
+    assert np.allclose(np.diag(corr), 1) and np.all(np.linalg.eigvalsh(corr) > 0)
+    text = Watched(result=result, n_lots=len(table)).text()
+    assert "in-control ARL 200 lots for all attributes together" in text and "a 2 SD shift in" in text
+    assert "Other looks" in text
 
 
 def test_no_alarm_on_attributes_the_change_did_not_touch(drift):
@@ -89,7 +112,40 @@ def test_recorded_prediction_is_compared_with_the_measurement():
     ]
     out = predictions_vs_measured(recorded, table)
     assert out == [{"lot": "L1", "attribute": "dissolution_pct", "model_id": "m", "predicted": 86, "low": 82,
-                    "high": 90, "measured": 84.0, "inside_interval": True}]
+                    "high": 90, "measured": 84.0, "inside_interval": True, "settings_differ": {},
+                    "at_lot_settings": None}]
+
+
+def test_a_whatif_at_other_settings_is_noted_and_predicted_again_at_the_lot_settings(drift):
+    """Issue 19 item 5: a what-if made at a roll force the lot did not run at is noted, with the value it ran
+    at, and the watched model predicts again at the lot's own settings (the same numbers as a what-if asked
+    at those settings)."""
+    from linkage.decide.whatif import predict_whatif
+    from linkage.decide.watch import whatif_settings_lines
+
+    lots, table, chain, order = drift
+    lot = order[-1]
+    row = table.set_index("lot").loc[lot]
+    settings = chain.chain.root_inputs()
+    ran = {c: float(row[c]) for c in settings if c in row.index and np.isfinite(row[c])}
+    asked = dict(ran, roll_force_kn_per_cm=ran["roll_force_kn_per_cm"] + 2.0)
+    made = predict_whatif(chain, asked, contributions=False)
+    recorded = [{"lot": lot, "model_id": chain.model_id, "inputs": made.to_dict()["inputs"],
+                 "outputs": made.to_dict()},
+                {"lot": order[-2], "model_id": chain.model_id, "outputs": made.to_dict()}]  # no inputs: no note
+    out = predictions_vs_measured(recorded, table, chain)
+    mine = [e for e in out if e["lot"] == lot]
+    assert mine and all(set(e["settings_differ"]) == {"roll_force_kn_per_cm"} for e in mine)
+    d = mine[0]["settings_differ"]["roll_force_kn_per_cm"]
+    assert d["ran_at"] == pytest.approx(ran["roll_force_kn_per_cm"]) and d["what_if"] == pytest.approx(
+        ran["roll_force_kn_per_cm"] + 2.0) and d["source"] == "given"
+    again = predict_whatif(chain, ran, contributions=False).predictions
+    for e in mine:
+        q = again[e["attribute"]]
+        assert e["at_lot_settings"]["predicted"] == pytest.approx(q["value"])
+        assert e["at_lot_settings"]["inside_interval"] == (q["low"] <= e["measured"] <= q["high"])
+        assert "did not run at" in whatif_settings_lines(e)[0]
+    assert all(e["settings_differ"] == {} and e["at_lot_settings"] is None for e in out if e["lot"] != lot)
 
 
 def test_new_lots_out_of_domain_are_named(drift):

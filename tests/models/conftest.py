@@ -103,3 +103,24 @@ def assert_estimator_contract(make, X, y, columns):
     with pytest.raises(ValueError, match="feature names"):
         named.predict(frame.rename(columns={columns[-1]: "other"}))
     return est
+
+
+@pytest.fixture
+def ingested(tmp_path):
+    """``ingested(lots)``: write a synthetic campaign's tables to a folder, ingest it into a new lot store with the
+    command line, and return (store path, models folder path, CliRunner)."""
+    from click.testing import CliRunner
+
+    from linkage.cli.main import cli
+
+    def run(lots):
+        folder = tmp_path / "lab"
+        folder.mkdir()
+        for name, df in lots.tables.items():
+            df.to_csv(folder / f"{name}.csv", index=False)
+        store, models = tmp_path / "lots.db", tmp_path / "models"
+        runner = CliRunner()
+        assert runner.invoke(cli, ["ingest", str(folder), "--store", str(store)]).exit_code == 0
+        return store, models, runner
+
+    return run

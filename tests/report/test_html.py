@@ -211,4 +211,6 @@ def test_drift_watch_section_has_its_charts():
     section = html[html.index('id="drift"'):html.index('id="domain"')]
     assert section.count("<img") == 2  # residual charts, lot-mean porosity
     assert "Alarms on lots since training" in section
-    assert re.search(r"dissolution_pct, lot LOT-0(3[3-9]|40)", section)
+    # issue 19: the alarms are the designed MEWMA's, naming the attributes furthest out, and the design is stated
+    assert re.search(r"lot LOT-0(3[3-9]|40): T²[^<]*dissolution_pct", section)
+    assert "in-control ARL 200 lots for all attributes together" in section
