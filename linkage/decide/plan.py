@@ -340,3 +340,231 @@ def _jsonable(obj):
     from linkage.jsonable import jsonable
 
     return jsonable(obj)
+
+
+# ---------------------------------------------------------------------------
+# augmenting a campaign: I-optimal local linear models weighted to the edges
+# ---------------------------------------------------------------------------
+#: kernel bandwidth in porosity, as a share of the training porosity range; in SDs for the ribbon inputs
+POROSITY_BANDWIDTH_SHARE = 1.0 / 6.0
+SETTINGS_BANDWIDTH_SD = 1.0
+#: a small ridge on the information matrices, so an edge no lot is near still has a finite variance
+RIDGE = 1e-6
+
+
+@dataclass
+class _EdgeModel:
+    """A local linear model weighted to one edge: rows ``[1, (x − x_e)/s]``,
+    Gaussian kernel weights; ``A`` is the inverse information matrix."""
+
+    name: str
+    where: str
+    centre: np.ndarray
+    scale: np.ndarray
+    bandwidth: float
+    A: np.ndarray = field(default=None, repr=False)
+    v0: float = math.nan
+
+    def rows(self, X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        u = (np.atleast_2d(X) - self.centre) / self.scale
+        w = np.exp(-0.5 * np.sum(u ** 2, axis=1) / self.bandwidth ** 2)  # Gaussian kernel
+        return np.column_stack([np.ones(len(u)), u]), w
+
+    def start(self, X: np.ndarray) -> None:
+        Z, w = self.rows(X)
+        M = (Z * w[:, None]).T @ Z + RIDGE * np.eye(Z.shape[1])
+        self.A = np.linalg.inv(M)
+        self.v0 = float(self.A[0, 0])  # variance of the fitted value at the edge, up to σ² (Fan & Gijbels 1996)
+
+    def gains(self, X: np.ndarray) -> np.ndarray:
+        """Reduction of [M⁻¹]₀₀ by adding each row of X alone (Sherman & Morrison 1950)."""
+        Z, w = self.rows(X)
+        AZ = Z @ self.A  # A is symmetric
+        return w * AZ[:, 0] ** 2 / (1.0 + w * np.sum(AZ * Z, axis=1))
+
+    def add(self, x: np.ndarray) -> None:
+        Z, w = self.rows(x)
+        z = Z[0]
+        Az = self.A @ z
+        self.A = self.A - w[0] * np.outer(Az, Az) / (1.0 + w[0] * z @ Az)
+
+    @property
+    def relative(self) -> float:
+        return float(self.A[0, 0] / self.v0)
+
+
+def _ribbon_stage(lean):
+    stage = next((s for s in lean.stages if POROSITY in s.targets), None)
+    if stage is None:
+        raise UsageError("the model has no stage predicting ribbon_porosity from settings; nothing to plan against")
+    return stage
+
+
+def _edges_of(window) -> tuple[list[tuple[str, float]], list[tuple[str, float]], list[str]]:
+    """Porosity edges and roll force edges to plan for, and notes."""
+    notes = []
+    lo, hi = window.low.value, window.high.value
+    kind = "lower bound's window" if window.p_all_low is not None else "point estimate's window"
+    if lo is None and window.point_low is not None:
+        lo, hi, kind = window.point_low, window.point_high, "point estimate's window"
+        notes.append("the lower bound reaches the confidence nowhere; planned for the point estimate's window")
+    por = []
+    if lo is None:
+        i = int(np.argmax(window.p_all))
+        por = [("highest P(all pass)", float(window.grid[i]))]
+        notes.append("no porosity reaches the confidence; planned for the porosity where P(all pass) is highest "
+                     f"({window.grid[i]:.3f})")
+    else:
+        if window.low.limited_by != "data range":
+            por.append((f"low porosity edge of the {kind} (limited by {window.low.limited_by})", float(lo)))
+        if window.high.limited_by != "data range":
+            por.append((f"high porosity edge of the {kind} (limited by {window.high.limited_by})", float(hi)))
+        if not por:
+            notes.append("both window edges are the ends of the training range; planned for those ends")
+            por = [("low end of the training porosity range", float(lo)),
+                   ("high end of the training porosity range", float(hi))]
+    rf = window.roll_force or {}
+    f_lo = rf.get("low") if rf.get("low") is not None else rf.get("point_low")
+    f_hi = rf.get("high") if rf.get("high") is not None else rf.get("point_high")
+    force = []
+    data = rf.get("data_range") or [None, None]
+    for name, v, end in (("low roll force edge", f_lo, data[0]), ("high roll force edge", f_hi, data[1])):
+        if v is not None and (end is None or abs(v - end) > 1e-9):
+            force.append((name, float(v)))
+    return por, force, notes
+
+
+def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tuple[float, float]] | None = None,
+                   settings: dict[str, float] | None = None, confidence: float = 0.9, assurance: float = 0.9,
+                   seed: int = 0, n_candidates: int = 2048, prefix: str = "PLAN", window=None,
+                   product: str | None = None) -> Plan:
+    """The next ``n_lots`` lots that most lower the variance of the models at
+    the window's edges (see the module notes).
+
+    Parameters
+    ----------
+    chain : the fitted chain (:class:`linkage.models.fitted.FittedChain`).
+    table : the assembled table of the lots it was trained on (one row per lot).
+    spec : the :class:`linkage.spec.Spec` the window is judged against.
+    ranges : name -> (low, high) for the ribbon stage's settings; a setting
+        not named runs over its training range.
+    settings : held values (``--set``) of the settings outside the ribbon
+        stage; the rest are held at the training median, as ``linkage window``
+        holds them.
+    window : a :class:`linkage.decide.window.WindowResult` already found at
+        these settings (found here when None).
+    """
+    from scipy.stats import qmc
+
+    from linkage.decide.window import find_window
+    from linkage.models.lean import as_lean
+
+    n = int(n_lots)
+    if n < 1:
+        raise UsageError(f"--lots must be at least 1; got {n_lots}")
+    lean = as_lean(chain)
+    stage = _ribbon_stage(lean)
+    target = stage.targets[POROSITY]
+    inputs = list(stage.inputs)
+    ranges = dict(ranges or {})
+    settings = dict(settings or {})
+    wrong = [k for k in ranges if k not in inputs]
+    if wrong:
+        raise UsageError(f"--range {', '.join(wrong)}: a plan varies only the ribbon stage's settings "
+                         f"({', '.join(inputs)}); hold the others with --set NAME=VALUE")
+    both = [k for k in ranges if k in settings]
+    if both:
+        raise UsageError(f"{', '.join(both)} given both a --range and a --set value; give one")
+    if window is None:
+        window = find_window(chain, spec, settings=settings, confidence=confidence, seed=seed, assurance=assurance)
+    training = chain.training["ranges"]
+    full = {k: tuple(float(v) for v in (ranges.get(k) or training[k])) for k in inputs if k not in settings}
+    held_ribbon = {k: float(settings[k]) for k in inputs if k in settings}
+    held = {**held_ribbon, **{k: v["value"] for k, v in window.settings.items()
+                              if k not in inputs and k not in lean.targets}}
+
+    # candidates: a scrambled Sobol' set over the ranges (seeded)
+    names = list(full)
+    lo = np.array([full[k][0] for k in names])
+    hi = np.array([full[k][1] for k in names])
+    m = int(2 ** math.ceil(math.log2(max(n_candidates, 16))))
+    unit = qmc.Sobol(len(names), scramble=True, seed=seed).random(m)
+    cand = {k: lo[j] + unit[:, j] * (hi[j] - lo[j]) for j, k in enumerate(names)}
+    cand.update({k: np.full(m, v) for k, v in held_ribbon.items()})
+    Xc = np.column_stack([cand[k] for k in inputs])
+    eps_c = target.predict(cand)
+    notes = []
+    verdicts = stage.domain.check(cand) if stage.domain is not None else [{"in_domain": None, "reasons": []}] * m
+    inside = np.array([bool(v["in_domain"]) for v in verdicts])
+    pool = np.flatnonzero(inside)
+    if stage.domain is not None and len(pool) < max(4 * n, 32):
+        notes.append(f"only {len(pool)} of {m} candidate settings lie inside the ribbon stage's applicability "
+                     "domain; candidates outside it were kept (each lot says where it is)")
+        pool = np.arange(m)
+    elif stage.domain is not None:
+        notes.append(f"candidates: {len(pool)} of {m} settings inside the ribbon stage's applicability domain")
+
+    # the edges and their local linear models, started on the existing lots
+    por_edges, force_edges, edge_notes = _edges_of(window)
+    notes += edge_notes
+    known = table.dropna(subset=[POROSITY, *inputs])
+    p_lo, p_hi = (float(v) for v in training[POROSITY])
+    models: list[tuple[_EdgeModel, str]] = []
+    for name, e in por_edges:
+        em = _EdgeModel(name, f"ribbon porosity {e:.3f}", np.array([e]), np.array([1.0]),
+                        POROSITY_BANDWIDTH_SHARE * (p_hi - p_lo))
+        em.start(known[[POROSITY]].to_numpy(float))
+        models.append((em, "porosity"))
+    X_known = known[inputs].to_numpy(float)
+    sd = np.where(X_known.std(axis=0, ddof=1) > 0, X_known.std(axis=0, ddof=1), 1.0) if len(X_known) > 1 \
+        else np.ones(len(inputs))
+    held_force = {k: v["value"] for k, v in (window.roll_force.get("held_chain") or {}).items()}
+    for name, f in force_edges:
+        centre = np.array([f if k == FORCE else held_force.get(k, lean.medians.get(k, np.nan)) for k in inputs])
+        em = _EdgeModel(name, f"roll force {f:.2f} kN/cm (ribbon stage)", centre, sd, SETTINGS_BANDWIDTH_SD)
+        em.start(X_known)
+        models.append((em, "settings"))
+    if not models:
+        raise UsageError("the window has no edge to plan for")
+
+    def features(idx):
+        return {"porosity": eps_c[idx][:, None], "settings": Xc[idx]}
+
+    chosen: list[tuple[int, str]] = []
+    available = np.ones(m, dtype=bool)
+    for _ in range(n):
+        idx = pool[available[pool]]
+        if not len(idx):
+            break
+        f = features(idx)
+        rel = np.vstack([em.gains(f[kind]) / em.v0 for em, kind in models])  # edges × candidates
+        k = int(np.argmax(rel.sum(axis=0)))
+        c = int(idx[k])
+        top = models[int(np.argmax(rel[:, k]))][0].name
+        for em, kind in models:
+            em.add(features(np.array([c]))[kind])
+        available[c] = False
+        chosen.append((c, top))
+
+    order = np.random.default_rng([seed, 2]).permutation(len(chosen))  # the run order, randomised
+    ids = _lot_ids(prefix, len(chosen), taken=table["lot"].astype(str).tolist() if "lot" in table else ())
+    lots = []
+    for run, i in enumerate(order):
+        c, top = chosen[i]
+        v = verdicts[c]
+        lots.append(PlannedLot(
+            lot=ids[run], run=run + 1,
+            settings={**{k: float(np.round(cand[k][c], DECIMALS)) for k in inputs}, **held},
+            reason=f"informs the {top}; predicted ribbon porosity {eps_c[c]:.3f}"
+                   + ("" if v["in_domain"] in (None, True) else "; outside the ribbon stage's domain"),
+            informs=top, predicted_porosity=float(eps_c[c]), in_domain=v["in_domain"],
+            domain_reasons=list(v.get("reasons") or [])))
+    edges = [{"name": em.name, "kind": kind, "where": em.where, "relative_variance": em.relative}
+             for em, kind in models]
+    criterion = {"before": float(len(models)), "after": float(sum(em.relative for em, _ in models)),
+                 "rule": "sum over the edges of each edge's variance of the local linear fit relative to the "
+                         "existing lots alone"}
+    return Plan(kind="augment", method="I-optimal augmentation of local linear models weighted to the window's "
+                "edges (greedy)", seed=seed, ranges=full, held=held, lots=lots, product=product,
+                model_id=getattr(chain, "model_id", None) or "unsaved", edges=edges, criterion=criterion,
+                notes=notes)
