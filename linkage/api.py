@@ -346,6 +346,44 @@ def transfer(store=DEFAULT_STORE, *, roll_diameter_mm: float, roll_width_mm: flo
                    "product": product, "seed": seed},
            outputs={k: v for k, v in result.to_dict().items() if k in ("targets", "model")})
     return result
+def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None, spec=None, new: bool = False,
+         store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
+         settings: Mapping[str, float] | None = None, confidence: float = 0.9, assurance: float = 0.9,
+         seed: int = 0, prefix: str = "PLAN", product: str | None = None, out=None):
+    """The next lots to make (``linkage plan``; :mod:`linkage.decide.plan`).
+    ``new``: a starting design over ``ranges`` with no lots or model. Else the
+    lots that narrow the window of ``model`` under ``spec`` fastest, over
+    ``ranges`` (default: the training ranges). With ``out`` (a folder), the plan
+    is written there as template tables and ``plan.json``. An augmentation is
+    logged as ``plan`` in the store's audit trail."""
+    from linkage.decide import plan as planning
+
+    settings = {k: float(v) for k, v in (settings or {}).items()}
+    if new:
+        result = planning.start_design(dict(ranges or {}), n_lots, seed=seed, held=settings, prefix=prefix,
+                                       product=product)
+        written = planning.write_plan(result, out) if out is not None else []
+        return planning.Planned(result, written)
+    from linkage.decide.bound import check_assurance
+
+    assurance = check_assurance(assurance)
+    spec = _spec(spec)
+    if spec is None:
+        from linkage.exceptions import UsageError
+
+        raise UsageError("planning the next lots of a campaign needs a spec (--spec); for a new product use --new")
+    chain = _fitted(models_dir, model)
+    table = assemble(store, spec=spec, product=product)
+    result = planning.augment_design(chain, table, spec, n_lots, ranges=dict(ranges or {}), settings=settings,
+                                     confidence=confidence, assurance=assurance, seed=seed, prefix=prefix,
+                                     product=product)
+    written = planning.write_plan(result, out) if out is not None else []
+    recorded = record(store, "plan", model_id=result.model_id,
+                      inputs={"n_lots": n_lots, "ranges": {k: list(v) for k, v in (ranges or {}).items()},
+                              "settings": settings, "confidence": confidence, "assurance": assurance, "seed": seed,
+                              "spec_file": spec.file, "spec_sha256": spec.sha256, "out": None if out is None else str(out)},
+                      outputs={"lots": [lot.to_dict() for lot in result.lots], "edges": result.edges})
+    return planning.Planned(result, written, recorded)
 
 
 def _lean(models_dir, model):

@@ -568,3 +568,44 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
                 "edges (greedy)", seed=seed, ranges=full, held=held, lots=lots, product=product,
                 model_id=getattr(chain, "model_id", None) or "unsaved", edges=edges, criterion=criterion,
                 notes=notes)
+
+
+# ---------------------------------------------------------------------------
+# what the API returns
+# ---------------------------------------------------------------------------
+class Planned:
+    """A plan (``linkage plan``): ``result`` is the :class:`Plan`; ``written``
+    the files written (``process.csv``, maybe ``tablets.csv``, ``plan.json``);
+    ``recorded`` whether the plan went into the store's audit trail."""
+
+    def __init__(self, result: Plan, written: list[Path] | None = None, recorded: bool = False):
+        self.result = result
+        self.written = list(written or [])
+        self.recorded = recorded
+
+    def to_dict(self) -> dict:
+        """What ``linkage plan --json`` prints."""
+        return {**self.result.to_dict(), "written": [str(p) for p in self.written], "recorded": self.recorded}
+
+    def text(self) -> str:
+        out = self.result.text()
+        if self.written:
+            out += "\nWritten: " + ", ".join(str(p) for p in self.written)
+        return out
+
+    def __str__(self) -> str:
+        return self.text()
+
+    def summary(self):
+        """One row per planned lot (index ``lot``): ``run``, the settings,
+        ``informs``, ``predicted_porosity``, ``in_domain``, ``reason``."""
+        import pandas as pd
+
+        rows = [{"lot": lot.lot, "run": lot.run, **lot.settings, "informs": lot.informs,
+                 "predicted_porosity": lot.predicted_porosity, "in_domain": lot.in_domain, "reason": lot.reason}
+                for lot in self.result.lots]
+        return pd.DataFrame(rows).set_index("lot")
+
+    def __repr__(self) -> str:
+        r = self.result
+        return f"<Plan of {len(r.lots)} lots ({r.kind}; {r.method}; seed {r.seed})>"
