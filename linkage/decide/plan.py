@@ -364,6 +364,7 @@ class _EdgeModel:
     bandwidth: float
     A: np.ndarray = field(default=None, repr=False)
     v0: float = math.nan
+    value: float = math.nan  # the edge: a porosity, or a roll force
 
     def rows(self, X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         u = (np.atleast_2d(X) - self.centre) / self.scale
@@ -432,6 +433,34 @@ def _edges_of(window) -> tuple[list[tuple[str, float]], list[tuple[str, float]],
         if v is not None and (end is None or abs(v - end) > 1e-9):
             force.append((name, float(v)))
     return por, force, notes
+
+
+def edge_models(window, table, inputs: list[str], medians: dict, porosity_range) -> tuple[list, list[str]]:
+    """The local linear models weighted to each edge of ``window``, started on
+    the lots of ``table``: a list of (model, ``"porosity"`` or ``"settings"``),
+    and notes."""
+    por_edges, force_edges, notes = _edges_of(window)
+    known = table.dropna(subset=[POROSITY, *inputs])
+    p_lo, p_hi = (float(v) for v in porosity_range)
+    models: list[tuple[_EdgeModel, str]] = []
+    for name, e in por_edges:
+        em = _EdgeModel(name, f"ribbon porosity {e:.3f}", np.array([e]), np.array([1.0]),
+                        POROSITY_BANDWIDTH_SHARE * (p_hi - p_lo), value=e)
+        em.start(known[[POROSITY]].to_numpy(float))
+        models.append((em, "porosity"))
+    X_known = known[inputs].to_numpy(float)
+    sd = np.where(X_known.std(axis=0, ddof=1) > 0, X_known.std(axis=0, ddof=1), 1.0) if len(X_known) > 1 \
+        else np.ones(len(inputs))
+    held_force = {k: v["value"] for k, v in (window.roll_force.get("held_chain") or {}).items()}
+    for name, f in force_edges:
+        centre = np.array([f if k == FORCE else held_force.get(k, medians.get(k, np.nan)) for k in inputs])
+        em = _EdgeModel(name, f"roll force {f:.2f} kN/cm (ribbon stage)", centre, sd, SETTINGS_BANDWIDTH_SD,
+                        value=f)
+        em.start(X_known)
+        models.append((em, "settings"))
+    if not models:
+        raise UsageError("the window has no edge to plan for")
+    return models, notes
 
 
 def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tuple[float, float]] | None = None,
@@ -505,27 +534,8 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
         notes.append(f"candidates: {len(pool)} of {m} settings inside the ribbon stage's applicability domain")
 
     # the edges and their local linear models, started on the existing lots
-    por_edges, force_edges, edge_notes = _edges_of(window)
+    models, edge_notes = edge_models(window, table, inputs, lean.medians, training[POROSITY])
     notes += edge_notes
-    known = table.dropna(subset=[POROSITY, *inputs])
-    p_lo, p_hi = (float(v) for v in training[POROSITY])
-    models: list[tuple[_EdgeModel, str]] = []
-    for name, e in por_edges:
-        em = _EdgeModel(name, f"ribbon porosity {e:.3f}", np.array([e]), np.array([1.0]),
-                        POROSITY_BANDWIDTH_SHARE * (p_hi - p_lo))
-        em.start(known[[POROSITY]].to_numpy(float))
-        models.append((em, "porosity"))
-    X_known = known[inputs].to_numpy(float)
-    sd = np.where(X_known.std(axis=0, ddof=1) > 0, X_known.std(axis=0, ddof=1), 1.0) if len(X_known) > 1 \
-        else np.ones(len(inputs))
-    held_force = {k: v["value"] for k, v in (window.roll_force.get("held_chain") or {}).items()}
-    for name, f in force_edges:
-        centre = np.array([f if k == FORCE else held_force.get(k, lean.medians.get(k, np.nan)) for k in inputs])
-        em = _EdgeModel(name, f"roll force {f:.2f} kN/cm (ribbon stage)", centre, sd, SETTINGS_BANDWIDTH_SD)
-        em.start(X_known)
-        models.append((em, "settings"))
-    if not models:
-        raise UsageError("the window has no edge to plan for")
 
     def features(idx):
         return {"porosity": eps_c[idx][:, None], "settings": Xc[idx]}
@@ -559,7 +569,7 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
                    + ("" if v["in_domain"] in (None, True) else "; outside the ribbon stage's domain"),
             informs=top, predicted_porosity=float(eps_c[c]), in_domain=v["in_domain"],
             domain_reasons=list(v.get("reasons") or [])))
-    edges = [{"name": em.name, "kind": kind, "where": em.where, "relative_variance": em.relative}
+    edges = [{"name": em.name, "kind": kind, "value": em.value, "where": em.where, "relative_variance": em.relative}
              for em, kind in models]
     criterion = {"before": float(len(models)), "after": float(sum(em.relative for em, _ in models)),
                  "rule": "sum over the edges of each edge's variance of the local linear fit relative to the "
