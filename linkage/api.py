@@ -60,7 +60,7 @@ if TYPE_CHECKING:
     from linkage.spec import Spec
 
 __all__ = ["Workspace", "ingest", "assemble", "train", "window", "whatif", "whatif_rows", "report", "watch",
-           "retrain", "audit", "models", "record", "running", "transfer"]
+           "retrain", "audit", "models", "record", "running", "transfer", "plan"]
 
 #: a progress callback: ``progress(label, done, total)``
 Progress = Callable[[str, int, int], None]
@@ -707,3 +707,7 @@ class Workspace:
     def audit(self, **kwargs) -> pd.DataFrame:
         """See :func:`audit`."""
         return audit(self.store, **kwargs)
+
+    def plan(self, n_lots: int, **kwargs):
+        """See :func:`plan`."""
+        return plan(n_lots, store=self.store, models_dir=self.models_dir, **kwargs)
