@@ -470,12 +470,15 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
 
 
 def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", spec=None,
-           confidence: float = 0.9, seed: int = 0, window: Window | None = None, assurance: float = 0.9) -> Path:
+           confidence: float = 0.9, seed: int = 0, window: Window | None = None, assurance: float = 0.9,
+           plan=None) -> Path:
     """Write the self-contained HTML report of ``model`` and its lots to
     ``out`` (default ``reports/report-<model id>.html``) and return the path
     (``linkage report``). The lots are the model's product's when it was
     trained on one. A ``window`` already found is drawn as is; else, with a
-    ``spec``, the window is found at ``confidence``."""
+    ``spec``, the window is found at ``confidence``. A ``plan`` (what
+    :func:`plan` returned, or the path of its ``plan.json``) adds a section
+    with the planned lots."""
     from linkage.assemble import assemble as assemble_table
     from linkage.exceptions import InsufficientDataError, UsageError
     from linkage.report.html import build_report
@@ -489,6 +492,10 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
 
     assurance = check_assurance(assurance)
     spec = _spec(spec)
+    if plan is not None:
+        from linkage.report.plan_section import read_plan
+
+        plan = read_plan(plan)  # a file that is not a plan is refused before any work
     chain = _fitted(models_dir, model)
     check_time_point(chain, spec, "report")
     products = chain.training.get("products") or []
@@ -503,7 +510,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     out = Path(out) if out is not None else Path("reports") / f"report-{chain.model_id}.html"
     found = window.result if isinstance(window, Window) else window
     return Path(build_report(chain, table, spec=spec, window=found, lots=lots, out_path=out,
-                             confidence=confidence, seed=seed, assurance=assurance))
+                             confidence=confidence, seed=seed, assurance=assurance, plan=plan))
 
 
 def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", spec=None,

@@ -235,3 +235,39 @@ def test_augmentation_refuses_clashing_lot_ids_and_ranges_it_cannot_use(campaign
         augment_design(chain, table, spec, 3, prefix="LOT")
     with pytest.raises(UsageError, match="varies only the ribbon stage's settings"):
         augment_design(chain, table, spec, 3, ranges={"compression_force_kn": (8.0, 20.0)})
+
+
+# --------------------------------------------------------------------------- the report's plan section
+def test_report_plan_section_draws_planned_and_training_lots(tmp_path):
+    """The section names every planned lot with its run and reason, draws one
+    figure (planned over training lots, roll force × gap) and escapes what the
+    user typed (the product/lot prefix) as HTML (Python's html.escape)."""
+    import pandas as pd
+
+    from linkage.report.html import _Builder
+    from linkage.report.plan_section import plan_section, read_plan
+
+    plan = start_design(RANGES, 5, seed=2, prefix="<b>N")
+    write_plan(plan, tmp_path)
+    data = read_plan(tmp_path / "plan.json")
+    table = pd.DataFrame({"lot": ["A", "B", "C"], "roll_force_kn_per_cm": [4.0, 8.0, 12.0],
+                          "roll_gap_mm": [2.0, 2.5, 3.0]})
+    b = _Builder()
+    plan_section(b, None, table, data)
+    html_text = "".join(b.parts)
+    assert len(b.figures) == 1 and "roll force" in b.figures[0]
+    assert "&lt;b&gt;N-001" in html_text and "<b>N" not in html_text
+    assert html_text.count("space-filling start") == 5
+
+
+def test_a_file_that_is_not_a_plan_is_refused(tmp_path):
+    from linkage.exceptions import InputError
+    from linkage.report.plan_section import read_plan
+
+    bad = tmp_path / "plan.json"
+    bad.write_text('{"kind": "start"}', encoding="utf-8")
+    with pytest.raises(InputError, match="plan.json: not a plan written by 'linkage plan'"):
+        read_plan(bad)
+    bad.write_text("not json", encoding="utf-8")
+    with pytest.raises(InputError, match="not JSON"):
+        read_plan(bad)
