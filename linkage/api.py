@@ -349,11 +349,12 @@ def transfer(store=DEFAULT_STORE, *, roll_diameter_mm: float, roll_width_mm: flo
 def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None, spec=None, new: bool = False,
          store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
          settings: Mapping[str, float] | None = None, confidence: float = 0.9, assurance: float = 0.9,
-         seed: int = 0, prefix: str = "PLAN", product: str | None = None, out=None):
+         seed: int = 0, prefix: str = "PLAN", product: str | None = None, out=None, edges: str = "all"):
     """The next lots to make (``linkage plan``; :mod:`linkage.decide.plan`).
     ``new``: a starting design over ``ranges`` with no lots or model. Else the
     lots that narrow the window of ``model`` under ``spec`` fastest, over
-    ``ranges`` (default: the training ranges). With ``out`` (a folder), the plan
+    ``ranges`` (default: the training ranges), at its ``edges`` (``"all"`` or
+    ``"porosity"``). With ``out`` (a folder), the plan
     is written there as template tables and ``plan.json``. An augmentation is
     logged as ``plan`` in the store's audit trail."""
     from linkage.decide import plan as planning
@@ -376,11 +377,11 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
     table = assemble(store, spec=spec, product=product)
     result = planning.augment_design(chain, table, spec, n_lots, ranges=dict(ranges or {}), settings=settings,
                                      confidence=confidence, assurance=assurance, seed=seed, prefix=prefix,
-                                     product=product)
+                                     product=product, edges=edges)
     written = planning.write_plan(result, out) if out is not None else []
     recorded = record(store, "plan", model_id=result.model_id,
                       inputs={"n_lots": n_lots, "ranges": {k: list(v) for k, v in (ranges or {}).items()},
-                              "settings": settings, "confidence": confidence, "assurance": assurance, "seed": seed,
+                              "settings": settings, "confidence": confidence, "assurance": assurance, "seed": seed, "edges": edges,
                               "spec_file": spec.file, "spec_sha256": spec.sha256, "out": None if out is None else str(out)},
                       outputs={"lots": [lot.to_dict() for lot in result.lots], "edges": result.edges})
     return planning.Planned(result, written, recorded)

@@ -30,6 +30,9 @@ from linkage.jsonable import jsonable
               help="Confidence of the window whose edges the plan narrows.")
 @click.option("--assurance", default=0.9, show_default=True, type=PROBABILITY,
               help="Assurance of the lower bound the window rests on.")
+@click.option("--edges", type=click.Choice(["all", "porosity"]), default="all", show_default=True,
+              help="Which window edges the next lots narrow: the porosity edges and the roll force edges (all), or "
+                   "the porosity edges only.")
 @click.option("--prefix", default="PLAN", show_default=True, help="Planned lot ids are PREFIX-001, PREFIX-002, ...")
 @click.option("--product", default=None, help="Product name written in the process table (and the lots planned "
               "from, without --new).")
@@ -41,8 +44,8 @@ from linkage.jsonable import jsonable
 @store_option
 @json_option
 @handle_errors
-def plan(n_lots, range_texts, new, spec_path, model_id, assignments, confidence, assurance, prefix, product, out,
-         seed, models_dir, store, as_json):
+def plan(n_lots, range_texts, new, spec_path, model_id, assignments, confidence, assurance, edges, prefix, product,
+         out, seed, models_dir, store, as_json):
     """Plan the next lots: the settings that narrow the ribbon porosity
     window's edges fastest, or a starting design for a new product.
 
@@ -70,7 +73,7 @@ def plan(n_lots, range_texts, new, spec_path, model_id, assignments, confidence,
         spec = read_spec(spec_path)
     result = make_plan(n_lots, ranges=ranges, spec=spec, new=new, store=store, models_dir=models_dir,
                        model=model_id, settings=settings, confidence=confidence, assurance=assurance, seed=seed,
-                       prefix=prefix, product=product, out=out)
+                       prefix=prefix, product=product, out=out, edges=edges)
     if as_json:
         click.echo(json.dumps(jsonable(result.to_dict()), indent=2, allow_nan=False))
         return

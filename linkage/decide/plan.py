@@ -435,11 +435,14 @@ def _edges_of(window) -> tuple[list[tuple[str, float]], list[tuple[str, float]],
     return por, force, notes
 
 
-def edge_models(window, table, inputs: list[str], medians: dict, porosity_range) -> tuple[list, list[str]]:
+def edge_models(window, table, inputs: list[str], medians: dict, porosity_range,
+                edges: str = "all") -> tuple[list, list[str]]:
     """The local linear models weighted to each edge of ``window``, started on
     the lots of ``table``: a list of (model, ``"porosity"`` or ``"settings"``),
-    and notes."""
+    and notes. ``edges="porosity"`` leaves out the roll force edges."""
     por_edges, force_edges, notes = _edges_of(window)
+    if edges == "porosity":
+        force_edges = []
     known = table.dropna(subset=[POROSITY, *inputs])
     p_lo, p_hi = (float(v) for v in porosity_range)
     models: list[tuple[_EdgeModel, str]] = []
@@ -466,7 +469,7 @@ def edge_models(window, table, inputs: list[str], medians: dict, porosity_range)
 def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tuple[float, float]] | None = None,
                    settings: dict[str, float] | None = None, confidence: float = 0.9, assurance: float = 0.9,
                    seed: int = 0, n_candidates: int = 2048, prefix: str = "PLAN", window=None,
-                   product: str | None = None) -> Plan:
+                   product: str | None = None, edges: str = "all") -> Plan:
     """The next ``n_lots`` lots that most lower the variance of the models at
     the window's edges (see the module notes).
 
@@ -482,6 +485,8 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
         holds them.
     window : a :class:`linkage.decide.window.WindowResult` already found at
         these settings (found here when None).
+    edges : ``"all"`` (the porosity edges and the whole-chain roll force
+        edges) or ``"porosity"`` (the porosity edges only).
     """
     from scipy.stats import qmc
 
@@ -491,6 +496,8 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
     n = int(n_lots)
     if n < 1:
         raise UsageError(f"--lots must be at least 1; got {n_lots}")
+    if edges not in ("all", "porosity"):
+        raise UsageError(f"edges must be 'all' or 'porosity'; got {edges!r}")
     lean = as_lean(chain)
     stage = _ribbon_stage(lean)
     target = stage.targets[POROSITY]
@@ -534,7 +541,7 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
         notes.append(f"candidates: {len(pool)} of {m} settings inside the ribbon stage's applicability domain")
 
     # the edges and their local linear models, started on the existing lots
-    models, edge_notes = edge_models(window, table, inputs, lean.medians, training[POROSITY])
+    models, edge_notes = edge_models(window, table, inputs, lean.medians, training[POROSITY], edges)
     notes += edge_notes
 
     def features(idx):
