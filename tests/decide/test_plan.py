@@ -271,3 +271,14 @@ def test_a_file_that_is_not_a_plan_is_refused(tmp_path):
     bad.write_text("not json", encoding="utf-8")
     with pytest.raises(InputError, match="not JSON"):
         read_plan(bad)
+
+
+def test_cli_augmentation_needs_a_spec_and_new_takes_none(tmp_path):
+    """Usage mistakes exit 2 before any store or model is read."""
+    runner = CliRunner()
+    res = runner.invoke(cli, ["plan", "--lots", "8", "--store", str(tmp_path / "none.db")])
+    assert res.exit_code == 2 and "needs a spec" in res.output
+    spec = tmp_path / "spec.toml"
+    spec.write_text("[dissolution_pct]\nmin = 80\n", encoding="utf-8")
+    res = runner.invoke(cli, ["plan", "--new", "--lots", "8", "--range", "roll_gap_mm=1:3", "--spec", str(spec)])
+    assert res.exit_code == 2 and "--new plans with no lots" in res.output
