@@ -230,8 +230,10 @@ class Plan:
         if self.held:
             lines.append("Held: " + ", ".join(f"{k} = {v:g}" for k, v in self.held.items()))
         names = list(self.ranges)
-        head = ["run", "lot", *names]
-        rows = [[str(lot.run), lot.lot, *(f"{lot.settings[n]:g}" for n in names)] for lot in self.lots]
+        domain = {True: "inside", False: "OUTSIDE", None: "-"}
+        head = ["run", "lot", *names, "domain"]
+        rows = [[str(lot.run), lot.lot, *(f"{lot.settings[n]:g}" for n in names), domain[lot.in_domain]]
+                for lot in self.lots]
         widths = [max(len(h), *(len(r[i]) for r in rows)) for i, h in enumerate(head)]
         lines.append("  ".join(h.ljust(w) for h, w in zip(head, widths)))
         for lot, r in zip(self.lots, rows):
@@ -466,6 +468,28 @@ def edge_models(window, table, inputs: list[str], medians: dict, porosity_range,
     return models, notes
 
 
+def chain_domain(lean, rows: list[dict]) -> list[tuple[bool | None, list[str]]]:
+    """Each row of settings checked against every stage's applicability
+    domain along the chain of mean predictions (as ``linkage window`` checks
+    its points): (inside every domain, the reasons, each with its stage)."""
+    from linkage.decide.propagate import fill_settings, simulate
+
+    if not rows:
+        return []
+    filled = [fill_settings(lean, r)[0] for r in rows]
+    names = sorted({k for r in filled for k in r})
+    means = simulate(lean, {k: np.array([r[k] for r in filled], float) for k in names}, n_draws=1, seed=0).means
+    inside = [None] * len(rows)
+    reasons: list[list[str]] = [[] for _ in rows]
+    for stage in lean.stages:
+        if stage.domain is None:
+            continue
+        for i, v in enumerate(stage.domain.check({c: means[c] for c in stage.inputs})):
+            inside[i] = bool(v["in_domain"]) and inside[i] is not False
+            reasons[i] += [f"{stage.name} stage: {r}" for r in v["reasons"]]
+    return list(zip(inside, reasons))
+
+
 def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tuple[float, float]] | None = None,
                    settings: dict[str, float] | None = None, confidence: float = 0.9, assurance: float = 0.9,
                    seed: int = 0, n_candidates: int = 2048, prefix: str = "PLAN", window=None,
@@ -565,17 +589,16 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
 
     order = np.random.default_rng([seed, 2]).permutation(len(chosen))  # the run order, randomised
     ids = _lot_ids(prefix, len(chosen), taken=table["lot"].astype(str).tolist() if "lot" in table else ())
+    picked = [chosen[i] for i in order]
+    planned = [{**{k: float(np.round(cand[k][c], DECIMALS)) for k in inputs}, **held} for c, _ in picked]
+    verdicts = chain_domain(lean, planned)
     lots = []
-    for run, i in enumerate(order):
-        c, top = chosen[i]
-        v = verdicts[c]
+    for run, ((c, top), values, (inside_all, reasons)) in enumerate(zip(picked, planned, verdicts)):
         lots.append(PlannedLot(
-            lot=ids[run], run=run + 1,
-            settings={**{k: float(np.round(cand[k][c], DECIMALS)) for k in inputs}, **held},
+            lot=ids[run], run=run + 1, settings=values,
             reason=f"informs the {top}; predicted ribbon porosity {eps_c[c]:.3f}"
-                   + ("" if v["in_domain"] in (None, True) else "; outside the ribbon stage's domain"),
-            informs=top, predicted_porosity=float(eps_c[c]), in_domain=v["in_domain"],
-            domain_reasons=list(v.get("reasons") or [])))
+                   + ("" if inside_all in (None, True) else "; outside the applicability domain"),
+            informs=top, predicted_porosity=float(eps_c[c]), in_domain=inside_all, domain_reasons=reasons))
     edges = [{"name": em.name, "kind": kind, "value": em.value, "where": em.where, "relative_variance": em.relative}
              for em, kind in models]
     criterion = {"before": float(len(models)), "after": float(sum(em.relative for em, _ in models)),

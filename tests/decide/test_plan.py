@@ -196,7 +196,7 @@ def test_augmentation_proposes_lots_inside_the_ranges_at_the_edges(campaign):
         assert 5.0 <= lot.settings["roll_force_kn_per_cm"] <= 12.0
         assert lot.settings["mill_screen_mm"] == 1.0 and lot.settings["compression_force_kn"] == 14.0
         assert lot.informs in edges and lot.informs in lot.reason
-        assert isinstance(lot.in_domain, bool)
+        assert isinstance(lot.in_domain, bool) and all(" stage: " in r for r in lot.domain_reasons)
     assert all(e["relative_variance"] < 1.0 for e in plan.edges)
     again = augment_design(chain, table, spec, 8, ranges=ranges, settings=held, seed=4, window=window)
     assert again.to_dict() == plan.to_dict()
