@@ -349,9 +349,11 @@ def transfer(store=DEFAULT_STORE, *, roll_diameter_mm: float, roll_width_mm: flo
 def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None, spec=None, new: bool = False,
          store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
          settings: Mapping[str, float] | None = None, confidence: float = 0.9, assurance: float = 0.9,
-         seed: int = 0, prefix: str = "PLAN", product: str | None = None, out=None, edges: str = "all"):
+         seed: int = 0, prefix: str = "PLAN", product: str | None = None, out=None, edges: str = "all",
+         design: str = "maximin"):
     """The next lots to make (``linkage plan``; :mod:`linkage.decide.plan`).
-    ``new``: a starting design over ``ranges`` with no lots or model. Else the
+    ``new``: a starting design over ``ranges`` with no lots or model
+    (``design``: ``"maximin"`` or ``"factorial"``). Else the
     lots that narrow the window of ``model`` under ``spec`` fastest, over
     ``ranges`` (default: the training ranges), at its ``edges`` (``"all"`` or
     ``"porosity"``). With ``out`` (a folder), the plan
@@ -362,7 +364,7 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
     settings = {k: float(v) for k, v in (settings or {}).items()}
     if new:
         result = planning.start_design(dict(ranges or {}), n_lots, seed=seed, held=settings, prefix=prefix,
-                                       product=product)
+                                       product=product, design=design)
         written = planning.write_plan(result, out) if out is not None else []
         return planning.Planned(result, written)
     from linkage.decide.bound import check_assurance

@@ -20,6 +20,9 @@ from linkage.jsonable import jsonable
                    "range).")
 @click.option("--new", is_flag=True, help="A new product with no lots: a space-filling starting design over the "
               "--range settings (maximin Latin hypercube, run order randomised).")
+@click.option("--design", type=click.Choice(["maximin", "factorial"]), default="maximin", show_default=True,
+              help="With --new: a maximin Latin hypercube, or a two-level full or fractional factorial at the ends of "
+                   "the ranges with the other lots at the centre (2 to 7 settings).")
 @click.option("--spec", "spec_path", type=click.Path(exists=True, dir_okay=False, path_type=Path),
               help="Specification file (spec.toml); needed without --new.")
 @click.option("--model", "model_id", default="latest", show_default=True,
@@ -44,7 +47,7 @@ from linkage.jsonable import jsonable
 @store_option
 @json_option
 @handle_errors
-def plan(n_lots, range_texts, new, spec_path, model_id, assignments, confidence, assurance, edges, prefix, product,
+def plan(n_lots, range_texts, new, design, spec_path, model_id, assignments, confidence, assurance, edges, prefix, product,
          out, seed, models_dir, store, as_json):
     """Plan the next lots: the settings that narrow the ribbon porosity
     window's edges fastest, or a starting design for a new product.
@@ -64,6 +67,8 @@ def plan(n_lots, range_texts, new, spec_path, model_id, assignments, confidence,
         check_output(out, folder=True)
     ranges = parse_ranges(range_texts)
     settings = parse_assignments(list(assignments))
+    if design != "maximin" and not new:
+        raise UsageError("--design chooses a new product's starting design; it goes with --new")
     if new and spec_path is not None:
         raise UsageError("--new plans with no lots and no model; --spec is for planning a campaign's next lots")
     spec = None
@@ -73,7 +78,8 @@ def plan(n_lots, range_texts, new, spec_path, model_id, assignments, confidence,
         spec = read_spec(spec_path)
     result = make_plan(n_lots, ranges=ranges, spec=spec, new=new, store=store, models_dir=models_dir,
                        model=model_id, settings=settings, confidence=confidence, assurance=assurance, seed=seed,
-                       prefix=prefix, product=product, out=out, edges=edges)
+                       prefix=prefix, product=product, out=out, edges=edges,
+                       design=design)
     if as_json:
         click.echo(json.dumps(jsonable(result.to_dict()), indent=2, allow_nan=False))
         return

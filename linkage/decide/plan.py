@@ -231,9 +231,10 @@ class Plan:
             lines.append("Held: " + ", ".join(f"{k} = {v:g}" for k, v in self.held.items()))
         names = list(self.ranges)
         domain = {True: "inside", False: "OUTSIDE", None: "-"}
-        head = ["run", "lot", *names, "domain"]
-        rows = [[str(lot.run), lot.lot, *(f"{lot.settings[n]:g}" for n in names), domain[lot.in_domain]]
-                for lot in self.lots]
+        judged = self.kind == "augment"
+        head = ["run", "lot", *names, *(["domain"] if judged else [])]
+        rows = [[str(lot.run), lot.lot, *(f"{lot.settings[n]:g}" for n in names),
+                 *([domain[lot.in_domain]] if judged else [])] for lot in self.lots]
         widths = [max(len(h), *(len(r[i]) for r in rows)) for i, h in enumerate(head)]
         lines.append("  ".join(h.ljust(w) for h, w in zip(head, widths)))
         for lot, r in zip(self.lots, rows):
@@ -295,29 +296,110 @@ def maximin_lhs(n: int, d: int, *, seed: int = 0, restarts: int = 50, sweeps: in
     return levels[best]
 
 
+#: generators of two-level fractional factorials of the highest resolution, by (factors k, runs 2^(k-p)):
+#: each added factor (the letters after the basic ones) is the product of the basic factors named.
+#: Montgomery, Design and Analysis of Experiments, table of selected 2^(k-p) designs (Table 8.14 in the
+#: 8th edition), and Box, Hunter & Hunter 2005, Statistics for Experimenters, 2nd ed., Table 6.22; from
+#: memory. tests/decide/test_plan.py derives each design's resolution from its columns.
+FACTORIAL_GENERATORS: dict[tuple[int, int], tuple[str, ...]] = {
+    (3, 4): ("AB",),
+    (4, 8): ("ABC",),
+    (5, 16): ("ABCD",),
+    (5, 8): ("AB", "AC"),
+    (6, 32): ("ABCDE",),
+    (6, 16): ("ABC", "BCD"),
+    (6, 8): ("AB", "AC", "BC"),
+    (7, 64): ("ABCDEF",),
+    (7, 32): ("ABCD", "ABDE"),
+    (7, 16): ("ABC", "BCD", "ACD"),
+    (7, 8): ("AB", "AC", "BC", "ABC"),
+}
+#: resolution of each design above (the length of the shortest word of its defining relation)
+FACTORIAL_RESOLUTION = {(3, 4): 3, (4, 8): 4, (5, 16): 5, (5, 8): 3, (6, 32): 6, (6, 16): 4, (6, 8): 3,
+                        (7, 64): 7, (7, 32): 4, (7, 16): 4, (7, 8): 3}
+DESIGNS = ("maximin", "factorial")
+
+
+def two_level_factorial(k: int, runs: int) -> np.ndarray:
+    """The ``runs`` × ``k`` matrix of ±1 of the full factorial (``runs`` = 2^k,
+    standard order) or of the fractional factorial of
+    :data:`FACTORIAL_GENERATORS`."""
+    if runs == 2 ** k:
+        q, generators = k, ()
+    elif (k, runs) in FACTORIAL_GENERATORS:
+        q, generators = int(round(math.log2(runs))), FACTORIAL_GENERATORS[(k, runs)]
+    else:
+        raise UsageError(f"no two-level design of {runs} runs for {k} settings is kept; sizes: "
+                         + ", ".join(f"{r}" for (kk, r) in FACTORIAL_GENERATORS if kk == k) + f" or {2 ** k}")
+    # basic factors in standard order: A alternates fastest (Box, Hunter & Hunter 2005, ch. 5)
+    base = np.array([[1 if (i >> j) & 1 else -1 for j in range(q)] for i in range(runs)], dtype=int)
+    cols = [base[:, j] for j in range(q)]
+    for word in generators:
+        cols.append(np.prod([base[:, ord(ch) - ord("A")] for ch in word], axis=0))
+    return np.column_stack(cols)
+
+
+def factorial_size(k: int, n_lots: int) -> tuple[int, int]:
+    """(runs of the two-level part, its resolution) for ``k`` settings and
+    ``n_lots`` lots: the largest full or fractional factorial of resolution
+    at least III that leaves at least one lot for the centre point."""
+    sizes = [(2 ** k, math.inf)] + [(r, FACTORIAL_RESOLUTION[(kk, r)]) for (kk, r) in FACTORIAL_GENERATORS if kk == k]
+    fits = [(r, res) for r, res in sizes if r <= n_lots - 1]
+    if not fits:
+        least = min(r for r, _ in sizes) + 1
+        raise UsageError(f"a two-level design of {k} settings with a centre point needs at least {least} lots; "
+                         f"--lots is {n_lots} (use the default maximin design, or more lots)")
+    return max(fits)
+
+
 def start_design(ranges: dict[str, tuple[float, float]], n_lots: int, *, seed: int = 0,
-                 held: dict[str, float] | None = None, prefix: str = "PLAN", product: str | None = None) -> Plan:
-    """A starting design of ``n_lots`` lots over ``ranges`` (name -> (low, high)):
-    a maximin Latin hypercube, run order randomised, all seeded."""
+                 held: dict[str, float] | None = None, prefix: str = "PLAN", product: str | None = None,
+                 design: str = "maximin") -> Plan:
+    """A starting design of ``n_lots`` lots over ``ranges`` (name -> (low, high)),
+    run order randomised, all seeded. ``design``: ``"maximin"`` (a maximin
+    Latin hypercube; the default) or ``"factorial"`` (a two-level full or
+    fractional factorial at the ends of the ranges, the rest of the lots at
+    the centre: 2 to 7 settings)."""
     if not ranges:
         raise UsageError("a new-product design needs at least one --range NAME=LOW:HIGH")
+    if design not in DESIGNS:
+        raise UsageError(f"--design must be one of {', '.join(DESIGNS)}; got {design!r}")
     n = int(n_lots)
     if n < 2:
         raise UsageError(f"--lots must be at least 2 for a design; got {n_lots}")
     names = list(ranges)
-    unit = maximin_lhs(n, len(names), seed=seed)
+    k = len(names)
+    notes: list[str] = []
+    if design == "factorial":
+        if not 2 <= k <= 7:
+            raise UsageError(f"a two-level factorial start takes 2 to 7 settings; {k} given")
+        runs, resolution = factorial_size(k, n)
+        corners = (two_level_factorial(k, runs) + 1) / 2.0
+        unit = np.vstack([corners, np.full((n - runs, k), 0.5)])
+        kinds = ["corner"] * runs + ["centre point"] * (n - runs)
+        method = (f"two-level {'full' if runs == 2 ** k else 'fractional'} factorial, {runs} runs"
+                  + ("" if runs == 2 ** k else f" (resolution {resolution})") + f", {n - runs} centre points")
+        if runs < 2 ** k:
+            notes.append("generators: " + ", ".join(f"{chr(ord('A') + int(round(math.log2(runs))) + i)} = {w}"
+                                                    for i, w in enumerate(FACTORIAL_GENERATORS[(k, runs)]))
+                         + "; settings lettered A, B, ... in the order given")
+    else:
+        unit = maximin_lhs(n, k, seed=seed)
+        kinds = ["space-filling start (maximin Latin hypercube)"] * n
+        method = "maximin Latin hypercube"
     order = np.random.default_rng([seed, 1]).permutation(n)  # the run order, randomised
     unit = unit[order]
-    lo = np.array([ranges[k][0] for k in names])
-    hi = np.array([ranges[k][1] for k in names])
+    kinds = [kinds[i] for i in order]
+    lo = np.array([ranges[key][0] for key in names])
+    hi = np.array([ranges[key][1] for key in names])
     values = np.round(lo + unit * (hi - lo), DECIMALS)
     ids = _lot_ids(prefix, n)
     held = dict(held or {})
-    lots = [PlannedLot(lot=ids[i], run=i + 1, settings={**{k: float(values[i, j]) for j, k in enumerate(names)},
+    lots = [PlannedLot(lot=ids[i], run=i + 1, settings={**{key: float(values[i, j]) for j, key in enumerate(names)},
                                                           **held},
-                       reason="space-filling start (maximin Latin hypercube)") for i in range(n)]
-    return Plan(kind="start", method="maximin Latin hypercube", seed=seed, ranges=dict(ranges), held=held,
-                lots=lots, product=product, min_distance=min_distance(unit))
+                       reason=kinds[i] if design == "maximin" else f"factorial {kinds[i]}") for i in range(n)]
+    return Plan(kind="start", method=method, seed=seed, ranges=dict(ranges), held=held, lots=lots, product=product,
+                min_distance=min_distance(unit) if design == "maximin" else None, notes=notes)
 
 
 # ---------------------------------------------------------------------------

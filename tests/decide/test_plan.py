@@ -4,6 +4,7 @@ plan, and the augmentation criterion."""
 from __future__ import annotations
 
 import itertools
+import math
 import json
 
 import numpy as np
@@ -282,3 +283,57 @@ def test_cli_augmentation_needs_a_spec_and_new_takes_none(tmp_path):
     spec.write_text("[dissolution_pct]\nmin = 80\n", encoding="utf-8")
     res = runner.invoke(cli, ["plan", "--new", "--lots", "8", "--range", "roll_gap_mm=1:3", "--spec", str(spec)])
     assert res.exit_code == 2 and "--new plans with no lots" in res.output
+
+
+# --------------------------------------------------------------------------- the factorial start
+def _resolution_from_columns(X: np.ndarray) -> float:
+    """The length of the shortest product of columns that is constant: the
+    shortest word of the defining relation (Box, Hunter & Hunter 2005, §6.4,
+    definition of resolution), found from the design itself."""
+    k = X.shape[1]
+    for length in range(1, k + 1):
+        for cols in itertools.combinations(range(k), length):
+            if len(set(np.prod(X[:, cols], axis=1))) == 1:
+                return length
+    return math.inf
+
+
+@pytest.mark.parametrize("k, runs", [(3, 4), (4, 8), (5, 16), (5, 8), (6, 32), (6, 16), (6, 8), (7, 64), (7, 32),
+                                     (7, 16), (7, 8), (3, 8)])
+def test_fractional_factorials_have_the_resolution_of_the_published_table(k, runs):
+    """Each kept design's resolution, derived from its columns, is the one the
+    table of selected 2^(k-p) designs gives (Montgomery, Design and Analysis
+    of Experiments, Table 8.14; Box, Hunter & Hunter 2005, Table 6.22; from
+    memory: III for the 8-run designs of 5-7 factors and 4 runs of 3, IV for
+    2^(4-1), 2^(6-2), 2^(7-2), 2^(7-3), V for 2^(5-1), VI and VII for the half
+    fractions of 6 and 7); every column is balanced and the columns are
+    orthogonal (XᵀX = N·I)."""
+    from linkage.decide.plan import FACTORIAL_RESOLUTION, two_level_factorial
+
+    published = {(3, 4): 3, (4, 8): 4, (5, 16): 5, (5, 8): 3, (6, 32): 6, (6, 16): 4, (6, 8): 3, (7, 64): 7,
+                 (7, 32): 4, (7, 16): 4, (7, 8): 3}
+    X = two_level_factorial(k, runs)
+    assert X.shape == (runs, k)
+    assert len({tuple(r) for r in X}) == runs  # no run twice
+    np.testing.assert_array_equal(X.T @ X, runs * np.eye(k, dtype=int))
+    expected = published.get((k, runs), math.inf)  # (3, 8): the full factorial, no defining relation
+    assert _resolution_from_columns(X) == expected
+    assert FACTORIAL_RESOLUTION.get((k, runs), math.inf) == expected
+
+
+def test_factorial_start_puts_corners_at_the_range_ends_and_the_rest_at_the_centre():
+    """12 lots over three settings: the 2^3 corners at the ends of the ranges
+    and 4 centre points (Montgomery, §6.8, centre points added to a 2^k
+    design), run order randomised by the seed."""
+    plan = start_design(RANGES, 12, seed=5, design="factorial")
+    X = np.array([[lot.settings[k] for k in RANGES] for lot in plan.lots])
+    centre = np.array([(lo + hi) / 2 for lo, hi in RANGES.values()])
+    is_centre = np.all(np.isclose(X, centre), axis=1)
+    assert is_centre.sum() == 4
+    corners = X[~is_centre]
+    assert len({tuple(r) for r in corners}) == 8
+    for j, (lo, hi) in enumerate(RANGES.values()):
+        assert set(corners[:, j]) == {lo, hi}
+    assert start_design(RANGES, 12, seed=5, design="factorial").to_dict() == plan.to_dict()
+    with pytest.raises(UsageError, match="needs at least 5 lots"):
+        start_design(RANGES, 4, design="factorial")
