@@ -17,6 +17,13 @@ grows. So no two lots share a level of any setting (no duplicated point),
 both ends of every range are made, and the same seed gives the same design.
 The run order is then randomised with the same seed.
 
+``design="factorial"`` gives instead a two-level full or fractional factorial
+at the ends of the ranges (the largest of resolution III or more that leaves
+at least one lot; generators in :data:`FACTORIAL_GENERATORS`) and puts every
+other lot at the centre of the ranges (centre points: a check of curvature
+and an estimate of the pure error, Montgomery, Design and Analysis of
+Experiments, §6.8), run order randomised.
+
 Augmenting a campaign (:func:`augment_design`)
 ----------------------------------------------
 The window's edges are uncertain because the models are uncertain *there*:
