@@ -337,3 +337,27 @@ def test_factorial_start_puts_corners_at_the_range_ends_and_the_rest_at_the_cent
     assert start_design(RANGES, 12, seed=5, design="factorial").to_dict() == plan.to_dict()
     with pytest.raises(UsageError, match="needs at least 5 lots"):
         start_design(RANGES, 4, design="factorial")
+
+
+def test_synthetic_lots_at_planned_settings():
+    """make_lots(settings=) makes the lots at the settings given and leaves
+    every other draw as it was; the lot's porosity is the truth's at those
+    settings (Truth.porosity_mean, the generator's own model)."""
+    from linkage.synthetic import Truth, make_lots
+
+    truth = Truth()
+    planned = {"roll_force_kn_per_cm": [5.0, 9.0, 13.0], "roll_gap_mm": [2.0, 2.5, 3.0]}
+    a = make_lots(3, seed=4, truth=truth)
+    b = make_lots(3, seed=4, truth=truth, settings=planned)
+    for k, v in planned.items():
+        np.testing.assert_array_equal(b.tables["process"][k].to_numpy(float), v)
+    others = ["roll_speed_rpm", "screw_speed_rpm", "mill_screen_mm"]
+    np.testing.assert_array_equal(a.tables["process"][others].to_numpy(), b.tables["process"][others].to_numpy())
+    p = b.tables["process"]
+    expected = truth.porosity_mean(p["roll_force_kn_per_cm"], p["roll_gap_mm"], p["roll_speed_rpm"],
+                                   p["screw_speed_rpm"], compactor=p["compactor"].to_numpy())
+    np.testing.assert_allclose(b.lot_truth["ribbon_porosity_chain"], expected, atol=1e-12)
+    with pytest.raises(UsageError, match="not a setting of the design"):
+        make_lots(3, seed=4, settings={"colour": [1, 2, 3]})
+    with pytest.raises(UsageError, match="has 2 values for 3 lots"):
+        make_lots(3, seed=4, settings={"roll_gap_mm": [2.0, 2.5]})
