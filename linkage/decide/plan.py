@@ -359,6 +359,26 @@ def factorial_size(k: int, n_lots: int) -> tuple[int, int]:
     return max(fits)
 
 
+def _check_held(held: dict[str, float], ranges: dict) -> None:
+    """Refuse, all at once, a held setting that is not a setting of the
+    template, one also given a range, or a value outside its physical bounds."""
+    settings = plannable_settings()
+    problems = []
+    for name, value in held.items():
+        if name not in settings:
+            problems.append(f"--set {name}: not a setting of the template; settings: {', '.join(settings)}")
+        elif name in ranges:
+            problems.append(f"--set {name}: also given a --range; give one")
+        else:
+            col = settings[name][1]
+            low_ok = col.low is None or value > col.low or (value == col.low and col.low_inclusive)
+            high_ok = col.high is None or value < col.high or (value == col.high and col.high_inclusive)
+            if not (low_ok and high_ok and math.isfinite(value)):
+                problems.append(f"--set {name}={value:g} leaves the physical bounds {col.bound_text()}")
+    if problems:
+        raise UsageError("; ".join(problems))
+
+
 def start_design(ranges: dict[str, tuple[float, float]], n_lots: int, *, seed: int = 0,
                  held: dict[str, float] | None = None, prefix: str = "PLAN", product: str | None = None,
                  design: str = "maximin") -> Plan:
@@ -377,6 +397,7 @@ def start_design(ranges: dict[str, tuple[float, float]], n_lots: int, *, seed: i
     names = list(ranges)
     k = len(names)
     notes: list[str] = []
+    _check_held(held or {}, ranges)
     if design == "factorial":
         if not 2 <= k <= 7:
             raise UsageError(f"a two-level factorial start takes 2 to 7 settings; {k} given")

@@ -361,3 +361,11 @@ def test_synthetic_lots_at_planned_settings():
         make_lots(3, seed=4, settings={"colour": [1, 2, 3]})
     with pytest.raises(UsageError, match="has 2 values for 3 lots"):
         make_lots(3, seed=4, settings={"roll_gap_mm": [2.0, 2.5]})
+
+
+def test_new_design_refuses_held_values_it_cannot_write():
+    with pytest.raises(UsageError) as err:
+        start_design(RANGES, 6, held={"colour": 1.0, "roll_gap_mm": 2.0, "mill_screen_mm": 20.0})
+    text = str(err.value)
+    assert "--set colour: not a setting" in text and "roll_gap_mm: also given a --range" in text
+    assert "mill_screen_mm=20 leaves the physical bounds 0 < mill_screen_mm <= 10" in text
