@@ -28,6 +28,8 @@ call               what it does                                         recorded
 :func:`watch`      the drift watch                                       ``watch``
 :func:`running`    guidance for a lot in progress from its at-line       ``running``
                    samples
+:func:`plan`       the next lots: a new product's starting design, or    ``plan`` (a campaign's, when
+                   the lots that narrow a campaign's window              the store exists)
 :func:`retrain`    a challenger, promoted only by the rule               ``retrain`` or ``promote``
 :func:`audit`      the audit trail, as a DataFrame                       —
 =================  ===================================================  ==============================
@@ -346,6 +348,8 @@ def transfer(store=DEFAULT_STORE, *, roll_diameter_mm: float, roll_width_mm: flo
                    "product": product, "seed": seed},
            outputs={k: v for k, v in result.to_dict().items() if k in ("targets", "model")})
     return result
+
+
 def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None, spec=None, new: bool = False,
          store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
          settings: Mapping[str, float] | None = None, confidence: float = 0.9, assurance: float = 0.9,
