@@ -28,6 +28,8 @@ call               what it does                                         recorded
 :func:`watch`      the drift watch                                       ``watch``
 :func:`running`    guidance for a lot in progress from its at-line       ``running``
                    samples
+:func:`plan`       the next lots: a new product's starting design, or    ``plan`` (a campaign's, when
+                   the lots that narrow a campaign's window              the store exists)
 :func:`retrain`    a challenger, promoted only by the rule               ``retrain`` or ``promote``
 :func:`audit`      the audit trail, as a DataFrame                       —
 =================  ===================================================  ==============================
@@ -60,7 +62,7 @@ if TYPE_CHECKING:
     from linkage.spec import Spec
 
 __all__ = ["Workspace", "ingest", "assemble", "train", "window", "whatif", "whatif_rows", "report", "watch",
-           "retrain", "audit", "models", "record", "running", "transfer"]
+           "retrain", "audit", "models", "record", "running", "transfer", "plan"]
 
 #: a progress callback: ``progress(label, done, total)``
 Progress = Callable[[str, int, int], None]
@@ -348,6 +350,49 @@ def transfer(store=DEFAULT_STORE, *, roll_diameter_mm: float, roll_width_mm: flo
     return result
 
 
+def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None, spec=None, new: bool = False,
+         store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
+         settings: Mapping[str, float] | None = None, confidence: float = 0.9, assurance: float = 0.9,
+         seed: int = 0, prefix: str = "PLAN", product: str | None = None, out=None, edges: str = "all",
+         design: str = "maximin"):
+    """The next lots to make (``linkage plan``; :mod:`linkage.decide.plan`).
+    ``new``: a starting design over ``ranges`` with no lots or model
+    (``design``: ``"maximin"`` or ``"factorial"``). Else the
+    lots that narrow the window of ``model`` under ``spec`` fastest, over
+    ``ranges`` (default: the training ranges), at its ``edges`` (``"all"`` or
+    ``"porosity"``). With ``out`` (a folder), the plan
+    is written there as template tables and ``plan.json``. An augmentation is
+    logged as ``plan`` in the store's audit trail."""
+    from linkage.decide import plan as planning
+
+    settings = {k: float(v) for k, v in (settings or {}).items()}
+    if new:
+        result = planning.start_design(dict(ranges or {}), n_lots, seed=seed, held=settings, prefix=prefix,
+                                       product=product, design=design)
+        written = planning.write_plan(result, out) if out is not None else []
+        return planning.Planned(result, written)
+    from linkage.decide.bound import check_assurance
+
+    assurance = check_assurance(assurance)
+    spec = _spec(spec)
+    if spec is None:
+        from linkage.exceptions import UsageError
+
+        raise UsageError("planning the next lots of a campaign needs a spec (--spec); for a new product use --new")
+    chain = _fitted(models_dir, model)
+    table = assemble(store, spec=spec, product=product)
+    result = planning.augment_design(chain, table, spec, n_lots, ranges=dict(ranges or {}), settings=settings,
+                                     confidence=confidence, assurance=assurance, seed=seed, prefix=prefix,
+                                     product=product, edges=edges)
+    written = planning.write_plan(result, out) if out is not None else []
+    recorded = record(store, "plan", model_id=result.model_id,
+                      inputs={"n_lots": n_lots, "ranges": {k: list(v) for k, v in (ranges or {}).items()},
+                              "settings": settings, "confidence": confidence, "assurance": assurance, "seed": seed, "edges": edges,
+                              "spec_file": spec.file, "spec_sha256": spec.sha256, "out": None if out is None else str(out)},
+                      outputs={"lots": [lot.to_dict() for lot in result.lots], "edges": result.edges})
+    return planning.Planned(result, written, recorded)
+
+
 def _lean(models_dir, model):
     """What a what-if runs on: the model's numbers (``whatif.npz``, no
     scikit-learn) for an id, else the given chain."""
@@ -432,12 +477,15 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
 
 
 def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", spec=None,
-           confidence: float = 0.9, seed: int = 0, window: Window | None = None, assurance: float = 0.9) -> Path:
+           confidence: float = 0.9, seed: int = 0, window: Window | None = None, assurance: float = 0.9,
+           plan=None) -> Path:
     """Write the self-contained HTML report of ``model`` and its lots to
     ``out`` (default ``reports/report-<model id>.html``) and return the path
     (``linkage report``). The lots are the model's product's when it was
     trained on one. A ``window`` already found is drawn as is; else, with a
-    ``spec``, the window is found at ``confidence``."""
+    ``spec``, the window is found at ``confidence``. A ``plan`` (what
+    :func:`plan` returned, or the path of its ``plan.json``) adds a section
+    with the planned lots."""
     from linkage.assemble import assemble as assemble_table
     from linkage.exceptions import InsufficientDataError, UsageError
     from linkage.report.html import build_report
@@ -451,6 +499,10 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
 
     assurance = check_assurance(assurance)
     spec = _spec(spec)
+    if plan is not None:
+        from linkage.report.plan_section import read_plan
+
+        plan = read_plan(plan)  # a file that is not a plan is refused before any work
     chain = _fitted(models_dir, model)
     check_time_point(chain, spec, "report")
     products = chain.training.get("products") or []
@@ -465,7 +517,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     out = Path(out) if out is not None else Path("reports") / f"report-{chain.model_id}.html"
     found = window.result if isinstance(window, Window) else window
     return Path(build_report(chain, table, spec=spec, window=found, lots=lots, out_path=out,
-                             confidence=confidence, seed=seed, assurance=assurance))
+                             confidence=confidence, seed=seed, assurance=assurance, plan=plan))
 
 
 def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", spec=None,
@@ -669,3 +721,7 @@ class Workspace:
     def audit(self, **kwargs) -> pd.DataFrame:
         """See :func:`audit`."""
         return audit(self.store, **kwargs)
+
+    def plan(self, n_lots: int, **kwargs):
+        """See :func:`plan`."""
+        return plan(n_lots, store=self.store, models_dir=self.models_dir, **kwargs)

@@ -811,7 +811,8 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
               with_vessels: bool | float = False, start: str = "2026-01-05", product: str | None = None,
               lot_prefix: str = "LOT", pilot_fraction: float = 0.4, raw_materials: bool = False,
               raw_material_change_at: int | None = None, raw_material_delta: float = -6.0,
-              raw_material_attribute: str = "dissolution_pct") -> SyntheticLots:
+              raw_material_attribute: str = "dissolution_pct",
+              settings: Mapping[str, object] | None = None) -> SyntheticLots:
     """Draw ``n_lots`` lots from ``truth`` (default :class:`Truth`).
 
     Parameters
@@ -838,6 +839,10 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
     raw_material_change_at, raw_material_delta, raw_material_attribute : from
         lot index ``raw_material_change_at`` on (0-based, in time order),
         lots follow ``truth.shifted(raw_material_attribute, raw_material_delta)``.
+    settings : settings of each lot (name -> ``n_lots`` values) that replace
+        the design's draws, e.g. lots planned by :mod:`linkage.decide.plan`:
+        any of the roll settings, ``mill_screen_mm``, ``compression_force_kn``
+        and ``compactor``. Every other draw is unchanged.
 
     Returns
     -------
@@ -871,6 +876,13 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
 
     lots = _lot_ids(lot_prefix, n)
     s = _design(r_design, n, design, pilot_fraction, truth)
+    for k, v in (settings or {}).items():
+        if k not in s:
+            raise UsageError(f"settings: {k!r} is not a setting of the design; use {', '.join(s)}")
+        v = np.asarray(v, dtype=object if k == "compactor" else float).reshape(-1)
+        if v.size != n:
+            raise UsageError(f"settings: {k} has {v.size} values for {n} lots")
+        s[k] = v
     started = _times(start, n, r_design)
 
     def staged(fn):

@@ -32,6 +32,7 @@ COMMANDS: dict[str, str] = {
     "running": "linkage.cli.running_cmds:running",
     "verify": "linkage.cli.store_cmds:verify",
     "transfer": "linkage.cli.transfer_cmds:transfer",
+    "plan": "linkage.cli.plan_cmds:plan",
 }
 
 

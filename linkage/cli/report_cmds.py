@@ -21,10 +21,12 @@ from linkage.cli.common import PROBABILITY, check_output, handle_errors, models_
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the Monte Carlo draws.")
 @click.option("--assurance", default=0.9, show_default=True, type=PROBABILITY,
               help="Assurance of the lower bound on the probability of passing that the window rests on.")
+@click.option("--plan", "plan_path", type=click.Path(exists=True, dir_okay=False, path_type=Path), default=None,
+              help="A plan.json from 'linkage plan --out': adds a section with the planned lots.")
 @store_option
 @models_dir_option
 @handle_errors
-def report(model_id, spec_path, out_path, confidence, seed, assurance, store, models_dir):
+def report(model_id, spec_path, out_path, confidence, seed, assurance, plan_path, store, models_dir):
     """Write one self-contained HTML report: the lots, the ribbon stage, the
     Ryshkewitch-Duckworth baseline, every attribute's cross-validated
     performance, explanations, the porosity window (with --spec), the
@@ -49,5 +51,5 @@ def report(model_id, spec_path, out_path, confidence, seed, assurance, store, mo
 
         spec = read_spec(spec_path)
     path = write_report(out_path, store=store, models_dir=models_dir, model=model_id, spec=spec,
-                        confidence=confidence, seed=seed, assurance=assurance)
+                        confidence=confidence, seed=seed, assurance=assurance, plan=plan_path)
     click.echo(str(path))

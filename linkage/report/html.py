@@ -206,11 +206,11 @@ class _Builder:
 # ----------------------------------------------------------------- entry points
 
 def build_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd.DataFrame | None = None,
-                 out_path, confidence: float = 0.9, seed: int = 0, assurance: float = 0.9) -> Path:
+                 out_path, confidence: float = 0.9, seed: int = 0, assurance: float = 0.9, plan=None) -> Path:
     """Render the report and write it to ``out_path`` (folders made as
     needed; the file is written whole or not at all). Returns the path."""
     report = render_report(chain, table, spec=spec, window=window, lots=lots, confidence=confidence, seed=seed,
-                           assurance=assurance)
+                           assurance=assurance, plan=plan)
     from linkage.export import write_atomic
 
     out = Path(out_path)
@@ -220,7 +220,7 @@ def build_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd
 
 def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd.DataFrame | None = None,
                   confidence: float = 0.9, seed: int = 0, curve_draws: int = 400,
-                  assurance: float = 0.9) -> Report:
+                  assurance: float = 0.9, plan=None) -> Report:
     """Build the report of a fitted chain.
 
     Parameters
@@ -237,6 +237,8 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         curves through the chain.
     assurance : assurance of the lower bound on the probability of passing
         that the window computed here rests on.
+    plan : a plan (:mod:`linkage.decide.plan`; a ``plan.json`` path, its dict
+        or the object): adds the plan section after the window's.
     """
     from linkage.timepoint import check_time_point
 
@@ -259,6 +261,10 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     from linkage.report.transfer_section import transfer_section  # scale-up between compactors (issue 16)
 
     transfer_section(b, table, window, seed=seed)
+    if plan is not None:
+        from linkage.report.plan_section import plan_section, read_plan
+
+        plan_section(b, chain, table, read_plan(plan))
     _watch_section(b, chain, table, window)
     _domain_section(b, chain, table)
     _model_card(b, chain, spec, window)

@@ -1,0 +1,86 @@
+"""``linkage plan``: the next lots to make."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import click
+
+from linkage.cli.common import PROBABILITY, check_output, handle_errors, json_option, models_dir_option, store_option
+from linkage.jsonable import jsonable
+
+
+@click.command()
+@click.option("--lots", "n_lots", required=True, type=click.IntRange(1, 1000),
+              help="How many lots to plan (the lots you can afford).")
+@click.option("--range", "range_texts", multiple=True, metavar="NAME=LOW:HIGH",
+              help="Range of a setting, e.g. roll_force_kn_per_cm=3:14. Repeatable. With --new, the settings the "
+                   "design spreads; without, the ribbon settings a planned lot may take (default: their training "
+                   "range).")
+@click.option("--new", is_flag=True, help="A new product with no lots: a space-filling starting design over the "
+              "--range settings (maximin Latin hypercube, run order randomised).")
+@click.option("--design", type=click.Choice(["maximin", "factorial"]), default="maximin", show_default=True,
+              help="With --new: a maximin Latin hypercube, or a two-level full or fractional factorial at the ends of "
+                   "the ranges with the other lots at the centre (2 to 7 settings).")
+@click.option("--spec", "spec_path", type=click.Path(exists=True, dir_okay=False, path_type=Path),
+              help="Specification file (spec.toml); needed without --new.")
+@click.option("--model", "model_id", default="latest", show_default=True,
+              help="Model id from 'linkage models', or 'latest'.")
+@click.option("--set", "assignments", multiple=True, metavar="NAME=VALUE",
+              help="Hold a setting at VALUE in every planned lot (and in the window planned for). Repeatable.")
+@click.option("--confidence", default=0.9, show_default=True, type=PROBABILITY,
+              help="Confidence of the window whose edges the plan narrows.")
+@click.option("--assurance", default=0.9, show_default=True, type=PROBABILITY,
+              help="Assurance of the lower bound the window rests on.")
+@click.option("--edges", type=click.Choice(["all", "porosity"]), default="all", show_default=True,
+              help="Which window edges the next lots narrow: the porosity edges and the roll force edges (all), or "
+                   "the porosity edges only.")
+@click.option("--prefix", default="PLAN", show_default=True, help="Planned lot ids are PREFIX-001, PREFIX-002, ...")
+@click.option("--product", default=None, help="Product name written in the process table (and the lots planned "
+              "from, without --new).")
+@click.option("--out", "out", type=click.Path(file_okay=False, path_type=Path),
+              help="Folder to write process.csv (and tablets.csv when the plan sets the compression force) in the "
+                   "template's columns, with blank results, and plan.json.")
+@click.option("--seed", default=0, show_default=True, type=int)
+@models_dir_option
+@store_option
+@json_option
+@handle_errors
+def plan(n_lots, range_texts, new, design, spec_path, model_id, assignments, confidence, assurance, edges, prefix, product,
+         out, seed, models_dir, store, as_json):
+    """Plan the next lots: the settings that narrow the ribbon porosity
+    window's edges fastest, or a starting design for a new product.
+
+    \b
+    Example:
+      linkage plan --new --lots 12 --range roll_force_kn_per_cm=3:14 \\
+          --range roll_gap_mm=1.5:3.5 --range roll_speed_rpm=2:8 --out plan/
+      linkage plan --lots 8 --spec spec.toml --set compression_force_kn=14 --out plan/
+    """
+    from linkage.api import plan as make_plan
+    from linkage.decide.plan import parse_ranges
+    from linkage.decide.whatif import parse_assignments
+    from linkage.exceptions import UsageError
+
+    if out is not None:
+        check_output(out, folder=True)
+    ranges = parse_ranges(range_texts)
+    settings = parse_assignments(list(assignments))
+    if design != "maximin" and not new:
+        raise UsageError("--design chooses a new product's starting design; it goes with --new")
+    if new and spec_path is not None:
+        raise UsageError("--new plans with no lots and no model; --spec is for planning a campaign's next lots")
+    spec = None
+    if spec_path is not None:
+        from linkage.spec import read_spec
+
+        spec = read_spec(spec_path)
+    result = make_plan(n_lots, ranges=ranges, spec=spec, new=new, store=store, models_dir=models_dir,
+                       model=model_id, settings=settings, confidence=confidence, assurance=assurance, seed=seed,
+                       prefix=prefix, product=product, out=out, edges=edges,
+                       design=design)
+    if as_json:
+        click.echo(json.dumps(jsonable(result.to_dict()), indent=2, allow_nan=False))
+        return
+    click.echo(result.text())

@@ -1,0 +1,89 @@
+"""The report's plan section: the planned lots drawn over roll force × roll
+gap with the training lots, and a table of what each lot is for
+(issue 18; :mod:`linkage.decide.plan`)."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+
+FORCE = "roll_force_kn_per_cm"
+GAP = "roll_gap_mm"
+
+
+def read_plan(plan) -> dict:
+    """A plan as its JSON dict: from a :class:`~linkage.decide.plan.Planned`,
+    a :class:`~linkage.decide.plan.Plan`, a dict, or the path of a
+    ``plan.json`` (``linkage plan --out``). A file that is not a plan is
+    refused, naming the file and what is missing."""
+    from linkage.exceptions import InputError, Problem
+
+    if hasattr(plan, "to_dict"):
+        return plan.to_dict()
+    if isinstance(plan, dict):
+        return plan
+    path = Path(plan)
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError(Problem(path.name, f"not a plan written by 'linkage plan' (not JSON: {exc})")) from None
+    lots = data.get("lots") if isinstance(data, dict) else None
+    if not isinstance(lots, list) or not all(isinstance(x, dict) and isinstance(x.get("settings"), dict)
+                                             and "lot" in x for x in lots):
+        raise InputError(Problem(path.name, "not a plan written by 'linkage plan': no list 'lots' of "
+                                            "{lot, settings}"))
+    return data
+
+
+def plot_plan_map(force, gap, plan_force, plan_gap, labels, *, ax=None):
+    """Training lots (grey dots) and planned lots (black crosses, labelled
+    with their run number) over roll force × roll gap."""
+    from linkage.report.figures import BLACK, GREY, axis_label, new_axes
+
+    ax = new_axes(ax, panel=(6.0, 3.4))
+    force, gap = np.asarray(force, float), np.asarray(gap, float)
+    keep = np.isfinite(force) & np.isfinite(gap)
+    ax.scatter(force[keep], gap[keep], s=22, color=GREY, alpha=0.7, label="training lots")
+    pf, pg = np.asarray(plan_force, float), np.asarray(plan_gap, float)
+    ax.scatter(pf, pg, s=60, marker="x", color=BLACK, linewidths=1.8, label="planned lots")
+    for x, y, text in zip(pf, pg, labels):
+        ax.annotate(str(text), (x, y), xytext=(4, 4), textcoords="offset points", fontsize=8, color=BLACK)
+    ax.set_xlabel(axis_label(FORCE))
+    ax.set_ylabel(axis_label(GAP))
+    ax.grid(alpha=0.3)
+    ax.legend(loc="best", fontsize=8)
+    return ax
+
+
+def plan_section(b, chain, table, plan: dict) -> None:
+    """Add the plan section to the report builder ``b`` (see :mod:`linkage.report.html`)."""
+    from linkage.report.html import _e, _f, _table
+
+    b.section("plan", "Planned lots")
+    lots = plan.get("lots") or []
+    kind = "a starting design for a new product" if plan.get("kind") == "start" else "the next lots of the campaign"
+    b.add(f"<p>{len(lots)} lots planned as {_e(kind)} ({_e(plan.get('method'))}, seed {_e(plan.get('seed'))}"
+          + (f", model {_e(plan.get('model_id'))}" if plan.get("model_id") else "") + ").</p>")
+    if plan.get("model_id") and getattr(chain, "model_id", None) and plan["model_id"] != chain.model_id:
+        b.note(f"The plan was made with model {plan['model_id']}, not the model of this report ({chain.model_id}).")
+    for e in plan.get("edges") or []:
+        b.add(f"<p>Edge planned for: {_e(e.get('name'))} at {_e(e.get('where'))}; variance of the local fit there "
+              f"after the plan, relative to now: {_f(e.get('relative_variance'), 2)}.</p>")
+    have = [c for c in (FORCE, GAP) if c in table.columns]
+    planned = [x["settings"] for x in lots]
+    if len(have) == 2 and lots and all(FORCE in s and GAP in s for s in planned):
+        ax = plot_plan_map(table[FORCE], table[GAP], [s[FORCE] for s in planned], [s[GAP] for s in planned],
+                           [x.get("run", i + 1) for i, x in enumerate(lots)])
+        b.figure(ax, "Planned lots (crosses, labelled with their run number) and the training lots (dots) over "
+                     "specific roll force and roll gap.")
+    else:
+        b.note("The plan or the lots lack roll force or roll gap, so the plan cannot be drawn over them.")
+    names = list(dict.fromkeys(k for s in planned for k in s))
+    rows = [[_e(x.get("run")), _e(x.get("lot")), *(_f(x["settings"].get(k), 4) for k in names),
+             _f(x.get("predicted_porosity"), 3), _e({True: "inside", False: "outside", None: "—"}[x.get("in_domain")]),
+             _e(x.get("reason"))] for x in lots]
+    b.add(_table([_e(h) for h in ["run", "lot", *names, "predicted porosity", "domain", "why"]], rows))
+    for n in plan.get("notes") or []:
+        b.add(f"<p>{_e(n)}</p>")
