@@ -164,12 +164,14 @@ def _section(n_lots: int, results: list[dict], n_fresh: int) -> list[str]:
     has_before = all("before" in r for r in results)
     for r in results:
         b = r.get("before")
-        lines.append(f"| {r['seed']} | {r['now']['mae']:.3f} | {b['mae'] if b else float('nan'):.3f} "
-                     f"| {r['now']['max_err']:.3f} | {b['max_err'] if b else float('nan'):.3f} "
+        b_mae, b_max = (f"{b['mae']:.3f}", f"{b['max_err']:.3f}") if b else ("—", "—")
+        lines.append(f"| {r['seed']} | {r['now']['mae']:.3f} | {b_mae} "
+                     f"| {r['now']['max_err']:.3f} | {b_max} "
                      f"| {_fmt_window(r['now']['window'])} | {_fmt_window(b['window']) if b else '—'} |")
     now = np.array([r["now"]["mae"] for r in results])
     before = np.array([r["before"]["mae"] if has_before else np.nan for r in results])
-    lines += [f"| **mean** | **{now.mean():.3f}** | **{before.mean():.3f}** | | | | |", "",
+    before_mean = f"**{before.mean():.3f}**" if has_before else "—"
+    lines += [f"| **mean** | **{now.mean():.3f}** | {before_mean} | | | | |", "",
               f"Campaigns with MAE ≤ 0.03: now {int(np.sum(now <= 0.03))} of {len(now)}"
               + (f", before {int(np.sum(before <= 0.03))} of {len(before)}." if has_before else
                  " (the former candidates were not run: --now-only)."), "",
