@@ -265,6 +265,10 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         from linkage.report.plan_section import plan_section, read_plan
 
         plan_section(b, chain, table, read_plan(plan))
+
+    from linkage.report.space_section import space_section  # the design-space map (issue 16)
+
+    space_section(b, chain, table, spec, confidence=confidence, assurance=assurance, seed=seed)
     _watch_section(b, chain, table, window)
     _domain_section(b, chain, table)
     _model_card(b, chain, spec, window)
