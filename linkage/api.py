@@ -306,8 +306,8 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
            seed: int = 0, assurance: float = 0.9) -> Window:
     """The ribbon porosity window where every limit of ``spec`` passes
     together with probability ``confidence``, and the roll force that lands
-    in it (``linkage window``); settings not in ``settings`` are held at the
-    training median. The window rests on the lower bound at ``assurance``
+    in it (``linkage window``); settings not in ``settings`` are held
+    coherently with them (their conditional mean over the training lots). The window rests on the lower bound at ``assurance``
     of that probability (issue 12; :mod:`linkage.decide.bound`). Logged as
     ``window`` when the store exists."""
     from linkage.decide.bound import check_assurance

@@ -183,8 +183,10 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     ----------
     chain : a fitted chain (:class:`linkage.models.train.FittedChain`).
     spec : a :class:`linkage.spec.Spec`.
-    settings : values of settings to hold (``--set``); the rest are held at
-        the training median, and the result says which is which.
+    settings : values of settings to hold (``--set``); the rest are held
+        coherently with them (:func:`linkage.decide.propagate.fill_settings`),
+        and the result says which is which and whether the held point is in
+        the domain (``held_point``).
     confidence : the probability of passing every specification together
         that the window must reach, in (0, 1).
     assurance : the assurance of the lower bound on that probability, in
@@ -482,7 +484,7 @@ def chain_force_range(chain, spec, *, settings: dict[str, float], confidence: fl
     """Roll forces where a lot passes every specification, through the whole chain.
 
     At the stated gap, roll and screw speed and the held downstream settings
-    (``settings``, the rest at the training median), each force of the
+    (``settings``, the rest held coherently with them), each force of the
     training range is simulated from the ribbon stage on (ribbon scatter,
     granule and tablet scatter included; :func:`linkage.decide.bound.chain_probabilities`).
     ``low``/``high``: the widest run of forces where the lower bound at

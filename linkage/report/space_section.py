@@ -48,7 +48,8 @@ def plot_space(result, lots_x=None, lots_y=None, *, ax=None):
     if lots_x is not None and lots_y is not None:
         lx, ly = np.asarray(lots_x, float), np.asarray(lots_y, float)
         keep = np.isfinite(lx) & np.isfinite(ly)
-        ax.scatter(lx[keep], ly[keep], s=16, color="white", edgecolor=BLACK, linewidth=0.8, zorder=4)
+        ax.scatter(lx[keep], ly[keep], s=16, color="white", edgecolor=BLACK, linewidth=0.8, zorder=4,
+                   clip_on=False)
         handles.append(Line2D([], [], marker="o", linestyle="", markerfacecolor="white", markeredgecolor=BLACK))
         labels.append(f"training lots ({int(keep.sum())})")
     ar = result.ranges or {}
