@@ -47,19 +47,18 @@ def space(spec_path, model_id, x, y, n_grid, assignments, confidence, assurance,
       linkage space --spec spec.toml
       linkage space --spec spec.toml --x roll_force_kn_per_cm --y compression_force_kn --json > map.json
     """
-    from linkage.decide.space import design_space, space_text
+    from linkage.api import space as make_map
+    from linkage.decide.space import space_text
     from linkage.decide.whatif import parse_assignments
     from linkage.jsonable import jsonable
-    from linkage.models.registry import load_whatif
     from linkage.spec import read_spec
 
     if png_path is not None:
         check_output(png_path)
     spec = read_spec(spec_path)
     settings = parse_assignments(list(assignments))
-    lean = load_whatif(models_dir, model_id)
-    result = design_space(lean, spec, x=x, y=y, n_grid=n_grid, confidence=confidence, assurance=assurance,
-                          settings=settings, seed=seed)
+    result = make_map(spec, models_dir=models_dir, model=model_id, x=x, y=y, n_grid=n_grid, settings=settings,
+                      confidence=confidence, assurance=assurance, seed=seed)
     if png_path is not None:
         from linkage.export import write_atomic
         from linkage.report.figures import figure_png
