@@ -71,6 +71,8 @@ class SpaceResult:
     seed: int
     ranges: dict = field(default_factory=dict)
     domain_reasons: list[str] = field(default_factory=list)
+    #: P(all pass) of each bootstrap replicate at each grid point (B × points; None without replicates)
+    replicates: np.ndarray | None = field(repr=False, default=None)
 
     @property
     def surface(self) -> np.ndarray:
@@ -241,7 +243,7 @@ def design_space(chain, spec, *, x: str = FORCE, y: str = GAP, n_grid: int = 40,
         in_domain=mask.reshape(shape), held={k: v.reshape(shape) for k, v in held_cols.items()},
         held_sources=sources, held_rule=rule, given={k: float(v) for k, v in settings.items()},
         attributes=attributes, confidence=float(confidence), assurance=assurance, bound=bound, seed=int(seed),
-        domain_reasons=reasons)
+        domain_reasons=reasons, replicates=cp.reps_all)
     result.ranges = acceptable_ranges(result)
     return result
 
@@ -298,6 +300,17 @@ def acceptable_ranges(result: SpaceResult) -> dict:
     ranges = {result.x: [float(xs[c0]), float(xs[c1])], result.y: [float(ys[r0]), float(ys[r1])]}
     held = {k: [float(v[r0:r1 + 1, c0:c1 + 1].min()), float(v[r0:r1 + 1, c0:c1 + 1].max())]
             for k, v in result.held.items()}
+    simultaneous = {}
+    if result.replicates is not None:  # the band over the whole box at once (bound.simultaneous_lower_bound)
+        from linkage.decide.bound import simultaneous_lower_bound
+
+        in_box = np.zeros(result.p_all.shape, dtype=bool)
+        in_box[r0:r1 + 1, c0:c1 + 1] = True
+        band, q = simultaneous_lower_bound(result.replicates, result.assurance, result.p_all.ravel(),
+                                           in_box.ravel())
+        low = float(band[in_box.ravel()].min())
+        simultaneous = {"simultaneous_low_min": low, "simultaneous_quantile": q,
+                        "simultaneous_holds": bool(low >= result.confidence)}
     return {
         "found": True, "basis": basis,
         "ranges": ranges,
@@ -309,9 +322,12 @@ def acceptable_ranges(result: SpaceResult) -> dict:
         "held_at_set_point": {k: float(v[ci, cj]) for k, v in result.held.items()},
         "p_all_low_at_set_point_grid": None if result.p_all_low is None else float(result.p_all_low[ci, cj]),
         "p_all_at_set_point_grid": float(result.p_all[ci, cj]),
-        "note": ("the ranges' ends are grid points where the bound reaches the confidence inside the domain; "
-                 "the held settings follow the mapped ones (their range over the box is given), they are not "
-                 "independent ranges"),
+        **simultaneous,
+        "note": ("the ranges' ends are grid points where the pointwise bound reaches the confidence inside the "
+                 "domain; simultaneous_low_min is the lowest point of the band that holds over the whole box at "
+                 "once (the window's rule), so simultaneous_holds says whether the box keeps the confidence "
+                 "under it; the held settings follow the mapped ones (their range over the box is given), they "
+                 "are not independent ranges"),
     }
 
 
@@ -347,6 +363,11 @@ def space_text(result: SpaceResult) -> str:
             lines.append(f"  {k}: {lo:.4g} – {hi:.4g} {shown_unit(k)}")
         lines.append("Suggested set point (centre of the box): "
                      + ", ".join(f"{k} = {v:.4g} {shown_unit(k)}" for k, v in ar["set_point"].items()))
+        if "simultaneous_holds" in ar:
+            lines.append(f"  over the whole box at once (simultaneous band, {result.assurance:.0%} assurance) the "
+                         f"lowest bound is {ar['simultaneous_low_min']:.3f}: "
+                         + ("the box keeps the confidence" if ar["simultaneous_holds"] else
+                            "BELOW the confidence; the ranges rest on the pointwise bound only"))
         lines.append("  held there: " + ", ".join(f"{k} = {v:.4g}" for k, v in ar["held_at_set_point"].items()))
         lines.append("  held settings over the box (they follow the mapped ones): "
                      + ", ".join(f"{k} {lo:.4g}–{hi:.4g}" for k, (lo, hi) in ar["held_over_box"].items()))

@@ -138,3 +138,21 @@ def test_space_command_json_and_errors(saved_model, tmp_path):
     assert png.read_bytes()[:4] == b"\x89PNG"
     bad = runner.invoke(cli, ["space", "--spec", str(spec_path), "--x", "nope", "--models-dir", str(models_dir)])
     assert bad.exit_code == 2 and "'nope' is not a setting" in bad.output
+
+
+def test_the_box_states_its_simultaneous_band(small_map):
+    """The lowest point over the box of the band that holds over it at once is
+    the replicates' common quantile there (bound.simultaneous_lower_bound),
+    never above the pointwise bound's lowest point in the box."""
+    r = small_map
+    ar = r.ranges
+    if not ar["found"]:
+        return
+    (i0, i1), (j0, j1) = ar["grid_cells"]["rows"], ar["grid_cells"]["columns"]
+    box = np.zeros(r.p_all.shape, bool)
+    box[i0:i1 + 1, j0:j1 + 1] = True
+    q = ar["simultaneous_quantile"]
+    expected = np.minimum(np.nanquantile(r.replicates, q, axis=0), r.p_all.ravel())[box.ravel()].min()
+    assert ar["simultaneous_low_min"] == pytest.approx(expected)
+    assert ar["simultaneous_low_min"] <= r.p_all_low[box].min() + 1e-12
+    assert ar["simultaneous_holds"] == (ar["simultaneous_low_min"] >= r.confidence)
