@@ -30,6 +30,7 @@ call               what it does                                         recorded
                    samples
 :func:`plan`       the next lots: a new product's starting design, or    ``plan`` (a campaign's, when
                    the lots that narrow a campaign's window              the store exists)
+:func:`space`      the map over two settings and the acceptable ranges   —
 :func:`retrain`    a challenger, promoted only by the rule               ``retrain`` or ``promote``
 :func:`audit`      the audit trail, as a DataFrame                       —
 =================  ===================================================  ==============================
@@ -62,7 +63,7 @@ if TYPE_CHECKING:
     from linkage.spec import Spec
 
 __all__ = ["Workspace", "ingest", "assemble", "train", "window", "whatif", "whatif_rows", "report", "watch",
-           "retrain", "audit", "models", "record", "running", "transfer", "plan"]
+           "retrain", "audit", "models", "record", "running", "transfer", "plan", "space"]
 
 #: a progress callback: ``progress(label, done, total)``
 Progress = Callable[[str, int, int], None]
@@ -306,8 +307,8 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
            seed: int = 0, assurance: float = 0.9) -> Window:
     """The ribbon porosity window where every limit of ``spec`` passes
     together with probability ``confidence``, and the roll force that lands
-    in it (``linkage window``); settings not in ``settings`` are held at the
-    training median. The window rests on the lower bound at ``assurance``
+    in it (``linkage window``); settings not in ``settings`` are held
+    coherently with them (their conditional mean over the training lots). The window rests on the lower bound at ``assurance``
     of that probability (issue 12; :mod:`linkage.decide.bound`). Logged as
     ``window`` when the store exists."""
     from linkage.decide.bound import check_assurance
@@ -391,6 +392,21 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
                               "spec_file": spec.file, "spec_sha256": spec.sha256, "out": None if out is None else str(out)},
                       outputs={"lots": [lot.to_dict() for lot in result.lots], "edges": result.edges})
     return planning.Planned(result, written, recorded)
+
+
+def space(spec, *, models_dir=DEFAULT_MODELS_DIR, model="latest", x: str = "roll_force_kn_per_cm",
+          y: str = "roll_gap_mm", n_grid: int = 40, settings: Mapping[str, float] | None = None,
+          confidence: float = 0.9, assurance: float = 0.9, seed: int = 0):
+    """The map of P(all pass) and its lower bound over two settings, the
+    applicability-domain mask and the acceptable ranges (``linkage space``;
+    :func:`linkage.decide.space.design_space`). Runs on the model's numbers
+    (``whatif.npz``) for an id. Returns a :class:`linkage.decide.space.SpaceResult`
+    (``to_dict()``; :func:`linkage.decide.space.space_text` for its text)."""
+    from linkage.decide.space import design_space
+
+    return design_space(_lean(models_dir, model), _spec(spec), x=x, y=y, n_grid=n_grid,
+                        settings={k: float(v) for k, v in (settings or {}).items()}, confidence=confidence,
+                        assurance=assurance, seed=seed)
 
 
 def _lean(models_dir, model):
@@ -697,6 +713,10 @@ class Workspace:
     def window(self, spec, **kwargs) -> Window:
         """See :func:`window`."""
         return window(spec, store=self.store, models_dir=self.models_dir, **kwargs)
+
+    def space(self, spec, **kwargs):
+        """See :func:`space`."""
+        return space(spec, models_dir=self.models_dir, **kwargs)
 
     def whatif(self, values: Mapping[str, float], **kwargs) -> WhatIfResult:
         """See :func:`whatif`."""

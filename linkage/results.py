@@ -358,6 +358,13 @@ def window_text(result: WindowResult) -> str:
     if held_rf:
         lines.append("Held for the roll force range: " +
                      ", ".join(f"{k} = {v['value']:.4g} ({v['source']})" for k, v in held_rf.items()))
+    from linkage.decide.held import held_text
+
+    if d.get("held_point"):
+        lines.append(f"Held: {d['held_point']['rule']}.")
+        lines.append(held_text(d["held_point"], "held point of the window (at its middle porosity)"))
+    if rf.get("held_point"):
+        lines.append(held_text(rf["held_point"], "held point of the roll force range (at its middle force)"))
     if d["not_modelled"]:
         lines.append("Not part of the window (not predicted from porosity): " + ", ".join(d["not_modelled"]))
     lines += judges_lines(d.get("judges") or {})
@@ -484,8 +491,14 @@ def whatif_text(result: WhatIf) -> str:
     if bound.get("reason"):
         lines.append(f"!! {bound['reason']}")
     lines.append("Inputs: " + ", ".join(f"{k}={v['value']:.4g}"
-                                        + (" (median)" if v["source"] != "given" else "")
+                                        + (" (median)" if v["source"] == "training median" else
+                                           " (held)" if v["source"] != "given" else "")
                                         for k, v in d["inputs"].items()))
+    hp = d.get("held_point") or {}
+    if hp.get("held"):
+        from linkage.decide.held import held_text
+
+        lines.append(f"Held: {hp['rule']}. {held_text(hp)}")
     projected = []
     for name, p in d["predictions"].items():
         line = f"  {name:<24} {p['value']:>9.4g}   [{_end(p['low'])}, {_end(p['high'])}]"

@@ -33,6 +33,8 @@ def test_demo_writes_every_output(tmp_path):
     assert "USP <711>" in window["judges"]["dissolution_pct"]
     report = (out / "report.html").read_text(encoding="utf-8")
     assert "<script" not in report and report.count("<img") >= 10
+    # the design-space map and the acceptable ranges (issue 16 item 5)
+    assert '<h2 id="space">' in report and "Acceptable ranges" in report and "Suggested set point" in report
     # the re-measured lot was ingested as a second revision
     from linkage.store import LotStore
 

@@ -45,8 +45,9 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, assuranc
     """Find the ribbon porosity window where every specification passes
     with the stated confidence, and the roll force that lands in it.
 
-    Settings not given with --set are held at the training median; the
-    output says which.
+    Settings not given with --set are held coherently with the given ones
+    (their conditional mean over the training lots); the output says which,
+    and whether the held point is inside the applicability domain.
 
     \b
     Example:

@@ -33,6 +33,7 @@ COMMANDS: dict[str, str] = {
     "verify": "linkage.cli.store_cmds:verify",
     "transfer": "linkage.cli.transfer_cmds:transfer",
     "plan": "linkage.cli.plan_cmds:plan",
+    "space": "linkage.cli.space_cmds:space",
 }
 
 

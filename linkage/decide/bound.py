@@ -355,9 +355,10 @@ def _wsum(a: np.ndarray, lw: np.ndarray, w: np.ndarray) -> np.ndarray:
 
 
 def _batch(lean, columns: dict, limits: dict, attributes: list[str], models: dict, counts, lot_index,
-           seed: int, cells: int, final_max: int):
+           seed: int, cells: int, final_max: int, each_sums: bool = True):
     """P(all pass) (B × rows) and P(pass) per attribute for a batch of
-    replicates (models of each target evaluated together)."""
+    replicates (models of each target evaluated together); without
+    ``each_sums`` the last stage's attributes get no P(pass) of their own."""
     from linkage.decide.propagate import within
     from linkage.models.lean import project
 
@@ -423,7 +424,8 @@ def _batch(lean, columns: dict, limits: dict, attributes: list[str], models: dic
             else:
                 pa = _passes(t, pred, r, limits[t], scale)
                 joint = pa if joint is None else joint & pa
-                p_each[t] = _wsum(pa, lw, w)
+                if each_sums:
+                    p_each[t] = _wsum(pa, lw, w)
         if final:
             joint = ok[..., None] if joint is None else joint & ok[..., None]
             p_all = _wsum(joint, lw, w) if joint.shape[-1] == lw.shape[-1] else np.einsum("brdl,bd->br", joint, w)
@@ -436,20 +438,24 @@ def _batch(lean, columns: dict, limits: dict, attributes: list[str], models: dic
 
 def chain_probabilities(lean, columns: dict, limits: dict, attributes: list[str], *, replicates: bool = True,
                         seed: int = 0, cells: int = CELLS, final_max: int = FINAL_MAX,
-                        memory_cells: int = 4_000_000) -> ChainProbabilities:
+                        memory_cells: int = 4_000_000, each: bool = True) -> ChainProbabilities:
     """P(all pass) and each P(pass) at each row of ``columns`` (every root
     setting, and any measured target, one value per row), for the point
     estimate and (when ``replicates`` and the model has them) every
     bootstrap replicate. ``limits`` maps each attribute to a spec limit
     (``min``/``max``); ``attributes`` are the predicted ones to judge.
     Replicates are evaluated in batches of at most ``memory_cells`` cells of
-    the last stage's sums; the result does not depend on the batch size."""
+    the last stage's sums; the result does not depend on the batch size.
+    ``each=False`` skips the last stage's per-attribute sums (P(all pass)
+    alone, unchanged; ``p_each`` then lacks those attributes), which a map
+    of many points does not need."""
     from linkage.models.lean import as_lean
 
     lean = as_lean(lean)
     columns = {str(k): np.asarray(v, dtype=float).reshape(-1) for k, v in columns.items()}
     point_models = {t: _Loop([tg.model_]) for t, tg in lean.targets.items()}
-    p_all, p_each = _batch(lean, columns, limits, attributes, point_models, None, None, seed, cells, final_max)
+    p_all, p_each = _batch(lean, columns, limits, attributes, point_models, None, None, seed, cells, final_max,
+                           each)
     p_all, p_each = p_all[0], {a: v[0] for a, v in p_each.items()}
     if not replicates:
         return ChainProbabilities(p_all, p_each, None, None, None)
@@ -465,7 +471,7 @@ def chain_probabilities(lean, columns: dict, limits: dict, attributes: list[str]
         idx = np.arange(start, min(start + size, reps.n))
         models = {t: reps.models[t].take(idx) for t in lean.targets}
         pa, pe = _batch(lean, columns, limits, attributes, models, reps.counts[idx], reps.lot_index, seed,
-                        cells, final_max)
+                        cells, final_max, each)
         all_b[idx] = pa
         for a in each_b:
             each_b[a][idx] = pe[a]

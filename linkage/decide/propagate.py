@@ -151,16 +151,34 @@ def needed_settings(chain, given: set[str]) -> list[str]:
     return needed
 
 
-def fill_settings(chain, given: dict[str, float]) -> tuple[dict[str, float], dict[str, str]]:
-    """The given values plus every other needed setting at its training
-    median. Returns the values and, per name, where it came from."""
+def fill_settings(chain, given: dict[str, float], *, scan=()) -> tuple[dict[str, float], dict[str, str]]:
+    """The given values plus every other needed setting, held coherently
+    with the given ones: at its conditional mean given the given settings
+    under a multivariate normal of the training lots' settings, clipped to
+    the training range (:mod:`linkage.decide.held`; the training mean when
+    no setting is given). A model saved before that model was kept holds
+    them at the training median, and the source says so. Names in ``scan``
+    are given only as placeholders for a value the caller scans (a roll
+    force range): they count as given but are not conditioned on. Returns
+    the values and, per name, where it came from."""
+    from linkage.decide import held
+
     values = dict(given)
     source = {name: "given" for name in given}
+    needed = needed_settings(chain, set(given))
+    model = held.of_chain(chain)
+    if model is not None:
+        known = {k: v for k, v in given.items() if k not in set(scan)}
+        coherent, label = held.hold(model, known, needed)
+        for name, v in coherent.items():
+            values[name] = float(v[0])
+            source[name] = label
+        needed = [n for n in needed if n not in coherent]
     medians = chain.medians if hasattr(chain, "medians") else chain.training["medians"]
-    for name in needed_settings(chain, set(given)):
+    for name in needed:
         if name not in medians or medians[name] is None or not np.isfinite(medians[name]):
             raise UsageError(f"{name} was not given and the training lots have no median for it; "
                              f"give it with --set {name}=VALUE")
         values[name] = float(medians[name])
-        source[name] = "training median"
+        source[name] = held.MEDIAN
     return values, source

@@ -27,6 +27,7 @@ import numpy as np
 
 from linkage import CAUTION
 from linkage.decide import compendial
+from linkage.decide.held import rule_of
 from linkage.decide.propagate import fill_settings, simulate, within
 from linkage.exceptions import UsageError
 from linkage.numbers import parse_plain_number
@@ -134,6 +135,17 @@ class WhatIf:
     assurance: float = 0.9
     p_pass_all_low: float | None = None
     bound_reason: str | None = None
+    #: how the settings not given were held (:func:`linkage.decide.held.rule_of`); None when all were given
+    held_rule: str | None = None
+
+    @property
+    def held_point(self) -> dict:
+        """The point the what-if ran at (given and held settings) against the
+        domain: the rule that held the settings not given, the names held,
+        and the verdict (the what-if's own, every stage it used)."""
+        held = [k for k, v in self.inputs.items() if v["source"] != "given"]
+        return {"rule": self.held_rule if held else "every setting the chain needs was given", "held": held,
+                "in_domain": bool(self.in_domain), "reasons": list(self.domain_reasons)}
 
     @property
     def promise(self) -> bool:
@@ -174,6 +186,7 @@ class WhatIf:
             "lot": self.lot,
             "product": self.product,
             "product_source": self.product_source,
+            "held_point": self.held_point,
             "caution": CAUTION,
         }
 
@@ -318,6 +331,7 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         time_point_recorded=recorded,
         lot=lot, product=product, product_source=product_source,
         assurance=assurance, p_pass_all_low=p_all_low, bound_reason=bound_reason,
+        held_rule=rule_of(chain),
     )
 
 

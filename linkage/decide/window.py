@@ -55,6 +55,7 @@ import pandas as pd
 from linkage import CAUTION
 from linkage.decide import compendial
 from linkage.decide.bound import NO_BOUND, chain_probabilities, check_assurance, with_unit_level
+from linkage.decide.held import held_point
 from linkage.decide.propagate import fill_settings, mean_passes, pass_matrix, simulate, within
 from linkage.exceptions import UsageError
 from linkage.models.lean import project
@@ -113,6 +114,9 @@ class WindowResult:
     #: the pointwise lower bound of P(all pass) on ``grid`` (each point alone at the assurance); ``p_all_low``
     #: is the band that holds over the window at once (bound.simultaneous_lower_bound)
     p_all_low_pointwise: np.ndarray | None = field(repr=False, default=None)
+    #: the held settings at the middle of the window (the training median porosity without one), checked
+    #: against every stage's domain, and the rule that held them (:func:`linkage.decide.held.held_point`)
+    held_point: dict | None = None
 
     @property
     def found(self) -> bool:
@@ -148,6 +152,7 @@ class WindowResult:
             "spec": self.spec,
             "dissolution_time_min": self.dissolution_time_min,
             "time_point_note": self.time_point_note,
+            "held_point": self.held_point,
             "caution": CAUTION,
         }
         if curve:
@@ -178,8 +183,10 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     ----------
     chain : a fitted chain (:class:`linkage.models.train.FittedChain`).
     spec : a :class:`linkage.spec.Spec`.
-    settings : values of settings to hold (``--set``); the rest are held at
-        the training median, and the result says which is which.
+    settings : values of settings to hold (``--set``); the rest are held
+        coherently with them (:func:`linkage.decide.propagate.fill_settings`),
+        and the result says which is which and whether the held point is in
+        the domain (``held_point``).
     confidence : the probability of passing every specification together
         that the window must reach, in (0, 1).
     assurance : the assurance of the lower bound on that probability, in
@@ -287,6 +294,10 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     if not bound["available"]:
         domain["promise"] = False
         domain["reasons"] = [bound["reason"]] + domain["reasons"]
+    middle = ((low_edge.value + high_edge.value) / 2 if low_edge.value is not None
+              else float(chain.training["medians"].get(POROSITY) or (lo + hi) / 2))
+    held_at = held_point(lean, {**values, POROSITY: middle,
+                                **{k: v for k, v in settings.items() if k in produced}})
     used = {k: {"value": float(v), "source": source[k]} for k, v in sorted(values.items())}
     used.update({k: {"value": float(settings[k]), "source": "given"} for k in settings if k in produced})
     return WindowResult(
@@ -303,6 +314,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         time_point_note=None if recorded or "dissolution_pct" not in chain.targets else UNRECORDED_NOTE,
         assurance=assurance, p_all_low=p_all_low, p_each_low=p_each_low, bound=bound,
         point_low=point_low.value, point_high=point_high.value, p_all_low_pointwise=p_all_pointwise,
+        held_point=held_at,
     )
 
 
@@ -442,7 +454,7 @@ def roll_force_range(chain, low: float | None, high: float | None, *, settings: 
     f_lo, f_hi = (float(v) for v in chain.training["ranges"][FORCE])
     forces = np.linspace(f_lo, f_hi, n_grid)
     held, source = fill_settings(chain, {k: v for k, v in settings.items() if k in stage.inputs and k != FORCE}
-                                 | {FORCE: 0.0})
+                                 | {FORCE: 0.0}, scan=(FORCE,))
     held.pop(FORCE)
     source.pop(FORCE)
     held = {k: v for k, v in held.items() if k in target.inputs}
@@ -472,7 +484,7 @@ def chain_force_range(chain, spec, *, settings: dict[str, float], confidence: fl
     """Roll forces where a lot passes every specification, through the whole chain.
 
     At the stated gap, roll and screw speed and the held downstream settings
-    (``settings``, the rest at the training median), each force of the
+    (``settings``, the rest held coherently with them), each force of the
     training range is simulated from the ribbon stage on (ribbon scatter,
     granule and tablet scatter included; :func:`linkage.decide.bound.chain_probabilities`).
     ``low``/``high``: the widest run of forces where the lower bound at
@@ -506,7 +518,7 @@ def chain_force_range(chain, spec, *, settings: dict[str, float], confidence: fl
     f_lo, f_hi = (float(v) for v in force_range)
     forces = np.linspace(f_lo, f_hi, n_grid)
     given = {k: v for k, v in settings.items() if k != FORCE and k not in lean.targets}
-    held, source = fill_settings(lean, {**given, FORCE: 0.0})
+    held, source = fill_settings(lean, {**given, FORCE: 0.0}, scan=(FORCE,))
     held.pop(FORCE)
     source.pop(FORCE)
     columns = {**{k: np.full(n_grid, v) for k, v in held.items()}, FORCE: forces}
@@ -528,6 +540,8 @@ def chain_force_range(chain, spec, *, settings: dict[str, float], confidence: fl
     else:
         out["low"], out["high"] = out["point_low"], out["point_high"]
     out["held_chain"] = {k: {"value": float(v), "source": source[k]} for k, v in sorted(held.items())}
+    at = (out["low"] + out["high"]) / 2 if out["low"] is not None else float(np.median(forces))
+    out["held_point"] = held_point(lean, {**held, FORCE: at})  # at the middle of the range (of the scan without one)
     out["chain_curve"] = {"roll_force_kn_per_cm": _floats(forces), "p_all": _floats(cp.p_all),
                           "p_all_low": None if p_low is None else _floats(p_low),
                           "p_all_low_pointwise": None if p_low is None else _floats(cp.low_all(assurance)),

@@ -556,6 +556,9 @@ class LeanChain:
         #: lot-level bootstrap replicates (:mod:`linkage.models.bootstrap`), or None for a model saved
         #: before they existed; :mod:`linkage.decide.bound` evaluates them
         self.bootstrap = spec.get("bootstrap")
+        #: mean, covariance and range of the training lots' settings (:mod:`linkage.decide.held`); absent
+        #: (empty names) in a model saved before coherent held settings
+        self.settings_names = list(spec.get("settings_names") or [])
 
     def root_inputs(self) -> list[str]:
         return list(self.chain_root_inputs)
@@ -643,6 +646,9 @@ def export(chain) -> dict:
         "stages": stages,
         # within-lot spread for unit-level compendial judgement (linkage.decide.compendial)
         "within_lot": chain.training.get("within_lot") or {},
+        # settings model for coherent held settings (linkage.decide.held); absent in a model trained before it
+        **{k: (list(v) if k == "settings_names" else np.asarray(v, float))
+           for k, v in (chain.training.get("settings") or {}).items()},
         # lot-level bootstrap replicates (linkage.models.bootstrap); absent in a model trained before them
         **({"bootstrap": _bootstrap_spec(chain.bootstrap)} if getattr(chain, "bootstrap", None) else {}),
     }

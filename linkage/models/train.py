@@ -514,6 +514,7 @@ def _training_record(table: pd.DataFrame, chain: ChainSpec, raw: pd.DataFrame, n
         "notes": notes,
     }
     rec["within_lot"] = _within_lot(raw)
+    rec.update(_settings_record(table, chain))
     if "product" in raw.columns:
         rec["products"] = sorted({str(v) for v in raw["product"].dropna()})
     if "manufactured_at" in raw.columns:
@@ -521,6 +522,19 @@ def _training_record(table: pd.DataFrame, chain: ChainSpec, raw: pd.DataFrame, n
         if len(t):
             rec["manufactured"] = [t.min().isoformat(), t.max().isoformat()]
     return rec
+
+
+def _settings_record(table: pd.DataFrame, chain: ChainSpec) -> dict:
+    """{"settings": mean, covariance and range of the chain's settings over the training
+    lots} for coherent held settings (:mod:`linkage.decide.held`); {} with fewer than 2
+    lots that have every setting."""
+    from linkage.decide.held import fit_settings
+
+    names = [c for c in chain.root_inputs() if c in table.columns]
+    rec = fit_settings(table[names].to_numpy(float), names) if names else None
+    if rec is None:
+        return {}
+    return {"settings": {k: (v if k == "settings_names" else np.asarray(v, float).tolist()) for k, v in rec.items()}}
 
 
 def _within_lot(raw: pd.DataFrame) -> dict:

@@ -265,6 +265,10 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         from linkage.report.plan_section import plan_section, read_plan
 
         plan_section(b, chain, table, read_plan(plan))
+
+    from linkage.report.space_section import space_section  # the design-space map (issue 16)
+
+    space_section(b, chain, table, spec, confidence=confidence, assurance=assurance, seed=seed)
     _watch_section(b, chain, table, window)
     _domain_section(b, chain, table)
     _model_card(b, chain, spec, window)
@@ -558,15 +562,24 @@ def _ribbon_section(b, chain, table, limits):
     shown_gap = np.array([levels[np.argmin(np.abs(levels - g))] if np.isfinite(g) else np.nan for g in gap])
     curves = {}
     held = {}
+    held_coherent = False
     if FORCE in target.inputs:
         lo, hi = (float(v) for v in chain.training["ranges"][FORCE])
         grid = np.linspace(lo, hi, 60)
         medians = chain.training["medians"]
         held = {c: float(medians[c]) for c in target.inputs if c not in (FORCE, GAP)}
+        from linkage.decide import held as coherent
+
+        model = coherent.of_chain(chain)  # coherent held settings along each curve; medians for an older model
         for g in levels:
-            x = pd.DataFrame({**{c: np.full(len(grid), v) for c, v in held.items()}, FORCE: grid,
-                              **({GAP: np.full(len(grid), g)} if GAP in target.inputs else {})})[target.inputs]
+            given = {FORCE: grid, **({GAP: np.full(len(grid), g)} if GAP in target.inputs else {})}
+            at = {c: np.full(len(grid), v) for c, v in held.items()}
+            if model is not None:
+                at.update(coherent.hold(model, given, list(held))[0])
+            x = pd.DataFrame({**at, **given})[target.inputs]
             curves[g] = (grid, np.asarray(target.predict(x), float))
+        if model is not None and held:
+            held, held_coherent = {}, True
     ax = F.plot_ribbon_fit(force, t[POROSITY].to_numpy(float), shown_gap, curves, limit=limits.get(POROSITY))
     held_text = ", ".join(f"{c} = {v:.4g}" for c, v in held.items())
     binned = "" if len(levels) == len(np.unique(gap[np.isfinite(gap)])) else \
@@ -574,6 +587,9 @@ def _ribbon_section(b, chain, table, limits):
     b.figure(ax, f"Ribbon porosity of each lot against specific roll force, by roll gap; lines: the selected "
                  f"{target.selected} model of the ribbon stage at each gap"
                  + (f", other settings at their training medians ({held_text})" if held_text else "")
+                 + ("" if not held_coherent else
+                    ", other settings held coherently (their conditional mean given force and gap over the "
+                    "training lots, Anderson 2003, Thm 2.5.1)")
                  + "." + binned)
     b.add(f"<p>Selected model: <b>{_e(target.selected)}</b>; cross-validated RMSE "
           f"{_f(target.candidates[target.selected]['rmse'])} (porosity, a fraction), on {target.n_lots} lots.</p>")
@@ -790,11 +806,11 @@ def _curves(b, chain, table, limits, window, curve_draws, seed):
         obs = (t[POROSITY], t[name]) if name in t.columns and POROSITY in t.columns else None
         F.plot_porosity_curve(curves.grid, c["mean"], c["low"], c["high"], name=name, level=curves.level,
                               limit=limits.get(name), observed=obs, window=win, ax=ax)
-    held = ", ".join(f"{k} = {v['value']:.4g}" for k, v in curves.settings.items())
+    held = ", ".join(f"{k} = {v['value']:.4g} ({v['source']})" for k, v in curves.settings.items())
     b.figure(fig, f"Each attribute against ribbon porosity through the chain (partial-dependence style): line, "
                   f"the chain of mean predictions; band, the central {curves.level:.0%} of simulated lots "
                   f"({curves.n_draws} draws per point, out-of-fold residuals of every stage); dots, training lots; "
-                  f"dashed, specification limits. Held at their training medians: {held or 'nothing'}.")
+                  f"dashed, specification limits. Held: {held or 'nothing'}.")
 
 
 def _latest_lot(b, chain, table):
@@ -1145,7 +1161,8 @@ def _cautions(b, chain):
         f"Intervals and probabilities come from out-of-fold errors of {n} lots; with few lots they are themselves "
         "uncertain, and coverage is promised for lots like the training lots, not for a changed raw material, "
         "site or scale.",
-        "The porosity window holds the other settings where the window section says (given or training median); "
+        "The porosity window holds the other settings where the window section says (given, or held coherently with the given ones: "
+        "their conditional mean over the training lots); "
         "a different setting can move it. The mean-response window overstates what can be promised.",
         "Retrain when new lots arrive or a residual chart drifts; a model is only as current as its data hash.",
     ]

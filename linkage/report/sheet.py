@@ -206,6 +206,12 @@ def whatif_html(result) -> str:
         f"<tr><td>{escape(k)}{_unit(k)}</td><td class=num>{_fmt(v['value'])}</td><td>{escape(v['source'])}</td></tr>"
         for k, v in d["inputs"].items()
     )
+    hp = d.get("held_point") or {}
+    held_html = ""
+    if hp.get("held"):
+        from linkage.decide.held import held_text
+
+        held_html = f"<p class=meta>Held: {escape(hp['rule'])}. {escape(held_text(hp))}</p>"
     bound = d["p_pass_all_bound"]
     if d["in_domain"]:
         verdict = '<div class="in"><b>Inside the applicability domain</b> of every stage used.</div>'
@@ -258,6 +264,7 @@ def whatif_html(result) -> str:
 {spec_html}
 <h2>Inputs</h2>
 <table><tr><th>name</th><th class=num>value</th><th>source</th></tr>{inputs}</table>
+{held_html}
 <h2>Predictions ({level}% intervals)</h2>
 {p_all}
 <p class=meta>Each bar is drawn on its own scale: the shaded bar is the interval, the dot the prediction, the

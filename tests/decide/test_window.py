@@ -128,7 +128,8 @@ def test_whatif_json_shape(scenario):
     d = predict_whatif(chain, {"roll_force_kn_per_cm": 9.0, "roll_gap_mm": 2.5}, spec=spec).to_dict()
     assert {"model_id", "inputs", "predictions", "in_domain", "domain_reasons"} <= set(d)
     assert d["inputs"]["roll_force_kn_per_cm"] == {"value": 9.0, "source": "given"}
-    assert d["inputs"]["roll_speed_rpm"]["source"] == "training median"
+    # held at its conditional mean given the given settings (linkage.decide.held)
+    assert d["inputs"]["roll_speed_rpm"]["source"] == "held coherently (conditional mean of training lots)"
     for name in ("ribbon_porosity", "granule_d50_um", "fines_pct", "dissolution_pct"):
         p = d["predictions"][name]
         assert p["low"] <= p["value"] <= p["high"]

@@ -145,11 +145,12 @@ def test_lot_contributions_from_the_assembled_table(chain, table):
 
 def test_porosity_curves_follow_the_chain_of_mean_predictions(chain):
     """The mean curve is granule stage → tablet stage evaluated by hand with
-    each target's predict at the training medians of the other settings."""
+    each target's predict at the held settings (nothing given: the training means, linkage.decide.held)."""
     curves = explain.porosity_curves(chain, n_grid=9, n_draws=300, level=0.9, seed=3)
     lo, hi = chain.training["ranges"]["ribbon_porosity"]
     assert curves.grid[0] == pytest.approx(lo) and curves.grid[-1] == pytest.approx(hi)
-    med = chain.training["medians"]
+    st = chain.training["settings"]
+    med = {n: st["settings_mean"][i] for i, n in enumerate(st["settings_names"])}
     x = pd.DataFrame({"ribbon_porosity": curves.grid, "mill_screen_mm": med["mill_screen_mm"],
                       "compression_force_kn": med["compression_force_kn"]})
     for name in ("granule_d50_um", "fines_pct"):
@@ -159,16 +160,17 @@ def test_porosity_curves_follow_the_chain_of_mean_predictions(chain):
     for name, c in curves.curves.items():
         np.testing.assert_allclose(c["mean"], chain.targets[name].predict(x), rtol=1e-10, err_msg=name)
         assert np.all(c["low"] < c["high"]), name
-    assert curves.settings == {"compression_force_kn": {"value": med["compression_force_kn"],
-                                                        "source": "training median"},
-                               "mill_screen_mm": {"value": med["mill_screen_mm"], "source": "training median"}}
+    mean = "held at the training mean (no setting given to condition on)"
+    assert curves.settings == {"compression_force_kn": {"value": pytest.approx(med["compression_force_kn"]),
+                                                        "source": mean},
+                               "mill_screen_mm": {"value": pytest.approx(med["mill_screen_mm"]), "source": mean}}
 
 
 def test_porosity_curve_bands_hold_the_true_chain(chain, lots):
     """The synthetic product's true (noise-free) chain at the same settings
     lies inside the 90 % band of simulated lots across the porosity range."""
     curves = explain.porosity_curves(chain, n_grid=15, n_draws=500, level=0.9, seed=0)
-    med = chain.training["medians"]
+    med = {k: v["value"] for k, v in curves.settings.items()}
     n = len(curves.grid)
     truth = lots.truth.chain_mean({"mill_screen_mm": np.full(n, med["mill_screen_mm"]),
                                    "compression_force_kn": np.full(n, med["compression_force_kn"])},

@@ -1,0 +1,131 @@
+"""Coherent held settings (linkage.decide.held, propagate.fill_settings)."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from sklearn.linear_model import LinearRegression
+
+from linkage.decide import held
+from linkage.decide.propagate import fill_settings
+from linkage.decide.whatif import predict_whatif
+from linkage.models.lean import LeanChain, as_lean
+
+
+def _regression(X, g, m, xg):
+    """E[x_m | x_g] as the least-squares regression of the missing settings on
+    the given ones over the same lots: the sample form of the conditional mean
+    μ_m + Σ_mg Σ_gg⁻¹ (x_g − μ_g) (Anderson 2003, An Introduction to
+    Multivariate Statistical Analysis, Thm 2.5.1 and §2.5.2: the regression
+    coefficients are Σ_mg Σ_gg⁻¹)."""
+    return LinearRegression().fit(X[:, g], X[:, m]).predict(np.atleast_2d(xg))
+
+
+@pytest.mark.parametrize("given", [[5], [1, 2], [0, 1, 2, 4]])
+def test_conditional_mean_is_the_regression_of_missing_on_given(given):
+    rng = np.random.default_rng(7)
+    A = rng.normal(size=(6, 6))
+    X = rng.normal(size=(50, 6)) @ A + rng.normal(size=6)
+    rec = held.fit_settings(X, [f"s{i}" for i in range(6)])
+    missing = [j for j in range(6) if j not in given]
+    xg = rng.normal(size=(4, len(given))) @ A[np.ix_(given, given)] + X[:4, given]
+    ours = held.conditional_mean(rec["settings_mean"], rec["settings_cov"], given, xg, missing)
+    np.testing.assert_allclose(ours, _regression(X, given, missing, xg), rtol=1e-9, atol=1e-9)
+
+
+def test_nothing_given_holds_the_training_mean_and_says_so():
+    X = np.random.default_rng(1).normal(size=(30, 3))
+    m = held.settings_model(*(held.fit_settings(X, ["a", "b", "c"])[k] for k in
+                              ("settings_mean", "settings_cov", "settings_names", "settings_low", "settings_high")))
+    values, source = held.hold(m, {}, ["a", "c"])
+    assert source == held.MEAN
+    np.testing.assert_allclose([values["a"][0], values["c"][0]], X.mean(axis=0)[[0, 2]], rtol=1e-12)
+
+
+def test_held_values_are_clipped_to_the_training_range():
+    X = np.column_stack([np.linspace(0, 1, 20), np.linspace(0, 1, 20) * 2 + 1])  # b = 2a + 1, b in [1, 3]
+    m = held.settings_model(*(held.fit_settings(X, ["a", "b"])[k] for k in
+                              ("settings_mean", "settings_cov", "settings_names", "settings_low", "settings_high")))
+    values, source = held.hold(m, {"a": np.array([0.5, 5.0])}, ["b"])
+    assert source == held.COHERENT
+    np.testing.assert_allclose(values["b"], [2.0, 3.0])  # 2·0.5 + 1 = 2; 2·5 + 1 = 11 clipped to 3
+
+
+def test_fill_settings_holds_the_conditional_mean_of_the_training_lots(scenario):
+    _, chain, _, table = scenario
+    names = chain.training["settings"]["settings_names"]
+    assert names == chain.chain.root_inputs()
+    X = table[names].dropna().to_numpy(float)
+    g = [names.index("compression_force_kn"), names.index("roll_gap_mm")]
+    missing = [j for j in range(len(names)) if j not in g]
+    expected = np.clip(_regression(X, g, missing, [[10.0, 2.0]])[0], X[:, missing].min(axis=0),
+                       X[:, missing].max(axis=0))
+    for c in (chain, as_lean(chain)):  # the fitted chain and the lean model agree
+        values, source = fill_settings(c, {"compression_force_kn": 10.0, "roll_gap_mm": 2.0})
+        np.testing.assert_allclose([values[names[j]] for j in missing], expected, rtol=1e-9)
+        assert {source[names[j]] for j in missing} == {held.COHERENT}
+
+
+def test_a_model_saved_before_keeps_the_median_rule_and_says_so(scenario):
+    _, chain, spec, _ = scenario
+    lean = as_lean(chain)
+    old = LeanChain({k: v for k, v in lean.spec.items() if not k.startswith("settings_")})
+    values, source = fill_settings(old, {"roll_force_kn_per_cm": 9.0})
+    assert source["roll_gap_mm"] == "training median"
+    assert values["roll_gap_mm"] == chain.training["medians"]["roll_gap_mm"]
+    d = predict_whatif(old, {"roll_force_kn_per_cm": 9.0}, spec=spec, n_draws=200).to_dict()
+    assert d["held_point"]["rule"] == held.RULE_MEDIAN and "retrain" in d["held_point"]["rule"]
+
+
+@pytest.mark.slow
+def test_predict_compression_force_alone_stays_in_the_domain(tmp_path, monkeypatch):
+    """The issue's case: screw speed follows roll speed × gap in the lots
+    (linkage.synthetic._design), so the independent medians are a
+    combination no lot ran (Q residual above its limit, driven by screw
+    speed); held coherently, the what-if is inside the domain."""
+    from click.testing import CliRunner
+
+    from linkage.assemble import assemble
+    from linkage.cli.main import cli
+    from linkage.models.registry import save
+    from linkage.models.train import train_chain
+    from linkage.synthetic import make_lots
+
+    chain = train_chain(assemble(make_lots(40, seed=39).tables), seed=0)
+    models = tmp_path / "models"
+    save(chain, models)
+    monkeypatch.chdir(tmp_path)  # no lot store here: nothing recorded
+    r = CliRunner().invoke(cli, ["predict", "--models-dir", str(models), "--set", "compression_force_kn=10",
+                                 "--json"])
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert d["in_domain"] is True and d["held_point"]["in_domain"] is True
+    assert d["inputs"]["screw_speed_rpm"]["source"] == held.COHERENT
+    lean = as_lean(chain)
+    old = LeanChain({k: v for k, v in lean.spec.items() if not k.startswith("settings_")})
+    before = predict_whatif(old, {"compression_force_kn": 10.0}, n_draws=200)
+    assert before.in_domain is False
+    assert any("Q residual" in r and "screw_speed_rpm" in r for r in before.domain_reasons)
+
+
+def test_window_and_force_range_state_their_held_point(scenario):
+    """The held point's verdict is the stages' own domain check
+    (DomainModel via linkage.models.lean.domain_verdicts) at the held
+    settings and the chain of mean predictions."""
+    from linkage.decide.window import find_window
+
+    _, chain, spec, _ = scenario
+    w = find_window(chain, spec, settings={"roll_gap_mm": 2.5}, n_grid=21, n_draws=300).to_dict(curve=False)
+    hp = w["held_point"]
+    assert hp["rule"] == held.RULE_COHERENT and isinstance(hp["in_domain"], bool)
+    assert hp["point"]["roll_gap_mm"] == 2.5
+    rf = w["roll_force_kn_per_cm"]["held_point"]
+    lean = as_lean(chain)
+    ribbon = next(s for s in lean.stages if "ribbon_porosity" in s.targets)
+    direct = ribbon.domain.check({c: [rf["point"][c]] for c in ribbon.domain.inputs})[0]
+    assert rf["in_domain"] == (direct["in_domain"] and not any(r.startswith("granule") or r.startswith("tablet")
+                                                               for r in rf["reasons"]))
+    assert [r for r in rf["reasons"] if r.startswith(ribbon.name)] == [f"{ribbon.name} stage: {r}"
+                                                                        for r in direct["reasons"]]

@@ -1,0 +1,158 @@
+"""The design-space map and the acceptable ranges (linkage.decide.space)."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+from sklearn.linear_model import LinearRegression
+
+from linkage.cli.main import cli
+from linkage.decide.bound import chain_probabilities
+from linkage.decide.space import FORCE, GAP, design_space, largest_rectangle
+from linkage.exceptions import UsageError
+
+
+def _brute_force(m: np.ndarray) -> int:
+    """The largest area of an all-True rectangle, by trying every rectangle
+    (the definition itself)."""
+    best = 0
+    nr, nc = m.shape
+    for r0 in range(nr):
+        for r1 in range(r0, nr):
+            for c0 in range(nc):
+                for c1 in range(c0, nc):
+                    if m[r0:r1 + 1, c0:c1 + 1].all():
+                        best = max(best, (r1 - r0 + 1) * (c1 - c0 + 1))
+    return best
+
+
+@pytest.mark.parametrize("seed", range(40))
+def test_largest_rectangle_matches_a_brute_force_search(seed):
+    rng = np.random.default_rng(seed)
+    shape = tuple(rng.integers(1, 9, size=2))
+    m = rng.uniform(size=shape) < rng.uniform(0.3, 0.95)
+    box = largest_rectangle(m)
+    best = _brute_force(m)
+    if best == 0:
+        assert box is None
+        return
+    r0, r1, c0, c1 = box
+    assert m[r0:r1 + 1, c0:c1 + 1].all()
+    assert (r1 - r0 + 1) * (c1 - c0 + 1) == best
+
+
+def test_largest_rectangle_of_a_full_and_an_empty_grid():
+    assert largest_rectangle(np.ones((3, 4), bool)) == (0, 2, 0, 3)
+    assert largest_rectangle(np.zeros((3, 4), bool)) is None
+
+
+@pytest.fixture(scope="module")
+def small_map(scenario):
+    _, chain, spec, _ = scenario
+    return design_space(chain, spec, n_grid=5, seed=2)
+
+
+def test_held_settings_per_grid_point_are_the_regression_on_the_mapped_ones(scenario, small_map):
+    """Each held setting at each grid point is the conditional mean given force
+    and gap: the least-squares regression over the training lots (Anderson 2003,
+    Thm 2.5.1, sample form), clipped to the training range."""
+    _, chain, _, table = scenario
+    r = small_map
+    X, Y = np.meshgrid(r.xs, r.ys)
+    lots = table[chain.chain.root_inputs()].dropna()
+    for name, values in r.held.items():
+        fit = LinearRegression().fit(lots[[FORCE, GAP]].to_numpy(float), lots[name].to_numpy(float))
+        expected = np.clip(fit.predict(np.column_stack([X.ravel(), Y.ravel()])), lots[name].min(), lots[name].max())
+        np.testing.assert_allclose(values.ravel(), expected, rtol=1e-8, err_msg=name)
+
+
+def test_domain_mask_is_every_stages_domain_check(scenario, small_map):
+    """The mask against DomainModel.check of each fitted stage, at the held
+    point and the fitted chain's own mean predictions (pandas/scikit-learn
+    path, not the lean one)."""
+    _, chain, _, _ = scenario
+    r = small_map
+    X, Y = np.meshgrid(r.xs, r.ys)
+    frame = pd.DataFrame({FORCE: X.ravel(), GAP: Y.ravel(), **{k: v.ravel() for k, v in r.held.items()}})
+    ok = np.ones(len(frame), dtype=bool)
+    for stage in chain.stages:
+        for t in stage.targets:
+            frame[t] = chain.targets[t].predict(frame[chain.targets[t].inputs])
+        ok &= np.array([v.in_domain for v in stage.domain.check(frame)])
+    np.testing.assert_array_equal(r.in_domain.ravel(), ok)
+
+
+def test_map_points_are_the_bound_of_the_chain_at_that_point(scenario, small_map):
+    """A grid point's P(all pass) and bound are chain_probabilities at that
+    point alone (the same 20 upstream draws per point: common random numbers)."""
+    _, chain, spec, _ = scenario
+    r = small_map
+    i, j = 2, 3
+    row = {FORCE: [r.xs[j]], GAP: [r.ys[i]], **{k: [v[i, j]] for k, v in r.held.items()}}
+    cp = chain_probabilities(chain, row, spec.limits, r.attributes, seed=2, cells=20)
+    assert r.p_all[i, j] == pytest.approx(cp.p_all[0], abs=1e-12)
+    assert r.p_all_low[i, j] == pytest.approx(cp.low_all(r.assurance)[0], abs=1e-12)
+    assert np.all(r.p_all_low <= r.p_all + 1e-12)
+
+
+def test_acceptable_ranges_are_a_box_of_passing_points(small_map):
+    r = small_map
+    ar = r.ranges
+    if not ar["found"]:
+        assert not r.region.any()
+        return
+    (x0, x1), (y0, y1) = ar["ranges"][FORCE], ar["ranges"][GAP]
+    inside = np.ix_((r.ys >= y0) & (r.ys <= y1), (r.xs >= x0) & (r.xs <= x1))
+    assert r.region[inside].all() and r.region[inside].size == ar["grid_cells"]["n_points"]
+    assert ar["set_point"] == {FORCE: pytest.approx((x0 + x1) / 2), GAP: pytest.approx((y0 + y1) / 2)}
+    assert (r.region.sum() == 0) or r.region[inside].size == _brute_force(r.region)
+
+
+def test_map_refuses_what_it_cannot_map(scenario):
+    _, chain, spec, _ = scenario
+    with pytest.raises(UsageError, match="not a setting of this model's chain"):
+        design_space(chain, spec, x="fines_pct", n_grid=3)
+    with pytest.raises(UsageError, match="both roll_gap_mm"):
+        design_space(chain, spec, x=GAP, y=GAP, n_grid=3)
+    with pytest.raises(UsageError, match="is mapped"):
+        design_space(chain, spec, settings={GAP: 2.0}, n_grid=3)
+
+
+def test_space_command_json_and_errors(saved_model, tmp_path):
+    models_dir, model_id, spec_path = saved_model
+    runner = CliRunner()
+    png = tmp_path / "map.png"
+    r = runner.invoke(cli, ["space", "--spec", str(spec_path), "--grid", "4", "--y", "compression_force_kn",
+                            "--set", "mill_screen_mm=1.0", "--json", "--png", str(png), "--models-dir",
+                            str(models_dir)])
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert d["model_id"] == model_id and d["x"]["name"] == FORCE and d["y"]["unit"] == "kN"
+    assert len(d["p_all"]) == 4 and len(d["p_all"][0]) == 4 and len(d["in_domain"]) == 4
+    assert d["given"] == {"mill_screen_mm": 1.0} and "not release testing" in d["caution"]
+    assert {"found", "basis"} <= set(d["acceptable_ranges"])
+    assert png.read_bytes()[:4] == b"\x89PNG"
+    bad = runner.invoke(cli, ["space", "--spec", str(spec_path), "--x", "nope", "--models-dir", str(models_dir)])
+    assert bad.exit_code == 2 and "'nope' is not a setting" in bad.output
+
+
+def test_the_box_states_its_simultaneous_band(small_map):
+    """The lowest point over the box of the band that holds over it at once is
+    the replicates' common quantile there (bound.simultaneous_lower_bound),
+    never above the pointwise bound's lowest point in the box."""
+    r = small_map
+    ar = r.ranges
+    if not ar["found"]:
+        return
+    (i0, i1), (j0, j1) = ar["grid_cells"]["rows"], ar["grid_cells"]["columns"]
+    box = np.zeros(r.p_all.shape, bool)
+    box[i0:i1 + 1, j0:j1 + 1] = True
+    q = ar["simultaneous_quantile"]
+    expected = np.minimum(np.nanquantile(r.replicates, q, axis=0), r.p_all.ravel())[box.ravel()].min()
+    assert ar["simultaneous_low_min"] == pytest.approx(expected)
+    assert ar["simultaneous_low_min"] <= r.p_all_low[box].min() + 1e-12
+    assert ar["simultaneous_holds"] == (ar["simultaneous_low_min"] >= r.confidence)
