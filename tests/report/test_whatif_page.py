@@ -11,6 +11,8 @@ reports every request the page makes.
 
 from __future__ import annotations
 
+import os
+
 import base64
 import io
 import json
@@ -235,6 +237,10 @@ def test_the_page_agrees_with_predict_json_at_20_random_settings(opened, demo):
 
 @pytest.mark.slow
 @pytest.mark.browser
+@pytest.mark.skipif(os.environ.get("LINKAGE_TIMING") != "1",
+                    reason="a timing, not a test of the computation: it depends on the machine's load, so it is "
+                           "out of the default run (DEVELOPERS: benchmarks are not timed tests); run it on an idle "
+                           "machine with LINKAGE_TIMING=1")
 def test_the_page_updates_within_50_ms_of_a_control_change(opened):
     """Measured in the browser (performance.now() around the recomputation and
     the redraw that one input event causes); the median of 15 changes."""
