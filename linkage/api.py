@@ -617,8 +617,14 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
     values = {k: v for k, v in from_process.items() if k in known}
     values.update(given)
     target = lean.targets[guide.POROSITY]
-    held = [k for k in target.inputs if k not in values]
-    values.update({k: float(lean.medians[k]) for k in held})
+    held: dict[str, str] = {}
+    missing = [k for k in target.inputs if k not in values]
+    if missing:  # held as every command holds them (coherently with the given settings)
+        from linkage.decide.propagate import fill_settings
+
+        filled, sources = fill_settings(lean, {k: v for k, v in values.items() if k in known})
+        values.update({k: float(filled[k]) for k in missing})
+        held = {k: sources[k] for k in missing}
     if window is None:
         from linkage.decide.window import find_window
 
@@ -640,13 +646,13 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
                                        "sampled_at"])
     result = guide.advise(lean, df, values, window, ribbon, stage.residual_lots, lot=lot, window_source=source,
                           adjust=adjust, baseline=baseline, confirm_shift_sd=confirm_shift_sd, alpha=alpha,
-                          power=power, held_at_median=held)
+                          power=power, held=held)
     import hashlib
 
     digest = hashlib.sha256(Path(samples).read_bytes()).hexdigest()
     result.recorded = record(store, "running", model_id=lean.model_id, lot=lot,
                              inputs={"samples_file": Path(samples).name, "samples_sha256": digest,
-                                     "settings": values, "held_at_median": held, "window": list(window),
+                                     "settings": values, "held": held, "window": list(window),
                                      "window_source": source, "adjust": adjust, "baseline": baseline,
                                      "confirm_shift_sd": confirm_shift_sd, "alpha": alpha, "power": power,
                                      "spec_sha256": None if spec is None else spec.sha256},

@@ -327,7 +327,10 @@ class RunningResult:
     model_id: str
     adjust: str
     settings: dict[str, float]
-    held_at_median: list[str]
+    #: settings of the ribbon stage given neither by --set nor by the process row: name -> how it was held
+    #: (linkage.decide.propagate.fill_settings: coherently with the given ones, or at the training median
+    #: for a model saved before coherent held settings)
+    held: dict[str, str]
     window: dict
     sigma: dict
     centre: float
@@ -350,7 +353,7 @@ class RunningResult:
         last = self.samples[-1]
         return {
             "lot": self.lot, "model_id": self.model_id, "adjust": self.adjust,
-            "settings": self.settings, "held_at_median": self.held_at_median,
+            "settings": self.settings, "held": self.held,
             "window": self.window,
             "within_lot_sd": self.sigma,
             "centre": self.centre, "baseline_samples": self.baseline,
@@ -408,8 +411,9 @@ class RunningResult:
                      f"SD from the centre, two-sided α = {cf['alpha']:g}, power {cf['power']:g})")
         for note in self.notes if c is not None else []:
             lines.append(f"Note: {note}")
-        if self.held_at_median:
-            lines.append(f"Held at the training median: {', '.join(self.held_at_median)}")
+        if self.held:
+            lines.append("Held (not given): " + "; ".join(f"{k} = {self.settings[k]:.4g} ({v})"
+                                                           for k, v in self.held.items()))
         lines.append("")
         lines.append(CAUTION)
         return "\n".join(lines)
@@ -433,7 +437,7 @@ def _hours(sampled_at) -> np.ndarray:
 def advise(lean, samples, settings: dict[str, float], window: tuple[float, float], training_ribbon,
            training_lots, *, lot: str, window_source: str = "given", adjust: str = "roll_force_kn_per_cm",
            baseline: int = 5, confirm_shift_sd: float = 1.0, alpha: float = 0.05, power: float = 0.9,
-           held_at_median: list[str] | None = None) -> RunningResult:
+           held: dict[str, str] | None = None) -> RunningResult:
     """The guidance for one running lot (see the module notes).
 
     ``samples``: a DataFrame with ``sample``, ``sampled_at`` and the two
@@ -557,7 +561,7 @@ def advise(lean, samples, settings: dict[str, float], window: tuple[float, float
              "signalled_samples": [r["sample"] for r in rows if r["signals"]]}
     return RunningResult(
         lot=str(lot), model_id=lean.model_id, adjust=adjust, settings=values,
-        held_at_median=list(held_at_median or []),
+        held=dict(held or {}),
         window={"low": low, "high": high, "centre": centre_w, "source": window_source},
         sigma={"value": float(sigma), "lots": int(sigma_lots), "dof": int(sigma_dof)},
         centre=centre, baseline=m, samples=rows, drift=drift, level=level, expected_porosity=expected,

@@ -212,3 +212,23 @@ def test_window_from_the_spec_and_a_gap_correction(lab):
         assert d["correction"]["change"] < 0
     else:
         assert d["correction"]["change"] > 0
+
+
+def test_settings_not_given_are_held_as_every_command_holds_them(lab, tmp_path):
+    """With only the roll force given, the other ribbon settings are held by
+    linkage.decide.propagate.fill_settings (coherently with the given ones),
+    and the advice says how each was held."""
+    from linkage.api import _lean
+    from linkage.decide.propagate import fill_settings
+
+    folder, ws, truth = lab
+    atline = tmp_path / "atline_held.csv"
+    drifting_samples(truth, 8, 0.0, seed=5).to_csv(atline, index=False)
+    r = ws.running(atline, settings={"roll_force_kn_per_cm": 8.0}, window=(0.25, 0.35))
+    d = r.to_dict()
+    assert set(d["held"]) == {"roll_gap_mm", "roll_speed_rpm", "screw_speed_rpm"}
+    filled, sources = fill_settings(_lean(ws.models_dir, "latest"), {"roll_force_kn_per_cm": 8.0})
+    for k, how in d["held"].items():
+        assert d["settings"][k] == pytest.approx(filled[k]) and how == sources[k]
+        assert "median" not in how  # a model trained now holds them coherently
+    assert "Held (not given)" in r.text()
