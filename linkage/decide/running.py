@@ -473,8 +473,9 @@ def advise(lean, samples, settings: dict[str, float], window: tuple[float, float
     reference = training_ribbon[training_ribbon["lot"].astype(str).isin(trained)]
     cols = ["lot", "sample", "envelope_density_g_cm3", "skeletal_density_g_cm3", "sampled_at"]
     # each sample against the window and 3σ of the earlier samples' mean (the drift watch's flags)
-    per = porosity_within(pd.concat([reference[cols], df[cols]], ignore_index=True), trained, (low, high),
-                          lots=[str(lot)])
+    # joined column by column: pandas 2.1 fails to concatenate frames whose datetime blocks differ in layout
+    joined = pd.DataFrame({c: pd.concat([reference[c], df[c]], ignore_index=True) for c in cols})
+    per = porosity_within(joined, trained, (low, high), lots=[str(lot)])
     eps = (1 - df["envelope_density_g_cm3"] / df["skeletal_density_g_cm3"]).to_numpy(float)
     hours = _hours(df["sampled_at"])
     n = len(eps)
