@@ -280,13 +280,22 @@ def simultaneous_lower_bound(replicates, assurance: float, point, region) -> tup
     if not region.any():
         return lower_bound(reps, a, point), 1.0 - a
     R = reps[:, region]
-    levels = np.linspace(0.0, 1.0 - a, 401)
-    with np.errstate(invalid="ignore"):
-        Q = np.nanquantile(R, levels, axis=0)  # (levels, points)
-        above = (R[:, None, :] >= Q[None, :, :] - 1e-12) | np.isnan(R[:, None, :])
-    joint = above.all(axis=2).mean(axis=0)  # per level: the share of replicates above everywhere
-    ok = np.flatnonzero(joint >= a - 1e-12)
-    q = float(levels[ok[-1]]) if ok.size else 0.0
+    missing = np.isnan(R)
+
+    def joint(level: float) -> float:  # the share of replicates at or above the band everywhere in the region
+        with np.errstate(invalid="ignore"):
+            band_r = np.nanquantile(R, level, axis=0)
+            return float(np.mean(np.all((R >= band_r - 1e-12) | missing, axis=1)))
+
+    # the share falls as q rises (each point's quantile rises with q): bisection, memory B × points
+    q_low, q_high = 0.0, 1.0 - a
+    if joint(q_high) >= a - 1e-12:
+        q = q_high
+    else:
+        for _ in range(30):
+            mid = (q_low + q_high) / 2
+            q_low, q_high = (mid, q_high) if joint(mid) >= a - 1e-12 else (q_low, mid)
+        q = q_low
     band = np.nanquantile(reps, q, axis=0)
     return np.minimum(band, point), q
 
