@@ -56,6 +56,7 @@ CANDIDATE_ROLE = {
     "pls": "partial least squares",
     "quadratic_ridge": "ridge with squares and products",
     "boosting": "gradient boosting",
+    "johanson_baseline": "physical baseline of the ribbon stage (Johanson's rolling theory)",
 }
 
 EXTRA_STYLE = """
@@ -705,7 +706,7 @@ def _candidate_table(target, unit: str) -> str:
         classes.append("sel" if n == target.selected else "")
     for n, why in (getattr(target, "unavailable", None) or {}).items():
         role = _e(CANDIDATE_ROLE.get(n, ""))
-        rows.append([_e(n), f"{role}; <i>not used: {_e(why)}</i>", "–", "–", "–", "–", "–"])
+        rows.append([_e(n), (f"{role}; " if role else "") + f"<i>not used: {_e(why)}</i>", "–", "–", "–", "–", "–"])
         classes.append("")
     method = getattr(target, "noise_floor_method", None) or "not estimated"
     # the noise floor's own row: its RMSE/noise is 1 by definition
