@@ -146,11 +146,9 @@ class _Stacked:
         if self.kind == "linear":
             return np.einsum("bnp,bp->bn", X3 - p["x_mean"][:, None, :], p["coef"]) + p["intercept"][:, None]
         if self.kind == "link":  # linkage.models.lean.link_predict, every replicate at once
-            from linkage.models.lean import link_inverse
+            from linkage.models.lean import _link_inputs, link_inverse
 
-            with np.errstate(divide="ignore", invalid="ignore"):
-                logs = np.log(np.maximum(X3, np.finfo(float).tiny))
-            Z = np.where(p["log_mask"][:, None, :], logs, X3)
+            Z = _link_inputs(X3, p["log_mask"][:, None, :])
             eta = np.einsum("bnp,bp->bn", Z - p["x_mean"][:, None, :], p["coef"]) + p["intercept"][:, None]
             return link_inverse(p["link"], eta, p["y_max"][:, None])
         from linkage.models.lean import quad_features

@@ -179,13 +179,16 @@ def link_inverse(link: str, eta, y_max: float = 1.0) -> np.ndarray:
 
 
 def _link_inputs(X, log_mask) -> np.ndarray:
+    """hⱼ(xⱼ): ln x where ``log_mask``, else x; the mask broadcasts against X
+    from the right (one mask for a matrix, or one per replicate, B × 1 × p,
+    for a stack of matrices)."""
     X = np.asarray(X, dtype=float)
     mask = np.asarray(log_mask, dtype=bool)
     if not mask.any():
         return X
     with np.errstate(divide="ignore", invalid="ignore"):
         logs = np.log(np.maximum(X, np.finfo(float).tiny))  # a size or force at or below 0 is outside any law
-    return np.where(mask[None, :], logs, X)
+    return np.where(mask, logs, X)
 
 
 def link_predict(X, link, log_mask, x_mean, coef, intercept, y_max=1.0) -> np.ndarray:
