@@ -53,6 +53,8 @@ import hashlib
 import json
 from pathlib import Path
 
+from linkage.exceptions import StoreIntegrityError
+
 GENESIS = "0" * 64
 #: seal kinds
 INGEST, AUDIT, PREDICTION, UPGRADE = "ingest", "audit", "prediction", "upgrade"
@@ -104,8 +106,9 @@ def rows_sha256(texts) -> str:
 
 
 def source_rows_sha256(source_rows) -> str:
-    """SHA-256 of a lot table's spreadsheet row numbers, in order."""
-    return sha256_text(canonical([None if r is None else int(r) for r in source_rows]))
+    """SHA-256 of a lot table's spreadsheet row numbers, in order: of their :func:`canonical` JSON list, written
+    out here (an int's JSON is its decimal text, None's is null), which is faster per lot table."""
+    return sha256_text("[" + ",".join(["null" if r is None else str(int(r)) for r in source_rows]) + "]")
 
 
 # --------------------------------------------------------------------------- record contents (read from the store)
@@ -258,7 +261,7 @@ def check(c, store_path: Path, *, full: bool = False) -> tuple[list[str], dict]:
 
 
 def _check_lot_tables(c, counts: dict) -> list[str]:
-    from linkage.store import _content_hash  # the store's own content hash, one definition
+    from linkage.store import _content_hash, read_row_texts  # the store's own definitions
 
     problems: list[str] = []
     meta = {tid: (lot, tbl, content, rows_h, src_h) for tid, lot, tbl, content, rows_h, src_h in c.execute(
@@ -266,8 +269,11 @@ def _check_lot_tables(c, counts: dict) -> list[str]:
         "LEFT JOIN lot_table_hashes h ON h.lot_table_id = lt.id")}
     texts: dict[int, list[str]] = {}
     sources: dict[int, list] = {}
-    for tid, source_row, text in c.execute("SELECT lot_table_id, source_row, data_json FROM raw_rows "
-                                           "ORDER BY lot_table_id, seq"):
+    try:
+        tids, row_texts, source_rows = read_row_texts(c, sources=True)
+    except StoreIntegrityError as exc:
+        return [str(exc)]
+    for tid, text, source_row in zip(tids.tolist(), row_texts.tolist(), source_rows.tolist()):
         texts.setdefault(tid, []).append(text)
         sources.setdefault(tid, []).append(source_row)
         counts["raw rows"] += 1

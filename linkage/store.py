@@ -76,9 +76,10 @@ np = _OnFirstUse("numpy")
 pd = _OnFirstUse("pandas")
 _read = _OnFirstUse("linkage.read")
 
-#: 2: seals (tamper evidence, linkage/seal.py), lot_table_hashes and ingests.reason; a schema 1 store is upgraded
-#: when it is first opened with write access
-SCHEMA_VERSION = 2
+#: 2: seals (tamper evidence, linkage/seal.py), lot_table_hashes and ingests.reason;
+#: 3: row_blocks (an ingest's raw rows of a table in one record, see the module notes). An earlier store is
+#: upgraded when it is first opened with write access, and read as it is where it cannot be written.
+SCHEMA_VERSION = 3
 #: PRAGMA application_id of a linkage store ("LNKG").
 APPLICATION_ID = 0x4C4E4B47
 BUSY_TIMEOUT_S = 10.0
@@ -89,8 +90,35 @@ _IN_CHUNK = 500
 _TABLE_NUMBER = {name: k for k, name in enumerate(TABLES)}
 
 #: Tables whose rows are never updated or deleted.
-APPEND_ONLY = ("schema_version", "ingests", "ingest_files", "lots", "lot_tables", "raw_rows", "revisions",
+#: (A store written before schema 3 also has raw_rows, append-only likewise: its triggers stay.)
+APPEND_ONLY = ("schema_version", "ingests", "ingest_files", "lots", "lot_tables", "row_blocks", "revisions",
                "revision_tables", "audit", "predictions", *_seal.APPEND_ONLY)
+
+#: schema 3: the raw rows one ingest wrote for one table, in one record (see :func:`_write_row_blocks`): each
+#: row's JSON text as raw_rows held it before, one row per line, in the order of their lot tables' ids and
+#: then as the file had them; ``lot_tables_json`` lists those lot tables as [id, rows] pairs. A store written
+#: before schema 3 keeps its rows in raw_rows (schema 1 and 2), read as before.
+_ROW_BLOCKS_DDL = """CREATE TABLE row_blocks (
+    ingest_id INTEGER NOT NULL REFERENCES ingests(id),
+    tbl TEXT NOT NULL,
+    n_rows INTEGER NOT NULL,
+    lot_tables_json TEXT NOT NULL,
+    source_rows_json TEXT NOT NULL,
+    rows_text TEXT NOT NULL,
+    PRIMARY KEY (ingest_id, tbl)
+)"""
+
+_DDL = """-- schema 3: the raw rows one ingest wrote for one table, in one record: each row's JSON text (as raw_rows
+-- held it, one row per line), in the order of their lot tables' ids and then as the file had them; the lot
+-- tables' n_rows tell which lines are whose. Stores written before keep their rows in raw_rows.
+CREATE TABLE row_blocks (
+    ingest_id INTEGER NOT NULL REFERENCES ingests(id),
+    tbl TEXT NOT NULL,
+    n_rows INTEGER NOT NULL,
+    source_rows_json TEXT NOT NULL,
+    rows_text TEXT NOT NULL,
+    PRIMARY KEY (ingest_id, tbl)
+)"""
 
 _DDL = """
 CREATE TABLE schema_version (version INTEGER NOT NULL, applied_at TEXT NOT NULL);
@@ -129,13 +157,7 @@ CREATE TABLE lot_tables (
     n_rows INTEGER NOT NULL,
     n_filled INTEGER NOT NULL
 );
-CREATE TABLE raw_rows (
-    lot_table_id INTEGER NOT NULL REFERENCES lot_tables(id),
-    seq INTEGER NOT NULL,
-    source_row INTEGER,
-    data_json TEXT NOT NULL,
-    PRIMARY KEY (lot_table_id, seq)
-);
+{row_blocks};
 CREATE TABLE revisions (
     id INTEGER PRIMARY KEY,
     lot TEXT NOT NULL REFERENCES lots(lot),
@@ -181,8 +203,8 @@ CREATE VIEW current_revisions AS
 
 def _statements() -> list[str]:
     """The DDL of a new store, one statement each, append-only triggers last."""
-    out = [s.strip() for s in _DDL.split(";") if s.strip()] + list(_seal.DDL)
-    return out + _triggers(APPEND_ONLY)
+    out = [s.strip() for s in _DDL.format(row_blocks=_ROW_BLOCKS_DDL).split(";") if s.strip()]
+    return out + list(_seal.DDL) + _triggers(APPEND_ONLY)
 
 
 def _triggers(tables) -> list[str]:
@@ -504,6 +526,131 @@ def _content_hash(table: str, rows: list[dict]) -> str:
     return hashlib.sha256(json.dumps(canon, sort_keys=True, ensure_ascii=False).encode()).hexdigest()
 
 
+# --------------------------------------------------------------------------- raw rows: row_blocks and raw_rows
+
+
+def _write_row_blocks(c, ingest_id: int, written: list[tuple]) -> None:
+    """One row_blocks record per table of an ingest: the JSON texts of the rows of its lot tables (``written``:
+    id, lot, table, _LotTable, source, in id order), one per line, and their spreadsheet row numbers.
+
+    Why one record, not one raw_rows row per measurement (schema 2): at site scale an ingest writes millions
+    of rows, and SQLite's cost is per row (a b-tree insert into the table and its key index, ~2 microseconds
+    each), so a 25,000-lot ingest spent most of its time there; one record per table is written and read
+    in one step. The rows keep their JSON text, so each lot table's row hash (linkage.seal.rows_sha256, sealed
+    in the ingest's seal) and content hash are those of schema 2, and a row changed in the record is found as
+    a row changed in raw_rows was. A JSON text has no raw line break (json escapes it), so lines are rows."""
+    by_table: dict[str, list[tuple[int, _LotTable]]] = {}
+    for tid, _, tname, lt, _ in written:
+        by_table.setdefault(tname, []).append((tid, lt))
+    for tname, lot_tables in by_table.items():
+        texts = list(chain.from_iterable(lt.rows for _, lt in lot_tables))
+        if not texts:
+            continue
+        layout = _seal.canonical([[tid, len(lt.rows)] for tid, lt in lot_tables])
+        sources = _seal.canonical(list(chain.from_iterable(lt.source_rows for _, lt in lot_tables)))
+        c.execute("INSERT INTO row_blocks (ingest_id, tbl, n_rows, lot_tables_json, source_rows_json, rows_text) "
+                  "VALUES (?, ?, ?, ?, ?, ?)", (ingest_id, tname, len(texts), layout, sources, "\n".join(texts)))
+
+
+def _has_table(c, name: str) -> bool:
+    """Whether the store has table ``name`` (row_blocks from schema 3 on; raw_rows before it)."""
+    return c.execute("SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = ?", (name,)).fetchone() is not None
+
+
+def read_row_texts(c, lot_table_ids=None, *, sources: bool = False, exact: bool = True,
+                   store: str = "the lot store"):
+    """The raw rows' JSON texts of the lot tables ``lot_table_ids`` (every lot table when None): three arrays
+    sorted by lot table id and then as stored, (lot table id, text, source row; the last None unless
+    ``sources``). With ``exact=False`` they may hold other lot tables' rows too (a record holds a whole
+    ingest's table). Rows written before schema 3 come from raw_rows, later ones from row_blocks."""
+    wanted = None if lot_table_ids is None else sorted(set(int(t) for t in lot_table_ids))
+    parts = []
+    blocks = _block_keys(c, wanted) if _has_table(c, "row_blocks") else []
+    for ingest_id, tbl in blocks:
+        parts.append(_read_block(c, ingest_id, tbl, sources, store))
+    if _has_table(c, "raw_rows") and c.execute("SELECT MAX(rowid) FROM raw_rows").fetchone()[0] is not None:
+        parts.append(_read_raw_rows(c, wanted, sources))
+    if not parts:
+        empty = np.zeros(0, dtype=object)
+        return np.zeros(0, dtype=np.int64), empty, (empty if sources else None)
+    tids = np.concatenate([p[0] for p in parts])
+    texts = np.concatenate([p[1] for p in parts])
+    source_rows = np.concatenate([p[2] for p in parts]) if sources else None
+    if len(parts) > 1 or not _is_sorted(tids):
+        order = np.argsort(tids, kind="stable")  # each lot table's rows are in one part, in order
+        tids, texts = tids[order], texts[order]
+        source_rows = source_rows[order] if sources else None
+    if exact and wanted is not None:
+        keep = np.isin(tids, np.array(wanted, dtype=np.int64))
+        tids, texts = tids[keep], texts[keep]
+        source_rows = source_rows[keep] if sources else None
+    return tids, texts, source_rows
+
+
+def _is_sorted(values: np.ndarray) -> bool:
+    return bool(len(values) < 2 or np.all(values[1:] >= values[:-1]))
+
+
+def _block_keys(c, wanted: list[int] | None) -> list[tuple[int, str]]:
+    """(ingest id, table) of the row_blocks records that hold any of the ``wanted`` lot tables."""
+    stored = [tuple(r) for r in c.execute("SELECT ingest_id, tbl FROM row_blocks ORDER BY ingest_id, tbl")]
+    if wanted is None or not stored:
+        return stored
+    keys: set[tuple[int, str]] = set()
+    for start in range(0, len(wanted), _IN_CHUNK):
+        chunk = wanted[start:start + _IN_CHUNK]
+        keys.update(tuple(r) for r in c.execute(f"SELECT DISTINCT ingest_id, tbl FROM lot_tables WHERE id IN "
+                                                 f"({', '.join('?' * len(chunk))})", chunk))
+    return [k for k in stored if k in keys]
+
+
+def _read_block(c, ingest_id: int, tbl: str, sources: bool, store: str) -> tuple:
+    """One row_blocks record as (lot table id per row, text per row, source row per row or None)."""
+    n_rows, layout_json, source_json, text = c.execute(
+        "SELECT n_rows, lot_tables_json, source_rows_json, rows_text FROM row_blocks WHERE ingest_id = ? AND tbl = ?",
+        (ingest_id, tbl)).fetchone()
+    texts = np.array(text.split("\n"), dtype=object)
+    del text
+    try:
+        layout = np.array(json.loads(layout_json), dtype=np.int64).reshape(-1, 2)
+    except ValueError:
+        layout = np.zeros((0, 2), dtype=np.int64)
+    if len(texts) != n_rows or int(layout[:, 1].sum()) != n_rows:
+        raise StoreIntegrityError(f"{store} is damaged: the raw rows of ingest {ingest_id}, table {tbl} should "
+                                  f"be {n_rows} and are {len(texts)}; run `linkage verify`")
+    tids = np.repeat(layout[:, 0], layout[:, 1])
+    source_rows = np.array(json.loads(source_json), dtype=object) if sources else None
+    if sources and len(source_rows) != n_rows:
+        raise StoreIntegrityError(f"{store} is damaged: ingest {ingest_id}, table {tbl} has {len(source_rows)} "
+                                  f"row numbers for {n_rows} raw rows; run `linkage verify`")
+    return tids, texts, source_rows
+
+
+def _read_raw_rows(c, wanted: list[int] | None, sources: bool) -> tuple:
+    """Rows kept in raw_rows (stores written before schema 3), fetched in chunks (a list of a million
+    tuples costs more memory than the arrays)."""
+    columns = "lot_table_id, data_json" + (", source_row" if sources else "")
+    if wanted is None or 2 * len(wanted) >= (c.execute("SELECT COUNT(*) FROM lot_tables").fetchone()[0] or 0):
+        queries = [(f"SELECT {columns} FROM raw_rows ORDER BY lot_table_id, seq", [])]
+    else:
+        queries = [(f"SELECT {columns} FROM raw_rows WHERE lot_table_id IN ({', '.join('?' * len(chunk))}) "
+                    "ORDER BY lot_table_id, seq", chunk)
+                   for chunk in (wanted[k:k + _IN_CHUNK] for k in range(0, len(wanted), _IN_CHUNK))]
+    tids: list[np.ndarray] = []
+    texts: list[str] = []
+    source_rows: list = []
+    for sql, params in queries:
+        cursor = c.execute(sql, params)
+        while chunk := cursor.fetchmany(65536):
+            columns_of = list(zip(*chunk))
+            tids.append(np.array(columns_of[0], dtype=np.int64))
+            texts.extend(columns_of[1])
+            if sources:
+                source_rows.extend(columns_of[2])
+    return (np.concatenate(tids) if tids else np.zeros(0, dtype=np.int64), np.array(texts, dtype=object),
+            np.array(source_rows, dtype=object) if sources else None)
+
+
 # --------------------------------------------------------------------------- the store
 
 
@@ -584,7 +731,7 @@ class LotStore:
             return
         c.execute("PRAGMA journal_mode = WAL")
         c.execute("PRAGMA synchronous = FULL")
-        if version < 2:
+        if version < SCHEMA_VERSION:
             self._upgrade()
         self.check_seals()
 
@@ -611,31 +758,44 @@ class LotStore:
         return counts
 
     def _upgrade(self) -> None:
-        """Schema 1 -> 2: add the seal tables and seal every record as it stands (see linkage.seal)."""
+        """Schema 1 or 2 -> 3, in one transaction sealed by one ``upgrade`` seal (see linkage.seal). 1 -> 2:
+        the seal tables, and every record sealed as it stands. 2 -> 3: the row_blocks table; the rows stored
+        so far stay in raw_rows, where they are read as before, with the same row hashes."""
         with self._write() as c:
-            if c.execute("SELECT MAX(version) FROM schema_version").fetchone()[0] >= 2:
+            version = c.execute("SELECT MAX(version) FROM schema_version").fetchone()[0]
+            if version >= SCHEMA_VERSION:
                 return  # another process upgraded it while we waited
-            c.execute("ALTER TABLE ingests ADD COLUMN reason TEXT")
-            for stmt in [*_seal.DDL, *_triggers(_seal.APPEND_ONLY)]:
+            if version < 2:
+                self._seal_records(c)
+                c.execute("INSERT INTO schema_version VALUES (?, ?)", (2, _now()))
+            c.execute(_ROW_BLOCKS_DDL)
+            for stmt in _triggers(["row_blocks"]):
                 c.execute(stmt)
-            hashes, texts, sources, current = [], [], [], None
-            for tid, source_row, text in c.execute("SELECT lot_table_id, source_row, data_json FROM raw_rows "
-                                                   "ORDER BY lot_table_id, seq").fetchall() + [(None, None, None)]:
-                if tid != current and current is not None:
-                    hashes.append((current, _seal.rows_sha256(texts), _seal.source_rows_sha256(sources)))
-                    texts, sources = [], []
-                current = tid
-                texts.append(text)
-                sources.append(source_row)
-            c.executemany("INSERT INTO lot_table_hashes VALUES (?, ?, ?)", hashes)
-            c.executemany("INSERT INTO lot_table_hashes SELECT id, ?, ? FROM lot_tables WHERE id NOT IN "
-                          "(SELECT lot_table_id FROM lot_table_hashes)",
-                          [(_seal.rows_sha256([]), _seal.source_rows_sha256([]))])
-            for kind, table in ((_seal.INGEST, "ingests"), (_seal.AUDIT, "audit"), (_seal.PREDICTION, "predictions")):
-                for (ref,) in c.execute(f"SELECT id FROM {table} ORDER BY id").fetchall():
-                    _seal.seal(c, kind, ref)
             c.execute("INSERT INTO schema_version VALUES (?, ?)", (SCHEMA_VERSION, _now()))
             _seal.seal(c, _seal.UPGRADE, SCHEMA_VERSION)
+
+    @staticmethod
+    def _seal_records(c) -> None:
+        """Schema 1 -> 2: the seal tables, each lot table's row hashes, and a seal for every record."""
+        c.execute("ALTER TABLE ingests ADD COLUMN reason TEXT")
+        for stmt in [*_seal.DDL, *_triggers(_seal.APPEND_ONLY)]:
+            c.execute(stmt)
+        hashes, texts, sources, current = [], [], [], None
+        for tid, source_row, text in c.execute("SELECT lot_table_id, source_row, data_json FROM raw_rows "
+                                               "ORDER BY lot_table_id, seq").fetchall() + [(None, None, None)]:
+            if tid != current and current is not None:
+                hashes.append((current, _seal.rows_sha256(texts), _seal.source_rows_sha256(sources)))
+                texts, sources = [], []
+            current = tid
+            texts.append(text)
+            sources.append(source_row)
+        c.executemany("INSERT INTO lot_table_hashes VALUES (?, ?, ?)", hashes)
+        c.executemany("INSERT INTO lot_table_hashes SELECT id, ?, ? FROM lot_tables WHERE id NOT IN "
+                      "(SELECT lot_table_id FROM lot_table_hashes)",
+                      [(_seal.rows_sha256([]), _seal.source_rows_sha256([]))])
+        for kind, table in ((_seal.INGEST, "ingests"), (_seal.AUDIT, "audit"), (_seal.PREDICTION, "predictions")):
+            for (ref,) in c.execute(f"SELECT id FROM {table} ORDER BY id").fetchall():
+                _seal.seal(c, kind, ref)
 
     def _create(self) -> None:
         with self._write() as c:
@@ -795,6 +955,7 @@ class LotStore:
                 next_rid += 1
             for start in range(0, len(written), _BATCH):  # in id order: the rows as one by one would write them
                 self._insert_lot_tables(c, ingest_id, written[start:start + _BATCH])
+            _write_row_blocks(c, ingest_id, written)
             c.executemany("INSERT INTO revisions (id, lot, revision, ingest_id, product) VALUES (?, ?, ?, ?, ?)",
                           revisions)
             c.executemany("INSERT INTO revision_tables VALUES (?, ?, ?)", revision_tables)
@@ -835,25 +996,20 @@ class LotStore:
             if len(batch) < n + len(exclude):
                 break  # the oldest lot was reached
         history: dict[str, dict] = {}
-        ids = list(wanted)
-        for start in range(0, len(ids), _IN_CHUNK):
-            chunk = ids[start:start + _IN_CHUNK]
-            for tid, text in c.execute(f"SELECT lot_table_id, data_json FROM raw_rows WHERE lot_table_id IN "
-                                       f"({', '.join('?' * len(chunk))}) ORDER BY lot_table_id, seq", chunk):
-                tbl, lot, product = wanted[tid]
-                history.setdefault(tbl, {}).setdefault(product, {}).setdefault(lot, []).append(json.loads(text))
+        tids, texts, _ = read_row_texts(c, list(wanted), store=f"lot store {self.path}")
+        for tid, text in zip(tids.tolist(), texts.tolist()):
+            tbl, lot, product = wanted[tid]
+            history.setdefault(tbl, {}).setdefault(product, {}).setdefault(lot, []).append(json.loads(text))
         return history
 
     @staticmethod
     def _insert_lot_tables(c, ingest_id: int, batch: list[tuple]) -> None:
-        """Write lot tables (id, lot, table, _LotTable, source) and their raw rows."""
+        """Write lot tables (id, lot, table, _LotTable, source) and their row hashes (the rows themselves go
+        into row_blocks)."""
         c.executemany("INSERT INTO lot_tables (id, lot, tbl, ingest_id, file, file_sha256, content_sha256, "
                       "columns_json, n_rows, n_filled) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
                       [(tid, lot, tname, ingest_id, src["file"], src["sha256"], lt.sha256, lt.columns_json,
                         len(lt.rows), lt.n_filled) for tid, lot, tname, lt, src in batch])
-        c.executemany("INSERT INTO raw_rows VALUES (?, ?, ?, ?)",
-                      [(tid, i, r, text) for tid, _, _, lt, _ in batch
-                       for i, (text, r) in enumerate(zip(lt.rows, lt.source_rows))])
         c.executemany("INSERT INTO lot_table_hashes VALUES (?, ?, ?)",
                       [(tid, _seal.rows_sha256(lt.rows), _seal.source_rows_sha256(lt.source_rows))
                        for tid, _, _, lt, _ in batch])
@@ -890,7 +1046,7 @@ class LotStore:
         columns of any lot included). Tables without rows are left out, as in
         a folder that lacks them. ``product`` keeps the lots of one product.
         """
-        where, params = ("WHERE cr.product = ? ", (product,)) if product is not None else ("", ())
+        params = (product,) if product is not None else ()
         # the lots in the order they came (CROSS JOIN keeps lots the outer loop: no sort), each with its
         # latest revision, as the current_revisions view picks it, and that revision's lot tables
         links_sql = ("SELECT rt.tbl, rt.lot_table_id, lt.n_rows, lt.columns_json, h.rows_sha256, l.lot FROM lots l "
@@ -903,32 +1059,12 @@ class LotStore:
             links = self._read(links_sql, params)
             if not links:
                 return {}
-            needed = sum(link[2] for link in links)
-            stored = self._read("SELECT MAX(rowid) FROM raw_rows")[0][0] or 0  # append-only: the row count
-            if 2 * needed >= stored:  # mostly current rows: one pass over the table
-                tids, texts = self._raw_rows("SELECT lot_table_id, data_json FROM raw_rows "
-                                             "ORDER BY lot_table_id, seq", ())
-            else:  # much history: only the current lot tables' rows
-                tids, texts = self._raw_rows(
-                    "SELECT rr.lot_table_id, rr.data_json FROM raw_rows rr WHERE rr.lot_table_id IN "
-                    "(SELECT rt.lot_table_id FROM current_revisions cr JOIN revision_tables rt "
-                    "ON rt.revision_id = cr.id " + where + ") ORDER BY rr.lot_table_id, rr.seq", params)
+            try:
+                tids, texts, _ = read_row_texts(self._conn, [link[1] for link in links], exact=False,
+                                              store=f"lot store {self.path}")
+            except sqlite3.DatabaseError as exc:
+                raise self._error(exc) from None
             return self._current_tables(links, tids, texts)
-
-    def _raw_rows(self, sql: str, params: tuple) -> tuple[np.ndarray, np.ndarray]:
-        """(lot table id, JSON text) rows of a query as two arrays, fetched
-        in chunks (a list of a million tuples costs more memory than both)."""
-        tids: list[np.ndarray] = []
-        texts: list[str] = []
-        try:
-            cursor = self._conn.execute(sql, params)
-            while chunk := cursor.fetchmany(65536):
-                ids, text = zip(*chunk)
-                tids.append(np.array(ids, dtype=np.int64))
-                texts.extend(text)
-        except sqlite3.DatabaseError as exc:
-            raise self._error(exc) from None
-        return (np.concatenate(tids) if tids else np.zeros(0, dtype=np.int64)), np.array(texts, dtype=object)
 
     def _current_tables(self, links: list[tuple], tids: np.ndarray, texts: np.ndarray) -> dict[str, pd.DataFrame]:
         """The frames from the current lot tables (table, id, rows, columns) in
@@ -1067,8 +1203,7 @@ class LotStore:
         return out
 
     def _rows(self, lot_table_id: int) -> list[dict]:
-        texts = [r[0] for r in self._read("SELECT data_json FROM raw_rows WHERE lot_table_id = ? ORDER BY seq",
-                                          (lot_table_id,))]
+        texts = read_row_texts(self._conn, [lot_table_id], store=f"lot store {self.path}")[1].tolist()
         stored = self._read("SELECT rows_sha256 FROM lot_table_hashes WHERE lot_table_id = ?", (lot_table_id,))
         if not stored or _seal.rows_sha256(texts) != stored[0][0]:
             raise StoreIntegrityError(f"lot store {self.path} failed its integrity check: the raw rows of lot table "

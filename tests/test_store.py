@@ -24,7 +24,7 @@ import pytest
 
 from linkage.exceptions import InputError, StoreBusyError, StoreError, UsageError
 from linkage.read import read_folder
-from linkage.store import APPEND_ONLY, APPLICATION_ID, SCHEMA_VERSION, LotStore
+from linkage.store import APPEND_ONLY, APPLICATION_ID, SCHEMA_VERSION, LotStore, read_row_texts
 
 # a copy of the shared template example (four invented lots), kept here so a clone alone runs these tests
 TEMPLATE = Path(__file__).resolve().parent / "data" / "template-example"
@@ -167,10 +167,11 @@ def test_changed_value_makes_a_new_revision_of_that_lot_only(store, tmp_path):
     assert history[1]["tables"]["ribbon"]["ingest_id"] == history[0]["ingest_id"]  # carried over
     assert store.current_tables()["tablets"].set_index("lot").loc["A", "dissolution_pct"] == 79.5
     # the old revision is kept: its rows are still in the store
-    old = store.connection.execute(
-        "SELECT rr.data_json FROM revisions r JOIN revision_tables rt ON rt.revision_id = r.id "
-        "JOIN lot_tables lt ON lt.id = rt.lot_table_id JOIN raw_rows rr ON rr.lot_table_id = lt.id "
-        "WHERE r.lot = 'A' AND r.revision = 1 AND rt.tbl = 'tablets'").fetchone()[0]
+    (old_table,) = store.connection.execute(
+        "SELECT lt.id FROM revisions r JOIN revision_tables rt ON rt.revision_id = r.id "
+        "JOIN lot_tables lt ON lt.id = rt.lot_table_id "
+        "WHERE r.lot = 'A' AND r.revision = 1 AND rt.tbl = 'tablets'").fetchone()
+    (old,) = read_row_texts(store.connection, [old_table])[1]  # schema 3: in the ingest's row_blocks record
     assert '"dissolution_pct": 81.0' in old
     assert [h["revision"] for h in store.history("B")] == [1]
 
