@@ -616,8 +616,12 @@ def _read_block(c, ingest_id: int, tbl: str, sources: bool, store: str) -> tuple
     except ValueError:
         layout = np.zeros((0, 2), dtype=np.int64)
     if len(texts) != n_rows or int(layout[:, 1].sum()) != n_rows:
-        raise StoreIntegrityError(f"{store} is damaged: the raw rows of ingest {ingest_id}, table {tbl} should "
-                                  f"be {n_rows} and are {len(texts)}; run `linkage verify`")
+        ends = np.cumsum(layout[:, 1])
+        k = min(int(np.searchsorted(ends, len(texts), side="right")), len(layout) - 1) if len(layout) else -1
+        which = f"lot table {int(layout[k, 0])} should have {int(layout[k, 1])} raw rows and has " \
+                f"{len(texts) - int(ends[k] - layout[k, 1])}" if k >= 0 else f"no lot tables for {len(texts)} raw rows"
+        raise StoreIntegrityError(f"{store} is damaged: {which} (ingest {ingest_id}, table {tbl}: {len(texts)} raw "
+                                  f"rows stored for {n_rows}); run `linkage verify`")
     tids = np.repeat(layout[:, 0], layout[:, 1])
     source_rows = np.array(json.loads(source_json), dtype=object) if sources else None
     if sources and len(source_rows) != n_rows:

@@ -33,7 +33,7 @@ import pytest
 
 from linkage.read import read_folder
 from linkage.schema import TABLES
-from linkage.store import LotStore, _frame, _prepare_columns, _prepare_rows
+from linkage.store import LotStore, _frame, _prepare_columns, _prepare_rows, read_row_texts
 from linkage.synthetic import make_lots
 
 
@@ -197,8 +197,8 @@ def test_stored_rows_verify_against_their_hashes(filled):
     with closing(sqlite3.connect(path)) as c:
         tables = c.execute("SELECT id, tbl, content_sha256, n_rows FROM lot_tables ORDER BY id").fetchall()
         rows: dict[int, list[tuple[int, str]]] = {}
-        for tid, seq, text in c.execute("SELECT lot_table_id, seq, data_json FROM raw_rows ORDER BY rowid"):
-            rows.setdefault(tid, []).append((seq, text))
+        for tid, text in zip(*(a.tolist() for a in read_row_texts(c)[:2])):  # schema 3: from row_blocks
+            rows.setdefault(tid, []).append((len(rows.get(tid, [])), text))
         assert c.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
         assert c.execute("PRAGMA foreign_key_check").fetchall() == []
     assert [t[0] for t in tables] == list(range(1, len(tables) + 1))  # ids as SQLite gives them
@@ -223,7 +223,7 @@ def test_a_store_mostly_history_reads_only_the_current_rows(folders, tmp_path):
     with LotStore(path) as s:
         for step in steps:
             s.ingest(read_folder(step), reason="a test revision")
-        stored = s.connection.execute("SELECT COUNT(*) FROM raw_rows").fetchone()[0]
+        stored = s.connection.execute("SELECT SUM(n_rows) FROM row_blocks").fetchone()[0]
         current = sum(len(df) for df in s.current_tables().values())
         assert stored > 2 * current  # the case this test is about
         _equal_tables(s.current_tables(), read_folder(_final_state(steps, tmp_path / "final")).tables)
@@ -236,8 +236,9 @@ def test_a_damaged_store_is_reported_not_misread(filled, tmp_path):
     copy = tmp_path / "damaged.db"
     with closing(sqlite3.connect(filled[0])) as src, closing(sqlite3.connect(copy)) as dst:
         src.backup(dst)
-        dst.execute("DROP TRIGGER raw_rows_no_delete")
-        dst.execute("DELETE FROM raw_rows WHERE rowid = (SELECT MAX(rowid) FROM raw_rows)")
+        dst.execute("DROP TRIGGER row_blocks_no_update")  # schema 3: the newest record loses its last row
+        rowid, text = dst.execute("SELECT rowid, rows_text FROM row_blocks ORDER BY rowid DESC LIMIT 1").fetchone()
+        dst.execute("UPDATE row_blocks SET rows_text = ? WHERE rowid = ?", (text.rsplit("\n", 1)[0], rowid))
         dst.commit()
     from linkage.exceptions import StoreError
 

@@ -258,11 +258,14 @@ def rows_of(store: Path, lots: set[str]) -> dict[str, int]:
     """Raw rows per table held for ``lots`` (read with plain sqlite3)."""
     con = _connect(store)
     try:
+        from linkage.store import read_row_texts  # the rows as stored (schema 3: in row_blocks records)
+
         out: dict[str, int] = {}
-        for lot, tbl, n in con.execute("SELECT lt.lot, lt.tbl, COUNT(*) FROM lot_tables lt "
-                                       "JOIN raw_rows r ON r.lot_table_id = lt.id GROUP BY lt.lot, lt.tbl"):
+        owner = {tid: (lot, tbl) for tid, lot, tbl in con.execute("SELECT id, lot, tbl FROM lot_tables")}
+        for tid in read_row_texts(con)[0].tolist():
+            lot, tbl = owner[tid]
             if lot in lots:
-                out[tbl] = out.get(tbl, 0) + n
+                out[tbl] = out.get(tbl, 0) + 1
         return out
     finally:
         con.close()

@@ -25,7 +25,7 @@ import pytest
 from linkage import seal
 from linkage.exceptions import StoreIntegrityError
 from linkage.read import read_folder
-from linkage.store import APPEND_ONLY, LotStore, current_user
+from linkage.store import APPEND_ONLY, SCHEMA_VERSION, LotStore, current_user, read_row_texts
 
 from .helpers import run_cli
 
@@ -102,21 +102,23 @@ def test_an_edited_audit_user_and_time_are_detected(store, counts):
 
 
 def test_an_edited_raw_measurement_is_detected_on_read(store, counts):
-    con = sqlite3.connect(store)
-    tid, seq, text = con.execute("SELECT lot_table_id, seq, data_json FROM raw_rows WHERE data_json LIKE "
-                                 "'%envelope_density_g_cm3%' LIMIT 1").fetchone()
+    con = sqlite3.connect(store)  # schema 3: the rows are lines of the ingest's row_blocks record
+    ingest_id, tbl, block = con.execute("SELECT ingest_id, tbl, rows_text FROM row_blocks WHERE rows_text LIKE "
+                                        "'%envelope_density_g_cm3%' LIMIT 1").fetchone()
     con.close()
-    row = json.loads(text)
+    lines = block.split("\n")
+    row = json.loads(lines[0])
     row["envelope_density_g_cm3"] = round(row["envelope_density_g_cm3"] + 0.01, 4)
-    _behind_the_back(store, "UPDATE raw_rows SET data_json = ? WHERE lot_table_id = ? AND seq = ?",
-                     params=(json.dumps(row), tid, seq))
+    lines[0] = json.dumps(row)
+    _behind_the_back(store, "UPDATE row_blocks SET rows_text = ? WHERE ingest_id = ? AND tbl = ?",
+                     params=("\n".join(lines), ingest_id, tbl))
     _detected(store, counts, "raw rows changed", command=("assemble",))
 
 
 def test_four_bytes_changed_in_the_file_are_detected(store, counts):
     con = sqlite3.connect(store)
     con.execute("PRAGMA wal_checkpoint(TRUNCATE)")
-    text = con.execute("SELECT data_json FROM raw_rows WHERE data_json LIKE '%1.0617%'").fetchone()[0]
+    text = con.execute("SELECT rows_text FROM row_blocks WHERE rows_text LIKE '%1.0617%'").fetchone()[0]
     con.close()
     data = bytearray(store.read_bytes())
     at = data.find(b"1.0617")
@@ -144,15 +146,16 @@ def test_a_record_added_outside_linkage_is_detected(store, counts):
 
 
 def test_rows_and_their_row_hash_rewritten_together_are_found_by_verify(store, counts):
-    con = sqlite3.connect(store)
-    tid = con.execute("SELECT lot_table_id FROM raw_rows WHERE data_json LIKE '%1.0617%'").fetchone()[0]
-    texts = [r[0] for r in con.execute("SELECT data_json FROM raw_rows WHERE lot_table_id = ? ORDER BY seq", (tid,))]
+    con = sqlite3.connect(store)  # schema 3: the rows are lines of the ingest's row_blocks record
+    tids, all_texts, _ = read_row_texts(con)
+    tid = int(tids[[("1.0617" in t) for t in all_texts.tolist()]][0])
+    texts = all_texts[tids == tid].tolist()
+    block = con.execute("SELECT rows_text FROM row_blocks WHERE rows_text LIKE '%1.0617%'").fetchone()[0]
     con.close()
     texts = [t.replace("1.0617", "1.0549") for t in texts]
-    _behind_the_back(store, *(f"UPDATE raw_rows SET data_json = '{t}' WHERE lot_table_id = {tid} AND seq = {i}"
-                              for i, t in enumerate(texts)),
+    _behind_the_back(store, "UPDATE row_blocks SET rows_text = ? WHERE rows_text LIKE '%1.0617%'",
                      f"UPDATE lot_table_hashes SET rows_sha256 = '{seal.rows_sha256(texts)}' "
-                     f"WHERE lot_table_id = {tid}")
+                     f"WHERE lot_table_id = {tid}", params=(block.replace("1.0617", "1.0549"),))
     result = run_cli(["verify", "--store", store, "--models-dir", store.parent / "none"])
     assert result.exit_code == 6 and "ingest record 1 was changed" in result.stderr
     assert "content hash does not match" in result.stderr
@@ -194,7 +197,7 @@ def test_a_schema_1_store_is_sealed_on_first_open_and_keeps_its_records(tmp_path
     assert con.execute("SELECT id, at, user, action, lot, model_id, inputs_json, outputs_json FROM audit "
                        f"WHERE id <= {len(before_audit)} ORDER BY id").fetchall() == before_audit
     assert con.execute("SELECT kind FROM seals WHERE kind = 'upgrade'").fetchall() == [("upgrade",)]
-    assert con.execute("SELECT MAX(version) FROM schema_version").fetchone()[0] == 2
+    assert con.execute("SELECT MAX(version) FROM schema_version").fetchone()[0] == SCHEMA_VERSION  # 3: via 2
 
 
 def test_the_user_is_the_operating_system_account_not_an_environment_variable(monkeypatch):
