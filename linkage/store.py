@@ -322,7 +322,7 @@ def _canon(value):
 
 @dataclass
 class _LotTable:
-    rows: list[str]  # each row as the JSON text stored in raw_rows.data_json
+    rows: list[str]  # each row as its stored JSON text
     source_rows: list[int]
     columns: list[str]
     sha256: str
@@ -330,13 +330,120 @@ class _LotTable:
     columns_json: str = ""  # _json(columns), written once per table
 
 
+# The one JSON encoder of a lot table's rows. Each row is a JSON object written two ways from the same
+# pieces: as stored (the table's columns in order) and as its content hash takes it (keys sorted; -0.0 as
+# 0.0; in extra columns a number written as text is the number; rows sorted stably by str() of their key
+# values). Both are the text json.dumps writes (", " and ": " separators, float.__repr__, json's string
+# encoder, missing cells left out): each column becomes '"name": value' pieces, vectorised where the column
+# allows it (float64 numbers, text, dates to the second) and cell by cell through json.dumps otherwise, and a
+# row is its pieces joined. tests/test_store_bulk.py compares it with json.dumps row by row.
+
+_encode_text = json.encoder.encode_basestring  # what json.dumps(..., ensure_ascii=False) writes for a str
+
+
+@dataclass
+class _Column:
+    """One column encoded: per row '"name": json' as stored (``data``) and as hashed (``canon``), None where
+    the cell is missing; ``key``: str() of the canonical value ('None' when missing), the hash's sort key
+    (None when not asked for)."""
+
+    data: list
+    canon: list
+    key: list | None
+    missing: np.ndarray
+
+
+def _cells(name: str, values: list, template: bool, want_key: bool = True) -> _Column:
+    """Any column, cell by cell: ``values`` are JSON values (None: missing); ``template``: a column of the
+    template (an extra column's text that reads as a number is hashed as the number)."""
+    head = _encode_text(name) + ": "
+    n = len(values)
+    data: list = [None] * n
+    canon: list = [None] * n
+    key = ["None"] * n
+    missing = np.ones(n, dtype=bool)
+    for k, value in enumerate(values):
+        if value is None:
+            continue
+        same = value + 0.0 if isinstance(value, float) else value if template else _canon(value)
+        missing[k] = False
+        data[k] = head + json.dumps(value, ensure_ascii=False, allow_nan=False)
+        canon[k] = head + json.dumps(same, ensure_ascii=False)
+        key[k] = str(same)
+    return _Column(data, canon, key if want_key else None, missing)
+
+
+def _floats(name: str, v: np.ndarray, want_key: bool) -> _Column | None:
+    """float64 numbers, NaN missing; None where a value is infinite (json refuses it: cell by cell raises)."""
+    if np.isinf(v).any():
+        return None
+    head = _encode_text(name) + ": "
+    missing = np.isnan(v)
+    if np.any((v == 0) & np.signbit(v)):  # -0.0: written as it is, hashed as 0.0
+        data = _pieces(head, list(map(repr, v.tolist())), missing)  # float.__repr__, as json writes floats
+        reprs = list(map(repr, (v + 0.0).tolist()))
+        return _Column(data, _pieces(head, reprs, missing), _missing_as_none(reprs, missing), missing)
+    # each distinct value written once (lab values repeat: sieve sizes, settings, rounding); factorize tells
+    # -0.0 from nothing else, and there is none here
+    codes, uniques = pd.factorize(v)  # missing (NaN) -> -1
+    reprs = list(map(repr, uniques.tolist()))
+    data = np.array([head + r for r in reprs] + [None], dtype=object)[codes].tolist()
+    key = np.array(reprs + ["None"], dtype=object)[codes].tolist() if want_key else None
+    return _Column(data, data, key, missing)
+
+
+def _texts(name: str, col: pd.Series, want_key: bool) -> _Column | None:
+    """Text, each distinct value encoded once; None unless every value present is a str."""
+    missing = col.isna().to_numpy()
+    codes, uniques = pd.factorize(col)  # missing -> -1
+    uniques = list(uniques)
+    if set(map(type, uniques)) - {str} or not np.array_equal(codes < 0, missing):
+        return None
+    head = _encode_text(name) + ": "
+    data = np.array([head + _encode_text(u) for u in uniques] + [None], dtype=object)[codes].tolist()
+    key = np.array(uniques + ["None"], dtype=object)[codes].tolist() if want_key else None
+    return _Column(data, data, key, missing)
+
+
+def _datetimes(name: str, col: pd.Series) -> _Column | None:
+    """Dates and times without a zone, to the second, years 1000-9999 (the text Timestamp.isoformat writes,
+    vectorised); None for anything else (fractions of a second: cell by cell)."""
+    if not (pd.api.types.is_datetime64_dtype(col) and getattr(col.dtype, "tz", None) is None):
+        return None
+    ticks = col.to_numpy()
+    missing = np.isnat(ticks)
+    whole = ticks[~missing]
+    seconds = whole.astype("datetime64[s]")
+    years = seconds.astype("datetime64[Y]").astype(np.int64) + 1970
+    if np.any(seconds.astype(whole.dtype) != whole) or np.any((years < 1000) | (years > 9999)):
+        return None
+    iso = np.full(len(ticks), "", dtype=object)
+    iso[~missing] = np.datetime_as_string(seconds, unit="s").astype(object)
+    iso = iso.tolist()
+    data = _pieces(_encode_text(name) + ": ", list(map(_encode_text, iso)), missing)
+    return _Column(data, data, _missing_as_none(iso, missing), missing)
+
+
+def _encode_column(name: str, kind: str, col: pd.Series, want_key: bool) -> _Column:
+    """A DataFrame column: vectorised where :func:`_floats`, :func:`_texts` or :func:`_datetimes` take it,
+    else cell by cell (:func:`_cell_out`, then :func:`_cells`)."""
+    out = None
+    if col.dtype == np.float64 and kind in (NUMBER, "extra"):
+        out = _floats(name, col.to_numpy(), want_key)
+    elif kind == TEXT:
+        out = _texts(name, col, want_key)
+    elif kind == DATETIME:
+        out = _datetimes(name, col)
+    if out is None:
+        out = _cells(name, [_cell_out(kind, v) for v in col.tolist()], kind != "extra", want_key)
+    return out
+
+
 def _prepare(ingest: Ingest) -> dict[str, dict[str, _LotTable]]:
     """lot -> table -> its rows as JSON text, with a content hash."""
     out: dict[str, dict[str, _LotTable]] = {}
     for tname, df in ingest.tables.items():
-        per_lot = _prepare_columns(tname, df)
-        if per_lot is None:
-            per_lot = _prepare_rows(tname, df)
+        per_lot = _encode_table(tname, df)
         columns_json = _json(list(df.columns))
         for lot, lt in per_lot.items():
             lt.columns_json = columns_json
@@ -344,152 +451,62 @@ def _prepare(ingest: Ingest) -> dict[str, dict[str, _LotTable]]:
     return out
 
 
-def _prepare_rows(tname: str, df: pd.DataFrame) -> dict[str, _LotTable]:
-    """One table, cell by cell (any table)."""
-    tdef = TABLES[tname]
-    kinds = {c.name: c.kind for c in tdef.columns}
-    columns = list(df.columns)
-    source_rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
-    per_lot: dict[str, list[int]] = {}
-    for k, lot in enumerate(df["lot"].tolist()):
-        per_lot.setdefault(lot, []).append(k)
-    records = df.to_dict("records")
-    out = {}
-    for lot, idx in per_lot.items():
-        rows = []
-        for k in idx:
-            row = {c: _cell_out(kinds.get(c, "extra"), records[k][c]) for c in columns}
-            rows.append({c: v for c, v in row.items() if v is not None})
-        filled = sum(1 for r in rows for c in r if c in kinds and c != "lot")
-        out[lot] = _LotTable([json.dumps(r, ensure_ascii=False, allow_nan=False) for r in rows],
-                             [int(source_rows[k]) for k in idx], columns, _content_hash(tname, rows), filled)
-    return out
-
-
-def _prepare_columns(tname: str, df: pd.DataFrame) -> dict[str, _LotTable] | None:
-    """The same as :func:`_prepare_rows`, column by column, for the common
-    case: float64 numbers, text in template columns, dates to the second,
-    numeric extra columns, every lot named. The JSON text of each row and of
-    each lot's hash is put together from per-column pieces written by the
-    same encoders ``json.dumps`` uses (``float.__repr__``, the JSON string
-    encoder), in the same order, so the stored rows and hashes are the same
-    byte for byte. None for any other table, which goes cell by cell."""
+def _encode_table(tname: str, df: pd.DataFrame) -> dict[str, _LotTable]:
+    """One table's rows, per lot (in order of first appearance): their JSON texts, spreadsheet rows, content
+    hash and number of filled template cells."""
     tdef = TABLES[tname]
     kinds = {c.name: c.kind for c in tdef.columns}
     columns = list(df.columns)
     n = len(df)
-    if n == 0 or "lot" not in columns or df["lot"].isna().any():
-        return None
-    encode = json.encoder.encode_basestring
-    data: dict[str, list] = {}  # column -> '"name": value' per row, None where missing
-    canon: dict[str, list] = {}  # the same for the hash (numbers + 0.0: -0.0 is 0.0)
-    keyed: dict[str, list] = {}  # column -> str of the canonical value (sort key of the hash)
+    if n == 0:
+        return {}
+    if "lot" not in columns or df["lot"].isna().any():
+        raise ValueError(f"table {tname}: every row needs a lot to be stored")
+    encoded = {c: _encode_column(c, kinds.get(c, "extra"), df[c], c in tdef.key) for c in columns}
     filled = np.zeros(n, dtype=np.int64)
-    empty: set[str] = set()  # columns missing in every row
-    partial: list[bool] = []  # per other column: missing in some row
-    key_set = set(tdef.key)
     for c in columns:
-        kind = kinds.get(c, "extra")
-        col = df[c]
-        name = encode(str(c)) + ": "
-        if kind == NUMBER or (kind == "extra" and col.dtype == np.float64):
-            if col.dtype != np.float64:
-                return None
-            v = col.to_numpy()
-            missing = np.isnan(v)
-            if np.isinf(v).any():
-                return None  # json refuses it: the cell-by-cell path raises as it always did
-            if missing.all():
-                empty.add(c)
-                keyed[c] = ["None"] * n
-                continue
-            if np.any((v == 0) & np.signbit(v)):  # -0.0: written as it is, hashed as 0.0
-                reprs = list(map(repr, v.tolist()))  # float.__repr__, as json writes floats
-                data[c] = _pieces(name, reprs, missing)
-                reprs = list(map(repr, (v + 0.0).tolist()))
-                canon[c] = _pieces(name, reprs, missing)
-                keyed[c] = _missing_as_none(reprs, missing)
-            else:
-                # each distinct value written once (lab values repeat: sieve sizes, settings, rounding);
-                # factorize tells -0.0 from nothing else, and there is none here
-                codes, uniques = pd.factorize(v)  # missing (NaN) -> -1
-                reprs = list(map(repr, uniques.tolist()))
-                data[c] = canon[c] = np.array([name + r for r in reprs] + [None], dtype=object)[codes].tolist()
-                if c in key_set:
-                    keyed[c] = np.array(reprs + ["None"], dtype=object)[codes].tolist()
-        elif kind == TEXT:
-            missing = col.isna().to_numpy()
-            if missing.all():
-                empty.add(c)
-                keyed[c] = ["None"] * n
-                continue
-            codes, uniques = pd.factorize(col)  # each distinct text encoded once; missing -> -1
-            uniques = list(uniques)
-            if set(map(type, uniques)) - {str} or not np.array_equal(codes < 0, missing):
-                return None
-            data[c] = canon[c] = np.array([name + encode(u) for u in uniques] + [None], dtype=object)[codes].tolist()
-            if c in key_set:
-                keyed[c] = np.array(uniques + ["None"], dtype=object)[codes].tolist()
-        elif kind == DATETIME:
-            if not (pd.api.types.is_datetime64_dtype(col) and getattr(col.dtype, "tz", None) is None):
-                return None
-            ticks = col.to_numpy()
-            missing = np.isnat(ticks)
-            if missing.all():
-                empty.add(c)
-                keyed[c] = ["None"] * n
-                continue
-            whole = ticks[~missing]
-            seconds = whole.astype("datetime64[s]")
-            years = seconds.astype("datetime64[Y]").astype(np.int64) + 1970
-            if np.any(seconds.astype(whole.dtype) != whole) or np.any((years < 1000) | (years > 9999)):
-                return None  # Timestamp.isoformat writes fractions of a second: cell by cell
-            iso = np.full(n, "", dtype=object)
-            iso[~missing] = np.datetime_as_string(seconds, unit="s").astype(object)
-            iso = iso.tolist()
-            data[c] = canon[c] = _pieces(name, list(map(encode, iso)), missing)
-            keyed[c] = _missing_as_none(iso, missing)
-        else:
-            return None
-        if kind != "extra" and c != "lot":
-            filled += ~missing
-        partial.append(bool(missing.any()))
-    key_cols = [c for c in tdef.key]
-    if any(c not in columns for c in key_cols):
-        return None
-    kept = [c for c in columns if c not in empty]  # a column missing in every row adds nothing to a row
-    complete = not any(partial)
-    row_json = _join_rows([data[c] for c in kept], complete)
-    hash_json = _join_rows([canon[c] for c in sorted(kept)], complete)
-    del data, canon
-    source_rows = df.attrs.get("source_rows", list(range(2, n + 2)))
+        if c in kinds and c != "lot":
+            filled += ~encoded[c].missing
+    complete = not any(e.missing.any() for e in encoded.values())
+    row_json = _join_rows([encoded[c].data for c in columns], complete)
+    hash_json = _join_rows([encoded[c].canon for c in sorted(columns)], complete)
+    keys = [encoded[c].key if c in encoded else ["None"] * n for c in tdef.key if c != "lot"]
+    del encoded
+    source_rows = list(map(int, df.attrs.get("source_rows", list(range(2, n + 2)))))
     codes, lots = pd.factorize(df["lot"])  # lots in order of first appearance, as the rows name them
+    return _per_lot(tname, columns, codes, lots.tolist(), row_json, hash_json, keys, source_rows, filled)
+
+
+def _per_lot(tname: str, columns: list[str], codes: np.ndarray, lots: list, row_json: list[str],
+             hash_json: list[str], keys: list[list[str]], source_rows: list[int],
+             filled: np.ndarray) -> dict[str, _LotTable]:
+    """Split a table's encoded rows by lot (``codes``: each row's lot number) and hash each lot's rows."""
+    n = len(codes)
     order = np.argsort(codes, kind="stable")
     bounds = np.concatenate([[0], np.cumsum(np.bincount(codes, minlength=len(lots)))]).tolist()
     per_lot_filled = np.bincount(codes, weights=filled, minlength=len(lots)).astype(np.int64).tolist()
-    rows = list(map(int, source_rows))
     # the hash takes each lot's rows sorted by str() of their key values (stably, as sorted() does): the
     # rank of each key string among all of them, then one stable sort by lot and those ranks
-    ranks = [pd.factorize(np.array(keyed[c], dtype=object), sort=True)[0] for c in key_cols if c != "lot"]
+    ranks = [pd.factorize(np.array(k, dtype=object), sort=True)[0] for k in keys]
     by_key = np.lexsort([*ranks[::-1], codes]) if ranks else order
     hash_json = np.array(hash_json, dtype=object)[by_key].tolist()
     if not np.array_equal(order, np.arange(n)):  # lots not in blocks: put each lot's rows together
         order = order.tolist()
-        row_json, rows = [row_json[k] for k in order], [rows[k] for k in order]
+        row_json, source_rows = [row_json[k] for k in order], [source_rows[k] for k in order]
     sha256 = hashlib.sha256
     if len(lots) == n:  # one row a lot
         digests = [sha256(("[" + h + "]").encode()).hexdigest() for h in hash_json]
-        return {lot: _LotTable([row_json[j]], [rows[j]], columns, digests[j], per_lot_filled[j])
-                for j, lot in enumerate(lots.tolist())}
+        return {lot: _LotTable([row_json[j]], [source_rows[j]], columns, digests[j], per_lot_filled[j])
+                for j, lot in enumerate(lots)}
     spans = list(zip(bounds, bounds[1:]))
     digests = [sha256(("[" + ", ".join(hash_json[a:b]) + "]").encode()).hexdigest() for a, b in spans]
-    return {lot: _LotTable(row_json[a:b], rows[a:b], columns, digest, filled_j)
-            for lot, (a, b), digest, filled_j in zip(lots.tolist(), spans, digests, per_lot_filled)}
+    return {lot: _LotTable(row_json[a:b], source_rows[a:b], columns, digest, filled_j)
+            for lot, (a, b), digest, filled_j in zip(lots, spans, digests, per_lot_filled)}
 
 
-def _pieces(name: str, texts: list[str], missing: np.ndarray) -> list:
+def _pieces(head: str, texts: list[str], missing: np.ndarray) -> list:
     """'"name": text' per row, None where the cell is missing."""
-    out = list(map(name.__add__, texts))
+    out = list(map(head.__add__, texts))
     if missing.any():
         for k in np.flatnonzero(missing).tolist():
             out[k] = None
@@ -508,6 +525,8 @@ def _missing_as_none(texts: list, missing: np.ndarray) -> list:
 
 def _join_rows(pieces: list[list], complete: bool) -> list[str]:
     """'{piece, piece, ...}' per row, leaving out missing (None) pieces."""
+    if not pieces:
+        return []
     if complete:
         return ["{" + ", ".join(t) + "}" for t in zip(*pieces)]
     return ["{" + ", ".join([p for p in t if p is not None]) + "}" for t in zip(*pieces)]
@@ -520,10 +539,16 @@ def _memory_source(table: str, df: pd.DataFrame) -> dict:
 
 
 def _content_hash(table: str, rows: list[dict]) -> str:
-    """SHA-256 of a lot's rows of one table, independent of row order."""
-    key = TABLES[table].key
-    canon = sorted((_canon_row(table, r) for r in rows), key=lambda r: tuple(str(r.get(c)) for c in key))
-    return hashlib.sha256(json.dumps(canon, sort_keys=True, ensure_ascii=False).encode()).hexdigest()
+    """SHA-256 of a lot's rows of one table as stored (JSON values), independent of row order: the same
+    encoder as an ingest's (:func:`_cells`, column by column)."""
+    names = TABLES[table].names
+    columns = sorted(set(chain.from_iterable(rows)))
+    encoded = {c: _cells(c, [r.get(c) for r in rows], c in names) for c in columns}
+    none = ["None"] * len(rows)
+    keys = [encoded[c].key if c in encoded else none for c in TABLES[table].key]
+    order = sorted(range(len(rows)), key=lambda k: tuple(key[k] for key in keys))
+    texts = _join_rows([encoded[c].canon for c in columns], False) if columns else ["{}"] * len(rows)
+    return hashlib.sha256(("[" + ", ".join(texts[k] for k in order) + "]").encode()).hexdigest()
 
 
 # --------------------------------------------------------------------------- raw rows: row_blocks and raw_rows
