@@ -680,6 +680,26 @@ def _read_raw_rows(c, wanted: list[int] | None, sources: bool) -> tuple:
             np.array(source_rows, dtype=object) if sources else None)
 
 
+def _classify(prepared: dict, order: list[str], current: dict) -> tuple[list, list, list, dict[str, list[str]]]:
+    """The ingest's lots as new, revised and unchanged (a table is changed when its content hash differs from
+    the stored one's), and per new or revised lot the tables it writes."""
+    new, revised, unchanged = [], [], []
+    changes: dict[str, list[str]] = {}
+    for lot in order:
+        if lot not in current:
+            new.append(lot)
+            changes[lot] = list(prepared[lot])
+            continue
+        links = current[lot]["tables"]
+        changed = [t for t, lt in prepared[lot].items() if t not in links or links[t][1] != lt.sha256]
+        if changed:
+            revised.append(lot)
+            changes[lot] = changed
+        else:
+            unchanged.append(lot)
+    return new, revised, unchanged, changes
+
+
 # --------------------------------------------------------------------------- the store
 
 
@@ -913,41 +933,17 @@ class LotStore:
         if process is not None:
             for lot, product in zip(process["lot"].tolist(), process["product"].tolist()):
                 products[lot] = None if isinstance(product, float) else product
+        reason = reason.strip() if isinstance(reason, str) and reason.strip() else None
         with self._write() as c:
             known = {r[0] for r in c.execute("SELECT lot FROM lots")}
             problems = _read.cross_check(ingest, known)
             if problems:
                 raise InputError(problems)
             current = self._current_links(c, [lot for lot in order if lot in known])
-            new, revised, unchanged = [], [], []
-            changes: dict[str, list[str]] = {}
-            for lot in order:
-                if lot not in current:
-                    new.append(lot)
-                    changes[lot] = list(prepared[lot])
-                    continue
-                links = current[lot]["tables"]
-                changed = [t for t, lt in prepared[lot].items() if t not in links or links[t][1] != lt.sha256]
-                if changed:
-                    revised.append(lot)
-                    changes[lot] = changed
-                else:
-                    unchanged.append(lot)
-            reason = reason.strip() if isinstance(reason, str) and reason.strip() else None
+            new, revised, unchanged, changes = _classify(prepared, order, current)
             product_of = {lot: products[lot] if lot in products else current.get(lot, {}).get("product")
                           for lot in order}
-            unusual, unusual_records = _plausible.unusual_values(
-                ingest, self._history(c, set(product_of.values()), set(order)), product_of)
-            if accept_unusual and reason is None:
-                raise UsageError("--accept-unusual takes unusual values deliberately: give --reason TEXT to say why. "
-                                 "Nothing was written.")
-            if unusual and not accept_unusual:
-                raise InputError(unusual)
-            if revised and reason is None:
-                shown = ", ".join(revised[:10]) + (f" and {len(revised) - 10} more" if len(revised) > 10 else "")
-                raise UsageError(f"this ingest revises {len(revised)} stored lot(s) ({shown}); every revision "
-                                 "carries its reason: give --reason TEXT (for example the deviation or "
-                                 "correction number). Nothing was written.")
+            unusual_records = self._refuse(c, ingest, product_of, revised, reason, accept_unusual)
             warnings = list(ingest.warnings)
             for lot in revised:
                 old = current[lot]["product"]
@@ -966,28 +962,7 @@ class LotStore:
                 c.execute("INSERT INTO ingest_files VALUES (?, NULL, ?, ?, NULL)",
                           (ingest_id, src["file"], src["sha256"]))
             c.executemany("INSERT INTO lots VALUES (?, ?)", [(lot, ingest_id) for lot in new])
-            # lot tables and revisions get their ids here, as SQLite would give them (largest id + 1;
-            # the write transaction holds the store), so that they are written in a few statements
-            next_tid = c.execute("SELECT COALESCE(MAX(id), 0) + 1 FROM lot_tables").fetchone()[0]
-            next_rid = c.execute("SELECT COALESCE(MAX(id), 0) + 1 FROM revisions").fetchone()[0]
-            revisions, revision_tables, written = [], [], []
-            for lot in new + revised:
-                links = {t: v[0] for t, v in current.get(lot, {"tables": {}})["tables"].items()}
-                for tname in changes[lot]:
-                    written.append((next_tid, lot, tname, prepared[lot][tname], sources[tname]))
-                    links[tname] = next_tid
-                    next_tid += 1
-                number = current[lot]["revision"] + 1 if lot in current else 1
-                product = products[lot] if lot in products else current[lot]["product"]
-                revisions.append((next_rid, lot, number, ingest_id, product))
-                revision_tables += [(next_rid, t, links[t]) for t in TABLES if t in links]
-                next_rid += 1
-            for start in range(0, len(written), _BATCH):  # in id order: the rows as one by one would write them
-                self._insert_lot_tables(c, ingest_id, written[start:start + _BATCH])
-            _write_row_blocks(c, ingest_id, written)
-            c.executemany("INSERT INTO revisions (id, lot, revision, ingest_id, product) VALUES (?, ?, ?, ?, ?)",
-                          revisions)
-            c.executemany("INSERT INTO revision_tables VALUES (?, ?, ?)", revision_tables)
+            self._write_revisions(c, ingest_id, new + revised, changes, current, prepared, sources, products)
             result = IngestResult(new, revised, unchanged, ingest_id, warnings)
             _seal.seal(c, _seal.INGEST, ingest_id)
             self._log(c, "ingest", user, None, None,
@@ -997,6 +972,49 @@ class LotStore:
                       {"ingest_id": ingest_id, "new": new, "revised": revised, "unchanged": len(unchanged)})
         return result
 
+    def _refuse(self, c, ingest: Ingest, product_of: dict, revised: list[str], reason: str | None,
+                accept_unusual: bool) -> list[dict]:
+        """Raise for unusual values not taken deliberately and for revisions or unusual values taken without a
+        reason; returns the unusual values taken (for the audit trail)."""
+        unusual, unusual_records = _plausible.unusual_values(
+            ingest, self._history(c, set(product_of.values()), set(product_of)), product_of)
+        if accept_unusual and reason is None:
+            raise UsageError("--accept-unusual takes unusual values deliberately: give --reason TEXT to say why. "
+                             "Nothing was written.")
+        if unusual and not accept_unusual:
+            raise InputError(unusual)
+        if revised and reason is None:
+            shown = ", ".join(revised[:10]) + (f" and {len(revised) - 10} more" if len(revised) > 10 else "")
+            raise UsageError(f"this ingest revises {len(revised)} stored lot(s) ({shown}); every revision "
+                             "carries its reason: give --reason TEXT (for example the deviation or "
+                             "correction number). Nothing was written.")
+        return unusual_records
+
+    def _write_revisions(self, c, ingest_id: int, lots: list[str], changes: dict[str, list[str]], current: dict,
+                         prepared: dict, sources: dict, products: dict) -> None:
+        """The new and revised ``lots``' lot tables (their rows in row_blocks), revisions and revision tables.
+        Lot tables and revisions get their ids here, as SQLite would give them (largest id + 1; the write
+        transaction holds the store), so that they are written in a few statements."""
+        next_tid = c.execute("SELECT COALESCE(MAX(id), 0) + 1 FROM lot_tables").fetchone()[0]
+        next_rid = c.execute("SELECT COALESCE(MAX(id), 0) + 1 FROM revisions").fetchone()[0]
+        revisions, revision_tables, written = [], [], []
+        for lot in lots:
+            links = {t: v[0] for t, v in current.get(lot, {"tables": {}})["tables"].items()}
+            for tname in changes[lot]:
+                written.append((next_tid, lot, tname, prepared[lot][tname], sources[tname]))
+                links[tname] = next_tid
+                next_tid += 1
+            number = current[lot]["revision"] + 1 if lot in current else 1
+            product = products[lot] if lot in products else current[lot]["product"]
+            revisions.append((next_rid, lot, number, ingest_id, product))
+            revision_tables += [(next_rid, t, links[t]) for t in TABLES if t in links]
+            next_rid += 1
+        for start in range(0, len(written), _BATCH):  # in id order: the rows as one by one would write them
+            self._insert_lot_tables(c, ingest_id, written[start:start + _BATCH])
+        _write_row_blocks(c, ingest_id, written)
+        c.executemany("INSERT INTO revisions (id, lot, revision, ingest_id, product) VALUES (?, ?, ?, ?, ?)",
+                      revisions)
+        c.executemany("INSERT INTO revision_tables VALUES (?, ?, ?)", revision_tables)
 
     def _history(self, c, products: set, exclude: set) -> dict[str, dict]:
         """The stored rows of each product's recent lots (at most ``plausible.HISTORY_LOTS`` a product, newest
