@@ -145,7 +145,6 @@ def unusual_values(ingest, history: dict[str, dict[str | None, dict[str, list[di
     """
     problems: list[Problem] = []
     records: list[dict] = []
-    references: dict[tuple[str, str, str | None], tuple[float, float] | None] = {}
     process = ingest.tables.get("process")
     widths = {}
     if process is not None and "roll_width_mm" in process:
@@ -157,29 +156,20 @@ def unusual_values(ingest, history: dict[str, dict[str | None, dict[str, list[di
             continue
         label = ingest.sources.get(table, {}).get("file", table)
         rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
-        lots = df["lot"].tolist()
         for column in columns:
             if column not in df:
                 continue
-            values = df[column].tolist()
-            if table in JUDGED_BY_LOT:  # one value a lot, its median, shown at the lot's first row
-                by_lot = per_lot_rows(df, column)
-                firsts = {}
-                for k, lot in enumerate(lots):
-                    firsts.setdefault(lot, k)
-                medians = per_lot_medians(by_lot, column)
-                pairs = [(firsts[lot], lot, m) for lot, m in zip(by_lot, medians)]
-            else:
-                pairs = [(k, lot, x) for k, (lot, x) in enumerate(zip(lots, values))]
-            for k, lot, x in pairs:
+            references = {product: robust_reference(per_lot_medians(history.get(table, {}).get(product, {}), column))
+                          for product in {product_of.get(lot) for lot in df["lot"].unique().tolist()}}
+            if all(ref is None for ref in references.values()):
+                continue  # nothing to compare with (an empty store, a new product)
+            candidates = (_lot_candidates if table in JUDGED_BY_LOT else _row_candidates)(df, column, references,
+                                                                                         product_of)
+            for k, lot, x in candidates:
                 if not isinstance(x, float) or not math.isfinite(x):
                     continue
                 product = product_of.get(lot)
-                key = (table, column, product)
-                if key not in references:
-                    references[key] = robust_reference(per_lot_medians(history.get(table, {}).get(product, {}),
-                                                                       column))
-                ref = references[key]
+                ref = references[product]
                 if ref is None:
                     continue
                 m, s = ref
@@ -196,3 +186,53 @@ def unusual_values(ingest, history: dict[str, dict[str | None, dict[str, list[di
                 records.append({"file": label, "row": rows[k], "lot": lot, "column": column, "value": x,
                                 "typical": typical, "robust_sd_log10": s})
     return problems, records
+
+
+#: decades of slack of the vectorised first pass (numpy's log10 and pandas' median may differ from math's and
+#: statistics' in the last bit); the rule itself is then applied value by value to what passes
+_SLACK = 1e-9
+
+
+def _far(values, lots: list, references: dict, product_of: dict):
+    """Which positive values are far enough from their product's reference that :func:`is_unusual` may hold
+    (a necessary condition, vectorised)."""
+    import numpy as np
+
+    refs = [references.get(product_of.get(lot)) for lot in lots]
+    m = np.array([np.nan if r is None else r[0] for r in refs])
+    s = np.array([np.nan if r is None else r[1] for r in refs])
+    x = np.asarray(values, dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        d = np.abs(np.log10(np.where(x > 0, x, np.nan)) - m)
+        return (d > math.log10(RATIO_LIMIT) - _SLACK) & (d > min(Z_ANY, Z_EXPLAINED) * s - _SLACK)
+
+
+def _row_candidates(df, column: str, references: dict, product_of: dict) -> list[tuple[int, str, object]]:
+    """(row index, lot, value) of every row that may be unusual, in row order."""
+    lots, values = df["lot"].tolist(), df[column].tolist()
+    if df[column].dtype.kind != "f":  # not a float column: every row, judged one by one
+        return [(k, lot, x) for k, (lot, x) in enumerate(zip(lots, values))]
+    import numpy as np
+
+    far = np.flatnonzero(_far(df[column].to_numpy(), lots, references, product_of)).tolist()
+    return [(k, lots[k], values[k]) for k in far]
+
+
+def _lot_candidates(df, column: str, references: dict, product_of: dict) -> list[tuple[int, str, object]]:
+    """(first row of the lot, lot, median of the lot's positive values) of every lot that may be unusual, in
+    order of the lots' first positive value."""
+    import numpy as np
+
+    lots = df["lot"].tolist()
+    keep = None
+    if df[column].dtype.kind == "f":
+        v = df[column].to_numpy()
+        positive = np.isfinite(v) & (v > 0)
+        medians = df.loc[positive, ["lot", column]].groupby("lot", sort=False)[column].median()
+        near = medians.index[~_far(medians.to_numpy(), medians.index.tolist(), references, product_of)]
+        keep = ~df["lot"].isin(set(near.tolist())).to_numpy()
+    firsts: dict[str, int] = {}
+    for k, lot in enumerate(lots):
+        firsts.setdefault(lot, k)
+    by_lot = per_lot_rows(df if keep is None else df[keep], column)
+    return [(firsts[lot], lot, m) for lot, m in zip(by_lot, per_lot_medians(by_lot, column))]
