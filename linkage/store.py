@@ -583,14 +583,15 @@ def _has_table(c, name: str) -> bool:
 
 
 def read_row_texts(c, lot_table_ids=None, *, sources: bool = False, exact: bool = True,
-                   store: str = "the lot store"):
+                   block_keys: set[tuple[int, str]] | None = None, store: str = "the lot store"):
     """The raw rows' JSON texts of the lot tables ``lot_table_ids`` (every lot table when None): three arrays
     sorted by lot table id and then as stored, (lot table id, text, source row; the last None unless
     ``sources``). With ``exact=False`` they may hold other lot tables' rows too (a record holds a whole
-    ingest's table). Rows written before schema 3 come from raw_rows, later ones from row_blocks."""
+    ingest's table). Rows written before schema 3 come from raw_rows, later ones from row_blocks.
+    ``block_keys``: the (ingest id, table) of the lot tables when the caller knows them (saves a query)."""
     wanted = None if lot_table_ids is None else sorted(set(int(t) for t in lot_table_ids))
     parts = []
-    blocks = _block_keys(c, wanted) if _has_table(c, "row_blocks") else []
+    blocks = _block_keys(c, wanted, block_keys) if _has_table(c, "row_blocks") else []
     for ingest_id, tbl in blocks:
         parts.append(_read_block(c, ingest_id, tbl, sources, store))
     if _has_table(c, "raw_rows") and c.execute("SELECT MAX(rowid) FROM raw_rows").fetchone()[0] is not None:
@@ -616,11 +617,13 @@ def _is_sorted(values: np.ndarray) -> bool:
     return bool(len(values) < 2 or np.all(values[1:] >= values[:-1]))
 
 
-def _block_keys(c, wanted: list[int] | None) -> list[tuple[int, str]]:
+def _block_keys(c, wanted: list[int] | None, known: set | None = None) -> list[tuple[int, str]]:
     """(ingest id, table) of the row_blocks records that hold any of the ``wanted`` lot tables."""
     stored = [tuple(r) for r in c.execute("SELECT ingest_id, tbl FROM row_blocks ORDER BY ingest_id, tbl")]
     if wanted is None or not stored:
         return stored
+    if known is not None:
+        return [k for k in stored if k in known]
     keys: set[tuple[int, str]] = set()
     for start in range(0, len(wanted), _IN_CHUNK):
         chunk = wanted[start:start + _IN_CHUNK]
@@ -1096,7 +1099,8 @@ class LotStore:
         params = (product,) if product is not None else ()
         # the lots in the order they came (CROSS JOIN keeps lots the outer loop: no sort), each with its
         # latest revision, as the current_revisions view picks it, and that revision's lot tables
-        links_sql = ("SELECT rt.tbl, rt.lot_table_id, lt.n_rows, lt.columns_json, h.rows_sha256, l.lot FROM lots l "
+        links_sql = ("SELECT rt.tbl, rt.lot_table_id, lt.n_rows, lt.columns_json, h.rows_sha256, l.lot, lt.ingest_id "
+                     "FROM lots l "
                      "CROSS JOIN revisions cr CROSS JOIN revision_tables rt CROSS JOIN lot_tables lt "
                      "LEFT JOIN lot_table_hashes h ON h.lot_table_id = lt.id "
                      "WHERE cr.lot = l.lot AND cr.revision = (SELECT MAX(revision) FROM revisions WHERE lot = l.lot) "
@@ -1108,6 +1112,7 @@ class LotStore:
                 return {}
             try:
                 tids, texts, _ = read_row_texts(self._conn, [link[1] for link in links], exact=False,
+                                              block_keys={(link[6], link[0]) for link in links},
                                               store=f"lot store {self.path}")
             except sqlite3.DatabaseError as exc:
                 raise self._error(exc) from None
@@ -1119,7 +1124,7 @@ class LotStore:
         by id and seq, which may hold other lot tables' rows too."""
         columns: dict[str, dict[str, None]] = {}
         seen_columns: set[tuple[str, str]] = set()
-        for tbl, _, _, columns_json, _, _ in links:
+        for tbl, _, _, columns_json, _, _, _ in links:
             if (tbl, columns_json) not in seen_columns:  # most lots of a table share their columns
                 seen_columns.add((tbl, columns_json))
                 columns.setdefault(tbl, {}).update(dict.fromkeys(json.loads(columns_json)))
