@@ -6,7 +6,9 @@ it, by one row of the append-only ``seals`` table:
 - an **ingest**: the ingest row (with its reason), its files, the lots it
   created, its lot tables (each with the SHA-256 of its raw rows as stored,
   ``rows_sha256``, and of their spreadsheet row numbers) and the revisions it
-  made;
+  made. The rows are JSON texts, in ``raw_rows`` (schema 1 and 2) or as the
+  lines of the ingest's ``row_blocks`` record of the table (schema 3): the
+  same texts and the same hash either way;
 - an **audit** entry and a recorded **prediction**: the whole row.
 
 A seal holds the SHA-256 of its record's content and a link hash,

@@ -8,7 +8,17 @@ What it keeps
 - Raw rows, not lot means: every ribbon replicate, every sieve row, every
   tablet and vessel, with its extra columns, as JSON per row (floats are
   written with Python's shortest round-trip ``repr``, so they read back
-  exactly). Missing cells are left out of a row's JSON.
+  exactly). Missing cells are left out of a row's JSON. Since schema 3 an
+  ingest keeps all its rows of one table in one ``row_blocks`` record (the
+  rows' JSON texts, one per line; see :func:`_write_row_blocks` for why);
+  a store written before keeps its rows in ``raw_rows``, one SQLite row per
+  raw row, read as before.
+- Schema 3 migration: a schema 1 or 2 store is upgraded in place, in one
+  transaction, when first opened with write access (``row_blocks`` added,
+  its append-only triggers, one ``upgrade`` seal); its existing rows are
+  not moved or rewritten, so their seals and row hashes stay valid. A store
+  on a read-only file system is read as it is (schema 2 and 3; schema 1
+  must be opened once with write access to be sealed).
 - A lot's *revision* covers all its rows in all tables. An ingest that
   changes any of a lot's rows makes a new revision of that lot only; the
   tables the ingest does not carry over unchanged from the previous revision
