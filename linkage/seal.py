@@ -263,7 +263,7 @@ def check(c, store_path: Path, *, full: bool = False) -> tuple[list[str], dict]:
 
 
 def _check_lot_tables(c, counts: dict) -> list[str]:
-    from linkage.store import _content_hash, read_row_texts  # the store's own definitions
+    from linkage.store_rows import content_hash, read_row_texts  # the store's own definitions
 
     problems: list[str] = []
     meta = {tid: (lot, tbl, content, rows_h, src_h) for tid, lot, tbl, content, rows_h, src_h in c.execute(
@@ -294,6 +294,6 @@ def _check_lot_tables(c, counts: dict) -> list[str]:
         except ValueError:
             problems.append(f"{what}: a raw row is not valid JSON")
             continue
-        if _content_hash(tbl, parsed) != content:
+        if content_hash(tbl, parsed) != content:
             problems.append(f"{what}: its content hash does not match its rows")
     return problems

@@ -24,7 +24,8 @@ import pytest
 
 from linkage.exceptions import InputError, StoreBusyError, StoreError, UsageError
 from linkage.read import read_folder
-from linkage.store import APPEND_ONLY, APPLICATION_ID, SCHEMA_VERSION, LotStore, read_row_texts
+from linkage.store import APPEND_ONLY, APPLICATION_ID, SCHEMA_VERSION, LotStore
+from linkage.store_rows import read_row_texts
 
 # a copy of the shared template example (four invented lots), kept here so a clone alone runs these tests
 TEMPLATE = Path(__file__).resolve().parent / "data" / "template-example"

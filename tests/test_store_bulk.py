@@ -38,7 +38,8 @@ from hypothesis import strategies as st
 
 from linkage.read import read_folder
 from linkage.schema import DATETIME, NUMBER, TABLES, TEXT
-from linkage.store import LotStore, _content_hash, _encode_table, _frame, read_row_texts
+from linkage.store import LotStore, _frame
+from linkage.store_rows import content_hash, encode_table, read_row_texts
 from linkage.synthetic import make_lots
 
 
@@ -299,7 +300,7 @@ def _canon_text(value):
 
 
 def _assert_same_encoding(table: str, df: pd.DataFrame) -> None:
-    mine, reference = _encode_table(table, df), _cell_by_cell(table, df)
+    mine, reference = encode_table(table, df), _cell_by_cell(table, df)
     assert list(mine) == list(reference)
     for lot, lt in mine.items():
         assert {"rows": lt.rows, "source_rows": lt.source_rows, "filled": lt.n_filled, "sha256": lt.sha256} == \
@@ -323,9 +324,9 @@ def test_hash_order_follows_the_text_of_the_keys():
     ribbon = pd.DataFrame({"lot": ["L1"] * 4, "sample": ["é", "a", "B", "a"],
                            "envelope_density_g_cm3": [1.0, 1.1, 1.2, 1.3], "skeletal_density_g_cm3": [1.5] * 4})
     for name, df in (("granules", granules), ("ribbon", ribbon)):
-        for lot, lt in _encode_table(name, df).items():
+        for lot, lt in encode_table(name, df).items():
             rows = [json.loads(t) for t in lt.rows]
-            assert lt.sha256 == _expected_hash(name, rows) == _content_hash(name, rows)
+            assert lt.sha256 == _expected_hash(name, rows) == content_hash(name, rows)
         _assert_same_encoding(name, df)
 
 
@@ -358,8 +359,8 @@ def test_the_one_encoder_writes_what_json_dumps_writes_on_varied_values(data, n)
     })
     df.attrs["source_rows"] = list(range(5, 5 + n))
     _assert_same_encoding("ribbon", df)
-    for lot, lt in _encode_table("ribbon", df).items():
-        assert _content_hash("ribbon", [json.loads(t) for t in lt.rows]) == lt.sha256
+    for lot, lt in encode_table("ribbon", df).items():
+        assert content_hash("ribbon", [json.loads(t) for t in lt.rows]) == lt.sha256
 
 
 def test_frame_keeps_keys_outside_the_column_lists():

@@ -27,7 +27,8 @@ from hypothesis import strategies as st
 from linkage import seal
 from linkage.assemble import assemble
 from linkage.read import read_folder
-from linkage.store import SCHEMA_VERSION, LotStore, read_row_texts
+from linkage.store import SCHEMA_VERSION, LotStore
+from linkage.store_rows import read_row_texts
 
 DATA = Path(__file__).resolve().parent / "data"
 EXAMPLE = DATA / "template-example"

@@ -258,7 +258,7 @@ def rows_of(store: Path, lots: set[str]) -> dict[str, int]:
     """Raw rows per table held for ``lots`` (read with plain sqlite3)."""
     con = _connect(store)
     try:
-        from linkage.store import read_row_texts  # the rows as stored (schema 3: in row_blocks records)
+        from linkage.store_rows import read_row_texts  # the rows as stored (schema 3: in row_blocks records)
 
         out: dict[str, int] = {}
         owner = {tid: (lot, tbl) for tid, lot, tbl in con.execute("SELECT id, lot, tbl FROM lot_tables")}

@@ -25,7 +25,8 @@ import pytest
 from linkage import seal
 from linkage.exceptions import StoreIntegrityError
 from linkage.read import read_folder
-from linkage.store import APPEND_ONLY, SCHEMA_VERSION, LotStore, current_user, read_row_texts
+from linkage.store import APPEND_ONLY, SCHEMA_VERSION, LotStore, current_user
+from linkage.store_rows import read_row_texts
 
 from .helpers import run_cli
 
