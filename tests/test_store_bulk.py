@@ -361,6 +361,7 @@ def test_the_one_encoder_writes_what_json_dumps_writes_on_varied_values(data, n)
     _assert_same_encoding("ribbon", df)
     for lot, lt in encode_table("ribbon", df).items():
         assert content_hash("ribbon", [json.loads(t) for t in lt.rows]) == lt.sha256
+        assert not any("\n" in t for t in lt.rows)  # a row_blocks record keeps one row a line
 
 
 def test_frame_keeps_keys_outside_the_column_lists():
