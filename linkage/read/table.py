@@ -1,0 +1,302 @@
+"""A raw sheet checked against the template: the typed table, or every problem at once."""
+
+from __future__ import annotations
+
+import datetime as dt
+import difflib
+import gc
+import math
+from contextlib import contextmanager
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from linkage.exceptions import InputError, Problem
+from linkage.read import MAPPING_FILE, UNSUPPORTED_SUFFIXES, WORKBOOK_SUFFIXES
+from linkage.read.cells import (_as_list, _column_clean, _decimal_mark, _extra_non_finite, _extra_values,
+                                _fast_cells, _in_bounds, _parse_datetime, _parse_number, _shown, _text)
+from linkage.read.lots import _lot_id_problems
+from linkage.read.mapping import ROLL_WIDTH_COLUMN, TOTAL_FORCE_COLUMN, ColumnMap, Mapping, _suggest, _without_unit
+from linkage.read.raw import _is_missing, _letters, _norm_header, _Raw
+from linkage.read.rules import _key_problems, _rule_problems, _sorted
+from linkage.read.sniff import _read_csv
+from linkage.read.workbook import _hidden, _hidden_sheet, _open_workbook, _percent_cells, _read_sheet
+from linkage.schema import DATETIME, NUMBER, TABLES, TEXT, Table
+
+def frame_from_columns(table: str, columns: dict[str, list], extra: dict[str, list] | None = None,
+                       n_rows: int | None = None) -> pd.DataFrame:
+    """A DataFrame of a table with the template's dtypes.
+
+    ``columns`` holds template columns (missing ones are filled with missing
+    values), ``extra`` the extra columns in order; values are Python values
+    with ``None`` for missing. TEXT -> ``str``, NUMBER -> ``float64``,
+    DATETIME -> ``datetime64[us]``; an extra column is ``float64`` when every
+    value is a number, else ``str``.
+    """
+    tdef = TABLES[table]
+    if n_rows is None:
+        lengths = [len(v) for v in (*columns.values(), *(extra or {}).values())]
+        n_rows = lengths[0] if lengths else 0
+    data: dict[str, pd.Series] = {}
+    for col in tdef.columns:
+        values = columns.get(col.name, [None] * n_rows)
+        data[col.name] = _series(col.kind, values)
+    for name, values in (extra or {}).items():
+        numeric = all(v is None or (isinstance(v, float) and not isinstance(v, bool)) for v in values)
+        data[name] = _series(NUMBER, values) if numeric else _series(
+            TEXT, [None if v is None else (repr(v) if isinstance(v, float) else str(v)) for v in values])
+    return pd.DataFrame(data, index=pd.RangeIndex(n_rows))
+
+
+def _series(kind: str, values) -> pd.Series:
+    if kind == NUMBER:
+        if isinstance(values, np.ndarray):
+            return pd.Series(values, dtype="float64")
+        return pd.Series([math.nan if v is None else float(v) for v in values], dtype="float64")
+    if kind == DATETIME:
+        if all(v is None or (type(v) is dt.datetime and v.tzinfo is None) for v in values):
+            return pd.Series(values, dtype="datetime64[us]")  # the same as through pd.Timestamp, 20 times faster
+        return pd.Series([None if v is None else pd.Timestamp(v) for v in values], dtype="datetime64[us]")
+    return pd.Series([None if v is None else str(v) for v in values], dtype="str")
+
+
+def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
+    """Apply the template to a raw sheet; raise InputError with every problem."""
+    label = raw.label
+    problems = list(raw.problems)
+    # ---- header: rename, match the template, keep extras
+    targets: list[tuple[int, str, str, ColumnMap | None]] = []  # (index, target, header, map)
+    seen: dict[str, str] = {}
+    names_lower = {n.lower(): n for n in tdef.names}
+    unit_headers: set[str] = set()  # template columns written with a unit in the header (reported once)
+    for j, head in enumerate(raw.header):
+        shown = _norm_header(head)
+        if not shown:
+            if any(not _is_missing(cells[j]) for _, cells in raw.rows):
+                problems.append(Problem(label, f"column {_letters(j)} has values but no header", row=1,
+                                        column=_letters(j)))
+            continue
+        cmap = cmaps.get(shown.lower())
+        target = cmap.target if cmap else names_lower.get(shown.lower(), shown)
+        decorated = None if cmap or target in tdef.names else names_lower.get(_without_unit(shown).lower())
+        if decorated is not None:
+            unit = tdef.column(decorated).unit
+            problems.append(Problem(label, f"header '{shown}' is the template column '{decorated}' with a unit "
+                                           f"added; the template name carries its unit ({unit}): name the column "
+                                           f"'{decorated}', or map the header in {MAPPING_FILE} (with unit = ... "
+                                           "where the file uses another unit)", row=1, column=shown))
+            unit_headers.add(decorated)
+            continue
+        if target.lower() in seen:
+            problems.append(Problem(label, f"two columns become '{target}': '{seen[target.lower()]}' and '{shown}'",
+                                    row=1, column=shown))
+            continue
+        seen[target.lower()] = shown
+        targets.append((j, target, shown, cmap))
+    present = {t for _, t, _, _ in targets}
+    for col in tdef.columns:
+        if col.required and col.name not in present and col.name not in unit_headers:
+            near = difflib.get_close_matches(col.name, [h for _, _, h, _ in targets], n=1, cutoff=0.6)
+            hint = f"; found '{near[0]}': rename it or map it in {MAPPING_FILE}" if near else ""
+            problems.append(Problem(label, f"required column '{col.name}' is missing{hint}", row=1, column=col.name))
+    # ---- decimal mark from the number cells of the file (module notes, rule 4)
+    number_idx = [j for j, t, _, _ in targets if t not in tdef.names or tdef.column(t).kind == NUMBER]
+    decimal = _decimal_mark((cells[j] for _, cells in raw.rows for j in number_idx), raw.separator)
+    # ---- cells
+    n = len(raw.rows)
+    sheet_rows = [r for r, _ in raw.rows]
+    values: dict[str, list] = {}
+    extra: dict[str, list] = {}
+    headers: dict[str, str] = {}
+    bad: set[tuple[int, str]] = set()  # (row index, target) of cells already refused
+    by_column = list(zip(*(cells for _, cells in raw.rows))) if raw.rows else []
+    for j, target, shown, cmap in targets:
+        headers[target] = shown
+        cells = list(by_column[j]) if by_column else []
+        if raw.formulas:
+            for k, (r, _) in enumerate(raw.rows):
+                if (r, j) in raw.formulas:
+                    problems.append(Problem(label, "formula without a stored result; open and save the file in a "
+                                                   "spreadsheet program, or paste values", row=r, column=shown))
+                    bad.add((k, target))
+        if raw.percent:
+            _percent_cells(raw, j, target, shown, tdef, cmap, cells, problems, bad)
+        if target not in tdef.names:
+            extra[target] = _extra_values(cells, decimal, raw.separator)
+            problems += _extra_non_finite(cells, extra[target], decimal, raw.separator, label, sheet_rows, shown)
+            continue
+        col = tdef.column(target)
+        fast = _fast_cells(col, cells, decimal, raw.separator, bad, target)
+        if fast is not None:
+            values[target] = fast * cmap.factor if cmap and col.kind == NUMBER else fast
+            continue
+        out: list = []
+        for k, cell in enumerate(cells):
+            if (k, target) in bad or _is_missing(cell):
+                out.append(None)
+                continue
+            if col.kind == TEXT:
+                out.append(_text(cell))
+                continue
+            parsed = _parse_number(cell, decimal, raw.separator) if col.kind == NUMBER else _parse_datetime(cell)
+            if isinstance(parsed, str):
+                problems.append(Problem(label, parsed, row=sheet_rows[k], column=shown, value=_shown(cell)))
+                bad.add((k, target))
+                out.append(None)
+            else:
+                out.append(parsed * cmap.factor if cmap and col.kind == NUMBER else parsed)
+        values[target] = out
+    # ---- total roll force -> per cm of roll width
+    force_map = next((m for _, t, _, m in targets if m is not None and m.total_force), None)
+    if force_map is not None:
+        for name in (TOTAL_FORCE_COLUMN, ROLL_WIDTH_COLUMN):
+            if isinstance(values.get(name), np.ndarray):
+                values[name] = _as_list(values[name])
+        widths = values.get(ROLL_WIDTH_COLUMN, [None] * n)
+        forces = values[TOTAL_FORCE_COLUMN]
+        for k in range(n):
+            if forces[k] is None:
+                continue
+            width, row_width = force_map.roll_width_mm, widths[k]
+            if width is not None and row_width is not None and not math.isclose(width, row_width, rel_tol=1e-9):
+                problems.append(Problem(label, f"roll width {row_width:g} mm in this row differs from "
+                                               f"{width:g} mm in {MAPPING_FILE}", row=sheet_rows[k],
+                                        column=headers.get(ROLL_WIDTH_COLUMN, ROLL_WIDTH_COLUMN), value=row_width))
+                bad.add((k, TOTAL_FORCE_COLUMN))
+                forces[k] = None
+                continue
+            width = width if width is not None else row_width
+            if width is None or not width > 0:
+                problems.append(Problem(label, f"a total roll force needs the roll width: give {ROLL_WIDTH_COLUMN} "
+                                               f"in the row or roll_width_mm in {MAPPING_FILE}", row=sheet_rows[k],
+                                        column=headers[TOTAL_FORCE_COLUMN], value=_shown(_cell(raw, k, targets,
+                                                                                           TOTAL_FORCE_COLUMN))))
+                bad.add((k, TOTAL_FORCE_COLUMN))
+                forces[k] = None
+                continue
+            forces[k] = forces[k] / (width / 10.0)
+    # ---- bounds and non-empty cells
+    for col in tdef.columns:
+        if col.name not in values:
+            continue
+        shown = headers[col.name]
+        cmap = next((m for _, t, _, m in targets if t == col.name), None)
+        required = col.nonempty or col.name in tdef.key
+        if isinstance(values[col.name], np.ndarray):
+            if _column_clean(col, values[col.name], required):
+                continue
+            values[col.name] = _as_list(values[col.name])  # something to report: the loop below says what
+        elif col.kind != NUMBER and (not required or None not in values[col.name]):
+            continue  # no bounds, and nothing missing that must be there
+        for k, v in enumerate(values[col.name]):
+            if (k, col.name) in bad:
+                continue
+            if v is None:
+                if col.nonempty or col.name in tdef.key:
+                    problems.append(Problem(label, f"'{col.name}' must have a value in every row", row=sheet_rows[k],
+                                            column=shown, value=_shown(_cell(raw, k, targets, col.name))))
+                    bad.add((k, col.name))
+                continue
+            if col.kind == NUMBER and not _in_bounds(col, v):
+                note = ""
+                if cmap is not None and cmap.unit is not None:
+                    note = f" (read as {cmap.unit}, converted to {v:g} {col.unit})"
+                problems.append(Problem(label, f"outside the range {col.bound_text()}{note}", row=sheet_rows[k],
+                                        column=shown, value=_shown(_cell(raw, k, targets, col.name))))
+                bad.add((k, col.name))
+    if isinstance(values.get("lot"), list):
+        problems += _lot_id_problems(values["lot"], label, sheet_rows, headers.get("lot", "lot"), bad)
+    df = frame_from_columns(tdef.name, values, extra, n_rows=n)
+    problems += _key_problems(df, tdef, label, sheet_rows, headers, bad)
+    problems += _rule_problems(df, tdef, label, sheet_rows, headers, bad)
+    if problems:
+        raise InputError(_sorted(problems))
+    df.attrs["table"] = tdef.name
+    df.attrs["file"] = label
+    df.attrs["source_rows"] = SourceRows(sheet_rows)
+    return df
+
+
+def _cell(raw: _Raw, k: int, targets, target: str) -> object:
+    for j, t, _, _ in targets:
+        if t == target:
+            return raw.rows[k][1][j]
+    return None
+
+
+
+@contextmanager
+def bulk():
+    """Pause Python's cyclic garbage collector while a large table is parsed
+    or written. Building millions of small lists and tuples otherwise sets
+    off full collections that walk every live object again and again (a
+    third of the time of reading 100,000 lots). Nothing of ours makes
+    reference cycles there; the collector is switched back on afterwards
+    (if it was on) and catches up then."""
+    was_enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was_enabled:
+            gc.enable()
+
+
+class SourceRows(list):
+    """The spreadsheet row of each row of a table (``attrs["source_rows"]``).
+
+    A plain list of ints, except that its deep copy is a shallow one (the
+    same ints, a new list): pandas deep-copies ``attrs`` on every operation
+    that derives a frame or a column, and element-by-element deep copies of a
+    long list made selecting one column of a large table cost seconds.
+    """
+
+    def __deepcopy__(self, memo):
+        return SourceRows(self)
+
+
+def read_table(path: Path, table: str | None = None, mapping: Mapping | None = None, *,
+               definition: Table | None = None) -> pd.DataFrame:
+    """Read one CSV or XLSX file as a checked table of the template.
+
+    ``table`` defaults to the file's stem. Returns typed columns (see
+    :func:`frame_from_columns`): every template column of the table in template
+    order, then the extra columns in file order. ``attrs["source_rows"]`` gives
+    each row's spreadsheet row. Raises :class:`InputError` with every problem
+    of the file. ``definition`` checks the file against a stricter variant of
+    the table (the same columns, some of them required; default the
+    template's).
+    """
+    path = Path(path)
+    name = table if table is not None else _norm_header(path.stem).lower()
+    if name not in TABLES:
+        raise InputError(Problem(path.name, f"unknown table '{name}'{_suggest(name, TABLES)}; "
+                                            f"tables: {', '.join(TABLES)}"))
+    if not path.is_file():
+        raise InputError(Problem(str(path), "no such file"))
+    cmaps = (mapping or Mapping()).for_table(name)
+    if path.suffix.lower() in WORKBOOK_SUFFIXES:
+        values, formulas = _open_workbook(path, path.name)
+        try:
+            sheets = values.sheetnames
+            by_name = {_norm_header(s).lower(): s for s in sheets}
+            if name in by_name and _hidden(values, by_name[name]):
+                raise InputError(_hidden_sheet(path.name, by_name[name]))
+            if name in by_name:
+                sheet = by_name[name]
+            elif len(sheets) == 1:
+                sheet = sheets[0]
+            else:
+                raise InputError(Problem(path.name, f"no sheet named '{name}' and more than one sheet "
+                                                    f"({', '.join(sheets)})"))
+            label = path.name if len(sheets) == 1 else f"{path.name} (sheet {sheet})"
+            raw = _read_sheet(values, formulas, sheet, label)
+        finally:
+            values.close()
+            formulas.close()
+    elif path.suffix.lower() in UNSUPPORTED_SUFFIXES:
+        raise InputError(Problem(path.name, "this spreadsheet format is not read; save as .xlsx or CSV UTF-8"))
+    else:
+        raw = _read_csv(path.read_bytes(), path.name)
+    return _build(raw, definition or TABLES[name], cmaps)
