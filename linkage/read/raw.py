@@ -9,23 +9,40 @@ from linkage import read as package
 from linkage.exceptions import Problem
 from linkage.schema import MISSING_TOKENS
 
+
+
 @dataclass
 class _Raw:
-    """A sheet as read, before any template rule: header and rows of cells."""
+    """A sheet as read, before any template rule: the header, and the kept
+    rows' cells column by column (``columns[j][k]`` is column ``j`` of the
+    ``k``-th kept row, which is sheet row ``row_numbers[k]``; blank rows and
+    refused rows are left out)."""
 
     label: str
     header: list[str]
-    rows: list[tuple[int, list]]
+    row_numbers: list[int]
+    columns: list[list]
     separator: str | None  # None for a workbook
     problems: list[Problem] = field(default_factory=list)
     formulas: set[tuple[int, int]] = field(default_factory=set)
     #: (sheet row, column index) of workbook number cells formatted as a percentage: stored 0.0176, shown 1.76 %
     percent: set[tuple[int, int]] = field(default_factory=set)
 
+    @classmethod
+    def from_rows(cls, label: str, header: list[str], rows: list[tuple[int, list]], separator: str | None,
+                  **more) -> _Raw:
+        """From (sheet row, cells) pairs, every one as long as the header."""
+        columns = [list(cells) for cells in zip(*(rec for _, rec in rows))] if rows else [[] for _ in header]
+        return cls(label, header, [r for r, _ in rows], columns, separator, **more)
+
+    def cell(self, k: int, j: int) -> object:
+        return self.columns[j][k]
+
 
 def _norm_header(text: object) -> str:
     s = "" if text is None else str(text)
     return " ".join(s.replace("\ufeff", "").replace("\xa0", " ").split())
+
 
 def _is_missing(cell: object) -> bool:
     if cell is None:

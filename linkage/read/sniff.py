@@ -3,13 +3,29 @@
 from __future__ import annotations
 
 import csv
+import functools
 import io
+import operator
+import re
+
+import pandas as pd
 
 from linkage import read as package
 from linkage.exceptions import InputError, Problem
 from linkage.read.raw import _Raw, _too_many_columns, _too_many_rows
 
+
 def _read_csv(data: bytes, label: str) -> _Raw:
+    text = _decode(data, label)
+    sep = _separator(text, label)
+    fast = _quote_free(text, sep, label)
+    return fast if fast is not None else _from_records(text, sep, label)
+
+
+def _decode(data: bytes, label: str) -> str:
+    """The text of a CSV file; refused before decoding when it is a workbook,
+    UTF-16 or longer than MAX_ROWS lines, and after when it is not UTF-8 or
+    holds NUL characters."""
     if data.startswith(b"PK\x03\x04"):
         raise InputError(Problem(label, "this is a zipped workbook (.xlsx), not a CSV text file; "
                                         "give it the .xlsx suffix"))
@@ -26,29 +42,38 @@ def _read_csv(data: bytes, label: str) -> _Raw:
                                         "save the file as 'CSV UTF-8'", row=line)) from None
     if "\x00" in text:
         raise InputError(Problem(label, "contains NUL bytes: not a text CSV file"))
+    return text
+
+
+def _separator(text: str, label: str) -> str:
+    """The separator, from the header line (module notes, rule 1)."""
     found = _header_separators(text)
     if len(found) <= 1:
-        sep = found[0] if found else ","
-    else:
-        fits = [s for s in found if _fits(_records(text, s, label))]
-        if len(fits) != 1:
-            shown = " and ".join("tab" if s == "\t" else repr(s) for s in found)
-            raise InputError(Problem(label, f"cannot tell the separator: the header holds {shown} outside quotes "
-                                            "and the rows do not settle it; quote header names that hold a "
-                                            "separator", row=1))
-        sep = fits[0]
+        return found[0] if found else ","
+    fits = [s for s in found if _fits(_records(text, s, label))]
+    if len(fits) != 1:
+        shown = " and ".join("tab" if s == "\t" else repr(s) for s in found)
+        raise InputError(Problem(label, f"cannot tell the separator: the header holds {shown} outside quotes "
+                                        "and the rows do not settle it; quote header names that hold a "
+                                        "separator", row=1))
+    return fits[0]
+
+
+def _from_records(text: str, sep: str, label: str) -> _Raw:
+    """The raw sheet through the csv module, record by record: every case,
+    quotes, blank and ragged rows included."""
     records = _records(text, sep, label)
     if not records or not any(c.strip() for c in records[0]):
         raise InputError(Problem(label, "the header must be on row 1 (row 1 is empty)", row=1))
     if len(records[0]) > package.MAX_COLUMNS:
         raise InputError(_too_many_columns(label, len(records[0])))
     header = list(records[0])
-    raw = _Raw(label, header, [], sep)
     n = len(header)
     body = records[1:]
     if set(map(len, body)) <= {n} and all(map(str.strip, map("".join, body))):
-        raw.rows = list(zip(range(2, len(body) + 2), body))  # every row complete, none blank
-        return raw
+        return _Raw.from_rows(label, header, list(zip(range(2, len(body) + 2), body)), sep)  # complete, none blank
+    problems: list[Problem] = []
+    rows: list[tuple[int, list]] = []
     join = "".join
     for i, rec in enumerate(body, start=2):
         if not join(rec).strip():  # every cell blank
@@ -59,11 +84,56 @@ def _read_csv(data: bytes, label: str) -> _Raw:
             shown = ("tab" if sep == "\t" else sep).join(rec)
             hint = (" (an unquoted decimal comma or a stray separator?)" if len(rec) > n
                     else " (a missing separator?)")
-            raw.problems.append(Problem(label, f"row has {len(rec)} fields but the header has {n}{hint}",
-                                        row=i, value=shown[:120]))
+            problems.append(Problem(label, f"row has {len(rec)} fields but the header has {n}{hint}",
+                                    row=i, value=shown[:120]))
             continue
-        raw.rows.append((i, rec))
-    return raw
+        rows.append((i, rec))
+    return _Raw.from_rows(label, header, rows, sep, problems=problems)
+
+
+def _quote_free(text: str, sep: str, label: str) -> _Raw | None:
+    """The raw sheet of a file without a double quote through pandas' C
+    reader, every cell as text; None when the file needs the record-by-record
+    reader (:func:`_from_records`).
+
+    Without quotes a record is a line, and a cell what lies between two
+    separators, so the C reader (``quoting=QUOTE_NONE``, nothing read as
+    missing or as a number) returns the cells the csv module does, but for
+    the spaces the csv module drops at the start of a cell
+    (``skipinitialspace``): every rule trims a cell before reading it. The
+    fast reader is only taken where it cannot differ from the record-by-record
+    one: no ``"`` in the file, every line holding the header's number of
+    separators and something other than separators and spaces (no blank or
+    ragged row to skip or report), no line longer than the csv module's cell
+    limit."""
+    if '"' in text:
+        return None
+    body = text.replace("\r\n", "\n").replace("\r", "\n")  # csv reads CR LF, LF and CR alike
+    if body.endswith("\n"):
+        body = body[:-1]  # the line end of the last record
+    lines = body.split("\n")
+    if max(map(len, lines)) > csv.field_size_limit():
+        return None  # a line (and perhaps a cell) past the limit: the csv module says which
+    if set(map(operator.methodcaller("count", sep), lines)) != {lines[0].count(sep)} or _blank_line(sep).search(body):
+        return None
+    n = lines[0].count(sep) + 1
+    del lines
+    if n > package.MAX_COLUMNS:
+        raise InputError(_too_many_columns(label, n))
+    frame = pd.read_csv(io.StringIO(body), sep=sep, header=None, index_col=False, dtype=object, na_filter=False,
+                        keep_default_na=False, quoting=csv.QUOTE_NONE, skip_blank_lines=False, engine="c",
+                        low_memory=False)
+    columns = [frame[j].tolist() for j in frame.columns]
+    header = [cells[0] for cells in columns]
+    return _Raw(label, header, list(range(2, len(frame) + 1)), [cells[1:] for cells in columns], sep)
+
+
+@functools.cache
+def _blank_line(sep: str) -> re.Pattern:
+    """A line that may be blank to the csv module: nothing on it but the
+    separator and characters that are not visible ASCII (white space,
+    control characters, and, to be safe, any non-ASCII character)."""
+    return re.compile(rf"^(?:[^\n!-~]|{re.escape(sep)})*$", re.MULTILINE)
 
 
 def _header_separators(text: str) -> list[str]:

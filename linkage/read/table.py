@@ -5,8 +5,10 @@ from __future__ import annotations
 import datetime as dt
 import difflib
 import gc
+import itertools
 import math
 from contextlib import contextmanager
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -22,7 +24,7 @@ from linkage.read.raw import _is_missing, _letters, _norm_header, _Raw
 from linkage.read.rules import _key_problems, _rule_problems, _sorted
 from linkage.read.sniff import _read_csv
 from linkage.read.workbook import _hidden, _hidden_sheet, _open_workbook, _percent_cells, _read_sheet
-from linkage.schema import DATETIME, NUMBER, TABLES, TEXT, Table
+from linkage.schema import DATETIME, NUMBER, TABLES, TEXT, Column, Table
 
 def frame_from_columns(table: str, columns: dict[str, list], extra: dict[str, list] | None = None,
                        n_rows: int | None = None) -> pd.DataFrame:
@@ -61,19 +63,47 @@ def _series(kind: str, values) -> pd.Series:
     return pd.Series([None if v is None else str(v) for v in values], dtype="str")
 
 
+#: one column of a file that is read: (column index, target column, header as written, its mapping or None)
+Target = tuple[int, str, str, "ColumnMap | None"]
+
+
 def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
     """Apply the template to a raw sheet; raise InputError with every problem."""
+    check = _Check(raw, tdef, list(raw.problems))
+    check.targets, unit_headers = _match_header(raw, tdef, cmaps, check.problems)
+    _require_columns(raw.label, tdef, check.targets, unit_headers, check.problems)
+    # the decimal mark from the number cells of the file (module notes, rule 4)
+    number_idx = [j for j, t, _, _ in check.targets if t not in tdef.names or tdef.column(t).kind == NUMBER]
+    decimal = _decimal_mark(itertools.chain.from_iterable(raw.columns[j] for j in number_idx), raw.separator)
+    for target in check.targets:
+        check.read_column(target, decimal)
+    force_map = next((m for _, t, _, m in check.targets if m is not None and m.total_force), None)
+    if force_map is not None:
+        check.per_cm_of_roll_width(force_map)
+    for col in tdef.columns:
+        if col.name in check.values:
+            check.bounds_and_presence(col)
+    return check.frame()
+
+
+def _match_header(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap],
+                  problems: list[Problem]) -> tuple[list[Target], set[str]]:
+    """The columns read, and the template columns written with a unit added.
+
+    Each header is renamed by the mapping, matched to the template in any
+    case, or kept as an extra column. A column with values but no header, a
+    template name with a unit added and two headers that become one column
+    are refused.
+    """
     label = raw.label
-    problems = list(raw.problems)
-    # ---- header: rename, match the template, keep extras
-    targets: list[tuple[int, str, str, ColumnMap | None]] = []  # (index, target, header, map)
+    targets: list[Target] = []
     seen: dict[str, str] = {}
     names_lower = {n.lower(): n for n in tdef.names}
     unit_headers: set[str] = set()  # template columns written with a unit in the header (reported once)
     for j, head in enumerate(raw.header):
         shown = _norm_header(head)
         if not shown:
-            if any(not _is_missing(cells[j]) for _, cells in raw.rows):
+            if any(not _is_missing(c) for c in raw.columns[j]):
                 problems.append(Problem(label, f"column {_letters(j)} has values but no header", row=1,
                                         column=_letters(j)))
             continue
@@ -94,46 +124,72 @@ def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
             continue
         seen[target.lower()] = shown
         targets.append((j, target, shown, cmap))
+    return targets, unit_headers
+
+
+def _require_columns(label: str, tdef: Table, targets: list[Target], unit_headers: set[str],
+                     problems: list[Problem]) -> None:
+    """A required template column that is not in the file, with the nearest header as a hint."""
     present = {t for _, t, _, _ in targets}
     for col in tdef.columns:
         if col.required and col.name not in present and col.name not in unit_headers:
             near = difflib.get_close_matches(col.name, [h for _, _, h, _ in targets], n=1, cutoff=0.6)
             hint = f"; found '{near[0]}': rename it or map it in {MAPPING_FILE}" if near else ""
             problems.append(Problem(label, f"required column '{col.name}' is missing{hint}", row=1, column=col.name))
-    # ---- decimal mark from the number cells of the file (module notes, rule 4)
-    number_idx = [j for j, t, _, _ in targets if t not in tdef.names or tdef.column(t).kind == NUMBER]
-    decimal = _decimal_mark((cells[j] for _, cells in raw.rows for j in number_idx), raw.separator)
-    # ---- cells
-    n = len(raw.rows)
-    sheet_rows = [r for r, _ in raw.rows]
-    values: dict[str, list] = {}
-    extra: dict[str, list] = {}
-    headers: dict[str, str] = {}
-    bad: set[tuple[int, str]] = set()  # (row index, target) of cells already refused
-    by_column = list(zip(*(cells for _, cells in raw.rows))) if raw.rows else []
-    for j, target, shown, cmap in targets:
-        headers[target] = shown
-        cells = list(by_column[j]) if by_column else []
+
+
+@dataclass
+class _Check:
+    """The cells of one raw sheet as they are read and checked, column by column."""
+
+    raw: _Raw
+    tdef: Table
+    problems: list[Problem]
+    targets: list[Target] = field(default_factory=list)
+    #: template column -> values (a float array where the fast path read it, else a list with None for missing)
+    values: dict[str, list | np.ndarray] = field(default_factory=dict)
+    extra: dict[str, list] = field(default_factory=dict)
+    headers: dict[str, str] = field(default_factory=dict)  # target -> header as written
+    bad: set[tuple[int, str]] = field(default_factory=set)  # (row index, target) of cells already refused
+
+    def refuse(self, k: int, target: str, rule: str, value: object = None, column: str | None = None) -> None:
+        """Report the cell of row index ``k`` in ``target``'s column and mark it refused."""
+        self.problems.append(Problem(self.raw.label, rule, row=self.raw.row_numbers[k],
+                                     column=column or self.headers[target], value=value))
+        self.bad.add((k, target))
+
+    def shown(self, k: int, target: str) -> object:
+        """The cell as written in the file, trimmed, for a message."""
+        j = next((j for j, t, _, _ in self.targets if t == target), None)
+        return None if j is None else _shown(self.raw.cell(k, j))
+
+    def read_column(self, target_item: Target, decimal: str) -> None:
+        """Parse one column: formulas and percentages of a workbook, then each cell by its kind."""
+        j, target, shown, cmap = target_item
+        raw, tdef = self.raw, self.tdef
+        self.headers[target] = shown
+        cells = list(raw.columns[j]) if raw.percent else raw.columns[j]
         if raw.formulas:
-            for k, (r, _) in enumerate(raw.rows):
+            for k, r in enumerate(raw.row_numbers):
                 if (r, j) in raw.formulas:
-                    problems.append(Problem(label, "formula without a stored result; open and save the file in a "
-                                                   "spreadsheet program, or paste values", row=r, column=shown))
-                    bad.add((k, target))
+                    self.refuse(k, target, "formula without a stored result; open and save the file in a "
+                                           "spreadsheet program, or paste values")
         if raw.percent:
-            _percent_cells(raw, j, target, shown, tdef, cmap, cells, problems, bad)
+            _percent_cells(raw, j, target, shown, tdef, cmap, cells, self.problems, self.bad)
         if target not in tdef.names:
-            extra[target] = _extra_values(cells, decimal, raw.separator)
-            problems += _extra_non_finite(cells, extra[target], decimal, raw.separator, label, sheet_rows, shown)
-            continue
+            self.extra[target] = _extra_values(cells, decimal, raw.separator)
+            self.problems += _extra_non_finite(cells, self.extra[target], decimal, raw.separator, raw.label,
+                                               raw.row_numbers, shown)
+            return
         col = tdef.column(target)
-        fast = _fast_cells(col, cells, decimal, raw.separator, bad, target)
+        factor = cmap.factor if cmap and col.kind == NUMBER else None
+        fast = _fast_cells(col, cells, decimal, raw.separator, self.bad, target)
         if fast is not None:
-            values[target] = fast * cmap.factor if cmap and col.kind == NUMBER else fast
-            continue
+            self.values[target] = fast * factor if factor is not None else fast
+            return
         out: list = []
         for k, cell in enumerate(cells):
-            if (k, target) in bad or _is_missing(cell):
+            if (k, target) in self.bad or _is_missing(cell):
                 out.append(None)
                 continue
             if col.kind == TEXT:
@@ -141,18 +197,19 @@ def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
                 continue
             parsed = _parse_number(cell, decimal, raw.separator) if col.kind == NUMBER else _parse_datetime(cell)
             if isinstance(parsed, str):
-                problems.append(Problem(label, parsed, row=sheet_rows[k], column=shown, value=_shown(cell)))
-                bad.add((k, target))
+                self.refuse(k, target, parsed, value=_shown(cell))
                 out.append(None)
             else:
-                out.append(parsed * cmap.factor if cmap and col.kind == NUMBER else parsed)
-        values[target] = out
-    # ---- total roll force -> per cm of roll width
-    force_map = next((m for _, t, _, m in targets if m is not None and m.total_force), None)
-    if force_map is not None:
+                out.append(parsed * factor if factor is not None else parsed)
+        self.values[target] = out
+
+    def per_cm_of_roll_width(self, force_map: ColumnMap) -> None:
+        """A total roll force (kN or N) divided by the roll width in cm: the mapping's, or else the row's."""
+        values = self.values
         for name in (TOTAL_FORCE_COLUMN, ROLL_WIDTH_COLUMN):
             if isinstance(values.get(name), np.ndarray):
                 values[name] = _as_list(values[name])
+        n = len(self.raw.row_numbers)
         widths = values.get(ROLL_WIDTH_COLUMN, [None] * n)
         forces = values[TOTAL_FORCE_COLUMN]
         for k in range(n):
@@ -160,70 +217,61 @@ def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
                 continue
             width, row_width = force_map.roll_width_mm, widths[k]
             if width is not None and row_width is not None and not math.isclose(width, row_width, rel_tol=1e-9):
-                problems.append(Problem(label, f"roll width {row_width:g} mm in this row differs from "
-                                               f"{width:g} mm in {MAPPING_FILE}", row=sheet_rows[k],
-                                        column=headers.get(ROLL_WIDTH_COLUMN, ROLL_WIDTH_COLUMN), value=row_width))
-                bad.add((k, TOTAL_FORCE_COLUMN))
+                self.refuse(k, TOTAL_FORCE_COLUMN, f"roll width {row_width:g} mm in this row differs from "
+                                                   f"{width:g} mm in {MAPPING_FILE}", value=row_width,
+                            column=self.headers.get(ROLL_WIDTH_COLUMN, ROLL_WIDTH_COLUMN))
                 forces[k] = None
                 continue
             width = width if width is not None else row_width
             if width is None or not width > 0:
-                problems.append(Problem(label, f"a total roll force needs the roll width: give {ROLL_WIDTH_COLUMN} "
-                                               f"in the row or roll_width_mm in {MAPPING_FILE}", row=sheet_rows[k],
-                                        column=headers[TOTAL_FORCE_COLUMN], value=_shown(_cell(raw, k, targets,
-                                                                                           TOTAL_FORCE_COLUMN))))
-                bad.add((k, TOTAL_FORCE_COLUMN))
+                self.refuse(k, TOTAL_FORCE_COLUMN, f"a total roll force needs the roll width: give "
+                                                   f"{ROLL_WIDTH_COLUMN} in the row or roll_width_mm in "
+                                                   f"{MAPPING_FILE}", value=self.shown(k, TOTAL_FORCE_COLUMN))
                 forces[k] = None
                 continue
             forces[k] = forces[k] / (width / 10.0)
-    # ---- bounds and non-empty cells
-    for col in tdef.columns:
-        if col.name not in values:
-            continue
-        shown = headers[col.name]
-        cmap = next((m for _, t, _, m in targets if t == col.name), None)
-        required = col.nonempty or col.name in tdef.key
+
+    def bounds_and_presence(self, col: Column) -> None:
+        """Every value of a template column within its bounds, and present where the column must be filled."""
+        values = self.values
+        cmap = next((m for _, t, _, m in self.targets if t == col.name), None)
+        required = col.nonempty or col.name in self.tdef.key
         if isinstance(values[col.name], np.ndarray):
             if _column_clean(col, values[col.name], required):
-                continue
+                return
             values[col.name] = _as_list(values[col.name])  # something to report: the loop below says what
         elif col.kind != NUMBER and (not required or None not in values[col.name]):
-            continue  # no bounds, and nothing missing that must be there
+            return  # no bounds, and nothing missing that must be there
         for k, v in enumerate(values[col.name]):
-            if (k, col.name) in bad:
+            if (k, col.name) in self.bad:
                 continue
             if v is None:
-                if col.nonempty or col.name in tdef.key:
-                    problems.append(Problem(label, f"'{col.name}' must have a value in every row", row=sheet_rows[k],
-                                            column=shown, value=_shown(_cell(raw, k, targets, col.name))))
-                    bad.add((k, col.name))
+                if required:
+                    self.refuse(k, col.name, f"'{col.name}' must have a value in every row",
+                                value=self.shown(k, col.name))
                 continue
             if col.kind == NUMBER and not _in_bounds(col, v):
                 note = ""
                 if cmap is not None and cmap.unit is not None:
                     note = f" (read as {cmap.unit}, converted to {v:g} {col.unit})"
-                problems.append(Problem(label, f"outside the range {col.bound_text()}{note}", row=sheet_rows[k],
-                                        column=shown, value=_shown(_cell(raw, k, targets, col.name))))
-                bad.add((k, col.name))
-    if isinstance(values.get("lot"), list):
-        problems += _lot_id_problems(values["lot"], label, sheet_rows, headers.get("lot", "lot"), bad)
-    df = frame_from_columns(tdef.name, values, extra, n_rows=n)
-    problems += _key_problems(df, tdef, label, sheet_rows, headers, bad)
-    problems += _rule_problems(df, tdef, label, sheet_rows, headers, bad)
-    if problems:
-        raise InputError(_sorted(problems))
-    df.attrs["table"] = tdef.name
-    df.attrs["file"] = label
-    df.attrs["source_rows"] = SourceRows(sheet_rows)
-    return df
+                self.refuse(k, col.name, f"outside the range {col.bound_text()}{note}", value=self.shown(k, col.name))
 
-
-def _cell(raw: _Raw, k: int, targets, target: str) -> object:
-    for j, t, _, _ in targets:
-        if t == target:
-            return raw.rows[k][1][j]
-    return None
-
+    def frame(self) -> pd.DataFrame:
+        """The typed table, after the lot-id, key and row rules; InputError with every problem of the sheet."""
+        raw, tdef, problems = self.raw, self.tdef, self.problems
+        sheet_rows = raw.row_numbers
+        if isinstance(self.values.get("lot"), list):
+            problems += _lot_id_problems(self.values["lot"], raw.label, sheet_rows, self.headers.get("lot", "lot"),
+                                         self.bad)
+        df = frame_from_columns(tdef.name, self.values, self.extra, n_rows=len(sheet_rows))
+        problems += _key_problems(df, tdef, raw.label, sheet_rows, self.headers, self.bad)
+        problems += _rule_problems(df, tdef, raw.label, sheet_rows, self.headers, self.bad)
+        if problems:
+            raise InputError(_sorted(problems))
+        df.attrs["table"] = tdef.name
+        df.attrs["file"] = raw.label
+        df.attrs["source_rows"] = SourceRows(sheet_rows)
+        return df
 
 
 @contextmanager

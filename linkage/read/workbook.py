@@ -40,8 +40,9 @@ def _read_sheet(values_wb, formulas_wb, sheet: str, label: str) -> _Raw:
     if len(rows_v[0]) > package.MAX_COLUMNS:
         raise InputError(_too_many_columns(label, len(rows_v[0])))
     header = [_norm_header(c) for c in rows_v[0]]
-    raw = _Raw(label, header, [], None, percent=percent)
     n = len(header)
+    rows: list[tuple[int, list]] = []
+    formulas: set[tuple[int, int]] = set()
     for i, rec in enumerate(rows_v[1:], start=2):
         rec = list(rec) + [None] * (n - len(rec))
         if all(_is_missing(c) for c in rec):
@@ -49,9 +50,9 @@ def _read_sheet(values_wb, formulas_wb, sheet: str, label: str) -> _Raw:
         frec = rows_f[i - 1] if i - 1 < len(rows_f) else ()
         for j, (v, f) in enumerate(zip(rec, frec)):
             if v is None and isinstance(f, str) and f.startswith("="):
-                raw.formulas.add((i, j))
-        raw.rows.append((i, rec))
-    return raw
+                formulas.add((i, j))
+        rows.append((i, rec))
+    return _Raw.from_rows(label, header, rows, None, formulas=formulas, percent=percent)
 
 
 def _sheet_rows(ws, sheet: str, label: str, percent: set | None = None) -> list[tuple]:
@@ -99,7 +100,7 @@ def _percent_cells(raw: _Raw, j: int, target: str, shown: str, tdef: Table, cmap
     col = tdef.column(target) if target in tdef.names else None
     in_percent = (col.unit == "%" and (cmap is None or cmap.unit is None)) if col is not None else (
         target.lower().endswith("_pct") or "%" in shown)
-    for k, (r, _) in enumerate(raw.rows):
+    for k, r in enumerate(raw.row_numbers):
         if (r, j) not in raw.percent:
             continue
         stored = cells[k]
