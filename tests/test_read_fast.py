@@ -138,3 +138,15 @@ def test_identical_tables_from_a_large_plain_file_both_ways(tmp_path, monkeypatc
     monkeypatch.setattr(table, "_fast_cells", lambda *args: None)
     assert_same(fast, outcome(path))
     assert fast[0] == "table" and len(fast[1]) == 3000
+
+
+def test_the_key_of_an_ascii_lot_id_is_the_full_unicode_key():
+    """lot_key takes ASCII ids straight to lower(): the reference is the full rule, Unicode NFKC (UAX #15),
+    the dash folding and str.casefold (Unicode full case folding), applied to every ASCII character."""
+    import unicodedata
+
+    from linkage.read.lots import _DASHES, lot_key
+
+    every = "".join(map(chr, range(128)))
+    for lot in [every, every.upper(), "VX25-001", "Lot 7/B", "\t\x7f"]:
+        assert lot_key(lot) == _DASHES.sub("-", unicodedata.normalize("NFKC", lot)).casefold()

@@ -19,6 +19,7 @@ _NUMBER = PLAIN_NUMBER  # one rule for the ingest and the what-if (linkage.numbe
 _COMMA_NUMBER = COMMA_NUMBER
 _THOUSANDS_DOT = re.compile(r"[+-]?[1-9]\d{0,2}(?:\.\d{3})+", re.ASCII)
 
+
 def _parse_number(cell: object, decimal: str, separator: str | None) -> float | str:
     """A float, or the rule the cell breaks (a str)."""
     if isinstance(cell, bool):

@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Iterable
 
+import numpy as np
 import pandas as pd
 
 from linkage.exceptions import InputError, Problem
@@ -18,6 +19,7 @@ from linkage.read.table import _build, bulk, read_table
 from linkage.read.workbook import _hidden, _hidden_sheet, _open_workbook, _read_sheet
 from linkage.schema import TABLES
 from linkage.spec import Spec, read_spec
+
 
 @dataclass
 class Ingest:
@@ -202,7 +204,7 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
     # one spelling per lot (lot_key): against the store first, then against this folder's process table
     key = {lot: lot_key(lot) for lot in known}  # computed once per distinct id
     for df in ingest.tables.values():
-        key.update((lot, lot_key(lot)) for lot in set(df["lot"].tolist()) - key.keys())
+        key.update((lot, lot_key(lot)) for lot in set(df["lot"].unique().tolist()) - key.keys())
     spelling: dict[str, tuple[str, str]] = {}
     for lot in sorted(known):
         spelling.setdefault(key[lot], (lot, "in the store"))
@@ -217,7 +219,10 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
         label = ingest.sources.get(tname, {}).get("file", tname)
         orphans: dict[str, list[int]] = {}
         respelled: dict[str, list[int]] = {}
-        for k, lot in enumerate(df["lot"].tolist()):
+        lots = df["lot"]
+        odd = lots.isin(respelled_ids).to_numpy() | ~lots.isin(with_process).to_numpy()  # decided on the columns
+        for k in np.flatnonzero(odd).tolist():
+            lot = lots.iat[k]
             if lot in respelled_ids:
                 respelled.setdefault(lot, []).append(rows[k])
             elif lot not in with_process:

@@ -21,6 +21,8 @@ def lot_key(lot: str) -> str:
     and ``A1`` have one key. Control and format characters are refused before
     (:func:`lot_id_rule`), so they never reach a key.
     """
+    if lot.isascii():  # NFKC leaves ASCII as it is, no ASCII character is a dash to fold, casefold() is lower()
+        return lot.lower()
     return _DASHES.sub("-", unicodedata.normalize("NFKC", lot)).casefold()
 
 

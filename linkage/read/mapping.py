@@ -229,6 +229,7 @@ def _norm_unit(text: str) -> str:
     s = text.replace("³", "3").replace("^3", "3").replace("µ", "u").replace("μ", "u")
     return "".join(s.split())
 
+
 def _suggest(name: str, choices: Iterable[str]) -> str:
     near = difflib.get_close_matches(str(name), list(choices), n=1, cutoff=0.6)
     return f" (did you mean '{near[0]}'?)" if near else ""

@@ -10,11 +10,14 @@ import pandas as pd
 from linkage.exceptions import Problem
 from linkage.schema import Table
 
+
+
 def _key_problems(df, tdef: Table, label, sheet_rows, headers, bad) -> list[Problem]:
-    if not bad and not any(df[c].isna().any() for c in tdef.key):
-        keys = list(zip(*(df[c].tolist() for c in tdef.key)))
-        if len(set(keys)) == len(keys):
-            return []  # every key given and none repeated
+    """A key repeated in a file (the row of its first writing named). The common case, every key given and none
+    repeated, is decided on whole columns (pandas hashes them; 0.0 and -0.0 are one key there as in Python)."""
+    key = list(tdef.key)
+    if not bad and not df[key].isna().to_numpy().any() and not df.duplicated(subset=key).any():
+        return []
     problems = []
     first: dict[tuple, int] = {}
     for k, key in enumerate(zip(*(df[c].tolist() for c in tdef.key))):
@@ -33,7 +36,6 @@ def _key_problems(df, tdef: Table, label, sheet_rows, headers, bad) -> list[Prob
     return problems
 
 
-#: dash-like characters folded to '-' in a lot key: Unicode's dash punctuation (category Pd: hyphen,
 def _nan(v) -> bool:
     return v is None or (isinstance(v, float) and math.isnan(v))
 

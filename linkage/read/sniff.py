@@ -5,9 +5,9 @@ from __future__ import annotations
 import csv
 import functools
 import io
-import operator
 import re
 
+import numpy as np
 import pandas as pd
 
 from linkage import read as package
@@ -111,13 +111,17 @@ def _quote_free(text: str, sep: str, label: str) -> _Raw | None:
     body = text.replace("\r\n", "\n").replace("\r", "\n")  # csv reads CR LF, LF and CR alike
     if body.endswith("\n"):
         body = body[:-1]  # the line end of the last record
-    lines = body.split("\n")
-    if max(map(len, lines)) > csv.field_size_limit():
-        return None  # a line (and perhaps a cell) past the limit: the csv module says which
-    if set(map(operator.methodcaller("count", sep), lines)) != {lines[0].count(sep)} or _blank_line(sep).search(body):
+    encoded = np.frombuffer(body.encode("utf-8"), dtype=np.uint8)
+    ends = np.append(np.flatnonzero(encoded == ord("\n")), len(encoded))  # where each line stops
+    if int((np.diff(ends, prepend=-1) - 1).max()) > csv.field_size_limit():
+        return None  # a line (and perhaps a cell) longer than the limit in bytes: the csv module says which
+    per_line = np.diff(np.searchsorted(np.flatnonzero(encoded == ord(sep)), ends), prepend=0)
+    if (per_line != per_line[0]).any():
+        return None  # a ragged row
+    first_blank, later_blank = _blank_line(sep)
+    if first_blank.match(body) or later_blank.search(body):
         return None
-    n = lines[0].count(sep) + 1
-    del lines
+    n = int(per_line[0]) + 1
     if n > package.MAX_COLUMNS:
         raise InputError(_too_many_columns(label, n))
     frame = pd.read_csv(io.StringIO(body), sep=sep, header=None, index_col=False, dtype=object, na_filter=False,
@@ -129,11 +133,14 @@ def _quote_free(text: str, sep: str, label: str) -> _Raw | None:
 
 
 @functools.cache
-def _blank_line(sep: str) -> re.Pattern:
-    """A line that may be blank to the csv module: nothing on it but the
-    separator and characters that are not visible ASCII (white space,
-    control characters, and, to be safe, any non-ASCII character)."""
-    return re.compile(rf"^(?:[^\n!-~]|{re.escape(sep)})*$", re.MULTILINE)
+def _blank_line(sep: str) -> tuple[re.Pattern, re.Pattern]:
+    """A first line, and a later line (from its line end), that may be blank
+    to the csv module: nothing on it but the separator and characters that
+    are not visible ASCII (white space, control characters and, to be safe,
+    any non-ASCII character). The later-line pattern starts with a line end,
+    which the regular expression engine looks for as a literal (fast)."""
+    blank = rf"(?:[^\n!-~]|{re.escape(sep)})*(?=\n|\Z)"
+    return re.compile(blank), re.compile("\n" + blank)
 
 
 def _header_separators(text: str) -> list[str]:

@@ -26,6 +26,7 @@ from linkage.read.sniff import _read_csv
 from linkage.read.workbook import _hidden, _hidden_sheet, _open_workbook, _percent_cells, _read_sheet
 from linkage.schema import DATETIME, NUMBER, TABLES, TEXT, Column, Table
 
+
 def frame_from_columns(table: str, columns: dict[str, list], extra: dict[str, list] | None = None,
                        n_rows: int | None = None) -> pd.DataFrame:
     """A DataFrame of a table with the template's dtypes.
@@ -42,8 +43,7 @@ def frame_from_columns(table: str, columns: dict[str, list], extra: dict[str, li
         n_rows = lengths[0] if lengths else 0
     data: dict[str, pd.Series] = {}
     for col in tdef.columns:
-        values = columns.get(col.name, [None] * n_rows)
-        data[col.name] = _series(col.kind, values)
+        data[col.name] = _series(col.kind, columns[col.name]) if col.name in columns else _empty(col.kind, n_rows)
     for name, values in (extra or {}).items():
         numeric = all(v is None or (isinstance(v, float) and not isinstance(v, bool)) for v in values)
         data[name] = _series(NUMBER, values) if numeric else _series(
@@ -60,7 +60,18 @@ def _series(kind: str, values) -> pd.Series:
         if all(v is None or (type(v) is dt.datetime and v.tzinfo is None) for v in values):
             return pd.Series(values, dtype="datetime64[us]")  # the same as through pd.Timestamp, 20 times faster
         return pd.Series([None if v is None else pd.Timestamp(v) for v in values], dtype="datetime64[us]")
+    if set(map(type, values)) <= {str, type(None)}:
+        return pd.Series(values, dtype="str")  # text as read (the common case): no copy to make
     return pd.Series([None if v is None else str(v) for v in values], dtype="str")
+
+
+def _empty(kind: str, n_rows: int) -> pd.Series:
+    """A template column the file does not have: every value missing."""
+    if kind == NUMBER:
+        return pd.Series(np.full(n_rows, np.nan), dtype="float64")
+    if kind == DATETIME:
+        return pd.Series(np.full(n_rows, np.datetime64("NaT", "us")), dtype="datetime64[us]")
+    return pd.Series([None] * n_rows, dtype="str")
 
 
 #: one column of a file that is read: (column index, target column, header as written, its mapping or None)

@@ -11,6 +11,7 @@ from linkage.exceptions import InputError, Problem
 from linkage.read.raw import _is_missing, _norm_header, _Raw, _too_many_columns, _too_many_rows
 from linkage.schema import Table
 
+
 def _open_workbook(path: Path, label: str):
     import openpyxl  # only workbooks need it
 
