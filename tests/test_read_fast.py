@@ -150,3 +150,19 @@ def test_the_key_of_an_ascii_lot_id_is_the_full_unicode_key():
     every = "".join(map(chr, range(128)))
     for lot in [every, every.upper(), "VX25-001", "Lot 7/B", "\t\x7f"]:
         assert lot_key(lot) == _DASHES.sub("-", unicodedata.normalize("NFKC", lot)).casefold()
+
+
+date_chars = st.sampled_from(list("0123456789-T :.+Z\u0661x"))
+
+
+@given(st.lists(st.text(date_chars, min_size=8, max_size=20), min_size=1, max_size=5)
+       | st.lists(st.sampled_from(["2024-03-05", "2024-03-05T14:30", "2024-03-05 14:30:59", "2024-3-05",
+                                   "2024-03-05t14:30", "2024-03-05T14-30", "\u0662024-03-05"]), min_size=1))
+@SETTINGS
+def test_the_fixed_layout_date_check_accepts_only_what_the_date_pattern_accepts(cells):
+    """The column-at-once check of the common ISO 8601 layouts is a subset of the per-column pattern
+    (ISO 8601-1:2019 extended format, as the module notes give it)."""
+    from linkage.read.cells import _PLAIN_DATES, _fixed_layout_dates
+
+    if _fixed_layout_dates(cells):
+        assert _PLAIN_DATES.fullmatch("\n".join(cells))

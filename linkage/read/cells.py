@@ -159,13 +159,38 @@ def _plain_dates(cells: list[str]) -> list | None:
     if text.count("\n") != len(cells) - 1:
         return None  # a cell holds a line break
     try:
-        if _PLAIN_DATES.fullmatch(text):
+        if _fixed_layout_dates(cells) or _PLAIN_DATES.fullmatch(text):
             return [dt.datetime.fromisoformat(c.strip()) for c in cells]
         if _DATES_OR_MISSING.fullmatch(text):
             return [None if _is_missing(c) else dt.datetime.fromisoformat(c.strip()) for c in cells]
     except ValueError:
         return None
     return None
+
+
+#: the ISO 8601 layouts most files use, by width: d a digit 0-9, T the letter T or a space, else the character
+_DATE_LAYOUTS = {10: "dddd-dd-dd", 16: "dddd-dd-ddTdd:dd", 19: "dddd-dd-ddTdd:dd:dd"}
+
+
+def _fixed_layout_dates(cells: list[str]) -> bool:
+    """Every cell in one of :data:`_DATE_LAYOUTS` (all of one width, no padding): a subset of what
+    ``_PLAIN_DATES`` matches, checked a character position at a time over all the cells at once."""
+    widths = set(map(len, cells))
+    layout = _DATE_LAYOUTS.get(widths.pop()) if len(widths) == 1 else None
+    if layout is None:
+        return False
+    chars = np.array(cells, dtype=f"U{len(layout)}").view(np.uint32).reshape(len(cells), len(layout))
+    for position, want in enumerate(layout):
+        char = chars[:, position]
+        if want == "d":
+            fits = (char >= ord("0")) & (char <= ord("9"))
+        elif want == "T":
+            fits = (char == ord("T")) | (char == ord(" "))
+        else:
+            fits = char == ord(want)
+        if not fits.all():
+            return False
+    return True
 
 
 def _plain_numbers(cells: list[str], decimal: str, separator: str | None) -> np.ndarray | None:

@@ -7,7 +7,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Iterable
 
-import numpy as np
 import pandas as pd
 
 from linkage.exceptions import InputError, Problem
@@ -200,7 +199,7 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
             where = ingest.folder.name if ingest.folder is not None else "input"
             problems += [Problem(where, f"required table '{m}' is missing: the first ingest into an empty store "
                                         f"needs {needed}") for m in missing]
-    with_process = known | set(ingest.tables["process"]["lot"]) if "process" in ingest.tables else known
+    with_process = known | set(ingest.tables["process"]["lot"].tolist()) if "process" in ingest.tables else known
     # one spelling per lot (lot_key): against the store first, then against this folder's process table
     key = {lot: lot_key(lot) for lot in known}  # computed once per distinct id
     for df in ingest.tables.values():
@@ -213,16 +212,18 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
         for lot in ingest.tables["process"]["lot"].tolist():
             spelling.setdefault(key[lot], (lot, f"in {process_label}"))
     # a stored id is never refused: a store written before this rule may hold two spellings of one lot
-    respelled_ids = {lot for lot, k in key.items() if lot not in known and spelling.get(k, (lot,))[0] != lot}
+    respelled_ids = {lot for lot in key.keys() - known if spelling.get(key[lot], (lot,))[0] != lot}
     for tname, df in ingest.tables.items():
         rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
         label = ingest.sources.get(tname, {}).get("file", tname)
         orphans: dict[str, list[int]] = {}
         respelled: dict[str, list[int]] = {}
-        lots = df["lot"]
-        odd = lots.isin(respelled_ids).to_numpy() | ~lots.isin(with_process).to_numpy()  # decided on the columns
-        for k in np.flatnonzero(odd).tolist():
-            lot = lots.iat[k]
+        odd = {lot for lot in df["lot"].unique().tolist() if lot in respelled_ids or lot not in with_process}
+        if not odd:
+            continue  # decided on the distinct ids; else the rows of the odd ones are found in order
+        for k, lot in enumerate(df["lot"].tolist()):
+            if lot not in odd:
+                continue
             if lot in respelled_ids:
                 respelled.setdefault(lot, []).append(rows[k])
             elif lot not in with_process:
