@@ -190,43 +190,23 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
     if known_lots is None:
         return []
     known = set(known_lots)
-    problems: list[Problem] = []
-    if not known:
-        missing = [t.name for t in TABLES.values()
-                   if t.required and t.name not in ingest.tables and t.name not in set(unread)]
-        if missing:
-            needed = ", ".join(t.name for t in TABLES.values() if t.required)
-            where = ingest.folder.name if ingest.folder is not None else "input"
-            problems += [Problem(where, f"required table '{m}' is missing: the first ingest into an empty store "
-                                        f"needs {needed}") for m in missing]
+    problems = [] if known else _missing_tables(ingest, unread)
     with_process = known | set(ingest.tables["process"]["lot"].tolist()) if "process" in ingest.tables else known
-    # one spelling per lot (lot_key): against the store first, then against this folder's process table
-    key = {lot: lot_key(lot) for lot in known}  # computed once per distinct id
-    for df in ingest.tables.values():
-        key.update((lot, lot_key(lot)) for lot in set(df["lot"].unique().tolist()) - key.keys())
-    spelling: dict[str, tuple[str, str]] = {}
-    for lot in sorted(known):
-        spelling.setdefault(key[lot], (lot, "in the store"))
-    if "process" in ingest.tables:
-        process_label = ingest.sources.get("process", {}).get("file", "process")
-        for lot in ingest.tables["process"]["lot"].tolist():
-            spelling.setdefault(key[lot], (lot, f"in {process_label}"))
+    spelling, key = _spellings(ingest, known)
     # a stored id is never refused: a store written before this rule may hold two spellings of one lot
     respelled_ids = {lot for lot in key.keys() - known if spelling.get(key[lot], (lot,))[0] != lot}
     for tname, df in ingest.tables.items():
+        odd = {lot for lot in df["lot"].unique().tolist() if lot in respelled_ids or lot not in with_process}
+        if not odd:
+            continue  # decided on the distinct ids; else the rows of the odd ones are found in order
         rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
         label = ingest.sources.get(tname, {}).get("file", tname)
         orphans: dict[str, list[int]] = {}
         respelled: dict[str, list[int]] = {}
-        odd = {lot for lot in df["lot"].unique().tolist() if lot in respelled_ids or lot not in with_process}
-        if not odd:
-            continue  # decided on the distinct ids; else the rows of the odd ones are found in order
         for k, lot in enumerate(df["lot"].tolist()):
-            if lot not in odd:
-                continue
             if lot in respelled_ids:
                 respelled.setdefault(lot, []).append(rows[k])
-            elif lot not in with_process:
+            elif lot in odd:
                 orphans.setdefault(lot, []).append(rows[k])
         for lot, rs in respelled.items():
             other, where = spelling[key[lot]]
@@ -240,6 +220,48 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
             problems.append(Problem(label, f"lot {lot!r} has no process record in this folder or in the store "
                                            f"({_span(rs)}); add it to process", row=rs[0], column="lot", value=lot))
     return problems
+
+
+def _missing_tables(ingest: Ingest, unread: Iterable[str]) -> list[Problem]:
+    """The tables a first ingest into an empty store needs and this one lacks."""
+    missing = [t.name for t in TABLES.values()
+               if t.required and t.name not in ingest.tables and t.name not in set(unread)]
+    if not missing:
+        return []
+    needed = ", ".join(t.name for t in TABLES.values() if t.required)
+    where = ingest.folder.name if ingest.folder is not None else "input"
+    return [Problem(where, f"required table '{m}' is missing: the first ingest into an empty store needs {needed}")
+            for m in missing]
+
+
+def _spellings(ingest: Ingest, known: set[str]) -> tuple[dict[str, tuple[str, str]], dict[str, str]]:
+    """The one spelling of each lot (:func:`lot_key`) that a new id of this
+    ingest may share a key with: the first in sorted order among the stored
+    ids, else the first in this folder's process table; and the key of every
+    id of the ingest. Only stored ids with the key of a new id are sorted."""
+    ids: set[str] = set()
+    for df in ingest.tables.values():
+        ids.update(df["lot"].unique().tolist())
+    key = dict(zip(ids, _keys(list(ids))))
+    wanted = {key[lot] for lot in ids - known}
+    spelling: dict[str, tuple[str, str]] = {}
+    if wanted:
+        stored = list(known)
+        for lot in sorted(lot for lot, k in zip(stored, _keys(stored)) if k in wanted):
+            spelling.setdefault(key.get(lot) or lot_key(lot), (lot, "in the store"))
+    if "process" in ingest.tables:
+        process_label = ingest.sources.get("process", {}).get("file", "process")
+        for lot in ingest.tables["process"]["lot"].tolist():
+            spelling.setdefault(key[lot], (lot, f"in {process_label}"))
+    return spelling, key
+
+
+def _keys(lots: list[str]) -> list[str]:
+    """:func:`lot_key` of each id; ids all ASCII on one line each (the common case) lowered in one call."""
+    joined = "\n".join(lots)
+    if lots and joined.isascii() and joined.count("\n") == len(lots) - 1:
+        return joined.lower().split("\n")  # lot_key of an ASCII id is its lower()
+    return [lot_key(lot) for lot in lots]
 
 
 def _span(rows: list[int]) -> str:

@@ -58,14 +58,14 @@ def _rule_problems(df, tdef: Table, label, sheet_rows, headers, bad) -> list[Pro
     return problems
 
 
-def _ok(df, bad, k, *cols) -> bool:
+def _usable(df, bad, k, *cols) -> bool:
     return all((k, c) not in bad and not _nan(df[c].iloc[k]) for c in cols)
 
 
 def _rule_density(df, bad):
     env, ske = "envelope_density_g_cm3", "skeletal_density_g_cm3"
     for k in range(len(df)):
-        if _ok(df, bad, k, env, ske) and df[env].iloc[k] > df[ske].iloc[k]:
+        if _usable(df, bad, k, env, ske) and df[env].iloc[k] > df[ske].iloc[k]:
             e, s = df[env].iloc[k], df[ske].iloc[k]
             yield k, env, e, f"envelope density {e:g} g/cm3 is above the skeletal density {s:g} g/cm3"
 
@@ -77,7 +77,7 @@ def _rule_sieve_sum(df, bad):
         if _nan(lot):
             continue
         first.setdefault(lot, k)
-        if _ok(df, bad, k, "retained_g"):
+        if _usable(df, bad, k, "retained_g"):
             totals[lot] = totals.get(lot, 0.0) + df["retained_g"].iloc[k]
         elif (k, "retained_g") in bad:
             totals[lot] = math.nan
@@ -89,7 +89,7 @@ def _rule_sieve_sum(df, bad):
 def _rule_d_order(df, bad):
     cols = ("d10_um", "d50_um", "d90_um")
     for k in range(len(df)):
-        if _ok(df, bad, k, *cols):
+        if _usable(df, bad, k, *cols):
             d10, d50, d90 = (df[c].iloc[k] for c in cols)
             if not d10 <= d50 <= d90:
                 col = "d10_um" if d10 > d50 else "d90_um"
@@ -98,7 +98,7 @@ def _rule_d_order(df, bad):
 
 def _rule_cup_depth(df, bad):
     for k in range(len(df)):
-        if _ok(df, bad, k, "cup_depth_mm", "thickness_mm"):
+        if _usable(df, bad, k, "cup_depth_mm", "thickness_mm"):
             c, t = df["cup_depth_mm"].iloc[k], df["thickness_mm"].iloc[k]
             if not 2 * c < t:
                 yield k, "cup_depth_mm", c, f"two cups of {c:g} mm do not fit in a tablet {t:g} mm thick"
