@@ -166,3 +166,28 @@ def test_the_fixed_layout_date_check_accepts_only_what_the_date_pattern_accepts(
 
     if _fixed_layout_dates(cells):
         assert _PLAIN_DATES.fullmatch("\n".join(cells))
+
+
+@pytest.mark.parametrize("stored, expected", [
+    (["ex-001", "EX-001", "EX-002"], "EX-001"),  # a store written before the rule: two spellings, the first sorted
+    (["\uff25\uff38-001", "EX-002"], "\uff25\uff38-001"),  # full-width letters: NFKC makes them EX (UAX #15)
+    (["EX\u2011001", "EX-002"], "EX\u2011001"),  # a non-breaking hyphen folds to '-'
+])
+def test_a_new_id_is_checked_against_every_stored_spelling(tmp_path, stored, expected):
+    """The cross-check keys stored ids in one call when they are ASCII, and one by one otherwise; either way a
+    new id with a stored id's key (NFKC, dash folding, str.casefold) is refused naming the stored spelling."""
+    import shutil
+    from pathlib import Path
+
+    from linkage.read import cross_check, read_folder
+
+    folder = tmp_path / "in"
+    shutil.copytree(Path(__file__).resolve().parent / "data" / "template-example", folder)
+    (folder / "spec.toml").unlink(missing_ok=True)
+    for f in folder.glob("*.csv"):
+        f.write_text(f.read_text().replace("EX-001", "eX-001"))
+    problems = cross_check(read_folder(folder), stored)
+    respelled = [p for p in problems if "written another way" in p.rule]
+    shown = expected.encode("ascii", "backslashreplace").decode("ascii")
+    assert respelled and all(f"{shown!r} in the store" in p.rule for p in respelled)
+    assert {p.file for p in respelled} >= {"process.csv", "ribbon.csv"}
