@@ -32,6 +32,7 @@ cell_parts = st.sampled_from([
     "1", "0.25", "-3", "1e-3", "1.5E2", "12", "+7", "inf", "nan", "1_0", "1.2.3", ".", "-", "1,5",
     "NA", "n/a", "", " ", "\t", "\xa0", "\u2003", "2024-03-05", "2024-03-05 14:30", "2024-02-30",
     "2024-03-05T14:30:00+01:00", "05.03.2024", "LOT-1", "lot-1", "Q\u2011100", "x y", "\u0661", "%", "a\x0bb",
+    "\x1a", "\x0c", "\x1c", "\x85", "\u2028", "#", "\ufeff", "'",
 ])
 cells = st.lists(cell_parts, min_size=0, max_size=3).map("".join)
 
@@ -53,6 +54,26 @@ def csv_files(draw):
     return sep, (end.join(lines) + tail).encode("utf-8")
 
 
+# mostly readable files, so that the column-at-once readers are taken and compared, not only refused
+plain_cells = {
+    "lot": st.sampled_from(["A", "B", "C-1", " a ", "A", "B", "Lot 7", "NA"]),
+    "sample": st.sampled_from(["1", "2", "3", "x", " 4", "1"]),
+    "envelope_density_g_cm3": st.sampled_from(["0.5", "0.8 ", "1e-1", "0.75", "NA", "", "0.9", "-", "0.5.1"]),
+    "skeletal_density_g_cm3": st.sampled_from(["1.5", "2.0", " 1.45", "1.5", "n/a", "1.50", "3", "0"]),
+    "sampled_at": st.sampled_from(["2024-03-05", "2024-03-05 14:30", "2024-03-05T14:30:00", "", "NA",
+                                   "2024-03-05T14:30:00.25", " 2024-03-06", "2024-02-30", "2024-03-05"]),
+}
+
+
+@st.composite
+def plain_files(draw):
+    sep = draw(st.sampled_from([",", "\t"]))
+    header = list(plain_cells)
+    rows = [sep.join(draw(plain_cells[h]) + (f"{k}" if h == "sample" else "") for h in header)  # keys unique
+            for k in range(draw(st.integers(1, 12)))]
+    return sep, (sep.join(header) + "\n" + "\n".join(rows) + "\n").encode("utf-8")
+
+
 def outcome(path):
     """The table (values, dtypes, source rows) or the problems, as comparable data."""
     try:
@@ -71,7 +92,7 @@ def assert_same(fast, slow):
         assert fast[2] == slow[2]
 
 
-@given(csv_files())
+@given(csv_files() | plain_files())
 @SETTINGS
 def test_a_quote_free_file_reads_as_the_csv_module_reads_it(tmp_path_factory, monkeypatch, spec):
     sep, data = spec
