@@ -23,7 +23,7 @@ from linkage.read.mapping import ROLL_WIDTH_COLUMN, TOTAL_FORCE_COLUMN, ColumnMa
 from linkage.read.raw import _is_missing, _letters, _norm_header, _Raw
 from linkage.read.rules import _key_problems, _rule_problems, _sorted
 from linkage.read.sniff import _read_csv
-from linkage.read.workbook import _hidden, _hidden_sheet, _open_workbook, _percent_cells, _read_sheet
+from linkage.read.workbook import _percent_cells, _read_workbook_table
 from linkage.schema import DATETIME, NUMBER, TABLES, TEXT, Column, Table
 
 
@@ -75,7 +75,7 @@ def _empty(kind: str, n_rows: int) -> pd.Series:
 
 
 #: one column of a file that is read: (column index, target column, header as written, its mapping or None)
-Target = tuple[int, str, str, "ColumnMap | None"]
+Target = tuple[int, str, str, ColumnMap | None]
 
 
 def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
@@ -336,24 +336,7 @@ def read_table(path: Path, table: str | None = None, mapping: Mapping | None = N
         raise InputError(Problem(str(path), "no such file"))
     cmaps = (mapping or Mapping()).for_table(name)
     if path.suffix.lower() in WORKBOOK_SUFFIXES:
-        values, formulas = _open_workbook(path, path.name)
-        try:
-            sheets = values.sheetnames
-            by_name = {_norm_header(s).lower(): s for s in sheets}
-            if name in by_name and _hidden(values, by_name[name]):
-                raise InputError(_hidden_sheet(path.name, by_name[name]))
-            if name in by_name:
-                sheet = by_name[name]
-            elif len(sheets) == 1:
-                sheet = sheets[0]
-            else:
-                raise InputError(Problem(path.name, f"no sheet named '{name}' and more than one sheet "
-                                                    f"({', '.join(sheets)})"))
-            label = path.name if len(sheets) == 1 else f"{path.name} (sheet {sheet})"
-            raw = _read_sheet(values, formulas, sheet, label)
-        finally:
-            values.close()
-            formulas.close()
+        raw = _read_workbook_table(path, name)
     elif path.suffix.lower() in UNSUPPORTED_SUFFIXES:
         raise InputError(Problem(path.name, "this spreadsheet format is not read; save as .xlsx or CSV UTF-8"))
     else:

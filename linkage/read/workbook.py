@@ -23,6 +23,28 @@ def _open_workbook(path: Path, label: str):
     return values, formulas
 
 
+def _read_workbook_table(path: Path, table: str) -> _Raw:
+    """The sheet of a workbook that holds ``table``: the sheet of that name, or the only sheet."""
+    values, formulas = _open_workbook(path, path.name)
+    try:
+        sheets = values.sheetnames
+        by_name = {_norm_header(s).lower(): s for s in sheets}
+        if table in by_name and _hidden(values, by_name[table]):
+            raise InputError(_hidden_sheet(path.name, by_name[table]))
+        if table in by_name:
+            sheet = by_name[table]
+        elif len(sheets) == 1:
+            sheet = sheets[0]
+        else:
+            raise InputError(Problem(path.name, f"no sheet named '{table}' and more than one sheet "
+                                                f"({', '.join(sheets)})"))
+        label = path.name if len(sheets) == 1 else f"{path.name} (sheet {sheet})"
+        return _read_sheet(values, formulas, sheet, label)
+    finally:
+        values.close()
+        formulas.close()
+
+
 def _read_sheet(values_wb, formulas_wb, sheet: str, label: str) -> _Raw:
     ws = values_wb[sheet]
     # the size the sheet records for itself (None when it records none): refuse a huge one before reading
