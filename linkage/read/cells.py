@@ -129,9 +129,10 @@ _DATES_OR_MISSING = re.compile(rf"(?:{_PLAIN_DATE}|[ \t]*(?i:{_MISSING_TOKEN})?[
 
 
 def _fast_cells(col: Column, cells: list, decimal: str, separator: str | None, bad: set, target: str):
-    """A NUMBER column as a float array (NaN = missing), a TEXT or DATETIME
-    column as a list (None = missing), when every cell is a text cell that
-    the per-cell rules accept as it is; else None.
+    """A NUMBER column as a float array (NaN = missing), a DATETIME column as
+    a datetime64[us] array (NaT = missing), a TEXT column as a list (None =
+    missing), when every cell is a text cell that the per-cell rules accept
+    as it is; else None.
 
     Each distinct cell is read once (a column of 275,000 sieve masses holds
     a few thousand distinct ones) and the values are spread back to the rows."""
@@ -144,8 +145,11 @@ def _fast_cells(col: Column, cells: list, decimal: str, separator: str | None, b
     if col.kind == NUMBER:
         values = _plain_numbers(distinct, decimal, separator)
         return None if values is None else values[codes]
-    reader = _plain_dates if col.kind == DATETIME else _plain_texts if col.kind == TEXT else None
-    values = reader(distinct) if reader is not None else None
+    if col.kind == DATETIME:
+        dates = _plain_dates(distinct)
+        # as frame_from_columns makes a date column, from the distinct values only
+        return None if dates is None else pd.Series(dates, dtype="datetime64[us]").to_numpy()[codes]
+    values = _plain_texts(distinct) if col.kind == TEXT else None
     if values is None:
         return None
     spread = np.empty(len(values), dtype=object)
@@ -159,7 +163,9 @@ def _plain_dates(cells: list[str]) -> list | None:
     if text.count("\n") != len(cells) - 1:
         return None  # a cell holds a line break
     try:
-        if _fixed_layout_dates(cells) or _PLAIN_DATES.fullmatch(text):
+        if _fixed_layout_dates(cells):
+            return list(map(dt.datetime.fromisoformat, cells))  # no padding to trim
+        if _PLAIN_DATES.fullmatch(text):
             return [dt.datetime.fromisoformat(c.strip()) for c in cells]
         if _DATES_OR_MISSING.fullmatch(text):
             return [None if _is_missing(c) else dt.datetime.fromisoformat(c.strip()) for c in cells]
@@ -232,6 +238,9 @@ _WHITESPACE = re.compile(r"\s")
 
 
 def _as_list(values: np.ndarray) -> list:
+    """A column read by a fast path as Python values, None for missing."""
+    if values.dtype.kind == "M":
+        return values.tolist()  # datetime64[us]: datetimes, NaT as None
     return [None if math.isnan(v) else v for v in values.tolist()]
 
 

@@ -57,6 +57,8 @@ def _series(kind: str, values) -> pd.Series:
             return pd.Series(values, dtype="float64")
         return pd.Series([math.nan if v is None else float(v) for v in values], dtype="float64")
     if kind == DATETIME:
+        if isinstance(values, np.ndarray):
+            return pd.Series(values, dtype="datetime64[us]")
         if all(v is None or (type(v) is dt.datetime and v.tzinfo is None) for v in values):
             return pd.Series(values, dtype="datetime64[us]")  # the same as through pd.Timestamp, 20 times faster
         return pd.Series([None if v is None else pd.Timestamp(v) for v in values], dtype="datetime64[us]")
