@@ -1,0 +1,268 @@
+"""An ingest folder: which file is which table, reading them all, and the checks across tables."""
+
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Iterable
+
+import pandas as pd
+
+from linkage.exceptions import InputError, Problem
+from linkage.read import DATA_SUFFIXES, MAPPING_FILE, SPEC_FILE, UNSUPPORTED_SUFFIXES, WORKBOOK_SUFFIXES
+from linkage.read.lots import _visible, lot_key
+from linkage.read.mapping import Mapping, _suggest, read_mapping
+from linkage.read.raw import _norm_header
+from linkage.read.table import _build, bulk, read_table
+from linkage.read.workbook import _hidden, _hidden_sheet, _open_workbook, _read_sheet
+from linkage.schema import TABLES
+from linkage.spec import Spec, read_spec
+
+
+@dataclass
+class Ingest:
+    """What :func:`read_folder` found: checked tables and where they came from.
+
+    ``sources[table]`` is ``{"file", "sha256", "rows"}``; ``other_sources``
+    holds the same for ``spec.toml`` and ``columns.toml`` when present.
+    Each table keeps ``attrs["file"]`` and ``attrs["source_rows"]``
+    (spreadsheet row of each data row).
+    """
+
+    tables: dict[str, pd.DataFrame]
+    sources: dict[str, dict]
+    spec: Spec | None = None
+    warnings: list[str] = field(default_factory=list)
+    folder: Path | None = None
+    other_sources: dict[str, dict] = field(default_factory=dict)
+
+    def lots(self) -> list[str]:
+        """Every lot named in any table, process lots first, in file order."""
+        seen: dict[str, None] = {}
+        for name in TABLES:
+            if name in self.tables:
+                seen.update(dict.fromkeys(self.tables[name]["lot"].tolist()))
+        return list(seen)
+
+
+def read_folder(folder: Path, mapping: Mapping | None = None, *,
+                known_lots: Iterable[str] | None = None) -> Ingest:
+    """Read every recognised file of an ingest folder (see the module notes).
+
+    ``known_lots`` are the lots already in the store. When given, the folder
+    is also checked against them (:func:`cross_check`): results for a lot with
+    no process record here or there, and, for an empty store, the tables a
+    first ingest needs. The store repeats that check inside its transaction.
+    Raises one :class:`InputError` with the problems of every file.
+    """
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise InputError(Problem(str(folder), "not a folder"))
+    workbooks: dict[Path, tuple] = {}  # open workbooks, read once for their sheet names and their cells
+    try:
+        with bulk():
+            return _read_folder(folder, mapping, known_lots, workbooks)
+    finally:
+        for values, formulas in workbooks.values():
+            values.close()
+            formulas.close()
+
+
+def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: dict) -> Ingest:
+    problems: list[Problem] = []
+    warnings: list[str] = []
+    sources: dict[str, dict] = {}
+    other: dict[str, dict] = {}
+    plan: dict[str, tuple[Path, str | None, str]] = {}  # table -> (file, sheet or None, label)
+    spec_path = mapping_path = None
+    for entry in sorted(folder.iterdir(), key=lambda p: p.name.lower()):
+        name, suffix = entry.name, entry.suffix.lower()
+        stem = _norm_header(entry.stem).lower()
+        if entry.is_dir():
+            warnings.append(f"subfolder {name}/ ignored (only files directly in {folder.name}/ are read)")
+        elif name.startswith((".", "~$")):
+            warnings.append(f"{name} ignored (hidden or temporary file)")
+        elif name.lower() == SPEC_FILE:
+            spec_path = entry
+        elif name.lower() == MAPPING_FILE:
+            mapping_path = entry
+        elif stem.startswith("readme"):
+            continue
+        elif suffix in UNSUPPORTED_SUFFIXES:
+            problems.append(Problem(name, "this spreadsheet format is not read; save as .xlsx or CSV UTF-8"))
+        elif suffix in DATA_SUFFIXES and stem in TABLES:
+            _plan(plan, stem, (entry, None, name), problems)
+        elif suffix in WORKBOOK_SUFFIXES:
+            _plan_workbook(entry, plan, problems, warnings, workbooks)
+        elif suffix in DATA_SUFFIXES or stem in TABLES:
+            problems.append(Problem(name, f"not a recognised table file{_suggest(stem, TABLES)}; recognised: "
+                                          f"{', '.join(f'{t}.csv' for t in TABLES)} (or .xlsx), "
+                                          f"{SPEC_FILE}, {MAPPING_FILE}"))
+        else:
+            warnings.append(f"{name} ignored (not a table file; recognised: {', '.join(TABLES)} as .csv or "
+                            f".xlsx, {SPEC_FILE}, {MAPPING_FILE})")
+    if mapping is None and mapping_path is not None:
+        try:
+            mapping = read_mapping(mapping_path)
+        except InputError as exc:
+            raise InputError(exc.problems) from None  # a broken mapping would garble every file's errors
+        other[MAPPING_FILE] = {"file": mapping_path.name, "sha256": mapping.sha256, "rows": None}
+    elif mapping_path is not None:
+        warnings.append(f"{mapping_path.name} in the folder ignored: a mapping was given")
+    if not plan and not problems:
+        problems.append(Problem(folder.name or str(folder), "no table files found; expected "
+                                f"{', '.join(f'{t}.csv' for t in TABLES)} (or .xlsx)"))
+    tables: dict[str, pd.DataFrame] = {}
+    failed: set[str] = set()
+    for tname in (t for t in TABLES if t in plan):
+        path, sheet, label = plan[tname]
+        try:
+            if sheet is None:
+                df = read_table(path, tname, mapping)
+            else:
+                df = _build(_read_sheet(*workbooks[path], sheet, label), TABLES[tname],
+                            (mapping or Mapping()).for_table(tname))
+        except InputError as exc:
+            problems += exc.problems
+            failed.add(tname)
+            continue
+        tables[tname] = df
+        sources[tname] = {"file": label, "sha256": _sha256(path), "rows": len(df)}
+        if len(df) == 0:
+            warnings.append(f"{label} has a header but no data rows")
+    spec = None
+    if spec_path is not None:
+        try:
+            spec = read_spec(spec_path)
+            other[SPEC_FILE] = {"file": spec_path.name, "sha256": _sha256(spec_path), "rows": None}
+        except InputError as exc:
+            problems += exc.problems
+    ingest = Ingest(tables, sources, spec, warnings, folder, other)
+    if "process" not in failed:
+        problems += cross_check(ingest, known_lots, unread=failed)
+    if problems:
+        raise InputError(problems)
+    return ingest
+
+
+def _plan(plan: dict, table: str, item: tuple, problems: list[Problem]) -> None:
+    if table in plan:
+        problems.append(Problem(item[2], f"table '{table}' is given twice: also in {plan[table][2]}"))
+    else:
+        plan[table] = item
+
+
+def _plan_workbook(path: Path, plan: dict, problems: list[Problem], warnings: list[str], workbooks: dict) -> None:
+    try:
+        workbooks[path] = _open_workbook(path, path.name)
+    except InputError as exc:
+        problems += exc.problems
+        return
+    sheets = workbooks[path][0].sheetnames
+    found = [s for s in sheets if _norm_header(s).lower() in TABLES]
+    if not found:
+        problems.append(Problem(path.name, f"not a recognised table file: neither the file nor any of its sheets "
+                                           f"({', '.join(sheets)}) is named after a table; tables: "
+                                           f"{', '.join(TABLES)}"))
+        return
+    for s in sheets:
+        if s in found and _hidden(workbooks[path][0], s):
+            problems.append(_hidden_sheet(path.name, s))
+        elif s in found:
+            _plan(plan, _norm_header(s).lower(), (path, s, f"{path.name} (sheet {s})"), problems)
+        else:
+            warnings.append(f"{path.name}: sheet '{s}' ignored (not a table name)")
+
+
+def _sha256(path: Path) -> str:
+    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+
+
+def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterable[str] = ()) -> list[Problem]:
+    """Rules across tables, given the lots already in the store.
+
+    ``known_lots=None`` means the store is not known yet and nothing is
+    checked. Otherwise: every lot of a result table needs a process record in
+    this ingest or in the store; and an empty store needs every required table
+    (``unread`` names tables that are there but failed to read).
+    """
+    if known_lots is None:
+        return []
+    known = set(known_lots)
+    problems = [] if known else _missing_tables(ingest, unread)
+    with_process = known | set(ingest.tables["process"]["lot"].tolist()) if "process" in ingest.tables else known
+    spelling, key = _spellings(ingest, known)
+    # a stored id is never refused: a store written before this rule may hold two spellings of one lot
+    respelled_ids = {lot for lot in key.keys() - known if spelling.get(key[lot], (lot,))[0] != lot}
+    for tname, df in ingest.tables.items():
+        odd = {lot for lot in df["lot"].unique().tolist() if lot in respelled_ids or lot not in with_process}
+        if not odd:
+            continue  # decided on the distinct ids; else the rows of the odd ones are found in order
+        rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
+        label = ingest.sources.get(tname, {}).get("file", tname)
+        orphans: dict[str, list[int]] = {}
+        respelled: dict[str, list[int]] = {}
+        for k, lot in enumerate(df["lot"].tolist()):
+            if lot in respelled_ids:
+                respelled.setdefault(lot, []).append(rows[k])
+            elif lot in odd:
+                orphans.setdefault(lot, []).append(rows[k])
+        for lot, rs in respelled.items():
+            other, where = spelling[key[lot]]
+            problems.append(Problem(label, f"lot {_visible(lot)!r} is lot {_visible(other)!r} {where}, written "
+                                           f"another way (case, dash or compatibility form; {_span(rs)}); one lot "
+                                           f"has one spelling: write it {_visible(other)!r}",
+                                    row=rs[0], column="lot", value=_visible(lot)))
+        if tname == "process":
+            continue
+        for lot, rs in orphans.items():
+            problems.append(Problem(label, f"lot {lot!r} has no process record in this folder or in the store "
+                                           f"({_span(rs)}); add it to process", row=rs[0], column="lot", value=lot))
+    return problems
+
+
+def _missing_tables(ingest: Ingest, unread: Iterable[str]) -> list[Problem]:
+    """The tables a first ingest into an empty store needs and this one lacks."""
+    missing = [t.name for t in TABLES.values()
+               if t.required and t.name not in ingest.tables and t.name not in set(unread)]
+    if not missing:
+        return []
+    needed = ", ".join(t.name for t in TABLES.values() if t.required)
+    where = ingest.folder.name if ingest.folder is not None else "input"
+    return [Problem(where, f"required table '{m}' is missing: the first ingest into an empty store needs {needed}")
+            for m in missing]
+
+
+def _spellings(ingest: Ingest, known: set[str]) -> tuple[dict[str, tuple[str, str]], dict[str, str]]:
+    """The one spelling of each lot (:func:`lot_key`) that a new id of this
+    ingest may share a key with: the first in sorted order among the stored
+    ids, else the first in this folder's process table; and the key of every
+    id of the ingest. Only stored ids with the key of a new id are sorted."""
+    ids: set[str] = set()
+    for df in ingest.tables.values():
+        ids.update(df["lot"].unique().tolist())
+    key = dict(zip(ids, _keys(list(ids))))
+    wanted = {key[lot] for lot in ids - known}
+    spelling: dict[str, tuple[str, str]] = {}
+    if wanted:
+        stored = list(known)
+        for lot in sorted(lot for lot, k in zip(stored, _keys(stored)) if k in wanted):
+            spelling.setdefault(key.get(lot) or lot_key(lot), (lot, "in the store"))
+    if "process" in ingest.tables:
+        process_label = ingest.sources.get("process", {}).get("file", "process")
+        for lot in ingest.tables["process"]["lot"].tolist():
+            spelling.setdefault(key[lot], (lot, f"in {process_label}"))
+    return spelling, key
+
+
+def _keys(lots: list[str]) -> list[str]:
+    """:func:`lot_key` of each id; ids all ASCII on one line each (the common case) lowered in one call."""
+    joined = "\n".join(lots)
+    if lots and joined.isascii() and joined.count("\n") == len(lots) - 1:
+        return joined.lower().split("\n")  # lot_key of an ASCII id is its lower()
+    return [lot_key(lot) for lot in lots]
+
+
+def _span(rows: list[int]) -> str:
+    return f"row {rows[0]}" if len(rows) == 1 else f"rows {rows[0]}-{rows[-1]}, {len(rows)} rows"

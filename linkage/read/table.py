@@ -1,0 +1,346 @@
+"""A raw sheet checked against the template: the typed table, or every problem at once."""
+
+from __future__ import annotations
+
+import datetime as dt
+import difflib
+import gc
+import itertools
+import math
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from linkage.exceptions import InputError, Problem
+from linkage.read import MAPPING_FILE, UNSUPPORTED_SUFFIXES, WORKBOOK_SUFFIXES
+from linkage.read.cells import (_as_list, _column_clean, _decimal_mark, _extra_non_finite, _extra_values,
+                                _fast_cells, _in_bounds, _parse_datetime, _parse_number, _shown, _text)
+from linkage.read.lots import _lot_id_problems
+from linkage.read.mapping import ROLL_WIDTH_COLUMN, TOTAL_FORCE_COLUMN, ColumnMap, Mapping, _suggest, _without_unit
+from linkage.read.raw import _is_missing, _letters, _norm_header, _Raw
+from linkage.read.rules import _key_problems, _rule_problems, _sorted
+from linkage.read.sniff import _read_csv
+from linkage.read.workbook import _percent_cells, _read_workbook_table
+from linkage.schema import DATETIME, NUMBER, TABLES, TEXT, Column, Table
+
+
+def frame_from_columns(table: str, columns: dict[str, list], extra: dict[str, list] | None = None,
+                       n_rows: int | None = None) -> pd.DataFrame:
+    """A DataFrame of a table with the template's dtypes.
+
+    ``columns`` holds template columns (missing ones are filled with missing
+    values), ``extra`` the extra columns in order; values are Python values
+    with ``None`` for missing. TEXT -> ``str``, NUMBER -> ``float64``,
+    DATETIME -> ``datetime64[us]``; an extra column is ``float64`` when every
+    value is a number, else ``str``.
+    """
+    tdef = TABLES[table]
+    if n_rows is None:
+        lengths = [len(v) for v in (*columns.values(), *(extra or {}).values())]
+        n_rows = lengths[0] if lengths else 0
+    data: dict[str, pd.Series] = {}
+    for col in tdef.columns:
+        data[col.name] = _series(col.kind, columns[col.name]) if col.name in columns else _empty(col.kind, n_rows)
+    for name, values in (extra or {}).items():
+        numeric = all(v is None or (isinstance(v, float) and not isinstance(v, bool)) for v in values)
+        data[name] = _series(NUMBER, values) if numeric else _series(
+            TEXT, [None if v is None else (repr(v) if isinstance(v, float) else str(v)) for v in values])
+    return pd.DataFrame(data, index=pd.RangeIndex(n_rows))
+
+
+def _series(kind: str, values) -> pd.Series:
+    if kind == NUMBER:
+        if isinstance(values, np.ndarray):
+            return pd.Series(values, dtype="float64")
+        return pd.Series([math.nan if v is None else float(v) for v in values], dtype="float64")
+    if kind == DATETIME:
+        if isinstance(values, np.ndarray):
+            return pd.Series(values, dtype="datetime64[us]")
+        if all(v is None or (type(v) is dt.datetime and v.tzinfo is None) for v in values):
+            return pd.Series(values, dtype="datetime64[us]")  # the same as through pd.Timestamp, 20 times faster
+        return pd.Series([None if v is None else pd.Timestamp(v) for v in values], dtype="datetime64[us]")
+    if set(map(type, values)) <= {str, type(None)}:
+        return pd.Series(values, dtype="str")  # text as read (the common case): no copy to make
+    return pd.Series([None if v is None else str(v) for v in values], dtype="str")
+
+
+def _empty(kind: str, n_rows: int) -> pd.Series:
+    """A template column the file does not have: every value missing."""
+    if kind == NUMBER:
+        return pd.Series(np.full(n_rows, np.nan), dtype="float64")
+    if kind == DATETIME:
+        return pd.Series(np.full(n_rows, np.datetime64("NaT", "us")), dtype="datetime64[us]")
+    return pd.Series([None] * n_rows, dtype="str")
+
+
+#: one column of a file that is read: (column index, target column, header as written, its mapping or None)
+Target = tuple[int, str, str, ColumnMap | None]
+
+
+def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
+    """Apply the template to a raw sheet; raise InputError with every problem."""
+    check = _Check(raw, tdef, list(raw.problems))
+    check.targets, unit_headers = _match_header(raw, tdef, cmaps, check.problems)
+    _require_columns(raw.label, tdef, check.targets, unit_headers, check.problems)
+    # the decimal mark from the number cells of the file (module notes, rule 4)
+    number_idx = [j for j, t, _, _ in check.targets if t not in tdef.names or tdef.column(t).kind == NUMBER]
+    decimal = _decimal_mark(itertools.chain.from_iterable(raw.columns[j] for j in number_idx), raw.separator)
+    for target in check.targets:
+        check.read_column(target, decimal)
+    force_map = next((m for _, t, _, m in check.targets if m is not None and m.total_force), None)
+    if force_map is not None:
+        check.per_cm_of_roll_width(force_map)
+    for col in tdef.columns:
+        if col.name in check.values:
+            check.bounds_and_presence(col)
+    return check.frame()
+
+
+def _match_header(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap],
+                  problems: list[Problem]) -> tuple[list[Target], set[str]]:
+    """The columns read, and the template columns written with a unit added.
+
+    Each header is renamed by the mapping, matched to the template in any
+    case, or kept as an extra column. A column with values but no header, a
+    template name with a unit added and two headers that become one column
+    are refused.
+    """
+    label = raw.label
+    targets: list[Target] = []
+    seen: dict[str, str] = {}
+    names_lower = {n.lower(): n for n in tdef.names}
+    unit_headers: set[str] = set()  # template columns written with a unit in the header (reported once)
+    for j, head in enumerate(raw.header):
+        shown = _norm_header(head)
+        if not shown:
+            if any(not _is_missing(c) for c in raw.columns[j]):
+                problems.append(Problem(label, f"column {_letters(j)} has values but no header", row=1,
+                                        column=_letters(j)))
+            continue
+        cmap = cmaps.get(shown.lower())
+        target = cmap.target if cmap else names_lower.get(shown.lower(), shown)
+        decorated = None if cmap or target in tdef.names else names_lower.get(_without_unit(shown).lower())
+        if decorated is not None:
+            unit = tdef.column(decorated).unit
+            problems.append(Problem(label, f"header '{shown}' is the template column '{decorated}' with a unit "
+                                           f"added; the template name carries its unit ({unit}): name the column "
+                                           f"'{decorated}', or map the header in {MAPPING_FILE} (with unit = ... "
+                                           "where the file uses another unit)", row=1, column=shown))
+            unit_headers.add(decorated)
+            continue
+        if target.lower() in seen:
+            problems.append(Problem(label, f"two columns become '{target}': '{seen[target.lower()]}' and '{shown}'",
+                                    row=1, column=shown))
+            continue
+        seen[target.lower()] = shown
+        targets.append((j, target, shown, cmap))
+    return targets, unit_headers
+
+
+def _require_columns(label: str, tdef: Table, targets: list[Target], unit_headers: set[str],
+                     problems: list[Problem]) -> None:
+    """A required template column that is not in the file, with the nearest header as a hint."""
+    present = {t for _, t, _, _ in targets}
+    for col in tdef.columns:
+        if col.required and col.name not in present and col.name not in unit_headers:
+            near = difflib.get_close_matches(col.name, [h for _, _, h, _ in targets], n=1, cutoff=0.6)
+            hint = f"; found '{near[0]}': rename it or map it in {MAPPING_FILE}" if near else ""
+            problems.append(Problem(label, f"required column '{col.name}' is missing{hint}", row=1, column=col.name))
+
+
+@dataclass
+class _Check:
+    """The cells of one raw sheet as they are read and checked, column by column."""
+
+    raw: _Raw
+    tdef: Table
+    problems: list[Problem]
+    targets: list[Target] = field(default_factory=list)
+    #: template column -> values (a float array where the fast path read it, else a list with None for missing)
+    values: dict[str, list | np.ndarray] = field(default_factory=dict)
+    extra: dict[str, list] = field(default_factory=dict)
+    headers: dict[str, str] = field(default_factory=dict)  # target -> header as written
+    bad: set[tuple[int, str]] = field(default_factory=set)  # (row index, target) of cells already refused
+
+    def refuse(self, k: int, target: str, rule: str, value: object = None, column: str | None = None) -> None:
+        """Report the cell of row index ``k`` in ``target``'s column and mark it refused."""
+        self.problems.append(Problem(self.raw.label, rule, row=self.raw.row_numbers[k],
+                                     column=column or self.headers[target], value=value))
+        self.bad.add((k, target))
+
+    def shown(self, k: int, target: str) -> object:
+        """The cell as written in the file, trimmed, for a message."""
+        j = next((j for j, t, _, _ in self.targets if t == target), None)
+        return None if j is None else _shown(self.raw.cell(k, j))
+
+    def read_column(self, target_item: Target, decimal: str) -> None:
+        """Parse one column: formulas and percentages of a workbook, then each cell by its kind."""
+        j, target, shown, cmap = target_item
+        raw, tdef = self.raw, self.tdef
+        self.headers[target] = shown
+        cells = list(raw.columns[j]) if raw.percent else raw.columns[j]
+        if raw.formulas:
+            for k, r in enumerate(raw.row_numbers):
+                if (r, j) in raw.formulas:
+                    self.refuse(k, target, "formula without a stored result; open and save the file in a "
+                                           "spreadsheet program, or paste values")
+        if raw.percent:
+            _percent_cells(raw, j, target, shown, tdef, cmap, cells, self.problems, self.bad)
+        if target not in tdef.names:
+            self.extra[target] = _extra_values(cells, decimal, raw.separator)
+            self.problems += _extra_non_finite(cells, self.extra[target], decimal, raw.separator, raw.label,
+                                               raw.row_numbers, shown)
+            return
+        col = tdef.column(target)
+        factor = cmap.factor if cmap and col.kind == NUMBER else None
+        fast = _fast_cells(col, cells, decimal, raw.separator, self.bad, target)
+        if fast is not None:
+            self.values[target] = fast * factor if factor is not None else fast
+            return
+        out: list = []
+        for k, cell in enumerate(cells):
+            if (k, target) in self.bad or _is_missing(cell):
+                out.append(None)
+                continue
+            if col.kind == TEXT:
+                out.append(_text(cell))
+                continue
+            parsed = _parse_number(cell, decimal, raw.separator) if col.kind == NUMBER else _parse_datetime(cell)
+            if isinstance(parsed, str):
+                self.refuse(k, target, parsed, value=_shown(cell))
+                out.append(None)
+            else:
+                out.append(parsed * factor if factor is not None else parsed)
+        self.values[target] = out
+
+    def per_cm_of_roll_width(self, force_map: ColumnMap) -> None:
+        """A total roll force (kN or N) divided by the roll width in cm: the mapping's, or else the row's."""
+        values = self.values
+        for name in (TOTAL_FORCE_COLUMN, ROLL_WIDTH_COLUMN):
+            if isinstance(values.get(name), np.ndarray):
+                values[name] = _as_list(values[name])
+        n = len(self.raw.row_numbers)
+        widths = values.get(ROLL_WIDTH_COLUMN, [None] * n)
+        forces = values[TOTAL_FORCE_COLUMN]
+        for k in range(n):
+            if forces[k] is None:
+                continue
+            width, row_width = force_map.roll_width_mm, widths[k]
+            if width is not None and row_width is not None and not math.isclose(width, row_width, rel_tol=1e-9):
+                self.refuse(k, TOTAL_FORCE_COLUMN, f"roll width {row_width:g} mm in this row differs from "
+                                                   f"{width:g} mm in {MAPPING_FILE}", value=row_width,
+                            column=self.headers.get(ROLL_WIDTH_COLUMN, ROLL_WIDTH_COLUMN))
+                forces[k] = None
+                continue
+            width = width if width is not None else row_width
+            if width is None or not width > 0:
+                self.refuse(k, TOTAL_FORCE_COLUMN, f"a total roll force needs the roll width: give "
+                                                   f"{ROLL_WIDTH_COLUMN} in the row or roll_width_mm in "
+                                                   f"{MAPPING_FILE}", value=self.shown(k, TOTAL_FORCE_COLUMN))
+                forces[k] = None
+                continue
+            forces[k] = forces[k] / (width / 10.0)
+
+    def bounds_and_presence(self, col: Column) -> None:
+        """Every value of a template column within its bounds, and present where the column must be filled."""
+        values = self.values
+        cmap = next((m for _, t, _, m in self.targets if t == col.name), None)
+        required = col.nonempty or col.name in self.tdef.key
+        if isinstance(values[col.name], np.ndarray):
+            if _column_clean(col, values[col.name], required):
+                return
+            values[col.name] = _as_list(values[col.name])  # something to report: the loop below says what
+        elif col.kind != NUMBER and (not required or None not in values[col.name]):
+            return  # no bounds, and nothing missing that must be there
+        for k, v in enumerate(values[col.name]):
+            if (k, col.name) in self.bad:
+                continue
+            if v is None:
+                if required:
+                    self.refuse(k, col.name, f"'{col.name}' must have a value in every row",
+                                value=self.shown(k, col.name))
+                continue
+            if col.kind == NUMBER and not _in_bounds(col, v):
+                note = ""
+                if cmap is not None and cmap.unit is not None:
+                    note = f" (read as {cmap.unit}, converted to {v:g} {col.unit})"
+                self.refuse(k, col.name, f"outside the range {col.bound_text()}{note}", value=self.shown(k, col.name))
+
+    def frame(self) -> pd.DataFrame:
+        """The typed table, after the lot-id, key and row rules; InputError with every problem of the sheet."""
+        raw, tdef, problems = self.raw, self.tdef, self.problems
+        sheet_rows = raw.row_numbers
+        if isinstance(self.values.get("lot"), list):
+            problems += _lot_id_problems(self.values["lot"], raw.label, sheet_rows, self.headers.get("lot", "lot"),
+                                         self.bad)
+        df = frame_from_columns(tdef.name, self.values, self.extra, n_rows=len(sheet_rows))
+        problems += _key_problems(df, tdef, raw.label, sheet_rows, self.headers, self.bad)
+        problems += _rule_problems(df, tdef, raw.label, sheet_rows, self.headers, self.bad)
+        if problems:
+            raise InputError(_sorted(problems))
+        df.attrs["table"] = tdef.name
+        df.attrs["file"] = raw.label
+        df.attrs["source_rows"] = SourceRows(sheet_rows)
+        return df
+
+
+@contextmanager
+def bulk():
+    """Pause Python's cyclic garbage collector while a large table is parsed
+    or written. Building millions of small lists and tuples otherwise sets
+    off full collections that walk every live object again and again (a
+    third of the time of reading 100,000 lots). Nothing of ours makes
+    reference cycles there; the collector is switched back on afterwards
+    (if it was on) and catches up then."""
+    was_enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was_enabled:
+            gc.enable()
+
+
+class SourceRows(list):
+    """The spreadsheet row of each row of a table (``attrs["source_rows"]``).
+
+    A plain list of ints, except that its deep copy is a shallow one (the
+    same ints, a new list): pandas deep-copies ``attrs`` on every operation
+    that derives a frame or a column, and element-by-element deep copies of a
+    long list made selecting one column of a large table cost seconds.
+    """
+
+    def __deepcopy__(self, memo):
+        return SourceRows(self)
+
+
+def read_table(path: Path, table: str | None = None, mapping: Mapping | None = None, *,
+               definition: Table | None = None) -> pd.DataFrame:
+    """Read one CSV or XLSX file as a checked table of the template.
+
+    ``table`` defaults to the file's stem. Returns typed columns (see
+    :func:`frame_from_columns`): every template column of the table in template
+    order, then the extra columns in file order. ``attrs["source_rows"]`` gives
+    each row's spreadsheet row. Raises :class:`InputError` with every problem
+    of the file. ``definition`` checks the file against a stricter variant of
+    the table (the same columns, some of them required; default the
+    template's).
+    """
+    path = Path(path)
+    name = table if table is not None else _norm_header(path.stem).lower()
+    if name not in TABLES:
+        raise InputError(Problem(path.name, f"unknown table '{name}'{_suggest(name, TABLES)}; "
+                                            f"tables: {', '.join(TABLES)}"))
+    if not path.is_file():
+        raise InputError(Problem(str(path), "no such file"))
+    cmaps = (mapping or Mapping()).for_table(name)
+    if path.suffix.lower() in WORKBOOK_SUFFIXES:
+        raw = _read_workbook_table(path, name)
+    elif path.suffix.lower() in UNSUPPORTED_SUFFIXES:
+        raise InputError(Problem(path.name, "this spreadsheet format is not read; save as .xlsx or CSV UTF-8"))
+    else:
+        raw = _read_csv(path.read_bytes(), path.name)
+    return _build(raw, definition or TABLES[name], cmaps)

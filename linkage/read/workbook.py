@@ -1,0 +1,165 @@
+"""The sheets of a workbook (.xlsx, .xlsm) as raw sheets; percentage-formatted cells."""
+
+from __future__ import annotations
+
+import decimal
+import itertools
+from pathlib import Path
+
+from linkage import read as package
+from linkage.exceptions import InputError, Problem
+from linkage.read.raw import _is_missing, _norm_header, _Raw, _too_many_columns, _too_many_rows
+from linkage.schema import Table
+
+
+def _open_workbook(path: Path, label: str):
+    import openpyxl  # only workbooks need it
+
+    try:
+        values = openpyxl.load_workbook(path, read_only=True, data_only=True)
+        formulas = openpyxl.load_workbook(path, read_only=True, data_only=False)
+    except Exception as exc:  # openpyxl raises many kinds for a broken file
+        raise InputError(Problem(label, f"cannot open as a workbook: {exc}")) from None
+    return values, formulas
+
+
+def _read_workbook_table(path: Path, table: str) -> _Raw:
+    """The sheet of a workbook that holds ``table``: the sheet of that name, or the only sheet."""
+    values, formulas = _open_workbook(path, path.name)
+    try:
+        sheets = values.sheetnames
+        by_name = {_norm_header(s).lower(): s for s in sheets}
+        if table in by_name and _hidden(values, by_name[table]):
+            raise InputError(_hidden_sheet(path.name, by_name[table]))
+        if table in by_name:
+            sheet = by_name[table]
+        elif len(sheets) == 1:
+            sheet = sheets[0]
+        else:
+            raise InputError(Problem(path.name, f"no sheet named '{table}' and more than one sheet "
+                                                f"({', '.join(sheets)})"))
+        label = path.name if len(sheets) == 1 else f"{path.name} (sheet {sheet})"
+        return _read_sheet(values, formulas, sheet, label)
+    finally:
+        values.close()
+        formulas.close()
+
+
+def _read_sheet(values_wb, formulas_wb, sheet: str, label: str) -> _Raw:
+    ws = values_wb[sheet]
+    # the size the sheet records for itself (None when it records none): refuse a huge one before reading
+    size: list[Problem] = []
+    if isinstance(ws.max_row, int) and ws.max_row - 1 > package.MAX_ROWS:
+        size.append(_too_many_rows(label, ws.max_row - 1))
+    if isinstance(ws.max_column, int) and ws.max_column > package.MAX_COLUMNS:
+        size.append(_too_many_columns(label, ws.max_column))
+    if size:
+        raise InputError(size)
+    percent: set[tuple[int, int]] = set()
+    rows_v = _sheet_rows(ws, sheet, label, percent)
+    rows_f = _sheet_rows(formulas_wb[sheet], sheet, label)
+    if not rows_v or not any(not _is_missing(c) for c in rows_v[0]):
+        raise InputError(Problem(label, "the header must be on row 1 (row 1 is empty)", row=1))
+    if len(rows_v[0]) > package.MAX_COLUMNS:
+        raise InputError(_too_many_columns(label, len(rows_v[0])))
+    header = [_norm_header(c) for c in rows_v[0]]
+    n = len(header)
+    rows: list[tuple[int, list]] = []
+    formulas: set[tuple[int, int]] = set()
+    for i, rec in enumerate(rows_v[1:], start=2):
+        rec = list(rec) + [None] * (n - len(rec))
+        if all(_is_missing(c) for c in rec):
+            continue
+        frec = rows_f[i - 1] if i - 1 < len(rows_f) else ()
+        for j, (v, f) in enumerate(zip(rec, frec)):
+            if v is None and isinstance(f, str) and f.startswith("="):
+                formulas.add((i, j))
+        rows.append((i, rec))
+    return _Raw.from_rows(label, header, rows, None, formulas=formulas, percent=percent)
+
+
+def _sheet_rows(ws, sheet: str, label: str, percent: set | None = None) -> list[tuple]:
+    """The rows of a sheet as values, header first; at most MAX_ROWS below the
+    header (the sheet's recorded size may be missing or wrong, so the rows
+    are counted too). openpyxl parses cells lazily while the rows are
+    iterated, so a damaged cell (``<v>NaN</v>`` in a number cell) raises
+    here, not when the workbook is opened.
+
+    With ``percent`` given, the (sheet row, column index) of every number
+    cell whose number format shows it as a percentage (a ``%`` outside quotes
+    in the format code, ECMA-376 Part 1 §18.8.31) is added to it: such a cell
+    stores 0.0176 and shows 1.76 %."""
+    rows: list[tuple] = []
+    try:
+        if percent is None:
+            rows.extend(itertools.islice(ws.iter_rows(min_row=1, values_only=True), package.MAX_ROWS + 2))
+        else:
+            for i, cells in enumerate(itertools.islice(ws.iter_rows(min_row=1), package.MAX_ROWS + 2), start=1):
+                rows.append(tuple(getattr(c, "value", None) for c in cells))
+                for j, c in enumerate(cells):
+                    fmt = getattr(c, "number_format", None)
+                    if (fmt and "%" in fmt and isinstance(c.value, (int, float)) and not isinstance(c.value, bool)
+                            and _shows_percent(fmt)):
+                        percent.add((i, j))
+    except Exception as exc:  # openpyxl raises many kinds for a damaged sheet, as in _open_workbook
+        after = f" after row {len(rows)}" if rows else ""
+        raise InputError(Problem(label, f"cannot read sheet '{sheet}': a cell{after} is damaged ({exc}); "
+                                        "open and save the file in a spreadsheet program")) from None
+    if len(rows) - 1 > package.MAX_ROWS:
+        raise InputError(_too_many_rows(label, None))
+    return rows
+
+
+def _percent_cells(raw: _Raw, j: int, target: str, shown: str, tdef: Table, cmap, cells: list,
+                   problems: list[Problem], bad: set) -> None:
+    """Read the percentage-formatted cells of column ``j`` as a person sees them.
+
+    A workbook cell formatted as a percentage stores 0.0176 and shows 1.76 %.
+    In a column whose unit is % (a template column in %, or an extra column
+    whose name ends in ``_pct`` or whose header holds ``%``) the cell is read
+    as shown, 1.76, the decimal point moved exactly (no binary rounding). In
+    any other column the cell is refused with the value stored and shown.
+    """
+    col = tdef.column(target) if target in tdef.names else None
+    in_percent = (col.unit == "%" and (cmap is None or cmap.unit is None)) if col is not None else (
+        target.lower().endswith("_pct") or "%" in shown)
+    for k, r in enumerate(raw.row_numbers):
+        if (r, j) not in raw.percent:
+            continue
+        stored = cells[k]
+        as_shown = float(decimal.Decimal(repr(float(stored))).scaleb(2))
+        if in_percent:
+            cells[k] = as_shown
+            continue
+        unit = f"in {col.unit}" if col is not None else "not a percentage column"
+        problems.append(Problem(raw.label, f"cell formatted as a percentage: it stores {float(stored)!r} and shows "
+                                           f"{as_shown!r} %, but the column is {unit}; format the cell as a number "
+                                           "showing the value meant", row=r, column=shown, value=stored))
+        bad.add((k, target))
+
+
+def _shows_percent(number_format: str) -> bool:
+    """Does a number format code multiply by 100 and show '%': a '%' outside
+    double quotes and not escaped with a backslash (ECMA-376 Part 1, §18.8.31
+    numFmts: a literal is quoted or escaped; a bare '%' scales by 100)."""
+    quoted = escaped = False
+    for ch in number_format:
+        if escaped:
+            escaped = False
+        elif ch == "\\":
+            escaped = True
+        elif ch == '"':
+            quoted = not quoted
+        elif ch == "%" and not quoted:
+            return True
+    return False
+
+
+def _hidden(workbook, sheet: str) -> bool:
+    """A sheet a person does not see: state 'hidden' or 'veryHidden' (ECMA-376 Part 1, §18.18.68)."""
+    return getattr(workbook[sheet], "sheet_state", "visible") != "visible"
+
+
+def _hidden_sheet(file: str, sheet: str) -> Problem:
+    return Problem(file, f"sheet '{sheet}' is named after a table but hidden: what a person sees and what would be "
+                         "read differ; unhide it if it holds the data, or delete or rename it")
