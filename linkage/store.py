@@ -400,12 +400,14 @@ class LotStore:
         every ingest's content and every lot table's raw rows. Returns what
         was checked, with the newest seal."""
         try:
+            # read before the snapshot begins (see seal.check); inside a transaction seal.check reads it
+            anchor = False if self._conn.in_transaction else _seal.read_anchor(self.path)
             with self._snapshot():
                 problems = []
                 if full:  # SQLite's own check of every page and index (linear in the store's size)
                     damage = [r[0] for r in self._conn.execute("PRAGMA integrity_check(20)")]
                     problems += [] if damage == ["ok"] else [f"SQLite integrity_check: {d}" for d in damage]
-                found, counts = _seal.check(self._conn, self.path, full=full)
+                found, counts = _seal.check(self._conn, self.path, full=full, anchor=anchor)
                 problems += found
                 counts["newest seal"] = dict(zip(("id", "sha256"), _seal.head(self._conn)))
         except sqlite3.DatabaseError as exc:

@@ -275,3 +275,32 @@ def test_python_dash_m_runs_the_command_line(tmp_path):
     result = subprocess.run([sys.executable, "-m", "linkage.cli.main", "--version"], capture_output=True,
                             text=True, cwd=tmp_path, env=_env(), timeout=60)
     assert result.returncode == 0 and "linkage" in result.stdout, (result.stdout, result.stderr)
+
+
+def test_a_commit_during_the_seal_check_is_not_taken_for_removed_records(tmp_path, monkeypatch):
+    """A reader checks the seals in one read transaction while a writer commits a newer seal and moves the
+    anchor (seen once under load: "the anchor names seal 4, which the store does not hold (newest seal: 2)").
+    The anchor is read before the snapshot begins, so it never names a seal the snapshot lacks. The writer's
+    commit is made here, deterministically, between the snapshot's start and the anchor's check."""
+    from linkage import seal
+
+    path = tmp_path / "site.db"
+    with LotStore(path) as writer:
+        writer.log("train", lot=None, model_id="m-1", inputs={}, outputs={})
+    real_check = seal.check
+
+    committed = []
+
+    def commit_meanwhile(c, store_path, **kwargs):
+        if not committed:  # once: the writer's own open checks the seals too
+            committed.append(c.execute("SELECT COUNT(*) FROM seals").fetchone()[0])  # the snapshot begins
+            with LotStore(path) as other:  # another process's audit entry, after the snapshot began
+                other.log("predict", lot=None, model_id="m-1", inputs={}, outputs={})
+        return real_check(c, store_path, **kwargs)
+
+    with LotStore(path) as reader:
+        monkeypatch.setattr(seal, "check", commit_meanwhile)
+        counts = reader.check_seals()  # raised StoreIntegrityError ("anchor ... does not hold") before
+    assert counts["seals"] == committed[0]  # the snapshot's seals, not the one committed meanwhile
+    with LotStore(path) as after:
+        assert after.check_seals()["seals"] == committed[0] + 1
