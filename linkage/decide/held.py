@@ -14,7 +14,16 @@ at its conditional expectation given the given ones,
 ed., Thm 2.5.1), with Σ_gg⁻¹ the Moore–Penrose pseudo-inverse where Σ_gg is
 singular (a constant or collinear given setting), then clipped to that
 setting's training range. With nothing given to condition on it is the
-training mean μ_m. The conditional mean is also the population form of the
+training mean μ_m.
+
+A setting run at a few levels only (a mill screen of 1.0 or 1.25 mm) is held
+at the training level nearest its conditional mean, never between levels: a
+setting is taken as discrete when the training lots show at most
+:data:`DISCRETE_MAX_LEVELS` distinct values and at least two lots per value
+on average (common practice, no source). The settings still missing that are
+not discrete are then held at their conditional mean given the given
+settings and the discrete ones at their levels, so they follow the level
+actually held. The conditional mean is also the population form of the
 least-squares regression of the missing settings on the given ones, so a
 screw speed that follows roll speed × gap in the lots follows it here too,
 where independent medians make a combination no lot ran.
@@ -26,7 +35,10 @@ setting not given at its training median, and the source says so.
 Storage (the lean model, :mod:`linkage.models.lean`, for a port to another
 language): ``settings_names`` (list), ``settings_mean`` (vector),
 ``settings_cov`` (matrix, rows and columns in the order of the names),
-``settings_low``/``settings_high`` (training min/max).
+``settings_low``/``settings_high`` (training min/max), ``settings_levels``
+(per setting, the sorted training levels of a discrete setting, an empty
+list for a continuous one; absent in a model saved before it was kept, whose
+settings are all held continuous).
 
 Everything here is numpy only: ``linkage predict`` runs it.
 """
@@ -47,14 +59,36 @@ MEDIAN = "training median"
 RULE_COHERENT = ("settings not given are held at their conditional mean given the given settings, under a "
                  "multivariate normal fitted to the training lots' settings (Anderson 2003, Thm 2.5.1), "
                  "clipped to each setting's training range")
+#: a setting with at most this many distinct training values (and >= 2 lots per value) is discrete
+DISCRETE_MAX_LEVELS = 6
+RULE_LEVELS = ("; a setting run at few levels (at most 6 distinct training values, at least 2 lots per value "
+               "on average; common practice, no source) is held at the training level nearest its conditional "
+               "mean, and the other settings at their conditional mean given that level")
 RULE_MEDIAN = ("settings not given are held at their training medians (model saved before coherent held "
                "settings; retrain to hold them coherently)")
 
 
-def settings_model(mean, cov, names, low, high) -> SimpleNamespace:
+def settings_model(mean, cov, names, low, high, levels=None) -> SimpleNamespace:
+    """The settings model; ``levels`` per setting (an empty list: continuous), None for none discrete."""
+    levels = [np.asarray(v, float).reshape(-1) for v in levels] if levels is not None else None
+    if levels is not None and len(levels) != len(names):
+        raise ValueError(f"settings_levels has {len(levels)} entries for {len(names)} settings")
     return SimpleNamespace(names=[str(n) for n in names], mean=np.asarray(mean, float).reshape(-1),
                            cov=np.asarray(cov, float).reshape(len(names), len(names)),
-                           low=np.asarray(low, float).reshape(-1), high=np.asarray(high, float).reshape(-1))
+                           low=np.asarray(low, float).reshape(-1), high=np.asarray(high, float).reshape(-1),
+                           levels=levels)
+
+
+def discrete_levels(column) -> list[float]:
+    """The sorted distinct training values of one setting when it counts as
+    discrete (at most :data:`DISCRETE_MAX_LEVELS` of them and at least two
+    lots per value on average; common practice, no source), else []."""
+    x = np.asarray(column, float)
+    x = x[np.isfinite(x)]
+    values = np.unique(x)
+    if 2 <= len(values) <= DISCRETE_MAX_LEVELS and len(x) >= 2 * len(values):
+        return [float(v) for v in values]
+    return []
 
 
 def fit_settings(values: np.ndarray, names: list[str]) -> dict | None:
@@ -68,7 +102,8 @@ def fit_settings(values: np.ndarray, names: list[str]) -> dict | None:
     Xc = X[complete]
     return {"settings_names": [str(n) for n in names], "settings_mean": Xc.mean(axis=0),
             "settings_cov": np.atleast_2d(np.cov(Xc, rowvar=False, ddof=1)),
-            "settings_low": np.nanmin(X, axis=0), "settings_high": np.nanmax(X, axis=0)}
+            "settings_low": np.nanmin(X, axis=0), "settings_high": np.nanmax(X, axis=0),
+            "settings_levels": [discrete_levels(X[:, j]) for j in range(X.shape[1])]}
 
 
 def of_chain(chain) -> SimpleNamespace | None:
@@ -82,7 +117,7 @@ def of_chain(chain) -> SimpleNamespace | None:
     if not rec or not rec.get("settings_names"):
         return None
     return settings_model(rec["settings_mean"], rec["settings_cov"], rec["settings_names"], rec["settings_low"],
-                          rec["settings_high"])
+                          rec["settings_high"], rec.get("settings_levels"))
 
 
 def conditional_mean(mean, cov, given_index, given_values, missing_index) -> np.ndarray:
@@ -104,25 +139,51 @@ def conditional_mean(mean, cov, given_index, given_values, missing_index) -> np.
 def hold(model: SimpleNamespace, given: dict[str, np.ndarray], missing: list[str]) -> tuple[dict, str]:
     """Values of the ``missing`` settings (arrays, one per row of the
     ``given`` columns) and their source: the conditional mean given the
-    settings of ``given`` the model knows, clipped to the training range."""
+    settings of ``given`` the model knows, clipped to the training range; a
+    discrete setting at the training level nearest it (the lower on a tie),
+    and then the continuous ones given the given settings and those levels
+    (see the module notes)."""
     idx = {n: i for i, n in enumerate(model.names)}
     cond = [n for n in given if n in idx]
     rows = max([np.size(given[n]) for n in given] or [1])
-    if cond:
-        xg = np.column_stack([np.broadcast_to(np.asarray(given[n], float).reshape(-1), (rows,)) for n in cond])
-    else:
-        xg = np.zeros((rows, 0))
+    columns = {n: np.broadcast_to(np.asarray(given[n], float).reshape(-1), (rows,)) for n in cond}
     todo = [n for n in missing if n in idx]
-    out = conditional_mean(model.mean, model.cov, [idx[n] for n in cond], xg, [idx[n] for n in todo])
+    out = _held_at_mean(model, columns, todo, idx, rows)
+    levels = getattr(model, "levels", None) or []
+    discrete = [n for n in todo if levels and len(levels[idx[n]])]
+    if discrete:
+        for n in discrete:
+            out[n] = nearest_level(out[n], levels[idx[n]])
+        rest = [n for n in todo if n not in discrete]
+        if rest:
+            out.update(_held_at_mean(model, {**columns, **{n: out[n] for n in discrete}}, rest, idx, rows))
+    return {n: out[n] for n in todo}, (COHERENT if cond else MEAN)
+
+
+def _held_at_mean(model, columns: dict, todo: list[str], idx: dict, rows: int) -> dict[str, np.ndarray]:
+    """The conditional mean of ``todo`` given ``columns``, clipped to the training range."""
+    names = list(columns)
+    xg = np.column_stack([columns[n] for n in names]) if names else np.zeros((rows, 0))
+    out = conditional_mean(model.mean, model.cov, [idx[n] for n in names], xg, [idx[n] for n in todo])
     lo = np.array([model.low[idx[n]] for n in todo])
     hi = np.array([model.high[idx[n]] for n in todo])
     out = np.clip(out, lo[None, :], hi[None, :])
-    return {n: out[:, j] for j, n in enumerate(todo)}, (COHERENT if cond else MEAN)
+    return {n: out[:, j] for j, n in enumerate(todo)}
+
+
+def nearest_level(values, levels) -> np.ndarray:
+    """Each value replaced by the nearest of ``levels`` (sorted; the lower one on a tie)."""
+    lv = np.asarray(levels, float)
+    v = np.asarray(values, float)
+    return lv[np.argmin(np.abs(v[..., None] - lv), axis=-1)]
 
 
 def rule_of(chain) -> str:
     """In words, how this model holds the settings not given."""
-    return RULE_COHERENT if of_chain(chain) is not None else RULE_MEDIAN
+    model = of_chain(chain)
+    if model is None:
+        return RULE_MEDIAN
+    return RULE_COHERENT + (RULE_LEVELS if any(len(v) for v in (model.levels or [])) else "")
 
 
 def held_point(chain, values: dict[str, float], *, rule: str | None = None) -> dict:

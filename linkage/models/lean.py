@@ -650,7 +650,8 @@ def export(chain) -> dict:
         # within-lot spread for unit-level compendial judgement (linkage.decide.compendial)
         "within_lot": chain.training.get("within_lot") or {},
         # settings model for coherent held settings (linkage.decide.held); absent in a model trained before it
-        **{k: (list(v) if k == "settings_names" else np.asarray(v, float))
+        **{k: (list(v) if k == "settings_names" else
+               [[float(x) for x in lv] for lv in v] if k == "settings_levels" else np.asarray(v, float))
            for k, v in (chain.training.get("settings") or {}).items()},
         # lot-level bootstrap replicates (linkage.models.bootstrap); absent in a model trained before them
         **({"bootstrap": _bootstrap_spec(chain.bootstrap)} if getattr(chain, "bootstrap", None) else {}),

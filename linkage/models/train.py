@@ -534,7 +534,8 @@ def _settings_record(table: pd.DataFrame, chain: ChainSpec) -> dict:
     rec = fit_settings(table[names].to_numpy(float), names) if names else None
     if rec is None:
         return {}
-    return {"settings": {k: (v if k == "settings_names" else np.asarray(v, float).tolist()) for k, v in rec.items()}}
+    return {"settings": {k: (v if k in ("settings_names", "settings_levels") else np.asarray(v, float).tolist())
+                         for k, v in rec.items()}}
 
 
 def _within_lot(raw: pd.DataFrame) -> dict:

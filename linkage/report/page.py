@@ -251,7 +251,8 @@ def page_payload(lean, spec=None, *, seed: int = 0, n_draws: int = 4000, level: 
         payload["held_labels"] = {"coherent": "held coherently (conditional mean of training lots)",
                                   "mean": "held at the training mean (no setting given to condition on)",
                                   "median": "training median"}
-    for key in ("settings_names", "settings_mean", "settings_cov", "settings_low", "settings_high"):
+    for key in ("settings_names", "settings_mean", "settings_cov", "settings_low", "settings_high",
+                "settings_levels"):
         if key in lean.spec:  # the conditional-mean rule of fill_settings, when the model carries it
             payload[key] = lean.spec[key]
     return _plain(payload)

@@ -236,7 +236,10 @@
   // The given values plus every other needed setting, as linkage.decide.propagate.fill_settings holds
   // it: with the model's normal model of the training settings (settings_*), at the conditional mean
   // given the given settings, μ_m + Σ_mg Σ_gg⁺ (x_g − μ_g), clipped to the training range (the mean
-  // when nothing is given); without it, or for a setting it does not know, at the training median.
+  // when nothing is given); a setting run at few levels (settings_levels non-empty) at the level
+  // nearest that mean (the lower on a tie), then the other held settings given the given ones and
+  // those levels (linkage.decide.held.hold); without it, or for a setting it does not know, at the
+  // training median.
   function fillSettings(given) {
     const values = Object.assign({}, given), source = {};
     for (const k of Object.keys(given)) source[k] = "given";
@@ -246,21 +249,35 @@
       const p = names.length, mu = M.settings_mean, idx = {};
       names.forEach((n, i) => { idx[n] = i; });
       const cov = (i, j) => (M.settings_cov.shape ? M.settings_cov[i * p + j] : M.settings_cov[i][j]);
-      const cond = Object.keys(given).filter((n) => n in idx).map((n) => idx[n]);
-      const todo = needed.filter((n) => n in idx);
-      const P = cond.length ? pinvSymmetric(cond.map((i) => cond.map((j) => cov(i, j))), 1e-10) : null;
-      for (const name of todo) {
-        const m = idx[name];
-        let v = mu[m];
-        if (cond.length) {
-          const wts = cond.map((_, k) => { let s = 0; cond.forEach((g, l) => { s += cov(m, g) * P[l][k]; }); return s; });
-          let s = 0;
-          cond.forEach((g, k) => { s += (given[names[g]] - mu[g]) * wts[k]; });
-          v = mu[m] + s;
+      const levels = (m) => (M.settings_levels && M.settings_levels[m]) || [];
+      const heldAt = (on, todo) => {  // the conditional mean of todo given the values in on, clipped
+        const cond = Object.keys(on).map((n) => idx[n]);
+        const P = cond.length ? pinvSymmetric(cond.map((i) => cond.map((j) => cov(i, j))), 1e-10) : null;
+        for (const name of todo) {
+          const m = idx[name];
+          let v = mu[m];
+          if (cond.length) {
+            const wts = cond.map((_, k) => { let s = 0; cond.forEach((g, l) => { s += cov(m, g) * P[l][k]; }); return s; });
+            let s = 0;
+            cond.forEach((g, k) => { s += (on[names[g]] - mu[g]) * wts[k]; });
+            v = mu[m] + s;
+          }
+          values[name] = clip(v, M.settings_low[m], M.settings_high[m]);
         }
-        values[name] = clip(v, M.settings_low[m], M.settings_high[m]);
-        source[name] = cond.length ? M.held_labels.coherent : M.held_labels.mean;
+      };
+      const nearest = (v, lv) => { let best = lv[0]; for (const l of lv) if (Math.abs(v - l) < Math.abs(v - best)) best = l; return best; };
+      const on = {};
+      Object.keys(given).filter((n) => n in idx).forEach((n) => { on[n] = given[n]; });
+      const todo = needed.filter((n) => n in idx);
+      heldAt(on, todo);
+      const discrete = todo.filter((n) => levels(idx[n]).length);
+      if (discrete.length) {
+        const onLevels = Object.assign({}, on);
+        for (const name of discrete) { values[name] = nearest(values[name], levels(idx[name])); onLevels[name] = values[name]; }
+        const rest = todo.filter((n) => !discrete.includes(n));
+        if (rest.length) heldAt(onLevels, rest);
       }
+      for (const name of todo) source[name] = Object.keys(on).length ? M.held_labels.coherent : M.held_labels.mean;
       needed = needed.filter((n) => !(n in idx));
     }
     for (const name of needed) {

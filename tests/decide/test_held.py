@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -59,9 +60,16 @@ def test_fill_settings_holds_the_conditional_mean_of_the_training_lots(scenario)
     assert names == chain.chain.root_inputs()
     X = table[names].dropna().to_numpy(float)
     g = [names.index("compression_force_kn"), names.index("roll_gap_mm")]
-    missing = [j for j in range(len(names)) if j not in g]
-    expected = np.clip(_regression(X, g, missing, [[10.0, 2.0]])[0], X[:, missing].min(axis=0),
+    # the mill screen runs at 3 levels: held at the level nearest its conditional mean, and the
+    # continuous settings given that level too (see the discrete-settings tests below)
+    s = names.index("mill_screen_mm")
+    levels = np.unique(X[:, s])
+    screen = levels[np.argmin(np.abs(_regression(X, g, [s], [[10.0, 2.0]])[0, 0] - levels))]
+    missing = [j for j in range(len(names)) if j not in g and j != s]
+    expected = np.clip(_regression(X, g + [s], missing, [[10.0, 2.0, screen]])[0], X[:, missing].min(axis=0),
                        X[:, missing].max(axis=0))
+    missing = missing + [s]
+    expected = np.append(expected, screen)
     for c in (chain, as_lean(chain)):  # the fitted chain and the lean model agree
         values, source = fill_settings(c, {"compression_force_kn": 10.0, "roll_gap_mm": 2.0})
         np.testing.assert_allclose([values[names[j]] for j in missing], expected, rtol=1e-9)
@@ -119,7 +127,7 @@ def test_window_and_force_range_state_their_held_point(scenario):
     _, chain, spec, _ = scenario
     w = find_window(chain, spec, settings={"roll_gap_mm": 2.5}, n_grid=21, n_draws=300).to_dict(curve=False)
     hp = w["held_point"]
-    assert hp["rule"] == held.RULE_COHERENT and isinstance(hp["in_domain"], bool)
+    assert hp["rule"].startswith(held.RULE_COHERENT) and isinstance(hp["in_domain"], bool)
     assert hp["point"]["roll_gap_mm"] == 2.5
     rf = w["roll_force_kn_per_cm"]["held_point"]
     lean = as_lean(chain)
@@ -129,3 +137,77 @@ def test_window_and_force_range_state_their_held_point(scenario):
                                                                for r in rf["reasons"]))
     assert [r for r in rf["reasons"] if r.startswith(ribbon.name)] == [f"{ribbon.name} stage: {r}"
                                                                         for r in direct["reasons"]]
+
+
+# --------------------------------------------------------------------------- discrete settings (few levels)
+def test_a_setting_run_at_few_levels_is_discrete():
+    """The rule (common practice, no source): at most 6 distinct training
+    values and at least 2 lots per value on average."""
+    rng = np.random.default_rng(3)
+    assert held.discrete_levels(rng.choice([1.0, 1.25, 1.5], 40)) == [1.0, 1.25, 1.5]
+    assert held.discrete_levels(rng.uniform(8, 20, 40)) == []  # continuous
+    assert held.discrete_levels([1.0, 1.5, 2.0, 2.5, 3.0]) == []  # 5 lots, 5 values: not enough repeats
+    assert held.discrete_levels(np.full(10, 1.0)) == []  # one level: nothing to choose between
+    assert held.discrete_levels([1.0, 2.0, np.nan, 1.0, 2.0]) == [1.0, 2.0]
+
+
+def test_a_discrete_setting_is_held_at_the_nearest_level_and_the_rest_follow_it():
+    """The mill screen is held at the training level nearest its conditional
+    mean (the lower on a tie), never between levels; the continuous settings
+    still missing are then the regression on the given settings and that
+    level (scikit-learn's LinearRegression over the same lots, the sample
+    form of Anderson 2003, Thm 2.5.1)."""
+    rng = np.random.default_rng(5)
+    n = 80
+    screen = rng.choice([1.0, 1.25, 1.5], n)
+    force = rng.uniform(4, 14, n) + 4 * (screen - 1.25)
+    speed = 3 + 0.2 * force + 2 * screen + rng.normal(0, 0.3, n)
+    X = np.column_stack([force, screen, speed])
+    names = ["force", "screen", "speed"]
+    rec = held.fit_settings(X, names)
+    assert rec["settings_levels"] == [[], [1.0, 1.25, 1.5], []]
+    m = held.of_chain(SimpleNamespace(spec={k: v for k, v in rec.items()}))
+    f = np.array([4.5, 9.0, 13.5])
+    values, source = held.hold(m, {"force": f}, ["screen", "speed"])
+    assert source == held.COHERENT
+    cm = _regression(X, [0], [1], f[:, None])[:, 0]
+    want_screen = np.array([[1.0, 1.25, 1.5][int(np.argmin(np.abs(c - np.array([1.0, 1.25, 1.5]))))] for c in cm])
+    np.testing.assert_array_equal(values["screen"], want_screen)
+    assert set(values["screen"]) <= {1.0, 1.25, 1.5}
+    want_speed = np.clip(_regression(X, [0, 1], [2], np.column_stack([f, want_screen]))[:, 0], speed.min(),
+                         speed.max())
+    np.testing.assert_allclose(values["speed"], want_speed, rtol=1e-9)
+    # nothing given: the level nearest the training mean
+    v0, s0 = held.hold(m, {}, ["screen"])
+    assert s0 == held.MEAN and v0["screen"][0] in (1.0, 1.25, 1.5)
+    assert abs(v0["screen"][0] - screen.mean()) <= 0.125 + 1e-12
+    assert held.nearest_level([1.125], [1.0, 1.25])[0] == 1.0  # a tie takes the lower level
+
+
+def test_the_scenario_holds_the_mill_screen_at_a_level_run_and_an_older_model_still_loads(scenario):
+    """The synthetic lots run the mill screen at 3 levels (linkage.synthetic
+    MILL_SCREENS_MM); a what-if that does not give it holds it at one of them.
+    A whatif.npz written before settings_levels was kept loads and holds it
+    continuous, as before."""
+    from linkage.models.lean import from_npz_bytes, to_npz_bytes
+    from linkage.synthetic import MILL_SCREENS_MM
+
+    _, chain, _, table = scenario
+    lean = from_npz_bytes(to_npz_bytes(as_lean(chain).spec))
+    levels = sorted(set(table["mill_screen_mm"].dropna()))
+    assert lean.spec["settings_levels"][lean.spec["settings_names"].index("mill_screen_mm")] == levels
+    assert set(levels) <= set(MILL_SCREENS_MM)
+    given = {"roll_force_kn_per_cm": 9.3, "compression_force_kn": 12.7}
+    values, source = fill_settings(lean, given)
+    assert values["mill_screen_mm"] in levels and source["mill_screen_mm"] == held.COHERENT
+    assert held.RULE_LEVELS in held.rule_of(lean)
+    old_spec = {k: v for k, v in as_lean(chain).spec.items() if k != "settings_levels"}
+    old = from_npz_bytes(to_npz_bytes(old_spec))
+    v_old, _ = fill_settings(old, given)
+    rec = chain.training["settings"]
+    names = rec["settings_names"]
+    X = table[names].dropna().to_numpy(float)
+    g = [names.index(k) for k in given]
+    want = _regression(X, g, [names.index("mill_screen_mm")], [[given[names[i]] for i in g]])[0, 0]
+    assert v_old["mill_screen_mm"] == pytest.approx(np.clip(want, min(levels), max(levels)), rel=1e-9)
+    assert held.rule_of(old) == held.RULE_COHERENT

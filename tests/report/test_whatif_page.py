@@ -424,3 +424,40 @@ def test_held_settings_follow_the_conditional_mean_when_the_model_carries_one(de
         for i, w in zip(u, want):
             assert shown["values"][names[i]] == pytest.approx(w, abs=TOL), (given_names, names[i])
             assert shown["source"][names[i]] == (labels["coherent"] if g else labels["mean"])
+
+
+@pytest.mark.slow
+@pytest.mark.browser
+def test_a_setting_run_at_few_levels_is_held_at_a_level_on_the_page_as_in_python(demo, browser, tmp_path):
+    """A setting with ``settings_levels`` (run at a few levels in training;
+    linkage.decide.held) is held on the page at the level nearest its
+    conditional mean, and the other unticked settings given that level: the
+    same values as linkage.decide.held.hold (itself checked against
+    scikit-learn's regression in tests/decide/test_held.py), to 1e-9. The
+    demo's own model carries the levels of its mill screen."""
+    from linkage.decide import held
+    from linkage.models.registry import load_whatif
+    from linkage.report.page import page_html
+
+    out, _ = demo
+    lean = load_whatif(out.models_dir, out.model_id)
+    names = list(lean.spec["settings_names"])
+    assert any(lean.spec["settings_levels"]), "the demo's mill screen should be discrete"
+    levels = [list(v) for v in lean.spec["settings_levels"]]
+    mean = np.asarray(lean.spec["settings_mean"], float)
+    levels[0] = [mean[0] - 1.0, mean[0] + 0.5, mean[0] + 2.0]  # and a second discrete setting, made up
+    lean.spec["settings_levels"] = levels
+    page = tmp_path / "levels.html"
+    page.write_text(page_html(lean), encoding="utf-8")
+    browser.open(page.as_uri())
+    model = held.of_chain(lean)
+    rng = np.random.default_rng(4)
+    for given_names in ([], names[1:2], names[2:4], names[::2], names[:-1]):
+        given = {n: float(rng.uniform(model.low[names.index(n)], model.high[names.index(n)])) for n in given_names}
+        shown = browser.evaluate(f"window.linkageFillSettings({json.dumps(given)})")
+        missing = [n for n in names if n not in given]
+        want, _ = held.hold(model, {k: np.array([v]) for k, v in given.items()}, missing)
+        for n in missing:
+            assert shown["values"][n] == pytest.approx(float(want[n][0]), abs=TOL), (given_names, n)
+            if levels[names.index(n)]:
+                assert shown["values"][n] in levels[names.index(n)]
