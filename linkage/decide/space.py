@@ -30,7 +30,12 @@ row-histogram maximal-rectangle search (each row's column heights, then the
 largest rectangle under a histogram with a stack; Morgan 2005 surveys it, a
 textbook exercise; the tests compare it with a brute-force search). Its
 ends, one range per mapped setting, are grid points that pass: the ranges
-are conservative by up to one grid step. The suggested set point is the
+are conservative by up to one grid step. With bootstrap replicates the box
+rests on the same simultaneous rule as the window: the band that holds over
+all the box's points at once (:func:`linkage.decide.bound.simultaneous_lower_bound`)
+must reach the confidence at each of them; when the band over the largest
+box falls short, the points where it does are dropped and the search runs
+again (:func:`simultaneous_box`). The suggested set point is the
 centre of the box, in each setting farthest from both ends of its range.
 The held settings vary with the mapped ones; their range over the box is
 reported beside.
@@ -282,17 +287,62 @@ def largest_rectangle(mask) -> tuple[int, int, int, int] | None:
     return best
 
 
+def simultaneous_box(result: SpaceResult, max_rounds: int = 200) -> tuple[tuple | None, dict]:
+    """The largest box of the region on which the band simultaneous over the
+    box itself (:func:`linkage.decide.bound.simultaneous_lower_bound`, the
+    window's rule) reaches the confidence at every point.
+
+    Start from the largest box of the region (pointwise bound); while the
+    band over the current box falls below the confidence somewhere in it,
+    drop from the candidate points every point where that band falls short
+    and take the largest box of what is left. Each round drops at least one
+    point of the current box, so the search ends; the box it returns holds
+    under the band made over exactly that box. Without replicates the box of
+    the region is returned as it is. Returns (box or None, record)."""
+    from linkage.decide.bound import simultaneous_lower_bound
+
+    candidates = result.region.copy()
+    first = largest_rectangle(candidates)
+    if result.replicates is None or first is None:
+        return first, {}
+    box, rounds = first, 0
+    point = result.p_all.ravel()
+    while box is not None and rounds < max_rounds:
+        r0, r1, c0, c1 = box
+        in_box = np.zeros(result.p_all.shape, dtype=bool)
+        in_box[r0:r1 + 1, c0:c1 + 1] = True
+        band, q = simultaneous_lower_bound(result.replicates, result.assurance, point, in_box.ravel())
+        band = band.reshape(result.p_all.shape)
+        low = float(band[in_box].min())
+        if low >= result.confidence:
+            break
+        rounds += 1
+        candidates &= ~(in_box & (band < result.confidence))
+        box = largest_rectangle(candidates)
+    record = {"simultaneous_low_min": low, "simultaneous_quantile": q,
+              "simultaneous_holds": bool(box is not None and low >= result.confidence),
+              "pointwise_box": {"rows": [int(first[0]), int(first[1])], "columns": [int(first[2]), int(first[3])],
+                                "ranges": {result.x: [float(result.xs[first[2]]), float(result.xs[first[3]])],
+                                           result.y: [float(result.ys[first[0]]), float(result.ys[first[1]])]}},
+              "shrunk": box != first, "shrink_rounds": rounds}
+    return (box if record["simultaneous_holds"] else None), record
+
+
 def acceptable_ranges(result: SpaceResult) -> dict:
-    """The largest box inside the region (:attr:`SpaceResult.region`), one
-    range per mapped setting, the suggested set point (its centre), the held
-    settings' range over the box and at the set point; ``found`` false with
-    the reason when no grid point qualifies."""
-    box = largest_rectangle(result.region)
+    """The largest box inside the region (:attr:`SpaceResult.region`) on
+    which the band simultaneous over the box reaches the confidence
+    (:func:`simultaneous_box`), one range per mapped setting, the suggested
+    set point (its centre), the held settings' range over the box and at the
+    set point; ``found`` false with the reason when no grid point qualifies."""
+    box, simultaneous = simultaneous_box(result)
     basis = "lower bound" if result.p_all_low is not None else "point estimate (no lower bound available)"
     if box is None:
-        return {"found": False, "basis": basis,
-                "reason": f"at no grid point inside the applicability domain does the {basis} of P(all pass) "
-                          f"reach {result.confidence:.0%}"}
+        reason = (f"at no grid point inside the applicability domain does the {basis} of P(all pass) "
+                  f"reach {result.confidence:.0%}")
+        if simultaneous:
+            reason = (f"no box of grid points inside the applicability domain keeps the band simultaneous over "
+                      f"it at {result.confidence:.0%} or more (lowest {simultaneous['simultaneous_low_min']:.3f})")
+        return {"found": False, "basis": basis, "reason": reason, **simultaneous}
     r0, r1, c0, c1 = box
     xs, ys = result.xs, result.ys
     centre = {result.x: float((xs[c0] + xs[c1]) / 2), result.y: float((ys[r0] + ys[r1]) / 2)}
@@ -300,17 +350,6 @@ def acceptable_ranges(result: SpaceResult) -> dict:
     ranges = {result.x: [float(xs[c0]), float(xs[c1])], result.y: [float(ys[r0]), float(ys[r1])]}
     held = {k: [float(v[r0:r1 + 1, c0:c1 + 1].min()), float(v[r0:r1 + 1, c0:c1 + 1].max())]
             for k, v in result.held.items()}
-    simultaneous = {}
-    if result.replicates is not None:  # the band over the whole box at once (bound.simultaneous_lower_bound)
-        from linkage.decide.bound import simultaneous_lower_bound
-
-        in_box = np.zeros(result.p_all.shape, dtype=bool)
-        in_box[r0:r1 + 1, c0:c1 + 1] = True
-        band, q = simultaneous_lower_bound(result.replicates, result.assurance, result.p_all.ravel(),
-                                           in_box.ravel())
-        low = float(band[in_box.ravel()].min())
-        simultaneous = {"simultaneous_low_min": low, "simultaneous_quantile": q,
-                        "simultaneous_holds": bool(low >= result.confidence)}
     return {
         "found": True, "basis": basis,
         "ranges": ranges,
@@ -323,11 +362,12 @@ def acceptable_ranges(result: SpaceResult) -> dict:
         "p_all_low_at_set_point_grid": None if result.p_all_low is None else float(result.p_all_low[ci, cj]),
         "p_all_at_set_point_grid": float(result.p_all[ci, cj]),
         **simultaneous,
-        "note": ("the ranges' ends are grid points where the pointwise bound reaches the confidence inside the "
-                 "domain; simultaneous_low_min is the lowest point of the band that holds over the whole box at "
-                 "once (the window's rule), so simultaneous_holds says whether the box keeps the confidence "
-                 "under it; the held settings follow the mapped ones (their range over the box is given), they "
-                 "are not independent ranges"),
+        "note": ("the ranges' ends are grid points inside the domain where the band that holds over the whole box "
+                 "at once (the window's rule; simultaneous_low_min its lowest point over the box) reaches the "
+                 "confidence; the box is the largest of the pointwise region (pointwise_box), shrunk until that "
+                 "holds (shrunk, shrink_rounds); without bootstrap replicates it rests on the point estimate; the "
+                 "held settings follow the mapped ones (their range over the box is given), they are not "
+                 "independent ranges"),
     }
 
 
@@ -365,9 +405,9 @@ def space_text(result: SpaceResult) -> str:
                      + ", ".join(f"{k} = {v:.4g} {shown_unit(k)}" for k, v in ar["set_point"].items()))
         if "simultaneous_holds" in ar:
             lines.append(f"  over the whole box at once (simultaneous band, {result.assurance:.0%} assurance) the "
-                         f"lowest bound is {ar['simultaneous_low_min']:.3f}: "
-                         + ("the box keeps the confidence" if ar["simultaneous_holds"] else
-                            "BELOW the confidence; the ranges rest on the pointwise bound only"))
+                         f"lowest bound is {ar['simultaneous_low_min']:.3f}: the box keeps the confidence"
+                         + (f" (shrunk from the pointwise bound's box in {ar['shrink_rounds']} round(s))"
+                            if ar["shrunk"] else ""))
         lines.append("  held there: " + ", ".join(f"{k} = {v:.4g}" for k, v in ar["held_at_set_point"].items()))
         lines.append("  held settings over the box (they follow the mapped ones): "
                      + ", ".join(f"{k} {lo:.4g}–{hi:.4g}" for k, (lo, hi) in ar["held_over_box"].items()))

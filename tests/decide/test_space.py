@@ -59,14 +59,24 @@ def small_map(scenario):
 def test_held_settings_per_grid_point_are_the_regression_on_the_mapped_ones(scenario, small_map):
     """Each held setting at each grid point is the conditional mean given force
     and gap: the least-squares regression over the training lots (Anderson 2003,
-    Thm 2.5.1, sample form), clipped to the training range."""
+    Thm 2.5.1, sample form), clipped to the training range; the mill screen,
+    run at 3 levels, at the level nearest its regression, and the continuous
+    settings given that level too (linkage.decide.held)."""
     _, chain, _, table = scenario
     r = small_map
     X, Y = np.meshgrid(r.xs, r.ys)
     lots = table[chain.chain.root_inputs()].dropna()
+    grid = np.column_stack([X.ravel(), Y.ravel()])
+    screen = "mill_screen_mm"
+    levels = np.unique(lots[screen])
+    fit = LinearRegression().fit(lots[[FORCE, GAP]].to_numpy(float), lots[screen].to_numpy(float))
+    held_screen = levels[np.argmin(np.abs(fit.predict(grid)[:, None] - levels[None, :]), axis=1)]
+    np.testing.assert_array_equal(r.held[screen].ravel(), held_screen)
     for name, values in r.held.items():
-        fit = LinearRegression().fit(lots[[FORCE, GAP]].to_numpy(float), lots[name].to_numpy(float))
-        expected = np.clip(fit.predict(np.column_stack([X.ravel(), Y.ravel()])), lots[name].min(), lots[name].max())
+        if name == screen:
+            continue
+        fit = LinearRegression().fit(lots[[FORCE, GAP, screen]].to_numpy(float), lots[name].to_numpy(float))
+        expected = np.clip(fit.predict(np.column_stack([grid, held_screen])), lots[name].min(), lots[name].max())
         np.testing.assert_allclose(values.ravel(), expected, rtol=1e-8, err_msg=name)
 
 
@@ -109,7 +119,12 @@ def test_acceptable_ranges_are_a_box_of_passing_points(small_map):
     inside = np.ix_((r.ys >= y0) & (r.ys <= y1), (r.xs >= x0) & (r.xs <= x1))
     assert r.region[inside].all() and r.region[inside].size == ar["grid_cells"]["n_points"]
     assert ar["set_point"] == {FORCE: pytest.approx((x0 + x1) / 2), GAP: pytest.approx((y0 + y1) / 2)}
-    assert (r.region.sum() == 0) or r.region[inside].size == _brute_force(r.region)
+    if not ar.get("shrunk"):
+        assert (r.region.sum() == 0) or r.region[inside].size == _brute_force(r.region)
+    else:  # the pointwise box was the largest; the box kept is inside the region and smaller
+        pb = ar["pointwise_box"]
+        assert (pb["rows"][1] - pb["rows"][0] + 1) * (pb["columns"][1] - pb["columns"][0] + 1) == \
+            _brute_force(r.region) > ar["grid_cells"]["n_points"]
 
 
 def test_map_refuses_what_it_cannot_map(scenario):
@@ -155,4 +170,52 @@ def test_the_box_states_its_simultaneous_band(small_map):
     expected = np.minimum(np.nanquantile(r.replicates, q, axis=0), r.p_all.ravel())[box.ravel()].min()
     assert ar["simultaneous_low_min"] == pytest.approx(expected)
     assert ar["simultaneous_low_min"] <= r.p_all_low[box].min() + 1e-12
-    assert ar["simultaneous_holds"] == (ar["simultaneous_low_min"] >= r.confidence)
+    assert ar["simultaneous_holds"] and ar["simultaneous_low_min"] >= r.confidence
+
+
+def _joint_coverage(reps: np.ndarray, band: np.ndarray) -> float:
+    """The share of replicates at or above ``band`` at every point at once:
+    the definition of a simultaneous lower band's coverage (Montiel Olea &
+    Plagborg-Møller 2019, J. Appl. Econometrics 34:1-17, §3)."""
+    return float(np.mean(np.all(reps >= band[None, :] - 1e-12, axis=1)))
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_the_box_shrinks_until_the_band_over_it_holds(seed):
+    """Replicates scattered independently at each grid point: the pointwise
+    bound reaches 0.9 over a wide region, but a band that must hold at all of
+    a large box's points at once is lower, so the largest pointwise box
+    fails the simultaneous rule. The box returned keeps it: at every one of
+    its points the band, whose joint coverage over the box (counted from the
+    replicates directly) is at least the assurance, reaches the confidence."""
+    from linkage.decide.bound import lower_bound
+    from linkage.decide.space import SpaceResult, acceptable_ranges
+
+    rng = np.random.default_rng(seed)
+    n, B = 14, 400
+    xs, ys = np.linspace(0, 1, n), np.linspace(0, 1, n)
+    X, Y = np.meshgrid(xs, ys)
+    p_all = np.clip(0.995 - 0.6 * ((X - 0.5) ** 2 + (Y - 0.5) ** 2), 0, 1)
+    reps = np.clip(p_all.ravel()[None, :] + rng.normal(0, 0.03, (B, n * n)), 0, 1)
+    low = lower_bound(reps, 0.9, p_all.ravel()).reshape(n, n)
+    r = SpaceResult(model_id="t", x="a", y="b", xs=xs, ys=ys, p_all=p_all, p_all_low=low,
+                    in_domain=np.ones((n, n), bool), held={}, held_sources={}, held_rule="", given={},
+                    attributes=["a"], confidence=0.9, assurance=0.9, bound={}, seed=0, replicates=reps)
+    ar = acceptable_ranges(r)
+    pb = ar["pointwise_box"]
+    assert (pb["rows"][1] - pb["rows"][0] + 1) * (pb["columns"][1] - pb["columns"][0] + 1) == _brute_force(r.region)
+    assert ar["shrunk"] and ar["found"] and ar["simultaneous_holds"]
+    (i0, i1), (j0, j1) = ar["grid_cells"]["rows"], ar["grid_cells"]["columns"]
+    assert ar["grid_cells"]["n_points"] < _brute_force(r.region)
+    box = np.zeros((n, n), bool)
+    box[i0:i1 + 1, j0:j1 + 1] = True
+    band = np.minimum(np.nanquantile(reps, ar["simultaneous_quantile"], axis=0), p_all.ravel())
+    assert band[box.ravel()].min() >= 0.9
+    assert _joint_coverage(reps[:, box.ravel()], band[box.ravel()]) >= 0.9
+    # the pointwise box itself fails the rule: its own simultaneous band drops below 0.9
+    from linkage.decide.bound import simultaneous_lower_bound
+
+    big = np.zeros((n, n), bool)
+    big[pb["rows"][0]:pb["rows"][1] + 1, pb["columns"][0]:pb["columns"][1] + 1] = True
+    band_big, _ = simultaneous_lower_bound(reps, 0.9, p_all.ravel(), big.ravel())
+    assert band_big[big.ravel()].min() < 0.9

@@ -405,7 +405,7 @@ def test_held_settings_follow_the_conditional_mean_when_the_model_carries_one(de
     mean = np.array([lean.medians[n] for n in names])
     low, high = mean - 3.0, mean + 3.0
     lean.spec.update(settings_names=names, settings_mean=mean, settings_cov=cov, settings_low=low,
-                     settings_high=high)
+                     settings_high=high, settings_levels=[[] for _ in names])  # all continuous here
     page = tmp_path / "conditional.html"
     page.write_text(page_html(lean), encoding="utf-8")
     browser.open(page.as_uri())
