@@ -21,6 +21,20 @@ of mean predictions) is checked against every stage's applicability domain
 (training ranges, Hotelling T² and Q residual; :mod:`linkage.models.domain`):
 the domain mask. A probability outside the mask is an extrapolation.
 
+Boundaries
+----------
+Two boundaries are reported at the confidence. The *estimated boundary* is
+the contour of the point estimate of P(all pass) at the confidence: the best
+estimate of where the true boundary lies (it errs either way). The
+*conservative boundary* is the contour of the lower bound: by design it lies
+inside the true region, by the spread the lot count leaves. Each is given by
+its crossings of the grid lines: along every row of the grid (one value of
+y) the x at which the surface crosses the confidence, and along every column
+the y, by linear interpolation between the two neighbouring grid points
+(the vertices marching squares would draw; Lorensen & Cline 1987, SIGGRAPH
+21(4):163-169, from memory), counting only crossings between two grid points
+inside the applicability domain (:func:`boundary_lines`).
+
 Acceptable ranges
 -----------------
 The largest axis-aligned box of grid points inside {bound ≥ confidence} ∩
@@ -85,6 +99,11 @@ class SpaceResult:
         return self.p_all if self.p_all_low is None else self.p_all_low
 
     @property
+    def estimated_region(self) -> np.ndarray:
+        """Grid points where the point estimate reaches the confidence inside the domain."""
+        return (self.p_all >= self.confidence) & self.in_domain
+
+    @property
     def region(self) -> np.ndarray:
         """Grid points where the bound (point estimate without one) reaches the
         confidence and the held point is inside the domain."""
@@ -105,6 +124,10 @@ class SpaceResult:
             "p_all_low": grid(self.p_all_low),
             "in_domain": [[bool(v) for v in row] for row in self.in_domain],
             "in_region": [[bool(v) for v in row] for row in self.region],
+            "in_estimated_region": [[bool(v) for v in row] for row in self.estimated_region],
+            "estimated_boundary": self.boundary(self.p_all, "point estimate of P(all pass)"),
+            "conservative_boundary": (None if self.p_all_low is None else
+                                      self.boundary(self.p_all_low, "lower bound of P(all pass)")),
             "confidence": self.confidence,
             "assurance": self.assurance,
             "bound": dict(self.bound),
@@ -118,6 +141,62 @@ class SpaceResult:
             "seed": self.seed,
             "caution": CAUTION,
         }
+
+
+    def boundary(self, surface, basis: str) -> dict:
+        """Where ``surface`` crosses the confidence inside the domain, as its
+        crossings of the grid lines (:func:`boundary_lines`), JSON-safe."""
+        lines = boundary_lines(surface, self.xs, self.ys, self.confidence, self.in_domain)
+        return {"basis": basis, "level": self.confidence,
+                "x_at_y": [[round(v, 6) for v in row] for row in lines["x_at_y"]],
+                "y_at_x": [[round(v, 6) for v in col] for col in lines["y_at_x"]],
+                "layout": "x_at_y[i]: the x values where the surface crosses the level along y.values[i]; "
+                          "y_at_x[j]: the y values where it does along x.values[j] (linear interpolation between "
+                          "neighbouring grid points, both inside the domain)"}
+
+
+def crossings(values, coords, level: float, inside=None, edges: bool = False) -> list[float]:
+    """Where a sequence of values along one grid line crosses ``level``:
+    between neighbouring points on opposite sides (one at or above, one
+    below), at the linear interpolation between them. Points not ``inside``
+    count as below the level; a crossing next to one is kept only with
+    ``edges``, at the inside point (the edge of the region), and so are the
+    ends of the line where the region reaches them."""
+    v = np.asarray(values, float)
+    c = np.asarray(coords, float)
+    ok = np.ones(v.shape, bool) if inside is None else np.asarray(inside, bool)
+    up = (v >= level) & ok
+    out: list[float] = []
+    if edges and up[0]:
+        out.append(float(c[0]))
+    for j in range(len(v) - 1):
+        if up[j] == up[j + 1]:
+            continue
+        if ok[j] and ok[j + 1]:
+            t = (level - v[j]) / (v[j + 1] - v[j])
+            out.append(float(c[j] + t * (c[j + 1] - c[j])))
+        elif edges:
+            out.append(float(c[j] if up[j] else c[j + 1]))
+    if edges and up[-1] and len(v) > 1:
+        out.append(float(c[-1]))
+    return out
+
+
+def boundary_lines(surface, xs, ys, level: float, inside=None, edges: bool = False) -> dict:
+    """The contour of ``surface`` (rows follow ``ys``, columns ``xs``) at
+    ``level`` as its crossings of the grid lines (:func:`crossings`):
+    ``x_at_y`` per row, ``y_at_x`` per column."""
+    S = np.asarray(surface, float)
+    ok = np.ones(S.shape, bool) if inside is None else np.asarray(inside, bool)
+    return {"x_at_y": [crossings(S[i], xs, level, ok[i], edges) for i in range(S.shape[0])],
+            "y_at_x": [crossings(S[:, j], ys, level, ok[:, j], edges) for j in range(S.shape[1])]}
+
+
+def boundary_points(lines: dict, xs, ys) -> np.ndarray:
+    """The (x, y) points of :func:`boundary_lines`."""
+    pts = [(x, float(y)) for y, row in zip(ys, lines["x_at_y"]) for x in row]
+    pts += [(float(x), y) for x, col in zip(xs, lines["y_at_x"]) for y in col]
+    return np.array(pts, float).reshape(-1, 2)
 
 
 def _range_of(lean, name: str) -> tuple[float, float]:
@@ -396,6 +475,9 @@ def space_text(result: SpaceResult) -> str:
     lines.append(f"Reaching {result.confidence:.0%} ({'bound' if b['available'] else 'point estimate'}) inside the "
                  f"domain: {int(result.region.sum())} of {n} grid points; point estimate anywhere: "
                  f"{int((result.p_all >= result.confidence).sum())}.")
+    lines.append(f"Estimated boundary: where the point estimate crosses {result.confidence:.0%} inside the domain "
+                 f"({int(result.estimated_region.sum())} grid points within it)"
+                 + ("; the bound's region inside it is the conservative one." if b["available"] else "."))
     ar = result.ranges
     if ar.get("found"):
         lines.append("Acceptable ranges (largest box inside the region):")

@@ -219,3 +219,54 @@ def test_the_box_shrinks_until_the_band_over_it_holds(seed):
     big[pb["rows"][0]:pb["rows"][1] + 1, pb["columns"][0]:pb["columns"][1] + 1] = True
     band_big, _ = simultaneous_lower_bound(reps, 0.9, p_all.ravel(), big.ravel())
     assert band_big[big.ravel()].min() < 0.9
+
+
+@pytest.mark.parametrize("seed", range(3))
+def test_boundary_crossings_are_the_vertices_of_matplotlibs_contour(seed):
+    """The estimated and conservative boundaries are given by their crossings
+    of the grid lines; on a smooth surface these are exactly the vertices of
+    the level contour that matplotlib (contourpy, marching squares) draws."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from linkage.decide.space import boundary_lines, boundary_points
+
+    rng = np.random.default_rng(seed)
+    xs, ys = np.linspace(4, 14, 17), np.linspace(1.5, 3.5, 13)
+    X, Y = np.meshgrid(xs, ys)
+    a = rng.normal(size=4)
+    S = 0.5 + 0.3 * np.sin(a[0] * X / 3 + a[1]) * np.cos(a[2] * Y + a[3])
+    level = float(np.quantile(S, 0.4))
+    ours = boundary_points(boundary_lines(S, xs, ys, level), xs, ys)
+    fig, ax = plt.subplots()
+    cs = ax.contour(X, Y, S, levels=[level])
+    theirs = np.unique(np.round(np.vstack([seg for seg in cs.allsegs[0] if len(seg)]), 9), axis=0)
+    plt.close(fig)
+    np.testing.assert_allclose(np.unique(np.round(ours, 9), axis=0), theirs, atol=1e-8)
+
+
+def test_boundary_crossings_skip_the_domain_edge_and_keep_it_with_edges():
+    from linkage.decide.space import crossings
+
+    v = [0.5, 0.8, 0.95, 0.97, 0.99]
+    assert crossings(v, [0, 1, 2, 3, 4], 0.9) == [pytest.approx(1 + 0.1 / 0.15)]
+    inside = [True, True, True, True, False]
+    assert crossings(v, [0, 1, 2, 3, 4], 0.9, inside) == [pytest.approx(1 + 0.1 / 0.15)]
+    assert crossings(v, [0, 1, 2, 3, 4], 0.9, inside, edges=True) == [pytest.approx(1 + 0.1 / 0.15), 3.0]
+    assert crossings(v, [0, 1, 2, 3, 4], 0.9, edges=True) == [pytest.approx(1 + 0.1 / 0.15), 4.0]
+
+
+def test_the_map_reports_its_estimated_and_conservative_boundaries(small_map):
+    from linkage.decide.space import crossings
+
+    d = small_map.to_dict()
+    r = small_map
+    for key, surface in (("estimated_boundary", r.p_all), ("conservative_boundary", r.p_all_low)):
+        b = d[key]
+        assert b["level"] == r.confidence and len(b["x_at_y"]) == len(r.ys) and len(b["y_at_x"]) == len(r.xs)
+        for i in range(len(r.ys)):
+            assert b["x_at_y"][i] == pytest.approx(crossings(surface[i], r.xs, r.confidence, r.in_domain[i]),
+                                                   abs=1e-6)
+    assert d["in_estimated_region"] == ((r.p_all >= r.confidence) & r.in_domain).tolist()
