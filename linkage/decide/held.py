@@ -23,7 +23,7 @@ setting is taken as discrete when the training lots show at most
 on average (common practice, no source). The settings still missing that are
 not discrete are then held at their conditional mean given the given
 settings and the discrete ones at their levels, so they follow the level
-actually held. The conditional mean is also the population form of the
+actually held; with no setting given they stay at the training mean. The conditional mean is also the population form of the
 least-squares regression of the missing settings on the given ones, so a
 screw speed that follows roll speed × gap in the lots follows it here too,
 where independent medians make a combination no lot ran.
@@ -155,7 +155,7 @@ def hold(model: SimpleNamespace, given: dict[str, np.ndarray], missing: list[str
         for n in discrete:
             out[n] = nearest_level(out[n], levels[idx[n]])
         rest = [n for n in todo if n not in discrete]
-        if rest:
+        if rest and cond:  # with nothing given the others stay at the training mean
             out.update(_held_at_mean(model, {**columns, **{n: out[n] for n in discrete}}, rest, idx, rows))
     return {n: out[n] for n in todo}, (COHERENT if cond else MEAN)
 

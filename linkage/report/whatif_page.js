@@ -238,7 +238,7 @@
   // given the given settings, μ_m + Σ_mg Σ_gg⁺ (x_g − μ_g), clipped to the training range (the mean
   // when nothing is given); a setting run at few levels (settings_levels non-empty) at the level
   // nearest that mean (the lower on a tie), then the other held settings given the given ones and
-  // those levels (linkage.decide.held.hold); without it, or for a setting it does not know, at the
+  // those levels when any is given (linkage.decide.held.hold); without it, or for a setting it does not know, at the
   // training median.
   function fillSettings(given) {
     const values = Object.assign({}, given), source = {};
@@ -275,7 +275,7 @@
         const onLevels = Object.assign({}, on);
         for (const name of discrete) { values[name] = nearest(values[name], levels(idx[name])); onLevels[name] = values[name]; }
         const rest = todo.filter((n) => !discrete.includes(n));
-        if (rest.length) heldAt(onLevels, rest);
+        if (rest.length && Object.keys(on).length) heldAt(onLevels, rest);  // nothing given: the mean
       }
       for (const name of todo) source[name] = Object.keys(on).length ? M.held_labels.coherent : M.held_labels.mean;
       needed = needed.filter((n) => !(n in idx));

@@ -178,8 +178,9 @@ def test_a_discrete_setting_is_held_at_the_nearest_level_and_the_rest_follow_it(
                          speed.max())
     np.testing.assert_allclose(values["speed"], want_speed, rtol=1e-9)
     # nothing given: the level nearest the training mean
-    v0, s0 = held.hold(m, {}, ["screen"])
+    v0, s0 = held.hold(m, {}, ["screen", "speed"])
     assert s0 == held.MEAN and v0["screen"][0] in (1.0, 1.25, 1.5)
+    assert v0["speed"][0] == pytest.approx(speed.mean(), rel=1e-12)  # the others stay at the training mean
     assert abs(v0["screen"][0] - screen.mean()) <= 0.125 + 1e-12
     assert held.nearest_level([1.125], [1.0, 1.25])[0] == 1.0  # a tie takes the lower level
 

@@ -145,12 +145,16 @@ def test_lot_contributions_from_the_assembled_table(chain, table):
 
 def test_porosity_curves_follow_the_chain_of_mean_predictions(chain):
     """The mean curve is granule stage → tablet stage evaluated by hand with
-    each target's predict at the held settings (nothing given: the training means, linkage.decide.held)."""
+    each target's predict at the held settings (nothing given: the training means, the mill screen at the
+    training level nearest its mean; linkage.decide.held)."""
     curves = explain.porosity_curves(chain, n_grid=9, n_draws=300, level=0.9, seed=3)
     lo, hi = chain.training["ranges"]["ribbon_porosity"]
     assert curves.grid[0] == pytest.approx(lo) and curves.grid[-1] == pytest.approx(hi)
     st = chain.training["settings"]
     med = {n: st["settings_mean"][i] for i, n in enumerate(st["settings_names"])}
+    # the mill screen runs at a few levels: held at the level nearest its training mean (linkage.decide.held)
+    levels = np.asarray(st["settings_levels"][st["settings_names"].index("mill_screen_mm")])
+    med["mill_screen_mm"] = float(levels[np.argmin(np.abs(levels - med["mill_screen_mm"]))])
     x = pd.DataFrame({"ribbon_porosity": curves.grid, "mill_screen_mm": med["mill_screen_mm"],
                       "compression_force_kn": med["compression_force_kn"]})
     for name in ("granule_d50_um", "fines_pct"):
