@@ -29,6 +29,8 @@ __all__ = [
     "jackknife_plus_interval",
     "cv_plus_interval",
     "cv_plus_slack",
+    "SPREAD_TEST_LEVEL",
+    "spread_trend_test",
 ]
 
 _EPS = 1e-9  # guards ⌈·⌉ and ⌊·⌋ against binary round-off, e.g. 0.9 * 20
@@ -434,6 +436,32 @@ def cv_plus_guarantee(n: int, n_folds: int, nominal: float) -> dict:
 
 #: largest ratio of the highest to the lowest fitted spread over the levels it was fitted on
 SPREAD_MAX_RATIO = 10.0
+
+#: significance level at which a trend of the absolute residuals with the level is taken as real
+#: (common practice, no source)
+SPREAD_TEST_LEVEL = 0.05
+
+
+def spread_trend_test(level, abs_residuals) -> dict:
+    """Glejser's test of heteroscedasticity (Glejser 1969, "A new test for
+    heteroskedasticity", JASA 64:316-323): least squares of the absolute
+    residuals |rᵢ| on the level zᵢ, and the two-sided t-test of its slope
+    (``scipy.stats.linregress``; n − 2 degrees of freedom). A small p-value
+    says the spread changes with the level; a large one that a spread model
+    fitted to these residuals would follow noise (with 30 lots a fitted
+    log-slope of ±0.2 per SD of the level is common under a constant
+    spread). Returns ``slope`` (per unit of the level) and ``p_value`` (1.0
+    when the level or the residuals do not vary)."""
+    from scipy.stats import linregress
+
+    z = np.asarray(level, dtype=float).ravel()
+    r = np.abs(np.asarray(abs_residuals, dtype=float).ravel())
+    if z.size != r.size or z.size < 3:
+        raise ValueError("spread_trend_test needs at least 3 levels and as many residuals")
+    if not (np.ptp(z) > 0 and np.ptp(r) > 0):
+        return {"slope": 0.0, "p_value": 1.0}
+    fit = linregress(z, r)
+    return {"slope": float(fit.slope), "p_value": float(fit.pvalue)}
 
 
 def fit_spread(level, abs_residuals) -> dict:

@@ -40,8 +40,10 @@ LW_INTERVAL_METHOD = (
 
 INTERVAL_CHOICE_RULE = (
     "CV+ unless locally weighted CV+ brings the worst porosity region closer to the nominal coverage under "
-    "the nested CV (the largest |coverage − nominal| over the thirds of the training range, strictly smaller); "
-    "the same spread model then scales the residuals in the Monte Carlo through the chain"
+    "the nested CV (the largest |coverage − nominal| over the thirds of the training range, strictly smaller) "
+    "and the absolute out-of-fold residuals trend with the level (Glejser 1969, JASA 64:316, slope test at "
+    "p < 0.05), so that no spread model is fitted to noise; the same spread model then scales the residuals in "
+    "the Monte Carlo through the chain"
 )
 
 COVERAGE_METHOD = (

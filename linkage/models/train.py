@@ -38,8 +38,9 @@ from linkage.exceptions import InputError, InsufficientDataError, Problem, Usage
 from linkage.models.candidates import CANDIDATES, CandidateError, tune
 from linkage.models.bootstrap import DEFAULT_REPLICATES, bootstrap_chain
 from linkage.models.chain import ChainSpec
-from linkage.models.conformal import (coverage_by_region, cv_plus_guarantee, cv_plus_interval, fit_spread,
-                                      lw_cv_plus_interval, region_edges, worst_region_gap)
+from linkage.models.conformal import (SPREAD_TEST_LEVEL, coverage_by_region, cv_plus_guarantee, cv_plus_interval,
+                                      fit_spread, lw_cv_plus_interval, region_edges, spread_trend_test,
+                                      worst_region_gap)
 from linkage.models.cv import SIMPLICITY_ORDER, inner_splits, metrics, outer_splits, select_candidate
 from linkage.models.domain import DomainModel
 from linkage.models.forward import forward_check, lot_times
@@ -461,7 +462,7 @@ def _finish_target(plan: _Plan, fold_results: list[dict], full: dict, table: pd.
         full_models_={name: full[name]["model"] for name in usable},
         coverage_by_region=interval["regions"], coverage_region_variable=interval["variable"],
         coverage_guarantee=cv_plus_guarantee(n, len(plan.splits), nominal),
-        interval_choice={k: interval[k] for k in ("method", "rule", "reason", "by_method")},
+        interval_choice={k: interval[k] for k in ("method", "rule", "reason", "by_method", "spread_test")},
         spread=interval["spread"],
     )
 
@@ -479,20 +480,30 @@ def _choose_interval(plan: _Plan, oof_sel: np.ndarray, residuals: np.ndarray, co
                      "worst_region_gap": worst_region_gap(regions, nominal)}
     plain, lw = by["CV+"], by["locally weighted CV+"]
     spread = None
-    use_lw = lw["worst_region_gap"] < plain["worst_region_gap"] - 1e-12
+    trend = spread_trend_test(oof_sel, residuals)
+    closer = lw["worst_region_gap"] < plain["worst_region_gap"] - 1e-12
+    use_lw = closer and trend["p_value"] < SPREAD_TEST_LEVEL
     if use_lw:
         try:
             spread = fit_spread(oof_sel, residuals)
         except ValueError:
             use_lw = False
     method = "locally weighted CV+" if use_lw else "CV+"
+    test = f"Glejser test of a trend of |residual| with the level: p = {trend['p_value']:.3g}"
     if use_lw:
         reason = (f"under nested CV its worst region misses the nominal {nominal:.0%} by "
-                  f"{lw['worst_region_gap']:.1%} against {plain['worst_region_gap']:.1%} for CV+")
+                  f"{lw['worst_region_gap']:.1%} against {plain['worst_region_gap']:.1%} for CV+, and the spread "
+                  f"changes with the level ({test})")
+    elif closer:
+        reason = (f"CV+ kept: the spread does not change detectably with the level ({test} ≥ "
+                  f"{SPREAD_TEST_LEVEL:g}), so a spread model would follow noise (under nested CV the worst region "
+                  f"misses the nominal {nominal:.0%} by {plain['worst_region_gap']:.1%}, locally weighted "
+                  f"{lw['worst_region_gap']:.1%})")
     else:
         reason = (f"CV+ kept: under nested CV the worst region misses the nominal {nominal:.0%} by "
                   f"{plain['worst_region_gap']:.1%} (locally weighted: {lw['worst_region_gap']:.1%})")
     return {"method": method, "rule": INTERVAL_CHOICE_RULE, "reason": reason, "by_method": by,
+            "spread_test": {"method": "Glejser 1969", **trend, "level": SPREAD_TEST_LEVEL},
             "regions": by[method]["regions"], "coverage": by[method]["coverage"], "variable": variable,
             "spread": spread}
 

@@ -11,7 +11,8 @@ from sklearn.linear_model import GammaRegressor
 
 from linkage.models import lean
 from linkage.models.conformal import (clopper_pearson, coverage_by_region, cv_plus_guarantee, cv_plus_interval,
-                                      fit_spread, lw_cv_plus_interval, region_edges)
+                                      SPREAD_TEST_LEVEL, fit_spread, lw_cv_plus_interval, region_edges,
+                                      spread_trend_test)
 
 from .conftest import assembled_table, one_stage
 
@@ -110,6 +111,37 @@ def test_locally_weighted_intervals_cover_in_every_region_where_cv_plus_does_not
     assert np.all(np.abs(lw - 0.9) < 0.03), (plain, lw)
 
 
+def test_glejser_test_is_the_slope_t_test_of_absolute_residuals_on_the_level():
+    """Glejser (1969): |r| regressed on the level, two-sided t-test of the
+    slope with n − 2 degrees of freedom, computed here by hand from the
+    least-squares formulas (Draper & Smith 1998, §3.4: se(b) = s/√Sxx)."""
+    rng = np.random.default_rng(5)
+    z = rng.uniform(0, 1, 40)
+    r = rng.normal(0, 0.1 + 0.3 * z)
+    got = spread_trend_test(z, r)
+    a = np.abs(r)
+    sxx = np.sum((z - z.mean()) ** 2)
+    b = np.sum((z - z.mean()) * (a - a.mean())) / sxx
+    s2 = np.sum((a - a.mean() - b * (z - z.mean())) ** 2) / (z.size - 2)
+    t = b / np.sqrt(s2 / sxx)
+    assert got["slope"] == pytest.approx(b)
+    assert got["p_value"] == pytest.approx(2 * stats.t.sf(abs(t), z.size - 2))
+    assert spread_trend_test(np.ones(5), np.arange(5.0)) == {"slope": 0.0, "p_value": 1.0}
+
+
+def test_glejser_test_holds_its_size_under_a_constant_spread_and_finds_a_real_trend():
+    """Under a constant spread the test rejects in about 5 % of 30-lot sets
+    (its size; Glejser 1969 reports it near nominal for normal errors), where
+    a fitted spread slope would often look sizeable; a spread growing
+    tenfold over the range is found in most sets (power, simulated here)."""
+    rng = np.random.default_rng(11)
+    z = rng.uniform(0, 1, (2000, 30))
+    flat = [spread_trend_test(zi, rng.normal(0, 1, 30))["p_value"] < SPREAD_TEST_LEVEL for zi in z]
+    assert abs(np.mean(flat) - SPREAD_TEST_LEVEL) < 0.015
+    grow = [spread_trend_test(zi, rng.normal(0, 0.1 + 0.9 * zi))["p_value"] < SPREAD_TEST_LEVEL for zi in z[:200]]
+    assert np.mean(grow) > 0.8
+
+
 @pytest.fixture(scope="module")
 def trained():
     from linkage.models.train import train_chain
@@ -140,8 +172,11 @@ def test_train_reports_coverage_by_porosity_third(trained):
     choice = s["interval_choice"]
     by = choice["by_method"]
     lw_better = by["locally weighted CV+"]["worst_region_gap"] < by["CV+"]["worst_region_gap"]
-    assert choice["method"] == ("locally weighted CV+" if lw_better else "CV+")
-    assert (s["spread"] is not None) == lw_better
+    trend = spread_trend_test(t.oof[t.selected].to_numpy(), t.residuals.to_numpy())
+    assert choice["spread_test"]["p_value"] == pytest.approx(trend["p_value"])
+    use_lw = lw_better and trend["p_value"] < SPREAD_TEST_LEVEL
+    assert choice["method"] == ("locally weighted CV+" if use_lw else "CV+")
+    assert (s["spread"] is not None) == use_lw
     assert regions == by[choice["method"]]["regions"] and s["coverage"] == by[choice["method"]]["coverage"]
     for m in by.values():
         assert m["worst_region_gap"] == pytest.approx(max(abs(r["coverage"] - 0.9) for r in m["regions"] if r["n"]))
