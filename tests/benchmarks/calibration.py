@@ -5,6 +5,7 @@ run.
 
     python tests/benchmarks/calibration.py                       # 8 campaigns of 60 lots, 4 of 30 and of 120
     python tests/benchmarks/calibration.py --runs 30:0-3 --out /tmp/c.md
+    python tests/benchmarks/calibration.py --now-only --coverage-only --runs 120:0-7   # intervals only, fast
 
 For each seeded campaign drawn by :func:`linkage.synthetic.make_lots` from
 the window scenario (:class:`linkage.synthetic.Truth`, the default), the
@@ -68,7 +69,7 @@ def _spec():
     return Spec.from_dict({"limits": limits})
 
 
-def campaign(seed: int, n_lots: int, n_fresh: int, labels=("now", "before")) -> dict:
+def campaign(seed: int, n_lots: int, n_fresh: int, labels=("now", "before"), coverage_only: bool = False) -> dict:
     from linkage.assemble import assemble
     from linkage.decide.window import find_window
     from linkage.models.train import train_chain
@@ -83,11 +84,14 @@ def campaign(seed: int, n_lots: int, n_fresh: int, labels=("now", "before")) -> 
         if label not in labels:
             continue
         t0 = time.perf_counter()
-        chain = train_chain(table, seed=0, candidates=cands)
-        w = find_window(chain, spec, settings=dict(WINDOW_SETTINGS), confidence=0.9, n_grid=61, n_draws=4000,
-                        seed=0)
-        p_true = truth.p_pass_all(w.grid, WINDOW_SPEC, WINDOW_SETTINGS["mill_screen_mm"],
-                                  WINDOW_SETTINGS["compression_force_kn"], n_draws=20000, seed=1)
+        if coverage_only:  # the stage intervals need neither the bootstrap nor the window
+            chain = train_chain(table, seed=0, candidates=cands, n_bootstrap=0)
+        else:
+            chain = train_chain(table, seed=0, candidates=cands)
+            w = find_window(chain, spec, settings=dict(WINDOW_SETTINGS), confidence=0.9, n_grid=61, n_draws=4000,
+                            seed=0)
+            p_true = truth.p_pass_all(w.grid, WINDOW_SPEC, WINDOW_SETTINGS["mill_screen_mm"],
+                                      WINDOW_SETTINGS["compression_force_kn"], n_draws=20000, seed=1)
         lo, hi = chain.training["ranges"]["ribbon_porosity"]
         edges = np.linspace(lo, hi, 4)
         cov = {}
@@ -106,16 +110,23 @@ def campaign(seed: int, n_lots: int, n_fresh: int, labels=("now", "before")) -> 
             cov[name] = {"thirds": [float(hit[third == j].mean()) if np.any(third == j) else float("nan")
                                     for j in range(3)],
                          "n": [int(np.sum(third == j)) for j in range(3)],
+                         "hits": [int(np.sum(hit[third == j])) for j in range(3)],
                          "selected": t.selected,
                          "method": (getattr(t, "interval_choice", None) or {}).get("method", "CV+")}
-        out[label] = {"mae": float(np.mean(np.abs(w.p_all - p_true))),
-                      "max_err": float(np.max(np.abs(w.p_all - p_true))),
-                      "window": (w.low.value, w.high.value), "coverage": cov,
-                      "seconds": time.perf_counter() - t0}
+        if coverage_only:
+            out[label] = {"mae": float("nan"), "max_err": float("nan"), "window": None, "coverage": cov,
+                          "seconds": time.perf_counter() - t0}
+        else:
+            out[label] = {"mae": float(np.mean(np.abs(w.p_all - p_true))),
+                          "max_err": float(np.max(np.abs(w.p_all - p_true))),
+                          "window": (w.low.value, w.high.value), "coverage": cov,
+                          "seconds": time.perf_counter() - t0}
     return out
 
 
 def _fmt_window(wdw) -> str:
+    if wdw is None:
+        return "—"
     lo, hi = wdw
     return "none" if lo is None else f"{lo:.3f}–{hi:.3f}"
 
@@ -151,8 +162,10 @@ def report(runs: list[tuple[int, list[dict]]], n_fresh: int, elapsed: float) -> 
 
 
 def _section(n_lots: int, results: list[dict], n_fresh: int) -> list[str]:
-    lines = [
-        f"## {n_lots} lots per campaign", "",
+    lines = [f"## {n_lots} lots per campaign", ""]
+    if all(r["now"]["window"] is None for r in results):  # --coverage-only
+        return lines + _coverage_lines(results, n_fresh)
+    lines += [
         "### P(all pass): point estimate against the truth",
         "",
         "Mean absolute error of `find_window`'s P(all pass) over 61 porosities across the training range "
@@ -174,8 +187,12 @@ def _section(n_lots: int, results: list[dict], n_fresh: int) -> list[str]:
     lines += [f"| **mean** | **{now.mean():.3f}** | {before_mean} | | | | |", "",
               f"Campaigns with MAE ≤ 0.03: now {int(np.sum(now <= 0.03))} of {len(now)}"
               + (f", before {int(np.sum(before <= 0.03))} of {len(before)}." if has_before else
-                 " (the former candidates were not run: --now-only)."), "",
-              "### Coverage of 90 % intervals on fresh lots, by third of the training porosity range", "",
+                 " (the former candidates were not run: --now-only)."), ""]
+    return lines + _coverage_lines(results, n_fresh)
+
+
+def _coverage_lines(results: list[dict], n_fresh: int) -> list[str]:
+    lines = ["### Coverage of 90 % intervals on fresh lots, by third of the training porosity range", "",
               f"{n_fresh} fresh lots per campaign (same truth, another seed), each attribute's stage interval at the "
               "lot's measured inputs; mean over campaigns, with the lowest campaign in brackets "
               "(acceptance: 0.85–0.95 in each third).", "",
@@ -199,13 +216,30 @@ def _section(n_lots: int, results: list[dict], n_fresh: int) -> list[str]:
     inside = np.array(inside)
     held = int(np.sum((inside >= 0.85) & (inside <= 0.95)))
     lines += ["", f"Thirds (attribute × campaign) inside 0.85–0.95 now: {held} of {int(np.sum(np.isfinite(inside)))}.",
-              "",
+              "", "Pooled over the campaigns (now): fresh lots covered / fresh lots in the third, with the 95 % "
+              "Clopper–Pearson interval (`linkage.models.conformal.clopper_pearson`; it treats the pooled lots as "
+              "independent, so it understates the spread between campaigns).", "",
+              "| attribute | low third | middle | high third |", "|---|---|---|---|"]
+    lines += [_pooled_row(results, a) for a in ATTRS if any(a in r["now"]["coverage"] for r in results)]
+    lines += ["",
               "### Selected models (now)", "", "| seed | " + " | ".join(ATTRS) + " |",
               "|---|" + "---|" * len(ATTRS)]
     for r in results:
         lines.append(f"| {r['seed']} | " + " | ".join(r["now"]["coverage"][a]["selected"] if a in r["now"]["coverage"]
                                                       else "-" for a in ATTRS) + " |")
     return lines + [""]
+
+
+def _pooled_row(results: list[dict], a: str) -> str:
+    from linkage.models.conformal import clopper_pearson
+
+    cells = []
+    for j in range(3):
+        k = sum(r["now"]["coverage"][a]["hits"][j] for r in results if a in r["now"]["coverage"])
+        n = sum(r["now"]["coverage"][a]["n"][j] for r in results if a in r["now"]["coverage"])
+        lo, hi = clopper_pearson(k, n)
+        cells.append(f"{k / n:.3f} ({k}/{n}) [{lo:.3f}, {hi:.3f}]" if n else "—")
+    return f"| {a} | " + " | ".join(cells) + " |"
 
 
 def _spec_tuples():
@@ -221,6 +255,8 @@ def main(argv=None) -> int:
     ap.add_argument("--fresh", type=int, default=600, help="fresh lots per campaign for the coverage")
     ap.add_argument("--out", type=Path, default=ROOT / "reports" / "calibration.md")
     ap.add_argument("--now-only", action="store_true", help="skip the former candidates (half the time)")
+    ap.add_argument("--coverage-only", action="store_true",
+                    help="only the coverage of the stage intervals: no bootstrap, no window, no P(all pass)")
     args = ap.parse_args(argv)
     labels = ("now",) if args.now_only else ("now", "before")
     t0 = time.perf_counter()
@@ -229,7 +265,7 @@ def main(argv=None) -> int:
         lots, _, seeds = item.partition(":")
         results = []
         for seed in _seeds(seeds or "0-3"):
-            r = campaign(seed, int(lots), args.fresh, labels)
+            r = campaign(seed, int(lots), args.fresh, labels, args.coverage_only)
             print(f"{lots} lots, seed {seed}: MAE now {r['now']['mae']:.3f}"
                   + (f", before {r['before']['mae']:.3f}" if "before" in r else ""), flush=True)
             results.append(r)
