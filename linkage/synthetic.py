@@ -812,7 +812,8 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
               lot_prefix: str = "LOT", pilot_fraction: float = 0.4, raw_materials: bool = False,
               raw_material_change_at: int | None = None, raw_material_delta: float = -6.0,
               raw_material_attribute: str = "dissolution_pct",
-              settings: Mapping[str, object] | None = None) -> SyntheticLots:
+              settings: Mapping[str, object] | None = None,
+              moisture_porosity_per_pct: float = 0.0) -> SyntheticLots:
     """Draw ``n_lots`` lots from ``truth`` (default :class:`Truth`).
 
     Parameters
@@ -843,6 +844,12 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
         the design's draws, e.g. lots planned by :mod:`linkage.decide.plan`:
         any of the roll settings, ``mill_screen_mm``, ``compression_force_kn``
         and ``compactor``. Every other draw is unchanged.
+    moisture_porosity_per_pct : with ``raw_materials``, a real effect of the
+        blend's moisture on the ribbon: the lot's mean porosity moves by this
+        slope × (``blend_moisture_pct`` − 3.0 %) (0: none; the granule and
+        tablet stages see the moved porosity; the ``_chain`` columns, from the
+        settings alone, leave it out). For tests of material attributes
+        (issue 19); the slope is invented.
 
     Returns
     -------
@@ -893,9 +900,19 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
         moved = fn(shifted)
         return {k: np.where(changed, moved[k], base[k]) for k in base}
 
+    raw: dict[str, np.ndarray] = {}
+    if raw_materials:  # drawn first, in this order, so that their values do not depend on the effect below
+        raw["blend_moisture_pct"] = np.round(r_raw.normal(3.0, 0.4, n), 2)
+        raw["api_d50_um"] = np.round(r_raw.normal(45.0, 4.0, n) + np.where(changed, 15.0, 0.0), 1)
+        raw["lubricant_pct"] = np.round(r_raw.normal(1.0, 0.05, n), 2)
+    elif moisture_porosity_per_pct:
+        raise UsageError("moisture_porosity_per_pct needs raw_materials=True (the blend moisture column)")
+
     # ---- ribbon
     eps_mean = staged(lambda t: {"e": t.porosity_mean(*(s[k] for k in ROLL_SETTINGS),
                                                       compactor=s["compactor"])})["e"]
+    if moisture_porosity_per_pct:
+        eps_mean = eps_mean + float(moisture_porosity_per_pct) * (raw["blend_moisture_pct"] - 3.0)
     eps_lot = eps_mean + truth.porosity_process_sd * r_ribbon.standard_normal(n)
     n_rep = r_ribbon.integers(rmin, rmax + 1, n)
     rows = int(n_rep.sum())
@@ -961,10 +978,7 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
     pilot = s["compactor"] == "pilot"
     process["roll_width_mm"] = np.where(pilot, _ROLLS["pilot"][0], _ROLLS["production"][0])
     process["roll_diameter_mm"] = np.where(pilot, _ROLLS["pilot"][1], _ROLLS["production"][1])
-    if raw_materials:
-        process["blend_moisture_pct"] = np.round(r_raw.normal(3.0, 0.4, n), 2)
-        process["api_d50_um"] = np.round(r_raw.normal(45.0, 4.0, n) + np.where(changed, 15.0, 0.0), 1)
-        process["lubricant_pct"] = np.round(r_raw.normal(1.0, 0.05, n), 2)
+    process.update(raw)
     tables = {
         "process": pd.DataFrame(process),
         "ribbon": pd.DataFrame({
