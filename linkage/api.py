@@ -210,7 +210,7 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
           product: str | None = None, seed: int = 0, coverage: float = 0.9, spec=None,
           dissolution_time_min: float | None = None, n_jobs: int | None = None, backend: str | None = None,
           scheduler: str | None = None, progress: Progress | None = None, group_by: str | None = None,
-          materials: bool = False) -> Trained:
+          materials: bool = True) -> Trained:
     """Train the chain on the lots in the store under cross-validation
     grouped by lot, register it in ``models_dir`` (in service: it becomes
     ``latest``) and log ``train`` in the store's audit trail.
@@ -227,9 +227,13 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
     same. ``group_by`` names a column (a raw-material batch, a campaign) or
     ``month``: lots sharing its value stay together in every fold and in the
     conformal intervals (recorded with the model; see
-    :mod:`linkage.models.grouping`). ``materials``: fit the chain with and
-    without the table's extra numeric columns and keep them where grouped CV
-    says they help (:mod:`linkage.models.materials`; three fits).
+    :mod:`linkage.models.grouping`). ``materials`` (default True; issue 19):
+    where the process table carries extra numeric columns (raw-material
+    attributes), try each as an input of each attribute, paired in the same
+    grouped folds, and keep it only where the paired test says it helps
+    (:mod:`linkage.models.materials`; one candidate refitted per attribute
+    and column, the chain refitted only when a column is kept); False trains
+    the chain as given.
     """
     from linkage.assemble import assemble as assemble_table
     from linkage.assemble import check_dissolution_time

@@ -151,18 +151,30 @@ def _num(v, width=9, fmt=".4g", sign="") -> str:
 
 
 def materials_lines(m: dict | None) -> list[str]:
-    """The comparison with and without the extra material columns (``train --materials``)."""
+    """The paired comparison with and without each extra material column (issue 19; ``train``'s default)."""
     if not m:
         return []
     if not m.get("columns"):
         return ["", f"Material columns: none used ({m.get('reason', 'none found')})."]
-    kept = m["kept_for"]
-    lines = ["", f"Material columns {', '.join(m['columns'])}: tried as inputs of every stage; kept for "
-                 + (", ".join(kept) if kept else "no attribute") + " (grouped CV RMSE better by more than one SE)."]
+    kept = m.get("kept") or {t: [] for t in m["kept_for"]}
+    said = "; ".join(f"{t}: {', '.join(c)}" for t, c in kept.items()) if kept else "none"
+    lines = ["", f"Material columns {', '.join(m['columns'])}: each tried alone as an input of every attribute "
+                 "(the selected candidate and linear_select refitted in the same grouped folds); kept where the "
+                 f"paired one-sided t-test on the lots' squared errors gives p < {m.get('alpha', 0.05):g} / refits "
+                 f"tried. Kept: {said}."]
     for t, r in m["targets"].items():
-        lines.append(f"  {t}: CV RMSE {r['without']['rmse']:.4g} (SE {r['without']['rmse_se']:.2g}, "
-                     f"{r['without']['selected']}) without, {r['with']['rmse']:.4g} ({r['with']['selected']}) with: "
-                     + ("kept" if r["kept"] else "not kept"))
+        w = r["without"]
+        lines.append(f"  {t}: CV RMSE {w['rmse']:.4g} (SE {w['rmse_se']:.2g}, {w['selected']}) without")
+        for c, v in (r.get("columns") or {}).items():
+            if "rmse_with" not in v:
+                lines.append(f"    {c}: not tried ({v.get('reason', '')})")
+                continue
+            lines.append(f"    {c}: {v['rmse_with']:.4g} with ({v['candidate']}), paired p = "
+                         f"{v['p']:.2g} on {v['n_lots']} lots: " + ("kept" if v["kept"] else "not kept"))
+        if r.get("final"):
+            f = r["final"]
+            lines.append(f"    refitted with {', '.join(r['kept_columns'])} in stage {f['stage']}: "
+                         f"CV RMSE {f['rmse']:.4g} ({f['selected']})")
     return lines
 
 

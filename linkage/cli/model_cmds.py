@@ -45,10 +45,11 @@ format_train = train_text
               help="Keep the lots that share this column's value (a raw-material batch, a campaign; or 'month' of "
                    "manufactured_at) together in every cross-validation fold and in the conformal intervals; "
                    "recorded with the model.  [default: each lot on its own]")
-@click.option("--materials", is_flag=True,
-              help="Fit the chain with and without the process table's extra numeric columns (raw-material "
-                   "attributes) as stage inputs, and keep them in a stage only where grouped CV says they help "
-                   "(three fits; the comparison is printed and recorded).")
+@click.option("--materials/--no-materials", default=True, show_default=True,
+              help="Try the process table's extra numeric columns (raw-material attributes) as inputs of each "
+                   "attribute, refitting its selected candidate in the same grouped folds, and keep a column only "
+                   "where the paired test says it helps (the comparison is printed and recorded). The default "
+                   "since issue 19 (--materials is still accepted); --no-materials trains the chain as given.")
 @json_option
 @handle_errors
 def train(store, models_dir, chain_path, product, seed, coverage, spec_path, dissolution_time_min, n_jobs, backend,

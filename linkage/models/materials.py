@@ -1,21 +1,41 @@
 """Material attributes as inputs, kept only where grouped CV says they help
-(issue 19 item 4; ``train --materials``).
+(issue 19 item 4; on by default in ``train``, ``--no-materials`` to opt out).
 
 The process table may carry extra numeric columns the template does not
 name: raw-material attributes such as blend moisture or the drug
 substance's particle size. They are stored but no stage uses them unless a
-chain file names them. With ``materials=True`` the chain is fitted twice,
-without them and with them as inputs of **every stage** (the blend's
-properties can act on compaction, on milling and on tableting; which ones do
-is left to the data), under the same grouped CV, and an attribute keeps them
-only where the comparison says they help (:data:`RULE`). The extra columns
-are tried as one set; within it, the candidates that select inputs
-(``linear_select`` and the physics forms) choose among them. The chain with the kept
-inputs is then fitted as usual; the comparison is recorded in the model
-(``training.materials``).
+chain file names them, or this comparison keeps them.
+
+**Where they are tried** (:data:`WHERE`): every attribute of every stage. A
+property of the blend goes through the whole process, so each can plausibly
+act on compaction (moisture plasticises the powder), on milling (a
+harder or wetter ribbon breaks differently) and on tableting and release
+(the drug substance's particle size, the lubricant); which ones do is left
+to the data.
+
+**How it stays cheap.** The chain is fitted once without them, as usual.
+Then, per attribute and per column, at most two candidates are refitted
+with the column added to the stage's inputs, inside the *same* outer folds
+(the lots' fold numbers of the fit without), tuned by the same inner grouped
+CV: the attribute's selected candidate where it takes inputs (not ``mean``
+or the fixed-input physics forms), and ``linear_select``, whose inner
+best-subset selection lets the column in only where it helps (the selected
+candidate alone can miss a column: on a campaign where blend moisture moved
+ribbon porosity, ``log_linear`` had been selected without it and gained
+little from it, while ``linear_select`` with it cut the CV RMSE by a third).
+So each lot has an out-of-fold error without the column and one with it,
+from the same splits, and the comparison is paired (:data:`RULE`). Only when some
+attribute keeps a column is the chain fitted again, with the kept columns as
+inputs of the attributes that keep them (:func:`with_columns_by_target`);
+otherwise the fit without is the model, its bootstrap drawn once after the
+comparison (byte for byte the model ``train`` gives without the comparison).
+The comparison is recorded in the model (``training.materials``) and shown
+by ``train``.
 """
 
 from __future__ import annotations
+
+import math
 
 import numpy as np
 import pandas as pd
@@ -23,13 +43,39 @@ import pandas as pd
 from linkage.models.chain import ChainSpec, StageSpec
 from linkage.schema import ASSEMBLED, TABLES
 
-__all__ = ["RULE", "extra_columns", "with_columns", "with_columns_for", "compare_targets", "train_with_materials"]
+__all__ = ["RULE", "WHERE", "ALPHA", "extra_columns", "with_columns", "with_columns_for", "with_columns_by_target",
+           "paired_test", "compare_columns", "train_with_materials"]
 
-RULE = ("an attribute keeps the extra columns as inputs when its selected model's grouped-CV RMSE with them is "
-        "lower than without them by more than one standard error of the RMSE without (the one-standard-error rule "
-        "of the model selection: Breiman et al. 1984, §3.4.3; Hastie, Tibshirani & Friedman 2009, §7.10); where "
-        "only some attributes of a stage keep them, those move to a stage of their own, '<stage>_materials', "
-        "right after it, with the stage's inputs and the extra columns")
+#: family-wise level of the paired test, per attribute (over the columns tried for it)
+ALPHA = 0.05
+
+WHERE = ("every attribute of every stage: a raw-material property of the blend goes through the whole process and "
+         "can act on compaction, milling, tableting and release; which ones it acts on is left to the data")
+
+RULE = ("each column is tried alone for each attribute: the attribute's selected candidate (where it takes inputs; "
+        "not mean or the fixed-input physics forms) and linear_select (least squares on inputs selected by inner "
+        "CV) are refitted with the column added to the stage's inputs, in the same outer grouped folds, and the "
+        "lots' out-of-fold squared errors with and without it are compared pair by pair. A refit keeps the column "
+        "for the attribute when the one-sided paired t-test on the differences of squared errors (the "
+        "Diebold–Mariano test with the small-sample correction of Harvey, Leybourne & Newbold 1997, Int. J. "
+        "Forecasting 13:281, which for one-step errors is the paired t-test with n − 1 degrees of freedom; "
+        "Diebold & Mariano 1995, J. Bus. Econ. Stat. 13:253) rejects 'no better' at level "
+        f"{ALPHA:g} divided by the number of refits tried for the attribute (Bonferroni), both against the "
+        "selected model without the column and against the same candidate without it. Caveat: out-of-fold errors "
+        "share training lots, so they are not independent and the variance of their mean has no unbiased "
+        "estimate (Bengio & Grandvalet 2004, J. Mach. Learn. Res. 5:1089); the test is approximate. The chain is "
+        "then refitted with each attribute's kept columns as inputs; attributes of a stage that keep other "
+        "columns than the rest get a stage of their own, '<stage>_materials' (then '_2', ...), right after it")
+
+
+#: relative size (to the mean squared error without) below which a difference of squared errors is round-off:
+#: a refit whose inner selection leaves the column out differs by about 1e-9 of it (the numerical ridge of the
+#: link fits scales with the number of inputs); no real effect is that small
+ROUNDING = 1e-6
+
+#: candidates that use fixed inputs (or none): the comparison refits linear_select for them
+_FIXED_INPUTS = ("mean", "rd_baseline", "johanson_baseline")
+_STAND_IN = "linear_select"
 
 
 def extra_columns(table: pd.DataFrame, chain: ChainSpec) -> list[str]:
@@ -63,62 +109,218 @@ def with_columns(chain: ChainSpec, columns: list[str], stages: list[str] | None 
 
 def with_columns_for(chain: ChainSpec, columns: list[str], targets: list[str]) -> ChainSpec:
     """The chain in which ``targets`` (and only they) also take ``columns`` as
-    inputs: a stage whose every attribute takes them gains them; a stage where
-    only some do is split, those moving to ``<stage>_materials`` right after it."""
+    inputs (:func:`with_columns_by_target` with the same columns for each)."""
+    return with_columns_by_target(chain, {t: list(columns) for t in targets})
+
+
+def with_columns_by_target(chain: ChainSpec, kept: dict[str, list[str]]) -> ChainSpec:
+    """The chain in which each attribute of ``kept`` also takes its columns
+    as inputs. A stage whose every attribute takes the same columns gains
+    them; otherwise the attributes that take none stay in the stage, and each
+    other set of columns gets a stage of its own right after it,
+    ``<stage>_materials`` (then ``<stage>_materials_2``, ...), with the
+    stage's inputs and those columns."""
     out = []
     for st in chain.stages:
         mono = {t: dict(d) for t, d in st.monotone.items()}
-        keep = [t for t in st.targets if t in targets]
-        extra = [c for c in columns if c not in st.inputs]
-        if not keep:
-            out.append(StageSpec(st.name, list(st.inputs), list(st.targets), mono))
-        elif len(keep) == len(st.targets):
-            out.append(StageSpec(st.name, list(st.inputs) + extra, list(st.targets), mono))
-        else:
-            rest = [t for t in st.targets if t not in keep]
-            out.append(StageSpec(st.name, list(st.inputs), rest, {t: mono[t] for t in rest if t in mono}))
-            out.append(StageSpec(f"{st.name}_materials", list(st.inputs) + extra, keep,
-                                 {t: mono[t] for t in keep if t in mono}))
+        sets: dict[tuple[str, ...], list[str]] = {}
+        for t in st.targets:
+            extra = tuple(c for c in kept.get(t, []) if c not in st.inputs)
+            sets.setdefault(extra, []).append(t)
+        order = sorted(sets, key=lambda k: (k != (), list(sets).index(k)))  # the stage's own inputs first
+        for i, extra in enumerate(order):
+            targets = sets[extra]
+            name = st.name if i == 0 else f"{st.name}_materials" + (f"_{i}" if i > 1 else "")
+            out.append(StageSpec(name, list(st.inputs) + list(extra), targets,
+                                 {t: mono[t] for t in targets if t in mono}))
     return ChainSpec(out, source=chain.source)
 
 
-def compare_targets(without, with_, columns: list[str]) -> dict:
-    """Per attribute: the selected model and CV RMSE without and with the
-    columns, and whether it keeps them by :data:`RULE`."""
-    rows = {}
-    for name, t in without.targets.items():
-        u = with_.targets.get(name)
-        if u is None:
+def paired_test(sq_without, sq_with) -> dict:
+    """One-sided paired test that the squared errors with the column are
+    smaller on average than without: d = e²(without) − e²(with) per lot,
+    t = mean(d) / (sd(d)/√n) with sd of n − 1 degrees of freedom, p =
+    P(T > t) for T ~ t(n − 1) (:data:`RULE`; scipy.stats.ttest_rel with
+    ``alternative="greater"`` gives the same). Differences within
+    :data:`ROUNDING` of the mean squared error without are round-off (a
+    refit that leaves the column out gives the same model up to the last
+    digits) and count as 0; ``p`` is 1 where every difference is 0."""
+    from scipy import stats
+
+    a, b = np.asarray(sq_without, float), np.asarray(sq_with, float)
+    d = a - b
+    d[np.abs(d) <= ROUNDING * max(float(np.mean(a)) if a.size else 0.0, np.finfo(float).tiny)] = 0.0
+    n = int(d.size)
+    mean = float(np.mean(d)) if n else 0.0
+    sd = float(np.std(d, ddof=1)) if n > 1 else 0.0
+    if n < 2 or sd == 0.0:
+        t = 0.0 if mean == 0.0 or n < 2 else math.copysign(math.inf, mean)
+    else:
+        t = mean / (sd / math.sqrt(n))
+    p = 1.0 if n < 2 or (sd == 0.0 and mean == 0.0) else float(stats.t.sf(t, n - 1))
+    return {"n": n, "mean_difference": mean, "se": sd / math.sqrt(n) if n else None, "t": t, "p": p}
+
+
+def _rmse(e) -> float:
+    return float(np.sqrt(np.mean(np.square(e))))
+
+
+def compare_columns(fitted, data: pd.DataFrame, columns: list[str], *, seed: int = 0, nominal_coverage: float = 0.9,
+                    n_jobs: int = 1, backend: str | None = None, progress=None) -> dict:
+    """The paired comparison of :data:`RULE` for every attribute of the chain
+    ``fitted`` without the columns. ``data``: the prepared training table
+    with the columns. Returns the record stored as ``training.materials``
+    (``columns``, ``where``, ``rule``, ``alpha``, ``targets``, ``kept_for``,
+    ``kept``, ``refits``)."""
+    from linkage.models.cv import metrics
+    from linkage.models.train import _Job, _run_all
+
+    groups = fitted.training.get("groups")
+    monotone = {t: dict(st.monotone.get(t, {})) for st in fitted.chain.stages for t in st.targets}
+    by_lot = data.set_index("lot")
+    jobs: list[_Job] = []
+    work = []  # (target, column, candidate, lots with the column, test rows per fold)
+    rows: dict[str, dict] = {}
+    for name, t in fitted.targets.items():
+        sel = t.selected
+        r0 = t.candidates[sel]
+        row = {"stage": t.stage, "kept": False, "kept_columns": [],
+               "without": {"selected": sel, "rmse": float(r0["rmse"]), "rmse_se": float(r0["rmse_se"]),
+                           "n_lots": int(t.n_lots)},
+               "with": None, "columns": {}}
+        rows[name] = row
+        lots = np.array([str(v) for v in t.lots], dtype=object)
+        y = t.oof["observed"].to_numpy(float)
+        fold = np.array([int(t.cv["folds"][lot]) for lot in lots])
+        for c in columns:
+            if c in t.inputs:
+                row["columns"][c] = {"kept": False, "reason": "already an input of the stage"}
+                continue
+            rec = row["columns"][c] = {"kept": False, "by_candidate": {}}
+            x = by_lot.loc[lots, c].to_numpy(float)
+            have = np.isfinite(x)
+            X = np.column_stack([by_lot.loc[lots, t.inputs].to_numpy(float), x])[have]
+            yy, ll, ff = y[have], lots[have], fold[have]
+            g = ll if groups is None else np.array([groups[v] for v in ll], dtype=object)
+            for cand in _with_candidates(sel):
+                why = _cannot_pair(t, cand, list(t.inputs) + [c], X, yy)
+                if why is not None:
+                    rec["by_candidate"][cand] = {"reason": why}
+                    continue
+                tests = []
+                for f in sorted(set(ff.tolist())):
+                    tr, te = np.flatnonzero(ff != f), np.flatnonzero(ff == f)
+                    jobs.append(_Job(len(work), f, X[tr], yy[tr], g[tr], X[te], [cand], list(t.inputs) + [c],
+                                     monotone[name], seed, 1 - nominal_coverage))
+                    tests.append(te)
+                work.append((name, c, cand, have, tests))
+    results = _run_all(jobs, n_jobs, progress, backend) if jobs else []
+    by_work: dict[int, list] = {}
+    for job, res in zip(jobs, results):
+        by_work.setdefault(job.plan, []).append(res)
+    for i, (name, c, cand, have, tests) in enumerate(work):
+        t, rec = fitted.targets[name], rows[name]["columns"][c]
+        res = [r[cand] for r in by_work[i]]
+        failed = next((r["error"] for r in res if "error" in r), None)
+        if failed is not None:
+            rec["by_candidate"][cand] = {"reason": f"{cand} with {c} failed: {failed}"}
             continue
-        r0, se0 = float(t.candidates[t.selected]["rmse"]), float(t.candidates[t.selected]["rmse_se"])
-        r1 = float(u.candidates[u.selected]["rmse"])
-        rows[name] = {"stage": t.stage, "kept": bool(r1 < r0 - se0),
-                      "without": {"selected": t.selected, "rmse": r0, "rmse_se": se0, "n_lots": t.n_lots},
-                      "with": {"selected": u.selected, "rmse": r1,
-                               "rmse_se": float(u.candidates[u.selected]["rmse_se"]), "n_lots": u.n_lots}}
-    return {"columns": list(columns), "rule": RULE, "targets": rows,
-            "kept_for": [t for t, v in rows.items() if v["kept"]]}
+        y = t.oof["observed"].to_numpy(float)[have]
+        pred = np.empty(len(y))
+        for te, r in zip(tests, res):
+            pred[te] = r["pred"]
+        level = ALPHA / sum(1 for w in work if w[0] == name)  # Bonferroni over the (column, candidate) pairs
+        e_with = pred - y
+        e_sel = t.oof[t.selected].to_numpy(float)[have] - y
+        m = metrics(y, pred)
+        one = {"n_lots": int(len(y)), "rmse_with": m["rmse"], "rmse_se_with": float(m["rmse_se"]),
+               "rmse_without": _rmse(e_sel), "level": level, "vs_selected": paired_test(e_sel**2, e_with**2)}
+        tests_ = [one["vs_selected"]]
+        if cand != t.selected:
+            e_c = t.oof[cand].to_numpy(float)[have] - y
+            one["vs_candidate_without"] = {**paired_test(e_c**2, e_with**2), "rmse_without": _rmse(e_c)}
+            tests_.append(one["vs_candidate_without"])
+        one["kept"] = all(v["mean_difference"] > 0 and v["p"] < level for v in tests_)
+        rec["by_candidate"][cand] = one
+    kept: dict[str, list[str]] = {}
+    for name, row in rows.items():
+        best_of = {}
+        for c, rec in row["columns"].items():
+            tried = {k: v for k, v in rec.get("by_candidate", {}).items() if "rmse_with" in v}
+            if not tried:
+                if "reason" not in rec:
+                    rec["reason"] = "; ".join(f"{k}: {v['reason']}" for k, v in rec["by_candidate"].items())
+                continue
+            passing = [k for k in tried if tried[k]["kept"]]
+            best = min(passing or tried, key=lambda k: tried[k]["rmse_with"])
+            b = tried[best]
+            rec.update(candidate=best, n_lots=b["n_lots"], rmse_with=b["rmse_with"], rmse_se_with=b["rmse_se_with"],
+                       rmse_without=b["rmse_without"], p=b["vs_selected"]["p"], kept=bool(passing))
+            best_of[c] = rec
+        if best_of:
+            c = min(best_of, key=lambda k: best_of[k]["rmse_with"])
+            b = best_of[c]
+            row["with"] = {"selected": b["candidate"], "rmse": b["rmse_with"], "rmse_se": b["rmse_se_with"],
+                           "n_lots": b["n_lots"], "column": c}
+        row["kept_columns"] = [c for c in columns if row["columns"].get(c, {}).get("kept")]
+        row["kept"] = bool(row["kept_columns"])
+        if row["kept"]:
+            kept[name] = row["kept_columns"]
+    return {"columns": list(columns), "where": WHERE, "rule": RULE, "alpha": ALPHA, "targets": rows,
+            "kept_for": list(kept), "kept": kept, "refits": len(jobs)}
+
+
+def _with_candidates(selected: str) -> list[str]:
+    """The candidates refitted with a column: the selected one where it takes
+    any inputs, and :data:`_STAND_IN` (the input-selecting least squares)."""
+    return ([] if selected in _FIXED_INPUTS else [selected]) + ([_STAND_IN] if selected != _STAND_IN else [])
+
+
+def _cannot_pair(t, cand: str, inputs: list[str], X: np.ndarray, y: np.ndarray) -> str | None:
+    """Why ``cand`` cannot be compared with and without the column (None when it can)."""
+    from linkage.models.candidates import CANDIDATES
+
+    if cand != t.selected and cand not in t.oof.columns:
+        return (f"{cand} was not fitted without the column ({t.unavailable.get(cand, 'not tried')}), so there is "
+                "nothing to pair with")
+    if not len(y):
+        return "no lot has the column"
+    return CANDIDATES[cand].not_applicable(inputs, X, y)
 
 
 def train_with_materials(table: pd.DataFrame, chain: ChainSpec | None = None, **kwargs):
     """:func:`linkage.models.train.train_chain` with the comparison of the
-    module docstring; ``kwargs`` go to every fit (the exploratory two without
-    bootstrap replicates). The returned chain's ``training["materials"]``
-    holds the comparison (``columns`` empty, with ``reason``, when the table
-    has none)."""
-    from linkage.models.train import train_chain
+    module docstring; ``kwargs`` go to ``train_chain``. The returned chain's
+    ``training["materials"]`` holds the comparison (``columns`` empty, with
+    ``reason``, when the table has none)."""
+    from linkage.models.bootstrap import DEFAULT_REPLICATES, bootstrap_chain
+    from linkage.models.train import _prepare, train_chain
 
     chain = chain if chain is not None else ChainSpec.default()
     columns = extra_columns(table, chain)
     if not columns:
         fitted = train_chain(table, chain, **kwargs)
-        fitted.training["materials"] = {"columns": [], "reason": "the table has no extra numeric column", "rule": RULE}
+        fitted.training["materials"] = {"columns": [], "reason": "the table has no extra numeric column",
+                                        "where": WHERE, "rule": RULE}
         return fitted
-    explore = {**kwargs, "n_bootstrap": 0, "progress": None}
-    without = train_chain(table, chain, **explore)
-    with_ = train_chain(table, with_columns(chain, columns), **explore)
-    comparison = compare_targets(without, with_, columns)
-    final_chain = with_columns_for(chain, columns, comparison["kept_for"]) if comparison["kept_for"] else chain
-    fitted = train_chain(table, final_chain, **kwargs)
+    n_bootstrap = kwargs.pop("n_bootstrap", DEFAULT_REPLICATES)
+    without = train_chain(table, chain, n_bootstrap=0, **kwargs)
+    data, _ = _prepare(table, with_columns(chain, columns))
+    comparison = compare_columns(
+        without, data, columns, seed=kwargs.get("seed", 0), nominal_coverage=kwargs.get("nominal_coverage", 0.9),
+        n_jobs=kwargs.get("n_jobs", 1), backend=kwargs.get("backend"), progress=kwargs.get("progress"))
+    if comparison["kept"]:
+        fitted = train_chain(table, with_columns_by_target(chain, comparison["kept"]), n_bootstrap=n_bootstrap,
+                             **kwargs)
+        for name, row in comparison["targets"].items():
+            t = fitted.targets.get(name)
+            if row["kept"] and t is not None:
+                row["final"] = {"selected": t.selected, "rmse": float(t.candidates[t.selected]["rmse"]),
+                                "rmse_se": float(t.candidates[t.selected]["rmse_se"]), "stage": t.stage,
+                                "inputs": list(t.inputs)}
+    else:
+        fitted = without
+        base, _ = _prepare(table, chain)
+        fitted.bootstrap = bootstrap_chain(fitted, base, n_replicates=n_bootstrap, seed=kwargs.get("seed", 0))
     fitted.training["materials"] = comparison
     return fitted
