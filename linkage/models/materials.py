@@ -214,7 +214,7 @@ def compare_columns(fitted, data: pd.DataFrame, columns: list[str], *, seed: int
                                      monotone[name], seed, 1 - nominal_coverage))
                     tests.append(te)
                 work.append((name, c, cand, have, tests))
-    results = _run_all(jobs, n_jobs, progress, backend) if jobs else []
+    results = _run_all(jobs, n_jobs, progress, backend, run=_refit) if jobs else []
     by_work: dict[int, list] = {}
     for job, res in zip(jobs, results):
         by_work.setdefault(job.plan, []).append(res)
@@ -268,6 +268,35 @@ def compare_columns(fitted, data: pd.DataFrame, columns: list[str], *, seed: int
             kept[name] = row["kept_columns"]
     return {"columns": list(columns), "where": WHERE, "rule": RULE, "alpha": ALPHA, "targets": rows,
             "kept_for": list(kept), "kept": kept, "refits": len(jobs)}
+
+
+def _refit(job) -> dict:
+    """One outer fold of one refit: the candidate tuned by the inner grouped
+    CV of :func:`linkage.models.train._run_job`, fitted on the fold's
+    training lots and its predictions for the held-out lots (no intervals:
+    the comparison needs the errors only)."""
+    from threadpoolctl import threadpool_limits
+
+    from linkage.exceptions import InsufficientDataError
+    from linkage.models.candidates import CANDIDATES, CandidateError, tune
+    from linkage.models.cv import inner_splits
+
+    out = {}
+    with threadpool_limits(limits=1):
+        for name in job.candidates:
+            spec = CANDIDATES[name]
+            try:
+                tr = tune(spec, job.X_train, job.y_train, job.lots_train, inputs=job.inputs, monotone=job.monotone,
+                          seed=job.seed, splits=inner_splits(job.lots_train))
+                est = spec.build(tr.params, job.inputs, n=len(job.y_train), monotone=job.monotone,
+                                 seed=job.seed).fit(job.X_train, job.y_train)
+                pred = np.asarray(est.predict(job.X_test), float)
+                if not np.all(np.isfinite(pred)):
+                    raise CandidateError("non-finite out-of-fold prediction")
+                out[name] = {"pred": pred, "params": tr.params}
+            except (CandidateError, InsufficientDataError, np.linalg.LinAlgError) as exc:
+                out[name] = {"error": f"{exc} (in outer fold {job.fold + 1})"}
+    return out
 
 
 def _with_candidates(selected: str) -> list[str]:

@@ -334,13 +334,15 @@ def _jobs(plans: list[_Plan], seed: int, alpha: float) -> list[_Job]:
     return jobs
 
 
-def _run_all(jobs: list[_Job], n_jobs: int, progress, backend: str | None = None) -> list[dict]:
+def _run_all(jobs: list[_Job], n_jobs: int, progress, backend: str | None = None, run=None) -> list[dict]:
+    """Every job through ``run`` (default :func:`_run_job`), in job order."""
+    run = _run_job if run is None else run
     total = len(jobs)
     if progress is not None:
         progress("cross-validating", 0, total)
     results = []
     if n_jobs == 1 and backend is None:
-        for done, res in enumerate(map(_run_job, jobs), start=1):
+        for done, res in enumerate(map(run, jobs), start=1):
             results.append(res)
             if progress is not None:
                 progress("cross-validating", done, total)
@@ -354,7 +356,7 @@ def _run_all(jobs: list[_Job], n_jobs: int, progress, backend: str | None = None
     threads = backend == "threading"
     with (parallel_config(backend=backend) if backend is not None else contextlib.nullcontext(),
           threadpool_limits(limits=1) if threads else contextlib.nullcontext()):
-        stream = Parallel(n_jobs=n_jobs, return_as="generator")(delayed(_run_job)(j) for j in jobs)
+        stream = Parallel(n_jobs=n_jobs, return_as="generator")(delayed(run)(j) for j in jobs)
         for done, res in enumerate(stream, start=1):  # in job order, whatever the order they finish in
             results.append(res)
             if progress is not None:
