@@ -28,7 +28,8 @@ from the same splits, and the comparison is paired (:data:`RULE`). Only when som
 attribute keeps a column is the chain fitted again, with the kept columns as
 inputs of the attributes that keep them (:func:`with_columns_by_target`);
 otherwise the fit without is the model, its bootstrap drawn once after the
-comparison (byte for byte the model ``train`` gives without the comparison).
+comparison (the CV results, fitted models and replicates ``train`` gives
+without the comparison).
 The comparison is recorded in the model (``training.materials``) and shown
 by ``train``.
 """
