@@ -231,7 +231,7 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
     where the process table carries extra numeric columns (raw-material
     attributes), try each as an input of each attribute, paired in the same
     grouped folds, and keep it only where the paired test says it helps
-    (:mod:`linkage.models.materials`; one candidate refitted per attribute
+    (:mod:`linkage.models.materials`; at most two candidates refitted per attribute
     and column, the chain refitted only when a column is kept); False trains
     the chain as given.
     """
