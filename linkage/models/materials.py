@@ -142,7 +142,8 @@ def paired_test(sq_without, sq_with) -> dict:
     smaller on average than without: d = e²(without) − e²(with) per lot,
     t = mean(d) / (sd(d)/√n) with sd of n − 1 degrees of freedom, p =
     P(T > t) for T ~ t(n − 1) (:data:`RULE`; scipy.stats.ttest_rel with
-    ``alternative="greater"`` gives the same). Differences within
+    ``alternative="greater"`` gives the same; ``t`` is None where every
+    difference is the same non-zero number). Differences within
     :data:`ROUNDING` of the mean squared error without are round-off (a
     refit that leaves the column out gives the same model up to the last
     digits) and count as 0; ``p`` is 1 where every difference is 0."""
@@ -154,11 +155,13 @@ def paired_test(sq_without, sq_with) -> dict:
     n = int(d.size)
     mean = float(np.mean(d)) if n else 0.0
     sd = float(np.std(d, ddof=1)) if n > 1 else 0.0
-    if n < 2 or sd == 0.0:
-        t = 0.0 if mean == 0.0 or n < 2 else math.copysign(math.inf, mean)
+    if n < 2 or (sd == 0.0 and mean == 0.0):
+        t, p = 0.0, 1.0
+    elif sd == 0.0:  # every lot's difference the same, not 0: no spread to scale by (JSON has no infinity)
+        t, p = None, (0.0 if mean > 0 else 1.0)
     else:
         t = mean / (sd / math.sqrt(n))
-    p = 1.0 if n < 2 or (sd == 0.0 and mean == 0.0) else float(stats.t.sf(t, n - 1))
+        p = float(stats.t.sf(t, n - 1))
     return {"n": n, "mean_difference": mean, "se": sd / math.sqrt(n) if n else None, "t": t, "p": p}
 
 
