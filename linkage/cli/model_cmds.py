@@ -46,10 +46,11 @@ format_train = train_text
                    "manufactured_at) together in every cross-validation fold and in the conformal intervals; "
                    "recorded with the model.  [default: each lot on its own]")
 @click.option("--materials/--no-materials", default=True, show_default=True,
-              help="Try the process table's extra numeric columns (raw-material attributes) as inputs of each "
-                   "attribute, refitting its selected candidate in the same grouped folds, and keep a column only "
-                   "where the paired test says it helps (the comparison is printed and recorded). The default "
-                   "since issue 19 (--materials is still accepted); --no-materials trains the chain as given.")
+              help="Try each extra numeric column of the process table (raw-material attributes) as an input "
+                   "of each attribute, refitting its selected candidate and linear_select in the same grouped "
+                   "folds, and keep a column only where a paired test says it helps (the comparison is printed and "
+                   "recorded; the chain is refitted only when a column is kept). The default since issue 19 "
+                   "(--materials is still accepted); --no-materials trains the chain as given.")
 @json_option
 @handle_errors
 def train(store, models_dir, chain_path, product, seed, coverage, spec_path, dissolution_time_min, n_jobs, backend,
