@@ -65,6 +65,7 @@ def test_without_extra_columns_the_chain_is_trained_once_and_says_so():
         fitted.training["materials"]["reason"]
 
 
+@pytest.mark.slow
 def test_when_nothing_is_kept_the_model_is_the_one_train_gives_without_the_comparison():
     from linkage.models.train import train_chain
 
