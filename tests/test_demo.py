@@ -35,6 +35,11 @@ def test_demo_writes_every_output(tmp_path):
     assert "<script" not in report and report.count("<img") >= 10
     # the design-space map and the acceptable ranges (issue 16 item 5)
     assert '<h2 id="space">' in report and "Acceptable ranges" in report and "Suggested set point" in report
+    # the raw-material columns move nothing in the demo's truth: train tries each and keeps none (issue 19 item 4)
+    from linkage.models import registry
+
+    materials = registry.load(out / "models", "latest").training["materials"]
+    assert materials["columns"] == ["blend_moisture_pct", "api_d50_um", "lubricant_pct"] and materials["kept"] == {}
     # the re-measured lot was ingested as a second revision
     from linkage.store import LotStore
 
