@@ -14,11 +14,9 @@ import sys
 import numpy as np
 import pytest
 
-from linkage.assemble import assemble
 from linkage.decide.whatif import predict_whatif
 from linkage.models import registry
-from linkage.models.materials import train_with_materials
-from linkage.synthetic import WINDOW_SPEC, make_lots, spec_toml
+from linkage.synthetic import WINDOW_SPEC
 
 from .test_whatif_lean import _PROBE, _without_time
 
@@ -27,16 +25,9 @@ SETTINGS = ("roll_force_kn_per_cm", "roll_gap_mm", "roll_speed_rpm", "screw_spee
 
 
 @pytest.fixture(scope="module")
-def moist(tmp_path_factory):
-    """A campaign whose blend moisture moves ribbon porosity (-0.03 per %), trained with the comparison."""
-    table = assemble(make_lots(48, seed=2, raw_materials=True, moisture_porosity_per_pct=-0.03).tables)
-    chain = train_with_materials(table, seed=0, candidates=["mean", "log_linear", "linear_select"], n_bootstrap=20)
-    assert chain.training["materials"]["kept"].get("ribbon_porosity") == ["blend_moisture_pct"]
-    folder = tmp_path_factory.mktemp("moist")
-    model_id = registry.save(chain, folder / "models")
-    spec = folder / "spec.toml"
-    spec.write_text(spec_toml(WINDOW_SPEC), encoding="utf-8")
-    return table, chain, folder / "models", model_id, spec
+def moist(moist_model):
+    m = moist_model
+    return m.table, m.chain, m.models_dir, m.model_id, m.spec
 
 
 def _predict(models_dir, spec, *sets):
@@ -63,16 +54,21 @@ def test_predict_takes_the_material_column_by_set_and_holds_it_coherently_otherw
     # wetter blend, denser ribbon: the truth's slope is -0.03 per %
     step = wet["predictions"]["ribbon_porosity"]["value"] - dry["predictions"]["ribbon_porosity"]["value"]
     assert -0.05 < step / 1.2 < -0.01
-    # not given: held at the least-squares prediction from the given settings over the training lots
+    # not given: held at the least-squares prediction from the given settings over the training lots, and from
+    # the settings run at a few levels (mill screen), held at a level (linkage.decide.held's rule)
     assert "blend_moisture_pct" in held["held_point"]["held"]
     names = [c for c in chain.chain.root_inputs()]
     assert "blend_moisture_pct" in names and set(SETTINGS) <= set(names)
     X = table[names].to_numpy(float)
     X = X[np.all(np.isfinite(X), axis=1)]
-    cols = [names.index(k) for k in given]
-    reg = LinearRegression().fit(X[:, cols], X[:, names.index("blend_moisture_pct")])
-    expected = float(np.clip(reg.predict(np.array([list(given.values())]))[0], X[:, names.index("blend_moisture_pct")].min(),
-                             X[:, names.index("blend_moisture_pct")].max()))
+    levels = [k for k in names if k not in given and len(np.unique(X[:, names.index(k)])) <= 6
+              and len(X) >= 2 * len(np.unique(X[:, names.index(k)]))]
+    assert levels == ["mill_screen_mm"]
+    at = {**given, **{k: held["inputs"][k]["value"] for k in levels}}
+    cols = [names.index(k) for k in at]
+    moisture = X[:, names.index("blend_moisture_pct")]
+    reg = LinearRegression().fit(X[:, cols], moisture)
+    expected = float(np.clip(reg.predict(np.array([list(at.values())]))[0], moisture.min(), moisture.max()))
     assert held["inputs"]["blend_moisture_pct"]["value"] == pytest.approx(expected, rel=1e-9)
     assert held["inputs"]["blend_moisture_pct"]["source"] != "given"
 

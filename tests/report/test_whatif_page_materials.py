@@ -13,24 +13,12 @@ from .test_whatif_page import _COMPARED, _cli, _compare, _predict_json, _set_con
 
 
 @pytest.fixture(scope="module")
-def moist(tmp_path_factory):
-    from linkage.assemble import assemble
-    from linkage.models import registry
-    from linkage.models.materials import train_with_materials
-    from linkage.synthetic import WINDOW_SPEC, make_lots, spec_toml
-
-    table = assemble(make_lots(48, seed=2, raw_materials=True, moisture_porosity_per_pct=-0.03).tables)
-    chain = train_with_materials(table, seed=0, candidates=["mean", "log_linear", "linear_select"], n_bootstrap=20)
-    assert chain.training["materials"]["kept"].get("ribbon_porosity") == ["blend_moisture_pct"]
-    folder = tmp_path_factory.mktemp("moist")
-    models_dir = folder / "models"
-    registry.save(chain, models_dir)
-    spec = folder / "spec.toml"
-    spec.write_text(spec_toml(WINDOW_SPEC), encoding="utf-8")
-    page = folder / "page.html"
-    r = _cli(["predict", "--spec", str(spec), "--models-dir", str(models_dir), "--page", str(page)])
+def moist(moist_model, tmp_path_factory):
+    page = tmp_path_factory.mktemp("moist-page") / "page.html"
+    r = _cli(["predict", "--spec", str(moist_model.spec), "--models-dir", str(moist_model.models_dir), "--page",
+              str(page)])
     assert r.exit_code == 0, r.output
-    return SimpleNamespace(models_dir=models_dir), spec, page
+    return SimpleNamespace(models_dir=moist_model.models_dir), moist_model.spec, page
 
 
 @pytest.mark.slow
