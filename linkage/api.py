@@ -359,13 +359,14 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
          store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
          settings: Mapping[str, float] | None = None, confidence: float = 0.9, assurance: float = 0.9,
          seed: int = 0, prefix: str = "PLAN", product: str | None = None, out=None, edges: str = "all",
-         design: str = "maximin"):
+         design: str = "maximin", criterion: str = "local"):
     """The next lots to make (``linkage plan``; :mod:`linkage.decide.plan`).
     ``new``: a starting design over ``ranges`` with no lots or model
     (``design``: ``"maximin"`` or ``"factorial"``). Else the
     lots that narrow the window of ``model`` under ``spec`` fastest, over
     ``ranges`` (default: the training ranges), at its ``edges`` (``"all"`` or
-    ``"porosity"``). With ``out`` (a folder), the plan
+    ``"porosity"``), by ``criterion`` (``"local"`` or ``"target"``,
+    :func:`linkage.decide.plan.augment_design`). With ``out`` (a folder), the plan
     is written there as template tables and ``plan.json``. An augmentation is
     logged as ``plan`` in the store's audit trail."""
     from linkage.decide import plan as planning
@@ -388,11 +389,12 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
     table = assemble(store, spec=spec, product=product)
     result = planning.augment_design(chain, table, spec, n_lots, ranges=dict(ranges or {}), settings=settings,
                                      confidence=confidence, assurance=assurance, seed=seed, prefix=prefix,
-                                     product=product, edges=edges)
+                                     product=product, edges=edges, criterion=criterion)
     written = planning.write_plan(result, out) if out is not None else []
     recorded = record(store, "plan", model_id=result.model_id,
                       inputs={"n_lots": n_lots, "ranges": {k: list(v) for k, v in (ranges or {}).items()},
                               "settings": settings, "confidence": confidence, "assurance": assurance, "seed": seed, "edges": edges,
+                              "criterion": criterion,
                               "spec_file": spec.file, "spec_sha256": spec.sha256, "out": None if out is None else str(out)},
                       outputs={"lots": [lot.to_dict() for lot in result.lots], "edges": result.edges})
     return planning.Planned(result, written, recorded)

@@ -36,6 +36,10 @@ from linkage.jsonable import jsonable
 @click.option("--edges", type=click.Choice(["all", "porosity"]), default="all", show_default=True,
               help="Which window edges the next lots narrow: the porosity edges and the roll force edges (all), or "
                    "the porosity edges only.")
+@click.option("--criterion", type=click.Choice(["local", "target"]), default="local", show_default=True,
+              help="How the next lots are chosen: variance of local fits at the edges (local), or where the bootstrap "
+                   "replicates of P(all pass) straddle the confidence near the porosity edges (target; needs a "
+                   "model trained with bootstrap replicates, else the local fit's variance alone is weighted).")
 @click.option("--prefix", default="PLAN", show_default=True, help="Planned lot ids are PREFIX-001, PREFIX-002, ...")
 @click.option("--product", default=None, help="Product name written in the process table (and the lots planned "
               "from, without --new).")
@@ -47,8 +51,8 @@ from linkage.jsonable import jsonable
 @store_option
 @json_option
 @handle_errors
-def plan(n_lots, range_texts, new, design, spec_path, model_id, assignments, confidence, assurance, edges, prefix, product,
-         out, seed, models_dir, store, as_json):
+def plan(n_lots, range_texts, new, design, spec_path, model_id, assignments, confidence, assurance, edges, criterion, prefix,
+         product, out, seed, models_dir, store, as_json):
     """Plan the next lots: the settings that narrow the ribbon porosity
     window's edges fastest, or a starting design for a new product.
 
@@ -79,7 +83,7 @@ def plan(n_lots, range_texts, new, design, spec_path, model_id, assignments, con
     result = make_plan(n_lots, ranges=ranges, spec=spec, new=new, store=store, models_dir=models_dir,
                        model=model_id, settings=settings, confidence=confidence, assurance=assurance, seed=seed,
                        prefix=prefix, product=product, out=out, edges=edges,
-                       design=design)
+                       design=design, criterion=criterion)
     if as_json:
         click.echo(json.dumps(jsonable(result.to_dict()), indent=2, allow_nan=False))
         return

@@ -603,7 +603,7 @@ def chain_domain(lean, rows: list[dict]) -> list[tuple[bool | None, list[str]]]:
 def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tuple[float, float]] | None = None,
                    settings: dict[str, float] | None = None, confidence: float = 0.9, assurance: float = 0.9,
                    seed: int = 0, n_candidates: int = 2048, prefix: str = "PLAN", window=None,
-                   product: str | None = None, edges: str = "all") -> Plan:
+                   product: str | None = None, edges: str = "all", criterion: str = "local") -> Plan:
     """The next ``n_lots`` lots that most lower the variance of the models at
     the window's edges (see the module notes).
 
@@ -621,6 +621,10 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
         these settings (found here when None).
     edges : ``"all"`` (the porosity edges and the whole-chain roll force
         edges) or ``"porosity"`` (the porosity edges only).
+    criterion : ``"local"`` (the I-optimal augmentation of the module
+        notes) or ``"target"`` (the bootstrap-weighted integrated variance of
+        P(all pass) near the confidence, :mod:`linkage.decide.plan_target`;
+        porosity edges only, ``edges`` is then not used).
     """
     from scipy.stats import qmc
 
@@ -632,6 +636,8 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
         raise UsageError(f"--lots must be at least 1; got {n_lots}")
     if edges not in ("all", "porosity"):
         raise UsageError(f"edges must be 'all' or 'porosity'; got {edges!r}")
+    if criterion not in CRITERIA:
+        raise UsageError(f"criterion must be one of {', '.join(CRITERIA)}; got {criterion!r}")
     lean = as_lean(chain)
     stage = _ribbon_stage(lean)
     target = stage.targets[POROSITY]
@@ -674,6 +680,13 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
     elif stage.domain is not None:
         notes.append(f"candidates: {len(pool)} of {m} settings inside the ribbon stage's applicability domain")
 
+    if criterion == "target":
+        chosen, edge_list, crit, more = _target_choice(chain, table, spec, window, eps_c, pool, n, confidence,
+                                                       training[POROSITY], seed)
+        notes += more
+        return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes,
+                          full, seed, prefix, product, TARGET_METHOD)
+
     # the edges and their local linear models, started on the existing lots
     models, edge_notes = edge_models(window, table, inputs, lean.medians, training[POROSITY], edges)
     notes += edge_notes
@@ -697,6 +710,52 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
         available[c] = False
         chosen.append((c, top))
 
+    edge_list = [{"name": em.name, "kind": kind, "value": em.value, "where": em.where,
+                  "relative_variance": em.relative} for em, kind in models]
+    crit = {"before": float(len(models)), "after": float(sum(em.relative for em, _ in models)),
+            "rule": "sum over the edges of each edge's variance of the local linear fit relative to the "
+                    "existing lots alone"}
+    return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes, full, seed,
+                      prefix, product, "I-optimal augmentation of local linear models weighted to the window's "
+                      "edges (greedy)")
+
+
+#: augment_design's criteria (``linkage plan --criterion``)
+CRITERIA = ("local", "target")
+TARGET_METHOD = ("lots where the bootstrap replicates of P(all pass) straddle the confidence: weighted integrated "
+                 "variance of P near the window's porosity edges (Picheny et al. 2010; greedy)")
+
+
+def _target_choice(chain, table, spec, window, eps_c, pool, n, confidence, porosity_range, seed):
+    """The ``target`` criterion (:mod:`linkage.decide.plan_target`): chosen (candidate, edge name), the edges'
+    entries, the criterion entry, notes."""
+    from linkage.decide import plan_target
+
+    notes = []
+    por_edges, _, edge_notes = _edges_of(window)
+    notes += edge_notes
+    grid, p_hat, var, why = plan_target.probability_curve(chain, spec, window, seed=seed)
+    if var is None:
+        notes.append(f"no bootstrap spread of P(all pass) ({why}); the weight is taken at zero spread and the "
+                     "local fit's variance alone is integrated")
+    known = table[POROSITY].dropna().to_numpy(float) if POROSITY in table else np.zeros(0)
+    picked, relative, total = plan_target.choose(eps_c, pool, n, grid=grid, p_hat=p_hat, var=var,
+                                                 confidence=confidence, porosity_known=known,
+                                                 porosity_range=porosity_range, edges=por_edges)
+    chosen = [(c, por_edges[k][0] if por_edges else "porosity where P(all pass) is near the confidence")
+              for c, k in picked]
+    edge_list = [{"name": name, "kind": "porosity", "value": e, "where": f"ribbon porosity {e:.3f}",
+                  "relative_variance": float(r)} for (name, e), r in zip(por_edges, relative)]
+    crit = {"before": 1.0, "after": total,
+            "rule": "weighted integrated variance of P(all pass) over the porosity grid (bootstrap variance scaled "
+                    "by a local linear fit's variance; weight: chance that P lies at the confidence), relative "
+                    "to the existing lots alone"}
+    return chosen, edge_list, crit, notes
+
+
+def _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes, full, seed, prefix,
+               product, method) -> Plan:
+    """The :class:`Plan` of the chosen candidates: run order randomised (seeded), lot ids, domain verdicts."""
     order = np.random.default_rng([seed, 2]).permutation(len(chosen))  # the run order, randomised
     ids = _lot_ids(prefix, len(chosen), taken=table["lot"].astype(str).tolist() if "lot" in table else ())
     picked = [chosen[i] for i in order]
@@ -709,14 +768,8 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
             reason=f"informs the {top}; predicted ribbon porosity {eps_c[c]:.3f}"
                    + ("" if inside_all in (None, True) else "; outside the applicability domain"),
             informs=top, predicted_porosity=float(eps_c[c]), in_domain=inside_all, domain_reasons=reasons))
-    edges = [{"name": em.name, "kind": kind, "value": em.value, "where": em.where, "relative_variance": em.relative}
-             for em, kind in models]
-    criterion = {"before": float(len(models)), "after": float(sum(em.relative for em, _ in models)),
-                 "rule": "sum over the edges of each edge's variance of the local linear fit relative to the "
-                         "existing lots alone"}
-    return Plan(kind="augment", method="I-optimal augmentation of local linear models weighted to the window's "
-                "edges (greedy)", seed=seed, ranges=full, held=held, lots=lots, product=product,
-                model_id=getattr(chain, "model_id", None) or "unsaved", edges=edges, criterion=criterion,
+    return Plan(kind="augment", method=method, seed=seed, ranges=full, held=held, lots=lots, product=product,
+                model_id=getattr(chain, "model_id", None) or "unsaved", edges=edge_list, criterion=crit,
                 notes=notes)
 
 
