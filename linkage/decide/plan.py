@@ -58,10 +58,12 @@ the ribbon stage's applicability domain (Hotelling T², Q residual, ranges,
 :mod:`linkage.models.domain`); settings outside the ranges given are never
 proposed. Each lot carries its own domain verdict.
 
-What this does not do: it does not simulate the bootstrap spread of
-P(all pass) for each candidate set (a slower, more direct criterion); the
-benefit over random lots is measured by ``tests/benchmarks/plan_benefit.py``
-and recorded in ``reports/plan-benefit.md``.
+``criterion="target"`` chooses instead by the bootstrap spread of
+P(all pass) near the confidence (Picheny et al. 2010's weighted integrated
+variance, :mod:`linkage.decide.plan_target`); it does not refit the models
+for each candidate set either. The benefit of either over random lots is
+measured by ``tests/benchmarks/plan_benefit.py`` and recorded in
+``reports/plan-benefit.md``.
 """
 
 from __future__ import annotations
