@@ -36,10 +36,12 @@ from linkage.jsonable import jsonable
 @click.option("--edges", type=click.Choice(["all", "porosity"]), default="all", show_default=True,
               help="Which window edges the next lots narrow: the porosity edges and the roll force edges (all), or "
                    "the porosity edges only.")
-@click.option("--criterion", type=click.Choice(["local", "target"]), default="local", show_default=True,
-              help="How the next lots are chosen: variance of local fits at the edges (local), or where the bootstrap "
-                   "replicates of P(all pass) straddle the confidence near the porosity edges (target; needs a "
-                   "model trained with bootstrap replicates, else the local fit's variance alone is weighted).")
+@click.option("--criterion", type=click.Choice(["local", "target", "thompson"]), default="local",
+              show_default=True,
+              help="How the next lots are chosen: variance of local fits at the edges (local); where the bootstrap "
+                   "replicates of P(all pass) straddle the confidence near the porosity edges (target; without "
+                   "replicates the local fit's variance alone is weighted); or at the quantiles of the replicates' "
+                   "porosity edges (thompson; without replicates, the local criterion).")
 @click.option("--prefix", default="PLAN", show_default=True, help="Planned lot ids are PREFIX-001, PREFIX-002, ...")
 @click.option("--product", default=None, help="Product name written in the process table (and the lots planned "
               "from, without --new).")

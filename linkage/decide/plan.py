@@ -682,6 +682,15 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
     elif stage.domain is not None:
         notes.append(f"candidates: {len(pool)} of {m} settings inside the ribbon stage's applicability domain")
 
+    if criterion == "thompson":
+        got = _thompson_choice(chain, table, spec, window, eps_c, pool, n, confidence, training[POROSITY], seed)
+        if got is None:
+            notes.append("no bootstrap replicates, or no porosity edge that the replicates can place: planned by "
+                         "the local criterion instead")
+        else:
+            chosen, edge_list, crit, more = got
+            return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes + more,
+                              full, seed, prefix, product, THOMPSON_METHOD)
     if criterion == "target":
         chosen, edge_list, crit, more = _target_choice(chain, table, spec, window, eps_c, pool, n, confidence,
                                                        training[POROSITY], seed)
@@ -723,7 +732,9 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
 
 
 #: augment_design's criteria (``linkage plan --criterion``)
-CRITERIA = ("local", "target")
+CRITERIA = ("local", "target", "thompson")
+THOMPSON_METHOD = ("each lot at the window edge of one bootstrap replicate: quantiles of the replicates' porosity "
+                   "edges (bootstrapped Thompson sampling)")
 TARGET_METHOD = ("lots where the bootstrap replicates of P(all pass) straddle the confidence: weighted integrated "
                  "variance of P near the window's porosity edges (Picheny et al. 2010; greedy)")
 
@@ -753,6 +764,43 @@ def _target_choice(chain, table, spec, window, eps_c, pool, n, confidence, poros
                     "by a local linear fit's variance; weight: chance that P lies at the confidence), relative "
                     "to the existing lots alone"}
     return chosen, edge_list, crit, notes
+
+
+def _thompson_choice(chain, table, spec, window, eps_c, pool, n, confidence, porosity_range, seed):
+    """The ``thompson`` criterion (:mod:`linkage.decide.plan_thompson`), or None when the model has no
+    replicates or the window no low or high porosity edge: chosen (candidate, edge name), the edges' entries
+    (``relative_variance`` as the ``target`` criterion would count it for these lots), the criterion entry,
+    notes."""
+    from linkage.decide import plan_target, plan_thompson
+
+    por_edges, _, notes = _edges_of(window)
+    cols = {0: e for e in por_edges if e[0].startswith("low ")} | {1: e for e in por_edges
+                                                                   if e[0].startswith("high ")}
+    grid, p_hat, reps, _ = plan_target.probability_curve(chain, spec, window, seed=seed, replicates=True)
+    if reps is None or not cols:
+        return None
+    edges_b = plan_thompson.replicate_edges(grid, reps, confidence)
+    wanted = plan_thompson.targets(edges_b, sorted(cols), n)
+    if not wanted:
+        return None
+    picked = plan_thompson.nearest(eps_c, pool, [t for _, t in wanted])
+    chosen = [(c, cols[col][0]) for c, (col, _) in zip(picked, wanted)]
+    known = table[POROSITY].dropna().to_numpy(float) if POROSITY in table else np.zeros(0)
+    _, relative, total = plan_target.choose(eps_c, np.array(picked, int), len(picked), grid=grid, p_hat=p_hat,
+                                            var=reps.var(axis=0, ddof=1), confidence=confidence,
+                                            porosity_known=known, porosity_range=porosity_range,
+                                            edges=[cols[k] for k in sorted(cols)])
+    spread = {k: np.nanquantile(edges_b[:, k], [0.05, 0.95]) for k in cols}
+    edge_list = [{"name": cols[k][0], "kind": "porosity", "value": cols[k][1],
+                  "where": f"ribbon porosity {cols[k][1]:.3f} (replicates' edges 5-95 %: {spread[k][0]:.3f}-"
+                           f"{spread[k][1]:.3f})", "relative_variance": float(r)}
+                 for k, r in zip(sorted(cols), relative)]
+    crit = {"before": 1.0, "after": total,
+            "rule": "lots at the quantiles (i + 1/2)/k of the bootstrap replicates' porosity edges; before/after: "
+                    "weighted integrated variance of P(all pass) near the confidence (as criterion 'target' "
+                    "counts it), relative to the existing lots alone"}
+    return chosen, edge_list, crit, notes + [f"{int(np.isfinite(edges_b).all(axis=1).sum())} of {len(edges_b)} "
+                                             "bootstrap replicates have a window"]
 
 
 def _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes, full, seed, prefix,

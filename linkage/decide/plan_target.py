@@ -54,10 +54,11 @@ MAX_POINTS = 96
 RIDGE = 1e-6
 
 
-def probability_curve(chain, spec, window, seed: int = 0):
+def probability_curve(chain, spec, window, seed: int = 0, replicates: bool = False):
     """(grid, P̂, s² or None, note): P(all pass) on the window's porosity grid
     at the window's held settings, its bootstrap variance, and why there is
-    none when the model lacks replicates."""
+    none when the model lacks replicates. ``replicates=True`` returns the
+    replicates' curves (B × grid) in place of s²."""
     from linkage.decide.bound import chain_probabilities
     from linkage.decide.window import downstream_targets
     from linkage.models.lean import as_lean
@@ -69,13 +70,23 @@ def probability_curve(chain, spec, window, seed: int = 0):
     columns = {k: np.full(grid.size, float(v)) for k, v in values.items()} | {por: grid}
     limited = [a for a in spec.limits if a in downstream_targets(chain)]
     cp = chain_probabilities(lean, columns, spec.limits, limited, seed=seed, each=False)
+    if replicates:
+        reps = None if cp.reps_all is None else usable(cp.reps_all)
+        return grid, cp.p_all, reps, (cp.reason if cp.reps_all is None else
+                                      None if reps is not None else "fewer than two usable bootstrap replicates")
     if cp.reps_all is None:
         return grid, cp.p_all, None, cp.reason
-    reps = np.asarray(cp.reps_all, float)
-    ok = np.isfinite(reps).all(axis=1)
-    if ok.sum() < 2:
+    reps = usable(cp.reps_all)
+    if reps is None:
         return grid, cp.p_all, None, "fewer than two usable bootstrap replicates"
-    return grid, cp.p_all, reps[ok].var(axis=0, ddof=1), None
+    return grid, cp.p_all, reps.var(axis=0, ddof=1), None
+
+
+def usable(reps) -> np.ndarray | None:
+    """The replicates' curves with no missing value (None when fewer than two)."""
+    reps = np.asarray(reps, float)
+    ok = np.isfinite(reps).all(axis=1)
+    return reps[ok] if ok.sum() >= 2 else None
 
 
 def weights(p_hat: np.ndarray, var: np.ndarray | None, confidence: float,

@@ -88,7 +88,7 @@ def main(argv=None) -> int:
     ap.add_argument("--bootstrap", type=int, default=0,
                     help="bootstrap replicates of the campaign's first fit (the plan's criterion 'target' uses "
                          "them); the refits after the added lots take none (only the point window is scored)")
-    ap.add_argument("--criterion", choices=["local", "target"], default="local",
+    ap.add_argument("--criterion", choices=["local", "target", "thompson"], default="local",
                     help="augment_design's criterion")
     ap.add_argument("--out", type=Path, default=Path("reports/plan-benefit.md"))
     ap.add_argument("--edges", choices=["all", "porosity"], default="all",

@@ -123,3 +123,66 @@ def test_target_plan_from_a_model_with_replicates():
     assert again.to_dict() == plan.to_dict()
     with pytest.raises(Exception, match="criterion must be one of"):
         augment_design(chain, table, spec, 6, settings=held, window=window, criterion="straddle")
+
+
+def test_thompson_targets_are_the_quantiles_of_the_replicates_edges():
+    """Each replicate's window is its widest run of grid points where P_b
+    reaches the confidence; k lots for an edge take the (i + ½)/k quantiles
+    of the replicates' edges (checked against numpy's percentile of the
+    edges found by hand, and the nearest candidate by a brute-force search)."""
+    from linkage.decide.plan_thompson import nearest, replicate_edges, targets
+
+    grid = np.linspace(0.2, 0.45, 51)
+    rng = np.random.default_rng(2)
+    lows, highs = rng.uniform(0.24, 0.27, 40), rng.uniform(0.35, 0.39, 40)
+    reps = np.array([((grid >= lo) & (grid <= hi)).astype(float) for lo, hi in zip(lows, highs)])
+    reps[0, 5] = 1.0  # a stray point passing alone: not the widest run
+    reps[1] = 0.0  # a replicate with no window
+    e = replicate_edges(grid, reps, 0.9)
+    assert np.isnan(e[1]).all()
+    by_hand = np.array([[grid[grid >= lo][0], grid[grid <= hi][-1]] for lo, hi in zip(lows, highs)])
+    assert e[[0, *range(2, 40)]] == pytest.approx(by_hand[[0, *range(2, 40)]])
+    t = targets(e, [0, 1], 5)
+    assert [c for c, _ in t] == [0, 0, 0, 1, 1]
+    assert [v for _, v in t[:3]] == pytest.approx(np.percentile(e[np.isfinite(e[:, 0]), 0],
+                                                                [100 / 6, 50, 500 / 6]))
+    assert [v for _, v in t[3:]] == pytest.approx(np.percentile(e[np.isfinite(e[:, 1]), 1], [25, 75]))
+    cands = rng.uniform(0.2, 0.45, 300)
+    pool = np.arange(0, 300, 2)
+    got = nearest(cands, pool, [0.25, 0.25, 0.37])
+    assert len(set(got)) == 3 and all(c in pool for c in got)
+    assert got[0] == pool[np.argmin(abs(cands[pool] - 0.25))]
+
+
+@pytest.mark.slow
+def test_thompson_plan_from_a_model_with_replicates():
+    """The ``thompson`` plan deals the lots to the porosity edges in turn,
+    each lot naming its edge, inside the ranges and reproducible; a model
+    without replicates gets the local plan, with a note."""
+    from linkage.assemble import assemble
+    from linkage.decide.plan import augment_design
+    from linkage.decide.window import find_window
+    from linkage.models.train import train_chain
+    from linkage.spec import Limit, Spec
+    from linkage.synthetic import WINDOW_SPEC, make_lots
+
+    table = assemble(make_lots(24, seed=5).tables)
+    spec = Spec(limits={k: Limit(*v) for k, v in WINDOW_SPEC.items()})
+    held = {"mill_screen_mm": 1.0, "compression_force_kn": 14.0}
+    ranges = {"roll_force_kn_per_cm": (5.0, 12.0)}
+    chain = train_chain(table, seed=0, n_bootstrap=40, candidates=["mean", "linear_select"])
+    window = find_window(chain, spec, settings=held, n_draws=500)
+    plan = augment_design(chain, table, spec, 6, ranges=ranges, settings=held, seed=4, window=window,
+                          criterion="thompson")
+    assert len(plan.lots) == 6 and "Thompson" in plan.method
+    names = [e["name"] for e in plan.edges]
+    assert all(lot.informs in names and lot.informs in lot.reason for lot in plan.lots)
+    assert all(5.0 <= lot.settings["roll_force_kn_per_cm"] <= 12.0 for lot in plan.lots)
+    counts = [sum(lot.informs == nm for lot in plan.lots) for nm in names]
+    assert max(counts) - min(counts) <= 1
+    again = augment_design(chain, table, spec, 6, ranges=ranges, settings=held, seed=4, window=window,
+                           criterion="thompson")
+    assert again.to_dict() == plan.to_dict()
+    bare = train_chain(table, seed=0, n_bootstrap=0, candidates=["mean", "linear_select"])
+    local = augment_design(bare, table, spec, 6, ranges=ranges, settings=held, seed=4, criterion="thompson")
+    assert "I-optimal" in local.method and any("local criterion instead" in n for n in local.notes)
