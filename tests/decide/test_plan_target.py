@@ -186,3 +186,15 @@ def test_thompson_plan_from_a_model_with_replicates():
     bare = train_chain(table, seed=0, n_bootstrap=0, candidates=["mean", "linear_select"])
     local = augment_design(bare, table, spec, 6, ranges=ranges, settings=held, seed=4, criterion="thompson")
     assert "I-optimal" in local.method and any("local criterion instead" in n for n in local.notes)
+
+
+def test_cli_criterion_names_its_choices():
+    """An unknown --criterion is a usage error (exit 2) naming the three
+    criteria, before any store or model is read."""
+    from click.testing import CliRunner
+
+    from linkage.cli.main import cli
+
+    res = CliRunner().invoke(cli, ["plan", "--lots", "8", "--criterion", "straddle"])
+    assert res.exit_code == 2
+    assert all(c in res.output for c in ("local", "target", "thompson"))
