@@ -72,6 +72,41 @@ def _random_settings(chain, ranges: dict, n: int, seed: int) -> dict:
     return {k: np.round(v[idx], 3) for k, v in cand.items()}
 
 
+def pool(rows_file: Path, out: Path) -> int:
+    """Pool the campaigns of a ``--rows`` file by (lots, criterion, edges,
+    bootstrap): mean reductions of the edge error, their ratio, the paired
+    difference's mean, SD and standard error, and a two-sided paired t-test
+    (scipy.stats.ttest_rel) of planned against random reductions."""
+    from scipy.stats import ttest_rel
+
+    rows = [json.loads(line) for line in rows_file.read_text(encoding="utf-8").splitlines() if line.strip()]
+    groups: dict[tuple, dict] = {}
+    for r in rows:  # a campaign run twice keeps its last row
+        groups.setdefault((r["lots"], r["criterion"], r["edges"], r["bootstrap"]), {})[r["seed"]] = r
+    lines = [f"## Pooled ({rows_file.name})", ""]
+    for (lots, criterion, edges, b), by_seed in sorted(groups.items()):
+        done = [r for r in by_seed.values() if None not in (r["before"], r["planned"], r["random"])]
+        red_p = np.array([r["before"] - r["planned"] for r in done])
+        red_r = np.array([r["before"] - r["random"] for r in done])
+        d = red_p - red_r
+        head = f"- {lots} lots + 8, criterion {criterion}" + (f" (edges {edges})" if criterion == "local" else "") + \
+            f", B = {b}: {len(done)} campaigns (seeds {', '.join(str(r['seed']) for r in sorted(done, key=lambda r: r['seed']))})"
+        if len(done) < 2:
+            lines.append(head + ".")
+            continue
+        t = ttest_rel(red_p, red_r)
+        ratio = red_p.mean() / red_r.mean() if red_r.mean() > 0 else float("nan")
+        lines.append(head + f"; mean reduction of the edge error planned {red_p.mean():.4f}, random "
+                     f"{red_r.mean():.4f} (ratio {ratio:.2f}; the acceptance asks ≥ 1.33); planned − random: mean "
+                     f"{d.mean():.4f}, SD {d.std(ddof=1):.4f}, standard error {d.std(ddof=1) / np.sqrt(len(d)):.4f}, "
+                     f"paired t-test p = {t.pvalue:.2f}; planned better in {int((d > 0).sum())} of {len(d)}.")
+    text = "\n".join(lines) + "\n\n"
+    out.parent.mkdir(parents=True, exist_ok=True)
+    out.write_text((out.read_text(encoding="utf-8") if out.exists() else "") + text, encoding="utf-8")
+    print(text)
+    return 0
+
+
 def main(argv=None) -> int:
     from linkage.assemble import assemble
     from linkage.decide.plan import augment_design
@@ -94,8 +129,12 @@ def main(argv=None) -> int:
     ap.add_argument("--edges", choices=["all", "porosity"], default="all",
                     help="the edges the plan narrows (augment_design's edges)")
     ap.add_argument("--rows", type=Path, default=None, help="also append each campaign's row as JSON to this file")
+    ap.add_argument("--pool", type=Path, default=None,
+                    help="no campaigns: pool the rows of a --rows file by criterion and add the summary to --out")
     ap.add_argument("--append", action="store_true", help="add this run to the report instead of replacing it")
     args = ap.parse_args(argv)
+    if args.pool is not None:
+        return pool(args.pool, args.out)
     truth = Truth.window_scenario()
     spec = Spec(limits={k: Limit(*v) for k, v in WINDOW_SPEC.items()})
     s = dict(WINDOW_SETTINGS)
