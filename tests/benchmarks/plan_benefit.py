@@ -94,12 +94,16 @@ def pool(rows_file: Path, out: Path) -> int:
         if len(done) < 2:
             lines.append(head + ".")
             continue
+        table = ["", "  | campaign seed | error before | after planned | after random |", "  |---|---|---|---|"]
+        table += [f"  | {r['seed']} | {r['before']:.4f} | {r['planned']:.4f} | {r['random']:.4f} |"
+                  for r in sorted(done, key=lambda r: r["seed"])]
         t = ttest_rel(red_p, red_r)
         ratio = red_p.mean() / red_r.mean() if red_r.mean() > 0 else float("nan")
         lines.append(head + f"; mean reduction of the edge error planned {red_p.mean():.4f}, random "
                      f"{red_r.mean():.4f} (ratio {ratio:.2f}; the acceptance asks ≥ 1.33); planned − random: mean "
                      f"{d.mean():.4f}, SD {d.std(ddof=1):.4f}, standard error {d.std(ddof=1) / np.sqrt(len(d)):.4f}, "
                      f"paired t-test p = {t.pvalue:.2f}; planned better in {int((d > 0).sum())} of {len(d)}.")
+        lines += table + [""]
     text = "\n".join(lines) + "\n\n"
     out.parent.mkdir(parents=True, exist_ok=True)
     out.write_text((out.read_text(encoding="utf-8") if out.exists() else "") + text, encoding="utf-8")
