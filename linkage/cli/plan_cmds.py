@@ -53,8 +53,8 @@ from linkage.jsonable import jsonable
 @store_option
 @json_option
 @handle_errors
-def plan(n_lots, range_texts, new, design, spec_path, model_id, assignments, confidence, assurance, edges, criterion, prefix,
-         product, out, seed, models_dir, store, as_json):
+def plan(n_lots, range_texts, new, design, spec_path, model_id, assignments, confidence, assurance, edges,
+         criterion, prefix, product, out, seed, models_dir, store, as_json):
     """Plan the next lots: the settings that narrow the ribbon porosity
     window's edges fastest, or a starting design for a new product.
 

@@ -89,8 +89,9 @@ def pool(rows_file: Path, out: Path) -> int:
         red_p = np.array([r["before"] - r["planned"] for r in done])
         red_r = np.array([r["before"] - r["random"] for r in done])
         d = red_p - red_r
-        head = f"- {lots} lots + 8, criterion {criterion}" + (f" (edges {edges})" if criterion == "local" else "") + \
-            f", B = {b}: {len(done)} campaigns (seeds {', '.join(str(r['seed']) for r in sorted(done, key=lambda r: r['seed']))})"
+        seeds = ", ".join(str(r["seed"]) for r in sorted(done, key=lambda r: r["seed"]))
+        head = (f"- {lots} lots + 8, criterion {criterion}" + (f" (edges {edges})" if criterion == "local" else "")
+                + f", B = {b}: {len(done)} campaigns (seeds {seeds})")
         if len(done) < 2:
             lines.append(head + ".")
             continue
@@ -208,6 +209,8 @@ def main(argv=None) -> int:
     if done:
         mp, mr = float(np.mean(red_p)), float(np.mean(red_r))
         ratio = mp / mr if mr > 0 else float("nan")
+        diff = np.subtract(red_p, red_r)
+        sd = float(np.std(diff, ddof=1)) if len(done) > 1 else float("nan")
         holds = mr > 0 and mp >= 4 / 3 * mr or (mr <= 0 < mp)
         lines += [f"- Campaigns with a window in all three fits: {len(done)} of {len(rows)}.",
                   f"- Mean error: before {np.mean([r['before'] for r in done]):.4f}, after planned "
@@ -218,8 +221,7 @@ def main(argv=None) -> int:
                   f"{np.mean([r['p_planned'] for r in rows]):.4f}, after random {np.mean([r['p_random'] for r in rows]):.4f} "
                   f"(all {len(rows)} campaigns).",
                   f"- Paired difference of the reductions (planned − random) over the campaigns: mean "
-                  f"{np.mean(np.subtract(red_p, red_r)):.4f}, SD {np.std(np.subtract(red_p, red_r), ddof=1) if len(done) > 1 else float('nan'):.4f}"
-                  f", standard error {np.std(np.subtract(red_p, red_r), ddof=1) / np.sqrt(len(done)) if len(done) > 1 else float('nan'):.4f}.",
+                  f"{np.mean(diff):.4f}, SD {sd:.4f}, standard error {sd / np.sqrt(len(done)):.4f}.",
                   f"- Planned lots did better than random in {sum(p > q for p, q in zip(red_p, red_r))} of {len(done)} "
                   "campaigns.",
                   f"- Acceptance (planned reduction at least 4/3 of random's, on average): "

@@ -13,8 +13,8 @@ from linkage.decide.plan_target import RIDGE, LocalVariance, choose, weights
 
 
 def _direct_inverse(g, h, eps):
-    """[(ZᵀWZ + ridge)⁻¹] at grid point g by scipy's QR of W^½Z ((ZᵀWZ)⁻¹ = R⁻¹R⁻ᵀ; Golub & Van Loan 2013,
-    §5.3), the ridge added as two extra rows √ridge·I."""
+    """[(ZᵀWZ + ridge)⁻¹] at grid point g by scipy's QR of W^½Z ((ZᵀWZ)⁻¹ = R⁻¹R⁻ᵀ; Golub & Van
+    Loan 2013, §5.3), the ridge added as two extra rows √ridge·I."""
     from scipy.linalg import qr, solve_triangular
 
     u = (eps - g) / h
