@@ -8,7 +8,8 @@ distribution as an approximate posterior). Thompson sampling (Thompson 1933,
 Biometrika 25:285) makes the next experiment where a draw from the
 posterior puts the quantity sought; with the bootstrap as the posterior this
 is the bootstrapped Thompson sampling of Eckles & Kaptein (2014, arXiv
-1410.4009) and Osband & Van Roy (2015, arXiv 1507.00300). Here the quantity
+1410.4009) and Osband & Van Roy (2015, arXiv 1507.00300); these references
+and their numbers are from memory. Here the quantity
 sought is each porosity edge of the window: replicate b's P_b(all pass) on
 the window's porosity grid (:func:`linkage.decide.bound.chain_probabilities`)
 gives its own window (its widest run where P_b reaches the confidence), so
