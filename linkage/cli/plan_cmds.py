@@ -41,7 +41,9 @@ from linkage.jsonable import jsonable
               help="How the next lots are chosen: variance of local fits at the edges (local); where the bootstrap "
                    "replicates of P(all pass) straddle the confidence near the porosity edges (target; without "
                    "replicates the local fit's variance alone is weighted); or at the quantiles of the replicates' "
-                   "porosity edges (thompson; without replicates, the local criterion).")
+                   "porosity edges (thompson; without replicates, the local criterion). "
+                   "Measured on synthetic campaigns, none of the three narrowed the window's error faster than "
+                   "lots drawn at random within the ranges (target did worse): reports/plan-benefit.md.")
 @click.option("--prefix", default="PLAN", show_default=True, help="Planned lot ids are PREFIX-001, PREFIX-002, ...")
 @click.option("--product", default=None, help="Product name written in the process table (and the lots planned "
               "from, without --new).")
