@@ -324,6 +324,8 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
     chain = _fitted(models_dir, model)
     result = find_window(chain, spec, settings=settings, confidence=confidence, n_draws=n_draws, seed=seed,
                          assurance=assurance)
+    _keep(models_dir, result.model_id, "window", spec, result, "linkage window", settings=settings,
+          confidence=confidence, n_draws=n_draws, seed=seed, assurance=assurance)  # for the report (issue 20)
     recorded = record(store, "window", model_id=result.model_id,
                       inputs={"spec": spec.to_dict(), "spec_file": spec.file, "spec_sha256": spec.sha256,
                               "settings": settings, "confidence": confidence, "seed": seed, "assurance": assurance},
@@ -410,9 +412,30 @@ def space(spec, *, models_dir=DEFAULT_MODELS_DIR, model="latest", x: str = "roll
     (``to_dict()``; :func:`linkage.decide.space.space_text` for its text)."""
     from linkage.decide.space import design_space
 
-    return design_space(_lean(models_dir, model), _spec(spec), x=x, y=y, n_grid=n_grid,
-                        settings={k: float(v) for k, v in (settings or {}).items()}, confidence=confidence,
-                        assurance=assurance, seed=seed)
+    settings = {k: float(v) for k, v in (settings or {}).items()}
+    result = design_space(_lean(models_dir, model), _spec(spec), x=x, y=y, n_grid=n_grid, settings=settings,
+                          confidence=confidence, assurance=assurance, seed=seed)
+    _keep(models_dir, result.model_id, "space", _spec(spec), result, "linkage space", x=x, y=y, n_grid=n_grid,
+          settings=settings, confidence=confidence, assurance=assurance, seed=seed)  # for the report (issue 20)
+    return result
+
+
+def _keep(models_dir, model_id, kind: str, spec, result, made_by: str, **arguments) -> None:
+    """Store a result beside its model for a later report (:mod:`linkage.models.results`; best effort)."""
+    from linkage.models.results import result_key, save_result
+
+    if models_dir is not None and model_id and model_id != "unsaved":
+        save_result(models_dir, model_id, kind, result_key(kind, models_dir, model_id, spec, **arguments), result,
+                    made_by)
+
+
+def _reuse(models_dir, model_id, kind: str, spec, **arguments):
+    """A result stored by :func:`_keep` for exactly these arguments, or None."""
+    from linkage.models.results import load_result, result_key
+
+    if models_dir is None or not model_id:
+        return None
+    return load_result(models_dir, model_id, kind, result_key(kind, models_dir, model_id, spec, **arguments))
 
 
 def _lean(models_dir, model):
@@ -510,7 +533,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     with the planned lots."""
     from linkage.assemble import assemble as assemble_table
     from linkage.exceptions import InsufficientDataError, UsageError
-    from linkage.report.html import build_report
+    from linkage.report.html import render_report, write_report
     from linkage.store import LotStore
 
     from linkage.decide.bound import check_assurance
@@ -538,8 +561,25 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     table = assemble_table(tables, **_time_and_q(spec, model_time_point(chain)[0]))  # the model's time point
     out = Path(out) if out is not None else Path("reports") / f"report-{chain.model_id}.html"
     found = window.result if isinstance(window, Window) else window
-    return Path(build_report(chain, table, spec=spec, window=found, lots=lots, out_path=out,
-                             confidence=confidence, seed=seed, assurance=assurance, plan=plan))
+    space, reused = None, {}
+    if spec is not None:  # what `linkage window` / `linkage space` (or an earlier report) computed, reused
+        window_args = dict(settings={}, confidence=confidence, n_draws=2000, seed=seed, assurance=assurance)
+        space_args = dict(x="roll_force_kn_per_cm", y="roll_gap_mm", n_grid=40, settings={}, confidence=confidence,
+                          assurance=assurance, seed=seed)
+        kept = None if found is not None else _reuse(models_dir, chain.model_id, "window", spec, **window_args)
+        if kept is not None:
+            found, reused["window"] = kept.result, kept.sentence("the window and its probabilities")
+        kept = _reuse(models_dir, chain.model_id, "space", spec, **space_args)
+        if kept is not None:
+            space, reused["space"] = kept.result, kept.sentence("the map and the acceptable ranges")
+    rendered = render_report(chain, table, spec=spec, window=found, lots=lots, confidence=confidence, seed=seed,
+                             assurance=assurance, plan=plan, space=space, reused=reused)
+    if "window" in rendered.computed:
+        _keep(models_dir, chain.model_id, "window", spec, rendered.computed["window"], "linkage report",
+              **window_args)
+    if "space" in rendered.computed:
+        _keep(models_dir, chain.model_id, "space", spec, rendered.computed["space"], "linkage report", **space_args)
+    return Path(write_report(rendered, out))
 
 
 def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", spec=None,

@@ -81,6 +81,8 @@ class Report:
     html: str
     figures: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    #: what the report computed itself that a later report can reuse ("window", "space": the results)
+    computed: dict = field(default_factory=dict)
 
     @property
     def n_figures(self) -> int:
@@ -179,10 +181,14 @@ class _Builder:
         self.figures: list[str] = []
         self.notes: list[str] = []
         self.toc: list[tuple[str, str]] = []
+        #: section anchor -> the sentence saying which of its results was reused rather than computed
+        self.reused: dict[str, str] = {}
 
     def section(self, anchor: str, title: str) -> None:
         self.toc.append((anchor, title))
         self.parts.append(f'<h2 id="{anchor}">{_e(title)}</h2>')
+        if anchor in self.reused:  # a result reused from an earlier command says so under its heading
+            self.parts.append(f'<p class="reused">{_e(self.reused[anchor])}</p>')
 
     def add(self, html_text: str) -> None:
         self.parts.append(html_text)
@@ -212,6 +218,11 @@ def build_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd
     needed; the file is written whole or not at all). Returns the path."""
     report = render_report(chain, table, spec=spec, window=window, lots=lots, confidence=confidence, seed=seed,
                            assurance=assurance, plan=plan)
+    return write_report(report, out_path)
+
+
+def write_report(report: Report, out_path) -> Path:
+    """Write a rendered report to ``out_path`` (folders made as needed; whole or not at all)."""
     from linkage.export import write_atomic
 
     out = Path(out_path)
@@ -221,7 +232,8 @@ def build_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd
 
 def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd.DataFrame | None = None,
                   confidence: float = 0.9, seed: int = 0, curve_draws: int = 400,
-                  assurance: float = 0.9, plan=None) -> Report:
+                  assurance: float = 0.9, plan=None, space=None, reused: dict[str, str] | None = None,
+                  parallel: bool = True) -> Report:
     """Build the report of a fitted chain.
 
     Parameters
@@ -240,17 +252,48 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         that the window computed here rests on.
     plan : a plan (:mod:`linkage.decide.plan`; a ``plan.json`` path, its dict
         or the object): adds the plan section after the window's.
+    space : the design-space map (:class:`linkage.decide.space.SpaceResult`)
+        over roll force × gap as the map section computes it with these
+        arguments; computed here when None (in a second process beside the
+        other sections when ``parallel`` and the machine allow it,
+        :mod:`linkage.report.background`).
+    reused : section anchor -> a sentence saying that a result of that
+        section was reused from an earlier command, shown under its heading.
     """
     from linkage.timepoint import check_time_point
 
     check_time_point(chain, spec, "report")  # a spec at another time point is refused, not reported around
     b = _Builder()
+    b.reused.update(reused or {})
+    computed = {}
+    pending = None
+    if spec is not None and space is None:
+        from linkage.decide.space import design_space
+        from linkage.report.background import Background
+
+        args = dict(x=FORCE, y=GAP, n_grid=40, confidence=confidence, assurance=assurance, seed=seed)
+        pending = Background(design_space, chain, spec, fork=parallel, **args)
+    try:
+        html_text = _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance,
+                              plan, space, pending, computed)
+    finally:
+        if pending is not None:
+            pending.close()
+    return Report(html=html_text, figures=list(b.figures), notes=list(b.notes), computed=computed)
+
+
+def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
+              pending, computed) -> str:
+    """Every section in order into ``b``; the page. ``computed`` gets the window and the map when they were
+    computed here."""
     table = table.copy()
     table["lot"] = table["lot"].astype(str)
     limits = dict(spec.limits) if spec is not None else {}
     window_failure = None
     if spec is not None and window is None:
         window, window_failure = _window_or_reason(chain, spec, confidence, seed, assurance)
+        if window is not None:
+            computed["window"] = window
 
     _glance(b, chain, table, spec, window)
     _data_section(b, chain, table, lots)
@@ -269,12 +312,19 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
 
     from linkage.report.space_section import space_section  # the design-space map (issue 16)
 
-    space_section(b, chain, table, spec, confidence=confidence, assurance=assurance, seed=seed)
+    if space is None and pending is not None:
+        from linkage.exceptions import LinkageError
+
+        try:
+            space = computed["space"] = pending.result()
+        except LinkageError:
+            space = None  # the section computes it again and says why there is no map
+    space_section(b, chain, table, spec, confidence=confidence, assurance=assurance, seed=seed, result=space)
     _watch_section(b, chain, table, window)
     _domain_section(b, chain, table)
     _model_card(b, chain, spec, window)
     _cautions(b, chain)
-    return Report(html=_page(b, chain), figures=list(b.figures), notes=list(b.notes))
+    return _page(b, chain)
 
 
 def _window_or_reason(chain, spec, confidence, seed, assurance=0.9):

@@ -74,9 +74,11 @@ def plot_space(result, lots_x=None, lots_y=None, *, ax=None):
 
 
 def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: float = 0.9, seed: int = 0,
-                  n_grid: int = 40) -> None:
+                  n_grid: int = 40, result=None) -> None:
     """The report section: the map over roll force × gap, the acceptable
-    ranges and the held settings; a note instead when it cannot be made."""
+    ranges and the held settings; a note instead when it cannot be made.
+    ``result``: the map already computed with these arguments (reused, or
+    computed beside the report; issue 20), else it is computed here."""
     from linkage.decide.space import FORCE, GAP, design_space
     from linkage.exceptions import LinkageError
     from linkage.report.html import _e, _table
@@ -86,8 +88,8 @@ def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: 
         b.note("No map: give a specification (--spec) to map the probability of passing.")
         return
     try:
-        r = design_space(chain, spec, x=FORCE, y=GAP, n_grid=n_grid, confidence=confidence, assurance=assurance,
-                         seed=seed)
+        r = result if result is not None else design_space(chain, spec, x=FORCE, y=GAP, n_grid=n_grid,
+                                                           confidence=confidence, assurance=assurance, seed=seed)
     except LinkageError as exc:
         b.note(f"No map: {exc}")
         return

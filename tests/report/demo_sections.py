@@ -36,6 +36,9 @@ class _Cutter(HTMLParser):
         self.text: dict[str, list[str]] = {"head": []}
         self.figures: dict[str, int] = {"head": 0}
         self._skip = 0  # inside <style>, <script> or <title>
+        #: section id -> the sentences saying a result was reused (left out of the text, kept here)
+        self.reused: dict[str, list[str]] = {}
+        self._reused: list[str] | None = None
 
     def handle_starttag(self, tag, attrs):
         a = dict(attrs)
@@ -45,6 +48,8 @@ class _Cutter(HTMLParser):
             self.text[key], self.figures[key] = [], 0
         elif tag in ("style", "script", "title"):
             self._skip += 1
+        elif tag == "p" and a.get("class") == "reused":
+            self._reused = []
         elif tag == "img":
             self.text[self.order[-1]].append(f" [image: {a.get('alt', '')}] ")
         elif tag == "figure":
@@ -53,13 +58,18 @@ class _Cutter(HTMLParser):
             self.text[self.order[-1]].append(" ")
 
     def handle_endtag(self, tag):
-        if tag in ("style", "script", "title"):
+        if tag == "p" and self._reused is not None:
+            self.reused.setdefault(self.order[-1], []).append(normalise("".join(self._reused)))
+            self._reused = None
+        elif tag in ("style", "script", "title"):
             self._skip -= 1
         elif tag in ("p", "li", "td", "th", "div", "h2", "h3"):
             self.text[self.order[-1]].append(" ")
 
     def handle_data(self, data):
-        if not self._skip:
+        if self._reused is not None:
+            self._reused.append(data)
+        elif not self._skip:
             self.text[self.order[-1]].append(data)
 
 
@@ -69,24 +79,35 @@ def normalise(text: str) -> str:
     return " ".join(text.split())
 
 
-def sections(html_text: str) -> dict[str, dict]:
-    """{section id: {"text": normalised text, "figures": number of figures}}, in the report's order."""
+def _cut(html_text: str) -> _Cutter:
     cut = _Cutter()
     cut.feed(html_text)
     cut.close()
+    return cut
+
+
+def sections(html_text: str) -> dict[str, dict]:
+    """{section id: {"text": normalised text, "figures": number of figures}}, in the report's order. A
+    sentence saying that a result was reused from an earlier command is left out (see :func:`reused`)."""
+    cut = _cut(html_text)
     return {k: {"text": normalise("".join(cut.text[k])), "figures": cut.figures[k]} for k in cut.order}
 
 
-def render_demo(folder: Path) -> str:
-    """Run the demo into ``folder`` and render its report as ``linkage report --spec`` does (window found
-    in the report). Returns the HTML text."""
+def reused(html_text: str) -> dict[str, list[str]]:
+    """{section id: the sentences saying which result was reused rather than computed}."""
+    return _cut(html_text).reused
+
+
+def render_demo(folder: Path, outputs=None, name: str = "report-cli.html") -> str:
+    """Render the demo's report as ``linkage report --spec`` does (window found in the report, or reused
+    when stored), running the demo into ``folder`` first unless its ``outputs`` are given. Returns the HTML."""
     from linkage.api import report
     from linkage.demo import DEMO_DATA, run_demo
     from linkage.spec import read_spec
 
-    out = run_demo(Path(folder))
-    path = report(Path(folder) / "report-cli.html", store=out.store, models_dir=out.models_dir,
-                  model=out.model_id, spec=read_spec(DEMO_DATA / "lots" / "spec.toml"))
+    out = outputs if outputs is not None else run_demo(Path(folder))
+    path = report(Path(folder) / name, store=out.store, models_dir=out.models_dir, model=out.model_id,
+                  spec=read_spec(DEMO_DATA / "lots" / "spec.toml"))
     return Path(path).read_text(encoding="utf-8")
 
 
