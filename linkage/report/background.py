@@ -74,3 +74,26 @@ class Background:
             self._proc.join()
             self._conn.close()
             self._proc = None
+
+
+def _every_other(fn, items, start: int) -> list:
+    return [fn(item) for item in items[start::2]]
+
+
+def split_map(fn, items, *, fork: bool = True) -> list:
+    """``[fn(item) for item in items]``, the odd items in a forked child while
+    this process does the even ones (when ``fork`` and the machine allow it;
+    else all here). ``fn`` must give the same value wherever it runs (here:
+    a figure drawn to PNG bytes)."""
+    items = list(items)
+    if len(items) < 2:
+        return [fn(item) for item in items]
+    child = Background(_every_other, fn, items, 1, fork=fork)
+    try:
+        even = _every_other(fn, items, 0)
+        odd = child.result()
+    finally:
+        child.close()
+    out = [None] * len(items)
+    out[0::2], out[1::2] = even, odd
+    return out

@@ -31,6 +31,7 @@ Sections:
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from html import escape
@@ -175,6 +176,11 @@ def _table(header: list[str] | None, rows: list[list[str]], *, num_cols: set[int
 
 # ----------------------------------------------------------------- the builder
 
+#: where a figure's data URI goes until the figures are drawn (no text of a report holds a NUL)
+_FIGURE_SLOT = "\x00figure-{}\x00"
+_SLOT_RE = re.compile("\x00figure-[0-9]+\x00")
+
+
 class _Builder:
     def __init__(self):
         self.parts: list[str] = []
@@ -183,6 +189,8 @@ class _Builder:
         self.toc: list[tuple[str, str]] = []
         #: section anchor -> the sentence saying which of its results was reused rather than computed
         self.reused: dict[str, str] = {}
+        #: the figures not yet drawn to PNG, in order (their <img> holds a slot until then)
+        self.drawings: list = []
 
     def section(self, anchor: str, title: str) -> None:
         self.toc.append((anchor, title))
@@ -199,15 +207,26 @@ class _Builder:
         self.parts.append(f'<p class="note">{_e(text)}</p>')
 
     def figure(self, fig_or_ax, caption: str, alt: str | None = None) -> None:
-        from linkage.report.figures import png_data_uri
-
-        uri = png_data_uri(fig_or_ax)
+        """A figure with its caption; drawn to PNG at the end (:meth:`draw_figures`), all at once."""
         self.figures.append(caption)
+        self.drawings.append(getattr(fig_or_ax, "figure", fig_or_ax))
         n = len(self.figures)
         self.parts.append(
-            f'<figure id="figure-{n}"><img src="{uri}" alt="{_e(alt or caption)}">'
+            f'<figure id="figure-{n}"><img src="{_FIGURE_SLOT.format(n)}" alt="{_e(alt or caption)}">'
             f"<figcaption>Figure {n}. {_e(caption)}</figcaption></figure>"
         )
+
+    def draw_figures(self, parallel: bool = True) -> None:
+        """Every figure to a PNG ``data:`` URI in its place; half of them in a second process when
+        ``parallel`` and the machine allow it (the same bytes either way)."""
+        from linkage.report.background import split_map
+        from linkage.report.figures import png_data_uri
+
+        uris = split_map(png_data_uri, self.drawings, fork=parallel)
+        slots = {_FIGURE_SLOT.format(i + 1): uri for i, uri in enumerate(uris)}
+        self.parts = [_SLOT_RE.sub(lambda m: slots[m.group(0)], part) if "\x00" in part else part
+                      for part in self.parts]
+        self.drawings = []
 
 
 # ----------------------------------------------------------------- entry points
@@ -263,31 +282,35 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     from linkage.timepoint import check_time_point
 
     check_time_point(chain, spec, "report")  # a spec at another time point is refused, not reported around
+    from linkage.decide.watch import watch
+    from linkage.report.background import Background
+
     b = _Builder()
     b.reused.update(reused or {})
+    table = table.copy()
+    table["lot"] = table["lot"].astype(str)
     computed = {}
-    pending = None
+    # the two costly computations that need nothing the other sections compute start beside them
+    pending = {"watch": Background(watch, chain, table, fork=parallel)}
     if spec is not None and space is None:
         from linkage.decide.space import design_space
-        from linkage.report.background import Background
 
         args = dict(x=FORCE, y=GAP, n_grid=40, confidence=confidence, assurance=assurance, seed=seed)
-        pending = Background(design_space, chain, spec, fork=parallel, **args)
+        pending["space"] = Background(design_space, chain, spec, fork=parallel, **args)
     try:
-        html_text = _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance,
-                              plan, space, pending, computed)
+        _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
+                  pending, computed)
+        b.draw_figures(parallel)
     finally:
-        if pending is not None:
-            pending.close()
-    return Report(html=html_text, figures=list(b.figures), notes=list(b.notes), computed=computed)
+        for job in pending.values():
+            job.close()
+    return Report(html=_page(b, chain), figures=list(b.figures), notes=list(b.notes), computed=computed)
 
 
 def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
               pending, computed) -> str:
-    """Every section in order into ``b``; the page. ``computed`` gets the window and the map when they were
-    computed here."""
-    table = table.copy()
-    table["lot"] = table["lot"].astype(str)
+    """Every section in order into ``b``. ``pending``: the watch and (unless given) the map, being computed;
+    ``computed`` gets the window and the map when they were computed here."""
     limits = dict(spec.limits) if spec is not None else {}
     window_failure = None
     if spec is not None and window is None:
@@ -312,19 +335,18 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
 
     from linkage.report.space_section import space_section  # the design-space map (issue 16)
 
-    if space is None and pending is not None:
+    if space is None and "space" in pending:
         from linkage.exceptions import LinkageError
 
         try:
-            space = computed["space"] = pending.result()
+            space = computed["space"] = pending["space"].result()
         except LinkageError:
             space = None  # the section computes it again and says why there is no map
     space_section(b, chain, table, spec, confidence=confidence, assurance=assurance, seed=seed, result=space)
-    _watch_section(b, chain, table, window)
+    _watch_section(b, chain, table, window, pending["watch"].result())
     _domain_section(b, chain, table)
     _model_card(b, chain, spec, window)
     _cautions(b, chain)
-    return _page(b, chain)
 
 
 def _window_or_reason(chain, spec, confidence, seed, assurance=0.9):
@@ -1041,13 +1063,12 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
 
 # ----------------------------------------------------------------- 8. domain
 
-def _watch_section(b, chain, table, window):
-    """Drift watch: residual charts per attribute, lot-mean porosity."""
-    from linkage.decide.watch import watch
+def _watch_section(b, chain, table, window, result):
+    """Drift watch: residual charts per attribute, lot-mean porosity; ``result``: the watch of the
+    table's lots (:func:`linkage.decide.watch.watch`)."""
     from linkage.report import figures as F
 
     b.section("drift", "Drift watch")
-    result = watch(chain, table)
     b.add("<p>Each lot's residual (measured − predicted from its measured inputs) in time order: out-of-fold for "
           "the training lots, prospective for lots that arrived after training. Limits are the training "
           "residuals' mean ± 3 SD (dashed); the EWMA (λ = 0.2) with its limits (dotted) shows slow shifts. "
