@@ -56,3 +56,15 @@ def test_help_works_when_importlib_util_was_never_imported():
     result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert result.returncode == 0, result.stderr
     assert "demo" in result.stdout and "predict" in result.stdout
+
+
+def test_the_report_templates_are_package_data():
+    # a plain (non-editable) wheel holds only what package-data lists: every template must match its pattern
+    import fnmatch
+
+    from linkage.report.templating import TEMPLATES
+
+    patterns = PYPROJECT["tool"]["setuptools"]["package-data"]["linkage.report"]
+    found = sorted(p.relative_to(TEMPLATES.parent).as_posix() for p in TEMPLATES.rglob("*") if p.is_file())
+    assert found and all(any(fnmatch.fnmatch(f, pat) for pat in patterns) for f in found), found
+    assert any(d.startswith("jinja2>=") for d in PYPROJECT["project"]["dependencies"])

@@ -41,6 +41,7 @@ import numpy as np
 import pandas as pd
 
 from linkage import CAUTION, __version__
+from linkage.report.templating import Markup, macro, render
 from linkage.report.sheet import JUDGE_TEXT, STYLE as SHEET_STYLE
 
 POROSITY = "ribbon_porosity"
@@ -92,25 +93,44 @@ class Report:
 
 # ----------------------------------------------------------------- text helpers
 
-def _e(value) -> str:
+def escape_text(value) -> str:
+    """``value`` as HTML text (for the few fragments still built in Python: the section modules of
+    issues 16 and 18 until they move to templates)."""
     return escape(str(value), quote=True)
 
 
-def _f(value, digits: int = 4) -> str:
-    """A number for a table cell; "n/a" for a missing one (never a bare NaN)."""
+def number_text(value, digits: int = 4) -> str:
+    """A number for a table cell; "n/a" for a missing one (never a bare NaN); text as it is."""
     if value is None:
         return "n/a"
     try:
         v = float(value)
     except (TypeError, ValueError):
-        return _e(value)
+        return str(value)
     if not math.isfinite(v):
         return "n/a" if math.isnan(v) else ("∞" if v > 0 else "−∞")
     return f"{v:.{digits}g}"
 
 
-def _pm(value, se, digits: int = 4) -> str:
-    return _f(value, digits) if se is None else f"{_f(value, digits)} ± {_f(se, 2)}"
+def plus_minus_text(value, se, digits: int = 4) -> str:
+    """"value ± se", or the value alone without a standard error."""
+    return number_text(value, digits) if se is None else f"{number_text(value, digits)} ± {number_text(se, 2)}"
+
+
+def _e(value) -> str:  # the old name, for the section modules of issues 16 and 18 (they build HTML text)
+    return escape_text(value)
+
+
+def _f(value, digits: int = 4) -> str:  # the old name, as above: escaped HTML text
+    return number_text(value, digits) if _is_number(value) else escape_text(number_text(value, digits))
+
+
+def _is_number(value) -> bool:
+    try:
+        float(value)
+    except (TypeError, ValueError):
+        return value is None
+    return True
 
 
 def _tiny_to_zero(value, scale):
@@ -122,10 +142,10 @@ def _tiny_to_zero(value, scale):
 
 
 def _lots_text(lots, limit: int = 12) -> str:
+    """The first ``limit`` lots, and how many more (plain text)."""
     lots = [str(v) for v in lots]
-    shown = ", ".join(_e(v) for v in lots[:limit])
     more = len(lots) - limit
-    return shown + (f" and {more} more" if more > 0 else "")
+    return ", ".join(lots[:limit]) + (f" and {more} more" if more > 0 else "")
 
 
 def _limit_text(limit) -> str:
@@ -144,34 +164,34 @@ def _coverage_regions(target) -> str:
     regions = getattr(target, "coverage_by_region", None)
     if not regions:
         return ""
-    variable = getattr(target, "coverage_region_variable", None) or "region"
     rows = []
     for r in regions:
         lo, hi = r["range"]
         cov = "no lots" if r["coverage"] is None else f"{100 * r['coverage']:.0f}%"
         rows.append([f"{lo:.4g}–{hi:.4g}", str(r["n"]), cov, f"{100 * r['ci_low']:.0f}–{100 * r['ci_high']:.0f}%"])
-    choice = getattr(target, "interval_choice", None) or {}
-    guarantee = getattr(target, "coverage_guarantee", None) or {}
-    text = (f"<p class=small>Coverage of the {100 * target.nominal_coverage:.0f}% "
-            f"{_e(choice.get('method', 'CV+'))} intervals on unseen lots (nested CV) by third of the training range "
-            f"of {_e(variable)}, with a 95% Clopper–Pearson interval (Clopper &amp; Pearson 1934) beside each "
-            "figure. "
-            f"{_e(guarantee.get('text', ''))}. {_e(choice.get('reason', ''))}.</p>")
-    return text + _table([f"{variable}", "lots", "coverage", "95% interval"], rows)
+    return _part("models", "coverage_regions", nominal=f"{100 * target.nominal_coverage:.0f}",
+                 variable=getattr(target, "coverage_region_variable", None) or "region", rows=rows,
+                 choice=getattr(target, "interval_choice", None) or {},
+                 guarantee=getattr(target, "coverage_guarantee", None) or {})
+
+
+def _part(template: str, which: str, **context) -> Markup:
+    """The macro ``which`` of ``templates/<template>.html.j2`` with ``context`` (escaped unless Markup)."""
+    return macro(f"{template}.html.j2", which)(**context)
+
+
+def table_html(header: list | None, rows: list[list], *, num_cols: set[int] | None = None,
+               row_class: list[str] | None = None) -> Markup:
+    """An HTML table (``templates/blocks.html.j2``); cells are escaped unless they are Markup."""
+    return _part("blocks", "table", header=header, rows=rows, num_cols=num_cols or set(), row_class=row_class)
 
 
 def _table(header: list[str] | None, rows: list[list[str]], *, num_cols: set[int] | None = None,
            row_class: list[str] | None = None) -> str:
-    """An HTML table from already-escaped cells."""
-    num_cols = num_cols or set()
-    head = "" if header is None else "<tr>" + "".join(
-        f"<th{' class=num' if i in num_cols else ''}>{h}</th>" for i, h in enumerate(header)) + "</tr>"
-    body = []
-    for r, row in enumerate(rows):
-        cls = f" class={row_class[r]}" if row_class and row_class[r] else ""
-        cells = "".join(f"<td{' class=num' if i in num_cols else ''}>{c}</td>" for i, c in enumerate(row))
-        body.append(f"<tr{cls}>{cells}</tr>")
-    return f"<table>{head}{''.join(body)}</table>"
+    """An HTML table from already-escaped cells (for the section modules of issues 16 and 18, which
+    escape their cells themselves until they move to templates)."""
+    return str(table_html(None if header is None else [Markup(h) for h in header],
+                          [[Markup(c) for c in row] for row in rows], num_cols=num_cols, row_class=row_class))
 
 
 # ----------------------------------------------------------------- the builder
@@ -194,27 +214,27 @@ class _Builder:
 
     def section(self, anchor: str, title: str) -> None:
         self.toc.append((anchor, title))
-        self.parts.append(f'<h2 id="{anchor}">{_e(title)}</h2>')
+        self.parts.append(_part("blocks", "heading", anchor=anchor, title=title))
         if anchor in self.reused:  # a result reused from an earlier command says so under its heading
-            self.parts.append(f'<p class="reused">{_e(self.reused[anchor])}</p>')
+            self.parts.append(_part("blocks", "reused", text=self.reused[anchor]))
 
     def add(self, html_text: str) -> None:
-        self.parts.append(html_text)
+        """A fragment of HTML: Markup from a template (or, from a section module not yet on templates,
+        text it escaped itself)."""
+        self.parts.append(str(html_text))
 
     def note(self, text: str) -> None:
         """A visible note in place of something that could not be drawn."""
         self.notes.append(text)
-        self.parts.append(f'<p class="note">{_e(text)}</p>')
+        self.parts.append(_part("blocks", "note", text=text))
 
     def figure(self, fig_or_ax, caption: str, alt: str | None = None) -> None:
         """A figure with its caption; drawn to PNG at the end (:meth:`draw_figures`), all at once."""
         self.figures.append(caption)
         self.drawings.append(getattr(fig_or_ax, "figure", fig_or_ax))
         n = len(self.figures)
-        self.parts.append(
-            f'<figure id="figure-{n}"><img src="{_FIGURE_SLOT.format(n)}" alt="{_e(alt or caption)}">'
-            f"<figcaption>Figure {n}. {_e(caption)}</figcaption></figure>"
-        )
+        self.parts.append(_part("blocks", "figure", n=n, src=Markup(_FIGURE_SLOT.format(n)), alt=alt or caption,
+                                caption=caption))
 
     def draw_figures(self, parallel: bool = True) -> None:
         """Every figure to a PNG ``data:`` URI in its place; half of them in a second process when
@@ -361,22 +381,11 @@ def _window_or_reason(chain, spec, confidence, seed, assurance=0.9):
 
 
 def _page(b: _Builder, chain) -> str:
-    made = datetime.now(timezone.utc).isoformat(timespec="seconds")
-    toc = "".join(f'<li><a href="#{a}">{_e(t)}</a></li>' for a, t in b.toc)
-    return f"""<!DOCTYPE html>
-<html lang="en"><head><meta charset="utf-8">
-<meta name="viewport" content="width=device-width, initial-scale=1">
-<meta name="figures" content="{len(b.figures)}">
-<title>Lot linkage report – model {_e(chain.model_id or "unsaved")}</title>
-<style>{SHEET_STYLE}{EXTRA_STYLE}</style></head><body>
-<h1>Lot linkage report</h1>
-<p class=meta>Model {_e(chain.model_id or "unsaved")} · trained {_e(chain.created_at)} · report made {_e(made)} ·
-linkage {_e(__version__)}</p>
-<div class="caution"><b>Caution.</b> {_e(CAUTION)}</div>
-<nav><ol>{toc}</ol></nav>
-{''.join(b.parts)}
-</body></html>
-"""
+    """The whole page (``templates/page.html.j2``)."""
+    return str(render("page.html.j2", n_figures=len(b.figures), model_id=chain.model_id or "unsaved",
+                      created_at=chain.created_at, made=datetime.now(timezone.utc).isoformat(timespec="seconds"),
+                      version=__version__, caution=CAUTION, toc=b.toc, style=Markup(SHEET_STYLE + EXTRA_STYLE),
+                      body=Markup("".join(b.parts)))) + "\n"
 
 
 # ----------------------------------------------------------------- small accessors
@@ -417,54 +426,33 @@ def _stage_of(chain, name: str):
 
 def _glance(b, chain, table, spec, window):
     b.section("glance", "At a glance")
-    n_train = int(chain.training.get("n_lots", len(chain.training.get("lots", []))))
-    items = [f"{len(table)} lots in the assembled table; the model was trained on {n_train}."]
-    chosen = ", ".join(f"{_e(name)}: {_e(t.selected)}" for name, t in chain.targets.items())
-    items.append(f"Models chosen by cross-validation: {chosen}.")
+    time_point = None
     if "dissolution_pct" in chain.targets:
         from linkage.timepoint import time_point_text
 
         text = time_point_text(chain)
-        items.append(_e(text[0].upper() + text[1:]) + ".")
-    if spec is not None:
-        items.append(f"Specification <b>{_e(spec.file or '(not read from a file)')}</b>, SHA-256 "
-                     f"<code>{_e(spec.sha256 or '(none)')}</code>; each attribute's judge and time point are in the "
-                     "window section.")
-    every = _every(window)
-    if window is not None and window.not_modelled:
-        items.append(f"<b>Not judged</b> (not predicted from porosity by this model): "
-                     f"{_e(', '.join(window.not_modelled))}. The window and its probabilities cover {_e(every)}.")
+        time_point = text[0].upper() + text[1:]
     if spec is None:
-        items.append("No specification was given, so no porosity window is shown (give <code>--spec</code>).")
+        state = "no spec"
     elif window is None:
-        items.append("A specification was given but the porosity window could not be computed (see the window "
-                     "section).")
-    elif window.found and not window.promise:
+        state = "failed"
+    else:
+        state = "no promise" if window.found and not window.promise else "found" if window.found else "none"
+    why = None
+    if state == "no promise":
         why = ("the model has no bootstrap replicates, so the probability has no lower bound"
                if not (window.bound or {}).get("available", True) else
                "the held settings are outside the applicability domain (an extrapolation)")
-        items.append(
-            f"Ribbon porosity window {window.low.value:.3f} – {window.high.value:.3f}: <b>no probability is "
-            f"promised</b>, {why}; see the window section.")
-    elif window.found:
-        items.append(
-            f"<b>Ribbon porosity window: {window.low.value:.3f} – {window.high.value:.3f}</b> "
-            f"(probability at least {window.confidence:.0%}, with {window.assurance:.0%} assurance, that a lot meets "
-            f"{_e(every)} together; the point estimate reaches it over "
-            f"{_range(window.point_low, window.point_high, 3)}); "
-            f"low edge {_edge_text(window.low.limited_by)}, high edge {_edge_text(window.high.limited_by)}.")
-        rf = window.roll_force or {}
-        if rf.get("low") is not None:
-            items.append(f"Roll force: <b>{rf['low']:.2f} – {rf['high']:.2f} kN/cm</b> (every specification at "
-                         f"least {window.confidence:.0%} with {window.assurance:.0%} assurance, through the whole "
-                         f"chain; point estimate {_range(rf.get('point_low'), rf.get('point_high'), 2)} kN/cm) with "
-                         "the other settings as listed in the window section.")
-        elif rf.get("reason"):
-            items.append(f"Roll force: {_e(rf['reason'])}.")
-    else:
-        items.append(f"<b>No porosity window</b>: at no porosity in the training range does the probability of "
-                     f"meeting {_e(every)} together reach {window.confidence:.0%}.")
-    b.add("<ul>" + "".join(f"<li>{i}</li>" for i in items) + "</ul>")
+    rf = (window.roll_force or {}) if window is not None else {}
+    b.add(_part("glance", "glance", n_lots=len(table),
+                n_train=int(chain.training.get("n_lots", len(chain.training.get("lots", [])))),
+                chosen=[(name, t.selected) for name, t in chain.targets.items()], time_point=time_point,
+                spec=spec, not_modelled=window.not_modelled if window is not None else [], every=_every(window),
+                state=state, window=window, why=why, rf=rf,
+                point_range=_range(window.point_low, window.point_high, 3) if state == "found" else None,
+                rf_range=_range(rf.get("point_low"), rf.get("point_high"), 2),
+                low_edge=_edge_text(window.low.limited_by) if window is not None else None,
+                high_edge=_edge_text(window.high.limited_by) if window is not None else None))
 
 
 def _every(window) -> str:
@@ -478,12 +466,9 @@ def _range(low, high, digits: int) -> str:
     return "no range" if low is None or high is None else f"{low:.{digits}f} – {high:.{digits}f}"
 
 
-def _edge_text(limited_by) -> str:
-    if limited_by is None:
-        return "not found"
-    if limited_by == "data range":
-        return "cut by the range of the training data, not by a specification"
-    return f"limited by <b>{_e(limited_by)}</b>"
+def _edge_text(limited_by) -> Markup:
+    """What cut a window edge, in words (HTML)."""
+    return _part("glance", "edge", limited_by=limited_by)
 
 
 # ----------------------------------------------------------------- 2. data
@@ -531,20 +516,18 @@ def _data_section(b, chain, table, lots):
     from linkage.report import figures as F
 
     b.section("lots", "The lots")
-    n = len(table)
-    parts = [f"{n} lots in the assembled table"]
+    made = None
     if "manufactured_at" in table.columns and table["manufactured_at"].notna().any():
         when = pd.to_datetime(table["manufactured_at"], errors="coerce", utc=True).dropna()
         if len(when):
-            parts.append(f"made {when.min():%Y-%m-%d} to {when.max():%Y-%m-%d}")
-    for col, word in (("product", "products"), ("compactor", "compactors")):
-        if col in table.columns and table[col].notna().any():
-            counts = table[col].dropna().astype(str).value_counts()
-            parts.append(f"{word}: " + ", ".join(f"{_e(k)} ({v})" for k, v in counts.items()))
-    b.add("<p>" + "; ".join(parts) + ". Lots are shown in time order throughout.</p>")
+            made = f"{when.min():%Y-%m-%d} to {when.max():%Y-%m-%d}"
+    counts = [(word, list(table[col].dropna().astype(str).value_counts().items()))
+              for col, word in (("product", "products"), ("compactor", "compactors"))
+              if col in table.columns and table[col].notna().any()]
+    b.add(_part("lots", "summary", n=len(table), made=made, counts=counts))
 
     present, source = _presence(table, lots)
-    b.add("<h3>Which tables each lot has</h3>")
+    b.add(_part("blocks", "h3", text="Which tables each lot has"))
     if present.empty or present.shape[1] == 0:
         b.note("No completeness information: the table has no lots.")
     else:
@@ -554,37 +537,36 @@ def _data_section(b, chain, table, lots):
             filled = ""
             if lots is not None and f"{t}_filled_pct" in lots.columns:
                 v = lots[f"{t}_filled_pct"].dropna()
-                filled = _f(v.mean(), 3) if len(v) else "n/a (no rows)"
-            rows.append([_e(t), str(k), f"{100 * k / len(present):.0f}%"] + ([filled] if lots is not None else []))
+                filled = number_text(v.mean(), 3) if len(v) else "n/a (no rows)"
+            rows.append([t, str(k), f"{100 * k / len(present):.0f}%"] + ([filled] if lots is not None else []))
         header = ["table", "lots with rows", "share of lots"] + (
             ["mean filled cells of those lots [%]"] if lots is not None else [])
-        b.add(_table(header, rows, num_cols={1, 2, 3}))
-        b.add(f"<p class=small>From {_e(source)}.</p>")
+        b.add(table_html(header, rows, num_cols={1, 2, 3}))
+        b.add(_part("blocks", "para", text=f"From {source}.", cls="small"))
         b.figure(F.plot_completeness(present), "Tables present per lot (blue) and missing (grey), lots in time order.")
 
-    b.add("<h3>Ranges</h3>")
-    numeric = [c for c in table.columns if c != "lot" and pd.api.types.is_numeric_dtype(table[c])
-               and not pd.api.types.is_bool_dtype(table[c])]
+    b.add(_part("blocks", "h3", text="Ranges"))
+    b.add(table_html(["column", "unit", "lots with a value", "min", "median", "max"], _ranges(table),
+                     num_cols={2, 3, 4, 5}))
+    b.add(_part("blocks", "h3", text="Lots a model left out, and why"))
+    b.add(_exclusions(chain, table))
+    b.add(_part("blocks", "h3", text="Notes from assembling the table"))
+    b.add(_part("lots", "assembly_notes", notes=list(table.attrs.get("notes", []) or [])))
+
+
+def _ranges(table) -> list[list[str]]:
+    """Per numeric column: name, unit, lots with a value, min, median, max."""
+    from linkage.report.figures import shown_unit
+
     rows = []
-    for c in numeric:
+    for c in table.columns:
+        if c == "lot" or not pd.api.types.is_numeric_dtype(table[c]) or pd.api.types.is_bool_dtype(table[c]):
+            continue
         v = table[c].astype(float)
         v = v[np.isfinite(v)]
-        unit = F.shown_unit(c)
-        rows.append([_e(c), _e(unit), str(len(v)), _f(v.min() if len(v) else None),
-                     _f(v.median() if len(v) else None), _f(v.max() if len(v) else None)])
-    b.add(_table(["column", "unit", "lots with a value", "min", "median", "max"], rows, num_cols={2, 3, 4, 5}))
-
-    b.add("<h3>Lots a model left out, and why</h3>")
-    b.add(_exclusions(chain, table))
-
-    notes = list(table.attrs.get("notes", []) or [])
-    b.add("<h3>Notes from assembling the table</h3>")
-    if notes:
-        items = "".join(f"<li>{_e(n_)}</li>" for n_ in notes)
-        b.add(f"<details><summary>{len(notes)} value(s) could not be derived (open for the list)</summary>"
-              f"<ul class=small>{items}</ul></details>")
-    else:
-        b.add("<p>Every derived value could be computed; the assembly left no notes.</p>")
+        rows.append([c, shown_unit(c), str(len(v)), number_text(v.min() if len(v) else None),
+                     number_text(v.median() if len(v) else None), number_text(v.max() if len(v) else None)])
+    return rows
 
 
 def _exclusions(chain, table) -> str:
@@ -604,13 +586,11 @@ def _exclusions(chain, table) -> str:
                 gone = [c for c in need if c not in t.columns or pd.isna(t.at[lot, c])]
                 why = ("no value of " + ", ".join(gone)) if gone else "left out by the training step"
             reasons.setdefault(why, []).append(lot)
-        if not reasons:
-            continue
         for why, lots_ in reasons.items():
-            rows.append([_e(name), _e(why), str(len(lots_)), f"<span class=lots>{_lots_text(lots_)}</span>"])
+            rows.append([name, why, str(len(lots_)), _part("blocks", "lots", values=_lots_text(lots_))])
     if not rows:
-        return "<p>Every lot of the table was used for every attribute.</p>"
-    return _table(["attribute", "why", "lots", "which"], rows, num_cols={2})
+        return str(_part("lots", "all_used"))
+    return str(table_html(["attribute", "why", "lots", "which"], rows, num_cols={2}))
 
 
 # ----------------------------------------------------------------- 3. ribbon
@@ -664,8 +644,8 @@ def _ribbon_section(b, chain, table, limits):
                     ", other settings held coherently (their conditional mean given force and gap over the "
                     "training lots, Anderson 2003, Thm 2.5.1)")
                  + "." + binned)
-    b.add(f"<p>Selected model: <b>{_e(target.selected)}</b>; cross-validated RMSE "
-          f"{_f(target.candidates[target.selected]['rmse'])} (porosity, a fraction), on {target.n_lots} lots.</p>")
+    b.add(_part("models", "ribbon_selected", selected=target.selected,
+                rmse=number_text(target.candidates[target.selected]["rmse"]), n_lots=target.n_lots))
 
 
 def _gap_levels(gap: np.ndarray, most: int = 6) -> np.ndarray:
@@ -685,11 +665,7 @@ def _baseline_section(b, chain, table, limits):
     from linkage.report import figures as F
 
     b.section("baseline", "Strength–porosity baseline (Ryshkewitch–Duckworth)")
-    b.add("<p>Each attribute predicted from ribbon porosity is also fitted as y = y<sub>0</sub>·exp(−k·ε) of "
-          "ribbon porosity ε alone (Ryshkewitch 1953; Duckworth 1953), by non-linear least squares; standard errors "
-          "from the "
-          "covariance of the fit. For tensile strength this is the physical law; for the other attributes it is "
-          "a physically shaped reference every learned model must beat.</p>")
+    b.add(_part("models", "baseline_intro"))
     fitted = [(name, t) for name, t in chain.targets.items() if getattr(t, "rd_params", None)]
     if not fitted:
         b.note("No attribute has a Ryshkewitch–Duckworth fit: none is predicted from ribbon_porosity with at "
@@ -700,10 +676,11 @@ def _baseline_section(b, chain, table, limits):
         p = t.rd_params
         rd = t.candidates.get("rd_baseline", {})
         sel = t.candidates.get(t.selected, {})
-        rows.append([_e(name), _e(F.shown_unit(name)), _pm(p.get("s0"), p.get("s0_se")),
-                     _pm(p.get("k"), p.get("k_se")), _f(rd.get("rmse")), _e(t.selected), _f(sel.get("rmse"))])
-    b.add(_table(["attribute", "unit", "y₀ ± SE", "k ± SE [-]", "baseline CV RMSE", "selected model",
-                  "selected CV RMSE"], rows, num_cols={2, 3, 4, 6}))
+        rows.append([name, F.shown_unit(name), plus_minus_text(p.get("s0"), p.get("s0_se")),
+                     plus_minus_text(p.get("k"), p.get("k_se")), number_text(rd.get("rmse")), t.selected,
+                     number_text(sel.get("rmse"))])
+    b.add(table_html(["attribute", "unit", "y₀ ± SE", "k ± SE [-]", "baseline CV RMSE", "selected model",
+                      "selected CV RMSE"], rows, num_cols={2, 3, 4, 6}))
     fig, axes = F.grid_axes(len(fitted), ncols=min(3, len(fitted)), panel=(2.5, 2.0))
     t_lot = _by_lot(table)
     for ax, (name, t) in zip(axes, fitted):
@@ -721,27 +698,21 @@ def _attribute_section(b, chain, table, limits):
     from linkage.report import figures as F
 
     b.section("attributes", "Attribute by attribute: cross-validated performance")
-    b.add("<p>Every candidate model was scored on lots it had not seen (cross-validation grouped by lot). "
-          "RMSE/noise compares the error with the measurement noise floor: near 1, the model is as good as the "
-          "measurement allows. Q² is the cross-validated share of variance explained. Bias is the mean of "
-          "predicted − observed. The selected row is shaded.</p>")
+    b.add(_part("models", "attributes_intro"))
     for name, why in (getattr(chain, "skipped", None) or {}).items():
         b.note(f"{name} was not modelled: {why}")
     for name, target in chain.targets.items():
         unit = F.shown_unit(name)
-        b.add(f"<h3>{_e(name)} [{_e(unit)}]</h3>")
         cv = target.cv or {}
         cov = target.coverage
-        folds = f" ({cv['n_splits']} folds)" if cv.get("n_splits") else ""
-        coverage = "not measured" if cov is None else f"{100 * cov:.3g}%"
-        b.add(
-            f"<p class=small>Stage {_e(target.stage)}; inputs {_e(', '.join(target.inputs))}; {target.n_lots} "
-            f"lots; {_e(cv.get('scheme', 'cross-validation'))}{_e(folds)}; selected <b>{_e(target.selected)}</b>. "
-            f"Interval coverage on unseen lots: {coverage} for a nominal {100 * target.nominal_coverage:.0f}%.</p>")
+        b.add(_part("models", "attribute_head", name=name, unit=unit, target=target,
+                    scheme=cv.get("scheme", "cross-validation"),
+                    folds=f" ({cv['n_splits']} folds)" if cv.get("n_splits") else "",
+                    coverage="not measured" if cov is None else f"{100 * cov:.3g}%"))
         b.add(_candidate_table(target, unit))
         b.add(_coverage_regions(target))
         for note in getattr(target, "notes", None) or []:
-            b.add(f"<p class=small>Note: {_e(note)}</p>")
+            b.add(_part("blocks", "para", text=f"Note: {note}", cls="small"))
         oof = target.oof
         lots = [str(v) for v in oof.index]
         known = set(table["lot"])
@@ -765,30 +736,31 @@ def _attribute_section(b, chain, table, limits):
 
 
 def _candidate_table(target, unit: str) -> str:
+    """Every candidate's cross-validated scores, the ones not used with why, and the noise floor."""
     rows, classes = [], []
     from linkage.models.cv import SIMPLICITY_ORDER as order
 
     names = sorted(target.candidates, key=lambda n: (order.index(n) if n in order else len(order), n))
-    for n in names:
-        c = target.candidates[n]
-        mark = " ✓ selected" if n == target.selected else ""
-        rows.append([_e(n) + mark, _e(CANDIDATE_ROLE.get(n, "")), _pm(c.get("rmse"), c.get("rmse_se")),
-                     _f(c.get("mae")), _f(c.get("q2"), 3), _f(_tiny_to_zero(c.get("bias"), c.get("rmse"))),
-                     _f(c.get("rmse_over_noise"), 3)])
-        classes.append("sel" if n == target.selected else "")
-    for n, why in (getattr(target, "unavailable", None) or {}).items():
-        role = _e(CANDIDATE_ROLE.get(n, ""))
-        rows.append([_e(n), (f"{role}; " if role else "") + f"<i>not used: {_e(why)}</i>", "–", "–", "–", "–", "–"])
+    for name in names:
+        c = target.candidates[name]
+        rows.append([_part("models", "candidate_name", name=name, selected=name == target.selected),
+                     CANDIDATE_ROLE.get(name, ""), plus_minus_text(c.get("rmse"), c.get("rmse_se")),
+                     number_text(c.get("mae")), number_text(c.get("q2"), 3),
+                     number_text(_tiny_to_zero(c.get("bias"), c.get("rmse"))),
+                     number_text(c.get("rmse_over_noise"), 3)])
+        classes.append("sel" if name == target.selected else "")
+    for name, why in (getattr(target, "unavailable", None) or {}).items():
+        rows.append([name, _part("models", "not_used", role=CANDIDATE_ROLE.get(name, ""), why=why),
+                     "–", "–", "–", "–", "–"])
         classes.append("")
-    method = getattr(target, "noise_floor_method", None) or "not estimated"
     # the noise floor's own row: its RMSE/noise is 1 by definition
-    rows.append(["noise floor", "repeatability of the lot mean", _f(target.noise_floor), "–", "–", "–",
+    rows.append(["noise floor", "repeatability of the lot mean", number_text(target.noise_floor), "–", "–", "–",
                  "1" if target.noise_floor else "n/a"])
     classes.append("")
-    table = _table(["model", "what it is", f"CV RMSE ± SE [{_e(unit)}]", "MAE", "Q²", "bias", "RMSE/noise"],
-                   rows, num_cols={2, 3, 4, 5, 6}, row_class=classes)
-    return table + (f"<p class=small>Noise floor: {_e(method)}. n/a: not available (no noise estimate for this "
-                    "attribute, or no variance to compute Q² from).</p>")
+    table = table_html(["model", "what it is", f"CV RMSE ± SE [{unit}]", "MAE", "Q²", "bias", "RMSE/noise"],
+                       rows, num_cols={2, 3, 4, 5, 6}, row_class=classes)
+    method = getattr(target, "noise_floor_method", None) or "not estimated"
+    return table + _part("models", "noise_note", method=method)
 
 
 # ----------------------------------------------------------------- 6. explanations
@@ -798,15 +770,11 @@ def _explain_section(b, chain, table, limits, window, curve_draws, seed):
     from linkage.report import figures as F
 
     b.section("explanations", "Why the models predict what they do")
-    b.add("<p>Contributions split each lot's prediction into one term per input on top of a base value: SHAP "
-          "values (TreeExplainer; Lundberg &amp; Lee 2017) for boosting, exact linear terms (coefficient × centred "
-          "input) for PLS, exact interventional Shapley terms for the ridge model. They add up to the prediction "
-          "minus the base value. VIP (variable importance in projection; Wold, Johansson &amp; Cocchi 1993) comes "
-          "from the PLS candidate; above 1 is usually read as important (rule of thumb).</p>")
+    b.add(_part("explain", "intro"))
     importance = {}
     for name, target in chain.targets.items():
         X = _inputs_of(target, table)
-        b.add(f"<h3>{_e(name)}</h3>")
+        b.add(_part("blocks", "h3", text=name))
         if X.empty:
             b.note(f"{name}: none of its training lots has every input in this table, so no contributions.")
             continue
@@ -834,22 +802,20 @@ def _explain_section(b, chain, table, limits, window, curve_draws, seed):
             what.append("VIP of the PLS candidate" + (" (the selected model)" if target.selected == "pls" else ""))
         b.figure(fig, f"{name}: " + "; ".join(what) + ".")
         if all_zero:
-            b.add(f"<p class=small>The selected model ({_e(target.selected)}) predicts the training mean; no "
-                  "input contributes.</p>")
+            b.add(_part("explain", "predicts_mean", selected=target.selected))
     if importance:
-        b.add("<h3>Global importance</h3><p>Mean absolute contribution of each input over the training lots, as "
-              "a share of the total for that attribute.</p>")
+        b.add(_part("explain", "importance_head"))
         inputs = list(dict.fromkeys(i for s in importance.values() for i in s.index))
         rows = []
         for inp in inputs:
-            row = [_e(inp)]
+            row = [inp]
             for name, s in importance.items():
                 total = float(s.sum())
                 row.append(f"{100 * s[inp] / total:.0f}%" if inp in s.index and total > 0 else "–")
             rows.append(row)
-        b.add(_table(["input"] + [_e(n).replace("_", "_<wbr>") for n in importance], rows,
-                     num_cols=set(range(1, len(importance) + 1))))
-        b.add("<p class=small>–: not an input of that attribute's stage, or the model ignores every input.</p>")
+        b.add(table_html(["input"] + [_part("explain", "breakable", name=n) for n in importance], rows,
+                         num_cols=set(range(1, len(importance) + 1))))
+        b.add(_part("explain", "importance_note"))
 
     _curves(b, chain, table, limits, window, curve_draws, seed)
     _latest_lot(b, chain, table)
@@ -860,7 +826,7 @@ def _curves(b, chain, table, limits, window, curve_draws, seed):
     from linkage.exceptions import LinkageError
     from linkage.report import figures as F
 
-    b.add("<h3>Each attribute against ribbon porosity, through the chain</h3>")
+    b.add(_part("blocks", "h3", text="Each attribute against ribbon porosity, through the chain"))
     try:
         curves = explain.porosity_curves(chain, n_grid=41, n_draws=curve_draws, level=chain.nominal_coverage,
                                          seed=seed)
@@ -889,7 +855,7 @@ def _curves(b, chain, table, limits, window, curve_draws, seed):
 def _latest_lot(b, chain, table):
     from linkage import explain
 
-    b.add("<h3>The most recent lot, input by input</h3>")
+    b.add(_part("blocks", "h3", text="The most recent lot, input by input"))
     rows = []
     for name, target in chain.targets.items():
         X = _inputs_of(target, table, lots=list(table["lot"]))
@@ -899,22 +865,20 @@ def _latest_lot(b, chain, table):
         one = explain.lot_contributions(target, table, lots=[lot]).iloc[0]
         parts = one[target.inputs]
         top = parts.abs().sort_values(ascending=False).index[:3]
-        text = ", ".join(f"{_e(k)} {parts[k]:+.3g}" for k in top if parts[k] != 0) or \
+        text = ", ".join(f"{k} {parts[k]:+.3g}" for k in top if parts[k] != 0) or \
             "none (the model predicts the mean)"
-        rows.append([_e(name), _e(lot), _f(one["base_value"]), _f(one["prediction"]), text])
+        rows.append([name, lot, number_text(one["base_value"]), number_text(one["prediction"]), text])
     if not rows:
         b.note("No lot of the table has every input of any attribute, so no lot can be explained.")
         return
-    b.add(_table(["attribute", "lot", "base value", "prediction", "largest contributions"], rows, num_cols={2, 3}))
-    b.add("<p class=small>Each attribute's most recent lot that has all of that stage's measured inputs. "
-          "Prediction = base value + the sum of all contributions.</p>")
+    b.add(table_html(["attribute", "lot", "base value", "prediction", "largest contributions"], rows,
+                     num_cols={2, 3}))
+    b.add(_part("explain", "latest_note"))
 
 
 # ----------------------------------------------------------------- 7. window
 
 def _window_section(b, chain, table, spec, window, failure: str | None = None):
-    from linkage.report import figures as F
-
     b.section("window", "Porosity window")
     if spec is None:
         b.note("No specification was given (--spec spec.toml), so there are no limits and no window to show.")
@@ -922,86 +886,74 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
     if window is None:
         b.note(f"The window could not be computed: {failure or 'no window was given'}.")
         return
-    w = window
+    _window_text(b, chain, window)
+    _window_spec(b, spec, window)
+    _window_figures(b, spec, window)
+    _roll_force(b, table, window)
+
+
+def _window_text(b, chain, w):
+    """How the window is found, whether it is promised, and where it is."""
     every = _every(w)
     bound = w.bound or {}
-    b.add(f"<p>Ribbon porosity is scanned over the training range {w.data_range[0]:.3f} – {w.data_range[1]:.3f}. "
-          f"At each porosity, {w.n_draws} lots are simulated through the chain (the point estimate of the "
-          f"probability of meeting {_e(every)} together). The probability has its own uncertainty, since "
-          f"it is estimated from {chain.training.get('n_lots', '')} lots: the window is where its <b>lower bound "
-          f"at {w.assurance:.0%} assurance</b> reaches {w.confidence:.0%}.</p>")
+    b.add(_part("window", "scan", w=w, every=every, n_lots=chain.training.get("n_lots", "")))
     if w.not_modelled:
-        b.add(f'<div class="out"><b>Not judged</b>: {_e(", ".join(w.not_modelled))} (the model does not '
-              "predict it from ribbon porosity); the window says nothing about it.</div>")
+        b.add(_part("window", "not_judged", names=w.not_modelled))
     if bound.get("available"):
-        b.add(f"<p class=small>Method of the bound: {_e(bound.get('method') or '')}; B = {bound.get('n_replicates')} "
-              f"replicates. Each replicate refits the selected model of every stage on lots drawn with replacement "
-              f"and simulates the chain with the drawn lots' out-of-fold residuals. At one porosity alone the bound "
-              f"would be the {100 * (1 - w.assurance):g}th percentile of the replicates' probabilities (Efron &amp; "
-              f"Tibshirani 1993, §13.3; the thin dash-dot line); since the window is a statement about a whole range, "
-              f"its bound holds over the range at once: one percentile for every porosity"
-              + (f" (here the {100 * bound['simultaneous']['quantile']:.2f}th)" if bound.get("simultaneous") else "")
-              + ", the highest at which a fraction equal to the assurance of the replicates lies above the band "
-              f"everywhere the point estimate reaches {w.confidence:.0%} (Montiel Olea &amp; Plagborg-Møller 2019). "
-              f"The bound is never above the point estimate. It does not carry the uncertainty of the choice of "
-              f"model or of its hyper-parameters, which are held at those selected on all lots.</p>")
+        simultaneous = bound.get("simultaneous")
+        b.add(_part("window", "bound_method", w=w, bound=bound, pointwise_percentile=f"{100 * (1 - w.assurance):g}",
+                    simultaneous=f"{100 * simultaneous['quantile']:.2f}" if simultaneous else None))
     if not w.promise:
         from linkage.report.sheet import WINDOW_NO_PROMISE
 
         domain_reasons = [r for r in w.promise_reasons if r != bound.get("reason")]
         if domain_reasons:
-            items = "".join(f"<li>{_e(r)}</li>" for r in domain_reasons)
-            b.add(f'<div class="out"><b>{_e(WINDOW_NO_PROMISE)}</b><ul>{items}</ul></div>')
+            b.add(_part("window", "no_promise", title=WINDOW_NO_PROMISE, reasons=domain_reasons))
         if not bound.get("available", True):
-            b.add(f'<div class="out"><b>No lower bound.</b> {_e(bound.get("reason") or "")} The window below is '
-                  f'the point estimate\'s, and nothing is promised.</div>')
+            b.add(_part("window", "no_bound", reason=bound.get("reason") or ""))
+    point_range = _range(w.point_low, w.point_high, 3)
     if w.found:
-        b.add(f"<p><b>Window: {w.low.value:.3f} – {w.high.value:.3f}</b> (probability at least {w.confidence:.0%} "
-              f"with {w.assurance:.0%} assurance). Low edge {_edge_text(w.low.limited_by)}; "
-              f"high edge {_edge_text(w.high.limited_by)}.</p>")
-        if bound.get("available"):
-            b.add(f"<p>Beside it, where the point estimate reaches {w.confidence:.0%}: "
-                  f"{_range(w.point_low, w.point_high, 3)} (not promised: the point estimate is right only on "
-                  f"average).</p>")
-        if len(w.segments) > 1:
-            b.add("<p>Other passing ranges: " + ", ".join(f"{a:.3f} – {c:.3f}" for a, c in w.segments) + ".</p>")
+        b.add(_part("window", "found", w=w, low_edge=_edge_text(w.low.limited_by),
+                    high_edge=_edge_text(w.high.limited_by), bound_available=bound.get("available"),
+                    point_range=point_range, segments=w.segments))
     else:
-        b.add("<p><b>No window</b>: the "
-              + (f"lower bound ({w.assurance:.0%} assurance) of the " if bound.get("available") else "")
-              + f"probability of meeting {_e(every)} together stays below {w.confidence:.0%} across the "
-              "training range.</p>")
-        if bound.get("available") and w.point_low is not None:
-            b.add(f"<p>The point estimate reaches {w.confidence:.0%} over {_range(w.point_low, w.point_high, 3)}, "
-                  "but with the lots at hand that is not a promise: the bound, which carries the uncertainty of "
-                  "the estimate, does not reach it.</p>")
+        b.add(_part("window", "not_found", w=w, every=every, bound_available=bound.get("available"),
+                    point_range=point_range))
     if w.mean_low is not None:
-        b.add(f"<p>Mean-response window (where the chain of mean predictions passes; it overstates what can be "
-              f"promised, Peterson 2008): {w.mean_low:.3f} – {w.mean_high:.3f}.</p>")
+        b.add(_part("window", "mean_response", w=w))
+
+
+def _window_spec(b, spec, w):
+    """The spec judged against: its file, its judges, each attribute's limit and whether the window judges it."""
+    from linkage.report.figures import shown_unit
+
     def judge(a):  # "mean" or "stages" (the acceptance value is always judged on its compendial stages)
         t = spec.time_point_of(a)
-        return [_e("stages" if a == "acceptance_value" else spec.judge_of(a)), "–" if t is None else f"{t:g} min"]
+        return ["stages" if a == "acceptance_value" else spec.judge_of(a), "–" if t is None else f"{t:g} min"]
 
     def limit(a):
         if a == "acceptance_value" and spec.acceptance_value_max is not None:
-            return _e(f"<= {spec.acceptance_value_max:g}")
-        return _e(_limit_text(spec.limits.get(a))) if a in spec.limits else ""
+            return f"<= {spec.acceptance_value_max:g}"
+        return _limit_text(spec.limits.get(a)) if a in spec.limits else ""
 
-    rows = [[_e(a), _e(F.shown_unit(a)), limit(a), *judge(a), "judged"] for a in w.attributes]
-    rows += [[_e(a), _e(F.shown_unit(a)), limit(a), *judge(a),
-              "<b>not judged</b>: not predicted from porosity, not part of the window"] for a in w.not_modelled]
+    rows = [[a, shown_unit(a), limit(a), *judge(a), "judged"] for a in w.attributes]
+    rows += [[a, shown_unit(a), limit(a), *judge(a), _part("window", "not_judged_cell")] for a in w.not_modelled]
     if POROSITY in spec.limits:
-        rows.append([_e(POROSITY), _e(F.shown_unit(POROSITY)), _e(_limit_text(spec.limits[POROSITY])),
-                     *judge(POROSITY), "judged: cuts the scanned porosities directly"])
-    b.add(f"<p class=small>Specification file <b>{_e(spec.file or '(not read from a file)')}</b>, SHA-256 "
-          f"<code>{_e(spec.sha256 or '(none)')}</code>. " + _e("; ".join(
-              f"Judge \"{j}\": {JUDGE_TEXT.get(j, j)}" for j in sorted({spec.judge_of(a) for a in spec.limits}
-                                                                     | ({"stages"} if spec.acceptance_value_max
-                                                                        is not None else set()))))
-          + ".</p>")
-    b.add(_table(["attribute", "unit", "specification", "judge", "time point", "in the window"], rows))
-    held = ", ".join(f"{_e(k)} = {v['value']:.4g} ({_e(v['source'])})" for k, v in w.settings.items())
-    b.add(f"<p class=small>Settings used: {held or 'none'}.</p>")
+        rows.append([POROSITY, shown_unit(POROSITY), _limit_text(spec.limits[POROSITY]), *judge(POROSITY),
+                     "judged: cuts the scanned porosities directly"])
+    judges = sorted({spec.judge_of(a) for a in spec.limits} | ({"stages"} if spec.acceptance_value_max is not None
+                                                              else set()))
+    b.add(_part("window", "spec_file", spec=spec,
+                judges="; ".join(f"Judge \"{j}\": {JUDGE_TEXT.get(j, j)}" for j in judges)))
+    b.add(table_html(["attribute", "unit", "specification", "judge", "time point", "in the window"], rows))
+    b.add(_part("window", "settings_used", held=[(k, v["value"], v["source"]) for k, v in w.settings.items()]))
 
+
+def _window_figures(b, spec, w):
+    """P(all pass) and each P(pass) against porosity; each attribute's band against its limits."""
+    from linkage.report import figures as F
+
+    every = _every(w)
     b.figure(F.plot_window_probability(w.grid, w.p_all, w.p_each, confidence=w.confidence, low=w.low.value,
                                        high=w.high.value, mean_low=w.mean_low, mean_high=w.mean_high,
                                        p_all_low=w.p_all_low, assurance=w.assurance,
@@ -1011,7 +963,6 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
              f"one porosity alone) and each one (thin, point estimates) against "
              f"ribbon porosity; dashed red: the {w.confidence:.0%} confidence line; shaded: the window; dotted: the "
              f"mean-response window.")
-
     names = list(w.bands)
     if names:
         fig, axes = F.grid_axes(len(names), ncols=3, panel=(2.4, 1.8), left=0.85, wspace=0.85)
@@ -1024,31 +975,32 @@ def _window_section(b, chain, table, spec, window, failure: str | None = None):
                       f"the central {w.confidence:.0%} of simulated lots, against its limits (dashed); the window "
                       f"shaded.")
 
+
+def _roll_force(b, table, w):
+    """The roll force range that lands in the window, with its figure."""
+    from linkage.report import figures as F
+
+    bound = w.bound or {}
     rf = w.roll_force or {}
-    b.add("<h3>Roll force for the window</h3>")
+    b.add(_part("blocks", "h3", text="Roll force for the window"))
     curve = rf.get("curve")
     if rf.get("mean_low") is not None:
         mean_text = f"the mean prediction is inside the window for {rf['mean_low']:.2f} – {rf['mean_high']:.2f} kN/cm"
     else:
         mean_text = "the mean prediction is inside the window at no roll force of the training range"
     if rf.get("low") is not None:
-        b.add(f"<p>Roll force <b>{rf['low']:.2f} – {rf['high']:.2f} kN/cm</b>: a lot made there meets every "
-              f"specification together with probability at least {w.confidence:.0%}"
-              + (f" ({w.assurance:.0%} assurance)" if bound.get("available") else " (point estimate)")
-              + ", simulated through the whole chain from the roll force on (ribbon, granule and tablet scatter "
-              f"included). Beside it: the point estimate reaches {w.confidence:.0%} over "
-              f"{_range(rf.get('point_low'), rf.get('point_high'), 2)} kN/cm; the chain of mean predictions passes "
-              f"every limit over {_range(rf.get('mean_response_low'), rf.get('mean_response_high'), 2)} kN/cm; "
-              f"the lot-mean porosity lands in the window with probability {w.confidence:.0%} over "
-              f"{_range(rf.get('in_window_low'), rf.get('in_window_high'), 2)} kN/cm; {mean_text}.</p>")
+        b.add(_part("window", "roll_force", rf=rf, w=w, assured=bound.get("available"), confidence_text=None,
+                    point_range=_range(rf.get("point_low"), rf.get("point_high"), 2),
+                    mean_response_range=_range(rf.get("mean_response_low"), rf.get("mean_response_high"), 2),
+                    in_window_range=_range(rf.get("in_window_low"), rf.get("in_window_high"), 2),
+                    mean_text=mean_text))
     elif rf.get("reason"):
         b.note(f"Roll force range: {rf['reason']}.")
         if "curve" in rf:
-            b.add(f"<p>For comparison, {mean_text}.</p>")
+            b.add(_part("blocks", "para", text=f"For comparison, {mean_text}."))
     held_rf = rf.get("held_chain") or rf.get("held")
     if held_rf:
-        held = ", ".join(f"{_e(k)} = {v['value']:.4g} ({_e(v['source'])})" for k, v in held_rf.items())
-        b.add(f"<p class=small>Held for the roll force range: {held}.</p>")
+        b.add(_part("window", "held_for_roll_force", held=[(k, v["value"], v["source"]) for k, v in held_rf.items()]))
     if curve:
         t = _by_lot(table)
         obs = (t[FORCE], t[POROSITY]) if FORCE in t.columns and POROSITY in t.columns else None
@@ -1069,10 +1021,7 @@ def _watch_section(b, chain, table, window, result):
     from linkage.report import figures as F
 
     b.section("drift", "Drift watch")
-    b.add("<p>Each lot's residual (measured − predicted from its measured inputs) in time order: out-of-fold for "
-          "the training lots, prospective for lots that arrived after training. Limits are the training "
-          "residuals' mean ± 3 SD (dashed); the EWMA (λ = 0.2) with its limits (dotted) shows slow shifts. "
-          "A lot is flagged by the run rules, the EWMA or a tabular CUSUM (k = σ/2, h = 5σ).</p>")
+    b.add(_part("watch", "drift_intro"))
     charts = list(result.charts.values())
     if not charts:
         b.note("No attribute has enough training residuals (at least 3, not all equal) for control limits.")
@@ -1104,27 +1053,15 @@ def _watch_section(b, chain, table, window, result):
         b.note(f"Lot-mean porosity chart not drawn: {pb.get('reason', 'no porosity values')}.")
     from linkage.decide.watch import design_lines
 
-    b.add("".join(f"<p>{_e(line)}</p>" for line in design_lines(result.mewma)))
-    alarms = result.alarms
-    if alarms:
-        items = "".join(f"<li>{_e(a)}</li>" for a in alarms[:40])
-        more = f"<p class=small>… and {len(alarms) - 40} more.</p>" if len(alarms) > 40 else ""
-        b.add(f"<p><b>Alarms on lots since training ({len(alarms)}):</b></p><ul>{items}</ul>{more}")
-    elif result.new_lots:
-        b.add(f"<p>No alarm on the {len(result.new_lots)} lot(s) since training.</p>")
-    else:
-        b.add("<p>Every lot in the table was a training lot; the charts show the reference phase only.</p>")
+    b.add(_part("watch", "design", lines=design_lines(result.mewma)))
+    b.add(_part("watch", "alarms", alarms=list(result.alarms), shown=40, n_new=len(result.new_lots)))
 
 
 def _domain_section(b, chain, table):
     from linkage.report import figures as F
 
     b.section("domain", "Applicability domain of the training lots")
-    b.add("<p>Each stage describes its inputs with a latent-variable model. Hotelling's T² measures how far a lot "
-          "lies from the centre within that model, the Q residual how much of it the model does not describe. A "
-          "new lot beyond either limit (or outside an input's training range) is outside the domain and its "
-          "predictions are extrapolations. Shown here: the training lots against the limits that new lots are "
-          "held to; a few training lots beyond them is expected at a 95% limit.</p>")
+    b.add(_part("watch", "domain_intro"))
     panels = []
     rows = []
     t = _by_lot(table)
@@ -1148,13 +1085,13 @@ def _domain_section(b, chain, table):
         t2_lim, q_lim = verdicts[0].t2_limit, verdicts[0].q_limit
         out = [lot for lot, v in zip(X.index, verdicts) if not v.in_domain]
         panels.append((stage.name, t2, q, t2_lim, q_lim, list(X.index)))
-        rows.append([_e(stage.name), str(len(X)), _f(t2_lim), _f(q_lim), str(len(out)),
-                     f"<span class=lots>{_lots_text(out)}</span>" if out else "none"])
+        rows.append([stage.name, str(len(X)), number_text(t2_lim), number_text(q_lim), str(len(out)),
+                     _part("blocks", "lots", values=_lots_text(out)) if out else "none"])
     if not panels:
         return
-    b.add(_table(["stage", "training lots", "T² limit", "Q limit", "outside", "which"], rows, num_cols={1, 2, 3, 4}))
-    b.add("<p class=small>n/a: the limit does not apply (a model with no component has no T²; one with as many "
-          "components as inputs leaves no residual for Q).</p>")
+    b.add(table_html(["stage", "training lots", "T² limit", "Q limit", "outside", "which"], rows,
+                     num_cols={1, 2, 3, 4}))
+    b.add(_part("watch", "domain_note"))
     fig, axes = F.grid_axes(len(panels), ncols=min(3, len(panels)), panel=(2.4, 2.0), left=0.85, wspace=0.85)
     for ax, (name, t2, q, t2_lim, q_lim, lots) in zip(axes, panels):
         F.plot_domain(t2, q, t2_limit=t2_lim, q_limit=q_lim, lots=lots, stage=name, ax=ax)
@@ -1170,19 +1107,33 @@ def _model_card(b, chain, spec, window):
     b.section("card", "Model card")
     tr = chain.training
     lots = [str(v) for v in tr.get("lots", [])]
-    versions = ", ".join(f"{_e(k)} {_e(v)}" for k, v in sorted((chain.library_versions or {}).items()))
-    stages = "<br>".join(f"{_e(s.name)}: {_e(', '.join(s.inputs))} → {_e(', '.join(s.targets))}"
-                         for s in chain.stages)
+    versions = ", ".join(f"{k} {v}" for k, v in sorted((chain.library_versions or {}).items()))
     rows = [
-        ["model id", _e(chain.model_id or "unsaved")],
-        ["trained", _e(chain.created_at)],
-        ["chain", stages],
-        ["training lots", f"{len(lots)}: <span class=lots>{_lots_text(lots, limit=200)}</span>"],
-        ["data hash (SHA-256 of the training table)", f"<code>{_e(tr.get('table_sha256', 'n/a'))}</code>"],
+        ["model id", chain.model_id or "unsaved"],
+        ["trained", chain.created_at],
+        ["chain", _part("card", "stages", stages=chain.stages)],
+        ["training lots", _part("card", "training_lots", n=len(lots), lots=_lots_text(lots, limit=200))],
+        ["data hash (SHA-256 of the training table)", _part("card", "code", text=tr.get("table_sha256", "n/a"))],
         ["library versions", versions or "n/a"],
-        ["seed", _e(chain.seed)],
+        ["seed", chain.seed],
         ["nominal interval coverage", f"{100 * chain.nominal_coverage:.0f}%"],
     ]
+    rows += _card_rows(chain, spec, window)
+    b.add(table_html(None, rows))
+    b.add(_part("blocks", "h3", text="Selection and intervals, per attribute"))
+    trows = []
+    for name, t in chain.targets.items():
+        cov = t.coverage
+        trows.append([name, t.selected, str(t.n_lots), (t.cv or {}).get("scheme", "n/a"),
+                      f"{100 * t.nominal_coverage:.0f}%", "n/a" if cov is None else f"{100 * cov:.0f}%"])
+    b.add(table_html(["attribute", "selected", "lots", "cross-validation", "nominal coverage",
+                      "coverage on unseen lots"], trows))
+    b.add(_part("card", "selection", rule=SELECTION_RULE.format(order=" < ".join(SIMPLICITY_ORDER)), caution=CAUTION))
+
+
+def _card_rows(chain, spec, window) -> list[list]:
+    """The model card's rows on the time point, the spec and the window."""
+    rows = []
     if "dissolution_pct" in chain.targets:
         from linkage.timepoint import model_time_point
 
@@ -1190,12 +1141,11 @@ def _model_card(b, chain, spec, window):
         rows.append(["dissolution time point modelled", f"{t:g} min" + ("" if recorded else
                                                                      " (not recorded in the model: the default)")])
     if spec is not None:
-        rows.append(["specification", _e("; ".join(f"{a}: {_limit_text(lim)}" for a, lim in spec.limits.items()))])
-        rows.append(["specification file and SHA-256", f"{_e(spec.file or '(not read from a file)')}, "
-                                                       f"<code>{_e(spec.sha256 or '(none)')}</code>"])
-        rows.append(["judge and time point per attribute", _e("; ".join(
+        rows.append(["specification", "; ".join(f"{a}: {_limit_text(lim)}" for a, lim in spec.limits.items())])
+        rows.append(["specification file and SHA-256", _part("card", "spec_file", spec=spec)])
+        rows.append(["judge and time point per attribute", "; ".join(
             f"{a}: {spec.judge_of(a)}" + ("" if spec.time_point_of(a) is None else f" at {spec.time_point_of(a):g} min")
-            for a in spec.limits))])
+            for a in spec.limits)])
     if window is not None:
         rows.append(["window confidence and draws", f"{window.confidence:.0%}, {window.n_draws} draws, seed "
                                                     f"{window.seed}"])
@@ -1204,19 +1154,8 @@ def _model_card(b, chain, spec, window):
                      f"{window.assurance:.0%} assurance, {bound.get('n_replicates')} lot-level bootstrap replicates"
                      + (f", simultaneous over the window (percentile {100 * bound['simultaneous']['quantile']:.2f})"
                         if bound.get("simultaneous") else "")
-                     if bound.get("available") else _e(bound.get("reason") or "none")])
-    b.add(_table(None, rows))
-    b.add("<h3>Selection and intervals, per attribute</h3>")
-    trows = []
-    for name, t in chain.targets.items():
-        cov = t.coverage
-        trows.append([_e(name), _e(t.selected), str(t.n_lots), _e((t.cv or {}).get("scheme", "n/a")),
-                      f"{100 * t.nominal_coverage:.0f}%", "n/a" if cov is None else f"{100 * cov:.0f}%"])
-    b.add(_table(["attribute", "selected", "lots", "cross-validation", "nominal coverage",
-                  "coverage on unseen lots"], trows))
-    b.add(f"<p class=small>Selection rule: {_e(SELECTION_RULE.format(order=' < '.join(SIMPLICITY_ORDER)))} "
-          "A candidate that does not apply to an attribute (see its table) is left out of the order.</p>")
-    b.add(f"<p class=small>{_e(CAUTION)}</p>")
+                     if bound.get("available") else bound.get("reason") or "none"])
+    return rows
 
 
 # ----------------------------------------------------------------- 10. cautions
@@ -1238,4 +1177,4 @@ def _cautions(b, chain):
         "a different setting can move it. The mean-response window overstates what can be promised.",
         "Retrain when new lots arrive or a residual chart drifts; a model is only as current as its data hash.",
     ]
-    b.add("<ul>" + "".join(f"<li>{_e(i)}</li>" for i in items) + "</ul>")
+    b.add(_part("blocks", "items", values=items))
