@@ -421,8 +421,8 @@ def space(spec, *, models_dir=DEFAULT_MODELS_DIR, model="latest", x: str = "roll
 
 
 def _keep(models_dir, model_id, kind: str, spec, result, made_by: str, **arguments) -> None:
-    """Store a result beside its model for a later report (:mod:`linkage.models.results`; best effort)."""
-    from linkage.models.results import result_key, save_result
+    """Store a result beside its model for a later report (:mod:`linkage.models.reuse`; best effort)."""
+    from linkage.models.reuse import result_key, save_result
 
     if models_dir is not None and model_id and model_id != "unsaved":
         save_result(models_dir, model_id, kind, result_key(kind, models_dir, model_id, spec, **arguments), result,
@@ -431,7 +431,7 @@ def _keep(models_dir, model_id, kind: str, spec, result, made_by: str, **argumen
 
 def _reuse(models_dir, model_id, kind: str, spec, **arguments):
     """A result stored by :func:`_keep` for exactly these arguments, or None."""
-    from linkage.models.results import load_result, result_key
+    from linkage.models.reuse import load_result, result_key
 
     if models_dir is None or not model_id:
         return None

@@ -57,7 +57,7 @@ def test_reusing_the_window_and_the_map_changes_nothing_but_says_so(demo):
 
 def test_a_different_seed_spec_or_model_finds_nothing_to_reuse(demo):
     from linkage.demo import DEMO_DATA
-    from linkage.models.results import load_result, result_key
+    from linkage.models.reuse import load_result, result_key
     from linkage.spec import Limit, read_spec
 
     folder, outputs = demo
