@@ -989,7 +989,7 @@ def _roll_force(b, table, w):
     else:
         mean_text = "the mean prediction is inside the window at no roll force of the training range"
     if rf.get("low") is not None:
-        b.add(_part("window", "roll_force", rf=rf, w=w, assured=bound.get("available"), confidence_text=None,
+        b.add(_part("window", "roll_force", rf=rf, w=w, assured=bound.get("available"),
                     point_range=_range(rf.get("point_low"), rf.get("point_high"), 2),
                     mean_response_range=_range(rf.get("mean_response_low"), rf.get("mean_response_high"), 2),
                     in_window_range=_range(rf.get("in_window_low"), rf.get("in_window_high"), 2),
