@@ -72,6 +72,7 @@ nav ol{columns:2;font-size:.9rem}
 .lots{font-size:.8rem;color:#333} td.num{white-space:nowrap}
 .small{font-size:.82rem}
 details{margin:.4rem 0} summary{cursor:pointer}
+.reused{color:#555;font-size:.85rem;font-style:italic}
 """
 
 
