@@ -1,0 +1,84 @@
+"""Results kept beside a model (issue 20, :mod:`linkage.models.reuse`): what is read back is what was
+stored, bit for bit and type for type (checked with numpy's own ``array_equal`` and ``dtype``), and only
+under the key, kind and model it was stored for. The key's dependence on model, spec, seed and arguments
+is checked on the demo's registry in tests/report/test_demo_sections.py."""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+
+from linkage.decide.window import Edge, WindowResult
+from linkage.models.reuse import load_result, save_result
+
+MODEL = "m-20260101T000000Z-0123abcd"
+KEY = "ab" * 32
+
+
+def _window() -> WindowResult:
+    grid = np.linspace(0.2, 0.45, 7)
+    return WindowResult(
+        model_id=MODEL, confidence=0.9, data_range=(0.2, 0.45), low=Edge(np.float64(0.25), "dissolution_pct"),
+        high=Edge(None, "data range"), mean_low=0.22, mean_high=float("nan"), segments=[(0.25, 0.3), (0.35, 0.4)],
+        settings={"roll_gap_mm": {"value": 2.5, "source": "given"}}, attributes=["a", "b"], not_modelled=[],
+        roll_force={"low": None, "curve": {"roll_force_kn_per_cm": grid * 30, "p_in_window": grid}},
+        grid=grid, p_all=grid ** 2, p_each={"a": grid, "b": 1 - grid},
+        bands={"a": {"mean": grid, "low": grid - 0.1, "high": grid + 0.1}}, mean_ok=grid > 0.3, n_draws=2000,
+        in_domain=np.array([True, False, True, True, True, True, True]), p_all_low=None,
+        bound={"available": True, "n_replicates": np.int64(200), "simultaneous": {"quantile": 0.04}},
+        held_point={1: "a key that is not text", "x": (1, 2)})
+
+
+def _same(a, b, where="result") -> None:
+    assert type(a) is type(b), where
+    if isinstance(a, np.ndarray):
+        assert a.dtype == b.dtype and np.array_equal(a, b, equal_nan=a.dtype.kind == "f"), where
+    elif dataclasses.is_dataclass(a):
+        for f in dataclasses.fields(a):
+            _same(getattr(a, f.name), getattr(b, f.name), f"{where}.{f.name}")
+    elif isinstance(a, dict):
+        assert list(a) == list(b), where
+        for k in a:
+            _same(a[k], b[k], f"{where}[{k!r}]")
+    elif isinstance(a, (list, tuple)):
+        assert len(a) == len(b), where
+        for i, (x, y) in enumerate(zip(a, b)):
+            _same(x, y, f"{where}[{i}]")
+    elif isinstance(a, float) and np.isnan(a):
+        assert np.isnan(b), where
+    else:
+        assert a == b, where
+
+
+def test_a_result_comes_back_bit_for_bit_and_type_for_type(tmp_path):
+    (tmp_path / MODEL).mkdir()
+    stored = _window()
+    path = save_result(tmp_path, MODEL, "window", KEY, stored, "linkage window")
+    assert path is not None and path.parent == tmp_path / MODEL / "results"
+    back = load_result(tmp_path, MODEL, "window", KEY)
+    assert back is not None and back.made_by == "linkage window"
+    _same(stored, back.result)
+    assert "Reused, not recomputed" in back.sentence("the window") and "'linkage window'" in back.sentence("x")
+
+
+def test_nothing_is_found_under_another_key_kind_or_model_or_in_a_spoilt_file(tmp_path):
+    (tmp_path / MODEL).mkdir()
+    path = save_result(tmp_path, MODEL, "window", KEY, _window(), "linkage window")
+    assert load_result(tmp_path, MODEL, "window", "cd" * 32) is None
+    assert load_result(tmp_path, MODEL, "space", KEY) is None
+    assert load_result(tmp_path, "m-20260101T000000Z-ffffffff", "window", KEY) is None
+    assert load_result(tmp_path, MODEL, "window", None) is None
+    path.write_bytes(b"not a numpy file")
+    assert load_result(tmp_path, MODEL, "window", KEY) is None
+
+
+def test_what_is_not_a_result_class_is_not_stored(tmp_path):
+    @dataclasses.dataclass
+    class Other:
+        x: int = 1
+
+    (tmp_path / MODEL).mkdir()
+    assert save_result(tmp_path, MODEL, "window", KEY, Other(), "test") is None
+    assert save_result(tmp_path, MODEL, "window", KEY, {"a": object()}, "test") is None
+    assert save_result(tmp_path, MODEL, "window", None, _window(), "test") is None
