@@ -2,10 +2,18 @@
 
 Figures are PNG images embedded as ``data:`` URIs; there is no script, no
 style sheet or font from elsewhere and no link out of the file, so it opens
-offline in any browser and can be mailed or archived as it is. Every lot
-name, product, compactor, note and other piece of text that came from a
-user's files goes through :func:`html.escape`. Where a section cannot be
-drawn, the report says why in its place.
+offline in any browser and can be mailed or archived as it is. Where a
+section cannot be drawn, the report says why in its place.
+
+The HTML is in jinja2 templates (``linkage/report/templates/``, loaded by
+:mod:`linkage.report.templating`, autoescape on): this module computes each
+section's numbers and sentences and hands them to a template's macro, so
+every lot name, product, compactor, note and other piece of text that came
+from a user's files is escaped (as :func:`html.escape` escapes) wherever it
+is placed. The window and the design-space map may be reused from earlier
+commands (:mod:`linkage.models.reuse`; the section says so); the map and the
+drift watch are computed beside the other sections, and the figures drawn
+in two processes (:mod:`linkage.report.background`).
 
 Sections:
 
@@ -34,7 +42,6 @@ import math
 import re
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
-from html import escape
 from pathlib import Path
 
 import numpy as np
@@ -94,12 +101,6 @@ class Report:
 
 # ----------------------------------------------------------------- text helpers
 
-def escape_text(value) -> str:
-    """``value`` as HTML text (for the few fragments still built in Python: the section modules of
-    issues 16 and 18 until they move to templates)."""
-    return escape(str(value), quote=True)
-
-
 def number_text(value, digits: int = 4) -> str:
     """A number for a table cell; "n/a" for a missing one (never a bare NaN); text as it is."""
     if value is None:
@@ -116,22 +117,6 @@ def number_text(value, digits: int = 4) -> str:
 def plus_minus_text(value, se, digits: int = 4) -> str:
     """"value ± se", or the value alone without a standard error."""
     return number_text(value, digits) if se is None else f"{number_text(value, digits)} ± {number_text(se, 2)}"
-
-
-def _e(value) -> str:  # the old name, for the section modules of issues 16 and 18 (they build HTML text)
-    return escape_text(value)
-
-
-def _f(value, digits: int = 4) -> str:  # the old name, as above: escaped HTML text
-    return number_text(value, digits) if _is_number(value) else escape_text(number_text(value, digits))
-
-
-def _is_number(value) -> bool:
-    try:
-        float(value)
-    except (TypeError, ValueError):
-        return value is None
-    return True
 
 
 def _tiny_to_zero(value, scale):
@@ -176,23 +161,15 @@ def _coverage_regions(target) -> str:
                  guarantee=getattr(target, "coverage_guarantee", None) or {})
 
 
-def _part(template: str, which: str, **context) -> Markup:
-    """The macro ``which`` of ``templates/<template>.html.j2`` with ``context`` (escaped unless Markup)."""
-    return macro(f"{template}.html.j2", which)(**context)
+def _part(template: str, macro_name: str, /, **context) -> Markup:
+    """The macro ``macro_name`` of ``templates/<template>.html.j2`` with ``context`` (escaped unless Markup)."""
+    return macro(f"{template}.html.j2", macro_name)(**context)
 
 
 def table_html(header: list | None, rows: list[list], *, num_cols: set[int] | None = None,
                row_class: list[str] | None = None) -> Markup:
     """An HTML table (``templates/blocks.html.j2``); cells are escaped unless they are Markup."""
     return _part("blocks", "table", header=header, rows=rows, num_cols=num_cols or set(), row_class=row_class)
-
-
-def _table(header: list[str] | None, rows: list[list[str]], *, num_cols: set[int] | None = None,
-           row_class: list[str] | None = None) -> str:
-    """An HTML table from already-escaped cells (for the section modules of issues 16 and 18, which
-    escape their cells themselves until they move to templates)."""
-    return str(table_html(None if header is None else [Markup(h) for h in header],
-                          [[Markup(c) for c in row] for row in rows], num_cols=num_cols, row_class=row_class))
 
 
 # ----------------------------------------------------------------- the builder

@@ -59,18 +59,18 @@ def plot_plan_map(force, gap, plan_force, plan_gap, labels, *, ax=None):
 
 def plan_section(b, chain, table, plan: dict) -> None:
     """Add the plan section to the report builder ``b`` (see :mod:`linkage.report.html`)."""
-    from linkage.report.html import _e, _f, _table
+    from linkage.report.html import _part, number_text, table_html
 
     b.section("plan", "Planned lots")
     lots = plan.get("lots") or []
     kind = "a starting design for a new product" if plan.get("kind") == "start" else "the next lots of the campaign"
-    b.add(f"<p>{len(lots)} lots planned as {_e(kind)} ({_e(plan.get('method'))}, seed {_e(plan.get('seed'))}"
-          + (f", model {_e(plan.get('model_id'))}" if plan.get("model_id") else "") + ").</p>")
+    b.add(_part("sections", "plan_head", n=len(lots), kind=kind, method=plan.get("method"), seed=plan.get("seed"),
+                model_id=plan.get("model_id")))
     if plan.get("model_id") and getattr(chain, "model_id", None) and plan["model_id"] != chain.model_id:
         b.note(f"The plan was made with model {plan['model_id']}, not the model of this report ({chain.model_id}).")
     for e in plan.get("edges") or []:
-        b.add(f"<p>Edge planned for: {_e(e.get('name'))} at {_e(e.get('where'))}; variance of the local fit there "
-              f"after the plan, relative to now: {_f(e.get('relative_variance'), 2)}.</p>")
+        b.add(_part("sections", "plan_edge", name=e.get("name"), where=e.get("where"),
+                    variance=number_text(e.get("relative_variance"), 2)))
     have = [c for c in (FORCE, GAP) if c in table.columns]
     planned = [x["settings"] for x in lots]
     if len(have) == 2 and lots and all(FORCE in s and GAP in s for s in planned):
@@ -81,9 +81,9 @@ def plan_section(b, chain, table, plan: dict) -> None:
     else:
         b.note("The plan or the lots lack roll force or roll gap, so the plan cannot be drawn over them.")
     names = list(dict.fromkeys(k for s in planned for k in s))
-    rows = [[_e(x.get("run")), _e(x.get("lot")), *(_f(x["settings"].get(k), 4) for k in names),
-             _f(x.get("predicted_porosity"), 3), _e({True: "inside", False: "outside", None: "—"}[x.get("in_domain")]),
-             _e(x.get("reason"))] for x in lots]
-    b.add(_table([_e(h) for h in ["run", "lot", *names, "predicted porosity", "domain", "why"]], rows))
+    rows = [[x.get("run"), x.get("lot"), *(number_text(x["settings"].get(k), 4) for k in names),
+             number_text(x.get("predicted_porosity"), 3),
+             {True: "inside", False: "outside", None: "—"}[x.get("in_domain")], x.get("reason")] for x in lots]
+    b.add(table_html(["run", "lot", *names, "predicted porosity", "domain", "why"], rows))
     for n in plan.get("notes") or []:
-        b.add(f"<p>{_e(n)}</p>")
+        b.add(_part("blocks", "para", text=n))

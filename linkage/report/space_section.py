@@ -81,7 +81,7 @@ def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: 
     computed beside the report; issue 20), else it is computed here."""
     from linkage.decide.space import FORCE, GAP, design_space
     from linkage.exceptions import LinkageError
-    from linkage.report.html import _e, _table
+    from linkage.report.html import _part, table_html
 
     b.section("space", "Design space: probability of passing over roll force and gap")
     if spec is None:
@@ -109,16 +109,13 @@ def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: 
                    "training lots. Blue box and star: the acceptable ranges and the suggested set point.")
     ar = r.ranges
     if ar.get("found"):
-        rows = [[_e(k), f"{lo:.4g}", f"{hi:.4g}", "mapped"] for k, (lo, hi) in ar["ranges"].items()]
-        rows += [[_e(k), f"{lo:.4g}", f"{hi:.4g}", "held (follows the mapped settings)"]
+        rows = [[k, f"{lo:.4g}", f"{hi:.4g}", "mapped"] for k, (lo, hi) in ar["ranges"].items()]
+        rows += [[k, f"{lo:.4g}", f"{hi:.4g}", "held (follows the mapped settings)"]
                  for k, (lo, hi) in ar["held_over_box"].items()]
-        b.add(f"<p>Acceptable ranges: the largest box of roll force and gap inside the region where the {what} "
-              f"reaches {r.confidence:.0%} and inside the applicability domain ({ar['grid_cells']['n_points']} "
-              "grid points, every one of them passing).</p>")
-        b.add(_table(["setting", "low", "high", "how"], rows, num_cols={1, 2}))
-        sp = ", ".join(f"{_e(k)} = {v:.4g}" for k, v in {**ar["set_point"], **ar["held_at_set_point"]}.items())
-        b.add(f"<p>Suggested set point (the centre of the box): {sp}.</p>")
+        b.add(_part("sections", "space_ranges", what=what, confidence=r.confidence,
+                    n_points=ar["grid_cells"]["n_points"]))
+        b.add(table_html(["setting", "low", "high", "how"], rows, num_cols={1, 2}))
+        b.add(_part("sections", "space_set_point", values=list({**ar["set_point"], **ar["held_at_set_point"]}.items())))
     else:
-        b.add(f"<p><b>No acceptable ranges.</b> {_e(ar.get('reason'))}</p>")
-    b.add(f"<p class=meta>Inside the applicability domain: {int(r.in_domain.sum())} of {r.in_domain.size} grid "
-          f"points. {_e(CAUTION)}</p>")
+        b.add(_part("sections", "space_no_ranges", reason=ar.get("reason")))
+    b.add(_part("sections", "space_domain", inside=int(r.in_domain.sum()), total=r.in_domain.size, caution=CAUTION))

@@ -10,8 +10,6 @@ production rolls.
 
 from __future__ import annotations
 
-import html
-
 import numpy as np
 
 from linkage.decide.transfer import LEAVES_OUT
@@ -49,7 +47,7 @@ def transfer_section(b, table, window=None, *, seed: int = 0) -> None:
     from linkage.decide.transfer import fit_ribbon_physics, transfer
     from linkage.exceptions import LinkageError
     from linkage.report import figures as F
-    from linkage.report.html import _table
+    from linkage.report.html import _part, table_html
 
     b.section("transfer", "Transfer between compactors (Johanson rolling theory)")
     missing = [c for c in (_FORCE, _GAP, _DIAMETER, _POROSITY) if c not in table.columns]
@@ -62,14 +60,7 @@ def transfer_section(b, table, window=None, *, seed: int = 0) -> None:
     except LinkageError as exc:
         b.note(f"The ribbon physics could not be fitted: {exc}")
         return
-    d = physics.to_dict()
-    b.add(f"<p>Johanson's rolling theory (1965) fitted to {physics.n_lots} lots of every compactor at once: "
-          f"compressibility K = {physics.compressibility:.3g} (log SD {d['compressibility_log_sd']:.2g}), "
-          f"pressure constant {physics.pressure_constant_mpa:.4g} MPa (log SD {d['pressure_constant_log_sd']:.2g}), "
-          f"residual SD of porosity {physics.residual_sd:.4f}; friction angles held at "
-          f"{physics.internal_friction_deg:g}° (internal) and {physics.wall_friction_deg:g}° (wall). The same peak "
-          f"pressure gives the same ribbon on any rolls; the specific roll force that makes it grows with roll "
-          f"diameter and gap.</p>")
+    b.add(_part("sections", "transfer_fit", physics=physics, d=physics.to_dict()))
 
     t = table.dropna(subset=[_FORCE, _GAP, _DIAMETER, _POROSITY])
     ax = F.new_axes(panel=(5.0, 3.2))
@@ -98,20 +89,16 @@ def transfer_section(b, table, window=None, *, seed: int = 0) -> None:
         for r in result.targets:
             lo, hi = r["force_interval_kn_per_cm"]
             extrapolated |= not r["inside_lots_pressure_range"]
-            rows.append([html.escape(label), f"{diameter:g}", f"{width:g}" if np.isfinite(width) else "—",
+            rows.append([label, f"{diameter:g}", f"{width:g}" if np.isfinite(width) else "—",
                          f"{g:.3g}", f"{r['ribbon_porosity']:.3f}",
                          f"{r['roll_force_kn_per_cm']:.2f}" + ("" if r["inside_lots_pressure_range"] else " *"),
                          f"{lo:.2f}–{hi:.2f}",
                          f"{r['roll_force_kn']:.0f}" if np.isfinite(width) else "—",
                          f"{r['peak_pressure_mpa']:.0f}"])
-    b.add(f"<p>Specific roll force that gives {which} on each compactor's rolls and on stated production rolls "
-          f"({SCALE_UP_ROLLS[0]:g} mm diameter, {SCALE_UP_ROLLS[1]:g} mm wide; not among the lots), at the lots' "
-          f"median gap. Force is the specific roll force, total the force over the roll width; 95 % interval for "
-          f"one lot (fit uncertainty plus lot-to-lot scatter).</p>")
-    b.add(_table(["rolls", "diameter [mm]", "width [mm]", "gap [mm]", "porosity [-]", "force [kN/cm]",
+    b.add(_part("sections", "transfer_rolls", which=which, rolls=SCALE_UP_ROLLS))
+    b.add(table_html(["rolls", "diameter [mm]", "width [mm]", "gap [mm]", "porosity [-]", "force [kN/cm]",
                   "95 % interval [kN/cm]", "total [kN]", "P max [MPa]"], rows,
                  num_cols={1, 2, 3, 4, 5, 6, 7, 8}))
     if extrapolated:
-        b.add('<p class="note">* The peak pressure is outside the range the lots reached: the force is '
-              "extrapolated along the material's compressibility law.</p>")
-    b.add(f"<p><b>What the model leaves out.</b> {html.escape(LEAVES_OUT)}</p>")
+        b.add(_part("sections", "transfer_extrapolated"))
+    b.add(_part("sections", "transfer_leaves_out", text=LEAVES_OUT))
