@@ -189,6 +189,8 @@ class _Builder:
         self.reused: dict[str, str] = {}
         #: the figures not yet drawn to PNG, in order (their <img> holds a slot until then)
         self.drawings: list = []
+        #: (figure indices, their drawing in a child) started by draw_early
+        self._early: list = []
 
     def section(self, anchor: str, title: str) -> None:
         self.toc.append((anchor, title))
@@ -214,17 +216,46 @@ class _Builder:
         self.parts.append(_part("blocks", "figure", n=n, src=Markup(_FIGURE_SLOT.format(n)), alt=alt or caption,
                                 caption=caption))
 
+    def draw_early(self, parallel: bool = True) -> None:
+        """Start drawing the figures made so far in a forked child, while the sections go on (when
+        ``parallel`` and the machine allow it; else they are drawn with the rest at the end)."""
+        from linkage.report.background import Background, _map
+        from linkage.report.figures import png_data_uri
+
+        start = sum(len(idx) for idx, _ in self._early)
+        idx = list(range(start, len(self.drawings)))
+        if parallel and idx:
+            self._early.append((idx, Background(_map, png_data_uri, [self.drawings[i] for i in idx])))
+
     def draw_figures(self, parallel: bool = True) -> None:
-        """Every figure to a PNG ``data:`` URI in its place; half of them in a second process when
-        ``parallel`` and the machine allow it (the same bytes either way)."""
+        """Every figure to a PNG ``data:`` URI in its place: those of :meth:`draw_early` from its
+        child, the rest shared between this process and a second one by their number of panels
+        (the same bytes either way)."""
         from linkage.report.background import split_map
         from linkage.report.figures import png_data_uri
 
-        uris = split_map(png_data_uri, self.drawings, fork=parallel)
-        slots = {_FIGURE_SLOT.format(i + 1): uri for i, uri in enumerate(uris)}
+        uris: dict[int, str] = {}
+        start = sum(len(idx) for idx, _ in self._early)
+        rest = list(range(start, len(self.drawings)))
+        drawn = split_map(png_data_uri, [self.drawings[i] for i in rest], fork=parallel,
+                          costs=[len(self.drawings[i].axes) for i in rest])
+        uris.update(zip(rest, drawn))
+        for idx, job in self._early:
+            try:
+                uris.update(zip(idx, job.result()))
+            finally:
+                job.close()
+        self._early = []
+        slots = {_FIGURE_SLOT.format(i + 1): uri for i, uri in uris.items()}
         self.parts = [_SLOT_RE.sub(lambda m: slots[m.group(0)], part) if "\x00" in part else part
                       for part in self.parts]
         self.drawings = []
+
+    def close(self) -> None:
+        """End any child still drawing (a report that failed half way)."""
+        for _, job in self._early:
+            job.close()
+        self._early = []
 
 
 # ----------------------------------------------------------------- entry points
@@ -297,16 +328,17 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         pending["space"] = Background(design_space, chain, spec, fork=parallel, **args)
     try:
         _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
-                  pending, computed)
+                  pending, computed, parallel)
         b.draw_figures(parallel)
     finally:
+        b.close()
         for job in pending.values():
             job.close()
     return Report(html=_page(b, chain), figures=list(b.figures), notes=list(b.notes), computed=computed)
 
 
 def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
-              pending, computed) -> str:
+              pending, computed, parallel=True) -> None:
     """Every section in order into ``b``. ``pending``: the watch and (unless given) the map, being computed;
     ``computed`` gets the window and the map when they were computed here."""
     limits = dict(spec.limits) if spec is not None else {}
@@ -322,6 +354,7 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
     _baseline_section(b, chain, table, limits)
     _attribute_section(b, chain, table, limits)
     _explain_section(b, chain, table, limits, window, curve_draws, seed)
+    b.draw_early(parallel)  # the figures so far are drawn beside the sections that follow
     _window_section(b, chain, table, spec, window, window_failure)
     from linkage.report.transfer_section import transfer_section  # scale-up between compactors (issue 16)
 
