@@ -6,7 +6,10 @@ kept, whitespace collapsed) and its number of figures; what varies from run
 to run (model ids, timestamps, SHA-256 digests, paths) is replaced by a
 placeholder. The stored fixture (``data/demo_sections.json``) was made with
 ``python -m tests.report.demo_sections`` from the report code before issue
-20 changed it: a regression fixture, not an outside reference.
+20 changed it (main at 6827478, with this module copied in): a regression
+fixture, not an outside reference. A change to the report's text elsewhere
+(a section's wording, the demo's model) regenerates it the same way, from
+the code before the change.
 """
 
 from __future__ import annotations
