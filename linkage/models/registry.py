@@ -552,6 +552,27 @@ def record_decision(models_dir, decision: dict) -> None:
 PENDING, IN_EFFECT, ABANDONED = "pending", "in effect", "abandoned"
 
 
+def record_result(models_dir, model_id: str, name: str, data: bytes) -> None:
+    """Record in the index the SHA-256 of a result file kept beside the model
+    (:mod:`linkage.models.reuse`), so that it is held to the same check as the
+    model's own files: a result whose bytes differ from the index's record is
+    not reused."""
+    models_dir = Path(models_dir)
+    with _locked(models_dir):
+        index = _read_index(models_dir)
+        entry = index["models"].get(model_id)
+        if entry is None:
+            raise ModelNotFoundError(f"no model {model_id} in the registry {models_dir}")
+        entry.setdefault("results", {})[name] = _sha256(data)
+        _write_index(models_dir, index)
+
+
+def recorded_result(models_dir, model_id: str, name: str) -> str | None:
+    """The SHA-256 the index records for a result file (None: not recorded)."""
+    entry = _read_index(Path(models_dir))["models"].get(model_id) or {}
+    return (entry.get("results") or {}).get(name)
+
+
 def begin_decision(models_dir, decision: dict) -> str:
     """Phase 1: record ``decision`` as pending; returns its id (a random hex string)."""
     import uuid

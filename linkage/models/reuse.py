@@ -12,7 +12,10 @@ file name and the SHA-256 of its bytes), the seed and every other argument
 of the computation, and the version of linkage. A model, spec, seed or
 argument that differs gives another key, so nothing stale is ever found: the
 result is computed anew. A result is reused only when its file holds the
-same key, kind and model id.
+same key, kind and model id, and its bytes have the SHA-256 the registry
+index recorded when it was stored (:func:`linkage.models.registry.record_result`):
+a result file changed or copied in by hand is not reused but computed anew,
+as the model's own files are checked against the index.
 
 The file is numpy's ``.npz``, read with ``allow_pickle=False``: the arrays of
 the result, and its other fields as JSON (UTF-8 bytes in the entry
@@ -31,6 +34,9 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
+
+from linkage.exceptions import LinkageError
+from linkage.models.registry import record_result, recorded_result
 
 __all__ = ["Reused", "result_key", "load_result", "save_result"]
 
@@ -164,11 +170,14 @@ def save_result(models_dir, model_id: str | None, kind: str, key: str | None, re
     buf = io.BytesIO()
     np.savez(buf, **arrays)
     path = _path(models_dir, model_id, kind, key)
+    data = buf.getvalue()
     try:
         path.parent.mkdir(exist_ok=True)
-        return write_atomic(path, buf.getvalue())
-    except OSError:
+        written = write_atomic(path, data)
+        record_result(models_dir, model_id, path.name, data)
+    except (OSError, LinkageError):
         return None
+    return written
 
 
 def load_result(models_dir, model_id: str | None, kind: str, key: str | None) -> Reused | None:
@@ -181,12 +190,15 @@ def load_result(models_dir, model_id: str | None, kind: str, key: str | None) ->
         return None
     CLASSES.update(_classes())
     try:
-        with np.load(path, allow_pickle=False) as data:
+        raw = path.read_bytes()
+        if recorded_result(models_dir, model_id, path.name) != hashlib.sha256(raw).hexdigest():
+            return None  # not recorded in the registry index, or changed since: computed anew
+        with np.load(io.BytesIO(raw), allow_pickle=False) as data:
             arrays = {k: data[k] for k in data.files}
         head = json.loads(arrays.pop("__json__").tobytes().decode("utf-8"))
         if (head.get("key"), head.get("kind"), head.get("model_id")) != (key, kind, model_id):
             return None
         result = _decode(head["result"], arrays)
-    except (OSError, ValueError, KeyError, TypeError):
+    except (OSError, ValueError, KeyError, TypeError, LinkageError):
         return None
     return Reused(result=result, kind=kind, made_at=head["made_at"], made_by=head["made_by"], path=path)

@@ -7,9 +7,12 @@ from __future__ import annotations
 
 import dataclasses
 
+import json
+
 import numpy as np
 
 from linkage.decide.window import Edge, WindowResult
+from linkage.models.registry import INDEX
 from linkage.models.reuse import load_result, save_result
 
 MODEL = "m-20260101T000000Z-0123abcd"
@@ -51,8 +54,15 @@ def _same(a, b, where="result") -> None:
         assert a == b, where
 
 
+def _registry(models_dir) -> None:
+    """A model folder and its entry in the registry index (what ``registry.save`` leaves; only the entry is
+    needed here)."""
+    (models_dir / MODEL).mkdir()
+    (models_dir / INDEX).write_text(json.dumps({"format": 1, "models": {MODEL: {}}}), encoding="utf-8")
+
+
 def test_a_result_comes_back_bit_for_bit_and_type_for_type(tmp_path):
-    (tmp_path / MODEL).mkdir()
+    _registry(tmp_path)
     stored = _window()
     path = save_result(tmp_path, MODEL, "window", KEY, stored, "linkage window")
     assert path is not None and path.parent == tmp_path / MODEL / "results"
@@ -63,7 +73,7 @@ def test_a_result_comes_back_bit_for_bit_and_type_for_type(tmp_path):
 
 
 def test_nothing_is_found_under_another_key_kind_or_model_or_in_a_spoilt_file(tmp_path):
-    (tmp_path / MODEL).mkdir()
+    _registry(tmp_path)
     path = save_result(tmp_path, MODEL, "window", KEY, _window(), "linkage window")
     assert load_result(tmp_path, MODEL, "window", "cd" * 32) is None
     assert load_result(tmp_path, MODEL, "space", KEY) is None
@@ -78,7 +88,24 @@ def test_what_is_not_a_result_class_is_not_stored(tmp_path):
     class Other:
         x: int = 1
 
-    (tmp_path / MODEL).mkdir()
+    _registry(tmp_path)
     assert save_result(tmp_path, MODEL, "window", KEY, Other(), "test") is None
     assert save_result(tmp_path, MODEL, "window", KEY, {"a": object()}, "test") is None
     assert save_result(tmp_path, MODEL, "window", None, _window(), "test") is None
+
+
+def test_a_result_file_changed_or_not_recorded_in_the_index_is_not_reused(tmp_path):
+    """The result files are held to the registry index as the model's files are: a well-formed result whose
+    bytes are not the ones the index recorded (edited by hand, or another result copied over it) is computed
+    anew, as is one stored where the registry has no such model."""
+    _registry(tmp_path)
+    path = save_result(tmp_path, MODEL, "window", KEY, _window(), "linkage window")
+    good = path.read_bytes()
+    other = dataclasses.replace(_window(), confidence=0.95)
+    save_result(tmp_path, MODEL, "window", KEY, other, "linkage window")  # records the other's hash
+    changed = path.read_bytes()
+    path.write_bytes(good)  # a valid file, but not the bytes the index now records
+    assert load_result(tmp_path, MODEL, "window", KEY) is None
+    path.write_bytes(changed)
+    assert load_result(tmp_path, MODEL, "window", KEY).result.confidence == 0.95
+    assert save_result(tmp_path, "m-20260101T000000Z-ffffffff", "window", KEY, _window(), "x") is None
