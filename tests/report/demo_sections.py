@@ -27,6 +27,9 @@ VARIABLE = [
     (re.compile(r"\d{4}-\d{2}-\d{2}T\d{2}:\d{2}(:\d{2}(\.\d+)?)?(Z|[+-]\d{2}:\d{2})?"), "<time>"),
     (re.compile(r"\b[0-9a-f]{64}\b"), "<sha256>"),
     (re.compile(r"(/[\w.-]+)+/(demo-lots\.db|models|spec\.toml|report\.html)\b"), r"<path>/\2"),
+    # the model card's library versions: the same report at the floors' pins (ci/constraints-floors.txt)
+    (re.compile(r"\b(joblib|linkage|numpy|pandas|python|scikit-learn|scipy|shap|matplotlib|jinja2) "
+                r"\d+(\.\d+)+[\w.+-]*"), r"\1 <version>"),
 ]
 
 
