@@ -214,7 +214,7 @@ def read_anchor(store_path: Path) -> dict | None:
 # --------------------------------------------------------------------------- checking
 
 
-def check(c, store_path: Path, *, full: bool = False, anchor: dict | None | bool = False) -> tuple[list[str], dict]:
+def check(c, store_path: Path, *, anchor: dict | None, full: bool = False) -> tuple[list[str], dict]:
     """Every mismatch found, and counts of what was checked.
 
     Always: each seal's link, every audit entry and prediction against its
@@ -226,7 +226,7 @@ def check(c, store_path: Path, *, full: bool = False, anchor: dict | None | bool
     transaction on ``c`` began. A writer commits and then writes the anchor,
     so an anchor read first never names a seal the snapshot lacks; one read
     inside the snapshot may, when another process commits meanwhile (a false
-    "records removed"). Left out, the anchor is read here.
+    "records removed").
     """
     problems: list[str] = []
     counts = {"seals": 0, "audit entries": 0, "predictions": 0, "ingests": 0, "lot tables": 0, "raw rows": 0}
@@ -255,8 +255,6 @@ def check(c, store_path: Path, *, full: bool = False, anchor: dict | None | bool
         if unsealed:
             shown = ", ".join(map(str, unsealed[:5])) + (" ..." if len(unsealed) > 5 else "")
             problems.append(f"{len(unsealed)} {table} record(s) without a seal (id {shown}): added outside linkage")
-    if anchor is False:
-        anchor = read_anchor(store_path)
     if anchor is not None and (anchor["seal_id"], anchor["sha256"]) != (0, GENESIS):  # 0: written when empty
         row = c.execute("SELECT sha256 FROM seals WHERE id = ?", (anchor["seal_id"],)).fetchone()
         if row is None or row[0] != anchor["sha256"]:

@@ -400,8 +400,7 @@ class LotStore:
         every ingest's content and every lot table's raw rows. Returns what
         was checked, with the newest seal."""
         try:
-            # read before the snapshot begins (see seal.check); inside a transaction seal.check reads it
-            anchor = False if self._conn.in_transaction else _seal.read_anchor(self.path)
+            anchor = _seal.read_anchor(self.path)  # before the snapshot begins (see seal.check)
             with self._snapshot():
                 problems = []
                 if full:  # SQLite's own check of every page and index (linear in the store's size)
