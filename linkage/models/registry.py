@@ -567,10 +567,10 @@ def record_result(models_dir, model_id: str, name: str, data: bytes) -> None:
         _write_index(models_dir, index)
 
 
-def recorded_result(models_dir, model_id: str, name: str) -> str | None:
-    """The SHA-256 the index records for a result file (None: not recorded)."""
+def result_intact(models_dir, model_id: str, name: str, data: bytes) -> bool:
+    """Whether ``data`` are the bytes of a result file whose SHA-256 the index recorded (:func:`record_result`)."""
     entry = _read_index(Path(models_dir))["models"].get(model_id) or {}
-    return (entry.get("results") or {}).get(name)
+    return (entry.get("results") or {}).get(name) == _sha256(data)
 
 
 def begin_decision(models_dir, decision: dict) -> str:

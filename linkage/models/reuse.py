@@ -36,7 +36,7 @@ from pathlib import Path
 import numpy as np
 
 from linkage.exceptions import LinkageError
-from linkage.models.registry import record_result, recorded_result
+from linkage.models.registry import record_result, result_intact
 
 __all__ = ["Reused", "result_key", "load_result", "save_result"]
 
@@ -191,7 +191,7 @@ def load_result(models_dir, model_id: str | None, kind: str, key: str | None) ->
     CLASSES.update(_classes())
     try:
         raw = path.read_bytes()
-        if recorded_result(models_dir, model_id, path.name) != hashlib.sha256(raw).hexdigest():
+        if not result_intact(models_dir, model_id, path.name, raw):
             return None  # not recorded in the registry index, or changed since: computed anew
         with np.load(io.BytesIO(raw), allow_pickle=False) as data:
             arrays = {k: data[k] for k in data.files}
