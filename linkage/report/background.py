@@ -8,13 +8,20 @@ section comes. The child computes exactly what the report would (same
 function, same arguments, same seed), so the numbers do not depend on where
 it ran. Where ``fork`` is not available (Windows, or one core), or the child
 fails in any way, the computation runs in the report's own process when the
-section asks for it, which also raises any error exactly as before.
+section asks for it, which also raises any error exactly as before. A child
+that neither delivers nor ends within ``timeout`` seconds of being asked (a
+hang, e.g. a lock held by another thread at the moment of the fork) is ended
+and the value computed here, so a report never waits on it for ever.
 """
 
 from __future__ import annotations
 
 import multiprocessing
 import os
+
+#: Seconds :meth:`Background.result` waits for the child once asked, before it ends the child
+#: and computes the value itself. Generous: the design-space map at 1,000 lots takes seconds.
+WAIT_SECONDS = 600.0
 
 
 def _cores() -> int:
@@ -40,8 +47,9 @@ class Background:
     """``fn(*args, **kwargs)`` started in a forked child (unless ``fork`` is false); :meth:`result`
     returns its value."""
 
-    def __init__(self, fn, *args, fork: bool = True, **kwargs):
+    def __init__(self, fn, *args, fork: bool = True, timeout: float | None = None, **kwargs):
         self._call = (fn, args, kwargs)
+        self._timeout = WAIT_SECONDS if timeout is None else float(timeout)
         self._proc = self._conn = None
         if fork and "fork" in multiprocessing.get_all_start_methods() and _cores() >= 2:
             ctx = multiprocessing.get_context("fork")
@@ -54,7 +62,9 @@ class Background:
         """The child's value; computed here when there is no child or it did not deliver."""
         if self._proc is not None:
             try:
-                status, value = self._conn.recv()
+                # poll returns at once when the child has sent a value or has ended (end of file)
+                ready = self._conn.poll(self._timeout)
+                status, value = self._conn.recv() if ready else ("hung", None)
             except (EOFError, OSError):
                 status, value = "lost", None
             self.close(wait=status == "ok")

@@ -1,0 +1,83 @@
+"""The report's second process (`linkage.report.background`): it gives what the report's own
+process would have computed, and never makes the report wait on a child that hangs or dies.
+
+The reference in each check is the direct call in this process (the module's stated contract:
+"the child computes exactly what the report would").
+"""
+
+from __future__ import annotations
+
+import os
+import time
+
+import numpy as np
+import pytest
+
+from linkage.report import background
+from linkage.report.background import Background, balanced_halves, split_map
+
+forking = pytest.mark.skipif(
+    background._cores() < 2 or not hasattr(os, "fork"), reason="needs fork and two cores"
+)
+
+
+def _square_sum(n: int) -> float:
+    return float(np.sum(np.arange(n, dtype=float) ** 2))
+
+
+def _sleep_then(value: int, seconds: float, parent: int) -> int:
+    if os.getpid() != parent:  # only the child hangs; computed here it returns at once
+        time.sleep(seconds)
+    return value
+
+
+def _fail_in_child(parent: int) -> str:
+    if os.getpid() != parent:
+        raise RuntimeError("child only")
+    return "here"
+
+
+@forking
+def test_child_value_is_the_direct_call():
+    job = Background(_square_sum, 1000)
+    assert job._proc is not None
+    assert job.result() == _square_sum(1000)
+
+
+def test_without_fork_the_value_is_computed_here():
+    job = Background(_square_sum, 10, fork=False)
+    assert job._proc is None
+    assert job.result() == _square_sum(10)
+
+
+@forking
+def test_a_failing_child_is_replaced_by_the_direct_call():
+    assert Background(_fail_in_child, os.getpid()).result() == "here"
+
+
+@forking
+def test_a_hung_child_is_ended_and_the_value_computed_here():
+    job = Background(_sleep_then, 7, 60.0, os.getpid(), timeout=0.5)
+    child = job._proc
+    started = time.monotonic()
+    assert job.result() == 7
+    assert time.monotonic() - started < 30
+    assert not child.is_alive()
+
+
+def test_balanced_halves_is_the_longest_first_rule():
+    # Longest-processing-time first on two machines (Graham 1969, SIAM J. Appl. Math. 17:416):
+    # each item, longest first, to the lighter machine: 5→A, 4→B, 3→B, 3→A, 1→B, loads 8 and 8;
+    # in general the two loads differ by at most the largest item.
+    costs = [3.0, 5.0, 1.0, 4.0, 3.0]
+    first, second = balanced_halves(costs)
+    assert sorted(first + second) == list(range(len(costs)))
+    loads = [sum(costs[i] for i in first), sum(costs[i] for i in second)]
+    assert abs(loads[0] - loads[1]) <= max(costs)
+    assert first == sorted(first) and second == sorted(second)
+
+
+@pytest.mark.parametrize("fork", [True, False])
+def test_split_map_is_the_plain_map(fork):
+    items = [5, 50, 500, 7, 70]
+    assert split_map(_square_sum, items, costs=items, fork=fork) == [_square_sum(i) for i in items]
