@@ -261,8 +261,18 @@ def project(name: str, values) -> tuple[np.ndarray, np.ndarray]:
 _NOT_UNITS = {"-", "ISO 8601", "sieve | laser", "bool", "count"}
 
 
-def _fmt(v: float) -> str:
-    return f"{v:.4g}"
+def _fmt(v: float, digits: int = 4) -> str:
+    return f"{v:.{digits}g}"
+
+
+def _fmt_beyond(value: float, limit: float) -> tuple[str, str]:
+    """``value`` and the ``limit`` it exceeds, each to 4 significant digits, or to as many more
+    (up to 12) as it takes for the two texts to differ: "0.4505 above its limit 0.4505" tells
+    the reader nothing."""
+    digits = 4
+    while _fmt(value, digits) == _fmt(limit, digits) and digits < 12:
+        digits += 1
+    return _fmt(value, digits), _fmt(limit, digits)
 
 
 def _with_unit(name: str, value: float) -> str:
@@ -315,11 +325,13 @@ def domain_verdicts(d, values: np.ndarray) -> list[dict]:
         if d.q_limit:
             share = share + qc / d.q_limit
         if d.t2_limit is not None and t2 > d.t2_limit:
-            reasons.append(f"Hotelling T² {_fmt(t2)} above its {level} limit {_fmt(d.t2_limit)} "
+            shown, limit = _fmt_beyond(t2, d.t2_limit)
+            reasons.append(f"Hotelling T² {shown} above its {level} limit {limit} "
                            f"(driven by {names[int(np.argmax(t2c))]})")
         if d.q_limit is not None and q > d.q_limit:
-            reasons.append(f"Q residual (squared prediction error) {_fmt(q)} above its {level} limit "
-                           f"{_fmt(d.q_limit)} (driven by {names[int(np.argmax(qc))]})")
+            shown, limit = _fmt_beyond(q, d.q_limit)
+            reasons.append(f"Q residual (squared prediction error) {shown} above its {level} limit "
+                           f"{limit} (driven by {names[int(np.argmax(qc))]})")
         out.append({"in_domain": not reasons, "t2": t2, "t2_limit": d.t2_limit, "q": q, "q_limit": d.q_limit,
                     "reasons": reasons,
                     "contributions": {c: float(v) for c, v in zip(names, share)},

@@ -316,14 +316,19 @@
 
   // ---------------------------------------------------------------- applicability domain
   const NOT_UNITS = new Set(["-", "ISO 8601", "sieve | laser", "bool", "count"]);
-  function fmt(v) { // Python's format(v, ".4g")
+  function fmt(v, digits = 4) { // Python's format(v, ".4g"), or another number of digits
     if (!Number.isFinite(v)) return String(v);
     if (v === 0) return "0";
-    const [mant, ex] = v.toExponential(3).split("e");
+    const [mant, ex] = v.toExponential(digits - 1).split("e");
     const e = parseInt(ex, 10);
     const strip = (s) => (s.includes(".") ? s.replace(/0+$/, "").replace(/\.$/, "") : s);
-    if (e < -4 || e >= 4) return strip(mant) + "e" + (e < 0 ? "-" : "+") + String(Math.abs(e)).padStart(2, "0");
-    return strip(v.toFixed(3 - e));
+    if (e < -4 || e >= digits) return strip(mant) + "e" + (e < 0 ? "-" : "+") + String(Math.abs(e)).padStart(2, "0");
+    return strip(v.toFixed(digits - 1 - e));
+  }
+  function fmtBeyond(value, limit) { // lean.py's _fmt_beyond: digits until the two texts differ
+    let digits = 4;
+    while (fmt(value, digits) === fmt(limit, digits) && digits < 12) digits += 1;
+    return [fmt(value, digits), fmt(limit, digits)];
   }
   function withUnit(name, v) {
     const u = M.units[name] || "-";
@@ -358,10 +363,14 @@
     let t2 = 0, q = 0;
     for (let j = 0; j < p; j++) { t2 += t2c[j]; q += qc[j]; }
     const argmax = (a) => a.indexOf(Math.max(...a));
-    if (d.t2_limit !== null && t2 > d.t2_limit)
-      reasons.push(`Hotelling T² ${fmt(t2)} above its ${level} limit ${fmt(d.t2_limit)} (driven by ${names[argmax(Array.from(t2c))]})`);
-    if (d.q_limit !== null && q > d.q_limit)
-      reasons.push(`Q residual (squared prediction error) ${fmt(q)} above its ${level} limit ${fmt(d.q_limit)} (driven by ${names[argmax(Array.from(qc))]})`);
+    if (d.t2_limit !== null && t2 > d.t2_limit) {
+      const [shownT2, limitT2] = fmtBeyond(t2, d.t2_limit);
+      reasons.push(`Hotelling T² ${shownT2} above its ${level} limit ${limitT2} (driven by ${names[argmax(Array.from(t2c))]})`);
+    }
+    if (d.q_limit !== null && q > d.q_limit) {
+      const [shownQ, limitQ] = fmtBeyond(q, d.q_limit);
+      reasons.push(`Q residual (squared prediction error) ${shownQ} above its ${level} limit ${limitQ} (driven by ${names[argmax(Array.from(qc))]})`);
+    }
     return { in_domain: reasons.length === 0, t2, t2_limit: d.t2_limit, q, q_limit: d.q_limit, reasons };
   }
 

@@ -127,3 +127,17 @@ def test_a_damaged_file_is_refused_clearly():
     np.savez(buf, x=np.arange(3))
     with pytest.raises(UsageError, match="no header"):
         lean.from_npz_bytes(buf.getvalue())
+
+
+@pytest.mark.parametrize(
+    ("value", "limit", "digits"),
+    [
+        (0.45051, 0.45049, 5),  # equal at 4 digits (0.4505): one more each
+        (12.5, 9.75, 4),  # different at 4 digits: as always
+        (1.0000000000001, 1.0, 12),  # equal even at 12 digits: stops there
+    ],
+)
+def test_a_value_beyond_its_limit_is_shown_with_the_digits_that_tell_them_apart(value, limit, digits):
+    # Reference: Python's format specification (format(v, ".Ng"), Python Language Reference,
+    # "Format Specification Mini-Language"); the rule (4 digits, more until they differ) is ours.
+    assert lean._fmt_beyond(value, limit) == (format(value, f".{digits}g"), format(limit, f".{digits}g"))
