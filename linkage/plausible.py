@@ -197,10 +197,12 @@ def _far(values, lots: list, references: dict, product_of: dict):
     """Which positive values are far enough from their product's reference that :func:`is_unusual` may hold
     (a necessary condition, vectorised)."""
     import numpy as np
+    import pandas as pd
 
-    refs = [references.get(product_of.get(lot)) for lot in lots]
-    m = np.array([np.nan if r is None else r[0] for r in refs])
-    s = np.array([np.nan if r is None else r[1] for r in refs])
+    codes, distinct = pd.factorize(pd.Series(lots, dtype=object), use_na_sentinel=False)  # each lot once
+    refs = [references.get(product_of.get(lot)) for lot in distinct.tolist()]
+    m = np.array([np.nan if r is None else r[0] for r in refs])[codes]
+    s = np.array([np.nan if r is None else r[1] for r in refs])[codes]
     x = np.asarray(values, dtype=float)
     with np.errstate(invalid="ignore", divide="ignore"):
         d = np.abs(np.log10(np.where(x > 0, x, np.nan)) - m)
@@ -209,13 +211,13 @@ def _far(values, lots: list, references: dict, product_of: dict):
 
 def _row_candidates(df, column: str, references: dict, product_of: dict) -> list[tuple[int, str, object]]:
     """(row index, lot, value) of every row that may be unusual, in row order."""
-    lots, values = df["lot"].tolist(), df[column].tolist()
     if df[column].dtype.kind != "f":  # not a float column: every row, judged one by one
-        return [(k, lot, x) for k, (lot, x) in enumerate(zip(lots, values))]
+        return list(zip(range(len(df)), df["lot"].tolist(), df[column].tolist()))
     import numpy as np
 
-    far = np.flatnonzero(_far(df[column].to_numpy(), lots, references, product_of)).tolist()
-    return [(k, lots[k], values[k]) for k in far]
+    far = np.flatnonzero(_far(df[column].to_numpy(), df["lot"].to_numpy(dtype=object), references, product_of))
+    return list(zip(far.tolist(), df["lot"].to_numpy(dtype=object)[far].tolist(),
+                    df[column].to_numpy()[far].tolist()))
 
 
 def _lot_candidates(df, column: str, references: dict, product_of: dict) -> list[tuple[int, str, object]]:

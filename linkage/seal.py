@@ -134,23 +134,33 @@ def ingest_content(c, ingest_id: int) -> str | None:
                      "FROM ingests WHERE id = ?", (ingest_id,)).fetchone()
     if head is None:
         return None
-    record = {
-        "ingest": list(head),
-        "files": [list(r) for r in c.execute("SELECT tbl, file, sha256, rows FROM ingest_files WHERE ingest_id = ? "
-                                             "ORDER BY rowid", (ingest_id,))],
-        "lots": [r[0] for r in c.execute("SELECT lot FROM lots WHERE first_ingest_id = ? ORDER BY rowid",
-                                         (ingest_id,))],
-        "lot_tables": [list(r) for r in c.execute(
+    return ingest_record_sha256(
+        head,
+        files=c.execute("SELECT tbl, file, sha256, rows FROM ingest_files WHERE ingest_id = ? ORDER BY rowid",
+                        (ingest_id,)),
+        lots=[r[0] for r in c.execute("SELECT lot FROM lots WHERE first_ingest_id = ? ORDER BY rowid", (ingest_id,))],
+        lot_tables=c.execute(
             "SELECT lt.id, lt.lot, lt.tbl, lt.file, lt.file_sha256, lt.content_sha256, lt.columns_json, lt.n_rows, "
             "lt.n_filled, h.rows_sha256, h.source_rows_sha256 FROM lot_tables lt "
             "LEFT JOIN lot_table_hashes h ON h.lot_table_id = lt.id WHERE lt.ingest_id = ? ORDER BY lt.id",
-            (ingest_id,))],
-        "revisions": [list(r) for r in c.execute(
-            "SELECT id, lot, revision, product FROM revisions WHERE ingest_id = ? ORDER BY id", (ingest_id,))],
-        "revision_tables": [list(r) for r in c.execute(
+            (ingest_id,)),
+        revisions=c.execute("SELECT id, lot, revision, product FROM revisions WHERE ingest_id = ? ORDER BY id",
+                            (ingest_id,)),
+        revision_tables=c.execute(
             "SELECT rt.revision_id, rt.tbl, rt.lot_table_id FROM revision_tables rt JOIN revisions r "
-            "ON r.id = rt.revision_id WHERE r.ingest_id = ? ORDER BY rt.revision_id, rt.tbl", (ingest_id,))],
-    }
+            "ON r.id = rt.revision_id WHERE r.ingest_id = ? ORDER BY rt.revision_id, rt.tbl", (ingest_id,)))
+
+
+def ingest_record_sha256(head, *, files, lots, lot_tables, revisions, revision_tables) -> str:
+    """The content hash of one ingest from its parts, each as the store holds it and in the order
+    :func:`ingest_content` reads it: the ingest row; its files (tbl, file, sha256, rows); the lots it created;
+    its lot tables (id, lot, tbl, file, file_sha256, content_sha256, columns_json, n_rows, n_filled,
+    rows_sha256, source_rows_sha256) by id; its revisions (id, lot, revision, product) by id; their revision
+    tables (revision_id, tbl, lot_table_id) by revision and table. An ingest seals what it has just written
+    from these values in memory (the same values: see LotStore._seal_ingest) instead of reading them back."""
+    record = {"ingest": list(head), "files": [list(r) for r in files], "lots": list(lots),
+              "lot_tables": [list(r) for r in lot_tables], "revisions": [list(r) for r in revisions],
+              "revision_tables": [list(r) for r in revision_tables]}
     return sha256_text(canonical(record))
 
 

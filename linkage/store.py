@@ -48,6 +48,7 @@ import datetime as dt
 import hashlib
 import json
 import math
+import operator
 import os
 import sqlite3
 from contextlib import contextmanager
@@ -561,21 +562,19 @@ class LotStore:
                 if lot in products and products[lot] != old:
                     warnings.append(f"lot {lot}: product changes from {old or '(none)'} to "
                                     f"{products[lot] or '(none)'}")
-            cur = c.execute("INSERT INTO ingests (at, user, folder, lots_new, lots_revised, lots_unchanged, "
-                            "warnings_json, reason) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-                            (_now(), user, None if ingest.folder is None else str(ingest.folder), len(new),
-                             len(revised), len(unchanged), _json(warnings), reason))
-            ingest_id = cur.lastrowid
-            for tname, src in sources.items():
-                c.execute("INSERT INTO ingest_files VALUES (?, ?, ?, ?, ?)",
-                          (ingest_id, tname, src["file"], src["sha256"], src["rows"]))
-            for src in ingest.other_sources.values():
-                c.execute("INSERT INTO ingest_files VALUES (?, NULL, ?, ?, NULL)",
-                          (ingest_id, src["file"], src["sha256"]))
+            at, folder, warnings_json = _now(), None if ingest.folder is None else str(ingest.folder), _json(warnings)
+            head = [at, user, folder, len(new), len(revised), len(unchanged), warnings_json, reason]
+            ingest_id = c.execute("INSERT INTO ingests (at, user, folder, lots_new, lots_revised, lots_unchanged, "
+                                  "warnings_json, reason) VALUES (?, ?, ?, ?, ?, ?, ?, ?)", head).lastrowid
+            files = [(tname, src["file"], src["sha256"], src["rows"]) for tname, src in sources.items()]
+            files += [(None, src["file"], src["sha256"], None) for src in ingest.other_sources.values()]
+            c.executemany("INSERT INTO ingest_files VALUES (?, ?, ?, ?, ?)", [(ingest_id, *f) for f in files])
             c.executemany("INSERT INTO lots VALUES (?, ?)", [(lot, ingest_id) for lot in new])
-            self._write_revisions(c, ingest_id, new + revised, changes, current, prepared, sources, products)
+            written, revisions, revision_tables = self._write_revisions(c, ingest_id, new + revised, changes, current,
+                                                                        prepared, sources, products)
             result = IngestResult(new, revised, unchanged, ingest_id, warnings)
-            _seal.seal(c, _seal.INGEST, ingest_id)
+            _seal.seal(c, _seal.INGEST, ingest_id,
+                       _ingest_sha256([ingest_id, *head], files, new, written, revisions, revision_tables))
             self._log(c, "ingest", user, None, None,
                       {"folder": None if ingest.folder is None else str(ingest.folder),
                        "files": {t: s["file"] for t, s in sources.items()}, "reason": reason,
@@ -602,8 +601,10 @@ class LotStore:
         return unusual_records
 
     def _write_revisions(self, c, ingest_id: int, lots: list[str], changes: dict[str, list[str]], current: dict,
-                         prepared: dict, sources: dict, products: dict) -> None:
-        """The new and revised ``lots``' lot tables (their rows in row_blocks), revisions and revision tables.
+                         prepared: dict, sources: dict, products: dict) -> tuple[list, list, list]:
+        """The new and revised ``lots``' lot tables (their rows in row_blocks), revisions and revision tables;
+        returns what was written: lot tables (id, lot, table, LotTable, source), revisions and revision tables
+        (the rows inserted).
         Lot tables and revisions get their ids here, as SQLite would give them (largest id + 1; the write
         transaction holds the store), so that they are written in a few statements."""
         next_tid = c.execute("SELECT COALESCE(MAX(id), 0) + 1 FROM lot_tables").fetchone()[0]
@@ -626,6 +627,7 @@ class LotStore:
         c.executemany("INSERT INTO revisions (id, lot, revision, ingest_id, product) VALUES (?, ?, ?, ?, ?)",
                       revisions)
         c.executemany("INSERT INTO revision_tables VALUES (?, ?, ?)", revision_tables)
+        return written, revisions, revision_tables
 
     def _history(self, c, products: set, exclude: set) -> dict[str, dict]:
         """The stored rows of each product's recent lots (at most ``plausible.HISTORY_LOTS`` a product, newest
@@ -642,15 +644,21 @@ class LotStore:
                                              (n + len(exclude), offset))]
             offset += len(batch)
             recent = [lot for lot in batch if lot not in exclude]
-            links = self._current_links(c, recent)
-            for lot in recent:
-                product = links[lot]["product"] if lot in links else None
-                if lot not in links or product not in taken or taken[product] >= n:
-                    continue
-                taken[product] += 1
-                for tbl, (tid, _) in links[lot]["tables"].items():
-                    if tbl in _plausible.TABLES_JUDGED:
-                        wanted[tid] = (tbl, lot, product)
+            # newest first, a chunk of lots at a time, until every product has its share (the batch holds the
+            # ingest's own lots' worth more: 25,000 lots read to take 50)
+            for start in range(0, len(recent), _IN_CHUNK):
+                if all(k >= n for k in taken.values()):
+                    break
+                chunk = recent[start:start + _IN_CHUNK]
+                links = self._current_links(c, chunk)
+                for lot in chunk:
+                    product = links[lot]["product"] if lot in links else None
+                    if lot not in links or product not in taken or taken[product] >= n:
+                        continue
+                    taken[product] += 1
+                    for tbl, (tid, _) in links[lot]["tables"].items():
+                        if tbl in _plausible.TABLES_JUDGED:
+                            wanted[tid] = (tbl, lot, product)
             if len(batch) < n + len(exclude):
                 break  # the oldest lot was reached
         history: dict[str, dict] = {}
@@ -669,7 +677,8 @@ class LotStore:
                       [(tid, lot, tname, ingest_id, src["file"], src["sha256"], lt.sha256, lt.columns_json,
                         len(lt.rows), lt.n_filled) for tid, lot, tname, lt, src in batch])
         c.executemany("INSERT INTO lot_table_hashes VALUES (?, ?, ?)",
-                      [(tid, _seal.rows_sha256(lt.rows), _seal.source_rows_sha256(lt.source_rows))
+                      [(tid, lt.rows_sha256 or _seal.rows_sha256(lt.rows),
+                        lt.source_rows_sha256 or _seal.source_rows_sha256(lt.source_rows))
                        for tid, _, _, lt, _ in batch])
 
     @staticmethod
@@ -750,8 +759,11 @@ class LotStore:
             k = int(np.flatnonzero(counts != n_rows)[0])
             raise StoreIntegrityError(f"lot store {self.path} is damaged: lot table {int(link_tid[k])} should have "
                                       f"{int(n_rows[k])} raw rows and has {int(counts[k])}")
+        stored, texts = texts, texts.tolist()  # slices of a list cost less than of an object array
+        sha256 = hashlib.sha256
         changed = [(link[5], link[0], link[1]) for link, start, size in zip(links, starts.tolist(), counts.tolist())
-                   if _seal.rows_sha256(texts[start:start + size].tolist()) != link[4]]
+                   if (sha256(texts[start].encode()) if size == 1 else  # rows_sha256 of one row: its text
+                       sha256("\x1e".join(texts[start:start + size]).encode())).hexdigest() != link[4]]
         if changed:
             shown = "; ".join(f"lot {lot}, table {tbl} (lot table {tid})" for lot, tbl, tid in changed[:10])
             raise StoreIntegrityError(f"lot store {self.path} failed its integrity check: raw rows changed after "
@@ -766,8 +778,16 @@ class LotStore:
             ends = np.cumsum(size)
             at = np.repeat(first - (ends - size), size) + np.arange(ends[-1])  # each lot's rows, lots in order
             # one parse per table: the same values as row by row, without the per-call cost
-            text = "[" + ",".join(texts[at].tolist()) + "]"
-            texts[at] = None  # each row's text is in ``text`` now
+            if len(at) == len(texts) and np.array_equal(at, np.arange(len(texts))):
+                text = "[" + ",".join(texts) + "]"  # the rows read are this table's, in order (the usual case)
+                texts = [None] * len(texts)
+            else:
+                at_list = at.tolist()
+                text = "[" + ",".join([texts[k] for k in at_list]) + "]"
+                for k in at_list:
+                    texts[k] = None
+            stored[at] = None  # each row's text is in ``text`` now (the caller's array let go of them too)
+            del at
             rows = json.loads(text)
             del text
             out[tbl] = _frame(tbl, rows, list(columns[tbl]))
@@ -938,6 +958,35 @@ class LotStore:
                  "outputs": json.loads(oj)} for i, at, u, m, lt, ij, oj in rows]
 
 
+def _ingest_sha256(head: list, files: list, lots: list, written: list, revisions: list,
+                   revision_tables: list) -> str | None:
+    """The ingest's content hash (linkage.seal.ingest_record_sha256) from the values it has just written, when
+    each is of the type SQLite gives back for it (text a str, a number an int, NULL None): then the record is
+    the one linkage.seal.ingest_content reads from the store, and `linkage verify` recomputes it from there.
+    None otherwise (the seal then reads the record back)."""
+    def all_of(values, *types) -> bool:
+        return all(type(v) in types for v in values)
+
+    none = type(None)
+    lot_tables = [(tid, lot, tname, src["file"], src["sha256"], lt.sha256, lt.columns_json, len(lt.rows), lt.n_filled,
+                   lt.rows_sha256 or _seal.rows_sha256(lt.rows),
+                   lt.source_rows_sha256 or _seal.source_rows_sha256(lt.source_rows))
+                  for tid, lot, tname, lt, src in written]
+    revision_rows = [(rid, lot, number, product) for rid, lot, number, _, product in revisions]
+    columns = list(zip(*lot_tables)) or [()] * 11
+    typed = (all_of(head[:1], int) and all_of(head[1:3], str) and all_of(head[3:4], str, none) and all_of(head[4:7], int)
+             and all_of(head[7:8], str) and all_of(head[8:], str, none)
+             and all(all_of(f[:1], str, none) and all_of(f[1:3], str) and all_of(f[3:], int, none) for f in files)
+             and all_of(lots, str) and all_of(columns[0], int) and all_of(columns[7], int) and all_of(columns[8], int)
+             and all(all_of(col, str) for col in columns[1:7] + columns[9:])
+             and all(all_of(r[:1] + r[2:3], int) and all_of(r[1:2], str) and all_of(r[3:], str, none)
+                     for r in revision_rows))
+    if not typed:
+        return None
+    return _seal.ingest_record_sha256(head, files=files, lots=lots, lot_tables=lot_tables, revisions=revision_rows,
+                                      revision_tables=sorted(revision_tables, key=lambda r: (r[0], r[1])))
+
+
 def _ingest_touches(outputs_json: str | None, lot: str) -> bool:
     """Whether an ingest's audit outputs list ``lot`` as new or revised."""
     if not outputs_json:
@@ -955,19 +1004,32 @@ def _frame(table: str, rows: list[dict], columns: list[str]) -> pd.DataFrame:
         ordered = dict.fromkeys(chain.from_iterable(rows))  # first appearance, after those of the lists
         extra_names += [c for c in ordered if c not in kinds and c not in extra_names]
     template = {}
+    values_of = _columns_of(rows, [name for name in [*kinds, *extra_names] if name in present])
     for name, kind in kinds.items():
         if name not in present:  # in no row: what the lines below make of a column of None, directly
             template[name] = np.full(len(rows), np.nan) if kind == NUMBER else [None] * len(rows)
             continue
-        values = [r.get(name) for r in rows]
+        values = values_of.pop(name)
         if kind == NUMBER and set(map(type, values)) <= {float, type(None)}:
             template[name] = np.array(values, dtype=float)  # None -> NaN, as _series makes it
         elif kind == DATETIME:
             template[name] = [None if v is None else dt.datetime.fromisoformat(v) for v in values]
         else:
             template[name] = values  # text and numbers as the JSON gave them
-    extra = {name: [r.get(name) for r in rows] if name in present else [None] * len(rows) for name in extra_names}
+    extra = {name: values_of.pop(name) if name in present else [None] * len(rows) for name in extra_names}
     return _read.frame_from_columns(table, template, extra, n_rows=len(rows))
+
+
+def _columns_of(rows: list[dict], names: list[str]) -> dict[str, list]:
+    """Each of ``names`` as a list of the rows' values, None where a row lacks it (as ``row.get``; a column
+    that every row has is taken with operator.itemgetter, a little faster)."""
+    out: dict[str, list] = {}
+    for name in names:
+        try:
+            out[name] = list(map(operator.itemgetter(name), rows))
+        except KeyError:  # a row without it
+            out[name] = [row.get(name) for row in rows]
+    return out
 
 
 def _n_rows(n: int) -> str:

@@ -85,6 +85,8 @@ class LotTable:
     sha256: str
     n_filled: int
     columns_json: str = ""  # _json(columns), written once per table
+    rows_sha256: str = ""  # linkage.seal.rows_sha256(rows), computed with the rows
+    source_rows_sha256: str = ""  # linkage.seal.source_rows_sha256(source_rows), likewise
 
 
 # The one JSON encoder of a lot table's rows. Each row is a JSON object written two ways from the same
@@ -239,14 +241,24 @@ def _per_lot(tname: str, columns: list[str], codes: np.ndarray, lots: list, row_
         order = order.tolist()
         row_json, source_rows = [row_json[k] for k in order], [source_rows[k] for k in order]
     sha256 = hashlib.sha256
+    # the seal's hashes of each lot's rows and row numbers (linkage.seal.rows_sha256 and source_rows_sha256,
+    # the same texts written out here from pieces made once: an int's JSON is its decimal text)
+    numbers = list(map(str, source_rows))
     if len(lots) == n:  # one row a lot
         digests = [sha256(("[" + h + "]").encode()).hexdigest() for h in hash_json]
-        return {lot: LotTable([row_json[j]], [source_rows[j]], columns, digests[j], per_lot_filled[j])
+        row_digests = [sha256(t.encode()).hexdigest() for t in row_json]
+        source_digests = [sha256(("[" + t + "]").encode()).hexdigest() for t in numbers]
+        return {lot: LotTable([row_json[j]], [source_rows[j]], columns, digests[j], per_lot_filled[j],
+                              rows_sha256=row_digests[j], source_rows_sha256=source_digests[j])
                 for j, lot in enumerate(lots)}
     spans = list(zip(bounds, bounds[1:]))
     digests = [sha256(("[" + ", ".join(hash_json[a:b]) + "]").encode()).hexdigest() for a, b in spans]
-    return {lot: LotTable(row_json[a:b], source_rows[a:b], columns, digest, filled_j)
-            for lot, (a, b), digest, filled_j in zip(lots, spans, digests, per_lot_filled)}
+    row_digests = [sha256("\x1e".join(row_json[a:b]).encode()).hexdigest() for a, b in spans]
+    source_digests = [sha256(("[" + ",".join(numbers[a:b]) + "]").encode()).hexdigest() for a, b in spans]
+    return {lot: LotTable(row_json[a:b], source_rows[a:b], columns, digest, filled_j, rows_sha256=row_digest,
+                          source_rows_sha256=source_digest)
+            for lot, (a, b), digest, filled_j, row_digest, source_digest
+            in zip(lots, spans, digests, per_lot_filled, row_digests, source_digests)}
 
 
 def _pieces(head: str, texts: list[str], missing: np.ndarray) -> list:
@@ -331,8 +343,9 @@ def read_row_texts(c, lot_table_ids=None, *, sources: bool = False, exact: bool 
     wanted = None if lot_table_ids is None else sorted(set(int(t) for t in lot_table_ids))
     parts = []
     blocks = _block_keys(c, wanted, block_keys) if _has_table(c, "row_blocks") else []
+    few = np.array(wanted, dtype=np.int64) if exact and wanted is not None and not sources else None
     for ingest_id, tbl in blocks:
-        parts.append(_read_block(c, ingest_id, tbl, sources, store))
+        parts.append(_read_block(c, ingest_id, tbl, sources, store, few))
     if _has_table(c, "raw_rows") and c.execute("SELECT MAX(rowid) FROM raw_rows").fetchone()[0] is not None:
         parts.append(_read_raw_rows(c, wanted, sources))
     if not parts:
@@ -371,17 +384,23 @@ def _block_keys(c, wanted: list[int] | None, known: set | None = None) -> list[t
     return [k for k in stored if k in keys]
 
 
-def _read_block(c, ingest_id: int, tbl: str, sources: bool, store: str) -> tuple:
-    """One row_blocks record as (lot table id per row, text per row, source row per row or None)."""
+def _read_block(c, ingest_id: int, tbl: str, sources: bool, store: str, wanted: np.ndarray | None = None) -> tuple:
+    """One row_blocks record as (lot table id per row, text per row, source row per row or None). ``wanted``:
+    the lot tables asked for, when only they are needed; when they are a few of the record's, only their
+    lines are taken out of it (the rest is counted, not split)."""
     n_rows, layout_json, source_json, text = c.execute(
         "SELECT n_rows, lot_tables_json, source_rows_json, rows_text FROM row_blocks WHERE ingest_id = ? AND tbl = ?",
         (ingest_id, tbl)).fetchone()
-    texts = np.array(text.split("\n"), dtype=object)
-    del text
     try:
         layout = np.array(json.loads(layout_json), dtype=np.int64).reshape(-1, 2)
     except ValueError:
         layout = np.zeros((0, 2), dtype=np.int64)
+    if wanted is not None and text.count("\n") + 1 == n_rows == int(layout[:, 1].sum()):
+        keep = np.isin(layout[:, 0], wanted)
+        if 4 * int(keep.sum()) < len(layout):
+            return _lines_of(text, layout, keep)
+    texts = np.array(text.split("\n"), dtype=object)
+    del text
     if len(texts) != n_rows or int(layout[:, 1].sum()) != n_rows:
         ends = np.cumsum(layout[:, 1])
         k = min(int(np.searchsorted(ends, len(texts), side="right")), len(layout) - 1) if len(layout) else -1
@@ -395,6 +414,24 @@ def _read_block(c, ingest_id: int, tbl: str, sources: bool, store: str) -> tuple
         raise StoreIntegrityError(f"{store} is damaged: ingest {ingest_id}, table {tbl} has {len(source_rows)} "
                                   f"row numbers for {n_rows} raw rows; run `linkage verify`")
     return tids, texts, source_rows
+
+
+def _lines_of(text: str, layout: np.ndarray, keep: np.ndarray) -> tuple:
+    """The lines of the lot tables ``keep`` marks, out of a record's text whose line count matches its layout:
+    found by the offsets of the line breaks in its UTF-8 bytes (a break is byte 10 there and nowhere else)."""
+    data = text.encode("utf-8")
+    breaks = np.flatnonzero(np.frombuffer(data, dtype=np.uint8) == 10)
+    line_start = np.concatenate([[0], breaks + 1]).tolist()
+    line_end = np.concatenate([breaks, [len(data)]]).tolist()
+    ends = np.cumsum(layout[:, 1])
+    tids: list[int] = []
+    texts: list[str] = []
+    for k in np.flatnonzero(keep).tolist():
+        first, last = int(ends[k] - layout[k, 1]), int(ends[k])
+        if last > first:
+            texts += data[line_start[first]:line_end[last - 1]].decode("utf-8").split("\n")
+            tids += [int(layout[k, 0])] * (last - first)
+    return np.array(tids, dtype=np.int64), np.array(texts, dtype=object), None
 
 
 def _read_raw_rows(c, wanted: list[int] | None, sources: bool) -> tuple:
