@@ -156,11 +156,12 @@ def unusual_values(ingest, history: dict[str, dict[str | None, dict[str, list[di
             continue
         label = ingest.sources.get(table, {}).get("file", table)
         rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
+        products = {product_of.get(lot) for lot in df["lot"].unique().tolist()}
         for column in columns:
             if column not in df:
                 continue
             references = {product: robust_reference(per_lot_medians(history.get(table, {}).get(product, {}), column))
-                          for product in {product_of.get(lot) for lot in df["lot"].unique().tolist()}}
+                          for product in products}
             if all(ref is None for ref in references.values()):
                 continue  # nothing to compare with (an empty store, a new product)
             candidates = (_lot_candidates if table in JUDGED_BY_LOT else _row_candidates)(df, column, references,
@@ -199,10 +200,14 @@ def _far(values, lots: list, references: dict, product_of: dict):
     import numpy as np
     import pandas as pd
 
-    codes, distinct = pd.factorize(pd.Series(lots, dtype=object), use_na_sentinel=False)  # each lot once
-    refs = [references.get(product_of.get(lot)) for lot in distinct.tolist()]
-    m = np.array([np.nan if r is None else r[0] for r in refs])[codes]
-    s = np.array([np.nan if r is None else r[1] for r in refs])[codes]
+    # each lot's product, and each product's reference, looked up once (a lot without one: product None)
+    codes, distinct = pd.factorize(pd.Series(lots, dtype=object), use_na_sentinel=False)
+    of_lot = pd.Series(distinct, dtype=object).map(product_of)
+    product_codes, products = pd.factorize(of_lot.where(of_lot.notna(), None), use_na_sentinel=False)
+    refs = [references.get(None if product is None or (isinstance(product, float) and math.isnan(product)) else product)
+            for product in products]
+    m = np.array([np.nan if r is None else r[0] for r in refs] + [np.nan])[product_codes][codes]
+    s = np.array([np.nan if r is None else r[1] for r in refs] + [np.nan])[product_codes][codes]
     x = np.asarray(values, dtype=float)
     with np.errstate(invalid="ignore", divide="ignore"):
         d = np.abs(np.log10(np.where(x > 0, x, np.nan)) - m)

@@ -965,7 +965,7 @@ def _ingest_sha256(head: list, files: list, lots: list, written: list, revisions
     the one linkage.seal.ingest_content reads from the store, and `linkage verify` recomputes it from there.
     None otherwise (the seal then reads the record back)."""
     def all_of(values, *types) -> bool:
-        return all(type(v) in types for v in values)
+        return set(map(type, values)) <= set(types)
 
     none = type(None)
     lot_tables = [(tid, lot, tname, src["file"], src["sha256"], lt.sha256, lt.columns_json, len(lt.rows), lt.n_filled,
@@ -974,13 +974,16 @@ def _ingest_sha256(head: list, files: list, lots: list, written: list, revisions
                   for tid, lot, tname, lt, src in written]
     revision_rows = [(rid, lot, number, product) for rid, lot, number, _, product in revisions]
     columns = list(zip(*lot_tables)) or [()] * 11
-    typed = (all_of(head[:1], int) and all_of(head[1:3], str) and all_of(head[3:4], str, none) and all_of(head[4:7], int)
-             and all_of(head[7:8], str) and all_of(head[8:], str, none)
-             and all(all_of(f[:1], str, none) and all_of(f[1:3], str) and all_of(f[3:], int, none) for f in files)
-             and all_of(lots, str) and all_of(columns[0], int) and all_of(columns[7], int) and all_of(columns[8], int)
+    file_columns = list(zip(*files)) or [()] * 4
+    revision_columns = list(zip(*revision_rows)) or [()] * 4
+    typed = (all_of(head[:1], int) and all_of(head[1:3], str) and all_of(head[3:4], str, none)
+             and all_of(head[4:7], int) and all_of(head[7:8], str) and all_of(head[8:], str, none)
+             and all_of(file_columns[0], str, none) and all_of(file_columns[1] + file_columns[2], str)
+             and all_of(file_columns[3], int, none) and all_of(lots, str)
+             and all(all_of(col, int) for col in (columns[0], columns[7], columns[8]))
              and all(all_of(col, str) for col in columns[1:7] + columns[9:])
-             and all(all_of(r[:1] + r[2:3], int) and all_of(r[1:2], str) and all_of(r[3:], str, none)
-                     for r in revision_rows))
+             and all_of(revision_columns[0] + revision_columns[2], int) and all_of(revision_columns[1], str)
+             and all_of(revision_columns[3], str, none))
     if not typed:
         return None
     return _seal.ingest_record_sha256(head, files=files, lots=lots, lot_tables=lot_tables, revisions=revision_rows,
