@@ -275,10 +275,13 @@ def _granules(sieve: pd.DataFrame | None, laser: pd.DataFrame | None, cutoff_um:
             }
     if not rows:
         return None
-    return pd.DataFrame.from_dict(rows, orient="index")
+    # what DataFrame.from_dict(rows, orient="index") makes (columns in order of first appearance, missing
+    # cells NaN), from the list of rows: the same frame, without building it column by column in Python
+    return pd.DataFrame(list(rows.values()), index=list(rows))
 
 
 def _outside_note(lot, q, aperture, undersize) -> str:
+    """``aperture`` and ``undersize``: the stack's, finest first (only the first and last items are quoted)."""
     return (f"lot {lot}: d{q} lies outside the sieve stack "
             f"(undersize {undersize[0]:.1f}% at {aperture[0]:g} um, "
             f"{undersize[-1]:.1f}% at {aperture[-1]:g} um)")
@@ -335,11 +338,13 @@ def _sieve_stacks(names, sizes_all, masses_all, bounds, cutoff_um) -> dict[str, 
             d10, d50, d90 = d[10].tolist(), d[50].tolist(), d[90].tolist()
             outside = {q: np.isnan(d[q]).tolist() for q in (10, 50, 90)}
             span, fines, x_prime, n_rrsb = span.tolist(), fines.tolist(), x_prime.tolist(), n_rrsb.tolist()
+            ends = (float(aperture[0]), float(aperture[-1]))  # what a note quotes, as Python floats (the same
+            u_ends = list(zip(U[:, 0].tolist(), U[:, -1].tolist()))  # text; numpy scalars format slowly)
             for r, (member, is_valid, has_fit) in enumerate(zip(members.tolist(), valid.tolist(), fit.tolist())):
                 if not is_valid:
                     continue  # psd.span refuses it: the per-lot path raises the same error
                 lot = names[lots[member]]
-                lot_notes = [_outside_note(lot, q, aperture, U[r]) for q in (10, 50, 90) if outside[q][r]]
+                lot_notes = [_outside_note(lot, q, ends, u_ends[r]) for q in (10, 50, 90) if outside[q][r]]
                 row = {
                     "granule_d10_um": d10[r], "granule_d50_um": d50[r], "granule_d90_um": d90[r],
                     "granule_span": span[r], "granule_size_source": "sieve", "fines_pct": fines[r],

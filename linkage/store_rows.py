@@ -155,7 +155,7 @@ def _texts(name: str, col: pd.Series, want_key: bool) -> _Column | None:
     """Text, each distinct value encoded once; None unless every value present is a str."""
     missing = col.isna().to_numpy()
     codes, uniques = pd.factorize(col)  # missing -> -1
-    uniques = list(uniques)
+    uniques = np.asarray(uniques, dtype=object).tolist()  # not list(): an extension array's __iter__ is per item
     if set(map(type, uniques)) - {str} or not np.array_equal(codes < 0, missing):
         return None
     head = _encode_text(name) + ": "
