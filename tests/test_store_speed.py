@@ -5,7 +5,7 @@ What was made faster, and the reference each is compared with here (outside the 
   ``source_rows_sha256``): against SHA-256 (FIPS 180-4, through hashlib) of the texts the seal module
   documents, written out here: the rows' JSON texts joined by U+001E, and ``json.dumps`` (RFC 8259) of the
   row numbers without spaces; the rows themselves against ``json.dumps`` applied row by row (the encoder
-  before issue 8, written out in tests/test_store_bulk.py as well);
+  before issue 8, written out in tests/test_store_bulk.py);
 - an ingest's seal, now computed from the values the ingest wrote: against
   :func:`linkage.seal.ingest_content`, which reads the record back from the store with SQL (what
   ``linkage verify`` recomputes);
@@ -30,37 +30,17 @@ from hypothesis import strategies as st
 
 from linkage import plausible, seal
 from linkage.read import read_folder
-from linkage.schema import DATETIME, NUMBER, TABLES, TEXT
 from linkage.store import LotStore, _ingest_sha256
 from linkage.store_rows import encode_table, read_row_texts
 from linkage.synthetic import make_lots
+from tests.test_store_bulk import _cell_by_cell
 
 
 def _reference_rows(table: str, df: pd.DataFrame) -> dict[str, dict]:
-    """Per lot: each row through json.dumps (cells: numbers as floats, text as str, dates by
-    Timestamp.isoformat, extra columns float or str, missing left out), the row numbers, and the two hashes
-    by the seal's documented texts."""
-    kinds = {c.name: c.kind for c in TABLES[table].columns}
-
-    def cell(kind, value):
-        if value is None or (isinstance(value, float) and math.isnan(value)) or value is pd.NaT:
-            return None
-        if kind == DATETIME:
-            return pd.Timestamp(value).isoformat()
-        if kind == NUMBER:
-            return float(value)
-        if kind == TEXT:
-            return str(value)
-        return float(value) if isinstance(value, float) else str(value)
-
-    numbers = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
-    out: dict[str, dict] = {}
-    for k, record in enumerate(df.to_dict("records")):
-        row = {c: cell(kinds.get(c, "extra"), v) for c, v in record.items()}
-        lot = out.setdefault(record["lot"], {"rows": [], "source_rows": []})
-        lot["rows"].append(json.dumps({c: v for c, v in row.items() if v is not None}, ensure_ascii=False,
-                                      allow_nan=False))
-        lot["source_rows"].append(int(numbers[k]))
+    """Per lot: each row through json.dumps and its row numbers (tests/test_store_bulk.py's reference encoder),
+    and the two hashes by the seal's documented texts, written out here."""
+    out = {lot: {"rows": ref["rows"], "source_rows": ref["source_rows"]}
+           for lot, ref in _cell_by_cell(table, df).items()}
     for lot in out.values():
         lot["rows_sha256"] = hashlib.sha256("\x1e".join(lot["rows"]).encode("utf-8")).hexdigest()
         lot["source_rows_sha256"] = hashlib.sha256(json.dumps(lot["source_rows"], separators=(",", ":"))
