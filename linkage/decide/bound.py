@@ -326,29 +326,143 @@ def _draw(W: np.ndarray, u: np.ndarray) -> np.ndarray:
     return np.stack([np.searchsorted(c, u, side="right") for c in cdf])
 
 
-def _passes(name: str, pred: np.ndarray, r: np.ndarray, limit, scale: np.ndarray | None = None) -> np.ndarray:
-    """within(project(name, pred[..., None] + r[:, None, None, :] · s[..., None]), limit)
-    (B × rows × draws × lots, s = ``scale``, ones when None), without forming
-    the sums: the projection is a clip onto [pl, ph], so clip(x) ≥ lo holds
-    always when lo ≤ pl, never when lo > ph, and else exactly when x ≥ lo,
-    that is r ≥ (lo − pred)/s since s > 0 (likewise for the upper limit); a
-    test compares the two."""
+class _SortedLots:
+    """The lots of each replicate (``pick``: (1 or B) × L indices into the
+    stage's residual lots) in ascending order of one target's residual
+    (``col``, one per stage lot), and what the last stage's sums take from
+    that order. Each lot's rank is the first position of its value in the
+    sorted column (``col_sorted``), so the replicate's lots are sorted by
+    sorting integers (``order``); ``below[b, g]`` counts the replicate's lots
+    of rank below g (g = 0 … n_s), a cumulative histogram; ``weight[b, i]``
+    is the sum of the weights ``lw`` of the first i lots in that order (NaN
+    throughout for a replicate with a NaN weight) and ``masks[b, i]`` their
+    bits (:func:`_prefix_masks`)."""
+
+    def __init__(self, col: np.ndarray, pick: np.ndarray, B: int, lw: np.ndarray):
+        n_s = col.size
+        self.col_sorted = np.sort(col)
+        rank = np.searchsorted(self.col_sorted, col, side="left").astype(np.int16 if n_s < 2 ** 15 else np.int64)
+        keys = np.broadcast_to(rank[pick], (B, pick.shape[-1]))
+        self.order = np.argsort(keys, axis=1, kind="stable")
+        hist = np.bincount((keys + 1 + (n_s + 1) * np.arange(B)[:, None]).ravel(), minlength=B * (n_s + 1))
+        self.below = np.cumsum(hist.reshape(B, n_s + 1), axis=1)
+        lw = np.broadcast_to(np.asarray(lw, dtype=float), self.order.shape)
+        self.weight = np.zeros((B, self.order.shape[1] + 1))
+        np.cumsum(np.take_along_axis(lw, self.order, axis=1), axis=1, out=self.weight[:, 1:])
+        self.weight[np.isnan(lw).any(axis=1)] = np.nan
+        self.masks = _prefix_masks(self.order, (self.order.shape[1] + 63) // 64)
+
+    def count(self, x: np.ndarray, side: str) -> np.ndarray:
+        """Per replicate b, how many of its lots' residuals lie below
+        ``x[b, ...]`` (``"left"``) or at most it (``"right"``): a residual r
+        lies below x exactly when its rank is below searchsorted(col_sorted,
+        x, "left"), at most x exactly when its rank is below
+        searchsorted(col_sorted, x, "right") (a test compares the counts with
+        numpy's searchsorted row by row)."""
+        g = np.searchsorted(self.col_sorted, x, side=side)
+        return self.below[np.arange(self.below.shape[0]).reshape((-1,) + (1,) * (x.ndim - 1)), g]
+
+
+def _passing_run(name: str, pred: np.ndarray, lots: _SortedLots, limit, scale: np.ndarray | None):
+    """The lots whose residual, added to ``pred`` (B × rows × draws) times
+    ``scale`` (ones when None), meets ``limit`` after the projection onto the
+    physical range, as positions [i0, i1) of each replicate's lots in
+    ascending order of the residual (:class:`_SortedLots`). The projection is
+    a clip onto [pl, ph], so clip(x) ≥ lo holds always when lo ≤ pl, never
+    when lo > ph, and else exactly when x ≥ lo, that is r ≥ (lo − pred)/s
+    since s > 0 (likewise for the upper limit): the passing residuals are one
+    run of the sorted ones. A NaN threshold passes no lot, as a comparison
+    with NaN fails."""
     from linkage.models.lean import physical_range
 
     pl, ph = physical_range(name)
-    shape = pred.shape + (r.shape[-1],)
-    ok = np.ones(shape, dtype=bool)
-    rr = r[:, None, None, :]
+    L = lots.order.shape[1]
     s = 1.0 if scale is None else scale
+    i0 = np.zeros(pred.shape, dtype=np.intp)
+    i1 = np.full(pred.shape, L, dtype=np.intp)
+    if (limit.min is not None and limit.min > ph) or (limit.max is not None and limit.max < pl):
+        return i0, i0
     if limit.min is not None and limit.min > pl:
-        if limit.min > ph:
-            return np.zeros(shape, dtype=bool)
-        ok &= rr >= ((limit.min - pred) / s)[..., None]
+        lo = (limit.min - pred) / s
+        i0 = lots.count(lo, "left")
+        i0[np.isnan(lo)] = L
     if limit.max is not None and limit.max < ph:
-        if limit.max < pl:
-            return np.zeros(shape, dtype=bool)
-        ok &= rr <= ((limit.max - pred) / s)[..., None]
-    return ok
+        hi = (limit.max - pred) / s
+        i1 = lots.count(hi, "right")
+        i1[np.isnan(hi)] = 0
+    return i0, np.maximum(i0, i1)
+
+
+def _prefix_masks(order: np.ndarray, n_words: int) -> np.ndarray:
+    """(B, L + 1, n_words) bit masks: row i of replicate b has the bits of the
+    lots ``order[b, :i]`` set (lot l: bit l % 64 of word l // 64, little-endian)."""
+    B, L = order.shape
+    onehot = np.zeros((B, L + 1, n_words), dtype="<u8")
+    onehot[np.arange(B)[:, None], np.arange(1, L + 1)[None, :], order // 64] = np.left_shift(
+        np.uint64(1), (order % 64).astype(np.uint64))
+    return np.bitwise_or.accumulate(onehot, axis=1)
+
+
+#: the number of bits set in each byte value
+_BYTE_COUNTS = np.array([bin(v).count("1") for v in range(256)], dtype=np.uint8)
+
+
+def _mask_sums(mask: np.ndarray, lw: np.ndarray) -> np.ndarray:
+    """Σ_l lw[b, l] over the lots l whose bit is set in ``mask[b, ...]``
+    (B × ... × words, as :func:`_prefix_masks` lays them out); NaN for a
+    replicate with a NaN weight, as in a product sum. Where a replicate's
+    weights are all equal (lots drawn by weight), the count of bits set times
+    the weight; else through a table per byte of the weight sums of its 256
+    bit patterns (pattern v + 2^k is pattern v plus lot k of the byte, for
+    v < 2^k)."""
+    B, L = lw.shape
+    n_bytes = mask.shape[-1] * 8
+    bytes_ = mask.view(np.uint8)  # byte j holds lots 8j … 8j + 7 (the words are little-endian)
+    if np.all(lw == lw[:, :1]):
+        counts = _BYTE_COUNTS[bytes_].sum(axis=-1, dtype=np.int64)
+        return counts * lw[:, 0].reshape((B,) + (1,) * (counts.ndim - 1))
+    padded = np.zeros((B, n_bytes * 8))
+    padded[:, :L] = lw
+    padded = padded.reshape(B, n_bytes, 8)
+    table = np.zeros((B, n_bytes, 256))
+    for k in range(8):
+        table[:, :, 1 << k:2 << k] = table[:, :, :1 << k] + padded[:, :, k:k + 1]
+    base = ((np.arange(B)[:, None] * n_bytes + np.arange(n_bytes)[None, :]) * 256).reshape(
+        (B,) + (1,) * (mask.ndim - 2) + (n_bytes,))
+    out = table.reshape(-1)[bytes_ + base].sum(axis=-1)
+    out[np.isnan(lw).any(axis=1)] = np.nan
+    return out
+
+
+def _final_sums(items: list, lw: np.ndarray, w: np.ndarray, ok: np.ndarray, each_sums: bool = True):
+    """The last stage's exact sums over its lots: P(all pass) (B × rows) and,
+    with ``each_sums``, P(pass) of each target. ``items`` are (name, pred
+    B × rows × draws, the replicates' lots sorted by the target's residual
+    (:class:`_SortedLots`), limit, spread scale or None) for each judged
+    target; ``lw`` the lots' weights, ``w`` the draws'
+    weights, ``ok`` whether a draw met every limit upstream. A draw's share
+    is Σ_l lw[b, l] over the lots whose residuals pass (:func:`_passing_run`)
+    every target (and each target alone), summed over the draws with w.
+
+    The same sums as judging every lot of every draw (within(project(pred +
+    r · s), limit), rows × draws × lots per replicate; a test compares the
+    two) without forming them: each target's passing lots are a run of its
+    sorted residuals, so its share is a difference of prefix sums of the
+    weights in that order, and the lots passing every target are the AND of
+    the runs' bit masks (prefix masks of the order), summed by
+    :func:`_mask_sums`. Only the order of the additions differs (~1e-16)."""
+    B = ok.shape[0]
+    L = lw.shape[-1]
+    lw = np.broadcast_to(np.asarray(lw, dtype=float), (B, L))
+    bi = np.arange(B)[:, None, None]
+    mask = np.where(ok, ~np.uint64(0), np.uint64(0)).astype("<u8")[..., None]
+    p_each = {}
+    for name, pred, lots, limit, scale in items:
+        i0, i1 = _passing_run(name, pred, lots, limit, scale)
+        if each_sums:
+            p_each[name] = np.einsum("brd,bd->br", lots.weight[bi, i1] - lots.weight[bi, i0], w)
+        mask = mask & lots.masks[bi, i1] & ~lots.masks[bi, i0]
+    return np.einsum("brd,bd->br", _mask_sums(mask, lw), w), p_each
 
 
 def _wsum(a: np.ndarray, lw: np.ndarray, w: np.ndarray) -> np.ndarray:
@@ -361,38 +475,28 @@ def _wsum(a: np.ndarray, lw: np.ndarray, w: np.ndarray) -> np.ndarray:
     return np.einsum("brd,bd->br", per_draw.reshape(B, r, d), w)
 
 
-def _batch(lean, columns: dict, limits: dict, attributes: list[str], models: dict, counts, lot_index,
-           seed: int, cells: int, final_max: int, each_sums: bool = True):
-    """P(all pass) (B × rows) and P(pass) per attribute for a batch of
-    replicates (models of each target evaluated together); without
-    ``each_sums`` the last stage's attributes get no P(pass) of their own."""
-    from linkage.decide.propagate import within
-    from linkage.models.lean import project
-
-    B = len(next(iter(models.values())))
-    nrows = len(next(iter(columns.values())))
-    fixed = set(columns)
+def _plan(lean, fixed: set, nrows: int, B: int, counts, lot_index, seed: int, cells: int,
+          final_max: int) -> list[dict]:
+    """What a batch's sums take that does not depend on the values at the
+    rows: per simulated stage, its residual rows ``R``, the draws' parents
+    and the lots they take (``pick``), the draws' weights after it (``w``),
+    and for the last stage the lots' weights (``lw``) and, filled as they are
+    needed, each judged target's sorted lots (``sorted``) and their prefix
+    masks and weight sums. The lots depend on the replicates' counts and on
+    uniforms drawn from ``default_rng([seed, stage])`` only."""
     sim = [st for st in lean.stages if any(t not in fixed for t in st.targets)]
-    values = {k: np.asarray(v, dtype=float).reshape(1, nrows, 1) for k, v in columns.items()}
     w = np.ones((B, 1))
-    ok = np.ones((B, nrows, 1), dtype=bool)
-    each: dict[str, np.ndarray] = {}
-    p_each: dict[str, np.ndarray] = {}
-    p_all = None
+    steps = []
     for si, st in enumerate(sim):
         todo = [t for t in st.targets if t not in fixed]
-        missing = [c for c in st.inputs if c not in values]
-        if missing:
-            raise UsageError(f"stage '{st.name}' needs {', '.join(missing)}, which were neither given nor "
-                             "predicted by an earlier stage")
         R, W = _stage_lots(st, todo, counts, lot_index)
         if R.shape[0] == 0:
             raise UsageError(f"stage '{st.name}' has no lot with out-of-fold residuals of every target; "
                              "the model cannot give it an uncertainty")
         rng = np.random.default_rng([seed, si])  # the same uniforms whatever the batch
         D, n_s = w.shape[1], R.shape[0]
-        final = si == len(sim) - 1
-        if not final:
+        step = {"stage": st, "todo": todo, "R": R, "final": si == len(sim) - 1}
+        if not step["final"]:
             if nrows * D * n_s <= cells:  # every lot, with its weight
                 parent = np.repeat(np.arange(D), n_s)
                 pick = np.tile(np.arange(n_s), D)[None, :]
@@ -402,45 +506,90 @@ def _batch(lean, columns: dict, limits: dict, attributes: list[str], models: dic
                 parent = np.repeat(np.arange(D), k)
                 pick = _draw(W, rng.random(D * k))
                 w = w[:, parent] / k
+            step["parent"] = parent
+        elif n_s > final_max:
+            pick = _draw(W, rng.random(final_max))
+            step["lw"] = np.full((B, final_max), 1.0 / final_max)
+        else:
+            pick = np.arange(n_s)[None, :]
+            step["lw"] = W
+        step.update(pick=pick, w=w, sorted={})
+        steps.append(step)
+    return steps
+
+
+def _batch(lean, columns: dict, limits: dict, attributes: list[str], models: dict, plan: list[dict],
+           each_sums: bool = True):
+    """P(all pass) (B × rows) and P(pass) per attribute for a batch of
+    replicates (models of each target evaluated together) with the batch's
+    :func:`_plan`; without ``each_sums`` the last stage's attributes get no
+    P(pass) of their own."""
+    from linkage.decide.propagate import within
+    from linkage.models.lean import project
+
+    B = len(next(iter(models.values())))
+    nrows = len(next(iter(columns.values())))
+    values = {k: np.asarray(v, dtype=float).reshape(1, nrows, 1) for k, v in columns.items()}
+    w = np.ones((B, 1))
+    ok = np.ones((B, nrows, 1), dtype=bool)
+    each: dict[str, np.ndarray] = {}
+    p_each: dict[str, np.ndarray] = {}
+    p_all = None
+    for step in plan:
+        st, R, pick, final = step["stage"], step["R"], step["pick"], step["final"]
+        missing = [c for c in st.inputs if c not in values]
+        if missing:
+            raise UsageError(f"stage '{st.name}' needs {', '.join(missing)}, which were neither given nor "
+                             "predicted by an earlier stage")
+        if not final:
+            parent = step["parent"]
             values = {c: v[:, :, parent] for c, v in values.items()}
             ok = ok[:, :, parent]
             each = {a: e[:, :, parent] for a, e in each.items()}
-        else:
-            if n_s > final_max:
-                pick = _draw(W, rng.random(final_max))
-                lw = np.full((B, final_max), 1.0 / final_max)
-            else:
-                pick = np.arange(n_s)[None, :]
-                lw = W
+        w = step["w"]
         n_draws = w.shape[1]
-        joint = None
-        for j, t in enumerate(todo):
+        judged = []  # the last stage's targets, summed by _final_sums
+        for j, t in enumerate(step["todo"]):
             if final and t not in attributes:
                 continue
             target = lean.targets[t]
             X3 = np.stack([np.broadcast_to(values[c], (B, nrows, n_draws)).reshape(B, -1)
                            for c in target.inputs], axis=-1)
             pred = models[t].predict(X3).reshape(B, nrows, n_draws)
-            r = R[:, j][pick]  # (1 or B, draws or lots)
             scale = None if getattr(target, "spread", None) is None else target.scale(pred)
             if not final:
+                r = R[:, j][pick]  # (1 or B, draws)
                 values[t] = project(t, pred + r[:, None, :] * (1.0 if scale is None else scale))[0]
                 if t in attributes:
                     each[t] = within(values[t], limits[t])
                     ok = ok & each[t]
             else:
-                pa = _passes(t, pred, r, limits[t], scale)
-                joint = pa if joint is None else joint & pa
-                if each_sums:
-                    p_each[t] = _wsum(pa, lw, w)
-        if final:
-            joint = ok[..., None] if joint is None else joint & ok[..., None]
-            p_all = _wsum(joint, lw, w) if joint.shape[-1] == lw.shape[-1] else np.einsum("brdl,bd->br", joint, w)
+                if t not in step["sorted"]:
+                    step["sorted"][t] = _SortedLots(R[:, j], pick, B, step["lw"])
+                judged.append((t, pred, step["sorted"][t], limits[t], scale))
+        if final and judged:
+            p_all, sums = _final_sums(judged, step["lw"], w, ok, each_sums)
+            p_each.update(sums)
+        elif final:
+            lw = step["lw"]
+            p_all = _wsum(ok[..., None], lw, w) if lw.shape[-1] == 1 else np.einsum("brd,bd->br", ok, w)
     for a, e in each.items():
         p_each[a] = np.einsum("brd,bd->br", e, w)
     if p_all is None:
         p_all = np.einsum("brd,bd->br", ok, w)
     return p_all, p_each
+
+
+def _plans_of(lean, signature: tuple) -> dict:
+    """The plans of :func:`chain_probabilities`'s batches for one signature
+    (given names, rows, seed and sizes), kept on the lean chain for the next
+    call with the same signature (a what-if at other settings); one signature
+    is kept, the last."""
+    kept = getattr(lean, "_bound_plans", None)
+    if kept is None or kept[0] != signature:
+        kept = (signature, {})
+        lean._bound_plans = kept
+    return kept[1]
 
 
 def chain_probabilities(lean, columns: dict, limits: dict, attributes: list[str], *, replicates: bool = True,
@@ -451,8 +600,12 @@ def chain_probabilities(lean, columns: dict, limits: dict, attributes: list[str]
     estimate and (when ``replicates`` and the model has them) every
     bootstrap replicate. ``limits`` maps each attribute to a spec limit
     (``min``/``max``); ``attributes`` are the predicted ones to judge.
-    Replicates are evaluated in batches of at most ``memory_cells`` cells of
-    the last stage's sums; the result does not depend on the batch size.
+    Replicates are evaluated in batches of at most ``memory_cells`` bytes of
+    the last stage's lot masks (a bit per lot and draw); the result does not
+    depend on the batch size. What does not depend on the values at the rows
+    (the lots each draw takes, their order; :func:`_plan`) is kept on the
+    lean chain for the next call with the same given names, rows, seed and
+    sizes.
     ``each=False`` skips the last stage's per-attribute sums (P(all pass)
     alone, unchanged; ``p_each`` then lacks those attributes), which a map
     of many points does not need."""
@@ -461,24 +614,28 @@ def chain_probabilities(lean, columns: dict, limits: dict, attributes: list[str]
     lean = as_lean(lean)
     columns = {str(k): np.asarray(v, dtype=float).reshape(-1) for k, v in columns.items()}
     point_models = {t: _Loop([tg.model_]) for t, tg in lean.targets.items()}
-    p_all, p_each = _batch(lean, columns, limits, attributes, point_models, None, None, seed, cells, final_max,
-                           each)
+    nrows = len(next(iter(columns.values())))
+    plans = _plans_of(lean, (tuple(sorted(columns)), nrows, seed, cells, final_max))
+    if "point" not in plans:
+        plans["point"] = _plan(lean, set(columns), nrows, 1, None, None, seed, cells, final_max)
+    p_all, p_each = _batch(lean, columns, limits, attributes, point_models, plans["point"], each)
     p_all, p_each = p_all[0], {a: v[0] for a, v in p_each.items()}
     if not replicates:
         return ChainProbabilities(p_all, p_each, None, None, None)
     reps = replicates_of(lean)
     if not reps.available:
         return ChainProbabilities(p_all, p_each, None, None, reps.reason)
-    nrows = p_all.size
-    per_rep = nrows * max(cells // max(nrows, 1), 1) * final_max
+    per_rep = nrows * max(cells // max(nrows, 1), 1) * 8 * ((final_max + 63) // 64)
     size = max(1, min(reps.n, memory_cells // max(per_rep, 1)))
     all_b = np.empty((reps.n, nrows))
     each_b = {a: np.empty((reps.n, nrows)) for a in p_each}
     for start in range(0, reps.n, size):
         idx = np.arange(start, min(start + size, reps.n))
+        if (start, size) not in plans:
+            plans[start, size] = _plan(lean, set(columns), nrows, idx.size, reps.counts[idx], reps.lot_index, seed,
+                                       cells, final_max)
         models = {t: reps.models[t].take(idx) for t in lean.targets}
-        pa, pe = _batch(lean, columns, limits, attributes, models, reps.counts[idx], reps.lot_index, seed,
-                        cells, final_max, each)
+        pa, pe = _batch(lean, columns, limits, attributes, models, plans[start, size], each)
         all_b[idx] = pa
         for a in each_b:
             each_b[a][idx] = pe[a]

@@ -18,7 +18,7 @@ import pytest
 from click.testing import CliRunner
 
 from linkage.cli.main import cli
-from linkage.decide.bound import NO_BOUND, _passes, chain_probabilities
+from linkage.decide.bound import NO_BOUND, _final_sums, _SortedLots, chain_probabilities
 from linkage.decide.propagate import within
 from linkage.decide.whatif import predict_whatif
 from linkage.decide.window import find_window
@@ -46,23 +46,106 @@ def old_chain(scenario):
     return old
 
 
-@pytest.mark.parametrize("name, limit", [("weight_rsd_pct", Limit(None, 2.0)), ("weight_rsd_pct", Limit(0.5, 2.0)),
-                                         ("dissolution_pct", Limit(80.0, None)), ("ribbon_porosity", Limit(0.2, 0.4)),
-                                         ("friability_pct", Limit(-1.0, 0.8)), ("weight_rsd_pct", Limit(-2.0, -1.0))])
+LIMITS = [("weight_rsd_pct", Limit(None, 2.0)), ("weight_rsd_pct", Limit(0.5, 2.0)),
+          ("dissolution_pct", Limit(80.0, None)), ("ribbon_porosity", Limit(0.2, 0.4)),
+          ("friability_pct", Limit(-1.0, 0.8)), ("weight_rsd_pct", Limit(-2.0, -1.0))]
+SCALES = {"weight_rsd_pct": 2.0, "dissolution_pct": 20.0, "ribbon_porosity": 0.5, "friability_pct": 1.0}
+
+
+def _direct_sums(items, lw, w, ok):
+    """The straightforward form of the last stage's sums: every lot of every
+    draw projected and judged (linkage.models.lean.project, then
+    linkage.decide.propagate.within), B × rows × draws × lots, summed with
+    numpy's plain products."""
+    joint = ok[..., None].copy()
+    each = {}
+    for name, pred, col, pick, limit, scale in items:
+        r = np.broadcast_to(col[pick], lw.shape)
+        s = 1.0 if scale is None else scale[..., None]
+        passes = within(project(name, pred[..., None] + r[:, None, None, :] * s)[0], limit)
+        joint = joint & passes
+        each[name] = np.einsum("brd,bd->br", (passes * lw[:, None, None, :]).sum(axis=-1), w)
+    return np.einsum("brd,bd->br", (joint * lw[:, None, None, :]).sum(axis=-1), w), each
+
+
+def _sorted(items, lw):
+    """The items as _final_sums takes them: each replicate's lots sorted by the residual."""
+    return [(name, pred, _SortedLots(col, pick, lw.shape[0], lw), limit, s) for name, pred, col, pick, limit, s in items]
+
+
+@pytest.mark.parametrize("name, limit", LIMITS)
 def test_limits_on_residuals_equal_projection_then_limits(name, limit):
-    """_passes judges pred + r on thresholds of the residual; it must equal
-    projecting the sum onto the physical range and then checking the limits
-    (linkage.models.lean.project, linkage.decide.propagate.within)."""
+    """The last stage's sums judge pred + r on thresholds of the sorted
+    residuals; they must equal projecting every sum onto the physical range,
+    checking the limits and adding the weights of the lots that pass
+    (linkage.models.lean.project, linkage.decide.propagate.within, numpy's
+    plain sums): to rounding, with and without a spread model."""
     rng = np.random.default_rng(1)
-    scale = {"weight_rsd_pct": 2.0, "dissolution_pct": 20.0, "ribbon_porosity": 0.5, "friability_pct": 1.0}[name]
+    scale = SCALES[name]
     pred = rng.normal(0, scale, (3, 4, 5))
-    r = rng.normal(0, scale, (3, 7))
-    expected = within(project(name, pred[..., None] + r[:, None, None, :])[0], limit)
-    np.testing.assert_array_equal(_passes(name, pred, r, limit), expected)
-    # with a spread model the lot's standardised residual is rescaled to the spread at the draw's level
-    s = rng.uniform(0.2, 3.0, pred.shape)
-    expected = within(project(name, pred[..., None] + r[:, None, None, :] * s[..., None])[0], limit)
-    np.testing.assert_array_equal(_passes(name, pred, r, limit, s), expected)
+    col = rng.normal(0, scale, 9)  # the stage's lots; each replicate takes 7 of them
+    pick = rng.integers(0, 9, (3, 7))
+    lw = rng.dirichlet(np.ones(7), 3)
+    w = rng.dirichlet(np.ones(5), 3)
+    ok = np.ones(pred.shape, dtype=bool)
+    for s in (None, rng.uniform(0.2, 3.0, pred.shape)):
+        items = [(name, pred, col, pick, limit, s)]
+        p_all, each = _final_sums(_sorted(items, lw), lw, w, ok)
+        ref_all, ref_each = _direct_sums(items, lw, w, ok)
+        np.testing.assert_allclose(p_all, ref_all, rtol=0, atol=1e-14)
+        np.testing.assert_allclose(each[name], ref_each[name], rtol=0, atol=1e-14)
+
+
+def test_final_sums_equal_the_direct_sums_on_a_seeded_case():
+    """The fast sums of the last stage (sorted residuals, prefix sums, bit
+    masks) against the direct computation (numpy, every lot of every draw
+    judged): several targets at once, residuals with ties (whole lots drawn
+    again), a spread model, draws that failed upstream, a replicate whose
+    weights are NaN (it drew none of the stage's lots), NaN predictions, and
+    the uniform weights of lots drawn by weight; 3 × 2 × 11 draws, 70 lots."""
+    rng = np.random.default_rng(7)
+    B, rows, D, L = 3, 2, 11, 70
+    items = []
+    # (limit, centre and SD of the predictions, SD of the residuals): each passes about 0.8 of the lots alone
+    cases = {"weight_rsd_pct": (Limit(None, 2.0), 1.0, 0.3, 0.5), "dissolution_pct": (Limit(80.0, None), 90.0, 3.0, 6.0),
+             "ribbon_porosity": (Limit(0.2, 0.4), 0.3, 0.02, 0.05), "friability_pct": (Limit(-1.0, 0.8), 0.3, 0.1, 0.3)}
+    for name, (limit, centre, sd, r_sd) in cases.items():
+        pred = rng.normal(centre, sd, (B, rows, D))
+        pred[0, 0, 0] = np.nan
+        base = rng.normal(0, r_sd, 40)
+        col = np.concatenate([base, base[:10]])  # 50 stage lots, ten residuals twice (ties)
+        pick = rng.integers(0, col.size, (B, L))  # each replicate's lots, some taken more than once
+        s = rng.uniform(0.5, 2.0, pred.shape) if name == "dissolution_pct" else None
+        items.append((name, pred, col, pick, limit, s))
+    w = rng.dirichlet(np.ones(D), B)
+    ok = rng.random((B, rows, D)) > 0.2
+    lw = rng.dirichlet(np.ones(L), B)
+    lw[2] = np.nan
+    for weights in (lw, np.full((B, L), 1.0 / L)):
+        p_all, each = _final_sums(_sorted(items, weights), weights, w, ok)
+        ref_all, ref_each = _direct_sums(items, weights, w, ok)
+        np.testing.assert_allclose(p_all, ref_all, rtol=0, atol=1e-14)
+        assert set(each) == set(ref_each)
+        for name in each:
+            np.testing.assert_allclose(each[name], ref_each[name], rtol=0, atol=1e-14)
+    assert np.isnan(p_all).sum() == 0 and np.isnan(_final_sums(_sorted(items, lw), lw, w, ok)[0][2]).all()
+    assert 0.05 < np.nanmean(p_all) < 0.95  # the case is not trivial
+
+
+def test_lot_counts_equal_numpy_searchsorted_row_by_row():
+    """_SortedLots counts each replicate's residuals below (at most) a
+    threshold from integer ranks; numpy's sort and searchsorted, row by row,
+    are the reference (ties and lots taken twice included)."""
+    rng = np.random.default_rng(3)
+    col = np.round(rng.normal(size=40), 1)  # rounded: many ties
+    x = np.round(rng.normal(size=(6, 5, 9)), 1)
+    for pick in (rng.integers(0, 40, (6, 30)), np.arange(40)[None, :]):
+        lots = _SortedLots(col, pick, 6, np.ones((1, pick.shape[1])))
+        rows = np.sort(np.broadcast_to(col[pick], (6, pick.shape[1])), axis=1)
+        np.testing.assert_array_equal(np.take_along_axis(np.broadcast_to(col[pick], rows.shape), lots.order, 1), rows)
+        for side in ("left", "right"):
+            expected = np.stack([np.searchsorted(rows[b], x[b], side=side) for b in range(6)])
+            np.testing.assert_array_equal(lots.count(x, side), expected)
 
 
 def test_engine_point_matches_monte_carlo_on_the_grid(scenario, window):
