@@ -18,7 +18,7 @@ import pytest
 from click.testing import CliRunner
 
 from linkage.cli.main import cli
-from linkage.decide.bound import NO_BOUND, _final_sums, _SortedLots, chain_probabilities
+from linkage.decide.bound import NO_BOUND, _final_sums, _nanquantile, _SortedLots, chain_probabilities
 from linkage.decide.propagate import within
 from linkage.decide.whatif import predict_whatif
 from linkage.decide.window import find_window
@@ -146,6 +146,18 @@ def test_lot_counts_equal_numpy_searchsorted_row_by_row():
         for side in ("left", "right"):
             expected = np.stack([np.searchsorted(rows[b], x[b], side=side) for b in range(6)])
             np.testing.assert_array_equal(lots.count(x, side), expected)
+
+
+def test_quantile_of_replicates_equals_numpys_nanquantile():
+    """Where the replicates have no NaN, their quantile is taken by
+    np.quantile; numpy's np.nanquantile is the reference, bit for bit, at the
+    levels the bounds use and with ties."""
+    rng = np.random.default_rng(5)
+    reps = np.round(rng.beta(8, 2, (200, 61)), 3)
+    for q in (0.0, 0.1, 0.05, 0.0372, 0.5, 1.0):
+        np.testing.assert_array_equal(_nanquantile(reps, q), np.nanquantile(reps, q, axis=0))
+    reps[3, 5] = reps[17, 5] = np.nan
+    np.testing.assert_array_equal(_nanquantile(reps, 0.1), np.nanquantile(reps, 0.1, axis=0))
 
 
 def test_engine_point_matches_monte_carlo_on_the_grid(scenario, window):
