@@ -210,8 +210,8 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
     without replicates says so in ``p_pass_all_bound.reason`` and promises
     nothing.
     """
-    from linkage.decide.bound import chain_probabilities, check_assurance, with_unit_level
-    from linkage.models.lean import as_lean, physical_range, project
+    from linkage.decide.bound import check_assurance
+    from linkage.models.lean import as_lean
     from linkage.timepoint import check_time_point, model_time_point
 
     chain = as_lean(chain)
@@ -224,91 +224,15 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         raise UsageError(f"interval level must lie between 0 and 1; got {level}")
     filled, source = fill_settings(chain, values)
     draws = simulate(chain, {k: [v] for k, v in filled.items()}, n_draws=n_draws, seed=seed)
-    q = (1 - level) / 2
-
-    predictions: dict[str, dict] = {}
-    reasons: list[str] = []
-    domain: dict[str, dict] = {}
     spec_limits = spec.limits if spec is not None else {}
-    pass_all = np.ones(draws.n_draws, dtype=bool)
-    any_spec = False
     judged = compendial.judge_draws(chain, draws, spec, seed=seed) if compendial.needs_units(spec) else None
-    for stage in chain.stages:
-        todo = [t for t in stage.targets if t not in draws.fixed]
-        if not todo:
-            continue
-        x = {c: draws.means[c] for c in stage.inputs}
-        verdict = stage.domain.check(x)[0]
-        domain[stage.name] = {
-            "in_domain": bool(verdict["in_domain"]), "t2": _num(verdict["t2"]),
-            "t2_limit": _num(verdict["t2_limit"]), "q": _num(verdict["q"]), "q_limit": _num(verdict["q_limit"]),
-            "reasons": list(verdict["reasons"]),
-        }
-        reasons += [f"{stage.name} stage: {r}" for r in verdict["reasons"]]
-        inputs_known = all(c in draws.fixed for c in stage.inputs)
-        for name in todo:
-            target = stage.targets[name]
-            v = draws.values[name][0]
-            if inputs_known:
-                lo, hi = target.interval(x, level, raw=True)
-                raw_low, raw_high = float(lo[0]), float(hi[0])
-                method = "cv+ conformal" if getattr(target, "spread", None) is None else "locally weighted cv+ conformal"
-                low, high = (float(project(name, e)[0]) for e in (raw_low, raw_high))
-            else:
-                low, high = (float(a) for a in np.quantile(v, [q, 1 - q]))
-                raw_low, raw_high = (float(a) for a in np.quantile(draws.raw[name][0], [q, 1 - q]))
-                method = "monte carlo through the chain"
-            value, raw_value = float(draws.means[name][0]), float(draws.raw_means[name][0])
-            bounds = physical_range(name)
-            entry = {
-                "value": value, "low": low, "high": high,
-                "interval_method": method, "selected_model": target.selected,
-                "projected": bool(value != raw_value or low != raw_low or high != raw_high),
-                "unprojected": {"value": raw_value, "low": raw_low, "high": raw_high},
-                "physical_range": [_num(b) for b in bounds],
-            }
-            if name in spec_limits:
-                ok = within(v, spec_limits[name])
-                if judged is not None and name in judged.passes:  # judged on simulated units
-                    ok = judged.passes[name][0]
-                    entry.update(compendial.stage_entry(spec, judged))
-                entry["p_pass"] = float(ok.mean())
-                entry["limits"] = {"min": spec_limits[name].min, "max": spec_limits[name].max}
-                entry.setdefault("judge", "mean")
-                pass_all &= ok
-                any_spec = True
-            if contributions:
-                entry["contributions"] = _top_contributions(target, x)
-            predictions[name] = entry
-
+    stages = _stage_predictions(chain, draws, spec, judged, level, contributions)
+    predictions, pass_all = stages.predictions, stages.pass_all
     if judged is not None and compendial.ACCEPTANCE_VALUE in judged.passes:
-        ok = judged.passes[compendial.ACCEPTANCE_VALUE][0]
         predictions[compendial.ACCEPTANCE_VALUE] = compendial.av_entry(spec, judged, level)
-        pass_all &= ok
-        any_spec = True
-    p_all_low, bound_reason = None, None
-    bounded = [n for n in predictions if "p_pass" in predictions[n] and n in spec_limits]
-    if bounded:
-        cp = chain_probabilities(chain, {k: [v] for k, v in filled.items()}, spec_limits, bounded, seed=seed,
-                                 cells=WHATIF_CELLS)
-        low_each = cp.low_each(assurance)
-        if low_each is None:
-            bound_reason = cp.reason
-        else:
-            p_all_low = float(cp.low_all(assurance)[0])
-            if compendial.needs_units(spec):  # units judged too: the unit-level factor at its point estimate
-                p_all_low = float(with_unit_level(p_all_low, cp.p_all[0], pass_all.mean()))
-                for n in bounded:
-                    if spec.judge_of(n) == "stages":
-                        low_each[n] = with_unit_level(low_each[n], cp.p_each[n], predictions[n]["p_pass"])
-        for n in bounded:
-            predictions[n]["p_pass_low"] = None if low_each is None else float(low_each[n][0])
-            predictions[n]["p_pass_point"] = float(cp.p_each[n][0])
-        if compendial.ACCEPTANCE_VALUE in predictions and p_all_low is not None:  # scaled as P(all)'s bound
-            point_all = float(pass_all.mean())
-            scale = min(1.0, p_all_low / point_all) if point_all > 0 else 0.0
-            predictions[compendial.ACCEPTANCE_VALUE]["p_pass_low"] = predictions[compendial.ACCEPTANCE_VALUE][
-                "p_pass"] * scale
+        pass_all &= judged.passes[compendial.ACCEPTANCE_VALUE][0]
+        stages.any_spec = True
+    p_all_low, bound_reason = _bound_entries(chain, filled, spec, predictions, pass_all, assurance, seed)
 
     inputs = {k: {"value": float(filled[k]), "source": source[k]} for k in filled}
     judged_attributes = [a for a in spec_limits if a in predictions]
@@ -322,8 +246,8 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         model_id=chain.model_id or "unsaved",
         made_at=datetime.now(timezone.utc).isoformat(timespec="seconds"),
         level=level, inputs=inputs, predictions=predictions,
-        p_pass_all=float(pass_all.mean()) if any_spec else None,
-        in_domain=not reasons, domain_reasons=reasons, domain=domain,
+        p_pass_all=float(pass_all.mean()) if stages.any_spec else None,
+        in_domain=not stages.reasons, domain_reasons=stages.reasons, domain=stages.domain,
         judges=compendial.judge_text(spec) if spec is not None else {},
         attributes=judged_attributes, not_modelled=not_modelled,
         spec=spec.describe() if spec is not None else None,
@@ -333,6 +257,125 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         assurance=assurance, p_pass_all_low=p_all_low, bound_reason=bound_reason,
         held_rule=rule_of(chain),
     )
+
+
+@dataclass
+class _StagePredictions:
+    """What :func:`_stage_predictions` gives: an entry per predicted
+    attribute, the domain verdict per stage and its reasons, whether each
+    draw passes every spec limit judged so far, and whether any was."""
+
+    predictions: dict[str, dict]
+    domain: dict[str, dict]
+    reasons: list[str]
+    pass_all: np.ndarray
+    any_spec: bool
+
+
+def _stage_predictions(chain, draws, spec, judged, level: float, contributions: bool) -> _StagePredictions:
+    """Every attribute the what-if predicts, stage by stage: its value and
+    interval, its P(pass) where the spec limits it (on the draws, or on
+    simulated units where ``judged`` has it), its three largest
+    contributions; and each stage's applicability-domain verdict at the
+    chain of mean predictions."""
+    spec_limits = spec.limits if spec is not None else {}
+    out = _StagePredictions({}, {}, [], np.ones(draws.n_draws, dtype=bool), False)
+    for stage in chain.stages:
+        todo = [t for t in stage.targets if t not in draws.fixed]
+        if not todo:
+            continue
+        x = {c: draws.means[c] for c in stage.inputs}
+        verdict = stage.domain.check(x)[0]
+        out.domain[stage.name] = {
+            "in_domain": bool(verdict["in_domain"]), "t2": _num(verdict["t2"]),
+            "t2_limit": _num(verdict["t2_limit"]), "q": _num(verdict["q"]), "q_limit": _num(verdict["q_limit"]),
+            "reasons": list(verdict["reasons"]),
+        }
+        out.reasons += [f"{stage.name} stage: {r}" for r in verdict["reasons"]]
+        inputs_known = all(c in draws.fixed for c in stage.inputs)
+        for name in todo:
+            target = stage.targets[name]
+            entry = _attribute_entry(name, target, draws, x, level, inputs_known)
+            if name in spec_limits:
+                v = draws.values[name][0]
+                ok = within(v, spec_limits[name])
+                if judged is not None and name in judged.passes:  # judged on simulated units
+                    ok = judged.passes[name][0]
+                    entry.update(compendial.stage_entry(spec, judged))
+                entry["p_pass"] = float(ok.mean())
+                entry["limits"] = {"min": spec_limits[name].min, "max": spec_limits[name].max}
+                entry.setdefault("judge", "mean")
+                out.pass_all &= ok
+                out.any_spec = True
+            if contributions:
+                entry["contributions"] = _top_contributions(target, x)
+            out.predictions[name] = entry
+    return out
+
+
+def _attribute_entry(name: str, target, draws, x: dict, level: float, inputs_known: bool) -> dict:
+    """One attribute's value and interval at ``level``: the stage model's
+    conformal interval where every input of its stage is known, else the
+    central quantile range of the Monte Carlo draws through the chain; each
+    projected onto the physical range, the unprojected numbers beside."""
+    from linkage.models.lean import physical_range, project
+
+    v = draws.values[name][0]
+    if inputs_known:
+        lo, hi = target.interval(x, level, raw=True)
+        raw_low, raw_high = float(lo[0]), float(hi[0])
+        method = "cv+ conformal" if getattr(target, "spread", None) is None else "locally weighted cv+ conformal"
+        low, high = (float(project(name, e)[0]) for e in (raw_low, raw_high))
+    else:
+        q = (1 - level) / 2
+        low, high = (float(a) for a in np.quantile(v, [q, 1 - q]))
+        raw_low, raw_high = (float(a) for a in np.quantile(draws.raw[name][0], [q, 1 - q]))
+        method = "monte carlo through the chain"
+    value, raw_value = float(draws.means[name][0]), float(draws.raw_means[name][0])
+    bounds = physical_range(name)
+    return {
+        "value": value, "low": low, "high": high,
+        "interval_method": method, "selected_model": target.selected,
+        "projected": bool(value != raw_value or low != raw_low or high != raw_high),
+        "unprojected": {"value": raw_value, "low": raw_low, "high": raw_high},
+        "physical_range": [_num(b) for b in bounds],
+    }
+
+
+def _bound_entries(chain, filled: dict, spec, predictions: dict, pass_all: np.ndarray, assurance: float,
+                   seed: int) -> tuple[float | None, str | None]:
+    """The lower bounds at ``assurance`` (:mod:`linkage.decide.bound`): each
+    limited attribute's ``p_pass_low`` and ``p_pass_point`` are added to its
+    entry (the acceptance value's bound scaled as P(all)'s); returns the
+    bound of P(all pass) and, when there is none, the reason."""
+    from linkage.decide.bound import chain_probabilities, with_unit_level
+
+    spec_limits = spec.limits if spec is not None else {}
+    p_all_low, bound_reason = None, None
+    bounded = [n for n in predictions if "p_pass" in predictions[n] and n in spec_limits]
+    if not bounded:
+        return p_all_low, bound_reason
+    cp = chain_probabilities(chain, {k: [v] for k, v in filled.items()}, spec_limits, bounded, seed=seed,
+                             cells=WHATIF_CELLS)
+    low_each = cp.low_each(assurance)
+    if low_each is None:
+        bound_reason = cp.reason
+    else:
+        p_all_low = float(cp.low_all(assurance)[0])
+        if compendial.needs_units(spec):  # units judged too: the unit-level factor at its point estimate
+            p_all_low = float(with_unit_level(p_all_low, cp.p_all[0], pass_all.mean()))
+            for n in bounded:
+                if spec.judge_of(n) == "stages":
+                    low_each[n] = with_unit_level(low_each[n], cp.p_each[n], predictions[n]["p_pass"])
+    for n in bounded:
+        predictions[n]["p_pass_low"] = None if low_each is None else float(low_each[n][0])
+        predictions[n]["p_pass_point"] = float(cp.p_each[n][0])
+    if compendial.ACCEPTANCE_VALUE in predictions and p_all_low is not None:  # scaled as P(all)'s bound
+        point_all = float(pass_all.mean())
+        scale = min(1.0, p_all_low / point_all) if point_all > 0 else 0.0
+        predictions[compendial.ACCEPTANCE_VALUE]["p_pass_low"] = predictions[compendial.ACCEPTANCE_VALUE][
+            "p_pass"] * scale
+    return p_all_low, bound_reason
 
 
 def _product_for(chain, product: str | None) -> tuple[str | None, str | None]:

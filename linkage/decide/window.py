@@ -207,14 +207,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         raise UsageError("ribbon_porosity is what the window scans; do not set it (use 'linkage predict' "
                          "for one porosity)")
     produced = set(chain.targets)
-    downstream = downstream_targets(chain)
-    attributes = [a for a in spec.limits if a in downstream]
-    if spec.acceptance_value_max is not None:  # judged on simulated unit weights (linkage.decide.compendial)
-        attributes.append(compendial.ACCEPTANCE_VALUE)
-    not_modelled = [a for a in spec.limits if a not in downstream and a != POROSITY]
-    if not attributes:
-        raise UsageError("none of the spec's attributes is predicted downstream of ribbon_porosity "
-                         f"(spec names {', '.join(spec.limits)}; the chain predicts {', '.join(sorted(produced))})")
+    attributes, not_modelled = _window_attributes(chain, spec)
     lo, hi = (float(v) for v in chain.training["ranges"][POROSITY])
     grid = np.linspace(lo, hi, n_grid)
 
@@ -231,40 +224,11 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     draws = simulate(chain, frame, n_draws=n_draws, seed=seed)
 
     limited = [a for a in attributes if a in spec.limits]
-    passes = pass_matrix(draws, spec, limited)
-    if compendial.needs_units(spec):  # units simulated around each lot: USP <711> stages, USP <905>
-        passes.update(compendial.judge_draws(chain, draws, spec, seed=seed).passes)
-    all_pass = np.logical_and.reduce(list(passes.values()))
-    if POROSITY in spec.limits:  # a porosity limit of its own cuts the grid directly
-        all_pass &= within(grid, spec.limits[POROSITY])[:, None]
-    p_all = all_pass.mean(axis=1)
-    p_each = {a: passes[a].mean(axis=1) for a in attributes}
-    mean_ok = np.logical_and.reduce(list(mean_passes(draws, spec, limited).values())
-                                    or [np.ones(n_grid, dtype=bool)])
-    av_mean = compendial.mean_av_pass(draws, spec, chain)
-    if av_mean is not None:
-        mean_ok &= av_mean
-    if POROSITY in spec.limits:
-        mean_ok &= within(grid, spec.limits[POROSITY])
-
-    chain_p = chain_probabilities(lean, {**{k: np.full(n_grid, v) for k, v in values.items()}, POROSITY: grid,
-                                          **{k: np.full(n_grid, v) for k, v in settings.items() if k in produced}},
-                                  spec.limits, limited, seed=seed)
-    p_each_low = chain_p.low_each(assurance)
-    p_all_pointwise = chain_p.low_all(assurance)
-    band = chain_p.band_all(assurance, confidence)  # the window is a statement over a range: simultaneous
-    p_all_low, band_level = (None, None) if band is None else band
-    if p_all_low is not None and compendial.needs_units(spec):  # units judged too (bound.with_unit_level)
-        p_all_low = with_unit_level(p_all_low, chain_p.p_all, p_all)
-        p_all_pointwise = with_unit_level(p_all_pointwise, chain_p.p_all, p_all)
-        p_each_low = {a: with_unit_level(p_each_low[a], chain_p.p_each[a], p_each[a])
-                      if spec.judge_of(a) == "stages" else p_each_low[a] for a in limited}
-        if compendial.ACCEPTANCE_VALUE in p_each:  # its point estimate scaled as the bound scales P(all)
-            scale = np.clip(np.divide(p_all_low, p_all, out=np.zeros_like(p_all_low), where=p_all > 0), 0.0, 1.0)
-            p_each_low[compendial.ACCEPTANCE_VALUE] = p_each[compendial.ACCEPTANCE_VALUE] * scale
-    if p_all_low is not None and POROSITY in spec.limits:
-        p_all_low = p_all_low * within(grid, spec.limits[POROSITY])
-        p_all_pointwise = p_all_pointwise * within(grid, spec.limits[POROSITY])
+    p_all, p_each, mean_ok = _point_scan(chain, spec, draws, grid, attributes, limited, seed)
+    columns = {**{k: np.full(n_grid, v) for k, v in values.items()}, POROSITY: grid,
+               **{k: np.full(n_grid, v) for k, v in settings.items() if k in produced}}
+    chain_p, p_all_low, p_all_pointwise, p_each_low, band_level = _bound_curves(
+        lean, spec, columns, limited, p_all, p_each, confidence, assurance, seed)
     point_low, point_high = _widest(grid, p_all, p_each, confidence)
     if p_all_low is not None:
         low_edge, high_edge = _widest(grid, p_all_low, p_each_low, confidence)
@@ -277,12 +241,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     mean_low = float(grid[mean_idx[0]]) if len(mean_idx) else None
     mean_high = float(grid[mean_idx[-1]]) if len(mean_idx) else None
 
-    bands = {}
-    q = (1 - confidence) / 2
-    for a in limited:
-        v = draws.values[a]
-        bands[a] = {"mean": draws.means[a], "low": np.quantile(v, q, axis=1), "high": np.quantile(v, 1 - q, axis=1)}
-
+    bands = _draw_bands(draws, limited, confidence)
     force = roll_force_range(chain, low_edge.value, high_edge.value, settings=roots,
                              confidence=confidence, seed=seed)
     force = chain_force_range(lean, spec, settings=roots, confidence=confidence, assurance=assurance,
@@ -316,6 +275,82 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         point_low=point_low.value, point_high=point_high.value, p_all_low_pointwise=p_all_pointwise,
         held_point=held_at,
     )
+
+
+def _window_attributes(chain, spec) -> tuple[list[str], list[str]]:
+    """The spec's attributes the window judges (predicted downstream of
+    ribbon porosity, and the acceptance value where the spec has one) and
+    those it cannot (a porosity limit is neither: it cuts the scan directly)."""
+    downstream = downstream_targets(chain)
+    attributes = [a for a in spec.limits if a in downstream]
+    if spec.acceptance_value_max is not None:  # judged on simulated unit weights (linkage.decide.compendial)
+        attributes.append(compendial.ACCEPTANCE_VALUE)
+    not_modelled = [a for a in spec.limits if a not in downstream and a != POROSITY]
+    if not attributes:
+        raise UsageError("none of the spec's attributes is predicted downstream of ribbon_porosity "
+                         f"(spec names {', '.join(spec.limits)}; the chain predicts "
+                         f"{', '.join(sorted(set(chain.targets)))})")
+    return attributes, not_modelled
+
+
+def _point_scan(chain, spec, draws, grid, attributes: list[str], limited: list[str], seed: int):
+    """On the Monte Carlo draws at each porosity of ``grid``: P(all pass),
+    P(pass) of each attribute (units simulated where the spec judges them),
+    and whether the chain of mean predictions passes every limit."""
+    passes = pass_matrix(draws, spec, limited)
+    if compendial.needs_units(spec):  # units simulated around each lot: USP <711> stages, USP <905>
+        passes.update(compendial.judge_draws(chain, draws, spec, seed=seed).passes)
+    all_pass = np.logical_and.reduce(list(passes.values()))
+    if POROSITY in spec.limits:  # a porosity limit of its own cuts the grid directly
+        all_pass &= within(grid, spec.limits[POROSITY])[:, None]
+    p_all = all_pass.mean(axis=1)
+    p_each = {a: passes[a].mean(axis=1) for a in attributes}
+    mean_ok = np.logical_and.reduce(list(mean_passes(draws, spec, limited).values())
+                                    or [np.ones(len(grid), dtype=bool)])
+    av_mean = compendial.mean_av_pass(draws, spec, chain)
+    if av_mean is not None:
+        mean_ok &= av_mean
+    if POROSITY in spec.limits:
+        mean_ok &= within(grid, spec.limits[POROSITY])
+    return p_all, p_each, mean_ok
+
+
+def _bound_curves(lean, spec, columns: dict, limited: list[str], p_all, p_each, confidence: float,
+                  assurance: float, seed: int):
+    """The lower bounds along the scan (:func:`linkage.decide.bound.chain_probabilities`
+    at ``columns``): the chain's probabilities, the band of P(all pass) that holds over
+    the window at once, the pointwise bound, each attribute's bound, and the band's
+    quantile level (None without replicates); the unit-level step and a porosity limit
+    applied as to the point estimate."""
+    grid = columns[POROSITY]
+    chain_p = chain_probabilities(lean, columns, spec.limits, limited, seed=seed)
+    p_each_low = chain_p.low_each(assurance)
+    p_all_pointwise = chain_p.low_all(assurance)
+    band = chain_p.band_all(assurance, confidence)  # the window is a statement over a range: simultaneous
+    p_all_low, band_level = (None, None) if band is None else band
+    if p_all_low is not None and compendial.needs_units(spec):  # units judged too (bound.with_unit_level)
+        p_all_low = with_unit_level(p_all_low, chain_p.p_all, p_all)
+        p_all_pointwise = with_unit_level(p_all_pointwise, chain_p.p_all, p_all)
+        p_each_low = {a: with_unit_level(p_each_low[a], chain_p.p_each[a], p_each[a])
+                      if spec.judge_of(a) == "stages" else p_each_low[a] for a in limited}
+        if compendial.ACCEPTANCE_VALUE in p_each:  # its point estimate scaled as the bound scales P(all)
+            scale = np.clip(np.divide(p_all_low, p_all, out=np.zeros_like(p_all_low), where=p_all > 0), 0.0, 1.0)
+            p_each_low[compendial.ACCEPTANCE_VALUE] = p_each[compendial.ACCEPTANCE_VALUE] * scale
+    if p_all_low is not None and POROSITY in spec.limits:
+        p_all_low = p_all_low * within(grid, spec.limits[POROSITY])
+        p_all_pointwise = p_all_pointwise * within(grid, spec.limits[POROSITY])
+    return chain_p, p_all_low, p_all_pointwise, p_each_low, band_level
+
+
+def _draw_bands(draws, limited: list[str], confidence: float) -> dict[str, dict[str, np.ndarray]]:
+    """Per limited attribute, the mean prediction and the central range at
+    ``confidence`` of its draws along the scan."""
+    bands = {}
+    q = (1 - confidence) / 2
+    for a in limited:
+        v = draws.values[a]
+        bands[a] = {"mean": draws.means[a], "low": np.quantile(v, q, axis=1), "high": np.quantile(v, 1 - q, axis=1)}
+    return bands
 
 
 def _widest(grid, p, p_each, confidence) -> tuple[Edge, Edge]:
