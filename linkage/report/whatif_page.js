@@ -591,7 +591,7 @@
         st.targets.forEach((t, j) => {
           if (!attributes.includes(t.target)) return;
           const lim = limits[t.target], pl = lowEnd(t.physical_range), ph = highEnd(t.physical_range);
-          // bound._passes: the projection is a clip, so a limit inside the range compares the residual
+          // bound._passing_run: the projection is a clip, so a limit inside the range compares the residual
           const useMin = lim.min !== null && lim.min > pl, useMax = lim.max !== null && lim.max < ph;
           const never = (useMin && lim.min > ph) || (useMax && lim.max < pl);
           const pred = predictAt(t, modelOf(t.target), D);
