@@ -424,7 +424,7 @@ def _mask_sums(mask: np.ndarray, lw: np.ndarray) -> np.ndarray:
     v < 2^k)."""
     B, L = lw.shape
     n_bytes = mask.shape[-1] * 8
-    bytes_ = mask.view(np.uint8)  # byte j holds lots 8j … 8j + 7 (the words are little-endian)
+    bytes_ = mask.astype("<u8", copy=False).view(np.uint8)  # byte j holds lots 8j … 8j + 7 (little-endian words)
     if np.all(lw == lw[:, :1]):
         counts = _BYTE_COUNTS[bytes_].sum(axis=-1, dtype=np.int64)
         return counts * lw[:, 0].reshape((B,) + (1,) * (counts.ndim - 1))
