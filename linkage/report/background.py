@@ -118,3 +118,96 @@ def split_map(fn, items, *, costs=None, fork: bool = True) -> list:
     finally:
         child.close()
     return [done[i] for i in range(len(items))]
+
+
+class Claims:
+    """Which items (by index) some process has taken on: whichever process
+    claims an index first does it, so a parent and the children it forks
+    share out a list of jobs as they go, each taking the next one free, and
+    none waits while another has a backlog. Shared memory made before the
+    children are forked (``fork`` only); an index past ``size`` is always the
+    caller's, so a parent never depends on a child for it."""
+
+    def __init__(self, size: int = 4096):
+        ctx = multiprocessing.get_context("fork")
+        self.size = size
+        self._taken = ctx.RawArray("b", size)
+        self._lock = ctx.Lock()
+
+    def free(self, n: int) -> int:
+        """How many of the indices below ``n`` nobody has claimed yet."""
+        return max(n - self.size, 0) + sum(1 for i in range(min(n, self.size)) if not self._taken[i])
+
+    def claim(self, i: int) -> bool:
+        """True when ``i`` was free (and is now the caller's)."""
+        if i >= self.size:
+            return True
+        if not self._lock.acquire(timeout=30):  # a child ended holding it: do the job here (same value)
+            return True
+        try:
+            if self._taken[i]:
+                return False
+            self._taken[i] = 1
+            return True
+        finally:
+            self._lock.release()
+
+
+def claimed_map(fn, items, claims: Claims) -> list:
+    """``(i, fn(item))`` for each ``(i, item)`` of ``items`` that this process claims, in the order given."""
+    return [(i, fn(item)) for i, item in items if claims.claim(i)]
+
+
+class SharedMap:
+    """``fn`` over items added as they come, shared between this process and
+    children forked along the way (:meth:`start`), each child taking the
+    items known when it was forked that nobody has taken yet; :meth:`finish`
+    takes what is left here (beside one more child when there are at least
+    ``2`` left) and returns every value in order. ``fn`` must give the same
+    value wherever it runs (a figure drawn to PNG bytes). Without ``fork``
+    (or on one core) everything is done in :meth:`finish`, in this process."""
+
+    def __init__(self, fn, *, fork: bool = True):
+        self.fn = fn
+        self.items: list = []
+        self.costs: list[float] = []
+        self.fork = fork and "fork" in multiprocessing.get_all_start_methods() and _cores() >= 2
+        self._claims = Claims() if self.fork else None
+        self._children: list[Background] = []
+
+    def add(self, item, cost: float = 1.0) -> int:
+        """Queue ``item``; returns its index."""
+        self.items.append(item)
+        self.costs.append(float(cost))
+        return len(self.items) - 1
+
+    def _order(self) -> list[tuple[int, object]]:
+        """The items, costliest first (the longest jobs started first finish the share-out evenly)."""
+        order = sorted(range(len(self.items)), key=lambda i: -self.costs[i])
+        return [(i, self.items[i]) for i in order]
+
+    def start(self) -> None:
+        """Fork a child that takes on the items so far that are still free."""
+        if self.fork and self.items:
+            self._children.append(Background(claimed_map, self.fn, self._order(), self._claims))
+
+    def finish(self) -> list:
+        """Every item's value, in the order added."""
+        done: dict[int, object] = {}
+        try:
+            if self.fork and self._claims.free(len(self.items)) >= 2:
+                self.start()
+            if self._claims is not None:
+                done.update(claimed_map(self.fn, self._order(), self._claims))
+            for child in self._children:  # a child that failed gives back nothing: done below
+                done.update(child.result())
+        finally:
+            self.close()
+        # what no child delivered (none forked, or one failed) is done here
+        return [done[i] if i in done else self.fn(item) for i, item in enumerate(self.items)]
+
+    def close(self) -> None:
+        """End every child still working (a report that failed half way)."""
+        for child in self._children:
+            child.close()
+        self._children = []

@@ -180,17 +180,18 @@ _SLOT_RE = re.compile("\x00figure-[0-9]+\x00")
 
 
 class _Builder:
-    def __init__(self):
+    def __init__(self, parallel: bool = True):
         self.parts: list[str] = []
         self.figures: list[str] = []
         self.notes: list[str] = []
         self.toc: list[tuple[str, str]] = []
         #: section anchor -> the sentence saying which of its results was reused rather than computed
         self.reused: dict[str, str] = {}
-        #: the figures not yet drawn to PNG, in order (their <img> holds a slot until then)
-        self.drawings: list = []
-        #: (figure indices, their drawing in a child) started by draw_early
-        self._early: list = []
+        #: the figures not yet drawn to PNG, in order (their <img> holds a slot until then), shared out
+        #: between this process and children forked as the sections go on (:meth:`draw_early`)
+        self._drawing = None
+        #: draw figures in forked children too (where the machine allows it)
+        self.parallel = parallel
 
     def section(self, anchor: str, title: str) -> None:
         self.toc.append((anchor, title))
@@ -209,53 +210,40 @@ class _Builder:
         self.parts.append(_part("blocks", "note", text=text))
 
     def figure(self, fig_or_ax, caption: str, alt: str | None = None) -> None:
-        """A figure with its caption; drawn to PNG at the end (:meth:`draw_figures`), all at once."""
+        """A figure with its caption; drawn to PNG by :meth:`draw_early` and :meth:`draw_figures`."""
+        from linkage.report.background import SharedMap
+        from linkage.report.figures import png_data_uri
+
+        if self._drawing is None:
+            self._drawing = SharedMap(png_data_uri, fork=self.parallel)
+        fig = getattr(fig_or_ax, "figure", fig_or_ax)
         self.figures.append(caption)
-        self.drawings.append(getattr(fig_or_ax, "figure", fig_or_ax))
+        self._drawing.add(fig, cost=len(fig.axes))  # panels: about what drawing it costs
         n = len(self.figures)
         self.parts.append(_part("blocks", "figure", n=n, src=Markup(_FIGURE_SLOT.format(n)), alt=alt or caption,
                                 caption=caption))
 
-    def draw_early(self, parallel: bool = True) -> None:
-        """Start drawing the figures made so far in a forked child, while the sections go on (when
-        ``parallel`` and the machine allow it; else they are drawn with the rest at the end)."""
-        from linkage.report.background import Background, _map
-        from linkage.report.figures import png_data_uri
+    def draw_early(self) -> None:
+        """Start a child drawing the figures made so far that no process has taken yet, while the
+        sections go on (when the machine allows it; else they are drawn with the rest at the end)."""
+        if self._drawing is not None:
+            self._drawing.start()
 
-        start = sum(len(idx) for idx, _ in self._early)
-        idx = list(range(start, len(self.drawings)))
-        if parallel and idx:
-            self._early.append((idx, Background(_map, png_data_uri, [self.drawings[i] for i in idx])))
-
-    def draw_figures(self, parallel: bool = True) -> None:
-        """Every figure to a PNG ``data:`` URI in its place: those of :meth:`draw_early` from its
-        child, the rest shared between this process and a second one by their number of panels
-        (the same bytes either way)."""
-        from linkage.report.background import split_map
-        from linkage.report.figures import png_data_uri
-
-        uris: dict[int, str] = {}
-        start = sum(len(idx) for idx, _ in self._early)
-        rest = list(range(start, len(self.drawings)))
-        drawn = split_map(png_data_uri, [self.drawings[i] for i in rest], fork=parallel,
-                          costs=[len(self.drawings[i].axes) for i in rest])
-        uris.update(zip(rest, drawn))
-        for idx, job in self._early:
-            try:
-                uris.update(zip(idx, job.result()))
-            finally:
-                job.close()
-        self._early = []
-        slots = {_FIGURE_SLOT.format(i + 1): uri for i, uri in uris.items()}
+    def draw_figures(self) -> None:
+        """Every figure to a PNG ``data:`` URI in its place: this process and the children of
+        :meth:`draw_early` (and one more) each take the next figure nobody has taken, costliest
+        first, until none is left (the same bytes wherever a figure is drawn)."""
+        uris = self._drawing.finish() if self._drawing is not None else []
+        self._drawing = None
+        slots = {_FIGURE_SLOT.format(i + 1): uri for i, uri in enumerate(uris)}
         self.parts = [_SLOT_RE.sub(lambda m: slots[m.group(0)], part) if "\x00" in part else part
                       for part in self.parts]
-        self.drawings = []
 
     def close(self) -> None:
         """End any child still drawing (a report that failed half way)."""
-        for _, job in self._early:
-            job.close()
-        self._early = []
+        if self._drawing is not None:
+            self._drawing.close()
+        self._drawing = None
 
 
 # ----------------------------------------------------------------- entry points
@@ -314,7 +302,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     from linkage.decide.watch import watch
     from linkage.report.background import Background
 
-    b = _Builder()
+    b = _Builder(parallel)
     b.reused.update(reused or {})
     table = table.copy()
     table["lot"] = table["lot"].astype(str)
@@ -328,8 +316,8 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         pending["space"] = Background(design_space, chain, spec, fork=parallel, **args)
     try:
         _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
-                  pending, computed, parallel)
-        b.draw_figures(parallel)
+                  pending, computed)
+        b.draw_figures()
     finally:
         b.close()
         for job in pending.values():
@@ -338,7 +326,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
 
 
 def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
-              pending, computed, parallel=True) -> None:
+              pending, computed) -> None:
     """Every section in order into ``b``. ``pending``: the watch and (unless given) the map, being computed;
     ``computed`` gets the window and the map when they were computed here."""
     limits = dict(spec.limits) if spec is not None else {}
@@ -353,8 +341,9 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
     _ribbon_section(b, chain, table, limits)
     _baseline_section(b, chain, table, limits)
     _attribute_section(b, chain, table, limits)
+    b.draw_early()  # the figures so far are drawn beside the sections that follow
     _explain_section(b, chain, table, limits, window, curve_draws, seed)
-    b.draw_early(parallel)  # the figures so far are drawn beside the sections that follow
+    b.draw_early()  # the explanations' too, beside the window and the sections after it
     _window_section(b, chain, table, spec, window, window_failure)
     from linkage.report.transfer_section import transfer_section  # scale-up between compactors (issue 16)
 
