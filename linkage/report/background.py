@@ -12,6 +12,13 @@ section asks for it, which also raises any error exactly as before. A child
 that neither delivers nor ends within ``timeout`` seconds of being asked (a
 hang, e.g. a lock held by another thread at the moment of the fork) is ended
 and the value computed here, so a report never waits on it for ever.
+
+The figures are drawn to PNG the same way (:class:`SharedMap`): children
+forked as the sections go on, and the report's own process at the end,
+each take the next figure that no process has taken yet, so no process
+sits idle while another has a backlog; a figure gives the same bytes
+wherever it is drawn, and what a child failed to deliver is drawn in the
+report's own process.
 """
 
 from __future__ import annotations
