@@ -172,7 +172,43 @@ def design(p: int, lam: float = LAMBDA, arl0: float = ARL0, n_ref: int | None = 
     if n_ref is not None:
         n_ref = int(n_ref)
         n_ref = None if n_ref > KNOWN_ABOVE else max(n_ref, int(p) + 3)
-    return Design(_design(int(p), float(lam), float(arl0), n_ref))
+    kept = _KEPT.get(_design_key(p, lam, arl0, n_ref))
+    return Design(kept if kept is not None else _design(int(p), float(lam), float(arl0), n_ref))
+
+
+#: designs simulated by an earlier process and kept beside the model (:func:`remember`), by (p, λ, ARL0, n_ref)
+_KEPT: dict[tuple, dict] = {}
+
+
+def _design_key(p, lam, arl0, n_ref) -> tuple:
+    return int(p), float(lam), float(arl0), None if n_ref is None else int(n_ref)
+
+
+def remember(designs) -> None:
+    """Take ``designs`` (as :func:`design` returned them, e.g. read back from
+    where an earlier report kept them, :mod:`linkage.models.reuse`) as
+    already simulated: :func:`design` returns them instead of simulating
+    again. A design is the same numbers wherever it was simulated (seeded, a
+    function of p, λ, ARL0 and n_ref alone); one that does not say these is
+    ignored."""
+    for d in designs or []:
+        try:
+            key = _design_key(d["attributes"], d["lambda"], d["arl0_target"], d["n_reference"])
+        except (KeyError, TypeError, ValueError):
+            continue
+        _KEPT[key] = dict(d)
+
+
+def simulated(d) -> bool:
+    """Whether design ``d`` came from a simulation this process (or its parent) ran, rather than
+    from :data:`TABLE` or from :func:`remember`: what is worth keeping for the next process."""
+    if d is None:
+        return False
+    try:
+        key = _design_key(d["attributes"], d["lambda"], d["arl0_target"], d["n_reference"])
+    except (KeyError, TypeError, ValueError):
+        return False
+    return key not in _KEPT and (key[3] is not None or key[1] != LAMBDA or key[2] != ARL0 or key[0] not in TABLE)
 
 
 #: the cache of :func:`_simulate` at λ = 0.1 and ARL0 = 200 for 1 to 12 attributes: h, then ARL and its Monte

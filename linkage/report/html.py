@@ -91,7 +91,8 @@ class Report:
     html: str
     figures: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
-    #: what the report computed itself that a later report can reuse ("window", "space": the results)
+    #: what the report computed itself that a later report can reuse ("window", "space": the results;
+    #: "mewma": the drift watch's designs, simulated)
     computed: dict = field(default_factory=dict)
 
     @property
@@ -363,7 +364,13 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
         except LinkageError:
             space = None  # the section computes it again and says why there is no map
     space_section(b, chain, table, spec, confidence=confidence, assurance=assurance, seed=seed, result=space)
-    _watch_section(b, chain, table, window, pending["watch"].result())
+    watched = pending["watch"].result()
+    design = (watched.mewma or {}).get("design")
+    from linkage.decide.mewma import simulated
+
+    if simulated(design):  # the watch's design, simulated here: worth keeping for the next report
+        computed["mewma"] = [design]
+    _watch_section(b, chain, table, window, watched)
     _domain_section(b, chain, table)
     _model_card(b, chain, spec, window)
     _cautions(b, chain)
