@@ -109,3 +109,28 @@ def test_a_result_file_changed_or_not_recorded_in_the_index_is_not_reused(tmp_pa
     path.write_bytes(changed)
     assert load_result(tmp_path, MODEL, "window", KEY).result.confidence == 0.95
     assert save_result(tmp_path, "m-20260101T000000Z-ffffffff", "window", KEY, _window(), "x") is None
+
+
+def test_a_kept_mewma_design_is_the_simulated_one_and_is_not_simulated_again(tmp_path, monkeypatch):
+    """The drift watch's design kept beside the model (issue 20): read back, it is the design the seeded
+    simulation gives (compared field by field with a fresh call of ``linkage.decide.mewma._design``, the
+    simulation itself), and :func:`linkage.decide.mewma.design` returns it without simulating."""
+    from linkage.decide import mewma
+
+    _registry(tmp_path)
+    p, n_ref = 2, 12
+    simulated = mewma.design(p, n_ref=n_ref)
+    assert mewma.simulated(simulated)  # 12 estimated lots: not in the table of known-parameter designs
+    assert not mewma.simulated(mewma.design(3))  # tabulated
+    save_result(tmp_path, MODEL, "mewma", KEY, [dict(simulated)], "linkage report")
+    back = load_result(tmp_path, MODEL, "mewma", KEY).result
+    _same(back, [dict(mewma._design(p, mewma.LAMBDA, mewma.ARL0, n_ref))])
+    monkeypatch.setattr(mewma, "_KEPT", {})
+    mewma.remember(back + [{"attributes": "not a design"}])
+
+    def no_simulation(*args, **kwargs):
+        raise AssertionError("simulated again")
+
+    monkeypatch.setattr(mewma, "_design", no_simulation)
+    _same(dict(mewma.design(p, n_ref=n_ref)), dict(simulated))
+    assert not mewma.simulated(back[0])  # taken from what was kept: nothing new to keep

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 from linkage.report import background
-from linkage.report.background import Background, balanced_halves, split_map
+from linkage.report.background import Background, Claims, SharedMap, balanced_halves, split_map
 
 forking = pytest.mark.skipif(
     background._cores() < 2 or not hasattr(os, "fork"), reason="needs fork and two cores"
@@ -81,3 +81,49 @@ def test_balanced_halves_is_the_longest_first_rule():
 def test_split_map_is_the_plain_map(fork):
     items = [5, 50, 500, 7, 70]
     assert split_map(_square_sum, items, costs=items, fork=fork) == [_square_sum(i) for i in items]
+
+
+# ---- the figures shared out between the report's process and children forked along the way (issue 20,
+# :class:`linkage.report.background.SharedMap`); the reference is the plain computation in one process
+
+def _digest(i: int) -> str:
+    import hashlib
+
+    return hashlib.sha256(str(i).encode() * 20_000).hexdigest()  # some work, the same in every process
+
+
+_PARENT = os.getpid()
+
+
+def _digest_fails_in_a_child(i: int) -> str:
+    if os.getpid() != _PARENT:
+        raise RuntimeError("a child that fails")
+    return _digest(i)
+
+
+def _shared(fn, fork: bool, start_after=(3, 7)) -> list:
+    shared = SharedMap(fn, fork=fork)
+    for i in range(12):
+        shared.add(i, cost=i % 4)
+        if i in start_after:
+            shared.start()  # children forked along the way, as the report does between sections
+    return shared.finish()
+
+
+def test_shared_map_is_the_plain_map_with_and_without_children():
+    expected = [_digest(i) for i in range(12)]
+    assert _shared(_digest, fork=True) == expected
+    assert _shared(_digest, fork=False) == expected
+
+
+@forking
+def test_what_a_failing_child_took_on_is_done_in_the_parent():
+    assert _shared(_digest_fails_in_a_child, fork=True) == [_digest(i) for i in range(12)]
+
+
+@forking
+def test_each_index_is_claimed_once():
+    claims = Claims(size=8)
+    assert [claims.claim(i) for i in (0, 1, 0, 7, 1)] == [True, True, False, True, False]
+    assert claims.free(8) == 5
+    assert claims.claim(8) and claims.claim(8)  # past the shared table: always the caller's
