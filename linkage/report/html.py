@@ -41,6 +41,7 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass, field
+from functools import partial
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -210,16 +211,20 @@ class _Builder:
         self.notes.append(text)
         self.parts.append(_part("blocks", "note", text=text))
 
-    def figure(self, fig_or_ax, caption: str, alt: str | None = None) -> None:
-        """A figure with its caption; drawn to PNG by :meth:`draw_early` and :meth:`draw_figures`."""
+    def figure(self, fig_or_ax, caption: str, alt: str | None = None, panels: int = 1) -> None:
+        """A figure with its caption; drawn to PNG by :meth:`draw_early` and :meth:`draw_figures`.
+        ``fig_or_ax``: a figure (or one of its Axes), or a function without arguments that makes it,
+        called where the figure is drawn (so that making it is shared out too); ``panels``: how many
+        panels that figure has (about what it costs)."""
         from linkage.report.background import SharedMap
-        from linkage.report.figures import png_data_uri
 
         if self._drawing is None:
-            self._drawing = SharedMap(png_data_uri, fork=self.parallel)
-        fig = getattr(fig_or_ax, "figure", fig_or_ax)
+            self._drawing = SharedMap(_drawn, fork=self.parallel)
+        if not callable(fig_or_ax):
+            fig_or_ax = getattr(fig_or_ax, "figure", fig_or_ax)
+            panels = len(fig_or_ax.axes)
         self.figures.append(caption)
-        self._drawing.add(fig, cost=len(fig.axes))  # panels: about what drawing it costs
+        self._drawing.add(fig_or_ax, cost=panels)
         n = len(self.figures)
         self.parts.append(_part("blocks", "figure", n=n, src=Markup(_FIGURE_SLOT.format(n)), alt=alt or caption,
                                 caption=caption))
@@ -245,6 +250,13 @@ class _Builder:
         if self._drawing is not None:
             self._drawing.close()
         self._drawing = None
+
+
+def _drawn(fig_or_maker) -> str:
+    """A figure, or what a figure-making function makes, as a PNG ``data:`` URI."""
+    from linkage.report.figures import png_data_uri
+
+    return png_data_uri(fig_or_maker() if callable(fig_or_maker) else fig_or_maker)
 
 
 # ----------------------------------------------------------------- entry points
@@ -688,15 +700,18 @@ def _baseline_section(b, chain, table, limits):
                      number_text(sel.get("rmse"))])
     b.add(table_html(["attribute", "unit", "y₀ ± SE", "k ± SE [-]", "baseline CV RMSE", "selected model",
                       "selected CV RMSE"], rows, num_cols={2, 3, 4, 6}))
-    fig, axes = F.grid_axes(len(fitted), ncols=min(3, len(fitted)), panel=(2.5, 2.0))
-    t_lot = _by_lot(table)
-    for ax, (name, t) in zip(axes, fitted):
-        lots = [v for v in t.lots if v in t_lot.index]
-        sub = t_lot.loc[lots]
-        F.plot_rd_fit(sub[POROSITY].to_numpy(float), sub[name].to_numpy(float), t.rd_params.get("s0"),
-                      t.rd_params.get("k"), name=name, limit=limits.get(name), ax=ax)
-    b.figure(fig, "Each attribute against ribbon porosity (training lots) with its Ryshkewitch–Duckworth fit; "
-                  "dashed: specification limits.")
+    def make():
+        fig, axes = F.grid_axes(len(fitted), ncols=min(3, len(fitted)), panel=(2.5, 2.0))
+        t_lot = _by_lot(table)
+        for ax, (name, t) in zip(axes, fitted):
+            lots = [v for v in t.lots if v in t_lot.index]
+            sub = t_lot.loc[lots]
+            F.plot_rd_fit(sub[POROSITY].to_numpy(float), sub[name].to_numpy(float), t.rd_params.get("s0"),
+                          t.rd_params.get("k"), name=name, limit=limits.get(name), ax=ax)
+        return fig
+
+    b.figure(make, "Each attribute against ribbon porosity (training lots) with its Ryshkewitch–Duckworth fit; "
+                   "dashed: specification limits.", panels=len(fitted))
 
 
 # ----------------------------------------------------------------- 5. attributes
@@ -730,16 +745,24 @@ def _attribute_section(b, chain, table, limits):
                    "against observed figure cannot be drawn.")
             continue
         group_col, groups = _group_column(table, order)
-        fig, (a1, a2) = F.grid_axes(2, ncols=2, panel=(3.3, 2.9), bottom=1.0, wspace=1.0)
-        F.plot_predicted_observed(oof["observed"], oof[target.selected], name=name, groups=groups,
-                                  group_title=group_col, limit=limits.get(name), ax=a1)
-        resid = oof["observed"] - oof[target.selected]
-        F.plot_residuals_in_time(order, resid, name=name, groups=groups, noise_floor=target.noise_floor, ax=a2)
         by = f", coloured by {group_col}" if group_col else ""
         floor = " with the noise floor shaded" if target.noise_floor else " (no noise floor estimated)"
-        b.figure(fig, f"{name}: out-of-fold prediction of the selected model ({target.selected}) against "
-                      f"observation{by} (left; dashed: specification limits), and its residuals lot by lot in "
-                      f"time order{floor} (right).")
+        b.figure(partial(_attribute_figure, name, target, oof, order, groups, group_col, limits.get(name)),
+                 f"{name}: out-of-fold prediction of the selected model ({target.selected}) against "
+                 f"observation{by} (left; dashed: specification limits), and its residuals lot by lot in "
+                 f"time order{floor} (right).", panels=2)
+
+
+def _attribute_figure(name, target, oof, order, groups, group_col, limit):
+    """An attribute's predicted against observed and its residuals in time order (two panels)."""
+    from linkage.report import figures as F
+
+    fig, (a1, a2) = F.grid_axes(2, ncols=2, panel=(3.3, 2.9), bottom=1.0, wspace=1.0)
+    F.plot_predicted_observed(oof["observed"], oof[target.selected], name=name, groups=groups,
+                              group_title=group_col, limit=limit, ax=a1)
+    resid = oof["observed"] - oof[target.selected]
+    F.plot_residuals_in_time(order, resid, name=name, groups=groups, noise_floor=target.noise_floor, ax=a2)
+    return fig
 
 
 def _candidate_table(target, unit: str) -> str:
@@ -774,7 +797,6 @@ def _candidate_table(target, unit: str) -> str:
 
 def _explain_section(b, chain, table, limits, window, curve_draws, seed):
     from linkage import explain
-    from linkage.report import figures as F
 
     b.section("explanations", "Why the models predict what they do")
     b.add(_part("explain", "intro"))
@@ -794,20 +816,12 @@ def _explain_section(b, chain, table, limits, window, curve_draws, seed):
             b.note(f"{name}: the selected model ({target.selected}) ignores every input, and there is no PLS "
                    "candidate for VIP.")
             continue
-        margin = F.label_margin(target.inputs) + 0.35
-        fig, axes = F.grid_axes(panels, ncols=panels, panel=(3.3, 0.4 * len(target.inputs) + 0.4), left=margin,
-                                wspace=margin + (1.1 if panels == 2 and not all_zero else 0.0))
-        i = 0
-        if not all_zero:
-            F.plot_contribution_summary(contrib, X, name=name, ax=axes[i])
-            i += 1
-        if vip is not None:
-            F.plot_vip(vip.to_dict(), name=name, ax=axes[i])
+        make = partial(_explain_figure, name, target, contrib, X, vip, panels, all_zero)
         what = [] if all_zero else [f"contributions of each input to the {target.selected} prediction, one dot "
                                     f"per training lot, coloured by the input's value ({contrib.attrs['method']})"]
         if vip is not None:
             what.append("VIP of the PLS candidate" + (" (the selected model)" if target.selected == "pls" else ""))
-        b.figure(fig, f"{name}: " + "; ".join(what) + ".")
+        b.figure(make, f"{name}: " + "; ".join(what) + ".", panels=panels)
         if all_zero:
             b.add(_part("explain", "predicts_mean", selected=target.selected))
     if importance:
@@ -828,6 +842,22 @@ def _explain_section(b, chain, table, limits, window, curve_draws, seed):
     _latest_lot(b, chain, table)
 
 
+def _explain_figure(name, target, contrib, X, vip, panels, all_zero):
+    """An attribute's contributions (unless all zero) and the VIP of its PLS candidate (when there is one)."""
+    from linkage.report import figures as F
+
+    margin = F.label_margin(target.inputs) + 0.35
+    fig, axes = F.grid_axes(panels, ncols=panels, panel=(3.3, 0.4 * len(target.inputs) + 0.4), left=margin,
+                            wspace=margin + (1.1 if panels == 2 and not all_zero else 0.0))
+    i = 0
+    if not all_zero:
+        F.plot_contribution_summary(contrib, X, name=name, ax=axes[i])
+        i += 1
+    if vip is not None:
+        F.plot_vip(vip.to_dict(), name=name, ax=axes[i])
+    return fig
+
+
 def _curves(b, chain, table, limits, window, curve_draws, seed):
     from linkage import explain
     from linkage.exceptions import LinkageError
@@ -844,19 +874,23 @@ def _curves(b, chain, table, limits, window, curve_draws, seed):
         b.note("No attribute is predicted downstream of ribbon_porosity, so there is nothing to draw against it.")
         return
     names = list(curves.curves)
-    fig, axes = F.grid_axes(len(names), ncols=3, panel=(2.4, 1.8), left=0.85, wspace=0.85)
-    t = _by_lot(table)
-    win = (window.low.value, window.high.value) if window is not None and window.found else None
-    for ax, name in zip(axes, names):
-        c = curves.curves[name]
-        obs = (t[POROSITY], t[name]) if name in t.columns and POROSITY in t.columns else None
-        F.plot_porosity_curve(curves.grid, c["mean"], c["low"], c["high"], name=name, level=curves.level,
-                              limit=limits.get(name), observed=obs, window=win, ax=ax)
+
+    def make():
+        fig, axes = F.grid_axes(len(names), ncols=3, panel=(2.4, 1.8), left=0.85, wspace=0.85)
+        t = _by_lot(table)
+        win = (window.low.value, window.high.value) if window is not None and window.found else None
+        for ax, name in zip(axes, names):
+            c = curves.curves[name]
+            obs = (t[POROSITY], t[name]) if name in t.columns and POROSITY in t.columns else None
+            F.plot_porosity_curve(curves.grid, c["mean"], c["low"], c["high"], name=name, level=curves.level,
+                                  limit=limits.get(name), observed=obs, window=win, ax=ax)
+        return fig
+
     held = ", ".join(f"{k} = {v['value']:.4g} ({v['source']})" for k, v in curves.settings.items())
-    b.figure(fig, f"Each attribute against ribbon porosity through the chain (partial-dependence style): line, "
-                  f"the chain of mean predictions; band, the central {curves.level:.0%} of simulated lots "
-                  f"({curves.n_draws} draws per point, out-of-fold residuals of every stage); dots, training lots; "
-                  f"dashed, specification limits. Held: {held or 'nothing'}.")
+    b.figure(make, f"Each attribute against ribbon porosity through the chain (partial-dependence style): line, "
+                   f"the chain of mean predictions; band, the central {curves.level:.0%} of simulated lots "
+                   f"({curves.n_draws} draws per point, out-of-fold residuals of every stage); dots, training lots; "
+                   f"dashed, specification limits. Held: {held or 'nothing'}.", panels=len(names))
 
 
 def _latest_lot(b, chain, table):
@@ -972,15 +1006,18 @@ def _window_figures(b, spec, w):
              f"mean-response window.")
     names = list(w.bands)
     if names:
-        fig, axes = F.grid_axes(len(names), ncols=3, panel=(2.4, 1.8), left=0.85, wspace=0.85)
-        win = (w.low.value, w.high.value) if w.found else None
-        for ax, name in zip(axes, names):
-            band = w.bands[name]
-            F.plot_porosity_curve(w.grid, band["mean"], band["low"], band["high"], name=name, level=w.confidence,
-                                  limit=spec.limits.get(name), window=win, ax=ax)
-        b.figure(fig, f"Each specified attribute against ribbon porosity: mean prediction through the chain and "
-                      f"the central {w.confidence:.0%} of simulated lots, against its limits (dashed); the window "
-                      f"shaded.")
+        def make():
+            fig, axes = F.grid_axes(len(names), ncols=3, panel=(2.4, 1.8), left=0.85, wspace=0.85)
+            win = (w.low.value, w.high.value) if w.found else None
+            for ax, name in zip(axes, names):
+                band = w.bands[name]
+                F.plot_porosity_curve(w.grid, band["mean"], band["low"], band["high"], name=name,
+                                      level=w.confidence, limit=spec.limits.get(name), window=win, ax=ax)
+            return fig
+
+        b.figure(make, f"Each specified attribute against ribbon porosity: mean prediction through the chain and "
+                       f"the central {w.confidence:.0%} of simulated lots, against its limits (dashed); the window "
+                       f"shaded.", panels=len(names))
 
 
 def _roll_force(b, table, w):
@@ -1033,15 +1070,19 @@ def _watch_section(b, chain, table, window, result):
     if not charts:
         b.note("No attribute has enough training residuals (at least 3, not all equal) for control limits.")
     else:
-        fig, axes = F.grid_axes(len(charts), ncols=2, panel=(4.2, 2.4), bottom=1.0, hspace=1.3, wspace=1.0)
-        for ax, c in zip(axes, charts):
-            new = [p == "new" for p in c.phase]
-            F.plot_control_chart(c.lots, c.residual, centre=c.reference.mu0, limits=c.limits, name=c.attribute,
-                                 ewma=c.ewma, ewma_low=c.ewma_low, ewma_high=c.ewma_high, new=new,
-                                 flagged=[bool(c.flags.get(lot)) for lot in c.lots],
-                                 ylabel="residual [" + F.axis_label(c.attribute).rsplit("[", 1)[-1], ax=ax)
-        b.figure(fig, "Residual control charts, one panel per attribute, lots in time order; open circles: "
-                      "training lots, filled squares: lots since training, rings: flagged lots.")
+        def make():
+            fig, axes = F.grid_axes(len(charts), ncols=2, panel=(4.2, 2.4), bottom=1.0, hspace=1.3, wspace=1.0)
+            for ax, c in zip(axes, charts):
+                new = [p == "new" for p in c.phase]
+                F.plot_control_chart(c.lots, c.residual, centre=c.reference.mu0, limits=c.limits,
+                                     name=c.attribute, ewma=c.ewma, ewma_low=c.ewma_low, ewma_high=c.ewma_high,
+                                     new=new, flagged=[bool(c.flags.get(lot)) for lot in c.lots],
+                                     ylabel="residual [" + F.axis_label(c.attribute).rsplit("[", 1)[-1], ax=ax)
+            return fig
+
+        b.figure(make, "Residual control charts, one panel per attribute, lots in time order; open circles: "
+                       "training lots, filled squares: lots since training, rings: flagged lots.",
+                 panels=len(charts))
     pb = result.porosity_between
     if "values" in pb:
         flagged = [lot in pb["flags"] for lot in pb["lots"]]
@@ -1099,11 +1140,16 @@ def _domain_section(b, chain, table):
     b.add(table_html(["stage", "training lots", "T² limit", "Q limit", "outside", "which"], rows,
                      num_cols={1, 2, 3, 4}))
     b.add(_part("watch", "domain_note"))
-    fig, axes = F.grid_axes(len(panels), ncols=min(3, len(panels)), panel=(2.4, 2.0), left=0.85, wspace=0.85)
-    for ax, (name, t2, q, t2_lim, q_lim, lots) in zip(axes, panels):
-        F.plot_domain(t2, q, t2_limit=t2_lim, q_limit=q_lim, lots=lots, stage=name, ax=ax)
-    b.figure(fig, "Hotelling's T² against the Q residual of each training lot, one panel per stage, with the "
-                  "95% limits (dashed: T²; dash-dot: Q); lots beyond a limit are marked and named.")
+    def make():
+        fig, axes = F.grid_axes(len(panels), ncols=min(3, len(panels)), panel=(2.4, 2.0), left=0.85,
+                                wspace=0.85)
+        for ax, (name, t2, q, t2_lim, q_lim, lots) in zip(axes, panels):
+            F.plot_domain(t2, q, t2_limit=t2_lim, q_limit=q_lim, lots=lots, stage=name, ax=ax)
+        return fig
+
+    b.figure(make, "Hotelling's T² against the Q residual of each training lot, one panel per stage, with the "
+                   "95% limits (dashed: T²; dash-dot: Q); lots beyond a limit are marked and named.",
+             panels=len(panels))
 
 
 # ----------------------------------------------------------------- 9. model card
