@@ -572,15 +572,18 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
         kept = _reuse(models_dir, chain.model_id, "space", spec, **space_args)
         if kept is not None:
             space, reused["space"] = kept.result, kept.sentence("the map and the acceptable ranges")
-    from linkage.decide.mewma import remember
+    from linkage.decide import mewma
 
-    designs = _reuse(models_dir, chain.model_id, "mewma", None)  # the drift watch's, simulated by an earlier one
-    remember(designs.result if designs is not None else [])
+    # the drift watch's designs, simulated by an earlier report (keyed by the simulation's own settings too)
+    simulation = dict(runs=mewma.RUNS, runs_estimated=mewma.RUNS_ESTIMATED, seed=mewma.SEED)
+    designs = _reuse(models_dir, chain.model_id, "mewma", None, **simulation)
+    mewma.remember(designs.result if designs is not None else [])
     rendered = render_report(chain, table, spec=spec, window=found, lots=lots, confidence=confidence, seed=seed,
                              assurance=assurance, plan=plan, space=space, reused=reused)
     if "mewma" in rendered.computed:
         _keep(models_dir, chain.model_id, "mewma", None,
-              (designs.result if designs is not None else []) + rendered.computed["mewma"], "linkage report")
+              (designs.result if designs is not None else []) + rendered.computed["mewma"], "linkage report",
+              **simulation)
     if "window" in rendered.computed:
         _keep(models_dir, chain.model_id, "window", spec, rendered.computed["window"], "linkage report",
               **window_args)
