@@ -93,40 +93,6 @@ class Background:
             self._proc = None
 
 
-def _map(fn, items) -> list:
-    return [fn(item) for item in items]
-
-
-def balanced_halves(costs) -> tuple[list[int], list[int]]:
-    """Indices split in two sets of about equal total cost (longest first, each to the lighter set),
-    each set in its original order."""
-    first, second, load = [], [], [0.0, 0.0]
-    for i in sorted(range(len(costs)), key=lambda i: -costs[i]):
-        side = 0 if load[0] <= load[1] else 1
-        (first if side == 0 else second).append(i)
-        load[side] += costs[i]
-    return sorted(first), sorted(second)
-
-
-def split_map(fn, items, *, costs=None, fork: bool = True) -> list:
-    """``[fn(item) for item in items]``, about half of the work (by ``costs``,
-    one per item; equal without) in a forked child while this process does
-    the rest (when ``fork`` and the machine allow it; else all here). ``fn``
-    must give the same value wherever it runs (here: a figure drawn to PNG
-    bytes)."""
-    items = list(items)
-    if len(items) < 2:
-        return [fn(item) for item in items]
-    here, there = balanced_halves(list(costs) if costs is not None else [1.0] * len(items))
-    child = Background(_map, fn, [items[i] for i in there], fork=fork)
-    try:
-        done = dict(zip(here, _map(fn, [items[i] for i in here])))
-        done.update(zip(there, child.result()))
-    finally:
-        child.close()
-    return [done[i] for i in range(len(items))]
-
-
 class Claims:
     """Which items (by index) some process has taken on: whichever process
     claims an index first does it, so a parent and the children it forks

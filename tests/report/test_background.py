@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 from linkage.report import background
-from linkage.report.background import Background, Claims, SharedMap, balanced_halves, split_map
+from linkage.report.background import Background, Claims, SharedMap
 
 forking = pytest.mark.skipif(
     background._cores() < 2 or not hasattr(os, "fork"), reason="needs fork and two cores"
@@ -63,24 +63,6 @@ def test_a_hung_child_is_ended_and_the_value_computed_here():
     assert job.result() == 7
     assert time.monotonic() - started < 30
     assert not child.is_alive()
-
-
-def test_balanced_halves_is_the_longest_first_rule():
-    # Longest-processing-time first on two machines (Graham 1969, SIAM J. Appl. Math. 17:416):
-    # each item, longest first, to the lighter machine: 5→A, 4→B, 3→B, 3→A, 1→B, loads 8 and 8;
-    # in general the two loads differ by at most the largest item.
-    costs = [3.0, 5.0, 1.0, 4.0, 3.0]
-    first, second = balanced_halves(costs)
-    assert sorted(first + second) == list(range(len(costs)))
-    loads = [sum(costs[i] for i in first), sum(costs[i] for i in second)]
-    assert abs(loads[0] - loads[1]) <= max(costs)
-    assert first == sorted(first) and second == sorted(second)
-
-
-@pytest.mark.parametrize("fork", [True, False])
-def test_split_map_is_the_plain_map(fork):
-    items = [5, 50, 500, 7, 70]
-    assert split_map(_square_sum, items, costs=items, fork=fork) == [_square_sum(i) for i in items]
 
 
 # ---- the figures shared out between the report's process and children forked along the way (issue 20,
