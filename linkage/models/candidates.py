@@ -463,28 +463,16 @@ def input_subsets(p: int) -> list[tuple[int, ...]]:
     return [s for k in sizes for s in combinations(range(p), k)]
 
 
-def _link_weights(link: str, y_fit: np.ndarray, y_max: float) -> np.ndarray:
-    """Delta-method weights 1/g'(ŷ)² so that least squares on g(y) weighs
-    each lot as least squares on y would (Carroll & Ruppert 1988,
-    Transformation and Weighting in Regression, ch. 2; from memory)."""
-    if link == "identity":
-        return np.ones_like(y_fit)
-    if link == "log":
-        return y_fit**2  # g'(y) = 1/y
-    q = np.clip(y_fit / y_max, 1e-9, 1 - 1e-9)
-    return (y_max * (1 - q) * -np.log1p(-q)) ** 2  # g'(y) = 1/((y_max − y)·(−ln(1 − y/y_max)))
-
-
 def fit_link_batch(Z: np.ndarray, y: np.ndarray, masks: np.ndarray, link: str, y_max: float):
     """Weighted least squares of g(y) on the columns of Z that each row of
     ``masks`` (G, p) selects, for all G subsets at once.
 
     Two steps: ordinary least squares on g(y), then again with the weights
-    1/g'(ŷ)² at its fitted values (:func:`_link_weights`). Returns
+    1/g'(ŷ)² at its fitted values (:func:`linkage.models.lean.link_weights`). Returns
     (z_mean (p,), coef (G, p), intercept (G,)) for
     g(ŷ) = intercept + (z − z_mean)·coef; columns outside a subset get 0.
     """
-    from linkage.models.lean import link_inverse, link_transform
+    from linkage.models.lean import link_inverse, link_transform, link_weights
 
     n, p = Z.shape
     G = masks.shape[0]
@@ -509,7 +497,7 @@ def fit_link_batch(Z: np.ndarray, y: np.ndarray, masks: np.ndarray, link: str, y
     beta = solve(np.ones((G, n)))
     if link != "identity":
         y_fit = link_inverse(link, beta @ D.T, y_max)
-        w = _link_weights(link, y_fit, y_max)
+        w = link_weights(link, y_fit, y_max)
         w = w / np.maximum(w.mean(axis=1, keepdims=True), np.finfo(float).tiny)
         if np.all(np.isfinite(w)):
             beta = solve(w)
@@ -648,6 +636,25 @@ class _LinkLinear(Candidate):
 
         return link_contributions(X, self.link, self.log_mask_, self.z_mean_, self.coef_, self.intercept_,
                                   self.y_max_)
+
+    def leverage_basis(self, X, factor: float) -> dict:
+        """C = (DᵀWD)⁻¹ of the training lots X for :func:`linkage.models.lean.link_leverage`:
+        D = [1, hⱼ(xⱼ) − x_meanⱼ] over the inputs the model uses (those the
+        inner selection kept), W = :func:`linkage.models.lean.link_weights` at
+        the fitted values (the weights of the model's final weighted least
+        squares, up to a constant that cancels in h). Returns
+        ``{"columns", "cov", "factor"}``; a pseudo-inverse where D is
+        rank-deficient."""
+        from linkage.models.lean import link_weights
+
+        check_is_fitted(self, "coef_")
+        X = np.asarray(X, dtype=float)
+        cols = np.flatnonzero(self.used_)
+        Z = self._z(X, self.log_mask_)
+        D = np.hstack([np.ones((X.shape[0], 1)), (Z - self.z_mean_)[:, cols]])
+        W = link_weights(self.link, self._predict(X), self.y_max_)
+        return {"columns": cols.astype(np.int64), "cov": np.linalg.pinv(D.T @ (W[:, None] * D)),
+                "factor": float(factor)}
 
     def lean_spec(self):
         return {"kind": "link", "link": self.link, "log_mask": np.asarray(self.log_mask_, dtype=bool),

@@ -16,11 +16,11 @@ from linkage import CAUTION
 from linkage.exceptions import InputError, Problem
 from linkage.models.chain import ChainSpec
 from linkage.models.conformal import cv_plus_interval, lw_cv_plus_interval
-from linkage.models.lean import project, spread_scale
+from linkage.models.lean import leverage_scale, project, spread_scale
 from linkage.jsonable import jsonable
 
 __all__ = ["FittedTarget", "FittedStage", "FittedChain", "jsonable", "INTERVAL_METHOD", "LW_INTERVAL_METHOD",
-           "INTERVAL_CHOICE_RULE", "COVERAGE_METHOD"]
+           "STUDENTIZED_INTERVAL_METHOD", "INTERVAL_CHOICE_RULE", "COVERAGE_METHOD"]
 
 INTERVAL_METHOD = (
     "CV+ (Barber, Candès, Ramdas & Tibshirani 2021, Ann. Statist. 49:486-507) with lots as the "
@@ -38,6 +38,18 @@ LW_INTERVAL_METHOD = (
     "are multiplied back by ρ̂(x); so the interval widens where the model's errors are larger"
 )
 
+STUDENTIZED_INTERVAL_METHOD = (
+    "studentized CV+ of the whole procedure (Barber, Candès, Ramdas & Tibshirani 2021, Ann. Statist. 49:486-507, "
+    "§3, for the procedure as the algorithm; normalised scores: Papadopoulos, Gammerman & Vovk 2008, Proc. IASTED "
+    "AIA, and Lei et al. 2018, JASA 113:1094, §5.2): in each outer fold the candidate is chosen by the one-SE rule "
+    "on that fold's inner CV, and its fold model and held-out residuals enter CV+; each residual is divided by "
+    "ρ(xᵢ) = √(1 + c·h(xᵢ)), h the delta-method leverage of the full-data link-linear model at the lot's inputs "
+    "(1 for other model kinds; c = K/(K − 1)), the fold models' predictions at x by ρ(x), the CV+ order "
+    "statistics taken on those, and the ends multiplied back by ρ(x): the classical prediction-interval shape "
+    "σ̂√(1 + h), wider where the mean is estimated from few lots. The Monte Carlo through the chain keeps the "
+    "selected model's out-of-fold residuals"
+)
+
 INTERVAL_CHOICE_RULE = (
     "CV+ unless locally weighted CV+ brings the worst porosity region closer to the nominal coverage under "
     "the nested CV (the largest |coverage − nominal| over the thirds of the training range, strictly smaller) "
@@ -52,6 +64,16 @@ COVERAGE_METHOD = (
     "there), and each held-out lot is checked against it; nothing of a held-out lot enters its own "
     "interval. The choice among candidates used every lot (a small optimism)."
 )
+
+
+def _basis_summary(basis: dict | None) -> dict | None:
+    """What ``train --json`` says of the studentized CV+ basis (None where it is not used)."""
+    if basis is None:
+        return None
+    lev = basis["leverage"]
+    return {"fold_candidates": list(basis["fold_candidates"]), "summary": basis["summary"],
+            "leverage": None if lev is None else {"columns": [int(c) for c in lev["columns"]],
+                                                  "factor": float(lev["factor"])}}
 
 
 def _as_matrix(X, inputs: list[str], what: str) -> np.ndarray:
@@ -129,6 +151,10 @@ class FittedTarget:
     interval_choice: dict | None = None
     #: the spread model of locally weighted CV+ (None: plain CV+ and pooled residuals)
     spread: dict | None = None
+    #: studentized CV+ of the whole procedure (:func:`linkage.models.train._procedure_basis`): fold models,
+    #: fold_candidates, residuals, leverage (or None), lot_scale; None where locally weighted CV+ is deployed
+    #: and on models trained before it existed (then plain CV+ on the selected candidate's folds)
+    interval_basis: dict | None = None
     #: the forward-in-time check (:func:`linkage.models.forward.forward_check`); None without manufactured_at
     forward: dict | None = None
 
@@ -161,10 +187,19 @@ class FittedTarget:
         Xa = _as_matrix(X, self.inputs, f"{self.target} interval")
         preds = np.vstack([np.asarray(m.predict(Xa), float) for m in self.fold_models_])
         spread = getattr(self, "spread", None)
+        basis = getattr(self, "interval_basis", None)
         if spread is not None:
             x_scale = spread_scale(spread, np.asarray(self.model_.predict(Xa), float))
             low, high = lw_cv_plus_interval(preds, self.fold_of_, self.residuals.to_numpy(float),
                                             self.lot_scale(), x_scale, 1 - level)
+        elif basis is not None:
+            preds = np.vstack([np.asarray(m.predict(Xa), float) for m in basis["fold_models"]])
+            if basis["leverage"] is not None:
+                x_scale = leverage_scale(Xa, self.model_.lean_spec(), basis["leverage"])
+                low, high = lw_cv_plus_interval(preds, self.fold_of_, basis["residuals"], basis["lot_scale"],
+                                                x_scale, 1 - level)
+            else:
+                low, high = cv_plus_interval(preds, self.fold_of_, basis["residuals"], 1 - level)
         else:
             low, high = cv_plus_interval(preds, self.fold_of_, self.residuals.to_numpy(float), 1 - level)
         return (low, high) if raw else (project(self.target, low)[0], project(self.target, high)[0])
@@ -172,7 +207,9 @@ class FittedTarget:
     @property
     def interval_method(self) -> str:
         """The deployed interval method, in words."""
-        return LW_INTERVAL_METHOD if getattr(self, "spread", None) is not None else INTERVAL_METHOD
+        if getattr(self, "spread", None) is not None:
+            return LW_INTERVAL_METHOD
+        return STUDENTIZED_INTERVAL_METHOD if getattr(self, "interval_basis", None) is not None else INTERVAL_METHOD
 
     def lot_scale(self) -> np.ndarray:
         """ρ̂ at each training lot's out-of-fold level (order of ``residuals``);
@@ -227,6 +264,7 @@ class FittedTarget:
             "coverage_guarantee": getattr(self, "coverage_guarantee", None),
             "interval_choice": getattr(self, "interval_choice", None),
             "spread": getattr(self, "spread", None),
+            "interval_basis": _basis_summary(getattr(self, "interval_basis", None)),
             "forward": getattr(self, "forward", None),
             "vip": self.vip,
             "rd_params": self.rd_params,

@@ -47,7 +47,7 @@ from linkage.exceptions import InputError, Problem, UsageError
 __all__ = ["LeanChain", "from_fitted", "as_lean", "to_npz_bytes", "from_npz_bytes", "FORMAT",
            "quad_features", "quadratic_predict", "quadratic_contributions", "walk_trees", "tree_shap",
            "domain_verdicts", "physical_range", "project", "link_transform", "link_inverse", "link_predict",
-           "link_contributions", "spread_scale", "LINKS"]
+           "link_contributions", "spread_scale", "LINKS", "link_weights", "link_leverage", "leverage_scale"]
 
 FORMAT = 1
 
@@ -215,6 +215,46 @@ def link_contributions(X, link, log_mask, x_mean, coef, intercept, y_max=1.0):
     with np.errstate(divide="ignore", invalid="ignore"):
         share = np.where(np.abs(total)[:, None] > 0, terms / total[:, None], 0.0)
     return share * (pred - base)[:, None], base
+
+
+def link_weights(link: str, y_fit, y_max: float = 1.0) -> np.ndarray:
+    """Delta-method weights 1/g'(ŷ)² so that least squares on g(y) weighs
+    each lot as least squares on y would (Carroll & Ruppert 1988,
+    Transformation and Weighting in Regression, ch. 2; from memory)."""
+    y_fit = np.asarray(y_fit, dtype=float)
+    if link == "identity":
+        return np.ones_like(y_fit)
+    if link == "log":
+        return y_fit**2  # g'(y) = 1/y
+    q = np.clip(y_fit / y_max, 1e-9, 1 - 1e-9)
+    return (y_max * (1 - q) * -np.log1p(-q)) ** 2  # g'(y) = 1/((y_max − y)·(−ln(1 − y/y_max)))
+
+
+def link_leverage(X, link, log_mask, x_mean, coef, intercept, y_max, columns, cov) -> np.ndarray:
+    """h(x) = W(ŷ(x))·dᵀ C d: the variance of the fitted link-linear mean
+    ŷ(x) over the noise variance on the y scale (delta method), with
+    d = [1, hⱼ(xⱼ) − x_meanⱼ for j in ``columns``], C = (DᵀWD)⁻¹ of the
+    training lots (see :func:`linkage.models.conformal.leverage_basis`) and
+    W = :func:`link_weights` at ŷ(x). For the identity link it is the
+    classical leverage x₀ᵀ(XᵀX)⁻¹x₀ of the prediction variance
+    σ²(1 + h) (Weisberg 2005, Applied Linear Regression, 3rd ed., §3.6)."""
+    Z = _link_inputs(X, log_mask)
+    cols = np.asarray(columns, dtype=int)
+    D = np.hstack([np.ones((Z.shape[0], 1)), (Z - np.asarray(x_mean, float))[:, cols]])
+    y = link_predict(X, link, log_mask, x_mean, coef, intercept, y_max)
+    return link_weights(link, y, y_max) * np.einsum("ij,jk,ik->i", D, np.asarray(cov, float), D)
+
+
+def leverage_scale(X, model, leverage) -> np.ndarray:
+    """ρ(x) = √(1 + c·h(x)) (:func:`link_leverage` of the link model
+    ``model``, its parameters as a dict or namespace; c = ``leverage["factor"]``):
+    the normaliser of studentized CV+ (see
+    :data:`linkage.models.fitted.STUDENTIZED_INTERVAL_METHOD`)."""
+    p = model if isinstance(model, dict) else vars(model)
+    lev = leverage if isinstance(leverage, dict) else vars(leverage)
+    h = link_leverage(np.atleast_2d(np.asarray(X, float)), p["link"], p["log_mask"], p["x_mean"], p["coef"],
+                      p["intercept"], p["y_max"], lev["columns"], lev["cov"])
+    return np.sqrt(1.0 + float(lev["factor"]) * np.maximum(h, 0.0))
 
 
 def spread_scale(spread, level) -> np.ndarray:
@@ -453,6 +493,17 @@ class Target:
         self.spread = spec.get("spread")
         self.lot_scale_ = (np.asarray(spec["lot_scale"], dtype=float) if spec.get("lot_scale") is not None
                            else np.ones(self.residuals_.size))
+        #: studentized CV+ of the whole procedure (linkage.models.train._procedure_basis): its fold models,
+        #: residuals, ρ at each lot and leverage (absent in older files and where a spread model is deployed)
+        b = spec.get("interval")
+        self.interval_ = None if b is None else {
+            "fold_models": [Model(m) for m in b["fold_models"]],
+            "residuals": np.asarray(b["residuals"], dtype=float),
+            "lot_scale": np.asarray(b["lot_scale"], dtype=float),
+            "leverage": None if b.get("leverage") is None else {
+                "columns": np.asarray(b["leverage"]["columns"], dtype=int),
+                "cov": np.asarray(b["leverage"]["cov"], dtype=float),
+                "factor": float(b["leverage"]["factor"])}}
 
     def matrix(self, columns, what: str = "prediction") -> np.ndarray:
         """The inputs as a float matrix (one column per input, in order); a
@@ -494,10 +545,19 @@ class Target:
             raise ValueError(f"level must lie strictly between 0 and 1; got {level}")
         X = self.matrix(columns, "interval")
         preds = np.vstack([np.asarray(m.predict(X), float) for m in self.fold_models_])
+        b = self.interval_
         if self.spread is not None:
             x_scale = self.scale(self.model_.predict(X))
             low, high = lw_cv_plus_interval(preds, self.fold_of_, self.residuals_, self.lot_scale_, x_scale,
                                             1 - level)
+        elif b is not None:
+            preds = np.vstack([np.asarray(m.predict(X), float) for m in b["fold_models"]])
+            if b["leverage"] is not None:
+                x_scale = leverage_scale(X, self.model_.p, b["leverage"])
+                low, high = lw_cv_plus_interval(preds, self.fold_of_, b["residuals"], b["lot_scale"], x_scale,
+                                                1 - level)
+            else:
+                low, high = cv_plus_interval(preds, self.fold_of_, b["residuals"], 1 - level)
         else:
             low, high = cv_plus_interval(preds, self.fold_of_, self.residuals_, 1 - level)
         return (low, high) if raw else (project(self.target, low)[0], project(self.target, high)[0])
@@ -624,6 +684,19 @@ def _residual_scale(stage, table) -> dict:
     return {"residual_scale": out}
 
 
+def _interval_spec(t) -> dict:
+    """{"interval": the studentized CV+ basis} where the target has one; {} otherwise."""
+    b = getattr(t, "interval_basis", None)
+    if b is None:
+        return {}
+    lev = b["leverage"]
+    return {"interval": {
+        "fold_models": [_model_spec(m) for m in b["fold_models"]],
+        "residuals": np.asarray(b["residuals"], float), "lot_scale": np.asarray(b["lot_scale"], float),
+        "leverage": None if lev is None else {"columns": np.asarray(lev["columns"], dtype=np.int64),
+                                              "cov": np.asarray(lev["cov"], float), "factor": float(lev["factor"])}}}
+
+
 def from_fitted(chain) -> LeanChain:
     """The lean form of a :class:`linkage.models.fitted.FittedChain`."""
     return LeanChain(export(chain))
@@ -644,6 +717,7 @@ def export(chain) -> dict:
                 "residuals": t.residuals.to_numpy(float),
                 **({} if getattr(t, "spread", None) is None else
                    {"spread": dict(t.spread), "lot_scale": np.asarray(t.lot_scale(), float)}),
+                **_interval_spec(t),
             } for t in st.targets.values()],
             "domain": _domain_spec(st.domain),
             "residual_lots": [str(v) for v in table.index],

@@ -211,7 +211,9 @@ def _run_job(job: _Job) -> dict:
                           inputs=job.inputs, monotone=job.monotone, seed=job.seed, splits=splits)
                 est = spec.build(tr.params, job.inputs, n=len(job.y_train), monotone=job.monotone,
                                  seed=job.seed).fit(job.X_train, job.y_train)
-                res = {"params": tr.params, "model": est}
+                # the fold's inner grouped-CV error at the tuned grid point: the one-SE choice of the
+                # candidate inside the fold (studentized CV+ of the whole procedure, _procedure_basis)
+                res = {"params": tr.params, "model": est, "inner": metrics(job.y_train, tr.inner_pred)}
                 if job.X_test is not None:
                     pred = np.asarray(est.predict(job.X_test), float)
                     if not np.all(np.isfinite(pred)):
@@ -437,6 +439,9 @@ def _finish_target(plan: _Plan, fold_results: list[dict], full: dict, table: pd.
     interval = _choose_interval(plan, oof[selected].to_numpy(), residuals.to_numpy(), nested[selected], nominal)
     if interval["method"] == "locally weighted CV+":
         notes.append("intervals are locally weighted CV+: " + interval["reason"])
+    basis = None
+    if interval["method"] == "CV+":
+        basis = _procedure_basis(plan, fold_results, usable, fold_of, full[selected]["model"])
     vip = None
     if "pls" in usable:
         vip = {c: float(v) for c, v in zip(plan.inputs, full["pls"]["model"].vip_)}
@@ -466,7 +471,57 @@ def _finish_target(plan: _Plan, fold_results: list[dict], full: dict, table: pd.
         coverage_guarantee=cv_plus_guarantee(n, len(plan.splits), nominal),
         interval_choice={k: interval[k] for k in ("method", "rule", "reason", "by_method", "spread_test")},
         spread=interval["spread"],
+        interval_basis=basis,
     )
+
+
+def _procedure_basis(plan: _Plan, fold_results: list[dict], usable: list[str], fold_of: np.ndarray,
+                     full_model) -> dict:
+    """The fold models, residuals and normaliser of studentized CV+ (see
+    :data:`linkage.models.fitted.STUDENTIZED_INTERVAL_METHOD`).
+
+    CV+ (Barber, Candès, Ramdas & Tibshirani 2021, Ann. Statist. 49:486, §3)
+    holds for any algorithm that treats its training lots symmetrically,
+    when the fold models and residuals are those of that algorithm. The
+    algorithm deployed here chooses among the candidates by the one-SE rule
+    on the CV errors; the candidate's own out-of-fold residuals, on which it
+    was chosen, are optimistic. So in each outer fold the candidate is
+    chosen by the same rule on that fold's inner grouped CV (every
+    candidate's inner out-of-fold error at its tuned grid point, the
+    fold's training lots only), and the fold model and the held-out
+    residuals are that candidate's.
+
+    The scores are studentized by ρ(x) = √(1 + c·h(x)), h the delta-method
+    leverage of the full-data model where it is link-linear
+    (:func:`linkage.models.lean.link_leverage`; c = K/(K − 1), the leverage of
+    a model fitted on (K − 1)/K of the lots), 1 otherwise: the shape of the
+    classical prediction interval σ̂√(1 + h), which widens where the mean is
+    estimated from few lots (normalised nonconformity scores: Papadopoulos,
+    Gammerman & Vovk 2008, "Normalized nonconformity measures for regression
+    conformal prediction", Proc. IASTED AIA; Lei et al. 2018, JASA 113:1094,
+    §5.2)."""
+    from linkage.models.candidates import _LinkLinear
+    from linkage.models.cv import select_candidate
+    from linkage.models.lean import leverage_scale
+
+    n, K = len(plan.y), len(plan.splits)
+    pred = np.empty(n)
+    chosen, models = [], []
+    for f, (_, te) in enumerate(plan.splits):
+        sel, _ = select_candidate({c: fold_results[f][c]["inner"] for c in usable})
+        chosen.append(sel)
+        models.append(fold_results[f][sel]["model"])
+        pred[te] = fold_results[f][sel]["pred"]
+    leverage, lot_scale = None, np.ones(n)
+    if isinstance(full_model, _LinkLinear) and K > 1:
+        leverage = full_model.leverage_basis(plan.X, K / (K - 1))
+        lot_scale = leverage_scale(plan.X, full_model.lean_spec(), leverage)
+    counts = {c: chosen.count(c) for c in dict.fromkeys(chosen)}
+    summary = ("candidate chosen inside each outer fold by the one-SE rule on its inner CV ("
+               + ", ".join(f"{c} in {k}" for c, k in counts.items()) + f" of {K} folds)"
+               + (f"; scores studentized by √(1 + c·h(x)), c = {K / (K - 1):.3g}" if leverage else ""))
+    return {"fold_models": models, "fold_candidates": chosen, "residuals": plan.y - pred,
+            "leverage": leverage, "lot_scale": lot_scale, "summary": summary}
 
 
 def _choose_interval(plan: _Plan, oof_sel: np.ndarray, residuals: np.ndarray, covered: dict, nominal: float) -> dict:

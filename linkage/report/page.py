@@ -86,7 +86,8 @@ def _end(v: float) -> float | None:
 def _check_supported(lean, spec) -> None:
     problems = []
     for name, t in lean.targets.items():
-        for m in [t.model_] + list(t.fold_models_):
+        basis = getattr(t, "interval_", None) or {}
+        for m in [t.model_] + list(t.fold_models_) + list(basis.get("fold_models", [])):
             if m.kind not in PAGE_KINDS:
                 problems.append(f"{name}: model kind {m.kind!r}")
                 break
@@ -205,6 +206,10 @@ def page_payload(lean, spec=None, *, seed: int = 0, n_draws: int = 4000, level: 
                 "model": {"kind": t.model_.kind, **vars(t.model_.p)},
                 "fold_models": [{"kind": m.kind, **vars(m.p)} for m in t.fold_models_],
                 "fold_of": t.fold_of_, "residuals": t.residuals_, "spread": t.spread, "lot_scale": t.lot_scale_,
+                "interval": None if t.interval_ is None else {
+                    "fold_models": [{"kind": m.kind, **vars(m.p)} for m in t.interval_["fold_models"]],
+                    "residuals": t.interval_["residuals"], "lot_scale": t.interval_["lot_scale"],
+                    "leverage": t.interval_["leverage"]},
                 "physical_range": [_end(v) for v in physical_range(t.target)],
                 "mc_lots": lots.get(t.target),
             } for t in st.targets.values()],

@@ -302,6 +302,24 @@
     const lk = lowerRank(n, alpha), hk = upperRank(n, alpha);
     return [lk < 1 ? -Infinity : kth(lo, lk), hk > n ? Infinity : kth(hi, hk)];
   }
+  function linkWeight(link, y, yMax) { // lean.link_weights, one value
+    if (link === "identity") return 1;
+    if (link === "log") return y ** 2;
+    const q = clip(y / yMax, 1e-9, 1 - 1e-9);
+    return (yMax * (1 - q) * -Math.log1p(-q)) ** 2;
+  }
+  function leverageScale(m, lev, x) { // lean.leverage_scale, one row
+    const cols = lev.columns, k = cols.length + 1, d = new Float64Array(k);
+    d[0] = 1;
+    for (let a = 0; a < cols.length; a++) {
+      const j = cols[a], v = m.log_mask[j] ? Math.log(Math.max(x[j], TINY)) : x[j];
+      d[a + 1] = v - m.x_mean[j];
+    }
+    let q = 0;
+    for (let a = 0; a < k; a++) { let r = 0; for (let b = 0; b < k; b++) r += at2(lev.cov, a, b) * d[b]; q += d[a] * r; }
+    const h = linkWeight(m.link, predictOne(m, x), m.y_max) * q;
+    return Math.sqrt(1 + lev.factor * Math.max(h, 0));
+  }
   function interval(t, x, level) { // lean.Target.interval, raw
     const alpha = 1 - level;
     const preds = t.fold_models.map((m) => predictOne(m, x));
@@ -309,6 +327,15 @@
       const s = spreadScale(t.spread, predictOne(t.model, x));
       const res = t.residuals.map((r, i) => r / t.lot_scale[i]);
       const [l, h] = cvPlus(preds.map((p) => p / s), t.fold_of, res, alpha);
+      return [l * s, h * s];
+    }
+    const b = t.interval; // studentized CV+ of the whole procedure
+    if (b) {
+      const bp = b.fold_models.map((m) => predictOne(m, x));
+      if (!b.leverage) return cvPlus(bp, t.fold_of, b.residuals, alpha);
+      const s = leverageScale(t.model, b.leverage, x);
+      const res = b.residuals.map((r, i) => r / b.lot_scale[i]);
+      const [l, h] = cvPlus(bp.map((p) => p / s), t.fold_of, res, alpha);
       return [l * s, h * s];
     }
     return cvPlus(preds, t.fold_of, t.residuals, alpha);

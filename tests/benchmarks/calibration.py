@@ -93,25 +93,11 @@ def campaign(seed: int, n_lots: int, n_fresh: int, labels=("now", "before"), cov
             p_true = truth.p_pass_all(w.grid, WINDOW_SPEC, WINDOW_SETTINGS["mill_screen_mm"],
                                       WINDOW_SETTINGS["compression_force_kn"], n_draws=20000, seed=1)
         lo, hi = chain.training["ranges"]["ribbon_porosity"]
-        edges = np.linspace(lo, hi, 4)
         cov = {}
         for name, t in chain.targets.items():
-            sub = fresh.dropna(subset=list(t.inputs) + [name])
-            # where porosity is the target, lots are placed by their predicted porosity (placing them by the
-            # observed value would sort them by their own errors)
-            por = (t.predict(sub[list(t.inputs)]) if name == "ribbon_porosity"
-                   else sub["ribbon_porosity"].to_numpy(float))
-            inside = (por >= lo) & (por <= hi)
-            sub, por = sub[inside], por[inside]
+            sub, third = fresh_in_thirds(t, fresh, lo, hi)
             low, high = t.interval(sub[list(t.inputs)])
-            y = sub[name].to_numpy(float)
-            hit = (low <= y) & (y <= high)
-            third = np.clip(np.searchsorted(edges, por, side="right") - 1, 0, 2)
-            cov[name] = {"thirds": [float(hit[third == j].mean()) if np.any(third == j) else float("nan")
-                                    for j in range(3)],
-                         "n": [int(np.sum(third == j)) for j in range(3)],
-                         "hits": [int(np.sum(hit[third == j])) for j in range(3)],
-                         "selected": t.selected,
+            cov[name] = {**thirds(low, high, sub[name].to_numpy(float), third), "selected": t.selected,
                          "method": (getattr(t, "interval_choice", None) or {}).get("method", "CV+")}
         if coverage_only:
             out[label] = {"mae": float("nan"), "max_err": float("nan"), "window": None, "coverage": cov,
@@ -122,6 +108,27 @@ def campaign(seed: int, n_lots: int, n_fresh: int, labels=("now", "before"), cov
                           "window": (w.low.value, w.high.value), "coverage": cov,
                           "seconds": time.perf_counter() - t0}
     return out
+
+
+def fresh_in_thirds(t, fresh, lo: float, hi: float):
+    """The fresh lots with every input of target ``t`` and the target, inside
+    the training porosity range [lo, hi], and the third of that range each
+    lies in (0, 1, 2). Where porosity is the target, lots are placed by their
+    predicted porosity (placing them by the observed value would sort them by
+    their own errors)."""
+    name = t.target
+    sub = fresh.dropna(subset=list(t.inputs) + [name])
+    por = (t.predict(sub[list(t.inputs)]) if name == "ribbon_porosity" else sub["ribbon_porosity"].to_numpy(float))
+    inside = (por >= lo) & (por <= hi)
+    third = np.clip(np.searchsorted(np.linspace(lo, hi, 4), por[inside], side="right") - 1, 0, 2)
+    return sub[inside], third
+
+
+def thirds(low, high, y, third) -> dict:
+    """Coverage of [low, high] by y in each third: share, lots and hits."""
+    hit = (low <= y) & (y <= high)
+    return {"thirds": [float(hit[third == j].mean()) if np.any(third == j) else float("nan") for j in range(3)],
+            "n": [int(np.sum(third == j)) for j in range(3)], "hits": [int(np.sum(hit[third == j])) for j in range(3)]}
 
 
 def _fmt_window(wdw) -> str:
