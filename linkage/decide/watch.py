@@ -66,8 +66,9 @@ class AttributeChart:
             "centre": self.reference.mu0, "sigma": self.reference.sigma, "n_reference": self.reference.n,
             "limits": list(self.limits),
             "points": [
-                {"lot": lot, "phase": ph, "residual": _f(r), "ewma": _f(e), "cusum_plus": _f(cp),
-                 "cusum_minus": _f(cm), "flags": self.flags.get(lot, [])}
+                {"lot": lot, "phase": ph, "residual": _finite_or_none(r), "ewma": _finite_or_none(e),
+                 "cusum_plus": _finite_or_none(cp), "cusum_minus": _finite_or_none(cm),
+                 "flags": self.flags.get(lot, [])}
                 for lot, ph, r, e, cp, cm in zip(self.lots, self.phase, self.residual, self.ewma,
                                                  self.cusum_plus, self.cusum_minus)
             ],
@@ -134,7 +135,8 @@ class WatchResult:
         }
 
 
-def _f(v) -> float | None:
+def _finite_or_none(v) -> float | None:
+    """A finite number as float, None for a missing or non-finite one (JSON has no NaN)."""
     return None if v is None or not np.isfinite(v) else float(v)
 
 

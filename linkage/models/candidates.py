@@ -579,7 +579,7 @@ class _LinkLinear(Candidate):
             if not rows.any():
                 continue
             log_mask = cls._usable_logs(log_eligible(inputs) & use_log, Xtr)
-            Z = cls._z(Xtr, log_mask)
+            Z = cls._linked_inputs(Xtr, log_mask)
             z_mean, coef, icpt = fit_link_batch(Z, cls.response(ytr, y_max), masks[rows], cls.link, y_max)
             for e, Xe in enumerate(evals):
                 if len(Xe):
@@ -593,7 +593,8 @@ class _LinkLinear(Candidate):
         return np.asarray(mask, dtype=bool) & np.all(X > 0, axis=0)
 
     @staticmethod
-    def _z(X, log_mask):
+    def _linked_inputs(X, log_mask):
+        """The inputs on the link scale: log where ``log_mask`` says so (lean._link_inputs)."""
         from linkage.models.lean import _link_inputs
 
         return _link_inputs(X, log_mask)
@@ -618,7 +619,7 @@ class _LinkLinear(Candidate):
         self.y_max_ = float(self.y_max_for(y))
         sel = np.zeros((1, p), dtype=bool)
         sel[0, features] = True
-        Z = self._z(X, self.log_mask_)
+        Z = self._linked_inputs(X, self.log_mask_)
         self.z_mean_, coef, icpt = fit_link_batch(Z, self.response(y, self.y_max_), sel, self.link, self.y_max_)
         self.coef_, self.intercept_ = coef[0], float(icpt[0])
         self.used_ = sel[0]
@@ -650,7 +651,7 @@ class _LinkLinear(Candidate):
         check_is_fitted(self, "coef_")
         X = np.asarray(X, dtype=float)
         cols = np.flatnonzero(self.used_)
-        Z = self._z(X, self.log_mask_)
+        Z = self._linked_inputs(X, self.log_mask_)
         D = np.hstack([np.ones((X.shape[0], 1)), (Z - self.z_mean_)[:, cols]])
         W = link_weights(self.link, self._predict(X), self.y_max_)
         return {"columns": cols.astype(np.int64), "cov": np.linalg.pinv(D.T @ (W[:, None] * D)),
