@@ -1,13 +1,14 @@
 """The what-if sheet: one self-contained HTML page to send a colleague.
 
 No scripts, no external resources, no matplotlib (it must be fast): each
-attribute's interval is drawn against its limits as inline SVG. Every piece
-of user-supplied text goes through :func:`html.escape`.
+attribute's interval is drawn against its limits as inline SVG. The numbers
+and sentences are computed here; the HTML is in the templates
+``sheet.html.j2`` and ``sheet_parts.html.j2`` (jinja2, autoescape on, the
+report's environment: :mod:`linkage.report.templating`), so every piece of
+user-supplied text is escaped wherever it is put.
 """
 
 from __future__ import annotations
-
-from html import escape
 
 from linkage import CAUTION, __version__
 from linkage.schema import ASSEMBLED
@@ -83,21 +84,20 @@ def spec_table_html(spec: dict | None, judged: list[str] | None = None,
                     not_modelled: dict[str, str] | None = None) -> str:
     """The spec a result was judged against, as HTML: file, SHA-256, and per
     attribute its limits, judge, time point and whether it was judged."""
+    from linkage.report.templating import macro
+
     if not spec:
-        return "<p>No specification given: nothing judged.</p>"
+        return macro("sheet_parts.html.j2", "no_spec")()
     not_modelled = not_modelled or {}
     rows = []
     for a, v in spec["attributes"].items():
-        at = "–" if v.get("time_min") is None else f"{v['time_min']:g} min"
         judge = v["judge"] + (f" ({JUDGE_TEXT[v['judge']]})" if v["judge"] in JUDGE_TEXT else "")
         status = (f"not judged: {not_modelled[a]}" if a in not_modelled
                   else "judged" if judged is None or a in judged else "–")
-        rows.append(f"<tr><td>{escape(a)}{_unit(a)}</td><td>{escape(v['limits'])}</td><td>{escape(judge)}</td>"
-                    f"<td class=num>{escape(at)}</td><td>{escape(status)}</td></tr>")
-    return (f"<p class=meta>File <b>{escape(str(spec.get('file') or '(not read from a file)'))}</b>, "
-            f"SHA-256 <code>{escape(str(spec.get('sha256') or '(none)'))}</code></p>"
-            "<table><tr><th>attribute</th><th>limits</th><th>judge</th><th class=num>time point</th>"
-            f"<th>in this result</th></tr>{''.join(rows)}</table>")
+        rows.append({"name": a, "unit": _unit(a), "limits": v["limits"], "judge": judge, "status": status,
+                     "time_point": "–" if v.get("time_min") is None else f"{v['time_min']:g} min"})
+    return macro("sheet_parts.html.j2", "spec_table")(str(spec.get("file") or "(not read from a file)"),
+                                                     str(spec.get("sha256") or "(none)"), rows)
 
 
 def bound_text(low: float | None, point: float, assurance: float) -> str:
@@ -138,13 +138,16 @@ def projected_text(p: dict) -> str:
 
 
 def _unit(name: str) -> str:
+    """' [unit]' after a quantity's name ('' for a quantity without a unit)."""
     u = ASSEMBLED.get(name, "")
-    return "" if u in ("-", "") else f" [{escape(u)}]"
+    return "" if u in ("-", "") else f" [{u}]"
 
 
 def interval_svg(value: float, low: float, high: float, lo_limit: float | None, hi_limit: float | None,
                  width: int = 260, height: int = 28) -> str:
     """A small inline SVG: the interval as a bar, the value as a dot, limits as lines."""
+    from linkage.report.templating import macro
+
     finite = [v for v in (value, low, high, lo_limit, hi_limit) if v is not None and abs(v) != float("inf")]
     a, b = min(finite), max(finite)
     pad = (b - a) * 0.12 or abs(a) * 0.1 or 1.0
@@ -154,122 +157,98 @@ def interval_svg(value: float, low: float, high: float, lo_limit: float | None, 
         v = min(max(v, a), b)
         return 6 + (width - 12) * (v - a) / (b - a)
 
-    parts = [f'<svg xmlns="http://www.w3.org/2000/svg" width="{width}" height="{height}" role="img" '
-             f'aria-label="interval {low:.4g} to {high:.4g}">',
-             f'<line x1="6" y1="{height/2}" x2="{width-6}" y2="{height/2}" stroke="#ddd"/>']
-    for lim in (lo_limit, hi_limit):
-        if lim is not None:
-            parts.append(f'<line x1="{x(lim):.1f}" y1="2" x2="{x(lim):.1f}" y2="{height-2}" '
-                         f'stroke="{VERMILLION}" stroke-width="2" stroke-dasharray="4 2"/>')
-    parts.append(f'<rect x="{x(low):.1f}" y="{height/2-5}" width="{max(x(high)-x(low), 1):.1f}" height="10" '
-                 f'fill="{BLUE}" fill-opacity="0.35" stroke="{BLUE}"/>')
-    parts.append(f'<circle cx="{x(value):.1f}" cy="{height/2}" r="4" fill="{BLUE}"/>')
-    parts.append("</svg>")
-    return "".join(parts)
+    geometry = {"width": width, "height": height, "low": f"{low:.4g}", "high": f"{high:.4g}",
+                "middle": height / 2, "right": width - 6, "bottom": height - 2,
+                "limits": [f"{x(lim):.1f}" for lim in (lo_limit, hi_limit) if lim is not None],
+                "bar_x": f"{x(low):.1f}", "bar_y": height / 2 - 5, "bar_width": f"{max(x(high) - x(low), 1):.1f}",
+                "dot_x": f"{x(value):.1f}", "colour": BLUE, "limit_colour": VERMILLION}
+    return macro("sheet_parts.html.j2", "interval_svg")(geometry)
+
+
+def contribution_text(value: float) -> str:
+    """A contribution with its sign ('+0.0658', '-3.84'); an exact zero as '0', never '-0'."""
+    return "0" if value == 0 else f"{value:+.3g}"
+
+
+def _limits_text(limits: dict) -> str:
+    """'min 80 – max 120', 'min 80', or 'no limit given'."""
+    return " – ".join(
+        s for s in (
+            f"min {_fmt(limits.get('min'))}" if limits.get("min") is not None else "",
+            f"max {_fmt(limits.get('max'))}" if limits.get("max") is not None else "",
+        ) if s
+    ) or "no limit given"
+
+
+def _prediction_row(name: str, p: dict, d: dict) -> dict:
+    """One attribute's row of the predictions table: its texts and its interval drawing."""
+    lim = p.get("limits") or {}
+    return {
+        "name": name, "unit": _unit(name), "value": _fmt(p["value"]),
+        "projected": projected_text(p) if p.get("projected") else "",
+        "low": _fmt(p["low"]), "high": _fmt(p["high"]),
+        "svg": interval_svg(p["value"], p["low"], p["high"], lim.get("min"), lim.get("max")),
+        "limits": _limits_text(lim),
+        "p_pass": ("–" if "p_pass" not in p
+                   else bound_text(p.get("p_pass_low"), p["p_pass"], d["p_pass_all_bound"]["assurance"])),
+        "stages": [(k if k.startswith("S") else "stage " + k, probability_text(v))
+                   for k, v in p.get("p_stage", {}).items()],
+        "extrapolation": "p_pass" in p and not d["promise"],
+        "method": p["interval_method"], "model": p["selected_model"],
+        "contributions": [(c["input"], contribution_text(c["value"])) for c in p.get("contributions", [])],
+    }
+
+
+def _probability_all(d: dict) -> dict:
+    """The paragraphs on the probability of meeting every specification at once, and what was judged how."""
+    bound = d["p_pass_all_bound"]
+    if d["p_pass_all"] is None:
+        case = None
+    else:
+        case = "promise" if d["promise"] else "no bound" if d["in_domain"] else "out of domain"
+    projected = any(p.get("projected") for p in d["predictions"].values())
+    return {
+        "case": case, "every": every_spec_text(d.get("not_modelled_reasons", {})),
+        "point": None if d["p_pass_all"] is None else probability_text(d["p_pass_all"]),
+        "bound": at_least(bound["low"]) if case == "promise" else None,
+        "assurance": f"{100 * bound['assurance']:g}", "percentile": f"{100 * (1 - bound['assurance']):g}",
+        "judges": list((d.get("judges") or {}).items()),
+        "not_judged": not_judged_text(d["not_modelled_reasons"]) if d.get("not_modelled_reasons") else "",
+        "projected_note": PROJECTED_NOTE[0].upper() + PROJECTED_NOTE[1:] if projected else "",
+    }
+
+
+def _made_for(d: dict) -> dict:
+    """The lot, product and dissolution time point the what-if was made for."""
+    return {"lot": d.get("lot"), "product": d.get("product"),
+            "product_source": d.get("product_source") if d.get("product_source") not in (None, "given") else "",
+            "dissolution_min": (None if d.get("dissolution_time_min") is None
+                                else f"{d['dissolution_time_min']:g}"),
+            "time_point_default": not d.get("time_point_recorded", True)}
+
+
+def _held(d: dict) -> dict | None:
+    """The rule the settings not given were held by, and the held point's domain verdict (None: none held)."""
+    hp = d.get("held_point") or {}
+    if not hp.get("held"):
+        return None
+    from linkage.decide.held import held_text
+
+    return {"rule": hp["rule"], "text": held_text(hp)}
 
 
 def whatif_html(result) -> str:
     """Render a :class:`linkage.decide.whatif.WhatIf` as one HTML page."""
-    d = result.to_dict()
-    level = round(100 * d["interval_level"])
-    rows = []
-    for name, p in d["predictions"].items():
-        lim = p.get("limits") or {}
-        limits = " – ".join(
-            s for s in (
-                f"min {_fmt(lim.get('min'))}" if lim.get("min") is not None else "",
-                f"max {_fmt(lim.get('max'))}" if lim.get("max") is not None else "",
-            ) if s
-        ) or "no limit given"
-        p_pass = "–" if "p_pass" not in p else escape(bound_text(p.get("p_pass_low"), p["p_pass"],
-                                                                   d["p_pass_all_bound"]["assurance"]))
-        if "p_stage" in p:
-            p_pass += "<br><span class=meta>" + ", ".join(
-                f"{escape(k if k.startswith('S') else 'stage ' + k)} {escape(probability_text(v))}"
-                for k, v in p["p_stage"].items()) + " (passing by, point estimates)</span>"
-        if "p_pass" in p and not d["promise"]:
-            p_pass += "<br><span class=meta>extrapolation, not promised</span>"
-        mark = ""
-        if p.get("projected"):
-            mark = (f"<br><span class=meta>projected: {escape(projected_text(p))}</span>")
-        contrib = ", ".join(f"{escape(c['input'])} {c['value']:+.3g}" for c in p.get("contributions", []))
-        rows.append(
-            f"<tr class=main><td>{escape(name)}{_unit(name)}</td><td class=num>{_fmt(p['value'])}{mark}</td>"
-            f"<td class=num>{_fmt(p['low'])} – {_fmt(p['high'])}</td>"
-            f"<td>{interval_svg(p['value'], p['low'], p['high'], lim.get('min'), lim.get('max'))}</td>"
-            f"<td>{escape(limits)}</td><td class=prob>{p_pass}</td></tr>"
-            f"<tr class=detail><td colspan=6 class=meta>interval: {escape(p['interval_method'])}; "
-            f"model: {escape(p['selected_model'])}"
-            f"{'; largest contributions: ' + contrib if contrib else ''}</td></tr>"
-        )
-    inputs = "".join(
-        f"<tr><td>{escape(k)}{_unit(k)}</td><td class=num>{_fmt(v['value'])}</td><td>{escape(v['source'])}</td></tr>"
-        for k, v in d["inputs"].items()
-    )
-    hp = d.get("held_point") or {}
-    held_html = ""
-    if hp.get("held"):
-        from linkage.decide.held import held_text
+    from linkage.report.templating import Markup, render
 
-        held_html = f"<p class=meta>Held: {escape(hp['rule'])}. {escape(held_text(hp))}</p>"
+    d = result.to_dict()
     bound = d["p_pass_all_bound"]
-    if d["in_domain"]:
-        verdict = '<div class="in"><b>Inside the applicability domain</b> of every stage used.</div>'
-    else:
-        items = "".join(f"<li>{escape(r)}</li>" for r in d["domain_reasons"])
-        verdict = f'<div class="out"><b>{escape(NO_PROMISE)}</b><ul>{items}</ul></div>'
-    every = escape(every_spec_text(d.get("not_modelled_reasons", {})))
-    if bound.get("reason"):
-        verdict += f'<div class="out"><b>No lower bound.</b> {escape(bound["reason"])}</div>'
-    if d["p_pass_all"] is None:
-        p_all = ""
-    elif d["promise"]:
-        p_all = (f"<p>Probability that a lot made this way meets {every} at once: "
-                 f"<b>{escape(at_least(bound['low']))}</b> with {100 * bound['assurance']:g}% "
-                 f"assurance (point estimate {escape(probability_text(d['p_pass_all']))}; the bound is the "
-                 f"{100 * (1 - bound['assurance']):g}th percentile over lot-level bootstrap replicates of the "
-                 "chain).</p>")
-    elif d["in_domain"]:
-        p_all = (f"<p>No probability of meeting {every} is promised here (no lower bound, see above). "
-                 f"The point estimate is {escape(probability_text(d['p_pass_all']))}.</p>")
-    else:
-        p_all = (f"<p>No probability of meeting {every} is promised here (outside the applicability "
-                 "domain, see above). The share of simulated lots that pass every limit, "
-                 f"{escape(probability_text(d['p_pass_all']))}, is an extrapolation.</p>")
-    if d.get("judges"):
-        p_all += ("<p class=meta>Judged: " + "; ".join(f"{escape(a)}: {escape(how)}" for a, how in d["judges"].items())
-                  + ".</p>")
-    if d.get("not_modelled_reasons"):
-        p_all += f"<p><b>{escape(not_judged_text(d['not_modelled_reasons']))}</b></p>"
-    made_for = (f"Lot <b>{escape(d['lot'])}</b>" if d.get("lot") else "Lot: not stated")
-    made_for += " · " + (f"product <b>{escape(d['product'])}</b>"
-                         + (f" ({escape(d['product_source'])})" if d.get("product_source") not in (None, "given")
-                            else "") if d.get("product") else "product: not stated")
-    if d.get("dissolution_time_min") is not None:
-        made_for += f" · dissolution modelled at {d['dissolution_time_min']:g} min"
-        if not d.get("time_point_recorded", True):
-            made_for += " (not recorded in the model: the default)"
-    spec_html = spec_table_html(d.get("spec"), d.get("attributes"), d.get("not_modelled_reasons"))
-    if any(p.get("projected") for p in d["predictions"].values()):
-        p_all += f"<p class=meta>{escape(PROJECTED_NOTE[0].upper() + PROJECTED_NOTE[1:])}.</p>"
-    return f"""<!DOCTYPE html>
-<html lang="en"><head><meta charset="utf-8"><title>What-if sheet – {escape(d['model_id'])}</title>
-<style>{STYLE}</style></head><body>
-<h1>What-if sheet</h1>
-<p class=meta>Model {escape(d['model_id'])} · made {escape(d['made_at'])} · linkage {escape(__version__)}</p>
-<p>What-if made for: {made_for}</p>
-<div class="caution"><b>Caution.</b> {escape(CAUTION)}</div>
-{verdict}
-<h2>Specification</h2>
-{spec_html}
-<h2>Inputs</h2>
-<table><tr><th>name</th><th class=num>value</th><th>source</th></tr>{inputs}</table>
-{held_html}
-<h2>Predictions ({level}% intervals)</h2>
-{p_all}
-<p class=meta>Each bar is drawn on its own scale: the shaded bar is the interval, the dot the prediction, the
-dashed lines the specification limits.</p>
-<table><tr><th>attribute</th><th class=num>predicted</th><th class=num>{level}% interval</th>
-<th>interval (bar) against limits (dashed)</th><th>specification</th><th class=num>P(pass)</th></tr>{''.join(rows)}</table>
-</body></html>
-"""
+    return str(render(
+        "sheet.html.j2", style=Markup(STYLE), model_id=d["model_id"], made_at=d["made_at"], version=__version__,
+        made_for=_made_for(d), caution=CAUTION, in_domain=d["in_domain"], no_promise=NO_PROMISE,
+        domain_reasons=d["domain_reasons"], no_bound=bound.get("reason") or "",
+        spec_html=Markup(spec_table_html(d.get("spec"), d.get("attributes"), d.get("not_modelled_reasons"))),
+        inputs=[{"name": k, "unit": _unit(k), "value": _fmt(v["value"]), "source": v["source"]}
+                for k, v in d["inputs"].items()],
+        held=_held(d), level=round(100 * d["interval_level"]), probability=_probability_all(d),
+        predictions=[_prediction_row(name, p, d) for name, p in d["predictions"].items()]))

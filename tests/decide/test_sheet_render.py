@@ -1,0 +1,63 @@
+"""The what-if sheet rendered from its jinja2 templates (issue 20, item 3):
+the key texts are placed, user text is escaped as :func:`html.escape`
+escapes it (the standard library is the reference), an out-of-domain what-if
+promises nothing, and a contribution of exactly zero prints as 0, never -0.
+"""
+
+from __future__ import annotations
+
+import html
+import re
+
+from linkage import CAUTION
+from linkage.decide.whatif import predict_whatif
+from linkage.report.sheet import NO_PROMISE, contribution_text, probability_text, whatif_html
+
+LOT = "Q<26>&'049\""  # every character html.escape changes
+
+
+def _text(page: str) -> str:
+    """The page's visible text, tags dropped and entities resolved (html.unescape, the reference)."""
+    return html.unescape(re.sub(r"<[^>]+>", " ", page))
+
+
+def test_an_in_domain_sheet_places_caution_inputs_predictions_and_escapes_the_lot(scenario):
+    _, chain, spec, _ = scenario
+    r = predict_whatif(chain, {"ribbon_porosity": 0.3}, spec=spec, lot=LOT, n_draws=400, seed=0)
+    d = r.to_dict()
+    page = whatif_html(r)
+    assert page.startswith("<!DOCTYPE html>\n") and page.endswith("</body></html>\n")
+    assert f"Lot <b>{html.escape(LOT, quote=True)}</b>" in page and LOT not in page
+    assert f"<b>Caution.</b> {html.escape(CAUTION, quote=True)}" in page
+    text = _text(page)
+    assert ("Inside the applicability domain" in text) == d["in_domain"]
+    for name, p in d["predictions"].items():
+        row = page[page.find(f"<tr class=main><td>{name}"):]
+        row = row[:row.find("</tr>")]
+        assert row, name
+        assert f"<td class=num>{p['value']:.4g}" in row and "<svg" in row
+    for name, v in d["inputs"].items():
+        assert f"{name}" in text and v["source"] in text
+    assert f"Predictions ({round(100 * d['interval_level'])}% intervals)" in text
+    assert probability_text(d["p_pass_all"]) in text
+
+
+def test_a_far_out_of_domain_sheet_promises_nothing_and_says_why(scenario):
+    _, chain, spec, _ = scenario
+    r = predict_whatif(chain, {"roll_force_kn_per_cm": 40.0, "roll_gap_mm": 6.0}, spec=spec, n_draws=400, seed=0)
+    d = r.to_dict()
+    assert not d["in_domain"] and not d["promise"]
+    page = whatif_html(r)
+    text = _text(page)
+    assert NO_PROMISE in text and "Inside the applicability domain" not in text
+    for reason in d["domain_reasons"]:
+        assert f"<li>{html.escape(reason, quote=True)}</li>" in page
+    assert "is an extrapolation" in text and "extrapolation, not promised" in text
+    assert "at least" not in text.split("Predictions (")[1].split("Each bar")[0]  # no bound stated as a promise
+
+
+def test_a_zero_contribution_prints_as_0():
+    # Python's format keeps the sign of a negative zero (IEEE 754 -0.0): f"{-0.0:+.3g}" == "-0"
+    assert f"{-0.0:+.3g}" == "-0"
+    assert contribution_text(-0.0) == contribution_text(0.0) == "0"
+    assert contribution_text(-0.0403) == "-0.0403" and contribution_text(0.107) == "+0.107"
