@@ -53,6 +53,10 @@ import numpy as np
 COHERENT = "held coherently (conditional mean of training lots)"
 #: source of a setting held at the training mean (nothing given to condition on)
 MEAN = "held at the training mean (no setting given to condition on)"
+#: source of a few-level setting held at the training level nearest its conditional mean
+COHERENT_LEVEL = "held coherently (training level nearest the conditional mean of training lots)"
+#: source of a few-level setting held at the training level nearest the training mean (nothing given)
+MEAN_LEVEL = "held at the training level nearest the training mean (no setting given to condition on)"
 #: source of a setting held at its median (a model saved before coherent held settings)
 MEDIAN = "training median"
 
@@ -158,6 +162,18 @@ def hold(model: SimpleNamespace, given: dict[str, np.ndarray], missing: list[str
         if rest and cond:  # with nothing given the others stay at the training mean
             out.update(_held_at_mean(model, {**columns, **{n: out[n] for n in discrete}}, rest, idx, rows))
     return {n: out[n] for n in todo}, (COHERENT if cond else MEAN)
+
+
+def sources(model: SimpleNamespace, names, label: str) -> dict[str, str]:
+    """Per setting of ``names`` held by :func:`hold` with source ``label``,
+    its source as it was held: ``label`` for a continuous setting; for a
+    discrete one the level it was moved to (:data:`COHERENT_LEVEL` or
+    :data:`MEAN_LEVEL`), never a mean it is not at."""
+    idx = {n: i for i, n in enumerate(model.names)}
+    levels = getattr(model, "levels", None) or []
+    at_level = {COHERENT: COHERENT_LEVEL, MEAN: MEAN_LEVEL}
+    return {n: at_level.get(label, label) if levels and n in idx and len(levels[idx[n]]) else label
+            for n in names}
 
 
 def _held_at_mean(model, columns: dict, todo: list[str], idx: dict, rows: int) -> dict[str, np.ndarray]:

@@ -170,9 +170,10 @@ def fill_settings(chain, given: dict[str, float], *, scan=()) -> tuple[dict[str,
     if model is not None:
         known = {k: v for k, v in given.items() if k not in set(scan)}
         coherent, label = held.hold(model, known, needed)
+        labels = held.sources(model, coherent, label)
         for name, v in coherent.items():
             values[name] = float(v[0])
-            source[name] = label
+            source[name] = labels[name]
         needed = [n for n in needed if n not in coherent]
     medians = chain.medians if hasattr(chain, "medians") else chain.training["medians"]
     for name in needed:

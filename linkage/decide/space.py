@@ -227,7 +227,7 @@ def hold_grid(lean, given: dict[str, np.ndarray]) -> tuple[dict[str, np.ndarray]
     sources: dict[str, str] = {}
     if model is not None:
         out, label = held.hold(model, given, needed)
-        sources = {k: label for k in out}
+        sources = held.sources(model, out, label)
     for name in needed:
         if name in out:
             continue

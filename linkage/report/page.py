@@ -251,11 +251,16 @@ def page_payload(lean, spec=None, *, seed: int = 0, n_draws: int = 4000, level: 
     try:  # the words fill_settings gives as the source of a held setting
         from linkage.decide import held
 
-        payload["held_labels"] = {"coherent": held.COHERENT, "mean": held.MEAN, "median": held.MEDIAN}
+        payload["held_labels"] = {"coherent": held.COHERENT, "mean": held.MEAN, "median": held.MEDIAN,
+                                  "coherent_level": held.COHERENT_LEVEL, "mean_level": held.MEAN_LEVEL}
     except ImportError:  # a linkage before coherent held settings: every held setting at its median
         payload["held_labels"] = {"coherent": "held coherently (conditional mean of training lots)",
                                   "mean": "held at the training mean (no setting given to condition on)",
-                                  "median": "training median"}
+                                  "median": "training median",
+                                  "coherent_level": "held coherently (training level nearest the conditional mean "
+                                                    "of training lots)",
+                                  "mean_level": "held at the training level nearest the training mean (no setting "
+                                                "given to condition on)"}
     for key in ("settings_names", "settings_mean", "settings_cov", "settings_low", "settings_high",
                 "settings_levels"):
         if key in lean.spec:  # the conditional-mean rule of fill_settings, when the model carries it

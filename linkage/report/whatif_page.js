@@ -277,7 +277,11 @@
         const rest = todo.filter((n) => !discrete.includes(n));
         if (rest.length && Object.keys(on).length) heldAt(onLevels, rest);  // nothing given: the mean
       }
-      for (const name of todo) source[name] = Object.keys(on).length ? M.held_labels.coherent : M.held_labels.mean;
+      for (const name of todo) {  // held.sources: a few-level setting is at a level, not at a mean
+        const atLevel = levels(idx[name]).length > 0;
+        source[name] = Object.keys(on).length ? (atLevel ? M.held_labels.coherent_level : M.held_labels.coherent)
+          : (atLevel ? M.held_labels.mean_level : M.held_labels.mean);
+      }
       needed = needed.filter((n) => !(n in idx));
     }
     for (const name of needed) {

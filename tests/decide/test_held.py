@@ -73,7 +73,8 @@ def test_fill_settings_holds_the_conditional_mean_of_the_training_lots(scenario)
     for c in (chain, as_lean(chain)):  # the fitted chain and the lean model agree
         values, source = fill_settings(c, {"compression_force_kn": 10.0, "roll_gap_mm": 2.0})
         np.testing.assert_allclose([values[names[j]] for j in missing], expected, rtol=1e-9)
-        assert {source[names[j]] for j in missing} == {held.COHERENT}
+        assert {source[names[j]] for j in missing if j != s} == {held.COHERENT}
+        assert source["mill_screen_mm"] == held.COHERENT_LEVEL  # at a level, and said so
 
 
 def test_a_model_saved_before_keeps_the_median_rule_and_says_so(scenario):
@@ -200,7 +201,7 @@ def test_the_scenario_holds_the_mill_screen_at_a_level_run_and_an_older_model_st
     assert set(levels) <= set(MILL_SCREENS_MM)
     given = {"roll_force_kn_per_cm": 9.3, "compression_force_kn": 12.7}
     values, source = fill_settings(lean, given)
-    assert values["mill_screen_mm"] in levels and source["mill_screen_mm"] == held.COHERENT
+    assert values["mill_screen_mm"] in levels and source["mill_screen_mm"] == held.COHERENT_LEVEL
     assert held.RULE_LEVELS in held.rule_of(lean)
     old_spec = {k: v for k, v in as_lean(chain).spec.items() if k != "settings_levels"}
     old = from_npz_bytes(to_npz_bytes(old_spec))

@@ -10,6 +10,7 @@ import html
 import re
 
 from linkage import CAUTION
+from linkage.decide import held
 from linkage.decide.whatif import predict_whatif
 from linkage.report.sheet import NO_PROMISE, contribution_text, probability_text, whatif_html
 
@@ -40,6 +41,12 @@ def test_an_in_domain_sheet_places_caution_inputs_predictions_and_escapes_the_lo
         assert f"{name}" in text and v["source"] in text
     assert f"Predictions ({round(100 * d['interval_level'])}% intervals)" in text
     assert probability_text(d["p_pass_all"]) in text
+    # nothing given to condition on: the few-level mill screen is held at a training level, and says so
+    # (linkage.decide.held: the level nearest the training mean); a continuous setting at the training mean
+    screen = d["inputs"]["mill_screen_mm"]
+    levels = held.of_chain(chain).levels[held.of_chain(chain).names.index("mill_screen_mm")]
+    assert screen["source"] == held.MEAN_LEVEL and screen["value"] in levels
+    assert d["inputs"]["compression_force_kn"]["source"] == held.MEAN
 
 
 def test_a_far_out_of_domain_sheet_promises_nothing_and_says_why(scenario):
