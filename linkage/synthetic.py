@@ -58,6 +58,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field, replace
 from pathlib import Path
+from types import SimpleNamespace
 from typing import Mapping
 
 import numpy as np
@@ -863,14 +864,7 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
         ``skeletal_density_g_cm3``, ``rrsb_x_prime_um``, ``rrsb_n``,
         ``thickness_mm``, ``breaking_force_n``.
     """
-    n = int(n_lots)
-    if n < 1:
-        raise UsageError(f"n_lots must be at least 1; got {n_lots}")
-    if design not in _DESIGNS:
-        raise UsageError(f"design must be one of {', '.join(_DESIGNS)}; got {design!r}")
-    rmin, rmax = (int(r) for r in replicates)
-    if not 1 <= rmin <= rmax:
-        raise UsageError(f"replicates must be (min, max) with 1 <= min <= max; got {replicates}")
+    n, rmin, rmax = _checked_size(n_lots, design, replicates)
     truth = truth or Truth()
     changed = np.zeros(n, dtype=bool)
     shifted = truth
@@ -882,14 +876,7 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
     r_design, r_ribbon, r_gran, r_sieve, r_tab, r_units, r_vessels, r_pick, r_raw = streams
 
     lots = _lot_ids(lot_prefix, n)
-    s = _design(r_design, n, design, pilot_fraction, truth)
-    for k, v in (settings or {}).items():
-        if k not in s:
-            raise UsageError(f"settings: {k!r} is not a setting of the design; use {', '.join(s)}")
-        v = np.asarray(v, dtype=object if k == "compactor" else float).reshape(-1)
-        if v.size != n:
-            raise UsageError(f"settings: {k} has {v.size} values for {n} lots")
-        s[k] = v
+    s = _with_given_settings(_design(r_design, n, design, pilot_fraction, truth), settings, n)
     started = _times(start, n, r_design)
 
     def staged(fn):
@@ -900,6 +887,44 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
         moved = fn(shifted)
         return {k: np.where(changed, moved[k], base[k]) for k in base}
 
+    raw = _draw_raw_materials(r_raw, n, changed, raw_materials, moisture_porosity_per_pct)
+    ribbon = _draw_ribbon(r_ribbon, truth, staged, s, raw, moisture_porosity_per_pct, started, n, rmin, rmax)
+    granules = _draw_granules(r_gran, r_sieve, truth, staged, s, ribbon.eps_lot, n)
+    tablets = _draw_tablets(r_tab, r_units, r_vessels, truth, staged, s, ribbon, granules, n)
+    chain = staged(lambda t: {k: v.to_numpy() for k, v in t.chain_mean(s).items()})  # noise-free, from settings
+    tables = _lot_tables(lots, s, started, product, raw, ribbon, granules, tablets, truth)
+    tables.update(_unit_tables(r_pick, lots, with_units, with_vessels, tablets, truth))
+    lot_truth = _lot_truth(lots, s, changed, chain, ribbon, granules, tablets)
+    return SyntheticLots(tables=tables, truth=truth, lot_truth=pd.DataFrame(lot_truth))
+
+
+def _checked_size(n_lots, design, replicates) -> tuple[int, int, int]:
+    """The number of lots and the (min, max) ribbon replicates, checked."""
+    n = int(n_lots)
+    if n < 1:
+        raise UsageError(f"n_lots must be at least 1; got {n_lots}")
+    if design not in _DESIGNS:
+        raise UsageError(f"design must be one of {', '.join(_DESIGNS)}; got {design!r}")
+    rmin, rmax = (int(r) for r in replicates)
+    if not 1 <= rmin <= rmax:
+        raise UsageError(f"replicates must be (min, max) with 1 <= min <= max; got {replicates}")
+    return n, rmin, rmax
+
+
+def _with_given_settings(s: dict, settings: Mapping[str, object] | None, n: int) -> dict:
+    """The design's settings with those given (name -> ``n`` values) in place of the draws."""
+    for k, v in (settings or {}).items():
+        if k not in s:
+            raise UsageError(f"settings: {k!r} is not a setting of the design; use {', '.join(s)}")
+        v = np.asarray(v, dtype=object if k == "compactor" else float).reshape(-1)
+        if v.size != n:
+            raise UsageError(f"settings: {k} has {v.size} values for {n} lots")
+        s[k] = v
+    return s
+
+
+def _draw_raw_materials(r_raw, n, changed, raw_materials, moisture_porosity_per_pct) -> dict[str, np.ndarray]:
+    """The raw-material columns (none without ``raw_materials``)."""
     raw: dict[str, np.ndarray] = {}
     if raw_materials:  # drawn first, in this order, so that their values do not depend on the effect below
         raw["blend_moisture_pct"] = np.round(r_raw.normal(3.0, 0.4, n), 2)
@@ -907,8 +932,12 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
         raw["lubricant_pct"] = np.round(r_raw.normal(1.0, 0.05, n), 2)
     elif moisture_porosity_per_pct:
         raise UsageError("moisture_porosity_per_pct needs raw_materials=True (the blend moisture column)")
+    return raw
 
-    # ---- ribbon
+
+def _draw_ribbon(r_ribbon, truth, staged, s, raw, moisture_porosity_per_pct, started, n, rmin, rmax):
+    """The ribbon: each lot's true mean and realised porosity, its replicate samples (envelope and
+    skeletal density) and the measured lot porosity."""
     eps_mean = staged(lambda t: {"e": t.porosity_mean(*(s[k] for k in ROLL_SETTINGS),
                                                       compactor=s["compactor"])})["e"]
     if moisture_porosity_per_pct:
@@ -926,8 +955,13 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
     envelope = np.round((1.0 - eps_rep) * skeletal, 4)
     eps_measured = np.bincount(owner, weights=1.0 - envelope / skeletal, minlength=n) / n_rep
     sampled = started[owner] + (15 + 25 * (sample_no - 1)).astype("timedelta64[m]")
+    return SimpleNamespace(eps_mean=eps_mean, eps_lot=eps_lot, n_rep=n_rep, owner=owner, sample_no=sample_no,
+                           skeletal_lot=skeletal_lot, skeletal=skeletal, envelope=envelope,
+                           eps_measured=eps_measured, sampled=sampled)
 
-    # ---- granules (true lot RRSB distribution, then a weighed sieve analysis)
+
+def _draw_granules(r_gran, r_sieve, truth, staged, s, eps_lot, n):
+    """The granules: the true lot RRSB distribution, then a weighed sieve analysis."""
     g_mean = staged(lambda t: t.granules_mean(eps_lot, s["mill_screen_mm"]))
     z = r_gran.standard_normal((2, n))
     d50, fines = truth._realise_granules(g_mean["granule_d50_um"], g_mean["fines_pct"], z[0], z[1])
@@ -940,12 +974,17 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
     total_g = truth.sieve_sample_g + truth.sieve_sample_sd_g * r_sieve.standard_normal(n)
     retained = np.round(np.maximum(total_g[:, None] * share
                                    + truth.weighing_sd_g * r_sieve.standard_normal(share.shape), 0.0), 2)
+    return SimpleNamespace(mean=g_mean, d50=d50, fines=fines, x_prime=x_prime, rrsb_n=rrsb_n, apertures=apertures,
+                           retained=retained)
 
-    # ---- tablets
-    t_mean = staged(lambda t: t.tablets_mean(eps_lot, d50, fines, s["compression_force_kn"]))
+
+def _draw_tablets(r_tab, r_units, r_vessels, truth, staged, s, ribbon, granules, n):
+    """The tablets: lot values, thickness and breaking force, unit weights and dissolution vessels."""
+    eps_lot = ribbon.eps_lot
+    t_mean = staged(lambda t: t.tablets_mean(eps_lot, granules.d50, granules.fines, s["compression_force_kn"]))
     zt = r_tab.standard_normal((4, n))
     real = truth._realise_tablets(t_mean, zt)
-    thickness = np.round(truth.thickness_mm(eps_lot, s["compression_force_kn"], skeletal_lot)
+    thickness = np.round(truth.thickness_mm(eps_lot, s["compression_force_kn"], ribbon.skeletal_lot)
                          + truth.thickness_sd_mm * r_tab.standard_normal(n), 3)
     # breaking force by the inverse of Fell & Newton (1970) at the reported thickness
     breaking = np.round(real["tensile_strength_mpa"] * math.pi * truth.tablet_diameter_mm * thickness / 2.0, 1)
@@ -961,13 +1000,14 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
     tenths = np.rint(raw_v * 10.0).astype(np.int64)
     target = np.rint(raw_v.mean(axis=1) * 10.0).astype(np.int64)
     tenths[:, -1] = truth.n_vessels * target - tenths[:, :-1].sum(axis=1)  # mean of the vessels == target
-    dissolution = target / 10.0
-    friability = np.round(real["friability_pct"], 2)
+    return SimpleNamespace(mean=t_mean, real=real, thickness=thickness, breaking=breaking, weights=weights,
+                           weight_rsd=weight_rsd, tenths=tenths, dissolution=target / 10.0,
+                           friability=np.round(real["friability_pct"], 2))
 
-    # ---- chain means (noise-free, from the settings)
-    chain = staged(lambda t: {k: v.to_numpy() for k, v in t.chain_mean(s).items()})
 
-    # ---- tables
+def _lot_tables(lots, s, started, product, raw, ribbon, granules, tablets, truth) -> dict[str, pd.DataFrame]:
+    """The process, ribbon, granules and tablets tables, one row per lot or per sample or sieve."""
+    n = lots.size
     process = {"lot": lots}
     if product is not None:
         process["product"] = np.full(n, str(product), dtype=object)
@@ -979,31 +1019,37 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
     process["roll_width_mm"] = np.where(pilot, _ROLLS["pilot"][0], _ROLLS["production"][0])
     process["roll_diameter_mm"] = np.where(pilot, _ROLLS["pilot"][1], _ROLLS["production"][1])
     process.update(raw)
-    tables = {
+    return {
         "process": pd.DataFrame(process),
         "ribbon": pd.DataFrame({
-            "lot": lots[owner],
-            "sample": sample_no.astype(str).astype(object),
-            "envelope_density_g_cm3": envelope,
-            "skeletal_density_g_cm3": skeletal,
-            "sampled_at": _iso(sampled),
+            "lot": lots[ribbon.owner],
+            "sample": ribbon.sample_no.astype(str).astype(object),
+            "envelope_density_g_cm3": ribbon.envelope,
+            "skeletal_density_g_cm3": ribbon.skeletal,
+            "sampled_at": _iso(ribbon.sampled),
         }),
         "granules": pd.DataFrame({
-            "lot": np.repeat(lots, apertures.size),
+            "lot": np.repeat(lots, granules.apertures.size),
             "sieve_um": np.tile(np.array(SIEVES_UM, dtype=np.int64), n),
-            "retained_g": retained.ravel(),
+            "retained_g": granules.retained.ravel(),
         }),
         "tablets": pd.DataFrame({
             "lot": lots,
             "compression_force_kn": s["compression_force_kn"],
-            "breaking_force_n": breaking,
-            "thickness_mm": thickness,
+            "breaking_force_n": tablets.breaking,
+            "thickness_mm": tablets.thickness,
             "diameter_mm": np.full(n, truth.tablet_diameter_mm),
-            "weight_rsd_pct": weight_rsd,
-            "friability_pct": friability,
-            "dissolution_pct": dissolution,
+            "weight_rsd_pct": tablets.weight_rsd,
+            "friability_pct": tablets.friability,
+            "dissolution_pct": tablets.dissolution,
         }),
     }
+
+
+def _unit_tables(r_pick, lots, with_units, with_vessels, tablets, truth) -> dict[str, pd.DataFrame]:
+    """The unit weights and dissolution vessels of the lots picked for them (``with_units``, ``with_vessels``)."""
+    n = lots.size
+    tables = {}
     units = _pick(r_pick, n, with_units)
     vessels = _pick(r_pick, n, with_vessels)
     if units.any():
@@ -1011,7 +1057,7 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
         tables["tablet_weights"] = pd.DataFrame({
             "lot": np.repeat(lots[units], k),
             "unit": np.tile(np.arange(1, k + 1).astype(str).astype(object), int(units.sum())),
-            "weight_mg": weights[units].ravel(),
+            "weight_mg": tablets.weights[units].ravel(),
         })
     if vessels.any():
         k = truth.n_vessels
@@ -1019,36 +1065,40 @@ def make_lots(n_lots: int, seed: int = 0, truth: Truth | None = None, *, design:
             "lot": np.repeat(lots[vessels], k),
             "vessel": np.tile(np.arange(1, k + 1).astype(str).astype(object), int(vessels.sum())),
             "time_min": np.full(int(vessels.sum()) * k, truth.dissolution_time_min),
-            "released_pct": tenths[vessels].ravel() / 10.0,
+            "released_pct": tablets.tenths[vessels].ravel() / 10.0,
         })
+    return tables
 
+
+def _lot_truth(lots, s, changed, chain, ribbon, granules, tablets) -> dict[str, np.ndarray]:
+    """The ``lot_truth`` columns (see :func:`make_lots`)."""
     lot_truth = {"lot": lots, **{k: s[k] for k in ("compactor", *ROLL_SETTINGS, "mill_screen_mm",
                                                    "compression_force_kn")},
                  "raw_material_changed": changed}
     realised = {
-        "ribbon_porosity": eps_measured,
-        "granule_d50_um": d50,
-        "fines_pct": fines,
-        "tensile_strength_mpa": real["tensile_strength_mpa"],
-        "weight_rsd_pct": weight_rsd,
-        "friability_pct": friability,
-        "dissolution_pct": dissolution,
+        "ribbon_porosity": ribbon.eps_measured,
+        "granule_d50_um": granules.d50,
+        "fines_pct": granules.fines,
+        "tensile_strength_mpa": tablets.real["tensile_strength_mpa"],
+        "weight_rsd_pct": tablets.weight_rsd,
+        "friability_pct": tablets.friability,
+        "dissolution_pct": tablets.dissolution,
     }
-    means = {"ribbon_porosity": eps_mean, **g_mean, **t_mean}
+    means = {"ribbon_porosity": ribbon.eps_mean, **granules.mean, **tablets.mean}
     for a in ATTRIBUTES:
         lot_truth[f"{a}_chain"] = chain[a]
         lot_truth[f"{a}_mean"] = means[a]
         lot_truth[a] = realised[a]
     lot_truth.update({
-        "ribbon_porosity_lot": eps_lot,
-        "ribbon_samples": n_rep,
-        "skeletal_density_g_cm3": skeletal_lot,
-        "rrsb_x_prime_um": x_prime,
-        "rrsb_n": rrsb_n,
-        "thickness_mm": thickness,
-        "breaking_force_n": breaking,
+        "ribbon_porosity_lot": ribbon.eps_lot,
+        "ribbon_samples": ribbon.n_rep,
+        "skeletal_density_g_cm3": ribbon.skeletal_lot,
+        "rrsb_x_prime_um": granules.x_prime,
+        "rrsb_n": granules.rrsb_n,
+        "thickness_mm": tablets.thickness,
+        "breaking_force_n": tablets.breaking,
     })
-    return SyntheticLots(tables=tables, truth=truth, lot_truth=pd.DataFrame(lot_truth))
+    return lot_truth
 
 
 def make_batch_lots(n_lots: int, seed: int = 0, *, lots_per_batch: int = 4, batch_sd_pct: float = 4.0,

@@ -19,7 +19,6 @@ MAX_BODY_LINES = 80
 
 #: functions allowed over the limit, "path:qualified name" -> why
 ALLOWED = {
-    "linkage/synthetic.py:make_lots": "not yet split (issue 20)",
     "linkage/decide/window.py:find_window": "being split on branch whatif-speed",
     "linkage/decide/whatif.py:predict_whatif": "being split on branch whatif-speed",
     "linkage/decide/running.py:advise": "not yet split (issue 20)",
