@@ -21,7 +21,6 @@ MAX_BODY_LINES = 80
 ALLOWED = {
     "linkage/decide/window.py:find_window": "being split on branch whatif-speed",
     "linkage/decide/whatif.py:predict_whatif": "being split on branch whatif-speed",
-    "linkage/decide/running.py:advise": "not yet split (issue 20)",
     "linkage/models/conformal.py:_Groups.kth": "not yet split (issue 20)",
     "linkage/decide/plan.py:augment_design": "not yet split (issue 20)",
     "linkage/models/materials.py:compare_columns": "not yet split (issue 20)",

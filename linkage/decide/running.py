@@ -51,6 +51,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
+from types import SimpleNamespace
 
 import numpy as np
 
@@ -445,20 +446,11 @@ def advise(lean, samples, settings: dict[str, float], window: tuple[float, float
     input of the ribbon stage; ``window``: (low, high) porosity;
     ``training_ribbon``: the ribbon replicates of the store, of which those of
     ``training_lots`` give the within-lot SD."""
-    import pandas as pd
-
-    from linkage.decide.watch import pooled_within_sd, porosity_within
-    from linkage.exceptions import InsufficientDataError, UsageError
-    from linkage.read import lot_key
+    from linkage.exceptions import UsageError
 
     if adjust not in ADJUSTABLE:
         raise UsageError(f"--adjust must be one of {', '.join(ADJUSTABLE)}; got {adjust!r}")
-    key = lot_key(str(lot))
-    trained = {str(t) for t in training_lots if lot_key(str(t)) != key}  # the running lot is never its own reference
-    sigma, sigma_lots, sigma_dof = pooled_within_sd(training_ribbon, trained)
-    if not (math.isfinite(sigma) and sigma > 0):
-        raise InsufficientDataError("no within-lot SD: the store holds no training lot of model "
-                                    f"{lean.model_id} with two or more ribbon replicates")
+    sigma, sigma_lots, sigma_dof, trained = _within_lot_sd(lean, training_ribbon, training_lots, lot)
     stage = next(st for st in lean.stages if POROSITY in st.targets)
     target = lean.targets[POROSITY]
     if adjust not in target.inputs:
@@ -467,6 +459,65 @@ def advise(lean, samples, settings: dict[str, float], window: tuple[float, float
     low, high = float(window[0]), float(window[1])
     centre_w = (low + high) / 2
 
+    watched = _watched_samples(samples, lot, training_ribbon, trained, (low, high), sigma, baseline)
+    rows, first = watched.rows, watched.first
+    level = level_now(watched.eps, watched.hours, sigma, watched.drifting)
+    values = {k: float(settings[k]) for k in target.inputs}
+    expected = float(target.predict({k: np.array([v]) for k, v in values.items()})[0])
+    lo_x, hi_x = stage.domain.ranges[adjust] if stage.domain is not None else (values[adjust], values[adjust])
+    step = STEP_SHARE * (hi_x - lo_x) if hi_x > lo_x else STEP_SHARE * abs(values[adjust]) or 1e-3
+    slope = float(sensitivity(lambda c: target.predict(c, raw=True), values, adjust, step))
+    reps = replicate_sensitivities(lean, values, adjust, step)
+    slope_se = float(np.std(reps, ddof=1)) if reps is not None and reps.size >= 2 else None
+    sens = {"input": adjust, "value": slope, "se": slope_se, "half_step": float(step),
+            "replicates": 0 if reps is None else int(reps.size)}
+
+    notes: list[str] = []
+    corr = None
+    if slope == 0:
+        notes.append(f"the ribbon stage's prediction does not change with {adjust} at these settings")
+    else:
+        corr = _suggested_correction(lean, target, values, adjust, step, sens, reps, level, expected, centre_w,
+                                     (lo_x, hi_x), notes)
+    confirm = {"samples": samples_to_confirm(confirm_shift_sd, alpha, power), "shift_sd": float(confirm_shift_sd),
+               "shift": float(confirm_shift_sd * sigma), "alpha": float(alpha), "power": float(power)}
+    drift = {"drifting": watched.drifting, "direction": watched.direction,
+             "first_signal_sample": None if first is None else rows[first]["sample"],
+             "first_signal_index": first, "rules": [] if first is None else watched.signals[first],
+             "signalled_samples": [r["sample"] for r in rows if r["signals"]]}
+    return RunningResult(
+        lot=str(lot), model_id=lean.model_id, adjust=adjust, settings=values,
+        held=dict(held or {}),
+        window={"low": low, "high": high, "centre": centre_w, "source": window_source},
+        sigma={"value": float(sigma), "lots": int(sigma_lots), "dof": int(sigma_dof)},
+        centre=watched.centre, baseline=watched.baseline, samples=rows, drift=drift, level=level,
+        expected_porosity=expected, sensitivity=sens, correction=corr, confirm=confirm, notes=notes)
+
+
+def _within_lot_sd(lean, training_ribbon, training_lots, lot) -> tuple[float, int, int, set[str]]:
+    """The pooled within-lot SD of porosity over the training lots (never the running lot itself), its lots
+    and degrees of freedom, and those lots."""
+    from linkage.decide.watch import pooled_within_sd
+    from linkage.exceptions import InsufficientDataError
+    from linkage.read import lot_key
+
+    key = lot_key(str(lot))
+    trained = {str(t) for t in training_lots if lot_key(str(t)) != key}  # the running lot is never its own reference
+    sigma, sigma_lots, sigma_dof = pooled_within_sd(training_ribbon, trained)
+    if not (math.isfinite(sigma) and sigma > 0):
+        raise InsufficientDataError("no within-lot SD: the store holds no training lot of model "
+                                    f"{lean.model_id} with two or more ribbon replicates")
+    return sigma, sigma_lots, sigma_dof, trained
+
+
+def _watched_samples(samples, lot, training_ribbon, trained, window, sigma, baseline) -> SimpleNamespace:
+    """The running lot's samples in time order against the window, the within-lot chart and the drift
+    watch's flags: one row per sample, the porosities, hours, centre and the first signal."""
+    import pandas as pd
+
+    from linkage.decide.watch import porosity_within
+
+    low, high = window
     df = samples.copy()
     df["lot"] = str(lot)
     df = df.sort_values("sampled_at", kind="stable").reset_index(drop=True)
@@ -498,20 +549,16 @@ def advise(lean, samples, settings: dict[str, float], window: tuple[float, float
                      "in_window": bool(low <= eps[i] <= high),
                      "ewma": float(z[i]), "ewma_low": float(zl[i]), "ewma_high": float(zh[i]),
                      "signals": signals[i], "flags": flags})
+    return SimpleNamespace(rows=rows, eps=eps, hours=hours, centre=centre, baseline=m, signals=signals,
+                           first=first, drifting=drifting, direction=direction)
 
-    level = level_now(eps, hours, sigma, drifting)
-    values = {k: float(settings[k]) for k in target.inputs}
-    expected = float(target.predict({k: np.array([v]) for k, v in values.items()})[0])
-    lo_x, hi_x = stage.domain.ranges[adjust] if stage.domain is not None else (values[adjust], values[adjust])
-    step = STEP_SHARE * (hi_x - lo_x) if hi_x > lo_x else STEP_SHARE * abs(values[adjust]) or 1e-3
-    slope = float(sensitivity(lambda c: target.predict(c, raw=True), values, adjust, step))
-    reps = replicate_sensitivities(lean, values, adjust, step)
-    slope_se = float(np.std(reps, ddof=1)) if reps is not None and reps.size >= 2 else None
-    sens = {"input": adjust, "value": slope, "se": slope_se, "half_step": float(step),
-            "replicates": 0 if reps is None else int(reps.size)}
 
-    notes: list[str] = []
-    corr = None
+def _suggested_correction(lean, target, values, adjust, step, sens, reps, level, expected, centre_w, training_range,
+                          notes: list[str]) -> dict:
+    """The setting of ``adjust`` that moves the level to the window's centre (Newton on the ribbon stage, the
+    local step where that does not converge), with its uncertainty; appends its caveats to ``notes``."""
+    slope, slope_se = sens["value"], sens["se"]
+    lo_x, hi_x = training_range
 
     def at(x: float) -> dict:
         return {k: np.array([v]) for k, v in dict(values, **{adjust: x}).items()}
@@ -522,51 +569,36 @@ def advise(lean, samples, settings: dict[str, float], window: tuple[float, float
     def slope_at(x: float) -> float:
         return float(sensitivity(lambda c: target.predict(c, raw=True), dict(values, **{adjust: x}), adjust, step))
 
-    if slope == 0:
-        notes.append(f"the ribbon stage's prediction does not change with {adjust} at these settings")
-    else:
-        x0 = values[adjust]
-        wanted = centre_w - level["value"]
-        base = predict_at(x0)
-        new, converged = solve_setting(lambda x: predict_at(x) - base, x0, wanted, slope_at)
-        if not converged:  # a flat or non-monotone stage: the first-order step from the local sensitivity
-            new = x0 + wanted / slope
-            notes.append(f"the ribbon stage's prediction does not reach the centre by changing {adjust} alone "
-                         "(Newton steps did not converge); the step from the local sensitivity is given")
-        dx = new - x0
-        # the secant of the stage over [x0, new] moves the level to the centre; its uncertainty over the replicates
-        secant = (predict_at(new) - base) / dx if dx != 0 else slope
-        reps_sec = replicate_secants(lean, values, adjust, x0, new) if dx != 0 else reps
-        secant_se = float(np.std(reps_sec, ddof=1)) if reps_sec is not None and reps_sec.size >= 2 else None
-        slope_new = slope_at(new)
-        _, u = correction(centre_w, level["value"], level["se"], secant, secant_se, level_slope=slope_new)
-        model_new = float(target.predict(at(new))[0])
-        corr = {"input": adjust, "current": x0, "suggested": float(new), "change": float(dx), "se": float(u),
-                "interval_95": [float(new - 1.959963984540054 * u), float(new + 1.959963984540054 * u)],
-                "expected_porosity": float(level["value"] + model_new - expected),
-                "secant": float(secant), "secant_se": secant_se, "sensitivity_at_suggested": slope_new,
-                "newton_converged": bool(converged),
-                "training_range": [float(lo_x), float(hi_x)],
-                "inside_training_range": bool(lo_x <= new <= hi_x)}
-        if not lo_x <= new <= hi_x:
-            notes.append(f"the suggested {adjust} {new:.3g} lies outside the training range {lo_x:.3g}–{hi_x:.3g}: "
-                         "an extrapolation")
-        if slope_se is not None and abs(slope) < 2 * slope_se:
-            notes.append("the sensitivity is less than twice its own uncertainty: the size of the correction is "
-                         "poorly known")
-    confirm = {"samples": samples_to_confirm(confirm_shift_sd, alpha, power), "shift_sd": float(confirm_shift_sd),
-               "shift": float(confirm_shift_sd * sigma), "alpha": float(alpha), "power": float(power)}
-    drift = {"drifting": drifting, "direction": direction,
-             "first_signal_sample": None if first is None else rows[first]["sample"],
-             "first_signal_index": first, "rules": [] if first is None else signals[first],
-             "signalled_samples": [r["sample"] for r in rows if r["signals"]]}
-    return RunningResult(
-        lot=str(lot), model_id=lean.model_id, adjust=adjust, settings=values,
-        held=dict(held or {}),
-        window={"low": low, "high": high, "centre": centre_w, "source": window_source},
-        sigma={"value": float(sigma), "lots": int(sigma_lots), "dof": int(sigma_dof)},
-        centre=centre, baseline=m, samples=rows, drift=drift, level=level, expected_porosity=expected,
-        sensitivity=sens, correction=corr, confirm=confirm, notes=notes)
+    x0 = values[adjust]
+    wanted = centre_w - level["value"]
+    base = predict_at(x0)
+    new, converged = solve_setting(lambda x: predict_at(x) - base, x0, wanted, slope_at)
+    if not converged:  # a flat or non-monotone stage: the first-order step from the local sensitivity
+        new = x0 + wanted / slope
+        notes.append(f"the ribbon stage's prediction does not reach the centre by changing {adjust} alone "
+                     "(Newton steps did not converge); the step from the local sensitivity is given")
+    dx = new - x0
+    # the secant of the stage over [x0, new] moves the level to the centre; its uncertainty over the replicates
+    secant = (predict_at(new) - base) / dx if dx != 0 else slope
+    reps_sec = replicate_secants(lean, values, adjust, x0, new) if dx != 0 else reps
+    secant_se = float(np.std(reps_sec, ddof=1)) if reps_sec is not None and reps_sec.size >= 2 else None
+    slope_new = slope_at(new)
+    _, u = correction(centre_w, level["value"], level["se"], secant, secant_se, level_slope=slope_new)
+    model_new = float(target.predict(at(new))[0])
+    corr = {"input": adjust, "current": x0, "suggested": float(new), "change": float(dx), "se": float(u),
+            "interval_95": [float(new - 1.959963984540054 * u), float(new + 1.959963984540054 * u)],
+            "expected_porosity": float(level["value"] + model_new - expected),
+            "secant": float(secant), "secant_se": secant_se, "sensitivity_at_suggested": slope_new,
+            "newton_converged": bool(converged),
+            "training_range": [float(lo_x), float(hi_x)],
+            "inside_training_range": bool(lo_x <= new <= hi_x)}
+    if not lo_x <= new <= hi_x:
+        notes.append(f"the suggested {adjust} {new:.3g} lies outside the training range {lo_x:.3g}–{hi_x:.3g}: "
+                     "an extrapolation")
+    if slope_se is not None and abs(slope) < 2 * slope_se:
+        notes.append("the sensitivity is less than twice its own uncertainty: the size of the correction is "
+                     "poorly known")
+    return corr
 
 
 def draw_chart(result: RunningResult, path) -> None:
