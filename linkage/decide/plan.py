@@ -628,8 +628,6 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
         P(all pass) near the confidence, :mod:`linkage.decide.plan_target`;
         porosity edges only, ``edges`` is then not used).
     """
-    from scipy.stats import qmc
-
     from linkage.decide.window import find_window
     from linkage.models.lean import as_lean
 
@@ -642,17 +640,10 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
         raise UsageError(f"criterion must be one of {', '.join(CRITERIA)}; got {criterion!r}")
     lean = as_lean(chain)
     stage = _ribbon_stage(lean)
-    target = stage.targets[POROSITY]
     inputs = list(stage.inputs)
     ranges = dict(ranges or {})
     settings = dict(settings or {})
-    wrong = [k for k in ranges if k not in inputs]
-    if wrong:
-        raise UsageError(f"--range {', '.join(wrong)}: a plan varies only the ribbon stage's settings "
-                         f"({', '.join(inputs)}); hold the others with --set NAME=VALUE")
-    both = [k for k in ranges if k in settings]
-    if both:
-        raise UsageError(f"{', '.join(both)} given both a --range and a --set value; give one")
+    _check_ranges_and_settings(ranges, settings, inputs)
     if window is None:
         window = find_window(chain, spec, settings=settings, confidence=confidence, seed=seed, assurance=assurance)
     training = chain.training["ranges"]
@@ -660,27 +651,7 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
     held_ribbon = {k: float(settings[k]) for k in inputs if k in settings}
     held = {**held_ribbon, **{k: v["value"] for k, v in window.settings.items()
                               if k not in inputs and k not in lean.targets}}
-
-    # candidates: a scrambled Sobol' set over the ranges (seeded)
-    names = list(full)
-    lo = np.array([full[k][0] for k in names])
-    hi = np.array([full[k][1] for k in names])
-    m = int(2 ** math.ceil(math.log2(max(n_candidates, 16))))
-    unit = qmc.Sobol(len(names), scramble=True, seed=seed).random(m)
-    cand = {k: lo[j] + unit[:, j] * (hi[j] - lo[j]) for j, k in enumerate(names)}
-    cand.update({k: np.full(m, v) for k, v in held_ribbon.items()})
-    Xc = np.column_stack([cand[k] for k in inputs])
-    eps_c = target.predict(cand)
-    notes = []
-    verdicts = stage.domain.check(cand) if stage.domain is not None else [{"in_domain": None, "reasons": []}] * m
-    inside = np.array([bool(v["in_domain"]) for v in verdicts])
-    pool = np.flatnonzero(inside)
-    if stage.domain is not None and len(pool) < max(4 * n, 32):
-        notes.append(f"only {len(pool)} of {m} candidate settings lie inside the ribbon stage's applicability "
-                     "domain; candidates outside it were kept (each lot says where it is)")
-        pool = np.arange(m)
-    elif stage.domain is not None:
-        notes.append(f"candidates: {len(pool)} of {m} settings inside the ribbon stage's applicability domain")
+    cand, Xc, eps_c, pool, notes = _candidates(stage, inputs, full, held_ribbon, n_candidates, n, seed)
 
     if criterion == "thompson":
         got = _thompson_choice(chain, table, spec, window, eps_c, pool, n, confidence, training[POROSITY], seed)
@@ -701,12 +672,65 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
     # the edges and their local linear models, started on the existing lots
     models, edge_notes = edge_models(window, table, inputs, lean.medians, training[POROSITY], edges)
     notes += edge_notes
+    chosen = _local_choice(models, eps_c, Xc, pool, n)
+    edge_list = [{"name": em.name, "kind": kind, "value": em.value, "where": em.where,
+                  "relative_variance": em.relative} for em, kind in models]
+    crit = {"before": float(len(models)), "after": float(sum(em.relative for em, _ in models)),
+            "rule": "sum over the edges of each edge's variance of the local linear fit relative to the "
+                    "existing lots alone"}
+    return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes, full, seed,
+                      prefix, product, "I-optimal augmentation of local linear models weighted to the window's "
+                      "edges (greedy)")
 
+
+def _check_ranges_and_settings(ranges: dict, settings: dict, inputs: list[str]) -> None:
+    """A --range only for the ribbon stage's settings, and never both a --range and a --set for one."""
+    wrong = [k for k in ranges if k not in inputs]
+    if wrong:
+        raise UsageError(f"--range {', '.join(wrong)}: a plan varies only the ribbon stage's settings "
+                         f"({', '.join(inputs)}); hold the others with --set NAME=VALUE")
+    both = [k for k in ranges if k in settings]
+    if both:
+        raise UsageError(f"{', '.join(both)} given both a --range and a --set value; give one")
+
+
+def _candidates(stage, inputs, full, held_ribbon, n_candidates, n, seed):
+    """Candidate settings: a scrambled Sobol' set over the ranges ``full`` (seeded), the held ones fixed;
+    their ribbon porosity, and the pool to choose from (those inside the ribbon stage's domain when enough
+    are). Returns (candidates by name, candidates × inputs, porosity, pool indices, notes)."""
+    from scipy.stats import qmc
+
+    target = stage.targets[POROSITY]
+    names = list(full)
+    lo = np.array([full[k][0] for k in names])
+    hi = np.array([full[k][1] for k in names])
+    m = int(2 ** math.ceil(math.log2(max(n_candidates, 16))))
+    unit = qmc.Sobol(len(names), scramble=True, seed=seed).random(m)
+    cand = {k: lo[j] + unit[:, j] * (hi[j] - lo[j]) for j, k in enumerate(names)}
+    cand.update({k: np.full(m, v) for k, v in held_ribbon.items()})
+    Xc = np.column_stack([cand[k] for k in inputs])
+    eps_c = target.predict(cand)
+    notes = []
+    verdicts = stage.domain.check(cand) if stage.domain is not None else [{"in_domain": None, "reasons": []}] * m
+    inside = np.array([bool(v["in_domain"]) for v in verdicts])
+    pool = np.flatnonzero(inside)
+    if stage.domain is not None and len(pool) < max(4 * n, 32):
+        notes.append(f"only {len(pool)} of {m} candidate settings lie inside the ribbon stage's applicability "
+                     "domain; candidates outside it were kept (each lot says where it is)")
+        pool = np.arange(m)
+    elif stage.domain is not None:
+        notes.append(f"candidates: {len(pool)} of {m} settings inside the ribbon stage's applicability domain")
+    return cand, Xc, eps_c, pool, notes
+
+
+def _local_choice(models, eps_c, Xc, pool, n) -> list[tuple[int, str]]:
+    """Greedy I-optimal augmentation: ``n`` times the candidate of ``pool`` that most lowers the summed
+    relative variance of the edges' local models, each added to them; (candidate, the edge it helps most)."""
     def features(idx):
         return {"porosity": eps_c[idx][:, None], "settings": Xc[idx]}
 
     chosen: list[tuple[int, str]] = []
-    available = np.ones(m, dtype=bool)
+    available = np.ones(len(eps_c), dtype=bool)
     for _ in range(n):
         idx = pool[available[pool]]
         if not len(idx):
@@ -720,15 +744,7 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
             em.add(features(np.array([c]))[kind])
         available[c] = False
         chosen.append((c, top))
-
-    edge_list = [{"name": em.name, "kind": kind, "value": em.value, "where": em.where,
-                  "relative_variance": em.relative} for em, kind in models]
-    crit = {"before": float(len(models)), "after": float(sum(em.relative for em, _ in models)),
-            "rule": "sum over the edges of each edge's variance of the local linear fit relative to the "
-                    "existing lots alone"}
-    return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes, full, seed,
-                      prefix, product, "I-optimal augmentation of local linear models weighted to the window's "
-                      "edges (greedy)")
+    return chosen
 
 
 #: augment_design's criteria (``linkage plan --criterion``)
