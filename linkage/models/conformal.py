@@ -247,17 +247,22 @@ class _Groups:
         """k[j]-th smallest (1-based, 1 ≤ k ≤ n) over the lots i of
         rows[fold(i), j] + |Rᵢ|, for each column j of rows; NaN for a column
         not settled here."""
-        K, m = rows.shape
-        size, value, count, cum, key, pooled = self.size, self.value, self.count, self.cum, self.key, self.pooled
+        vl, vh, a, b = self._first_windows(rows, k)
+        self._narrow(rows, k, vl, vh, a, b)
+        return self._select(rows, k, a, np.maximum(a, b))
+
+    def _edges(self, rows: np.ndarray, v: np.ndarray, side: str, cols=slice(None)) -> np.ndarray:
+        """(K, len(v)) positions of v − rows[g, cols] in each fold g's distinct values."""
+        return np.stack([np.searchsorted(self.key[g], v - rows[g, cols], side) for g in range(rows.shape[0])])
+
+    def _lots_before(self, pos: np.ndarray) -> np.ndarray:
+        """Lots left of the positions ``pos`` (K × points), summed over the folds."""
+        return self.cum[np.arange(pos.shape[0])[:, None], pos].sum(axis=0)
+
+    def _first_windows(self, rows: np.ndarray, k: np.ndarray):
+        """Value windows (vl, vh) and their positions (a, b) in each fold that hold the k-th smallest."""
+        pooled = self.pooled
         n = pooled.size
-        folds = np.arange(K)[:, None]
-
-        def edges(v, side, cols=slice(None)):  # (K, len(v)) positions in each fold's distinct values
-            return np.stack([np.searchsorted(key[g], v - rows[g, cols], side) for g in range(K)])
-
-        def lots_before(pos):  # lots left of the positions, summed over the folds
-            return cum[folds, pos].sum(axis=0)
-
         # Element i lies within min_g..max_g of rows plus its own |Rᵢ|, so the k-th smallest lies within
         # the same shifts of the k-th smallest |R| (the safe ends, widened for round-off). First guess:
         # the fold models' mean weighted by their lots, shifted by the pooled |R| a few ranks either
@@ -268,20 +273,22 @@ class _Groups:
         centre = self.weight @ rows
         vl = np.clip(centre + pooled[np.maximum(k - 1 - _FIRST_RANKS, 0)] - tol, safe_lo, safe_hi)
         vh = np.clip(centre + pooled[np.minimum(k - 1 + _FIRST_RANKS, n - 1)] + tol, safe_lo, safe_hi)
-        a, b = edges(vl, "left"), edges(vh, "right")
+        a, b = self._edges(rows, vl, "left"), self._edges(rows, vh, "right")
         # where the guess missed rank k, one of its ends still bounds the k-th smallest
-        over = np.flatnonzero(lots_before(a) >= k)  # about k elements below vl already
+        over = np.flatnonzero(self._lots_before(a) >= k)  # about k elements below vl already
         if over.size:
             vh[over], b[:, over] = vl[over], a[:, over]
-            vl[over], a[:, over] = safe_lo[over], edges(safe_lo[over], "left", over)
-        under = np.flatnonzero(lots_before(b) < k)  # fewer than k elements up to vh
+            vl[over], a[:, over] = safe_lo[over], self._edges(rows, safe_lo[over], "left", over)
+        under = np.flatnonzero(self._lots_before(b) < k)  # fewer than k elements up to vh
         if under.size:
             vl[under], a[:, under] = vh[under], b[:, under]
-            vh[under], b[:, under] = safe_hi[under], edges(safe_hi[under], "right", under)
+            vh[under], b[:, under] = safe_hi[under], self._edges(rows, safe_hi[under], "right", under)
+        return vl, vh, a, b
 
-        # narrow the windows still holding many distinct values: probes placed by linear interpolation
-        # of the count between the ends, and every third step the midpoint (bisection, so that every
-        # window shrinks whatever the data)
+    def _narrow(self, rows: np.ndarray, k: np.ndarray, vl, vh, a, b) -> None:
+        """Narrow (in place) the windows still holding many distinct values: probes placed by linear
+        interpolation of the count between the ends, and every third step the midpoint (bisection, so that
+        every window shrinks whatever the data)."""
         for step in range(_NARROW_STEPS):
             wide = np.flatnonzero((b - a).sum(axis=0) > _WINDOW_GOAL)
             if wide.size == 0:
@@ -290,7 +297,7 @@ class _Groups:
             if step % 3 == 2:
                 probes = [lo + 0.5 * (hi - lo)]
             else:
-                n_lo, n_hi = lots_before(a[:, wide]), lots_before(b[:, wide])
+                n_lo, n_hi = self._lots_before(a[:, wide]), self._lots_before(b[:, wide])
                 spread = np.maximum(n_hi - n_lo, 1)
                 d = np.maximum(0.25 * _WINDOW_GOAL, spread / 8)
                 probes = [lo + np.clip((kw - n_lo + s) / spread, 0.0, 1.0) * (hi - lo) for s in (-d, d)]
@@ -301,14 +308,19 @@ class _Groups:
                 if pts.size == 0:
                     continue
                 moved = True
-                at = edges(vm, "right", pts)  # about the elements ≤ vm
-                upper = lots_before(at) >= k[pts]  # then the k-th smallest is ≤ vm
+                at = self._edges(rows, vm, "right", pts)  # about the elements ≤ vm
+                upper = self._lots_before(at) >= k[pts]  # then the k-th smallest is ≤ vm
                 vh[pts[upper]], b[:, pts[upper]] = vm[upper], at[:, upper]
                 vl[pts[~upper]], a[:, pts[~upper]] = vm[~upper], at[:, ~upper]
             if not moved and step % 3 == 2:  # not even the midpoint lies strictly between the ends
                 break
-        b = np.maximum(a, b)
 
+    def _select(self, rows: np.ndarray, k: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+        """The k-th smallest of each column whose window (positions a to b per fold) is narrow enough and
+        passes the check; NaN for the others."""
+        K, m = rows.shape
+        size, value, count = self.size, self.value, self.count
+        folds = np.arange(K)[:, None]
         out = np.full(m, np.nan)
         per_point = (b - a).sum(axis=0)
         cols = np.flatnonzero(per_point <= _WINDOW_MAX)
@@ -324,8 +336,8 @@ class _Groups:
         rest_min = np.where(a < size[:, None], element(a), np.inf).min(axis=0)
         upto_max = np.where(b > 0, element(b - 1), -np.inf).max(axis=0)
         above_min = np.where(b < size[:, None], element(b), np.inf).min(axis=0)
-        n_below = lots_before(a)
-        ok = (below_max <= rest_min) & (upto_max <= above_min) & (n_below < k) & (k <= lots_before(b))
+        n_below = self._lots_before(a)
+        ok = (below_max <= rest_min) & (upto_max <= above_min) & (n_below < k) & (k <= self._lots_before(b))
 
         # the windows' elements, one row per point, sorted; the first whose running count of lots
         # reaches k − (lots below the windows) is the k-th smallest
