@@ -161,20 +161,46 @@ def _bound_uniforms(lean, given: set[str], limits_names: list[str], seed: int, c
 def page_payload(lean, spec=None, *, seed: int = 0, n_draws: int = 4000, level: float | None = None,
                  assurance: float = 0.9, window: dict | None = None, initial: dict | None = None) -> dict:
     """The numbers the page computes from (JSON-safe)."""
-    from linkage.decide.bound import CELLS, FINAL_MAX, check_assurance, replicates_of
-    from linkage.decide.compendial import DISSOLUTION, judge_text, needs_units, within_lot_of
-    from linkage.decide.propagate import needed_settings
-    from linkage.decide.whatif import WHATIF_CELLS
-    from linkage.models.lean import as_lean, physical_range
+    from linkage.decide.bound import check_assurance
+    from linkage.decide.compendial import judge_text
+    from linkage.models.lean import as_lean
     from linkage.schema import ASSEMBLED
 
-    del CELLS  # the what-if uses its own number of cells
     lean = as_lean(lean)
     _check_supported(lean, spec)
     assurance = check_assurance(assurance)
     level = float(level if level is not None else lean.nominal_coverage)
     roots = lean.root_inputs()
     given = set(roots)
+    settings = _settings_payload(lean)
+    lots = _mc_lots(lean, given, n_draws, seed)
+    stages = [_stage_payload(st, lots) for st in lean.stages]
+    limits = {} if spec is None else {a: {"min": lim.min, "max": lim.max} for a, lim in spec.limits.items()}
+    dissolution = _dissolution_payload(lean, spec, n_draws, seed)
+    bound = _bound_payload(lean, given, list(limits), seed)
+    payload = {
+        "format": 1, "model_id": lean.model_id or "unsaved", "created_at": lean.created_at, "caution": CAUTION,
+        "seed": int(seed), "n_draws": int(n_draws), "level": level, "assurance": assurance,
+        "roots": roots, "settings": settings, "medians": dict(lean.medians),
+        "stages": stages, "limits": limits, "judges": judge_text(spec) if spec is not None else {},
+        "spec": spec.describe() if spec is not None else None,
+        "dissolution": dissolution, "bound": bound, "window": window, "initial": dict(initial or {}),
+        "products": list(lean.products),
+        "units": {name: ASSEMBLED.get(name, "-") for name in list(lean.medians) + list(lean.targets)},
+    }
+    payload["held_labels"] = _held_labels()
+    for key in ("settings_names", "settings_mean", "settings_cov", "settings_low", "settings_high",
+                "settings_levels"):
+        if key in lean.spec:  # the conditional-mean rule of fill_settings, when the model carries it
+            payload[key] = lean.spec[key]
+    return _plain(payload)
+
+
+def _settings_payload(lean) -> list[dict]:
+    """Every setting the chain needs: its training range (from the stages' domains), median and unit."""
+    from linkage.decide.propagate import needed_settings
+    from linkage.schema import ASSEMBLED
+
     ranges = {}
     for st in lean.stages:
         if st.domain is not None:
@@ -188,43 +214,61 @@ def page_payload(lean, spec=None, *, seed: int = 0, n_draws: int = 4000, level: 
             raise UsageError(f"the what-if page needs the training range of {name}, which model "
                              f"{lean.model_id} does not record")
         settings.append({"name": name, "low": lo, "high": hi, "median": med, "unit": ASSEMBLED.get(name, "-")})
-    lots = _mc_lots(lean, given, n_draws, seed)
-    stages = []
-    for st in lean.stages:
-        d = st.domain
-        stages.append({
-            "name": st.name, "inputs": list(st.inputs), "residual_lots": list(st.residual_lots),
-            "residual_matrix": st.residual_matrix, "residual_scale": st.residual_scale,
-            "domain": None if d is None else {
-                "inputs": list(d.inputs), "ranges": {k: list(v) for k, v in d.ranges.items()},
-                "mean": d.mean, "scale": d.scale, "rotations": np.atleast_2d(d.rotations),
-                "loadings": np.atleast_2d(d.loadings), "score_var": np.atleast_1d(d.score_var),
-                "n_components": int(d.n_components), "t2_limit": d.t2_limit, "q_limit": d.q_limit,
-                "alpha": float(d.alpha)},
-            "targets": [{
-                "target": t.target, "inputs": list(t.inputs), "selected": t.selected,
-                "model": {"kind": t.model_.kind, **vars(t.model_.p)},
-                "fold_models": [{"kind": m.kind, **vars(m.p)} for m in t.fold_models_],
-                "fold_of": t.fold_of_, "residuals": t.residuals_, "spread": t.spread, "lot_scale": t.lot_scale_,
-                "interval": None if t.interval_ is None else {
-                    "fold_models": [{"kind": m.kind, **vars(m.p)} for m in t.interval_["fold_models"]],
-                    "residuals": t.interval_["residuals"], "lot_scale": t.interval_["lot_scale"],
-                    "leverage": t.interval_["leverage"]},
-                "physical_range": [_end(v) for v in physical_range(t.target)],
-                "mc_lots": lots.get(t.target),
-            } for t in st.targets.values()],
-        })
-    limits = {} if spec is None else {a: {"min": lim.min, "max": lim.max} for a, lim in spec.limits.items()}
-    units = needs_units(spec)
-    dissolution = None
-    if units and DISSOLUTION in lean.targets:
-        spread = within_lot_of(lean).get("dissolution")
-        if spread is None:
-            raise UsageError(f'judge = "stages" needs the within-lot vessel SD of dissolution, which '
-                             f"{lean.model_id} does not record")
-        dissolution = {"grid": np.asarray(spread["grid"], float), "log_var": np.asarray(spread["log_var"], float),
-                       "units_per_lot": float(spread["units_per_lot"]), "pass_by": spec.dissolution_pass_by,
-                       "vessels": _vessel_stats(n_draws, seed)}
+    return settings
+
+
+def _stage_payload(st, lots: dict) -> dict:
+    """One stage of the lean model as the page needs it: residuals, domain model, and per target its
+    selected and fold models, residuals, physical range and Monte Carlo lots."""
+    from linkage.models.lean import physical_range
+
+    d = st.domain
+    return {
+        "name": st.name, "inputs": list(st.inputs), "residual_lots": list(st.residual_lots),
+        "residual_matrix": st.residual_matrix, "residual_scale": st.residual_scale,
+        "domain": None if d is None else {
+            "inputs": list(d.inputs), "ranges": {k: list(v) for k, v in d.ranges.items()},
+            "mean": d.mean, "scale": d.scale, "rotations": np.atleast_2d(d.rotations),
+            "loadings": np.atleast_2d(d.loadings), "score_var": np.atleast_1d(d.score_var),
+            "n_components": int(d.n_components), "t2_limit": d.t2_limit, "q_limit": d.q_limit,
+            "alpha": float(d.alpha)},
+        "targets": [{
+            "target": t.target, "inputs": list(t.inputs), "selected": t.selected,
+            "model": {"kind": t.model_.kind, **vars(t.model_.p)},
+            "fold_models": [{"kind": m.kind, **vars(m.p)} for m in t.fold_models_],
+            "fold_of": t.fold_of_, "residuals": t.residuals_, "spread": t.spread, "lot_scale": t.lot_scale_,
+            "interval": None if t.interval_ is None else {
+                "fold_models": [{"kind": m.kind, **vars(m.p)} for m in t.interval_["fold_models"]],
+                "residuals": t.interval_["residuals"], "lot_scale": t.interval_["lot_scale"],
+                "leverage": t.interval_["leverage"]},
+            "physical_range": [_end(v) for v in physical_range(t.target)],
+            "mc_lots": lots.get(t.target),
+        } for t in st.targets.values()],
+    }
+
+
+def _dissolution_payload(lean, spec, n_draws: int, seed: int) -> dict | None:
+    """The within-lot vessel SD and the vessels' random numbers for a spec judged by the compendial
+    stages (None otherwise)."""
+    from linkage.decide.compendial import DISSOLUTION, needs_units, within_lot_of
+
+    if not (needs_units(spec) and DISSOLUTION in lean.targets):
+        return None
+    spread = within_lot_of(lean).get("dissolution")
+    if spread is None:
+        raise UsageError(f'judge = "stages" needs the within-lot vessel SD of dissolution, which '
+                         f"{lean.model_id} does not record")
+    return {"grid": np.asarray(spread["grid"], float), "log_var": np.asarray(spread["log_var"], float),
+            "units_per_lot": float(spread["units_per_lot"]), "pass_by": spec.dissolution_pass_by,
+            "vessels": _vessel_stats(n_draws, seed)}
+
+
+def _bound_payload(lean, given: set, attributes: list[str], seed: int) -> dict:
+    """What the page needs for the lower bound of P(all pass): the bootstrap replicates' counts and lots,
+    and the uniforms Python's generator gives (the what-if's own number of cells)."""
+    from linkage.decide.bound import FINAL_MAX, replicates_of
+    from linkage.decide.whatif import WHATIF_CELLS
+
     reps = replicates_of(lean)
     bound = {"available": bool(reps.available), "reason": reps.reason}
     if reps.available:
@@ -237,35 +281,16 @@ def page_payload(lean, spec=None, *, seed: int = 0, n_draws: int = 4000, level: 
         })
     bound["cells"] = WHATIF_CELLS
     bound["final_max"] = FINAL_MAX
-    bound["uniforms"] = _bound_uniforms(lean, given, list(limits), seed, WHATIF_CELLS, FINAL_MAX)
-    payload = {
-        "format": 1, "model_id": lean.model_id or "unsaved", "created_at": lean.created_at, "caution": CAUTION,
-        "seed": int(seed), "n_draws": int(n_draws), "level": level, "assurance": assurance,
-        "roots": roots, "settings": settings, "medians": dict(lean.medians),
-        "stages": stages, "limits": limits, "judges": judge_text(spec) if spec is not None else {},
-        "spec": spec.describe() if spec is not None else None,
-        "dissolution": dissolution, "bound": bound, "window": window, "initial": dict(initial or {}),
-        "products": list(lean.products),
-        "units": {name: ASSEMBLED.get(name, "-") for name in list(lean.medians) + list(lean.targets)},
-    }
-    try:  # the words fill_settings gives as the source of a held setting
-        from linkage.decide import held
+    bound["uniforms"] = _bound_uniforms(lean, given, attributes, seed, WHATIF_CELLS, FINAL_MAX)
+    return bound
 
-        payload["held_labels"] = {"coherent": held.COHERENT, "mean": held.MEAN, "median": held.MEDIAN,
-                                  "coherent_level": held.COHERENT_LEVEL, "mean_level": held.MEAN_LEVEL}
-    except ImportError:  # a linkage before coherent held settings: every held setting at its median
-        payload["held_labels"] = {"coherent": "held coherently (conditional mean of training lots)",
-                                  "mean": "held at the training mean (no setting given to condition on)",
-                                  "median": "training median",
-                                  "coherent_level": "held coherently (training level nearest the conditional mean "
-                                                    "of training lots)",
-                                  "mean_level": "held at the training level nearest the training mean (no setting "
-                                                "given to condition on)"}
-    for key in ("settings_names", "settings_mean", "settings_cov", "settings_low", "settings_high",
-                "settings_levels"):
-        if key in lean.spec:  # the conditional-mean rule of fill_settings, when the model carries it
-            payload[key] = lean.spec[key]
-    return _plain(payload)
+
+def _held_labels() -> dict[str, str]:
+    """The words fill_settings gives as the source of a held setting (linkage.decide.held)."""
+    from linkage.decide import held
+
+    return {"coherent": held.COHERENT, "mean": held.MEAN, "median": held.MEDIAN,
+            "coherent_level": held.COHERENT_LEVEL, "mean_level": held.MEAN_LEVEL}
 
 
 def page_html(lean, spec=None, **kwargs) -> str:
