@@ -176,8 +176,21 @@ def compare_columns(fitted, data: pd.DataFrame, columns: list[str], *, seed: int
     with the columns. Returns the record stored as ``training.materials``
     (``columns``, ``where``, ``rule``, ``alpha``, ``targets``, ``kept_for``,
     ``kept``, ``refits``)."""
-    from linkage.models.cv import metrics
-    from linkage.models.train import _Job, _run_all
+    from linkage.models.train import _run_all
+
+    rows, jobs, work = _planned_refits(fitted, data, columns, seed, nominal_coverage)
+    results = _run_all(jobs, n_jobs, progress, backend, run=_refit) if jobs else []
+    _judge_refits(fitted, rows, jobs, results, work)
+    kept = _best_columns(rows, columns)
+    return {"columns": list(columns), "where": WHERE, "rule": RULE, "alpha": ALPHA, "targets": rows,
+            "kept_for": list(kept), "kept": kept, "refits": len(jobs)}
+
+
+def _planned_refits(fitted, data: pd.DataFrame, columns: list[str], seed: int, nominal_coverage: float):
+    """Per attribute its record (the chain without the columns), and the refits to run: one job per
+    (attribute, column, candidate, outer fold) on the lots that have the column. Returns (records, jobs,
+    work); ``work`` holds (target, column, candidate, lots with the column, test rows per fold)."""
+    from linkage.models.train import _Job
 
     groups = fitted.training.get("groups")
     monotone = {t: dict(st.monotone.get(t, {})) for st in fitted.chain.stages for t in st.targets}
@@ -218,7 +231,14 @@ def compare_columns(fitted, data: pd.DataFrame, columns: list[str], *, seed: int
                                      monotone[name], seed, 1 - nominal_coverage))
                     tests.append(te)
                 work.append((name, c, cand, have, tests))
-    results = _run_all(jobs, n_jobs, progress, backend, run=_refit) if jobs else []
+    return rows, jobs, work
+
+
+def _judge_refits(fitted, rows: dict, jobs: list, results: list, work: list) -> None:
+    """Each (attribute, column, candidate) refit's out-of-fold errors against the chain's, by the paired
+    tests of :data:`RULE` (Bonferroni over the attribute's pairs); written into ``rows``."""
+    from linkage.models.cv import metrics
+
     by_work: dict[int, list] = {}
     for job, res in zip(jobs, results):
         by_work.setdefault(job.plan, []).append(res)
@@ -246,6 +266,11 @@ def compare_columns(fitted, data: pd.DataFrame, columns: list[str], *, seed: int
             tests_.append(one["vs_candidate_without"])
         one["kept"] = all(v["mean_difference"] > 0 and v["p"] < level for v in tests_)
         rec["by_candidate"][cand] = one
+
+
+def _best_columns(rows: dict, columns: list[str]) -> dict[str, list[str]]:
+    """Per column its best candidate (a kept one first), per attribute its best column and the columns
+    kept (written into ``rows``); returns attribute -> kept columns."""
     kept: dict[str, list[str]] = {}
     for name, row in rows.items():
         best_of = {}
@@ -270,8 +295,7 @@ def compare_columns(fitted, data: pd.DataFrame, columns: list[str], *, seed: int
         row["kept"] = bool(row["kept_columns"])
         if row["kept"]:
             kept[name] = row["kept_columns"]
-    return {"columns": list(columns), "where": WHERE, "rule": RULE, "alpha": ALPHA, "targets": rows,
-            "kept_for": list(kept), "kept": kept, "refits": len(jobs)}
+    return kept
 
 
 def _refit(job) -> dict:
