@@ -456,8 +456,10 @@ def test_a_setting_run_at_few_levels_is_held_at_a_level_on_the_page_as_in_python
         given = {n: float(rng.uniform(model.low[names.index(n)], model.high[names.index(n)])) for n in given_names}
         shown = browser.evaluate(f"window.linkageFillSettings({json.dumps(given)})")
         missing = [n for n in names if n not in given]
-        want, _ = held.hold(model, {k: np.array([v]) for k, v in given.items()}, missing)
+        want, label = held.hold(model, {k: np.array([v]) for k, v in given.items()}, missing)
+        sources = held.sources(model, missing, label)  # a setting held at a level says so
         for n in missing:
             assert shown["values"][n] == pytest.approx(float(want[n][0]), abs=TOL), (given_names, n)
+            assert shown["source"][n] == sources[n], (given_names, n)
             if levels[names.index(n)]:
                 assert shown["values"][n] in levels[names.index(n)]
