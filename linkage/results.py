@@ -297,13 +297,29 @@ class Trained(_Result):
 
 def window_text(result: WindowResult) -> str:
     """What ``linkage window`` prints."""
-    from linkage.report.sheet import every_spec_text
-
     d = result.to_dict(curve=False)
-    por = d["ribbon_porosity"]
-    every = every_spec_text(d["not_modelled"])
     bound = d.get("bound") or {}
     has_bound = bool(bound.get("available"))
+    lines = _window_head_lines(d, bound, has_bound)
+    lines += _porosity_window_lines(d, has_bound)
+    lines += _roll_force_lines(d, has_bound)
+    lines += _window_settings_lines(d)
+    if d["not_modelled"]:
+        lines.append("Not part of the window (not predicted from porosity): " + ", ".join(d["not_modelled"]))
+    lines += judges_lines(d.get("judges") or {})
+    if d.get("spec") and d["spec"].get("file"):
+        lines.append(f"Spec {d['spec']['file']}, SHA-256 {d['spec']['sha256']}")
+    lines.append(CAUTION)
+    return "\n".join(lines)
+
+
+def _window_head_lines(d: dict, bound: dict, has_bound: bool) -> list[str]:
+    """What the window is (bound or point estimate), what was judged, the training range, and why nothing
+    is promised where nothing is."""
+    from linkage.report.sheet import every_spec_text
+
+    por = d["ribbon_porosity"]
+    every = every_spec_text(d["not_modelled"])
     what = (f"the chance that {every} passes together for a lot is at least {d['confidence']:.0%} with "
             f"{d['assurance']:.0%} assurance over the whole window at once (lower bound over "
             f"{bound.get('n_replicates')} lot-level bootstrap replicates of the chain)") if has_bound else \
@@ -325,6 +341,13 @@ def window_text(result: WindowResult) -> str:
             lines += [f"   - {r}" for r in in_domain_reasons]
         if not has_bound:
             lines.append(f"!! {bound.get('reason')}")
+    return lines
+
+
+def _porosity_window_lines(d: dict, has_bound: bool) -> list[str]:
+    """The porosity window (or its absence), its edges, the point-estimate and mean-response windows."""
+    por = d["ribbon_porosity"]
+    lines = []
     if not d["found"]:
         lines.append("NO WINDOW: at no porosity in the training range does the "
                      + (f"lower bound ({d['assurance']:.0%} assurance)" if has_bound else "point estimate")
@@ -346,7 +369,13 @@ def window_text(result: WindowResult) -> str:
     mw = d["mean_response_window"]
     if mw["low"] is not None:
         lines.append(f"Mean-response window (overstates what can be promised): {mw['low']:.3f} – {mw['high']:.3f}")
+    return lines
+
+
+def _roll_force_lines(d: dict, has_bound: bool) -> list[str]:
+    """The roll force range for the window and the ranges beside it."""
     rf = d["roll_force_kn_per_cm"]
+    lines = []
     if rf.get("low") is not None:
         lines.append(f"Roll force (through the whole chain, ribbon scatter included; every specification at least "
                      f"{d['confidence']:.0%}" + (f" with {d['assurance']:.0%} assurance" if has_bound else
@@ -363,27 +392,27 @@ def window_text(result: WindowResult) -> str:
         beside.append(f"mean porosity in the window {rf['mean_low']:.2f} – {rf['mean_high']:.2f}")
     if beside:
         lines.append("  beside it (kN/cm): " + "; ".join(beside))
-    lines.append("Settings used:")
+    return lines
+
+
+def _window_settings_lines(d: dict) -> list[str]:
+    """The settings used and held, and the held points' domain verdicts."""
+    from linkage.decide.held import held_text
+
+    rf = d["roll_force_kn_per_cm"]
+    lines = ["Settings used:"]
     for k, v in d["settings"].items():
         lines.append(f"  {k} = {v['value']:.4g} ({v['source']})")
     held_rf = rf.get("held_chain") or rf.get("held")
     if held_rf:
         lines.append("Held for the roll force range: " +
                      ", ".join(f"{k} = {v['value']:.4g} ({v['source']})" for k, v in held_rf.items()))
-    from linkage.decide.held import held_text
-
     if d.get("held_point"):
         lines.append(f"Held: {d['held_point']['rule']}.")
         lines.append(held_text(d["held_point"], "held point of the window (at its middle porosity)"))
     if rf.get("held_point"):
         lines.append(held_text(rf["held_point"], "held point of the roll force range (at its middle force)"))
-    if d["not_modelled"]:
-        lines.append("Not part of the window (not predicted from porosity): " + ", ".join(d["not_modelled"]))
-    lines += judges_lines(d.get("judges") or {})
-    if d.get("spec") and d["spec"].get("file"):
-        lines.append(f"Spec {d['spec']['file']}, SHA-256 {d['spec']['sha256']}")
-    lines.append(CAUTION)
-    return "\n".join(lines)
+    return lines
 
 
 @dataclass(repr=False)
