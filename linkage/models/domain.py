@@ -147,6 +147,25 @@ class DomainVerdict:
         }
 
 
+def _pls_targets(y, complete: np.ndarray, n_rows: int, cap: int):
+    """The stage targets ``y`` on the complete rows, the rows where every target is known and their SDs,
+    when they can steer a PLS latent model (at least 5 such rows, a target that varies, a component to
+    spare); else None."""
+    if y is None:
+        return None
+    Y = np.asarray(y, dtype=float)
+    if Y.ndim == 1:
+        Y = Y[:, None]
+    if Y.shape[0] != n_rows:
+        return None
+    Y = Y[complete]
+    keep = np.all(np.isfinite(Y), axis=1)
+    ysd = Y[keep].std(axis=0, ddof=1) if keep.sum() > 1 else np.zeros(Y.shape[1])
+    if keep.sum() >= 5 and np.any(ysd > 0) and cap >= 1:
+        return Y, keep, ysd
+    return None
+
+
 class DomainModel:
     """Latent-variable model of a stage's inputs for the applicability domain.
 
@@ -201,17 +220,8 @@ class DomainModel:
         rank = int(np.sum(eig > 1e-10 * max(1.0, eig[0] if eig.size else 0.0)))
         cap = max(0, min(rank, p - 1 if p > 1 else 1, n - 2))
 
-        Y = None
-        if y is not None:
-            Y = np.asarray(y, dtype=float)
-            if Y.ndim == 1:
-                Y = Y[:, None]
-            Y = Y[complete] if Y.shape[0] == values.shape[0] else None
-        use_pls = False
-        if Y is not None:
-            keep = np.all(np.isfinite(Y), axis=1)
-            ysd = Y[keep].std(axis=0, ddof=1) if keep.sum() > 1 else np.zeros(Y.shape[1])
-            use_pls = keep.sum() >= 5 and np.any(ysd > 0) and cap >= 1
+        targets = _pls_targets(y, complete, values.shape[0], cap)
+        use_pls = targets is not None
 
         if n_components is not None:
             a = int(n_components)
@@ -219,29 +229,7 @@ class DomainModel:
                 raise ValueError(f"n_components must be at least 1; got {a}")
             cap = min(a, cap)
         self.method_ = "pls" if use_pls else "pca"
-
-        if cap == 0:
-            A = 0
-            R = np.zeros((p, 0))
-            P = np.zeros((p, 0))
-        elif use_pls:
-            Zk, Yk = Z[keep], Y[keep][:, ysd > 0]
-            Yk = (Yk - Yk.mean(axis=0)) / Yk.std(axis=0, ddof=1)
-            R, P = self._pls_rotations(Zk, Yk, cap)
-            if n_components is None:
-                A = self._components_for_variance(Z, R, P, cap)
-                R, P = self._pls_rotations(Zk, Yk, A)
-            else:
-                A = cap
-        else:
-            _, _, vt = np.linalg.svd(Z, full_matrices=False)
-            if n_components is None:
-                share = np.cumsum(eig) / eig.sum()
-                A = int(min(cap, np.searchsorted(share, EXPLAINED_VARIANCE - 1e-12) + 1))
-            else:
-                A = cap
-            R = vt[:A].T
-            P = R
+        A, R, P = self._latent_space(Z, eig, cap, n_components, targets)
         self.n_components_ = A
         self.rotations_, self.loadings_ = R, P
         T = Z @ R
@@ -252,6 +240,33 @@ class DomainModel:
         self.t2_limit_ = t2_limit_phase2(n, A, alpha) if A else None
         self.q_limit_, self.q_limit_method_ = self._q_limit(A, p)
         return self
+
+    def _latent_space(self, Z, eig, cap: int, n_components: int | None, targets):
+        """(components, rotations R, loadings P) of the latent model: none when ``cap`` is 0; PLS on the
+        standardised stage targets when ``targets`` (rows kept, their SDs) are given; else PCA. Without
+        ``n_components``, the fewest components that describe :data:`EXPLAINED_VARIANCE` of the inputs."""
+        p = Z.shape[1]
+        if cap == 0:
+            return 0, np.zeros((p, 0)), np.zeros((p, 0))
+        if targets is not None:
+            Y, keep, ysd = targets
+            Zk, Yk = Z[keep], Y[keep][:, ysd > 0]
+            Yk = (Yk - Yk.mean(axis=0)) / Yk.std(axis=0, ddof=1)
+            R, P = self._pls_rotations(Zk, Yk, cap)
+            if n_components is None:
+                A = self._components_for_variance(Z, R, P, cap)
+                R, P = self._pls_rotations(Zk, Yk, A)
+            else:
+                A = cap
+            return A, R, P
+        _, _, vt = np.linalg.svd(Z, full_matrices=False)
+        if n_components is None:
+            share = np.cumsum(eig) / eig.sum()
+            A = int(min(cap, np.searchsorted(share, EXPLAINED_VARIANCE - 1e-12) + 1))
+        else:
+            A = cap
+        R = vt[:A].T
+        return A, R, R
 
     @staticmethod
     def _pls_rotations(Z, Y, a):
