@@ -393,41 +393,12 @@ def _finish_target(plan: _Plan, fold_results: list[dict], full: dict, table: pd.
                    nominal: float) -> FittedTarget:
     y, lots = plan.y, [str(v) for v in plan.lots]
     n = len(y)
-    unavailable = dict(plan.unavailable)
-    usable = []
-    for name in plan.candidates:
-        errors = [r[name]["error"] for r in fold_results + [full] if "error" in r[name]]
-        if errors:
-            unavailable[name] = errors[0]
-        else:
-            usable.append(name)
+    usable, unavailable = _usable_candidates(plan, fold_results, full)
     fold_of = np.empty(n, dtype=int)
     for f, (_, te) in enumerate(plan.splits):
         fold_of[te] = f
-    nested: dict[str, dict[str, np.ndarray]] = {}
     floor, floor_method = noise_floor(table[table["lot"].isin(lots)], plan.target)
-
-    oof = pd.DataFrame({"observed": y}, index=pd.Index(lots, name="lot"))
-    results: dict[str, dict] = {}
-    coverage: dict[str, float] = {}
-    infinite: dict[str, int] = {}
-    for name in usable:
-        pred, low, high = np.empty(n), np.empty(n), np.empty(n)
-        for f, (_, te) in enumerate(plan.splits):
-            r = fold_results[f][name]
-            pred[te], low[te], high[te] = r["pred"], r["low"], r["high"]
-        oof[name] = pred
-        m = metrics(y, pred)
-        m["rmse_over_noise"] = (m["rmse"] / floor) if floor else None
-        covered = (low <= y) & (y <= high)
-        lw_low, lw_high = np.empty(n), np.empty(n)
-        for f, (_, te) in enumerate(plan.splits):
-            lw_low[te], lw_high[te] = fold_results[f][name]["lw_low"], fold_results[f][name]["lw_high"]
-        nested[name] = {"cv+": covered, "lw": (lw_low <= y) & (y <= lw_high)}
-        coverage[name] = float(np.mean(covered))
-        infinite[name] = int(np.sum(~np.isfinite(low) | ~np.isfinite(high)))
-        m["coverage"] = coverage[name]
-        results[name] = m
+    oof, results, nested, infinite = _out_of_fold(plan, fold_results, usable, floor)
     notes = list(plan.notes)
     selected, details = select_candidate(results)
     if results[selected]["q2"] is None and not any("Q²" in s for s in notes):
@@ -473,6 +444,47 @@ def _finish_target(plan: _Plan, fold_results: list[dict], full: dict, table: pd.
         spread=interval["spread"],
         interval_basis=basis,
     )
+
+
+def _usable_candidates(plan: _Plan, fold_results: list[dict], full: dict) -> tuple[list[str], dict[str, str]]:
+    """The candidates that fitted in every fold and on all lots, and the others with their first error."""
+    unavailable = dict(plan.unavailable)
+    usable = []
+    for name in plan.candidates:
+        errors = [r[name]["error"] for r in fold_results + [full] if "error" in r[name]]
+        if errors:
+            unavailable[name] = errors[0]
+        else:
+            usable.append(name)
+    return usable, unavailable
+
+
+def _out_of_fold(plan: _Plan, fold_results: list[dict], usable: list[str], floor):
+    """Per usable candidate its out-of-fold predictions (a column of ``oof``), metrics with the nested
+    CV+ coverage, the nested coverage of CV+ and locally weighted CV+, and the unbounded intervals."""
+    y, lots = plan.y, [str(v) for v in plan.lots]
+    n = len(y)
+    nested: dict[str, dict[str, np.ndarray]] = {}
+    oof = pd.DataFrame({"observed": y}, index=pd.Index(lots, name="lot"))
+    results: dict[str, dict] = {}
+    infinite: dict[str, int] = {}
+    for name in usable:
+        pred, low, high = np.empty(n), np.empty(n), np.empty(n)
+        for f, (_, te) in enumerate(plan.splits):
+            r = fold_results[f][name]
+            pred[te], low[te], high[te] = r["pred"], r["low"], r["high"]
+        oof[name] = pred
+        m = metrics(y, pred)
+        m["rmse_over_noise"] = (m["rmse"] / floor) if floor else None
+        covered = (low <= y) & (y <= high)
+        lw_low, lw_high = np.empty(n), np.empty(n)
+        for f, (_, te) in enumerate(plan.splits):
+            lw_low[te], lw_high[te] = fold_results[f][name]["lw_low"], fold_results[f][name]["lw_high"]
+        nested[name] = {"cv+": covered, "lw": (lw_low <= y) & (y <= lw_high)}
+        infinite[name] = int(np.sum(~np.isfinite(low) | ~np.isfinite(high)))
+        m["coverage"] = float(np.mean(covered))
+        results[name] = m
+    return oof, results, nested, infinite
 
 
 def _procedure_basis(plan: _Plan, fold_results: list[dict], usable: list[str], fold_of: np.ndarray,
