@@ -554,9 +554,11 @@ def _watched_samples(samples, lot, training_ribbon, trained, window, sigma, base
 
 
 def _suggested_correction(lean, target, values, adjust, step, sens, reps, level, expected, centre_w, training_range,
-                          notes: list[str]) -> dict:
+                          notes: list[str]) -> dict | None:
     """The setting of ``adjust`` that moves the level to the window's centre (Newton on the ribbon stage, the
-    local step where that does not converge), with its uncertainty; appends its caveats to ``notes``."""
+    local step where that does not converge), with its uncertainty; appends its caveats to ``notes``. None,
+    with a note saying why, where the stage does not move with the setting over the step or at the setting
+    it comes to: there neither the change nor its uncertainty can be computed."""
     slope, slope_se = sens["value"], sens["se"]
     lo_x, hi_x = training_range
 
@@ -583,6 +585,12 @@ def _suggested_correction(lean, target, values, adjust, step, sens, reps, level,
     reps_sec = replicate_secants(lean, values, adjust, x0, new) if dx != 0 else reps
     secant_se = float(np.std(reps_sec, ddof=1)) if reps_sec is not None and reps_sec.size >= 2 else None
     slope_new = slope_at(new)
+    if not (secant != 0 and math.isfinite(secant) and slope_new != 0 and math.isfinite(slope_new)):
+        notes.append(f"no correction is suggested: the ribbon stage's prediction does not change with {adjust} "
+                     f"between {x0:.4g} and {new:.4g} or at {new:.4g} (secant {secant:.3g}, sensitivity there "
+                     f"{slope_new:.3g}), so neither the change that reaches the window's centre nor its "
+                     "uncertainty can be computed; adjust another setting or by hand, and confirm by samples")
+        return None
     _, u = correction(centre_w, level["value"], level["se"], secant, secant_se, level_slope=slope_new)
     model_new = float(target.predict(at(new))[0])
     corr = {"input": adjust, "current": x0, "suggested": float(new), "change": float(dx), "se": float(u),

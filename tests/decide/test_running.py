@@ -255,3 +255,26 @@ def test_samples_from_a_workbook_are_read_by_the_template(tmp_path):
     wb.save(path)
     _, _, problems = read_samples(path)
     assert [(p.row, p.column) for p in problems] == [(4, "sampled_at")]
+
+
+def test_no_correction_where_the_stage_is_flat_at_the_setting_it_comes_to():
+    """A stage that stops moving with the setting (here porosity = 0.3 − 0.05·min(x, 2)) cannot
+    bring the level to the centre by that setting alone: past x = 2 the derivative is zero, so the
+    law of propagation (JCGM 100:2008, eq. 10: u(Δx) = u(L)/|∂f/∂x|) has no finite value. The
+    guidance then suggests nothing and says why, instead of failing (it raised a ValueError)."""
+    from types import SimpleNamespace
+
+    from linkage.decide.running import _suggested_correction
+
+    class FlatBeyondTwo:
+        def predict(self, columns, raw=False):
+            return 0.3 - 0.05 * np.minimum(np.asarray(columns["roll_gap_mm"], float), 2.0)
+
+    lean = SimpleNamespace(_replicates=SimpleNamespace(available=False, models={}))
+    notes: list[str] = []
+    sens = {"value": -0.05, "se": None}
+    level = {"value": 0.275, "se": 0.002}  # the centre 0.225 needs a fall of 0.05: gap 1.5 → 2.5
+    got = _suggested_correction(lean, FlatBeyondTwo(), {"roll_gap_mm": 1.5}, "roll_gap_mm", 0.05, sens, None,
+                                level, 0.225, 0.225, (1.0, 3.0), notes)
+    assert got is None
+    assert any("no correction is suggested" in n and "roll_gap_mm" in n for n in notes)
