@@ -211,16 +211,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     lo, hi = (float(v) for v in chain.training["ranges"][POROSITY])
     grid = np.linspace(lo, hi, n_grid)
 
-    roots = {k: v for k, v in settings.items() if k not in produced}
-    given = {**roots, POROSITY: 0.0}
-    values, source = fill_settings(chain, given)
-    values.pop(POROSITY)
-    source.pop(POROSITY)
-    frame = pd.DataFrame({**{k: np.full(n_grid, v) for k, v in values.items()}, POROSITY: grid})
-    for k, v in settings.items():  # measured downstream values (e.g. fines_pct) are held too
-        if k in produced:
-            frame[k] = v
-            source[k] = "given"
+    roots, values, source, frame = _scan_frame(chain, settings, produced, grid)
     draws = simulate(chain, frame, n_draws=n_draws, seed=seed)
 
     limited = [a for a in attributes if a in spec.limits]
@@ -275,6 +266,22 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         point_low=point_low.value, point_high=point_high.value, p_all_low_pointwise=p_all_pointwise,
         held_point=held_at,
     )
+
+
+def _scan_frame(chain, settings: dict, produced: set, grid: np.ndarray):
+    """The settings the window holds along its porosity grid: the given root settings, the others
+    held coherently with them (:func:`fill_settings`, porosity aside), and measured downstream values
+    given (e.g. fines_pct) held too. Returns (given roots, held values, their sources, the grid's frame)."""
+    roots = {k: v for k, v in settings.items() if k not in produced}
+    values, source = fill_settings(chain, {**roots, POROSITY: 0.0})
+    values.pop(POROSITY)
+    source.pop(POROSITY)
+    frame = pd.DataFrame({**{k: np.full(len(grid), v) for k, v in values.items()}, POROSITY: grid})
+    for k, v in settings.items():
+        if k in produced:
+            frame[k] = v
+            source[k] = "given"
+    return roots, values, source, frame
 
 
 def _window_attributes(chain, spec) -> tuple[list[str], list[str]]:

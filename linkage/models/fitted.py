@@ -62,7 +62,11 @@ COVERAGE_METHOD = (
     "nested CV+: for each outer fold, a CV+ interval at the nominal level is built from the outer "
     "training lots alone (their inner grouped-CV models and residuals at the hyperparameters tuned "
     "there), and each held-out lot is checked against it; nothing of a held-out lot enters its own "
-    "interval. The choice among candidates used every lot (a small optimism)."
+    "interval. The choice among candidates used every lot (a small optimism). It is the coverage of "
+    "plain CV+ on the selected candidate: where the intervals given are studentized CV+ of the whole "
+    "procedure (interval_method), their own coverage is not checked here (that needs a third level of "
+    "cross-validation); against a known truth, on seeded synthetic campaigns, it is in the project's "
+    "reports/calibration.md."
 )
 
 
