@@ -189,23 +189,21 @@ class FittedTarget:
         if not 0 < level < 1:
             raise ValueError(f"level must lie strictly between 0 and 1; got {level}")
         Xa = _as_matrix(X, self.inputs, f"{self.target} interval")
-        preds = np.vstack([np.asarray(m.predict(Xa), float) for m in self.fold_models_])
         spread = getattr(self, "spread", None)
-        basis = getattr(self, "interval_basis", None)
+        basis = None if spread is not None else getattr(self, "interval_basis", None)
+        # the fold models and residuals of the interval given: the procedure's (studentized CV+) or the
+        # selected candidate's (CV+, locally weighted CV+); each fold model predicts once
+        models, residuals = ((basis["fold_models"], basis["residuals"]) if basis is not None
+                             else (self.fold_models_, self.residuals.to_numpy(float)))
+        preds = np.vstack([np.asarray(m.predict(Xa), float) for m in models])
         if spread is not None:
             x_scale = spread_scale(spread, np.asarray(self.model_.predict(Xa), float))
-            low, high = lw_cv_plus_interval(preds, self.fold_of_, self.residuals.to_numpy(float),
-                                            self.lot_scale(), x_scale, 1 - level)
-        elif basis is not None:
-            preds = np.vstack([np.asarray(m.predict(Xa), float) for m in basis["fold_models"]])
-            if basis["leverage"] is not None:
-                x_scale = leverage_scale(Xa, self.model_.lean_spec(), basis["leverage"])
-                low, high = lw_cv_plus_interval(preds, self.fold_of_, basis["residuals"], basis["lot_scale"],
-                                                x_scale, 1 - level)
-            else:
-                low, high = cv_plus_interval(preds, self.fold_of_, basis["residuals"], 1 - level)
+            low, high = lw_cv_plus_interval(preds, self.fold_of_, residuals, self.lot_scale(), x_scale, 1 - level)
+        elif basis is not None and basis["leverage"] is not None:
+            x_scale = leverage_scale(Xa, self.model_.lean_spec(), basis["leverage"])
+            low, high = lw_cv_plus_interval(preds, self.fold_of_, residuals, basis["lot_scale"], x_scale, 1 - level)
         else:
-            low, high = cv_plus_interval(preds, self.fold_of_, self.residuals.to_numpy(float), 1 - level)
+            low, high = cv_plus_interval(preds, self.fold_of_, residuals, 1 - level)
         return (low, high) if raw else (project(self.target, low)[0], project(self.target, high)[0])
 
     @property

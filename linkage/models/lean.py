@@ -544,22 +544,20 @@ class Target:
         if not 0 < level < 1:
             raise ValueError(f"level must lie strictly between 0 and 1; got {level}")
         X = self.matrix(columns, "interval")
-        preds = np.vstack([np.asarray(m.predict(X), float) for m in self.fold_models_])
-        b = self.interval_
+        b = None if self.spread is not None else self.interval_
+        # the fold models and residuals of the interval given: the procedure's (studentized CV+) or the
+        # selected candidate's (CV+, locally weighted CV+); each fold model predicts once
+        models, residuals = ((b["fold_models"], b["residuals"]) if b is not None
+                             else (self.fold_models_, self.residuals_))
+        preds = np.vstack([np.asarray(m.predict(X), float) for m in models])
         if self.spread is not None:
             x_scale = self.scale(self.model_.predict(X))
-            low, high = lw_cv_plus_interval(preds, self.fold_of_, self.residuals_, self.lot_scale_, x_scale,
-                                            1 - level)
-        elif b is not None:
-            preds = np.vstack([np.asarray(m.predict(X), float) for m in b["fold_models"]])
-            if b["leverage"] is not None:
-                x_scale = leverage_scale(X, self.model_.p, b["leverage"])
-                low, high = lw_cv_plus_interval(preds, self.fold_of_, b["residuals"], b["lot_scale"], x_scale,
-                                                1 - level)
-            else:
-                low, high = cv_plus_interval(preds, self.fold_of_, b["residuals"], 1 - level)
+            low, high = lw_cv_plus_interval(preds, self.fold_of_, residuals, self.lot_scale_, x_scale, 1 - level)
+        elif b is not None and b["leverage"] is not None:
+            x_scale = leverage_scale(X, self.model_.p, b["leverage"])
+            low, high = lw_cv_plus_interval(preds, self.fold_of_, residuals, b["lot_scale"], x_scale, 1 - level)
         else:
-            low, high = cv_plus_interval(preds, self.fold_of_, self.residuals_, 1 - level)
+            low, high = cv_plus_interval(preds, self.fold_of_, residuals, 1 - level)
         return (low, high) if raw else (project(self.target, low)[0], project(self.target, high)[0])
 
     def contributions(self, columns):

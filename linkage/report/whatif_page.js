@@ -324,25 +324,19 @@
     const h = linkWeight(m.link, predictOne(m, x), m.y_max) * q;
     return Math.sqrt(1 + lev.factor * Math.max(h, 0));
   }
+  function lwCvPlus(preds, foldOf, residuals, lotScale, s, alpha) { // conformal.lw_cv_plus_interval at one x
+    const res = residuals.map((r, i) => r / lotScale[i]);
+    const [l, h] = cvPlus(preds.map((p) => p / s), foldOf, res, alpha);
+    return [l * s, h * s];
+  }
   function interval(t, x, level) { // lean.Target.interval, raw
     const alpha = 1 - level;
-    const preds = t.fold_models.map((m) => predictOne(m, x));
-    if (t.spread) {
-      const s = spreadScale(t.spread, predictOne(t.model, x));
-      const res = t.residuals.map((r, i) => r / t.lot_scale[i]);
-      const [l, h] = cvPlus(preds.map((p) => p / s), t.fold_of, res, alpha);
-      return [l * s, h * s];
-    }
-    const b = t.interval; // studentized CV+ of the whole procedure
-    if (b) {
-      const bp = b.fold_models.map((m) => predictOne(m, x));
-      if (!b.leverage) return cvPlus(bp, t.fold_of, b.residuals, alpha);
-      const s = leverageScale(t.model, b.leverage, x);
-      const res = b.residuals.map((r, i) => r / b.lot_scale[i]);
-      const [l, h] = cvPlus(bp.map((p) => p / s), t.fold_of, res, alpha);
-      return [l * s, h * s];
-    }
-    return cvPlus(preds, t.fold_of, t.residuals, alpha);
+    const b = t.spread ? null : t.interval; // studentized CV+ of the whole procedure, where given
+    // the fold models and residuals of the interval given; each fold model predicts once
+    const preds = (b ? b.fold_models : t.fold_models).map((m) => predictOne(m, x));
+    if (t.spread) return lwCvPlus(preds, t.fold_of, t.residuals, t.lot_scale, spreadScale(t.spread, predictOne(t.model, x)), alpha);
+    if (b && b.leverage) return lwCvPlus(preds, t.fold_of, b.residuals, b.lot_scale, leverageScale(t.model, b.leverage, x), alpha);
+    return cvPlus(preds, t.fold_of, b ? b.residuals : t.residuals, alpha);
   }
 
   // ---------------------------------------------------------------- applicability domain
