@@ -412,7 +412,7 @@ def _finish_target(plan: _Plan, fold_results: list[dict], full: dict, table: pd.
         notes.append("intervals are locally weighted CV+: " + interval["reason"])
     basis = None
     if interval["method"] == "CV+":
-        basis = _procedure_basis(plan, fold_results, usable, fold_of, full[selected]["model"])
+        basis = _procedure_basis(plan, fold_results, usable, full[selected]["model"])
     vip = None
     if "pls" in usable:
         vip = {c: float(v) for c, v in zip(plan.inputs, full["pls"]["model"].vip_)}
@@ -487,8 +487,7 @@ def _out_of_fold(plan: _Plan, fold_results: list[dict], usable: list[str], floor
     return oof, results, nested, infinite
 
 
-def _procedure_basis(plan: _Plan, fold_results: list[dict], usable: list[str], fold_of: np.ndarray,
-                     full_model) -> dict:
+def _procedure_basis(plan: _Plan, fold_results: list[dict], usable: list[str], full_model) -> dict:
     """The fold models, residuals and normaliser of studentized CV+ (see
     :data:`linkage.models.fitted.STUDENTIZED_INTERVAL_METHOD`).
 
