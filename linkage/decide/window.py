@@ -216,8 +216,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
 
     limited = [a for a in attributes if a in spec.limits]
     p_all, p_each, mean_ok = _point_scan(chain, spec, draws, grid, attributes, limited, seed)
-    columns = {**{k: np.full(n_grid, v) for k, v in values.items()}, POROSITY: grid,
-               **{k: np.full(n_grid, v) for k, v in settings.items() if k in produced}}
+    columns = {k: frame[k].to_numpy(float) for k in frame.columns}  # the grid's settings, as simulated
     chain_p, p_all_low, p_all_pointwise, p_each_low, band_level = _bound_curves(
         lean, spec, columns, limited, p_all, p_each, confidence, assurance, seed)
     point_low, point_high = _widest(grid, p_all, p_each, confidence)
