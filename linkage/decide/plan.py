@@ -792,8 +792,10 @@ def _thompson_choice(chain, table, spec, window, eps_c, pool, n, confidence, por
     por_edges, _, notes = _edges_of(window)
     cols = {0: e for e in por_edges if e[0].startswith("low ")} | {1: e for e in por_edges
                                                                    if e[0].startswith("high ")}
+    if not cols:  # before the bootstrap curve, the costly part
+        return None
     grid, p_hat, reps, _ = plan_target.probability_curve(chain, spec, window, seed=seed, replicates=True)
-    if reps is None or not cols:
+    if reps is None:
         return None
     edges_b = plan_thompson.replicate_edges(grid, reps, confidence)
     wanted = plan_thompson.targets(edges_b, sorted(cols), n)
