@@ -170,7 +170,7 @@ class SharedMap:
         try:
             if self.fork and self._claims.free(len(self.items)) >= 2:
                 self.start()
-            if self._claims is not None:
+            if self.fork:
                 done.update(claimed_map(self.fn, self._order(), self._claims))
             for child in self._children:  # a child that failed gives back nothing: done below
                 done.update(child.result())
