@@ -44,7 +44,7 @@ import pandas as pd
 from linkage.models.chain import ChainSpec, StageSpec
 from linkage.schema import ASSEMBLED, TABLES
 
-__all__ = ["RULE", "WHERE", "ALPHA", "extra_columns", "with_columns", "with_columns_for", "with_columns_by_target",
+__all__ = ["RULE", "WHERE", "ALPHA", "extra_columns", "with_columns", "with_columns_by_target",
            "paired_test", "compare_columns", "train_with_materials"]
 
 #: family-wise level of the paired test, per attribute (over the columns tried for it)
@@ -106,12 +106,6 @@ def with_columns(chain: ChainSpec, columns: list[str], stages: list[str] | None 
         out.append(StageSpec(st.name, list(st.inputs) + extra, list(st.targets),
                              {t: dict(d) for t, d in st.monotone.items()}))
     return ChainSpec(out, source=chain.source)
-
-
-def with_columns_for(chain: ChainSpec, columns: list[str], targets: list[str]) -> ChainSpec:
-    """The chain in which ``targets`` (and only they) also take ``columns`` as
-    inputs (:func:`with_columns_by_target` with the same columns for each)."""
-    return with_columns_by_target(chain, {t: list(columns) for t in targets})
 
 
 def with_columns_by_target(chain: ChainSpec, kept: dict[str, list[str]]) -> ChainSpec:
