@@ -94,6 +94,14 @@ def assemble(
     known, else by lot. ``table.attrs["notes"]`` lists every value that could
     not be derived, with the lot and the reason.
     """
+    from linkage.read import bulk
+
+    with bulk():  # Python's cyclic collector paused while the per-lot rows are built, as when reading tables
+        return _assemble(tables, fines_cutoff_um, dissolution_time_min, dissolution_q_pct)
+
+
+def _assemble(tables: dict[str, pd.DataFrame], fines_cutoff_um: float, dissolution_time_min: float,
+              dissolution_q_pct: float | None) -> pd.DataFrame:
     if "process" not in tables or tables["process"].empty:
         raise InputError([Problem(file="process", rule="the process table is required and has no rows")])
     process = tables["process"].copy()

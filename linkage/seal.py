@@ -104,13 +104,31 @@ def link(prev_sha256: str, kind: str, ref_id: int, content_sha256: str) -> str:
 
 def rows_sha256(texts) -> str:
     """SHA-256 of a lot table's raw rows as stored (their JSON texts, in order, separated by U+001E)."""
-    return sha256_text("\x1e".join(texts))
+    texts = list(texts)
+    return rows_sha256_spans(texts, [0], [len(texts)])[0]
+
+
+def rows_sha256_spans(texts: list[str], starts, sizes) -> list[str]:
+    """:func:`rows_sha256` of ``texts[a:a + n]`` for each ``a, n`` of ``starts, sizes`` (the definition: the
+    texts joined by U+001E, UTF-8, SHA-256; one text is its own join), for many lot tables at once."""
+    sha256 = hashlib.sha256
+    return [sha256(texts[a].encode("utf-8") if n == 1 else "\x1e".join(texts[a:a + n]).encode("utf-8")).hexdigest()
+            for a, n in zip(starts, sizes)]
 
 
 def source_rows_sha256(source_rows) -> str:
     """SHA-256 of a lot table's spreadsheet row numbers, in order: of their :func:`canonical` JSON list, written
     out here (an int's JSON is its decimal text, None's is null), which is faster per lot table."""
-    return sha256_text("[" + ",".join(["null" if r is None else str(int(r)) for r in source_rows]) + "]")
+    source_rows = list(source_rows)
+    return source_rows_sha256_spans(source_rows, [0], [len(source_rows)])[0]
+
+
+def source_rows_sha256_spans(source_rows: list, starts, sizes) -> list[str]:
+    """:func:`source_rows_sha256` of ``source_rows[a:a + n]`` for each ``a, n`` of ``starts, sizes``."""
+    numbers = ["null" if r is None else str(int(r)) for r in source_rows]
+    sha256 = hashlib.sha256
+    return [sha256(("[" + ",".join(numbers[a:a + n]) + "]").encode("utf-8")).hexdigest()
+            for a, n in zip(starts, sizes)]
 
 
 # --------------------------------------------------------------------------- record contents (read from the store)

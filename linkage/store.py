@@ -104,18 +104,6 @@ _ROW_BLOCKS_DDL = """CREATE TABLE row_blocks (
     PRIMARY KEY (ingest_id, tbl)
 )"""
 
-_DDL = """-- schema 3: the raw rows one ingest wrote for one table, in one record: each row's JSON text (as raw_rows
--- held it, one row per line), in the order of their lot tables' ids and then as the file had them; the lot
--- tables' n_rows tell which lines are whose. Stores written before keep their rows in raw_rows.
-CREATE TABLE row_blocks (
-    ingest_id INTEGER NOT NULL REFERENCES ingests(id),
-    tbl TEXT NOT NULL,
-    n_rows INTEGER NOT NULL,
-    source_rows_json TEXT NOT NULL,
-    rows_text TEXT NOT NULL,
-    PRIMARY KEY (ingest_id, tbl)
-)"""
-
 _DDL = """
 CREATE TABLE schema_version (version INTEGER NOT NULL, applied_at TEXT NOT NULL);
 CREATE TABLE ingests (
@@ -677,9 +665,7 @@ class LotStore:
                       [(tid, lot, tname, ingest_id, src["file"], src["sha256"], lt.sha256, lt.columns_json,
                         len(lt.rows), lt.n_filled) for tid, lot, tname, lt, src in batch])
         c.executemany("INSERT INTO lot_table_hashes VALUES (?, ?, ?)",
-                      [(tid, lt.rows_sha256 or _seal.rows_sha256(lt.rows),
-                        lt.source_rows_sha256 or _seal.source_rows_sha256(lt.source_rows))
-                       for tid, _, _, lt, _ in batch])
+                      [(tid, lt.rows_sha256, lt.source_rows_sha256) for tid, _, _, lt, _ in batch])
 
     @staticmethod
     def _current_links(c, lots: list[str]) -> dict[str, dict]:
@@ -760,10 +746,8 @@ class LotStore:
             raise StoreIntegrityError(f"lot store {self.path} is damaged: lot table {int(link_tid[k])} should have "
                                       f"{int(n_rows[k])} raw rows and has {int(counts[k])}")
         stored, texts = texts, texts.tolist()  # slices of a list cost less than of an object array
-        sha256 = hashlib.sha256
-        changed = [(link[5], link[0], link[1]) for link, start, size in zip(links, starts.tolist(), counts.tolist())
-                   if (sha256(texts[start].encode()) if size == 1 else  # rows_sha256 of one row: its text
-                       sha256("\x1e".join(texts[start:start + size]).encode())).hexdigest() != link[4]]
+        digests = _seal.rows_sha256_spans(texts, starts.tolist(), counts.tolist())
+        changed = [(link[5], link[0], link[1]) for link, digest in zip(links, digests) if digest != link[4]]
         if changed:
             shown = "; ".join(f"lot {lot}, table {tbl} (lot table {tid})" for lot, tbl, tid in changed[:10])
             raise StoreIntegrityError(f"lot store {self.path} failed its integrity check: raw rows changed after "
@@ -969,8 +953,7 @@ def _ingest_sha256(head: list, files: list, lots: list, written: list, revisions
 
     none = type(None)
     lot_tables = [(tid, lot, tname, src["file"], src["sha256"], lt.sha256, lt.columns_json, len(lt.rows), lt.n_filled,
-                   lt.rows_sha256 or _seal.rows_sha256(lt.rows),
-                   lt.source_rows_sha256 or _seal.source_rows_sha256(lt.source_rows))
+                   lt.rows_sha256, lt.source_rows_sha256)
                   for tid, lot, tname, lt, src in written]
     revision_rows = [(rid, lot, number, product) for rid, lot, number, _, product in revisions]
     columns = list(zip(*lot_tables)) or [()] * 11

@@ -85,7 +85,7 @@ class LotTable:
     sha256: str
     n_filled: int
     columns_json: str = ""  # _json(columns), written once per table
-    rows_sha256: str = ""  # linkage.seal.rows_sha256(rows), computed with the rows
+    rows_sha256: str = ""  # linkage.seal.rows_sha256(rows), computed with the rows (encode_table)
     source_rows_sha256: str = ""  # linkage.seal.source_rows_sha256(source_rows), likewise
 
 
@@ -241,20 +241,17 @@ def _per_lot(tname: str, columns: list[str], codes: np.ndarray, lots: list, row_
         order = order.tolist()
         row_json, source_rows = [row_json[k] for k in order], [source_rows[k] for k in order]
     sha256 = hashlib.sha256
-    # the seal's hashes of each lot's rows and row numbers (linkage.seal.rows_sha256 and source_rows_sha256,
-    # the same texts written out here from pieces made once: an int's JSON is its decimal text)
-    numbers = list(map(str, source_rows))
+    starts, sizes = bounds[:-1], np.diff(bounds).tolist()
+    # the seal's hashes of each lot's rows and row numbers (linkage.seal's definitions, for every lot at once)
+    row_digests = _seal.rows_sha256_spans(row_json, starts, sizes)
+    source_digests = _seal.source_rows_sha256_spans(source_rows, starts, sizes)
     if len(lots) == n:  # one row a lot
         digests = [sha256(("[" + h + "]").encode()).hexdigest() for h in hash_json]
-        row_digests = [sha256(t.encode()).hexdigest() for t in row_json]
-        source_digests = [sha256(("[" + t + "]").encode()).hexdigest() for t in numbers]
         return {lot: LotTable([row_json[j]], [source_rows[j]], columns, digests[j], per_lot_filled[j],
                               rows_sha256=row_digests[j], source_rows_sha256=source_digests[j])
                 for j, lot in enumerate(lots)}
     spans = list(zip(bounds, bounds[1:]))
     digests = [sha256(("[" + ", ".join(hash_json[a:b]) + "]").encode()).hexdigest() for a, b in spans]
-    row_digests = [sha256("\x1e".join(row_json[a:b]).encode()).hexdigest() for a, b in spans]
-    source_digests = [sha256(("[" + ",".join(numbers[a:b]) + "]").encode()).hexdigest() for a, b in spans]
     return {lot: LotTable(row_json[a:b], source_rows[a:b], columns, digest, filled_j, rows_sha256=row_digest,
                           source_rows_sha256=source_digest)
             for lot, (a, b), digest, filled_j, row_digest, source_digest
