@@ -33,7 +33,7 @@ from linkage.read import read_folder
 from linkage.store import LotStore, _ingest_sha256
 from linkage.store_rows import encode_table, read_row_texts
 from linkage.synthetic import make_lots
-from tests.test_store_bulk import _cell_by_cell
+from tests.test_store_bulk import _assert_same_encoding, _cell_by_cell
 
 
 def _reference_rows(table: str, df: pd.DataFrame) -> dict[str, dict]:
@@ -176,3 +176,53 @@ def test_the_first_pass_of_the_plausibility_rule_is_the_lookup_value_by_value(se
         (d > min(plausible.Z_ANY, plausible.Z_EXPLAINED) * s - plausible._SLACK)
     assert got.tolist() == expected.tolist()
     assert expected.any() and not expected.all()
+
+
+def test_row_hashes_of_many_lot_tables_at_once_are_the_documented_ones():
+    """linkage.seal.rows_sha256_spans and source_rows_sha256_spans, the one definition that the seal, the
+    encoder's per-lot hashes and the read-back check all use, against SHA-256 written out here through
+    hashlib on the documented texts (rows joined by U+001E; the row numbers as ``json.dumps`` without
+    spaces, RFC 8259), span by span: empty, one row, many rows, text outside ASCII, empty texts."""
+    # FIPS 180-4 (NIST 2015), the SHA-256 example "abc" (its appendix of examples; the digest from memory):
+    # one row is hashed as its own text
+    assert seal.rows_sha256(["abc"]) == "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
+    rng = np.random.default_rng(20)
+    alphabet = ["a", "é", "日本", "\"", "\\", "\u2028", " ", "{", "1.5"]
+    texts = ["".join(rng.choice(alphabet, size=int(rng.integers(0, 6)))) for _ in range(300)]
+    sizes = rng.integers(0, 5, size=120).tolist()
+    starts = np.concatenate([[0], np.cumsum(sizes)[:-1]]).tolist()
+    assert starts[-1] + sizes[-1] <= len(texts)
+    got = seal.rows_sha256_spans(texts, starts, sizes)
+    expected = [hashlib.sha256("\x1e".join(texts[a:a + n]).encode("utf-8")).hexdigest()
+                for a, n in zip(starts, sizes)]
+    assert got == expected
+    assert got == [seal.rows_sha256(texts[a:a + n]) for a, n in zip(starts, sizes)]
+    numbers = [None if k % 7 == 0 else int(k) for k in rng.integers(2, 10 ** 6, size=300).tolist()]
+    got = seal.source_rows_sha256_spans(numbers, starts, sizes)
+    expected = [hashlib.sha256(json.dumps(numbers[a:a + n], separators=(",", ":")).encode("utf-8")).hexdigest()
+                for a, n in zip(starts, sizes)]
+    assert got == expected
+
+
+def test_named_edge_values_are_written_as_json_dumps_writes_them():
+    """0.1 + 0.2, 1e-7, -0.0, 5e-324, 2**53 + 1, missing numbers (NaN: left out of the row), text outside ASCII,
+    big integers in an extra column: the stored rows and both hashes as the reference (json.dumps row by
+    row); an infinite number is refused as json.dumps(allow_nan=False) refuses it (ValueError)."""
+    values = [0.1 + 0.2, 1e-7, -0.0, 5e-324, float(2 ** 53 + 1), math.nan, 1e22, 123456789.12345679]
+    n = len(values)
+    df = pd.DataFrame({
+        "lot": ["L1", "L1", "L2", "é-3", "L2", "L1", "é-3", "L2"],
+        "compression_force_kn": values,
+        "breaking_force_n": values[::-1],
+        "note": pd.Series(["Öl – 5 µm", "“quoted”", None, "x\\y", "日本", "\u2028", "", "1e-7"], dtype=object),
+        "big": pd.Series([2 ** 70, -(2 ** 64), 10 ** 30, None, 0, 7, 2 ** 53 + 1, 1], dtype=object),
+    })
+    df.attrs["source_rows"] = list(range(2, n + 2))
+    _assert_hashes_as_documented("tablets", df)
+    for frame in (df, df.iloc[::-1].reset_index(drop=True)):
+        _assert_same_encoding("tablets", frame)
+    infinite = df.assign(compression_force_kn=[math.inf] + values[1:])
+    with pytest.raises(ValueError):
+        json.dumps(math.inf, allow_nan=False)
+    with pytest.raises(ValueError):
+        encode_table("tablets", infinite)
