@@ -11,7 +11,10 @@ What was made faster, and the reference each is compared with here (outside the 
   ``linkage verify`` recomputes);
 - reading a few lot tables out of a large row_blocks record (the plausibility rule's history): against
   ``str.split`` of the whole record;
-- the plausibility rule's vectorised first pass: against the lookup written value by value.
+- the plausibility rule's vectorised first pass: against the lookup written value by value;
+- the row hash and row-number hash of many lot tables at once (``linkage.seal.rows_sha256_spans``,
+  ``source_rows_sha256_spans``, the one definition the seal, the encoder and the read-back check share):
+  against hashlib's SHA-256 of the documented texts, span by span.
 """
 
 from __future__ import annotations
