@@ -578,8 +578,18 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     simulation = dict(runs=mewma.RUNS, runs_estimated=mewma.RUNS_ESTIMATED, seed=mewma.SEED)
     designs = _reuse(models_dir, chain.model_id, "mewma", None, **simulation)
     mewma.remember(designs.result if designs is not None else [])
+    figures_key = None
+    if model is None or isinstance(model, str):  # a model of the registry: its figures may be kept (issue 20)
+        # the window and the map are what these arguments give (computed here, or kept under the same arguments);
+        # a window handed in is hashed itself
+        figures_key = _figures_key(models_dir, chain.model_id, spec, table, lots, given_window=window is not None,
+                                   window=found, confidence=confidence, seed=seed, assurance=assurance,
+                                   curve_draws=400, mewma=simulation, plan=plan,
+                                   window_args=window_args if spec is not None else None,
+                                   space_args=space_args if spec is not None else None)
+    kept_figures = _reuse_key(models_dir, chain.model_id, "figures", figures_key)
     rendered = render_report(chain, table, spec=spec, window=found, lots=lots, confidence=confidence, seed=seed,
-                             assurance=assurance, plan=plan, space=space, reused=reused)
+                             assurance=assurance, plan=plan, space=space, reused=reused, kept_figures=kept_figures)
     if "mewma" in rendered.computed:
         _keep(models_dir, chain.model_id, "mewma", None,
               (designs.result if designs is not None else []) + rendered.computed["mewma"], "linkage report",
@@ -589,7 +599,29 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
               **window_args)
     if "space" in rendered.computed:
         _keep(models_dir, chain.model_id, "space", spec, rendered.computed["space"], "linkage report", **space_args)
+    if "figures" in rendered.computed and figures_key is not None:
+        from linkage.models.reuse import save_result
+
+        save_result(models_dir, chain.model_id, "figures", figures_key, rendered.computed["figures"], "linkage report")
     return Path(write_report(rendered, out))
+
+
+def _figures_key(models_dir, model_id, spec, table, lots, *, given_window: bool, window, window_args, space_args,
+                 **settings) -> str | None:
+    """The key the report's figures are kept under (:mod:`linkage.report.kept`): the window and the map
+    enter by the arguments they are computed (or kept) with, a window handed in by its own content."""
+    from linkage.report import kept
+
+    how_window = kept.result_sha256(window) if given_window and window is not None else window_args
+    return kept.figures_key(models_dir, model_id, spec, table=table, lots=lots, window=how_window,
+                            space=space_args, **settings)
+
+
+def _reuse_key(models_dir, model_id, kind: str, key: str | None):
+    """A result stored under ``key`` (:mod:`linkage.models.reuse`), or None."""
+    from linkage.models.reuse import load_result
+
+    return None if key is None else load_result(models_dir, model_id, kind, key)
 
 
 def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", spec=None,

@@ -567,6 +567,14 @@ def record_result(models_dir, model_id: str, name: str, data: bytes) -> None:
         _write_index(models_dir, index)
 
 
+def recorded_artifact_sha256(models_dir, model_id: str) -> str | None:
+    """The SHA-256 of ``model_id``'s artifact as the registry index recorded it when the model was saved,
+    or None (no such model in the index). Reads the index only: the artifact is not read or hashed
+    again (:func:`load` and :func:`verify` check the artifact against this record)."""
+    entry = _read_index(Path(models_dir))["models"].get(model_id)
+    return entry.get("artifact_sha256") if isinstance(entry, dict) else None
+
+
 def result_intact(models_dir, model_id: str, name: str, data: bytes) -> bool:
     """Whether ``data`` are the bytes of a result file whose SHA-256 the index recorded (:func:`record_result`)."""
     entry = _read_index(Path(models_dir))["models"].get(model_id) or {}

@@ -72,18 +72,23 @@ class Reused:
 
 
 def _model_sha256(models_dir, model_id: str) -> str | None:
-    from linkage.models.registry import verify
+    """The artifact's SHA-256 as the registry index records it. The model's
+    bytes are not hashed again here: every command that computes a result
+    loads the model first, and the load checks the artifact against this
+    same record (:func:`linkage.models.registry.load`), so a changed artifact
+    never gets this far; re-reading it for each key cost a report up to six
+    hashes of the artifact and its metadata (issue 20)."""
+    from linkage.models.registry import recorded_artifact_sha256
 
     try:
-        meta, _ = verify(models_dir, model_id)
-    except Exception:  # noqa: BLE001 - an unverifiable model gets no stored results at all
+        return recorded_artifact_sha256(models_dir, model_id)
+    except Exception:  # noqa: BLE001 - an unreadable index gives no stored results at all
         return None
-    return meta.get("artifact_sha256")
 
 
 def result_key(kind: str, models_dir, model_id: str | None, spec, **arguments) -> str | None:
     """The SHA-256 naming a result: see the module notes. None when the model
-    is not a verified model of the registry (then nothing is stored or reused)."""
+    is not in the registry index (then nothing is stored or reused)."""
     from linkage import __version__
 
     if not model_id or models_dir is None:

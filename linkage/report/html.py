@@ -93,8 +93,10 @@ class Report:
     figures: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
     #: what the report computed itself that a later report can reuse ("window", "space": the results;
-    #: "mewma": the drift watch's designs, simulated)
+    #: "mewma": the drift watch's designs, simulated; "figures": the figures drawn, when some were)
     computed: dict = field(default_factory=dict)
+    #: how many figures were taken from an earlier report's (:mod:`linkage.report.kept`) instead of drawn
+    n_reused_figures: int = 0
 
     @property
     def n_figures(self) -> int:
@@ -182,9 +184,15 @@ _SLOT_RE = re.compile("\x00figure-[0-9]+\x00")
 
 
 class _Builder:
-    def __init__(self, parallel: bool = True):
+    def __init__(self, parallel: bool = True, kept_figures: dict | None = None):
         self.parts: list[str] = []
         self.figures: list[str] = []
+        #: each figure's PNG data URI once known (drawn, or kept from an earlier report)
+        self.uris: list[str | None] = []
+        #: figures an earlier report drew for the same key (:mod:`linkage.report.kept`): captions, data URIs
+        kept = kept_figures or {}
+        self._kept = list(zip(kept.get("captions") or [], kept.get("uris") or []))
+        self.n_reused = 0
         self.notes: list[str] = []
         self.toc: list[tuple[str, str]] = []
         #: section anchor -> the sentence saying which of its results was reused rather than computed
@@ -218,14 +226,19 @@ class _Builder:
         panels that figure has (about what it costs)."""
         from linkage.report.background import SharedMap
 
-        if self._drawing is None:
-            self._drawing = SharedMap(_drawn, fork=self.parallel)
-        if not callable(fig_or_ax):
-            fig_or_ax = getattr(fig_or_ax, "figure", fig_or_ax)
-            panels = len(fig_or_ax.axes)
+        n = len(self.figures) + 1
         self.figures.append(caption)
-        self._drawing.add(fig_or_ax, cost=panels)
-        n = len(self.figures)
+        if n <= len(self._kept) and self._kept[n - 1][0] == caption:  # kept for this key: not made or drawn
+            self.uris.append(self._kept[n - 1][1])
+            self.n_reused += 1
+        else:
+            if self._drawing is None:
+                self._drawing = SharedMap(_drawn, fork=self.parallel)
+            if not callable(fig_or_ax):
+                fig_or_ax = getattr(fig_or_ax, "figure", fig_or_ax)
+                panels = len(fig_or_ax.axes)
+            self.uris.append(None)
+            self._drawing.add((n, fig_or_ax), cost=panels)
         self.parts.append(_part("blocks", "figure", n=n, src=Markup(_FIGURE_SLOT.format(n)), alt=alt or caption,
                                 caption=caption))
 
@@ -239,9 +252,11 @@ class _Builder:
         """Every figure to a PNG ``data:`` URI in its place: this process and the children of
         :meth:`draw_early` (and one more) each take the next figure nobody has taken, costliest
         first, until none is left (the same bytes wherever a figure is drawn)."""
-        uris = self._drawing.finish() if self._drawing is not None else []
+        drawn = self._drawing.finish() if self._drawing is not None else []
         self._drawing = None
-        slots = {_FIGURE_SLOT.format(i + 1): uri for i, uri in enumerate(uris)}
+        for n, uri in drawn:
+            self.uris[n - 1] = uri
+        slots = {_FIGURE_SLOT.format(i + 1): uri for i, uri in enumerate(self.uris)}
         self.parts = [_SLOT_RE.sub(lambda m: slots[m.group(0)], part) if "\x00" in part else part
                       for part in self.parts]
 
@@ -252,11 +267,12 @@ class _Builder:
         self._drawing = None
 
 
-def _drawn(fig_or_maker) -> str:
-    """A figure, or what a figure-making function makes, as a PNG ``data:`` URI."""
+def _drawn(numbered) -> tuple[int, str]:
+    """(n, a figure or what a figure-making function makes as a PNG ``data:`` URI) of figure n."""
     from linkage.report.figures import png_data_uri
 
-    return png_data_uri(fig_or_maker() if callable(fig_or_maker) else fig_or_maker)
+    n, fig_or_maker = numbered
+    return n, png_data_uri(fig_or_maker() if callable(fig_or_maker) else fig_or_maker)
 
 
 # ----------------------------------------------------------------- entry points
@@ -282,7 +298,7 @@ def write_report(report: Report, out_path) -> Path:
 def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd.DataFrame | None = None,
                   confidence: float = 0.9, seed: int = 0, curve_draws: int = 400,
                   assurance: float = 0.9, plan=None, space=None, reused: dict[str, str] | None = None,
-                  parallel: bool = True) -> Report:
+                  parallel: bool = True, kept_figures=None) -> Report:
     """Build the report of a fitted chain.
 
     Parameters
@@ -308,6 +324,12 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         :mod:`linkage.report.background`).
     reused : section anchor -> a sentence saying that a result of that
         section was reused from an earlier command, shown under its heading.
+    kept_figures : the figures an earlier report drew with the same inputs
+        (a :class:`linkage.models.reuse.Reused` of kind "figures",
+        :mod:`linkage.report.kept`): a figure whose caption is the one kept
+        at its place is taken as kept instead of made and drawn, and the
+        report says so under its title. The figures drawn here are returned
+        in ``computed["figures"]`` to be kept for the next report.
     """
     from linkage.timepoint import check_time_point
 
@@ -315,7 +337,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     from linkage.decide.watch import watch
     from linkage.report.background import Background
 
-    b = _Builder(parallel)
+    b = _Builder(parallel, kept_figures.result if kept_figures is not None else None)
     b.reused.update(reused or {})
     table = table.copy()
     table["lot"] = table["lot"].astype(str)
@@ -335,7 +357,14 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         b.close()
         for job in pending.values():
             job.close()
-    return Report(html=_page(b, chain), figures=list(b.figures), notes=list(b.notes), computed=computed)
+    if b.n_reused:
+        from linkage.report.kept import sentence
+
+        b.reused["figures"] = sentence(kept_figures.made_by, kept_figures.made_at, b.n_reused, len(b.figures))
+    if b.n_reused < len(b.figures):  # some were drawn here: kept for the next report with these inputs
+        computed["figures"] = {"captions": list(b.figures), "uris": list(b.uris)}
+    return Report(html=_page(b, chain), figures=list(b.figures), notes=list(b.notes), computed=computed,
+                  n_reused_figures=b.n_reused)
 
 
 def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
@@ -404,6 +433,7 @@ def _page(b: _Builder, chain) -> str:
     return str(render("page.html.j2", n_figures=len(b.figures), model_id=chain.model_id or "unsaved",
                       created_at=chain.created_at, made=datetime.now(timezone.utc).isoformat(timespec="seconds"),
                       version=__version__, caution=CAUTION, toc=b.toc, style=Markup(SHEET_STYLE + EXTRA_STYLE),
+                      figures_reused=b.reused.get("figures"),
                       body=Markup("".join(b.parts)))) + "\n"
 
 
@@ -562,7 +592,8 @@ def _data_section(b, chain, table, lots):
             ["mean filled cells of those lots [%]"] if lots is not None else [])
         b.add(table_html(header, rows, num_cols={1, 2, 3}))
         b.add(_part("blocks", "para", text=f"From {source}.", cls="small"))
-        b.figure(F.plot_completeness(present), "Tables present per lot (blue) and missing (grey), lots in time order.")
+        b.figure(partial(F.plot_completeness, present),
+                 "Tables present per lot (blue) and missing (grey), lots in time order.")
 
     b.add(_part("blocks", "h3", text="Ranges"))
     b.add(table_html(["column", "unit", "lots with a value", "min", "median", "max"], _ranges(table),
@@ -652,11 +683,12 @@ def _ribbon_section(b, chain, table, limits):
             curves[g] = (grid, np.asarray(target.predict(x), float))
         if model is not None and held:
             held, held_coherent = {}, True
-    ax = F.plot_ribbon_fit(force, t[POROSITY].to_numpy(float), shown_gap, curves, limit=limits.get(POROSITY))
+    make = partial(F.plot_ribbon_fit, force, t[POROSITY].to_numpy(float), shown_gap, curves,
+                   limit=limits.get(POROSITY))  # made where it is drawn, and not at all when kept
     held_text = ", ".join(f"{c} = {v:.4g}" for c, v in held.items())
     binned = "" if len(levels) == len(np.unique(gap[np.isfinite(gap)])) else \
         " Gaps are binned to the nearest of the levels shown."
-    b.figure(ax, f"Ribbon porosity of each lot against specific roll force, by roll gap; lines: the selected "
+    b.figure(make, f"Ribbon porosity of each lot against specific roll force, by roll gap; lines: the selected "
                  f"{target.selected} model of the ribbon stage at each gap"
                  + (f", other settings at their training medians ({held_text})" if held_text else "")
                  + ("" if not held_coherent else
@@ -995,10 +1027,10 @@ def _window_figures(b, spec, w):
     from linkage.report import figures as F
 
     every = _every(w)
-    b.figure(F.plot_window_probability(w.grid, w.p_all, w.p_each, confidence=w.confidence, low=w.low.value,
-                                       high=w.high.value, mean_low=w.mean_low, mean_high=w.mean_high,
-                                       p_all_low=w.p_all_low, assurance=w.assurance,
-                                       p_all_low_pointwise=getattr(w, "p_all_low_pointwise", None)),
+    b.figure(partial(F.plot_window_probability, w.grid, w.p_all, w.p_each, confidence=w.confidence,
+                     low=w.low.value, high=w.high.value, mean_low=w.mean_low, mean_high=w.mean_high,
+                     p_all_low=w.p_all_low, assurance=w.assurance,
+                     p_all_low_pointwise=getattr(w, "p_all_low_pointwise", None)),
              f"Probability that a lot meets {every} together (thick: point estimate solid, lower bound "
              f"at {w.assurance:.0%} assurance over the whole window dashed; thin dash-dot: the same bound for "
              f"one porosity alone) and each one (thin, point estimates) against "
@@ -1048,9 +1080,9 @@ def _roll_force(b, table, w):
     if curve:
         t = _by_lot(table)
         obs = (t[FORCE], t[POROSITY]) if FORCE in t.columns and POROSITY in t.columns else None
-        b.figure(F.plot_roll_force(curve["roll_force_kn_per_cm"], curve["porosity_mean"], curve["p_in_window"],
-                                   low=w.low.value, high=w.high.value, force_low=rf.get("low"),
-                                   force_high=rf.get("high"), confidence=w.confidence, observed=obs),
+        b.figure(partial(F.plot_roll_force, curve["roll_force_kn_per_cm"], curve["porosity_mean"],
+                         curve["p_in_window"], low=w.low.value, high=w.high.value, force_low=rf.get("low"),
+                         force_high=rf.get("high"), confidence=w.confidence, observed=obs),
                  "Predicted lot-mean ribbon porosity against roll force (other settings held as stated), the "
                  "porosity window (green band), the roll force range where a lot meets every specification with the "
                  "stated probability through the whole chain (orange band; lower bound where the model has one) and "
@@ -1087,15 +1119,18 @@ def _watch_section(b, chain, table, window, result):
     if "values" in pb:
         flagged = [lot in pb["flags"] for lot in pb["lots"]]
         new = [lot in set(result.new_lots) for lot in pb["lots"]]
-        ax = F.plot_control_chart(pb["lots"], pb["values"], centre=pb["centre"], limits=tuple(pb["limits"]),
-                                  name="ribbon_porosity", ewma=pb["ewma"], new=new, flagged=flagged,
-                                  ewma_low=np.full(len(pb["values"]), np.nan),
-                                  ewma_high=np.full(len(pb["values"]), np.nan))
-        if window is not None and window.found:
-            ax.axhspan(window.low.value, window.high.value, color=F.GREEN, alpha=0.12, linewidth=0,
-                       label="porosity window")
-            ax.legend(fontsize=6, loc="best", framealpha=0.8)
-        b.figure(ax, "Lot-mean ribbon porosity in time order against the training lots' mean ± 3 SD, with the "
+        def make_between():
+            ax = F.plot_control_chart(pb["lots"], pb["values"], centre=pb["centre"], limits=tuple(pb["limits"]),
+                                      name="ribbon_porosity", ewma=pb["ewma"], new=new, flagged=flagged,
+                                      ewma_low=np.full(len(pb["values"]), np.nan),
+                                      ewma_high=np.full(len(pb["values"]), np.nan))
+            if window is not None and window.found:
+                ax.axhspan(window.low.value, window.high.value, color=F.GREEN, alpha=0.12, linewidth=0,
+                           label="porosity window")
+                ax.legend(fontsize=6, loc="best", framealpha=0.8)
+            return ax
+
+        b.figure(make_between, "Lot-mean ribbon porosity in time order against the training lots' mean ± 3 SD, with the "
                      "porosity window shaded where one was found.")
     else:
         b.note(f"Lot-mean porosity chart not drawn: {pb.get('reason', 'no porosity values')}.")

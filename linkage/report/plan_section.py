@@ -5,6 +5,7 @@ gap with the training lots, and a table of what each lot is for
 from __future__ import annotations
 
 import json
+from functools import partial
 from pathlib import Path
 
 import numpy as np
@@ -74,9 +75,9 @@ def plan_section(b, chain, table, plan: dict) -> None:
     have = [c for c in (FORCE, GAP) if c in table.columns]
     planned = [x["settings"] for x in lots]
     if len(have) == 2 and lots and all(FORCE in s and GAP in s for s in planned):
-        ax = plot_plan_map(table[FORCE], table[GAP], [s[FORCE] for s in planned], [s[GAP] for s in planned],
-                           [x.get("run", i + 1) for i, x in enumerate(lots)])
-        b.figure(ax, "Planned lots (crosses, labelled with their run number) and the training lots (dots) over "
+        make = partial(plot_plan_map, table[FORCE], table[GAP], [s[FORCE] for s in planned],
+                       [s[GAP] for s in planned], [x.get("run", i + 1) for i, x in enumerate(lots)])
+        b.figure(make, "Planned lots (crosses, labelled with their run number) and the training lots (dots) over "
                      "specific roll force and roll gap.")
     else:
         b.note("The plan or the lots lack roll force or roll gap, so the plan cannot be drawn over them.")

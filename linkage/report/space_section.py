@@ -6,6 +6,8 @@ Compute first (:func:`linkage.decide.space.design_space`), then draw
 
 from __future__ import annotations
 
+from functools import partial
+
 import numpy as np
 
 from linkage import CAUTION
@@ -95,9 +97,9 @@ def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: 
         return
     lots_x = table[FORCE] if FORCE in table.columns else None
     lots_y = table[GAP] if GAP in table.columns else None
-    ax = plot_space(r, lots_x, lots_y)
+    make = partial(plot_space, r, lots_x, lots_y)  # made where it is drawn, and not at all when kept
     what = "lower bound" if r.p_all_low is not None else "point estimate"
-    b.figure(ax, f"The {what} of the probability that a lot meets every specification at once "
+    b.figure(make, f"The {what} of the probability that a lot meets every specification at once "
                  f"({', '.join(r.attributes)}, lot means) over specific roll force and roll gap, through the whole "
                  f"chain; other settings held coherently at each point ({r.held_rule}). Solid line: the {what} "
                  f"reaches {r.confidence:.0%}"

@@ -63,18 +63,22 @@ def transfer_section(b, table, window=None, *, seed: int = 0) -> None:
     b.add(_part("sections", "transfer_fit", physics=physics, d=physics.to_dict()))
 
     t = table.dropna(subset=[_FORCE, _GAP, _DIAMETER, _POROSITY])
-    ax = F.new_axes(panel=(5.0, 3.2))
     groups = t["compactor"].astype(str).to_numpy() if "compactor" in t.columns else None
-    F._scatter_groups(ax, t[_FORCE], t[_POROSITY], groups, legend_title="compactor")
     gap = float(np.nanmedian(t[_GAP]))
-    grid = np.linspace(float(t[_FORCE].min()) * 0.8, float(t[_FORCE].max()) * 1.2, 80)
-    styles = F.group_styles(sorted(set(groups))) if groups is not None else {}
-    for name, c in physics.compactors.items():
-        colour = styles.get(name, ("black", "o"))[0]
-        ax.plot(grid, physics.porosity(grid, gap, c["roll_diameter_mm"]), color=colour, lw=1.2)
-    ax.set_xlabel(F.axis_label(_FORCE))
-    ax.set_ylabel(F.axis_label(_POROSITY))
-    b.figure(ax, f"Ribbon porosity of each lot against specific roll force, by compactor; lines: the fitted "
+
+    def make():  # made where it is drawn, and not at all when kept (issue 20)
+        ax = F.new_axes(panel=(5.0, 3.2))
+        F._scatter_groups(ax, t[_FORCE], t[_POROSITY], groups, legend_title="compactor")
+        grid = np.linspace(float(t[_FORCE].min()) * 0.8, float(t[_FORCE].max()) * 1.2, 80)
+        styles = F.group_styles(sorted(set(groups))) if groups is not None else {}
+        for name, c in physics.compactors.items():
+            colour = styles.get(name, ("black", "o"))[0]
+            ax.plot(grid, physics.porosity(grid, gap, c["roll_diameter_mm"]), color=colour, lw=1.2)
+        ax.set_xlabel(F.axis_label(_FORCE))
+        ax.set_ylabel(F.axis_label(_POROSITY))
+        return ax
+
+    b.figure(make, f"Ribbon porosity of each lot against specific roll force, by compactor; lines: the fitted "
                  f"Johanson model on each compactor's rolls at the median gap {gap:.3g} mm (lots at other gaps "
                  f"scatter about them).")
 
