@@ -50,6 +50,9 @@ def test_reusing_the_window_and_the_map_changes_nothing_but_says_so(demo):
     render_demo(folder, outputs, "first.html")  # stores what it computed (or finds what the demo stored)
     html_text = render_demo(folder, outputs, "warm.html")
     said = reused(html_text)
+    # the figures, kept by the first render (issue 20), are said to be reused under the report's title
+    figures_said = said.pop("head")
+    assert len(figures_said) == 1 and figures_said[0].startswith("Reused, not drawn again: all 28 figures")
     assert set(said) == {"window", "space"}
     assert all(len(v) == 1 and v[0].startswith("Reused, not recomputed") for v in said.values())
     _same_as_stored(html_text)
@@ -84,3 +87,124 @@ def test_the_normalising_replaces_only_what_varies_between_runs():
     assert normalise(text) == ("Model <model id> trained <time>, SHA-256 <sha256> of <path>/demo-lots.db; "
                                "window 0.209 – 0.434; numpy <version>, scikit-learn <version>, "
                                "scipy <version> seed 0")
+
+
+# ---------------------------------------------------------------- the figures kept beside the model (issue 20)
+
+def _pngs(html_text: str) -> list[str]:
+    """SHA-256 (hashlib, FIPS 180-4) of each embedded figure's PNG bytes, in order."""
+    import base64
+    import hashlib
+    import re
+
+    return [hashlib.sha256(base64.b64decode(m)).hexdigest()
+            for m in re.findall(r'src="data:image/png;base64,([^"]+)"', html_text)]
+
+
+def _figures_files(outputs):
+    return sorted((outputs.models_dir / outputs.model_id / "results").glob("figures-*.npz"))
+
+
+def test_kept_figures_are_the_drawn_ones_byte_for_byte_and_recorded_by_their_sha256(demo):
+    """A report drawn afresh keeps its figures; the next report takes them instead of drawing, and its PNGs
+    are the drawn ones byte for byte (compared by SHA-256, hashlib, FIPS 180-4). The kept file is recorded in
+    the registry index by the SHA-256 of its bytes, as the model's own files are."""
+    import hashlib
+    import shutil
+
+    from linkage.models.registry import INDEX
+
+    folder, outputs = demo
+    shutil.rmtree(outputs.models_dir / outputs.model_id / "results", ignore_errors=True)
+    drawn = render_demo(folder, outputs, "drawn.html")
+    assert "head" not in reused(drawn)
+    (kept,) = _figures_files(outputs)
+    index = json.loads((outputs.models_dir / INDEX).read_text(encoding="utf-8"))
+    assert index["models"][outputs.model_id]["results"][kept.name] == hashlib.sha256(kept.read_bytes()).hexdigest()
+    again = render_demo(folder, outputs, "again.html")
+    assert reused(again)["head"][0].startswith("Reused, not drawn again: all 28 figures")
+    assert _pngs(again) == _pngs(drawn) and len(_pngs(drawn)) == 28
+    _same_as_stored(again)
+
+
+def test_a_tampered_kept_figures_file_is_not_used_and_the_figures_are_drawn_again(demo):
+    """A kept figures file whose bytes are not those the index recorded (here: one figure's PNG swapped for
+    another's, the file otherwise well formed) is not used: every figure is drawn again, the report does not
+    say they were reused, and the figures are the ones drawn afresh."""
+    import io
+
+    import numpy as np
+
+    folder, outputs = demo
+    drawn = render_demo(folder, outputs, "before-tamper.html")  # keeps them (or uses those kept)
+    (kept,) = _figures_files(outputs)
+    with np.load(kept, allow_pickle=False) as data:
+        arrays = {k: data[k] for k in data.files}
+    head = json.loads(arrays["__json__"].tobytes().decode("utf-8"))
+    uris = head["result"]["uris"]
+    uris[0], uris[1] = uris[1], uris[0]
+    arrays["__json__"] = np.frombuffer(json.dumps(head).encode("utf-8"), dtype=np.uint8)
+    buf = io.BytesIO()
+    np.savez(buf, **arrays)
+    kept.write_bytes(buf.getvalue())
+    redrawn = render_demo(folder, outputs, "after-tamper.html")
+    assert "head" not in reused(redrawn)
+    assert _pngs(redrawn) == _pngs(drawn)
+    _same_as_stored(redrawn)
+
+
+def test_the_figures_key_changes_with_the_lots_the_spec_the_model_and_the_settings(demo, tmp_path, monkeypatch):
+    """The key (:func:`linkage.report.kept.figures_key`) is the SHA-256 (hashlib, FIPS 180-4) of the parts the
+    module notes list: the same inputs give the same key; a changed value in the assembled table, a lot less in
+    the store's summary, another spec limit, another artifact hash recorded for the model, another seed or
+    another code digest each give another key; a model not in the registry gets none."""
+    import hashlib
+    import shutil
+
+    from linkage.assemble import assemble
+    from linkage.demo import DEMO_DATA
+    from linkage.models.registry import INDEX
+    from linkage.report import kept
+    from linkage.spec import Limit, read_spec
+    from linkage.store import LotStore
+
+    folder, outputs = demo
+    spec = read_spec(DEMO_DATA / "lots" / "spec.toml")
+    with LotStore(outputs.store, create=False) as store:
+        table, lots = assemble(store.current_tables()), store.lots()
+    settings = dict(confidence=0.9, seed=0, assurance=0.9, curve_draws=400)
+
+    def key(models_dir=outputs.models_dir, spec=spec, table=table, lots=lots, **changed):
+        return kept.figures_key(models_dir, outputs.model_id, spec, table=table, lots=lots, **{**settings, **changed})
+
+    here = key()
+    assert here == key() and len(here) == 64 and int(here, 16) >= 0
+    changed_table = table.copy()
+    changed_table.loc[changed_table.index[0], "ribbon_porosity"] += 1e-9
+    other_spec = read_spec(DEMO_DATA / "lots" / "spec.toml")
+    name = next(iter(other_spec.limits))
+    other_spec.limits[name] = Limit(min=other_spec.limits[name].min, max=(other_spec.limits[name].max or 1e9) * 2)
+    other_models = tmp_path / "models"
+    shutil.copytree(outputs.models_dir, other_models)
+    index = json.loads((other_models / INDEX).read_text(encoding="utf-8"))
+    index["models"][outputs.model_id]["artifact_sha256"] = hashlib.sha256(b"another artifact").hexdigest()
+    (other_models / INDEX).write_text(json.dumps(index), encoding="utf-8")
+    others = [key(table=changed_table), key(lots=lots.iloc[1:]), key(spec=other_spec), key(models_dir=other_models),
+              key(seed=1)]
+    with monkeypatch.context() as m:
+        m.setattr(kept, "_code", ["0" * 64])  # another version of linkage's source
+        others.append(key())
+    assert all(k is not None and k != here for k in others) and len(set(others)) == len(others)
+    assert kept.frame_sha256(table) == kept.frame_sha256(table.copy()) != kept.frame_sha256(changed_table)
+    # the key is the SHA-256 of the parts named, as :func:`linkage.models.reuse.result_key` documents
+    from linkage import __version__
+
+    artifact = json.loads((outputs.models_dir / INDEX).read_text(encoding="utf-8"))["models"][outputs.model_id][
+        "artifact_sha256"]
+    parts = {"kind": "figures", "model_id": outputs.model_id, "model_sha256": artifact, "linkage": __version__,
+             "spec": {"limits": spec.to_dict(), "described": spec.describe()},
+             "arguments": {"table_sha256": kept.frame_sha256(table), "lots_sha256": kept.frame_sha256(lots),
+                           "code_sha256": kept.code_sha256(), **settings}}
+    assert here == hashlib.sha256(json.dumps(parts, sort_keys=True, default=str).encode("utf-8")).hexdigest()
+    assert kept.figures_key(outputs.models_dir, "m-20000101T000000Z-00000000", spec, table=table, lots=lots,
+                            **settings) is None
