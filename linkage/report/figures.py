@@ -98,6 +98,17 @@ def axis_label(name: str) -> str:
 MARGINS = {"left": 0.95, "right": 0.25, "bottom": 0.65, "top": 0.35, "wspace": 0.95, "hspace": 0.8}
 
 
+def prepare() -> None:
+    """Import matplotlib's figure, Agg canvas, colours and patches and load its font list in this process,
+    before it forks children that draw (:mod:`linkage.report.background`): each child then starts with them
+    instead of importing them again (a figure made in a child is drawn the same either way)."""
+    from matplotlib import colors, font_manager, lines, patches  # noqa: F401 - imported for the children
+    from matplotlib.backends import backend_agg  # noqa: F401
+    from matplotlib.figure import Figure  # noqa: F401
+
+    font_manager.findfont(font_manager.FontProperties())
+
+
 def grid_axes(n: int, ncols: int = 3, panel: tuple[float, float] = (2.6, 2.0), **margins):
     """A new figure with ``n`` panels in rows of ``ncols``; returns (figure,
     list of the n Axes). ``panel`` is the size of each plotting area [inch];

@@ -246,6 +246,10 @@ class _Builder:
         """Start a child drawing the figures made so far that no process has taken yet, while the
         sections go on (when the machine allows it; else they are drawn with the rest at the end)."""
         if self._drawing is not None:
+            if self._drawing.fork:
+                from linkage.report.figures import prepare
+
+                prepare()  # matplotlib imported once here, not again in each child (the figures are made there)
             self._drawing.start()
 
     def draw_figures(self) -> None:
