@@ -602,7 +602,8 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     if "figures" in rendered.computed and figures_key is not None:
         from linkage.models.reuse import save_result
 
-        save_result(models_dir, chain.model_id, "figures", figures_key, rendered.computed["figures"], "linkage report")
+        save_result(models_dir, chain.model_id, "figures", figures_key, rendered.computed["figures"], "linkage report",
+                    only=True)  # one state of the lots kept: the figures are megabytes
     return Path(write_report(rendered, out))
 
 

@@ -567,6 +567,18 @@ def record_result(models_dir, model_id: str, name: str, data: bytes) -> None:
         _write_index(models_dir, index)
 
 
+def forget_results(models_dir, model_id: str, names) -> None:
+    """Drop from the index the records of result files removed from beside the model."""
+    models_dir = Path(models_dir)
+    with _locked(models_dir):
+        index = _read_index(models_dir)
+        results = (index["models"].get(model_id) or {}).get("results") or {}
+        if any(name in results for name in names):
+            for name in names:
+                results.pop(name, None)
+            _write_index(models_dir, index)
+
+
 def recorded_artifact_sha256(models_dir, model_id: str) -> str | None:
     """The SHA-256 of ``model_id``'s artifact as the registry index recorded it when the model was saved,
     or None (no such model in the index). Reads the index only: the artifact is not read or hashed

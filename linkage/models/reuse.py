@@ -36,7 +36,7 @@ from pathlib import Path
 import numpy as np
 
 from linkage.exceptions import LinkageError
-from linkage.models.registry import record_result, result_intact
+from linkage.models.registry import forget_results, record_result, result_intact
 
 __all__ = ["Reused", "result_key", "load_result", "save_result"]
 
@@ -155,10 +155,14 @@ def _decode(value, arrays):
 
 # ------------------------------------------------------------------ storing and reading
 
-def save_result(models_dir, model_id: str | None, kind: str, key: str | None, result, made_by: str) -> Path | None:
+def save_result(models_dir, model_id: str | None, kind: str, key: str | None, result, made_by: str, *,
+                only: bool = False) -> Path | None:
     """Store ``result`` under ``key`` (see :func:`result_key`); returns the
     file, or None when nothing could be stored (no key, a class that is not
-    stored, a registry that cannot be written to)."""
+    stored, a registry that cannot be written to). ``only``: the other files
+    of this kind beside the model are removed, with their index records (the
+    report's figures, which a new key per state of the lots would otherwise
+    pile up, megabytes each)."""
     from linkage.export import write_atomic
 
     if key is None:
@@ -180,6 +184,11 @@ def save_result(models_dir, model_id: str | None, kind: str, key: str | None, re
         path.parent.mkdir(exist_ok=True)
         written = write_atomic(path, data)
         record_result(models_dir, model_id, path.name, data)
+        if only:
+            older = [p for p in path.parent.glob(f"{kind}-*.npz") if p.name != path.name]
+            for p in older:
+                p.unlink(missing_ok=True)
+            forget_results(models_dir, model_id, [p.name for p in older])
     except (OSError, LinkageError):
         return None
     return written

@@ -134,3 +134,17 @@ def test_a_kept_mewma_design_is_the_simulated_one_and_is_not_simulated_again(tmp
     monkeypatch.setattr(mewma, "_design", no_simulation)
     _same(dict(mewma.design(p, n_ref=n_ref)), dict(simulated))
     assert not mewma.simulated(back[0])  # taken from what was kept: nothing new to keep
+
+
+def test_a_result_stored_as_the_only_one_of_its_kind_removes_the_others_and_their_records(tmp_path):
+    """``only=True`` (the report's figures, a new key for every state of the lots): the other files of that kind
+    beside the model go, with their index records; files of other kinds stay."""
+    _registry(tmp_path)
+    first = save_result(tmp_path, MODEL, "window", KEY, _window(), "linkage window", only=True)
+    space = save_result(tmp_path, MODEL, "space", KEY, _window(), "linkage space")
+    second = save_result(tmp_path, MODEL, "window", "cd" * 32, _window(), "linkage window", only=True)
+    assert not first.exists() and second.exists() and space.exists()
+    recorded = json.loads((tmp_path / INDEX).read_text(encoding="utf-8"))["models"][MODEL]["results"]
+    assert sorted(recorded) == sorted([second.name, space.name])
+    assert load_result(tmp_path, MODEL, "window", KEY) is None
+    assert load_result(tmp_path, MODEL, "window", "cd" * 32) is not None
