@@ -763,7 +763,8 @@ def _target_choice(chain, table, spec, window, eps_c, pool, n, confidence, poros
     notes = []
     por_edges, _, edge_notes = _edges_of(window)
     notes += edge_notes
-    grid, p_hat, var, why = plan_target.probability_curve(chain, spec, window, seed=seed)
+    grid, p_hat, reps, why = plan_target.probability_curve(chain, spec, window, seed=seed)
+    var = None if reps is None else reps.var(axis=0, ddof=1)
     if var is None:
         notes.append(f"no bootstrap spread of P(all pass) ({why}); the weight is taken at zero spread and the "
                      "local fit's variance alone is integrated")
@@ -794,7 +795,7 @@ def _thompson_choice(chain, table, spec, window, eps_c, pool, n, confidence, por
                                                                    if e[0].startswith("high ")}
     if not cols:  # before the bootstrap curve, the costly part
         return None
-    grid, p_hat, reps, _ = plan_target.probability_curve(chain, spec, window, seed=seed, replicates=True)
+    grid, p_hat, reps, _ = plan_target.probability_curve(chain, spec, window, seed=seed)
     if reps is None:
         return None
     edges_b = plan_thompson.replicate_edges(grid, reps, confidence)

@@ -54,11 +54,11 @@ MAX_POINTS = 96
 RIDGE = 1e-6
 
 
-def probability_curve(chain, spec, window, seed: int = 0, replicates: bool = False):
-    """(grid, P̂, s² or None, note): P(all pass) on the window's porosity grid
-    at the window's held settings, its bootstrap variance, and why there is
-    none when the model lacks replicates. ``replicates=True`` returns the
-    replicates' curves (B × grid) in place of s²."""
+def probability_curve(chain, spec, window, seed: int = 0):
+    """(grid, P̂, replicates or None, note): P(all pass) on the window's
+    porosity grid at the window's held settings, the usable bootstrap
+    replicates' curves (B × grid), and why there are none when the model
+    lacks replicates or fewer than two are usable."""
     from linkage.decide.bound import chain_probabilities
     from linkage.decide.window import downstream_targets
     from linkage.models.lean import as_lean
@@ -70,16 +70,10 @@ def probability_curve(chain, spec, window, seed: int = 0, replicates: bool = Fal
     columns = {k: np.full(grid.size, float(v)) for k, v in values.items()} | {por: grid}
     limited = [a for a in spec.limits if a in downstream_targets(chain)]
     cp = chain_probabilities(lean, columns, spec.limits, limited, seed=seed, each=False)
-    if replicates:
-        reps = None if cp.reps_all is None else usable(cp.reps_all)
-        return grid, cp.p_all, reps, (cp.reason if cp.reps_all is None else
-                                      None if reps is not None else "fewer than two usable bootstrap replicates")
     if cp.reps_all is None:
         return grid, cp.p_all, None, cp.reason
     reps = usable(cp.reps_all)
-    if reps is None:
-        return grid, cp.p_all, None, "fewer than two usable bootstrap replicates"
-    return grid, cp.p_all, reps.var(axis=0, ddof=1), None
+    return grid, cp.p_all, reps, None if reps is not None else "fewer than two usable bootstrap replicates"
 
 
 def usable(reps) -> np.ndarray | None:
