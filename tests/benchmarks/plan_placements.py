@@ -1,0 +1,227 @@
+"""Where should 8 added lots go? Placements tried against random lots (issue 18).
+
+Not a test, and not the plan's own criteria (``plan_benefit.py`` measures
+those): simple placements of the 8 added lots, each target porosity met by the
+candidate settings whose ribbon porosity the first fit's ribbon stage predicts
+nearest (each candidate once; the candidates and their predictions are
+``linkage.decide.plan._candidates``'s, as the plan has them), against 8
+random lots. Each campaign of ``linkage.synthetic``'s window scenario (a known
+truth) is fitted (``train_chain``, seed 0, no bootstrap replicates, so the
+point estimate's window is scored), each placement's 8 lots are simulated
+from the truth with the same seed (only the settings differ), and each
+augmented campaign is refitted. Error of an edge: signed, estimated − true
+(``Truth.probability_window``, confidence 0.9, at screen 1.0 mm, 14 kN).
+
+Scenario ``spread`` (the campaigns of ``plan_benefit.py``: roll force
+stratified over 4-14 kN/cm): candidates over the training ranges, kept inside
+the ribbon stage's domain; random lots as ``plan_benefit.py`` draws them.
+Placements (lo, hi: the first fit's window):
+
+* ``win_even``: 8 targets equally spaced from lo − 0.03 to hi + 0.03;
+* ``win_even_in``: from lo to hi; ``win_even_wide``: from lo − 0.06 to hi + 0.06;
+* ``win_maximin``: greedy, each lot where the distance to the nearest measured or
+  chosen porosity is largest within lo − 0.03 to hi + 0.03;
+* ``edges_pair``: lo ± 0.007, ± 0.02 and hi ± 0.007, ± 0.02;
+* ``full_even``: equally spaced over the training lots' porosity range.
+
+Scenario ``narrow``: campaigns run over roll force 7-11 kN/cm only (gap 2.0,
+2.5 or 3.0 mm, roll speed 3-7 rpm, screw at the nominal feed with 8 % scatter),
+whose data stop short of the true window's edges; the added lots may use the
+equipment's wider ranges (force 3-16, gap 1.5-3.5, speed 2-8; screw at the
+nominal feed), candidates a scrambled Sobol' set over them with no domain
+filter, random lots uniform over them. Placements ``win_even``,
+``edges_pair`` and ``edges_out`` (lo − 0.04 … lo − 0.01 and hi + 0.01 … hi + 0.04).
+
+    python tests/benchmarks/plan_placements.py FIRST_SEED STOP_SEED [--lots 16] [--scenario spread]
+        [--designs random,win_even,...] >> rows.jsonl
+    python tests/benchmarks/plan_placements.py --summary rows.jsonl [rows2.jsonl ...]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+SPREAD = ["random", "win_even", "win_maximin", "edges_pair", "full_even"]
+NARROW = ["random", "win_even", "edges_pair", "edges_out"]
+EQUIPMENT = {"roll_force_kn_per_cm": (3.0, 16.0), "roll_gap_mm": (1.5, 3.5), "roll_speed_rpm": (2.0, 8.0)}
+
+
+def nearest(eps_c, pool, targets):
+    chosen, avail = [], set(np.asarray(pool).tolist())
+    for t in targets:
+        idx = np.array(sorted(avail))
+        k = int(idx[np.argmin(np.abs(eps_c[idx] - t))])
+        chosen.append(k)
+        avail.discard(k)
+    return chosen
+
+
+def maximin(eps_c, pool, existing, lo, hi, n):
+    chosen, pts = [], list(existing)
+    idx = pool[(eps_c[pool] >= lo) & (eps_c[pool] <= hi)]
+    if len(idx) < n:
+        idx = pool
+    for _ in range(n):
+        d = np.min(np.abs(eps_c[idx][:, None] - np.array(pts + [lo - 1e9])[None, :]), axis=1)
+        # the ends count as points at half the distance, so they get filled too
+        d = np.minimum(d, 2 * np.abs(eps_c[idx] - lo))
+        d = np.minimum(d, 2 * np.abs(eps_c[idx] - hi))
+        k = int(idx[np.argmax(d)])
+        chosen.append(k)
+        pts.append(float(eps_c[k]))
+        idx = idx[idx != k]
+    return chosen
+
+
+def narrow_campaign(n, seed, f_lo=7.0, f_hi=11.0):
+    rng = np.random.default_rng(seed + 500)
+    force = f_lo + (f_hi - f_lo) * (rng.permutation(n) + rng.uniform(size=n)) / n
+    gap = rng.choice([2.0, 2.5, 3.0], n)
+    speed = rng.uniform(3, 7, n)
+    return {"roll_force_kn_per_cm": np.round(force, 2), "roll_gap_mm": gap, "roll_speed_rpm": np.round(speed, 1),
+            "screw_speed_rpm": np.round(2.2 * speed * gap * np.exp(rng.normal(0, .08, n)), 1),
+            "mill_screen_mm": rng.choice([0.8, 1.0, 1.25], n, p=[.25, .5, .25]),
+            "compression_force_kn": np.round(rng.uniform(10, 18, n), 1)}
+
+
+def _with_screw(d):  # screw at the nominal feed for the roll speed and gap
+    d = dict(d)
+    d["screw_speed_rpm"] = np.round(2.2 * np.asarray(d["roll_speed_rpm"]) * np.asarray(d["roll_gap_mm"]), 1)
+    return d
+
+
+def run(first, stop, n_lots, scenario, designs):
+    from plan_benefit import _combined, _random_settings
+    from scipy.stats import qmc
+
+    from linkage.assemble import assemble
+    from linkage.decide.plan import POROSITY, _candidates, _ribbon_stage
+    from linkage.decide.window import find_window
+    from linkage.models.lean import as_lean
+    from linkage.models.train import train_chain
+    from linkage.spec import Limit, Spec
+    from linkage.synthetic import WINDOW_SETTINGS, WINDOW_SPEC, Truth, make_lots
+
+    truth = Truth.window_scenario()
+    spec = Spec(limits={k: Limit(*v) for k, v in WINDOW_SPEC.items()})
+    s = dict(WINDOW_SETTINGS)
+    tl, th = truth.probability_window(WINDOW_SPEC, s["mill_screen_mm"], s["compression_force_kn"], confidence=0.9)
+
+    def fit(tables):
+        table = assemble(tables)
+        chain = train_chain(table, seed=0, n_bootstrap=0)
+        return table, chain, find_window(chain, spec, settings=s, confidence=0.9)
+
+    for seed in range(first, stop):
+        t0 = time.perf_counter()
+        given = narrow_campaign(n_lots, seed) if scenario == "narrow" else None
+        lots = make_lots(n_lots, seed=seed, truth=truth, settings=given)
+        table, chain, w0 = fit(lots.tables)
+        stage = _ribbon_stage(as_lean(chain))
+        inputs = list(stage.inputs)
+        lo, hi = w0.point_low, w0.point_high
+        if lo is None:
+            print(json.dumps({"seed": seed, "skip": True}), flush=True)
+            continue
+        chosen_settings = {}
+        if scenario == "narrow":
+            names = list(EQUIPMENT)
+            lo_r = np.array([EQUIPMENT[k][0] for k in names])
+            hi_r = np.array([EQUIPMENT[k][1] for k in names])
+            unit = qmc.Sobol(len(names), scramble=True, seed=seed).random(2048)
+            cand = _with_screw({k: lo_r[j] + unit[:, j] * (hi_r[j] - lo_r[j]) for j, k in enumerate(names)})
+            eps_c = stage.targets[POROSITY].predict(cand)
+            pool = np.arange(len(eps_c))
+            rng = np.random.default_rng(seed)
+            chosen_settings["random"] = {k: np.round(v, 2) for k, v in
+                                         _with_screw({k: rng.uniform(*EQUIPMENT[k], 8) for k in names}).items()}
+            decimals = 2
+        else:
+            full = {k: tuple(float(v) for v in chain.training["ranges"][k]) for k in inputs}
+            cand, _, eps_c, pool, _ = _candidates(stage, inputs, full, {}, 2048, 8, seed)
+            chosen_settings["random"] = _random_settings(chain, full, 8, seed)
+            decimals = 3
+        existing = table[POROSITY].dropna().to_numpy(float)
+        targets = {"win_even": np.linspace(lo - 0.03, hi + 0.03, 8), "win_even_in": np.linspace(lo, hi, 8),
+                   "win_even_wide": np.linspace(lo - 0.06, hi + 0.06, 8),
+                   "edges_pair": [lo - .02, lo - .007, lo + .007, lo + .02, hi - .02, hi - .007, hi + .007, hi + .02],
+                   "edges_out": [lo - .04, lo - .03, lo - .02, lo - .01, hi + .01, hi + .02, hi + .03, hi + .04],
+                   "full_even": np.linspace(existing.min(), existing.max(), 8)}
+        for d in designs:
+            if d == "random":
+                continue
+            ch = maximin(eps_c, pool, existing, lo - 0.03, hi + 0.03, 8) if d == "win_maximin" \
+                else nearest(eps_c, pool, targets[d])
+            chosen_settings[d] = {k: np.round(np.asarray(cand[k], float)[ch], decimals) for k in cand}
+        row = {"seed": seed, "lots": n_lots, "scenario": scenario, "before": (lo - tl, hi - th)}
+        for d in designs:
+            sett = {k: list(np.asarray(v, float)) for k, v in chosen_settings[d].items()} | {k: [s[k]] * 8 for k in s}
+            new = make_lots(8, seed=seed + 10_000, truth=truth, settings=sett, lot_prefix="NEW", start="2026-06-01")
+            _, _, w = fit(_combined(lots.tables, new.tables))
+            row[d] = None if w.point_low is None else (w.point_low - tl, w.point_high - th)
+        row["seconds"] = round(time.perf_counter() - t0)
+        print(json.dumps(row), flush=True)
+
+
+def summary(files) -> str:
+    """Per scenario: mean |error| of each placement (both edges and each edge), its mean reduction against the
+    first fit, the ratio to random's, the paired difference to random (mean, standard error) and the
+    campaigns where it did better than random."""
+    rows = [json.loads(line) for f in files for line in Path(f).read_text().splitlines() if '"skip"' not in line]
+    out = []
+    def placements(r):
+        return tuple(k for k in r if k not in ("seed", "lots", "scenario", "seconds", "before"))
+
+    for scenario, designs in sorted({(r.get("scenario", "spread"), placements(r)) for r in rows}):
+        rs = [r for r in rows if r.get("scenario", "spread") == scenario and placements(r) == designs]
+        err = {d: np.array([abs(r[d][0]) + abs(r[d][1]) if r.get(d) else np.nan for r in rs]) for d in designs}
+        before = np.array([abs(r["before"][0]) + abs(r["before"][1]) for r in rs])
+        out += [f"### Scenario `{scenario}`, {rs[0]['lots']} lots + 8: {len(rs)} campaigns (seeds "
+                f"{', '.join(str(r['seed']) for r in rs)})", "",
+                "| placement | mean error after | low edge | high edge | mean reduction | ratio to random | "
+                "paired difference to random (SE) | better than random |", "|---|---|---|---|---|---|---|---|",
+                f"| before (16 lots) | {before.mean():.4f} | {np.mean([abs(r['before'][0]) for r in rs]):.4f} | "
+                f"{np.mean([abs(r['before'][1]) for r in rs]):.4f} | | | | |"]
+        red_r = before - err["random"]
+        for d in designs:
+            red = before - err[d]
+            diff = red - red_r
+            ok = ~np.isnan(diff)
+            lo = np.nanmean([abs(r[d][0]) if r.get(d) else np.nan for r in rs])
+            hi = np.nanmean([abs(r[d][1]) if r.get(d) else np.nan for r in rs])
+            cmp = "" if d == "random" else (f"{np.nanmean(red) / np.nanmean(red_r):.2f} | {np.nanmean(diff):+.4f} "
+                                            f"({np.nanstd(diff, ddof=1) / np.sqrt(ok.sum()):.4f}) | "
+                                            f"{int(np.sum(diff[ok] > 0))} of {int(ok.sum())}")
+            out.append(f"| {d} | {np.nanmean(err[d]):.4f} | {lo:.4f} | {hi:.4f} | {np.nanmean(red):.4f} | "
+                       + (cmp if cmp else "1 | | ") + " |")
+        out.append("")
+    return "\n".join(out)
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("first", nargs="?", type=int)
+    ap.add_argument("stop", nargs="?", type=int)
+    ap.add_argument("--lots", type=int, default=16)
+    ap.add_argument("--scenario", choices=["spread", "narrow"], default="spread")
+    ap.add_argument("--designs", default=None, help="comma-separated placements (default: the scenario's)")
+    ap.add_argument("--summary", nargs="+", default=None, help="rows files to summarise instead of running")
+    args = ap.parse_args(argv)
+    if args.summary:
+        print(summary(args.summary))
+        return 0
+    designs = args.designs.split(",") if args.designs else (NARROW if args.scenario == "narrow" else SPREAD)
+    run(args.first, args.stop, args.lots, args.scenario, designs)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
