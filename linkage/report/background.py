@@ -39,8 +39,12 @@ def _cores() -> int:
 
 
 def _run(send, fn, args, kwargs) -> None:  # in the child
+    from linkage.exceptions import LinkageError
+
     try:
         value = ("ok", fn(*args, **kwargs))
+    except LinkageError as exc:  # a refusal of these inputs: the parent raises it without computing again
+        value = ("raised", exc)
     except BaseException:  # noqa: BLE001 - the parent computes it again and raises what it raises
         value = ("failed", None)
     try:
@@ -52,7 +56,8 @@ def _run(send, fn, args, kwargs) -> None:  # in the child
 
 class Background:
     """``fn(*args, **kwargs)`` started in a forked child (unless ``fork`` is false); :meth:`result`
-    returns its value."""
+    returns its value, or raises the :class:`linkage.exceptions.LinkageError` the child raised (the
+    inputs refused: not computed again here)."""
 
     def __init__(self, fn, *args, fork: bool = True, timeout: float | None = None, **kwargs):
         self._call = (fn, args, kwargs)
@@ -74,9 +79,11 @@ class Background:
                 status, value = self._conn.recv() if ready else ("hung", None)
             except (EOFError, OSError):
                 status, value = "lost", None
-            self.close(wait=status == "ok")
+            self.close(wait=status in ("ok", "raised"))
             if status == "ok":
                 return value
+            if status == "raised":
+                raise value
         fn, args, kwargs = self._call
         return fn(*args, **kwargs)
 

@@ -401,14 +401,16 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
 
     from linkage.report.space_section import space_section  # the design-space map (issue 16)
 
+    refused = None
     if space is None and "space" in pending:
         from linkage.exceptions import LinkageError
 
         try:
             space = computed["space"] = pending["space"].result()
-        except LinkageError:
-            space = None  # the section computes it again and says why there is no map
-    space_section(b, chain, table, spec, confidence=confidence, assurance=assurance, seed=seed, result=space)
+        except LinkageError as exc:
+            refused = exc  # the section says why there is no map, without computing it again
+    space_section(b, chain, table, spec, confidence=confidence, assurance=assurance, seed=seed, result=space,
+                  refused=refused)
     watched = pending["watch"].result()
     design = (watched.mewma or {}).get("design")
     from linkage.decide.mewma import simulated

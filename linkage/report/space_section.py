@@ -76,11 +76,13 @@ def plot_space(result, lots_x=None, lots_y=None, *, ax=None):
 
 
 def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: float = 0.9, seed: int = 0,
-                  n_grid: int = 40, result=None) -> None:
+                  n_grid: int = 40, result=None, refused=None) -> None:
     """The report section: the map over roll force × gap, the acceptable
     ranges and the held settings; a note instead when it cannot be made.
     ``result``: the map already computed with these arguments (reused, or
-    computed beside the report; issue 20), else it is computed here."""
+    computed beside the report; issue 20), else it is computed here.
+    ``refused``: the error computing it beside the report raised (the note
+    says it; the map is not computed again)."""
     from linkage.decide.space import FORCE, GAP, design_space
     from linkage.exceptions import LinkageError
     from linkage.report.html import _part, table_html
@@ -88,6 +90,9 @@ def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: 
     b.section("space", "Design space: probability of passing over roll force and gap")
     if spec is None:
         b.note("No map: give a specification (--spec) to map the probability of passing.")
+        return
+    if refused is not None:
+        b.note(f"No map: {refused}")
         return
     try:
         r = result if result is not None else design_space(chain, spec, x=FORCE, y=GAP, n_grid=n_grid,

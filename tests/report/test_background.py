@@ -55,6 +55,28 @@ def test_a_failing_child_is_replaced_by_the_direct_call():
     assert Background(_fail_in_child, os.getpid()).result() == "here"
 
 
+def _refuse_counting(path: str) -> None:
+    """Raises a refusal of its inputs, leaving a line in ``path`` for each process that computed it."""
+    from linkage.exceptions import UsageError
+
+    with open(path, "a", encoding="utf-8") as fh:
+        fh.write(f"{os.getpid()}\n")
+    raise UsageError("no setting varies")
+
+
+@forking
+def test_a_refusal_in_the_child_is_raised_here_without_computing_again(tmp_path):
+    """A LinkageError (the inputs refused) raised in the child is the one :meth:`result` raises, the same type
+    and text as the direct call's, and the function ran once, in the child (the design-space map that cannot
+    be made was computed three times before)."""
+    from linkage.exceptions import UsageError
+
+    counts = tmp_path / "calls.txt"
+    with pytest.raises(UsageError, match="no setting varies"):
+        Background(_refuse_counting, str(counts)).result()
+    assert len(counts.read_text().split()) == 1 and int(counts.read_text().split()[0]) != os.getpid()
+
+
 @forking
 def test_a_hung_child_is_ended_and_the_value_computed_here():
     job = Background(_sleep_then, 7, 60.0, os.getpid(), timeout=0.5)
