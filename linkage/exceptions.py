@@ -73,6 +73,11 @@ class InputError(LinkageError, ValueError):
         self.problems = list(problems)
         super().__init__(self._text())
 
+    def __reduce__(self):
+        # pickled with its problems, not its text (the report's second process hands errors back by pickle;
+        # rebuilt from the text it would wrap the text in a second problem)
+        return type(self), (self.problems,)
+
     def _text(self) -> str:
         n = len(self.problems)
         head = f"{n} problem{'s' if n != 1 else ''} found; nothing was written."

@@ -44,7 +44,7 @@ def _run(send, fn, args, kwargs) -> None:  # in the child
     try:
         value = ("ok", fn(*args, **kwargs))
     except LinkageError as exc:  # a refusal of these inputs: the parent raises it without computing again
-        value = ("raised", exc)
+        value = ("raised", exc) if _round_trips(exc) else ("failed", None)
     except BaseException:  # noqa: BLE001 - the parent computes it again and raises what it raises
         value = ("failed", None)
     try:
@@ -52,6 +52,18 @@ def _run(send, fn, args, kwargs) -> None:  # in the child
     except Exception:  # noqa: BLE001 - an unpicklable result: the parent computes it itself
         send.send(("failed", None))
     send.close()
+
+
+def _round_trips(exc) -> bool:
+    """Whether ``exc`` comes back from pickling as the same type with the same text (else the parent computes
+    the value again and raises its own error, so the report's words never depend on where it ran)."""
+    import pickle
+
+    try:
+        back = pickle.loads(pickle.dumps(exc))
+    except Exception:  # noqa: BLE001 - any failure: not handed over
+        return False
+    return type(back) is type(exc) and str(back) == str(exc)
 
 
 class Background:
@@ -77,7 +89,7 @@ class Background:
                 # poll returns at once when the child has sent a value or has ended (end of file)
                 ready = self._conn.poll(self._timeout)
                 status, value = self._conn.recv() if ready else ("hung", None)
-            except (EOFError, OSError):
+            except Exception:  # noqa: BLE001 - ended, broken or unreadable: computed here instead
                 status, value = "lost", None
             self.close(wait=status in ("ok", "raised"))
             if status == "ok":

@@ -77,6 +77,29 @@ def test_a_refusal_in_the_child_is_raised_here_without_computing_again(tmp_path)
     assert len(counts.read_text().split()) == 1 and int(counts.read_text().split()[0]) != os.getpid()
 
 
+def _refuse_input(parent: int) -> None:
+    from linkage.exceptions import InputError, Problem
+
+    raise InputError([Problem(file="spec.toml", rule="min above max"), Problem(file="spec.toml", rule="no unit")])
+
+
+@forking
+def test_an_input_error_from_the_child_has_the_direct_calls_text():
+    """An InputError handed back by pickle keeps its problems: the same type and text as the direct call's
+    (rebuilt from its text it would wrap the text as a second problem); pickle itself is the reference."""
+    import pickle
+
+    from linkage.exceptions import InputError
+
+    with pytest.raises(InputError) as direct:
+        _refuse_input(os.getpid())
+    back = pickle.loads(pickle.dumps(direct.value))
+    assert type(back) is InputError and str(back) == str(direct.value) and back.problems == direct.value.problems
+    with pytest.raises(InputError) as handed:
+        Background(_refuse_input, os.getpid()).result()
+    assert str(handed.value) == str(direct.value)
+
+
 @forking
 def test_a_hung_child_is_ended_and_the_value_computed_here():
     job = Background(_sleep_then, 7, 60.0, os.getpid(), timeout=0.5)
