@@ -55,6 +55,12 @@ from typing import TYPE_CHECKING, Callable, Iterable, Mapping
 from linkage.results import Ingested, Retrained, Trained, Watched, WhatIfResult, Window
 from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN, DEFAULT_FINES_CUTOFF_UM
 
+#: linkage's source files as they were when this module was imported (:func:`linkage.report.kept.source_stamp`):
+#: a report keeps or reuses figures only while the files on disk are still the code running
+SOURCE_STAMP = __import__("linkage.report.kept", fromlist=["source_stamp"]).source_stamp()
+#: draws of each probability curve of the report (render_report's ``curve_draws``; part of the figures' key)
+REPORT_CURVE_DRAWS = 400
+
 if TYPE_CHECKING:
     import pandas as pd
 
@@ -324,8 +330,9 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
     chain = _fitted(models_dir, model)
     result = find_window(chain, spec, settings=settings, confidence=confidence, n_draws=n_draws, seed=seed,
                          assurance=assurance)
-    _keep(models_dir, result.model_id, "window", spec, result, "linkage window", settings=settings,
-          confidence=confidence, n_draws=n_draws, seed=seed, assurance=assurance)  # for the report (issue 20)
+    if model is None or isinstance(model, str):  # a model of the registry, loaded and checked here (issue 20)
+        _keep(models_dir, result.model_id, "window", spec, result, "linkage window", settings=settings,
+              confidence=confidence, n_draws=n_draws, seed=seed, assurance=assurance)  # for the report
     recorded = record(store, "window", model_id=result.model_id,
                       inputs={"spec": spec.to_dict(), "spec_file": spec.file, "spec_sha256": spec.sha256,
                               "settings": settings, "confidence": confidence, "seed": seed, "assurance": assurance},
@@ -415,8 +422,9 @@ def space(spec, *, models_dir=DEFAULT_MODELS_DIR, model="latest", x: str = "roll
     settings = {k: float(v) for k, v in (settings or {}).items()}
     result = design_space(_lean(models_dir, model), _spec(spec), x=x, y=y, n_grid=n_grid, settings=settings,
                           confidence=confidence, assurance=assurance, seed=seed)
-    _keep(models_dir, result.model_id, "space", _spec(spec), result, "linkage space", x=x, y=y, n_grid=n_grid,
-          settings=settings, confidence=confidence, assurance=assurance, seed=seed)  # for the report (issue 20)
+    if model is None or isinstance(model, str):  # a model of the registry, loaded and checked here (issue 20)
+        _keep(models_dir, result.model_id, "space", _spec(spec), result, "linkage space", x=x, y=y, n_grid=n_grid,
+              settings=settings, confidence=confidence, assurance=assurance, seed=seed)  # for the report
     return result
 
 
@@ -562,14 +570,16 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     out = Path(out) if out is not None else Path("reports") / f"report-{chain.model_id}.html"
     found = window.result if isinstance(window, Window) else window
     space, reused = None, {}
+    registered = model is None or isinstance(model, str)  # loaded from the registry and checked: results kept
     if spec is not None:  # what `linkage window` / `linkage space` (or an earlier report) computed, reused
         window_args = dict(settings={}, confidence=confidence, n_draws=2000, seed=seed, assurance=assurance)
         space_args = dict(x="roll_force_kn_per_cm", y="roll_gap_mm", n_grid=40, settings={}, confidence=confidence,
                           assurance=assurance, seed=seed)
-        kept = None if found is not None else _reuse(models_dir, chain.model_id, "window", spec, **window_args)
+        kept = None if found is not None or not registered else _reuse(models_dir, chain.model_id, "window", spec,
+                                                                         **window_args)
         if kept is not None:
             found, reused["window"] = kept.result, kept.sentence("the window and its probabilities")
-        kept = _reuse(models_dir, chain.model_id, "space", spec, **space_args)
+        kept = _reuse(models_dir, chain.model_id, "space", spec, **space_args) if registered else None
         if kept is not None:
             space, reused["space"] = kept.result, kept.sentence("the map and the acceptable ranges")
     from linkage.decide import mewma
@@ -579,25 +589,26 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     designs = _reuse(models_dir, chain.model_id, "mewma", None, **simulation)
     mewma.remember(designs.result if designs is not None else [])
     figures_key = None
-    if model is None or isinstance(model, str):  # a model of the registry: its figures may be kept (issue 20)
+    if registered:  # a model of the registry: its figures may be kept (issue 20)
         # the window and the map are what these arguments give (computed here, or kept under the same arguments);
         # a window handed in is hashed itself
         figures_key = _figures_key(models_dir, chain.model_id, spec, table, lots, given_window=window is not None,
                                    window=found, confidence=confidence, seed=seed, assurance=assurance,
-                                   curve_draws=400, mewma=simulation, plan=plan,
+                                   curve_draws=REPORT_CURVE_DRAWS, mewma=simulation, plan=plan,
                                    window_args=window_args if spec is not None else None,
                                    space_args=space_args if spec is not None else None)
     kept_figures = _reuse_key(models_dir, chain.model_id, "figures", figures_key)
     rendered = render_report(chain, table, spec=spec, window=found, lots=lots, confidence=confidence, seed=seed,
-                             assurance=assurance, plan=plan, space=space, reused=reused, kept_figures=kept_figures)
+                             curve_draws=REPORT_CURVE_DRAWS, assurance=assurance, plan=plan, space=space,
+                             reused=reused, kept_figures=kept_figures)
     if "mewma" in rendered.computed:
         _keep(models_dir, chain.model_id, "mewma", None,
               (designs.result if designs is not None else []) + rendered.computed["mewma"], "linkage report",
               **simulation)
-    if "window" in rendered.computed:
+    if "window" in rendered.computed and registered:
         _keep(models_dir, chain.model_id, "window", spec, rendered.computed["window"], "linkage report",
               **window_args)
-    if "space" in rendered.computed:
+    if "space" in rendered.computed and registered:
         _keep(models_dir, chain.model_id, "space", spec, rendered.computed["space"], "linkage report", **space_args)
     if "figures" in rendered.computed and figures_key is not None:
         from linkage.models.reuse import save_result
@@ -613,9 +624,12 @@ def _figures_key(models_dir, model_id, spec, table, lots, *, given_window: bool,
     enter by the arguments they are computed (or kept) with, a window handed in by its own content."""
     from linkage.report import kept
 
-    how_window = kept.result_sha256(window) if given_window and window is not None else window_args
+    try:
+        how_window = kept.result_sha256(window) if given_window and window is not None else window_args
+    except TypeError:  # a window object of no stored class: drawn, not kept
+        return None
     return kept.figures_key(models_dir, model_id, spec, table=table, lots=lots, window=how_window,
-                            space=space_args, **settings)
+                            space=space_args, stamp=SOURCE_STAMP, **settings)
 
 
 def _reuse_key(models_dir, model_id, kind: str, key: str | None):

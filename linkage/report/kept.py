@@ -19,8 +19,13 @@ namely
   arguments they are computed or kept with; a window handed in is hashed
   itself);
 * the code: the SHA-256 of linkage's own source files and the versions of
-  matplotlib, numpy, pandas, scipy and scikit-learn, so any change of the
-  code that draws or computes a figure gives another key.
+  matplotlib, numpy, pandas, scipy, scikit-learn and shap (as imported), so
+  any change of the code that draws or computes a figure gives another key;
+  and matplotlib's settings in force (``rcParams``: a ``matplotlibrc`` or a
+  style changes the pictures). When linkage's source files on disk are no
+  longer those that were there when :mod:`linkage.api` was imported (an
+  update under a running session), there is no key: nothing is kept or
+  reused.
 
 A file whose bytes differ from the index's record (changed by hand, copied
 in), another key, or a figure whose caption is not the one the report now
@@ -41,7 +46,7 @@ import numpy as np
 KIND = "figures"
 
 #: the libraries whose version is part of the key (their code draws or computes the figures)
-LIBRARIES = ("matplotlib", "numpy", "pandas", "scipy", "scikit-learn")
+LIBRARIES = ("matplotlib", "numpy", "pandas", "scipy", "scikit-learn", "shap")
 
 _code: list[str] = []
 
@@ -70,25 +75,60 @@ def frame_sha256(frame) -> str:
     return digest.hexdigest()
 
 
-def code_sha256() -> str:
-    """SHA-256 of linkage's source files (``*.py``, the templates and the page's style and script),
-    with the versions of :data:`LIBRARIES`; computed once a process."""
-    if not _code:
-        from importlib.metadata import PackageNotFoundError, version
+def _sources() -> list[Path]:
+    root = Path(__file__).resolve().parents[1]
+    return sorted(p for p in root.rglob("*")
+                  if p.suffix in (".py", ".j2", ".css", ".js") and "__pycache__" not in p.parts)
 
+
+def source_stamp() -> tuple:
+    """(path, modification time, size) of each of linkage's source files: taken when :mod:`linkage.api`
+    is imported (:data:`linkage.api.SOURCE_STAMP`), to tell later whether the files on disk are still the
+    code that is running."""
+    out = []
+    for path in _sources():
+        st = path.stat()
+        out.append((str(path), st.st_mtime_ns, st.st_size))
+    return tuple(out)
+
+
+def code_sha256(stamp: tuple | None = None) -> str | None:
+    """SHA-256 of linkage's source files (``*.py``, the templates and the page's style and script), with the
+    versions of :data:`LIBRARIES` as imported in this process (``__version__``; the installed metadata for
+    one not imported yet), and matplotlib's settings in force (every ``rcParams`` entry: a ``matplotlibrc``
+    or style changes the pictures); the source part computed once a process. None when the source files
+    are no longer those of ``stamp`` (changed on disk since linkage was imported: the running code is not
+    the code the hash would name, so nothing is kept or reused)."""
+    if stamp is not None and source_stamp() != stamp:
+        return None
+    if not _code:
         root = Path(__file__).resolve().parents[1]
         digest = hashlib.sha256()
-        for path in sorted(root.rglob("*")):
-            if path.suffix in (".py", ".j2", ".css", ".js") and "__pycache__" not in path.parts:
-                digest.update(str(path.relative_to(root)).encode("utf-8") + b"\x00" + path.read_bytes() + b"\x00")
-        for name in LIBRARIES:
-            try:
-                found = version(name)
-            except PackageNotFoundError:
-                found = None
-            digest.update(f"{name}={found}\x00".encode("utf-8"))
+        for path in _sources():
+            digest.update(str(path.relative_to(root)).encode("utf-8") + b"\x00" + path.read_bytes() + b"\x00")
         _code.append(digest.hexdigest())
-    return _code[0]
+    digest = hashlib.sha256(_code[0].encode("ascii"))
+    for name in LIBRARIES:
+        digest.update(f"{name}={_version(name)}\x00".encode("utf-8"))
+    import matplotlib  # the top-level package only: its settings, not its drawing code
+
+    # dict.items: the stored values, without RcParams' per-key checks (0.4 ms against 0.2 s)
+    digest.update(repr(sorted((k, repr(v)) for k, v in dict.items(matplotlib.rcParams))).encode("utf-8"))
+    return digest.hexdigest()
+
+
+def _version(name: str) -> str | None:
+    """The version of library ``name`` as imported here, else as installed."""
+    import sys
+    from importlib.metadata import PackageNotFoundError, version
+
+    module = sys.modules.get({"scikit-learn": "sklearn"}.get(name, name))
+    if module is not None and getattr(module, "__version__", None):
+        return str(module.__version__)
+    try:
+        return version(name)
+    except PackageNotFoundError:
+        return None
 
 
 def result_sha256(result) -> str:
@@ -105,13 +145,16 @@ def result_sha256(result) -> str:
     return digest.hexdigest()
 
 
-def figures_key(models_dir, model_id, spec, *, table, lots, **arguments) -> str | None:
+def figures_key(models_dir, model_id, spec, *, table, lots, stamp: tuple | None = None, **arguments) -> str | None:
     """The key of the report's figures (see the module notes); None when the model is not in the
-    registry index (nothing is kept or reused for it)."""
+    registry index, or linkage's source files changed since ``stamp`` (nothing is kept or reused then)."""
     from linkage.models.reuse import result_key
 
+    code = code_sha256(stamp)
+    if code is None:
+        return None
     return result_key(KIND, models_dir, model_id, spec, table_sha256=frame_sha256(table),
-                      lots_sha256=frame_sha256(lots), code_sha256=code_sha256(), **arguments)
+                      lots_sha256=frame_sha256(lots), code_sha256=code, **arguments)
 
 
 def sentence(made_by: str, made_at: str, n_reused: int, n_figures: int) -> str:

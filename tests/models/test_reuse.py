@@ -148,3 +148,13 @@ def test_a_result_stored_as_the_only_one_of_its_kind_removes_the_others_and_thei
     assert sorted(recorded) == sorted([second.name, space.name])
     assert load_result(tmp_path, MODEL, "window", KEY) is None
     assert load_result(tmp_path, MODEL, "window", "cd" * 32) is not None
+
+
+def test_a_handed_in_window_of_no_stored_class_gets_no_figures_key(tmp_path):
+    """A window object the result store cannot encode is drawn by the report but not keyed (no internal
+    storage error): the report's figures are then neither kept nor reused."""
+    from linkage.api import _figures_key
+
+    _registry(tmp_path)
+    assert _figures_key(tmp_path, MODEL, None, None, None, given_window=True, window=object(), window_args=None,
+                        space_args=None, seed=0) is None

@@ -208,3 +208,58 @@ def test_the_figures_key_changes_with_the_lots_the_spec_the_model_and_the_settin
     assert here == hashlib.sha256(json.dumps(parts, sort_keys=True, default=str).encode("utf-8")).hexdigest()
     assert kept.figures_key(outputs.models_dir, "m-20000101T000000Z-00000000", spec, table=table, lots=lots,
                             **settings) is None
+
+
+def test_the_figures_key_follows_matplotlibs_settings_and_the_code_on_disk(demo, monkeypatch):
+    """matplotlib's settings in force are part of the key (a ``matplotlibrc`` or style changes the pictures:
+    here one rcParams entry, ``lines.linewidth``, changed); shap's version is one of the libraries; a source
+    stamp that no longer matches the files on disk (linkage updated under a running session) gives no key,
+    so nothing is kept or reused, and the stamp taken now gives the same key as none."""
+    import matplotlib
+
+    from linkage.assemble import assemble
+    from linkage.demo import DEMO_DATA
+    from linkage.report import kept
+    from linkage.spec import read_spec
+    from linkage.store import LotStore
+
+    folder, outputs = demo
+    spec = read_spec(DEMO_DATA / "lots" / "spec.toml")
+    with LotStore(outputs.store, create=False) as store:
+        table, lots = assemble(store.current_tables()), store.lots()
+
+    def key(**extra):
+        return kept.figures_key(outputs.models_dir, outputs.model_id, spec, table=table, lots=lots, seed=0, **extra)
+
+    here = key()
+    with matplotlib.rc_context({"lines.linewidth": matplotlib.rcParams["lines.linewidth"] + 1.0}):
+        assert key() not in (None, here)
+    assert key() == here
+    assert "shap" in kept.LIBRARIES
+    stamp = kept.source_stamp()
+    assert key(stamp=stamp) == here
+    path, mtime, size = stamp[0]
+    assert key(stamp=((path, mtime - 1, size), *stamp[1:])) is None
+
+
+def test_results_of_a_model_object_are_not_kept_under_its_registry_id(demo, tmp_path):
+    """``window`` and ``space`` given a model object (not an id) compute their result but keep nothing
+    beside the registry's model of that id: the object may not be what the registry holds."""
+    import shutil
+
+    from linkage import api
+    from linkage.demo import DEMO_DATA
+    from linkage.models.registry import load
+
+    folder, outputs = demo
+    models = tmp_path / "models"
+    shutil.copytree(outputs.models_dir, models)
+    results = models / outputs.model_id / "results"
+    shutil.rmtree(results, ignore_errors=True)
+    chain = load(models, outputs.model_id)
+    spec = DEMO_DATA / "lots" / "spec.toml"
+    api.window(spec, store=None, models_dir=models, model=chain, n_draws=200)
+    api.space(spec, models_dir=models, model=chain, n_grid=6)
+    assert not results.exists() or not any(results.iterdir())
+    api.window(spec, store=None, models_dir=models, model=outputs.model_id, n_draws=200)
+    assert any(p.name.startswith("window-") for p in results.iterdir())
