@@ -552,31 +552,27 @@ def record_decision(models_dir, decision: dict) -> None:
 PENDING, IN_EFFECT, ABANDONED = "pending", "in effect", "abandoned"
 
 
-def record_result(models_dir, model_id: str, name: str, data: bytes) -> None:
+def record_result(models_dir, model_id: str, name: str, data: bytes, *, write=None, prune=None) -> None:
     """Record in the index the SHA-256 of a result file kept beside the model
     (:mod:`linkage.models.reuse`), so that it is held to the same check as the
     model's own files: a result whose bytes differ from the index's record is
-    not reused."""
+    not reused. ``write()``, when given, writes the file under the same lock
+    as its record (two reports storing at once never leave one's record over
+    the other's bytes); ``prune()``, when given, is called next under that
+    lock and returns the names of result files it removed, whose records go."""
     models_dir = Path(models_dir)
     with _locked(models_dir):
         index = _read_index(models_dir)
         entry = index["models"].get(model_id)
         if entry is None:
             raise ModelNotFoundError(f"no model {model_id} in the registry {models_dir}")
-        entry.setdefault("results", {})[name] = _sha256(data)
+        if write is not None:
+            write()
+        results = entry.setdefault("results", {})
+        results[name] = _sha256(data)
+        for gone in (prune() if prune is not None else []):
+            results.pop(gone, None)
         _write_index(models_dir, index)
-
-
-def forget_results(models_dir, model_id: str, names) -> None:
-    """Drop from the index the records of result files removed from beside the model."""
-    models_dir = Path(models_dir)
-    with _locked(models_dir):
-        index = _read_index(models_dir)
-        results = (index["models"].get(model_id) or {}).get("results") or {}
-        if any(name in results for name in names):
-            for name in names:
-                results.pop(name, None)
-            _write_index(models_dir, index)
 
 
 def recorded_artifact_sha256(models_dir, model_id: str) -> str | None:

@@ -36,7 +36,7 @@ from pathlib import Path
 import numpy as np
 
 from linkage.exceptions import LinkageError
-from linkage.models.registry import forget_results, record_result, result_intact
+from linkage.models.registry import record_result, result_intact
 
 __all__ = ["Reused", "result_key", "load_result", "save_result"]
 
@@ -182,16 +182,18 @@ def save_result(models_dir, model_id: str | None, kind: str, key: str | None, re
     data = buf.getvalue()
     try:
         path.parent.mkdir(exist_ok=True)
-        written = write_atomic(path, data)
-        record_result(models_dir, model_id, path.name, data)
-        if only:
+
+        def prune() -> list[str]:
             older = [p for p in path.parent.glob(f"{kind}-*.npz") if p.name != path.name]
             for p in older:
                 p.unlink(missing_ok=True)
-            forget_results(models_dir, model_id, [p.name for p in older])
+            return [p.name for p in older]
+
+        record_result(models_dir, model_id, path.name, data, write=lambda: write_atomic(path, data),
+                      prune=prune if only else None)
     except (OSError, LinkageError):
         return None
-    return written
+    return path
 
 
 def load_result(models_dir, model_id: str | None, kind: str, key: str | None) -> Reused | None:
