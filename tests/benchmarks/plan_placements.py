@@ -35,6 +35,7 @@ filter, random lots uniform over them. Placements ``win_even``,
     python tests/benchmarks/plan_placements.py FIRST_SEED STOP_SEED [--lots 16] [--scenario spread]
         [--designs random,win_even,...] >> rows.jsonl
     python tests/benchmarks/plan_placements.py --summary rows.jsonl [rows2.jsonl ...]
+    python tests/benchmarks/plan_placements.py --pool rows.jsonl   # each seed once, by placement
 """
 
 from __future__ import annotations
@@ -184,11 +185,11 @@ def summary(files) -> str:
         rs = [r for r in rows if r.get("scenario", "spread") == scenario and placements(r) == designs]
         err = {d: np.array([abs(r[d][0]) + abs(r[d][1]) if r.get(d) else np.nan for r in rs]) for d in designs}
         before = np.array([abs(r["before"][0]) + abs(r["before"][1]) for r in rs])
-        out += [f"### Scenario `{scenario}`, {rs[0]['lots']} lots + 8: {len(rs)} campaigns (seeds "
-                f"{', '.join(str(r['seed']) for r in rs)})", "",
+        out += [f"### Scenario `{scenario}`, {rs[0]['lots']} lots + 8, placements {', '.join(designs)}: {len(rs)} "
+                f"campaigns (seeds {', '.join(str(r['seed']) for r in rs)})", "",
                 "| placement | mean error after | low edge | high edge | mean reduction | ratio to random | "
                 "paired difference to random (SE) | better than random |", "|---|---|---|---|---|---|---|---|",
-                f"| before (16 lots) | {before.mean():.4f} | {np.mean([abs(r['before'][0]) for r in rs]):.4f} | "
+                f"| before ({rs[0]['lots']} lots) | {before.mean():.4f} | {np.mean([abs(r['before'][0]) for r in rs]):.4f} | "
                 f"{np.mean([abs(r['before'][1]) for r in rs]):.4f} | | | | |"]
         red_r = before - err["random"]
         for d in designs:
@@ -197,11 +198,54 @@ def summary(files) -> str:
             ok = ~np.isnan(diff)
             lo = np.nanmean([abs(r[d][0]) if r.get(d) else np.nan for r in rs])
             hi = np.nanmean([abs(r[d][1]) if r.get(d) else np.nan for r in rs])
-            cmp = "" if d == "random" else (f"{np.nanmean(red) / np.nanmean(red_r):.2f} | {np.nanmean(diff):+.4f} "
+            cmp = "" if d == "random" else (f"{np.mean(red[ok]) / np.mean(red_r[ok]):.2f} | {np.nanmean(diff):+.4f} "
                                             f"({np.nanstd(diff, ddof=1) / np.sqrt(ok.sum()):.4f}) | "
                                             f"{int(np.sum(diff[ok] > 0))} of {int(ok.sum())}")
             out.append(f"| {d} | {np.nanmean(err[d]):.4f} | {lo:.4f} | {hi:.4f} | {np.nanmean(red):.4f} | "
                        + (cmp if cmp else "1 | | ") + " |")
+        out.append("")
+    return "\n".join(out)
+
+
+def pool(files) -> str:
+    """Per scenario and placement, pooled over every campaign seed it ran on, each seed counted once (the
+    first fit and the random lots of a seed are the same rows in every run that has them): campaigns, mean
+    reductions of the placement and of random lots on those campaigns, their ratio, the paired difference
+    (mean, standard error), campaigns better than random; and each edge's signed error, estimated − true
+    (mean, and the share of campaigns above the truth), the first fit's and random's on their own seeds."""
+    rows = [json.loads(line) for f in files for line in Path(f).read_text().splitlines() if '"skip"' not in line]
+    out = []
+    for scenario in sorted({r.get("scenario", "spread") for r in rows}):
+        by = {}  # (placement, seed) -> (before, after); the first occurrence of a seed
+        for r in (r for r in rows if r.get("scenario", "spread") == scenario):
+            for d, v in r.items():
+                if d not in ("seed", "lots", "scenario", "seconds") and v is not None:
+                    by.setdefault((d, r["seed"]), (r["before"], v))
+        placements = sorted({d for d, _ in by} - {"before"}, key=lambda d: (d != "random", d))
+        out += [f"### Scenario `{scenario}`, pooled over seeds (each once)", "",
+                "| placement | campaigns | mean reduction | random's on the same campaigns | ratio | paired difference "
+                "(SE) | better than random | low edge: signed error (share above the truth) | high edge: the same |",
+                "|---|---|---|---|---|---|---|---|---|"]
+        for d in ["before", *placements]:
+            seeds = sorted(s for p, s in by if p == d)
+
+            def err(v):
+                return abs(v[0]) + abs(v[1])
+
+            low = np.array([by[(d, s)][1][0] for s in seeds])
+            high = np.array([by[(d, s)][1][1] for s in seeds])
+            signed = f"{low.mean():+.4f} ({np.mean(low > 0):.0%}) | {high.mean():+.4f} ({np.mean(high > 0):.0%})"
+            if d in ("before", "random"):
+                red = np.array([err(by[(d, s)][0]) - err(by[(d, s)][1]) for s in seeds])
+                shown = "" if d == "before" else f"{red.mean():.4f}"
+                out.append(f"| {d} | {len(seeds)} | {shown} | | | | | {signed} |")
+                continue
+            red = np.array([err(by[(d, s)][0]) - err(by[(d, s)][1]) for s in seeds])
+            red_r = np.array([err(by[("random", s)][0]) - err(by[("random", s)][1]) for s in seeds])
+            diff = red - red_r
+            out.append(f"| {d} | {len(seeds)} | {red.mean():.4f} | {red_r.mean():.4f} | {red.mean() / red_r.mean():.2f} "
+                       f"| {diff.mean():+.4f} ({diff.std(ddof=1) / np.sqrt(len(diff)):.4f}) | "
+                       f"{int(np.sum(diff > 0))} of {len(diff)} | {signed} |")
         out.append("")
     return "\n".join(out)
 
@@ -214,9 +258,13 @@ def main(argv=None) -> int:
     ap.add_argument("--scenario", choices=["spread", "narrow"], default="spread")
     ap.add_argument("--designs", default=None, help="comma-separated placements (default: the scenario's)")
     ap.add_argument("--summary", nargs="+", default=None, help="rows files to summarise instead of running")
+    ap.add_argument("--pool", nargs="+", default=None, help="rows files to pool by placement instead of running")
     args = ap.parse_args(argv)
     if args.summary:
         print(summary(args.summary))
+        return 0
+    if args.pool:
+        print(pool(args.pool))
         return 0
     designs = args.designs.split(",") if args.designs else (NARROW if args.scenario == "narrow" else SPREAD)
     run(args.first, args.stop, args.lots, args.scenario, designs)
