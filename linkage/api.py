@@ -52,6 +52,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Callable, Iterable, Mapping
 
+from linkage.decide import defaults
 from linkage.results import Ingested, Retrained, Trained, Watched, WhatIfResult, Window
 from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN, DEFAULT_FINES_CUTOFF_UM
 
@@ -313,7 +314,7 @@ def retrain(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, spec=None, pr
 
 
 def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
-           settings: Mapping[str, float] | None = None, confidence: float = 0.9, n_draws: int = 2000,
+           settings: Mapping[str, float] | None = None, confidence: float = 0.9, n_draws: int = defaults.WINDOW_DRAWS,
            seed: int = 0, assurance: float = 0.9) -> Window:
     """The ribbon porosity window where every limit of ``spec`` passes
     together with probability ``confidence``, and the roll force that lands
@@ -409,8 +410,8 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
     return planning.Planned(result, written, recorded)
 
 
-def space(spec, *, models_dir=DEFAULT_MODELS_DIR, model="latest", x: str = "roll_force_kn_per_cm",
-          y: str = "roll_gap_mm", n_grid: int = 40, settings: Mapping[str, float] | None = None,
+def space(spec, *, models_dir=DEFAULT_MODELS_DIR, model="latest", x: str = defaults.MAP_X,
+          y: str = defaults.MAP_Y, n_grid: int = defaults.MAP_GRID, settings: Mapping[str, float] | None = None,
           confidence: float = 0.9, assurance: float = 0.9, seed: int = 0):
     """The map of P(all pass) and its lower bound over two settings, the
     applicability-domain mask and the acceptable ranges (``linkage space``;
@@ -572,9 +573,11 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     space, reused = None, {}
     registered = model is None or isinstance(model, str)  # loaded from the registry and checked: results kept
     if spec is not None:  # what `linkage window` / `linkage space` (or an earlier report) computed, reused
-        window_args = dict(settings={}, confidence=confidence, n_draws=2000, seed=seed, assurance=assurance)
-        space_args = dict(x="roll_force_kn_per_cm", y="roll_gap_mm", n_grid=40, settings={}, confidence=confidence,
-                          assurance=assurance, seed=seed)
+        # the defaults of `linkage window` and `linkage space`, so that what they kept is found
+        window_args = dict(settings={}, confidence=confidence, n_draws=defaults.WINDOW_DRAWS, seed=seed,
+                           assurance=assurance)
+        space_args = dict(x=defaults.MAP_X, y=defaults.MAP_Y, n_grid=defaults.MAP_GRID, settings={},
+                          confidence=confidence, assurance=assurance, seed=seed)
         kept = None if found is not None or not registered else _reuse(models_dir, chain.model_id, "window", spec,
                                                                          **window_args)
         if kept is not None:

@@ -9,6 +9,7 @@ import click
 
 from linkage.cli.common import (PROBABILITY, check_output, handle_errors, json_option, models_dir_option,
                                 store_option)
+from linkage.decide import defaults
 from linkage.jsonable import jsonable
 from linkage.results import whatif_text, window_text
 
@@ -33,7 +34,7 @@ _assurance_option = click.option(
 @_set_option
 @click.option("--confidence", default=0.9, show_default=True, type=PROBABILITY,
               help="Probability of meeting every specification together that the window must reach.")
-@click.option("--draws", "n_draws", default=2000, show_default=True, type=click.IntRange(200, 200_000),
+@click.option("--draws", "n_draws", default=defaults.WINDOW_DRAWS, show_default=True, type=click.IntRange(200, 200_000),
               help="Monte Carlo draws per porosity.")
 @click.option("--seed", default=0, show_default=True, type=int)
 @_assurance_option

@@ -9,6 +9,7 @@ from pathlib import Path
 import click
 
 from linkage.cli.common import PROBABILITY, check_output, handle_errors, json_option, models_dir_option
+from linkage.decide import defaults
 
 
 @click.command()
@@ -16,9 +17,9 @@ from linkage.cli.common import PROBABILITY, check_output, handle_errors, json_op
               help="Specification file (spec.toml).")
 @click.option("--model", "model_id", default="latest", show_default=True,
               help="Model id from 'linkage models', or 'latest'.")
-@click.option("--x", "x", default="roll_force_kn_per_cm", show_default=True, help="Setting on the x axis.")
-@click.option("--y", "y", default="roll_gap_mm", show_default=True, help="Setting on the y axis.")
-@click.option("--grid", "n_grid", default=40, show_default=True, type=click.IntRange(3, 200),
+@click.option("--x", "x", default=defaults.MAP_X, show_default=True, help="Setting on the x axis.")
+@click.option("--y", "y", default=defaults.MAP_Y, show_default=True, help="Setting on the y axis.")
+@click.option("--grid", "n_grid", default=defaults.MAP_GRID, show_default=True, type=click.IntRange(3, 200),
               help="Grid points per setting (over its training range).")
 @click.option("--set", "assignments", multiple=True, metavar="NAME=VALUE",
               help="Hold another setting at VALUE (the rest are held coherently). Repeatable.")

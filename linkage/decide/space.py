@@ -62,10 +62,11 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from linkage import CAUTION
+from linkage.decide.defaults import MAP_GRID, MAP_X, MAP_Y
 from linkage.exceptions import UsageError
 
-FORCE = "roll_force_kn_per_cm"
-GAP = "roll_gap_mm"
+FORCE = MAP_X  # the map's default axes (linkage.decide.defaults)
+GAP = MAP_Y
 
 
 @dataclass
@@ -268,7 +269,7 @@ def domain_mask(lean, columns: dict[str, np.ndarray]) -> tuple[np.ndarray, list[
     return ok, reasons
 
 
-def design_space(chain, spec, *, x: str = FORCE, y: str = GAP, n_grid: int = 40, confidence: float = 0.9,
+def design_space(chain, spec, *, x: str = FORCE, y: str = GAP, n_grid: int = MAP_GRID, confidence: float = 0.9,
                  assurance: float = 0.9, settings: dict[str, float] | None = None, seed: int = 0,
                  cells: int | None = None) -> SpaceResult:
     """The map of P(all pass) and its lower bound over ``x`` × ``y`` (each

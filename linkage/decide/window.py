@@ -55,6 +55,7 @@ import pandas as pd
 from linkage import CAUTION
 from linkage.decide import compendial
 from linkage.decide.bound import NO_BOUND, chain_probabilities, check_assurance, with_unit_level
+from linkage.decide.defaults import WINDOW_DRAWS
 from linkage.decide.held import held_point
 from linkage.decide.propagate import fill_settings, mean_passes, pass_matrix, simulate, within
 from linkage.exceptions import UsageError
@@ -176,7 +177,7 @@ def _floats(a) -> list[float]:
 
 
 def find_window(chain, spec, *, settings: dict[str, float] | None = None, confidence: float = 0.9,
-                n_grid: int = 121, n_draws: int = 2000, seed: int = 0, assurance: float = 0.9) -> WindowResult:
+                n_grid: int = 121, n_draws: int = WINDOW_DRAWS, seed: int = 0, assurance: float = 0.9) -> WindowResult:
     """Scan ribbon porosity over the training range and find the window.
 
     Parameters

@@ -349,9 +349,10 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     # the two costly computations that need nothing the other sections compute start beside them
     pending = {"watch": Background(watch, chain, table, fork=parallel)}
     if spec is not None and space is None:
+        from linkage.decide.defaults import MAP_GRID
         from linkage.decide.space import design_space
 
-        args = dict(x=FORCE, y=GAP, n_grid=40, confidence=confidence, assurance=assurance, seed=seed)
+        args = dict(x=FORCE, y=GAP, n_grid=MAP_GRID, confidence=confidence, assurance=assurance, seed=seed)
         pending["space"] = Background(design_space, chain, spec, fork=parallel, **args)
     try:
         _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,

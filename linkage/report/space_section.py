@@ -11,6 +11,7 @@ from functools import partial
 import numpy as np
 
 from linkage import CAUTION
+from linkage.decide.defaults import MAP_GRID
 
 
 def plot_space(result, lots_x=None, lots_y=None, *, ax=None):
@@ -76,7 +77,7 @@ def plot_space(result, lots_x=None, lots_y=None, *, ax=None):
 
 
 def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: float = 0.9, seed: int = 0,
-                  n_grid: int = 40, result=None, refused=None) -> None:
+                  n_grid: int = MAP_GRID, result=None, refused=None) -> None:
     """The report section: the map over roll force × gap, the acceptable
     ranges and the held settings; a note instead when it cannot be made.
     ``result``: the map already computed with these arguments (reused, or
