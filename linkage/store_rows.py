@@ -84,9 +84,11 @@ class LotTable:
     columns: list[str]
     sha256: str
     n_filled: int
+    # the seal's hashes, computed with the rows (encode_table); required, so that no lot table can reach the
+    # store without them (the store writes them as given)
+    rows_sha256: str  # linkage.seal.rows_sha256(rows)
+    source_rows_sha256: str  # linkage.seal.source_rows_sha256(source_rows)
     columns_json: str = ""  # _json(columns), written once per table
-    rows_sha256: str = ""  # linkage.seal.rows_sha256(rows), computed with the rows (encode_table)
-    source_rows_sha256: str = ""  # linkage.seal.source_rows_sha256(source_rows), likewise
 
 
 # The one JSON encoder of a lot table's rows. Each row is a JSON object written two ways from the same
