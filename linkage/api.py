@@ -53,12 +53,13 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Callable, Iterable, Mapping
 
 from linkage.decide import defaults
+from linkage.report.kept import source_stamp
 from linkage.results import Ingested, Retrained, Trained, Watched, WhatIfResult, Window
 from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN, DEFAULT_FINES_CUTOFF_UM
 
 #: linkage's source files as they were when this module was imported (:func:`linkage.report.kept.source_stamp`):
 #: a report keeps or reuses figures only while the files on disk are still the code running
-SOURCE_STAMP = __import__("linkage.report.kept", fromlist=["source_stamp"]).source_stamp()
+SOURCE_STAMP = source_stamp()
 #: draws of each probability curve of the report (render_report's ``curve_draws``; part of the figures' key)
 REPORT_CURVE_DRAWS = 400
 
