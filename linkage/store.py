@@ -377,11 +377,29 @@ class LotStore:
                                  "read-only here: open it once with write access to upgrade and seal it")
             self.check_seals()
             return
-        c.execute("PRAGMA journal_mode = WAL")
+        self._journal_wal(c)
         c.execute("PRAGMA synchronous = FULL")
         if version < SCHEMA_VERSION:
             self._upgrade()
         self.check_seals()
+
+    def _journal_wal(self, c) -> None:
+        """The WAL journal. Setting it takes a moment alone with the file, and SQLite can answer "database is
+        locked" at once, without waiting its busy timeout, while another process creates or opens the same
+        new store (seen in tests/reliability/test_concurrency.py); so it is tried again until the busy timeout,
+        and then refused as busy (exit code 3, try again), never a traceback."""
+        import time
+
+        deadline = time.monotonic() + self.busy_timeout_s
+        while True:
+            try:
+                c.execute("PRAGMA journal_mode = WAL")
+                return
+            except sqlite3.OperationalError as exc:
+                text = str(exc).lower()
+                if time.monotonic() >= deadline or not ("locked" in text or "busy" in text):
+                    raise self._error(exc) from None
+                time.sleep(0.05)
 
     def check_seals(self, *, full: bool = False) -> dict:
         """Check the records against their seals (:mod:`linkage.seal`); raises
