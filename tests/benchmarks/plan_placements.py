@@ -3,7 +3,7 @@
 Not a test, and not the plan's own criteria (``plan_benefit.py`` measures
 those): simple placements of the 8 added lots, each target porosity met by the
 candidate settings whose ribbon porosity the first fit's ribbon stage predicts
-nearest (each candidate once; the candidates and their predictions are
+nearest (each candidate once, ``linkage.decide.plan_thompson.nearest``; the candidates and their predictions are
 ``linkage.decide.plan._candidates``'s, as the plan has them), against 8
 random lots. Each campaign of ``linkage.synthetic``'s window scenario (a known
 truth) is fitted (``train_chain``, seed 0, no bootstrap replicates, so the
@@ -55,16 +55,6 @@ NARROW = ["random", "win_even", "edges_pair", "edges_out"]
 EQUIPMENT = {"roll_force_kn_per_cm": (3.0, 16.0), "roll_gap_mm": (1.5, 3.5), "roll_speed_rpm": (2.0, 8.0)}
 
 
-def nearest(eps_c, pool, targets):
-    chosen, avail = [], set(np.asarray(pool).tolist())
-    for t in targets:
-        idx = np.array(sorted(avail))
-        k = int(idx[np.argmin(np.abs(eps_c[idx] - t))])
-        chosen.append(k)
-        avail.discard(k)
-    return chosen
-
-
 def maximin(eps_c, pool, existing, lo, hi, n):
     chosen, pts = [], list(existing)
     idx = pool[(eps_c[pool] >= lo) & (eps_c[pool] <= hi)]
@@ -102,6 +92,8 @@ def _with_screw(d):  # screw at the nominal feed for the roll speed and gap
 def run(first, stop, n_lots, scenario, designs):
     from plan_benefit import _combined, _random_settings
     from scipy.stats import qmc
+
+    from linkage.decide.plan_thompson import nearest
 
     from linkage.assemble import assemble
     from linkage.decide.plan import POROSITY, _candidates, _ribbon_stage
