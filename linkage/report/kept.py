@@ -19,19 +19,23 @@ namely
   arguments they are computed or kept with; a window handed in is hashed
   itself);
 * the code: the SHA-256 of linkage's own source files and the versions of
-  matplotlib, numpy, pandas, scipy, scikit-learn and shap (as imported), so
-  any change of the code that draws or computes a figure gives another key;
-  and matplotlib's settings in force (``rcParams``: a ``matplotlibrc`` or a
-  style changes the pictures). When linkage's source files on disk are no
+  matplotlib, numpy, pandas, scipy, scikit-learn, shap and Pillow (which
+  writes the PNGs; as imported), so any change of the code that draws or
+  computes a figure gives another key; matplotlib's settings in force
+  (``rcParams``: a ``matplotlibrc`` or a style changes the pictures); and the
+  font file matplotlib resolves for the figures' text (its name and
+  SHA-256: a font installed that takes precedence changes the pictures). When linkage's source files on disk are no
   longer those that were there when :mod:`linkage.api` was imported (an
   update under a running session), there is no key: nothing is kept or
   reused.
 
 A file whose bytes differ from the index's record (changed by hand, copied
 in), another key, or a figure whose caption is not the one the report now
-writes, is not used: that figure is drawn again. What is not in the key: the
-fonts of the machine beyond matplotlib's own (the figures use matplotlib's
-bundled font) and the time of day (no figure shows it).
+writes, is not used: that figure is drawn again. What is not in the key: a
+fallback font matplotlib takes for a character the resolved font lacks (a
+lot or product name in another script; the bundled font has every
+character of linkage's own labels and units) and the time of day (no figure
+shows it).
 """
 
 from __future__ import annotations
@@ -46,7 +50,10 @@ import numpy as np
 KIND = "figures"
 
 #: the libraries whose version is part of the key (their code draws or computes the figures)
-LIBRARIES = ("matplotlib", "numpy", "pandas", "scipy", "scikit-learn", "shap")
+LIBRARIES = ("matplotlib", "numpy", "pandas", "scipy", "scikit-learn", "shap", "pillow")
+
+#: import names of the libraries whose distribution name differs
+_MODULES = {"scikit-learn": "sklearn", "pillow": "PIL"}
 
 _code: list[str] = []
 
@@ -95,8 +102,9 @@ def source_stamp() -> tuple:
 def code_sha256(stamp: tuple | None = None) -> str | None:
     """SHA-256 of linkage's source files (``*.py``, the templates and the page's style and script), with the
     versions of :data:`LIBRARIES` as imported in this process (``__version__``; the installed metadata for
-    one not imported yet), and matplotlib's settings in force (every ``rcParams`` entry: a ``matplotlibrc``
-    or style changes the pictures); the source part computed once a process. None when the source files
+    one not imported yet), matplotlib's settings in force (every ``rcParams`` entry: a ``matplotlibrc``
+    or style changes the pictures) and the font file the figures' text resolves to (:func:`_font`); the
+    source part computed once a process. None when the source files
     are no longer those of ``stamp`` (changed on disk since linkage was imported: the running code is not
     the code the hash would name, so nothing is kept or reused)."""
     if stamp is not None and source_stamp() != stamp:
@@ -114,7 +122,18 @@ def code_sha256(stamp: tuple | None = None) -> str | None:
 
     # dict.items: the stored values, without RcParams' per-key checks (0.4 ms against 0.2 s)
     digest.update(repr(sorted((k, repr(v)) for k, v in dict.items(matplotlib.rcParams))).encode("utf-8"))
+    digest.update(_font().encode("utf-8"))
     return digest.hexdigest()
+
+
+def _font() -> str:
+    """The file name and SHA-256 of the font matplotlib resolves for the figures' text (its default font
+    properties under the settings in force: every text of the figures uses them, at other sizes); about
+    12 ms, most of it importing matplotlib's font list, which the drawing loads anyway."""
+    from matplotlib import font_manager
+
+    path = Path(font_manager.findfont(font_manager.FontProperties(), fallback_to_default=True))
+    return f"{path.name}={hashlib.sha256(path.read_bytes()).hexdigest()}"
 
 
 def _version(name: str) -> str | None:
@@ -122,7 +141,7 @@ def _version(name: str) -> str | None:
     import sys
     from importlib.metadata import PackageNotFoundError, version
 
-    module = sys.modules.get({"scikit-learn": "sklearn"}.get(name, name))
+    module = sys.modules.get(_MODULES.get(name, name))
     if module is not None and getattr(module, "__version__", None):
         return str(module.__version__)
     try:

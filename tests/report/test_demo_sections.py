@@ -236,6 +236,22 @@ def test_the_figures_key_follows_matplotlibs_settings_and_the_code_on_disk(demo,
         assert key() not in (None, here)
     assert key() == here
     assert "shap" in kept.LIBRARIES
+    # a font that takes precedence over the bundled one changes the pictures: another key. The font file
+    # named is the one matplotlib's own findfont resolves, with hashlib's SHA-256 of its bytes
+    import hashlib
+    from pathlib import Path
+
+    from matplotlib import font_manager
+
+    resolved = Path(font_manager.findfont(font_manager.FontProperties()))
+    assert kept._font() == f"{resolved.name}={hashlib.sha256(resolved.read_bytes()).hexdigest()}"
+    families = {font_manager.FontProperties(fname=f).get_name() for f in resolved.parent.glob("*.ttf")}
+    other = sorted(families - {font_manager.FontProperties(fname=resolved).get_name()})[0]
+    with matplotlib.rc_context({"font.family": other}):
+        assert kept._font().split("=")[0] != resolved.name
+        assert key() not in (None, here)
+    # Pillow writes the PNGs: its version is part of the key
+    assert "pillow" in kept.LIBRARIES and kept._version("pillow") == __import__("PIL").__version__
     stamp = kept.source_stamp()
     assert key(stamp=stamp) == here
     path, mtime, size = stamp[0]
