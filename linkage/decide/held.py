@@ -176,6 +176,14 @@ def sources(model: SimpleNamespace, names, label: str) -> dict[str, str]:
             for n in names}
 
 
+def hold_with_sources(model: SimpleNamespace, given: dict[str, np.ndarray],
+                      missing: list[str]) -> tuple[dict[str, np.ndarray], dict[str, str]]:
+    """:func:`hold`, with each held setting's source as :func:`sources` words it (the two belong together:
+    a discrete setting's source names the level it was moved to)."""
+    values, label = hold(model, given, missing)
+    return values, sources(model, values, label)
+
+
 def _held_at_mean(model, columns: dict, todo: list[str], idx: dict, rows: int) -> dict[str, np.ndarray]:
     """The conditional mean of ``todo`` given ``columns``, clipped to the training range."""
     names = list(columns)

@@ -169,8 +169,7 @@ def fill_settings(chain, given: dict[str, float], *, scan=()) -> tuple[dict[str,
     model = held.of_chain(chain)
     if model is not None:
         known = {k: v for k, v in given.items() if k not in set(scan)}
-        coherent, label = held.hold(model, known, needed)
-        labels = held.sources(model, coherent, label)
+        coherent, labels = held.hold_with_sources(model, known, needed)
         for name, v in coherent.items():
             values[name] = float(v[0])
             source[name] = labels[name]

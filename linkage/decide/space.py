@@ -227,8 +227,7 @@ def hold_grid(lean, given: dict[str, np.ndarray]) -> tuple[dict[str, np.ndarray]
     out: dict[str, np.ndarray] = {}
     sources: dict[str, str] = {}
     if model is not None:
-        out, label = held.hold(model, given, needed)
-        sources = held.sources(model, out, label)
+        out, sources = held.hold_with_sources(model, given, needed)
     for name in needed:
         if name in out:
             continue

@@ -184,6 +184,12 @@ def test_a_discrete_setting_is_held_at_the_nearest_level_and_the_rest_follow_it(
     assert v0["speed"][0] == pytest.approx(speed.mean(), rel=1e-12)  # the others stay at the training mean
     assert abs(v0["screen"][0] - screen.mean()) <= 0.125 + 1e-12
     assert held.nearest_level([1.125], [1.0, 1.25])[0] == 1.0  # a tie takes the lower level
+    # hold_with_sources: the same values, and a discrete setting's source names the level it was moved to
+    both, said = held.hold_with_sources(m, {"force": f}, ["screen", "speed"])
+    np.testing.assert_array_equal(both["screen"], values["screen"])
+    np.testing.assert_array_equal(both["speed"], values["speed"])
+    assert said == {"screen": held.COHERENT_LEVEL, "speed": held.COHERENT}
+    assert held.hold_with_sources(m, {}, ["screen", "speed"])[1] == {"screen": held.MEAN_LEVEL, "speed": held.MEAN}
 
 
 def test_the_scenario_holds_the_mill_screen_at_a_level_run_and_an_older_model_still_loads(scenario):
