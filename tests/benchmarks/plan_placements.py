@@ -22,7 +22,12 @@ Placements (lo, hi: the first fit's window):
 * ``win_maximin``: greedy, each lot where the distance to the nearest measured or
   chosen porosity is largest within lo − 0.03 to hi + 0.03;
 * ``edges_pair``: lo ± 0.007, ± 0.02 and hi ± 0.007, ± 0.02;
-* ``full_even``: equally spaced over the training lots' porosity range.
+* ``full_even``: equally spaced over the training lots' porosity range;
+* ``oracle_edges`` and ``oracle_even``: references no plan can reach, since they
+  use the truth: 4 lots at each *true* edge (± 0.003, ± 0.01), or 8 equally
+  spaced over the true window ± 0.03, each target met by the candidate whose
+  *true* mean porosity (``Truth.porosity_mean``) lies nearest. If these do not
+  beat random lots by a third, no placement by porosity will.
 
 Scenario ``narrow``: campaigns run over roll force 7-11 kN/cm only (gap 2.0,
 2.5 or 3.0 mm, roll speed 3-7 rpm, screw at the nominal feed with 8 % scatter),
@@ -36,6 +41,11 @@ filter, random lots uniform over them. Placements ``win_even``,
         [--designs random,win_even,...] >> rows.jsonl
     python tests/benchmarks/plan_placements.py --summary rows.jsonl [rows2.jsonl ...]
     python tests/benchmarks/plan_placements.py --pool rows.jsonl   # each seed once, by placement
+
+With ``--bootstrap B`` (B lot-level bootstrap replicates in every fit) a row
+also scores the window the tool reports, the lower bound's (``low``/``high``:
+inside the true window by design), under ``"bound"``; ``--score bound`` makes
+``--summary`` and ``--pool`` read those instead of the point estimate's.
 """
 
 from __future__ import annotations
@@ -89,7 +99,7 @@ def _with_screw(d):  # screw at the nominal feed for the roll speed and gap
     return d
 
 
-def run(first, stop, n_lots, scenario, designs):
+def run(first, stop, n_lots, scenario, designs, n_bootstrap=0):
     from plan_benefit import _combined, _random_settings
     from scipy.stats import qmc
 
@@ -110,7 +120,7 @@ def run(first, stop, n_lots, scenario, designs):
 
     def fit(tables):
         table = assemble(tables)
-        chain = train_chain(table, seed=0, n_bootstrap=0)
+        chain = train_chain(table, seed=0, n_bootstrap=n_bootstrap)
         return table, chain, find_window(chain, spec, settings=s, confidence=0.9)
 
     for seed in range(first, stop):
@@ -147,31 +157,68 @@ def run(first, stop, n_lots, scenario, designs):
                    "win_even_wide": np.linspace(lo - 0.06, hi + 0.06, 8),
                    "edges_pair": [lo - .02, lo - .007, lo + .007, lo + .02, hi - .02, hi - .007, hi + .007, hi + .02],
                    "edges_out": [lo - .04, lo - .03, lo - .02, lo - .01, hi + .01, hi + .02, hi + .03, hi + .04],
-                   "full_even": np.linspace(existing.min(), existing.max(), 8)}
+                   "full_even": np.linspace(existing.min(), existing.max(), 8),
+                   "oracle_edges": [tl - .01, tl - .003, tl + .003, tl + .01, th - .01, th - .003, th + .003, th + .01],
+                   "oracle_even": np.linspace(tl - 0.03, th + 0.03, 8)}
         for d in designs:
             if d == "random":
                 continue
-            ch = maximin(eps_c, pool, existing, lo - 0.03, hi + 0.03, 8) if d == "win_maximin" \
-                else nearest(eps_c, pool, targets[d])
+            if d == "win_maximin":
+                ch = maximin(eps_c, pool, existing, lo - 0.03, hi + 0.03, 8)
+            elif d.startswith("oracle_"):
+                true_eps = truth.porosity_mean(*(np.asarray(cand[k], float) for k in
+                                                 ("roll_force_kn_per_cm", "roll_gap_mm", "roll_speed_rpm",
+                                                  "screw_speed_rpm")))
+                ch = nearest(true_eps, pool, targets[d])
+            else:
+                ch = nearest(eps_c, pool, targets[d])
             chosen_settings[d] = {k: np.round(np.asarray(cand[k], float)[ch], decimals) for k in cand}
         row = {"seed": seed, "lots": n_lots, "scenario": scenario, "before": (lo - tl, hi - th)}
+        bound = {"before": _bound_error(w0, tl, th)} if n_bootstrap else None
         for d in designs:
             sett = {k: list(np.asarray(v, float)) for k, v in chosen_settings[d].items()} | {k: [s[k]] * 8 for k in s}
             new = make_lots(8, seed=seed + 10_000, truth=truth, settings=sett, lot_prefix="NEW", start="2026-06-01")
             _, _, w = fit(_combined(lots.tables, new.tables))
             row[d] = None if w.point_low is None else (w.point_low - tl, w.point_high - th)
+            if bound is not None:
+                bound[d] = _bound_error(w, tl, th)
+        if bound is not None:
+            row |= {"bootstrap": n_bootstrap, "bound": bound}
         row["seconds"] = round(time.perf_counter() - t0)
         print(json.dumps(row), flush=True)
 
 
-def summary(files) -> str:
+def _bound_error(w, tl, th):
+    """Signed error of the lower bound's window (the one the tool reports), or None where it has none."""
+    return None if w.low.value is None else (w.low.value - tl, w.high.value - th)
+
+
+NOT_PLACEMENTS = ("seed", "lots", "scenario", "seconds", "before", "bootstrap", "bound")
+
+
+def _rows(files, score: str = "point") -> list[dict]:
+    """The rows of ``files``; with ``score="bound"`` each row's errors are the bound's window's (rows
+    without it are left out), so that the tables below read either."""
+    rows = [json.loads(line) for f in files for line in Path(f).read_text().splitlines() if '"skip"' not in line]
+    if score == "point":
+        return rows
+    out = []
+    for r in rows:
+        if "bound" in r and r["bound"]["before"] is not None:
+            out.append({k: r[k] for k in ("seed", "lots", "scenario") if k in r}
+                       | {"scenario": f"{r.get('scenario', 'spread')}, bound's window"} | r["bound"])
+    return out
+
+
+def summary(files, score: str = "point") -> str:
     """Per scenario: mean |error| of each placement (both edges and each edge), its mean reduction against the
     first fit, the ratio to random's, the paired difference to random (mean, standard error) and the
     campaigns where it did better than random."""
-    rows = [json.loads(line) for f in files for line in Path(f).read_text().splitlines() if '"skip"' not in line]
+    rows = _rows(files, score)
     out = []
+
     def placements(r):
-        return tuple(k for k in r if k not in ("seed", "lots", "scenario", "seconds", "before"))
+        return tuple(k for k in r if k not in NOT_PLACEMENTS)
 
     for scenario, designs in sorted({(r.get("scenario", "spread"), placements(r)) for r in rows}):
         rs = [r for r in rows if r.get("scenario", "spread") == scenario and placements(r) == designs]
@@ -199,19 +246,19 @@ def summary(files) -> str:
     return "\n".join(out)
 
 
-def pool(files) -> str:
+def pool(files, score: str = "point") -> str:
     """Per scenario and placement, pooled over every campaign seed it ran on, each seed counted once (the
     first fit and the random lots of a seed are the same rows in every run that has them): campaigns, mean
     reductions of the placement and of random lots on those campaigns, their ratio, the paired difference
     (mean, standard error), campaigns better than random; and each edge's signed error, estimated − true
     (mean, and the share of campaigns above the truth), the first fit's and random's on their own seeds."""
-    rows = [json.loads(line) for f in files for line in Path(f).read_text().splitlines() if '"skip"' not in line]
+    rows = _rows(files, score)
     out = []
     for scenario in sorted({r.get("scenario", "spread") for r in rows}):
         by = {}  # (placement, seed) -> (before, after); the first occurrence of a seed
         for r in (r for r in rows if r.get("scenario", "spread") == scenario):
             for d, v in r.items():
-                if d not in ("seed", "lots", "scenario", "seconds") and v is not None:
+                if d not in ("seed", "lots", "scenario", "seconds", "bootstrap", "bound") and v is not None:
                     by.setdefault((d, r["seed"]), (r["before"], v))
         placements = sorted({d for d, _ in by} - {"before"}, key=lambda d: (d != "random", d))
         out += [f"### Scenario `{scenario}`, pooled over seeds (each once)", "",
@@ -251,15 +298,19 @@ def main(argv=None) -> int:
     ap.add_argument("--designs", default=None, help="comma-separated placements (default: the scenario's)")
     ap.add_argument("--summary", nargs="+", default=None, help="rows files to summarise instead of running")
     ap.add_argument("--pool", nargs="+", default=None, help="rows files to pool by placement instead of running")
+    ap.add_argument("--bootstrap", type=int, default=0, help="bootstrap replicates in every fit; rows then also "
+                    "score the lower bound's window")
+    ap.add_argument("--score", choices=["point", "bound"], default="point",
+                    help="which window --summary and --pool read")
     args = ap.parse_args(argv)
     if args.summary:
-        print(summary(args.summary))
+        print(summary(args.summary, args.score))
         return 0
     if args.pool:
-        print(pool(args.pool))
+        print(pool(args.pool, args.score))
         return 0
     designs = args.designs.split(",") if args.designs else (NARROW if args.scenario == "narrow" else SPREAD)
-    run(args.first, args.stop, args.lots, args.scenario, designs)
+    run(args.first, args.stop, args.lots, args.scenario, designs, args.bootstrap)
     return 0
 
 
