@@ -370,14 +370,14 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
          store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
          settings: Mapping[str, float] | None = None, confidence: float = 0.9, assurance: float = 0.9,
          seed: int = 0, prefix: str = "PLAN", product: str | None = None, out=None, edges: str = "all",
-         design: str = "maximin", criterion: str = "local"):
+         design: str = "maximin", criterion: str = "cover"):
     """The next lots to make (``linkage plan``; :mod:`linkage.decide.plan`).
     ``new``: a starting design over ``ranges`` with no lots or model
     (``design``: ``"maximin"`` or ``"factorial"``). Else the
     lots that narrow the window of ``model`` under ``spec`` fastest, over
     ``ranges`` (default: the training ranges), at its ``edges`` (``"all"`` or
-    ``"porosity"``), by ``criterion`` (``"local"``, ``"target"`` or
-    ``"thompson"``, :func:`linkage.decide.plan.augment_design`). With ``out`` (a folder), the plan
+    ``"porosity"``), by ``criterion`` (``"cover"``, the default, ``"local"``,
+    ``"target"`` or ``"thompson"``, :func:`linkage.decide.plan.augment_design`). With ``out`` (a folder), the plan
     is written there as template tables and ``plan.json``. An augmentation is
     logged as ``plan`` in the store's audit trail."""
     from linkage.decide import plan as planning

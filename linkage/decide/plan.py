@@ -58,6 +58,11 @@ the ribbon stage's applicability domain (Hotelling T², Q residual, ranges,
 :mod:`linkage.models.domain`); settings outside the ranges given are never
 proposed. Each lot carries its own domain verdict.
 
+``criterion="cover"`` spreads the lots evenly over the point estimate's
+window ± 0.03 of porosity (:mod:`linkage.decide.plan_cover`, the default);
+of the four, the only one measured to narrow the edges' error more than
+random lots, 1.27 times as much over 150 campaigns (95 % interval
+0.97-1.69), short of issue 18's 1.33.
 ``criterion="target"`` chooses instead by the bootstrap spread of
 P(all pass) near the confidence (Picheny et al. 2010's weighted integrated
 variance, :mod:`linkage.decide.plan_target`); it does not refit the models
@@ -558,13 +563,8 @@ def edge_models(window, table, inputs: list[str], medians: dict, porosity_range,
     if edges == "porosity":
         force_edges = []
     known = table.dropna(subset=[POROSITY, *inputs])
-    p_lo, p_hi = (float(v) for v in porosity_range)
-    models: list[tuple[_EdgeModel, str]] = []
-    for name, e in por_edges:
-        em = _EdgeModel(name, f"ribbon porosity {e:.3f}", np.array([e]), np.array([1.0]),
-                        POROSITY_BANDWIDTH_SHARE * (p_hi - p_lo), value=e)
-        em.start(known[[POROSITY]].to_numpy(float))
-        models.append((em, "porosity"))
+    models: list[tuple[_EdgeModel, str]] = [(em, "porosity") for em in
+                                            _porosity_edge_models(por_edges, known, porosity_range)]
     X_known = known[inputs].to_numpy(float)
     sd = np.where(X_known.std(axis=0, ddof=1) > 0, X_known.std(axis=0, ddof=1), 1.0) if len(X_known) > 1 \
         else np.ones(len(inputs))
@@ -605,7 +605,7 @@ def chain_domain(lean, rows: list[dict]) -> list[tuple[bool | None, list[str]]]:
 def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tuple[float, float]] | None = None,
                    settings: dict[str, float] | None = None, confidence: float = 0.9, assurance: float = 0.9,
                    seed: int = 0, n_candidates: int = 2048, prefix: str = "PLAN", window=None,
-                   product: str | None = None, edges: str = "all", criterion: str = "local") -> Plan:
+                   product: str | None = None, edges: str = "all", criterion: str = "cover") -> Plan:
     """The next ``n_lots`` lots that most lower the variance of the models at
     the window's edges (see the module notes).
 
@@ -623,10 +623,15 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
         these settings (found here when None).
     edges : ``"all"`` (the porosity edges and the whole-chain roll force
         edges) or ``"porosity"`` (the porosity edges only).
-    criterion : ``"local"`` (the I-optimal augmentation of the module
-        notes) or ``"target"`` (the bootstrap-weighted integrated variance of
-        P(all pass) near the confidence, :mod:`linkage.decide.plan_target`;
-        porosity edges only, ``edges`` is then not used).
+    criterion : ``"cover"`` (the default: the lots spread evenly over the
+        point estimate's window ± 0.03 of porosity,
+        :mod:`linkage.decide.plan_cover`; porosity edges only, ``edges`` is
+        then not used; the local criterion where there is no window),
+        ``"local"`` (the I-optimal augmentation of the module notes),
+        ``"target"`` (the bootstrap-weighted integrated variance of P(all
+        pass) near the confidence, :mod:`linkage.decide.plan_target`;
+        porosity edges only) or ``"thompson"``
+        (:mod:`linkage.decide.plan_thompson`).
     """
     from linkage.decide.window import find_window
     from linkage.models.lean import as_lean
@@ -662,6 +667,17 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
             chosen, edge_list, crit, more = got
             return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes + more,
                               full, seed, prefix, product, THOMPSON_METHOD)
+    if criterion == "cover":
+        got = _cover_choice(window, table, training[POROSITY], eps_c, pool, n)
+        if got is None:
+            notes.append("the point estimate of P(all pass) reaches the confidence nowhere: no window to spread "
+                         "the lots over; planned by the local criterion instead")
+        else:
+            from linkage.decide.plan_cover import METHOD as COVER_METHOD
+
+            chosen, edge_list, crit = got
+            return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes,
+                              full, seed, prefix, product, COVER_METHOD)
     if criterion == "target":
         chosen, edge_list, crit, more = _target_choice(chain, table, spec, window, eps_c, pool, n, confidence,
                                                        training[POROSITY], seed)
@@ -681,6 +697,47 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
     return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes, full, seed,
                       prefix, product, "I-optimal augmentation of local linear models weighted to the window's "
                       "edges (greedy)")
+
+
+def _porosity_edge_models(por_edges, known, porosity_range) -> list:
+    """The local linear model of each porosity edge (name, value), weighted to it and started on the
+    porosities of the ``known`` lots."""
+    p_lo, p_hi = (float(v) for v in porosity_range)
+    out = []
+    for name, e in por_edges:
+        em = _EdgeModel(name, f"ribbon porosity {e:.3f}", np.array([e]), np.array([1.0]),
+                        POROSITY_BANDWIDTH_SHARE * (p_hi - p_lo), value=e)
+        em.start(known[[POROSITY]].dropna().to_numpy(float))
+        out.append(em)
+    return out
+
+
+def _cover_choice(window, table, porosity_range, eps_c, pool, n):
+    """The ``cover`` criterion (:mod:`linkage.decide.plan_cover`), or None when the point estimate has no
+    window: chosen (candidate, the edge its porosity lies nearer), the two edges' entries (each with the
+    variance of its local linear fit after the lots, relative to the existing lots alone, as the local
+    criterion counts it), the criterion entry."""
+    from linkage.decide import plan_cover, plan_thompson
+
+    lo, hi = window.point_low, window.point_high
+    if lo is None:
+        return None
+    por_edges = [("low porosity edge of the point estimate's window", float(lo)),
+                 ("high porosity edge of the point estimate's window", float(hi))]
+    picked = plan_thompson.nearest(eps_c, pool, list(plan_cover.targets(lo, hi, n)))
+    side = plan_cover.nearer_edge(eps_c[picked], lo, hi)
+    chosen = [(c, por_edges[k][0]) for c, k in zip(picked, side)]
+    models = _porosity_edge_models(por_edges, table, porosity_range)
+    for em in models:
+        for c in picked:
+            em.add(eps_c[[c]][:, None])
+    edge_list = [{"name": em.name, "kind": "porosity", "value": em.value, "where": em.where,
+                  "relative_variance": em.relative} for em in models]
+    crit = {"before": float(len(models)), "after": float(sum(em.relative for em in models)),
+            "rule": "none optimised: lots spread evenly over the point estimate's window ± 0.03; before/after: "
+                    "sum over the two porosity edges of each edge's variance of the local linear fit relative to "
+                    "the existing lots alone (as the local criterion counts it)"}
+    return chosen, edge_list, crit
 
 
 def _check_ranges_and_settings(ranges: dict, settings: dict, inputs: list[str]) -> None:
@@ -748,7 +805,7 @@ def _local_choice(models, eps_c, Xc, pool, n) -> list[tuple[int, str]]:
 
 
 #: augment_design's criteria (``linkage plan --criterion``)
-CRITERIA = ("local", "target", "thompson")
+CRITERIA = ("local", "target", "thompson", "cover")
 THOMPSON_METHOD = ("each lot at the window edge of one bootstrap replicate: quantiles of the replicates' porosity "
                    "edges (bootstrapped Thompson sampling)")
 TARGET_METHOD = ("lots where the bootstrap replicates of P(all pass) straddle the confidence: weighted integrated "
