@@ -23,6 +23,10 @@ Placements (lo, hi: the first fit's window):
   chosen porosity is largest within lo − 0.03 to hi + 0.03;
 * ``edges_pair``: lo ± 0.007, ± 0.02 and hi ± 0.007, ± 0.02;
 * ``full_even``: equally spaced over the training lots' porosity range;
+* ``cover``: the lots ``linkage plan --criterion cover`` proposes
+  (``augment_design(..., criterion="cover", seed=campaign seed, window=the
+  first fit's)``): the same lots as ``win_even`` (checked on campaigns
+  2000-2009), run through the command's own code;
 * ``oracle_edges`` and ``oracle_even``: references no plan can reach, since they
   use the truth: 4 lots at each *true* edge (± 0.003, ± 0.01), or 8 equally
   spaced over the true window ± 0.03, each target met by the candidate whose
@@ -106,7 +110,7 @@ def run(first, stop, n_lots, scenario, designs, n_bootstrap=0):
     from linkage.decide.plan_thompson import nearest
 
     from linkage.assemble import assemble
-    from linkage.decide.plan import POROSITY, _candidates, _ribbon_stage
+    from linkage.decide.plan import POROSITY, _candidates, _ribbon_stage, augment_design
     from linkage.decide.window import find_window
     from linkage.models.lean import as_lean
     from linkage.models.train import train_chain
@@ -162,6 +166,16 @@ def run(first, stop, n_lots, scenario, designs, n_bootstrap=0):
                    "oracle_even": np.linspace(tl - 0.03, th + 0.03, 8)}
         for d in designs:
             if d == "random":
+                continue
+            if d == "cover":
+                if scenario != "spread":
+                    raise SystemExit("placement 'cover' is the command's own, on the spread scenario only")
+                plan = augment_design(chain, table, spec, 8, settings=s, confidence=0.9, seed=seed, window=w0,
+                                      criterion="cover")
+                # back in the order chosen (the plan lists them in its randomised run order,
+                # linkage.decide.plan._augmented), so each lot meets the same simulated noise as win_even's
+                lots_chosen = [plan.lots[r] for r in np.argsort(np.random.default_rng([seed, 2]).permutation(8))]
+                chosen_settings[d] = {k: np.array([lot.settings[k] for lot in lots_chosen]) for k in inputs}
                 continue
             if d == "win_maximin":
                 ch = maximin(eps_c, pool, existing, lo - 0.03, hi + 0.03, 8)
@@ -246,6 +260,15 @@ def summary(files, score: str = "point") -> str:
     return "\n".join(out)
 
 
+def _ratio_interval(red, red_r, n_boot: int = 10_000, seed: int = 0) -> tuple[float, float]:
+    """95 % percentile bootstrap interval of mean(red) / mean(red_r), campaigns resampled in pairs (Efron &
+    Tibshirani 1993, ch. 13; numpy's seeded generator)."""
+    rng = np.random.default_rng(seed)
+    idx = rng.integers(0, len(red), size=(n_boot, len(red)))
+    ratios = red[idx].mean(axis=1) / red_r[idx].mean(axis=1)
+    return tuple(float(q) for q in np.quantile(ratios, [0.025, 0.975]))
+
+
 def pool(files, score: str = "point") -> str:
     """Per scenario and placement, pooled over every campaign seed it ran on, each seed counted once (the
     first fit and the random lots of a seed are the same rows in every run that has them): campaigns, mean
@@ -262,8 +285,9 @@ def pool(files, score: str = "point") -> str:
                     by.setdefault((d, r["seed"]), (r["before"], v))
         placements = sorted({d for d, _ in by} - {"before"}, key=lambda d: (d != "random", d))
         out += [f"### Scenario `{scenario}`, pooled over seeds (each once)", "",
-                "| placement | campaigns | mean reduction | random's on the same campaigns | ratio | paired difference "
-                "(SE) | better than random | low edge: signed error (share above the truth) | high edge: the same |",
+                "| placement | campaigns | mean reduction | random's on the same campaigns | ratio (95 % CI) | paired "
+                "difference (SE) | better than random | low edge: signed error (share above the truth) | high edge: "
+                "the same |",
                 "|---|---|---|---|---|---|---|---|---|"]
         for d in ["before", *placements]:
             seeds = sorted(s for p, s in by if p == d)
@@ -282,7 +306,10 @@ def pool(files, score: str = "point") -> str:
             red = np.array([err(by[(d, s)][0]) - err(by[(d, s)][1]) for s in seeds])
             red_r = np.array([err(by[("random", s)][0]) - err(by[("random", s)][1]) for s in seeds])
             diff = red - red_r
+            # below 30 campaigns random's mean reduction is too near zero in resamples for a ratio's interval
+            ci = "({:.2f}-{:.2f})".format(*_ratio_interval(red, red_r)) if len(seeds) >= 30 else "(too few)"
             out.append(f"| {d} | {len(seeds)} | {red.mean():.4f} | {red_r.mean():.4f} | {red.mean() / red_r.mean():.2f} "
+                       f"{ci} "
                        f"| {diff.mean():+.4f} ({diff.std(ddof=1) / np.sqrt(len(diff)):.4f}) | "
                        f"{int(np.sum(diff > 0))} of {len(diff)} | {signed} |")
         out.append("")
