@@ -35,12 +35,12 @@ from linkage.jsonable import jsonable
               help="Assurance of the lower bound the window rests on.")
 @click.option("--edges", type=click.Choice(["all", "porosity"]), default="all", show_default=True,
               help="Which window edges the next lots narrow: the porosity edges and the roll force edges (all), or "
-                   "the porosity edges only.")
+                   "the porosity edges only. Used by --criterion local; the others plan for the porosity edges.")
 @click.option("--criterion", type=click.Choice(["cover", "local", "target", "thompson"]), default="cover",
               show_default=True,
               help="How the next lots are chosen: spread evenly in predicted ribbon porosity over the point "
                    "estimate's window ± 0.03 (cover; the porosity edges only); variance of local fits at the edges "
-                   "(local, the default before issue 18 was measured); where the bootstrap replicates of P(all "
+                   "(local, the default of earlier versions); where the bootstrap replicates of P(all "
                    "pass) straddle the confidence near the porosity edges (target); or at the quantiles of the "
                    "replicates' porosity edges (thompson; without replicates, the local criterion). Measured on "
                    "150 seeded synthetic campaigns, cover narrowed the window edges' error 1.27 times as much as "
