@@ -376,8 +376,9 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
     (``design``: ``"maximin"`` or ``"factorial"``). Else the
     lots that narrow the window of ``model`` under ``spec`` fastest, over
     ``ranges`` (default: the training ranges), at its ``edges`` (``"all"`` or
-    ``"porosity"``), by ``criterion`` (``"cover"``, the default, ``"local"``,
-    ``"target"`` or ``"thompson"``, :func:`linkage.decide.plan.augment_design`). With ``out`` (a folder), the plan
+    ``"porosity"``; the local criterion's), by ``criterion`` (``"cover"``, the
+    default, which plans for the porosity edges only, ``"local"``, ``"target"``
+    or ``"thompson"``, :func:`linkage.decide.plan.augment_design`). With ``out`` (a folder), the plan
     is written there as template tables and ``plan.json``. An augmentation is
     logged as ``plan`` in the store's audit trail."""
     from linkage.decide import plan as planning

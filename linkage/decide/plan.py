@@ -29,14 +29,16 @@ Augmenting a campaign (:func:`augment_design`)
 The window's edges are uncertain because the models are uncertain *there*:
 the tablet attributes against ribbon porosity near the two edge porosities,
 and the ribbon stage (settings → porosity) near the roll forces that give
-them. Lots are chosen by a sequential I-optimal augmentation (Atkinson,
+them. By default (``criterion="cover"``, below) the lots are spread evenly
+over the point estimate's window ± 0.03 of porosity. With
+``criterion="local"`` they are chosen by a sequential I-optimal augmentation (Atkinson,
 Donev & Tobias 2007, Optimum Experimental Designs, with SAS, ch. 10.6 on
 I-optimality — the prediction variance averaged over a region of interest —
 and ch. 12 on exchange algorithms; from memory) of local linear models
 weighted to the edges:
 
 * for each porosity edge e: a local linear model in porosity, rows
-  ``[1, (ε − e)/h]`` with Gaussian kernel weights ``exp(−½((ε − e)/h)²)``
+  ``[1, ε − e]`` with Gaussian kernel weights ``exp(−½((ε − e)/h)²)``
   (h = one sixth of the training porosity range; common practice, no
   source); its variance of the fitted value at e is ``[M⁻¹]₀₀`` with
   ``M = Σ w zzᵀ`` (Fan & Gijbels 1996, Local Polynomial Modelling, §3.2,
@@ -58,16 +60,19 @@ the ribbon stage's applicability domain (Hotelling T², Q residual, ranges,
 :mod:`linkage.models.domain`); settings outside the ranges given are never
 proposed. Each lot carries its own domain verdict.
 
-``criterion="cover"`` spreads the lots evenly over the point estimate's
-window ± 0.03 of porosity (:mod:`linkage.decide.plan_cover`, the default);
-of the four, the only one measured to narrow the edges' error more than
-random lots, 1.27 times as much over 150 campaigns (95 % interval
-0.97-1.69), short of issue 18's 1.33.
+``criterion="cover"`` (the default) spreads the lots evenly over the point
+estimate's window ± 0.03 of porosity (:mod:`linkage.decide.plan_cover`); it
+plans for the porosity edges only. Of the four criteria it has the highest
+measured ratio to random lots' reduction of the edges' error: 1.27 over 150
+campaigns, 95 % interval 0.97-1.69, so not clear of 1 nor of issue 18's
+1.33 (``tests/benchmarks/plan_placements.py``).
 ``criterion="target"`` chooses instead by the bootstrap spread of
 P(all pass) near the confidence (Picheny et al. 2010's weighted integrated
 variance, :mod:`linkage.decide.plan_target`); it does not refit the models
-for each candidate set either. The benefit of either over random lots is
-measured by ``tests/benchmarks/plan_benefit.py`` and recorded in
+for each candidate set either. The benefit of ``local``, ``target`` and
+``thompson`` over random lots is measured by
+``tests/benchmarks/plan_benefit.py``, that of ``cover`` by
+``tests/benchmarks/plan_placements.py``; both are recorded in
 ``reports/plan-benefit.md``.
 """
 
@@ -606,8 +611,9 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
                    settings: dict[str, float] | None = None, confidence: float = 0.9, assurance: float = 0.9,
                    seed: int = 0, n_candidates: int = 2048, prefix: str = "PLAN", window=None,
                    product: str | None = None, edges: str = "all", criterion: str = "cover") -> Plan:
-    """The next ``n_lots`` lots that most lower the variance of the models at
-    the window's edges (see the module notes).
+    """The next ``n_lots`` lots for narrowing the window's edges: spread over the
+    point estimate's window (``cover``, the default) or by another criterion
+    (see the module notes).
 
     Parameters
     ----------
@@ -668,7 +674,7 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
             return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes + more,
                               full, seed, prefix, product, THOMPSON_METHOD)
     if criterion == "cover":
-        got = _cover_choice(window, table, training[POROSITY], eps_c, pool, n)
+        got = _cover_choice(window, table.dropna(subset=[POROSITY, *inputs]), training[POROSITY], eps_c, pool, n)
         if got is None:
             notes.append("the point estimate of P(all pass) reaches the confidence nowhere: no window to spread "
                          "the lots over; planned by the local criterion instead")
@@ -676,6 +682,8 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
             from linkage.decide.plan_cover import METHOD as COVER_METHOD
 
             chosen, edge_list, crit = got
+            notes.append("planned for the porosity edges only: criterion cover does not plan for the roll force "
+                         "edges (--criterion local does)")
             return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes,
                               full, seed, prefix, product, COVER_METHOD)
     if criterion == "target":
@@ -805,7 +813,7 @@ def _local_choice(models, eps_c, Xc, pool, n) -> list[tuple[int, str]]:
 
 
 #: augment_design's criteria (``linkage plan --criterion``)
-CRITERIA = ("local", "target", "thompson", "cover")
+CRITERIA = ("cover", "local", "target", "thompson")
 THOMPSON_METHOD = ("each lot at the window edge of one bootstrap replicate: quantiles of the replicates' porosity "
                    "edges (bootstrapped Thompson sampling)")
 TARGET_METHOD = ("lots where the bootstrap replicates of P(all pass) straddle the confidence: weighted integrated "

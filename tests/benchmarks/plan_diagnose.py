@@ -57,7 +57,7 @@ def main(argv=None) -> int:
 
     lots = make_lots(n_lots, seed=seed, truth=truth)
     table, chain, w0 = fit(lots.tables, "before")
-    plan = augment_design(chain, table, spec, 8, settings=s, seed=seed, window=w0)
+    plan = augment_design(chain, table, spec, 8, settings=s, seed=seed, window=w0, criterion="local")
     planned = {k: [lot.settings[k] for lot in plan.lots] for k in plan.ranges} | {k: [s[k]] * 8 for k in s}
     random = bench._random_settings(chain, plan.ranges, 8, seed) | {k: [s[k]] * 8 for k in s}
     for kind, settings in (("planned", planned), ("random", random)):

@@ -62,6 +62,7 @@ def test_cover_takes_the_candidate_nearest_each_target_and_says_which_edge_it_in
 
     # the same candidates, chosen by brute force
     stage = _ribbon_stage(as_lean(chain))
+    inputs = list(stage.inputs)
     names = list(plan.ranges)
     unit = qmc.Sobol(len(names), scramble=True, seed=4).random(2048)
     cand = {k: plan.ranges[k][0] + unit[:, j] * (plan.ranges[k][1] - plan.ranges[k][0]) for j, k in enumerate(names)}
@@ -73,6 +74,26 @@ def test_cover_takes_the_candidate_nearest_each_target_and_says_which_edge_it_in
         free.remove(best)
         want.append(round(float(eps[best]), 12))
     assert sorted(want) == sorted(round(lot.predicted_porosity, 12) for lot in plan.lots)
+
+    # each edge's relative variance: [M⁻¹]₀₀ of the kernel-weighted local linear fit with the planned lots over
+    # that without, rows z = [1, ε − e], weights exp(−½((ε − e)/h)²), M = Σ w z zᵀ + ridge·I, inverted by numpy
+    # directly (not the rank-one updates, Sherman & Morrison 1950, the plan uses)
+    from linkage.decide.plan import POROSITY_BANDWIDTH_SHARE, RIDGE
+
+    lo_p, hi_p = chain.training["ranges"][POROSITY]
+    h = POROSITY_BANDWIDTH_SHARE * (hi_p - lo_p)
+    known = table.dropna(subset=[POROSITY, *inputs])[POROSITY].to_numpy(float)
+    added = np.array([lot.predicted_porosity for lot in plan.lots])
+
+    def v00(eps, edge):
+        Z = np.column_stack([np.ones_like(eps), eps - edge])
+        w = np.exp(-0.5 * ((eps - edge) / h) ** 2)
+        return np.linalg.inv((Z * w[:, None]).T @ Z + RIDGE * np.eye(2))[0, 0]
+
+    for e in plan.edges:
+        want = v00(np.r_[known, added], e["value"]) / v00(known, e["value"])
+        assert e["relative_variance"] == pytest.approx(want, rel=1e-9)
+    assert any("roll force edges" in n for n in plan.notes)
 
 
 @pytest.mark.slow
