@@ -35,8 +35,8 @@ from linkage.jsonable import jsonable
               help="Assurance of the lower bound the window rests on.")
 @click.option("--edges", type=click.Choice(["all", "porosity"]), default="all", show_default=True,
               help="Which window edges the next lots narrow: the porosity edges and the roll force edges (all), or "
-                   "the porosity edges only. Used by --criterion local (and where cover or thompson fall back to it); cover, "
-                   "target and thompson plan for the porosity edges.")
+                   "the porosity edges only. Used by --criterion local (and where cover or thompson fall back to "
+                   "it); cover, target and thompson plan for the porosity edges.")
 @click.option("--criterion", type=click.Choice(["cover", "local", "target", "thompson"]), default="cover",
               show_default=True,
               help="How the next lots are chosen: spread evenly in predicted ribbon porosity over the point "

@@ -709,13 +709,13 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
 
 def _porosity_edge_models(por_edges, known, porosity_range) -> list:
     """The local linear model of each porosity edge (name, value), weighted to it and started on the
-    porosities of the ``known`` lots."""
+    porosities of the ``known`` lots (rows with their porosity and the ribbon stage's inputs)."""
     p_lo, p_hi = (float(v) for v in porosity_range)
     out = []
     for name, e in por_edges:
         em = _EdgeModel(name, f"ribbon porosity {e:.3f}", np.array([e]), np.array([1.0]),
                         POROSITY_BANDWIDTH_SHARE * (p_hi - p_lo), value=e)
-        em.start(known[[POROSITY]].dropna().to_numpy(float))
+        em.start(known[[POROSITY]].to_numpy(float))
         out.append(em)
     return out
 
@@ -742,7 +742,8 @@ def _cover_choice(window, table, porosity_range, eps_c, pool, n):
     edge_list = [{"name": em.name, "kind": "porosity", "value": em.value, "where": em.where,
                   "relative_variance": em.relative} for em in models]
     crit = {"before": float(len(models)), "after": float(sum(em.relative for em in models)),
-            "rule": "none optimised: lots spread evenly over the point estimate's window ± 0.03; before/after: "
+            "rule": f"none optimised: lots spread evenly over the point estimate's window ± {plan_cover.MARGIN}; "
+                    "before/after: "
                     "sum over the two porosity edges of each edge's variance of the local linear fit relative to "
                     "the existing lots alone (as the local criterion counts it)"}
     return chosen, edge_list, crit

@@ -40,7 +40,7 @@ import numpy as np
 #: porosity [-] beyond each edge of the point estimate's window that the lots also cover (measured; see above)
 MARGIN = 0.03
 
-METHOD = ("lots equally spaced in predicted ribbon porosity over the point estimate's window widened by 0.03 on "
+METHOD = (f"lots equally spaced in predicted ribbon porosity over the point estimate's window widened by {MARGIN} on "
           "each side, each met by the nearest candidate (space-filling over the region of interest, Box & Draper "
           "1959)")
 
