@@ -258,6 +258,33 @@ def test_the_figures_key_follows_matplotlibs_settings_and_the_code_on_disk(demo,
     assert key(stamp=((path, mtime - 1, size), *stamp[1:])) is None
 
 
+def test_the_figures_key_is_the_same_in_another_process(demo):
+    """The key is computed in each process that reports (``linkage report`` is one process a run): the same
+    inputs must give the same key in a fresh interpreter, else a report run again never finds the figures the
+    last one kept. Regression: matplotlib's ``backend`` setting is an object whose ``repr`` names its memory
+    address until a backend is chosen, and it made the key differ in every process."""
+    import subprocess
+    import sys
+
+    from linkage.demo import DEMO_DATA
+    from linkage.report import kept
+
+    folder, outputs = demo
+    script = ("import sys; from linkage.report import kept; from linkage.store import LotStore; "
+              "from linkage.assemble import assemble; from linkage.spec import read_spec\n"
+              "with LotStore(sys.argv[1], create=False) as s: t, lots = assemble(s.current_tables()), s.lots()\n"
+              "print(kept.figures_key(sys.argv[2], sys.argv[3], read_spec(sys.argv[4]), table=t, lots=lots, seed=0))")
+    args = [str(outputs.store), str(outputs.models_dir), outputs.model_id, str(DEMO_DATA / "lots" / "spec.toml")]
+    keys = {subprocess.run([sys.executable, "-c", script, *args], capture_output=True, text=True,
+                           check=True).stdout.strip() for _ in range(2)}
+    import matplotlib
+
+    assert "backend" in dict.keys(matplotlib.rcParams)  # the entry the key leaves out exists
+    assert len(keys) == 1 and len(next(iter(keys))) == 64
+    assert kept._drawing_settings({"backend": object(), "lines.linewidth": 1.5, "x.hook": object()}) == [
+        ("lines.linewidth", "1.5"), ("x.hook", "object")]
+
+
 def test_results_of_a_model_object_are_not_kept_under_its_registry_id(demo, tmp_path):
     """``window`` and ``space`` given a model object (not an id) compute their result but keep nothing
     beside the registry's model of that id: the object may not be what the registry holds."""
