@@ -60,7 +60,7 @@ def plot_plan_map(force, gap, plan_force, plan_gap, labels, *, ax=None):
 
 def plan_section(b, chain, table, plan: dict) -> None:
     """Add the plan section to the report builder ``b`` (see :mod:`linkage.report.html`)."""
-    from linkage.report.html import _part, number_text, table_html
+    from linkage.report.html import _part, number_text
 
     b.section("plan", "Planned lots")
     lots = plan.get("lots") or []
@@ -84,7 +84,10 @@ def plan_section(b, chain, table, plan: dict) -> None:
     names = list(dict.fromkeys(k for s in planned for k in s))
     rows = [[x.get("run"), x.get("lot"), *(number_text(x["settings"].get(k), 4) for k in names),
              number_text(x.get("predicted_porosity"), 3),
-             {True: "inside", False: "outside", None: "—"}[x.get("in_domain")], x.get("reason")] for x in lots]
-    b.add(table_html(["run", "lot", *names, "predicted porosity", "domain", "why"], rows))
+             {True: "inside", False: "outside", None: "—"}[x.get("in_domain")]] for x in lots]
+    # each lot's reason on a line of its own under its settings: a column of it beside the settings' long
+    # names was squeezed to a few words a line, each lot's row many lines tall
+    b.add(_part("sections", "plan_lots", header=["run", "lot", *names, "predicted porosity", "domain"], rows=rows,
+                reasons=[x.get("reason") or "—" for x in lots]))
     for n in plan.get("notes") or []:
         b.add(_part("blocks", "para", text=n))

@@ -21,4 +21,14 @@ def test_report_with_a_plan_has_the_section_after_the_window(chain, table, spec,
     assert any("Planned lots" in caption for caption in report.figures)
     for lot in plan.lots:
         assert lot.lot in page
+    # each lot's reason on a line of its own under its settings (not a squeezed column beside them), and the
+    # settings' long names may break after an underscore without a character added to the copied text
+    import html
+
+    section = page[page.index('id="plan"'):]
+    section = section[:section.index("</table>")]
+    assert section.count("<tr class=main>") == section.count("<tr class=detail>") == len(plan.lots)
+    for lot in plan.lots:
+        assert f"why: {html.escape(lot.reason)}</td>" in section
+    assert "roll_<wbr>force_<wbr>kn_<wbr>per_<wbr>cm" in section
     assert "<script>alert(1)</script>" not in page
