@@ -8,6 +8,7 @@ from pathlib import Path
 import click
 
 from linkage.cli.common import PROBABILITY, check_output, handle_errors, json_option, models_dir_option, store_option
+from linkage.decide.defaults import PLAN_CRITERIA
 from linkage.jsonable import jsonable
 
 
@@ -37,7 +38,7 @@ from linkage.jsonable import jsonable
               help="Which window edges the next lots narrow: the porosity edges and the roll force edges (all), or "
                    "the porosity edges only. Used by --criterion local (and where cover or thompson fall back to "
                    "it); cover, target and thompson plan for the porosity edges.")
-@click.option("--criterion", type=click.Choice(["cover", "local", "target", "thompson"]), default="cover",
+@click.option("--criterion", type=click.Choice(PLAN_CRITERIA), default=PLAN_CRITERIA[0],
               show_default=True,
               help="How the next lots are chosen: spread evenly in predicted ribbon porosity over the point "
                    "estimate's window ± 0.03 (cover; the porosity edges only); variance of local fits at the edges "

@@ -12,3 +12,6 @@ MAP_GRID = 40
 #: the map's settings on the x and y axes (``linkage space --x/--y``)
 MAP_X = "roll_force_kn_per_cm"
 MAP_Y = "roll_gap_mm"
+
+#: the plan's criteria (``linkage plan --criterion``; :func:`linkage.decide.plan.augment_design`), the default first
+PLAN_CRITERIA = ("cover", "local", "target", "thompson")

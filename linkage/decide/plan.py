@@ -87,6 +87,7 @@ from pathlib import Path
 import numpy as np
 
 from linkage import CAUTION
+from linkage.decide.defaults import PLAN_CRITERIA
 from linkage.exceptions import UsageError
 
 POROSITY = "ribbon_porosity"
@@ -813,8 +814,8 @@ def _local_choice(models, eps_c, Xc, pool, n) -> list[tuple[int, str]]:
     return chosen
 
 
-#: augment_design's criteria (``linkage plan --criterion``)
-CRITERIA = ("cover", "local", "target", "thompson")
+#: augment_design's criteria (``linkage plan --criterion``), the default first
+CRITERIA = PLAN_CRITERIA
 THOMPSON_METHOD = ("each lot at the window edge of one bootstrap replicate: quantiles of the replicates' porosity "
                    "edges (bootstrapped Thompson sampling)")
 TARGET_METHOD = ("lots where the bootstrap replicates of P(all pass) straddle the confidence: weighted integrated "

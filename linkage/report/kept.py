@@ -152,7 +152,15 @@ def _font() -> str:
     from matplotlib import font_manager
 
     path = Path(font_manager.findfont(font_manager.FontProperties(), fallback_to_default=True))
-    return f"{path.name}={hashlib.sha256(path.read_bytes()).hexdigest()}"
+    stat = path.stat()
+    seen = (str(path), stat.st_mtime_ns, stat.st_size)  # the file hashed once a process while it is unchanged
+    if seen not in _fonts:
+        _fonts[seen] = f"{path.name}={hashlib.sha256(path.read_bytes()).hexdigest()}"
+    return _fonts[seen]
+
+
+#: (font file, modification time, size) -> its name and SHA-256 (:func:`_font`)
+_fonts: dict[tuple, str] = {}
 
 
 def _version(name: str) -> str | None:
