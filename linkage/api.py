@@ -651,7 +651,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     ``spec``'s window when given), new lots outside the domain, recorded
     what-ifs against what the lots measured. Logs ``watch``."""
     from linkage.assemble import assemble as assemble_table
-    from linkage.decide.watch import watch as run_watch
+    from linkage.decide.watch import revised_since_training, watch as run_watch
     from linkage.store import LotStore
     from linkage.timepoint import check_time_point, model_time_point, time_point_text
 
@@ -667,13 +667,16 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     with LotStore(store, create=False) as s:
         tables = s.current_tables(product)
         recorded = s.predictions()
+        stored_lots = s.lots(product)
     table = assemble_table(tables, dissolution_time_min=model_time_point(chain)[0])  # the model's time point
     result = run_watch(chain, table, ribbon=tables.get("ribbon"), window=found, recorded=recorded)
+    revised = revised_since_training(stored_lots, chain.training.get("lots") or [], chain.created_at)
     with LotStore(store, create=False) as s:
         s.log("watch", model_id=chain.model_id, inputs={"window": found, "product": product},
-              outputs={"alarms": result.alarms, "new_lots": result.new_lots})
+              outputs={"alarms": result.alarms, "new_lots": result.new_lots,
+                       "revised_since_training": [r["lot"] for r in revised]})
     return Watched(result=result, n_lots=len(table), window=found, store=Path(store),
-                   time_point=time_point_text(chain) if "dissolution_pct" in chain.targets else None)
+                   time_point=time_point_text(chain) if "dissolution_pct" in chain.targets else None, revised=revised)
 
 
 def running(samples, *, settings: Mapping[str, float] | None = None, process=None, spec=None,

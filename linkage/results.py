@@ -630,17 +630,20 @@ class Watched(_Result):
     notes: list[str] = field(default_factory=list)
     #: the model's dissolution time point, in words (the lots were assembled at it)
     time_point: str | None = None
+    #: training lots revised after the model was trained (:func:`linkage.decide.watch.revised_since_training`)
+    revised: list[dict] = field(default_factory=list)
 
     def to_dict(self) -> dict:
         """What ``linkage watch --json`` prints."""
-        return self.result.to_dict()
+        return {**self.result.to_dict(), "revised_since_training": list(self.revised)}
 
     def text(self) -> str:
-        from linkage.decide.watch import design_lines, whatif_settings_lines
+        from linkage.decide.watch import design_lines, revised_lines, whatif_settings_lines
 
         r = self.result
         lines = [f"Model {r.model_id}; {self.n_lots} lots, {len(r.new_lots)} since training"
                  + (f"; {self.time_point}" if self.time_point else "") + "."]
+        lines += revised_lines(self.revised, r.model_id)
         if self.window:
             lines.append(f"Porosity window used for ribbon samples: {self.window[0]:.3f}–{self.window[1]:.3f}")
         lines += design_lines(r.mewma)

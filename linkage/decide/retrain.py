@@ -248,6 +248,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     time_min = _challenger_time_point(champion, spec)
     with LotStore(store_path, create=False) as store:
         tables = store.current_tables(product)
+        stored_lots = store.lots(product)
     q = spec.limits["dissolution_pct"].min if spec is not None and "dissolution_pct" in spec.limits else None
     check_dissolution_time(tables, time_min)
     table = assemble(tables, dissolution_time_min=time_min, dissolution_q_pct=q)
@@ -256,6 +257,15 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     notes = []
     if not new_lots:
         notes.append("no lots beyond the champion's training lots; the challenger sees the same data")
+    from linkage.decide.watch import revised_since_training
+
+    revised = revised_since_training(stored_lots, champion.training["lots"], champion.created_at)
+    if revised:  # the challenger is fitted on their values now stored, the champion was on the earlier ones
+        notes.append(f"{len(revised)} of the champion's training lots were revised after it was trained ("
+                     + ", ".join(f"{r['lot']} revision {r['revision']}" for r in revised[:12])
+                     + (" …" if len(revised) > 12 else "") + "): the champion was fitted on their earlier values, "
+                     "the challenger on the values now stored; they are not new lots, so the prospective "
+                     "comparison does not judge them")
     if len(table) < 3:
         raise InsufficientDataError(f"{len(table)} lots in the store; retraining needs at least 3")
     challenger = train_chain(table, champion.chain, seed=champion.seed if seed is None else seed,

@@ -453,3 +453,32 @@ def watch(chain, table: pd.DataFrame, *, ribbon: pd.DataFrame | None = None,
         domain=domain_of_new_lots(chain, table, new_lots),
         predictions=predictions_vs_measured(recorded or [], table, chain),
     )
+
+
+def revised_since_training(lots, training_lots, trained_at: str) -> list[dict]:
+    """The model's training lots whose current revision was stored after the model was trained: the model
+    was fitted on an earlier revision of them (an ingest with ``--reason`` changed their values since).
+
+    ``lots``: the lot store's :meth:`linkage.store.LotStore.lots` (``lot``, ``revision``, ``updated_at``);
+    ``training_lots``: the lots the model was trained on; ``trained_at``: the model's ``created_at`` (ISO 8601
+    with a UTC offset). Returns one dict a lot (``lot``, ``revision``, ``revised_at``), in the store's order."""
+    from datetime import datetime
+
+    trained = datetime.fromisoformat(trained_at)
+    used = set(map(str, training_lots))
+    out = []
+    for lot, revision, at in zip(lots["lot"], lots["revision"], lots["updated_at"]):
+        if str(lot) in used and int(revision) > 1 and datetime.fromisoformat(str(at)) > trained:
+            out.append({"lot": str(lot), "revision": int(revision), "revised_at": str(at)})
+    return out
+
+
+def revised_lines(revised: list[dict], model_id: str) -> list[str]:
+    """The words for :func:`revised_since_training`'s lots (none when there are none)."""
+    if not revised:
+        return []
+    shown = ", ".join(f"{r['lot']} (revision {r['revision']}, {r['revised_at']})" for r in revised[:12])
+    more = f" and {len(revised) - 12} more" if len(revised) > 12 else ""
+    return [f"!! {len(revised)} lot(s) model {model_id} was trained on were revised after it was trained: {shown}"
+            f"{more}. The model was fitted on their earlier values; its charts compare it with the values now "
+            "stored (retrain to fit the revised values)."]
