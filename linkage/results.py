@@ -218,7 +218,7 @@ def train_text(fitted: FittedChain) -> str:
                 f"{_num(bias, 10, '.3g', '+')}{_num(rel_mean, 7, '.2f')}{_num(rel_rd, 7, '.2f')}"
                 f"{_num(m['rmse_over_noise'], 8, '.2f')}")
         for cname, why in t["unavailable"].items():
-            lines.append(f"    {cname:<16}not used: {why}")
+            lines.append(f"    {cname:<15} not used: {why}")  # a space even after a name of 15 characters or more
         floor = t["noise_floor"]
         lines.append("    noise floor: " + (f"{floor:.4g} ({t['noise_floor_method']})" if floor is not None
                                             else t["noise_floor_method"]))

@@ -245,7 +245,7 @@ class Plan:
         if self.model_id:
             lines.append(f"Model {self.model_id}")
         for e in self.edges:
-            lines.append(f"  edge {e['name']}: {e['where']}; relative variance after the plan "
+            lines.append(f"  {e['name']}: {e['where']}; relative variance after the plan "
                          f"{e['relative_variance']:.2f}")
         if self.held:
             lines.append("Held: " + ", ".join(f"{k} = {v:g}" for k, v in self.held.items()))

@@ -110,8 +110,11 @@ def bound_text(low: float | None, point: float, assurance: float) -> str:
 
 
 def at_least(p: float) -> str:
-    """'at least 97.9%', or '> 99.9%' where the percent would round to a certainty."""
+    """'at least 97.9%'; '> 99.9%' where the percent would round to a certainty; 'under 0.1% at its lower
+    bound' where it would round to nothing (not 'at least < 0.1%')."""
     t = probability_text(p)
+    if t.startswith("<"):
+        return f"under {t[1:].strip()} at its lower bound"
     return t if t.startswith(">") else f"at least {t}"
 
 

@@ -815,6 +815,9 @@
   const num = (v, d = 4) => (v === null || v === undefined ? "–" : !Number.isFinite(v) ? (v > 0 ? "∞" : "−∞") : fmt(Number(v.toPrecision(d))));
   const pct = (v) => (v === null || v === undefined || Number.isNaN(v) ? "–"
     : v > 0.999 && v < 1 ? "> 99.9 %" : v > 0 && v < 0.001 ? "< 0.1 %" : (100 * v).toFixed(1) + " %");
+  // a lower bound in words, as sheet.at_least writes it: never "at least < 0.1 %" or "at least > 99.9 %"
+  const atLeast = (v) => { const t = pct(v); return t.startsWith(">") ? t
+    : t.startsWith("<") ? `under ${t.slice(1).trim()} at its lower bound` : `at least ${t}`; };
 
   function build() {
     app.textContent = "";
@@ -924,7 +927,7 @@
     sec.append(t);
     const b = r.p_pass_all_bound;
     sec.append(el("p", { class: "all", id: "p-all", text: r.p_pass_all === null ? "No spec: no probability of passing." :
-      `P(all pass) ${pct(r.p_pass_all)}; at least ${pct(b.low)} with assurance ${b.assurance}` + (b.reason ? ` (${b.reason})` : "") }));
+      `P(all pass) ${pct(r.p_pass_all)}; ${atLeast(b.low)} with assurance ${b.assurance}` + (b.reason ? ` (${b.reason})` : "") }));
     renderWindow(r);
     const dsec = document.getElementById("domain");
     dsec.textContent = "";

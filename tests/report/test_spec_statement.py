@@ -66,3 +66,14 @@ def test_a_spec_at_another_time_point_is_refused_by_the_report(chain, table, tmp
     path.write_text("[dissolution_pct]\nmin = 75\ntime_min = 15\n", encoding="utf-8")
     with pytest.raises(SpecError, match="at 15 min.*at 30 min"):
         render_report(chain, table, spec=read_spec(path), curve_draws=100)
+
+
+def test_a_lower_bound_in_words_never_reads_at_least_below_or_above_a_rounding_edge():
+    """A user test found 'P(pass) at least < 0.1%'. The bound is said as a reader would (no outside reference:
+    wording): ordinary values 'at least 97.9%' (one decimal of a percent), a bound that rounds to nothing
+    'under 0.1% at its lower bound', one that would round to a certainty '> 99.9%'."""
+    from linkage.report.sheet import at_least
+
+    assert at_least(0.979) == "at least 97.9%"
+    assert at_least(0.0004) == "under 0.1% at its lower bound"
+    assert at_least(0.9995) == "> 99.9%"
