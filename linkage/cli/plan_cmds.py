@@ -49,8 +49,9 @@ from linkage.jsonable import jsonable
                    "lots drawn at random within the ranges (95 % interval 0.97-1.69); the others did no better "
                    "than random: reports/plan-benefit.md.")
 @click.option("--prefix", default="PLAN", show_default=True, help="Planned lot ids are PREFIX-001, PREFIX-002, ...")
-@click.option("--product", default=None, help="Product name written in the process table (and the lots planned "
-              "from, without --new).")
+@click.option("--product", default=None, help="Product name written in the process table (without --new, by "
+              "default the one product the model was trained on) and, without --new, the product whose lots the "
+              "plan starts from.")
 @click.option("--out", "out", type=click.Path(file_okay=False, path_type=Path),
               help="Folder to write process.csv (and tablets.csv when the plan sets the compression force) in the "
                    "template's columns, with blank results, and plan.json.")

@@ -628,6 +628,9 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
         holds them.
     window : a :class:`linkage.decide.window.WindowResult` already found at
         these settings (found here when None).
+    product : the planned lots' product (the ``product`` column of the plan's
+        process table); by default the one product the model was trained on,
+        none when it was trained on several or on lots without one.
     edges : ``"all"`` (the porosity edges and the whole-chain roll force
         edges) or ``"porosity"`` (the porosity edges only).
     criterion : ``"cover"`` (the default: the lots spread evenly over the
@@ -646,6 +649,9 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
     n = int(n_lots)
     if n < 1:
         raise UsageError(f"--lots must be at least 1; got {n_lots}")
+    if product is None:  # the planned lots are of the one product the model was trained on, if it names one
+        trained_on = chain.training.get("products") or []
+        product = trained_on[0] if len(trained_on) == 1 else None
     if edges not in ("all", "porosity"):
         raise UsageError(f"edges must be 'all' or 'porosity'; got {edges!r}")
     if criterion not in CRITERIA:

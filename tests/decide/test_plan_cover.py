@@ -119,3 +119,21 @@ def test_cli_lists_cover_among_the_criteria():
 
     res = CliRunner().invoke(cli, ["plan", "--lots", "8", "--criterion", "straddle"])
     assert res.exit_code == 2 and "cover" in res.output
+
+
+def test_the_planned_lots_take_the_one_product_the_model_was_trained_on(campaign):
+    """A user test found the plan's process table with a blank product although the model was trained on one
+    product (no outside reference: a default of the record). Given a product, it is kept; trained on several,
+    none is guessed."""
+    from dataclasses import replace
+
+    from linkage.decide.plan import augment_design
+
+    chain, table, spec = campaign
+    one = replace(chain, training={**chain.training, "products": ["QX-1 50 mg"]})
+    several = replace(chain, training={**chain.training, "products": ["QX-1 50 mg", "QX-2 100 mg"]})
+    held = {"mill_screen_mm": 1.0, "compression_force_kn": 14.0}
+    plan = augment_design(one, table, spec, 2, settings=held, seed=1)
+    assert plan.product == "QX-1 50 mg" and set(plan.tables()["process"]["product"]) == {"QX-1 50 mg"}
+    assert augment_design(one, table, spec, 2, settings=held, seed=1, product="QX-9").product == "QX-9"
+    assert augment_design(several, table, spec, 2, settings=held, seed=1).product is None
