@@ -67,7 +67,8 @@ def fold_assignment(lots, seed: int, max_loo: int = 30, n_splits: int = 10) -> t
     n = len(unique)
     if n < 2:
         raise InsufficientDataError(
-            f"cross-validation by lot needs at least 2 distinct lots; got {n}"
+            f"cross-validation grouped by lot (or by the --group-by column) needs at least 2 distinct groups; "
+            f"got {n}"
         )
     if n_splits < 2:
         raise ValueError(f"n_splits must be at least 2; got {n_splits}")
@@ -127,7 +128,8 @@ def inner_splits(groups, n_splits: int = INNER_SPLITS):
     groups = _as_lots(groups)
     n_groups = len(set(groups))
     if n_groups < 2:
-        raise InsufficientDataError(f"an inner cross-validation needs at least 2 lots; got {n_groups}")
+        raise InsufficientDataError(f"an inner cross-validation needs at least 2 distinct groups (lots, or the "
+                                    f"--group-by column's values) among the lots of an outer fold; got {n_groups}")
     cv = GroupKFold(n_splits=min(n_splits, n_groups))
     dummy = np.zeros((len(groups), 1))
     return [(np.asarray(tr), np.asarray(te)) for tr, te in cv.split(dummy, groups=groups)]

@@ -56,7 +56,7 @@ def test_grouped_kfold_above_the_loo_limit_balances_folds():
 
 
 def test_one_lot_is_refused():
-    with pytest.raises(InsufficientDataError, match="at least 2 distinct lots"):
+    with pytest.raises(InsufficientDataError, match="at least 2 distinct groups"):
         outer_splits(["A", "A", "A"], seed=0)
     with pytest.raises(InsufficientDataError):
         inner_splits(["A", "A"])
