@@ -175,11 +175,11 @@ def assemble(store=DEFAULT_STORE, *, product: str | None = None, spec=None,
     Q for the USP <711> verdict are used."""
     from linkage.assemble import assemble as assemble_table
     from linkage.exceptions import InsufficientDataError
-    from linkage.store import LotStore
+    from linkage.store import LotStore, current_tables_of
 
     spec = _spec(spec)
     with LotStore(store, create=False) as lot_store:
-        tables = lot_store.current_tables(product=product)
+        tables = current_tables_of(lot_store, product)
     if not tables:
         raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
                                                                           else "") + "; nothing to assemble")
@@ -249,14 +249,14 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
     from linkage.models.chain import ChainSpec
     from linkage.models.registry import save
     from linkage.models.train import train_chain
-    from linkage.store import LotStore
+    from linkage.store import LotStore, current_tables_of
 
     if chain is not None and not isinstance(chain, ChainSpec):
         chain = ChainSpec.from_toml(chain)
     spec = _spec(spec)
     at = _train_time_and_q(spec, dissolution_time_min)
     with LotStore(store, create=False) as lot_store:
-        tables = lot_store.current_tables(product)
+        tables = current_tables_of(lot_store, product)
     if not tables or "process" not in tables or tables["process"].empty:
         which = f" of product {product!r}" if product else ""
         raise InsufficientDataError(f"the store {store} holds no lots{which} to train on")
@@ -545,7 +545,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     from linkage.assemble import assemble as assemble_table
     from linkage.exceptions import InsufficientDataError, UsageError
     from linkage.report.html import render_report, write_report
-    from linkage.store import LotStore
+    from linkage.store import LotStore, current_tables_of
 
     from linkage.decide.bound import check_assurance
 
@@ -564,7 +564,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     products = chain.training.get("products") or []
     product = products[0] if len(products) == 1 else None
     with LotStore(store, create=False) as lot_store:
-        tables = lot_store.current_tables(product=product)
+        tables = current_tables_of(lot_store, product)
         lots = lot_store.lots(product=product)
     if not tables:
         raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
@@ -652,7 +652,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     what-ifs against what the lots measured. Logs ``watch``."""
     from linkage.assemble import assemble as assemble_table
     from linkage.decide.watch import revised_since_training, watch as run_watch
-    from linkage.store import LotStore
+    from linkage.store import LotStore, current_tables_of
     from linkage.timepoint import check_time_point, model_time_point, time_point_text
 
     chain = _fitted(models_dir, model)
@@ -665,7 +665,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
         w = find_window(chain, spec)
         found = (w.low.value, w.high.value) if w.found else None
     with LotStore(store, create=False) as s:
-        tables = s.current_tables(product)
+        tables = current_tables_of(s, product)
         recorded = s.predictions()
         stored_lots = s.lots(product)
     table = assemble_table(tables, dissolution_time_min=model_time_point(chain)[0])  # the model's time point

@@ -1068,3 +1068,19 @@ def _diff(table: str, old: list[dict] | None, new: list[dict]) -> list[dict]:
             out.append({"table": table, "change": "row removed", "key": dict(zip(key_cols, key)), "column": None,
                         "old": row, "new": None})
     return out
+
+
+def current_tables_of(lot_store, product: str | None) -> dict:
+    """The store's current tables (:meth:`linkage.store.LotStore.current_tables`) of ``product``'s lots; a
+    product named that has no lot in the store is refused, naming the store's products (else the next step
+    would say only that the process table has no rows)."""
+    tables = lot_store.current_tables(product)
+    if product is not None and not tables:
+        import difflib
+
+        products = sorted({str(p) for p in lot_store.lots()["product"].dropna()})
+        near = difflib.get_close_matches(product, products, n=3, cutoff=0.6)
+        said = (f"; did you mean {', '.join(repr(p) for p in near)}?" if near else
+                f"; its products: {', '.join(repr(p) for p in products)}" if products else "; it holds no product name")
+        raise UsageError(f"no lot of product {product!r} in the store {lot_store.path}{said}")
+    return tables

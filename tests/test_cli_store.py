@@ -160,3 +160,23 @@ def test_assemble_empty_store(tmp_path):
     LotStore(tmp_path / "e.db").close()
     result = run("assemble", "--store", tmp_path / "e.db")
     assert result.exit_code == 2 and "holds no lots" in result.stderr
+
+
+def test_a_product_with_no_lot_is_refused_naming_the_stores_products(lab, tmp_path):
+    """A user test found 'watch --product nope' answered with 'the process table is required and has no rows'.
+    A product named that has no lot in the store is refused (exit 2, nothing computed), with the close names of
+    the store's products (difflib) or, without one, what the store holds. No outside reference: a refusal."""
+    db = tmp_path / "s.db"
+    path = lab / "process.csv"
+    rows = list(csv.reader(path.open(encoding="utf-8")))
+    rows = [rows[0] + ["product"]] + [r + ["QZ-417 200 mg"] for r in rows[1:]]
+    with path.open("w", encoding="utf-8", newline="") as f:
+        csv.writer(f, lineterminator="\n").writerows(rows)
+    assert run("ingest", lab, "--store", db).exit_code == 0
+    result = run("assemble", "--store", db, "--product", "QZ-417 20 mg")
+    assert result.exit_code == 2
+    assert "no lot of product 'QZ-417 20 mg' in the store" in result.output
+    assert "did you mean 'QZ-417 200 mg'?" in result.output
+    far = run("assemble", "--store", db, "--product", "other")
+    assert far.exit_code == 2 and "its products: 'QZ-417 200 mg'" in far.output
+    assert run("assemble", "--store", db, "--product", "QZ-417 200 mg").exit_code == 0

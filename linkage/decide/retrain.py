@@ -237,7 +237,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     from linkage.assemble import assemble, check_dissolution_time
     from linkage.models import registry
     from linkage.models.train import train_chain
-    from linkage.store import LotStore
+    from linkage.store import LotStore, current_tables_of
 
     if not 0 <= tolerance < 1:
         raise UsageError(f"tolerance must lie in [0, 1); got {tolerance}")
@@ -247,7 +247,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     champion = registry.load(models_dir, "latest")
     time_min = _challenger_time_point(champion, spec)
     with LotStore(store_path, create=False) as store:
-        tables = store.current_tables(product)
+        tables = current_tables_of(store, product)
         stored_lots = store.lots(product)
     q = spec.limits["dissolution_pct"].min if spec is not None and "dissolution_pct" in spec.limits else None
     check_dissolution_time(tables, time_min)
