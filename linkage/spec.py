@@ -222,8 +222,8 @@ def _parse(data: dict, file: str, text: str) -> Spec:
     limits: dict[str, Limit] = {}
     time_min = DEFAULT_DISSOLUTION_TIME_MIN
 
-    def bad(attr: str, rule: str, value=None) -> None:
-        problems.append(Problem(file, rule, row=_line_of(text, attr), column=attr, value=value))
+    def bad(attr: str, rule: str, value=None, key: str | None = None) -> None:
+        problems.append(Problem(file, rule, row=_line_of(text, attr, key), column=attr, value=value))
 
     if not data:
         problems.append(Problem(file, "no limits: give one table per quality attribute, e.g. "
@@ -242,8 +242,9 @@ def _parse(data: dict, file: str, text: str) -> Spec:
         allowed = {"min", "max", "time_min", "judge", "pass_by"} if attr == DISSOLUTION else {"min", "max"}
         unknown = sorted(set(table) - allowed)
         for key in unknown:
-            where = " (time_min belongs in [dissolution_pct] only)" if key == "time_min" else ""
-            bad(attr, f"[{attr}]: unknown key '{key}'; allowed: {', '.join(sorted(allowed))}{where}", table[key])
+            where = " (time_min belongs in [dissolution_pct] only)" if key == "time_min" else _suggest(key, allowed)
+            bad(attr, f"[{attr}]: unknown key '{key}'{where}; allowed: {', '.join(sorted(allowed))}", table[key],
+                key=key)
         values: dict[str, float] = {}
         for key in ("min", "max", "time_min"):
             if key not in table or key not in allowed:
@@ -331,7 +332,7 @@ def _parse_acceptance_value(table, bad) -> float | None:
         return None
     for key in sorted(set(table) - {"max"}):
         bad(attr, f"[{attr}]: unknown key '{key}'; allowed: max (L1 of USP <905>; the acceptance value has no "
-                  "minimum)", table[key])
+                  "minimum)", table[key], key=key)
     if "max" not in table:
         if set(table) <= {"max"}:
             bad(attr, f"[{attr}] needs max (L1 of USP <905>, usually 15)")
@@ -349,13 +350,25 @@ def _parse_acceptance_value(table, bad) -> float | None:
     return None if set(table) - {"max"} else f
 
 
-def _line_of(text: str, attr: str) -> int | None:
+def _line_of(text: str, attr: str, key: str | None = None) -> int | None:
+    """The line (first = 1) of table ``[attr]``'s header, or of its ``key = …`` line when ``key`` is given and
+    found before the next table's header."""
     m = re.search(rf"^[ \t]*\[[ \t]*\"?{re.escape(attr)}\"?[ \t]*\]", text, flags=re.MULTILINE)
-    return text.count("\n", 0, m.start()) + 1 if m else None
+    if not m:
+        return None
+    at = m.start()
+    if key is not None:
+        section = re.compile(r"^[ \t]*\[", flags=re.MULTILINE)
+        following = section.search(text, m.end())
+        end = following.start() if following else len(text)
+        k = re.compile(rf"^[ \t]*\"?{re.escape(key)}\"?[ \t]*=", flags=re.MULTILINE).search(text, m.end(), end)
+        if k:
+            at = k.start()
+    return text.count("\n", 0, at) + 1
 
 
-def _suggest(name: str) -> str:
+def _suggest(name: str, names=QUALITY_ATTRIBUTES) -> str:
     import difflib
 
-    near = difflib.get_close_matches(str(name), QUALITY_ATTRIBUTES, n=1, cutoff=0.6)
+    near = difflib.get_close_matches(str(name), sorted(names), n=1, cutoff=0.6)
     return f" (did you mean '{near[0]}'?)" if near else ""
