@@ -11,7 +11,7 @@ import pandas as pd
 
 from linkage.exceptions import InputError, Problem
 from linkage.read import DATA_SUFFIXES, MAPPING_FILE, SPEC_FILE, UNSUPPORTED_SUFFIXES, WORKBOOK_SUFFIXES
-from linkage.read.lots import _visible, lot_key
+from linkage.read.lots import _span, _visible, lot_key
 from linkage.read.mapping import Mapping, _suggest, read_mapping
 from linkage.read.raw import _norm_header
 from linkage.read.table import _build, bulk, read_table
@@ -262,7 +262,3 @@ def _keys(lots: list[str]) -> list[str]:
     if lots and joined.isascii() and joined.count("\n") == len(lots) - 1:
         return joined.lower().split("\n")  # lot_key of an ASCII id is its lower()
     return [lot_key(lot) for lot in lots]
-
-
-def _span(rows: list[int]) -> str:
-    return f"row {rows[0]}" if len(rows) == 1 else f"rows {rows[0]}-{rows[-1]}, {len(rows)} rows"

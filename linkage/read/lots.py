@@ -45,13 +45,17 @@ def _visible(lot: str) -> str:
 
 
 def _lot_id_problems(lots: list, label: str, sheet_rows: list[int], header: str, bad: set) -> list[Problem]:
-    """Invisible characters in a lot id, and two spellings of one lot in a file (same :func:`lot_key`)."""
+    """Invisible characters in a lot id, and two spellings of one lot in a file (same :func:`lot_key`).
+
+    Of the spellings of one lot, the one on the most rows is taken as the lot's (on a tie, the first in the
+    file) and the rows of every other spelling are refused: one row spelt apart from the rest is the odd one
+    out, whichever comes first."""
     distinct = set(lots) - {None}
     joined = "".join(distinct)
     if joined.isascii() and joined.isprintable() and len({lot.lower() for lot in distinct}) == len(distinct):
         return []  # the common case, decided on the distinct ids: for printable ASCII the key is lower()
     problems: list[Problem] = []
-    spelled: dict[str, tuple[str, int]] = {}  # key -> (first spelling, its sheet row)
+    spelled: dict[str, dict[str, list[int]]] = {}  # key -> spelling -> row indices, in file order
     for k, lot in enumerate(lots):
         if lot is None or (k, "lot") in bad:
             continue
@@ -60,12 +64,25 @@ def _lot_id_problems(lots: list, label: str, sheet_rows: list[int], header: str,
             problems.append(Problem(label, rule, row=sheet_rows[k], column=header, value=_visible(lot)))
             bad.add((k, "lot"))
             continue
-        key = lot_key(lot)
-        first = spelled.setdefault(key, (lot, sheet_rows[k]))
-        if first[0] != lot:
-            problems.append(Problem(label, f"lot {_visible(lot)!r} is lot {_visible(first[0])!r} of row {first[1]} "
-                                           "written another way (case, dash or compatibility form); one lot has "
-                                           "one spelling: correct one of them", row=sheet_rows[k], column=header,
-                                    value=_visible(lot)))
-            bad.add((k, "lot"))
+        spelled.setdefault(lot_key(lot), {}).setdefault(lot, []).append(k)
+    for spellings in spelled.values():
+        if len(spellings) < 2:
+            continue
+        usual = max(spellings, key=lambda lot: len(spellings[lot]))  # max keeps the first of equals
+        where = _span([sheet_rows[k] for k in spellings[usual]])
+        for lot, ks in spellings.items():
+            if lot == usual:
+                continue
+            for k in ks:
+                problems.append(Problem(label, f"lot {_visible(lot)!r} is lot {_visible(usual)!r} written another "
+                                               f"way (case, dash or compatibility form); this file spells it "
+                                               f"{_visible(usual)!r} on {where}, and one lot has one spelling: "
+                                               f"write it {_visible(usual)!r}", row=sheet_rows[k], column=header,
+                                        value=_visible(lot)))
+                bad.add((k, "lot"))
     return problems
+
+
+def _span(rows: list[int]) -> str:
+    """Sheet rows for a message: ``row 7`` or ``rows 7-10, 4 rows`` (first to last, and how many)."""
+    return f"row {rows[0]}" if len(rows) == 1 else f"rows {rows[0]}-{rows[-1]}, {len(rows)} rows"

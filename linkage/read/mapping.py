@@ -230,6 +230,7 @@ def _norm_unit(text: str) -> str:
     return "".join(s.split())
 
 
-def _suggest(name: str, choices: Iterable[str]) -> str:
-    near = difflib.get_close_matches(str(name), list(choices), n=1, cutoff=0.6)
+def _suggest(name: str, choices: Iterable[str], cutoff: float = 0.6) -> str:
+    """`` (did you mean 'x'?)`` with the choice nearest ``name`` (difflib's ratio at least ``cutoff``), or ''."""
+    near = difflib.get_close_matches(str(name), list(choices), n=1, cutoff=cutoff)
     return f" (did you mean '{near[0]}'?)" if near else ""

@@ -84,7 +84,8 @@ def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
     """Apply the template to a raw sheet; raise InputError with every problem."""
     check = _Check(raw, tdef, list(raw.problems))
     check.targets, unit_headers = _match_header(raw, tdef, cmaps, check.problems)
-    _require_columns(raw.label, tdef, check.targets, unit_headers, check.problems)
+    hinted = _require_columns(raw.label, tdef, check.targets, unit_headers, check.problems)
+    _near_template_names(raw.label, tdef, check.targets, unit_headers, hinted, check.problems)
     # the decimal mark from the number cells of the file (module notes, rule 4)
     number_idx = [j for j, t, _, _ in check.targets if t not in tdef.names or tdef.column(t).kind == NUMBER]
     decimal = _decimal_mark(itertools.chain.from_iterable(raw.columns[j] for j in number_idx), raw.separator)
@@ -141,14 +142,52 @@ def _match_header(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap],
 
 
 def _require_columns(label: str, tdef: Table, targets: list[Target], unit_headers: set[str],
-                     problems: list[Problem]) -> None:
-    """A required template column that is not in the file, with the nearest header as a hint."""
+                     problems: list[Problem]) -> set[str]:
+    """A required template column that is not in the file, with the nearest header as a hint; the headers
+    given as hints.
+
+    Only a header that is not itself a template column (an extra column) is offered: a template column present
+    in the file is that column, never a misspelling of another one."""
     present = {t for _, t, _, _ in targets}
+    extras = [h for _, t, h, _ in targets if t not in tdef.names]
+    hinted: set[str] = set()
     for col in tdef.columns:
         if col.required and col.name not in present and col.name not in unit_headers:
-            near = difflib.get_close_matches(col.name, [h for _, _, h, _ in targets], n=1, cutoff=0.6)
+            near = difflib.get_close_matches(col.name, extras, n=1, cutoff=0.6)
             hint = f"; found '{near[0]}': rename it or map it in {MAPPING_FILE}" if near else ""
+            hinted.update(near)
             problems.append(Problem(label, f"required column '{col.name}' is missing{hint}", row=1, column=col.name))
+    return hinted
+
+
+#: how close (difflib's ratio, of the header in lower case) an extra column's header must be to a template column
+#: the file lacks to be taken for a misspelling of it and refused. Every one-character slip (a letter left out,
+#: doubled, swapped or replaced) of a template name of six or more characters scores at least 0.83; headers of
+#: real extra columns score below: 'operator' against 'compactor' 0.71, 'sampled_by' against 'sampled_at' 0.80,
+#: 'ribbon_tensile_mpa' against 'ribbon_thickness_mm' 0.65 (common practice, no source). Stricter than the 0.6
+#: of the did-you-mean hints, which only suggest: this one refuses a file.
+MISSPELLING_CUTOFF = 0.81
+
+
+def _near_template_names(label: str, tdef: Table, targets: list[Target], unit_headers: set[str], hinted: set[str],
+                         problems: list[Problem]) -> None:
+    """An extra column whose header is close to a template column the file does not have: refused as a
+    misspelling (else the attribute would be read as empty and the header kept as a new column). A header
+    mapped in columns.toml (``extra = true``) is kept as it is, and one already named as the hint of a missing
+    required column is not reported twice."""
+    present = {t for _, t, _, _ in targets}
+    lacking = [n for n in tdef.names if n not in present and n not in unit_headers]
+    if not lacking:
+        return
+    for _, target, shown, cmap in targets:
+        if target in tdef.names or cmap is not None or shown in hinted:
+            continue
+        hint = _suggest(shown.lower(), lacking, cutoff=MISSPELLING_CUTOFF)
+        if hint:
+            problems.append(Problem(label, f"header '{shown}' is not a template column of {tdef.name} but nearly "
+                                           f"the name of one the file lacks{hint}; name the column as the template "
+                                           f"does, or to keep it as an extra column map it in {MAPPING_FILE} "
+                                           f"(\"{shown}\" = {{ extra = true }})", row=1, column=shown))
 
 
 @dataclass

@@ -1,0 +1,152 @@
+"""Reading input: problems a user test of the template example found (misspelt headers, a rename hint
+pointing at a present column, the wrong row named for a lot's odd spelling, the errors of one file hiding
+another's).
+
+These are regression tests of refusals and of which rows and columns a message names: the expected
+outcome is read off the edited files themselves (which header was misspelt, which row was respelt), so
+they need no outside source. The closeness of a header to a template name is difflib's ratio
+(Python standard library, ``difflib.SequenceMatcher.ratio``: 2*M/T, Ratcliff & Obershelp 1988), and
+the cutoff is common practice, no source.
+"""
+
+from __future__ import annotations
+
+import difflib
+import shutil
+from pathlib import Path
+
+import pytest
+
+from linkage.exceptions import InputError
+from linkage.read import read_folder, read_table
+from linkage.read.table import MISSPELLING_CUTOFF
+
+TEMPLATE = Path(__file__).resolve().parent / "data" / "template-example"
+DEMO = Path(__file__).resolve().parent.parent / "data_demo" / "lots"
+
+
+def _copy(tmp_path: Path) -> Path:
+    folder = tmp_path / "lots"
+    folder.mkdir()
+    for f in TEMPLATE.glob("*.csv"):
+        shutil.copy(f, folder / f.name)
+    return folder
+
+
+def _edit(path: Path, line: int, old: str, new: str) -> None:
+    """Replace ``old`` by ``new`` on one line (1 = the header) of a file."""
+    lines = path.read_text().splitlines()
+    assert old in lines[line - 1]
+    lines[line - 1] = lines[line - 1].replace(old, new, 1)
+    path.write_text("\n".join(lines) + "\n")
+
+
+# --------------------------------------------------------------------------- 1. misspelt optional columns
+
+
+def test_misspelt_optional_columns_are_refused_in_every_file_at_once(tmp_path):
+    """friability_pct (tablets) and roll_diameter_mm (process) misspelt: both refused in one error, each with
+    its file, the header as written and the template name it was meant to be; before, both were kept as extra
+    columns and the attribute read as empty."""
+    folder = _copy(tmp_path)
+    _edit(folder / "tablets.csv", 1, "friability_pct", "friabilty_pct")
+    lines = (folder / "process.csv").read_text().splitlines()  # a roll diameter added, its header misspelt
+    (folder / "process.csv").write_text("\n".join([lines[0] + ",roll_diamter_mm", *[ln + ",120" for ln in lines[1:]]])
+                                        + "\n")
+    with pytest.raises(InputError) as exc:
+        read_folder(folder, known_lots=set())
+    refused = {(p.file, p.column): p.rule for p in exc.value.problems}
+    assert "did you mean 'friability_pct'?" in refused[("tablets.csv", "friabilty_pct")]
+    assert "did you mean 'roll_diameter_mm'?" in refused[("process.csv", "roll_diamter_mm")]
+    assert all(p.row == 1 for p in exc.value.problems)
+
+
+def test_a_misspelt_header_kept_deliberately_through_the_mapping_is_an_extra_column(tmp_path):
+    folder = _copy(tmp_path)
+    _edit(folder / "tablets.csv", 1, "friability_pct", "friabilty_pct")
+    (folder / "columns.toml").write_text('[tablets.columns]\n"friabilty_pct" = { extra = true }\n')
+    tablets = read_folder(folder, known_lots=set()).tables["tablets"]
+    assert tablets["friability_pct"].isna().all() and tablets["friabilty_pct"].notna().all()
+
+
+def test_extra_columns_far_from_every_template_name_are_kept(tmp_path):
+    """Raw-material attributes and notes beside the template columns: not taken for misspellings, also where
+    the file lacks the template column nearest to them ('operator' and 'compactor', 'sampled_by' and
+    'sampled_at' below the cutoff, as difflib scores them)."""
+    path = tmp_path / "process.csv"
+    path.write_text("lot,roll_force_kn_per_cm,roll_gap_mm,roll_speed_rpm,screw_speed_rpm,mill_screen_mm,"
+                    "blend_moisture_pct,api_d50_um,lubricant_pct,operator\n"
+                    "A1,8,2,5,30,1,2.1,45,0.5,ann\n")
+    df = read_table(path)
+    assert df.loc[0, "api_d50_um"] == 45.0 and df.loc[0, "operator"] == "ann"
+    for extra, template in (("operator", "compactor"), ("sampled_by", "sampled_at")):
+        assert difflib.SequenceMatcher(None, extra, template).ratio() < MISSPELLING_CUTOFF
+    ribbon = tmp_path / "ribbon.csv"
+    ribbon.write_text("lot,sample,envelope_density_g_cm3,skeletal_density_g_cm3,sampled_by\nA1,1,1.0,1.4,ann\n")
+    assert read_table(ribbon).loc[0, "sampled_by"] == "ann"
+
+
+def test_the_demo_lots_still_ingest():
+    ingest = read_folder(DEMO, known_lots=set())
+    assert {"blend_moisture_pct", "api_d50_um", "lubricant_pct"} <= set(ingest.tables["process"].columns)
+
+
+@pytest.mark.parametrize("name", ["friabilty_pct", "Friability", "dissolution_pc", "thicknes_mm"])
+def test_every_one_slip_header_of_an_optional_tablet_column_is_refused(tmp_path, name):
+    """A few slips (a letter left out, the unit part dropped): each scored at or above the cutoff by difflib
+    against the template name and refused when the file lacks that column."""
+    head = "lot,compression_force_kn," + name
+    path = tmp_path / "tablets.csv"
+    path.write_text(f"{head}\nA1,10,1\n")
+    with pytest.raises(InputError) as exc:
+        read_table(path)
+    [problem] = exc.value.problems
+    assert problem.column == name and "did you mean" in problem.rule
+
+
+# --------------------------------------------------------------------------- 2. rename hints
+
+
+def test_a_rename_hint_never_names_a_template_column_present_in_the_file(tmp_path):
+    """screw_speed_rpm missing: roll_speed_rpm (a required column, present) is no rename candidate."""
+    path = tmp_path / "process.csv"
+    path.write_text("lot,roll_force_kn_per_cm,roll_gap_mm,roll_speed_rpm,mill_screen_mm\nA1,8,2,5,1\n")
+    with pytest.raises(InputError) as exc:
+        read_table(path)
+    [problem] = exc.value.problems
+    assert problem.column == "screw_speed_rpm" and "roll_speed_rpm" not in problem.rule
+
+
+def test_a_rename_hint_still_names_an_extra_column(tmp_path):
+    path = tmp_path / "process.csv"
+    path.write_text("lot,roll_force_kn_per_cm,roll_gap_mm,roll_speed_rpm,screw_sped,mill_screen_mm\nA1,8,2,5,30,1\n")
+    with pytest.raises(InputError) as exc:
+        read_table(path)
+    [problem] = exc.value.problems  # one message: the hint of the missing column, not a second one for the header
+    assert problem.column == "screw_speed_rpm" and "found 'screw_sped'" in problem.rule
+
+
+# --------------------------------------------------------------------------- 3. a lot spelt two ways in a file
+
+
+def test_the_row_spelt_apart_from_the_rest_of_its_lot_is_the_one_named(tmp_path):
+    """EX-002 on rows 6-10 of ribbon.csv, row 6 respelt 'ex-002': row 6 is refused, not rows 7-10."""
+    folder = _copy(tmp_path)
+    ribbon = folder / "ribbon.csv"
+    rows = [k for k, ln in enumerate(ribbon.read_text().splitlines(), start=1) if ln.startswith("EX-002,")]
+    _edit(ribbon, rows[0], "EX-002", "ex-002")
+    with pytest.raises(InputError) as exc:
+        read_folder(folder, known_lots=set())
+    [problem] = exc.value.problems
+    assert (problem.file, problem.row, problem.value) == ("ribbon.csv", rows[0], "ex-002")
+    assert f"rows {rows[1]}-{rows[-1]}" in problem.rule
+
+
+def test_the_odd_row_is_named_also_in_the_middle_of_its_lot(tmp_path):
+    folder = _copy(tmp_path)
+    ribbon = folder / "ribbon.csv"
+    rows = [k for k, ln in enumerate(ribbon.read_text().splitlines(), start=1) if ln.startswith("EX-002,")]
+    _edit(ribbon, rows[2], "EX-002", "Ex-002")
+    with pytest.raises(InputError) as exc:
+        read_table(ribbon)
+    assert [(p.row, p.value) for p in exc.value.problems] == [(rows[2], "Ex-002")]
