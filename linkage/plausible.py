@@ -76,6 +76,27 @@ _FACTORS = ((10.0, "ten times too large"), (100.0, "a hundred times too large (%
             (1000.0, "a thousand times too large (mg for g, or N for kN?)"),
             (0.1, "ten times too small"), (0.01, "a hundred times too small (a fraction for %?)"),
             (0.001, "a thousand times too small (g for mg, or kN for N?)"))
+#: the unit slip behind a factor, by the unit a column's name ends with (``sieve_um`` -> ``um``): a value in
+#: mm in a column in um is a thousand times too small. Where a column's unit has an entry, only its slips are
+#: named (a length's never "g for mg"); the words of _FACTORS serve the other columns.
+_UNIT_SLIPS: dict[str, dict[float, str]] = {
+    "um": {0.001: "mm for µm?", 1000.0: "nm for µm?"},
+    "mm": {0.1: "cm for mm?", 0.001: "m for mm?", 1000.0: "µm for mm?"},
+    "g": {1000.0: "mg for g?", 0.001: "kg for g?"},
+    "mg": {0.001: "g for mg?", 1000.0: "µg for mg?"},
+    "n": {0.001: "kN for N?"},
+    "kn": {1000.0: "N for kN?"},
+}
+_SIZES = {10.0: "ten times too large", 100.0: "a hundred times too large", 1000.0: "a thousand times too large",
+          0.1: "ten times too small", 0.01: "a hundred times too small", 0.001: "a thousand times too small"}
+
+
+def _factor_words(column: str) -> tuple[tuple[float, str], ...]:
+    """(factor, words) of each slip looked for in ``column``, in the order of :data:`_FACTORS`."""
+    slips = _UNIT_SLIPS.get(column.rsplit("_", 1)[-1].lower())
+    if slips is None:
+        return _FACTORS
+    return tuple((f, _SIZES[f] + (f" ({slips[f]})" if f in slips else "")) for f, _ in _FACTORS)
 
 
 def robust_reference(lot_values: list[float]) -> tuple[float, float] | None:
@@ -99,7 +120,7 @@ def likely_mistake(x: float, m: float, s: float, column: str, roll_width_mm: flo
         if abs(math.log10(per_cm) - m) <= near:
             return (f"a total roll force in kN: divided by the roll width ({roll_width_mm:g} mm) it is "
                     f"{per_cm:.3g} kN/cm, as usual; map it in columns.toml with unit = \"kN\"")
-    for factor, words in _FACTORS:
+    for factor, words in _factor_words(column):
         if abs(math.log10(x / factor) - m) <= near:
             return f"{words}: {x:g} / {factor:g} = {x / factor:.4g} would be usual"
     return None
@@ -166,6 +187,7 @@ def unusual_values(ingest, history: dict[str, dict[str | None, dict[str, list[di
                 continue  # nothing to compare with (an empty store, a new product)
             candidates = (_lot_candidates if table in JUDGED_BY_LOT else _row_candidates)(df, column, references,
                                                                                          product_of)
+            by_lot = table in JUDGED_BY_LOT
             for k, lot, x in candidates:
                 if not isinstance(x, float) or not math.isfinite(x):
                     continue
@@ -178,15 +200,35 @@ def unusual_values(ingest, history: dict[str, dict[str | None, dict[str, list[di
                 if not is_unusual(x, m, s, explained=hint is not None):
                     continue
                 typical = 10.0 ** m
-                rule = (f"unusual for {'product ' + product if product else 'this store'}: the recent lots have "
-                        f"{column} around {typical:.4g}, this value is {max(x / typical, typical / x):.3g} times "
-                        f"{'that' if x > typical else 'smaller'}" + (f"; it looks like {hint}" if hint else
-                                                                    "; a unit mistake?")
+                ratio = f"{max(x / typical, typical / x):.3g} times {'that' if x > typical else 'smaller'}"
+                if by_lot:
+                    lot_rows = _lot_rows(df, column, lot, rows)
+                    judged = (f"the median {column} of lot {lot!r} ({x:g}, of its {_span(lot_rows)}; the stack "
+                              "is judged as a whole, not row by row)")
+                    what = f"the recent lots have a median {column} around {typical:.4g}, {judged} is {ratio}"
+                else:
+                    what = f"the recent lots have {column} around {typical:.4g}, this value is {ratio}"
+                rule = (f"unusual for {'product ' + product if product else 'this store'}: {what}"
+                        + (f"; it looks like {hint}" if hint else "; a unit mistake?")
                         + ". If it is right, ingest with --accept-unusual --reason TEXT")
-                problems.append(Problem(label, rule, row=rows[k], column=column, value=x))
-                records.append({"file": label, "row": rows[k], "lot": lot, "column": column, "value": x,
-                                "typical": typical, "robust_sd_log10": s})
+                problems.append(Problem(label, rule, row=None if by_lot else rows[k], column=column, value=x))
+                record = {"file": label, "row": rows[k], "lot": lot, "column": column, "value": x,
+                          "typical": typical, "robust_sd_log10": s}
+                if by_lot:  # row: the first of the lot's rows; value: their median, what was judged
+                    record.update(row=lot_rows[0], judged="median of the lot's positive values", rows=lot_rows)
+                records.append(record)
     return problems, records
+
+
+def _lot_rows(df, column: str, lot: str, rows) -> list[int]:
+    """The sheet rows of a lot's positive values of ``column`` (those its median is taken of)."""
+    return [rows[k] for k, (name, v) in enumerate(zip(df["lot"].tolist(), df[column].tolist()))
+            if name == lot and isinstance(v, float) and math.isfinite(v) and v > 0]
+
+
+def _span(rows: list[int]) -> str:
+    """``row 7`` or ``rows 7-10, 4 rows`` (first to last, and how many)."""
+    return f"row {rows[0]}" if len(rows) == 1 else f"rows {rows[0]}-{rows[-1]}, {len(rows)} rows"
 
 
 #: decades of slack of the vectorised first pass (numpy's log10 and pandas' median may differ from math's and

@@ -141,3 +141,49 @@ def test_sieve_apertures_in_mm_are_refused_as_a_stack(tmp_path, counts):
     assert "thousand times too small" in result.stderr
     counts["fuzz cases tried"] += 1
     counts["files refused"] += 1
+
+
+def test_a_sieve_stack_in_mm_is_reported_as_the_lots_median_with_a_length_hint(tmp_path):
+    """The stack is judged on the lot's median aperture: the refusal and the audit record name that median and
+    the lot's rows, not the first row's aperture as if it were the value judged, and the hint is a length's
+    (mm for µm), not a mass's or a force's. A regression test of a message; the median is numpy's of the rows
+    written (no outside source needed)."""
+    def in_mm(stem, header, row):
+        if stem != "granules":
+            return row
+        cells = row.split(",")
+        k = header.split(",").index("sieve_um")
+        cells[k] = f"{float(cells[k]) / 1000:g}"
+        return ",".join(cells)
+
+    _, new, store = _history_and_new_lot(tmp_path, in_mm)
+    lines = (new / "granules.csv").read_text().splitlines()
+    k = lines[0].split(",").index("sieve_um")
+    apertures = {row: float(ln.split(",")[k]) for row, ln in enumerate(lines[1:], start=2)}
+    positive = [row for row, v in apertures.items() if v > 0]
+    stack_median = float(np.median([apertures[r] for r in positive]))
+    assert apertures[positive[0]] != pytest.approx(stack_median)  # the first row is not the value judged
+
+    refused = run_cli(["ingest", new, "--store", store])
+    assert refused.exit_code == 2
+    [line] = [ln for ln in refused.stderr.splitlines() if "sieve_um" in ln]
+    assert f"value {stack_median!r}" in line and f"row {positive[0]}," not in line
+    assert f"rows {positive[0]}-{positive[-1]}" in line and "median" in line
+    assert "mm for µm" in line and "g for mg" not in line and "kN for N" not in line
+
+    taken = run_cli(["ingest", new, "--store", store, "--accept-unusual", "--reason", "stack in mm, checked"])
+    assert taken.exit_code == 0, taken.output
+    audit = json.loads(run_cli(["audit", "--store", store, "--json"]).stdout)
+    [record] = [a for a in audit if a["action"] == "ingest"][-1]["inputs"]["accepted_unusual"]
+    assert {"file", "row", "lot", "column", "value", "typical", "robust_sd_log10"} <= set(record)  # the keys kept
+    assert record["value"] == pytest.approx(stack_median) and record["rows"] == positive
+    assert record["row"] == positive[0] and "median" in record["judged"]
+
+
+def test_the_slip_named_fits_the_columns_unit():
+    """A length is never 'g for mg'; a mass in mg keeps its own slip. Regression test of the words; the
+    factors are the SI prefixes (BIPM, The International System of Units, 9th ed. 2019)."""
+    assert "(mm for µm?)" in likely_mistake(0.3, np.log10(300.0), 0.02, "sieve_um")
+    assert "(g for mg?)" in likely_mistake(0.25, np.log10(250.0), 0.02, "weight_mg")
+    assert "(kN for N?)" in likely_mistake(0.08, np.log10(80.0), 0.02, "breaking_force_n")
+    assert "(cm for mm?)" in likely_mistake(0.42, np.log10(4.2), 0.02, "thickness_mm")
