@@ -150,3 +150,52 @@ def test_the_odd_row_is_named_also_in_the_middle_of_its_lot(tmp_path):
     with pytest.raises(InputError) as exc:
         read_table(ribbon)
     assert [(p.row, p.value) for p in exc.value.problems] == [(rows[2], "Ex-002")]
+
+
+# --------------------------------------------------------------------------- 5. every file's problems at once
+
+
+def _rows_of(path: Path, lot: str) -> list[int]:
+    return [k for k, ln in enumerate(path.read_text().splitlines(), start=1) if ln.startswith(lot + ",")]
+
+
+def test_a_refused_cell_in_process_does_not_hide_an_unknown_lot_in_ribbon(tmp_path):
+    """A negative roll gap in process.csv and a ribbon row of a lot with no process record: both in one
+    refusal (before, the unknown lot showed only on the next run)."""
+    folder = _copy(tmp_path)
+    process, ribbon = folder / "process.csv", folder / "ribbon.csv"
+    gap_row = _rows_of(process, "EX-002")[0]
+    head = process.read_text().splitlines()[0].split(",")
+    lines = process.read_text().splitlines()
+    cells = lines[gap_row - 1].split(",")
+    cells[head.index("roll_gap_mm")] = "-" + cells[head.index("roll_gap_mm")]
+    lines[gap_row - 1] = ",".join(cells)
+    process.write_text("\n".join(lines) + "\n")
+    last = _rows_of(ribbon, "EX-004")[-1]
+    _edit(ribbon, last, "EX-004", "EX-009")
+    with pytest.raises(InputError) as exc:
+        read_folder(folder, known_lots=set())
+    found = {(p.file, p.row, p.column) for p in exc.value.problems}
+    assert found == {("process.csv", gap_row, "roll_gap_mm"), ("ribbon.csv", last, "lot")}
+
+
+def test_an_unknown_lot_in_a_file_refused_for_another_cell_is_reported_too(tmp_path):
+    folder = _copy(tmp_path)
+    ribbon = folder / "ribbon.csv"
+    first, last = _rows_of(ribbon, "EX-001")[0], _rows_of(ribbon, "EX-004")[-1]
+    _edit(ribbon, first, "EX-001,1,", "EX-001,1,x")  # envelope density not a number
+    _edit(ribbon, last, "EX-004", "EX-009")
+    with pytest.raises(InputError) as exc:
+        read_folder(folder, known_lots=set())
+    found = {(p.file, p.row, p.column) for p in exc.value.problems}
+    assert found == {("ribbon.csv", first, "envelope_density_g_cm3"), ("ribbon.csv", last, "lot")}
+
+
+def test_a_process_file_without_its_lot_column_does_not_make_every_lot_unknown(tmp_path):
+    """Nothing was read of the process lots: the checks across files are left out, not run against nothing."""
+    folder = _copy(tmp_path)
+    process = folder / "process.csv"
+    process.write_text("\n".join(ln.split(",", 1)[1] for ln in process.read_text().splitlines()) + "\n")
+    with pytest.raises(InputError) as exc:
+        read_folder(folder, known_lots=set())
+    assert [(p.file, p.column) for p in exc.value.problems] == [("process.csv", "lot")]

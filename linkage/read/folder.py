@@ -54,7 +54,10 @@ def read_folder(folder: Path, mapping: Mapping | None = None, *,
     is also checked against them (:func:`cross_check`): results for a lot with
     no process record here or there, and, for an empty store, the tables a
     first ingest needs. The store repeats that check inside its transaction.
-    Raises one :class:`InputError` with the problems of every file.
+    Raises one :class:`InputError` with the problems of every file; the
+    checks across files run on the lots read from every file, a refused one
+    included (its rows whose lot cell was read and not refused), unless the
+    process table's lots could not be read at all.
     """
     folder = Path(folder)
     if not folder.is_dir():
@@ -115,6 +118,7 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
                                 f"{', '.join(f'{t}.csv' for t in TABLES)} (or .xlsx)"))
     tables: dict[str, pd.DataFrame] = {}
     failed: set[str] = set()
+    lots_read: dict[str, pd.DataFrame] = {}  # a refused table's lots that were read (for the checks across files)
     for tname in (t for t in TABLES if t in plan):
         path, sheet, label = plan[tname]
         try:
@@ -126,6 +130,9 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
         except InputError as exc:
             problems += exc.problems
             failed.add(tname)
+            if getattr(exc, "lots_read", None) is not None:
+                lots_read[tname] = exc.lots_read
+                sources[tname] = {"file": label}  # for the messages only: the ingest is refused
             continue
         tables[tname] = df
         sources[tname] = {"file": label, "sha256": _sha256(path), "rows": len(df)}
@@ -139,8 +146,10 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
         except InputError as exc:
             problems += exc.problems
     ingest = Ingest(tables, sources, spec, warnings, folder, other)
-    if "process" not in failed:
-        problems += cross_check(ingest, known_lots, unread=failed)
+    if "process" not in failed or "process" in lots_read:
+        # across files on what was read, so that a refused cell of one file does not hide another file's
+        # unknown lot until the next run: a refused file contributes the lots of its rows read
+        problems += cross_check(Ingest({**tables, **lots_read}, sources, folder=folder), known_lots, unread=failed)
     if problems:
         raise InputError(problems)
     return ingest

@@ -308,6 +308,15 @@ class _Check:
                     note = f" (read as {cmap.unit}, converted to {v:g} {col.unit})"
                 self.refuse(k, col.name, f"outside the range {col.bound_text()}{note}", value=self.shown(k, col.name))
 
+    def lots_read(self, df: pd.DataFrame) -> pd.DataFrame:
+        """The lot column of the rows whose lot cell was read and not refused, with their sheet rows (what the
+        checks across files of a folder can still use when the file is refused for other cells)."""
+        keep = [k for k, lot in enumerate(df["lot"].tolist())
+                if isinstance(lot, str) and (k, "lot") not in self.bad]
+        lots = df.loc[keep, ["lot"]].reset_index(drop=True)
+        lots.attrs["source_rows"] = SourceRows([self.raw.row_numbers[k] for k in keep])
+        return lots
+
     def frame(self) -> pd.DataFrame:
         """The typed table, after the lot-id, key and row rules; InputError with every problem of the sheet."""
         raw, tdef, problems = self.raw, self.tdef, self.problems
@@ -319,7 +328,9 @@ class _Check:
         problems += _key_problems(df, tdef, raw.label, sheet_rows, self.headers, self.bad)
         problems += _rule_problems(df, tdef, raw.label, sheet_rows, self.headers, self.bad)
         if problems:
-            raise InputError(_sorted(problems))
+            exc = InputError(_sorted(problems))
+            exc.lots_read = self.lots_read(df) if "lot" in self.values else None
+            raise exc
         df.attrs["table"] = tdef.name
         df.attrs["file"] = raw.label
         df.attrs["source_rows"] = SourceRows(sheet_rows)
