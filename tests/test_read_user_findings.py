@@ -41,6 +41,17 @@ def _edit(path: Path, line: int, old: str, new: str) -> None:
     path.write_text("\n".join(lines) + "\n")
 
 
+def _rows_of(path: Path, lot: str) -> list[int]:
+    return [k for k, ln in enumerate(path.read_text().splitlines(), start=1) if ln.startswith(lot + ",")]
+
+
+def _refused(folder: Path) -> list[tuple]:
+    """(file, row, column) of every problem of the folder's refusal, in the order given."""
+    with pytest.raises(InputError) as exc:
+        read_folder(folder, known_lots=set())
+    return [(p.file, p.row, p.column) for p in exc.value.problems]
+
+
 # --------------------------------------------------------------------------- 1. misspelt optional columns
 
 
@@ -129,34 +140,24 @@ def test_a_rename_hint_still_names_an_extra_column(tmp_path):
 # --------------------------------------------------------------------------- 3. a lot spelt two ways in a file
 
 
-def test_the_row_spelt_apart_from_the_rest_of_its_lot_is_the_one_named(tmp_path):
-    """EX-002 on rows 6-10 of ribbon.csv, row 6 respelt 'ex-002': row 6 is refused, not rows 7-10."""
+@pytest.mark.parametrize("odd, spelling", [(0, "ex-002"), (2, "Ex-002")])
+def test_the_row_spelt_apart_from_the_rest_of_its_lot_is_the_one_named(tmp_path, odd, spelling):
+    """EX-002 on rows 6-10 of ribbon.csv, one of them respelt: that row is refused, naming the rows of the
+    usual spelling; before, with the first row respelt, rows 7-10 (the correct spelling) were flagged."""
     folder = _copy(tmp_path)
     ribbon = folder / "ribbon.csv"
-    rows = [k for k, ln in enumerate(ribbon.read_text().splitlines(), start=1) if ln.startswith("EX-002,")]
-    _edit(ribbon, rows[0], "EX-002", "ex-002")
+    rows = _rows_of(ribbon, "EX-002")
+    _edit(ribbon, rows[odd], "EX-002", spelling)
     with pytest.raises(InputError) as exc:
         read_folder(folder, known_lots=set())
     [problem] = exc.value.problems
-    assert (problem.file, problem.row, problem.value) == ("ribbon.csv", rows[0], "ex-002")
-    assert f"rows {rows[1]}-{rows[-1]}" in problem.rule
-
-
-def test_the_odd_row_is_named_also_in_the_middle_of_its_lot(tmp_path):
-    folder = _copy(tmp_path)
-    ribbon = folder / "ribbon.csv"
-    rows = [k for k, ln in enumerate(ribbon.read_text().splitlines(), start=1) if ln.startswith("EX-002,")]
-    _edit(ribbon, rows[2], "EX-002", "Ex-002")
-    with pytest.raises(InputError) as exc:
-        read_table(ribbon)
-    assert [(p.row, p.value) for p in exc.value.problems] == [(rows[2], "Ex-002")]
+    assert (problem.file, problem.row, problem.value) == ("ribbon.csv", rows[odd], spelling)
+    usual = [r for r in rows if r != rows[odd]]
+    assert f"rows {usual[0]}-{usual[-1]}, {len(usual)} rows" in problem.rule
 
 
 # --------------------------------------------------------------------------- 5. every file's problems at once
 
-
-def _rows_of(path: Path, lot: str) -> list[int]:
-    return [k for k, ln in enumerate(path.read_text().splitlines(), start=1) if ln.startswith(lot + ",")]
 
 
 def test_a_refused_cell_in_process_does_not_hide_an_unknown_lot_in_ribbon(tmp_path):
@@ -165,18 +166,10 @@ def test_a_refused_cell_in_process_does_not_hide_an_unknown_lot_in_ribbon(tmp_pa
     folder = _copy(tmp_path)
     process, ribbon = folder / "process.csv", folder / "ribbon.csv"
     gap_row = _rows_of(process, "EX-002")[0]
-    head = process.read_text().splitlines()[0].split(",")
-    lines = process.read_text().splitlines()
-    cells = lines[gap_row - 1].split(",")
-    cells[head.index("roll_gap_mm")] = "-" + cells[head.index("roll_gap_mm")]
-    lines[gap_row - 1] = ",".join(cells)
-    process.write_text("\n".join(lines) + "\n")
+    _edit(process, gap_row, "EX-002,pilot,8.37,2.0,", "EX-002,pilot,8.37,-2.0,")  # roll_gap_mm, the 4th column
     last = _rows_of(ribbon, "EX-004")[-1]
     _edit(ribbon, last, "EX-004", "EX-009")
-    with pytest.raises(InputError) as exc:
-        read_folder(folder, known_lots=set())
-    found = {(p.file, p.row, p.column) for p in exc.value.problems}
-    assert found == {("process.csv", gap_row, "roll_gap_mm"), ("ribbon.csv", last, "lot")}
+    assert set(_refused(folder)) == {("process.csv", gap_row, "roll_gap_mm"), ("ribbon.csv", last, "lot")}
 
 
 def test_an_unknown_lot_in_a_file_refused_for_another_cell_is_reported_too(tmp_path):
@@ -185,10 +178,7 @@ def test_an_unknown_lot_in_a_file_refused_for_another_cell_is_reported_too(tmp_p
     first, last = _rows_of(ribbon, "EX-001")[0], _rows_of(ribbon, "EX-004")[-1]
     _edit(ribbon, first, "EX-001,1,", "EX-001,1,x")  # envelope density not a number
     _edit(ribbon, last, "EX-004", "EX-009")
-    with pytest.raises(InputError) as exc:
-        read_folder(folder, known_lots=set())
-    found = {(p.file, p.row, p.column) for p in exc.value.problems}
-    assert found == {("ribbon.csv", first, "envelope_density_g_cm3"), ("ribbon.csv", last, "lot")}
+    assert set(_refused(folder)) == {("ribbon.csv", first, "envelope_density_g_cm3"), ("ribbon.csv", last, "lot")}
 
 
 def test_a_process_file_without_its_lot_column_does_not_make_every_lot_unknown(tmp_path):
@@ -196,6 +186,15 @@ def test_a_process_file_without_its_lot_column_does_not_make_every_lot_unknown(t
     folder = _copy(tmp_path)
     process = folder / "process.csv"
     process.write_text("\n".join(ln.split(",", 1)[1] for ln in process.read_text().splitlines()) + "\n")
-    with pytest.raises(InputError) as exc:
-        read_folder(folder, known_lots=set())
-    assert [(p.file, p.column) for p in exc.value.problems] == [("process.csv", "lot")]
+    assert _refused(folder) == [("process.csv", 1, "lot")]
+
+
+def test_a_refused_process_lot_cell_does_not_make_its_results_unknown(tmp_path):
+    """A zero-width space (U+200B, a Unicode format character) in process.csv's lot EX-001: that cell is
+    refused, and the ribbon, granule and tablet rows of EX-001 are not reported again as lots without a
+    process record (the one fix, in process.csv, settles both)."""
+    folder = _copy(tmp_path)
+    process = folder / "process.csv"
+    row = _rows_of(process, "EX-001")[0]
+    _edit(process, row, "EX-001", "EX-001\u200b")
+    assert _refused(folder) == [("process.csv", row, "lot")]

@@ -116,9 +116,33 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
     if not plan and not problems:
         problems.append(Problem(folder.name or str(folder), "no table files found; expected "
                                 f"{', '.join(f'{t}.csv' for t in TABLES)} (or .xlsx)"))
+    tables, failed, lots_read = _read_tables(plan, mapping, workbooks, sources, problems, warnings)
+    spec = None
+    if spec_path is not None:
+        try:
+            spec = read_spec(spec_path)
+            other[SPEC_FILE] = {"file": spec_path.name, "sha256": _sha256(spec_path), "rows": None}
+        except InputError as exc:
+            problems += exc.problems
+    ingest = Ingest(tables, sources, spec, warnings, folder, other)
+    if "process" not in failed or "process" in lots_read:
+        # across files on what was read, so that a refused cell of one file does not hide another file's
+        # unknown lot until the next run: a refused file contributes the lots of its rows read
+        refused = [lot for df in lots_read.values() for lot in df.attrs.get("refused_lots", [])]
+        problems += cross_check(Ingest({**tables, **lots_read}, sources, folder=folder), known_lots, unread=failed,
+                                unsure=refused)
+    if problems:
+        raise InputError(problems)
+    return ingest
+
+
+def _read_tables(plan: dict, mapping: Mapping | None, workbooks: dict, sources: dict, problems: list[Problem],
+                 warnings: list[str]) -> tuple[dict[str, pd.DataFrame], set[str], dict[str, pd.DataFrame]]:
+    """Every planned table read: the tables read, the names of those refused (their problems added to
+    ``problems``), and the lots read from each refused one (for the checks across files)."""
     tables: dict[str, pd.DataFrame] = {}
     failed: set[str] = set()
-    lots_read: dict[str, pd.DataFrame] = {}  # a refused table's lots that were read (for the checks across files)
+    lots_read: dict[str, pd.DataFrame] = {}
     for tname in (t for t in TABLES if t in plan):
         path, sheet, label = plan[tname]
         try:
@@ -138,21 +162,7 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
         sources[tname] = {"file": label, "sha256": _sha256(path), "rows": len(df)}
         if len(df) == 0:
             warnings.append(f"{label} has a header but no data rows")
-    spec = None
-    if spec_path is not None:
-        try:
-            spec = read_spec(spec_path)
-            other[SPEC_FILE] = {"file": spec_path.name, "sha256": _sha256(spec_path), "rows": None}
-        except InputError as exc:
-            problems += exc.problems
-    ingest = Ingest(tables, sources, spec, warnings, folder, other)
-    if "process" not in failed or "process" in lots_read:
-        # across files on what was read, so that a refused cell of one file does not hide another file's
-        # unknown lot until the next run: a refused file contributes the lots of its rows read
-        problems += cross_check(Ingest({**tables, **lots_read}, sources, folder=folder), known_lots, unread=failed)
-    if problems:
-        raise InputError(problems)
-    return ingest
+    return tables, failed, lots_read
 
 
 def _plan(plan: dict, table: str, item: tuple, problems: list[Problem]) -> None:
@@ -188,13 +198,17 @@ def _sha256(path: Path) -> str:
     return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
-def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterable[str] = ()) -> list[Problem]:
+def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterable[str] = (),
+                unsure: Iterable[str] = ()) -> list[Problem]:
     """Rules across tables, given the lots already in the store.
 
     ``known_lots=None`` means the store is not known yet and nothing is
     checked. Otherwise: every lot of a result table needs a process record in
     this ingest or in the store; and an empty store needs every required table
-    (``unread`` names tables that are there but failed to read).
+    (``unread`` names tables that are there but failed to read). ``unsure``
+    are lots whose cells were refused already (their process record may be
+    one of them): a result without a process record is not reported for a
+    lot of the same :func:`lot_key`.
     """
     if known_lots is None:
         return []
@@ -204,6 +218,7 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
     spelling, key = _spellings(ingest, known)
     # a stored id is never refused: a store written before this rule may hold two spellings of one lot
     respelled_ids = {lot for lot in key.keys() - known if spelling.get(key[lot], (lot,))[0] != lot}
+    unsure_keys = {lot_key(lot) for lot in unsure}
     for tname, df in ingest.tables.items():
         odd = {lot for lot in df["lot"].unique().tolist() if lot in respelled_ids or lot not in with_process}
         if not odd:
@@ -226,6 +241,8 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
         if tname == "process":
             continue
         for lot, rs in orphans.items():
+            if unsure_keys and lot_key(lot) in unsure_keys:
+                continue  # its process record's lot cell is refused already
             problems.append(Problem(label, f"lot {lot!r} has no process record in this folder or in the store "
                                            f"({_span(rs)}); add it to process", row=rs[0], column="lot", value=lot))
     return problems

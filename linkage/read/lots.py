@@ -26,12 +26,21 @@ def lot_key(lot: str) -> str:
     return _DASHES.sub("-", unicodedata.normalize("NFKC", lot)).casefold()
 
 
+#: Unicode categories of the characters a lot id may not hold: control (Cc) and format (Cf)
+_INVISIBLE = ("Cc", "Cf")
+
+
+def _without_invisible(lot: str) -> str:
+    """A lot id with its control and format characters taken out (what it was probably meant to be)."""
+    return "".join(ch for ch in lot if unicodedata.category(ch) not in _INVISIBLE)
+
+
 def lot_id_rule(lot: str) -> str | None:
     """The rule a lot id breaks, or None. Refused: control characters
     (Unicode category Cc) and format characters (Cf: a byte-order mark
     U+FEFF, zero-width spaces and joiners, direction marks), which print as
     nothing and would make a second lot that looks like the first."""
-    found = [ch for ch in lot if unicodedata.category(ch) in ("Cc", "Cf")]
+    found = [ch for ch in lot if unicodedata.category(ch) in _INVISIBLE]
     if not found:
         return None
     names = ", ".join(sorted({f"U+{ord(ch):04X} {unicodedata.name(ch, 'control character')}" for ch in found}))

@@ -18,7 +18,7 @@ from linkage.exceptions import InputError, Problem
 from linkage.read import MAPPING_FILE, UNSUPPORTED_SUFFIXES, WORKBOOK_SUFFIXES
 from linkage.read.cells import (_as_list, _column_clean, _decimal_mark, _extra_non_finite, _extra_values,
                                 _fast_cells, _in_bounds, _parse_datetime, _parse_number, _shown, _text)
-from linkage.read.lots import _lot_id_problems
+from linkage.read.lots import _lot_id_problems, _without_invisible
 from linkage.read.mapping import ROLL_WIDTH_COLUMN, TOTAL_FORCE_COLUMN, ColumnMap, Mapping, _suggest, _without_unit
 from linkage.read.raw import _is_missing, _letters, _norm_header, _Raw
 from linkage.read.rules import _key_problems, _rule_problems, _sorted
@@ -315,6 +315,9 @@ class _Check:
                 if isinstance(lot, str) and (k, "lot") not in self.bad]
         lots = df.loc[keep, ["lot"]].reset_index(drop=True)
         lots.attrs["source_rows"] = SourceRows([self.raw.row_numbers[k] for k in keep])
+        # the refused lot cells, with invisible characters taken out: the lots they were probably meant to be
+        refused = {lot for k, lot in enumerate(df["lot"].tolist()) if isinstance(lot, str) and (k, "lot") in self.bad}
+        lots.attrs["refused_lots"] = sorted(map(_without_invisible, refused))
         return lots
 
     def frame(self) -> pd.DataFrame:

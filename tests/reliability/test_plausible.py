@@ -124,18 +124,20 @@ def test_a_small_value_of_a_widely_spread_attribute_is_not_explained_by_a_slip()
     assert likely_mistake(0.0285, m, s, "friability_pct") is not None  # a true factor of ten still is
 
 
+def _sieve_in_mm(stem, header, row):
+    """The new lot's sieve apertures written in mm (1.4 for 1400 um)."""
+    if stem != "granules":
+        return row
+    cells = row.split(",")
+    k = header.split(",").index("sieve_um")
+    cells[k] = f"{float(cells[k]) / 1000:g}"
+    return ",".join(cells)
+
+
 def test_sieve_apertures_in_mm_are_refused_as_a_stack(tmp_path, counts):
     """A sieve stack written in mm (1.4, 1.0, ..., 0 for the pan) for one lot: judged on the lot's median
     aperture, a thousand times too small; a normal stack, spanning the pan to 1400 um, passes."""
-    def in_mm(stem, header, row):
-        if stem != "granules":
-            return row
-        cells = row.split(",")
-        k = header.split(",").index("sieve_um")
-        cells[k] = f"{float(cells[k]) / 1000:g}"
-        return ",".join(cells)
-
-    _, new, store = _history_and_new_lot(tmp_path, in_mm)
+    _, new, store = _history_and_new_lot(tmp_path, _sieve_in_mm)
     result = run_cli(["ingest", new, "--store", store])
     assert result.exit_code == 2 and "granules.csv" in result.stderr and "sieve_um" in result.stderr
     assert "thousand times too small" in result.stderr
@@ -148,15 +150,7 @@ def test_a_sieve_stack_in_mm_is_reported_as_the_lots_median_with_a_length_hint(t
     the lot's rows, not the first row's aperture as if it were the value judged, and the hint is a length's
     (mm for µm), not a mass's or a force's. A regression test of a message; the median is numpy's of the rows
     written (no outside source needed)."""
-    def in_mm(stem, header, row):
-        if stem != "granules":
-            return row
-        cells = row.split(",")
-        k = header.split(",").index("sieve_um")
-        cells[k] = f"{float(cells[k]) / 1000:g}"
-        return ",".join(cells)
-
-    _, new, store = _history_and_new_lot(tmp_path, in_mm)
+    _, new, store = _history_and_new_lot(tmp_path, _sieve_in_mm)
     lines = (new / "granules.csv").read_text().splitlines()
     k = lines[0].split(",").index("sieve_um")
     apertures = {row: float(ln.split(",")[k]) for row, ln in enumerate(lines[1:], start=2)}
