@@ -120,11 +120,13 @@ class Ingested(_Result):
 # --------------------------------------------------------------------------- train
 
 #: keys of one attribute in ``train --json`` (the issue's list, plus the
-#: reasons and methods a reader needs to judge them)
+#: reasons and methods a reader needs to judge them, and the README's
+#: ``hyperparameters``, ``spread`` and ``interval_basis``)
 TARGET_KEYS = ("stage", "inputs", "n_lots", "cv", "candidates", "unavailable", "noise_floor", "noise_floor_method",
-               "selected", "selection_rule", "selection", "nominal_coverage", "coverage", "coverage_method",
-               "infinite_intervals", "interval_method", "coverage_by_region", "coverage_region_variable",
-               "coverage_guarantee", "interval_choice", "vip", "rd_params", "notes")
+               "selected", "selection_rule", "selection", "hyperparameters", "nominal_coverage", "coverage",
+               "coverage_method", "infinite_intervals", "interval_method", "coverage_by_region",
+               "coverage_region_variable", "coverage_guarantee", "interval_choice", "spread", "interval_basis", "vip",
+               "rd_params", "notes")
 
 
 def train_json(fitted: FittedChain) -> dict:
@@ -139,7 +141,7 @@ def train_json(fitted: FittedChain) -> dict:
         "dissolution_time_min": meta["training"].get("dissolution_time_min"),
         "group_by": meta["training"].get("group_by", "lot"),
         "materials": meta["training"].get("materials"),
-        "targets": {name: {**{k: t[k] for k in TARGET_KEYS}, "forward": t.get("forward")}
+        "targets": {name: {**{k: t.get(k) for k in TARGET_KEYS}, "forward": t.get("forward")}
                     for name, t in meta["targets"].items()},
         "skipped": meta["skipped"],
         "caution": CAUTION,

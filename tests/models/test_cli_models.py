@@ -92,6 +92,20 @@ def test_train_json_and_text(fake_store, tmp_path):
     assert len(regions) == 3 and sum(r["n"] for r in regions) == 12
     assert all(set(r) == {"range", "n", "coverage", "ci_low", "ci_high"} for r in regions)
     assert t["coverage_region_variable"] == "ribbon_porosity" and "1 − 2α" in t["coverage_guarantee"]["text"]
+    # the README's keys (section "JSON outputs" and the candidates' and intervals' paragraphs): the chosen
+    # hyperparameters with log_linear's inputs as indices into `inputs`; `spread` null with CV+;
+    # `interval_basis` null where locally weighted CV+ is deployed (regression: the three were missing)
+    for t in data["targets"].values():
+        full = t["hyperparameters"]["full_data"]
+        assert t["selected"] in full and len(t["hyperparameters"]["selected_by_fold"]) == t["cv"]["n_splits"]
+        if "log_linear" in full:
+            assert {"features", "log_inputs"} <= set(full["log_linear"])
+            assert all(0 <= i < len(t["inputs"]) for i in full["log_linear"]["features"])
+        lw = t["interval_choice"]["method"] == "locally weighted CV+"
+        assert (t["spread"] is None) == (not lw)
+        assert (t["interval_basis"] is None) == lw
+        if t["interval_basis"] is not None:
+            assert set(t["interval_basis"]) == {"fold_candidates", "summary", "leverage"}
 
     chain.write_text('[[stage]]\nname = "tablets"\ninputs = ["ribbon_porosity", "compression_force_kn"]\n'
                      'targets = ["dissolution_pct"]\n')
