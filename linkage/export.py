@@ -44,8 +44,11 @@ def safe_for_spreadsheet(table):
 
 
 def write_atomic(path, data: bytes) -> Path:
-    """Write ``data`` to ``path`` whole or not at all (temporary file in the same folder, then rename)."""
+    """Write ``data`` to ``path`` whole or not at all (temporary file in the same folder, then rename).
+    A missing folder on the way is made, as ``report --out`` and the other writers always did (the caller
+    has refused, with :func:`linkage.cli.common.check_output`, a path that cannot be made)."""
     path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
     _remove_orphans(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.{os.getpid()}.", suffix=".part", dir=path.parent or Path("."))
     try:

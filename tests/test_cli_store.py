@@ -153,6 +153,21 @@ def test_assemble(lab, tmp_path):
     assert summary.exit_code == 0 and "ribbon_porosity" in summary.output and "4/4" in summary.output
 
 
+def test_assemble_out_makes_a_missing_folder(lab, tmp_path):
+    """``assemble --out`` into folders that do not exist yet makes them, as report --out, predict --html,
+    plan --out and space --png do (regression: it printed the table's size, then failed on its temporary
+    file with exit code 5). A behaviour of this project, no outside source."""
+    pytest.importorskip("linkage.assemble")
+    db = tmp_path / "s.db"
+    run("ingest", lab, "--store", db)
+    out = tmp_path / "new" / "deeper" / "lots.csv"
+    result = run("assemble", "--store", db, "--out", out)
+    assert result.exit_code == 0, result.output
+    with open(out, newline="") as fh:
+        assert [r["lot"] for r in csv.DictReader(fh)] == ["EX-001", "EX-002", "EX-003", "EX-004"]
+    assert [p.name for p in out.parent.iterdir()] == ["lots.csv"]  # no temporary file left
+
+
 def test_assemble_empty_store(tmp_path):
     pytest.importorskip("linkage.assemble")
     from linkage.store import LotStore
