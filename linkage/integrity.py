@@ -5,7 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from linkage.exceptions import ModelIntegrityError, StoreIntegrityError
+from linkage.exceptions import ModelIntegrityError, ModelNotFoundError, StoreIntegrityError
 
 
 @dataclass
@@ -18,6 +18,10 @@ class VerifyResult:
     models_checked: int = 0
     store_problems: list[str] = field(default_factory=list)
     model_problems: list[str] = field(default_factory=list)
+    #: folders in the registry's folder that its index does not hold (never loaded; not an integrity failure)
+    models_unregistered: list[str] = field(default_factory=list)
+    #: why the registry was not checked (None when it was)
+    models_not_checked: str | None = None
 
     @property
     def ok(self) -> bool:
@@ -26,19 +30,53 @@ class VerifyResult:
     def to_dict(self) -> dict:
         return {"ok": self.ok, "store": self.store, "models_dir": self.models_dir, "store_checked": self.store_counts,
                 "models_checked": self.models_checked, "store_problems": self.store_problems,
-                "model_problems": self.model_problems}
+                "model_problems": self.model_problems, "models_unregistered": self.models_unregistered,
+                "models_not_checked": self.models_not_checked}
 
     def __repr__(self) -> str:
         verdict = "whole" if self.ok else f"{len(self.store_problems) + len(self.model_problems)} problem(s)"
         return f"VerifyResult({verdict}; store {self.store}, {self.models_checked} model(s))"
 
 
-def verify_record(store: Path | None, models_dir: Path | None) -> VerifyResult:
+def not_a_registry(models_dir: Path) -> str | None:
+    """Why ``models_dir`` is not a model registry (no such folder; a folder without the registry's index and
+    without model folders), or None when it is one. A folder that holds model folders but no index is a
+    registry whose index is gone: it is checked, and its folders are listed as not registered."""
+    from linkage.models import registry
+
+    path = Path(models_dir)
+    if not path.is_dir():
+        return "no such folder" if not path.exists() else "not a folder"
+    if (path / registry.INDEX).exists() or _unregistered(path, set()):
+        return None
+    return f"a folder without {registry.INDEX} and without model folders"
+
+
+def _unregistered(models_dir: Path, registered: set[str]) -> list[str]:
+    """Folders in the registry's folder that are not in its index (hidden ones are the registry's own: an
+    interrupted save's ``.tmp-*``, which ``linkage models`` lists as incomplete)."""
+    return sorted(p.name for p in models_dir.iterdir()
+                  if p.is_dir() and not p.name.startswith(".") and p.name not in registered)
+
+
+def verify_record(store: Path | None, models_dir: Path | None, *, registry_required: bool = True) -> VerifyResult:
     """Check every seal, record and raw row of the store (:meth:`LotStore.check_seals` with ``full``) and every
-    model of the registry against its recorded hashes (:func:`linkage.models.registry.verify`)."""
+    model of the registry against its recorded hashes (:func:`linkage.models.registry.verify`), and list the
+    folders of the registry that its index does not hold.
+
+    A ``models_dir`` that is not a registry (:func:`not_a_registry`) is refused with
+    :class:`~linkage.exceptions.ModelNotFoundError` (exit code 2) before anything is checked, as every command
+    that reads models refuses it; with ``registry_required=False`` (``linkage verify`` without
+    ``--models-dir``: the default folder) the store alone is checked and ``models_not_checked`` says why."""
     from linkage.store import LotStore
 
     result = VerifyResult(None if store is None else str(store), None if models_dir is None else str(models_dir))
+    reason = None if models_dir is None else not_a_registry(models_dir)
+    if reason is not None:
+        if registry_required:
+            raise ModelNotFoundError(f"no model registry at {models_dir} ({reason}); point --models-dir (or "
+                                     "LINKAGE_MODELS_DIR) at the registry, or train a model first ('linkage train')")
+        result.models_not_checked = reason
     if store is not None:
         try:
             with LotStore(store, create=False) as lot_store:
@@ -46,7 +84,7 @@ def verify_record(store: Path | None, models_dir: Path | None) -> VerifyResult:
         except StoreIntegrityError as exc:
             result.store_problems = [line.strip().removeprefix("- ") for line in str(exc).splitlines()[1:]] or [
                 str(exc)]
-    if models_dir is not None and Path(models_dir).is_dir():
+    if models_dir is not None and reason is None:
         from linkage.models import registry
 
         try:
@@ -54,6 +92,7 @@ def verify_record(store: Path | None, models_dir: Path | None) -> VerifyResult:
         except ModelIntegrityError as exc:
             result.model_problems.append(str(exc))
             return result
+        result.models_unregistered = _unregistered(Path(models_dir), set(index["models"]))
         for model_id in sorted(index["models"]):
             result.models_checked += 1
             try:

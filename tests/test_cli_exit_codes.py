@@ -107,6 +107,58 @@ def test_no_model_registry_is_usage_exit_2(tmp_path, command):
     assert list(tmp_path.iterdir()) == []
 
 
+def _template_store(tmp_path):
+    if not TEMPLATE.is_dir():
+        pytest.fail(f"the template example is missing from the repository: {TEMPLATE}")
+    store = tmp_path / "s.db"
+    assert run("ingest", TEMPLATE, "--store", store).exit_code == 0
+    return store
+
+
+@pytest.mark.parametrize("how", ["option", "environment", "empty folder"])
+def test_verify_refuses_a_models_dir_that_is_no_registry(tmp_path, how):
+    """A mistyped --models-dir (or LINKAGE_MODELS_DIR), or a folder that holds no registry, is refused as
+    every command that reads models refuses it (exit 2), before anything is checked. Regression: verify
+    said "0 model(s) checked / Everything matches" with exit 0. A refusal: no outside source."""
+    store = _template_store(tmp_path)
+    typo = tmp_path / "modles"
+    if how == "empty folder":
+        typo.mkdir()
+    args = ["verify", "--store", str(store)] + (["--models-dir", str(typo)] if how != "environment" else [])
+    r = CliRunner().invoke(cli, args, env={"LINKAGE_STORE": None,
+                                           "LINKAGE_MODELS_DIR": str(typo) if how == "environment" else None})
+    assert r.exit_code == 2, r.output
+    assert f"Error: no model registry at {typo} (" in r.stderr and r.stdout == ""
+
+
+def test_verify_lists_folders_the_registry_does_not_hold(tmp_path, monkeypatch):
+    """A folder in the registry's folder that its index does not hold is listed as not registered (it is
+    never loaded, so it is no integrity failure); without --models-dir and with no registry in the default
+    place, the store alone is checked and the registry is said not to be. A behaviour: no outside source."""
+    import json
+
+    store = _template_store(tmp_path)
+    models = tmp_path / "models"
+    models.mkdir()
+    (models / "registry.json").write_text(json.dumps({"format": 1, "models": {}}))
+    (models / "m-20260101T000000Z-0123abcd").mkdir()
+    (models / ".tmp-interrupted").mkdir()
+    r = run("verify", "--store", store, "--models-dir", models)
+    assert r.exit_code == 0, r.output
+    assert "not registered: m-20260101T000000Z-0123abcd" in r.stdout and ".tmp-" not in r.stdout
+    data = json.loads(run("verify", "--store", store, "--models-dir", models, "--json").stdout)
+    assert data["models_unregistered"] == ["m-20260101T000000Z-0123abcd"] and data["ok"]
+    (models / "registry.json").unlink()  # model folders without an index: still a registry, its folders listed
+    r = run("verify", "--store", store, "--models-dir", models, "--json")
+    assert r.exit_code == 0 and json.loads(r.stdout)["models_unregistered"] == ["m-20260101T000000Z-0123abcd"]
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    monkeypatch.chdir(elsewhere)
+    r = run("verify", "--store", store)
+    assert r.exit_code == 0, r.output
+    assert "Model registry models: not checked (no such folder" in r.stdout and "raw rows" in r.stdout
+
+
 # --- code 2: an output that cannot be written, refused before any work ---------------------------------------------
 @pytest.mark.parametrize("command, option", [
     (["report"], "--out"), (["assemble"], "--out"), (["predict", "--set", "ribbon_porosity=0.3"], "--html"),

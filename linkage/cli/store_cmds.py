@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 from pathlib import Path
 
 import click
@@ -226,8 +227,9 @@ def _value(v) -> str:
 @store_option
 @models_dir_option
 @json_option
+@click.pass_context
 @handle_errors
-def verify(store, models_dir, as_json):
+def verify(ctx, store, models_dir, as_json):
     """Check the whole record: every seal, audit entry, recorded prediction,
     ingest and raw row of the lot store, and every model of the registry
     against its recorded hashes.
@@ -242,9 +244,12 @@ def verify(store, models_dir, as_json):
       linkage verify
       linkage verify --store site.db --models-dir /srv/linkage/models --json
     """
+    from linkage.cli.common import MODELS_ENV
     from linkage.integrity import verify_record
 
-    result = verify_record(store, models_dir)
+    given = (ctx.get_parameter_source("models_dir") is not click.core.ParameterSource.DEFAULT
+             or bool(os.environ.get(MODELS_ENV)))
+    result = verify_record(store, models_dir, registry_required=given)
     if as_json:
         click.echo(json.dumps(result.to_dict(), indent=2))
     else:
@@ -253,7 +258,14 @@ def verify(store, models_dir, as_json):
             newest = counts.get("newest seal", {})
             checked = ", ".join(f"{v} {k}" for k, v in counts.items() if k != "newest seal")
             click.echo(f"Lot store {store}: {checked}; newest seal {newest.get('id')} sha256 {newest.get('sha256')}")
-        click.echo(f"Model registry {models_dir}: {result.models_checked} model(s) checked")
+        if result.models_not_checked:
+            click.echo(f"Model registry {models_dir}: not checked ({result.models_not_checked}; "
+                       "give --models-dir to check one)")
+        else:
+            click.echo(f"Model registry {models_dir}: {result.models_checked} model(s) checked")
+        for name in result.models_unregistered:
+            click.echo(f"  not registered: {name} (a folder the registry index does not hold; never loaded; "
+                       "'linkage models --import' registers a model folder copied in)")
         for p in result.store_problems:
             click.echo(f"  store: {p}", err=True)
         for p in result.model_problems:

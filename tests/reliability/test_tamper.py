@@ -67,13 +67,13 @@ def _detected(path: Path, counts, *words: str, command=("lots",)) -> None:
     assert "integrity check" in result.stderr and "Traceback" not in result.output
     for w in words:
         assert w in result.stderr, result.stderr
-    verify = run_cli(["verify", "--store", path, "--models-dir", path.parent / "none"])
+    verify = run_cli(["verify", "--store", path])
     assert verify.exit_code == 6 and "NOT whole" in verify.output
     counts["tamper cases detected"] += 1
 
 
 def test_a_whole_store_verifies_and_prints_its_newest_seal(store):
-    result = run_cli(["verify", "--store", store, "--models-dir", store.parent / "none", "--json"])
+    result = run_cli(["verify", "--store", store, "--json"])
     assert result.exit_code == 0, result.output
     out = json.loads(result.stdout)
     assert out["ok"] and out["store_checked"]["raw rows"] > 0 and out["store_checked"]["audit entries"] == 3
@@ -157,7 +157,7 @@ def test_rows_and_their_row_hash_rewritten_together_are_found_by_verify(store, c
     _behind_the_back(store, "UPDATE row_blocks SET rows_text = ? WHERE rows_text LIKE '%1.0617%'",
                      f"UPDATE lot_table_hashes SET rows_sha256 = '{seal.rows_sha256(texts)}' "
                      f"WHERE lot_table_id = {tid}", params=(block.replace("1.0617", "1.0549"),))
-    result = run_cli(["verify", "--store", store, "--models-dir", store.parent / "none"])
+    result = run_cli(["verify", "--store", store])
     assert result.exit_code == 6 and "ingest record 1 was changed" in result.stderr
     assert "content hash does not match" in result.stderr
     counts["tamper cases detected"] += 1
