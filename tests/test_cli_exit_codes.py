@@ -159,6 +159,68 @@ def test_verify_lists_folders_the_registry_does_not_hold(tmp_path, monkeypatch):
     assert "Model registry models: not checked (no such folder" in r.stdout and "raw rows" in r.stdout
 
 
+def test_empty_environment_variables_count_as_unset(tmp_path, monkeypatch):
+    """LINKAGE_STORE= and LINKAGE_MODELS_DIR= (set, empty) mean the defaults linkage.db and models/, as an
+    unset variable. Regression: the empty text was taken as the path ".", "a folder, not a lot store file".
+    A behaviour of this project: no outside source."""
+    import json
+
+    if not TEMPLATE.is_dir():
+        pytest.fail(f"the template example is missing from the repository: {TEMPLATE}")
+    monkeypatch.chdir(tmp_path)
+    empty = {"LINKAGE_STORE": "", "LINKAGE_MODELS_DIR": ""}
+    assert run("ingest", TEMPLATE, "--store", "linkage.db").exit_code == 0
+    r = CliRunner().invoke(cli, ["lots", "--json"], env=empty)
+    assert r.exit_code == 0, r.output
+    assert [x["lot"] for x in json.loads(r.stdout)] == ["EX-001", "EX-002", "EX-003", "EX-004"]
+    (tmp_path / "models").mkdir()
+    (tmp_path / "models" / "registry.json").write_text(json.dumps({"format": 1, "models": {}}))
+    (tmp_path / "models" / "m-20260101T000000Z-0123abcd").mkdir()
+    r = CliRunner().invoke(cli, ["models", "--json"], env=empty)
+    assert r.exit_code == 0, r.output
+    listed = json.loads(r.stdout)
+    assert listed["models_dir"] == "models"
+    assert [m["model_id"] for m in listed["models"]] == ["m-20260101T000000Z-0123abcd"]
+
+
+def _closed_reader(args):
+    """Run ``python -m linkage ARGS`` with stdout a pipe whose reading end is closed at once (the reader
+    stopped, as ``| head`` does before the command prints): its first write meets EPIPE."""
+    import os
+    import subprocess
+    import sys
+
+    env = {k: v for k, v in os.environ.items() if k not in ("LINKAGE_STORE", "LINKAGE_MODELS_DIR")}
+    env["PYTHONPATH"] = str(ROOT)
+    proc = subprocess.Popen([sys.executable, "-m", "linkage", *map(str, args)], stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, env=env)
+    proc.stdout.close()
+    err = proc.stderr.read().decode()
+    return proc.wait(timeout=300), err
+
+
+@pytest.mark.parametrize("command", [["lots"], ["assemble"], ["assemble", "--out", "OUT"], ["predict"]])
+def test_a_reader_that_stops_reading_is_no_error(tmp_path, command, request):
+    """``linkage lots | head -2``: no message, exit code 0 (Python's note on SIGPIPE,
+    https://docs.python.org/3/library/signal.html#note-on-sigpipe, with 0 for its 1: code 1 means a bug
+    here); a file the command writes is written all the same. Regression: "Error: cannot read or write:
+    Broken pipe", exit 5. A behaviour of this project: no outside source."""
+    import csv
+
+    if command == ["predict"]:
+        moist = request.getfixturevalue("moist_model")
+        args = ["predict", "--models-dir", moist.models_dir, "--model", moist.model_id,
+                "--set", "roll_force_kn_per_cm=8", "--store", tmp_path / "none.db"]
+    else:
+        args = [tmp_path / "t.csv" if a == "OUT" else a for a in command] + ["--store", _template_store(tmp_path)]
+    code, err = _closed_reader(args)
+    assert code == 0, err
+    assert "Error" not in err and "Broken pipe" not in err and "Traceback" not in err, err
+    if "--out" in command:
+        with open(tmp_path / "t.csv", newline="") as fh:
+            assert len(list(csv.DictReader(fh))) == 4
+
+
 # --- code 2: an output that cannot be written, refused before any work ---------------------------------------------
 @pytest.mark.parametrize("command, option", [
     (["report"], "--out"), (["assemble"], "--out"), (["predict", "--set", "ribbon_porosity=0.3"], "--html"),

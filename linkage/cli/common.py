@@ -22,7 +22,7 @@ def store_option(f):
     return click.option(
         "--store",
         type=click.Path(dir_okay=False, path_type=Path),
-        default=lambda: os.environ.get(STORE_ENV, "linkage.db"),
+        default=lambda: os.environ.get(STORE_ENV) or "linkage.db",  # an empty variable is unset
         show_default="linkage.db, or $LINKAGE_STORE",
         help="SQLite lot store file.",
     )(f)
@@ -32,7 +32,7 @@ def models_dir_option(f):
     return click.option(
         "--models-dir",
         type=click.Path(file_okay=False, path_type=Path),
-        default=lambda: os.environ.get(MODELS_ENV, "models"),
+        default=lambda: os.environ.get(MODELS_ENV) or "models",  # an empty variable is unset
         show_default="models/, or $LINKAGE_MODELS_DIR",
         help="Model registry folder.",
     )(f)
@@ -93,6 +93,8 @@ def handle_errors(f):
         except LinkageError as exc:
             click.echo(f"Error: {exc}", err=True)
             raise SystemExit(exc.exit_code) from None
+        except BrokenPipeError:
+            _stop_quietly()
         except OSError as exc:
             what = f" {exc.filename}" if exc.filename is not None else ""
             reason = exc.strerror or str(exc)
@@ -106,6 +108,21 @@ def handle_errors(f):
                     warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
 
     return wrapper
+
+
+def _stop_quietly() -> None:
+    """The reader of stdout stopped reading (``linkage lots | head -2``): stop as common Unix tools do, with
+    no message. Python's note on SIGPIPE (https://docs.python.org/3/library/signal.html#note-on-sigpipe):
+    point stdout at devnull, so that the flush at interpreter exit cannot raise a second BrokenPipeError.
+    Its recipe exits 1; we exit 0, since code 1 means a bug here (README, "Exit codes") and the reader
+    chose to stop (a pipeline's status is its last command's anyway). Every command writes its files
+    and records before it prints, so nothing is left undone when the output is cut short."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (AttributeError, OSError, ValueError):  # a stdout without a file descriptor (a test's buffer)
+        pass
+    raise SystemExit(0)
 
 
 def check_output(path: Path, *, folder: bool = False) -> None:

@@ -154,10 +154,11 @@ def assemble(store, out, product, fines_cutoff_um, spec_path):
     spec = read_spec(spec_path) if spec_path is not None else None
     table = assemble_lots(store, product=product, spec=spec, fines_cutoff_um=fines_cutoff_um)
     time_min = table.attrs.get("dissolution_time_min", DEFAULT_DISSOLUTION_TIME_MIN)
+    if out is not None:  # written before anything is printed: a reader that stops early (| head) cuts no work
+        write_table_csv(table, out)
     click.echo(f"Assembled {len(table)} lots x {table.shape[1]} columns from {store} "
                f"(fines below {fines_cutoff_um:g} um, dissolution at {time_min:g} min).")
     if out is not None:
-        write_table_csv(table, out)
         click.echo(f"Wrote {out}.")
     else:
         click.echo("Values per column (filled/lots):")
