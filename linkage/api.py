@@ -775,13 +775,14 @@ def audit(store=DEFAULT_STORE, *, lot: str | None = None) -> pd.DataFrame:
     """The store's audit trail, oldest first (``linkage audit``): one row
     per entry with ``id``, ``at``, ``user``, ``action``, ``lot``,
     ``model_id``, ``inputs`` and ``outputs``; only entries about ``lot`` when
-    given, with the ingests that created or revised it."""
+    given, with the ingests that created or revised it. A ``lot`` the store
+    does not hold and no entry names is refused (``UsageError``, exit code 2)."""
     import pandas as pd
 
     from linkage.store import LotStore
 
     with LotStore(store, create=False) as s:
-        rows = s.audit(lot, with_ingests=True)
+        rows = s.audit(lot, with_ingests=True, require_lot=True)
     return pd.DataFrame(rows, columns=["id", "at", "user", "action", "lot", "model_id", "inputs", "outputs"])
 
 

@@ -859,13 +859,7 @@ class LotStore:
         revs = self._read("SELECT r.id, r.revision, r.ingest_id, i.at, i.user, r.product, i.reason FROM revisions r "
                           "JOIN ingests i ON i.id = r.ingest_id WHERE r.lot = ? ORDER BY r.revision", (lot,))
         if not revs:
-            import difflib
-
-            lots = self.lot_ids()
-            near = difflib.get_close_matches(lot, lots, n=3, cutoff=0.6)
-            hint = f"; did you mean {', '.join(near)}?" if near else (f"; it holds {len(lots)} lots" if lots
-                                                                      else "; the store is empty")
-            raise UsageError(f"lot '{lot}' is not in the store {self.path}{hint}")
+            raise self._not_stored(lot)
         out = []
         previous: dict[str, tuple[int, list[dict]]] = {}
         for rid, number, ingest_id, at, user, product, reason in revs:
@@ -926,16 +920,31 @@ class LotStore:
         _seal.seal(c, _seal.AUDIT, audit_id)
         return audit_id
 
-    def audit(self, lot: str | None = None, *, with_ingests: bool = False) -> list[dict]:
+    def _not_stored(self, lot: str) -> UsageError:
+        """The refusal of a lot the store does not hold, with the nearest stored ids (exit code 2)."""
+        import difflib
+
+        lots = self.lot_ids()
+        near = difflib.get_close_matches(lot, lots, n=3, cutoff=0.6)
+        hint = f"; did you mean {', '.join(near)}?" if near else (f"; it holds {len(lots)} lots" if lots
+                                                                  else "; the store is empty")
+        return UsageError(f"lot '{lot}' is not in the store {self.path}{hint}")
+
+    def audit(self, lot: str | None = None, *, with_ingests: bool = False, require_lot: bool = False) -> list[dict]:
         """Audit entries, oldest first; only those about ``lot`` when given,
         and with ``with_ingests`` also the ingests that created or revised
-        it (their entry names no single lot; issue 19)."""
+        it (their entry names no single lot; issue 19). With ``require_lot``,
+        a lot that is not in the store and that no entry names (a mistyped
+        id) is refused with :class:`UsageError` instead of giving no entries;
+        a lot only predicted for, never ingested, keeps its entries."""
         sql = "SELECT id, at, user, action, lot, model_id, inputs_json, outputs_json FROM audit"
         rows = self._read(sql + (" WHERE lot = ? ORDER BY id" if lot is not None else " ORDER BY id"),
                           (lot,) if lot is not None else ())
         if lot is not None and with_ingests:
             ingests = self._read(sql + " WHERE action = 'ingest' AND lot IS NULL ORDER BY id", ())
             rows = sorted(list(rows) + [r for r in ingests if _ingest_touches(r[7], lot)], key=lambda r: r[0])
+        if lot is not None and require_lot and not rows and lot not in self.lot_ids():
+            raise self._not_stored(lot)
         return [{"id": i, "at": at, "user": u, "action": a, "lot": lt, "model_id": m,
                  "inputs": None if ij is None else json.loads(ij), "outputs": None if oj is None else json.loads(oj)}
                 for i, at, u, a, lt, m, ij, oj in rows]

@@ -195,3 +195,26 @@ def test_a_product_with_no_lot_is_refused_naming_the_stores_products(lab, tmp_pa
     far = run("assemble", "--store", db, "--product", "other")
     assert far.exit_code == 2 and "its products: 'QZ-417 200 mg'" in far.output
     assert run("assemble", "--store", db, "--product", "QZ-417 200 mg").exit_code == 0
+
+
+def test_audit_of_a_lot_not_in_the_store_is_refused(lab, tmp_path):
+    """``audit --lot`` with an id the store does not hold and no entry names: exit 2 with the nearest ids,
+    as ``history`` says (regression: "No audit entries", exit 0). A lot only predicted for, never ingested,
+    keeps its entries. A refusal: no outside source."""
+    import linkage.api
+    from linkage.exceptions import UsageError
+    from linkage.store import LotStore
+
+    db = tmp_path / "s.db"
+    run("ingest", lab, "--store", db)
+    typo = run("audit", "--store", db, "--lot", "EX-0O1")
+    assert typo.exit_code == 2, typo.output
+    assert f"lot 'EX-0O1' is not in the store {db}; did you mean EX-001" in typo.stderr
+    with pytest.raises(UsageError, match="not in the store"):
+        linkage.api.audit(db, lot="EX-0O1")
+    stored = run("audit", "--store", db, "--lot", "EX-001", "--json")
+    assert stored.exit_code == 0 and [e["action"] for e in json.loads(stored.stdout)] == ["ingest"]
+    with LotStore(db) as s:
+        s.log("predict", lot="PLANNED-1", model_id="m-1", inputs={}, outputs={})
+    planned = run("audit", "--store", db, "--lot", "PLANNED-1", "--json")
+    assert planned.exit_code == 0 and [e["lot"] for e in json.loads(planned.stdout)] == ["PLANNED-1"]

@@ -118,7 +118,7 @@ def audit(store, lot, as_json):
     from linkage.store import LotStore
 
     with LotStore(store, create=False) as s:
-        rows = s.audit(lot, with_ingests=True)
+        rows = s.audit(lot, with_ingests=True, require_lot=True)
     if as_json:
         click.echo(json.dumps(rows, indent=2, default=str))
         return
