@@ -150,6 +150,14 @@ class NoVerifiedModelError(ModelIntegrityError, ModelNotFoundError):
     exit_code = 4
 
 
+class ModelIdError(ModelNotFoundError):
+    """A model id that is no model id: a path, ``..``, a hidden name. Bad input (exit code 2), refused before
+    the registry is read; a :class:`ModelNotFoundError`, so every caller that passes over a missing model
+    (``latest``, ``linkage models``, ``linkage verify``) passes over it too."""
+
+    exit_code = 2
+
+
 class LinkageWarning(UserWarning):
     """Something the user should know that does not stop the command (the
     command line prints it as ``Warning: ...``, without Python's file and line)."""

@@ -51,8 +51,8 @@ import warnings
 from datetime import datetime, timezone
 from pathlib import Path
 
-from linkage.exceptions import (LinkageWarning, ModelIntegrityError, ModelNotFoundError, NoVerifiedModelError,
-                                UsageError)
+from linkage.exceptions import (LinkageWarning, ModelIdError, ModelIntegrityError, ModelNotFoundError,
+                                NoVerifiedModelError, UsageError)
 
 __all__ = ["save", "load", "load_whatif", "resolve", "list_models", "import_model", "verify", "record_decision",
            "decisions", "INDEX", "ARTIFACT", "METADATA", "WHATIF"]
@@ -166,7 +166,7 @@ def _check_id(model_id: str, models_dir: Path) -> str:
     s = str(model_id)
     if (os.path.isabs(s) or "/" in s or "\\" in s or s in (".", "..") or ".." in s or "\x00" in s
             or s.startswith(".")):
-        raise ModelIntegrityError(
+        raise ModelIdError(  # bad input (exit 2); refused before any file is opened
             f"model id {s!r} is a path, not a model id; only models inside the registry {models_dir} are loaded "
             "(give an id such as m-20260301T101500Z-1a2b3c4d, or 'latest')")
     if not ID_RE.match(s):

@@ -103,8 +103,8 @@ def test_predict_from_csv_text_names_each_rows_lot(run, tmp_path):
     (("predict", "--set", "roll_gap_mm=abc"), 2, "'abc' is not a number"),
     (("predict",), 2, "nothing to predict from"),
     (("predict", "--set", "ribbon_porosity=0.3", "--model", "m-20990101T000000Z-00000000"), 2, "available:"),
-    # a path instead of an id is a refusal of the integrity rules (exit 4), not a typo
-    (("predict", "--set", "ribbon_porosity=0.3", "--model", "../elsewhere"), 4, "is a path, not a model id"),
+    # a path instead of an id is bad input (exit 2, the README's exit-code line; it was 4 before the user test)
+    (("predict", "--set", "ribbon_porosity=0.3", "--model", "../elsewhere"), 2, "is a path, not a model id"),
     (("window", "--spec", "SPEC", "--confidence", "1.5"), 2, "is not in the range 0<x<1"),
     (("window", "--spec", "SPEC", "--confidence", "nan"), 2, "is not a finite number"),
 ])

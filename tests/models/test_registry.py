@@ -14,7 +14,7 @@ import time
 import joblib
 import pytest
 
-from linkage.exceptions import ModelIntegrityError, ModelNotFoundError, UsageError
+from linkage.exceptions import ModelIdError, ModelIntegrityError, ModelNotFoundError, UsageError
 from linkage.models import registry
 from linkage.models.registry import import_model, list_models, load, resolve, save
 from linkage.models.train import train_chain
@@ -77,8 +77,10 @@ def test_edited_metadata_is_refused(fit, tmp_path, monkeypatch):
 @pytest.mark.parametrize("bad", ["../x", "/etc/passwd", "..", "m-1/../../x", ".tmp-m-1"])
 def test_paths_that_escape_are_refused(fit, tmp_path, bad):
     save(fit, tmp_path)
-    with pytest.raises(ModelIntegrityError, match="is a path, not a model id"):
+    # bad input, exit code 2 (the README's exit-code line; it was 4, model integrity, before the user test)
+    with pytest.raises(ModelIdError, match="is a path, not a model id") as caught:
         resolve(tmp_path, bad)
+    assert caught.value.exit_code == 2
 
 
 def test_symlinked_model_folder_is_refused(fit, tmp_path, monkeypatch):

@@ -142,15 +142,15 @@ def test_a_model_folder_that_is_a_symlink_out_of_the_registry_is_refused(tmp_pat
 
 
 def test_the_command_line_refuses_escapes_and_changed_files(tmp_path, reg, counts, no_env):
-    """Through `linkage predict`: exit code 4 (integrity), 2 (no such model),
-    a message, no traceback, and nothing unpickled."""
+    """Through `linkage predict`: exit code 2 (an id that is a path: bad input; no such model), 4
+    (integrity), a message, no traceback, and nothing unpickled."""
     models, mid = reg
     settings = ["--set", "roll_force_kn_per_cm=8", "--set", "roll_gap_mm=2.5", "--models-dir", models]
     ok = run_cli(["predict", *settings, "--json"])
     assert ok.exit_code == 0, ok.output
     for bad in ("../x", "/etc/passwd", "m-20260301T101500Z-1a2b3c4d/../.."):
         result = run_cli(["predict", *settings, "--model", bad])
-        assert result.exit_code == 4 and "not a model id" in result.stderr, result.output
+        assert result.exit_code == 2 and "not a model id" in result.stderr, result.output
         counts["artifacts refused"] += 1
     marker = tmp_path / "unpickled"
     (models / mid / registry.ARTIFACT).write_bytes(trap_bytes(marker))
