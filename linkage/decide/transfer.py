@@ -200,6 +200,34 @@ class Transfer:
         return "\n".join(lines)
 
 
+def _no_nip(physics: RibbonPhysics, roll_gap_mm: float, roll_diameter_mm: float) -> str:
+    """Why Johanson's theory gives no roll force on these rolls (no nip angle), and the largest gap that has one."""
+    ratio = roll_gap_mm / roll_diameter_mm
+    largest = rolling.johanson_largest_gap_ratio(physics.compressibility, physics.internal_friction_deg,
+                                                 physics.wall_friction_deg)
+    positive = (f"positive only below arccos((1 + S/D)/2) = {np.degrees(np.arccos((1 + ratio) / 2)):.1f} deg"
+                if ratio < 1 else "negative at every angle, since S/D >= 1")
+    return (f"no roll force on these rolls: a gap of {roll_gap_mm:g} mm on rolls of {roll_diameter_mm:g} mm "
+            f"(S/D = {ratio:.3g}) gives no nip angle in Johanson's rolling theory (the nip-region pressure gradient, "
+            f"{positive}, stays below the slip-region gradient at every angle for the fitted compressibility "
+            f"K = {physics.compressibility:.3g} and friction angles {physics.internal_friction_deg:g}/"
+            f"{physics.wall_friction_deg:g} deg), so the rolls do not draw the powder in and compress it. On these "
+            f"rolls the gap must be below {largest * roll_diameter_mm:.3g} mm (S/D < {largest:.3g})")
+
+
+def _edge_of_nip(physics: RibbonPhysics, roll_gap_mm: float, roll_diameter_mm: float, k_draw: np.ndarray,
+                 per_mpa_draw: np.ndarray) -> str:
+    """Why no interval is given when the fitted K nips at this gap but some of its draws do not."""
+    share = float(np.mean(~np.isfinite(per_mpa_draw)))
+    friction = (physics.internal_friction_deg, physics.wall_friction_deg)
+    safe = min(rolling.johanson_largest_gap_ratio(float(k), *friction) for k in (k_draw.min(), k_draw.max()))
+    return (f"no interval on these rolls: a gap of {roll_gap_mm:g} mm on rolls of {roll_diameter_mm:g} mm "
+            f"(S/D = {roll_gap_mm / roll_diameter_mm:.3g}) is at the edge of the gaps Johanson's rolling theory "
+            f"can nip: {share:.1%} of the draws of the compressibility K give no nip angle (hence no roll force), so "
+            f"the interval cannot be computed. Choose a gap below about {safe * roll_diameter_mm:.3g} mm "
+            f"(S/D < {safe:.3g})")
+
+
 def transfer(physics: RibbonPhysics, *, roll_diameter_mm: float, roll_width_mm: float, roll_gap_mm: float,
              porosity: float | None = None, window: tuple[float, float] | None = None, level: float = 0.95,
              n_draws: int = 4000, seed: int = 0) -> Transfer:
@@ -258,7 +286,11 @@ def transfer(physics: RibbonPhysics, *, roll_diameter_mm: float, roll_width_mm: 
     # specific force per MPa of peak pressure on the target rolls, for the fit and for each draw of K
     per_mpa = float(rolling.johanson_specific_roll_force_kn_per_cm(1.0, *geometry, physics.compressibility,
                                                                    *friction))
+    if not np.isfinite(per_mpa):
+        raise UsageError(_no_nip(physics, roll_gap_mm, roll_diameter_mm))
     per_mpa_draw = np.asarray(rolling.johanson_specific_roll_force_kn_per_cm(1.0, *geometry, k_draw, *friction))
+    if not np.all(np.isfinite(per_mpa_draw)):  # near the largest gap: some draws of K give no nip
+        raise UsageError(_edge_of_nip(physics, roll_gap_mm, roll_diameter_mm, k_draw, per_mpa_draw))
     rows = []
     for eps in targets:
         k, c = physics.compressibility, physics.pressure_constant_mpa

@@ -64,6 +64,7 @@ __all__ = [
     "DEFAULT_INTERNAL_FRICTION_DEG",
     "DEFAULT_WALL_FRICTION_DEG",
     "johanson_nip_angles_deg",
+    "johanson_largest_gap_ratio",
     "johanson_pressure_profile_ratio",
     "johanson_force_integral",
     "johanson_specific_roll_force_kn_per_cm",
@@ -164,6 +165,44 @@ def johanson_nip_angles_deg(roll_gap_mm, roll_diameter_mm, compressibility,
         hi = np.where(same, hi, mid)
     alpha = np.where(found, np.degrees((lo + hi) / 2), np.nan)
     return _out(alpha.reshape(shape))
+
+
+def johanson_largest_gap_ratio(compressibility, internal_friction_deg=DEFAULT_INTERNAL_FRICTION_DEG,
+                               wall_friction_deg=DEFAULT_WALL_FRICTION_DEG) -> float:
+    r"""The largest gap over roll diameter S/D at which the rolls still nip the material (a nip angle exists).
+
+    The nip angle is where the nip-region gradient
+    :math:`K (2\cos\theta - 1 - S/D) \tan\theta / ((1 + S/D - \cos\theta)\cos\theta)` reaches the
+    slip-region one (:func:`johanson_nip_angles_deg`). Both share the factor :math:`1/(1 + S/D - \cos\theta)`,
+    so whether they cross depends on S/D only through :math:`2\cos\theta - 1 - S/D`, which falls as S/D grows:
+    the nip-region gradient is positive only below :math:`\arccos((1 + S/D)/2)` and never for S/D ≥ 1.
+    Above the ratio returned, the nip-region gradient stays under the slip-region one at every angle: the
+    theory gives no nip angle, hence no roll force. Found by bisection on S/D in (0, 1) (the scan of
+    :func:`johanson_nip_angles_deg` decides each step); 0 when even a vanishing gap gives no nip.
+
+    Parameters
+    ----------
+    compressibility : float
+        Compressibility K [-].
+    internal_friction_deg, wall_friction_deg : float
+        Effective angle of internal friction and wall friction angle [deg].
+
+    Returns
+    -------
+    float
+        The largest S/D with a nip [-] (to 1e-6).
+    """
+    def nips(ratio: float) -> bool:
+        return bool(np.isfinite(johanson_nip_angles_deg(ratio, 1.0, compressibility, internal_friction_deg,
+                                                        wall_friction_deg)))
+
+    lo, hi = 1e-9, 1.0
+    if not nips(lo):
+        return 0.0
+    while hi - lo > 1e-6:
+        mid = (lo + hi) / 2
+        lo, hi = (mid, hi) if nips(mid) else (lo, mid)
+    return lo
 
 
 def johanson_pressure_profile_ratio(theta_deg, roll_gap_mm, roll_diameter_mm, compressibility):

@@ -82,3 +82,14 @@ def test_the_command_leaves_an_audit_entry(store):
     assert run("transfer", *ROLLS, "--porosity", "0.27", "--store", store).exit_code == 0
     entries = audit(store)
     assert "transfer" in set(entries["action"])
+
+
+def test_rolls_without_a_nip_exit_2_with_the_reason(store):
+    """The user test's case: a 15 mm gap on 20 mm rolls. Exit 2 with the reason, no NaN in any output
+    (regression: "nan kN/cm", JSON nulls, a numpy RuntimeWarning). A refusal: no outside source."""
+    for extra in ([], ["--json"]):
+        result = run("transfer", "--roll-diameter-mm", 20, "--roll-width-mm", 40, "--gap-mm", 15, "--porosity", 0.28,
+                     "--store", store, *extra)
+        assert result.exit_code == 2, result.output
+        assert "no nip angle in Johanson's rolling theory" in result.stderr and "the gap must be below" in result.stderr
+        assert result.stdout == "" and "nan" not in result.output.lower()

@@ -94,3 +94,26 @@ def test_lots_without_roll_diameter_are_left_out_and_counted():
     assert set(physics.compactors) == {"pilot", "production"}
     assert isinstance(transfer(physics, roll_diameter_mm=400, roll_width_mm=100, roll_gap_mm=2.5,
                                porosity=0.3).summary(), pd.DataFrame)
+
+
+def test_rolls_that_give_no_nip_are_refused_with_the_reason():
+    """A gap too wide for the rolls (S/D above the largest with a nip angle in Johanson's theory) has no roll
+    force: refused with the reason and the largest gap (regression: NaN kN/cm and a numpy warning). Just under
+    that gap, where some draws of K give no nip, the interval is refused too. A refusal: no outside source."""
+    import warnings
+
+    from linkage.physics.rolling import johanson_largest_gap_ratio
+
+    physics = fit_ribbon_physics(make_transfer_lots(TRUTH, seed=0))
+    largest = johanson_largest_gap_ratio(physics.compressibility, physics.internal_friction_deg,
+                                         physics.wall_friction_deg)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # no RuntimeWarning on the way
+        with pytest.raises(UsageError, match="gives no nip angle in Johanson's rolling theory") as err:
+            transfer(physics, roll_diameter_mm=20, roll_width_mm=40, roll_gap_mm=15, porosity=0.28)
+        assert f"the gap must be below {largest * 20:.3g} mm" in str(err.value)
+        with pytest.raises(UsageError, match="of the draws of the compressibility K give no nip angle"):
+            transfer(physics, roll_diameter_mm=20, roll_width_mm=40, roll_gap_mm=largest * 20 * (1 - 1e-4),
+                     porosity=0.28)
+        ok = transfer(physics, roll_diameter_mm=20, roll_width_mm=40, roll_gap_mm=largest * 20 * 0.9, porosity=0.28)
+    assert all(np.isfinite(ok.targets[0]["force_interval_kn_per_cm"])) and np.isfinite(ok.targets[0]["nip_angle_deg"])

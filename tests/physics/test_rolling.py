@@ -18,6 +18,7 @@ from linkage.physics.compaction import johanson_nip_angle_deg
 from linkage.physics.rolling import (
     fit_johanson_ribbon,
     johanson_force_integral,
+    johanson_largest_gap_ratio,
     johanson_nip_angles_deg,
     johanson_peak_pressure_mpa,
     johanson_pressure_profile_ratio,
@@ -143,3 +144,28 @@ def test_rolling_errors():
         fit_johanson_ribbon([5, 6], [2, 2], [200, 200], [0.3, 0.28])
     with pytest.raises(ValueError, match="ribbon_porosity must lie in"):
         fit_johanson_ribbon([5, 6, 7], [2, 2, 2], [200, 200, 200], [0.3, 0.28, 1.2])
+
+
+@pytest.mark.parametrize("k", [3.0, 5.0, 8.0])
+def test_the_largest_gap_with_a_nip_is_where_the_gradients_stop_crossing(k):
+    """Above johanson_largest_gap_ratio the slip- and nip-region gradients (Johanson 1965, the forms of
+    linkage.physics.compaction) no longer cross below 45 deg; just under it they do. Reference for the
+    minimum over the angle: scipy.optimize.minimize_scalar (bounded Brent), independent of the scan and
+    bisection of johanson_nip_angles_deg. The nip-region gradient is positive only where
+    2 cos(theta) > 1 + S/D (its numerator), so the ratio lies below 1 whatever K is (from the formula)."""
+    from scipy import optimize
+
+    from linkage.physics.compaction import _gradient_difference_times_radius, johanson_nu_deg
+
+    ratio = johanson_largest_gap_ratio(k, 40.0, 25.0)
+    assert 0 < ratio < 1
+    delta, nu = np.radians(40.0), np.radians(johanson_nu_deg(40.0, 25.0))
+
+    def lowest(s_d):  # the lowest slip-minus-nip gradient over (0, 45 deg]: negative when they cross
+        return optimize.minimize_scalar(lambda t: _gradient_difference_times_radius(t, s_d, delta, nu, k),
+                                        bounds=(1e-4, np.radians(45)), method="bounded",
+                                        options={"xatol": 1e-10}).fun
+
+    assert lowest(ratio * (1 - 1e-3)) < 0 < lowest(ratio * (1 + 1e-3))
+    assert np.isfinite(johanson_nip_angles_deg(ratio * 0.999, 1.0, k, 40.0, 25.0))
+    assert np.isnan(johanson_nip_angles_deg(ratio * 1.001, 1.0, k, 40.0, 25.0))
