@@ -41,6 +41,8 @@ class DemoOutputs:
     whatif_html: Path
     report: Path
     seconds: dict[str, float] = field(default_factory=dict)
+    #: the demo's spec file, copied into the folder (the copy is the one used), for later commands' --spec
+    spec: Path | None = None
 
 
 def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
@@ -79,6 +81,13 @@ def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
     lab = Workspace(store_path, models_dir=models_dir)
     say(f"ingesting {lots_dir}")
     spec = lab.ingest(lots_dir).spec
+    spec_path = None
+    if (lots_dir / "spec.toml").is_file():  # the spec beside the folder: a path later commands can be given
+        from linkage.spec import read_spec
+
+        spec_path = out / "spec.toml"
+        write_atomic(spec_path, (lots_dir / "spec.toml").read_bytes())
+        spec = read_spec(spec_path)
     remeasured = Path(data) / "remeasured"
     if remeasured.is_dir():
         say(f"ingesting the re-measured lot from {remeasured}")
@@ -115,4 +124,4 @@ def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
     lap("report")
     return DemoOutputs(folder=out, store=store_path, models_dir=models_dir, model_id=model_id,
                        assembled=assembled, window_json=window_json, whatif_html=sheet,
-                       report=Path(report), seconds=seconds)
+                       report=Path(report), seconds=seconds, spec=spec_path)

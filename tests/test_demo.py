@@ -49,3 +49,26 @@ def test_demo_writes_every_output(tmp_path):
     assert (revised > 1).sum() == 1
     # the demo runs through the Python API, so its store keeps the audit trail the commands leave
     assert actions == ["ingest", "ingest", "train", "window", "predict"]
+
+
+def test_the_top_level_help_example_runs_from_any_folder(tmp_path, monkeypatch):
+    """Every command of ``linkage --help``'s example runs as printed in an empty folder, as on an installed
+    package where the demo data sit in site-packages (regression: the example ingested data_demo/lots, a
+    path that exists only in a checkout); ``linkage demo`` prints its spec file, a copy of the one it used.
+    A behaviour of this project: no outside source."""
+    import shlex
+
+    from linkage.demo import DEMO_DATA
+
+    monkeypatch.chdir(tmp_path)
+    runner = CliRunner()
+    help_text = runner.invoke(cli, ["--help"]).output
+    lines = [x.strip() for x in help_text.splitlines() if x.strip().startswith("linkage ")]
+    assert lines[0] == "linkage demo --out demo" and len(lines) >= 3
+    assert not any("data_demo" in x for x in lines)
+    for line in lines:
+        r = runner.invoke(cli, shlex.split(line)[1:], env={"LINKAGE_STORE": None, "LINKAGE_MODELS_DIR": None})
+        assert r.exit_code == 0, (line, r.output)
+        if line.startswith("linkage demo"):
+            assert "spec file       demo/spec.toml" in r.stdout
+            assert (tmp_path / "demo" / "spec.toml").read_bytes() == (DEMO_DATA / "lots" / "spec.toml").read_bytes()

@@ -17,7 +17,9 @@ from linkage.cli.common import check_output, handle_errors, progress_bars
 def demo(out):
     """Run the full job on the demo scenario: ingest, assemble, train,
     porosity window, a what-if sheet and the report. The demo keeps its own
-    lot store and model registry inside OUT.
+    lot store and model registry inside OUT, with a copy of its spec file
+    (OUT/spec.toml, the one it used); it prints where each went, so that
+    later commands can be pointed at them (see 'linkage --help').
 
     \b
     Example:
@@ -36,6 +38,8 @@ def demo(out):
     click.echo(f"window          {result.window_json}")
     click.echo(f"what-if sheet   {result.whatif_html}")
     click.echo(f"report          {result.report}")
+    if result.spec is not None:
+        click.echo(f"spec file       {result.spec} (give it to later commands as --spec)")
     total = sum(result.seconds.values())
     click.echo("seconds         " + ", ".join(f"{k} {v:.1f}" for k, v in result.seconds.items())
                + f"; total {total:.1f}")

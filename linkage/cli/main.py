@@ -63,9 +63,11 @@ def cli():
     Decision support only, not release testing.
 
     \b
-    Example:
-      linkage demo
-      linkage ingest data_demo/lots && linkage train && linkage window --spec data_demo/lots/spec.toml
+    Example (the demo's lot store, model registry and spec file, in demo/):
+      linkage demo --out demo
+      linkage lots --store demo/demo-lots.db
+      linkage window --store demo/demo-lots.db --models-dir demo/models --spec demo/spec.toml
+      linkage predict --store demo/demo-lots.db --models-dir demo/models --set roll_force_kn_per_cm=8
     """
 
 
