@@ -218,3 +218,19 @@ def test_audit_of_a_lot_not_in_the_store_is_refused(lab, tmp_path):
         s.log("predict", lot="PLANNED-1", model_id="m-1", inputs={}, outputs={})
     planned = run("audit", "--store", db, "--lot", "PLANNED-1", "--json")
     assert planned.exit_code == 0 and [e["lot"] for e in json.loads(planned.stdout)] == ["PLANNED-1"]
+
+
+def test_every_option_of_every_command_says_what_it_does():
+    """Each option of each command has a help text (regression: watch's --model and --product, and --seed of
+    six commands, had none). No outside source."""
+    import click
+
+    from linkage.cli.main import COMMANDS
+
+    ctx = click.Context(cli)
+    bare = [(name, p.opts[0]) for name in COMMANDS for p in cli.get_command(ctx, name).params
+            if isinstance(p, click.Option) and not (p.help or "").strip()]
+    assert bare == []
+    watch = " ".join(run("watch", "--help").output.split())
+    assert "--model TEXT Model id from 'linkage models', or 'latest'." in watch
+    assert "--product TEXT Watch only the lots of this product." in watch

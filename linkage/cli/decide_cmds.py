@@ -36,7 +36,7 @@ _assurance_option = click.option(
               help="Probability of meeting every specification together that the window must reach.")
 @click.option("--draws", "n_draws", default=defaults.WINDOW_DRAWS, show_default=True, type=click.IntRange(200, 200_000),
               help="Monte Carlo draws per porosity.")
-@click.option("--seed", default=0, show_default=True, type=int)
+@click.option("--seed", default=0, show_default=True, type=int, help="Seed of the Monte Carlo draws.")
 @_assurance_option
 @models_dir_option
 @store_option
@@ -92,7 +92,7 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, assuranc
 @click.option("--product", default=None, help="The product this what-if is for (stated on the sheet and in the "
               "JSON); refused when the model was not trained on it.  [default: the model's product when it was "
               "trained on one]")
-@click.option("--seed", default=0, show_default=True, type=int)
+@click.option("--seed", default=0, show_default=True, type=int, help="Seed of the Monte Carlo draws.")
 @_assurance_option
 @models_dir_option
 @store_option

@@ -64,9 +64,10 @@ def retrain(store, models_dir, spec_path, product, tolerance, force, reason, as_
 @click.command()
 @store_option
 @models_dir_option
-@click.option("--model", "model_id", default="latest", show_default=True)
+@click.option("--model", "model_id", default="latest", show_default=True,
+              help="Model id from 'linkage models', or 'latest'.")
 @_spec_option
-@click.option("--product", default=None)
+@click.option("--product", default=None, help="Watch only the lots of this product.")
 @json_option
 @handle_errors
 def watch(store, models_dir, model_id, spec_path, product, as_json):

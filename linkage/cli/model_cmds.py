@@ -58,10 +58,13 @@ def train(store, models_dir, chain_path, product, seed, coverage, spec_path, dis
     """Train the chain of stage models on the lots in the store, with
     grouped cross-validation by lot, and save it in the model registry.
 
-    Every attribute gets a mean floor, a Ryshkewitch–Duckworth baseline
-    (where ribbon porosity is an input), PLS, a quadratic ridge and gradient
-    boosting; the simplest within one standard error of the best CV RMSE is
-    selected. Intervals are CV+ conformal with lots as the unit.
+    Every attribute gets these candidates, simplest first: mean (a floor),
+    rd_baseline (Ryshkewitch–Duckworth, where ribbon porosity is an input),
+    johanson_baseline (Johanson's rolling theory, where roll force, gap and
+    diameter are inputs), log_linear, weibull_release, linear_select, pls,
+    quadratic_ridge and boosting (gradient boosting); the simplest within
+    one standard error of the best CV RMSE is selected. Intervals are CV+
+    conformal with lots as the unit.
 
     \b
     The model records the dissolution time point it was trained at (the

@@ -52,7 +52,8 @@ def _window(ctx, param, value):
 @click.option("--out", "out_path", type=click.Path(dir_okay=False, path_type=Path),
               help="Write the JSON to this file.")
 @_model_option
-@click.option("--seed", default=0, show_default=True, type=int)
+@click.option("--seed", default=0, show_default=True, type=int,
+              help="Seed of the random draws (the same seed, the same answer).")
 @models_dir_option
 @store_option
 @json_option

@@ -27,7 +27,7 @@ from linkage.decide import defaults
               help="Probability of meeting every specification together that the region must reach.")
 @click.option("--assurance", default=0.9, show_default=True, type=PROBABILITY,
               help="Assurance of the lower bound on the probability (lot-level bootstrap replicates).")
-@click.option("--seed", default=0, show_default=True, type=int)
+@click.option("--seed", default=0, show_default=True, type=int, help="Seed of the Monte Carlo draws.")
 @click.option("--png", "png_path", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Also write the contour map as a PNG (without the lots: the model file does not hold them; "
                    "the report draws them).")

@@ -39,7 +39,7 @@ def _window(value):
               help="Wall friction angle held in the nip angle [deg] (not fitted).")
 @click.option("--draws", "n_draws", default=4000, show_default=True, type=click.IntRange(200, 200_000),
               help="Monte Carlo draws of the interval.")
-@click.option("--seed", default=0, show_default=True, type=int)
+@click.option("--seed", default=0, show_default=True, type=int, help="Seed of the Monte Carlo draws.")
 @store_option
 @json_option
 @handle_errors
