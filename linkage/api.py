@@ -691,8 +691,10 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
     is drifting, and a correction of ``adjust`` with its uncertainty and the
     samples to confirm it; see :mod:`linkage.decide.running`. The lot's
     settings come from its row of ``process`` (a process table) and
-    ``settings`` (which win); the ribbon stage's other inputs are held at the
-    training median. Logged as ``running`` with the advice."""
+    ``settings`` (which win); the ribbon stage's other inputs are held as
+    every command holds them (:func:`linkage.decide.propagate.fill_settings`:
+    their conditional mean given the others, the training mean when none is
+    given). Logged as ``running`` with the advice."""
     from linkage.decide import running as guide
     from linkage.decide.whatif import check_values
     from linkage.exceptions import InputError, UsageError

@@ -329,8 +329,8 @@ class RunningResult:
     adjust: str
     settings: dict[str, float]
     #: settings of the ribbon stage given neither by --set nor by the process row: name -> how it was held
-    #: (linkage.decide.propagate.fill_settings: coherently with the given ones, or at the training median
-    #: for a model saved before coherent held settings)
+    #: (linkage.decide.propagate.fill_settings: coherently with the given ones, at the training mean when none
+    #: is given, or at the training median for a model saved before coherent held settings)
     held: dict[str, str]
     window: dict
     sigma: dict
