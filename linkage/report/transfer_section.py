@@ -85,11 +85,16 @@ def transfer_section(b, table, window=None, *, seed: int = 0) -> None:
     targets, which = _targets(window, t)
     rows = []
     extrapolated = False
+    refused = []
     for label, diameter, width, g in _rolls(t, physics):
         w = width if np.isfinite(width) else 100.0
-        result = transfer(physics, roll_diameter_mm=diameter, roll_width_mm=w, roll_gap_mm=g,
-                          porosity=targets[0] if len(targets) == 1 else None,
-                          window=tuple(targets) if len(targets) == 2 else None, seed=seed)
+        try:
+            result = transfer(physics, roll_diameter_mm=diameter, roll_width_mm=w, roll_gap_mm=g,
+                              porosity=targets[0] if len(targets) == 1 else None,
+                              window=tuple(targets) if len(targets) == 2 else None, seed=seed)
+        except LinkageError as exc:  # rolls the theory gives no answer for (a gap too wide to nip): said, not fatal
+            refused.append(f"{label} (diameter {diameter:g} mm, gap {g:.3g} mm): {exc}")
+            continue
         for r in result.targets:
             lo, hi = r["force_interval_kn_per_cm"]
             extrapolated |= not r["inside_lots_pressure_range"]
@@ -103,6 +108,8 @@ def transfer_section(b, table, window=None, *, seed: int = 0) -> None:
     b.add(table_html(["rolls", "diameter [mm]", "width [mm]", "gap [mm]", "porosity [-]", "force [kN/cm]",
                   "95 % interval [kN/cm]", "total [kN]", "P max [MPa]"], rows,
                  num_cols={1, 2, 3, 4, 5, 6, 7, 8}))
+    for text in refused:
+        b.note(f"No force for the rolls {text}")
     if extrapolated:
         b.add(_part("sections", "transfer_extrapolated"))
     b.add(_part("sections", "transfer_leaves_out", text=LEAVES_OUT))

@@ -44,3 +44,18 @@ def test_section_says_why_without_roll_diameters(lots):
     b = _Builder()
     transfer_section(b, lots.drop(columns=["roll_diameter_mm"]))
     assert b.notes and "roll_diameter_mm" in b.notes[0] and not b.figures
+
+
+def test_rolls_the_theory_gives_no_force_for_are_noted_and_the_report_goes_on(lots, monkeypatch):
+    """Stated rolls whose gap is too wide to nip (here 3 mm rolls at the lots' median gap: Johanson's nip angle
+    exists only for S/D below the ratio linkage.physics.rolling.johanson_largest_gap_ratio gives) are refused by
+    ``transfer``; the section says so in a note and still tabulates the compactors' own rolls (no outside
+    reference: the report's handling of a refusal)."""
+    import linkage.report.transfer_section as section
+
+    monkeypatch.setattr(section, "SCALE_UP_ROLLS", (3.0, 40.0))
+    b = _Builder()
+    section.transfer_section(b, lots)
+    page = "".join(b.parts)
+    assert any(n.startswith("No force for the rolls stated rolls (diameter 3 mm") for n in b.notes)
+    assert len(b.figures) == 1 and "<table>" in page
