@@ -152,8 +152,10 @@ def test_the_row_spelt_apart_from_the_rest_of_its_lot_is_the_one_named(tmp_path,
         read_folder(folder, known_lots=set())
     [problem] = exc.value.problems
     assert (problem.file, problem.row, problem.value) == ("ribbon.csv", rows[odd], spelling)
-    usual = [r for r in rows if r != rows[odd]]
-    assert f"rows {usual[0]}-{usual[-1]}, {len(usual)} rows" in problem.rule
+    usual = [r for r in rows if r != rows[odd]]  # the others: consecutive runs, the odd row left out
+    before, after = usual[:odd], usual[odd:]
+    runs = [f"{part[0]}-{part[-1]}" if len(part) > 1 else str(part[0]) for part in (before, after) if part]
+    assert f"on rows {', '.join(runs)} ({len(usual)} rows)" in problem.rule
 
 
 # --------------------------------------------------------------------------- 5. every file's problems at once

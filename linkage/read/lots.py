@@ -93,5 +93,19 @@ def _lot_id_problems(lots: list, label: str, sheet_rows: list[int], header: str,
 
 
 def _span(rows: list[int]) -> str:
-    """Sheet rows for a message: ``row 7`` or ``rows 7-10, 4 rows`` (first to last, and how many)."""
-    return f"row {rows[0]}" if len(rows) == 1 else f"rows {rows[0]}-{rows[-1]}, {len(rows)} rows"
+    """Sheet rows for a message, as runs of consecutive rows: ``row 7``, ``rows 7-10 (4 rows)``, ``rows 6, 8-10
+    (4 rows)``; with more than 4 runs, first to last: ``rows 7-40 (12 rows, not all between)``. A range never
+    hides a row left out of it (a row spelt apart from the rest of its lot sits between the others)."""
+    rows = sorted(set(rows))
+    if len(rows) == 1:
+        return f"row {rows[0]}"
+    runs: list[list[int]] = []
+    for r in rows:
+        if runs and r == runs[-1][-1] + 1:
+            runs[-1].append(r)
+        else:
+            runs.append([r])
+    if len(runs) > 4:
+        return f"rows {rows[0]}-{rows[-1]} ({len(rows)} rows, not all between)"
+    return "rows " + ", ".join(f"{run[0]}" if len(run) == 1 else f"{run[0]}-{run[-1]}" for run in runs) + \
+        f" ({len(rows)} rows)"

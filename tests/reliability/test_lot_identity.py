@@ -92,7 +92,9 @@ def test_two_spellings_in_one_file_are_refused_naming_both_rows(tmp_path, counts
         read_folder(d)
     hit = next(p for p in info.value.problems if "written another way" in p.rule)
     assert hit.row == second + 1 and hit.value == "ex-003"
-    assert "'EX-003'" in hit.rule and f"row {first + 1}" in hit.rule
+    # the rows of the usual spelling are named as runs, so the odd row between them is not inside a range
+    named = hit.rule.split("'EX-003' on ")[1].split(", and one lot")[0]
+    assert str(first + 1) in named and str(second + 1) not in named
     counts["fuzz cases tried"] += 1
     counts["files refused"] += 1
 
