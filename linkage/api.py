@@ -717,6 +717,7 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
     if process is not None:
         from_process, more = guide.process_settings(process, lot)
         problems += more
+    problems += guide.baseline_problems(samples, df, baseline)
     if problems:
         raise InputError(problems)
     fitted = None

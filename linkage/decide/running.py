@@ -289,6 +289,23 @@ def read_samples(path) -> tuple[object, str | None, list]:
     return df, str(df["lot"].iloc[0]), problems
 
 
+def baseline_problems(path, samples, baseline: int) -> list:
+    """The refusal of a baseline that leaves no sample to judge: the centre is
+    the mean of the first ``baseline`` samples, so a file needs at least
+    ``baseline + 1`` of them, or the baseline would silently shrink to the
+    samples there are and drift could never be told from the centre. Judged
+    only on a file read by the template's rules (``samples`` not None)."""
+    from linkage.exceptions import Problem
+
+    n = 0 if samples is None else len(samples)
+    if samples is None or samples.empty or n > baseline:
+        return []
+    return [Problem(Path(path).name, f"the baseline asks for {baseline} samples and the file has {n}; at least "
+                    f"baseline + 1 = {baseline + 1} samples are needed for any sample to be judged against the "
+                    "baseline's centre (take more samples, or give a smaller --baseline)",
+                    value=n)]
+
+
 def process_settings(path, lot: str | None) -> tuple[dict[str, float], list]:
     """The numeric settings of ``lot``'s row of a process table (CSV or
     XLSX, the template's ``process`` columns; other lots' rows may be there),

@@ -201,8 +201,8 @@ def test_bad_samples_file_lists_every_problem_and_writes_nothing(tmp_path):
 def test_samples_of_two_lots_are_refused_row_by_row(tmp_path):
     f = _samples(tmp_path / "atline.csv", ["R-1,1,2026-03-02T08:00,1.05,1.53", "R-2,2,2026-03-02T08:25,1.06,1.53",
                                            "R-1,3,2026-03-02T08:50,1.06,1.53", "R-3,4,2026-03-02T09:15,1.06,1.53"])
-    r = CliRunner().invoke(cli, ["running", str(f), "--window", "0.25:0.35", "--store", str(tmp_path / "none.db"),
-                                 "--models-dir", str(tmp_path / "models")])
+    r = CliRunner().invoke(cli, ["running", str(f), "--window", "0.25:0.35", "--baseline", "3",
+                                 "--store", str(tmp_path / "none.db"), "--models-dir", str(tmp_path / "models")])
     assert r.exit_code == 2
     assert "2 problems found" in r.output
     assert "atline.csv, row 3, column 'lot', value 'R-2'" in r.output
@@ -210,16 +210,36 @@ def test_samples_of_two_lots_are_refused_row_by_row(tmp_path):
 
 
 def test_process_file_without_the_lot_is_refused_with_the_samples_problems(tmp_path):
-    f = _samples(tmp_path / "atline.csv", ["R-1,1,2026-03-02T08:00,1.05,1.53", "R-2,2,2026-03-02T08:25,1.06,1.53"])
+    f = _samples(tmp_path / "atline.csv", ["R-1,1,2026-03-02T08:00,1.05,1.53", "R-2,2,2026-03-02T08:25,1.06,1.53",
+                                           "R-1,3,2026-03-02T08:50,1.06,1.53"])
     p = tmp_path / "process.csv"
     p.write_text("lot,roll_force_kn_per_cm,roll_gap_mm,roll_speed_rpm,screw_speed_rpm,mill_screen_mm\n"
                  "R-9,8,2.5,5,27,1.0\n", encoding="utf-8")
-    r = CliRunner().invoke(cli, ["running", str(f), "--process", str(p), "--window", "0.25:0.35",
+    r = CliRunner().invoke(cli, ["running", str(f), "--process", str(p), "--window", "0.25:0.35", "--baseline", "2",
                                  "--store", str(tmp_path / "none.db"), "--models-dir", str(tmp_path / "models")])
     assert r.exit_code == 2
     assert "2 problems found" in r.output
     assert "process.csv, column 'lot': no row for lot 'R-1'" in r.output
     assert "atline.csv, row 3, column 'lot', value 'R-2'" in r.output
+
+
+@pytest.mark.parametrize("n, baseline", [(8, 10), (5, 5), (2, 5)])
+def test_a_baseline_that_leaves_no_sample_to_judge_is_refused(tmp_path, n, baseline):
+    """A regression test of a refusal (no outside source needed): `--baseline 10` on 8 samples used to take all 8
+    as the baseline without a word, so no sample was ever judged against a centre it did not make; now it is
+    refused with exit code 2, the file, both counts and the rule (baseline + 1 samples), and nothing written,
+    alongside the file's other problems."""
+    f = _samples(tmp_path / "atline.csv", [f"R-1,{i + 1},2026-03-02T{8 + i // 4:02d}:{15 * (i % 4):02d},1.05,1.53"
+                                           for i in range(n)])
+    out = tmp_path / "run.json"
+    r = CliRunner().invoke(cli, ["running", str(f), "--window", "0.25:0.35", "--baseline", str(baseline),
+                                 "--out", str(out), "--store", str(tmp_path / "none.db"),
+                                 "--models-dir", str(tmp_path / "models")])
+    assert r.exit_code == 2, r.output
+    assert "1 problem found" in r.output
+    assert (f"atline.csv, value {n}: the baseline asks for {baseline} samples and the file has {n}; at least "
+            f"baseline + 1 = {baseline + 1} samples") in r.output
+    assert not out.exists()
 
 
 @pytest.mark.parametrize("args, message", [
