@@ -77,6 +77,24 @@ def table_sha256(table: pd.DataFrame) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
+def _unknown_targets(table: pd.DataFrame, chain: ChainSpec) -> list[Problem]:
+    """A target that is no attribute at all: neither a column of the assembled
+    table's contract (:data:`linkage.schema.ASSEMBLED`) nor a column of this
+    table. Refused with the nearest name (a misspelt target such as
+    ``dissolution_pcx`` would otherwise train, register and serve a model
+    without dissolution, only listed as not trained). A known attribute
+    without enough lots is still skipped with its reason."""
+    from linkage.schema import ASSEMBLED
+    from linkage.spec import _suggest
+
+    known = list(dict.fromkeys([*ASSEMBLED, *map(str, table.columns)]))
+    source = chain.source or "chain specification"
+    return [Problem(file=source, column="targets", value=t,
+                    rule=f"stage '{st.name}': '{t}' is not an attribute of the assembled table{_suggest(t, known)}; "
+                         "a target must be one of its columns (linkage.schema.ASSEMBLED, or a column of the table)")
+            for st in chain.stages for t in st.targets if t not in known]
+
+
 def _prepare(table, chain: ChainSpec) -> tuple[pd.DataFrame, list[str]]:
     """Validated numeric copy, one row per lot, sorted by lot; notes."""
     if not isinstance(table, pd.DataFrame):
@@ -97,6 +115,7 @@ def _prepare(table, chain: ChainSpec) -> tuple[pd.DataFrame, list[str]]:
         rows = [int(i) + 2 for i in np.flatnonzero((lot_str == lot).to_numpy())]
         problems.append(Problem(file=src, column="lot", value=lot,
                                 rule=f"lot appears on rows {rows}; the assembled table has one row per lot"))
+    problems += _unknown_targets(table, chain)
     needed = list(dict.fromkeys(chain.root_inputs() + chain.targets()))
     noise = [c for t in chain.targets() if t in NOISE_COLUMNS for c in NOISE_COLUMNS[t]]
     notes = []

@@ -131,6 +131,23 @@ def test_train_json_and_text(fake_store, tmp_path):
     assert "guarantee: CV+ guarantees at least 1 − 2α" in out and out.count("Clopper–Pearson") == 3
 
 
+def test_a_misspelt_chain_target_is_refused_and_nothing_trained(fake_store, tmp_path):
+    """A regression test of a refusal (no outside source needed): a chain file whose target is no attribute
+    (`dissolution_pcx`) used to train, register and put in service a model without dissolution, exit 0, listing
+    it only as not trained. Now: exit 2, the file, the name and the nearest attribute, nothing trained, nothing
+    registered, nothing in the audit trail."""
+    chain = tmp_path / "chain.toml"
+    chain.write_text('[[stage]]\nname = "tablets"\ninputs = ["ribbon_porosity", "compression_force_kn"]\n'
+                     'targets = ["dissolution_pcx", "friability_pct"]\n')
+    models = tmp_path / "models"
+    res = run("train", "--store", tmp_path / "s.db", "--models-dir", models, "--chain", chain, "--no-materials")
+    assert res.exit_code == 2, res.output
+    assert ("chain.toml, column 'targets', value 'dissolution_pcx': stage 'tablets': 'dissolution_pcx' is not an "
+            "attribute of the assembled table (did you mean 'dissolution_pct'?)") in res.output
+    assert "audit" not in fake_store
+    assert not models.exists() or not any(models.iterdir())
+
+
 def test_models_lists_and_imports(fake_store, tmp_path):
     models = tmp_path / "models"
     empty = run("models", "--models-dir", models)
