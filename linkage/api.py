@@ -459,9 +459,27 @@ def _lean(models_dir, model):
     return model.chain if isinstance(model, Trained) else model
 
 
+def _lot_spellings(lots, store) -> list[str | None]:
+    """Each lot given for a what-if in the spelling it is recorded under: the
+    stored lot's when the store holds it under the reader's lot identity
+    (:func:`linkage.lotid.lot_key`; ``q26-005`` is ``Q26-005``), else as the
+    reader would read it (a lot not made yet; a later ingest joins up by the
+    same key). An id with an invisible character is refused."""
+    from linkage.lotid import reader_spelling
+
+    spelled = [None if lot is None else reader_spelling(lot) for lot in lots]
+    if store is None or not Path(store).exists() or all(lot is None for lot in spelled):
+        return spelled
+    from linkage.store import LotStore
+
+    with LotStore(store, create=False) as s:
+        return [None if lot is None else s.stored_spelling(lot) or lot for lot in spelled]
+
+
 def _recorded_whatifs(results, lots, store) -> list[WhatIfResult]:
     out = []
-    for r, lot in zip(results, lots):
+    for r, lot in zip(results, _lot_spellings(lots, store)):
+        r.lot = lot  # stated on the result and its sheet, as recorded
         d = r.to_dict()
         recorded = record(store, "predict", model_id=d["model_id"], lot=lot, inputs=d["inputs"], outputs=d,
                           prediction=True)
@@ -486,6 +504,10 @@ def whatif(values: Mapping[str, float], *, spec=None, store=DEFAULT_STORE, model
     from linkage.exceptions import UsageError
 
     assurance = check_assurance(assurance)
+    if lot is not None:
+        from linkage.lotid import reader_spelling
+
+        reader_spelling(lot)  # an id with an invisible character is refused before any work
     if not values:
         raise UsageError("nothing to predict from: give --set NAME=VALUE (or --from-csv)")
     bad = [f"{k}: {v!r} is not a number" for k, v in values.items()
@@ -527,9 +549,7 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
 
     results = predict_many(chain, rows, spec=_spec(spec), level=level, seed=seed, product=product,
                            assurance=check_assurance(assurance))
-    for r, row_lot in zip(results, row_lots):
-        r.lot = row_lot  # stated on the result and its sheet
-    return _recorded_whatifs(results, row_lots, store)
+    return _recorded_whatifs(results, row_lots, store)  # each row's lot stated on its result, as recorded
 
 
 def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", spec=None,

@@ -61,6 +61,7 @@ from linkage import plausible as _plausible
 from linkage import seal as _seal
 from linkage.exceptions import (InputError, StoreBusyError, StoreError, StoreIntegrityError, StorePathError,
                                  UsageError)
+from linkage.lotid import lot_key
 from linkage.schema import DATETIME, NUMBER, TABLES
 from linkage.store_rows import LotTable, OnFirstUse, canon_row, encode_table, read_row_texts, write_row_blocks
 
@@ -337,6 +338,10 @@ class LotStore:
                 self._conn = sqlite3.connect(self.path, timeout=busy_timeout_s, isolation_level=None)
         except sqlite3.Error as exc:
             raise StoreError(f"cannot open the lot store {self.path}: {exc}") from None
+        # the reader's lot identity (linkage.lotid.lot_key) in SQL: a lot given on the command line finds its entries
+        # whatever their spelling (case, dash, compatibility form), as an ingest finds the stored lot
+        self._conn.create_function("lot_key", 1, lambda lot: None if lot is None else lot_key(str(lot)),
+                                   deterministic=True)
         try:
             self._setup()
         except BaseException:
@@ -529,6 +534,16 @@ class LotStore:
     def lot_ids(self) -> list[str]:
         """Every lot in the store, in the order they first came."""
         return [r[0] for r in self._read("SELECT lot FROM lots ORDER BY rowid")]
+
+    def stored_spelling(self, lot: str) -> str | None:
+        """The stored lot that ``lot`` is under the reader's lot identity
+        (:func:`linkage.lotid.lot_key`: case, dashes, compatibility forms),
+        in the store's spelling; None when the store holds no such lot."""
+        exact = self._read("SELECT lot FROM lots WHERE lot = ?", (lot,))
+        if exact:
+            return exact[0][0]
+        found = self._read("SELECT lot FROM lots WHERE lot_key(lot) = ? ORDER BY rowid", (lot_key(lot),))
+        return found[0][0] if found else None
 
     def ingest(self, ingest: Ingest, user: str | None = None, reason: str | None = None, *,
                accept_unusual: bool = False) -> IngestResult:
@@ -856,6 +871,7 @@ class LotStore:
         ``{table, change, key, column, old, new}`` with ``change`` one of
         "table added", "row added", "row removed", "value changed".
         """
+        lot = self.stored_spelling(lot) or lot  # one lot, one spelling: found as the reader finds it
         revs = self._read("SELECT r.id, r.revision, r.ingest_id, i.at, i.user, r.product, i.reason FROM revisions r "
                           "JOIN ingests i ON i.id = r.ingest_id WHERE r.lot = ? ORDER BY r.revision", (lot,))
         if not revs:
@@ -933,17 +949,20 @@ class LotStore:
     def audit(self, lot: str | None = None, *, with_ingests: bool = False, require_lot: bool = False) -> list[dict]:
         """Audit entries, oldest first; only those about ``lot`` when given,
         and with ``with_ingests`` also the ingests that created or revised
-        it (their entry names no single lot; issue 19). With ``require_lot``,
-        a lot that is not in the store and that no entry names (a mistyped
-        id) is refused with :class:`UsageError` instead of giving no entries;
-        a lot only predicted for, never ingested, keeps its entries."""
+        it (their entry names no single lot; issue 19). ``lot`` is compared
+        under the reader's lot identity (:func:`linkage.lotid.lot_key`), so
+        entries recorded under another spelling of the lot are its entries too.
+        With ``require_lot``, a lot that is not in the store (under any
+        spelling) and that no entry names (a mistyped id) is refused with
+        :class:`UsageError` instead of giving no entries; a lot only predicted
+        for, never ingested, keeps its entries."""
         sql = "SELECT id, at, user, action, lot, model_id, inputs_json, outputs_json FROM audit"
-        rows = self._read(sql + (" WHERE lot = ? ORDER BY id" if lot is not None else " ORDER BY id"),
-                          (lot,) if lot is not None else ())
+        rows = self._read(sql + (" WHERE lot_key(lot) = ? ORDER BY id" if lot is not None else " ORDER BY id"),
+                          (lot_key(lot),) if lot is not None else ())
         if lot is not None and with_ingests:
             ingests = self._read(sql + " WHERE action = 'ingest' AND lot IS NULL ORDER BY id", ())
             rows = sorted(list(rows) + [r for r in ingests if _ingest_touches(r[7], lot)], key=lambda r: r[0])
-        if lot is not None and require_lot and not rows and lot not in self.lot_ids():
+        if lot is not None and require_lot and not rows and lot_key(lot) not in {lot_key(x) for x in self.lot_ids()}:
             raise self._not_stored(lot)
         return [{"id": i, "at": at, "user": u, "action": a, "lot": lt, "model_id": m,
                  "inputs": None if ij is None else json.loads(ij), "outputs": None if oj is None else json.loads(oj)}
@@ -961,10 +980,11 @@ class LotStore:
             return prediction_id
 
     def predictions(self, lot: str | None = None) -> list[dict]:
-        """Recorded predictions, oldest first; only those for ``lot`` when given."""
+        """Recorded predictions, oldest first; only those for ``lot`` when
+        given (under any spelling of it, :func:`linkage.lotid.lot_key`)."""
         sql = "SELECT id, at, user, model_id, lot, inputs_json, outputs_json FROM predictions"
-        rows = self._read(sql + (" WHERE lot = ? ORDER BY id" if lot is not None else " ORDER BY id"),
-                          (lot,) if lot is not None else ())
+        rows = self._read(sql + (" WHERE lot_key(lot) = ? ORDER BY id" if lot is not None else " ORDER BY id"),
+                          (lot_key(lot),) if lot is not None else ())
         return [{"id": i, "at": at, "user": u, "model_id": m, "lot": lt, "inputs": json.loads(ij),
                  "outputs": json.loads(oj)} for i, at, u, m, lt, ij, oj in rows]
 
@@ -1005,7 +1025,8 @@ def _ingest_touches(outputs_json: str | None, lot: str) -> bool:
     if not outputs_json:
         return False
     out = json.loads(outputs_json)
-    return lot in (out.get("new") or []) or lot in (out.get("revised") or [])
+    key = lot_key(lot)
+    return any(lot_key(str(x)) == key for x in [*(out.get("new") or []), *(out.get("revised") or [])])
 
 
 def _frame(table: str, rows: list[dict], columns: list[str]) -> pd.DataFrame:

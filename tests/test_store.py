@@ -279,6 +279,31 @@ def test_history_of_an_unknown_lot(store):
         store.history("AA")
 
 
+def test_a_lot_is_found_under_any_spelling_of_it(tmp_path):
+    """README, "One lot, one spelling": ids are one lot under Unicode NFKC (Unicode Standard Annex #15), dash-like
+    characters read as '-' and full case folding. A lot ingested as `EX–001` (en dash, U+2013) used not to be
+    found by `history EX-001`, and `audit --lot` split a lot's entries by the spelling they were recorded under.
+    Now the store finds the lot and every entry of it, old entries under another spelling included (none is
+    rewritten: the trail is append-only)."""
+    lot = "EX\u2013001"
+    path = folder(tmp_path, "dash", process=PROCESS.replace("A,P1", f"{lot},P1"),
+                  ribbon=RIBBON.replace("A,", f"{lot},"), tablets=TABLETS.replace("A,", f"{lot},"))
+    with LotStore(tmp_path / "lots.db") as s:
+        s.ingest(read_folder(path))
+        assert s.stored_spelling("ex-001") == s.stored_spelling("EX-001") == lot
+        assert s.stored_spelling("EX-002") is None
+        assert [r["lot"] for r in s.history("EX-001")] == [lot]
+        ids = [s.log("predict", lot=spelling, model_id="m1") for spelling in ("ex-001", lot, "EX-001", "B")]
+        p = [s.record_prediction("m1", {}, {}, lot=spelling) for spelling in ("Ex-001", "B")]
+        for spelling in ("ex-001", "EX-001", lot):
+            entries = s.audit(spelling, with_ingests=True)
+            assert [e["action"] for e in entries] == ["ingest", "predict", "predict", "predict"]
+            assert [e["id"] for e in entries[1:]] == ids[:3]
+            assert [e["lot"] for e in entries[1:]] == ["ex-001", lot, "EX-001"]  # as they were recorded
+            assert [r["id"] for r in s.predictions(spelling)] == p[:1]
+        assert [e["id"] for e in s.audit("b")] == ids[3:]
+
+
 def test_template_example_through_the_store(tmp_path):
     if not TEMPLATE.is_dir():
         pytest.skip(f"template example not found at {TEMPLATE}")

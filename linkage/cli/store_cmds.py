@@ -97,7 +97,8 @@ def lots(store, product, as_json):
 @handle_errors
 def history(lot, store, as_json):
     """Show every revision of LOT: when, by whom, from which files (with
-    SHA-256), and which values changed.
+    SHA-256), and which values changed. LOT is found under any spelling of
+    it (case, dashes), as an ingest finds a stored lot.
 
     \b
     Example:
@@ -111,6 +112,7 @@ def history(lot, store, as_json):
     if as_json:
         click.echo(json.dumps(revisions, indent=2, ensure_ascii=False))
         return
+    lot = revisions[0]["lot"]  # the store's spelling (LOT is found under any spelling of it)
     click.echo(f"Lot {lot}: {len(revisions)} revision{'s' if len(revisions) != 1 else ''}")
     for rev in revisions:
         click.echo(f"Revision {rev['revision']}: ingest {rev['ingest_id']}, {rev['at']}, by {rev['user']}"

@@ -352,13 +352,18 @@ def predictions_vs_measured(recorded: list[dict], table: pd.DataFrame, chain=Non
     value, value the lot ran at, and whether the what-if value was given or
     filled in), and where any differ and ``chain`` is given, the prediction
     made again by that model at the lot's own settings
-    (``at_lot_settings``) against the same measured value."""
+    (``at_lot_settings``) against the same measured value. A what-if's lot
+    is matched under the reader's lot identity (:func:`linkage.lotid.lot_key`),
+    so one recorded as ``q26-005`` is lot ``Q26-005``'s (named as stored)."""
+    from linkage.lotid import lot_key
+
     measured = table.set_index(table["lot"].astype(str))
+    stored = {lot_key(lot): lot for lot in measured.index}
     rerun: dict[str, dict | str] = {}
     out = []
     for rec in recorded:
-        lot = rec.get("lot")
-        if not lot or lot not in measured.index:
+        lot = stored.get(lot_key(str(rec["lot"]))) if rec.get("lot") else None
+        if lot is None:
             continue
         differ, ran = _settings_differ(rec.get("inputs") or {}, measured.loc[lot])
         preds = (rec.get("outputs") or {}).get("predictions", {})

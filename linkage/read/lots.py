@@ -1,56 +1,15 @@
-"""Lot identity: one lot, one spelling; invisible characters refused."""
+"""Lot identity: one lot, one spelling; invisible characters refused.
+
+The rule itself (:func:`lot_key`, :func:`lot_id_rule`) lives in
+:mod:`linkage.lotid`, free of pandas, so that a what-if (``linkage predict
+--lot``) and the store's look-ups apply the very rule the reader applies."""
 
 from __future__ import annotations
 
-import re
-import unicodedata
-
 from linkage.exceptions import Problem
+from linkage.lotid import _DASHES, _INVISIBLE, _visible, _without_invisible, lot_id_rule, lot_key
 
-_DASHES = re.compile(r"[\u2010-\u2015\u2212\u2e3a\u2e3b\ufe58\ufe63\uff0d\u058a\u05be\u1400\u1806\u2e17\u2e1a"
-                     r"\u2e40\u301c\u3030\u30a0\ufe31\ufe32]")
-
-
-def lot_key(lot: str) -> str:
-    """The identity of a lot id: two ids with the same key are one lot.
-
-    Unicode NFKC normalisation (compatibility forms: full-width letters,
-    ligatures; Unicode Standard Annex #15), every dash-like character as
-    ``-``, then case folding (``str.casefold``, Unicode's full case folding).
-    ``Q-100`` and ``Q‑100`` (U+2011), ``VX25-001`` and ``vx25-001``, ``Ａ1``
-    and ``A1`` have one key. Control and format characters are refused before
-    (:func:`lot_id_rule`), so they never reach a key.
-    """
-    if lot.isascii():  # NFKC leaves ASCII as it is, no ASCII character is a dash to fold, casefold() is lower()
-        return lot.lower()
-    return _DASHES.sub("-", unicodedata.normalize("NFKC", lot)).casefold()
-
-
-#: Unicode categories of the characters a lot id may not hold: control (Cc) and format (Cf)
-_INVISIBLE = ("Cc", "Cf")
-
-
-def _without_invisible(lot: str) -> str:
-    """A lot id with its control and format characters taken out (what it was probably meant to be)."""
-    return "".join(ch for ch in lot if unicodedata.category(ch) not in _INVISIBLE)
-
-
-def lot_id_rule(lot: str) -> str | None:
-    """The rule a lot id breaks, or None. Refused: control characters
-    (Unicode category Cc) and format characters (Cf: a byte-order mark
-    U+FEFF, zero-width spaces and joiners, direction marks), which print as
-    nothing and would make a second lot that looks like the first."""
-    found = [ch for ch in lot if unicodedata.category(ch) in _INVISIBLE]
-    if not found:
-        return None
-    names = ", ".join(sorted({f"U+{ord(ch):04X} {unicodedata.name(ch, 'control character')}" for ch in found}))
-    return (f"lot id holds an invisible character ({names}), which would make a second lot that prints like "
-            "the first (two exports pasted together?); remove it")
-
-
-def _visible(lot: str) -> str:
-    """A lot id with its invisible and non-ASCII characters written as escapes, for a message."""
-    return lot.encode("ascii", "backslashreplace").decode("ascii")
+__all__ = ["_DASHES", "_INVISIBLE", "_visible", "_without_invisible", "lot_id_rule", "lot_key"]
 
 
 def _lot_id_problems(lots: list, label: str, sheet_rows: list[int], header: str, bad: set) -> list[Problem]:

@@ -97,6 +97,31 @@ def test_predict_from_csv_text_names_each_rows_lot(run, tmp_path):
     assert r.stdout.count("Decision support only") == 2
 
 
+def test_predict_lot_is_recorded_under_the_stored_spelling(run, tmp_path):
+    """README, "One lot, one spelling" (Unicode NFKC, Unicode Standard Annex #15; dashes read as '-'; full case
+    folding). `predict --lot ex-001` on a store holding EX-001 used to record the what-if under 'ex-001', split
+    from the lot; now it is recorded and stated under the stored spelling. A lot not made yet is recorded as the
+    reader would read it (spaces collapsed), and an id with an invisible character is refused, nothing recorded.
+    A regression test of the store's own rule (no outside source needed beyond the standard named)."""
+    from pathlib import Path
+
+    from linkage.api import ingest
+    from linkage.store import LotStore
+
+    store = tmp_path / "lots.db"
+    ingest(Path(__file__).resolve().parents[1] / "data" / "template-example", store=store)
+    where = ("--set", "roll_force_kn_per_cm=9", "--store", str(store), "--json")
+    for given, recorded in (("ex-001", "EX-001"), ("EX\u2013002", "EX-002"), ("  ex-901 ", "ex-901")):
+        r = run("predict", "--lot", given, *where)
+        assert r.exit_code == 0, r.output
+        assert json.loads(r.stdout)["lot"] == recorded
+    r = run("predict", "--lot", "EX-001\u200b", *where)
+    assert r.exit_code == 2 and "U+200B ZERO WIDTH SPACE" in r.output
+    with LotStore(store, create=False) as s:
+        assert [e["lot"] for e in s.audit() if e["action"] == "predict"] == ["EX-001", "EX-002", "ex-901"]
+        assert [p["lot"] for p in s.predictions()] == ["EX-001", "EX-002", "ex-901"]
+
+
 @pytest.mark.parametrize("args, code, message", [
     (("predict", "--set", "roll_forse=9"), 2, "unknown name 'roll_forse'"),
     (("predict", "--set", "ribbon_porosity=31"), 2, "between 0 and 1"),

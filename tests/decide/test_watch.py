@@ -116,6 +116,20 @@ def test_recorded_prediction_is_compared_with_the_measurement():
                     "at_lot_settings": None}]
 
 
+def test_a_whatif_recorded_under_another_spelling_of_the_lot_is_that_lots():
+    """README, "One lot, one spelling": `Q26-005`, `q26-005` and `Q26–005` (an en dash, U+2013) are one lot
+    (Unicode NFKC, Unicode Standard Annex #15; dash-like characters read as '-'; full case folding). A what-if
+    recorded as `predict --lot q26-005` used to be missing from the watch of lot Q26-005; now every spelling is
+    matched and named as the lot is stored."""
+    table = pd.DataFrame({"lot": ["Q26-005", "Q26-006"], "dissolution_pct": [84.0, 90.0]})
+    pred = {"predictions": {"dissolution_pct": {"value": 86, "low": 82, "high": 90}}}
+    recorded = [{"lot": spelling, "model_id": "m", "outputs": pred} for spelling in
+                ("q26-005", "Q26\u2013005", "\uff31\uff12\uff16-005", "Q26-005", "Q26-007")]
+    out = predictions_vs_measured(recorded, table)
+    assert [e["lot"] for e in out] == ["Q26-005"] * 4
+    assert all(e["measured"] == 84.0 for e in out)
+
+
 def test_a_whatif_at_other_settings_is_noted_and_predicted_again_at_the_lot_settings(drift):
     """Issue 19 item 5: a what-if made at a roll force the lot did not run at is noted, with the value it ran
     at, and the watched model predicts again at the lot's own settings (the same numbers as a what-if asked
