@@ -487,7 +487,38 @@ def _recorded_whatifs(results, lots, store) -> list[WhatIfResult]:
     return out
 
 
-def whatif(values: Mapping[str, float], *, spec=None, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR,
+def _whatif_numbers(values: Mapping) -> tuple[dict[str, float], list[str]]:
+    """The values of a what-if as floats (a text by the one number rule,
+    :mod:`linkage.numbers`), and a problem for each that is not a number."""
+    from linkage.decide.whatif import _given_number
+    from linkage.numbers import parse_plain_number
+
+    out: dict[str, float] = {}
+    bad: list[str] = []
+    for k, v in values.items():
+        number = parse_plain_number(v) if isinstance(v, str) else (
+            "not a number" if isinstance(v, bytes) else _given_number(v))
+        if isinstance(number, str):
+            bad.append(f"{k}: {v!r} is {number}")
+        else:
+            out[str(k)] = number
+    return out, bad
+
+
+def _lean_or_refused(models_dir, model, problems: list[str]):
+    """The lean model to check and predict with; when it cannot be loaded and
+    the values already broke a rule, those problems are the error."""
+    from linkage.exceptions import ModelNotFoundError, UsageError
+
+    try:
+        return _lean(models_dir, model)
+    except ModelNotFoundError:
+        if problems:
+            raise UsageError("; ".join(problems)) from None
+        raise
+
+
+def whatif(values: Mapping[str, float | str], *, spec=None, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR,
            model="latest", level: float | None = None, seed: int = 0, lot: str | None = None,
            product: str | None = None, assurance: float = 0.9) -> WhatIfResult:
     """Predict every downstream attribute from ``values`` (settings and/or
@@ -510,13 +541,14 @@ def whatif(values: Mapping[str, float], *, spec=None, store=DEFAULT_STORE, model
         reader_spelling(lot)  # an id with an invisible character is refused before any work
     if not values:
         raise UsageError("nothing to predict from: give --set NAME=VALUE (or --from-csv)")
-    bad = [f"{k}: {v!r} is not a number" for k, v in values.items()
-           if isinstance(v, (str, bytes)) or not hasattr(v, "__float__")]
-    if bad:
-        raise UsageError("; ".join(bad))
-    values = {str(k): float(v) for k, v in values.items()}
+    values, bad = _whatif_numbers(values)
     spec = _spec(spec)
-    chain = _lean(models_dir, model)  # names and values are checked by predict_whatif
+    chain = _lean_or_refused(models_dir, model, bad)
+    if bad:
+        from linkage.decide.whatif import check_values
+
+        check_values(chain, values, more=bad)  # every problem at once: numbers, names and ranges
+    # names and values are checked by predict_whatif
     result = predict_whatif(chain, values, spec=spec, level=level, seed=seed, lot=lot, product=product,
                             assurance=assurance)
     return _recorded_whatifs([result], [lot], store)[0]
@@ -528,13 +560,18 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
     """One what-if per row (``linkage predict --from-csv``): ``rows`` is a
     list of {name: value} dicts, a DataFrame whose columns are names, or the
     path of such a CSV (whose optional ``lot`` column names each row's lot).
-    Every row is checked before any is predicted. ``lots`` gives each row's
-    lot (one lot for all when a single string)."""
+    Every row is checked before any is predicted, and every problem of the
+    rows is raised at once (``InputError``: file, row, column, value, rule).
+    ``lots`` gives each row's lot (one lot for all when a single string)."""
     from linkage.decide.whatif import predict_many, read_rows
+    from linkage.lotid import reader_spelling
 
+    if isinstance(lots, str):
+        reader_spelling(lots)  # an id with an invisible character is refused before any work
     csv_lots: list[str | None] | None = None
     if isinstance(rows, (str, Path)):
-        rows, csv_lots = read_rows(rows)
+        rows = read_rows(rows)
+        csv_lots = rows.lots
     else:
         rows = rows if hasattr(rows, "to_dict") else list(rows)
     n = len(rows)

@@ -128,7 +128,8 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
         from linkage.spec import read_spec
 
         spec = read_spec(spec_path)
-    values = parse_assignments(list(assignments))
+    # a value that is not a number is reported by the what-if with the names and ranges it checks (all at once)
+    values = parse_assignments(list(assignments), keep_text=page_path is None)
     if page_path is not None:
         from linkage.report.page import write_page
 

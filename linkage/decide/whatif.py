@@ -49,9 +49,14 @@ def valid_names(chain) -> list[str]:
     return roots + [t for t in lean.all_targets() if t not in roots]
 
 
-def parse_assignments(pairs: list[str]) -> dict[str, float]:
-    """``["roll_gap_mm=2.5", ...]`` → dict, with a clear error for each bad pair."""
-    out: dict[str, float] = {}
+def parse_assignments(pairs: list[str], *, keep_text: bool = False) -> dict[str, float | str]:
+    """``["roll_gap_mm=2.5", ...]`` → dict, with a clear error for each bad pair.
+
+    ``keep_text``: a value that is not a number is kept as its text instead of
+    refused here, so that the caller (:func:`linkage.api.whatif`) reports it
+    together with the names and ranges it checks on the model: every problem
+    of the command line at once."""
+    out: dict[str, float | str] = {}
     problems = []
     for pair in pairs:
         name, sep, text = pair.partition("=")
@@ -60,40 +65,49 @@ def parse_assignments(pairs: list[str]) -> dict[str, float]:
             problems.append(f"'{pair}' is not NAME=VALUE")
             continue
         value = parse_plain_number(text)
-        if isinstance(value, str):
+        if isinstance(value, str) and not keep_text:
             problems.append(f"{name}: '{text.strip()}' is {value}")
             continue
         if name in out:
             problems.append(f"{name} is set twice")
-        out[name] = value
+        out[name] = text.strip() if isinstance(value, str) else value
     if problems:
         raise UsageError("; ".join(problems))
     return out
 
 
-def check_values(chain, values: dict[str, float], *, row: int | None = None) -> None:
-    """Refuse unknown names, non-finite values and physically impossible ones."""
+def value_problems(chain, values: dict[str, float]) -> tuple[list[str], list[tuple[str, float, str]]]:
+    """The names ``chain`` does not know, and each (name, value, rule) of a
+    known name whose value is not finite or not physically possible."""
     names = valid_names(chain)
-    where = "" if row is None else f"row {row}: "
     unknown = [n for n in values if n not in names]
-    problems = [f"{where}unknown name '{n}'" for n in unknown]
-    if unknown:
-        problems.append(f"valid names are: {', '.join(names)}")
+    bad: list[tuple[str, float, str]] = []
     for name, value in values.items():
         if name in unknown:
             continue
         if not math.isfinite(value):
-            problems.append(f"{where}{name} = {value} is not a finite number")
+            bad.append((name, value, "is not a finite number"))
         elif name in _FRACTIONS and not 0 < value < 1:
-            problems.append(f"{where}{name} = {value} must lie between 0 and 1 (a fraction, not a percent)")
+            bad.append((name, value, "must lie between 0 and 1 (a fraction, not a percent)"))
         else:
             column = _schema_column(name)
             if column is not None:
                 low_ok = column.low is None or (value >= column.low if column.low_inclusive else value > column.low)
                 high_ok = column.high is None or (value <= column.high if column.high_inclusive else value < column.high)
                 if not (low_ok and high_ok):
-                    problems.append(f"{where}{name} = {value} is outside the possible range "
-                                    f"{column.bound_text()} [{column.unit}]")
+                    bad.append((name, value, f"is outside the possible range {column.bound_text()} [{column.unit}]"))
+    return unknown, bad
+
+
+def check_values(chain, values: dict[str, float], *, row: int | None = None, more: list[str] = ()) -> None:
+    """Refuse unknown names, non-finite values and physically impossible ones,
+    with the problems in ``more`` (found before the model was at hand), all at once."""
+    where = "" if row is None else f"row {row}: "
+    unknown, bad = value_problems(chain, values)
+    problems = [*more, *(f"{where}unknown name '{n}'" for n in unknown)]
+    if unknown:
+        problems.append(f"valid names are: {', '.join(valid_names(chain))}")
+    problems += [f"{where}{name} = {value} {rule}" for name, value, rule in bad]
     if problems:
         raise UsageError("; ".join(problems))
 
@@ -394,30 +408,53 @@ def _product_for(chain, product: str | None) -> tuple[str | None, str | None]:
 
 
 def predict_many(chain, rows, **kwargs) -> list[WhatIf]:
-    """One what-if per row of ``rows``: a list of {name: value} dicts (or a
-    DataFrame, whose columns are names); empty cells are unset."""
+    """One what-if per row of ``rows``: a list of {name: value} dicts, a
+    DataFrame whose columns are names, or a file read by :func:`read_rows`;
+    empty cells are unset. Every row is checked before any is predicted, and
+    every problem is raised at once (:class:`~linkage.exceptions.InputError`)
+    with the file (``rows`` for rows given from Python), the row (the header
+    is row 1), the column, the value and the rule. A row with no value at all
+    is refused: predicting it would be a silent guess (every setting held),
+    and dropping it a silent loss."""
+    from linkage.exceptions import InputError, Problem
     from linkage.models.lean import as_lean
 
     chain = as_lean(chain)
-    records_in = rows.to_dict(orient="records") if hasattr(rows, "to_dict") else list(rows)
-    problems = []
+    if isinstance(rows, CsvRows):
+        source, header_row, numbers, records_in = rows.source, rows.header_row, rows.rows, rows.records
+        problems = list(rows.problems)
+    else:
+        records_in = rows.to_dict(orient="records") if hasattr(rows, "to_dict") else list(rows)
+        source, header_row, numbers, problems = "rows", 1, list(range(2, len(records_in) + 2)), []
+    names = valid_names(chain)
+    unknown = list(dict.fromkeys(str(k).strip() for rec in records_in for k in rec if str(k).strip() not in names))
+    problems += [Problem(source, f"unknown name; valid names are: {', '.join(names)}", row=header_row, column=n)
+                 for n in unknown]
     records = []
-    for i, rec in enumerate(records_in, start=2):
-        values = {}
+    for i, rec in zip(numbers, records_in):
+        values, given, broken = {}, {}, False
         for k, v in rec.items():
             if v is None or (isinstance(v, float) and math.isnan(v)) or (
                     isinstance(v, str) and v.strip().lower() in MISSING_TOKENS):
                 continue
             value = parse_plain_number(v) if isinstance(v, str) else _given_number(v)
-            if isinstance(value, str):
-                problems.append(f"row {i}, column '{k}': '{v}' is {value}")
+            name = str(k).strip()
+            if name in unknown:
+                broken = True  # the column is refused as a whole, in the header
+            elif isinstance(value, str):
+                problems.append(Problem(source, value, row=i, column=name, value=v))
+                broken = True
             else:
-                values[str(k).strip()] = value
+                values[name], given[name] = value, v
+        if not values and not broken:
+            problems.append(Problem(source, "the row holds no value: a what-if needs at least one setting or "
+                                            "measured value (a row is never dropped, nor predicted with every "
+                                            "setting held); fill it or delete it", row=i))
+        problems += [Problem(source, f"{name} = {value:g} {rule}", row=i, column=name, value=given[name])
+                     for name, value, rule in value_problems(chain, values)[1]]
         records.append(values)
     if problems:
-        raise UsageError("; ".join(problems))
-    for i, values in enumerate(records, start=2):
-        check_values(chain, values, row=i)
+        raise InputError(sorted(problems, key=lambda p: p.row or 0))  # the header's first, then row by row
     return [predict_whatif(chain, values, **kwargs) for values in records]
 
 
@@ -442,37 +479,72 @@ def _num(v):
     return None if v is None or not np.isfinite(v) else float(v)
 
 
-def read_rows(path) -> tuple[list[dict[str, str]], list[str | None]]:
+@dataclass
+class CsvRows:
+    """A ``--from-csv`` file as read: each row's cells as text (``records``,
+    without the ``lot`` column), its lot (``lots``), its spreadsheet row
+    (``rows``; the header is ``header_row``), the file's name (``source``) and
+    the problems found in reading it, reported with those of the cells."""
+    records: list[dict[str, str]]
+    lots: list[str | None]
+    rows: list[int]
+    source: str
+    header_row: int = 1
+    problems: list = field(default_factory=list)
+
+    def __len__(self) -> int:
+        return len(self.records)
+
+
+def read_rows(path) -> CsvRows:
     """Read a ``--from-csv`` file: a header of names, one what-if per row.
 
-    Every cell is kept as text (parsed and checked by :func:`predict_many`).
+    Every cell is kept as text (parsed and checked by :func:`predict_many`,
+    which reports this file's problems with those of its cells, all at once).
     A row with more or fewer fields than the header is refused with its row
-    number, never shifted into other columns. An optional ``lot`` column names
-    the lot each row is for; it is not a model input.
+    number, never shifted into other columns. An empty line is skipped and
+    counted in the row numbers, as the ingest reader does. An optional ``lot``
+    column names the lot each row is for (read as the reader reads a lot id);
+    it is not a model input. A file that cannot be read as CSV text is refused
+    at once (:class:`~linkage.exceptions.InputError`).
     """
     import csv
 
+    from linkage.exceptions import InputError, Problem
+    from linkage.lotid import _visible, lot_id_rule
+
+    name = Path(path).name
     try:
         text = Path(path).read_bytes().decode("utf-8-sig")
     except UnicodeDecodeError as exc:
-        raise UsageError(f"{path}: not UTF-8 text ({exc})") from None
+        raise InputError(Problem(name, f"not UTF-8 text ({exc})")) from None
     try:
-        rows = list(csv.reader(io.StringIO(text, newline=""), strict=True))
+        lines = list(csv.reader(io.StringIO(text, newline=""), strict=True))
     except csv.Error as exc:
-        raise UsageError(f"{path}: cannot be read as CSV ({exc})") from None
-    rows = [r for r in rows if any(cell.strip() for cell in r)]
-    if not rows:
-        raise UsageError(f"{path} is empty: it needs a header of names and one row per what-if")
-    header = [h.strip() for h in rows[0]]
-    twice = sorted({h for h in header if header.count(h) > 1})
-    if twice:
-        raise UsageError(f"{path}: column {', '.join(repr(h) for h in twice)} appears more than once in the header")
-    problems = [f"row {i}: {len(r)} fields under a header of {len(header)}"
-                for i, r in enumerate(rows[1:], start=2) if len(r) != len(header)]
-    if problems:
-        raise UsageError(f"{path}: " + "; ".join(problems))
-    records = [dict(zip(header, r)) for r in rows[1:]]
-    lots = [str(r.get("lot", "")).strip() or None for r in records]
-    for r in records:
-        r.pop("lot", None)
-    return records, lots
+        raise InputError(Problem(name, f"cannot be read as CSV ({exc})")) from None
+    numbered = [(i, r) for i, r in enumerate(lines, start=1) if any(cell.strip() for cell in r)]
+    if not numbered:
+        raise InputError(Problem(name, "empty: the file needs a header of names and one row per what-if"))
+    header_row = numbered[0][0]
+    header = [h.strip() for h in numbered[0][1]]
+    problems = [Problem(name, "column appears more than once in the header", row=header_row, column=h)
+                for h in sorted({h for h in header if header.count(h) > 1})]
+    problems += [Problem(name, "a column without a name", row=header_row, column=f"column {j + 1}")
+                 for j, h in enumerate(header) if not h]
+    out = CsvRows([], [], [], name, header_row, problems)
+    for i, r in enumerate(lines[header_row:], start=header_row + 1):
+        if not r:
+            continue  # an empty line: skipped and counted, as the ingest reader does
+        if len(r) != len(header):
+            problems.append(Problem(name, f"{len(r)} fields under a header of {len(header)} (a row is never "
+                                          "shifted into other columns)", row=i))
+            continue
+        record = dict(zip(header, r))
+        lot = " ".join(str(record.pop("lot", "")).split()) or None  # a lot id as the reader reads a text cell
+        rule = None if lot is None else lot_id_rule(lot)
+        if rule is not None:
+            problems.append(Problem(name, rule, row=i, column="lot", value=_visible(lot)))
+        out.records.append(record)
+        out.lots.append(lot)
+        out.rows.append(i)
+    return out

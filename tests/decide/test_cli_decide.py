@@ -122,6 +122,53 @@ def test_predict_lot_is_recorded_under_the_stored_spelling(run, tmp_path):
         assert [p["lot"] for p in s.predictions()] == ["EX-001", "EX-002", "ex-901"]
 
 
+@pytest.mark.parametrize("text", ["roll_force_kn_per_cm,roll_gap_mm\n9,2.5\n,\n8,2.4\n",
+                                  "lot,roll_force_kn_per_cm,roll_gap_mm\nQ-1,9,2.5\nQ-2,,\nQ-3,8,2.4\n",
+                                  "roll_force_kn_per_cm,roll_gap_mm\n9,2.5\nNA,n/a\n8,2.4\n"])
+def test_predict_from_csv_refuses_a_row_with_no_value(run, tmp_path, text):
+    """A regression test of a refusal (no outside source needed): a row of empty cells used to be dropped
+    without a word when the file had no lot column (3 rows gave 2 what-ifs), and predicted with every setting
+    held at the training mean when it had one. The README does not say that an empty row means "all settings
+    held", so it is refused in both cases: exit 2, the file, the row (header = row 1) and the rule."""
+    planned = tmp_path / "planned.csv"
+    planned.write_text(text, encoding="utf-8")
+    r = run("predict", "--from-csv", str(planned), "--json")
+    assert r.exit_code == 2, r.output
+    assert "1 problem found" in r.output
+    assert "planned.csv, row 3: the row holds no value" in r.output
+
+
+def test_predict_from_csv_reports_every_problem_of_the_file_at_once(run, tmp_path):
+    """A regression test of a refusal (no outside source needed): the problems of a --from-csv file used to come
+    in rounds (cells that are no number, then unknown columns, then range errors one at a time), without the file,
+    and an unknown column was called "row 2". Now all at once, each with file, row (header = row 1), column,
+    value and rule, as the ingest reader reports them."""
+    planned = tmp_path / "planned.csv"
+    planned.write_text("roll_force_kn_per_cm,roll_gap_mm,roll_forse\n9,wide,1\n99,2.5,\n-1,2.5,\n9,2.5\n",
+                       encoding="utf-8")
+    r = run("predict", "--from-csv", str(planned))
+    assert r.exit_code == 2, r.output
+    assert "5 problems found; nothing was written." in r.output
+    for line in ("planned.csv, row 1, column 'roll_forse': unknown name; valid names are: roll_force_kn_per_cm",
+                 "planned.csv, row 2, column 'roll_gap_mm', value 'wide': not a number",
+                 "planned.csv, row 3, column 'roll_force_kn_per_cm', value '99': roll_force_kn_per_cm = 99 is "
+                 "outside the possible range",
+                 "planned.csv, row 4, column 'roll_force_kn_per_cm', value '-1': roll_force_kn_per_cm = -1 is "
+                 "outside the possible range",
+                 "planned.csv, row 5: 2 fields under a header of 3"):
+        assert line in r.output
+
+
+def test_predict_set_reports_every_problem_at_once(run):
+    """A regression test of a refusal (no outside source needed): `--set roll_gap_mm=abc --set foo=2 --set
+    ribbon_porosity=1.5` used to report the first problem only; now all three."""
+    r = run("predict", "--set", "roll_gap_mm=abc", "--set", "foo=2", "--set", "ribbon_porosity=1.5")
+    assert r.exit_code == 2, r.output
+    for part in ("roll_gap_mm: 'abc' is not a number", "unknown name 'foo'",
+                 "ribbon_porosity = 1.5 must lie between 0 and 1"):
+        assert part in r.output
+
+
 @pytest.mark.parametrize("args, code, message", [
     (("predict", "--set", "roll_forse=9"), 2, "unknown name 'roll_forse'"),
     (("predict", "--set", "ribbon_porosity=31"), 2, "between 0 and 1"),

@@ -15,7 +15,7 @@ import pytest
 
 from linkage.decide.whatif import parse_assignments, predict_many, predict_whatif
 from linkage.decide.window import find_window
-from linkage.exceptions import UsageError
+from linkage.exceptions import InputError, UsageError
 from linkage.spec import Limit, Spec
 from linkage.synthetic import WINDOW_SETTINGS, WINDOW_SPEC
 
@@ -182,7 +182,7 @@ def test_predict_many_names_the_bad_row(scenario):
 
     _, chain, _, _ = scenario
     rows = pd.DataFrame({"ribbon_porosity": [0.3, 1.5]})
-    with pytest.raises(UsageError, match="row 3: ribbon_porosity = 1.5"):
+    with pytest.raises(InputError, match="rows, row 3, column 'ribbon_porosity', value 1.5: ribbon_porosity = 1.5"):
         predict_many(chain, rows)
     out = predict_many(chain, pd.DataFrame({"ribbon_porosity": [0.28, 0.33]}))
     assert [r.inputs["ribbon_porosity"]["value"] for r in out] == [0.28, 0.33]
