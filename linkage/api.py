@@ -98,6 +98,16 @@ def _fitted(models_dir, model) -> FittedChain:
     return model.chain if isinstance(model, Trained) else model
 
 
+def _check_settings(chain, settings: Mapping[str, float]) -> None:
+    """Refuse ``--set`` values as ``predict`` refuses them
+    (:func:`linkage.decide.whatif.check_values`: unknown names, values that
+    are not finite or outside the physically possible range), every problem
+    at once, exit code 2, before anything is computed or written."""
+    from linkage.decide.whatif import check_values
+
+    check_values(chain, dict(settings))
+
+
 def _time_and_q(spec: Spec | None, dissolution_time_min: float | None) -> dict:
     """The dissolution time point and Q to assemble with: the spec's, unless
     a time point is given."""
@@ -330,6 +340,7 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
     spec = _spec(spec)
     settings = {k: float(v) for k, v in (settings or {}).items()}
     chain = _fitted(models_dir, model)
+    _check_settings(chain, settings)
     result = find_window(chain, spec, settings=settings, confidence=confidence, n_draws=n_draws, seed=seed,
                          assurance=assurance)
     if model is None or isinstance(model, str):  # a model of the registry, loaded and checked here (issue 20)
@@ -398,6 +409,7 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
 
         raise UsageError("planning the next lots of a campaign needs a spec (--spec); for a new product use --new")
     chain = _fitted(models_dir, model)
+    _check_settings(chain, settings)
     table = assemble(store, spec=spec, product=product)
     result = planning.augment_design(chain, table, spec, n_lots, ranges=dict(ranges or {}), settings=settings,
                                      confidence=confidence, assurance=assurance, seed=seed, prefix=prefix,
@@ -423,7 +435,9 @@ def space(spec, *, models_dir=DEFAULT_MODELS_DIR, model="latest", x: str = defau
     from linkage.decide.space import design_space
 
     settings = {k: float(v) for k, v in (settings or {}).items()}
-    result = design_space(_lean(models_dir, model), _spec(spec), x=x, y=y, n_grid=n_grid, settings=settings,
+    lean = _lean(models_dir, model)
+    _check_settings(lean, settings)
+    result = design_space(lean, _spec(spec), x=x, y=y, n_grid=n_grid, settings=settings,
                           confidence=confidence, assurance=assurance, seed=seed)
     if model is None or isinstance(model, str):  # a model of the registry, loaded and checked here (issue 20)
         _keep(models_dir, result.model_id, "space", _spec(spec), result, "linkage space", x=x, y=y, n_grid=n_grid,

@@ -218,15 +218,19 @@ def held_point(chain, values: dict[str, float], *, rule: str | None = None) -> d
 
     Returns ``{"rule", "in_domain", "reasons", "point"}`` (JSON-safe)."""
     from linkage.decide.propagate import simulate
-    from linkage.models.lean import as_lean
+    from linkage.models.lean import as_lean, given_inputs_verdict
 
     lean = as_lean(chain)
     draws = simulate(lean, {k: [float(v)] for k, v in values.items()}, n_draws=1, seed=0)
     reasons: list[str] = []
     for stage in lean.stages:
-        if stage.domain is None or all(t in draws.fixed for t in stage.targets):
+        if stage.domain is None:
             continue
-        verdict = stage.domain.check({c: draws.means[c] for c in stage.inputs})[0]
+        if all(t in draws.fixed for t in stage.targets):  # not run: the values given to it, against their ranges
+            verdict = given_inputs_verdict(stage.domain, {c: draws.means[c] for c in stage.inputs
+                                                          if c in draws.fixed})
+        else:
+            verdict = stage.domain.check({c: draws.means[c] for c in stage.inputs})[0]
         reasons += [f"{stage.name} stage: {r}" for r in verdict["reasons"]]
     return {"rule": rule or rule_of(lean), "in_domain": not reasons, "reasons": reasons,
             "point": {k: float(v) for k, v in values.items()}}

@@ -286,7 +286,10 @@ def design_space(chain, spec, *, x: str = FORCE, y: str = GAP, n_grid: int = MAP
     n_grid = int(n_grid)
     if not 3 <= n_grid <= 200:
         raise UsageError(f"the grid needs 3 to 200 points per setting; got {n_grid}")
+    from linkage.timepoint import check_time_point
+
     lean = as_lean(chain)
+    check_time_point(lean, spec, "space")
     roots = lean.root_inputs()
     problems = [f"--x/--y: {n!r} is not a setting of this model's chain (settings: {', '.join(roots)})"
                 for n in (x, y) if n not in roots]

@@ -112,6 +112,20 @@ def check_values(chain, values: dict[str, float], *, row: int | None = None, mor
         raise UsageError("; ".join(problems))
 
 
+def check_judgeable(chain, spec) -> None:
+    """Refuse (exit code 2) a spec none of whose attributes the chain
+    predicts (nor the acceptance value it judges on simulated units): a
+    what-if against it would judge nothing and promise that nothing, as
+    ``linkage window`` refuses it. No spec: nothing to check."""
+    if spec is None:
+        return
+    if spec.acceptance_value_max is not None or any(a in chain.targets for a in spec.limits):
+        return
+    raise UsageError(f"none of the spec's attributes is predicted by model {chain.model_id or 'unsaved'} "
+                     f"(spec names {', '.join(spec.limits) or 'no attribute'}; the chain predicts "
+                     f"{', '.join(sorted(set(chain.targets)))}); nothing to judge")
+
+
 def _schema_column(name):
     for table in TABLES.values():
         if name in table.names:
@@ -232,6 +246,7 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
     assurance = check_assurance(assurance)
     check_values(chain, values)
     check_time_point(chain, spec, "predict")
+    check_judgeable(chain, spec)
     product, product_source = _product_for(chain, product)
     level = float(level if level is not None else chain.nominal_coverage)
     if not 0 < level < 1:
@@ -262,7 +277,8 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         level=level, inputs=inputs, predictions=predictions,
         p_pass_all=float(pass_all.mean()) if stages.any_spec else None,
         in_domain=not stages.reasons, domain_reasons=stages.reasons, domain=stages.domain,
-        judges=compendial.judge_text(spec) if spec is not None else {},
+        judges={a: t for a, t in compendial.judge_text(spec).items() if a in judged_attributes}
+        if spec is not None else {},  # the judged attributes only: the others are in not_modelled
         attributes=judged_attributes, not_modelled=not_modelled,
         spec=spec.describe() if spec is not None else None,
         dissolution_time_min=time_min if "dissolution_pct" in chain.targets else None,
@@ -292,11 +308,21 @@ def _stage_predictions(chain, draws, spec, judged, level: float, contributions: 
     simulated units where ``judged`` has it), its three largest
     contributions; and each stage's applicability-domain verdict at the
     chain of mean predictions."""
+    from linkage.models.lean import given_inputs_verdict
+
     spec_limits = spec.limits if spec is not None else {}
     out = _StagePredictions({}, {}, [], np.ones(draws.n_draws, dtype=bool), False)
     for stage in chain.stages:
         todo = [t for t in stage.targets if t not in draws.fixed]
-        if not todo:
+        if not todo:  # every target given: the stage is not run, but the values given to it are still checked
+            if stage.domain is not None:
+                verdict = given_inputs_verdict(stage.domain, {c: draws.means[c] for c in stage.inputs
+                                                              if c in draws.fixed})
+                out.domain[stage.name] = {**{k: _num(v) if k in ("t2_limit", "q_limit") else v
+                                             for k, v in verdict.items()},
+                                          "checked": "training ranges of the given inputs only (the stage was "
+                                                     "not run: every target of it was given)"}
+                out.reasons += [f"{stage.name} stage: {r}" for r in verdict["reasons"]]
             continue
         x = {c: draws.means[c] for c in stage.inputs}
         verdict = stage.domain.check(x)[0]

@@ -46,8 +46,8 @@ from linkage.exceptions import InputError, Problem, UsageError
 
 __all__ = ["LeanChain", "from_fitted", "as_lean", "to_npz_bytes", "from_npz_bytes", "FORMAT",
            "quad_features", "quadratic_predict", "quadratic_contributions", "walk_trees", "tree_shap",
-           "domain_verdicts", "physical_range", "project", "link_transform", "link_inverse", "link_predict",
-           "link_contributions", "spread_scale", "LINKS", "link_weights", "link_leverage", "leverage_scale"]
+           "domain_verdicts", "given_inputs_verdict", "physical_range", "project", "link_transform", "link_inverse",
+           "link_predict", "link_contributions", "spread_scale", "LINKS", "link_weights", "link_leverage", "leverage_scale"]
 
 FORMAT = 1
 
@@ -339,12 +339,7 @@ def domain_verdicts(d, values: np.ndarray) -> list[dict]:
             if not np.isfinite(v):
                 reasons.append(f"{c} is missing")
                 continue
-            lo, hi = d.ranges.get(c, (np.nan, np.nan))
-            tol = 1e-9 * max(1.0, abs(hi - lo), abs(hi), abs(lo))
-            if v < lo - tol:
-                reasons.append(f"{c} = {_with_unit(c, v)} is below the training range {_fmt(lo)}–{_fmt(hi)}")
-            elif v > hi + tol:
-                reasons.append(f"{c} = {_with_unit(c, v)} is above the training range {_fmt(lo)}–{_fmt(hi)}")
+            reasons += _range_reason(d, c, v)
         if not np.all(np.isfinite(row)):
             out.append({"in_domain": False, "t2": float("nan"), "t2_limit": d.t2_limit, "q": float("nan"),
                         "q_limit": d.q_limit, "reasons": reasons, "contributions": {}, "t2_contributions": {},
@@ -378,6 +373,34 @@ def domain_verdicts(d, values: np.ndarray) -> list[dict]:
                     "t2_contributions": {c: float(v) for c, v in zip(names, t2c)},
                     "q_contributions": {c: float(v) for c, v in zip(names, qc)}})
     return out
+
+
+def _range_reason(d, c: str, v: float) -> list[str]:
+    """``[reason]`` when input ``c`` = ``v`` lies outside its training range in domain ``d``, else ``[]``."""
+    lo, hi = d.ranges.get(c, (np.nan, np.nan))
+    tol = 1e-9 * max(1.0, abs(hi - lo), abs(hi), abs(lo))
+    if v < lo - tol:
+        return [f"{c} = {_with_unit(c, v)} is below the training range {_fmt(lo)}–{_fmt(hi)}"]
+    if v > hi + tol:
+        return [f"{c} = {_with_unit(c, v)} is above the training range {_fmt(lo)}–{_fmt(hi)}"]
+    return []
+
+
+def given_inputs_verdict(d, values: dict) -> dict:
+    """The verdict of a stage that is not run because every one of its
+    targets was given (a what-if given ``ribbon_porosity``): those of its
+    inputs found in ``values`` (given or held; one number each) against
+    their training ranges. T² and Q need every input of the stage, so they
+    are not computed (None). A setting given outside the training range of
+    the only stage that takes it is flagged as it is when the stage runs.
+    The page mirrors this (``givenInputsVerdict`` in ``whatif_page.js``)."""
+    reasons: list[str] = []
+    for c in d.inputs:
+        if c in values:
+            v = float(np.asarray(values[c], dtype=float).reshape(-1)[0])
+            reasons += [f"{c} is missing"] if not np.isfinite(v) else _range_reason(d, c, v)
+    return {"in_domain": not reasons, "t2": None, "t2_limit": d.t2_limit, "q": None, "q_limit": d.q_limit,
+            "reasons": reasons}
 
 
 def johanson_predict(X, *, force_index, gap_index, diameter_index, compressibility, pressure_constant_mpa,

@@ -166,7 +166,12 @@ def page_payload(lean, spec=None, *, seed: int = 0, n_draws: int = 4000, level: 
     from linkage.models.lean import as_lean
     from linkage.schema import ASSEMBLED
 
+    from linkage.decide.whatif import check_judgeable
+    from linkage.timepoint import check_time_point
+
     lean = as_lean(lean)
+    check_time_point(lean, spec, "predict --page")
+    check_judgeable(lean, spec)
     _check_supported(lean, spec)
     assurance = check_assurance(assurance)
     level = float(level if level is not None else lean.nominal_coverage)

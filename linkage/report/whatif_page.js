@@ -359,15 +359,27 @@
     const u = M.units[name] || "-";
     return NOT_UNITS.has(u) ? fmt(v) : fmt(v) + " " + u;
   }
+  function rangeReason(d, c, v) { // lean.py's _range_reason
+    const [lo, hi] = d.ranges[c];
+    const tol = 1e-9 * Math.max(1.0, Math.abs(hi - lo), Math.abs(hi), Math.abs(lo));
+    if (v < lo - tol) return [`${c} = ${withUnit(c, v)} is below the training range ${fmt(lo)}–${fmt(hi)}`];
+    if (v > hi + tol) return [`${c} = ${withUnit(c, v)} is above the training range ${fmt(lo)}–${fmt(hi)}`];
+    return [];
+  }
+  function givenInputsVerdict(d, values) { // lean.py's given_inputs_verdict: a stage not run, every target given
+    const reasons = [];
+    for (const c of d.inputs) {
+      if (!(c in values)) continue;
+      const v = values[c];
+      if (!Number.isFinite(v)) reasons.push(`${c} is missing`); else reasons.push(...rangeReason(d, c, v));
+    }
+    return { in_domain: reasons.length === 0, t2: null, t2_limit: d.t2_limit, q: null, q_limit: d.q_limit, reasons,
+      checked: "training ranges of the given inputs only (the stage was not run: every target of it was given)" };
+  }
   function domainVerdict(d, rowv) {
     const level = String(Math.round(100 * (1 - d.alpha) * 1e9) / 1e9) + "%";
     const names = d.inputs, p = names.length, reasons = [];
-    names.forEach((c, j) => {
-      const v = rowv[j], [lo, hi] = d.ranges[c];
-      const tol = 1e-9 * Math.max(1.0, Math.abs(hi - lo), Math.abs(hi), Math.abs(lo));
-      if (v < lo - tol) reasons.push(`${c} = ${withUnit(c, v)} is below the training range ${fmt(lo)}–${fmt(hi)}`);
-      else if (v > hi + tol) reasons.push(`${c} = ${withUnit(c, v)} is above the training range ${fmt(lo)}–${fmt(hi)}`);
-    });
+    names.forEach((c, j) => { reasons.push(...rangeReason(d, c, rowv[j])); });
     const A = d.rotations.shape[1];
     const z = new Float64Array(p), t = new Float64Array(A);
     for (let j = 0; j < p; j++) z[j] = (rowv[j] - d.mean[j]) / d.scale[j];
@@ -728,7 +740,16 @@
     const stagesJudged = M.dissolution && ("dissolution_pct" in limits) ? judgeDissolution(draws, limits.dissolution_pct.min) : null;
     for (const st of M.stages) {
       const todo = st.targets.filter((t) => !draws.fixed.has(t.target));
-      if (!todo.length) continue;
+      if (!todo.length) { // whatif._stage_predictions: the stage is not run, the values given to it are checked
+        if (st.domain) {
+          const given = {};
+          for (const c of st.inputs) if (draws.fixed.has(c)) given[c] = draws.means[c];
+          const v = givenInputsVerdict(st.domain, given);
+          domain[st.name] = v;
+          for (const r of v.reasons) reasons.push(`${st.name} stage: ${r}`);
+        }
+        continue;
+      }
       const xIn = st.inputs.map((c) => draws.means[c]);
       const v = domainVerdict(st.domain, st.domain.inputs.map((c) => draws.means[c]));
       domain[st.name] = v;
