@@ -34,3 +34,10 @@ def parse_plain_number(text: str) -> float | str:
         return "not a number"
     v = float(s)
     return v if math.isfinite(v) else "not a finite number"
+
+
+def percent_text(fraction: float) -> str:
+    """A confidence or assurance given as a fraction, as a percent with the digits it was given with: 0.9 ->
+    '90%', 0.975 -> '97.5%', 0.9999 -> '99.99%' (a whole-percent rounding said 100% there, a certainty nobody
+    asked for). Up to four decimals of a percent."""
+    return f"{round(100 * float(fraction), 4):g}%"

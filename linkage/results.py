@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from linkage import CAUTION
+from linkage.numbers import percent_text
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -322,10 +323,10 @@ def _window_head_lines(d: dict, bound: dict, has_bound: bool) -> list[str]:
 
     por = d["ribbon_porosity"]
     every = every_spec_text(d["not_modelled"])
-    what = (f"the chance that {every} passes together for a lot is at least {d['confidence']:.0%} with "
-            f"{d['assurance']:.0%} assurance over the whole window at once (lower bound over "
+    what = (f"the chance that {every} passes together for a lot is at least {percent_text(d['confidence'])} with "
+            f"{percent_text(d['assurance'])} assurance over the whole window at once (lower bound over "
             f"{bound.get('n_replicates')} lot-level bootstrap replicates of the chain)") if has_bound else \
-        f"the point estimate of the chance that {every} passes together for a lot reaches {d['confidence']:.0%}"
+        f"the point estimate of the chance that {every} passes together for a lot reaches {percent_text(d['confidence'])}"
     lines = [f"Model {d['model_id']}; window where {what}"
              + (f" ({', '.join(d['not_modelled'])}: not predicted from porosity by this model, not judged)"
                 if d["not_modelled"] else "") + ".",
@@ -352,8 +353,8 @@ def _porosity_window_lines(d: dict, has_bound: bool) -> list[str]:
     lines = []
     if not d["found"]:
         lines.append("NO WINDOW: at no porosity in the training range does the "
-                     + (f"lower bound ({d['assurance']:.0%} assurance)" if has_bound else "point estimate")
-                     + f" of the chance of meeting every specification reach {d['confidence']:.0%}.")
+                     + (f"lower bound ({percent_text(d['assurance'])} assurance)" if has_bound else "point estimate")
+                     + f" of the chance of meeting every specification reach {percent_text(d['confidence'])}.")
     else:
         lines.append(f"Porosity window: {por['low']:.3f} – {por['high']:.3f}"
                      + ("" if d.get("promise", True) else " (not promised)"))
@@ -380,7 +381,7 @@ def _roll_force_lines(d: dict, has_bound: bool) -> list[str]:
     lines = []
     if rf.get("low") is not None:
         lines.append(f"Roll force (through the whole chain, ribbon scatter included; every specification at least "
-                     f"{d['confidence']:.0%}" + (f" with {d['assurance']:.0%} assurance" if has_bound else
+                     f"{percent_text(d['confidence'])}" + (f" with {percent_text(d['assurance'])} assurance" if has_bound else
                                                  " by the point estimate") +
                      f"): {rf['low']:.2f} – {rf['high']:.2f} kN/cm")
     elif rf.get("reason"):
@@ -473,9 +474,9 @@ class Window(_Result):
     def __repr__(self) -> str:
         r = self.result
         if not r.found:
-            what = f"no window at {r.confidence:.0%} confidence"
+            what = f"no window at {percent_text(r.confidence)} confidence"
         else:
-            what = (f"ribbon porosity {r.low.value:.3f}–{r.high.value:.3f} at {r.confidence:.0%} confidence "
+            what = (f"ribbon porosity {r.low.value:.3f}–{r.high.value:.3f} at {percent_text(r.confidence)} confidence "
                     f"(low edge: {r.low.limited_by}, high edge: {r.high.limited_by})")
         return (f"<Window {what}; model {r.model_id}" + ("" if r.promise else "; not promised (outside the domain)")
                 + ">")
@@ -563,7 +564,7 @@ def whatif_text(result: WhatIf) -> str:
         every = every_spec_text(d["not_modelled_reasons"])
         if d["promise"]:
             lines.append(f"P({every} passes together): {at_least(bound['low'])} "
-                         f"with {bound['assurance']:.0%} assurance "
+                         f"with {percent_text(bound['assurance'])} assurance "
                          f"(point estimate {probability_text(d['p_pass_all'])})")
         elif d["in_domain"]:
             lines.append(f"No probability of meeting {every} is promised here (no lower bound); the "

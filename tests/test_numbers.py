@@ -44,3 +44,13 @@ def test_the_what_if_refuses_what_the_ingest_refuses():
     with pytest.raises(UsageError, match="another script"):
         parse_assignments(["roll_gap_mm=\u0662"])
     assert parse_assignments(["roll_gap_mm=2.5"]) == {"roll_gap_mm": 2.5}
+
+
+def test_a_confidence_is_written_with_the_digits_it_was_given():
+    """A user test found --confidence 0.9999 written 'at least 100%' (a whole-percent rounding). Python's own
+    '%g' formatting of 100·p (Python Language Reference, format specification mini-language) is the
+    reference: no rounding to a certainty, no trailing zeros."""
+    from linkage.numbers import percent_text
+
+    assert [percent_text(p) for p in (0.9, 0.95, 0.975, 0.9999, 0.5)] == ["90%", "95%", "97.5%", "99.99%", "50%"]
+    assert percent_text(0.9) == f"{0.9:.0%}"  # the usual confidences read as before

@@ -64,6 +64,7 @@ import numpy as np
 from linkage import CAUTION
 from linkage.decide.defaults import MAP_GRID, MAP_X, MAP_Y
 from linkage.exceptions import UsageError
+from linkage.numbers import percent_text
 
 FORCE = MAP_X  # the map's default axes (linkage.decide.defaults)
 GAP = MAP_Y
@@ -420,10 +421,10 @@ def acceptable_ranges(result: SpaceResult) -> dict:
     basis = "lower bound" if result.p_all_low is not None else "point estimate (no lower bound available)"
     if box is None:
         reason = (f"at no grid point inside the applicability domain does the {basis} of P(all pass) "
-                  f"reach {result.confidence:.0%}")
+                  f"reach {percent_text(result.confidence)}")
         if simultaneous:
             reason = (f"no box of grid points inside the applicability domain keeps the band simultaneous over "
-                      f"it at {result.confidence:.0%} or more (lowest {simultaneous['simultaneous_low_min']:.3f})")
+                      f"it at {percent_text(result.confidence)} or more (lowest {simultaneous['simultaneous_low_min']:.3f})")
         return {"found": False, "basis": basis, "reason": reason, **simultaneous}
     r0, r1, c0, c1 = box
     xs, ys = result.xs, result.ys
@@ -467,7 +468,7 @@ def space_text(result: SpaceResult) -> str:
     if result.given:
         lines.append("Given: " + ", ".join(f"{k} = {v:g}" for k, v in result.given.items()))
     if b["available"]:
-        lines.append(f"Lower bound at {result.assurance:.0%} assurance over {b['n_replicates']} lot-level bootstrap "
+        lines.append(f"Lower bound at {percent_text(result.assurance)} assurance over {b['n_replicates']} lot-level bootstrap "
                      "replicates of the chain.")
     else:
         lines.append(f"!! {b['reason']}")
@@ -475,10 +476,10 @@ def space_text(result: SpaceResult) -> str:
     lines.append(f"Inside the applicability domain: {inside} of {n} grid points.")
     for r in result.domain_reasons[:6]:
         lines.append(f"   outside, {r}")
-    lines.append(f"Reaching {result.confidence:.0%} ({'bound' if b['available'] else 'point estimate'}) inside the "
+    lines.append(f"Reaching {percent_text(result.confidence)} ({'bound' if b['available'] else 'point estimate'}) inside the "
                  f"domain: {int(result.region.sum())} of {n} grid points; point estimate anywhere: "
                  f"{int((result.p_all >= result.confidence).sum())}.")
-    lines.append(f"Estimated boundary: where the point estimate crosses {result.confidence:.0%} inside the domain "
+    lines.append(f"Estimated boundary: where the point estimate crosses {percent_text(result.confidence)} inside the domain "
                  f"({int(result.estimated_region.sum())} grid points within it)"
                  + ("; the bound's region inside it is the conservative one." if b["available"] else "."))
     ar = result.ranges
@@ -489,7 +490,7 @@ def space_text(result: SpaceResult) -> str:
         lines.append("Suggested set point (centre of the box): "
                      + ", ".join(f"{k} = {v:.4g} {shown_unit(k)}" for k, v in ar["set_point"].items()))
         if "simultaneous_holds" in ar:
-            lines.append(f"  over the whole box at once (simultaneous band, {result.assurance:.0%} assurance) the "
+            lines.append(f"  over the whole box at once (simultaneous band, {percent_text(result.assurance)} assurance) the "
                          f"lowest bound is {ar['simultaneous_low_min']:.3f}: the box keeps the confidence"
                          + (f" (shrunk from the pointwise bound's box in {ar['shrink_rounds']} round(s))"
                             if ar["shrunk"] else ""))

@@ -60,6 +60,7 @@ from linkage.decide.held import held_point
 from linkage.decide.propagate import fill_settings, mean_passes, pass_matrix, simulate, within
 from linkage.exceptions import UsageError
 from linkage.models.lean import project
+from linkage.numbers import percent_text
 
 POROSITY = "ribbon_porosity"
 FORCE = "roll_force_kn_per_cm"
@@ -596,5 +597,5 @@ def chain_force_range(chain, spec, *, settings: dict[str, float], confidence: fl
         out["reason"] = cp.reason
     else:
         out["reason"] = (f"at no roll force in the training range does the {'lower bound' if p_low is not None else 'point estimate'} "
-                         f"of the chance that a lot passes every specification reach {confidence:.0%}")
+                         f"of the chance that a lot passes every specification reach {percent_text(confidence)}")
     return out

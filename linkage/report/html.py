@@ -49,6 +49,7 @@ import numpy as np
 import pandas as pd
 
 from linkage import CAUTION, __version__
+from linkage.numbers import percent_text
 from linkage.report.templating import Markup, macro, render
 from linkage.report.sheet import JUDGE_TEXT, STYLE as SHEET_STYLE
 
@@ -1039,9 +1040,9 @@ def _window_figures(b, spec, w):
                      p_all_low=w.p_all_low, assurance=w.assurance,
                      p_all_low_pointwise=getattr(w, "p_all_low_pointwise", None)),
              f"Probability that a lot meets {every} together (thick: point estimate solid, lower bound "
-             f"at {w.assurance:.0%} assurance over the whole window dashed; thin dash-dot: the same bound for "
+             f"at {percent_text(w.assurance)} assurance over the whole window dashed; thin dash-dot: the same bound for "
              f"one porosity alone) and each one (thin, point estimates) against "
-             f"ribbon porosity; dashed red: the {w.confidence:.0%} confidence line; shaded: the window; dotted: the "
+             f"ribbon porosity; dashed red: the {percent_text(w.confidence)} confidence line; shaded: the window; dotted: the "
              f"mean-response window.")
     names = list(w.bands)
     if names:
@@ -1055,7 +1056,7 @@ def _window_figures(b, spec, w):
             return fig
 
         b.figure(make, f"Each specified attribute against ribbon porosity: mean prediction through the chain and "
-                       f"the central {w.confidence:.0%} of simulated lots, against its limits (dashed); the window "
+                       f"the central {percent_text(w.confidence)} of simulated lots, against its limits (dashed); the window "
                        f"shaded.", panels=len(names))
 
 
@@ -1242,11 +1243,11 @@ def _card_rows(chain, spec, window) -> list[list]:
             f"{a}: {spec.judge_of(a)}" + ("" if spec.time_point_of(a) is None else f" at {spec.time_point_of(a):g} min")
             for a in spec.limits)])
     if window is not None:
-        rows.append(["window confidence and draws", f"{window.confidence:.0%}, {window.n_draws} draws, seed "
+        rows.append(["window confidence and draws", f"{percent_text(window.confidence)}, {window.n_draws} draws, seed "
                                                     f"{window.seed}"])
         bound = window.bound or {}
         rows.append(["lower bound on the probability",
-                     f"{window.assurance:.0%} assurance, {bound.get('n_replicates')} lot-level bootstrap replicates"
+                     f"{percent_text(window.assurance)} assurance, {bound.get('n_replicates')} lot-level bootstrap replicates"
                      + (f", simultaneous over the window (percentile {100 * bound['simultaneous']['quantile']:.2f})"
                         if bound.get("simultaneous") else "")
                      if bound.get("available") else bound.get("reason") or "none"])

@@ -12,6 +12,7 @@ import numpy as np
 
 from linkage import CAUTION
 from linkage.decide.defaults import MAP_GRID
+from linkage.numbers import percent_text
 
 
 def plot_space(result, lots_x=None, lots_y=None, *, ax=None):
@@ -36,13 +37,13 @@ def plot_space(result, lots_x=None, lots_y=None, *, ax=None):
     if np.nanmin(surface) < result.confidence < np.nanmax(surface):
         ax.contour(X, Y, surface, levels=[result.confidence], colors=[VERMILION], linewidths=2.0)
         handles.append(Line2D([], [], color=VERMILION, linewidth=2.0))
-        labels.append(f"conservative boundary (bound = {result.confidence:.0%})" if result.p_all_low is not None
-                      else f"estimated boundary (P = {result.confidence:.0%})")
+        labels.append(f"conservative boundary (bound = {percent_text(result.confidence)})" if result.p_all_low is not None
+                      else f"estimated boundary (P = {percent_text(result.confidence)})")
     if result.p_all_low is not None and np.nanmin(result.p_all) < result.confidence < np.nanmax(result.p_all):
         ax.contour(X, Y, result.p_all, levels=[result.confidence], colors=[VERMILION], linewidths=1.2,
                    linestyles="--")
         handles.append(Line2D([], [], color=VERMILION, linewidth=1.2, linestyle="--"))
-        labels.append(f"estimated boundary (point estimate = {result.confidence:.0%})")
+        labels.append(f"estimated boundary (point estimate = {percent_text(result.confidence)})")
     mask = result.in_domain.astype(float)
     if 0 < mask.sum() < mask.size:
         ax.contour(X, Y, mask, levels=[0.5], colors=[GREY], linewidths=2.6)
@@ -108,8 +109,8 @@ def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: 
     b.figure(make, f"The {what} of the probability that a lot meets every specification at once "
                  f"({', '.join(r.attributes)}, lot means) over specific roll force and roll gap, through the whole "
                  f"chain; other settings held coherently at each point ({r.held_rule}). Solid line: the {what} "
-                 f"reaches {r.confidence:.0%}"
-                 + (f" ({r.assurance:.0%} assurance, {r.bound['n_replicates']} lot-level bootstrap replicates; the "
+                 f"reaches {percent_text(r.confidence)}"
+                 + (f" ({percent_text(r.assurance)} assurance, {r.bound['n_replicates']} lot-level bootstrap replicates; the "
                     "conservative boundary); dashed: the point estimate does (the estimated boundary, the best "
                     "estimate of the true one)" if r.p_all_low is not None else "")
                  + ". Grey line and hatching: the applicability-domain boundary (Hotelling T², Q and training "

@@ -18,6 +18,8 @@ from pathlib import Path
 
 from markupsafe import Markup
 
+from linkage.numbers import percent_text
+
 __all__ = ["Markup", "render", "macro", "environment", "TEMPLATES"]
 
 #: the template folder, shipped as package data (pyproject.toml)
@@ -40,7 +42,7 @@ def environment():
 
     env = jinja2.Environment(loader=jinja2.FileSystemLoader(TEMPLATES), autoescape=True, finalize=_escaped,
                              undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True)
-    env.filters["percent"] = lambda value: f"{value:.0%}"  # 0.9 -> "90%", as f"{value:.0%}"
+    env.filters["percent"] = percent_text  # 0.9 -> "90%", 0.9999 -> "99.99%" (linkage.numbers.percent_text)
     return env
 
 
