@@ -47,6 +47,7 @@ whose mean porosity does (``mean_low``/``mean_high``).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -210,6 +211,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
                          "for one porosity)")
     produced = set(chain.targets)
     attributes, not_modelled = _window_attributes(chain, spec)
+    check_confidence_supported(lean, [a for a in attributes if a in spec.limits], confidence)
     lo, hi = (float(v) for v in chain.training["ranges"][POROSITY])
     grid = np.linspace(lo, hi, n_grid)
 
@@ -299,6 +301,32 @@ def _window_attributes(chain, spec) -> tuple[list[str], list[str]]:
                          f"(spec names {', '.join(spec.limits)}; the chain predicts "
                          f"{', '.join(sorted(set(chain.targets)))})")
     return attributes, not_modelled
+
+
+def check_confidence_supported(lean, attributes, confidence: float) -> None:
+    """Refuse a confidence the lots cannot show. A probability of passing is summed over the attribute's
+    out-of-fold residuals, one a lot; with n of them, a new lot's residual lies beyond all n with probability
+    1/(n + 1) (exchangeable residuals; the rank argument of conformal prediction, Vovk, Gammerman & Shafer
+    2005, ch. 2; the level limit of the CV+ interval, Barber et al. 2021, Ann. Statist. 49:486), so no
+    probability above n/(n + 1) can be told from 1 on these lots: a window "at 99.99 %" on 48 lots would be
+    where every residual passes, a claim the lots do not hold. The limit is the attribute with the fewest
+    residual lots among those judged."""
+    worst = None
+    for stage in lean.stages:
+        for name in stage.targets:
+            if name in attributes:
+                n = int(np.isfinite(stage.residual_column(name)).sum())
+                if worst is None or n < worst[1]:
+                    worst = (name, n)
+    if worst is None:
+        return
+    name, n = worst
+    most = n / (n + 1)
+    if confidence > most:
+        raise UsageError(f"--confidence {confidence:g} asks more than the lots can show: {name} has out-of-fold "
+                         f"residuals on {n} lots, and a probability above n/(n + 1) = {most:.4f} cannot be told "
+                         f"from 1 on them (a new lot falls beyond all {n} with probability 1/(n + 1)); use a "
+                         f"confidence of at most {math.floor(most * 1e4) / 1e4:g}, or add lots")
 
 
 def _point_scan(chain, spec, draws, grid, attributes: list[str], limited: list[str], seed: int):

@@ -1,0 +1,34 @@
+"""A confidence the lots cannot show is refused (a user test asked for a window at 99.99 % on 48 lots and got
+one: where every residual passes).
+
+Reference: with n exchangeable out-of-fold residuals, a new lot's residual lies beyond all n with probability
+1/(n + 1) (the rank argument of conformal prediction: Vovk, Gammerman & Shafer 2005, *Algorithmic Learning in a
+Random World*, ch. 2; the level limit of CV+, Barber et al. 2021, Ann. Statist. 49:486), so n/(n + 1) is the
+highest probability the residuals can tell from 1. n is counted here from the training table itself (lots with
+a value of the attribute), not from the model.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from linkage.exceptions import UsageError
+from tests.decide.test_plan import campaign  # noqa: F401 - its 30-lot campaign fixture, shared
+
+
+def test_a_confidence_above_n_over_n_plus_1_is_refused_by_window_and_map(campaign):
+    from linkage.decide.space import design_space
+    from linkage.decide.window import check_confidence_supported, find_window
+    from linkage.models.lean import as_lean
+
+    chain, table, spec = campaign
+    judged = [a for a in spec.limits if a in chain.targets]
+    n = min(int(table[a].notna().sum()) for a in judged)  # lots with a value of each judged attribute
+    most = n / (n + 1)
+    with pytest.raises(UsageError, match=rf"residuals on {n} lots, and a probability above n/\(n \+ 1\) = "
+                                         rf"{most:.4f}"):
+        find_window(chain, spec, confidence=most + 1e-4, n_draws=200)
+    with pytest.raises(UsageError, match="asks more than the lots can show"):
+        design_space(chain, spec, confidence=most + 1e-4, n_grid=3)
+    check_confidence_supported(as_lean(chain), judged, most)  # n/(n + 1) itself is allowed
+    assert find_window(chain, spec, confidence=0.9, n_draws=200).confidence == 0.9  # the default still runs
