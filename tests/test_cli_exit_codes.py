@@ -269,3 +269,24 @@ def test_a_disk_that_refuses_the_write_exits_5(tmp_path, monkeypatch):
     assert f"Error: cannot read or write {out}: {os.strerror(errno.ENOSPC)}" in r.stderr
     assert "Traceback" not in r.output
     assert sorted(p.name for p in tmp_path.iterdir()) == before  # no table, no temporary file
+
+
+@pytest.mark.slow
+def test_demo_whose_progress_reader_stops_still_writes_everything(tmp_path):
+    """``linkage demo 2>&1 | head -2``: the progress lines meet a closed pipe; the demo must still write every
+    file and record before it ends with code 0 (a second user test found it stopped after the ingest, exit 0).
+    A behaviour of this project: no outside source."""
+    import os
+    import subprocess
+    import sys
+
+    env = {k: v for k, v in os.environ.items() if k not in ("LINKAGE_STORE", "LINKAGE_MODELS_DIR")}
+    env["PYTHONPATH"] = str(ROOT)
+    out = tmp_path / "demo"
+    proc = subprocess.Popen([sys.executable, "-m", "linkage", "demo", "--out", str(out)], stdout=subprocess.PIPE,
+                            stderr=subprocess.STDOUT, env=env)
+    proc.stdout.close()
+    assert proc.wait(timeout=600) == 0
+    for name in ("demo-lots.db", "assembled.csv", "window.json", "whatif.html", "report.html", "spec.toml"):
+        assert (out / name).is_file(), name
+    assert any((out / "models").iterdir())

@@ -38,6 +38,31 @@ def models_dir_option(f):
     )(f)
 
 
+def tell_progress(message: str) -> None:
+    """A progress line on stderr that never stops the work: where stderr's reader has stopped reading
+    (``linkage demo 2>&1 | head -2``), the line is dropped and the work goes on, so that every file and record
+    is written before the command ends (its exit code 0 says so)."""
+    if _progress_silenced:
+        return
+    try:
+        click.echo(message, err=True)
+    except BrokenPipeError:
+        _silence_progress()
+
+
+#: set once stderr's reader has stopped reading: later progress is not written
+_progress_silenced: list[bool] = []
+
+
+def _silence_progress() -> None:
+    _progress_silenced.append(True)
+    try:  # later writes to stderr (Python's own flush at exit included) go nowhere instead of failing
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stderr.fileno())
+    except (AttributeError, OSError, ValueError):  # a stderr without a file descriptor (a test's buffer)
+        pass
+
+
 @contextlib.contextmanager
 def progress_bars(title: str | None = None):
     """A ``progress(label, done, total)`` callback for the library's long
@@ -53,6 +78,14 @@ def progress_bars(title: str | None = None):
             bars[key].__exit__(None, None, None)
 
     def progress(label: str, done: int, total: int) -> None:
+        if _progress_silenced:  # stderr's reader stopped reading: the work goes on without bars
+            return
+        try:
+            draw(label, done, total)
+        except BrokenPipeError:
+            _silence_progress()
+
+    def draw(label: str, done: int, total: int) -> None:
         key = title or label
         if key not in bars:
             bars[key] = click.progressbar(length=total, label=title or f"  {label}", file=sys.stderr)
@@ -68,7 +101,10 @@ def progress_bars(title: str | None = None):
         yield progress
     finally:
         for key in list(open_):
-            close(key)
+            try:
+                close(key)
+            except BrokenPipeError:
+                _silence_progress()
 
 
 def json_option(f):
@@ -116,7 +152,8 @@ def _stop_quietly() -> None:
     point stdout at devnull, so that the flush at interpreter exit cannot raise a second BrokenPipeError.
     Its recipe exits 1; we exit 0, since code 1 means a bug here (README, "Exit codes") and the reader
     chose to stop (a pipeline's status is its last command's anyway). Every command writes its files
-    and records before it prints, so nothing is left undone when the output is cut short."""
+    and records before it prints its result, and its progress lines never stop it (:func:`tell_progress`,
+    :func:`progress_bars`), so nothing is left undone when the output is cut short."""
     try:
         devnull = os.open(os.devnull, os.O_WRONLY)
         os.dup2(devnull, sys.stdout.fileno())

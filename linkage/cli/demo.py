@@ -7,7 +7,7 @@ from pathlib import Path
 import click
 
 from linkage import CAUTION
-from linkage.cli.common import check_output, handle_errors, progress_bars
+from linkage.cli.common import check_output, handle_errors, progress_bars, tell_progress
 
 
 @click.command()
@@ -30,7 +30,7 @@ def demo(out):
 
     check_output(out, folder=True)
     with progress_bars() as progress:
-        result = run_demo(out, step=lambda m: click.echo(f"- {m}", err=True), progress=progress)
+        result = run_demo(out, step=lambda m: tell_progress(f"- {m}"), progress=progress)
     click.echo("")
     click.echo(f"lot store       {result.store}")
     click.echo(f"assembled table {result.assembled}")
