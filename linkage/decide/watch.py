@@ -223,7 +223,8 @@ def mewma_look(chain, charts: dict[str, AttributeChart], new_lots: list[str]) ->
         return None
     names = list(charts)
     corr = residual_correlation(chain, names)
-    d = design(len(names), n_ref=min(c.reference.n for c in charts.values()))
+    n_ref = min(c.reference.n for c in charts.values())
+    d = stated_reference(design(len(names), n_ref=n_ref), n_ref)
     order = [lot for lot in dict.fromkeys(lot for c in charts.values() for lot in c.lots) if lot in set(new_lots)]
     x = standardised_residuals(charts, order)
     have = x.notna().any(axis=1).to_numpy()
@@ -237,6 +238,21 @@ def mewma_look(chain, charts: dict[str, AttributeChart], new_lots: list[str]) ->
                             + ", ".join(f"{names[j]} EWMA {row[j]:+.1f} SD" for j in top))
     return {"design": dict(d), "attributes": names, "correlation": corr.tolist(), "lots": list(x.index),
             "t2": [float(v) for v in t2], "h": d["h"], "signals": signals}
+
+
+def stated_reference(d: dict, n_lots: int) -> dict:
+    """The design with the training lots it rests on stated as they are (``n_reference_lots``). A design is
+    simulated from at least p + 3 lots (:func:`linkage.decide.mewma.design`: fewer give no invertible
+    correlation of p attributes); where the training lots are fewer, the words say so instead of naming the
+    simulation's count as the lots' (a second user test read "estimated from 11 training lots" on 7)."""
+    simulated = d.get("n_reference")
+    out = {**d, "n_reference_lots": int(n_lots)}
+    if simulated is not None and n_lots < simulated:
+        out["parameters"] = (f"estimated from {n_lots} training lots; the limit is simulated as if from "
+                             f"{simulated}, the fewest from which the correlation of {d['attributes']} attributes "
+                             "can be estimated and inverted, so the false-alarm rate stated is optimistic for "
+                             "these lots")
+    return out
 
 
 def design_lines(mewma: dict | None) -> list[str]:

@@ -66,3 +66,17 @@ def test_watch_names_a_training_lot_revised_after_training(tmp_path):
     notes = lab.retrain(force=True, reason="test").to_dict()["notes"]
     assert any(n.startswith(f"1 of the champion's training lots were revised after it was trained ({lot} revision 2)")
                for n in notes)
+
+
+def test_the_watch_states_the_training_lots_its_design_rests_on():
+    """A design simulated from p + 3 lots where the model had fewer says so, and names the lots there are
+    (no outside reference: wording; the p + 3 floor is linkage.decide.mewma.design's, below which a p-attribute
+    correlation estimated from the lots cannot be inverted)."""
+    from linkage.decide.watch import stated_reference
+
+    d = {"attributes": 8, "n_reference": 11, "parameters": "estimated from 11 training lots (…)"}
+    few = stated_reference(d, 7)
+    assert few["n_reference_lots"] == 7 and few["parameters"].startswith("estimated from 7 training lots; the "
+                                                                         "limit is simulated as if from 11")
+    many = stated_reference({**d, "n_reference": 40, "parameters": "estimated from 40 training lots (…)"}, 40)
+    assert many["parameters"] == "estimated from 40 training lots (…)" and many["n_reference_lots"] == 40
