@@ -22,6 +22,8 @@ class VerifyResult:
     models_unregistered: list[str] = field(default_factory=list)
     #: why the registry was not checked (None when it was)
     models_not_checked: str | None = None
+    #: what the check of the store could not cover (e.g. no anchor file: the removal of the newest records)
+    store_cautions: list[str] = field(default_factory=list)
 
     @property
     def ok(self) -> bool:
@@ -31,7 +33,7 @@ class VerifyResult:
         return {"ok": self.ok, "store": self.store, "models_dir": self.models_dir, "store_checked": self.store_counts,
                 "models_checked": self.models_checked, "store_problems": self.store_problems,
                 "model_problems": self.model_problems, "models_unregistered": self.models_unregistered,
-                "models_not_checked": self.models_not_checked}
+                "models_not_checked": self.models_not_checked, "store_cautions": self.store_cautions}
 
     def __repr__(self) -> str:
         verdict = "whole" if self.ok else f"{len(self.store_problems) + len(self.model_problems)} problem(s)"
@@ -81,6 +83,7 @@ def verify_record(store: Path | None, models_dir: Path | None, *, registry_requi
         try:
             with LotStore(store, create=False) as lot_store:
                 result.store_counts = lot_store.check_seals(full=True)
+            result.store_cautions = _anchor_cautions(Path(store), result.store_counts)
         except StoreIntegrityError as exc:
             result.store_problems = [line.strip().removeprefix("- ") for line in str(exc).splitlines()[1:]] or [
                 str(exc)]
@@ -102,3 +105,18 @@ def verify_record(store: Path | None, models_dir: Path | None, *, registry_requi
             except ModelIntegrityError as exc:
                 result.model_problems.append(f"{model_id}: {exc}")
     return result
+
+
+def _anchor_cautions(store: Path, counts: dict) -> list[str]:
+    """A store with seals but no anchor file beside it (``<store>.seal``, :mod:`linkage.seal`): the removal of
+    its newest records cannot be told from the store alone. Not a mismatch (a store copied without its anchor
+    reads the same), so said as a caution rather than a failure (a second user test deleted the anchor and the
+    newest records, and verify said everything matched)."""
+    from linkage.seal import anchor_path, read_anchor
+
+    newest = (counts or {}).get("newest seal") or {}
+    if read_anchor(store) is not None or not newest.get("id"):
+        return []
+    return [f"no anchor file {anchor_path(store)}: the removal of the newest records cannot be detected from the "
+            f"store alone; compare the newest seal's hash (seal {newest.get('id')}, sha256 {newest.get('sha256')}) "
+            "with the one recorded outside the store (the batch record)"]

@@ -273,7 +273,10 @@ def verify(ctx, store, models_dir, as_json):
             click.echo(f"  store: {p}", err=True)
         for p in result.model_problems:
             click.echo(f"  model: {p}", err=True)
-        click.echo("Everything matches its seals and hashes." if result.ok else "The record is NOT whole.")
+        for p in result.store_cautions:
+            click.echo(f"  caution, store: {p}", err=True)
+        click.echo(("Everything matches its seals and hashes." + (" (see the caution above)" if result.store_cautions
+                                                                 else "")) if result.ok else "The record is NOT whole.")
     if result.store_problems:
         raise SystemExit(6)
     if result.model_problems:

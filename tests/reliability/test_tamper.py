@@ -270,3 +270,22 @@ def test_random_bytes_in_the_middle_of_the_store_stop_every_command_without_a_tr
     assert (assemble.exit_code != 0 and "Error:" in assemble.stderr) or assemble.output == whole
     assert store.read_bytes() == damaged
     counts["tamper cases detected"] += 1
+
+
+def test_removing_the_newest_records_and_the_anchor_is_said_to_be_beyond_the_store(store, counts):
+    """The anchor file removed with the newest records: the store alone cannot tell (the limit stated in
+    linkage.seal's notes), so verify says so as a caution naming the newest seal's hash to compare with the batch
+    record, rather than a plain 'Everything matches' (a second user test)."""
+    con = sqlite3.connect(store)
+    newest = con.execute("SELECT id FROM audit ORDER BY id DESC LIMIT 1").fetchone()[0]
+    con.close()
+    _behind_the_back(store, "DELETE FROM seals WHERE id = (SELECT MAX(id) FROM seals)",
+                     f"DELETE FROM audit WHERE id = {newest}")
+    seal.anchor_path(store).unlink()
+    result = run_cli(["verify", "--store", store])
+    assert result.exit_code == 0
+    assert f"caution, store: no anchor file {seal.anchor_path(store)}" in result.stderr
+    assert "(see the caution above)" in result.stdout
+    as_json = json.loads(run_cli(["verify", "--store", store, "--json"]).stdout)
+    assert as_json["ok"] is True and as_json["store_cautions"][0].startswith("no anchor file")
+    counts["tamper cases detected"] += 1
