@@ -835,7 +835,9 @@
   };
   const num = (v, d = 4) => (v === null || v === undefined ? "–" : !Number.isFinite(v) ? (v > 0 ? "∞" : "−∞") : fmt(Number(v.toPrecision(d))));
   const pct = (v) => (v === null || v === undefined || Number.isNaN(v) ? "–"
-    : v > 0.999 && v < 1 ? "> 99.9 %" : v > 0 && v < 0.001 ? "< 0.1 %" : (100 * v).toFixed(1) + " %");
+    : v > 0.999 ? "> 99.9 %" : v < 0.001 ? "< 0.1 %" : (100 * v).toFixed(1) + " %");
+  // an assurance or confidence as a percent with the digits given (linkage.numbers.percent_text): 0.9 -> "90 %"
+  const share = (v) => `${+(100 * v).toFixed(4)} %`;
   // a lower bound in words, as sheet.at_least writes it: never "at least < 0.1 %" or "at least > 99.9 %"
   const atLeast = (v) => { const t = pct(v); return t.startsWith(">") ? t
     : t.startsWith("<") ? `under ${t.slice(1).trim()} at its lower bound` : `at least ${t}`; };
@@ -845,7 +847,7 @@
     app.append(el("h1", { text: "What-if, model " + M.model_id }));
     const meta = el("p", { class: "meta" });
     meta.textContent = `Model ${M.model_id} (trained ${M.created_at}); intervals at ${(100 * M.level).toFixed(0)} %; ` +
-      `lower bounds at assurance ${M.assurance}; ${N} Monte Carlo draws, seed ${M.seed}. ` +
+      `lower bounds at assurance ${share(M.assurance)}; ${N} Monte Carlo draws, seed ${M.seed}. ` +
       (M.spec ? `Spec ${M.spec.file || ""} (SHA-256 ${(M.spec.sha256 || "").slice(0, 12)}…): ` +
         Object.entries(M.spec.attributes).map(([a, s]) => `${a} ${s.limits}${s.judge !== "mean" ? " (" + s.judge + ")" : ""}`).join("; ")
         : "No spec given: no probability of passing.");
@@ -933,7 +935,7 @@
     sec.append(el("h2", { text: "Predicted" }));
     const t = el("table", { class: "predictions" });
     t.append(el("tr", {}, ...["attribute", "predicted", `${(100 * M.level).toFixed(0)} % interval`, "limits", "P(pass)",
-      `at least (assurance ${M.assurance})`, "model", "interval"].map((h) => el("th", { text: h }))));
+      `at least (assurance ${share(M.assurance)})`, "model", "interval"].map((h) => el("th", { text: h }))));
     for (const [name, p] of Object.entries(r.predictions)) {
       const lim = p.limits ? [p.limits.min !== null ? "≥ " + fmt(p.limits.min) : "", p.limits.max !== null ? "≤ " + fmt(p.limits.max) : ""].filter(Boolean).join(", ") : "";
       const tr = el("tr", { "data-attribute": name }, el("td", { text: name + (M.units[name] && !NOT_UNITS.has(M.units[name]) ? ` [${M.units[name]}]` : "") }),
@@ -948,7 +950,7 @@
     sec.append(t);
     const b = r.p_pass_all_bound;
     sec.append(el("p", { class: "all", id: "p-all", text: r.p_pass_all === null ? "No spec: no probability of passing." :
-      `P(all pass) ${pct(r.p_pass_all)}; ${atLeast(b.low)} with assurance ${b.assurance}` + (b.reason ? ` (${b.reason})` : "") }));
+      `P(all pass) ${pct(r.p_pass_all)}; ${atLeast(b.low)} with assurance ${share(b.assurance)}` + (b.reason ? ` (${b.reason})` : "") }));
     renderWindow(r);
     const dsec = document.getElementById("domain");
     dsec.textContent = "";

@@ -315,6 +315,8 @@ def test_the_page_renders_and_prints_on_one_page(opened, tmp_path):
 
     assert CAUTION in text and opened.evaluate("window.linkageModel.model_id") in text
     assert "spec.toml" in text
+    # the assurance as the sheet and predict write it, a percent (a second user test read "assurance 0.9")
+    assert "assurance 90 %" in text and "assurance 0.9" not in text
 
 
 # ---------------------------------------------------------------------------
