@@ -901,7 +901,10 @@ def _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list,
     order = np.random.default_rng([seed, 2]).permutation(len(chosen))  # the run order, randomised
     ids = _lot_ids(prefix, len(chosen), taken=table["lot"].astype(str).tolist() if "lot" in table else ())
     picked = [chosen[i] for i in order]
-    planned = [{**{k: float(np.round(cand[k][c], DECIMALS)) for k in inputs}, **held} for c, _ in picked]
+    # the settings as they will be run and written to the batch record: DECIMALS places, held ones too (a held
+    # conditional mean was written 13.841666666666669)
+    held_run = {k: float(np.round(v, DECIMALS)) for k, v in held.items()}
+    planned = [{**{k: float(np.round(cand[k][c], DECIMALS)) for k in inputs}, **held_run} for c, _ in picked]
     verdicts = chain_domain(lean, planned)
     lots = []
     for run, ((c, top), values, (inside_all, reasons)) in enumerate(zip(picked, planned, verdicts)):

@@ -137,3 +137,18 @@ def test_the_planned_lots_take_the_one_product_the_model_was_trained_on(campaign
     assert plan.product == "QX-1 50 mg" and set(plan.tables()["process"]["product"]) == {"QX-1 50 mg"}
     assert augment_design(one, table, spec, 2, settings=held, seed=1, product="QX-9").product == "QX-9"
     assert augment_design(several, table, spec, 2, settings=held, seed=1).product is None
+
+
+def test_held_settings_are_written_to_the_plan_as_run_at_three_decimals(campaign):
+    """A setting held at its conditional mean was written 13.841666666666669 into the plan's tablets table (a
+    second user test); every planned setting is written to 3 decimals (plan.DECIMALS), as the planned ones are.
+    Reference: Python's round-half-even of numpy.round."""
+    import numpy as np
+
+    from linkage.decide.plan import DECIMALS, augment_design
+
+    chain, table, spec = campaign
+    plan = augment_design(chain, table, spec, 2, settings={"mill_screen_mm": 1.0}, seed=1)
+    for lot in plan.lots:
+        for name, value in lot.settings.items():
+            assert value == float(np.round(value, DECIMALS)), (name, value)
