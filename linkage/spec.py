@@ -234,7 +234,8 @@ def _parse(data: dict, file: str, text: str) -> Spec:
             av_max = _parse_acceptance_value(table, bad)
             continue
         if attr not in QUALITY_ATTRIBUTES:
-            bad(attr, f"unknown quality attribute [{attr}]{_suggest(attr)}; valid: {', '.join(QUALITY_ATTRIBUTES)}")
+            bad(attr, f"unknown quality attribute [{attr}]{_suggest(attr)}; valid: {', '.join(QUALITY_ATTRIBUTES)}; "
+                      f"and [{ACCEPTANCE_VALUE}] for the USP <905> acceptance value (max = L1)")
             continue
         if not isinstance(table, dict):
             bad(attr, f"'{attr}' must be a table: [{attr}] with min and/or max", table)

@@ -112,6 +112,7 @@ def test_all_problems_of_a_spec_at_once(tmp_path):
         read_spec(spec_file(tmp_path, "[porosity]\nmax = 1\n[fines_pct]\nmin = 5\nmax = 2\n"))
     assert [p.column for p in exc.value.problems] == ["porosity", "fines_pct"]
     assert "valid: " + ", ".join(QUALITY_ATTRIBUTES) in exc.value.problems[0].rule
+    assert "[acceptance_value] for the USP <905> acceptance value" in exc.value.problems[0].rule  # its own table
 
 
 def test_invalid_toml_and_missing_file(tmp_path):
