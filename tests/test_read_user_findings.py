@@ -200,3 +200,45 @@ def test_a_refused_process_lot_cell_does_not_make_its_results_unknown(tmp_path):
     row = _rows_of(process, "EX-001")[0]
     _edit(process, row, "EX-001", "EX-001\u200b")
     assert _refused(folder) == [("process.csv", row, "lot")]
+
+
+# --------------------------------------------------------------------------- 1b. a word added is no misspelling
+
+_PROCESS_HEAD = "lot,roll_force_kn_per_cm,roll_gap_mm,roll_speed_rpm,screw_speed_rpm,mill_screen_mm"
+
+
+def _one_extra(tmp_path: Path, name: str) -> Path:
+    """A process or tablets file with one extra column ``name``, the template column it is near left out."""
+    if name in ("compactor_id", "roll_diamter_mm"):
+        path, head, row = tmp_path / "process.csv", _PROCESS_HEAD, "A1,8,2,5,30,1"
+    else:
+        path, head, row = tmp_path / "tablets.csv", "lot,compression_force_kn", "A1,10"
+    path.write_text(f"{head},{name}\n{row},1\n")
+    return path
+
+
+@pytest.mark.parametrize("name, template", [("compactor_id", "compactor"),
+                                            ("breaking_force_sd_n", "breaking_force_n"),
+                                            ("dissolution_pct_15", "dissolution_pct"),
+                                            ("weight_sd_pct", "weight_rsd_pct")])
+def test_real_extra_columns_near_a_template_name_are_kept(tmp_path, name, template):
+    """A second user test: real extra columns (the compactor's id, the SD of the breaking force, dissolution at
+    15 min, the weight SD) were refused as misspellings of the template column the file lacked, difflib's
+    ratio of the whole names being above the cutoff. A word added ('id', 'sd', '15') names another quantity,
+    and SD is not RSD. A regression test of a refusal: no outside source."""
+    assert difflib.SequenceMatcher(None, name, template).ratio() >= MISSPELLING_CUTOFF  # the case that was refused
+    df = read_table(_one_extra(tmp_path, name))
+    assert df.loc[0, name] == 1.0
+
+
+@pytest.mark.parametrize("name, template", [("friabilty_pct", "friability_pct"),
+                                            ("roll_diamter_mm", "roll_diameter_mm"),
+                                            ("breaking_forse_n", "breaking_force_n"),
+                                            ("weight_rsd_pc", "weight_rsd_pct")])
+def test_slips_inside_the_words_of_a_template_name_are_refused(tmp_path, name, template):
+    """The slips beside the real extra columns above: a letter left out or replaced inside one word, as many
+    words as the template name. A regression test of a refusal: no outside source."""
+    with pytest.raises(InputError) as exc:
+        read_table(_one_extra(tmp_path, name))
+    [problem] = exc.value.problems
+    assert problem.column == name and f"did you mean '{template}'?" in problem.rule

@@ -29,9 +29,10 @@ Text and cells
 - Headers are trimmed, runs of spaces become one, and a header that matches a
   template name in another case (``Lot``) is that column. Columns not in the
   template are kept as extra columns: numeric where every value is a number,
-  text otherwise. A header that is nearly the name of a template column the
-  file lacks (difflib ratio at least ``table.MISSPELLING_CUTOFF``) is refused
-  as a misspelling, "did you mean ...?"; map it in ``columns.toml`` with
+  text otherwise. A header that is a misspelling of a template column the
+  file lacks (difflib ratio at least ``table.MISSPELLING_CUTOFF`` and a change
+  inside its words, never a word added: ``table._misspelling_of``) is refused,
+  "did you mean ...?"; map it in ``columns.toml`` with
   ``extra = true`` to keep it as an extra column.
 - A cell that is empty or one of ``schema.MISSING_TOKENS`` (``NA``, ``n/a``,
   ``-`` ..., any case) is missing.

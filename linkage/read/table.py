@@ -7,6 +7,7 @@ import difflib
 import gc
 import itertools
 import math
+import re
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -165,14 +166,61 @@ def _require_columns(label: str, tdef: Table, targets: list[Target], unit_header
 #: doubled, swapped or replaced) of a template name of six or more characters scores at least 0.83; headers of
 #: real extra columns score below: 'operator' against 'compactor' 0.71, 'sampled_by' against 'sampled_at' 0.80,
 #: 'ribbon_tensile_mpa' against 'ribbon_thickness_mm' 0.65 (common practice, no source). Stricter than the 0.6
-#: of the did-you-mean hints, which only suggest: this one refuses a file.
+#: of the did-you-mean hints, which only suggest: this one refuses a file. Closeness alone is not enough: see
+#: ``_misspelling_of``.
 MISSPELLING_CUTOFF = 0.81
+
+#: how close (difflib's ratio) a word of the header must be to the word of the template name in its place to be
+#: a slip of it: 'friabilty'/'friability' 0.95, 'diamter'/'diameter' 0.93, 'pc'/'pct' 0.80; 'by'/'at' 0
+#: (common practice, no source).
+WORD_CUTOFF = 0.75
+
+#: names of a statistic: a word of the header and the template word in its place that are both in this set name
+#: two quantities ('weight_sd_pct' is not 'weight_rsd_pct', 'd50_max' not 'd50_min'), never a slip of one another,
+#: however close they are spelt ('sd'/'rsd' 0.80, as close as the slip 'pc'/'pct').
+STATISTIC_WORDS = frozenset({"sd", "rsd", "cv", "se", "sem", "var", "mean", "avg", "median", "min", "max", "iqr",
+                             "range"})
+
+
+def _words(name: str) -> list[str]:
+    return [w for w in re.split(r"[_\s]+", name.lower()) if w]
+
+
+def _misspelling_of(header: str, template: str) -> bool:
+    """Whether ``header`` (an extra column's) is taken for a misspelling of the template name ``template``.
+
+    A misspelling is a change *inside* the name's underscore-separated words, never a word added: a header with
+    a word more than the template name ('compactor_id', 'breaking_force_sd_n', 'dissolution_pct_15') names
+    another quantity and is kept as an extra column. Refused are headers whose whole name is close (difflib's
+    ratio at least ``MISSPELLING_CUTOFF``) and that either
+
+    - have as many words as the template name, each word equal to the template's word in its place or a slip of
+      it (ratio at least ``WORD_CUTOFF``, and not two names of a statistic such as 'sd' and 'rsd'):
+      'friabilty_pct', 'roll_diamter_mm', 'dissolution_pc'; or
+    - are the template name with words left out, in order (the unit dropped: 'Friability' for
+      'friability_pct'), which says the same quantity with less; or
+    - are the template name with its underscores moved or dropped ('friabilitypct').
+    """
+    h, t = header.lower(), template.lower()
+    if difflib.SequenceMatcher(None, h, t).ratio() < MISSPELLING_CUTOFF:
+        return False
+    hw, tw = _words(h), _words(t)
+    if "".join(hw) == "".join(tw):
+        return True
+    if len(hw) == len(tw):
+        return all(a == b or (difflib.SequenceMatcher(None, a, b).ratio() >= WORD_CUTOFF
+                              and not (a in STATISTIC_WORDS and b in STATISTIC_WORDS))
+                   for a, b in zip(hw, tw))
+    if len(hw) < len(tw):
+        rest = iter(tw)
+        return all(w in rest for w in hw)  # hw a subsequence of tw
+    return False
 
 
 def _near_template_names(label: str, tdef: Table, targets: list[Target], unit_headers: set[str], hinted: set[str],
                          problems: list[Problem]) -> None:
-    """An extra column whose header is close to a template column the file does not have: refused as a
-    misspelling (else the attribute would be read as empty and the header kept as a new column). A header
+    """An extra column whose header is a misspelling (``_misspelling_of``) of a template column the file does
+    not have: refused (else the attribute would be read as empty and the header kept as a new column). A header
     mapped in columns.toml (``extra = true``) is kept as it is, and one already named as the hint of a missing
     required column is not reported twice."""
     present = {t for _, t, _, _ in targets}
@@ -182,12 +230,14 @@ def _near_template_names(label: str, tdef: Table, targets: list[Target], unit_he
     for _, target, shown, cmap in targets:
         if target in tdef.names or cmap is not None or shown in hinted:
             continue
-        hint = _suggest(shown.lower(), lacking, cutoff=MISSPELLING_CUTOFF)
-        if hint:
+        meant = [n for n in lacking if _misspelling_of(shown, n)]
+        if meant:
+            near = max(meant, key=lambda n: difflib.SequenceMatcher(None, shown.lower(), n).ratio())
             problems.append(Problem(label, f"header '{shown}' is not a template column of {tdef.name} but nearly "
-                                           f"the name of one the file lacks{hint}; name the column as the template "
-                                           f"does, or to keep it as an extra column map it in {MAPPING_FILE} "
-                                           f"(\"{shown}\" = {{ extra = true }})", row=1, column=shown))
+                                           f"the name of one the file lacks (did you mean '{near}'?); name the "
+                                           f"column as the template does, or to keep it as an extra column map "
+                                           f"it in {MAPPING_FILE} (\"{shown}\" = {{ extra = true }})",
+                                    row=1, column=shown))
 
 
 @dataclass
