@@ -573,11 +573,14 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
                 seed: int = 0, product: str | None = None, assurance: float = 0.9) -> list[WhatIfResult]:
     """One what-if per row (``linkage predict --from-csv``): ``rows`` is a
     list of {name: value} dicts, a DataFrame whose columns are names, or the
-    path of such a CSV (whose optional ``lot`` column names each row's lot).
+    path of such a CSV, or such a file read by :func:`linkage.decide.whatif.read_rows`
+    (whose optional ``lot`` and ``product`` columns name each row's lot and
+    product; template columns that are no name of the model and empty in
+    every row are ignored and listed in its ``ignored``).
     Every row is checked before any is predicted, and every problem of the
     rows is raised at once (``InputError``: file, row, column, value, rule).
     ``lots`` gives each row's lot (one lot for all when a single string)."""
-    from linkage.decide.whatif import predict_many, read_rows
+    from linkage.decide.whatif import CsvRows, predict_many, read_rows
     from linkage.lotid import reader_spelling
 
     if isinstance(lots, str):
@@ -585,6 +588,7 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
     csv_lots: list[str | None] | None = None
     if isinstance(rows, (str, Path)):
         rows = read_rows(rows)
+    if isinstance(rows, CsvRows):  # its blank template columns ignored are listed in rows.ignored
         csv_lots = rows.lots
     else:
         rows = rows if hasattr(rows, "to_dict") else list(rows)

@@ -78,7 +78,9 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, assuranc
 @click.option("--level", type=PROBABILITY, default=None,
               help="Interval level (default: the model's nominal coverage).")
 @click.option("--from-csv", "from_csv", type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="Predict every row of a CSV whose columns are names.")
+              help="Predict every row of a CSV whose columns are names (any case), with optional 'lot' and "
+                   "'product' columns; template columns that are not names of the model are ignored when empty in "
+                   "every row (plan's process.csv), refused otherwise.")
 @click.option("--html", "html_path", type=click.Path(dir_okay=False, path_type=Path),
               help="Write a one-page what-if sheet (one row only).")
 @click.option("--page", "page_path", type=click.Path(dir_okay=False, path_type=Path),
@@ -145,8 +147,14 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
             raise UsageError("give either --set or --from-csv, not both")
         if html_path is not None:
             raise UsageError("--html writes one sheet for one what-if; use it without --from-csv")
-        results = whatif_rows(from_csv, lots=lot, spec=spec, store=store, models_dir=models_dir, model=model_id,
+        from linkage.decide.whatif import read_rows
+
+        rows = read_rows(from_csv)
+        results = whatif_rows(rows, lots=lot, spec=spec, store=store, models_dir=models_dir, model=model_id,
                               level=level, seed=seed, product=product, assurance=assurance)
+        if rows.ignored:
+            click.echo(f"Note: {from_csv.name}: {', '.join(rows.ignored)} ignored: template column(s) that are no "
+                       "input or attribute of the model, empty in every row", err=True)
     else:
         if not values:
             raise UsageError("nothing to predict from: give --set NAME=VALUE (or --from-csv)")

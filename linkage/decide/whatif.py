@@ -453,18 +453,34 @@ def predict_many(chain, rows, **kwargs) -> list[WhatIf]:
         records_in = rows.to_dict(orient="records") if hasattr(rows, "to_dict") else list(rows)
         source, header_row, numbers, problems = "rows", 1, list(range(2, len(records_in) + 2)), []
     names = valid_names(chain)
-    unknown = list(dict.fromkeys(str(k).strip() for rec in records_in for k in rec if str(k).strip() not in names))
-    problems += [Problem(source, f"unknown name; valid names are: {', '.join(names)}", row=header_row, column=n)
+    by_case = {n.lower(): n for n in names}  # a name in any case is that name, as the reader matches headers
+    def canonical(k) -> str:
+        k = " ".join(str(k).split())
+        return by_case.get(k.lower(), k)
+
+    unknown = list(dict.fromkeys(canonical(k) for rec in records_in for k in rec if canonical(k) not in names))
+    if isinstance(rows, CsvRows):
+        # a template column that is no name of the model (plan's process.csv: compactor, manufactured_at ...)
+        # is ignored when empty in every row, and listed in rows.ignored; with a value it is refused below
+        from linkage.schema import TABLES
+
+        template = {c.name for t in TABLES.values() for c in t.columns}
+        rows.ignored = [n for n in unknown if n in template and all(
+            _blank(v) for rec in records_in for k, v in rec.items() if canonical(k) == n)]
+        unknown = [n for n in unknown if n not in rows.ignored]
+    valid = (["lot", "product"] if isinstance(rows, CsvRows) else []) + names
+    problems += [Problem(source, f"unknown name; valid names are: {', '.join(valid)}", row=header_row, column=n)
                  for n in unknown]
+    row_products = _row_products(chain, rows, numbers, kwargs.get("product"), source, problems)
+    ignored = set(rows.ignored) if isinstance(rows, CsvRows) else set()
     records = []
     for i, rec in zip(numbers, records_in):
         values, given, broken = {}, {}, False
         for k, v in rec.items():
-            if v is None or (isinstance(v, float) and math.isnan(v)) or (
-                    isinstance(v, str) and v.strip().lower() in MISSING_TOKENS):
+            if _blank(v) or canonical(k) in ignored:
                 continue
             value = parse_plain_number(v) if isinstance(v, str) else _given_number(v)
-            name = str(k).strip()
+            name = canonical(k)
             if name in unknown:
                 broken = True  # the column is refused as a whole, in the header
             elif isinstance(value, str):
@@ -481,7 +497,34 @@ def predict_many(chain, rows, **kwargs) -> list[WhatIf]:
         records.append(values)
     if problems:
         raise InputError(sorted(problems, key=lambda p: p.row or 0))  # the header's first, then row by row
-    return [predict_whatif(chain, values, **kwargs) for values in records]
+    return [predict_whatif(chain, values, **{**kwargs, "product": p}) for values, p in zip(records, row_products)]
+
+
+def _blank(v) -> bool:
+    """An empty cell: None, NaN, or a missing token as text."""
+    return v is None or (isinstance(v, float) and math.isnan(v)) or (
+        isinstance(v, str) and v.strip().lower() in MISSING_TOKENS)
+
+
+def _row_products(chain, rows, numbers: list[int], product: str | None, source: str, problems: list) -> list:
+    """Each row's product: its ``product`` cell (a file read by :func:`read_rows`), else ``product`` (the
+    ``--product`` given). A cell the model was not trained on, or one that contradicts ``--product``, is a
+    problem of its row."""
+    from linkage.exceptions import Problem
+
+    cells = rows.products if isinstance(rows, CsvRows) and rows.products else [None] * len(numbers)
+    trained = list(getattr(chain, "products", None) or [])
+    out = []
+    for i, cell in zip(numbers, cells):
+        if cell is not None and product is not None and cell != " ".join(str(product).split()):
+            problems.append(Problem(source, f"the row is for product {cell!r}, --product says {product!r}; give "
+                                            "one or the other", row=i, column="product", value=cell))
+        elif cell is not None and trained and cell not in trained:
+            problems.append(Problem(source, f"model {chain.model_id} was trained on lots of "
+                                            f"{', '.join(repr(p) for p in trained)} only", row=i, column="product",
+                                    value=cell))
+        out.append(cell if cell is not None else product)
+    return out
 
 
 def _given_number(v) -> float | str:
@@ -508,7 +551,8 @@ def _num(v):
 @dataclass
 class CsvRows:
     """A ``--from-csv`` file as read: each row's cells as text (``records``,
-    without the ``lot`` column), its lot (``lots``), its spreadsheet row
+    without the ``lot`` and ``product`` columns), its lot (``lots``) and
+    product (``products``), its spreadsheet row
     (``rows``; the header is ``header_row``), the file's name (``source``) and
     the problems found in reading it, reported with those of the cells."""
     records: list[dict[str, str]]
@@ -517,6 +561,11 @@ class CsvRows:
     source: str
     header_row: int = 1
     problems: list = field(default_factory=list)
+    #: each row's product (an optional ``product`` column; None where blank or without the column)
+    products: list[str | None] = field(default_factory=list)
+    #: template columns that are no name of the model and empty in every row, ignored (set by
+    #: :func:`predict_many`; ``linkage plan`` writes such columns blank)
+    ignored: list[str] = field(default_factory=list)
 
     def __len__(self) -> int:
         return len(self.records)
@@ -528,16 +577,22 @@ def read_rows(path) -> CsvRows:
     Every cell is kept as text (parsed and checked by :func:`predict_many`,
     which reports this file's problems with those of its cells, all at once).
     A row with more or fewer fields than the header is refused with its row
-    number, never shifted into other columns. An empty line is skipped and
-    counted in the row numbers, as the ingest reader does. An optional ``lot``
-    column names the lot each row is for (read as the reader reads a lot id);
-    it is not a model input. A file that cannot be read as CSV text is refused
-    at once (:class:`~linkage.exceptions.InputError`).
+    number, never shifted into other columns. An empty line (nothing on it,
+    not even a separator) is skipped and counted in the row numbers, as the
+    ingest reader does; a row of empty cells is refused by :func:`predict_many`
+    (never dropped). Headers are read as the reader reads them: trimmed, runs
+    of spaces one space, matched to a name in any case (``Lot``). An optional
+    ``lot`` column names the lot each row is for (read as the reader reads a
+    lot id, and two spellings of one lot in the file refused as the reader
+    refuses them); an optional ``product`` column the product each row is for
+    (stated on its result as ``--product`` is). Neither is a model input. A
+    file without a row under its header is refused, and so is one that cannot
+    be read as CSV text (:class:`~linkage.exceptions.InputError`, at once).
     """
     import csv
 
     from linkage.exceptions import InputError, Problem
-    from linkage.lotid import _visible, lot_id_rule
+    from linkage.lotid import _lot_id_problems
 
     name = Path(path).name
     try:
@@ -552,9 +607,12 @@ def read_rows(path) -> CsvRows:
     if not numbered:
         raise InputError(Problem(name, "empty: the file needs a header of names and one row per what-if"))
     header_row = numbered[0][0]
-    header = [h.strip() for h in numbered[0][1]]
-    problems = [Problem(name, "column appears more than once in the header", row=header_row, column=h)
-                for h in sorted({h for h in header if header.count(h) > 1})]
+    header = [" ".join(h.split()) for h in numbered[0][1]]  # as the reader reads a header
+    header = [h.lower() if h.lower() in ("lot", "product") else h for h in header]
+    folded = [h.lower() for h in header]
+    problems = [Problem(name, "column appears more than once in the header (names are matched in any case)",
+                        row=header_row, column=h)
+                for h in sorted({h for h in header if folded.count(h.lower()) > 1})]
     problems += [Problem(name, "a column without a name", row=header_row, column=f"column {j + 1}")
                  for j, h in enumerate(header) if not h]
     out = CsvRows([], [], [], name, header_row, problems)
@@ -567,10 +625,13 @@ def read_rows(path) -> CsvRows:
             continue
         record = dict(zip(header, r))
         lot = " ".join(str(record.pop("lot", "")).split()) or None  # a lot id as the reader reads a text cell
-        rule = None if lot is None else lot_id_rule(lot)
-        if rule is not None:
-            problems.append(Problem(name, rule, row=i, column="lot", value=_visible(lot)))
         out.records.append(record)
         out.lots.append(lot)
+        out.products.append(" ".join(str(record.pop("product", "")).split()) or None)
         out.rows.append(i)
+    if not out.rows and not problems:
+        problems.append(Problem(name, "no rows: the file holds a header and no what-if under it; give one row per "
+                                      "what-if", row=header_row))
+    # invisible characters, and two spellings of one lot (A1 and a1): refused as the reader refuses them
+    problems += _lot_id_problems(out.lots, name, out.rows, "lot", set())
     return out

@@ -149,7 +149,8 @@ def test_predict_from_csv_reports_every_problem_of_the_file_at_once(run, tmp_pat
     r = run("predict", "--from-csv", str(planned))
     assert r.exit_code == 2, r.output
     assert "5 problems found; nothing was written." in r.output
-    for line in ("planned.csv, row 1, column 'roll_forse': unknown name; valid names are: roll_force_kn_per_cm",
+    for line in ("planned.csv, row 1, column 'roll_forse': unknown name; valid names are: lot, product, "
+                 "roll_force_kn_per_cm",
                  "planned.csv, row 2, column 'roll_gap_mm', value 'wide': not a number",
                  "planned.csv, row 3, column 'roll_force_kn_per_cm', value '99': roll_force_kn_per_cm = 99 is "
                  "outside the possible range",
@@ -187,3 +188,59 @@ def test_errors_exit_with_a_message(run, saved_model, args, code, message):
     assert r.exit_code == code, r.output
     assert message in r.stderr
     assert "Traceback" not in r.output
+
+
+def test_predict_from_csv_reads_plans_own_process_csv(run, saved_model, tmp_path):
+    """A second user test: plan's process.csv (lot, product, the template's columns, some blank) could not be fed
+    back to `predict --from-csv`: 'product' and the blank template columns were refused as unknown names. Now the
+    product is stated on each row's result (as --product is), and template columns that are no name of the model
+    are ignored when blank in every row, with a note naming them; a value in one is refused (no silent drop).
+    A regression test of a refusal: no outside source."""
+    from linkage.models.lean import as_lean
+    from linkage.models.registry import load
+
+    models_dir, model_id, _ = saved_model
+    trained = list(getattr(as_lean(load(models_dir, model_id)), "products", None) or [])
+    product = trained[0] if trained else "QZ-417 200 mg"
+    head = "lot,product,compactor,manufactured_at,roll_force_kn_per_cm,roll_gap_mm,roll_diameter_mm"
+    planned = tmp_path / "process.csv"
+    planned.write_text(f"{head}\nPLAN-001,{product},,,9,2.5,\nPLAN-002,{product},,,8,2.4,\n", encoding="utf-8")
+    r = run("predict", "--from-csv", str(planned), "--json")
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert [(x["lot"], x["product"]) for x in d] == [("PLAN-001", product), ("PLAN-002", product)]
+    assert "compactor, manufactured_at, roll_diameter_mm ignored" in r.stderr
+    planned.write_text(f"{head}\nPLAN-001,{product},C-7,,9,2.5,\n", encoding="utf-8")
+    r = run("predict", "--from-csv", str(planned))
+    assert r.exit_code == 2
+    assert "process.csv, row 1, column 'compactor': unknown name; valid names are: lot, product, " in r.output
+
+
+@pytest.mark.parametrize("text, message", [
+    ("lot,roll_force_kn_per_cm\n", "planned.csv, row 1: no rows: the file holds a header and no what-if"),
+    ("lot,roll_force_kn_per_cm\nA1,9\na1,8\n",
+     "planned.csv, row 3, column 'lot', value 'a1': lot 'a1' is lot 'A1' written another way"),
+    ("lot,Lot,roll_force_kn_per_cm\nA1,A1,9\n", "planned.csv, row 1, column 'lot': column appears more than once"),
+])
+def test_predict_from_csv_refuses_what_ingest_refuses(run, tmp_path, text, message):
+    """A second user test: a header-only file exited 0 with nothing; 'A1' and 'a1' in one file were two lots
+    (ingest refuses two spellings of one lot, linkage.lotid); 'Lot' and 'lot' are one column, as ingest matches
+    headers in any case. A regression test of a refusal: no outside source."""
+    planned = tmp_path / "planned.csv"
+    planned.write_text(text, encoding="utf-8")
+    r = run("predict", "--from-csv", str(planned))
+    assert r.exit_code == 2, r.output
+    assert message in r.output
+
+
+def test_predict_from_csv_matches_headers_in_any_case(run, tmp_path):
+    """A second user test: a header 'Lot' was refused as an unknown name though ingest reads it as lot; a name in
+    another case ('Roll_Gap_MM') is that name, as ingest matches template headers. A regression test: no outside
+    source."""
+    planned = tmp_path / "planned.csv"
+    planned.write_text(" Lot ,Roll_Force_kn_per_cm,Roll_Gap_MM\nQ26-101,9,2.5\n", encoding="utf-8")
+    r = run("predict", "--from-csv", str(planned), "--json")
+    assert r.exit_code == 0, r.output
+    [d] = json.loads(r.stdout)
+    assert d["lot"] == "Q26-101"
+    assert d["inputs"]["roll_gap_mm"]["value"] == 2.5 and d["inputs"]["roll_gap_mm"]["source"] == "given"
