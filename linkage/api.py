@@ -788,6 +788,8 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
         raise UsageError(f"--baseline must be at least 2 samples; got {baseline}")
     spec = _spec(spec)
     df, lot, problems = guide.read_samples(samples)
+    if lot is not None and not problems:
+        lot = _lot_spellings([lot], store)[0]  # q26-005 in the samples is the stored Q26-005
     from_process: dict[str, float] = {}
     if process is not None:
         from_process, more = guide.process_settings(process, lot)

@@ -61,7 +61,7 @@ from linkage import plausible as _plausible
 from linkage import seal as _seal
 from linkage.exceptions import (InputError, StoreBusyError, StoreError, StoreIntegrityError, StorePathError,
                                  UsageError)
-from linkage.lotid import lot_key
+from linkage.lotid import lot_key, reader_spelling
 from linkage.schema import DATETIME, NUMBER, TABLES
 from linkage.store_rows import LotTable, OnFirstUse, canon_row, encode_table, read_row_texts, write_row_blocks
 
@@ -871,6 +871,7 @@ class LotStore:
         ``{table, change, key, column, old, new}`` with ``change`` one of
         "table added", "row added", "row removed", "value changed".
         """
+        lot = reader_spelling(lot) or lot  # spaces as the reader reads them, as predict --lot takes them
         lot = self.stored_spelling(lot) or lot  # one lot, one spelling: found as the reader finds it
         revs = self._read("SELECT r.id, r.revision, r.ingest_id, i.at, i.user, r.product, i.reason FROM revisions r "
                           "JOIN ingests i ON i.id = r.ingest_id WHERE r.lot = ? ORDER BY r.revision", (lot,))
@@ -950,13 +951,17 @@ class LotStore:
         """Audit entries, oldest first; only those about ``lot`` when given,
         and with ``with_ingests`` also the ingests that created or revised
         it (their entry names no single lot; issue 19). ``lot`` is compared
-        under the reader's lot identity (:func:`linkage.lotid.lot_key`), so
-        entries recorded under another spelling of the lot are its entries too.
+        under the reader's lot identity (:func:`linkage.lotid.lot_key`, after
+        :func:`linkage.lotid.reader_spelling`: surrounding spaces dropped, inner
+        runs one space), so entries recorded under another spelling of the lot
+        are its entries too.
         With ``require_lot``, a lot that is not in the store (under any
         spelling) and that no entry names (a mistyped id) is refused with
         :class:`UsageError` instead of giving no entries; a lot only predicted
         for, never ingested, keeps its entries."""
         sql = "SELECT id, at, user, action, lot, model_id, inputs_json, outputs_json FROM audit"
+        if lot is not None:
+            lot = reader_spelling(lot) or lot  # spaces as the reader reads them, as predict --lot takes them
         rows = self._read(sql + (" WHERE lot_key(lot) = ? ORDER BY id" if lot is not None else " ORDER BY id"),
                           (lot_key(lot),) if lot is not None else ())
         if lot is not None and with_ingests:

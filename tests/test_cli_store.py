@@ -234,3 +234,18 @@ def test_every_option_of_every_command_says_what_it_does():
     watch = " ".join(run("watch", "--help").output.split())
     assert "--model TEXT Model id from 'linkage models', or 'latest'." in watch
     assert "--product TEXT Watch only the lots of this product." in watch
+
+
+def test_history_and_audit_take_a_lot_with_spaces_as_predict_does(lab, tmp_path):
+    """A second user test: `predict --lot ' q26-005 '` found the stored lot, but `history ' ex-001 '` and
+    `audit --lot ' ex-001 '` said "not in the store". The id is now read as the reader reads a text cell
+    (surrounding spaces dropped, inner runs one space; linkage.lotid.reader_spelling) before the lot identity.
+    A regression test of a refusal: no outside source."""
+    db = tmp_path / "s.db"
+    run("ingest", lab, "--store", db)
+    history = run("history", " ex-001 ", "--store", db)
+    assert history.exit_code == 0, history.output
+    assert history.stdout.startswith("Lot EX-001: 1 revision")
+    audit = run("audit", "--store", db, "--lot", " ex-001 ", "--json")
+    assert audit.exit_code == 0, audit.output
+    assert [e["action"] for e in json.loads(audit.stdout)] == ["ingest"]

@@ -98,7 +98,7 @@ def lots(store, product, as_json):
 def history(lot, store, as_json):
     """Show every revision of LOT: when, by whom, from which files (with
     SHA-256), and which values changed. LOT is found under any spelling of
-    it (case, dashes), as an ingest finds a stored lot.
+    it (case, dashes, spaces around), as an ingest finds a stored lot.
 
     \b
     Example:

@@ -232,3 +232,22 @@ def test_settings_not_given_are_held_as_every_command_holds_them(lab, tmp_path):
         assert d["settings"][k] == pytest.approx(filled[k]) and how == sources[k]
         assert "median" not in how  # a model trained now holds them coherently
     assert "Held (not given)" in r.text()
+
+
+def test_samples_of_a_stored_lot_in_another_spelling_are_recorded_under_the_stored_one(lab, tmp_path):
+    """A second user test: `running` on samples spelt 'q26-005' recorded 'q26-005' beside the stored 'Q26-005'
+    (two lots in the audit trail). The lot is now recorded and stated in the store's spelling, as `predict --lot`
+    records it (linkage.lotid.lot_key). A regression test: no outside source."""
+    folder, ws, truth = lab
+    from linkage.store import LotStore
+
+    with LotStore(ws.store, create=False) as s:
+        stored = next(lot for lot in s.lot_ids() if lot.lower() != lot)
+    samples = drifting_samples(truth, 8, 0.0, seed=7)
+    samples["lot"] = f" {stored.lower()} "
+    atline = tmp_path / "atline_spelt.csv"
+    samples.to_csv(atline, index=False)
+    r = ws.running(atline, settings=SETTINGS, window=(0.25, 0.35))
+    assert r.to_dict()["lot"] == stored
+    entries = ws.audit(lot=stored)
+    assert list(entries.loc[entries["action"] == "running", "lot"]) == [stored]
