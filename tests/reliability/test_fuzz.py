@@ -703,7 +703,7 @@ FROM_CSV_HEAD = b"roll_force_kn_per_cm,roll_gap_mm\n"
 #: name -> (content, expected exit code); the model takes roll force and gap
 FROM_CSV = {
     "valid rows": (FROM_CSV_HEAD + b"5,2\n8,2.5\n", 0),
-    "header only": (FROM_CSV_HEAD, 0),
+    "header only": (FROM_CSV_HEAD, 2),  # refused, "no rows" (a second user test: exit 0 with no output)
     "NaN and inf": (FROM_CSV_HEAD + b"nan,inf\n", 2),
     "a word for a number": (FROM_CSV_HEAD + b"abc,2\n", 2),
     "unknown columns": (b"foo,bar\n1,2\n", 2),
