@@ -98,14 +98,21 @@ def _fitted(models_dir, model) -> FittedChain:
     return model.chain if isinstance(model, Trained) else model
 
 
-def _check_settings(chain, settings: Mapping[str, float]) -> None:
+def _check_settings(chain, settings: Mapping[str, float], more: list[str] = ()) -> None:
     """Refuse ``--set`` values as ``predict`` refuses them
     (:func:`linkage.decide.whatif.check_values`: unknown names, values that
-    are not finite or outside the physically possible range), every problem
-    at once, exit code 2, before anything is computed or written."""
+    are not finite or outside the physically possible range), with the
+    problems in ``more`` (values that are no number, :func:`_given_settings`),
+    every problem at once, exit code 2, before anything is computed or written."""
     from linkage.decide.whatif import check_values
 
-    check_values(chain, dict(settings))
+    check_values(chain, dict(settings), more=list(more))
+
+
+def _given_settings(settings: Mapping | None) -> tuple[dict[str, float], list[str]]:
+    """``--set`` values as floats, and a problem for each that is no number (a text kept by
+    ``parse_assignments(keep_text=True)``), to be reported with the model's checks (:func:`_check_settings`)."""
+    return _whatif_numbers(dict(settings or {}))
 
 
 def _time_and_q(spec: Spec | None, dissolution_time_min: float | None) -> dict:
@@ -338,9 +345,9 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
 
     assurance = check_assurance(assurance)
     spec = _spec(spec)
-    settings = {k: float(v) for k, v in (settings or {}).items()}
+    settings, bad = _given_settings(settings)
     chain = _fitted(models_dir, model)
-    _check_settings(chain, settings)
+    _check_settings(chain, settings, bad)
     result = find_window(chain, spec, settings=settings, confidence=confidence, n_draws=n_draws, seed=seed,
                          assurance=assurance)
     if model is None or isinstance(model, str):  # a model of the registry, loaded and checked here (issue 20)
@@ -394,7 +401,11 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
     logged as ``plan`` in the store's audit trail."""
     from linkage.decide import plan as planning
 
-    settings = {k: float(v) for k, v in (settings or {}).items()}
+    settings, bad = _given_settings(settings)
+    if new and bad:
+        from linkage.exceptions import UsageError
+
+        raise UsageError("; ".join(bad))
     if new:
         result = planning.start_design(dict(ranges or {}), n_lots, seed=seed, held=settings, prefix=prefix,
                                        product=product, design=design)
@@ -409,7 +420,7 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
 
         raise UsageError("planning the next lots of a campaign needs a spec (--spec); for a new product use --new")
     chain = _fitted(models_dir, model)
-    _check_settings(chain, settings)
+    _check_settings(chain, settings, bad)
     table = assemble(store, spec=spec, product=product)
     result = planning.augment_design(chain, table, spec, n_lots, ranges=dict(ranges or {}), settings=settings,
                                      confidence=confidence, assurance=assurance, seed=seed, prefix=prefix,
@@ -434,9 +445,9 @@ def space(spec, *, models_dir=DEFAULT_MODELS_DIR, model="latest", x: str = defau
     (``to_dict()``; :func:`linkage.decide.space.space_text` for its text)."""
     from linkage.decide.space import design_space
 
-    settings = {k: float(v) for k, v in (settings or {}).items()}
+    settings, bad = _given_settings(settings)
     lean = _lean(models_dir, model)
-    _check_settings(lean, settings)
+    _check_settings(lean, settings, bad)
     result = design_space(lean, _spec(spec), x=x, y=y, n_grid=n_grid, settings=settings,
                           confidence=confidence, assurance=assurance, seed=seed)
     if model is None or isinstance(model, str):  # a model of the registry, loaded and checked here (issue 20)
@@ -733,12 +744,22 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     chain = _fitted(models_dir, model)
     spec = _spec(spec)
     found = None
+    notes: list[str] = []
     if spec is not None:
         from linkage.decide.window import find_window
+        from linkage.exceptions import UnsupportedConfidenceError
 
         check_time_point(chain, spec, "watch")
-        w = find_window(chain, spec)
-        found = (w.low.value, w.high.value) if w.found else None
+        try:
+            w = find_window(chain, spec)
+        except UnsupportedConfidenceError as exc:  # watch has no --confidence: watch without the window
+            w = None
+            notes.append(f"no porosity window: the watch looks for one at confidence {exc.confidence:g}, more than "
+                         f"these lots can show ({exc.attribute} has out-of-fold residuals on {exc.n_lots} lots; "
+                         f"at most n/(n + 1) = {exc.n_lots / (exc.n_lots + 1):.4f}); ribbon samples are not "
+                         "judged against a window. Add lots, or look at a window at a lower confidence with "
+                         "'linkage window --confidence'")
+        found = (w.low.value, w.high.value) if w is not None and w.found else None
     with LotStore(store, create=False) as s:
         tables = current_tables_of(s, product)
         recorded = s.predictions()
@@ -751,7 +772,8 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
               outputs={"alarms": result.alarms, "new_lots": result.new_lots,
                        "revised_since_training": [r["lot"] for r in revised]})
     return Watched(result=result, n_lots=len(table), window=found, store=Path(store),
-                   time_point=time_point_text(chain) if "dissolution_pct" in chain.targets else None, revised=revised)
+                   time_point=time_point_text(chain) if "dissolution_pct" in chain.targets else None, revised=revised,
+                   notes=notes)
 
 
 def running(samples, *, settings: Mapping[str, float] | None = None, process=None, spec=None,
@@ -802,8 +824,8 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
         fitted = _fitted(models_dir, model)
         model = fitted.model_id if model is None or isinstance(model, str) else fitted
     lean = _lean(models_dir, model)
-    given = {k: float(v) for k, v in (settings or {}).items()}
-    check_values(lean, given)
+    given, bad = _given_settings(settings)
+    check_values(lean, given, more=bad)
     known = set(lean.root_inputs())
     values = {k: v for k, v in from_process.items() if k in known}
     values.update(given)
@@ -820,7 +842,18 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
         from linkage.decide.window import find_window
 
         held_for_window = {k: v for k, v in values.items() if k != guide.POROSITY}
-        found = find_window(fitted, spec, settings=held_for_window, seed=seed, assurance=assurance)
+        from linkage.exceptions import UnsupportedConfidenceError
+
+        try:
+            found = find_window(fitted, spec, settings=held_for_window, seed=seed, assurance=assurance,
+                                command="running")
+        except UnsupportedConfidenceError as exc:  # running has no --confidence: say what the user can do
+            raise UsageError(f"no porosity window can be found at confidence {exc.confidence:g} on these lots "
+                             f"(model {lean.model_id}: {exc.attribute} has out-of-fold residuals on {exc.n_lots} "
+                             f"lots, and a probability above n/(n + 1) = {exc.n_lots / (exc.n_lots + 1):.4f} "
+                             "cannot be told from 1 on them); give the window yourself with --window LOW:HIGH "
+                             "(e.g. from 'linkage window --confidence' at a confidence the lots support), or "
+                             "add lots") from exc
         if not found.found:
             raise UsageError(f"the spec gives no porosity window at these settings (model {lean.model_id}); "
                              "give --window LOW:HIGH")

@@ -94,6 +94,26 @@ class UsageError(LinkageError, ValueError):
     exit_code = 2
 
 
+class UnsupportedConfidenceError(UsageError):
+    """A confidence above n/(n + 1), n the fewest lots with an out-of-fold residual among the judged attributes
+    (:func:`linkage.decide.window.check_confidence_supported`). A :class:`UsageError` (exit code 2) where the
+    user chose the confidence (window, space, plan); a caller that used a default the user cannot change
+    (watch, running --spec) tells it apart and says what to do instead."""
+
+    def __init__(self, message: str, *, confidence: float, attribute: str, n_lots: int):
+        super().__init__(message)
+        self.confidence = confidence
+        self.attribute = attribute
+        self.n_lots = n_lots
+
+    def __reduce__(self):
+        return _unsupported_confidence, (str(self), self.confidence, self.attribute, self.n_lots)
+
+
+def _unsupported_confidence(message, confidence, attribute, n_lots):
+    return UnsupportedConfidenceError(message, confidence=confidence, attribute=attribute, n_lots=n_lots)
+
+
 class StoreBusyError(LinkageError, RuntimeError):
     """Another process holds the lot store's write lock for too long."""
 

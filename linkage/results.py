@@ -308,12 +308,19 @@ def window_text(result: WindowResult) -> str:
     lines += _roll_force_lines(d, has_bound)
     lines += _window_settings_lines(d)
     if d["not_modelled"]:
-        lines.append("Not part of the window (not predicted from porosity): " + ", ".join(d["not_modelled"]))
+        lines.append("Not part of the window: " + "; ".join(f"{a} ({why})" for a, why in _not_judged(d).items()))
     lines += judges_lines(d.get("judges") or {})
     if d.get("spec") and d["spec"].get("file"):
         lines.append(f"Spec {d['spec']['file']}, SHA-256 {d['spec']['sha256']}")
     lines.append(CAUTION)
     return "\n".join(lines)
+
+
+def _not_judged(d: dict) -> dict[str, str]:
+    """Each attribute the window does not judge, with why (a window saved without the reasons: not
+    predicted from porosity)."""
+    reasons = d.get("not_modelled_reasons") or {}
+    return {a: reasons.get(a, "not predicted from porosity by this model") for a in d["not_modelled"]}
 
 
 def _window_head_lines(d: dict, bound: dict, has_bound: bool) -> list[str]:
@@ -328,8 +335,8 @@ def _window_head_lines(d: dict, bound: dict, has_bound: bool) -> list[str]:
             f"{bound.get('n_replicates')} lot-level bootstrap replicates of the chain)") if has_bound else \
         f"the point estimate of the chance that {every} passes together for a lot reaches {percent_text(d['confidence'])}"
     lines = [f"Model {d['model_id']}; window where {what}"
-             + (f" ({', '.join(d['not_modelled'])}: not predicted from porosity by this model, not judged)"
-                if d["not_modelled"] else "") + ".",
+             + (" (" + "; ".join(f"{a}: {why}, not judged" if "not judged" not in why else f"{a}: {why}"
+                                 for a, why in _not_judged(d).items()) + ")" if d["not_modelled"] else "") + ".",
              f"Judged: {', '.join(d['attributes'])}"
              + (f"; dissolution at {d['dissolution_time_min']:g} min"
                 if d.get("dissolution_time_min") and "dissolution_pct" in d["attributes"] else "")
@@ -638,7 +645,7 @@ class Watched(_Result):
 
     def to_dict(self) -> dict:
         """What ``linkage watch --json`` prints."""
-        return {**self.result.to_dict(), "revised_since_training": list(self.revised)}
+        return {**self.result.to_dict(), "revised_since_training": list(self.revised), "notes": list(self.notes)}
 
     def text(self) -> str:
         from linkage.decide.watch import design_lines, revised_lines, whatif_settings_lines
@@ -647,6 +654,7 @@ class Watched(_Result):
         lines = [f"Model {r.model_id}; {self.n_lots} lots, {len(r.new_lots)} since training"
                  + (f"; {self.time_point}" if self.time_point else "") + "."]
         lines += revised_lines(self.revised, r.model_id)
+        lines += [f"Note: {note}" for note in self.notes]
         if self.window:
             lines.append(f"Porosity window used for ribbon samples: {self.window[0]:.3f}–{self.window[1]:.3f}")
         lines += design_lines(r.mewma)

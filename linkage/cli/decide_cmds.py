@@ -60,7 +60,7 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, assuranc
     from linkage.spec import read_spec
 
     spec = read_spec(spec_path)
-    settings = parse_assignments(list(assignments))
+    settings = parse_assignments(list(assignments), keep_text=True)  # reported with the model's checks
     result = find(spec, store=store, models_dir=models_dir, model=model_id, settings=settings,
                   confidence=confidence, n_draws=n_draws, seed=seed, assurance=assurance)
     _note_unrecorded(result, "window")

@@ -80,7 +80,7 @@ def plan(n_lots, range_texts, new, design, spec_path, model_id, assignments, con
     if out is not None:
         check_output(out, folder=True)
     ranges = parse_ranges(range_texts)
-    settings = parse_assignments(list(assignments))
+    settings = parse_assignments(list(assignments), keep_text=True)  # reported with the model's checks
     if design != "maximin" and not new:
         raise UsageError("--design chooses a new product's starting design; it goes with --new")
     if new and spec_path is not None:

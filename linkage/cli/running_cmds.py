@@ -33,7 +33,8 @@ def _window(ctx, param, value):
 @click.option("--process", "process_path", type=click.Path(exists=True, dir_okay=False, path_type=Path),
               help="A process table (CSV or XLSX) holding the lot's row: its settings.")
 @click.option("--spec", "spec_path", type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="Specification file: the porosity window is found under it at the lot's settings.")
+              help="Specification file: the porosity window is found under it at the lot's settings (confidence 0.9; "
+                   "on lots that cannot show 0.9, give --window).")
 @click.option("--window", "window", callback=_window, metavar="LOW:HIGH",
               help="The porosity window, given directly (instead of --spec).")
 @click.option("--adjust", type=click.Choice(["roll_force_kn_per_cm", "roll_gap_mm"]),
@@ -82,7 +83,7 @@ def running(samples, assignments, process_path, spec_path, window, adjust, basel
     for path in (chart_path, out_path):
         if path is not None:
             check_output(path)
-    settings = parse_assignments(list(assignments))
+    settings = parse_assignments(list(assignments), keep_text=True)  # reported with the model's checks
     result = advise(samples, settings=settings, process=process_path, spec=spec_path, window=window, store=store,
                     models_dir=models_dir, model=model_id, adjust=adjust, baseline=baseline,
                     confirm_shift_sd=confirm_shift_sd, alpha=alpha, power=power, seed=seed)

@@ -57,7 +57,7 @@ def space(spec_path, model_id, x, y, n_grid, assignments, confidence, assurance,
     if png_path is not None:
         check_output(png_path)
     spec = read_spec(spec_path)
-    settings = parse_assignments(list(assignments))
+    settings = parse_assignments(list(assignments), keep_text=True)  # reported with the model's checks
     result = make_map(spec, models_dir=models_dir, model=model_id, x=x, y=y, n_grid=n_grid, settings=settings,
                       confidence=confidence, assurance=assurance, seed=seed)
     if png_path is not None:

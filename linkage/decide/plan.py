@@ -663,7 +663,8 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
     settings = dict(settings or {})
     _check_ranges_and_settings(ranges, settings, inputs)
     if window is None:
-        window = find_window(chain, spec, settings=settings, confidence=confidence, seed=seed, assurance=assurance)
+        window = find_window(chain, spec, settings=settings, confidence=confidence, seed=seed, assurance=assurance,
+                             command="plan")
     training = chain.training["ranges"]
     full = {k: tuple(float(v) for v in (ranges.get(k) or training[k])) for k in inputs if k not in settings}
     held_ribbon = {k: float(settings[k]) for k in inputs if k in settings}

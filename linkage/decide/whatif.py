@@ -112,14 +112,23 @@ def check_values(chain, values: dict[str, float], *, row: int | None = None, mor
         raise UsageError("; ".join(problems))
 
 
-def check_judgeable(chain, spec) -> None:
+def check_judgeable(chain, spec, values: dict | None = None) -> None:
     """Refuse (exit code 2) a spec none of whose attributes the chain
     predicts (nor the acceptance value it judges on simulated units): a
     what-if against it would judge nothing and promise that nothing, as
-    ``linkage window`` refuses it. No spec: nothing to check."""
+    ``linkage window`` refuses it. So too a spec every predicted attribute
+    of which is given in ``values`` (``--set``): a given value is not
+    predicted, so not judged. No spec: nothing to check."""
     if spec is None:
         return
-    if spec.acceptance_value_max is not None or any(a in chain.targets for a in spec.limits):
+    given = set(values or {})
+    predicted = [a for a in spec.limits if a in chain.targets]
+    if spec.acceptance_value_max is None and predicted and all(a in given for a in predicted):
+        raise UsageError(f"every attribute of the spec that model {chain.model_id or 'unsaved'} predicts is given "
+                         f"with --set ({', '.join(predicted)}), and a given value is not predicted, so not judged: "
+                         "nothing to judge; leave it unset to have it predicted and judged, or use a spec with "
+                         "an attribute downstream of it")
+    if spec.acceptance_value_max is not None or predicted:
         return
     raise UsageError(f"none of the spec's attributes is predicted by model {chain.model_id or 'unsaved'} "
                      f"(spec names {', '.join(spec.limits) or 'no attribute'}; the chain predicts "
@@ -246,7 +255,7 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
     assurance = check_assurance(assurance)
     check_values(chain, values)
     check_time_point(chain, spec, "predict")
-    check_judgeable(chain, spec)
+    check_judgeable(chain, spec, values)
     product, product_source = _product_for(chain, product)
     level = float(level if level is not None else chain.nominal_coverage)
     if not 0 < level < 1:
@@ -262,6 +271,8 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         pass_all &= judged.passes[compendial.ACCEPTANCE_VALUE][0]
         stages.any_spec = True
     p_all_low, bound_reason = _bound_entries(chain, filled, spec, predictions, pass_all, assurance, seed)
+    if stages.any_spec and p_all_low is None and bound_reason is None:  # never a promise without its bound
+        bound_reason = "no lower bound of P(all pass) was computed for this spec"
 
     inputs = {k: {"value": float(filled[k]), "source": source[k]} for k in filled}
     judged_attributes = [a for a in spec_limits if a in predictions]
@@ -393,8 +404,10 @@ def _bound_entries(chain, filled: dict, spec, predictions: dict, pass_all: np.nd
     spec_limits = spec.limits if spec is not None else {}
     p_all_low, bound_reason = None, None
     bounded = [n for n in predictions if "p_pass" in predictions[n] and n in spec_limits]
-    if not bounded:
+    if not bounded and compendial.ACCEPTANCE_VALUE not in predictions:
         return p_all_low, bound_reason
+    # a spec of the acceptance value alone: the lot-level factor judges no attribute (1 in every replicate) and
+    # the bound is its unit-level factor, as the window computes it (bound.with_unit_level)
     cp = chain_probabilities(chain, {k: [v] for k, v in filled.items()}, spec_limits, bounded, seed=seed,
                              cells=WHATIF_CELLS)
     low_each = cp.low_each(assurance)

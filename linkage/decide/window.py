@@ -59,7 +59,7 @@ from linkage.decide.bound import NO_BOUND, chain_probabilities, check_assurance,
 from linkage.decide.defaults import WINDOW_DRAWS
 from linkage.decide.held import held_point
 from linkage.decide.propagate import fill_settings, mean_passes, pass_matrix, simulate, within
-from linkage.exceptions import UsageError
+from linkage.exceptions import UnsupportedConfidenceError, UsageError
 from linkage.models.lean import project
 from linkage.numbers import percent_text
 
@@ -120,6 +120,8 @@ class WindowResult:
     #: the held settings at the middle of the window (the training median porosity without one), checked
     #: against every stage's domain, and the rule that held them (:func:`linkage.decide.held.held_point`)
     held_point: dict | None = None
+    #: why each attribute of ``not_modelled`` is not judged (not predicted from porosity, or given with --set)
+    not_modelled_reasons: dict[str, str] = field(default_factory=dict)
 
     @property
     def found(self) -> bool:
@@ -146,6 +148,7 @@ class WindowResult:
             "attributes": self.attributes + ([POROSITY] if POROSITY in (self.spec or {}).get("attributes", {})
                                              else []),
             "not_modelled": self.not_modelled,
+            "not_modelled_reasons": {a: self.not_modelled_reasons.get(a, NOT_FROM_POROSITY) for a in self.not_modelled},
             "roll_force_kn_per_cm": {k: v for k, v in self.roll_force.items() if curve or k != "curve"},
             "n_draws": self.n_draws,
             "seed": self.seed,
@@ -179,7 +182,8 @@ def _floats(a) -> list[float]:
 
 
 def find_window(chain, spec, *, settings: dict[str, float] | None = None, confidence: float = 0.9,
-                n_grid: int = 121, n_draws: int = WINDOW_DRAWS, seed: int = 0, assurance: float = 0.9) -> WindowResult:
+                n_grid: int = 121, n_draws: int = WINDOW_DRAWS, seed: int = 0, assurance: float = 0.9,
+                command: str = "window") -> WindowResult:
     """Scan ribbon porosity over the training range and find the window.
 
     Parameters
@@ -194,6 +198,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         that the window must reach, in (0, 1).
     assurance : the assurance of the lower bound on that probability, in
         (0, 1): the window is where the bound reaches ``confidence``.
+    command : the command its refusals name (``plan``, ``running`` find the window too).
     """
     if not 0 < confidence < 1:
         raise UsageError(f"confidence must lie between 0 and 1; got {confidence}")
@@ -203,14 +208,14 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     lean = as_lean(chain)
     from linkage.timepoint import UNRECORDED_NOTE, check_time_point, model_time_point
 
-    check_time_point(chain, spec, "window")
+    check_time_point(chain, spec, command)
     time_min, recorded = model_time_point(chain)
     settings = dict(settings or {})
     if POROSITY in settings:
         raise UsageError("ribbon_porosity is what the window scans; do not set it (use 'linkage predict' "
                          "for one porosity)")
     produced = set(chain.targets)
-    attributes, not_modelled = _window_attributes(chain, spec)
+    attributes, not_modelled = _window_attributes(chain, spec, given=[k for k in settings if k in produced])
     check_confidence_supported(lean, [a for a in attributes if a in spec.limits], confidence)
     lo, hi = (float(v) for v in chain.training["ranges"][POROSITY])
     grid = np.linspace(lo, hi, n_grid)
@@ -268,6 +273,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         assurance=assurance, p_all_low=p_all_low, p_each_low=p_each_low, bound=bound,
         point_low=point_low.value, point_high=point_high.value, p_all_low_pointwise=p_all_pointwise,
         held_point=held_at,
+        not_modelled_reasons={a: GIVEN_NOT_JUDGED if a in settings else NOT_FROM_POROSITY for a in not_modelled},
     )
 
 
@@ -287,15 +293,27 @@ def _scan_frame(chain, settings: dict, produced: set, grid: np.ndarray):
     return roots, values, source, frame
 
 
-def _window_attributes(chain, spec) -> tuple[list[str], list[str]]:
+#: why an attribute of the spec is not judged by the window (``not_modelled_reasons``)
+NOT_FROM_POROSITY = "not predicted from porosity by this model"
+GIVEN_NOT_JUDGED = "given with --set, not predicted: not judged"
+
+
+def _window_attributes(chain, spec, given=()) -> tuple[list[str], list[str]]:
     """The spec's attributes the window judges (predicted downstream of
     ribbon porosity, and the acceptance value where the spec has one) and
-    those it cannot (a porosity limit is neither: it cuts the scan directly)."""
+    those it cannot (a porosity limit is neither: it cuts the scan directly).
+    An attribute ``given`` (``--set``, a measured value held along the scan)
+    is not predicted, so not judged, as ``predict`` does not judge it."""
+    given = set(given)
     downstream = downstream_targets(chain)
-    attributes = [a for a in spec.limits if a in downstream]
+    attributes = [a for a in spec.limits if a in downstream and a not in given]
     if spec.acceptance_value_max is not None:  # judged on simulated unit weights (linkage.decide.compendial)
         attributes.append(compendial.ACCEPTANCE_VALUE)
-    not_modelled = [a for a in spec.limits if a not in downstream and a != POROSITY]
+    not_modelled = [a for a in spec.limits if (a not in downstream or a in given) and a != POROSITY]
+    if not attributes and given & set(spec.limits):
+        raise UsageError(f"every attribute of the spec predicted downstream of ribbon_porosity is given with --set "
+                         f"({', '.join(a for a in spec.limits if a in given)}), and a given value is not "
+                         "predicted, so not judged: nothing to judge; leave it unset")
     if not attributes:
         raise UsageError("none of the spec's attributes is predicted downstream of ribbon_porosity "
                          f"(spec names {', '.join(spec.limits)}; the chain predicts "
@@ -323,10 +341,11 @@ def check_confidence_supported(lean, attributes, confidence: float) -> None:
     name, n = worst
     most = n / (n + 1)
     if confidence > most:
-        raise UsageError(f"--confidence {confidence:g} asks more than the lots can show: {name} has out-of-fold "
+        raise UnsupportedConfidenceError(f"--confidence {confidence:g} asks more than the lots can show: {name} has out-of-fold "
                          f"residuals on {n} lots, and a probability above n/(n + 1) = {most:.4f} cannot be told "
                          f"from 1 on them (a new lot falls beyond all {n} with probability 1/(n + 1)); use a "
-                         f"confidence of at most {math.floor(most * 1e4) / 1e4:g}, or add lots")
+                         f"confidence of at most {math.floor(most * 1e4) / 1e4:g}, or add lots",
+                                         confidence=confidence, attribute=name, n_lots=n)
 
 
 def _point_scan(chain, spec, draws, grid, attributes: list[str], limited: list[str], seed: int):
