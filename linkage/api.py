@@ -421,6 +421,9 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
         raise UsageError("planning the next lots of a campaign needs a spec (--spec); for a new product use --new")
     chain = _fitted(models_dir, model)
     _check_settings(chain, settings, bad)
+    if product is None:  # the lots the plan starts from: those of the one product the model was trained on
+        trained_on = chain.training.get("products") or []
+        product = trained_on[0] if len(trained_on) == 1 else None
     table = assemble(store, spec=spec, product=product)
     result = planning.augment_design(chain, table, spec, n_lots, ranges=dict(ranges or {}), settings=settings,
                                      confidence=confidence, assurance=assurance, seed=seed, prefix=prefix,
@@ -537,9 +540,9 @@ def _lean_or_refused(models_dir, model, problems: list[str]):
 
     try:
         return _lean(models_dir, model)
-    except ModelNotFoundError:
-        if problems:
-            raise UsageError("; ".join(problems)) from None
+    except ModelNotFoundError as exc:
+        if problems:  # every problem at once: the values' and the model's
+            raise UsageError("; ".join([*problems, str(exc)])) from None
         raise
 
 
@@ -604,6 +607,11 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
     else:
         rows = rows if hasattr(rows, "to_dict") else list(rows)
     n = len(rows)
+    if lots is not None and csv_lots is not None and any(v is not None for v in csv_lots):
+        from linkage.exceptions import UsageError
+
+        raise UsageError("the file gives each row's lot in its lot column; --lot would replace them all: give one or "
+                         "the other")
     if isinstance(lots, str):
         row_lots = [lots] * n
     elif lots is not None:
@@ -776,6 +784,27 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
                    notes=notes)
 
 
+def _running_window(fitted, lean, spec, held: dict, seed: int, assurance: float) -> tuple[float, float]:
+    """The porosity window of ``spec`` at the running lot's settings ``held`` (``linkage running --spec``);
+    refused with what the user can do where the lots cannot show the default confidence or give no window."""
+    from linkage.decide.window import find_window
+    from linkage.exceptions import UnsupportedConfidenceError, UsageError
+
+    try:
+        found = find_window(fitted, spec, settings=held, seed=seed, assurance=assurance, command="running")
+    except UnsupportedConfidenceError as exc:  # running has no --confidence: say what the user can do
+        raise UsageError(f"no porosity window can be found at confidence {exc.confidence:g} on these lots "
+                         f"(model {lean.model_id}: {exc.attribute} has out-of-fold residuals on {exc.n_lots} "
+                         f"lots, and a probability above n/(n + 1) = {exc.n_lots / (exc.n_lots + 1):.4f} "
+                         "cannot be told from 1 on them); give the window yourself with --window LOW:HIGH "
+                         "(e.g. from 'linkage window --confidence' at a confidence the lots support), or "
+                         "add lots") from exc
+    if not found.found:
+        raise UsageError(f"the spec gives no porosity window at these settings (model {lean.model_id}); "
+                         "give --window LOW:HIGH")
+    return found.low.value, found.high.value
+
+
 def running(samples, *, settings: Mapping[str, float] | None = None, process=None, spec=None,
             window: tuple[float, float] | None = None, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR,
             model="latest", adjust: str = "roll_force_kn_per_cm", baseline: int = 5,
@@ -839,25 +868,9 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
         values.update({k: float(filled[k]) for k in missing})
         held = {k: sources[k] for k in missing}
     if window is None:
-        from linkage.decide.window import find_window
-
-        held_for_window = {k: v for k, v in values.items() if k != guide.POROSITY}
-        from linkage.exceptions import UnsupportedConfidenceError
-
-        try:
-            found = find_window(fitted, spec, settings=held_for_window, seed=seed, assurance=assurance,
-                                command="running")
-        except UnsupportedConfidenceError as exc:  # running has no --confidence: say what the user can do
-            raise UsageError(f"no porosity window can be found at confidence {exc.confidence:g} on these lots "
-                             f"(model {lean.model_id}: {exc.attribute} has out-of-fold residuals on {exc.n_lots} "
-                             f"lots, and a probability above n/(n + 1) = {exc.n_lots / (exc.n_lots + 1):.4f} "
-                             "cannot be told from 1 on them); give the window yourself with --window LOW:HIGH "
-                             "(e.g. from 'linkage window --confidence' at a confidence the lots support), or "
-                             "add lots") from exc
-        if not found.found:
-            raise UsageError(f"the spec gives no porosity window at these settings (model {lean.model_id}); "
-                             "give --window LOW:HIGH")
-        window, source = (found.low.value, found.high.value), f"window of {spec.file or 'the spec'}"
+        window = _running_window(fitted, lean, spec, {k: v for k, v in values.items() if k != guide.POROSITY},
+                                 seed, assurance)
+        source = f"window of {spec.file or 'the spec'}"
     else:
         source = "given (--window)"
     stage = next(st for st in lean.stages if guide.POROSITY in st.targets)

@@ -543,7 +543,7 @@ class LotStore:
         if exact:
             return exact[0][0]
         found = self._read("SELECT lot FROM lots WHERE lot_key(lot) = ? ORDER BY rowid", (lot_key(lot),))
-        return found[0][0] if found else None
+        return found[0][0] if len(found) == 1 else None  # two stored lots of one identity (an older store): neither
 
     def ingest(self, ingest: Ingest, user: str | None = None, reason: str | None = None, *,
                accept_unusual: bool = False) -> IngestResult:
@@ -962,8 +962,8 @@ class LotStore:
         sql = "SELECT id, at, user, action, lot, model_id, inputs_json, outputs_json FROM audit"
         if lot is not None:
             lot = reader_spelling(lot) or lot  # spaces as the reader reads them, as predict --lot takes them
-        rows = self._read(sql + (" WHERE lot_key(lot) = ? ORDER BY id" if lot is not None else " ORDER BY id"),
-                          (lot_key(lot),) if lot is not None else ())
+        where, params = self._lot_clause(lot)
+        rows = self._read(sql + where, params)
         if lot is not None and with_ingests:
             ingests = self._read(sql + " WHERE action = 'ingest' AND lot IS NULL ORDER BY id", ())
             rows = sorted(list(rows) + [r for r in ingests if _ingest_touches(r[7], lot)], key=lambda r: r[0])
@@ -972,6 +972,18 @@ class LotStore:
         return [{"id": i, "at": at, "user": u, "action": a, "lot": lt, "model_id": m,
                  "inputs": None if ij is None else json.loads(ij), "outputs": None if oj is None else json.loads(oj)}
                 for i, at, u, a, lt, m, ij, oj in rows]
+
+    def _lot_clause(self, lot: str | None) -> tuple[str, tuple]:
+        """The WHERE clause (and its parameters) of the entries of ``lot``: under the reader's lot identity,
+        unless the store holds two lots of that identity (a store written before the one-spelling rule may hold
+        'A1' and 'a1'): then the exact spelling only, so one lot's entries are never another's."""
+        if lot is None:
+            return " ORDER BY id", ()
+        key = lot_key(lot)
+        same = self._read("SELECT COUNT(*) FROM lots WHERE lot_key(lot) = ?", (key,))[0][0]
+        if same > 1:
+            return " WHERE lot = ? ORDER BY id", (lot,)
+        return " WHERE lot_key(lot) = ? ORDER BY id", (key,)
 
     def record_prediction(self, model_id: str, inputs, outputs, *, lot: str | None = None,
                           user: str | None = None) -> int:
@@ -988,8 +1000,8 @@ class LotStore:
         """Recorded predictions, oldest first; only those for ``lot`` when
         given (under any spelling of it, :func:`linkage.lotid.lot_key`)."""
         sql = "SELECT id, at, user, model_id, lot, inputs_json, outputs_json FROM predictions"
-        rows = self._read(sql + (" WHERE lot_key(lot) = ? ORDER BY id" if lot is not None else " ORDER BY id"),
-                          (lot_key(lot),) if lot is not None else ())
+        where, params = self._lot_clause(lot)
+        rows = self._read(sql + where, params)
         return [{"id": i, "at": at, "user": u, "model_id": m, "lot": lt, "inputs": json.loads(ij),
                  "outputs": json.loads(oj)} for i, at, u, m, lt, ij, oj in rows]
 

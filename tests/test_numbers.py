@@ -47,9 +47,9 @@ def test_the_what_if_refuses_what_the_ingest_refuses():
 
 
 def test_a_confidence_is_written_with_the_digits_it_was_given():
-    """A user test found --confidence 0.9999 written 'at least 100%' (a whole-percent rounding). Python's own
-    '%g' formatting of 100·p (Python Language Reference, format specification mini-language) is the
-    reference: no rounding to a certainty, no trailing zeros."""
+    """A user test found --confidence 0.9999 written 'at least 100%' (a whole-percent rounding). The digits
+    given are kept: no rounding to a certainty, no trailing zeros. No outside source (a regression test of
+    wording)."""
     from linkage.numbers import percent_text
 
     assert [percent_text(p) for p in (0.9, 0.95, 0.975, 0.9999, 0.5)] == ["90%", "95%", "97.5%", "99.99%", "50%"]

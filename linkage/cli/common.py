@@ -39,9 +39,9 @@ def models_dir_option(f):
 
 
 def tell_progress(message: str) -> None:
-    """A progress line on stderr that never stops the work: where stderr's reader has stopped reading
-    (``linkage demo 2>&1 | head -2``), the line is dropped and the work goes on, so that every file and record
-    is written before the command ends (its exit code 0 says so)."""
+    """A line on stderr (progress, a note, a warning, an error's words) that never stops the work or changes
+    the exit code: where stderr's reader has stopped reading (``linkage demo 2>&1 | head -2``), the line is
+    dropped and the work goes on, so that every file and record is written before the command ends."""
     if _progress_silenced:
         return
     try:
@@ -127,19 +127,19 @@ def handle_errors(f):
                 warnings.simplefilter("always", LinkageWarning)
                 return f(*args, **kwargs)
         except LinkageError as exc:
-            click.echo(f"Error: {exc}", err=True)
+            tell_progress(f"Error: {exc}")  # stderr's reader may have stopped too: the code still says it
             raise SystemExit(exc.exit_code) from None
         except BrokenPipeError:
             _stop_quietly()
         except OSError as exc:
             what = f" {exc.filename}" if exc.filename is not None else ""
             reason = exc.strerror or str(exc)
-            click.echo(f"Error: cannot read or write{what}: {reason}", err=True)
+            tell_progress(f"Error: cannot read or write{what}: {reason}")
             raise SystemExit(IO_EXIT_CODE) from None
         finally:  # a linkage warning is one plain line on stderr; any other is shown as Python shows it
             for w in caught:
                 if issubclass(w.category, LinkageWarning):
-                    click.echo(f"Warning: {w.message}", err=True)
+                    tell_progress(f"Warning: {w.message}")  # never a second error where stderr is closed
                 else:
                     warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
 

@@ -8,7 +8,7 @@ from pathlib import Path
 import click
 
 from linkage.cli.common import (PROBABILITY, check_output, handle_errors, json_option, models_dir_option,
-                                store_option)
+                                store_option, tell_progress)
 from linkage.decide import defaults
 from linkage.jsonable import jsonable
 from linkage.results import whatif_text, window_text
@@ -33,7 +33,8 @@ _assurance_option = click.option(
 @_model_option
 @_set_option
 @click.option("--confidence", default=0.9, show_default=True, type=PROBABILITY,
-              help="Probability of meeting every specification together that the window must reach.")
+              help="Probability of meeting every specification together that the window must reach."
+                   " At most n/(n + 1), n the fewest lots with a residual among the judged attributes.")
 @click.option("--draws", "n_draws", default=defaults.WINDOW_DRAWS, show_default=True, type=click.IntRange(200, 200_000),
               help="Monte Carlo draws per porosity.")
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the Monte Carlo draws.")
@@ -184,5 +185,4 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
 def _note_unrecorded(result, action: str) -> None:
     """Say on stderr that there was no store to record a window or what-if in."""
     if not result.recorded:
-        click.echo(f"Note: no lot store at {result.store}; this {action} was not recorded in an audit trail.",
-                   err=True)
+        tell_progress(f"Note: no lot store at {result.store}; this {action} was not recorded in an audit trail.")

@@ -31,7 +31,8 @@ from linkage.jsonable import jsonable
 @click.option("--set", "assignments", multiple=True, metavar="NAME=VALUE",
               help="Hold a setting at VALUE in every planned lot (and in the window planned for). Repeatable.")
 @click.option("--confidence", default=0.9, show_default=True, type=PROBABILITY,
-              help="Confidence of the window whose edges the plan narrows.")
+              help="Confidence of the window whose edges the plan narrows."
+                   " At most n/(n + 1), n the fewest lots with a residual among the judged attributes.")
 @click.option("--assurance", default=0.9, show_default=True, type=PROBABILITY,
               help="Assurance of the lower bound the window rests on.")
 @click.option("--edges", type=click.Choice(["all", "porosity"]), default="all", show_default=True,

@@ -17,7 +17,8 @@ from linkage.cli.common import PROBABILITY, check_output, handle_errors, models_
 @click.option("--out", "out_path", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Where to write the report.  [default: reports/report-<model id>.html]")
 @click.option("--confidence", default=0.9, show_default=True, type=float,
-              help="Probability of meeting every specification together that the window must reach.")
+              help="Probability of meeting every specification together that the window must reach."
+                   " At most n/(n + 1), n the fewest lots with a residual among the judged attributes.")
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the Monte Carlo draws.")
 @click.option("--assurance", default=0.9, show_default=True, type=PROBABILITY,
               help="Assurance of the lower bound on the probability of passing that the window rests on.")

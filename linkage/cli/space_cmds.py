@@ -24,7 +24,8 @@ from linkage.decide import defaults
 @click.option("--set", "assignments", multiple=True, metavar="NAME=VALUE",
               help="Hold another setting at VALUE (the rest are held coherently). Repeatable.")
 @click.option("--confidence", default=0.9, show_default=True, type=PROBABILITY,
-              help="Probability of meeting every specification together that the region must reach.")
+              help="Probability of meeting every specification together that the region must reach."
+                   " At most n/(n + 1), n the fewest lots with a residual among the judged attributes.")
 @click.option("--assurance", default=0.9, show_default=True, type=PROBABILITY,
               help="Assurance of the lower bound on the probability (lot-level bootstrap replicates).")
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the Monte Carlo draws.")

@@ -308,9 +308,9 @@ def design_space(chain, spec, *, x: str = FORCE, y: str = GAP, n_grid: int = MAP
     attributes = [a for a in spec.limits if a in lean.targets]
     if not attributes:
         raise UsageError("no specification limit is on an attribute the chain predicts")
-    from linkage.decide.window import check_confidence_supported
+    from linkage.decide.window import check_confidence_supported, judged_residuals
 
-    check_confidence_supported(lean, attributes, confidence)
+    check_confidence_supported(lean, judged_residuals(attributes, spec), confidence)
     xs = np.linspace(*_range_of(lean, x), n_grid)
     ys = np.linspace(*_range_of(lean, y), n_grid)
     X, Y = np.meshgrid(xs, ys)  # (ny, nx)

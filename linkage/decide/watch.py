@@ -374,11 +374,20 @@ def predictions_vs_measured(recorded: list[dict], table: pd.DataFrame, chain=Non
     from linkage.lotid import lot_key
 
     measured = table.set_index(table["lot"].astype(str))
-    stored = {lot_key(lot): lot for lot in measured.index}
+    by_key: dict[str, list[str]] = {}
+    for name in measured.index:
+        by_key.setdefault(lot_key(name), []).append(name)
+
+    def stored(name: str) -> str | None:  # the exact spelling first; by identity only where one lot has it
+        if name in measured.index:
+            return name
+        same = by_key.get(lot_key(name), [])
+        return same[0] if len(same) == 1 else None
+
     rerun: dict[str, dict | str] = {}
     out = []
     for rec in recorded:
-        lot = stored.get(lot_key(str(rec["lot"]))) if rec.get("lot") else None
+        lot = stored(str(rec["lot"])) if rec.get("lot") else None
         if lot is None:
             continue
         differ, ran = _settings_differ(rec.get("inputs") or {}, measured.loc[lot])

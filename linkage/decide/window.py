@@ -216,7 +216,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
                          "for one porosity)")
     produced = set(chain.targets)
     attributes, not_modelled = _window_attributes(chain, spec, given=[k for k in settings if k in produced])
-    check_confidence_supported(lean, [a for a in attributes if a in spec.limits], confidence)
+    check_confidence_supported(lean, judged_residuals(attributes, spec), confidence)
     lo, hi = (float(v) for v in chain.training["ranges"][POROSITY])
     grid = np.linspace(lo, hi, n_grid)
 
@@ -319,6 +319,16 @@ def _window_attributes(chain, spec, given=()) -> tuple[list[str], list[str]]:
                          f"(spec names {', '.join(spec.limits)}; the chain predicts "
                          f"{', '.join(sorted(set(chain.targets)))})")
     return attributes, not_modelled
+
+
+def judged_residuals(attributes, spec) -> list[str]:
+    """The attributes whose out-of-fold residuals a judged probability is summed over: those with limits, and
+    the weight RSD where the acceptance value is judged (its units are simulated from each lot's RSD,
+    :mod:`linkage.decide.compendial`)."""
+    out = [a for a in attributes if a in spec.limits]
+    if compendial.ACCEPTANCE_VALUE in attributes and compendial.WEIGHT_RSD not in out:
+        out.append(compendial.WEIGHT_RSD)
+    return out
 
 
 def check_confidence_supported(lean, attributes, confidence: float) -> None:

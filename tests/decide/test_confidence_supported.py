@@ -32,3 +32,17 @@ def test_a_confidence_above_n_over_n_plus_1_is_refused_by_window_and_map(campaig
         design_space(chain, spec, confidence=most + 1e-4, n_grid=3)
     check_confidence_supported(as_lean(chain), judged, most)  # n/(n + 1) itself is allowed
     assert find_window(chain, spec, confidence=0.9, n_draws=200).confidence == 0.9  # the default still runs
+
+
+def test_the_acceptance_value_is_held_to_the_weight_rsds_residual_lots(campaign):
+    """A spec of the acceptance value alone (USP <905>, units simulated from each lot's weight RSD) is held to
+    n/(n + 1) of the weight RSD's residual lots too (the reviewer found it escaped the limit)."""
+    from linkage.decide.window import find_window
+    from linkage.spec import Spec
+
+    chain, table, _ = campaign
+    assert "weight_rsd_pct" in chain.targets
+    n = int(table["weight_rsd_pct"].notna().sum())
+    spec = Spec(limits={}, acceptance_value_max=15.0)
+    with pytest.raises(UsageError, match=rf"weight_rsd_pct has out-of-fold residuals on {n} lots"):
+        find_window(chain, spec, confidence=n / (n + 1) + 1e-4, n_draws=200)

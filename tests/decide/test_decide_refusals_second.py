@@ -195,3 +195,16 @@ def test_window_with_a_judged_attribute_given_does_not_judge_it(scenario, saved_
     assert r.exit_code == 0, r.output
     d = json.loads(r.output[r.output.index("{"):])  # after the note that nothing was recorded (no store)
     assert d["not_modelled_reasons"]["dissolution_pct"].startswith("given with --set")
+
+
+def test_lot_given_beside_a_file_with_a_lot_column_is_refused(tmp_path):
+    """--lot would replace every row's lot of a --from-csv file that names them: refused, as a contradicting
+    --product is (the session's review found the lot column overridden without a word). A refusal: no outside
+    reference."""
+    from linkage.api import whatif_rows
+    from linkage.exceptions import UsageError
+
+    path = tmp_path / "rows.csv"
+    path.write_text("lot,roll_force_kn_per_cm\nA-1,8\nA-2,9\n", encoding="utf-8")
+    with pytest.raises(UsageError, match="--lot would replace them all"):
+        whatif_rows(path, lots="B-7", store=tmp_path / "none.db", models_dir=tmp_path / "models")

@@ -142,7 +142,7 @@ def test_the_planned_lots_take_the_one_product_the_model_was_trained_on(campaign
 def test_held_settings_are_written_to_the_plan_as_run_at_three_decimals(campaign):
     """A setting held at its conditional mean was written 13.841666666666669 into the plan's tablets table (a
     second user test); every planned setting is written to 3 decimals (plan.DECIMALS), as the planned ones are.
-    Reference: Python's round-half-even of numpy.round."""
+    No outside source: a regression test of what is written."""
     import numpy as np
 
     from linkage.decide.plan import DECIMALS, augment_design
