@@ -422,8 +422,7 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
     chain = _fitted(models_dir, model)
     _check_settings(chain, settings, bad)
     if product is None:  # the lots the plan starts from: those of the one product the model was trained on
-        trained_on = chain.training.get("products") or []
-        product = trained_on[0] if len(trained_on) == 1 else None
+        product = chain.trained_product
     table = assemble(store, spec=spec, product=product)
     result = planning.augment_design(chain, table, spec, n_lots, ranges=dict(ranges or {}), settings=settings,
                                      confidence=confidence, assurance=assurance, seed=seed, prefix=prefix,
@@ -655,8 +654,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
         plan = read_plan(plan)  # a file that is not a plan is refused before any work
     chain = _fitted(models_dir, model)
     check_time_point(chain, spec, "report")
-    products = chain.training.get("products") or []
-    product = products[0] if len(products) == 1 else None
+    product = chain.trained_product
     with LotStore(store, create=False) as lot_store:
         tables = current_tables_of(lot_store, product)
         lots = lot_store.lots(product=product)
@@ -763,9 +761,8 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
         except UnsupportedConfidenceError as exc:  # watch has no --confidence: watch without the window
             w = None
             notes.append(f"no porosity window: the watch looks for one at confidence {exc.confidence:g}, more than "
-                         f"these lots can show ({exc.attribute} has out-of-fold residuals on {exc.n_lots} lots; "
-                         f"at most n/(n + 1) = {exc.n_lots / (exc.n_lots + 1):.4f}); ribbon samples are not "
-                         "judged against a window. Add lots, or look at a window at a lower confidence with "
+                         f"these lots can show ({exc.lots_text()}); ribbon samples are not judged against a "
+                         "window. Add lots, or look at a window at a lower confidence with "
                          "'linkage window --confidence'")
         found = (w.low.value, w.high.value) if w is not None and w.found else None
     with LotStore(store, create=False) as s:
@@ -794,9 +791,7 @@ def _running_window(fitted, lean, spec, held: dict, seed: int, assurance: float)
         found = find_window(fitted, spec, settings=held, seed=seed, assurance=assurance, command="running")
     except UnsupportedConfidenceError as exc:  # running has no --confidence: say what the user can do
         raise UsageError(f"no porosity window can be found at confidence {exc.confidence:g} on these lots "
-                         f"(model {lean.model_id}: {exc.attribute} has out-of-fold residuals on {exc.n_lots} "
-                         f"lots, and a probability above n/(n + 1) = {exc.n_lots / (exc.n_lots + 1):.4f} "
-                         "cannot be told from 1 on them); give the window yourself with --window LOW:HIGH "
+                         f"(model {lean.model_id}: {exc.lots_text()}); give the window yourself with --window LOW:HIGH "
                          "(e.g. from 'linkage window --confidence' at a confidence the lots support), or "
                          "add lots") from exc
     if not found.found:

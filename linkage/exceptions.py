@@ -106,6 +106,16 @@ class UnsupportedConfidenceError(UsageError):
         self.attribute = attribute
         self.n_lots = n_lots
 
+    @property
+    def most(self) -> float:
+        """n/(n + 1): the highest confidence these lots can show."""
+        return self.n_lots / (self.n_lots + 1)
+
+    def lots_text(self) -> str:
+        """Why, in words every refusal of it shares: the attribute, its residual lots and the limit."""
+        return (f"{self.attribute} has out-of-fold residuals on {self.n_lots} lots, and a probability above "
+                f"n/(n + 1) = {self.most:.4f} cannot be told from 1 on them")
+
     def __reduce__(self):
         return _unsupported_confidence, (str(self), self.confidence, self.attribute, self.n_lots)
 

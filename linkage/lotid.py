@@ -102,7 +102,7 @@ def _lot_id_problems(lots: list, label: str, sheet_rows: list[int], header: str,
         if len(spellings) < 2:
             continue
         usual = max(spellings, key=lambda lot: len(spellings[lot]))  # max keeps the first of equals
-        where = _span([sheet_rows[k] for k in spellings[usual]])
+        where = row_span([sheet_rows[k] for k in spellings[usual]])
         for lot, ks in spellings.items():
             if lot == usual:
                 continue
@@ -116,7 +116,7 @@ def _lot_id_problems(lots: list, label: str, sheet_rows: list[int], header: str,
     return problems
 
 
-def _span(rows: list[int]) -> str:
+def row_span(rows: list[int]) -> str:
     """Sheet rows for a message, as runs of consecutive rows: ``row 7``, ``rows 7-10 (4 rows)``, ``rows 6, 8-10
     (4 rows)``; with more than 4 runs, first to last: ``rows 7-40 (12 rows, not all between)``. A range never
     hides a row left out of it (a row spelt apart from the rest of its lot sits between the others)."""

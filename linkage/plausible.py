@@ -43,6 +43,7 @@ import math
 from statistics import median
 
 from linkage.exceptions import Problem
+from linkage.lotid import row_span
 
 #: columns judged: lot-level quantities, one value or a few replicates per lot
 JUDGED: dict[str, tuple[str, ...]] = {
@@ -203,7 +204,7 @@ def unusual_values(ingest, history: dict[str, dict[str | None, dict[str, list[di
                 ratio = f"{max(x / typical, typical / x):.3g} times {'that' if x > typical else 'smaller'}"
                 if by_lot:
                     lot_rows = _lot_rows(df, column, lot, rows)
-                    judged = (f"the median {column} of lot {lot!r} ({x:g}, of its {_span(lot_rows)}; the stack "
+                    judged = (f"the median {column} of lot {lot!r} ({x:g}, of its {row_span(lot_rows)}; the stack "
                               "is judged as a whole, not row by row)")
                     what = f"the recent lots have a median {column} around {typical:.4g}, {judged} is {ratio}"
                 else:
@@ -224,11 +225,6 @@ def _lot_rows(df, column: str, lot: str, rows) -> list[int]:
     """The sheet rows of a lot's positive values of ``column`` (those its median is taken of)."""
     return [rows[k] for k, (name, v) in enumerate(zip(df["lot"].tolist(), df[column].tolist()))
             if name == lot and isinstance(v, float) and math.isfinite(v) and v > 0]
-
-
-def _span(rows: list[int]) -> str:
-    """``row 7`` or ``rows 7-10, 4 rows`` (first to last, and how many)."""
-    return f"row {rows[0]}" if len(rows) == 1 else f"rows {rows[0]}-{rows[-1]}, {len(rows)} rows"
 
 
 #: decades of slack of the vectorised first pass (numpy's log10 and pandas' median may differ from math's and

@@ -56,11 +56,18 @@ _progress_silenced: list[bool] = []
 
 def _silence_progress() -> None:
     _progress_silenced.append(True)
-    try:  # later writes to stderr (Python's own flush at exit included) go nowhere instead of failing
+    _to_devnull(sys.stderr)  # later writes to stderr (Python's own flush at exit included) go nowhere
+
+
+def _to_devnull(stream) -> None:
+    """Point ``stream``'s file descriptor at devnull, so that writes to it (Python's flush at exit included)
+    go nowhere instead of raising BrokenPipeError; nothing to do for a stream without a file descriptor (a
+    test's buffer)."""
+    try:
         devnull = os.open(os.devnull, os.O_WRONLY)
-        os.dup2(devnull, sys.stderr.fileno())
-    except (AttributeError, OSError, ValueError):  # a stderr without a file descriptor (a test's buffer)
-        pass
+        os.dup2(devnull, stream.fileno())
+    except (AttributeError, OSError, ValueError):
+        return
 
 
 @contextlib.contextmanager
@@ -154,11 +161,7 @@ def _stop_quietly() -> None:
     chose to stop (a pipeline's status is its last command's anyway). Every command writes its files
     and records before it prints its result, and its progress lines never stop it (:func:`tell_progress`,
     :func:`progress_bars`), so nothing is left undone when the output is cut short."""
-    try:
-        devnull = os.open(os.devnull, os.O_WRONLY)
-        os.dup2(devnull, sys.stdout.fileno())
-    except (AttributeError, OSError, ValueError):  # a stdout without a file descriptor (a test's buffer)
-        pass
+    _to_devnull(sys.stdout)
     raise SystemExit(0)
 
 

@@ -650,8 +650,7 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
     if n < 1:
         raise UsageError(f"--lots must be at least 1; got {n_lots}")
     if product is None:  # the planned lots are of the one product the model was trained on, if it names one
-        trained_on = chain.training.get("products") or []
-        product = trained_on[0] if len(trained_on) == 1 else None
+        product = chain.trained_product
     if edges not in ("all", "porosity"):
         raise UsageError(f"edges must be 'all' or 'porosity'; got {edges!r}")
     if criterion not in CRITERIA:

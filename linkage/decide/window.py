@@ -349,13 +349,12 @@ def check_confidence_supported(lean, attributes, confidence: float) -> None:
     if worst is None:
         return
     name, n = worst
-    most = n / (n + 1)
-    if confidence > most:
-        raise UnsupportedConfidenceError(f"--confidence {confidence:g} asks more than the lots can show: {name} has out-of-fold "
-                         f"residuals on {n} lots, and a probability above n/(n + 1) = {most:.4f} cannot be told "
-                         f"from 1 on them (a new lot falls beyond all {n} with probability 1/(n + 1)); use a "
-                         f"confidence of at most {math.floor(most * 1e4) / 1e4:g}, or add lots",
-                                         confidence=confidence, attribute=name, n_lots=n)
+    if confidence > n / (n + 1):
+        refused = UnsupportedConfidenceError("", confidence=confidence, attribute=name, n_lots=n)
+        refused.args = (f"--confidence {confidence:g} asks more than the lots can show: {refused.lots_text()} (a new "
+                        f"lot falls beyond all {n} with probability 1/(n + 1)); use a confidence of at most "
+                        f"{math.floor(refused.most * 1e4) / 1e4:g}, or add lots",)
+        raise refused
 
 
 def _point_scan(chain, spec, draws, grid, attributes: list[str], limited: list[str], seed: int):

@@ -324,6 +324,13 @@ class FittedChain:
     #: trained before they existed (then no probability has a lower bound; read it with getattr)
     bootstrap: dict | None = None
 
+    @property
+    def trained_product(self) -> str | None:
+        """The one product the chain was trained on; None when it was trained on several, or on lots without
+        a product name (the report, the plan and its lots are then of no single product)."""
+        products = self.training.get("products") or []
+        return products[0] if len(products) == 1 else None
+
     def stage(self, name: str) -> FittedStage:
         for st in self.stages:
             if st.name == name:

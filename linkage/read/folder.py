@@ -11,7 +11,7 @@ import pandas as pd
 
 from linkage.exceptions import InputError, Problem
 from linkage.read import DATA_SUFFIXES, MAPPING_FILE, SPEC_FILE, UNSUPPORTED_SUFFIXES, WORKBOOK_SUFFIXES
-from linkage.read.lots import _span, _visible, lot_key
+from linkage.read.lots import row_span, _visible, lot_key
 from linkage.read.mapping import Mapping, _suggest, read_mapping
 from linkage.read.raw import _norm_header
 from linkage.read.table import _build, bulk, read_table
@@ -235,7 +235,7 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
         for lot, rs in respelled.items():
             other, where = spelling[key[lot]]
             problems.append(Problem(label, f"lot {_visible(lot)!r} is lot {_visible(other)!r} {where}, written "
-                                           f"another way (case, dash or compatibility form; {_span(rs)}); one lot "
+                                           f"another way (case, dash or compatibility form; {row_span(rs)}); one lot "
                                            f"has one spelling: write it {_visible(other)!r}",
                                     row=rs[0], column="lot", value=_visible(lot)))
         if tname == "process":
@@ -244,7 +244,7 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
             if unsure_keys and lot_key(lot) in unsure_keys:
                 continue  # its process record's lot cell is refused already
             problems.append(Problem(label, f"lot {lot!r} has no process record in this folder or in the store "
-                                           f"({_span(rs)}); add it to process", row=rs[0], column="lot", value=lot))
+                                           f"({row_span(rs)}); add it to process", row=rs[0], column="lot", value=lot))
     return problems
 
 

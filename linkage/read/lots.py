@@ -7,8 +7,8 @@ store's look-ups apply the very rule the reader applies."""
 
 from __future__ import annotations
 
-from linkage.lotid import (_DASHES, _INVISIBLE, _lot_id_problems, _span, _visible, _without_invisible,
+from linkage.lotid import (_DASHES, _INVISIBLE, _lot_id_problems, row_span, _visible, _without_invisible,
                            lot_id_rule, lot_key)
 
-__all__ = ["_DASHES", "_INVISIBLE", "_lot_id_problems", "_span", "_visible", "_without_invisible", "lot_id_rule",
+__all__ = ["_DASHES", "_INVISIBLE", "_lot_id_problems", "row_span", "_visible", "_without_invisible", "lot_id_rule",
            "lot_key"]

@@ -11,6 +11,7 @@ user-supplied text is escaped wherever it is put.
 from __future__ import annotations
 
 from linkage import CAUTION, __version__
+from linkage.numbers import percent_text
 from linkage.schema import ASSEMBLED
 
 # colour-blind-safe (Okabe & Ito 2008): blue, vermillion, bluish green, grey
@@ -106,7 +107,7 @@ def bound_text(low: float | None, point: float, assurance: float) -> str:
     estimate alone, said so, when there is no bound."""
     if low is None:
         return f"{probability_text(point)} (point estimate; no lower bound)"
-    return f"{at_least(low)} (assurance {100 * assurance:g}%; point estimate {probability_text(point)})"
+    return f"{at_least(low)} (assurance {percent_text(assurance)}; point estimate {probability_text(point)})"
 
 
 def at_least(p: float) -> str:
