@@ -166,9 +166,10 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
     nothing is written. A lot whose values change gets a new revision, which
     needs a ``reason`` (a deviation or correction number); it is recorded
     with the revision. A value far from the product's recent lots (a likely
-    unit mistake, see :mod:`linkage.plausible`) is refused unless
-    ``accept_unusual`` (with a ``reason``). The store logs the ingest in its
-    audit trail."""
+    unit mistake, see :mod:`linkage.plausible`), or one no measurement of
+    its kind holds (sieve apertures below the smallest test sieve's: a stack
+    in mm), is refused unless ``accept_unusual`` (with a ``reason``). The
+    store logs the ingest in its audit trail."""
     from linkage.read import read_folder
     from linkage.store import LotStore
 
@@ -177,7 +178,9 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
     if store.exists() and store.stat().st_size > 0:  # an empty file is what a killed first ingest leaves
         with LotStore(store, create=False) as existing:
             known = existing.lot_ids()
-    checked = read_folder(folder, known_lots=known)  # the store is created only for valid input
+    # the store is created only for valid input; values refused without history (a sieve stack in mm) are
+    # refused here, before it is, unless taken deliberately
+    checked = read_folder(folder, known_lots=known, accept_unusual=accept_unusual)
     with LotStore(store) as lot_store:
         result = lot_store.ingest(checked, reason=reason, accept_unusual=accept_unusual)
     return Ingested(store=store, folder=folder, result=result, sources=checked.sources, spec=checked.spec)

@@ -35,6 +35,12 @@ History needs at least :data:`MIN_HISTORY_LOTS` lots of the product with a
 value; a column with fewer is not judged (said in no message: there is
 nothing to compare with). ``linkage ingest --accept-unusual --reason TEXT``
 takes unusual values deliberately; the audit trail records them.
+
+Without history, so on a first ingest too, :func:`sieve_apertures` refuses
+sieve apertures no test sieve has (below :data:`SMALLEST_SIEVE_UM`, a stack
+written in mm for um); the reader applies it (``read_folder(...,
+accept_unusual=)``) beside a folder's other problems, before a store is
+created, and ``--accept-unusual`` takes those too.
 """
 
 from __future__ import annotations
@@ -281,3 +287,86 @@ def _lot_candidates(df, column: str, references: dict, product_of: dict) -> list
         firsts.setdefault(lot, k)
     by_lot = per_lot_rows(df if keep is None else df[keep], column)
     return [(firsts[lot], lot, m) for lot, m in zip(by_lot, per_lot_medians(by_lot, column))]
+
+
+# --------------------------------------------------------------------------- without history
+
+#: the smallest aperture of a test sieve of woven metal wire cloth [um]: ISO 3310-1:2016, clause 1 (Scope), test
+#: sieves with apertures from 125 mm down to 20 um, following the series of ISO 565. Finer sieves are
+#: electroformed sheets for fine powders (ISO 3310-3), not what a roller compactor's milled granules are sieved on:
+#: mechanical sieving suits particles larger than about 75 um (USP <786> / Ph. Eur. 2.9.38, introduction)
+SMALLEST_SIEVE_UM = 20.0
+#: columns judged without history, by table: the apertures of a sieve analysis (a stack in mm for um)
+JUDGED_WITHOUT_HISTORY: dict[str, tuple[str, ...]] = {"granules": ("sieve_um",)}
+
+
+def sieve_apertures(df, label: str, header: str = "sieve_um", unit: str | None = None,
+                    header_unit: str | None = None) -> tuple[list[Problem], list[dict]]:
+    """Apertures no test sieve has, lot by lot, without history: the problems and the same as records (for the
+    audit trail when they are taken deliberately).
+
+    A positive aperture below :data:`SMALLEST_SIEVE_UM` is no woven-wire test sieve's; a stack written in mm (0.063
+    to 1.4 for 63 to 1400 um) has every aperture below it, so a first ingest, which has no history to compare
+    with (:func:`unusual_values`), catches the slip too. One problem per lot, naming the lot's rows below the
+    limit as runs and, as the value, the median of their apertures (the whole stack's median when every aperture
+    is below, as :func:`unusual_values` judges a stack). ``header`` is the column as the file names it, ``unit``
+    the unit columns.toml reads it in (None: the template's, um) and ``header_unit`` a unit the header itself
+    names (``Sieve (mm)``), for the hint. The pan (0) is never judged."""
+    column = "sieve_um"
+    if df is None or len(df) == 0 or column not in df:
+        return [], []
+    import numpy as np
+
+    v = df[column].to_numpy(dtype=float, na_value=np.nan)
+    if not ((v > 0) & (v < SMALLEST_SIEVE_UM)).any():
+        return [], []  # the common case, decided on the whole column
+    rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
+    positive: dict[str, list[int]] = {}
+    below: dict[str, list[int]] = {}
+    values = df[column].tolist()
+    for k, (lot, v) in enumerate(zip(df["lot"].tolist(), values)):
+        if not isinstance(lot, str) or not isinstance(v, float) or not math.isfinite(v) or v <= 0:
+            continue
+        positive.setdefault(lot, []).append(k)
+        if v < SMALLEST_SIEVE_UM:
+            below.setdefault(lot, []).append(k)
+    problems: list[Problem] = []
+    records: list[dict] = []
+    for lot, ks in below.items():
+        named = [float(values[k]) for k in ks]
+        value = float(median(named))
+        lot_rows = [rows[k] for k in ks]
+        whole = len(ks) == len(positive[lot])
+        if whole:
+            judged = (f"the median {column} of lot {lot!r} ({value:g} µm, of its {row_span(lot_rows)}; the stack is "
+                      "judged as a whole, not row by row) is below")
+        elif len(ks) == 1:
+            judged = f"lot {lot!r} has an aperture of {value:g} µm ({row_span(lot_rows)}), below"
+        else:
+            judged = (f"lot {lot!r} has {len(ks)} apertures of {min(named):g} to {max(named):g} µm (median "
+                      f"{value:g}; {row_span(lot_rows)}), below")
+        limit = f"{judged} {SMALLEST_SIEVE_UM:g} µm, the smallest aperture of a woven-wire test sieve (ISO 3310-1)"
+        if unit is not None and unit != "um":  # converted on read: the unit the mapping gives is the one to check
+            cause = (f"read as {unit} by columns.toml and converted to µm; check the unit it gives '{header}' "
+                     f"(unit = \"{unit}\")")
+        else:
+            times = (f"× 1000 {'the stack' if whole else 'they'} would be {min(named) * 1000:g} to "
+                     f"{max(named) * 1000:g} µm" if len(named) > 1 else f"× 1000 it would be {value * 1000:g} µm")
+            if header_unit == "mm":
+                mapped = "as um" if unit else "without a unit"
+                fix = (f"the header '{header}' says mm, but columns.toml maps it {mapped}: "
+                       f"map it with unit = \"mm\" (\"{header}\" = {{ column = \"{column}\", unit = \"mm\" }})")
+            elif unit is not None:
+                fix = f"columns.toml reads '{header}' as um: if the file gives mm, map it with unit = \"mm\""
+            else:
+                fix = "write the apertures in µm, or map the column in columns.toml with unit = \"mm\""
+            cause = f"it looks like a thousand times too small ({_UNIT_SLIPS['um'][0.001]}): {times}; {fix}"
+        rule = f"no test sieve has so small an aperture: {limit}; {cause}. If it is right, ingest with " \
+               "--accept-unusual --reason TEXT"
+        problems.append(Problem(label, rule, row=None, column=header, value=value))
+        records.append({"file": label, "row": lot_rows[0], "lot": lot, "column": column, "value": value,
+                        "typical": None, "robust_sd_log10": None, "judged": (
+                            "median of the lot's positive values" if whole else
+                            f"median of the lot's apertures below {SMALLEST_SIEVE_UM:g} um"),
+                        "rows": lot_rows, "limit": SMALLEST_SIEVE_UM})
+    return problems, records

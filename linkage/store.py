@@ -614,6 +614,11 @@ class LotStore:
                              "Nothing was written.")
         if unusual and not accept_unusual:
             raise InputError(unusual)
+        # taken deliberately at reading (judged without history, linkage.plausible.sieve_apertures): recorded too,
+        # once for a lot and column that history judged as well
+        judged = {(r["file"], r["lot"], r["column"]) for r in unusual_records}
+        unusual_records = unusual_records + [r for r in getattr(ingest, "unusual", [])
+                                             if (r["file"], r["lot"], r["column"]) not in judged]
         if revised and reason is None:
             shown = ", ".join(revised[:10]) + (f" and {len(revised) - 10} more" if len(revised) > 10 else "")
             raise UsageError(f"this ingest revises {len(revised)} stored lot(s) ({shown}); every revision "

@@ -23,7 +23,8 @@ from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
                    "values change, recorded with the revision and in the audit trail.")
 @click.option("--accept-unusual", is_flag=True,
               help="Take values far from the product's recent lots deliberately (refused otherwise as a likely unit "
-                   "mistake); needs --reason; each value is recorded in the audit trail.")
+                   "mistake), and sieve apertures below the smallest test sieve's (20 um; a stack in mm); needs "
+                   "--reason; each value is recorded in the audit trail.")
 @json_option
 @handle_errors
 def ingest(folder, store, reason, accept_unusual, as_json):
@@ -34,7 +35,8 @@ def ingest(folder, store, reason, accept_unusual, as_json):
     .xlsx), and optionally spec.toml and columns.toml (the lab's own headers
     and units). A lot whose values changed gets a new revision; the old one
     is kept, and the revision carries --reason (refused without one). A
-    value far from the product's recent lots (a likely unit mistake) is
+    value far from the product's recent lots (a likely unit mistake), or a
+    sieve aperture below 20 um (a stack in mm; also on a first ingest), is
     refused, with the mistake it looks like; --accept-unusual takes it.
     Sending the same files again changes nothing.
 

@@ -52,6 +52,9 @@ Separator and decimal mark (the rule that keeps numbers from being misread)
    them, the file is refused.
 2. A row with more non-empty fields than the header, or fewer fields, is
    refused (this is what an unquoted decimal comma in a ``,`` file causes).
+   Where ``lot`` is the first column its field is still read (no stray field
+   comes before it): the message names the lot, and the lot's rows in the
+   other files are not called lots without a process record.
 3. In a ``,``- or tab-separated file, and in a text cell of a workbook, the
    decimal mark is ``.``; a number written with a ``,`` (``"1,234"`` in
    quotes) is refused as ambiguous: thousands separator or decimal comma.

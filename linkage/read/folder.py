@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Iterable
@@ -12,7 +13,7 @@ import pandas as pd
 from linkage.exceptions import InputError, Problem
 from linkage.read import DATA_SUFFIXES, MAPPING_FILE, SPEC_FILE, UNSUPPORTED_SUFFIXES, WORKBOOK_SUFFIXES
 from linkage.read.lots import row_span, _visible, lot_key
-from linkage.read.mapping import Mapping, _suggest, read_mapping
+from linkage.read.mapping import UNITS, Mapping, _norm_unit, _suggest, read_mapping
 from linkage.read.raw import _norm_header
 from linkage.read.table import _build, bulk, read_table
 from linkage.read.workbook import _hidden, _hidden_sheet, _open_workbook, _read_sheet
@@ -27,7 +28,9 @@ class Ingest:
     ``sources[table]`` is ``{"file", "sha256", "rows"}``; ``other_sources``
     holds the same for ``spec.toml`` and ``columns.toml`` when present.
     Each table keeps ``attrs["file"]`` and ``attrs["source_rows"]``
-    (spreadsheet row of each data row).
+    (spreadsheet row of each data row). ``unusual`` holds the values judged
+    without history (:func:`linkage.plausible.sieve_apertures`) that were
+    taken deliberately (``accept_unusual``), as records for the audit trail.
     """
 
     tables: dict[str, pd.DataFrame]
@@ -36,6 +39,7 @@ class Ingest:
     warnings: list[str] = field(default_factory=list)
     folder: Path | None = None
     other_sources: dict[str, dict] = field(default_factory=dict)
+    unusual: list[dict] = field(default_factory=list)
 
     def lots(self) -> list[str]:
         """Every lot named in any table, process lots first, in file order."""
@@ -47,7 +51,7 @@ class Ingest:
 
 
 def read_folder(folder: Path, mapping: Mapping | None = None, *,
-                known_lots: Iterable[str] | None = None) -> Ingest:
+                known_lots: Iterable[str] | None = None, accept_unusual: bool = False) -> Ingest:
     """Read every recognised file of an ingest folder (see the module notes).
 
     ``known_lots`` are the lots already in the store. When given, the folder
@@ -58,6 +62,11 @@ def read_folder(folder: Path, mapping: Mapping | None = None, *,
     checks across files run on the lots read from every file, a refused one
     included (its rows whose lot cell was read and not refused), unless the
     process table's lots could not be read at all.
+
+    Values that no measurement of the kind can hold, judged without history
+    (:data:`linkage.plausible.JUDGED_WITHOUT_HISTORY`: a sieve stack in mm
+    for um), are refused with the others, also in a file refused for other
+    cells; ``accept_unusual`` takes them deliberately (``Ingest.unusual``).
     """
     folder = Path(folder)
     if not folder.is_dir():
@@ -65,14 +74,15 @@ def read_folder(folder: Path, mapping: Mapping | None = None, *,
     workbooks: dict[Path, tuple] = {}  # open workbooks, read once for their sheet names and their cells
     try:
         with bulk():
-            return _read_folder(folder, mapping, known_lots, workbooks)
+            return _read_folder(folder, mapping, known_lots, workbooks, accept_unusual)
     finally:
         for values, formulas in workbooks.values():
             values.close()
             formulas.close()
 
 
-def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: dict) -> Ingest:
+def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: dict,
+                 accept_unusual: bool = False) -> Ingest:
     problems: list[Problem] = []
     warnings: list[str] = []
     sources: dict[str, dict] = {}
@@ -116,7 +126,10 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
     if not plan and not problems:
         problems.append(Problem(folder.name or str(folder), "no table files found; expected "
                                 f"{', '.join(f'{t}.csv' for t in TABLES)} (or .xlsx)"))
-    tables, failed, lots_read = _read_tables(plan, mapping, workbooks, sources, problems, warnings)
+    tables, failed, lots_read, values_read = _read_tables(plan, mapping, workbooks, sources, problems, warnings)
+    unusual, unusual_records = _without_history({**values_read, **tables}, sources, mapping)
+    if not accept_unusual:
+        problems += unusual
     spec = None
     if spec_path is not None:
         try:
@@ -124,25 +137,32 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
             other[SPEC_FILE] = {"file": spec_path.name, "sha256": _sha256(spec_path), "rows": None}
         except InputError as exc:
             problems += exc.problems
-    ingest = Ingest(tables, sources, spec, warnings, folder, other)
+    ingest = Ingest(tables, sources, spec, warnings, folder, other, unusual_records if accept_unusual else [])
     if "process" not in failed or "process" in lots_read:
         # across files on what was read, so that a refused cell of one file does not hide another file's
         # unknown lot until the next run: a refused file contributes the lots of its rows read
         refused = [lot for df in lots_read.values() for lot in df.attrs.get("refused_lots", [])]
+        # process rows refused for their number of fields: the lot their lot field reads is as unsure as a
+        # refused lot cell, and any other lot they hold is named in its results' messages
+        unread_rows = lots_read["process"].attrs.get("unread_rows", []) if "process" in lots_read else []
+        refused += [lot for _, lot, _ in unread_rows if lot is not None]
         problems += cross_check(Ingest({**tables, **lots_read}, sources, folder=folder), known_lots, unread=failed,
-                                unsure=refused)
+                                unsure=refused, unread_rows=unread_rows)
     if problems:
         raise InputError(problems)
     return ingest
 
 
 def _read_tables(plan: dict, mapping: Mapping | None, workbooks: dict, sources: dict, problems: list[Problem],
-                 warnings: list[str]) -> tuple[dict[str, pd.DataFrame], set[str], dict[str, pd.DataFrame]]:
+                 warnings: list[str]) -> tuple[dict[str, pd.DataFrame], set[str], dict[str, pd.DataFrame],
+                                               dict[str, pd.DataFrame]]:
     """Every planned table read: the tables read, the names of those refused (their problems added to
-    ``problems``), and the lots read from each refused one (for the checks across files)."""
+    ``problems``), the lots read from each refused one (for the checks across files), and the values of each
+    refused one that are judged without history (:meth:`linkage.read.table._Check.values_read`)."""
     tables: dict[str, pd.DataFrame] = {}
     failed: set[str] = set()
     lots_read: dict[str, pd.DataFrame] = {}
+    values_read: dict[str, pd.DataFrame] = {}
     for tname in (t for t in TABLES if t in plan):
         path, sheet, label = plan[tname]
         try:
@@ -157,12 +177,37 @@ def _read_tables(plan: dict, mapping: Mapping | None, workbooks: dict, sources: 
             if getattr(exc, "lots_read", None) is not None:
                 lots_read[tname] = exc.lots_read
                 sources[tname] = {"file": label}  # for the messages only: the ingest is refused
+            if getattr(exc, "values_read", None) is not None:
+                values_read[tname] = exc.values_read
+                sources.setdefault(tname, {"file": label})
             continue
         tables[tname] = df
         sources[tname] = {"file": label, "sha256": _sha256(path), "rows": len(df)}
         if len(df) == 0:
             warnings.append(f"{label} has a header but no data rows")
-    return tables, failed, lots_read
+    return tables, failed, lots_read, values_read
+
+
+def _without_history(frames: dict[str, pd.DataFrame], sources: dict, mapping: Mapping | None
+                     ) -> tuple[list[Problem], list[dict]]:
+    """The values no measurement of their kind holds, judged without history (linkage/plausible.py): the
+    apertures of each sieve analysis, with the header and unit columns.toml reads them by (for the hint)."""
+    from linkage.plausible import sieve_apertures
+
+    df = frames.get("granules")
+    if df is None:
+        return [], []
+    cmap = next((m for m in (mapping or Mapping()).for_table("granules").values() if m.target == "sieve_um"), None)
+    header = cmap.source if cmap is not None else "sieve_um"
+    return sieve_apertures(df, sources.get("granules", {}).get("file", "granules"), header,
+                           unit=None if cmap is None else cmap.unit, header_unit=_header_unit(header))
+
+
+def _header_unit(header: str) -> str | None:
+    """The length unit a header ends with (``Sieve (mm)``, ``aperture_um``, ``Sieve [µm]``), or None."""
+    words = re.findall(r"[^\W\d_]+", header)
+    unit = _norm_unit(words[-1]) if words else None
+    return unit if unit in UNITS["um"] else None
 
 
 def _plan(plan: dict, table: str, item: tuple, problems: list[Problem]) -> None:
@@ -199,7 +244,8 @@ def _sha256(path: Path) -> str:
 
 
 def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterable[str] = (),
-                unsure: Iterable[str] = ()) -> list[Problem]:
+                unsure: Iterable[str] = (), unread_rows: Iterable[tuple[int, str | None, list[str]]] = ()
+                ) -> list[Problem]:
     """Rules across tables, given the lots already in the store.
 
     ``known_lots=None`` means the store is not known yet and nothing is
@@ -208,7 +254,10 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
     (``unread`` names tables that are there but failed to read). ``unsure``
     are lots whose cells were refused already (their process record may be
     one of them): a result without a process record is not reported for a
-    lot of the same :func:`lot_key`.
+    lot of the same :func:`lot_key`. ``unread_rows`` are the process rows
+    refused for their number of fields, (sheet row, lot field or None, fields):
+    a result whose lot is one of a row's other fields is reported as waiting
+    for that row (an extra field before the lot column shifts it).
     """
     if known_lots is None:
         return []
@@ -219,6 +268,10 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
     # a stored id is never refused: a store written before this rule may hold two spellings of one lot
     respelled_ids = {lot for lot in key.keys() - known if spelling.get(key[lot], (lot,))[0] != lot}
     unsure_keys = {lot_key(lot) for lot in unsure}
+    held_in: dict[str, list[int]] = {}  # the key of each field of an unread process row -> those rows
+    for row, _, cells in unread_rows:
+        for key_of_cell in {lot_key(c) for c in cells if c}:
+            held_in.setdefault(key_of_cell, []).append(row)
     for tname, df in ingest.tables.items():
         odd = {lot for lot in df["lot"].unique().tolist() if lot in respelled_ids or lot not in with_process}
         if not odd:
@@ -243,6 +296,15 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
         for lot, rs in orphans.items():
             if unsure_keys and lot_key(lot) in unsure_keys:
                 continue  # its process record's lot cell is refused already
+            held = held_in.get(lot_key(lot)) if held_in else None
+            if held:
+                process_label = ingest.sources.get("process", {}).get("file", "process")
+                where = f"row {held[0]}" if len(held) == 1 else f"rows {', '.join(map(str, held))}"
+                problems.append(Problem(label, f"lot {lot!r} has no process record read ({row_span(rs)}): "
+                                               f"{process_label} {where}, refused for its number of fields, holds "
+                                               f"{lot!r} and is probably its record; this follows from that row: "
+                                               "fix it", row=rs[0], column="lot", value=lot))
+                continue
             problems.append(Problem(label, f"lot {lot!r} has no process record in this folder or in the store "
                                            f"({row_span(rs)}); add it to process", row=rs[0], column="lot", value=lot))
     return problems

@@ -73,6 +73,7 @@ def _from_records(text: str, sep: str, label: str) -> _Raw:
     if set(map(len, body)) <= {n} and all(map(str.strip, map("".join, body))):
         return _Raw.from_rows(label, header, list(zip(range(2, len(body) + 2), body)), sep)  # complete, none blank
     problems: list[Problem] = []
+    ragged: list[tuple[int, list[str], Problem]] = []
     rows: list[tuple[int, list]] = []
     join = "".join
     for i, rec in enumerate(body, start=2):
@@ -86,9 +87,10 @@ def _from_records(text: str, sep: str, label: str) -> _Raw:
                     else " (a missing separator?)")
             problems.append(Problem(label, f"row has {len(rec)} fields but the header has {n}{hint}",
                                     row=i, value=shown[:120]))
+            ragged.append((i, rec, problems[-1]))
             continue
         rows.append((i, rec))
-    return _Raw.from_rows(label, header, rows, sep, problems=problems)
+    return _Raw.from_rows(label, header, rows, sep, problems=problems, ragged=ragged)
 
 
 def _quote_free(text: str, sep: str, label: str) -> _Raw | None:

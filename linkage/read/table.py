@@ -9,7 +9,7 @@ import itertools
 import math
 import re
 from contextlib import contextmanager
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -19,7 +19,7 @@ from linkage.exceptions import InputError, Problem
 from linkage.read import MAPPING_FILE, UNSUPPORTED_SUFFIXES, WORKBOOK_SUFFIXES
 from linkage.read.cells import (_as_list, _column_clean, _decimal_mark, _extra_non_finite, _extra_values,
                                 _fast_cells, _in_bounds, _parse_datetime, _parse_number, _shown, _text)
-from linkage.read.lots import _lot_id_problems, _without_invisible
+from linkage.read.lots import _lot_id_problems, _visible, _without_invisible
 from linkage.read.mapping import ROLL_WIDTH_COLUMN, TOTAL_FORCE_COLUMN, ColumnMap, Mapping, _suggest, _without_unit
 from linkage.read.raw import _is_missing, _letters, _norm_header, _Raw
 from linkage.read.rules import _key_problems, _rule_problems, _sorted
@@ -85,6 +85,7 @@ def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
     """Apply the template to a raw sheet; raise InputError with every problem."""
     check = _Check(raw, tdef, list(raw.problems))
     check.targets, unit_headers = _match_header(raw, tdef, cmaps, check.problems)
+    check.read_ragged()
     hinted = _require_columns(raw.label, tdef, check.targets, unit_headers, check.problems)
     _near_template_names(raw.label, tdef, check.targets, unit_headers, hinted, check.problems)
     # the decimal mark from the number cells of the file (module notes, rule 4)
@@ -253,6 +254,8 @@ class _Check:
     extra: dict[str, list] = field(default_factory=dict)
     headers: dict[str, str] = field(default_factory=dict)  # target -> header as written
     bad: set[tuple[int, str]] = field(default_factory=set)  # (row index, target) of cells already refused
+    #: rows refused for their number of fields: (sheet row, the lot its lot field reads or None, its fields)
+    ragged: list[tuple[int, str | None, list[str]]] = field(default_factory=list)
 
     def refuse(self, k: int, target: str, rule: str, value: object = None, column: str | None = None) -> None:
         """Report the cell of row index ``k`` in ``target``'s column and mark it refused."""
@@ -264,6 +267,25 @@ class _Check:
         """The cell as written in the file, trimmed, for a message."""
         j = next((j for j, t, _, _ in self.targets if t == target), None)
         return None if j is None else _shown(self.raw.cell(k, j))
+
+    def read_ragged(self) -> None:
+        """The lot field of each row refused for its number of fields (``_Raw.ragged``), read where the lot is
+        the first column: no extra or missing field (an unquoted decimal comma, a lost separator) can come
+        before it, so it is right unless the lot id itself holds the separator. A process row's problem then
+        names that lot, and the checks across files do not call the lot's rows in the other files unknown (its
+        process record is that row; ``_Check.lots_read``). Where the lot column comes later a stray field may
+        have shifted it: the row's fields are kept, and a result whose lot is one of them is reported as
+        following from the row (``linkage.read.folder.cross_check``)."""
+        first = bool(self.targets) and self.targets[0][0] == 0 and self.targets[0][1] == "lot"
+        for row, fields, problem in self.raw.ragged:
+            cells = [_text(c) for c in fields]
+            lot = cells[0] if first and cells and not _is_missing(fields[0]) else None
+            self.ragged.append((row, lot, cells))
+            if lot is not None and self.tdef.name == "process" and problem in self.problems:
+                at = self.problems.index(problem)
+                self.problems[at] = replace(problem, rule=(
+                    f"{problem.rule}; its lot field reads {_visible(lot)!r}: that lot's rows in the other files "
+                    "are not checked against a process record until this row is read"))
 
     def read_column(self, target_item: Target, decimal: str) -> None:
         """Parse one column: formulas and percentages of a workbook, then each cell by its kind."""
@@ -368,7 +390,26 @@ class _Check:
         # the refused lot cells, with invisible characters taken out: the lots they were probably meant to be
         refused = {lot for k, lot in enumerate(df["lot"].tolist()) if isinstance(lot, str) and (k, "lot") in self.bad}
         lots.attrs["refused_lots"] = sorted(map(_without_invisible, refused))
+        # rows refused for their number of fields (sheet row, lot field or None, fields): a process record unread
+        lots.attrs["unread_rows"] = [(row, None if lot is None else _without_invisible(lot), cells)
+                                     for row, lot, cells in self.ragged]
         return lots
+
+    def values_read(self, df: pd.DataFrame) -> pd.DataFrame | None:
+        """The columns judged without history (:data:`linkage.plausible.JUDGED_WITHOUT_HISTORY`) of a refused
+        sheet, with the lot, its refused cells as missing and the sheet rows; None for a table without such
+        columns. So the folder still judges them (a sieve stack in mm) beside the sheet's other problems."""
+        from linkage.plausible import JUDGED_WITHOUT_HISTORY
+
+        columns = [c for c in JUDGED_WITHOUT_HISTORY.get(self.tdef.name, ()) if c in self.values]
+        if "lot" not in self.values or not columns:
+            return None
+        out = df[["lot", *columns]].copy()
+        for k, name in self.bad:
+            if name in out:
+                out.loc[k, name] = None if name == "lot" else np.nan
+        out.attrs["source_rows"] = SourceRows(self.raw.row_numbers)
+        return out
 
     def frame(self) -> pd.DataFrame:
         """The typed table, after the lot-id, key and row rules; InputError with every problem of the sheet."""
@@ -383,6 +424,7 @@ class _Check:
         if problems:
             exc = InputError(_sorted(problems))
             exc.lots_read = self.lots_read(df) if "lot" in self.values else None
+            exc.values_read = self.values_read(df)
             raise exc
         df.attrs["table"] = tdef.name
         df.attrs["file"] = raw.label
