@@ -170,9 +170,12 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
     its kind holds (sieve apertures below the smallest test sieve's: a stack
     in mm), is refused unless ``accept_unusual`` (with a ``reason``). The
     store logs the ingest in its audit trail."""
+    from linkage.exceptions import UsageError
     from linkage.read import read_folder
-    from linkage.store import LotStore
+    from linkage.store import ACCEPT_NEEDS_REASON, LotStore
 
+    if accept_unusual and not (isinstance(reason, str) and reason.strip()):
+        raise UsageError(ACCEPT_NEEDS_REASON)  # before a first ingest creates the store
     folder, store = Path(folder), Path(store)
     known: list[str] = []
     if store.exists() and store.stat().st_size > 0:  # an empty file is what a killed first ingest leaves

@@ -303,6 +303,11 @@ def _classify(prepared: dict, order: list[str], current: dict) -> tuple[list, li
 # --------------------------------------------------------------------------- the store
 
 
+#: the refusal of --accept-unusual without --reason (the API checks it before the store is created, the store again)
+ACCEPT_NEEDS_REASON = ("--accept-unusual takes unusual values deliberately: give --reason TEXT to say why. "
+                       "Nothing was written.")
+
+
 class LotStore:
     """The SQLite lot store. Use as a context manager, or call :meth:`close`.
 
@@ -610,8 +615,7 @@ class LotStore:
         unusual, unusual_records = _plausible.unusual_values(
             ingest, self._history(c, set(product_of.values()), set(product_of)), product_of)
         if accept_unusual and reason is None:
-            raise UsageError("--accept-unusual takes unusual values deliberately: give --reason TEXT to say why. "
-                             "Nothing was written.")
+            raise UsageError(ACCEPT_NEEDS_REASON)
         if unusual and not accept_unusual:
             raise InputError(unusual)
         # taken deliberately at reading (judged without history, linkage.plausible.sieve_apertures): recorded too,

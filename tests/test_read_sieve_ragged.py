@@ -10,6 +10,7 @@
 2. A process row with one field too many (an unquoted decimal comma) was refused, and then every result row
    of its lot was reported as well, as having no process record: three messages that only followed from the
    first.
+3. ``--accept-unusual`` without ``--reason``, on a first ingest, left an empty store behind.
 
 The limit is the source's; the rest are regression tests of refusals and of what a message names, with the
 expected rows, medians and counts read off the edited files themselves (numpy's median, the files' lines),
@@ -167,6 +168,18 @@ def test_a_stack_in_mm_taken_deliberately_is_stored_and_recorded(tmp_path):
     assert {"file", "row", "lot", "column", "value", "typical", "robust_sd_log10"} <= set(record)
     assert (record["lot"], record["column"], record["rows"], record["row"]) == ("EX-004", "sieve_um", rows, rows[0])
     assert record["value"] == pytest.approx(float(np.median(values))) and record["limit"] == SMALLEST_SIEVE_UM
+
+
+def test_accept_unusual_without_a_reason_creates_no_store(tmp_path):
+    """--accept-unusual without --reason is refused before a first ingest creates the store (it left an empty,
+    sealed store behind while saying that nothing was written)."""
+    folder = _copy(tmp_path)
+    _granules_in_mm(folder)
+    store = tmp_path / "new.db"
+    for reason in ([], ["--reason", "  "]):
+        result = run_cli(["ingest", folder, "--store", store, "--accept-unusual", *reason])
+        assert result.exit_code == 2 and "--reason" in result.stderr, result.output
+        assert not store.exists() and not Path(f"{store}.seal").exists()
 
 
 def test_a_header_in_mm_mapped_with_its_unit_is_read_in_um(tmp_path):
