@@ -405,9 +405,10 @@ class _Check:
         if "lot" not in self.values or not columns:
             return None
         out = df[["lot", *columns]].copy()
-        for k, name in self.bad:
-            if name in out:
-                out.loc[k, name] = None if name == "lot" else np.nan
+        for name in out.columns:
+            refused = sorted(k for k, target in self.bad if target == name)
+            if refused:  # set at once: a file may have a whole column refused
+                out.loc[refused, name] = None if name == "lot" else np.nan
         out.attrs["source_rows"] = SourceRows(self.raw.row_numbers)
         return out
 
