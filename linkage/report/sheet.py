@@ -199,8 +199,21 @@ def _prediction_row(name: str, p: dict, d: dict) -> dict:
                    for k, v in p.get("p_stage", {}).items()],
         "extrapolation": "p_pass" in p and not d["promise"],
         "method": p["interval_method"], "model": p["selected_model"],
-        "contributions": [(c["input"], contribution_text(c["value"])) for c in p.get("contributions", [])],
+        "contributions": contributions_shown(p),
     }
+
+
+#: said in place of the largest contributions when every one the what-if gives is zero
+NO_CONTRIBUTION = "none (no input moves this prediction from the model's base value at these settings)"
+
+
+def contributions_shown(p: dict) -> list[tuple[str, str]] | str:
+    """The largest contributions of one prediction entry that are not zero, as (input, text) pairs (an input
+    the model does not use contributes exactly 0 and is not a contribution); :data:`NO_CONTRIBUTION` when
+    the entry has some and all are zero, and [] when it has none (a what-if made without them)."""
+    given = p.get("contributions") or []
+    shown = [(c["input"], contribution_text(c["value"])) for c in given if c["value"] != 0]
+    return shown if shown or not given else NO_CONTRIBUTION
 
 
 def _probability_all(d: dict) -> dict:

@@ -68,3 +68,53 @@ def test_a_zero_contribution_prints_as_0():
     assert f"{-0.0:+.3g}" == "-0"
     assert contribution_text(-0.0) == contribution_text(0.0) == "0"
     assert contribution_text(-0.0403) == "-0.0403" and contribution_text(0.107) == "+0.107"
+
+
+def _detail_row(page: str, name: str) -> str:
+    """The text of the detail row (interval, model, contributions) under an attribute's row of the sheet."""
+    row = page[page.find(f"<tr class=main><td>{name}"):]
+    row = row[row.find("<tr class=detail>"):]
+    return _text(row[:row.find("</tr>")])
+
+
+def test_the_sheet_lists_only_contributions_that_are_not_zero(scenario):
+    """A user test read 'largest contributions: fines_pct -0.0678, ribbon_porosity 0, granule_d50_um 0': an
+    input the selected model does not use contributes exactly 0 and is no contribution. Every non-zero one of
+    the what-if's three largest (its JSON, ``contributions``) is listed with its sign, no zero is. Regression
+    test of the sheet's wording (no outside source; the contributions themselves are checked against SHAP and
+    the exact linear terms in tests/report/test_explain.py and tests/models/test_link_candidates.py). The scenario's weight RSD depends on fines alone."""
+    _, chain, spec, _ = scenario
+    r = predict_whatif(chain, {"roll_force_kn_per_cm": 9.0}, spec=spec, n_draws=400, seed=0)
+    d = r.to_dict()
+    page = whatif_html(r)
+    zeros = 0
+    for name, p in d["predictions"].items():
+        detail = _detail_row(page, name)
+        for c in p["contributions"]:
+            if c["value"] == 0:
+                zeros += 1
+                assert f"{c['input']} 0" not in detail, (name, detail)
+            else:
+                assert f"{c['input']} {contribution_text(c['value'])}" in detail, (name, detail)
+        assert ("largest contributions:" in detail) == bool(p["contributions"])
+    assert zeros >= 1, "the scenario should have an attribute whose model leaves an input out"
+
+
+def test_a_prediction_no_input_moves_says_it_has_no_contribution():
+    """A chain of training means (the ``mean`` candidate alone): every contribution is exactly 0 (the
+    prediction is the base value whatever the inputs), and the sheet says there is none instead of
+    listing zeros. Regression test of the wording (no outside source)."""
+    from linkage.assemble import assemble
+    from linkage.models.train import train_chain
+    from linkage.report.sheet import NO_CONTRIBUTION
+    from linkage.synthetic import make_lots
+
+    chain = train_chain(assemble(make_lots(30, seed=1).tables), seed=0, candidates=["mean"], n_bootstrap=0)
+    r = predict_whatif(chain, {"ribbon_porosity": 0.3}, n_draws=200, seed=0)
+    d = r.to_dict()
+    page = whatif_html(r)
+    for name, p in d["predictions"].items():
+        assert p["contributions"] and all(c["value"] == 0 for c in p["contributions"]), name
+        detail = _detail_row(page, name)
+        assert f"largest contributions: {NO_CONTRIBUTION}" in detail, detail
+        assert not any(f"{c['input']} 0" in detail for c in p["contributions"])
