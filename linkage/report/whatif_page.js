@@ -842,6 +842,16 @@
   const atLeast = (v) => { const t = pct(v); return t.startsWith(">") ? t
     : t.startsWith("<") ? `under ${t.slice(1).trim()} at its lower bound` : `at least ${t}`; };
 
+  // A number box shows a setting to the decimals of its slider's step (a thousandth of the training range), trailing
+  // zeros dropped: 2.417409174 shows as 2.417. The value computed with stays the full one: the box keeps it
+  // (box.exact) until its text is edited, and given() takes it while the box still shows it.
+  const stepDecimals = (s) => Math.min(12, Math.max(0, Math.ceil(-Math.log10((s.high - s.low) / 1000) - 1e-9)));
+  const boxText = (s, v) => String(Number(Number(v).toFixed(stepDecimals(s))));
+  function showValue(s, box, v) { box.exact = Number(v); box.value = boxText(s, v); }
+  function boxValue(s, box) { return box.exact !== undefined && box.value === boxText(s, box.exact) ? box.exact : Number(box.value); }
+  // the stage probabilities as predict writes them (results.stage_text): "at S1 79.0 %, by S2 > 99.9 %, by S3 > 99.9 %"
+  const stageText = (pStage) => Object.entries(pStage).map(([k, v], i) => `${i === 0 ? "at" : "by"} ${k} ${pct(v)}`).join(", ");
+
   function build() {
     app.textContent = "";
     app.append(el("h1", { text: "What-if, model " + M.model_id }));
@@ -862,12 +872,13 @@
       const start = s.name in M.initial ? M.initial[s.name] : s.median;
       const check = el("input", { type: "checkbox", id: "set-" + s.name, "data-setting": s.name });
       const slider = el("input", { type: "range", id: "slider-" + s.name, min: s.low, max: s.high, step, value: start });
-      const box = el("input", { type: "number", id: "value-" + s.name, min: s.low, max: s.high, step: "any", value: start });
+      const box = el("input", { type: "number", id: "value-" + s.name, min: s.low, max: s.high, step: "any" });
+      showValue(s, box, start);
       check.checked = s.name in M.initial;
       const srcCell = el("td", { id: "source-" + s.name });
       check.addEventListener("change", update);
-      slider.addEventListener("input", () => { box.value = slider.value; check.checked = true; update(); });
-      box.addEventListener("input", () => { slider.value = box.value; check.checked = true; update(); });
+      slider.addEventListener("input", () => { showValue(s, box, slider.value); check.checked = true; update(); });
+      box.addEventListener("input", () => { box.exact = undefined; slider.value = box.value; check.checked = true; update(); });
       table.append(el("tr", {}, el("td", { class: "set" }, check), el("td", { text: s.name + (s.unit && !NOT_UNITS.has(s.unit) ? ` [${s.unit}]` : "") }),
         el("td", { text: `${fmt(s.low)} – ${fmt(s.high)}` }), el("td", {}, box), el("td", { class: "slider" }, slider), srcCell));
     }
@@ -884,7 +895,7 @@
   function given() {
     const out = {};
     for (const s of M.settings) {
-      if (document.getElementById("set-" + s.name).checked) out[s.name] = Number(document.getElementById("value-" + s.name).value);
+      if (document.getElementById("set-" + s.name).checked) out[s.name] = boxValue(s, document.getElementById("value-" + s.name));
     }
     return out;
   }
@@ -926,7 +937,7 @@
       const inp = r.inputs[s.name];
       document.getElementById("source-" + s.name).textContent = inp ? `${fmt(inp.value)} (${inp.source})` : "";
       if (inp && inp.source !== "given") {
-        document.getElementById("value-" + s.name).value = inp.value;
+        showValue(s, document.getElementById("value-" + s.name), inp.value);
         document.getElementById("slider-" + s.name).value = inp.value;
       }
     }
@@ -944,8 +955,13 @@
         el("td", { class: "num", text: p.p_pass === undefined ? "" : pct(p.p_pass) }),
         el("td", { class: "num", text: p.p_pass_low === undefined ? "" : pct(p.p_pass_low) }),
         el("td", { text: p.selected_model }), el("td", { text: p.interval_method }));
-      if (p.p_pass !== undefined) tr.classList.add(p.p_pass_low !== undefined && p.p_pass_low !== null && p.p_pass_low >= 0.9 ? "good" : "watch");
+      const shade = p.p_pass === undefined ? "" : p.p_pass_low !== undefined && p.p_pass_low !== null && p.p_pass_low >= 0.9 ? "good" : "watch";
+      if (shade) tr.classList.add(shade);
       t.append(tr);
+      if (p.p_stage) // the USP <711> stages (a spec judging dissolution by stages), as predict and the sheet give them
+        t.append(el("tr", { class: ("stages " + shade).trim(), "data-attribute": name }, el("td", { colspan: 8, class: "note",
+          text: `${name}, USP <711> stages: ${stageText(p.p_stage)} (passing by that stage, point estimates; ` +
+            `P(pass) above is by ${p.pass_by})` })));
     }
     sec.append(t);
     const b = r.p_pass_all_bound;
