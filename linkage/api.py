@@ -661,9 +661,12 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     chain = _fitted(models_dir, model)
     check_time_point(chain, spec, "report")
     product = chain.trained_product
+    from linkage.products import other_counts
+
     with LotStore(store, create=False) as lot_store:
         tables = current_tables_of(lot_store, product)
         lots = lot_store.lots(product=product)
+        others = other_counts(lot_store.product_counts(), product)  # said in the report, not shown
     if not tables:
         raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
                                                                           else "") + "; nothing to report on")
@@ -703,7 +706,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     kept_figures = _reuse_key(models_dir, chain.model_id, "figures", figures_key)
     rendered = render_report(chain, table, spec=spec, window=found, lots=lots, confidence=confidence, seed=seed,
                              curve_draws=REPORT_CURVE_DRAWS, assurance=assurance, plan=plan, space=space,
-                             reused=reused, kept_figures=kept_figures)
+                             reused=reused, kept_figures=kept_figures, other_lots=others)
     if "mewma" in rendered.computed:
         _keep(models_dir, chain.model_id, "mewma", None,
               (designs.result if designs is not None else []) + rendered.computed["mewma"], "linkage report",
@@ -747,7 +750,10 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     """The drift watch (``linkage watch``): residual control charts of every
     lot in time order, ribbon porosity within and between lots (against the
     ``spec``'s window when given), new lots outside the domain, recorded
-    what-ifs against what the lots measured. Logs ``watch``."""
+    what-ifs against what the lots measured. The lots are ``product``'s,
+    by default the model's product when it was trained on one (as
+    :func:`report` takes them); the store's lots of other products are left
+    out, and a note says so. Logs ``watch``."""
     from linkage.assemble import assemble as assemble_table
     from linkage.decide.watch import revised_since_training, watch as run_watch
     from linkage.store import LotStore, current_tables_of
@@ -771,10 +777,21 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
                          "window. Add lots, or look at a window at a lower confidence with "
                          "'linkage window --confidence'")
         found = (w.low.value, w.high.value) if w is not None and w.found else None
+    if product is None:  # the lots of the one product the model was trained on (issue: other products charted)
+        product = chain.trained_product
+    elif chain.trained_product is not None and product != chain.trained_product:
+        notes.append(f"the lots of {product!r} are charted against model {chain.model_id}, a model of "
+                     f"{chain.trained_product!r}: alarms may say only that the products differ")
+    from linkage.products import other_counts, others_text
+
     with LotStore(store, create=False) as s:
         tables = current_tables_of(s, product)
         recorded = s.predictions()
         stored_lots = s.lots(product)
+        others = other_counts(s.product_counts(), product)
+    if others:
+        notes.append(f"the store's {others_text(others)} are not watched: only the lots of {product!r} are "
+                     "(--product to watch another product's)")
     table = assemble_table(tables, dissolution_time_min=model_time_point(chain)[0])  # the model's time point
     result = run_watch(chain, table, ribbon=tables.get("ribbon"), window=found, recorded=recorded)
     revised = revised_since_training(stored_lots, chain.training.get("lots") or [], chain.created_at)

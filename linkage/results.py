@@ -142,11 +142,22 @@ def train_json(fitted: FittedChain) -> dict:
         "dissolution_time_min": meta["training"].get("dissolution_time_min"),
         "group_by": meta["training"].get("group_by", "lot"),
         "materials": meta["training"].get("materials"),
+        **products_json(meta["training"]),
         "targets": {name: {**{k: t.get(k) for k in TARGET_KEYS}, "forward": t.get("forward")}
                     for name, t in meta["targets"].items()},
         "skipped": meta["skipped"],
         "caution": CAUTION,
     }
+
+
+def products_json(training: dict) -> dict:
+    """``products`` (each product of the training lots with ``n_lots``; ``product`` null for lots without a
+    product name) and ``products_note`` (what ``train`` says on stderr of a model of several products, else
+    null): the keys ``train --json`` gains for a store of several products."""
+    from linkage.products import train_note, training_counts
+
+    counts = training_counts(training)
+    return {"products": [{"product": p, "n_lots": n} for p, n in counts], "products_note": train_note(counts)}
 
 
 def _num(v, width=9, fmt=".4g", sign="") -> str:
@@ -271,6 +282,13 @@ class Trained(_Result):
 
     def text(self) -> str:
         return train_text(self.chain)
+
+    @property
+    def notes(self) -> list[str]:
+        """What ``linkage train`` says on stderr: that the model was trained on several products (or on lots
+        without a product name beside them), naming them and their lots."""
+        note = products_json(self.chain.training)["products_note"]
+        return [note] if note else []
 
     def summary(self) -> pd.DataFrame:
         """One row per attribute and candidate (index ``attribute``,
@@ -509,6 +527,18 @@ def _end(v) -> str:
     return "unbounded" if v is None or abs(v) == float("inf") else f"{v:.4g}"
 
 
+def trained_products_lines(d: dict) -> list[str]:
+    """A what-if's line on a model trained on several products (or on lots without a product name beside
+    them): what it was trained on, since the what-if's product is then not the model's alone."""
+    from linkage.products import is_mixed, trained_on_text
+
+    counts = [(p["product"], p["n_lots"]) for p in d.get("trained_products") or []]
+    if not is_mixed(counts):
+        return []
+    return [f"Model {trained_on_text(counts)}"
+            + ("; give --product to say which this what-if is for." if d.get("product") is None else ".")]
+
+
 def whatif_text(result: WhatIf) -> str:
     """What ``linkage predict`` prints for one what-if."""
     from linkage.report.sheet import (NO_PROMISE, PROJECTED_NOTE, at_least, bound_text, every_spec_text,
@@ -530,6 +560,7 @@ def whatif_text(result: WhatIf) -> str:
 
             head += f" ({UNRECORDED_NOTE})"
     lines.append(head + ".")
+    lines += trained_products_lines(d)
     if d.get("spec"):
         lines.append(f"Spec {d['spec'].get('file') or '(not from a file)'}"
                      + (f", SHA-256 {d['spec']['sha256'][:12]}…" if d['spec'].get('sha256') else "")
@@ -708,7 +739,8 @@ class Retrained(_Result):
         d = self.result.to_dict()
         verdict = "PROMOTED" if d["promoted"] else "NOT PROMOTED"
         lines = [f"Challenger {d['challenger_id']} {verdict}; champion was {d['champion_id']}.",
-                 f"New lots since the champion: {len(d['new_lots'])}"]
+                 f"New lots since the champion: {len(d['new_lots'])}"
+                 + (f" (product {d['product']})" if d.get("product") else "")]
         lines += [f"  - {line}" for line in d["reasons"]]
         if d["window_moved"]:
             w = d["window_moved"]

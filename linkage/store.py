@@ -540,6 +540,14 @@ class LotStore:
         """Every lot in the store, in the order they first came."""
         return [r[0] for r in self._read("SELECT lot FROM lots ORDER BY rowid")]
 
+    def product_counts(self) -> dict[str | None, int]:
+        """The number of lots of each product (their current revision's), None for lots without a product name."""
+        counts: dict[str | None, int] = {}
+        for product, n in self._read("SELECT product, COUNT(*) FROM current_revisions GROUP BY product"):
+            key = product if isinstance(product, str) and product.strip() else None
+            counts[key] = counts.get(key, 0) + int(n)
+        return counts
+
     def stored_spelling(self, lot: str) -> str | None:
         """The stored lot that ``lot`` is under the reader's lot identity
         (:func:`linkage.lotid.lot_key`: case, dashes, compatibility forms),

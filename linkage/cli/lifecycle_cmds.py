@@ -17,7 +17,10 @@ _spec_option = click.option("--spec", "spec_path", type=click.Path(exists=True, 
 @store_option
 @models_dir_option
 @_spec_option
-@click.option("--product", default=None, help="Product to retrain when the store holds several.")
+@click.option("--product", default=None,
+              help="The product whose lots the challenger is fitted on; only the champion's is taken (another "
+                   "would not be comparable with it).  [default: the champion's product when it was trained on one, "
+                   "else every lot of the store, as the champion was trained]")
 @click.option("--tolerance", default=0.10, show_default=True, type=float,
               help="Non-inferiority margin: how much worse (fraction) the challenger's RMSE on the lots the "
                    "champion never saw may be, for each attribute, before promotion is refused.")
@@ -67,7 +70,9 @@ def retrain(store, models_dir, spec_path, product, tolerance, force, reason, as_
 @click.option("--model", "model_id", default="latest", show_default=True,
               help="Model id from 'linkage models', or 'latest'.")
 @_spec_option
-@click.option("--product", default=None, help="Watch only the lots of this product.")
+@click.option("--product", default=None,
+              help="Watch only the lots of this product.  [default: the model's product when it was trained on "
+                   "one, else every lot of the store; lots of other products left out are named in a note]")
 @json_option
 @handle_errors
 def watch(store, models_dir, model_id, spec_path, product, as_json):

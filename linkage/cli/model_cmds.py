@@ -8,7 +8,7 @@ from pathlib import Path
 import click
 
 from linkage.cli.common import (PROBABILITY, FiniteFloat, handle_errors, json_option, models_dir_option,
-                                progress_bars, store_option)
+                                progress_bars, store_option, tell_progress)
 from linkage.results import TARGET_KEYS, train_json, train_text  # noqa: F401 (TARGET_KEYS: kept importable here)
 from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN
 
@@ -21,7 +21,8 @@ format_train = train_text
 @models_dir_option
 @click.option("--chain", "chain_path", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Chain file (TOML) naming the stages; default: settings -> ribbon -> granules -> tablets.")
-@click.option("--product", default=None, help="Train on the lots of this product only.")
+@click.option("--product", default=None, help="Train on the lots of this product only.  [default: every lot of "
+              "the store; where they are of several products (or some have none), train says so and names them]")
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the cross-validation folds.")
 @click.option("--coverage", default=0.9, show_default=True, type=PROBABILITY,
               help="Nominal coverage of the prediction intervals (0-1).")
@@ -94,6 +95,8 @@ def train(store, models_dir, chain_path, product, seed, coverage, spec_path, dis
         trained = run_train(store, models_dir, chain=chain_path, product=product, seed=seed, coverage=coverage,
                             spec=spec_path, dissolution_time_min=dissolution_time_min, n_jobs=n_jobs, backend=backend,
                             scheduler=scheduler, progress=progress, group_by=group_by, materials=materials)
+    for note in trained.notes:  # a model of several products, trained without --product: said, not refused
+        tell_progress(f"Note: {note}")
     if as_json:
         click.echo(json.dumps(trained.to_dict(), indent=2, allow_nan=False, ensure_ascii=False))
     else:

@@ -88,11 +88,14 @@ class RetrainDecision:
     comparisons: list[Comparison]
     window_moved: dict | None = None
     notes: list[str] = field(default_factory=list)
+    #: the product whose lots the challenger was fitted on (the champion's; None: every lot of the store)
+    product: str | None = None
 
     def to_dict(self) -> dict:
         return {
             "champion_id": self.champion_id,
             "challenger_id": self.challenger_id,
+            "product": self.product,
             "promoted": self.promoted,
             "forced": self.forced,
             "reason": self.reason,
@@ -230,6 +233,27 @@ def _group_by(champion) -> str | None:
     return None if g in (None, "lot") else g
 
 
+def challenger_product(champion, product: str | None) -> str | None:
+    """The product whose lots the challenger is fitted on: the champion's one product
+    (:attr:`linkage.models.fitted.FittedChain.trained_product`), or every lot of the store (None) for a champion
+    trained on several products or on lots without a product name, as it was trained. A ``product`` other than
+    that is refused: the challenger would not be comparable with the champion (the promotion test pairs their
+    errors on the lots the champion never saw, and the champion is not a model of that product alone)."""
+    from linkage.products import trained_on_text, training_counts
+
+    own = champion.trained_product
+    if product is None or product == own:
+        return own
+    counts = training_counts(champion.training)
+    scope = repr(own) if own is not None else (trained_on_text(counts)[len("trained on "):] if counts
+                                              else "lots with no product name recorded")
+    without = (f"it retrains on the lots of {own!r}" if own is not None
+               else "it retrains on every lot, as the champion was trained")
+    raise UsageError(f"--product {product!r}: the champion {champion.model_id} was trained on {scope}; a challenger "
+                     f"of another scope is not comparable with it. Run 'linkage retrain' without --product ({without}), "
+                     f"or train a model of that product with: linkage train --product \"{product}\"")
+
+
 def retrain(store_path, models_dir, *, product: str | None = None, spec=None, force: bool = False,
             reason: str | None = None, tolerance: float = DEFAULT_TOLERANCE, seed: int | None = None,
             user: str | None = None, progress=None) -> RetrainDecision:
@@ -237,6 +261,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     from linkage.assemble import assemble, check_dissolution_time
     from linkage.models import registry
     from linkage.models.train import train_chain
+    from linkage.products import other_counts, others_text
     from linkage.store import LotStore, current_tables_of
 
     if not 0 <= tolerance < 1:
@@ -245,16 +270,21 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
         raise UsageError("--force needs a reason (--reason TEXT); it is recorded in the audit trail")
     settle_pending(store_path, models_dir)  # a decision a killed retrain left half-made, before anything else
     champion = registry.load(models_dir, "latest")
+    product = challenger_product(champion, product)  # the champion's product by default; another refused
     time_min = _challenger_time_point(champion, spec)
     with LotStore(store_path, create=False) as store:
         tables = current_tables_of(store, product)
         stored_lots = store.lots(product)
+        others = other_counts(store.product_counts(), product)
     q = spec.limits["dissolution_pct"].min if spec is not None and "dissolution_pct" in spec.limits else None
     check_dissolution_time(tables, time_min)
     table = assemble(tables, dissolution_time_min=time_min, dissolution_q_pct=q)
     seen = set(champion.training["lots"])
     new_lots = [lot for lot in table["lot"].astype(str) if lot not in seen]
     notes = []
+    if others:  # not new lots of the champion's product: not fitted on, not counted
+        notes.append(f"the store's {others_text(others)} are left out: the champion is a model of {product!r} "
+                     "and the challenger is fitted on its lots only")
     if not new_lots:
         notes.append("no lots beyond the champion's training lots; the challenger sees the same data")
     from linkage.decide.watch import revised_since_training
@@ -283,14 +313,15 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     decision = RetrainDecision(
         champion_id=champion.model_id, challenger_id=challenger_id, promoted=promote, forced=force,
         reason=(reason or "").strip(), reasons=reasons, rule=RULE, tolerance=tolerance, new_lots=new_lots,
-        comparisons=comparisons, window_moved=moved, notes=notes,
+        comparisons=comparisons, window_moved=moved, notes=notes, product=product,
     )
     # two phases (registry.begin_decision): the audit row's commit is the decision
     decision_id = registry.begin_decision(models_dir, decision.to_dict())
     try:
         with LotStore(store_path, create=False) as store:
             store.log("promote" if promote else "retrain", user=user, model_id=challenger_id,
-                      inputs={"champion": champion.model_id, "force": force, "reason": decision.reason,
+                      inputs={"champion": champion.model_id, "product": product, "force": force,
+                              "reason": decision.reason,
                               "tolerance": tolerance, "new_lots": new_lots, "decision_id": decision_id},
                       outputs={"promoted": promote, "reasons": reasons, "window_moved": moved})
     except LinkageError:

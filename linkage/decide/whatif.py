@@ -31,6 +31,7 @@ from linkage.decide.held import rule_of
 from linkage.decide.propagate import fill_settings, simulate, within
 from linkage.exceptions import UsageError
 from linkage.numbers import parse_plain_number
+from linkage.products import chain_counts
 from linkage.schema import MISSING_TOKENS, TABLES
 
 #: cells of the bound's sums through the chain for one what-if (see linkage.decide.bound)
@@ -174,6 +175,9 @@ class WhatIf:
     bound_reason: str | None = None
     #: how the settings not given were held (:func:`linkage.decide.held.rule_of`); None when all were given
     held_rule: str | None = None
+    #: the products of the model's training lots with their lot counts (``product`` None: lots without a
+    #: product name; ``n_lots`` None in a model saved before they were kept), :func:`linkage.products.chain_counts`
+    trained_products: list[dict] = field(default_factory=list)
 
     @property
     def held_point(self) -> dict:
@@ -224,6 +228,7 @@ class WhatIf:
             "product": self.product,
             "product_source": self.product_source,
             "held_point": self.held_point,
+            "trained_products": [dict(p) for p in self.trained_products],
             "caution": CAUTION,
         }
 
@@ -297,6 +302,7 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         lot=lot, product=product, product_source=product_source,
         assurance=assurance, p_pass_all_low=p_all_low, bound_reason=bound_reason,
         held_rule=rule_of(chain),
+        trained_products=[{"product": p, "n_lots": n} for p, n in chain_counts(chain)],
     )
 
 

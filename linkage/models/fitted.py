@@ -328,8 +328,9 @@ class FittedChain:
     def trained_product(self) -> str | None:
         """The one product the chain was trained on; None when it was trained on several, or on lots without
         a product name (the report, the plan and its lots are then of no single product)."""
-        products = self.training.get("products") or []
-        return products[0] if len(products) == 1 else None
+        from linkage.products import one_product
+
+        return one_product(self.training)
 
     def stage(self, name: str) -> FittedStage:
         for st in self.stages:

@@ -644,6 +644,9 @@ class LeanChain:
         self.dissolution_time_min = None if t is None else float(t)
         #: products of the training lots (empty when unknown or in a file written before they were kept)
         self.products = list(spec.get("products") or [])
+        #: lots per product and lots without a product name (None, 0 in a file written before they were kept)
+        self.product_lots = spec.get("product_lots")
+        self.lots_without_product = int(spec.get("lots_without_product") or 0)
         self.chain_targets = list(spec["chain_targets"])
         self.chain_root_inputs = list(spec["chain_root_inputs"])
         self.stages = [Stage(s) for s in spec["stages"]]
@@ -752,6 +755,9 @@ def export(chain) -> dict:
         "medians": {k: _num(v) for k, v in medians.items()},
         "dissolution_time_min": _num(chain.training.get("dissolution_time_min")),
         "products": [str(p) for p in chain.training.get("products", [])],
+        **({"product_lots": {str(p): int(n) for p, n in chain.training["product_lots"].items()},
+            "lots_without_product": int(chain.training.get("lots_without_product") or 0)}
+           if chain.training.get("product_lots") is not None else {}),
         "chain_targets": list(chain.chain.targets()), "chain_root_inputs": list(chain.chain.root_inputs()),
         "stages": stages,
         # within-lot spread for unit-level compendial judgement (linkage.decide.compendial)

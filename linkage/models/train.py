@@ -615,6 +615,10 @@ def _training_record(table: pd.DataFrame, chain: ChainSpec, raw: pd.DataFrame, n
     rec.update(_settings_record(table, chain))
     if "product" in raw.columns:
         rec["products"] = sorted({str(v) for v in raw["product"].dropna()})
+    # lots per product, and lots without a product name (linkage.products: a model of several is said to be)
+    named = raw["product"].dropna().astype(str) if "product" in raw.columns else pd.Series([], dtype=str)
+    rec["product_lots"] = {str(p): int(n) for p, n in sorted(named.value_counts().items())}
+    rec["lots_without_product"] = int(len(raw) - len(named))
     if "manufactured_at" in raw.columns:
         t = pd.to_datetime(raw["manufactured_at"], errors="coerce", utc=True).dropna()
         if len(t):

@@ -303,7 +303,7 @@ def write_report(report: Report, out_path) -> Path:
 def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd.DataFrame | None = None,
                   confidence: float = 0.9, seed: int = 0, curve_draws: int = 400,
                   assurance: float = 0.9, plan=None, space=None, reused: dict[str, str] | None = None,
-                  parallel: bool = True, kept_figures=None) -> Report:
+                  parallel: bool = True, kept_figures=None, other_lots=None) -> Report:
     """Build the report of a fitted chain.
 
     Parameters
@@ -329,6 +329,8 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         :mod:`linkage.report.background`).
     reused : section anchor -> a sentence saying that a result of that
         section was reused from an earlier command, shown under its heading.
+    other_lots : the store's lots of other products than the model's, not shown (product, lot count;
+        :func:`linkage.products.other_counts`): the lots section says how many there are.
     kept_figures : the figures an earlier report drew with the same inputs
         (a :class:`linkage.models.reuse.Reused` of kind "figures",
         :mod:`linkage.report.kept`): a figure whose caption is the one kept
@@ -357,7 +359,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         pending["space"] = Background(design_space, chain, spec, fork=parallel, **args)
     try:
         _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
-                  pending, computed)
+                  pending, computed, other_lots=other_lots)
         b.draw_figures()
     finally:
         b.close()
@@ -374,7 +376,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
 
 
 def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
-              pending, computed) -> None:
+              pending, computed, other_lots=None) -> None:
     """Every section in order into ``b``. ``pending``: the watch and (unless given) the map, being computed;
     ``computed`` gets the window and the map when they were computed here."""
     limits = dict(spec.limits) if spec is not None else {}
@@ -385,7 +387,7 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
             computed["window"] = window
 
     _glance(b, chain, table, spec, window)
-    _data_section(b, chain, table, lots)
+    _data_section(b, chain, table, lots, other_lots)
     _ribbon_section(b, chain, table, limits)
     _baseline_section(b, chain, table, limits)
     _attribute_section(b, chain, table, limits)
@@ -569,8 +571,9 @@ def _presence(table: pd.DataFrame, lots: pd.DataFrame | None) -> tuple[pd.DataFr
         "the assembled table"
 
 
-def _data_section(b, chain, table, lots):
+def _data_section(b, chain, table, lots, other_lots=None):
     from linkage.report import figures as F
+    from linkage.products import others_text
 
     b.section("lots", "The lots")
     made = None
@@ -581,7 +584,8 @@ def _data_section(b, chain, table, lots):
     counts = [(word, list(table[col].dropna().astype(str).value_counts().items()))
               for col, word in (("product", "products"), ("compactor", "compactors"))
               if col in table.columns and table[col].notna().any()]
-    b.add(_part("lots", "summary", n=len(table), made=made, counts=counts))
+    b.add(_part("lots", "summary", n=len(table), made=made, counts=counts,
+                others=others_text(other_lots) if other_lots else None, product=chain.trained_product))
 
     present, source = _presence(table, lots)
     b.add(_part("blocks", "h3", text="Which tables each lot has"))
