@@ -661,12 +661,10 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     chain = _fitted(models_dir, model)
     check_time_point(chain, spec, "report")
     product = chain.trained_product
-    from linkage.products import other_counts
-
     with LotStore(store, create=False) as lot_store:
         tables = current_tables_of(lot_store, product)
         lots = lot_store.lots(product=product)
-        others = other_counts(lot_store.product_counts(), product)  # said in the report, not shown
+        others = lot_store.other_products(product)  # said in the report, not shown
     if not tables:
         raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
                                                                           else "") + "; nothing to report on")
@@ -782,13 +780,13 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     elif chain.trained_product is not None and product != chain.trained_product:
         notes.append(f"the lots of {product!r} are charted against model {chain.model_id}, a model of "
                      f"{chain.trained_product!r}: alarms may say only that the products differ")
-    from linkage.products import other_counts, others_text
+    from linkage.products import others_text
 
     with LotStore(store, create=False) as s:
         tables = current_tables_of(s, product)
         recorded = s.predictions()
         stored_lots = s.lots(product)
-        others = other_counts(s.product_counts(), product)
+        others = s.other_products(product)
     if others:
         notes.append(f"the store's {others_text(others)} are not watched: only the lots of {product!r} are "
                      "(--product to watch another product's)")

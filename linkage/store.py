@@ -548,6 +548,13 @@ class LotStore:
             counts[key] = counts.get(key, 0) + int(n)
         return counts
 
+    def other_products(self, product: str | None) -> list[tuple[str | None, int]]:
+        """The lot counts of the products other than ``product`` (None last: lots without a product name); none
+        when ``product`` is None (:func:`linkage.products.other_counts`)."""
+        from linkage.products import other_counts
+
+        return other_counts(self.product_counts(), product)
+
     def stored_spelling(self, lot: str) -> str | None:
         """The stored lot that ``lot`` is under the reader's lot identity
         (:func:`linkage.lotid.lot_key`: case, dashes, compatibility forms),

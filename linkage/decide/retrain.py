@@ -261,7 +261,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     from linkage.assemble import assemble, check_dissolution_time
     from linkage.models import registry
     from linkage.models.train import train_chain
-    from linkage.products import other_counts, others_text
+    from linkage.products import others_text
     from linkage.store import LotStore, current_tables_of
 
     if not 0 <= tolerance < 1:
@@ -275,7 +275,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     with LotStore(store_path, create=False) as store:
         tables = current_tables_of(store, product)
         stored_lots = store.lots(product)
-        others = other_counts(store.product_counts(), product)
+        others = store.other_products(product)
     q = spec.limits["dissolution_pct"].min if spec is not None and "dissolution_pct" in spec.limits else None
     check_dissolution_time(tables, time_min)
     table = assemble(tables, dissolution_time_min=time_min, dissolution_q_pct=q)

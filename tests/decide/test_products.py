@@ -163,12 +163,11 @@ def test_the_report_says_how_many_lots_of_other_products_it_leaves_out(store):
     """The lots section names the store's lots of other products, not shown."""
     from linkage.report.html import _Builder, _data_section
     from linkage.store import LotStore
-    from linkage.products import other_counts
 
     champion = registry.load(store["models"], store["champion"])
     table = api.assemble(store["db"], product=A)
     with LotStore(store["db"], create=False) as s:
-        lots, others = s.lots(product=A), other_counts(s.product_counts(), champion.trained_product)
+        lots, others = s.lots(product=A), s.other_products(champion.trained_product)
     b = _Builder(parallel=False)
     _data_section(b, champion, table, lots, others)
     html = "".join(b.parts)
