@@ -20,10 +20,10 @@ call               what it does                                         recorded
                    transaction
 :func:`assemble`   one row per lot with the derived quantities           —
 :func:`train`      fit the chain under grouped CV, register the model    ``train``
-:func:`window`     the ribbon porosity window under a spec               ``window`` (when the store
-                                                                         exists)
+:func:`window`     the ribbon porosity window under a spec               ``window`` (not with
+                                                                         ``record=False``)
 :func:`whatif`     one what-if through the chain (:func:`whatif_rows`:   ``predict`` and the prediction
-                   one per row)                                          (when the store exists)
+                   one per row)                                          (not with ``record=False``)
 :func:`report`     the self-contained HTML report                        —
 :func:`watch`      the drift watch                                       ``watch``
 :func:`running`    guidance for a lot in progress from its at-line       ``running``
@@ -34,6 +34,12 @@ call               what it does                                         recorded
 :func:`retrain`    a challenger, promoted only by the rule               ``retrain`` or ``promote``
 :func:`audit`      the audit trail, as a DataFrame                       —
 =================  ===================================================  ==============================
+
+:func:`window`, :func:`whatif` and :func:`whatif_rows` refuse a ``store`` that
+does not exist (``StorePathError``, exit code 2, nothing written) unless it is
+the default ``linkage.db`` (then they run, not recorded) or ``record=False``
+(``--no-record``: nothing is written in the store, which is still read where
+the call reads it).
 
 A spec is a :class:`~linkage.spec.Spec` or the path of a ``spec.toml``; a
 model is a model id, ``"latest"`` (the newest model in service), or the
@@ -154,6 +160,42 @@ def record(store, action: str, *, model_id: str | None, inputs, outputs, lot: st
             s.record_prediction(model_id, inputs, outputs, lot=lot)
         s.log(action, lot=lot, model_id=model_id, inputs=inputs, outputs=outputs)
     return True
+
+
+#: :func:`record` under a name the calls whose keyword ``record`` hides it can use
+_record_entry = record
+
+
+def _recording(store, record: bool | None, action: str) -> bool:
+    """Whether a ``window`` or ``predict`` (``action``) goes into ``store``'s audit trail, decided before any
+    work so that a mistyped store refuses the call instead of losing its record, nothing written:
+
+    - ``record=False`` (``--no-record``): nothing is written in the store; it is still read where the call
+      reads it (the stored spelling of a ``lot``);
+    - ``record=True``: recorded; a store that does not exist is refused (``StorePathError``, exit code 2).
+      The commands pass it when ``--store`` or ``$LINKAGE_STORE`` names the store;
+    - ``record=None`` (the default): recorded, and a store that does not exist is refused, except the default
+      ``linkage.db`` (what a command without ``--store`` uses): without it the call runs, not recorded
+      (``recorded`` False; the command says so on stderr). ``store=None`` is no store: nothing recorded."""
+    if record is False:
+        return False
+    if store is None:
+        if record:
+            from linkage.exceptions import UsageError
+
+            raise UsageError(f"record=True needs a lot store to record this {action} in; give store=, or "
+                             "record=False")
+        return False
+    if Path(store).exists():
+        return True
+    if record is None and Path(store) == Path(DEFAULT_STORE):
+        return False
+    from linkage.exceptions import StorePathError
+
+    raise StorePathError(f"no lot store at {store}: this {action} would not be recorded in an audit trail, so it "
+                         "is refused and nothing was written. Point --store (or LINKAGE_STORE) at the lot store "
+                         "(`linkage ingest FOLDER` creates one), or give --no-record (Python: record=False) to "
+                         f"run this {action} without recording it")
 
 
 # --------------------------------------------------------------------------- the store
@@ -339,16 +381,18 @@ def retrain(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, spec=None, pr
 
 def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
            settings: Mapping[str, float] | None = None, confidence: float = 0.9, n_draws: int = defaults.WINDOW_DRAWS,
-           seed: int = 0, assurance: float = 0.9) -> Window:
+           seed: int = 0, assurance: float = 0.9, record: bool | None = None) -> Window:
     """The ribbon porosity window where every limit of ``spec`` passes
     together with probability ``confidence``, and the roll force that lands
     in it (``linkage window``); settings not in ``settings`` are held
     coherently with them (their conditional mean over the training lots). The window rests on the lower bound at ``assurance``
     of that probability (issue 12; :mod:`linkage.decide.bound`). Logged as
-    ``window`` when the store exists."""
+    ``window`` in the store's audit trail; ``record=False`` (``--no-record``) writes nothing in the store, and a
+    store that does not exist is refused unless it is the default ``linkage.db`` (:func:`_recording`)."""
     from linkage.decide.bound import check_assurance
     from linkage.decide.window import find_window
 
+    recording = _recording(store, record, "window")  # before any work: a mistyped store writes nothing
     assurance = check_assurance(assurance)
     spec = _spec(spec)
     settings, bad = _given_settings(settings)
@@ -359,10 +403,10 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
     if model is None or isinstance(model, str):  # a model of the registry, loaded and checked here (issue 20)
         _keep(models_dir, result.model_id, "window", spec, result, "linkage window", settings=settings,
               confidence=confidence, n_draws=n_draws, seed=seed, assurance=assurance)  # for the report
-    recorded = record(store, "window", model_id=result.model_id,
-                      inputs={"spec": spec.to_dict(), "spec_file": spec.file, "spec_sha256": spec.sha256,
-                              "settings": settings, "confidence": confidence, "seed": seed, "assurance": assurance},
-                      outputs=result.to_dict(curve=False))
+    inputs = {"spec": spec.to_dict(), "spec_file": spec.file, "spec_sha256": spec.sha256, "settings": settings,
+              "confidence": confidence, "seed": seed, "assurance": assurance}
+    recorded = recording and _record_entry(store, "window", model_id=result.model_id, inputs=inputs,
+                                           outputs=result.to_dict(curve=False))
     return Window(result=result, recorded=recorded, store=None if store is None else Path(store))
 
 
@@ -509,13 +553,15 @@ def _lot_spellings(lots, store) -> list[str | None]:
         return [None if lot is None else s.stored_spelling(lot) or lot for lot in spelled]
 
 
-def _recorded_whatifs(results, lots, store) -> list[WhatIfResult]:
+def _recorded_whatifs(results, lots, store, recording: bool = True) -> list[WhatIfResult]:
+    """The what-ifs, each stated for its lot in the store's spelling (read from the store whenever it exists)
+    and, when ``recording`` (:func:`_recording`), recorded with its prediction."""
     out = []
     for r, lot in zip(results, _lot_spellings(lots, store)):
         r.lot = lot  # stated on the result and its sheet, as recorded
         d = r.to_dict()
-        recorded = record(store, "predict", model_id=d["model_id"], lot=lot, inputs=d["inputs"], outputs=d,
-                          prediction=True)
+        recorded = recording and record(store, "predict", model_id=d["model_id"], lot=lot, inputs=d["inputs"],
+                                        outputs=d, prediction=True)
         out.append(WhatIfResult(result=r, lot=lot, recorded=recorded, store=None if store is None else Path(store)))
     return out
 
@@ -553,20 +599,23 @@ def _lean_or_refused(models_dir, model, problems: list[str]):
 
 def whatif(values: Mapping[str, float | str], *, spec=None, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR,
            model="latest", level: float | None = None, seed: int = 0, lot: str | None = None,
-           product: str | None = None, assurance: float = 0.9) -> WhatIfResult:
+           product: str | None = None, assurance: float = 0.9, record: bool | None = None) -> WhatIfResult:
     """Predict every downstream attribute from ``values`` (settings and/or
     measured values by name), with intervals at ``level`` (default: the
     model's nominal coverage), the chance of passing each limit of ``spec``
     with its lower bound at ``assurance``, and the applicability-domain
     verdict (``linkage predict``). Recorded in
     the store's predictions and audit trail (``predict``, for ``lot`` when
-    given) when the store exists. ``lot`` and ``product`` are stated on
+    given); ``record=False`` (``--no-record``) writes nothing in the store, and a
+    store that does not exist is refused unless it is the default ``linkage.db``
+    (:func:`_recording`). ``lot`` and ``product`` are stated on
     the result and its sheet (product default: the model's, when it was
     trained on one; another product than the model's is refused)."""
     from linkage.decide.bound import check_assurance
     from linkage.decide.whatif import predict_whatif
     from linkage.exceptions import UsageError
 
+    recording = _recording(store, record, "predict")  # before any work: a mistyped store writes nothing
     assurance = check_assurance(assurance)
     if lot is not None:
         from linkage.lotid import reader_spelling
@@ -584,12 +633,13 @@ def whatif(values: Mapping[str, float | str], *, spec=None, store=DEFAULT_STORE,
     # names and values are checked by predict_whatif
     result = predict_whatif(chain, values, spec=spec, level=level, seed=seed, lot=lot, product=product,
                             assurance=assurance)
-    return _recorded_whatifs([result], [lot], store)[0]
+    return _recorded_whatifs([result], [lot], store, recording)[0]
 
 
 def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, store=DEFAULT_STORE,
                 models_dir=DEFAULT_MODELS_DIR, model="latest", level: float | None = None,
-                seed: int = 0, product: str | None = None, assurance: float = 0.9) -> list[WhatIfResult]:
+                seed: int = 0, product: str | None = None, assurance: float = 0.9,
+                record: bool | None = None) -> list[WhatIfResult]:
     """One what-if per row (``linkage predict --from-csv``): ``rows`` is a
     list of {name: value} dicts, a DataFrame whose columns are names, or the
     path of such a CSV, or such a file read by :func:`linkage.decide.whatif.read_rows`
@@ -598,9 +648,12 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
     every row are ignored and listed in its ``ignored``).
     Every row is checked before any is predicted, and every problem of the
     rows is raised at once (``InputError``: file, row, column, value, rule).
-    ``lots`` gives each row's lot (one lot for all when a single string)."""
+    ``lots`` gives each row's lot (one lot for all when a single string).
+    ``record`` as in :func:`whatif`."""
     from linkage.decide.whatif import CsvRows, predict_many, read_rows
     from linkage.lotid import reader_spelling
+
+    recording = _recording(store, record, "predict")  # before any work: a mistyped store writes nothing
 
     if isinstance(lots, str):
         reader_spelling(lots)  # an id with an invisible character is refused before any work
@@ -628,7 +681,7 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
 
     results = predict_many(chain, rows, spec=_spec(spec), level=level, seed=seed, product=product,
                            assurance=check_assurance(assurance))
-    return _recorded_whatifs(results, row_lots, store)  # each row's lot stated on its result, as recorded
+    return _recorded_whatifs(results, row_lots, store, recording)  # each row's lot stated on its result, as recorded
 
 
 def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", spec=None,

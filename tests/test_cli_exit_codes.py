@@ -98,7 +98,8 @@ def test_a_damaged_store_exits_5(tmp_path, command):
 
 # --- code 2: no model -------------------------------------------------------------------------------------------
 @pytest.mark.parametrize("command", [
-    ["predict", "--set", "ribbon_porosity=0.3"], ["window", "--spec", SPEC], ["report"], ["watch"], ["retrain"],
+    ["predict", "--set", "ribbon_porosity=0.3", "--no-record"], ["window", "--spec", SPEC, "--no-record"], ["report"],
+    ["watch"], ["retrain"],
 ])
 def test_no_model_registry_is_usage_exit_2(tmp_path, command):
     r = run(*command, "--models-dir", tmp_path / "models", "--store", tmp_path / "s.db")
@@ -210,7 +211,7 @@ def test_a_reader_that_stops_reading_is_no_error(tmp_path, command, request):
     if command == ["predict"]:
         moist = request.getfixturevalue("moist_model")
         args = ["predict", "--models-dir", moist.models_dir, "--model", moist.model_id,
-                "--set", "roll_force_kn_per_cm=8", "--store", tmp_path / "none.db"]
+                "--set", "roll_force_kn_per_cm=8", "--no-record"]
     else:
         args = [tmp_path / "t.csv" if a == "OUT" else a for a in command] + ["--store", _template_store(tmp_path)]
     code, err = _closed_reader(args)

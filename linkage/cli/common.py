@@ -28,6 +28,27 @@ def store_option(f):
     )(f)
 
 
+def no_record_option(f):
+    return click.option(
+        "--no-record", "no_record", is_flag=True,
+        help="Write nothing in the lot store: no audit entry, no recorded prediction (e.g. a what-if with a model "
+             "received without its lots). The store, when it exists, is still read where the command reads it. "
+             "Without it, a store named by --store or $LINKAGE_STORE must exist (refused, exit 2, otherwise); "
+             "without either, a missing linkage.db is noted on stderr and nothing is recorded.",
+    )(f)
+
+
+def record_wanted(no_record: bool) -> bool | None:
+    """The ``record=`` of :mod:`linkage.api` for a command with ``--no-record``: False with it; True when the
+    user named the store (``--store``, or ``$LINKAGE_STORE`` set non-empty), so that a store that does not exist
+    is refused; None for the default store (not recorded when it does not exist)."""
+    if no_record:
+        return False
+    source = click.get_current_context().get_parameter_source("store")
+    named = source is not click.core.ParameterSource.DEFAULT or bool(os.environ.get(STORE_ENV))
+    return True if named else None
+
+
 def models_dir_option(f):
     return click.option(
         "--models-dir",

@@ -8,7 +8,7 @@ from pathlib import Path
 import click
 
 from linkage.cli.common import (PROBABILITY, check_output, handle_errors, json_option, models_dir_option,
-                                store_option, tell_progress)
+                                no_record_option, record_wanted, store_option, tell_progress)
 from linkage.decide import defaults
 from linkage.jsonable import jsonable
 from linkage.results import whatif_text, window_text
@@ -41,9 +41,11 @@ _assurance_option = click.option(
 @_assurance_option
 @models_dir_option
 @store_option
+@no_record_option
 @json_option
 @handle_errors
-def window(spec_path, model_id, assignments, confidence, n_draws, seed, assurance, models_dir, store, as_json):
+def window(spec_path, model_id, assignments, confidence, n_draws, seed, assurance, models_dir, store, no_record,
+           as_json):
     """Find the ribbon porosity window where every specification passes
     with the stated confidence, and the roll force that lands in it.
 
@@ -51,10 +53,15 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, assuranc
     (their conditional mean over the training lots); the output says which,
     and whether the held point is inside the applicability domain.
 
+    The window is recorded in the lot store's audit trail. A store named
+    by --store or $LINKAGE_STORE that does not exist is refused (exit 2);
+    --no-record runs without recording.
+
     \b
     Example:
       linkage window --spec spec.toml --set roll_gap_mm=2.5 --confidence 0.9
       linkage window --spec spec.toml --json > window.json
+      linkage window --spec spec.toml --no-record
     """
     from linkage.api import window as find
     from linkage.decide.whatif import parse_assignments
@@ -63,8 +70,9 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, assuranc
     spec = read_spec(spec_path)
     settings = parse_assignments(list(assignments), keep_text=True)  # reported with the model's checks
     result = find(spec, store=store, models_dir=models_dir, model=model_id, settings=settings,
-                  confidence=confidence, n_draws=n_draws, seed=seed, assurance=assurance)
-    _note_unrecorded(result, "window")
+                  confidence=confidence, n_draws=n_draws, seed=seed, assurance=assurance,
+                  record=record_wanted(no_record))
+    _note_unrecorded(result, "window", no_record)
     if as_json:
         click.echo(json.dumps(jsonable(result.to_dict()), indent=2, allow_nan=False))
         return
@@ -101,10 +109,11 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, assuranc
 @_assurance_option
 @models_dir_option
 @store_option
+@no_record_option
 @json_option
 @handle_errors
 def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_path, page_window, lot, product, seed,
-            assurance, models_dir, store, as_json):
+            assurance, models_dir, store, no_record, as_json):
     """What-if: predict every downstream attribute from settings and/or
     measured values, with intervals, the chance of passing each specification
     and the applicability-domain verdict.
@@ -116,11 +125,16 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
       linkage predict --from-csv planned.csv --json
       linkage predict --spec spec.toml --page whatif-page.html --page-window window.json
       linkage predict --set ribbon_porosity=0.29 --lot Q26-049 --product "QZ-417 200 mg" --spec spec.toml
+      linkage predict --set ribbon_porosity=0.3 --spec spec.toml --models-dir received/ --no-record
 
-    Every what-if is recorded in the lot store (when it exists) with the
-    model id, the inputs and the outputs.
+    Every what-if is recorded in the lot store with the model id, the
+    inputs and the outputs. A store named by --store or $LINKAGE_STORE
+    that does not exist is refused (exit 2, nothing written); without
+    either, a missing linkage.db is noted on stderr and nothing recorded.
+    --no-record writes nothing in the store (a model received without its
+    lots); the store, when it exists, is still read for --lot's spelling.
     """
-    from linkage.api import whatif, whatif_rows
+    from linkage.api import _recording, whatif, whatif_rows
     from linkage.decide.whatif import parse_assignments
     from linkage.exceptions import UsageError
 
@@ -128,6 +142,9 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
         check_output(html_path)
     if page_path is not None:
         check_output(page_path)
+    record = record_wanted(no_record)
+    if assignments or from_csv is not None:  # a what-if to record: a mistyped store refused before any file
+        _recording(store, record, "predict")
     spec = None
     if spec_path is not None:
         from linkage.spec import read_spec
@@ -152,7 +169,7 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
 
         rows = read_rows(from_csv)
         results = whatif_rows(rows, lots=lot, spec=spec, store=store, models_dir=models_dir, model=model_id,
-                              level=level, seed=seed, product=product, assurance=assurance)
+                              level=level, seed=seed, product=product, assurance=assurance, record=record)
         if rows.ignored:
             click.echo(f"Note: {from_csv.name}: {', '.join(rows.ignored)} ignored: template column(s) that are no "
                        "input or attribute of the model, empty in every row", err=True)
@@ -160,9 +177,9 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
         if not values:
             raise UsageError("nothing to predict from: give --set NAME=VALUE (or --from-csv)")
         results = [whatif(values, spec=spec, store=store, models_dir=models_dir, model=model_id, level=level,
-                          seed=seed, lot=lot, product=product, assurance=assurance)]
+                          seed=seed, lot=lot, product=product, assurance=assurance, record=record)]
     for r in results:
-        _note_unrecorded(r, "predict")
+        _note_unrecorded(r, "predict", no_record)
     if html_path is not None:
         from linkage.export import write_atomic
         from linkage.report.sheet import whatif_html
@@ -182,7 +199,9 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
         click.echo(f"What-if page written to {page_path}", err=True)
 
 
-def _note_unrecorded(result, action: str) -> None:
-    """Say on stderr that there was no store to record a window or what-if in."""
-    if not result.recorded:
+def _note_unrecorded(result, action: str, no_record: bool = False) -> None:
+    """Say on stderr that a window or what-if was not recorded: --no-record, or no store at the default path."""
+    if no_record:
+        tell_progress(f"Note: --no-record: this {action} was not recorded in an audit trail.")
+    elif not result.recorded:
         tell_progress(f"Note: no lot store at {result.store}; this {action} was not recorded in an audit trail.")

@@ -328,7 +328,7 @@ def test_old_model_in_the_registry_says_no_bound_on_the_command_line(old_chain, 
     spec_path = tmp_path / "spec.toml"
     spec_path.write_text(spec_toml(WINDOW_SPEC), encoding="utf-8")
     runner = CliRunner()
-    common = ["--spec", str(spec_path), "--models-dir", str(models_dir), "--store", str(tmp_path / "none.db")]
+    common = ["--spec", str(spec_path), "--models-dir", str(models_dir), "--no-record"]
     r = runner.invoke(cli, ["predict", "--set", "ribbon_porosity=0.3", *common, "--json"], catch_exceptions=False)
     assert r.exit_code == 0, r.output
     d = json.loads(r.stdout)

@@ -122,7 +122,7 @@ def test_window_judges_by_stages_and_acceptance_value(unit_scenario):
 def test_cli_says_which_judge_and_gives_the_stage_keys(unit_scenario):
     _, _, _, folder, model_id = unit_scenario
     runner = CliRunner()
-    args = ["--models-dir", str(folder / "models"), "--store", str(folder / "none.db")]
+    args = ["--models-dir", str(folder / "models"), "--no-record"]
     r = runner.invoke(cli, ["predict", "--set", "ribbon_porosity=0.3", "--set", "mill_screen_mm=1.0",
                             "--set", "compression_force_kn=14", "--spec", str(folder / "spec.toml"), "--json", *args])
     assert r.exit_code == 0, r.output

@@ -78,13 +78,13 @@ def test_window_space_and_plan_refuse_impossible_settings_as_predict(saved_model
 
     models_dir, model_id, spec = saved_model
     where = ["--models-dir", models_dir]
-    store = ["--store", tmp_path / "none.db"]
+    store = ["--store", tmp_path / "none.db"]  # plan reads the store only after checking the settings
     # predict refuses it: the reference behaviour
-    r = _run("predict", "--set", "roll_gap_mm=20", *where, *store)
+    r = _run("predict", "--set", "roll_gap_mm=20", *where, "--no-record")
     assert r.exit_code == 2 and "outside the possible range 0 < roll_gap_mm <= 15" in r.output, r.output
     # every problem at once
     both = ["--set", "roll_speed_rpm=-3", "--set", "roll_gap_mm=20"]
-    for args in (["window", "--spec", spec, *both, "--json", *where, *store],
+    for args in (["window", "--spec", spec, *both, "--json", *where, "--no-record"],
                  ["space", "--spec", spec, "--grid", 5, *both, *where],
                  ["plan", "--lots", 2, "--spec", spec, *both, "--out", tmp_path / "planneg", *where, *store]):
         r = _run(*args)
@@ -139,7 +139,7 @@ def test_a_setting_given_with_porosity_is_checked_against_its_training_range(sce
     # on the command line
     models_dir, _, spec_path = saved_model
     r = _run("predict", "--set", "ribbon_porosity=0.3", "--set", f"{FORCE}={far!r}", "--spec", spec_path, "--json",
-             "--models-dir", models_dir, "--store", models_dir / "none.db")
+             "--models-dir", models_dir, "--no-record")
     assert r.exit_code == 0, r.output
     d = json.loads(r.stdout)
     assert d["in_domain"] is False and d["promise"] is False and reason in d["domain_reasons"]
@@ -150,7 +150,7 @@ def test_a_setting_given_with_porosity_is_checked_against_its_training_range(sce
 
 def test_judges_lists_only_judged_attributes_and_a_spec_judging_nothing_is_refused(saved_model, tmp_path):
     models_dir, _, spec_path = saved_model
-    where = ["--models-dir", models_dir, "--store", tmp_path / "none.db"]
+    where = ["--models-dir", models_dir, "--no-record"]
     mixed = tmp_path / "mixed.toml"
     mixed.write_text(spec_path.read_text(encoding="utf-8") + "\n[granule_d90_um]\nmax = 900\n", encoding="utf-8")
     r = _run("predict", "--set", "roll_force_kn_per_cm=9", "--spec", mixed, "--json", *where)

@@ -191,9 +191,9 @@ def test_window_with_a_judged_attribute_given_does_not_judge_it(scenario, saved_
         find_window(chain, only, settings=given, n_draws=200)
     models_dir, _, spec_path = saved_model
     r = _run("window", "--spec", spec_path, "--set", "dissolution_pct=90", "--models-dir", models_dir,
-             "--store", saved_model[0].parent / "none.db", "--json")
+             "--no-record", "--json")
     assert r.exit_code == 0, r.output
-    d = json.loads(r.output[r.output.index("{"):])  # after the note that nothing was recorded (no store)
+    d = json.loads(r.output[r.output.index("{"):])  # after the note that nothing was recorded (--no-record)
     assert d["not_modelled_reasons"]["dissolution_pct"].startswith("given with --set")
 
 
@@ -207,4 +207,4 @@ def test_lot_given_beside_a_file_with_a_lot_column_is_refused(tmp_path):
     path = tmp_path / "rows.csv"
     path.write_text("lot,roll_force_kn_per_cm\nA-1,8\nA-2,9\n", encoding="utf-8")
     with pytest.raises(UsageError, match="--lot would replace them all"):
-        whatif_rows(path, lots="B-7", store=tmp_path / "none.db", models_dir=tmp_path / "models")
+        whatif_rows(path, lots="B-7", store=tmp_path / "none.db", models_dir=tmp_path / "models", record=False)

@@ -93,7 +93,7 @@ def test_every_output_physical_for_any_settings(scenario, force, gap, roll, scre
 
 def test_far_out_of_domain_whatif_promises_nothing(saved_model):
     models_dir, model_id, spec_path = saved_model
-    args = ["predict", "--models-dir", str(models_dir), "--store", str(models_dir / "none.db"),
+    args = ["predict", "--models-dir", str(models_dir), "--no-record",
             "--spec", str(spec_path)] + [a for k, v in FAR.items() for a in ("--set", f"{k}={v}")]
     text = CliRunner().invoke(cli, args)
     assert text.exit_code == 0, text.output

@@ -70,7 +70,7 @@ def test_predict_lot_and_product_options_reach_json_sheet_and_text(saved_model, 
     models_dir, _, _ = saved_model
     sheet = tmp_path / "whatif.html"
     common = ["predict", "--set", "ribbon_porosity=0.3", "--spec", str(spec_file), "--lot", "Q26-049",
-              "--product", "QZ-417 200 mg", "--models-dir", str(models_dir), "--store", str(tmp_path / "no.db")]
+              "--product", "QZ-417 200 mg", "--models-dir", str(models_dir), "--no-record"]
     runner = CliRunner()
     r = runner.invoke(cli, [*common, "--json", "--html", str(sheet)], catch_exceptions=False)
     assert r.exit_code == 0, r.output

@@ -104,7 +104,7 @@ def test_predict_imports_neither_scikit_learn_nor_pandas(saved_model, tmp_path, 
     env = {**os.environ, "PYTHONPATH": os.pathsep.join(sys.path)}
     proc = subprocess.run(
         [sys.executable, "-c", _PROBE, "predict", "--set", "ribbon_porosity=0.3", "--spec", str(spec_path),
-         "--models-dir", str(models_dir), "--store", str(store), "--json"],
+         "--models-dir", str(models_dir), *(["--store", str(store)] if with_store else ["--no-record"]), "--json"],
         capture_output=True, text=True, env=env, timeout=120)
     assert proc.returncode == 0, proc.stderr
     assert "HEAVY=\n" in proc.stderr + "\n", proc.stderr

@@ -222,12 +222,12 @@ def test_the_command_line_says_plainly_when_latest_skips_and_exits_4_when_nothin
     result = run_cli(["models", "--models-dir", models, "--json"])
     assert result.exit_code == 0
     fallback = run_cli(["predict", "--set", "roll_force_kn_per_cm=8", "--models-dir", models,
-                        "--store", tmp_path / "none.db", "--json"])
+                        "--no-record", "--json"])
     assert fallback.exit_code == 0, fallback.output
     assert "Warning: latest skipped newer models" in fallback.stderr and "UserWarning" not in fallback.stderr
     assert json.loads(fallback.stdout)["model_id"] == old
     (models / old / registry.WHATIF).write_bytes(b"changed too")
     none_left = run_cli(["predict", "--set", "roll_force_kn_per_cm=8", "--models-dir", models,
-                         "--store", tmp_path / "none.db"])
+                         "--no-record"])
     assert none_left.exit_code == 4 and "every model in service fails its checks" in none_left.stderr
     counts["artifacts refused"] += 2
