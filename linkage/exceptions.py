@@ -7,6 +7,7 @@ They subclass built-ins (as scikit-learn's do), so a caller's ordinary
 
 from __future__ import annotations
 
+import datetime as dt
 from dataclasses import dataclass
 
 
@@ -41,7 +42,8 @@ class Problem:
 
     ``row`` is the spreadsheet row as a person sees it: the header is row 1,
     the first data row is row 2. ``None`` where the problem is not a cell's
-    (a missing column, a file-level rule).
+    (a missing column, a file-level rule). ``cell`` is the cell's A1
+    reference (``C4``) where the file is a workbook sheet, else ``None``.
     """
 
     file: str
@@ -49,6 +51,7 @@ class Problem:
     row: int | None = None
     column: str | None = None
     value: object = None
+    cell: str | None = None
 
     def __str__(self) -> str:
         where = self.file
@@ -56,8 +59,34 @@ class Problem:
             where += f", row {self.row}"
         if self.column is not None:
             where += f", column '{self.column}'"
-        shown = "" if self.value is None else f", value {self.value!r}"
+        if self.cell is not None:
+            where += f", cell {self.cell}"
+        shown = "" if self.value is None else f", value {shown_value(self.value)}"
         return f"{where}{shown}: {self.rule}"
+
+
+def shown_value(value: object) -> str:
+    """A cell's value in a message as a person sees it in the file: text quoted (``'EX-001'``), a date of a
+    workbook in ISO 8601 (``2026-01-05``, with the time where it is not midnight: ``2026-01-05 14:30``),
+    TRUE/FALSE as a spreadsheet shows them, a number as Python writes it (``1.5``), never a Python repr such
+    as ``datetime.datetime(2026, 1, 5, 0, 0)``."""
+    if isinstance(value, str):
+        return repr(value)
+    if isinstance(value, bool):
+        return "TRUE" if value else "FALSE"
+    if isinstance(value, dt.datetime):
+        if value.time() == dt.time(0):
+            return value.date().isoformat()
+        return value.isoformat(sep=" ", timespec="minutes" if value.second == value.microsecond == 0 else "auto")
+    if isinstance(value, (dt.date, dt.time)):
+        return value.isoformat()
+    if isinstance(value, dt.timedelta):  # a workbook duration cell
+        return str(value)
+    if isinstance(value, float):
+        return repr(value)
+    if isinstance(value, int):
+        return str(value)
+    return str(value)
 
 
 class InputError(LinkageError, ValueError):

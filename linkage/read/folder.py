@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import difflib
 import hashlib
 import re
 from dataclasses import dataclass, field
@@ -15,8 +16,8 @@ from linkage.read import DATA_SUFFIXES, MAPPING_FILE, SPEC_FILE, UNSUPPORTED_SUF
 from linkage.read.lots import row_span, _visible, lot_key
 from linkage.read.mapping import UNITS, Mapping, _norm_unit, _suggest, read_mapping
 from linkage.read.raw import _norm_header
-from linkage.read.table import _build, bulk, read_table
-from linkage.read.workbook import _hidden, _hidden_sheet, _open_workbook, _read_sheet
+from linkage.read.table import _build, bulk, read_table, with_cells
+from linkage.read.workbook import _hidden, _hidden_sheet, _open_workbook, _read_sheet, _table_sheet
 from linkage.schema import TABLES
 from linkage.spec import Spec, read_spec
 
@@ -88,6 +89,7 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
     sources: dict[str, dict] = {}
     other: dict[str, dict] = {}
     plan: dict[str, tuple[Path, str | None, str]] = {}  # table -> (file, sheet or None, label)
+    unread: list[tuple[str, str, str | None]] = []  # sheets not read: (file, sheet, the table it is named after)
     spec_path = mapping_path = None
     for entry in sorted(folder.iterdir(), key=lambda p: p.name.lower()):
         name, suffix = entry.name, entry.suffix.lower()
@@ -106,8 +108,10 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
             problems.append(Problem(name, "this spreadsheet format is not read; save as .xlsx or CSV UTF-8"))
         elif suffix in DATA_SUFFIXES and stem in TABLES:
             _plan(plan, stem, (entry, None, name), problems)
+            if suffix in WORKBOOK_SUFFIXES:
+                _other_sheets(entry, stem, workbooks, warnings, unread)
         elif suffix in WORKBOOK_SUFFIXES:
-            _plan_workbook(entry, plan, problems, warnings, workbooks)
+            _plan_workbook(entry, plan, problems, warnings, workbooks, unread)
         elif suffix in DATA_SUFFIXES or stem in TABLES:
             problems.append(Problem(name, f"not a recognised table file{_suggest(stem, TABLES)}; recognised: "
                                           f"{', '.join(f'{t}.csv' for t in TABLES)} (or .xlsx), "
@@ -127,6 +131,14 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
         problems.append(Problem(folder.name or str(folder), "no table files found; expected "
                                 f"{', '.join(f'{t}.csv' for t in TABLES)} (or .xlsx)"))
     tables, failed, lots_read, values_read = _read_tables(plan, mapping, workbooks, sources, problems, warnings)
+    for file, sheet, table in unread:
+        if table is not None:  # a table's rows that would not be read: refused, as a data file not named a table is
+            problems.append(Problem(file, f"sheet '{sheet}' is named after the table '{table}', but a workbook named "
+                                          f"after a table holds that table only: the sheet would not be read; move "
+                                          f"it to a workbook of its own ({table}.xlsx), or rename {file} (a workbook "
+                                          "not named after a table is read sheet by sheet)"))
+            if table not in plan:
+                failed.add(table)  # there, but not read: no 'missing' table, its lots' results not called unknown
     unusual, unusual_records = _without_history({**values_read, **tables}, sources, mapping)
     if not accept_unusual:
         problems += unusual
@@ -147,9 +159,12 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
         unread_rows = lots_read["process"].attrs.get("unread_rows", []) if "process" in lots_read else []
         refused += [lot for _, lot, _ in unread_rows if lot is not None]
         problems += cross_check(Ingest({**tables, **lots_read}, sources, folder=folder), known_lots, unread=failed,
-                                unsure=refused, unread_rows=unread_rows)
+                                unsure=refused, unread_rows=unread_rows,
+                                unread_sheets=[(f, s) for f, s, t in unread if t is None])
     if problems:
-        raise InputError(problems)
+        letters = {sources[t]["file"]: df.attrs["cell_letters"] for frames in (values_read, lots_read, tables)
+                   for t, df in frames.items() if "cell_letters" in df.attrs and t in sources}
+        raise InputError(with_cells(problems, letters) if letters else problems)
     return ingest
 
 
@@ -166,6 +181,8 @@ def _read_tables(plan: dict, mapping: Mapping | None, workbooks: dict, sources: 
     for tname in (t for t in TABLES if t in plan):
         path, sheet, label = plan[tname]
         try:
+            if sheet is None and path in workbooks:  # a workbook named after the table, opened already
+                sheet, label = _table_sheet(workbooks[path][0], path.name, tname)
             if sheet is None:
                 df = read_table(path, tname, mapping)
             else:
@@ -217,7 +234,8 @@ def _plan(plan: dict, table: str, item: tuple, problems: list[Problem]) -> None:
         plan[table] = item
 
 
-def _plan_workbook(path: Path, plan: dict, problems: list[Problem], warnings: list[str], workbooks: dict) -> None:
+def _plan_workbook(path: Path, plan: dict, problems: list[Problem], warnings: list[str], workbooks: dict,
+                   unread: list) -> None:
     try:
         workbooks[path] = _open_workbook(path, path.name)
     except InputError as exc:
@@ -228,7 +246,7 @@ def _plan_workbook(path: Path, plan: dict, problems: list[Problem], warnings: li
     if not found:
         problems.append(Problem(path.name, f"not a recognised table file: neither the file nor any of its sheets "
                                            f"({', '.join(sheets)}) is named after a table; tables: "
-                                           f"{', '.join(TABLES)}"))
+                                           f"{', '.join(TABLES)}{_near_table_hint(sheets)}"))
         return
     for s in sheets:
         if s in found and _hidden(workbooks[path][0], s):
@@ -237,6 +255,64 @@ def _plan_workbook(path: Path, plan: dict, problems: list[Problem], warnings: li
             _plan(plan, _norm_header(s).lower(), (path, s, f"{path.name} (sheet {s})"), problems)
         else:
             warnings.append(f"{path.name}: sheet '{s}' ignored (not a table name)")
+            unread.append((path.name, s, None))
+
+
+def _other_sheets(path: Path, table: str, workbooks: dict, warnings: list[str], unread: list) -> None:
+    """The sheets of a workbook named after ``table`` that are not read: a sheet named after another table is
+    added to ``unread`` with that table (the folder refuses it, since its rows would be lost), any other sheet
+    beside the table's is a warning. A workbook that cannot be opened is said so when its table is read."""
+    try:
+        workbooks[path] = _open_workbook(path, path.name)
+    except InputError:
+        return
+    sheets = workbooks[path][0].sheetnames
+    if len(sheets) == 1 or table not in {_norm_header(s).lower() for s in sheets}:
+        return  # its only sheet is the table; or no sheet is named after it: said when the table is read
+    for s in sheets:
+        name = _norm_header(s).lower()
+        if name == table:
+            continue
+        if name in TABLES:
+            unread.append((path.name, s, name))
+        else:
+            warnings.append(f"{path.name}: sheet '{s}' ignored (a workbook named after a table holds that table "
+                            "only)")
+            unread.append((path.name, s, None))
+
+
+def _near_table(name: str) -> str | None:
+    """The table a sheet or file name probably means (``Process data``, ``Processes``, ``tablet weights``,
+    ``Proces``): the longest table name its letters and digits hold, else the one difflib finds close (ratio at
+    least 0.8; common practice, no source); None when none is."""
+    squeeze = re.sub(r"[\W_]+", "", name.lower())
+    held = [t for t in TABLES if t.replace("_", "") in squeeze]
+    if held:
+        return max(held, key=len)
+    near = difflib.get_close_matches(squeeze, {t.replace("_", ""): t for t in TABLES}, n=1, cutoff=0.8)
+    return {t.replace("_", ""): t for t in TABLES}[near[0]] if near else None
+
+
+def _near_table_hint(sheets: list[str]) -> str:
+    """'; sheet 'Process data' may hold process: name it 'process'' for each sheet whose name is near a
+    table's; empty when none is."""
+    hints = [f"sheet '{s}' may hold {t}: name it '{t}'" for s in sheets if (t := _near_table(s)) is not None]
+    return "; " + "; ".join(hints) if hints else ""
+
+
+def _unread_hint(table: str, unread_sheets: Iterable[tuple[str, str]]) -> str:
+    """A hint naming the sheets not read whose name is near ``table``'s (``Process data``): the rows they hold
+    are not read, and naming the sheet after the table reads them."""
+    unread_sheets = list(unread_sheets)
+    near = [(f, s) for f, s in unread_sheets if _near_table(s) == table]
+    if near:
+        return "".join(f"; {f} has a sheet '{s}' that is not read (only a sheet named after a table is): name it "
+                       f"'{table}' if it holds that table" for f, s in near)
+    others = [(f, s) for f, s in unread_sheets if _near_table(s) is None]
+    if others:
+        return ("; sheets not read (only a sheet named after a table is): "
+                + ", ".join(f"{f} '{s}'" for f, s in others[:5]) + (", ..." if len(others) > 5 else ""))
+    return ""
 
 
 def _sha256(path: Path) -> str:
@@ -244,8 +320,8 @@ def _sha256(path: Path) -> str:
 
 
 def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterable[str] = (),
-                unsure: Iterable[str] = (), unread_rows: Iterable[tuple[int, str | None, list[str]]] = ()
-                ) -> list[Problem]:
+                unsure: Iterable[str] = (), unread_rows: Iterable[tuple[int, str | None, list[str]]] = (),
+                unread_sheets: Iterable[tuple[str, str]] = ()) -> list[Problem]:
     """Rules across tables, given the lots already in the store.
 
     ``known_lots=None`` means the store is not known yet and nothing is
@@ -258,11 +334,15 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
     refused for their number of fields, (sheet row, lot field or None, fields):
     a result whose lot is one of a row's other fields is reported as waiting
     for that row (an extra field before the lot column shifts it).
+    ``unread_sheets`` are the workbook sheets not read, (file, sheet): those
+    whose name is near a table's (``Process data``) are named in the problem
+    of that table's absence, or of a lot without a process record.
     """
     if known_lots is None:
         return []
     known = set(known_lots)
-    problems = [] if known else _missing_tables(ingest, unread)
+    unread_sheets = list(unread_sheets)
+    problems = [] if known else _missing_tables(ingest, unread, unread_sheets)
     with_process = known | set(ingest.tables["process"]["lot"].tolist()) if "process" in ingest.tables else known
     spelling, key = _spellings(ingest, known)
     # a stored id is never refused: a store written before this rule may hold two spellings of one lot
@@ -306,20 +386,24 @@ def cross_check(ingest: Ingest, known_lots: Iterable[str] | None, unread: Iterab
                                                "fix it", row=rs[0], column="lot", value=lot))
                 continue
             problems.append(Problem(label, f"lot {lot!r} has no process record in this folder or in the store "
-                                           f"({row_span(rs)}); add it to process", row=rs[0], column="lot", value=lot))
+                                           f"({row_span(rs)}); add it to process"
+                                           f"{_unread_hint('process', unread_sheets) if known else ''}",
+                                    row=rs[0], column="lot", value=lot))
     return problems
 
 
-def _missing_tables(ingest: Ingest, unread: Iterable[str]) -> list[Problem]:
-    """The tables a first ingest into an empty store needs and this one lacks."""
+def _missing_tables(ingest: Ingest, unread: Iterable[str], unread_sheets: list[tuple[str, str]] = ()
+                    ) -> list[Problem]:
+    """The tables a first ingest into an empty store needs and this one lacks; a sheet not read whose name is
+    near a missing table's is named."""
     missing = [t.name for t in TABLES.values()
                if t.required and t.name not in ingest.tables and t.name not in set(unread)]
     if not missing:
         return []
     needed = ", ".join(t.name for t in TABLES.values() if t.required)
     where = ingest.folder.name if ingest.folder is not None else "input"
-    return [Problem(where, f"required table '{m}' is missing: the first ingest into an empty store needs {needed}")
-            for m in missing]
+    return [Problem(where, f"required table '{m}' is missing: the first ingest into an empty store needs {needed}"
+                           f"{_unread_hint(m, unread_sheets)}") for m in missing]
 
 
 def _spellings(ingest: Ingest, known: set[str]) -> tuple[dict[str, tuple[str, str]], dict[str, str]]:

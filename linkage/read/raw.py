@@ -27,6 +27,9 @@ class _Raw:
     formulas: set[tuple[int, int]] = field(default_factory=set)
     #: (sheet row, column index) of workbook number cells formatted as a percentage: stored 0.0176, shown 1.76 %
     percent: set[tuple[int, int]] = field(default_factory=set)
+    #: (sheet row, column index) -> formula text (``=B2/C2``) of every formula cell of a workbook sheet, with a
+    #: stored result or not: named in the cell's messages
+    formula_text: dict[tuple[int, int], str] = field(default_factory=dict)
     #: rows of a CSV file refused for their number of fields: (sheet row, its fields, its problem); their lot
     #: field may still be read (``linkage.read.table._Check.read_ragged``)
     ragged: list[tuple[int, list[str], Problem]] = field(default_factory=list)

@@ -84,6 +84,9 @@ Target = tuple[int, str, str, ColumnMap | None]
 def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
     """Apply the template to a raw sheet; raise InputError with every problem."""
     check = _Check(raw, tdef, list(raw.problems))
+    title = _title_rows(raw, tdef, cmaps)
+    if title is not None:
+        raise InputError(title)
     check.targets, unit_headers = _match_header(raw, tdef, cmaps, check.problems)
     check.read_ragged()
     hinted = _require_columns(raw.label, tdef, check.targets, unit_headers, check.problems)
@@ -121,7 +124,7 @@ def _match_header(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap],
         if not shown:
             if any(not _is_missing(c) for c in raw.columns[j]):
                 problems.append(Problem(label, f"column {_letters(j)} has values but no header", row=1,
-                                        column=_letters(j)))
+                                        column=_letters(j), cell=None if raw.separator else f"{_letters(j)}1"))
             continue
         cmap = cmaps.get(shown.lower())
         target = cmap.target if cmap else names_lower.get(shown.lower(), shown)
@@ -296,8 +299,9 @@ class _Check:
         if raw.formulas:
             for k, r in enumerate(raw.row_numbers):
                 if (r, j) in raw.formulas:
-                    self.refuse(k, target, "formula without a stored result; open and save the file in a "
-                                           "spreadsheet program, or paste values")
+                    self.refuse(k, target, f"formula without a stored result (the cell holds "
+                                           f"{raw.formula_text.get((r, j), 'a formula')}); open and save the file "
+                                           "in a spreadsheet program, or paste values")
         if raw.percent:
             _percent_cells(raw, j, target, shown, tdef, cmap, cells, self.problems, self.bad)
         if target not in tdef.names:
@@ -422,15 +426,108 @@ class _Check:
         df = frame_from_columns(tdef.name, self.values, self.extra, n_rows=len(sheet_rows))
         problems += _key_problems(df, tdef, raw.label, sheet_rows, self.headers, self.bad)
         problems += _rule_problems(df, tdef, raw.label, sheet_rows, self.headers, self.bad)
+        letters = _cell_letters(raw, self.targets)
         if problems:
-            exc = InputError(_sorted(problems))
+            exc = InputError(_sorted(with_cells(problems, {raw.label: letters}, raw)))
             exc.lots_read = self.lots_read(df) if "lot" in self.values else None
             exc.values_read = self.values_read(df)
+            for read in (exc.lots_read, exc.values_read):
+                if read is not None and letters:
+                    read.attrs["cell_letters"] = letters
             raise exc
+        if letters:
+            df.attrs["cell_letters"] = letters
         df.attrs["table"] = tdef.name
         df.attrs["file"] = raw.label
         df.attrs["source_rows"] = SourceRows(sheet_rows)
         return df
+
+
+def _cell_letters(raw: _Raw, targets: list[Target]) -> dict[str, str]:
+    """The column letter of each column of a workbook sheet, by its header as written and by the template (or
+    extra) column it is read as, both in lower case; a name two columns share is left out. Empty for a CSV
+    file (it has no cell references)."""
+    if raw.separator is not None:
+        return {}
+    letters: dict[str, str | None] = {}
+    for j, head in enumerate(raw.header):
+        shown = _norm_header(head).lower()
+        if shown:
+            letters[shown] = None if shown in letters else _letters(j)
+    for j, target, _, _ in targets:
+        if letters.get(target.lower(), _letters(j)) == _letters(j):
+            letters[target.lower()] = _letters(j)
+        else:
+            letters[target.lower()] = None
+    return {name: letter for name, letter in letters.items() if letter is not None}
+
+
+def with_cells(problems: list[Problem], letters: dict[str, dict[str, str]], raw: _Raw | None = None
+               ) -> list[Problem]:
+    """The problems of workbook sheets with the A1 reference of their cell (``cell C4``), where they name a row
+    and a column of a sheet in ``letters`` (label -> column name in lower case -> column letter, from
+    :func:`_cell_letters`); and, given the sheet's ``raw``, a problem in a formula cell with the formula whose
+    stored result was read."""
+    out = []
+    for p in problems:
+        sheet = letters.get(p.file)
+        if p.cell is None and sheet and p.row is not None and p.column is not None:
+            letter = sheet.get(_norm_header(p.column).lower())
+            if letter is not None:
+                p = replace(p, cell=f"{letter}{p.row}")
+                formula = raw.formula_text.get((p.row, _column_index(letter))) if raw is not None else None
+                if formula is not None and formula not in p.rule:
+                    p = replace(p, rule=f"{p.rule} (the cell holds the formula {formula}; its stored result "
+                                        f"{'is empty' if p.value is None else 'is the value shown'})")
+        out.append(p)
+    return out
+
+
+def _column_index(letters: str) -> int:
+    """The column index (0 for A) of column letters: the inverse of :func:`_letters`."""
+    j = 0
+    for ch in letters:
+        j = j * 26 + ord(ch) - 64
+    return j - 1
+
+
+#: how far down a header is looked for below a title row (common practice, no source: a title, a subtitle and a
+#: blank row or two are what a person puts above a table)
+TITLE_ROWS = 10
+
+
+def _title_rows(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> Problem | None:
+    """A title above the header, said once: row 1 holds no column of the table (not even ``lot``) and a row
+    below it, within :data:`TITLE_ROWS`, holds ``lot`` and another column of the table (a template name in any
+    case, or a header ``columns.toml`` maps). Then every column would be reported as missing and every filled
+    column as one without a header; the one problem says which row holds the header."""
+    names = {n.lower() for n in tdef.names} | set(cmaps)
+
+    def columns_of(cells) -> list[str]:
+        found = []
+        for c in cells:
+            head = _norm_header(c).lower() if isinstance(c, str) else ""
+            target = cmaps[head].target if head in cmaps else head
+            if head in names and target not in found:
+                found.append(target)
+        return found
+
+    if columns_of(raw.header):
+        return None
+    candidates = [(r, [col[k] for col in raw.columns]) for k, r in enumerate(raw.row_numbers[:TITLE_ROWS])]
+    candidates += [(r, fields) for r, fields, _ in raw.ragged if r <= TITLE_ROWS]
+    for row, cells in sorted(candidates, key=lambda rc: rc[0]):
+        if row > TITLE_ROWS:
+            break
+        found = columns_of(cells)
+        if "lot" in found and len(found) >= 2:
+            above = "row 1 looks like a title" if row == 2 else f"rows 1-{row - 1} look like a title"
+            shown = ", ".join(found[:4]) + (", ..." if len(found) > 4 else "")
+            first = next((_shown(c) for c in raw.header if not _is_missing(c)), None)
+            return Problem(raw.label, f"{above} above the header (row {row} holds the template's column names: "
+                                      f"{shown}): delete {'it' if row == 2 else 'them'} so that the header is on "
+                                      "row 1", row=1, value=first)
+    return None
 
 
 @contextmanager

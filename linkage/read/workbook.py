@@ -27,22 +27,27 @@ def _read_workbook_table(path: Path, table: str) -> _Raw:
     """The sheet of a workbook that holds ``table``: the sheet of that name, or the only sheet."""
     values, formulas = _open_workbook(path, path.name)
     try:
-        sheets = values.sheetnames
-        by_name = {_norm_header(s).lower(): s for s in sheets}
-        if table in by_name and _hidden(values, by_name[table]):
-            raise InputError(_hidden_sheet(path.name, by_name[table]))
-        if table in by_name:
-            sheet = by_name[table]
-        elif len(sheets) == 1:
-            sheet = sheets[0]
-        else:
-            raise InputError(Problem(path.name, f"no sheet named '{table}' and more than one sheet "
-                                                f"({', '.join(sheets)})"))
-        label = path.name if len(sheets) == 1 else f"{path.name} (sheet {sheet})"
+        sheet, label = _table_sheet(values, path.name, table)
         return _read_sheet(values, formulas, sheet, label)
     finally:
         values.close()
         formulas.close()
+
+
+def _table_sheet(values_wb, file: str, table: str) -> tuple[str, str]:
+    """The sheet of a workbook named after ``table`` that holds it, and its label in messages: the sheet of
+    that name (in any case), or the only sheet."""
+    sheets = values_wb.sheetnames
+    by_name = {_norm_header(s).lower(): s for s in sheets}
+    if table in by_name and _hidden(values_wb, by_name[table]):
+        raise InputError(_hidden_sheet(file, by_name[table]))
+    if table in by_name:
+        sheet = by_name[table]
+    elif len(sheets) == 1:
+        sheet = sheets[0]
+    else:
+        raise InputError(Problem(file, f"no sheet named '{table}' and more than one sheet ({', '.join(sheets)})"))
+    return sheet, file if len(sheets) == 1 else f"{file} (sheet {sheet})"
 
 
 def _read_sheet(values_wb, formulas_wb, sheet: str, label: str) -> _Raw:
@@ -66,16 +71,27 @@ def _read_sheet(values_wb, formulas_wb, sheet: str, label: str) -> _Raw:
     n = len(header)
     rows: list[tuple[int, list]] = []
     formulas: set[tuple[int, int]] = set()
+    formula_text: dict[tuple[int, int], str] = {}
     for i, rec in enumerate(rows_v[1:], start=2):
         rec = list(rec) + [None] * (n - len(rec))
         if all(_is_missing(c) for c in rec):
             continue
         frec = rows_f[i - 1] if i - 1 < len(rows_f) else ()
         for j, (v, f) in enumerate(zip(rec, frec)):
-            if v is None and isinstance(f, str) and f.startswith("="):
-                formulas.add((i, j))
+            text = _formula(f)
+            if text is not None and text != v:  # a text cell that merely starts with '=' reads the same in both
+                formula_text[(i, j)] = text
+                if v is None:
+                    formulas.add((i, j))
         rows.append((i, rec))
-    return _Raw.from_rows(label, header, rows, None, formulas=formulas, percent=percent)
+    return _Raw.from_rows(label, header, rows, None, formulas=formulas, percent=percent, formula_text=formula_text)
+
+
+def _formula(cell: object) -> str | None:
+    """The formula of a cell of the workbook opened with its formulas (``=B2/C2``), or None. An array formula
+    is an object carrying its text (openpyxl's ``ArrayFormula.text``)."""
+    text = getattr(cell, "text", cell)
+    return text if isinstance(text, str) and text.startswith("=") else None
 
 
 def _sheet_rows(ws, sheet: str, label: str, percent: set | None = None) -> list[tuple]:
