@@ -13,9 +13,13 @@ A folder holds one file a table, named after the table: ``process``,
 ``ribbon``, ``granules``, ``granules_laser``, ``tablets``, ``tablet_weights``,
 ``dissolution`` with the suffix ``.csv``, ``.tsv``, ``.xlsx`` or ``.xlsm``
 (case and stray spaces in the name are ignored). A workbook named after a
-table holds it on the sheet of that name or on its only sheet; a workbook with
-any other name is read sheet by sheet, and each sheet named after a table is
-that table (its other sheets are listed in the warnings). Beside them the
+table holds it on the sheet of that name (in any case) or on its only sheet;
+a sheet in it named after another table is refused (its rows would not be
+read). A workbook with any other name is read sheet by sheet, and each sheet
+named after a table (in any case) is that table. The other sheets are listed
+in the warnings, and, when a table is missing or a lot has no process
+record, in that problem (a sheet whose name is near the table's, such as
+``Process data``, with "name it 'process'"). Beside them the
 folder may hold ``spec.toml`` (see :mod:`linkage.spec`) and ``columns.toml``
 (below). README files are skipped. Any other file is listed in
 ``Ingest.warnings``, except a data file (``.csv``, ``.xlsx`` ...) whose name
@@ -42,6 +46,13 @@ Text and cells
 - Text cells are trimmed and runs of spaces become one (``" EX-001 "`` is
   ``EX-001``).
 - Blank rows are skipped; row numbers still count them, as a spreadsheet does.
+- The header is row 1. A title above it (row 1 holding no column of the
+  table while a row below, within ``table.TITLE_ROWS``, holds ``lot`` and
+  another one) is one problem naming the header's row.
+- A problem in a workbook cell carries its A1 reference (``Problem.cell``,
+  ``C4``); its value is shown as the sheet shows it (a date in ISO 8601,
+  ``exceptions.shown_value``), and a formula cell's message gives the
+  formula.
 
 Separator and decimal mark (the rule that keeps numbers from being misread)
 --------------------------------------------------------------------------
