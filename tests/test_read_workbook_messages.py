@@ -87,7 +87,8 @@ def test_a_sheet_named_nearly_after_a_missing_table_is_named(sheet, tmp_path):
 
 
 def test_a_sheet_far_from_any_table_name_is_listed_when_a_table_is_missing(tmp_path):
-    _workbook(tmp_path / "lab.xlsx", {"Sheet1": [PROCESS, ["A", 9, 2, 5, 20, 1]], "ribbon": [RIBBON, ["A", 1, 1.0, 1.5]]})
+    _workbook(tmp_path / "lab.xlsx", {"Sheet1": [PROCESS, ["A", 9, 2, 5, 20, 1]],
+                                      "ribbon": [RIBBON, ["A", 1, 1.0, 1.5]]})
     ps = _problems(read_folder, tmp_path, known_lots=[])
     (missing,) = [p for p in ps if "required table 'process' is missing" in p.rule]
     assert "sheets not read" in missing.rule and "lab.xlsx 'Sheet1'" in missing.rule
@@ -168,7 +169,8 @@ def _with_cached_value(path: Path, cell: str, formula: str, cached: str, kind: s
     old = f'<c r="{cell}"><f>{formula}</f><v /></c>'
     assert old in xml, xml
     attr = f' t="{kind}"' if kind else ""
-    parts["xl/worksheets/sheet1.xml"] = xml.replace(old, f'<c r="{cell}"{attr}><f>{formula}</f><v>{cached}</v></c>').encode()
+    new = f'<c r="{cell}"{attr}><f>{formula}</f><v>{cached}</v></c>'
+    parts["xl/worksheets/sheet1.xml"] = xml.replace(old, new).encode()
     with zipfile.ZipFile(path, "w") as z:
         for name, data in parts.items():
             z.writestr(name, data)
@@ -230,7 +232,8 @@ def test_cell_references_beside_row_and_column(tmp_path):
         recorded = set(re.findall(r'<c r="([A-Z]+\d+)"', z.read("xl/worksheets/sheet2.xml").decode()))
     assert {"C4", "AB4", "A2"} <= recorded
     text = [str(p) for p in ps]
-    assert any(t.startswith("lab.xlsx (sheet ribbon), row 4, column 'envelope_density_g_cm3', cell C4, value 9: outside the range")
+    expected = "lab.xlsx (sheet ribbon), row 4, column 'envelope_density_g_cm3', cell C4, value 9: outside the range"
+    assert any(t.startswith(expected)
                for t in text), text
 
 
@@ -250,3 +253,34 @@ def test_csv_problems_have_no_cell_reference(tmp_path):
     path.write_text(",".join(RIBBON) + "\nA,1,9,1.5\n", encoding="utf-8")
     (p,) = _problems(read_table, path)
     assert p.cell is None and "cell" not in str(p).split(":")[0]
+
+
+# --------------------------------------------------------------------------- the plan's tables read back
+
+
+def test_a_planned_lots_blank_results_are_read_as_stored_and_said(tmp_path):
+    """`linkage plan` writes process.csv and, when it sets the compression force, tablets.csv with blank
+    results. Read back, a row without any result is kept as it is (not refused, not dropped: it becomes a
+    record of the lot without results, and filling it later revises a stored lot), so the ingest says so; this
+    is also why the plan writes no ribbon or granules table (their keys, the replicate ids and the sieve
+    stack, are the lab's, and every row would be such a record). A regression test of a warning: no outside
+    source needed."""
+    from linkage.decide.plan import start_design, write_plan
+
+    plan = start_design({"roll_force_kn_per_cm": (3.0, 14.0), "roll_gap_mm": (1.5, 3.5)}, 4, seed=3,
+                        held={"compression_force_kn": 14.0})
+    written = write_plan(plan, tmp_path / "plan")
+    assert sorted(p.name for p in written) == ["plan.json", "process.csv", "tablets.csv"]
+    ingest = read_folder(tmp_path / "plan", known_lots=["OLD-001"])
+    assert ingest.tables["tablets"]["compression_force_kn"].tolist() == [14.0] * 4  # read as written
+    (said,) = [w for w in ingest.warnings if w.startswith("tablets.csv: rows 2-5 (4 rows)")]
+    assert "PLAN-001" in said and "hold no result" in said and "--reason" in said
+    # a row with a result is no such row
+    text = (tmp_path / "plan" / "tablets.csv").read_text(encoding="utf-8").splitlines()
+    head = text[0].split(",")
+    row = text[1].split(",")
+    row[head.index("breaking_force_n")] = "95"
+    (tmp_path / "plan" / "tablets.csv").write_text("\n".join([text[0], ",".join(row), *text[2:]]) + "\n",
+                                                    encoding="utf-8")
+    (said,) = [w for w in read_folder(tmp_path / "plan", known_lots=["OLD-001"]).warnings if "hold no result" in w]
+    assert said.startswith("tablets.csv: rows 3-5 (3 rows)")

@@ -202,7 +202,34 @@ def _read_tables(plan: dict, mapping: Mapping | None, workbooks: dict, sources: 
         sources[tname] = {"file": label, "sha256": _sha256(path), "rows": len(df)}
         if len(df) == 0:
             warnings.append(f"{label} has a header but no data rows")
+        warnings += _without_results(tname, df, label)
     return tables, failed, lots_read, values_read
+
+
+#: columns of a result table that are a setting, not a result: the tablet press's compression force (planned by
+#: ``linkage plan``, ``linkage.decide.plan.OTHER_SETTINGS``)
+SETTINGS_IN_RESULT_TABLES = frozenset({"compression_force_kn"})
+
+
+def _without_results(tname: str, df: pd.DataFrame, label: str) -> list[str]:
+    """A warning for the rows of a result table that hold no result: every cell but the key's and a setting's
+    blank (the tables ``linkage plan`` writes, before the lab fills them). Such a row is stored as it is read,
+    a record of the lot without results, and filling it in later revises a stored lot (``--reason``)."""
+    if tname == "process" or len(df) == 0:
+        return []
+    values = [c for c in df.columns if c not in TABLES[tname].key and c not in SETTINGS_IN_RESULT_TABLES]
+    if not values:
+        return []
+    blank = df[values].isna().all(axis=1).to_numpy()
+    if not blank.any():
+        return []
+    rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
+    lots = list(dict.fromkeys(df.loc[blank, "lot"].tolist()))
+    named = ", ".join(lots[:5]) + (", ..." if len(lots) > 5 else "")
+    return [f"{label}: {row_span([r for r, b in zip(rows, blank) if b])} (lot{'s' if len(lots) > 1 else ''} "
+            f"{named}) hold no result, every cell but the key's and the settings' blank: stored as records "
+            "without results, and filling them in later is a revision of the stored lots (--reason); a planned "
+            "lot's tables are best ingested once their results are filled in"]
 
 
 def _without_history(frames: dict[str, pd.DataFrame], sources: dict, mapping: Mapping | None
