@@ -21,22 +21,10 @@ import pytest
 
 from linkage.exceptions import InputError, Problem
 from linkage.read import read_folder, read_table
+from tests.test_read import _workbook  # a workbook of the given sheets, written by openpyxl
 
 PROCESS = ["lot", "roll_force_kn_per_cm", "roll_gap_mm", "roll_speed_rpm", "screw_speed_rpm", "mill_screen_mm"]
 RIBBON = ["lot", "sample", "envelope_density_g_cm3", "skeletal_density_g_cm3"]
-
-
-def _workbook(path: Path, sheets: dict[str, list[list]]) -> Path:
-    import openpyxl
-
-    wb = openpyxl.Workbook()
-    wb.remove(wb.active)
-    for name, rows in sheets.items():
-        ws = wb.create_sheet(name)
-        for row in rows:
-            ws.append(row)
-    wb.save(path)
-    return path
 
 
 def _problems(fn, *args, **kwargs) -> list[Problem]:
