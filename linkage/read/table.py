@@ -428,7 +428,7 @@ class _Check:
         problems += _rule_problems(df, tdef, raw.label, sheet_rows, self.headers, self.bad)
         letters = _cell_letters(raw, self.targets)
         if problems:
-            exc = InputError(_sorted(with_cells(problems, {raw.label: letters}, raw)))
+            exc = InputError(_sorted(with_cells(problems, {raw.label: letters}, raw) if letters else problems))
             exc.lots_read = self.lots_read(df) if "lot" in self.values else None
             exc.values_read = self.values_read(df)
             for read in (exc.lots_read, exc.values_read):

@@ -78,8 +78,10 @@ def _read_sheet(values_wb, formulas_wb, sheet: str, label: str) -> _Raw:
             continue
         frec = rows_f[i - 1] if i - 1 < len(rows_f) else ()
         for j, (v, f) in enumerate(zip(rec, frec)):
+            if f is None or f == v:
+                continue  # a value cell reads the same in both (a text cell starting with '=' too): no formula
             text = _formula(f)
-            if text is not None and text != v:  # a text cell that merely starts with '=' reads the same in both
+            if text is not None:
                 formula_text[(i, j)] = text
                 if v is None:
                     formulas.add((i, j))
