@@ -131,14 +131,7 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
         problems.append(Problem(folder.name or str(folder), "no table files found; expected "
                                 f"{', '.join(f'{t}.csv' for t in TABLES)} (or .xlsx)"))
     tables, failed, lots_read, values_read = _read_tables(plan, mapping, workbooks, sources, problems, warnings)
-    for file, sheet, table in unread:
-        if table is not None:  # a table's rows that would not be read: refused, as a data file not named a table is
-            problems.append(Problem(file, f"sheet '{sheet}' is named after the table '{table}', but a workbook named "
-                                          f"after a table holds that table only: the sheet would not be read; move "
-                                          f"it to a workbook of its own ({table}.xlsx), or rename {file} (a workbook "
-                                          "not named after a table is read sheet by sheet)"))
-            if table not in plan:
-                failed.add(table)  # there, but not read: no 'missing' table, its lots' results not called unknown
+    problems += _table_sheets_unread(unread, plan, failed)
     unusual, unusual_records = _without_history({**values_read, **tables}, sources, mapping)
     if not accept_unusual:
         problems += unusual
@@ -162,10 +155,33 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
                                 unsure=refused, unread_rows=unread_rows,
                                 unread_sheets=[(f, s) for f, s, t in unread if t is None])
     if problems:
-        letters = {sources[t]["file"]: df.attrs["cell_letters"] for frames in (values_read, lots_read, tables)
-                   for t, df in frames.items() if "cell_letters" in df.attrs and t in sources}
-        raise InputError(with_cells(problems, letters) if letters else problems)
+        raise InputError(_with_cell_references(problems, sources, (values_read, lots_read, tables)))
     return ingest
+
+
+def _table_sheets_unread(unread: list[tuple[str, str, str | None]], plan: dict, failed: set[str]) -> list[Problem]:
+    """A sheet named after a table in a workbook named after another table: refused, since its rows would not be
+    read (as a data file not named after a table is). A table given only there is added to ``failed``: it is
+    there but not read, so it is not also called missing, nor its lots' results unknown."""
+    problems = []
+    for file, sheet, table in unread:
+        if table is None:
+            continue
+        problems.append(Problem(file, f"sheet '{sheet}' is named after the table '{table}', but a workbook named "
+                                      f"after a table holds that table only: the sheet would not be read; move it "
+                                      f"to a workbook of its own ({table}.xlsx), or rename {file} (a workbook not "
+                                      "named after a table is read sheet by sheet)"))
+        if table not in plan:
+            failed.add(table)
+    return problems
+
+
+def _with_cell_references(problems: list[Problem], sources: dict, frames: tuple[dict, ...]) -> list[Problem]:
+    """The folder's problems with the A1 reference of each workbook cell they name (the checks across files
+    too), from the column letters each sheet read recorded (``attrs["cell_letters"]``)."""
+    letters = {sources[t]["file"]: df.attrs["cell_letters"] for tables in frames for t, df in tables.items()
+               if "cell_letters" in df.attrs and t in sources}
+    return with_cells(problems, letters) if letters else problems
 
 
 def _read_tables(plan: dict, mapping: Mapping | None, workbooks: dict, sources: dict, problems: list[Problem],
