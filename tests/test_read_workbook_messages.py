@@ -272,3 +272,13 @@ def test_a_planned_lots_blank_results_are_read_as_stored_and_said(tmp_path):
                                                     encoding="utf-8")
     (said,) = [w for w in read_folder(tmp_path / "plan", known_lots=["OLD-001"]).warnings if "hold no result" in w]
     assert said.startswith("tablets.csv: rows 3-5 (3 rows)")
+
+
+def test_two_sheets_named_after_the_table_are_refused(tmp_path):
+    """Sheet names are matched trimmed and in any case, so 'Ribbon' and ' ribbon ' in ribbon.xlsx both name the
+    table: refused, not one of them taken. (Two names that differ only in case cannot be saved: openpyxl renames
+    the second, 'ribbon1', as a spreadsheet program refuses it.)"""
+    path = _workbook(tmp_path / "ribbon.xlsx", {"Ribbon": [RIBBON, ["A", 1, 1.0, 1.5]],
+                                                " ribbon ": [RIBBON, ["A", 1, 2.0, 1.5]]})
+    (p,) = _problems(read_table, path)
+    assert "sheets 'Ribbon' and ' ribbon ' are both named after the table 'ribbon'" in p.rule

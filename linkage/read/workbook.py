@@ -38,6 +38,10 @@ def _table_sheet(values_wb, file: str, table: str) -> tuple[str, str]:
     """The sheet of a workbook named after ``table`` that holds it, and its label in messages: the sheet of
     that name (in any case), or the only sheet."""
     sheets = values_wb.sheetnames
+    named = [s for s in sheets if _norm_header(s).lower() == table]
+    if len(named) > 1:  # 'Ribbon' and 'ribbon': which one is meant is not guessed
+        raise InputError(Problem(file, f"sheets {' and '.join(repr(s) for s in named)} are both named after the table "
+                                       f"'{table}' (sheet names are matched in any case): keep one"))
     by_name = {_norm_header(s).lower(): s for s in sheets}
     if table in by_name and _hidden(values_wb, by_name[table]):
         raise InputError(_hidden_sheet(file, by_name[table]))
