@@ -411,6 +411,8 @@ def _roll_force_lines(d: dict, has_bound: bool) -> list[str]:
                      f"): {rf['low']:.2f} – {rf['high']:.2f} kN/cm")
     elif rf.get("reason"):
         lines.append(f"Roll force: {rf['reason']}")
+    if rf.get("compactors_note") and rf.get("low") is not None:
+        lines.append(f"  {rf['compactors_note']}")
     beside = []
     if has_bound and rf.get("point_low") is not None:
         beside.append(f"point estimate {rf['point_low']:.2f} – {rf['point_high']:.2f}")

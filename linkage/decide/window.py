@@ -248,6 +248,10 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
                               if FORCE in chain.training["ranges"] and chain.training["ranges"][FORCE] else None)
     if low_edge.value is None and force.get("low") is None:
         force["reason"] = "no porosity window to translate"
+    ribbon = next((s for s in lean.stages if POROSITY in s.targets), None)
+    pooled = pooled_compactors(getattr(chain, "training", None), ribbon.inputs if ribbon is not None else ())
+    if pooled:
+        force["compactors"], force["compactors_note"] = pooled
     domain = window_domain(chain, draws, grid, low_edge.value, high_edge.value, force)
     if not bound["available"]:
         domain["promise"] = False
@@ -442,6 +446,21 @@ def _bound_record(lean, chain_p, assurance: float, band_level: float | None = No
     return {"available": True, "assurance": assurance, "n_replicates": reps.n, "method": reps.method,
             "reason": None,
             "simultaneous": None if band_level is None else {"quantile": band_level, "method": SIMULTANEOUS_METHOD}}
+
+
+def pooled_compactors(training: dict | None, ribbon_inputs) -> tuple[dict[str, int], str] | None:
+    """(training lots per compactor, a note) when the roll force range is pooled over several compactors: the
+    training lots come from more than one (``training["compactor_lots"]``, :func:`linkage.models.train`'s record)
+    and the ribbon stage has no roll geometry among its inputs, so the range is no one compactor's. None
+    otherwise, and for a model trained before the counts were kept."""
+    counts = (training or {}).get("compactor_lots") or {}
+    if len(counts) < 2 or "roll_diameter_mm" in ribbon_inputs:
+        return None
+    listed = ", ".join(f"{name}: {n} lot{'' if n == 1 else 's'}" for name, n in counts.items())
+    return dict(counts), (
+        f"pooled over the training lots of {len(counts)} compactors ({listed}): the ribbon stage has no roll "
+        "geometry among its inputs, so this range is no one compactor's. For one compactor's rolls: linkage "
+        "transfer --roll-diameter-mm D --roll-width-mm W --gap-mm S --window LOW:HIGH")
 
 
 def window_domain(chain, draws, grid, low: float | None, high: float | None, roll_force: dict) -> dict:

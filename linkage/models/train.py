@@ -619,11 +619,28 @@ def _training_record(table: pd.DataFrame, chain: ChainSpec, raw: pd.DataFrame, n
     named = raw["product"].dropna().astype(str) if "product" in raw.columns else pd.Series([], dtype=str)
     rec["product_lots"] = {str(p): int(n) for p, n in sorted(named.value_counts().items())}
     rec["lots_without_product"] = int(len(raw) - len(named))
+    rec["compactor_lots"] = _compactor_lots(raw)
     if "manufactured_at" in raw.columns:
         t = pd.to_datetime(raw["manufactured_at"], errors="coerce", utc=True).dropna()
         if len(t):
             rec["manufactured"] = [t.min().isoformat(), t.max().isoformat()]
     return rec
+
+
+def _compactor_lots(raw: pd.DataFrame) -> dict[str, int]:
+    """Training lots per compactor: by the ``compactor`` column where it names one, else by the roll geometry
+    the lot gives ("roll 250 mm × 100 mm"); lots that give neither are not counted. {} when no lot does (the
+    window then says nothing of compactors, :func:`linkage.decide.window.pooled_compactors`)."""
+    names = pd.Series([None] * len(raw), index=raw.index, dtype=object)
+    if "compactor" in raw.columns:
+        named = raw["compactor"].astype("string").str.strip()
+        names = names.mask(named.notna() & (named != ""), named)
+    if {"roll_diameter_mm", "roll_width_mm"} <= set(raw.columns):
+        d = pd.to_numeric(raw["roll_diameter_mm"], errors="coerce")
+        w = pd.to_numeric(raw["roll_width_mm"], errors="coerce")
+        geometry = "roll " + d.map("{:g}".format) + " mm × " + w.map("{:g}".format) + " mm"
+        names = names.mask(names.isna() & d.notna() & w.notna(), geometry)
+    return {str(k): int(n) for k, n in sorted(names.dropna().value_counts().items())}
 
 
 def _settings_record(table: pd.DataFrame, chain: ChainSpec) -> dict:

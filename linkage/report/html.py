@@ -1082,6 +1082,8 @@ def _roll_force(b, table, w):
                     mean_response_range=_range(rf.get("mean_response_low"), rf.get("mean_response_high"), 2),
                     in_window_range=_range(rf.get("in_window_low"), rf.get("in_window_high"), 2),
                     mean_text=mean_text))
+        if rf.get("compactors_note"):
+            b.add(_part("blocks", "para", text=f"The roll force range is {rf['compactors_note']}."))
     elif rf.get("reason"):
         b.note(f"Roll force range: {rf['reason']}.")
         if "curve" in rf:
