@@ -233,6 +233,34 @@ def plain(text, max_chars: int | None = None) -> str:
 #: longest lot name shown as a tick label or annotation
 LOT_CHARS = 14
 
+#: font size of the lot names along a time axis [pt]: about 12 px in the PNG, legible at the report's width
+#: (6 pt, about 8 px and smaller still where a figure is scaled down, was barely legible); ticks are thinned
+#: to fit instead of shrinking the font
+LOT_TICK_SIZE = 8.5
+#: room a lot name rotated upright takes along the axis, in multiples of its font size (one line and a gap)
+LOT_TICK_ROOM = 1.8
+
+
+def lot_axis_bottom(lots: Sequence, *, fontsize: float = LOT_TICK_SIZE) -> float:
+    """Room below a time axis for the lots' names upright at ``fontsize`` (at most LOT_CHARS characters,
+    about 0.6 em each) and the axis label under them [inch]."""
+    longest = min(max((len(str(v)) for v in lots), default=0), LOT_CHARS)
+    return 0.55 + longest * fontsize * 0.6 / 72
+
+
+def lot_ticks(ax, lots: Sequence, *, fontsize: float = LOT_TICK_SIZE) -> list[int]:
+    """Name the lots along the x axis (lot i at x = i, in time order) at ``fontsize``, rotated upright,
+    every k-th lot with k the smallest step whose names fit the axis's width side by side; returns the
+    positions named. Call once the figure has its size and layout."""
+    n = len(lots)
+    width_pt = ax.get_position().width * ax.figure.get_figwidth() * 72
+    room = max(1, int(width_pt // (LOT_TICK_ROOM * fontsize)))
+    step = max(1, -(-n // room))
+    ticks = list(range(0, n, step))
+    ax.set_xticks(ticks, [plain(lots[i], LOT_CHARS) for i in ticks], rotation=90, fontsize=fontsize)
+    return ticks
+
+
 
 def _scatter_groups(ax, x, y, groups, *, size=28, alpha=0.85, legend_title=None, max_legend=12):
     x = np.asarray(x, float)
@@ -259,14 +287,13 @@ def plot_completeness(present, *, ax=None):
     from matplotlib.colors import ListedColormap
 
     n_lots, n_tables = present.shape
-    ax = new_axes(ax, panel=(7.6, 0.28 * n_tables + 0.3), left=label_margin(present.columns) + 0.3, bottom=1.15)
+    ax = new_axes(ax, panel=(7.6, 0.28 * n_tables + 0.3), left=label_margin(present.columns) + 0.3,
+                  bottom=lot_axis_bottom(present.index))
     data = np.asarray(present, dtype=float).T
     ax.imshow(data, aspect="auto", interpolation="nearest", cmap=ListedColormap(["#f2f2f2", BLUE]),
               vmin=0, vmax=1)
     ax.set_yticks(range(n_tables), [plain(c) for c in present.columns], fontsize=8)
-    step = max(1, int(np.ceil(n_lots / 40)))
-    ticks = list(range(0, n_lots, step))
-    ax.set_xticks(ticks, [plain(present.index[i], LOT_CHARS) for i in ticks], rotation=90, fontsize=6)
+    lot_ticks(ax, list(present.index))
     ax.set_xlabel("lot (time order) [-]")
     ax.set_ylabel("table [-]")
     ax.set_title("Results present per lot (blue) and missing (grey)", fontsize=9)
@@ -354,7 +381,7 @@ def plot_residuals_in_time(lots: Sequence, residuals, *, name: str, groups=None,
                            ax=None):
     """Out-of-fold residuals (observed - predicted) lot by lot in time order,
     with the measurement noise floor shaded when it is known."""
-    ax = new_axes(ax, panel=(4.6, 3.2), bottom=1.0)
+    ax = new_axes(ax, panel=(4.6, 3.2), bottom=lot_axis_bottom(lots))
     r = np.asarray(residuals, float)
     x = np.arange(len(r))
     keep = np.isfinite(r)
@@ -365,9 +392,7 @@ def plot_residuals_in_time(lots: Sequence, residuals, *, name: str, groups=None,
     ax.vlines(x[keep], 0, r[keep], color="#b0b0b0", linewidth=0.8)
     _scatter_groups(ax, x[keep], r[keep], None if groups is None else np.asarray(groups, dtype=object)[keep],
                     size=20)
-    step = max(1, int(np.ceil(len(r) / 20)))
-    ticks = list(range(0, len(r), step))
-    ax.set_xticks(ticks, [plain(lots[i], LOT_CHARS) for i in ticks], rotation=90, fontsize=6)
+    lot_ticks(ax, lots)
     ax.set_xlabel("lot, in time order [-]")
     ax.set_ylabel("residual, observed − predicted [" + axis_label(name).rsplit("[", 1)[-1])
     if ax.get_legend_handles_labels()[0]:
@@ -571,7 +596,7 @@ def plot_control_chart(lots: Sequence, values, *, centre: float, limits: tuple[f
     """An individuals chart in time order: centre line, ±3σ limits (dashed),
     the EWMA and its limits (thin), lots since training filled, flagged lots
     ringed in vermilion."""
-    ax = new_axes(ax, panel=(4.6, 2.8), bottom=1.0)
+    ax = new_axes(ax, panel=(4.6, 2.8), bottom=lot_axis_bottom(lots))
     v = np.asarray(values, float)
     x = np.arange(len(v))
     new = np.zeros(len(v), bool) if new is None else np.asarray(new, bool)
@@ -590,9 +615,7 @@ def plot_control_chart(lots: Sequence, values, *, centre: float, limits: tuple[f
         ax.plot(x, ewma, color=ORANGE, linewidth=1.2, label="EWMA (λ 0.2)")
         ax.plot(x, ewma_low, color=ORANGE, linewidth=0.7, linestyle=":")
         ax.plot(x, ewma_high, color=ORANGE, linewidth=0.7, linestyle=":")
-    step = max(1, int(np.ceil(len(v) / 20)))
-    ticks = list(range(0, len(v), step))
-    ax.set_xticks(ticks, [plain(lots[i], LOT_CHARS) for i in ticks], rotation=90, fontsize=6)
+    lot_ticks(ax, lots)
     ax.set_xlabel("lot, in time order [-]")
     ax.set_ylabel(ylabel or axis_label(name))
     ax.set_title(plain(name), fontsize=8)

@@ -21,8 +21,8 @@ Sections:
 2. The lots: how many, which tables each has, the ranges, which lots a
    model left out and why, and the notes of the assembly.
 3. Ribbon stage: porosity against roll force by roll gap, with the fit.
-4. Strength-porosity baseline: the Ryshkewitch-Duckworth fits with their
-   standard errors.
+4. Strength-porosity baseline: fits of the Ryshkewitch-Duckworth form
+   against ribbon porosity, with their standard errors.
 5. Attribute by attribute: cross-validated predicted against observed,
    residuals in time order, the candidates against the baseline, the mean
    and the noise floor.
@@ -60,7 +60,7 @@ GAP = "roll_gap_mm"
 #: what the candidates are, in the report's words
 CANDIDATE_ROLE = {
     "mean": "floor: the mean of the training lots",
-    "rd_baseline": "physical baseline (Ryshkewitch–Duckworth)",
+    "rd_baseline": "baseline: Ryshkewitch–Duckworth form in ribbon porosity",
     "log_linear": "ln y on inputs selected per attribute (Ryshkewitch–Duckworth, power laws)",
     "weibull_release": "Weibull / first-order release and RRSB undersize form, inputs selected",
     "linear_select": "least squares on inputs selected per attribute",
@@ -386,8 +386,9 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
         if window is not None:
             computed["window"] = window
 
-    _glance(b, chain, table, spec, window)
-    _data_section(b, chain, table, lots, other_lots)
+    revised = revised_training_lots(chain, lots)
+    _glance(b, chain, table, spec, window, revised)
+    _data_section(b, chain, table, lots, other_lots, revised)
     _ribbon_section(b, chain, table, limits)
     _baseline_section(b, chain, table, limits)
     _attribute_section(b, chain, table, limits)
@@ -397,7 +398,7 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
     _window_section(b, chain, table, spec, window, window_failure)
     from linkage.report.transfer_section import transfer_section  # scale-up between compactors (issue 16)
 
-    transfer_section(b, table, window, seed=seed)
+    transfer_section(b, table, window, seed=seed, trained=chain.training.get("lots") or [])
     if plan is not None:
         from linkage.report.plan_section import plan_section, read_plan
 
@@ -423,7 +424,7 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
         computed["mewma"] = [design]
     _watch_section(b, chain, table, window, watched)
     _domain_section(b, chain, table)
-    _model_card(b, chain, spec, window)
+    _model_card(b, chain, spec, window, revised)
     _cautions(b, chain)
 
 
@@ -477,13 +478,31 @@ def _group_column(table: pd.DataFrame, lots) -> tuple[str | None, list | None]:
     return None, None
 
 
+def revised_training_lots(chain, lots) -> list[dict]:
+    """The model's training lots revised after it was trained
+    (:func:`linkage.decide.watch.revised_since_training`, as ``linkage watch`` names them), from the lot store's
+    :meth:`linkage.store.LotStore.lots`; none when ``lots`` has no revisions (not from a store) or the model
+    no time of training."""
+    from linkage.decide.watch import revised_since_training
+
+    if lots is None or not {"lot", "revision", "updated_at"} <= set(lots.columns) or not chain.created_at:
+        return []
+    return revised_since_training(lots, chain.training.get("lots") or [], chain.created_at)
+
+
+def _revised_text(revised: list[dict]) -> str:
+    """The revised lots named with their revision and time (the first 12, and how many more)."""
+    shown = ", ".join(f"{r['lot']} (revision {r['revision']}, {r['revised_at']})" for r in revised[:12])
+    return shown + (f" and {len(revised) - 12} more" if len(revised) > 12 else "")
+
+
 def _stage_of(chain, name: str):
     return next((s for s in chain.stages if name in s.targets), None)
 
 
 # ----------------------------------------------------------------- 1. at a glance
 
-def _glance(b, chain, table, spec, window):
+def _glance(b, chain, table, spec, window, revised=()):
     b.section("glance", "At a glance")
     time_point = None
     if "dissolution_pct" in chain.targets:
@@ -511,7 +530,8 @@ def _glance(b, chain, table, spec, window):
                 point_range=_range(window.point_low, window.point_high, 3) if state == "found" else None,
                 rf_range=_range(rf.get("point_low"), rf.get("point_high"), 2),
                 low_edge=_edge_text(window.low.limited_by) if window is not None else None,
-                high_edge=_edge_text(window.high.limited_by) if window is not None else None))
+                high_edge=_edge_text(window.high.limited_by) if window is not None else None,
+                revised=len(revised), revised_text=_revised_text(revised)))
 
 
 def _every(window) -> str:
@@ -571,7 +591,7 @@ def _presence(table: pd.DataFrame, lots: pd.DataFrame | None) -> tuple[pd.DataFr
         "the assembled table"
 
 
-def _data_section(b, chain, table, lots, other_lots=None):
+def _data_section(b, chain, table, lots, other_lots=None, revised=()):
     from linkage.report import figures as F
     from linkage.products import others_text
 
@@ -584,8 +604,12 @@ def _data_section(b, chain, table, lots, other_lots=None):
     counts = [(word, list(table[col].dropna().astype(str).value_counts().items()))
               for col, word in (("product", "products"), ("compactor", "compactors"))
               if col in table.columns and table[col].notna().any()]
+    n_trained = len(set(map(str, chain.training.get("lots") or [])) & set(table["lot"].astype(str)))
     b.add(_part("lots", "summary", n=len(table), made=made, counts=counts,
-                others=others_text(other_lots) if other_lots else None, product=chain.trained_product))
+                others=others_text(other_lots) if other_lots else None, product=chain.trained_product,
+                n_trained=n_trained))
+    if revised:
+        b.add(_part("lots", "revised", n=len(revised), lots=_revised_text(revised), model_id=chain.model_id))
 
     present, source = _presence(table, lots)
     b.add(_part("blocks", "h3", text="Which tables each lot has"))
@@ -724,12 +748,25 @@ def _gap_levels(gap: np.ndarray, most: int = 6) -> np.ndarray:
 
 # ----------------------------------------------------------------- 4. baseline
 
+#: the attributes that are a tablet's strength (the baseline section says when they rise with ribbon porosity)
+STRENGTH = ("tensile_strength_mpa", "breaking_force_n")
+
+
+def _negative(value) -> bool:
+    """A finite number below zero (a coefficient k that makes the baseline rise with porosity)."""
+    try:
+        return math.isfinite(float(value)) and float(value) < 0
+    except (TypeError, ValueError):
+        return False
+
+
 def _baseline_section(b, chain, table, limits):
     from linkage.report import figures as F
 
     b.section("baseline", "Strength–porosity baseline (Ryshkewitch–Duckworth)")
-    b.add(_part("models", "baseline_intro"))
     fitted = [(name, t) for name, t in chain.targets.items() if getattr(t, "rd_params", None)]
+    rising = [name for name, t in fitted if name in STRENGTH and _negative(t.rd_params.get("k"))]
+    b.add(_part("models", "baseline_intro", rising=rising))
     if not fitted:
         b.note("No attribute has a Ryshkewitch–Duckworth fit: none is predicted from ribbon_porosity with at "
                "least 3 distinct porosities.")
@@ -754,7 +791,8 @@ def _baseline_section(b, chain, table, limits):
                           t.rd_params.get("k"), name=name, limit=limits.get(name), ax=ax)
         return fig
 
-    b.figure(make, "Each attribute against ribbon porosity (training lots) with its Ryshkewitch–Duckworth fit; "
+    b.figure(make, "Each attribute against ribbon porosity (training lots) with its fit of the Ryshkewitch–Duckworth "
+                   "form; "
                    "dashed: specification limits.", panels=len(fitted))
 
 
@@ -801,7 +839,7 @@ def _attribute_figure(name, target, oof, order, groups, group_col, limit):
     """An attribute's predicted against observed and its residuals in time order (two panels)."""
     from linkage.report import figures as F
 
-    fig, (a1, a2) = F.grid_axes(2, ncols=2, panel=(3.3, 2.9), bottom=1.0, wspace=1.0)
+    fig, (a1, a2) = F.grid_axes(2, ncols=2, panel=(3.3, 2.9), bottom=F.lot_axis_bottom(order), wspace=1.0)
     F.plot_predicted_observed(oof["observed"], oof[target.selected], name=name, groups=groups,
                               group_title=group_col, limit=limit, ax=a1)
     resid = oof["observed"] - oof[target.selected]
@@ -1117,7 +1155,9 @@ def _watch_section(b, chain, table, window, result):
         b.note("No attribute has enough training residuals (at least 3, not all equal) for control limits.")
     else:
         def make():
-            fig, axes = F.grid_axes(len(charts), ncols=2, panel=(4.2, 2.4), bottom=1.0, hspace=1.3, wspace=1.0)
+            bottom = F.lot_axis_bottom([lot for c in charts for lot in c.lots])
+            fig, axes = F.grid_axes(len(charts), ncols=2, panel=(4.2, 2.4), bottom=bottom, hspace=bottom + 0.3,
+                                    wspace=1.0)
             for ax, c in zip(axes, charts):
                 new = [p == "new" for p in c.phase]
                 F.plot_control_chart(c.lots, c.residual, centre=c.reference.mu0, limits=c.limits,
@@ -1203,7 +1243,7 @@ def _domain_section(b, chain, table):
 
 # ----------------------------------------------------------------- 9. model card
 
-def _model_card(b, chain, spec, window):
+def _model_card(b, chain, spec, window, revised=()):
     from linkage.models.cv import SELECTION_RULE, SIMPLICITY_ORDER
 
     b.section("card", "Model card")
@@ -1215,6 +1255,8 @@ def _model_card(b, chain, spec, window):
         ["trained", chain.created_at],
         ["chain", _part("card", "stages", stages=chain.stages)],
         ["training lots", _part("card", "training_lots", n=len(lots), lots=_lots_text(lots, limit=200))],
+        *([["training lots revised since", _part("card", "revised", n=len(revised), lots=_revised_text(revised))]]
+          if revised else []),
         ["data hash (SHA-256 of the training table)", _part("card", "code", text=tr.get("table_sha256", "n/a"))],
         ["library versions", versions or "n/a"],
         ["seed", chain.seed],

@@ -1,5 +1,5 @@
 """The report's plan section: the planned lots drawn over roll force × roll
-gap with the training lots, and a table of what each lot is for
+gap with the lots made so far, and a table of what each lot is for
 (issue 18; :mod:`linkage.decide.plan`)."""
 
 from __future__ import annotations
@@ -39,14 +39,14 @@ def read_plan(plan) -> dict:
 
 
 def plot_plan_map(force, gap, plan_force, plan_gap, labels, *, ax=None):
-    """Training lots (grey dots) and planned lots (black crosses, labelled
+    """The lots made so far (grey dots: every lot of the report's table, trained on or not) and planned lots (black crosses, labelled
     with their run number) over roll force × roll gap."""
     from linkage.report.figures import BLACK, GREY, axis_label, new_axes
 
     ax = new_axes(ax, panel=(6.0, 3.4))
     force, gap = np.asarray(force, float), np.asarray(gap, float)
     keep = np.isfinite(force) & np.isfinite(gap)
-    ax.scatter(force[keep], gap[keep], s=22, color=GREY, alpha=0.7, label="training lots")
+    ax.scatter(force[keep], gap[keep], s=22, color=GREY, alpha=0.7, label=f"lots made so far ({int(keep.sum())})")
     pf, pg = np.asarray(plan_force, float), np.asarray(plan_gap, float)
     ax.scatter(pf, pg, s=60, marker="x", color=BLACK, linewidths=1.8, label="planned lots")
     for x, y, text in zip(pf, pg, labels):
@@ -77,7 +77,8 @@ def plan_section(b, chain, table, plan: dict) -> None:
     if len(have) == 2 and lots and all(FORCE in s and GAP in s for s in planned):
         make = partial(plot_plan_map, table[FORCE], table[GAP], [s[FORCE] for s in planned],
                        [s[GAP] for s in planned], [x.get("run", i + 1) for i, x in enumerate(lots)])
-        b.figure(make, "Planned lots (crosses, labelled with their run number) and the training lots (dots) over "
+        b.figure(make, "Planned lots (crosses, labelled with their run number) and the lots made so far (dots; every "
+                     "lot of this report's table, whether the model was trained on it or not) over "
                      "specific roll force and roll gap.")
     else:
         b.note("The plan or the lots lack roll force or roll gap, so the plan cannot be drawn over them.")

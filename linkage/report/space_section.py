@@ -15,11 +15,13 @@ from linkage.decide.defaults import MAP_GRID
 from linkage.numbers import percent_text
 
 
-def plot_space(result, lots_x=None, lots_y=None, *, ax=None):
+def plot_space(result, lots_x=None, lots_y=None, *, trained=None, ax=None):
     """Filled contours of the lower bound of P(all pass) (the point estimate
     without one) over the two mapped settings; the confidence contour of the
     bound (solid) and of the point estimate (dashed); the applicability-domain
-    boundary (thick grey; outside it hatched); the training lots (dots); the
+    boundary (thick grey; outside it hatched); the lots (open dots: the
+    training lots; filled squares: the others, where ``trained``, one bool a
+    lot, says which is which; every lot is a training lot without it); the
     acceptable ranges' box and the suggested set point. Units on both axes."""
     from linkage.report.figures import BLACK, BLUE, CMAP, GREY, VERMILION, axis_label, new_axes
 
@@ -53,10 +55,15 @@ def plot_space(result, lots_x=None, lots_y=None, *, ax=None):
     if lots_x is not None and lots_y is not None:
         lx, ly = np.asarray(lots_x, float), np.asarray(lots_y, float)
         keep = np.isfinite(lx) & np.isfinite(ly)
-        ax.scatter(lx[keep], ly[keep], s=16, color="white", edgecolor=BLACK, linewidth=0.8, zorder=4,
+        was = np.ones(len(lx), bool) if trained is None else np.asarray(trained, bool)
+        ax.scatter(lx[keep & was], ly[keep & was], s=16, color="white", edgecolor=BLACK, linewidth=0.8, zorder=4,
                    clip_on=False)
         handles.append(Line2D([], [], marker="o", linestyle="", markerfacecolor="white", markeredgecolor=BLACK))
-        labels.append(f"training lots ({int(keep.sum())})")
+        labels.append(f"training lots ({int((keep & was).sum())})")
+        if (keep & ~was).any():
+            ax.scatter(lx[keep & ~was], ly[keep & ~was], s=18, marker="s", color=BLACK, zorder=4, clip_on=False)
+            handles.append(Line2D([], [], marker="s", linestyle="", color=BLACK))
+            labels.append(f"lots not trained on ({int((keep & ~was).sum())})")
     ar = result.ranges or {}
     if ar.get("found"):
         (x0, x1), (y0, y1) = ar["ranges"][result.x], ar["ranges"][result.y]
@@ -104,7 +111,9 @@ def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: 
         return
     lots_x = table[FORCE] if FORCE in table.columns else None
     lots_y = table[GAP] if GAP in table.columns else None
-    make = partial(plot_space, r, lots_x, lots_y)  # made where it is drawn, and not at all when kept
+    used = set(map(str, chain.training.get("lots") or []))
+    trained = table["lot"].astype(str).isin(used).to_numpy()
+    make = partial(plot_space, r, lots_x, lots_y, trained=trained)  # made where it is drawn, and not when kept
     what = "lower bound" if r.p_all_low is not None else "point estimate"
     b.figure(make, f"The {what} of the probability that a lot meets every specification at once "
                  f"({', '.join(r.attributes)}, lot means) over specific roll force and roll gap, through the whole "
@@ -114,8 +123,10 @@ def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: 
                     "conservative boundary); dashed: the point estimate does (the estimated boundary, the best "
                     "estimate of the true one)" if r.p_all_low is not None else "")
                  + ". Grey line and hatching: the applicability-domain boundary (Hotelling T², Q and training "
-                   "ranges of every stage at the held point); no probability is promised outside it. Dots: the "
-                   "training lots. Blue box and star: the acceptable ranges and the suggested set point.")
+                   "ranges of every stage at the held point); no probability is promised outside it. Open dots: the "
+                   "training lots" + ("" if trained.all() else f" ({int(trained.sum())}); filled squares: the lots the "
+                                      f"model was not trained on ({int((~trained).sum())})")
+                 + ". Blue box and star: the acceptable ranges and the suggested set point.")
     ar = r.ranges
     if ar.get("found"):
         rows = [[k, f"{lo:.4g}", f"{hi:.4g}", "mapped"] for k, (lo, hi) in ar["ranges"].items()]

@@ -4,8 +4,12 @@ Fits the ribbon physics (:func:`linkage.decide.transfer.fit_ribbon_physics`)
 to the assembled lots of every compactor, draws each lot's porosity against
 its specific roll force with the fitted curve of each compactor's rolls, and
 tabulates the specific roll force that gives the porosity window's edges
-(or the median porosity) on each compactor of the lots and on stated
-production rolls.
+(or the median porosity) on each compactor of the lots and, as an
+illustration only, on an example larger compactor that nobody stated
+(:data:`SCALE_UP_ROLLS`); the section gives the ``linkage transfer`` command
+that answers for the user's own rolls. The fit is the section's own, on
+every lot of the report's table with the four columns it needs, and says how
+many of them the model was trained on.
 """
 
 from __future__ import annotations
@@ -14,11 +18,14 @@ import numpy as np
 
 from linkage.decide.transfer import LEAVES_OUT
 
-__all__ = ["SCALE_UP_ROLLS", "transfer_section"]
+__all__ = ["EXAMPLE_LABEL", "SCALE_UP_ROLLS", "transfer_section"]
 
-#: stated production rolls the report transfers to besides the lots' own compactors: (diameter, width) [mm]
-#: (a round example of a larger machine, no source)
+#: an illustrative larger compactor the report transfers to besides the lots' own compactors: (diameter, width)
+#: [mm]. Round numbers chosen here, not rolls a user stated (no source); the section labels its rows so and
+#: points to ``linkage transfer`` for the user's own rolls
 SCALE_UP_ROLLS = (400.0, 150.0)
+#: the label of the illustrative rows in the section's table
+EXAMPLE_LABEL = "illustrative example (not your rolls)"
 
 _FORCE, _GAP, _DIAMETER, _POROSITY = "roll_force_kn_per_cm", "roll_gap_mm", "roll_diameter_mm", "ribbon_porosity"
 
@@ -30,7 +37,7 @@ def _targets(window, table) -> tuple[list[float], str]:
 
 
 def _rolls(table, physics) -> list[tuple[str, float, float, float]]:
-    """(label, diameter, width, gap) for each compactor of the lots and the stated scale-up rolls."""
+    """(label, diameter, width, gap) for each compactor of the lots and the illustrative example rolls."""
     gap = float(np.nanmedian(table[_GAP]))
     out = []
     for name, c in physics.compactors.items():
@@ -38,12 +45,19 @@ def _rolls(table, physics) -> list[tuple[str, float, float, float]]:
         out.append((name, c["roll_diameter_mm"], width, gap))
     if not out:
         out.append(("lots", float(np.nanmedian(table[_DIAMETER])), float("nan"), gap))
-    out.append(("stated rolls", *SCALE_UP_ROLLS, gap))
+    out.append((EXAMPLE_LABEL, *SCALE_UP_ROLLS, gap))
     return out
 
 
-def transfer_section(b, table, window=None, *, seed: int = 0) -> None:
-    """Add the section to the report builder ``b`` (``linkage.report.html._Builder``)."""
+def _command(targets: list[float], gap: float) -> str:
+    """The ``linkage transfer`` command that answers for the user's own rolls, with the section's targets."""
+    target = (f"--window {targets[0]:.3f}:{targets[1]:.3f}" if len(targets) == 2 else f"--porosity {targets[0]:.3f}")
+    return f"linkage transfer --roll-diameter-mm D --roll-width-mm W --gap-mm {gap:.3g} {target}"
+
+
+def transfer_section(b, table, window=None, *, seed: int = 0, trained=None) -> None:
+    """Add the section to the report builder ``b`` (``linkage.report.html._Builder``). ``trained``: the lots
+    the model was trained on (the fit says how many of its lots they are); None: not said."""
     from linkage.decide.transfer import fit_ribbon_physics, transfer
     from linkage.exceptions import LinkageError
     from linkage.report import figures as F
@@ -60,9 +74,10 @@ def transfer_section(b, table, window=None, *, seed: int = 0) -> None:
     except LinkageError as exc:
         b.note(f"The ribbon physics could not be fitted: {exc}")
         return
-    b.add(_part("sections", "transfer_fit", physics=physics, d=physics.to_dict()))
-
     t = table.dropna(subset=[_FORCE, _GAP, _DIAMETER, _POROSITY])
+    n_trained = None if trained is None else int(t["lot"].astype(str).isin(set(map(str, trained))).sum())
+    b.add(_part("sections", "transfer_fit", physics=physics, d=physics.to_dict(), n_trained=n_trained))
+
     groups = t["compactor"].astype(str).to_numpy() if "compactor" in t.columns else None
     gap = float(np.nanmedian(t[_GAP]))
 
@@ -104,7 +119,8 @@ def transfer_section(b, table, window=None, *, seed: int = 0) -> None:
                          f"{lo:.2f}–{hi:.2f}",
                          f"{r['roll_force_kn']:.0f}" if np.isfinite(width) else "—",
                          f"{r['peak_pressure_mpa']:.0f}"])
-    b.add(_part("sections", "transfer_rolls", which=which, rolls=SCALE_UP_ROLLS))
+    b.add(_part("sections", "transfer_rolls", which=which, rolls=SCALE_UP_ROLLS, label=EXAMPLE_LABEL,
+                command=_command(targets, gap)))
     b.add(table_html(["rolls", "diameter [mm]", "width [mm]", "gap [mm]", "porosity [-]", "force [kN/cm]",
                   "95 % interval [kN/cm]", "total [kN]", "P max [MPa]"], rows,
                  num_cols={1, 2, 3, 4, 5, 6, 7, 8}))

@@ -10,7 +10,7 @@ import pytest
 
 from linkage.decide.transfer import LEAVES_OUT, fit_ribbon_physics, transfer
 from linkage.report.html import _Builder
-from linkage.report.transfer_section import SCALE_UP_ROLLS, transfer_section
+from linkage.report.transfer_section import EXAMPLE_LABEL, SCALE_UP_ROLLS, transfer_section
 from linkage.synthetic_rolling import make_transfer_lots
 
 from .conftest import EVIL_COMPACTOR
@@ -23,15 +23,15 @@ def lots():
     return table
 
 
-def test_section_tabulates_each_compactor_and_the_stated_rolls(lots):
+def test_section_tabulates_each_compactor_and_the_example_rolls(lots):
     b = _Builder()
     transfer_section(b, lots)
     page = "".join(b.parts)
     assert ("transfer", "Transfer between compactors (Johanson rolling theory)") in b.toc
     assert len(b.figures) == 1
     assert EVIL_COMPACTOR not in page and "&lt;img" in page  # the compactor name is escaped
-    assert "stated rolls" in page and "roll speed" in page
-    # the median porosity transferred to the stated rolls, as the library computes it (2 decimals shown)
+    assert EXAMPLE_LABEL in page and "roll speed" in page
+    # the median porosity transferred to the illustrative example rolls, as the library computes it (2 decimals shown)
     physics = fit_ribbon_physics(lots)
     gap = float(lots["roll_gap_mm"].median())
     expected = transfer(physics, roll_diameter_mm=SCALE_UP_ROLLS[0], roll_width_mm=SCALE_UP_ROLLS[1], roll_gap_mm=gap,
@@ -47,7 +47,7 @@ def test_section_says_why_without_roll_diameters(lots):
 
 
 def test_rolls_the_theory_gives_no_force_for_are_noted_and_the_report_goes_on(lots, monkeypatch):
-    """Stated rolls whose gap is too wide to nip (here 3 mm rolls at the lots' median gap: Johanson's nip angle
+    """Example rolls whose gap is too wide to nip (here 3 mm rolls at the lots' median gap: Johanson's nip angle
     exists only for S/D below the ratio linkage.physics.rolling.johanson_largest_gap_ratio gives) are refused by
     ``transfer``; the section says so in a note and still tabulates the compactors' own rolls (no outside
     reference: the report's handling of a refusal)."""
@@ -57,5 +57,5 @@ def test_rolls_the_theory_gives_no_force_for_are_noted_and_the_report_goes_on(lo
     b = _Builder()
     section.transfer_section(b, lots)
     page = "".join(b.parts)
-    assert any(n.startswith("No force for the rolls stated rolls (diameter 3 mm") for n in b.notes)
+    assert any(n.startswith(f"No force for the rolls {EXAMPLE_LABEL} (diameter 3 mm") for n in b.notes)
     assert len(b.figures) == 1 and "<table>" in page
