@@ -405,8 +405,7 @@ class RunningResult:
         d = self.drift
         lines.append("")
         if d["drifting"]:
-            lines.append(f"Drifting {d['direction']}: first signal at sample {d['first_signal_sample']} "
-                         f"(#{d['first_signal_index'] + 1}): {'; '.join(d['rules'])}")
+            lines.append(f"Drifting {d['direction']}: first signal at {_sample_text(d)}: {'; '.join(d['rules'])}")
         else:
             lines.append("No drift signalled.")
         lv = self.level
@@ -422,8 +421,10 @@ class RunningResult:
         else:
             lines.append(f"Suggested {self.adjust}: {c['suggested']:.3g} {unit} (now {c['current']:.3g}; change "
                          f"{c['change']:+.3g} ± {c['se']:.2g}, 95 % {c['interval_95'][0]:.3g} to "
-                         f"{c['interval_95'][1]:.3g}); the model then expects {c['expected_porosity']:.4f} "
-                         f"against the centre {w['centre']:.4f}")
+                         f"{c['interval_95'][1]:.3g}); the running level moved by the model's predicted change: "
+                         f"{c['expected_porosity']:.4f} against the centre {w['centre']:.4f}"
+                         + ("" if c.get("model_porosity") is None else
+                            f"; the model alone predicts {c['model_porosity']:.4f} at these settings"))
         cf = self.confirm
         lines.append(f"Confirm with {cf['samples']} further samples (detects an offset of {cf['shift_sd']:g} within-lot "
                      f"SD from the centre, two-sided α = {cf['alpha']:g}, power {cf['power']:g})")
@@ -438,6 +439,20 @@ class RunningResult:
 
     def __str__(self) -> str:
         return self.text()
+
+
+def _sample_text(drift: dict) -> str:
+    """"sample 9", and its place in time order where that is not the sample's own label ("sample A3 (the 9th
+    in time order)")."""
+    label, place = str(drift["first_signal_sample"]), drift["first_signal_index"] + 1
+    if label == str(place):
+        return f"sample {label}"
+    return f"sample {label} (the {place}{_ordinal_suffix(place)} in time order)"
+
+
+def _ordinal_suffix(n: int) -> str:
+    """"st", "nd", "rd" or "th" for n."""
+    return "th" if 10 <= n % 100 <= 20 else {1: "st", 2: "nd", 3: "rd"}.get(n % 10, "th")
 
 
 def _unit(name: str) -> str:
@@ -612,7 +627,10 @@ def _suggested_correction(lean, target, values, adjust, step, sens, reps, level,
     model_new = float(target.predict(at(new))[0])
     corr = {"input": adjust, "current": x0, "suggested": float(new), "change": float(dx), "se": float(u),
             "interval_95": [float(new - 1.959963984540054 * u), float(new + 1.959963984540054 * u)],
+            # the running level moved by the change the model predicts (not what the model alone predicts there)
             "expected_porosity": float(level["value"] + model_new - expected),
+            # what the model alone predicts at the suggested setting (the other settings as the lot's)
+            "model_porosity": model_new,
             "secant": float(secant), "secant_se": secant_se, "sensitivity_at_suggested": slope_new,
             "newton_converged": bool(converged),
             "training_range": [float(lo_x), float(hi_x)],

@@ -298,3 +298,14 @@ def test_no_correction_where_the_stage_is_flat_at_the_setting_it_comes_to():
                                 level, 0.225, 0.225, (1.0, 3.0), notes)
     assert got is None
     assert any("no correction is suggested" in n and "roll_gap_mm" in n for n in notes)
+
+
+def test_the_first_signal_names_its_sample_once_and_its_place_only_where_they_differ():
+    """'first signal at sample 9 (#9)' said the same twice for samples numbered in time order; the place in time
+    order is said only for a sample labelled otherwise (wording; no outside source)."""
+    from linkage.decide.running import _sample_text
+
+    assert _sample_text({"first_signal_sample": "9", "first_signal_index": 8}) == "sample 9"
+    assert _sample_text({"first_signal_sample": "A3", "first_signal_index": 8}) == "sample A3 (the 9th in time order)"
+    assert _sample_text({"first_signal_sample": "7", "first_signal_index": 1}) == "sample 7 (the 2nd in time order)"
+    assert _sample_text({"first_signal_sample": "x", "first_signal_index": 10}) == "sample x (the 11th in time order)"

@@ -251,3 +251,36 @@ def test_samples_of_a_stored_lot_in_another_spelling_are_recorded_under_the_stor
     assert r.to_dict()["lot"] == stored
     entries = ws.audit(lot=stored)
     assert list(entries.loc[entries["action"] == "running", "lot"]) == [stored]
+
+
+def test_the_corrected_level_and_the_model_s_own_prediction_are_told_apart(lab, tmp_path):
+    """A user test: 'the model then expects 0.2770' at a suggested 11.959 kN/cm, where `linkage predict` at the
+    same settings gave 0.2746; 0.2770 was the running level moved by the model's predicted change. Now
+    ``correction.expected_porosity`` stays that (the key kept) and says so, and ``correction.model_porosity`` is
+    what `linkage predict` gives at the suggested setting, the lot's other settings as they are. The reference is
+    the `predict` command (a consistency check, no outside source); the difference between the two is the running
+    level's offset from the model at the current setting, an identity of the correction's arithmetic."""
+    folder, ws, truth = lab
+    atline = tmp_path / "atline_levels.csv"
+    drifting_samples(truth, 12, 0.5 * truth.porosity_replicate_sd, seed=7).to_csv(atline, index=False)
+    args = ["--store", str(ws.store), "--models-dir", str(ws.models_dir)]
+    r = CliRunner().invoke(cli, ["running", str(atline), *[f"--set={k}={v}" for k, v in SETTINGS.items()],
+                                 "--window", "0.25:0.33", "--json", *args], catch_exceptions=False)
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    c = d["correction"]
+    at = dict(d["settings"], **{c["input"]: c["suggested"]})
+    p = CliRunner().invoke(cli, ["predict", *[f"--set={k}={v!r}" for k, v in at.items()], "--json", *args],
+                           catch_exceptions=False)
+    assert p.exit_code == 0, p.output
+    predicted = json.loads(p.stdout[p.stdout.index("{"):])["predictions"]["ribbon_porosity"]["value"]
+    assert c["model_porosity"] == pytest.approx(predicted, abs=1e-12)
+    offset = d["level"]["value"] - d["expected_porosity"]  # the run against the model at the current setting
+    assert c["expected_porosity"] == pytest.approx(c["model_porosity"] + offset, abs=1e-12)
+    text = ws.running(atline, settings=SETTINGS, window=(0.25, 0.33)).text()
+    assert "the model then expects" not in text
+    assert (f"the running level moved by the model's predicted change: {c['expected_porosity']:.4f} against the "
+            f"centre {d['window']['centre']:.4f}; the model alone predicts {c['model_porosity']:.4f} at these "
+            "settings") in text
+    first = d["drift"]["first_signal_sample"]
+    assert f"first signal at sample {first}:" in text and "(#" not in text  # sample n is the n-th: said once
