@@ -155,7 +155,7 @@ def record(store, action: str, *, model_id: str | None, inputs, outputs, lot: st
         return False
     from linkage.store import LotStore
 
-    with LotStore(store, create=False) as s:
+    with LotStore(store, create=False, for_writing=True) as s:
         if prediction:
             s.record_prediction(model_id, inputs, outputs, lot=lot)
         s.log(action, lot=lot, model_id=model_id, inputs=inputs, outputs=outputs)
@@ -198,6 +198,15 @@ def _recording(store, record: bool | None, action: str) -> bool:
                          f"run this {action} without recording it")
 
 
+def _refuse_unanchored(store) -> None:
+    """Before the work of a call that records in the store at its end (:func:`record`): a store that holds
+    seals but no anchor file refuses every write (:func:`linkage.store.refuse_unanchored`, exit code 6), so
+    it is refused here, before any work is done or any file written."""
+    from linkage.store import refuse_unanchored
+
+    refuse_unanchored(store)
+
+
 # --------------------------------------------------------------------------- the store
 
 
@@ -221,12 +230,12 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
     folder, store = Path(folder), Path(store)
     known: list[str] = []
     if store.exists() and store.stat().st_size > 0:  # an empty file is what a killed first ingest leaves
-        with LotStore(store, create=False) as existing:
+        with LotStore(store, create=False, for_writing=True) as existing:  # a store without its anchor: refused
             known = existing.lot_ids()
     # the store is created only for valid input; values refused without history (a sieve stack in mm) are
     # refused here, before it is, unless taken deliberately
     checked = read_folder(folder, known_lots=known, accept_unusual=accept_unusual)
-    with LotStore(store) as lot_store:
+    with LotStore(store, for_writing=True) as lot_store:
         result = lot_store.ingest(checked, reason=reason, accept_unusual=accept_unusual)
     return Ingested(store=store, folder=folder, result=result, sources=checked.sources, spec=checked.spec)
 
@@ -320,7 +329,7 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
         chain = ChainSpec.from_toml(chain)
     spec = _spec(spec)
     at = _train_time_and_q(spec, dissolution_time_min)
-    with LotStore(store, create=False) as lot_store:
+    with LotStore(store, create=False, for_writing=True) as lot_store:  # refused before the fit and the model
         tables = current_tables_of(lot_store, product)
     if not tables or "process" not in tables or tables["process"].empty:
         which = f" of product {product!r}" if product else ""
@@ -337,7 +346,7 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
                      n_jobs=n_jobs, backend=backend, dissolution_time_min=at["dissolution_time_min"],
                      group_by=group_by)
     model_id = save(fitted, models_dir)
-    with LotStore(store, create=False) as lot_store:
+    with LotStore(store, create=False, for_writing=True) as lot_store:
         lot_store.log("train", model_id=model_id,
                       inputs={"models_dir": str(models_dir), "product": product, "seed": seed,
                               "coverage": coverage, "chain": fitted.chain.to_toml(),
@@ -393,6 +402,8 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
     from linkage.decide.window import find_window
 
     recording = _recording(store, record, "window")  # before any work: a mistyped store writes nothing
+    if recording:  # recorded at the end: a store that refuses the record is refused before the work
+        _refuse_unanchored(store)
     assurance = check_assurance(assurance)
     spec = _spec(spec)
     settings, bad = _given_settings(settings)
@@ -421,6 +432,7 @@ def transfer(store=DEFAULT_STORE, *, roll_diameter_mm: float, roll_width_mm: flo
     from linkage.decide.transfer import fit_ribbon_physics
     from linkage.decide.transfer import transfer as find
 
+    _refuse_unanchored(store)  # recorded at the end: a store that refuses the record is refused before the work
     lots = assemble(store, product=product)
     physics = fit_ribbon_physics(lots, internal_friction_deg=internal_friction_deg,
                                  wall_friction_deg=wall_friction_deg, source=f"lots of {store}")
@@ -463,6 +475,7 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
         return planning.Planned(result, written)
     from linkage.decide.bound import check_assurance
 
+    _refuse_unanchored(store)  # recorded at the end: refused before the work and the plan's files
     assurance = check_assurance(assurance)
     spec = _spec(spec)
     if spec is None:
@@ -810,6 +823,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     from linkage.store import LotStore, current_tables_of
     from linkage.timepoint import check_time_point, model_time_point, time_point_text
 
+    _refuse_unanchored(store)  # logged at the end: a store that refuses the entry is refused before the work
     chain = _fitted(models_dir, model)
     spec = _spec(spec)
     found = None
@@ -846,7 +860,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     table = assemble_table(tables, dissolution_time_min=model_time_point(chain)[0])  # the model's time point
     result = run_watch(chain, table, ribbon=tables.get("ribbon"), window=found, recorded=recorded)
     revised = revised_since_training(stored_lots, chain.training.get("lots") or [], chain.created_at)
-    with LotStore(store, create=False) as s:
+    with LotStore(store, create=False, for_writing=True) as s:
         s.log("watch", model_id=chain.model_id, inputs={"window": found, "product": product},
               outputs={"alarms": result.alarms, "new_lots": result.new_lots,
                        "revised_since_training": [r["lot"] for r in revised]})
@@ -906,6 +920,7 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
         raise UsageError(f"--adjust must be one of {', '.join(guide.ADJUSTABLE)}; got {adjust!r}")
     if baseline < 2:
         raise UsageError(f"--baseline must be at least 2 samples; got {baseline}")
+    _refuse_unanchored(store)  # recorded at the end: a store that refuses the record is refused before the work
     spec = _spec(spec)
     df, lot, problems = guide.read_samples(samples)
     if lot is not None and not problems:

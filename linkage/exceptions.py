@@ -23,7 +23,8 @@ EXIT_CODES: dict[int, str] = {
     4: "a model file failed its integrity check",
     5: "a file could not be read or written: the lot store is damaged, or the operating system refused a "
        "read or a write (disk full, permissions, a folder that cannot be created)",
-    6: "the lot store failed its integrity check: a record changed, removed or added behind linkage's back",
+    6: "the lot store failed its integrity check: a record changed, removed or added behind linkage's back; or a "
+       "write to a store whose anchor file is missing (the removal of its newest records cannot be ruled out)",
 }
 
 #: exit code when the operating system refuses a read or write (an ``OSError``)
@@ -220,3 +221,14 @@ class ModelIdError(ModelNotFoundError):
 class LinkageWarning(UserWarning):
     """Something the user should know that does not stop the command (the
     command line prints it as ``Warning: ...``, without Python's file and line)."""
+
+    #: the word the command line puts before the message
+    label = "Warning"
+
+
+class StoreCaution(LinkageWarning):
+    """What the check of the lot store could not cover, said by a command that only reads it (a store with
+    seals but no anchor file: the removal of its newest records cannot be ruled out). The command line prints
+    it as one ``caution, store: ...`` line, the words ``linkage verify`` uses."""
+
+    label = "caution, store"

@@ -2,10 +2,12 @@
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from linkage.exceptions import ModelIntegrityError, ModelNotFoundError, StoreIntegrityError
+from linkage.exceptions import (ModelIntegrityError, ModelNotFoundError, StoreCaution, StoreIntegrityError,
+                                UsageError)
 
 
 @dataclass
@@ -24,6 +26,8 @@ class VerifyResult:
     models_not_checked: str | None = None
     #: what the check of the store could not cover (e.g. no anchor file: the removal of the newest records)
     store_cautions: list[str] = field(default_factory=list)
+    #: the re-anchoring made (``--reanchor``; :meth:`linkage.store.LotStore.reanchor`'s answer), else None
+    reanchored: dict | None = None
 
     @property
     def ok(self) -> bool:
@@ -33,7 +37,8 @@ class VerifyResult:
         return {"ok": self.ok, "store": self.store, "models_dir": self.models_dir, "store_checked": self.store_counts,
                 "models_checked": self.models_checked, "store_problems": self.store_problems,
                 "model_problems": self.model_problems, "models_unregistered": self.models_unregistered,
-                "models_not_checked": self.models_not_checked, "store_cautions": self.store_cautions}
+                "models_not_checked": self.models_not_checked, "store_cautions": self.store_cautions,
+                "reanchored": self.reanchored}
 
     def __repr__(self) -> str:
         verdict = "whole" if self.ok else f"{len(self.store_problems) + len(self.model_problems)} problem(s)"
@@ -61,17 +66,26 @@ def _unregistered(models_dir: Path, registered: set[str]) -> list[str]:
                   if p.is_dir() and not p.name.startswith(".") and p.name not in registered)
 
 
-def verify_record(store: Path | None, models_dir: Path | None, *, registry_required: bool = True) -> VerifyResult:
+def verify_record(store: Path | None, models_dir: Path | None, *, registry_required: bool = True,
+                  reanchor_reason: str | None = None) -> VerifyResult:
     """Check every seal, record and raw row of the store (:meth:`LotStore.check_seals` with ``full``) and every
     model of the registry against its recorded hashes (:func:`linkage.models.registry.verify`), and list the
     folders of the registry that its index does not hold.
+
+    With ``reanchor_reason`` (``linkage verify --reanchor --reason TEXT``), a store with seals but no anchor
+    file is anchored again when its check finds nothing (:meth:`LotStore.reanchor`: an audit entry
+    ``reanchor`` records who, when, why and the newest seal the check found); ``reanchored`` says what was done. A
+    store that fails its check is not anchored again; one whose anchor file is there is refused
+    (:class:`~linkage.exceptions.UsageError`, exit code 2) before anything is checked.
 
     A ``models_dir`` that is not a registry (:func:`not_a_registry`) is refused with
     :class:`~linkage.exceptions.ModelNotFoundError` (exit code 2) before anything is checked, as every command
     that reads models refuses it; with ``registry_required=False`` (``linkage verify`` without
     ``--models-dir``: the default folder) the store alone is checked and ``models_not_checked`` says why."""
-    from linkage.store import LotStore
+    from linkage.store import REANCHOR_NEEDS_REASON, LotStore
 
+    if reanchor_reason is not None and not (isinstance(reanchor_reason, str) and reanchor_reason.strip()):
+        raise UsageError(REANCHOR_NEEDS_REASON)
     result = VerifyResult(None if store is None else str(store), None if models_dir is None else str(models_dir))
     reason = None if models_dir is None else not_a_registry(models_dir)
     if reason is not None:
@@ -81,9 +95,16 @@ def verify_record(store: Path | None, models_dir: Path | None, *, registry_requi
         result.models_not_checked = reason
     if store is not None:
         try:
-            with LotStore(store, create=False) as lot_store:
+            with warnings.catch_warnings():  # verify says what the check could not cover in store_cautions
+                warnings.simplefilter("ignore", StoreCaution)
+                lot_store = LotStore(store, create=False)
+            with lot_store:
+                if reanchor_reason is not None and lot_store.unanchored is None:
+                    raise UsageError(lot_store.nothing_to_reanchor())
                 result.store_counts = lot_store.check_seals(full=True)
-            result.store_cautions = _anchor_cautions(Path(store), result.store_counts)
+                result.store_cautions = _anchor_cautions(Path(store), result.store_counts)
+                if reanchor_reason is not None:
+                    result.reanchored = lot_store.reanchor(reanchor_reason, checked=result.store_counts)
         except StoreIntegrityError as exc:
             result.store_problems = [line.strip().removeprefix("- ") for line in str(exc).splitlines()[1:]] or [
                 str(exc)]
@@ -112,11 +133,9 @@ def _anchor_cautions(store: Path, counts: dict) -> list[str]:
     its newest records cannot be told from the store alone. Not a mismatch (a store copied without its anchor
     reads the same), so said as a caution rather than a failure (a second user test deleted the anchor and the
     newest records, and verify said everything matched)."""
-    from linkage.seal import anchor_path, read_anchor
+    from linkage.seal import read_anchor, unanchored_caution
 
     newest = (counts or {}).get("newest seal") or {}
     if read_anchor(store) is not None or not newest.get("id"):
         return []
-    return [f"no anchor file {anchor_path(store)}: the removal of the newest records cannot be detected from the "
-            f"store alone; compare the newest seal's hash (seal {newest.get('id')}, sha256 {newest.get('sha256')}) "
-            "with the one recorded outside the store (the batch record)"]
+    return [unanchored_caution(store, newest.get("id"), newest.get("sha256"))]

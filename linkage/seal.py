@@ -28,6 +28,15 @@ What it detects, and what it cannot
 - Removing the newest records: the **anchor**, a small file beside the store
   (``<store>.seal``, JSON: the newest seal's id and hash, written after each
   commit), names a seal that is gone or differs.
+- A store that holds seals but no anchor file (the anchor deleted with the
+  newest records, or a store copied without it) cannot show that its
+  newest records are all there: every command that reads it says so on
+  stderr, and every command that would write to it is refused
+  (:class:`StoreIntegrityError`), since a write would anchor whatever the
+  store now holds and hide the gap. ``linkage verify --reanchor --reason``
+  checks the whole store and anchors it again deliberately, with an audit
+  entry ``reanchor`` (who, when, why, and the newest seal the check found), so
+  that a later reader sees where the anchor's history was broken.
 - Without a secret key, someone who rewrites every seal after an edit *and*
   the anchor file is not detected by the store alone. ``linkage verify``
   prints the newest seal's hash: recorded outside the store (in the batch
@@ -226,6 +235,26 @@ def write_anchor(store_path: Path, seal_id: int, digest: str) -> bool:
     except OSError:
         return False
     return True
+
+
+def unanchored_caution(store_path: Path, seal_id: int, digest: str) -> str:
+    """What a store with seals but no anchor file cannot show (``linkage verify``'s caution, and the one line
+    every command that reads such a store prints on stderr)."""
+    return (f"no anchor file {anchor_path(store_path)}: the removal of the newest records cannot be detected from "
+            f"the store alone; compare the newest seal's hash (seal {seal_id}, sha256 {digest}) with the one "
+            "recorded outside the store (the batch record)")
+
+
+def unanchored_refusal(store_path: Path, seal_id: int, digest: str) -> str:
+    """Why a store with seals but no anchor file is not written to, and how to go on deliberately."""
+    return (f"lot store {store_path} holds sealed records (newest seal {seal_id}, sha256 {digest}) but its anchor "
+            f"file {anchor_path(store_path)} is missing: the removal of the newest records cannot be ruled out, so "
+            "nothing is written to it (commands that only read still work, with a caution). Put the anchor file "
+            "back from where the store came from (its backup, the folder it was copied from); or compare the "
+            "newest seal's hash above with the one recorded outside the store (the batch record) and, if they "
+            f"agree, anchor the store again deliberately: linkage verify --store {store_path} --reanchor --reason "
+            "TEXT (checks the whole store and records the re-anchoring, who, when and why, in the audit trail). "
+            "Nothing was written.")
 
 
 def read_anchor(store_path: Path) -> dict | None:

@@ -308,17 +308,33 @@ ACCEPT_NEEDS_REASON = ("--accept-unusual takes unusual values deliberately: give
                        "Nothing was written.")
 
 
+#: the refusal of a re-anchoring without a reason
+REANCHOR_NEEDS_REASON = ("--reanchor anchors the lot store again deliberately and records it in the audit trail: "
+                         "give --reason TEXT to say why (e.g. the anchor file lost in a copy, and the newest seal's "
+                         "hash compared with the batch record). Nothing was written.")
+
+
 class LotStore:
     """The SQLite lot store. Use as a context manager, or call :meth:`close`.
 
     ``create=False`` refuses a path where no store exists yet (for commands
     that only read).
+
+    A store that holds seals but no anchor file beside it (``<store>.seal``,
+    :mod:`linkage.seal`) is read with a caution (a
+    :class:`~linkage.exceptions.StoreCaution` warning; :attr:`unanchored`
+    holds its newest seal) and never written to: every write is refused
+    (:class:`StoreIntegrityError`, exit code 6) until :meth:`reanchor`.
+    ``for_writing=True`` (a command that will write) refuses such a store at
+    once, before the command does any work.
     """
 
     def __init__(self, path: Path | str = "linkage.db", *, create: bool = True,
-                 busy_timeout_s: float = BUSY_TIMEOUT_S):
+                 busy_timeout_s: float = BUSY_TIMEOUT_S, for_writing: bool = False):
         self.path = Path(path)
         self.busy_timeout_s = busy_timeout_s
+        #: the newest seal ({"id", "sha256"}) of a store with seals but no anchor file; None otherwise
+        self.unanchored: dict | None = None
         if self.path.is_dir():
             raise StorePathError(f"{self.path} is a folder, not a lot store file")
         exists = self.path.exists() and self.path.stat().st_size > 0
@@ -349,9 +365,18 @@ class LotStore:
                                    deterministic=True)
         try:
             self._setup()
+            if self.unanchored is not None and for_writing:
+                raise StoreIntegrityError(self._unanchored_refusal())
         except BaseException:
             self._conn.close()
             raise
+        if self.unanchored is not None:
+            import warnings
+
+            from linkage.exceptions import StoreCaution
+
+            warnings.warn(_seal.unanchored_caution(self.path, self.unanchored["id"], self.unanchored["sha256"]),
+                          StoreCaution, stacklevel=2)
 
     # ---- opening
 
@@ -386,12 +411,35 @@ class LotStore:
                 raise StoreError(f"{self.path} was written by an earlier linkage (store schema {version}) and is "
                                  "read-only here: open it once with write access to upgrade and seal it")
             self.check_seals()
+            self.unanchored = self._missing_anchor(c)
             return
         self._journal_wal(c)
         c.execute("PRAGMA synchronous = FULL")
-        if version < SCHEMA_VERSION:
+        # an upgrade writes (and anchors) the store: not one whose anchor is missing, which is read as it is
+        if version < SCHEMA_VERSION and (version < 2 or self._missing_anchor(c) is None):
             self._upgrade()
         self.check_seals()
+        self.unanchored = self._missing_anchor(c)
+
+    def _missing_anchor(self, c) -> dict | None:
+        """The newest seal ({"id", "sha256"}) when the store holds seals but no anchor file; else None (an
+        anchored store; a store without seals, which a first write anchors as it always has)."""
+        if not c.execute("SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = 'seals'").fetchone():
+            return None
+        seal_id, digest = _seal.head(c)
+        if seal_id == 0 or _seal.read_anchor(self.path) is not None:
+            return None
+        return {"id": seal_id, "sha256": digest}
+
+    def _unanchored_refusal(self, newest: dict | None = None) -> str:
+        newest = newest or self.unanchored
+        return _seal.unanchored_refusal(self.path, newest["id"], newest["sha256"])
+
+    def require_anchor(self) -> None:
+        """Refuse (:class:`StoreIntegrityError`) a store with seals but no anchor file, as every write does; for
+        a command that writes to the store only at its end, called before its work."""
+        if self.unanchored is not None:
+            raise StoreIntegrityError(self._unanchored_refusal())
 
     def _journal_wal(self, c) -> None:
         """The WAL journal. Setting it takes a moment alone with the file, and SQLite can answer "database is
@@ -492,16 +540,25 @@ class LotStore:
         return StoreError(f"lot store {self.path}: {exc}")
 
     @contextmanager
-    def _write(self) -> Iterator[sqlite3.Connection]:
-        """One write transaction: all of it or nothing."""
+    def _write(self, *, reanchoring: bool = False) -> Iterator[sqlite3.Connection]:
+        """One write transaction: all of it or nothing. Refused, under the write lock, where the store holds
+        seals but no anchor file: the anchor written after the commit would vouch for whatever the store now
+        holds (only :meth:`reanchor` writes to such a store, ``reanchoring``)."""
         if self.read_only:
             raise StoreError(f"the lot store {self.path} is read-only here (a read-only file system, or a file this "
                              "account cannot write): it can be read, not changed; nothing was written")
         c = self._conn
         try:
             c.execute("BEGIN IMMEDIATE")
+            missing = None if reanchoring else self._missing_anchor(c)
         except sqlite3.DatabaseError as exc:
+            if c.in_transaction:
+                c.execute("ROLLBACK")
             raise self._error(exc) from None
+        if missing is not None:
+            c.execute("ROLLBACK")
+            self.unanchored = missing
+            raise StoreIntegrityError(self._unanchored_refusal(missing))
         try:
             yield c
             c.execute("COMMIT")
@@ -961,6 +1018,54 @@ class LotStore:
         _seal.seal(c, _seal.AUDIT, audit_id)
         return audit_id
 
+    def reanchor(self, reason: str, *, user: str | None = None, checked: dict | None = None) -> dict:
+        """Anchor again, deliberately and on the record, a store that holds seals but no anchor file (see
+        :mod:`linkage.seal`): check the whole store (:meth:`check_seals` with ``full``), then, in one
+        transaction, append the audit entry ``reanchor`` (who, when, ``reason``, the anchor file, and the newest
+        seal the check found, ``checked_seal``: whether records after it were removed while the anchor was
+        missing, the store cannot tell; the batch record can), and write the anchor at that entry's seal.
+        Refused without a ``reason`` (:class:`UsageError`), for a store whose anchor file is there or that holds
+        no seals (nothing to anchor again), and for a store that fails its check (:class:`StoreIntegrityError`:
+        nothing written).
+
+        ``checked``: what ``check_seals(full=True)`` on this store has just returned (``linkage verify`` made
+        that check), instead of making it again; the newest seal must still be the one it names.
+
+        Returns ``{"audit_id", "checked_seal", "anchor", "checked"}`` (the seals as ``{"id", "sha256"}``;
+        ``anchor``: the seal the new anchor file names; ``checked``: what the check covered)."""
+        if not (isinstance(reason, str) and reason.strip()):
+            raise UsageError(REANCHOR_NEEDS_REASON)
+        if self._missing_anchor(self._conn) is None:
+            raise UsageError(self.nothing_to_reanchor())
+        checked = dict(checked) if checked is not None else self.check_seals(full=True)
+        found_head = checked.pop("newest seal")
+        with self._write(reanchoring=True) as c:
+            missing = self._missing_anchor(c)
+            if missing is None:  # another process anchored it again while this one checked
+                raise UsageError(self.nothing_to_reanchor())
+            if missing != found_head:  # every write is refused meanwhile: only a write behind linkage's back
+                raise StoreIntegrityError(f"lot store {self.path}: its newest seal changed while it was checked "
+                                          f"(seal {found_head['id']} checked, now seal {missing['id']}), though no "
+                                          "write is accepted without its anchor file; nothing was written. Find "
+                                          "out who writes to it, then check it again")
+            audit_id = self._log(c, "reanchor", user or current_user(), None, None,
+                                 inputs={"reason": reason.strip(), "anchor_file": str(_seal.anchor_path(self.path))},
+                                 outputs={"checked_seal": found_head, "checked": checked})
+            anchor = dict(zip(("id", "sha256"), _seal.head(c)))
+        self.unanchored = None
+        if _seal.read_anchor(self.path) != {"seal_id": anchor["id"], "sha256": anchor["sha256"]}:
+            raise StoreError(f"the re-anchoring of lot store {self.path} was recorded (audit entry {audit_id}), but "
+                             f"its anchor file {_seal.anchor_path(self.path)} could not be written: make its folder "
+                             "writable and anchor it again (a second audit entry records that)")
+        return {"audit_id": audit_id, "checked_seal": found_head, "anchor": anchor, "checked": checked}
+
+    def nothing_to_reanchor(self) -> str:
+        """Why :meth:`reanchor` has nothing to do here (the anchor file is there, or the store holds no seals)."""
+        if _seal.read_anchor(self.path) is not None:
+            return (f"lot store {self.path} has its anchor file {_seal.anchor_path(self.path)}: nothing to anchor "
+                    "again ('linkage verify' checks the store against it). Nothing was written.")
+        return f"lot store {self.path} holds no seals yet: its next write anchors it. Nothing was written."
+
     def _not_stored(self, lot: str) -> UsageError:
         """The refusal of a lot the store does not hold, with the nearest stored ids (exit code 2)."""
         import difflib
@@ -1139,6 +1244,17 @@ def _diff(table: str, old: list[dict] | None, new: list[dict]) -> list[dict]:
             out.append({"table": table, "change": "row removed", "key": dict(zip(key_cols, key)), "column": None,
                         "old": row, "new": None})
     return out
+
+
+def refuse_unanchored(path) -> None:
+    """Refuse (:class:`StoreIntegrityError`, exit code 6) the store at ``path`` when it holds seals but no
+    anchor file, as its first write would be refused (:meth:`LotStore._write`): for a command that writes to
+    the store only at the end of its work, called before that work. No store (no file, an empty one), nothing
+    to refuse."""
+    if path is None or not Path(path).is_file() or Path(path).stat().st_size == 0:
+        return
+    with LotStore(path, create=False, for_writing=True):
+        pass
 
 
 def current_tables_of(lot_store, product: str | None) -> dict:

@@ -12,7 +12,8 @@ from pathlib import Path
 
 import click
 
-from linkage.exceptions import IO_EXIT_CODE, LinkageError, LinkageWarning, UsageError
+from linkage.exceptions import (IO_EXIT_CODE, LinkageError, LinkageWarning, StoreCaution, StoreIntegrityError,
+                                UsageError)
 
 STORE_ENV = "LINKAGE_STORE"
 MODELS_ENV = "LINKAGE_MODELS_DIR"
@@ -145,16 +146,22 @@ def handle_errors(f):
     permissions, a folder that cannot be made) into its file, its reason and
     exit code 5 (:data:`linkage.exceptions.EXIT_CODES`). Anything else is a
     bug and keeps its traceback (exit code 1). A :class:`LinkageWarning`
-    raised on the way is printed as one ``Warning:`` line."""
+    raised on the way is printed once, as one ``Warning:`` line (a
+    :class:`~linkage.exceptions.StoreCaution`: ``caution, store:``, left out
+    when a ``StoreIntegrityError`` about the store ends the command)."""
 
     @functools.wraps(f)
     def wrapper(*args, **kwargs):
         caught: list = []
+        said: set[str] = set()
         try:
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always", LinkageWarning)
                 return f(*args, **kwargs)
         except LinkageError as exc:
+            if isinstance(exc, StoreIntegrityError):  # it says more than a caution about the same store
+                said.update(f"{w.category.label}: {w.message}" for w in caught
+                            if issubclass(w.category, StoreCaution))
             tell_progress(f"Error: {exc}")  # stderr's reader may have stopped too: the code still says it
             raise SystemExit(exc.exit_code) from None
         except BrokenPipeError:
@@ -164,10 +171,13 @@ def handle_errors(f):
             reason = exc.strerror or str(exc)
             tell_progress(f"Error: cannot read or write{what}: {reason}")
             raise SystemExit(IO_EXIT_CODE) from None
-        finally:  # a linkage warning is one plain line on stderr; any other is shown as Python shows it
+        finally:  # a linkage warning is one plain line on stderr, once; any other is shown as Python shows it
             for w in caught:
                 if issubclass(w.category, LinkageWarning):
-                    tell_progress(f"Warning: {w.message}")  # never a second error where stderr is closed
+                    line = f"{w.category.label}: {w.message}"
+                    if line not in said:  # a store opened twice by one command cautions once
+                        said.add(line)
+                        tell_progress(line)  # never a second error where stderr is closed
                 else:
                     warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
 

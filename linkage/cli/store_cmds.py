@@ -232,9 +232,14 @@ def _value(v) -> str:
 @store_option
 @models_dir_option
 @json_option
+@click.option("--reanchor", is_flag=True,
+              help="Anchor again a store whose anchor file <store>.seal is missing (every write to it is refused "
+                   "until then): after the whole check finds nothing, write a new anchor and record the "
+                   "re-anchoring in the audit trail. Needs --reason.")
+@click.option("--reason", default=None, help="Why the store is anchored again (with --reanchor; recorded).")
 @click.pass_context
 @handle_errors
-def verify(ctx, store, models_dir, as_json):
+def verify(ctx, store, models_dir, as_json, reanchor, reason):
     """Check the whole record: every seal, audit entry, recorded prediction,
     ingest and raw row of the lot store, and every model of the registry
     against its recorded hashes.
@@ -244,17 +249,32 @@ def verify(ctx, store, models_dir, as_json):
     store evident. Exit code 0 when everything matches, 6 when the store
     does not, 4 when a model does not.
 
+    A store whose anchor file (<store>.seal) is missing is read with a
+    caution and refused for writing (exit code 6): the removal of its newest
+    records cannot be ruled out. Put the anchor file back, or compare the
+    newest seal's hash with the batch record and give --reanchor --reason
+    TEXT: the store is checked whole, anchored again, and an audit entry
+    'reanchor' records who, when, why and the newest seal the check found.
+
     \b
     Example:
       linkage verify
       linkage verify --store site.db --models-dir /srv/linkage/models --json
+      linkage verify --store site.db --reanchor --reason "anchor lost in the copy; hash matches batch record B-12"
     """
     from linkage.cli.common import MODELS_ENV
+    from linkage.exceptions import UsageError
     from linkage.integrity import verify_record
+    from linkage.store import REANCHOR_NEEDS_REASON
 
+    if reanchor and not (reason or "").strip():
+        raise UsageError(REANCHOR_NEEDS_REASON)
+    if reason is not None and not reanchor:
+        raise UsageError("--reason goes with --reanchor (verify itself writes nothing)")
     given = (ctx.get_parameter_source("models_dir") is not click.core.ParameterSource.DEFAULT
              or bool(os.environ.get(MODELS_ENV)))
-    result = verify_record(store, models_dir, registry_required=given)
+    result = verify_record(store, models_dir, registry_required=given,
+                           reanchor_reason=reason if reanchor else None)
     if as_json:
         click.echo(json.dumps(result.to_dict(), indent=2))
     else:
@@ -277,6 +297,12 @@ def verify(ctx, store, models_dir, as_json):
             click.echo(f"  model: {p}", err=True)
         for p in result.store_cautions:
             click.echo(f"  caution, store: {p}", err=True)
+        if result.reanchored:
+            done = result.reanchored
+            click.echo(f"Anchored again: audit entry {done['audit_id']} 'reanchor' records who, when, why and the "
+                       f"newest seal this check found (seal {done['checked_seal']['id']}, sha256 "
+                       f"{done['checked_seal']['sha256']}); the anchor file names its own seal {done['anchor']['id']} "
+                       f"(sha256 {done['anchor']['sha256']}). Record this hash outside the store.")
         click.echo(("Everything matches its seals and hashes." + (" (see the caution above)" if result.store_cautions
                                                                  else "")) if result.ok else "The record is NOT whole.")
     if result.store_problems:

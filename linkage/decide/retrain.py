@@ -262,12 +262,13 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     from linkage.models import registry
     from linkage.models.train import train_chain
     from linkage.products import others_text
-    from linkage.store import LotStore, current_tables_of
+    from linkage.store import LotStore, current_tables_of, refuse_unanchored
 
     if not 0 <= tolerance < 1:
         raise UsageError(f"tolerance must lie in [0, 1); got {tolerance}")
     if force and (not reason or not reason.strip()):
         raise UsageError("--force needs a reason (--reason TEXT); it is recorded in the audit trail")
+    refuse_unanchored(store_path)  # a store that would refuse the record (its anchor file missing): before the work
     settle_pending(store_path, models_dir)  # a decision a killed retrain left half-made, before anything else
     champion = registry.load(models_dir, "latest")
     product = challenger_product(champion, product)  # the champion's product by default; another refused
@@ -318,7 +319,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     # two phases (registry.begin_decision): the audit row's commit is the decision
     decision_id = registry.begin_decision(models_dir, decision.to_dict())
     try:
-        with LotStore(store_path, create=False) as store:
+        with LotStore(store_path, create=False, for_writing=True) as store:
             store.log("promote" if promote else "retrain", user=user, model_id=challenger_id,
                       inputs={"champion": champion.model_id, "product": product, "force": force,
                               "reason": decision.reason,
