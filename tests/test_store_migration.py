@@ -57,8 +57,11 @@ def _tables_equal(got: dict, expected: dict) -> None:
 
 @pytest.fixture()
 def v2(tmp_path) -> Path:
+    """The schema 2 store with its anchor file (``store-v2.db.seal``, its newest seal as linkage writes it):
+    a store copied without its anchor is read, but neither upgraded nor written (tests/reliability/test_anchor.py)."""
     path = tmp_path / "old.db"
     shutil.copy(DATA / "store-v2.db", path)
+    shutil.copy(DATA / "store-v2.db.seal", seal.anchor_path(path))
     return path
 
 

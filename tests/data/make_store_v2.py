@@ -24,6 +24,7 @@ with LotStore(out) as s:
     s.record_prediction("m-1", {"roll_gap_mm": 2.0}, {"ribbon_porosity": 0.3}, lot=lot)
     s.connection.execute("PRAGMA wal_checkpoint(TRUNCATE)")
     print(lot, [h["revision"] for h in s.history(lot)])
-for ext in ("-wal", "-shm", ".seal"):
+# the anchor file (.seal) is kept beside the store: without it, the store is read but never upgraded or written
+for ext in ("-wal", "-shm"):
     p = Path(str(out) + ext)
     if p.exists(): p.unlink()

@@ -120,6 +120,7 @@ def test_sigkill_ingest_50_times(tmp_path, counts):
             for attempt in range(2):
                 scratch = stores[i].with_name(f"scratch{attempt}.db")
                 shutil.copy(stores[i], scratch)
+                shutil.copy(f"{stores[i]}.seal", f"{scratch}.seal")  # with its anchor: else refused for writing
                 res = forkers[i].run(["ingest", forkers[i].workdir / "calib", "--store", scratch], watch=True)
                 assert res["code"] == 0
             w0, w1 = res["write_lock_span"]
