@@ -46,6 +46,8 @@ model is a model id, ``"latest"`` (the newest model in service), or the
 :class:`~linkage.results.Trained` that :func:`train` returned. Errors are the
 library's (:mod:`linkage.exceptions`): bad input raises ``InputError``,
 ``SpecError`` or ``UsageError`` naming every problem, and nothing is written.
+A call that records in a store holding seals but no anchor file is refused
+(``StoreIntegrityError``) before its work: see :mod:`linkage.seal`.
 
 This module imports neither pandas nor scikit-learn until a call needs them:
 a what-if (``linkage predict``) runs on numpy alone.

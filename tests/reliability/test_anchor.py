@@ -124,19 +124,25 @@ def trained(tmp_path_factory):
 
 
 def test_every_command_that_records_is_refused_before_its_work(unanchored, trained, tmp_path):
-    """predict, window, plan, watch, train and retrain write their record at the end: each is refused first, and
-    writes neither its files (the sheet, the plan) nor a model."""
+    """predict, window, plan, watch, train, retrain, running and transfer write their record at the end: each is
+    refused first, and writes neither its files (the sheet, the plan) nor a model."""
     models, spec = trained
     before, registry_before = dump(unanchored), sorted(p.name for p in models.iterdir())
     given = ["--store", unanchored, "--models-dir", models]
     sheet, planned = tmp_path / "sheet.html", tmp_path / "plan"
+    samples = tmp_path / "samples.csv"  # at-line ribbon samples of a running lot (read only after the refusal)
+    samples.write_text("lot,sample,envelope_density_g_cm3,skeletal_density_g_cm3\nEX-009,1,1.0,1.5\n",
+                       encoding="utf-8")
     commands = [["predict", *given, "--set", "roll_force_kn_per_cm=8", "--spec", spec, "--html", sheet],
                 ["predict", *given, "--set", "roll_force_kn_per_cm=8", "--lot", "EX-001"],
                 ["window", *given, "--spec", spec],
                 ["plan", "--lots", "2", *given, "--spec", spec, "--out", planned],
                 ["watch", *given],
                 ["train", "--store", unanchored, "--models-dir", tmp_path / "new-models"],
-                ["retrain", *given]]
+                ["retrain", *given],
+                ["running", samples, *given, "--window", "0.25:0.35"],
+                ["transfer", "--store", unanchored, "--roll-diameter-mm", "250", "--roll-width-mm", "50",
+                 "--gap-mm", "2", "--porosity", "0.3"]]
     for args in commands:
         _refused(run_cli(args), unanchored, before)
     assert not sheet.exists() and not planned.exists() and not (tmp_path / "new-models").exists()
