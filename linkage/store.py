@@ -435,12 +435,6 @@ class LotStore:
         newest = newest or self.unanchored
         return _seal.unanchored_refusal(self.path, newest["id"], newest["sha256"])
 
-    def require_anchor(self) -> None:
-        """Refuse (:class:`StoreIntegrityError`) a store with seals but no anchor file, as every write does; for
-        a command that writes to the store only at its end, called before its work."""
-        if self.unanchored is not None:
-            raise StoreIntegrityError(self._unanchored_refusal())
-
     def _journal_wal(self, c) -> None:
         """The WAL journal. Setting it takes a moment alone with the file, and SQLite can answer "database is
         locked" at once, without waiting its busy timeout, while another process creates or opens the same
