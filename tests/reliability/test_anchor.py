@@ -149,6 +149,20 @@ def test_every_command_that_records_is_refused_before_its_work(unanchored, train
     assert sorted(p.name for p in models.iterdir()) == registry_before
 
 
+def test_predict_and_window_without_recording_only_read_the_store(unanchored, trained, tmp_path):
+    """``--no-record`` writes nothing in the store, so a store without its anchor does not refuse it: the
+    command runs, and says the caution where it reads the store (the stored spelling of ``--lot``)."""
+    models, spec = trained
+    before = dump(unanchored)
+    given = ["--store", unanchored, "--models-dir", models, "--no-record"]
+    predict = run_cli(["predict", *given, "--set", "roll_force_kn_per_cm=8", "--lot", "ex-001"])
+    assert predict.exit_code == 0, predict.output
+    assert [line for line in predict.stderr.splitlines() if line.startswith("caution, store:")] != []
+    window = run_cli(["window", *given, "--spec", spec])
+    assert window.exit_code == 0, window.output
+    assert dump(unanchored) == before and not seal.anchor_path(unanchored).exists()
+
+
 def test_commands_that_only_read_say_so_in_one_caution_line(unanchored):
     verify = run_cli(["verify", "--store", unanchored])
     (said,) = [line.strip() for line in verify.stderr.splitlines() if CAUTION in line]
