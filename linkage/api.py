@@ -216,13 +216,17 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
     """Check every file in ``folder`` and add its lots to the lot store at
     ``store`` (created on the first valid ingest) in one transaction. Every
     problem of the folder is raised at once (``InputError``), and then
-    nothing is written. A lot whose values change gets a new revision, which
-    needs a ``reason`` (a deviation or correction number); it is recorded
-    with the revision. A value far from the product's recent lots (a likely
-    unit mistake, see :mod:`linkage.plausible`), or one no measurement of
-    its kind holds (sieve apertures below the smallest test sieve's: a stack
-    in mm), is refused unless ``accept_unusual`` (with a ``reason``). The
-    store logs the ingest in its audit trail."""
+    nothing is written. A stored lot the folder adds to or changes gets a
+    new revision. One that only adds (a table, rows with new keys, blank
+    cells filled: results in stages) needs no ``reason``; one that changes
+    or removes a stored value needs one (a deviation or correction number),
+    recorded with the revision. The result says which lots were added to
+    (``lots_added_to``) and which changed (``lots_changed``). A value far
+    from the product's recent lots (a likely unit mistake, see
+    :mod:`linkage.plausible`), or one no measurement of its kind holds
+    (sieve apertures below the smallest test sieve's: a stack in mm), is
+    refused unless ``accept_unusual`` (with a ``reason``). The store logs
+    the ingest in its audit trail."""
     from linkage.exceptions import UsageError
     from linkage.read import read_folder
     from linkage.store import ACCEPT_NEEDS_REASON, LotStore

@@ -89,14 +89,16 @@ class Ingested(_Result):
         return {**self.result.to_dict(), "store": str(self.store), "sources": self.sources}
 
     def summary(self) -> pd.DataFrame:
-        """One row per lot of the folder: ``status`` new, revised or unchanged."""
+        """One row per lot of the folder: ``status`` new, revised or unchanged; ``revision`` of a revised lot
+        "added to" (only added: no reason needed) or "changed" (stored values changed or removed)."""
         r = self.result
-        rows = [{"lot": lot, "status": status}
+        kind = {**dict.fromkeys(r.lots_added_to, "added to"), **dict.fromkeys(r.lots_changed, "changed")}
+        rows = [{"lot": lot, "status": status, "revision": kind.get(lot)}
                 for status, lots in (("new", r.lots_new), ("revised", r.lots_revised),
                                      ("unchanged", r.lots_unchanged)) for lot in lots]
         import pandas as pd
 
-        return pd.DataFrame(rows, columns=["lot", "status"]).set_index("lot")
+        return pd.DataFrame(rows, columns=["lot", "status", "revision"]).set_index("lot")
 
     def text(self) -> str:
         r = self.result
@@ -104,6 +106,10 @@ class Ingested(_Result):
         lines += [f"  {src['file']:<28} {_rows(src['rows'])}" for src in self.sources.values()]
         for label, lots in (("New", r.lots_new), ("Revised", r.lots_revised), ("Unchanged", r.lots_unchanged)):
             lines.append(f"{label} lots ({len(lots)}): {', '.join(lots) if lots else '-'}")
+            if label == "Revised" and lots:
+                lines += [f"  {what} ({len(some)}): {', '.join(some) if some else '-'}" for what, some in (
+                    ("added to, no stored value changed", r.lots_added_to),
+                    ("stored values changed or removed", r.lots_changed))]
         if not r.changed:
             lines.append("Nothing changed: every lot is as stored.")
         if r.warnings:
@@ -114,7 +120,8 @@ class Ingested(_Result):
     def __repr__(self) -> str:
         r = self.result
         return (f"<Ingested {self.folder} into {self.store} (ingest {r.ingest_id}): {len(r.lots_new)} new, "
-                f"{len(r.lots_revised)} revised, {len(r.lots_unchanged)} unchanged lots"
+                f"{len(r.lots_revised)} revised ({len(r.lots_added_to)} only added to), {len(r.lots_unchanged)} "
+                "unchanged lots"
                 + (f"; {len(r.warnings)} warning(s)" if r.warnings else "") + ">")
 
 

@@ -27,6 +27,14 @@ What it keeps
   columns do not count), so sending the same data again is a no-op: no new
   revision, and the lot is reported unchanged. The ingest itself is still
   logged (who, when, which files).
+- A revision that only adds to the stored lot (a table it did not have,
+  rows with new keys, blank cells filled: results arriving in stages) needs
+  no reason; one that changes or removes a stored value needs one (a table
+  sent replaces the lot's stored table, so a stored row left out of it is
+  removed). A sieve row added to a stored sieve analysis is a change: each
+  row's share is of the analysis's total (:data:`WHOLE_TABLES`). Both kinds
+  are revisions alike, recorded and sealed alike; the ingest reports which
+  lots were added to (:func:`adds_only`).
 - Each ingest is one transaction (``BEGIN IMMEDIATE``): it records the
   source files with their SHA-256 and row counts, the time and the user, and
   either all of it lands or none (a killed process leaves the store as it
@@ -246,13 +254,17 @@ def _plain(value):
 
 @dataclass
 class IngestResult:
-    """What one ingest did: lots new, revised and unchanged, and its id."""
+    """What one ingest did: lots new, revised and unchanged, and its id. Of the revised lots,
+    ``lots_added_to`` are those whose revision only adds (a table, rows, blank cells filled; no reason
+    needed) and ``lots_changed`` those whose stored values changed or were removed (the reason required)."""
 
     lots_new: list[str]
     lots_revised: list[str]
     lots_unchanged: list[str]
     ingest_id: int
     warnings: list[str] = field(default_factory=list)
+    lots_added_to: list[str] = field(default_factory=list)
+    lots_changed: list[str] = field(default_factory=list)
 
     @property
     def changed(self) -> bool:
@@ -298,6 +310,45 @@ def _classify(prepared: dict, order: list[str], current: dict) -> tuple[list, li
         else:
             unchanged.append(lot)
     return new, revised, unchanged, changes
+
+
+#: tables whose rows of a lot are parts of one whole: a sieve analysis's masses are read as shares of their
+#: total (linkage.assemble), so a row added to a stored one changes what every stored row says (a change that
+#: needs a reason, not an addition)
+WHOLE_TABLES = frozenset({"granules"})
+
+
+def adds_only(changes: list[dict]) -> bool:
+    """Whether cell-level differences (:func:`_diff`) only add to the stored rows: a table added, a row with
+    a new key (not in a table of :data:`WHOLE_TABLES`), a blank cell filled. Any other change, and any removal,
+    changes a stored value."""
+    return all(_is_addition(ch) for ch in changes)
+
+
+def _only_adds(table: str, old: list[dict] | None, new: list[dict]) -> bool:
+    """``adds_only(_diff(table, old, new))`` without writing the differences out: it stops at the first
+    change (a large revision is told from an addition at the cost of one pass)."""
+    if old is None:
+        return True
+    key_cols = [c for c in TABLES[table].key if c != "lot"]
+    after = {tuple(r.get(c) for c in key_cols): r for r in new}
+    for row in old:
+        now = after.get(tuple(row.get(c) for c in key_cols))
+        if now is None:
+            return False  # a row removed
+        if now != row:
+            was, now = canon_row(table, row), canon_row(table, now)
+            if any(value is not None and now.get(col) != value for col, value in was.items()):
+                return False  # a stored value changed or cleared
+    return table not in WHOLE_TABLES or len(after) == len(old)  # every stored key is in ``after``
+
+
+def _is_addition(ch: dict) -> bool:
+    if ch["change"] == "table added":
+        return True
+    if ch["change"] == "row added":
+        return ch["table"] not in WHOLE_TABLES
+    return ch["change"] == "value changed" and ch["old"] is None
 
 
 # --------------------------------------------------------------------------- the store
@@ -645,9 +696,10 @@ class LotStore:
                 raise InputError(problems)
             current = self._current_links(c, [lot for lot in order if lot in known])
             new, revised, unchanged, changes = _classify(prepared, order, current)
+            added_to, changed, shown = self._split_revised(c, revised, changes, current, prepared)
             product_of = {lot: products[lot] if lot in products else current.get(lot, {}).get("product")
                           for lot in order}
-            unusual_records = self._refuse(c, ingest, product_of, revised, reason, accept_unusual)
+            unusual_records = self._refuse(c, ingest, product_of, (changed, shown), reason, accept_unusual)
             warnings = list(ingest.warnings)
             for lot in revised:
                 old = current[lot]["product"]
@@ -664,20 +716,44 @@ class LotStore:
             c.executemany("INSERT INTO lots VALUES (?, ?)", [(lot, ingest_id) for lot in new])
             written, revisions, revision_tables = self._write_revisions(c, ingest_id, new + revised, changes, current,
                                                                         prepared, sources, products)
-            result = IngestResult(new, revised, unchanged, ingest_id, warnings)
+            result = IngestResult(new, revised, unchanged, ingest_id, warnings, added_to, changed)
             _seal.seal(c, _seal.INGEST, ingest_id,
                        _ingest_sha256([ingest_id, *head], files, new, written, revisions, revision_tables))
             self._log(c, "ingest", user, None, None,
                       {"folder": None if ingest.folder is None else str(ingest.folder),
                        "files": {t: s["file"] for t, s in sources.items()}, "reason": reason,
                        "accepted_unusual": unusual_records},
-                      {"ingest_id": ingest_id, "new": new, "revised": revised, "unchanged": len(unchanged)})
+                      {"ingest_id": ingest_id, "new": new, "revised": revised, "unchanged": len(unchanged),
+                       "added_to": added_to})
         return result
 
-    def _refuse(self, c, ingest: Ingest, product_of: dict, revised: list[str], reason: str | None,
+    def _split_revised(self, c, lots: list[str], changes: dict[str, list[str]], current: dict,
+                       prepared: dict) -> tuple[list[str], list[str], dict[str, list[dict]]]:
+        """The revised ``lots`` as those only added to and those whose stored values change (:func:`adds_only`
+        of the differences between each lot's stored revision and what the ingest sends, over the tables it
+        changes), and the differences (:func:`_diff`, as ``history`` shows them) of the first few changed lots,
+        for the refusal. Only those lot tables' stored rows are read, checked against their row hashes."""
+        stored_ids = {(lot, t): current[lot]["tables"][t][0] for lot in lots for t in changes[lot]
+                      if t in current[lot]["tables"]}
+        stored = self._stored_rows(c, list(stored_ids.values()))
+        sent = _parse_rows({(lot, tname): prepared[lot][tname].rows for lot in lots for tname in changes[lot]})
+        added_to, changed, shown = [], [], {}
+        for lot in lots:
+            pairs = [(tname, stored[stored_ids[lot, tname]] if (lot, tname) in stored_ids else None, sent[lot, tname])
+                     for tname in changes[lot]]
+            if all(_only_adds(*pair) for pair in pairs):
+                added_to.append(lot)
+                continue
+            changed.append(lot)
+            if len(shown) < 3:
+                shown[lot] = [ch for pair in pairs for ch in _diff(*pair)]
+        return added_to, changed, shown
+
+    def _refuse(self, c, ingest: Ingest, product_of: dict, changed: tuple[list[str], dict], reason: str | None,
                 accept_unusual: bool) -> list[dict]:
-        """Raise for unusual values not taken deliberately and for revisions or unusual values taken without a
-        reason; returns the unusual values taken (for the audit trail)."""
+        """Raise for unusual values not taken deliberately, and for stored values changed (``changed``: the lots
+        whose revision does more than add, and the differences of the first few) or unusual values taken without
+        a reason; returns the unusual values taken (for the audit trail)."""
         unusual, unusual_records = _plausible.unusual_values(
             ingest, self._history(c, set(product_of.values()), set(product_of)), product_of)
         if accept_unusual and reason is None:
@@ -689,11 +765,8 @@ class LotStore:
         judged = {(r["file"], r["lot"], r["column"]) for r in unusual_records}
         unusual_records = unusual_records + [r for r in getattr(ingest, "unusual", [])
                                              if (r["file"], r["lot"], r["column"]) not in judged]
-        if revised and reason is None:
-            shown = ", ".join(revised[:10]) + (f" and {len(revised) - 10} more" if len(revised) > 10 else "")
-            raise UsageError(f"this ingest revises {len(revised)} stored lot(s) ({shown}); every revision "
-                             "carries its reason: give --reason TEXT (for example the deviation or "
-                             "correction number). Nothing was written.")
+        if changed[0] and reason is None:
+            raise UsageError(_needs_reason(*changed))
         return unusual_records
 
     def _write_revisions(self, c, ingest_id: int, lots: list[str], changes: dict[str, list[str]], current: dict,
@@ -944,7 +1017,10 @@ class LotStore:
         ``tables`` ({table: file, sha256, rows, ingest_id, changed}) and
         ``changes``: cell-level differences to the previous revision, each
         ``{table, change, key, column, old, new}`` with ``change`` one of
-        "table added", "row added", "row removed", "value changed".
+        "table added", "row added", "row removed", "value changed" (``old``
+        None: a blank cell filled), and ``adds_only``: whether the revision only
+        adds to the previous one (:func:`adds_only`; true for the first), so
+        that it needed no reason.
         """
         lot = reader_spelling(lot) or lot  # spaces as the reader reads them, as predict --lot takes them
         lot = self.stored_spelling(lot) or lot  # one lot, one spelling: found as the reader finds it
@@ -971,17 +1047,37 @@ class LotStore:
                     changes.append({"table": tbl, "change": "table added", "key": None, "column": None,
                                     "old": None, "new": _n_rows(n_rows)})
             out.append({"lot": lot, "revision": number, "ingest_id": ingest_id, "at": at, "user": user,
-                        "product": product, "reason": reason, "tables": tables, "changes": changes})
+                        "product": product, "reason": reason, "tables": tables, "changes": changes,
+                        "adds_only": adds_only(changes)})
             previous = now
         return out
 
     def _rows(self, lot_table_id: int) -> list[dict]:
-        texts = read_row_texts(self._conn, [lot_table_id], store=f"lot store {self.path}")[1].tolist()
-        stored = self._read("SELECT rows_sha256 FROM lot_table_hashes WHERE lot_table_id = ?", (lot_table_id,))
-        if not stored or _seal.rows_sha256(texts) != stored[0][0]:
+        try:
+            return self._stored_rows(self._conn, [lot_table_id])[lot_table_id]
+        except sqlite3.DatabaseError as exc:
+            raise self._error(exc) from None
+
+    def _stored_rows(self, c, lot_table_ids: list[int]) -> dict[int, list[dict]]:
+        """The raw rows of lot tables (id -> rows), each lot table checked against its row hash."""
+        if not lot_table_ids:
+            return {}
+        tids, texts, _ = read_row_texts(c, lot_table_ids, store=f"lot store {self.path}")
+        by_id: dict[int, list[str]] = {tid: [] for tid in lot_table_ids}
+        for tid, text in zip(tids.tolist(), texts.tolist()):
+            by_id[tid].append(text)
+        hashes: dict[int, str] = {}
+        ids = list(by_id)
+        for start in range(0, len(ids), _IN_CHUNK):
+            chunk = ids[start:start + _IN_CHUNK]
+            hashes.update(c.execute("SELECT lot_table_id, rows_sha256 FROM lot_table_hashes WHERE lot_table_id IN "
+                                    f"({', '.join('?' * len(chunk))})", chunk).fetchall())
+        bad = [tid for tid, rows in by_id.items() if hashes.get(tid) != _seal.rows_sha256(rows)]
+        if bad:
             raise StoreIntegrityError(f"lot store {self.path} failed its integrity check: the raw rows of lot table "
-                                      f"{lot_table_id} were changed after they were stored; run `linkage verify`")
-        return [json.loads(t) for t in texts]
+                                      f"{', '.join(map(str, bad[:10]))} were changed after they were stored; run "
+                                      "`linkage verify`")
+        return _parse_rows(by_id)
 
     def ingests(self) -> list[dict]:
         """Every ingest, oldest first, with its files."""
@@ -1160,6 +1256,18 @@ def _ingest_sha256(head: list, files: list, lots: list, written: list, revisions
                                       revision_tables=sorted(revision_tables, key=lambda r: (r[0], r[1])))
 
 
+def _parse_rows(texts: dict) -> dict:
+    """Rows' JSON texts (name -> texts) as dicts, in one parse (the same values as row by row, without the
+    per-call cost)."""
+    spans, joined, start = {}, [], 0
+    for name, rows in texts.items():
+        spans[name] = (start, start + len(rows))
+        joined += rows
+        start += len(rows)
+    parsed = json.loads("[" + ",".join(joined) + "]")
+    return {name: parsed[a:b] for name, (a, b) in spans.items()}
+
+
 def _ingest_touches(outputs_json: str | None, lot: str) -> bool:
     """Whether an ingest's audit outputs list ``lot`` as new or revised."""
     if not outputs_json:
@@ -1249,6 +1357,41 @@ def refuse_unanchored(path) -> None:
         return
     with LotStore(path, create=False, for_writing=True):
         pass
+
+
+def change_text(ch: dict) -> str:
+    """One cell-level difference (:func:`_diff`) as a line: table [key]: what changed."""
+    key = ", ".join(f"{k}={v}" for k, v in (ch["key"] or {}).items())
+    where = f"{ch['table']}" + (f" [{key}]" if key else "")
+    if ch["change"] == "value changed":
+        return f"{where}: {ch['column']} {_value_text(ch['old'])} -> {_value_text(ch['new'])}"
+    if ch["change"] == "table added":
+        return f"{where}: table added ({ch['new']})"
+    row = ch["new"] if ch["change"] == "row added" else ch["old"]
+    return f"{where}: {ch['change']} " + ", ".join(f"{k}={_value_text(v)}" for k, v in row.items() if k != "lot")
+
+
+def _value_text(v) -> str:
+    return "(missing)" if v is None else repr(v) if isinstance(v, str) else f"{v:g}" if isinstance(v, float) \
+        else str(v)
+
+
+def _needs_reason(lots: list[str], shown: dict[str, list[dict]]) -> str:
+    """The refusal of stored values changed without a reason: the lots, and the first changes (``shown``: the
+    differences of the first few lots)."""
+    names = ", ".join(lots[:10]) + (f" and {len(lots) - 10} more" if len(lots) > 10 else "")
+    kept = [(lot, ch) for lot, chs in shown.items() for ch in chs if not _is_addition(ch)]
+    said = "; ".join(f"{lot} {change_text(ch)}" for lot, ch in kept[:3]) + ("; ..." if len(kept) > 3 else "")
+    hints = ""
+    if any(ch["change"] == "row removed" for _, ch in kept):
+        hints += (" A table in the folder replaces the lot's stored table: to add rows to it, send its stored rows "
+                  "with them.")
+    if any(ch["change"] == "row added" for _, ch in kept):
+        hints += (" A row added to a stored sieve analysis changes it: each row is a share of the analysis's total "
+                  "mass.")
+    return (f"this ingest revises {len(lots)} stored lot(s) ({names}) and changes or removes stored values ({said}); "
+            "a change carries its reason: give --reason TEXT (for example the deviation or correction number). "
+            "What only adds (a table, rows, blank cells filled) needs none." + hints + " Nothing was written.")
 
 
 def current_tables_of(lot_store, product: str | None) -> dict:

@@ -62,8 +62,12 @@ def canon_row(table: str, row: dict) -> dict:
     """A row as compared between revisions: -0.0 is 0.0, and in extra columns
     a number written as text is the number (an extra column turns text when
     one lot has a word in it)."""
-    names = TABLES[table].names
+    names = _TEMPLATE_NAMES[table]
     return {c: v + 0.0 if isinstance(v, float) else v if c in names else _canon(v) for c, v in row.items()}
+
+
+#: each table's template columns, once (canon_row runs per row)
+_TEMPLATE_NAMES = {name: frozenset(tdef.names) for name, tdef in TABLES.items()}
 
 
 def _canon(value):

@@ -19,8 +19,9 @@ from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
 @click.argument("folder", type=click.Path(exists=True, file_okay=False, path_type=Path))
 @store_option
 @click.option("--reason", default=None, metavar="TEXT",
-              help="Why stored lots are revised (a deviation or correction number); required when any lot's "
-                   "values change, recorded with the revision and in the audit trail.")
+              help="Why stored lots are revised (a deviation or correction number); required when any stored "
+                   "value changes or is removed (not when a table, rows or blank cells are only added), recorded "
+                   "with the revision and in the audit trail.")
 @click.option("--accept-unusual", is_flag=True,
               help="Take values far from the product's recent lots deliberately (refused otherwise as a likely unit "
                    "mistake), and sieve apertures below the smallest test sieve's (20 um; a stack in mm); needs "
@@ -33,8 +34,14 @@ def ingest(folder, store, reason, accept_unusual, as_json):
     FOLDER holds one file a table (process.csv, ribbon.csv, granules.csv,
     granules_laser.csv, tablets.csv, tablet_weights.csv, dissolution.csv, or
     .xlsx), and optionally spec.toml and columns.toml (the lab's own headers
-    and units). A lot whose values changed gets a new revision; the old one
-    is kept, and the revision carries --reason (refused without one). A
+    and units). A stored lot the folder adds to or changes gets a new
+    revision; the old one is kept. Results may arrive in stages: a revision
+    that only adds (a table the lot did not have, rows with new keys, blank
+    cells filled) needs no reason; one that changes or removes a stored
+    value, or adds a sieve row to a stored sieve analysis, carries --reason
+    (refused without one). A table in FOLDER replaces the lot's stored
+    table, so send its stored rows with new ones. The text and --json say
+    which lots were added to and which changed. A
     value far from the product's recent lots (a likely unit mistake), or a
     sieve aperture below 20 um (a stack in mm; also on a first ingest), is
     refused, with the mistake it looks like; --accept-unusual takes it.
@@ -99,15 +106,17 @@ def lots(store, product, as_json):
 @handle_errors
 def history(lot, store, as_json):
     """Show every revision of LOT: when, by whom, from which files (with
-    SHA-256), and which values changed. LOT is found under any spelling of
-    it (case, dashes, spaces around), as an ingest finds a stored lot.
+    SHA-256), and which values changed or were added; a later revision says
+    whether it only added (a table, rows, blank cells filled) or changed
+    stored values. LOT is found under any spelling of it (case, dashes,
+    spaces around), as an ingest finds a stored lot.
 
     \b
     Example:
       linkage history EX-001
       linkage history EX-001 --store site.db --json
     """
-    from linkage.store import LotStore
+    from linkage.store import LotStore, change_text
 
     with LotStore(store, create=False) as lot_store:
         revisions = lot_store.history(lot)
@@ -121,11 +130,14 @@ def history(lot, store, as_json):
                    + (f", product {rev['product']}" if rev["product"] else ""))
         if rev.get("reason"):
             click.echo(f"  reason: {rev['reason']}")
+        if rev["revision"] > 1:
+            click.echo("  added to: no stored value changed or removed" if rev["adds_only"] else
+                       "  stored values changed or removed")
         for tbl, info in rev["tables"].items():
             mark = "" if info["changed"] else f"  (unchanged, from ingest {info['ingest_id']})"
             click.echo(f"  {tbl:<15} {info['file']} sha256 {info['sha256'][:12]}  {_rows(info['rows'])}{mark}")
         for ch in rev["changes"]:
-            click.echo("    " + _change_text(ch))
+            click.echo("    " + change_text(ch))
 
 
 @click.command()
@@ -210,22 +222,6 @@ def _text(value) -> str:
 
 def _cell(rows: int, filled_pct: float) -> str:
     return "-" if rows == 0 else f"{rows} ({filled_pct:.0f}%)"
-
-
-def _change_text(ch: dict) -> str:
-    key = ", ".join(f"{k}={v}" for k, v in (ch["key"] or {}).items())
-    where = f"{ch['table']}" + (f" [{key}]" if key else "")
-    if ch["change"] == "value changed":
-        return f"{where}: {ch['column']} {_value(ch['old'])} -> {_value(ch['new'])}"
-    if ch["change"] == "table added":
-        return f"{where}: table added ({ch['new']})"
-    row = ch["new"] if ch["change"] == "row added" else ch["old"]
-    return f"{where}: {ch['change']} " + ", ".join(f"{k}={_value(v)}" for k, v in row.items() if k != "lot")
-
-
-def _value(v) -> str:
-    return "(missing)" if v is None else repr(v) if isinstance(v, str) else f"{v:g}" if isinstance(v, float) \
-        else str(v)
 
 
 @click.command()
