@@ -1381,7 +1381,7 @@ def _needs_reason(lots: list[str], shown: dict[str, list[dict]]) -> str:
     differences of the first few lots)."""
     names = ", ".join(lots[:10]) + (f" and {len(lots) - 10} more" if len(lots) > 10 else "")
     kept = [(lot, ch) for lot, chs in shown.items() for ch in chs if not _is_addition(ch)]
-    said = "; ".join(f"{lot} {change_text(ch)}" for lot, ch in kept[:3]) + ("; ..." if len(kept) > 3 else "")
+    said = "; ".join(f"{lot} {change_text(ch)}" for lot, ch in kept[:3]) + ("; and more" if len(kept) > 3 else "")
     hints = ""
     if any(ch["change"] == "row removed" for _, ch in kept):
         hints += (" A table in the folder replaces the lot's stored table: to add rows to it, send its stored rows "
@@ -1389,8 +1389,8 @@ def _needs_reason(lots: list[str], shown: dict[str, list[dict]]) -> str:
     if any(ch["change"] == "row added" for _, ch in kept):
         hints += (" A row added to a stored sieve analysis changes it: each row is a share of the analysis's total "
                   "mass.")
-    return (f"this ingest revises {len(lots)} stored lot(s) ({names}) and changes or removes stored values ({said}); "
-            "a change carries its reason: give --reason TEXT (for example the deviation or correction number). "
+    return (f"this ingest changes or removes stored values of {len(lots)} lot(s) ({names}): {said}. A change "
+            "carries its reason: give --reason TEXT (for example the deviation or correction number). "
             "What only adds (a table, rows, blank cells filled) needs none." + hints + " Nothing was written.")
 
 

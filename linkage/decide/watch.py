@@ -487,7 +487,8 @@ def watch(chain, table: pd.DataFrame, *, ribbon: pd.DataFrame | None = None,
 
 def revised_since_training(lots, training_lots, trained_at: str) -> list[dict]:
     """The model's training lots whose current revision was stored after the model was trained: the model
-    was fitted on an earlier revision of them (an ingest with ``--reason`` changed their values since).
+    was fitted on an earlier revision of them (since then an ingest with ``--reason`` changed their values, or
+    one added results to them).
 
     ``lots``: the lot store's :meth:`linkage.store.LotStore.lots` (``lot``, ``revision``, ``updated_at``);
     ``training_lots``: the lots the model was trained on; ``trained_at``: the model's ``created_at`` (ISO 8601
