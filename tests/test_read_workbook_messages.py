@@ -248,8 +248,9 @@ def test_csv_problems_have_no_cell_reference(tmp_path):
 
 def test_a_planned_lots_blank_results_are_read_as_stored_and_said(tmp_path):
     """`linkage plan` writes process.csv and, when it sets the compression force, tablets.csv with blank
-    results. Read back, a row without any result is kept as it is (not refused, not dropped: it becomes a
-    record of the lot without results, and filling it later revises a stored lot), so the ingest says so; this
+    results. Read back once the lots are made (their ribbon measured), a row without any result is kept as it
+    is (not refused, not dropped: it becomes a record of the lot without results, and filling it in later adds
+    to a stored lot), so the ingest says so; this
     is also why the plan writes no ribbon or granules table (their keys, the replicate ids and the sieve
     stack, are the lab's, and every row would be such a record). A regression test of a warning: no outside
     source needed."""
@@ -259,10 +260,13 @@ def test_a_planned_lots_blank_results_are_read_as_stored_and_said(tmp_path):
                         held={"compression_force_kn": 14.0})
     written = write_plan(plan, tmp_path / "plan")
     assert sorted(p.name for p in written) == ["plan.json", "process.csv", "tablets.csv"]
+    (tmp_path / "plan" / "ribbon.csv").write_text(  # the lots made: a plan's lots not made are refused
+        "lot,sample,envelope_density_g_cm3,skeletal_density_g_cm3\n"
+        + "".join(f"{lot.lot},1,1.05,1.50\n" for lot in plan.lots), encoding="utf-8")
     ingest = read_folder(tmp_path / "plan", known_lots=["OLD-001"])
     assert ingest.tables["tablets"]["compression_force_kn"].tolist() == [14.0] * 4  # read as written
     (said,) = [w for w in ingest.warnings if w.startswith("tablets.csv: rows 2-5 (4 rows)")]
-    assert "PLAN-001" in said and "hold no result" in said and "--reason" in said
+    assert "PLAN-001" in said and "hold no result" in said and "adds to the stored lots" in said
     # a row with a result is no such row
     text = (tmp_path / "plan" / "tablets.csv").read_text(encoding="utf-8").splitlines()
     head = text[0].split(",")

@@ -148,13 +148,17 @@ def test_the_command_says_which_lots_were_added_to_and_which_changed(store, tmp_
 
 def test_a_plans_lots_get_their_results_without_a_reason(store, tmp_path):
     """`linkage plan --new` writes the planned lots' process.csv (planned settings, blank manufactured_at);
-    ingested, then the lots' run (the same settings, the date filled) and their ribbon: additions. A setting
-    the run did not keep is a change (covered above)."""
+    ingested with the ribbon of the lots made, then the lots' run (the same settings, the date filled) and
+    more ribbon replicates: additions. A setting the run did not keep is a change (covered above). The plan's
+    folder alone, its lots not made, is refused (tests/test_read_planned.py)."""
     out = CliRunner().invoke(cli, ["plan", "--new", "--lots", "3", "--range", "roll_force_kn_per_cm=3:14",
                                    "--set", "roll_gap_mm=2", "--set", "roll_speed_rpm=5", "--set",
                                    "screw_speed_rpm=30", "--set", "mill_screen_mm=1", "--product", "P1",
                                    "--out", str(tmp_path / "plan")])
     assert out.exit_code == 0, out.output
+    (tmp_path / "plan" / "ribbon.csv").write_text("lot,sample,envelope_density_g_cm3,skeletal_density_g_cm3\n"
+                                                   + "".join(f"PLAN-00{k},1,1.05,1.50\n" for k in (1, 2, 3)),
+                                                   encoding="utf-8")
     planned = _ingest(store, tmp_path / "plan")
     lots = planned.lots_new
     assert len(lots) == 3
@@ -165,7 +169,7 @@ def test_a_plans_lots_get_their_results_without_a_reason(store, tmp_path):
     for k, row in enumerate(rows):
         row[at] = f"2026-12-0{k + 1}T08:00:00"
     ribbon = "lot,sample,envelope_density_g_cm3,skeletal_density_g_cm3\n" + "".join(
-        f"{lot},1,1.05,1.50\n" for lot in lots)
+        f"{lot},{k},1.05,1.50\n" for lot in lots for k in (1, 2))
     result = _ingest(store, folder(tmp_path, "made", process="\n".join([made[0]] + [",".join(r) for r in rows]),
                                    ribbon=ribbon))
     assert result.lots_added_to == lots and result.lots_changed == []

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import difflib
 import hashlib
+import json
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -154,6 +155,7 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
         problems += cross_check(Ingest({**tables, **lots_read}, sources, folder=folder), known_lots, unread=failed,
                                 unsure=refused, unread_rows=unread_rows,
                                 unread_sheets=[(f, s) for f, s, t in unread if t is None])
+    problems += _planned_not_made(folder, tables, known_lots)
     if problems:
         raise InputError(_with_cell_references(problems, sources, (values_read, lots_read, tables)))
     return ingest
@@ -227,10 +229,48 @@ def _read_tables(plan: dict, mapping: Mapping | None, workbooks: dict, sources: 
 SETTINGS_IN_RESULT_TABLES = frozenset({"compression_force_kn"})
 
 
+#: the file ``linkage plan --out`` writes beside the planned lots' tables (:func:`linkage.decide.plan.write_plan`)
+PLAN_FILE = "plan.json"
+
+
+def _planned_not_made(folder: Path, tables: dict[str, pd.DataFrame], known_lots) -> list[Problem]:
+    """The lots of a plan (``plan.json`` in the folder, as ``linkage plan --out`` writes it) that the folder gives
+    no ribbon measurement for and the store does not hold: planned, not made. Their process rows hold the planned
+    settings, not a run's; stored, they would stand as made lots in the lot record, the lots list and the watch.
+    A lot is ingested once made, with its settings as run and its ribbon results (a ribbon porosity is measured
+    at-line, with the run). A ``plan.json`` that is no plan of linkage's is ignored like any other file."""
+    path = next((p for p in folder.iterdir() if p.name.lower() == PLAN_FILE and p.is_file()), None)
+    process = tables.get("process")
+    if path is None or process is None or len(process) == 0:
+        return []
+    try:
+        planned = {str(lot["lot"]) for lot in json.loads(path.read_text(encoding="utf-8"))["lots"]}
+    except (OSError, UnicodeError, ValueError, TypeError, KeyError):
+        return []
+    ribbon = tables.get("ribbon")
+    made = {lot_key(lot) for lot in ribbon["lot"]} if ribbon is not None else set()
+    made |= {lot_key(lot) for lot in known_lots or ()}
+    rows = process.attrs.get("source_rows", list(range(2, len(process) + 2)))
+    not_made = [(row, lot) for row, lot in zip(rows, process["lot"].tolist())
+                if lot in planned and lot_key(lot) not in made]
+    if not not_made:
+        return []
+    lots = [lot for _, lot in not_made]
+    named = ", ".join(lots[:5]) + (", ..." if len(lots) > 5 else "")
+    where = row_span([r for r, _ in not_made])
+    return [Problem(process.attrs.get("file", "process.csv"),
+                    f"{len(lots)} planned lot{'s' if len(lots) > 1 else ''} ({named}; {where}) "
+                    f"of the plan in {path.name}, with no ribbon measurement in this folder: not made yet. Planned "
+                    "settings are no lot record; ingest a lot once it is made, with its settings as run and its "
+                    "ribbon results (ribbon.csv beside process.csv), or take the rows of lots not made out of the "
+                    "folder's tables", row=not_made[0][0], column="lot", value=lots[0])]
+
+
 def _without_results(tname: str, df: pd.DataFrame, label: str) -> list[str]:
     """A warning for the rows of a result table that hold no result: every cell but the key's and a setting's
     blank (the tables ``linkage plan`` writes, before the lab fills them). Such a row is stored as it is read,
-    a record of the lot without results, and filling it in later revises a stored lot (``--reason``)."""
+    a record of the lot without results; filling it in later adds to the stored lot (a revision that needs no
+    ``--reason``, :mod:`linkage.store`)."""
     if tname == "process" or len(df) == 0:
         return []
     values = [c for c in df.columns if c not in TABLES[tname].key and c not in SETTINGS_IN_RESULT_TABLES]
@@ -244,8 +284,8 @@ def _without_results(tname: str, df: pd.DataFrame, label: str) -> list[str]:
     named = ", ".join(lots[:5]) + (", ..." if len(lots) > 5 else "")
     return [f"{label}: {row_span([r for r, b in zip(rows, blank) if b])} (lot{'s' if len(lots) > 1 else ''} "
             f"{named}) hold no result, every cell but the key's and the settings' blank: stored as records "
-            "without results, and filling them in later is a revision of the stored lots (--reason); a planned "
-            "lot's tables are best ingested once their results are filled in"]
+            "without results; filling them in later adds to the stored lots (a revision without --reason); a "
+            "planned lot's tables are best ingested once their results are filled in"]
 
 
 def _without_history(frames: dict[str, pd.DataFrame], sources: dict, mapping: Mapping | None
