@@ -29,6 +29,16 @@ def test_window_names_the_compactors_its_roll_force_is_pooled_over(scenario):
         assert "no one compactor's" in window_text(w)
 
 
+def test_the_reports_glance_says_the_roll_force_is_pooled(scenario):
+    from linkage.report.html import render_report
+
+    _, chain, spec, table = scenario
+    w = find_window(chain, spec, settings=dict(WINDOW_SETTINGS), n_draws=500)
+    html = render_report(chain, table, spec=spec, window=w, parallel=False).html
+    glance = html[html.index('id="glance"'):html.index('id="lots"')] if 'id="lots"' in html else html
+    assert ("pooled over 2 compactors" in glance) == (w.roll_force.get("low") is not None)
+
+
 def test_no_statement_when_the_ribbon_stage_knows_the_rolls_or_one_compactor_made_the_lots():
     two = {"compactor_lots": {"pilot": 21, "production": 27}}
     assert pooled_compactors(two, ("roll_force_kn_per_cm", "roll_gap_mm"))[0] == {"pilot": 21, "production": 27}
