@@ -204,8 +204,10 @@ class InsufficientDataError(LinkageError, ValueError):
 
 
 class NoVerifiedModelError(ModelIntegrityError, ModelNotFoundError):
-    """``latest`` found models in service, and every one failed its integrity
-    check: an integrity failure (exit code 4), not a missing model."""
+    """``latest`` is the newest model in service, and it fails its integrity
+    check: an integrity failure (exit code 4), not a missing model. No older
+    model is used in its place; the message names the model, the file and the
+    check, and how to go on (``--model ID`` names another model explicitly)."""
 
     exit_code = 4
 

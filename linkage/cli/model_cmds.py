@@ -104,22 +104,30 @@ def train(store, models_dir, chain_path, product, seed, coverage, spec_path, dis
 
 
 def format_models(rows: list[dict]) -> str:
+    from linkage.models.registry import ROLES
+
     if not rows:
         return "No models yet; train one with 'linkage train'."
-    lines = [f"  {'model id':<30}{'created (UTC)':<21}{'lots':>5}  {'status':<11}selected models"]
+    lines = [f"  {'model id':<30}{'created (UTC)':<21}{'lots':>5}  {'status':<11}{'role':<19}selected models"]
     for r in rows:
         created = (r.get("created_at") or "")[:19].replace("T", " ")
         lots = r.get("n_lots")
         sel = ", ".join(f"{t}: {m}" for t, m in (r.get("targets") or {}).items())
         mark = "*" if r.get("latest") else ("-" if not r.get("in_service", True) else " ")
         lines.append(f"{mark} {r['model_id']:<30}{created:<21}{'' if lots is None else lots:>5}  "
-                     f"{r['status']:<11}{sel}")
+                     f"{r['status']:<11}{r.get('role') or '':<19}{sel}")
         if r.get("detail") and r["status"] != "ok":
             lines.append(f"    {r['detail']}")
         src = r.get("source") or {}
         if src.get("kind") == "imported":
             lines.append(f"    imported from {src.get('from')}: {src.get('note')}")
-    lines.append("* = latest; - = kept but not in service (a challenger that was not promoted)")
+    lines.append("* = latest, the model commands use unless given --model ID; - = kept but not in service (a "
+                 "challenger that was not promoted); no mark = in service but not latest, or not in the index")
+    if any(r.get("role") == "champion" and not r.get("latest") for r in rows):
+        lines.append("No model is latest: the champion fails its checks (above), and no older model is used in its "
+                     "place; name one with --model ID, or run 'linkage verify'.")
+    shown = dict.fromkeys(r.get("role") for r in rows if r.get("role"))
+    lines += [f"role {role}: {ROLES[role]}" for role in shown]
     return "\n".join(lines)
 
 
@@ -132,7 +140,10 @@ def format_models(rows: list[dict]) -> str:
 @handle_errors
 def models(models_dir, import_dir, note, as_json):
     """List the models in the registry, newest first, with their status
-    (ok, changed, missing, foreign, incomplete); or import a model folder.
+    (ok, changed, missing, foreign, incomplete) and role (champion: what
+    'latest' names; superseded; not promoted ...); or import a model folder.
+    A champion that fails its checks is refused (exit code 4), never replaced
+    by an older model: name one with --model ID.
 
     A model folder copied in by hand is 'foreign' and is never loaded until
     it is imported with --import and a --note saying where it came from.

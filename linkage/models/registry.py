@@ -31,8 +31,11 @@ Rules:
   path, climbs out (``..``), or a folder that is a symbolic link, is refused.
 * A model folder copied in from elsewhere is "foreign" until
   :func:`import_model` records where it came from.
-* ``latest`` is the newest model (by creation time) that is in the index, is
-  in service and passes every check. ``linkage train`` puts its model in
+* ``latest`` is the newest model (by creation time) that is in the index and
+  in service. When it fails a check, ``latest`` is refused
+  (:class:`NoVerifiedModelError`, exit code 4) and no older model is used in
+  its place: a model that fails its integrity check is never silently
+  replaced (``--model ID`` names another explicitly). ``linkage train`` puts its model in
   service; a challenger from ``linkage retrain`` enters service only when it
   is promoted, and stays in the registry (by id) when it is not. Every
   retraining decision is appended to the index's ``decisions`` list.
@@ -47,11 +50,10 @@ import json
 import os
 import re
 import shutil
-import warnings
 from datetime import datetime, timezone
 from pathlib import Path
 
-from linkage.exceptions import (LinkageWarning, ModelIdError, ModelIntegrityError, ModelNotFoundError,
+from linkage.exceptions import (ModelIdError, ModelIntegrityError, ModelNotFoundError,
                                 NoVerifiedModelError, UsageError)
 
 __all__ = ["save", "load", "load_whatif", "resolve", "list_models", "import_model", "verify", "record_decision",
@@ -252,8 +254,10 @@ def _whatif_bytes(path: Path, meta: dict) -> bytes | None:
         return None
     data = _read_plain(path / WHATIF, "what-if file")
     if _sha256(data) != recorded:
-        raise ModelIntegrityError(f"{path / WHATIF} does not match the SHA-256 its metadata records; it was "
-                                  "changed after the model was saved. Refused.")
+        raise ModelIntegrityError(
+            f"{path / WHATIF} does not match the SHA-256 its metadata records for it (whatif_artifact_sha256 in "
+            f"{METADATA}: recorded {recorded[:16]}…, found {_sha256(data)[:16]}…): it was changed after the model "
+            "was saved. Refused.")
     return data
 
 
@@ -265,9 +269,38 @@ def _ordered_ids(index: dict) -> list[str]:
                                          i), reverse=True)
 
 
+def _sentence(text: str) -> str:
+    """``text`` ending with one full stop (a message quoted inside another never ends in '..')."""
+    text = str(text).strip()
+    return text if text.endswith((".", "!", "?")) else text + "."
+
+
+def _latest_refused(models_dir: Path, index: dict, model_id: str, older: list[str], exc: Exception) -> str:
+    """Why ``latest`` stops at ``model_id`` (the newest model in service, which fails its check ``exc``), and how
+    to go on: the newest older model in service that passes its checks is named for ``--model ID``, never used."""
+    other = None
+    for mid in older:
+        try:
+            _verify(models_dir, mid, index)
+        except (ModelIntegrityError, ModelNotFoundError):
+            continue
+        other = mid
+        break
+    if other is not None:
+        named = (f"or name another model explicitly with --model ID, e.g. --model {other} (in service before "
+                 f"{model_id}; it passes its checks)")
+    else:
+        named = "no other model in service passes its checks" if older else "there is no other model in service"
+    return (f"latest is {model_id}, the newest model in service, and it fails its integrity check: "
+            f"{_sentence(exc)} It is not used, and no other model is used in its place. To go on: run "
+            f"'linkage verify' to see every model's checks; restore the model's folder from a backup or train a "
+            f"new model ('linkage train'); {named}.")
+
+
 def resolve(models_dir, model_id: str | None = "latest") -> Path:
     """Folder of a model, after the escape checks; ``latest`` (or None) is
-    the newest complete model whose hashes verify."""
+    the newest model in service, refused (:class:`NoVerifiedModelError`) when
+    its hashes do not verify."""
     return _resolve(models_dir, model_id)[0]
 
 
@@ -279,22 +312,17 @@ def _resolve(models_dir, model_id: str | None) -> tuple[Path, tuple | None]:
         raise ModelNotFoundError(f"no model registry at {models_dir}; train a model first ('linkage train')")
     if model_id in (None, "latest"):
         index = _read_index(models_dir)
-        skipped = []
-        for mid in _ordered_ids(index):
-            try:
-                checked = _verify(models_dir, mid, index)
-            except (ModelIntegrityError, ModelNotFoundError) as exc:
-                skipped.append(f"{mid}: {exc}")
-                continue
-            if skipped:
-                warnings.warn(f"latest skipped newer models that fail their checks and resolved to {mid}, an older "
-                              "model in service: " + "; ".join(skipped) + ". Run `linkage verify`; give --model "
-                              "ID to choose a model explicitly.", LinkageWarning, stacklevel=3)
-            return models_dir / mid, checked
-        if skipped:  # models are in service and none verifies: an integrity failure (exit code 4)
-            raise NoVerifiedModelError(f"no complete, verified model in {models_dir}; every model in service fails "
-                                       "its checks: " + "; ".join(skipped))
-        raise ModelNotFoundError(f"no complete, verified model in {models_dir}")
+        ordered = _ordered_ids(index)
+        if not ordered:
+            raise ModelNotFoundError(f"no complete, verified model in {models_dir}")
+        mid = ordered[0]
+        try:
+            checked = _verify(models_dir, mid, index)
+        except (ModelIntegrityError, ModelNotFoundError) as exc:
+            # never served in its place by an older model (a user test: a byte flipped in the new champion's
+            # whatif.npz, and predict ran on the superseded champion with exit 0): exit code 4, saying how to go on
+            raise NoVerifiedModelError(_latest_refused(models_dir, index, mid, ordered[1:], exc)) from None
+        return models_dir / mid, checked
     model_id = _check_id(model_id, models_dir)
     path = _model_dir(models_dir, model_id)
     if not path.is_dir():
@@ -430,7 +458,12 @@ def list_models(models_dir) -> list[dict]:
 
     status: ``ok``; ``changed`` (a hash does not match), ``missing`` (in the
     index, no folder), ``foreign`` (a folder not in the index), ``incomplete``
-    (an interrupted save). ``latest`` marks the one ``latest`` resolves to.
+    (an interrupted save). ``latest`` marks the one ``latest`` resolves to
+    (none when the champion fails its checks). ``in_service``: the model
+    entered service (trained, promoted or imported) and was never withdrawn.
+    ``role`` (:data:`ROLES`, :func:`roles`): which of them is the champion
+    and which are superseded or challengers; None for a folder not in the
+    index.
     """
     models_dir = Path(models_dir)
     if not models_dir.is_dir():
@@ -460,17 +493,45 @@ def list_models(models_dir) -> list[dict]:
         if name.startswith(TMP_PREFIX):
             rows[name] = {"model_id": name, "created_at": None, "saved_at": None, "source": None,
                           "status": "incomplete",
-                          "detail": "an interrupted save; never loaded (safe to delete)", "latest": False}
+                          "detail": "an interrupted save; never loaded (safe to delete)", "latest": False,
+                          "role": None}
         elif ID_RE.match(name) or (p.is_dir() and (p / METADATA).exists()):
             rows[name] = {"model_id": name, "created_at": None, "saved_at": None, "source": None,
                           "status": "foreign",
-                          "detail": "not in the registry index; import it to use it", "latest": False}
-    for mid in _ordered_ids(index):
-        if rows[mid]["status"] == "ok":
-            rows[mid]["latest"] = True
-            break
+                          "detail": "not in the registry index; import it to use it", "latest": False,
+                          "role": None}
+    ordered = _ordered_ids(index)
+    if ordered and rows[ordered[0]]["status"] == "ok":  # the champion failing its checks leaves no model latest
+        rows[ordered[0]]["latest"] = True
+    for mid, role in roles(index).items():
+        rows[mid]["role"] = role
     return sorted(rows.values(), key=lambda r: (str(r["created_at"] or ""), str(r.get("saved_at") or ""),
                                                 r["model_id"]), reverse=True)
+
+
+#: a model's role in the registry (``linkage models``: ``role``), with what it means
+ROLES = {
+    "champion": "the newest model in service: what latest resolves to (refused, never replaced, when it fails "
+                "its checks)",
+    "superseded": "in service before a newer champion; used only when named with --model ID",
+    "not promoted": "a challenger that retrain kept but did not promote; used only when named with --model ID",
+    "decision pending": "a challenger whose retrain decision was left half-made; the next retrain settles it",
+    "decision abandoned": "a challenger whose promotion was abandoned (its audit row could not be written)",
+}
+
+
+def roles(index: dict) -> dict[str, str]:
+    """Model id -> its role (a key of :data:`ROLES`) for every model of the index: the newest in service is the
+    champion, the other models in service are superseded; a model not in service is a challenger, named by the
+    last decision that names it."""
+    ordered = _ordered_ids(index)
+    out = {mid: ("champion" if i == 0 else "superseded") for i, mid in enumerate(ordered)}
+    last = {d.get("challenger_id"): d for d in index.get("decisions", []) if isinstance(d, dict)}
+    for mid in index["models"]:
+        if mid not in out:
+            state = (last.get(mid) or {}).get("state")
+            out[mid] = {PENDING: "decision pending", ABANDONED: "decision abandoned"}.get(state, "not promoted")
+    return out
 
 
 def import_model(src_dir, models_dir, source_note: str) -> str:

@@ -123,5 +123,5 @@ def test_a_changed_lean_file_marks_the_model_changed_and_latest_skips_it(saved_m
     (copy / model_id / registry.WHATIF).write_bytes(b"replaced")
     [row] = [r for r in registry.list_models(copy) if r["model_id"] == model_id]
     assert row["status"] == "changed" and "whatif.npz" in row["detail"]
-    with pytest.raises(ModelNotFoundError, match="no complete, verified model.*whatif.npz"):
+    with pytest.raises(ModelNotFoundError, match="fails its integrity check.*whatif.npz"):
         registry.load_whatif(copy, "latest")  # the only model fails its checks: nothing is resolved

@@ -14,7 +14,7 @@ import time
 import joblib
 import pytest
 
-from linkage.exceptions import ModelIdError, ModelIntegrityError, ModelNotFoundError, UsageError
+from linkage.exceptions import ModelIdError, ModelIntegrityError, ModelNotFoundError, NoVerifiedModelError, UsageError
 from linkage.models import registry
 from linkage.models.registry import import_model, list_models, load, resolve, save
 from linkage.models.train import train_chain
@@ -61,8 +61,8 @@ def test_edited_artifact_is_refused_without_unpickling(fit, tmp_path, monkeypatc
     monkeypatch.setattr(joblib, "load", _never_load)
     with pytest.raises(ModelIntegrityError, match="does not match its recorded SHA-256"):
         load(tmp_path, mid)
-    with pytest.raises(ModelNotFoundError, match="no complete, verified model"):
-        load(tmp_path)  # latest skips it, and there is no other
+    with pytest.raises(NoVerifiedModelError, match="fails its integrity check.*no other model in service"):
+        load(tmp_path)  # latest is refused, and there is no other
 
 
 def test_edited_metadata_is_refused(fit, tmp_path, monkeypatch):
@@ -145,8 +145,9 @@ def test_latest_is_the_newest_complete_verified_model(fit, tmp_path):
     assert resolve(tmp_path).name == new
     (tmp_path / ".tmp-m-20990101T000000Z-ffffffff-1").mkdir()  # an interrupted save
     (tmp_path / new / "chain.joblib").write_bytes(b"not a model")
-    with pytest.warns(UserWarning, match="latest skipped newer models"):
-        assert resolve(tmp_path).name == old
+    with pytest.raises(NoVerifiedModelError, match=f"latest is {new}"):  # never replaced by the older one
+        resolve(tmp_path)
+    assert resolve(tmp_path, old).name == old
     status = {r["model_id"]: r["status"] for r in list_models(tmp_path)}
     assert status[new] == "changed" and status[old] == "ok"
     assert status[".tmp-m-20990101T000000Z-ffffffff-1"] == "incomplete"

@@ -104,17 +104,25 @@ def test_a_consistent_forgery_of_artifact_metadata_and_sidecar_is_refused(tmp_pa
     assert not marker.exists()
 
 
-def test_latest_skips_a_changed_newer_model(tmp_path, reg, trained_small, counts):
+def test_latest_refuses_a_changed_newer_model_and_serves_no_older_one(tmp_path, reg, trained_small, counts):
+    """A user test: a newer model in service whose artifact was changed is not passed over for an older one
+    (before: a warning, and the older model served). ``latest`` is refused with the integrity error, naming the
+    model, the file and the check, and the older model to name with --model; the older one still loads by id.
+    A refusal: no outside source."""
     from datetime import datetime, timezone
+
+    from linkage.exceptions import NoVerifiedModelError
 
     models, old = reg
     trained_small.created_at = datetime.now(timezone.utc).isoformat(timespec="microseconds")
     new = registry.save(trained_small, models)
     marker = tmp_path / "unpickled"
     (models / new / registry.ARTIFACT).write_bytes(trap_bytes(marker))
-    with pytest.warns(UserWarning, match="skipped newer models"):
-        assert registry.load(models).model_id == old
-    counts["artifacts refused"] += 1
+    exc = _refused(counts, NoVerifiedModelError, registry.load, models)
+    text = str(exc)
+    assert exc.exit_code == 4 and f"latest is {new}" in text and str(models / new / registry.ARTIFACT) in text
+    assert "SHA-256" in text and f"--model {old}" in text and ".." not in text.replace("…", "")
+    assert registry.load(models, old).model_id == old  # named explicitly, it serves
     assert not marker.exists()
 
 
@@ -158,7 +166,8 @@ def test_the_command_line_refuses_escapes_and_changed_files(tmp_path, reg, count
     assert result.exit_code == 4 and "SHA-256" in result.stderr, result.output
     result = run_cli(["predict", *settings])  # latest: nothing verified is left
     # the only model in service fails its checks: an integrity failure, exit code 4 (issue 15 item 6; it was 2)
-    assert result.exit_code == 4 and "no complete, verified model" in result.stderr, result.output
+    assert result.exit_code == 4 and "fails its integrity check" in result.stderr, result.output
+    assert "there is no other model in service" in result.stderr
     counts["artifacts refused"] += 2
     assert not marker.exists()
 
@@ -209,25 +218,37 @@ def test_a_copied_in_model_is_refused_until_imported_with_a_note(tmp_path, train
     assert source["from"] == str((elsewhere / mid).resolve()) and source["note"] == "from the shared drive"
 
 
-def test_the_command_line_says_plainly_when_latest_skips_and_exits_4_when_nothing_verifies(tmp_path, reg,
+def test_the_command_line_refuses_a_changed_champion_with_exit_4_and_serves_no_older_model(tmp_path, reg,
                                                                                            trained_small, counts):
-    """Issue 15 item 6: a fallback is a plain 'Warning:' line, not a raw Python warning; when every model in
-    service fails its checks the exit code is 4 (an integrity failure), not 2 (no model)."""
+    """A user test: after a newer model entered service, a byte flipped in its whatif.npz made `predict` run on
+    the older model with exit 0 and a 'Warning: latest ... resolved to ... Refused..' line. Exit code 4 means a
+    model file failed its integrity check (README): the newer model is refused, the message names it, the file
+    and the check, and how to go on (the older model to name with --model); nothing is predicted. Named
+    explicitly, the older model serves. When no other model passes, the message says so (issue 15 item 6's exit
+    code 4 kept). A refusal: no outside source."""
     from datetime import datetime, timezone
 
     models, old = reg
     trained_small.created_at = datetime.now(timezone.utc).isoformat(timespec="microseconds")
     new = registry.save(trained_small, models)
-    (models / new / registry.WHATIF).write_bytes(b"changed")
-    result = run_cli(["models", "--models-dir", models, "--json"])
-    assert result.exit_code == 0
-    fallback = run_cli(["predict", "--set", "roll_force_kn_per_cm=8", "--models-dir", models,
-                        "--no-record", "--json"])
-    assert fallback.exit_code == 0, fallback.output
-    assert "Warning: latest skipped newer models" in fallback.stderr and "UserWarning" not in fallback.stderr
-    assert json.loads(fallback.stdout)["model_id"] == old
+    whatif = models / new / registry.WHATIF
+    data = bytearray(whatif.read_bytes())
+    data[len(data) // 2] ^= 0x01  # one byte flipped, as the user did
+    whatif.write_bytes(bytes(data))
+    listed = run_cli(["models", "--models-dir", models, "--json"])
+    assert listed.exit_code == 0
+    rows = {r["model_id"]: r for r in json.loads(listed.stdout)["models"]}
+    assert rows[new]["role"] == "champion" and rows[new]["status"] == "changed" and not rows[new]["latest"]
+    assert rows[old]["role"] == "superseded" and not rows[old]["latest"]
+    settings = ["--set", "roll_force_kn_per_cm=8", "--models-dir", models, "--no-record"]
+    refused = run_cli(["predict", *settings, "--json"])
+    assert refused.exit_code == 4, refused.output
+    assert refused.stdout == "" and "Warning" not in refused.stderr and ".." not in refused.stderr.replace("…", "")
+    assert f"latest is {new}" in refused.stderr and str(whatif) in refused.stderr
+    assert "SHA-256" in refused.stderr and f"--model {old}" in refused.stderr
+    named = run_cli(["predict", *settings, "--json", "--model", old])
+    assert named.exit_code == 0 and json.loads(named.stdout)["model_id"] == old, named.output
     (models / old / registry.WHATIF).write_bytes(b"changed too")
-    none_left = run_cli(["predict", "--set", "roll_force_kn_per_cm=8", "--models-dir", models,
-                         "--no-record"])
-    assert none_left.exit_code == 4 and "every model in service fails its checks" in none_left.stderr
+    none_left = run_cli(["predict", *settings])
+    assert none_left.exit_code == 4 and "no other model in service passes its checks" in none_left.stderr
     counts["artifacts refused"] += 2
