@@ -750,6 +750,13 @@ class Retrained(_Result):
         lines = [f"Challenger {d['challenger_id']} {verdict}; champion was {d['champion_id']}.",
                  f"New lots since the champion: {len(d['new_lots'])}"
                  + (f" (product {d['product']})" if d.get("product") else "")]
+        alarmed = d.get("alarmed_lots") or []
+        if alarmed:
+            lines.append(f"Trained on {len(alarmed)} lot(s) the watch's alarm flags against the champion: "
+                         + ", ".join(a["lot"] for a in alarmed))
+            lines += [f"  ! lot {a['lot']}: {a['signal']}" for a in alarmed]
+        else:
+            lines.append("The watch's alarm flags none of the lots since the champion.")
         lines += [f"  - {line}" for line in d["reasons"]]
         if d["window_moved"]:
             w = d["window_moved"]
@@ -776,3 +783,76 @@ class Retrained(_Result):
         verdict = "promoted" + (" (forced)" if r.forced else "") if r.promoted else "not promoted"
         return (f"<Retrained challenger {r.challenger_id} {verdict} over {r.champion_id}; "
                 f"{len(r.new_lots)} new lot(s)>")
+
+
+# --------------------------------------------------------------------------- the audit trail as text
+
+def _lots_count(value) -> int:
+    return len(value) if isinstance(value, (list, tuple, dict)) else 0
+
+
+def _audit_outcome(entry: dict) -> tuple[str, str | None]:
+    """What one audit entry came to, in a few words, and the model it concerns for the text table: for a
+    retrain that did not promote, the champion that stays (the challenger, the entry's ``model_id``, is named in
+    the outcome instead)."""
+    action, model = entry.get("action"), entry.get("model_id")
+    i, o = entry.get("inputs") or {}, entry.get("outputs") or {}
+    if not isinstance(i, dict):
+        i = {}
+    if not isinstance(o, dict):
+        o = {}
+    if action == "ingest":
+        parts = [f"{_lots_count(o.get(k))} {k}" for k in ("new", "revised", "unchanged") if _lots_count(o.get(k))]
+        unusual = _lots_count(i.get("accepted_unusual"))
+        text = ", ".join(parts) + " lot(s)" if parts else "no lots"
+        return text + (f"; {unusual} unusual value(s) accepted" if unusual else ""), model
+    if action == "train":
+        return f"trained on {_lots_count(i.get('lots'))} lots", model
+    if action in ("promote", "retrain"):
+        champion = i.get("champion")
+        flagged = _lots_count(i.get("alarmed_lots"))
+        alarm = f"; trained on {flagged} lot(s) the watch flagged" if flagged else ""
+        if action == "promote":
+            return (f"promoted{' by force' if i.get('force') else ''} over {champion}{alarm}"), model
+        return f"not promoted, champion stays; challenger {model} kept{alarm}", champion or model
+    if action == "watch":
+        alarms, new = _lots_count(o.get("alarms")), _lots_count(o.get("new_lots"))
+        return (f"{alarms} alarm(s)" if alarms else "no alarm") + f" on {new} lot(s) since training", model
+    if action == "window":
+        por = o.get("ribbon_porosity") or {}
+        if o.get("found") and isinstance(por, dict) and por.get("low") is not None and por.get("high") is not None:
+            return f"porosity window {por['low']:.3f}–{por['high']:.3f}", model
+        return "no window found", model
+    if action == "predict":
+        p = o.get("p_pass_all")
+        return ("predicted" if not isinstance(p, (int, float)) else f"predicted; P(all pass) {p:.3f}"), model
+    if action == "plan":
+        return f"{_lots_count(o.get('lots'))} lot(s) planned", model
+    if action == "running":
+        drift = (o.get("drift") or {}) if isinstance(o.get("drift"), dict) else {}
+        return ("drift at sample " + str(drift.get("first_signal_sample")) if drift.get("drifting")
+                else "no drift"), model
+    if action == "transfer":
+        return f"{_lots_count(o.get('targets'))} roll force(s) transferred", model
+    return "", model
+
+
+def audit_text(rows: list[dict], lot: str | None = None) -> str:
+    """``linkage audit``'s table: a header, one line per entry with what it came to (``outcome``) and, where the
+    entry has one, the reason given (an ingest's ``--reason``, a forced promotion's)."""
+    if not rows:
+        return "No audit entries" + (f" for lot {lot}." if lot else ".")
+    made = []
+    for r in rows:
+        outcome, model = _audit_outcome(r)
+        reason = ((r.get("inputs") or {}) if isinstance(r.get("inputs"), dict) else {}).get("reason")
+        made.append((r, outcome, model, reason.strip() if isinstance(reason, str) else ""))
+    width = min(max(len("outcome"), *(len(m[1]) for m in made)), 60)
+    lines = [f"{'id':>5}  {'at (UTC)':<29}  {'user':<12} {'action':<9} {'lot':<12} {'model':<29} "
+             f"{'outcome':<{width}}  reason".rstrip()]
+    for r, outcome, model, reason in made:
+        lines.append(f"{r['id']:>5}  {r['at']:<29}  {r['user']:<12} {r['action']:<9} {r['lot'] or '':<12} "
+                     f"{model or '':<29} {outcome:<{width}}  {reason}".rstrip())
+    lines.append("model: the model the entry used or made; for a retrain that did not promote, the champion that "
+                 "stays (the challenger is named in the outcome). 'linkage audit --json' has every input and output.")
+    return "\n".join(lines)

@@ -35,7 +35,9 @@ def retrain(store, models_dir, spec_path, product, tolerance, force, reason, as_
     out-of-fold predictions; a one-sided non-inferiority test with the
     tolerance as margin), and promote it only when every attribute passes
     (or with --force and a reason). Both models are kept; the decision and
-    its reasons go to the registry and the audit trail.
+    its reasons go to the registry and the audit trail, with the lots trained
+    on that the watch's alarm flags against the champion (once the challenger
+    is promoted, the watch charts against it and no longer shows that alarm).
 
     Order of use: ingest the new lots, run 'linkage watch' first (it says
     whether the process has moved away from the champion), then 'linkage
@@ -115,7 +117,8 @@ def watch(store, models_dir, model_id, spec_path, product, as_json):
 def audit(store, lot, as_json):
     """The audit trail: every ingest, training, promotion, window and
     prediction, with who, when, inputs, model id and outputs. Entries are
-    append-only.
+    append-only. The text is a table: each entry's outcome and the reason
+    given, where there is one; --json gives every input and output.
 
     \b
     Example:
@@ -129,9 +132,6 @@ def audit(store, lot, as_json):
     if as_json:
         click.echo(json.dumps(rows, indent=2, default=str))
         return
-    if not rows:
-        click.echo("No audit entries" + (f" for lot {lot}." if lot else "."))
-        return
-    for r in rows:
-        click.echo(f"{r['id']:>5}  {r['at']}  {r['user']:<12} {r['action']:<9} "
-                   f"{r['lot'] or '':<12} {r['model_id'] or ''}")
+    from linkage.results import audit_text
+
+    click.echo(audit_text(rows, lot))

@@ -90,6 +90,9 @@ class RetrainDecision:
     notes: list[str] = field(default_factory=list)
     #: the product whose lots the challenger was fitted on (the champion's; None: every lot of the store)
     product: str | None = None
+    #: the lots trained on that the watch's alarm flags against the champion, each ``{"lot", "signal"}`` in time
+    #: order (:func:`linkage.decide.watch.alarmed_lots`)
+    alarmed_lots: list[dict] = field(default_factory=list)
 
     def to_dict(self) -> dict:
         return {
@@ -106,6 +109,7 @@ class RetrainDecision:
             "targets": {c.attribute: c.to_dict() for c in self.comparisons},
             "window_moved": self.window_moved,
             "notes": self.notes,
+            "alarmed_lots": self.alarmed_lots,
             "promotion_test": {"test": TEST.format(alpha=ALPHA), "alpha": ALPHA, "margin": self.tolerance,
                                "min_new_lots": MIN_NEW_LOTS},
             "caution": CAUTION,
@@ -299,6 +303,9 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
                      "comparison does not judge them")
     if len(table) < 3:
         raise InsufficientDataError(f"{len(table)} lots in the store; retraining needs at least 3")
+    from linkage.decide.watch import alarmed_lots
+
+    alarmed = [{"lot": lot, "signal": text} for lot, text in alarmed_lots(champion, table).items()]
     challenger = train_chain(table, champion.chain, seed=champion.seed if seed is None else seed,
                              nominal_coverage=champion.nominal_coverage, progress=progress,
                              dissolution_time_min=time_min, group_by=_group_by(champion))
@@ -310,11 +317,16 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
             moved = window_moved(champion, challenger, spec)
         except UsageError as exc:
             notes.append(f"window not compared: {exc}")
+    if alarmed and promote:  # the watch charts against the champion: once this one is, the alarm is gone from it
+        notes.append(f"the challenger is trained on {len(alarmed)} lot(s) the watch's alarm flags against the "
+                     f"champion ({', '.join(a['lot'] for a in alarmed)}); promoted"
+                     + (" by force" if force else "") + ", it becomes the model 'linkage watch' charts against, "
+                     "and the watch no longer shows this alarm: it stays in this decision (registry and audit trail)")
     challenger_id = registry.save(challenger, models_dir, in_service=False)  # enters service only in phase 3
     decision = RetrainDecision(
         champion_id=champion.model_id, challenger_id=challenger_id, promoted=promote, forced=force,
         reason=(reason or "").strip(), reasons=reasons, rule=RULE, tolerance=tolerance, new_lots=new_lots,
-        comparisons=comparisons, window_moved=moved, notes=notes, product=product,
+        comparisons=comparisons, window_moved=moved, notes=notes, product=product, alarmed_lots=alarmed,
     )
     # two phases (registry.begin_decision): the audit row's commit is the decision
     decision_id = registry.begin_decision(models_dir, decision.to_dict())
@@ -323,7 +335,8 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
             store.log("promote" if promote else "retrain", user=user, model_id=challenger_id,
                       inputs={"champion": champion.model_id, "product": product, "force": force,
                               "reason": decision.reason,
-                              "tolerance": tolerance, "new_lots": new_lots, "decision_id": decision_id},
+                              "tolerance": tolerance, "new_lots": new_lots, "decision_id": decision_id,
+                              "alarmed_lots": alarmed},
                       outputs={"promoted": promote, "reasons": reasons, "window_moved": moved})
     except LinkageError:
         registry.settle_decision(models_dir, decision_id, recorded=False)

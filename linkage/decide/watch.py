@@ -463,9 +463,8 @@ def _predict_at(chain, values: dict) -> dict | str:
         return f"not predicted again at the lot's settings: {exc}"
 
 
-def watch(chain, table: pd.DataFrame, *, ribbon: pd.DataFrame | None = None,
-          window: tuple[float, float] | None = None, recorded: list[dict] | None = None) -> WatchResult:
-    """Every drift look for the lots of ``table`` (assembled, time order)."""
+def _new_lots_and_charts(chain, table: pd.DataFrame) -> tuple[list[str], dict[str, AttributeChart]]:
+    """The lots of ``table`` since ``chain`` was trained, and the residual chart of each attribute it can chart."""
     trained = set(chain.training["lots"])
     new_lots = [lot for lot in table["lot"].astype(str) if lot not in trained]
     charts = {}
@@ -473,6 +472,25 @@ def watch(chain, table: pd.DataFrame, *, ribbon: pd.DataFrame | None = None,
         chart = attribute_chart(chain, table, name)
         if chart is not None:
             charts[name] = chart
+    return new_lots, charts
+
+
+def alarmed_lots(chain, table: pd.DataFrame) -> dict[str, str]:
+    """The lots of ``table`` since ``chain`` was trained on which the watch's alarm (the designed multivariate
+    EWMA, :func:`mewma_look`) signals, lot -> the signal in words: what ``linkage watch`` with ``chain`` says of
+    these lots now, recomputed (the same charts and scheme; the audit trail holds only the watches that were
+    run). ``linkage retrain`` names them, since a challenger trained on them makes the alarm vanish from the
+    watch once it is promoted."""
+    new_lots, charts = _new_lots_and_charts(chain, table)
+    look = mewma_look(chain, charts, new_lots)
+    return {} if look is None else dict(look["signals"])
+
+
+def watch(chain, table: pd.DataFrame, *, ribbon: pd.DataFrame | None = None,
+          window: tuple[float, float] | None = None, recorded: list[dict] | None = None) -> WatchResult:
+    """Every drift look for the lots of ``table`` (assembled, time order)."""
+    trained = set(chain.training["lots"])
+    new_lots, charts = _new_lots_and_charts(chain, table)
     return WatchResult(
         mewma=mewma_look(chain, charts, new_lots),
         model_id=getattr(chain, "model_id", None) or "unsaved",

@@ -138,6 +138,18 @@ def test_a_challenger_that_is_not_promoted_is_kept_but_not_latest(campaign, monk
     assert registry.load(models, "latest").model_id == before
     row = next(m for m in registry.list_models(models) if m["model_id"] == decision.challenger_id)
     assert row["in_service"] is False and row["status"] == "ok"
+    # a user test: `models` said nothing of which model is which, and `audit` put the rejected challenger in the
+    # model column of a retrain that changed nothing (refusals and wording: no outside source)
+    roles = {m["model_id"]: m["role"] for m in registry.list_models(models)}
+    assert roles[decision.challenger_id] == "not promoted" and roles[before] == "champion"
+    assert all(roles[m] == "superseded" for m in roles if m not in (before, decision.challenger_id))
+    listing = CliRunner().invoke(cli, ["models", "--models-dir", str(models)]).output
+    assert "role not promoted: a challenger that retrain kept" in listing and "role champion:" in listing
+    text = CliRunner().invoke(cli, ["audit", "--store", str(store)]).output.splitlines()
+    header, last = text[0].split(), next(line for line in reversed(text) if line.split()[3:4] == ["retrain"])
+    assert header[:2] == ["id", "at"] and "outcome" in header and "reason" in header and "model" in header
+    assert last.split()[4] == before  # id, at, user, action, model: the champion that stays
+    assert f"not promoted, champion stays; challenger {decision.challenger_id} kept" in last
 
 
 # ---- atomic lifecycle decisions (issue 15 item 4): two phases, the store's audit row being the decision
@@ -213,3 +225,43 @@ def test_a_kill_between_the_phases_is_settled_by_the_store(campaign, monkeypatch
     with LotStore(store, create=False) as s:
         logged = [a for a in s.audit() if (a.get("inputs") or {}).get("decision_id") == pending["decision_id"]]
     assert len(logged) == (1 if killed_after_audit else 0)
+
+
+def test_retrain_names_the_lots_the_watch_flagged_that_it_trains_on(campaign, tmp_path):
+    """A user test: a forced promotion trained on the lot that raised the watch's alarm, said nothing of it, and
+    afterwards `watch` said "No alarm on the lots since training": the alarm was visible only in the audit trail.
+    `retrain` now names the lots it trains on that the watch's alarm flags against the champion (the watch's own
+    computation, recomputed: the same lots `watch --json` signals on), in its text, its JSON (`alarmed_lots`) and
+    its audit entry; a promotion says the watch will no longer show the alarm. No outside source: the reference
+    is the watch's own output on the same store and champion."""
+    root, store, models, champion, order = campaign
+    only = tmp_path / "models"  # the original champion alone: earlier tests here may have promoted a challenger
+    registry.import_model(models / champion, only, "the campaign's first champion")
+    runner = CliRunner()
+    watched = runner.invoke(cli, ["watch", "--store", str(store), "--models-dir", str(only), "--json"])
+    assert watched.exit_code == 0, watched.output
+    signalled = list(json.loads(watched.stdout)["mewma"]["signals"])
+    assert signalled and all(order.index(lot) >= CHANGE_AT for lot in signalled)  # the change raised the alarm
+    from linkage.api import retrain
+
+    done = retrain(store, only, force=True, reason="new supplier qualified, CC-118")  # what the command prints
+    d, text = done.to_dict(), done.text()
+    assert d["promoted"] and d["forced"] and d["champion_id"] == champion
+    assert [a["lot"] for a in d["alarmed_lots"]] == signalled and all(a["signal"] for a in d["alarmed_lots"])
+    assert any("no longer shows this alarm" in n and signalled[0] in n for n in d["notes"])
+    assert (f"Trained on {len(signalled)} lot(s) the watch's alarm flags against the champion: "
+            + ", ".join(signalled)) in text
+    assert all(f"  ! lot {lot}: " in text for lot in signalled)
+    with LotStore(store, create=False) as s:
+        entry = s.audit()[-1]
+    assert entry["action"] == "promote" and [a["lot"] for a in entry["inputs"]["alarmed_lots"]] == signalled
+    after = runner.invoke(cli, ["watch", "--store", str(store), "--models-dir", str(only)])
+    assert "No alarm on the lots since training" in after.output  # why retrain had to say it
+    audit = runner.invoke(cli, ["audit", "--store", str(store)]).output.splitlines()
+    promoted = next(line for line in reversed(audit) if line.split()[3:4] == ["promote"])
+    assert f"promoted by force over {champion}; trained on {len(signalled)} lot(s) the watch flagged" in promoted
+    assert promoted.rstrip().endswith("new supplier qualified, CC-118")
+    roles = {m["model_id"]: m["role"] for m in registry.list_models(only)}
+    assert roles == {champion: "superseded", d["challenger_id"]: "champion"}
+    listing = runner.invoke(cli, ["models", "--models-dir", str(only)]).output
+    assert "role superseded: in service before a newer champion; used only when named with --model ID" in listing
