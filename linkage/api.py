@@ -370,8 +370,8 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
 
 def models(models_dir=DEFAULT_MODELS_DIR) -> pd.DataFrame:
     """The model registry, newest first (``linkage models``): one row per
-    model with its status, lots, selected models and whether it is
-    ``latest``."""
+    model with its status, lots, selected models, whether it is
+    ``latest`` and its ``role`` (champion, superseded, not promoted ...)."""
     import pandas as pd
 
     from linkage.models.registry import list_models

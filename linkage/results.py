@@ -817,6 +817,8 @@ def _audit_outcome(entry: dict) -> tuple[str, str | None]:
         return f"not promoted, champion stays; challenger {model} kept{alarm}", champion or model
     if action == "watch":
         alarms, new = _lots_count(o.get("alarms")), _lots_count(o.get("new_lots"))
+        if not new:
+            return "no lots since training", model
         return (f"{alarms} alarm(s)" if alarms else "no alarm") + f" on {new} lot(s) since training", model
     if action == "window":
         por = o.get("ribbon_porosity") or {}
@@ -847,7 +849,7 @@ def audit_text(rows: list[dict], lot: str | None = None) -> str:
         outcome, model = _audit_outcome(r)
         reason = ((r.get("inputs") or {}) if isinstance(r.get("inputs"), dict) else {}).get("reason")
         made.append((r, outcome, model, reason.strip() if isinstance(reason, str) else ""))
-    width = min(max(len("outcome"), *(len(m[1]) for m in made)), 60)
+    width = min(max(len("outcome"), *(len(m[1]) for m in made)), 90)
     lines = [f"{'id':>5}  {'at (UTC)':<29}  {'user':<12} {'action':<9} {'lot':<12} {'model':<29} "
              f"{'outcome':<{width}}  reason".rstrip()]
     for r, outcome, model, reason in made:

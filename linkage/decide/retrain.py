@@ -319,7 +319,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
             notes.append(f"window not compared: {exc}")
     if alarmed and promote:  # the watch charts against the champion: once this one is, the alarm is gone from it
         notes.append(f"the challenger is trained on {len(alarmed)} lot(s) the watch's alarm flags against the "
-                     f"champion ({', '.join(a['lot'] for a in alarmed)}); promoted"
+                     f"champion (the first: {alarmed[0]['lot']}); promoted"
                      + (" by force" if force else "") + ", it becomes the model 'linkage watch' charts against, "
                      "and the watch no longer shows this alarm: it stays in this decision (registry and audit trail)")
     challenger_id = registry.save(challenger, models_dir, in_service=False)  # enters service only in phase 3
