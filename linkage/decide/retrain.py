@@ -258,6 +258,23 @@ def challenger_product(champion, product: str | None) -> str | None:
                      f"or train a model of that product with: linkage train --product \"{product}\"")
 
 
+def _alarmed(champion, table: pd.DataFrame) -> list[dict]:
+    """The lots of ``table`` the watch's alarm flags against the champion, each ``{"lot", "signal"}`` in time order
+    (:func:`linkage.decide.watch.alarmed_lots`: recomputed, so named whether or not the watch was run)."""
+    from linkage.decide.watch import alarmed_lots
+
+    return [{"lot": lot, "signal": text} for lot, text in alarmed_lots(champion, table).items()]
+
+
+def _alarm_note(alarmed: list[dict], force: bool) -> str:
+    """What a promotion does to the watch's alarm on the lots the challenger is trained on (a user test: after a
+    forced promotion the watch said "No alarm", and the alarm was only in the audit trail)."""
+    return (f"the challenger is trained on {len(alarmed)} lot(s) the watch's alarm flags against the champion "
+            f"(the first: {alarmed[0]['lot']}); promoted" + (" by force" if force else "")
+            + ", it becomes the model 'linkage watch' charts against, and the watch no longer shows this alarm: "
+            "it stays in this decision (registry and audit trail)")
+
+
 def retrain(store_path, models_dir, *, product: str | None = None, spec=None, force: bool = False,
             reason: str | None = None, tolerance: float = DEFAULT_TOLERANCE, seed: int | None = None,
             user: str | None = None, progress=None) -> RetrainDecision:
@@ -303,9 +320,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
                      "comparison does not judge them")
     if len(table) < 3:
         raise InsufficientDataError(f"{len(table)} lots in the store; retraining needs at least 3")
-    from linkage.decide.watch import alarmed_lots
-
-    alarmed = [{"lot": lot, "signal": text} for lot, text in alarmed_lots(champion, table).items()]
+    alarmed = _alarmed(champion, table)
     challenger = train_chain(table, champion.chain, seed=champion.seed if seed is None else seed,
                              nominal_coverage=champion.nominal_coverage, progress=progress,
                              dissolution_time_min=time_min, group_by=_group_by(champion))
@@ -318,10 +333,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
         except UsageError as exc:
             notes.append(f"window not compared: {exc}")
     if alarmed and promote:  # the watch charts against the champion: once this one is, the alarm is gone from it
-        notes.append(f"the challenger is trained on {len(alarmed)} lot(s) the watch's alarm flags against the "
-                     f"champion (the first: {alarmed[0]['lot']}); promoted"
-                     + (" by force" if force else "") + ", it becomes the model 'linkage watch' charts against, "
-                     "and the watch no longer shows this alarm: it stays in this decision (registry and audit trail)")
+        notes.append(_alarm_note(alarmed, force))
     challenger_id = registry.save(challenger, models_dir, in_service=False)  # enters service only in phase 3
     decision = RetrainDecision(
         champion_id=champion.model_id, challenger_id=challenger_id, promoted=promote, forced=force,
