@@ -54,7 +54,7 @@ def fake_store(monkeypatch):
     seen = {}
 
     class FakeStore:
-        def __init__(self, path, create=True):
+        def __init__(self, path, create=True, for_writing=False):
             seen["store"], seen["create"] = path, create
 
         def __enter__(self):
