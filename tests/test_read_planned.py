@@ -70,3 +70,25 @@ def test_the_cli_refuses_with_exit_2_and_writes_nothing(tmp_path):
     out = CliRunner().invoke(cli, ["ingest", str(tmp_path / "plan"), "--store", str(store)])
     assert out.exit_code == 2 and "not made yet" in out.stderr
     assert not store.exists()
+
+
+def test_a_plan_lot_under_another_spelling_or_with_a_refused_ribbon_cell_is_judged_as_itself(tmp_path):
+    """Review of the first version: a planned lot written 'plan-002' slipped through (plans matched by exact
+    spelling, the reader's one lot identity is linkage.lotid.lot_key), and a ribbon file refused for one cell
+    made every planned lot 'not made yet' (only tables read whole were looked at)."""
+    lots = _plan(tmp_path / "plan", n=2)
+    process = tmp_path / "plan" / "process.csv"
+    process.write_text(process.read_text(encoding="utf-8").replace(lots[1], lots[1].lower()), encoding="utf-8")
+    with pytest.raises(InputError) as caught:
+        read_folder(tmp_path / "plan", known_lots=["OLD-001"])
+    (problem,) = [p for p in caught.value.problems if "planned lot" in p.rule]
+    assert "2 planned lots" in problem.rule and lots[1].lower() in problem.rule
+    process.write_text(process.read_text(encoding="utf-8").replace(lots[1].lower(), lots[1]), encoding="utf-8")
+    (tmp_path / "plan" / "ribbon.csv").write_text(  # both measured, one skeletal density refused (negative)
+        RIBBON_HEADER + f"{lots[0]},1,1.05,-1.50\n{lots[1]},1,1.05,1.50\n", encoding="utf-8")
+    with pytest.raises(InputError) as caught:
+        read_folder(tmp_path / "plan", known_lots=["OLD-001"])
+    rules = [p.rule for p in caught.value.problems]
+    assert any("skeletal" in (p.column or "") for p in caught.value.problems)
+    assert not any("planned lot" in r for r in rules)
+

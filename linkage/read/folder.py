@@ -103,8 +103,8 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
             spec_path = entry
         elif name.lower() == MAPPING_FILE:
             mapping_path = entry
-        elif stem.startswith("readme"):
-            continue
+        elif stem.startswith("readme") or name.lower() == PLAN_FILE:
+            continue  # plan.json: read by _planned_not_made
         elif suffix in UNSUPPORTED_SUFFIXES:
             problems.append(Problem(name, "this spreadsheet format is not read; save as .xlsx or CSV UTF-8"))
         elif suffix in DATA_SUFFIXES and stem in TABLES:
@@ -155,7 +155,7 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
         problems += cross_check(Ingest({**tables, **lots_read}, sources, folder=folder), known_lots, unread=failed,
                                 unsure=refused, unread_rows=unread_rows,
                                 unread_sheets=[(f, s) for f, s, t in unread if t is None])
-    problems += _planned_not_made(folder, tables, known_lots)
+    problems += _planned_not_made(folder, {**lots_read, **tables}, known_lots)
     if problems:
         raise InputError(_with_cell_references(problems, sources, (values_read, lots_read, tables)))
     return ingest
@@ -234,17 +234,19 @@ PLAN_FILE = "plan.json"
 
 
 def _planned_not_made(folder: Path, tables: dict[str, pd.DataFrame], known_lots) -> list[Problem]:
-    """The lots of a plan (``plan.json`` in the folder, as ``linkage plan --out`` writes it) that the folder gives
-    no ribbon measurement for and the store does not hold: planned, not made. Their process rows hold the planned
-    settings, not a run's; stored, they would stand as made lots in the lot record, the lots list and the watch.
-    A lot is ingested once made, with its settings as run and its ribbon results (a ribbon porosity is measured
-    at-line, with the run). A ``plan.json`` that is no plan of linkage's is ignored like any other file."""
+    """``tables`` holds the tables read and, for a table refused for its cells, the lots of its rows read (a ribbon
+    row with a refused cell still says the lot was measured). The lots of a plan (``plan.json`` in the folder, as
+    ``linkage plan --out`` writes it) that the folder gives no ribbon measurement for and the store does not hold:
+    planned, not made. Their process rows hold the planned settings, not a run's; stored, they would stand as made
+    lots in the lot record, the lots list and the watch. A lot is ingested once made, with its settings as run and
+    its ribbon results (a ribbon porosity is measured at-line, with the run). A ``plan.json`` that is no plan of
+    linkage's is ignored like any other file."""
     path = next((p for p in folder.iterdir() if p.name.lower() == PLAN_FILE and p.is_file()), None)
     process = tables.get("process")
     if path is None or process is None or len(process) == 0:
         return []
     try:
-        planned = {str(lot["lot"]) for lot in json.loads(path.read_text(encoding="utf-8"))["lots"]}
+        planned = {lot_key(str(lot["lot"])) for lot in json.loads(path.read_text(encoding="utf-8"))["lots"]}
     except (OSError, UnicodeError, ValueError, TypeError, KeyError):
         return []
     ribbon = tables.get("ribbon")
@@ -252,7 +254,7 @@ def _planned_not_made(folder: Path, tables: dict[str, pd.DataFrame], known_lots)
     made |= {lot_key(lot) for lot in known_lots or ()}
     rows = process.attrs.get("source_rows", list(range(2, len(process) + 2)))
     not_made = [(row, lot) for row, lot in zip(rows, process["lot"].tolist())
-                if lot in planned and lot_key(lot) not in made]
+                if lot_key(lot) in planned and lot_key(lot) not in made]
     if not not_made:
         return []
     lots = [lot for _, lot in not_made]
