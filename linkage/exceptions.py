@@ -71,6 +71,8 @@ def shown_value(value: object) -> str:
     workbook in ISO 8601 (``2026-01-05``, with the time where it is not midnight: ``2026-01-05 14:30``),
     TRUE/FALSE as a spreadsheet shows them, a number as Python writes it (``1.5``), never a Python repr such
     as ``datetime.datetime(2026, 1, 5, 0, 0)``."""
+    if hasattr(value, "item") and getattr(value, "shape", None) == ():  # a numpy scalar: its Python value
+        value = value.item()
     if isinstance(value, str):
         return repr(value)
     if isinstance(value, bool):

@@ -354,12 +354,13 @@ def sieve_apertures(df, label: str, header: str = "sieve_um", unit: str | None =
                      f"{max(named) * 1000:g} µm" if len(named) > 1 else f"× 1000 it would be {value * 1000:g} µm")
             if header_unit == "mm":
                 mapped = "as um" if unit else "without a unit"
-                fix = (f"the header '{header}' says mm, but columns.toml maps it {mapped}: "
-                       f"map it with unit = \"mm\" (\"{header}\" = {{ column = \"{column}\", unit = \"mm\" }})")
+                fix = (f"the header '{header}' says mm, but columns.toml maps it {mapped}: map it with unit = "
+                       f"\"mm\" ([granules.columns] \"{header}\" = {{ column = \"{column}\", unit = \"mm\" }})")
             elif unit is not None:
                 fix = f"columns.toml reads '{header}' as um: if the file gives mm, map it with unit = \"mm\""
             else:
-                fix = "write the apertures in µm, or map the column in columns.toml with unit = \"mm\""
+                fix = ("write the apertures in µm, or map the column in columns.toml with unit = \"mm\" "
+                       f"([granules.columns] \"{header}\" = {{ column = \"{column}\", unit = \"mm\" }})")
             cause = f"it looks like a thousand times too small ({_UNIT_SLIPS['um'][0.001]}): {times}; {fix}"
         rule = f"no test sieve has so small an aperture: {limit}; {cause}. If it is right, ingest with " \
                "--accept-unusual --reason TEXT"

@@ -286,3 +286,16 @@ def test_two_sheets_named_after_the_table_are_refused(tmp_path):
                                                 " ribbon ": [RIBBON, ["A", 1, 2.0, 1.5]]})
     (p,) = _problems(read_table, path)
     assert "sheets 'Ribbon' and ' ribbon ' are both named after the table 'ribbon'" in p.rule
+
+
+def test_a_numpy_scalar_is_shown_as_python_writes_the_number():
+    """Review: np.float64 is a float whose repr is 'np.float64(1.5)' under numpy 2; a message shows the number
+    as Python writes it (reference: Python's own repr of the same float and int)."""
+    import numpy as np
+
+    from linkage.exceptions import shown_value
+
+    assert shown_value(np.float64(1.5)) == repr(1.5)
+    assert shown_value(np.int64(7)) == "7"
+    assert shown_value(np.bool_(True)) == "TRUE"
+    assert shown_value(np.str_("EX-001")) == repr("EX-001")

@@ -424,7 +424,8 @@ class RunningResult:
                          f"{c['interval_95'][1]:.3g}); the running level moved by the model's predicted change: "
                          f"{c['expected_porosity']:.4f} against the centre {w['centre']:.4f}"
                          + ("" if c.get("model_porosity") is None else
-                            f"; the model alone predicts {c['model_porosity']:.4f} at these settings"))
+                            f"; the model alone predicts {c['model_porosity']:.4f} at the suggested "
+                            "setting"))
         cf = self.confirm
         lines.append(f"Confirm with {cf['samples']} further samples (detects an offset of {cf['shift_sd']:g} within-lot "
                      f"SD from the centre, two-sided α = {cf['alpha']:g}, power {cf['power']:g})")

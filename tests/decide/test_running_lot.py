@@ -280,7 +280,7 @@ def test_the_corrected_level_and_the_model_s_own_prediction_are_told_apart(lab, 
     text = ws.running(atline, settings=SETTINGS, window=(0.25, 0.33)).text()
     assert "the model then expects" not in text
     assert (f"the running level moved by the model's predicted change: {c['expected_porosity']:.4f} against the "
-            f"centre {d['window']['centre']:.4f}; the model alone predicts {c['model_porosity']:.4f} at these "
-            "settings") in text
+            f"centre {d['window']['centre']:.4f}; the model alone predicts {c['model_porosity']:.4f} at the "
+            "suggested setting") in text
     first = d["drift"]["first_signal_sample"]
     assert f"first signal at sample {first}:" in text and "(#" not in text  # sample n is the n-th: said once
