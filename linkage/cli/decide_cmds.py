@@ -178,8 +178,8 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
             raise UsageError("nothing to predict from: give --set NAME=VALUE (or --from-csv)")
         results = [whatif(values, spec=spec, store=store, models_dir=models_dir, model=model_id, level=level,
                           seed=seed, lot=lot, product=product, assurance=assurance, record=record)]
-    for r in results:
-        _note_unrecorded(r, "predict", no_record)
+    if results:  # one note for every row of a --from-csv file: they share the store
+        _note_unrecorded(next((r for r in results if not r.recorded), results[0]), "predict", no_record)
     if html_path is not None:
         from linkage.export import write_atomic
         from linkage.report.sheet import whatif_html

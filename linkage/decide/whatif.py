@@ -447,9 +447,10 @@ def _product_for(chain, product: str | None) -> tuple[str | None, str | None]:
             raise UsageError(f"the what-if is for product {product!r}, but model {chain.model_id} was trained on "
                              f"lots of {', '.join(repr(p) for p in products)} only")
         return product, "given"
-    if len(products) == 1:
-        return products[0], "the model's only training product"
-    return None, None
+    from linkage.products import one_product
+
+    only = one_product({"products": products})
+    return (only, "the model's only training product") if only is not None else (None, None)
 
 
 def predict_many(chain, rows, **kwargs) -> list[WhatIf]:

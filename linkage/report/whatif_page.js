@@ -850,7 +850,7 @@
   function showValue(s, box, v) { box.exact = Number(v); box.value = boxText(s, v); }
   function boxValue(s, box) { return box.exact !== undefined && box.value === boxText(s, box.exact) ? box.exact : Number(box.value); }
   // the stage probabilities as predict writes them (results.stage_text): "at S1 79.0 %, by S2 > 99.9 %, by S3 > 99.9 %"
-  const stageText = (pStage) => Object.entries(pStage).map(([k, v], i) => `${i === 0 ? "at" : "by"} ${k} ${pct(v)}`).join(", ");
+  const stageText = (pStage) => Object.entries(pStage).map(([k, v], i) => `${i === 0 ? "at" : "by"} ${k.startsWith("S") ? k : "stage " + k} ${pct(v)}`).join(", ");
 
   function build() {
     app.textContent = "";

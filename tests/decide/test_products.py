@@ -173,7 +173,7 @@ def test_the_report_says_how_many_lots_of_other_products_it_leaves_out(store):
     html = "".join(b.parts)
     c = store["counts"]
     said = (f"The store also holds {c[B] + c[None]} lots of other products ({B!r}: {c[B]}, no product: "
-            f"{c[None]}); they are not shown: the model was trained on {A} only.")
+            f"{c[None]}); they are not shown: the report keeps to the product of the model, {A}.")
     assert escape(said) in html  # the template escapes the quotes as html.escape does
     b = _Builder(parallel=False)
     _data_section(b, champion, table, lots, [])

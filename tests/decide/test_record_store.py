@@ -104,6 +104,7 @@ def test_no_record_writes_nothing_in_an_existing_store_and_still_reads_it(run, s
     r = run("predict", "--from-csv", _rows(tmp_path), "--store", lot_store, "--no-record", "--json")
     assert r.exit_code == 0, r.output
     assert [d["lot"] for d in json.loads(r.stdout)] == ["EX-002", "EX-901"]
+    assert r.stderr.count("Note: --no-record") == 1  # one note for the file's rows (review: it was one a row)
     r = run("window", "--spec", spec_path, "--draws", 300, "--store", lot_store, "--no-record")
     assert r.exit_code == 0, r.output
     assert "Note: --no-record: this window was not recorded in an audit trail." in r.stderr
