@@ -788,6 +788,12 @@ class Retrained(_Result):
 # --------------------------------------------------------------------------- the audit trail as text
 
 def _lots_count(value) -> int:
+    """How many lots an audit entry's value names: a list's length, or a count written as a plain number (the store
+    writes an ingest's ``unchanged`` lots as their count)."""
+    if isinstance(value, bool):
+        return 0
+    if isinstance(value, int):
+        return max(value, 0)
     return len(value) if isinstance(value, (list, tuple, dict)) else 0
 
 
@@ -806,8 +812,11 @@ def _audit_outcome(entry: dict) -> tuple[str, str | None]:
         unusual = _lots_count(i.get("accepted_unusual"))
         text = ", ".join(parts) + " lot(s)" if parts else "no lots"
         return text + (f"; {unusual} unusual value(s) accepted" if unusual else ""), model
-    if action == "train":
-        return f"trained on {_lots_count(i.get('lots'))} lots", model
+    if action == "train":  # an entry without ``lots`` (an older store) says just that it trained
+        return ("trained" if i.get("lots") is None else f"trained on {_lots_count(i.get('lots'))} lots"), model
+    if action == "reanchor":
+        seal = o.get("checked_seal") if isinstance(o.get("checked_seal"), dict) else {}
+        return ("re-anchored" + (f" at seal {seal['id']}" if seal.get("id") is not None else "")), model
     if action in ("promote", "retrain"):
         champion = i.get("champion")
         flagged = _lots_count(i.get("alarmed_lots"))
