@@ -105,6 +105,8 @@ def verify_record(store: Path | None, models_dir: Path | None, *, registry_requi
                 result.store_cautions = _anchor_cautions(Path(store), result.store_counts)
                 if reanchor_reason is not None:
                     result.reanchored = lot_store.reanchor(reanchor_reason, checked=result.store_counts)
+                    # the anchor file is there now: the caution of the check before no longer holds
+                    result.store_cautions = _anchor_cautions(Path(store), result.store_counts)
         except StoreIntegrityError as exc:
             result.store_problems = [line.strip().removeprefix("- ") for line in str(exc).splitlines()[1:]] or [
                 str(exc)]

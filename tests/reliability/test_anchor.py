@@ -255,3 +255,17 @@ def test_a_schema_2_store_without_its_anchor_is_read_not_upgraded_nor_written(tm
     folder = tmp_path / "more"
     write_batch(folder, 2, seed=5, prefix="NEW")
     _refused(run_cli(["ingest", folder, "--store", path]), path, before)
+
+
+def test_a_successful_reanchor_drops_the_caution_of_the_check_before_it(unanchored):
+    """The caution "no anchor file ..." was computed before the re-anchoring and still shown after it, with
+    "(see the caution above)", in the text and in --json's ``store_cautions``. Regression test of the wording
+    of a report: it needs no outside source."""
+    text = run_cli(["verify", "--store", unanchored, "--reanchor", "--reason", "anchor lost in the copy"])
+    assert text.exit_code == 0, text.output
+    assert "Anchored again" in text.stdout and CAUTION not in text.stderr and "(see the caution" not in text.stdout
+    seal.anchor_path(unanchored).unlink()  # lost again: the same through --json
+    as_json = run_cli(["verify", "--store", unanchored, "--reanchor", "--reason", "lost again", "--json"])
+    assert as_json.exit_code == 0, as_json.output
+    found = json.loads(as_json.stdout)
+    assert found["reanchored"] is not None and found["store_cautions"] == []
