@@ -275,6 +275,21 @@ def _alarm_note(alarmed: list[dict], force: bool) -> str:
             "it stays in this decision (registry and audit trail)")
 
 
+def _settled_champion(store_path, models_dir, product: str | None):
+    """The champion, after settling the decisions a killed retrain left half-made (:func:`settle_pending`, which
+    writes to the registry): a ``product`` the champion was not trained on is refused first (exit code 2,
+    nothing written). A challenger of a pending decision has its champion's scope, so the check holds for the
+    champion after settling too; that one is loaded again only if a decision was settled."""
+    from linkage.models import registry
+
+    champion = registry.load(models_dir, "latest") if product is not None else None
+    if champion is not None:
+        challenger_product(champion, product)
+    if settle_pending(store_path, models_dir) or champion is None:
+        champion = registry.load(models_dir, "latest")
+    return champion
+
+
 def retrain(store_path, models_dir, *, product: str | None = None, spec=None, force: bool = False,
             reason: str | None = None, tolerance: float = DEFAULT_TOLERANCE, seed: int | None = None,
             user: str | None = None, progress=None) -> RetrainDecision:
@@ -290,8 +305,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     if force and (not reason or not reason.strip()):
         raise UsageError("--force needs a reason (--reason TEXT); it is recorded in the audit trail")
     refuse_unanchored(store_path)  # a store that would refuse the record (its anchor file missing): before the work
-    settle_pending(store_path, models_dir)  # a decision a killed retrain left half-made, before anything else
-    champion = registry.load(models_dir, "latest")
+    champion = _settled_champion(store_path, models_dir, product)
     product = challenger_product(champion, product)  # the champion's product by default; another refused
     time_min = _challenger_time_point(champion, spec)
     with LotStore(store_path, create=False) as store:
