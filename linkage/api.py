@@ -635,6 +635,8 @@ def whatif(values: Mapping[str, float | str], *, spec=None, store=DEFAULT_STORE,
     from linkage.exceptions import UsageError
 
     recording = _recording(store, record, "predict")  # before any work: a mistyped store writes nothing
+    if recording:  # recorded at the end: a store that refuses the record is refused before the work
+        _refuse_unanchored(store)
     assurance = check_assurance(assurance)
     if lot is not None:
         from linkage.lotid import reader_spelling
@@ -673,7 +675,8 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
     from linkage.lotid import reader_spelling
 
     recording = _recording(store, record, "predict")  # before any work: a mistyped store writes nothing
-
+    if recording:  # recorded at the end: a store that refuses the record is refused before the work
+        _refuse_unanchored(store)
     if isinstance(lots, str):
         reader_spelling(lots)  # an id with an invisible character is refused before any work
     csv_lots: list[str | None] | None = None

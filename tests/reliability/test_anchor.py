@@ -269,3 +269,29 @@ def test_a_successful_reanchor_drops_the_caution_of_the_check_before_it(unanchor
     assert as_json.exit_code == 0, as_json.output
     found = json.loads(as_json.stdout)
     assert found["reanchored"] is not None and found["store_cautions"] == []
+
+
+def test_the_library_what_if_is_refused_before_its_work(unanchored, trained, monkeypatch):
+    """``api.whatif`` / ``api.whatif_rows`` computed the prediction and were refused only when the record was
+    written (README and DEVELOPERS say predict is refused before its work, as ``window`` is). Regression test of
+    a refusal: it needs no outside source."""
+    import linkage.api as api
+    import linkage.decide.whatif as whatif
+
+    models, _ = trained
+    before = dump(unanchored)
+    worked = []
+
+    def work(name):
+        def done(*a, **kw):
+            worked.append(name)
+            raise AssertionError(f"{name}: the prediction was computed before the refusal")
+        return done
+
+    monkeypatch.setattr(whatif, "predict_whatif", work("predict_whatif"))
+    monkeypatch.setattr(whatif, "predict_many", work("predict_many"))
+    for call in (lambda: api.whatif({"roll_force_kn_per_cm": 8}, store=unanchored, models_dir=models),
+                 lambda: api.whatif_rows([{"roll_force_kn_per_cm": 8}], store=unanchored, models_dir=models)):
+        with pytest.raises(StoreIntegrityError, match="anchor file .* is missing"):
+            call()
+    assert worked == [] and dump(unanchored) == before and not seal.anchor_path(unanchored).exists()
