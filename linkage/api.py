@@ -229,9 +229,9 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
     the ingest in its audit trail."""
     from linkage.exceptions import UsageError
     from linkage.read import read_folder
-    from linkage.store import ACCEPT_NEEDS_REASON, LotStore
+    from linkage.store import ACCEPT_NEEDS_REASON, LotStore, given_reason
 
-    if accept_unusual and not (isinstance(reason, str) and reason.strip()):
+    if accept_unusual and given_reason(reason) is None:
         raise UsageError(ACCEPT_NEEDS_REASON)  # before a first ingest creates the store
     folder, store = Path(folder), Path(store)
     known: list[str] = []

@@ -82,9 +82,9 @@ def verify_record(store: Path | None, models_dir: Path | None, *, registry_requi
     :class:`~linkage.exceptions.ModelNotFoundError` (exit code 2) before anything is checked, as every command
     that reads models refuses it; with ``registry_required=False`` (``linkage verify`` without
     ``--models-dir``: the default folder) the store alone is checked and ``models_not_checked`` says why."""
-    from linkage.store import REANCHOR_NEEDS_REASON, LotStore
+    from linkage.store import REANCHOR_NEEDS_REASON, LotStore, given_reason
 
-    if reanchor_reason is not None and not (isinstance(reanchor_reason, str) and reanchor_reason.strip()):
+    if reanchor_reason is not None and given_reason(reanchor_reason) is None:
         raise UsageError(REANCHOR_NEEDS_REASON)
     result = VerifyResult(None if store is None else str(store), None if models_dir is None else str(models_dir))
     reason = None if models_dir is None else not_a_registry(models_dir)

@@ -354,6 +354,12 @@ def _is_addition(ch: dict) -> bool:
 # --------------------------------------------------------------------------- the store
 
 
+def given_reason(reason) -> str | None:
+    """A reason as given (``--reason TEXT``), stripped; None when none is given: None, not text, or blank or
+    whitespace only. The one test of "needs a reason" (--accept-unusual, --reanchor, a forced promotion)."""
+    return reason.strip() if isinstance(reason, str) and reason.strip() else None
+
+
 #: the refusal of --accept-unusual without --reason (the API checks it before the store is created, the store again)
 ACCEPT_NEEDS_REASON = ("--accept-unusual takes unusual values deliberately: give --reason TEXT to say why. "
                        "Nothing was written.")
@@ -688,7 +694,7 @@ class LotStore:
         if process is not None:
             for lot, product in zip(process["lot"].tolist(), process["product"].tolist()):
                 products[lot] = None if isinstance(product, float) else product
-        reason = reason.strip() if isinstance(reason, str) and reason.strip() else None
+        reason = given_reason(reason)
         with self._write() as c:
             known = {r[0] for r in c.execute("SELECT lot FROM lots")}
             problems = _read.cross_check(ingest, known)
@@ -1123,7 +1129,8 @@ class LotStore:
 
         Returns ``{"audit_id", "checked_seal", "anchor", "checked"}`` (the seals as ``{"id", "sha256"}``;
         ``anchor``: the seal the new anchor file names; ``checked``: what the check covered)."""
-        if not (isinstance(reason, str) and reason.strip()):
+        reason = given_reason(reason)
+        if reason is None:
             raise UsageError(REANCHOR_NEEDS_REASON)
         if self._missing_anchor(self._conn) is None:
             raise UsageError(self.nothing_to_reanchor())
@@ -1139,7 +1146,7 @@ class LotStore:
                                           "write is accepted without its anchor file; nothing was written. Find "
                                           "out who writes to it, then check it again")
             audit_id = self._log(c, "reanchor", user or current_user(), None, None,
-                                 inputs={"reason": reason.strip(), "anchor_file": str(_seal.anchor_path(self.path))},
+                                 inputs={"reason": reason, "anchor_file": str(_seal.anchor_path(self.path))},
                                  outputs={"checked_seal": found_head, "checked": checked})
             anchor = dict(zip(("id", "sha256"), _seal.head(c)))
         self.unanchored = None

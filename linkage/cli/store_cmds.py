@@ -261,9 +261,9 @@ def verify(ctx, store, models_dir, as_json, reanchor, reason):
     from linkage.cli.common import MODELS_ENV
     from linkage.exceptions import UsageError
     from linkage.integrity import verify_record
-    from linkage.store import REANCHOR_NEEDS_REASON
+    from linkage.store import REANCHOR_NEEDS_REASON, given_reason
 
-    if reanchor and not (reason or "").strip():
+    if reanchor and given_reason(reason) is None:
         raise UsageError(REANCHOR_NEEDS_REASON)
     if reason is not None and not reanchor:
         raise UsageError("--reason goes with --reanchor (verify itself writes nothing)")

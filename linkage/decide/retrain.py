@@ -40,6 +40,10 @@ import pandas as pd
 from linkage import CAUTION
 from linkage.decide.prospective import ALPHA, MIN_NEW_LOTS, TEST, paired_noninferiority, prospective_pairs
 from linkage.exceptions import InsufficientDataError, LinkageError, UsageError
+from linkage.store import given_reason
+
+#: the refusal of a forced promotion without a reason
+FORCE_NEEDS_REASON = "--force needs a reason (--reason TEXT); it is recorded in the audit trail"
 
 RULE = ("promote when, for every attribute, the challenger is shown not worse than the champion beyond the "
         "tolerance on the lots the champion never saw (at least {min_lots} of them): " + TEST.format(alpha=ALPHA)
@@ -184,9 +188,9 @@ def decide(comparisons: list[Comparison], *, force: bool = False, reason: str | 
                      f"{c.champion_choice_rmse:.4g}]")
         reasons.append(line)
     if force:
-        if not reason or not reason.strip():
-            raise UsageError("--force needs a reason (--reason TEXT); it is recorded in the audit trail")
-        reasons.insert(0, f"promotion forced: {reason.strip()}")
+        if given_reason(reason) is None:
+            raise UsageError(FORCE_NEEDS_REASON)
+        reasons.insert(0, f"promotion forced: {given_reason(reason)}")
         return True, reasons
     reasons.insert(0, "the challenger meets the promotion rule" if ok else
                    "the challenger does not meet the promotion rule; the champion stays")
@@ -302,8 +306,8 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
 
     if not 0 <= tolerance < 1:
         raise UsageError(f"tolerance must lie in [0, 1); got {tolerance}")
-    if force and (not reason or not reason.strip()):
-        raise UsageError("--force needs a reason (--reason TEXT); it is recorded in the audit trail")
+    if force and given_reason(reason) is None:
+        raise UsageError(FORCE_NEEDS_REASON)
     refuse_unanchored(store_path)  # a store that would refuse the record (its anchor file missing): before the work
     champion = _settled_champion(store_path, models_dir, product)
     product = challenger_product(champion, product)  # the champion's product by default; another refused
@@ -351,7 +355,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     challenger_id = registry.save(challenger, models_dir, in_service=False)  # enters service only in phase 3
     decision = RetrainDecision(
         champion_id=champion.model_id, challenger_id=challenger_id, promoted=promote, forced=force,
-        reason=(reason or "").strip(), reasons=reasons, rule=RULE, tolerance=tolerance, new_lots=new_lots,
+        reason=given_reason(reason) or "", reasons=reasons, rule=RULE, tolerance=tolerance, new_lots=new_lots,
         comparisons=comparisons, window_moved=moved, notes=notes, product=product, alarmed_lots=alarmed,
     )
     # two phases (registry.begin_decision): the audit row's commit is the decision
