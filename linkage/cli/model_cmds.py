@@ -142,8 +142,10 @@ def models(models_dir, import_dir, note, as_json):
     """List the models in the registry, newest first, with their status
     (ok, changed, missing, foreign, incomplete) and role (champion: what
     'latest' names; superseded; not promoted ...); or import a model folder.
-    A champion that fails its checks is refused (exit code 4), never replaced
-    by an older model: name one with --model ID.
+    When the champion fails its checks, the commands that use 'latest'
+    (predict, window, report ...) are refused (exit code 4), and no older
+    model is used in its place: give them --model ID. This listing still
+    shows every model, with the champion's status.
 
     A model folder copied in by hand is 'foreign' and is never loaded until
     it is imported with --import and a --note saying where it came from.

@@ -201,3 +201,26 @@ def test_ingest_then_train_on_synthetic_lots(tmp_path):
     assert data["targets"]["dissolution_pct"]["noise_floor"] is not None  # from the vessels
     assert data["targets"]["ribbon_porosity"]["noise_floor"] is not None  # from the ribbon replicates
     assert data["n_lots"] == 12
+
+
+def test_models_help_says_the_commands_using_latest_are_refused_not_models(small_fit, tmp_path):
+    """``models --help`` said "A champion that fails its checks is refused (exit code 4)", which reads as if
+    ``linkage models`` exits 4; it lists the registry (exit 0), and the commands that use ``latest`` are the ones
+    refused. Regression test of a wording: it needs no outside source."""
+    from linkage.exceptions import NoVerifiedModelError
+    from linkage.models.registry import load, save
+
+    text = " ".join(run("models", "--help").output.split())
+    assert "the commands that use 'latest' (predict, window, report ...) are refused (exit code 4)" in text, text
+    assert "A champion that fails its checks is refused" not in text
+    models = tmp_path / "models"
+    mid = save(small_fit[1], models)
+    artifact = models / mid / "chain.joblib"
+    data = bytearray(artifact.read_bytes())
+    data[len(data) // 2] ^= 0x01
+    artifact.write_bytes(bytes(data))  # the champion now fails its check
+    listed = run("models", "--models-dir", models)
+    assert listed.exit_code == 0 and mid in listed.output, listed.output
+    with pytest.raises(NoVerifiedModelError) as refused:
+        load(models)  # what a command using latest meets
+    assert refused.value.exit_code == 4
