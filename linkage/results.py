@@ -811,6 +811,8 @@ def _audit_outcome(entry: dict) -> tuple[str, str | None]:
         parts = [f"{_lots_count(o.get(k))} {k}" for k in ("new", "revised", "unchanged") if _lots_count(o.get(k))]
         unusual = _lots_count(i.get("accepted_unusual"))
         text = ", ".join(parts) + " lot(s)" if parts else "no lots"
+        added = _lots_count(o.get("added_to"))  # revisions that only added (results in stages): no reason needed
+        text += f" ({added} of them only added to)" if added else ""
         return text + (f"; {unusual} unusual value(s) accepted" if unusual else ""), model
     if action == "train":  # an entry without ``lots`` (an older store) says just that it trained
         return ("trained" if i.get("lots") is None else f"trained on {_lots_count(i.get('lots'))} lots"), model

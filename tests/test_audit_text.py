@@ -63,3 +63,23 @@ def test_a_reanchor_entry_names_the_seal_checked(tmp_path):
         rows = s.audit()
     line = _outcomes(rows)[done["audit_id"]]
     assert f"re-anchored at seal {done['checked_seal']['id']}" in line, line
+
+
+def test_an_ingest_that_only_adds_says_so(tmp_path):
+    """Re-test: an ingest of results in stages (no reason needed) read as an unexplained revision in the text."""
+    import pandas as pd
+
+    folder = tmp_path / "first"
+    shutil.copytree(EXAMPLE, folder)
+    tablets = folder / "tablets.csv"
+    later = tmp_path / "later"
+    later.mkdir()
+    shutil.move(tablets, later / "tablets.csv")  # the tablets tested days after the ribbons
+    with LotStore(tmp_path / "site.db") as s:
+        s.ingest(read_folder(folder, known_lots=s.lot_ids()))
+        added = s.ingest(read_folder(later, known_lots=s.lot_ids()))
+        rows = s.audit()
+    n = len(pd.read_csv(later / "tablets.csv")["lot"].unique())
+    assert len(added.lots_added_to) == n
+    line = _outcomes(rows)[rows[-1]["id"]]
+    assert f"{n} revised lot(s) ({n} of them only added to)" in line, line

@@ -66,6 +66,8 @@ class RibbonPhysics:
     n_dropped: int = 0
     #: (lowest, highest) peak pressure of the fitted lots under the fit [MPa]: the ribbons the lots have seen
     peak_pressure_range_mpa: tuple = (float("nan"), float("nan"))
+    #: product -> lots fitted ("" for lots without a product name); {} where the lots name no product
+    products: dict = field(default_factory=dict)
 
     def porosity(self, roll_force_kn_per_cm, roll_gap_mm, roll_diameter_mm):
         """Fitted ribbon porosity [-] (:func:`linkage.physics.rolling.johanson_ribbon_porosity`)."""
@@ -79,7 +81,8 @@ class RibbonPhysics:
                 "pressure_constant_mpa": self.pressure_constant_mpa, "pressure_constant_log_sd": float(sd_log[1]),
                 "residual_sd": self.residual_sd, "n_lots": self.n_lots, "n_dropped": self.n_dropped,
                 "internal_friction_deg": self.internal_friction_deg, "wall_friction_deg": self.wall_friction_deg,
-                "compactors": self.compactors, "peak_pressure_range_mpa": list(self.peak_pressure_range_mpa)}
+                "compactors": self.compactors, "peak_pressure_range_mpa": list(self.peak_pressure_range_mpa),
+                "products": self.products}
 
 
 def fit_ribbon_physics(lots, *, internal_friction_deg=rolling.DEFAULT_INTERNAL_FRICTION_DEG,
@@ -141,10 +144,12 @@ def fit_ribbon_physics(lots, *, internal_friction_deg=rolling.DEFAULT_INTERNAL_F
             compactors[name] = {"roll_diameter_mm": float(group["roll_diameter_mm"].median()),
                                 "roll_width_mm": None if not np.isfinite(width) else float(width),
                                 "lots": int(len(group))}
+    counted = used["product"].fillna("").astype(str).value_counts() if "product" in used.columns else {}
+    products = {str(k): int(counted[k]) for k in sorted(counted.keys(), key=lambda k: (k == "", k))}
     return RibbonPhysics(fit["compressibility"], fit["pressure_constant_mpa"], fit["log_params"],
                          fit["log_covariance"], fit["residual_sd"], fit["n_lots"], internal_friction_deg,
                          wall_friction_deg, compactors, int((~complete).sum()),
-                         (float(np.min(pressures)), float(np.max(pressures))))
+                         (float(np.min(pressures)), float(np.max(pressures))), products)
 
 
 @dataclass(frozen=True)
@@ -181,6 +186,10 @@ class Transfer:
                  f"{p.pressure_constant_mpa:.4g} MPa, residual SD {p.residual_sd:.4f}, from {p.n_lots} lots"
                  + (" of " + ", ".join(f"{k} ({v['lots']})" for k, v in p.compactors.items()) if p.compactors
                     else "")]
+        if len(p.products) > 1:  # one K and one C for every product's lots: said, as train says it of a model
+            named = ", ".join(f"{k!r}: {n}" if k else f"no product: {n}" for k, n in p.products.items())
+            lines.append(f"  !! fitted to the lots of several products together ({named}); for one product's "
+                         "powder, give --product NAME")
         if self.kind == "window":
             lo, hi = self.targets[0], self.targets[-1]
             lines.append(f"  porosity window {lo['ribbon_porosity']:.3f}-{hi['ribbon_porosity']:.3f}: specific roll "

@@ -117,3 +117,19 @@ def test_rolls_that_give_no_nip_are_refused_with_the_reason():
                      porosity=0.28)
         ok = transfer(physics, roll_diameter_mm=20, roll_width_mm=40, roll_gap_mm=largest * 20 * 0.9, porosity=0.28)
     assert all(np.isfinite(ok.targets[0]["force_interval_kn_per_cm"])) and np.isfinite(ok.targets[0]["nip_angle_deg"])
+
+
+def test_lots_of_several_products_fitted_together_are_said_to_be():
+    """User re-test: `transfer` fitted one K and one C to the store's lots of every product without a word.
+    The text now says so and the record counts the lots by product (regression test of a statement: no outside
+    source; the counts are the lots' own)."""
+    lots = make_transfer_lots(TRUTH, lots={"pilot": 20, "production": 6}, seed=2)
+    one = transfer(fit_ribbon_physics(lots.assign(product="A")), roll_diameter_mm=400, roll_width_mm=100,
+                   roll_gap_mm=2.5, porosity=0.3)
+    assert "several products" not in one.text() and one.physics.products == {"A": len(lots)}
+    mixed = lots.assign(product=["A"] * 20 + ["B"] * 4 + [None] * 2)
+    two = transfer(fit_ribbon_physics(mixed), roll_diameter_mm=400, roll_width_mm=100, roll_gap_mm=2.5,
+                   porosity=0.3)
+    assert two.physics.products == {"A": 20, "B": 4, "": 2}
+    assert "several products together ('A': 20, 'B': 4, no product: 2)" in two.text()
+    assert two.to_dict()["model"]["products"] == {"A": 20, "B": 4, "": 2}
