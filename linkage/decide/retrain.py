@@ -244,7 +244,9 @@ def _group_by(champion) -> str | None:
 def challenger_product(champion, product: str | None) -> str | None:
     """The product whose lots the challenger is fitted on: the champion's one product
     (:attr:`linkage.models.fitted.FittedChain.trained_product`), or every lot of the store (None) for a champion
-    trained on several products or on lots without a product name, as it was trained. A ``product`` other than
+    trained on several products or on lots without any product name, as it was trained. A champion of one product
+    and some lots without a name is that product's (:func:`linkage.products.one_product`): the unnamed lots are
+    left out, and the retrain's note says so. A ``product`` other than
     that is refused: the challenger would not be comparable with the champion (the promotion test pairs their
     errors on the lots the champion never saw, and the champion is not a model of that product alone)."""
     from linkage.products import trained_on_text, training_counts
