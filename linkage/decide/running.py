@@ -647,37 +647,17 @@ def _suggested_correction(lean, target, values, adjust, step, sens, reps, level,
 
 def draw_chart(result: RunningResult, path) -> None:
     """A small PNG: the samples and running mean against the window, the
-    within-lot limits and the signals (matplotlib, imported here)."""
+    within-lot limits and the signals (matplotlib, imported here), with the
+    caution in full under it."""
+    import io
+
     import matplotlib
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    rows = result.samples
-    t = [r["hours"] for r in rows]
-    fig, ax = plt.subplots(figsize=(6.4, 3.6), dpi=100)
+    fig = chart_figure(result)
     try:
-        w = result.window
-        ax.axhspan(w["low"], w["high"], color="#d8ecd8", label="window")
-        ax.axhline(w["centre"], color="#4a8a4a", lw=0.8, ls=":")
-        lo, hi = result.limits
-        for y in (lo, hi):
-            ax.axhline(y, color="#a04040", lw=0.8, ls="--")
-        ax.axhline(result.centre, color="#a04040", lw=0.6)
-        ax.plot(t, [r["porosity"] for r in rows], "o", color="#333333", ms=4, label="sample")
-        ax.plot(t, [r["running_mean"] for r in rows], "-", color="#2060a0", lw=1.2, label="running mean")
-        ax.plot(t, [r["ewma"] for r in rows], "-", color="#c08020", lw=0.8, label="EWMA")
-        hit = [(r["hours"], r["porosity"]) for r in rows if r["signals"]]
-        if hit:
-            ax.plot(*zip(*hit), "x", color="#c00000", ms=8, mew=2, label="signal")
-        ax.set_xlabel("hours since the first sample")
-        ax.set_ylabel("ribbon porosity [-]")
-        ax.set_title(f"lot {result.lot}: running guidance", fontsize=10)
-        ax.legend(fontsize=7, loc="best")
-        fig.text(0.01, 0.01, CAUTION[:110] + ("…" if len(CAUTION) > 110 else ""), fontsize=5.5, color="#555555")
-        fig.tight_layout(rect=(0, 0.04, 1, 1))
-        import io
-
         buf = io.BytesIO()
         fig.savefig(buf, format="png")
     finally:
@@ -685,3 +665,34 @@ def draw_chart(result: RunningResult, path) -> None:
     from linkage.export import write_atomic
 
     write_atomic(path, buf.getvalue())
+
+
+def chart_figure(result: RunningResult):
+    """The figure of :func:`draw_chart`: every line in the legend, the caution whole (wrapped)."""
+    import textwrap
+
+    import matplotlib.pyplot as plt
+
+    rows = result.samples
+    t = [r["hours"] for r in rows]
+    fig, ax = plt.subplots(figsize=(6.4, 3.8), dpi=100)
+    w = result.window
+    ax.axhspan(w["low"], w["high"], color="#d8ecd8", label="window")
+    ax.axhline(w["centre"], color="#4a8a4a", lw=0.8, ls=":", label="window centre")
+    lo, hi = result.limits
+    for k, y in enumerate((lo, hi)):
+        ax.axhline(y, color="#a04040", lw=0.8, ls="--", label="within-lot limits" if k == 0 else None)
+    ax.axhline(result.centre, color="#a04040", lw=0.6, label="baseline centre")
+    ax.plot(t, [r["porosity"] for r in rows], "o", color="#333333", ms=4, label="sample")
+    ax.plot(t, [r["running_mean"] for r in rows], "-", color="#2060a0", lw=1.2, label="running mean")
+    ax.plot(t, [r["ewma"] for r in rows], "-", color="#c08020", lw=0.8, label="EWMA")
+    hit = [(r["hours"], r["porosity"]) for r in rows if r["signals"]]
+    if hit:
+        ax.plot(*zip(*hit), "x", color="#c00000", ms=8, mew=2, label="signal")
+    ax.set_xlabel("hours since the first sample")
+    ax.set_ylabel("ribbon porosity [-]")
+    ax.set_title(f"lot {result.lot}: running guidance", fontsize=10)
+    ax.legend(fontsize=6.5, loc="best")
+    fig.text(0.01, 0.01, "\n".join(textwrap.wrap(CAUTION, 150)), fontsize=5.5, color="#555555", va="bottom")
+    fig.tight_layout(rect=(0, 0.07, 1, 1))
+    return fig

@@ -284,3 +284,30 @@ def test_the_corrected_level_and_the_model_s_own_prediction_are_told_apart(lab, 
             "suggested setting") in text
     first = d["drift"]["first_signal_sample"]
     assert f"first signal at sample {first}:" in text and "(#" not in text  # sample n is the n-th: said once
+
+
+def test_the_chart_carries_the_whole_caution_and_names_every_line(lab, tmp_path):
+    """User re-test: the --chart PNG cut the caution off after 110 characters ("...under the site's quali…") and
+    its within-lot limits and centre lines were not in the legend. A regression test of the figure's text (no
+    outside source): the caution is the package's CAUTION, whole, once the figure's wrapped lines are joined."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from linkage import CAUTION
+    from linkage.decide.running import chart_figure
+
+    folder, ws, truth = lab
+    atline = tmp_path / "atline_chart.csv"
+    drifting_samples(truth, 12, 0.5 * truth.porosity_replicate_sd, seed=7).to_csv(atline, index=False)
+    result = ws.running(atline, settings=SETTINGS, window=(0.25, 0.33))
+    fig = chart_figure(result)
+    try:
+        texts = [t.get_text() for t in fig.texts]
+        assert any(" ".join(t.split()) == CAUTION for t in texts), texts
+        labels = fig.axes[0].get_legend_handles_labels()[1]
+        assert {"window", "window centre", "within-lot limits", "baseline centre", "sample",
+                "running mean"} <= set(labels), labels
+    finally:
+        plt.close(fig)
