@@ -341,6 +341,9 @@
 
   // ---------------------------------------------------------------- applicability domain
   const NOT_UNITS = new Set(["-", "ISO 8601", "sieve | laser", "bool", "count"]);
+  // a unit in a column heading as a reader writes it (figures.py's _PRETTY_UNITS); texts that mirror Python's keep "um"
+  const PRETTY_UNITS = { "um": "µm", "g/cm3": "g/cm³" };
+  const heading = (name, u) => name + (u && !NOT_UNITS.has(u) ? ` [${PRETTY_UNITS[u] || u}]` : "");
   function fmt(v, digits = 4) { // Python's format(v, ".4g"), or another number of digits
     if (!Number.isFinite(v)) return String(v);
     if (v === 0) return "0";
@@ -879,7 +882,7 @@
       check.addEventListener("change", update);
       slider.addEventListener("input", () => { showValue(s, box, slider.value); check.checked = true; update(); });
       box.addEventListener("input", () => { box.exact = undefined; slider.value = box.value; check.checked = true; update(); });
-      table.append(el("tr", {}, el("td", { class: "set" }, check), el("td", { text: s.name + (s.unit && !NOT_UNITS.has(s.unit) ? ` [${s.unit}]` : "") }),
+      table.append(el("tr", {}, el("td", { class: "set" }, check), el("td", { text: heading(s.name, s.unit) }),
         el("td", { text: `${fmt(s.low)} – ${fmt(s.high)}` }), el("td", {}, box), el("td", { class: "slider" }, slider), srcCell));
     }
     controls.append(table);
@@ -949,7 +952,7 @@
       `at least (assurance ${share(M.assurance)})`, "model", "interval"].map((h) => el("th", { text: h }))));
     for (const [name, p] of Object.entries(r.predictions)) {
       const lim = p.limits ? [p.limits.min !== null ? "≥ " + fmt(p.limits.min) : "", p.limits.max !== null ? "≤ " + fmt(p.limits.max) : ""].filter(Boolean).join(", ") : "";
-      const tr = el("tr", { "data-attribute": name }, el("td", { text: name + (M.units[name] && !NOT_UNITS.has(M.units[name]) ? ` [${M.units[name]}]` : "") }),
+      const tr = el("tr", { "data-attribute": name }, el("td", { text: heading(name, M.units[name]) }),
         el("td", { class: "num", text: num(p.value) }), el("td", { class: "num", text: `${num(p.low)} – ${num(p.high)}` }),
         el("td", { text: lim + (p.judge === "stages" ? ` (USP <711> by ${p.pass_by})` : "") }),
         el("td", { class: "num", text: p.p_pass === undefined ? "" : pct(p.p_pass) }),

@@ -376,6 +376,17 @@ def test_a_number_box_shows_the_step_s_decimals_and_the_what_if_keeps_the_full_v
 
 @pytest.mark.slow
 @pytest.mark.browser
+def test_a_heading_writes_um_as_the_micrometre_sign(opened):
+    """User re-test: 'granule_d50_um [um]' where the report writes µm. Headings write a unit as the report's
+    figures do (linkage.report.figures.shown_unit); the texts that mirror Python's (domain reasons) keep 'um'.
+    A regression test of a label: no outside source."""
+    from linkage.report.figures import shown_unit
+
+    heading = opened.evaluate(
+        "document.querySelector('table.predictions tr[data-attribute=granule_d50_um] td').innerText")
+    assert heading.strip() == f"granule_d50_um [{shown_unit('granule_d50_um')}]" == "granule_d50_um [µm]"
+
+
 def test_at_a_1280_px_window_intervals_and_methods_stay_on_one_line(opened):
     """A user test found the page 830 px wide in a 1280 px window, each interval on two lines and 'monte carlo
     through the chain' on three. At 1280 px the content now uses the width, and every interval and interval
