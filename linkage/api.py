@@ -740,6 +740,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
         tables = current_tables_of(lot_store, product)
         lots = lot_store.lots(product=product)
         others = lot_store.other_products(product)  # said in the report, not shown
+        store_cautions = lot_store.cautions()  # printed on stderr, and stated in the report passed around
     if not tables:
         raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
                                                                           else "") + "; nothing to report on")
@@ -779,7 +780,8 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     kept_figures = _reuse_key(models_dir, chain.model_id, "figures", figures_key)
     rendered = render_report(chain, table, spec=spec, window=found, lots=lots, confidence=confidence, seed=seed,
                              curve_draws=REPORT_CURVE_DRAWS, assurance=assurance, plan=plan, space=space,
-                             reused=reused, kept_figures=kept_figures, other_lots=others)
+                             reused=reused, kept_figures=kept_figures, other_lots=others,
+                             store_cautions=store_cautions)
     if "mewma" in rendered.computed:
         _keep(models_dir, chain.model_id, "mewma", None,
               (designs.result if designs is not None else []) + rendered.computed["mewma"], "linkage report",

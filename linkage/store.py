@@ -432,8 +432,15 @@ class LotStore:
 
             from linkage.exceptions import StoreCaution
 
-            warnings.warn(_seal.unanchored_caution(self.path, self.unanchored["id"], self.unanchored["sha256"]),
-                          StoreCaution, stacklevel=2)
+            warnings.warn(self.cautions()[0], StoreCaution, stacklevel=2)
+
+    def cautions(self) -> list[str]:
+        """What this store cannot show, as the caution every reading command prints on stderr (``caution,
+        store: ...``): the missing anchor file of a sealed store; empty when there is nothing to say. A
+        document made from the store (the report) states them too."""
+        if self.unanchored is None:
+            return []
+        return [_seal.unanchored_caution(self.path, self.unanchored["id"], self.unanchored["sha256"])]
 
     # ---- opening
 

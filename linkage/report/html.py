@@ -303,7 +303,8 @@ def write_report(report: Report, out_path) -> Path:
 def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: pd.DataFrame | None = None,
                   confidence: float = 0.9, seed: int = 0, curve_draws: int = 400,
                   assurance: float = 0.9, plan=None, space=None, reused: dict[str, str] | None = None,
-                  parallel: bool = True, kept_figures=None, other_lots=None) -> Report:
+                  parallel: bool = True, kept_figures=None, other_lots=None,
+                  store_cautions: list[str] | None = None) -> Report:
     """Build the report of a fitted chain.
 
     Parameters
@@ -331,6 +332,8 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         section was reused from an earlier command, shown under its heading.
     other_lots : the store's lots of other products than the model's, not shown (product, lot count;
         :func:`linkage.products.other_counts`): the lots section says how many there are.
+    store_cautions : what the lot store read cannot show (:meth:`linkage.store.LotStore.cautions`: a
+        sealed store without its anchor file); stated in "At a glance" and in the cautions section.
     kept_figures : the figures an earlier report drew with the same inputs
         (a :class:`linkage.models.reuse.Reused` of kind "figures",
         :mod:`linkage.report.kept`): a figure whose caption is the one kept
@@ -359,7 +362,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         pending["space"] = Background(design_space, chain, spec, fork=parallel, **args)
     try:
         _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
-                  pending, computed, other_lots=other_lots)
+                  pending, computed, other_lots=other_lots, store_cautions=store_cautions or [])
         b.draw_figures()
     finally:
         b.close()
@@ -376,7 +379,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
 
 
 def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
-              pending, computed, other_lots=None) -> None:
+              pending, computed, other_lots=None, store_cautions=()) -> None:
     """Every section in order into ``b``. ``pending``: the watch and (unless given) the map, being computed;
     ``computed`` gets the window and the map when they were computed here."""
     limits = dict(spec.limits) if spec is not None else {}
@@ -387,7 +390,7 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
             computed["window"] = window
 
     revised = revised_training_lots(chain, lots)
-    _glance(b, chain, table, spec, window, revised)
+    _glance(b, chain, table, spec, window, revised, store_cautions)
     _data_section(b, chain, table, lots, other_lots, revised)
     _ribbon_section(b, chain, table, limits)
     _baseline_section(b, chain, table, limits)
@@ -425,7 +428,7 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
     _watch_section(b, chain, table, window, watched)
     _domain_section(b, chain, table)
     _model_card(b, chain, spec, window, revised)
-    _cautions(b, chain)
+    _cautions(b, chain, store_cautions)
 
 
 def _window_or_reason(chain, spec, confidence, seed, assurance=0.9):
@@ -502,7 +505,7 @@ def _stage_of(chain, name: str):
 
 # ----------------------------------------------------------------- 1. at a glance
 
-def _glance(b, chain, table, spec, window, revised=()):
+def _glance(b, chain, table, spec, window, revised=(), store_cautions=()):
     b.section("glance", "At a glance")
     time_point = None
     if "dissolution_pct" in chain.targets:
@@ -531,7 +534,7 @@ def _glance(b, chain, table, spec, window, revised=()):
                 rf_range=_range(rf.get("point_low"), rf.get("point_high"), 2),
                 low_edge=_edge_text(window.low.limited_by) if window is not None else None,
                 high_edge=_edge_text(window.high.limited_by) if window is not None else None,
-                revised=len(revised), revised_text=_revised_text(revised)))
+                revised=len(revised), revised_text=_revised_text(revised), store_cautions=list(store_cautions)))
 
 
 def _every(window) -> str:
@@ -1304,7 +1307,7 @@ def _card_rows(chain, spec, window) -> list[list]:
 
 # ----------------------------------------------------------------- 10. cautions
 
-def _cautions(b, chain):
+def _cautions(b, chain, store_cautions=()):
     b.section("cautions", "Cautions")
     n = int(chain.training.get("n_lots", 0))
     items = [
@@ -1321,4 +1324,6 @@ def _cautions(b, chain):
         "a different setting can move it. The mean-response window overstates what can be promised.",
         "Retrain when new lots arrive or a residual chart drifts; a model is only as current as its data hash.",
     ]
+    # what the lot store read cannot show (its missing anchor file), as the command said it on stderr
+    items += [f"The lot store this report was made from: {c}." for c in store_cautions]
     b.add(_part("blocks", "items", values=items))

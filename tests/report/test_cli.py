@@ -71,3 +71,30 @@ def test_report_help_has_an_example():
     result = CliRunner().invoke(cli, ["report", "--help"])
     assert result.exit_code == 0
     assert "Example:" in result.output and "linkage report --spec spec.toml" in result.output
+
+
+@pytest.mark.slow
+def test_report_of_a_store_copied_without_its_anchor_file_states_the_caution(site, tmp_path):
+    """A sealed store copied without ``<store>.seal``: the command prints the caution on stderr, and the report
+    (the document passed around) states it too, in "At a glance" and in the cautions section. Regression test
+    of a user's re-test (the report kept silent about it); a check of wording, so no outside source."""
+    import shutil
+
+    from tests.report.demo_sections import sections
+
+    from linkage.seal import anchor_path
+
+    root, _ = site
+    assert anchor_path(root / "lots.db").exists()  # the store as ingested is anchored
+    shutil.copy(root / "lots.db", tmp_path / "copy.db")  # the anchor file left behind
+    out = tmp_path / "r.html"
+    result = CliRunner().invoke(cli, ["report", "--store", str(tmp_path / "copy.db"), "--models-dir",
+                                      str(root / "models"), "--spec", str(root / "exports" / "spec.toml"),
+                                      "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    missing = f"no anchor file {anchor_path(tmp_path / 'copy.db')}"
+    assert "caution, store:" in result.stderr and missing in result.stderr
+    found = sections(out.read_text(encoding="utf-8"))
+    assert f"Caution, lot store: {missing}" in found["glance"]["text"]
+    assert f"The lot store this report was made from: {missing}" in found["cautions"]["text"]
+    assert "compare the newest seal's hash" in found["glance"]["text"]
