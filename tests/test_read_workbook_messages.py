@@ -53,6 +53,35 @@ def test_a_table_sheet_in_a_workbook_named_after_another_table_is_refused_not_ig
     assert [p.file for p in ps] == ["ribbon.xlsx"] and "sheet 'Process'" in ps[0].rule
 
 
+def test_the_only_sheet_of_a_table_workbook_named_after_another_table_is_refused(tmp_path):
+    """ribbon.xlsx whose only sheet is 'Process' (holding ribbon rows) was read as ribbon without a word, while
+    the same sheet beside a 'Ribbon' sheet is refused (README, "Which sheet"): the sheet's name says one table,
+    the file's another, and which one is meant is not guessed. Regression test of a refusal and of what its
+    message names (read off the workbook built here), so no outside source."""
+    _workbook(tmp_path / "ribbon.xlsx", {"Process": [RIBBON, ["A", 1, 1.0, 1.5]]})
+    ps = _problems(read_folder, tmp_path, known_lots=[])
+    assert len(ps) == 1, [str(p) for p in ps]  # process is not also called missing: it may be that sheet
+    (p,) = ps
+    assert p.file == "ribbon.xlsx"
+    assert "only sheet 'Process' is named after the table 'process'" in p.rule
+    assert "read as the table 'ribbon'" in p.rule
+    assert "rename the sheet 'ribbon'" in p.rule and "save it as process.xlsx" in p.rule
+    # beside a process.csv, and read as one file (as 'linkage running' reads its samples), the same refusal
+    (tmp_path / "process.csv").write_text(",".join(PROCESS) + "\nA,9,2,5,20,1\n", encoding="utf-8")
+    assert [p.rule for p in _problems(read_folder, tmp_path, known_lots=[])] == [p.rule]
+    assert [p.rule for p in _problems(read_table, tmp_path / "ribbon.xlsx", "ribbon")] == [p.rule]
+
+
+@pytest.mark.parametrize("sheet", ["Sheet1", "RIBBON", " ribbon ", "notes"])
+def test_the_only_sheet_of_a_table_workbook_with_a_neutral_name_is_that_table(tmp_path, sheet):
+    """ribbon.xlsx with one sheet named after no other table (or after ribbon itself, in any case) is ribbon."""
+    _workbook(tmp_path / "ribbon.xlsx", {sheet: [RIBBON, ["A", 1, 1.0, 1.5]]})
+    (tmp_path / "process.csv").write_text(",".join(PROCESS) + "\nA,9,2,5,20,1\n", encoding="utf-8")
+    ingest = read_folder(tmp_path, known_lots=[])
+    assert ingest.tables["ribbon"]["envelope_density_g_cm3"].tolist() == [1.0]
+    assert read_table(tmp_path / "ribbon.xlsx", "ribbon")["envelope_density_g_cm3"].tolist() == [1.0]
+
+
 def test_a_table_workbook_with_its_own_sheet_only_still_reads(tmp_path):
     """The sheet named after the workbook's table is read in any case ('Ribbon' in ribbon.xlsx); a notes sheet
     beside it is a warning, never a refusal."""

@@ -133,6 +133,7 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
                                 f"{', '.join(f'{t}.csv' for t in TABLES)} (or .xlsx)"))
     tables, failed, lots_read, values_read = _read_tables(plan, mapping, workbooks, sources, problems, warnings)
     problems += _table_sheets_unread(unread, plan, failed)
+    failed |= _only_sheet_tables(plan, workbooks) - set(plan)
     unusual, unusual_records = _without_history({**values_read, **tables}, sources, mapping)
     if not accept_unusual:
         problems += unusual
@@ -176,6 +177,18 @@ def _table_sheets_unread(unread: list[tuple[str, str, str | None]], plan: dict, 
         if table not in plan:
             failed.add(table)
     return problems
+
+
+def _only_sheet_tables(plan: dict, workbooks: dict) -> set[str]:
+    """The tables named by the only sheet of a workbook named after another table (``Process`` in
+    ``ribbon.xlsx``, refused by :func:`linkage.read.workbook._table_sheet`): such a table may be there, so it
+    is not also called missing."""
+    named = set()
+    for table, (path, sheet, _) in plan.items():
+        sheets = workbooks[path][0].sheetnames if sheet is None and path in workbooks else []
+        if len(sheets) == 1 and (other := _norm_header(sheets[0]).lower()) in TABLES and other != table:
+            named.add(other)
+    return named
 
 
 def _with_cell_references(problems: list[Problem], sources: dict, frames: tuple[dict, ...]) -> list[Problem]:

@@ -9,7 +9,7 @@ from pathlib import Path
 from linkage import read as package
 from linkage.exceptions import InputError, Problem
 from linkage.read.raw import _is_missing, _norm_header, _Raw, _too_many_columns, _too_many_rows
-from linkage.schema import Table
+from linkage.schema import TABLES, Table
 
 
 def _open_workbook(path: Path, label: str):
@@ -47,11 +47,23 @@ def _table_sheet(values_wb, file: str, table: str) -> tuple[str, str]:
         raise InputError(_hidden_sheet(file, by_name[table]))
     if table in by_name:
         sheet = by_name[table]
+    elif len(sheets) == 1 and (other := _norm_header(sheets[0]).lower()) in TABLES:
+        raise InputError(_only_sheet_of_another_table(file, sheets[0], other, table))
     elif len(sheets) == 1:
         sheet = sheets[0]
     else:
         raise InputError(Problem(file, f"no sheet named '{table}' and more than one sheet ({', '.join(sheets)})"))
     return sheet, file if len(sheets) == 1 else f"{file} (sheet {sheet})"
+
+
+def _only_sheet_of_another_table(file: str, sheet: str, other: str, table: str) -> Problem:
+    """A workbook read as ``table`` (named after it) whose only sheet is named after the table ``other``
+    (``Process`` in ``ribbon.xlsx``): the sheet's name says one table, the file's another; which one its rows
+    are is not guessed."""
+    return Problem(file, f"its only sheet '{sheet}' is named after the table '{other}', but the workbook is read "
+                         f"as the table '{table}': which table its rows are is not guessed; rename the sheet "
+                         f"'{table}' (or Sheet1) if it holds {table} rows, or save it as {other}.xlsx if it holds "
+                         f"{other} rows")
 
 
 def _read_sheet(values_wb, formulas_wb, sheet: str, label: str) -> _Raw:
