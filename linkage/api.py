@@ -739,11 +739,10 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     with LotStore(store, create=False) as lot_store:
         tables = current_tables_of(lot_store, product)
         lots = lot_store.lots(product=product)
-        others = lot_store.other_products(product)  # said in the report, not shown
-        store_cautions = lot_store.cautions()  # printed on stderr, and stated in the report passed around
+        others, store_cautions = lot_store.other_products(product), lot_store.cautions()  # said in the report
     if not tables:
-        raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
-                                                                          else "") + "; nothing to report on")
+        of = f" of product {product}" if product else ""
+        raise InsufficientDataError(f"the store {store} holds no lots{of}; nothing to report on")
     table = assemble_table(tables, **_time_and_q(spec, model_time_point(chain)[0]))  # the model's time point
     out = Path(out) if out is not None else Path("reports") / f"report-{chain.model_id}.html"
     found = window.result if isinstance(window, Window) else window
