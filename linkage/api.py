@@ -178,7 +178,10 @@ def _recording(store, record: bool | None, action: str) -> bool:
       The commands pass it when ``--store`` or ``$LINKAGE_STORE`` names the store;
     - ``record=None`` (the default): recorded, and a store that does not exist is refused, except the default
       ``linkage.db`` (what a command without ``--store`` uses): without it the call runs, not recorded
-      (``recorded`` False; the command says so on stderr). ``store=None`` is no store: nothing recorded."""
+      (``recorded`` False; the command says so on stderr). ``store=None`` is no store: nothing recorded.
+
+    A store that will be recorded in but holds seals without its anchor file is refused here too
+    (:func:`_refuse_unanchored`, exit code 6): its record would be refused at the end, after the work."""
     if record is False:
         return False
     if store is None:
@@ -189,6 +192,7 @@ def _recording(store, record: bool | None, action: str) -> bool:
                              "record=False")
         return False
     if Path(store).exists():
+        _refuse_unanchored(store)
         return True
     if record is None and Path(store) == Path(DEFAULT_STORE):
         return False
@@ -407,9 +411,7 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
     from linkage.decide.bound import check_assurance
     from linkage.decide.window import find_window
 
-    recording = _recording(store, record, "window")  # before any work: a mistyped store writes nothing
-    if recording:  # recorded at the end: a store that refuses the record is refused before the work
-        _refuse_unanchored(store)
+    recording = _recording(store, record, "window")  # before any work: a store that would lose or refuse the record
     assurance = check_assurance(assurance)
     spec = _spec(spec)
     settings, bad = _given_settings(settings)
@@ -634,9 +636,7 @@ def whatif(values: Mapping[str, float | str], *, spec=None, store=DEFAULT_STORE,
     from linkage.decide.whatif import predict_whatif
     from linkage.exceptions import UsageError
 
-    recording = _recording(store, record, "predict")  # before any work: a mistyped store writes nothing
-    if recording:  # recorded at the end: a store that refuses the record is refused before the work
-        _refuse_unanchored(store)
+    recording = _recording(store, record, "predict")  # before any work: a store that would lose or refuse the record
     assurance = check_assurance(assurance)
     if lot is not None:
         from linkage.lotid import reader_spelling
@@ -674,9 +674,7 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
     from linkage.decide.whatif import CsvRows, predict_many, read_rows
     from linkage.lotid import reader_spelling
 
-    recording = _recording(store, record, "predict")  # before any work: a mistyped store writes nothing
-    if recording:  # recorded at the end: a store that refuses the record is refused before the work
-        _refuse_unanchored(store)
+    recording = _recording(store, record, "predict")  # before any work: a store that would lose or refuse the record
     if isinstance(lots, str):
         reader_spelling(lots)  # an id with an invisible character is refused before any work
     csv_lots: list[str | None] | None = None
