@@ -18,7 +18,8 @@ from linkage.read.lots import row_span, _visible, lot_key
 from linkage.read.mapping import UNITS, Mapping, _norm_unit, _suggest, read_mapping
 from linkage.read.raw import _norm_header
 from linkage.read.table import _build, bulk, read_table, with_cells
-from linkage.read.workbook import _hidden, _hidden_sheet, _open_workbook, _read_sheet, _table_sheet
+from linkage.read.workbook import (_hidden, _hidden_sheet, _only_sheet_table, _open_workbook, _read_sheet,
+                                   _table_sheet)
 from linkage.schema import TABLES
 from linkage.spec import Spec, read_spec
 
@@ -185,9 +186,10 @@ def _only_sheet_tables(plan: dict, workbooks: dict) -> set[str]:
     is not also called missing."""
     named = set()
     for table, (path, sheet, _) in plan.items():
-        sheets = workbooks[path][0].sheetnames if sheet is None and path in workbooks else []
-        if len(sheets) == 1 and (other := _norm_header(sheets[0]).lower()) in TABLES and other != table:
-            named.add(other)
+        if sheet is None and path in workbooks:
+            other = _only_sheet_table(workbooks[path][0].sheetnames, table)
+            if other is not None:
+                named.add(other)
     return named
 
 
@@ -271,7 +273,7 @@ def _planned_not_made(folder: Path, tables: dict[str, pd.DataFrame], known_lots)
     if not not_made:
         return []
     lots = [lot for _, lot in not_made]
-    named = ", ".join(lots[:5]) + (", ..." if len(lots) > 5 else "")
+    named = _first_five(lots)
     where = row_span([r for r, _ in not_made])
     return [Problem(process.attrs.get("file", "process.csv"),
                     f"{len(lots)} planned lot{'s' if len(lots) > 1 else ''} ({named}; {where}) "
@@ -279,6 +281,11 @@ def _planned_not_made(folder: Path, tables: dict[str, pd.DataFrame], known_lots)
                     "settings are no lot record; ingest a lot once it is made, with its settings as run and its "
                     "ribbon results (ribbon.csv beside process.csv), or take the rows of lots not made out of the "
                     "folder's tables", row=not_made[0][0], column="lot", value=lots[0])]
+
+
+def _first_five(names: list[str]) -> str:
+    """The first five names of a message's list, and ', ...' when there are more."""
+    return ", ".join(names[:5]) + (", ..." if len(names) > 5 else "")
 
 
 def _without_results(tname: str, df: pd.DataFrame, label: str) -> list[str]:
@@ -296,7 +303,7 @@ def _without_results(tname: str, df: pd.DataFrame, label: str) -> list[str]:
         return []
     rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
     lots = list(dict.fromkeys(df.loc[blank, "lot"].tolist()))
-    named = ", ".join(lots[:5]) + (", ..." if len(lots) > 5 else "")
+    named = _first_five(lots)
     return [f"{label}: {row_span([r for r, b in zip(rows, blank) if b])} (lot{'s' if len(lots) > 1 else ''} "
             f"{named}) hold no result, every cell but the key's and the settings' blank: stored as records "
             "without results; filling them in later adds to the stored lots (a revision without --reason); a "
@@ -409,7 +416,7 @@ def _unread_hint(table: str, unread_sheets: Iterable[tuple[str, str]]) -> str:
     others = [(f, s) for f, s in unread_sheets if _near_table(s) is None]
     if others:
         return ("; sheets not read (only a sheet named after a table is): "
-                + ", ".join(f"{f} '{s}'" for f, s in others[:5]) + (", ..." if len(others) > 5 else ""))
+                + _first_five([f"{f} '{s}'" for f, s in others]))
     return ""
 
 

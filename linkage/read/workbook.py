@@ -47,13 +47,20 @@ def _table_sheet(values_wb, file: str, table: str) -> tuple[str, str]:
         raise InputError(_hidden_sheet(file, by_name[table]))
     if table in by_name:
         sheet = by_name[table]
-    elif len(sheets) == 1 and (other := _norm_header(sheets[0]).lower()) in TABLES:
+    elif (other := _only_sheet_table(sheets, table)) is not None:
         raise InputError(_only_sheet_of_another_table(file, sheets[0], other, table))
     elif len(sheets) == 1:
         sheet = sheets[0]
     else:
         raise InputError(Problem(file, f"no sheet named '{table}' and more than one sheet ({', '.join(sheets)})"))
     return sheet, file if len(sheets) == 1 else f"{file} (sheet {sheet})"
+
+
+def _only_sheet_table(sheets: list[str], table: str) -> str | None:
+    """The other table the only sheet of a workbook read as ``table`` is named after (``Process`` in
+    ``ribbon.xlsx``), or None (several sheets, or one named after ``table`` or after no table)."""
+    other = _norm_header(sheets[0]).lower() if len(sheets) == 1 else None
+    return other if other in TABLES and other != table else None
 
 
 def _only_sheet_of_another_table(file: str, sheet: str, other: str, table: str) -> Problem:
