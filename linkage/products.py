@@ -75,11 +75,15 @@ def train_note(counts: list[Count]) -> str | None:
             "linkage train --product NAME")
 
 
+def counts_text(counts: list[Count]) -> str:
+    """"'NP-9 50 mg': 8, no product: 4": products and their lots, lots without a product name as such."""
+    return ", ".join(f"{p!r}: {n}" if p is not None else f"no product: {n}" for p, n in counts)
+
+
 def others_text(counts: list[Count]) -> str:
     """'12 lots of other products ('NP-9 50 mg': 8, no product: 4)'."""
     total = sum(n or 0 for _, n in counts)
-    parts = ", ".join(f"{p!r}: {n}" if p is not None else f"no product: {n}" for p, n in counts)
-    return f"{total} lot{'' if total == 1 else 's'} of other products ({parts})"
+    return f"{total} lot{'' if total == 1 else 's'} of other products ({counts_text(counts)})"
 
 
 def other_counts(store_counts: dict, product: str | None) -> list[Count]:

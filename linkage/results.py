@@ -853,13 +853,15 @@ def _audit_outcome(entry: dict) -> tuple[str, str | None]:
 def audit_text(rows: list[dict], lot: str | None = None) -> str:
     """``linkage audit``'s table: a header, one line per entry with what it came to (``outcome``) and, where the
     entry has one, the reason given (an ingest's ``--reason``, a forced promotion's)."""
+    from linkage.store import given_reason
+
     if not rows:
         return "No audit entries" + (f" for lot {lot}." if lot else ".")
     made = []
     for r in rows:
         outcome, model = _audit_outcome(r)
         reason = ((r.get("inputs") or {}) if isinstance(r.get("inputs"), dict) else {}).get("reason")
-        made.append((r, outcome, model, reason.strip() if isinstance(reason, str) else ""))
+        made.append((r, outcome, model, given_reason(reason) or ""))
     width = min(max(len("outcome"), *(len(m[1]) for m in made)), 90)
     lines = [f"{'id':>5}  {'at (UTC)':<29}  {'user':<12} {'action':<9} {'lot':<12} {'model':<29} "
              f"{'outcome':<{width}}  reason".rstrip()]

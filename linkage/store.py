@@ -1370,7 +1370,7 @@ def refuse_unanchored(path) -> None:
     if path is None or not Path(path).is_file() or Path(path).stat().st_size == 0:
         return
     with LotStore(path, create=False, for_writing=True):
-        pass
+        pass  # opening for writing is the check: LotStore raises for such a store and closes it
 
 
 def change_text(ch: dict) -> str:

@@ -187,7 +187,9 @@ class Transfer:
                  + (" of " + ", ".join(f"{k} ({v['lots']})" for k, v in p.compactors.items()) if p.compactors
                     else "")]
         if len(p.products) > 1:  # one K and one C for every product's lots: said, as train says it of a model
-            named = ", ".join(f"{k!r}: {n}" if k else f"no product: {n}" for k, n in p.products.items())
+            from linkage.products import counts_text
+
+            named = counts_text([(k or None, n) for k, n in p.products.items()])
             lines.append(f"  !! fitted to the lots of several products together ({named}); for one product's "
                          "powder, give --product NAME")
         if self.kind == "window":

@@ -253,10 +253,11 @@ def _whatif_bytes(path: Path, meta: dict) -> bytes | None:
     if recorded is None:
         return None
     data = _read_plain(path / WHATIF, "what-if file")
-    if _sha256(data) != recorded:
+    found = _sha256(data)
+    if found != recorded:
         raise ModelIntegrityError(
             f"{path / WHATIF} does not match the SHA-256 its metadata records for it (whatif_artifact_sha256 in "
-            f"{METADATA}: recorded {recorded[:16]}…, found {_sha256(data)[:16]}…): it was changed after the model "
+            f"{METADATA}: recorded {recorded[:16]}…, found {found[:16]}…): it was changed after the model "
             "was saved. Refused.")
     return data
 
