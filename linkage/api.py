@@ -216,7 +216,8 @@ def _refuse_unanchored(store) -> None:
 # --------------------------------------------------------------------------- the store
 
 
-def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unusual: bool = False) -> Ingested:
+def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unusual: bool = False,
+           preview: bool = False) -> Ingested:
     """Check every file in ``folder`` and add its lots to the lot store at
     ``store`` (created on the first valid ingest) in one transaction. Every
     problem of the folder is raised at once (``InputError``), and then
@@ -230,7 +231,12 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
     :mod:`linkage.plausible`), or one no measurement of its kind holds
     (sieve apertures below the smallest test sieve's: a stack in mm), is
     refused unless ``accept_unusual`` (with a ``reason``). The store logs
-    the ingest in its audit trail."""
+    the ingest in its audit trail.
+
+    ``preview``: what this ingest would do, writing nothing (see
+    :func:`_preview_ingest`): the same checks and refusals, raised alike,
+    and a result with ``preview`` True, no ``ingest_id`` and the revised
+    lots' differences (``result.changes``)."""
     from linkage.exceptions import UsageError
     from linkage.read import read_folder
     from linkage.store import ACCEPT_NEEDS_REASON, LotStore, given_reason
@@ -238,8 +244,11 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
     if accept_unusual and given_reason(reason) is None:
         raise UsageError(ACCEPT_NEEDS_REASON)  # before a first ingest creates the store
     folder, store = Path(folder), Path(store)
+    exists = store.exists() and store.stat().st_size > 0  # an empty file is what a killed first ingest leaves
+    if preview:
+        return _preview_ingest(folder, store, exists, reason=reason, accept_unusual=accept_unusual)
     known: list[str] = []
-    if store.exists() and store.stat().st_size > 0:  # an empty file is what a killed first ingest leaves
+    if exists:
         with LotStore(store, create=False, for_writing=True) as existing:  # a store without its anchor: refused
             known = existing.lot_ids()
     # the store is created only for valid input; values refused without history (a sieve stack in mm) are
@@ -248,6 +257,37 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
     with LotStore(store, for_writing=True) as lot_store:
         result = lot_store.ingest(checked, reason=reason, accept_unusual=accept_unusual)
     return Ingested(store=store, folder=folder, result=result, sources=checked.sources, spec=checked.spec)
+
+
+def _preview_ingest(folder: Path, store: Path, exists: bool, *, reason: str | None,
+                    accept_unusual: bool) -> Ingested:
+    """:func:`ingest` with ``preview``: the folder read as the ingest reads it, and the ingest decided by the
+    store's own code (``LotStore.ingest(preview=True)``) on the store opened for reading only, so that nothing
+    is written: not the store, not its anchor file, not the audit trail. A store without its anchor file is
+    read with the caution of every reading command (the result's ``cautions`` say that the ingest itself would
+    be refused). A store that does not exist is not created: the ingest is decided against an empty store in a
+    temporary folder, removed after, as a first ingest would be decided."""
+    import tempfile
+
+    from linkage.read import read_folder
+    from linkage.store import LotStore
+
+    with contextlib.ExitStack() as stack:
+        if exists:
+            lot_store = stack.enter_context(LotStore(store, create=False, read_only=True))
+        else:
+            if store.is_dir() or not store.parent.is_dir():
+                LotStore(store)  # raises the refusal of a first ingest (StorePathError) before it makes anything
+            scratch = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="linkage-preview-")))
+            lot_store = stack.enter_context(LotStore(scratch / store.name))
+        checked = read_folder(folder, known_lots=lot_store.lot_ids(), accept_unusual=accept_unusual)
+        result = lot_store.ingest(checked, reason=reason, accept_unusual=accept_unusual, preview=True)
+        cautions = lot_store.cautions()
+        if lot_store.unanchored is not None:
+            cautions.append("without --preview this ingest is refused (exit code 6) until the store is anchored "
+                            f"again: linkage verify --store {store} --reanchor --reason TEXT")
+    return Ingested(store=store, folder=folder, result=result, sources=checked.sources, spec=checked.spec,
+                    cautions=cautions)
 
 
 def assemble(store=DEFAULT_STORE, *, product: str | None = None, spec=None,
@@ -1026,9 +1066,10 @@ class Workspace:
         self.store = Path(self.store)
         self.models_dir = Path(self.models_dir)
 
-    def ingest(self, folder, *, reason: str | None = None, accept_unusual: bool = False) -> Ingested:
+    def ingest(self, folder, *, reason: str | None = None, accept_unusual: bool = False,
+               preview: bool = False) -> Ingested:
         """See :func:`ingest`."""
-        return ingest(folder, self.store, reason=reason, accept_unusual=accept_unusual)
+        return ingest(folder, self.store, reason=reason, accept_unusual=accept_unusual, preview=preview)
 
     def assemble(self, **kwargs) -> pd.DataFrame:
         """See :func:`assemble`."""

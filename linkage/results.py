@@ -83,10 +83,13 @@ class Ingested(_Result):
     sources: dict[str, dict]
     #: the folder's spec.toml, when it has one
     spec: Spec | None = None
+    #: a preview's cautions about the store (a missing anchor file: the ingest itself would be refused)
+    cautions: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict:
-        """What ``linkage ingest --json`` prints."""
-        return {**self.result.to_dict(), "store": str(self.store), "sources": self.sources}
+        """What ``linkage ingest --json`` prints (a preview's: also ``cautions``)."""
+        out = {**self.result.to_dict(), "store": str(self.store), "sources": self.sources}
+        return {**out, "cautions": self.cautions} if self.result.preview else out
 
     def summary(self) -> pd.DataFrame:
         """One row per lot of the folder: ``status`` new, revised or unchanged; ``revision`` of a revised lot
@@ -102,7 +105,8 @@ class Ingested(_Result):
 
     def text(self) -> str:
         r = self.result
-        lines = [f"Ingest {r.ingest_id} into {self.store} from {self.folder}:"]
+        lines = [f"Preview of an ingest into {self.store} from {self.folder} (nothing was written):" if r.preview
+                 else f"Ingest {r.ingest_id} into {self.store} from {self.folder}:"]
         lines += [f"  {src['file']:<28} {_rows(src['rows'])}" for src in self.sources.values()]
         for label, lots in (("New", r.lots_new), ("Revised", r.lots_revised), ("Unchanged", r.lots_unchanged)):
             lines.append(f"{label} lots ({len(lots)}): {', '.join(lots) if lots else '-'}")
@@ -111,11 +115,28 @@ class Ingested(_Result):
                     ("added to, no stored value changed", r.lots_added_to),
                     ("stored values changed or removed", r.lots_changed))]
         if not r.changed:
-            lines.append("Nothing changed: every lot is as stored.")
+            lines.append("Nothing changed: every lot is as stored." if not r.preview
+                         else "Nothing would change: every lot is as stored.")
         if r.warnings:
             lines.append("Warnings:")
             lines += [f"  - {w}" for w in r.warnings]
-        return "\n".join(lines)
+        lines += _unusual_lines(r.accepted_unusual)
+        return "\n".join(lines + (self._preview_lines() if r.preview else []))
+
+    def _preview_lines(self) -> list[str]:
+        """A preview's differences per revised lot, its cautions, and that nothing was written."""
+        from linkage.store import change_text
+
+        r = self.result
+        lines = ["What would change (old -> new):"] if r.changes else []
+        for lot, listed in r.changes.items():
+            lines.append(f"  lot {lot} ({'stored values changed' if listed['revision'] == 'changed' else 'added to'}):")
+            lines += [f"    {change_text(ch)}" for ch in listed["changes"]]
+            lines += [f"    ... and {listed['more']} more change(s)"] if listed["more"] else []
+        lines += [f"  ... and {r.more_lots} more revised lot(s), not listed"] if r.more_lots else []
+        lines += [f"Caution: {c}" for c in self.cautions]
+        return lines + ["Nothing was written: the store, its anchor file and its audit trail are as they were. "
+                        "The same command without --preview ingests the folder."]
 
     def __repr__(self) -> str:
         r = self.result
@@ -123,6 +144,17 @@ class Ingested(_Result):
                 f"{len(r.lots_revised)} revised ({len(r.lots_added_to)} only added to), {len(r.lots_unchanged)} "
                 "unchanged lots"
                 + (f"; {len(r.warnings)} warning(s)" if r.warnings else "") + ">")
+
+
+def _unusual_lines(records: list[dict], shown: int = 5) -> list[str]:
+    """The unusual values an ingest takes deliberately (``--accept-unusual``), the first ``shown`` of them."""
+    if not records:
+        return []
+    lines = [f"Unusual values taken deliberately ({len(records)}):"]
+    lines += [f"  - {rec['file']}, row {rec['row']}, lot {rec['lot']}, {rec['column']} {rec['value']:g}"
+              + (f" (recent lots around {rec['typical']:.4g})" if rec.get("typical") is not None else "")
+              for rec in records[:shown]]
+    return lines + ([f"  ... and {len(records) - shown} more"] if len(records) > shown else [])
 
 
 # --------------------------------------------------------------------------- train

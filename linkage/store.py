@@ -265,13 +265,79 @@ class IngestResult:
     warnings: list[str] = field(default_factory=list)
     lots_added_to: list[str] = field(default_factory=list)
     lots_changed: list[str] = field(default_factory=list)
+    #: the unusual values taken deliberately (``accept_unusual``), as the audit trail records them
+    accepted_unusual: list[dict] = field(default_factory=list)
+    #: True for a preview (``LotStore.ingest(..., preview=True)``): nothing was written, ``ingest_id`` is None
+    preview: bool = False
+    #: a preview's differences of its first :data:`PREVIEW_LOTS` revised lots, in their order: lot ->
+    #: {"revision": "added to" or "changed", "changes": the first :data:`PREVIEW_CHANGES` differences
+    #: (:func:`_diff`), "more": how many more}
+    changes: dict[str, dict] = field(default_factory=dict)
+    #: a preview's revised lots whose differences are not listed in ``changes``
+    more_lots: int = 0
 
     @property
     def changed(self) -> bool:
         return bool(self.lots_new or self.lots_revised)
 
     def to_dict(self) -> dict:
-        return asdict(self)
+        """Every field; ``changes`` and ``more_lots`` only for a preview."""
+        out = asdict(self)
+        if not self.preview:
+            del out["changes"], out["more_lots"]
+        return out
+
+
+#: a preview lists the differences of at most this many revised lots, and of each at most
+#: :data:`PREVIEW_CHANGES` (a listing a person reads; the counts say how many more)
+PREVIEW_LOTS = 20
+PREVIEW_CHANGES = 10
+
+
+@dataclass
+class _IngestPlan:
+    """What an ingest would write: made by :meth:`LotStore._plan` from the ingest and the stored lots (under
+    the write lock for an ingest, in one read snapshot for a preview), then written by
+    :meth:`LotStore._commit`, so that a preview and an ingest decide alike."""
+
+    ingest: Ingest
+    reason: str | None
+    prepared: dict = field(default_factory=dict)
+    sources: dict = field(default_factory=dict)
+    products: dict = field(default_factory=dict)
+    current: dict = field(default_factory=dict)
+    new: list = field(default_factory=list)
+    revised: list = field(default_factory=list)
+    unchanged: list = field(default_factory=list)
+    changes: dict = field(default_factory=dict)
+    added_to: list = field(default_factory=list)
+    changed: list = field(default_factory=list)
+    shown: dict = field(default_factory=dict)
+    unusual_records: list = field(default_factory=list)
+    warnings: list = field(default_factory=list)
+
+    @classmethod
+    def of(cls, ingest: Ingest, reason: str | None) -> _IngestPlan:
+        """The part that needs no store: each lot's tables encoded, the sources, the products sent."""
+        products = {}
+        process = ingest.tables.get("process")
+        if process is not None:
+            for lot, product in zip(process["lot"].tolist(), process["product"].tolist()):
+                products[lot] = None if isinstance(product, float) else product
+        return cls(ingest, given_reason(reason), _prepare(ingest),
+                   {t: ingest.sources.get(t) or _memory_source(t, df) for t, df in ingest.tables.items()}, products)
+
+    def result(self, ingest_id: int | None, *, preview: bool = False) -> IngestResult:
+        out = IngestResult(self.new, self.revised, self.unchanged, ingest_id, self.warnings, self.added_to,
+                           self.changed, self.unusual_records, preview)
+        if preview:
+            listed = [lot for lot in self.revised if lot in self.shown][:PREVIEW_LOTS]
+            changed = set(self.changed)
+            out.changes = {lot: {"revision": "changed" if lot in changed else "added to",
+                                 "changes": self.shown[lot][:PREVIEW_CHANGES],
+                                 "more": max(len(self.shown[lot]) - PREVIEW_CHANGES, 0)} for lot in listed}
+            out.more_lots = len(self.revised) - len(listed)
+        return out
 
 
 def _prepare(ingest: Ingest) -> dict[str, dict[str, LotTable]]:
@@ -384,10 +450,15 @@ class LotStore:
     (:class:`StoreIntegrityError`, exit code 6) until :meth:`reanchor`.
     ``for_writing=True`` (a command that will write) refuses such a store at
     once, before the command does any work.
+
+    ``read_only=True`` opens an existing store for reading only although its
+    file could be written (an ingest's preview): SQLite refuses every change
+    (``PRAGMA query_only``), and a store of an earlier schema is read as it
+    is, not upgraded.
     """
 
     def __init__(self, path: Path | str = "linkage.db", *, create: bool = True,
-                 busy_timeout_s: float = BUSY_TIMEOUT_S, for_writing: bool = False):
+                 busy_timeout_s: float = BUSY_TIMEOUT_S, for_writing: bool = False, read_only: bool = False):
         self.path = Path(path)
         self.busy_timeout_s = busy_timeout_s
         #: the newest seal ({"id", "sha256"}) of a store with seals but no anchor file; None otherwise
@@ -407,13 +478,16 @@ class LotStore:
         #: a store on a read-only file system (or a file this account cannot write) is opened for reading only:
         #: immutable, so SQLite neither writes its -shm file nor expects another writer (sqlite.org, "URI
         #: filenames": immutable=1); every command that only reads works, and a write is refused clearly
-        self.read_only = exists and not (os.access(self.path, os.W_OK) and os.access(self.path.parent, os.W_OK))
+        writable = os.access(self.path, os.W_OK) and os.access(self.path.parent, os.W_OK)
+        self.read_only = exists and (read_only or not writable)
         try:
-            if self.read_only:
+            if self.read_only and not writable:
                 uri = f"{self.path.resolve().as_uri()}?mode=ro&immutable=1"
                 self._conn = sqlite3.connect(uri, uri=True, timeout=busy_timeout_s, isolation_level=None)
             else:
                 self._conn = sqlite3.connect(self.path, timeout=busy_timeout_s, isolation_level=None)
+                if self.read_only:  # a writable file read only: closed as a writer closes it (no -wal left)
+                    self._conn.execute("PRAGMA query_only = ON")
         except sqlite3.Error as exc:
             raise StoreError(f"cannot open the lot store {self.path}: {exc}") from None
         # the reader's lot identity (linkage.lotid.lot_key) in SQL: a lot given on the command line finds its entries
@@ -681,71 +755,99 @@ class LotStore:
         return found[0][0] if len(found) == 1 else None  # two stored lots of one identity (an older store): neither
 
     def ingest(self, ingest: Ingest, user: str | None = None, reason: str | None = None, *,
-               accept_unusual: bool = False) -> IngestResult:
+               accept_unusual: bool = False, preview: bool = False) -> IngestResult:
         """Store a checked folder as one transaction; see the module notes.
 
         Raises InputError (nothing written) when results name a lot with no
         process record in the folder or the store, or when an empty store
         gets a folder without every required table.
+
+        ``preview``: decide everything the ingest would (the same checks,
+        comparisons with the stored lots and refusals, raised alike) in one
+        read snapshot, and write nothing; the result has ``preview`` True, no
+        ``ingest_id``, and the differences of the revised lots (``changes``).
         """
         with _read.bulk():
+            if preview:
+                return self._preview(ingest, reason, accept_unusual)
             return self._ingest(ingest, user, reason, accept_unusual)
 
     def _ingest(self, ingest: Ingest, user: str | None, reason: str | None, accept_unusual: bool) -> IngestResult:
-        user = user or current_user()
-        prepared = _prepare(ingest)
-        sources = {t: ingest.sources.get(t) or _memory_source(t, df) for t, df in ingest.tables.items()}
-        order = ingest.lots()
-        process = ingest.tables.get("process")
-        products = {}
-        if process is not None:
-            for lot, product in zip(process["lot"].tolist(), process["product"].tolist()):
-                products[lot] = None if isinstance(product, float) else product
-        reason = given_reason(reason)
+        plan = _IngestPlan.of(ingest, reason)  # before the write lock: it needs no store
         with self._write() as c:
-            known = {r[0] for r in c.execute("SELECT lot FROM lots")}
-            problems = _read.cross_check(ingest, known)
-            if problems:
-                raise InputError(problems)
-            current = self._current_links(c, [lot for lot in order if lot in known])
-            new, revised, unchanged, changes = _classify(prepared, order, current)
-            added_to, changed, shown = self._split_revised(c, revised, changes, current, prepared)
-            product_of = {lot: products[lot] if lot in products else current.get(lot, {}).get("product")
-                          for lot in order}
-            unusual_records = self._refuse(c, ingest, product_of, (changed, shown), reason, accept_unusual)
-            warnings = list(ingest.warnings)
-            for lot in revised:
-                old = current[lot]["product"]
-                if lot in products and products[lot] != old:
-                    warnings.append(f"lot {lot}: product changes from {old or '(none)'} to "
-                                    f"{products[lot] or '(none)'}")
-            at, folder, warnings_json = _now(), None if ingest.folder is None else str(ingest.folder), _json(warnings)
-            head = [at, user, folder, len(new), len(revised), len(unchanged), warnings_json, reason]
-            ingest_id = c.execute("INSERT INTO ingests (at, user, folder, lots_new, lots_revised, lots_unchanged, "
-                                  "warnings_json, reason) VALUES (?, ?, ?, ?, ?, ?, ?, ?)", head).lastrowid
-            files = [(tname, src["file"], src["sha256"], src["rows"]) for tname, src in sources.items()]
-            files += [(None, src["file"], src["sha256"], None) for src in ingest.other_sources.values()]
-            c.executemany("INSERT INTO ingest_files VALUES (?, ?, ?, ?, ?)", [(ingest_id, *f) for f in files])
-            c.executemany("INSERT INTO lots VALUES (?, ?)", [(lot, ingest_id) for lot in new])
-            written, revisions, revision_tables = self._write_revisions(c, ingest_id, new + revised, changes, current,
-                                                                        prepared, sources, products)
-            result = IngestResult(new, revised, unchanged, ingest_id, warnings, added_to, changed)
-            _seal.seal(c, _seal.INGEST, ingest_id,
-                       _ingest_sha256([ingest_id, *head], files, new, written, revisions, revision_tables))
-            self._log(c, "ingest", user, None, None,
-                      {"folder": None if ingest.folder is None else str(ingest.folder),
-                       "files": {t: s["file"] for t, s in sources.items()}, "reason": reason,
-                       "accepted_unusual": unusual_records},
-                      {"ingest_id": ingest_id, "new": new, "revised": revised, "unchanged": len(unchanged),
-                       "added_to": added_to})
+            self._plan(c, plan, accept_unusual)
+            result = self._commit(c, plan, user or current_user())
         return result
 
+    def _preview(self, ingest: Ingest, reason: str | None, accept_unusual: bool) -> IngestResult:
+        """What :meth:`_ingest` would do, decided by the same :meth:`_plan` in one read snapshot; nothing
+        written (a store opened ``read_only`` cannot be)."""
+        plan = _IngestPlan.of(ingest, reason)
+        try:
+            with self._snapshot():
+                self._plan(self._conn, plan, accept_unusual, show=PREVIEW_LOTS)
+        except sqlite3.DatabaseError as exc:
+            raise self._error(exc) from None
+        return plan.result(None, preview=True)
+
+    def _plan(self, c, plan: _IngestPlan, accept_unusual: bool, *, show: int = 0) -> None:
+        """Decide the ingest against the stored lots: the checks across the folder and the store, each lot new,
+        revised (added to or changed) or unchanged, and the refusals (:meth:`_refuse`); fills ``plan``.
+        ``show``: the differences of at least this many revised lots are kept in ``plan.shown`` (a preview's)."""
+        ingest, order = plan.ingest, plan.ingest.lots()
+        known = {r[0] for r in c.execute("SELECT lot FROM lots")}
+        problems = _read.cross_check(ingest, known)
+        if problems:
+            raise InputError(problems)
+        current = plan.current = self._current_links(c, [lot for lot in order if lot in known])
+        plan.new, plan.revised, plan.unchanged, plan.changes = _classify(plan.prepared, order, current)
+        plan.added_to, plan.changed, plan.shown = self._split_revised(c, plan.revised, plan.changes, current,
+                                                                      plan.prepared, show)
+        products = plan.products
+        product_of = {lot: products[lot] if lot in products else current.get(lot, {}).get("product")
+                      for lot in order}
+        first = {lot: plan.shown[lot] for lot in plan.changed[:3]}  # the refusal names the first few changed lots
+        plan.unusual_records = self._refuse(c, ingest, product_of, (plan.changed, first), plan.reason,
+                                            accept_unusual)
+        plan.warnings = list(ingest.warnings)
+        for lot in plan.revised:
+            old = current[lot]["product"]
+            if lot in products and products[lot] != old:
+                plan.warnings.append(f"lot {lot}: product changes from {old or '(none)'} to "
+                                     f"{products[lot] or '(none)'}")
+
+    def _commit(self, c, plan: _IngestPlan, user: str) -> IngestResult:
+        """Write what :meth:`_plan` decided (inside the write transaction that decided it): the ingest, its
+        files, lots, lot tables, revisions, its seal and its audit entry."""
+        ingest, sources, reason = plan.ingest, plan.sources, plan.reason
+        new, revised, unchanged = plan.new, plan.revised, plan.unchanged
+        at, folder, warnings_json = _now(), None if ingest.folder is None else str(ingest.folder), _json(plan.warnings)
+        head = [at, user, folder, len(new), len(revised), len(unchanged), warnings_json, reason]
+        ingest_id = c.execute("INSERT INTO ingests (at, user, folder, lots_new, lots_revised, lots_unchanged, "
+                              "warnings_json, reason) VALUES (?, ?, ?, ?, ?, ?, ?, ?)", head).lastrowid
+        files = [(tname, src["file"], src["sha256"], src["rows"]) for tname, src in sources.items()]
+        files += [(None, src["file"], src["sha256"], None) for src in ingest.other_sources.values()]
+        c.executemany("INSERT INTO ingest_files VALUES (?, ?, ?, ?, ?)", [(ingest_id, *f) for f in files])
+        c.executemany("INSERT INTO lots VALUES (?, ?)", [(lot, ingest_id) for lot in new])
+        written, revisions, revision_tables = self._write_revisions(c, ingest_id, new + revised, plan.changes,
+                                                                    plan.current, plan.prepared, sources,
+                                                                    plan.products)
+        _seal.seal(c, _seal.INGEST, ingest_id,
+                   _ingest_sha256([ingest_id, *head], files, new, written, revisions, revision_tables))
+        self._log(c, "ingest", user, None, None,
+                  {"folder": folder, "files": {t: s["file"] for t, s in sources.items()}, "reason": reason,
+                   "accepted_unusual": plan.unusual_records},
+                  {"ingest_id": ingest_id, "new": new, "revised": revised, "unchanged": len(unchanged),
+                   "added_to": plan.added_to})
+        return plan.result(ingest_id)
+
     def _split_revised(self, c, lots: list[str], changes: dict[str, list[str]], current: dict,
-                       prepared: dict) -> tuple[list[str], list[str], dict[str, list[dict]]]:
+                       prepared: dict, show: int = 0) -> tuple[list[str], list[str], dict[str, list[dict]]]:
         """The revised ``lots`` as those only added to and those whose stored values change (:func:`adds_only`
         of the differences between each lot's stored revision and what the ingest sends, over the tables it
-        changes), and the differences (:func:`_diff`, as ``history`` shows them) of the first few changed lots,
-        for the refusal. Only those lot tables' stored rows are read, checked against their row hashes."""
+        changes), and the differences (:func:`_diff`, as ``history`` shows them) of the first three changed
+        lots, for the refusal, and of the first ``show`` revised lots (a preview's). Only those lot tables'
+        stored rows are read, checked against their row hashes."""
         stored_ids = {(lot, t): current[lot]["tables"][t][0] for lot in lots for t in changes[lot]
                       if t in current[lot]["tables"]}
         stored = self._stored_rows(c, list(stored_ids.values()))
@@ -754,11 +856,9 @@ class LotStore:
         for lot in lots:
             pairs = [(tname, stored[stored_ids[lot, tname]] if (lot, tname) in stored_ids else None, sent[lot, tname])
                      for tname in changes[lot]]
-            if all(_only_adds(*pair) for pair in pairs):
-                added_to.append(lot)
-                continue
-            changed.append(lot)
-            if len(shown) < 3:
+            adds = all(_only_adds(*pair) for pair in pairs)
+            (added_to if adds else changed).append(lot)
+            if (not adds and len(changed) <= 3) or len(shown) < show:
                 shown[lot] = [ch for pair in pairs for ch in _diff(*pair)]
         return added_to, changed, shown
 

@@ -10,7 +10,8 @@ from pathlib import Path
 import click
 
 from linkage.cli.common import (FiniteFloat, check_output, handle_errors, json_option, models_dir_option,
-                                store_option)
+                                store_option, tell_progress)
+from linkage.exceptions import LinkageError
 from linkage.results import _rows
 from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
 
@@ -26,9 +27,14 @@ from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
               help="Take values far from the product's recent lots deliberately (refused otherwise as a likely unit "
                    "mistake), and sieve apertures below the smallest test sieve's (20 um; a stack in mm); needs "
                    "--reason; each value is recorded in the audit trail.")
+@click.option("--preview", is_flag=True,
+              help="Write nothing (not the store, its anchor file or its audit trail; a store that does not exist "
+                   "is not created): run every check and comparison of the ingest and say what it would do, with "
+                   "each revised lot's changes (old -> new). Same output, refusals and exit code as the ingest, "
+                   "with --reason and --accept-unusual as given.")
 @json_option
 @handle_errors
-def ingest(folder, store, reason, accept_unusual, as_json):
+def ingest(folder, store, reason, accept_unusual, preview, as_json):
     """Check every file in FOLDER and add its lots to the store.
 
     FOLDER holds one file a table (process.csv, ribbon.csv, granules.csv,
@@ -50,15 +56,27 @@ def ingest(folder, store, reason, accept_unusual, as_json):
     On any problem every problem is listed (file, row, column, value, rule),
     nothing is written and the exit code is 2.
 
+    --preview says what the ingest would do and writes nothing: the same
+    checks, refusals and exit code (0: it would go through; 2: bad input,
+    or it would need --reason or --accept-unusual), and each revised lot's
+    changes; a pre-check a script can run before the ingest.
+
     \b
     Example:
       linkage ingest lab_exports/2024-05
       linkage ingest lab_exports/2024-05 --store site.db --json
+      linkage ingest corrections/ --preview
       linkage ingest corrections/ --reason "DEV-2024-031: envelope density re-measured"
     """
     from linkage.api import ingest as run_ingest
 
-    result = run_ingest(folder, store, reason=reason, accept_unusual=accept_unusual)
+    try:
+        result = run_ingest(folder, store, reason=reason, accept_unusual=accept_unusual, preview=preview)
+    except LinkageError:
+        if preview:
+            tell_progress("Preview: the ingest would be refused as follows, with the same exit code; nothing was "
+                          "written.")
+        raise
     if as_json:
         click.echo(json.dumps(result.to_dict(), indent=2))
         return

@@ -1,0 +1,188 @@
+"""``linkage ingest --preview``: what an ingest would do, with nothing written.
+
+The preview runs the ingest's own decisions (``LotStore._plan``) in a read snapshot of a store opened for
+reading only. What is checked here is that the preview agrees with the ingest that follows it on the same
+folder (counts, lots, refusals, exit codes, the differences ``history`` then shows) and that it writes nothing
+(every file beside the store hashed before and after). These are regression tests of the project's own
+contract: the reference is the real ingest itself, so they need no outside source.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from pathlib import Path
+
+import pytest
+
+from linkage import api
+from linkage.exceptions import InputError, StorePathError, UsageError
+from linkage.store import PREVIEW_CHANGES, PREVIEW_LOTS, LotStore
+from tests.reliability.helpers import run_cli
+from tests.reliability.test_plausible import _history_and_new_lot, _set
+from tests.test_store import folder
+from tests.test_store_migration import _corrected, v2  # noqa: F401 (v2: a fixture)
+from tests.test_store_stages import PROCESS, RIBBON, TABLETS
+
+
+def _files(where: Path) -> dict[str, str]:
+    """Every file in ``where`` (the store, its -wal and -shm while open, its anchor file), name -> SHA-256."""
+    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in sorted(where.iterdir()) if p.is_file()}
+
+
+@pytest.fixture
+def stored(tmp_path):
+    """A store of lots A and B (process, ribbon), in a folder of its own."""
+    (tmp_path / "db").mkdir()
+    store = tmp_path / "db" / "lots.db"
+    api.ingest(folder(tmp_path, "first", process=PROCESS, ribbon=RIBBON), store)
+    return store
+
+
+def _mixed(tmp_path: Path) -> Path:
+    """A's ribbon gains a replicate (added to), B's roll force changes (changed), C is new, tablets for all."""
+    process = PROCESS.replace("B,P1,10.0", "B,P1,10.4") + "C,P1,11.0,2.2,5,20,1.0\n"
+    ribbon = RIBBON + "A,3,1.06,1.50,\nC,1,1.12,1.50,\n"
+    return folder(tmp_path, "mixed", process=process, ribbon=ribbon, tablets=TABLETS + "C,11,88,83.0\n")
+
+
+def test_the_preview_writes_nothing_and_says_what_the_ingest_then_does(tmp_path, stored):
+    path = _mixed(tmp_path)
+    before = _files(stored.parent)
+    preview = api.ingest(path, stored, reason="DEV-7: roll force re-read", preview=True)
+    assert _files(stored.parent) == before  # the store, its anchor file and the audit trail: byte for byte
+    real = api.ingest(path, stored, reason="DEV-7: roll force re-read")
+    p, r = preview.result, real.result
+    assert p.preview and p.ingest_id is None and not r.preview and r.ingest_id == 2
+    for key in ("lots_new", "lots_revised", "lots_unchanged", "lots_added_to", "lots_changed", "warnings",
+                "accepted_unusual"):
+        assert getattr(p, key) == getattr(r, key), key
+    assert (p.lots_new, p.lots_added_to, p.lots_changed) == (["C"], ["A"], ["B"])
+    with LotStore(stored, create=False) as s:  # each revised lot's differences, as its history now shows them
+        for lot in p.lots_revised:
+            assert p.changes[lot]["changes"] == s.history(lot)[-1]["changes"]
+            assert p.changes[lot]["revision"] == ("changed" if lot in r.lots_changed else "added to")
+    assert set(p.changes) == {"A", "B"} and p.more_lots == 0
+    assert "roll_force_kn_per_cm 10 -> 10.4" in preview.text() and "Nothing was written" in preview.text()
+    assert "preview" not in real.to_dict() or real.to_dict()["preview"] is False
+    assert "changes" not in real.to_dict() and preview.to_dict()["preview"] is True
+
+
+def test_the_cli_preview_gives_the_ingest_refusal_and_exit_code(tmp_path, stored):
+    """Without --reason the change of B is refused by the preview as by the ingest: same message, code 2."""
+    path = _mixed(tmp_path)
+    before = _files(stored.parent)
+    preview = run_cli(["ingest", path, "--store", stored, "--preview"])
+    assert _files(stored.parent) == before
+    real = run_cli(["ingest", path, "--store", stored])
+    assert preview.exit_code == real.exit_code == 2
+    error = real.stderr[real.stderr.index("Error:"):]
+    assert error in preview.stderr and "Preview:" in preview.stderr and "nothing was written" in preview.stderr
+    assert _files(stored.parent) == before  # the refused ingest wrote nothing either
+    given = run_cli(["ingest", path, "--store", stored, "--preview", "--reason", "DEV-7", "--json"])
+    assert given.exit_code == 0, given.stderr
+    out = json.loads(given.stdout)
+    assert out["preview"] is True and out["ingest_id"] is None and out["lots_changed"] == ["B"]
+    assert out["changes"]["B"]["changes"][0]["old"] == 10.0 and out["changes"]["B"]["changes"][0]["new"] == 10.4
+    assert _files(stored.parent) == before
+    assert run_cli(["ingest", path, "--store", stored, "--reason", "DEV-7"]).exit_code == 0
+
+
+def test_bad_input_is_refused_alike_with_every_problem(tmp_path, stored):
+    bad = folder(tmp_path, "bad", process=PROCESS.replace("9.0", "99.0").replace("2.5", "-1"), ribbon=RIBBON)
+    before = _files(stored.parent)
+    with pytest.raises(InputError) as previewed:
+        api.ingest(bad, stored, preview=True)
+    with pytest.raises(InputError) as ingested:
+        api.ingest(bad, stored)
+    assert str(previewed.value) == str(ingested.value) and len(previewed.value.problems) == 2
+    assert _files(stored.parent) == before
+
+
+def test_a_store_that_does_not_exist_is_not_created(tmp_path):
+    where = tmp_path / "empty"
+    where.mkdir()
+    store = where / "new.db"
+    preview = api.ingest(folder(tmp_path, "first", process=PROCESS, ribbon=RIBBON), store, preview=True)
+    assert preview.result.lots_new == ["A", "B"] and not store.exists() and list(where.iterdir()) == []
+    missing = run_cli(["ingest", tmp_path / "first", "--store", tmp_path / "nowhere" / "new.db", "--preview"])
+    assert missing.exit_code == 2 and "does not exist" in missing.stderr
+    assert not (tmp_path / "nowhere").exists()
+    with pytest.raises(StorePathError):  # the first ingest's own refusal: a folder where the file would be
+        api.ingest(tmp_path / "first", where, preview=True)
+    # results without a process record in an empty store: refused by the preview as by the ingest
+    with pytest.raises(InputError, match="process"):
+        api.ingest(folder(tmp_path, "only", tablets=TABLETS), store, preview=True)
+    assert list(where.iterdir()) == []
+
+
+def test_a_store_without_its_anchor_is_previewed_with_the_reading_caution(tmp_path, stored):
+    stored.with_name(stored.name + ".seal").unlink()
+    before = _files(stored.parent)
+    path = folder(tmp_path, "more", tablets=TABLETS)
+    preview = run_cli(["ingest", path, "--store", stored, "--preview", "--json"])
+    assert preview.exit_code == 0, preview.stderr
+    assert "caution, store:" in preview.stderr and "no anchor file" in preview.stderr
+    out = json.loads(preview.stdout)
+    assert out["lots_added_to"] == ["A", "B"] and any("exit code 6" in c for c in out["cautions"])
+    assert _files(stored.parent) == before
+    assert run_cli(["ingest", path, "--store", stored]).exit_code == 6  # the ingest itself: the write refusal
+
+
+def test_unusual_values_preview_as_they_ingest(tmp_path):
+    """A dissolution written as a fraction (0.85 for 85 %): refused by the preview as by the ingest; taken with
+    --accept-unusual --reason, listed by the preview as the ingest then records it in the audit trail."""
+    _, new, store = _history_and_new_lot(tmp_path, _set("tablets", "dissolution_pct", lambda v: f"{v / 100:.4f}"))
+    before = store.read_bytes(), store.with_name("s.db.seal").read_bytes()
+    refused = run_cli(["ingest", new, "--store", store, "--preview"])
+    assert refused.exit_code == 2 and "hundred times too small" in refused.stderr
+    no_reason = run_cli(["ingest", new, "--store", store, "--preview", "--accept-unusual"])
+    assert no_reason.exit_code == 2 and "--reason" in no_reason.stderr
+    taken = run_cli(["ingest", new, "--store", store, "--preview", "--accept-unusual", "--reason", "DEV-9"])
+    assert taken.exit_code == 0, taken.stderr
+    assert "Unusual values taken deliberately (1)" in taken.stdout and "dissolution_pct" in taken.stdout
+    assert (store.read_bytes(), store.with_name("s.db.seal").read_bytes()) == before
+    real = api.ingest(new, store, accept_unusual=True, reason="DEV-9")
+    preview = api.ingest(new.parent / "history", store, preview=True)  # every lot now as stored
+    assert not preview.result.changed and "Nothing would change" in preview.text()
+    with LotStore(store, create=False) as s:
+        recorded = [a for a in s.audit() if a["action"] == "ingest"][-1]["inputs"]["accepted_unusual"]
+    assert recorded == real.result.accepted_unusual
+    assert [r["lot"] for r in recorded] == ["H-031"]
+
+
+def test_the_listing_is_capped_and_says_how_many_more(tmp_path):
+    """25 lots of 12 ribbon replicates each, every density then re-measured: 20 lots listed, 10 changes each."""
+    n_lots, n_rep = PREVIEW_LOTS + 5, PREVIEW_CHANGES + 2
+    lots = [f"L{k:02d}" for k in range(n_lots)]
+    process = "lot,product,roll_force_kn_per_cm,roll_gap_mm,roll_speed_rpm,screw_speed_rpm,mill_screen_mm\n" + \
+        "".join(f"{lot},P1,9.0,2.0,5,20,1.0\n" for lot in lots)
+    head = "lot,sample,envelope_density_g_cm3,skeletal_density_g_cm3\n"
+    ribbon = head + "".join(f"{lot},{j},1.05,1.50\n" for lot in lots for j in range(1, n_rep + 1))
+    store = tmp_path / "s.db"
+    api.ingest(folder(tmp_path, "first", process=process, ribbon=ribbon), store)
+    preview = api.ingest(folder(tmp_path, "again", ribbon=ribbon.replace(",1.05,", ",1.08,")), store,
+                         reason="DEV-3", preview=True)
+    r = preview.result
+    assert len(r.lots_changed) == n_lots and list(r.changes) == lots[:PREVIEW_LOTS] and r.more_lots == 5
+    assert all(len(c["changes"]) == PREVIEW_CHANGES and c["more"] == 2 for c in r.changes.values())
+    assert "... and 2 more change(s)" in preview.text() and "... and 5 more revised lot(s)" in preview.text()
+
+
+def test_accept_unusual_without_a_reason_is_refused_before_the_store_is_read(tmp_path):
+    with pytest.raises(UsageError, match="--reason"):
+        api.ingest(tmp_path, tmp_path / "none.db", accept_unusual=True, preview=True)
+    assert not (tmp_path / "none.db").exists()
+
+
+def test_a_schema_2_store_is_previewed_without_its_upgrade(v2, tmp_path):
+    """The preview reads an earlier store as it is (the ingest upgrades it first, then decides alike)."""
+    fix = _corrected(tmp_path / "twice", lot="EX-002", change=2.0)
+    before = _files(v2.parent)
+    preview = api.ingest(fix, v2, reason="deviation D-2", preview=True)
+    assert _files(v2.parent) == before
+    real = api.ingest(fix, v2, reason="deviation D-2")
+    assert (preview.result.lots_changed, preview.result.lots_unchanged) == (real.result.lots_changed,
+                                                                            real.result.lots_unchanged)
+    [change] = preview.result.changes["EX-002"]["changes"]
+    assert (change["column"], change["old"], change["new"]) == ("dissolution_pct", 75.7, 77.7)
