@@ -27,7 +27,10 @@ What it detects, and what it cannot
   the content no longer matches its seal.
 - Removing the newest records: the **anchor**, a small file beside the store
   (``<store>.seal``, JSON: the newest seal's id and hash, written after each
-  commit), names a seal that is gone or differs.
+  commit), names a seal that is gone or differs. Writers finishing together
+  write it in turn under a lock (``<store>.seal.lock``), each with the
+  newest seal read again, never an older one than it names
+  (:func:`advance_anchor`), so it always ends at the newest seal.
 - A store that holds seals but no anchor file (the anchor deleted with the
   newest records, or a store copied without it) cannot show that its
   newest records are all there: every command that reads it says so on
@@ -62,7 +65,11 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
+import time
+from contextlib import contextmanager
 from pathlib import Path
+from typing import Iterator
 
 from linkage.exceptions import StoreIntegrityError
 
@@ -235,6 +242,70 @@ def write_anchor(store_path: Path, seal_id: int, digest: str) -> bool:
     except OSError:
         return False
     return True
+
+
+def anchor_lock_path(store_path: Path) -> Path:
+    """The lock file beside the store (``<store>.seal.lock``) that :func:`advance_anchor` locks; empty, kept."""
+    return Path(f"{store_path}.seal.lock")
+
+
+#: how long :func:`advance_anchor` waits for the anchor lock before it writes without it (seconds)
+ANCHOR_LOCK_TIMEOUT_S = 10.0
+
+
+def advance_anchor(store_path: Path, c) -> bool:
+    """After a commit, make the anchor name the store's newest seal, and never an older seal than it names.
+
+    Two writers that commit one after the other both write the anchor after their commit, outside SQLite's
+    write lock; unordered, the first could replace the second's anchor with its older seal. So the newest seal
+    is read again (``c`` in autocommit: every commit so far) and the anchor written, atomically, only when that
+    seal is newer than the one the anchor names, all under an exclusive lock on :func:`anchor_lock_path`
+    (``fcntl.flock``). Every writer takes the lock after its commit, so the last to take it reads the newest
+    seal of all, and no anchor goes back: whatever the order, the anchor ends at the newest seal.
+
+    Without ``fcntl`` (Windows), or where the lock file cannot be opened (a folder this account cannot write:
+    the anchor cannot be written either) or the lock is not had within :data:`ANCHOR_LOCK_TIMEOUT_S` (a holder
+    stopped), the same is done without the lock (as before it existed): the anchor is read before it is
+    replaced, but two writers finishing together may leave it a seal behind (weaker evidence until the next
+    write; :func:`check` does not take it for a removal). Returns whether the anchor names the newest seal
+    read (False where it could not be written)."""
+    with _anchor_lock(store_path):
+        seal_id, digest = head(c)
+        anchor = read_anchor(store_path)
+        if anchor is not None and anchor["seal_id"] >= seal_id:
+            return anchor["seal_id"] == seal_id  # another writer anchored this seal, or one after it, already
+        return write_anchor(store_path, seal_id, digest)
+
+
+@contextmanager
+def _anchor_lock(store_path: Path) -> Iterator[bool]:
+    """Hold the exclusive ``flock`` of :func:`anchor_lock_path`; yields whether it is held (see
+    :func:`advance_anchor` for when it is not)."""
+    try:
+        import fcntl
+    except ImportError:  # Windows: no flock
+        yield False
+        return
+    try:
+        fd = os.open(anchor_lock_path(store_path), os.O_RDWR | os.O_CREAT, 0o666)
+    except OSError:
+        yield False
+        return
+    try:
+        deadline = time.monotonic() + ANCHOR_LOCK_TIMEOUT_S
+        while True:
+            try:
+                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+                held = True
+                break
+            except BlockingIOError:
+                if time.monotonic() >= deadline:
+                    held = False
+                    break
+                time.sleep(0.002)
+        yield held
+    finally:
+        os.close(fd)  # closing the file releases its lock
 
 
 def unanchored_caution(store_path: Path, seal_id: int, digest: str) -> str:

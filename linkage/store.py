@@ -701,7 +701,7 @@ class LotStore:
                 raise self._error(exc) from None
             raise
         if c.execute("SELECT 1 FROM sqlite_master WHERE name = 'seals'").fetchone():
-            _seal.write_anchor(self.path, *_seal.head(c))
+            _seal.advance_anchor(self.path, c)  # the newest seal, never an older one (writers finishing together)
 
     def _read(self, sql: str, params: tuple = ()) -> list[tuple]:
         try:
@@ -1257,7 +1257,8 @@ class LotStore:
                                  outputs={"checked_seal": found_head, "checked": checked})
             anchor = dict(zip(("id", "sha256"), _seal.head(c)))
         self.unanchored = None
-        if _seal.read_anchor(self.path) != {"seal_id": anchor["id"], "sha256": anchor["sha256"]}:
+        written = _seal.read_anchor(self.path)  # this seal, or a later writer's newer one (seal.advance_anchor)
+        if written is None or written["seal_id"] < anchor["id"]:
             raise StoreError(f"the re-anchoring of lot store {self.path} was recorded (audit entry {audit_id}), but "
                              f"its anchor file {_seal.anchor_path(self.path)} could not be written: make its folder "
                              "writable and anchor it again (a second audit entry records that)")
