@@ -294,38 +294,29 @@ PREVIEW_LOTS = 20
 PREVIEW_CHANGES = 10
 
 
-@dataclass
 class _IngestPlan:
     """What an ingest would write: made by :meth:`LotStore._plan` from the ingest and the stored lots (under
     the write lock for an ingest, in one read snapshot for a preview), then written by
-    :meth:`LotStore._commit`, so that a preview and an ingest decide alike."""
+    :meth:`LotStore._commit`, so that a preview and an ingest decide alike. Made here, the part that needs no
+    store: each lot's tables encoded, the sources, the products sent."""
 
-    ingest: Ingest
-    reason: str | None
-    prepared: dict = field(default_factory=dict)
-    sources: dict = field(default_factory=dict)
-    products: dict = field(default_factory=dict)
-    current: dict = field(default_factory=dict)
-    new: list = field(default_factory=list)
-    revised: list = field(default_factory=list)
-    unchanged: list = field(default_factory=list)
-    changes: dict = field(default_factory=dict)
-    added_to: list = field(default_factory=list)
-    changed: list = field(default_factory=list)
-    shown: dict = field(default_factory=dict)
-    unusual_records: list = field(default_factory=list)
-    warnings: list = field(default_factory=list)
-
-    @classmethod
-    def of(cls, ingest: Ingest, reason: str | None) -> _IngestPlan:
-        """The part that needs no store: each lot's tables encoded, the sources, the products sent."""
-        products = {}
+    def __init__(self, ingest: Ingest, reason: str | None):
+        self.ingest, self.reason = ingest, given_reason(reason)
+        self.prepared = _prepare(ingest)
+        self.sources = {t: ingest.sources.get(t) or _memory_source(t, df) for t, df in ingest.tables.items()}
+        self.products = {}
         process = ingest.tables.get("process")
         if process is not None:
             for lot, product in zip(process["lot"].tolist(), process["product"].tolist()):
-                products[lot] = None if isinstance(product, float) else product
-        return cls(ingest, given_reason(reason), _prepare(ingest),
-                   {t: ingest.sources.get(t) or _memory_source(t, df) for t, df in ingest.tables.items()}, products)
+                self.products[lot] = None if isinstance(product, float) else product
+        # decided by LotStore._plan: the stored lots' current revisions, the lots by kind, the tables each new
+        # or revised lot writes, the differences kept (lot -> _diff), the unusual values taken, the warnings
+        self.current: dict = {}
+        self.new, self.revised, self.unchanged, self.added_to, self.changed = [], [], [], [], []
+        self.changes: dict[str, list[str]] = {}
+        self.shown: dict[str, list[dict]] = {}
+        self.unusual_records: list[dict] = []
+        self.warnings: list[str] = []
 
     def result(self, ingest_id: int | None, *, preview: bool = False) -> IngestResult:
         out = IngestResult(self.new, self.revised, self.unchanged, ingest_id, self.warnings, self.added_to,
@@ -773,7 +764,7 @@ class LotStore:
             return self._ingest(ingest, user, reason, accept_unusual)
 
     def _ingest(self, ingest: Ingest, user: str | None, reason: str | None, accept_unusual: bool) -> IngestResult:
-        plan = _IngestPlan.of(ingest, reason)  # before the write lock: it needs no store
+        plan = _IngestPlan(ingest, reason)  # before the write lock: it needs no store
         with self._write() as c:
             self._plan(c, plan, accept_unusual)
             result = self._commit(c, plan, user or current_user())
@@ -782,7 +773,7 @@ class LotStore:
     def _preview(self, ingest: Ingest, reason: str | None, accept_unusual: bool) -> IngestResult:
         """What :meth:`_ingest` would do, decided by the same :meth:`_plan` in one read snapshot; nothing
         written (a store opened ``read_only`` cannot be)."""
-        plan = _IngestPlan.of(ingest, reason)
+        plan = _IngestPlan(ingest, reason)
         try:
             with self._snapshot():
                 self._plan(self._conn, plan, accept_unusual, show=PREVIEW_LOTS)
