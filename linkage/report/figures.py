@@ -62,8 +62,9 @@ _SUFFIX_UNITS = (("_kn_per_cm", "kN/cm"), ("_g_cm3", "g/cm3"), ("_pct", "%"), ("
                  ("_n", "N"), ("_mm", "mm"), ("_um", "um"), ("_mg", "mg"), ("_g", "g"), ("_rpm", "rpm"),
                  ("_min", "min"))
 
-#: how a unit is written on an axis
-_PRETTY_UNITS = {"um": "µm", "g/cm3": "g/cm³"}
+#: how a unit is written for a reader (axes, the report's tables, the what-if sheet and the what-if page, which
+#: gets this table embedded by :func:`linkage.report.page.page_payload`)
+PRETTY_UNITS = {"um": "µm", "g/cm3": "g/cm³"}
 
 
 def unit_of(name: str) -> str:
@@ -86,7 +87,7 @@ def shown_unit(name: str) -> str:
     unit = unit_of(name)
     if unit in ("", "ISO 8601", "sieve | laser", "bool"):
         unit = "-"
-    return _PRETTY_UNITS.get(unit, unit)
+    return PRETTY_UNITS.get(unit, unit)
 
 
 def axis_label(name: str) -> str:

@@ -42,6 +42,7 @@ import numpy as np
 
 from linkage import CAUTION
 from linkage.exceptions import UsageError
+from linkage.report.figures import PRETTY_UNITS
 
 __all__ = ["page_payload", "page_html", "PAGE_KINDS", "MAX_PAGE_BYTES"]
 
@@ -194,6 +195,7 @@ def page_payload(lean, spec=None, *, seed: int = 0, n_draws: int = 4000, level: 
         "units": {name: ASSEMBLED.get(name, "-") for name in list(lean.medians) + list(lean.targets)},
     }
     payload["held_labels"] = _held_labels()
+    payload["pretty_units"] = dict(PRETTY_UNITS)  # how a heading writes a unit: the report's table, not a copy
     for key in ("settings_names", "settings_mean", "settings_cov", "settings_low", "settings_high",
                 "settings_levels"):
         if key in lean.spec:  # the conditional-mean rule of fill_settings, when the model carries it

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 from linkage import CAUTION, __version__
 from linkage.numbers import percent_text
-from linkage.schema import ASSEMBLED
+from linkage.report.figures import shown_unit
 
 # colour-blind-safe (Okabe & Ito 2008): blue, vermillion, bluish green, grey
 BLUE, VERMILLION, GREEN, GREY = "#0072B2", "#D55E00", "#009E73", "#6b6b6b"
@@ -142,9 +142,10 @@ def projected_text(p: dict) -> str:
 
 
 def _unit(name: str) -> str:
-    """' [unit]' after a quantity's name ('' for a quantity without a unit)."""
-    u = ASSEMBLED.get(name, "")
-    return "" if u in ("-", "") else f" [{u}]"
+    """' [unit]' after a quantity's name as the report writes it (:func:`linkage.report.figures.shown_unit`:
+    ' [µm]'); '' for a quantity without a unit."""
+    u = shown_unit(name)
+    return "" if u == "-" else f" [{u}]"
 
 
 def interval_svg(value: float, low: float, high: float, lo_limit: float | None, hi_limit: float | None,

@@ -341,8 +341,9 @@
 
   // ---------------------------------------------------------------- applicability domain
   const NOT_UNITS = new Set(["-", "ISO 8601", "sieve | laser", "bool", "count"]);
-  // a unit in a column heading as a reader writes it (figures.py's _PRETTY_UNITS); texts that mirror Python's keep "um"
-  const PRETTY_UNITS = { "um": "µm", "g/cm3": "g/cm³" };
+  // a unit in a column heading as a reader writes it (linkage.report.figures.PRETTY_UNITS, embedded by page.py);
+  // texts that mirror Python's keep "um"
+  const PRETTY_UNITS = M.pretty_units;
   const heading = (name, u) => name + (u && !NOT_UNITS.has(u) ? ` [${PRETTY_UNITS[u] || u}]` : "");
   function fmt(v, digits = 4) { // Python's format(v, ".4g"), or another number of digits
     if (!Number.isFinite(v)) return String(v);

@@ -118,3 +118,20 @@ def test_a_prediction_no_input_moves_says_it_has_no_contribution():
         detail = _detail_row(page, name)
         assert f"largest contributions: {NO_CONTRIBUTION}" in detail, detail
         assert not any(f"{c['input']} 0" in detail for c in p["contributions"])
+
+
+def test_the_sheet_writes_units_as_the_report_does(scenario):
+    """The sheet wrote 'granule_d50_um [um]' where the report writes µm: a quantity's unit is now the report's
+    (linkage.report.figures.shown_unit) for every predicted and held quantity, and no bracket holds 'um'.
+    Regression test of a label (no outside source)."""
+    from linkage.report.figures import shown_unit
+
+    _, chain, spec, _ = scenario
+    r = predict_whatif(chain, {"ribbon_porosity": 0.3}, spec=spec, n_draws=400, seed=0)
+    d = r.to_dict()
+    page = whatif_html(r)
+    assert "granule_d50_um" in d["predictions"]
+    assert "granule_d50_um [µm]" in _text(page) and "[um]" not in page
+    for name in [*d["predictions"], *d["inputs"]]:
+        unit = shown_unit(name)
+        assert (f"<td>{name} [{html.escape(unit)}]</td>" in page) if unit != "-" else f"<td>{name}</td>" in page, name
