@@ -44,7 +44,7 @@ from linkage import CAUTION
 from linkage.exceptions import UsageError
 from linkage.report.figures import PRETTY_UNITS
 
-__all__ = ["page_payload", "page_html", "PAGE_KINDS", "MAX_PAGE_BYTES"]
+__all__ = ["page_payload", "page_html", "trained_text", "PAGE_KINDS", "MAX_PAGE_BYTES"]
 
 #: lean model kinds the page evaluates
 PAGE_KINDS = ("mean", "rd", "linear", "quadratic", "trees", "link")
@@ -185,7 +185,8 @@ def page_payload(lean, spec=None, *, seed: int = 0, n_draws: int = 4000, level: 
     dissolution = _dissolution_payload(lean, spec, n_draws, seed)
     bound = _bound_payload(lean, given, list(limits), seed)
     payload = {
-        "format": 1, "model_id": lean.model_id or "unsaved", "created_at": lean.created_at, "caution": CAUTION,
+        "format": 1, "model_id": lean.model_id or "unsaved", "created_at": lean.created_at,
+        "trained": trained_text(lean.created_at), "caution": CAUTION,
         "seed": int(seed), "n_draws": int(n_draws), "level": level, "assurance": assurance,
         "roots": roots, "settings": settings, "medians": dict(lean.medians),
         "stages": stages, "limits": limits, "judges": judge_text(spec) if spec is not None else {},
@@ -201,6 +202,22 @@ def page_payload(lean, spec=None, *, seed: int = 0, n_draws: int = 4000, level: 
         if key in lean.spec:  # the conditional-mean rule of fill_settings, when the model carries it
             payload[key] = lean.spec[key]
     return _plain(payload)
+
+
+def trained_text(created_at: str | None) -> str:
+    """When a model was trained, as the page shows it: to the second, in UTC, and saying so
+    (``2026-12-05 13:40:01 UTC``; the model records it to the microsecond). A time without a zone is the
+    registry's, which writes UTC; text that is no ISO 8601 time is shown as it is."""
+    from datetime import datetime, timezone
+
+    if created_at is None:
+        return "at a time not recorded"
+    try:
+        when = datetime.fromisoformat(str(created_at))
+    except ValueError:
+        return str(created_at)
+    when = when.replace(tzinfo=timezone.utc) if when.tzinfo is None else when.astimezone(timezone.utc)
+    return f"{when:%Y-%m-%d %H:%M:%S} UTC"
 
 
 def _settings_payload(lean) -> list[dict]:

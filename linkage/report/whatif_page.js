@@ -860,7 +860,7 @@
     app.textContent = "";
     app.append(el("h1", { text: "What-if, model " + M.model_id }));
     const meta = el("p", { class: "meta" });
-    meta.textContent = `Model ${M.model_id} (trained ${M.created_at}); intervals at ${(100 * M.level).toFixed(0)} %; ` +
+    meta.textContent = `Model ${M.model_id} (trained ${M.trained}); intervals at ${(100 * M.level).toFixed(0)} %; ` +
       `lower bounds at assurance ${share(M.assurance)}; ${N} Monte Carlo draws, seed ${M.seed}. ` +
       (M.spec ? `Spec ${M.spec.file || ""} (SHA-256 ${(M.spec.sha256 || "").slice(0, 12)}…): ` +
         Object.entries(M.spec.attributes).map(([a, s]) => `${a} ${s.limits}${s.judge !== "mean" ? " (" + s.judge + ")" : ""}`).join("; ")
@@ -939,7 +939,8 @@
   function render(r) {
     for (const s of M.settings) {
       const inp = r.inputs[s.name];
-      document.getElementById("source-" + s.name).textContent = inp ? `${fmt(inp.value)} (${inp.source})` : "";
+      // the value as its number box shows it (the same decimals), then where it comes from: "10.198, given"
+      document.getElementById("source-" + s.name).textContent = inp ? `${boxText(s, inp.value)}, ${inp.source}` : "";
       if (inp && inp.source !== "given") {
         showValue(s, document.getElementById("value-" + s.name), inp.value);
         document.getElementById("slider-" + s.name).value = inp.value;

@@ -21,3 +21,22 @@ def test_the_page_takes_its_unit_table_from_python(scenario):
     script = resources.files("linkage.report").joinpath("whatif_page.js").read_text(encoding="utf-8")
     assert "M.pretty_units" in script
     assert not any(shown in script for shown in PRETTY_UNITS.values()), "the script keeps a copy of the table"
+
+
+def test_the_page_shows_when_the_model_was_trained_to_the_second_in_utc(scenario):
+    """The page showed the training time as recorded, to the microsecond ('2026-12-05T13:40:01.123456+00:00').
+    It now shows it to the second, converted to UTC and marked so. The reference is ISO 8601 (an offset of
+    +01:00 is one hour ahead of UTC) as Python's datetime reads it. Regression test of a label."""
+    from datetime import datetime, timezone
+
+    from linkage.report.page import trained_text
+
+    assert trained_text("2026-12-05T14:40:01.123456+01:00") == "2026-12-05 13:40:01 UTC"
+    assert trained_text("2026-12-05T13:40:01.999999") == "2026-12-05 13:40:01 UTC"  # the registry's zone: UTC
+    _, chain, spec, _ = scenario
+    payload = page_payload(chain, spec, n_draws=50)
+    recorded = datetime.fromisoformat(chain.created_at).astimezone(timezone.utc)
+    assert payload["created_at"] == chain.created_at  # the recorded time is still embedded as it is
+    assert payload["trained"] == recorded.strftime("%Y-%m-%d %H:%M:%S") + " UTC"
+    script = resources.files("linkage.report").joinpath("whatif_page.js").read_text(encoding="utf-8")
+    assert "(trained ${M.trained})" in script and "M.created_at" not in script

@@ -376,6 +376,29 @@ def test_a_number_box_shows_the_step_s_decimals_and_the_what_if_keeps_the_full_v
 
 @pytest.mark.slow
 @pytest.mark.browser
+def test_the_source_column_shows_the_box_s_value_and_no_nested_brackets(opened, demo):
+    """A user read '10.2 (given)' beside a number box showing 10.198, and 'held coherently (conditional mean of
+    training lots))' in brackets within brackets. The source column now shows each setting's value as its
+    number box shows it, then where it comes from, after a comma ('10.198, given'), and the header line says when
+    the model was trained to the second in UTC (page.trained_text). Regression test of labels: no outside source."""
+    from linkage.report.page import trained_text
+
+    values = {"roll_force_kn_per_cm": 10.198}
+    out = _set_controls(opened, values)
+    texts = opened.evaluate("""Object.fromEntries(window.linkageModel.settings.map((s) => [s.name,
+      [document.getElementById('value-' + s.name).value, document.getElementById('source-' + s.name).innerText]]))""")
+    for name, (box, source) in texts.items():
+        assert source == f"{box}, {out['result']['inputs'][name]['source']}", (name, box, source)
+        assert "((" not in source and "))" not in source, source
+    assert texts["roll_force_kn_per_cm"][1] == "10.198, given"
+    assert any(s.startswith("held coherently") for s in (v["source"] for v in out["result"]["inputs"].values()))
+    meta = opened.evaluate("document.querySelector('p.meta').innerText")
+    created = opened.evaluate("window.linkageModel.created_at")
+    assert f"(trained {trained_text(created)})" in meta and created not in meta
+
+
+@pytest.mark.slow
+@pytest.mark.browser
 def test_a_heading_writes_um_as_the_micrometre_sign(opened):
     """User re-test: 'granule_d50_um [um]' where the report writes µm. Headings write a unit as the report's
     figures do (linkage.report.figures.shown_unit); the texts that mirror Python's (domain reasons) keep 'um'.
