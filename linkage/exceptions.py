@@ -145,11 +145,16 @@ class UnsupportedConfidenceError(UsageError):
 
     def lots_text(self) -> str:
         """Why, in words every refusal of it shares: the attribute, its residual lots and the limit."""
-        return (f"{self.attribute} has out-of-fold residuals on {self.n_lots} lots, and a probability above "
-                f"n/(n + 1) = {self.most:.4f} cannot be told from 1 on them")
+        return confidence_lots_text(self.attribute, self.n_lots)
 
     def __reduce__(self):
         return _unsupported_confidence, (str(self), self.confidence, self.attribute, self.n_lots)
+
+
+def confidence_lots_text(attribute: str, n_lots: int) -> str:
+    """Why a confidence above n/(n + 1) is refused, in words: the attribute, its residual lots and the limit."""
+    return (f"{attribute} has out-of-fold residuals on {n_lots} lots, and a probability above "
+            f"n/(n + 1) = {n_lots / (n_lots + 1):.4f} cannot be told from 1 on them")
 
 
 def _unsupported_confidence(message, confidence, attribute, n_lots):

@@ -59,7 +59,7 @@ from linkage.decide.bound import NO_BOUND, chain_probabilities, check_assurance,
 from linkage.decide.defaults import WINDOW_DRAWS
 from linkage.decide.held import held_point
 from linkage.decide.propagate import fill_settings, mean_passes, pass_matrix, simulate, within
-from linkage.exceptions import UnsupportedConfidenceError, UsageError
+from linkage.exceptions import UnsupportedConfidenceError, UsageError, confidence_lots_text
 from linkage.models.lean import project
 from linkage.numbers import percent_text
 
@@ -354,11 +354,10 @@ def check_confidence_supported(lean, attributes, confidence: float) -> None:
         return
     name, n = worst
     if confidence > n / (n + 1):
-        refused = UnsupportedConfidenceError("", confidence=confidence, attribute=name, n_lots=n)
-        refused.args = (f"--confidence {confidence:g} asks more than the lots can show: {refused.lots_text()} (a new "
-                        f"lot falls beyond all {n} with probability 1/(n + 1)); use a confidence of at most "
-                        f"{math.floor(refused.most * 1e4) / 1e4:g}, or add lots",)
-        raise refused
+        raise UnsupportedConfidenceError(
+            f"--confidence {confidence:g} asks more than the lots can show: {confidence_lots_text(name, n)} (a new "
+            f"lot falls beyond all {n} with probability 1/(n + 1)); use a confidence of at most "
+            f"{math.floor(n / (n + 1) * 1e4) / 1e4:g}, or add lots", confidence=confidence, attribute=name, n_lots=n)
 
 
 def _point_scan(chain, spec, draws, grid, attributes: list[str], limited: list[str], seed: int):

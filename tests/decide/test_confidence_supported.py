@@ -46,3 +46,33 @@ def test_the_acceptance_value_is_held_to_the_weight_rsds_residual_lots(campaign)
     spec = Spec(limits={}, acceptance_value_max=15.0)
     with pytest.raises(UsageError, match=rf"weight_rsd_pct has out-of-fold residuals on {n} lots"):
         find_window(chain, spec, confidence=n / (n + 1) + 1e-4, n_draws=200)
+
+
+def test_the_refusal_is_built_with_its_message(monkeypatch):
+    """The refusal was built with an empty message and its text set afterwards (``args``), so anything that
+    reads the message given to the constructor (a subclass, a handler that wraps it, a pickle made from the
+    constructor's arguments) saw ''. It is now built with its message, as every other error of
+    linkage.exceptions is. n = 9 residual lots: the limit is 9/10 (the rank argument above). Regression test of
+    how the error is made (no outside source beyond the limit's)."""
+    from types import SimpleNamespace
+
+    import numpy as np
+
+    from linkage.decide.window import check_confidence_supported
+    from linkage.exceptions import UnsupportedConfidenceError
+
+    built = []
+    init = UnsupportedConfidenceError.__init__
+
+    def spy(self, message, **kwargs):
+        built.append(message)
+        init(self, message, **kwargs)
+
+    monkeypatch.setattr(UnsupportedConfidenceError, "__init__", spy)
+    residuals = np.r_[np.linspace(-1.0, 1.0, 9), np.nan]  # 9 lots with a residual, one without
+    stage = SimpleNamespace(targets=["tensile_strength_mpa"], residual_column=lambda name: residuals)
+    with pytest.raises(UnsupportedConfidenceError) as refused:
+        check_confidence_supported(SimpleNamespace(stages=[stage]), ["tensile_strength_mpa"], 0.95)
+    assert built == [str(refused.value)] and refused.value.args == (built[0],)
+    assert refused.value.n_lots == 9 and refused.value.most == 0.9
+    assert "residuals on 9 lots" in built[0] and "at most 0.9," in built[0]
