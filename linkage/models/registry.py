@@ -477,7 +477,7 @@ def list_models(models_dir) -> list[dict]:
                "in_service": bool(entry.get("in_service", True))}
         try:
             meta, _ = verify(models_dir, mid, index)
-            row.update(n_lots=meta.get("training", {}).get("n_lots"),
+            row.update(_training_fields(meta),
                        targets={t: v.get("selected") for t, v in meta.get("targets", {}).items()},
                        coverage={t: v.get("coverage") for t, v in meta.get("targets", {}).items()},
                        nominal_coverage=meta.get("nominal_coverage"),
@@ -486,6 +486,9 @@ def list_models(models_dir) -> list[dict]:
         except (ModelIntegrityError, ModelNotFoundError) as exc:
             row["status"] = "missing" if not (models_dir / mid).is_dir() else "changed"
             row["detail"] = str(exc)
+            meta = _recorded_metadata(models_dir, mid, entry)  # lots and products of a model that fails its checks
+            if meta is not None:
+                row.update(_training_fields(meta))
         rows[mid] = row
     for p in sorted(models_dir.iterdir()):
         name = p.name
@@ -508,6 +511,30 @@ def list_models(models_dir) -> list[dict]:
         rows[mid]["role"] = role
     return sorted(rows.values(), key=lambda r: (str(r["created_at"] or ""), str(r.get("saved_at") or ""),
                                                 r["model_id"]), reverse=True)
+
+
+def _training_fields(meta: dict) -> dict:
+    """What ``linkage models`` shows of a model's training lots: ``n_lots``."""
+    training = meta.get("training") if isinstance(meta.get("training"), dict) else {}
+    return {"n_lots": training.get("n_lots")}
+
+
+def _recorded_metadata(models_dir: Path, model_id: str, entry: dict) -> dict | None:
+    """The metadata of a model that fails its integrity check, read as JSON (never unpickled) when the file
+    still matches the SHA-256 the index recorded for it (the artifact or the what-if file is what failed);
+    None when it does not, is missing or is no JSON: a changed metadata file says nothing to trust."""
+    path = models_dir / model_id / METADATA
+    try:
+        data = _read_plain(path, "metadata file")
+    except (ModelIntegrityError, OSError):
+        return None
+    if _sha256(data) != entry.get("metadata_sha256"):
+        return None
+    try:
+        meta = json.loads(data)
+    except (json.JSONDecodeError, UnicodeDecodeError):
+        return None
+    return meta if isinstance(meta, dict) else None
 
 
 #: a model's role in the registry (``linkage models``: ``role``), with what it means

@@ -126,6 +126,29 @@ def test_latest_refuses_a_changed_newer_model_and_serves_no_older_one(tmp_path, 
     assert not marker.exists()
 
 
+def test_the_listing_gives_the_lots_of_a_model_that_fails_its_check(tmp_path, reg, trained_small):
+    """A user read a blank lots column for a model whose artifact was changed: the lot count is in the model's
+    metadata, read as JSON (never unpickled), which still matches the SHA-256 the index recorded. The listing
+    now gives it beside the failing status and role; a metadata file that was itself changed is not trusted
+    (blank). Regression test of the listing (no outside source)."""
+    from linkage.cli.model_cmds import format_models
+
+    models, mid = reg
+    marker = tmp_path / "unpickled"
+    (models / mid / registry.ARTIFACT).write_bytes(trap_bytes(marker))
+    [row] = registry.list_models(models)
+    assert row["status"] == "changed" and row["role"] == "champion" and not row["latest"]
+    assert row["n_lots"] == trained_small.training["n_lots"] == 6
+    line = next(l for l in format_models([row]).splitlines() if mid in l)
+    assert line.split(mid)[1].split()[2:5] == ["6", "changed", "champion"], line  # date, time, lots, status, role
+    assert not marker.exists()
+    meta = json.loads((models / mid / registry.METADATA).read_text())
+    meta["training"]["n_lots"] = 60
+    (models / mid / registry.METADATA).write_text(json.dumps(meta))
+    [row] = registry.list_models(models)
+    assert row["status"] == "changed" and row.get("n_lots") is None
+
+
 ESCAPES = ["../x", "..", ".", "../../etc/passwd", "/etc/passwd", "m-20260301T101500Z-1a2b3c4d/../../x",
            "..\\x", "a/b", "m-20260301T101500Z-1a2b3c4d/..", ".tmp-m-20260301T101500Z-1a2b3c4d-1",
            "x\x00y", "~/models/m-20260301T101500Z-1a2b3c4d", "C:\\models\\m"]
