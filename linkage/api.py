@@ -406,6 +406,9 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
                               "spec_file": spec.file if spec is not None else None,
                               "spec_sha256": spec.sha256 if spec is not None else None,
                               "lots": list(fitted.training["lots"]),
+                              # the training lots' products (audit: a model of several is marked mixed)
+                              "product_lots": fitted.training.get("product_lots"),
+                              "lots_without_product": fitted.training.get("lots_without_product"),
                               "table_sha256": fitted.training["table_sha256"]},
                       outputs={t: {"selected": v.selected, "coverage": v.coverage}
                                for t, v in fitted.targets.items()})
@@ -895,7 +898,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     elif chain.trained_product is not None and product != chain.trained_product:
         notes.append(f"the lots of {product!r} are charted against model {chain.model_id}, a model of "
                      f"{chain.trained_product!r}: alarms may say only that the products differ")
-    from linkage.products import others_text
+    from linkage.products import chain_counts, others_text
 
     with LotStore(store, create=False) as s:
         tables = current_tables_of(s, product)
@@ -914,7 +917,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
                        "revised_since_training": [r["lot"] for r in revised]})
     return Watched(result=result, n_lots=len(table), window=found, store=Path(store),
                    time_point=time_point_text(chain) if "dissolution_pct" in chain.targets else None, revised=revised,
-                   notes=notes)
+                   notes=notes, trained_products=[{"product": p, "n_lots": n} for p, n in chain_counts(chain)])
 
 
 def _running_window(fitted, lean, spec, held: dict, seed: int, assurance: float) -> tuple[float, float]:

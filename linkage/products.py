@@ -66,6 +66,13 @@ def trained_on_text(counts: list[Count]) -> str:
     return text
 
 
+def mixed_text(products: list[dict]) -> str:
+    """'mixed: trained on 2 products: 'A' (48 lots), 'B' (8 lots)': the mark of a model of several products
+    where it is listed (``linkage models``, ``watch``); ``products`` as the JSON keys give them (``product``,
+    ``n_lots``)."""
+    return "mixed: " + trained_on_text([(p.get("product"), p.get("n_lots")) for p in products])
+
+
 def train_note(counts: list[Count]) -> str | None:
     """The note of ``train`` on a model of several products (None for one): what it was trained on, and how to
     train a model of one."""

@@ -714,10 +714,20 @@ class Watched(_Result):
     time_point: str | None = None
     #: training lots revised after the model was trained (:func:`linkage.decide.watch.revised_since_training`)
     revised: list[dict] = field(default_factory=list)
+    #: the model's training lots by product (``product``, ``n_lots``; :func:`linkage.products.chain_counts`)
+    trained_products: list[dict] = field(default_factory=list)
+
+    @property
+    def mixed_products(self) -> bool:
+        """The model was trained on lots of several products (:func:`linkage.products.is_mixed`)."""
+        from linkage.products import is_mixed
+
+        return is_mixed([(p["product"], p["n_lots"]) for p in self.trained_products])
 
     def to_dict(self) -> dict:
         """What ``linkage watch --json`` prints."""
-        return {**self.result.to_dict(), "revised_since_training": list(self.revised), "notes": list(self.notes)}
+        return {**self.result.to_dict(), "revised_since_training": list(self.revised), "notes": list(self.notes),
+                "trained_products": [dict(p) for p in self.trained_products], "mixed_products": self.mixed_products}
 
     def text(self) -> str:
         from linkage.decide.watch import design_lines, revised_lines, whatif_settings_lines
@@ -725,6 +735,11 @@ class Watched(_Result):
         r = self.result
         lines = [f"Model {r.model_id}; {self.n_lots} lots, {len(r.new_lots)} since training"
                  + (f"; {self.time_point}" if self.time_point else "") + "."]
+        if self.mixed_products:
+            from linkage.products import mixed_text
+
+            lines.append(f"Model {r.model_id} is {mixed_text(self.trained_products)}; the lots are charted "
+                         "against one model of them all.")
         lines += revised_lines(self.revised, r.model_id)
         lines += [f"Note: {note}" for note in self.notes]
         if self.window:
@@ -829,6 +844,22 @@ def _lots_count(value) -> int:
     return len(value) if isinstance(value, (list, tuple, dict)) else 0
 
 
+def _mixed_entry_text(inputs: dict) -> str:
+    """', mixed ('A': 48, 'B': 8)' for a train entry whose lots are of several products (``inputs.product_lots``
+    and ``lots_without_product``, :func:`linkage.products.is_mixed`); '' for one product, or an entry written
+    before they were recorded."""
+    from linkage.products import counts_text, is_mixed, training_counts
+
+    if not isinstance(inputs.get("product_lots"), dict):
+        return ""
+    try:
+        counts = training_counts({"product_lots": inputs["product_lots"],
+                                  "lots_without_product": inputs.get("lots_without_product")})
+    except (TypeError, ValueError):  # not counts: say nothing of products
+        return ""
+    return f", mixed ({counts_text(counts)})" if is_mixed(counts) else ""
+
+
 def _audit_outcome(entry: dict) -> tuple[str, str | None]:
     """What one audit entry came to, in a few words, and the model it concerns for the text table: for a
     retrain that did not promote, the champion that stays (the challenger, the entry's ``model_id``, is named in
@@ -847,7 +878,8 @@ def _audit_outcome(entry: dict) -> tuple[str, str | None]:
         text += f" ({added} of them only added to)" if added else ""
         return text + (f"; {unusual} unusual value(s) accepted" if unusual else ""), model
     if action == "train":  # an entry without ``lots`` (an older store) says just that it trained
-        return ("trained" if i.get("lots") is None else f"trained on {_lots_count(i.get('lots'))} lots"), model
+        return ("trained" if i.get("lots") is None else f"trained on {_lots_count(i.get('lots'))} lots"
+                ) + _mixed_entry_text(i), model
     if action == "reanchor":
         seal = o.get("checked_seal") if isinstance(o.get("checked_seal"), dict) else {}
         return ("re-anchored" + (f" at seal {seal['id']}" if seal.get("id") is not None else "")), model

@@ -105,6 +105,7 @@ def train(store, models_dir, chain_path, product, seed, coverage, spec_path, dis
 
 def format_models(rows: list[dict]) -> str:
     from linkage.models.registry import ROLES
+    from linkage.products import mixed_text
 
     if not rows:
         return "No models yet; train one with 'linkage train'."
@@ -116,6 +117,8 @@ def format_models(rows: list[dict]) -> str:
         mark = "*" if r.get("latest") else ("-" if not r.get("in_service", True) else " ")
         lines.append(f"{mark} {r['model_id']:<30}{created:<21}{'' if lots is None else lots:>5}  "
                      f"{r['status']:<11}{r.get('role') or '':<19}{sel}")
+        if r.get("mixed_products"):  # one model of several products (linkage.products)
+            lines.append(f"    {mixed_text(r['products'])}")
         if r.get("detail") and r["status"] != "ok":
             lines.append(f"    {r['detail']}")
         src = r.get("source") or {}

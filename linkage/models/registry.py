@@ -514,9 +514,15 @@ def list_models(models_dir) -> list[dict]:
 
 
 def _training_fields(meta: dict) -> dict:
-    """What ``linkage models`` shows of a model's training lots: ``n_lots``."""
+    """What ``linkage models`` shows of a model's training lots: ``n_lots``, ``products`` (each product with
+    ``n_lots``; ``product`` null for lots without a product name, :func:`linkage.products.training_counts`) and
+    ``mixed_products`` (lots of several products, or of one and lots without one: :func:`linkage.products.is_mixed`)."""
+    from linkage.products import is_mixed, training_counts
+
     training = meta.get("training") if isinstance(meta.get("training"), dict) else {}
-    return {"n_lots": training.get("n_lots")}
+    counts = training_counts(training)
+    return {"n_lots": training.get("n_lots"), "products": [{"product": p, "n_lots": n} for p, n in counts],
+            "mixed_products": is_mixed(counts)}
 
 
 def _recorded_metadata(models_dir: Path, model_id: str, entry: dict) -> dict | None:

@@ -178,3 +178,46 @@ def test_the_report_says_how_many_lots_of_other_products_it_leaves_out(store):
     b = _Builder(parallel=False)
     _data_section(b, champion, table, lots, [])
     assert "The store also holds" not in "".join(b.parts)
+
+
+def test_a_model_of_several_products_is_marked_mixed_in_models_audit_and_watch(store, monkeypatch):
+    """A model trained on several products was said to be so only by 'train' and 'predict'. It is now marked
+    mixed in 'linkage models' (a line under the model; --json ``products``, ``mixed_products``), in the audit
+    entry of its training ('trained on 42 lots, mixed (...)'; the entry's inputs gain ``product_lots`` and
+    ``lots_without_product``) and in 'watch' (a line; --json ``trained_products``, ``mixed_products``); a model of
+    one product is not. The counts are the campaigns' own (see the module's notes). Regression test of labels."""
+    _cheap(monkeypatch)
+    models = store["root"] / "models-marked"
+    r = CliRunner().invoke(cli, ["train", "--store", str(store["db"]), "--models-dir", str(models),
+                                 "--no-materials", "--json"])
+    assert r.exit_code == 0, r.output
+    mixed = json.loads(r.stdout)["model_id"]
+    c = store["counts"]
+    shown = {(p, n) for p, n in c.items()}
+    said = f"trained on 2 products: {B!r} ({c[B]} lots), {A!r} ({c[A]} lots), and {c[None]} lots with no product"
+    listed = json.loads(CliRunner().invoke(cli, ["models", "--models-dir", str(models), "--json"]).stdout)["models"]
+    [row] = [m for m in listed if m["model_id"] == mixed]
+    assert row["mixed_products"] is True and {(p["product"], p["n_lots"]) for p in row["products"]} == shown
+    text = CliRunner().invoke(cli, ["models", "--models-dir", str(models)]).stdout
+    assert f"    mixed: {said}" in text
+    one = json.loads(CliRunner().invoke(cli, ["models", "--models-dir", str(store["models"]), "--json"]).stdout)
+    [champion] = [m for m in one["models"] if m["model_id"] == store["champion"]]
+    assert champion["mixed_products"] is False and champion["products"] == [{"product": A, "n_lots": 24}]
+    assert "mixed:" not in CliRunner().invoke(cli, ["models", "--models-dir", str(store["models"])]).stdout
+
+    audit = CliRunner().invoke(cli, ["audit", "--store", str(store["db"])]).stdout
+    [line] = [l for l in audit.splitlines() if mixed in l and " train " in l]
+    total = sum(c.values())
+    assert f"trained on {total} lots, mixed ({B!r}: {c[B]}, {A!r}: {c[A]}, no product: {c[None]})" in line
+    [own] = [l for l in audit.splitlines() if store["champion"] in l and " train " in l]
+    assert "trained on 24 lots" in own and "mixed" not in own
+
+    w = CliRunner().invoke(cli, ["watch", "--store", str(store["db"]), "--models-dir", str(models), "--json"])
+    assert w.exit_code == 0, w.output
+    d = json.loads(w.stdout)
+    assert d["mixed_products"] is True and {(p["product"], p["n_lots"]) for p in d["trained_products"]} == shown
+    assert "alarms" in d and "notes" in d  # the keys it had are kept
+    wt = CliRunner().invoke(cli, ["watch", "--store", str(store["db"]), "--models-dir", str(models)]).stdout
+    assert f"Model {mixed} is mixed: {said}" in wt
+    own = api.watch(store=store["db"], models_dir=store["models"], model=store["champion"])
+    assert own.to_dict()["mixed_products"] is False and "mixed" not in own.text()
