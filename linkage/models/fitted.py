@@ -332,6 +332,13 @@ class FittedChain:
 
         return one_product(self.training)
 
+    def trained_on(self, lots) -> np.ndarray:
+        """Which of ``lots`` (lot ids, in their order) the chain was trained on, one boolean each: the lots of
+        its training record, compared as text (the record keeps them as text). The report's lots, map and
+        transfer sections all judge a training lot by it."""
+        used = set(map(str, self.training.get("lots") or []))
+        return np.array([str(lot) in used for lot in lots], dtype=bool)
+
     def stage(self, name: str) -> FittedStage:
         for st in self.stages:
             if st.name == name:

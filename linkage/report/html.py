@@ -401,7 +401,7 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
     _window_section(b, chain, table, spec, window, window_failure)
     from linkage.report.transfer_section import transfer_section  # scale-up between compactors (issue 16)
 
-    transfer_section(b, table, window, seed=seed, trained=chain.training.get("lots") or [])
+    transfer_section(b, table, window, seed=seed, trained_on=chain.trained_on)
     if plan is not None:
         from linkage.report.plan_section import plan_section, read_plan
 
@@ -607,7 +607,7 @@ def _data_section(b, chain, table, lots, other_lots=None, revised=()):
     counts = [(word, list(table[col].dropna().astype(str).value_counts().items()))
               for col, word in (("product", "products"), ("compactor", "compactors"))
               if col in table.columns and table[col].notna().any()]
-    n_trained = len(set(map(str, chain.training.get("lots") or [])) & set(table["lot"].astype(str)))
+    n_trained = int(chain.trained_on(table["lot"]).sum())  # one row per lot
     b.add(_part("lots", "summary", n=len(table), made=made, counts=counts,
                 others=others_text(other_lots) if other_lots else None, product=chain.trained_product,
                 n_trained=n_trained))
@@ -660,7 +660,7 @@ def _ranges(table) -> list[list[str]]:
 
 def _exclusions(chain, table) -> str:
     t = _by_lot(table)
-    trained = set(str(v) for v in chain.training.get("lots", []))
+    trained = dict(zip(t.index, chain.trained_on(t.index)))
     rows = []
     for name, target in chain.targets.items():
         used = set(str(v) for v in target.lots)
@@ -668,7 +668,7 @@ def _exclusions(chain, table) -> str:
         for lot in t.index:
             if lot in used:
                 continue
-            if lot not in trained:
+            if not trained[lot]:
                 why = "not in the data the model was trained on (added or changed later)"
             else:
                 need = [name] + [c for c in target.inputs]
@@ -1205,7 +1205,7 @@ def _domain_section(b, chain, table):
     panels = []
     rows = []
     t = _by_lot(table)
-    trained = [v for v in (str(x) for x in chain.training.get("lots", [])) if v in t.index]
+    trained = list(t.index[chain.trained_on(t.index)])  # the table's training lots, in its (time) order
     for stage in chain.stages:
         if stage.domain is None:
             b.note(f"{stage.name} stage: no attribute of it could be trained, so it has no domain model.")

@@ -111,8 +111,7 @@ def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: 
         return
     lots_x = table[FORCE] if FORCE in table.columns else None
     lots_y = table[GAP] if GAP in table.columns else None
-    used = set(map(str, chain.training.get("lots") or []))
-    trained = table["lot"].astype(str).isin(used).to_numpy()
+    trained = chain.trained_on(table["lot"])
     make = partial(plot_space, r, lots_x, lots_y, trained=trained)  # made where it is drawn, and not when kept
     what = "lower bound" if r.p_all_low is not None else "point estimate"
     b.figure(make, f"The {what} of the probability that a lot meets every specification at once "

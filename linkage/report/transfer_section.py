@@ -55,9 +55,10 @@ def _command(targets: list[float], gap: float) -> str:
     return f"linkage transfer --roll-diameter-mm D --roll-width-mm W --gap-mm {gap:.3g} {target}"
 
 
-def transfer_section(b, table, window=None, *, seed: int = 0, trained=None) -> None:
-    """Add the section to the report builder ``b`` (``linkage.report.html._Builder``). ``trained``: the lots
-    the model was trained on (the fit says how many of its lots they are); None: not said."""
+def transfer_section(b, table, window=None, *, seed: int = 0, trained_on=None) -> None:
+    """Add the section to the report builder ``b`` (``linkage.report.html._Builder``). ``trained_on``: which of
+    some lots the model was trained on (:meth:`linkage.models.fitted.FittedChain.trained_on`; the fit says how
+    many of its lots they are); None: not said."""
     from linkage.decide.transfer import fit_ribbon_physics, transfer
     from linkage.exceptions import LinkageError
     from linkage.report import figures as F
@@ -75,7 +76,7 @@ def transfer_section(b, table, window=None, *, seed: int = 0, trained=None) -> N
         b.note(f"The ribbon physics could not be fitted: {exc}")
         return
     t = table.dropna(subset=[_FORCE, _GAP, _DIAMETER, _POROSITY])
-    n_trained = None if trained is None else int(t["lot"].astype(str).isin(set(map(str, trained))).sum())
+    n_trained = None if trained_on is None else int(trained_on(t["lot"]).sum())
     b.add(_part("sections", "transfer_fit", physics=physics, d=physics.to_dict(), n_trained=n_trained))
 
     groups = t["compactor"].astype(str).to_numpy() if "compactor" in t.columns else None
