@@ -79,7 +79,8 @@ if TYPE_CHECKING:
     from linkage.spec import Spec
 
 __all__ = ["Workspace", "ingest", "assemble", "train", "window", "whatif", "whatif_rows", "report", "watch",
-           "retrain", "audit", "models", "record", "running", "transfer", "plan", "space"]
+           "retrain", "audit", "models", "record", "record_entry", "recording", "refuse_unanchored", "running",
+           "transfer", "plan", "space"]
 
 #: a progress callback: ``progress(label, done, total)``
 Progress = Callable[[str, int, int], None]
@@ -148,8 +149,8 @@ def _train_time_and_q(spec: Spec | None, given: float | None) -> dict:
     return {"dissolution_time_min": float(time_min), "dissolution_q_pct": q}
 
 
-def record(store, action: str, *, model_id: str | None, inputs, outputs, lot: str | None = None,
-           prediction: bool = False) -> bool:
+def record_entry(store, action: str, *, model_id: str | None, inputs, outputs, lot: str | None = None,
+                 prediction: bool = False) -> bool:
     """Append an entry to the store's audit trail (and, for a what-if, keep
     the prediction) when the store exists. Returns whether it was recorded:
     no store, no record (a what-if may be asked with no store at all)."""
@@ -164,11 +165,12 @@ def record(store, action: str, *, model_id: str | None, inputs, outputs, lot: st
     return True
 
 
-#: :func:`record` under a name the calls whose keyword ``record`` hides it can use
-_record_entry = record
+#: :func:`record_entry` under its first name (in ``__all__`` since the API began; the calls whose keyword
+#: ``record`` hides this name use :func:`record_entry`)
+record = record_entry
 
 
-def _recording(store, record: bool | None, action: str) -> bool:
+def recording(store, record: bool | None, action: str) -> bool:
     """Whether a ``window`` or ``predict`` (``action``) goes into ``store``'s audit trail, decided before any
     work so that a mistyped store refuses the call instead of losing its record, nothing written:
 
@@ -181,7 +183,7 @@ def _recording(store, record: bool | None, action: str) -> bool:
       (``recorded`` False; the command says so on stderr). ``store=None`` is no store: nothing recorded.
 
     A store that will be recorded in but holds seals without its anchor file is refused here too
-    (:func:`_refuse_unanchored`, exit code 6): its record would be refused at the end, after the work."""
+    (:func:`refuse_unanchored`, exit code 6): its record would be refused at the end, after the work."""
     if record is False:
         return False
     if store is None:
@@ -192,7 +194,7 @@ def _recording(store, record: bool | None, action: str) -> bool:
                              "record=False")
         return False
     if Path(store).exists():
-        _refuse_unanchored(store)
+        refuse_unanchored(store)
         return True
     if record is None and Path(store) == Path(DEFAULT_STORE):
         return False
@@ -204,13 +206,13 @@ def _recording(store, record: bool | None, action: str) -> bool:
                          f"run this {action} without recording it")
 
 
-def _refuse_unanchored(store) -> None:
+def refuse_unanchored(store) -> None:
     """Before the work of a call that records in the store at its end (:func:`record`): a store that holds
     seals but no anchor file refuses every write (:func:`linkage.store.refuse_unanchored`, exit code 6), so
     it is refused here, before any work is done or any file written."""
-    from linkage.store import refuse_unanchored
+    from linkage.store import refuse_unanchored as refuse
 
-    refuse_unanchored(store)
+    refuse(store)
 
 
 # --------------------------------------------------------------------------- the store
@@ -450,11 +452,11 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
     coherently with them (their conditional mean over the training lots). The window rests on the lower bound at ``assurance``
     of that probability (issue 12; :mod:`linkage.decide.bound`). Logged as
     ``window`` in the store's audit trail; ``record=False`` (``--no-record``) writes nothing in the store, and a
-    store that does not exist is refused unless it is the default ``linkage.db`` (:func:`_recording`)."""
+    store that does not exist is refused unless it is the default ``linkage.db`` (:func:`recording`)."""
     from linkage.decide.bound import check_assurance
     from linkage.decide.window import find_window
 
-    recording = _recording(store, record, "window")  # before any work: a store that would lose or refuse the record
+    will_record = recording(store, record, "window")  # before any work: a store that would lose or refuse the record
     assurance = check_assurance(assurance)
     spec = _spec(spec)
     settings, bad = _given_settings(settings)
@@ -467,8 +469,8 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
               confidence=confidence, n_draws=n_draws, seed=seed, assurance=assurance)  # for the report
     inputs = {"spec": spec.to_dict(), "spec_file": spec.file, "spec_sha256": spec.sha256, "settings": settings,
               "confidence": confidence, "seed": seed, "assurance": assurance}
-    recorded = recording and _record_entry(store, "window", model_id=result.model_id, inputs=inputs,
-                                           outputs=result.to_dict(curve=False))
+    recorded = will_record and record_entry(store, "window", model_id=result.model_id, inputs=inputs,
+                                            outputs=result.to_dict(curve=False))
     return Window(result=result, recorded=recorded, store=None if store is None else Path(store))
 
 
@@ -483,7 +485,7 @@ def transfer(store=DEFAULT_STORE, *, roll_diameter_mm: float, roll_width_mm: flo
     from linkage.decide.transfer import fit_ribbon_physics
     from linkage.decide.transfer import transfer as find
 
-    _refuse_unanchored(store)  # recorded at the end: a store that refuses the record is refused before the work
+    refuse_unanchored(store)  # recorded at the end: a store that refuses the record is refused before the work
     lots = assemble(store, product=product)
     physics = fit_ribbon_physics(lots, internal_friction_deg=internal_friction_deg,
                                  wall_friction_deg=wall_friction_deg, source=f"lots of {store}")
@@ -526,7 +528,7 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
         return planning.Planned(result, written)
     from linkage.decide.bound import check_assurance
 
-    _refuse_unanchored(store)  # recorded at the end: refused before the work and the plan's files
+    refuse_unanchored(store)  # recorded at the end: refused before the work and the plan's files
     assurance = check_assurance(assurance)
     spec = _spec(spec)
     if spec is None:
@@ -617,15 +619,15 @@ def _lot_spellings(lots, store) -> list[str | None]:
         return [None if lot is None else s.stored_spelling(lot) or lot for lot in spelled]
 
 
-def _recorded_whatifs(results, lots, store, recording: bool = True) -> list[WhatIfResult]:
+def _recorded_whatifs(results, lots, store, will_record: bool = True) -> list[WhatIfResult]:
     """The what-ifs, each stated for its lot in the store's spelling (read from the store whenever it exists)
-    and, when ``recording`` (:func:`_recording`), recorded with its prediction."""
+    and, when ``will_record`` (:func:`recording`), recorded with its prediction."""
     out = []
     for r, lot in zip(results, _lot_spellings(lots, store)):
         r.lot = lot  # stated on the result and its sheet, as recorded
         d = r.to_dict()
-        recorded = recording and record(store, "predict", model_id=d["model_id"], lot=lot, inputs=d["inputs"],
-                                        outputs=d, prediction=True)
+        recorded = will_record and record_entry(store, "predict", model_id=d["model_id"], lot=lot, inputs=d["inputs"],
+                                                outputs=d, prediction=True)
         out.append(WhatIfResult(result=r, lot=lot, recorded=recorded, store=None if store is None else Path(store)))
     return out
 
@@ -672,14 +674,14 @@ def whatif(values: Mapping[str, float | str], *, spec=None, store=DEFAULT_STORE,
     the store's predictions and audit trail (``predict``, for ``lot`` when
     given); ``record=False`` (``--no-record``) writes nothing in the store, and a
     store that does not exist is refused unless it is the default ``linkage.db``
-    (:func:`_recording`). ``lot`` and ``product`` are stated on
+    (:func:`recording`). ``lot`` and ``product`` are stated on
     the result and its sheet (product default: the model's, when it was
     trained on one; another product than the model's is refused)."""
     from linkage.decide.bound import check_assurance
     from linkage.decide.whatif import predict_whatif
     from linkage.exceptions import UsageError
 
-    recording = _recording(store, record, "predict")  # before any work: a store that would lose or refuse the record
+    will_record = recording(store, record, "predict")  # before any work: a store that would lose or refuse the record
     assurance = check_assurance(assurance)
     if lot is not None:
         from linkage.lotid import reader_spelling
@@ -697,7 +699,7 @@ def whatif(values: Mapping[str, float | str], *, spec=None, store=DEFAULT_STORE,
     # names and values are checked by predict_whatif
     result = predict_whatif(chain, values, spec=spec, level=level, seed=seed, lot=lot, product=product,
                             assurance=assurance)
-    return _recorded_whatifs([result], [lot], store, recording)[0]
+    return _recorded_whatifs([result], [lot], store, will_record)[0]
 
 
 def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, store=DEFAULT_STORE,
@@ -717,7 +719,7 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
     from linkage.decide.whatif import CsvRows, predict_many, read_rows
     from linkage.lotid import reader_spelling
 
-    recording = _recording(store, record, "predict")  # before any work: a store that would lose or refuse the record
+    will_record = recording(store, record, "predict")  # before any work: a store that would lose or refuse the record
     if isinstance(lots, str):
         reader_spelling(lots)  # an id with an invisible character is refused before any work
     csv_lots: list[str | None] | None = None
@@ -744,7 +746,7 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
 
     results = predict_many(chain, rows, spec=_spec(spec), level=level, seed=seed, product=product,
                            assurance=check_assurance(assurance))
-    return _recorded_whatifs(results, row_lots, store, recording)  # each row's lot stated on its result, as recorded
+    return _recorded_whatifs(results, row_lots, store, will_record)  # each row's lot stated on its result, as recorded
 
 
 def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", spec=None,
@@ -874,7 +876,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     from linkage.store import LotStore, current_tables_of
     from linkage.timepoint import check_time_point, model_time_point, time_point_text
 
-    _refuse_unanchored(store)  # logged at the end: a store that refuses the entry is refused before the work
+    refuse_unanchored(store)  # logged at the end: a store that refuses the entry is refused before the work
     chain = _fitted(models_dir, model)
     spec = _spec(spec)
     found = None
@@ -971,7 +973,7 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
         raise UsageError(f"--adjust must be one of {', '.join(guide.ADJUSTABLE)}; got {adjust!r}")
     if baseline < 2:
         raise UsageError(f"--baseline must be at least 2 samples; got {baseline}")
-    _refuse_unanchored(store)  # recorded at the end: a store that refuses the record is refused before the work
+    refuse_unanchored(store)  # recorded at the end: a store that refuses the record is refused before the work
     spec = _spec(spec)
     df, lot, problems = guide.read_samples(samples)
     if lot is not None and not problems:

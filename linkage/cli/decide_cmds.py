@@ -134,7 +134,7 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
     --no-record writes nothing in the store (a model received without its
     lots); the store, when it exists, is still read for --lot's spelling.
     """
-    from linkage.api import _recording, whatif, whatif_rows
+    from linkage.api import recording, whatif, whatif_rows
     from linkage.decide.whatif import parse_assignments
     from linkage.exceptions import UsageError
 
@@ -144,7 +144,7 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
         check_output(page_path)
     record = record_wanted(no_record)
     if assignments or from_csv is not None:  # a what-if to record: a mistyped store refused before any file
-        _recording(store, record, "predict")
+        recording(store, record, "predict")
     spec = None
     if spec_path is not None:
         from linkage.spec import read_spec
