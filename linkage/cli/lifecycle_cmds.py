@@ -88,6 +88,8 @@ def watch(store, models_dir, model_id, spec_path, product, as_json):
 
     Order of use: after each ingest of new lots, before 'linkage retrain'.
     An alarm says the process moved away from the model; then retrain.
+    A model trained on several products is said to be mixed (--json:
+    trained_products, mixed_products).
 
     \b
     Example:

@@ -148,7 +148,10 @@ def models(models_dir, import_dir, note, as_json):
     When the champion fails its checks, the commands that use 'latest'
     (predict, window, report ...) are refused (exit code 4), and no older
     model is used in its place: give them --model ID. This listing still
-    shows every model, with the champion's status.
+    shows every model, with the champion's status, and the lots of a model
+    that fails its checks where its metadata still matches the index. A
+    model trained on several products is marked mixed under its line
+    (--json: products, mixed_products).
 
     A model folder copied in by hand is 'foreign' and is never loaded until
     it is imported with --import and a --note saying where it came from.
