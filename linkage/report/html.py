@@ -50,6 +50,7 @@ import pandas as pd
 
 from linkage import CAUTION, __version__
 from linkage.numbers import percent_text
+from linkage.report.page import trained_text
 from linkage.report.templating import Markup, macro, render
 from linkage.report.sheet import JUDGE_TEXT, STYLE as SHEET_STYLE
 
@@ -445,7 +446,8 @@ def _window_or_reason(chain, spec, confidence, seed, assurance=0.9):
 def _page(b: _Builder, chain) -> str:
     """The whole page (``templates/page.html.j2``)."""
     return str(render("page.html.j2", n_figures=len(b.figures), model_id=chain.model_id or "unsaved",
-                      created_at=chain.created_at, made=datetime.now(timezone.utc).isoformat(timespec="seconds"),
+                      created_at=trained_text(chain.created_at),
+                      made=datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M:%S UTC"),
                       version=__version__, caution=CAUTION, toc=b.toc, style=Markup(SHEET_STYLE + EXTRA_STYLE),
                       figures_reused=b.reused.get("figures"),
                       body=Markup("".join(b.parts)))) + "\n"

@@ -25,6 +25,8 @@ FIXTURE = Path(__file__).with_name("data") / "demo_sections.json"
 VARIABLE = [
     (re.compile(r"m-\d{8}T\d{6}Z-[0-9a-f]{8}"), "<model id>"),
     (re.compile(r"\d{4}-\d{2}-\d{2}T\d{2}:\d{2}(:\d{2}(\.\d+)?)?(Z|[+-]\d{2}:\d{2})?"), "<time>"),
+    # the heading's times as the report writes them (page.trained_text): to the second, in UTC, said
+    (re.compile(r"\d{4}-\d{2}-\d{2} \d{2}:\d{2}:\d{2} UTC"), "<time>"),
     (re.compile(r"\b[0-9a-f]{64}\b"), "<sha256>"),
     (re.compile(r"(/[\w.-]+)+/(demo-lots\.db|models|spec\.toml|report\.html)\b"), r"<path>/\2"),
     # the model card's library versions: the same report at the floors' pins (ci/constraints-floors.txt)

@@ -81,10 +81,10 @@ def test_a_different_seed_spec_or_model_finds_nothing_to_reuse(demo):
 
 
 def test_the_normalising_replaces_only_what_varies_between_runs():
-    text = ("Model m-20261204T191929Z-da230cb0 trained 2026-12-04T19:19:29+00:00, "
+    text = ("Model m-20261204T191929Z-da230cb0 trained 2026-12-04T19:19:29+00:00, made 2026-12-04 19:20:01 UTC, "
             "SHA-256 " + "ab" * 32 + " of /tmp/x/demo-lots.db; window 0.209 – 0.434; "
             "numpy 1.26.0, scikit-learn 1.9.1, scipy 1.17.1 seed 0")
-    assert normalise(text) == ("Model <model id> trained <time>, SHA-256 <sha256> of <path>/demo-lots.db; "
+    assert normalise(text) == ("Model <model id> trained <time>, made <time>, SHA-256 <sha256> of <path>/demo-lots.db; "
                                "window 0.209 – 0.434; numpy <version>, scikit-learn <version>, "
                                "scipy <version> seed 0")
 

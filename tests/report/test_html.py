@@ -119,6 +119,20 @@ def test_model_card_records_the_model(report, chain):
         assert f"{100 * t.coverage:.0f}%" in card
 
 
+def test_the_report_heading_gives_both_times_to_the_second_in_utc(report, chain):
+    """The heading's training and report times are written as the what-if page writes the training time
+    (page.trained_text: to the second, UTC, said; the model records microseconds). Regression test of a
+    label: no outside source."""
+    import re
+
+    from linkage.report.page import trained_text
+
+    meta = report.html[report.html.find("<p class=meta>"):]
+    meta = meta[:meta.find("</p>")]
+    assert f"trained {trained_text(chain.created_at)} ·" in meta and str(chain.created_at) not in meta
+    assert re.search(r"report made \d{4}-\d\d-\d\d \d\d:\d\d:\d\d UTC ·", meta), meta
+
+
 def test_window_section_names_the_window_the_limiting_attribute_and_the_force(report, chain, table, spec):
     from linkage.decide.window import find_window
 
