@@ -33,6 +33,8 @@ call               what it does                                         recorded
 :func:`space`      the map over two settings and the acceptable ranges   —
 :func:`retrain`    a challenger, promoted only by the rule               ``retrain`` or ``promote``
 :func:`audit`      the audit trail, as a DataFrame                       —
+:func:`set_aside`  leave lots out of fitting and judging, with a reason  ``set-aside`` per lot
+:func:`restore`    put set-aside lots back in use, with a reason         ``restore`` per lot
 =================  ===================================================  ==============================
 
 :func:`window`, :func:`whatif` and :func:`whatif_rows` refuse a ``store`` that
@@ -80,7 +82,7 @@ if TYPE_CHECKING:
 
 __all__ = ["Workspace", "ingest", "assemble", "train", "window", "whatif", "whatif_rows", "report", "watch",
            "retrain", "audit", "models", "record", "record_entry", "recording", "refuse_unanchored", "running",
-           "transfer", "plan", "space"]
+           "transfer", "plan", "space", "set_aside", "restore"]
 
 #: a progress callback: ``progress(label, done, total)``
 Progress = Callable[[str, int, int], None]
@@ -309,7 +311,51 @@ def assemble(store=DEFAULT_STORE, *, product: str | None = None, spec=None,
     if not tables:
         raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
                                                                           else "") + "; nothing to assemble")
-    return assemble_table(tables, fines_cutoff_um=fines_cutoff_um, **_time_and_q(spec, dissolution_time_min))
+    table = assemble_table(tables, fines_cutoff_um=fines_cutoff_um, **_time_and_q(spec, dissolution_time_min))
+    return _say_set_aside(table, tables.set_aside)
+
+
+def _say_set_aside(table: pd.DataFrame, set_aside: dict) -> pd.DataFrame:
+    """The assembled ``table`` with the lots set aside that it leaves out: ``attrs["set_aside_lots"]`` (their ids)
+    and a note (``attrs["notes"]``, which ``linkage assemble`` prints)."""
+    from linkage.store import set_aside_note
+
+    table.attrs["set_aside_lots"] = list(set_aside)
+    note = set_aside_note(set_aside)
+    if note:
+        table.attrs["notes"] = [*table.attrs.get("notes", []), note]
+    return table
+
+
+def set_aside(lots, store=DEFAULT_STORE, *, reason: str | None = None):
+    """Set ``lots`` aside (``linkage set-aside``): their rows stay in the store unchanged, but every call that
+    fits or judges lots (:func:`assemble`, and so train, retrain, watch, report, plan, transfer) leaves them out
+    and says so, until :func:`restore`. Each decision is an audit entry ``set-aside`` (who, when, ``reason``),
+    sealed like every record. Refused (``UsageError``, exit code 2, nothing written) without a ``reason``, for a
+    lot the store does not hold (every such lot named) and for a lot already set aside; a store without its
+    anchor file is refused (``StoreIntegrityError``, exit code 6). Lots are found under any spelling, as an
+    ingest finds them (:func:`linkage.lotid.lot_key`)."""
+    return _set_aside_decision(lots, store, reason, restore=False)
+
+
+def restore(lots, store=DEFAULT_STORE, *, reason: str | None = None):
+    """Put set-aside ``lots`` back in use (``linkage restore``; an audit entry ``restore`` each); refused as
+    :func:`set_aside` is, and for a lot that is not set aside."""
+    return _set_aside_decision(lots, store, reason, restore=True)
+
+
+def _set_aside_decision(lots, store, reason, *, restore: bool):
+    from linkage.exceptions import UsageError
+    from linkage.results import SetAside
+    from linkage.store import RESTORE, SET_ASIDE, LotStore, given_reason, set_aside_needs_reason
+
+    action = RESTORE if restore else SET_ASIDE
+    if given_reason(reason) is None:  # before the store is opened: nothing to write without one
+        raise UsageError(set_aside_needs_reason(action))
+    with LotStore(store, create=False, for_writing=True) as s:  # a store without its anchor file: refused, exit 6
+        decisions = s.restore(lots, reason) if restore else s.set_aside(lots, reason)
+        still = s.set_aside_lots()
+    return SetAside(action=action, decisions=decisions, store=Path(store), set_aside_now=list(still))
 
 
 # --------------------------------------------------------------------------- models
@@ -387,7 +433,7 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
         which = f" of product {product!r}" if product else ""
         raise InsufficientDataError(f"the store {store} holds no lots{which} to train on")
     check_dissolution_time(tables, at["dissolution_time_min"])
-    table = assemble_table(tables, **at)
+    table = _say_set_aside(assemble_table(tables, **at), tables.set_aside)
     if n_jobs is None:
         n_jobs = -1 if backend == "dask" else 1
     with _cluster(backend, scheduler):
@@ -397,6 +443,7 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
         fitted = fit(table, chain, seed=seed, nominal_coverage=coverage, progress=progress,
                      n_jobs=n_jobs, backend=backend, dissolution_time_min=at["dissolution_time_min"],
                      group_by=group_by)
+    fitted.training["set_aside_lots"] = list(tables.set_aside)  # recorded with the model: left out of its lots
     model_id = save(fitted, models_dir)
     with LotStore(store, create=False, for_writing=True) as lot_store:
         lot_store.log("train", model_id=model_id,
@@ -411,6 +458,7 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
                               # the training lots' products (audit: a model of several is marked mixed)
                               "product_lots": fitted.training.get("product_lots"),
                               "lots_without_product": fitted.training.get("lots_without_product"),
+                              "set_aside_lots": list(tables.set_aside),
                               "table_sha256": fitted.training["table_sha256"]},
                       outputs={t: {"selected": v.selected, "coverage": v.coverage}
                                for t, v in fitted.targets.items()})
@@ -910,16 +958,29 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     if others:
         notes.append(f"the store's {others_text(others)} are not watched: only the lots of {product!r} are "
                      "(--product to watch another product's)")
+    aside, in_training = _set_aside_notes(tables.set_aside, chain, notes, "not watched")
     table = assemble_table(tables, dissolution_time_min=model_time_point(chain)[0])  # the model's time point
     result = run_watch(chain, table, ribbon=tables.get("ribbon"), window=found, recorded=recorded)
     revised = revised_since_training(stored_lots, chain.training.get("lots") or [], chain.created_at)
     with LotStore(store, create=False, for_writing=True) as s:
         s.log("watch", model_id=chain.model_id, inputs={"window": found, "product": product},
               outputs={"alarms": result.alarms, "new_lots": result.new_lots,
-                       "revised_since_training": [r["lot"] for r in revised]})
+                       "revised_since_training": [r["lot"] for r in revised], "set_aside_lots": aside})
     return Watched(result=result, n_lots=len(table), window=found, store=Path(store),
                    time_point=time_point_text(chain) if "dissolution_pct" in chain.targets else None, revised=revised,
-                   notes=notes, trained_products=[{"product": p, "n_lots": n} for p, n in chain_counts(chain)])
+                   notes=notes, trained_products=[{"product": p, "n_lots": n} for p, n in chain_counts(chain)],
+                   set_aside=aside, set_aside_trained=in_training)
+
+
+def _set_aside_notes(set_aside: dict, chain, notes: list[str], what: str) -> tuple[list[str], list[str]]:
+    """Add to ``notes`` what a command says of the lots set aside it leaves out (``what``: "not watched") and of
+    those of them in ``chain``'s training set; returns both lists of lots."""
+    from linkage.store import set_aside_note, set_aside_trained_note
+
+    note = set_aside_note(set_aside, what)
+    in_training, trained_note = set_aside_trained_note(set_aside, chain.training.get("lots"), chain.model_id)
+    notes += [n for n in (note, trained_note) if n]
+    return list(set_aside), in_training
 
 
 def _running_window(fitted, lean, spec, held: dict, seed: int, assurance: float) -> tuple[float, float]:

@@ -114,6 +114,10 @@ class Ingested(_Result):
                 lines += [f"  {what} ({len(some)}): {', '.join(some) if some else '-'}" for what, some in (
                     ("added to, no stored value changed", r.lots_added_to),
                     ("stored values changed or removed", r.lots_changed))]
+        if r.lots_set_aside:
+            lines.append(f"Set aside, and they stay so ({len(r.lots_set_aside)}): {', '.join(r.lots_set_aside)}; "
+                         "left out of fitting and judging until 'linkage restore LOT --reason TEXT' ('linkage lots' "
+                         "shows why)")
         if not r.changed:
             lines.append("Nothing changed: every lot is as stored." if not r.preview
                          else "Nothing would change: every lot is as stored.")
@@ -182,6 +186,7 @@ def train_json(fitted: FittedChain) -> dict:
         "group_by": meta["training"].get("group_by", "lot"),
         "materials": meta["training"].get("materials"),
         **products_json(meta["training"]),
+        "set_aside_lots": list(meta["training"].get("set_aside_lots") or []),
         "targets": {name: {**{k: t.get(k) for k in TARGET_KEYS}, "forward": t.get("forward")}
                     for name, t in meta["targets"].items()},
         "skipped": meta["skipped"],
@@ -325,9 +330,13 @@ class Trained(_Result):
     @property
     def notes(self) -> list[str]:
         """What ``linkage train`` says on stderr: that the model was trained on several products (or on lots
-        without a product name beside them), naming them and their lots."""
+        without a product name beside them), naming them and their lots; and the lots set aside that it left
+        out (recorded with the model, ``training["set_aside_lots"]``)."""
+        from linkage.store import set_aside_note
+
         note = products_json(self.chain.training)["products_note"]
-        return [note] if note else []
+        aside = set_aside_note(self.chain.training.get("set_aside_lots") or [], "left out of its training set")
+        return [n for n in (note, aside) if n]
 
     def summary(self) -> pd.DataFrame:
         """One row per attribute and candidate (index ``attribute``,
@@ -716,6 +725,9 @@ class Watched(_Result):
     revised: list[dict] = field(default_factory=list)
     #: the model's training lots by product (``product``, ``n_lots``; :func:`linkage.products.chain_counts`)
     trained_products: list[dict] = field(default_factory=list)
+    #: the lots set aside that the watch left out, and those of them in the model's training set
+    set_aside: list[str] = field(default_factory=list)
+    set_aside_trained: list[str] = field(default_factory=list)
 
     @property
     def mixed_products(self) -> bool:
@@ -727,7 +739,8 @@ class Watched(_Result):
     def to_dict(self) -> dict:
         """What ``linkage watch --json`` prints."""
         return {**self.result.to_dict(), "revised_since_training": list(self.revised), "notes": list(self.notes),
-                "trained_products": [dict(p) for p in self.trained_products], "mixed_products": self.mixed_products}
+                "trained_products": [dict(p) for p in self.trained_products], "mixed_products": self.mixed_products,
+                "set_aside_lots": list(self.set_aside), "set_aside_in_training": list(self.set_aside_trained)}
 
     def text(self) -> str:
         from linkage.decide.watch import design_lines, revised_lines, whatif_settings_lines
@@ -832,6 +845,57 @@ class Retrained(_Result):
                 f"{len(r.new_lots)} new lot(s)>")
 
 
+# --------------------------------------------------------------------------- set aside, restore
+
+
+@dataclass(repr=False)
+class SetAside(_Result):
+    """Lots set aside or put back in use (``linkage set-aside``, ``linkage restore``): the decisions written
+    (one audit entry each) and the lots set aside after them."""
+
+    action: str
+    decisions: list[dict]
+    store: Path
+    set_aside_now: list[str] = field(default_factory=list)
+
+    @property
+    def result(self) -> list[dict]:
+        return self.decisions
+
+    def to_dict(self) -> dict:
+        """What ``--json`` prints."""
+        return {"action": self.action, "store": str(self.store), "lots": [d["lot"] for d in self.decisions],
+                "decisions": list(self.decisions), "set_aside_lots": list(self.set_aside_now)}
+
+    def text(self) -> str:
+        from linkage.store import SET_ASIDE
+
+        d = self.decisions
+        lots = ", ".join(x["lot"] for x in d)
+        first = d[0] if d else {"at": "", "user": "", "reason": ""}
+        if self.action == SET_ASIDE:
+            lines = [f"Set aside {len(d)} lot(s) in {self.store}: {lots}.",
+                     "Their rows stay in the store, unchanged; every command that fits or judges lots (assemble, "
+                     "train, retrain, watch, report, plan, transfer) leaves them out and says so, until "
+                     "'linkage restore LOT --reason TEXT'."]
+        else:
+            lines = [f"Restored {len(d)} lot(s) in {self.store}: {lots}; they are in use again."]
+        lines.append(f"Recorded in the audit trail (entr{'y' if len(d) == 1 else 'ies'} "
+                     f"{', '.join(str(x['audit_id']) for x in d)}), {first['at']}, by {first['user']}; "
+                     f"reason: {first['reason']}")
+        lines.append(f"Lots set aside now: {len(self.set_aside_now)}"
+                     + (f" ({', '.join(self.set_aside_now[:12])}{' …' if len(self.set_aside_now) > 12 else ''})"
+                        if self.set_aside_now else ""))
+        return "\n".join(lines)
+
+    def summary(self) -> pd.DataFrame:
+        """One row per decision (index ``lot``): ``action``, ``audit_id``, ``at``, ``user``, ``reason``."""
+        return _frame([dict(x) for x in self.decisions], "lot")
+
+    def __repr__(self) -> str:
+        return f"<SetAside {self.action} of {len(self.decisions)} lot(s) in {self.store}>"
+
+
 # --------------------------------------------------------------------------- the audit trail as text
 
 def _lots_count(value) -> int:
@@ -911,6 +975,8 @@ def _audit_outcome(entry: dict) -> tuple[str, str | None]:
                 else "no drift"), model
     if action == "transfer":
         return f"{_lots_count(o.get('targets'))} roll force(s) transferred", model
+    if action in ("set-aside", "restore"):
+        return ("set aside: left out of fitting and judging" if action == "set-aside" else "back in use"), model
     return "", model
 
 

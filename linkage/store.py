@@ -275,6 +275,8 @@ class IngestResult:
     changes: dict[str, dict] = field(default_factory=dict)
     #: a preview's revised lots whose differences are not listed in ``changes``
     more_lots: int = 0
+    #: the ingest's revised or unchanged lots that are set aside: they stay so (``linkage restore`` puts them back)
+    lots_set_aside: list[str] = field(default_factory=list)
 
     @property
     def changed(self) -> bool:
@@ -317,10 +319,11 @@ class _IngestPlan:
         self.shown: dict[str, list[dict]] = {}
         self.unusual_records: list[dict] = []
         self.warnings: list[str] = []
+        self.set_aside: list[str] = []  # the ingest's stored lots that are set aside (they stay so)
 
     def result(self, ingest_id: int | None, *, preview: bool = False) -> IngestResult:
         out = IngestResult(self.new, self.revised, self.unchanged, ingest_id, self.warnings, self.added_to,
-                           self.changed, self.unusual_records, preview)
+                           self.changed, self.unusual_records, preview, lots_set_aside=self.set_aside)
         if preview:
             listed = [lot for lot in self.revised if lot in self.shown][:PREVIEW_LOTS]
             changed = set(self.changed)
@@ -426,6 +429,71 @@ ACCEPT_NEEDS_REASON = ("--accept-unusual takes unusual values deliberately: give
 REANCHOR_NEEDS_REASON = ("--reanchor anchors the lot store again deliberately and records it in the audit trail: "
                          "give --reason TEXT to say why (e.g. the anchor file lost in a copy, and the newest seal's "
                          "hash compared with the batch record). Nothing was written.")
+
+
+#: the audit actions of a lot's set-aside decisions (``linkage set-aside``, ``linkage restore``): each decision is an
+#: audit entry of the lot, sealed like every entry (linkage/seal.py), so an edited or removed decision fails the
+#: store's check; the state of a lot is its newest decision
+SET_ASIDE, RESTORE = "set-aside", "restore"
+#: a lot's state, as ``linkage lots`` shows it
+IN_USE, SET_ASIDE_STATE = "in use", "set aside"
+
+
+def set_aside_needs_reason(action: str) -> str:
+    """The refusal of a set-aside or restore decision without a reason."""
+    what = ("sets lots aside (left out of fitting and judging)" if action == SET_ASIDE
+            else "puts set-aside lots back in use")
+    return (f"'linkage {action}' {what} on the record: give --reason TEXT to say why (for example the deviation "
+            "number and the assignable cause). Nothing was written.")
+
+
+def _set_aside_state(c) -> dict[str, dict]:
+    """The lots set aside now (their newest decision is a set-aside), in the order they were set aside: lot (as
+    stored) -> the decision in force, ``{"audit_id", "at", "user", "reason"}``."""
+    state: dict[str, dict] = {}
+    for audit_id, at, user, action, lot, inputs in c.execute(
+            "SELECT id, at, user, action, lot, inputs_json FROM audit WHERE action IN (?, ?) ORDER BY id",
+            (SET_ASIDE, RESTORE)).fetchall():
+        state.pop(lot, None)
+        if action == SET_ASIDE:
+            state[lot] = {"audit_id": audit_id, "at": at, "user": user,
+                          "reason": (json.loads(inputs) or {}).get("reason") if inputs else None}
+    return state
+
+
+def set_aside_note(set_aside, what: str = "left out") -> str | None:
+    """What a command that leaves set-aside lots out says: how many, which, and where to look (None: none)."""
+    lots = list(set_aside)
+    if not lots:
+        return None
+    shown = ", ".join(lots[:12]) + (f" and {len(lots) - 12} more" if len(lots) > 12 else "")
+    return (f"{len(lots)} lot{'' if len(lots) == 1 else 's'} set aside in the store "
+            f"{'is' if len(lots) == 1 else 'are'} {what}: {shown} "
+            "('linkage lots' shows why; 'linkage restore LOT --reason TEXT' puts one back in use)")
+
+
+def set_aside_trained_note(set_aside, training_lots, model_id: str) -> tuple[list[str], str | None]:
+    """The set-aside lots that were in a model's training set (the model was trained before they were set
+    aside, or they were restored then), and what the watch and retrain say of them."""
+    trained = {str(lot) for lot in training_lots or []}
+    lots = [lot for lot in set_aside if lot in trained]
+    if not lots:
+        return [], None
+    shown = ", ".join(lots[:12]) + (f" and {len(lots) - 12} more" if len(lots) > 12 else "")
+    return lots, (f"{len(lots)} lot{'' if len(lots) == 1 else 's'} now set aside "
+                  f"{'was' if len(lots) == 1 else 'were'} in the training set of "
+                  f"model {model_id}: {shown}; the model was fitted on {'it' if len(lots) == 1 else 'them'} "
+                  f"('linkage retrain' fits a challenger without {'it' if len(lots) == 1 else 'them'})")
+
+
+class LotTables(dict):
+    """What :meth:`LotStore.current_tables` returns: table -> DataFrame of the lots in use, and ``set_aside``: the
+    lots of the same scope (product) left out because they are set aside (lot -> the decision in force, as
+    :meth:`LotStore.set_aside_lots` gives it), in the order the lots came."""
+
+    def __init__(self, tables=(), set_aside: dict | None = None):
+        super().__init__(tables)
+        self.set_aside: dict[str, dict] = dict(set_aside or {})
 
 
 class LotStore:
@@ -801,6 +869,8 @@ class LotStore:
         plan.unusual_records = self._refuse(c, ingest, product_of, (plan.changed, first), plan.reason,
                                             accept_unusual)
         plan.warnings = list(ingest.warnings)
+        aside = _set_aside_state(c)
+        plan.set_aside = [lot for lot in order if lot in aside]
         for lot in plan.revised:
             old = current[lot]["product"]
             if lot in products and products[lot] != old:
@@ -829,7 +899,7 @@ class LotStore:
                   {"folder": folder, "files": {t: s["file"] for t, s in sources.items()}, "reason": reason,
                    "accepted_unusual": plan.unusual_records},
                   {"ingest_id": ingest_id, "new": new, "revised": revised, "unchanged": len(unchanged),
-                   "added_to": plan.added_to})
+                   "added_to": plan.added_to, **({"set_aside": plan.set_aside} if plan.set_aside else {})})
         return plan.result(ingest_id)
 
     def _split_revised(self, c, lots: list[str], changes: dict[str, list[str]], current: dict,
@@ -977,12 +1047,16 @@ class LotStore:
 
     # ---- reading
 
-    def current_tables(self, product: str | None = None) -> dict[str, pd.DataFrame]:
-        """The latest revision of every lot, one DataFrame a table.
+    def current_tables(self, product: str | None = None, *, include_set_aside: bool = False) -> LotTables:
+        """The latest revision of every lot in use, one DataFrame a table.
 
         Same columns and dtypes as :func:`linkage.read.read_table` (extra
         columns of any lot included). Tables without rows are left out, as in
         a folder that lacks them. ``product`` keeps the lots of one product.
+        A lot set aside (``linkage set-aside``) is left out, unless
+        ``include_set_aside``: this is the one place every command that fits or
+        judges lots reads them, so all agree; the result's ``set_aside`` names
+        the lots left out (:class:`LotTables`).
         """
         params = (product,) if product is not None else ()
         # the lots in the order they came (CROSS JOIN keeps lots the outer loop: no sort), each with its
@@ -996,6 +1070,9 @@ class LotStore:
                      + ("AND cr.product = ? " if product is not None else "") + "ORDER BY l.rowid")
         with _read.bulk(), self._snapshot():
             links = self._read(links_sql, params)
+            aside = {} if include_set_aside else self.set_aside_lots()
+            left_out = {lot: aside[lot] for lot in dict.fromkeys(link[5] for link in links) if lot in aside}
+            links = [link for link in links if link[5] not in left_out]
             by_table: dict[str, list[tuple]] = {}
             for link in links:
                 by_table.setdefault(link[0], []).append(link)
@@ -1009,7 +1086,68 @@ class LotStore:
                     raise self._error(exc) from None
                 out.update(self._current_tables(mine, tids, texts))
                 del tids, texts
-            return out
+            return LotTables(out, left_out)
+
+    def set_aside_lots(self) -> dict[str, dict]:
+        """The lots set aside now, in the order they were set aside: lot (as stored) -> the decision in force,
+        ``{"audit_id", "at", "user", "reason"}`` (see :data:`SET_ASIDE`)."""
+        try:
+            return _set_aside_state(self._conn)
+        except sqlite3.DatabaseError as exc:
+            raise self._error(exc) from None
+
+    def set_aside_events(self, lot: str) -> list[dict]:
+        """The set-aside and restore decisions of ``lot`` (as stored), oldest first: ``{"audit_id", "at",
+        "user", "action", "reason"}``."""
+        return [{"audit_id": i, "at": at, "user": u, "action": a,
+                 "reason": (json.loads(ij) or {}).get("reason") if ij else None}
+                for i, at, u, a, ij in self._read("SELECT id, at, user, action, inputs_json FROM audit "
+                                                  "WHERE action IN (?, ?) AND lot = ? ORDER BY id",
+                                                  (SET_ASIDE, RESTORE, lot))]
+
+    def set_aside(self, lots, reason: str | None, *, user: str | None = None) -> list[dict]:
+        """Set ``lots`` aside, on the record: their rows stay as stored, but every command that fits or judges
+        lots leaves them out (:meth:`current_tables`) until :meth:`restore`. One audit entry ``set-aside`` per
+        lot (who, when, ``reason``), sealed, in one transaction. Refused (:class:`UsageError`, nothing written)
+        without a reason, for a lot the store does not hold (all of them named) and for a lot already set
+        aside. Returns the decisions written."""
+        return self._decide_set_aside(lots, reason, SET_ASIDE, user)
+
+    def restore(self, lots, reason: str | None, *, user: str | None = None) -> list[dict]:
+        """Put set-aside ``lots`` back in use, on the record (one audit entry ``restore`` per lot); refused as
+        :meth:`set_aside` is, and for a lot that is not set aside."""
+        return self._decide_set_aside(lots, reason, RESTORE, user)
+
+    def _decide_set_aside(self, lots, reason: str | None, action: str, user: str | None) -> list[dict]:
+        reason = given_reason(reason)
+        if reason is None:
+            raise UsageError(set_aside_needs_reason(action))
+        given = [reader_spelling(lot) for lot in ([lots] if isinstance(lots, str) else list(lots))]
+        if not any(given):
+            raise UsageError(f"'linkage {action}' needs at least one lot id. Nothing was written.")
+        user = user or current_user()
+        with self._write() as c:
+            found = {lot: self.stored_spelling(lot) if lot else None for lot in given}
+            unknown = [lot for lot, stored in found.items() if stored is None]
+            if unknown:
+                raise self._not_stored_all([lot or "" for lot in unknown])
+            chosen = list(dict.fromkeys(found.values()))
+            state = _set_aside_state(c)
+            wrong = [lot for lot in chosen if (lot in state) == (action == SET_ASIDE)]
+            if wrong:
+                said = ("already set aside (since " + ", ".join(f"{lot}: {state[lot]['at']}" for lot in wrong) + ")"
+                        if action == SET_ASIDE else "not set aside, so there is nothing to restore: "
+                        + ", ".join(wrong))
+                raise UsageError(f"{len(wrong)} lot(s) {said}; 'linkage lots' shows each lot's state. "
+                                 "Nothing was written.")
+            out = []
+            for lot in chosen:
+                audit_id = self._log(c, action, user, lot, None, {"reason": reason},
+                                     {"state": SET_ASIDE_STATE if action == SET_ASIDE else IN_USE})
+                at = c.execute("SELECT at FROM audit WHERE id = ?", (audit_id,)).fetchone()[0]
+                out.append({"audit_id": audit_id, "lot": lot, "action": action, "at": at, "user": user,
+                            "reason": reason})
+        return out
 
     def _current_tables(self, links: list[tuple], tids: np.ndarray, texts: np.ndarray) -> dict[str, pd.DataFrame]:
         """The frames from the current lot tables (table, id, rows, columns) in
@@ -1082,7 +1220,9 @@ class LotStore:
     def lots(self, product: str | None = None) -> pd.DataFrame:
         """One row per lot: product, revision, last change, and per table the
         number of rows (``<table>_rows``) and the share of filled template
-        cells (``<table>_filled_pct``, the lot column not counted)."""
+        cells (``<table>_filled_pct``, the lot column not counted); ``state``
+        ("in use" or "set aside") and, for a lot set aside, the decision in
+        force (``set_aside_reason``, ``set_aside_at``, ``set_aside_by``)."""
         sql = ("SELECT cr.lot, cr.product, cr.revision, cr.ingest_id, i.at, rt.tbl, lt.n_rows, lt.n_filled "
                "FROM current_revisions cr JOIN lots l ON l.lot = cr.lot JOIN ingests i ON i.id = cr.ingest_id "
                "LEFT JOIN revision_tables rt ON rt.revision_id = cr.id "
@@ -1102,8 +1242,14 @@ class LotStore:
                 cells = n_rows * (len(TABLES[tbl].columns) - 1)
                 rec[f"{tbl}_rows"] = n_rows
                 rec[f"{tbl}_filled_pct"] = 100.0 * n_filled / cells if cells else math.nan
+        aside = self.set_aside_lots()
+        for lot, rec in records.items():
+            decision = aside.get(lot) or {}
+            rec.update(state=SET_ASIDE_STATE if decision else IN_USE, set_aside_reason=decision.get("reason"),
+                       set_aside_at=decision.get("at"), set_aside_by=decision.get("user"))
         columns = ["lot", "product", "revision", "ingest_id", "updated_at",
-                   *(f"{t}_{what}" for t in TABLES for what in ("rows", "filled_pct"))]
+                   *(f"{t}_{what}" for t in TABLES for what in ("rows", "filled_pct")),
+                   "state", "set_aside_reason", "set_aside_at", "set_aside_by"]
         df = pd.DataFrame(list(records.values()), columns=columns)
         df["lot"] = df["lot"].astype("str")
         # a lot without a product stays missing: pandas before 3 turns None into the text "None" under astype(str)
@@ -1124,7 +1270,9 @@ class LotStore:
         "table added", "row added", "row removed", "value changed" (``old``
         None: a blank cell filled), and ``adds_only``: whether the revision only
         adds to the previous one (:func:`adds_only`; true for the first), so
-        that it needed no reason.
+        that it needed no reason; ``set_aside_events``: the lot's set-aside and
+        restore decisions (:meth:`set_aside_events`) made after this revision
+        and before the next, in time order.
         """
         lot = reader_spelling(lot) or lot  # spaces as the reader reads them, as predict --lot takes them
         lot = self.stored_spelling(lot) or lot  # one lot, one spelling: found as the reader finds it
@@ -1152,8 +1300,11 @@ class LotStore:
                                     "old": None, "new": _n_rows(n_rows)})
             out.append({"lot": lot, "revision": number, "ingest_id": ingest_id, "at": at, "user": user,
                         "product": product, "reason": reason, "tables": tables, "changes": changes,
-                        "adds_only": adds_only(changes)})
+                        "adds_only": adds_only(changes), "set_aside_events": []})
             previous = now
+        for event in self.set_aside_events(lot):  # under the revision in force when the decision was made
+            rev = next((r for r in reversed(out) if r["at"] <= event["at"]), out[0])
+            rev["set_aside_events"].append(event)
         return out
 
     def _rows(self, lot_table_id: int) -> list[dict]:
@@ -1271,6 +1422,19 @@ class LotStore:
         hint = f"; did you mean {', '.join(near)}?" if near else (f"; it holds {len(lots)} lots" if lots
                                                                   else "; the store is empty")
         return UsageError(f"lot '{lot}' is not in the store {self.path}{hint}")
+
+    def _not_stored_all(self, lots: list[str]) -> UsageError:
+        """The refusal of lots the store does not hold, every one named with the nearest stored ids (exit code 2,
+        nothing written)."""
+        import difflib
+
+        stored = self.lot_ids()
+        said = []
+        for lot in lots:
+            near = difflib.get_close_matches(lot, stored, n=3, cutoff=0.6)
+            said.append(repr(lot) + (f" (did you mean {', '.join(near)}?)" if near else ""))
+        return UsageError(f"{len(lots)} lot(s) not in the store {self.path}, which holds {len(stored)} lots: "
+                          f"{'; '.join(said)}. Nothing was written.")
 
     def audit(self, lot: str | None = None, *, with_ingests: bool = False, require_lot: bool = False) -> list[dict]:
         """Audit entries, oldest first; only those about ``lot`` when given,
@@ -1500,11 +1664,18 @@ def _needs_reason(lots: list[str], shown: dict[str, list[dict]]) -> str:
             "What only adds (a table, rows, blank cells filled) needs none." + hints + " Nothing was written.")
 
 
-def current_tables_of(lot_store, product: str | None) -> dict:
-    """The store's current tables (:meth:`linkage.store.LotStore.current_tables`) of ``product``'s lots; a
-    product named that has no lot in the store is refused, naming the store's products (else the next step
-    would say only that the process table has no rows)."""
+def current_tables_of(lot_store, product: str | None) -> LotTables:
+    """The store's current tables (:meth:`linkage.store.LotStore.current_tables`) of ``product``'s lots in use
+    (``set_aside``: those left out); a product named that has no lot in the store is refused, naming the store's
+    products (else the next step would say only that the process table has no rows), and so is a scope whose
+    every lot is set aside (:class:`~linkage.exceptions.InsufficientDataError`, exit code 2)."""
     tables = lot_store.current_tables(product)
+    if not tables and tables.set_aside:
+        from linkage.exceptions import InsufficientDataError
+
+        of = f" of product {product!r}" if product is not None else ""
+        raise InsufficientDataError(f"every lot{of} in the store {lot_store.path} is set aside; "
+                                    + set_aside_note(tables.set_aside, "left out"))
     if product is not None and not tables:
         import difflib
 

@@ -34,6 +34,8 @@ COMMANDS: dict[str, str] = {
     "transfer": "linkage.cli.transfer_cmds:transfer",
     "plan": "linkage.cli.plan_cmds:plan",
     "space": "linkage.cli.space_cmds:space",
+    "set-aside": "linkage.cli.setaside_cmds:set_aside",
+    "restore": "linkage.cli.setaside_cmds:restore",
 }
 
 

@@ -89,8 +89,10 @@ def ingest(folder, store, reason, accept_unusual, preview, as_json):
 @json_option
 @handle_errors
 def lots(store, product, as_json):
-    """List the lots in the store: product, revision, and for each table the
-    number of rows and the share of its template cells that are filled.
+    """List the lots in the store: product, revision, for each table the
+    number of rows and the share of its template cells that are filled, and
+    the lot's state: 'in use', or 'set aside' (left out of fitting and
+    judging by 'linkage set-aside'), with the reason, who and when.
 
     \b
     Example:
@@ -108,13 +110,20 @@ def lots(store, product, as_json):
         click.echo("The store holds no lots" + (f" of product {product}." if product else " yet."))
         return
     used = [t for t in TABLES if df[f"{t}_rows"].sum() > 0]
-    header = ["lot", "product", "rev", *used]
+    header = ["lot", "product", "rev", *used, "state"]
     body = [[rec["lot"], _text(rec["product"]), str(rec["revision"]),
-             *(_cell(rec[f"{t}_rows"], rec[f"{t}_filled_pct"]) for t in used)] for rec in df.to_dict("records")]
+             *(_cell(rec[f"{t}_rows"], rec[f"{t}_filled_pct"]) for t in used), rec["state"]]
+            for rec in df.to_dict("records")]
     widths = [max(len(r[i]) for r in [header, *body]) for i in range(len(header))]
     for r in [header, *body]:
         click.echo("  ".join(v.ljust(w) for v, w in zip(r, widths)).rstrip())
-    click.echo(f"{len(df)} lots; per table: rows (percent of template cells filled).")
+    aside = df[df["state"] != "in use"]
+    click.echo(f"{len(df)} lots" + (f", {len(aside)} of them set aside" if len(aside) else "")
+               + "; per table: rows (percent of template cells filled).")
+    if len(aside):
+        click.echo("Set aside (left out of fitting and judging; 'linkage restore LOT --reason TEXT' puts one back):")
+        for rec in aside.to_dict("records"):
+            click.echo(f"  {rec['lot']}: {rec['set_aside_reason']} (by {rec['set_aside_by']}, {rec['set_aside_at']})")
 
 
 @click.command()
@@ -126,7 +135,8 @@ def history(lot, store, as_json):
     """Show every revision of LOT: when, by whom, from which files (with
     SHA-256), and which values changed or were added; a later revision says
     whether it only added (a table, rows, blank cells filled) or changed
-    stored values. LOT is found under any spelling of it (case, dashes,
+    stored values. Decisions to set the lot aside or restore it ('linkage
+    set-aside', 'linkage restore') are shown in time order, with who and why. LOT is found under any spelling of it (case, dashes,
     spaces around), as an ingest finds a stored lot.
 
     \b
@@ -156,6 +166,10 @@ def history(lot, store, as_json):
             click.echo(f"  {tbl:<15} {info['file']} sha256 {info['sha256'][:12]}  {_rows(info['rows'])}{mark}")
         for ch in rev["changes"]:
             click.echo("    " + change_text(ch))
+        for event in rev.get("set_aside_events", []):  # decisions made while this revision was in force
+            what = "Set aside" if event["action"] == "set-aside" else "Restored (back in use)"
+            click.echo(f"{what}: audit entry {event['audit_id']}, {event['at']}, by {event['user']}")
+            click.echo(f"  reason: {event['reason']}")
 
 
 @click.command()

@@ -97,6 +97,10 @@ class RetrainDecision:
     #: the lots trained on that the watch's alarm flags against the champion, each ``{"lot", "signal"}`` in time
     #: order (:func:`linkage.decide.watch.alarmed_lots`)
     alarmed_lots: list[dict] = field(default_factory=list)
+    #: the lots set aside that the challenger was not fitted on (``linkage set-aside``), and those of them in the
+    #: champion's training set
+    set_aside_lots: list[str] = field(default_factory=list)
+    set_aside_in_training: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict:
         return {
@@ -114,6 +118,8 @@ class RetrainDecision:
             "window_moved": self.window_moved,
             "notes": self.notes,
             "alarmed_lots": self.alarmed_lots,
+            "set_aside_lots": self.set_aside_lots,
+            "set_aside_in_training": self.set_aside_in_training,
             "promotion_test": {"test": TEST.format(alpha=ALPHA), "alpha": ALPHA, "margin": self.tolerance,
                                "min_new_lots": MIN_NEW_LOTS},
             "caution": CAUTION,
@@ -329,6 +335,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
                      "and the challenger is fitted on its lots only")
     if not new_lots:
         notes.append("no lots beyond the champion's training lots; the challenger sees the same data")
+    aside = _set_aside_said(tables.set_aside, champion, notes)
     from linkage.decide.watch import revised_since_training
 
     revised = revised_since_training(stored_lots, champion.training["lots"], champion.created_at)
@@ -344,6 +351,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     challenger = train_chain(table, champion.chain, seed=champion.seed if seed is None else seed,
                              nominal_coverage=champion.nominal_coverage, progress=progress,
                              dissolution_time_min=time_min, group_by=_group_by(champion))
+    challenger.training["set_aside_lots"] = aside[0]  # recorded with the model, as train records it
     comparisons = compare(champion, challenger, table, tolerance=tolerance)
     promote, reasons = decide(comparisons, force=force, reason=reason, tolerance=tolerance)
     moved = None
@@ -359,6 +367,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
         champion_id=champion.model_id, challenger_id=challenger_id, promoted=promote, forced=force,
         reason=given_reason(reason) or "", reasons=reasons, rule=RULE, tolerance=tolerance, new_lots=new_lots,
         comparisons=comparisons, window_moved=moved, notes=notes, product=product, alarmed_lots=alarmed,
+        set_aside_lots=aside[0], set_aside_in_training=aside[1],
     )
     # two phases (registry.begin_decision): the audit row's commit is the decision
     decision_id = registry.begin_decision(models_dir, decision.to_dict())
@@ -375,6 +384,16 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
         raise
     registry.settle_decision(models_dir, decision_id, recorded=True)
     return decision
+
+
+def _set_aside_said(set_aside: dict, champion, notes: list[str]) -> tuple[list[str], list[str]]:
+    """Add to ``notes`` the lots set aside that the challenger is not fitted on, and those of them the champion
+    was; returns both lists."""
+    from linkage.store import set_aside_note, set_aside_trained_note
+
+    in_training, trained = set_aside_trained_note(set_aside, champion.training.get("lots"), champion.model_id)
+    notes += [n for n in (set_aside_note(set_aside, "left out of the challenger's lots"), trained) if n]
+    return list(set_aside), in_training
 
 
 def settle_pending(store_path, models_dir) -> list[tuple[str, str]]:

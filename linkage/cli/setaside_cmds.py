@@ -1,0 +1,77 @@
+"""``linkage set-aside`` and ``linkage restore``: leave stored lots out of fitting and judging, on the record."""
+
+from __future__ import annotations
+
+import json
+
+import click
+
+from linkage.cli.common import handle_errors, json_option, store_option
+
+_REASON_HELP = ("Why (required; recorded with the decision in the audit trail): the deviation number and the "
+                "assignable cause, for example.")
+
+
+@click.command("set-aside")
+@click.argument("lots", nargs=-1, required=True, metavar="LOT [LOT ...]")
+@click.option("--reason", default=None, metavar="TEXT", help=_REASON_HELP)
+@store_option
+@json_option
+@handle_errors
+def set_aside(lots, reason, store, as_json):
+    """Set stored lots aside: their rows stay in the store, unchanged, but
+    every command that fits or judges lots (assemble, train, retrain, watch,
+    report, plan, transfer) leaves them out and says so, until 'linkage
+    restore'. For a lot that should never have been used: a mistyped lot id,
+    a lot never really made, a lot with a known assignable cause (a blend
+    error). Nothing is deleted.
+
+    Each decision is an audit entry 'set-aside' (who, when, why), sealed like
+    every record: 'linkage verify' finds one edited or removed. 'linkage
+    lots' shows each lot's state and reason, 'linkage history LOT' and
+    'linkage audit' the decisions. LOT is found under any spelling (case,
+    dashes), as an ingest finds a stored lot.
+
+    Refused (exit code 2, nothing written) without --reason, for a lot the
+    store does not hold (every one named) and for a lot already set aside;
+    a store without its anchor file is refused (exit code 6).
+
+    \b
+    Example:
+      linkage set-aside EX-017 --reason "DEV-2026-014: blend error, wrong API lot charged"
+      linkage set-aside EX-0l7 EX-099 --store site.db --reason "ids typed wrongly; re-sent as EX-017, EX-009"
+    """
+    from linkage.api import set_aside as run
+
+    _show(run(lots, store, reason=reason), as_json)
+
+
+@click.command("restore")
+@click.argument("lots", nargs=-1, required=True, metavar="LOT [LOT ...]")
+@click.option("--reason", default=None, metavar="TEXT", help=_REASON_HELP)
+@store_option
+@json_option
+@handle_errors
+def restore(lots, reason, store, as_json):
+    """Put set-aside lots back in use: every command that fits or judges lots
+    takes them again. Each decision is an audit entry 'restore' (who, when,
+    why), sealed like every record.
+
+    Refused (exit code 2, nothing written) without --reason, for a lot the
+    store does not hold and for a lot that is not set aside; a store without
+    its anchor file is refused (exit code 6).
+
+    \b
+    Example:
+      linkage restore EX-017 --reason "DEV-2026-014 closed: blend error not confirmed"
+    """
+    from linkage.api import restore as run
+
+    _show(run(lots, store, reason=reason), as_json)
+
+
+def _show(result, as_json: bool) -> None:
+    if as_json:
+        click.echo(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
+        return
+    click.echo(result.text())
