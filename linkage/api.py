@@ -539,6 +539,10 @@ def transfer(store=DEFAULT_STORE, *, roll_diameter_mm: float, roll_width_mm: flo
                                  wall_friction_deg=wall_friction_deg, source=f"lots of {store}")
     result = find(physics, roll_diameter_mm=roll_diameter_mm, roll_width_mm=roll_width_mm, roll_gap_mm=roll_gap_mm,
                   porosity=porosity, window=window, level=level, n_draws=n_draws, seed=seed)
+    if lots.attrs.get("set_aside_lots"):  # said in the text and --json
+        import dataclasses
+
+        result = dataclasses.replace(result, set_aside_lots=tuple(lots.attrs["set_aside_lots"]))
     record(store, "transfer", model_id=None,
            inputs={"roll_diameter_mm": roll_diameter_mm, "roll_width_mm": roll_width_mm, "roll_gap_mm": roll_gap_mm,
                    "porosity": porosity, "window": None if window is None else list(window), "level": level,
@@ -591,6 +595,11 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
     result = planning.augment_design(chain, table, spec, n_lots, ranges=dict(ranges or {}), settings=settings,
                                      confidence=confidence, assurance=assurance, seed=seed, prefix=prefix,
                                      product=product, edges=edges, criterion=criterion)
+    result.set_aside_lots = list(table.attrs.get("set_aside_lots", []))
+    from linkage.store import set_aside_note
+
+    result.notes += [n for n in [set_aside_note(result.set_aside_lots, "left out of the lots the plan starts from")]
+                     if n]
     written = planning.write_plan(result, out) if out is not None else []
     recorded = record(store, "plan", model_id=result.model_id,
                       inputs={"n_lots": n_lots, "ranges": {k: list(v) for k, v in (ranges or {}).items()},
@@ -829,7 +838,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     product = chain.trained_product
     with LotStore(store, create=False) as lot_store:
         tables = current_tables_of(lot_store, product)
-        lots = lot_store.lots(product=product)
+        lots = lot_store.lots(product=product, in_use=True)  # as the table: the lots in use
         others, store_cautions = lot_store.other_products(product), lot_store.cautions()  # said in the report
     if not tables:
         of = f" of product {product}" if product else ""
@@ -871,7 +880,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     rendered = render_report(chain, table, spec=spec, window=found, lots=lots, confidence=confidence, seed=seed,
                              curve_draws=REPORT_CURVE_DRAWS, assurance=assurance, plan=plan, space=space,
                              reused=reused, kept_figures=kept_figures, other_lots=others,
-                             store_cautions=store_cautions)
+                             store_cautions=store_cautions, set_aside=tables.set_aside)
     if "mewma" in rendered.computed:
         _keep(models_dir, chain.model_id, "mewma", None,
               (designs.result if designs is not None else []) + rendered.computed["mewma"], "linkage report",
@@ -1073,7 +1082,8 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
         source = "given (--window)"
     stage = next(st for st in lean.stages if guide.POROSITY in st.targets)
     with LotStore(store, create=False) as s:
-        ribbon = s.current_tables().get("ribbon")
+        stored = s.current_tables()  # the lots in use: a lot set aside is left out of the within-lot spread
+        ribbon = stored.get("ribbon")
     if ribbon is None:
         import pandas as pd
 
@@ -1082,6 +1092,7 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
     result = guide.advise(lean, df, values, window, ribbon, stage.residual_lots, lot=lot, window_source=source,
                           adjust=adjust, baseline=baseline, confirm_shift_sd=confirm_shift_sd, alpha=alpha,
                           power=power, held=held)
+    result.set_aside_lots = list(stored.set_aside)
     import hashlib
 
     digest = hashlib.sha256(Path(samples).read_bytes()).hexdigest()

@@ -1217,12 +1217,13 @@ class LotStore:
             if c.in_transaction:
                 c.execute("COMMIT")
 
-    def lots(self, product: str | None = None) -> pd.DataFrame:
+    def lots(self, product: str | None = None, *, in_use: bool = False) -> pd.DataFrame:
         """One row per lot: product, revision, last change, and per table the
         number of rows (``<table>_rows``) and the share of filled template
         cells (``<table>_filled_pct``, the lot column not counted); ``state``
         ("in use" or "set aside") and, for a lot set aside, the decision in
-        force (``set_aside_reason``, ``set_aside_at``, ``set_aside_by``)."""
+        force (``set_aside_reason``, ``set_aside_at``, ``set_aside_by``). ``in_use``: only the lots in use
+        (those :meth:`current_tables` reads)."""
         sql = ("SELECT cr.lot, cr.product, cr.revision, cr.ingest_id, i.at, rt.tbl, lt.n_rows, lt.n_filled "
                "FROM current_revisions cr JOIN lots l ON l.lot = cr.lot JOIN ingests i ON i.id = cr.ingest_id "
                "LEFT JOIN revision_tables rt ON rt.revision_id = cr.id "
@@ -1258,7 +1259,7 @@ class LotStore:
             df[f"{t}_rows"] = df[f"{t}_rows"].astype("int64")
             df[f"{t}_filled_pct"] = df[f"{t}_filled_pct"].astype("float64")
         df["revision"] = df["revision"].astype("int64")
-        return df
+        return df[df["state"] == IN_USE].reset_index(drop=True) if in_use else df
 
     def history(self, lot: str) -> list[dict]:
         """Every revision of ``lot``, oldest first, with what changed.

@@ -193,6 +193,8 @@ class Plan:
     criterion: dict = field(default_factory=dict)
     notes: list[str] = field(default_factory=list)
     min_distance: float | None = None  # start: smallest distance between two lots, settings scaled to 0-1
+    #: augmentation: the store's lots set aside (``linkage set-aside``) that the plan did not start from
+    set_aside_lots: list[str] = field(default_factory=list)
 
     @property
     def names(self) -> list[str]:
@@ -206,6 +208,7 @@ class Plan:
             "lots": [lot.to_dict() for lot in self.lots],
             "edges": [dict(e) for e in self.edges], "criterion": dict(self.criterion),
             "min_distance": self.min_distance, "notes": list(self.notes),
+            "set_aside_lots": list(self.set_aside_lots),
             "tables": {t: list(df.columns) for t, df in self.tables().items()},
             "caution": CAUTION,
         }

@@ -362,6 +362,8 @@ class RunningResult:
     confirm: dict
     notes: list[str] = field(default_factory=list)
     recorded: bool = False
+    #: the store's lots set aside (``linkage set-aside``), left out of the training lots' within-lot spread
+    set_aside_lots: list[str] = field(default_factory=list)
 
     @property
     def limits(self) -> tuple[float, float]:
@@ -387,6 +389,7 @@ class RunningResult:
             "method": METHOD,
             "notes": self.notes,
             "recorded": self.recorded,
+            "set_aside_lots": list(self.set_aside_lots),
             "caution": CAUTION,
         }
 
@@ -431,6 +434,10 @@ class RunningResult:
                      f"SD from the centre, two-sided α = {cf['alpha']:g}, power {cf['power']:g})")
         for note in self.notes if c is not None else []:
             lines.append(f"Note: {note}")
+        if self.set_aside_lots:
+            from linkage.store import set_aside_note
+
+            lines.append(f"Note: {set_aside_note(self.set_aside_lots, 'left out of the within-lot SD')}")
         if self.held:
             lines.append("Held (not given): " + "; ".join(f"{k} = {self.settings[k]:.4g} ({v})"
                                                            for k, v in self.held.items()))

@@ -165,13 +165,16 @@ class Transfer:
     targets: list
     #: "porosity" or "window"
     kind: str
+    #: the store's lots set aside (``linkage set-aside``) left out of the fit
+    set_aside_lots: tuple = ()
 
     def to_dict(self) -> dict:
         """What ``linkage transfer --json`` prints."""
         return {"rolls": {"roll_diameter_mm": self.roll_diameter_mm, "roll_width_mm": self.roll_width_mm,
                           "roll_gap_mm": self.roll_gap_mm},
                 "kind": self.kind, "level": self.level, "targets": self.targets,
-                "model": self.physics.to_dict(), "leaves_out": LEAVES_OUT, "caution": CAUTION}
+                "model": self.physics.to_dict(), "leaves_out": LEAVES_OUT,
+                "set_aside_lots": list(self.set_aside_lots), "caution": CAUTION}
 
     def summary(self):
         import pandas as pd
@@ -192,6 +195,10 @@ class Transfer:
             named = counts_text([(k or None, n) for k, n in p.products.items()])
             lines.append(f"  !! fitted to the lots of several products together ({named}); for one product's "
                          "powder, give --product NAME")
+        if self.set_aside_lots:
+            from linkage.store import set_aside_note
+
+            lines.append(f"  Note: {set_aside_note(self.set_aside_lots, 'left out of the fit')}")
         if self.kind == "window":
             lo, hi = self.targets[0], self.targets[-1]
             lines.append(f"  porosity window {lo['ribbon_porosity']:.3f}-{hi['ribbon_porosity']:.3f}: specific roll "

@@ -305,7 +305,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
                   confidence: float = 0.9, seed: int = 0, curve_draws: int = 400,
                   assurance: float = 0.9, plan=None, space=None, reused: dict[str, str] | None = None,
                   parallel: bool = True, kept_figures=None, other_lots=None,
-                  store_cautions: list[str] | None = None) -> Report:
+                  store_cautions: list[str] | None = None, set_aside: dict | None = None) -> Report:
     """Build the report of a fitted chain.
 
     Parameters
@@ -335,6 +335,9 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         :func:`linkage.products.other_counts`): the lots section says how many there are.
     store_cautions : what the lot store read cannot show (:meth:`linkage.store.LotStore.cautions`: a
         sealed store without its anchor file); stated in "At a glance" and in the cautions section.
+    set_aside : the store's lots set aside (``linkage set-aside``) that the table leaves out (lot -> the
+        decision, :attr:`linkage.store.LotTables.set_aside`): the lots section names them, and those of them
+        the model was trained on.
     kept_figures : the figures an earlier report drew with the same inputs
         (a :class:`linkage.models.reuse.Reused` of kind "figures",
         :mod:`linkage.report.kept`): a figure whose caption is the one kept
@@ -363,7 +366,8 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         pending["space"] = Background(design_space, chain, spec, fork=parallel, **args)
     try:
         _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
-                  pending, computed, other_lots=other_lots, store_cautions=store_cautions or [])
+                  pending, computed, other_lots=other_lots, store_cautions=store_cautions or [],
+                  set_aside=set_aside or {})
         b.draw_figures()
     finally:
         b.close()
@@ -380,7 +384,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
 
 
 def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
-              pending, computed, other_lots=None, store_cautions=()) -> None:
+              pending, computed, other_lots=None, store_cautions=(), set_aside=None) -> None:
     """Every section in order into ``b``. ``pending``: the watch and (unless given) the map, being computed;
     ``computed`` gets the window and the map when they were computed here."""
     limits = dict(spec.limits) if spec is not None else {}
@@ -393,6 +397,7 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
     revised = revised_training_lots(chain, lots)
     _glance(b, chain, table, spec, window, revised, store_cautions)
     _data_section(b, chain, table, lots, other_lots, revised)
+    _set_aside_part(b, chain, set_aside or {})
     _ribbon_section(b, chain, table, limits)
     _baseline_section(b, chain, table, limits)
     _attribute_section(b, chain, table, limits)
@@ -594,6 +599,22 @@ def _presence(table: pd.DataFrame, lots: pd.DataFrame | None) -> tuple[pd.DataFr
         return present[[c for c in TABLES if c in present.columns]], "the assembled table"
     return pd.DataFrame({name: t.reindex(order)[col].notna() for name, col in cols.items()}, index=order), \
         "the assembled table"
+
+
+def _set_aside_part(b, chain, set_aside: dict) -> None:
+    """The lots set aside in the store, left out of this report's table, and those of them the model was
+    trained on (it was trained before they were set aside)."""
+    from linkage.store import set_aside_note, set_aside_trained_note
+
+    note = set_aside_note(set_aside, "left out of this report")
+    if not note:
+        return
+    b.add(_part("blocks", "para", text=note[0].upper() + note[1:] + ". Why: "
+                + "; ".join(f"{lot}: {d.get('reason')} (by {d.get('user')}, {d.get('at')})"
+                            for lot, d in set_aside.items()) + "."))
+    trained = set_aside_trained_note(set_aside, chain.training.get("lots"), chain.model_id)[1]
+    if trained:
+        b.add(_part("blocks", "para", text=trained[0].upper() + trained[1:] + "."))
 
 
 def _data_section(b, chain, table, lots, other_lots=None, revised=()):
