@@ -1,0 +1,306 @@
+"""Setting a stored lot aside, with a reason, on the record (``linkage set-aside`` / ``linkage restore``).
+
+A GMP lab may exclude data only by a recorded, justified, reversible decision, and nothing may be deleted. The
+refusals here (no reason, an unknown lot, a lot already set aside or not set aside, a store without its anchor file)
+and the tamper checks are regression tests of the store's own rules: they need no outside source. Where a test
+compares a table, the expected one is computed outside the store: the folder's files read by
+:func:`linkage.read.read_folder`, the lot's rows dropped with pandas, and assembled as any table is. The seal chain
+tampered with is the hash chain of Haber & Stornetta (1991, J. Cryptology 3:99-111), edited here with plain sqlite3.
+"""
+
+from __future__ import annotations
+
+import json
+import shutil
+import sqlite3
+from contextlib import closing
+from pathlib import Path
+
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+
+from linkage import api, seal
+from linkage.assemble import assemble
+from linkage.cli.main import cli
+from linkage.read import read_folder
+from linkage.store import LotStore, current_user
+
+DATA = Path(__file__).resolve().parent / "data"
+EXAMPLE = DATA / "template-example"
+REASON = "DEV-2026-014: blend error, wrong excipient lot charged"
+
+
+def _run(args: list) -> object:
+    result = CliRunner().invoke(cli, [str(a) for a in args], env={"LINKAGE_STORE": None}, catch_exceptions=True)
+    if result.exception is not None and not isinstance(result.exception, SystemExit):
+        raise AssertionError(f"linkage {' '.join(map(str, args))} raised {result.exception!r}") from result.exception
+    assert "Traceback" not in result.output, result.output
+    return result
+
+
+def _dump(path: Path) -> dict:
+    """Every row of every table, and the anchor file's bytes, read with plain sqlite3."""
+    with closing(sqlite3.connect(f"file:{path}?mode=ro", uri=True)) as con:
+        names = [r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type = 'table' ORDER BY name")]
+        rows = {n: con.execute(f'SELECT rowid, * FROM "{n}" ORDER BY rowid').fetchall() for n in names}
+    anchor = seal.anchor_path(path)
+    return {**rows, "(anchor)": anchor.read_bytes() if anchor.exists() else None}
+
+
+@pytest.fixture()
+def store(tmp_path) -> Path:
+    path = tmp_path / "site.db"
+    api.ingest(EXAMPLE, path)
+    return path
+
+
+def _expected_without(lot: str | None) -> pd.DataFrame:
+    """The example folder assembled, without ``lot``'s rows (dropped with pandas)."""
+    tables = read_folder(EXAMPLE).tables
+    if lot is not None:
+        tables = {t: df[df["lot"] != lot].reset_index(drop=True) for t, df in tables.items()}
+    return assemble(tables)
+
+
+def test_set_aside_leaves_the_lot_out_of_assemble_and_says_so_and_restore_brings_it_back(store):
+    before = api.assemble(store)
+    pd.testing.assert_frame_equal(before, _expected_without(None), check_exact=True)
+    result = _run(["set-aside", "ex-002", "--reason", REASON, "--store", store])  # found under any spelling
+    assert result.exit_code == 0, result.output
+    assert "Set aside 1 lot(s)" in result.stdout and "EX-002" in result.stdout and REASON in result.stdout
+    aside = api.assemble(store)
+    pd.testing.assert_frame_equal(aside, _expected_without("EX-002"), check_exact=True)
+    assert aside.attrs["set_aside_lots"] == ["EX-002"]
+    said = _run(["assemble", "--store", store])
+    assert said.exit_code == 0 and "Assembled 3 lots" in said.stdout
+    assert "1 lot set aside in the store is left out: EX-002" in said.stdout and "'linkage lots'" in said.stdout
+    back = _run(["restore", "EX-002", "--reason", "DEV-2026-014 closed: not confirmed", "--store", store, "--json"])
+    assert back.exit_code == 0, back.output
+    assert json.loads(back.stdout)["set_aside_lots"] == [] and json.loads(back.stdout)["lots"] == ["EX-002"]
+    again = api.assemble(store)
+    pd.testing.assert_frame_equal(again, before, check_exact=True)  # the identical table
+    assert again.attrs["set_aside_lots"] == []
+
+
+def test_the_rows_stay_in_the_store_unchanged(store):
+    with closing(sqlite3.connect(store)) as con:
+        kept = {t: con.execute(f"SELECT * FROM {t} ORDER BY rowid").fetchall()
+                for t in ("lots", "lot_tables", "row_blocks", "revisions", "revision_tables", "ingests")}
+    api.set_aside(["EX-001", "EX-003"], store, reason=REASON)
+    with closing(sqlite3.connect(store)) as con:
+        assert {t: con.execute(f"SELECT * FROM {t} ORDER BY rowid").fetchall() for t in kept} == kept
+    with LotStore(store, create=False) as s:
+        every = s.current_tables(include_set_aside=True)
+        assert sorted(every["process"]["lot"]) == ["EX-001", "EX-002", "EX-003", "EX-004"]
+        assert list(s.current_tables().set_aside) == ["EX-001", "EX-003"]
+
+
+@pytest.mark.parametrize("reason", [None, "", "   "])
+def test_a_reason_is_required_and_nothing_is_written_without_one(store, reason):
+    before = _dump(store)
+    for command in ("set-aside", "restore"):
+        args = [command, "EX-001", "--store", store] + ([] if reason is None else ["--reason", reason])
+        result = _run(args)
+        assert result.exit_code == 2 and "--reason TEXT" in result.stderr and "Nothing was written" in result.stderr
+    assert _dump(store) == before
+
+
+def test_unknown_lots_are_all_named_and_nothing_is_written(store):
+    before = _dump(store)
+    result = _run(["set-aside", "EX-001", "EX-02", "NOPE-9", "--reason", REASON, "--store", store])
+    assert result.exit_code == 2, result.output
+    err = result.stderr
+    assert "2 lot(s) not in the store" in err and "'EX-02'" in err and "'NOPE-9'" in err
+    assert "did you mean" in err and "Nothing was written" in err
+    assert _dump(store) == before  # EX-001, known, was not set aside either
+
+
+def test_setting_aside_twice_or_restoring_a_lot_in_use_is_refused_and_writes_nothing(store):
+    api.set_aside("EX-001", store, reason=REASON)
+    before = _dump(store)
+    twice = _run(["set-aside", "EX-001", "EX-002", "--reason", REASON, "--store", store])
+    assert twice.exit_code == 2 and "already set aside" in twice.stderr and "EX-001" in twice.stderr
+    in_use = _run(["restore", "EX-002", "--reason", "x", "--store", store])
+    assert in_use.exit_code == 2 and "not set aside" in in_use.stderr and "EX-002" in in_use.stderr
+    assert _dump(store) == before
+
+
+def test_a_store_without_its_anchor_file_is_refused_exit_6_and_nothing_written(store):
+    seal.anchor_path(store).unlink()
+    before = _dump(store)
+    for command in ("set-aside", "restore"):
+        result = _run([command, "EX-001", "--reason", REASON, "--store", store])
+        assert result.exit_code == 6, result.output
+        assert "anchor file" in result.stderr and "Nothing was written" in result.stderr
+    assert _dump(store) == before and not seal.anchor_path(store).exists()
+
+
+def test_a_missing_store_is_refused_and_not_created(tmp_path):
+    path = tmp_path / "typo.db"
+    result = _run(["set-aside", "EX-001", "--reason", REASON, "--store", path])
+    assert result.exit_code == 2 and "no lot store" in result.stderr
+    assert not path.exists()
+
+
+def _edit(path: Path, sql: str, params: tuple = ()) -> None:
+    """An edit behind linkage's back: the append-only triggers dropped, the statement run, the triggers made
+    again."""
+    con = sqlite3.connect(path)
+    triggers = con.execute("SELECT name, sql FROM sqlite_master WHERE type = 'trigger'").fetchall()
+    for name, _ in triggers:
+        con.execute(f"DROP TRIGGER {name}")
+    con.execute(sql, params)
+    for _, text in triggers:
+        con.execute(text)
+    con.commit()
+    con.close()
+
+
+@pytest.mark.parametrize("edit", ["reason changed", "decision removed", "newest decision removed"])
+def test_verify_finds_a_decision_edited_or_removed(store, edit):
+    api.set_aside("EX-001", store, reason=REASON)
+    api.restore("EX-001", store, reason="closed")
+    assert _run(["verify", "--store", store]).exit_code == 0
+    with closing(sqlite3.connect(store)) as con:
+        first, newest = [r[0] for r in con.execute("SELECT id FROM audit WHERE action IN ('set-aside', 'restore') "
+                                                    "ORDER BY id")]
+    if edit == "reason changed":  # the decision made to look justified otherwise
+        _edit(store, "UPDATE audit SET inputs_json = ? WHERE id = ?", (json.dumps({"reason": "routine"}), first))
+    elif edit == "decision removed":  # the restore hidden: the lot would look in use without a record
+        _edit(store, "DELETE FROM audit WHERE id = ?", (first,))
+    else:
+        _edit(store, "DELETE FROM audit WHERE id = ?", (newest,))
+    result = _run(["verify", "--store", store])
+    assert result.exit_code == 6, result.output
+    assert "The record is NOT whole" in result.stdout
+    said = {"reason changed": f"audit record {first} was changed", "decision removed": f"audit record {first} was "
+            "removed", "newest decision removed": f"audit record {newest} was removed"}[edit]
+    assert said in result.stderr
+    assert _run(["lots", "--store", store]).exit_code == 6  # every command checks the audit entries on opening
+
+
+def test_lots_history_and_audit_show_the_decisions(store):
+    api.set_aside(["EX-003"], store, reason=REASON)
+    api.restore(["EX-003"], store, reason="closed: not confirmed")
+    api.set_aside(["EX-003"], store, reason="confirmed after all")
+    lots = _run(["lots", "--store", store])
+    assert lots.exit_code == 0
+    header, *rows = lots.stdout.splitlines()[:5]
+    assert header.split()[-1] == "state"
+    assert [r.split()[0] for r in rows if r.rstrip().endswith("set aside")] == ["EX-003"]
+    assert [r.split()[0] for r in rows if r.rstrip().endswith("in use")] == ["EX-001", "EX-002", "EX-004"]
+    assert "EX-003: confirmed after all" in lots.stdout and "1 of them set aside" in lots.stdout
+    records = {r["lot"]: r for r in json.loads(_run(["lots", "--store", store, "--json"]).stdout)}
+    assert records["EX-003"]["state"] == "set aside" and records["EX-003"]["set_aside_reason"] == "confirmed after all"
+    assert records["EX-001"]["state"] == "in use" and records["EX-001"]["set_aside_reason"] is None
+    history = _run(["history", "ex-003", "--store", store])
+    text = history.stdout
+    at = [text.index(w) for w in (REASON, "closed: not confirmed", "confirmed after all")]
+    assert history.exit_code == 0 and at == sorted(at)  # in time order
+    assert text.count("Set aside: audit entry") == 2 and text.count("Restored (back in use)") == 1
+    assert f"by {current_user()}" in text
+    events = json.loads(_run(["history", "EX-003", "--store", store, "--json"]).stdout)[-1]["set_aside_events"]
+    assert [(e["action"], e["reason"], e["user"]) for e in events] == [
+        ("set-aside", REASON, current_user()), ("restore", "closed: not confirmed", current_user()),
+        ("set-aside", "confirmed after all", current_user())]
+    audit = _run(["audit", "--store", store, "--lot", "EX-003"])
+    assert audit.exit_code == 0
+    lines = [line for line in audit.stdout.splitlines() if " set-aside " in line or " restore " in line]
+    assert len(lines) == 3 and lines[0].rstrip().endswith(REASON) and "back in use" in lines[1]
+    entries = json.loads(_run(["audit", "--store", store, "--json"]).stdout)
+    assert [e["action"] for e in entries[-3:]] == ["set-aside", "restore", "set-aside"]
+
+
+def test_a_lot_revised_while_set_aside_stays_set_aside_and_ingest_says_so(store, tmp_path):
+    api.set_aside("EX-001", store, reason=REASON)
+    fix = tmp_path / "fix"
+    shutil.copytree(EXAMPLE, fix)
+    tablets = fix / "tablets.csv"
+    header, *rows = tablets.read_text(encoding="utf-8").splitlines()
+    column = header.split(",").index("breaking_force_n")
+    changed = []
+    for r in rows:
+        cells = r.split(",")
+        if cells[0] == "EX-001":
+            cells[column] = str(float(cells[column]) + 5)
+        changed.append(",".join(cells))
+    tablets.write_text("\n".join([header, *changed]) + "\n", encoding="utf-8")
+    result = _run(["ingest", fix, "--store", store, "--reason", "breaking force re-measured"])
+    assert result.exit_code == 0, result.output
+    assert "Set aside, and they stay so (1): EX-001" in result.stdout
+    as_json = _run(["ingest", fix, "--store", store, "--json"])
+    assert json.loads(as_json.stdout)["lots_set_aside"] == ["EX-001"]
+    with LotStore(store, create=False) as s:
+        assert list(s.set_aside_lots()) == ["EX-001"] and s.history("EX-001")[-1]["revision"] == 2
+    assert "EX-001" not in set(api.assemble(store)["lot"])
+
+
+@pytest.mark.parametrize("fixture", ["store-v2.db", "store-v1.db"])
+def test_a_store_written_by_an_earlier_version_takes_a_set_aside(tmp_path, fixture):
+    """Stores written before this change (schema 2 with its anchor, tests/data/make_store_v2.py; schema 1,
+    before seals): the decisions are audit entries, which every version's store holds, so no new table."""
+    path = tmp_path / "old.db"
+    shutil.copy(DATA / fixture, path)
+    if fixture == "store-v2.db":
+        shutil.copy(DATA / "store-v2.db.seal", seal.anchor_path(path))
+    before = api.assemble(path)
+    result = _run(["set-aside", "EX-004", "--reason", REASON, "--store", path])
+    assert result.exit_code == 0, result.output
+    after = api.assemble(path)
+    expected = before[before["lot"] != "EX-004"].reset_index(drop=True)
+    pd.testing.assert_frame_equal(after, expected, check_exact=True)
+    assert _run(["verify", "--store", path]).exit_code == 0
+    assert _run(["restore", "EX-004", "--reason", "x", "--store", path]).exit_code == 0
+    pd.testing.assert_frame_equal(api.assemble(path), before, check_exact=True)
+
+
+def test_a_store_made_by_the_code_before_this_change_reads_and_writes(store):
+    """The store fixture is written by ingest alone, as main's code wrote it (no set-aside entries): it reads with
+    every lot in use, then takes decisions."""
+    with LotStore(store, create=False) as s:
+        assert s.set_aside_lots() == {} and set(s.lots()["state"]) == {"in use"}
+    api.set_aside("EX-002", store, reason=REASON)
+    assert _run(["verify", "--store", store]).exit_code == 0
+
+
+@pytest.fixture(scope="module")
+def trained_lab(tmp_path_factory):
+    """Twelve synthetic lots (linkage.synthetic.make_lots, seed 3) ingested, and a model trained on all of them."""
+    from linkage.synthetic import make_lots
+
+    folder = tmp_path_factory.mktemp("lab")
+    lots = make_lots(12, seed=3)
+    lots.write_csv(folder / "lots")
+    store, models = folder / "lab.db", folder / "models"
+    api.ingest(folder / "lots", store)
+    trained = api.train(store, models, seed=0, materials=False)
+    return store, models, trained, sorted(lots.tables["process"]["lot"])
+
+
+@pytest.mark.slow
+def test_a_train_after_setting_aside_does_not_use_the_lot_and_the_watch_names_it(trained_lab, tmp_path):
+    store, models, first, lots = trained_lab
+    path = tmp_path / "lab.db"  # a copy: the module's store stays as trained
+    shutil.copy(store, path)
+    shutil.copy(seal.anchor_path(store), seal.anchor_path(path))
+    lot = lots[4]
+    assert lot in first.chain.training["lots"] and first.chain.training["set_aside_lots"] == []
+    api.set_aside(lot, path, reason=REASON)
+    watched = _run(["watch", "--store", path, "--models-dir", models, "--json"])
+    assert watched.exit_code == 0, watched.output
+    d = json.loads(watched.stdout)
+    assert d["set_aside_lots"] == [lot] and d["set_aside_in_training"] == [lot]
+    text = _run(["watch", "--store", path, "--models-dir", models]).stdout
+    assert f"1 lot set aside in the store is not watched: {lot}" in text
+    assert f"was in the training set of model {first.model_id}: {lot}" in text
+    second = _run(["train", "--store", path, "--models-dir", tmp_path / "models", "--no-materials", "--json"])
+    assert second.exit_code == 0, second.output
+    assert json.loads(second.stdout)["set_aside_lots"] == [lot]
+    assert f"1 lot set aside in the store is left out of its training set: {lot}" in second.stderr
+    meta = json.loads(next((tmp_path / "models").glob("m-*/metadata.json")).read_text(encoding="utf-8"))
+    assert sorted(meta["training"]["lots"]) == sorted(x for x in lots if x != lot)
+    assert meta["training"]["set_aside_lots"] == [lot]
+    entry = api.audit(path).iloc[-1]
+    assert entry["action"] == "train" and entry["inputs"]["set_aside_lots"] == [lot]
+    assert lot not in entry["inputs"]["lots"]
