@@ -99,7 +99,7 @@ def test_lots_text_and_json(lab, tmp_path):
     text = run("lots", "--store", db)
     assert text.exit_code == 0
     lines = text.output.splitlines()
-    assert lines[0].split() == ["lot", "product", "rev", "process", "ribbon", "granules", "tablets"]
+    assert lines[0].split() == ["lot", "product", "rev", "process", "ribbon", "granules", "tablets", "state"]
     # EX-002: 5 ribbon replicates and 11 sieve rows in the template files
     assert lines[2].split()[:2] == ["EX-002", "-"] and "5 (" in lines[2] and "11 (100%)" in lines[2]
     rows = json.loads(run("lots", "--store", db, "--json").stdout)
