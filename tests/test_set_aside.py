@@ -304,3 +304,60 @@ def test_a_train_after_setting_aside_does_not_use_the_lot_and_the_watch_names_it
     entry = api.audit(path).iloc[-1]
     assert entry["action"] == "train" and entry["inputs"]["set_aside_lots"] == [lot]
     assert lot not in entry["inputs"]["lots"]
+
+
+@pytest.fixture(scope="module")
+def aside_lab(trained_lab, tmp_path_factory):
+    """A copy of the trained lab (store and registry) with one training lot set aside after the model was trained."""
+    store, models, first, lots = trained_lab
+    folder = tmp_path_factory.mktemp("aside")
+    path = folder / "lab.db"
+    shutil.copy(store, path)
+    shutil.copy(seal.anchor_path(store), seal.anchor_path(path))
+    shutil.copytree(models, folder / "models")
+    lot = lots[7]
+    api.set_aside(lot, path, reason=REASON)
+    return path, folder / "models", first, lot, folder
+
+
+@pytest.mark.slow
+def test_retrain_fits_the_challenger_without_the_lot_and_says_the_champion_was_fitted_on_it(aside_lab):
+    path, models, first, lot, _ = aside_lab
+    result = _run(["retrain", "--store", path, "--models-dir", models, "--json"])
+    assert result.exit_code == 0, result.output
+    d = json.loads(result.stdout)
+    assert d["set_aside_lots"] == [lot] and d["set_aside_in_training"] == [lot]
+    assert any(f"was in the training set of model {first.model_id}: {lot}" in n for n in d["notes"])
+    meta = json.loads((models / d["challenger_id"] / "metadata.json").read_text(encoding="utf-8"))
+    assert lot not in meta["training"]["lots"] and meta["training"]["set_aside_lots"] == [lot]
+
+
+@pytest.mark.slow
+def test_report_transfer_and_plan_leave_the_lot_out_and_say_so(aside_lab):
+    from linkage.synthetic import WINDOW_SPEC, spec_toml
+
+    path, models, first, lot, folder = aside_lab
+    moved = api.transfer(path, roll_diameter_mm=250, roll_width_mm=50, roll_gap_mm=2.0, porosity=0.3)
+    assert moved.to_dict()["set_aside_lots"] == [lot] and f"left out of the fit: {lot}" in moved.text()
+    in_use = api.assemble(path)
+    assert lot not in set(in_use["lot"])
+    assert moved.physics.n_lots + moved.physics.n_dropped == len(in_use)  # fitted on the lots in use alone
+    spec = folder / "spec.toml"
+    spec.write_text(spec_toml(WINDOW_SPEC), encoding="utf-8")
+    planned = _run(["plan", "--lots", "2", "--store", path, "--models-dir", models, "--model", first.model_id,
+                    "--spec", spec, "--json"])
+    assert planned.exit_code == 0, planned.output
+    d = json.loads(planned.stdout)
+    assert d["set_aside_lots"] == [lot] and any(f"plan starts from: {lot}" in n for n in d["notes"])
+    out = api.report(folder / "report.html", store=path, models_dir=models, model=first.model_id)
+    html = out.read_text(encoding="utf-8")
+    assert f"1 lot set aside in the store is left out of this report: {lot}" in html
+    assert f"was in the training set of model {first.model_id}: {lot}" in html and REASON in html
+
+
+def test_a_store_whose_every_lot_is_set_aside_is_refused_by_assemble_naming_them(store):
+    api.set_aside(["EX-001", "EX-002", "EX-003", "EX-004"], store, reason=REASON)
+    result = _run(["assemble", "--store", store])
+    assert result.exit_code == 2, result.output
+    assert "every lot in the store" in result.stderr and "is set aside" in result.stderr
+    assert "EX-001, EX-002, EX-003, EX-004" in result.stderr and "'linkage lots'" in result.stderr
