@@ -12,16 +12,23 @@ _REASON_HELP = ("Why (required; recorded with the decision in the audit trail): 
                 "assignable cause, for example.")
 
 
-@click.command("set-aside")
-@click.argument("lots", nargs=-1, required=True, metavar="LOT [LOT ...]")
-@click.option("--reason", default=None, metavar="TEXT", help=_REASON_HELP)
-@store_option
-@json_option
-@handle_errors
+def _decision(name: str):
+    """The command ``name`` with the arguments and options both decisions take: LOT [LOT ...], --reason,
+    --store, --json; errors as every command ends with them."""
+    def make(f):
+        for wrap in (handle_errors, json_option, store_option,
+                     click.option("--reason", default=None, metavar="TEXT", help=_REASON_HELP),
+                     click.argument("lots", nargs=-1, required=True, metavar="LOT [LOT ...]"), click.command(name)):
+            f = wrap(f)
+        return f
+    return make
+
+
+@_decision("set-aside")
 def set_aside(lots, reason, store, as_json):
     """Set stored lots aside: their rows stay in the store, unchanged, but
     every command that fits or judges lots (assemble, train, retrain, watch,
-    report, plan, transfer) leaves them out and says so, until 'linkage
+    report, plan, transfer, running) leaves them out and says so, until 'linkage
     restore'. For a lot that should never have been used: a mistyped lot id,
     a lot never really made, a lot with a known assignable cause (a blend
     error). Nothing is deleted.
@@ -46,12 +53,7 @@ def set_aside(lots, reason, store, as_json):
     _show(run(lots, store, reason=reason), as_json)
 
 
-@click.command("restore")
-@click.argument("lots", nargs=-1, required=True, metavar="LOT [LOT ...]")
-@click.option("--reason", default=None, metavar="TEXT", help=_REASON_HELP)
-@store_option
-@json_option
-@handle_errors
+@_decision("restore")
 def restore(lots, reason, store, as_json):
     """Put set-aside lots back in use: every command that fits or judges lots
     takes them again. Each decision is an audit entry 'restore' (who, when,
