@@ -1196,6 +1196,14 @@ class Workspace:
         """See :func:`audit`."""
         return audit(self.store, **kwargs)
 
+    def set_aside(self, lots, *, reason: str | None = None):
+        """See :func:`set_aside`."""
+        return set_aside(lots, self.store, reason=reason)
+
+    def restore(self, lots, *, reason: str | None = None):
+        """See :func:`restore`."""
+        return restore(lots, self.store, reason=reason)
+
     def plan(self, n_lots: int, **kwargs):
         """See :func:`plan`."""
         return plan(n_lots, store=self.store, models_dir=self.models_dir, **kwargs)

@@ -876,7 +876,7 @@ class SetAside(_Result):
         if self.action == SET_ASIDE:
             lines = [f"Set aside {len(d)} lot(s) in {self.store}: {lots}.",
                      "Their rows stay in the store, unchanged; every command that fits or judges lots (assemble, "
-                     "train, retrain, watch, report, plan, transfer) leaves them out and says so, until "
+                     "train, retrain, watch, report, plan, transfer, running) leaves them out and says so, until "
                      "'linkage restore LOT --reason TEXT'."]
         else:
             lines = [f"Restored {len(d)} lot(s) in {self.store}: {lots}; they are in use again."]
