@@ -226,6 +226,8 @@ def test_a_lot_revised_while_set_aside_stays_set_aside_and_ingest_says_so(store,
             cells[column] = str(float(cells[column]) + 5)
         changed.append(",".join(cells))
     tablets.write_text("\n".join([header, *changed]) + "\n", encoding="utf-8")
+    preview = api.ingest(fix, store, reason="breaking force re-measured", preview=True)  # nothing written
+    assert preview.to_dict()["lots_set_aside"] == ["EX-001"] and preview.to_dict()["lots_revised"] == ["EX-001"]
     result = _run(["ingest", fix, "--store", store, "--reason", "breaking force re-measured"])
     assert result.exit_code == 0, result.output
     assert "Set aside, and they stay so (1): EX-001" in result.stdout
