@@ -42,6 +42,13 @@ What it keeps
 - Records are append-only: triggers refuse UPDATE and DELETE on every table
   that holds data (ingests, lots, revisions, rows, the audit log, recorded
   predictions).
+- A lot is never deleted; one that should not be used is *set aside*
+  (:meth:`LotStore.set_aside`, ``linkage set-aside``), and put back in use by
+  :meth:`LotStore.restore`: each decision is an audit entry of the lot
+  (:data:`SET_ASIDE`, :data:`RESTORE`, with its reason), sealed like every
+  entry, and a lot's state is its newest decision. :meth:`LotStore.current_tables`
+  leaves set-aside lots out and names them (:class:`LotTables`). No table of
+  its own: a store of any schema takes decisions as it is.
 
 Concurrency
 -----------
