@@ -5,10 +5,8 @@ site's unit slips pass them: a total roll force in kN in the kN/cm column, a
 dissolution result written as a fraction (0.963), a tablet weight in g. Each
 is far from the lots the store already holds for the same product. This
 module compares every judged column of an ingest with a sample of the
-product's recent lots in use (:data:`HISTORY_LOTS` at most, so an ingest costs
-the same however large the store is; lots set aside, ``linkage set-aside``,
-are not history: a lot set aside for a known failure or a wrong id is no
-reference for the product's values).
+product's recent lots (:data:`HISTORY_LOTS` at most, so an ingest costs the
+same however large the store is).
 
 The rule, per column, on a log scale (unit slips are factors): each
 history lot contributes the median of its rows (one value per lot, so a lot

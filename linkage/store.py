@@ -935,11 +935,8 @@ class LotStore:
         """Raise for unusual values not taken deliberately, and for stored values changed (``changed``: the lots
         whose revision does more than add, and the differences of the first few) or unusual values taken without
         a reason; returns the unusual values taken (for the audit trail)."""
-        # set-aside lots are no reference: a lot set aside for a known failure or a wrong id is not what the
-        # product's values are
         unusual, unusual_records = _plausible.unusual_values(
-            ingest, self._history(c, set(product_of.values()), set(product_of) | set(_set_aside_state(c))),
-            product_of)
+            ingest, self._history(c, set(product_of.values()), set(product_of)), product_of)
         if accept_unusual and reason is None:
             raise UsageError(ACCEPT_NEEDS_REASON)
         if unusual and not accept_unusual:

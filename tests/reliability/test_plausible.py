@@ -181,21 +181,3 @@ def test_the_slip_named_fits_the_columns_unit():
     assert "(g for mg?)" in likely_mistake(0.25, np.log10(250.0), 0.02, "weight_mg")
     assert "(kN for N?)" in likely_mistake(0.08, np.log10(80.0), 0.02, "breaking_force_n")
     assert "(cm for mm?)" in likely_mistake(0.42, np.log10(4.2), 0.02, "thickness_mm")
-
-
-def test_lots_set_aside_are_not_history(tmp_path):
-    """A lot set aside (``linkage set-aside``) is no reference for the product's values: with 21 of the 30
-    history lots set aside, 9 in use are left, fewer than MIN_HISTORY_LOTS, so the dissolution written as a
-    fraction is not judged and goes in; with the lots in use it is refused. Regression test of the store's own
-    rule: no outside source."""
-    from linkage.plausible import MIN_HISTORY_LOTS
-
-    _, new, store = _history_and_new_lot(tmp_path, _set("tablets", "dissolution_pct", lambda v: f"{v / 100:.4f}"))
-    before = run_cli(["ingest", new, "--store", store, "--json"])
-    assert before.exit_code == 2 and "too small" in before.output  # the 30 lots in use judge it
-    aside = [f"H-{i:03d}" for i in range(1, 31 - MIN_HISTORY_LOTS + 1)]
-    assert len(aside) == 21
-    assert run_cli(["set-aside", *aside, "--reason", "test: not the product's lots", "--store", store]).exit_code == 0
-    after = run_cli(["ingest", new, "--store", store, "--json"])
-    assert after.exit_code == 0, after.output
-    assert json.loads(after.output)["lots_new"] == ["H-031"]
