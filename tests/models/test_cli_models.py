@@ -64,8 +64,10 @@ def fake_store(monkeypatch):
             return None
 
         def current_tables(self, product=None):
+            from linkage.store import LotTables
+
             seen["product"] = product
-            return {"process": table}
+            return LotTables({"process": table})
 
         def log(self, action, **fields):
             seen.setdefault("audit", []).append((action, fields["model_id"]))
