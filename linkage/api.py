@@ -58,11 +58,13 @@ a what-if (``linkage predict``) runs on numpy alone.
 from __future__ import annotations
 
 import contextlib
+import os
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Callable, Iterable, Mapping
 
 from linkage.decide import defaults
+from linkage.exceptions import LinkageError, StoreError, StoreIntegrityError
 from linkage.report.kept import source_stamp
 from linkage.results import Ingested, Retrained, Trained, Watched, WhatIfResult, Window
 from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN, DEFAULT_FINES_CUTOFF_UM
@@ -266,32 +268,67 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
 def _preview_ingest(folder: Path, store: Path, exists: bool, *, reason: str | None,
                     accept_unusual: bool) -> Ingested:
     """:func:`ingest` with ``preview``: the folder read as the ingest reads it, and the ingest decided by the
-    store's own code (``LotStore.ingest(preview=True)``) on the store opened for reading only, so that nothing
-    is written: not the store, not its anchor file, not the audit trail. A store without its anchor file is
-    read with the caution of every reading command (the result's ``cautions`` say that the ingest itself would
-    be refused). A store that does not exist is not created: the ingest is decided against an empty store in a
-    temporary folder, removed after, as a first ingest would be decided."""
-    import tempfile
-
+    store's own code (``LotStore.ingest(preview=True)``) on the store opened for reading only (or on a copy,
+    :func:`_preview_store`), so that nothing is written: not the store, not its anchor file, not the audit
+    trail. The ingest's own refusals are raised alike, with the same exit code, and marked ``ingest_refusal``
+    (the CLI says so); they include the ingest's write refusals: a store without its anchor file (exit code 6),
+    one this account cannot write, or a new store in a folder it cannot write (exit code 5). A store that does
+    not exist is not created: the ingest is decided against an empty store in a temporary folder, removed
+    after, as a first ingest would be decided."""
     from linkage.read import read_folder
-    from linkage.store import LotStore
 
     with contextlib.ExitStack() as stack:
-        if exists:
-            lot_store = stack.enter_context(LotStore(store, create=False, read_only=True))
-        else:
-            if store.is_dir() or not store.parent.is_dir():
-                LotStore(store)  # raises the refusal of a first ingest (StorePathError) before it makes anything
-            scratch = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="linkage-preview-")))
-            lot_store = stack.enter_context(LotStore(scratch / store.name))
-        checked = read_folder(folder, known_lots=lot_store.lot_ids(), accept_unusual=accept_unusual)
-        result = lot_store.ingest(checked, reason=reason, accept_unusual=accept_unusual, preview=True)
+        lot_store = _preview_store(stack, store, exists)
+        with _ingest_refusal():
+            if lot_store.unanchored is not None:  # the ingest opens the store for writing, refused at once
+                from linkage.seal import unanchored_refusal
+
+                raise StoreIntegrityError(unanchored_refusal(store, lot_store.unanchored["id"],
+                                                             lot_store.unanchored["sha256"]))
+            checked = read_folder(folder, known_lots=lot_store.lot_ids(), accept_unusual=accept_unusual)
+            if not exists and not os.access(store.parent, os.W_OK):  # where the ingest's first open fails
+                raise StoreError(f"cannot create the lot store {store}: this account cannot write in folder "
+                                 f"{store.parent}; nothing was written")
+            result = lot_store.ingest(checked, reason=reason, accept_unusual=accept_unusual, preview=True)
         cautions = lot_store.cautions()
-        if lot_store.unanchored is not None:
-            cautions.append("without --preview this ingest is refused (exit code 6) until the store is anchored "
-                            f"again: linkage verify --store {store} --reanchor --reason TEXT")
     return Ingested(store=store, folder=folder, result=result, sources=checked.sources, spec=checked.spec,
                     cautions=cautions)
+
+
+def _preview_store(stack: contextlib.ExitStack, store: Path, exists: bool):
+    """The store a preview decides on, entered on ``stack``: the store itself opened for reading only; for a
+    store of an earlier schema that needs its upgrade to be read (schema 1), an upgraded copy in a temporary
+    folder (``store.backup_copy``), as the ingest would upgrade the store before deciding; for a store that
+    does not exist, an empty one there. The temporary folder is removed when ``stack`` closes."""
+    import tempfile
+
+    from linkage.store import LotStore, StoreNeedsUpgrade, backup_copy
+
+    if exists:
+        try:
+            return stack.enter_context(LotStore(store, create=False, read_only=True))
+        except StoreNeedsUpgrade as exc:
+            if not (os.access(store, os.W_OK) and os.access(store.parent, os.W_OK)):
+                exc.ingest_refusal = True  # the ingest can neither upgrade it nor write to it: its own refusal
+                raise
+        scratch = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="linkage-preview-")))
+        backup_copy(store, scratch / store.name)
+        return stack.enter_context(LotStore(scratch / store.name, create=False))
+    if store.is_dir() or not store.parent.is_dir():
+        with _ingest_refusal():
+            LotStore(store)  # raises the refusal of a first ingest (StorePathError) before it makes anything
+    scratch = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="linkage-preview-")))
+    return stack.enter_context(LotStore(scratch / store.name))
+
+
+@contextlib.contextmanager
+def _ingest_refusal():
+    """Mark a :class:`LinkageError` raised inside as a refusal the ingest itself makes (``ingest_refusal``)."""
+    try:
+        yield
+    except LinkageError as exc:
+        exc.ingest_refusal = True
+        raise
 
 
 def assemble(store=DEFAULT_STORE, *, product: str | None = None, spec=None,

@@ -35,6 +35,10 @@ class LinkageError(Exception):
     """Base class of every error linkage raises on purpose."""
 
     exit_code = 1
+    #: True on a refusal an ingest's preview raises because the ingest itself would make it (bad input, a
+    #: missing --reason, a store it may not write): ``linkage.api.ingest(..., preview=True)`` sets it; False on
+    #: a failure of the preview itself (a store that cannot be opened or read)
+    ingest_refusal = False
 
 
 @dataclass(frozen=True)

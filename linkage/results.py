@@ -83,7 +83,8 @@ class Ingested(_Result):
     sources: dict[str, dict]
     #: the folder's spec.toml, when it has one
     spec: Spec | None = None
-    #: a preview's cautions about the store (a missing anchor file: the ingest itself would be refused)
+    #: a preview's cautions about the store, as the reading commands give them (a store without its anchor file
+    #: no longer gets here: its preview is refused with exit code 6, as its ingest is)
     cautions: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict:

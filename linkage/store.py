@@ -66,7 +66,7 @@ import math
 import operator
 import os
 import sqlite3
-from contextlib import contextmanager
+from contextlib import closing, contextmanager
 from dataclasses import asdict, dataclass, field
 from itertools import chain
 from pathlib import Path
@@ -493,6 +493,13 @@ def set_aside_trained_note(set_aside, training_lots, model_id: str) -> tuple[lis
                   f"('linkage retrain' fits a challenger without {'it' if len(lots) == 1 else 'them'})")
 
 
+class StoreNeedsUpgrade(StoreError):
+    """A store of an earlier schema that cannot be read as it is where it is opened for reading only
+    (``LotStore(read_only=True)``; schema 1, before seals): an ingest with write access upgrades it first. Exit
+    code 5, as :class:`StoreError`; an ingest's preview decides on an upgraded copy instead
+    (:func:`backup_copy`)."""
+
+
 class LotTables(dict):
     """What :meth:`LotStore.current_tables` returns: table -> DataFrame of the lots in use, and ``set_aside``: the
     lots of the same scope (product) left out because they are set aside (lot -> the decision in force, as
@@ -545,6 +552,9 @@ class LotStore:
         #: immutable, so SQLite neither writes its -shm file nor expects another writer (sqlite.org, "URI
         #: filenames": immutable=1); every command that only reads works, and a write is refused clearly
         writable = os.access(self.path, os.W_OK) and os.access(self.path.parent, os.W_OK)
+        #: whether this account can write the store (its file and its folder), whatever ``read_only`` asked; a
+        #: store this opening creates is
+        self.writable = writable or not exists
         self.read_only = exists and (read_only or not writable)
         try:
             if self.read_only and not writable:
@@ -612,7 +622,7 @@ class LotStore:
             raise StorePathError(f"{self.path} is an SQLite file but not a linkage lot store (tables: {shown})")
         if self.read_only:
             if version < 2:
-                raise StoreError(f"{self.path} was written by an earlier linkage (store schema {version}) and is "
+                raise StoreNeedsUpgrade(f"{self.path} was written by an earlier linkage (store schema {version}) and is "
                                  "read-only here: open it once with write access to upgrade and seal it")
             self.check_seals()
             self.unanchored = self._missing_anchor(c)
@@ -634,6 +644,10 @@ class LotStore:
         if seal_id == 0 or _seal.read_anchor(self.path) is not None:
             return None
         return {"id": seal_id, "sha256": digest}
+
+    def _read_only_refusal(self) -> str:
+        return (f"the lot store {self.path} is read-only here (a read-only file system, or a file this account "
+                "cannot write): it can be read, not changed; nothing was written")
 
     def _unanchored_refusal(self, newest: dict | None = None) -> str:
         newest = newest or self.unanchored
@@ -743,8 +757,7 @@ class LotStore:
         seals but no anchor file: the anchor written after the commit would vouch for whatever the store now
         holds (only :meth:`reanchor` writes to such a store, ``reanchoring``)."""
         if self.read_only:
-            raise StoreError(f"the lot store {self.path} is read-only here (a read-only file system, or a file this "
-                             "account cannot write): it can be read, not changed; nothing was written")
+            raise StoreError(self._read_only_refusal())
         c = self._conn
         try:
             c.execute("BEGIN IMMEDIATE")
@@ -847,7 +860,10 @@ class LotStore:
 
     def _preview(self, ingest: Ingest, reason: str | None, accept_unusual: bool) -> IngestResult:
         """What :meth:`_ingest` would do, decided by the same :meth:`_plan` in one read snapshot; nothing
-        written (a store opened ``read_only`` cannot be)."""
+        written (a store opened ``read_only`` cannot be). A store this account cannot write is refused as
+        :meth:`_write` refuses the ingest, before the plan."""
+        if not self.writable:
+            raise StoreError(self._read_only_refusal())
         plan = _IngestPlan(ingest, reason)
         try:
             with self._snapshot():
@@ -1624,6 +1640,20 @@ def _diff(table: str, old: list[dict] | None, new: list[dict]) -> list[dict]:
             out.append({"table": table, "change": "row removed", "key": dict(zip(key_cols, key)), "column": None,
                         "old": row, "new": None})
     return out
+
+
+def backup_copy(path: Path, to: Path) -> None:
+    """Copy the store at ``path`` to the new file ``to`` with SQLite's online backup (sqlite.org, "Online Backup
+    API": a consistent copy, pages read in one read transaction), read through a query-only connection that
+    closes as a writer closes (no -wal or -shm left beside the store). For an ingest's preview of a store that
+    must be upgraded first: the copy is upgraded, the store is not."""
+    try:
+        with closing(sqlite3.connect(path, timeout=BUSY_TIMEOUT_S, isolation_level=None)) as source, \
+                closing(sqlite3.connect(to, isolation_level=None)) as copy:
+            source.execute("PRAGMA query_only = ON")
+            source.backup(copy)
+    except sqlite3.Error as exc:
+        raise StoreError(f"cannot copy the lot store {path} to {to}: {exc}") from None
 
 
 def refuse_unanchored(path) -> None:

@@ -11,6 +11,9 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
+import shutil
+import tempfile
 from pathlib import Path
 
 import pytest
@@ -21,7 +24,7 @@ from linkage.store import PREVIEW_CHANGES, PREVIEW_LOTS, LotStore
 from tests.reliability.helpers import run_cli
 from tests.reliability.test_plausible import _history_and_new_lot, _set
 from tests.test_store import folder
-from tests.test_store_migration import _corrected, v2  # noqa: F401 (v2: a fixture)
+from tests.test_store_migration import DATA, _corrected, v2  # noqa: F401 (v2: a fixture)
 from tests.test_store_stages import PROCESS, RIBBON, TABLETS
 
 
@@ -116,17 +119,113 @@ def test_a_store_that_does_not_exist_is_not_created(tmp_path):
     assert list(where.iterdir()) == []
 
 
-def test_a_store_without_its_anchor_is_previewed_with_the_reading_caution(tmp_path, stored):
+def test_a_store_without_its_anchor_is_refused_by_the_preview_as_by_the_ingest(tmp_path, stored):
+    """Regression: the preview of a store whose anchor file was removed went through (exit 0, a caution) where
+    the ingest is refused with exit code 6; a script pre-checking with the preview was told yes. Now the same
+    refusal, message and exit code, with the line that nothing was written. A refusal of the project's own
+    contract: no outside source needed."""
     stored.with_name(stored.name + ".seal").unlink()
     before = _files(stored.parent)
     path = folder(tmp_path, "more", tablets=TABLETS)
     preview = run_cli(["ingest", path, "--store", stored, "--preview", "--json"])
-    assert preview.exit_code == 0, preview.stderr
-    assert "caution, store:" in preview.stderr and "no anchor file" in preview.stderr
-    out = json.loads(preview.stdout)
-    assert out["lots_added_to"] == ["A", "B"] and any("exit code 6" in c for c in out["cautions"])
     assert _files(stored.parent) == before
-    assert run_cli(["ingest", path, "--store", stored]).exit_code == 6  # the ingest itself: the write refusal
+    real = run_cli(["ingest", path, "--store", stored])
+    assert preview.exit_code == real.exit_code == 6 and preview.stdout == ""
+    error = real.stderr[real.stderr.index("Error:"):]
+    assert "anchor" in error and error in preview.stderr
+    assert "ingest would be refused as follows, with the same exit code; nothing was written" in preview.stderr
+    assert _files(stored.parent) == before
+
+
+def test_a_preview_keeps_its_cautions_key(tmp_path, stored):
+    """The documented ``cautions`` key of a preview's JSON stays (empty for an anchored store)."""
+    out = run_cli(["ingest", folder(tmp_path, "more", tablets=TABLETS), "--store", stored, "--preview", "--json"])
+    assert out.exit_code == 0, out.stderr
+    assert json.loads(out.stdout)["cautions"] == []
+
+
+def _no_write(monkeypatch, *paths: Path) -> None:
+    """This account may not write ``paths`` (as tests/reliability/test_tamper.py simulates a read-only file
+    system through os.access: the tests may run as root, who may write anything)."""
+    real_access = os.access
+    denied = {p.resolve() for p in paths}
+
+    def no_write(path, mode, *args, **kwargs):
+        if mode & os.W_OK and Path(path).resolve() in denied:
+            return False
+        return real_access(path, mode, *args, **kwargs)
+
+    monkeypatch.setattr(os, "access", no_write)
+
+
+def test_a_store_this_account_cannot_write_is_refused_by_the_preview_as_by_the_ingest(tmp_path, stored,
+                                                                                     monkeypatch):
+    """Regression: the preview of a store the account cannot write went through (exit 0) where the ingest is
+    refused with exit code 5. Now the same refusal; bad input is still reported first, as the ingest reports
+    it. A refusal of the project's own contract: no outside source needed."""
+    path = folder(tmp_path, "more", tablets=TABLETS)
+    bad = folder(tmp_path, "bad", tablets=TABLETS.replace(",90,", ",-90,"))
+    _no_write(monkeypatch, stored, stored.parent)
+    before = _files(stored.parent)
+    for given in (path, bad):
+        preview = run_cli(["ingest", given, "--store", stored, "--preview"])
+        real = run_cli(["ingest", given, "--store", stored])
+        assert preview.exit_code == real.exit_code == (5 if given == path else 2), (given, preview.stderr)
+        assert real.stderr[real.stderr.index("Error:"):] in preview.stderr
+        assert "ingest would be refused as follows" in preview.stderr
+        assert ("read-only here" in preview.stderr) == (given == path)
+    assert _files(stored.parent) == before
+    where = tmp_path / "locked"
+    where.mkdir()
+    _no_write(monkeypatch, stored, stored.parent, where)
+    new = run_cli(["ingest", path.parent / "first", "--store", where / "new.db", "--preview"])
+    assert new.exit_code == 5 and "cannot write in folder" in new.stderr and list(where.iterdir()) == []
+
+
+def test_a_schema_1_store_is_previewed_on_an_upgraded_copy(tmp_path, monkeypatch):
+    """Regression: the preview of a schema 1 store (before seals, tests/data/store-v1.db) was refused (exit code
+    5, "read-only here: open it once with write access") where the ingest upgrades the store and decides
+    (here: exit 2, the change needs --reason). Now the preview decides on an upgraded copy in a temporary folder,
+    removed after, as the ingest would, and the store stays byte for byte, with no file added beside it. The
+    reference is the real ingest on a copy of the same store: no outside source needed."""
+    (tmp_path / "db").mkdir()
+    store = tmp_path / "db" / "old.db"
+    shutil.copy(DATA / "store-v1.db", store)
+    twin = tmp_path / "twin.db"
+    shutil.copy(DATA / "store-v1.db", twin)
+    scratch = tmp_path / "scratch"
+    scratch.mkdir()
+    monkeypatch.setattr(tempfile, "tempdir", str(scratch))  # where the preview's copy goes, to see it removed
+    fix = _corrected(tmp_path / "fix", lot="EX-002", change=2.0)
+    before = _files(store.parent)
+    preview = run_cli(["ingest", fix, "--store", store, "--preview"])
+    real = run_cli(["ingest", fix, "--store", twin])
+    assert preview.exit_code == real.exit_code == 2, preview.stderr
+    assert real.stderr[real.stderr.index("Error:"):] in preview.stderr and "--reason" in preview.stderr
+    given = api.ingest(fix, store, reason="deviation D-2", preview=True)
+    assert _files(store.parent) == before and list(scratch.iterdir()) == []
+    done = api.ingest(fix, twin, reason="deviation D-2")
+    for key in ("lots_new", "lots_revised", "lots_unchanged", "lots_added_to", "lots_changed", "warnings"):
+        assert getattr(given.result, key) == getattr(done.result, key), key
+    with LotStore(twin, create=False) as s:
+        assert given.result.changes["EX-002"]["changes"] == s.history("EX-002")[-1]["changes"]
+    assert [c["column"] for c in given.result.changes["EX-002"]["changes"]] == ["dissolution_pct"]
+
+
+def test_a_store_that_cannot_be_read_is_not_told_as_a_refusal_of_the_ingest(tmp_path, stored):
+    """Regression: every failure of a preview was introduced as "the ingest would be refused as follows, with
+    the same exit code", also a store the preview could not open. Now only the ingest's own refusals are; a
+    failure to read the store says so. No outside source needed (the CLI's own wording)."""
+    path = folder(tmp_path, "more", tablets=TABLETS)
+    junk = tmp_path / "junk.db"
+    junk.write_bytes(b"not a store at all, " * 10)
+    failed = run_cli(["ingest", path, "--store", junk, "--preview"])
+    assert failed.exit_code == 2 and "not a SQLite file" in failed.stderr
+    assert "would be refused" not in failed.stderr and "could not be read" in failed.stderr
+    assert "nothing was written" in failed.stderr
+    refused = run_cli(["ingest", folder(tmp_path, "bad", tablets=TABLETS.replace(",90,", ",-90,")), "--store",
+                       stored, "--preview"])
+    assert refused.exit_code == 2 and "would be refused" in refused.stderr
 
 
 def test_unusual_values_preview_as_they_ingest(tmp_path):

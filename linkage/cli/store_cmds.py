@@ -31,7 +31,11 @@ from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
               help="Write nothing (not the store, its anchor file or its audit trail; a store that does not exist "
                    "is not created): run every check and comparison of the ingest and say what it would do, with "
                    "each revised lot's changes (old -> new). Same output, refusals and exit code as the ingest, "
-                   "with --reason and --accept-unusual as given.")
+                   "with --reason and --accept-unusual as given: 2 (bad input, --reason or --accept-unusual "
+                   "needed), 5 (a store or folder this account cannot write), 6 (a store without its anchor "
+                   "file). A store of an earlier schema is decided on an upgraded copy, as the ingest upgrades "
+                   "it first. Not foreseen: a store another process holds (exit code 3) or a disk that fills "
+                   "up during the ingest.")
 @json_option
 @handle_errors
 def ingest(folder, store, reason, accept_unusual, preview, as_json):
@@ -58,8 +62,11 @@ def ingest(folder, store, reason, accept_unusual, preview, as_json):
 
     --preview says what the ingest would do and writes nothing: the same
     checks, refusals and exit code (0: it would go through; 2: bad input,
-    or it would need --reason or --accept-unusual), and each revised lot's
-    changes; a pre-check a script can run before the ingest.
+    or it would need --reason or --accept-unusual; 5: the store, or the
+    folder of a new one, cannot be written by this account; 6: the store's
+    anchor file is missing), and each revised lot's changes; a pre-check a
+    script can run before the ingest. A store that cannot be read at all
+    fails the preview with what failed, not as a refusal of the ingest.
 
     \b
     Example:
@@ -72,10 +79,13 @@ def ingest(folder, store, reason, accept_unusual, preview, as_json):
 
     try:
         result = run_ingest(folder, store, reason=reason, accept_unusual=accept_unusual, preview=preview)
-    except LinkageError:
-        if preview:
+    except LinkageError as exc:
+        if preview and exc.ingest_refusal:
             tell_progress("Preview: the ingest would be refused as follows, with the same exit code; nothing was "
                           "written.")
+        elif preview:
+            tell_progress("Preview: not made, the store could not be read as follows (what the ingest would do is "
+                          "not known); nothing was written.")
         raise
     if as_json:
         click.echo(json.dumps(result.to_dict(), indent=2))
