@@ -212,6 +212,23 @@ def test_a_schema_1_store_is_previewed_on_an_upgraded_copy(tmp_path, monkeypatch
     assert [c["column"] for c in given.result.changes["EX-002"]["changes"]] == ["dissolution_pct"]
 
 
+def test_a_schema_1_store_this_account_cannot_write_is_refused_alike(tmp_path, monkeypatch):
+    """A schema 1 store the account cannot write: the ingest can neither upgrade nor write it (exit code 5); the
+    preview makes no copy and gives that refusal, as the ingest's. No outside source needed (a refusal)."""
+    (tmp_path / "db").mkdir()
+    store = tmp_path / "db" / "old.db"
+    shutil.copy(DATA / "store-v1.db", store)
+    fix = _corrected(tmp_path / "fix", lot="EX-002", change=2.0)
+    _no_write(monkeypatch, store, store.parent)
+    before = _files(store.parent)
+    preview = run_cli(["ingest", fix, "--store", store, "--preview", "--reason", "deviation D-2"])
+    real = run_cli(["ingest", fix, "--store", store, "--reason", "deviation D-2"])
+    assert preview.exit_code == real.exit_code == 5
+    error = real.stderr[real.stderr.index("Error:"):]
+    assert "earlier linkage" in error and error in preview.stderr and "would be refused" in preview.stderr
+    assert _files(store.parent) == before
+
+
 def test_a_store_that_cannot_be_read_is_not_told_as_a_refusal_of_the_ingest(tmp_path, stored):
     """Regression: every failure of a preview was introduced as "the ingest would be refused as follows, with
     the same exit code", also a store the preview could not open. Now only the ingest's own refusals are; a
