@@ -264,8 +264,9 @@ def advance_anchor(store_path: Path, c) -> bool:
     seal of all, and no anchor goes back: whatever the order, the anchor ends at the newest seal.
 
     Without ``fcntl`` (Windows), or where the lock file cannot be opened (a folder this account cannot write:
-    the anchor cannot be written either) or the lock is not had within :data:`ANCHOR_LOCK_TIMEOUT_S` (a holder
-    stopped), the same is done without the lock (as before it existed): the anchor is read before it is
+    the anchor cannot be written either), where ``flock`` fails other than by waiting (``ENOLCK``: a network drive
+    without locks; the commit is made, so the write must not fail for it) or the lock is not had within
+    :data:`ANCHOR_LOCK_TIMEOUT_S` (a holder stopped), the same is done without the lock (as before it existed): the anchor is read before it is
     replaced, but two writers finishing together may leave it a seal behind (weaker evidence until the next
     write; :func:`check` does not take it for a removal). Returns whether the anchor names the newest seal
     read (False where it could not be written)."""
@@ -303,6 +304,9 @@ def _anchor_lock(store_path: Path) -> Iterator[bool]:
                     held = False
                     break
                 time.sleep(0.002)
+            except OSError:  # no locking here (ENOLCK on a network drive...): the commit is made, go on without
+                held = False
+                break
         yield held
     finally:
         os.close(fd)  # closing the file releases its lock

@@ -143,3 +143,25 @@ def test_the_anchor_waits_for_the_lock(tmp_path):
     os.close(fd)  # releases the lock
     done.join(timeout=10)
     assert seal_module.read_anchor(store)["seal_id"] == 2
+
+
+@pytest.mark.skipif(not posix_fork(), reason="fcntl.flock (POSIX)")
+def test_a_lock_that_fails_leaves_the_write_standing(tmp_path, monkeypatch):
+    """``flock`` failing other than by waiting (ENOLCK: a network drive without locks) comes after the commit: the
+    write stands, the anchor is written without the lock (as on Windows), and nothing raises. A regression test of
+    the store's own rule: it needs no outside source."""
+    import errno
+    import fcntl
+
+    def no_locks(fd, op):
+        raise OSError(errno.ENOLCK, "No locks available")
+
+    store = tmp_path / "s.db"
+    with LotStore(store, create=True) as s:
+        s.log("first", inputs={"k": 1})
+        monkeypatch.setattr(fcntl, "flock", no_locks)
+        s.log("second", inputs={"k": 2})  # raised OSError after its commit before the fix
+        monkeypatch.undo()
+        assert s.audit()[-1]["action"] == "second"
+        counts = s.check_seals(full=True)
+    assert seal_module.read_anchor(store)["seal_id"] == counts["newest seal"]["id"]
