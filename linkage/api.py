@@ -157,10 +157,18 @@ def record_entry(store, action: str, *, model_id: str | None, inputs, outputs, l
                  prediction: bool = False) -> bool:
     """Append an entry to the store's audit trail (and, for a what-if, keep
     the prediction) when the store exists. Returns whether it was recorded:
-    no store, no record (a what-if may be asked with no store at all)."""
+    no store, no record (a what-if may be asked with no store at all). The actions of the store's own
+    decisions (set-aside, restore, reanchor, ingest) are refused (``UsageError``, nothing written): their
+    commands record them, under their rules."""
+    from linkage.store import LotStore, reserved_action_refusal
+
+    refusal = reserved_action_refusal(action)
+    if refusal is not None:
+        from linkage.exceptions import UsageError
+
+        raise UsageError(refusal)
     if store is None or not Path(store).exists():
         return False
-    from linkage.store import LotStore
 
     with LotStore(store, create=False, for_writing=True) as s:
         if prediction:

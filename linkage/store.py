@@ -454,17 +454,50 @@ def set_aside_needs_reason(action: str) -> str:
             "number and the assignable cause). Nothing was written.")
 
 
+#: audit actions that only the store's own decisions write, each under its rules (a reason, a stored lot, a checked
+#: store...): :meth:`LotStore.log` and ``linkage.api.record_entry`` refuse them, naming the command to use
+RESERVED_ACTIONS = {SET_ASIDE: "linkage set-aside LOT --reason TEXT (LotStore.set_aside)",
+                    RESTORE: "linkage restore LOT --reason TEXT (LotStore.restore)",
+                    "reanchor": "linkage verify --reanchor --reason TEXT (LotStore.reanchor)",
+                    "ingest": "linkage ingest FOLDER (LotStore.ingest)"}
+
+
+def reserved_action_refusal(action) -> str | None:
+    """Why an audit entry of ``action`` is not written by :meth:`LotStore.log` (None: it may be): a decision
+    written there would bypass its rules, and the audit trail keeps it for good."""
+    command = RESERVED_ACTIONS.get(str(action).strip().lower())
+    if command is None:
+        return None
+    return (f"the audit action '{action}' is a decision with its own rules, recorded only by its command: use "
+            f"{command}. Nothing was written.")
+
+
+def _decision_reason(inputs_json) -> str | None:
+    """The reason of a set-aside or restore decision from its stored inputs (``inputs_json``); None where they
+    hold none, or are not a JSON object (an entry written through ``log`` before it refused these actions)."""
+    if not inputs_json:
+        return None
+    try:
+        inputs = json.loads(inputs_json)
+    except (TypeError, ValueError):
+        return None
+    reason = inputs.get("reason") if isinstance(inputs, dict) else None
+    return None if reason is None else str(reason)
+
+
 def _set_aside_state(c) -> dict[str, dict]:
     """The lots set aside now (their newest decision is a set-aside), in the order they were set aside: lot (as
-    stored) -> the decision in force, ``{"audit_id", "at", "user", "reason"}``."""
+    stored) -> the decision in force, ``{"audit_id", "at", "user", "reason"}``. An entry naming no lot is no
+    decision (only one written through ``log`` before it refused these actions could)."""
     state: dict[str, dict] = {}
     for audit_id, at, user, action, lot, inputs in c.execute(
             "SELECT id, at, user, action, lot, inputs_json FROM audit WHERE action IN (?, ?) ORDER BY id",
             (SET_ASIDE, RESTORE)).fetchall():
+        if lot is None:
+            continue
         state.pop(lot, None)
         if action == SET_ASIDE:
-            state[lot] = {"audit_id": audit_id, "at": at, "user": user,
-                          "reason": (json.loads(inputs) or {}).get("reason") if inputs else None}
+            state[lot] = {"audit_id": audit_id, "at": at, "user": user, "reason": _decision_reason(inputs)}
     return state
 
 
@@ -1122,8 +1155,7 @@ class LotStore:
     def set_aside_events(self, lot: str) -> list[dict]:
         """The set-aside and restore decisions of ``lot`` (as stored), oldest first: ``{"audit_id", "at",
         "user", "action", "reason"}``."""
-        return [{"audit_id": i, "at": at, "user": u, "action": a,
-                 "reason": (json.loads(ij) or {}).get("reason") if ij else None}
+        return [{"audit_id": i, "at": at, "user": u, "action": a, "reason": _decision_reason(ij)}
                 for i, at, u, a, ij in self._read("SELECT id, at, user, action, inputs_json FROM audit "
                                                   "WHERE action IN (?, ?) AND lot = ? ORDER BY id",
                                                   (SET_ASIDE, RESTORE, lot))]
@@ -1374,7 +1406,12 @@ class LotStore:
 
     def log(self, action: str, *, user: str | None = None, lot: str | None = None, model_id: str | None = None,
             inputs=None, outputs=None) -> int:
-        """Append one entry to the audit log; returns its id."""
+        """Append one entry to the audit log; returns its id. Refused (:class:`UsageError`, nothing written) for
+        the actions of the store's own decisions (:data:`RESERVED_ACTIONS`: set-aside, restore, reanchor,
+        ingest), which their commands record under their rules."""
+        refusal = reserved_action_refusal(action)
+        if refusal is not None:
+            raise UsageError(refusal)
         with self._write() as c:
             return self._log(c, action, user or current_user(), lot, model_id, inputs, outputs)
 

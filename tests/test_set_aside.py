@@ -23,6 +23,7 @@ from click.testing import CliRunner
 from linkage import api, seal
 from linkage.assemble import assemble
 from linkage.cli.main import cli
+from linkage.exceptions import UsageError
 from linkage.read import read_folder
 from linkage.store import LotStore, current_user
 
@@ -363,3 +364,38 @@ def test_a_store_whose_every_lot_is_set_aside_is_refused_by_assemble_naming_them
     assert result.exit_code == 2, result.output
     assert "every lot in the store" in result.stderr and "is set aside" in result.stderr
     assert "EX-001, EX-002, EX-003, EX-004" in result.stderr and "'linkage lots'" in result.stderr
+
+
+@pytest.mark.parametrize("action", ["set-aside", "restore", "reanchor", "ingest", " Set-Aside "])
+def test_log_and_record_entry_refuse_the_store_decisions_and_write_nothing(store, action):
+    """A set-aside, restore, re-anchoring or ingest written through ``LotStore.log`` / ``api.record_entry`` would
+    bypass its rules (a reason, a stored lot, a checked store), for good in an append-only trail: refused, the
+    command to use named, nothing written. A regression test of the store's own rules: it needs no outside
+    source."""
+    before = _dump(store)
+    with LotStore(store, create=False) as s, pytest.raises(UsageError, match="recorded only by its command"):
+        s.log(action, lot="EX-001", inputs={"reason": "forged"})
+    with pytest.raises(UsageError, match="use linkage "):
+        api.record_entry(store, action, model_id=None, lot="EX-001", inputs=["not", "a", "dict"], outputs=None)
+    assert _dump(store) == before
+    api.set_aside("EX-001", store, reason=REASON)  # the commands still write them
+    api.restore("EX-001", store, reason="closed")
+    with LotStore(store, create=False) as s:
+        assert [e["action"] for e in s.audit()[-2:]] == ["set-aside", "restore"]
+
+
+def test_an_odd_decision_entry_from_before_the_refusal_does_not_break_later_reads(store):
+    """Entries that ``log`` wrote before it refused these actions (inputs not a JSON object, no lot) stay in the
+    append-only trail: every later read still works (the reason is None). A regression test of the store's own
+    rules: it needs no outside source."""
+    with LotStore(store, create=False) as s:
+        with s._write() as c:  # what LotStore.log wrote before it refused these actions
+            s._log(c, "set-aside", "someone", "EX-002", None, ["not", "a", "dict"], None)
+            s._log(c, "set-aside", "someone", None, None, "just text", None)
+        assert s.set_aside_lots()["EX-002"]["reason"] is None
+        assert [e["reason"] for e in s.set_aside_events("EX-002")] == [None]
+        assert s.history("EX-002")[-1]["set_aside_events"][0]["action"] == "set-aside"
+        assert list(s.current_tables().set_aside) == ["EX-002"]
+    assert _run(["lots", "--store", store]).exit_code == 0
+    assert _run(["history", "EX-002", "--store", store]).exit_code == 0
+    assert "EX-002" not in set(api.assemble(store)["lot"])
