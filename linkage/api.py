@@ -390,13 +390,20 @@ def restore(lots, store=DEFAULT_STORE, *, reason: str | None = None):
 
 
 def _set_aside_decision(lots, store, reason, *, restore: bool):
-    from linkage.exceptions import UsageError
+    import warnings
+
+    from linkage.exceptions import StoreCaution, UsageError
     from linkage.results import SetAside
     from linkage.store import RESTORE, SET_ASIDE, LotStore, given_reason, set_aside_needs_reason
 
     action = RESTORE if restore else SET_ASIDE
     if given_reason(reason) is None:  # before the store is opened: nothing to write without one
         raise UsageError(set_aside_needs_reason(action))
+    with warnings.catch_warnings():  # a store without its anchor file: its refusal below says it
+        warnings.simplefilter("ignore", StoreCaution)
+        with LotStore(store, create=False, read_only=True) as s:  # a refusal opens no older store for writing
+            if s.unanchored is None:  # (that would upgrade it, and make its anchor and lock files)
+                s.decision_lots(lots, reason, action)
     with LotStore(store, create=False, for_writing=True) as s:  # a store without its anchor file: refused, exit 6
         decisions = s.restore(lots, reason) if restore else s.set_aside(lots, reason)
         still = s.set_aside_lots()

@@ -558,9 +558,10 @@ class LotStore:
     once, before the command does any work.
 
     ``read_only=True`` opens an existing store for reading only although its
-    file could be written (an ingest's preview): SQLite refuses every change
-    (``PRAGMA query_only``), and a store of an earlier schema is read as it
-    is, not upgraded.
+    file could be written (an ingest's preview, a set-aside's checks): SQLite
+    refuses every change (``PRAGMA query_only``), and a store of an earlier
+    schema is read as it is, not upgraded (schema 1, which has no seals, is
+    read unchecked: its first write seals it as it stands).
     """
 
     def __init__(self, path: Path | str = "linkage.db", *, create: bool = True,
@@ -589,6 +590,7 @@ class LotStore:
         #: store this opening creates is
         self.writable = writable or not exists
         self.read_only = exists and (read_only or not writable)
+        self._writable = writable
         try:
             if self.read_only and not writable:
                 uri = f"{self.path.resolve().as_uri()}?mode=ro&immutable=1"
@@ -654,6 +656,8 @@ class LotStore:
             shown = ", ".join(names[:6]) or "none"
             raise StorePathError(f"{self.path} is an SQLite file but not a linkage lot store (tables: {shown})")
         if self.read_only:
+            if version < 2 and self._writable:  # asked to read only (a writable file): as it is, no seals to check
+                return
             if version < 2:
                 raise StoreNeedsUpgrade(f"{self.path} was written by an earlier linkage (store schema {version}) and is "
                                  "read-only here: open it once with write access to upgrade and seal it")
@@ -1173,28 +1177,38 @@ class LotStore:
         :meth:`set_aside` is, and for a lot that is not set aside."""
         return self._decide_set_aside(lots, reason, RESTORE, user)
 
-    def _decide_set_aside(self, lots, reason: str | None, action: str, user: str | None) -> list[dict]:
-        reason = given_reason(reason)
-        if reason is None:
+    def decision_lots(self, lots, reason: str | None, action: str) -> list[str]:
+        """The stored lots (their stored spelling, once each) that a set-aside or restore decision (``action``)
+        of ``lots`` would be written for, or its refusal (:class:`UsageError`): no reason, no lot, a lot the store
+        does not hold (all of them named), a lot already set aside, or (restore) not set aside. Only reads: a
+        store opened ``read_only`` answers as the write would (``linkage.api.set_aside`` asks it first, so that a
+        refusal opens no older store for writing, which would upgrade it)."""
+        if given_reason(reason) is None:
             raise UsageError(set_aside_needs_reason(action))
         given = [reader_spelling(lot) for lot in ([lots] if isinstance(lots, str) else list(lots))]
         if not any(given):
             raise UsageError(f"'linkage {action}' needs at least one lot id. Nothing was written.")
+        found = {lot: self.stored_spelling(lot) if lot else None for lot in given}
+        unknown = [lot for lot, stored in found.items() if stored is None]
+        if unknown:
+            raise self._not_stored_all([lot or "" for lot in unknown])
+        chosen = list(dict.fromkeys(found.values()))
+        state = self.set_aside_lots()
+        wrong = [lot for lot in chosen if (lot in state) == (action == SET_ASIDE)]
+        if wrong:
+            said = ("already set aside (since " + ", ".join(f"{lot}: {state[lot]['at']}" for lot in wrong) + ")"
+                    if action == SET_ASIDE else "not set aside, so there is nothing to restore: " + ", ".join(wrong))
+            raise UsageError(f"{len(wrong)} lot(s) {said}; 'linkage lots' shows each lot's state. "
+                             "Nothing was written.")
+        return chosen
+
+    def _decide_set_aside(self, lots, reason: str | None, action: str, user: str | None) -> list[dict]:
+        if given_reason(reason) is None:  # before the write lock: a store without its anchor file says this first
+            raise UsageError(set_aside_needs_reason(action))
+        reason = given_reason(reason)
         user = user or current_user()
         with self._write() as c:
-            found = {lot: self.stored_spelling(lot) if lot else None for lot in given}
-            unknown = [lot for lot, stored in found.items() if stored is None]
-            if unknown:
-                raise self._not_stored_all([lot or "" for lot in unknown])
-            chosen = list(dict.fromkeys(found.values()))
-            state = _set_aside_state(c)
-            wrong = [lot for lot in chosen if (lot in state) == (action == SET_ASIDE)]
-            if wrong:
-                said = ("already set aside (since " + ", ".join(f"{lot}: {state[lot]['at']}" for lot in wrong) + ")"
-                        if action == SET_ASIDE else "not set aside, so there is nothing to restore: "
-                        + ", ".join(wrong))
-                raise UsageError(f"{len(wrong)} lot(s) {said}; 'linkage lots' shows each lot's state. "
-                                 "Nothing was written.")
+            chosen = self.decision_lots(lots, reason, action)  # under the write lock: as the store is now
             out = []
             for lot in chosen:
                 audit_id = self._log(c, action, user, lot, None, {"reason": reason},

@@ -399,3 +399,31 @@ def test_an_odd_decision_entry_from_before_the_refusal_does_not_break_later_read
     assert _run(["lots", "--store", store]).exit_code == 0
     assert _run(["history", "EX-002", "--store", store]).exit_code == 0
     assert "EX-002" not in set(api.assemble(store)["lot"])
+
+
+def _folder(path: Path) -> dict:
+    """The store's bytes and the names of the files beside it."""
+    return {"store": path.read_bytes(), "files": sorted(p.name for p in path.parent.iterdir())}
+
+
+@pytest.mark.parametrize("fixture", ["store-v1.db", "store-v2.db"])
+def test_a_refused_decision_leaves_an_older_store_as_it_was(tmp_path, fixture):
+    """A refusal (no reason, no lot, an unknown lot, a lot in use restored, a lot set aside twice) on a store of an
+    earlier schema says "Nothing was written": the store's bytes and the folder's files (no upgrade, no anchor or
+    lock file made) are as they were. A regression test of the store's own rules: it needs no outside source."""
+    path = tmp_path / "old.db"
+    shutil.copy(DATA / fixture, path)
+    if fixture == "store-v2.db":
+        shutil.copy(DATA / "store-v2.db.seal", seal.anchor_path(path))
+    before = _folder(path)
+    refusals = [["set-aside", "EX-004", "--reason", " "], ["set-aside", "", "--reason", REASON],
+                ["set-aside", "NOPE-9", "--reason", REASON], ["restore", "EX-004", "--reason", REASON]]
+    for args in refusals:
+        result = _run([*args, "--store", path])
+        assert result.exit_code == 2 and "Nothing was written" in result.stderr, (args, result.output)
+        assert _folder(path) == before, args
+    assert _run(["set-aside", "EX-004", "--reason", REASON, "--store", path]).exit_code == 0  # upgrades, writes
+    written = _folder(path)
+    twice = _run(["set-aside", "EX-004", "--reason", REASON, "--store", path])
+    assert twice.exit_code == 2 and "already set aside" in twice.stderr
+    assert _folder(path) == written
