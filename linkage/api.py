@@ -1014,7 +1014,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     with LotStore(store, create=False) as s:
         tables = current_tables_of(s, product)
         recorded = s.predictions()
-        stored_lots = s.lots(product)
+        stored_lots = s.lots(product, in_use=True)  # a set-aside training lot is named apart (_set_aside_notes)
         others = s.other_products(product)
     if others:
         notes.append(f"the store's {others_text(others)} are not watched: only the lots of {product!r} are "

@@ -845,20 +845,24 @@ class LotStore:
         """Every lot in the store, in the order they first came."""
         return [r[0] for r in self._read("SELECT lot FROM lots ORDER BY rowid")]
 
-    def product_counts(self) -> dict[str | None, int]:
-        """The number of lots of each product (their current revision's), None for lots without a product name."""
+    def product_counts(self, *, in_use: bool = False) -> dict[str | None, int]:
+        """The number of lots of each product (their current revision's), None for lots without a product name;
+        ``in_use``: the lots in use only (set-aside lots left out, as :meth:`current_tables` leaves them)."""
+        aside = set(self.set_aside_lots()) if in_use else set()
         counts: dict[str | None, int] = {}
-        for product, n in self._read("SELECT product, COUNT(*) FROM current_revisions GROUP BY product"):
-            key = product if isinstance(product, str) and product.strip() else None
-            counts[key] = counts.get(key, 0) + int(n)
+        for lot, product in self._read("SELECT lot, product FROM current_revisions"):
+            if lot not in aside:
+                key = product if isinstance(product, str) and product.strip() else None
+                counts[key] = counts.get(key, 0) + 1
         return counts
 
     def other_products(self, product: str | None) -> list[tuple[str | None, int]]:
-        """The lot counts of the products other than ``product`` (None last: lots without a product name); none
-        when ``product`` is None (:func:`linkage.products.other_counts`)."""
+        """The counts of the lots in use of the products other than ``product`` (None last: lots without a
+        product name); none when ``product`` is None (:func:`linkage.products.other_counts`). Set-aside lots are
+        not counted: they are left out for being set aside, whatever their product."""
         from linkage.products import other_counts
 
-        return other_counts(self.product_counts(), product)
+        return other_counts(self.product_counts(in_use=True), product)
 
     def stored_spelling(self, lot: str) -> str | None:
         """The stored lot that ``lot`` is under the reader's lot identity

@@ -427,3 +427,39 @@ def test_a_refused_decision_leaves_an_older_store_as_it_was(tmp_path, fixture):
     twice = _run(["set-aside", "EX-004", "--reason", REASON, "--store", path])
     assert twice.exit_code == 2 and "already set aside" in twice.stderr
     assert _folder(path) == written
+
+
+@pytest.mark.slow
+def test_a_set_aside_training_lot_revised_after_training_is_named_once_not_as_revised(trained_lab, tmp_path,
+                                                                                       monkeypatch):
+    """A training lot revised after the model was trained, then set aside: watch and retrain name it as set aside
+    (and in the training set), not among the training lots revised after training, whose words speak of the lots
+    they use. The rule of the commands' scope (which lots they read): no outside source; the challenger is fitted
+    with two candidates and 20 bootstrap replicates to keep the test quick (what is tested is its notes)."""
+    from functools import partial
+
+    from linkage.models import train as training
+
+    store, models, first, lots = trained_lab
+    path = tmp_path / "lab.db"
+    shutil.copy(store, path)
+    shutil.copy(seal.anchor_path(store), seal.anchor_path(path))
+    shutil.copytree(models, tmp_path / "models")
+    lot = lots[2]
+    fix = tmp_path / "fix"
+    shutil.copytree(store.parent / "lots", fix)
+    tablets = pd.read_csv(fix / "tablets.csv")
+    tablets.loc[tablets["lot"] == lot, "breaking_force_n"] += 5.0
+    tablets.to_csv(fix / "tablets.csv", index=False)
+    api.ingest(fix, path, reason="breaking force re-measured")
+    watched = api.watch(store=path, models_dir=tmp_path / "models")
+    assert [r["lot"] for r in watched.revised] == [lot]  # revised after training, in use: said so
+    api.set_aside(lot, path, reason=REASON)
+    watched = api.watch(store=path, models_dir=tmp_path / "models")
+    assert watched.revised == [] and watched.to_dict()["set_aside_in_training"] == [lot]
+    assert lot not in "\n".join(line for line in watched.text().splitlines() if "revised after" in line)
+    monkeypatch.setattr(training, "train_chain", partial(training.train_chain, candidates=["mean", "linear_select"],
+                                                        n_bootstrap=20))
+    decided = api.retrain(path, tmp_path / "models").to_dict()
+    assert decided["set_aside_in_training"] == [lot]
+    assert not [n for n in decided["notes"] if "revised after it was trained" in n], decided["notes"]

@@ -322,7 +322,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     time_min = _challenger_time_point(champion, spec)
     with LotStore(store_path, create=False) as store:
         tables = current_tables_of(store, product)
-        stored_lots = store.lots(product)
+        stored_lots = store.lots(product, in_use=True)  # a set-aside training lot is named apart (_set_aside_said)
         others = store.other_products(product)
     q = spec.limits["dissolution_pct"].min if spec is not None and "dissolution_pct" in spec.limits else None
     check_dissolution_time(tables, time_min)

@@ -221,3 +221,26 @@ def test_a_model_of_several_products_is_marked_mixed_in_models_audit_and_watch(s
     assert f"Model {mixed} is mixed: {said}" in wt
     own = api.watch(store=store["db"], models_dir=store["models"], model=store["champion"])
     assert own.to_dict()["mixed_products"] is False and "mixed" not in own.text()
+
+
+def test_set_aside_lots_of_other_products_are_not_counted_as_left_out_for_their_product(store, tmp_path):
+    """A lot of another product set aside is left out for being set aside, not for its product: the notes of
+    watch and the report's count of other products' lots count the lots in use (the store's own scope rule: no
+    outside source; the counts are the campaigns' own, taken with pandas in the fixture)."""
+    import shutil
+
+    from linkage import seal
+    from linkage.store import LotStore
+
+    path = tmp_path / "lots.db"
+    shutil.copy(store["db"], path)
+    shutil.copy(seal.anchor_path(store["db"]), seal.anchor_path(path))
+    api.set_aside(store["b_lots"][0], path, reason="DEV-1: wrong blend")
+    c = store["counts"]
+    with LotStore(path, create=False) as s:
+        assert s.product_counts() == c
+        assert s.product_counts(in_use=True) == {**c, B: c[B] - 1}
+        assert s.other_products(A) == [(B, c[B] - 1), (None, c[None])]
+    watched = api.watch(store=path, models_dir=store["models"], model=store["champion"])
+    assert any(f"{c[B] - 1 + c[None]} lots of other products ('{B}': {c[B] - 1}, no product: {c[None]}) are not "
+               "watched" in n for n in watched.notes), watched.notes
