@@ -180,6 +180,7 @@ def record_entry(store, action: str, *, model_id: str | None, inputs, outputs, l
 #: :func:`record_entry` under its first name (in ``__all__`` since the API began; the calls whose keyword
 #: ``record`` hides this name use :func:`record_entry`)
 record = record_entry
+_record_entry = record_entry  # kept for scripts written before its public name
 
 
 def recording(store, record: bool | None, action: str) -> bool:
@@ -225,6 +226,11 @@ def refuse_unanchored(store) -> None:
     from linkage.store import refuse_unanchored as refuse
 
     refuse(store)
+
+
+# kept for scripts written before the public names (DEVELOPERS.md named ``_recording``)
+_recording = recording
+_refuse_unanchored = refuse_unanchored
 
 
 # --------------------------------------------------------------------------- the store

@@ -304,6 +304,14 @@ def bootstrap_summary(bs: dict | None) -> dict:
     return {k: bs.get(k) for k in ("method", "n_replicates", "requested", "failed", "seed", "reason")}
 
 
+def trained_mask(lots, training_lots) -> np.ndarray:
+    """Which of ``lots`` are among ``training_lots`` (a training record's lots), one boolean each, compared as
+    text (the record keeps them as text): :meth:`FittedChain.trained_on`'s rule, for a caller that holds only
+    the list."""
+    used = set(map(str, training_lots or []))
+    return np.array([str(lot) in used for lot in lots], dtype=bool)
+
+
 @dataclass
 class FittedChain:
     """A trained chain: stages in order, every fitted target, the training
@@ -336,8 +344,7 @@ class FittedChain:
         """Which of ``lots`` (lot ids, in their order) the chain was trained on, one boolean each: the lots of
         its training record, compared as text (the record keeps them as text). The report's lots, map and
         transfer sections all judge a training lot by it."""
-        used = set(map(str, self.training.get("lots") or []))
-        return np.array([str(lot) in used for lot in lots], dtype=bool)
+        return trained_mask(lots, self.training.get("lots"))
 
     def stage(self, name: str) -> FittedStage:
         for st in self.stages:

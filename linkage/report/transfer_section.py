@@ -14,6 +14,8 @@ many of them the model was trained on.
 
 from __future__ import annotations
 
+from functools import partial
+
 import numpy as np
 
 from linkage.decide.transfer import LEAVES_OUT
@@ -55,10 +57,17 @@ def _command(targets: list[float], gap: float) -> str:
     return f"linkage transfer --roll-diameter-mm D --roll-width-mm W --gap-mm {gap:.3g} {target}"
 
 
-def transfer_section(b, table, window=None, *, seed: int = 0, trained_on=None) -> None:
+def transfer_section(b, table, window=None, *, seed: int = 0, trained_on=None, trained=None) -> None:
     """Add the section to the report builder ``b`` (``linkage.report.html._Builder``). ``trained_on``: which of
     some lots the model was trained on (:meth:`linkage.models.fitted.FittedChain.trained_on`; the fit says how
-    many of its lots they are); None: not said."""
+    many of its lots they are); None: not said. ``trained``: the keyword before ``trained_on``, kept for callers
+    written before it: the lots the model was trained on (a list), judged by the same rule."""
+    if trained is not None:
+        if trained_on is not None:
+            raise TypeError("transfer_section: give trained_on or trained (its earlier form), not both")
+        from linkage.models.fitted import trained_mask
+
+        trained_on = partial(trained_mask, training_lots=list(trained))
     from linkage.decide.transfer import fit_ribbon_physics, transfer
     from linkage.exceptions import LinkageError
     from linkage.report import figures as F

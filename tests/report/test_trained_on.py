@@ -13,6 +13,7 @@ import re
 from pathlib import Path
 
 import numpy as np
+import pytest
 
 from linkage.report.html import _Builder, _data_section
 from linkage.report.transfer_section import transfer_section
@@ -67,3 +68,19 @@ def test_no_section_of_the_report_judges_training_lots_on_its_own():
                 assert not re.search(r"\bset\(|\.isin\(|\bin\b", line), f"{path.name}: {line.strip()}"
         uses[path.name] = text.count("trained_on(") + text.count("trained_on=chain.trained_on")
     assert uses["space_section.py"] >= 1 and uses["transfer_section.py"] >= 1 and uses["html.py"] >= 4, uses
+
+
+def test_transfer_section_takes_its_earlier_keyword_trained(chain):
+    """``transfer_section`` is in ``__all__``: its keyword before ``trained_on``, ``trained`` (the list of training
+    lots), still gives the same section (a rule of the API's names: no outside source; the count is checked
+    against ``_reference``, pandas' isin)."""
+    campaign = make_transfer_lots(seed=2)
+    lots = list(campaign["lot"])[:10]
+    model = copy.copy(chain)
+    model.training = {**chain.training, "lots": lots}
+    new, old = _Builder(parallel=False), _Builder(parallel=False)
+    transfer_section(new, campaign, trained_on=model.trained_on)
+    transfer_section(old, campaign, trained=lots)
+    assert "".join(old.parts) == "".join(new.parts) and "10 of them lots the model was trained on" in "".join(old.parts)
+    with pytest.raises(TypeError, match="not both"):
+        transfer_section(_Builder(parallel=False), campaign, trained_on=model.trained_on, trained=lots)
