@@ -269,12 +269,14 @@ def advance_anchor(store_path: Path, c) -> bool:
     :data:`ANCHOR_LOCK_TIMEOUT_S` (a holder stopped), the same is done without the lock (as before it existed): the anchor is read before it is
     replaced, but two writers finishing together may leave it a seal behind (weaker evidence until the next
     write; :func:`check` does not take it for a removal). Returns whether the anchor names the newest seal
-    read (False where it could not be written)."""
+    read, its id and hash (False where it could not be written, or where it names that seal under another hash:
+    a mismatch, left as it is for :func:`check` to report)."""
     with _anchor_lock(store_path):
         seal_id, digest = head(c)
         anchor = read_anchor(store_path)
-        if anchor is not None and anchor["seal_id"] >= seal_id:
-            return anchor["seal_id"] == seal_id  # another writer anchored this seal, or one after it, already
+        if anchor is not None and anchor["seal_id"] >= seal_id:  # another writer anchored this seal, or a later one
+            # this seal under another hash is a mismatch (the anchor or the chain was changed): left for check to name
+            return anchor["seal_id"] == seal_id and anchor["sha256"] == digest
         return write_anchor(store_path, seal_id, digest)
 
 

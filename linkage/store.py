@@ -1503,17 +1503,27 @@ class LotStore:
         return UsageError(f"lot '{lot}' is not in the store {self.path}{hint}")
 
     def _not_stored_all(self, lots: list[str]) -> UsageError:
-        """The refusal of lots the store does not hold, every one named with the nearest stored ids (exit code 2,
-        nothing written)."""
+        """The refusal of lots :meth:`stored_spelling` does not find, every one named (exit code 2, nothing
+        written): a lot the store does not hold with the nearest stored ids; a lot of which an older store holds
+        two spellings of one id (``A1`` and ``a1``) as ambiguous, both spellings named."""
         import difflib
 
         stored = self.lot_ids()
-        said = []
+        said, ambiguous = [], []
         for lot in lots:
+            same = [r[0] for r in self._read("SELECT lot FROM lots WHERE lot_key(lot) = ? ORDER BY rowid",
+                                             (lot_key(lot),))] if lot else []
+            if len(same) > 1:
+                ambiguous.append(f"{lot!r} is {' and '.join(map(repr, same))}")
+                continue
             near = difflib.get_close_matches(lot, stored, n=3, cutoff=0.6)
             said.append(repr(lot) + (f" (did you mean {', '.join(near)}?)" if near else ""))
-        return UsageError(f"{len(lots)} lot(s) not in the store {self.path}, which holds {len(stored)} lots: "
-                          f"{'; '.join(said)}. Nothing was written.")
+        parts = ([f"{len(said)} lot(s) not in the store {self.path}, which holds {len(stored)} lots: "
+                  f"{'; '.join(said)}"] if said else [])
+        parts += ([f"{len(ambiguous)} lot id(s) ambiguous in the store {self.path}, which holds two spellings of "
+                   f"one id (written before one lot had one spelling): {'; '.join(ambiguous)}; give the exact "
+                   "spelling"] if ambiguous else [])
+        return UsageError(". ".join(parts) + ". Nothing was written.")
 
     def audit(self, lot: str | None = None, *, with_ingests: bool = False, require_lot: bool = False) -> list[dict]:
         """Audit entries, oldest first; only those about ``lot`` when given,

@@ -463,3 +463,31 @@ def test_a_set_aside_training_lot_revised_after_training_is_named_once_not_as_re
     decided = api.retrain(path, tmp_path / "models").to_dict()
     assert decided["set_aside_in_training"] == [lot]
     assert not [n for n in decided["notes"] if "revised after it was trained" in n], decided["notes"]
+
+
+def test_an_ambiguous_lot_id_of_an_older_store_is_said_ambiguous_naming_both(store, tmp_path, monkeypatch):
+    """A store written before the one-spelling rule may hold 'EX-001' and 'ex-001' (made here by ingesting with
+    the rule switched off, as the code before it ingested): 'Ex-001' is neither, and is refused as ambiguous with
+    both spellings named, not as "not in the store"; the exact spelling is taken. A regression test of the store's
+    own rules: it needs no outside source."""
+    import linkage.read.folder as folder_module
+    import linkage.store as store_module
+
+    lower = tmp_path / "lower"
+    shutil.copytree(EXAMPLE, lower)
+    for path in lower.glob("*.csv"):
+        path.write_text(path.read_text(encoding="utf-8").replace("EX-001", "ex-001"), encoding="utf-8")
+    with monkeypatch.context() as m:
+        m.setattr(store_module, "lot_key", str)
+        m.setattr(folder_module, "lot_key", str)
+        api.ingest(lower, store, reason="written before the one-spelling rule")
+    before = _dump(store)
+    result = _run(["set-aside", "Ex-001", "NOPE-9", "--reason", REASON, "--store", store])
+    assert result.exit_code == 2, result.output
+    err = " ".join(result.stderr.split())
+    assert "1 lot id(s) ambiguous" in err and "'Ex-001' is 'EX-001' and 'ex-001'" in err, err
+    assert "1 lot(s) not in the store" in err and "'NOPE-9'" in err and "'Ex-001' (did" not in err
+    assert _dump(store) == before
+    assert _run(["set-aside", "ex-001", "--reason", REASON, "--store", store]).exit_code == 0
+    with LotStore(store, create=False) as s:
+        assert list(s.set_aside_lots()) == ["ex-001"]

@@ -165,3 +165,17 @@ def test_a_lock_that_fails_leaves_the_write_standing(tmp_path, monkeypatch):
         assert s.audit()[-1]["action"] == "second"
         counts = s.check_seals(full=True)
     assert seal_module.read_anchor(store)["seal_id"] == counts["newest seal"]["id"]
+
+
+def test_an_anchor_naming_the_newest_seal_under_another_hash_is_a_mismatch(tmp_path):
+    """The anchor names the newest seal's id but another hash (the anchor or the chain was changed): not "the
+    anchor names the newest seal" (False), and the anchor is left as it is, for ``check`` to report. A regression
+    test of the store's own rule: it needs no outside source."""
+    store = tmp_path / "s.db"
+    newer = _seals(5)
+    seal_id, digest = seal_module.head(newer)
+    assert seal_module.write_anchor(store, seal_id, "0" * 64)
+    written = seal_module.anchor_path(store).read_bytes()
+    assert seal_module.advance_anchor(store, newer) is False
+    assert seal_module.anchor_path(store).read_bytes() == written
+    assert seal_module.write_anchor(store, seal_id, digest) and seal_module.advance_anchor(store, newer) is True
