@@ -988,7 +988,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     out, and a note says so. Logs ``watch``."""
     from linkage.assemble import assemble as assemble_table
     from linkage.decide.watch import revised_since_training, watch as run_watch
-    from linkage.store import LotStore, current_tables_of
+    from linkage.store import LotStore, current_tables_of, set_aside_notes
     from linkage.timepoint import check_time_point, model_time_point, time_point_text
 
     refuse_unanchored(store)  # logged at the end: a store that refuses the entry is refused before the work
@@ -1020,12 +1020,12 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     with LotStore(store, create=False) as s:
         tables = current_tables_of(s, product)
         recorded = s.predictions()
-        stored_lots = s.lots(product, in_use=True)  # a set-aside training lot is named apart (_set_aside_notes)
+        stored_lots = s.lots(product, in_use=True)  # a set-aside training lot is named apart (set_aside_notes)
         others = s.other_products(product)
     if others:
         notes.append(f"the store's {others_text(others)} are not watched: only the lots of {product!r} are "
                      "(--product to watch another product's)")
-    aside, in_training = _set_aside_notes(tables.set_aside, chain, notes, "not watched")
+    aside, in_training = set_aside_notes(tables.set_aside, chain, notes, "not watched")
     table = assemble_table(tables, dissolution_time_min=model_time_point(chain)[0])  # the model's time point
     result = run_watch(chain, table, ribbon=tables.get("ribbon"), window=found, recorded=recorded)
     revised = revised_since_training(stored_lots, chain.training.get("lots") or [], chain.created_at)
@@ -1037,17 +1037,6 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
                    time_point=time_point_text(chain) if "dissolution_pct" in chain.targets else None, revised=revised,
                    notes=notes, trained_products=[{"product": p, "n_lots": n} for p, n in chain_counts(chain)],
                    set_aside=aside, set_aside_trained=in_training)
-
-
-def _set_aside_notes(set_aside: dict, chain, notes: list[str], what: str) -> tuple[list[str], list[str]]:
-    """Add to ``notes`` what a command says of the lots set aside it leaves out (``what``: "not watched") and of
-    those of them in ``chain``'s training set; returns both lists of lots."""
-    from linkage.store import set_aside_note, set_aside_trained_note
-
-    note = set_aside_note(set_aside, what)
-    in_training, trained_note = set_aside_trained_note(set_aside, chain.training.get("lots"), chain.model_id)
-    notes += [n for n in (note, trained_note) if n]
-    return list(set_aside), in_training
 
 
 def _running_window(fitted, lean, spec, held: dict, seed: int, assurance: float) -> tuple[float, float]:

@@ -869,7 +869,7 @@ class SetAside(_Result):
                 "decisions": list(self.decisions), "set_aside_lots": list(self.set_aside_now)}
 
     def text(self) -> str:
-        from linkage.store import SET_ASIDE
+        from linkage.store import SET_ASIDE, lots_named
 
         d = self.decisions
         lots = ", ".join(x["lot"] for x in d)
@@ -885,8 +885,7 @@ class SetAside(_Result):
                      f"{', '.join(str(x['audit_id']) for x in d)}), {first['at']}, by {first['user']}; "
                      f"reason: {first['reason']}")
         lines.append(f"Lots set aside now: {len(self.set_aside_now)}"
-                     + (f" ({', '.join(self.set_aside_now[:12])}{' …' if len(self.set_aside_now) > 12 else ''})"
-                        if self.set_aside_now else ""))
+                     + (f" ({lots_named(self.set_aside_now)})" if self.set_aside_now else ""))
         return "\n".join(lines)
 
     def summary(self) -> pd.DataFrame:

@@ -501,12 +501,23 @@ def _set_aside_state(c) -> dict[str, dict]:
     return state
 
 
+#: how many lot ids a set-aside text names before "and N more"
+LOTS_NAMED = 12
+
+
+def lots_named(lots) -> str:
+    """The first :data:`LOTS_NAMED` lot ids, and how many more: 'A, B, C and 3 more' (the set-aside texts)."""
+    lots = [str(lot) for lot in lots]
+    more = len(lots) - LOTS_NAMED
+    return ", ".join(lots[:LOTS_NAMED]) + (f" and {more} more" if more > 0 else "")
+
+
 def set_aside_note(set_aside, what: str = "left out") -> str | None:
     """What a command that leaves set-aside lots out says: how many, which, and where to look (None: none)."""
     lots = list(set_aside)
     if not lots:
         return None
-    shown = ", ".join(lots[:12]) + (f" and {len(lots) - 12} more" if len(lots) > 12 else "")
+    shown = lots_named(lots)
     return (f"{len(lots)} lot{'' if len(lots) == 1 else 's'} set aside in the store "
             f"{'is' if len(lots) == 1 else 'are'} {what}: {shown} "
             "('linkage lots' shows why; 'linkage restore LOT --reason TEXT' puts one back in use)")
@@ -519,11 +530,20 @@ def set_aside_trained_note(set_aside, training_lots, model_id: str) -> tuple[lis
     lots = [lot for lot in set_aside if lot in trained]
     if not lots:
         return [], None
-    shown = ", ".join(lots[:12]) + (f" and {len(lots) - 12} more" if len(lots) > 12 else "")
+    shown = lots_named(lots)
     return lots, (f"{len(lots)} lot{'' if len(lots) == 1 else 's'} now set aside "
                   f"{'was' if len(lots) == 1 else 'were'} in the training set of "
                   f"model {model_id}: {shown}; the model was fitted on {'it' if len(lots) == 1 else 'them'} "
                   f"('linkage retrain' fits a challenger without {'it' if len(lots) == 1 else 'them'})")
+
+
+def set_aside_notes(set_aside: dict, chain, notes: list[str], what: str) -> tuple[list[str], list[str]]:
+    """Add to ``notes`` what a command says of the set-aside lots it leaves out (:func:`set_aside_note`, ``what``:
+    "not watched") and of those of them in ``chain``'s training set (:func:`set_aside_trained_note`); returns
+    both lists of lots (watch, retrain)."""
+    in_training, trained_note = set_aside_trained_note(set_aside, chain.training.get("lots"), chain.model_id)
+    notes += [n for n in (set_aside_note(set_aside, what), trained_note) if n]
+    return list(set_aside), in_training
 
 
 class StoreNeedsUpgrade(StoreError):

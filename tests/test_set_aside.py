@@ -491,3 +491,21 @@ def test_an_ambiguous_lot_id_of_an_older_store_is_said_ambiguous_naming_both(sto
     assert _run(["set-aside", "ex-001", "--reason", REASON, "--store", store]).exit_code == 0
     with LotStore(store, create=False) as s:
         assert list(s.set_aside_lots()) == ["ex-001"]
+
+
+def test_the_set_aside_texts_name_the_first_twelve_lots_alike(tmp_path):
+    """The commands' note, the training-set note and the set-aside result name a long list of lots the same way,
+    by one helper: the first 12 ids and how many more. A regression test of the texts' own rule: it needs no
+    outside source."""
+    from linkage.results import SetAside
+    from linkage.store import set_aside_note, set_aside_trained_note
+
+    lots = [f"L{k:02d}" for k in range(1, 15)]
+    said = "L01, L02, L03, L04, L05, L06, L07, L08, L09, L10, L11, L12 and 2 more"
+    aside = {lot: {} for lot in lots}
+    assert f": {said} (" in set_aside_note(aside)
+    assert f": {said}; the model" in set_aside_trained_note(aside, lots, "m-1")[1]
+    result = SetAside(action="set-aside", decisions=[{"lot": "L01", "audit_id": 1, "at": "t", "user": "u",
+                                                      "reason": "r"}], store=tmp_path / "s.db", set_aside_now=lots)
+    assert f"Lots set aside now: 14 ({said})" in result.text()
+    assert set_aside_note({}) is None and set_aside_trained_note(aside, [], "m-1") == ([], None)

@@ -310,7 +310,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     from linkage.models import registry
     from linkage.models.train import train_chain
     from linkage.products import others_text
-    from linkage.store import LotStore, current_tables_of, refuse_unanchored
+    from linkage.store import LotStore, current_tables_of, refuse_unanchored, set_aside_notes
 
     if not 0 <= tolerance < 1:
         raise UsageError(f"tolerance must lie in [0, 1); got {tolerance}")
@@ -322,7 +322,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     time_min = _challenger_time_point(champion, spec)
     with LotStore(store_path, create=False) as store:
         tables = current_tables_of(store, product)
-        stored_lots = store.lots(product, in_use=True)  # a set-aside training lot is named apart (_set_aside_said)
+        stored_lots = store.lots(product, in_use=True)  # a set-aside training lot is named apart (set_aside_notes)
         others = store.other_products(product)
     q = spec.limits["dissolution_pct"].min if spec is not None and "dissolution_pct" in spec.limits else None
     check_dissolution_time(tables, time_min)
@@ -335,7 +335,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
                      "and the challenger is fitted on its lots only")
     if not new_lots:
         notes.append("no lots beyond the champion's training lots; the challenger sees the same data")
-    aside = _set_aside_said(tables.set_aside, champion, notes)
+    aside = set_aside_notes(tables.set_aside, champion, notes, "left out of the challenger's lots")
     from linkage.decide.watch import revised_since_training
 
     revised = revised_since_training(stored_lots, champion.training["lots"], champion.created_at)
@@ -384,16 +384,6 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
         raise
     registry.settle_decision(models_dir, decision_id, recorded=True)
     return decision
-
-
-def _set_aside_said(set_aside: dict, champion, notes: list[str]) -> tuple[list[str], list[str]]:
-    """Add to ``notes`` the lots set aside that the challenger is not fitted on, and those of them the champion
-    was; returns both lists."""
-    from linkage.store import set_aside_note, set_aside_trained_note
-
-    in_training, trained = set_aside_trained_note(set_aside, champion.training.get("lots"), champion.model_id)
-    notes += [n for n in (set_aside_note(set_aside, "left out of the challenger's lots"), trained) if n]
-    return list(set_aside), in_training
 
 
 def settle_pending(store_path, models_dir) -> list[tuple[str, str]]:
