@@ -405,11 +405,13 @@ def _set_aside_decision(lots, store, reason, *, restore: bool):
     action = RESTORE if restore else SET_ASIDE
     if given_reason(reason) is None:  # before the store is opened: nothing to write without one
         raise UsageError(set_aside_needs_reason(action))
-    with warnings.catch_warnings():  # a store without its anchor file: its refusal below says it
-        warnings.simplefilter("ignore", StoreCaution)
-        with LotStore(store, create=False, read_only=True) as s:  # a refusal opens no older store for writing
-            if s.unanchored is None:  # (that would upgrade it, and make its anchor and lock files)
-                s.decision_lots(lots, reason, action)
+    # decided first on the store read only (schema 1: on an upgraded copy, as a preview decides), so that a refusal
+    # opens no older store for writing (that would upgrade it, and make its anchor and lock files)
+    with warnings.catch_warnings(), contextlib.ExitStack() as stack:
+        warnings.simplefilter("ignore", StoreCaution)  # a store without its anchor file: its refusal below says it
+        s = _preview_store(stack, Path(store), exists=True)
+        if s.unanchored is None:
+            s.decision_lots(lots, reason, action)
     with LotStore(store, create=False, for_writing=True) as s:  # a store without its anchor file: refused, exit 6
         decisions = s.restore(lots, reason) if restore else s.set_aside(lots, reason)
         still = s.set_aside_lots()

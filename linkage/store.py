@@ -580,8 +580,8 @@ class LotStore:
     ``read_only=True`` opens an existing store for reading only although its
     file could be written (an ingest's preview, a set-aside's checks): SQLite
     refuses every change (``PRAGMA query_only``), and a store of an earlier
-    schema is read as it is, not upgraded (schema 1, which has no seals, is
-    read unchecked: its first write seals it as it stands).
+    schema is read as it is, not upgraded (schema 1, before seals, is refused:
+    :class:`StoreNeedsUpgrade`).
     """
 
     def __init__(self, path: Path | str = "linkage.db", *, create: bool = True,
@@ -610,7 +610,6 @@ class LotStore:
         #: store this opening creates is
         self.writable = writable or not exists
         self.read_only = exists and (read_only or not writable)
-        self._writable = writable
         try:
             if self.read_only and not writable:
                 uri = f"{self.path.resolve().as_uri()}?mode=ro&immutable=1"
@@ -676,8 +675,6 @@ class LotStore:
             shown = ", ".join(names[:6]) or "none"
             raise StorePathError(f"{self.path} is an SQLite file but not a linkage lot store (tables: {shown})")
         if self.read_only:
-            if version < 2 and self._writable:  # asked to read only (a writable file): as it is, no seals to check
-                return
             if version < 2:
                 raise StoreNeedsUpgrade(f"{self.path} was written by an earlier linkage (store schema {version}) and is "
                                  "read-only here: open it once with write access to upgrade and seal it")
