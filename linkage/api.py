@@ -900,6 +900,9 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
         tables = current_tables_of(lot_store, product)
         lots = lot_store.lots(product=product, in_use=True)  # as the table: the lots in use
         others, store_cautions = lot_store.other_products(product), lot_store.cautions()  # said in the report
+        from linkage.report.html import set_aside_training_rows  # drawn where the model's CV results hold them
+
+        aside_rows = set_aside_training_rows(lot_store, product, tables.set_aside, chain.training.get("lots"))
     if not tables:
         of = f" of product {product}" if product else ""
         raise InsufficientDataError(f"the store {store} holds no lots{of}; nothing to report on")
@@ -940,7 +943,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     rendered = render_report(chain, table, spec=spec, window=found, lots=lots, confidence=confidence, seed=seed,
                              curve_draws=REPORT_CURVE_DRAWS, assurance=assurance, plan=plan, space=space,
                              reused=reused, kept_figures=kept_figures, other_lots=others,
-                             store_cautions=store_cautions, set_aside=tables.set_aside)
+                             store_cautions=store_cautions, set_aside=tables.set_aside, set_aside_rows=aside_rows)
     if "mewma" in rendered.computed:
         _keep(models_dir, chain.model_id, "mewma", None,
               (designs.result if designs is not None else []) + rendered.computed["mewma"], "linkage report",

@@ -263,20 +263,35 @@ def lot_ticks(ax, lots: Sequence, *, fontsize: float = LOT_TICK_SIZE) -> list[in
 
 
 
-def _scatter_groups(ax, x, y, groups, *, size=28, alpha=0.85, legend_title=None, max_legend=12):
+#: the legend entry of the lots drawn hollow in the per-attribute figures
+SET_ASIDE_LABEL = "set aside since training"
+
+
+def _scatter_groups(ax, x, y, groups, *, size=28, alpha=0.85, legend_title=None, max_legend=12, marked=None):
+    """Points coloured and shaped by group (the same group, the same style in every figure); ``marked`` (bools):
+    points drawn hollow in their group's colour, with one legend entry :data:`SET_ASIDE_LABEL`."""
     x = np.asarray(x, float)
     y = np.asarray(y, float)
+    hollow = np.zeros(len(x), bool) if marked is None else np.asarray(marked, bool)
     if groups is None:
-        ax.scatter(x, y, s=size, color=BLUE, marker="o", alpha=alpha, edgecolors="white", linewidths=0.4)
-        return
-    groups = np.asarray([("(none)" if g is None or (isinstance(g, float) and np.isnan(g)) else g)
-                         for g in groups], dtype=object)
-    styles = group_styles(sorted(set(groups), key=_sort_key))  # same group, same style in every figure
+        groups = np.full(len(x), None, dtype=object)
+        styles = {None: (BLUE, "o")}
+    else:
+        groups = np.asarray([("(none)" if g is None or (isinstance(g, float) and np.isnan(g)) else g)
+                             for g in groups], dtype=object)
+        styles = group_styles(sorted(set(groups), key=_sort_key))  # same group, same style in every figure
     for g, (colour, marker) in styles.items():
-        m = groups == g
-        ax.scatter(x[m], y[m], s=size, color=colour, marker=marker, alpha=alpha, edgecolors="white",
-                   linewidths=0.4, label=plain(g, 24) if len(styles) <= max_legend else None)
-    if 1 < len(styles) <= max_legend:
+        m = (groups == g) if g is not None else np.ones(len(x), bool)
+        label = plain(g, 24) if g is not None and len(styles) <= max_legend else None
+        ax.scatter(x[m & ~hollow], y[m & ~hollow], s=size, color=colour, marker=marker, alpha=alpha,
+                   edgecolors="white", linewidths=0.4, label=label)
+        if (m & hollow).any():
+            ax.scatter(x[m & hollow], y[m & hollow], s=size * 1.4, facecolors="none", edgecolors=colour,
+                       marker=marker, linewidths=1.3)
+    if hollow.any():  # one legend entry for the hollow points of every group
+        ax.scatter([], [], s=size * 1.4, facecolors="none", edgecolors=BLACK, marker="o", linewidths=1.3,
+                   label=SET_ASIDE_LABEL)
+    if 1 < len(styles) <= max_legend or hollow.any():
         ax.legend(title=legend_title, fontsize=7, title_fontsize=7, loc="best", framealpha=0.8)
 
 
@@ -355,16 +370,16 @@ def plot_rd_fit(porosity, strength, s0: float | None, k: float | None, *, name: 
 # ---------------------------------------------------------------- per attribute
 
 def plot_predicted_observed(observed, predicted, *, name: str, groups=None, group_title: str | None = None,
-                            limit=None, ax=None):
+                            limit=None, ax=None, marked=None):
     """Cross-validated (out-of-fold) prediction against observation, with the
-    line of identity; spec limits on both axes."""
+    line of identity; spec limits on both axes. ``marked``: lots drawn hollow (set aside since training)."""
     ax = new_axes(ax, panel=(3.4, 3.2))
     obs = np.asarray(observed, float)
     pred = np.asarray(predicted, float)
     keep = _finite(obs, pred)
     _scatter_groups(ax, obs[keep], pred[keep],
                     None if groups is None else np.asarray(groups, dtype=object)[keep],
-                    legend_title=group_title)
+                    legend_title=group_title, marked=None if marked is None else np.asarray(marked, bool)[keep])
     if keep.any():
         lo = float(min(obs[keep].min(), pred[keep].min()))
         hi = float(max(obs[keep].max(), pred[keep].max()))
@@ -379,9 +394,10 @@ def plot_predicted_observed(observed, predicted, *, name: str, groups=None, grou
 
 
 def plot_residuals_in_time(lots: Sequence, residuals, *, name: str, groups=None, noise_floor: float | None = None,
-                           ax=None):
+                           ax=None, marked=None):
     """Out-of-fold residuals (observed - predicted) lot by lot in time order,
-    with the measurement noise floor shaded when it is known."""
+    with the measurement noise floor shaded when it is known. ``marked``: lots drawn hollow (set aside since
+    training)."""
     ax = new_axes(ax, panel=(4.6, 3.2), bottom=lot_axis_bottom(lots))
     r = np.asarray(residuals, float)
     x = np.arange(len(r))
@@ -392,7 +408,7 @@ def plot_residuals_in_time(lots: Sequence, residuals, *, name: str, groups=None,
                    label=f"± noise floor ({noise_floor:.3g})")
     ax.vlines(x[keep], 0, r[keep], color="#b0b0b0", linewidth=0.8)
     _scatter_groups(ax, x[keep], r[keep], None if groups is None else np.asarray(groups, dtype=object)[keep],
-                    size=20)
+                    size=20, marked=None if marked is None else np.asarray(marked, bool)[keep])
     lot_ticks(ax, lots)
     ax.set_xlabel("lot, in time order [-]")
     ax.set_ylabel("residual, observed − predicted [" + axis_label(name).rsplit("[", 1)[-1])

@@ -305,7 +305,8 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
                   confidence: float = 0.9, seed: int = 0, curve_draws: int = 400,
                   assurance: float = 0.9, plan=None, space=None, reused: dict[str, str] | None = None,
                   parallel: bool = True, kept_figures=None, other_lots=None,
-                  store_cautions: list[str] | None = None, set_aside: dict | None = None) -> Report:
+                  store_cautions: list[str] | None = None, set_aside: dict | None = None,
+                  set_aside_rows: pd.DataFrame | None = None) -> Report:
     """Build the report of a fitted chain.
 
     Parameters
@@ -338,6 +339,9 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     set_aside : the store's lots set aside (``linkage set-aside``) that the table leaves out (lot -> the
         decision, :attr:`linkage.store.LotTables.set_aside`): the lots section names them, and those of them
         the model was trained on.
+    set_aside_rows : the process rows (lot, product, compactor, manufactured_at) of the lots of ``set_aside``
+        the model was trained on (:func:`set_aside_training_rows`): its out-of-fold results hold them, so the
+        per-attribute figures draw them at their own place in time with their own compactor, marked.
     kept_figures : the figures an earlier report drew with the same inputs
         (a :class:`linkage.models.reuse.Reused` of kind "figures",
         :mod:`linkage.report.kept`): a figure whose caption is the one kept
@@ -367,7 +371,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     try:
         _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
                   pending, computed, other_lots=other_lots, store_cautions=store_cautions or [],
-                  set_aside=set_aside or {})
+                  set_aside=set_aside or {}, set_aside_rows=set_aside_rows)
         b.draw_figures()
     finally:
         b.close()
@@ -384,7 +388,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
 
 
 def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
-              pending, computed, other_lots=None, store_cautions=(), set_aside=None) -> None:
+              pending, computed, other_lots=None, store_cautions=(), set_aside=None, set_aside_rows=None) -> None:
     """Every section in order into ``b``. ``pending``: the watch and (unless given) the map, being computed;
     ``computed`` gets the window and the map when they were computed here."""
     limits = dict(spec.limits) if spec is not None else {}
@@ -395,12 +399,12 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
             computed["window"] = window
 
     revised = revised_training_lots(chain, lots)
-    _glance(b, chain, table, spec, window, revised, store_cautions)
+    _glance(b, chain, table, spec, window, revised, store_cautions, set_aside or {})
     _data_section(b, chain, table, lots, other_lots, revised)
     _set_aside_part(b, chain, set_aside or {})
     _ribbon_section(b, chain, table, limits)
     _baseline_section(b, chain, table, limits)
-    _attribute_section(b, chain, table, limits)
+    _attribute_section(b, chain, table, limits, set_aside_rows)
     b.draw_early()  # the figures so far are drawn beside the sections that follow
     _explain_section(b, chain, table, limits, window, curve_draws, seed)
     b.draw_early()  # the explanations' too, beside the window and the sections after it
@@ -512,7 +516,7 @@ def _stage_of(chain, name: str):
 
 # ----------------------------------------------------------------- 1. at a glance
 
-def _glance(b, chain, table, spec, window, revised=(), store_cautions=()):
+def _glance(b, chain, table, spec, window, revised=(), store_cautions=(), set_aside=None):
     b.section("glance", "At a glance")
     time_point = None
     if "dissolution_pct" in chain.targets:
@@ -541,7 +545,27 @@ def _glance(b, chain, table, spec, window, revised=(), store_cautions=()):
                 rf_range=_range(rf.get("point_low"), rf.get("point_high"), 2),
                 low_edge=_edge_text(window.low.limited_by) if window is not None else None,
                 high_edge=_edge_text(window.high.limited_by) if window is not None else None,
-                revised=len(revised), revised_text=_revised_text(revised), store_cautions=list(store_cautions)))
+                revised=len(revised), revised_text=_revised_text(revised), store_cautions=list(store_cautions),
+                aside_text=_glance_aside(chain, set_aside or {})))
+
+
+def _glance_aside(chain, set_aside: dict) -> str:
+    """Why the table holds fewer lots than the model was trained on, when lots are set aside in the store: how many,
+    which, and how many of them were training lots ('' when none is set aside)."""
+    if not set_aside:
+        return ""
+    from linkage.store import set_aside_trained_note
+
+    n = len(set_aside)
+    trained = set_aside_trained_note(set_aside, chain.training.get("lots"), chain.model_id)[0]
+    text = (f"{n} lot{'' if n == 1 else 's'} set aside in the store ({_lots_text(set_aside)}) "
+            f"{'is' if n == 1 else 'are'} left out of the table")
+    if not trained:
+        return text + "; none of them was among the model's training lots"
+    k = len(trained)
+    return text + ("; it was among the lots the model was trained on" if n == k == 1 else
+                   f"; {'all' if k == n else k} of them {'was' if k == 1 else 'were'} among the lots the model "
+                   "was trained on")
 
 
 def _every(window) -> str:
@@ -824,11 +848,20 @@ def _baseline_section(b, chain, table, limits):
 
 # ----------------------------------------------------------------- 5. attributes
 
-def _attribute_section(b, chain, table, limits):
+def _attribute_section(b, chain, table, limits, aside_rows=None):
     from linkage.report import figures as F
 
     b.section("attributes", "Attribute by attribute: cross-validated performance")
     b.add(_part("models", "attributes_intro"))
+    lots_frame_ = lots_frame(table, aside_rows)
+    hollow = list(lots_frame_.loc[lots_frame_["set_aside"], "lot"])
+    if hollow:
+        one = len(hollow) == 1
+        b.add(_part("blocks", "para", text=(
+            f"{_lots_text(hollow)}: set aside in the store since the model was trained, so not in this report's "
+            f"table, but among the lots the model was fitted on and scored on: the figures below draw "
+            f"{'it' if one else 'them'} hollow (legend: set aside since training), at {'its' if one else 'their'} "
+            f"own place in time and with {'its' if one else 'their'} own compactor.")))
     for name, why in (getattr(chain, "skipped", None) or {}).items():
         b.note(f"{name} was not modelled: {why}")
     for name, target in chain.targets.items():
@@ -844,33 +877,85 @@ def _attribute_section(b, chain, table, limits):
         for note in getattr(target, "notes", None) or []:
             b.add(_part("blocks", "para", text=f"Note: {note}", cls="small"))
         oof = target.oof
-        lots = [str(v) for v in oof.index]
-        known = set(table["lot"])
-        order = [lot for lot in table["lot"] if lot in set(lots)] + [lot for lot in lots if lot not in known]
+        order, group_col, groups, marked = attribute_lots(lots_frame_, [str(v) for v in oof.index])
         oof = oof.reindex(order)
         if target.selected not in oof.columns or oof["observed"].notna().sum() == 0:
             b.note(f"{name}: no out-of-fold predictions of the selected model are stored, so the predicted "
                    "against observed figure cannot be drawn.")
             continue
-        group_col, groups = _group_column(table, order)
         by = f", coloured by {group_col}" if group_col else ""
         floor = " with the noise floor shaded" if target.noise_floor else " (no noise floor estimated)"
-        b.figure(partial(_attribute_figure, name, target, oof, order, groups, group_col, limits.get(name)),
+        hollow = [lot for lot, m in zip(order, marked) if m]
+        its = "its" if len(hollow) == 1 else "their"
+        aside = (f" Hollow markers: {_lots_text(hollow)}, set aside since the model was trained, at {its} own "
+                 f"place in time and with {its} own compactor." if hollow else "")
+        b.figure(partial(_attribute_figure, name, target, oof, order, groups, group_col, limits.get(name),
+                         marked if hollow else None),
                  f"{name}: out-of-fold prediction of the selected model ({target.selected}) against "
                  f"observation{by} (left; dashed: specification limits), and its residuals lot by lot in "
-                 f"time order{floor} (right).", panels=2)
+                 f"time order{floor} (right).{aside}", panels=2)
 
 
-def _attribute_figure(name, target, oof, order, groups, group_col, limit):
-    """An attribute's predicted against observed and its residuals in time order (two panels)."""
+def _attribute_figure(name, target, oof, order, groups, group_col, limit, marked=None):
+    """An attribute's predicted against observed and its residuals in time order (two panels); ``marked``: the
+    lots drawn hollow (set aside since training)."""
     from linkage.report import figures as F
 
     fig, (a1, a2) = F.grid_axes(2, ncols=2, panel=(3.3, 2.9), bottom=F.lot_axis_bottom(order), wspace=1.0)
     F.plot_predicted_observed(oof["observed"], oof[target.selected], name=name, groups=groups,
-                              group_title=group_col, limit=limit, ax=a1)
+                              group_title=group_col, limit=limit, ax=a1, marked=marked)
     resid = oof["observed"] - oof[target.selected]
-    F.plot_residuals_in_time(order, resid, name=name, groups=groups, noise_floor=target.noise_floor, ax=a2)
+    F.plot_residuals_in_time(order, resid, name=name, groups=groups, noise_floor=target.noise_floor, ax=a2,
+                             marked=marked)
     return fig
+
+
+#: the identity columns of a lot the per-attribute figures place and group it by
+_LOT_COLUMNS = ("lot", "product", "compactor", "manufactured_at")
+
+
+def set_aside_training_rows(lot_store, product, set_aside, training_lots) -> pd.DataFrame | None:
+    """The process rows (lot, product, compactor, time made) of the lots now set aside in ``lot_store`` that were
+    among ``training_lots`` (the model's out-of-fold results hold them, the table of lots in use does not); None
+    when there are none."""
+    lots = [lot for lot in set_aside if lot in {str(v) for v in training_lots or []}]
+    if not lots:
+        return None
+    process = lot_store.current_tables(product, include_set_aside=True).get("process")
+    if process is None:
+        return None
+    process = process.assign(lot=process["lot"].astype(str))
+    rows = process[process["lot"].isin(lots)]
+    return rows[[c for c in _LOT_COLUMNS if c in rows.columns]].drop_duplicates("lot", keep="last")
+
+
+def lots_frame(table: pd.DataFrame, aside_rows: pd.DataFrame | None) -> pd.DataFrame:
+    """The lots the per-attribute figures place: the table's, and the set-aside training lots of ``aside_rows``
+    (column ``set_aside`` True), in time order as :func:`linkage.assemble.assemble` orders lots (by time made,
+    then lot; by lot when no time is known). Without set-aside rows, the table's own order."""
+    frame = table[[c for c in _LOT_COLUMNS if c in table.columns]].assign(set_aside=False)
+    if aside_rows is None or aside_rows.empty:
+        return frame.reset_index(drop=True)
+    aside = aside_rows.assign(lot=aside_rows["lot"].astype(str), set_aside=True)
+    frame = pd.concat([frame, aside[~aside["lot"].isin(set(frame["lot"]))]], ignore_index=True)
+    if "manufactured_at" in frame and frame["manufactured_at"].notna().any():
+        when = pd.to_datetime(frame["manufactured_at"], errors="coerce", utc=True)
+        frame = frame.assign(_when=when).sort_values(["_when", "lot"], kind="stable", na_position="last")
+        frame = frame.drop(columns="_when")
+    else:
+        frame = frame.sort_values("lot", kind="stable")
+    return frame.reset_index(drop=True)
+
+
+def attribute_lots(frame: pd.DataFrame, lots: list[str]) -> tuple[list[str], str | None, list | None, list[bool]]:
+    """Of a target's out-of-fold ``lots``: their time order (lots of ``frame``, :func:`lots_frame`, first, others
+    after), the column that groups them and each lot's group (:func:`_group_column`), and which are set aside."""
+    wanted = set(lots)
+    known = set(frame["lot"])
+    order = [lot for lot in frame["lot"] if lot in wanted] + [lot for lot in lots if lot not in known]
+    group_col, groups = _group_column(frame, order)
+    aside = set(frame.loc[frame["set_aside"].astype(bool), "lot"])
+    return order, group_col, groups, [lot in aside for lot in order]
 
 
 def _candidate_table(target, unit: str) -> str:
