@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import base64
 import io
+import re
 from collections.abc import Mapping, Sequence
 
 import numpy as np
@@ -88,6 +89,15 @@ def shown_unit(name: str) -> str:
     if unit in ("", "ISO 8601", "sieve | laser", "bool"):
         unit = "-"
     return PRETTY_UNITS.get(unit, unit)
+
+
+def shown_units_text(text: str) -> str:
+    """A sentence with its units as a reader sees them (:data:`PRETTY_UNITS`), as the report's tables write them:
+    "undersize 10.7% at 63 um" -> "undersize 10.7% at 63 µm". Only a unit right after a number is changed (a
+    column name such as granule_d50_um stays as it is)."""
+    for raw, pretty in PRETTY_UNITS.items():
+        text = re.sub(r"(\d) " + re.escape(raw) + r"(?![\w/])", r"\1 " + pretty, text)
+    return text
 
 
 def axis_label(name: str) -> str:

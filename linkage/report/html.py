@@ -217,7 +217,10 @@ class _Builder:
         self.parts.append(str(html_text))
 
     def note(self, text: str) -> None:
-        """A visible note in place of something that could not be drawn."""
+        """A visible note in place of something that could not be drawn (units as the tables write them)."""
+        from linkage.report.figures import shown_units_text
+
+        text = shown_units_text(text)
         self.notes.append(text)
         self.parts.append(_part("blocks", "note", text=text))
 
@@ -687,7 +690,7 @@ def _data_section(b, chain, table, lots, other_lots=None, revised=()):
     b.add(_part("blocks", "h3", text="Lots a model left out, and why"))
     b.add(_exclusions(chain, table))
     b.add(_part("blocks", "h3", text="Notes from assembling the table"))
-    b.add(_part("lots", "assembly_notes", notes=list(table.attrs.get("notes", []) or [])))
+    b.add(_part("lots", "assembly_notes", notes=[F.shown_units_text(n) for n in table.attrs.get("notes", []) or []]))
 
 
 def _ranges(table) -> list[list[str]]:
@@ -875,7 +878,7 @@ def _attribute_section(b, chain, table, limits, aside_rows=None):
         b.add(_candidate_table(target, unit))
         b.add(_coverage_regions(target))
         for note in getattr(target, "notes", None) or []:
-            b.add(_part("blocks", "para", text=f"Note: {note}", cls="small"))
+            b.add(_part("blocks", "para", text=f"Note: {F.shown_units_text(note)}", cls="small"))
         oof = target.oof
         order, group_col, groups, marked = attribute_lots(lots_frame_, [str(v) for v in oof.index])
         oof = oof.reindex(order)
