@@ -178,6 +178,8 @@ class WhatIf:
     #: the products of the model's training lots with their lot counts (``product`` None: lots without a
     #: product name; ``n_lots`` None in a model saved before they were kept), :func:`linkage.products.chain_counts`
     trained_products: list[dict] = field(default_factory=list)
+    #: when the model was trained (its ``created_at``; None: not recorded), said on the what-if sheet
+    model_created_at: str | None = None
 
     @property
     def held_point(self) -> dict:
@@ -229,6 +231,7 @@ class WhatIf:
             "product_source": self.product_source,
             "held_point": self.held_point,
             "trained_products": [dict(p) for p in self.trained_products],
+            "model_created_at": self.model_created_at,
             "caution": CAUTION,
         }
 
@@ -303,6 +306,7 @@ def predict_whatif(chain, values: dict[str, float], *, spec=None, level: float |
         assurance=assurance, p_pass_all_low=p_all_low, bound_reason=bound_reason,
         held_rule=rule_of(chain),
         trained_products=[{"product": p, "n_lots": n} for p, n in chain_counts(chain)],
+        model_created_at=getattr(chain, "created_at", None),
     )
 
 

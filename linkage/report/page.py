@@ -42,7 +42,7 @@ import numpy as np
 
 from linkage import CAUTION
 from linkage.exceptions import UsageError
-from linkage.report.figures import PRETTY_UNITS
+from linkage.report.figures import PRETTY_UNITS, shown_unit
 
 __all__ = ["page_payload", "page_html", "trained_text", "PAGE_KINDS", "MAX_PAGE_BYTES"]
 
@@ -197,11 +197,27 @@ def page_payload(lean, spec=None, *, seed: int = 0, n_draws: int = 4000, level: 
     }
     payload["held_labels"] = _held_labels()
     payload["pretty_units"] = dict(PRETTY_UNITS)  # how a heading writes a unit: the report's table, not a copy
+    # the unit a heading shows, by the rule of the report and the what-if sheet (figures.shown_unit: from the
+    # contract, the template or the column name's ending: api_d50_um [µm]); "units" stays as lean.py's reasons write
+    names = [s["name"] for s in settings] + list(lean.medians) + list(lean.targets)
+    payload["shown_units"] = {name: shown_unit(name) for name in dict.fromkeys(names)}
+    payload["trained_on"] = trained_on_line(lean)
     for key in ("settings_names", "settings_mean", "settings_cov", "settings_low", "settings_high",
                 "settings_levels"):
         if key in lean.spec:  # the conditional-mean rule of fill_settings, when the model carries it
             payload[key] = lean.spec[key]
     return _plain(payload)
+
+
+def trained_on_line(lean) -> str | None:
+    """What a model of several products (or of one and lots without a product name) was trained on, as the page
+    says it (:func:`linkage.products.trained_on_text`, as ``linkage predict`` says it); None for a model of one."""
+    from linkage.products import chain_counts, is_mixed, trained_on_text
+
+    counts = chain_counts(lean)
+    if not is_mixed(counts):
+        return None
+    return f"Model {trained_on_text(counts)}; one model for all of them, not a model of one product."
 
 
 def trained_text(created_at: str | None) -> str:

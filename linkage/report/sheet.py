@@ -95,7 +95,8 @@ def spec_table_html(spec: dict | None, judged: list[str] | None = None,
         judge = v["judge"] + (f" ({JUDGE_TEXT[v['judge']]})" if v["judge"] in JUDGE_TEXT else "")
         status = (f"not judged: {not_modelled[a]}" if a in not_modelled
                   else "judged" if judged is None or a in judged else "–")
-        rows.append({"name": a, "unit": _unit(a), "limits": v["limits"], "judge": judge, "status": status,
+        rows.append({"name": a, "unit": _unit(a), "limits": limits_text(v["limits"]), "judge": judge,
+                     "status": status,
                      "time_point": "–" if v.get("time_min") is None else f"{v['time_min']:g} min"})
     return macro("sheet_parts.html.j2", "spec_table")(str(spec.get("file") or "(not read from a file)"),
                                                      str(spec.get("sha256") or "(none)"), rows)
@@ -236,6 +237,12 @@ def _probability_all(d: dict) -> dict:
     }
 
 
+def limits_text(text: str) -> str:
+    """A spec's limits as the what-if page and the report write them: '≥ 80', '≤ 15' (the spec's own text,
+    :meth:`linkage.spec.Limit.text`, writes '>= 80')."""
+    return text.replace(">=", "≥").replace("<=", "≤")
+
+
 def _made_for(d: dict) -> dict:
     """The lot, product and dissolution time point the what-if was made for."""
     return {"lot": d.get("lot"), "product": d.get("product"),
@@ -257,13 +264,16 @@ def _held(d: dict) -> dict | None:
 
 def whatif_html(result) -> str:
     """Render a :class:`linkage.decide.whatif.WhatIf` as one HTML page."""
+    from linkage.report.page import trained_text
     from linkage.report.templating import Markup, render
+    from linkage.results import trained_products_lines
 
     d = result.to_dict()
     bound = d["p_pass_all_bound"]
     return str(render(
-        "sheet.html.j2", style=Markup(STYLE), model_id=d["model_id"], made_at=d["made_at"], version=__version__,
-        made_for=_made_for(d), caution=CAUTION, in_domain=d["in_domain"], no_promise=NO_PROMISE,
+        "sheet.html.j2", style=Markup(STYLE), model_id=d["model_id"], made_at=trained_text(d["made_at"]),
+        trained_at=trained_text(d.get("model_created_at")), version=__version__,
+        made_for=_made_for(d), trained_on=" ".join(trained_products_lines(d)), caution=CAUTION, in_domain=d["in_domain"], no_promise=NO_PROMISE,
         domain_reasons=d["domain_reasons"], no_bound=bound.get("reason") or "",
         spec_html=Markup(spec_table_html(d.get("spec"), d.get("attributes"), d.get("not_modelled_reasons"))),
         inputs=[{"name": k, "unit": _unit(k), "value": _fmt(v["value"]), "source": v["source"]}

@@ -344,7 +344,14 @@
   // a unit in a column heading as a reader writes it (linkage.report.figures.PRETTY_UNITS, embedded by page.py);
   // texts that mirror Python's keep "um"
   const PRETTY_UNITS = M.pretty_units;
-  const heading = (name, u) => name + (u && !NOT_UNITS.has(u) ? ` [${PRETTY_UNITS[u] || u}]` : "");
+  // a column heading with its unit as the report and the what-if sheet write it (figures.shown_unit, embedded by
+  // page.py as shown_units: an extra column such as api_d50_um gets its unit from its name's ending)
+  const heading = (name, u) => {
+    const shown = M.shown_units && name in M.shown_units ? M.shown_units[name] : (u && !NOT_UNITS.has(u) ? PRETTY_UNITS[u] || u : "-");
+    return name + (shown && shown !== "-" ? ` [${shown}]` : "");
+  };
+  // a spec's limits as the predictions table writes them: "≥ 80", not the spec file's ">= 80"
+  const limitsText = (t) => String(t).replace(">=", "≥").replace("<=", "≤");
   function fmt(v, digits = 4) { // Python's format(v, ".4g"), or another number of digits
     if (!Number.isFinite(v)) return String(v);
     if (v === 0) return "0";
@@ -863,9 +870,10 @@
     meta.textContent = `Model ${M.model_id} (trained ${M.trained}); intervals at ${(100 * M.level).toFixed(0)} %; ` +
       `lower bounds at assurance ${share(M.assurance)}; ${N} Monte Carlo draws, seed ${M.seed}. ` +
       (M.spec ? `Spec ${M.spec.file || ""} (SHA-256 ${(M.spec.sha256 || "").slice(0, 12)}…): ` +
-        Object.entries(M.spec.attributes).map(([a, s]) => `${a} ${s.limits}${s.judge !== "mean" ? " (" + s.judge + ")" : ""}`).join("; ")
+        Object.entries(M.spec.attributes).map(([a, s]) => `${a} ${limitsText(s.limits)}${s.judge !== "mean" ? " (" + s.judge + ")" : ""}`).join("; ")
         : "No spec given: no probability of passing.");
     app.append(meta);
+    if (M.trained_on) app.append(el("p", { class: "products", id: "trained-on", text: M.trained_on }));
     app.append(el("p", { class: "caution", text: M.caution }));
     const controls = el("section", { id: "controls" }, el("h2", { text: "Settings" }));
     const table = el("table", { class: "settings" });
@@ -950,8 +958,10 @@
     sec.textContent = "";
     sec.append(el("h2", { text: "Predicted" }));
     const t = el("table", { class: "predictions" });
+    // a numeric column's heading is right-aligned, over its numbers (class num)
+    const head = (h, i, numeric) => el("th", numeric.includes(i) ? { class: "num", text: h } : { text: h });
     t.append(el("tr", {}, ...["attribute", "predicted", `${(100 * M.level).toFixed(0)} % interval`, "limits", "P(pass)",
-      `at least (assurance ${share(M.assurance)})`, "model", "interval"].map((h) => el("th", { text: h }))));
+      `at least (assurance ${share(M.assurance)})`, "model", "interval"].map((h, i) => head(h, i, [1, 2, 4, 5]))));
     for (const [name, p] of Object.entries(r.predictions)) {
       const lim = p.limits ? [p.limits.min !== null ? "≥ " + fmt(p.limits.min) : "", p.limits.max !== null ? "≤ " + fmt(p.limits.max) : ""].filter(Boolean).join(", ") : "";
       const tr = el("tr", { "data-attribute": name }, el("td", { text: heading(name, M.units[name]) }),
@@ -977,7 +987,7 @@
     dsec.textContent = "";
     dsec.append(el("h2", { text: "Applicability domain: " + (r.in_domain ? "inside" : "OUTSIDE (the numbers are extrapolations: shown, not promised)") }));
     const dt = el("table", { class: "domain" });
-    dt.append(el("tr", {}, ...["stage", "T²", "T² limit", "Q", "Q limit", "verdict"].map((h) => el("th", { text: h }))));
+    dt.append(el("tr", {}, ...["stage", "T²", "T² limit", "Q", "Q limit", "verdict"].map((h, i) => head(h, i, [1, 2, 3, 4]))));
     for (const [name, d] of Object.entries(r.domain))
       dt.append(el("tr", { class: d.in_domain ? "good" : "bad" }, el("td", { text: name }), el("td", { class: "num", text: num(d.t2) }),
         el("td", { class: "num", text: num(d.t2_limit) }), el("td", { class: "num", text: num(d.q) }), el("td", { class: "num", text: num(d.q_limit) }),
