@@ -879,7 +879,6 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     from linkage.assemble import assemble as assemble_table
     from linkage.exceptions import InsufficientDataError, UsageError
     from linkage.report.html import render_report, write_report
-    from linkage.store import LotStore, current_tables_of
 
     from linkage.decide.bound import check_assurance
 
@@ -896,13 +895,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     chain = _fitted(models_dir, model)
     check_time_point(chain, spec, "report")
     product = chain.trained_product
-    with LotStore(store, create=False) as lot_store:
-        tables = current_tables_of(lot_store, product)
-        lots = lot_store.lots(product=product, in_use=True)  # as the table: the lots in use
-        others, store_cautions = lot_store.other_products(product), lot_store.cautions()  # said in the report
-        from linkage.report.html import set_aside_training_rows  # drawn where the model's CV results hold them
-
-        aside_rows = set_aside_training_rows(lot_store, product, tables.set_aside, chain.training.get("lots"))
+    tables, lots, others, store_cautions, aside_rows = _report_lots(store, product, chain)
     if not tables:
         of = f" of product {product}" if product else ""
         raise InsufficientDataError(f"the store {store} holds no lots{of}; nothing to report on")
@@ -959,6 +952,22 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
         save_result(models_dir, chain.model_id, "figures", figures_key, rendered.computed["figures"], "linkage report",
                     only=True)  # one state of the lots kept: the figures are megabytes
     return Path(write_report(rendered, out))
+
+
+def _report_lots(store, product, chain):
+    """What the report reads of the store: the current tables of the lots in use (:func:`current_tables_of`),
+    their :meth:`~linkage.store.LotStore.lots` rows, the lots of other products and the store's cautions (said in
+    the report), and the process rows of the lots set aside since ``chain`` was trained on them (drawn where the
+    model's cross-validation results hold them: :func:`linkage.report.html.set_aside_training_rows`)."""
+    from linkage.report.html import set_aside_training_rows
+    from linkage.store import LotStore, current_tables_of
+
+    with LotStore(store, create=False) as lot_store:
+        tables = current_tables_of(lot_store, product)
+        lots = lot_store.lots(product=product, in_use=True)  # as the table: the lots in use
+        others, store_cautions = lot_store.other_products(product), lot_store.cautions()  # said in the report
+        aside_rows = set_aside_training_rows(lot_store, product, tables.set_aside, chain.training.get("lots"))
+    return tables, lots, others, store_cautions, aside_rows
 
 
 def _figures_key(models_dir, model_id, spec, table, lots, *, given_window: bool, window, window_args, space_args,
