@@ -382,8 +382,8 @@ def set_aside(lots, store=DEFAULT_STORE, *, reason: str | None = None):
     """Set ``lots`` aside (``linkage set-aside``): their rows stay in the store unchanged, but every call that
     fits or judges lots (:func:`assemble`, and so train, retrain, watch, report, plan, transfer) leaves them out
     and says so, until :func:`restore`. Each decision is an audit entry ``set-aside`` (who, when, ``reason``),
-    sealed like every record. Refused (``UsageError``, exit code 2, nothing written) without a ``reason``, for a
-    lot the store does not hold (every such lot named) and for a lot already set aside; a store without its
+    sealed like every record. Refused (``UsageError``, exit code 2, nothing written; every problem in one message)
+    without a ``reason``, for a lot the store does not hold (every such lot named) and for a lot already set aside; a store without its
     anchor file is refused (``StoreIntegrityError``, exit code 6). Lots are found under any spelling, as an
     ingest finds them (:func:`linkage.lotid.lot_key`)."""
     return _set_aside_decision(lots, store, reason, restore=False)
@@ -403,14 +403,19 @@ def _set_aside_decision(lots, store, reason, *, restore: bool):
     from linkage.store import RESTORE, SET_ASIDE, LotStore, given_reason, set_aside_needs_reason
 
     action = RESTORE if restore else SET_ASIDE
-    if given_reason(reason) is None:  # before the store is opened: nothing to write without one
-        raise UsageError(set_aside_needs_reason(action))
+    no_reason = given_reason(reason) is None
     # decided first on the store read only (schema 1: on an upgraded copy, as a preview decides), so that a refusal
-    # opens no older store for writing (that would upgrade it, and make its anchor and lock files)
+    # opens no older store for writing (that would upgrade it, and make its anchor and lock files); every problem
+    # of the decision in one refusal (decision_lots): the missing reason, unknown lots, lots in the wrong state
     with warnings.catch_warnings(), contextlib.ExitStack() as stack:
         warnings.simplefilter("ignore", StoreCaution)  # a store without its anchor file: its refusal below says it
-        s = _preview_store(stack, Path(store), exists=True)
-        if s.unanchored is None:
+        try:
+            s = _preview_store(stack, Path(store), exists=True)
+        except LinkageError as exc:
+            if no_reason:  # nothing to write without one: said with what stops the store from being read
+                raise UsageError(f"{set_aside_needs_reason(action, ending='')}; and {exc}") from None
+            raise
+        if s.unanchored is None or no_reason:
             s.decision_lots(lots, reason, action)
     with LotStore(store, create=False, for_writing=True) as s:  # a store without its anchor file: refused, exit 6
         decisions = s.restore(lots, reason) if restore else s.set_aside(lots, reason)

@@ -446,12 +446,39 @@ SET_ASIDE, RESTORE = "set-aside", "restore"
 IN_USE, SET_ASIDE_STATE = "in use", "set aside"
 
 
-def set_aside_needs_reason(action: str) -> str:
-    """The refusal of a set-aside or restore decision without a reason."""
+def set_aside_needs_reason(action: str, ending: str = " Nothing was written.") -> str:
+    """The refusal of a set-aside or restore decision without a reason (``ending``: what follows it)."""
     what = ("sets lots aside (left out of fitting and judging)" if action == SET_ASIDE
             else "puts set-aside lots back in use")
     return (f"'linkage {action}' {what} on the record: give --reason TEXT to say why (for example the deviation "
-            "number and the assignable cause). Nothing was written.")
+            "number and the assignable cause)" + ("." + ending if ending else ""))
+
+
+def shown_time(at) -> str:
+    """A stored time (ISO 8601 with its offset) as the texts show it: 'YYYY-MM-DD HH:MM:SS UTC'; the stored text
+    as it is where it does not parse."""
+    from datetime import datetime, timezone
+
+    try:
+        t = datetime.fromisoformat(str(at))
+    except ValueError:
+        return str(at)
+    t = t.replace(tzinfo=timezone.utc) if t.tzinfo is None else t.astimezone(timezone.utc)
+    return t.strftime("%Y-%m-%d %H:%M:%S UTC")
+
+
+def decision_shown(decision: dict) -> str:
+    """The set-aside decision in force of a lot, as a refusal names it: 'since <time> UTC, by <user>: <reason>'."""
+    reason = one_line(decision.get("reason")) if decision.get("reason") else "no reason recorded"
+    return f"since {shown_time(decision.get('at'))}, by {decision.get('user') or 'unknown'}: {reason}"
+
+
+def one_line(text) -> str:
+    """``text`` on one line, as a table cell or a one-line message shows it: each line break (CR LF, LF, CR, and
+    the other Unicode line separators) shown as ' ⏎ '; the stored text is unchanged."""
+    if text is None:
+        return ""
+    return " ⏎ ".join(part.strip() for part in str(text).splitlines()) if text else str(text)
 
 
 #: audit actions that only the store's own decisions write, each under its rules (a reason, a stored lot, a checked
@@ -1200,31 +1227,36 @@ class LotStore:
 
     def decision_lots(self, lots, reason: str | None, action: str) -> list[str]:
         """The stored lots (their stored spelling, once each) that a set-aside or restore decision (``action``)
-        of ``lots`` would be written for, or its refusal (:class:`UsageError`): no reason, no lot, a lot the store
-        does not hold (all of them named), a lot already set aside, or (restore) not set aside. Only reads: a
-        store opened ``read_only`` answers as the write would (``linkage.api.set_aside`` asks it first, so that a
-        refusal opens no older store for writing, which would upgrade it)."""
-        if given_reason(reason) is None:
-            raise UsageError(set_aside_needs_reason(action))
+        of ``lots`` would be written for, or its refusal (:class:`UsageError`), every problem in one message: no
+        reason, no lot, the lots the store does not hold (all of them named), the lots already set aside (each
+        with the decision in force) or (restore) not set aside. Only reads: a store opened ``read_only`` answers as
+        the write would (``linkage.api.set_aside`` asks it first, so that a refusal opens no older store for
+        writing, which would upgrade it)."""
+        problems = [] if given_reason(reason) is not None else [set_aside_needs_reason(action, ending="")]
         given = [reader_spelling(lot) for lot in ([lots] if isinstance(lots, str) else list(lots))]
         if not any(given):
-            raise UsageError(f"'linkage {action}' needs at least one lot id. Nothing was written.")
+            problems.append(f"'linkage {action}' needs at least one lot id")
+            raise UsageError("; ".join(problems) + ". Nothing was written.")
         found = {lot: self.stored_spelling(lot) if lot else None for lot in given}
         unknown = [lot for lot, stored in found.items() if stored is None]
         if unknown:
-            raise self._not_stored_all([lot or "" for lot in unknown])
-        chosen = list(dict.fromkeys(found.values()))
+            problems.append(self._not_stored_text([lot or "" for lot in unknown]))
+        chosen = list(dict.fromkeys(stored for stored in found.values() if stored is not None))
         state = self.set_aside_lots()
         wrong = [lot for lot in chosen if (lot in state) == (action == SET_ASIDE)]
-        if wrong:
-            said = ("already set aside (since " + ", ".join(f"{lot}: {state[lot]['at']}" for lot in wrong) + ")"
-                    if action == SET_ASIDE else "not set aside, so there is nothing to restore: " + ", ".join(wrong))
-            raise UsageError(f"{len(wrong)} lot(s) {said}; 'linkage lots' shows each lot's state. "
-                             "Nothing was written.")
+        if wrong and action == SET_ASIDE:
+            problems += [f"{lot} is already set aside ({decision_shown(state[lot])})" for lot in wrong]
+        elif wrong:
+            problems.append(f"{lots_named(wrong)} {'is' if len(wrong) == 1 else 'are'} not set aside, so there is "
+                            "nothing to restore")
+        if problems:
+            where = "; 'linkage lots' shows each lot's state" if wrong else ""
+            raise UsageError(f"'linkage {action}' refused ({len(problems)} problem{'s' * (len(problems) > 1)}): "
+                             + "; ".join(problems) + where + ". Nothing was written.")
         return chosen
 
     def _decide_set_aside(self, lots, reason: str | None, action: str, user: str | None) -> list[dict]:
-        if given_reason(reason) is None:  # before the write lock: a store without its anchor file says this first
+        if given_reason(reason) is None:  # before the write lock (the API asked decision_lots first, all problems)
             raise UsageError(set_aside_needs_reason(action))
         reason = given_reason(reason)
         user = user or current_user()
@@ -1519,10 +1551,10 @@ class LotStore:
                                                                   else "; the store is empty")
         return UsageError(f"lot '{lot}' is not in the store {self.path}{hint}")
 
-    def _not_stored_all(self, lots: list[str]) -> UsageError:
-        """The refusal of lots :meth:`stored_spelling` does not find, every one named (exit code 2, nothing
-        written): a lot the store does not hold with the nearest stored ids; a lot of which an older store holds
-        two spellings of one id (``A1`` and ``a1``) as ambiguous, both spellings named."""
+    def _not_stored_text(self, lots: list[str]) -> str:
+        """What the refusal of lots :meth:`stored_spelling` does not find says, every one named: a lot the store
+        does not hold with the nearest stored ids; a lot of which an older store holds two spellings of one id
+        (``A1`` and ``a1``) as ambiguous, both spellings named."""
         import difflib
 
         stored = self.lot_ids()
@@ -1540,7 +1572,7 @@ class LotStore:
         parts += ([f"{len(ambiguous)} lot id(s) ambiguous in the store {self.path}, which holds two spellings of "
                    f"one id (written before one lot had one spelling): {'; '.join(ambiguous)}; give the exact "
                    "spelling"] if ambiguous else [])
-        return UsageError(". ".join(parts) + ". Nothing was written.")
+        return ". ".join(parts)
 
     def audit(self, lot: str | None = None, *, with_ingests: bool = False, require_lot: bool = False) -> list[dict]:
         """Audit entries, oldest first; only those about ``lot`` when given,

@@ -509,3 +509,37 @@ def test_the_set_aside_texts_name_the_first_twelve_lots_alike(tmp_path):
                                                       "reason": "r"}], store=tmp_path / "s.db", set_aside_now=lots)
     assert f"Lots set aside now: 14 ({said})" in result.text()
     assert set_aside_note({}) is None and set_aside_trained_note(aside, [], "m-1") == ([], None)
+
+
+def test_every_problem_of_a_decision_is_named_in_one_refusal(store):
+    """All errors at once (project rule; a regression test of the refusal, no outside source): an unknown lot, a
+    lot in the wrong state and a missing reason are named together, exit code 2, nothing written. Before, only
+    the first kind found was named and the next one appeared on the next run."""
+    api.set_aside("EX-001", store, reason=REASON)
+    before = _dump(store)
+    restore = _run(["restore", "EX-999", "EX-003", "--reason", "x", "--store", store])
+    assert restore.exit_code == 2 and "'EX-999'" in restore.stderr
+    assert "EX-003 is not set aside" in restore.stderr, restore.stderr
+    twice = _run(["set-aside", "EX-999", "EX-001", "--reason", REASON, "--store", store])
+    assert twice.exit_code == 2 and "'EX-999'" in twice.stderr and "EX-001 is already set aside" in twice.stderr
+    bare = _run(["set-aside", "EX-999", "EX-001", "--store", store])
+    assert bare.exit_code == 2, bare.output
+    for said in ("--reason TEXT", "'EX-999'", "EX-001 is already set aside", "3 problems", "Nothing was written"):
+        assert said in bare.stderr, (said, bare.stderr)
+    assert _dump(store) == before
+
+
+def test_already_set_aside_names_the_lot_and_the_decision_in_force(store):
+    """The refusal names the lot and its decision: when (UTC, to the second), by whom, why. Before it read
+    "1 lot(s) already set aside (since EX-001: 2026-...T...+00:00)". A regression test of a message, no outside
+    source: the expected time is the stored one converted with the standard library."""
+    from datetime import timezone, datetime
+
+    api.set_aside("EX-001", store, reason=REASON)
+    with LotStore(store, create=False) as s:
+        decision = s.set_aside_lots()["EX-001"]
+    at = datetime.fromisoformat(decision["at"]).astimezone(timezone.utc).strftime("%Y-%m-%d %H:%M:%S")
+    result = _run(["set-aside", "ex-001", "--reason", REASON, "--store", store])
+    assert result.exit_code == 2
+    expected = f"EX-001 is already set aside (since {at} UTC, by {decision['user']}: {REASON})"
+    assert expected in " ".join(result.stderr.split()), result.stderr

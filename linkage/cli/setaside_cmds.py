@@ -39,9 +39,10 @@ def set_aside(lots, reason, store, as_json):
     'linkage audit' the decisions. LOT is found under any spelling (case,
     dashes), as an ingest finds a stored lot.
 
-    Refused (exit code 2, nothing written) without --reason, for a lot the
-    store does not hold (every one named) and for a lot already set aside;
-    a store without its anchor file is refused (exit code 6).
+    Refused (exit code 2, nothing written; every problem in one message)
+    without --reason, for a lot the store does not hold (every one named) and
+    for a lot already set aside (with when, by whom and why); a store
+    without its anchor file is refused (exit code 6).
 
     \b
     Example:
@@ -59,9 +60,11 @@ def restore(lots, reason, store, as_json):
     takes them again. Each decision is an audit entry 'restore' (who, when,
     why), sealed like every record.
 
-    Refused (exit code 2, nothing written) without --reason, for a lot the
-    store does not hold and for a lot that is not set aside; a store without
-    its anchor file is refused (exit code 6).
+    Refused (exit code 2, nothing written; every problem in one message)
+    without --reason, for a lot the store does not hold and for a lot that
+    is not set aside; a store without its anchor file is refused (exit code
+    6). LOT is found under any spelling (case, dashes), as an ingest finds a
+    stored lot.
 
     \b
     Example:
