@@ -550,25 +550,35 @@ def set_aside_note(set_aside, what: str = "left out") -> str | None:
             "('linkage lots' shows why; 'linkage restore LOT --reason TEXT' puts one back in use)")
 
 
-def set_aside_trained_note(set_aside, training_lots, model_id: str) -> tuple[list[str], str | None]:
+def set_aside_trained_note(set_aside, training_lots, model_id: str, *,
+                           replaced: bool = False) -> tuple[list[str], str | None]:
     """The set-aside lots that were in a model's training set (the model was trained before they were set
-    aside, or they were restored then), and what the watch and retrain say of them."""
+    aside, or they were restored then), and what the watch and retrain say of them. A model on the same lots
+    less these is not promoted by the retrain's rule without new lots to judge it: the note points to what
+    replaces the model now ('linkage retrain --force', 'linkage train'). ``replaced``: the model was the champion
+    until this run, which promoted a challenger fitted without them (said in the past)."""
     trained = {str(lot) for lot in training_lots or []}
     lots = [lot for lot in set_aside if lot in trained]
     if not lots:
         return [], None
-    shown = lots_named(lots)
-    return lots, (f"{len(lots)} lot{'' if len(lots) == 1 else 's'} now set aside "
-                  f"{'was' if len(lots) == 1 else 'were'} in the training set of "
-                  f"model {model_id}: {shown}; the model was fitted on {'it' if len(lots) == 1 else 'them'} "
-                  f"('linkage retrain' fits a challenger without {'it' if len(lots) == 1 else 'them'})")
+    one = len(lots) == 1
+    it = "it" if one else "them"
+    head = f"{len(lots)} lot{'' if one else 's'} now set aside {'was' if one else 'were'} in the training set of "
+    if replaced:
+        return lots, (f"{head}model {model_id}, the champion until this retrain: {lots_named(lots)}; the "
+                      f"challenger promoted now was fitted without {it}")
+    return lots, (f"{head}model {model_id}: {lots_named(lots)}; the model was fitted on {it}. 'linkage retrain' "
+                  f"promotes a challenger without {it} only when new lots judge it better; 'linkage retrain "
+                  "--force --reason TEXT' or 'linkage train' replaces the model now")
 
 
-def set_aside_notes(set_aside: dict, chain, notes: list[str], what: str) -> tuple[list[str], list[str]]:
+def set_aside_notes(set_aside: dict, chain, notes: list[str], what: str, *,
+                    replaced: bool = False) -> tuple[list[str], list[str]]:
     """Add to ``notes`` what a command says of the set-aside lots it leaves out (:func:`set_aside_note`, ``what``:
-    "not watched") and of those of them in ``chain``'s training set (:func:`set_aside_trained_note`); returns
-    both lists of lots (watch, retrain)."""
-    in_training, trained_note = set_aside_trained_note(set_aside, chain.training.get("lots"), chain.model_id)
+    "not watched") and of those of them in ``chain``'s training set (:func:`set_aside_trained_note`,
+    ``replaced``: ``chain`` was the champion until this run); returns both lists of lots (watch, retrain)."""
+    in_training, trained_note = set_aside_trained_note(set_aside, chain.training.get("lots"), chain.model_id,
+                                                       replaced=replaced)
     notes += [n for n in (set_aside_note(set_aside, what), trained_note) if n]
     return list(set_aside), in_training
 

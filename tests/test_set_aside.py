@@ -543,3 +543,28 @@ def test_already_set_aside_names_the_lot_and_the_decision_in_force(store):
     assert result.exit_code == 2
     expected = f"EX-001 is already set aside (since {at} UTC, by {decision['user']}: {REASON})"
     assert expected in " ".join(result.stderr.split()), result.stderr
+
+
+@pytest.mark.slow
+def test_retrain_says_the_challenger_has_fewer_lots_and_what_replaces_the_model(aside_lab, tmp_path):
+    """A regression test of the retrain's notes (no outside source). With no new lot but a training lot set aside,
+    the challenger is fitted on one lot fewer (said so, not "the same data"), and the rule cannot promote it without
+    new lots to judge it by: the note points to 'retrain --force' and 'train'. After a forced promotion the old
+    champion's note is in the past tense: it is no longer the model in service."""
+    path, models, first, lot, _ = aside_lab
+    d = json.loads(_run(["retrain", "--store", path, "--models-dir", models, "--json"]).stdout)
+    assert d["new_lots"] == [] and not d["promoted"]
+    notes = " ".join(d["notes"])
+    assert "the challenger sees the same data" not in notes
+    assert f"less the 1 set aside since ({lot}): 1 lot fewer" in notes, notes
+    assert "'linkage retrain --force --reason TEXT' or 'linkage train' replaces the model now" in notes
+    copy, store = tmp_path / "models", tmp_path / "lab.db"  # copies: the module's lab keeps its champion
+    shutil.copytree(models, copy)
+    shutil.copy(path, store)
+    shutil.copy(seal.anchor_path(path), seal.anchor_path(store))
+    forced = _run(["retrain", "--store", store, "--models-dir", copy, "--force", "--reason", "blend error", "--json"])
+    d = json.loads(forced.stdout)
+    assert d["promoted"] and d["set_aside_in_training"] == [lot]
+    notes = " ".join(d["notes"])
+    assert f"model {first.model_id}, the champion until this retrain: {lot}" in notes, notes
+    assert "the challenger promoted now was fitted without it" in notes and "replaces the model now" not in notes

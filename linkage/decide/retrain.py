@@ -302,6 +302,19 @@ def _settled_champion(store_path, models_dir, product: str | None):
     return champion
 
 
+def _no_new_lots_note(set_aside: dict, champion) -> str:
+    """What the retrain says when no lot is new since the champion: the challenger sees the same lots, or the
+    champion's training lots less those set aside since (the challenger has fewer lots, not the same data)."""
+    from linkage.store import lots_named, set_aside_trained_note
+
+    gone = set_aside_trained_note(set_aside, champion.training.get("lots"), champion.model_id)[0]
+    if not gone:
+        return "no lots beyond the champion's training lots; the challenger sees the same data"
+    return (f"no lots beyond the champion's training lots; the challenger is fitted on them less the "
+            f"{len(gone)} set aside since ({lots_named(gone)}): {len(gone)} lot{'' if len(gone) == 1 else 's'} "
+            "fewer, and no new lot to judge it by, so the rule does not promote it ('--force --reason TEXT' does)")
+
+
 def retrain(store_path, models_dir, *, product: str | None = None, spec=None, force: bool = False,
             reason: str | None = None, tolerance: float = DEFAULT_TOLERANCE, seed: int | None = None,
             user: str | None = None, progress=None) -> RetrainDecision:
@@ -334,8 +347,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
         notes.append(f"the store's {others_text(others)} are left out: the champion is a model of {product!r} "
                      "and the challenger is fitted on its lots only")
     if not new_lots:
-        notes.append("no lots beyond the champion's training lots; the challenger sees the same data")
-    aside = set_aside_notes(tables.set_aside, champion, notes, "left out of the challenger's lots")
+        notes.append(_no_new_lots_note(tables.set_aside, champion))
     from linkage.decide.watch import revised_since_training
 
     revised = revised_since_training(stored_lots, champion.training["lots"], champion.created_at)
@@ -351,9 +363,10 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     challenger = train_chain(table, champion.chain, seed=champion.seed if seed is None else seed,
                              nominal_coverage=champion.nominal_coverage, progress=progress,
                              dissolution_time_min=time_min, group_by=_group_by(champion))
-    challenger.training["set_aside_lots"] = aside[0]  # recorded with the model, as train records it
+    challenger.training["set_aside_lots"] = list(tables.set_aside)  # recorded with the model, as train records it
     comparisons = compare(champion, challenger, table, tolerance=tolerance)
     promote, reasons = decide(comparisons, force=force, reason=reason, tolerance=tolerance)
+    aside = set_aside_notes(tables.set_aside, champion, notes, "left out of the challenger's lots", replaced=promote)
     moved = None
     if spec is not None:
         try:
