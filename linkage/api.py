@@ -1008,7 +1008,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     out, and a note says so. Logs ``watch``."""
     from linkage.assemble import assemble as assemble_table
     from linkage.decide.watch import revised_since_training, watch as run_watch
-    from linkage.store import LotStore, current_tables_of, set_aside_notes
+    from linkage.store import LotStore, current_tables_of, restored_since_training, set_aside_notes
     from linkage.timepoint import check_time_point, model_time_point, time_point_text
 
     refuse_unanchored(store)  # logged at the end: a store that refuses the entry is refused before the work
@@ -1049,14 +1049,15 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     table = assemble_table(tables, dissolution_time_min=model_time_point(chain)[0])  # the model's time point
     result = run_watch(chain, table, ribbon=tables.get("ribbon"), window=found, recorded=recorded)
     revised = revised_since_training(stored_lots, chain.training.get("lots") or [], chain.created_at)
+    restored = restored_since_training(chain, result.new_lots, notes)
     with LotStore(store, create=False, for_writing=True) as s:
         s.log("watch", model_id=chain.model_id, inputs={"window": found, "product": product},
-              outputs={"alarms": result.alarms, "new_lots": result.new_lots,
+              outputs={"alarms": result.alarms, "new_lots": result.new_lots, "restored_since_training": restored,
                        "revised_since_training": [r["lot"] for r in revised], "set_aside_lots": aside})
     return Watched(result=result, n_lots=len(table), window=found, store=Path(store),
                    time_point=time_point_text(chain) if "dissolution_pct" in chain.targets else None, revised=revised,
                    notes=notes, trained_products=[{"product": p, "n_lots": n} for p, n in chain_counts(chain)],
-                   set_aside=aside, set_aside_trained=in_training)
+                   set_aside=aside, set_aside_trained=in_training, restored=restored)
 
 
 def _running_window(fitted, lean, spec, held: dict, seed: int, assurance: float) -> tuple[float, float]:

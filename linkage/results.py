@@ -729,6 +729,8 @@ class Watched(_Result):
     #: the lots set aside that the watch left out, and those of them in the model's training set
     set_aside: list[str] = field(default_factory=list)
     set_aside_trained: list[str] = field(default_factory=list)
+    #: lots since training that were set aside when the model was trained and restored since
+    restored: list[str] = field(default_factory=list)
 
     @property
     def mixed_products(self) -> bool:
@@ -741,7 +743,8 @@ class Watched(_Result):
         """What ``linkage watch --json`` prints."""
         return {**self.result.to_dict(), "revised_since_training": list(self.revised), "notes": list(self.notes),
                 "trained_products": [dict(p) for p in self.trained_products], "mixed_products": self.mixed_products,
-                "set_aside_lots": list(self.set_aside), "set_aside_in_training": list(self.set_aside_trained)}
+                "set_aside_lots": list(self.set_aside), "set_aside_in_training": list(self.set_aside_trained),
+                "restored_since_training": list(self.restored)}
 
     def text(self) -> str:
         from linkage.decide.watch import design_lines, revised_lines, whatif_settings_lines

@@ -583,6 +583,22 @@ def set_aside_notes(set_aside: dict, chain, notes: list[str], what: str, *,
     return list(set_aside), in_training
 
 
+def restored_since_training(chain, new_lots, notes: list[str], what: str = "since training") -> list[str]:
+    """The lots among ``new_lots`` (those a model was not trained on) that were set aside when ``chain`` was trained
+    (its ``training.set_aside_lots``) and are in use again: restored since, not new lots. A note naming them is added
+    to ``notes`` (watch, retrain; ``what``: how the command calls the new lots); returns them."""
+    aside_then = {str(lot) for lot in (chain.training.get("set_aside_lots") or [])}
+    lots = [str(lot) for lot in new_lots if str(lot) in aside_then]
+    if lots:
+        one = len(lots) == 1
+        notes.append(f"{len(lots)} of the lots {what} {'was' if one else 'were'} set aside when model "
+                     f"{chain.model_id} was trained and {'has' if one else 'have'} been restored since: "
+                     f"{lots_named(lots)}; {'it is' if one else 'they are'} counted with the lots {what} because the "
+                     f"model was fitted without {'it' if one else 'them'}, not because {'it is' if one else 'they are'}"
+                     " new ('linkage history LOT' shows the decisions)")
+    return lots
+
+
 class StoreNeedsUpgrade(StoreError):
     """A store of an earlier schema that cannot be read as it is where it is opened for reading only
     (``LotStore(read_only=True)``; schema 1, before seals): an ingest with write access upgrades it first. Exit

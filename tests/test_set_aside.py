@@ -568,3 +568,25 @@ def test_retrain_says_the_challenger_has_fewer_lots_and_what_replaces_the_model(
     notes = " ".join(d["notes"])
     assert f"model {first.model_id}, the champion until this retrain: {lot}" in notes, notes
     assert "the challenger promoted now was fitted without it" in notes and "replaces the model now" not in notes
+
+
+@pytest.mark.slow
+def test_a_lot_restored_after_training_is_said_to_be_restored_not_new(trained_lab, tmp_path):
+    """A regression test of the watch's and the retrain's notes (no outside source): a lot set aside when the model
+    was trained and restored since is among the lots since training (the model never saw it), and the commands say
+    why (a note, and ``restored_since_training`` in the JSON) instead of counting it as new without a word."""
+    store, _, _, lots = trained_lab
+    path, models = tmp_path / "lab.db", tmp_path / "models"
+    shutil.copy(store, path)
+    shutil.copy(seal.anchor_path(store), seal.anchor_path(path))
+    lot = lots[2]
+    api.set_aside(lot, path, reason=REASON)
+    assert _run(["train", "--store", path, "--models-dir", models, "--no-materials"]).exit_code == 0
+    api.restore(lot, path, reason="DEV-2026-014 closed: not confirmed")
+    watched = json.loads(_run(["watch", "--store", path, "--models-dir", models, "--json"]).stdout)
+    assert watched["new_lots"] == [lot] and watched["restored_since_training"] == [lot]
+    assert any(f"set aside when model {watched['model_id']} was trained and has been restored since: {lot}" in n
+               for n in watched["notes"]), watched["notes"]
+    decided = json.loads(_run(["retrain", "--store", path, "--models-dir", models, "--json"]).stdout)
+    assert decided["new_lots"] == [lot] and decided["restored_since_training"] == [lot]
+    assert any("restored since" in n for n in decided["notes"])

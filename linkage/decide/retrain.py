@@ -101,6 +101,8 @@ class RetrainDecision:
     #: champion's training set
     set_aside_lots: list[str] = field(default_factory=list)
     set_aside_in_training: list[str] = field(default_factory=list)
+    #: new lots that were set aside when the champion was trained and restored since (not new lots)
+    restored_since_training: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict:
         return {
@@ -120,6 +122,7 @@ class RetrainDecision:
             "alarmed_lots": self.alarmed_lots,
             "set_aside_lots": self.set_aside_lots,
             "set_aside_in_training": self.set_aside_in_training,
+            "restored_since_training": self.restored_since_training,
             "promotion_test": {"test": TEST.format(alpha=ALPHA), "alpha": ALPHA, "margin": self.tolerance,
                                "min_new_lots": MIN_NEW_LOTS},
             "caution": CAUTION,
@@ -323,7 +326,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     from linkage.models import registry
     from linkage.models.train import train_chain
     from linkage.products import others_text
-    from linkage.store import LotStore, current_tables_of, refuse_unanchored, set_aside_notes
+    from linkage.store import LotStore, current_tables_of, refuse_unanchored, restored_since_training, set_aside_notes
 
     if not 0 <= tolerance < 1:
         raise UsageError(f"tolerance must lie in [0, 1); got {tolerance}")
@@ -348,6 +351,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
                      "and the challenger is fitted on its lots only")
     if not new_lots:
         notes.append(_no_new_lots_note(tables.set_aside, champion))
+    restored = restored_since_training(champion, new_lots, notes, "new since the champion")
     from linkage.decide.watch import revised_since_training
 
     revised = revised_since_training(stored_lots, champion.training["lots"], champion.created_at)
@@ -380,7 +384,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
         champion_id=champion.model_id, challenger_id=challenger_id, promoted=promote, forced=force,
         reason=given_reason(reason) or "", reasons=reasons, rule=RULE, tolerance=tolerance, new_lots=new_lots,
         comparisons=comparisons, window_moved=moved, notes=notes, product=product, alarmed_lots=alarmed,
-        set_aside_lots=aside[0], set_aside_in_training=aside[1],
+        set_aside_lots=aside[0], set_aside_in_training=aside[1], restored_since_training=restored,
     )
     # two phases (registry.begin_decision): the audit row's commit is the decision
     decision_id = registry.begin_decision(models_dir, decision.to_dict())
