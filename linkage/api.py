@@ -288,7 +288,10 @@ def _preview_ingest(folder: Path, store: Path, exists: bool, *, reason: str | No
     (the CLI says so); they include the ingest's write refusals: a store without its anchor file (exit code 6),
     one this account cannot write, or a new store in a folder it cannot write (exit code 5). A store that does
     not exist is not created: the ingest is decided against an empty store in a temporary folder, removed
-    after, as a first ingest would be decided."""
+    after, as a first ingest would be decided. A folder that changes stored values without ``reason`` is refused
+    (``UsageError``) as the ingest is, and the refusal carries the preview made all the same (``exc.preview``, an
+    :class:`Ingested` whose ``result.needs_reason`` says why), which the CLI prints before the refusal."""
+    from linkage.exceptions import UsageError
     from linkage.read import read_folder
 
     with contextlib.ExitStack() as stack:
@@ -303,7 +306,13 @@ def _preview_ingest(folder: Path, store: Path, exists: bool, *, reason: str | No
             if not exists and not os.access(store.parent, os.W_OK):  # where the ingest's first open fails
                 raise StoreError(f"cannot create the lot store {store}: this account cannot write in folder "
                                  f"{store.parent}; nothing was written")
-            result = lot_store.ingest(checked, reason=reason, accept_unusual=accept_unusual, preview=True)
+            try:
+                result = lot_store.ingest(checked, reason=reason, accept_unusual=accept_unusual, preview=True)
+            except UsageError as exc:  # wants --reason: the refusal carries the preview's whole report
+                if getattr(exc, "preview", None) is not None:
+                    exc.preview = Ingested(store=store, folder=folder, result=exc.preview, sources=checked.sources,
+                                           spec=checked.spec, cautions=lot_store.cautions())
+                raise
         cautions = lot_store.cautions()
     return Ingested(store=store, folder=folder, result=result, sources=checked.sources, spec=checked.spec,
                     cautions=cautions)

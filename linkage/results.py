@@ -140,6 +140,10 @@ class Ingested(_Result):
             lines += [f"    ... and {listed['more']} more change(s)"] if listed["more"] else []
         lines += [f"  ... and {r.more_lots} more revised lot(s), not listed"] if r.more_lots else []
         lines += [f"Caution: {c}" for c in self.cautions]
+        if r.needs_reason:
+            return lines + [f"The ingest would be refused: {r.needs_reason}",
+                            "Nothing was written: the store, its anchor file and its audit trail are as they were. "
+                            "The same command without --preview and with --reason TEXT ingests the folder."]
         return lines + ["Nothing was written: the store, its anchor file and its audit trail are as they were. "
                         "The same command without --preview ingests the folder."]
 

@@ -284,16 +284,18 @@ class IngestResult:
     more_lots: int = 0
     #: the ingest's revised or unchanged lots that are set aside: they stay so (``linkage restore`` puts them back)
     lots_set_aside: list[str] = field(default_factory=list)
+    #: a preview's: why the ingest it previews would be refused for want of --reason (None: it would not be)
+    needs_reason: str | None = None
 
     @property
     def changed(self) -> bool:
         return bool(self.lots_new or self.lots_revised)
 
     def to_dict(self) -> dict:
-        """Every field; ``changes`` and ``more_lots`` only for a preview."""
+        """Every field; ``changes``, ``more_lots`` and ``needs_reason`` only for a preview."""
         out = asdict(self)
         if not self.preview:
-            del out["changes"], out["more_lots"]
+            del out["changes"], out["more_lots"], out["needs_reason"]
         return out
 
 
@@ -327,11 +329,13 @@ class _IngestPlan:
         self.unusual_records: list[dict] = []
         self.warnings: list[str] = []
         self.set_aside: list[str] = []  # the ingest's stored lots that are set aside (they stay so)
+        self.needs_reason: str | None = None  # the refusal of stored values changed without a reason
 
     def result(self, ingest_id: int | None, *, preview: bool = False) -> IngestResult:
         out = IngestResult(self.new, self.revised, self.unchanged, ingest_id, self.warnings, self.added_to,
                            self.changed, self.unusual_records, preview, lots_set_aside=self.set_aside)
         if preview:
+            out.needs_reason = self.needs_reason
             listed = [lot for lot in self.revised if lot in self.shown][:PREVIEW_LOTS]
             changed = set(self.changed)
             out.changes = {lot: {"revision": "changed" if lot in changed else "added to",
@@ -966,6 +970,8 @@ class LotStore:
         plan = _IngestPlan(ingest, reason)  # before the write lock: it needs no store
         with self._write() as c:
             self._plan(c, plan, accept_unusual)
+            if plan.needs_reason:
+                raise UsageError(plan.needs_reason)
             result = self._commit(c, plan, user or current_user())
         return result
 
@@ -981,7 +987,12 @@ class LotStore:
                 self._plan(self._conn, plan, accept_unusual, show=PREVIEW_LOTS)
         except sqlite3.DatabaseError as exc:
             raise self._error(exc) from None
-        return plan.result(None, preview=True)
+        result = plan.result(None, preview=True)
+        if plan.needs_reason:  # refused as the ingest is, with the preview's whole result on the refusal
+            exc = UsageError(plan.needs_reason)
+            exc.preview = result
+            raise exc
+        return result
 
     def _plan(self, c, plan: _IngestPlan, accept_unusual: bool, *, show: int = 0) -> None:
         """Decide the ingest against the stored lots: the checks across the folder and the store, each lot new,
@@ -1002,6 +1013,8 @@ class LotStore:
         first = {lot: plan.shown[lot] for lot in plan.changed[:3]}  # the refusal names the first few changed lots
         plan.unusual_records = self._refuse(c, ingest, product_of, (plan.changed, first), plan.reason,
                                             accept_unusual)
+        if plan.changed and plan.reason is None:  # refused, after the refusals above (a preview says it last)
+            plan.needs_reason = _needs_reason(plan.changed, first)
         plan.warnings = list(ingest.warnings)
         aside = _set_aside_state(c)
         plan.set_aside = [lot for lot in order if lot in aside]
@@ -1073,8 +1086,6 @@ class LotStore:
         judged = {(r["file"], r["lot"], r["column"]) for r in unusual_records}
         unusual_records = unusual_records + [r for r in getattr(ingest, "unusual", [])
                                              if (r["file"], r["lot"], r["column"]) not in judged]
-        if changed[0] and reason is None:
-            raise UsageError(_needs_reason(*changed))
         return unusual_records
 
     def _write_revisions(self, c, ingest_id: int, lots: list[str], changes: dict[str, list[str]], current: dict,

@@ -302,3 +302,27 @@ def test_a_schema_2_store_is_previewed_without_its_upgrade(v2, tmp_path):
                                                                             real.result.lots_unchanged)
     [change] = preview.result.changes["EX-002"]["changes"]
     assert (change["column"], change["old"], change["new"]) == ("dissolution_pct", 75.7, 77.7)
+
+
+def test_a_preview_that_needs_a_reason_still_shows_its_whole_report(tmp_path, stored):
+    """A regression test of the preview's output (no outside source; the reference is the preview given --reason):
+    without --reason the preview still prints every change (text) and its JSON (``needs_reason`` set), then the
+    ingest's refusal, exit code 2. Before, it printed the refusal only, and --json left stdout empty."""
+    path = _mixed(tmp_path)
+    before = _files(stored.parent)
+    given = json.loads(run_cli(["ingest", path, "--store", stored, "--preview", "--reason", "DEV-7",
+                                "--json"]).stdout)
+    bare = run_cli(["ingest", path, "--store", stored, "--preview", "--json"])
+    assert bare.exit_code == 2 and "--reason" in bare.stderr and "Preview:" in bare.stderr
+    out = json.loads(bare.stdout)
+    assert out["needs_reason"] and "B" in out["needs_reason"] and given["needs_reason"] is None
+    for key in ("lots_new", "lots_revised", "lots_added_to", "lots_changed", "changes", "more_lots"):
+        assert out[key] == given[key], key
+    text = run_cli(["ingest", path, "--store", stored, "--preview"])
+    assert text.exit_code == 2
+    assert "roll_force_kn_per_cm 10 -> 10.4" in text.stdout and "New lots (1): C" in text.stdout
+    assert "The ingest would be refused" in text.stdout and "with --reason TEXT" in text.stdout
+    with pytest.raises(UsageError) as refused:  # the API raises as before, the preview on the refusal
+        api.ingest(path, stored, preview=True)
+    assert refused.value.preview.result.lots_changed == ["B"]
+    assert _files(stored.parent) == before

@@ -65,7 +65,9 @@ def ingest(folder, store, reason, accept_unusual, preview, as_json):
     or it would need --reason or --accept-unusual; 5: the store, or the
     folder of a new one, cannot be written by this account; 6: the store's
     anchor file is missing), and each revised lot's changes; a pre-check a
-    script can run before the ingest. A store that cannot be read at all
+    script can run before the ingest. A folder that needs --reason is
+    previewed in full all the same (the text, or the --json with
+    needs_reason), then refused with exit code 2. A store that cannot be read at all
     fails the preview with what failed, not as a refusal of the ingest.
 
     \b
@@ -80,6 +82,9 @@ def ingest(folder, store, reason, accept_unusual, preview, as_json):
     try:
         result = run_ingest(folder, store, reason=reason, accept_unusual=accept_unusual, preview=preview)
     except LinkageError as exc:
+        made = getattr(exc, "preview", None) if preview else None
+        if made is not None:  # wants --reason: the whole preview first, then the refusal with its exit code
+            click.echo(json.dumps(made.to_dict(), indent=2) if as_json else made.text())
         if preview and exc.ingest_refusal:
             tell_progress("Preview: the ingest would be refused as follows, with the same exit code; nothing was "
                           "written.")
