@@ -32,8 +32,9 @@ for drift (``linkage watch`` is for that). Zero and negative values are not
 judged on a log scale.
 
 History needs at least :data:`MIN_HISTORY_LOTS` lots of the product with a
-value; a column with fewer is not judged (said in no message: there is
-nothing to compare with). ``linkage ingest --accept-unusual --reason TEXT``
+value; a column with fewer is not judged. A product none of whose columns
+could be judged is named in one note (:func:`history_note`; the ingest and
+its preview print it), so that the check is not off without a word. ``linkage ingest --accept-unusual --reason TEXT``
 takes unusual values deliberately; the audit trail records them.
 
 Without history, so on a first ingest too, :func:`sieve_apertures` refuses
@@ -164,15 +165,26 @@ def per_lot_medians(rows_by_lot: dict[str, list[dict]], column: str) -> list[flo
     return out
 
 
+def history_note(product: str | None, n_lots: int) -> str:
+    """What an ingest says of a product whose values were not judged for want of history: one line."""
+    return (f"plausibility not judged for {'product ' + product if product else 'lots without a product'}: only "
+            f"{n_lots} earlier lot{'' if n_lots == 1 else 's'} with values ({MIN_HISTORY_LOTS} needed)")
+
+
 def unusual_values(ingest, history: dict[str, dict[str | None, dict[str, list[dict]]]],
-                   product_of: dict[str, str | None]) -> tuple[list[Problem], list[dict]]:
+                   product_of: dict[str, str | None],
+                   notes: list[str] | None = None) -> tuple[list[Problem], list[dict]]:
     """Problems for every unusual value of the ingest, and the same as records (for the audit trail).
 
     ``history[table][product][lot]`` holds the stored rows of the product's
     recent lots; ``product_of`` maps each lot of the ingest to its product.
+    ``notes``, when given, gets one :func:`history_note` per product of which no column was judged (fewer than
+    :data:`MIN_HISTORY_LOTS` earlier lots with values).
     """
     problems: list[Problem] = []
     records: list[dict] = []
+    judged_products: set = set()
+    short: dict = {}  # product -> the most earlier lots with values of a column not judged
     process = ingest.tables.get("process")
     widths = {}
     if process is not None and "roll_width_mm" in process:
@@ -188,8 +200,14 @@ def unusual_values(ingest, history: dict[str, dict[str | None, dict[str, list[di
         for column in columns:
             if column not in df:
                 continue
-            references = {product: robust_reference(per_lot_medians(history.get(table, {}).get(product, {}), column))
-                          for product in products}
+            medians = {product: per_lot_medians(history.get(table, {}).get(product, {}), column)
+                       for product in products}
+            references = {product: robust_reference(values) for product, values in medians.items()}
+            for product, ref in references.items():
+                if ref is None:
+                    short[product] = max(short.get(product, 0), len(medians[product]))
+                else:
+                    judged_products.add(product)
             if all(ref is None for ref in references.values()):
                 continue  # nothing to compare with (an empty store, a new product)
             candidates = (_lot_candidates if table in JUDGED_BY_LOT else _row_candidates)(df, column, references,
@@ -224,6 +242,9 @@ def unusual_values(ingest, history: dict[str, dict[str | None, dict[str, list[di
                 if by_lot:  # row: the first of the lot's rows; value: their median, what was judged
                     record.update(row=lot_rows[0], judged="median of the lot's positive values", rows=lot_rows)
                 records.append(record)
+    if notes is not None:
+        notes += [history_note(product, short[product]) for product in sorted(short, key=str)
+                  if product not in judged_products]
     return problems, records
 
 

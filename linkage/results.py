@@ -126,6 +126,7 @@ class Ingested(_Result):
             lines.append("Warnings:")
             lines += [f"  - {w}" for w in r.warnings]
         lines += _unusual_lines(r.accepted_unusual)
+        lines += [f"Note: {note}" for note in r.notes]
         return "\n".join(lines + (self._preview_lines() if r.preview else []))
 
     def _preview_lines(self) -> list[str]:

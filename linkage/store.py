@@ -286,6 +286,8 @@ class IngestResult:
     lots_set_aside: list[str] = field(default_factory=list)
     #: a preview's: why the ingest it previews would be refused for want of --reason (None: it would not be)
     needs_reason: str | None = None
+    #: notes: each product whose values were not judged for plausibility for want of history, one line each
+    notes: list[str] = field(default_factory=list)
 
     @property
     def changed(self) -> bool:
@@ -330,10 +332,12 @@ class _IngestPlan:
         self.warnings: list[str] = []
         self.set_aside: list[str] = []  # the ingest's stored lots that are set aside (they stay so)
         self.needs_reason: str | None = None  # the refusal of stored values changed without a reason
+        self.notes: list[str] = []  # what the ingest says besides warnings (plausibility not judged)
 
     def result(self, ingest_id: int | None, *, preview: bool = False) -> IngestResult:
         out = IngestResult(self.new, self.revised, self.unchanged, ingest_id, self.warnings, self.added_to,
-                           self.changed, self.unusual_records, preview, lots_set_aside=self.set_aside)
+                           self.changed, self.unusual_records, preview, lots_set_aside=self.set_aside,
+                           notes=self.notes)
         if preview:
             out.needs_reason = self.needs_reason
             listed = [lot for lot in self.revised if lot in self.shown][:PREVIEW_LOTS]
@@ -1011,8 +1015,7 @@ class LotStore:
         product_of = {lot: products[lot] if lot in products else current.get(lot, {}).get("product")
                       for lot in order}
         first = {lot: plan.shown[lot] for lot in plan.changed[:3]}  # the refusal names the first few changed lots
-        plan.unusual_records = self._refuse(c, ingest, product_of, (plan.changed, first), plan.reason,
-                                            accept_unusual)
+        plan.unusual_records = self._refuse(c, ingest, product_of, plan.reason, accept_unusual, plan.notes)
         if plan.changed and plan.reason is None:  # refused, after the refusals above (a preview says it last)
             plan.needs_reason = _needs_reason(plan.changed, first)
         plan.warnings = list(ingest.warnings)
@@ -1070,13 +1073,14 @@ class LotStore:
                 shown[lot] = [ch for pair in pairs for ch in _diff(*pair)]
         return added_to, changed, shown
 
-    def _refuse(self, c, ingest: Ingest, product_of: dict, changed: tuple[list[str], dict], reason: str | None,
-                accept_unusual: bool) -> list[dict]:
-        """Raise for unusual values not taken deliberately, and for stored values changed (``changed``: the lots
-        whose revision does more than add, and the differences of the first few) or unusual values taken without
-        a reason; returns the unusual values taken (for the audit trail)."""
+    def _refuse(self, c, ingest: Ingest, product_of: dict, reason: str | None, accept_unusual: bool,
+                notes: list[str]) -> list[dict]:
+        """Raise for unusual values not taken deliberately, and for unusual values taken without a reason (stored
+        values changed without one: :meth:`_plan`); returns the unusual values taken (for the audit trail).
+        ``notes`` gets the products whose values were not judged for want of history
+        (:func:`linkage.plausible.history_note`)."""
         unusual, unusual_records = _plausible.unusual_values(
-            ingest, self._history(c, set(product_of.values()), set(product_of)), product_of)
+            ingest, self._history(c, set(product_of.values()), set(product_of)), product_of, notes)
         if accept_unusual and reason is None:
             raise UsageError(ACCEPT_NEEDS_REASON)
         if unusual and not accept_unusual:

@@ -181,3 +181,36 @@ def test_the_slip_named_fits_the_columns_unit():
     assert "(g for mg?)" in likely_mistake(0.25, np.log10(250.0), 0.02, "weight_mg")
     assert "(kN for N?)" in likely_mistake(0.08, np.log10(80.0), 0.02, "breaking_force_n")
     assert "(cm for mm?)" in likely_mistake(0.42, np.log10(4.2), 0.02, "thickness_mm")
+
+
+def _lots_and_one_more(tmp_path: Path, n: int) -> tuple[Path, Path]:
+    """``n`` synthetic lots (seed 1, no product column): the first n - 1 ingested, the last in a folder of its own."""
+    history, new = tmp_path / "history", tmp_path / "new"
+    make_lots(n, seed=1, lot_prefix="H").write_csv(history)
+    new.mkdir()
+    last = f"H-{n:03d},"
+    for f in history.iterdir():
+        header, *rows = f.read_text().splitlines()
+        (history / f.name).write_text("\n".join([header, *[r for r in rows if not r.startswith(last)]]) + "\n")
+        (new / f.name).write_text("\n".join([header, *[r for r in rows if r.startswith(last)]]) + "\n")
+    store = tmp_path / "s.db"
+    assert run_cli(["ingest", history, "--store", store]).exit_code == 0
+    return new, store
+
+
+def test_a_product_with_too_little_history_is_said_not_judged_once(tmp_path):
+    """A regression test of the ingest's note (no outside source; the 10 lots needed are common practice, no
+    source): with fewer than MIN_HISTORY_LOTS earlier lots the unit-slip check cannot judge, and the ingest and its
+    preview say so in one line for the product, instead of letting a unit mistake through without a word."""
+    from linkage.plausible import MIN_HISTORY_LOTS
+
+    new, store = _lots_and_one_more(tmp_path / "few", 6)
+    expected = f"Note: plausibility not judged for lots without a product: only 5 earlier lots with values " \
+               f"({MIN_HISTORY_LOTS} needed)"
+    preview = run_cli(["ingest", new, "--store", store, "--preview"])
+    assert preview.exit_code == 0 and preview.stdout.count(expected) == 1, preview.stdout
+    real = run_cli(["ingest", new, "--store", store, "--json"])
+    assert real.exit_code == 0 and json.loads(real.stdout)["notes"] == [expected[len("Note: "):]]
+    new, store = _lots_and_one_more(tmp_path / "enough", MIN_HISTORY_LOTS + 2)
+    judged = run_cli(["ingest", new, "--store", store])
+    assert judged.exit_code == 0 and "plausibility not judged" not in judged.stdout
