@@ -590,3 +590,17 @@ def test_a_lot_restored_after_training_is_said_to_be_restored_not_new(trained_la
     decided = json.loads(_run(["retrain", "--store", path, "--models-dir", models, "--json"]).stdout)
     assert decided["new_lots"] == [lot] and decided["restored_since_training"] == [lot]
     assert any("restored since" in n for n in decided["notes"])
+
+
+@pytest.mark.parametrize("command", ["assemble", "train", "watch", "retrain", "report", "plan", "transfer", "running"])
+def test_the_help_of_each_command_that_fits_or_judges_lots_says_set_aside_lots_are_left_out(command):
+    """A regression test of the help texts (no outside source): each command that leaves set-aside lots out says so."""
+    result = _run([command, "--help"])
+    assert result.exit_code == 0
+    assert "Lots set aside ('linkage set-aside') are left out, and named." in " ".join(result.stdout.split())
+
+
+def test_restore_help_says_a_lot_is_found_under_any_spelling():
+    """A regression test of the help text (no outside source): restore finds a lot as set-aside does."""
+    for command in ("set-aside", "restore"):
+        assert "found under any spelling" in " ".join(_run([command, "--help"]).stdout.split())

@@ -39,6 +39,8 @@ def retrain(store, models_dir, spec_path, product, tolerance, force, reason, as_
     on that the watch's alarm flags against the champion (once the challenger
     is promoted, the watch charts against it and no longer shows that alarm).
 
+    Lots set aside ('linkage set-aside') are left out, and named.
+
     Order of use: ingest the new lots, run 'linkage watch' first (it says
     whether the process has moved away from the champion), then 'linkage
     retrain' once the watch alarms or at least 5 new lots per attribute have
@@ -85,6 +87,8 @@ def watch(store, models_dir, model_id, spec_path, product, as_json):
     domain; recorded what-ifs against what the lots measured (noting a
     what-if made at settings the lot did not run at, and predicting again at
     the settings it ran at).
+
+    Lots set aside ('linkage set-aside') are left out, and named.
 
     Order of use: after each ingest of new lots, before 'linkage retrain'.
     An alarm says the process moved away from the model; then retrain.

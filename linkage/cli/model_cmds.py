@@ -59,6 +59,8 @@ def train(store, models_dir, chain_path, product, seed, coverage, spec_path, dis
     """Train the chain of stage models on the lots in the store, with
     grouped cross-validation by lot, and save it in the model registry.
 
+    Lots set aside ('linkage set-aside') are left out, and named.
+
     Every attribute gets these candidates, simplest first: mean (a floor),
     rd_baseline (Ryshkewitch–Duckworth, where ribbon porosity is an input),
     johanson_baseline (Johanson's rolling theory, where roll force, gap and

@@ -68,6 +68,8 @@ def plan(n_lots, range_texts, new, design, spec_path, model_id, assignments, con
     """Plan the next lots: the settings that narrow the ribbon porosity
     window's edges fastest, or a starting design for a new product.
 
+    Lots set aside ('linkage set-aside') are left out, and named.
+
     \b
     Example:
       linkage plan --new --lots 12 --range roll_force_kn_per_cm=3:14 \\

@@ -34,6 +34,8 @@ def report(model_id, spec_path, out_path, confidence, seed, assurance, plan_path
     applicability domain and a model card. Figures are embedded; the file
     opens offline in any browser. Prints the path written.
 
+    Lots set aside ('linkage set-aside') are left out, and named.
+
     The lots come from the store (the model's product when it was trained
     on one); the model from the registry.
 

@@ -68,6 +68,8 @@ def running(samples, assignments, process_path, spec_path, window, adjust, basel
     back to the window's centre, with its uncertainty and the number of
     further samples to confirm it. Recorded in the store's audit trail.
 
+    Lots set aside ('linkage set-aside') are left out, and named.
+
     SAMPLES is a CSV or XLSX with the ribbon table's columns: lot, sample,
     sampled_at, envelope_density_g_cm3, skeletal_density_g_cm3 (one lot).
 

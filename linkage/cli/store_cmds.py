@@ -202,6 +202,8 @@ def assemble(store, out, product, fines_cutoff_um, spec_path):
     ribbon porosity, granule size, tensile strength and the other derived
     values. Without --out, print a summary.
 
+    Lots set aside ('linkage set-aside') are left out, and named.
+
     \b
     Example:
       linkage assemble --out lots.csv

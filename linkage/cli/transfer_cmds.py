@@ -50,6 +50,8 @@ def transfer(roll_diameter_mm, roll_width_mm, gap_mm, porosity, window_text, lev
     the material's compressibility and pressure constant fitted from the lots
     of every compactor in the store.
 
+    Lots set aside ('linkage set-aside') are left out, and named.
+
     The model leaves out roll speed, leakage past the roll edges, side
     seals, the feed screw, dwell time and elastic recovery; confirm the
     answer with a few lots on the new rolls.
