@@ -754,13 +754,37 @@ def _recorded_whatifs(results, lots, store, will_record: bool = True) -> list[Wh
     """The what-ifs, each stated for its lot in the store's spelling (read from the store whenever it exists)
     and, when ``will_record`` (:func:`recording`), recorded with its prediction."""
     out = []
-    for r, lot in zip(results, _lot_spellings(lots, store)):
+    spelled = _lot_spellings(lots, store)
+    aside = _lots_set_aside(spelled, store)
+    for r, lot in zip(results, spelled):
         r.lot = lot  # stated on the result and its sheet, as recorded
         d = r.to_dict()
         recorded = will_record and record_entry(store, "predict", model_id=d["model_id"], lot=lot, inputs=d["inputs"],
                                                 outputs=d, prediction=True)
-        out.append(WhatIfResult(result=r, lot=lot, recorded=recorded, store=None if store is None else Path(store)))
+        out.append(WhatIfResult(result=r, lot=lot, recorded=recorded, store=None if store is None else Path(store),
+                                set_aside_note=_set_aside_whatif_note(lot, aside[lot], recorded) if lot in aside
+                                else None))
     return out
+
+
+def _lots_set_aside(lots, store) -> dict:
+    """The ``lots`` (stored spellings) that are set aside in ``store`` now: lot -> the decision in force."""
+    if store is None or not Path(store).exists() or all(lot is None for lot in lots):
+        return {}
+    from linkage.store import LotStore
+
+    with LotStore(store, create=False) as s:
+        aside = s.set_aside_lots()
+    return {lot: aside[lot] for lot in lots if lot in aside}
+
+
+def _set_aside_whatif_note(lot: str, decision: dict, recorded: bool) -> str:
+    """What a what-if for a set-aside lot says: the lot is set aside, and the watch will not compare it."""
+    from linkage.store import decision_shown
+
+    return (f"lot {lot} is set aside ({decision_shown(decision)}): this what-if is "
+            f"{'recorded for it' if recorded else 'not recorded'}, but 'linkage watch' leaves the lot out and does "
+            "not compare the what-if with what it measured ('linkage restore LOT --reason TEXT' puts it back in use)")
 
 
 def _whatif_numbers(values: Mapping) -> tuple[dict[str, float], list[str]]:

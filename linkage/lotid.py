@@ -71,7 +71,7 @@ def reader_spelling(lot: str) -> str | None:
         return None
     rule = lot_id_rule(text)
     if rule is not None:
-        raise UsageError(f"lot {_visible(text)!r}: {rule}")
+        raise UsageError(f"lot '{_visible(text)}': {rule}")  # escaped once (repr would double the backslash)
     return text
 
 

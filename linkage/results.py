@@ -681,13 +681,17 @@ class WhatIfResult(_Result):
     lot: str | None = None
     recorded: bool = False
     store: Path | None = None
+    #: for a lot set aside in the store: that it is, and that the watch will not compare this what-if with it
+    set_aside_note: str | None = None
 
     def to_dict(self) -> dict:
-        """What ``linkage predict --json`` prints."""
-        return self.result.to_dict()
+        """What ``linkage predict --json`` prints; for a lot set aside, also ``lot_set_aside`` (true) and
+        ``lot_set_aside_note``."""
+        d = self.result.to_dict()
+        return {**d, "lot_set_aside": True, "lot_set_aside_note": self.set_aside_note} if self.set_aside_note else d
 
     def text(self) -> str:
-        return whatif_text(self.result)
+        return whatif_text(self.result) + (f"\nNote: {self.set_aside_note}" if self.set_aside_note else "")
 
     def summary(self) -> pd.DataFrame:
         """One row per predicted attribute (index ``attribute``): ``value``
@@ -877,10 +881,10 @@ class SetAside(_Result):
                 "decisions": list(self.decisions), "set_aside_lots": list(self.set_aside_now)}
 
     def text(self) -> str:
-        from linkage.store import SET_ASIDE, lots_named
+        from linkage.store import SET_ASIDE, id_runs, lots_named, one_line
 
         d = self.decisions
-        lots = ", ".join(x["lot"] for x in d)
+        lots = lots_named([x["lot"] for x in d])
         first = d[0] if d else {"at": "", "user": "", "reason": ""}
         if self.action == SET_ASIDE:
             lines = [f"Set aside {len(d)} lot(s) in {self.store}: {lots}.",
@@ -890,8 +894,8 @@ class SetAside(_Result):
         else:
             lines = [f"Restored {len(d)} lot(s) in {self.store}: {lots}; they are in use again."]
         lines.append(f"Recorded in the audit trail (entr{'y' if len(d) == 1 else 'ies'} "
-                     f"{', '.join(str(x['audit_id']) for x in d)}), {first['at']}, by {first['user']}; "
-                     f"reason: {first['reason']}")
+                     f"{id_runs([x['audit_id'] for x in d])}), {first['at']}, by {first['user']}; "
+                     f"reason: {one_line(first['reason'])}")
         lines.append(f"Lots set aside now: {len(self.set_aside_now)}"
                      + (f" ({lots_named(self.set_aside_now)})" if self.set_aside_now else ""))
         return "\n".join(lines)
@@ -990,8 +994,9 @@ def _audit_outcome(entry: dict) -> tuple[str, str | None]:
 
 def audit_text(rows: list[dict], lot: str | None = None) -> str:
     """``linkage audit``'s table: a header, one line per entry with what it came to (``outcome``) and, where the
-    entry has one, the reason given (an ingest's ``--reason``, a forced promotion's)."""
-    from linkage.store import given_reason
+    entry has one, the reason given (an ingest's ``--reason``, a forced promotion's), its line breaks shown as
+    '⏎' (:func:`linkage.store.one_line`; the stored reason is unchanged)."""
+    from linkage.store import given_reason, one_line
 
     if not rows:
         return "No audit entries" + (f" for lot {lot}." if lot else ".")
@@ -999,7 +1004,7 @@ def audit_text(rows: list[dict], lot: str | None = None) -> str:
     for r in rows:
         outcome, model = _audit_outcome(r)
         reason = ((r.get("inputs") or {}) if isinstance(r.get("inputs"), dict) else {}).get("reason")
-        made.append((r, outcome, model, given_reason(reason) or ""))
+        made.append((r, outcome, model, one_line(given_reason(reason) or "")))  # a multi-line reason: one line
     width = min(max(len("outcome"), *(len(m[1]) for m in made)), 90)
     lines = [f"{'id':>5}  {'at (UTC)':<29}  {'user':<12} {'action':<9} {'lot':<12} {'model':<29} "
              f"{'outcome':<{width}}  reason".rstrip()]

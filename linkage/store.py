@@ -547,6 +547,20 @@ def lots_named(lots) -> str:
     return ", ".join(lots[:LOTS_NAMED]) + (f" and {more} more" if more > 0 else "")
 
 
+def id_runs(ids, shown: int = 6) -> str:
+    """Whole numbers (audit entry ids) as runs: '3–51' for 3, 4, ..., 51; '3, 5–7, 9'; the first ``shown`` runs
+    and how many more ids ('3–5, 8, ... and 40 more')."""
+    runs: list[list[int]] = []
+    for i in ids:
+        if runs and i == runs[-1][1] + 1:
+            runs[-1][1] = i
+        else:
+            runs.append([i, i])
+    text = [f"{a}" if a == b else f"{a}, {b}" if b == a + 1 else f"{a}–{b}" for a, b in runs[:shown]]
+    more = sum(b - a + 1 for a, b in runs[shown:])
+    return ", ".join(text) + (f" and {more} more" if more else "")
+
+
 def set_aside_note(set_aside, what: str = "left out") -> str | None:
     """What a command that leaves set-aside lots out says: how many, which, and where to look (None: none)."""
     lots = list(set_aside)

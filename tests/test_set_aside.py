@@ -604,3 +604,51 @@ def test_restore_help_says_a_lot_is_found_under_any_spelling():
     """A regression test of the help text (no outside source): restore finds a lot as set-aside does."""
     for command in ("set-aside", "restore"):
         assert "found under any spelling" in " ".join(_run([command, "--help"]).stdout.split())
+
+
+def test_many_entries_are_shown_as_runs_and_a_multiline_reason_stays_on_one_table_line(store):
+    """Regression tests of the texts (no outside source): the audit entries of a decision on many lots are shown as a
+    run ('5–8'), not one by one; a reason with line breaks is shown on one line in the 'lots' and 'audit' tables
+    ('⏎' for each break) and stored unchanged."""
+    reason = "DEV-2026-014: blend error\nwrong excipient lot charged"
+    made = _run(["set-aside", "EX-001", "EX-002", "EX-003", "EX-004", "--reason", reason, "--store", store, "--json"])
+    ids = [d["audit_id"] for d in json.loads(made.stdout)["decisions"]]
+    assert ids == list(range(ids[0], ids[0] + 4))
+    api.restore(["EX-001", "EX-002", "EX-003", "EX-004"], store, reason="closed")
+    again = _run(["set-aside", "EX-001", "EX-002", "EX-003", "EX-004", "--reason", reason, "--store", store])
+    first = ids[-1] + 5  # the four restores, then these four
+    assert f"(entries {first}–{first + 3})" in again.stdout, again.stdout
+    joined = "DEV-2026-014: blend error ⏎ wrong excipient lot charged"
+    for command in ("lots", "audit"):
+        text = _run([command, "--store", store]).stdout
+        assert joined in text, text
+        assert not any(line.startswith("wrong excipient") for line in text.splitlines())
+    with LotStore(store, create=False) as s:
+        assert s.set_aside_lots()["EX-001"]["reason"] == reason
+
+
+def test_an_invisible_character_is_shown_escaped_once(store):
+    """A regression test of the refusal (no outside source): the zero-width space is shown as \\u200b, the backslash
+    once, not doubled by repr."""
+    result = _run(["set-aside", "EX-001\u200b", "--reason", REASON, "--store", store])
+    assert result.exit_code == 2
+    assert "lot 'EX-001\\u200b'" in result.stderr and "\\\\u200b" not in result.stderr, result.stderr
+
+
+@pytest.mark.slow
+def test_a_whatif_for_a_set_aside_lot_says_the_watch_will_not_compare_it(aside_lab, tmp_path):
+    """A regression test of the what-if's note (no outside source): 'predict --lot' on a set-aside lot is recorded as
+    before, and says the lot is set aside and that the watch leaves it out."""
+    path, models, _, lot, _ = aside_lab
+    store = tmp_path / "lab.db"  # a copy: the what-if is recorded
+    shutil.copy(path, store)
+    shutil.copy(seal.anchor_path(path), seal.anchor_path(store))
+    result = _run(["predict", "--lot", lot.lower(), "--store", store, "--models-dir", models, "--set",
+                   "ribbon_porosity=0.3"])
+    assert result.exit_code == 0, result.output
+    text = " ".join(result.stdout.split())
+    assert f"Note: lot {lot} is set aside (since" in text and "'linkage watch' leaves the lot out" in text
+    assert "this what-if is recorded for it" in text
+    d = json.loads(_run(["predict", "--lot", lot, "--store", store, "--models-dir", models, "--set",
+                         "ribbon_porosity=0.3", "--json"]).stdout)
+    assert d["lot_set_aside"] is True and lot in d["lot_set_aside_note"]

@@ -114,7 +114,7 @@ def lots(store, product, as_json):
       linkage lots
       linkage lots --product ABC-10mg --json
     """
-    from linkage.store import LotStore
+    from linkage.store import LotStore, one_line
 
     with LotStore(store, create=False) as lot_store:
         df = lot_store.lots(product=product)
@@ -138,7 +138,8 @@ def lots(store, product, as_json):
     if len(aside):
         click.echo("Set aside (left out of fitting and judging; 'linkage restore LOT --reason TEXT' puts one back):")
         for rec in aside.to_dict("records"):
-            click.echo(f"  {rec['lot']}: {rec['set_aside_reason']} (by {rec['set_aside_by']}, {rec['set_aside_at']})")
+            click.echo(f"  {rec['lot']}: {one_line(rec['set_aside_reason'])} (by {rec['set_aside_by']}, "
+                       f"{rec['set_aside_at']})")  # a multi-line reason on one line ('⏎'); stored unchanged
 
 
 @click.command()
