@@ -881,7 +881,7 @@ class SetAside(_Result):
                 "decisions": list(self.decisions), "set_aside_lots": list(self.set_aside_now)}
 
     def text(self) -> str:
-        from linkage.store import SET_ASIDE, id_runs, lots_named, one_line
+        from linkage.store import SET_ASIDE, id_runs, lots_named, one_line, shown_time
 
         d = self.decisions
         lots = lots_named([x["lot"] for x in d])
@@ -894,7 +894,7 @@ class SetAside(_Result):
         else:
             lines = [f"Restored {len(d)} lot(s) in {self.store}: {lots}; they are in use again."]
         lines.append(f"Recorded in the audit trail (entr{'y' if len(d) == 1 else 'ies'} "
-                     f"{id_runs([x['audit_id'] for x in d])}), {first['at']}, by {first['user']}; "
+                     f"{id_runs([x['audit_id'] for x in d])}), {shown_time(first['at']) if d else ''}, by {first['user']}; "
                      f"reason: {one_line(first['reason'])}")
         lines.append(f"Lots set aside now: {len(self.set_aside_now)}"
                      + (f" ({lots_named(self.set_aside_now)})" if self.set_aside_now else ""))
