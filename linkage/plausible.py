@@ -167,8 +167,9 @@ def per_lot_medians(rows_by_lot: dict[str, list[dict]], column: str) -> list[flo
 
 def history_note(product: str | None, n_lots: int) -> str:
     """What an ingest says of a product whose values were not judged for want of history: one line."""
-    return (f"plausibility not judged for {'product ' + product if product else 'lots without a product'}: only "
-            f"{n_lots} earlier lot{'' if n_lots == 1 else 's'} with values ({MIN_HISTORY_LOTS} needed)")
+    held = "no earlier lots" if n_lots == 0 else f"only {n_lots} earlier lot{'' if n_lots == 1 else 's'}"
+    return (f"plausibility not judged for {'product ' + product if product else 'lots without a product'}: "
+            f"{held} with values ({MIN_HISTORY_LOTS} needed)")
 
 
 def unusual_values(ingest, history: dict[str, dict[str | None, dict[str, list[dict]]]],

@@ -214,3 +214,13 @@ def test_a_product_with_too_little_history_is_said_not_judged_once(tmp_path):
     new, store = _lots_and_one_more(tmp_path / "enough", MIN_HISTORY_LOTS + 2)
     judged = run_cli(["ingest", new, "--store", store])
     assert judged.exit_code == 0 and "plausibility not judged" not in judged.stdout
+
+
+def test_a_first_ingest_says_no_earlier_lots(tmp_path):
+    """The note on a first ingest says "no earlier lots", not "only 0 earlier lots" (a regression test of a label:
+    no outside source)."""
+    first = run_cli(["ingest", Path(__file__).resolve().parents[1] / "data" / "template-example",
+                     "--store", tmp_path / "s.db"])
+    assert first.exit_code == 0
+    assert "plausibility not judged for lots without a product: no earlier lots with values" in first.stdout
+    assert "only 0" not in first.stdout
