@@ -393,8 +393,8 @@ def set_aside(lots, store=DEFAULT_STORE, *, reason: str | None = None):
     and says so, until :func:`restore`. Each decision is an audit entry ``set-aside`` (who, when, ``reason``),
     sealed like every record. Refused (``UsageError``, exit code 2, nothing written; every problem in one message)
     without a ``reason``, for a lot the store does not hold (every such lot named) and for a lot already set aside; a store without its
-    anchor file is refused (``StoreIntegrityError``, exit code 6). Lots are found under any spelling, as an
-    ingest finds them (:func:`linkage.lotid.lot_key`)."""
+    anchor file is refused (``StoreIntegrityError``, exit code 6). Lots are found under a spelling that differs only
+    in letter case and dash characters (‐ – — and the like), as an ingest finds them (:func:`linkage.lotid.lot_key`)."""
     return _set_aside_decision(lots, store, reason, restore=False)
 
 
@@ -422,7 +422,7 @@ def _set_aside_decision(lots, store, reason, *, restore: bool):
             s = _preview_store(stack, Path(store), exists=True)
         except LinkageError as exc:
             if no_reason:  # nothing to write without one: said with what stops the store from being read
-                raise UsageError(f"{set_aside_needs_reason(action, ending='')}; and {exc}") from None
+                raise UsageError(f"{set_aside_needs_reason(action, ending='', reason=reason)}; and {exc}") from None
             raise
         if s.unanchored is None or no_reason:
             s.decision_lots(lots, reason, action)

@@ -454,11 +454,13 @@ SET_ASIDE, RESTORE = "set-aside", "restore"
 IN_USE, SET_ASIDE_STATE = "in use", "set aside"
 
 
-def set_aside_needs_reason(action: str, ending: str = " Nothing was written.") -> str:
-    """The refusal of a set-aside or restore decision without a reason (``ending``: what follows it)."""
+def set_aside_needs_reason(action: str, ending: str = " Nothing was written.", reason=None) -> str:
+    """The refusal of a set-aside or restore decision without a reason (``ending``: what follows it); ``reason``:
+    the reason as given, so that a given but blank one (``--reason ""``) is named as empty, not as missing."""
     what = ("sets lots aside (left out of fitting and judging)" if action == SET_ASIDE
             else "puts set-aside lots back in use")
-    return (f"'linkage {action}' {what} on the record: give --reason TEXT to say why (for example the deviation "
+    empty = "the reason given is empty; " if isinstance(reason, str) else ""
+    return (f"'linkage {action}' {what} on the record: {empty}give --reason TEXT to say why (for example the deviation "
             "number and the assignable cause)" + ("." + ending if ending else ""))
 
 
@@ -1287,7 +1289,7 @@ class LotStore:
         with the decision in force) or (restore) not set aside. Only reads: a store opened ``read_only`` answers as
         the write would (``linkage.api.set_aside`` asks it first, so that a refusal opens no older store for
         writing, which would upgrade it)."""
-        problems = [] if given_reason(reason) is not None else [set_aside_needs_reason(action, ending="")]
+        problems = [] if given_reason(reason) is not None else [set_aside_needs_reason(action, ending="", reason=reason)]
         given = [reader_spelling(lot) for lot in ([lots] if isinstance(lots, str) else list(lots))]
         if not any(given):
             problems.append(f"'linkage {action}' needs at least one lot id")
@@ -1312,7 +1314,7 @@ class LotStore:
 
     def _decide_set_aside(self, lots, reason: str | None, action: str, user: str | None) -> list[dict]:
         if given_reason(reason) is None:  # before the write lock (the API asked decision_lots first, all problems)
-            raise UsageError(set_aside_needs_reason(action))
+            raise UsageError(set_aside_needs_reason(action, reason=reason))
         reason = given_reason(reason)
         user = user or current_user()
         with self._write() as c:

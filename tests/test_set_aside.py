@@ -600,10 +600,27 @@ def test_the_help_of_each_command_that_fits_or_judges_lots_says_set_aside_lots_a
     assert "Lots set aside ('linkage set-aside') are left out, and named." in " ".join(result.stdout.split())
 
 
-def test_restore_help_says_a_lot_is_found_under_any_spelling():
-    """A regression test of the help text (no outside source): restore finds a lot as set-aside does."""
+def test_restore_help_says_which_spellings_find_a_lot_and_no_more(store):
+    """A regression test of the help text (no outside source): set-aside and restore say a lot is found under a
+    spelling differing only in letter case and dash characters, not 'any spelling' — 'EX004', 'EX 004' and 'EX_004'
+    are refused as lots the store does not hold, while 'ex‐004' (a Unicode hyphen) is the stored EX-004."""
     for command in ("set-aside", "restore"):
-        assert "found under any spelling" in " ".join(_run([command, "--help"]).stdout.split())
+        text = " ".join(_run([command, "--help"]).stdout.split())
+        assert "differs only in letter case and dash characters (‐ – — and the like)" in text, text
+        assert "any spelling" not in text
+    for other in ("EX004", "EX 004", "EX_004"):
+        assert _run(["set-aside", other, "--reason", REASON, "--store", store]).exit_code == 2
+    assert _run(["set-aside", "ex\u2010004", "--reason", REASON, "--store", store]).exit_code == 0
+
+
+@pytest.mark.parametrize("reason", ["", "   "])
+def test_a_blank_reason_is_said_to_be_empty_not_missing(store, reason):
+    """A regression test of the refusal (no outside source): '--reason ""' was given, so the refusal says the reason
+    given is empty; without --reason it says only to give one."""
+    given = _run(["set-aside", "EX-001", "--reason", reason, "--store", store])
+    assert given.exit_code == 2 and "the reason given is empty; give --reason TEXT to say why" in given.stderr
+    missing = _run(["restore", "EX-001", "--store", store])
+    assert missing.exit_code == 2 and "give --reason TEXT" in missing.stderr and "empty" not in missing.stderr
 
 
 def test_many_entries_are_shown_as_runs_and_a_multiline_reason_stays_on_one_table_line(store):

@@ -99,8 +99,8 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, assuranc
 @click.option("--page-window", "page_window", type=click.Path(exists=True, dir_okay=False, path_type=Path),
               help="A porosity window ('linkage window --json' output) for the page to draw.")
 @click.option("--lot", default=None, help="The lot this what-if is for; its results, when they arrive, are "
-              "compared with the prediction ('linkage watch'). A stored lot is found under any spelling of it "
-              "(case, dashes) and the what-if recorded under the store's spelling; a lot not made yet is "
+              "compared with the prediction ('linkage watch'). A stored lot is found under a spelling that "
+              "differs only in letter case and dash characters (‐ – — and the like) and the what-if recorded under the store's spelling; a lot not made yet is "
               "recorded as typed (spaces collapsed).")
 @click.option("--product", default=None, help="The product this what-if is for (stated on the sheet and in the "
               "JSON); refused when the model was not trained on it.  [default: the model's product when it was "

@@ -36,8 +36,9 @@ def set_aside(lots, reason, store, as_json):
     Each decision is an audit entry 'set-aside' (who, when, why), sealed like
     every record: 'linkage verify' finds one edited or removed. 'linkage
     lots' shows each lot's state and reason, 'linkage history LOT' and
-    'linkage audit' the decisions. LOT is found under any spelling (case,
-    dashes), as an ingest finds a stored lot.
+    'linkage audit' the decisions. LOT is found under a spelling that differs
+    only in letter case and dash characters (‐ – — and the like), as an
+    ingest finds a stored lot.
 
     Refused (exit code 2, nothing written; every problem in one message)
     without --reason, for a lot the store does not hold (every one named) and
@@ -63,8 +64,8 @@ def restore(lots, reason, store, as_json):
     Refused (exit code 2, nothing written; every problem in one message)
     without --reason, for a lot the store does not hold and for a lot that
     is not set aside; a store without its anchor file is refused (exit code
-    6). LOT is found under any spelling (case, dashes), as an ingest finds a
-    stored lot.
+    6). LOT is found under a spelling that differs only in letter case and
+    dash characters (‐ – — and the like), as an ingest finds a stored lot.
 
     \b
     Example:

@@ -152,8 +152,8 @@ def history(lot, store, as_json):
     SHA-256), and which values changed or were added; a later revision says
     whether it only added (a table, rows, blank cells filled) or changed
     stored values. Decisions to set the lot aside or restore it ('linkage
-    set-aside', 'linkage restore') are shown in time order, with who and why. LOT is found under any spelling of it (case, dashes,
-    spaces around), as an ingest finds a stored lot.
+    set-aside', 'linkage restore') are shown in time order, with who and why. LOT is found under a spelling that differs only in letter case and dash characters
+    (‐ – — and the like) or spaces around, as an ingest finds a stored lot.
 
     \b
     Example:
