@@ -550,7 +550,8 @@ def test_retrain_says_the_challenger_has_fewer_lots_and_what_replaces_the_model(
     """A regression test of the retrain's notes (no outside source). With no new lot but a training lot set aside,
     the challenger is fitted on one lot fewer (said so, not "the same data"), and the rule cannot promote it without
     new lots to judge it by: the note points to 'retrain --force' and 'train'. After a forced promotion the old
-    champion's note is in the past tense: it is no longer the model in service."""
+    champion's note is in the past tense: it is no longer the model in service, and the note of the fewer lots says the
+    promotion was forced in this run instead of pointing to '--force'."""
     path, models, first, lot, _ = aside_lab
     d = json.loads(_run(["retrain", "--store", path, "--models-dir", models, "--json"]).stdout)
     assert d["new_lots"] == [] and not d["promoted"]
@@ -568,6 +569,9 @@ def test_retrain_says_the_challenger_has_fewer_lots_and_what_replaces_the_model(
     notes = " ".join(d["notes"])
     assert f"model {first.model_id}, the champion until this retrain: {lot}" in notes, notes
     assert "the challenger promoted now was fitted without it" in notes and "replaces the model now" not in notes
+    # the forced run says the rule alone would not promote, and that --force did: no hint to give --force again
+    assert "so the rule does not promote it (promoted by --force in this run)" in notes, notes
+    assert "'--force --reason TEXT' does" not in notes
 
 
 @pytest.mark.slow

@@ -305,9 +305,10 @@ def _settled_champion(store_path, models_dir, product: str | None):
     return champion
 
 
-def _no_new_lots_note(set_aside: dict, champion) -> str:
+def _no_new_lots_note(set_aside: dict, champion, force: bool = False) -> str:
     """What the retrain says when no lot is new since the champion: the challenger sees the same lots, or the
-    champion's training lots less those set aside since (the challenger has fewer lots, not the same data)."""
+    champion's training lots less those set aside since (the challenger has fewer lots, not the same data).
+    ``force``: the promotion is forced in this run, so the note says so rather than pointing to --force."""
     from linkage.store import lots_named, set_aside_trained_note
 
     gone = set_aside_trained_note(set_aside, champion.training.get("lots"), champion.model_id)[0]
@@ -315,7 +316,8 @@ def _no_new_lots_note(set_aside: dict, champion) -> str:
         return "no lots beyond the champion's training lots; the challenger sees the same data"
     return (f"no lots beyond the champion's training lots; the challenger is fitted on them less the "
             f"{len(gone)} set aside since ({lots_named(gone)}): {len(gone)} lot{'' if len(gone) == 1 else 's'} "
-            "fewer, and no new lot to judge it by, so the rule does not promote it ('--force --reason TEXT' does)")
+            "fewer, and no new lot to judge it by, so the rule does not promote it "
+            + ("(promoted by --force in this run)" if force else "('--force --reason TEXT' does)"))
 
 
 def retrain(store_path, models_dir, *, product: str | None = None, spec=None, force: bool = False,
@@ -350,7 +352,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
         notes.append(f"the store's {others_text(others)} are left out: the champion is a model of {product!r} "
                      "and the challenger is fitted on its lots only")
     if not new_lots:
-        notes.append(_no_new_lots_note(tables.set_aside, champion))
+        notes.append(_no_new_lots_note(tables.set_aside, champion, force))
     restored = restored_since_training(champion, new_lots, notes, "new since the champion")
     from linkage.decide.watch import revised_since_training
 
