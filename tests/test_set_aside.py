@@ -630,7 +630,7 @@ def test_a_blank_reason_is_said_to_be_empty_not_missing(store, reason):
 def test_many_entries_are_shown_as_runs_and_a_multiline_reason_stays_on_one_table_line(store):
     """Regression tests of the texts (no outside source): the audit entries of a decision on many lots are shown as a
     run ('5–8'), not one by one; a reason with line breaks is shown on one line in the 'lots' and 'audit' tables
-    ('⏎' for each break) and stored unchanged."""
+    and in 'history LOT' ('⏎' for each break) and stored unchanged."""
     reason = "DEV-2026-014: blend error\nwrong excipient lot charged"
     made = _run(["set-aside", "EX-001", "EX-002", "EX-003", "EX-004", "--reason", reason, "--store", store, "--json"])
     ids = [d["audit_id"] for d in json.loads(made.stdout)["decisions"]]
@@ -640,8 +640,8 @@ def test_many_entries_are_shown_as_runs_and_a_multiline_reason_stays_on_one_tabl
     first = ids[-1] + 5  # the four restores, then these four
     assert f"(entries {first}–{first + 3})" in again.stdout, again.stdout
     joined = "DEV-2026-014: blend error ⏎ wrong excipient lot charged"
-    for command in ("lots", "audit"):
-        text = _run([command, "--store", store]).stdout
+    for command in ("lots", "audit", "history EX-001"):  # history: each decision's reason line, on one line too
+        text = _run([*command.split(), "--store", store]).stdout
         assert joined in text, text
         assert not any(line.startswith("wrong excipient") for line in text.splitlines())
     with LotStore(store, create=False) as s:

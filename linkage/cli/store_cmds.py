@@ -152,7 +152,9 @@ def history(lot, store, as_json):
     SHA-256), and which values changed or were added; a later revision says
     whether it only added (a table, rows, blank cells filled) or changed
     stored values. Decisions to set the lot aside or restore it ('linkage
-    set-aside', 'linkage restore') are shown in time order, with who and why. LOT is found under a spelling that differs only in letter case and dash characters
+    set-aside', 'linkage restore') are shown in time order, with who and why
+    (a reason of several lines on one line, '⏎' for each break). LOT is found
+    under a spelling that differs only in letter case and dash characters
     (‐ – — and the like) or spaces around, as an ingest finds a stored lot.
 
     \b
@@ -160,7 +162,7 @@ def history(lot, store, as_json):
       linkage history EX-001
       linkage history EX-001 --store site.db --json
     """
-    from linkage.store import LotStore, change_text
+    from linkage.store import LotStore, change_text, one_line
 
     with LotStore(store, create=False) as lot_store:
         revisions = lot_store.history(lot)
@@ -173,7 +175,7 @@ def history(lot, store, as_json):
         click.echo(f"Revision {rev['revision']}: ingest {rev['ingest_id']}, {rev['at']}, by {rev['user']}"
                    + (f", product {rev['product']}" if rev["product"] else ""))
         if rev.get("reason"):
-            click.echo(f"  reason: {rev['reason']}")
+            click.echo(f"  reason: {one_line(rev['reason'])}")
         if rev["revision"] > 1:
             click.echo("  added to: no stored value changed or removed" if rev["adds_only"] else
                        "  stored values changed or removed")
@@ -185,7 +187,7 @@ def history(lot, store, as_json):
         for event in rev.get("set_aside_events", []):  # decisions made while this revision was in force
             what = "Set aside" if event["action"] == "set-aside" else "Restored (back in use)"
             click.echo(f"{what}: audit entry {event['audit_id']}, {event['at']}, by {event['user']}")
-            click.echo(f"  reason: {event['reason']}")
+            click.echo(f"  reason: {one_line(event['reason'])}")  # stored unchanged ('--json')
 
 
 @click.command()
