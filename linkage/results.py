@@ -583,16 +583,18 @@ def _end(v) -> str:
     return "unbounded" if v is None or abs(v) == float("inf") else f"{v:.4g}"
 
 
-def trained_products_lines(d: dict) -> list[str]:
+def trained_products_lines(d: dict, reader: bool = False) -> list[str]:
     """A what-if's line on a model trained on several products (or on lots without a product name beside
-    them): what it was trained on, since the what-if's product is then not the model's alone."""
+    them): what it was trained on, since the what-if's product is then not the model's alone. ``reader``: for a
+    reader of the sheet, who cannot give an option (the product not stated is said, not asked for)."""
     from linkage.products import is_mixed, trained_on_text
 
     counts = [(p["product"], p["n_lots"]) for p in d.get("trained_products") or []]
     if not is_mixed(counts):
         return []
     return [f"Model {trained_on_text(counts)}"
-            + ("; give --product to say which this what-if is for." if d.get("product") is None else ".")]
+            + ("." if d.get("product") is not None else "; the product was not stated when the what-if was made."
+               if reader else "; give --product to say which this what-if is for.")]
 
 
 def whatif_text(result: WhatIf) -> str:

@@ -185,7 +185,7 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
         from linkage.report.sheet import whatif_html
 
         html_path.parent.mkdir(parents=True, exist_ok=True)
-        write_atomic(html_path, whatif_html(results[0].result).encode("utf-8"))  # whole or not at all
+        write_atomic(html_path, whatif_html(results[0].result, results[0].set_aside_note).encode("utf-8"))  # whole or not at all
     if as_json:
         payload = results[0].to_dict() if from_csv is None else [r.to_dict() for r in results]
         # strict JSON: an unbounded interval end (too few lots) is null; the model's notes say why

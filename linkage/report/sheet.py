@@ -231,7 +231,7 @@ def _probability_all(d: dict) -> dict:
         "point": None if d["p_pass_all"] is None else probability_text(d["p_pass_all"]),
         "bound": at_least(bound["low"]) if case == "promise" else None,
         "assurance": f"{100 * bound['assurance']:g}", "percentile": f"{100 * (1 - bound['assurance']):g}",
-        "judges": list((d.get("judges") or {}).items()),
+        "judges": [(k, limits_text(how)) for k, how in (d.get("judges") or {}).items()],  # ≥/≤, as the limits
         "not_judged": not_judged_text(d["not_modelled_reasons"]) if d.get("not_modelled_reasons") else "",
         "projected_note": PROJECTED_NOTE[0].upper() + PROJECTED_NOTE[1:] if projected else "",
     }
@@ -262,8 +262,9 @@ def _held(d: dict) -> dict | None:
     return {"rule": hp["rule"], "text": held_text(hp)}
 
 
-def whatif_html(result) -> str:
-    """Render a :class:`linkage.decide.whatif.WhatIf` as one HTML page."""
+def whatif_html(result, set_aside_note: str | None = None) -> str:
+    """Render a :class:`linkage.decide.whatif.WhatIf` as one HTML page; ``set_aside_note``: for a lot set aside in
+    the store, what ``linkage predict`` says of it (:class:`linkage.results.Prediction`), put on the sheet too."""
     from linkage.report.page import trained_text
     from linkage.report.templating import Markup, render
     from linkage.results import trained_products_lines
@@ -273,7 +274,9 @@ def whatif_html(result) -> str:
     return str(render(
         "sheet.html.j2", style=Markup(STYLE), model_id=d["model_id"], made_at=trained_text(d["made_at"]),
         trained_at=trained_text(d.get("model_created_at")), version=__version__,
-        made_for=_made_for(d), trained_on=" ".join(trained_products_lines(d)), caution=CAUTION, in_domain=d["in_domain"], no_promise=NO_PROMISE,
+        made_for=_made_for(d), trained_on=" ".join(trained_products_lines(d, reader=True)), caution=CAUTION,
+        set_aside_note=set_aside_note[0].upper() + set_aside_note[1:] if set_aside_note else "",
+        in_domain=d["in_domain"], no_promise=NO_PROMISE,
         domain_reasons=d["domain_reasons"], no_bound=bound.get("reason") or "",
         spec_html=Markup(spec_table_html(d.get("spec"), d.get("attributes"), d.get("not_modelled_reasons"))),
         inputs=[{"name": k, "unit": _unit(k), "value": _fmt(v["value"]), "source": v["source"]}

@@ -28,7 +28,7 @@ def test_an_in_domain_sheet_places_caution_inputs_predictions_and_escapes_the_lo
     d = r.to_dict()
     page = whatif_html(r)
     assert page.startswith("<!DOCTYPE html>\n") and page.endswith("</body></html>\n")
-    assert f"Lot <b>{html.escape(LOT, quote=True)}</b>" in page and LOT not in page
+    assert f"lot <b>{html.escape(LOT, quote=True)}</b>" in page and LOT not in page
     assert f"<b>Caution.</b> {html.escape(CAUTION, quote=True)}" in page
     text = _text(page)
     assert ("Inside the applicability domain" in text) == d["in_domain"]

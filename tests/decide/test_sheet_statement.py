@@ -44,7 +44,7 @@ def test_the_sheet_states_spec_judges_time_points_lot_and_product(scenario, spec
     spec = read_spec(spec_file)
     r = predict_whatif(chain, {"ribbon_porosity": 0.3}, spec=spec, lot="Q26-049", product="QZ-417 200 mg")
     html = whatif_html(r)
-    assert "Lot <b>Q26-049</b>" in html and "product <b>QZ-417 200 mg</b>" in html
+    assert "lot <b>Q26-049</b>" in html and "product <b>QZ-417 200 mg</b>" in html
     assert "site-spec-v3.toml" in html and hashlib.sha256(spec_file.read_bytes()).hexdigest() in html
     for name in ("dissolution_pct", "breaking_force_n", "weight_rsd_pct"):
         row = html[html.find(f"<tr><td>{name}"):]
@@ -77,7 +77,26 @@ def test_predict_lot_and_product_options_reach_json_sheet_and_text(saved_model, 
     d = json.loads(r.stdout)
     assert d["lot"] == "Q26-049" and d["product"] == "QZ-417 200 mg"
     assert d["spec"]["file"] == "site-spec-v3.toml"
-    assert "Lot <b>Q26-049</b>" in sheet.read_text(encoding="utf-8")
+    assert "lot <b>Q26-049</b>" in sheet.read_text(encoding="utf-8")
     text = runner.invoke(cli, common, catch_exceptions=False).stdout
     assert text.startswith("For lot Q26-049, product QZ-417 200 mg:")
     assert "Spec site-spec-v3.toml, SHA-256 " in text and "dissolution modelled at 30 min" in text
+
+
+def test_the_sheet_speaks_to_its_reader_judges_with_signs_and_lower_case_lot(scenario, spec_file):
+    """A regression test of the sheet's labels (no outside source): the 'Judged:' line writes its limits with ≥/≤ as
+    the limits column does, 'lot: not stated' mid-line is lower case, and a model of two products with the product
+    not given says so for a reader of the page, with no command-line option in it (the terminal keeps its hint)."""
+    _, chain, _, _ = scenario
+    two = replace(chain, training={**chain.training, "products": ["QZ-417 200 mg", "QZ-417 100 mg"],
+                                   "product_lots": {"QZ-417 200 mg": 8, "QZ-417 100 mg": 4}})
+    r = predict_whatif(two, {"ribbon_porosity": 0.3}, spec=read_spec(spec_file))
+    page = whatif_html(r)
+    judged = page[page.find("Judged:"):]
+    judged = judged[:judged.find("</p>")]
+    assert "lot mean ≥ 120" in judged and "≤ 2" in judged and ">=" not in judged and "<=" not in judged, judged
+    assert "What-if made for: lot: not stated" in page and "Lot: not stated" not in page
+    assert "the product was not stated when the what-if was made" in page and "--product" not in page
+    from linkage.results import trained_products_lines
+
+    assert "give --product to say which" in " ".join(trained_products_lines(r.to_dict()))
