@@ -10,6 +10,7 @@ tampered with is the hash chain of Haber & Stornetta (1991, J. Cryptology 3:99-1
 
 from __future__ import annotations
 
+import html
 import json
 import shutil
 import sqlite3
@@ -659,17 +660,21 @@ def test_an_invisible_character_is_shown_escaped_once(store):
 @pytest.mark.slow
 def test_a_whatif_for_a_set_aside_lot_says_the_watch_will_not_compare_it(aside_lab, tmp_path):
     """A regression test of the what-if's note (no outside source): 'predict --lot' on a set-aside lot is recorded as
-    before, and says the lot is set aside and that the watch leaves it out."""
+    before, and says the lot is set aside and that the watch leaves it out, on the terminal and on its --html sheet."""
     path, models, _, lot, _ = aside_lab
     store = tmp_path / "lab.db"  # a copy: the what-if is recorded
     shutil.copy(path, store)
     shutil.copy(seal.anchor_path(path), seal.anchor_path(store))
+    sheet = tmp_path / "s.html"
     result = _run(["predict", "--lot", lot.lower(), "--store", store, "--models-dir", models, "--set",
-                   "ribbon_porosity=0.3"])
+                   "ribbon_porosity=0.3", "--html", sheet])
     assert result.exit_code == 0, result.output
     text = " ".join(result.stdout.split())
     assert f"Note: lot {lot} is set aside (since" in text and "'linkage watch' leaves the lot out" in text
     assert "this what-if is recorded for it" in text
+    # the sheet says it too (the what-if page takes no lot, so it has nothing to say of one)
+    page = html.unescape(sheet.read_text(encoding="utf-8"))
+    assert f"<b>Lot set aside.</b> Lot {lot} is set aside (since" in page and "leaves the lot out" in page
     d = json.loads(_run(["predict", "--lot", lot, "--store", store, "--models-dir", models, "--set",
                          "ribbon_porosity=0.3", "--json"]).stdout)
     assert d["lot_set_aside"] is True and lot in d["lot_set_aside_note"]
