@@ -275,6 +275,9 @@ def lot_ticks(ax, lots: Sequence, *, fontsize: float = LOT_TICK_SIZE) -> list[in
 
 #: the legend entry of the lots drawn hollow in the per-attribute figures
 SET_ASIDE_LABEL = "set aside since training"
+#: the drawing order of those hollow points: above the filled points (matplotlib draws collections at zorder 1),
+#: so that a lot set aside is not hidden under the lots drawn after its group
+HOLLOW_ZORDER = 3
 
 
 def _scatter_groups(ax, x, y, groups, *, size=28, alpha=0.85, legend_title=None, max_legend=12, marked=None):
@@ -297,7 +300,7 @@ def _scatter_groups(ax, x, y, groups, *, size=28, alpha=0.85, legend_title=None,
                    edgecolors="white", linewidths=0.4, label=label)
         if (m & hollow).any():
             ax.scatter(x[m & hollow], y[m & hollow], s=size * 1.4, facecolors="none", edgecolors=colour,
-                       marker=marker, linewidths=1.3)
+                       marker=marker, linewidths=1.3, zorder=HOLLOW_ZORDER)  # on top of every group's filled points
     if hollow.any():  # one legend entry for the hollow points of every group
         ax.scatter([], [], s=size * 1.4, facecolors="none", edgecolors=BLACK, marker="o", linewidths=1.3,
                    label=SET_ASIDE_LABEL)

@@ -80,6 +80,14 @@ def test_the_figure_marks_it_set_aside_and_keeps_the_compactors_colours(lab):
         legend = ax.get_legend()
         labels = [t.get_text() for t in legend.get_texts()]
         assert F.SET_ASIDE_LABEL in labels and "(none)" not in labels
+        # the hollow marker is drawn on top of every filled marker (a regression test: it was drawn beneath the
+        # groups drawn after its own); hollow: a scatter with no (or a transparent) face and points in it
+        from matplotlib.collections import PathCollection  # what ax.scatter draws
+
+        drawn = [c for c in ax.collections if isinstance(c, PathCollection) and len(c.get_offsets())]
+        hollow = [c for c in drawn if not len(c.get_facecolors()) or c.get_facecolors()[0][3] == 0]
+        filled = [c for c in drawn if c not in hollow]
+        assert hollow and filled and min(c.get_zorder() for c in hollow) > max(c.get_zorder() for c in filled)
     # the compactors' styles are those of the lots without the set-aside one: the same colour for the same
     # compactor as in a report of the same store before the lot was set aside
     assert F.group_styles(sorted(set(groups))) == F.group_styles(sorted(set(before["compactor"].astype(str))))
