@@ -579,7 +579,8 @@ def test_retrain_says_the_challenger_has_fewer_lots_and_what_replaces_the_model(
 def test_a_lot_restored_after_training_is_said_to_be_restored_not_new(trained_lab, tmp_path):
     """A regression test of the watch's and the retrain's notes (no outside source): a lot set aside when the model
     was trained and restored since is among the lots since training (the model never saw it), and the commands say
-    why (a note, and ``restored_since_training`` in the JSON) instead of counting it as new without a word."""
+    why (a note, and ``restored_since_training`` in the JSON) instead of counting it as new without a word; the report
+    says why in 'At a glance' and in its table of lots a model left out."""
     store, _, _, lots = trained_lab
     path, models = tmp_path / "lab.db", tmp_path / "models"
     shutil.copy(store, path)
@@ -595,6 +596,17 @@ def test_a_lot_restored_after_training_is_said_to_be_restored_not_new(trained_la
     decided = json.loads(_run(["retrain", "--store", path, "--models-dir", models, "--json"]).stdout)
     assert decided["new_lots"] == [lot] and decided["restored_since_training"] == [lot]
     assert any("restored since" in n for n in decided["notes"])
+    # the report says it too: 'At a glance' gives the reason of the extra lot, and the table of lots a model left
+    # out names it as set aside when the model was trained, not as added or changed later
+    from linkage.models import registry
+    from linkage.report.html import _exclusions, _glance_restored
+
+    chain, table = registry.load(models, watched["model_id"]), api.assemble(path)
+    assert _glance_restored(chain, table["lot"]) == (f"1 lot of the table ({lot}) was set aside when the model was "
+                                                     "trained and has been restored since: the model was fitted "
+                                                     "without it")
+    left_out = html.unescape(_exclusions(chain, table))
+    assert "set aside when the model was trained, restored since" in left_out and "added or changed" not in left_out
 
 
 @pytest.mark.parametrize("command", ["assemble", "train", "watch", "retrain", "report", "plan", "transfer", "running"])

@@ -549,7 +549,29 @@ def _glance(b, chain, table, spec, window, revised=(), store_cautions=(), set_as
                 low_edge=_edge_text(window.low.limited_by) if window is not None else None,
                 high_edge=_edge_text(window.high.limited_by) if window is not None else None,
                 revised=len(revised), revised_text=_revised_text(revised), store_cautions=list(store_cautions),
-                aside_text=_glance_aside(chain, set_aside or {})))
+                aside_text=". ".join(t for t in (_glance_aside(chain, set_aside or {}),
+                                                _glance_restored(chain, table["lot"])) if t)))
+
+
+def _restored_lots(chain, lots) -> list[str]:
+    """The ``lots`` the model was not trained on because they were set aside when it was trained (its
+    ``training.set_aside_lots``), in use again: restored since (:func:`linkage.store.restored_since_training`)."""
+    from linkage.store import restored_since_training
+
+    trained = {str(lot) for lot in chain.training.get("lots") or []}
+    return restored_since_training(chain, [str(lot) for lot in lots if str(lot) not in trained], [])
+
+
+def _glance_restored(chain, lots) -> str:
+    """Why the table holds more lots than the model was trained on, for the lots set aside when it was trained and
+    restored since ('' when there are none); a sentence without its full stop, as :func:`_glance_aside` writes one."""
+    restored = _restored_lots(chain, lots)
+    if not restored:
+        return ""
+    one = len(restored) == 1
+    return (f"{len(restored)} lot{'' if one else 's'} of the table ({_lots_text(restored)}) "
+            f"{'was' if one else 'were'} set aside when the model was trained and {'has' if one else 'have'} been "
+            f"restored since: the model was fitted without {'it' if one else 'them'}")
 
 
 def _glance_aside(chain, set_aside: dict) -> str:
@@ -711,6 +733,7 @@ def _ranges(table) -> list[list[str]]:
 def _exclusions(chain, table) -> str:
     t = _by_lot(table)
     trained = dict(zip(t.index, chain.trained_on(t.index)))
+    restored = set(_restored_lots(chain, t.index))  # not new: set aside when the model was trained
     rows = []
     for name, target in chain.targets.items():
         used = set(str(v) for v in target.lots)
@@ -718,7 +741,9 @@ def _exclusions(chain, table) -> str:
         for lot in t.index:
             if lot in used:
                 continue
-            if not trained[lot]:
+            if lot in restored:
+                why = "set aside when the model was trained, restored since"
+            elif not trained[lot]:
                 why = "not in the data the model was trained on (added or changed later)"
             else:
                 need = [name] + [c for c in target.inputs]
