@@ -439,7 +439,7 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
     if simulated(design):  # the watch's design, simulated here: worth keeping for the next report
         computed["mewma"] = [design]
     _watch_section(b, chain, table, window, watched)
-    _domain_section(b, chain, table)
+    _domain_section(b, chain, table, set_aside or {})
     _model_card(b, chain, spec, window, revised)
     _cautions(b, chain, store_cautions)
 
@@ -572,6 +572,20 @@ def _glance_restored(chain, lots) -> str:
     return (f"{len(restored)} lot{'' if one else 's'} of the table ({_lots_text(restored)}) "
             f"{'was' if one else 'were'} set aside when the model was trained and {'has' if one else 'have'} been "
             f"restored since: the model was fitted without {'it' if one else 'them'}")
+
+
+def _domain_aside_text(chain, set_aside: dict) -> str:
+    """What the domain section says of the model's training lots set aside since training: they are not in the
+    table, so its 'training lots' count and its charts leave them out ('' when there are none)."""
+    from linkage.store import set_aside_trained_note
+
+    lots = set_aside_trained_note(set_aside, chain.training.get("lots"), chain.model_id)[0]
+    if not lots:
+        return ""
+    one = len(lots) == 1
+    return (f"{len(lots)} of the model's training lots {'is' if one else 'are'} set aside since training "
+            f"({_lots_text(lots)}): not in this report's table, so not counted among the training lots below nor "
+            "drawn in the charts.")
 
 
 def _glance_aside(chain, set_aside: dict) -> str:
@@ -1333,11 +1347,14 @@ def _watch_section(b, chain, table, window, result):
     b.add(_part("watch", "alarms", alarms=list(result.alarms), shown=40, n_new=len(result.new_lots)))
 
 
-def _domain_section(b, chain, table):
+def _domain_section(b, chain, table, set_aside=None):
     from linkage.report import figures as F
 
     b.section("domain", "Applicability domain of the training lots")
     b.add(_part("watch", "domain_intro"))
+    gone = _domain_aside_text(chain, set_aside or {})
+    if gone:
+        b.add(_part("blocks", "para", text=gone))
     panels = []
     rows = []
     t = _by_lot(table)

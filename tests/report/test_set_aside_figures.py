@@ -118,3 +118,17 @@ def test_at_a_glance_says_why_the_table_has_fewer_lots_than_the_model(lab):
     assert _glance_aside(chain, {}) == ""
     other = {"NOT-TRAINED": {"reason": REASON}}
     assert _glance_aside(chain, other).endswith("none of them was among the model's training lots")
+
+
+def test_the_domain_section_says_the_set_aside_training_lot_is_not_counted(lab):
+    """A regression test of the domain section's text (no outside source): its 'training lots' count is of the
+    table's lots, so a training lot set aside since training is named as not counted nor drawn."""
+    from linkage.report.html import _domain_aside_text
+
+    store, chain, _, lot = lab
+    with LotStore(store, create=False) as s:
+        aside = s.set_aside_lots()
+    assert _domain_aside_text(chain, aside) == (f"1 of the model's training lots is set aside since training ({lot}): "
+                                                "not in this report's table, so not counted among the training "
+                                                "lots below nor drawn in the charts.")
+    assert _domain_aside_text(chain, {}) == ""
