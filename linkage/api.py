@@ -593,7 +593,26 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
               "confidence": confidence, "seed": seed, "assurance": assurance}
     recorded = will_record and record_entry(store, "window", model_id=result.model_id, inputs=inputs,
                                             outputs=result.to_dict(curve=False))
-    return Window(result=result, recorded=recorded, store=None if store is None else Path(store))
+    aside, note = _set_aside_in_training(store, chain)
+    return Window(result=result, recorded=recorded, store=None if store is None else Path(store),
+                  set_aside_in_training=tuple(aside), set_aside_note=note)
+
+
+def _set_aside_in_training(store, chain) -> tuple[list[str], str | None]:
+    """The lots of ``chain``'s training set that the store now holds set aside, and the note that says so
+    (:func:`linkage.store.set_aside_trained_note`, as ``watch`` and ``retrain`` say it); none where there is no
+    store or it cannot be read as it is (an older store is not upgraded for a note)."""
+    from linkage.exceptions import LinkageError
+    from linkage.store import LotStore, set_aside_trained_note
+
+    if store is None or not Path(store).is_file():
+        return [], None
+    try:
+        with LotStore(store, create=False, read_only=True) as lot_store:
+            aside = lot_store.set_aside_lots()
+    except LinkageError:
+        return [], None
+    return set_aside_trained_note(aside, chain.training.get("lots"), chain.model_id)
 
 
 def transfer(store=DEFAULT_STORE, *, roll_diameter_mm: float, roll_width_mm: float, roll_gap_mm: float,

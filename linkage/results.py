@@ -508,13 +508,18 @@ class Window(_Result):
     result: WindowResult
     recorded: bool = False
     store: Path | None = None
+    #: the model's training lots that the store now holds set aside, and what ``watch`` says of them
+    set_aside_in_training: tuple[str, ...] = ()
+    set_aside_note: str | None = None
 
     def to_dict(self, curve: bool = True) -> dict:
-        """What ``linkage window --json`` prints."""
-        return self.result.to_dict(curve=curve)
+        """What ``linkage window --json`` prints (with ``set_aside_in_training``: the model's training lots set
+        aside since)."""
+        return {**self.result.to_dict(curve=curve), "set_aside_in_training": list(self.set_aside_in_training)}
 
     def text(self) -> str:
-        return window_text(self.result)
+        text = window_text(self.result)
+        return text if self.set_aside_note is None else f"{text}\nNote: {self.set_aside_note}."
 
     def summary(self) -> pd.DataFrame:
         """Two rows, ``low`` and ``high`` (index ``edge``): the window's

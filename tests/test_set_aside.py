@@ -692,3 +692,23 @@ def test_a_whatif_for_a_set_aside_lot_says_the_watch_will_not_compare_it(aside_l
     d = json.loads(_run(["predict", "--lot", lot, "--store", store, "--models-dir", models, "--set",
                          "ribbon_porosity=0.3", "--json"]).stdout)
     assert d["lot_set_aside"] is True and lot in d["lot_set_aside_note"]
+
+
+@pytest.mark.slow
+def test_the_window_of_a_model_fitted_on_a_lot_now_set_aside_says_so(aside_lab):
+    """``window`` reads the model, not the store's lots, but says which of its training lots the store now holds
+    set aside, as ``watch`` does (text and ``--json`` ``set_aside_in_training``); with no store, nothing. A
+    regression test of a label: no outside source."""
+    from linkage.synthetic import WINDOW_SPEC, spec_toml
+
+    path, models, first, lot, folder = aside_lab
+    spec = folder / "window-spec.toml"
+    spec.write_text(spec_toml(WINDOW_SPEC), encoding="utf-8")
+    args = ["window", "--store", path, "--models-dir", models, "--model", first.model_id, "--spec", spec,
+            "--draws", "200", "--no-record"]
+    d = json.loads(_run([*args, "--json"]).stdout)
+    assert d["set_aside_in_training"] == [lot]
+    text = _run(args).stdout
+    assert f"Note: 1 lot now set aside was in the training set of model {first.model_id}: {lot}" in text
+    alone = api.window(spec, store=None, models_dir=models, model=first.model_id, n_draws=200)
+    assert alone.to_dict(curve=False)["set_aside_in_training"] == [] and "set aside" not in alone.text()
