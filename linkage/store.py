@@ -1831,7 +1831,10 @@ def refuse_unanchored(path) -> None:
     """Refuse (:class:`StoreIntegrityError`, exit code 6) the store at ``path`` when it holds seals but no
     anchor file, as its first write would be refused (:meth:`LotStore._write`): for a command that writes to
     the store only at the end of its work, called before that work. No store (no file, an empty one), nothing
-    to refuse."""
+    to refuse. A folder is refused (:class:`StorePathError`, exit code 2), as opening it would be, so that the
+    work is not done before the record is refused."""
+    if path is not None and Path(path).is_dir():
+        raise StorePathError(f"{path} is a folder, not a lot store file; nothing was written")
     if path is None or not Path(path).is_file() or Path(path).stat().st_size == 0:
         return
     with LotStore(path, create=False, for_writing=True):

@@ -78,6 +78,25 @@ def test_a_named_store_that_does_not_exist_is_refused_and_nothing_written(run, s
     assert _kept_results(saved_model) == kept  # the window kept nothing beside the model either
 
 
+def test_a_named_store_that_is_a_folder_is_refused_before_the_work(run, saved_model, tmp_path):
+    """A store named that is a folder: the command line refuses it as an option value (click's path check), and
+    the Python call, which was refused only when recording after the window had been computed and kept beside the
+    model, is now refused before any work, nothing written."""
+    models_dir, model_id, spec_path = saved_model
+    folder = tmp_path / "lots.db"
+    folder.mkdir()
+    kept = _kept_results(saved_model)
+    r = run("window", "--spec", spec_path, "--draws", 300, "--store", folder)
+    assert r.exit_code == 2 and "is a directory" in r.stderr, r.output
+    for call in (lambda: api.window(spec_path, store=folder, models_dir=models_dir, model=model_id, n_draws=300),
+                 lambda: api.whatif({"roll_force_kn_per_cm": 9.0}, store=folder, models_dir=models_dir,
+                                     model=model_id)):
+        with pytest.raises(StorePathError, match="is a folder, not a lot store file"):
+            call()
+    assert list(folder.iterdir()) == []
+    assert _kept_results(saved_model) == kept  # the window kept nothing beside the model
+
+
 def test_a_store_named_by_the_variable_is_refused_as_one_named_by_the_option(run, saved_model, tmp_path, monkeypatch):
     _, _, spec_path = saved_model
     missing = tmp_path / "typo.db"
