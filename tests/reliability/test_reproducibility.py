@@ -56,7 +56,7 @@ from linkage.cli.main import cli
 from linkage.models import registry
 
 store, models, chain, jobs, out = sys.argv[1:6]
-RUN_FIELDS = {"model_id", "created_at", "made_at", "saved_at"}
+RUN_FIELDS = {"model_id", "created_at", "model_created_at", "made_at", "saved_at"}  # the times and ids of a run
 
 
 def strip(obj):
