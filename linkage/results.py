@@ -519,7 +519,12 @@ class Window(_Result):
 
     def text(self) -> str:
         text = window_text(self.result)
-        return text if self.set_aside_note is None else f"{text}\nNote: {self.set_aside_note}."
+        if self.set_aside_note is None:
+            return text
+        note = f"Note: {self.set_aside_note}."
+        if not text.endswith(CAUTION):
+            return f"{text}\n{note}"
+        return f"{text.removesuffix(CAUTION).rstrip()}\n{note}\n{CAUTION}"  # the caution ends every text
 
     def summary(self) -> pd.DataFrame:
         """Two rows, ``low`` and ``high`` (index ``edge``): the window's

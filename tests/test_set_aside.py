@@ -21,7 +21,7 @@ import pandas as pd
 import pytest
 from click.testing import CliRunner
 
-from linkage import api, seal
+from linkage import CAUTION, api, seal
 from linkage.assemble import assemble
 from linkage.cli.main import cli
 from linkage.exceptions import UsageError
@@ -710,5 +710,6 @@ def test_the_window_of_a_model_fitted_on_a_lot_now_set_aside_says_so(aside_lab):
     assert d["set_aside_in_training"] == [lot]
     text = _run(args).stdout
     assert f"Note: 1 lot now set aside was in the training set of model {first.model_id}: {lot}" in text
+    assert text.rstrip().endswith(CAUTION)  # the note comes before the caution, as in every text
     alone = api.window(spec, store=None, models_dir=models, model=first.model_id, n_draws=200)
     assert alone.to_dict(curve=False)["set_aside_in_training"] == [] and "set aside" not in alone.text()
