@@ -558,8 +558,9 @@ def _restored_lots(chain, lots) -> list[str]:
     ``training.set_aside_lots``), in use again: restored since (:func:`linkage.store.restored_since_training`)."""
     from linkage.store import restored_since_training
 
-    trained = {str(lot) for lot in chain.training.get("lots") or []}
-    return restored_since_training(chain, [str(lot) for lot in lots if str(lot) not in trained], [])
+    lots = [str(lot) for lot in lots]
+    new = [lot for lot, trained in zip(lots, chain.trained_on(lots)) if not trained]
+    return restored_since_training(chain, new, [])
 
 
 def _glance_restored(chain, lots) -> str:
