@@ -758,23 +758,30 @@ def _lot_spellings(lots, store) -> list[str | None]:
     (:func:`linkage.lotid.lot_key`; ``q26-005`` is ``Q26-005``), else as the
     reader would read it (a lot not made yet; a later ingest joins up by the
     same key). An id with an invisible character is refused."""
+    return _stored_lots(lots, store)[0]
+
+
+def _stored_lots(lots, store) -> tuple[list[str | None], dict]:
+    """:func:`_lot_spellings` of ``lots``, and those of them the store holds set aside now (lot -> the decision in
+    force), read in one opening of the store."""
     from linkage.lotid import reader_spelling
 
     spelled = [None if lot is None else reader_spelling(lot) for lot in lots]
     if store is None or not Path(store).exists() or all(lot is None for lot in spelled):
-        return spelled
+        return spelled, {}
     from linkage.store import LotStore
 
     with LotStore(store, create=False) as s:
-        return [None if lot is None else s.stored_spelling(lot) or lot for lot in spelled]
+        spelled = [None if lot is None else s.stored_spelling(lot) or lot for lot in spelled]
+        aside = s.set_aside_lots()
+    return spelled, {lot: aside[lot] for lot in spelled if lot in aside}
 
 
 def _recorded_whatifs(results, lots, store, will_record: bool = True) -> list[WhatIfResult]:
     """The what-ifs, each stated for its lot in the store's spelling (read from the store whenever it exists)
     and, when ``will_record`` (:func:`recording`), recorded with its prediction."""
     out = []
-    spelled = _lot_spellings(lots, store)
-    aside = _lots_set_aside(spelled, store)
+    spelled, aside = _stored_lots(lots, store)
     for r, lot in zip(results, spelled):
         r.lot = lot  # stated on the result and its sheet, as recorded
         d = r.to_dict()
@@ -784,17 +791,6 @@ def _recorded_whatifs(results, lots, store, will_record: bool = True) -> list[Wh
                                 set_aside_note=_set_aside_whatif_note(lot, aside[lot], recorded) if lot in aside
                                 else None))
     return out
-
-
-def _lots_set_aside(lots, store) -> dict:
-    """The ``lots`` (stored spellings) that are set aside in ``store`` now: lot -> the decision in force."""
-    if store is None or not Path(store).exists() or all(lot is None for lot in lots):
-        return {}
-    from linkage.store import LotStore
-
-    with LotStore(store, create=False) as s:
-        aside = s.set_aside_lots()
-    return {lot: aside[lot] for lot in lots if lot in aside}
 
 
 def _set_aside_whatif_note(lot: str, decision: dict, recorded: bool) -> str:

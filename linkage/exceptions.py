@@ -96,6 +96,18 @@ def shown_value(value: object) -> str:
     return str(value)
 
 
+def shown_time(at) -> str:
+    """A recorded time (ISO 8601; one without an offset is UTC, as linkage records it) as the texts show it:
+    ``YYYY-MM-DD HH:MM:SS UTC``; text that is no ISO 8601 time as it is (the set-aside texts, the report's
+    heading, the what-if page and sheet)."""
+    try:
+        when = dt.datetime.fromisoformat(str(at))
+    except ValueError:
+        return str(at)
+    when = when.replace(tzinfo=dt.timezone.utc) if when.tzinfo is None else when.astimezone(dt.timezone.utc)
+    return f"{when:%Y-%m-%d %H:%M:%S} UTC"
+
+
 class InputError(LinkageError, ValueError):
     """Bad input: every problem of a file (or of a run) at once. Exit code 2."""
 

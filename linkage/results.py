@@ -893,7 +893,8 @@ class SetAside(_Result):
                 "decisions": list(self.decisions), "set_aside_lots": list(self.set_aside_now)}
 
     def text(self) -> str:
-        from linkage.store import SET_ASIDE, id_runs, lots_named, one_line, shown_time
+        from linkage.exceptions import shown_time
+        from linkage.store import SET_ASIDE, id_runs, lots_named, one_line
 
         d = self.decisions
         lots = lots_named([x["lot"] for x in d])

@@ -75,7 +75,7 @@ from typing import TYPE_CHECKING, Iterator
 from linkage import plausible as _plausible
 from linkage import seal as _seal
 from linkage.exceptions import (InputError, StoreBusyError, StoreError, StoreIntegrityError, StorePathError,
-                                 UsageError)
+                                 UsageError, shown_time)
 from linkage.lotid import lot_key, reader_spelling
 from linkage.schema import DATETIME, NUMBER, TABLES
 from linkage.store_rows import LotTable, OnFirstUse, canon_row, encode_table, read_row_texts, write_row_blocks
@@ -462,19 +462,6 @@ def set_aside_needs_reason(action: str, ending: str = " Nothing was written.", r
     empty = "the reason given is empty; " if isinstance(reason, str) else ""
     return (f"'linkage {action}' {what} on the record: {empty}give --reason TEXT to say why (for example the deviation "
             "number and the assignable cause)" + ("." + ending if ending else ""))
-
-
-def shown_time(at) -> str:
-    """A stored time (ISO 8601 with its offset) as the texts show it: 'YYYY-MM-DD HH:MM:SS UTC'; the stored text
-    as it is where it does not parse."""
-    from datetime import datetime, timezone
-
-    try:
-        t = datetime.fromisoformat(str(at))
-    except ValueError:
-        return str(at)
-    t = t.replace(tzinfo=timezone.utc) if t.tzinfo is None else t.astimezone(timezone.utc)
-    return t.strftime("%Y-%m-%d %H:%M:%S UTC")
 
 
 def decision_shown(decision: dict) -> str:

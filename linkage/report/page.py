@@ -222,18 +222,10 @@ def trained_on_line(lean) -> str | None:
 
 def trained_text(created_at: str | None) -> str:
     """When a model was trained, as the page shows it: to the second, in UTC, and saying so
-    (``2026-12-05 13:40:01 UTC``; the model records it to the microsecond). A time without a zone is the
-    registry's, which writes UTC; text that is no ISO 8601 time is shown as it is."""
-    from datetime import datetime, timezone
+    (``2026-12-05 13:40:01 UTC``; the model records it to the microsecond; :func:`linkage.exceptions.shown_time`)."""
+    from linkage.exceptions import shown_time
 
-    if created_at is None:
-        return "at a time not recorded"
-    try:
-        when = datetime.fromisoformat(str(created_at))
-    except ValueError:
-        return str(created_at)
-    when = when.replace(tzinfo=timezone.utc) if when.tzinfo is None else when.astimezone(timezone.utc)
-    return f"{when:%Y-%m-%d %H:%M:%S} UTC"
+    return "at a time not recorded" if created_at is None else shown_time(created_at)
 
 
 def _settings_payload(lean) -> list[dict]:
