@@ -529,11 +529,11 @@ def _set_aside_state(c) -> dict[str, dict]:
 LOTS_NAMED = 12
 
 
-def lots_named(lots) -> str:
-    """The first :data:`LOTS_NAMED` lot ids, and how many more: 'A, B, C and 3 more' (the set-aside texts)."""
+def lots_named(lots, limit: int = LOTS_NAMED) -> str:
+    """The first ``limit`` lot ids, and how many more: 'A, B, C and 3 more' (the set-aside texts, the report's)."""
     lots = [str(lot) for lot in lots]
-    more = len(lots) - LOTS_NAMED
-    return ", ".join(lots[:LOTS_NAMED]) + (f" and {more} more" if more > 0 else "")
+    more = len(lots) - limit
+    return ", ".join(lots[:limit]) + (f" and {more} more" if more > 0 else "")
 
 
 def id_runs(ids, shown: int = 6) -> str:

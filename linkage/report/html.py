@@ -134,10 +134,10 @@ def _tiny_to_zero(value, scale):
 
 
 def _lots_text(lots, limit: int = 12) -> str:
-    """The first ``limit`` lots, and how many more (plain text)."""
-    lots = [str(v) for v in lots]
-    more = len(lots) - limit
-    return ", ".join(lots[:limit]) + (f" and {more} more" if more > 0 else "")
+    """The first ``limit`` lots, and how many more (plain text; :func:`linkage.store.lots_named`)."""
+    from linkage.store import lots_named
+
+    return lots_named(lots, limit)
 
 
 def _limit_text(limit) -> str:
