@@ -321,11 +321,11 @@ def _preview_ingest(folder: Path, store: Path, exists: bool, *, reason: str | No
 def _preview_store(stack: contextlib.ExitStack, store: Path, exists: bool):
     """The store a preview decides on, entered on ``stack``: the store itself opened for reading only; for a
     store of an earlier schema that needs its upgrade to be read (schema 1), an upgraded copy in a temporary
-    folder (``store.backup_copy``), as the ingest would upgrade the store before deciding; for a store that
+    folder (``store.upgraded_copy``), as the ingest would upgrade the store before deciding; for a store that
     does not exist, an empty one there. The temporary folder is removed when ``stack`` closes."""
     import tempfile
 
-    from linkage.store import LotStore, StoreNeedsUpgrade, backup_copy
+    from linkage.store import LotStore, StoreNeedsUpgrade, upgraded_copy
 
     if exists:
         try:
@@ -334,9 +334,8 @@ def _preview_store(stack: contextlib.ExitStack, store: Path, exists: bool):
             if not (os.access(store, os.W_OK) and os.access(store.parent, os.W_OK)):
                 exc.ingest_refusal = True  # the ingest can neither upgrade it nor write to it: its own refusal
                 raise
-        scratch = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="linkage-preview-")))
-        backup_copy(store, scratch / store.name)
-        return stack.enter_context(LotStore(scratch / store.name, create=False))
+            version = exc.version
+        return upgraded_copy(stack, store, version)
     if store.is_dir() or not store.parent.is_dir():
         with _ingest_refusal():
             LotStore(store)  # raises the refusal of a first ingest (StorePathError) before it makes anything
@@ -363,10 +362,10 @@ def assemble(store=DEFAULT_STORE, *, product: str | None = None, spec=None,
     Q for the USP <711> verdict are used."""
     from linkage.assemble import assemble as assemble_table
     from linkage.exceptions import InsufficientDataError
-    from linkage.store import LotStore, current_tables_of
+    from linkage.store import current_tables_of, reading
 
     spec = _spec(spec)
-    with LotStore(store, create=False) as lot_store:
+    with reading(store) as lot_store:  # an older store read as it is, not upgraded (transfer and plan: upgraded before)
         tables = current_tables_of(lot_store, product)
     if not tables:
         raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
@@ -601,14 +600,14 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
 def _set_aside_in_training(store, chain) -> tuple[list[str], str | None]:
     """The lots of ``chain``'s training set that the store now holds set aside, and the note that says so
     (:func:`linkage.store.set_aside_trained_note`, as ``watch`` and ``retrain`` say it); none where there is no
-    store or it cannot be read as it is (an older store is not upgraded for a note)."""
+    store or it cannot be read (an older store is not upgraded for a note: :func:`linkage.store.reading`)."""
     from linkage.exceptions import LinkageError
-    from linkage.store import LotStore, set_aside_trained_note
+    from linkage.store import reading, set_aside_trained_note
 
     if store is None or not Path(store).is_file():
         return [], None
     try:
-        with LotStore(store, create=False, read_only=True) as lot_store:
+        with reading(store) as lot_store:
             aside = lot_store.set_aside_lots()
     except LinkageError:
         return [], None
@@ -769,9 +768,9 @@ def _stored_lots(lots, store) -> tuple[list[str | None], dict]:
     spelled = [None if lot is None else reader_spelling(lot) for lot in lots]
     if store is None or not Path(store).exists() or all(lot is None for lot in spelled):
         return spelled, {}
-    from linkage.store import LotStore
+    from linkage.store import reading
 
-    with LotStore(store, create=False) as s:
+    with reading(store) as s:  # recording: upgraded before (recording); --no-record: an older store read as it is
         spelled = [None if lot is None else s.stored_spelling(lot) or lot for lot in spelled]
         aside = s.set_aside_lots()
     return spelled, {lot: aside[lot] for lot in spelled if lot in aside}
@@ -1014,9 +1013,9 @@ def _report_lots(store, product, chain):
     the report), and the process rows of the lots set aside since ``chain`` was trained on them (drawn where the
     model's cross-validation results hold them: :func:`linkage.report.html.set_aside_training_rows`)."""
     from linkage.report.html import set_aside_training_rows
-    from linkage.store import LotStore, current_tables_of
+    from linkage.store import current_tables_of, reading
 
-    with LotStore(store, create=False) as lot_store:
+    with reading(store) as lot_store:  # the report records nothing in the store: an older one is not upgraded
         tables = current_tables_of(lot_store, product)
         lots = lot_store.lots(product=product, in_use=True)  # as the table: the lots in use
         others, store_cautions = lot_store.other_products(product), lot_store.cautions()  # said in the report
@@ -1230,9 +1229,9 @@ def audit(store=DEFAULT_STORE, *, lot: str | None = None) -> pd.DataFrame:
     does not hold and no entry names is refused (``UsageError``, exit code 2)."""
     import pandas as pd
 
-    from linkage.store import LotStore
+    from linkage.store import reading
 
-    with LotStore(store, create=False) as s:
+    with reading(store) as s:
         rows = s.audit(lot, with_ingests=True, require_lot=True)
     return pd.DataFrame(rows, columns=["id", "at", "user", "action", "lot", "model_id", "inputs", "outputs"])
 

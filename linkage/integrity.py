@@ -82,7 +82,9 @@ def verify_record(store: Path | None, models_dir: Path | None, *, registry_requi
     :class:`~linkage.exceptions.ModelNotFoundError` (exit code 2) before anything is checked, as every command
     that reads models refuses it; with ``registry_required=False`` (``linkage verify`` without
     ``--models-dir``: the default folder) the store alone is checked and ``models_not_checked`` says why."""
-    from linkage.store import REANCHOR_NEEDS_REASON, LotStore, given_reason
+    from contextlib import ExitStack
+
+    from linkage.store import REANCHOR_NEEDS_REASON, LotStore, given_reason, open_to_read
 
     if reanchor_reason is not None and given_reason(reanchor_reason) is None:
         raise UsageError(REANCHOR_NEEDS_REASON)
@@ -95,14 +97,22 @@ def verify_record(store: Path | None, models_dir: Path | None, *, registry_requi
         result.models_not_checked = reason
     if store is not None:
         try:
-            with warnings.catch_warnings():  # verify says what the check could not cover in store_cautions
-                warnings.simplefilter("ignore", StoreCaution)
-                lot_store = LotStore(store, create=False)
-            with lot_store:
+            with ExitStack() as stack:
+                with warnings.catch_warnings():  # verify says what the check could not cover in store_cautions
+                    warnings.simplefilter("ignore", StoreCaution)
+                    # verify records nothing (unless --reanchor): an older store is checked as it is, not upgraded
+                    lot_store = (stack.enter_context(LotStore(store, create=False)) if reanchor_reason is not None
+                                 else open_to_read(stack, store))
                 if reanchor_reason is not None and lot_store.unanchored is None:
                     raise UsageError(lot_store.nothing_to_reanchor())
                 result.store_counts = lot_store.check_seals(full=True)
                 result.store_cautions = _anchor_cautions(Path(store), result.store_counts)
+                if lot_store.upgraded_copy:  # schema 1: no seals of its own; say what was and was not checked
+                    result.store_counts = _unsealed_counts(result.store_counts)
+                    result.store_cautions = [_unsealed_caution(Path(store), lot_store.older_schema,
+                                                               result.store_counts)]
+                elif lot_store.older_schema is not None:
+                    result.store_cautions += lot_store.cautions()[-1:]
                 if reanchor_reason is not None:
                     result.reanchored = lot_store.reanchor(reanchor_reason, checked=result.store_counts)
                     # the anchor file is there now: the caution of the check before no longer holds
@@ -128,6 +138,33 @@ def verify_record(store: Path | None, models_dir: Path | None, *, registry_requi
             except ModelIntegrityError as exc:
                 result.model_problems.append(f"{model_id}: {exc}")
     return result
+
+
+#: what a check of a store with no seals of its own (schema 1, checked on an upgraded copy whose seals were made
+#: from the records as they stand) did not check against anything: the counts said as 0
+NOT_CHECKED_UNSEALED = ("seals", "audit entries", "predictions", "ingests")
+
+
+def _unsealed_counts(counts: dict) -> dict:
+    """The counts of a check of a schema 1 store made on its upgraded copy (:func:`linkage.store.upgraded_copy`):
+    the seals, audit entries, predictions and ingests were sealed by the copy's upgrade from what they are now, so
+    their check proves nothing and they are counted 0, and there is no newest seal; what was checked for real
+    stays: SQLite's integrity_check and each lot table's content hash (recorded at its ingest) against its raw rows
+    ("lot tables", "raw rows")."""
+    out = {k: (0 if k in NOT_CHECKED_UNSEALED else v) for k, v in counts.items()}
+    out["newest seal"] = {"id": None, "sha256": None}
+    return out
+
+
+def _unsealed_caution(store: Path, version: int, counts: dict) -> str:
+    """What ``verify`` could and could not check of a store written before seals (schema 1)."""
+    return (f"{store} was written by an earlier linkage (store schema {version}, before seals) and holds no seals "
+            "and no anchor: its ingests, audit entries and recorded predictions could not be checked against "
+            "seals, nor the removal or rewriting of records ruled out. Checked: SQLite's integrity_check of its "
+            f"pages (as SQLite's backup copied them), and each lot table's content hash, recorded at its ingest, against its raw rows "
+            f"({counts.get('lot tables', 0)} lot tables, {counts.get('raw rows', 0)} raw rows). Checked on an "
+            "upgraded temporary copy; the store itself was not upgraded nor changed (an earlier linkage still reads "
+            "it); the next ingest (with write access) upgrades it and seals its records as they then stand")
 
 
 def _anchor_cautions(store: Path, counts: dict) -> list[str]:

@@ -66,7 +66,7 @@ import math
 import operator
 import os
 import sqlite3
-from contextlib import closing, contextmanager
+from contextlib import ExitStack, closing, contextmanager
 from dataclasses import asdict, dataclass, field
 from itertools import chain
 from pathlib import Path
@@ -612,9 +612,11 @@ def restored_since_training(chain, new_lots, notes: list[str], what: str = "sinc
 
 class StoreNeedsUpgrade(StoreError):
     """A store of an earlier schema that cannot be read as it is where it is opened for reading only
-    (``LotStore(read_only=True)``; schema 1, before seals): an ingest with write access upgrades it first. Exit
-    code 5, as :class:`StoreError`; an ingest's preview decides on an upgraded copy instead
-    (:func:`backup_copy`)."""
+    (``LotStore(read_only=True)`` or ``upgrade=False``; schema 1, before seals): an ingest with write access
+    upgrades it first. Exit code 5, as :class:`StoreError`; an ingest's preview and the commands that only read
+    decide on an upgraded copy instead (:func:`upgraded_copy`). ``version``: the store's schema."""
+
+    version: int = 1
 
 
 class LotTables(dict):
@@ -646,14 +648,31 @@ class LotStore:
     refuses every change (``PRAGMA query_only``), and a store of an earlier
     schema is read as it is, not upgraded (schema 1, before seals, is refused:
     :class:`StoreNeedsUpgrade`).
+
+    ``upgrade=False`` (a command that records nothing in the store: ``lots``,
+    ``history``, ``audit``, ``assemble``, ``report``, ``verify``, ...; see
+    :func:`reading`): a store of the current schema opens as before; one of an
+    earlier schema is opened as ``read_only`` is, read as it is and never
+    upgraded, so that neither it nor its folder changes (no anchor file, no
+    table, no seal) and an earlier linkage still reads it. :attr:`older_schema`
+    holds its schema, and :meth:`cautions` says so.
     """
 
     def __init__(self, path: Path | str = "linkage.db", *, create: bool = True,
-                 busy_timeout_s: float = BUSY_TIMEOUT_S, for_writing: bool = False, read_only: bool = False):
+                 busy_timeout_s: float = BUSY_TIMEOUT_S, for_writing: bool = False, read_only: bool = False,
+                 upgrade: bool = True):
         self.path = Path(path)
         self.busy_timeout_s = busy_timeout_s
+        self.upgrade = upgrade
         #: the newest seal ({"id", "sha256"}) of a store with seals but no anchor file; None otherwise
         self.unanchored: dict | None = None
+        #: the schema of a store written by an earlier linkage and read without its upgrade (as it is, or from an
+        #: upgraded temporary copy: :attr:`upgraded_copy`); None for a store of the current schema or one upgraded
+        self.older_schema: int | None = None
+        #: read from an upgraded temporary copy of the store (:func:`upgraded_copy`; schema 1), not from the store
+        self.upgraded_copy = False
+        #: the store whose anchor file is checked: this one (a copy's own, where :attr:`path` names the store copied)
+        self._anchored = self.path
         if self.path.is_dir():
             raise StorePathError(f"{self.path} is a folder, not a lot store file")
         exists = self.path.exists() and self.path.stat().st_size > 0
@@ -695,20 +714,29 @@ class LotStore:
         except BaseException:
             self._conn.close()
             raise
-        if self.unanchored is not None:
-            import warnings
+        self._warn_cautions(stacklevel=3)
 
-            from linkage.exceptions import StoreCaution
+    def _warn_cautions(self, stacklevel: int = 2) -> None:
+        """Each of :meth:`cautions` as a :class:`~linkage.exceptions.StoreCaution` warning (the command line
+        prints it once, as a ``caution, store:`` line on stderr)."""
+        import warnings
 
-            warnings.warn(self.cautions()[0], StoreCaution, stacklevel=2)
+        from linkage.exceptions import StoreCaution
+
+        for caution in self.cautions():
+            warnings.warn(caution, StoreCaution, stacklevel=stacklevel)
 
     def cautions(self) -> list[str]:
         """What this store cannot show, as the caution every reading command prints on stderr (``caution,
-        store: ...``): the missing anchor file of a sealed store; empty when there is nothing to say. A
-        document made from the store (the report) states them too."""
-        if self.unanchored is None:
-            return []
-        return [_seal.unanchored_caution(self.path, self.unanchored["id"], self.unanchored["sha256"])]
+        store: ...``): the missing anchor file of a sealed store; a store written by an earlier linkage read
+        without its upgrade (:attr:`older_schema`); empty when there is nothing to say. A document made from
+        the store (the report) states them too."""
+        out = []
+        if self.unanchored is not None:
+            out.append(_seal.unanchored_caution(self.path, self.unanchored["id"], self.unanchored["sha256"]))
+        if self.older_schema is not None:
+            out.append(older_schema_caution(self.path, self.older_schema, copy=self.upgraded_copy))
+        return out
 
     # ---- opening
 
@@ -738,10 +766,17 @@ class LotStore:
         else:
             shown = ", ".join(names[:6]) or "none"
             raise StorePathError(f"{self.path} is an SQLite file but not a linkage lot store (tables: {shown})")
+        if not self.read_only and not self.upgrade and version < SCHEMA_VERSION:
+            # a command that records nothing: an older store read as it is, never upgraded (nor anything written)
+            c.execute("PRAGMA query_only = ON")
+            self.read_only = True
         if self.read_only:
             if version < 2:
-                raise StoreNeedsUpgrade(f"{self.path} was written by an earlier linkage (store schema {version}) and is "
-                                 "read-only here: open it once with write access to upgrade and seal it")
+                exc = StoreNeedsUpgrade(f"{self.path} was written by an earlier linkage (store schema {version}) and "
+                                        "is read-only here: open it once with write access to upgrade and seal it")
+                exc.version = version
+                raise exc
+            self.older_schema = version if version < SCHEMA_VERSION else None
             self.check_seals()
             self.unanchored = self._missing_anchor(c)
             return
@@ -759,11 +794,15 @@ class LotStore:
         if not c.execute("SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = 'seals'").fetchone():
             return None
         seal_id, digest = _seal.head(c)
-        if seal_id == 0 or _seal.read_anchor(self.path) is not None:
+        if seal_id == 0 or _seal.read_anchor(self._anchored) is not None:
             return None
         return {"id": seal_id, "sha256": digest}
 
     def _read_only_refusal(self) -> str:
+        if self.older_schema is not None and self.writable:
+            return (f"the lot store {self.path} was written by an earlier linkage (store schema {self.older_schema}) "
+                    "and is read here by a command that records nothing in it: not upgraded, not changed; nothing "
+                    "was written")
         return (f"the lot store {self.path} is read-only here (a read-only file system, or a file this account "
                 "cannot write): it can be read, not changed; nothing was written")
 
@@ -795,13 +834,13 @@ class LotStore:
         every ingest's content and every lot table's raw rows. Returns what
         was checked, with the newest seal."""
         try:
-            anchor = _seal.read_anchor(self.path)  # before the snapshot begins (see seal.check)
+            anchor = _seal.read_anchor(self._anchored)  # before the snapshot begins (see seal.check)
             with self._snapshot():
                 problems = []
                 if full:  # SQLite's own check of every page and index (linear in the store's size)
                     damage = [r[0] for r in self._conn.execute("PRAGMA integrity_check(20)")]
                     problems += [] if damage == ["ok"] else [f"SQLite integrity_check: {d}" for d in damage]
-                found, counts = _seal.check(self._conn, self.path, full=full, anchor=anchor)
+                found, counts = _seal.check(self._conn, self._anchored, full=full, anchor=anchor)
                 problems += found
                 counts["newest seal"] = dict(zip(("id", "sha256"), _seal.head(self._conn)))
         except sqlite3.DatabaseError as exc:
@@ -1803,15 +1842,73 @@ def _diff(table: str, old: list[dict] | None, new: list[dict]) -> list[dict]:
 def backup_copy(path: Path, to: Path) -> None:
     """Copy the store at ``path`` to the new file ``to`` with SQLite's online backup (sqlite.org, "Online Backup
     API": a consistent copy, pages read in one read transaction), read through a query-only connection that
-    closes as a writer closes (no -wal or -shm left beside the store). For an ingest's preview of a store that
-    must be upgraded first: the copy is upgraded, the store is not."""
+    closes as a writer closes (no -wal or -shm left beside the store); a store this account cannot write (a
+    read-only file system) is read immutable, as :class:`LotStore` reads it there. For an ingest's preview,
+    and the commands that only read, of a store that must be upgraded first: the copy is upgraded, the store
+    is not."""
+    path = Path(path)
+    writable = os.access(path, os.W_OK) and os.access(path.parent, os.W_OK)
     try:
-        with closing(sqlite3.connect(path, timeout=BUSY_TIMEOUT_S, isolation_level=None)) as source, \
+        with closing(sqlite3.connect(path, timeout=BUSY_TIMEOUT_S, isolation_level=None) if writable else
+                     sqlite3.connect(f"{path.resolve().as_uri()}?mode=ro&immutable=1", uri=True,
+                                     isolation_level=None)) as source, \
                 closing(sqlite3.connect(to, isolation_level=None)) as copy:
             source.execute("PRAGMA query_only = ON")
             source.backup(copy)
     except sqlite3.Error as exc:
         raise StoreError(f"cannot copy the lot store {path} to {to}: {exc}") from None
+
+
+def older_schema_caution(path, version: int, *, copy: bool = False) -> str:
+    """The caution of a store written by an earlier linkage that a command read without upgrading it
+    (:attr:`LotStore.older_schema`); ``copy``: read from an upgraded temporary copy (schema 1)."""
+    if copy:
+        return (f"{path} was written by an earlier linkage (store schema {version}, before seals); read from an "
+                "upgraded temporary copy, the store itself not upgraded nor changed (an earlier linkage still reads "
+                "it); the next ingest (with write access) upgrades it and seals its records as they then stand")
+    return (f"{path} was written by an earlier linkage (store schema {version}); read as it is, not upgraded nor "
+            "changed (an earlier linkage still reads it); the next ingest (with write access) upgrades it")
+
+
+def upgraded_copy(stack: ExitStack, path: Path, version: int = 1) -> LotStore:
+    """The store at ``path`` (of schema ``version``, which must be upgraded to be read: schema 1) copied with
+    :func:`backup_copy` into a temporary folder, upgraded there, opened and entered on ``stack`` (which removes
+    the folder when it closes); the store and its folder are not touched. The copy answers as the store would
+    (:attr:`LotStore.path` names the store, its anchor file is the copy's own), refuses every write, and says
+    that it is a copy (:attr:`LotStore.older_schema`, :attr:`LotStore.upgraded_copy`, :meth:`LotStore.cautions`,
+    warned as a :class:`~linkage.exceptions.StoreCaution`). For an ingest's preview and the commands that only
+    read (:func:`reading`)."""
+    import tempfile
+
+    path = Path(path)
+    scratch = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="linkage-read-")))
+    backup_copy(path, scratch / path.name)
+    copy = stack.enter_context(LotStore(scratch / path.name, create=False))
+    # answers for the store: its name, and whether this account could write it (an ingest's preview refuses alike)
+    copy.path, copy.read_only = path, True
+    copy.writable = os.access(path, os.W_OK) and os.access(path.parent, os.W_OK)
+    copy.older_schema, copy.upgraded_copy = version, True
+    copy._warn_cautions(stacklevel=3)
+    return copy
+
+
+def open_to_read(stack: ExitStack, path) -> LotStore:
+    """The store at ``path`` for a command that records nothing in it, entered on ``stack``: opened as before
+    when it is of the current schema; an older one read as it is (``LotStore(upgrade=False)``, schema 2) or
+    from an upgraded temporary copy (:func:`upgraded_copy`, schema 1), so that neither the store nor its folder
+    changes by a byte. Refusals as ``LotStore(path, create=False)``'s."""
+    try:
+        return stack.enter_context(LotStore(path, create=False, upgrade=False))
+    except StoreNeedsUpgrade as exc:
+        version = exc.version
+    return upgraded_copy(stack, Path(path), version)
+
+
+@contextmanager
+def reading(path) -> Iterator[LotStore]:
+    """:func:`open_to_read` as a context manager: ``with reading(store) as s: ...``."""
+    with ExitStack() as stack:
+        yield open_to_read(stack, path)
 
 
 def refuse_unanchored(path) -> None:

@@ -131,9 +131,9 @@ def audit(store, lot, as_json):
       linkage audit
       linkage audit --lot Q26-017 --json
     """
-    from linkage.store import LotStore
+    from linkage.store import reading
 
-    with LotStore(store, create=False) as s:
+    with reading(store) as s:  # an older store is read as it is, not upgraded (said on stderr)
         rows = s.audit(lot, with_ingests=True, require_lot=True)
     if as_json:
         click.echo(json.dumps(rows, indent=2, default=str))

@@ -114,9 +114,9 @@ def lots(store, product, as_json):
       linkage lots
       linkage lots --product ABC-10mg --json
     """
-    from linkage.store import LotStore, one_line
+    from linkage.store import one_line, reading
 
-    with LotStore(store, create=False) as lot_store:
+    with reading(store) as lot_store:  # an older store is read as it is, not upgraded (said on stderr)
         df = lot_store.lots(product=product)
     if as_json:
         click.echo(json.dumps([{k: _plain(v) for k, v in rec.items()} for rec in df.to_dict("records")], indent=2))
@@ -162,9 +162,9 @@ def history(lot, store, as_json):
       linkage history EX-001
       linkage history EX-001 --store site.db --json
     """
-    from linkage.store import LotStore, change_text, one_line
+    from linkage.store import change_text, one_line, reading
 
-    with LotStore(store, create=False) as lot_store:
+    with reading(store) as lot_store:  # an older store is read as it is, not upgraded (said on stderr)
         revisions = lot_store.history(lot)
     if as_json:
         click.echo(json.dumps(revisions, indent=2, ensure_ascii=False))
@@ -312,7 +312,7 @@ def verify(ctx, store, models_dir, as_json, reanchor, reason):
     """
     from linkage.cli.common import MODELS_ENV
     from linkage.exceptions import UsageError
-    from linkage.integrity import verify_record
+    from linkage.integrity import NOT_CHECKED_UNSEALED, verify_record
     from linkage.store import REANCHOR_NEEDS_REASON, given_reason
 
     if reanchor and given_reason(reason) is None:
@@ -327,10 +327,13 @@ def verify(ctx, store, models_dir, as_json, reanchor, reason):
         click.echo(json.dumps(result.to_dict(), indent=2))
     else:
         counts = result.store_counts
+        newest = counts.get("newest seal", {})
+        unsealed = bool(counts) and newest.get("id") is None  # schema 1, before seals: nothing to check them by
         if counts:
-            newest = counts.get("newest seal", {})
-            checked = ", ".join(f"{v} {k}" for k, v in counts.items() if k != "newest seal")
-            click.echo(f"Lot store {store}: {checked}; newest seal {newest.get('id')} sha256 {newest.get('sha256')}")
+            checked = ", ".join(f"{v} {k}" for k, v in counts.items()
+                                if k != "newest seal" and not (unsealed and k in NOT_CHECKED_UNSEALED))
+            click.echo(f"Lot store {store}: {checked}; " + ("no seals (written before seals)"
+                       if unsealed else f"newest seal {newest.get('id')} sha256 {newest.get('sha256')}"))
         if result.models_not_checked:
             click.echo(f"Model registry {models_dir}: not checked ({result.models_not_checked}; "
                        "give --models-dir to check one)")
@@ -351,8 +354,15 @@ def verify(ctx, store, models_dir, as_json, reanchor, reason):
                        f"newest seal this check found (seal {done['checked_seal']['id']}, sha256 "
                        f"{done['checked_seal']['sha256']}); the anchor file names its own seal {done['anchor']['id']} "
                        f"(sha256 {done['anchor']['sha256']}). Record this hash outside the store.")
-        click.echo(("Everything matches its seals and hashes." + (" (see the caution above)" if result.store_cautions
-                                                                 else "")) if result.ok else "The record is NOT whole.")
+        if not result.ok:
+            click.echo("The record is NOT whole.")
+        elif unsealed:  # no claim of a check that was not made
+            click.echo("The lot tables match their content hashes; the store has no seals, so nothing else of it "
+                       "could be checked (see the caution above)." + (" The models match their hashes."
+                                                                     if result.models_checked else ""))
+        else:
+            click.echo("Everything matches its seals and hashes." + (" (see the caution above)"
+                                                                      if result.store_cautions else ""))
     if result.store_problems:
         raise SystemExit(6)
     if result.model_problems:
