@@ -294,8 +294,14 @@ def _preview_ingest(folder: Path, store: Path, exists: bool, *, reason: str | No
     from linkage.exceptions import UsageError
     from linkage.read import read_folder
 
+    import warnings
+
+    from linkage.exceptions import StoreCaution
+
     with contextlib.ExitStack() as stack:
-        lot_store = _preview_store(stack, store, exists)
+        with warnings.catch_warnings():  # said once, as the preview's cautions (its text, --json "cautions")
+            warnings.simplefilter("ignore", StoreCaution)
+            lot_store = _preview_store(stack, store, exists)
         with _ingest_refusal():
             if lot_store.unanchored is not None:  # the ingest opens the store for writing, refused at once
                 from linkage.seal import unanchored_refusal

@@ -95,6 +95,12 @@ def verify_record(store: Path | None, models_dir: Path | None, *, registry_requi
             raise ModelNotFoundError(f"no model registry at {models_dir} ({reason}); point --models-dir (or "
                                      "LINKAGE_MODELS_DIR) at the registry, or train a model first ('linkage train')")
         result.models_not_checked = reason
+    if store is not None and reanchor_reason is not None:  # refused without a write (an older store: no upgrade)
+        with warnings.catch_warnings(), ExitStack() as stack:
+            warnings.simplefilter("ignore", StoreCaution)
+            probe = open_to_read(stack, store)
+            if probe.unanchored is None:
+                raise UsageError(probe.nothing_to_reanchor())
     if store is not None:
         try:
             with ExitStack() as stack:

@@ -235,3 +235,14 @@ def test_report_and_the_unrecorded_what_if_and_window_leave_an_older_store_as_it
         assert mine == theirs, args[0]
         assert got.stderr.count(f"written by an earlier linkage (store schema {version}") == 1
     assert _files(store.parent) == before and _schema(store) == version
+
+
+def test_a_refused_reanchor_leaves_an_older_store_as_it_was(tmp_path):
+    """Regression: ``verify --reanchor --reason`` on a schema 1 store upgraded (and so anchored) it, then refused
+    the re-anchoring as having nothing to anchor (exit 2): a refused command had written the store. Now the
+    refusal is decided on the store read as it is, and nothing is written. No outside source needed (a refusal)."""
+    store = _copy("store-v1.db", tmp_path / "db")
+    before = _files(store.parent)
+    got = run_cli(["verify", "--store", store, "--reanchor", "--reason", "anchor lost in the copy"])
+    assert got.exit_code == 2 and "no seals yet" in got.stderr, got.output
+    assert _files(store.parent) == before and _schema(store) == 1
