@@ -304,6 +304,12 @@ def verify(ctx, store, models_dir, as_json, reanchor, reason):
     TEXT: the store is checked whole, anchored again, and an audit entry
     'reanchor' records who, when, why and the newest seal the check found.
 
+    A store written by an earlier linkage is checked as it is, not
+    upgraded (it and its folder stay byte for byte). One written before
+    seals (store schema 1) has none to check: verify says what it did
+    check (SQLite's integrity check, each lot table's content hash against
+    its raw rows) and what it could not, and claims nothing more.
+
     \b
     Example:
       linkage verify
