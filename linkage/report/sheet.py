@@ -76,9 +76,11 @@ def spec_lines(spec: dict | None) -> list[str]:
     return lines
 
 
-JUDGE_TEXT = {"mean": "the lot value (a lot mean) against the limits",
-              "stages": "the compendial stages, simulated unit by unit (USP <711> Table 1 for dissolution, with "
-                        "Q = the minimum)"}
+#: how a spec's judge judges, in words without brackets: the sheet writes them in brackets after the judge's name
+#: ("stages (the compendial stages ...)") and the report after "Judge \"stages\":"
+JUDGE_TEXT = {"mean": "the lot value, a lot mean, against the limits",
+              "stages": "the compendial stages of USP <711> Table 1 for dissolution, with Q = the minimum, "
+                        "simulated unit by unit"}
 
 
 def spec_table_html(spec: dict | None, judged: list[str] | None = None,
