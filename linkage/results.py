@@ -1009,6 +1009,7 @@ def audit_text(rows: list[dict], lot: str | None = None) -> str:
     """``linkage audit``'s table: a header, one line per entry with what it came to (``outcome``) and, where the
     entry has one, the reason given (an ingest's ``--reason``, a forced promotion's), its line breaks shown as
     '⏎' (:func:`linkage.store.one_line`; the stored reason is unchanged)."""
+    from linkage.exceptions import shown_time
     from linkage.store import given_reason, one_line
 
     if not rows:
@@ -1019,11 +1020,11 @@ def audit_text(rows: list[dict], lot: str | None = None) -> str:
         reason = ((r.get("inputs") or {}) if isinstance(r.get("inputs"), dict) else {}).get("reason")
         made.append((r, outcome, model, one_line(given_reason(reason) or "")))  # a multi-line reason: one line
     width = min(max(len("outcome"), *(len(m[1]) for m in made)), 90)
-    lines = [f"{'id':>5}  {'at (UTC)':<29}  {'user':<12} {'action':<9} {'lot':<12} {'model':<29} "
+    lines = [f"{'id':>5}  {'at':<23}  {'user':<12} {'action':<9} {'lot':<12} {'model':<29} "
              f"{'outcome':<{width}}  reason".rstrip()]
     for r, outcome, model, reason in made:
-        lines.append(f"{r['id']:>5}  {r['at']:<29}  {r['user']:<12} {r['action']:<9} {r['lot'] or '':<12} "
-                     f"{model or '':<29} {outcome:<{width}}  {reason}".rstrip())
+        lines.append(f"{r['id']:>5}  {shown_time(r['at']):<23}  {r['user']:<12} {r['action']:<9} "
+                     f"{r['lot'] or '':<12} {model or '':<29} {outcome:<{width}}  {reason}".rstrip())
     lines.append("model: the model the entry used or made; for a retrain that did not promote, the champion that "
                  "stays (the challenger is named in the outcome). 'linkage audit --json' has every input and output.")
     return "\n".join(lines)

@@ -106,18 +106,19 @@ def train(store, models_dir, chain_path, product, seed, coverage, spec_path, dis
 
 
 def format_models(rows: list[dict]) -> str:
+    from linkage.exceptions import shown_time
     from linkage.models.registry import ROLES
     from linkage.products import mixed_text
 
     if not rows:
         return "No models yet; train one with 'linkage train'."
-    lines = [f"  {'model id':<30}{'created (UTC)':<21}{'lots':>5}  {'status':<11}{'role':<19}selected models"]
+    lines = [f"  {'model id':<30}{'created':<25}{'lots':>5}  {'status':<11}{'role':<19}selected models"]
     for r in rows:
-        created = (r.get("created_at") or "")[:19].replace("T", " ")
+        created = "" if r.get("created_at") is None else shown_time(r["created_at"])  # --json: as recorded
         lots = r.get("n_lots")
         sel = ", ".join(f"{t}: {m}" for t, m in (r.get("targets") or {}).items())
         mark = "*" if r.get("latest") else ("-" if not r.get("in_service", True) else " ")
-        lines.append(f"{mark} {r['model_id']:<30}{created:<21}{'' if lots is None else lots:>5}  "
+        lines.append(f"{mark} {r['model_id']:<30}{created:<25}{'' if lots is None else lots:>5}  "
                      f"{r['status']:<11}{r.get('role') or '':<19}{sel}")
         if r.get("mixed_products"):  # one model of several products (linkage.products)
             lines.append(f"    {mixed_text(r['products'])}")

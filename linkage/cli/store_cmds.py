@@ -114,6 +114,7 @@ def lots(store, product, as_json):
       linkage lots
       linkage lots --product ABC-10mg --json
     """
+    from linkage.exceptions import shown_time
     from linkage.store import one_line, reading
 
     with reading(store) as lot_store:  # an older store is read as it is, not upgraded (said on stderr)
@@ -137,9 +138,10 @@ def lots(store, product, as_json):
                + "; per table: rows (percent of template cells filled).")
     if len(aside):
         click.echo("Set aside (left out of fitting and judging; 'linkage restore LOT --reason TEXT' puts one back):")
-        for rec in aside.to_dict("records"):
+        for rec in aside.to_dict("records"):  # a reason on one line ('⏎'), the time to the second in UTC (as the
+            # set-aside messages write it); --json keeps both as recorded
             click.echo(f"  {rec['lot']}: {one_line(rec['set_aside_reason'])} (by {rec['set_aside_by']}, "
-                       f"{rec['set_aside_at']})")  # a multi-line reason on one line ('⏎'); stored unchanged
+                       f"{shown_time(rec['set_aside_at'])})")
 
 
 @click.command()
@@ -162,6 +164,7 @@ def history(lot, store, as_json):
       linkage history EX-001
       linkage history EX-001 --store site.db --json
     """
+    from linkage.exceptions import shown_time
     from linkage.store import change_text, one_line, reading
 
     with reading(store) as lot_store:  # an older store is read as it is, not upgraded (said on stderr)
@@ -172,7 +175,7 @@ def history(lot, store, as_json):
     lot = revisions[0]["lot"]  # the store's spelling (LOT is found under any spelling of it)
     click.echo(f"Lot {lot}: {len(revisions)} revision{'s' if len(revisions) != 1 else ''}")
     for rev in revisions:
-        click.echo(f"Revision {rev['revision']}: ingest {rev['ingest_id']}, {rev['at']}, by {rev['user']}"
+        click.echo(f"Revision {rev['revision']}: ingest {rev['ingest_id']}, {shown_time(rev['at'])}, by {rev['user']}"
                    + (f", product {rev['product']}" if rev["product"] else ""))
         if rev.get("reason"):
             click.echo(f"  reason: {one_line(rev['reason'])}")
@@ -186,7 +189,7 @@ def history(lot, store, as_json):
             click.echo("    " + change_text(ch))
         for event in rev.get("set_aside_events", []):  # decisions made while this revision was in force
             what = "Set aside" if event["action"] == "set-aside" else "Restored (back in use)"
-            click.echo(f"{what}: audit entry {event['audit_id']}, {event['at']}, by {event['user']}")
+            click.echo(f"{what}: audit entry {event['audit_id']}, {shown_time(event['at'])}, by {event['user']}")
             click.echo(f"  reason: {one_line(event['reason'])}")  # stored unchanged ('--json')
 
 

@@ -1409,7 +1409,7 @@ def _model_card(b, chain, spec, window, revised=()):
     versions = ", ".join(f"{k} {v}" for k, v in sorted((chain.library_versions or {}).items()))
     rows = [
         ["model id", chain.model_id or "unsaved"],
-        ["trained", chain.created_at],
+        ["trained", trained_text(chain.created_at)],  # to the second, in UTC, as the report's heading
         ["chain", _part("card", "stages", stages=chain.stages)],
         ["training lots", _part("card", "training_lots", n=len(lots), lots=_lots_text(lots, limit=200))],
         *([["training lots revised since", _part("card", "revised", n=len(revised), lots=_revised_text(revised))]]

@@ -140,7 +140,7 @@ def test_the_listing_gives_the_lots_of_a_model_that_fails_its_check(tmp_path, re
     assert row["status"] == "changed" and row["role"] == "champion" and not row["latest"]
     assert row["n_lots"] == trained_small.training["n_lots"] == 6
     line = next(l for l in format_models([row]).splitlines() if mid in l)
-    assert line.split(mid)[1].split()[2:5] == ["6", "changed", "champion"], line  # date, time, lots, status, role
+    assert line.split(mid)[1].split()[3:6] == ["6", "changed", "champion"], line  # date, time, UTC, lots, status, role
     assert not marker.exists()
     meta = json.loads((models / mid / registry.METADATA).read_text())
     meta["training"]["n_lots"] = 60

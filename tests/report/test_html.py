@@ -228,3 +228,13 @@ def test_drift_watch_section_has_its_charts():
     # issue 19: the alarms are the designed MEWMA's, naming the attributes furthest out, and the design is stated
     assert re.search(r"lot LOT-0(3[3-9]|40): T²[^<]*dissolution_pct", section)
     assert "in-control ARL 200 lots for all attributes together" in section
+
+
+def test_the_model_card_gives_the_training_time_as_the_heading_does(report, chain):
+    """The model card's "trained" row wrote the recorded ISO 8601 text (microseconds, '+00:00') under a heading
+    that writes it to the second in UTC (page.trained_text). Regression test of a label: no outside source."""
+    from linkage.report.page import trained_text
+
+    card = report.html[report.html.find('<h2 id="card">'):report.html.find('<h2 id="cautions">')]
+    assert f"<td>trained</td><td>{trained_text(chain.created_at)}</td>" in card, card[:600]
+    assert str(chain.created_at) not in card
