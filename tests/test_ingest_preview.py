@@ -72,15 +72,17 @@ def test_the_preview_writes_nothing_and_says_what_the_ingest_then_does(tmp_path,
 
 
 def test_the_cli_preview_gives_the_ingest_refusal_and_exit_code(tmp_path, stored):
-    """Without --reason the change of B is refused by the preview as by the ingest: same message, code 2."""
+    """Without --reason the change of B is refused by the preview as by the ingest: same message (the preview's
+    last lines on stdout; stderr says it short, naming the lot), code 2."""
     path = _mixed(tmp_path)
     before = _files(stored.parent)
     preview = run_cli(["ingest", path, "--store", stored, "--preview"])
     assert _files(stored.parent) == before
     real = run_cli(["ingest", path, "--store", stored])
     assert preview.exit_code == real.exit_code == 2
-    error = real.stderr[real.stderr.index("Error:"):]
-    assert error in preview.stderr and "Preview:" in preview.stderr and "nothing was written" in preview.stderr
+    error = real.stderr[real.stderr.index("Error:"):].removeprefix("Error: ")
+    assert f"The ingest would be refused: {error}" in preview.stdout
+    assert "would be refused" in preview.stderr and "(B)" in preview.stderr and "Nothing was written" in preview.stderr
     assert _files(stored.parent) == before  # the refused ingest wrote nothing either
     given = run_cli(["ingest", path, "--store", stored, "--preview", "--reason", "DEV-7", "--json"])
     assert given.exit_code == 0, given.stderr
@@ -201,7 +203,8 @@ def test_a_schema_1_store_is_previewed_on_an_upgraded_copy(tmp_path, monkeypatch
     preview = run_cli(["ingest", fix, "--store", store, "--preview"])
     real = run_cli(["ingest", fix, "--store", twin])
     assert preview.exit_code == real.exit_code == 2, preview.stderr
-    assert real.stderr[real.stderr.index("Error:"):] in preview.stderr and "--reason" in preview.stderr
+    error = real.stderr[real.stderr.index("Error:"):].removeprefix("Error: ")  # the preview's last lines say it
+    assert f"The ingest would be refused: {error}" in preview.stdout and "--reason" in preview.stderr
     given = api.ingest(fix, store, reason="deviation D-2", preview=True)
     assert _files(store.parent) == before and list(scratch.iterdir()) == []
     done = api.ingest(fix, twin, reason="deviation D-2")
@@ -243,6 +246,35 @@ def test_a_store_that_cannot_be_read_is_not_told_as_a_refusal_of_the_ingest(tmp_
     refused = run_cli(["ingest", folder(tmp_path, "bad", tablets=TABLETS.replace(",90,", ",-90,")), "--store",
                        stored, "--preview"])
     assert refused.exit_code == 2 and "would be refused" in refused.stderr
+
+
+def test_a_terminal_shows_the_refusal_for_want_of_a_reason_once(tmp_path, stored):
+    """Regression of the command line's output (no outside source; the reference is the preview's own refusal,
+    ``needs_reason``): the preview of a folder that needs --reason printed the refusal's full text twice on a
+    terminal, which shows stdout and stderr together: as the report's last lines, then as the error. Now stdout
+    keeps the whole preview (the refusal's full text in it, for a script) and stderr says it short, naming the lots
+    and where the full text is, with exit code 2; the Python API still raises the full refusal."""
+    path = _mixed(tmp_path)
+    before = _files(stored.parent)
+    full = json.loads(run_cli(["ingest", path, "--store", stored, "--preview", "--json"]).stdout)["needs_reason"]
+    with pytest.raises(UsageError) as refused:
+        api.ingest(path, stored, preview=True)
+    assert str(refused.value) == full and "B process: roll_force_kn_per_cm 10 -> 10.4" in full
+    for as_json in (False, True):
+        run = run_cli(["ingest", path, "--store", stored, "--preview", *(["--json"] if as_json else [])])
+        assert run.exit_code == 2
+        if as_json:  # the refusal's full text once: in the JSON on stdout
+            assert json.loads(run.stdout)["needs_reason"] == full
+        else:  # a terminal shows both streams
+            assert (run.stdout + run.stderr).count(full) == 1, run.stdout + run.stderr
+        assert full not in run.stderr and run.stderr.count("Error:") == 1
+        error = " ".join(run.stderr.split())
+        assert "would be refused" in error and "1 lot(s) (B)" in error and "--reason TEXT" in error, error
+        assert ("needs_reason" in error) == as_json and "Nothing was written" in error
+        if not as_json:
+            assert f"The ingest would be refused: {full}" in run.stdout  # the whole preview, the refusal in it
+            assert run.stdout.rstrip().endswith("with --reason TEXT ingests the folder.")
+    assert _files(stored.parent) == before
 
 
 def test_unusual_values_preview_as_they_ingest(tmp_path):
@@ -313,7 +345,7 @@ def test_a_preview_that_needs_a_reason_still_shows_its_whole_report(tmp_path, st
     given = json.loads(run_cli(["ingest", path, "--store", stored, "--preview", "--reason", "DEV-7",
                                 "--json"]).stdout)
     bare = run_cli(["ingest", path, "--store", stored, "--preview", "--json"])
-    assert bare.exit_code == 2 and "--reason" in bare.stderr and "Preview:" in bare.stderr
+    assert bare.exit_code == 2 and "--reason" in bare.stderr and "would be refused" in bare.stderr
     out = json.loads(bare.stdout)
     assert out["needs_reason"] and "B" in out["needs_reason"] and given["needs_reason"] is None
     for key in ("lots_new", "lots_revised", "lots_added_to", "lots_changed", "changes", "more_lots"):

@@ -11,7 +11,7 @@ import click
 
 from linkage.cli.common import (FiniteFloat, check_output, handle_errors, json_option, models_dir_option,
                                 store_option, tell_progress)
-from linkage.exceptions import LinkageError
+from linkage.exceptions import LinkageError, UsageError
 from linkage.results import _rows
 from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
 
@@ -67,7 +67,9 @@ def ingest(folder, store, reason, accept_unusual, preview, as_json):
     anchor file is missing), and each revised lot's changes; a pre-check a
     script can run before the ingest. A folder that needs --reason is
     previewed in full all the same (the text, or the --json with
-    needs_reason), then refused with exit code 2. A store that cannot be read at all
+    needs_reason), then refused with exit code 2 and a short error on
+    stderr that names the lots (the full refusal is the preview's last
+    lines, so a terminal shows it once). A store that cannot be read at all
     fails the preview with what failed, not as a refusal of the ingest.
 
     \b
@@ -83,8 +85,9 @@ def ingest(folder, store, reason, accept_unusual, preview, as_json):
         result = run_ingest(folder, store, reason=reason, accept_unusual=accept_unusual, preview=preview)
     except LinkageError as exc:
         made = getattr(exc, "preview", None) if preview else None
-        if made is not None:  # wants --reason: the whole preview first, then the refusal with its exit code
+        if made is not None:  # wants --reason: the whole preview first, its refusal in it; then the exit code
             click.echo(json.dumps(made.to_dict(), indent=2) if as_json else made.text())
+            raise UsageError(_refused_for_reason(made, as_json)) from None
         if preview and exc.ingest_refusal:
             tell_progress("Preview: the ingest would be refused as follows, with the same exit code; nothing was "
                           "written.")
@@ -96,6 +99,19 @@ def ingest(folder, store, reason, accept_unusual, preview, as_json):
         click.echo(json.dumps(result.to_dict(), indent=2))
         return
     click.echo(result.text())
+
+
+def _refused_for_reason(made, as_json: bool) -> str:
+    """The stderr error of a preview refused only for want of --reason, after the whole preview on stdout: short,
+    since the refusal's full text is the preview's last lines (``--json``: ``needs_reason``), so that a terminal,
+    which shows both streams, shows it once."""
+    from linkage.store import lots_named
+
+    lots = made.result.lots_changed
+    where = "its needs_reason" if as_json else "its last lines"
+    return (f"the ingest would be refused: it changes or removes stored values of {len(lots)} lot(s) "
+            f"({lots_named(lots)}) without --reason TEXT; which values and why: the preview above, on stdout "
+            f"({where}). Nothing was written.")
 
 
 @click.command()
