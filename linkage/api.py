@@ -604,9 +604,10 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
 
 
 def _set_aside_in_training(store, chain) -> tuple[list[str], str | None]:
-    """The lots of ``chain``'s training set that the store now holds set aside, and the note that says so
-    (:func:`linkage.store.set_aside_trained_note`, as ``watch`` and ``retrain`` say it); none where there is no
-    store or it cannot be read (an older store is not upgraded for a note: :func:`linkage.store.reading`)."""
+    """The lots of ``chain``'s training set (a fitted or a lean chain: ``training_lots``) that the store now holds
+    set aside, and the note that says so (:func:`linkage.store.set_aside_trained_note`, as ``watch`` and
+    ``retrain`` say it; ``window`` and ``space``); none where there is no store or it cannot be read (an older
+    store is not upgraded for a note: :func:`linkage.store.reading`)."""
     from linkage.exceptions import LinkageError
     from linkage.store import reading, set_aside_trained_note
 
@@ -617,7 +618,7 @@ def _set_aside_in_training(store, chain) -> tuple[list[str], str | None]:
             aside = lot_store.set_aside_lots()
     except LinkageError:
         return [], None
-    return set_aside_trained_note(aside, chain.training.get("lots"), chain.model_id)
+    return set_aside_trained_note(aside, chain.training_lots, chain.model_id)
 
 
 def transfer(store=DEFAULT_STORE, *, roll_diameter_mm: float, roll_width_mm: float, roll_gap_mm: float,
@@ -708,14 +709,16 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
     return planning.Planned(result, written, recorded)
 
 
-def space(spec, *, models_dir=DEFAULT_MODELS_DIR, model="latest", x: str = defaults.MAP_X,
+def space(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", x: str = defaults.MAP_X,
           y: str = defaults.MAP_Y, n_grid: int = defaults.MAP_GRID, settings: Mapping[str, float] | None = None,
           confidence: float = 0.9, assurance: float = 0.9, seed: int = 0):
     """The map of P(all pass) and its lower bound over two settings, the
     applicability-domain mask and the acceptable ranges (``linkage space``;
     :func:`linkage.decide.space.design_space`). Runs on the model's numbers
     (``whatif.npz``) for an id. Returns a :class:`linkage.decide.space.SpaceResult`
-    (``to_dict()``; :func:`linkage.decide.space.space_text` for its text)."""
+    (``to_dict()``; :func:`linkage.decide.space.space_text` for its text). ``store``, when it is a lot store,
+    is read (never written) for the model's training lots it now holds set aside, as ``window`` reads it
+    (``set_aside_in_training``, ``set_aside_note``); ``None`` or a store that does not exist: none."""
     from linkage.decide.space import design_space
 
     settings, bad = _given_settings(settings)
@@ -726,7 +729,12 @@ def space(spec, *, models_dir=DEFAULT_MODELS_DIR, model="latest", x: str = defau
     if model is None or isinstance(model, str):  # a model of the registry, loaded and checked here (issue 20)
         _keep(models_dir, result.model_id, "space", _spec(spec), result, "linkage space", x=x, y=y, n_grid=n_grid,
               settings=settings, confidence=confidence, assurance=assurance, seed=seed)  # for the report
-    return result
+    aside, note = _set_aside_in_training(store, lean)  # the store's state now: not kept with the map
+    if not aside:
+        return result
+    import dataclasses
+
+    return dataclasses.replace(result, set_aside_in_training=tuple(aside), set_aside_note=note)
 
 
 def _keep(models_dir, model_id, kind: str, spec, result, made_by: str, **arguments) -> None:
@@ -1291,7 +1299,7 @@ class Workspace:
 
     def space(self, spec, **kwargs):
         """See :func:`space`."""
-        return space(spec, models_dir=self.models_dir, **kwargs)
+        return space(spec, store=self.store, models_dir=self.models_dir, **kwargs)
 
     def whatif(self, values: Mapping[str, float], **kwargs) -> WhatIfResult:
         """See :func:`whatif`."""

@@ -713,3 +713,36 @@ def test_the_window_of_a_model_fitted_on_a_lot_now_set_aside_says_so(aside_lab):
     assert text.rstrip().endswith(CAUTION)  # the note comes before the caution, as in every text
     alone = api.window(spec, store=None, models_dir=models, model=first.model_id, n_draws=200)
     assert alone.to_dict(curve=False)["set_aside_in_training"] == [] and "set aside" not in alone.text()
+
+
+@pytest.mark.slow
+def test_the_map_of_a_model_fitted_on_a_lot_now_set_aside_says_so_as_the_window_does(aside_lab):
+    """``space`` reads the model's numbers alone; it now also reads the store (never writing it) and says which of
+    the model's training lots the store holds set aside, in the window's words (text, before the caution, and
+    ``--json`` ``set_aside_in_training``). The map itself is the same with or without the store; with no store,
+    nothing is said, and a store named that does not exist is said not read. A regression test of a label: no
+    outside source."""
+    from linkage.decide.space import space_text
+    from linkage.synthetic import WINDOW_SPEC, spec_toml
+
+    path, models, first, lot, folder = aside_lab
+    spec = folder / "space-spec.toml"
+    spec.write_text(spec_toml(WINDOW_SPEC), encoding="utf-8")
+    before = _dump(path)
+    args = ["space", "--store", path, "--models-dir", models, "--model", first.model_id, "--spec", spec,
+            "--grid", "5"]
+    said = _run([*args, "--json"])
+    d = json.loads(said.stdout)
+    assert d["set_aside_in_training"] == [lot]
+    window = api.window(spec, store=path, models_dir=models, model=first.model_id, n_draws=200, record=False)
+    text = _run(args).stdout
+    assert f"Note: {window.set_aside_note}." in text and f"model {first.model_id}: {lot}" in text
+    assert text.rstrip().endswith(CAUTION) and text.index("Note: 1 lot now set aside") < text.index(CAUTION)
+    alone = api.space(spec, store=None, models_dir=models, model=first.model_id, n_grid=5)
+    assert alone.to_dict()["set_aside_in_training"] == [] and "set aside" not in space_text(alone)
+    assert {k: v for k, v in d.items() if k != "set_aside_in_training"} == \
+        {k: v for k, v in json.loads(json.dumps(alone.to_dict())).items() if k != "set_aside_in_training"}
+    missing = _run([*args[:2], folder / "no-such.db", *args[3:]])
+    assert missing.exit_code == 0 and "set aside" not in missing.stdout
+    assert f"no lot store at {folder / 'no-such.db'}" in missing.stderr and not (folder / "no-such.db").exists()
+    assert _dump(path) == before  # read, never written

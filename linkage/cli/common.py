@@ -45,9 +45,14 @@ def record_wanted(no_record: bool) -> bool | None:
     is refused; None for the default store (not recorded when it does not exist)."""
     if no_record:
         return False
+    return True if store_named() else None
+
+
+def store_named() -> bool:
+    """Whether the user named the lot store of the running command: ``--store``, or ``$LINKAGE_STORE`` set
+    non-empty (not the default ``linkage.db``)."""
     source = click.get_current_context().get_parameter_source("store")
-    named = source is not click.core.ParameterSource.DEFAULT or bool(os.environ.get(STORE_ENV))
-    return True if named else None
+    return source is not click.core.ParameterSource.DEFAULT or bool(os.environ.get(STORE_ENV))
 
 
 def models_dir_option(f):

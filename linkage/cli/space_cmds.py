@@ -8,7 +8,8 @@ from pathlib import Path
 
 import click
 
-from linkage.cli.common import PROBABILITY, check_output, handle_errors, json_option, models_dir_option
+from linkage.cli.common import (PROBABILITY, check_output, handle_errors, json_option, models_dir_option,
+                                store_named, store_option, tell_progress)
 from linkage.decide import defaults
 
 
@@ -33,9 +34,10 @@ from linkage.decide import defaults
               help="Also write the contour map as a PNG (without the lots: the model file does not hold them; "
                    "the report draws them).")
 @models_dir_option
+@store_option
 @json_option
 @handle_errors
-def space(spec_path, model_id, x, y, n_grid, assignments, confidence, assurance, seed, png_path, models_dir,
+def space(spec_path, model_id, x, y, n_grid, assignments, confidence, assurance, seed, png_path, models_dir, store,
           as_json):
     """Map the probability that a lot meets every specification over two
     settings (default roll force x gap), through the whole chain, with its
@@ -43,6 +45,11 @@ def space(spec_path, model_id, x, y, n_grid, assignments, confidence, assurance,
     domain; and the acceptable ranges: the largest box of the two settings
     where the bound reaches the confidence inside the domain, with a
     suggested set point.
+
+    The lot store is read, never written: when the model's training lots
+    include lots now set aside ('linkage set-aside'), a note says so, as
+    'linkage window' says it (--json: set_aside_in_training). Without a
+    store (no linkage.db here) the map is made all the same.
 
     \b
     Example:
@@ -59,8 +66,10 @@ def space(spec_path, model_id, x, y, n_grid, assignments, confidence, assurance,
         check_output(png_path)
     spec = read_spec(spec_path)
     settings = parse_assignments(list(assignments), keep_text=True)  # reported with the model's checks
-    result = make_map(spec, models_dir=models_dir, model=model_id, x=x, y=y, n_grid=n_grid, settings=settings,
-                      confidence=confidence, assurance=assurance, seed=seed)
+    result = make_map(spec, store=store, models_dir=models_dir, model=model_id, x=x, y=y, n_grid=n_grid,
+                      settings=settings, confidence=confidence, assurance=assurance, seed=seed)
+    if store_named() and not store.is_file():  # a store the user named: say it was not read (the default may lack)
+        tell_progress(f"Note: no lot store at {store}; the model's training lots now set aside were not looked for.")
     if png_path is not None:
         from linkage.export import write_atomic
         from linkage.report.figures import figure_png

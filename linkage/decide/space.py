@@ -94,6 +94,10 @@ class SpaceResult:
     domain_reasons: list[str] = field(default_factory=list)
     #: P(all pass) of each bootstrap replicate at each grid point (B × points; None without replicates)
     replicates: np.ndarray | None = field(repr=False, default=None)
+    #: the model's training lots that the lot store now holds set aside, and the note that says so, as
+    #: ``linkage window`` says it (:func:`linkage.api.space` reads the store; the map itself does not change)
+    set_aside_in_training: tuple[str, ...] = ()
+    set_aside_note: str | None = None
 
     @property
     def surface(self) -> np.ndarray:
@@ -141,6 +145,7 @@ class SpaceResult:
             "domain_reasons": list(self.domain_reasons),
             "acceptable_ranges": self.ranges,
             "seed": self.seed,
+            "set_aside_in_training": list(self.set_aside_in_training),
             "caution": CAUTION,
         }
 
@@ -502,5 +507,7 @@ def space_text(result: SpaceResult) -> str:
                      + ", ".join(f"{k} {lo:.4g}–{hi:.4g}" for k, (lo, hi) in ar["held_over_box"].items()))
     else:
         lines.append(f"No acceptable ranges: {ar.get('reason')}")
+    if result.set_aside_note:  # before the caution, which ends every text (as window's note)
+        lines.append(f"Note: {result.set_aside_note}.")
     lines.append(CAUTION)
     return "\n".join(lines)

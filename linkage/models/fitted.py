@@ -340,6 +340,12 @@ class FittedChain:
 
         return one_product(self.training)
 
+    @property
+    def training_lots(self) -> list | None:
+        """The lots of its training record (None in a record without them); a lean chain loaded from the registry
+        carries the same list (:attr:`linkage.models.lean.LeanChain.training_lots`)."""
+        return self.training.get("lots")
+
     def trained_on(self, lots) -> np.ndarray:
         """Which of ``lots`` (lot ids, in their order) the chain was trained on, one boolean each: the lots of
         its training record, compared as text (the record keeps them as text). The report's lots, map and

@@ -658,6 +658,9 @@ class LeanChain:
         #: mean, covariance and range of the training lots' settings (:mod:`linkage.decide.held`); absent
         #: (empty names) in a model saved before coherent held settings
         self.settings_names = list(spec.get("settings_names") or [])
+        #: the model's training lots, from its metadata (set by :func:`linkage.models.registry.load_whatif` and
+        #: :func:`from_fitted`; not in the what-if file, so not on the what-if page); None when not known
+        self.training_lots: list[str] | None = None
 
     def root_inputs(self) -> list[str]:
         return list(self.chain_root_inputs)
@@ -722,8 +725,10 @@ def _interval_spec(t) -> dict:
 
 
 def from_fitted(chain) -> LeanChain:
-    """The lean form of a :class:`linkage.models.fitted.FittedChain`."""
-    return LeanChain(export(chain))
+    """The lean form of a :class:`linkage.models.fitted.FittedChain`, with its training lots."""
+    lean = LeanChain(export(chain))
+    lean.training_lots = chain.training_lots
+    return lean
 
 
 def export(chain) -> dict:

@@ -445,12 +445,14 @@ def load_whatif(models_dir, model_id: str | None = "latest"):
     saved before ``whatif.npz`` existed is loaded whole and converted."""
     from linkage.models import lean
 
-    path, _, _, data = _checked(Path(models_dir), model_id)  # the bytes whose hash was just checked
+    path, meta, _, data = _checked(Path(models_dir), model_id)  # the bytes whose hash was just checked
     if data is None:
         return lean.from_fitted(load(models_dir, path.name))
     chain = lean.from_npz_bytes(data)
     if chain.model_id != path.name:
         raise ModelIntegrityError(f"{path / WHATIF} does not hold the model {path.name}")
+    training = meta.get("training") if isinstance(meta.get("training"), dict) else {}
+    chain.training_lots = None if training.get("lots") is None else [str(lot) for lot in training["lots"]]
     return chain
 
 
