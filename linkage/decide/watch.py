@@ -526,8 +526,15 @@ def revised_lines(revised: list[dict], model_id: str) -> list[str]:
     """The words for :func:`revised_since_training`'s lots (none when there are none)."""
     if not revised:
         return []
-    shown = ", ".join(f"{r['lot']} (revision {r['revision']}, {r['revised_at']})" for r in revised[:12])
-    more = f" and {len(revised) - 12} more" if len(revised) > 12 else ""
-    return [f"!! {len(revised)} lot(s) model {model_id} was trained on were revised after it was trained: {shown}"
-            f"{more}. The model was fitted on their earlier values; its charts compare it with the values now "
-            "stored (retrain to fit the revised values)."]
+    return [f"!! {len(revised)} lot(s) model {model_id} was trained on were revised after it was trained: "
+            f"{revised_text(revised)}. The model was fitted on their earlier values; its charts compare it with the "
+            "values now stored (retrain to fit the revised values)."]
+
+
+def revised_text(revised: list[dict]) -> str:
+    """The revised lots named with their revision and time as the texts show it (the first 12, and how many
+    more); ``--json`` keeps ``revised_at`` as recorded."""
+    from linkage.exceptions import shown_time
+
+    shown = ", ".join(f"{r['lot']} (revision {r['revision']}, {shown_time(r['revised_at'])})" for r in revised[:12])
+    return shown + (f" and {len(revised) - 12} more" if len(revised) > 12 else "")

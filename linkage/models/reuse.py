@@ -35,7 +35,7 @@ from pathlib import Path
 
 import numpy as np
 
-from linkage.exceptions import LinkageError
+from linkage.exceptions import LinkageError, shown_time
 from linkage.models.registry import record_result, result_intact
 
 __all__ = ["Reused", "result_key", "load_result", "save_result"]
@@ -66,7 +66,7 @@ class Reused:
 
     def sentence(self, what: str) -> str:
         """The report's words for it: what was reused, from which command and when."""
-        return (f"Reused, not recomputed: {what} as '{self.made_by}' computed it at {self.made_at} for this model, "
+        return (f"Reused, not recomputed: {what} as '{self.made_by}' computed it at {shown_time(self.made_at)} for this model, "
                 "this specification, seed and settings (stored beside the model; a different model, "
                 "specification, seed or setting is computed anew).")
 

@@ -49,6 +49,7 @@ import numpy as np
 import pandas as pd
 
 from linkage import CAUTION, __version__
+from linkage.decide.watch import revised_text
 from linkage.numbers import percent_text
 from linkage.report.page import trained_text
 from linkage.report.templating import Markup, macro, render
@@ -507,10 +508,6 @@ def revised_training_lots(chain, lots) -> list[dict]:
     return revised_since_training(lots, chain.training.get("lots") or [], chain.created_at)
 
 
-def _revised_text(revised: list[dict]) -> str:
-    """The revised lots named with their revision and time (the first 12, and how many more)."""
-    shown = ", ".join(f"{r['lot']} (revision {r['revision']}, {r['revised_at']})" for r in revised[:12])
-    return shown + (f" and {len(revised) - 12} more" if len(revised) > 12 else "")
 
 
 def _stage_of(chain, name: str):
@@ -548,7 +545,7 @@ def _glance(b, chain, table, spec, window, revised=(), store_cautions=(), set_as
                 rf_range=_range(rf.get("point_low"), rf.get("point_high"), 2),
                 low_edge=_edge_text(window.low.limited_by) if window is not None else None,
                 high_edge=_edge_text(window.high.limited_by) if window is not None else None,
-                revised=len(revised), revised_text=_revised_text(revised), store_cautions=list(store_cautions),
+                revised=len(revised), revised_text=revised_text(revised), store_cautions=list(store_cautions),
                 aside_text=". ".join(t for t in (_glance_aside(chain, set_aside or {}),
                                                 _glance_restored(chain, table["lot"])) if t)))
 
@@ -699,7 +696,7 @@ def _data_section(b, chain, table, lots, other_lots=None, revised=()):
                 others=others_text(other_lots) if other_lots else None, product=chain.trained_product,
                 n_trained=n_trained))
     if revised:
-        b.add(_part("lots", "revised", n=len(revised), lots=_revised_text(revised), model_id=chain.model_id))
+        b.add(_part("lots", "revised", n=len(revised), lots=revised_text(revised), model_id=chain.model_id))
 
     present, source = _presence(table, lots)
     b.add(_part("blocks", "h3", text="Which tables each lot has"))
@@ -1412,7 +1409,7 @@ def _model_card(b, chain, spec, window, revised=()):
         ["trained", trained_text(chain.created_at)],  # to the second, in UTC, as the report's heading
         ["chain", _part("card", "stages", stages=chain.stages)],
         ["training lots", _part("card", "training_lots", n=len(lots), lots=_lots_text(lots, limit=200))],
-        *([["training lots revised since", _part("card", "revised", n=len(revised), lots=_revised_text(revised))]]
+        *([["training lots revised since", _part("card", "revised", n=len(revised), lots=revised_text(revised))]]
           if revised else []),
         ["data hash (SHA-256 of the training table)", _part("card", "code", text=tr.get("table_sha256", "n/a"))],
         ["library versions", versions or "n/a"],

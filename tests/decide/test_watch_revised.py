@@ -29,6 +29,9 @@ def test_only_training_lots_revised_after_the_model_are_named():
     assert revised_since_training(lots, ["A", "C"], trained_at) == []
     (line,) = revised_lines(found, "m-1")
     assert line.startswith("!! 2 lot(s) model m-1 was trained on were revised after it was trained: B (revision 2")
+    # the times as every text shows them (to the second, in UTC: 03:00 at +02:00 is 01:00 UTC); regression of the
+    # text, no outside source needed
+    assert "B (revision 2, 2026-01-03 00:00:00 UTC), E (revision 2, 2026-01-02 01:00:00 UTC)" in line
     assert revised_lines([], "m-1") == []
 
 

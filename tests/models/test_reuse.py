@@ -6,8 +6,8 @@ is checked on the demo's registry in tests/report/test_demo_sections.py."""
 from __future__ import annotations
 
 import dataclasses
-
 import json
+import re
 
 import numpy as np
 
@@ -70,6 +70,8 @@ def test_a_result_comes_back_bit_for_bit_and_type_for_type(tmp_path):
     assert back is not None and back.made_by == "linkage window"
     _same(stored, back.result)
     assert "Reused, not recomputed" in back.sentence("the window") and "'linkage window'" in back.sentence("x")
+    # its time as every text shows one (to the second, UTC said); regression of the text, no outside source needed
+    assert re.search(r"computed it at \d{4}-\d\d-\d\d \d\d:\d\d:\d\d UTC for", back.sentence("x"))
 
 
 def test_nothing_is_found_under_another_key_kind_or_model_or_in_a_spoilt_file(tmp_path):
