@@ -327,21 +327,26 @@ def _preview_ingest(folder: Path, store: Path, exists: bool, *, reason: str | No
 def _preview_store(stack: contextlib.ExitStack, store: Path, exists: bool):
     """The store a preview decides on, entered on ``stack``: the store itself opened for reading only; for a
     store of an earlier schema that needs its upgrade to be read (schema 1), an upgraded copy in a temporary
-    folder (``store.upgraded_copy``), as the ingest would upgrade the store before deciding; for a store that
-    does not exist, an empty one there. The temporary folder is removed when ``stack`` closes."""
+    folder (:func:`linkage.store.upgraded_copy`), as the ingest would upgrade the store before deciding; for a store that
+    does not exist (or an SQLite file without a table, in which the ingest makes it), an empty one there. The
+    temporary folder is removed when ``stack`` closes."""
     import tempfile
 
-    from linkage.store import LotStore, StoreNeedsUpgrade, upgraded_copy
+    from linkage.store import EmptyStoreFile, LotStore, StoreNeedsUpgrade, can_write, upgraded_copy
 
     if exists:
+        version = None
         try:
             return stack.enter_context(LotStore(store, create=False, read_only=True))
+        except EmptyStoreFile:  # an SQLite file without a table: the ingest makes the store in it, as in no file
+            pass
         except StoreNeedsUpgrade as exc:
-            if not (os.access(store, os.W_OK) and os.access(store.parent, os.W_OK)):
+            if not can_write(store):
                 exc.ingest_refusal = True  # the ingest can neither upgrade it nor write to it: its own refusal
                 raise
             version = exc.version
-        return upgraded_copy(stack, store, version)
+        if version is not None:
+            return upgraded_copy(stack, store, version)
     if store.is_dir() or not store.parent.is_dir():
         with _ingest_refusal():
             LotStore(store)  # raises the refusal of a first ingest (StorePathError) before it makes anything
@@ -598,27 +603,34 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
               "confidence": confidence, "seed": seed, "assurance": assurance}
     recorded = will_record and record_entry(store, "window", model_id=result.model_id, inputs=inputs,
                                             outputs=result.to_dict(curve=False))
-    aside, note = _set_aside_in_training(store, chain)
+    aside, note, unread = _set_aside_in_training(store, chain)
     return Window(result=result, recorded=recorded, store=None if store is None else Path(store),
-                  set_aside_in_training=tuple(aside), set_aside_note=note)
+                  set_aside_in_training=tuple(aside), set_aside_note=note, set_aside_unread=unread)
 
 
-def _set_aside_in_training(store, chain) -> tuple[list[str], str | None]:
+def _set_aside_in_training(store, chain) -> tuple[list[str], str | None, str | None]:
     """The lots of ``chain``'s training set (a fitted or a lean chain: ``training_lots``) that the store now holds
-    set aside, and the note that says so (:func:`linkage.store.set_aside_trained_note`, as ``watch`` and
-    ``retrain`` say it; ``window`` and ``space``); none where there is no store or it cannot be read (an older
-    store is not upgraded for a note: :func:`linkage.store.reading`)."""
-    from linkage.exceptions import LinkageError
+    set aside, the note that says so (:func:`linkage.store.set_aside_trained_note`, as ``watch`` and ``retrain``
+    say it; ``window`` and ``space``), and why the store was not read for them (None when it was, or when
+    ``store`` is None): it does not exist, or it could not be read (not a lot store, a newer one, damaged, busy;
+    the command line says so: :func:`linkage.cli.common.note_set_aside_unread`). A store that fails its integrity
+    check is refused (:class:`~linkage.exceptions.StoreIntegrityError`, exit code 6), as every command that
+    reads it refuses it. An older store is not upgraded for a note (:func:`linkage.store.reading`)."""
+    from linkage.exceptions import LinkageError, StoreIntegrityError
     from linkage.store import reading, set_aside_trained_note
 
-    if store is None or not Path(store).is_file():
-        return [], None
+    if store is None:
+        return [], None, None
+    if not Path(store).exists():
+        return [], None, f"no lot store at {store}"
     try:
         with reading(store) as lot_store:
             aside = lot_store.set_aside_lots()
-    except LinkageError:
-        return [], None
-    return set_aside_trained_note(aside, chain.training_lots, chain.model_id)
+    except StoreIntegrityError:
+        raise
+    except LinkageError as exc:
+        return [], None, str(exc)
+    return (*set_aside_trained_note(aside, chain.training_lots, chain.model_id), None)
 
 
 def transfer(store=DEFAULT_STORE, *, roll_diameter_mm: float, roll_width_mm: float, roll_gap_mm: float,
@@ -729,12 +741,13 @@ def space(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="la
     if model is None or isinstance(model, str):  # a model of the registry, loaded and checked here (issue 20)
         _keep(models_dir, result.model_id, "space", _spec(spec), result, "linkage space", x=x, y=y, n_grid=n_grid,
               settings=settings, confidence=confidence, assurance=assurance, seed=seed)  # for the report
-    aside, note = _set_aside_in_training(store, lean)  # the store's state now: not kept with the map
-    if not aside:
+    aside, note, unread = _set_aside_in_training(store, lean)  # the store's state now: not kept with the map
+    if not aside and unread is None:
         return result
     import dataclasses
 
-    return dataclasses.replace(result, set_aside_in_training=tuple(aside), set_aside_note=note)
+    return dataclasses.replace(result, set_aside_in_training=tuple(aside), set_aside_note=note,
+                               set_aside_unread=unread)
 
 
 def _keep(models_dir, model_id, kind: str, spec, result, made_by: str, **arguments) -> None:

@@ -113,7 +113,7 @@ def verify_record(store: Path | None, models_dir: Path | None, *, registry_requi
                     raise UsageError(lot_store.nothing_to_reanchor())
                 result.store_counts = lot_store.check_seals(full=True)
                 result.store_cautions = _anchor_cautions(Path(store), result.store_counts)
-                if lot_store.upgraded_copy:  # schema 1: no seals of its own; say what was and was not checked
+                if lot_store.from_copy:  # schema 1: no seals of its own; say what was and was not checked
                     result.store_counts = _unsealed_counts(result.store_counts)
                     result.store_cautions = [_unsealed_caution(Path(store), lot_store.older_schema,
                                                                result.store_counts)]

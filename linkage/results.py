@@ -511,6 +511,9 @@ class Window(_Result):
     #: the model's training lots that the store now holds set aside, and what ``watch`` says of them
     set_aside_in_training: tuple[str, ...] = ()
     set_aside_note: str | None = None
+    #: why the store was not read for them (it does not exist, or could not be read); None when it was, or when no
+    #: store was given (:func:`linkage.api.window`; the command line says it on stderr)
+    set_aside_unread: str | None = None
 
     def to_dict(self, curve: bool = True) -> dict:
         """What ``linkage window --json`` prints (with ``set_aside_in_training``: the model's training lots set

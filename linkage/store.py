@@ -14,11 +14,16 @@ What it keeps
   a store written before keeps its rows in ``raw_rows``, one SQLite row per
   raw row, read as before.
 - Schema 3 migration: a schema 1 or 2 store is upgraded in place, in one
-  transaction, when first opened with write access (``row_blocks`` added,
-  its append-only triggers, one ``upgrade`` seal); its existing rows are
-  not moved or rewritten, so their seals and row hashes stay valid. A store
-  on a read-only file system is read as it is (schema 2 and 3; schema 1
-  must be opened once with write access to be sealed).
+  transaction, by the first command that writes to it (an ingest, a
+  set-aside, a recorded window or what-if...; ``row_blocks`` added, its
+  append-only triggers, one ``upgrade`` seal); its existing rows are not
+  moved or rewritten, so their seals and row hashes stay valid. A command
+  that records nothing (``lots``, ``history``, ``audit``, ``assemble``,
+  ``report``, ``verify``, ``space``, ``window``/``predict --no-record``:
+  :func:`reading`) leaves it as it is, byte for byte: schema 2 is read as
+  it is, schema 1 (before seals) from an upgraded temporary copy
+  (:func:`upgraded_copy`). A store on a read-only file system is read the
+  same way.
 - A lot's *revision* covers all its rows in all tables. An ingest that
   changes any of a lot's rows makes a new revision of that lot only; the
   tables the ingest does not carry over unchanged from the previous revision
@@ -90,7 +95,8 @@ _read = OnFirstUse("linkage.read")
 
 #: 2: seals (tamper evidence, linkage/seal.py), lot_table_hashes and ingests.reason;
 #: 3: row_blocks (an ingest's raw rows of a table in one record, see the module notes). An earlier store is
-#: upgraded when it is first opened with write access, and read as it is where it cannot be written.
+#: upgraded by the first command that writes to it; a command that records nothing reads it as it is (schema 2) or
+#: from an upgraded temporary copy (schema 1), and so does every command where the store cannot be written.
 SCHEMA_VERSION = 3
 #: PRAGMA application_id of a linkage store ("LNKG").
 APPLICATION_ID = 0x4C4E4B47
@@ -610,6 +616,48 @@ def restored_since_training(chain, new_lots, notes: list[str], what: str = "sinc
     return lots
 
 
+def can_write(path) -> bool:
+    """Whether this account can write the store at ``path``: its file and its folder (where SQLite keeps the
+    -wal and -shm files beside it)."""
+    path = Path(path)
+    return os.access(path, os.W_OK) and os.access(path.parent, os.W_OK)
+
+
+def _wal_beside(path: Path) -> bool:
+    """Whether a -wal file is beside the store: a writer is at work, or one crashed before its last close."""
+    return Path(f"{path}-wal").exists()
+
+
+def _reading_uri(path: Path, writable: bool) -> str:
+    """The URI of a connection that reads the store and writes nothing of it (sqlite.org, "URI filenames"):
+    where this account cannot write it, ``immutable=1`` (SQLite neither writes its -shm file nor expects another
+    writer); else ``mode=ro``, for a store beside a -wal file, whose committed transactions it reads: a read-only
+    connection neither copies the -wal into the store (a checkpoint) nor deletes it when it closes, as the last
+    connection that could write does (sqlite.org, "Write-Ahead Logging"); SQLite still keeps its -shm index (no
+    content of the store) beside it. Not used where no -wal is there: a read-only connection then leaves an
+    empty -wal and a -shm behind, where a query-only one leaves nothing."""
+    uri = Path(path).resolve().as_uri()
+    return f"{uri}?mode=ro&immutable=1" if not writable else f"{uri}?mode=ro"
+
+
+def _damage_of(exc: BaseException | None) -> sqlite3.Error | None:
+    """The SQLite error that ``exc`` is, or was raised while handling, when it says the file is damaged
+    (SQLITE_CORRUPT, SQLITE_NOTADB: sqlite.org, "Result and Error Codes"); else None."""
+    for _ in range(4):
+        if exc is None:
+            return None
+        if isinstance(exc, sqlite3.Error):
+            return exc if (getattr(exc, "sqlite_errorcode", 0) or 0) & 0xFF in (11, 26) else None
+        exc = exc.__context__
+    return None
+
+
+class EmptyStoreFile(StorePathError):
+    """An SQLite file without a table where a lot store was named, opened by a command that must not write
+    (``read_only`` or ``upgrade=False``): refused as no store at all is (``create=False``; exit code 2), since
+    making the store in it would write it. A command that writes (an ingest) makes the store in it."""
+
+
 class StoreNeedsUpgrade(StoreError):
     """A store of an earlier schema that cannot be read as it is where it is opened for reading only
     (``LotStore(read_only=True)`` or ``upgrade=False``; schema 1, before seals): an ingest with write access
@@ -667,10 +715,10 @@ class LotStore:
         #: the newest seal ({"id", "sha256"}) of a store with seals but no anchor file; None otherwise
         self.unanchored: dict | None = None
         #: the schema of a store written by an earlier linkage and read without its upgrade (as it is, or from an
-        #: upgraded temporary copy: :attr:`upgraded_copy`); None for a store of the current schema or one upgraded
+        #: upgraded temporary copy: :attr:`from_copy`); None for a store of the current schema or one upgraded
         self.older_schema: int | None = None
         #: read from an upgraded temporary copy of the store (:func:`upgraded_copy`; schema 1), not from the store
-        self.upgraded_copy = False
+        self.from_copy = False
         #: the store whose anchor file is checked: this one (a copy's own, where :attr:`path` names the store copied)
         self._anchored = self.path
         if self.path.is_dir():
@@ -688,25 +736,15 @@ class LotStore:
         #: a store on a read-only file system (or a file this account cannot write) is opened for reading only:
         #: immutable, so SQLite neither writes its -shm file nor expects another writer (sqlite.org, "URI
         #: filenames": immutable=1); every command that only reads works, and a write is refused clearly
-        writable = os.access(self.path, os.W_OK) and os.access(self.path.parent, os.W_OK)
+        writable = can_write(self.path)
         #: whether this account can write the store (its file and its folder), whatever ``read_only`` asked; a
         #: store this opening creates is
         self.writable = writable or not exists
         self.read_only = exists and (read_only or not writable)
-        try:
-            if self.read_only and not writable:
-                uri = f"{self.path.resolve().as_uri()}?mode=ro&immutable=1"
-                self._conn = sqlite3.connect(uri, uri=True, timeout=busy_timeout_s, isolation_level=None)
-            else:
-                self._conn = sqlite3.connect(self.path, timeout=busy_timeout_s, isolation_level=None)
-                if self.read_only:  # a writable file read only: closed as a writer closes it (no -wal left)
-                    self._conn.execute("PRAGMA query_only = ON")
-        except sqlite3.Error as exc:
-            raise StoreError(f"cannot open the lot store {self.path}: {exc}") from None
-        # the reader's lot identity (linkage.lotid.lot_key) in SQL: a lot given on the command line finds its entries
-        # whatever their spelling (case, dash, compatibility form), as an ingest finds the stored lot
-        self._conn.create_function("lot_key", 1, lambda lot: None if lot is None else lot_key(str(lot)),
-                                   deterministic=True)
+        #: opened to read only (``read_only``, or ``upgrade=False`` until the schema is known) beside a -wal file
+        #: that a writer left (one that crashed, or one at work): a read-only connection (:func:`_reading_uri`)
+        self._wal_read = exists and writable and (read_only or not upgrade) and _wal_beside(self.path)
+        self._conn = self._connect()
         try:
             self._setup()
             if self.unanchored is not None and for_writing:
@@ -715,6 +753,22 @@ class LotStore:
             self._conn.close()
             raise
         self._warn_cautions(stacklevel=3)
+
+    def _connect(self) -> sqlite3.Connection:
+        try:
+            if self.read_only and not self.writable or self._wal_read:
+                conn = sqlite3.connect(_reading_uri(self.path, self.writable), uri=True,
+                                       timeout=self.busy_timeout_s, isolation_level=None)
+            else:
+                conn = sqlite3.connect(self.path, timeout=self.busy_timeout_s, isolation_level=None)
+                if self.read_only:  # a writable file read only: closed as a writer closes it (no -wal left)
+                    conn.execute("PRAGMA query_only = ON")
+        except sqlite3.Error as exc:
+            raise StoreError(f"cannot open the lot store {self.path}: {exc}") from None
+        # the reader's lot identity (linkage.lotid.lot_key) in SQL: a lot given on the command line finds its entries
+        # whatever their spelling (case, dash, compatibility form), as an ingest finds the stored lot
+        conn.create_function("lot_key", 1, lambda lot: None if lot is None else lot_key(str(lot)), deterministic=True)
+        return conn
 
     def _warn_cautions(self, stacklevel: int = 2) -> None:
         """Each of :meth:`cautions` as a :class:`~linkage.exceptions.StoreCaution` warning (the command line
@@ -735,7 +789,7 @@ class LotStore:
         if self.unanchored is not None:
             out.append(_seal.unanchored_caution(self.path, self.unanchored["id"], self.unanchored["sha256"]))
         if self.older_schema is not None:
-            out.append(older_schema_caution(self.path, self.older_schema, copy=self.upgraded_copy))
+            out.append(older_schema_caution(self.path, self.older_schema, copy=self.from_copy))
         return out
 
     # ---- opening
@@ -743,8 +797,7 @@ class LotStore:
     def _setup(self) -> None:
         c = self._conn
         try:
-            c.execute(f"PRAGMA busy_timeout = {int(self.busy_timeout_s * 1000)}")
-            c.execute("PRAGMA foreign_keys = ON")
+            self._pragmas(c)
             # the tables first, then the id: _create commits both in one transaction, so a schema seen
             # here always comes with its id, and a store another process creates between the two reads
             # shows as (LNKG, no tables) or (0, no tables), which _create re-checks under the write lock
@@ -761,11 +814,25 @@ class LotStore:
                 raise StorePathError(f"{self.path} was written by a newer linkage (store schema {version}; "
                                  f"this version reads {SCHEMA_VERSION})")
         elif app_id == 0 and not names:
+            if self.read_only or not self.upgrade:  # making the store in it would write it: refused as no store is
+                raise EmptyStoreFile(f"no lot store at {self.path} (an SQLite file without a table: nothing was ever "
+                                     "stored in it; left as it is); run `linkage ingest FOLDER` first, or point --store "
+                                     "(or LINKAGE_STORE) at the store")
             self._create()
             version = SCHEMA_VERSION
         else:
             shown = ", ".join(names[:6]) or "none"
             raise StorePathError(f"{self.path} is an SQLite file but not a linkage lot store (tables: {shown})")
+        if self._wal_read and not self.read_only and version == SCHEMA_VERSION:
+            # a store of the current schema that a command recording nothing opens: opened as before (a read-only
+            # connection closes without a checkpoint, which is kept for the older stores only)
+            self._conn.close()
+            self._wal_read = False
+            self._conn = c = self._connect()
+            try:
+                self._pragmas(c)
+            except sqlite3.DatabaseError as exc:
+                raise self._error(exc) from None
         if not self.read_only and not self.upgrade and version < SCHEMA_VERSION:
             # a command that records nothing: an older store read as it is, never upgraded (nor anything written)
             c.execute("PRAGMA query_only = ON")
@@ -787,6 +854,10 @@ class LotStore:
             self._upgrade()
         self.check_seals()
         self.unanchored = self._missing_anchor(c)
+
+    def _pragmas(self, c) -> None:
+        c.execute(f"PRAGMA busy_timeout = {int(self.busy_timeout_s * 1000)}")
+        c.execute("PRAGMA foreign_keys = ON")
 
     def _missing_anchor(self, c) -> dict | None:
         """The newest seal ({"id", "sha256"}) when the store holds seals but no anchor file; else None (an
@@ -1847,15 +1918,19 @@ def backup_copy(path: Path, to: Path) -> None:
     and the commands that only read, of a store that must be upgraded first: the copy is upgraded, the store
     is not."""
     path = Path(path)
-    writable = os.access(path, os.W_OK) and os.access(path.parent, os.W_OK)
+    writable = can_write(path)
     try:
-        with closing(sqlite3.connect(path, timeout=BUSY_TIMEOUT_S, isolation_level=None) if writable else
-                     sqlite3.connect(f"{path.resolve().as_uri()}?mode=ro&immutable=1", uri=True,
+        with closing(sqlite3.connect(path, timeout=BUSY_TIMEOUT_S, isolation_level=None)
+                     if writable and not _wal_beside(path) else
+                     sqlite3.connect(_reading_uri(path, writable), uri=True, timeout=BUSY_TIMEOUT_S,
                                      isolation_level=None)) as source, \
                 closing(sqlite3.connect(to, isolation_level=None)) as copy:
             source.execute("PRAGMA query_only = ON")
             source.backup(copy)
     except sqlite3.Error as exc:
+        if _damage_of(exc) is not None:  # the store's pages, as verify's integrity check would find them
+            raise StoreIntegrityError(f"lot store {path} is damaged: {exc} (found while copying it to read it; the "
+                                      "store was not changed)") from None
         raise StoreError(f"cannot copy the lot store {path} to {to}: {exc}") from None
 
 
@@ -1875,21 +1950,50 @@ def upgraded_copy(stack: ExitStack, path: Path, version: int = 1) -> LotStore:
     :func:`backup_copy` into a temporary folder, upgraded there, opened and entered on ``stack`` (which removes
     the folder when it closes); the store and its folder are not touched. The copy answers as the store would
     (:attr:`LotStore.path` names the store, its anchor file is the copy's own), refuses every write, and says
-    that it is a copy (:attr:`LotStore.older_schema`, :attr:`LotStore.upgraded_copy`, :meth:`LotStore.cautions`,
+    that it is a copy (:attr:`LotStore.older_schema`, :attr:`LotStore.from_copy`, :meth:`LotStore.cautions`,
     warned as a :class:`~linkage.exceptions.StoreCaution`). For an ingest's preview and the commands that only
-    read (:func:`reading`)."""
+    read (:func:`reading`).
+
+    A copy that is no longer of schema 1 (a writer upgraded the store after it was found to need it): the store
+    itself, opened for reading only (``LotStore(read_only=True)``). An error while the copy is read or upgraded
+    names the store, not the copy; damage found in it (SQLite's "malformed") is damage of the store
+    (:class:`~linkage.exceptions.StoreIntegrityError`, exit code 6), as :meth:`LotStore.check_seals` finds it."""
     import tempfile
 
     path = Path(path)
     scratch = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="linkage-read-")))
-    backup_copy(path, scratch / path.name)
-    copy = stack.enter_context(LotStore(scratch / path.name, create=False))
+    copied = scratch / path.name
+    backup_copy(path, copied)
+    try:
+        with closing(sqlite3.connect(copied, isolation_level=None)) as con:
+            now = con.execute("SELECT MAX(version) FROM schema_version").fetchone()[0]
+        copy = None if (now or 1) >= 2 else stack.enter_context(LotStore(copied, create=False))
+    except (sqlite3.Error, StoreError, StoreBusyError) as exc:
+        raise _as_the_store(exc, copied, path) from None
+    if copy is None:  # upgraded meanwhile by a writer: the store itself is read, as any store of its schema is
+        return stack.enter_context(LotStore(path, create=False, read_only=True))
     # answers for the store: its name, and whether this account could write it (an ingest's preview refuses alike)
     copy.path, copy.read_only = path, True
-    copy.writable = os.access(path, os.W_OK) and os.access(path.parent, os.W_OK)
-    copy.older_schema, copy.upgraded_copy = version, True
+    copy.writable = can_write(path)
+    copy.older_schema, copy.from_copy = version, True
     copy._warn_cautions(stacklevel=3)
     return copy
+
+
+def _as_the_store(exc: BaseException, copied: Path, path: Path) -> BaseException:
+    """An error met while a temporary copy (``copied``) of the store at ``path`` was read or upgraded, said of the
+    store: its words name the store, and damage is the store's (:class:`StoreIntegrityError`, as
+    :meth:`LotStore.check_seals` says it)."""
+    damage = _damage_of(exc)
+    if damage is not None and not isinstance(exc, StoreIntegrityError):
+        return StoreIntegrityError(f"lot store {path} is damaged: {damage} (found in a temporary copy of it, made "
+                                   "to read it without upgrading it; the store was not changed)")
+    text = str(exc).replace(str(copied), str(path))
+    if isinstance(exc, sqlite3.Error):
+        return StoreError(f"lot store {path}: {text}")
+    out = type(exc)(text)
+    out.__dict__.update(exc.__dict__)
+    return out
 
 
 def open_to_read(stack: ExitStack, path) -> LotStore:

@@ -121,6 +121,26 @@ def test_a_store_that_does_not_exist_is_not_created(tmp_path):
     assert list(where.iterdir()) == []
 
 
+def test_an_empty_sqlite_file_is_previewed_as_a_first_ingest_and_left_as_it_is(tmp_path):
+    """Regression: the preview of an ingest into an SQLite file without a table (what a killed first ingest, or
+    another tool, leaves) was refused as "read-only here", though the ingest makes the store in it. Now it previews
+    the first ingest, on an empty store of its own, and leaves the file and its folder byte for byte; the ingest
+    then agrees. The reference is the real ingest: no outside source."""
+    import sqlite3
+    from contextlib import closing
+
+    where = tmp_path / "db"
+    where.mkdir()
+    store = where / "e.db"
+    with closing(sqlite3.connect(store)) as con:
+        con.execute("PRAGMA journal_mode = WAL")
+    before = _files(where)
+    data = folder(tmp_path, "first", process=PROCESS, ribbon=RIBBON)
+    preview = api.ingest(data, store, preview=True)
+    assert preview.result.lots_new == ["A", "B"] and _files(where) == before
+    assert api.ingest(data, store).result.lots_new == preview.result.lots_new
+
+
 def test_a_store_without_its_anchor_is_refused_by_the_preview_as_by_the_ingest(tmp_path, stored):
     """Regression: the preview of a store whose anchor file was removed went through (exit 0, a caution) where
     the ingest is refused with exit code 6; a script pre-checking with the preview was told yes. Now the same

@@ -746,3 +746,47 @@ def test_the_map_of_a_model_fitted_on_a_lot_now_set_aside_says_so_as_the_window_
     assert missing.exit_code == 0 and "set aside" not in missing.stdout
     assert f"no lot store at {folder / 'no-such.db'}" in missing.stderr and not (folder / "no-such.db").exists()
     assert _dump(path) == before  # read, never written
+
+
+@pytest.mark.slow
+def test_space_and_the_unrecorded_window_refuse_a_tampered_store_and_say_when_a_store_could_not_be_read(aside_lab,
+                                                                                                         tmp_path):
+    """Regression: ``space --store`` and ``window --no-record --store`` exited 0 and said nothing when the store
+    failed its integrity check (every other command that reads it exits 6) or was not a lot store: the lookup of
+    the training lots set aside swallowed every error. Now a tampered store is refused, exit code 6, as ``lots``
+    refuses it; a file that is not a lot store, and a store named that does not exist, are said on stderr, with
+    the training lots set aside not looked for, by both commands in the same words. A regression test of refusals
+    and notes: no outside source."""
+    from linkage.synthetic import WINDOW_SPEC, spec_toml
+
+    path, models, first, lot, folder = aside_lab
+    spec = tmp_path / "spec.toml"
+    spec.write_text(spec_toml(WINDOW_SPEC), encoding="utf-8")
+    tampered = tmp_path / "tampered.db"
+    shutil.copy(path, tampered)
+    shutil.copy(seal.anchor_path(path), seal.anchor_path(tampered))
+    with closing(sqlite3.connect(tampered)) as con:
+        decision = con.execute("SELECT id FROM audit WHERE action = 'set-aside' ORDER BY id").fetchone()[0]
+    _edit(tampered, "UPDATE audit SET inputs_json = ? WHERE id = ?", (json.dumps({"reason": "routine"}), decision))
+    other = tmp_path / "other.db"
+    with closing(sqlite3.connect(other)) as con:
+        con.execute("CREATE TABLE results (a)")
+        con.commit()
+    missing = tmp_path / "no-such.db"
+    commands = {"space": ["space", "--grid", "5"], "window": ["window", "--draws", "200", "--no-record"]}
+    for name, head in commands.items():
+        args = [*head, "--models-dir", models, "--model", first.model_id, "--spec", spec, "--store"]
+        assert _run(["lots", "--store", tampered]).exit_code == 6
+        refused = _run([*args, tampered])
+        assert refused.exit_code == 6 and f"audit record {decision} was changed" in refused.stderr, name
+        unread = _run([*args, other])
+        assert unread.exit_code == 0, unread.output
+        assert (f"Note: the lot store {other} could not be read ({other} is an SQLite file but not a linkage lot "
+                "store (tables: results)); the model's training lots now set aside were not looked for."
+                in unread.stderr), (name, unread.stderr)
+        absent = _run([*args, missing])
+        assert absent.exit_code == 0 and (f"Note: no lot store at {missing}; the model's training lots now set "
+                                          "aside were not looked for." in absent.stderr), (name, absent.stderr)
+        assert not missing.exists()
+        read = _run([*args, path])
+        assert "could not be read" not in read.stderr and "not looked for" not in read.stderr

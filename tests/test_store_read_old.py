@@ -229,8 +229,8 @@ def test_report_and_the_unrecorded_what_if_and_window_leave_an_older_store_as_it
         upgraded = run_cli([*args, "--store", twin, "--models-dir", models])
         assert got.exit_code == upgraded.exit_code == 0, got.output
         mine, theirs = json.loads(got.stdout), json.loads(upgraded.stdout)
-        for d in (mine, theirs):  # the run's own time and the store's path are not the store's content
-            for key in ("created_at", "store"):
+        for d in (mine, theirs):  # the run's own times and the store's path are not the store's content
+            for key in ("created_at", "made_at", "store"):
                 d.pop(key, None)
         assert mine == theirs, args[0]
         assert got.stderr.count(f"written by an earlier linkage (store schema {version}") == 1
@@ -246,3 +246,123 @@ def test_a_refused_reanchor_leaves_an_older_store_as_it_was(tmp_path):
     got = run_cli(["verify", "--store", store, "--reanchor", "--reason", "anchor lost in the copy"])
     assert got.exit_code == 2 and "no seals yet" in got.stderr, got.output
     assert _files(store.parent) == before and _schema(store) == 1
+
+
+def _empty_sqlite(path: Path) -> Path:
+    """An SQLite file without a table, in WAL mode (what a killed first ingest, or another tool, can leave)."""
+    with closing(sqlite3.connect(path)) as con:
+        con.execute("PRAGMA journal_mode = WAL")
+    return path
+
+
+def test_a_reading_command_does_not_make_a_store_in_an_empty_sqlite_file(tmp_path):
+    """Regression: ``lots --store e.db`` on an SQLite file without a table made the store in it (tables, seal,
+    ``e.db.seal`` and ``e.db.seal.lock`` beside it), though the command records nothing. Now it is refused as no
+    store is (exit code 2, "no lot store at ..."), and the folder is left byte for byte; the ingest still makes the
+    store in it. A regression test of a refusal: no outside source."""
+    folder = tmp_path / "db"
+    folder.mkdir()
+    store = _empty_sqlite(folder / "e.db")
+    before = _files(folder)
+    for args in (["lots"], ["audit"], ["history", "EX-001"], ["assemble"], ["verify"]):
+        got = run_cli([*args, "--store", store])
+        assert got.exit_code == 2 and f"no lot store at {store}" in got.stderr, (args, got.output)
+        assert _files(folder) == before, args
+    done = run_cli(["ingest", DATA / "template-example", "--store", store])
+    assert done.exit_code == 0 and _schema(store) == SCHEMA_VERSION, done.output
+
+
+def test_the_errors_of_a_damaged_schema_1_store_name_the_store_and_verify_says_it_is_not_whole(tmp_path):
+    """Regression: a damaged schema 1 store (read from an upgraded temporary copy) was reported by the name of the
+    temporary copy, already removed ("lot store /tmp/linkage-read-.../old.db: database disk image is malformed",
+    exit code 5), and ``verify`` exited 5 without its verdict, where damage found in a current store is a store
+    problem (exit code 6, "The record is NOT whole."). Now the store is named, and the damage is the store's, as
+    the check of a current store says it. A regression test of a refusal: no outside source."""
+    store = _copy("store-v1.db", tmp_path / "db")
+    with open(store, "r+b") as fh:  # a page of the lot tables overwritten (SQLite then finds the file malformed)
+        fh.seek(7 * 4096)
+        fh.write(b"\x00\xff\xff\xff")
+    before = _files(store.parent)
+    got = run_cli(["lots", "--store", store])
+    assert got.exit_code == 6 and f"lot store {store} is damaged" in got.stderr, got.output
+    assert "linkage-read-" not in got.stderr
+    checked = run_cli(["verify", "--store", store])
+    assert checked.exit_code == 6 and "The record is NOT whole." in checked.stdout, checked.output
+    assert f"store: lot store {store} is damaged" in checked.stderr and "linkage-read-" not in checked.stderr
+    assert _files(store.parent) == before
+
+
+#: a writer that commits two transactions (a table made and dropped: the store's content unchanged) and dies
+#: before it closes, leaving its -wal beside the store, not copied into it (no checkpoint)
+_CRASHED_WRITER = """
+import os, sqlite3, sys
+con = sqlite3.connect(sys.argv[1], isolation_level=None)
+con.execute("PRAGMA wal_autocheckpoint = 0")
+con.execute("CREATE TABLE scratch_left (a)")
+con.execute("DROP TABLE scratch_left")
+os._exit(0)
+"""
+
+
+def test_a_crashed_writers_wal_beside_an_older_store_is_left_as_it_is(old, tmp_path):
+    """Regression: a reading command opened an older store beside a -wal left by a crashed writer with a
+    connection that could write (SQLite's ``query_only``), which at its close, the last one, copied the -wal into
+    the store (a checkpoint) and deleted the -wal and -shm: the store's bytes changed (not its content). Now such a
+    store is read through a read-only connection (sqlite.org, "URI filenames": ``mode=ro``), which reads the -wal's
+    transactions and neither checkpoints nor deletes it: the store and the -wal are byte for byte as before
+    (SQLite's -shm index beside them, which holds no content, may be rebuilt). A regression test of the project's
+    own contract: no outside source."""
+    import subprocess
+    import sys
+
+    store, version, twin = old
+    wal = Path(f"{store}-wal")
+    subprocess.run([sys.executable, "-c", _CRASHED_WRITER, str(store)], check=True)
+    assert wal.stat().st_size > 0
+    before = {k: v for k, v in _files(store.parent).items() if not k.endswith("-shm")}
+    for args in (["lots", "--json"], ["verify", "--json"]):
+        got = run_cli([*args, "--store", store])
+        assert got.exit_code == 0, got.output
+        assert {k: v for k, v in _files(store.parent).items() if not k.endswith("-shm")} == before, args
+    assert json.loads(run_cli(["lots", "--json", "--store", store]).stdout) == \
+        json.loads(run_cli(["lots", "--json", "--store", twin]).stdout)
+    assert _schema(store) == version
+
+
+def test_a_store_upgraded_by_a_writer_while_it_was_copied_is_read_as_a_current_store(tmp_path, monkeypatch):
+    """Regression (a race): a schema 1 store upgraded by a writer after a reading command found it needed the
+    upgrade and before it was copied gave a copy of schema 3, still marked as a schema 1 store read from a copy
+    (its caution said so, and ``verify`` counted no seals). Now the copy's schema is read first: the store, current
+    by then, is read itself, with no caution. The writer is simulated by upgrading the store just before the copy.
+    A regression test of the project's own contract: no outside source."""
+    from contextlib import ExitStack
+
+    from linkage import store as store_module
+
+    path = _copy("store-v1.db", tmp_path / "db")
+    real_copy = store_module.backup_copy
+
+    def upgraded_first(source, to):
+        with LotStore(source, create=False):  # the writer: opened for writing, so upgraded
+            pass
+        real_copy(source, to)
+
+    monkeypatch.setattr(store_module, "backup_copy", upgraded_first)
+    with warnings.catch_warnings(record=True) as caught, ExitStack() as stack:
+        warnings.simplefilter("always")
+        s = store_module.open_to_read(stack, path)
+        assert s.path == path and s.older_schema is None and not s.from_copy and s.cautions() == []
+        assert s.check_seals(full=True)["seals"] > 0
+    assert not [w for w in caught if issubclass(w.category, StoreCaution)]
+    assert _schema(path) == SCHEMA_VERSION
+
+
+def test_reanchor_of_a_schema_2_store_whose_anchor_is_there_is_refused_and_writes_nothing(tmp_path):
+    """``verify --reanchor --reason`` on a schema 2 store with its anchor file: nothing to anchor again, refused
+    (exit code 2) on the store read as it is, before any upgrade: the store, its anchor and its folder are left
+    byte for byte. A regression test of a refusal: no outside source."""
+    store = _copy("store-v2.db", tmp_path / "db")
+    before = _files(store.parent)
+    got = run_cli(["verify", "--store", store, "--reanchor", "--reason", "anchor lost in the copy"])
+    assert got.exit_code == 2 and "nothing to anchor again" in got.stderr, got.output
+    assert _files(store.parent) == before and _schema(store) == 2

@@ -55,6 +55,21 @@ def store_named() -> bool:
     return source is not click.core.ParameterSource.DEFAULT or bool(os.environ.get(STORE_ENV))
 
 
+def note_set_aside_unread(store, unread: str | None) -> None:
+    """Say on stderr that the model's training lots now set aside were not looked for (``window``, ``space``:
+    ``set_aside_unread``, why the store was not read): a store that does not exist, when the user named it (the
+    default linkage.db may lack); a store that could not be read, always. Nothing when it was read."""
+    if unread is None:
+        return
+    if not Path(store).exists():
+        if store_named():
+            tell_progress(f"Note: no lot store at {store}; the model's training lots now set aside were not looked "
+                          "for.")
+        return
+    tell_progress(f"Note: the lot store {store} could not be read ({unread.rstrip('.')}); the model's training "
+                  "lots now set aside were not looked for.")
+
+
 def models_dir_option(f):
     return click.option(
         "--models-dir",

@@ -8,7 +8,8 @@ from pathlib import Path
 import click
 
 from linkage.cli.common import (PROBABILITY, check_output, handle_errors, json_option, models_dir_option,
-                                no_record_option, record_wanted, store_option, tell_progress)
+                                no_record_option, note_set_aside_unread, record_wanted, store_option,
+                                tell_progress)
 from linkage.decide import defaults
 from linkage.jsonable import jsonable
 from linkage.results import whatif_text, window_text
@@ -73,6 +74,7 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, assuranc
                   confidence=confidence, n_draws=n_draws, seed=seed, assurance=assurance,
                   record=record_wanted(no_record))
     _note_unrecorded(result, "window", no_record)
+    note_set_aside_unread(store, result.set_aside_unread)
     if as_json:
         click.echo(json.dumps(jsonable(result.to_dict()), indent=2, allow_nan=False))
         return

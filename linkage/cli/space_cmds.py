@@ -9,7 +9,7 @@ from pathlib import Path
 import click
 
 from linkage.cli.common import (PROBABILITY, check_output, handle_errors, json_option, models_dir_option,
-                                store_named, store_option, tell_progress)
+                                note_set_aside_unread, store_option)
 from linkage.decide import defaults
 
 
@@ -49,7 +49,9 @@ def space(spec_path, model_id, x, y, n_grid, assignments, confidence, assurance,
     The lot store is read, never written: when the model's training lots
     include lots now set aside ('linkage set-aside'), a note says so, as
     'linkage window' says it (--json: set_aside_in_training). Without a
-    store (no linkage.db here) the map is made all the same.
+    store (no linkage.db here) the map is made all the same; a store named
+    that does not exist or cannot be read is said on stderr, and one that
+    fails its integrity check is refused (exit code 6).
 
     \b
     Example:
@@ -68,8 +70,7 @@ def space(spec_path, model_id, x, y, n_grid, assignments, confidence, assurance,
     settings = parse_assignments(list(assignments), keep_text=True)  # reported with the model's checks
     result = make_map(spec, store=store, models_dir=models_dir, model=model_id, x=x, y=y, n_grid=n_grid,
                       settings=settings, confidence=confidence, assurance=assurance, seed=seed)
-    if store_named() and not store.is_file():  # a store the user named: say it was not read (the default may lack)
-        tell_progress(f"Note: no lot store at {store}; the model's training lots now set aside were not looked for.")
+    note_set_aside_unread(store, result.set_aside_unread)
     if png_path is not None:
         from linkage.export import write_atomic
         from linkage.report.figures import figure_png

@@ -98,6 +98,9 @@ class SpaceResult:
     #: ``linkage window`` says it (:func:`linkage.api.space` reads the store; the map itself does not change)
     set_aside_in_training: tuple[str, ...] = ()
     set_aside_note: str | None = None
+    #: why the store was not read for them (it does not exist, or could not be read); None when it was, or when no
+    #: store was given (the command line says it on stderr)
+    set_aside_unread: str | None = None
 
     @property
     def surface(self) -> np.ndarray:
