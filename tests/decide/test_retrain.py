@@ -146,9 +146,9 @@ def test_a_challenger_that_is_not_promoted_is_kept_but_not_latest(campaign, monk
     listing = CliRunner().invoke(cli, ["models", "--models-dir", str(models)]).output
     assert "role not promoted: a challenger that retrain kept" in listing and "role champion:" in listing
     text = CliRunner().invoke(cli, ["audit", "--store", str(store)]).output.splitlines()
-    header, last = text[0].split(), next(line for line in reversed(text) if line.split()[3:4] == ["retrain"])
+    header, last = text[0].split(), next(line for line in reversed(text) if line.split()[5:6] == ["retrain"])
     assert header[:2] == ["id", "at"] and "outcome" in header and "reason" in header and "model" in header
-    assert last.split()[4] == before  # id, at, user, action, model: the champion that stays
+    assert last.split()[6] == before  # id, at (date, time, UTC), user, action, model: the champion that stays
     assert f"not promoted, champion stays; challenger {decision.challenger_id} kept" in last
 
 
@@ -258,7 +258,7 @@ def test_retrain_names_the_lots_the_watch_flagged_that_it_trains_on(campaign, tm
     after = runner.invoke(cli, ["watch", "--store", str(store), "--models-dir", str(only)])
     assert "No alarm on the lots since training" in after.output  # why retrain had to say it
     audit = runner.invoke(cli, ["audit", "--store", str(store)]).output.splitlines()
-    promoted = next(line for line in reversed(audit) if line.split()[3:4] == ["promote"])
+    promoted = next(line for line in reversed(audit) if line.split()[5:6] == ["promote"])  # id, date, time, UTC, user
     assert f"promoted by force over {champion}; trained on {len(signalled)} lot(s) the watch flagged" in promoted
     assert promoted.rstrip().endswith("new supplier qualified, CC-118")
     roles = {m["model_id"]: m["role"] for m in registry.list_models(only)}
