@@ -259,7 +259,7 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
     lots' differences (``result.changes``)."""
     from linkage.exceptions import UsageError
     from linkage.read import read_folder
-    from linkage.store import ACCEPT_NEEDS_REASON, LotStore, given_reason
+    from linkage.store import ACCEPT_NEEDS_REASON, LotStore, given_reason, open_to_record
 
     if accept_unusual and given_reason(reason) is None:
         raise UsageError(ACCEPT_NEEDS_REASON)  # before a first ingest creates the store
@@ -268,12 +268,23 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
     if preview:
         return _preview_ingest(folder, store, exists, reason=reason, accept_unusual=accept_unusual)
     known: list[str] = []
-    if exists:
-        with LotStore(store, create=False, for_writing=True) as existing:  # a store without its anchor: refused
-            known = existing.lot_ids()
-    # the store is created only for valid input; values refused without history (a sieve stack in mm) are
-    # refused here, before it is, unless taken deliberately
-    checked = read_folder(folder, known_lots=known, accept_unusual=accept_unusual)
+    with contextlib.ExitStack() as stack:
+        # a store without its anchor: refused; one of an earlier schema read as it is, not upgraded (open_to_record)
+        existing = open_to_record(stack, store) if exists else None
+        known = [] if existing is None else existing.lot_ids()
+        # the store is created only for valid input; values refused without history (a sieve stack in mm) are
+        # refused here, before it is, unless taken deliberately
+        checked = read_folder(folder, known_lots=known, accept_unusual=accept_unusual)
+        if existing is not None and existing.older_schema is not None:
+            # a store written by an earlier linkage: the ingest decided on it as it is, by its own plan (the
+            # preview's, LotStore._plan), so that a refused ingest leaves it as it was; opened for writing below,
+            # which upgrades it (said), only to commit what was accepted. The current schema: one path, as before
+            try:
+                existing.ingest(checked, reason=reason, accept_unusual=accept_unusual, preview=True)
+            except UsageError as exc:
+                if getattr(exc, "preview", None) is None:
+                    raise
+                raise UsageError(str(exc)) from None  # the ingest's own refusal (--reason), without a preview
     with LotStore(store, for_writing=True) as lot_store:
         result = lot_store.ingest(checked, reason=reason, accept_unusual=accept_unusual)
     return Ingested(store=store, folder=folder, result=result, sources=checked.sources, spec=checked.spec)
@@ -376,7 +387,7 @@ def assemble(store=DEFAULT_STORE, *, product: str | None = None, spec=None,
     from linkage.store import current_tables_of, reading
 
     spec = _spec(spec)
-    with reading(store) as lot_store:  # an older store read as it is, not upgraded (transfer and plan: upgraded before)
+    with reading(store) as lot_store:  # an older store read as it is, not upgraded (transfer and plan: by their record)
         tables = current_tables_of(lot_store, product)
     if not tables:
         raise InsufficientDataError(f"the store {store} holds no lots" + (f" of product {product}" if product
@@ -505,14 +516,14 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
     from linkage.models.chain import ChainSpec
     from linkage.models.registry import save
     from linkage.models.train import train_chain
-    from linkage.store import LotStore, current_tables_of
+    from linkage.store import LotStore, current_tables_of, open_to_record
 
     if chain is not None and not isinstance(chain, ChainSpec):
         chain = ChainSpec.from_toml(chain)
     spec = _spec(spec)
     at = _train_time_and_q(spec, dissolution_time_min)
-    with LotStore(store, create=False, for_writing=True) as lot_store:  # refused before the fit and the model
-        tables = current_tables_of(lot_store, product)
+    with contextlib.ExitStack() as stack:  # refused before the fit and the model; an older store not upgraded here
+        tables = current_tables_of(open_to_record(stack, store), product)
     if not tables or "process" not in tables or tables["process"].empty:
         which = f" of product {product!r}" if product else ""
         raise InsufficientDataError(f"the store {store} holds no lots{which} to train on")
@@ -797,7 +808,7 @@ def _stored_lots(lots, store) -> tuple[list[str | None], dict]:
         return spelled, {}
     from linkage.store import reading
 
-    with reading(store) as s:  # recording: upgraded before (recording); --no-record: an older store read as it is
+    with reading(store) as s:  # an older store read as it is: a recorded what-if upgrades it by its record only
         spelled = [None if lot is None else s.stored_spelling(lot) or lot for lot in spelled]
         aside = s.set_aside_lots()
     return spelled, {lot: aside[lot] for lot in spelled if lot in aside}
@@ -1082,7 +1093,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     out, and a note says so. Logs ``watch``."""
     from linkage.assemble import assemble as assemble_table
     from linkage.decide.watch import revised_since_training, watch as run_watch
-    from linkage.store import LotStore, current_tables_of, restored_since_training, set_aside_notes
+    from linkage.store import LotStore, current_tables_of, reading, restored_since_training, set_aside_notes
     from linkage.timepoint import check_time_point, model_time_point, time_point_text
 
     refuse_unanchored(store)  # logged at the end: a store that refuses the entry is refused before the work
@@ -1111,7 +1122,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
                      f"{chain.trained_product!r}: alarms may say only that the products differ")
     from linkage.products import chain_counts, others_text
 
-    with LotStore(store, create=False) as s:
+    with reading(store) as s:  # an older store read as it is: upgraded only by the entry below (a refusal leaves it)
         tables = current_tables_of(s, product)
         recorded = s.predictions()
         stored_lots = s.lots(product, in_use=True)  # a set-aside training lot is named apart (set_aside_notes)
@@ -1172,7 +1183,7 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
     from linkage.decide import running as guide
     from linkage.decide.whatif import check_values
     from linkage.exceptions import InputError, UsageError
-    from linkage.store import LotStore
+    from linkage.store import reading
 
     if (spec is None) == (window is None):
         raise UsageError("give the porosity window: --window LOW:HIGH or --spec spec.toml (one of them)")
@@ -1223,7 +1234,7 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
     else:
         source = "given (--window)"
     stage = next(st for st in lean.stages if guide.POROSITY in st.targets)
-    with LotStore(store, create=False) as s:
+    with reading(store) as s:  # an older store read as it is: upgraded only by the record below
         stored = s.current_tables()  # the lots in use: a lot set aside is left out of the within-lot spread
         ribbon = stored.get("ribbon")
     if ribbon is None:

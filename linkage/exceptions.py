@@ -257,3 +257,18 @@ class StoreCaution(LinkageWarning):
     it as one ``caution, store: ...`` line, the words ``linkage verify`` uses."""
 
     label = "caution, store"
+
+
+class StoreUpgraded(LinkageWarning):
+    """A lot store written by an earlier linkage was upgraded to the current schema in place, by a command about to
+    record in it (:meth:`linkage.store.LotStore._upgrade`): said, never silent, since an earlier linkage refuses
+    the store after it ("written by a newer linkage"). The command line prints it as one ``caution, store: ...``
+    line (and adds ``store_upgraded`` to the ``--json`` of a command that has one). Not a :class:`StoreCaution`: it
+    says what was done to the store, not what a check could not cover, so it is never left out.
+    ``path``, ``version_from`` and ``version_to``: the store and its schemas before and after."""
+
+    label = "caution, store"
+
+    def __init__(self, message: str, path=None, version_from: int | None = None, version_to: int | None = None):
+        super().__init__(message)
+        self.path, self.version_from, self.version_to = path, version_from, version_to

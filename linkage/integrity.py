@@ -164,13 +164,15 @@ def _unsealed_counts(counts: dict) -> dict:
 
 def _unsealed_caution(store: Path, version: int, counts: dict) -> str:
     """What ``verify`` could and could not check of a store written before seals (schema 1)."""
+    from linkage.store import NEXT_RECORD_UPGRADES
+
     return (f"{store} was written by an earlier linkage (store schema {version}, before seals) and holds no seals "
             "and no anchor: its ingests, audit entries and recorded predictions could not be checked against "
             "seals, nor the removal or rewriting of records ruled out. Checked: SQLite's integrity_check of its "
             f"pages (as SQLite's backup copied them), and each lot table's content hash, recorded at its ingest, against its raw rows "
             f"({counts.get('lot tables', 0)} lot tables, {counts.get('raw rows', 0)} raw rows). Checked on an "
             "upgraded temporary copy; the store itself was not upgraded nor changed (an earlier linkage still reads "
-            "it); the next ingest (with write access) upgrades it and seals its records as they then stand")
+            f"it); {NEXT_RECORD_UPGRADES} and seals its records as they then stand")
 
 
 def _anchor_cautions(store: Path, counts: dict) -> list[str]:

@@ -14,16 +14,20 @@ What it keeps
   a store written before keeps its rows in ``raw_rows``, one SQLite row per
   raw row, read as before.
 - Schema 3 migration: a schema 1 or 2 store is upgraded in place, in one
-  transaction, by the first command that writes to it (an ingest, a
+  transaction, by the first command that records in it (an ingest, a
   set-aside, a recorded window or what-if...; ``row_blocks`` added, its
-  append-only triggers, one ``upgrade`` seal); its existing rows are not
-  moved or rewritten, so their seals and row hashes stay valid. A command
-  that records nothing (``lots``, ``history``, ``audit``, ``assemble``,
-  ``report``, ``verify``, ``space``, ``window``/``predict --no-record``:
-  :func:`reading`) leaves it as it is, byte for byte: schema 2 is read as
-  it is, schema 1 (before seals) from an upgraded temporary copy
-  (:func:`upgraded_copy`). A store on a read-only file system is read the
-  same way.
+  append-only triggers, one ``upgrade`` seal), in the opening that writes
+  the record, and said (a :class:`~linkage.exceptions.StoreUpgraded`
+  warning); its existing rows are not moved or rewritten, so their seals
+  and row hashes stay valid. What such a command reads before its record,
+  and every refusal, leaves it as it is (:func:`open_to_record`,
+  :func:`refuse_unanchored`; an ingest is decided on the store as it is
+  first). A command that records nothing (``lots``, ``history``,
+  ``audit``, ``assemble``, ``report``, ``verify``, ``space``,
+  ``window``/``predict --no-record``: :func:`reading`) leaves it as it is,
+  byte for byte: schema 2 is read as it is, schema 1 (before seals) from
+  an upgraded temporary copy (:func:`upgraded_copy`). A store on a
+  read-only file system is read the same way.
 - A lot's *revision* covers all its rows in all tables. An ingest that
   changes any of a lot's rows makes a new revision of that lot only; the
   tables the ingest does not carry over unchanged from the previous revision
@@ -719,6 +723,8 @@ class LotStore:
         self.older_schema: int | None = None
         #: read from an upgraded temporary copy of the store (:func:`upgraded_copy`; schema 1), not from the store
         self.from_copy = False
+        #: the schema this opening upgraded the store from (1 or 2; said as a StoreUpgraded warning); None: not upgraded
+        self.upgraded_from: int | None = None
         #: the store whose anchor file is checked: this one (a copy's own, where :attr:`path` names the store copied)
         self._anchored = self.path
         if self.path.is_dir():
@@ -777,8 +783,14 @@ class LotStore:
 
         from linkage.exceptions import StoreCaution
 
-        for caution in self.cautions():
-            warnings.warn(caution, StoreCaution, stacklevel=stacklevel)
+        cautions = self.cautions()
+        for k, caution in enumerate(cautions):
+            warning = StoreCaution(caution)
+            if self.older_schema is not None and k == len(cautions) - 1:
+                # the store of this caution: a command that then upgrades it to record (StoreUpgraded) says that
+                # instead (the command line leaves this caution out then: "not upgraded" would no longer hold)
+                warning.older_schema_of = str(self.path)
+            warnings.warn(warning, stacklevel=stacklevel)
 
     def cautions(self) -> list[str]:
         """What this store cannot show, as the caution every reading command prints on stderr (``caution,
@@ -930,6 +942,7 @@ class LotStore:
             version = c.execute("SELECT MAX(version) FROM schema_version").fetchone()[0]
             if version >= SCHEMA_VERSION:
                 return  # another process upgraded it while we waited
+            self.upgraded_from = version
             if version < 2:
                 self._seal_records(c)
                 c.execute("INSERT INTO schema_version VALUES (?, ?)", (2, _now()))
@@ -938,6 +951,19 @@ class LotStore:
                 c.execute(stmt)
             c.execute("INSERT INTO schema_version VALUES (?, ?)", (SCHEMA_VERSION, _now()))
             _seal.seal(c, _seal.UPGRADE, SCHEMA_VERSION)
+        self._warn_upgraded()
+
+    def _warn_upgraded(self) -> None:
+        """Say that this opening upgraded the store (:attr:`upgraded_from`): a
+        :class:`~linkage.exceptions.StoreUpgraded` warning, which the command line prints as a ``caution, store:``
+        line and adds to a command's ``--json`` (``store_upgraded``). An upgrade is never silent: after it an
+        earlier linkage refuses the store."""
+        import warnings
+
+        from linkage.exceptions import StoreUpgraded
+
+        warnings.warn(StoreUpgraded(store_upgraded_text(self.path, self.upgraded_from), path=self.path,
+                                    version_from=self.upgraded_from, version_to=SCHEMA_VERSION), stacklevel=4)
 
     @staticmethod
     def _seal_records(c) -> None:
@@ -1934,15 +1960,42 @@ def backup_copy(path: Path, to: Path) -> None:
         raise StoreError(f"cannot copy the lot store {path} to {to}: {exc}") from None
 
 
+#: when a store written by an earlier linkage is upgraded, as the cautions of the commands that leave it as it is say
+NEXT_RECORD_UPGRADES = ("the next command that records in it (an ingest, a training, a recorded what-if or window, "
+                        "...) upgrades it")
+
+
 def older_schema_caution(path, version: int, *, copy: bool = False) -> str:
     """The caution of a store written by an earlier linkage that a command read without upgrading it
     (:attr:`LotStore.older_schema`); ``copy``: read from an upgraded temporary copy (schema 1)."""
     if copy:
         return (f"{path} was written by an earlier linkage (store schema {version}, before seals); read from an "
                 "upgraded temporary copy, the store itself not upgraded nor changed (an earlier linkage still reads "
-                "it); the next ingest (with write access) upgrades it and seals its records as they then stand")
+                f"it); {NEXT_RECORD_UPGRADES} and seals its records as they then stand")
     return (f"{path} was written by an earlier linkage (store schema {version}); read as it is, not upgraded nor "
-            "changed (an earlier linkage still reads it); the next ingest (with write access) upgrades it")
+            f"changed (an earlier linkage still reads it); {NEXT_RECORD_UPGRADES}")
+
+
+def store_upgraded_text(path, version: int) -> str:
+    """What a command that upgraded the store at ``path`` from schema ``version`` says (:meth:`LotStore._upgrade`,
+    a :class:`~linkage.exceptions.StoreUpgraded` warning)."""
+    sealed = "; its records sealed as they stood" if version < 2 else ""
+    return (f"the lot store {path} was written by an earlier linkage (store schema {version}) and was upgraded to "
+            f"schema {SCHEMA_VERSION} to record in it{sealed}; an earlier linkage no longer reads it (\"written by "
+            "a newer linkage\")")
+
+
+@contextmanager
+def _upgrade_unsaid() -> Iterator[None]:
+    """Leave out the :class:`~linkage.exceptions.StoreUpgraded` warning of an upgrade made inside: a temporary
+    copy's (:func:`upgraded_copy`), which is not the store's."""
+    import warnings
+
+    from linkage.exceptions import StoreUpgraded
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", StoreUpgraded)
+        yield
 
 
 def upgraded_copy(stack: ExitStack, path: Path, version: int = 1) -> LotStore:
@@ -1967,7 +2020,8 @@ def upgraded_copy(stack: ExitStack, path: Path, version: int = 1) -> LotStore:
     try:
         with closing(sqlite3.connect(copied, isolation_level=None)) as con:
             now = con.execute("SELECT MAX(version) FROM schema_version").fetchone()[0]
-        copy = None if (now or 1) >= 2 else stack.enter_context(LotStore(copied, create=False))
+        with _upgrade_unsaid():  # the copy's upgrade, not the store's: not said as one
+            copy = None if (now or 1) >= 2 else stack.enter_context(LotStore(copied, create=False))
     except (sqlite3.Error, StoreError, StoreBusyError) as exc:
         raise _as_the_store(exc, copied, path) from None
     if copy is None:  # upgraded meanwhile by a writer: the store itself is read, as any store of its schema is
@@ -2025,8 +2079,31 @@ def refuse_unanchored(path) -> None:
         raise StorePathError(f"{path} is a folder, not a lot store file; nothing was written")
     if path is None or not Path(path).is_file() or Path(path).stat().st_size == 0:
         return
-    with LotStore(path, create=False, for_writing=True):
-        pass  # opening for writing is the check: LotStore raises for such a store and closes it
+    import warnings
+
+    from linkage.exceptions import StoreCaution
+
+    # a check, not a read: the store's cautions are said by the command's reads; an older store is not upgraded
+    # here (a command refused after this check leaves it as it was): its record at the end upgrades it
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", StoreCaution)
+        try:
+            LotStore(path, create=False, for_writing=True, upgrade=False).close()
+        except StoreNeedsUpgrade:
+            return  # schema 1, before seals: no anchor to miss (its upgrade at the record seals it and anchors it)
+
+
+def open_to_record(stack: ExitStack, path) -> LotStore:
+    """The store at ``path``, entered on ``stack``, for what a command that records in it at the end of its work
+    reads before that work (``train``'s lots): refused at once where it holds seals without its anchor file, as
+    :func:`refuse_unanchored` refuses it; opened as ``LotStore(path, create=False, for_writing=True)`` opens a
+    store of the current schema, and never upgraded: an older one is read as :func:`open_to_read` reads it (as it
+    is, or from an upgraded temporary copy), so that a command refused on what it reads leaves it as it was. The
+    record at the end opens it for writing, which upgrades it (and says so)."""
+    try:
+        return stack.enter_context(LotStore(path, create=False, for_writing=True, upgrade=False))
+    except StoreNeedsUpgrade as exc:
+        return upgraded_copy(stack, Path(path), exc.version)
 
 
 def change_text(ch: dict) -> str:

@@ -13,7 +13,7 @@ from pathlib import Path
 import click
 
 from linkage.exceptions import (IO_EXIT_CODE, LinkageError, LinkageWarning, StoreCaution, StoreIntegrityError,
-                                UsageError)
+                                StoreUpgraded, UsageError)
 
 STORE_ENV = "LINKAGE_STORE"
 MODELS_ENV = "LINKAGE_MODELS_DIR"
@@ -168,7 +168,10 @@ def handle_errors(f):
     bug and keeps its traceback (exit code 1). A :class:`LinkageWarning`
     raised on the way is printed once, as one ``Warning:`` line (a
     :class:`~linkage.exceptions.StoreCaution`: ``caution, store:``, left out
-    when a ``StoreIntegrityError`` about the store ends the command)."""
+    when a ``StoreIntegrityError`` about the store ends the command). A
+    store the command upgraded to record in it (a
+    :class:`~linkage.exceptions.StoreUpgraded` warning) is said so, and its
+    caution of an earlier read ("read as it is, not upgraded") left out."""
 
     @functools.wraps(f)
     def wrapper(*args, **kwargs):
@@ -177,7 +180,11 @@ def handle_errors(f):
         try:
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always", LinkageWarning)
-                return f(*args, **kwargs)
+                _caught.append(caught)
+                try:
+                    return f(*args, **kwargs)
+                finally:
+                    _caught.pop()
         except LinkageError as exc:
             if isinstance(exc, StoreIntegrityError):  # it says more than a caution about the same store
                 said.update(f"{w.category.label}: {w.message}" for w in caught
@@ -192,7 +199,10 @@ def handle_errors(f):
             tell_progress(f"Error: cannot read or write{what}: {reason}")
             raise SystemExit(IO_EXIT_CODE) from None
         finally:  # a linkage warning is one plain line on stderr, once; any other is shown as Python shows it
+            upgraded = {_same_file(w.message.path) for w in caught if issubclass(w.category, StoreUpgraded)}
             for w in caught:
+                if _same_file(getattr(w.message, "older_schema_of", None)) in upgraded - {None}:
+                    continue  # "read as it is, not upgraded": no longer so, the upgrade is said instead
                 if issubclass(w.category, LinkageWarning):
                     line = f"{w.category.label}: {w.message}"
                     if line not in said:  # a store opened twice by one command cautions once
@@ -202,6 +212,27 @@ def handle_errors(f):
                     warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
 
     return wrapper
+
+
+#: the warnings caught so far by each command running under :func:`handle_errors`, the innermost last
+_caught: list[list] = []
+
+
+def _same_file(path) -> str | None:
+    """``path`` as one text per file (resolved), to compare the store a warning names; None stays None."""
+    return None if path is None else str(Path(path).resolve())
+
+
+def with_store_upgraded(payload):
+    """A command's ``--json`` ``payload`` (a dict) with ``store_upgraded: {"from": 2, "to": 3}`` added when the
+    running command upgraded a lot store written by an earlier linkage to record in it (a
+    :class:`~linkage.exceptions.StoreUpgraded` warning, said on stderr too); unchanged otherwise, and for a
+    payload that is not a dict (a list of results: stderr says it)."""
+    found = next((w.message for w in (_caught[-1] if _caught else []) if issubclass(w.category, StoreUpgraded)),
+                 None)
+    if found is None or not isinstance(payload, dict):
+        return payload
+    return {**payload, "store_upgraded": {"from": found.version_from, "to": found.version_to}}
 
 
 def _stop_quietly() -> None:

@@ -9,7 +9,7 @@ import click
 
 from linkage.cli.common import (PROBABILITY, check_output, handle_errors, json_option, models_dir_option,
                                 no_record_option, note_set_aside_unread, record_wanted, store_option,
-                                tell_progress)
+                                tell_progress, with_store_upgraded)
 from linkage.decide import defaults
 from linkage.jsonable import jsonable
 from linkage.results import whatif_text, window_text
@@ -76,7 +76,7 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, assuranc
     _note_unrecorded(result, "window", no_record)
     note_set_aside_unread(store, result.set_aside_unread)
     if as_json:
-        click.echo(json.dumps(jsonable(result.to_dict()), indent=2, allow_nan=False))
+        click.echo(json.dumps(with_store_upgraded(jsonable(result.to_dict())), indent=2, allow_nan=False))
         return
     click.echo(result.text())
 
@@ -191,7 +191,7 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
     if as_json:
         payload = results[0].to_dict() if from_csv is None else [r.to_dict() for r in results]
         # strict JSON: an unbounded interval end (too few lots) is null; the model's notes say why
-        click.echo(json.dumps(jsonable(payload), indent=2, allow_nan=False))
+        click.echo(json.dumps(with_store_upgraded(jsonable(payload)), indent=2, allow_nan=False))
     else:
         for r in results:
             click.echo(r.text())  # begins "For lot ..., product ...:" when they are known

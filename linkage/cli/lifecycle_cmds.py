@@ -7,7 +7,8 @@ from pathlib import Path
 
 import click
 
-from linkage.cli.common import handle_errors, json_option, models_dir_option, progress_bars, store_option
+from linkage.cli.common import (handle_errors, json_option, models_dir_option, progress_bars, store_option,
+                                with_store_upgraded)
 
 _spec_option = click.option("--spec", "spec_path", type=click.Path(exists=True, dir_okay=False, path_type=Path),
                             help="Specification file; adds the porosity window to the comparison.")
@@ -63,7 +64,7 @@ def retrain(store, models_dir, spec_path, product, tolerance, force, reason, as_
         decision = run_retrain(store, models_dir, product=product, spec=spec, force=force, reason=reason,
                                tolerance=tolerance, progress=progress)
     if as_json:
-        click.echo(json.dumps(decision.to_dict(), indent=2, allow_nan=False))
+        click.echo(json.dumps(with_store_upgraded(decision.to_dict()), indent=2, allow_nan=False))
         return
     click.echo(decision.text())
 
@@ -109,7 +110,7 @@ def watch(store, models_dir, model_id, spec_path, product, as_json):
         spec = read_spec(spec_path)
     result = run_watch(store=store, models_dir=models_dir, model=model_id, spec=spec, product=product)
     if as_json:
-        click.echo(json.dumps(result.to_dict(), indent=2, allow_nan=False))
+        click.echo(json.dumps(with_store_upgraded(result.to_dict()), indent=2, allow_nan=False))
         return
     click.echo(result.text())
 

@@ -8,7 +8,7 @@ from pathlib import Path
 import click
 
 from linkage.cli.common import (PROBABILITY, FiniteFloat, handle_errors, json_option, models_dir_option,
-                                progress_bars, store_option, tell_progress)
+                                progress_bars, store_option, tell_progress, with_store_upgraded)
 from linkage.results import TARGET_KEYS, train_json, train_text  # noqa: F401 (TARGET_KEYS: kept importable here)
 from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN
 
@@ -100,7 +100,7 @@ def train(store, models_dir, chain_path, product, seed, coverage, spec_path, dis
     for note in trained.notes:  # a model of several products, trained without --product: said, not refused
         tell_progress(f"Note: {note}")
     if as_json:
-        click.echo(json.dumps(trained.to_dict(), indent=2, allow_nan=False, ensure_ascii=False))
+        click.echo(json.dumps(with_store_upgraded(trained.to_dict()), indent=2, allow_nan=False, ensure_ascii=False))
     else:
         click.echo(trained.text())
 

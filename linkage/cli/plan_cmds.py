@@ -7,7 +7,8 @@ from pathlib import Path
 
 import click
 
-from linkage.cli.common import PROBABILITY, check_output, handle_errors, json_option, models_dir_option, store_option
+from linkage.cli.common import (PROBABILITY, check_output, handle_errors, json_option, models_dir_option, store_option,
+                                with_store_upgraded)
 from linkage.decide.defaults import PLAN_CRITERIA
 from linkage.jsonable import jsonable
 
@@ -99,6 +100,6 @@ def plan(n_lots, range_texts, new, design, spec_path, model_id, assignments, con
                        prefix=prefix, product=product, out=out, edges=edges,
                        design=design, criterion=criterion)
     if as_json:
-        click.echo(json.dumps(jsonable(result.to_dict()), indent=2, allow_nan=False))
+        click.echo(json.dumps(with_store_upgraded(jsonable(result.to_dict())), indent=2, allow_nan=False))
         return
     click.echo(result.text())

@@ -8,7 +8,7 @@ from pathlib import Path
 import click
 
 from linkage.cli.common import (PROBABILITY, FiniteFloat, check_output, handle_errors, json_option,
-                                models_dir_option, store_option)
+                                models_dir_option, store_option, with_store_upgraded)
 from linkage.cli.decide_cmds import _model_option
 from linkage.jsonable import jsonable
 
@@ -100,7 +100,8 @@ def running(samples, assignments, process_path, spec_path, window, adjust, basel
 
         out_path.parent.mkdir(parents=True, exist_ok=True)
         write_atomic(out_path, payload.encode("utf-8"))
-    click.echo(payload if as_json else result.text())
+    click.echo(json.dumps(with_store_upgraded(jsonable(result.to_dict())), indent=2, allow_nan=False) if as_json
+               else result.text())
     for path, what in ((chart_path, "Chart"), (out_path, "JSON")):
         if path is not None:
             click.echo(f"{what} written to {path}", err=True)

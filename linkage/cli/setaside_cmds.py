@@ -6,7 +6,7 @@ import json
 
 import click
 
-from linkage.cli.common import handle_errors, json_option, store_option
+from linkage.cli.common import handle_errors, json_option, store_option, with_store_upgraded
 
 _REASON_HELP = ("Why (required; recorded with the decision in the audit trail): the deviation number and the "
                 "assignable cause, for example.")
@@ -78,6 +78,6 @@ def restore(lots, reason, store, as_json):
 
 def _show(result, as_json: bool) -> None:
     if as_json:
-        click.echo(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
+        click.echo(json.dumps(with_store_upgraded(result.to_dict()), indent=2, ensure_ascii=False))
         return
     click.echo(result.text())

@@ -10,7 +10,7 @@ from pathlib import Path
 import click
 
 from linkage.cli.common import (FiniteFloat, check_output, handle_errors, json_option, models_dir_option,
-                                store_option, tell_progress)
+                                store_option, tell_progress, with_store_upgraded)
 from linkage.exceptions import LinkageError, UsageError
 from linkage.results import _rows
 from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
@@ -96,7 +96,7 @@ def ingest(folder, store, reason, accept_unusual, preview, as_json):
                           "not known); nothing was written.")
         raise
     if as_json:
-        click.echo(json.dumps(result.to_dict(), indent=2))
+        click.echo(json.dumps(with_store_upgraded(result.to_dict()), indent=2))
         return
     click.echo(result.text())
 

@@ -6,7 +6,7 @@ import json
 
 import click
 
-from linkage.cli.common import PROBABILITY, FiniteFloat, handle_errors, json_option, store_option
+from linkage.cli.common import PROBABILITY, FiniteFloat, handle_errors, json_option, store_option, with_store_upgraded
 
 _MM = FiniteFloat(0, None, min_open=True)
 
@@ -76,6 +76,6 @@ def transfer(roll_diameter_mm, roll_width_mm, gap_mm, porosity, window_text, lev
                   internal_friction_deg=internal_friction_deg, wall_friction_deg=wall_friction_deg,
                   n_draws=n_draws, seed=seed)
     if as_json:
-        click.echo(json.dumps(jsonable(result.to_dict()), indent=2, allow_nan=False))
+        click.echo(json.dumps(with_store_upgraded(jsonable(result.to_dict())), indent=2, allow_nan=False))
         return
     click.echo(result.text())

@@ -328,7 +328,8 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     from linkage.models import registry
     from linkage.models.train import train_chain
     from linkage.products import others_text
-    from linkage.store import LotStore, current_tables_of, refuse_unanchored, restored_since_training, set_aside_notes
+    from linkage.store import (LotStore, current_tables_of, reading, refuse_unanchored, restored_since_training,
+                               set_aside_notes)
 
     if not 0 <= tolerance < 1:
         raise UsageError(f"tolerance must lie in [0, 1); got {tolerance}")
@@ -338,7 +339,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     champion = _settled_champion(store_path, models_dir, product)
     product = challenger_product(champion, product)  # the champion's product by default; another refused
     time_min = _challenger_time_point(champion, spec)
-    with LotStore(store_path, create=False) as store:
+    with reading(store_path) as store:  # an older store read as it is: upgraded only by the entry below
         tables = current_tables_of(store, product)
         stored_lots = store.lots(product, in_use=True)  # a set-aside training lot is named apart (set_aside_notes)
         others = store.other_products(product)
@@ -410,12 +411,12 @@ def settle_pending(store_path, models_dir) -> list[tuple[str, str]]:
     holds the decision's row, abandoned where not (see :func:`linkage.models.registry.begin_decision`).
     Returns (decision id, new state) for each."""
     from linkage.models import registry
-    from linkage.store import LotStore
+    from linkage.store import reading
 
     pending = registry.pending_decisions(models_dir)
     if not pending:
         return []
-    with LotStore(store_path, create=False) as store:
+    with reading(store_path) as store:  # settling writes the registry, not the store: an older one not upgraded
         logged = {(a.get("inputs") or {}).get("decision_id") for a in store.audit()
                   if a["action"] in ("promote", "retrain")}
     return [(d["decision_id"], registry.settle_decision(models_dir, d["decision_id"],
