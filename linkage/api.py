@@ -338,9 +338,9 @@ def _preview_ingest(folder: Path, store: Path, exists: bool, *, reason: str | No
 def _preview_store(stack: contextlib.ExitStack, store: Path, exists: bool):
     """The store a preview decides on, entered on ``stack``: the store itself opened for reading only; for a
     store of an earlier schema that needs its upgrade to be read (schema 1), an upgraded copy in a temporary
-    folder (:func:`linkage.store.upgraded_copy`), as the ingest would upgrade the store before deciding; for a store that
-    does not exist (or an SQLite file without a table, in which the ingest makes it), an empty one there. The
-    temporary folder is removed when ``stack`` closes."""
+    folder (:func:`linkage.store.upgraded_copy`), as the ingest decides on it before it upgrades the store to
+    commit; for a store that does not exist (or an SQLite file without a table, in which the ingest makes it), an
+    empty one there. The temporary folder is removed when ``stack`` closes."""
     import tempfile
 
     from linkage.store import EmptyStoreFile, LotStore, StoreNeedsUpgrade, can_write, upgraded_copy

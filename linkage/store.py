@@ -664,9 +664,10 @@ class EmptyStoreFile(StorePathError):
 
 class StoreNeedsUpgrade(StoreError):
     """A store of an earlier schema that cannot be read as it is where it is opened for reading only
-    (``LotStore(read_only=True)`` or ``upgrade=False``; schema 1, before seals): an ingest with write access
-    upgrades it first. Exit code 5, as :class:`StoreError`; an ingest's preview and the commands that only read
-    decide on an upgraded copy instead (:func:`upgraded_copy`). ``version``: the store's schema."""
+    (``LotStore(read_only=True)`` or ``upgrade=False``; schema 1, before seals): the first command that records in
+    it with write access upgrades it. Exit code 5, as :class:`StoreError`; an ingest's preview, the commands that
+    only read and what the recording commands read before their record decide on an upgraded copy instead
+    (:func:`upgraded_copy`). ``version``: the store's schema."""
 
     version: int = 1
 
@@ -963,7 +964,7 @@ class LotStore:
         from linkage.exceptions import StoreUpgraded
 
         warnings.warn(StoreUpgraded(store_upgraded_text(self.path, self.upgraded_from), path=self.path,
-                                    version_from=self.upgraded_from, version_to=SCHEMA_VERSION), stacklevel=4)
+                                    version_from=self.upgraded_from, version_to=SCHEMA_VERSION), stacklevel=5)
 
     @staticmethod
     def _seal_records(c) -> None:
@@ -2090,7 +2091,9 @@ def refuse_unanchored(path) -> None:
         try:
             LotStore(path, create=False, for_writing=True, upgrade=False).close()
         except StoreNeedsUpgrade:
-            return  # schema 1, before seals: no anchor to miss (its upgrade at the record seals it and anchors it)
+            if not _can_write(Path(path)):
+                raise  # the record could neither upgrade nor write it: refused now, as its opening for writing is
+            # schema 1, before seals: no anchor to miss (its upgrade at the record seals it and anchors it)
 
 
 def open_to_record(stack: ExitStack, path) -> LotStore:
@@ -2103,7 +2106,14 @@ def open_to_record(stack: ExitStack, path) -> LotStore:
     try:
         return stack.enter_context(LotStore(path, create=False, for_writing=True, upgrade=False))
     except StoreNeedsUpgrade as exc:
+        if not _can_write(Path(path)):
+            raise  # the record could neither upgrade nor write it: refused now, as its opening for writing is
         return upgraded_copy(stack, Path(path), exc.version)
+
+
+def _can_write(path: Path) -> bool:
+    """Whether this account can write the store at ``path``: its file and its folder (as :class:`LotStore` asks)."""
+    return os.access(path, os.W_OK) and os.access(path.parent, os.W_OK)
 
 
 def change_text(ch: dict) -> str:

@@ -223,7 +223,8 @@ def test_a_schema_1_store_is_previewed_on_an_upgraded_copy(tmp_path, monkeypatch
     preview = run_cli(["ingest", fix, "--store", store, "--preview"])
     real = run_cli(["ingest", fix, "--store", twin])
     assert preview.exit_code == real.exit_code == 2, preview.stderr
-    error = real.stderr[real.stderr.index("Error:"):].removeprefix("Error: ")  # the preview's last lines say it
+    # the preview's last lines say the refusal (the ingest's next line: the caution that the store was not upgraded)
+    error = real.stderr[real.stderr.index("Error:"):].splitlines()[0].removeprefix("Error: ") + "\n"
     assert f"The ingest would be refused: {error}" in preview.stdout and "--reason" in preview.stderr
     given = api.ingest(fix, store, reason="deviation D-2", preview=True)
     assert _files(store.parent) == before and list(scratch.iterdir()) == []
