@@ -199,10 +199,14 @@ def test_a_schema_1_store_this_account_cannot_write_is_read_from_a_copy(tmp_path
 def model(tmp_path_factory):
     """A model trained on twelve synthetic lots (linkage.synthetic.make_lots, seed 3) in a store of its own, and a
     spec of the lot mean (the model has no vessel data to judge by stages)."""
+    return trained_lab(tmp_path_factory.mktemp("lab"))
+
+
+def trained_lab(folder: Path, product: str | None = None) -> tuple[Path, Path]:
+    """(the models folder, the spec) of :func:`model` made in ``folder``, its lots of ``product`` when given."""
     from linkage.synthetic import make_lots
 
-    folder = tmp_path_factory.mktemp("lab")
-    make_lots(12, seed=3).write_csv(folder / "lots")
+    make_lots(12, seed=3, product=product).write_csv(folder / "lots")
     api.ingest(folder / "lots", folder / "lab.db")
     api.train(folder / "lab.db", folder / "models", seed=0, materials=False)
     spec = folder / "spec.toml"

@@ -25,7 +25,7 @@ from linkage.exceptions import StoreUpgraded
 from linkage.store import SCHEMA_VERSION, LotStore
 from tests.reliability.helpers import run_cli
 from tests.test_store_migration import DATA, EXAMPLE, _corrected
-from tests.test_store_read_old import _copy, _files, _schema
+from tests.test_store_read_old import _copy, _files, _schema, trained_lab
 
 OLD = [("store-v1.db", 1), ("store-v2.db", 2)]
 SPEC = DATA.parent.parent / "data_demo" / "lots" / "spec.toml"
@@ -84,16 +84,7 @@ def test_a_refused_command_leaves_an_older_store_as_it_was(old, args, error, tmp
 def other_model(tmp_path_factory):
     """A model of product SYN-A, trained on twelve synthetic lots (linkage.synthetic.make_lots, seed 3) in a store of
     its own; the old stores' lots have no product, so a command that takes the model's product finds none."""
-    from linkage.synthetic import make_lots
-
-    folder = tmp_path_factory.mktemp("lab")
-    make_lots(12, seed=3, product="SYN-A").write_csv(folder / "lots")
-    api.ingest(folder / "lots", folder / "lab.db")
-    api.train(folder / "lab.db", folder / "models", seed=0, materials=False)
-    spec = folder / "spec.toml"
-    spec.write_text('[dissolution_pct]\nmin = 80.0\ntime_min = 30.0\n\n[tensile_strength_mpa]\nmin = 1.7\n',
-                    encoding="utf-8")
-    return folder / "models", spec
+    return trained_lab(tmp_path_factory.mktemp("lab"), product="SYN-A")
 
 
 OTHER_PRODUCT = [["watch"], ["plan", "--lots", "4", "--spec", "SPEC"], ["retrain"]]
