@@ -259,7 +259,7 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
     lots' differences (``result.changes``)."""
     from linkage.exceptions import UsageError
     from linkage.read import read_folder
-    from linkage.store import ACCEPT_NEEDS_REASON, LotStore, given_reason, open_to_record
+    from linkage.store import ACCEPT_NEEDS_REASON, EmptyStoreFile, LotStore, given_reason, open_to_record
 
     if accept_unusual and given_reason(reason) is None:
         raise UsageError(ACCEPT_NEEDS_REASON)  # before a first ingest creates the store
@@ -269,8 +269,12 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
         return _preview_ingest(folder, store, exists, reason=reason, accept_unusual=accept_unusual)
     known: list[str] = []
     with contextlib.ExitStack() as stack:
-        # a store without its anchor: refused; one of an earlier schema read as it is, not upgraded (open_to_record)
-        existing = open_to_record(stack, store) if exists else None
+        # a store without its anchor: refused; one of an earlier schema read as it is, not upgraded (open_to_record);
+        # an SQLite file without a table: no store yet, made in it below once the folder is read
+        try:
+            existing = open_to_record(stack, store) if exists else None
+        except EmptyStoreFile:
+            existing = None
         known = [] if existing is None else existing.lot_ids()
         # the store is created only for valid input; values refused without history (a sieve stack in mm) are
         # refused here, before it is, unless taken deliberately

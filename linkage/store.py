@@ -2090,8 +2090,10 @@ def refuse_unanchored(path) -> None:
         warnings.simplefilter("ignore", StoreCaution)
         try:
             LotStore(path, create=False, for_writing=True, upgrade=False).close()
+        except EmptyStoreFile:
+            return  # an SQLite file without a table: no store yet, so no anchor to miss (as an empty file)
         except StoreNeedsUpgrade:
-            if not _can_write(Path(path)):
+            if not can_write(path):
                 raise  # the record could neither upgrade nor write it: refused now, as its opening for writing is
             # schema 1, before seals: no anchor to miss (its upgrade at the record seals it and anchors it)
 
@@ -2106,14 +2108,9 @@ def open_to_record(stack: ExitStack, path) -> LotStore:
     try:
         return stack.enter_context(LotStore(path, create=False, for_writing=True, upgrade=False))
     except StoreNeedsUpgrade as exc:
-        if not _can_write(Path(path)):
+        if not can_write(path):
             raise  # the record could neither upgrade nor write it: refused now, as its opening for writing is
         return upgraded_copy(stack, Path(path), exc.version)
-
-
-def _can_write(path: Path) -> bool:
-    """Whether this account can write the store at ``path``: its file and its folder (as :class:`LotStore` asks)."""
-    return os.access(path, os.W_OK) and os.access(path.parent, os.W_OK)
 
 
 def change_text(ch: dict) -> str:
