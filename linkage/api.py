@@ -986,7 +986,10 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
         from linkage.report.plan_section import read_plan
 
         plan = read_plan(plan)  # a file that is not a plan is refused before any work
-    chain = _fitted(models_dir, model)
+    from linkage.report.background import collector_paused
+
+    with collector_paused():  # the chain and the modules it needs are kept: nothing for the collector to find
+        chain = _fitted(models_dir, model)
     check_time_point(chain, spec, "report")
     product = chain.trained_product
     tables, lots, others, store_cautions, aside_rows = _report_lots(store, product, chain)

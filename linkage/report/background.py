@@ -23,8 +23,10 @@ report's own process.
 
 from __future__ import annotations
 
+import gc
 import multiprocessing
 import os
+from contextlib import contextmanager
 
 #: Seconds :meth:`Background.result` waits for the child once asked, before it ends the child
 #: and computes the value itself. Generous: the design-space map at 1,000 lots takes seconds.
@@ -64,6 +66,50 @@ def _round_trips(exc) -> bool:
     except Exception:  # noqa: BLE001 - any failure: not handed over
         return False
     return type(back) is type(exc) and str(back) == str(exc)
+
+
+#: objects allocated between two collections of the youngest generation while a report runs (Python's default
+#: is 700): matplotlib's artists come and go by the hundred thousand, most freed by reference counting anyway
+YOUNG_THRESHOLD = 10_000
+
+
+@contextmanager
+def frozen_heap():
+    """Inside: the objects that exist on entry (the fitted chain, the tables, the modules imported) are left out
+    of Python's cyclic garbage collection (:func:`gc.freeze`) and put back on exit, and the youngest generation
+    is collected every :data:`YOUNG_THRESHOLD` allocations instead of every 700.
+
+    The report makes hundreds of thousands of short-lived objects (matplotlib's artists), which set off the
+    collector's passes; a full pass walks every object of the process, the large and long-lived ones too, in
+    the report's process and again in every child forked from it, where writing the collector's marks into
+    those objects also copies their memory pages. Frozen, a pass walks only what was made since. Nothing is
+    freed any later than it would be: what exists on entry outlives the report anyway. Where someone froze
+    the heap already, it is left as it is (and so are the thresholds)."""
+    if gc.get_freeze_count():
+        yield
+        return
+    thresholds = gc.get_threshold()
+    gc.freeze()
+    gc.set_threshold(max(thresholds[0], YOUNG_THRESHOLD), *thresholds[1:])
+    try:
+        yield
+    finally:
+        gc.set_threshold(*thresholds)
+        gc.unfreeze()
+
+
+@contextmanager
+def collector_paused():
+    """No cyclic garbage collection inside (reference counting still frees what is dropped): for loading a
+    fitted chain, whose imports and unpickled objects are all kept, so that the collector's passes over the
+    growing heap would find nothing to free."""
+    enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if enabled:
+            gc.enable()
 
 
 class Background:

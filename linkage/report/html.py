@@ -356,6 +356,16 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     from linkage.timepoint import check_time_point
 
     check_time_point(chain, spec, "report")  # a spec at another time point is refused, not reported around
+    from linkage.report.background import frozen_heap
+
+    with frozen_heap():  # the chain, the tables and the modules are not walked by every collection (its docstring)
+        return _render(chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
+                       reused, parallel, kept_figures, other_lots, store_cautions, set_aside, set_aside_rows)
+
+
+def _render(chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space, reused,
+            parallel, kept_figures, other_lots, store_cautions, set_aside, set_aside_rows) -> Report:
+    """:func:`render_report` (its arguments, in its order)."""
     from linkage.decide.watch import watch
     from linkage.report.background import Background
 
