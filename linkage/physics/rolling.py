@@ -151,8 +151,12 @@ def johanson_nip_angles_deg(roll_gap_mm, roll_diameter_mm, compressibility,
     nu = np.radians(johanson_nu_deg(internal_friction_deg, wall_friction_deg))
     n_steps = int(round(_SCAN_MAX_DEG / _SCAN_STEP_DEG))
     grid = np.radians(np.linspace(_SCAN_STEP_DEG / 100, _SCAN_MAX_DEG, n_steps + 1))
-    diff = _gradient_difference_times_radius(grid[None, :], s_d, delta, nu, k)
-    change = np.sign(diff[:, :-1]) != np.sign(diff[:, 1:])
+    # one gap ratio for every row (the draws of K on one pair of rolls): its terms are computed once, not per row
+    # (the same operations on the same numbers, so the same values; broadcast against K as before)
+    s_scan = s_d[:1] if s_d.size and np.all(s_d == s_d[0, 0]) else s_d
+    diff = _gradient_difference_times_radius(grid[None, :], s_scan, delta, nu, k)
+    sign = np.sign(diff)
+    change = sign[:, :-1] != sign[:, 1:]
     found = change.any(axis=1)
     first = np.argmax(change, axis=1)
     lo, hi = grid[first].copy(), grid[first + 1].copy()

@@ -39,6 +39,18 @@ def test_vectorised_nip_angle_matches_the_scalar_root(gap, diameter, k):
     assert johanson_nip_angles_deg(gap, diameter, k, 40, 25) == pytest.approx(ref, abs=1e-5)
 
 
+def test_nip_angles_of_many_compressibilities_at_one_gap():
+    """The path of the transfer's draws of K on one pair of rolls (the gap ratio's terms computed once for every
+    row): each angle is the scalar root for its own K, and the same as that K computed alone."""
+    # reference: compaction.johanson_nip_angle_deg (Brent's method on the same gradient difference)
+    ks = np.array([2.5, 4.0, 5.0, 6.5, 8.0, 12.0])
+    out = johanson_nip_angles_deg(2.0, 250.0, ks, 40, 25)
+    ref = [johanson_nip_angle_deg(0.25, 0.002, 40, 25, k) for k in ks]
+    np.testing.assert_allclose(out, ref, atol=1e-5)
+    alone = [johanson_nip_angles_deg(np.array([2.0, 2.0 + 1e-9]), 250.0, k, 40, 25)[0] for k in ks]
+    np.testing.assert_allclose(out, alone, atol=1e-8)  # rows of other gap ratios beside it change nothing
+
+
 def test_nip_angles_broadcast_over_lots_and_compressibility():
     gaps = np.array([1.5, 2.0, 3.0])
     out = johanson_nip_angles_deg(gaps[:, None], 200.0, np.array([4.0, 8.0])[None, :])
