@@ -176,11 +176,17 @@ def group_styles(labels: Sequence) -> dict:
     return out
 
 
+#: zlib level of the PNG files (Pillow's default is 6): the same pixels; on the demo report's 28 figures 0.30 s of
+#: CPU to encode instead of 0.44 s, for files 0.9 % larger (reports/benchmarks.md, 2026-12-05)
+PNG_COMPRESS_LEVEL = 3
+
+
 def figure_png(fig_or_ax) -> bytes:
     """The figure (or the figure an Axes belongs to) rendered as PNG bytes."""
     fig = getattr(fig_or_ax, "figure", fig_or_ax)
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=DPI, metadata={"Software": None})
+    fig.savefig(buf, format="png", dpi=DPI, metadata={"Software": None},
+                pil_kwargs={"compress_level": PNG_COMPRESS_LEVEL})
     return buf.getvalue()
 
 

@@ -192,3 +192,28 @@ def test_completeness_map_and_grid_margins():
     assert len(axes) == 5 and sum(a.get_visible() and a.axison for a in fig.axes) == 5
     with pytest.raises(TypeError, match="unknown margin"):
         F.grid_axes(1, gutter=1.0)
+
+
+def test_png_holds_the_pixels_the_canvas_drew():
+    """The PNG's compression level (figures.PNG_COMPRESS_LEVEL) changes the file's bytes, never its pixels: the
+    decoded PNG is the Agg canvas's own buffer, and the same as Pillow's default level gives (the reference is
+    the canvas and Pillow's encoder, not the project). The level is lower than Pillow's default."""
+    import io
+
+    from PIL import Image
+
+    ax = F.plot_control_chart([f"L{i}" for i in range(30)], np.sin(np.arange(30.0)), centre=0.0, limits=(-1.0, 1.0),
+                              name="fines_pct", ewma=np.zeros(30), ewma_low=np.full(30, -0.5),
+                              ewma_high=np.full(30, 0.5))
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    png = F.figure_png(ax)
+    agg = FigureCanvasAgg(ax.figure)
+    agg.draw()
+    canvas = np.asarray(agg.buffer_rgba())  # the figure drawn on the Agg canvas, at the figure's own dpi
+    decoded = np.asarray(Image.open(io.BytesIO(png)))
+    assert decoded.shape == canvas.shape and np.array_equal(decoded, canvas)
+    default = io.BytesIO()
+    Image.fromarray(canvas).save(default, format="png")  # Pillow's default level (6)
+    assert np.array_equal(np.asarray(Image.open(io.BytesIO(default.getvalue()))), decoded)
+    assert F.PNG_COMPRESS_LEVEL < 6
