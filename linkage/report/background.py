@@ -43,6 +43,10 @@ def _cores() -> int:
 def _run(send, fn, args, kwargs) -> None:  # in the child
     from linkage.exceptions import LinkageError
 
+    # what the child inherits from the report's process outlives the child: out of its collector's passes, which
+    # would otherwise walk it (and, writing their marks into it, copy its memory pages from the parent's)
+    gc.freeze()
+
     try:
         value = ("ok", fn(*args, **kwargs))
     except LinkageError as exc:  # a refusal of these inputs: the parent raises it without computing again

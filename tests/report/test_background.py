@@ -205,3 +205,20 @@ def test_collector_paused_restores_the_state_it_found():
         assert not gc.isenabled()  # a caller that had it off keeps it off
     finally:
         gc.enable()
+
+
+def _freeze_count_here(parent: int) -> tuple[bool, int]:
+    import gc
+
+    return os.getpid() != parent, gc.get_freeze_count()
+
+
+@forking
+def test_a_child_leaves_what_it_inherits_out_of_its_collections():
+    """The objects a child inherits from the report's process are frozen in the child (gc.freeze, the use the
+    Python documentation of the gc module describes for fork without exec); this process is left as it was."""
+    import gc
+
+    in_child, frozen = Background(_freeze_count_here, os.getpid()).result()
+    assert in_child and frozen > 0
+    assert gc.get_freeze_count() == 0
