@@ -95,11 +95,25 @@ def frozen_heap():
     thresholds = gc.get_threshold()
     gc.freeze()
     gc.set_threshold(max(thresholds[0], YOUNG_THRESHOLD), *thresholds[1:])
+    _FROZEN_HERE[0] = True
     try:
         yield
     finally:
+        _FROZEN_HERE[0] = False
         gc.set_threshold(*thresholds)
         gc.unfreeze()
+
+
+#: whether a :func:`frozen_heap` of this process froze the heap (and puts it back when it ends)
+_FROZEN_HERE = [False]
+
+
+def freeze_more() -> None:
+    """Inside the :func:`frozen_heap` that froze the heap: the objects made since (the sections' numbers, the
+    figures waiting to be drawn) frozen too, as they stand before the figures are drawn here or in a child
+    forked now; they outlive the drawing, and its collections need not walk them. Elsewhere nothing."""
+    if _FROZEN_HERE[0]:
+        gc.freeze()
 
 
 @contextmanager
@@ -231,12 +245,14 @@ class SharedMap:
     def start(self) -> None:
         """Fork a child that takes on the items so far that are still free."""
         if self.fork and self.items:
+            freeze_more()
             self._children.append(Background(claimed_map, self.fn, self._order(), self._claims))
 
     def finish(self) -> list:
         """Every item's value, in the order added."""
         done: dict[int, object] = {}
         try:
+            freeze_more()
             if self.fork and self._claims.free(len(self.items)) >= 2:
                 self.start()
             if self.fork:

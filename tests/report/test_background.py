@@ -222,3 +222,16 @@ def test_a_child_leaves_what_it_inherits_out_of_its_collections():
     in_child, frozen = Background(_freeze_count_here, os.getpid()).result()
     assert in_child and frozen > 0
     assert gc.get_freeze_count() == 0
+
+
+def test_freeze_more_only_inside_the_frozen_heap_that_froze():
+    import gc
+
+    background.freeze_more()  # outside: nothing frozen, nothing to put back
+    assert gc.get_freeze_count() == 0
+    with background.frozen_heap():
+        before = gc.get_freeze_count()
+        made = [[i] for i in range(1000)]  # noqa: F841 - objects made since the heap was frozen
+        background.freeze_more()
+        assert gc.get_freeze_count() >= before + 1000
+    assert gc.get_freeze_count() == 0  # all of it put back when the report ends
