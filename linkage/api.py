@@ -58,6 +58,7 @@ a what-if (``linkage predict``) runs on numpy alone.
 from __future__ import annotations
 
 import contextlib
+import functools
 import os
 from dataclasses import dataclass
 from pathlib import Path
@@ -960,6 +961,20 @@ def whatif_rows(rows, *, lots: Iterable[str | None] | None = None, spec=None, st
     return _recorded_whatifs(results, row_lots, store, will_record)  # each row's lot stated on its result, as recorded
 
 
+def _collector_paused(fn):
+    """``fn`` run with the cyclic garbage collector paused (:func:`linkage.report.background.collector_paused`;
+    the report's drawing turns it on for its own time)."""
+    @functools.wraps(fn)
+    def paused(*args, **kwargs):
+        from linkage.report.background import collector_paused
+
+        with collector_paused():
+            return fn(*args, **kwargs)
+
+    return paused
+
+
+@_collector_paused  # loading the chain, reading the store, assembling: nearly nothing they make is garbage
 def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest", spec=None,
            confidence: float = 0.9, seed: int = 0, window: Window | None = None, assurance: float = 0.9,
            plan=None) -> Path:
@@ -986,10 +1001,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
         from linkage.report.plan_section import read_plan
 
         plan = read_plan(plan)  # a file that is not a plan is refused before any work
-    from linkage.report.background import collector_paused
-
-    with collector_paused():  # the chain and the modules it needs are kept: nothing for the collector to find
-        chain = _fitted(models_dir, model)
+    chain = _fitted(models_dir, model)
     check_time_point(chain, spec, "report")
     product = chain.trained_product
     tables, lots, others, store_cautions, aside_rows = _report_lots(store, product, chain)

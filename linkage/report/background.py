@@ -88,13 +88,16 @@ def frozen_heap():
     the report's process and again in every child forked from it, where writing the collector's marks into
     those objects also copies their memory pages. Frozen, a pass walks only what was made since. Nothing is
     freed any later than it would be: what exists on entry outlives the report anyway. Where someone froze
-    the heap already, it is left as it is (and so are the thresholds)."""
+    the heap already, it is left as it is (and so are the thresholds). The collector is on inside (the drawing
+    makes garbage in cycles, matplotlib's figures), paused before or not (:func:`collector_paused`), and as it
+    was after."""
     if gc.get_freeze_count():
         yield
         return
-    thresholds = gc.get_threshold()
+    thresholds, enabled = gc.get_threshold(), gc.isenabled()
     gc.freeze()
     gc.set_threshold(max(thresholds[0], YOUNG_THRESHOLD), *thresholds[1:])
+    gc.enable()
     _FROZEN_HERE[0] = True
     try:
         yield
@@ -102,6 +105,8 @@ def frozen_heap():
         _FROZEN_HERE[0] = False
         gc.set_threshold(*thresholds)
         gc.unfreeze()
+        if not enabled:
+            gc.disable()
 
 
 #: whether a :func:`frozen_heap` of this process froze the heap (and puts it back when it ends)
@@ -118,9 +123,10 @@ def freeze_more() -> None:
 
 @contextmanager
 def collector_paused():
-    """No cyclic garbage collection inside (reference counting still frees what is dropped): for loading a
-    fitted chain, whose imports and unpickled objects are all kept, so that the collector's passes over the
-    growing heap would find nothing to free."""
+    """No cyclic garbage collection inside (reference counting still frees what is dropped): for what a report
+    does before it draws (loading the fitted chain, reading the store, assembling the table), whose imports and
+    objects are nearly all kept, so that the collector's passes over the growing heap would find little to free.
+    A :func:`frozen_heap` inside turns the collector on for its own time."""
     enabled = gc.isenabled()
     gc.disable()
     try:

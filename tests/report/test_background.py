@@ -235,3 +235,28 @@ def test_freeze_more_only_inside_the_frozen_heap_that_froze():
         background.freeze_more()
         assert gc.get_freeze_count() >= before + 1000
     assert gc.get_freeze_count() == 0  # all of it put back when the report ends
+
+
+def test_frozen_heap_collects_inside_a_paused_collector_and_pauses_it_again():
+    """api.report runs with the collector paused (loading, reading, assembling) and draws inside frozen_heap,
+    where matplotlib's figures are garbage in cycles: collected there, paused again after."""
+    import gc
+
+    with background.collector_paused():
+        with background.frozen_heap():
+            assert gc.isenabled()
+        assert not gc.isenabled() and gc.get_freeze_count() == 0
+    assert gc.isenabled()
+
+
+def test_the_report_entry_point_runs_with_the_collector_paused():
+    import gc
+    import inspect
+
+    from linkage import api
+
+    assert inspect.signature(api.report).parameters["store"].kind is inspect.Parameter.KEYWORD_ONLY  # the same
+    seen = []
+    with pytest.raises(ZeroDivisionError):  # paused inside, and on again after an error
+        api._collector_paused(lambda: (seen.append(gc.isenabled()), 1 / 0))()
+    assert seen == [False] and gc.isenabled()
