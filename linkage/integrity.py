@@ -151,6 +151,17 @@ def verify_record(store: Path | None, models_dir: Path | None, *, registry_requi
 NOT_CHECKED_UNSEALED = ("seals", "audit entries", "predictions", "ingests")
 
 
+#: the singular of each count ``verify`` names (its --json keys stay as they are: plural)
+_ONE = {"seals": "seal", "audit entries": "audit entry", "predictions": "prediction", "ingests": "ingest",
+        "lot tables": "lot table", "raw rows": "raw row", "models": "model"}
+
+
+def counted(n: int, what: str) -> str:
+    """``n`` things as the verify text says them: '1 prediction', '0 predictions', '2 audit entries' (``what``: the
+    plural, as the store's counts are keyed; a word without a singular here stays as it is)."""
+    return f"{n} {_ONE.get(what, what) if n == 1 else what}"
+
+
 def _unsealed_counts(counts: dict) -> dict:
     """The counts of a check of a schema 1 store made on its upgraded copy (:func:`linkage.store.upgraded_copy`):
     the seals, audit entries, predictions and ingests were sealed by the copy's upgrade from what they are now, so
@@ -170,7 +181,7 @@ def _unsealed_caution(store: Path, version: int, counts: dict) -> str:
             "and no anchor: its ingests, audit entries and recorded predictions could not be checked against "
             "seals, nor the removal or rewriting of records ruled out. Checked: SQLite's integrity_check of its "
             f"pages (as SQLite's backup copied them), and each lot table's content hash, recorded at its ingest, against its raw rows "
-            f"({counts.get('lot tables', 0)} lot tables, {counts.get('raw rows', 0)} raw rows). Checked on an "
+            f"({counted(counts.get('lot tables', 0), 'lot tables')}, {counted(counts.get('raw rows', 0), 'raw rows')}). Checked on an "
             "upgraded temporary copy; the store itself was not upgraded nor changed (an earlier linkage still reads "
             f"it); {NEXT_RECORD_UPGRADES} and seals its records as they then stand")
 

@@ -249,3 +249,21 @@ def test_history_and_audit_take_a_lot_with_spaces_as_predict_does(lab, tmp_path)
     audit = run("audit", "--store", db, "--lot", " ex-001 ", "--json")
     assert audit.exit_code == 0, audit.output
     assert [e["action"] for e in json.loads(audit.stdout)] == ["ingest"]
+
+
+def test_verify_counts_one_of_a_kind_in_the_singular(lab, tmp_path):
+    """A user test read "1 predictions" in verify's text. Each count says one thing in the singular and any other
+    number in the plural; --json keeps its keys (plural) and numbers. A wording regression: no outside source."""
+    import json
+
+    store = tmp_path / "s.db"
+    assert run("ingest", lab, "--store", store).exit_code == 0  # one ingest of the four lots
+    counts = json.loads(run("verify", "--store", store, "--json").stdout)["store_checked"]
+    assert counts["ingests"] == 1 and counts["predictions"] == 0, counts
+    text = run("verify", "--store", store).stdout
+    assert "1 ingest," in text and "1 ingests" not in text, text
+    assert "0 predictions" in text and f"{counts['lot tables']} lot tables" in text, text
+    from linkage.integrity import counted
+
+    assert [counted(n, "audit entries") for n in (0, 1, 2)] == ["0 audit entries", "1 audit entry", "2 audit entries"]
+    assert counted(1, "models") == "1 model" and counted(3, "models") == "3 models"

@@ -337,7 +337,7 @@ def verify(ctx, store, models_dir, as_json, reanchor, reason):
     """
     from linkage.cli.common import MODELS_ENV
     from linkage.exceptions import UsageError
-    from linkage.integrity import NOT_CHECKED_UNSEALED, verify_record
+    from linkage.integrity import NOT_CHECKED_UNSEALED, counted, verify_record
     from linkage.store import REANCHOR_NEEDS_REASON, given_reason
 
     if reanchor and given_reason(reason) is None:
@@ -355,7 +355,7 @@ def verify(ctx, store, models_dir, as_json, reanchor, reason):
         newest = counts.get("newest seal", {})
         unsealed = bool(counts) and newest.get("id") is None  # schema 1, before seals: nothing to check them by
         if counts:
-            checked = ", ".join(f"{v} {k}" for k, v in counts.items()
+            checked = ", ".join(counted(v, k) for k, v in counts.items()
                                 if k != "newest seal" and not (unsealed and k in NOT_CHECKED_UNSEALED))
             click.echo(f"Lot store {store}: {checked}; " + ("no seals (written before seals)"
                        if unsealed else f"newest seal {newest.get('id')} sha256 {newest.get('sha256')}"))
@@ -363,7 +363,7 @@ def verify(ctx, store, models_dir, as_json, reanchor, reason):
             click.echo(f"Model registry {models_dir}: not checked ({result.models_not_checked}; "
                        "give --models-dir to check one)")
         else:
-            click.echo(f"Model registry {models_dir}: {result.models_checked} model(s) checked")
+            click.echo(f"Model registry {models_dir}: {counted(result.models_checked, 'models')} checked")
         for name in result.models_unregistered:
             click.echo(f"  not registered: {name} (a folder the registry index does not hold; never loaded; "
                        "'linkage models --import' registers a model folder copied in)")
