@@ -61,6 +61,16 @@ def _frame(rows: list[dict], index: str | list[str] | None = None) -> pd.DataFra
     return df.set_index(index) if index is not None and not df.empty else df
 
 
+def units_shown(text: str) -> str:
+    """linkage's own words with a unit after a number as a reader writes it, 'µm' for 'um' (the report's and the
+    sheet's rule, :func:`linkage.report.figures.shown_units_text`): the terminal texts of ``window``, ``predict``,
+    ``space`` and ``assemble``; their ``--json`` keeps the texts as recorded. Python 3 writes stdout as UTF-8 here,
+    as it writes the other non-ASCII signs of these texts (–, ≥, ², ρ)."""
+    from linkage.report.figures import shown_units_text
+
+    return shown_units_text(text)
+
+
 def _rows(n) -> str:
     return "" if n is None else f"{n} row{'s' if n != 1 else ''}"
 
@@ -420,7 +430,7 @@ def _window_head_lines(d: dict, bound: dict, has_bound: bool) -> list[str]:
         in_domain_reasons = [r for r in d["promise_reasons"] if r != bound.get("reason")]
         if in_domain_reasons:
             lines.append(f"!! {WINDOW_NO_PROMISE}")
-            lines += [f"   - {r}" for r in in_domain_reasons]
+            lines += [f"   - {units_shown(r)}" for r in in_domain_reasons]
         if not has_bound:
             lines.append(f"!! {bound.get('reason')}")
     return lines
@@ -493,9 +503,9 @@ def _window_settings_lines(d: dict) -> list[str]:
                      ", ".join(f"{k} = {v['value']:.4g} ({v['source']})" for k, v in held_rf.items()))
     if d.get("held_point"):
         lines.append(f"Held: {d['held_point']['rule']}.")
-        lines.append(held_text(d["held_point"], "held point of the window (at its middle porosity)"))
+        lines.append(units_shown(held_text(d["held_point"], "held point of the window (at its middle porosity)")))
     if rf.get("held_point"):
-        lines.append(held_text(rf["held_point"], "held point of the roll force range (at its middle force)"))
+        lines.append(units_shown(held_text(rf["held_point"], "held point of the roll force range (at its middle force)")))
     return lines
 
 
@@ -640,7 +650,7 @@ def whatif_text(result: WhatIf) -> str:
             lines.append(f"!! {not_judged_text(d['not_modelled_reasons'])}")
     if not d["in_domain"]:
         lines.append(f"!! {NO_PROMISE}")
-        lines += [f"   - {r}" for r in d["domain_reasons"]]
+        lines += [f"   - {units_shown(r)}" for r in d["domain_reasons"]]
     if bound.get("reason"):
         lines.append(f"!! {bound['reason']}")
     lines.append("Inputs: " + ", ".join(f"{k}={v['value']:.4g}"
@@ -651,7 +661,7 @@ def whatif_text(result: WhatIf) -> str:
     if hp.get("held"):
         from linkage.decide.held import held_text
 
-        lines.append(f"Held: {hp['rule']}. {held_text(hp)}")
+        lines.append(f"Held: {hp['rule']}. {units_shown(held_text(hp))}")
     projected = []
     for name, p in d["predictions"].items():
         line = f"  {name:<24} {p['value']:>9.4g}   [{_end(p['low'])}, {_end(p['high'])}]"

@@ -12,7 +12,7 @@ import click
 from linkage.cli.common import (FiniteFloat, check_output, handle_errors, json_option, models_dir_option,
                                 store_option, tell_progress, with_store_upgraded)
 from linkage.exceptions import LinkageError, UsageError
-from linkage.results import _rows
+from linkage.results import _rows, units_shown
 from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
 
 
@@ -25,7 +25,7 @@ from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
                    "with the revision and in the audit trail.")
 @click.option("--accept-unusual", is_flag=True,
               help="Take values far from the product's recent lots deliberately (refused otherwise as a likely unit "
-                   "mistake), and sieve apertures below the smallest test sieve's (20 um; a stack in mm); needs "
+                   "mistake), and sieve apertures below the smallest test sieve's (20 µm; a stack in mm); needs "
                    "--reason; each value is recorded in the audit trail.")
 @click.option("--preview", is_flag=True,
               help="Write nothing (not the store, its anchor file or its audit trail; a store that does not exist "
@@ -53,7 +53,7 @@ def ingest(folder, store, reason, accept_unusual, preview, as_json):
     table, so send its stored rows with new ones. The text and --json say
     which lots were added to and which changed. A
     value far from the product's recent lots (a likely unit mistake), or a
-    sieve aperture below 20 um (a stack in mm; also on a first ingest), is
+    sieve aperture below 20 µm (a stack in mm; also on a first ingest), is
     refused, with the mistake it looks like; --accept-unusual takes it.
     Sending the same files again changes nothing.
 
@@ -215,7 +215,7 @@ def history(lot, store, as_json):
               help="Write the assembled table (one row per lot) to this CSV file.")
 @click.option("--product", default=None, help="Only the lots of this product.")
 @click.option("--fines-cutoff-um", default=DEFAULT_FINES_CUTOFF_UM, show_default=True,
-              type=FiniteFloat(0, 100_000, min_open=True), help="Size below which granules count as fines [um].")
+              type=FiniteFloat(0, 100_000, min_open=True), help="Size below which granules count as fines [µm].")
 @click.option("--spec", "spec_path", type=click.Path(exists=True, dir_okay=False, path_type=Path), default=None,
               help="spec.toml: its dissolution time point is used, and each lot is compared with its limits.")
 @handle_errors
@@ -244,7 +244,7 @@ def assemble(store, out, product, fines_cutoff_um, spec_path):
     if out is not None:  # written before anything is printed: a reader that stops early (| head) cuts no work
         write_table_csv(table, out)
     click.echo(f"Assembled {len(table)} lots x {table.shape[1]} columns from {store} "
-               f"(fines below {fines_cutoff_um:g} um, dissolution at {time_min:g} min).")
+               f"(fines below {fines_cutoff_um:g} µm, dissolution at {time_min:g} min).")
     if out is not None:
         click.echo(f"Wrote {out}.")
     else:
@@ -263,7 +263,7 @@ def assemble(store, out, product, fines_cutoff_um, spec_path):
             click.echo(f"  {attr} {limit.text()}: {passing}/{len(values)}")
         _compendial_counts(table, spec)
     for note in table.attrs.get("notes", []):
-        click.echo(f"Note: {note}")
+        click.echo(f"Note: {units_shown(note)}")  # µm, as the report writes the notes
 
 
 def _compendial_counts(table, spec) -> None:

@@ -468,6 +468,7 @@ def acceptable_ranges(result: SpaceResult) -> dict:
 def space_text(result: SpaceResult) -> str:
     """What ``linkage space`` prints."""
     from linkage.report.figures import shown_unit
+    from linkage.results import units_shown
 
     d = result.to_dict()
     b = d["bound"]
@@ -486,7 +487,7 @@ def space_text(result: SpaceResult) -> str:
     inside = int(result.in_domain.sum())
     lines.append(f"Inside the applicability domain: {inside} of {n} grid points.")
     for r in result.domain_reasons[:6]:
-        lines.append(f"   outside, {r}")
+        lines.append(f"   outside, {units_shown(r)}")
     lines.append(f"Reaching {percent_text(result.confidence)} ({'bound' if b['available'] else 'point estimate'}) inside the "
                  f"domain: {int(result.region.sum())} of {n} grid points; point estimate anywhere: "
                  f"{int((result.p_all >= result.confidence).sum())}.")

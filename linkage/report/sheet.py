@@ -12,7 +12,7 @@ from __future__ import annotations
 
 from linkage import CAUTION, __version__
 from linkage.numbers import percent_text
-from linkage.report.figures import shown_unit
+from linkage.report.figures import shown_unit, shown_units_text
 
 # colour-blind-safe (Okabe & Ito 2008): blue, vermillion, bluish green, grey
 BLUE, VERMILLION, GREEN, GREY = "#0072B2", "#D55E00", "#009E73", "#6b6b6b"
@@ -261,7 +261,7 @@ def _held(d: dict) -> dict | None:
         return None
     from linkage.decide.held import held_text
 
-    return {"rule": hp["rule"], "text": held_text(hp)}
+    return {"rule": hp["rule"], "text": shown_units_text(held_text(hp))}
 
 
 def whatif_html(result, set_aside_note: str | None = None) -> str:
@@ -279,7 +279,7 @@ def whatif_html(result, set_aside_note: str | None = None) -> str:
         made_for=_made_for(d), trained_on=" ".join(trained_products_lines(d, reader=True)), caution=CAUTION,
         set_aside_note=set_aside_note[0].upper() + set_aside_note[1:] if set_aside_note else "",
         in_domain=d["in_domain"], no_promise=NO_PROMISE,
-        domain_reasons=d["domain_reasons"], no_bound=bound.get("reason") or "",
+        domain_reasons=[shown_units_text(r) for r in d["domain_reasons"]], no_bound=bound.get("reason") or "",
         spec_html=Markup(spec_table_html(d.get("spec"), d.get("attributes"), d.get("not_modelled_reasons"))),
         inputs=[{"name": k, "unit": _unit(k), "value": _fmt(v["value"]), "source": v["source"]}
                 for k, v in d["inputs"].items()],
