@@ -199,12 +199,20 @@ def _prediction_row(name: str, p: dict, d: dict) -> dict:
         "limits": _limits_text(lim),
         "p_pass": ("–" if "p_pass" not in p
                    else bound_text(p.get("p_pass_low"), p["p_pass"], d["p_pass_all_bound"]["assurance"])),
-        "stages": [(k if k.startswith("S") else "stage " + k, probability_text(v))
-                   for k, v in p.get("p_stage", {}).items()],
+        "stages": stages_text(p.get("p_stage")),
         "extrapolation": "p_pass" in p and not d["promise"],
         "method": p["interval_method"], "model": p["selected_model"],
         "contributions": contributions_shown(p),
     }
+
+
+def stages_text(p_stage: dict | None) -> str:
+    """The compendial stages' probabilities as the sheet writes them: 'passing at S1 84.4%, by S2 > 99.9%, by S3
+    > 99.9%', the words ``linkage predict`` writes (:func:`linkage.results.stage_text`: at the first stage, by each
+    later one); '' without stages."""
+    from linkage.results import stage_text
+
+    return f"passing {stage_text(p_stage)}" if p_stage else ""
 
 
 #: said in place of the largest contributions when every one the what-if gives is zero

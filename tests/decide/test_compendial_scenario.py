@@ -19,7 +19,9 @@ error of the trained weight-RSD model there (its mean RSD off by about
 
 from __future__ import annotations
 
+import html
 import json
+import re
 
 import numpy as np
 import pytest
@@ -141,6 +143,11 @@ def test_cli_says_which_judge_and_gives_the_stage_keys(unit_scenario):
     assert "Judged:" in r.stdout and "at S1" in r.stdout and "USP <905>" in r.stdout
     sheet = (folder / "sheet.html").read_text(encoding="utf-8")
     assert "Judged:" in sheet and "USP &lt;711&gt;" in sheet
+    # the sheet says the stages as the terminal does (a user test read "S1 84.4%, S2 > 99.9%, S3 > 99.9% (passing
+    # by, point estimates)" on the sheet): the same words and numbers (a wording regression: no outside source)
+    stages = re.search(r"\((at S1 [^,]+, by S2 [^,]+, by S3 [^,]+), point estimates\)", r.stdout)
+    assert stages, r.stdout
+    assert f"passing {stages.group(1)} (point estimates)" in html.unescape(sheet) and "passing by," not in sheet
     r = runner.invoke(cli, ["window", "--spec", str(folder / "spec.toml"), "--draws", "500", *args])
     assert r.exit_code == 0, r.output
     assert "Judged:" in r.stdout and "USP <711> stages" in r.stdout
