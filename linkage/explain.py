@@ -56,7 +56,7 @@ METHODS = {
     "pls": "exact linear terms, coefficient × centred input",
     "quadratic_ridge": "exact interventional Shapley values",
     "rd_baseline": "all to ribbon_porosity, the baseline's only input",
-    "linear_select": "exact linear terms, coefficient × centred (log-)input",
+    "linear_select": "exact linear terms, coefficient × centred input or log-input",
     "log_linear": "link-scale terms, the change split in proportion to them",
     "weibull_release": "link-scale terms, the change split in proportion to them",
     "mean": "none: the model predicts the mean",

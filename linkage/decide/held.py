@@ -49,14 +49,16 @@ from types import SimpleNamespace
 
 import numpy as np
 
+# The sources are shown in brackets beside a value ("13.84 (held at ...)"): no brackets of their own, so that the
+# texts never nest one bracket in another (a user test read "(held at the training mean (no setting ...))").
 #: source of a setting held at its conditional mean given the given settings
-COHERENT = "held coherently (conditional mean of training lots)"
+COHERENT = "held coherently, at the conditional mean of training lots"
 #: source of a setting held at the training mean (nothing given to condition on)
-MEAN = "held at the training mean (no setting given to condition on)"
+MEAN = "held at the training mean, with no setting given to condition on"
 #: source of a few-level setting held at the training level nearest its conditional mean
-COHERENT_LEVEL = "held coherently (training level nearest the conditional mean of training lots)"
+COHERENT_LEVEL = "held coherently, at the training level nearest the conditional mean of training lots"
 #: source of a few-level setting held at the training level nearest the training mean (nothing given)
-MEAN_LEVEL = "held at the training level nearest the training mean (no setting given to condition on)"
+MEAN_LEVEL = "held at the training level nearest the training mean, with no setting given to condition on"
 #: source of a setting held at its median (a model saved before coherent held settings)
 MEDIAN = "training median"
 

@@ -196,7 +196,13 @@ def remember(designs) -> None:
             key = _design_key(d["attributes"], d["lambda"], d["arl0_target"], d["n_reference"])
         except (KeyError, TypeError, ValueError):
             continue
-        _KEPT[key] = dict(d)
+        _KEPT[key] = {**d, "parameters": parameters_text(key[3])}  # its numbers; the words of this version
+
+
+def parameters_text(n_ref: int | None) -> str:
+    """How the residuals' mean, SD and correlation are taken, as the design's words say it (in brackets there:
+    no brackets of its own)."""
+    return "known" if n_ref is None else f"estimated from {n_ref} training lots, with the ARL averaged over such estimates"
 
 
 def simulated(d) -> bool:
@@ -244,8 +250,7 @@ def _design(p: int, lam: float, arl0: float, n_ref: int | None = None) -> dict:
                  "Technometrics 34:46-53), exact time-varying covariance, zero-state from the first lot since "
                  "training",
         "attributes": p, "lambda": lam, "h": h, "arl0_target": arl0, "n_reference": n_ref,
-        "parameters": ("known" if n_ref is None else
-                       f"estimated from {n_ref} training lots (the ARL averages over such estimates)"),
+        "parameters": parameters_text(n_ref),
         "false_alarm_rate_per_lot": 1.0 / arl0,
         "arl": arl,
         "method": (f"h chosen by simulation ({RUNS} seeded in-control runs of standard normal vectors, seed "

@@ -141,7 +141,7 @@ class SpaceResult:
             "assurance": self.assurance,
             "bound": dict(self.bound),
             "attributes": list(self.attributes),
-            "judged_on": "lot means against each limit (compendial unit stages not simulated on the map)",
+            "judged_on": "lot means against each limit; compendial unit stages not simulated on the map",
             "given": dict(self.given),
             "held": {"rule": self.held_rule, "sources": dict(self.held_sources),
                      "values": {k: grid(v) for k, v in self.held.items()}},
@@ -504,7 +504,8 @@ def space_text(result: SpaceResult) -> str:
         if "simultaneous_holds" in ar:
             lines.append(f"  over the whole box at once (simultaneous band, {percent_text(result.assurance)} assurance) the "
                          f"lowest bound is {ar['simultaneous_low_min']:.3f}: the box keeps the confidence"
-                         + (f" (shrunk from the pointwise bound's box in {ar['shrink_rounds']} round(s))"
+                         + (f" (shrunk from the pointwise bound's box in {ar['shrink_rounds']} "
+                            f"round{'' if ar['shrink_rounds'] == 1 else 's'})"
                             if ar["shrunk"] else ""))
         lines.append("  held there: " + ", ".join(f"{k} = {v:.4g}" for k, v in ar["held_at_set_point"].items()))
         lines.append("  held settings over the box (they follow the mapped ones): "

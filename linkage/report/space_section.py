@@ -116,7 +116,7 @@ def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: 
     what = "lower bound" if r.p_all_low is not None else "point estimate"
     b.figure(make, f"The {what} of the probability that a lot meets every specification at once "
                  f"({', '.join(r.attributes)}, lot means) over specific roll force and roll gap, through the whole "
-                 f"chain; other settings held coherently at each point ({r.held_rule}). Solid line: the {what} "
+                 f"chain; other settings held coherently at each point: {r.held_rule}. Solid line: the {what} "
                  f"reaches {percent_text(r.confidence)}"
                  + (f" ({percent_text(r.assurance)} assurance, {r.bound['n_replicates']} lot-level bootstrap replicates; the "
                     "conservative boundary); dashed: the point estimate does (the estimated boundary, the best "

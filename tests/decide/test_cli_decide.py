@@ -42,7 +42,7 @@ def test_window_text_names_edges_settings_and_caution(run, saved_model):
     assert r.exit_code == 0, r.output
     assert "Porosity window:" in r.stdout
     assert "low edge: limited by dissolution_pct" in r.stdout
-    assert "(held at the training mean (no setting given to condition on))" in r.stdout
+    assert "(held at the training mean, with no setting given to condition on)" in r.stdout
     assert "not release testing" in r.stdout
 
 
@@ -85,7 +85,7 @@ def test_predict_from_csv(run, tmp_path):
     d = json.loads(r.stdout)
     assert len(d) == 2
     # a measured porosity is not a setting: nothing to condition on, the training mean (linkage.decide.held)
-    assert d[1]["inputs"]["compression_force_kn"]["source"] == "held at the training mean (no setting given to condition on)"
+    assert d[1]["inputs"]["compression_force_kn"]["source"] == "held at the training mean, with no setting given to condition on"
 
 
 def test_predict_from_csv_text_names_each_rows_lot(run, tmp_path):

@@ -219,3 +219,25 @@ def test_the_scenario_holds_the_mill_screen_at_a_level_run_and_an_older_model_st
     want = _regression(X, g, [names.index("mill_screen_mm")], [[given[names[i]] for i in g]])[0, 0]
     assert v_old["mill_screen_mm"] == pytest.approx(np.clip(want, min(levels), max(levels)), rel=1e-9)
     assert held.rule_of(old) == held.RULE_COHERENT
+
+
+def test_held_sources_and_the_window_and_what_if_texts_open_no_bracket_inside_another(scenario):
+    """A user test read "compression_force_kn = 13.84 (held at the training mean (no setting given to condition
+    on))" in the window's text and the report: a source is shown in brackets beside its value, so it has none of
+    its own, and the window's and the what-if's texts open no bracket inside another. Same facts: the words of
+    each source are kept. A wording regression: no outside source."""
+    from linkage.decide.window import find_window
+    from linkage.results import whatif_text, window_text
+    from tests.brackets import nested_brackets
+
+    sources = (held.COHERENT, held.MEAN, held.COHERENT_LEVEL, held.MEAN_LEVEL)
+    assert not any("(" in s or ")" in s for s in sources), sources
+    assert "no setting given to condition on" in held.MEAN and "conditional mean of training lots" in held.COHERENT
+    _, chain, spec, _ = scenario
+    w = find_window(chain, spec, n_grid=21, n_draws=300)
+    text = window_text(w)
+    assert held.MEAN in text or held.MEAN_LEVEL in text, text  # nothing given: held at the training mean
+    assert nested_brackets(text) == [], nested_brackets(text)
+    for given in ({}, {"roll_force_kn_per_cm": 8.0}):
+        text = whatif_text(predict_whatif(chain, given, spec=spec, n_draws=300, seed=0))
+        assert nested_brackets(text) == [], nested_brackets(text)

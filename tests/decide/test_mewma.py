@@ -147,3 +147,29 @@ def test_with_48_training_lots_the_false_alarm_rate_is_the_designed_one():
     rl1 = _estimated_campaigns(48, 300, 4, 150, d["h"], seed=13, shift=shift)
     per = rl1.reshape(300, 4).mean(axis=1)
     assert rl1.mean() <= d["arl"]["shift_1sd"]["arl"] + 3 * per.std(ddof=1) / np.sqrt(per.size)
+
+
+def test_the_designs_words_open_no_bracket_inside_the_watchs_and_follow_the_code_when_kept():
+    """A user test read "(mean, SD and correlation estimated from 47 training lots (the ARL averages over such
+    estimates))" in the watch's design text. The design's words have no brackets of their own (the watch puts them
+    in brackets); a design kept beside a model by an earlier version keeps its numbers and takes this version's
+    words. A wording regression: no outside source."""
+    from linkage.decide import mewma
+    from linkage.decide.watch import design_lines
+    from tests.brackets import nested_brackets
+
+    d = design(3)  # parameters known: tabulated, no simulation
+    assert d["parameters"] == "known"
+    words = mewma.parameters_text(47)
+    assert "(" not in words and "47 training lots" in words and "ARL averaged over such estimates" in words
+    old = {**d, "n_reference": 47, "parameters": "estimated from 47 training lots (the ARL averages over such estimates)"}
+    kept = dict(mewma._KEPT)
+    try:
+        mewma.remember([old])
+        again = design(3, n_ref=47)
+        assert again["h"] == old["h"] and again["parameters"] == words  # its numbers, this version's words
+        lines = design_lines({"design": again})
+        assert nested_brackets(" ".join(lines)) == [], lines
+    finally:
+        mewma._KEPT.clear()
+        mewma._KEPT.update(kept)

@@ -270,3 +270,23 @@ def test_the_map_reports_its_estimated_and_conservative_boundaries(small_map):
             assert b["x_at_y"][i] == pytest.approx(crossings(surface[i], r.xs, r.confidence, r.in_domain[i]),
                                                    abs=1e-6)
     assert d["in_estimated_region"] == ((r.p_all >= r.confidence) & r.in_domain).tolist()
+
+
+def test_the_space_text_opens_no_bracket_inside_another(small_map):
+    """A user test read "Judged: … (lot means against each limit (compendial unit stages not simulated on the
+    map))" and "(shrunk from the pointwise bound's box in 1 round(s))". The judged text has no brackets of its own
+    (same facts), and a count of rounds is said in the singular or plural. A wording regression: no outside source."""
+    import dataclasses
+
+    from linkage.decide.space import space_text
+    from tests.brackets import nested_brackets
+
+    judged = small_map.to_dict()["judged_on"]
+    assert "(" not in judged and "lot means against each limit" in judged and "not simulated on the map" in judged
+    ranges = dict(small_map.ranges)
+    assert "simultaneous_holds" in ranges, ranges  # the box states its band: the rounds' sentence can be said
+    for rounds, said in ((1, "in 1 round)"), (3, "in 3 rounds)")):
+        shrunk = dataclasses.replace(small_map, ranges={**ranges, "shrunk": True, "shrink_rounds": rounds})
+        text = space_text(shrunk)
+        assert said in text and "round(s)" not in text, text
+        assert nested_brackets(text) == [], nested_brackets(text)

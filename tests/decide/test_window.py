@@ -129,7 +129,7 @@ def test_whatif_json_shape(scenario):
     assert {"model_id", "inputs", "predictions", "in_domain", "domain_reasons"} <= set(d)
     assert d["inputs"]["roll_force_kn_per_cm"] == {"value": 9.0, "source": "given"}
     # held at its conditional mean given the given settings (linkage.decide.held)
-    assert d["inputs"]["roll_speed_rpm"]["source"] == "held coherently (conditional mean of training lots)"
+    assert d["inputs"]["roll_speed_rpm"]["source"] == "held coherently, at the conditional mean of training lots"
     for name in ("ribbon_porosity", "granule_d50_um", "fines_pct", "dissolution_pct"):
         p = d["predictions"][name]
         assert p["low"] <= p["value"] <= p["high"]

@@ -164,7 +164,7 @@ def test_porosity_curves_follow_the_chain_of_mean_predictions(chain):
     for name, c in curves.curves.items():
         np.testing.assert_allclose(c["mean"], chain.targets[name].predict(x), rtol=1e-10, err_msg=name)
         assert np.all(c["low"] < c["high"]), name
-    mean = "held at the training mean (no setting given to condition on)"
+    mean = "held at the training mean, with no setting given to condition on"
     assert curves.settings == {"compression_force_kn": {"value": pytest.approx(med["compression_force_kn"]),
                                                         "source": mean},
                                "mill_screen_mm": {"value": pytest.approx(med["mill_screen_mm"]),
