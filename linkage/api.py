@@ -1001,7 +1001,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
         from linkage.report.plan_section import read_plan
 
         plan = read_plan(plan)  # a file that is not a plan is refused before any work
-    chain = _fitted(models_dir, model)
+    chain = _fitted_to_report(models_dir, model, store)
     check_time_point(chain, spec, "report")
     product = chain.trained_product
     tables, lots, others, store_cautions, aside_rows = _report_lots(store, product, chain)
@@ -1062,6 +1062,47 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
         save_result(models_dir, chain.model_id, "figures", figures_key, rendered.computed["figures"], "linkage report",
                     only=True)  # one state of the lots kept: the figures are megabytes
     return Path(write_report(rendered, out))
+
+
+def _fitted_to_report(models_dir, model, store) -> FittedChain:
+    """:func:`_fitted`; where the models folder holds no model, the refusal says, of a store with fewer lots in use
+    than training needs (:data:`linkage.models.train.MIN_LOTS`), that training cannot work yet instead of "train a
+    model first" (a user test: a store of 4 lots)."""
+    from linkage.exceptions import NoModelError
+
+    try:
+        return _fitted(models_dir, model)
+    except NoModelError as exc:
+        too_few = _too_few_to_train(store)
+        if too_few is None:
+            raise
+        from linkage.models.registry import no_model_text
+
+        raise NoModelError(no_model_text(exc.models_dir, exc.why, too_few), exc.models_dir, exc.why) from None
+
+
+def _too_few_to_train(store) -> str | None:
+    """What stands in for "or train a model first" when ``store`` holds fewer lots in use than training needs
+    (None: enough lots, or a store that cannot be read: then the plain hint stands)."""
+    import warnings
+
+    from linkage.models.train import MIN_LOTS
+    from linkage.store import reading
+
+    if store is None or not Path(store).is_file():
+        return None
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # the refusal is the message; the store's cautions are another command's
+            with reading(store) as lot_store:
+                n = len(lot_store.lots(in_use=True))
+    except (LinkageError, OSError):
+        return None
+    if n >= MIN_LOTS:
+        return None
+    return (f"No model can be trained on the lot store {store} yet: training needs at least {MIN_LOTS} lots with "
+            f"every input and a target, and it holds {n} lot{'' if n == 1 else 's'} in use; ingest more lots, then "
+            "'linkage train'")
 
 
 def _report_lots(store, product, chain):

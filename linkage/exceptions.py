@@ -220,6 +220,22 @@ class ModelNotFoundError(LinkageError, LookupError):
     exit_code = 2
 
 
+class NoModelError(ModelNotFoundError):
+    """The models folder holds no model to use as ``latest``: no registry there, or none of its models complete
+    (exit code 2). ``models_dir`` is the folder looked in and ``why`` its state, so that a caller that knows more
+    (the report: a store with too few lots to train on) can say it in place of the plain hint
+    (:func:`linkage.models.registry.no_model_text`)."""
+
+    exit_code = 2
+
+    def __init__(self, text: str, models_dir=None, why: str = ""):
+        self.models_dir, self.why = models_dir, why
+        super().__init__(text)
+
+    def __reduce__(self):
+        return type(self), (str(self), self.models_dir, self.why)
+
+
 class InsufficientDataError(LinkageError, ValueError):
     """Too few lots (or too little variation) to do what was asked."""
 

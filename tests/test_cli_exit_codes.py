@@ -104,8 +104,32 @@ def test_a_damaged_store_exits_5(tmp_path, command):
 def test_no_model_registry_is_usage_exit_2(tmp_path, command):
     r = run(*command, "--models-dir", tmp_path / "models", "--store", tmp_path / "s.db")
     assert r.exit_code == 2, r.output
-    assert f"no model registry at {tmp_path / 'models'}; train a model first ('linkage train')" in r.stderr
+    assert (f"no model registry at {tmp_path / 'models'}: no model found in the models folder looked in. Give the "
+            "folder that holds the models with --models-dir DIR (or $LINKAGE_MODELS_DIR), or train a model first "
+            "('linkage train')") in r.stderr
     assert list(tmp_path.iterdir()) == []
+
+
+def test_report_without_a_model_on_a_store_too_small_to_train_says_so(tmp_path, monkeypatch):
+    """A user test: 'report' on the template example's store (4 lots) said "train a model first ('linkage train')",
+    where training cannot work, and did not name --models-dir. The refusal names the models folder it looked in
+    (and where a relative one is), says how to give another, and says that training needs more lots than the store
+    holds (linkage.models.train.MIN_LOTS). A refusal's wording: no outside source."""
+    from linkage.models.train import MIN_LOTS
+
+    store = _template_store(tmp_path)
+    monkeypatch.chdir(tmp_path)
+    for models in ("models", tmp_path / "elsewhere"):  # the default (relative), and one given
+        args = ["report", "--store", store] + (["--models-dir", models] if models != "models" else [])
+        r = run(*args)
+        assert r.exit_code == 2, r.output
+        shown = f"models ({tmp_path / 'models'})" if models == "models" else str(models)
+        assert f"no model registry at {shown}: no model found in the models folder looked in" in r.stderr, r.stderr
+        assert "--models-dir DIR (or $LINKAGE_MODELS_DIR)" in r.stderr
+        assert (f"No model can be trained on the lot store {store} yet: training needs at least {MIN_LOTS} lots "
+                "with every input and a target, and it holds 4 lots in use") in r.stderr, r.stderr
+        assert "train a model first" not in r.stderr
+    assert not (tmp_path / "reports").exists() and not (tmp_path / "models").exists()  # nothing written
 
 
 def _template_store(tmp_path):

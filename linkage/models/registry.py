@@ -53,7 +53,7 @@ import shutil
 from datetime import datetime, timezone
 from pathlib import Path
 
-from linkage.exceptions import (ModelIdError, ModelIntegrityError, ModelNotFoundError,
+from linkage.exceptions import (ModelIdError, ModelIntegrityError, ModelNotFoundError, NoModelError,
                                 NoVerifiedModelError, UsageError)
 
 __all__ = ["save", "load", "load_whatif", "resolve", "list_models", "import_model", "verify", "record_decision",
@@ -298,6 +298,18 @@ def _latest_refused(models_dir: Path, index: dict, model_id: str, older: list[st
             f"new model ('linkage train'); {named}.")
 
 
+def no_model_text(models_dir, why: str, train: str | None = None) -> str:
+    """What a command says when the models folder it looked in holds no model to use (``why``: "no model registry
+    at", "no complete, verified model in"): the folder (and where it is, when given relative to the working
+    folder), how to name another, and ``train``: a sentence on making one (default: train one). A user test read
+    "train a model first" on a store of 4 lots, where training cannot work, and was not told of --models-dir."""
+    folder = Path(models_dir)
+    where = str(folder) if folder.is_absolute() else f"{folder} ({folder.resolve()})"
+    train = f". {train}" if train else ", or train a model first ('linkage train')"
+    return (f"{why} {where}: no model found in the models folder looked in. Give the folder that holds the models "
+            f"with --models-dir DIR (or $LINKAGE_MODELS_DIR){train}")
+
+
 def resolve(models_dir, model_id: str | None = "latest") -> Path:
     """Folder of a model, after the escape checks; ``latest`` (or None) is
     the newest model in service, refused (:class:`NoVerifiedModelError`) when
@@ -310,12 +322,13 @@ def _resolve(models_dir, model_id: str | None) -> tuple[Path, tuple | None]:
     when resolving ``latest`` verified it (None for an id: not verified yet)."""
     models_dir = Path(models_dir)
     if not models_dir.is_dir():
-        raise ModelNotFoundError(f"no model registry at {models_dir}; train a model first ('linkage train')")
+        raise NoModelError(no_model_text(models_dir, "no model registry at"), models_dir, "no model registry at")
     if model_id in (None, "latest"):
         index = _read_index(models_dir)
         ordered = _ordered_ids(index)
         if not ordered:
-            raise ModelNotFoundError(f"no complete, verified model in {models_dir}")
+            raise NoModelError(no_model_text(models_dir, "no complete, verified model in"), models_dir,
+                               "no complete, verified model in")
         mid = ordered[0]
         try:
             checked = _verify(models_dir, mid, index)
