@@ -89,3 +89,35 @@ def test_models_writes_the_training_time_in_utc_whatever_its_recorded_offset():
     [header, first, second] = text.splitlines()[:3]
     assert header.index("lots") + len("lots") == first.index("48") + len("48")  # right-aligned under its header
     assert "None" not in second
+
+
+def test_the_reports_set_aside_decisions_write_their_time_as_the_other_texts_do():
+    """A user test read "(by root, 2026-12-05T17:17:52.782+00:00)" in the report's lots section: the decision's
+    time is written as every other text writes a recorded time."""
+    from types import SimpleNamespace
+
+    from linkage.report.html import _Builder, _set_aside_part
+
+    recorded = "2026-12-05T19:17:52.782+02:00"  # another offset: turned to UTC
+    chain = SimpleNamespace(training={"lots": ["EX-002"]}, model_id="m-20261205T165054Z-1a2b3c4d")
+    b = _Builder(parallel=False)
+    try:
+        _set_aside_part(b, chain, {"EX-001": {"reason": REASON, "user": "root", "at": recorded}})
+    finally:
+        b.close()
+    text = "".join(b.parts)
+    assert f"EX-001: {REASON} (by root, {_shown(recorded)})" in text, text
+    assert _shown(recorded) == "2026-12-05 17:17:52 UTC" and not RECORDED.search(text), text
+
+
+def test_the_readmes_recorded_example_has_the_stores_precision(store):
+    """The README gave the recorded ISO text of `lots`, `history` and `audit --json` as '…54.123456+00:00'; the
+    store records to the millisecond ('.782+00:00'). The README's example for them has the digits the store
+    writes (a documentation regression: no outside source)."""
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    line = next(x for x in readme.splitlines() if x.startswith("- Changed (times in the text tables)"))
+    recorded = json.loads(_run("audit", "--store", store, "--json"))[0]["at"]
+    digits = len(re.search(r"\.(\d+)", recorded).group(1))
+    said = re.search(r"`lots`, `history` and `audit --json`: `([^`]+)`", line)
+    assert said, line
+    assert len(re.search(r"\.(\d+)", said.group(1)).group(1)) == digits == 3, (said.group(1), recorded)

@@ -675,13 +675,14 @@ def _presence(table: pd.DataFrame, lots: pd.DataFrame | None) -> tuple[pd.DataFr
 def _set_aside_part(b, chain, set_aside: dict) -> None:
     """The lots set aside in the store, left out of this report's table, and those of them the model was
     trained on (it was trained before they were set aside)."""
+    from linkage.exceptions import shown_time
     from linkage.store import set_aside_note, set_aside_trained_note
 
     note = set_aside_note(set_aside, "left out of this report")
     if not note:
         return
     b.add(_part("blocks", "para", text=note[0].upper() + note[1:] + ". Why: "
-                + "; ".join(f"{lot}: {d.get('reason')} (by {d.get('user')}, {d.get('at')})"
+                + "; ".join(f"{lot}: {d.get('reason')} (by {d.get('user')}, {shown_time(d.get('at'))})"
                             for lot, d in set_aside.items()) + "."))
     trained = set_aside_trained_note(set_aside, chain.training.get("lots"), chain.model_id)[1]
     if trained:
