@@ -1039,7 +1039,8 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
         figures_key = _figures_key(models_dir, chain.model_id, spec, table, lots, given_window=window is not None,
                                    window=found, confidence=confidence, seed=seed, assurance=assurance,
                                    curve_draws=REPORT_CURVE_DRAWS, mewma=simulation, plan=plan,
-                                   set_aside_rows=None if aside_rows is None else aside_rows.to_json(orient="records", date_format="iso"),
+                                   set_aside_rows=None if aside_rows is None
+                                   else aside_rows.to_json(orient="records", date_format="iso"),
                                    window_args=window_args if spec is not None else None,
                                    space_args=space_args if spec is not None else None)
     kept_figures = _reuse_key(models_dir, chain.model_id, "figures", figures_key)
