@@ -358,7 +358,15 @@ def _checked(models_dir: Path, model_id: str | None) -> tuple[Path, dict, bytes,
 # save, load, list, import
 # ---------------------------------------------------------------------------
 def _new_id(chain, index: dict, models_dir: Path) -> str:
-    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    """``m-<time>-<hash>``: the time is the model's ``created_at`` (when training began and read its lots, the
+    time ``models`` shows), in UTC to the second, so that the id and the listing name one time; now when a chain
+    has no readable ``created_at``."""
+    try:
+        began = datetime.fromisoformat(str(chain.created_at))
+    except ValueError:
+        began = datetime.now(timezone.utc)
+    began = began.replace(tzinfo=timezone.utc) if began.tzinfo is None else began.astimezone(timezone.utc)
+    stamp = began.strftime("%Y%m%dT%H%M%SZ")  # one without an offset is UTC, as linkage records times
     basis = json.dumps({"created_at": chain.created_at, "table": chain.training.get("table_sha256"),
                         "chain": chain.chain.to_toml(), "seed": chain.seed, "pid": os.getpid(),
                         "saved_at": _now()}, sort_keys=True)

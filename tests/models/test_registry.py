@@ -10,6 +10,7 @@ import signal
 import subprocess
 import sys
 import time
+from datetime import datetime, timezone
 
 import joblib
 import pytest
@@ -50,6 +51,19 @@ def test_save_and_load_round_trip(fit, tmp_path):
 def test_ids_are_unique_within_one_second(fit, tmp_path):
     ids = [save(fit, tmp_path) for _ in range(3)]
     assert len(set(ids)) == 3
+
+
+def test_the_id_names_the_time_the_listing_shows(fit, tmp_path):
+    """Regression (a user test: `models` showed 'created' at the start of training while the model id carried the
+    time it was saved, seconds apart; no outside source needed): the id's time is ``created_at`` in UTC to the
+    second, one recorded in another offset included."""
+    import dataclasses
+
+    mid = save(fit, tmp_path)
+    assert mid.split("-")[1] == datetime.fromisoformat(fit.created_at).astimezone(timezone.utc).strftime(
+        "%Y%m%dT%H%M%SZ")
+    elsewhere = dataclasses.replace(fit, created_at="2026-03-01T01:30:05.250000+02:00")
+    assert save(elsewhere, tmp_path).split("-")[1] == "20260228T233005Z"  # 01:30:05 at +02:00 is 23:30:05 UTC
 
 
 def test_edited_artifact_is_refused_without_unpickling(fit, tmp_path, monkeypatch):
