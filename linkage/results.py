@@ -136,6 +136,7 @@ class Ingested(_Result):
             lines.append("Warnings:")
             lines += [f"  - {w}" for w in r.warnings]
         lines += _unusual_lines(r.accepted_unusual)
+        lines += [f"Note: {extra_columns_note(file, columns)}" for file, columns in r.extra_columns.items()]
         lines += [f"Note: {note}" for note in r.notes]
         return "\n".join(lines + (self._preview_lines() if r.preview else []))
 
@@ -164,6 +165,20 @@ class Ingested(_Result):
                 f"{len(r.lots_revised)} revised ({len(r.lots_added_to)} only added to), {len(r.lots_unchanged)} "
                 "unchanged lots"
                 + (f"; {len(r.warnings)} warning(s)" if r.warnings else "") + ">")
+
+
+def extra_columns_note(file: str, columns: list[dict]) -> str:
+    """One line of the extra columns a file kept (``IngestResult.extra_columns``): each name, a declared one
+    (mapped in columns.toml) said so, and one near a template column the file also has (``near``) warned of."""
+    from linkage.read import MAPPING_FILE
+
+    def one(col: dict) -> str:
+        if col.get("near"):
+            return (f"{col['column']} (a near-twin of the template column {col['near']}, which the file also has: "
+                    "check it is not a misspelt copy)")
+        return f"{col['column']} (declared in {MAPPING_FILE})" if col.get("declared") else col["column"]
+
+    return f"{file}: kept as extra columns, not in the template: {', '.join(one(c) for c in columns)}"
 
 
 def _unusual_lines(records: list[dict], shown: int = 5) -> list[str]:

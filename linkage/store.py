@@ -298,6 +298,9 @@ class IngestResult:
     needs_reason: str | None = None
     #: notes: each product whose values were not judged for plausibility for want of history, one line each
     notes: list[str] = field(default_factory=list)
+    #: per file (as ``sources`` names it), the extra columns it kept, not in the template, in file order:
+    #: ``{"column", "near", "declared"}`` (:func:`linkage.read.table.extra_columns`); said, never stored
+    extra_columns: dict[str, list[dict]] = field(default_factory=dict)
 
     @property
     def changed(self) -> bool:
@@ -347,7 +350,7 @@ class _IngestPlan:
     def result(self, ingest_id: int | None, *, preview: bool = False) -> IngestResult:
         out = IngestResult(self.new, self.revised, self.unchanged, ingest_id, self.warnings, self.added_to,
                            self.changed, self.unusual_records, preview, lots_set_aside=self.set_aside,
-                           notes=self.notes)
+                           notes=self.notes, extra_columns=self.ingest.extra_columns)
         if preview:
             out.needs_reason = self.needs_reason
             listed = [lot for lot in self.revised if lot in self.shown][:PREVIEW_LOTS]

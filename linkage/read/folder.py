@@ -34,6 +34,9 @@ class Ingest:
     (spreadsheet row of each data row). ``unusual`` holds the values judged
     without history (:func:`linkage.plausible.sieve_apertures`) that were
     taken deliberately (``accept_unusual``), as records for the audit trail.
+    ``extra_columns`` holds, per file (as ``sources`` names it), the extra
+    columns it kept (:func:`linkage.read.table.extra_columns`); it is said,
+    never stored.
     """
 
     tables: dict[str, pd.DataFrame]
@@ -43,6 +46,7 @@ class Ingest:
     folder: Path | None = None
     other_sources: dict[str, dict] = field(default_factory=dict)
     unusual: list[dict] = field(default_factory=list)
+    extra_columns: dict[str, list[dict]] = field(default_factory=dict)
 
     def lots(self) -> list[str]:
         """Every lot named in any table, process lots first, in file order."""
@@ -145,7 +149,9 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
             other[SPEC_FILE] = {"file": spec_path.name, "sha256": _sha256(spec_path), "rows": None}
         except InputError as exc:
             problems += exc.problems
-    ingest = Ingest(tables, sources, spec, warnings, folder, other, unusual_records if accept_unusual else [])
+    ingest = Ingest(tables, sources, spec, warnings, folder, other, unusual_records if accept_unusual else [],
+                    {sources[t]["file"]: list(df.attrs["extra_columns"]) for t, df in tables.items()
+                     if df.attrs.get("extra_columns")})
     if "process" not in failed or "process" in lots_read:
         # across files on what was read, so that a refused cell of one file does not hide another file's
         # unknown lot until the next run: a refused file contributes the lots of its rows read

@@ -102,7 +102,11 @@ def _build(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap]) -> pd.DataFrame:
     for col in tdef.columns:
         if col.name in check.values:
             check.bounds_and_presence(col)
-    return check.frame()
+    df = check.frame()
+    extras = extra_columns(tdef, check.targets)
+    if extras:
+        df.attrs["extra_columns"] = extras
+    return df
 
 
 def _match_header(raw: _Raw, tdef: Table, cmaps: dict[str, ColumnMap],
@@ -242,6 +246,25 @@ def _near_template_names(label: str, tdef: Table, targets: list[Target], unit_he
                                            f"column as the template does, or to keep it as an extra column map "
                                            f"it in {MAPPING_FILE} (\"{shown}\" = {{ extra = true }})",
                                     row=1, column=shown))
+
+
+def extra_columns(tdef: Table, targets: list[Target]) -> list[dict]:
+    """The extra columns a file keeps (not in the template), in file order: ``{"column", "near", "declared"}``.
+
+    ``column`` is the name kept (the header, or its mapping's target); ``declared`` whether ``columns.toml``
+    maps it (``{ extra = true }``: kept on purpose); ``near`` the template column the file *also has* of which
+    the header would be taken for a misspelling (the rule that refuses a misspelling of a column the file lacks,
+    ``_misspelling_of``), or None: a second copy typed by mistake, or a column half renamed. A declared column is
+    never given a ``near`` (it was named on purpose)."""
+    present = [t for _, t, _, _ in targets if t in tdef.names]
+    out = []
+    for _, target, shown, cmap in targets:
+        if target in tdef.names:
+            continue
+        twins = [] if cmap is not None else [n for n in present if _misspelling_of(shown, n)]
+        near = max(twins, key=lambda n: difflib.SequenceMatcher(None, shown.lower(), n).ratio()) if twins else None
+        out.append({"column": target, "near": near, "declared": cmap is not None})
+    return out
 
 
 @dataclass
