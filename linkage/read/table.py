@@ -210,7 +210,11 @@ def _misspelling_of(header: str, template: str) -> bool:
     - are the template name with its underscores moved or dropped ('friabilitypct').
     """
     h, t = header.lower(), template.lower()
-    if difflib.SequenceMatcher(None, h, t).ratio() < MISSPELLING_CUTOFF:
+    close = difflib.SequenceMatcher(None, h, t)
+    # real_quick_ratio and quick_ratio are upper bounds of ratio (as difflib.get_close_matches uses them): the
+    # same answer, without the full comparison for the many headers that are far from every template name
+    if (close.real_quick_ratio() < MISSPELLING_CUTOFF or close.quick_ratio() < MISSPELLING_CUTOFF
+            or close.ratio() < MISSPELLING_CUTOFF):
         return False
     hw, tw = _words(h), _words(t)
     if "".join(hw) == "".join(tw):
