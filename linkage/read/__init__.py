@@ -37,7 +37,11 @@ Text and cells
   file lacks (difflib ratio at least ``table.MISSPELLING_CUTOFF`` and a change
   inside its words, never a word added: ``table._misspelling_of``) is refused,
   "did you mean ...?"; map it in ``columns.toml`` with
-  ``extra = true`` to keep it as an extra column.
+  ``extra = true`` to keep it as an extra column. The extra columns each file
+  kept are listed (``table.extra_columns``, ``Ingest.extra_columns``; the
+  ingest says them), with the template column the file *has* that a header
+  would be taken for a misspelling of (the same rule): a near-twin, kept but
+  warned of. A column mapped in ``columns.toml`` is never warned of.
 - A cell that is empty or one of ``schema.MISSING_TOKENS`` (``NA``, ``n/a``,
   ``-`` ..., any case) is missing.
 - Dates are ISO 8601 (``2024-03-05`` or ``2024-03-05 14:30``), or date cells
