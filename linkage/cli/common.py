@@ -194,8 +194,11 @@ def handle_errors(f):
         except BrokenPipeError:
             _stop_quietly()
         except OSError as exc:
-            what = f" {exc.filename}" if exc.filename is not None else ""
             reason = exc.strerror or str(exc)
+            if exc.filename is None and _writing_stdout(exc):
+                tell_progress(stdout_failed(reason))
+                raise SystemExit(IO_EXIT_CODE) from None
+            what = f" {exc.filename}" if exc.filename is not None else ""
             tell_progress(f"Error: cannot read or write{what}: {reason}")
             raise SystemExit(IO_EXIT_CODE) from None
         finally:  # a linkage warning is one plain line on stderr, once; any other is shown as Python shows it
@@ -235,6 +238,34 @@ def with_store_upgraded(payload):
     return {**payload, "store_upgraded": {"from": found.version_from, "to": found.version_to}}
 
 
+def stdout_failed(reason: str) -> str:
+    """The error line when writing a command's output to standard output failed (``> /dev/full``: no space
+    left on device). Every command does its work (files written whole, records made) before it prints its
+    result (see :func:`_stop_quietly`), so by then the work is done: said, lest the user run it again and
+    record it twice."""
+    return (f"Error: cannot write the command's output to standard output: {reason}. The command's work was "
+            "done before its output: the files it wrote and the record it made (if any) are kept; do not run it "
+            "again to record it.")
+
+
+def _writing_stdout(exc: BaseException) -> bool:
+    """Whether ``exc`` was raised by ``click.echo`` writing to standard output (every command prints through
+    it, and it flushes each time), rather than by the work writing a file."""
+    tb = exc.__traceback__
+    while tb is not None:
+        frame = tb.tb_frame
+        if frame.f_code.co_name == "echo" and frame.f_globals.get("__name__") == "click.utils" \
+                and not frame.f_locals.get("err"):
+            stream = frame.f_locals.get("file")
+            try:
+                if stream is sys.stdout or stream.fileno() == sys.__stdout__.fileno():
+                    return True
+            except (AttributeError, OSError, ValueError):
+                return False
+        tb = tb.tb_next
+    return False
+
+
 def _stop_quietly() -> None:
     """The reader of stdout stopped reading (``linkage lots | head -2``): stop as common Unix tools do, with
     no message. Python's note on SIGPIPE (https://docs.python.org/3/library/signal.html#note-on-sigpipe):
@@ -250,10 +281,14 @@ def _stop_quietly() -> None:
 def check_output(path: Path, *, folder: bool = False) -> None:
     """Refuse, before any work, an output path that cannot be written: a
     component of it that is a file, an existing folder where a file is
-    wanted (or the reverse), or a nearest existing folder that is not
-    writable. Raises :class:`~linkage.exceptions.UsageError` (exit code 2)."""
+    wanted (or the reverse), a nearest existing folder that is not
+    writable, or ``-`` (read elsewhere as standard output, which an output
+    file or folder never is here). Raises :class:`~linkage.exceptions.UsageError` (exit code 2)."""
     path = Path(path)
     what = "output folder" if folder else "output file"
+    if str(path) == "-":  # not standard output: a command's output file is written whole, then named
+        raise UsageError(f"{what} '-': standard output is not taken here; give a {what.split()[1]} name (./- for "
+                         "one named '-'); nothing was written")
     if path.exists():
         if folder and not path.is_dir():
             raise UsageError(f"{what} {path} is a file, not a folder; nothing was written")

@@ -105,11 +105,25 @@ def leave(code=0) -> NoReturn:
     try:
         atexit._run_exitfuncs()  # what a normal exit runs (logging, multiprocessing, temporary folders)
     finally:
-        for stream in (sys.stdout, sys.stderr):
+        try:
+            sys.stdout.flush()
+        except BrokenPipeError:  # the reader stopped reading: as a normal exit would ignore
+            pass
+        except OSError as exc:  # output still buffered that cannot be written (disk full): never silent
+            from linkage.cli.common import stdout_failed
+            from linkage.exceptions import IO_EXIT_CODE
+
             try:
-                stream.flush()
-            except (OSError, ValueError):  # closed, or a pipe the reader closed: as a normal exit would ignore
+                print(stdout_failed(exc.strerror or str(exc)), file=sys.stderr)
+            except (OSError, ValueError):
                 pass
+            status = status or IO_EXIT_CODE
+        except ValueError:  # closed
+            pass
+        try:
+            sys.stderr.flush()
+        except (OSError, ValueError):
+            pass
         os._exit(status)
 
 
