@@ -89,6 +89,7 @@ import numpy as np
 from linkage import CAUTION
 from linkage.decide.defaults import PLAN_CRITERIA
 from linkage.exceptions import UsageError
+from linkage.nearest import did_you_mean
 
 POROSITY = "ribbon_porosity"
 FORCE = "roll_force_kn_per_cm"
@@ -133,7 +134,8 @@ def parse_ranges(texts) -> dict[str, tuple[float, float]]:
             problems.append(f"--range '{text}' is not NAME=LOW:HIGH (e.g. roll_force_kn_per_cm=3:14)")
             continue
         if name not in settings:
-            problems.append(f"--range {name}: not a setting of the template; settings: {', '.join(settings)}")
+            problems.append(f"--range {name}: not a setting of the template{did_you_mean(name, settings)}; settings: "
+                            f"{', '.join(settings)}")
             continue
         lo, hi = parse_plain_number(lo_text), parse_plain_number(hi_text)
         bad = [f"'{t.strip()}' is {v}" for t, v in ((lo_text, lo), (hi_text, hi)) if isinstance(v, str)]
@@ -217,7 +219,7 @@ class Plan:
         """Template tables of the plan (pandas DataFrames): ``process`` (every
         template column: planned lot ids, product, planned settings; blank
         where the plan says nothing, e.g. ``manufactured_at``), and
-        ``tablets`` when the plan sets the compression force (blank results)."""
+        ``tablets`` when the plan sets or holds the compression force (blank results)."""
         import pandas as pd
 
         from linkage.schema import TABLES
@@ -382,7 +384,8 @@ def _check_held(held: dict[str, float], ranges: dict) -> None:
     problems = []
     for name, value in held.items():
         if name not in settings:
-            problems.append(f"--set {name}: not a setting of the template; settings: {', '.join(settings)}")
+            problems.append(f"--set {name}: not a setting of the template{did_you_mean(name, settings)}; settings: "
+                            f"{', '.join(settings)}")
         elif name in ranges:
             problems.append(f"--set {name}: also given a --range; give one")
         else:
@@ -450,8 +453,8 @@ def start_design(ranges: dict[str, tuple[float, float]], n_lots: int, *, seed: i
 # written out
 # ---------------------------------------------------------------------------
 def write_plan(plan: Plan, folder) -> list[Path]:
-    """Write ``process.csv`` (and ``tablets.csv`` when the plan sets the
-    compression force) in the template's columns, formula-safe and atomic
+    """Write ``process.csv`` (and ``tablets.csv`` when the plan sets or holds
+    the compression force) in the template's columns, formula-safe and atomic
     (:mod:`linkage.export`), and ``plan.json``, into ``folder``."""
     from linkage.export import write_atomic, write_table_csv
 

@@ -64,6 +64,7 @@ import numpy as np
 from linkage import CAUTION
 from linkage.decide.defaults import MAP_GRID, MAP_X, MAP_Y
 from linkage.exceptions import UsageError
+from linkage.nearest import did_you_mean
 from linkage.numbers import percent_text
 
 FORCE = MAP_X  # the map's default axes (linkage.decide.defaults)
@@ -309,7 +310,8 @@ def design_space(chain, spec, *, x: str = FORCE, y: str = GAP, n_grid: int = MAP
         if k in (x, y):
             problems.append(f"{k} is mapped; do not also give it with --set")
         elif k not in roots:
-            problems.append(f"--set {k}: not a setting of this model's chain (the map holds settings only; "
+            problems.append(f"--set {k}: not a setting of this model's chain{did_you_mean(k, roots)} (the map holds "
+                            "settings only; "
                             f"settings: {', '.join(roots)})")
     if problems:
         raise UsageError("; ".join(problems))

@@ -168,11 +168,23 @@ class Transfer:
     #: the store's lots set aside (``linkage set-aside``) left out of the fit
     set_aside_lots: tuple = ()
 
+    @property
+    def edges_overlap(self) -> list[float] | None:
+        """For a window: where the two edges' one-lot intervals overlap (low, high kN/cm), or None (apart, or a
+        single target). Overlapping, one lot's roll force cannot tell the two edges apart at this uncertainty."""
+        if self.kind != "window" or len(self.targets) < 2:
+            return None
+        low_edge, high_edge = self.targets[0], self.targets[-1]  # low porosity: the higher force
+        start = low_edge["force_interval_kn_per_cm"][0]
+        end = high_edge["force_interval_kn_per_cm"][1]
+        return [float(start), float(end)] if start <= end else None
+
     def to_dict(self) -> dict:
         """What ``linkage transfer --json`` prints."""
         return {"rolls": {"roll_diameter_mm": self.roll_diameter_mm, "roll_width_mm": self.roll_width_mm,
                           "roll_gap_mm": self.roll_gap_mm},
                 "kind": self.kind, "level": self.level, "targets": self.targets,
+                "edges_overlap_kn_per_cm": self.edges_overlap,
                 "model": self.physics.to_dict(), "leaves_out": LEAVES_OUT,
                 "set_aside_lots": list(self.set_aside_lots), "caution": CAUTION}
 
@@ -214,6 +226,18 @@ class Transfer:
                          + ("" if t["inside_lots_pressure_range"] else
                             f"; OUTSIDE the peak pressures the lots reached ({p.peak_pressure_range_mpa[0]:.0f}-"
                             f"{p.peak_pressure_range_mpa[1]:.0f} MPa): extrapolated"))
+            beyond = t.get("interval_ends_outside_lots_pressure_range") or []
+            if beyond:
+                ends = " and ".join(f"{'lower' if e == 'low' else 'upper'} end {t['force_interval_kn_per_cm'][0 if e == 'low' else 1]:.2f} kN/cm"
+                                    for e in beyond)
+                lines.append(f"    the interval's {ends}: OUTSIDE the peak pressures the lots reached "
+                             f"({p.peak_pressure_range_mpa[0]:.0f}-{p.peak_pressure_range_mpa[1]:.0f} MPa): "
+                             "extrapolated")
+        overlap = self.edges_overlap
+        if overlap is not None:
+            lines.append(f"  Note: the two edges' {pct} intervals for one lot overlap ({overlap[0]:.2f}-"
+                         f"{overlap[1]:.2f} kN/cm): at this uncertainty the window's roll force range cannot be told "
+                         "apart on one lot; a force in the overlap may give a ribbon at either edge or beyond it")
         lines += ["", "Leaves out: " + LEAVES_OUT, CAUTION]
         return "\n".join(lines)
 
@@ -329,5 +353,10 @@ def transfer(physics: RibbonPhysics, *, roll_diameter_mm: float, roll_width_mm: 
                                                <= rolling.peak_pressure_for_solid_fraction_mpa(1 - eps, k, c)
                                                <= physics.peak_pressure_range_mpa[1]),
         })
+        # an end of the one-lot interval is a peak pressure too (force / force per MPa on these rolls, fitted K):
+        # outside the lots' peak pressures it is extrapolated, as the force itself would be
+        rows[-1]["interval_ends_outside_lots_pressure_range"] = [
+            name for name, f in zip(("low", "high"), rows[-1]["force_interval_kn_per_cm"])
+            if not physics.peak_pressure_range_mpa[0] <= f / per_mpa <= physics.peak_pressure_range_mpa[1]]
     return Transfer(physics, float(roll_diameter_mm), float(roll_width_mm), float(roll_gap_mm), float(level), rows,
                     kind)

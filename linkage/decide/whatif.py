@@ -105,9 +105,12 @@ def check_values(chain, values: dict[str, float], *, row: int | None = None, mor
     with the problems in ``more`` (found before the model was at hand), all at once."""
     where = "" if row is None else f"row {row}: "
     unknown, bad = value_problems(chain, values)
-    problems = [*more, *(f"{where}unknown name '{n}'" for n in unknown)]
+    from linkage.nearest import did_you_mean
+
+    valid = valid_names(chain)
+    problems = [*more, *(f"{where}unknown name '{n}'{did_you_mean(n, valid)}" for n in unknown)]
     if unknown:
-        problems.append(f"valid names are: {', '.join(valid_names(chain))}")
+        problems.append(f"valid names are: {', '.join(valid)}")
     problems += [f"{where}{name} = {value} {rule}" for name, value, rule in bad]
     if problems:
         raise UsageError("; ".join(problems))
