@@ -1229,7 +1229,7 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
             window: tuple[float, float] | None = None, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR,
             model="latest", adjust: str = "roll_force_kn_per_cm", baseline: int = 5,
             confirm_shift_sd: float = 1.0, alpha: float = 0.05, power: float = 0.9, seed: int = 0,
-            assurance: float = 0.9):
+            assurance: float = 0.9, record: bool | None = None):
     """Guidance for a lot in progress (``linkage running``): its at-line
     samples (``samples``, a CSV or XLSX of the ribbon table) against the
     porosity window (``window`` as (low, high), or found under ``spec``) and
@@ -1240,7 +1240,8 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
     ``settings`` (which win); the ribbon stage's other inputs are held as
     every command holds them (:func:`linkage.decide.propagate.fill_settings`:
     their conditional mean given the others, the training mean when none is
-    given). Logged as ``running`` with the advice."""
+    given). Logged as ``running`` with the advice; ``record=False`` (``--no-record``) writes nothing in the
+    store, which is still read (the training lots' within-lot SD), so it must exist either way."""
     from linkage.decide import running as guide
     from linkage.decide.whatif import check_values
     from linkage.exceptions import InputError, UsageError
@@ -1257,7 +1258,11 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
         raise UsageError(f"--adjust must be one of {', '.join(guide.ADJUSTABLE)}; got {adjust!r}")
     if baseline < 2:
         raise UsageError(f"--baseline must be at least 2 samples; got {baseline}")
-    refuse_unanchored(store)  # recorded at the end: a store that refuses the record is refused before the work
+    # recorded at the end: a store that would refuse the record is refused before the work (a store that does not
+    # exist is refused where it is read, after the input problems: it is needed for the within-lot SD)
+    will_record = record is not False
+    if will_record:
+        refuse_unanchored(store)
     spec = _spec(spec)
     df, lot, problems = guide.read_samples(samples)
     if lot is not None and not problems:
@@ -1310,13 +1315,12 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
     import hashlib
 
     digest = hashlib.sha256(Path(samples).read_bytes()).hexdigest()
-    result.recorded = record(store, "running", model_id=lean.model_id, lot=lot,
-                             inputs={"samples_file": Path(samples).name, "samples_sha256": digest,
-                                     "settings": values, "held": held, "window": list(window),
-                                     "window_source": source, "adjust": adjust, "baseline": baseline,
-                                     "confirm_shift_sd": confirm_shift_sd, "alpha": alpha, "power": power,
-                                     "spec_sha256": None if spec is None else spec.sha256},
-                             outputs=result.to_dict())
+    inputs = {"samples_file": Path(samples).name, "samples_sha256": digest, "settings": values, "held": held,
+              "window": list(window), "window_source": source, "adjust": adjust, "baseline": baseline,
+              "confirm_shift_sd": confirm_shift_sd, "alpha": alpha, "power": power,
+              "spec_sha256": None if spec is None else spec.sha256}
+    result.recorded = will_record and record_entry(store, "running", model_id=lean.model_id, lot=lot, inputs=inputs,
+                                                   outputs=result.to_dict())
     return result
 
 

@@ -8,8 +8,8 @@ from pathlib import Path
 import click
 
 from linkage.cli.common import (PROBABILITY, FiniteFloat, check_output, handle_errors, json_option,
-                                models_dir_option, store_option, with_store_upgraded)
-from linkage.cli.decide_cmds import _model_option
+                                models_dir_option, no_record_option, record_wanted, store_option, with_store_upgraded)
+from linkage.cli.decide_cmds import _model_option, _note_unrecorded
 from linkage.jsonable import jsonable
 
 
@@ -57,16 +57,24 @@ def _window(ctx, param, value):
               help="Seed of the random draws (the same seed, the same answer).")
 @models_dir_option
 @store_option
+@no_record_option
 @json_option
 @handle_errors
 def running(samples, assignments, process_path, spec_path, window, adjust, baseline, confirm_shift_sd, alpha, power,
-            chart_path, out_path, model_id, seed, models_dir, store, as_json):
+            chart_path, out_path, model_id, seed, models_dir, store, no_record, as_json):
     """Guidance for a lot in progress: each at-line ribbon sample and the
     running mean against the porosity window and the within-lot limits of the
     training lots, whether the run is drifting (which rule fired at which
     sample), and the roll force (or gap) that brings the expected porosity
     back to the window's centre, with its uncertainty and the number of
-    further samples to confirm it. Recorded in the store's audit trail.
+    further samples to confirm it. Recorded in the store's audit trail;
+    --no-record runs without recording (a trial run adds no audit entry).
+
+    Settings outside the ribbon stage's applicability domain, or a level
+    outside the model's prediction interval at these settings, are said
+    first; the correction is then not supported (kept in --json with
+    correction.supported false). A change within its uncertainty of zero is
+    said to be no change needed now.
 
     Lots set aside ('linkage set-aside') are left out, and named.
 
@@ -88,7 +96,8 @@ def running(samples, assignments, process_path, spec_path, window, adjust, basel
     settings = parse_assignments(list(assignments), keep_text=True)  # reported with the model's checks
     result = advise(samples, settings=settings, process=process_path, spec=spec_path, window=window, store=store,
                     models_dir=models_dir, model=model_id, adjust=adjust, baseline=baseline,
-                    confirm_shift_sd=confirm_shift_sd, alpha=alpha, power=power, seed=seed)
+                    confirm_shift_sd=confirm_shift_sd, alpha=alpha, power=power, seed=seed,
+                    record=record_wanted(no_record))
     payload = json.dumps(jsonable(result.to_dict()), indent=2, allow_nan=False)
     if chart_path is not None:
         from linkage.decide.running import draw_chart
@@ -102,6 +111,8 @@ def running(samples, assignments, process_path, spec_path, window, adjust, basel
         write_atomic(out_path, payload.encode("utf-8"))
     click.echo(json.dumps(with_store_upgraded(jsonable(result.to_dict())), indent=2, allow_nan=False) if as_json
                else result.text())
+    if no_record:
+        _note_unrecorded(result, "running", no_record)
     for path, what in ((chart_path, "Chart"), (out_path, "JSON")):
         if path is not None:
             click.echo(f"{what} written to {path}", err=True)

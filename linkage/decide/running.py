@@ -69,6 +69,8 @@ POROSITY = "ribbon_porosity"
 ADJUSTABLE = ("roll_force_kn_per_cm", "roll_gap_mm")
 #: finite-difference half step as a share of the setting's training range
 STEP_SHARE = 0.05
+#: the two-sided 95 % normal quantile
+Z95 = 1.959963984540054
 
 METHOD = {
     "limits": "centre = mean of the lot's first baseline samples; σ = pooled within-lot SD of the training lots' "
@@ -364,6 +366,12 @@ class RunningResult:
     recorded: bool = False
     #: the store's lots set aside (``linkage set-aside``), left out of the training lots' within-lot spread
     set_aside_lots: list[str] = field(default_factory=list)
+    #: the ribbon stage's applicability-domain verdict at the lot's settings (None: no domain saved)
+    domain: dict | None = None
+    #: the level now against the model's prediction interval at these settings
+    model_fit: dict | None = None
+    #: what the text says first (settings outside the domain; a lot the model does not describe)
+    warnings: list[str] = field(default_factory=list)
 
     @property
     def limits(self) -> tuple[float, float]:
@@ -390,6 +398,7 @@ class RunningResult:
             "notes": self.notes,
             "recorded": self.recorded,
             "set_aside_lots": list(self.set_aside_lots),
+            "domain": self.domain, "model_fit": self.model_fit, "warnings": list(self.warnings),
             "caution": CAUTION,
         }
 
@@ -399,7 +408,9 @@ class RunningResult:
         lines = [f"Running lot {self.lot} (model {self.model_id}), {len(self.samples)} samples",
                  f"Window {w['low']:.3f}–{w['high']:.3f} (centre {w['centre']:.3f}; {w['source']}); within-lot SD "
                  f"{s['value']:.4f} from {s['lots']} training lots; limits {lo:.3f}–{hi:.3f} around the first "
-                 f"{self.baseline} samples' mean {self.centre:.3f}", "",
+                 f"{self.baseline} samples' mean {self.centre:.3f}"]
+        lines += [f"WARNING: {w}." for w in self.warnings]
+        lines += ["",
                  f"{'sample':<10} {'sampled_at':<20} {'porosity':>8} {'run.mean':>8}  signals"]
         for r in self.samples:
             marks = "; ".join(r["signals"] + r["flags"])
@@ -421,7 +432,13 @@ class RunningResult:
         c = self.correction
         if c is None:
             lines.append("No correction: " + "; ".join(self.notes))
+        elif not c.get("supported", True):
+            lines.append(f"No supported correction of {self.adjust} (see the warnings above). The computed one ({c['suggested']:.3g} {unit}, change {c['change']:+.3g}) rests on "
+                         "the model where it does not hold; it is kept in --json (correction.supported = false), "
+                         "not to be acted on")
         else:
+            if c.get("no_change_needed"):
+                lines.append("No change needed now (the suggested change is within its uncertainty of zero).")
             lines.append(f"Suggested {self.adjust}: {c['suggested']:.3g} {unit} (now {c['current']:.3g}; change "
                          f"{c['change']:+.3g} ± {c['se']:.2g}, 95 % {c['interval_95'][0]:.3g} to "
                          f"{c['interval_95'][1]:.3g}); the running level moved by the model's predicted change: "
@@ -429,6 +446,17 @@ class RunningResult:
                          + ("" if c.get("model_porosity") is None else
                             f"; the model alone predicts {c['model_porosity']:.4f} at the suggested "
                             "setting"))
+        exit_ = self.level.get("window_exit")
+        if exit_ is not None:
+            rate = self.level["rate_per_hour"]
+            trend = f"at the fitted trend ({rate:+.4g} ± {self.level['rate_per_hour_se']:.2g} per hour)"
+            if exit_["already_outside"]:
+                lines.append(f"The level is already outside the window ({trend}).")
+            else:
+                lines.append(f"{trend[0].upper()}{trend[1:]} the level would reach the window's {exit_['side']} edge "
+                             f"{exit_['edge']:.3f} about {exit_['hours_after_last_sample']:.2g} h after the last "
+                             "sample" + ("" if exit_["rate_told_from_zero"] else
+                                         " (the trend is within its uncertainty of zero: it may not leave)") + ".")
         cf = self.confirm
         lines.append(f"Confirm with {cf['samples']} further samples (detects an offset of {cf['shift_sd']:g} within-lot "
                      f"SD from the centre, two-sided α = {cf['alpha']:g}, power {cf['power']:g})")
@@ -504,6 +532,8 @@ def advise(lean, samples, settings: dict[str, float], window: tuple[float, float
     level = level_now(watched.eps, watched.hours, sigma, watched.drifting)
     values = {k: float(settings[k]) for k in target.inputs}
     expected = float(target.predict({k: np.array([v]) for k, v in values.items()})[0])
+    domain = _domain_verdict(stage, dict(settings, **values))
+    fit = _model_fit(target, values, watched.centre, watched.baseline, level, expected, sigma)
     lo_x, hi_x = stage.domain.ranges[adjust] if stage.domain is not None else (values[adjust], values[adjust])
     step = STEP_SHARE * (hi_x - lo_x) if hi_x > lo_x else STEP_SHARE * abs(values[adjust]) or 1e-3
     slope = float(sensitivity(lambda c: target.predict(c, raw=True), values, adjust, step))
@@ -519,6 +549,20 @@ def advise(lean, samples, settings: dict[str, float], window: tuple[float, float
     else:
         corr = _suggested_correction(lean, target, values, adjust, step, sens, reps, level, expected, centre_w,
                                      (lo_x, hi_x), notes)
+    warnings = _warnings(domain, fit, level, expected, corr)
+    if fit["describes_lot"] and not fit["inside_interval"]:
+        notes.append(fit["reason"] + ": the correction assumes the model's slope holds at this lot's offset")
+    if corr is not None:
+        outside = domain is not None and not domain["in_domain"]
+        unsupported = [f"the current settings are outside the ribbon stage's applicability domain: {r}"
+                       for r in (domain["reasons"] if outside else [])]
+        if not fit["describes_lot"]:
+            unsupported.append(fit["reason"])
+        corr["supported"] = not unsupported
+        corr["unsupported_reasons"] = unsupported
+        # the 95 % interval of the change includes 0: no change is needed now
+        corr["no_change_needed"] = bool(abs(corr["change"]) <= Z95 * corr["se"])
+    level = dict(level, window_exit=_window_exit(level, low, high))
     confirm = {"samples": samples_to_confirm(confirm_shift_sd, alpha, power), "shift_sd": float(confirm_shift_sd),
                "shift": float(confirm_shift_sd * sigma), "alpha": float(alpha), "power": float(power)}
     drift = {"drifting": watched.drifting, "direction": watched.direction,
@@ -531,7 +575,96 @@ def advise(lean, samples, settings: dict[str, float], window: tuple[float, float
         window={"low": low, "high": high, "centre": centre_w, "source": window_source},
         sigma={"value": float(sigma), "lots": int(sigma_lots), "dof": int(sigma_dof)},
         centre=watched.centre, baseline=watched.baseline, samples=rows, drift=drift, level=level,
-        expected_porosity=expected, sensitivity=sens, correction=corr, confirm=confirm, notes=notes)
+        expected_porosity=expected, sensitivity=sens, correction=corr, confirm=confirm, notes=notes,
+        domain=domain, model_fit=fit, warnings=warnings)
+
+
+def _num(v) -> float | None:
+    """A finite float, or None (JSON has no NaN)."""
+    return None if v is None or not np.isfinite(float(v)) else float(v)
+
+
+def _domain_verdict(stage, settings: dict[str, float]) -> dict | None:
+    """The ribbon stage's applicability-domain verdict at the lot's settings: the check the what-if makes
+    (:meth:`linkage.models.lean.Domain.check`: training ranges, Hotelling T² and Q) where every input of the stage
+    is known, else :func:`linkage.models.lean.given_inputs_verdict` (the training ranges of those known). None
+    for a stage saved without a domain."""
+    from linkage.models.lean import given_inputs_verdict
+
+    d = stage.domain
+    if d is None:
+        return None
+    known = {c: np.array([float(settings[c])]) for c in d.inputs if c in settings}
+    if len(known) == len(d.inputs):
+        verdict, checked = d.check(known)[0], "training ranges, T² and Q at the lot's settings (as the what-if)"
+    else:
+        verdict, checked = given_inputs_verdict(d, known), "training ranges of the settings known"
+    return {"in_domain": bool(verdict["in_domain"]), "reasons": list(verdict["reasons"]),
+            "t2": _num(verdict["t2"]), "t2_limit": _num(verdict["t2_limit"]), "q": _num(verdict["q"]),
+            "q_limit": _num(verdict["q_limit"]), "checked": checked}
+
+
+def _model_fit(target, values: dict[str, float], start: float, baseline: int, level: dict, expected: float,
+               sigma: float) -> dict:
+    """Whether the model describes this lot: the lot's level when the run began (``start``, the mean of its first
+    ``baseline`` samples, the centre of its limits) against the ribbon stage's prediction interval for a lot at
+    these settings (the model's conformal interval at its nominal coverage, as `linkage predict` gives it). The
+    start is judged, not the level now: a drift since is what the command corrects, not a fault of the model.
+    A start just outside the interval is one lot in 1/(1 − coverage) of those the model describes (10 % at 0.9):
+    said in a note, the correction kept. The model is taken not to describe the lot where the start lies beyond
+    twice the interval's half-width on its side from the expectation: with normal errors that is about 3.3
+    prediction SD at coverage 0.9 (2 × 1.645), where a lot the model describes lands about once in a thousand
+    (common practice, no source: a rule of thumb). There the correction rests on the model's slope at a level
+    the model does not reach, so it is not supported."""
+    cover = float(target.nominal_coverage)
+    lo, hi = target.interval({k: np.array([v]) for k, v in values.items()}, cover)
+    lo, hi = float(lo[0]), float(hi[0])
+    far_lo, far_hi = expected - 2 * (expected - lo), expected + 2 * (hi - expected)
+    inside = bool(lo <= start <= hi)
+    describes = bool(far_lo <= start <= far_hi)
+    gap_sd = (start - expected) / sigma
+    said = (f"the lot's level when the run began, {start:.4f} (mean of its first {baseline} samples), is outside "
+            f"the model's {cover:.0%} prediction interval {lo:.4f}–{hi:.4f} for a lot at these settings (expected "
+            f"{expected:.4f}; {gap_sd:+.1f} within-lot SD)")
+    return {"interval_level": cover, "low": lo, "high": hi, "far_low": float(far_lo), "far_high": float(far_hi),
+            "judged": "baseline centre", "start": float(start), "expected": float(expected),
+            "gap": float(start - expected), "gap_sd": float(gap_sd),
+            "level_now_gap_sd": float((level["value"] - expected) / sigma),
+            "inside_interval": inside, "describes_lot": describes,
+            "rule": "the model describes the lot while its level when the run began lies within twice the "
+                    "half-width of the model's prediction interval (nominal coverage) from its expectation at "
+                    "these settings",
+            "reason": None if inside else said + ("" if describes else ", beyond twice its half-width: the model "
+                                                                         "does not describe this lot")}
+
+
+def _warnings(domain: dict | None, fit: dict, level: dict, expected: float, corr: dict | None) -> list[str]:
+    """What the text says first: settings outside the domain, a lot the model does not describe."""
+    out = []
+    if domain is not None and not domain["in_domain"]:
+        out.append(f"the current settings are outside the ribbon stage's applicability domain "
+                   f"({'; '.join(domain['reasons'])}): the model's expectation {expected:.4f} and any suggestion "
+                   "are extrapolations, not supported")
+    if not fit["describes_lot"]:
+        out.append(fit["reason"] + ("; no correction is suggested from it (the computed one is kept in --json, "
+                                    "correction.supported = false)" if corr is not None else ""))
+    return out
+
+
+def _window_exit(level: dict, low: float, high: float) -> dict | None:
+    """At the fitted trend (only where :func:`level_now` estimated one), when the level would leave the
+    window: hours after the last sample to the edge it moves toward (0 when already outside), and whether the
+    trend is told from zero (|rate| > 1.96·SE). None without a trend."""
+    rate, rate_se = level.get("rate_per_hour"), level.get("rate_per_hour_se")
+    if rate is None or rate == 0:
+        return None
+    value = float(level["value"])
+    side = "upper" if rate > 0 else "lower"
+    edge = high if rate > 0 else low
+    hours = max(0.0, (edge - value) / rate)
+    return {"edge": float(edge), "side": side, "hours_after_last_sample": float(hours),
+            "already_outside": bool(not low <= value <= high),
+            "rate_told_from_zero": bool(rate_se is not None and abs(rate) > Z95 * rate_se)}
 
 
 def _within_lot_sd(lean, training_ribbon, training_lots, lot) -> tuple[float, int, int, set[str]]:
@@ -634,7 +767,7 @@ def _suggested_correction(lean, target, values, adjust, step, sens, reps, level,
     _, u = correction(centre_w, level["value"], level["se"], secant, secant_se, level_slope=slope_new)
     model_new = float(target.predict(at(new))[0])
     corr = {"input": adjust, "current": x0, "suggested": float(new), "change": float(dx), "se": float(u),
-            "interval_95": [float(new - 1.959963984540054 * u), float(new + 1.959963984540054 * u)],
+            "interval_95": [float(new - Z95 * u), float(new + Z95 * u)],
             # the running level moved by the change the model predicts (not what the model alone predicts there)
             "expected_porosity": float(level["value"] + model_new - expected),
             # what the model alone predicts at the suggested setting (the other settings as the lot's)
