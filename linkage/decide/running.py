@@ -42,6 +42,13 @@ What it answers, from the samples taken so far (``sampled_at`` order):
    Engineers, 6th ed., §9.2.2, eq. 9-22; the term of the far tail is left out,
    as there).
 
+6. **Where the model does not hold**: the ribbon stage's applicability-domain
+   verdict at the lot's settings (the what-if's check), and the lot's starting
+   level against the model's prediction interval; outside the domain, or
+   beyond twice the interval's half-width, the correction is flagged
+   unsupported (``correction.supported``) and the text says so first. A
+   change whose 95 % interval holds 0 is no change needed now.
+
 The guidance answers "where is this run going and what would bring it back";
 it is decision support, not release testing.
 """
@@ -83,6 +90,10 @@ METHOD = {
                    "(Efron & Tibshirani 1993 §6.2)",
     "correction": "Δx = (centre − level)/s; u(Δx)² = (u(level)/s)² + (Δx·u(s)/s)², first-order law of "
                   "propagation of uncertainty (JCGM 100:2008 eq. 10); 95 % interval ± 1.96·u(Δx)",
+    "model_fit": "the lot's starting level (baseline centre) against the model's conformal prediction interval at "
+                 "its nominal coverage at these settings; beyond twice its half-width from the expectation (about "
+                 "3.3 prediction SD with normal errors; a rule of thumb, no source) the model is taken not to "
+                 "describe the lot and the correction is not supported",
     "confirm": "n = ⌈((z_{1−α/2} + z_{1−β})·σ/δ)²⌉, two-sided z-test on the mean of the next n samples "
                "(Montgomery & Runger 2014 §9.2.2, eq. 9-22)",
 }
