@@ -70,9 +70,10 @@ def running(samples, assignments, process_path, spec_path, window, adjust, basel
     further samples to confirm it. Recorded in the store's audit trail;
     --no-record runs without recording (a trial run adds no audit entry).
 
-    Settings outside the ribbon stage's applicability domain, or a level
-    outside the model's prediction interval at these settings, are said
-    first; the correction is then not supported (kept in --json with
+    Settings outside the ribbon stage's applicability domain, or a lot
+    whose starting level lies beyond twice the half-width of the model's
+    prediction interval from its expectation, are said first; the
+    correction is then not supported (kept in --json with
     correction.supported false). A change within its uncertainty of zero is
     said to be no change needed now.
 

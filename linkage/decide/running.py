@@ -444,7 +444,8 @@ class RunningResult:
         if c is None:
             lines.append("No correction: " + "; ".join(self.notes))
         elif not c.get("supported", True):
-            lines.append(f"No supported correction of {self.adjust} (see the warnings above). The computed one ({c['suggested']:.3g} {unit}, change {c['change']:+.3g}) rests on "
+            lines.append(f"No supported correction of {self.adjust} (see the warnings above). The computed one "
+                         f"({c['suggested']:.3g} {unit}, change {c['change']:+.3g}) rests on "
                          "the model where it does not hold; it is kept in --json (correction.supported = false), "
                          "not to be acted on")
         else:
