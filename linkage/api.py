@@ -1198,7 +1198,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     restored = restored_since_training(chain, result.new_lots, notes)
     with LotStore(store, create=False, for_writing=True) as s:
         s.log("watch", model_id=chain.model_id, inputs={"window": found, "product": product},
-              outputs={"alarms": result.alarms, "new_lots": result.new_lots, "restored_since_training": restored,
+              outputs={"alarms": result.alarms, "alarmed_lots": result.alarmed_lots, "new_lots": result.new_lots, "restored_since_training": restored,
                        "revised_since_training": [r["lot"] for r in revised], "set_aside_lots": aside})
     return Watched(result=result, n_lots=len(table), window=found, store=Path(store),
                    time_point=time_point_text(chain) if "dissolution_pct" in chain.targets else None, revised=revised,

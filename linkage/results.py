@@ -758,6 +758,12 @@ class WhatIfResult(_Result):
 
 # --------------------------------------------------------------------------- watch
 
+#: what ``linkage watch`` says to do when it alarms (README's order of use says the same): a model retrained on
+#: the alarmed lots takes their shift as normal, so the cause is looked for first
+ALARM_NEXT_STEP = ("Next: look for an assignable cause in these lots (raw material, equipment, method) before "
+                   "retraining: a model retrained on them takes the shift as normal. Set a lot aside ('linkage "
+                   "set-aside') if it should not count; retrain when the change is understood and intended.")
+
 
 @dataclass(repr=False)
 class Watched(_Result):
@@ -816,12 +822,13 @@ class Watched(_Result):
             lines.append("No alarm on the lots since training.")
         else:
             lines.append(f"{len(alarms)} alarm(s) on lots since training:")
-            lines += [f"  ! {a}" for a in alarms]
+            lines += [f"  ! {units_shown(a)}" for a in alarms]
+            lines.append(ALARM_NEXT_STEP)
         others = r.other_signals
         if others:
             lines.append(f"Other looks ({len(others)} signal(s); for diagnosis, not designed to a false-alarm rate):")
-            lines += [f"  - {a}" for a in others[:40]] + ([f"  ... and {len(others) - 40} more"] if len(others) > 40
-                                                          else [])
+            lines += [f"  - {units_shown(a)}" for a in others[:40]] + (
+                [f"  ... and {len(others) - 40} more"] if len(others) > 40 else [])
         for p in r.predictions:
             mark = "inside" if p["inside_interval"] else "OUTSIDE"
             lines.append(f"  what-if for {p['lot']}: {p['attribute']} predicted {p['predicted']:.4g} "
@@ -1011,7 +1018,10 @@ def _audit_outcome(entry: dict) -> tuple[str, str | None]:
         alarms, new = _lots_count(o.get("alarms")), _lots_count(o.get("new_lots"))
         if not new:
             return "no lots since training", model
-        return (f"{alarms} alarm(s)" if alarms else "no alarm") + f" on {new} lot(s) since training", model
+        named = o.get("alarmed_lots") if isinstance(o.get("alarmed_lots"), list) else []
+        lots = (f": lot(s) {', '.join(map(str, named[:5]))}" + (f" and {len(named) - 5} more" if len(named) > 5 else "")
+                if named else "")
+        return (f"{alarms} alarm(s)" if alarms else "no alarm") + f" on {new} lot(s) since training{lots}", model
     if action == "window":
         por = o.get("ribbon_porosity") or {}
         if o.get("found") and isinstance(por, dict) and por.get("low") is not None and por.get("high") is not None:

@@ -1586,7 +1586,13 @@ class LotStore:
         revs = self._read("SELECT r.id, r.revision, r.ingest_id, i.at, i.user, r.product, i.reason FROM revisions r "
                           "JOIN ingests i ON i.id = r.ingest_id WHERE r.lot = ? ORDER BY r.revision", (lot,))
         if not revs:
-            raise self._not_stored(lot)
+            refusal = self._not_stored(lot)
+            if self.audit(lot):  # entries name it (a running lot, a what-if for it, a lot the watch flagged)
+                import shlex
+
+                refusal = UsageError(f"{refusal}; the audit trail has entries naming it: linkage audit --lot "
+                                     f"{shlex.quote(lot)}")
+            raise refusal
         out = []
         previous: dict[str, tuple[int, list[dict]]] = {}
         for rid, number, ingest_id, at, user, product, reason in revs:
@@ -1775,6 +1781,11 @@ class LotStore:
             lot = reader_spelling(lot) or lot  # spaces as the reader reads them, as predict --lot takes them
         where, params = self._lot_clause(lot)
         rows = self._read(sql + where, params)
+        if lot is not None:
+            named = self._alarm_entries(sql, lot)
+            if named:
+                seen = {r[0] for r in rows}
+                rows = sorted(list(rows) + [r for r in named if r[0] not in seen], key=lambda r: r[0])
         if lot is not None and with_ingests:
             ingests = self._read(sql + " WHERE action = 'ingest' AND lot IS NULL ORDER BY id", ())
             rows = sorted(list(rows) + [r for r in ingests if _ingest_touches(r[7], lot)], key=lambda r: r[0])
@@ -1783,6 +1794,24 @@ class LotStore:
         return [{"id": i, "at": at, "user": u, "action": a, "lot": lt, "model_id": m,
                  "inputs": None if ij is None else json.loads(ij), "outputs": None if oj is None else json.loads(oj)}
                 for i, at, u, a, lt, m, ij, oj in rows]
+
+    def _alarm_entries(self, sql: str, lot: str) -> list[tuple]:
+        """The entries (rows of ``sql``) that name ``lot`` as flagged by the watch's alarm though the entry is of
+        no single lot: a ``watch`` whose ``outputs.alarmed_lots`` lists it, a ``retrain`` or ``promote`` whose
+        ``inputs.alarmed_lots`` holds it (``{"lot", "signal"}`` items). Found in SQL (SQLite's ``json_each``) among
+        those three actions only, so a long trail is not parsed in Python; the lot under the reader's lot identity,
+        or its exact spelling where the store holds two lots of one identity (as :meth:`_lot_clause`)."""
+        key = lot_key(lot)
+        same = self._read("SELECT COUNT(*) FROM lots WHERE lot_key(lot) = ?", (key,))[0][0]
+        test, wanted = ("{} = ?", lot) if same > 1 else ("lot_key({}) = ?", key)
+        watch = test.format("j.value")
+        decision = test.format("json_extract(j.value, '$.lot')")
+        where = (" WHERE (action = 'watch' AND json_valid(outputs_json) AND EXISTS (SELECT 1 FROM "
+                 "json_each(outputs_json, '$.alarmed_lots') AS j WHERE j.type = 'text' AND " + watch + ")) "
+                 "OR (action IN ('retrain', 'promote') AND json_valid(inputs_json) AND EXISTS (SELECT 1 FROM "
+                 "json_each(inputs_json, '$.alarmed_lots') AS j WHERE j.type = 'object' AND " + decision + ")) "
+                 "ORDER BY id")
+        return self._read(sql + where, (wanted, wanted))
 
     def _lot_clause(self, lot: str | None) -> tuple[str, tuple]:
         """The WHERE clause (and its parameters) of the entries of ``lot``: under the reader's lot identity,

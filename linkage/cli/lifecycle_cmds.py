@@ -44,8 +44,10 @@ def retrain(store, models_dir, spec_path, product, tolerance, force, reason, as_
 
     Order of use: ingest the new lots, run 'linkage watch' first (it says
     whether the process has moved away from the champion), then 'linkage
-    retrain' once the watch alarms or at least 5 new lots per attribute have
-    arrived (fewer cannot pass the test).
+    retrain' once at least 5 new lots per attribute have arrived (fewer
+    cannot pass the test), or once the cause of a watch alarm is understood
+    and the change intended (a challenger trained on lots of an unexplained
+    shift takes the shift as normal; set such a lot aside instead).
 
     \b
     Example:
@@ -92,7 +94,13 @@ def watch(store, models_dir, model_id, spec_path, product, as_json):
     Lots set aside ('linkage set-aside') are left out, and named.
 
     Order of use: after each ingest of new lots, before 'linkage retrain'.
-    An alarm says the process moved away from the model; then retrain.
+    An alarm says the process moved away from the model: look for an
+    assignable cause in the alarmed lots (raw material, equipment, method)
+    before retraining, since a model retrained on them takes the shift as
+    normal; set a lot aside if it should not count; retrain when the change
+    is understood and intended. The exit code is 0 with or without an alarm:
+    a scheduled job reads --json, whose 'alarms' (and 'alarmed_lots') is an
+    empty list when there is no alarm.
     A model trained on several products is said to be mixed (--json:
     trained_products, mixed_products).
 
@@ -126,6 +134,8 @@ def audit(store, lot, as_json):
     prediction, with who, when, inputs, model id and outputs. Entries are
     append-only. The text is a table: each entry's outcome and the reason
     given, where there is one; --json gives every input and output.
+    With --lot, also the watch, retrain and promote entries that name the
+    lot as flagged by the watch's alarm.
 
     \b
     Example:

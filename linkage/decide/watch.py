@@ -98,6 +98,12 @@ class WatchResult:
                 for lot, text in self.mewma["signals"].items()]
 
     @property
+    def alarmed_lots(self) -> list[str]:
+        """The lots since training on which the designed scheme signals (the lots :attr:`alarms` names), in the
+        scheme's order; empty when there is no alarm."""
+        return [] if self.mewma is None else [str(lot) for lot in self.mewma["signals"]]
+
+    @property
     def other_signals(self) -> list[str]:
         """Flags of the per-attribute charts, the porosity looks and the
         domain on the lots since training: for diagnosis, not designed to a
@@ -123,6 +129,7 @@ class WatchResult:
             "model_id": self.model_id,
             "new_lots": self.new_lots,
             "alarms": self.alarms,
+            "alarmed_lots": self.alarmed_lots,
             "design": None if self.mewma is None else self.mewma["design"],
             "mewma": None if self.mewma is None else {k: v for k, v in self.mewma.items() if k != "design"},
             "other_signals": self.other_signals,

@@ -171,3 +171,32 @@ def test_new_lots_out_of_domain_are_named(drift):
     verdicts = [d for d in result.domain if d["lot"] == "ODD-1" and d["stage"] == "ribbon"]
     assert verdicts and not verdicts[0]["in_domain"]
     assert any("roll_force_kn_per_cm" in r for r in verdicts[0]["reasons"])
+
+
+def test_an_alarm_says_what_to_do_next_and_the_text_writes_micrometres(drift):
+    """A user test: the watch named the drifting lots but gave no next step, while README said to retrain (which
+    takes a raw-material shift into the model as normal); and its text wrote "590.6 um" where the other texts
+    write µm. The alarmed lots are a key of ``--json`` and of the audit entry. Regression of the wording: no
+    outside source needed."""
+    from dataclasses import replace
+
+    from linkage.results import ALARM_NEXT_STEP, Watched
+
+    lots, table, chain, order = drift
+    result = watch(chain, table, ribbon=lots.tables["ribbon"])
+    assert result.alarms and result.alarmed_lots == list(result.mewma["signals"])
+    assert result.to_dict()["alarmed_lots"] == result.alarmed_lots
+    away = {"lot": order[-1], "stage": "tablets", "in_domain": False,
+            "reasons": ["granule_d50_um = 590.6 um is above the training range 143.3–500 um"]}
+    shown = replace(result, domain=[*result.domain, away])
+    text = Watched(result=shown, n_lots=len(table)).text()
+    lines = text.splitlines()
+    last_alarm = max(i for i, line in enumerate(lines) if line.startswith("  ! "))
+    assert lines[last_alarm + 1] == ALARM_NEXT_STEP
+    assert "assignable cause" in ALARM_NEXT_STEP and "before retraining" in ALARM_NEXT_STEP
+    assert "granule_d50_um = 590.6 µm is above the training range 143.3–500 µm" in text and " um" not in text
+    # --json keeps the text as recorded
+    assert any("590.6 um" in r for d in shown.to_dict()["domain"] for r in d["reasons"])
+    # no alarm, no next step
+    quiet = replace(result, mewma={**result.mewma, "signals": {}})
+    assert quiet.alarmed_lots == [] and ALARM_NEXT_STEP not in Watched(result=quiet, n_lots=len(table)).text()

@@ -65,6 +65,8 @@ def test_watch_names_a_training_lot_revised_after_training(tmp_path):
     assert f"!! 1 lot(s) model {after.result.model_id} was trained on were revised" in after.text()
     logged = lab.audit()
     assert list(logged.loc[logged["action"] == "watch"].iloc[-1]["outputs"]["revised_since_training"]) == [lot]
+    # the entry records the lots the alarm names (an added key; the watch's audit line names them)
+    assert logged.loc[logged["action"] == "watch"].iloc[-1]["outputs"]["alarmed_lots"] == after.result.alarmed_lots
     # retrain says it too: the champion was fitted on the lot's earlier values
     notes = lab.retrain(force=True, reason="test").to_dict()["notes"]
     assert any(n.startswith(f"1 of the champion's training lots were revised after it was trained ({lot} revision 2)")
