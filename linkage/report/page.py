@@ -202,6 +202,11 @@ def page_payload(lean, spec=None, *, seed: int = 0, n_draws: int = 4000, level: 
     names = [s["name"] for s in settings] + list(lean.medians) + list(lean.targets)
     payload["shown_units"] = {name: shown_unit(name) for name in dict.fromkeys(names)}
     payload["trained_on"] = trained_on_line(lean)
+    from linkage.report.sheet import NO_PROMISE
+
+    # the headline of a what-if outside the applicability domain, as the sheet and predict's text write it (its first
+    # sentence: the page lists the reasons under "Applicability domain", not after it)
+    payload["no_promise"] = NO_PROMISE.split(". ")[0] + "."
     for key in ("settings_names", "settings_mean", "settings_cov", "settings_low", "settings_high",
                 "settings_levels"):
         if key in lean.spec:  # the conditional-mean rule of fill_settings, when the model carries it

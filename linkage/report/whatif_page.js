@@ -352,6 +352,11 @@
   };
   // a spec's limits as the predictions table writes them: "≥ 80", not the spec file's ">= 80"
   const limitsText = (t) => String(t).replace(">=", "≥").replace("<=", "≤");
+  // a sentence with its units as a reader sees them (figures.shown_units_text): "590.6 um" -> "590.6 µm"; only a
+  // unit right after a number (a column name such as granule_d50_um stays). The what-if's own texts keep "um"
+  // (they mirror Python's); this is for showing them.
+  const shownUnitsText = (text) => Object.entries(PRETTY_UNITS).reduce((t, [raw, pretty]) =>
+    t.replace(new RegExp("(\\d) " + raw.replace(/[.*+?^${}()|[\]\\/]/g, "\\$&") + "(?![\\w/])", "g"), "$1 " + pretty), String(text));
   function fmt(v, digits = 4) { // Python's format(v, ".4g"), or another number of digits
     if (!Number.isFinite(v)) return String(v);
     if (v === 0) return "0";
@@ -944,6 +949,23 @@
       " The window was found at the settings of that window run, not at the ones above." }));
   }
 
+  // The headline on passing every limit, as the sheet and predict's text put it (sheet.NO_PROMISE, the sheet's
+  // probability paragraph): outside the applicability domain, or without a lower bound, it says first that no
+  // probability is promised; the numbers follow, named for what they are. Inside, with a bound: the numbers.
+  function allText(r) {
+    const b = r.p_pass_all_bound;
+    if (r.p_pass_all === null) return el("p", { class: "all", id: "p-all", text: "No spec: no probability of passing." });
+    const numbers = `P(all pass) ${pct(r.p_pass_all)}; ${atLeast(b.low)} with assurance ${share(b.assurance)}`;
+    if (!r.in_domain)
+      return el("p", { class: "all out", id: "p-all" }, el("b", { text: M.no_promise }),
+        document.createTextNode(` The numbers are extrapolations of the models, shown for orientation only: ${numbers}` +
+          (b.reason ? ` (${b.reason})` : "") + ". The reasons are under Applicability domain below."));
+    if (b.low === null || b.low === undefined)
+      return el("p", { class: "all out", id: "p-all" }, el("b", { text: "No probability of passing every limit is promised here" }),
+        document.createTextNode(` (no lower bound${b.reason ? ": " + b.reason : ""}). The point estimate is P(all pass) ${pct(r.p_pass_all)}.`));
+    return el("p", { class: "all", id: "p-all", text: numbers });
+  }
+
   function render(r) {
     for (const s of M.settings) {
       const inp = r.inputs[s.name];
@@ -980,8 +1002,7 @@
     }
     sec.append(t);
     const b = r.p_pass_all_bound;
-    sec.append(el("p", { class: "all", id: "p-all", text: r.p_pass_all === null ? "No spec: no probability of passing." :
-      `P(all pass) ${pct(r.p_pass_all)}; ${atLeast(b.low)} with assurance ${share(b.assurance)}` + (b.reason ? ` (${b.reason})` : "") }));
+    sec.append(allText(r));
     renderWindow(r);
     const dsec = document.getElementById("domain");
     dsec.textContent = "";
@@ -991,7 +1012,7 @@
     for (const [name, d] of Object.entries(r.domain))
       dt.append(el("tr", { class: d.in_domain ? "good" : "bad" }, el("td", { text: name }), el("td", { class: "num", text: num(d.t2) }),
         el("td", { class: "num", text: num(d.t2_limit) }), el("td", { class: "num", text: num(d.q) }), el("td", { class: "num", text: num(d.q_limit) }),
-        el("td", { text: d.in_domain ? "inside" : d.reasons.join("; ") })));
+        el("td", { text: d.in_domain ? "inside" : d.reasons.map(shownUnitsText).join("; ") })));
     dsec.append(dt);
   }
 

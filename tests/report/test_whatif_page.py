@@ -579,3 +579,62 @@ def test_a_setting_run_at_few_levels_is_held_at_a_level_on_the_page_as_in_python
             assert shown["source"][n] == sources[n], (given_names, n)
             if levels[names.index(n)]:
                 assert shown["values"][n] in levels[names.index(n)]
+
+
+def _page_pct(v: float) -> str:
+    """The page's percent of a probability (whatif_page.js ``pct``), for finding its numbers in a text."""
+    return "> 99.9 %" if v > 0.999 else "< 0.1 %" if v < 0.001 else f"{100 * v:.1f} %"
+
+
+@pytest.mark.slow
+@pytest.mark.browser
+def test_out_of_the_domain_the_headline_says_first_that_no_probability_is_promised(opened, demo):
+    """User test: out of the applicability domain the page's bold headline was "P(all pass) < 0.1 %; under 0.1 %
+    at its lower bound with assurance 90 %", with "shown, not promised" only further down, where predict's text and
+    the --html sheet say up front that no probability is promised (sheet.NO_PROMISE). The headline now opens with
+    that sentence, in bold, and keeps the numbers after it, named as extrapolations; the numbers are predict
+    --json's. Regression test of a text: no outside source."""
+    from linkage.report.sheet import NO_PROMISE
+
+    values = {"roll_force_kn_per_cm": 20.0}  # above the demo's training range 4.09–13.99 kN/cm
+    shown = _set_controls(opened, values)["result"]
+    py = _predict_json(demo, values)
+    assert py["in_domain"] is False and shown["in_domain"] is False
+    assert abs(shown["p_pass_all"] - py["p_pass_all"]) <= TOL
+    head = opened.evaluate("document.getElementById('p-all').innerText")
+    bold = opened.evaluate("document.querySelector('#p-all b').innerText")
+    first = NO_PROMISE.split(". ")[0] + "."
+    assert bold == first and head.startswith(first), head
+    assert "extrapolation" in head
+    numbers = f"P(all pass) {_page_pct(py['p_pass_all'])}"
+    assert numbers in head and head.index(numbers) > len(first), head  # the numbers kept, after the headline
+    # inside the domain the headline is the numbers alone, as before
+    _set_controls(opened, {"roll_force_kn_per_cm": 9.3})
+    inside = opened.evaluate("document.getElementById('p-all').innerText")
+    assert inside.startswith("P(all pass) ") and "promised" not in inside, inside
+
+
+@pytest.mark.slow
+@pytest.mark.browser
+def test_the_domain_table_writes_um_as_the_micrometre_sign(opened, demo):
+    """User test: the page's domain table wrote "granule_d50_um = 590.6 um" where the --html sheet writes µm
+    (figures.shown_units_text). Each reason in the table is now predict --json's reason with its units as the
+    sheet shows them; the result object keeps predict's text (compared to 1e-9 elsewhere). Regression test of a
+    label: no outside source."""
+    import re
+
+    from linkage.report.figures import shown_units_text
+
+    values = {"roll_force_kn_per_cm": 20.0}  # the tablets stage sees granule_d50_um above its training range
+    shown = _set_controls(opened, values)["result"]
+    py = _predict_json(demo, values)
+    cells = opened.evaluate("Array.from(document.querySelectorAll('table.domain tr')).slice(1)"
+                            ".map((tr) => [tr.cells[0].innerText, tr.cells[5].innerText])")
+    assert any(re.search(r"\d um\b", r) for r in py["domain_reasons"])  # the case of the user test is here
+    assert shown["domain_reasons"] == py["domain_reasons"]  # the computed texts still mirror Python's
+    for stage, verdict in cells:
+        d = py["domain"][stage]
+        expected = "inside" if d["in_domain"] else "; ".join(shown_units_text(r) for r in d["reasons"])
+        assert verdict == expected, (stage, verdict)
+        assert not re.search(r"\d um\b", verdict), verdict
+    assert any("µm" in v for _, v in cells)
