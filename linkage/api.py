@@ -1004,7 +1004,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     chain = _fitted_to_report(models_dir, model, store)
     check_time_point(chain, spec, "report")
     product = chain.trained_product
-    tables, lots, others, store_cautions, aside_rows = _report_lots(store, product, chain)
+    tables, lots, others, store_cautions, aside_rows, origin = _report_lots(store, product, chain)
     if not tables:
         of = f" of product {product}" if product else ""
         raise InsufficientDataError(f"the store {store} holds no lots{of}; nothing to report on")
@@ -1047,7 +1047,8 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     rendered = render_report(chain, table, spec=spec, window=found, lots=lots, confidence=confidence, seed=seed,
                              curve_draws=REPORT_CURVE_DRAWS, assurance=assurance, plan=plan, space=space,
                              reused=reused, kept_figures=kept_figures, other_lots=others,
-                             store_cautions=store_cautions, set_aside=tables.set_aside, set_aside_rows=aside_rows)
+                             store_cautions=store_cautions, set_aside=tables.set_aside, set_aside_rows=aside_rows,
+                             origin=origin)
     if "mewma" in rendered.computed:
         _keep(models_dir, chain.model_id, "mewma", None,
               (designs.result if designs is not None else []) + rendered.computed["mewma"], "linkage report",
@@ -1110,8 +1111,10 @@ def _report_lots(store, product, chain):
     """What the report reads of the store: the current tables of the lots in use (:func:`current_tables_of`),
     their :meth:`~linkage.store.LotStore.lots` rows, the lots of other products and the store's cautions (said in
     the report), and the process rows of the lots set aside since ``chain`` was trained on them (drawn where the
-    model's cross-validation results hold them: :func:`linkage.report.html.set_aside_training_rows`)."""
-    from linkage.report.html import set_aside_training_rows
+    model's cross-validation results hold them: :func:`linkage.report.html.set_aside_training_rows`), and how
+    ``chain`` came to be by the audit trail's retrain entry of it (:func:`linkage.report.html.model_origin`; None
+    when none names it)."""
+    from linkage.report.html import model_origin, set_aside_training_rows
     from linkage.store import current_tables_of, reading
 
     with reading(store) as lot_store:  # the report records nothing in the store: an older one is not upgraded
@@ -1119,7 +1122,8 @@ def _report_lots(store, product, chain):
         lots = lot_store.lots(product=product, in_use=True)  # as the table: the lots in use
         others, store_cautions = lot_store.other_products(product), lot_store.cautions()  # said in the report
         aside_rows = set_aside_training_rows(lot_store, product, tables.set_aside, chain.training.get("lots"))
-    return tables, lots, others, store_cautions, aside_rows
+        origin = model_origin(lot_store.audit(), chain.model_id)  # a forced promotion is said (a user test)
+    return tables, lots, others, store_cautions, aside_rows, origin
 
 
 def _figures_key(models_dir, model_id, spec, table, lots, *, given_window: bool, window, window_args, space_args,

@@ -310,7 +310,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
                   assurance: float = 0.9, plan=None, space=None, reused: dict[str, str] | None = None,
                   parallel: bool = True, kept_figures=None, other_lots=None,
                   store_cautions: list[str] | None = None, set_aside: dict | None = None,
-                  set_aside_rows: pd.DataFrame | None = None) -> Report:
+                  set_aside_rows: pd.DataFrame | None = None, origin: dict | None = None) -> Report:
     """Build the report of a fitted chain.
 
     Parameters
@@ -346,6 +346,9 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     set_aside_rows : the process rows (lot, product, compactor, manufactured_at) of the lots of ``set_aside``
         the model was trained on (:func:`set_aside_training_rows`): its out-of-fold results hold them, so the
         per-attribute figures draw them at their own place in time with their own compactor, marked.
+    origin : how the model came to be, from the lot store's audit trail (:func:`model_origin`): promoted by
+        ``linkage retrain`` (by the rule, or by force with its reason and the lots the watch had flagged) or left
+        a challenger; "At a glance" and the model card say it. None (no such entry): nothing is said of it.
     kept_figures : the figures an earlier report drew with the same inputs
         (a :class:`linkage.models.reuse.Reused` of kind "figures",
         :mod:`linkage.report.kept`): a figure whose caption is the one kept
@@ -360,11 +363,11 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
 
     with frozen_heap():  # the chain, the tables and the modules are not walked by every collection (its docstring)
         return _render(chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
-                       reused, parallel, kept_figures, other_lots, store_cautions, set_aside, set_aside_rows)
+                       reused, parallel, kept_figures, other_lots, store_cautions, set_aside, set_aside_rows, origin)
 
 
 def _render(chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space, reused,
-            parallel, kept_figures, other_lots, store_cautions, set_aside, set_aside_rows) -> Report:
+            parallel, kept_figures, other_lots, store_cautions, set_aside, set_aside_rows, origin=None) -> Report:
     """:func:`render_report` (its arguments, in its order)."""
     from linkage.decide.watch import watch
     from linkage.report.background import Background
@@ -385,7 +388,7 @@ def _render(chain, table, spec, window, lots, confidence, seed, curve_draws, ass
     try:
         _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
                   pending, computed, other_lots=other_lots, store_cautions=store_cautions or [],
-                  set_aside=set_aside or {}, set_aside_rows=set_aside_rows)
+                  set_aside=set_aside or {}, set_aside_rows=set_aside_rows, origin=origin)
         b.draw_figures()
     finally:
         b.close()
@@ -402,7 +405,8 @@ def _render(chain, table, spec, window, lots, confidence, seed, curve_draws, ass
 
 
 def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
-              pending, computed, other_lots=None, store_cautions=(), set_aside=None, set_aside_rows=None) -> None:
+              pending, computed, other_lots=None, store_cautions=(), set_aside=None, set_aside_rows=None,
+              origin=None) -> None:
     """Every section in order into ``b``. ``pending``: the watch and (unless given) the map, being computed;
     ``computed`` gets the window and the map when they were computed here."""
     limits = dict(spec.limits) if spec is not None else {}
@@ -413,7 +417,7 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
             computed["window"] = window
 
     revised = revised_training_lots(chain, lots)
-    _glance(b, chain, table, spec, window, revised, store_cautions, set_aside or {})
+    _glance(b, chain, table, spec, window, revised, store_cautions, set_aside or {}, origin)
     _data_section(b, chain, table, lots, other_lots, revised)
     _set_aside_part(b, chain, set_aside or {})
     _ribbon_section(b, chain, table, limits)
@@ -451,7 +455,7 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
         computed["mewma"] = [design]
     _watch_section(b, chain, table, window, watched)
     _domain_section(b, chain, table, set_aside or {})
-    _model_card(b, chain, spec, window, revised)
+    _model_card(b, chain, spec, window, revised, origin)
     _cautions(b, chain, store_cautions)
 
 
@@ -526,7 +530,7 @@ def _stage_of(chain, name: str):
 
 # ----------------------------------------------------------------- 1. at a glance
 
-def _glance(b, chain, table, spec, window, revised=(), store_cautions=(), set_aside=None):
+def _glance(b, chain, table, spec, window, revised=(), store_cautions=(), set_aside=None, origin=None):
     b.section("glance", "At a glance")
     time_point = None
     if "dissolution_pct" in chain.targets:
@@ -557,7 +561,34 @@ def _glance(b, chain, table, spec, window, revised=(), store_cautions=(), set_as
                 high_edge=_edge_text(window.high.limited_by) if window is not None else None,
                 revised=len(revised), revised_text=revised_text(revised), store_cautions=list(store_cautions),
                 aside_text=". ".join(t for t in (_glance_aside(chain, set_aside or {}),
-                                                _glance_restored(chain, table["lot"])) if t)))
+                                                _glance_restored(chain, table["lot"])) if t),
+                origin=_part("card", "origin", o=origin) if origin else ""))
+
+
+def model_origin(audit: list[dict], model_id: str | None) -> dict | None:
+    """How the model ``model_id`` came to be, read from the lot store's audit trail (``audit``:
+    :meth:`linkage.store.LotStore.audit`): the last ``promote`` or ``retrain`` entry that ``linkage retrain``
+    recorded for it (:func:`linkage.decide.retrain.retrain` logs the challenger's id as the entry's model id).
+    Returns ``{"promoted", "forced", "at", "user", "champion", "reason", "alarmed", "not_met"}`` (``alarmed``:
+    the lots trained on that the watch's alarm flagged against the champion, each ``{"lot", "signal"}``;
+    ``not_met``: the attributes the promotion rule did not show, from the entry's reasons), or None when no entry
+    names it (a model of ``linkage train``, or a store that did not record the decision): then nothing is said."""
+    if not model_id:
+        return None
+    found = [a for a in audit if a.get("action") in ("promote", "retrain") and a.get("model_id") == model_id]
+    if not found:
+        return None
+    a = found[-1]
+    i = a.get("inputs") if isinstance(a.get("inputs"), dict) else {}
+    o = a.get("outputs") if isinstance(a.get("outputs"), dict) else {}
+    reasons = [str(r) for r in o.get("reasons") or [] if isinstance(r, str)]
+    alarmed = [x for x in i.get("alarmed_lots") or [] if isinstance(x, dict) and x.get("lot") is not None]
+    from linkage.exceptions import shown_time
+
+    return {"promoted": a["action"] == "promote", "forced": bool(i.get("force")), "at": shown_time(a.get("at")),
+            "user": a.get("user") or "", "champion": i.get("champion") or "", "reason": i.get("reason") or "",
+            "alarmed": [{"lot": str(x["lot"]), "signal": str(x.get("signal") or "")} for x in alarmed],
+            "not_met": [r.split(":")[0] for r in reasons if "NOT SHOWN" in r]}
 
 
 def _restored_lots(chain, lots) -> list[str]:
@@ -1408,7 +1439,7 @@ def _domain_section(b, chain, table, set_aside=None):
 
 # ----------------------------------------------------------------- 9. model card
 
-def _model_card(b, chain, spec, window, revised=()):
+def _model_card(b, chain, spec, window, revised=(), origin=None):
     from linkage.models.cv import SELECTION_RULE, SIMPLICITY_ORDER
 
     b.section("card", "Model card")
@@ -1418,6 +1449,8 @@ def _model_card(b, chain, spec, window, revised=()):
     rows = [
         ["model id", chain.model_id or "unsaved"],
         ["trained", trained_text(chain.created_at)],  # to the second, in UTC, as the report's heading
+        *([["how it came into service" if origin["promoted"] else "how it came", _part("card", "origin", o=origin)]]
+          if origin else []),  # the audit trail's retrain entry of this model (model_origin)
         ["chain", _part("card", "stages", stages=chain.stages)],
         ["training lots", _part("card", "training_lots", n=len(lots), lots=_lots_text(lots, limit=200))],
         *([["training lots revised since", _part("card", "revised", n=len(revised), lots=revised_text(revised))]]
