@@ -54,7 +54,11 @@ def fake_store(monkeypatch):
     seen = {}
 
     class FakeStore:
-        def __init__(self, path, create=True, for_writing=False):
+        #: a store of the current schema, anchored (what train's opening asks of a real one)
+        older_schema = unanchored = upgraded_from = None
+        from_copy = False
+
+        def __init__(self, path, create=True, for_writing=False, upgrade=True):
             seen["store"], seen["create"] = path, create
 
         def __enter__(self):
