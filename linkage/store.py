@@ -1811,7 +1811,14 @@ class LotStore:
                  "OR (action IN ('retrain', 'promote') AND json_valid(inputs_json) AND EXISTS (SELECT 1 FROM "
                  "json_each(inputs_json, '$.alarmed_lots') AS j WHERE j.type = 'object' AND " + decision + ")) "
                  "ORDER BY id")
-        return self._read(sql + where, (wanted, wanted))
+        try:
+            return self._conn.execute(sql + where, (wanted, wanted)).fetchall()
+        except sqlite3.OperationalError as exc:  # an SQLite built without its JSON functions (optional before 3.38)
+            if "no such function" not in str(exc):
+                return self._read(sql + where, (wanted, wanted))  # raised as _read raises it
+        named = (lambda x: x == lot) if same > 1 else (lambda x: lot_key(str(x)) == key)
+        return [r for r in self._read(sql + " WHERE action IN ('watch', 'retrain', 'promote') ORDER BY id")
+                if any(named(x) for x in _alarmed_in(r[3], r[6], r[7]))]
 
     def _lot_clause(self, lot: str | None) -> tuple[str, tuple]:
         """The WHERE clause (and its parameters) of the entries of ``lot``: under the reader's lot identity,
@@ -2143,6 +2150,22 @@ def open_to_record(stack: ExitStack, path) -> LotStore:
         if not can_write(path):
             raise  # the record could neither upgrade nor write it: refused now, as its opening for writing is
         return upgraded_copy(stack, Path(path), exc.version)
+
+
+def _alarmed_in(action: str, inputs_json: str | None, outputs_json: str | None) -> list:
+    """The lots an audit entry names as flagged by the watch's alarm, read in Python (where SQLite lacks its JSON
+    functions: :meth:`LotStore._alarm_entries`): a ``watch``'s ``outputs.alarmed_lots`` (texts), a ``retrain``'s
+    or ``promote``'s ``inputs.alarmed_lots`` (``{"lot", ...}`` objects); none for anything else or unreadable."""
+    try:
+        record = json.loads((outputs_json if action == "watch" else inputs_json) or "null")
+    except ValueError:
+        return []
+    items = record.get("alarmed_lots") if isinstance(record, dict) else None
+    if not isinstance(items, list):
+        return []
+    if action == "watch":
+        return [x for x in items if isinstance(x, str)]
+    return [x["lot"] for x in items if isinstance(x, dict) and x.get("lot") is not None]
 
 
 def change_text(ch: dict) -> str:

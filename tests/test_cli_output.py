@@ -45,7 +45,7 @@ def test_output_to_a_full_device_says_the_work_was_done(tmp_path):
     done = _linkage_to_full("ingest", tmp_path / "lab", "--store", tmp_path / "s.db", cwd=tmp_path)
     assert done.returncode == 5, done.stderr
     assert "cannot write the command's output to standard output: No space left on device" in done.stderr
-    assert "do not run it again to record it" in done.stderr
+    assert "is kept; see 'linkage audit' before running it again" in done.stderr
     assert "cannot read or write:" not in done.stderr
     listed = subprocess.run([sys.executable, "-m", "linkage", "lots", "--store", str(tmp_path / "s.db"), "--json"],
                             capture_output=True, text=True, env=_env(), timeout=300)

@@ -315,6 +315,36 @@ def test_audit_of_a_lot_lists_the_watch_retrain_and_promote_entries_that_flag_it
     assert set(entry) == {"id", "at", "user", "action", "lot", "model_id", "inputs", "outputs"}
 
 
+def test_audit_of_a_lot_without_sqlites_json_functions_lists_the_same_entries(alarm_store):
+    """Regression (a review: SQLite before 3.38 may be built without its JSON functions, and the query of the
+    entries that flag a lot would then fail as "no such function", exit 5, read as store damage); no outside
+    source needed: the reference is the same store read with the functions."""
+    import sqlite3
+
+    from linkage.store import LotStore
+
+    class WithoutJson:  # the store's connection as such a build answers: json_valid/json_each unknown
+        def __init__(self, conn):
+            self._conn = conn
+
+        def execute(self, sql, *args):
+            if "json_each" in sql:
+                raise sqlite3.OperationalError("no such function: json_valid")
+            return self._conn.execute(sql, *args)
+
+        def __getattr__(self, name):
+            return getattr(self._conn, name)
+
+    with LotStore(alarm_store, create=False) as s:
+        expected = {lot: [(e["action"], e["model_id"]) for e in s.audit(lot)] for lot in ("EX-002", "ex‐003")}
+        s._conn = WithoutJson(s._conn)
+        try:
+            found = {lot: [(e["action"], e["model_id"]) for e in s.audit(lot)] for lot in ("EX-002", "ex‐003")}
+        finally:
+            s._conn = s._conn._conn
+    assert found == expected and expected["EX-002"] == [("watch", "m-1"), ("promote", "m-2")]  # ingests: --lot's
+
+
 def test_the_watch_entry_names_its_alarmed_lots(alarm_store):
     from linkage.results import _audit_outcome
 

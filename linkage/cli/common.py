@@ -240,12 +240,13 @@ def with_store_upgraded(payload):
 
 def stdout_failed(reason: str) -> str:
     """The error line when writing a command's output to standard output failed (``> /dev/full``: no space
-    left on device). Every command does its work (files written whole, records made) before it prints its
-    result (see :func:`_stop_quietly`), so by then the work is done: said, lest the user run it again and
-    record it twice."""
-    return (f"Error: cannot write the command's output to standard output: {reason}. The command's work was "
-            "done before its output: the files it wrote and the record it made (if any) are kept; do not run it "
-            "again to record it.")
+    left on device). A command does its work (files written whole, records made) before it prints its result
+    (see :func:`_stop_quietly`), so what it did by then is kept: said, lest the user run it again and record it
+    twice. Not claimed done: a command that prints and then refuses (a preview that needs --reason, verify
+    finding a problem) is cut short by the failed print, its refusal unsaid."""
+    return (f"Error: cannot write the command's output to standard output: {reason}. What the command did before "
+            "it printed (files written, records made, if any) is kept; see 'linkage audit' before running it "
+            "again, lest it be recorded twice.")
 
 
 def _writing_stdout(exc: BaseException) -> bool:
@@ -287,8 +288,8 @@ def check_output(path: Path, *, folder: bool = False) -> None:
     path = Path(path)
     what = "output folder" if folder else "output file"
     if str(path) == "-":  # not standard output: a command's output file is written whole, then named
-        raise UsageError(f"{what} '-': standard output is not taken here; give a {what.split()[1]} name (./- for "
-                         "one named '-'); nothing was written")
+        raise UsageError(f"{what} '-': standard output is not taken here; give a {what.split()[1]} name (its full path "
+                         "for one named '-'); nothing was written")
     if path.exists():
         if folder and not path.is_dir():
             raise UsageError(f"{what} {path} is a file, not a folder; nothing was written")

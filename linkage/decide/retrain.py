@@ -417,7 +417,7 @@ def settle_pending(store_path, models_dir) -> list[tuple[str, str]]:
     if not pending:
         return []
     with reading(store_path) as store:  # settling writes the registry, not the store: an older one not upgraded
-        logged = {(a.get("inputs") or {}).get("decision_id") for a in store.audit()
-                  if a["action"] in ("promote", "retrain")}
+        logged = {a["inputs"].get("decision_id") for a in store.audit()
+                  if a["action"] in ("promote", "retrain") and isinstance(a.get("inputs"), dict)}
     return [(d["decision_id"], registry.settle_decision(models_dir, d["decision_id"],
                                                         recorded=d["decision_id"] in logged)) for d in pending]

@@ -420,7 +420,9 @@ class RunningResult:
                  f"Window {w['low']:.3f}–{w['high']:.3f} (centre {w['centre']:.3f}; {w['source']}); within-lot SD "
                  f"{s['value']:.4f} from {s['lots']} training lots; limits {lo:.3f}–{hi:.3f} around the first "
                  f"{self.baseline} samples' mean {self.centre:.3f}"]
-        lines += [f"WARNING: {w}." for w in self.warnings]
+        from linkage.results import units_shown
+
+        lines += [f"WARNING: {units_shown(warning)}." for warning in self.warnings]  # µm as every text writes it
         lines += ["",
                  f"{'sample':<10} {'sampled_at':<20} {'porosity':>8} {'run.mean':>8}  signals"]
         for r in self.samples:
@@ -631,7 +633,9 @@ def _model_fit(target, values: dict[str, float], start: float, baseline: int, le
     cover = float(target.nominal_coverage)
     lo, hi = target.interval({k: np.array([v]) for k, v in values.items()}, cover)
     lo, hi = float(lo[0]), float(hi[0])
-    far_lo, far_hi = expected - 2 * (expected - lo), expected + 2 * (hi - expected)
+    # each side's half-width from the expectation, never below zero (a conformal interval need not hold the
+    # point prediction; then that side is judged from the expectation itself)
+    far_lo, far_hi = expected - 2 * max(expected - lo, 0.0), expected + 2 * max(hi - expected, 0.0)
     inside = bool(lo <= start <= hi)
     describes = bool(far_lo <= start <= far_hi)
     gap_sd = (start - expected) / sigma

@@ -310,9 +310,9 @@ def design_space(chain, spec, *, x: str = FORCE, y: str = GAP, n_grid: int = MAP
         if k in (x, y):
             problems.append(f"{k} is mapped; do not also give it with --set")
         elif k not in roots:
-            problems.append(f"--set {k}: not a setting of this model's chain{did_you_mean(k, roots)} (the map holds "
-                            "settings only; "
-                            f"settings: {', '.join(roots)})")
+            near = did_you_mean(k, roots).strip().strip("()")  # 'did you mean ...?' in the same brackets
+            problems.append(f"--set {k}: not a setting of this model's chain (the map holds settings only; "
+                            f"settings: {', '.join(roots)}{'; ' + near if near else ''})")
     if problems:
         raise UsageError("; ".join(problems))
     attributes = [a for a in spec.limits if a in lean.targets]

@@ -588,7 +588,8 @@ def model_origin(audit: list[dict], model_id: str | None) -> dict | None:
     return {"promoted": a["action"] == "promote", "forced": bool(i.get("force")), "at": shown_time(a.get("at")),
             "user": a.get("user") or "", "champion": i.get("champion") or "", "reason": i.get("reason") or "",
             "alarmed": [{"lot": str(x["lot"]), "signal": str(x.get("signal") or "")} for x in alarmed],
-            "not_met": [r.split(":")[0] for r in reasons if "NOT SHOWN" in r]}
+            "not_met": [r.split(":")[0] for r in reasons if "NOT SHOWN" in r
+                        and not r.startswith("promotion forced")]}  # the forced entry's own reason quotes the user
 
 
 def _restored_lots(chain, lots) -> list[str]:
