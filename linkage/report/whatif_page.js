@@ -352,7 +352,7 @@
   };
   // a spec's limits as the predictions table writes them: "≥ 80", not the spec file's ">= 80"
   const limitsText = (t) => String(t).replace(">=", "≥").replace("<=", "≤");
-  // a sentence with its units as a reader sees them (figures.shown_units_text): "590.6 um" -> "590.6 µm"; only a
+  // a sentence with its units as a reader sees them (figures.shown_units_text): "590.6 um" gets PRETTY_UNITS.um; only a
   // unit right after a number (a column name such as granule_d50_um stays). The what-if's own texts keep "um"
   // (they mirror Python's); this is for showing them.
   const shownUnitsText = (text) => Object.entries(PRETTY_UNITS).reduce((t, [raw, pretty]) =>
