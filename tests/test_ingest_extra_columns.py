@@ -11,24 +11,15 @@ practice, no source), not a second one.
 from __future__ import annotations
 
 import json
-import shutil
 from pathlib import Path
 
 from linkage import api
 from linkage.read.table import _misspelling_of
 from tests.reliability.helpers import run_cli
+from tests.test_read_user_findings import _copy  # the template example's CSV files in a folder of their own
 
-TEMPLATE = Path(__file__).resolve().parent / "data" / "template-example"
 TWIN, MEANT = "envelope_densty_g_cm3", "envelope_density_g_cm3"  # a letter left out of a template name
 NOTE = "Note: ribbon.csv: kept as extra columns, not in the template: "
-
-
-def _copy(tmp_path: Path) -> Path:
-    folder = tmp_path / "lots"
-    folder.mkdir()
-    for f in TEMPLATE.glob("*.csv"):
-        shutil.copy(f, folder / f.name)
-    return folder
 
 
 def _user_test_ribbon(folder: Path) -> None:
