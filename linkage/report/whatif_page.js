@@ -1001,7 +1001,6 @@
             `P(pass) above is by ${p.pass_by})` })));
     }
     sec.append(t);
-    const b = r.p_pass_all_bound;
     sec.append(allText(r));
     renderWindow(r);
     const dsec = document.getElementById("domain");
