@@ -1776,7 +1776,7 @@ class LotStore:
         spelling) and that no entry names (a mistyped id) is refused with
         :class:`UsageError` instead of giving no entries; a lot only predicted
         for, never ingested, keeps its entries."""
-        sql = "SELECT id, at, user, action, lot, model_id, inputs_json, outputs_json FROM audit"
+        sql = f"SELECT {_AUDIT_COLUMNS} FROM audit"
         if lot is not None:
             lot = reader_spelling(lot) or lot  # spaces as the reader reads them, as predict --lot takes them
         where, params = self._lot_clause(lot)
@@ -1791,9 +1791,13 @@ class LotStore:
             rows = sorted(list(rows) + [r for r in ingests if _ingest_touches(r[7], lot)], key=lambda r: r[0])
         if lot is not None and require_lot and not rows and lot_key(lot) not in {lot_key(x) for x in self.lot_ids()}:
             raise self._not_stored(lot)
-        return [{"id": i, "at": at, "user": u, "action": a, "lot": lt, "model_id": m,
-                 "inputs": None if ij is None else json.loads(ij), "outputs": None if oj is None else json.loads(oj)}
-                for i, at, u, a, lt, m, ij, oj in rows]
+        return _audit_dicts(rows)
+
+    def decisions_of(self, model_id: str) -> list[dict]:
+        """The ``promote`` and ``retrain`` entries naming ``model_id`` as their model, oldest first, as
+        :meth:`audit` gives entries: how that model came into service (read in one query, not the whole trail)."""
+        return _audit_dicts(self._read(f"SELECT {_AUDIT_COLUMNS} FROM audit WHERE action IN ('promote', 'retrain') "
+                                       "AND model_id = ? ORDER BY id", (model_id,)))
 
     def _alarm_entries(self, sql: str, lot: str) -> list[tuple]:
         """The entries (rows of ``sql``) that name ``lot`` as flagged by the watch's alarm though the entry is of
@@ -1802,7 +1806,7 @@ class LotStore:
         those three actions only, so a long trail is not parsed in Python; the lot under the reader's lot identity,
         or its exact spelling where the store holds two lots of one identity (as :meth:`_lot_clause`)."""
         key = lot_key(lot)
-        same = self._read("SELECT COUNT(*) FROM lots WHERE lot_key(lot) = ?", (key,))[0][0]
+        same = self._spellings(key)
         test, wanted = ("{} = ?", lot) if same > 1 else ("lot_key({}) = ?", key)
         watch = test.format("j.value")
         decision = test.format("json_extract(j.value, '$.lot')")
@@ -1827,10 +1831,14 @@ class LotStore:
         if lot is None:
             return " ORDER BY id", ()
         key = lot_key(lot)
-        same = self._read("SELECT COUNT(*) FROM lots WHERE lot_key(lot) = ?", (key,))[0][0]
-        if same > 1:
+        if self._spellings(key) > 1:
             return " WHERE lot = ? ORDER BY id", (lot,)
         return " WHERE lot_key(lot) = ? ORDER BY id", (key,)
+
+    def _spellings(self, key: str) -> int:
+        """How many lots the store holds of the lot identity ``key`` (:func:`linkage.lotid.lot_key`): more than one
+        in a store written before the one-spelling rule ('A1' and 'a1'), where a lot's entries go by exact spelling."""
+        return self._read("SELECT COUNT(*) FROM lots WHERE lot_key(lot) = ?", (key,))[0][0]
 
     def record_prediction(self, model_id: str, inputs, outputs, *, lot: str | None = None,
                           user: str | None = None) -> int:
@@ -1894,6 +1902,17 @@ def _parse_rows(texts: dict) -> dict:
         start += len(rows)
     parsed = json.loads("[" + ",".join(joined) + "]")
     return {name: parsed[a:b] for name, (a, b) in spans.items()}
+
+
+#: the columns of an audit entry as :func:`_audit_dicts` reads them
+_AUDIT_COLUMNS = "id, at, user, action, lot, model_id, inputs_json, outputs_json"
+
+
+def _audit_dicts(rows) -> list[dict]:
+    """Audit rows (:data:`_AUDIT_COLUMNS`) as the entries :meth:`LotStore.audit` gives, their JSON parsed."""
+    return [{"id": i, "at": at, "user": u, "action": a, "lot": lt, "model_id": m,
+             "inputs": None if ij is None else json.loads(ij), "outputs": None if oj is None else json.loads(oj)}
+            for i, at, u, a, lt, m, ij, oj in rows]
 
 
 def _ingest_touches(outputs_json: str | None, lot: str) -> bool:

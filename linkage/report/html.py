@@ -566,9 +566,10 @@ def _glance(b, chain, table, spec, window, revised=(), store_cautions=(), set_as
 
 
 def model_origin(audit: list[dict], model_id: str | None) -> dict | None:
-    """How the model ``model_id`` came to be, read from the lot store's audit trail (``audit``:
-    :meth:`linkage.store.LotStore.audit`): the last ``promote`` or ``retrain`` entry that ``linkage retrain``
-    recorded for it (:func:`linkage.decide.retrain.retrain` logs the challenger's id as the entry's model id).
+    """How the model ``model_id`` came to be, read from the lot store's audit trail (``audit``: its entries of that
+    model, :meth:`linkage.store.LotStore.decisions_of`, or the whole trail, :meth:`~linkage.store.LotStore.audit`):
+    the last ``promote`` or ``retrain`` entry that ``linkage retrain`` recorded for it
+    (:func:`linkage.decide.retrain.retrain` logs the challenger's id as the entry's model id).
     Returns ``{"promoted", "forced", "at", "user", "champion", "reason", "alarmed", "not_met"}`` (``alarmed``:
     the lots trained on that the watch's alarm flagged against the champion, each ``{"lot", "signal"}``;
     ``not_met``: the attributes the promotion rule did not show, from the entry's reasons), or None when no entry

@@ -115,3 +115,21 @@ def test_a_challenger_left_out_of_service_says_so(forced):
     for text in (glance, card):
         assert "A challenger fitted by linkage retrain" in text and "not promoted" in text
         assert f"model {d['challenger_id']} stayed in service" in text and "Promoted" not in text
+
+
+def test_the_report_reads_only_the_entries_of_its_model_and_says_the_same_as_from_the_whole_trail(forced):
+    """The report asks the store for the ``promote``/``retrain`` entries of its model only
+    (:meth:`linkage.store.LotStore.decisions_of`, one query) instead of the whole trail parsed: the entries are
+    those of the whole trail (:meth:`~linkage.store.LotStore.audit`) of those actions naming that model, in order,
+    and the origin said from them is the one said from the whole trail. The reference is the store's own audit."""
+    store, models, champion, d = forced
+    from linkage.report.html import model_origin
+    from linkage.store import reading
+
+    with reading(store) as lot_store:
+        trail = lot_store.audit()
+        got = {model: lot_store.decisions_of(model) for model in (d["challenger_id"], champion, "no-such-model")}
+    assert [a["action"] for a in got[d["challenger_id"]]][:1] == ["promote"] and got["no-such-model"] == []
+    for model, entries in got.items():
+        assert entries == [a for a in trail if a["action"] in ("promote", "retrain") and a["model_id"] == model]
+        assert model_origin(entries, model) == model_origin(trail, model)
