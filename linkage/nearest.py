@@ -13,14 +13,14 @@ CUTOFF = 0.6
 PREFIX_CUTOFF = 0.8
 
 
-def nearest(name: str, choices: Iterable[str]) -> str | None:
-    """The choice nearest ``name`` (difflib's ratio over the whole name, else over the choice's beginning of
-    the same length), or None when none is near."""
+def nearest(name: str, choices: Iterable[str], *, by_beginning: bool = True) -> str | None:
+    """The choice nearest ``name`` (difflib's ratio over the whole name, else, with ``by_beginning``, over the
+    choice's beginning of the same length), or None when none is near."""
     choices = [str(c) for c in choices]
     name = str(name)
     near = difflib.get_close_matches(name, choices, n=1, cutoff=CUTOFF)
-    if near:
-        return near[0]
+    if near or not by_beginning:
+        return near[0] if near else None
     best, score = None, PREFIX_CUTOFF
     for choice in choices:
         ratio = difflib.SequenceMatcher(None, name, choice[:len(name)]).ratio()
@@ -29,7 +29,8 @@ def nearest(name: str, choices: Iterable[str]) -> str | None:
     return best
 
 
-def did_you_mean(name: str, choices: Iterable[str]) -> str:
-    """`` (did you mean 'x'?)`` with the choice :func:`nearest` ``name``, or ''."""
-    near = nearest(name, choices)
+def did_you_mean(name: str, choices: Iterable[str], *, by_beginning: bool = True) -> str:
+    """`` (did you mean 'x'?)`` with the choice :func:`nearest` ``name``, or ''. Without ``by_beginning`` only a
+    whole name near enough is suggested (the readers' and the spec's refusals, which never matched beginnings)."""
+    near = nearest(name, choices, by_beginning=by_beginning)
     return f" (did you mean '{near}'?)" if near else ""

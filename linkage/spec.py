@@ -50,6 +50,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from linkage.exceptions import Problem, SpecError, UsageError
+from linkage.nearest import did_you_mean
 from linkage.schema import (ASSEMBLED, DEFAULT_DISSOLUTION_TIME_MIN, QUALITY_ATTRIBUTES, TABLES)
 
 DISSOLUTION = "dissolution_pct"
@@ -369,7 +370,6 @@ def _line_of(text: str, attr: str, key: str | None = None) -> int | None:
 
 
 def _suggest(name: str, names=QUALITY_ATTRIBUTES) -> str:
-    import difflib
-
-    near = difflib.get_close_matches(str(name), sorted(names), n=1, cutoff=0.6)
-    return f" (did you mean '{near[0]}'?)" if near else ""
+    """`` (did you mean 'x'?)`` with the name of ``names`` nearest ``name`` as a whole, or ''
+    (:func:`linkage.nearest.did_you_mean`)."""
+    return did_you_mean(name, sorted(names), by_beginning=False)

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import difflib
 import hashlib
 import math
 import re
@@ -13,6 +12,7 @@ from typing import Iterable
 
 from linkage import read as package
 from linkage.exceptions import InputError, Problem
+from linkage.nearest import did_you_mean
 from linkage.read import MAPPING_FILE
 from linkage.read.raw import _norm_header
 from linkage.schema import NUMBER, TABLES, Column, Table
@@ -230,7 +230,7 @@ def _norm_unit(text: str) -> str:
     return "".join(s.split())
 
 
-def _suggest(name: str, choices: Iterable[str], cutoff: float = 0.6) -> str:
-    """`` (did you mean 'x'?)`` with the choice nearest ``name`` (difflib's ratio at least ``cutoff``), or ''."""
-    near = difflib.get_close_matches(str(name), list(choices), n=1, cutoff=cutoff)
-    return f" (did you mean '{near[0]}'?)" if near else ""
+def _suggest(name: str, choices: Iterable[str]) -> str:
+    """`` (did you mean 'x'?)`` with the choice nearest ``name`` as a whole, or ''
+    (:func:`linkage.nearest.did_you_mean`)."""
+    return did_you_mean(name, choices, by_beginning=False)
