@@ -47,7 +47,9 @@ What it answers, from the samples taken so far (``sampled_at`` order):
    level against the model's prediction interval; outside the domain, or
    beyond twice the interval's half-width, the correction is flagged
    unsupported (``correction.supported``) and the text says so first. A
-   change whose 95 % interval holds 0 is no change needed now.
+   change whose 95 % interval holds 0 is no change needed now. A stage saved
+   without a domain (a model of an older linkage) is said first too: nothing
+   is checked there (``domain`` null, a ``warnings`` item).
 
 The guidance answers "where is this run going and what would bring it back";
 it is decision support, not release testing.
@@ -564,6 +566,8 @@ def advise(lean, samples, settings: dict[str, float], window: tuple[float, float
         corr = _suggested_correction(lean, target, values, adjust, step, sens, reps, level, expected, centre_w,
                                      (lo_x, hi_x), notes)
     warnings = _warnings(domain, fit, level, expected, corr)
+    if domain is None:  # a stage saved without a domain (a model of an older linkage): said, not left silent
+        warnings.insert(0, _no_domain_warning(lean.model_id, adjust))
     if fit["describes_lot"] and not fit["inside_interval"]:
         notes.append(fit["reason"] + ": the correction assumes the model's slope holds at this lot's offset")
     if corr is not None:
@@ -665,6 +669,16 @@ def _warnings(domain: dict | None, fit: dict, level: dict, expected: float, corr
         out.append(fit["reason"] + ("; no correction is suggested from it (the computed one is kept in --json, "
                                     "correction.supported = false)" if corr is not None else ""))
     return out
+
+
+def _no_domain_warning(model_id: str, adjust: str) -> str:
+    """What the text says first when the ribbon stage was saved without an applicability domain (a model of an
+    older linkage): the settings are not checked against the training data, and the training range of ``adjust``,
+    which sets the sensitivity's step and judges the suggested setting, is not known."""
+    return (f"the ribbon stage of model {model_id} was saved without an applicability domain (a model of an older "
+            "linkage): whether the current settings lie inside the training data is not checked, and the training "
+            f"range of {adjust} is not known (the sensitivity's step is taken from the current setting; the "
+            "suggested setting is compared with the current one only)")
 
 
 def _window_exit(level: dict, low: float, high: float) -> dict | None:

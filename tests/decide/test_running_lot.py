@@ -425,3 +425,34 @@ def test_no_record_adds_no_audit_entry(lab, tmp_path):
     assert "--no-record" in r.stderr and entries() == before
     r = run(ws, atline, *sets, "--window", "0.25:0.35", "--json")
     assert json.loads(r.stdout)["recorded"] is True and entries() == before + 1
+
+
+def test_a_ribbon_stage_saved_without_a_domain_is_said_first_not_passed_over(lab, tmp_path, monkeypatch):
+    """A registry model of an older linkage may hold a ribbon stage saved without an applicability domain: running
+    then checked nothing and said nothing of it. The same run on the same model with the stage's domain removed now
+    says first that the domain is missing (text and --json ``warnings``) and gives ``domain`` null; with the domain
+    the warning is absent. A regression test of a text (no outside source)."""
+    folder, ws, truth = lab
+    import linkage.api as api
+
+    loaded = api._lean
+
+    def without_domain(*args, **kwargs):
+        lean = loaded(*args, **kwargs)
+        stage = next(st for st in lean.stages if "ribbon_porosity" in st.targets)
+        monkeypatch.setattr(stage, "domain", None)
+        return lean
+
+    atline = tmp_path / "atline_no_domain.csv"
+    limits_samples(truth, 8, 0.0, seed=3).to_csv(atline, index=False)
+    sets = [f"--set={k}={v}" for k, v in SETTINGS.items()]
+    said = "was saved without an applicability domain"
+    kept = json.loads(run(ws, atline, *sets, "--window", "0.25:0.35", "--json", "--no-record").stdout)
+    assert kept["domain"] is not None and not any(said in w for w in kept["warnings"])
+    monkeypatch.setattr(api, "_lean", without_domain)
+    d = json.loads(run(ws, atline, *sets, "--window", "0.25:0.35", "--json", "--no-record").stdout)
+    assert d["domain"] is None and said in d["warnings"][0] and d["model_id"] in d["warnings"][0]
+    lines = run(ws, atline, *sets, "--window", "0.25:0.35", "--no-record").stdout.splitlines()
+    table = next(i for i, line in enumerate(lines) if line.startswith("sample "))
+    warned = [i for i, line in enumerate(lines) if line.startswith("WARNING:") and said in line]
+    assert len(warned) == 1 and warned[0] < table
