@@ -1122,7 +1122,8 @@ def _report_lots(store, product, chain):
         lots = lot_store.lots(product=product, in_use=True)  # as the table: the lots in use
         others, store_cautions = lot_store.other_products(product), lot_store.cautions()  # said in the report
         aside_rows = set_aside_training_rows(lot_store, product, tables.set_aside, chain.training.get("lots"))
-        origin = model_origin(lot_store.decisions_of(chain.model_id), chain.model_id)  # a forced promotion is said (a user test)
+        # a forced promotion is said (a user test)
+        origin = model_origin(lot_store.decisions_of(chain.model_id), chain.model_id)
     return tables, lots, others, store_cautions, aside_rows, origin
 
 

@@ -180,8 +180,9 @@ def _unsealed_caution(store: Path, version: int, counts: dict) -> str:
     return (f"{store} was written by an earlier linkage (store schema {version}, before seals) and holds no seals "
             "and no anchor: its ingests, audit entries and recorded predictions could not be checked against "
             "seals, nor the removal or rewriting of records ruled out. Checked: SQLite's integrity_check of its "
-            f"pages (as SQLite's backup copied them), and each lot table's content hash, recorded at its ingest, against its raw rows "
-            f"({counted(counts.get('lot tables', 0), 'lot tables')}, {counted(counts.get('raw rows', 0), 'raw rows')}). Checked on an "
+            "pages (as SQLite's backup copied them), and each lot table's content hash, recorded at its ingest, "
+            f"against its raw rows ({counted(counts.get('lot tables', 0), 'lot tables')}, "
+            f"{counted(counts.get('raw rows', 0), 'raw rows')}). Checked on an "
             "upgraded temporary copy; the store itself was not upgraded nor changed (an earlier linkage still reads "
             f"it); {NEXT_RECORD_UPGRADES} and seals its records as they then stand")
 

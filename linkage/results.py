@@ -430,7 +430,8 @@ def _window_head_lines(d: dict, bound: dict, has_bound: bool) -> list[str]:
     what = (f"the chance that {every} passes together for a lot is at least {percent_text(d['confidence'])} with "
             f"{percent_text(d['assurance'])} assurance over the whole window at once (lower bound over "
             f"{bound.get('n_replicates')} lot-level bootstrap replicates of the chain)") if has_bound else \
-        f"the point estimate of the chance that {every} passes together for a lot reaches {percent_text(d['confidence'])}"
+        f"the point estimate of the chance that {every} passes together for a lot reaches " \
+        f"{percent_text(d['confidence'])}"
     lines = [f"Model {d['model_id']}; window where {what}"
              + (" (" + "; ".join(f"{a}: {why}, not judged" if "not judged" not in why else f"{a}: {why}"
                                  for a, why in _not_judged(d).items()) + ")" if d["not_modelled"] else "") + ".",
@@ -485,8 +486,8 @@ def _roll_force_lines(d: dict, has_bound: bool) -> list[str]:
     lines = []
     if rf.get("low") is not None:
         lines.append(f"Roll force (through the whole chain, ribbon scatter included; every specification at least "
-                     f"{percent_text(d['confidence'])}" + (f" with {percent_text(d['assurance'])} assurance" if has_bound else
-                                                 " by the point estimate") +
+                     f"{percent_text(d['confidence'])}"
+                     + (f" with {percent_text(d['assurance'])} assurance" if has_bound else " by the point estimate") +
                      f"): {rf['low']:.2f} – {rf['high']:.2f} kN/cm")
     elif rf.get("reason"):
         lines.append(f"Roll force: {rf['reason']}")
@@ -496,7 +497,8 @@ def _roll_force_lines(d: dict, has_bound: bool) -> list[str]:
     if has_bound and rf.get("point_low") is not None:
         beside.append(f"point estimate {rf['point_low']:.2f} – {rf['point_high']:.2f}")
     if rf.get("mean_response_low") is not None:
-        beside.append(f"chain of mean predictions passes {rf['mean_response_low']:.2f} – {rf['mean_response_high']:.2f}")
+        beside.append(f"chain of mean predictions passes {rf['mean_response_low']:.2f} – "
+                      f"{rf['mean_response_high']:.2f}")
     if rf.get("mean_low") is not None:
         beside.append(f"mean porosity in the window {rf['mean_low']:.2f} – {rf['mean_high']:.2f}")
     if beside:
@@ -520,7 +522,8 @@ def _window_settings_lines(d: dict) -> list[str]:
         lines.append(f"Held: {d['held_point']['rule']}.")
         lines.append(units_shown(held_text(d["held_point"], "held point of the window (at its middle porosity)")))
     if rf.get("held_point"):
-        lines.append(units_shown(held_text(rf["held_point"], "held point of the roll force range (at its middle force)")))
+        lines.append(units_shown(held_text(rf["held_point"],
+                                           "held point of the roll force range (at its middle force)")))
     return lines
 
 
@@ -595,8 +598,8 @@ class Window(_Result):
         if not r.found:
             what = f"no window at {percent_text(r.confidence)} confidence"
         else:
-            what = (f"ribbon porosity {r.low.value:.3f}–{r.high.value:.3f} at {percent_text(r.confidence)} confidence "
-                    f"(low edge: {r.low.limited_by}, high edge: {r.high.limited_by})")
+            what = (f"ribbon porosity {r.low.value:.3f}–{r.high.value:.3f} at {percent_text(r.confidence)} "
+                    f"confidence (low edge: {r.low.limited_by}, high edge: {r.high.limited_by})")
         return (f"<Window {what}; model {r.model_id}" + ("" if r.promise else "; not promised (outside the domain)")
                 + ">")
 
@@ -942,7 +945,8 @@ class SetAside(_Result):
         else:
             lines = [f"Restored {len(d)} lot(s) in {self.store}: {lots}; they are in use again."]
         lines.append(f"Recorded in the audit trail (entr{'y' if len(d) == 1 else 'ies'} "
-                     f"{id_runs([x['audit_id'] for x in d])}), {shown_time(first['at']) if d else ''}, by {first['user']}; "
+                     f"{id_runs([x['audit_id'] for x in d])}), {shown_time(first['at']) if d else ''}, "
+                     f"by {first['user']}; "
                      f"reason: {one_line(first['reason'])}")
         lines.append(f"Lots set aside now: {len(self.set_aside_now)}"
                      + (f" ({lots_named(self.set_aside_now)})" if self.set_aside_now else ""))

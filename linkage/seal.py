@@ -266,11 +266,11 @@ def advance_anchor(store_path: Path, c) -> bool:
     Without ``fcntl`` (Windows), or where the lock file cannot be opened (a folder this account cannot write:
     the anchor cannot be written either), where ``flock`` fails other than by waiting (``ENOLCK``: a network drive
     without locks; the commit is made, so the write must not fail for it) or the lock is not had within
-    :data:`ANCHOR_LOCK_TIMEOUT_S` (a holder stopped), the same is done without the lock (as before it existed): the anchor is read before it is
-    replaced, but two writers finishing together may leave it a seal behind (weaker evidence until the next
-    write; :func:`check` does not take it for a removal). Returns whether the anchor names the newest seal
-    read, its id and hash (False where it could not be written, or where it names that seal under another hash:
-    a mismatch, left as it is for :func:`check` to report)."""
+    :data:`ANCHOR_LOCK_TIMEOUT_S` (a holder stopped), the same is done without the lock (as before it existed):
+    the anchor is read before it is replaced, but two writers finishing together may leave it a seal behind
+    (weaker evidence until the next write; :func:`check` does not take it for a removal). Returns whether the
+    anchor names the newest seal read, its id and hash (False where it could not be written, or where it names
+    that seal under another hash: a mismatch, left as it is for :func:`check` to report)."""
     with _anchor_lock(store_path):
         seal_id, digest = head(c)
         anchor = read_anchor(store_path)

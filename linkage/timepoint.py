@@ -68,7 +68,8 @@ def check_time_point(chain, spec, command: str) -> None:
         return
     model_id = getattr(chain, "model_id", None) or "unsaved"
     how = "" if recorded else " (not recorded in the model, taken as the default)"
-    raise time_point_error(spec, f"{command}: the spec judges dissolution_pct at {wanted:g} min, but model {model_id} was trained on "
+    raise time_point_error(spec, f"{command}: the spec judges dissolution_pct at {wanted:g} min, but model "
+        f"{model_id} was trained on "
         f"dissolution at {have:g} min{how}; a model of one time point cannot judge a limit at another. "
         f"Train a model at {wanted:g} min ('linkage train --spec SPEC'), or use a spec at {have:g} min.")
 

@@ -126,7 +126,8 @@ def watch(store, models_dir, model_id, spec_path, product, as_json):
 @click.command()
 @store_option
 @click.option("--lot", default=None, help="Only entries about this lot (under a spelling that differs only in "
-              "letter case and dash characters (‐ – — and the like), or spaces around), with the ingests that created or revised it.")
+              "letter case and dash characters (‐ – — and the like), or spaces around), with the ingests that "
+              "created or revised it.")
 @json_option
 @handle_errors
 def audit(store, lot, as_json):

@@ -56,8 +56,8 @@ from linkage.jsonable import jsonable
               "plan starts from.")
 @click.option("--out", "out", type=click.Path(file_okay=False, path_type=Path),
               help="Folder to write process.csv (and tablets.csv when the plan sets or holds the compression "
-                   "force) in the template's columns, with blank results, and plan.json. Ingest them once the results are filled "
-                   "in: a row of blank results is stored as a record without results.")
+                   "force) in the template's columns, with blank results, and plan.json. Ingest them once the "
+                   "results are filled in: a row of blank results is stored as a record without results.")
 @click.option("--seed", default=0, show_default=True, type=int,
               help="Seed of the random draws (the same seed, the same answer).")
 @models_dir_option

@@ -34,8 +34,8 @@ from linkage.schema import DEFAULT_FINES_CUTOFF_UM, TABLES
                    "with --reason and --accept-unusual as given: 2 (bad input, --reason or --accept-unusual "
                    "needed), 5 (a store or folder this account cannot write), 6 (a store without its anchor "
                    "file). A store of schema 1 (written by an earlier linkage, before seals) is decided on an "
-                   "upgraded temporary copy; the ingest itself upgrades the store only to commit. Not foreseen: a store another process holds (exit code 3) or a disk that fills "
-                   "up during the ingest.")
+                   "upgraded temporary copy; the ingest itself upgrades the store only to commit. Not foreseen: a "
+                   "store another process holds (exit code 3) or a disk that fills up during the ingest.")
 @json_option
 @handle_errors
 def ingest(folder, store, reason, accept_unusual, preview, as_json):

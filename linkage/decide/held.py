@@ -23,7 +23,8 @@ setting is taken as discrete when the training lots show at most
 on average (common practice, no source). The settings still missing that are
 not discrete are then held at their conditional mean given the given
 settings and the discrete ones at their levels, so they follow the level
-actually held; with no setting given they stay at the training mean. The conditional mean is also the population form of the
+actually held; with no setting given they stay at the training mean. The
+conditional mean is also the population form of the
 least-squares regression of the missing settings on the given ones, so a
 screw speed that follows roll speed × gap in the lots follows it here too,
 where independent medians make a combination no lot ran.

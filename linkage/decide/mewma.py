@@ -202,7 +202,8 @@ def remember(designs) -> None:
 def parameters_text(n_ref: int | None) -> str:
     """How the residuals' mean, SD and correlation are taken, as the design's words say it (in brackets there:
     no brackets of its own)."""
-    return "known" if n_ref is None else f"estimated from {n_ref} training lots, with the ARL averaged over such estimates"
+    return ("known" if n_ref is None else
+            f"estimated from {n_ref} training lots, with the ARL averaged over such estimates")
 
 
 def simulated(d) -> bool:

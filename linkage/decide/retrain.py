@@ -269,8 +269,8 @@ def challenger_product(champion, product: str | None) -> str | None:
     without = (f"it retrains on the lots of {own!r}" if own is not None
                else "it retrains on every lot, as the champion was trained")
     raise UsageError(f"--product {product!r}: the champion {champion.model_id} was trained on {scope}; a challenger "
-                     f"of another scope is not comparable with it. Run 'linkage retrain' without --product ({without}), "
-                     f"or train a model of that product with: linkage train --product \"{product}\"")
+                     f"of another scope is not comparable with it. Run 'linkage retrain' without --product "
+                     f"({without}), or train a model of that product with: linkage train --product \"{product}\"")
 
 
 def _alarmed(champion, table: pd.DataFrame) -> list[dict]:

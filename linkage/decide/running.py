@@ -70,7 +70,8 @@ from linkage.decide.watch import EWMA_L, EWMA_LAMBDA
 
 __all__ = ["ADJUSTABLE", "STEP_SHARE", "sensitivity", "replicate_sensitivities", "replicate_secants",
            "solve_setting", "correction",
-           "sample_size", "samples_to_confirm", "shewhart_run_length", "level_now", "chart_signals", "advise", "RunningResult",
+           "sample_size", "samples_to_confirm", "shewhart_run_length", "level_now", "chart_signals", "advise",
+           "RunningResult",
            "METHOD", "read_samples", "process_settings", "draw_chart"]
 
 POROSITY = "ribbon_porosity"
@@ -474,8 +475,8 @@ class RunningResult:
                              "sample" + ("" if exit_["rate_told_from_zero"] else
                                          " (the trend is within its uncertainty of zero: it may not leave)") + ".")
         cf = self.confirm
-        lines.append(f"Confirm with {cf['samples']} further samples (detects an offset of {cf['shift_sd']:g} within-lot "
-                     f"SD from the centre, two-sided α = {cf['alpha']:g}, power {cf['power']:g})")
+        lines.append(f"Confirm with {cf['samples']} further samples (detects an offset of {cf['shift_sd']:g} "
+                     f"within-lot SD from the centre, two-sided α = {cf['alpha']:g}, power {cf['power']:g})")
         for note in self.notes if c is not None else []:
             lines.append(f"Note: {note}")
         if self.set_aside_lots:

@@ -437,7 +437,8 @@ def acceptable_ranges(result: SpaceResult) -> dict:
                   f"reach {percent_text(result.confidence)}")
         if simultaneous:
             reason = (f"no box of grid points inside the applicability domain keeps the band simultaneous over "
-                      f"it at {percent_text(result.confidence)} or more (lowest {simultaneous['simultaneous_low_min']:.3f})")
+                      f"it at {percent_text(result.confidence)} or more "
+                      f"(lowest {simultaneous['simultaneous_low_min']:.3f})")
         return {"found": False, "basis": basis, "reason": reason, **simultaneous}
     r0, r1, c0, c1 = box
     xs, ys = result.xs, result.ys
@@ -482,19 +483,19 @@ def space_text(result: SpaceResult) -> str:
     if result.given:
         lines.append("Given: " + ", ".join(f"{k} = {v:g}" for k, v in result.given.items()))
     if b["available"]:
-        lines.append(f"Lower bound at {percent_text(result.assurance)} assurance over {b['n_replicates']} lot-level bootstrap "
-                     "replicates of the chain.")
+        lines.append(f"Lower bound at {percent_text(result.assurance)} assurance over {b['n_replicates']} lot-level "
+                     "bootstrap replicates of the chain.")
     else:
         lines.append(f"!! {b['reason']}")
     inside = int(result.in_domain.sum())
     lines.append(f"Inside the applicability domain: {inside} of {n} grid points.")
     for r in result.domain_reasons[:6]:
         lines.append(f"   outside, {units_shown(r)}")
-    lines.append(f"Reaching {percent_text(result.confidence)} ({'bound' if b['available'] else 'point estimate'}) inside the "
-                 f"domain: {int(result.region.sum())} of {n} grid points; point estimate anywhere: "
+    lines.append(f"Reaching {percent_text(result.confidence)} ({'bound' if b['available'] else 'point estimate'}) "
+                 f"inside the domain: {int(result.region.sum())} of {n} grid points; point estimate anywhere: "
                  f"{int((result.p_all >= result.confidence).sum())}.")
-    lines.append(f"Estimated boundary: where the point estimate crosses {percent_text(result.confidence)} inside the domain "
-                 f"({int(result.estimated_region.sum())} grid points within it)"
+    lines.append(f"Estimated boundary: where the point estimate crosses {percent_text(result.confidence)} inside the "
+                 f"domain ({int(result.estimated_region.sum())} grid points within it)"
                  + ("; the bound's region inside it is the conservative one." if b["available"] else "."))
     ar = result.ranges
     if ar.get("found"):
@@ -504,8 +505,9 @@ def space_text(result: SpaceResult) -> str:
         lines.append("Suggested set point (centre of the box): "
                      + ", ".join(f"{k} = {v:.4g} {shown_unit(k)}" for k, v in ar["set_point"].items()))
         if "simultaneous_holds" in ar:
-            lines.append(f"  over the whole box at once (simultaneous band, {percent_text(result.assurance)} assurance) the "
-                         f"lowest bound is {ar['simultaneous_low_min']:.3f}: the box keeps the confidence"
+            lines.append(f"  over the whole box at once (simultaneous band, {percent_text(result.assurance)} "
+                         f"assurance) the lowest bound is {ar['simultaneous_low_min']:.3f}: the box keeps the "
+                         "confidence"
                          + (f" (shrunk from the pointwise bound's box in {ar['shrink_rounds']} "
                             f"round{'' if ar['shrink_rounds'] == 1 else 's'})"
                             if ar["shrunk"] else ""))

@@ -228,7 +228,8 @@ class Transfer:
                             f"{p.peak_pressure_range_mpa[1]:.0f} MPa): extrapolated"))
             beyond = t.get("interval_ends_outside_lots_pressure_range") or []
             if beyond:
-                ends = " and ".join(f"{'lower' if e == 'low' else 'upper'} end {t['force_interval_kn_per_cm'][0 if e == 'low' else 1]:.2f} kN/cm"
+                ends = " and ".join(f"{'lower' if e == 'low' else 'upper'} end "
+                                    f"{t['force_interval_kn_per_cm'][0 if e == 'low' else 1]:.2f} kN/cm"
                                     for e in beyond)
                 lines.append(f"    the interval's {ends}: OUTSIDE the peak pressures the lots reached "
                              f"({p.peak_pressure_range_mpa[0]:.0f}-{p.peak_pressure_range_mpa[1]:.0f} MPa): "

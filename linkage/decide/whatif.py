@@ -94,7 +94,8 @@ def value_problems(chain, values: dict[str, float]) -> tuple[list[str], list[tup
             column = _schema_column(name)
             if column is not None:
                 low_ok = column.low is None or (value >= column.low if column.low_inclusive else value > column.low)
-                high_ok = column.high is None or (value <= column.high if column.high_inclusive else value < column.high)
+                high_ok = column.high is None or (value <= column.high if column.high_inclusive
+                                                  else value < column.high)
                 if not (low_ok and high_ok):
                     bad.append((name, value, f"is outside the possible range {column.bound_text()} [{column.unit}]"))
     return unknown, bad

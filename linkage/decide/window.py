@@ -590,7 +590,8 @@ def roll_force_range(chain, low: float | None, high: float | None, *, settings: 
         "confidence": confidence,
         "data_range": [f_lo, f_hi],
         "held": {k: {"value": float(v), "source": source[k]} for k, v in sorted(held.items())},
-        "curve": {"roll_force_kn_per_cm": _floats(forces), "porosity_mean": _floats(mean), "p_in_window": _floats(p_in)},
+        "curve": {"roll_force_kn_per_cm": _floats(forces), "porosity_mean": _floats(mean),
+                  "p_in_window": _floats(p_in)},
         "reason": None if len(ok) else "no roll force in the training range lands in the window with that confidence",
     }
 
@@ -670,6 +671,7 @@ def chain_force_range(chain, spec, *, settings: dict[str, float], confidence: fl
     elif p_low is None and cp.reason:
         out["reason"] = cp.reason
     else:
-        out["reason"] = (f"at no roll force in the training range does the {'lower bound' if p_low is not None else 'point estimate'} "
-                         f"of the chance that a lot passes every specification reach {percent_text(confidence)}")
+        out["reason"] = (f"at no roll force in the training range does the "
+                         f"{'lower bound' if p_low is not None else 'point estimate'} of the chance that a lot "
+                         f"passes every specification reach {percent_text(confidence)}")
     return out

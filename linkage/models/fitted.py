@@ -25,8 +25,10 @@ __all__ = ["FittedTarget", "FittedStage", "FittedChain", "jsonable", "INTERVAL_M
 INTERVAL_METHOD = (
     "CV+ (Barber, Candès, Ramdas & Tibshirani 2021, Ann. Statist. 49:486-507) with lots as the "
     "exchangeable unit: the fold models of the lot-grouped outer cross-validation and their "
-    "out-of-fold residuals; lower end the ⌊α(n+1)⌋-th smallest of μ̂₋ₖ₍ᵢ₎(x) − Rᵢ, upper end the "
-    "⌈(1−α)(n+1)⌉-th smallest of μ̂₋ₖ₍ᵢ₎(x) + Rᵢ; an end is ±inf where its rank falls outside 1..n "
+    "out-of-fold residuals; lower end the ⌊α(n+1)⌋-th smallest of μ̂₋ₖ₍ᵢ₎(x) − Rᵢ, "
+    "upper end the "
+    "⌈(1−α)(n+1)⌉-th smallest of μ̂₋ₖ₍ᵢ₎(x) + Rᵢ; an end is ±inf where its rank falls "
+    "outside 1..n "
     "(too few lots for the level)"
 )
 
@@ -43,7 +45,8 @@ STUDENTIZED_INTERVAL_METHOD = (
     "§3, for the procedure as the algorithm; normalised scores: Papadopoulos, Gammerman & Vovk 2008, Proc. IASTED "
     "AIA, and Lei et al. 2018, JASA 113:1094, §5.2): in each outer fold the candidate is chosen by the one-SE rule "
     "on that fold's inner CV, and its fold model and held-out residuals enter CV+; each residual is divided by "
-    "ρ(xᵢ) = √(1 + c·h(xᵢ)), h the delta-method leverage of the full-data link-linear model at the lot's inputs "
+    "ρ(xᵢ) = √(1 + c·h(xᵢ)), h the delta-method leverage of the full-data link-linear model "
+    "at the lot's inputs "
     "(1 for other model kinds; c = K/(K − 1)), the fold models' predictions at x by ρ(x), the CV+ order "
     "statistics taken on those, and the ends multiplied back by ρ(x): the classical prediction-interval shape "
     "σ̂√(1 + h), wider where the mean is estimated from few lots. The Monte Carlo through the chain keeps the "

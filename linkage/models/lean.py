@@ -47,7 +47,8 @@ from linkage.exceptions import InputError, Problem, UsageError
 __all__ = ["LeanChain", "from_fitted", "as_lean", "to_npz_bytes", "from_npz_bytes", "FORMAT",
            "quad_features", "quadratic_predict", "quadratic_contributions", "walk_trees", "tree_shap",
            "domain_verdicts", "given_inputs_verdict", "physical_range", "project", "link_transform", "link_inverse",
-           "link_predict", "link_contributions", "spread_scale", "LINKS", "link_weights", "link_leverage", "leverage_scale"]
+           "link_predict", "link_contributions", "spread_scale", "LINKS", "link_weights", "link_leverage",
+           "leverage_scale"]
 
 FORMAT = 1
 

@@ -89,7 +89,8 @@ def extra_columns(table: pd.DataFrame, chain: ChainSpec) -> list[str]:
     recorded = table.attrs.get("process_extra_columns") if hasattr(table, "attrs") else None
     out = []
     for c in table.columns:
-        if c in known or (recorded is not None and c not in recorded) or not pd.api.types.is_numeric_dtype(table[c]) or pd.api.types.is_bool_dtype(table[c]):
+        if (c in known or (recorded is not None and c not in recorded) or not pd.api.types.is_numeric_dtype(table[c])
+                or pd.api.types.is_bool_dtype(table[c])):
             continue
         v = pd.to_numeric(table[c], errors="coerce").to_numpy(float)
         v = v[np.isfinite(v)]

@@ -66,8 +66,8 @@ class Reused:
 
     def sentence(self, what: str) -> str:
         """The report's words for it: what was reused, from which command and when."""
-        return (f"Reused, not recomputed: {what} as '{self.made_by}' computed it at {shown_time(self.made_at)} for this model, "
-                "this specification, seed and settings (stored beside the model; a different model, "
+        return (f"Reused, not recomputed: {what} as '{self.made_by}' computed it at {shown_time(self.made_at)} for "
+                "this model, this specification, seed and settings (stored beside the model; a different model, "
                 "specification, seed or setting is computed anew).")
 
 

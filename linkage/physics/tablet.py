@@ -139,7 +139,8 @@ def tensile_strength_convex_mpa(breaking_force_n, diameter_mm, thickness_mm, ban
     if np.any(w_b > t_b):
         raise ValueError("band_thickness_mm cannot exceed thickness_mm")
     bracket = 2.84 * t / d - 0.126 * t / w + 3.15 * w / d + 0.01
-    return _out(10.0 * f / (np.pi * d**2) / bracket)  # Pitt, Newton & Stanley (1988), as quoted by Pitt & Heasley (2013)
+    # Pitt, Newton & Stanley (1988), as quoted by Pitt & Heasley (2013)
+    return _out(10.0 * f / (np.pi * d**2) / bracket)
 
 
 def _flat_mask(cup):

@@ -15,7 +15,8 @@ A folder holds one file a table, named after the table: ``process``,
 (case and stray spaces in the name are ignored). A workbook named after a
 table holds it on the sheet of that name (in any case) or on its only sheet;
 a sheet in it named after another table is refused (its rows would not be
-read; as its only sheet, which table its rows are is not guessed). A workbook with any other name is read sheet by sheet, and each sheet
+read; as its only sheet, which table its rows are is not guessed). A
+workbook with any other name is read sheet by sheet, and each sheet
 named after a table (in any case) is that table. The other sheets are listed
 in the warnings, and, when a table is missing or a lot has no process
 record, in that problem (a sheet whose name is near the table's, such as

@@ -60,13 +60,13 @@ def _is_missing(cell: object) -> bool:
 
 def _too_many_rows(label: str, n_rows: int | None) -> Problem:
     shown = f"{n_rows:,} rows" if n_rows is not None else f"more than {package.MAX_ROWS:,} rows"
-    return Problem(label, f"{shown} below the header; at most {package.MAX_ROWS:,} data rows per file: split the export "
-                          "into several ingests")
+    return Problem(label, f"{shown} below the header; at most {package.MAX_ROWS:,} data rows per file: split the "
+                          "export into several ingests")
 
 
 def _too_many_columns(label: str, n_columns: int) -> Problem:
-    return Problem(label, f"{n_columns:,} columns; at most {package.MAX_COLUMNS:,} columns per file (the most a workbook "
-                          "sheet holds): leave out the columns that are not needed", row=1)
+    return Problem(label, f"{n_columns:,} columns; at most {package.MAX_COLUMNS:,} columns per file (the most a "
+                          "workbook sheet holds): leave out the columns that are not needed", row=1)
 
 
 def _letters(j: int) -> str:

@@ -547,7 +547,8 @@ def plot_window_probability(grid, p_all, p_each: Mapping[str, Sequence[float]], 
     if p_all_low_pointwise is not None:
         ax.plot(grid, np.asarray(p_all_low_pointwise, float), color=BLACK, linewidth=0.9, linestyle="-.",
                 label="P(pass all), bound at one porosity alone")
-    ax.axhline(confidence, color=VERMILION, linestyle="--", linewidth=1.4, label=f"confidence {percent_text(confidence)}")
+    ax.axhline(confidence, color=VERMILION, linestyle="--", linewidth=1.4,
+               label=f"confidence {percent_text(confidence)}")
     ax.set_ylim(-0.02, 1.02)
     ax.set_xlabel(axis_label("ribbon_porosity"))
     ax.set_ylabel("probability of meeting the specification [-]")
@@ -579,7 +580,8 @@ def plot_roll_force(force, porosity_mean, p_in, *, low: float | None, high: floa
     twin = ax.twinx()
     twin.plot(force, np.asarray(p_in, float), color=PURPLE, linewidth=1.2, linestyle="-.",
               label="P(lot mean in window)")
-    twin.axhline(confidence, color=VERMILION, linestyle="--", linewidth=1.2, label=f"confidence {percent_text(confidence)}")
+    twin.axhline(confidence, color=VERMILION, linestyle="--", linewidth=1.2,
+                 label=f"confidence {percent_text(confidence)}")
     twin.set_ylim(-0.02, 1.02)
     twin.set_ylabel("P(lot-mean porosity in window) [-]")
     h1, l1 = ax.get_legend_handles_labels()

@@ -1277,10 +1277,10 @@ def _window_figures(b, spec, w):
                      p_all_low=w.p_all_low, assurance=w.assurance,
                      p_all_low_pointwise=getattr(w, "p_all_low_pointwise", None)),
              f"Probability that a lot meets {every} together (thick: point estimate solid, lower bound "
-             f"at {percent_text(w.assurance)} assurance over the whole window dashed; thin dash-dot: the same bound for "
-             f"one porosity alone) and each one (thin, point estimates) against "
-             f"ribbon porosity; dashed red: the {percent_text(w.confidence)} confidence line; shaded: the window; dotted: the "
-             f"mean-response window.")
+             f"at {percent_text(w.assurance)} assurance over the whole window dashed; thin dash-dot: the same bound "
+             f"for one porosity alone) and each one (thin, point estimates) against "
+             f"ribbon porosity; dashed red: the {percent_text(w.confidence)} confidence line; shaded: the window; "
+             f"dotted: the mean-response window.")
     names = list(w.bands)
     if names:
         def make():
@@ -1293,8 +1293,8 @@ def _window_figures(b, spec, w):
             return fig
 
         b.figure(make, f"Each specified attribute against ribbon porosity: mean prediction through the chain and "
-                       f"the central {percent_text(w.confidence)} of simulated lots, against its limits (dashed); the window "
-                       f"shaded.", panels=len(names))
+                       f"the central {percent_text(w.confidence)} of simulated lots, against its limits (dashed); "
+                       f"the window shaded.", panels=len(names))
 
 
 def _roll_force(b, table, w):
@@ -1379,8 +1379,8 @@ def _watch_section(b, chain, table, window, result):
                 ax.legend(fontsize=6, loc="best", framealpha=0.8)
             return ax
 
-        b.figure(make_between, "Lot-mean ribbon porosity in time order against the training lots' mean ± 3 SD, with the "
-                     "porosity window shaded where one was found.")
+        b.figure(make_between, "Lot-mean ribbon porosity in time order against the training lots' mean ± 3 SD, with "
+                     "the porosity window shaded where one was found.")
     else:
         b.note(f"Lot-mean porosity chart not drawn: {pb.get('reason', 'no porosity values')}.")
     from linkage.decide.watch import design_lines
@@ -1495,7 +1495,8 @@ def _card_rows(chain, spec, window) -> list[list]:
                                                     f"{window.seed}"])
         bound = window.bound or {}
         rows.append(["lower bound on the probability",
-                     f"{percent_text(window.assurance)} assurance, {bound.get('n_replicates')} lot-level bootstrap replicates"
+                     f"{percent_text(window.assurance)} assurance, {bound.get('n_replicates')} lot-level bootstrap "
+                     "replicates"
                      + (f", simultaneous over the window (percentile {100 * bound['simultaneous']['quantile']:.2f})"
                         if bound.get("simultaneous") else "")
                      if bound.get("available") else bound.get("reason") or "none"])
@@ -1516,8 +1517,8 @@ def _cautions(b, chain, store_cautions=()):
         f"Intervals and probabilities come from out-of-fold errors of {n} lots; with few lots they are themselves "
         "uncertain, and coverage is promised for lots like the training lots, not for a changed raw material, "
         "site or scale.",
-        "The porosity window holds the other settings where the window section says (given, or held coherently with the given ones: "
-        "their conditional mean over the training lots); "
+        "The porosity window holds the other settings where the window section says (given, or held coherently with "
+        "the given ones: their conditional mean over the training lots); "
         "a different setting can move it. The mean-response window overstates what can be promised.",
         "Retrain when new lots arrive or a residual chart drifts; a model is only as current as its data hash.",
     ]

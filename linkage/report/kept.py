@@ -208,6 +208,6 @@ def figures_key(models_dir, model_id, spec, *, table, lots, stamp: tuple | None 
 def sentence(made_by: str, made_at: str, n_reused: int, n_figures: int) -> str:
     """The report's words for figures it did not draw again."""
     which = f"all {n_figures} figures" if n_reused == n_figures else f"{n_reused} of the {n_figures} figures"
-    return (f"Reused, not drawn again: {which}, as '{made_by}' drew them at {shown_time(made_at)} for this model, these lots, "
-            "this specification, these settings and this version of the code (kept beside the model; any change "
-            "to one of them draws the figures anew).")
+    return (f"Reused, not drawn again: {which}, as '{made_by}' drew them at {shown_time(made_at)} for this model, "
+            "these lots, this specification, these settings and this version of the code (kept beside the model; "
+            "any change to one of them draws the figures anew).")

@@ -39,8 +39,8 @@ def read_plan(plan) -> dict:
 
 
 def plot_plan_map(force, gap, plan_force, plan_gap, labels, *, ax=None):
-    """The lots made so far (grey dots: every lot of the report's table, trained on or not) and planned lots (black crosses, labelled
-    with their run number) over roll force × roll gap."""
+    """The lots made so far (grey dots: every lot of the report's table, trained on or not) and planned lots
+    (black crosses, labelled with their run number) over roll force × roll gap."""
     from linkage.report.figures import BLACK, GREY, axis_label, new_axes
 
     ax = new_axes(ax, panel=(6.0, 3.4))

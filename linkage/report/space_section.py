@@ -39,8 +39,9 @@ def plot_space(result, lots_x=None, lots_y=None, *, trained=None, ax=None):
     if np.nanmin(surface) < result.confidence < np.nanmax(surface):
         ax.contour(X, Y, surface, levels=[result.confidence], colors=[VERMILION], linewidths=2.0)
         handles.append(Line2D([], [], color=VERMILION, linewidth=2.0))
-        labels.append(f"conservative boundary (bound = {percent_text(result.confidence)})" if result.p_all_low is not None
-                      else f"estimated boundary (P = {percent_text(result.confidence)})")
+        labels.append(f"conservative boundary (bound = {percent_text(result.confidence)})"
+                      if result.p_all_low is not None else
+                      f"estimated boundary (P = {percent_text(result.confidence)})")
     if result.p_all_low is not None and np.nanmin(result.p_all) < result.confidence < np.nanmax(result.p_all):
         ax.contour(X, Y, result.p_all, levels=[result.confidence], colors=[VERMILION], linewidths=1.2,
                    linestyles="--")
@@ -118,9 +119,9 @@ def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: 
                  f"({', '.join(r.attributes)}, lot means) over specific roll force and roll gap, through the whole "
                  f"chain; other settings held coherently at each point: {r.held_rule}. Solid line: the {what} "
                  f"reaches {percent_text(r.confidence)}"
-                 + (f" ({percent_text(r.assurance)} assurance, {r.bound['n_replicates']} lot-level bootstrap replicates; the "
-                    "conservative boundary); dashed: the point estimate does (the estimated boundary, the best "
-                    "estimate of the true one)" if r.p_all_low is not None else "")
+                 + (f" ({percent_text(r.assurance)} assurance, {r.bound['n_replicates']} lot-level bootstrap "
+                    "replicates; the conservative boundary); dashed: the point estimate does (the estimated "
+                    "boundary, the best estimate of the true one)" if r.p_all_low is not None else "")
                  + ". Grey line and hatching: the applicability-domain boundary (Hotelling T², Q and training "
                    "ranges of every stage at the held point); no probability is promised outside it. Open dots: the "
                    "training lots" + ("" if trained.all() else f" ({int(trained.sum())}); filled squares: the lots the "
