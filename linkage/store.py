@@ -3,6 +3,14 @@
 Default ``linkage.db`` in the working folder; the CLI's ``--store`` and the
 ``LINKAGE_STORE`` variable choose another.
 
+Here: :class:`LotStore` (opening, creating and upgrading a store, the ingest and its revisions, lots set
+aside, the audit trail, recorded predictions) and the texts the commands say of it. Beside it:
+:mod:`linkage.store_open`, opening a store without changing it (a store written by an earlier linkage read as it
+is or from an upgraded temporary copy, and what a command that records at the end checks and reads before its
+work); :mod:`linkage.store_schema`, the file's layout (schema version, tables, append-only triggers);
+:mod:`linkage.store_rows`, the raw rows' encoding and where they are kept. Every name of ``store_open`` and
+``store_schema`` is importable from this module too.
+
 What it keeps
 -------------
 - Raw rows, not lot means: every ribbon replicate, every sieve row, every
@@ -75,7 +83,7 @@ import math
 import operator
 import os
 import sqlite3
-from contextlib import ExitStack, closing, contextmanager
+from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
 from itertools import chain
 from pathlib import Path
@@ -87,7 +95,15 @@ from linkage.exceptions import (InputError, StoreBusyError, StoreError, StoreInt
                                  UsageError, shown_time)
 from linkage.lotid import lot_key, reader_spelling
 from linkage.schema import DATETIME, NUMBER, TABLES
+# opening a store without changing it (older schemas, copies) and the file's layout have modules of their own;
+# every name of them is importable from here too (re-exported), as callers and tests import it
+from linkage.store_open import (NEXT_RECORD_UPGRADES, EmptyStoreFile, StoreNeedsUpgrade, _as_the_store, _damage_of,
+                                 _reading_uri, _upgrade_unsaid, _wal_beside, backup_copy, can_write,
+                                 older_schema_caution, open_to_read, open_to_record, reading, refuse_unanchored,
+                                 store_upgraded_text, upgraded_copy)
 from linkage.store_rows import LotTable, OnFirstUse, canon_row, encode_table, read_row_texts, write_row_blocks
+from linkage.store_schema import (_DDL, _ROW_BLOCKS_DDL, APPEND_ONLY, APPLICATION_ID, BUSY_TIMEOUT_S, SCHEMA_VERSION,
+                                  _statements, _triggers)
 
 if TYPE_CHECKING:
     from linkage.read import Ingest
@@ -97,130 +113,11 @@ np = OnFirstUse("numpy")
 pd = OnFirstUse("pandas")
 _read = OnFirstUse("linkage.read")
 
-#: 2: seals (tamper evidence, linkage/seal.py), lot_table_hashes and ingests.reason;
-#: 3: row_blocks (an ingest's raw rows of a table in one record, see the module notes). An earlier store is
-#: upgraded by the first command that writes to it; a command that records nothing reads it as it is (schema 2) or
-#: from an upgraded temporary copy (schema 1), and so does every command where the store cannot be written.
-SCHEMA_VERSION = 3
-#: PRAGMA application_id of a linkage store ("LNKG").
-APPLICATION_ID = 0x4C4E4B47
-BUSY_TIMEOUT_S = 10.0
 #: lot tables written per pair of statements during an ingest
 _BATCH = 5000
 #: values per "IN (...)" list (SQLite before 3.32 allows 999 parameters a statement)
 _IN_CHUNK = 500
 _TABLE_NUMBER = {name: k for k, name in enumerate(TABLES)}
-
-#: Tables whose rows are never updated or deleted.
-#: (A store written before schema 3 also has raw_rows, append-only likewise: its triggers stay.)
-APPEND_ONLY = ("schema_version", "ingests", "ingest_files", "lots", "lot_tables", "row_blocks", "revisions",
-               "revision_tables", "audit", "predictions", *_seal.APPEND_ONLY)
-
-#: schema 3: the raw rows one ingest wrote for one table, in one record (see :func:`write_row_blocks`): each
-#: row's JSON text as raw_rows held it before, one row per line, in the order of their lot tables' ids and
-#: then as the file had them; ``lot_tables_json`` lists those lot tables as [id, rows] pairs. A store written
-#: before schema 3 keeps its rows in raw_rows (schema 1 and 2), read as before.
-_ROW_BLOCKS_DDL = """CREATE TABLE row_blocks (
-    ingest_id INTEGER NOT NULL REFERENCES ingests(id),
-    tbl TEXT NOT NULL,
-    n_rows INTEGER NOT NULL,
-    lot_tables_json TEXT NOT NULL,
-    source_rows_json TEXT NOT NULL,
-    rows_text TEXT NOT NULL,
-    PRIMARY KEY (ingest_id, tbl)
-)"""
-
-_DDL = """
-CREATE TABLE schema_version (version INTEGER NOT NULL, applied_at TEXT NOT NULL);
-CREATE TABLE ingests (
-    id INTEGER PRIMARY KEY,
-    at TEXT NOT NULL,
-    user TEXT NOT NULL,
-    folder TEXT,
-    lots_new INTEGER NOT NULL,
-    lots_revised INTEGER NOT NULL,
-    lots_unchanged INTEGER NOT NULL,
-    warnings_json TEXT NOT NULL,
-    reason TEXT
-);
-CREATE TABLE ingest_files (
-    ingest_id INTEGER NOT NULL REFERENCES ingests(id),
-    tbl TEXT,
-    file TEXT NOT NULL,
-    sha256 TEXT NOT NULL,
-    rows INTEGER
-);
-CREATE TABLE lots (
-    lot TEXT PRIMARY KEY,
-    first_ingest_id INTEGER NOT NULL REFERENCES ingests(id)
-);
--- one table's rows of one lot, as one ingest sent them
-CREATE TABLE lot_tables (
-    id INTEGER PRIMARY KEY,
-    lot TEXT NOT NULL REFERENCES lots(lot),
-    tbl TEXT NOT NULL,
-    ingest_id INTEGER NOT NULL REFERENCES ingests(id),
-    file TEXT NOT NULL,
-    file_sha256 TEXT NOT NULL,
-    content_sha256 TEXT NOT NULL,
-    columns_json TEXT NOT NULL,
-    n_rows INTEGER NOT NULL,
-    n_filled INTEGER NOT NULL
-);
-{row_blocks};
-CREATE TABLE revisions (
-    id INTEGER PRIMARY KEY,
-    lot TEXT NOT NULL REFERENCES lots(lot),
-    revision INTEGER NOT NULL,
-    ingest_id INTEGER NOT NULL REFERENCES ingests(id),
-    product TEXT,
-    UNIQUE (lot, revision)
-);
-CREATE TABLE revision_tables (
-    revision_id INTEGER NOT NULL REFERENCES revisions(id),
-    tbl TEXT NOT NULL,
-    lot_table_id INTEGER NOT NULL REFERENCES lot_tables(id),
-    PRIMARY KEY (revision_id, tbl)
-);
-CREATE TABLE audit (
-    id INTEGER PRIMARY KEY,
-    at TEXT NOT NULL,
-    user TEXT NOT NULL,
-    action TEXT NOT NULL,
-    lot TEXT,
-    model_id TEXT,
-    inputs_json TEXT,
-    outputs_json TEXT
-);
-CREATE TABLE predictions (
-    id INTEGER PRIMARY KEY,
-    at TEXT NOT NULL,
-    user TEXT NOT NULL,
-    model_id TEXT NOT NULL,
-    lot TEXT,
-    inputs_json TEXT NOT NULL,
-    outputs_json TEXT NOT NULL
-);
-CREATE INDEX lot_tables_lot ON lot_tables(lot);
-CREATE INDEX revisions_lot ON revisions(lot);
-CREATE INDEX audit_lot ON audit(lot);
-CREATE INDEX predictions_lot ON predictions(lot);
-CREATE VIEW current_revisions AS
-    SELECT r.* FROM revisions r
-    WHERE r.revision = (SELECT MAX(revision) FROM revisions WHERE lot = r.lot);
-"""
-
-
-def _statements() -> list[str]:
-    """The DDL of a new store, one statement each, append-only triggers last."""
-    out = [s.strip() for s in _DDL.format(row_blocks=_ROW_BLOCKS_DDL).split(";") if s.strip()]
-    return out + list(_seal.DDL) + _triggers(APPEND_ONLY)
-
-
-def _triggers(tables) -> list[str]:
-    return [f"CREATE TRIGGER {table}_no_{op.lower()} BEFORE {op} ON {table} BEGIN "
-            f"SELECT RAISE(ABORT, 'linkage store: {table} is append-only ({op} refused)'); END"
-            for table in tables for op in ("UPDATE", "DELETE")]
 
 
 def current_user() -> str:
@@ -621,58 +518,6 @@ def restored_since_training(chain, new_lots, notes: list[str], what: str = "sinc
                      f"model was fitted without {'it' if one else 'them'}, not because {'it is' if one else 'they are'}"
                      " new ('linkage history LOT' shows the decisions)")
     return lots
-
-
-def can_write(path) -> bool:
-    """Whether this account can write the store at ``path``: its file and its folder (where SQLite keeps the
-    -wal and -shm files beside it)."""
-    path = Path(path)
-    return os.access(path, os.W_OK) and os.access(path.parent, os.W_OK)
-
-
-def _wal_beside(path: Path) -> bool:
-    """Whether a -wal file is beside the store: a writer is at work, or one crashed before its last close."""
-    return Path(f"{path}-wal").exists()
-
-
-def _reading_uri(path: Path, writable: bool) -> str:
-    """The URI of a connection that reads the store and writes nothing of it (sqlite.org, "URI filenames"):
-    where this account cannot write it, ``immutable=1`` (SQLite neither writes its -shm file nor expects another
-    writer); else ``mode=ro``, for a store beside a -wal file, whose committed transactions it reads: a read-only
-    connection neither copies the -wal into the store (a checkpoint) nor deletes it when it closes, as the last
-    connection that could write does (sqlite.org, "Write-Ahead Logging"); SQLite still keeps its -shm index (no
-    content of the store) beside it. Not used where no -wal is there: a read-only connection then leaves an
-    empty -wal and a -shm behind, where a query-only one leaves nothing."""
-    uri = Path(path).resolve().as_uri()
-    return f"{uri}?mode=ro&immutable=1" if not writable else f"{uri}?mode=ro"
-
-
-def _damage_of(exc: BaseException | None) -> sqlite3.Error | None:
-    """The SQLite error that ``exc`` is, or was raised while handling, when it says the file is damaged
-    (SQLITE_CORRUPT, SQLITE_NOTADB: sqlite.org, "Result and Error Codes"); else None."""
-    for _ in range(4):
-        if exc is None:
-            return None
-        if isinstance(exc, sqlite3.Error):
-            return exc if (getattr(exc, "sqlite_errorcode", 0) or 0) & 0xFF in (11, 26) else None
-        exc = exc.__context__
-    return None
-
-
-class EmptyStoreFile(StorePathError):
-    """An SQLite file without a table where a lot store was named, opened by a command that must not write
-    (``read_only`` or ``upgrade=False``): refused as no store at all is (``create=False``; exit code 2), since
-    making the store in it would write it. A command that writes (an ingest) makes the store in it."""
-
-
-class StoreNeedsUpgrade(StoreError):
-    """A store of an earlier schema that cannot be read as it is where it is opened for reading only
-    (``LotStore(read_only=True)`` or ``upgrade=False``; schema 1, before seals): the first command that records in
-    it with write access upgrades it. Exit code 5, as :class:`StoreError`; an ingest's preview, the commands that
-    only read and what the recording commands read before their record decide on an upgraded copy instead
-    (:func:`upgraded_copy`). ``version``: the store's schema."""
-
-    version: int = 1
 
 
 class LotTables(dict):
@@ -1993,182 +1838,6 @@ def _diff(table: str, old: list[dict] | None, new: list[dict]) -> list[dict]:
             out.append({"table": table, "change": "row removed", "key": dict(zip(key_cols, key)), "column": None,
                         "old": row, "new": None})
     return out
-
-
-def backup_copy(path: Path, to: Path) -> None:
-    """Copy the store at ``path`` to the new file ``to`` with SQLite's online backup (sqlite.org, "Online Backup
-    API": a consistent copy, pages read in one read transaction), read through a query-only connection that
-    closes as a writer closes (no -wal or -shm left beside the store); a store this account cannot write (a
-    read-only file system) is read immutable, as :class:`LotStore` reads it there. For an ingest's preview,
-    and the commands that only read, of a store that must be upgraded first: the copy is upgraded, the store
-    is not."""
-    path = Path(path)
-    writable = can_write(path)
-    try:
-        with closing(sqlite3.connect(path, timeout=BUSY_TIMEOUT_S, isolation_level=None)
-                     if writable and not _wal_beside(path) else
-                     sqlite3.connect(_reading_uri(path, writable), uri=True, timeout=BUSY_TIMEOUT_S,
-                                     isolation_level=None)) as source, \
-                closing(sqlite3.connect(to, isolation_level=None)) as copy:
-            source.execute("PRAGMA query_only = ON")
-            source.backup(copy)
-    except sqlite3.Error as exc:
-        if _damage_of(exc) is not None:  # the store's pages, as verify's integrity check would find them
-            raise StoreIntegrityError(f"lot store {path} is damaged: {exc} (found while copying it to read it; the "
-                                      "store was not changed)") from None
-        raise StoreError(f"cannot copy the lot store {path} to {to}: {exc}") from None
-
-
-#: when a store written by an earlier linkage is upgraded, as the cautions of the commands that leave it as it is say
-NEXT_RECORD_UPGRADES = ("the next command that records in it (an ingest, a training, a recorded what-if or window, "
-                        "...) upgrades it")
-
-
-def older_schema_caution(path, version: int, *, copy: bool = False) -> str:
-    """The caution of a store written by an earlier linkage that a command read without upgrading it
-    (:attr:`LotStore.older_schema`); ``copy``: read from an upgraded temporary copy (schema 1)."""
-    if copy:
-        return (f"{path} was written by an earlier linkage (store schema {version}, before seals); read from an "
-                "upgraded temporary copy, the store itself not upgraded nor changed (an earlier linkage still reads "
-                f"it); {NEXT_RECORD_UPGRADES} and seals its records as they then stand")
-    return (f"{path} was written by an earlier linkage (store schema {version}); read as it is, not upgraded nor "
-            f"changed (an earlier linkage still reads it); {NEXT_RECORD_UPGRADES}")
-
-
-def store_upgraded_text(path, version: int) -> str:
-    """What a command that upgraded the store at ``path`` from schema ``version`` says (:meth:`LotStore._upgrade`,
-    a :class:`~linkage.exceptions.StoreUpgraded` warning)."""
-    sealed = "; its records sealed as they stood" if version < 2 else ""
-    return (f"the lot store {path} was written by an earlier linkage (store schema {version}) and was upgraded to "
-            f"schema {SCHEMA_VERSION} to record in it{sealed}; an earlier linkage no longer reads it (\"written by "
-            "a newer linkage\")")
-
-
-@contextmanager
-def _upgrade_unsaid() -> Iterator[None]:
-    """Leave out the :class:`~linkage.exceptions.StoreUpgraded` warning of an upgrade made inside: a temporary
-    copy's (:func:`upgraded_copy`), which is not the store's."""
-    import warnings
-
-    from linkage.exceptions import StoreUpgraded
-
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", StoreUpgraded)
-        yield
-
-
-def upgraded_copy(stack: ExitStack, path: Path, version: int = 1) -> LotStore:
-    """The store at ``path`` (of schema ``version``, which must be upgraded to be read: schema 1) copied with
-    :func:`backup_copy` into a temporary folder, upgraded there, opened and entered on ``stack`` (which removes
-    the folder when it closes); the store and its folder are not touched. The copy answers as the store would
-    (:attr:`LotStore.path` names the store, its anchor file is the copy's own), refuses every write, and says
-    that it is a copy (:attr:`LotStore.older_schema`, :attr:`LotStore.from_copy`, :meth:`LotStore.cautions`,
-    warned as a :class:`~linkage.exceptions.StoreCaution`). For an ingest's preview and the commands that only
-    read (:func:`reading`).
-
-    A copy that is no longer of schema 1 (a writer upgraded the store after it was found to need it): the store
-    itself, opened for reading only (``LotStore(read_only=True)``). An error while the copy is read or upgraded
-    names the store, not the copy; damage found in it (SQLite's "malformed") is damage of the store
-    (:class:`~linkage.exceptions.StoreIntegrityError`, exit code 6), as :meth:`LotStore.check_seals` finds it."""
-    import tempfile
-
-    path = Path(path)
-    scratch = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="linkage-read-")))
-    copied = scratch / path.name
-    backup_copy(path, copied)
-    try:
-        with closing(sqlite3.connect(copied, isolation_level=None)) as con:
-            now = con.execute("SELECT MAX(version) FROM schema_version").fetchone()[0]
-        with _upgrade_unsaid():  # the copy's upgrade, not the store's: not said as one
-            copy = None if (now or 1) >= 2 else stack.enter_context(LotStore(copied, create=False))
-    except (sqlite3.Error, StoreError, StoreBusyError) as exc:
-        raise _as_the_store(exc, copied, path) from None
-    if copy is None:  # upgraded meanwhile by a writer: the store itself is read, as any store of its schema is
-        return stack.enter_context(LotStore(path, create=False, read_only=True))
-    # answers for the store: its name, and whether this account could write it (an ingest's preview refuses alike)
-    copy.path, copy.read_only = path, True
-    copy.writable = can_write(path)
-    copy.older_schema, copy.from_copy = version, True
-    copy._warn_cautions(stacklevel=3)
-    return copy
-
-
-def _as_the_store(exc: BaseException, copied: Path, path: Path) -> BaseException:
-    """An error met while a temporary copy (``copied``) of the store at ``path`` was read or upgraded, said of the
-    store: its words name the store, and damage is the store's (:class:`StoreIntegrityError`, as
-    :meth:`LotStore.check_seals` says it)."""
-    damage = _damage_of(exc)
-    if damage is not None and not isinstance(exc, StoreIntegrityError):
-        return StoreIntegrityError(f"lot store {path} is damaged: {damage} (found in a temporary copy of it, made "
-                                   "to read it without upgrading it; the store was not changed)")
-    text = str(exc).replace(str(copied), str(path))
-    if isinstance(exc, sqlite3.Error):
-        return StoreError(f"lot store {path}: {text}")
-    out = type(exc)(text)
-    out.__dict__.update(exc.__dict__)
-    return out
-
-
-def open_to_read(stack: ExitStack, path) -> LotStore:
-    """The store at ``path`` for a command that records nothing in it, entered on ``stack``: opened as before
-    when it is of the current schema; an older one read as it is (``LotStore(upgrade=False)``, schema 2) or
-    from an upgraded temporary copy (:func:`upgraded_copy`, schema 1), so that neither the store nor its folder
-    changes by a byte. Refusals as ``LotStore(path, create=False)``'s."""
-    try:
-        return stack.enter_context(LotStore(path, create=False, upgrade=False))
-    except StoreNeedsUpgrade as exc:
-        version = exc.version
-    return upgraded_copy(stack, Path(path), version)
-
-
-@contextmanager
-def reading(path) -> Iterator[LotStore]:
-    """:func:`open_to_read` as a context manager: ``with reading(store) as s: ...``."""
-    with ExitStack() as stack:
-        yield open_to_read(stack, path)
-
-
-def refuse_unanchored(path) -> None:
-    """Refuse (:class:`StoreIntegrityError`, exit code 6) the store at ``path`` when it holds seals but no
-    anchor file, as its first write would be refused (:meth:`LotStore._write`): for a command that writes to
-    the store only at the end of its work, called before that work. No store (no file, an empty one), nothing
-    to refuse. A folder is refused (:class:`StorePathError`, exit code 2), as opening it would be, so that the
-    work is not done before the record is refused."""
-    if path is not None and Path(path).is_dir():
-        raise StorePathError(f"{path} is a folder, not a lot store file; nothing was written")
-    if path is None or not Path(path).is_file() or Path(path).stat().st_size == 0:
-        return
-    import warnings
-
-    from linkage.exceptions import StoreCaution
-
-    # a check, not a read: the store's cautions are said by the command's reads; an older store is not upgraded
-    # here (a command refused after this check leaves it as it was): its record at the end upgrades it
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", StoreCaution)
-        try:
-            LotStore(path, create=False, for_writing=True, upgrade=False).close()
-        except EmptyStoreFile:
-            return  # an SQLite file without a table: no store yet, so no anchor to miss (as an empty file)
-        except StoreNeedsUpgrade:
-            if not can_write(path):
-                raise  # the record could neither upgrade nor write it: refused now, as its opening for writing is
-            # schema 1, before seals: no anchor to miss (its upgrade at the record seals it and anchors it)
-
-
-def open_to_record(stack: ExitStack, path) -> LotStore:
-    """The store at ``path``, entered on ``stack``, for what a command that records in it at the end of its work
-    reads before that work (``train``'s lots): refused at once where it holds seals without its anchor file, as
-    :func:`refuse_unanchored` refuses it; opened as ``LotStore(path, create=False, for_writing=True)`` opens a
-    store of the current schema, and never upgraded: an older one is read as :func:`open_to_read` reads it (as it
-    is, or from an upgraded temporary copy), so that a command refused on what it reads leaves it as it was. The
-    record at the end opens it for writing, which upgrades it (and says so)."""
-    try:
-        return stack.enter_context(LotStore(path, create=False, for_writing=True, upgrade=False))
-    except StoreNeedsUpgrade as exc:
-        if not can_write(path):
-            raise  # the record could neither upgrade nor write it: refused now, as its opening for writing is
-        return upgraded_copy(stack, Path(path), exc.version)
 
 
 def _alarmed_in(action: str, inputs_json: str | None, outputs_json: str | None) -> list:
