@@ -677,8 +677,8 @@ class LotStore:
         elif app_id == 0 and not names:
             if self.read_only or not self.upgrade:  # making the store in it would write it: refused as no store is
                 raise EmptyStoreFile(f"no lot store at {self.path} (an SQLite file without a table: nothing was ever "
-                                     "stored in it; left as it is); run `linkage ingest FOLDER` first, or point --store "
-                                     "(or LINKAGE_STORE) at the store")
+                                     "stored in it; left as it is); run `linkage ingest FOLDER` first, or point "
+                                     "--store (or LINKAGE_STORE) at the store")
             self._create()
             version = SCHEMA_VERSION
         else:
@@ -1261,7 +1261,8 @@ class LotStore:
         with the decision in force) or (restore) not set aside. Only reads: a store opened ``read_only`` answers as
         the write would (``linkage.api.set_aside`` asks it first, so that a refusal opens no older store for
         writing, which would upgrade it)."""
-        problems = [] if given_reason(reason) is not None else [set_aside_needs_reason(action, ending="", reason=reason)]
+        problems = ([] if given_reason(reason) is not None
+                    else [set_aside_needs_reason(action, ending="", reason=reason)])
         given = [reader_spelling(lot) for lot in ([lots] if isinstance(lots, str) else list(lots))]
         if not any(given):
             problems.append(f"'linkage {action}' needs at least one lot id")
