@@ -248,14 +248,15 @@ class ChainSpec:
     # -- views -----------------------------------------------------------
     def to_toml(self) -> str:
         """The chain as a TOML chain file (reads back to an equal chain)."""
-        def q(s):
-            return '"' + s.replace("\\", "\\\\").replace('"', '\\"') + '"'
+        def toml_string(text):
+            """``text`` as a TOML basic string (quoted, backslashes and quotes escaped)."""
+            return '"' + text.replace("\\", "\\\\").replace('"', '\\"') + '"'
 
         lines = ["# linkage chain: stages in order; an input is a root setting or a target of an earlier stage"]
         for st in self.stages:
-            lines += ["", "[[stage]]", f"name = {q(st.name)}",
-                      "inputs = [" + ", ".join(q(v) for v in st.inputs) + "]",
-                      "targets = [" + ", ".join(q(v) for v in st.targets) + "]"]
+            lines += ["", "[[stage]]", f"name = {toml_string(st.name)}",
+                      "inputs = [" + ", ".join(toml_string(v) for v in st.inputs) + "]",
+                      "targets = [" + ", ".join(toml_string(v) for v in st.targets) + "]"]
             for target, directions in st.monotone.items():
                 lines += ["", f"[stage.monotone.{target}]"]
                 lines += [f"{inp} = {int(d)}" for inp, d in directions.items()]

@@ -161,15 +161,17 @@ def interval_svg(value: float, low: float, high: float, lo_limit: float | None, 
     pad = (b - a) * 0.12 or abs(a) * 0.1 or 1.0
     a, b = a - pad, b + pad
 
-    def x(v):
+    def x_px(v):
+        """The SVG x coordinate of value ``v`` (clipped to the drawn range)."""
         v = min(max(v, a), b)
         return 6 + (width - 12) * (v - a) / (b - a)
 
     geometry = {"width": width, "height": height, "low": f"{low:.4g}", "high": f"{high:.4g}",
                 "middle": height / 2, "right": width - 6, "bottom": height - 2,
-                "limits": [f"{x(lim):.1f}" for lim in (lo_limit, hi_limit) if lim is not None],
-                "bar_x": f"{x(low):.1f}", "bar_y": height / 2 - 5, "bar_width": f"{max(x(high) - x(low), 1):.1f}",
-                "dot_x": f"{x(value):.1f}", "colour": BLUE, "limit_colour": VERMILLION}
+                "limits": [f"{x_px(lim):.1f}" for lim in (lo_limit, hi_limit) if lim is not None],
+                "bar_x": f"{x_px(low):.1f}", "bar_y": height / 2 - 5,
+                "bar_width": f"{max(x_px(high) - x_px(low), 1):.1f}",
+                "dot_x": f"{x_px(value):.1f}", "colour": BLUE, "limit_colour": VERMILLION}
     return macro("sheet_parts.html.j2", "interval_svg")(geometry)
 
 
