@@ -736,6 +736,31 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
     InsufficientDataError
         No target has enough lots (every reason listed).
     """
+    chain, nominal = _checked_arguments(chain, nominal_coverage, n_bootstrap, n_jobs, backend)
+    names = _candidate_names(candidates)
+    created_at = datetime.now(timezone.utc).isoformat(timespec="microseconds")
+    time_min = _time_point(table, dissolution_time_min)
+    data, notes = _prepare(table, chain)
+    groups = lot_groups(table, group_by)
+    group_by = "lot" if groups is None else group_by
+
+    plans, skipped = _plan_targets(data, chain, names, seed, groups, group_by)
+    fitted = _fit_targets(plans, data, table, seed, nominal, n_jobs, progress, backend)
+    out = FittedChain(
+        chain=chain, stages=_fitted_stages(chain, data, fitted, skipped), targets=fitted, skipped=skipped,
+        training={**_training_record(data, chain, table, notes), "dissolution_time_min": time_min,
+                  "group_by": group_by, **({"groups": groups} if groups is not None else {})},
+        library_versions=_library_versions(),
+        seed=int(seed), nominal_coverage=nominal, created_at=created_at,
+    )
+    out.bootstrap = bootstrap_chain(out, data, n_replicates=n_bootstrap, seed=seed)
+    return out
+
+
+def _checked_arguments(chain: ChainSpec | None, nominal_coverage: float, n_bootstrap, n_jobs,
+                       backend: str | None) -> tuple[ChainSpec, float]:
+    """The chain (default :meth:`ChainSpec.default`) and the nominal coverage as a number, once
+    :func:`train_chain`'s arguments have passed their checks (each refusal names the argument)."""
     chain = chain if chain is not None else ChainSpec.default()
     if not isinstance(chain, ChainSpec):
         raise TypeError("chain must be a ChainSpec")
@@ -747,13 +772,13 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
     if not isinstance(n_jobs, int) or n_jobs == 0:
         raise UsageError(f"n_jobs must be a non-zero integer; got {n_jobs}")
     _check_backend(backend)
-    names = _candidate_names(candidates)
-    created_at = datetime.now(timezone.utc).isoformat(timespec="microseconds")
-    time_min = _time_point(table, dissolution_time_min)
-    data, notes = _prepare(table, chain)
-    groups = lot_groups(table, group_by)
-    group_by = "lot" if groups is None else group_by
+    return chain, nominal
 
+
+def _plan_targets(data: pd.DataFrame, chain: ChainSpec, names: list[str], seed: int, groups,
+                  group_by: str) -> tuple[list[_Plan], dict[str, str]]:
+    """The plan of every target that has enough lots, in chain order, and why each other one is skipped;
+    refused (every reason listed) when no target can be trained."""
     plans: list[_Plan] = []
     skipped: dict[str, str] = {}
     for st in chain.stages:
@@ -766,7 +791,13 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
     if not plans:
         raise InsufficientDataError(
             "no attribute can be trained:\n" + "\n".join(f"  - {t}: {why}" for t, why in skipped.items()))
+    return plans, skipped
 
+
+def _fit_targets(plans: list[_Plan], data: pd.DataFrame, table: pd.DataFrame, seed: int, nominal: float,
+                 n_jobs: int, progress, backend: str | None) -> dict[str, FittedTarget]:
+    """Run every plan's fold jobs and full fit, finish each target from them and add its
+    forward-in-time check; by target, in plan order."""
     alpha = 1 - nominal
     jobs = _jobs(plans, seed, alpha)
     results = _run_all(jobs, n_jobs, progress, backend)
@@ -783,7 +814,13 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
         t = fitted[p.target]
         t.forward = forward_check(p, t.selected, t.candidates[t.selected]["rmse"], times, seed=seed, alpha=alpha,
                                   min_train=MIN_LOTS)
+    return fitted
 
+
+def _fitted_stages(chain: ChainSpec, data: pd.DataFrame, fitted: dict[str, FittedTarget],
+                   skipped: dict[str, str]) -> list[FittedStage]:
+    """Each stage of the chain with its fitted and skipped targets and, where it has a fitted target, the
+    applicability domain of its inputs (fitted on the lots with every input)."""
     stages = []
     for st in chain.stages:
         targets = {t: fitted[t] for t in st.targets if t in fitted}
@@ -795,12 +832,4 @@ def train_chain(table: pd.DataFrame, chain: ChainSpec | None = None, *, seed: in
             domain = DomainModel.fit(X[have].reset_index(drop=True), y=Y, alpha=DOMAIN_ALPHA)
         stages.append(FittedStage(name=st.name, inputs=list(st.inputs), targets=targets, domain=domain,
                                   skipped={t: skipped[t] for t in st.targets if t in skipped}))
-    out = FittedChain(
-        chain=chain, stages=stages, targets=fitted, skipped=skipped,
-        training={**_training_record(data, chain, table, notes), "dissolution_time_min": time_min,
-                  "group_by": group_by, **({"groups": groups} if groups is not None else {})},
-        library_versions=_library_versions(),
-        seed=int(seed), nominal_coverage=nominal, created_at=created_at,
-    )
-    out.bootstrap = bootstrap_chain(out, data, n_replicates=n_bootstrap, seed=seed)
-    return out
+    return stages
