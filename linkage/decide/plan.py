@@ -676,18 +676,29 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
     held = {**held_ribbon, **{k: v["value"] for k, v in window.settings.items()
                               if k not in inputs and k not in lean.targets}}
     cand, Xc, eps_c, pool, notes = _candidates(stage, inputs, full, held_ribbon, n_candidates, n, seed)
+    chosen, edge_list, crit, method = _chosen_lots(criterion, chain, lean, table, spec, window, inputs, Xc, eps_c,
+                                                   pool, n, confidence, seed, edges, notes)
+    return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes, full, seed,
+                      prefix, product, method)
 
+
+def _chosen_lots(criterion, chain, lean, table, spec, window, inputs, Xc, eps_c, pool, n, confidence, seed, edges,
+                 notes: list[str]):
+    """The candidates :func:`augment_design` chooses by ``criterion``, with the edges they inform, the
+    criterion's record and the method's text; ``thompson`` and ``cover`` fall back to the local criterion where
+    they cannot plan. Every note (the fallback's too) is appended to ``notes``."""
+    porosity_range = chain.training["ranges"][POROSITY]
     if criterion == "thompson":
-        got = _thompson_choice(chain, table, spec, window, eps_c, pool, n, confidence, training[POROSITY], seed)
+        got = _thompson_choice(chain, table, spec, window, eps_c, pool, n, confidence, porosity_range, seed)
         if got is None:
             notes.append("no bootstrap replicates, or no porosity edge that the replicates can place: planned by "
                          "the local criterion instead")
         else:
             chosen, edge_list, crit, more = got
-            return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes + more,
-                              full, seed, prefix, product, THOMPSON_METHOD)
+            notes += more
+            return chosen, edge_list, crit, THOMPSON_METHOD
     if criterion == "cover":
-        got = _cover_choice(window, table.dropna(subset=[POROSITY, *inputs]), training[POROSITY], eps_c, pool, n)
+        got = _cover_choice(window, table.dropna(subset=[POROSITY, *inputs]), porosity_range, eps_c, pool, n)
         if got is None:
             notes.append("the point estimate of P(all pass) reaches the confidence nowhere: no window to spread "
                          "the lots over; planned by the local criterion instead")
@@ -697,17 +708,19 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
             chosen, edge_list, crit = got
             notes.append("planned for the porosity edges only: criterion cover does not plan for the roll force "
                          "edges (--criterion local does)")
-            return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes,
-                              full, seed, prefix, product, COVER_METHOD)
+            return chosen, edge_list, crit, COVER_METHOD
     if criterion == "target":
         chosen, edge_list, crit, more = _target_choice(chain, table, spec, window, eps_c, pool, n, confidence,
-                                                       training[POROSITY], seed)
+                                                       porosity_range, seed)
         notes += more
-        return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes,
-                          full, seed, prefix, product, TARGET_METHOD)
+        return chosen, edge_list, crit, TARGET_METHOD
+    return _local_lots(window, table, inputs, lean, porosity_range, edges, Xc, eps_c, pool, n, notes)
 
-    # the edges and their local linear models, started on the existing lots
-    models, edge_notes = edge_models(window, table, inputs, lean.medians, training[POROSITY], edges)
+
+def _local_lots(window, table, inputs, lean, porosity_range, edges, Xc, eps_c, pool, n, notes: list[str]):
+    """The local criterion's choice (the I-optimal augmentation of the module notes): the edges and their local
+    linear models, started on the existing lots, then the greedy choice; its edge notes appended to ``notes``."""
+    models, edge_notes = edge_models(window, table, inputs, lean.medians, porosity_range, edges)
     notes += edge_notes
     chosen = _local_choice(models, eps_c, Xc, pool, n)
     edge_list = [{"name": em.name, "kind": kind, "value": em.value, "where": em.where,
@@ -715,9 +728,7 @@ def augment_design(chain, table, spec, n_lots: int = 8, *, ranges: dict[str, tup
     crit = {"before": float(len(models)), "after": float(sum(em.relative for em, _ in models)),
             "rule": "sum over the edges of each edge's variance of the local linear fit relative to the "
                     "existing lots alone"}
-    return _augmented(chain, lean, table, cand, inputs, held, eps_c, chosen, edge_list, crit, notes, full, seed,
-                      prefix, product, "I-optimal augmentation of local linear models weighted to the window's "
-                      "edges (greedy)")
+    return chosen, edge_list, crit, LOCAL_METHOD
 
 
 def _porosity_edge_models(por_edges, known, porosity_range) -> list:
@@ -830,6 +841,7 @@ def _local_choice(models, eps_c, Xc, pool, n) -> list[tuple[int, str]]:
 CRITERIA = PLAN_CRITERIA
 THOMPSON_METHOD = ("each lot at the window edge of one bootstrap replicate: quantiles of the replicates' porosity "
                    "edges (bootstrapped Thompson sampling)")
+LOCAL_METHOD = "I-optimal augmentation of local linear models weighted to the window's edges (greedy)"
 TARGET_METHOD = ("lots where the bootstrap replicates of P(all pass) straddle the confidence: weighted integrated "
                  "variance of P near the window's porosity edges (Picheny et al. 2010; greedy)")
 
