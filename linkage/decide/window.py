@@ -228,30 +228,16 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     columns = {k: frame[k].to_numpy(float) for k in frame.columns}  # the grid's settings, as simulated
     chain_p, p_all_low, p_all_pointwise, p_each_low, band_level = _bound_curves(
         lean, spec, columns, limited, p_all, p_each, confidence, assurance, seed)
-    point_low, point_high = _widest(grid, p_all, p_each, confidence)
-    if p_all_low is not None:
-        low_edge, high_edge = _widest(grid, p_all_low, p_each_low, confidence)
-        segments = _segments(grid, p_all_low, confidence)
-    else:
-        low_edge, high_edge = point_low, point_high
-        segments = _segments(grid, p_all, confidence)
+    point_low, point_high, low_edge, high_edge, segments = _window_edges(grid, p_all, p_each, p_all_low,
+                                                                         p_each_low, confidence)
     bound = _bound_record(lean, chain_p, assurance, band_level)
     mean_idx = np.flatnonzero(mean_ok)
     mean_low = float(grid[mean_idx[0]]) if len(mean_idx) else None
     mean_high = float(grid[mean_idx[-1]]) if len(mean_idx) else None
 
     bands = _draw_bands(draws, limited, confidence)
-    force = roll_force_range(chain, low_edge.value, high_edge.value, settings=roots,
-                             confidence=confidence, seed=seed)
-    force = chain_force_range(lean, spec, settings=roots, confidence=confidence, assurance=assurance,
-                              seed=seed, in_window=force, force_range=tuple(chain.training["ranges"][FORCE])
-                              if FORCE in chain.training["ranges"] and chain.training["ranges"][FORCE] else None)
-    if low_edge.value is None and force.get("low") is None:
-        force["reason"] = "no porosity window to translate"
-    ribbon = next((s for s in lean.stages if POROSITY in s.targets), None)
-    pooled = pooled_compactors(getattr(chain, "training", None), ribbon.inputs if ribbon is not None else ())
-    if pooled:
-        force["compactors"], force["compactors_note"] = pooled
+    force = _window_roll_force(chain, lean, spec, roots, low_edge.value, high_edge.value, confidence, assurance,
+                               seed)
     domain = window_domain(chain, draws, grid, low_edge.value, high_edge.value, force)
     if not bound["available"]:
         domain["promise"] = False
@@ -260,13 +246,12 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
               else float(chain.training["medians"].get(POROSITY) or (lo + hi) / 2))
     held_at = held_point(lean, {**values, POROSITY: middle,
                                 **{k: v for k, v in settings.items() if k in produced}})
-    used = {k: {"value": float(v), "source": source[k]} for k, v in sorted(values.items())}
-    used.update({k: {"value": float(settings[k]), "source": "given"} for k in settings if k in produced})
     return WindowResult(
         model_id=getattr(chain, "model_id", None) or "unsaved",
         confidence=confidence, data_range=(lo, hi), low=low_edge, high=high_edge,
         mean_low=mean_low, mean_high=mean_high,
-        segments=[s[1] for s in segments], settings=used, attributes=attributes,
+        segments=[s[1] for s in segments], settings=_used_settings(values, source, settings, produced),
+        attributes=attributes,
         not_modelled=not_modelled, roll_force=force, grid=grid, p_all=p_all, p_each=p_each,
         bands=bands, mean_ok=mean_ok, n_draws=n_draws, seed=seed,
         promise=domain["promise"], promise_reasons=domain["reasons"], in_domain=domain["in_domain"],
@@ -279,6 +264,45 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
         held_point=held_at,
         not_modelled_reasons={a: GIVEN_NOT_JUDGED if a in settings else NOT_FROM_POROSITY for a in not_modelled},
     )
+
+
+def _window_edges(grid, p_all, p_each, p_all_low, p_each_low, confidence: float):
+    """The point estimate's widest window (low, high), then the window's own edges and segments: those of the
+    lower bound where there is one, else the point estimate's."""
+    point_low, point_high = _widest(grid, p_all, p_each, confidence)
+    if p_all_low is not None:
+        low_edge, high_edge = _widest(grid, p_all_low, p_each_low, confidence)
+        segments = _segments(grid, p_all_low, confidence)
+    else:
+        low_edge, high_edge = point_low, point_high
+        segments = _segments(grid, p_all, confidence)
+    return point_low, point_high, low_edge, high_edge, segments
+
+
+def _window_roll_force(chain, lean, spec, roots: dict, low: float | None, high: float | None, confidence: float,
+                       assurance: float, seed: int) -> dict:
+    """The window's roll force record: the forces whose lot-mean porosity lands in the window (``low``,
+    ``high``), the whole chain's range at the bound beside it, why there is none, and the compactors pooled
+    in the ribbon stage's fit."""
+    force = roll_force_range(chain, low, high, settings=roots, confidence=confidence, seed=seed)
+    force = chain_force_range(lean, spec, settings=roots, confidence=confidence, assurance=assurance,
+                              seed=seed, in_window=force, force_range=tuple(chain.training["ranges"][FORCE])
+                              if FORCE in chain.training["ranges"] and chain.training["ranges"][FORCE] else None)
+    if low is None and force.get("low") is None:
+        force["reason"] = "no porosity window to translate"
+    ribbon = next((s for s in lean.stages if POROSITY in s.targets), None)
+    pooled = pooled_compactors(getattr(chain, "training", None), ribbon.inputs if ribbon is not None else ())
+    if pooled:
+        force["compactors"], force["compactors_note"] = pooled
+    return force
+
+
+def _used_settings(values: dict, source: dict, settings: dict, produced: set) -> dict:
+    """Each setting the window was found at, with its value and where it came from (given, or how it was
+    held); a given value of a modelled attribute is marked given."""
+    used = {k: {"value": float(v), "source": source[k]} for k, v in sorted(values.items())}
+    used.update({k: {"value": float(settings[k]), "source": "given"} for k in settings if k in produced})
+    return used
 
 
 def _scan_frame(chain, settings: dict, produced: set, grid: np.ndarray):
