@@ -271,6 +271,31 @@ def _edge_of_nip(physics: RibbonPhysics, roll_gap_mm: float, roll_diameter_mm: f
             f"(S/D < {safe:.3g})")
 
 
+def _checked_targets(roll_diameter_mm: float, roll_width_mm: float, roll_gap_mm: float, porosity: float | None,
+                     window: tuple[float, float] | None, level: float) -> tuple[list[float], str]:
+    """The target porosities of :func:`transfer` (the one porosity, or the window's two ends) and which kind
+    they are (``porosity``, ``window``), once its arguments have passed their checks (each refusal says which)."""
+    from linkage.exceptions import UsageError
+
+    if (porosity is None) == (window is None):
+        raise UsageError("give either a target porosity or a porosity window, not both and not neither")
+    for name, value in (("roll diameter", roll_diameter_mm), ("roll width", roll_width_mm), ("gap", roll_gap_mm)):
+        if not (np.isfinite(value) and value > 0):
+            raise UsageError(f"the {name} must be a positive number of mm; got {value!r}")
+    if window is not None:
+        lo, hi = window
+        if not 0 < lo < hi < 1:
+            raise UsageError(f"the porosity window needs 0 < LOW < HIGH < 1; got {lo!r}:{hi!r}")
+        targets, kind = [float(lo), float(hi)], "window"
+    else:
+        if not 0 < porosity < 1:
+            raise UsageError(f"the target porosity must lie in (0, 1); got {porosity!r}")
+        targets, kind = [float(porosity)], "porosity"
+    if not 0 < level < 1:
+        raise UsageError(f"the interval level must lie in (0, 1); got {level!r}")
+    return targets, kind
+
+
 def transfer(physics: RibbonPhysics, *, roll_diameter_mm: float, roll_width_mm: float, roll_gap_mm: float,
              porosity: float | None = None, window: tuple[float, float] | None = None, level: float = 0.95,
              n_draws: int = 4000, seed: int = 0) -> Transfer:
@@ -301,23 +326,7 @@ def transfer(physics: RibbonPhysics, *, roll_diameter_mm: float, roll_width_mm: 
     """
     from linkage.exceptions import UsageError
 
-    if (porosity is None) == (window is None):
-        raise UsageError("give either a target porosity or a porosity window, not both and not neither")
-    for name, value in (("roll diameter", roll_diameter_mm), ("roll width", roll_width_mm), ("gap", roll_gap_mm)):
-        if not (np.isfinite(value) and value > 0):
-            raise UsageError(f"the {name} must be a positive number of mm; got {value!r}")
-    if window is not None:
-        lo, hi = window
-        if not 0 < lo < hi < 1:
-            raise UsageError(f"the porosity window needs 0 < LOW < HIGH < 1; got {lo!r}:{hi!r}")
-        targets, kind = [float(lo), float(hi)], "window"
-    else:
-        if not 0 < porosity < 1:
-            raise UsageError(f"the target porosity must lie in (0, 1); got {porosity!r}")
-        targets, kind = [float(porosity)], "porosity"
-    if not 0 < level < 1:
-        raise UsageError(f"the interval level must lie in (0, 1); got {level!r}")
-
+    targets, kind = _checked_targets(roll_diameter_mm, roll_width_mm, roll_gap_mm, porosity, window, level)
     rng = np.random.default_rng(seed)
     draws = rng.multivariate_normal(physics.log_params, physics.log_covariance, size=n_draws, method="svd")
     k_draw, c_draw = np.exp(draws[:, 0]), np.exp(draws[:, 1])
