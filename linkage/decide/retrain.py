@@ -327,9 +327,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     from linkage.assemble import assemble, check_dissolution_time
     from linkage.models import registry
     from linkage.models.train import train_chain
-    from linkage.products import others_text
-    from linkage.store import (LotStore, current_tables_of, reading, refuse_unanchored, restored_since_training,
-                               set_aside_notes)
+    from linkage.store import current_tables_of, reading, refuse_unanchored, set_aside_notes
 
     if not 0 <= tolerance < 1:
         raise UsageError(f"tolerance must lie in [0, 1); got {tolerance}")
@@ -346,24 +344,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
     q = spec.limits["dissolution_pct"].min if spec is not None and "dissolution_pct" in spec.limits else None
     check_dissolution_time(tables, time_min)
     table = assemble(tables, dissolution_time_min=time_min, dissolution_q_pct=q)
-    seen = set(champion.training["lots"])
-    new_lots = [lot for lot in table["lot"].astype(str) if lot not in seen]
-    notes = []
-    if others:  # not new lots of the champion's product: not fitted on, not counted
-        notes.append(f"the store's {others_text(others)} are left out: the champion is a model of {product!r} "
-                     "and the challenger is fitted on its lots only")
-    if not new_lots:
-        notes.append(_no_new_lots_note(tables.set_aside, champion, force))
-    restored = restored_since_training(champion, new_lots, notes, "new since the champion")
-    from linkage.decide.watch import revised_since_training
-
-    revised = revised_since_training(stored_lots, champion.training["lots"], champion.created_at)
-    if revised:  # the challenger is fitted on their values now stored, the champion was on the earlier ones
-        notes.append(f"{len(revised)} of the champion's training lots were revised after it was trained ("
-                     + ", ".join(f"{r['lot']} revision {r['revision']}" for r in revised[:12])
-                     + (" …" if len(revised) > 12 else "") + "): the champion was fitted on their earlier values, "
-                     "the challenger on the values now stored; they are not new lots, so the prospective "
-                     "comparison does not judge them")
+    new_lots, notes, restored = _new_lots_and_notes(champion, table, tables, stored_lots, others, product, force)
     if len(table) < 3:
         raise InsufficientDataError(f"{len(table)} lots in the store; retraining needs at least 3")
     alarmed = _alarmed(champion, table)
@@ -389,21 +370,58 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
         comparisons=comparisons, window_moved=moved, notes=notes, product=product, alarmed_lots=alarmed,
         set_aside_lots=aside[0], set_aside_in_training=aside[1], restored_since_training=restored,
     )
-    # two phases (registry.begin_decision): the audit row's commit is the decision
+    _record_decision(store_path, models_dir, decision, user)
+    return decision
+
+
+def _new_lots_and_notes(champion, table: pd.DataFrame, tables, stored_lots, others, product: str | None,
+                        force: bool) -> tuple[list[str], list[str], list[str]]:
+    """The lots of ``table`` new since the champion, the notes on the lots (another product's left out, no new
+    lot, lots restored or revised since the champion was trained), and the new lots restored since then."""
+    from linkage.decide.watch import revised_since_training
+    from linkage.products import others_text
+    from linkage.store import restored_since_training
+
+    seen = set(champion.training["lots"])
+    new_lots = [lot for lot in table["lot"].astype(str) if lot not in seen]
+    notes = []
+    if others:  # not new lots of the champion's product: not fitted on, not counted
+        notes.append(f"the store's {others_text(others)} are left out: the champion is a model of {product!r} "
+                     "and the challenger is fitted on its lots only")
+    if not new_lots:
+        notes.append(_no_new_lots_note(tables.set_aside, champion, force))
+    restored = restored_since_training(champion, new_lots, notes, "new since the champion")
+    revised = revised_since_training(stored_lots, champion.training["lots"], champion.created_at)
+    if revised:  # the challenger is fitted on their values now stored, the champion was on the earlier ones
+        notes.append(f"{len(revised)} of the champion's training lots were revised after it was trained ("
+                     + ", ".join(f"{r['lot']} revision {r['revision']}" for r in revised[:12])
+                     + (" …" if len(revised) > 12 else "") + "): the champion was fitted on their earlier values, "
+                     "the challenger on the values now stored; they are not new lots, so the prospective "
+                     "comparison does not judge them")
+    return new_lots, notes, restored
+
+
+def _record_decision(store_path, models_dir, decision: RetrainDecision, user: str | None) -> None:
+    """Record the decision in two phases (:func:`linkage.models.registry.begin_decision`): pending in the
+    registry, then the audit row (``promote`` or ``retrain``), whose commit is the decision; the registry's
+    entry is settled either way, and a refused audit row is raised again."""
+    from linkage.models import registry
+    from linkage.store import LotStore
+
     decision_id = registry.begin_decision(models_dir, decision.to_dict())
     try:
         with LotStore(store_path, create=False, for_writing=True) as store:
-            store.log("promote" if promote else "retrain", user=user, model_id=challenger_id,
-                      inputs={"champion": champion.model_id, "product": product, "force": force,
-                              "reason": decision.reason,
-                              "tolerance": tolerance, "new_lots": new_lots, "decision_id": decision_id,
-                              "alarmed_lots": alarmed},
-                      outputs={"promoted": promote, "reasons": reasons, "window_moved": moved})
+            store.log("promote" if decision.promoted else "retrain", user=user, model_id=decision.challenger_id,
+                      inputs={"champion": decision.champion_id, "product": decision.product,
+                              "force": decision.forced, "reason": decision.reason,
+                              "tolerance": decision.tolerance, "new_lots": decision.new_lots,
+                              "decision_id": decision_id, "alarmed_lots": decision.alarmed_lots},
+                      outputs={"promoted": decision.promoted, "reasons": decision.reasons,
+                               "window_moved": decision.window_moved})
     except LinkageError:
         registry.settle_decision(models_dir, decision_id, recorded=False)
         raise
     registry.settle_decision(models_dir, decision_id, recorded=True)
-    return decision
 
 
 def settle_pending(store_path, models_dir) -> list[tuple[str, str]]:
