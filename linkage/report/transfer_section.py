@@ -68,7 +68,7 @@ def transfer_section(b, table, window=None, *, seed: int = 0, trained_on=None, t
         from linkage.models.fitted import trained_mask
 
         trained_on = partial(trained_mask, training_lots=list(trained))
-    from linkage.decide.transfer import fit_ribbon_physics, transfer
+    from linkage.decide.transfer import fit_ribbon_physics
     from linkage.exceptions import LinkageError
     from linkage.report import figures as F
     from linkage.report.html import _part, table_html
@@ -108,6 +108,26 @@ def transfer_section(b, table, window=None, *, seed: int = 0, trained_on=None, t
                  f"scatter about them).")
 
     targets, which = _targets(window, t)
+    rows, extrapolated, refused = _force_rows(physics, t, targets, seed)
+    b.add(_part("sections", "transfer_rolls", which=which, rolls=SCALE_UP_ROLLS, label=EXAMPLE_LABEL,
+                command=_command(targets, gap)))
+    b.add(table_html(["rolls", "diameter [mm]", "width [mm]", "gap [mm]", "porosity [-]", "force [kN/cm]",
+                  "95 % interval [kN/cm]", "total [kN]", "P max [MPa]"], rows,
+                 num_cols={1, 2, 3, 4, 5, 6, 7, 8}))
+    for text in refused:
+        b.note(f"No force for the rolls {text}")
+    if extrapolated:
+        b.add(_part("sections", "transfer_extrapolated"))
+    b.add(_part("sections", "transfer_leaves_out", text=LEAVES_OUT))
+
+
+def _force_rows(physics, t, targets: list[float], seed: int) -> tuple[list[list[str]], bool, list[str]]:
+    """The rows of the section's force table, one per set of rolls (:func:`_rolls`) and target porosity; whether
+    any force lies outside the lots' peak pressures (extrapolated, marked ``*``); and the rolls the theory gives
+    no force for, each with why (said in the section, not fatal)."""
+    from linkage.decide.transfer import transfer
+    from linkage.exceptions import LinkageError
+
     rows = []
     extrapolated = False
     refused = []
@@ -129,13 +149,4 @@ def transfer_section(b, table, window=None, *, seed: int = 0, trained_on=None, t
                          f"{lo:.2f}–{hi:.2f}",
                          f"{r['roll_force_kn']:.0f}" if np.isfinite(width) else "—",
                          f"{r['peak_pressure_mpa']:.0f}"])
-    b.add(_part("sections", "transfer_rolls", which=which, rolls=SCALE_UP_ROLLS, label=EXAMPLE_LABEL,
-                command=_command(targets, gap)))
-    b.add(table_html(["rolls", "diameter [mm]", "width [mm]", "gap [mm]", "porosity [-]", "force [kN/cm]",
-                  "95 % interval [kN/cm]", "total [kN]", "P max [MPa]"], rows,
-                 num_cols={1, 2, 3, 4, 5, 6, 7, 8}))
-    for text in refused:
-        b.note(f"No force for the rolls {text}")
-    if extrapolated:
-        b.add(_part("sections", "transfer_extrapolated"))
-    b.add(_part("sections", "transfer_leaves_out", text=LEAVES_OUT))
+    return rows, extrapolated, refused
