@@ -337,7 +337,7 @@ def verify(ctx, store, models_dir, as_json, reanchor, reason):
     """
     from linkage.cli.common import MODELS_ENV
     from linkage.exceptions import UsageError
-    from linkage.integrity import NOT_CHECKED_UNSEALED, counted, verify_record
+    from linkage.integrity import verify_record
     from linkage.store import REANCHOR_NEEDS_REASON, given_reason
 
     if reanchor and given_reason(reason) is None:
@@ -351,44 +351,53 @@ def verify(ctx, store, models_dir, as_json, reanchor, reason):
     if as_json:
         click.echo(json.dumps(result.to_dict(), indent=2))
     else:
-        counts = result.store_counts
-        newest = counts.get("newest seal", {})
-        unsealed = bool(counts) and newest.get("id") is None  # schema 1, before seals: nothing to check them by
-        if counts:
-            checked = ", ".join(counted(v, k) for k, v in counts.items()
-                                if k != "newest seal" and not (unsealed and k in NOT_CHECKED_UNSEALED))
-            click.echo(f"Lot store {store}: {checked}; " + ("no seals (written before seals)"
-                       if unsealed else f"newest seal {newest.get('id')} sha256 {newest.get('sha256')}"))
-        if result.models_not_checked:
-            click.echo(f"Model registry {models_dir}: not checked ({result.models_not_checked}; "
-                       "give --models-dir to check one)")
-        else:
-            click.echo(f"Model registry {models_dir}: {counted(result.models_checked, 'models')} checked")
-        for name in result.models_unregistered:
-            click.echo(f"  not registered: {name} (a folder the registry index does not hold; never loaded; "
-                       "'linkage models --import' registers a model folder copied in)")
-        for p in result.store_problems:
-            click.echo(f"  store: {p}", err=True)
-        for p in result.model_problems:
-            click.echo(f"  model: {p}", err=True)
-        for p in result.store_cautions:
-            click.echo(f"  caution, store: {p}", err=True)
-        if result.reanchored:
-            done = result.reanchored
-            click.echo(f"Anchored again: audit entry {done['audit_id']} 'reanchor' records who, when, why and the "
-                       f"newest seal this check found (seal {done['checked_seal']['id']}, sha256 "
-                       f"{done['checked_seal']['sha256']}); the anchor file names its own seal {done['anchor']['id']} "
-                       f"(sha256 {done['anchor']['sha256']}). Record this hash outside the store.")
-        if not result.ok:
-            click.echo("The record is NOT whole.")
-        elif unsealed:  # no claim of a check that was not made
-            click.echo("The lot tables match their content hashes; the store has no seals, so nothing else of it "
-                       "could be checked (see the caution above)." + (" The models match their hashes."
-                                                                     if result.models_checked else ""))
-        else:
-            click.echo("Everything matches its seals and hashes." + (" (see the caution above)"
-                                                                      if result.store_cautions else ""))
+        _echo_verify(result, store, models_dir)
     if result.store_problems:
         raise SystemExit(6)
     if result.model_problems:
         raise SystemExit(4)
+
+
+def _echo_verify(result, store, models_dir) -> None:
+    """The text of ``linkage verify``: what was checked in the store and the registry with the newest seal's
+    hash, the models not registered, every problem and caution (on stderr), a reanchoring, and the verdict,
+    which claims no check that was not made."""
+    from linkage.integrity import NOT_CHECKED_UNSEALED, counted
+
+    counts = result.store_counts
+    newest = counts.get("newest seal", {})
+    unsealed = bool(counts) and newest.get("id") is None  # schema 1, before seals: nothing to check them by
+    if counts:
+        checked = ", ".join(counted(v, k) for k, v in counts.items()
+                            if k != "newest seal" and not (unsealed and k in NOT_CHECKED_UNSEALED))
+        click.echo(f"Lot store {store}: {checked}; " + ("no seals (written before seals)"
+                   if unsealed else f"newest seal {newest.get('id')} sha256 {newest.get('sha256')}"))
+    if result.models_not_checked:
+        click.echo(f"Model registry {models_dir}: not checked ({result.models_not_checked}; "
+                   "give --models-dir to check one)")
+    else:
+        click.echo(f"Model registry {models_dir}: {counted(result.models_checked, 'models')} checked")
+    for name in result.models_unregistered:
+        click.echo(f"  not registered: {name} (a folder the registry index does not hold; never loaded; "
+                   "'linkage models --import' registers a model folder copied in)")
+    for p in result.store_problems:
+        click.echo(f"  store: {p}", err=True)
+    for p in result.model_problems:
+        click.echo(f"  model: {p}", err=True)
+    for p in result.store_cautions:
+        click.echo(f"  caution, store: {p}", err=True)
+    if result.reanchored:
+        done = result.reanchored
+        click.echo(f"Anchored again: audit entry {done['audit_id']} 'reanchor' records who, when, why and the "
+                   f"newest seal this check found (seal {done['checked_seal']['id']}, sha256 "
+                   f"{done['checked_seal']['sha256']}); the anchor file names its own seal {done['anchor']['id']} "
+                   f"(sha256 {done['anchor']['sha256']}). Record this hash outside the store.")
+    if not result.ok:
+        click.echo("The record is NOT whole.")
+    elif unsealed:  # no claim of a check that was not made
+        click.echo("The lot tables match their content hashes; the store has no seals, so nothing else of it "
+                   "could be checked (see the caution above)." + (" The models match their hashes."
+                                                                 if result.models_checked else ""))
+    else:
+        click.echo("Everything matches its seals and hashes." + (" (see the caution above)"
+                                                                  if result.store_cautions else ""))
