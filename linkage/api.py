@@ -1230,6 +1230,63 @@ def _running_window(fitted, lean, spec, held: dict, seed: int, assurance: float)
     return found.low.value, found.high.value
 
 
+def _check_running(spec, window, adjust: str, baseline: int) -> None:
+    """The usage checks of :func:`running`: the window given one way (``window`` or ``spec``), inside (0, 1),
+    an adjustable setting, a baseline of 2 samples or more."""
+    from linkage.decide import running as guide
+    from linkage.exceptions import UsageError
+
+    if (spec is None) == (window is None):
+        raise UsageError("give the porosity window: --window LOW:HIGH or --spec spec.toml (one of them)")
+    if window is not None:
+        low, high = (float(v) for v in window)
+        if not 0 < low < high < 1:
+            raise UsageError(f"--window must be LOW:HIGH with 0 < LOW < HIGH < 1 (porosity fractions); got "
+                             f"{low:g}:{high:g}")
+    if adjust not in guide.ADJUSTABLE:
+        raise UsageError(f"--adjust must be one of {', '.join(guide.ADJUSTABLE)}; got {adjust!r}")
+    if baseline < 2:
+        raise UsageError(f"--baseline must be at least 2 samples; got {baseline}")
+
+
+def _running_settings(lean, from_process: dict[str, float],
+                      given: dict[str, float]) -> tuple[dict[str, float], dict[str, str]]:
+    """The running lot's settings: its process row's that the model takes, then the given ones (which win);
+    the ribbon stage's other inputs held as every command holds them (coherently with the given settings),
+    with how each was held."""
+    from linkage.decide import running as guide
+
+    known = set(lean.root_inputs())
+    values = {k: v for k, v in from_process.items() if k in known}
+    values.update(given)
+    target = lean.targets[guide.POROSITY]
+    held: dict[str, str] = {}
+    missing = [k for k in target.inputs if k not in values]
+    if missing:  # held as every command holds them (coherently with the given settings)
+        from linkage.decide.propagate import fill_settings
+
+        filled, sources = fill_settings(lean, {k: v for k, v in values.items() if k in known})
+        values.update({k: float(filled[k]) for k in missing})
+        held = {k: sources[k] for k in missing}
+    return values, held
+
+
+def _stored_ribbon(store) -> tuple:
+    """The store's current tables (the lots in use) and their ribbon table, an empty one when the store holds
+    none: the training lots' within-lot spread of :func:`running`."""
+    from linkage.store import reading
+
+    with reading(store) as s:  # an older store read as it is: upgraded only by the record below
+        stored = s.current_tables()  # the lots in use: a lot set aside is left out of the within-lot spread
+        ribbon = stored.get("ribbon")
+    if ribbon is None:
+        import pandas as pd
+
+        ribbon = pd.DataFrame(columns=["lot", "sample", "envelope_density_g_cm3", "skeletal_density_g_cm3",
+                                       "sampled_at"])
+    return stored, ribbon
+
+
 def running(samples, *, settings: Mapping[str, float] | None = None, process=None, spec=None,
             window: tuple[float, float] | None = None, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR,
             model="latest", adjust: str = "roll_force_kn_per_cm", baseline: int = 5,
@@ -1249,20 +1306,9 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
     store, which is still read (the training lots' within-lot SD), so it must exist either way."""
     from linkage.decide import running as guide
     from linkage.decide.whatif import check_values
-    from linkage.exceptions import InputError, UsageError
-    from linkage.store import reading
+    from linkage.exceptions import InputError
 
-    if (spec is None) == (window is None):
-        raise UsageError("give the porosity window: --window LOW:HIGH or --spec spec.toml (one of them)")
-    if window is not None:
-        low, high = (float(v) for v in window)
-        if not 0 < low < high < 1:
-            raise UsageError(f"--window must be LOW:HIGH with 0 < LOW < HIGH < 1 (porosity fractions); got "
-                             f"{low:g}:{high:g}")
-    if adjust not in guide.ADJUSTABLE:
-        raise UsageError(f"--adjust must be one of {', '.join(guide.ADJUSTABLE)}; got {adjust!r}")
-    if baseline < 2:
-        raise UsageError(f"--baseline must be at least 2 samples; got {baseline}")
+    _check_running(spec, window, adjust, baseline)
     # recorded at the end: a store that would refuse the record is refused before the work (a store that does not
     # exist is refused where it is read, after the input problems: it is needed for the within-lot SD)
     will_record = record is not False
@@ -1286,18 +1332,7 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
     lean = _lean(models_dir, model)
     given, bad = _given_settings(settings)
     check_values(lean, given, more=bad)
-    known = set(lean.root_inputs())
-    values = {k: v for k, v in from_process.items() if k in known}
-    values.update(given)
-    target = lean.targets[guide.POROSITY]
-    held: dict[str, str] = {}
-    missing = [k for k in target.inputs if k not in values]
-    if missing:  # held as every command holds them (coherently with the given settings)
-        from linkage.decide.propagate import fill_settings
-
-        filled, sources = fill_settings(lean, {k: v for k, v in values.items() if k in known})
-        values.update({k: float(filled[k]) for k in missing})
-        held = {k: sources[k] for k in missing}
+    values, held = _running_settings(lean, from_process, given)
     if window is None:
         window = _running_window(fitted, lean, spec, {k: v for k, v in values.items() if k != guide.POROSITY},
                                  seed, assurance)
@@ -1305,14 +1340,7 @@ def running(samples, *, settings: Mapping[str, float] | None = None, process=Non
     else:
         source = "given (--window)"
     stage = next(st for st in lean.stages if guide.POROSITY in st.targets)
-    with reading(store) as s:  # an older store read as it is: upgraded only by the record below
-        stored = s.current_tables()  # the lots in use: a lot set aside is left out of the within-lot spread
-        ribbon = stored.get("ribbon")
-    if ribbon is None:
-        import pandas as pd
-
-        ribbon = pd.DataFrame(columns=["lot", "sample", "envelope_density_g_cm3", "skeletal_density_g_cm3",
-                                       "sampled_at"])
+    stored, ribbon = _stored_ribbon(store)
     result = guide.advise(lean, df, values, window, ribbon, stage.residual_lots, lot=lot, window_source=source,
                           adjust=adjust, baseline=baseline, confirm_shift_sd=confirm_shift_sd, alpha=alpha,
                           power=power, held=held)
