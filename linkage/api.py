@@ -1011,21 +1011,10 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     table = assemble_table(tables, **_time_and_q(spec, model_time_point(chain)[0]))  # the model's time point
     out = Path(out) if out is not None else Path("reports") / f"report-{chain.model_id}.html"
     found = window.result if isinstance(window, Window) else window
-    space, reused = None, {}
     registered = model is None or isinstance(model, str)  # loaded from the registry and checked: results kept
-    if spec is not None:  # what `linkage window` / `linkage space` (or an earlier report) computed, reused
-        # the defaults of `linkage window` and `linkage space`, so that what they kept is found
-        window_args = dict(settings={}, confidence=confidence, n_draws=defaults.WINDOW_DRAWS, seed=seed,
-                           assurance=assurance)
-        space_args = dict(x=defaults.MAP_X, y=defaults.MAP_Y, n_grid=defaults.MAP_GRID, settings={},
-                          confidence=confidence, assurance=assurance, seed=seed)
-        kept = None if found is not None or not registered else _reuse(models_dir, chain.model_id, "window", spec,
-                                                                         **window_args)
-        if kept is not None:
-            found, reused["window"] = kept.result, kept.sentence("the window and its probabilities")
-        kept = _reuse(models_dir, chain.model_id, "space", spec, **space_args) if registered else None
-        if kept is not None:
-            space, reused["space"] = kept.result, kept.sentence("the map and the acceptable ranges")
+    window_args, space_args = _report_result_args(spec, confidence, seed, assurance)
+    found, space, reused = _reused_results(models_dir, chain.model_id, spec, found, registered=registered,
+                                           window_args=window_args, space_args=space_args)
     from linkage.decide import mewma
 
     # the drift watch's designs, simulated by an earlier report (keyed by the simulation's own settings too)
@@ -1041,29 +1030,64 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
                                    curve_draws=REPORT_CURVE_DRAWS, mewma=simulation, plan=plan,
                                    set_aside_rows=None if aside_rows is None
                                    else aside_rows.to_json(orient="records", date_format="iso"),
-                                   window_args=window_args if spec is not None else None,
-                                   space_args=space_args if spec is not None else None)
+                                   window_args=window_args, space_args=space_args)
     kept_figures = _reuse_key(models_dir, chain.model_id, "figures", figures_key)
     rendered = render_report(chain, table, spec=spec, window=found, lots=lots, confidence=confidence, seed=seed,
                              curve_draws=REPORT_CURVE_DRAWS, assurance=assurance, plan=plan, space=space,
                              reused=reused, kept_figures=kept_figures, other_lots=others,
                              store_cautions=store_cautions, set_aside=tables.set_aside, set_aside_rows=aside_rows,
                              origin=origin)
-    if "mewma" in rendered.computed:
-        _keep(models_dir, chain.model_id, "mewma", None,
-              (designs.result if designs is not None else []) + rendered.computed["mewma"], "linkage report",
-              **simulation)
-    if "window" in rendered.computed and registered:
-        _keep(models_dir, chain.model_id, "window", spec, rendered.computed["window"], "linkage report",
-              **window_args)
-    if "space" in rendered.computed and registered:
-        _keep(models_dir, chain.model_id, "space", spec, rendered.computed["space"], "linkage report", **space_args)
-    if "figures" in rendered.computed and figures_key is not None:
+    _keep_report_results(models_dir, chain.model_id, spec, rendered, registered=registered,
+                         designs=[] if designs is None else designs.result, simulation=simulation,
+                         window_args=window_args, space_args=space_args, figures_key=figures_key)
+    return Path(write_report(rendered, out))
+
+
+def _report_result_args(spec, confidence: float, seed: int, assurance: float) -> tuple[dict | None, dict | None]:
+    """The arguments under which ``linkage window`` and ``linkage space`` keep their results (their defaults), so
+    that a report finds what they kept; ``(None, None)`` without a spec (no window, no map)."""
+    if spec is None:
+        return None, None
+    window_args = dict(settings={}, confidence=confidence, n_draws=defaults.WINDOW_DRAWS, seed=seed,
+                       assurance=assurance)
+    space_args = dict(x=defaults.MAP_X, y=defaults.MAP_Y, n_grid=defaults.MAP_GRID, settings={},
+                      confidence=confidence, assurance=assurance, seed=seed)
+    return window_args, space_args
+
+
+def _reused_results(models_dir, model_id: str, spec, found, *, registered: bool, window_args, space_args):
+    """The window (unless one was handed in: ``found``) and the map that ``linkage window``, ``linkage space`` or
+    an earlier report kept beside a registry model under the same arguments, and the report's sentences saying so:
+    ``(window, map, reused)``, each ``None`` where nothing was kept."""
+    space, reused = None, {}
+    if spec is None:
+        return found, space, reused
+    kept = None if found is not None or not registered else _reuse(models_dir, model_id, "window", spec,
+                                                                     **window_args)
+    if kept is not None:
+        found, reused["window"] = kept.result, kept.sentence("the window and its probabilities")
+    kept = _reuse(models_dir, model_id, "space", spec, **space_args) if registered else None
+    if kept is not None:
+        space, reused["space"] = kept.result, kept.sentence("the map and the acceptable ranges")
+    return found, space, reused
+
+
+def _keep_report_results(models_dir, model_id: str, spec, rendered, *, registered: bool, designs: list,
+                         simulation: dict, window_args, space_args, figures_key) -> None:
+    """Keep beside the model what the report computed that a later one can reuse: the drift watch's simulated
+    designs (added to those kept), and for a registry model the window, the map and the figures (issue 20)."""
+    computed = rendered.computed
+    if "mewma" in computed:
+        _keep(models_dir, model_id, "mewma", None, designs + computed["mewma"], "linkage report", **simulation)
+    if "window" in computed and registered:
+        _keep(models_dir, model_id, "window", spec, computed["window"], "linkage report", **window_args)
+    if "space" in computed and registered:
+        _keep(models_dir, model_id, "space", spec, computed["space"], "linkage report", **space_args)
+    if "figures" in computed and figures_key is not None:
         from linkage.models.reuse import save_result
 
-        save_result(models_dir, chain.model_id, "figures", figures_key, rendered.computed["figures"], "linkage report",
+        save_result(models_dir, model_id, "figures", figures_key, computed["figures"], "linkage report",
                     only=True)  # one state of the lots kept: the figures are megabytes
-    return Path(write_report(rendered, out))
 
 
 def _fitted_to_report(models_dir, model, store) -> FittedChain:
