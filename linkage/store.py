@@ -1642,8 +1642,9 @@ class LotStore:
     def decisions_of(self, model_id: str) -> list[dict]:
         """The ``promote`` and ``retrain`` entries naming ``model_id`` as their model, oldest first, as
         :meth:`audit` gives entries: how that model came into service (read in one query, not the whole trail)."""
-        return _audit_dicts(self._read(f"SELECT {_AUDIT_COLUMNS} FROM audit WHERE action IN ('promote', 'retrain') "
-                                       "AND model_id = ? ORDER BY id", (model_id,)))
+        marks = ", ".join("?" * len(DECISION_ACTIONS))
+        return _audit_dicts(self._read(f"SELECT {_AUDIT_COLUMNS} FROM audit WHERE action IN ({marks}) "
+                                       "AND model_id = ? ORDER BY id", (*DECISION_ACTIONS, model_id)))
 
     def _alarm_entries(self, sql: str, lot: str) -> list[tuple]:
         """The entries (rows of ``sql``) that name ``lot`` as flagged by the watch's alarm though the entry is of
@@ -1749,6 +1750,10 @@ def _parse_rows(texts: dict) -> dict:
     parsed = json.loads("[" + ",".join(joined) + "]")
     return {name: parsed[a:b] for name, (a, b) in spans.items()}
 
+
+#: the audit actions that decide how a model came into service (``linkage retrain``'s entries, the challenger's id
+#: as their model id): what :meth:`LotStore.decisions_of` reads and :func:`linkage.report.html.model_origin` takes
+DECISION_ACTIONS = ("promote", "retrain")
 
 #: the columns of an audit entry as :func:`_audit_dicts` reads them
 _AUDIT_COLUMNS = "id, at, user, action, lot, model_id, inputs_json, outputs_json"

@@ -14,7 +14,11 @@ Here too: what :class:`~linkage.store.LotStore` opens a store with (:func:`can_w
 
 :mod:`linkage.store` imports this module and re-exports every name of it. The two need each other: the functions
 here that open a :class:`~linkage.store.LotStore` import it from :mod:`linkage.store` when they are called (a
-function-level import), and the constants both use come from :mod:`linkage.store_schema`.
+function-level import), and the constants both use come from :mod:`linkage.store_schema`. A name re-exported
+is bound twice: to replace one in a test, patch it where its user looks it up (:class:`~linkage.store.LotStore`
+looks up :func:`can_write`, :func:`_reading_uri`, :func:`_wal_beside`, :func:`_damage_of` and
+:func:`older_schema_caution` in :mod:`linkage.store`; the functions here look up their own, except
+:class:`~linkage.store.LotStore` and :func:`backup_copy`, which they take from :mod:`linkage.store` when called).
 """
 
 from __future__ import annotations

@@ -564,8 +564,9 @@ def advise(lean, samples, settings: dict[str, float], window: tuple[float, float
     if slope == 0:
         notes.append(f"the ribbon stage's prediction does not change with {adjust} at these settings")
     else:
+        known = (lo_x, hi_x) if stage.domain is not None else None  # no domain: no training range to judge by
         corr = _suggested_correction(lean, target, values, adjust, step, sens, reps, level, expected, centre_w,
-                                     (lo_x, hi_x), notes)
+                                     known, notes)
     warnings = _warnings(domain, fit, level, expected, corr)
     if domain is None:  # a stage saved without a domain (a model of an older linkage): said, not left silent
         warnings.insert(0, _no_domain_warning(lean.model_id, adjust))
@@ -762,9 +763,10 @@ def _suggested_correction(lean, target, values, adjust, step, sens, reps, level,
     """The setting of ``adjust`` that moves the level to the window's centre (Newton on the ribbon stage, the
     local step where that does not converge), with its uncertainty; appends its caveats to ``notes``. None,
     with a note saying why, where the stage does not move with the setting over the step or at the setting
-    it comes to: there neither the change nor its uncertainty can be computed."""
+    it comes to: there neither the change nor its uncertainty can be computed. ``training_range`` None (a stage
+    saved without a domain) leaves the suggested setting unjudged against it (``training_range`` and
+    ``inside_training_range`` null, no note: the warning says the range is not known)."""
     slope, slope_se = sens["value"], sens["se"]
-    lo_x, hi_x = training_range
 
     def at(x: float) -> dict:
         return {k: np.array([v]) for k, v in dict(values, **{adjust: x}).items()}
@@ -805,9 +807,11 @@ def _suggested_correction(lean, target, values, adjust, step, sens, reps, level,
             "model_porosity": model_new,
             "secant": float(secant), "secant_se": secant_se, "sensitivity_at_suggested": slope_new,
             "newton_converged": bool(converged),
-            "training_range": [float(lo_x), float(hi_x)],
-            "inside_training_range": bool(lo_x <= new <= hi_x)}
-    if not lo_x <= new <= hi_x:
+            "training_range": None if training_range is None else [float(v) for v in training_range],
+            "inside_training_range": None if training_range is None
+            else bool(training_range[0] <= new <= training_range[1])}
+    if training_range is not None and not training_range[0] <= new <= training_range[1]:
+        lo_x, hi_x = training_range
         notes.append(f"the suggested {adjust} {new:.3g} lies outside the training range {lo_x:.3g}–{hi_x:.3g}: "
                      "an extrapolation")
     if slope_se is not None and abs(slope) < 2 * slope_se:

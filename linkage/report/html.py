@@ -576,7 +576,9 @@ def model_origin(audit: list[dict], model_id: str | None) -> dict | None:
     names it (a model of ``linkage train``, or a store that did not record the decision): then nothing is said."""
     if not model_id:
         return None
-    found = [a for a in audit if a.get("action") in ("promote", "retrain") and a.get("model_id") == model_id]
+    from linkage.store import DECISION_ACTIONS
+
+    found = [a for a in audit if a.get("action") in DECISION_ACTIONS and a.get("model_id") == model_id]
     if not found:
         return None
     a = found[-1]

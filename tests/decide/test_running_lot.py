@@ -452,6 +452,11 @@ def test_a_ribbon_stage_saved_without_a_domain_is_said_first_not_passed_over(lab
     monkeypatch.setattr(api, "_lean", without_domain)
     d = json.loads(run(ws, atline, *sets, "--window", "0.25:0.35", "--json", "--no-record").stdout)
     assert d["domain"] is None and said in d["warnings"][0] and d["model_id"] in d["warnings"][0]
+    # the training range is not known, so it neither judges the suggested setting nor is made up from the current
+    # one (it read "outside the training range 8–8: an extrapolation" before a review)
+    assert d["correction"] is not None and d["correction"]["training_range"] is None
+    assert d["correction"]["inside_training_range"] is None
+    assert not any("training range" in n for n in d["notes"])
     lines = run(ws, atline, *sets, "--window", "0.25:0.35", "--no-record").stdout.splitlines()
     table = next(i for i, line in enumerate(lines) if line.startswith("sample "))
     warned = [i for i, line in enumerate(lines) if line.startswith("WARNING:") and said in line]
