@@ -187,8 +187,19 @@ def _link_inputs(X, log_mask) -> np.ndarray:
     mask = np.asarray(log_mask, dtype=bool)
     if not mask.any():
         return X
+    logged = mask.reshape(-1, mask.shape[-1]).any(axis=0)  # the inputs some replicate takes the log of
+    if logged.all():
+        return _logs_where(X, mask)
+    Z = X.copy()  # the others as they are: the log is taken of the logged inputs' columns only (the same values)
+    Z[..., logged] = _logs_where(X[..., logged], mask[..., logged])
+    return Z
+
+
+def _logs_where(X: np.ndarray, mask: np.ndarray) -> np.ndarray:
+    """ln x where ``mask`` (broadcast against X from the right), else x; a value at or below 0 is taken at the
+    smallest positive float (a size or force at or below 0 is outside any law)."""
     with np.errstate(divide="ignore", invalid="ignore"):
-        logs = np.log(np.maximum(X, np.finfo(float).tiny))  # a size or force at or below 0 is outside any law
+        logs = np.log(np.maximum(X, np.finfo(float).tiny))
     return np.where(mask, logs, X)
 
 

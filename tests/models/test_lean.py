@@ -141,3 +141,23 @@ def test_a_value_beyond_its_limit_is_shown_with_the_digits_that_tell_them_apart(
     # Reference: Python's format specification (format(v, ".Ng"), Python Language Reference,
     # "Format Specification Mini-Language"); the rule (4 digits, more until they differ) is ours.
     assert lean._fmt_beyond(value, limit) == (format(value, f".{digits}g"), format(limit, f".{digits}g"))
+
+
+def test_link_inputs_take_the_log_of_the_logged_columns_only_with_the_same_values():
+    """``_link_inputs`` takes ln x only in the columns some replicate logs (it took the log of every input of
+    the map's B × rows × inputs stacks and kept the logged ones): the result is numpy's own
+    ``where(mask, log(max(x, tiny)), x)`` over the whole array, element for element, for one mask or one per
+    replicate, with values at or below zero (reference: numpy's log and where on the same array)."""
+    import numpy as np
+
+    from linkage.models.lean import _link_inputs
+
+    rng = np.random.default_rng(7)
+    for shape, mask_shape in [((40, 6), (6,)), ((12, 25, 5), (12, 1, 5)), ((3, 4), (4,))]:
+        X = rng.normal(1.0, 2.0, shape)  # some at or below zero
+        X.flat[0] = 0.0
+        for _ in range(15):
+            mask = rng.random(mask_shape) < rng.random()
+            with np.errstate(divide="ignore", invalid="ignore"):
+                expected = np.where(mask, np.log(np.maximum(X, np.finfo(float).tiny)), X)
+            assert np.array_equal(_link_inputs(X, mask), expected)
