@@ -519,7 +519,7 @@ def main(argv=None) -> int:
             runs = []
             for r in range(args.runs):
                 store = work / f"store-{n}.db"
-                for suffix in ("", "-wal", "-shm", ".seal", ".seal.lock"):  # the anchor too: a new store beside an old anchor is refused
+                for suffix in ("", "-wal", "-shm", ".seal", ".seal.lock"):  # and the anchor: refused beside a new store
                     Path(f"{store}{suffix}").unlink(missing_ok=True)
                 parts = [run_step("_ingest", part, store) for part in ingest_folders(folder)]
                 a = {"read_s": sum(x["read_s"] for x in parts), "store_s": sum(x["store_s"] for x in parts),
