@@ -187,10 +187,15 @@ def _link_inputs(X, log_mask) -> np.ndarray:
     mask = np.asarray(log_mask, dtype=bool)
     if not mask.any():
         return X
+    if mask.ndim == 0 or mask.ndim > X.ndim or mask.shape[-1] != X.shape[-1]:  # broadcast otherwise: as it is
+        return _logs_where(X, mask)
     logged = mask.reshape(-1, mask.shape[-1]).any(axis=0)  # the inputs some replicate takes the log of
     if logged.all():
         return _logs_where(X, mask)
-    Z = X.copy()  # the others as they are: the log is taken of the logged inputs' columns only (the same values)
+    # the others as they are: the log is taken of the logged inputs' columns only (the same values); in X's own
+    # memory order, as np.where keeps it, so that a product with Z sums in the same order (a review: a C copy of
+    # a DataFrame's Fortran-ordered array changed the last digit of retrain's figures)
+    Z = X.copy(order="K")
     Z[..., logged] = _logs_where(X[..., logged], mask[..., logged])
     return Z
 

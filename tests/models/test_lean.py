@@ -152,12 +152,23 @@ def test_link_inputs_take_the_log_of_the_logged_columns_only_with_the_same_value
 
     from linkage.models.lean import _link_inputs
 
+    from linkage.models.lean import link_predict
+
     rng = np.random.default_rng(7)
-    for shape, mask_shape in [((40, 6), (6,)), ((12, 25, 5), (12, 1, 5)), ((3, 4), (4,))]:
-        X = rng.normal(1.0, 2.0, shape)  # some at or below zero
-        X.flat[0] = 0.0
-        for _ in range(15):
-            mask = rng.random(mask_shape) < rng.random()
-            with np.errstate(divide="ignore", invalid="ignore"):
-                expected = np.where(mask, np.log(np.maximum(X, np.finfo(float).tiny)), X)
-            assert np.array_equal(_link_inputs(X, mask), expected)
+    cases = [((40, 6), (6,)), ((12, 25, 5), (12, 1, 5)), ((3, 4), (4,)), ((9, 4), (4, 1, 4)), ((9, 4), (1,)),
+             ((9, 4), ())]  # the last three broadcast: a mask of more axes than X, of one column, a scalar
+    for shape, mask_shape in cases:
+        for layout in (np.ascontiguousarray, np.asfortranarray):  # a DataFrame's array is Fortran-ordered
+            X = rng.normal(1.0, 2.0, shape)  # some at or below zero
+            X.flat[0] = 0.0
+            X = layout(X)
+            for _ in range(15):
+                mask = rng.random(mask_shape) < rng.random()
+                with np.errstate(divide="ignore", invalid="ignore"):  # no input logged: X itself, as before
+                    expected = np.where(mask, np.log(np.maximum(X, np.finfo(float).tiny)), X) if mask.any() else X
+                got = _link_inputs(X, mask)
+                assert np.array_equal(got, expected)
+                if X.ndim == 2 and mask.ndim <= 1:  # the product after it sums in the same order: equal to the bit
+                    coef, x_mean = rng.normal(size=shape[-1]), rng.normal(size=shape[-1])
+                    reference = (expected - x_mean) @ coef + 0.5
+                    assert np.array_equal(link_predict(X, "identity", mask, x_mean, coef, 0.5), reference)
