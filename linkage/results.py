@@ -251,6 +251,7 @@ def materials_lines(m: dict | None) -> list[str]:
                  "(the selected candidate and linear_select refitted in the same grouped folds); kept where the "
                  f"paired one-sided t-test on the lots' squared errors gives p < {m.get('alpha', 0.05):g} / refits "
                  f"tried. Kept: {said}."]
+    lines += _missing_lines(m)
     for t, r in m["targets"].items():
         w = r["without"]
         lines.append(f"  {t}: CV RMSE {w['rmse']:.4g} (SE {w['rmse_se']:.2g}, {w['selected']}) without")
@@ -258,13 +259,27 @@ def materials_lines(m: dict | None) -> list[str]:
             if "rmse_with" not in v:
                 lines.append(f"    {c}: not tried ({v.get('reason', '')})")
                 continue
-            lines.append(f"    {c}: {v['rmse_with']:.4g} with ({v['candidate']}), paired p = "
-                         f"{v['p']:.2g} on {v['n_lots']} lots: " + ("kept" if v["kept"] else "not kept"))
+            on = (f"{v['n_lots']} lots" if "n_lots_attribute" not in v else
+                  f"the {v['n_lots']} of {v['n_lots_attribute']} lots that have it, against refits without it on "
+                  f"the same lots and folds")
+            lines.append(f"    {c}: {v['rmse_with']:.4g} with ({v['candidate']}) against {v['rmse_without']:.4g} "
+                         f"without, paired p = {v['p']:.2g} on {on}: " + ("kept" if v["kept"] else "not kept"))
         if r.get("final"):
             f = r["final"]
             lines.append(f"    refitted with {', '.join(r['kept_columns'])} in stage {f['stage']}: "
                          f"CV RMSE {f['rmse']:.4g} ({f['selected']})")
+            if f.get("note"):
+                lines.append(f"    note: {f['note']}")
     return lines
+
+
+def _missing_lines(m: dict) -> list[str]:
+    """The material columns missing on some training lots, and how the comparison treats them."""
+    gaps = m.get("missing_on") or {}
+    if not gaps:
+        return []
+    lines = [f"  {c} is missing on {len(lots)} lots ({', '.join(lots)})." for c, lots in gaps.items()]
+    return lines + [f"  So: {m.get('partial', '')}."]
 
 
 def forward_lines(t: dict) -> list[str]:

@@ -24,7 +24,11 @@ candidate alone can miss a column: on a campaign where blend moisture moved
 ribbon porosity, ``log_linear`` had been selected without it and gained
 little from it, while ``linear_select`` with it cut the CV RMSE by a third).
 So each lot has an out-of-fold error without the column and one with it,
-from the same splits, and the comparison is paired (:data:`RULE`). Only when some
+from the same splits, and the comparison is paired (:data:`RULE`). A column
+missing on some lots is compared on the lots that have it, and there the
+errors without it come from the same candidates refitted without it on those
+lots and folds, not from the chain (trained on every lot): the pair must
+differ by the column alone (:data:`PARTIAL`). Only when some
 attribute keeps a column is the chain fitted again, with the kept columns as
 inputs of the attributes that keep them (:func:`with_columns_by_target`);
 otherwise the fit without is the model, its bootstrap drawn once after the
@@ -44,8 +48,8 @@ import pandas as pd
 from linkage.models.chain import ChainSpec, StageSpec
 from linkage.schema import ASSEMBLED, TABLES
 
-__all__ = ["RULE", "WHERE", "ALPHA", "extra_columns", "with_columns", "with_columns_by_target",
-           "paired_test", "compare_columns", "train_with_materials"]
+__all__ = ["RULE", "WHERE", "ALPHA", "PARTIAL", "extra_columns", "missing_lots", "with_columns",
+           "with_columns_by_target", "paired_test", "compare_columns", "train_with_materials"]
 
 #: family-wise level of the paired test, per attribute (over the columns tried for it)
 ALPHA = 0.05
@@ -68,6 +72,13 @@ RULE = ("each column is tried alone for each attribute: the attribute's selected
         "then refitted with each attribute's kept columns as inputs; attributes of a stage that keep other "
         "columns than the rest get a stage of their own, '<stage>_materials' (then '_2', ...), right after it")
 
+
+PARTIAL = ("a column missing on some of an attribute's lots is compared on the lots that have it only: the "
+           "candidates are refitted both with and without it on those lots, in the chain's outer folds restricted "
+           "to them, so both errors of each lot come from the same training lots and the paired test measures the "
+           "column, not the leaving out of the other lots. A kept column is an input of the attribute's stage: "
+           "the lots without it are left out of that attribute's final fit (named in its notes); they stay in "
+           "the fits of the other attributes")
 
 #: relative size (to the mean squared error without) below which a difference of squared errors is round-off:
 #: a refit whose inner selection leaves the column out differs by about 1e-9 of it (the numerical ridge of the
@@ -160,6 +171,35 @@ def paired_test(sq_without, sq_with) -> dict:
     return {"n": n, "mean_difference": mean, "se": sd / math.sqrt(n) if n else None, "t": t, "p": p}
 
 
+def _final_record(row: dict, t, before) -> dict:
+    """What the chain refitted with an attribute's kept columns gives for it (``final``), and the lots it
+    leaves out: a kept column is an input of the attribute's stage, so a lot without it cannot be fitted
+    there (its other attributes and stages keep it). The lots left out are named in ``final`` and in the
+    attribute's notes, not passed over."""
+    out = {"selected": t.selected, "rmse": float(t.candidates[t.selected]["rmse"]),
+           "rmse_se": float(t.candidates[t.selected]["rmse_se"]), "stage": t.stage, "inputs": list(t.inputs),
+           "n_lots": int(t.n_lots)}
+    now = {str(v) for v in t.lots}
+    left = [str(v) for v in before.lots if str(v) not in now]
+    if left:
+        out["lots_left_out"] = left
+        out["note"] = (f"fitted on {t.n_lots} of the {before.n_lots} lots: {', '.join(left)} left out of stage "
+                       f"{t.stage} because they lack {', '.join(c for c in row['kept_columns'] if c in t.inputs)}, "
+                       "now an input of it (kept by the paired comparison on the lots that have it)")
+        t.notes.append(out["note"])
+    return out
+
+
+def missing_lots(data: pd.DataFrame, columns: list[str]) -> dict[str, list[str]]:
+    """Per column missing on some lots of ``data``, those lots (columns every lot has are not listed)."""
+    out = {}
+    for c in columns:
+        gap = ~np.isfinite(pd.to_numeric(data[c], errors="coerce").to_numpy(float))
+        if gap.any():
+            out[c] = [str(v) for v in data["lot"].to_numpy(dtype=object)[gap]]
+    return out
+
+
 def _rmse(e) -> float:
     return float(np.sqrt(np.mean(np.square(e))))
 
@@ -173,25 +213,29 @@ def compare_columns(fitted, data: pd.DataFrame, columns: list[str], *, seed: int
     ``kept``, ``refits``)."""
     from linkage.models.train import _run_all
 
-    rows, jobs, work = _planned_refits(fitted, data, columns, seed, nominal_coverage)
+    rows, jobs, work, references = _planned_refits(fitted, data, columns, seed, nominal_coverage)
     results = _run_all(jobs, n_jobs, progress, backend, run=_refit) if jobs else []
-    _judge_refits(fitted, rows, jobs, results, work)
+    _judge_refits(fitted, rows, jobs, results, work, references)
     kept = _best_columns(rows, columns)
     return {"columns": list(columns), "where": WHERE, "rule": RULE, "alpha": ALPHA, "targets": rows,
-            "kept_for": list(kept), "kept": kept, "refits": len(jobs)}
+            "kept_for": list(kept), "kept": kept, "refits": len(jobs), "missing_on": missing_lots(data, columns),
+            "partial": PARTIAL}
 
 
 def _planned_refits(fitted, data: pd.DataFrame, columns: list[str], seed: int, nominal_coverage: float):
     """Per attribute its record (the chain without the columns), and the refits to run: one job per
-    (attribute, column, candidate, outer fold) on the lots that have the column. Returns (records, jobs,
-    work); ``work`` holds (target, column, candidate, lots with the column, test rows per fold)."""
+    (attribute, column, candidate, outer fold) on the lots that have the column, and, where some of the
+    attribute's lots lack the column, the reference refits without it on the same lots and folds
+    (:func:`_reference_refits`). Returns (records, jobs, work, references); ``work`` holds (target, column,
+    candidate, lots with the column, test rows per fold, reference key or None)."""
     from linkage.models.train import _Job
 
     groups = fitted.training.get("groups")
     monotone = {t: dict(st.monotone.get(t, {})) for st in fitted.chain.stages for t in st.targets}
     by_lot = data.set_index("lot")
     jobs: list[_Job] = []
-    work = []  # (target, column, candidate, lots with the column, test rows per fold)
+    work = []  # (target, column, candidate, lots with the column, test rows per fold, reference key)
+    references: dict[tuple, dict] = {}  # (target, lots with the column) -> the refits without it on those lots
     rows: dict[str, dict] = {}
     for name, t in fitted.targets.items():
         sel = t.selected
@@ -204,6 +248,7 @@ def _planned_refits(fitted, data: pd.DataFrame, columns: list[str], seed: int, n
         lots = np.array([str(v) for v in t.lots], dtype=object)
         y = t.oof["observed"].to_numpy(float)
         fold = np.array([int(t.cv["folds"][lot]) for lot in lots])
+        base = by_lot.loc[lots, t.inputs].to_numpy(float)
         for c in columns:
             if c in t.inputs:
                 row["columns"][c] = {"kept": False, "reason": "already an input of the stage"}
@@ -211,52 +256,123 @@ def _planned_refits(fitted, data: pd.DataFrame, columns: list[str], seed: int, n
             rec = row["columns"][c] = {"kept": False, "by_candidate": {}}
             x = by_lot.loc[lots, c].to_numpy(float)
             have = np.isfinite(x)
-            X = np.column_stack([by_lot.loc[lots, t.inputs].to_numpy(float), x])[have]
+            X = np.column_stack([base, x])[have]
             yy, ll, ff = y[have], lots[have], fold[have]
             g = ll if groups is None else np.array([groups[v] for v in ll], dtype=object)
-            for cand in _with_candidates(sel):
-                why = _cannot_pair(t, cand, list(t.inputs) + [c], X, yy)
-                if why is not None:
-                    rec["by_candidate"][cand] = {"reason": why}
-                    continue
-                tests = []
-                for f in sorted(set(ff.tolist())):
-                    tr, te = np.flatnonzero(ff != f), np.flatnonzero(ff == f)
-                    jobs.append(_Job(len(work), f, X[tr], yy[tr], g[tr], X[te], [cand], list(t.inputs) + [c],
-                                     monotone[name], seed, 1 - nominal_coverage))
-                    tests.append(te)
-                work.append((name, c, cand, have, tests))
-    return rows, jobs, work
+            folds = sorted(set(ff.tolist()))
+            tests = [np.flatnonzero(ff == f) for f in folds]
+            cands = [cand for cand in _with_candidates(sel)
+                     if not _skipped(rec, _cannot_pair(t, cand, list(t.inputs) + [c], X, yy), cand)]
+            key = None
+            if not have.all():
+                rec.update(_partial_record(c, lots, have))
+                key = (name, have.tobytes())
+                if cands and key not in references:
+                    references[key] = {"plan": ("without", len(references)), "tests": tests}
+                    _reference_refits(references[key], t, base[have], yy, g, ff, folds, monotone[name], seed,
+                                      1 - nominal_coverage, jobs)
+            for cand in cands:
+                for f, te in zip(folds, tests):
+                    tr = np.flatnonzero(ff != f)
+                    jobs.append(_Job(("with", len(work)), f, X[tr], yy[tr], g[tr], X[te], [cand],
+                                     list(t.inputs) + [c], monotone[name], seed, 1 - nominal_coverage))
+                work.append((name, c, cand, have, tests, key))
+    return rows, jobs, work, references
 
 
-def _judge_refits(fitted, rows: dict, jobs: list, results: list, work: list) -> None:
-    """Each (attribute, column, candidate) refit's out-of-fold errors against the chain's, by the paired
-    tests of :data:`RULE` (Bonferroni over the attribute's pairs); written into ``rows``."""
+def _skipped(rec: dict, why: str | None, cand: str) -> bool:
+    """Record why ``cand`` cannot be compared (and say True), or say False."""
+    if why is not None:
+        rec["by_candidate"][cand] = {"reason": why}
+    return why is not None
+
+
+def _partial_record(column: str, lots: np.ndarray, have: np.ndarray) -> dict:
+    """What the record of a column missing on some of the attribute's lots says: on how many lots it was
+    compared, which lots lack it, and what becomes of them."""
+    missing = [str(v) for v in lots[~have]]
+    n, k = int(len(lots)), int(have.sum())
+    return {"n_lots_compared": k, "n_lots_attribute": n, "lots_without_column": missing,
+            "partial_note": (f"{column} is missing on {len(missing)} of the attribute's {n} lots "
+                             f"({', '.join(missing)}): compared on the {k} lots that have it, the attribute "
+                             "refitted without the column on the same lots and outer folds (a paired comparison "
+                             "of the same lots); if kept, the attribute is fitted on those lots only")}
+
+
+def _reference_refits(ref: dict, t, X: np.ndarray, y: np.ndarray, g: np.ndarray, ff: np.ndarray,
+                      folds: list[int], monotone: dict, seed: int, alpha: float, jobs: list) -> None:
+    """The refits *without* the column that a column missing on some lots is paired with: the attribute's
+    selected candidate and the candidates that may be refitted with the column (those the chain fitted
+    without it, whatever the column: two columns missing on the same lots share them), on the lots that have
+    it, in the same outer folds restricted to them, by the same tuning (:func:`_refit`). Without them the
+    errors with the column (trained on those lots) would be paired with the chain's (trained on every lot),
+    and the test would measure the effect of leaving the other lots out, not of the column."""
+    from linkage.models.train import _Job
+
+    need = list(dict.fromkeys([t.selected] + [c for c in _with_candidates(t.selected) if c in t.oof.columns]))
+    for f in folds:
+        tr, te = np.flatnonzero(ff != f), np.flatnonzero(ff == f)
+        jobs.append(_Job(ref["plan"], f, X[tr], y[tr], g[tr], X[te], need, list(t.inputs), monotone, seed, alpha))
+
+
+def _errors_without(t, cand: str, have: np.ndarray, key, references: dict, by_plan: dict):
+    """The out-of-fold errors without the column of ``cand`` on the lots of ``have``: the chain's where every
+    lot has the column, else the reference refit's on the same lots and folds. Returns (errors, None) or
+    (None, why)."""
+    y = t.oof["observed"].to_numpy(float)[have]
+    if key is None:
+        return t.oof[cand].to_numpy(float)[have] - y, None
+    ref = references[key]
+    pred, failed = _out_of_fold(by_plan[ref["plan"]], cand, ref["tests"], len(y))
+    if failed is not None:
+        return None, f"{cand} without the column failed on the lots that have it: {failed}"
+    return pred - y, None
+
+
+def _out_of_fold(results: list, cand: str, tests: list, n: int):
+    """``cand``'s out-of-fold predictions from its per-fold ``results`` (test rows per fold ``tests``, ``n``
+    lots): (predictions, None), or (None, the first fold's error)."""
+    res = [r[cand] for r in results]
+    failed = next((r["error"] for r in res if "error" in r), None)
+    if failed is not None:
+        return None, failed
+    pred = np.empty(n)
+    for te, r in zip(tests, res):
+        pred[te] = r["pred"]
+    return pred, None
+
+
+def _judge_refits(fitted, rows: dict, jobs: list, results: list, work: list, references: dict | None = None) -> None:
+    """Each (attribute, column, candidate) refit's out-of-fold errors against those without the column on the
+    same lots (the chain's, or the reference refit's where some lots lack the column), by the paired tests of
+    :data:`RULE` (Bonferroni over the attribute's pairs); written into ``rows``."""
     from linkage.models.cv import metrics
 
-    by_work: dict[int, list] = {}
+    references = references or {}
+    by_plan: dict = {}
     for job, res in zip(jobs, results):
-        by_work.setdefault(job.plan, []).append(res)
-    for i, (name, c, cand, have, tests) in enumerate(work):
+        by_plan.setdefault(job.plan, []).append(res)
+    for i, (name, c, cand, have, tests, key) in enumerate(work):
         t, rec = fitted.targets[name], rows[name]["columns"][c]
-        res = [r[cand] for r in by_work[i]]
-        failed = next((r["error"] for r in res if "error" in r), None)
+        y = t.oof["observed"].to_numpy(float)[have]
+        pred, failed = _out_of_fold(by_plan[("with", i)], cand, tests, len(y))
         if failed is not None:
             rec["by_candidate"][cand] = {"reason": f"{cand} with {c} failed: {failed}"}
             continue
-        y = t.oof["observed"].to_numpy(float)[have]
-        pred = np.empty(len(y))
-        for te, r in zip(tests, res):
-            pred[te] = r["pred"]
+        e_sel, why = _errors_without(t, t.selected, have, key, references, by_plan)
+        e_c, why_c = (None, None) if cand == t.selected else _errors_without(t, cand, have, key, references, by_plan)
+        if why or why_c:
+            rec["by_candidate"][cand] = {"reason": why or why_c}
+            continue
         level = ALPHA / sum(1 for w in work if w[0] == name)  # Bonferroni over the (column, candidate) pairs
         e_with = pred - y
-        e_sel = t.oof[t.selected].to_numpy(float)[have] - y
         m = metrics(y, pred)
         one = {"n_lots": int(len(y)), "rmse_with": m["rmse"], "rmse_se_with": float(m["rmse_se"]),
-               "rmse_without": _rmse(e_sel), "level": level, "vs_selected": paired_test(e_sel**2, e_with**2)}
+               "rmse_without": _rmse(e_sel), "level": level, "vs_selected": paired_test(e_sel**2, e_with**2),
+               "without_from": "the chain's out-of-fold errors" if key is None else
+               "refitted without the column on the same lots and outer folds"}
         tests_ = [one["vs_selected"]]
-        if cand != t.selected:
-            e_c = t.oof[cand].to_numpy(float)[have] - y
+        if e_c is not None:
             one["vs_candidate_without"] = {**paired_test(e_c**2, e_with**2), "rmse_without": _rmse(e_c)}
             tests_.append(one["vs_candidate_without"])
         one["kept"] = all(v["mean_difference"] > 0 and v["p"] < level for v in tests_)
@@ -367,9 +483,7 @@ def train_with_materials(table: pd.DataFrame, chain: ChainSpec | None = None, **
         for name, row in comparison["targets"].items():
             t = fitted.targets.get(name)
             if row["kept"] and t is not None:
-                row["final"] = {"selected": t.selected, "rmse": float(t.candidates[t.selected]["rmse"]),
-                                "rmse_se": float(t.candidates[t.selected]["rmse_se"]), "stage": t.stage,
-                                "inputs": list(t.inputs)}
+                row["final"] = _final_record(row, t, without.targets[name])
     else:
         fitted = without
         base, _ = _prepare(table, chain)
