@@ -137,6 +137,7 @@ class Ingested(_Result):
             lines += [f"  - {w}" for w in r.warnings]
         lines += _unusual_lines(r.accepted_unusual)
         lines += [f"Note: {extra_columns_note(file, columns)}" for file, columns in r.extra_columns.items()]
+        lines += [f"Note: {blank_required_note(file, columns)}" for file, columns in r.blank_required.items()]
         lines += [f"Note: {note}" for note in r.notes]
         return "\n".join(lines + (self._preview_lines() if r.preview else []))
 
@@ -179,6 +180,22 @@ def extra_columns_note(file: str, columns: list[dict]) -> str:
         return f"{col['column']} (declared in {MAPPING_FILE})" if col.get("declared") else col["column"]
 
     return f"{file}: kept as extra columns, not in the template: {', '.join(one(c) for c in columns)}"
+
+
+def blank_required_note(file: str, columns: list[dict]) -> str:
+    """One line of the blank cells of a file's required columns (``IngestResult.blank_required``): per column
+    the header, its rows and lots (the first five), then what follows (the same for a table's columns, said
+    once); read as missing values, not refused."""
+    from linkage.lotid import row_span
+
+    def one(col: dict) -> str:
+        lots = col["lots"]
+        named = ", ".join(map(str, lots[:5])) + (", ..." if len(lots) > 5 else "")
+        return f"{col['header']} in {row_span(col['rows'])} (lot{'s' if len(lots) > 1 else ''} {named})"
+
+    means = "; ".join(dict.fromkeys(col["means"] for col in columns))  # one table's file: said once
+    return (f"{file}: blank cells in required columns, read as missing values: {', '.join(one(c) for c in columns)}"
+            f"; {means}; filling them in later adds to the stored lots (no --reason needed)")
 
 
 def _unusual_lines(records: list[dict], shown: int = 5) -> list[str]:

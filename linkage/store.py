@@ -198,6 +198,9 @@ class IngestResult:
     #: per file (as ``sources`` names it), the extra columns it kept, not in the template, in file order:
     #: ``{"column", "near", "declared"}`` (:func:`linkage.read.table.extra_columns`); said, never stored
     extra_columns: dict[str, list[dict]] = field(default_factory=dict)
+    #: per file (as ``sources`` names it), the blank cells of its required columns that may be blank, read as
+    #: missing values: ``{"column", "header", "rows", "lots", "means"}`` (:func:`linkage.read.folder.blank_required`)
+    blank_required: dict[str, list[dict]] = field(default_factory=dict)
 
     @property
     def changed(self) -> bool:
@@ -247,7 +250,8 @@ class _IngestPlan:
     def result(self, ingest_id: int | None, *, preview: bool = False) -> IngestResult:
         out = IngestResult(self.new, self.revised, self.unchanged, ingest_id, self.warnings, self.added_to,
                            self.changed, self.unusual_records, preview, lots_set_aside=self.set_aside,
-                           notes=self.notes, extra_columns=self.ingest.extra_columns)
+                           notes=self.notes, extra_columns=self.ingest.extra_columns,
+                           blank_required=getattr(self.ingest, "blank_required", {}))
         if preview:
             out.needs_reason = self.needs_reason
             listed = [lot for lot in self.revised if lot in self.shown][:PREVIEW_LOTS]

@@ -36,7 +36,8 @@ class Ingest:
     taken deliberately (``accept_unusual``), as records for the audit trail.
     ``extra_columns`` holds, per file (as ``sources`` names it), the extra
     columns it kept (:func:`linkage.read.table.extra_columns`); it is said,
-    never stored.
+    never stored. ``blank_required`` holds, per file, the blank cells of its required columns that may be blank
+    (:func:`blank_required`): read as missing values, said, never refused.
     """
 
     tables: dict[str, pd.DataFrame]
@@ -47,6 +48,7 @@ class Ingest:
     other_sources: dict[str, dict] = field(default_factory=dict)
     unusual: list[dict] = field(default_factory=list)
     extra_columns: dict[str, list[dict]] = field(default_factory=dict)
+    blank_required: dict[str, list[dict]] = field(default_factory=dict)
 
     def lots(self) -> list[str]:
         """Every lot named in any table, process lots first, in file order."""
@@ -151,7 +153,7 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
             problems += exc.problems
     ingest = Ingest(tables, sources, spec, warnings, folder, other, unusual_records if accept_unusual else [],
                     {sources[t]["file"]: list(df.attrs["extra_columns"]) for t, df in tables.items()
-                     if df.attrs.get("extra_columns")})
+                     if df.attrs.get("extra_columns")}, _blank_cells(tables, sources, mapping))
     if "process" not in failed or "process" in lots_read:
         # across files on what was read, so that a refused cell of one file does not hide another file's
         # unknown lot until the next run: a refused file contributes the lots of its rows read
@@ -167,6 +169,12 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
     if problems:
         raise InputError(_with_cell_references(problems, sources, (values_read, lots_read, tables)))
     return ingest
+
+
+def _blank_cells(tables: dict[str, pd.DataFrame], sources: dict, mapping: Mapping | None) -> dict[str, list[dict]]:
+    """:func:`blank_required` of every table read, by file as ``sources`` names it; a file without any left out."""
+    found = {sources[t]["file"]: blank_required(t, df, mapping) for t, df in tables.items()}
+    return {file: columns for file, columns in found.items() if columns}
 
 
 def _table_sheets_unread(unread: list[tuple[str, str, str | None]], plan: dict, failed: set[str]) -> list[Problem]:
@@ -314,6 +322,46 @@ def _without_results(tname: str, df: pd.DataFrame, label: str) -> list[str]:
             f"{named}) hold no result, every cell but the key's and the settings' blank: stored as records "
             "without results; filling them in later adds to the stored lots (a revision without --reason); a "
             "planned lot's tables are best ingested once their results are filled in"]
+
+
+#: what follows from a blank cell in a required column that may be blank, by table (the template's settings and
+#: results: a value not measured yet, or not at all, is missing, not refused): said by the ingest's note
+BLANK_MEANS: dict[str, str] = {
+    "process": "the lot has no value of this setting; a model stage that takes it leaves the lot out",
+    "ribbon": ("the replicate has no ribbon porosity; the lot's porosity is the mean of its other replicates "
+               "(a lot with none has none)"),
+    "granules": "the lot's sieve analysis gives no granule sizes (assemble says so in its notes)",
+    "granules_laser": "the lot has no value of this size; a model stage that takes or predicts it leaves the lot out",
+    "tablets": "the lot has no compression force; a model stage that takes it leaves the lot out",
+    "dissolution": "the vessel's time point is left out of the lot's profile",
+}
+
+
+def blank_required(tname: str, df: pd.DataFrame, mapping: Mapping | None = None) -> list[dict]:
+    """The blank cells of a table's required columns that may be blank (required: the header must be there;
+    a key or a column that must be filled is refused when blank, :mod:`linkage.read.table`): per column, in
+    template order, ``{"column", "header", "rows", "lots", "means"}``: the template column, the header as
+    written in the file (a ``columns.toml`` mapping's, else the template name), the sheet rows, the rows' lots
+    (distinct, in row order) and what follows (:data:`BLANK_MEANS`). Read as missing values, not refused (a
+    value not measured is no wrong value), but said, so that a blank setting or result does not pass unheard
+    of. Rows that hold no value at all are skipped on reading and are not here."""
+    tdef = TABLES[tname]
+    if len(df) == 0:
+        return []
+    headers = {m.target: m.source for m in (mapping or Mapping()).for_table(tname).values() if not m.extra}
+    rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
+    out = []
+    for col in tdef.columns:
+        if not col.required or col.nonempty or col.name in tdef.key or col.name not in df:
+            continue
+        blank = df[col.name].isna().to_numpy()
+        if not blank.any():
+            continue
+        out.append({"column": col.name, "header": headers.get(col.name, col.name),
+                    "rows": [int(r) for r, b in zip(rows, blank) if b],
+                    "lots": list(dict.fromkeys(df.loc[blank, "lot"].tolist())),
+                    "means": BLANK_MEANS.get(tname, "the value is missing")})
+    return out
 
 
 def _without_history(frames: dict[str, pd.DataFrame], sources: dict, mapping: Mapping | None
