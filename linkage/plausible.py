@@ -126,12 +126,19 @@ def likely_mistake(x: float, m: float, s: float, column: str, roll_width_mm: flo
     if column == "roll_force_kn_per_cm" and roll_width_mm and roll_width_mm > 0:
         per_cm = x / (roll_width_mm / 10.0)
         if abs(math.log10(per_cm) - m) <= near:
-            return (f"a total roll force in kN: divided by the roll width ({roll_width_mm:g} mm) it is "
-                    f"{per_cm:.3g} kN/cm, as usual; map it in columns.toml with unit = \"kN\"")
+            return total_force_words(roll_width_mm, per_cm, "as usual")
     for factor, words in _factor_words(column):
         if abs(math.log10(x / factor) - m) <= near:
             return f"{words}: {x:g} / {factor:g} = {x / factor:.4g} would be usual"
     return None
+
+
+def total_force_words(roll_width_mm: float, per_cm: float, judged: str) -> str:
+    """The hint of a total roll force in the kN/cm column, what it is per cm and why that fits (``judged``: "as
+    usual", "within the bounds"); also the reader's, for a value above the column's bounds
+    (:func:`linkage.read.cells.total_force_slip`)."""
+    return (f"a total roll force in kN: divided by the roll width ({roll_width_mm:g} mm) it is {per_cm:.3g} kN/cm, "
+            f"{judged}; map it in columns.toml with unit = \"kN\"")
 
 
 def is_unusual(x: float, m: float, s: float, explained: bool) -> bool:

@@ -44,7 +44,12 @@ Text and cells
   would be taken for a misspelling of (the same rule): a near-twin, kept but
   warned of. A column mapped in ``columns.toml`` is never warned of.
 - A cell that is empty or one of ``schema.MISSING_TOKENS`` (``NA``, ``n/a``,
-  ``-`` ..., any case) is missing.
+  ``-`` ..., any case) is missing. In a key or a column that must be filled
+  (``nonempty``) it is refused; in another required column it is kept as
+  missing and said (``folder.blank_required``, ``Ingest.blank_required``).
+- A value outside its bounds that a common unit slip explains (a density in
+  kg/m3, a force in N for kN, a total roll force) is refused with the slip
+  named (``cells.bound_slip``, ``cells.total_force_slip``).
 - Dates are ISO 8601 (``2024-03-05`` or ``2024-03-05 14:30``), or date cells
   of a workbook. ``05.03.2024`` or ``3/5/2024`` are refused, never guessed.
   Time-zone offsets are refused: give local time.

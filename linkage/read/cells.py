@@ -265,6 +265,43 @@ def _in_bounds(col: Column, v: float) -> bool:
     return True
 
 
+#: unit slips a template column's bounds catch, by the column's unit: (the unit the value looks written in, as
+#: columns.toml names it, what to divide it by for the column's unit, the least and the most a value so written
+#: is taken for): a solid's density of 0.1-5 g/cm3 written in kg/m3 (100-5000), a compression force of 1-100 kN written
+#: in N (1000-100000). The ranges are common practice, no source; a value between them and the bounds gets no
+#: hint (6 g/cm3 is no density in kg/m3).
+BOUND_SLIPS: dict[str, tuple[str, float, float, float]] = {
+    "g/cm3": ("kg/m3", 1000.0, 100.0, 5000.0),
+    "kN": ("N", 1000.0, 1000.0, 100_000.0),
+}
+
+
+def bound_slip(col: Column, v: float) -> str:
+    """The unit slip a value outside ``col``'s bounds looks like, as the end of its refusal (``; it looks like
+    kg/m3 ...``), or "" (:data:`BOUND_SLIPS`); for a value read in the column's own unit (no columns.toml unit)."""
+    slip = BOUND_SLIPS.get(col.unit)
+    if slip is None or _in_bounds(col, v):
+        return ""
+    unit, divisor, low, high = slip
+    if not low <= v <= high or not _in_bounds(col, v / divisor):
+        return ""
+    return (f"; it looks like {unit}: {v:g} / {divisor:g} = {v / divisor:.4g} {col.unit}, and the column is in "
+            f"{col.unit}: convert it, or map the header in columns.toml with unit = \"{unit}\"")
+
+
+def total_force_slip(col: Column, v: float, roll_width_mm: float | None) -> str:
+    """A specific roll force above its bounds that, divided by the row's roll width in cm, is within them, as
+    the end of its refusal (the words of :func:`linkage.plausible.likely_mistake`), or ""."""
+    if col.high is None or v <= col.high or roll_width_mm is None or not roll_width_mm > 0:
+        return ""
+    per_cm = v / (roll_width_mm / 10.0)
+    if not _in_bounds(col, per_cm):
+        return ""
+    from linkage.plausible import total_force_words
+
+    return f"; it looks like {total_force_words(roll_width_mm, per_cm, 'within the bounds')}"
+
+
 def _extra_values(cells: list, decimal: str, separator: str | None) -> list:
     present = [c for c in cells if not _is_missing(c)]
     parsed = [_parse_number(c, decimal, separator) for c in present]

@@ -18,7 +18,7 @@ import pandas as pd
 from linkage.exceptions import InputError, Problem
 from linkage.read import MAPPING_FILE, UNSUPPORTED_SUFFIXES, WORKBOOK_SUFFIXES
 from linkage.read.cells import (_as_list, _column_clean, _decimal_mark, _extra_non_finite, _extra_values,
-                                _fast_cells, _in_bounds, _parse_datetime, _parse_number, _shown, _text)
+                                _fast_cells, bound_slip, total_force_slip, _in_bounds, _parse_datetime, _parse_number, _shown, _text)
 from linkage.read.lots import _lot_id_problems, _visible, _without_invisible
 from linkage.read.mapping import ROLL_WIDTH_COLUMN, TOTAL_FORCE_COLUMN, ColumnMap, Mapping, _suggest, _without_unit
 from linkage.read.raw import _is_missing, _letters, _norm_header, _Raw
@@ -406,10 +406,21 @@ class _Check:
                                 value=self.shown(k, col.name))
                 continue
             if col.kind == NUMBER and not _in_bounds(col, v):
-                note = ""
                 if cmap is not None and cmap.unit is not None:
                     note = f" (read as {cmap.unit}, converted to {v:g} {col.unit})"
+                else:
+                    note = bound_slip(col, v) or self.total_force_slip(k, col, v)
                 self.refuse(k, col.name, f"outside the range {col.bound_text()}{note}", value=self.shown(k, col.name))
+
+    def total_force_slip(self, k: int, col: Column, v: float) -> str:
+        """:func:`linkage.read.cells.total_force_slip` of the roll force of row index ``k``, with its roll width."""
+        if col.name != TOTAL_FORCE_COLUMN or ROLL_WIDTH_COLUMN not in self.values:
+            return ""
+        width = self.values[ROLL_WIDTH_COLUMN][k]
+        if (k, ROLL_WIDTH_COLUMN) in self.bad or not isinstance(width, float) or math.isnan(width) \
+                or not _in_bounds(self.tdef.column(ROLL_WIDTH_COLUMN), width):
+            return ""
+        return total_force_slip(col, v, float(width))
 
     def lots_read(self, df: pd.DataFrame) -> pd.DataFrame:
         """The lot column of the rows whose lot cell was read and not refused, with their sheet rows (what the
