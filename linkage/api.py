@@ -259,7 +259,6 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
     and a result with ``preview`` True, no ``ingest_id`` and the revised
     lots' differences (``result.changes``)."""
     from linkage.exceptions import UsageError
-    from linkage.read import read_folder
     from linkage.store import ACCEPT_NEEDS_REASON, EmptyStoreFile, LotStore, given_reason, open_to_record
 
     if accept_unusual and given_reason(reason) is None:
@@ -279,7 +278,7 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
         known = [] if existing is None else existing.lot_ids()
         # the store is created only for valid input; values refused without history (a sieve stack in mm) are
         # refused here, before it is, unless taken deliberately
-        checked = read_folder(folder, known_lots=known, accept_unusual=accept_unusual)
+        checked = _read_folder_beside(folder, existing, known, accept_unusual)
         if existing is not None and existing.older_schema is not None:
             # a store written by an earlier linkage: the ingest decided on it as it is, by its own plan (the
             # preview's, LotStore._plan), so that a refused ingest leaves it as it was; opened for writing below,
@@ -295,6 +294,26 @@ def ingest(folder, store=DEFAULT_STORE, *, reason: str | None = None, accept_unu
     return Ingested(store=store, folder=folder, result=result, sources=checked.sources, spec=checked.spec)
 
 
+def _read_folder_beside(folder: Path, lot_store, known: list[str], accept_unusual: bool):
+    """:func:`linkage.read.read_folder`; a folder it refuses is refused with the values far from the store's
+    history of its tables read whole beside the other problems (:meth:`LotStore.unusual_beside`; one refusal for
+    the folder, not a second round once the first problems are mended). Without a store, or with
+    ``accept_unusual``, the refusal as the reader made it."""
+    from linkage.exceptions import InputError
+    from linkage.read import read_folder
+
+    try:
+        return read_folder(folder, known_lots=known, accept_unusual=accept_unusual)
+    except InputError as exc:
+        read = getattr(exc, "read", None)
+        if lot_store is None or accept_unusual or read is None or not read.tables:
+            raise
+        beside = lot_store.unusual_beside(read, getattr(exc, "judged", []))
+        if not beside:
+            raise
+        raise InputError([*exc.problems, *beside]) from None
+
+
 def _preview_ingest(folder: Path, store: Path, exists: bool, *, reason: str | None,
                     accept_unusual: bool) -> Ingested:
     """:func:`ingest` with ``preview``: the folder read as the ingest reads it, and the ingest decided by the
@@ -308,7 +327,6 @@ def _preview_ingest(folder: Path, store: Path, exists: bool, *, reason: str | No
     (``UsageError``) as the ingest is, and the refusal carries the preview made all the same (``exc.preview``, an
     :class:`Ingested` whose ``result.needs_reason`` says why), which the CLI prints before the refusal."""
     from linkage.exceptions import UsageError
-    from linkage.read import read_folder
 
     import warnings
 
@@ -324,7 +342,7 @@ def _preview_ingest(folder: Path, store: Path, exists: bool, *, reason: str | No
 
                 raise StoreIntegrityError(unanchored_refusal(store, lot_store.unanchored["id"],
                                                              lot_store.unanchored["sha256"]))
-            checked = read_folder(folder, known_lots=lot_store.lot_ids(), accept_unusual=accept_unusual)
+            checked = _read_folder_beside(folder, lot_store, lot_store.lot_ids(), accept_unusual)
             if not exists and not os.access(store.parent, os.W_OK):  # where the ingest's first open fails
                 raise StoreError(f"cannot create the lot store {store}: this account cannot write in folder "
                                  f"{store.parent}; nothing was written")

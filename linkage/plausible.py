@@ -35,7 +35,9 @@ History needs at least :data:`MIN_HISTORY_LOTS` lots of the product with a
 value; a column with fewer is not judged. A product none of whose columns
 could be judged is named in one note (:func:`history_note`; the ingest and
 its preview print it), so that the check is not off without a word. ``linkage ingest --accept-unusual --reason TEXT``
-takes unusual values deliberately; the audit trail records them.
+takes unusual values deliberately; the audit trail records them. A folder the
+reader refuses for other problems is judged too, on its tables read whole,
+so that one refusal names every problem (``LotStore.unusual_beside``).
 
 Without history, so on a first ingest too, :func:`sieve_apertures` refuses
 sieve apertures no test sieve has (below :data:`SMALLEST_SIEVE_UM`, a stack

@@ -91,8 +91,8 @@ from typing import TYPE_CHECKING, Iterator
 
 from linkage import plausible as _plausible
 from linkage import seal as _seal
-from linkage.exceptions import (InputError, StoreBusyError, StoreError, StoreIntegrityError, StorePathError,
-                                 UsageError, shown_time)
+from linkage.exceptions import (InputError, Problem, StoreBusyError, StoreError, StoreIntegrityError,
+                                StorePathError, UsageError, shown_time)
 from linkage.lotid import lot_key, reader_spelling
 from linkage.schema import DATETIME, NUMBER, TABLES
 # opening a store without changing it (older schemas, copies) and the file's layout have modules of their own;
@@ -220,6 +220,15 @@ PREVIEW_LOTS = 20
 PREVIEW_CHANGES = 10
 
 
+def _rows_of_lots(df: pd.DataFrame, lots: set) -> pd.DataFrame:
+    """The rows of a table read whose lot is one of ``lots``, with their sheet rows (``attrs["source_rows"]``)."""
+    keep = df["lot"].isin(list(lots)).to_numpy()
+    rows = df.attrs.get("source_rows", list(range(2, len(df) + 2)))
+    out = df.loc[keep].reset_index(drop=True)
+    out.attrs = {**df.attrs, "source_rows": [r for r, k in zip(rows, keep) if k]}
+    return out
+
+
 class _IngestPlan:
     """What an ingest would write: made by :meth:`LotStore._plan` from the ingest and the stored lots (under
     the write lock for an ingest, in one read snapshot for a preview), then written by
@@ -230,11 +239,7 @@ class _IngestPlan:
         self.ingest, self.reason = ingest, given_reason(reason)
         self.prepared = _prepare(ingest)
         self.sources = {t: ingest.sources.get(t) or _memory_source(t, df) for t, df in ingest.tables.items()}
-        self.products = {}
-        process = ingest.tables.get("process")
-        if process is not None:
-            for lot, product in zip(process["lot"].tolist(), process["product"].tolist()):
-                self.products[lot] = None if isinstance(product, float) else product
+        self.products = self.products_of(ingest)
         # decided by LotStore._plan: the stored lots' current revisions, the lots by kind, the tables each new
         # or revised lot writes, the differences kept (lot -> _diff), the unusual values taken, the warnings
         self.current: dict = {}
@@ -246,6 +251,15 @@ class _IngestPlan:
         self.set_aside: list[str] = []  # the ingest's stored lots that are set aside (they stay so)
         self.needs_reason: str | None = None  # the refusal of stored values changed without a reason
         self.notes: list[str] = []  # what the ingest says besides warnings (plausibility not judged)
+
+    @staticmethod
+    def products_of(ingest: Ingest) -> dict[str, str | None]:
+        """The product of each lot of the ingest's process table (None: not named)."""
+        process = ingest.tables.get("process")
+        if process is None:
+            return {}
+        return {lot: None if isinstance(product, float) else product
+                for lot, product in zip(process["lot"].tolist(), process["product"].tolist())}
 
     def result(self, ingest_id: int | None, *, preview: bool = False) -> IngestResult:
         out = IngestResult(self.new, self.revised, self.unchanged, ingest_id, self.warnings, self.added_to,
@@ -961,6 +975,30 @@ class LotStore:
             if preview:
                 return self._preview(ingest, reason, accept_unusual)
             return self._ingest(ingest, user, reason, accept_unusual)
+
+    def unusual_beside(self, read: Ingest, judged: list[dict] = ()) -> list[Problem]:
+        """The values far from history (:func:`linkage.plausible.unusual_values`, as :meth:`_plan` judges them) of
+        the tables of a folder that were read whole while the folder is refused for other problems
+        (``InputError.read``, :func:`linkage.read.read_folder`), so that one refusal names both. Only the lots
+        whose product is known are judged: from the folder's process table when it was read, else the store's;
+        the others wait for the ingest that reads their process rows. A lot's column the reader judged without
+        history (``judged``, records as :func:`linkage.plausible.sieve_apertures` gives them: a sieve stack in mm)
+        is not named again. Nothing written, one read snapshot."""
+        lots = read.lots()
+        products = _IngestPlan.products_of(read)
+        try:
+            with self._snapshot():
+                c = self._conn
+                stored = self._current_links(c, [lot for lot in lots if lot not in products])
+                product_of = {**{lot: links["product"] for lot, links in stored.items()}, **products}
+                selected = _read.Ingest({t: _rows_of_lots(df, set(product_of)) for t, df in read.tables.items()},
+                                        read.sources)
+                history = self._history(c, set(product_of.values()), set(product_of))
+        except sqlite3.DatabaseError as exc:
+            raise self._error(exc) from None
+        said = {(r["file"], r["lot"], r["column"]) for r in judged}
+        problems, records = _plausible.unusual_values(selected, history, product_of)
+        return [p for p, r in zip(problems, records) if (r["file"], r["lot"], r["column"]) not in said]
 
     def _ingest(self, ingest: Ingest, user: str | None, reason: str | None, accept_unusual: bool) -> IngestResult:
         plan = _IngestPlan(ingest, reason)  # before the write lock: it needs no store

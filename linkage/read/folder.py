@@ -70,7 +70,11 @@ def read_folder(folder: Path, mapping: Mapping | None = None, *,
     Raises one :class:`InputError` with the problems of every file; the
     checks across files run on the lots read from every file, a refused one
     included (its rows whose lot cell was read and not refused), unless the
-    process table's lots could not be read at all.
+    process table's lots could not be read at all. The refusal carries the
+    tables read whole as ``exc.read`` (an :class:`Ingest`), so that the
+    ingest can judge their values against the store's history beside it
+    (:meth:`linkage.store.LotStore.unusual_beside`), and as ``exc.judged``
+    the records of the values judged without history.
 
     Values that no measurement of the kind can hold, judged without history
     (:data:`linkage.plausible.JUDGED_WITHOUT_HISTORY`: a sieve stack in mm
@@ -167,7 +171,10 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
                                 unread_sheets=[(f, s) for f, s, t in unread if t is None])
     problems += _planned_not_made(folder, {**lots_read, **tables}, known_lots)
     if problems:
-        raise InputError(_with_cell_references(problems, sources, (values_read, lots_read, tables)))
+        exc = InputError(_with_cell_references(problems, sources, (values_read, lots_read, tables)))
+        exc.read = ingest  # the tables read whole, for the checks against the store beside these problems
+        exc.judged = unusual_records  # the values judged without history (refused, unless taken deliberately)
+        raise exc
     return ingest
 
 

@@ -97,6 +97,29 @@ def test_a_unit_mistake_is_refused_with_file_row_and_the_mistake(tmp_path, table
     counts["files refused"] += 1
 
 
+def test_an_unusual_value_is_refused_beside_another_files_hard_error(tmp_path, counts):
+    """All of a folder's problems at once (a user test: a hard error in ribbon.csv hid a roll force far from
+    history in process.csv until the next round). The tables read whole are judged against history beside the
+    other problems, in one refusal (exit 2, nothing written), by the ingest and its preview alike;
+    ``--accept-unusual`` leaves only the hard error."""
+    force, density = _set("process", "roll_force_kn_per_cm", lambda v: f"{v * 4:.2f}"), \
+        _set("ribbon", "envelope_density_g_cm3", lambda v: "-1")
+    _, new, store = _history_and_new_lot(tmp_path, lambda stem, header, row: density(stem, header,
+                                                                                     force(stem, header, row)))
+    before = store.read_bytes()
+    for extra in ([], ["--preview"]):
+        result = run_cli(["ingest", new, "--store", store, *extra])
+        assert result.exit_code == 2, result.output
+        said = result.stderr
+        assert "ribbon.csv" in said and "column 'envelope_density_g_cm3'" in said and "outside the range" in said
+        assert "process.csv, row 2, column 'roll_force_kn_per_cm'" in said and "total roll force" in said
+        assert store.read_bytes() == before
+        counts["files refused"] += 1
+    taken = run_cli(["ingest", new, "--store", store, "--accept-unusual", "--reason", "DEV-10"])
+    assert taken.exit_code == 2 and "roll_force_kn_per_cm" not in taken.stderr and "ribbon.csv" in taken.stderr
+    assert store.read_bytes() == before
+
+
 def test_a_usual_new_lot_is_taken(tmp_path):
     _, new, store = _history_and_new_lot(tmp_path, lambda stem, header, row: row)
     assert run_cli(["ingest", new, "--store", store]).exit_code == 0
