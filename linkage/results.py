@@ -341,11 +341,11 @@ def train_text(fitted: FittedChain) -> str:
         for cname, why in t["unavailable"].items():
             lines.append(f"    {cname:<15} not used: {why}")  # a space even after a name of 15 characters or more
         floor = t["noise_floor"]
-        lines.append("    noise floor: " + (f"{floor:.4g} ({t['noise_floor_method']})" if floor is not None
+        lines.append("    noise floor: " + (f"{floor:.4g}, {t['noise_floor_method']}" if floor is not None
                                             else t["noise_floor_method"]))
         sel = t["selection"]
         why = "lowest CV RMSE" if sel["best"] == t["selected"] else (
-            f"simplest within one SE of the lowest ({sel['best']}, RMSE {sel['best_rmse']:.4g})")
+            f"simplest within one SE of the lowest, {sel['best']} with RMSE {sel['best_rmse']:.4g}")
         lines.append(f"    selected: {t['selected']} ({why})")
         choice = t.get("interval_choice") or {"method": "CV+"}
         lines.append(f"    {t['nominal_coverage']:.0%} {choice['method']} intervals: empirical coverage "
@@ -438,11 +438,29 @@ def window_text(result: WindowResult) -> str:
     lines += _window_settings_lines(d)
     if d["not_modelled"]:
         lines.append("Not part of the window: " + "; ".join(f"{a} ({why})" for a, why in _not_judged(d).items()))
-    lines += judges_lines(d.get("judges") or {})
+    lines += window_judges_lines(d)
     if d.get("spec") and d["spec"].get("file"):
         lines.append(f"Spec {d['spec']['file']}, SHA-256 {d['spec']['sha256']}")
     lines.append(CAUTION)
     return "\n".join(lines)
+
+
+def _dissolution_time_text(d: dict, lead: str) -> str:
+    """'; dissolution at 30 min' (``lead`` first) where the window judges dissolution at a time point, with the
+    note on a time point the model did not record; '' otherwise."""
+    if not (d.get("dissolution_time_min") and "dissolution_pct" in d["attributes"]):
+        return ""
+    note = f", {d['time_point_note']}" if d.get("time_point_note") else ""
+    return f"{lead}dissolution at {d['dissolution_time_min']:g} min{note}"
+
+
+def window_judges_lines(d: dict) -> list[str]:
+    """The window's one "Judged:" block: how each attribute is judged, the dissolution line with its time point
+    (a user test read "Judged:" twice in the window's text, the attributes in its head and how each is judged at
+    its end). A window saved without ``judges`` says the attributes in its head instead (``_window_head_lines``)."""
+    lines = judges_lines(d.get("judges") or {})
+    at = _dissolution_time_text(d, "").removeprefix("dissolution ")
+    return [f"{line}; {at}" if at and line.startswith("  dissolution_pct: ") else line for line in lines]
 
 
 def _not_judged(d: dict) -> dict[str, str]:
@@ -467,10 +485,7 @@ def _window_head_lines(d: dict, bound: dict, has_bound: bool) -> list[str]:
     lines = [f"Model {d['model_id']}; window where {what}"
              + (" (" + "; ".join(f"{a}: {why}, not judged" if "not judged" not in why else f"{a}: {why}"
                                  for a, why in _not_judged(d).items()) + ")" if d["not_modelled"] else "") + ".",
-             f"Judged: {', '.join(d['attributes'])}"
-             + (f"; dissolution at {d['dissolution_time_min']:g} min"
-                if d.get("dissolution_time_min") and "dissolution_pct" in d["attributes"] else "")
-             + (f" ({d['time_point_note']})" if d.get("time_point_note") else "") + ".",
+             *([] if d.get("judges") else [f"Judged: {', '.join(d['attributes'])}{_dissolution_time_text(d, '; ')}."]),
              f"Training lots cover ribbon porosity {por['data_range'][0]:.3f}–{por['data_range'][1]:.3f}."]
     if not d.get("promise", True):
         from linkage.report.sheet import WINDOW_NO_PROMISE
@@ -517,10 +532,13 @@ def _roll_force_lines(d: dict, has_bound: bool) -> list[str]:
     rf = d["roll_force_kn_per_cm"]
     lines = []
     if rf.get("low") is not None:
-        lines.append(f"Roll force (through the whole chain, ribbon scatter included; every specification at least "
-                     f"{percent_text(d['confidence'])}"
+        on_lots = ", judged on lot values," if rf.get("lot_values_note") else ""
+        lines.append(f"Roll force (through the whole chain, ribbon scatter included; every specification{on_lots} "
+                     f"at least {percent_text(d['confidence'])}"
                      + (f" with {percent_text(d['assurance'])} assurance" if has_bound else " by the point estimate") +
                      f"): {rf['low']:.2f} – {rf['high']:.2f} kN/cm")
+        if rf.get("lot_values_note"):
+            lines.append(f"  {rf['lot_values_note']}")
     elif rf.get("reason"):
         lines.append(f"Roll force: {rf['reason']}")
     if rf.get("compactors_note") and rf.get("low") is not None:
@@ -1020,6 +1038,28 @@ def _mixed_entry_text(inputs: dict) -> str:
     return f", mixed ({counts_text(counts)})" if is_mixed(counts) else ""
 
 
+def predict_outcome_text(outputs: dict) -> str:
+    """The audit's outcome of a ``predict`` entry: P(all pass) as ``predict`` writes it, the lower bound with its
+    assurance where the entry records one and the point estimate said as such (a user test read "predicted;
+    P(all pass) 1.000": a certainty, and neither bound nor point estimate)."""
+    from linkage.report.sheet import at_least, probability_text
+
+    p = outputs.get("p_pass_all")
+    if not isinstance(p, (int, float)):
+        return "predicted"
+    bound = outputs.get("p_pass_all_bound") if isinstance(outputs.get("p_pass_all_bound"), dict) else {}
+    low, assurance = bound.get("low"), bound.get("assurance")
+    point = f"point estimate {probability_text(p)}"
+    has_bound = isinstance(low, (int, float)) and isinstance(assurance, (int, float))
+    if outputs.get("promise") is False:  # as predict says it: nothing promised, and why
+        why = "outside the applicability domain" if outputs.get("in_domain") is False or has_bound else \
+            "no lower bound"
+        return f"predicted; P(all pass) not promised, {why}; {point}"
+    if has_bound:
+        return f"predicted; P(all pass) {at_least(low)} with {percent_text(assurance)} assurance, {point}"
+    return f"predicted; P(all pass) {point}, no lower bound"
+
+
 def _audit_outcome(entry: dict) -> tuple[str, str | None]:
     """What one audit entry came to, in a few words, and the model it concerns for the text table: for a
     retrain that did not promote, the champion that stays (the challenger, the entry's ``model_id``, is named in
@@ -1064,8 +1104,7 @@ def _audit_outcome(entry: dict) -> tuple[str, str | None]:
             return f"porosity window {por['low']:.3f}–{por['high']:.3f}", model
         return "no window found", model
     if action == "predict":
-        p = o.get("p_pass_all")
-        return ("predicted" if not isinstance(p, (int, float)) else f"predicted; P(all pass) {p:.3f}"), model
+        return predict_outcome_text(o), model
     if action == "plan":
         return f"{_lots_count(o.get('lots'))} lot(s) planned", model
     if action == "running":

@@ -71,4 +71,13 @@ def test_the_top_level_help_example_runs_from_any_folder(tmp_path, monkeypatch):
         assert r.exit_code == 0, (line, r.output)
         if line.startswith("linkage demo"):
             assert "spec file       demo/spec.toml" in r.stdout
+            # the closing lines give a later command every option it needs (a user test: `--spec` alone was
+            # said, and the next command in the folder failed with "no model registry at models")
+            said = r.stdout.splitlines()
+            later = said[said.index("later commands  give them the demo's spec, store and models, for example:") + 1]
+            assert later.strip() == ("linkage window --spec demo/spec.toml --store demo/demo-lots.db "
+                                     "--models-dir demo/models"), later
+            done = runner.invoke(cli, [*shlex.split(later)[1:], "--no-record"],
+                                 env={"LINKAGE_STORE": None, "LINKAGE_MODELS_DIR": None})
+            assert done.exit_code == 0 and "Porosity window:" in done.stdout, done.output
             assert (tmp_path / "demo" / "spec.toml").read_bytes() == (DEMO_DATA / "lots" / "spec.toml").read_bytes()

@@ -39,8 +39,20 @@ def demo(out):
     click.echo(f"what-if sheet   {result.whatif_html}")
     click.echo(f"report          {result.report}")
     if result.spec is not None:
-        click.echo(f"spec file       {result.spec} (give it to later commands as --spec)")
+        click.echo(f"spec file       {result.spec}")
+    # a later command in the same folder finds neither the demo's store nor its models by default (a user test)
+    click.echo("later commands  give them the demo's spec, store and models, for example:")
+    click.echo(f"  linkage window {later_options(result)}")
     total = sum(result.seconds.values())
     click.echo("seconds         " + ", ".join(f"{k} {v:.1f}" for k, v in result.seconds.items())
                + f"; total {total:.1f}")
     click.echo(CAUTION)
+
+
+def later_options(result) -> str:
+    """The options that point a later command at the demo's own spec, lot store and model registry (quoted
+    for a shell where a path needs it)."""
+    from shlex import quote
+
+    spec = f"--spec {quote(str(result.spec))} " if result.spec is not None else ""
+    return f"{spec}--store {quote(str(result.store))} --models-dir {quote(str(result.models_dir))}"

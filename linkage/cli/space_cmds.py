@@ -32,7 +32,7 @@ from linkage.decide import defaults
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the Monte Carlo draws.")
 @click.option("--png", "png_path", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Also write the contour map as a PNG (without the lots: the model file does not hold them; "
-                   "the report draws them).")
+                   "the report draws them), with the caution under it.")
 @models_dir_option
 @store_option
 @json_option
@@ -77,7 +77,7 @@ def space(spec_path, model_id, x, y, n_grid, assignments, confidence, assurance,
         from linkage.report.space_section import plot_space
 
         png_path.parent.mkdir(parents=True, exist_ok=True)
-        write_atomic(png_path, figure_png(plot_space(result)))
+        write_atomic(png_path, figure_png(plot_space(result, caution=True)))
     if as_json:
         click.echo(json.dumps(jsonable(result.to_dict()), indent=2, allow_nan=False))
         return

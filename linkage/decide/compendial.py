@@ -104,6 +104,8 @@ __all__ = [
     "Judged",
     "judge_draws",
     "judge_text",
+    "judged_on_units",
+    "lot_values_text",
     "within_lot_of",
 ]
 
@@ -335,6 +337,29 @@ def judge_text(spec) -> dict[str, str]:
         out[ACCEPTANCE_VALUE] = (f"USP <905> acceptance value <= L1 = {spec.acceptance_value_max:g} by weight "
                                  "variation on simulated units, two stages (10, then 30 units)")
     return out
+
+
+def judged_on_units(spec, predicted=()) -> list[str]:
+    """The attributes ``spec`` judges on simulated units (USP <711> stages; the USP <905> acceptance value),
+    dissolution only where the chain predicts it (``predicted``): what a computation on lot values alone (the roll
+    force range, the design-space map) does not judge as the porosity window and ``predict`` do."""
+    if spec is None:
+        return []
+    units = [DISSOLUTION] if (getattr(spec, "dissolution_judge", "mean") == "stages" and DISSOLUTION in spec.limits
+                              and DISSOLUTION in predicted) else []
+    return units + ([ACCEPTANCE_VALUE] if getattr(spec, "acceptance_value_max", None) is not None else [])
+
+
+def lot_values_text(units: list[str], what: str) -> str | None:
+    """Why ``what`` (its subject and verb: 'the roll force range rests') is not the same judgement as
+    the porosity window's, where the spec judges ``units`` on simulated units (None where it judges none): one
+    sentence, said wherever ``what`` is stated (a user test read the map's ranges beside the window's as one
+    judgement)."""
+    if not units:
+        return None
+    return (f"The spec judges {', '.join(units)} by compendial stages on simulated units, as the porosity window, "
+            f"predict and the what-if sheet do; {what} on lot means against each limit, not on those stages: "
+            "not the same judgement as the window's.")
 
 
 def needs_units(spec) -> bool:

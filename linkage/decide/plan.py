@@ -253,7 +253,7 @@ class Plan:
             lines.append(f"  {e['name']}: {e['where']}; relative variance after the plan "
                          f"{e['relative_variance']:.2f}")
         if self.held:
-            lines.append("Held: " + ", ".join(f"{k} = {v:g}" for k, v in self.held.items()))
+            lines.append("Held: " + ", ".join(f"{k} = {v:.4g}" for k, v in self.held.items()))
         names = list(self.ranges)
         domain = {True: "inside", False: "OUTSIDE", None: "-"}
         judged = self.kind == "augment"

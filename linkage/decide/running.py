@@ -844,9 +844,9 @@ def draw_chart(result: RunningResult, path) -> None:
 
 def chart_figure(result: RunningResult):
     """The figure of :func:`draw_chart`: every line in the legend, the caution whole (wrapped)."""
-    import textwrap
-
     import matplotlib.pyplot as plt
+
+    from linkage.report.figures import caution_footer
 
     rows = result.samples
     t = [r["hours"] for r in rows]
@@ -868,6 +868,6 @@ def chart_figure(result: RunningResult):
     ax.set_ylabel("ribbon porosity [-]")
     ax.set_title(f"lot {result.lot}: running guidance", fontsize=10)
     ax.legend(fontsize=6.5, loc="best")
-    fig.text(0.01, 0.01, "\n".join(textwrap.wrap(CAUTION, 150)), fontsize=5.5, color="#555555", va="bottom")
+    caution_footer(fig)
     fig.tight_layout(rect=(0, 0.07, 1, 1))
     return fig

@@ -102,6 +102,9 @@ class SpaceResult:
     #: why the store was not read for them (it does not exist, or could not be read); None when it was, or when no
     #: store was given (the command line says it on stderr)
     set_aside_unread: str | None = None
+    #: where the spec judges attributes on simulated units (USP <711> stages, USP <905>), the sentence saying that
+    #: the map's acceptable ranges and set point rest on lot means instead (linkage.decide.compendial.lot_values_text)
+    lot_values_note: str | None = None
 
     @property
     def surface(self) -> np.ndarray:
@@ -143,6 +146,7 @@ class SpaceResult:
             "bound": dict(self.bound),
             "attributes": list(self.attributes),
             "judged_on": "lot means against each limit; compendial unit stages not simulated on the map",
+            "lot_values_note": self.lot_values_note,
             "given": dict(self.given),
             "held": {"rule": self.held_rule, "sources": dict(self.held_sources),
                      "values": {k: grid(v) for k, v in self.held.items()}},
@@ -318,6 +322,7 @@ def design_space(chain, spec, *, x: str = FORCE, y: str = GAP, n_grid: int = MAP
     attributes = [a for a in spec.limits if a in lean.targets]
     if not attributes:
         raise UsageError("no specification limit is on an attribute the chain predicts")
+    from linkage.decide.compendial import judged_on_units, lot_values_text
     from linkage.decide.window import check_confidence_supported, judged_residuals
 
     check_confidence_supported(lean, judged_residuals(attributes, spec), confidence)
@@ -344,7 +349,9 @@ def design_space(chain, spec, *, x: str = FORCE, y: str = GAP, n_grid: int = MAP
         in_domain=mask.reshape(shape), held={k: v.reshape(shape) for k, v in held_cols.items()},
         held_sources=sources, held_rule=rule, given={k: float(v) for k, v in settings.items()},
         attributes=attributes, confidence=float(confidence), assurance=assurance, bound=bound, seed=int(seed),
-        domain_reasons=reasons, replicates=cp.reps_all)
+        domain_reasons=reasons, replicates=cp.reps_all,
+        lot_values_note=lot_values_text(judged_on_units(spec, lean.targets),
+                                        "the acceptable ranges and set point of this map rest"))
     result.ranges = acceptable_ranges(result)
     return result
 
@@ -479,6 +486,7 @@ def space_text(result: SpaceResult) -> str:
     lines = [f"Model {d['model_id']}; map of P(every specification passes together) over {result.x} × {result.y} "
              f"({len(result.xs)} × {len(result.ys)} grid over the training ranges).",
              f"Judged: {', '.join(result.attributes)} ({d['judged_on']}).",
+             *([f"!! {result.lot_values_note}"] if result.lot_values_note else []),
              f"Held: {result.held_rule}."]
     if result.given:
         lines.append("Given: " + ", ".join(f"{k} = {v:g}" for k, v in result.given.items()))

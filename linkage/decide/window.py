@@ -294,6 +294,9 @@ def _window_roll_force(chain, lean, spec, roots: dict, low: float | None, high: 
     pooled = pooled_compactors(getattr(chain, "training", None), ribbon.inputs if ribbon is not None else ())
     if pooled:
         force["compactors"], force["compactors_note"] = pooled
+    units = compendial.judged_on_units(spec, lean.targets)
+    if units:  # the range is simulated on lot values (chain_force_range): said beside it, as the map says it
+        force["lot_values_note"] = compendial.lot_values_text(units, "the roll force range rests")
     return force
 
 

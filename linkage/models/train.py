@@ -48,6 +48,7 @@ from linkage.models.grouping import lot_groups
 from linkage.models.fitted import (COVERAGE_METHOD, INTERVAL_CHOICE_RULE, FittedChain, FittedStage,
                                    FittedTarget)
 from linkage.models.lean import spread_scale
+from linkage.numbers import points_text
 from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN, NOISE_COLUMNS
 
 # re-exported: others import the fitted classes from here
@@ -579,16 +580,17 @@ def _choose_interval(plan: _Plan, oof_sel: np.ndarray, residuals: np.ndarray, co
     test = f"Glejser test of a trend of |residual| with the level: p = {trend['p_value']:.3g}"
     if use_lw:
         reason = (f"under nested CV its worst region misses the nominal {nominal:.0%} by "
-                  f"{lw['worst_region_gap']:.1%} against {plain['worst_region_gap']:.1%} for CV+, and the spread "
-                  f"changes with the level ({test})")
+                  f"{points_text(lw['worst_region_gap'])} against {points_text(plain['worst_region_gap'])} for CV+, "
+                  f"and the spread changes with the level ({test})")
     elif closer:
         reason = (f"CV+ kept: the spread does not change detectably with the level ({test} ≥ "
                   f"{SPREAD_TEST_LEVEL:g}), so a spread model would follow noise (under nested CV the worst region "
-                  f"misses the nominal {nominal:.0%} by {plain['worst_region_gap']:.1%}, locally weighted "
-                  f"{lw['worst_region_gap']:.1%})")
+                  f"misses the nominal {nominal:.0%} by {points_text(plain['worst_region_gap'])}, locally weighted "
+                  f"{points_text(lw['worst_region_gap'])})")
     else:
         reason = (f"CV+ kept: under nested CV the worst region misses the nominal {nominal:.0%} by "
-                  f"{plain['worst_region_gap']:.1%} (locally weighted: {lw['worst_region_gap']:.1%})")
+                  f"{points_text(plain['worst_region_gap'])} (locally weighted: "
+                  f"{points_text(lw['worst_region_gap'])})")
     return {"method": method, "rule": INTERVAL_CHOICE_RULE, "reason": reason, "by_method": by,
             "spread_test": {"method": "Glejser 1969", **trend, "level": SPREAD_TEST_LEVEL},
             "regions": by[method]["regions"], "coverage": by[method]["coverage"], "variable": variable,

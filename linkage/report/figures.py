@@ -190,6 +190,23 @@ def figure_png(fig_or_ax) -> bytes:
     return buf.getvalue()
 
 
+#: the caution's type at the foot of a figure written alone, and its characters a line (:func:`caution_footer`)
+CAUTION_FONTSIZE = 5.5
+CAUTION_WRAP = 150
+
+
+def caution_footer(fig) -> None:
+    """The caution in full, wrapped, in small grey type at the foot of ``fig``: a figure written to a file of
+    its own (``running --chart``, ``space --png``) carries it as every text does; the figure leaves room for
+    it at its foot."""
+    import textwrap
+
+    from linkage import CAUTION
+
+    fig.text(0.01, 0.01, "\n".join(textwrap.wrap(CAUTION, CAUTION_WRAP)), fontsize=CAUTION_FONTSIZE,
+             color="#555555", va="bottom")
+
+
 def png_data_uri(fig_or_ax) -> str:
     """``data:image/png;base64,...`` of a figure, for an ``<img src>``."""
     return "data:image/png;base64," + base64.b64encode(figure_png(fig_or_ax)).decode("ascii")

@@ -15,17 +15,25 @@ from linkage.decide.defaults import MAP_GRID
 from linkage.numbers import percent_text
 
 
-def plot_space(result, lots_x=None, lots_y=None, *, trained=None, ax=None):
+#: inches added at the foot of a map drawn with the caution under it (:func:`plot_space`, ``caution=True``)
+CAUTION_ROOM = 0.35
+
+
+def plot_space(result, lots_x=None, lots_y=None, *, trained=None, ax=None, caution: bool = False):
     """Filled contours of the lower bound of P(all pass) (the point estimate
     without one) over the two mapped settings; the confidence contour of the
     bound (solid) and of the point estimate (dashed); the applicability-domain
     boundary (thick grey; outside it hatched); the lots (open dots: the
     training lots; filled squares: the others, where ``trained``, one bool a
     lot, says which is which; every lot is a training lot without it); the
-    acceptable ranges' box and the suggested set point. Units on both axes."""
-    from linkage.report.figures import BLACK, BLUE, CMAP, GREY, VERMILION, axis_label, new_axes
+    acceptable ranges' box and the suggested set point. Units on both axes.
+    ``caution``: the caution in full at the figure's foot (``space --png``: a map with acceptable ranges and a
+    set point, written alone, carries it as ``running --chart`` does; the report says it in its own words)."""
+    from linkage.report.figures import BLACK, BLUE, CMAP, GREY, VERMILION, axis_label, caution_footer, new_axes
 
-    ax = new_axes(ax, panel=(5.6, 4.2), right=1.3, bottom=1.45)
+    ax = new_axes(ax, panel=(5.6, 4.2), right=1.3, bottom=1.45 + (CAUTION_ROOM if caution else 0.0))
+    if caution:
+        caution_footer(ax.figure)
     X, Y = np.meshgrid(result.xs, result.ys)
     surface = result.surface
     filled = ax.contourf(X, Y, surface, levels=np.linspace(0, 1, 11), cmap=CMAP, vmin=0, vmax=1)
@@ -127,6 +135,8 @@ def space_section(b, chain, table, spec, *, confidence: float = 0.9, assurance: 
                    "training lots" + ("" if trained.all() else f" ({int(trained.sum())}); filled squares: the lots the "
                                       f"model was not trained on ({int((~trained).sum())})")
                  + ". Blue box and star: the acceptable ranges and the suggested set point.")
+    if getattr(r, "lot_values_note", None):  # a map kept by an earlier version has none
+        b.add(_part("sections", "space_lot_means", text=r.lot_values_note))
     ar = r.ranges
     if ar.get("found"):
         rows = [[k, f"{lo:.4g}", f"{hi:.4g}", "mapped"] for k, (lo, hi) in ar["ranges"].items()]
