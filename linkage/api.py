@@ -299,7 +299,7 @@ def _read_folder_beside(folder: Path, lot_store, known: list[str], accept_unusua
     history of its tables read whole beside the other problems (:meth:`LotStore.unusual_beside`; one refusal for
     the folder, not a second round once the first problems are mended). Without a store, or with
     ``accept_unusual``, the refusal as the reader made it."""
-    from linkage.exceptions import InputError
+    from linkage.exceptions import InputError, Problem, StoreBusyError, StoreError
     from linkage.read import read_folder
 
     try:
@@ -308,7 +308,13 @@ def _read_folder_beside(folder: Path, lot_store, known: list[str], accept_unusua
         read = getattr(exc, "read", None)
         if lot_store is None or accept_unusual or read is None or not read.tables:
             raise
-        beside = lot_store.unusual_beside(read, getattr(exc, "judged", []))
+        try:
+            beside = lot_store.unusual_beside(read, getattr(exc, "judged", []))
+        except (StoreError, StoreBusyError) as failed:  # the folder's refusal stands; the store's problem is said
+            store_name = Path(getattr(lot_store, "path", "the lot store")).name
+            beside = [Problem(store_name, "the folder's values could not be compared with the store's history, "
+                                          "a problem of the store, not of the folder; run 'linkage verify' on it. "
+                                          f"{type(failed).__name__}: {failed}")]
         if not beside:
             raise
         raise InputError([*exc.problems, *beside]) from None

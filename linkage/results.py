@@ -279,8 +279,15 @@ def materials_lines(m: dict | None) -> list[str]:
             on = (f"{v['n_lots']} lots" if "n_lots_attribute" not in v else
                   f"the {v['n_lots']} of {v['n_lots_attribute']} lots that have it, against refits without it on "
                   f"the same lots and folds")
+            # both tests that decide, each with its p, and the level they must pass (a review: only the first was
+            # shown, so a column refused by the second read as better with p tiny and 'not kept')
+            same = ("" if "p_same_candidate" not in v else
+                    f"; against {v['candidate']} without it {v['rmse_same_candidate_without']:.4g}, "
+                    f"p = {v['p_same_candidate']:.2g}")
+            level = f"; level {v['level']:.2g}" if "level" in v else ""
             lines.append(f"    {c}: {v['rmse_with']:.4g} with ({v['candidate']}) against {v['rmse_without']:.4g} "
-                         f"without, paired p = {v['p']:.2g} on {on}: " + ("kept" if v["kept"] else "not kept"))
+                         f"without, paired p = {v['p']:.2g} on {on}{same}{level}: "
+                         + ("kept" if v["kept"] else "not kept"))
         if r.get("final"):
             f = r["final"]
             lines.append(f"    refitted with {', '.join(r['kept_columns'])} in stage {f['stage']}: "

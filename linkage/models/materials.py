@@ -395,7 +395,10 @@ def _best_columns(rows: dict, columns: list[str]) -> dict[str, list[str]]:
             best = min(passing or tried, key=lambda k: tried[k]["rmse_with"])
             b = tried[best]
             rec.update(candidate=best, n_lots=b["n_lots"], rmse_with=b["rmse_with"], rmse_se_with=b["rmse_se_with"],
-                       rmse_without=b["rmse_without"], p=b["vs_selected"]["p"], kept=bool(passing))
+                       rmse_without=b["rmse_without"], p=b["vs_selected"]["p"], kept=bool(passing), level=b["level"])
+            same = b.get("vs_candidate_without")  # the second test: the same candidate without the column
+            if same is not None:
+                rec.update(rmse_same_candidate_without=same["rmse_without"], p_same_candidate=same["p"])
             best_of[c] = rec
         if best_of:
             c = min(best_of, key=lambda k: best_of[k]["rmse_with"])

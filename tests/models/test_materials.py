@@ -218,6 +218,14 @@ def test_a_noise_column_missing_on_older_lots_is_compared_on_the_same_lots_and_n
     text = "\n".join(materials_lines(m))
     assert "noise_x is missing on 4 lots (" + ", ".join(old) + ")" in text
     assert "on the 48 of 52 lots that have it" in text
+    # each column's line gives both tests that decide, with the level (a review: the second test, which refused,
+    # was not shown); where linear_select is the best candidate, its test without the column is on the line
+    c_lines = [line for line in text.splitlines() if line.strip().startswith("noise_x:") and "with (" in line]
+    recs = [r["columns"]["noise_x"] for r in m["targets"].values() if "rmse_with" in r["columns"].get("noise_x", {})]
+    assert c_lines and len(c_lines) == len(recs) and all("; level " in line for line in c_lines)
+    second = [v for v in recs if "p_same_candidate" in v]
+    assert sum(f"; against {v['candidate']} without it {v['rmse_same_candidate_without']:.4g}, p = " in line
+               for line in c_lines for v in second) == len(second) > 0
     assert [st.name for st in fitted.stages] == ["ribbon", "granules", "tablets"]  # the chain without the column
 
 

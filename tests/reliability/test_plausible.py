@@ -125,6 +125,30 @@ def test_a_usual_new_lot_is_taken(tmp_path):
     assert run_cli(["ingest", new, "--store", store]).exit_code == 0
 
 
+def test_a_store_that_fails_the_history_comparison_leaves_the_folders_refusal_standing(tmp_path, monkeypatch):
+    """A store whose history pages cannot be read (a damaged page: 'database disk image is malformed') made the
+    comparison beside a refused folder replace the folder's refusal: exit 5 and none of the folder's problems
+    (a review). The folder's problems stand, exit 2, with a line saying the comparison could not be made and
+    pointing to 'linkage verify'. A regression test of a refusal (no outside source)."""
+    from linkage.exceptions import StoreError
+    from linkage.store import LotStore
+
+    density = _set("ribbon", "envelope_density_g_cm3", lambda v: "-1")
+    _, new, store = _history_and_new_lot(tmp_path, density)
+
+    def unreadable(self, *args, **kwargs):
+        raise StoreError("database disk image is malformed")
+
+    monkeypatch.setattr(LotStore, "unusual_beside", unreadable)
+    before = store.read_bytes()
+    for extra in ([], ["--preview"]):
+        result = run_cli(["ingest", new, "--store", store, *extra])
+        assert result.exit_code == 2, result.output
+        assert "column 'envelope_density_g_cm3'" in result.stderr and "outside the range" in result.stderr
+        assert "could not be compared with the store's history" in result.stderr
+        assert "linkage verify" in result.stderr and store.read_bytes() == before
+
+
 def test_an_unusual_value_taken_deliberately_is_recorded(tmp_path):
     _, new, store = _history_and_new_lot(tmp_path, _set("tablets", "dissolution_pct", lambda v: f"{v / 100:.4f}"))
     no_reason = run_cli(["ingest", new, "--store", store, "--accept-unusual"])
