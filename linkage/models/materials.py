@@ -183,9 +183,11 @@ def _final_record(row: dict, t, before) -> dict:
     left = [str(v) for v in before.lots if str(v) not in now]
     if left:
         out["lots_left_out"] = left
+        needed = [c for c in row["kept_columns"] if c in t.inputs]
+        lack = (f"they lack {needed[0]}, now an input of it" if len(needed) == 1 else
+                f"each lacks one or more of {', '.join(needed)}, now inputs of it")  # a review: not every one
         out["note"] = (f"fitted on {t.n_lots} of the {before.n_lots} lots: {', '.join(left)} left out of stage "
-                       f"{t.stage} because they lack {', '.join(c for c in row['kept_columns'] if c in t.inputs)}, "
-                       "now an input of it (kept by the paired comparison on the lots that have it)")
+                       f"{t.stage} because {lack}; kept by the paired comparison on the lots that have it")
         t.notes.append(out["note"])
     return out
 
