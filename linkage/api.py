@@ -442,9 +442,10 @@ def set_aside(lots, store=DEFAULT_STORE, *, reason: str | None = None):
     fits or judges lots (:func:`assemble`, and so train, retrain, watch, report, plan, transfer) leaves them out
     and says so, until :func:`restore`. Each decision is an audit entry ``set-aside`` (who, when, ``reason``),
     sealed like every record. Refused (``UsageError``, exit code 2, nothing written; every problem in one message)
-    without a ``reason``, for a lot the store does not hold (every such lot named) and for a lot already set aside; a store without its
-    anchor file is refused (``StoreIntegrityError``, exit code 6). Lots are found under a spelling that differs only
-    in letter case and dash characters (‐ – — and the like), as an ingest finds them (:func:`linkage.lotid.lot_key`)."""
+    without a ``reason``, for a lot the store does not hold (every such lot named) and for a lot already set
+    aside; a store without its anchor file is refused (``StoreIntegrityError``, exit code 6). Lots are found under
+    a spelling that differs only in letter case and dash characters (‐ – — and the like), as an ingest finds them
+    (:func:`linkage.lotid.lot_key`)."""
     return _set_aside_decision(lots, store, reason, restore=False)
 
 
@@ -621,9 +622,9 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
     """The ribbon porosity window where every limit of ``spec`` passes
     together with probability ``confidence``, and the roll force that lands
     in it (``linkage window``); settings not in ``settings`` are held
-    coherently with them (their conditional mean over the training lots). The window rests on the lower bound at ``assurance``
-    of that probability (issue 12; :mod:`linkage.decide.bound`). Logged as
-    ``window`` in the store's audit trail; ``record=False`` (``--no-record``) writes nothing in the store, and a
+    coherently with them (their conditional mean over the training lots). The
+    window rests on the lower bound at ``assurance`` of that probability (issue 12; :mod:`linkage.decide.bound`).
+    Logged as ``window`` in the store's audit trail; ``record=False`` (``--no-record``) writes nothing in the store, and a
     store that does not exist is refused unless it is the default ``linkage.db`` (:func:`recording`)."""
     from linkage.decide.bound import check_assurance
     from linkage.decide.window import find_window
@@ -754,9 +755,9 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
     written = planning.write_plan(result, out) if out is not None else []
     recorded = record(store, "plan", model_id=result.model_id,
                       inputs={"n_lots": n_lots, "ranges": {k: list(v) for k, v in (ranges or {}).items()},
-                              "settings": settings, "confidence": confidence, "assurance": assurance, "seed": seed, "edges": edges,
-                              "criterion": criterion,
-                              "spec_file": spec.file, "spec_sha256": spec.sha256, "out": None if out is None else str(out)},
+                              "settings": settings, "confidence": confidence, "assurance": assurance, "seed": seed,
+                              "edges": edges, "criterion": criterion, "spec_file": spec.file,
+                              "spec_sha256": spec.sha256, "out": None if out is None else str(out)},
                       outputs={"lots": [lot.to_dict() for lot in result.lots], "edges": result.edges})
     return planning.Planned(result, written, recorded)
 
@@ -1251,7 +1252,8 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
     restored = restored_since_training(chain, result.new_lots, notes)
     with LotStore(store, create=False, for_writing=True) as s:
         s.log("watch", model_id=chain.model_id, inputs={"window": found, "product": product},
-              outputs={"alarms": result.alarms, "alarmed_lots": result.alarmed_lots, "new_lots": result.new_lots, "restored_since_training": restored,
+              outputs={"alarms": result.alarms, "alarmed_lots": result.alarmed_lots, "new_lots": result.new_lots,
+                       "restored_since_training": restored,
                        "revised_since_training": [r["lot"] for r in revised], "set_aside_lots": aside})
     return Watched(result=result, n_lots=len(table), window=found, store=Path(store),
                    time_point=time_point_text(chain) if "dissolution_pct" in chain.targets else None, revised=revised,

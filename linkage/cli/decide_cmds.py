@@ -102,7 +102,8 @@ def window(spec_path, model_id, assignments, confidence, n_draws, seed, assuranc
               help="A porosity window ('linkage window --json' output) for the page to draw.")
 @click.option("--lot", default=None, help="The lot this what-if is for; its results, when they arrive, are "
               "compared with the prediction ('linkage watch'). A stored lot is found under a spelling that "
-              "differs only in letter case and dash characters (‐ – — and the like) and the what-if recorded under the store's spelling; a lot not made yet is "
+              "differs only in letter case and dash characters (‐ – — and the like) and the what-if recorded "
+              "under the store's spelling; a lot not made yet is "
               "recorded as typed (spaces collapsed).")
 @click.option("--product", default=None, help="The product this what-if is for (stated on the sheet and in the "
               "JSON); refused when the model was not trained on it.  [default: the model's product when it was "
@@ -189,7 +190,8 @@ def predict(model_id, assignments, spec_path, level, from_csv, html_path, page_p
         from linkage.report.sheet import whatif_html
 
         html_path.parent.mkdir(parents=True, exist_ok=True)
-        write_atomic(html_path, whatif_html(results[0].result, results[0].set_aside_note).encode("utf-8"))  # whole or not at all
+        sheet = whatif_html(results[0].result, results[0].set_aside_note)
+        write_atomic(html_path, sheet.encode("utf-8"))  # whole or not at all
     if as_json:
         payload = results[0].to_dict() if from_csv is None else [r.to_dict() for r in results]
         # strict JSON: an unbounded interval end (too few lots) is null; the model's notes say why

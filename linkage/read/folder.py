@@ -94,14 +94,11 @@ def read_folder(folder: Path, mapping: Mapping | None = None, *,
             formulas.close()
 
 
-def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: dict,
-                 accept_unusual: bool = False) -> Ingest:
-    problems: list[Problem] = []
-    warnings: list[str] = []
-    sources: dict[str, dict] = {}
-    other: dict[str, dict] = {}
-    plan: dict[str, tuple[Path, str | None, str]] = {}  # table -> (file, sheet or None, label)
-    unread: list[tuple[str, str, str | None]] = []  # sheets not read: (file, sheet, the table it is named after)
+def _plan_files(folder: Path, plan: dict, problems: list, warnings: list, workbooks: dict,
+                unread: list) -> tuple[Path | None, Path | None]:
+    """Sort the folder's files: each table file (or workbook sheet) planned for reading into ``plan``, a file
+    that cannot be read into ``problems``, one ignored into ``warnings``; returns the spec file and the column
+    mapping file (None where the folder has none)."""
     spec_path = mapping_path = None
     for entry in sorted(folder.iterdir(), key=lambda p: p.name.lower()):
         name, suffix = entry.name, entry.suffix.lower()
@@ -131,6 +128,18 @@ def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: d
         else:
             warnings.append(f"{name} ignored (not a table file; recognised: {', '.join(TABLES)} as .csv or "
                             f".xlsx, {SPEC_FILE}, {MAPPING_FILE})")
+    return spec_path, mapping_path
+
+
+def _read_folder(folder: Path, mapping: Mapping | None, known_lots, workbooks: dict,
+                 accept_unusual: bool = False) -> Ingest:
+    problems: list[Problem] = []
+    warnings: list[str] = []
+    sources: dict[str, dict] = {}
+    other: dict[str, dict] = {}
+    plan: dict[str, tuple[Path, str | None, str]] = {}  # table -> (file, sheet or None, label)
+    unread: list[tuple[str, str, str | None]] = []  # sheets not read: (file, sheet, the table it is named after)
+    spec_path, mapping_path = _plan_files(folder, plan, problems, warnings, workbooks, unread)
     if mapping is None and mapping_path is not None:
         try:
             mapping = read_mapping(mapping_path)

@@ -18,7 +18,8 @@ import pandas as pd
 from linkage.exceptions import InputError, Problem
 from linkage.read import MAPPING_FILE, UNSUPPORTED_SUFFIXES, WORKBOOK_SUFFIXES
 from linkage.read.cells import (_as_list, _column_clean, _decimal_mark, _extra_non_finite, _extra_values,
-                                _fast_cells, bound_slip, total_force_slip, _in_bounds, _parse_datetime, _parse_number, _shown, _text)
+                                _fast_cells, _in_bounds, _parse_datetime, _parse_number, _shown, _text, bound_slip,
+                                total_force_slip)
 from linkage.read.lots import _lot_id_problems, _visible, _without_invisible
 from linkage.read.mapping import ROLL_WIDTH_COLUMN, TOTAL_FORCE_COLUMN, ColumnMap, Mapping, _suggest, _without_unit
 from linkage.read.raw import _is_missing, _letters, _norm_header, _Raw
