@@ -754,7 +754,8 @@ class LotStore:
                     "and is read here by a command that records nothing in it: not upgraded, not changed; nothing "
                     "was written")
         return (f"the lot store {self.path} is read-only here (a read-only file system, or a file this account "
-                "cannot write): it can be read, not changed; nothing was written")
+                "cannot write): it can be read, not changed; nothing was written. To record nothing, 'linkage "
+                "window', 'predict' and 'running' take --no-record")  # a user test: the way out was not said
 
     def _unanchored_refusal(self, newest: dict | None = None) -> str:
         newest = newest or self.unanchored

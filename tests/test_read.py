@@ -266,6 +266,8 @@ def test_encoding_problems(tmp_path):
     (b"PK\x03\x04rest of a zip", None, "zipped workbook (.xlsx), not a CSV"),
     (b"lot,sample\nA,\x001\n", None, "NUL bytes"),
     (b"\n\nlot,sample\nA,1\n", 1, "the header must be on row 1"),
+    (b"", None, "the file is empty: no header and no rows"),  # a user test: it said row 1 is empty
+    (b"\n\n ,\n", None, "the file is empty: no header and no rows"),
 ])
 def test_file_level_problems(tmp_path, data, row, rule):
     path = tmp_path / "ribbon.csv"

@@ -63,7 +63,9 @@ def _from_records(text: str, sep: str, label: str) -> _Raw:
     """The raw sheet through the csv module, record by record: every case,
     quotes, blank and ragged rows included."""
     records = _records(text, sep, label)
-    if not records or not any(c.strip() for c in records[0]):
+    if not any(c.strip() for r in records for c in r):  # a user test: a 0-byte file was told its row 1 is empty
+        raise InputError(Problem(label, "the file is empty: no header and no rows; export the table again"))
+    if not any(c.strip() for c in records[0]):
         raise InputError(Problem(label, "the header must be on row 1 (row 1 is empty)", row=1))
     if len(records[0]) > package.MAX_COLUMNS:
         raise InputError(_too_many_columns(label, len(records[0])))

@@ -86,7 +86,9 @@ def _read_sheet(values_wb, formulas_wb, sheet: str, label: str) -> _Raw:
     percent: set[tuple[int, int]] = set()
     rows_v = _sheet_rows(ws, sheet, label, percent)
     rows_f = _sheet_rows(formulas_wb[sheet], sheet, label)
-    if not rows_v or not any(not _is_missing(c) for c in rows_v[0]):
+    if not any(not _is_missing(c) for r in rows_v for c in r):  # nothing in it: said so, not as a row 1 problem
+        raise InputError(Problem(label, "the sheet is empty: no header and no rows"))
+    if not any(not _is_missing(c) for c in rows_v[0]):
         raise InputError(Problem(label, "the header must be on row 1 (row 1 is empty)", row=1))
     if len(rows_v[0]) > package.MAX_COLUMNS:
         raise InputError(_too_many_columns(label, len(rows_v[0])))

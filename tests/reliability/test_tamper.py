@@ -239,8 +239,10 @@ def test_a_read_only_store_is_read_and_refuses_writes_clearly(store, monkeypatch
     assert run_cli(["assemble", "--store", store]).exit_code == 0
     with LotStore(store) as s:
         assert s.read_only
-        with pytest.raises(Exception, match="read-only here"):
+        with pytest.raises(Exception, match="read-only here") as refused:
             s.log("window")
+    # the way out is said: the commands that can record nothing (a user test found it missing)
+    assert "--no-record" in str(refused.value) and "'linkage window', 'predict' and 'running'" in str(refused.value)
     assert store.read_bytes() == before
 
 
