@@ -543,6 +543,7 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
     from linkage.assemble import assemble as assemble_table
     from linkage.assemble import check_dissolution_time
     from linkage.exceptions import InsufficientDataError
+    from linkage.decide.watch import design_at_training
     from linkage.models.chain import ChainSpec
     from linkage.models.registry import save
     from linkage.models.train import train_chain
@@ -569,6 +570,7 @@ def train(store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, *, chain: ChainSpe
                      n_jobs=n_jobs, backend=backend, dissolution_time_min=at["dissolution_time_min"],
                      group_by=group_by)
     fitted.training["set_aside_lots"] = list(tables.set_aside)  # recorded with the model: left out of its lots
+    fitted.training["watch_design"] = design_at_training(fitted)  # the drift alarm's limit, simulated once here
     model_id = save(fitted, models_dir)
     with LotStore(store, create=False, for_writing=True) as lot_store:
         lot_store.log("train", model_id=model_id,
@@ -1043,7 +1045,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
     from linkage.decide import mewma
 
     # the drift watch's designs, simulated by an earlier report (keyed by the simulation's own settings too)
-    simulation = dict(runs=mewma.RUNS, runs_estimated=mewma.RUNS_ESTIMATED, seed=mewma.SEED)
+    simulation = mewma.simulation_settings()
     designs = _reuse(models_dir, chain.model_id, "mewma", None, **simulation)
     mewma.remember(designs.result if designs is not None else [])
     figures_key = None

@@ -235,6 +235,7 @@ def train_json(fitted: FittedChain) -> dict:
         "materials": meta["training"].get("materials"),
         **products_json(meta["training"]),
         "set_aside_lots": list(meta["training"].get("set_aside_lots") or []),
+        "watch_design": meta["training"].get("watch_design"),  # the drift alarm's design, simulated at training
         "targets": {name: {**{k: t.get(k) for k in TARGET_KEYS}, "forward": t.get("forward")}
                     for name, t in meta["targets"].items()},
         "skipped": meta["skipped"],

@@ -104,6 +104,21 @@ def test_the_readme_python_section_runs_and_records_every_step(readme_run):
 
 
 @pytest.mark.slow
+def test_train_keeps_the_alarms_design_in_the_model(readme_run):
+    """Issue 20: `train` simulates the watch's multivariate alarm once and keeps it with the model (its training
+    record, in `train --json` too), the same design mewma.design simulates for the charted attributes and the
+    training lots (Lowry et al. 1992's scheme, h by simulation)."""
+    from linkage.decide.mewma import design
+    from linkage.decide.watch import design_at_training
+
+    trained = readme_run[0]["trained"]
+    kept = trained.chain.training["watch_design"]
+    assert kept == design_at_training(trained.chain)
+    assert kept["design"]["h"] == design(kept["design"]["attributes"], n_ref=kept["design"]["n_reference"])["h"]
+    assert trained.to_dict()["watch_design"] == kept  # train --json
+
+
+@pytest.mark.slow
 def test_summaries_hold_the_numbers_the_json_holds(readme_run):
     ns, _ = readme_run
     trained, window, whatif = ns["trained"], ns["window"], ns["whatif"]

@@ -176,6 +176,12 @@ def design(p: int, lam: float = LAMBDA, arl0: float = ARL0, n_ref: int | None = 
     return Design(kept if kept is not None else _design(int(p), float(lam), float(arl0), n_ref))
 
 
+def simulation_settings() -> dict:
+    """The simulation's own settings, beside a design kept for a later process (:func:`remember`): a design
+    simulated under other settings (an earlier linkage's) is simulated again rather than read."""
+    return {"runs": RUNS, "runs_estimated": RUNS_ESTIMATED, "seed": SEED}
+
+
 #: designs simulated by an earlier process and kept beside the model (:func:`remember`), by (p, λ, ARL0, n_ref)
 _KEPT: dict[tuple, dict] = {}
 

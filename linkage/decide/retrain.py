@@ -325,6 +325,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
             user: str | None = None, progress=None) -> RetrainDecision:
     """Fit a challenger on every lot, compare, promote by the rule, record."""
     from linkage.assemble import assemble, check_dissolution_time
+    from linkage.decide.watch import design_at_training
     from linkage.models import registry
     from linkage.models.train import train_chain
     from linkage.store import current_tables_of, reading, refuse_unanchored, set_aside_notes
@@ -352,6 +353,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
                              nominal_coverage=champion.nominal_coverage, progress=progress,
                              dissolution_time_min=time_min, group_by=_group_by(champion))
     challenger.training["set_aside_lots"] = list(tables.set_aside)  # recorded with the model, as train records it
+    challenger.training["watch_design"] = design_at_training(challenger)  # as train records it
     comparisons = compare(champion, challenger, table, tolerance=tolerance)
     promote, reasons = decide(comparisons, force=force, reason=reason, tolerance=tolerance)
     aside = set_aside_notes(tables.set_aside, champion, notes, "left out of the challenger's lots", replaced=promote)

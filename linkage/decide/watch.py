@@ -169,10 +169,17 @@ def residual_series(chain, table: pd.DataFrame, attribute: str) -> pd.DataFrame:
     return pd.DataFrame({"lot": lots, "phase": phase, "residual": residual})
 
 
+def _reference_values(chain, attribute: str) -> np.ndarray | None:
+    """The training lots' out-of-fold residuals that a chart of ``attribute`` is centred and scaled on, or None
+    where they cannot serve (fewer than 3, or all equal): the attribute is then not charted."""
+    ref_values = chain.targets[attribute].residuals.dropna().to_numpy(float)
+    return ref_values if len(ref_values) >= 3 and np.std(ref_values) > 0 else None
+
+
 def attribute_chart(chain, table: pd.DataFrame, attribute: str) -> AttributeChart | None:
     s = residual_series(chain, table, attribute)
-    ref_values = chain.targets[attribute].residuals.dropna().to_numpy(float)
-    if len(s) == 0 or len(ref_values) < 3 or not np.std(ref_values) > 0:
+    ref_values = _reference_values(chain, attribute)
+    if len(s) == 0 or ref_values is None:
         return None
     ref = Reference.from_values(ref_values)
     x = s["residual"].to_numpy(float)
@@ -231,6 +238,7 @@ def mewma_look(chain, charts: dict[str, AttributeChart], new_lots: list[str]) ->
     names = list(charts)
     corr = residual_correlation(chain, names)
     n_ref = min(c.reference.n for c in charts.values())
+    _remember_training_design(chain)
     d = stated_reference(design(len(names), n_ref=n_ref), n_ref)
     order = [lot for lot in dict.fromkeys(lot for c in charts.values() for lot in c.lots) if lot in set(new_lots)]
     x = standardised_residuals(charts, order)
@@ -245,6 +253,33 @@ def mewma_look(chain, charts: dict[str, AttributeChart], new_lots: list[str]) ->
                             + ", ".join(f"{names[j]} EWMA {row[j]:+.1f} SD" for j in top))
     return {"design": dict(d), "attributes": names, "correlation": corr.tolist(), "lots": list(x.index),
             "t2": [float(v) for v in t2], "h": d["h"], "signals": signals}
+
+
+def design_at_training(chain) -> dict | None:
+    """The design of the watch's multivariate alarm (:func:`mewma_look`) for every attribute ``chain`` can chart,
+    simulated when the model is made (``linkage train``, ``linkage retrain``) and kept in its training record
+    (``training["watch_design"]``) with the simulation's settings. The design is a function of the model alone:
+    how many attributes are charted and how many training lots their reference rests on. A later watch or
+    report of the model reads it (:func:`mewma_look`) instead of simulating it again, about a second each
+    (issue 20); where it charts fewer attributes (a table without one of them) it simulates that design as
+    before. None where no attribute can be charted."""
+    from linkage.decide.mewma import design, simulation_settings
+
+    refs = [Reference.from_values(v) for v in (_reference_values(chain, name) for name in chain.targets)
+            if v is not None]
+    if not refs:
+        return None
+    return {"design": dict(design(len(refs), n_ref=min(r.n for r in refs))), "simulation": simulation_settings()}
+
+
+def _remember_training_design(chain) -> None:
+    """Take the design kept in ``chain``'s training record (:func:`design_at_training`) as simulated, when it was
+    simulated under this linkage's settings."""
+    from linkage.decide.mewma import remember, simulation_settings
+
+    kept = (getattr(chain, "training", None) or {}).get("watch_design")
+    if isinstance(kept, dict) and kept.get("simulation") == simulation_settings():
+        remember([kept.get("design")])
 
 
 def stated_reference(d: dict, n_lots: int) -> dict:

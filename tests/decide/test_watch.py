@@ -200,3 +200,43 @@ def test_an_alarm_says_what_to_do_next_and_the_text_writes_micrometres(drift):
     # no alarm, no next step
     quiet = replace(result, mewma={**result.mewma, "signals": {}})
     assert quiet.alarmed_lots == [] and ALARM_NEXT_STEP not in Watched(result=quiet, n_lots=len(table)).text()
+
+
+def test_the_alarms_design_is_simulated_at_training_and_read_by_the_watch(drift, monkeypatch):
+    """Issue 20: the multivariate alarm's limit is a function of the model alone (charted attributes, training
+    lots), so `train` simulates it once and keeps it in the model's training record; the watch then reads it and
+    simulates nothing, with the same numbers as its own simulation. Checked against the simulation itself
+    (mewma.design, Lowry et al. 1992's scheme with h by simulation): the same h and run lengths."""
+    from linkage.decide import mewma
+    from linkage.decide.watch import design_at_training
+
+    lots, table, chain, order = drift
+    kept = design_at_training(chain)
+    assert kept["simulation"] == {"runs": mewma.RUNS, "runs_estimated": mewma.RUNS_ESTIMATED, "seed": mewma.SEED}
+    saved_kept, saved_training = dict(mewma._KEPT), chain.training
+    try:
+        mewma._KEPT.clear()
+        mewma._design.cache_clear()
+        simulated = watch(chain, table).mewma["design"]  # no kept design: simulated here
+        assert {k: simulated[k] for k in ("h", "arl", "attributes", "n_reference")} == \
+            {k: kept["design"][k] for k in ("h", "arl", "attributes", "n_reference")}
+        mewma._KEPT.clear()
+        mewma._design.cache_clear()
+
+        def no_simulation(*args, **kwargs):
+            raise AssertionError("the design kept at training was simulated again")
+
+        monkeypatch.setattr(mewma, "_simulate", no_simulation)
+        chain.training = {**saved_training, "watch_design": kept}
+        read = watch(chain, table).mewma["design"]
+        assert read == simulated
+        # a design kept under other simulation settings (an earlier linkage's) is not read: simulated again
+        mewma._KEPT.clear()
+        chain.training = {**saved_training, "watch_design": {**kept, "simulation": {**kept["simulation"], "runs": 1}}}
+        with pytest.raises(AssertionError, match="simulated again"):
+            watch(chain, table)
+    finally:
+        chain.training = saved_training
+        mewma._KEPT.clear()
+        mewma._KEPT.update(saved_kept)
+        mewma._design.cache_clear()
