@@ -106,6 +106,7 @@ __all__ = [
     "judge_text",
     "judged_on_units",
     "lot_values_text",
+    "needs_units",
     "within_lot_of",
 ]
 
@@ -363,7 +364,10 @@ def lot_values_text(units: list[str], what: str) -> str | None:
 
 
 def needs_units(spec) -> bool:
-    return spec is not None and (spec.dissolution_judge == "stages" or spec.acceptance_value_max is not None)
+    """Whether ``spec`` judges anything on simulated units: :func:`judged_on_units` of every attribute it limits
+    (a spec read from a file limits dissolution wherever it judges it by stages: ``judge = "stages"`` needs
+    ``min``), so that the porosity window, predict and the what-if sheet simulate units around each lot."""
+    return spec is not None and bool(judged_on_units(spec, spec.limits))
 
 
 @dataclass

@@ -238,3 +238,57 @@ def test_judge_text_names_each_judge():
     assert "USP <711>" in text["dissolution_pct"] and "pass by S2" in text["dissolution_pct"]
     assert text["friability_pct"] == "lot mean <= 1"
     assert "USP <905>" in text["acceptance_value"] and "L1 = 15" in text["acceptance_value"]
+
+
+def _needs_units_before(spec) -> bool:
+    """``needs_units`` as it was defined beside :func:`judged_on_units` until both became one definition: a spec
+    judges units when dissolution is judged by the USP <711> stages or it has a USP <905> acceptance value."""
+    return spec is not None and (spec.dissolution_judge == "stages" or spec.acceptance_value_max is not None)
+
+
+def _spec_shapes(tmp_path) -> list:
+    """The spec shapes the tests use: the window scenario's lot-mean limits, read from a file and made in code;
+    dissolution by stages alone, with pass_by and with an acceptance value; an acceptance value alone; a dissolution
+    limit at another time point; none."""
+    from linkage.spec import read_spec
+    from linkage.synthetic import WINDOW_SPEC, spec_toml
+
+    shapes = [None, Spec(limits={k: Limit(*v) for k, v in WINDOW_SPEC.items()}),
+              Spec(limits={"dissolution_pct": Limit(80.0, None)}, dissolution_judge="stages"),
+              Spec(limits={"dissolution_pct": Limit(80.0, None), "friability_pct": Limit(None, 1.0)},
+                   dissolution_judge="stages", dissolution_pass_by="S2", acceptance_value_max=15.0),
+              Spec(limits={}, acceptance_value_max=15.0), Spec({"dissolution_pct": Limit(75.0)}, 15.0),
+              Spec({"breaking_force_n": Limit(50.0)})]
+    for k, (judge, av) in enumerate([(None, None), ("mean", None), ("stages", None), (None, 15.0), ("stages", 15.0)]):
+        path = tmp_path / f"spec{k}.toml"
+        path.write_text(spec_toml(WINDOW_SPEC, dissolution_judge=judge, acceptance_value_max=av), encoding="utf-8")
+        shapes.append(read_spec(path))
+    return shapes + [Spec.from_dict(s.to_dict()) for s in shapes if s is not None]
+
+
+def test_needs_units_is_judged_on_units_of_every_limit_and_answers_as_before(tmp_path):
+    """One definition (``needs_units`` is :func:`judged_on_units` of the spec's own limits): the same answer as
+    the former definition on every spec shape the tests use, each one judging units exactly where its judge texts
+    name simulated units (USP <711> stages, USP <905> acceptance value)."""
+    shapes = _spec_shapes(tmp_path)
+    assert {C.needs_units(s) for s in shapes} == {True, False}  # both answers are met
+    for spec in shapes:
+        assert C.needs_units(spec) == _needs_units_before(spec), spec
+        said = [] if spec is None else [a for a, text in C.judge_text(spec).items() if "simulated units" in text]
+        assert C.needs_units(spec) == bool(said) and C.judged_on_units(spec, C.DISSOLUTION) == said, spec
+
+
+def test_stages_without_a_dissolution_limit_is_no_spec_a_file_gives(tmp_path):
+    """The one shape on which the former definition answered otherwise (dissolution judged by stages with no
+    dissolution limit: no Q to judge against) is refused when read: ``judge = "stages"`` needs min (USP <711>
+    Table 1 judges units against Q)."""
+    from linkage.exceptions import SpecError
+    from linkage.spec import read_spec
+
+    path = tmp_path / "spec.toml"
+    for limit, refusal in (("", "has neither min nor max"), ("max = 90\n", "needs min")):
+        path.write_text(f'[dissolution_pct]\njudge = "stages"\n{limit}', encoding="utf-8")
+        with pytest.raises(SpecError, match=refusal):
+            read_spec(path)
+    made = Spec(limits={}, dissolution_judge="stages")  # made in code only: nothing on units to judge
+    assert C.judged_on_units(made, [C.DISSOLUTION]) == [] and not C.needs_units(made)
