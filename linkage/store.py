@@ -985,20 +985,15 @@ class LotStore:
         the others wait for the ingest that reads their process rows. A lot's column the reader judged without
         history (``judged``, records as :func:`linkage.plausible.sieve_apertures` gives them: a sieve stack in mm)
         is not named again. Nothing written, one read snapshot."""
-        lots = read.lots()
         products = _IngestPlan.products_of(read)
         try:
             with self._snapshot():
                 c = self._conn
-                stored = self._current_links(c, [lot for lot in lots if lot not in products])
-                product_of = {**{lot: links["product"] for lot, links in stored.items()}, **products}
-                selected = _read.Ingest({t: _rows_of_lots(df, set(product_of)) for t, df in read.tables.items()},
-                                        read.sources)
-                history = self._history(c, set(product_of.values()), set(product_of))
+                stored = self._current_links(c, [lot for lot in read.lots() if lot not in products])
+                problems, records = self._unusual(c, read, products, stored)
         except sqlite3.DatabaseError as exc:
             raise self._error(exc) from None
         said = {(r["file"], r["lot"], r["column"]) for r in judged}
-        problems, records = _plausible.unusual_values(selected, history, product_of)
         return [p for p, r in zip(problems, records) if (r["file"], r["lot"], r["column"]) not in said]
 
     def _ingest(self, ingest: Ingest, user: str | None, reason: str | None, accept_unusual: bool) -> IngestResult:
@@ -1043,10 +1038,9 @@ class LotStore:
         plan.added_to, plan.changed, plan.shown = self._split_revised(c, plan.revised, plan.changes, current,
                                                                       plan.prepared, show)
         products = plan.products
-        product_of = {lot: products[lot] if lot in products else current.get(lot, {}).get("product")
-                      for lot in order}
         first = {lot: plan.shown[lot] for lot in plan.changed[:3]}  # the refusal names the first few changed lots
-        plan.unusual_records = self._refuse(c, ingest, product_of, plan.reason, accept_unusual, plan.notes)
+        found = self._unusual(c, ingest, products, current, plan.notes)
+        plan.unusual_records = self._refuse(ingest, found, plan.reason, accept_unusual)
         if plan.changed and plan.reason is None:  # refused, after the refusals above (a preview says it last)
             plan.needs_reason = _needs_reason(plan.changed, first)
         plan.warnings = list(ingest.warnings)
@@ -1104,14 +1098,32 @@ class LotStore:
                 shown[lot] = [ch for pair in pairs for ch in _diff(*pair)]
         return added_to, changed, shown
 
-    def _refuse(self, c, ingest: Ingest, product_of: dict, reason: str | None, accept_unusual: bool,
-                notes: list[str]) -> list[dict]:
-        """Raise for unusual values not taken deliberately, and for unusual values taken without a reason (stored
-        values changed without one: :meth:`_plan`); returns the unusual values taken (for the audit trail).
-        ``notes`` gets the products whose values were not judged for want of history
-        (:func:`linkage.plausible.history_note`)."""
-        unusual, unusual_records = _plausible.unusual_values(
-            ingest, self._history(c, set(product_of.values()), set(product_of)), product_of, notes)
+    def _unusual(self, c, ingest: Ingest, products: dict, current: dict, notes: list[str] | None = None
+                 ) -> tuple[list[Problem], list[dict]]:
+        """The values of ``ingest`` far from history and the same as records (:func:`linkage.plausible
+        .unusual_values`): of each lot whose product is known, from the ingest's process table (``products``,
+        :meth:`_IngestPlan.products_of`), else the store's (``current``: the stored lots' links,
+        :meth:`_current_links`), judged against its product's recent stored lots, none of the ingest's
+        (:meth:`_history`). A lot of neither (only in a folder refused for it: an ingest refuses a result without
+        a process record, :func:`linkage.read.cross_check`) is not judged. ``notes`` gets the products whose
+        values were not judged for want of history (:func:`linkage.plausible.history_note`)."""
+        lots = ingest.lots()
+        product_of = {lot: products[lot] if lot in products else current[lot]["product"]
+                      for lot in lots if lot in products or lot in current}
+        judged = ingest
+        if len(product_of) < len(lots):  # only the rows of the lots whose product is known
+            judged = _read.Ingest({t: _rows_of_lots(df, set(product_of)) for t, df in ingest.tables.items()},
+                                  ingest.sources)
+        history = self._history(c, set(product_of.values()), set(product_of))
+        return _plausible.unusual_values(judged, history, product_of, notes)
+
+    @staticmethod
+    def _refuse(ingest: Ingest, found: tuple[list[Problem], list[dict]], reason: str | None,
+                accept_unusual: bool) -> list[dict]:
+        """Raise for the unusual values ``found`` (:meth:`_unusual`) not taken deliberately, and for unusual values
+        taken without a reason (stored values changed without one: :meth:`_plan`); returns the unusual values taken
+        (for the audit trail)."""
+        unusual, unusual_records = found
         if accept_unusual and reason is None:
             raise UsageError(ACCEPT_NEEDS_REASON)
         if unusual and not accept_unusual:
