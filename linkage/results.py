@@ -184,13 +184,14 @@ def extra_columns_note(file: str, columns: list[dict]) -> str:
 
 def blank_required_note(file: str, columns: list[dict]) -> str:
     """One line of the blank cells of a file's required columns (``IngestResult.blank_required``): per column
-    the header, its rows and lots (the first five), then what follows (the same for a table's columns, said
-    once); read as missing values, not refused."""
+    the header, its rows and lots (the first :data:`~linkage.read.folder.BLANK_SHOWN`), then what follows (the
+    same for a table's columns, said once); read as missing values, not refused."""
     from linkage.lotid import row_span
+    from linkage.read.folder import BLANK_SHOWN
 
     def one(col: dict) -> str:
         lots = col["lots"]
-        named = ", ".join(map(str, lots[:5])) + (", ..." if len(lots) > 5 else "")
+        named = ", ".join(map(str, lots[:BLANK_SHOWN])) + (", ..." if len(lots) > BLANK_SHOWN else "")
         return f"{col['header']} in {row_span(col['rows'])} (lot{'s' if len(lots) > 1 else ''} {named})"
 
     means = "; ".join(dict.fromkeys(col["means"] for col in columns))  # one table's file: said once

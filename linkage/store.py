@@ -199,7 +199,9 @@ class IngestResult:
     #: ``{"column", "near", "declared"}`` (:func:`linkage.read.table.extra_columns`); said, never stored
     extra_columns: dict[str, list[dict]] = field(default_factory=dict)
     #: per file (as ``sources`` names it), the blank cells of its required columns that may be blank, read as
-    #: missing values: ``{"column", "header", "rows", "lots", "means"}`` (:func:`linkage.read.folder.blank_required`)
+    #: missing values: ``{"column", "header", "rows", "lots", "means"}`` (:func:`linkage.read.folder.blank_required`),
+    #: every row and lot; :meth:`to_dict` lists the first few of each, with their counts
+    #: (:func:`linkage.read.folder.blank_shown`)
     blank_required: dict[str, list[dict]] = field(default_factory=dict)
 
     @property
@@ -207,10 +209,15 @@ class IngestResult:
         return bool(self.lots_new or self.lots_revised)
 
     def to_dict(self) -> dict:
-        """Every field; ``changes``, ``more_lots`` and ``needs_reason`` only for a preview."""
+        """Every field; ``changes``, ``more_lots`` and ``needs_reason`` only for a preview; of each column's blank
+        cells (``blank_required``) the first rows and lots, with the counts of all."""
+        from linkage.read.folder import blank_shown
+
         out = asdict(self)
         if not self.preview:
             del out["changes"], out["more_lots"], out["needs_reason"]
+        out["blank_required"] = {file: [blank_shown(col) for col in columns]
+                                 for file, columns in self.blank_required.items()}
         return out
 
 

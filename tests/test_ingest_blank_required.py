@@ -69,7 +69,8 @@ def test_a_blank_setting_is_said_by_the_ingest_its_preview_and_json_and_read_as_
     payload = json.loads(_ingest(folder, store, "--json"))  # again: every lot unchanged, still said
     assert payload["blank_required"] == {"process.csv": [
         {"column": FORCE, "header": FORCE, "rows": rows, "lots": ["EX-002"],
-         "means": "the lot has no value of this setting; a model stage that takes it leaves the lot out"}]}
+         "means": "the lot has no value of this setting; a model stage that takes it leaves the lot out",
+         "n_rows": 1, "n_lots": 1, "rows_shown": 1, "lots_shown": 1}]}
 
 
 def test_a_folder_without_blanks_says_nothing_of_them(tmp_path):
@@ -120,3 +121,29 @@ def test_every_blank_required_cell_that_may_be_blank_is_said_and_keys_are_refuse
         read_folder(folder)
     said = str(caught.value)
     assert "ribbon.csv" in said and f"row {rows[0]}" in said and "'sample' must have a value in every row" in said
+
+
+def test_the_json_lists_the_first_rows_and_lots_of_a_long_blank_column_with_their_counts(tmp_path):
+    """Regression (a review): ``ingest --json`` listed every blank row of a required column, 27,514 rows for a
+    10 % blank column at 25,000 lots. Now each entry lists the first rows and lots, as many as the text note
+    names (``BLANK_SHOWN``), and counts them all (``n_rows``, ``n_lots``) beside how many are listed
+    (``rows_shown``, ``lots_shown``); the text note still spans every row. The expected rows and lots are read off
+    the emptied file itself."""
+    from linkage.read.folder import BLANK_SHOWN
+    from linkage.synthetic import make_lots
+
+    folder = tmp_path / "lots"
+    make_lots(12, seed=3).write_csv(folder)
+    with (folder / "process.csv").open(newline="") as fh:
+        lots = [row[0] for row in list(csv.reader(fh))[1:] if row]
+    rows = _blank(folder / "process.csv", FORCE, set(lots[2:]))  # ten lots blank, one row each
+    assert len(rows) == 10 > BLANK_SHOWN
+    store = tmp_path / "x.db"
+    entry = json.loads(_ingest(folder, store, "--json", "--preview"))["blank_required"]["process.csv"][0]
+    assert entry["rows"] == rows[:BLANK_SHOWN] and entry["lots"] == lots[2:2 + BLANK_SHOWN]
+    assert (entry["n_rows"], entry["n_lots"], entry["rows_shown"], entry["lots_shown"]) == (10, 10, BLANK_SHOWN,
+                                                                                            BLANK_SHOWN)
+    said = [ln for ln in _ingest(folder, store).splitlines() if "required columns" in ln]
+    assert len(said) == 1 and f"{FORCE} in rows {rows[0]}-{rows[-1]} (10 rows)" in said[0]
+    assert f"(lots {', '.join(lots[2:2 + BLANK_SHOWN])}, ...)" in said[0]
+    assert read_folder(folder).blank_required["process.csv"][0]["rows"] == rows  # the reader keeps every row
