@@ -207,6 +207,22 @@ class StoreIntegrityError(StoreError):
     exit_code = 6
 
 
+class EmptyStoreFile(StorePathError):
+    """An SQLite file without a table where a lot store was named, opened by a command that must not write
+    (``read_only`` or ``upgrade=False``): refused as no store at all is (``create=False``; exit code 2), since
+    making the store in it would write it. A command that writes (an ingest) makes the store in it."""
+
+
+class StoreNeedsUpgrade(StoreError):
+    """A store of an earlier schema that cannot be read as it is where it is opened for reading only
+    (``LotStore(read_only=True)`` or ``upgrade=False``; schema 1, before seals): the first command that records in
+    it with write access upgrades it. Exit code 5, as :class:`StoreError`; an ingest's preview, the commands that
+    only read and what the recording commands read before their record decide on an upgraded copy instead
+    (:func:`linkage.store_open.upgraded_copy`). ``version``: the store's schema."""
+
+    version: int = 1
+
+
 class ModelIntegrityError(LinkageError, RuntimeError):
     """A model artifact does not match the hash the registry recorded for it,
     or lies outside the registry. It is never loaded (joblib runs code)."""

@@ -91,16 +91,15 @@ from typing import TYPE_CHECKING, Iterator
 
 from linkage import plausible as _plausible
 from linkage import seal as _seal
-from linkage.exceptions import (InputError, Problem, StoreBusyError, StoreError, StoreIntegrityError,
-                                StorePathError, UsageError, shown_time)
+from linkage.exceptions import (EmptyStoreFile, InputError, Problem, StoreBusyError, StoreError, StoreIntegrityError,
+                                StoreNeedsUpgrade, StorePathError, UsageError, shown_time)
 from linkage.lotid import lot_key, reader_spelling
 from linkage.schema import DATETIME, NUMBER, TABLES
 # opening a store without changing it (older schemas, copies) and the file's layout have modules of their own;
 # every name of them is importable from here too (re-exported), as callers and tests import it
-from linkage.store_open import (NEXT_RECORD_UPGRADES, EmptyStoreFile, StoreNeedsUpgrade, _as_the_store, _damage_of,
-                                 _reading_uri, _upgrade_unsaid, _wal_beside, backup_copy, can_write,
-                                 older_schema_caution, open_to_read, open_to_record, reading, refuse_unanchored,
-                                 store_upgraded_text, upgraded_copy)
+from linkage.store_open import (NEXT_RECORD_UPGRADES, _as_the_store, _damage_of, _reading_uri, _upgrade_unsaid,
+                                 _wal_beside, backup_copy, can_write, older_schema_caution, open_to_read,
+                                 open_to_record, reading, refuse_unanchored, store_upgraded_text, upgraded_copy)
 from linkage.store_rows import LotTable, OnFirstUse, canon_row, encode_table, read_row_texts, write_row_blocks
 from linkage.store_schema import (_DDL, _ROW_BLOCKS_DDL, APPEND_ONLY, APPLICATION_ID, BUSY_TIMEOUT_S, SCHEMA_VERSION,
                                   _statements, _triggers)

@@ -8,9 +8,10 @@ A command that records at the end of its work refuses an unanchored store before
 (:func:`refuse_unanchored`) and reads what it needs with :func:`open_to_record`; only its record opens the store
 for writing, which upgrades it (:meth:`linkage.store.LotStore._upgrade`, said in :func:`store_upgraded_text`).
 Here too: what :class:`~linkage.store.LotStore` opens a store with (:func:`can_write`, :func:`_reading_uri`,
-:func:`_wal_beside`, :func:`_damage_of`), its refusals of an opening that must not write
-(:class:`EmptyStoreFile`, :class:`StoreNeedsUpgrade`), and the caution of a store read without its upgrade
-(:func:`older_schema_caution`, :data:`NEXT_RECORD_UPGRADES`).
+:func:`_wal_beside`, :func:`_damage_of`) and the caution of a store read without its upgrade
+(:func:`older_schema_caution`, :data:`NEXT_RECORD_UPGRADES`). Its refusals of an opening that must not write
+(:class:`~linkage.exceptions.EmptyStoreFile`, :class:`~linkage.exceptions.StoreNeedsUpgrade`) are in
+:mod:`linkage.exceptions`, which :mod:`linkage.store` raises them from, and importable from here too.
 
 :mod:`linkage.store` imports this module and re-exports every name of it. The two need each other: the functions
 here that open a :class:`~linkage.store.LotStore` import it from :mod:`linkage.store` when they are called (a
@@ -29,7 +30,9 @@ from contextlib import ExitStack, closing, contextmanager
 from pathlib import Path
 from typing import TYPE_CHECKING, Iterator
 
-from linkage.exceptions import StoreBusyError, StoreError, StoreIntegrityError, StorePathError
+# the refusals of an opening that must not write live in linkage.exceptions (re-exported here and by linkage.store)
+from linkage.exceptions import (EmptyStoreFile, StoreBusyError, StoreError, StoreIntegrityError, StoreNeedsUpgrade,
+                                StorePathError)
 from linkage.store_schema import BUSY_TIMEOUT_S, SCHEMA_VERSION
 
 if TYPE_CHECKING:
@@ -70,22 +73,6 @@ def _damage_of(exc: BaseException | None) -> sqlite3.Error | None:
             return exc if (getattr(exc, "sqlite_errorcode", 0) or 0) & 0xFF in (11, 26) else None
         exc = exc.__context__
     return None
-
-
-class EmptyStoreFile(StorePathError):
-    """An SQLite file without a table where a lot store was named, opened by a command that must not write
-    (``read_only`` or ``upgrade=False``): refused as no store at all is (``create=False``; exit code 2), since
-    making the store in it would write it. A command that writes (an ingest) makes the store in it."""
-
-
-class StoreNeedsUpgrade(StoreError):
-    """A store of an earlier schema that cannot be read as it is where it is opened for reading only
-    (``LotStore(read_only=True)`` or ``upgrade=False``; schema 1, before seals): the first command that records in
-    it with write access upgrades it. Exit code 5, as :class:`StoreError`; an ingest's preview, the commands that
-    only read and what the recording commands read before their record decide on an upgraded copy instead
-    (:func:`upgraded_copy`). ``version``: the store's schema."""
-
-    version: int = 1
 
 
 def backup_copy(path: Path, to: Path) -> None:

@@ -370,3 +370,18 @@ def test_reanchor_of_a_schema_2_store_whose_anchor_is_there_is_refused_and_write
     got = run_cli(["verify", "--store", store, "--reanchor", "--reason", "anchor lost in the copy"])
     assert got.exit_code == 2 and "nothing to anchor again" in got.stderr, got.output
     assert _files(store.parent) == before and _schema(store) == 2
+
+
+def test_the_refusals_of_an_opening_that_must_not_write_are_one_class_wherever_imported(tmp_path):
+    """``EmptyStoreFile`` and ``StoreNeedsUpgrade`` live in linkage.exceptions with the other errors; the names
+    they had in linkage.store and linkage.store_open are the same classes (older scripts import them there), and
+    their exit codes are those of their bases (2: no store to read; 5: a store that cannot be read as it is)."""
+    from linkage import exceptions, store, store_open
+
+    for name in ("EmptyStoreFile", "StoreNeedsUpgrade"):
+        assert getattr(store, name) is getattr(store_open, name) is getattr(exceptions, name), name
+    assert exceptions.EmptyStoreFile.exit_code == 2 and exceptions.StoreNeedsUpgrade.exit_code == 5
+    path = _copy("store-v1.db", tmp_path / "db")
+    with pytest.raises(exceptions.StoreNeedsUpgrade) as caught:  # schema 1, opened without its upgrade
+        LotStore(path, create=False, upgrade=False)
+    assert caught.value.version == 1
