@@ -98,8 +98,9 @@ from linkage.schema import DATETIME, NUMBER, TABLES
 # opening a store without changing it (older schemas, copies) and the file's layout have modules of their own;
 # every name of them is importable from here too (re-exported), as callers and tests import it
 from linkage.store_open import (NEXT_RECORD_UPGRADES, _as_the_store, _damage_of, _reading_uri, _upgrade_unsaid,
-                                 _wal_beside, backup_copy, can_write, older_schema_caution, open_to_read,
-                                 open_to_record, reading, refuse_unanchored, store_upgraded_text, upgraded_copy)
+                                 _wal_beside, backup_copy, caller_stacklevel, can_write, older_schema_caution,
+                                 open_to_read, open_to_record, reading, refuse_unanchored, store_upgraded_text,
+                                 upgraded_copy)
 from linkage.store_rows import LotTable, OnFirstUse, canon_row, encode_table, read_row_texts, write_row_blocks
 from linkage.store_schema import (_DDL, _ROW_BLOCKS_DDL, APPEND_ONLY, APPLICATION_ID, BUSY_TIMEOUT_S, SCHEMA_VERSION,
                                   _statements, _triggers)
@@ -631,7 +632,7 @@ class LotStore:
         except BaseException:
             self._conn.close()
             raise
-        self._warn_cautions(stacklevel=3)
+        self._warn_cautions()
 
     def _connect(self) -> sqlite3.Connection:
         try:
@@ -649,14 +650,15 @@ class LotStore:
         conn.create_function("lot_key", 1, lambda lot: None if lot is None else lot_key(str(lot)), deterministic=True)
         return conn
 
-    def _warn_cautions(self, stacklevel: int = 2) -> None:
+    def _warn_cautions(self) -> None:
         """Each of :meth:`cautions` as a :class:`~linkage.exceptions.StoreCaution` warning (the command line
-        prints it once, as a ``caution, store:`` line on stderr)."""
+        prints it once, as a ``caution, store:`` line on stderr), at the line that opened the store
+        (:func:`caller_stacklevel`)."""
         import warnings
 
         from linkage.exceptions import StoreCaution
 
-        cautions = self.cautions()
+        cautions, stacklevel = self.cautions(), caller_stacklevel()
         for k, caution in enumerate(cautions):
             warning = StoreCaution(caution)
             if self.older_schema is not None and k == len(cautions) - 1:
@@ -837,7 +839,8 @@ class LotStore:
         from linkage.exceptions import StoreUpgraded
 
         warnings.warn(StoreUpgraded(store_upgraded_text(self.path, self.upgraded_from), path=self.path,
-                                    version_from=self.upgraded_from, version_to=SCHEMA_VERSION), stacklevel=5)
+                                    version_from=self.upgraded_from, version_to=SCHEMA_VERSION),
+                      stacklevel=caller_stacklevel())  # the line that opened the store
 
     @staticmethod
     def _seal_records(c) -> None:

@@ -39,6 +39,25 @@ if TYPE_CHECKING:
     from linkage.store import LotStore
 
 
+#: the modules a warning of the store's opening passes over to name the place that opened the store
+#: (:func:`caller_stacklevel`); ``with reading(...)`` enters through contextlib
+_OPENING_MODULES = frozenset({"linkage.store", "linkage.store_open", "contextlib"})
+
+
+def caller_stacklevel() -> int:
+    """The ``stacklevel`` for a ``warnings.warn`` made by the function that calls this that names the first place
+    outside the store's modules (:data:`_OPENING_MODULES`): the line that opened the store, however deep inside
+    :class:`~linkage.store.LotStore`, :func:`reading`, :func:`open_to_read` or :func:`upgraded_copy` the warning is
+    made (a fixed stacklevel named a line of this module where a store was opened through it). Python 3.12's
+    ``skip_file_prefixes`` would do it; linkage runs on 3.11."""
+    import sys
+
+    level, frame = 1, sys._getframe(1)
+    while frame.f_back is not None and frame.f_globals.get("__name__") in _OPENING_MODULES:
+        frame, level = frame.f_back, level + 1
+    return level
+
+
 def can_write(path) -> bool:
     """Whether this account can write the store at ``path``: its file and its folder (where SQLite keeps the
     -wal and -shm files beside it)."""
@@ -172,7 +191,7 @@ def upgraded_copy(stack: ExitStack, path: Path, version: int = 1) -> LotStore:
     copy.path, copy.read_only = path, True
     copy.writable = can_write(path)
     copy.older_schema, copy.from_copy = version, True
-    copy._warn_cautions(stacklevel=3)
+    copy._warn_cautions()
     return copy
 
 

@@ -385,3 +385,40 @@ def test_the_refusals_of_an_opening_that_must_not_write_are_one_class_wherever_i
     with pytest.raises(exceptions.StoreNeedsUpgrade) as caught:  # schema 1, opened without its upgrade
         LotStore(path, create=False, upgrade=False)
     assert caught.value.version == 1
+
+
+def test_the_cautions_of_an_older_store_name_the_line_that_opened_it(tmp_path):
+    """Regression (a review): the caution of a store read without its upgrade named a line of
+    linkage/store_open.py (where reading, open_to_read and upgraded_copy open the store) as the warning's place,
+    not the caller's line, as a store opened by ``LotStore(...)`` itself names it (Python's ``warnings.warn``,
+    ``stacklevel``). Each way of opening, on a schema 1 store (an upgraded copy) and a schema 2 store (read as it
+    is, its anchor file left out), now names the line of this test that opened it."""
+    from contextlib import ExitStack
+
+    from linkage.store import open_to_read, reading
+
+    def opened_by_reading(path):
+        with reading(path):  # the place the cautions should name
+            return _this_line() - 1
+
+    def opened_by_open_to_read(path):
+        with ExitStack() as stack:
+            open_to_read(stack, path)  # the place the cautions should name
+            return _this_line() - 1
+
+    for fixture in ("store-v1.db", "store-v2.db"):
+        for how in (opened_by_reading, opened_by_open_to_read):
+            path = tmp_path / f"{how.__name__}-{fixture}"
+            shutil.copy(DATA / fixture, path)
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always")
+                line = how(path)
+            places = {(Path(w.filename).name, w.lineno) for w in caught if issubclass(w.category, StoreCaution)}
+            assert places == {(Path(__file__).name, line)}, (fixture, how.__name__, places)
+
+
+def _this_line() -> int:
+    """The line of the caller's frame that calls this."""
+    import sys
+
+    return sys._getframe(1).f_lineno
