@@ -414,6 +414,16 @@ def _prefix_masks(order: np.ndarray, n_words: int) -> np.ndarray:
 _BYTE_COUNTS = np.array([bin(v).count("1") for v in range(256)], dtype=np.uint8)
 
 
+def _bits_set(mask: np.ndarray) -> np.ndarray:
+    """The number of bits set in ``mask`` (... × words of uint64) over its last axis, as int64: numpy's
+    popcount (``np.bitwise_count``, numpy 2.0 on) of each word, else the table of the bits set in each byte
+    (numpy before 2.0); the same integers either way, the first with an eighth of the elements."""
+    count = getattr(np, "bitwise_count", None)
+    if count is not None:
+        return count(mask).sum(axis=-1, dtype=np.int64)
+    return _BYTE_COUNTS[mask.astype("<u8", copy=False).view(np.uint8)].sum(axis=-1, dtype=np.int64)
+
+
 def _mask_sums(mask: np.ndarray, lw: np.ndarray) -> np.ndarray:
     """Σ_l lw[b, l] over the lots l whose bit is set in ``mask[b, ...]``
     (B × ... × words, as :func:`_prefix_masks` lays them out); NaN for a
@@ -426,7 +436,7 @@ def _mask_sums(mask: np.ndarray, lw: np.ndarray) -> np.ndarray:
     n_bytes = mask.shape[-1] * 8
     bytes_ = mask.astype("<u8", copy=False).view(np.uint8)  # byte j holds lots 8j … 8j + 7 (little-endian words)
     if np.all(lw == lw[:, :1]):
-        counts = _BYTE_COUNTS[bytes_].sum(axis=-1, dtype=np.int64)
+        counts = _bits_set(mask)
         return counts * lw[:, 0].reshape((B,) + (1,) * (counts.ndim - 1))
     padded = np.zeros((B, n_bytes * 8))
     padded[:, :L] = lw
@@ -468,7 +478,10 @@ def _final_sums(items: list, lw: np.ndarray, w: np.ndarray, ok: np.ndarray, each
         i0, i1 = _passing_run(name, pred, lots, limit, scale)
         if each_sums:
             p_each[name] = np.einsum("brd,bd->br", lots.weight[bi, i1] - lots.weight[bi, i0], w)
-        mask = mask & lots.masks[bi, i1] & ~lots.masks[bi, i0]
+        passing = lots.masks[bi, i0]  # the lots below the run's start ...
+        np.invert(passing, out=passing)  # ... left out (in place: integer masks, the same bits as a new array)
+        passing &= lots.masks[bi, i1]  # of those below its end
+        mask = mask & passing
     return np.einsum("brd,bd->br", _mask_sums(mask, lw), w), p_each
 
 

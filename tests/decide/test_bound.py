@@ -402,3 +402,24 @@ def test_window_bound_is_simultaneous_and_below_the_pointwise_one(window):
     assert force["bound_quantile"] is not None and force["bound_quantile"] <= 0.1 + 1e-12
     assert np.all(np.array(force["chain_curve"]["p_all_low"])
                   <= np.array(force["chain_curve"]["p_all_low_pointwise"]) + 1e-6)
+
+
+@pytest.mark.parametrize("popcount", [True, False])
+def test_the_bits_set_in_the_lot_masks_are_counted_as_python_counts_them(popcount, monkeypatch):
+    """The count of lots in a mask (bits set over its uint64 words) by numpy's popcount where numpy has it
+    (2.0 on) and by the byte table before: both equal Python's own int.bit_count, word by word (Python
+    documentation, int.bit_count, 3.10 on), over random words with every bit pattern likely and the extremes."""
+    from linkage.decide import bound
+
+    if not popcount:
+        monkeypatch.delattr(bound.np, "bitwise_count", raising=False)
+    elif not hasattr(np, "bitwise_count"):
+        pytest.skip("numpy before 2.0 has no bitwise_count")
+    rng = np.random.default_rng(7)
+    words = rng.integers(0, 2 ** 63, size=(3, 5, 4), dtype=np.uint64) * np.uint64(2) + rng.integers(
+        0, 2, size=(3, 5, 4), dtype=np.uint64)
+    words[0, 0] = np.uint64(0)
+    words[0, 1] = ~np.uint64(0)
+    expected = np.array([[sum(int(w).bit_count() for w in row) for row in block] for block in words])
+    got = bound._bits_set(words.astype("<u8"))
+    assert got.dtype == np.int64 and np.array_equal(got, expected)
