@@ -359,6 +359,13 @@ class _SortedLots:
         self.weight[np.isnan(lw).any(axis=1)] = np.nan
         self.masks = _prefix_masks(self.order, (self.order.shape[1] + 63) // 64)
 
+    def at(self, i: np.ndarray) -> np.ndarray:
+        """Flat positions of rows ``i[b, ...]`` of each replicate b's prefix weights and masks
+        (``weight.reshape(-1)``, ``masks.reshape(-1, words)``): one index array for ``np.take``, which
+        gathers the same elements as ``masks[b, i]`` several times faster than indexing by two arrays."""
+        rows = self.weight.shape[1]
+        return i + (np.arange(i.shape[0]) * rows).reshape((-1,) + (1,) * (i.ndim - 1))
+
     def count(self, x: np.ndarray, side: str) -> np.ndarray:
         """Per replicate b, how many of its lots' residuals lie below
         ``x[b, ...]`` (``"left"``) or at most it (``"right"``): a residual r
@@ -367,7 +374,8 @@ class _SortedLots:
         searchsorted(col_sorted, x, "right") (a test compares the counts with
         numpy's searchsorted row by row)."""
         g = np.searchsorted(self.col_sorted, x, side=side)
-        return self.below[np.arange(self.below.shape[0]).reshape((-1,) + (1,) * (x.ndim - 1)), g]
+        g = g + (np.arange(self.below.shape[0]) * self.below.shape[1]).reshape((-1,) + (1,) * (x.ndim - 1))
+        return np.take(self.below.reshape(-1), g)  # below[b, g[b, ...]], gathered by one index array
 
 
 def _passing_run(name: str, pred: np.ndarray, lots: _SortedLots, limit, scale: np.ndarray | None):
@@ -471,16 +479,18 @@ def _final_sums(items: list, lw: np.ndarray, w: np.ndarray, ok: np.ndarray, each
     B = ok.shape[0]
     L = lw.shape[-1]
     lw = np.broadcast_to(np.asarray(lw, dtype=float), (B, L))
-    bi = np.arange(B)[:, None, None]
     mask = np.where(ok, ~np.uint64(0), np.uint64(0)).astype("<u8")[..., None]
     p_each = {}
     for name, pred, lots, limit, scale in items:
         i0, i1 = _passing_run(name, pred, lots, limit, scale)
+        at0, at1 = lots.at(i0), lots.at(i1)  # weight[b, i] and masks[b, i] are taken at these flat positions
         if each_sums:
-            p_each[name] = np.einsum("brd,bd->br", lots.weight[bi, i1] - lots.weight[bi, i0], w)
-        passing = lots.masks[bi, i0]  # the lots below the run's start ...
+            weight = lots.weight.reshape(-1)
+            p_each[name] = np.einsum("brd,bd->br", np.take(weight, at1) - np.take(weight, at0), w)
+        masks = lots.masks.reshape(-1, lots.masks.shape[-1])
+        passing = np.take(masks, at0, axis=0)  # the lots below the run's start ...
         np.invert(passing, out=passing)  # ... left out (in place: integer masks, the same bits as a new array)
-        passing &= lots.masks[bi, i1]  # of those below its end
+        passing &= np.take(masks, at1, axis=0)  # of those below its end
         mask = mask & passing
     return np.einsum("brd,bd->br", _mask_sums(mask, lw), w), p_each
 

@@ -423,3 +423,23 @@ def test_the_bits_set_in_the_lot_masks_are_counted_as_python_counts_them(popcoun
     expected = np.array([[sum(int(w).bit_count() for w in row) for row in block] for block in words])
     got = bound._bits_set(words.astype("<u8"))
     assert got.dtype == np.int64 and np.array_equal(got, expected)
+
+
+def test_a_flat_gather_takes_the_same_prefix_rows_as_indexing_by_replicate_and_row():
+    """_SortedLots.at gives the flat positions at which np.take gathers weight[b, i] and masks[b, i]: the same
+    elements as numpy's indexing by two arrays (numpy's own definition of advanced indexing is the reference)."""
+    rng = np.random.default_rng(11)
+    B, n_s, L = 4, 9, 70
+    col = rng.normal(size=n_s)
+    pick = rng.integers(0, n_s, size=(B, L))
+    lots = _SortedLots(col, pick, B, np.full((B, L), 1.0 / L))
+    i = rng.integers(0, L + 1, size=(B, 6, 5))
+    b = np.arange(B)[:, None, None]
+    assert np.array_equal(np.take(lots.weight.reshape(-1), lots.at(i)), lots.weight[b, i])
+    masks = lots.masks.reshape(-1, lots.masks.shape[-1])
+    assert np.array_equal(np.take(masks, lots.at(i), axis=0), lots.masks[b, i])
+    x = rng.normal(size=(B, 6, 5))
+    for side in ("left", "right"):
+        expected = np.array([[[np.sum(np.sort(col[pick[k]]) < v) if side == "left" else
+                               np.sum(np.sort(col[pick[k]]) <= v) for v in row] for row in x[k]] for k in range(B)])
+        assert np.array_equal(lots.count(x, side), expected)
