@@ -108,14 +108,29 @@ def test_train_keeps_the_alarms_design_in_the_model(readme_run):
     """Issue 20: `train` simulates the watch's multivariate alarm once and keeps it with the model (its training
     record, in `train --json` too), the same design mewma.design simulates for the charted attributes and the
     training lots (Lowry et al. 1992's scheme, h by simulation)."""
+    from linkage.decide import mewma
     from linkage.decide.mewma import design
-    from linkage.decide.watch import design_at_training
+    from linkage.decide.watch import watch
 
     trained = readme_run[0]["trained"]
     kept = trained.chain.training["watch_design"]
-    assert kept == design_at_training(trained.chain)
-    assert kept["design"]["h"] == design(kept["design"]["attributes"], n_ref=kept["design"]["n_reference"])["h"]
+    assert kept["simulation"] == mewma.simulation_settings()
     assert trained.to_dict()["watch_design"] == kept  # train --json
+    saved = dict(mewma._KEPT)
+    try:
+        mewma._KEPT.clear()
+        mewma._design.cache_clear()
+        fresh = dict(design(kept["design"]["attributes"], n_ref=kept["design"]["n_reference"]))  # simulated here
+        assert {k: fresh[k] for k in ("h", "arl", "n_reference")} == {k: kept["design"][k] for k in
+                                                                    ("h", "arl", "n_reference")}
+        lab = readme_run[0]["lab"]
+        assert watch(trained.chain, lab.assemble()).mewma["design"] == kept["design"]  # what the watch states
+        # the README's report (two cores: the watch in a child) read the model's design and kept no copy beside it
+        assert (readme_run[0]["folder"] / "report.html").is_file()
+        assert not list(Path(lab.models_dir).glob("*/results/mewma-*.npz"))
+    finally:
+        mewma._KEPT.clear()
+        mewma._KEPT.update(saved)
 
 
 @pytest.mark.slow

@@ -395,7 +395,7 @@ def judge_draws(chain, draws, spec, *, seed: int = 0) -> Judged:
     # a stream of its own, so switching the judgement on leaves the lot draws unchanged
     rng = np.random.default_rng([int(seed), 711])
     out = Judged(passes={})
-    if spec.dissolution_judge == "stages" and DISSOLUTION in draws.values:
+    if DISSOLUTION in judged_on_units(spec, draws.values):  # by stages, limited and predicted: as needs_units says
         if "dissolution" not in spread:
             raise UsageError(f'judge = "stages" needs the within-lot vessel SD of dissolution, which {model} does '
                              "not record: train it on lots with vessel data (the dissolution table), or judge the "

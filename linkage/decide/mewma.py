@@ -176,10 +176,17 @@ def design(p: int, lam: float = LAMBDA, arl0: float = ARL0, n_ref: int | None = 
     return Design(kept if kept is not None else _design(int(p), float(lam), float(arl0), n_ref))
 
 
+#: the version of the simulation's code (:func:`_paths`, :func:`_simulate`, :data:`TABLE`, :data:`KNOWN_ABOVE`, the
+#: run lengths' steps): raise it with any change to these that changes a design's numbers, so that a design kept
+#: by an earlier linkage (in a model's training record, or beside the model) is simulated again, not read
+DESIGN_VERSION = 1
+
+
 def simulation_settings() -> dict:
     """The simulation's own settings, beside a design kept for a later process (:func:`remember`): a design
-    simulated under other settings (an earlier linkage's) is simulated again rather than read."""
-    return {"runs": RUNS, "runs_estimated": RUNS_ESTIMATED, "seed": SEED}
+    simulated under other settings or another version of the simulation's code (an earlier linkage's) is
+    simulated again rather than read."""
+    return {"runs": RUNS, "runs_estimated": RUNS_ESTIMATED, "seed": SEED, "design_version": DESIGN_VERSION}
 
 
 #: designs simulated by an earlier process and kept beside the model (:func:`remember`), by (p, λ, ARL0, n_ref)

@@ -238,7 +238,7 @@ def mewma_look(chain, charts: dict[str, AttributeChart], new_lots: list[str]) ->
     names = list(charts)
     corr = residual_correlation(chain, names)
     n_ref = min(c.reference.n for c in charts.values())
-    _remember_training_design(chain)
+    remember_training_design(chain)
     d = stated_reference(design(len(names), n_ref=n_ref), n_ref)
     order = [lot for lot in dict.fromkeys(lot for c in charts.values() for lot in c.lots) if lot in set(new_lots)]
     x = standardised_residuals(charts, order)
@@ -269,12 +269,16 @@ def design_at_training(chain) -> dict | None:
             if v is not None]
     if not refs:
         return None
-    return {"design": dict(design(len(refs), n_ref=min(r.n for r in refs))), "simulation": simulation_settings()}
+    n_ref = min(r.n for r in refs)
+    return {"design": stated_reference(dict(design(len(refs), n_ref=n_ref)), n_ref),  # as the watch states it
+            "simulation": simulation_settings()}
 
 
-def _remember_training_design(chain) -> None:
+def remember_training_design(chain) -> None:
     """Take the design kept in ``chain``'s training record (:func:`design_at_training`) as simulated, when it was
-    simulated under this linkage's settings."""
+    simulated under this linkage's settings (process-wide, as :func:`linkage.decide.mewma.remember` keeps it: the
+    design is a function of its key alone, whichever model it came from). The report calls it before it forks
+    the watch's process, so that it knows the design was not simulated and keeps no copy of it."""
     from linkage.decide.mewma import remember, simulation_settings
 
     kept = (getattr(chain, "training", None) or {}).get("watch_design")

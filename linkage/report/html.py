@@ -369,7 +369,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
 def _render(chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space, reused,
             parallel, kept_figures, other_lots, store_cautions, set_aside, set_aside_rows, origin=None) -> Report:
     """:func:`render_report` (its arguments, in its order)."""
-    from linkage.decide.watch import watch
+    from linkage.decide.watch import remember_training_design, watch
     from linkage.report.background import Background
 
     b = _Builder(parallel, kept_figures.result if kept_figures is not None else None)
@@ -377,6 +377,7 @@ def _render(chain, table, spec, window, lots, confidence, seed, curve_draws, ass
     table = table.copy()
     table["lot"] = table["lot"].astype(str)
     computed = {}
+    remember_training_design(chain)  # in this process: a design the model kept is not one to keep beside it
     # the two costly computations that need nothing the other sections compute start beside them
     pending = {"watch": Background(watch, chain, table, fork=parallel)}
     if spec is not None and space is None:

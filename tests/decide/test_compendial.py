@@ -292,3 +292,16 @@ def test_stages_without_a_dissolution_limit_is_no_spec_a_file_gives(tmp_path):
             read_spec(path)
     made = Spec(limits={}, dissolution_judge="stages")  # made in code only: nothing on units to judge
     assert C.judged_on_units(made, [C.DISSOLUTION]) == [] and not C.needs_units(made)
+
+
+def test_stages_made_in_code_without_a_dissolution_limit_judge_only_the_acceptance_value():
+    """A spec made in code with dissolution judged by stages but no dissolution limit (no Q: USP <711> Table 1
+    judges units against Q) and an acceptance value judges the acceptance value alone, as needs_units and
+    judged_on_units say: judge_draws went into the stages and failed on the missing limit (a review)."""
+    spread = {"dissolution": {"method": "pooled", "grid": [80.0, 95.0], "log_var": [float(np.log(9.0))] * 2,
+                              "mean_range": [80.0, 95.0], "pooled_sd_pct": 3.0, "n_lots": 10, "units_per_lot": 6},
+              "weight": {"pooled_rsd_pct": 6.0, "n_lots": 10, "units_per_lot": 10}}
+    spec = Spec(limits={}, dissolution_judge="stages", acceptance_value_max=15.0)
+    judged = C.judge_draws(_Chain(spread), _draws({"dissolution_pct": 90.0}), spec, seed=0)
+    assert list(judged.passes) == ["acceptance_value"] and not judged.stages
+    assert C.judged_on_units(spec, C.DISSOLUTION) == ["acceptance_value"]

@@ -110,6 +110,13 @@ def test_retrain_records_a_decision_and_the_window_moves_right(campaign):
     assert {champion, d["challenger_id"]} <= ids
     latest = registry.load(models, "latest").model_id
     assert latest == (d["challenger_id"] if d["promoted"] else champion)
+    # issue 20: the challenger keeps the watch's alarm design as train keeps it (the design for its own lots)
+    from linkage.decide.watch import design_at_training
+
+    challenger = registry.load(models, d["challenger_id"])
+    assert challenger.training["watch_design"] == design_at_training(challenger)
+    assert challenger.training["watch_design"]["design"]["n_reference_lots"] > \
+        registry.load(models, champion).training["watch_design"]["design"]["n_reference_lots"]
     # and in the audit trail
     with LotStore(store, create=False) as s:
         actions = [e["action"] for e in s.audit()]

@@ -212,7 +212,8 @@ def test_the_alarms_design_is_simulated_at_training_and_read_by_the_watch(drift,
 
     lots, table, chain, order = drift
     kept = design_at_training(chain)
-    assert kept["simulation"] == {"runs": mewma.RUNS, "runs_estimated": mewma.RUNS_ESTIMATED, "seed": mewma.SEED}
+    assert kept["simulation"] == {"runs": mewma.RUNS, "runs_estimated": mewma.RUNS_ESTIMATED, "seed": mewma.SEED,
+                                  "design_version": mewma.DESIGN_VERSION}
     saved_kept, saved_training = dict(mewma._KEPT), chain.training
     try:
         mewma._KEPT.clear()
@@ -232,9 +233,15 @@ def test_the_alarms_design_is_simulated_at_training_and_read_by_the_watch(drift,
         assert read == simulated
         # a design kept under other simulation settings (an earlier linkage's) is not read: simulated again
         mewma._KEPT.clear()
-        chain.training = {**saved_training, "watch_design": {**kept, "simulation": {**kept["simulation"], "runs": 1}}}
+        for other in ({"runs": 1}, {"design_version": mewma.DESIGN_VERSION + 1}):
+            chain.training = {**saved_training, "watch_design": {**kept, "simulation": {**kept["simulation"], **other}}}
+            with pytest.raises(AssertionError, match="simulated again"):
+                watch(chain, table)
+        # a table whose lots chart fewer attributes (one attribute never measured) needs another design: simulated
+        chain.training = {**saved_training, "watch_design": kept}
+        fewer = table.assign(friability_pct=np.nan)
         with pytest.raises(AssertionError, match="simulated again"):
-            watch(chain, table)
+            watch(chain, fewer)
     finally:
         chain.training = saved_training
         mewma._KEPT.clear()

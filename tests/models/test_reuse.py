@@ -119,6 +119,7 @@ def test_a_kept_mewma_design_is_the_simulated_one_and_is_not_simulated_again(tmp
     simulation itself), and :func:`linkage.decide.mewma.design` returns it without simulating."""
     from linkage.decide import mewma
 
+    monkeypatch.setattr(mewma, "_KEPT", {})  # nothing an earlier test's model kept (its training design) counts here
     _registry(tmp_path)
     p, n_ref = 2, 12
     simulated = mewma.design(p, n_ref=n_ref)
