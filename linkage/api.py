@@ -112,15 +112,32 @@ def _fitted(models_dir, model) -> FittedChain:
     return model.chain if isinstance(model, Trained) else model
 
 
-def _check_settings(chain, settings: Mapping[str, float], more: list[str] = ()) -> None:
+def _check_settings(chain, settings: Mapping[str, float], more: list[str] = (),
+                    refused: Mapping[str, str] | None = None) -> None:
     """Refuse ``--set`` values as ``predict`` refuses them
     (:func:`linkage.decide.whatif.check_values`: unknown names, values that
     are not finite or outside the physically possible range), with the
     problems in ``more`` (values that are no number, :func:`_given_settings`),
-    every problem at once, exit code 2, before anything is computed or written."""
+    every problem at once, exit code 2, before anything is computed or written.
+    ``refused``: names the command does not take, with the rule (the window's
+    :data:`linkage.decide.window.SCANNED`), left out of the valid names it lists."""
     from linkage.decide.whatif import check_values
 
-    check_values(chain, dict(settings), more=list(more))
+    check_values(chain, dict(settings), more=list(more), refused=refused)
+
+
+def _not_held_by_map(chain, x: str, y: str) -> dict[str, str]:
+    """The names the map's ``--set`` does not take, with the rule: the two it maps and every predicted
+    attribute (the map holds settings only; :func:`linkage.decide.space.design_space` refuses them too).
+    ``chain``: the model's numbers or a fitted chain (a model object given to :func:`space`)."""
+    from linkage.models.lean import as_lean
+
+    lean = as_lean(chain)
+    roots = set(lean.root_inputs())
+    refused = {name: "is predicted, not a setting; the map holds settings only" for name in lean.all_targets()
+               if name not in roots}
+    refused.update({name: "is mapped; do not also give it with --set" for name in (x, y)})
+    return refused
 
 
 def _given_settings(settings: Mapping | None) -> tuple[dict[str, float], list[str]]:
@@ -629,14 +646,14 @@ def window(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="l
     Logged as ``window`` in the store's audit trail; ``record=False`` (``--no-record``) writes nothing in the store, and a
     store that does not exist is refused unless it is the default ``linkage.db`` (:func:`recording`)."""
     from linkage.decide.bound import check_assurance
-    from linkage.decide.window import find_window
+    from linkage.decide.window import SCANNED, find_window
 
     will_record = recording(store, record, "window")  # before any work: a store that would lose or refuse the record
     assurance = check_assurance(assurance)
     spec = _spec(spec)
     settings, bad = _given_settings(settings)
     chain = _fitted(models_dir, model)
-    _check_settings(chain, settings, bad)
+    _check_settings(chain, settings, bad, refused=SCANNED)
     result = find_window(chain, spec, settings=settings, confidence=confidence, n_draws=n_draws, seed=seed,
                          assurance=assurance)
     if model is None or isinstance(model, str):  # a model of the registry, loaded and checked here (issue 20)
@@ -742,7 +759,9 @@ def plan(n_lots: int, *, ranges: Mapping[str, tuple[float, float]] | None = None
 
         raise UsageError("planning the next lots of a campaign needs a spec (--spec); for a new product use --new")
     chain = _fitted(models_dir, model)
-    _check_settings(chain, settings, bad)
+    from linkage.decide.window import SCANNED
+
+    _check_settings(chain, settings, bad, refused=SCANNED)  # the plan's window holds them as window does
     if product is None:  # the lots the plan starts from: those of the one product the model was trained on
         product = chain.trained_product
     table = assemble(store, spec=spec, product=product)
@@ -778,7 +797,7 @@ def space(spec, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="la
 
     settings, bad = _given_settings(settings)
     lean = _lean(models_dir, model)
-    _check_settings(lean, settings, bad)
+    _check_settings(lean, settings, bad, refused=_not_held_by_map(lean, x, y))
     result = design_space(lean, _spec(spec), x=x, y=y, n_grid=n_grid, settings=settings,
                           confidence=confidence, assurance=assurance, seed=seed)
     if model is None or isinstance(model, str):  # a model of the registry, loaded and checked here (issue 20)

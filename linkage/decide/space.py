@@ -310,13 +310,14 @@ def design_space(chain, spec, *, x: str = FORCE, y: str = GAP, n_grid: int = MAP
     if x == y:
         problems.append(f"--x and --y are both {x}; map two different settings")
     settings = dict(settings or {})
+    holdable = [r for r in roots if r not in (x, y)]  # what --set takes: the mapped two are refused below
     for k in settings:
         if k in (x, y):
             problems.append(f"{k} is mapped; do not also give it with --set")
         elif k not in roots:
-            near = did_you_mean(k, roots).strip().strip("()")  # 'did you mean ...?' in the same brackets
+            near = did_you_mean(k, holdable).strip().strip("()")  # 'did you mean ...?' in the same brackets
             problems.append(f"--set {k}: not a setting of this model's chain (the map holds settings only; "
-                            f"settings: {', '.join(roots)}{'; ' + near if near else ''})")
+                            f"--set takes: {', '.join(holdable)}{'; ' + near if near else ''})")
     if problems:
         raise UsageError("; ".join(problems))
     attributes = [a for a in spec.limits if a in lean.targets]

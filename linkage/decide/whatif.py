@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import io
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
@@ -101,15 +102,25 @@ def value_problems(chain, values: dict[str, float]) -> tuple[list[str], list[tup
     return unknown, bad
 
 
-def check_values(chain, values: dict[str, float], *, row: int | None = None, more: list[str] = ()) -> None:
+def check_values(chain, values: dict[str, float], *, row: int | None = None, more: list[str] = (),
+                 refused: Mapping[str, str] | None = None) -> None:
     """Refuse unknown names, non-finite values and physically impossible ones,
-    with the problems in ``more`` (found before the model was at hand), all at once."""
+    with the problems in ``more`` (found before the model was at hand), all at once.
+
+    ``refused``: names the chain knows but the calling command does not take,
+    each with the reason, a rule said after the name (``window`` scans ribbon_porosity, so it cannot be
+    held): each given one is refused with its reason, and none is listed
+    among the valid names (a user test: window's refusal offered
+    ribbon_porosity, then refused it)."""
+    refused = dict(refused or {})
     where = "" if row is None else f"row {row}: "
-    unknown, bad = value_problems(chain, values)
+    unknown, bad = value_problems(chain, values)  # a refused name's value is checked too
     from linkage.nearest import did_you_mean
 
-    valid = valid_names(chain) if unknown else []  # only for a refusal: a what-if's check stays as cheap as before
-    problems = [*more, *(f"{where}unknown name '{n}'{did_you_mean(n, valid)}" for n in unknown)]
+    # only for a refusal: a what-if's check stays as cheap as before
+    valid = [n for n in valid_names(chain) if n not in refused] if unknown else []
+    problems = [*more, *(f"{where}{n} {reason}" for n, reason in refused.items() if n in values),
+                *(f"{where}unknown name '{n}'{did_you_mean(n, valid)}" for n in unknown)]
     if unknown:
         problems.append(f"valid names are: {', '.join(valid)}")
     problems += [f"{where}{name} = {value} {rule}" for name, value, rule in bad]

@@ -64,6 +64,9 @@ from linkage.models.lean import project
 from linkage.numbers import percent_text
 
 POROSITY = "ribbon_porosity"
+#: names the window cannot hold (``--set``), each with the rule said after the name: the window is a
+#: porosity range, so porosity is what it scans (``window`` and ``plan`` leave them out of the names they take)
+SCANNED = {POROSITY: "is what the window scans; do not set it (use 'linkage predict' for one porosity)"}
 FORCE = "roll_force_kn_per_cm"
 
 
@@ -212,8 +215,7 @@ def find_window(chain, spec, *, settings: dict[str, float] | None = None, confid
     time_min, recorded = model_time_point(chain)
     settings = dict(settings or {})
     if POROSITY in settings:
-        raise UsageError("ribbon_porosity is what the window scans; do not set it (use 'linkage predict' "
-                         "for one porosity)")
+        raise UsageError(f"{POROSITY} {SCANNED[POROSITY]}")
     produced = set(chain.targets)
     attributes, not_modelled = _window_attributes(chain, spec, given=[k for k in settings if k in produced])
     check_confidence_supported(lean, judged_residuals(attributes, spec), confidence)

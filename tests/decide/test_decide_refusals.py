@@ -103,6 +103,55 @@ def test_window_space_and_plan_refuse_impossible_settings_as_predict(saved_model
             call()
 
 
+def _listed(output: str, intro: str) -> list[str]:
+    """The names a refusal lists after ``intro`` (up to the next ';' or ')')."""
+    assert intro in output, output
+    tail = " ".join(output.split())  # click may wrap nothing, but the terminal text is read as one line
+    tail = tail.split(intro, 1)[1]
+    for end in (";", ")"):
+        tail = tail.split(end, 1)[0]
+    return [n.strip() for n in tail.split(",")]
+
+
+def test_set_names_listed_are_names_the_command_takes(saved_model, tmp_path):
+    """A user test: window's refusal of an unknown --set name listed ribbon_porosity among the valid names, and
+    window refuses --set ribbon_porosity (the window is a porosity range: porosity cannot be held). Each command
+    now lists only what its --set takes; checked by giving each listed name back to the command (the refusal
+    itself is the rule: no outside source needed)."""
+    from linkage.decide.whatif import valid_names
+    from linkage.models.registry import load
+
+    models_dir, model_id, spec = saved_model
+    where = ["--models-dir", models_dir]
+    names = valid_names(load(models_dir, model_id))
+    assert "ribbon_porosity" in names  # predict takes it: a measured porosity replaces the prediction
+    r = _run("predict", "--set", "roll_forse=9", *where, "--no-record")
+    assert r.exit_code == 2 and "ribbon_porosity" in _listed(r.output, "valid names are:"), r.output
+    # window and plan: ribbon_porosity is refused with its reason, every problem at once, and not offered
+    for args in (["window", "--spec", spec, "--json", *where, "--no-record"],
+                 ["plan", "--lots", 2, "--spec", spec, "--out", tmp_path / "plan", *where,
+                  "--store", tmp_path / "none.db"]):
+        r = _run(*args, "--set", "roll_forse=9")
+        assert r.exit_code == 2, (args[0], r.output)
+        listed = _listed(r.output, "valid names are:")
+        assert "ribbon_porosity" not in listed and "roll_force_kn_per_cm" in listed, (args[0], r.output)
+        assert sorted(listed) == sorted(n for n in names if n != "ribbon_porosity"), (args[0], r.output)
+        r = _run(*args, "--set", "roll_forse=9", "--set", "ribbon_porosity=0.3")
+        assert r.exit_code == 2, (args[0], r.output)
+        assert "ribbon_porosity is what the window scans" in r.output, (args[0], r.output)
+        assert "unknown name 'roll_forse'" in r.output, (args[0], r.output)
+    assert not (tmp_path / "plan").exists()
+    # space: the two mapped settings are refused with --set, so they are not offered either
+    r = _run("space", "--spec", spec, "--grid", 5, "--set", "roll_forse=9", *where)
+    assert r.exit_code == 2, r.output
+    listed = _listed(r.output, "valid names are:")
+    assert FORCE not in listed and "roll_gap_mm" not in listed and "ribbon_porosity" not in listed, r.output
+    assert "roll_speed_rpm" in listed, r.output
+    r = _run("space", "--spec", spec, "--grid", 5, "--set", "ribbon_porosity=0.3", "--set", "roll_gap_mm=2", *where)
+    assert r.exit_code == 2, r.output
+    assert "ribbon_porosity is predicted, not a setting" in r.output and "roll_gap_mm is mapped" in r.output
+
+
 # --------------------------------------------------------------- 3. a setting given beside ribbon porosity
 
 def test_a_setting_given_with_porosity_is_checked_against_its_training_range(scenario, saved_model):
