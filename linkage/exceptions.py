@@ -49,6 +49,12 @@ class Problem:
     the first data row is row 2. ``None`` where the problem is not a cell's
     (a missing column, a file-level rule). ``cell`` is the cell's A1
     reference (``C4``) where the file is a workbook sheet, else ``None``.
+
+    A problem of a TOML file (``toml=True``; made by :func:`toml_problem`)
+    is placed as the file has it: ``row`` is its line (first = 1), ``table``
+    and ``key`` where it is, said "line", "table [...]" and "key '...'" (a
+    user test: spec.toml's errors spoke of rows and columns); ``column`` is
+    kept as before for code that reads it, and not said.
     """
 
     file: str
@@ -57,17 +63,33 @@ class Problem:
     column: str | None = None
     value: object = None
     cell: str | None = None
+    table: str | None = None
+    key: str | None = None
+    toml: bool = False
 
     def __str__(self) -> str:
         where = self.file
         if self.row is not None:
-            where += f", row {self.row}"
-        if self.column is not None:
+            where += f", line {self.row}" if self.toml else f", row {self.row}"
+        if self.column is not None and not self.toml:
             where += f", column '{self.column}'"
+        if self.table is not None:
+            where += f", table [{self.table}]"
+        if self.key is not None:
+            where += f", key '{self.key}'"
         if self.cell is not None:
             where += f", cell {self.cell}"
         shown = "" if self.value is None else f", value {shown_value(self.value)}"
         return f"{where}{shown}: {self.rule}"
+
+
+def toml_problem(file: str, rule: str, *, line: int | None = None, table: str | None = None,
+                 key: str | None = None, value: object = None, column: str | None = None) -> Problem:
+    """A broken rule of a TOML file (spec.toml, a chain file, columns.toml), placed by its ``line``, ``table``
+    and ``key`` as the file has them. ``line`` is kept as the problem's ``row`` and ``column`` as given (what
+    the reader called it before: the spec's table, the mapping's header, the chain's key), so that code reading
+    those finds them where it did; the message says line, table and key only."""
+    return Problem(file, rule, row=line, column=column, value=value, table=table, key=key, toml=True)
 
 
 def shown_value(value: object) -> str:

@@ -49,7 +49,7 @@ import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from linkage.exceptions import Problem, SpecError, UsageError
+from linkage.exceptions import Problem, SpecError, UsageError, toml_problem
 from linkage.nearest import did_you_mean
 from linkage.schema import (ASSEMBLED, DEFAULT_DISSOLUTION_TIME_MIN, QUALITY_ATTRIBUTES, TABLES)
 
@@ -208,7 +208,8 @@ def read_spec(path: Path) -> Spec:
         raise SpecError(Problem(path.name, "not UTF-8 text")) from None
     except tomllib.TOMLDecodeError as exc:
         m = re.search(r"line (\d+)", str(exc))
-        raise SpecError(Problem(path.name, f"not valid TOML: {exc}", row=int(m.group(1)) if m else None)) from None
+        line = int(m.group(1)) if m else None
+        raise SpecError(toml_problem(path.name, f"not valid TOML: {exc}", line=line)) from None
     except RecursionError:
         raise SpecError(Problem(path.name, "not valid TOML: nested too deeply")) from None
     import dataclasses
@@ -224,7 +225,8 @@ def _parse(data: dict, file: str, text: str) -> Spec:
     time_min = DEFAULT_DISSOLUTION_TIME_MIN
 
     def bad(attr: str, rule: str, value=None, key: str | None = None) -> None:
-        problems.append(Problem(file, rule, row=_line_of(text, attr, key), column=attr, value=value))
+        problems.append(toml_problem(file, rule, line=_line_of(text, attr, key), table=attr, key=key, value=value,
+                                     column=attr))
 
     if not data:
         problems.append(Problem(file, "no limits: give one table per quality attribute, e.g. "

@@ -41,7 +41,7 @@ import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from linkage.exceptions import InputError, Problem, SpecError
+from linkage.exceptions import InputError, Problem, SpecError, toml_problem
 
 __all__ = ["StageSpec", "ChainSpec", "DEFAULT_MONOTONE"]
 
@@ -83,46 +83,46 @@ def _stage_problems(source: str, index: int, stage: StageSpec) -> list[Problem]:
     where = f"stage {index + 1} ('{stage.name}')" if isinstance(stage.name, str) else f"stage {index + 1}"
     out: list[Problem] = []
 
-    def bad(rule, column=None, value=None):
-        out.append(Problem(file=source, rule=f"{where}: {rule}", column=column, value=value))
+    def bad(rule, key=None, value=None):
+        out.append(toml_problem(source, f"{where}: {rule}", key=key, value=value, column=key))
 
     if not isinstance(stage.name, str) or not stage.name.strip():
-        bad("needs a non-empty name", column="name", value=stage.name)
+        bad("needs a non-empty name", key="name", value=stage.name)
     for key in ("inputs", "targets"):
         names = getattr(stage, key)
         if not isinstance(names, list) or not names:
-            bad(f"'{key}' must be a non-empty list of column names", column=key, value=names)
+            bad(f"'{key}' must be a non-empty list of column names", key=key, value=names)
             continue
         seen = set()
         for v in names:
             if not isinstance(v, str) or not _NAME.match(v):
-                bad(f"'{key}' entries must be column names (letters, digits, underscores)", column=key, value=v)
+                bad(f"'{key}' entries must be column names (letters, digits, underscores)", key=key, value=v)
                 continue
             if v in _NOT_NUMERIC:
-                bad(f"'{v}' is not a numeric column and cannot be a model {key[:-1]}", column=key, value=v)
+                bad(f"'{v}' is not a numeric column and cannot be a model {key[:-1]}", key=key, value=v)
             elif v in seen:
-                bad(f"'{v}' is listed twice in '{key}'", column=key, value=v)
+                bad(f"'{v}' is listed twice in '{key}'", key=key, value=v)
             seen.add(v)
     if isinstance(stage.inputs, list) and isinstance(stage.targets, list):
         names = {v for v in stage.inputs if isinstance(v, str)} & {v for v in stage.targets if isinstance(v, str)}
         for v in sorted(names):  # non-text entries were reported just above
-            bad(f"'{v}' is both an input and a target of the same stage (a cycle)", column="inputs", value=v)
+            bad(f"'{v}' is both an input and a target of the same stage (a cycle)", key="inputs", value=v)
     if not isinstance(stage.monotone, dict):
-        bad("'monotone' must be a table of target -> {input: +1 or -1}", column="monotone")
+        bad("'monotone' must be a table of target -> {input: +1 or -1}", key="monotone")
         return out
     for target, directions in stage.monotone.items():
         if not isinstance(stage.targets, list) or target not in stage.targets:
-            bad(f"monotone names '{target}', which is not a target of this stage", column="monotone", value=target)
+            bad(f"monotone names '{target}', which is not a target of this stage", key="monotone", value=target)
             continue
         if not isinstance(directions, dict):
-            bad(f"monotone.{target} must be a table of input = +1 or -1", column="monotone", value=directions)
+            bad(f"monotone.{target} must be a table of input = +1 or -1", key="monotone", value=directions)
             continue
         for inp, d in directions.items():
             if not isinstance(stage.inputs, list) or inp not in stage.inputs:
                 bad(f"monotone.{target} names '{inp}', which is not an input of this stage",
-                    column="monotone", value=inp)
+                    key="monotone", value=inp)
             elif isinstance(d, bool) or d not in (-1, 0, 1):
-                bad(f"monotone.{target}.{inp} must be -1, 0 or 1", column="monotone", value=d)
+                bad(f"monotone.{target}.{inp} must be -1, 0 or 1", key="monotone", value=d)
     return out
 
 
@@ -152,13 +152,13 @@ class ChainSpec:
             out += _stage_problems(source, i, st)
             if isinstance(st.name, str):
                 if st.name in names:
-                    out.append(Problem(file=source, rule=f"stage name '{st.name}' is used twice", column="name",
-                                       value=st.name))
+                    out.append(toml_problem(source, f"stage name '{st.name}' is used twice", key="name",
+                                            value=st.name, column="name"))
                 names.add(st.name)
             for t in st.targets if isinstance(st.targets, list) else []:
                 if isinstance(t, str) and t in produced_by:
-                    out.append(Problem(
-                        file=source, column="targets", value=t,
+                    out.append(toml_problem(
+                        source, key="targets", value=t, column="targets",
                         rule=(f"'{t}' is a target of stage {produced_by[t] + 1} and again of stage {i + 1} "
                               f"('{st.name}'); each attribute is produced by one stage")))
                 elif isinstance(t, str):
@@ -170,8 +170,8 @@ class ChainSpec:
                 j = produced_by.get(v) if isinstance(v, str) else None
                 if j is not None and j >= i and v not in (st.targets or []):
                     later = self.stages[j].name
-                    out.append(Problem(
-                        file=source, column="inputs", value=v,
+                    out.append(toml_problem(
+                        source, key="inputs", value=v, column="inputs",
                         rule=f"stage {i + 1} ('{st.name}') uses '{v}', which stage {j + 1} ('{later}') produces; "
                              "an input must be a root setting or a target of an earlier stage (order or cycle)"))
         return out
@@ -214,13 +214,15 @@ class ChainSpec:
         try:
             data = tomllib.loads(text)
         except tomllib.TOMLDecodeError as exc:
-            raise SpecError(Problem(file=source, rule=f"not valid TOML: {exc}")) from None
+            line = re.search(r"line (\d+)", str(exc))
+            raise SpecError(toml_problem(source, f"not valid TOML: {exc}",
+                                         line=int(line.group(1)) if line else None)) from None
         except RecursionError:
             raise SpecError(Problem(file=source, rule="not valid TOML: nested too deeply")) from None
         problems: list[Problem] = []
         for key in sorted(set(data) - _TOP_KEYS):
-            problems.append(Problem(file=source, column=key,
-                                    rule=f"unknown key '{key}'; a chain file holds only [[stage]] tables"))
+            problems.append(toml_problem(source, key=key, column=key,
+                                         rule=f"unknown key '{key}'; a chain file holds only [[stage]] tables"))
         raw = data.get("stage")
         if not isinstance(raw, list) or not raw:
             problems.append(Problem(file=source, rule="no [[stage]] table; a chain needs at least one stage"))
@@ -231,8 +233,8 @@ class ChainSpec:
                 problems.append(Problem(file=source, rule=f"stage {i + 1} must be a table"))
                 continue
             for key in sorted(set(st) - _STAGE_KEYS):
-                problems.append(Problem(
-                    file=source, column=key,
+                problems.append(toml_problem(
+                    source, key=key, column=key,
                     rule=f"stage {i + 1}: unknown key '{key}'; allowed: {', '.join(sorted(_STAGE_KEYS))}"))
             stages.append(StageSpec(name=st.get("name"), inputs=st.get("inputs"), targets=st.get("targets"),
                                     monotone=st.get("monotone", {})))

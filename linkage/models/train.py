@@ -34,7 +34,7 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from linkage.exceptions import InputError, InsufficientDataError, Problem, UsageError
+from linkage.exceptions import InputError, InsufficientDataError, Problem, UsageError, toml_problem
 from linkage.models.candidates import CANDIDATES, CandidateError, tune
 from linkage.models.bootstrap import DEFAULT_REPLICATES, bootstrap_chain
 from linkage.models.chain import ChainSpec
@@ -90,9 +90,10 @@ def _unknown_targets(table: pd.DataFrame, chain: ChainSpec) -> list[Problem]:
 
     known = list(dict.fromkeys([*ASSEMBLED, *map(str, table.columns)]))
     source = chain.source or "chain specification"
-    return [Problem(file=source, column="targets", value=t,
-                    rule=f"stage '{st.name}': '{t}' is not an attribute of the assembled table{_suggest(t, known)}; "
-                         "a target must be one of its columns (linkage.schema.ASSEMBLED, or a column of the table)")
+    return [toml_problem(source, key="targets", value=t, column="targets",
+                         rule=f"stage '{st.name}': '{t}' is not an attribute of the assembled table"
+                              f"{_suggest(t, known)}; a target must be one of its columns (linkage.schema.ASSEMBLED, "
+                              "or a column of the table)")
             for st in chain.stages for t in st.targets if t not in known]
 
 

@@ -11,7 +11,7 @@ from pathlib import Path
 from typing import Iterable
 
 from linkage import read as package
-from linkage.exceptions import InputError, Problem
+from linkage.exceptions import InputError, Problem, toml_problem
 from linkage.nearest import did_you_mean
 from linkage.read import MAPPING_FILE
 from linkage.read.raw import _norm_header
@@ -72,22 +72,28 @@ class Mapping:
         tables: dict[str, dict[str, ColumnMap]] = {}
         for tname, section in data.items():
             if tname not in TABLES:
-                problems.append(Problem(file, f"unknown table [{tname}]{_suggest(tname, TABLES)}; "
-                                              f"tables: {', '.join(TABLES)}"))
+                problems.append(toml_problem(file, f"unknown table [{tname}]{_suggest(tname, TABLES)}; "
+                                                   f"tables: {', '.join(TABLES)}"))
                 continue
             if not isinstance(section, dict) or set(section) - {"columns"}:
                 found = (", ".join(map(repr, sorted(set(section) - {"columns"}))) if isinstance(section, dict)
                          else f"{tname} = {section!r}")
-                problems.append(Problem(file, f"[{tname}] may only hold a [{tname}.columns] table; found {found}"))
+                problems.append(toml_problem(file, f"[{tname}] may only hold a [{tname}.columns] table; found {found}"))
                 continue
             columns = section.get("columns", {})
             if not isinstance(columns, dict):
-                problems.append(Problem(file, f"[{tname}.columns] must be a table of header = column"))
+                problems.append(toml_problem(file, f"[{tname}.columns] must be a table of header = column"))
                 continue
             tables[tname] = _mapping_columns(TABLES[tname], columns, file, problems)
         if problems:
             raise InputError(problems)
         return cls(tables, file, sha256)
+
+
+def _key_problem(file: str, rule: str, source: str, value: object = None) -> Problem:
+    """A problem of one header's entry of a mapping file: said at its key (the header, as the file has it), kept
+    as the problem's ``column`` too, where code reading problems found it before."""
+    return toml_problem(file, rule, key=source, column=source, value=value)
 
 
 def _mapping_columns(tdef: Table, columns: dict, file: str, problems: list[Problem]) -> dict[str, ColumnMap]:
@@ -99,39 +105,39 @@ def _mapping_columns(tdef: Table, columns: dict, file: str, problems: list[Probl
         if isinstance(value, str):
             value = {"column": value}
         if not isinstance(value, dict):
-            problems.append(Problem(file, f"{where}: must be a column name or an inline table "
-                                          "{ column = ..., unit = ... }", column=source, value=value))
+            problems.append(_key_problem(file, f"{where}: must be a column name or an inline table "
+                                               "{ column = ..., unit = ... }", source, value=value))
             continue
         unknown = sorted(set(value) - {"column", "unit", "roll_width_mm", "roll_width_cm", "extra"})
         if unknown:
-            problems.append(Problem(file, f"{where}: unknown key(s) {', '.join(unknown)}; allowed: column, unit, "
-                                          "roll_width_mm, roll_width_cm, extra", column=source))
+            problems.append(_key_problem(file, f"{where}: unknown key(s) {', '.join(unknown)}; allowed: column, unit, "
+                                               "roll_width_mm, roll_width_cm, extra", source))
             continue
         target = value.get("column", _norm_header(source))
         extra = value.get("extra", False)
         if not isinstance(target, str) or not target.strip() or not isinstance(extra, bool):
-            problems.append(Problem(file, f"{where}: column must be a name and extra true or false",
-                                    column=source, value=target))
+            problems.append(_key_problem(file, f"{where}: column must be a name and extra true or false",
+                                         source, value=target))
             continue
         target = _norm_header(target)
         if extra:
             if target.lower() in tdef.names or set(value) - {"column", "extra"}:
-                problems.append(Problem(file, f"{where}: an extra column takes only a new name, not a template "
-                                              "name or a unit", column=source, value=target))
+                problems.append(_key_problem(file, f"{where}: an extra column takes only a new name, not a template "
+                                                   "name or a unit", source, value=target))
                 continue
             cmap = ColumnMap(source, target, extra=True)
         else:
             if target not in tdef.names:
-                problems.append(Problem(file, f"{where}: unknown target column '{target}' in table {tdef.name}"
-                                              f"{_suggest(target, tdef.names)}; columns: {', '.join(tdef.names)} "
-                                              "(or add extra = true for a new column)", column=source, value=target))
+                problems.append(_key_problem(file, f"{where}: unknown target column '{target}' in table {tdef.name}"
+                                                   f"{_suggest(target, tdef.names)}; columns: {', '.join(tdef.names)} "
+                                                   "(or add extra = true for a new column)", source, value=target))
                 continue
             cmap = _unit_map(tdef.column(target), source, value, where, file, problems)
             if cmap is None:
                 continue
         if target.lower() in targets:
-            problems.append(Problem(file, f"{where}: column '{target}' is already the target of "
-                                          f"\"{targets[target.lower()]}\"", column=source, value=target))
+            problems.append(_key_problem(file, f"{where}: column '{target}' is already the target of "
+                                               f"\"{targets[target.lower()]}\"", source, value=target))
             continue
         targets[target.lower()] = source
         out[key] = cmap
@@ -144,12 +150,12 @@ def _unit_map(col: Column, source: str, value: dict, where: str, file: str,
     unit = value.get("unit")
     if unit is None:
         if width_keys:
-            problems.append(Problem(file, f"{where}: {width_keys[0]} only goes with a total roll force unit",
-                                    column=source))
+            problems.append(_key_problem(file, f"{where}: {width_keys[0]} only goes with a total roll force unit",
+                                         source))
             return None
         return ColumnMap(source, col.name)
     if not isinstance(unit, str):
-        problems.append(Problem(file, f"{where}: unit must be text", column=source, value=unit))
+        problems.append(_key_problem(file, f"{where}: unit must be text", source, value=unit))
         return None
     norm = _norm_unit(unit)
     accepted = dict(UNITS.get(col.unit, {})) if col.kind == NUMBER else {}
@@ -158,23 +164,23 @@ def _unit_map(col: Column, source: str, value: dict, where: str, file: str,
         names = sorted(accepted) + (sorted(f"{u} (total force)" for u in TOTAL_FORCE_UNITS)
                                     if col.name == TOTAL_FORCE_COLUMN else [])
         choice = f"accepted: {', '.join(names)}" if names else "this column takes no unit conversion"
-        problems.append(Problem(file, f"{where}: unknown unit '{unit}' for {col.name} [{col.unit}]; {choice}",
-                                column=source, value=unit))
+        problems.append(_key_problem(file, f"{where}: unknown unit '{unit}' for {col.name} [{col.unit}]; {choice}",
+                                     source, value=unit))
         return None
     if width_keys and not total:
-        problems.append(Problem(file, f"{where}: {width_keys[0]} only goes with a total roll force unit "
-                                      f"({', '.join(TOTAL_FORCE_UNITS)})", column=source))
+        problems.append(_key_problem(file, f"{where}: {width_keys[0]} only goes with a total roll force unit "
+                                           f"({', '.join(TOTAL_FORCE_UNITS)})", source))
         return None
     width = None
     if width_keys:
         if len(width_keys) > 1:
-            problems.append(Problem(file, f"{where}: give roll_width_mm or roll_width_cm, not both", column=source))
+            problems.append(_key_problem(file, f"{where}: give roll_width_mm or roll_width_cm, not both", source))
             return None
         raw = value[width_keys[0]]
         number = _finite_float(raw)
         if number is None or not number > 0:
-            problems.append(Problem(file, f"{where}: {width_keys[0]} must be a number > 0", column=source,
-                                    value=raw))
+            problems.append(_key_problem(file, f"{where}: {width_keys[0]} must be a number > 0", source,
+                                         value=raw))
             return None
         width = number * (10.0 if width_keys[0] == "roll_width_cm" else 1.0)
     if total:
@@ -205,7 +211,7 @@ def read_mapping(path: Path) -> Mapping:
     try:
         parsed = tomllib.loads(data.decode("utf-8-sig"))
     except (UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
-        raise InputError(Problem(path.name, f"not valid TOML: {exc}", row=_toml_line(exc))) from None
+        raise InputError(toml_problem(path.name, f"not valid TOML: {exc}", line=_toml_line(exc))) from None
     except RecursionError:  # tomllib is recursive: arrays or tables nested thousands deep
         raise InputError(Problem(path.name, "not valid TOML: nested too deeply")) from None
     return Mapping.from_dict(parsed, path.name, hashlib.sha256(data).hexdigest())

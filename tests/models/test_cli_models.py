@@ -148,7 +148,7 @@ def test_a_misspelt_chain_target_is_refused_and_nothing_trained(fake_store, tmp_
     models = tmp_path / "models"
     res = run("train", "--store", tmp_path / "s.db", "--models-dir", models, "--chain", chain, "--no-materials")
     assert res.exit_code == 2, res.output
-    assert ("chain.toml, column 'targets', value 'dissolution_pcx': stage 'tablets': 'dissolution_pcx' is not an "
+    assert ("chain.toml, key 'targets', value 'dissolution_pcx': stage 'tablets': 'dissolution_pcx' is not an "
             "attribute of the assembled table (did you mean 'dissolution_pct'?)") in res.output
     assert "audit" not in fake_store
     assert not models.exists() or not any(models.iterdir())
