@@ -384,7 +384,7 @@ def _stage_predictions(chain, draws, spec, judged, level: float, contributions: 
                 out.pass_all &= ok
                 out.any_spec = True
             if contributions:
-                entry["contributions"] = _top_contributions(target, x)
+                entry["contributions"], entry["contributions_base"] = _top_contributions(target, x)
             out.predictions[name] = entry
     return out
 
@@ -575,12 +575,16 @@ def _given_number(v) -> float | str:
     return f if math.isfinite(f) else "not a finite number"
 
 
-def _top_contributions(target, x: dict, n: int = 3) -> list[dict]:
-    values, _ = target.contributions(x)
+def _top_contributions(target, x: dict, n: int = 3) -> tuple[list[dict], float]:
+    """The ``n`` largest contributions of the inputs to ``target``'s prediction at ``x``, and the base value
+    every input's contribution is added to (the model's value is the base plus all of them: the sheet says so,
+    ``predict --json`` has it as ``contributions_base``)."""
+    values, base = target.contributions(x)
     row = values[0]
     # largest absolute first; ties keep the order of the inputs (a stable sort)
     order = sorted(range(len(row)), key=lambda j: -abs(row[j]))[:n]
-    return [{"input": str(target.inputs[j]), "value": float(row[j])} for j in order]
+    base = float(np.asarray(base, dtype=float).reshape(-1)[0])  # one row: a scalar, or an array of one
+    return [{"input": str(target.inputs[j]), "value": float(row[j])} for j in order], base
 
 
 def _num(v):

@@ -204,7 +204,8 @@ def _prediction_row(name: str, p: dict, d: dict) -> dict:
         "stages": stages_text(p.get("p_stage")),
         "extrapolation": "p_pass" in p and not d["promise"],
         "method": p["interval_method"], "model": p["selected_model"],
-        "contributions": contributions_shown(p),
+        "contributions": contributions_shown(p), "contributions_unit": contributions_unit(name, p),
+        "base": base_text(name, p),
     }
 
 
@@ -228,6 +229,35 @@ def contributions_shown(p: dict) -> list[tuple[str, str]] | str:
     given = p.get("contributions") or []
     shown = [(c["input"], contribution_text(c["value"])) for c in given if c["value"] != 0]
     return shown if shown or not given else NO_CONTRIBUTION
+
+
+def _with_unit(number: str, name: str) -> str:
+    """A number of quantity ``name`` with its unit after it as the report writes it ('1.92 MPa', '590.6 µm'),
+    joined by a no-break space so that a line never ends between them; the number alone for a quantity
+    without a unit (porosity)."""
+    u = shown_unit(name)
+    return number if u == "-" else f"{number}\u00a0{u}"
+
+
+def contributions_unit(name: str, p: dict) -> str:
+    """The unit the contributions of one prediction entry are in, '(in MPa)' after the listed ones: the unit of
+    the attribute they add up to; '' where none is listed or the attribute has no unit."""
+    u, shown = shown_unit(name), contributions_shown(p)
+    return f"(in {u})" if u != "-" and isinstance(shown, list) and shown else ""
+
+
+#: what the sheet says once of every attribute's contributions and base value (above its predictions table)
+CONTRIBUTIONS_NOTE = ("An attribute's contributions are in its unit: the model's value is its base value plus "
+                      "the contribution of every input (the largest are listed).")
+
+
+def base_text(name: str, p: dict) -> str:
+    """What the contributions of one prediction entry add to, 'base value 1.92 MPa' (``contributions_base`` of
+    ``predict --json``; :data:`CONTRIBUTIONS_NOTE`); '' for an entry without it (a what-if made without
+    contributions)."""
+    if p.get("contributions_base") is None:
+        return ""
+    return f"base value {_with_unit(_fmt(p['contributions_base']), name)}"
 
 
 def _probability_all(d: dict) -> dict:
@@ -294,4 +324,6 @@ def whatif_html(result, set_aside_note: str | None = None) -> str:
         inputs=[{"name": k, "unit": _unit(k), "value": _fmt(v["value"]), "source": v["source"]}
                 for k, v in d["inputs"].items()],
         held=_held(d), level=round(100 * d["interval_level"]), probability=_probability_all(d),
-        predictions=[_prediction_row(name, p, d) for name, p in d["predictions"].items()]))
+        predictions=[_prediction_row(name, p, d) for name, p in d["predictions"].items()],
+        contributions_note=CONTRIBUTIONS_NOTE if any(r.get("contributions_base") is not None
+                                                     for r in d["predictions"].values()) else ""))

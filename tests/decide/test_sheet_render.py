@@ -136,3 +136,36 @@ def test_the_sheet_writes_units_as_the_report_does(scenario):
     for name in [*d["predictions"], *d["inputs"]]:
         unit = shown_unit(name)
         assert (f"<td>{name} [{html.escape(unit)}]</td>" in page) if unit != "-" else f"<td>{name}</td>" in page, name
+
+
+def test_the_sheet_gives_the_contributions_unit_and_their_base_value(scenario):
+    """A user test: the sheet listed each attribute's contributions without their unit or the base value they
+    add to. The base value is in ``predict --json`` (``contributions_base``) and on the sheet, with the
+    attribute's unit (the schema's column unit: granule_d50_um in micrometres, µm, the SI symbol, BIPM SI
+    Brochure 9th ed. Table 7). Checked by local accuracy, the defining property of additive attributions
+    (Lundberg & Lee 2017, NeurIPS 30, Property 1): the base value plus every input's contribution is the
+    model's value; the granule stage has two inputs, so every contribution is listed and their sum is exact."""
+    import math
+
+    from linkage.schema import ASSEMBLED
+
+    _, chain, spec, _ = scenario
+    r = predict_whatif(chain, {"roll_force_kn_per_cm": 9.0}, spec=spec, n_draws=400, seed=0)
+    d = r.to_dict()
+    page = whatif_html(r)
+    for name in ("granule_d50_um", "fines_pct"):
+        p = d["predictions"][name]
+        assert len(p["contributions"]) == 2, p["contributions"]  # both inputs of the granule stage
+        total = p["contributions_base"] + sum(c["value"] for c in p["contributions"])
+        assert math.isclose(total, p["unprojected"]["value"], rel_tol=1e-9), (name, total, p)
+    assert ASSEMBLED["granule_d50_um"] == "um" and ASSEMBLED["fines_pct"] == "%"
+    granules = _detail_row(page, "granule_d50_um")
+    base = d["predictions"]["granule_d50_um"]["contributions_base"]
+    assert f"base value {base:.4g}\u00a0µm" in granules and "(in µm)" in granules, granules
+    fines = _detail_row(page, "fines_pct")
+    assert f"base value {d['predictions']['fines_pct']['contributions_base']:.4g}\u00a0%" in fines, fines
+    # porosity has no unit: its base value stands alone, and no '(in …)'
+    porosity = _detail_row(page, "ribbon_porosity")
+    assert f"base value {d['predictions']['ribbon_porosity']['contributions_base']:.4g}" in porosity
+    assert "(in " not in porosity
+    assert "the model's value is its base value plus the contribution of every input" in _text(page)
