@@ -272,7 +272,7 @@ def _parse(data: dict, file: str, text: str) -> Spec:
         ok = True
         for key in ("min", "max"):
             if key in values and not lo <= values[key] <= hi:
-                hint = " (a fraction: write 0.20 for 20 %)" if (lo, hi) == (0.0, 1.0) else ""
+                hint = " (a fraction: write 0.20 for 20%)" if (lo, hi) == (0.0, 1.0) else ""
                 bad(attr, f"[{attr}] {key} = {values[key]:g} is outside the plausible range {lo:g} to {hi:g} "
                           f"{unit} of {attr}: limit in the wrong unit range?{hint}", table[key])
                 ok = False
@@ -322,7 +322,7 @@ def _parse_judge(table: dict, values: dict, bad) -> tuple[str, str] | None:
             bad(DISSOLUTION, f"[{DISSOLUTION}] judge = \"stages\" needs min (Q, % of label claim)")
             ok = False
         elif "min" in values and not 0 <= values["min"] <= 100:
-            bad(DISSOLUTION, f"[{DISSOLUTION}] judge = \"stages\": Q = min must lie in 0 to 100 % of label claim "
+            bad(DISSOLUTION, f"[{DISSOLUTION}] judge = \"stages\": Q = min must lie in 0 to 100% of label claim "
                              "(USP <711>)", table["min"])
             ok = False
     return (judge, pass_by) if ok else None

@@ -92,7 +92,7 @@ BAD_JUDGEMENT = [
     # an unknown key is placed on its own line, not its table's header (a user test), the next table's key not taken
     ("[dissolution_pct]\nmin = 80\n[fines_pct]\nmim = 2\nmax = 30\n", 4, "fines_pct", "unknown key 'mim' (did you mean 'min'?)"),
     ("[dissolution_pct]\nmax = 500\n", 1, "dissolution_pct", "limit in the wrong unit range?"),
-    ("[ribbon_porosity]\nmin = 20\n", 1, "ribbon_porosity", "a fraction: write 0.20 for 20 %"),
+    ("[ribbon_porosity]\nmin = 20\n", 1, "ribbon_porosity", "a fraction: write 0.20 for 20%"),
     ("[tensile_strength_mpa]\nmin = 1700\n", 1, "tensile_strength_mpa", "limit in the wrong unit range?"),
     ("[dissolution_pct]\nmin = 80\ntime_min = 0\n", 1, "dissolution_pct", "time_min must be in 0 < time_min"),
     ("dissolution_pct = 80\n", None, "dissolution_pct", "must be a table"),

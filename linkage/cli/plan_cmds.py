@@ -48,7 +48,7 @@ from linkage.jsonable import jsonable
                    "pass) straddle the confidence near the porosity edges (target); or at the quantiles of the "
                    "replicates' porosity edges (thompson; without replicates, the local criterion). Measured on "
                    "150 seeded synthetic campaigns, cover narrowed the window edges' error 1.27 times as much as "
-                   "lots drawn at random within the ranges (95 % interval 0.97-1.69); the others did no better "
+                   "lots drawn at random within the ranges (95% interval 0.97-1.69); the others did no better "
                    "than random: reports/plan-benefit.md.")
 @click.option("--prefix", default="PLAN", show_default=True, help="Planned lot ids are PREFIX-001, PREFIX-002, ...")
 @click.option("--product", default=None, help="Product name written in the process table (without --new, by "

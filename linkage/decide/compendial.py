@@ -330,7 +330,7 @@ def judge_text(spec) -> dict[str, str]:
     out = {}
     for name, limit in spec.limits.items():
         if name == DISSOLUTION and spec.dissolution_judge == "stages":
-            out[name] = (f"USP <711> stages on simulated units, Q = {limit.min:g} %, "
+            out[name] = (f"USP <711> stages on simulated units, Q = {limit.min:g}%, "
                          f"pass by {spec.dissolution_pass_by}")
         else:
             out[name] = f"lot mean {limit.text()}"
@@ -426,7 +426,7 @@ def judge_draws(chain, draws, spec, *, seed: int = 0) -> Judged:
             out.rsd_source = f"{WEIGHT_RSD} of each simulated lot"
         else:
             var = np.full((rows, n_draws), sp["pooled_rsd_pct"] ** 2)
-            out.rsd_source = f"pooled within-lot RSD of the training lots, {sp['pooled_rsd_pct']:.3g} %"
+            out.rsd_source = f"pooled within-lot RSD of the training lots, {sp['pooled_rsd_pct']:.3g}%"
         rsd = np.sqrt(var)
         av1 = np.empty((rows, n_draws))
         st = {k: np.empty((rows, n_draws), dtype=bool) for k in ("1", "2")}

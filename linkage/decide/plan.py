@@ -902,7 +902,7 @@ def _thompson_choice(chain, table, spec, window, eps_c, pool, n, confidence, por
                                             edges=[cols[k] for k in sorted(cols)])
     spread = {k: np.nanquantile(edges_b[:, k], [0.05, 0.95]) for k in cols}
     edge_list = [{"name": cols[k][0], "kind": "porosity", "value": cols[k][1],
-                  "where": f"ribbon porosity {cols[k][1]:.3f} (replicates' edges 5-95 %: {spread[k][0]:.3f}-"
+                  "where": f"ribbon porosity {cols[k][1]:.3f} (replicates' edges 5-95%: {spread[k][0]:.3f}-"
                            f"{spread[k][1]:.3f})", "relative_variance": float(r)}
                  for k, r in zip(sorted(cols), relative)]
     crit = {"before": 1.0, "after": total,

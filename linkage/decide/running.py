@@ -88,11 +88,11 @@ METHOD = {
               "(λ = 0.2, L = 3), linkage.charts (NIST/SEMATECH e-Handbook §6.3.2; Montgomery 2009 §9.2)",
     "level": "with a drift: least-squares line of porosity on hours at the last sample, SE σ·sqrt(1/n + "
              "(t_n − t̄)²/S_tt) (Montgomery, Peck & Vining 2012 §2.4.2); without: the running mean, SE σ/√n",
-    "sensitivity": "central difference of the ribbon stage's prediction at the lot's settings, half step 5 % of the "
+    "sensitivity": "central difference of the ribbon stage's prediction at the lot's settings, half step 5% of the "
                    "setting's training range; uncertainty = SD over the lot-level bootstrap replicates "
                    "(Efron & Tibshirani 1993 §6.2)",
     "correction": "Δx = (centre − level)/s; u(Δx)² = (u(level)/s)² + (Δx·u(s)/s)², first-order law of "
-                  "propagation of uncertainty (JCGM 100:2008 eq. 10); 95 % interval ± 1.96·u(Δx)",
+                  "propagation of uncertainty (JCGM 100:2008 eq. 10); 95% interval ± 1.96·u(Δx)",
     "model_fit": "the lot's starting level (baseline centre) against the model's conformal prediction interval at "
                  "its nominal coverage at these settings; beyond twice its half-width from the expectation (about "
                  "3.3 prediction SD with normal errors; a rule of thumb, no source) the model is taken not to "
@@ -457,7 +457,7 @@ class RunningResult:
             if c.get("no_change_needed"):
                 lines.append("No change needed now (the suggested change is within its uncertainty of zero).")
             lines.append(f"Suggested {self.adjust}: {c['suggested']:.3g} {unit} (now {c['current']:.3g}; change "
-                         f"{c['change']:+.3g} ± {c['se']:.2g}, 95 % {c['interval_95'][0]:.3g} to "
+                         f"{c['change']:+.3g} ± {c['se']:.2g}, 95% {c['interval_95'][0]:.3g} to "
                          f"{c['interval_95'][1]:.3g}); the running level moved by the model's predicted change: "
                          f"{c['expected_porosity']:.4f} against the centre {w['centre']:.4f}"
                          + ("" if c.get("model_porosity") is None else

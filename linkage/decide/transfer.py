@@ -215,7 +215,7 @@ class Transfer:
             lo, hi = self.targets[0], self.targets[-1]
             lines.append(f"  porosity window {lo['ribbon_porosity']:.3f}-{hi['ribbon_porosity']:.3f}: specific roll "
                          f"force {hi['roll_force_kn_per_cm']:.2f}-{lo['roll_force_kn_per_cm']:.2f} kN/cm")
-        pct = f"{100 * self.level:g} %"
+        pct = f"{100 * self.level:g}%"
         for t in self.targets:
             lo, hi = t["force_interval_kn_per_cm"]
             clo, chi = t["force_confidence_kn_per_cm"]

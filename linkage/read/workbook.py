@@ -176,7 +176,7 @@ def _percent_cells(raw: _Raw, j: int, target: str, shown: str, tdef: Table, cmap
             continue
         unit = f"in {col.unit}" if col is not None else "not a percentage column"
         problems.append(Problem(raw.label, f"cell formatted as a percentage: it stores {float(stored)!r} and shows "
-                                           f"{as_shown!r} %, but the column is {unit}; format the cell as a number "
+                                           f"{as_shown!r}%, but the column is {unit}; format the cell as a number "
                                            "showing the value meant", row=r, column=shown, value=stored))
         bad.add((k, target))
 

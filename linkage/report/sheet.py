@@ -232,11 +232,11 @@ def contributions_shown(p: dict) -> list[tuple[str, str]] | str:
 
 
 def _with_unit(number: str, name: str) -> str:
-    """A number of quantity ``name`` with its unit after it as the report writes it ('1.92 MPa', '590.6 µm'),
-    joined by a no-break space so that a line never ends between them; the number alone for a quantity
-    without a unit (porosity)."""
+    """A number of quantity ``name`` with its unit after it as the report writes it ('1.92 MPa', '590.6 µm',
+    '19.38%': a percent without a space, as every percent the tool writes), joined by a no-break space so that
+    a line never ends between them; the number alone for a quantity without a unit (porosity)."""
     u = shown_unit(name)
-    return number if u == "-" else f"{number}\u00a0{u}"
+    return number if u == "-" else f"{number}%" if u == "%" else f"{number}\u00a0{u}"
 
 
 def contributions_unit(name: str, p: dict) -> str:

@@ -112,7 +112,7 @@ def transfer_section(b, table, window=None, *, seed: int = 0, trained_on=None, t
     b.add(_part("sections", "transfer_rolls", which=which, rolls=SCALE_UP_ROLLS, label=EXAMPLE_LABEL,
                 command=_command(targets, gap)))
     b.add(table_html(["rolls", "diameter [mm]", "width [mm]", "gap [mm]", "porosity [-]", "force [kN/cm]",
-                  "95 % interval [kN/cm]", "total [kN]", "P max [MPa]"], rows,
+                  "95% interval [kN/cm]", "total [kN]", "P max [MPa]"], rows,
                  num_cols={1, 2, 3, 4, 5, 6, 7, 8}))
     for text in refused:
         b.note(f"No force for the rolls {text}")

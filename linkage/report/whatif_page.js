@@ -851,10 +851,10 @@
   };
   const num = (v, d = 4) => (v === null || v === undefined ? "–" : !Number.isFinite(v) ? (v > 0 ? "∞" : "−∞") : fmt(Number(v.toPrecision(d))));
   const pct = (v) => (v === null || v === undefined || Number.isNaN(v) ? "–"
-    : v > 0.999 ? "> 99.9 %" : v < 0.001 ? "< 0.1 %" : (100 * v).toFixed(1) + " %");
-  // an assurance or confidence as a percent with the digits given (linkage.numbers.percent_text): 0.9 -> "90 %"
-  const share = (v) => `${+(100 * v).toFixed(4)} %`;
-  // a lower bound in words, as sheet.at_least writes it: never "at least < 0.1 %" or "at least > 99.9 %"
+    : v > 0.999 ? "> 99.9%" : v < 0.001 ? "< 0.1%" : (100 * v).toFixed(1) + "%");
+  // an assurance or confidence as a percent with the digits given (linkage.numbers.percent_text): 0.9 -> "90%"
+  const share = (v) => `${+(100 * v).toFixed(4)}%`;
+  // a lower bound in words, as sheet.at_least writes it: never "at least < 0.1%" or "at least > 99.9%"
   const atLeast = (v) => { const t = pct(v); return t.startsWith(">") ? t
     : t.startsWith("<") ? `under ${t.slice(1).trim()} at its lower bound` : `at least ${t}`; };
 
@@ -865,14 +865,14 @@
   const boxText = (s, v) => String(Number(Number(v).toFixed(stepDecimals(s))));
   function showValue(s, box, v) { box.exact = Number(v); box.value = boxText(s, v); }
   function boxValue(s, box) { return box.exact !== undefined && box.value === boxText(s, box.exact) ? box.exact : Number(box.value); }
-  // the stage probabilities as predict writes them (results.stage_text): "at S1 79.0 %, by S2 > 99.9 %, by S3 > 99.9 %"
+  // the stage probabilities as predict writes them (results.stage_text): "at S1 79.0%, by S2 > 99.9%, by S3 > 99.9%"
   const stageText = (pStage) => Object.entries(pStage).map(([k, v], i) => `${i === 0 ? "at" : "by"} ${k.startsWith("S") ? k : "stage " + k} ${pct(v)}`).join(", ");
 
   function build() {
     app.textContent = "";
     app.append(el("h1", { text: "What-if, model " + M.model_id }));
     const meta = el("p", { class: "meta" });
-    meta.textContent = `Model ${M.model_id} (trained ${M.trained}); intervals at ${(100 * M.level).toFixed(0)} %; ` +
+    meta.textContent = `Model ${M.model_id} (trained ${M.trained}); intervals at ${(100 * M.level).toFixed(0)}%; ` +
       `lower bounds at assurance ${share(M.assurance)}; ${N} Monte Carlo draws, seed ${M.seed}. ` +
       (M.spec ? `Spec ${M.spec.file || ""} (SHA-256 ${(M.spec.sha256 || "").slice(0, 12)}…): ` +
         Object.entries(M.spec.attributes).map(([a, s]) => `${a} ${limitsText(s.limits)}${s.judge !== "mean" ? " (" + s.judge + ")" : ""}`).join("; ")
@@ -982,7 +982,7 @@
     const t = el("table", { class: "predictions" });
     // a numeric column's heading is right-aligned, over its numbers (class num)
     const head = (h, i, numeric) => el("th", numeric.includes(i) ? { class: "num", text: h } : { text: h });
-    t.append(el("tr", {}, ...["attribute", "predicted", `${(100 * M.level).toFixed(0)} % interval`, "limits", "P(pass)",
+    t.append(el("tr", {}, ...["attribute", "predicted", `${(100 * M.level).toFixed(0)}% interval`, "limits", "P(pass)",
       `at least (assurance ${share(M.assurance)})`, "model", "interval"].map((h, i) => head(h, i, [1, 2, 4, 5]))));
     for (const [name, p] of Object.entries(r.predictions)) {
       const lim = p.limits ? [p.limits.min !== null ? "≥ " + fmt(p.limits.min) : "", p.limits.max !== null ? "≤ " + fmt(p.limits.max) : ""].filter(Boolean).join(", ") : "";

@@ -163,7 +163,7 @@ def test_the_sheet_gives_the_contributions_unit_and_their_base_value(scenario):
     base = d["predictions"]["granule_d50_um"]["contributions_base"]
     assert f"base value {base:.4g}\u00a0µm" in granules and "(in µm)" in granules, granules
     fines = _detail_row(page, "fines_pct")
-    assert f"base value {d['predictions']['fines_pct']['contributions_base']:.4g}\u00a0%" in fines, fines
+    assert f"base value {d['predictions']['fines_pct']['contributions_base']:.4g}%" in fines, fines
     # porosity has no unit: its base value stands alone, and no '(in …)'
     porosity = _detail_row(page, "ribbon_porosity")
     assert f"base value {d['predictions']['ribbon_porosity']['contributions_base']:.4g}" in porosity
