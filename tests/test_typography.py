@@ -1,9 +1,9 @@
 """One way of writing a percent and an angle in what the tool prints and writes (a user test).
 
 A user test found "90 %" in some texts and "90%" in others, and angles as "deg" in the terminal but "°" in the
-report. The form most used in the tool's texts is kept for each: a percent without a space ("90%", as
-:func:`linkage.numbers.percent_text` and every probability write it), an angle as "deg" (as ``transfer`` prints the
-nip angle and its options name it, ``--wall-friction-deg``). A regression test of wording, on the texts themselves
+report. A percent is written without a space ("90%", as :func:`linkage.numbers.percent_text` and every
+probability write it, the form most used), an angle with the degree sign ("40°", as the texts write µm, ≥ and T²;
+only the options' names, ``--wall-friction-deg``, and their help's unit ``[deg]`` spell it out). A regression test of wording, on the texts themselves
 (no outside source: which form is a house rule, common practice, no source); JSON keys, column names and options
 are not touched.
 """
@@ -31,23 +31,23 @@ def lots():
     return make_transfer_lots(seed=2)
 
 
-def test_transfer_prints_percent_unspaced_and_the_nip_angle_in_deg(lots):
+def test_transfer_prints_percent_unspaced_and_the_nip_angle_in_degrees(lots):
     physics = fit_ribbon_physics(lots)
     text = transfer(physics, roll_diameter_mm=400.0, roll_width_mm=100.0, roll_gap_mm=3.0,
                     window=(0.28, 0.34)).text()
     assert "95% interval for one lot" in text, text
-    assert re.search(r"nip angle \d+\.\d deg", text), text
+    assert re.search(r"nip angle \d+\.\d°", text), text
     assert not SPACED_PERCENT.search(text), text
-    assert "°" not in text
+    assert " deg" not in text
 
 
-def test_the_reports_transfer_section_writes_deg_and_unspaced_percent(lots):
+def test_the_reports_transfer_section_writes_degrees_and_unspaced_percent(lots):
     b = _Builder()
     transfer_section(b, lots)
     page = "".join(b.parts)
-    assert "friction angles held at 40 deg (internal) and 25 deg (wall)" in page
+    assert "friction angles held at 40° (internal) and 25° (wall)" in page
     assert "95% interval [kN/cm]" in page and "95% interval for one lot" in page
-    assert "°" not in page
+    assert " deg" not in page
     assert not SPACED_PERCENT.search(page)
 
 

@@ -222,7 +222,7 @@ class Transfer:
             lines.append(f"  porosity {t['ribbon_porosity']:.3f}: {t['roll_force_kn_per_cm']:.2f} kN/cm "
                          f"({t['roll_force_kn']:.1f} kN over the width), {pct} interval for one lot "
                          f"{lo:.2f}-{hi:.2f} kN/cm (parameters alone {clo:.2f}-{chi:.2f}); peak pressure "
-                         f"{t['peak_pressure_mpa']:.0f} MPa, nip angle {t['nip_angle_deg']:.1f} deg"
+                         f"{t['peak_pressure_mpa']:.0f} MPa, nip angle {t['nip_angle_deg']:.1f}°"
                          + ("" if t["inside_lots_pressure_range"] else
                             f"; OUTSIDE the peak pressures the lots reached ({p.peak_pressure_range_mpa[0]:.0f}-"
                             f"{p.peak_pressure_range_mpa[1]:.0f} MPa): extrapolated"))
@@ -248,7 +248,7 @@ def _no_nip(physics: RibbonPhysics, roll_gap_mm: float, roll_diameter_mm: float)
     ratio = roll_gap_mm / roll_diameter_mm
     largest = rolling.johanson_largest_gap_ratio(physics.compressibility, physics.internal_friction_deg,
                                                  physics.wall_friction_deg)
-    positive = (f"positive only below arccos((1 + S/D)/2) = {np.degrees(np.arccos((1 + ratio) / 2)):.1f} deg"
+    positive = (f"positive only below arccos((1 + S/D)/2) = {np.degrees(np.arccos((1 + ratio) / 2)):.1f}°"
                 if ratio < 1 else "negative at every angle, since S/D >= 1")
     return (f"no roll force on these rolls: a gap of {roll_gap_mm:g} mm on rolls of {roll_diameter_mm:g} mm "
             f"(S/D = {ratio:.3g}) gives no nip angle in Johanson's rolling theory (the nip-region pressure gradient, "
