@@ -260,7 +260,7 @@ def _parse(data: dict, file: str, text: str) -> Spec:
                 f = math.nan
             if not math.isfinite(f):
                 huge = isinstance(v, int) and not isinstance(v, bool)  # only an overflowing integer gets here
-                bad(attr, f"[{attr}] {key} must be a number", "an integer beyond float range" if huge else v)
+                bad(attr, f"[{attr}] {key} must be a number", "an integer beyond float range" if huge else v, key=key)
                 continue
             values[key] = f
         if "min" not in table and "max" not in table:
@@ -274,15 +274,16 @@ def _parse(data: dict, file: str, text: str) -> Spec:
             if key in values and not lo <= values[key] <= hi:
                 hint = " (a fraction: write 0.20 for 20%)" if (lo, hi) == (0.0, 1.0) else ""
                 bad(attr, f"[{attr}] {key} = {values[key]:g} is outside the plausible range {lo:g} to {hi:g} "
-                          f"{unit} of {attr}: limit in the wrong unit range?{hint}", table[key])
+                          f"{unit} of {attr}: limit in the wrong unit range?{hint}", table[key], key=key)
                 ok = False
         if "min" in values and "max" in values and values["min"] > values["max"]:
-            bad(attr, f"[{attr}] min {values['min']:g} is above max {values['max']:g}", table["min"])
+            bad(attr, f"[{attr}] min {values['min']:g} is above max {values['max']:g}", table["min"], key="min")
             ok = False
         if "time_min" in values:
             t_lo, t_hi = _time_range()
             if not t_lo < values["time_min"] <= t_hi:
-                bad(attr, f"[{attr}] time_min must be in {t_lo:g} < time_min <= {t_hi:g} min", table["time_min"])
+                bad(attr, f"[{attr}] time_min must be in {t_lo:g} < time_min <= {t_hi:g} min", table["time_min"],
+                    key="time_min")
                 ok = False
             else:
                 time_min = values["time_min"]
@@ -294,8 +295,8 @@ def _parse(data: dict, file: str, text: str) -> Spec:
                 judge, pass_by = judged
         if ok and ("min" in values or "max" in values) and set(values) >= set(table) & {"min", "max"}:
             limits[attr] = Limit(values.get("min"), values.get("max"))
-    if problems:
-        raise SpecError(problems)
+    if problems:  # in the file's order of lines (a problem without a line first), as a reader goes down the file
+        raise SpecError(sorted(problems, key=lambda p: -1 if p.row is None else p.row))
     return Spec(limits, time_min, judge, pass_by, av_max)
 
 
@@ -305,25 +306,26 @@ def _parse_judge(table: dict, values: dict, bad) -> tuple[str, str] | None:
     ok = True
     if judge not in JUDGES:
         bad(DISSOLUTION, f"[{DISSOLUTION}] judge must be \"mean\" (the lot mean against the limits) or "
-                         f"\"stages\" (USP <711> acceptance table)", judge)
+                         f"\"stages\" (USP <711> acceptance table)", judge, key="judge")
         return None
     if "pass_by" in table and judge != "stages":
-        bad(DISSOLUTION, f"[{DISSOLUTION}] pass_by applies to judge = \"stages\" only", pass_by)
+        bad(DISSOLUTION, f"[{DISSOLUTION}] pass_by applies to judge = \"stages\" only", pass_by, key="pass_by")
         ok = False
     elif pass_by not in STAGES:
-        bad(DISSOLUTION, f"[{DISSOLUTION}] pass_by must be \"S1\", \"S2\" or \"S3\" (USP <711> stages)", pass_by)
+        bad(DISSOLUTION, f"[{DISSOLUTION}] pass_by must be \"S1\", \"S2\" or \"S3\" (USP <711> stages)", pass_by,
+            key="pass_by")
         ok = False
     if judge == "stages":
         if "max" in table:
             bad(DISSOLUTION, f"[{DISSOLUTION}] judge = \"stages\" judges a minimum Q (USP <711> Table 1); "
-                             "remove max", table["max"])
+                             "remove max", table["max"], key="max")
             ok = False
         if "min" not in table:
             bad(DISSOLUTION, f"[{DISSOLUTION}] judge = \"stages\" needs min (Q, % of label claim)")
             ok = False
         elif "min" in values and not 0 <= values["min"] <= 100:
             bad(DISSOLUTION, f"[{DISSOLUTION}] judge = \"stages\": Q = min must lie in 0 to 100% of label claim "
-                             "(USP <711>)", table["min"])
+                             "(USP <711>)", table["min"], key="min")
             ok = False
     return (judge, pass_by) if ok else None
 
@@ -344,12 +346,12 @@ def _parse_acceptance_value(table, bad) -> float | None:
     v = table["max"]
     f = float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) and abs(v) < 1e300 else math.nan
     if not math.isfinite(f):
-        bad(attr, f"[{attr}] max must be a number", v)
+        bad(attr, f"[{attr}] max must be a number", v, key="max")
         return None
     lo, hi = DERIVED_RANGES["weight_acceptance_value"]
     if not lo < f <= hi:
         bad(attr, f"[{attr}] max = {f:g} is outside {lo:g} < max <= {hi:g} (L1 of USP <905> is 15.0 unless the "
-                  "monograph says otherwise)", v)
+                  "monograph says otherwise)", v, key="max")
         return None
     return None if set(table) - {"max"} else f
 

@@ -62,20 +62,21 @@ def test_time_point_and_round_trip(tmp_path):
 
 
 #: spec files breaking a rule of the compendial judges (USP <711> Table 1, USP <905>), checked by
-#: test_bad_spec_is_a_clear_error with the others
+#: test_bad_spec_is_a_clear_error with the others; the line is the line of the key that breaks it (its table's
+#: header where the problem is the table's: a key missing, or the table itself)
 BAD_JUDGEMENT = [
-    ('[dissolution_pct]\nmin = 80\njudge = "median"\n', 1, "dissolution_pct", 'judge must be "mean"'),
-    ('[dissolution_pct]\nmin = 80\njudge = "stages"\npass_by = "S4"\n', 1, "dissolution_pct",
+    ('[dissolution_pct]\nmin = 80\njudge = "median"\n', 3, "dissolution_pct", 'judge must be "mean"'),
+    ('[dissolution_pct]\nmin = 80\njudge = "stages"\npass_by = "S4"\n', 4, "dissolution_pct",
      'pass_by must be "S1", "S2" or "S3"'),
-    ('[dissolution_pct]\nmin = 80\npass_by = "S1"\n', 1, "dissolution_pct", 'pass_by applies to judge = "stages"'),
-    ('[dissolution_pct]\nmin = 80\nmax = 110\njudge = "stages"\n', 1, "dissolution_pct",
+    ('[dissolution_pct]\nmin = 80\npass_by = "S1"\n', 3, "dissolution_pct", 'pass_by applies to judge = "stages"'),
+    ('[dissolution_pct]\nmin = 80\nmax = 110\njudge = "stages"\n', 3, "dissolution_pct",
      "judges a minimum Q (USP <711> Table 1); remove max"),
-    ('[dissolution_pct]\nmin = 120\njudge = "stages"\n', 1, "dissolution_pct", "Q = min must lie in 0 to 100"),
-    ("\n[acceptance_value]\nmax = 0\n", 2, "acceptance_value", "outside 0 < max <= 100"),
-    ("[acceptance_value]\nmax = 150\n", 1, "acceptance_value", "L1 of USP <905> is 15.0"),
+    ('[dissolution_pct]\nmin = 120\njudge = "stages"\n', 2, "dissolution_pct", "Q = min must lie in 0 to 100"),
+    ("\n[acceptance_value]\nmax = 0\n", 3, "acceptance_value", "outside 0 < max <= 100"),
+    ("[acceptance_value]\nmax = 150\n", 2, "acceptance_value", "L1 of USP <905> is 15.0"),
     ("[acceptance_value]\nmin = 5\nmax = 15\n", 2, "acceptance_value", "unknown key 'min'"),
     ("[acceptance_value]\n", 1, "acceptance_value", "needs max"),
-    ('[acceptance_value]\nmax = "15"\n', 1, "acceptance_value", "max must be a number"),
+    ('[acceptance_value]\nmax = "15"\n', 2, "acceptance_value", "max must be a number"),
     ("acceptance_value = 15\n", None, "acceptance_value", "must be a table"),
 ]
 
@@ -83,18 +84,18 @@ BAD_JUDGEMENT = [
 @pytest.mark.parametrize("text, line, column, expected", [
     ("[porosity]\nmax = 0.3\n", 1, "porosity",
      "unknown quality attribute [porosity] (did you mean 'ribbon_porosity'?)"),
-    ("[dissolution_pct]\nmin = 90\nmax = 80\n", 1, "dissolution_pct", "min 90 is above max 80"),
+    ("[dissolution_pct]\nmin = 90\nmax = 80\n", 2, "dissolution_pct", "min 90 is above max 80"),
     ("[friability_pct]\n", 1, "friability_pct", "has neither min nor max"),
-    ("[friability_pct]\nmax = \"1%\"\n", 1, "friability_pct", "max must be a number"),
-    ("[friability_pct]\nmax = true\n", 1, "friability_pct", "max must be a number"),
+    ("[friability_pct]\nmax = \"1%\"\n", 2, "friability_pct", "max must be a number"),
+    ("[friability_pct]\nmax = true\n", 2, "friability_pct", "max must be a number"),
     ("[friability_pct]\nmaximum = 1\n", 2, "friability_pct", "unknown key 'maximum' (did you mean 'max'?)"),
     ("\n[weight_rsd_pct]\nmax = 2\ntime_min = 30\n", 4, "weight_rsd_pct", "time_min belongs in [dissolution_pct] only"),
     # an unknown key is placed on its own line, not its table's header (a user test), the next table's key not taken
     ("[dissolution_pct]\nmin = 80\n[fines_pct]\nmim = 2\nmax = 30\n", 4, "fines_pct", "unknown key 'mim' (did you mean 'min'?)"),
-    ("[dissolution_pct]\nmax = 500\n", 1, "dissolution_pct", "limit in the wrong unit range?"),
-    ("[ribbon_porosity]\nmin = 20\n", 1, "ribbon_porosity", "a fraction: write 0.20 for 20%"),
-    ("[tensile_strength_mpa]\nmin = 1700\n", 1, "tensile_strength_mpa", "limit in the wrong unit range?"),
-    ("[dissolution_pct]\nmin = 80\ntime_min = 0\n", 1, "dissolution_pct", "time_min must be in 0 < time_min"),
+    ("[dissolution_pct]\nmax = 500\n", 2, "dissolution_pct", "limit in the wrong unit range?"),
+    ("[ribbon_porosity]\nmin = 20\n", 2, "ribbon_porosity", "a fraction: write 0.20 for 20%"),
+    ("[tensile_strength_mpa]\nmin = 1700\n", 2, "tensile_strength_mpa", "limit in the wrong unit range?"),
+    ("[dissolution_pct]\nmin = 80\ntime_min = 0\n", 3, "dissolution_pct", "time_min must be in 0 < time_min"),
     ("dissolution_pct = 80\n", None, "dissolution_pct", "must be a table"),
     *BAD_JUDGEMENT,
 ])

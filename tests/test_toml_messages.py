@@ -41,7 +41,8 @@ def test_spec_errors_say_line_table_and_key(tmp_path):
     path = tmp_path / "spec.toml"
     # line 1 [ribbon_porosity], line 2 min = 20 (a percent); line 4 [fines_pct], line 5 a misspelt key
     text = _refusal(path, "[ribbon_porosity]\nmin = 20\n\n[fines_pct]\nmim = 2\nmax = 30\n", read_spec, SpecError)
-    assert "spec.toml, line 1, table [ribbon_porosity], value 20: [ribbon_porosity] min = 20 is outside" in text
+    assert "spec.toml, line 2, table [ribbon_porosity], key 'min', value 20: [ribbon_porosity] min = 20 is outside" \
+        in text  # the key's own line (a user test: a value's problem named its table's header line)
     assert "spec.toml, line 5, table [fines_pct], key 'mim', value 2: [fines_pct]: unknown key 'mim'" in text
     # the command line: the same words, exit code 2
     r = CliRunner().invoke(cli, ["window", "--spec", str(path), "--models-dir", str(tmp_path / "m"),

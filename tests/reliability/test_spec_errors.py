@@ -46,11 +46,11 @@ def test_every_spec_mistake_is_named_at_once(tmp_path):
     text = str(info.value)
     problems = info.value.problems
     assert len(problems) == 4
-    # porosity given in percent: outside 0..1, with the hint (line 2 is its table)
-    assert "spec.toml, line 2, table [ribbon_porosity], value 20" in text and "wrong unit range" in text
+    # porosity given in percent: outside 0..1, with the hint (line 3 is its min; line 2 its table)
+    assert "spec.toml, line 3, table [ribbon_porosity], key 'min', value 20" in text and "wrong unit range" in text
     assert "write 0.20 for 20%" in text
-    # min above max (line 6)
-    assert "line 6, table [dissolution_pct], value 90: [dissolution_pct] min 90 is above max 80" in text
+    # min above max (line 7 is the min)
+    assert "line 7, table [dissolution_pct], key 'min', value 90: [dissolution_pct] min 90 is above max 80" in text
     # unknown attribute (a typo) with the nearest valid one, and the list of valid ones
     assert "line 10, table [friabilty_pct]: unknown quality attribute [friabilty_pct] (did you mean " \
            "'friability_pct'?); valid: ribbon_porosity" in text
