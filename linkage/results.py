@@ -191,8 +191,12 @@ def blank_required_note(file: str, columns: list[dict]) -> str:
 
     def one(col: dict) -> str:
         lots = col["lots"]
-        named = ", ".join(map(str, lots[:BLANK_SHOWN])) + (", ..." if len(lots) > BLANK_SHOWN else "")
-        return f"{col['header']} in {row_span(col['rows'])} (lot{'s' if len(lots) > 1 else ''} {named})"
+        named = ", ".join(map(str, lots[:BLANK_SHOWN]))
+        if len(lots) > BLANK_SHOWN:  # the count of all said, the first named (a user test: "..." hid how many)
+            named = f"{len(lots)} lots: {named} and {len(lots) - BLANK_SHOWN} more"
+        else:
+            named = f"lot{'s' if len(lots) > 1 else ''} {named}"
+        return f"{col['header']} in {row_span(col['rows'])} ({named})"
 
     means = "; ".join(dict.fromkeys(col["means"] for col in columns))  # one table's file: said once
     return (f"{file}: blank cells in required columns, read as missing values: {', '.join(one(c) for c in columns)}"

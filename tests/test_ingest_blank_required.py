@@ -145,5 +145,5 @@ def test_the_json_lists_the_first_rows_and_lots_of_a_long_blank_column_with_thei
                                                                                             BLANK_SHOWN)
     said = [ln for ln in _ingest(folder, store).splitlines() if "required columns" in ln]
     assert len(said) == 1 and f"{FORCE} in rows {rows[0]}-{rows[-1]} (10 rows)" in said[0]
-    assert f"(lots {', '.join(lots[2:2 + BLANK_SHOWN])}, ...)" in said[0]
+    assert f"(10 lots: {', '.join(lots[2:2 + BLANK_SHOWN])} and {10 - BLANK_SHOWN} more)" in said[0]  # how many said
     assert read_folder(folder).blank_required["process.csv"][0]["rows"] == rows  # the reader keeps every row
