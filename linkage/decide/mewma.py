@@ -267,7 +267,8 @@ def _design(p: int, lam: float, arl0: float, n_ref: int | None = None) -> dict:
         "parameters": parameters_text(n_ref),
         "false_alarm_rate_per_lot": 1.0 / arl0,
         "arl": arl,
-        "method": (f"h chosen by simulation ({RUNS} seeded in-control runs of standard normal vectors, seed "
+        "method": (f"h chosen by simulation ({RUNS if n_ref is None else RUNS_ESTIMATED} seeded in-control runs of "
+                   "standard normal vectors, seed "
                    f"{SEED}) for an in-control ARL of {arl0:g} lots over all {p} attributes together; run lengths "
                    "re-simulated with other seeds; a shift of d SD in one attribute alone has Mahalanobis size "
                    "at least d, so the ARL at size 1 (2) bounds the run length for a 1 (2) SD shift in any one "
