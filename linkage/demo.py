@@ -43,6 +43,8 @@ class DemoOutputs:
     seconds: dict[str, float] = field(default_factory=dict)
     #: the demo's spec file, copied into the folder (the copy is the one used), for later commands' --spec
     spec: Path | None = None
+    #: the window found, in words on one line (:meth:`linkage.results.Windowed.headline`)
+    window_line: str | None = None
 
 
 def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
@@ -124,4 +126,6 @@ def run_demo(out: Path = Path("reports/demo"), *, data: Path = DEMO_DATA,
     lap("report")
     return DemoOutputs(folder=out, store=store_path, models_dir=models_dir, model_id=model_id,
                        assembled=assembled, window_json=window_json, whatif_html=sheet,
-                       report=Path(report), seconds=seconds, spec=spec_path)
+                       report=Path(report), seconds=seconds, spec=spec_path,
+                       window_line=window.headline(roll_force=True) + ("" if window.result.promise else
+                                                                       "; not promised (outside the domain)"))

@@ -656,15 +656,23 @@ class Window(_Result):
 
         return pd.DataFrame(columns)
 
-    def __repr__(self) -> str:
+    def headline(self, roll_force: bool = False) -> str:
+        """The window in words on one line: its porosity edges at its confidence and what limits each (and, with
+        ``roll_force``, the roll force range where it was found); what ``repr`` and the demo's last lines say."""
         r = self.result
         if not r.found:
-            what = f"no window at {percent_text(r.confidence)} confidence"
-        else:
-            what = (f"ribbon porosity {r.low.value:.3f}–{r.high.value:.3f} at {percent_text(r.confidence)} "
-                    f"confidence (low edge: {r.low.limited_by}, high edge: {r.high.limited_by})")
-        return (f"<Window {what}; model {r.model_id}" + ("" if r.promise else "; not promised (outside the domain)")
-                + ">")
+            return f"no window at {percent_text(r.confidence)} confidence"
+        what = (f"ribbon porosity {r.low.value:.3f}–{r.high.value:.3f} at {percent_text(r.confidence)} "
+                f"confidence (low edge: {r.low.limited_by}, high edge: {r.high.limited_by})")
+        rf = r.roll_force or {}
+        if roll_force and rf.get("low") is not None and rf.get("high") is not None:
+            what += f"; roll force {rf['low']:.2f}–{rf['high']:.2f} kN/cm"
+        return what
+
+    def __repr__(self) -> str:
+        r = self.result
+        return (f"<Window {self.headline()}; model {r.model_id}"
+                + ("" if r.promise else "; not promised (outside the domain)") + ">")
 
 
 # --------------------------------------------------------------------------- what-if

@@ -38,6 +38,8 @@ def demo(out):
     click.echo(f"window          {result.window_json}")
     click.echo(f"what-if sheet   {result.whatif_html}")
     click.echo(f"report          {result.report}")
+    if result.window_line:  # the answer itself, not only where it went (a user test); the report says what it rests on
+        click.echo(f"window found    {result.window_line} (window.json and the report say what it rests on)")
     if result.spec is not None:
         click.echo(f"spec file       {result.spec}")
     # a later command in the same folder finds neither the demo's store nor its models by default (a user test)
