@@ -839,6 +839,23 @@ ALARM_NEXT_STEP = ("Next: look for an assignable cause in these lots (raw materi
                    "set-aside') if it should not count; retrain when the change is understood and intended.")
 
 
+#: how many of the watch's other looks its texts list (``linkage watch`` and the report's drift section); the rest
+#: are counted
+OTHER_LOOKS_SHOWN = 40
+
+
+def other_looks(others: list[str], shown: int = OTHER_LOOKS_SHOWN) -> dict | None:
+    """The watch's other looks (:attr:`linkage.decide.watch.WatchResult.other_signals`) in the words of ``linkage
+    watch``, for its text and the report's drift section alike: ``head`` (how many, and that they are for diagnosis,
+    not designed to a false-alarm rate), ``items`` (the first ``shown``, units as a reader writes them) and ``more``
+    (how many are left out, or None). None when there is none."""
+    if not others:
+        return None
+    return {"head": f"Other looks ({len(others)} signal(s); for diagnosis, not designed to a false-alarm rate):",
+            "items": [units_shown(a) for a in others[:shown]],
+            "more": f"... and {len(others) - shown} more" if len(others) > shown else None}
+
+
 @dataclass(repr=False)
 class Watched(_Result):
     """The drift watch (``linkage watch``): ``result`` is the library's
@@ -898,11 +915,10 @@ class Watched(_Result):
             lines.append(f"{len(alarms)} alarm(s) on lots since training:")
             lines += [f"  ! {units_shown(a)}" for a in alarms]
             lines.append(ALARM_NEXT_STEP)
-        others = r.other_signals
-        if others:
-            lines.append(f"Other looks ({len(others)} signal(s); for diagnosis, not designed to a false-alarm rate):")
-            lines += [f"  - {units_shown(a)}" for a in others[:40]] + (
-                [f"  ... and {len(others) - 40} more"] if len(others) > 40 else [])
+        looks = other_looks(r.other_signals)
+        if looks:
+            lines.append(looks["head"])
+            lines += [f"  - {a}" for a in looks["items"]] + ([f"  {looks['more']}"] if looks["more"] else [])
         for p in r.predictions:
             mark = "inside" if p["inside_interval"] else "OUTSIDE"
             lines.append(f"  what-if for {p['lot']}: {p['attribute']} predicted {p['predicted']:.4g} "

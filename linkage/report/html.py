@@ -1346,8 +1346,12 @@ def _watch_section(b, chain, table, window, result):
     table's lots (:func:`linkage.decide.watch.watch`)."""
     from linkage.report import figures as F
 
+    from linkage.decide.mewma import LAMBDA
+    from linkage.decide.watch import EWMA_LAMBDA
+
     b.section("drift", "Drift watch")
-    b.add(_part("watch", "drift_intro"))
+    alarm_lambda = result.mewma["design"]["lambda"] if result.mewma else LAMBDA
+    b.add(_part("watch", "drift_intro", chart_lambda=f"{EWMA_LAMBDA:g}", alarm_lambda=f"{alarm_lambda:g}"))
     charts = list(result.charts.values())
     if not charts:
         b.note("No attribute has enough training residuals (at least 3, not all equal) for control limits.")
@@ -1390,6 +1394,11 @@ def _watch_section(b, chain, table, window, result):
 
     b.add(_part("watch", "design", lines=design_lines(result.mewma)))
     b.add(_part("watch", "alarms", alarms=list(result.alarms), shown=40, n_new=len(result.new_lots)))
+    from linkage.results import other_looks
+
+    looks = other_looks(result.other_signals)  # as ``linkage watch`` lists them
+    if looks:
+        b.add(_part("watch", "other_looks", looks=looks))
 
 
 def _domain_section(b, chain, table, set_aside=None):
