@@ -645,6 +645,31 @@ def plot_domain(t2, q, *, t2_limit: float | None, q_limit: float | None, lots: S
 
 # ---------------------------------------------------------------- drift watch
 
+def plot_alarm_statistic(lots: Sequence, t2, *, h: float, signalled=None, lam: float | None = None, ax=None):
+    """The drift watch's alarm (:func:`linkage.decide.watch.mewma_look`): the multivariate EWMA's T² of each lot
+    since training in time order against its limit ``h`` (a dashed horizontal line), the lots it signals on
+    (``signalled``, bools) filled in vermilion. Drawn apart from the per-attribute charts, whose EWMA is another
+    (λ 0.2, for diagnosis): this is the statistic that raises the alarm."""
+    ax = new_axes(ax, panel=(4.6, 2.8), bottom=lot_axis_bottom(lots))
+    v = np.asarray(t2, float)
+    x = np.arange(len(v))
+    hit = np.zeros(len(v), bool) if signalled is None else np.asarray(signalled, bool)
+    ax.axhline(h, color=VERMILION, linestyle="--", linewidth=1.2, label=f"limit h = {h:.2f}")
+    ax.plot(x, v, color=BLUE, linewidth=1.0, zorder=1)
+    ax.scatter(x[~hit], v[~hit], s=18, color=BLUE, marker="s", label="below h", zorder=2)
+    if hit.any():
+        ax.scatter(x[hit], v[hit], s=30, color=VERMILION, marker="s", label="alarm (above h)", zorder=3)
+    ax.set_ylim(bottom=0)  # T² is a squared distance
+    lot_ticks(ax, lots)
+    ax.set_xlabel("lot since training, in time order [-]")
+    ax.set_ylabel("T² [-]")
+    ax.set_title("multivariate EWMA" + (f" (λ {lam:g})" if lam is not None else "") + " of all attributes",
+                 fontsize=8)
+    ax.legend(fontsize=6, loc="best", framealpha=0.8)
+    ax.grid(alpha=0.3, axis="y")
+    return ax
+
+
 def plot_control_chart(lots: Sequence, values, *, centre: float, limits: tuple[float, float], name: str,
                        ewma=None, ewma_low=None, ewma_high=None, new=None, flagged=None, ylabel: str | None = None,
                        ax=None):

@@ -1352,6 +1352,7 @@ def _watch_section(b, chain, table, window, result):
     b.section("drift", "Drift watch")
     alarm_lambda = result.mewma["design"]["lambda"] if result.mewma else LAMBDA
     b.add(_part("watch", "drift_intro", chart_lambda=f"{EWMA_LAMBDA:g}", alarm_lambda=f"{alarm_lambda:g}"))
+    _alarm_figure(b, result)
     charts = list(result.charts.values())
     if not charts:
         b.note("No attribute has enough training residuals (at least 3, not all equal) for control limits.")
@@ -1399,6 +1400,28 @@ def _watch_section(b, chain, table, window, result):
     looks = other_looks(result.other_signals)  # as ``linkage watch`` lists them
     if looks:
         b.add(_part("watch", "other_looks", looks=looks))
+
+
+def _alarm_figure(b, result) -> None:
+    """The statistic that raises the drift alarm: the multivariate EWMA's T² of each lot since training against
+    its limit h (``result.mewma``, :func:`linkage.decide.watch.mewma_look`), the lots it signals on marked; a note
+    where there is no such lot. Nothing where no attribute is charted (the section says so)."""
+    from linkage.report import figures as F
+
+    m = result.mewma
+    if m is None:
+        return
+    if not m["lots"]:
+        why = "no lot since training" if not result.new_lots else "no lot since training has a residual"
+        b.note(f"The alarm's statistic (T² against its limit h) is not drawn: {why}.")
+        return
+    lots, t2, h = [str(lot) for lot in m["lots"]], list(m["t2"]), float(m["h"])
+    signalled = [lot in m["signals"] for lot in m["lots"]]
+    lam = m["design"]["lambda"]
+    b.figure(partial(F.plot_alarm_statistic, lots, t2, h=h, signalled=signalled, lam=lam),
+             f"The alarm's statistic: T² of the multivariate EWMA (λ = {lam:g}) of all attributes' residuals, "
+             "each lot since training in time order, against its limit h (dashed); filled vermilion: lots above h, "
+             "the alarms listed below.")
 
 
 def _domain_section(b, chain, table, set_aside=None):

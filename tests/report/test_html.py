@@ -223,7 +223,7 @@ def test_drift_watch_section_has_its_charts():
     html = report.html
     assert 'id="drift"' in html
     section = html[html.index('id="drift"'):html.index('id="domain"')]
-    assert section.count("<img") == 2  # residual charts, lot-mean porosity
+    assert section.count("<img") == 3  # the alarm's T² against h, residual charts, lot-mean porosity
     assert "Alarms on lots since training" in section
     # issue 19: the alarms are the designed MEWMA's, naming the attributes furthest out, and the design is stated
     assert re.search(r"lot LOT-0(3[3-9]|40): T²[^<]*dissolution_pct", section)
