@@ -50,6 +50,9 @@ def test_the_drift_section_lists_the_looks_watch_lists(drift):  # noqa: F811
     assert shown[start:start + len(expected)] == expected
     assert f"({len(result.other_signals)} signal(s); for diagnosis, not designed to a false-alarm rate)" in expected[0]
     assert shown[start - 1] == "Flags of the single charts, the porosity and the domain"  # the sub-heading
+    # and what it leaves out: the looks at each ribbon sample, which the report's watch is not given (a review)
+    assert any(line.startswith("These are the looks at lot values; linkage watch also looks at each ribbon sample")
+               for line in shown[start + len(expected):])
     # the intro says which EWMA is which: the single charts' (λ = 0.2, for diagnosis), the alarm's (λ = 0.1, T²)
     intro = " ".join(shown[:3])
     assert "per-attribute charts' EWMA (λ = 0.2) is for diagnosis" in intro
