@@ -19,7 +19,7 @@ uses this module.
 
 from __future__ import annotations
 
-from linkage.exceptions import Problem, SpecError
+from linkage.exceptions import SpecError, toml_problem
 from linkage.schema import DEFAULT_DISSOLUTION_TIME_MIN
 
 DISSOLUTION = "dissolution_pct"
@@ -77,8 +77,8 @@ def check_time_point(chain, spec, command: str) -> None:
 def time_point_error(spec, rule: str) -> SpecError:
     """The error (exit code 2) for a spec at a time point the model was not
     trained for, naming the spec file and its time_min."""
-    return SpecError(Problem(file=getattr(spec, "file", None) or "spec", column="dissolution_pct time_min",
-                             value=spec_time_point(spec), rule=rule))
+    return SpecError(toml_problem(getattr(spec, "file", None) or "spec", rule, table="dissolution_pct",
+                                  key="time_min", value=spec_time_point(spec), column="dissolution_pct time_min"))
 
 
 def time_point_text(chain) -> str:

@@ -363,8 +363,8 @@ class _SortedLots:
         """Flat positions of rows ``i[b, ...]`` of each replicate b's prefix weights and masks
         (``weight.reshape(-1)``, ``masks.reshape(-1, words)``): one index array for ``np.take``, which
         gathers the same elements as ``masks[b, i]`` several times faster than indexing by two arrays."""
-        rows = self.weight.shape[1]
-        return i + (np.arange(i.shape[0]) * rows).reshape((-1,) + (1,) * (i.ndim - 1))
+        B, rows = self.weight.shape
+        return i + (np.arange(B) * rows).reshape((-1,) + (1,) * (i.ndim - 1))  # i of 1 replicate spreads to B
 
     def count(self, x: np.ndarray, side: str) -> np.ndarray:
         """Per replicate b, how many of its lots' residuals lie below

@@ -248,7 +248,9 @@ def contributions_unit(name: str, p: dict) -> str:
 
 #: what the sheet says once of every attribute's contributions and base value (above its predictions table)
 CONTRIBUTIONS_NOTE = ("An attribute's contributions are in its unit: the model's value is its base value plus "
-                      "the contribution of every input (the largest are listed).")
+                      "the contribution of every input (the largest are listed), before the projection onto the "
+                      "attribute's physical range (where a value was projected, the predicted value shown is the "
+                      "projected one).")
 
 
 def base_text(name: str, p: dict) -> str:

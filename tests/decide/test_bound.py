@@ -438,6 +438,8 @@ def test_a_flat_gather_takes_the_same_prefix_rows_as_indexing_by_replicate_and_r
     assert np.array_equal(np.take(lots.weight.reshape(-1), lots.at(i)), lots.weight[b, i])
     masks = lots.masks.reshape(-1, lots.masks.shape[-1])
     assert np.array_equal(np.take(masks, lots.at(i), axis=0), lots.masks[b, i])
+    one = i[:1]  # rows given for one replicate spread to every replicate, as indexing by two arrays broadcasts them
+    assert np.array_equal(np.take(lots.weight.reshape(-1), lots.at(one)), lots.weight[b, one])
     x = rng.normal(size=(B, 6, 5))
     for side in ("left", "right"):
         expected = np.array([[[np.sum(np.sort(col[pick[k]]) < v) if side == "left" else

@@ -304,4 +304,4 @@ def test_stages_made_in_code_without_a_dissolution_limit_judge_only_the_acceptan
     spec = Spec(limits={}, dissolution_judge="stages", acceptance_value_max=15.0)
     judged = C.judge_draws(_Chain(spread), _draws({"dissolution_pct": 90.0}), spec, seed=0)
     assert list(judged.passes) == ["acceptance_value"] and not judged.stages
-    assert C.judged_on_units(spec, C.DISSOLUTION) == ["acceptance_value"]
+    assert C.judged_on_units(spec, [C.DISSOLUTION]) == ["acceptance_value"]

@@ -173,3 +173,13 @@ def test_the_designs_words_open_no_bracket_inside_the_watchs_and_follow_the_code
     finally:
         mewma._KEPT.clear()
         mewma._KEPT.update(kept)
+
+
+def test_the_designs_method_names_the_runs_it_was_simulated_with():
+    """The method's words name the runs h was chosen from: RUNS with the parameters known (the tabulated
+    designs), RUNS_ESTIMATED with them estimated from the training lots (a user test read 4000 runs beside
+    runs_estimated 2000). A wording regression of this module's own constants: no outside source."""
+    from linkage.decide import mewma
+
+    assert f"({mewma.RUNS} seeded in-control runs" in design(3)["method"]
+    assert f"({mewma.RUNS_ESTIMATED} seeded in-control runs" in mewma._design(2, mewma.LAMBDA, mewma.ARL0, 12)["method"]
