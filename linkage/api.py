@@ -1082,7 +1082,7 @@ def report(out=None, *, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, mode
                              curve_draws=REPORT_CURVE_DRAWS, assurance=assurance, plan=plan, space=space,
                              reused=reused, kept_figures=kept_figures, other_lots=others,
                              store_cautions=store_cautions, set_aside=tables.set_aside, set_aside_rows=aside_rows,
-                             origin=origin)
+                             origin=origin, ribbon=tables.get("ribbon"))  # the watch's looks at each sample
     _keep_report_results(models_dir, chain.model_id, spec, rendered, registered=registered,
                          designs=[] if designs is None else designs.result, simulation=simulation,
                          window_args=window_args, space_args=space_args, figures_key=figures_key)

@@ -40,7 +40,7 @@ from __future__ import annotations
 
 import math
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import partial
 from datetime import datetime, timezone
 from pathlib import Path
@@ -310,7 +310,8 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
                   assurance: float = 0.9, plan=None, space=None, reused: dict[str, str] | None = None,
                   parallel: bool = True, kept_figures=None, other_lots=None,
                   store_cautions: list[str] | None = None, set_aside: dict | None = None,
-                  set_aside_rows: pd.DataFrame | None = None, origin: dict | None = None) -> Report:
+                  set_aside_rows: pd.DataFrame | None = None, origin: dict | None = None,
+                  ribbon: pd.DataFrame | None = None) -> Report:
     """Build the report of a fitted chain.
 
     Parameters
@@ -349,6 +350,11 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
     origin : how the model came to be, from the lot store's audit trail (:func:`model_origin`): promoted by
         ``linkage retrain`` (by the rule, or by force with its reason and the lots the watch had flagged) or left
         a challenger; "At a glance" and the model card say it. None (no such entry): nothing is said of it.
+    ribbon : the ribbon table of the lots (one row a sample, as the lot store holds it): the drift section then
+        lists the looks at each ribbon sample that ``linkage watch`` lists (against ±3 SD about its lot's running
+        mean, and against the porosity window where one was found), as
+        :func:`linkage.decide.watch.porosity_within` makes them. None: the section lists the looks at lot values
+        only, and says so.
     kept_figures : the figures an earlier report drew with the same inputs
         (a :class:`linkage.models.reuse.Reused` of kind "figures",
         :mod:`linkage.report.kept`): a figure whose caption is the one kept
@@ -363,11 +369,13 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
 
     with frozen_heap():  # the chain, the tables and the modules are not walked by every collection (its docstring)
         return _render(chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
-                       reused, parallel, kept_figures, other_lots, store_cautions, set_aside, set_aside_rows, origin)
+                       reused, parallel, kept_figures, other_lots, store_cautions, set_aside, set_aside_rows, origin,
+                       ribbon)
 
 
 def _render(chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space, reused,
-            parallel, kept_figures, other_lots, store_cautions, set_aside, set_aside_rows, origin=None) -> Report:
+            parallel, kept_figures, other_lots, store_cautions, set_aside, set_aside_rows, origin=None,
+            ribbon=None) -> Report:
     """:func:`render_report` (its arguments, in its order)."""
     from linkage.decide.watch import remember_training_design, watch
     from linkage.report.background import Background
@@ -389,7 +397,7 @@ def _render(chain, table, spec, window, lots, confidence, seed, curve_draws, ass
     try:
         _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
                   pending, computed, other_lots=other_lots, store_cautions=store_cautions or [],
-                  set_aside=set_aside or {}, set_aside_rows=set_aside_rows, origin=origin)
+                  set_aside=set_aside or {}, set_aside_rows=set_aside_rows, origin=origin, ribbon=ribbon)
         b.draw_figures()
     finally:
         b.close()
@@ -407,9 +415,10 @@ def _render(chain, table, spec, window, lots, confidence, seed, curve_draws, ass
 
 def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws, assurance, plan, space,
               pending, computed, other_lots=None, store_cautions=(), set_aside=None, set_aside_rows=None,
-              origin=None) -> None:
+              origin=None, ribbon=None) -> None:
     """Every section in order into ``b``. ``pending``: the watch and (unless given) the map, being computed;
-    ``computed`` gets the window and the map when they were computed here."""
+    ``computed`` gets the window and the map when they were computed here; ``ribbon``: the ribbon samples the
+    watch looks at (:func:`_with_sample_looks`), or None."""
     limits = dict(spec.limits) if spec is not None else {}
     window_failure = None
     if spec is not None and window is None:
@@ -454,10 +463,25 @@ def _sections(b, chain, table, spec, window, lots, confidence, seed, curve_draws
 
     if simulated(design):  # the watch's design, simulated here: worth keeping for the next report
         computed["mewma"] = [design]
-    _watch_section(b, chain, table, window, watched)
+    _watch_section(b, chain, table, window, _with_sample_looks(watched, chain, ribbon, window),
+                   samples_looked=ribbon is not None)
     _domain_section(b, chain, table, set_aside or {})
     _model_card(b, chain, spec, window, revised, origin)
     _cautions(b, chain, store_cautions)
+
+
+def _with_sample_looks(watched, chain, ribbon, window):
+    """The watch's result with its looks at each ribbon sample as ``linkage watch`` makes them
+    (:func:`linkage.decide.watch.porosity_within`: against ±3 SD about the lot's running mean, and against the
+    window where one was found, its edges passed as :func:`linkage.api.watch` passes them). The watch itself runs
+    in another process before the window is known; these looks are cheap, so they are made here once it is.
+    ``watched`` as it is when no ribbon table was given."""
+    from linkage.decide.watch import porosity_within
+
+    if ribbon is None:
+        return watched
+    edges = (window.low.value, window.high.value) if window is not None and window.found else None
+    return replace(watched, porosity_within=porosity_within(ribbon, set(chain.training["lots"]), edges))
 
 
 def _window_or_reason(chain, spec, confidence, seed, assurance=0.9):
@@ -1341,9 +1365,10 @@ def _roll_force(b, table, w):
 
 # ----------------------------------------------------------------- 8. domain
 
-def _watch_section(b, chain, table, window, result):
+def _watch_section(b, chain, table, window, result, samples_looked: bool = False):
     """Drift watch: residual charts per attribute, lot-mean porosity; ``result``: the watch of the
-    table's lots (:func:`linkage.decide.watch.watch`)."""
+    table's lots (:func:`linkage.decide.watch.watch`); ``samples_looked``: whether it looked at each ribbon
+    sample (:func:`_with_sample_looks`; when not, the list of other looks says it leaves them out)."""
     from linkage.report import figures as F
 
     from linkage.decide.mewma import LAMBDA
@@ -1399,7 +1424,7 @@ def _watch_section(b, chain, table, window, result):
 
     looks = other_looks(result.other_signals)  # as ``linkage watch`` lists them
     if looks:
-        b.add(_part("watch", "other_looks", looks=looks))
+        b.add(_part("watch", "other_looks", looks=looks, samples_looked=samples_looked))
 
 
 def _alarm_figure(b, result) -> None:
