@@ -247,3 +247,33 @@ def test_the_alarms_design_is_simulated_at_training_and_read_by_the_watch(drift,
         mewma._KEPT.clear()
         mewma._KEPT.update(saved_kept)
         mewma._design.cache_clear()
+
+
+def test_each_ribbon_sample_is_judged_against_its_lots_earlier_samples_as_pandas_computes_them():
+    """porosity_within, against pandas' own groupby and shifted expanding mean (the mean of each lot's earlier
+    samples in time order) and the pooled within-lot SD: the same samples in the same order, the same porosity,
+    and a flag exactly where |porosity - mean of the earlier samples| > 3 SD (at least two earlier samples) or
+    the porosity leaves the window (NIST/SEMATECH e-Handbook §6.3.2: limits at 3 SD of the within-group spread)."""
+    from linkage.decide.watch import pooled_within_sd
+
+    lots = make_lots(30, seed=5)
+    ribbon = lots.tables["ribbon"].copy()
+    trained = set(sorted(ribbon["lot"].astype(str).unique())[:20])
+    # a jump within a new lot: its last sample some 0.07 more porous than its earlier ones
+    counts = ribbon.groupby("lot")["sample"].transform("size")
+    last = ribbon[(~ribbon["lot"].astype(str).isin(trained)) & (counts >= 3)].index[-1]
+    ribbon.loc[last, "envelope_density_g_cm3"] *= 0.9
+    window = (0.28, 0.30)
+    got = porosity_within(ribbon, trained, window)
+    df = ribbon.assign(lot=ribbon["lot"].astype(str),
+                       porosity=1 - ribbon["envelope_density_g_cm3"] / ribbon["skeletal_density_g_cm3"])
+    df = df.sort_values(["lot", "sampled_at"], kind="stable")
+    earlier = df.groupby("lot")["porosity"].transform(lambda s: s.expanding().mean().shift())
+    n_earlier = df.groupby("lot").cumcount()
+    sigma = pooled_within_sd(ribbon, trained)[0]
+    assert [(g["lot"], g["porosity"]) for g in got] == list(zip(df["lot"], df["porosity"]))
+    drift = ((n_earlier >= 2) & ((df["porosity"] - earlier).abs() > 3 * sigma)).tolist()
+    outside = (~df["porosity"].between(*window)).tolist()
+    assert [any("more than 3 within-lot SD" in f for f in g["flags"]) for g in got] == drift
+    assert [any("outside the window" in f for f in g["flags"]) for g in got] == outside
+    assert any(drift) and any(outside) and not all(outside)  # both kinds of flag are met
