@@ -103,6 +103,9 @@ class RetrainDecision:
     set_aside_in_training: list[str] = field(default_factory=list)
     #: new lots that were set aside when the champion was trained and restored since (not new lots)
     restored_since_training: list[str] = field(default_factory=list)
+    #: the watch's alarm design simulated for the challenger and kept in its training record
+    #: (``training["watch_design"]``, :func:`linkage.decide.watch.design_at_training`), as ``train --json`` gives it
+    challenger_watch_design: dict | None = None
 
     def to_dict(self) -> dict:
         return {
@@ -123,6 +126,7 @@ class RetrainDecision:
             "set_aside_lots": self.set_aside_lots,
             "set_aside_in_training": self.set_aside_in_training,
             "restored_since_training": self.restored_since_training,
+            "challenger_watch_design": self.challenger_watch_design,
             "promotion_test": {"test": TEST.format(alpha=ALPHA), "alpha": ALPHA, "margin": self.tolerance,
                                "min_new_lots": MIN_NEW_LOTS},
             "caution": CAUTION,
@@ -371,6 +375,7 @@ def retrain(store_path, models_dir, *, product: str | None = None, spec=None, fo
         reason=given_reason(reason) or "", reasons=reasons, rule=RULE, tolerance=tolerance, new_lots=new_lots,
         comparisons=comparisons, window_moved=moved, notes=notes, product=product, alarmed_lots=alarmed,
         set_aside_lots=aside[0], set_aside_in_training=aside[1], restored_since_training=restored,
+        challenger_watch_design=challenger.training["watch_design"],
     )
     _record_decision(store_path, models_dir, decision, user)
     return decision

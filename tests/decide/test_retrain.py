@@ -117,6 +117,9 @@ def test_retrain_records_a_decision_and_the_window_moves_right(campaign):
     assert challenger.training["watch_design"] == design_at_training(challenger)
     assert challenger.training["watch_design"]["design"]["n_reference_lots"] > \
         registry.load(models, champion).training["watch_design"]["design"]["n_reference_lots"]
+    # and retrain --json says it, as train --json says its model's (a new-user test: it was only in the model)
+    assert d["challenger_watch_design"] == challenger.training["watch_design"]
+    assert recorded[-1]["challenger_watch_design"] == d["challenger_watch_design"]  # the registry's decision
     # and in the audit trail
     with LotStore(store, create=False) as s:
         actions = [e["action"] for e in s.audit()]
