@@ -813,11 +813,16 @@ def _ranges(table) -> list[list[str]]:
     return rows
 
 
-def _exclusions(chain, table) -> str:
-    t = _by_lot(table)
+#: the attribute cell of a row of lots that every attribute of the model leaves out for the same reason
+ALL_ATTRIBUTES = "all attributes"
+
+
+def _left_out(chain, t: pd.DataFrame) -> dict[str, dict[str, list[str]]]:
+    """Per attribute of ``chain``, the lots of ``t`` (the table by lot) its fit did not use, grouped by why, in the
+    table's order."""
     trained = dict(zip(t.index, chain.trained_on(t.index)))
     restored = set(_restored_lots(chain, t.index))  # not new: set aside when the model was trained
-    rows = []
+    left_out = {}
     for name, target in chain.targets.items():
         used = set(str(v) for v in target.lots)
         reasons: dict[str, list[str]] = {}
@@ -833,8 +838,24 @@ def _exclusions(chain, table) -> str:
                 gone = [c for c in need if c not in t.columns or pd.isna(t.at[lot, c])]
                 why = ("no value of " + ", ".join(gone)) if gone else "left out by the training step"
             reasons.setdefault(why, []).append(lot)
+        left_out[name] = reasons
+    return left_out
+
+
+def _exclusions(chain, table) -> str:
+    """The table of lots a model left out: attribute, why, how many, which. Lots that every attribute leaves out
+    for the same reason (the lots since training, say) are one row for all attributes, not one per attribute
+    (a new-user test: the same lots repeated once for each of 8 attributes); the others one row per attribute."""
+    left_out = _left_out(chain, _by_lot(table))
+    groups = list(left_out.values())
+    shared = {why: lots_ for why, lots_ in groups[0].items()
+              if len(groups) > 1 and all(g.get(why) == lots_ for g in groups[1:])} if groups else {}
+    rows = [[ALL_ATTRIBUTES, why, str(len(lots_)), _part("blocks", "lots", values=_lots_text(lots_))]
+            for why, lots_ in shared.items()]
+    for name, reasons in left_out.items():
         for why, lots_ in reasons.items():
-            rows.append([name, why, str(len(lots_)), _part("blocks", "lots", values=_lots_text(lots_))])
+            if why not in shared:
+                rows.append([name, why, str(len(lots_)), _part("blocks", "lots", values=_lots_text(lots_))])
     if not rows:
         return str(_part("lots", "all_used"))
     return str(table_html(["attribute", "why", "lots", "which"], rows, num_cols={2}))

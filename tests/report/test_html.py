@@ -168,6 +168,31 @@ def test_lots_left_out_are_listed_with_the_reason(chain, table):
     assert H._exclusions(chain, table) == "<p>Every lot of the table was used for every attribute.</p>"
 
 
+def _left_out_rows(chain, table) -> list[list[str]]:
+    """The cells of each row of the table of lots a model left out, as text."""
+    rows = re.findall(r"<tr>(.*?)</tr>", H._exclusions(chain, table), flags=re.S)[1:]  # after the header
+    return [[html.unescape(re.sub(r"<[^>]+>", "", c)) for c in re.findall(r"<td[^>]*>(.*?)</td>", r, re.S)]
+            for r in rows]
+
+
+def test_lots_every_attribute_left_out_for_the_same_reason_are_said_once(chain, table):
+    """A new-user test (regression test, no outside source): the lots added since training, which every attribute
+    leaves out, were listed once per attribute (the same lots 8 times for 8 attributes). They are one row for all
+    attributes, in the same words; a lot one attribute alone leaves out (no value of it) keeps its attribute's row."""
+    assert len(chain.targets) > 1
+    new_lots = ["NEW-1", "NEW-2", "NEW-3"]
+    since = pd.concat([table, table.iloc[:3].assign(lot=new_lots)], ignore_index=True)
+    why_new = "not in the data the model was trained on (added or changed later)"
+    assert _left_out_rows(chain, since) == [[H.ALL_ATTRIBUTES, why_new, "3", ", ".join(new_lots)]]
+    # where the attributes differ: LOT-003 without dissolution is left out of that attribute alone
+    since.loc[since["lot"] == "LOT-003", "dissolution_pct"] = np.nan
+    target = chain.targets["dissolution_pct"]
+    as_trained = dataclasses.replace(target, lots=[v for v in target.lots if v != "LOT-003"])
+    trained = dataclasses.replace(chain, targets={**chain.targets, "dissolution_pct": as_trained})
+    assert _left_out_rows(trained, since) == [[H.ALL_ATTRIBUTES, why_new, "3", ", ".join(new_lots)],
+                                              ["dissolution_pct", "no value of dissolution_pct", "1", "LOT-003"]]
+
+
 def test_missing_data_gives_a_note_not_a_blank(chain, table):
     b = H._Builder()
     H._ribbon_section(b, chain, table.drop(columns="roll_gap_mm"), {})
