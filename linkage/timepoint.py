@@ -78,7 +78,7 @@ def time_point_error(spec, rule: str) -> SpecError:
     """The error (exit code 2) for a spec at a time point the model was not
     trained for, naming the spec file and its time_min."""
     return SpecError(toml_problem(getattr(spec, "file", None) or "spec", rule, table="dissolution_pct",
-                                  key="time_min", value=spec_time_point(spec), column="dissolution_pct time_min"))
+                                  value=spec_time_point(spec), column="dissolution_pct time_min"))
 
 
 def time_point_text(chain) -> str:

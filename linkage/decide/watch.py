@@ -373,6 +373,7 @@ def porosity_within(ribbon: pd.DataFrame | None, trained_lots: set[str], window:
     if lots is not None:
         df = df[df["lot"].isin(lots)]
     order = ["lot", "sampled_at"] if "sampled_at" in df and df["sampled_at"].notna().any() else ["lot"]
+    df = df[df["lot"].notna()]  # a sample without a lot belongs to no lot (grouping by lot left it out too)
     df = df.sort_values(order, kind="stable")  # each lot's samples together, in time order within the lot
     # the columns as Python values (what iterating the frame row by row gave, without a row object a sample:
     # 0.8 s at 1,000 lots went on making them)

@@ -354,7 +354,7 @@ def render_report(chain, table: pd.DataFrame, *, spec=None, window=None, lots: p
         lists the looks at each ribbon sample that ``linkage watch`` lists (against ±3 SD about its lot's running
         mean, and against the porosity window where one was found), as
         :func:`linkage.decide.watch.porosity_within` makes them. None: the section lists the looks at lot values
-        only, and says so.
+        only, and says so where it lists any.
     kept_figures : the figures an earlier report drew with the same inputs
         (a :class:`linkage.models.reuse.Reused` of kind "figures",
         :mod:`linkage.report.kept`): a figure whose caption is the one kept
@@ -1445,7 +1445,10 @@ def _watch_section(b, chain, table, window, result, samples_looked: bool = False
 
     looks = other_looks(result.other_signals)  # as ``linkage watch`` lists them
     if looks:
-        b.add(_part("watch", "other_looks", looks=looks, samples_looked=samples_looked))
+        found = window is not None and getattr(window, "found", False)  # the window the samples were judged against
+        window_text = (f"{window.low.value:.3f}–{window.high.value:.3f} at {percent_text(window.confidence)} "
+                       "confidence") if found else None
+        b.add(_part("watch", "other_looks", looks=looks, samples_looked=samples_looked, window_text=window_text))
 
 
 def _alarm_figure(b, result) -> None:

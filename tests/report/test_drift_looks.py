@@ -91,6 +91,9 @@ def test_the_report_given_the_ribbon_lists_the_sample_looks_watch_lists(drift): 
     assert shown[start:start + len(expected)] == expected
     assert f"({len(result.other_signals)} signal(s);" in expected[0]
     assert not any(line.startswith("No ribbon samples were given") for line in shown)  # said only without them
+    # which window the samples were judged against is said, since linkage watch finds its own (a review)
+    said = f"Each ribbon sample is judged against this report's porosity window ({edges[0]:.3f}–{edges[1]:.3f} at 90%"
+    assert any(line.startswith(said) for line in shown), said
     # what the ribbon table adds is the sample looks alone: the watch without it lists the others
     assert len(watch(chain, table).other_signals) == len(result.other_signals) - len(samples)
 
