@@ -399,6 +399,12 @@ def porosity_within(ribbon: pd.DataFrame | None, trained_lots: set[str], window:
     return out
 
 
+def sample_looks(chain, ribbon: pd.DataFrame | None, window: tuple[float, float] | None) -> list[dict]:
+    """The watch's looks at each ribbon sample (:func:`porosity_within`), the within-lot SD pooled over ``chain``'s
+    training lots: what :func:`watch` makes, and the report once its window is known."""
+    return porosity_within(ribbon, set(chain.training["lots"]), window)
+
+
 def domain_of_new_lots(chain, table: pd.DataFrame, new_lots: list[str]) -> list[dict]:
     out = []
     rows = table[table["lot"].astype(str).isin(new_lots)]
@@ -542,7 +548,6 @@ def alarmed_lots(chain, table: pd.DataFrame) -> dict[str, str]:
 def watch(chain, table: pd.DataFrame, *, ribbon: pd.DataFrame | None = None,
           window: tuple[float, float] | None = None, recorded: list[dict] | None = None) -> WatchResult:
     """Every drift look for the lots of ``table`` (assembled, time order)."""
-    trained = set(chain.training["lots"])
     new_lots, charts = _new_lots_and_charts(chain, table)
     return WatchResult(
         mewma=mewma_look(chain, charts, new_lots),
@@ -550,7 +555,7 @@ def watch(chain, table: pd.DataFrame, *, ribbon: pd.DataFrame | None = None,
         new_lots=new_lots,
         charts=charts,
         porosity_between=porosity_between(chain, table),
-        porosity_within=porosity_within(ribbon, trained, window),
+        porosity_within=sample_looks(chain, ribbon, window),
         domain=domain_of_new_lots(chain, table, new_lots),
         predictions=predictions_vs_measured(recorded or [], table, chain),
     )

@@ -476,12 +476,12 @@ def _with_sample_looks(watched, chain, ribbon, window):
     window where one was found, its edges passed as :func:`linkage.api.watch` passes them). The watch itself runs
     in another process before the window is known; these looks are cheap, so they are made here once it is.
     ``watched`` as it is when no ribbon table was given."""
-    from linkage.decide.watch import porosity_within
+    from linkage.decide.watch import sample_looks
 
     if ribbon is None:
         return watched
     edges = (window.low.value, window.high.value) if window is not None and window.found else None
-    return replace(watched, porosity_within=porosity_within(ribbon, set(chain.training["lots"]), edges))
+    return replace(watched, porosity_within=sample_looks(chain, ribbon, edges))
 
 
 def _window_or_reason(chain, spec, confidence, seed, assurance=0.9):
