@@ -1250,7 +1250,7 @@ def watch(*, store=DEFAULT_STORE, models_dir=DEFAULT_MODELS_DIR, model="latest",
                          f"these lots can show ({exc.lots_text()}); ribbon samples are not judged against a "
                          "window. Add lots, or look at a window at a lower confidence with "
                          "'linkage window --confidence'")
-        found = (w.low.value, w.high.value) if w is not None and w.found else None
+        found = w.edges if w is not None else None
     if product is None:  # the lots of the one product the model was trained on (issue: other products charted)
         product = chain.trained_product
     elif chain.trained_product is not None and product != chain.trained_product:

@@ -130,6 +130,12 @@ class WindowResult:
     def found(self) -> bool:
         return self.low.value is not None
 
+    @property
+    def edges(self) -> tuple[float, float] | None:
+        """(low, high) ribbon porosity of the window found, None when there is none: the edges the watch judges
+        each ribbon sample against and the report's figures shade."""
+        return (self.low.value, self.high.value) if self.found else None
+
     def to_dict(self, curve: bool = True) -> dict:
         out = {
             "model_id": self.model_id,

@@ -480,7 +480,7 @@ def _with_sample_looks(watched, chain, ribbon, window):
 
     if ribbon is None:
         return watched
-    edges = (window.low.value, window.high.value) if window is not None and window.found else None
+    edges = window.edges if window is not None else None
     return replace(watched, porosity_within=sample_looks(chain, ribbon, edges))
 
 
@@ -1203,7 +1203,7 @@ def _curves(b, chain, table, limits, window, curve_draws, seed):
     def make():
         fig, axes = F.grid_axes(len(names), ncols=3, panel=(2.4, 1.8), left=0.85, wspace=0.85)
         t = _by_lot(table)
-        win = (window.low.value, window.high.value) if window is not None and window.found else None
+        win = window.edges if window is not None else None
         for ax, name in zip(axes, names):
             c = curves.curves[name]
             obs = (t[POROSITY], t[name]) if name in t.columns and POROSITY in t.columns else None
@@ -1333,7 +1333,7 @@ def _window_figures(b, spec, w):
     if names:
         def make():
             fig, axes = F.grid_axes(len(names), ncols=3, panel=(2.4, 1.8), left=0.85, wspace=0.85)
-            win = (w.low.value, w.high.value) if w.found else None
+            win = w.edges
             for ax, name in zip(axes, names):
                 band = w.bands[name]
                 F.plot_porosity_curve(w.grid, band["mean"], band["low"], band["high"], name=name,
